@@ -1,0 +1,5 @@
+import sys
+
+from studykit.cli import main
+
+sys.exit(main())

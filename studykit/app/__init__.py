@@ -1,0 +1,1 @@
+"""The browser workbook (ipywidgets + bokeh, served by Voila). No statistics in here."""

@@ -1,0 +1,57 @@
+"""The ``studykit`` command.
+
+Each subcommand lives in its own module of this package and exposes
+``register(subparsers) -> None``; it sets ``func`` on its parser with ``set_defaults(func=...)``.
+``func(args) -> int`` returns the exit status. Input errors (``StudyInputError``) are caught here:
+one clear line on stderr, exit status 2, never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from studykit import __version__
+from studykit.errors import StudyInputError
+
+# subcommand modules, in the order --help lists them; a module that is not there yet is skipped
+SUBCOMMANDS = ["check", "study", "analyze", "gauge", "report", "verify", "keygen", "serve"]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="studykit",
+        description="Capability studies: import, gauge check, stability, shape, capability, evidence.",
+    )
+    parser.add_argument("--version", action="version", version=f"studykit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in SUBCOMMANDS:
+        try:
+            module = importlib.import_module(f"studykit.cli.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"studykit.cli.{name}":
+                continue
+            raise
+        module.register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 0
+    try:
+        return int(args.func(args) or 0)
+    except StudyInputError as exc:
+        print(f"studykit {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""The PDF evidence report, its signatures and its verification."""
