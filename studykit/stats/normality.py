@@ -1,0 +1,390 @@
+"""Normality checks: Anderson-Darling, Shapiro-Wilk and probability-plot coordinates.
+
+All functions take a one-dimensional array of measurements and return frozen results with
+``to_dict()``. Nothing here plots: :func:`probability_plot` returns the coordinates a view draws.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from studykit.errors import AnalysisError, StudyInputError
+
+__all__ = [
+    "PLOTTING_POSITIONS",
+    "AndersonDarlingResult",
+    "ShapiroWilkResult",
+    "ProbabilityPlot",
+    "anderson_darling",
+    "shapiro_wilk",
+    "plotting_positions",
+    "probability_plot",
+]
+
+#: Plotting positions p_i = (i - a) / (n + 1 - 2a) for the i-th smallest of n values, by name.
+#: ``blom``: a = 3/8, Blom (1958), the usual choice for a normal plot; ``benard``: a = 0.3,
+#: Benard & Bos-Levenbach (1953) approximate median ranks; ``hazen``: a = 1/2, Hazen (1914);
+#: ``weibull``: a = 0, mean ranks i/(n+1).
+PLOTTING_POSITIONS = {"blom": 3.0 / 8.0, "benard": 0.3, "hazen": 0.5, "weibull": 0.0}
+
+#: Names of the confidence bands :func:`probability_plot` can draw.
+BANDS = ("beta_pointwise", "ks_simultaneous", None)
+
+
+def _clean(x, *, name="x", minimum=3):
+    """Return a finite float array, or raise an error naming the problem."""
+    try:
+        arr = np.asarray(x, dtype=float).ravel()
+    except (TypeError, ValueError) as exc:
+        raise StudyInputError(
+            f"`{name}` must contain numbers only; could not read it as numbers ({exc})."
+        ) from None
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        where = int(np.flatnonzero(bad)[0])
+        raise AnalysisError(
+            f"`{name}` contains a missing or non-finite value ({arr[where]!r}) at position "
+            f"{where}; remove it or mark it as excluded before testing normality."
+        )
+    if arr.size < minimum:
+        raise AnalysisError(
+            f"`{name}` has {arr.size} values; at least {minimum} are needed for this test."
+        )
+    if np.ptp(arr) == 0:
+        raise AnalysisError(
+            f"`{name}` has zero spread (every value is {arr[0]!r}); a normality test is "
+            "meaningless. Check the gauge resolution or the data import."
+        )
+    return arr
+
+
+def _ad_pvalue(a2_star: float) -> float:
+    """D'Agostino & Stephens (1986) Table 4.9 p-value for the adjusted statistic."""
+    a = a2_star
+    if a >= 0.6:
+        p = math.exp(1.2937 - 5.709 * a + 0.0186 * a * a)
+    elif a >= 0.34:
+        p = math.exp(0.9177 - 4.279 * a - 1.38 * a * a)
+    elif a >= 0.2:
+        p = 1.0 - math.exp(-8.318 + 42.796 * a - 59.938 * a * a)
+    else:
+        p = 1.0 - math.exp(-13.436 + 101.14 * a - 223.73 * a * a)
+    return float(min(max(p, 0.0), 1.0))
+
+
+@dataclass(frozen=True)
+class AndersonDarlingResult:
+    """Anderson-Darling test of normality (mean and variance estimated).
+
+    Attributes
+    ----------
+    a2 : float
+        Unadjusted statistic A^2.
+    a2_star : float
+        Small-sample adjusted statistic A*^2 = A^2 (1 + 0.75/n + 2.25/n^2).
+    p_value : float
+        Approximate p-value from A*^2.
+    n : int
+        Number of values.
+    method : str
+        Always ``"anderson_darling"``.
+    """
+
+    a2: float
+    a2_star: float
+    p_value: float
+    n: int
+    method: str = "anderson_darling"
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "n": self.n,
+            "a2": self.a2,
+            "a2_star": self.a2_star,
+            "p_value": self.p_value,
+        }
+
+
+def anderson_darling(x) -> AndersonDarlingResult:
+    """Anderson-Darling test that ``x`` comes from a normal distribution.
+
+    Parameters
+    ----------
+    x : array-like
+        At least 3 finite measurements with some spread.
+
+    Returns
+    -------
+    AndersonDarlingResult
+        Fields ``a2`` (unadjusted A^2), ``a2_star`` (adjusted), ``p_value``, ``n``, ``method``.
+
+    Notes
+    -----
+    With z_i = Phi((x_(i) - mean) / s), s the sample standard deviation (n - 1):
+
+        A^2 = -n - (1/n) sum_i (2i - 1) [ln z_i + ln(1 - z_(n+1-i))]
+
+    (the statistic ``scipy.stats.anderson`` reports). A*^2 = A^2 (1 + 0.75/n + 2.25/n^2), and
+    the p-value comes from the four-branch formula for the case of estimated mean and variance
+    (branches at A*^2 = 0.2, 0.34, 0.6).
+
+    References
+    ----------
+    R. B. D'Agostino and M. A. Stephens (eds.), *Goodness-of-Fit Techniques*, Marcel Dekker,
+    1986, section 4.8 and Table 4.9.
+
+    Examples
+    --------
+    >>> r = anderson_darling([49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1])
+    >>> round(r.a2, 6), round(r.p_value, 6)
+    (0.304858, 0.507862)
+    """
+    arr = np.sort(_clean(x))
+    n = arr.size
+    z = (arr - arr.mean()) / arr.std(ddof=1)
+    logcdf = stats.norm.logcdf(z)
+    logsf = stats.norm.logsf(z)
+    i = np.arange(1, n + 1)
+    a2 = float(-n - np.sum((2 * i - 1) * (logcdf + logsf[::-1])) / n)
+    a2_star = a2 * (1.0 + 0.75 / n + 2.25 / n**2)
+    return AndersonDarlingResult(a2=a2, a2_star=float(a2_star), p_value=_ad_pvalue(a2_star), n=n)
+
+
+@dataclass(frozen=True)
+class ShapiroWilkResult:
+    """Shapiro-Wilk test of normality.
+
+    Attributes
+    ----------
+    w : float
+        The W statistic.
+    p_value : float
+        Royston's approximate p-value.
+    n : int
+        Number of values.
+    method : str
+        Always ``"shapiro_wilk"``.
+    """
+
+    w: float
+    p_value: float
+    n: int
+    method: str = "shapiro_wilk"
+
+    def to_dict(self) -> dict:
+        return {"method": self.method, "n": self.n, "w": self.w, "p_value": self.p_value}
+
+
+def shapiro_wilk(x) -> ShapiroWilkResult:
+    """Shapiro-Wilk test that ``x`` comes from a normal distribution.
+
+    Parameters
+    ----------
+    x : array-like
+        3 to 5000 finite measurements with some spread (above 5000 the p-value is rough).
+
+    Returns
+    -------
+    ShapiroWilkResult
+        Fields ``w``, ``p_value``, ``n``, ``method``.
+
+    Notes
+    -----
+    W = (sum a_i x_(i))^2 / sum (x_i - mean)^2 with Royston's coefficients a_i, computed by
+    ``scipy.stats.shapiro``.
+
+    References
+    ----------
+    S. S. Shapiro and M. B. Wilk, "An analysis of variance test for normality", Biometrika 52
+    (1965) 591-611; J. P. Royston, "Algorithm AS R94", Applied Statistics 44 (1995) 547-551.
+
+    Examples
+    --------
+    >>> r = shapiro_wilk([49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1])
+    >>> round(r.w, 6)
+    0.933652
+    """
+    arr = _clean(x)
+    res = stats.shapiro(arr)
+    return ShapiroWilkResult(w=float(res.statistic), p_value=float(res.pvalue), n=arr.size)
+
+
+def plotting_positions(n: int, *, positions: str = "blom") -> np.ndarray:
+    """Cumulative probabilities assigned to the ordered values of a sample of size ``n``.
+
+    Parameters
+    ----------
+    n : int
+        Sample size (at least 1).
+    positions : {"blom", "benard", "hazen", "weibull"}
+        Named rule, see Notes.
+
+    Returns
+    -------
+    numpy.ndarray
+        p_1 < ... < p_n.
+
+    Notes
+    -----
+    p_i = (i - a) / (n + 1 - 2a) with a = 3/8 (Blom), 0.3 (Benard, median ranks), 1/2 (Hazen),
+    0 (Weibull, mean ranks). Same family as ``scipy.stats.mstats.plotting_positions(x, a, a)``.
+
+    References
+    ----------
+    G. Blom, *Statistical Estimates and Transformed Beta-Variables*, Wiley, 1958;
+    A. Benard and E. C. Bos-Levenbach, Statistica 7 (1953) 163-173.
+
+    Examples
+    --------
+    >>> plotting_positions(4, positions="hazen").tolist()
+    [0.125, 0.375, 0.625, 0.875]
+    """
+    if positions not in PLOTTING_POSITIONS:
+        raise StudyInputError(
+            f"`positions` ({positions!r}) must be one of {sorted(PLOTTING_POSITIONS)}."
+        )
+    if int(n) != n or n < 1:
+        raise StudyInputError(f"`n` ({n!r}) must be a whole number of at least 1.")
+    a = PLOTTING_POSITIONS[positions]
+    i = np.arange(1, int(n) + 1, dtype=float)
+    return (i - a) / (n + 1 - 2 * a)
+
+
+@dataclass(frozen=True)
+class ProbabilityPlot:
+    """Coordinates of a normal probability plot with a confidence band.
+
+    Attributes
+    ----------
+    values : list of float
+        Ordered data (abscissa).
+    probabilities : list of float
+        Plotting positions p_i.
+    normal_scores : list of float
+        Phi^-1(p_i) (ordinate on a normal-score axis).
+    line_mean, line_sigma : float
+        Reference line x = mean + sigma * z (sample mean and standard deviation).
+    band_lower, band_upper : list of float or None
+        Band in data units at each normal score: where the i-th ordered value may fall under
+        normality. ``None`` when no band was asked for.
+    outside_band : list of bool or None
+        Whether each ordered value falls outside the band.
+    positions, band, level, n : inputs
+    """
+
+    values: list
+    probabilities: list
+    normal_scores: list
+    line_mean: float
+    line_sigma: float
+    band_lower: list | None
+    band_upper: list | None
+    outside_band: list | None
+    positions: str
+    band: str | None
+    level: float
+    n: int
+
+    def to_dict(self) -> dict:
+        return {
+            "n": self.n,
+            "positions": self.positions,
+            "band": self.band,
+            "level": self.level,
+            "values": list(self.values),
+            "probabilities": list(self.probabilities),
+            "normal_scores": list(self.normal_scores),
+            "line_mean": self.line_mean,
+            "line_sigma": self.line_sigma,
+            "band_lower": None if self.band_lower is None else list(self.band_lower),
+            "band_upper": None if self.band_upper is None else list(self.band_upper),
+            "outside_band": None if self.outside_band is None else list(self.outside_band),
+        }
+
+
+def probability_plot(
+    x, *, positions: str = "blom", band: str | None = "beta_pointwise", level: float = 0.95
+) -> ProbabilityPlot:
+    """Normal probability-plot coordinates with a confidence band.
+
+    Parameters
+    ----------
+    x : array-like
+        At least 3 finite measurements with some spread.
+    positions : {"blom", "benard", "hazen", "weibull"}
+        Plotting positions (default Blom).
+    band : {"beta_pointwise", "ks_simultaneous", None}
+        ``beta_pointwise``: for each i, the central ``level`` interval of the i-th uniform order
+        statistic, Beta(i, n - i + 1), mapped through the fitted normal; each point separately
+        has probability ``level`` of lying inside. ``ks_simultaneous``: p_i -/+ d, d the
+        Kolmogorov-Smirnov critical value (``scipy.stats.kstwo``); all points together lie inside
+        with probability at least ``level`` for known parameters (conservative when mean and sigma
+        are estimated, as here).
+    level : float
+        Confidence level in (0, 1).
+
+    Returns
+    -------
+    ProbabilityPlot
+        See the class for fields.
+
+    Notes
+    -----
+    Band in data units: mean + s * Phi^-1(q), q = Beta(i, n-i+1) quantiles at (1-level)/2 and
+    (1+level)/2, or q = min/max(p_i -/+ d) clipped to (0, 1).
+
+    References
+    ----------
+    H. A. David and H. N. Nagaraja, *Order Statistics*, 3rd ed., Wiley, 2003, section 2.2 (order
+    statistics of the uniform are beta); NIST/SEMATECH e-Handbook of Statistical Methods,
+    section 1.3.5.16 (Kolmogorov-Smirnov test).
+
+    Examples
+    --------
+    >>> p = probability_plot([49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1])
+    >>> p.n, p.band, any(p.outside_band)
+    (10, 'beta_pointwise', False)
+    """
+    if band not in BANDS:
+        raise StudyInputError(f"`band` ({band!r}) must be one of {list(BANDS)}.")
+    if not 0 < level < 1:
+        raise StudyInputError(f"`level` ({level!r}) must lie strictly between 0 and 1, e.g. 0.95.")
+    arr = np.sort(_clean(x))
+    n = arr.size
+    p = plotting_positions(n, positions=positions)
+    z = stats.norm.ppf(p)
+    mean, sigma = float(arr.mean()), float(arr.std(ddof=1))
+    lower = upper = outside = None
+    if band is not None:
+        if band == "beta_pointwise":
+            i = np.arange(1, n + 1)
+            qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+            qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+        else:
+            d = float(stats.kstwo.ppf(level, n))
+            tiny = 1e-12
+            qlo = np.clip(p - d, tiny, 1 - tiny)
+            qhi = np.clip(p + d, tiny, 1 - tiny)
+        lo = mean + sigma * stats.norm.ppf(qlo)
+        hi = mean + sigma * stats.norm.ppf(qhi)
+        out = (arr < lo) | (arr > hi)
+        lower, upper, outside = lo.tolist(), hi.tolist(), [bool(v) for v in out]
+    return ProbabilityPlot(
+        values=arr.tolist(),
+        probabilities=p.tolist(),
+        normal_scores=z.tolist(),
+        line_mean=mean,
+        line_sigma=sigma,
+        band_lower=lower,
+        band_upper=upper,
+        outside_band=outside,
+        positions=positions,
+        band=band,
+        level=float(level),
+        n=n,
+    )
