@@ -1,0 +1,1783 @@
+"""Read measurement tables (CSV or XLSX) into tidy, validated :class:`Measurements`.
+
+A measurement file comes in one of two shapes:
+
+*wide*
+    one column per characteristic, one row per part in production order, and optionally a
+    subgroup column, a time column and a note column (recognised by their header names in
+    English and German, e.g. ``Sample``/``Stichprobe``, ``Time``/``Zeit``, ``Note``/``Bemerkung``);
+*long*
+    one row per measured value, with a column naming the characteristic (``Characteristic``,
+    ``Merkmal``...), a value column (``Value``, ``Messwert``...) and the same optional columns.
+
+``layout="auto"`` tells them apart by the header names and says in ``notes`` what it found.
+Separators (comma, semicolon, tab), the decimal sign (point or comma) and the text encoding
+(UTF-8 with or without BOM, UTF-16 with BOM, Windows-1252/Latin-1) are detected from the file.
+A unit in a header (``Bore diameter [mm]`` or ``Bore diameter (mm)``) is split off.
+
+Empty cells are kept as NaN and counted; they are never dropped here (the analysis drops them
+and says how many). Every problem raises :class:`~studykit.errors.DataFileError` whose message
+names the file, the row as a spreadsheet numbers it (header = row 1), the column, the offending
+value and what to do about it.
+
+CSV files are read in chunks, so a large file needs memory for its numbers, not for its text.
+"""
+
+from __future__ import annotations
+
+import codecs
+import csv
+import datetime as _dt
+import hashlib
+import io
+import math
+import re
+import zipfile
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from studykit.errors import DataFileError, StudyInputError
+
+__all__ = [
+    "CharacteristicData",
+    "Measurements",
+    "read_measurements",
+    "read_measurements_bytes",
+    "parse_header",
+    "LARGE_SUBGROUP",
+    "DEFAULT_MAX_BYTES",
+]
+
+#: Subgroups with more values than this are allowed but warned about (range charts lose
+#: efficiency; an S chart is the better choice). Common practice, no source.
+LARGE_SUBGROUP = 25
+
+#: Default size limit for uploads through the workbook (bytes). The library itself has no
+#: limit unless ``max_bytes`` is given.
+DEFAULT_MAX_BYTES = 100 * 1024 * 1024
+
+_CHUNK_ROWS = 100_000
+_XLSX_CHUNK_ROWS = 20_000
+_SAMPLE_BYTES = 64 * 1024
+_READ_BLOCK = 1 << 20
+
+# ----------------------------------------------------------------------------------------------
+# header names that give a column a role (compared after _norm_header)
+_SUBGROUP_NAMES = {
+    "subgroup", "sub group", "subgroups", "sample", "samples", "lot", "batch", "group",
+    "sample group", "subgroup number",
+    "stichprobe", "stichproben", "untergruppe", "gruppe", "los", "charge", "teilgruppe", "probe",
+}
+_TIME_NAMES = {
+    "time", "timestamp", "time stamp", "date", "datetime", "date time", "measured at",
+    "measurement time", "zeit", "zeitstempel", "datum", "uhrzeit", "datum uhrzeit", "messzeit",
+    "messdatum", "zeitpunkt",
+}
+_NOTE_NAMES = {
+    "note", "notes", "comment", "comments", "remark", "remarks", "bemerkung", "bemerkungen",
+    "kommentar", "kommentare", "notiz", "notizen", "hinweis", "anmerkung",
+}
+_CHARACTERISTIC_NAMES = {
+    "characteristic", "characteristic name", "feature", "parameter", "variable", "measurand",
+    "merkmal", "merkmalsname", "messgrosse", "messgröße", "kenngrosse", "kenngröße", "prüfmerkmal",
+}
+_VALUE_NAMES = {
+    "value", "values", "measurement", "measured value", "reading", "result",
+    "wert", "messwert", "istwert", "ergebnis",
+}
+_UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
+_TRAILING_TOKENS = {"no", "nr", "number", "num", "id", "nummer", "index"}
+
+_UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")
+_COMMA_DECIMAL_RE = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
+_POINT_DECIMAL_RE = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
+_NONFINITE_RE = re.compile(r"^[+-]?(?:nan|inf|infinity|#?n/?a|#num!?)$", re.IGNORECASE)
+_EXCEL_ERROR_RE = re.compile(r"^#(?:DIV/0!|N/A|NAME\?|NULL!|NUM!|REF!|VALUE!|SPILL!|CALC!)$", re.I)
+
+
+def parse_header(text) -> tuple[str, str | None]:
+    """Split a header such as ``'Bore diameter [mm]'`` into name and unit.
+
+    Parameters
+    ----------
+    text : str
+        The header cell.
+
+    Returns
+    -------
+    tuple of (str, str or None)
+        The name without the unit, and the unit (``None`` when the header has none).
+
+    Examples
+    --------
+    >>> parse_header("Bore diameter [mm]")
+    ('Bore diameter', 'mm')
+    >>> parse_header("Drehmoment (Nm)")
+    ('Drehmoment', 'Nm')
+    >>> parse_header("Flatness")
+    ('Flatness', None)
+    """
+    text = str(text).strip()
+    m = _UNIT_RE.match(text)
+    if m and m.group("name").strip():
+        unit = (m.group("u1") if m.group("u1") is not None else m.group("u2")).strip()
+        return m.group("name").strip(), (unit or None)
+    return text, None
+
+
+def _norm_header(text: str) -> str:
+    name, _unit = parse_header(text)
+    s = re.sub(r"[\s._:#/\\-]+", " ", name.casefold()).strip()
+    tokens = s.split()
+    while len(tokens) > 1 and tokens[-1] in _TRAILING_TOKENS:
+        tokens.pop()
+    return " ".join(tokens)
+
+
+def _col_letter(index: int) -> str:
+    """Spreadsheet letter of a 0-based column index (0 -> A, 26 -> AA)."""
+    letters = ""
+    index += 1
+    while index:
+        index, rem = divmod(index - 1, 26)
+        letters = chr(65 + rem) + letters
+    return letters
+
+
+def _show(value) -> str:
+    text = str(value)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _fmt_rows(rows, limit: int = 5) -> str:
+    rows = [int(r) for r in rows]
+    shown = ", ".join(str(r) for r in rows[:limit])
+    if len(rows) > limit:
+        shown += f" and {len(rows) - limit} more"
+    return shown
+
+
+# ----------------------------------------------------------------------------------------------
+# result classes
+
+
+def _frozen_array(a: np.ndarray | None) -> np.ndarray | None:
+    if a is None:
+        return None
+    a = np.asarray(a)
+    a.flags.writeable = False
+    return a
+
+
+def _json_float(x) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True, eq=False)
+class CharacteristicData:
+    """The values of one characteristic as read from a file.
+
+    Attributes
+    ----------
+    name : str
+        Header name without the unit.
+    unit : str or None
+        Unit from the header (``[mm]`` or ``(mm)``) or from a unit column.
+    values : ndarray of float
+        Values in file order; NaN where the cell was empty.
+    subgroups : ndarray of str
+        Subgroup label of each value, in file order. Individuals (no subgrouping) get their
+        position ``'1'..'n'``; subgrouping by a fixed size gives ``'1', '1', ..., '2', ...``.
+    times : ndarray or None
+        ``datetime64[ns]`` when every time cell could be read as a date/time, otherwise the
+        cell text; ``None`` when the file has no time column.
+    notes : ndarray of str or None
+        Note cell text ('' where empty); ``None`` when the file has no note column.
+    rows : ndarray of int
+        Spreadsheet row number of each value (the header is row 1).
+    n_missing : int
+        Number of empty cells (NaN values).
+    subgroup_sizes : dict
+        Subgroup label -> number of non-missing values, in order of first appearance.
+    is_integer : bool
+        Every non-missing value is a whole number (counts, lot sizes).
+    """
+
+    name: str
+    unit: str | None
+    values: np.ndarray
+    subgroups: np.ndarray
+    times: np.ndarray | None
+    notes: np.ndarray | None
+    rows: np.ndarray
+    n_missing: int
+    subgroup_sizes: dict
+    is_integer: bool
+
+    def __post_init__(self):
+        for key in ("values", "subgroups", "times", "notes", "rows"):
+            object.__setattr__(self, key, _frozen_array(getattr(self, key)))
+
+    @property
+    def n(self) -> int:
+        """Number of values including missing ones."""
+        return int(self.values.size)
+
+    @property
+    def n_valid(self) -> int:
+        """Number of non-missing values."""
+        return int(self.values.size - self.n_missing)
+
+    @property
+    def n_subgroups(self) -> int:
+        return len(self.subgroup_sizes)
+
+    @property
+    def label(self) -> str:
+        """Name with unit, e.g. ``'Bore diameter [mm]'``."""
+        return f"{self.name} [{self.unit}]" if self.unit else self.name
+
+    def valid_values(self) -> np.ndarray:
+        """The values without the missing ones (file order kept)."""
+        return self.values[~np.isnan(self.values)]
+
+    def check_subgroups(self, *, min_subgroups: int = 2, source: str | None = None) -> None:
+        """Raise :class:`DataFileError` when fewer than `min_subgroups` subgroups hold values.
+
+        Call this before a subgrouped analysis (X-bar/R, X-bar/S, within-subgroup sigma).
+        """
+        filled = [k for k, v in self.subgroup_sizes.items() if v > 0]
+        if len(filled) < min_subgroups:
+            raise DataFileError(
+                f"'{self.name}' has values in {len(filled)} subgroup(s), but at least "
+                f"{min_subgroups} are needed for a subgrouped analysis. Add a subgroup column "
+                "that groups the parts (e.g. one subgroup per production hour), give a subgroup "
+                "size, or analyse the values as individuals.",
+                file=source, column=self.name, value=len(filled),
+            )
+
+    def summary(self) -> dict:
+        """Compact JSON-safe description (no values)."""
+        valid = self.valid_values()
+        sizes = list(self.subgroup_sizes.values())
+        size_counts: dict[str, int] = {}
+        for s in sizes:
+            size_counts[str(s)] = size_counts.get(str(s), 0) + 1
+        return {
+            "name": self.name,
+            "unit": self.unit,
+            "n": self.n,
+            "n_valid": self.n_valid,
+            "n_missing": int(self.n_missing),
+            "n_subgroups": self.n_subgroups,
+            "subgroup_size_min": int(min(sizes)) if sizes else None,
+            "subgroup_size_max": int(max(sizes)) if sizes else None,
+            "subgroup_size_counts": size_counts,
+            "min": _json_float(valid.min()) if valid.size else None,
+            "max": _json_float(valid.max()) if valid.size else None,
+            "mean": _json_float(valid.mean()) if valid.size else None,
+            "is_integer": bool(self.is_integer),
+            "first_row": int(self.rows[0]) if self.rows.size else None,
+            "last_row": int(self.rows[-1]) if self.rows.size else None,
+        }
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict with every value (None for missing)."""
+        out = self.summary()
+        out["values"] = [None if math.isnan(v) else float(v) for v in self.values.tolist()]
+        out["subgroups"] = [str(s) for s in self.subgroups.tolist()]
+        out["rows"] = [int(r) for r in self.rows.tolist()]
+        out["subgroup_sizes"] = {str(k): int(v) for k, v in self.subgroup_sizes.items()}
+        if self.times is not None:
+            out["times"] = [_time_text(t) for t in self.times]
+        if self.notes is not None:
+            out["notes"] = [str(s) for s in self.notes.tolist()]
+        return out
+
+
+def _time_text(t) -> str | None:
+    if isinstance(t, np.datetime64):
+        return None if np.isnat(t) else str(np.datetime_as_string(t, unit="s"))
+    return None if t is None or t == "" else str(t)
+
+
+@dataclass(frozen=True, eq=False)
+class Measurements:
+    """Everything read from one measurement file.
+
+    Attributes
+    ----------
+    source : str
+        File name (no directory).
+    sha256 : str
+        Hex digest of the raw file bytes.
+    layout : {'wide', 'long'}
+    subgroup_source : {'column', 'size', 'none'}
+    characteristics : tuple of CharacteristicData
+    warnings : tuple of str
+        Things the engineer should look at (missing values, no spread, large subgroups...).
+    notes : tuple of str
+        What was detected (layout, separator, decimal sign, encoding, sheet, column roles).
+    subgroup_column : str or None
+    subgroup_size : int or None
+    sheet, encoding, separator, decimal : str or None
+        How the file was read (sheet for XLSX; encoding, separator and decimal sign for CSV).
+    n_rows : int
+        Data rows read (after the header, trailing empty rows not counted).
+    """
+
+    source: str
+    sha256: str
+    layout: str
+    subgroup_source: str
+    characteristics: tuple
+    warnings: tuple = ()
+    notes: tuple = ()
+    subgroup_column: str | None = None
+    subgroup_size: int | None = None
+    sheet: str | None = None
+    encoding: str | None = None
+    separator: str | None = None
+    decimal: str | None = None
+    n_rows: int = 0
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Characteristic names in file order."""
+        return tuple(c.name for c in self.characteristics)
+
+    def __len__(self) -> int:
+        return len(self.characteristics)
+
+    def __iter__(self) -> Iterator[CharacteristicData]:
+        return iter(self.characteristics)
+
+    def get(self, name: str) -> CharacteristicData:
+        """The characteristic called `name` (also matches ``'Name [unit]'`` or any case)."""
+        for c in self.characteristics:
+            if c.name == name or c.label == name:
+                return c
+        folded = str(name).strip().casefold()
+        for c in self.characteristics:
+            if c.name.casefold() == folded or c.label.casefold() == folded:
+                return c
+        raise DataFileError(
+            f"there is no characteristic named '{name}'. The file has: "
+            + ", ".join(f"'{n}'" for n in self.names)
+            + ". Use one of these names exactly as written.",
+            file=self.source, value=name,
+        )
+
+    def check_subgroups(self, *, min_subgroups: int = 2, name: str | None = None) -> None:
+        """Raise :class:`DataFileError` if a characteristic (or `name` only) has too few
+        subgroups for a subgrouped analysis."""
+        chars = [self.get(name)] if name is not None else self.characteristics
+        for c in chars:
+            c.check_subgroups(min_subgroups=min_subgroups, source=self.source)
+
+    def to_frame(self):
+        """Tidy pandas frame: characteristic, subgroup, value, time, note, row."""
+        import pandas as pd
+
+        parts = []
+        for c in self.characteristics:
+            n = c.values.size
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "characteristic": np.full(n, c.name, dtype=object),
+                        "subgroup": c.subgroups.astype(object),
+                        "value": c.values,
+                        "time": c.times if c.times is not None else np.full(n, None, dtype=object),
+                        "note": c.notes.astype(object)
+                        if c.notes is not None
+                        else np.full(n, None, dtype=object),
+                        "row": c.rows,
+                    }
+                )
+            )
+        if not parts:
+            return pd.DataFrame(columns=["characteristic", "subgroup", "value", "time", "note", "row"])
+        return pd.concat(parts, ignore_index=True)
+
+    def summary(self) -> dict:
+        """Compact JSON-safe description: how the file was read and each characteristic."""
+        return {
+            "source": self.source,
+            "sha256": self.sha256,
+            "layout": self.layout,
+            "subgroup_source": self.subgroup_source,
+            "subgroup_column": self.subgroup_column,
+            "subgroup_size": self.subgroup_size,
+            "sheet": self.sheet,
+            "encoding": self.encoding,
+            "separator": self.separator,
+            "decimal": self.decimal,
+            "n_rows": int(self.n_rows),
+            "characteristics": [c.summary() for c in self.characteristics],
+            "warnings": list(self.warnings),
+            "notes": list(self.notes),
+        }
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict including every value of every characteristic."""
+        out = self.summary()
+        out["characteristics"] = [c.to_dict() for c in self.characteristics]
+        return out
+
+
+# ----------------------------------------------------------------------------------------------
+# public readers
+
+
+def read_measurements(
+    path,
+    *,
+    sheet: str | None = None,
+    layout: str = "auto",
+    subgroup_column: str | None = None,
+    subgroup_size: int | None = None,
+    characteristic_column: str | None = None,
+    value_column: str | None = None,
+    time_column: str | None = None,
+    note_column: str | None = None,
+    encoding: str | None = None,
+    max_bytes: int | None = None,
+) -> Measurements:
+    """Read a CSV or XLSX measurement file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file. ``.xlsx``/``.xlsm`` are read as workbooks, anything else as delimited text;
+        a workbook saved under a ``.csv`` name is recognised by its content.
+    sheet : str, optional
+        Worksheet name (XLSX); the first sheet when omitted.
+    layout : {'auto', 'wide', 'long'}
+        Table shape; ``'auto'`` decides from the header names.
+    subgroup_column : str, optional
+        Column holding the subgroup label of each row. Detected by name when omitted.
+    subgroup_size : int, optional
+        Consecutive values form subgroups of this size (exclusive with `subgroup_column`).
+    characteristic_column, value_column : str, optional
+        Columns of a long table (implies ``layout='long'``).
+    time_column, note_column : str, optional
+        Columns with the time and a remark of each row; detected by name when omitted.
+    encoding : str, optional
+        Text encoding of a CSV file; detected when omitted.
+    max_bytes : int, optional
+        Refuse files larger than this.
+
+    Returns
+    -------
+    Measurements
+        See :class:`Measurements` and :class:`CharacteristicData` for the fields.
+
+    Raises
+    ------
+    DataFileError
+        For every problem with the file; the message names the file, row, column and value.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> folder = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (folder / "bore.csv").write_text(
+    ...     "Stichprobe;Bohrung [mm];Bemerkung\\n1;10,02;\\n1;10,01;\\n2;9,98;Werkzeugwechsel\\n"
+    ...     "2;;\\n", encoding="utf-8")
+    >>> m = read_measurements(folder / "bore.csv")
+    >>> m.layout, m.subgroup_source, m.names
+    ('wide', 'column', ('Bohrung',))
+    >>> bore = m.get("Bohrung")
+    >>> bore.unit, bore.values.tolist()[:3], bore.n_missing, bore.subgroup_sizes
+    ('mm', [10.02, 10.01, 9.98], 1, {'1': 2, '2': 1})
+    >>> bore.rows.tolist()
+    [2, 3, 4, 5]
+    """
+    p = Path(path)
+    if not p.exists():
+        raise DataFileError(
+            "the file does not exist. Check the path and the file name.", file=str(path)
+        )
+    if p.is_dir():
+        raise DataFileError("this is a folder, not a file. Give the path of a CSV or XLSX file.",
+                            file=str(path))
+    size = p.stat().st_size
+    _check_size(size, max_bytes, p.name)
+    src = _Source(name=p.name, path=p, data=None, size=size)
+    return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
+                 subgroup_size=subgroup_size, characteristic_column=characteristic_column,
+                 value_column=value_column, time_column=time_column, note_column=note_column,
+                 encoding=encoding)
+
+
+def read_measurements_bytes(data: bytes, filename: str, **options) -> Measurements:
+    """Read measurements from the raw bytes of an uploaded file.
+
+    Parameters
+    ----------
+    data : bytes
+        File content as uploaded.
+    filename : str
+        The file's name (used for messages and to tell CSV from XLSX).
+    **options
+        The keyword options of :func:`read_measurements`.
+
+    Returns
+    -------
+    Measurements
+
+    Examples
+    --------
+    >>> m = read_measurements_bytes(b"Torque (Nm)\\n5.1\\n5.3\\n5.2\\n", "torque.csv")
+    >>> m.get("Torque").values.tolist(), m.subgroup_source
+    ([5.1, 5.3, 5.2], 'none')
+    """
+    if isinstance(data, bytearray | memoryview):
+        data = bytes(data)
+    if not isinstance(data, bytes):
+        raise DataFileError(
+            f"expected the file content as bytes, got {type(data).__name__}.", file=filename
+        )
+    name = Path(str(filename)).name or "upload"
+    max_bytes = options.pop("max_bytes", None)
+    _check_size(len(data), max_bytes, name)
+    src = _Source(name=name, path=None, data=data, size=len(data))
+    return _read(src, **options)
+
+
+def _check_size(size: int, max_bytes: int | None, name: str) -> None:
+    if max_bytes is not None and size > max_bytes:
+        raise DataFileError(
+            f"the file is {_human_size(size)}, more than the limit of {_human_size(max_bytes)}. "
+            "Remove columns or rows that the study does not need, or split the file by "
+            "characteristic, and load it again.",
+            file=name, value=size,
+        )
+
+
+def _human_size(n: int) -> str:
+    if n >= 1024 * 1024:
+        return f"{n / (1024 * 1024):.1f} MB"
+    if n >= 1024:
+        return f"{n / 1024:.1f} kB"
+    return f"{n} bytes"
+
+
+# ----------------------------------------------------------------------------------------------
+# raw source: hashing, kind, encoding
+
+
+@dataclass
+class _Source:
+    name: str
+    path: Path | None
+    data: bytes | None
+    size: int
+    sha256: str = ""
+    kind: str = "csv"
+    encoding: str | None = None
+    encoding_label: str = ""
+    sample: str = ""
+    sample_truncated: bool = False
+
+    def blocks(self) -> Iterator[bytes]:
+        if self.data is not None:
+            for i in range(0, len(self.data), _READ_BLOCK):
+                yield self.data[i : i + _READ_BLOCK]
+        else:
+            with open(self.path, "rb") as fh:
+                while True:
+                    b = fh.read(_READ_BLOCK)
+                    if not b:
+                        return
+                    yield b
+
+    def binary(self):
+        return io.BytesIO(self.data) if self.data is not None else open(self.path, "rb")  # noqa: SIM115
+
+
+_UNDEFINED_CP1252 = (b"\x81", b"\x8d", b"\x8f", b"\x90", b"\x9d")
+
+
+def _inspect(src: _Source, encoding: str | None) -> None:
+    """One pass over the bytes: digest, kind, encoding and a decoded sample."""
+    digest = hashlib.sha256()
+    head = b""
+    utf8 = codecs.getincrementaldecoder("utf-8")()
+    utf8_ok = True
+    has_nul = False
+    cp1252_ok = True
+    for block in src.blocks():
+        digest.update(block)
+        if len(head) < _SAMPLE_BYTES:
+            head += block[: _SAMPLE_BYTES - len(head)]
+        if utf8_ok:
+            try:
+                utf8.decode(block)
+            except UnicodeDecodeError:
+                utf8_ok = False
+        if not has_nul and b"\x00" in block:
+            has_nul = True
+        if cp1252_ok and any(b in block for b in _UNDEFINED_CP1252):
+            cp1252_ok = False
+    if utf8_ok:
+        try:
+            utf8.decode(b"", final=True)
+        except UnicodeDecodeError:
+            utf8_ok = False
+    src.sha256 = digest.hexdigest()
+
+    if src.size == 0 or not head.strip(b" \t\r\n\x00\xef\xbb\xbf\xff\xfe"):
+        raise DataFileError(
+            "the file is empty. Export the measurements again: the first row must name the "
+            "columns and each following row holds the values of one part.",
+            file=src.name,
+        )
+    suffix = Path(src.name).suffix.lower()
+    if head.startswith(b"PK\x03\x04"):
+        src.kind = "xlsx"
+        return
+    if head.startswith(b"\xd0\xcf\x11\xe0"):
+        raise DataFileError(
+            "this is an old-style Excel .xls workbook, which studykit does not read. Open it in "
+            "the spreadsheet program and save it as .xlsx (Excel workbook) or as CSV.",
+            file=src.name,
+        )
+    if suffix in (".xlsx", ".xlsm"):
+        raise DataFileError(
+            "the file has an Excel name but is not an Excel workbook (it is not a .xlsx "
+            "package). Open it in the spreadsheet program and save it again as .xlsx, or "
+            "rename it to .csv if it is a text export.",
+            file=src.name,
+        )
+    src.kind = "csv"
+
+    if encoding:
+        try:
+            codecs.lookup(encoding)
+        except LookupError:
+            raise DataFileError(
+                f"'{encoding}' is not a known text encoding. Use e.g. 'utf-8', 'cp1252' or "
+                "'utf-16', or leave the encoding out to have it detected.",
+                file=src.name, value=encoding,
+            ) from None
+        enc, label = encoding, encoding
+    elif head.startswith(codecs.BOM_UTF8):
+        enc, label = "utf-8-sig", "UTF-8 with BOM"
+    elif head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        enc, label = "utf-16", "UTF-16 with BOM"
+    elif has_nul and _looks_utf16(head):
+        enc = "utf-16-le" if head[1:2] == b"\x00" else "utf-16-be"
+        label = "UTF-16 without BOM"
+    elif has_nul:
+        _raise_binary(src, head.index(b"\x00") if b"\x00" in head else None)
+    elif utf8_ok:
+        enc, label = "utf-8", "UTF-8"
+    elif cp1252_ok:
+        enc, label = "cp1252", "Windows-1252 (Latin-1)"
+    else:
+        enc, label = "latin-1", "Latin-1 (ISO-8859-1)"
+    src.encoding, src.encoding_label = enc, label
+
+    dec = codecs.getincrementaldecoder(enc)(errors="replace")
+    text = dec.decode(head, final=len(head) >= src.size)
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    src.sample = text
+    src.sample_truncated = len(head) < src.size
+    bad = sum(1 for ch in text if (ord(ch) < 32 and ch not in "\t\r\n") or ch == "\ufffd")
+    if text and (bad > max(2, 0.005 * len(text)) or "\x00" in text):
+        first = next(i for i, ch in enumerate(text)
+                     if (ord(ch) < 32 and ch not in "\t\r\n") or ch == "\ufffd")
+        _raise_binary(src, first)
+
+
+def _looks_utf16(head: bytes) -> bool:
+    n = min(len(head), 400) // 2 * 2
+    if n < 4:
+        return False
+    even = head[0:n:2].count(0)
+    odd = head[1:n:2].count(0)
+    return max(even, odd) > 0.4 * n / 2 and min(even, odd) < 0.05 * n / 2
+
+
+def _raise_binary(src: _Source, offset) -> None:
+    where = f" (unreadable bytes near byte {offset})" if offset is not None else ""
+    raise DataFileError(
+        f"the file does not look like a text table{where}. It may be damaged, or a program "
+        "file or picture saved with a .csv name. Export the measurements from the spreadsheet "
+        "as CSV (comma- or semicolon-separated) or save them as .xlsx, and load that file.",
+        file=src.name,
+    )
+
+
+# ----------------------------------------------------------------------------------------------
+# the table: header + chunks of cells, from CSV or XLSX
+
+
+@dataclass
+class _Table:
+    header: list            # header cell texts (stripped)
+    header_row: int         # spreadsheet row number of the header
+    chunks: Iterator        # yields (rows: int ndarray, columns: list of object ndarrays)
+    separator: str | None = None
+    decimal: str | None = None
+    text_cells: bool = True  # every cell is a str (CSV); XLSX cells are python values
+    merged_fill: dict = field(default_factory=dict)  # column index -> list of (r1, r2)
+    sheet: str | None = None
+
+
+def _sample_lines(src: _Source) -> list[str]:
+    lines = src.sample.splitlines()
+    if src.sample_truncated and lines:
+        lines = lines[:-1]
+    return lines
+
+
+def _sniff(lines: list[str]) -> str:
+    content = [ln for ln in lines if ln.strip()][:50]
+    if not content:
+        return ","
+    best, best_cols = ",", 1
+    for d in ("\t", ";", ","):
+        counts = [len(r) for r in csv.reader(content, delimiter=d)]
+        if counts and counts[0] > 1 and all(c == counts[0] for c in counts):
+            return d
+        if counts and counts[0] > best_cols:
+            best, best_cols = d, counts[0]
+    return best
+
+
+def _open_csv(src: _Source) -> _Table:
+    import pandas as pd
+
+    lines = _sample_lines(src)
+    header_index = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
+    if header_index is None:
+        raise DataFileError(
+            "the file holds no header and no values (only empty lines or separators). Export "
+            "the measurements again with the column names in the first row.",
+            file=src.name,
+        )
+    sep = _sniff(lines[header_index:])
+    header = [h.strip() for h in next(csv.reader([lines[header_index]], delimiter=sep))]
+
+    # decimal sign from the sample cells
+    n_comma = n_point = 0
+    for rec in csv.reader(lines[header_index + 1 : header_index + 200], delimiter=sep):
+        for cell in rec:
+            cell = cell.strip()
+            if _COMMA_DECIMAL_RE.match(cell):
+                n_comma += 1
+            elif _POINT_DECIMAL_RE.match(cell):
+                n_point += 1
+    decimal = "," if n_comma > n_point else "."
+
+    def chunks():
+        handle = src.binary()
+        try:
+            reader = pd.read_csv(
+                handle, sep=sep, header=None, skiprows=header_index, dtype=object,
+                keep_default_na=False, na_filter=False, skip_blank_lines=False,
+                chunksize=_CHUNK_ROWS, encoding=src.encoding, quotechar='"', engine="c",
+                encoding_errors="strict",
+            )
+            start = header_index + 1  # spreadsheet row of the reader's first line (the header)
+            first = True
+            for frame in reader:
+                cols = [frame[c].to_numpy(dtype=object) for c in frame.columns]
+                rows = np.arange(start, start + len(frame), dtype=np.int64)
+                start += len(frame)
+                if first:
+                    cols = [c[1:] for c in cols]
+                    rows = rows[1:]
+                    first = False
+                yield rows, cols
+        except pd.errors.ParserError as exc:
+            raise _translate_parser_error(exc, src, header, sep) from None
+        except UnicodeDecodeError as exc:
+            raise DataFileError(
+                f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
+                "Save the file as UTF-8 CSV, or give the encoding explicitly.",
+                file=src.name,
+            ) from None
+        finally:
+            handle.close()
+
+    return _Table(header=header, header_row=header_index + 1, chunks=chunks(), separator=sep,
+                  decimal=decimal, text_cells=True)
+
+
+def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFileError:
+    msg = str(exc)
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", msg)
+    sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[sep]
+    if m:
+        row, saw = int(m.group(2)), int(m.group(3))
+        hint = (
+            " In a comma-separated file a decimal comma splits a number in two: save the file "
+            "with ';' as separator, or use '.' as decimal sign."
+            if sep == ","
+            else " Look for a stray separator inside a value or a note."
+        )
+        return DataFileError(
+            f"this row has {saw} cells but the header has {len(header)} columns "
+            f"(separator: {sep_name}).{hint}",
+            file=src.name, row=row, value=saw,
+        )
+    return DataFileError(
+        f"the table cannot be split into cells ({msg.strip()}). Check quotes (\") and "
+        f"separators ({sep_name}) in the file, or save it again from the spreadsheet as CSV.",
+        file=src.name,
+    )
+
+
+def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
+    import openpyxl
+
+    try:
+        wb = openpyxl.load_workbook(
+            src.path if src.path is not None else io.BytesIO(src.data),
+            read_only=True, data_only=True,
+        )
+    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as exc:
+        raise DataFileError(
+            f"the workbook cannot be opened ({type(exc).__name__}: {_show(exc)}). It may be "
+            "damaged or protected with a password. Open it in the spreadsheet program and save "
+            "it again as .xlsx, or export the measurements as CSV.",
+            file=src.name,
+        ) from None
+    names = list(wb.sheetnames)
+    if sheet is None:
+        if not names:
+            raise DataFileError("the workbook has no worksheets.", file=src.name)
+        sheet_name = names[0]
+        if len(names) > 1:
+            notes.append(
+                f"read sheet '{sheet_name}', the first of {len(names)} sheets ("
+                + ", ".join(f"'{n}'" for n in names) + "); choose another with `sheet`."
+            )
+    else:
+        matches = [n for n in names if n == sheet] or [
+            n for n in names if n.strip().casefold() == str(sheet).strip().casefold()
+        ]
+        if not matches:
+            raise DataFileError(
+                f"the workbook has no sheet named '{sheet}'. Its sheets are: "
+                + ", ".join(f"'{n}'" for n in names) + ". Give one of these names.",
+                file=src.name, value=sheet,
+            )
+        sheet_name = matches[0]
+    ws = wb[sheet_name]
+    if hasattr(ws, "reset_dimensions"):
+        ws.reset_dimensions()  # some writers store wrong dimensions; read every cell
+    if src.path is not None and Path(src.name).suffix.lower() not in (".xlsx", ".xlsm"):
+        notes.append("the file is an Excel workbook despite its name; read it as .xlsx")
+
+    merged = _merged_ranges(wb, ws)
+    rows_iter = ws.iter_rows(values_only=True)
+    header = None
+    header_row = 0
+    for r, values in enumerate(rows_iter, start=1):
+        if values and any(v is not None and str(v).strip() != "" for v in values):
+            header = [("" if v is None else _cell_text(v)) for v in values]
+            header_row = r
+            break
+    if header is None:
+        wb.close()
+        raise DataFileError(
+            f"sheet '{sheet_name}' is empty. Put the column names in the first row and the "
+            "measurements below them, or choose the sheet that holds them.",
+            file=src.name, value=sheet_name,
+        )
+    while header and header[-1] == "":
+        header.pop()
+
+    fill: dict[int, list] = {}
+    for (r1, c1, r2, c2) in merged:
+        if r1 <= header_row <= r2 and (c1 != c2 or r1 != r2):
+            span = f"{_col_letter(c1 - 1)}{r1}:{_col_letter(c2 - 1)}{r2}"
+            wb.close()
+            raise DataFileError(
+                f"the header cells {span} are merged. Every column needs its own name in the "
+                "header row: unmerge these cells and write a name into each column (for example "
+                "'Diameter 1', 'Diameter 2'), or put the header in a single row.",
+                file=src.name, row=header_row, column=header[c1 - 1] if c1 - 1 < len(header) else None,
+                value=span,
+            )
+        if r1 > header_row and c1 == c2:
+            fill.setdefault(c1 - 1, []).append((r1, r2))
+
+    width = len(header)
+
+    def chunks():
+        try:
+            rows_buf: list[int] = []
+            cols_buf: list[list] = [[] for _ in range(width)]
+            r = header_row
+            for values in rows_iter:
+                r += 1
+                rows_buf.append(r)
+                nv = len(values)
+                for j in range(width):
+                    v = values[j] if j < nv else None
+                    if v is None:
+                        v = ""
+                    elif isinstance(v, str):
+                        v = v.strip()
+                    cols_buf[j].append(v)
+                if nv > width:
+                    for j in range(width, nv):
+                        v = values[j]
+                        if v is not None and str(v).strip() != "":
+                            raise DataFileError(
+                                f"there is a value ('{_show(v)}') in column "
+                                f"{_col_letter(j)}, which has no name in the header row. "
+                                "Give the column a name in the header or delete the value.",
+                                file=src.name, row=r, column=_col_letter(j), value=v,
+                            )
+                if len(rows_buf) >= _XLSX_CHUNK_ROWS:
+                    yield _xlsx_chunk(rows_buf, cols_buf)
+                    rows_buf = []
+                    cols_buf = [[] for _ in range(width)]
+            if rows_buf:
+                yield _xlsx_chunk(rows_buf, cols_buf)
+        finally:
+            wb.close()
+
+    return _Table(header=header, header_row=header_row, chunks=chunks(), text_cells=False,
+                  merged_fill=fill, sheet=sheet_name)
+
+
+def _xlsx_chunk(rows_buf, cols_buf):
+    rows = np.asarray(rows_buf, dtype=np.int64)
+    cols = []
+    for c in cols_buf:
+        a = np.empty(len(c), dtype=object)
+        a[:] = c
+        cols.append(a)
+    return rows, cols
+
+
+def _merged_ranges(wb, ws) -> list[tuple[int, int, int, int]]:
+    """Merged ranges of a read-only worksheet, read from the sheet's XML."""
+    from openpyxl.utils.cell import range_boundaries
+
+    archive = getattr(wb, "_archive", None)
+    path = getattr(ws, "_worksheet_path", None)
+    if archive is None or path is None:
+        return []
+    out = []
+    pattern = re.compile(rb"<(?:\w+:)?mergeCell\s+ref=\"([A-Z]+[0-9]+:[A-Z]+[0-9]+)\"")
+    tail = b""
+    with archive.open(path) as fh:
+        while True:
+            block = fh.read(_READ_BLOCK)
+            if not block:
+                break
+            buf = tail + block
+            for m in pattern.finditer(buf):
+                c1, r1, c2, r2 = range_boundaries(m.group(1).decode())
+                out.append((r1, c1, r2, c2))
+            tail = buf[-300:]
+    return sorted(set(out))
+
+
+def _cell_text(v) -> str:
+    if isinstance(v, str):
+        return v.strip()
+    if isinstance(v, bool):
+        return str(v)
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    if isinstance(v, _dt.datetime):
+        return v.isoformat(sep=" ")
+    return str(v)
+
+
+# ----------------------------------------------------------------------------------------------
+# cell conversion
+
+
+class _Ctx:
+    def __init__(self, src: _Source, table: _Table):
+        self.file = src.name
+        self.decimal = table.decimal
+        self.text_cells = table.text_cells
+        self.text_numbers: dict[str, int] = {}
+
+
+def _bad_number(ctx: _Ctx, raw, row: int, column: str) -> DataFileError:
+    text = str(raw).strip()
+    if _EXCEL_ERROR_RE.match(text):
+        why = (f"the cell shows the spreadsheet error '{text}' instead of a value. Fix the "
+               "formula that produced it, or clear the cell if the part was not measured.")
+    elif _NONFINITE_RE.match(text):
+        why = (f"'{text}' is not a measured value. Leave the cell empty where a value is "
+               "missing: studykit counts empty cells and reports them.")
+    elif ctx.decimal == "," and "." in text and re.match(r"^[+-]?[\d.]+(,\d+)?$", text):
+        why = (f"'{text}' uses '.' but this file uses ',' as decimal sign. Use one decimal sign "
+               "throughout and no thousands separators.")
+    elif ctx.decimal == "." and "," in text and re.match(r"^[+-]?[\d,]+(\.\d+)?$", text):
+        why = (f"'{text}' uses ',' but this file uses '.' as decimal sign. Use one decimal sign "
+               "throughout and no thousands separators.")
+    elif isinstance(raw, bool):
+        why = f"'{text}' is a yes/no value, not a measurement. Enter the measured number."
+    elif isinstance(raw, _dt.datetime | _dt.date | _dt.time):
+        why = (f"the cell holds a date/time ('{text}') where a measurement is expected. If this "
+               "column holds times, name it 'Time' or 'Zeit'; otherwise enter the number.")
+    else:
+        why = (f"'{_show(text)}' is not a number. Measurement cells hold numbers only (no units, "
+               "no text; decimal sign '.' or ','). Leave the cell empty for a missing value and "
+               "put remarks into a note column (e.g. 'Note' or 'Bemerkung').")
+    return DataFileError(why, file=ctx.file, row=int(row), column=column, value=raw)
+
+
+def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
+    """Convert one column of cells to float; return (values, empty mask)."""
+    import pandas as pd
+
+    n = len(cells)
+    if ctx.text_cells:
+        s = pd.Series(cells, dtype=object).str.strip()
+        empty = (s == "").to_numpy(dtype=bool)
+        t = s.where(~empty, None)
+        if ctx.decimal == ",":
+            t = t.str.replace(",", ".", regex=False)
+            has_point = s.str.contains(".", regex=False).to_numpy(dtype=bool)
+        else:
+            has_point = np.zeros(n, dtype=bool)
+        vals = np.array(pd.to_numeric(t, errors="coerce"), dtype=float)
+        bad = ~empty & (~np.isfinite(vals) | has_point)
+        if ctx.decimal == ".":
+            bad |= ~empty & s.str.contains(",", regex=False).to_numpy(dtype=bool)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise _bad_number(ctx, cells[i], rows[i], column)
+        vals[empty] = np.nan
+        return vals, empty
+    vals = np.full(n, np.nan)
+    empty = np.zeros(n, dtype=bool)
+    for i, v in enumerate(cells):
+        if isinstance(v, str):
+            if v == "":
+                empty[i] = True
+                continue
+            x = _text_number(v)
+            if x is None:
+                raise _bad_number(ctx, v, rows[i], column)
+            ctx.text_numbers[column] = ctx.text_numbers.get(column, 0) + 1
+            vals[i] = x
+        elif isinstance(v, bool) or not isinstance(v, int | float):
+            raise _bad_number(ctx, v, rows[i], column)
+        else:
+            x = float(v)
+            if not math.isfinite(x):
+                raise _bad_number(ctx, v, rows[i], column)
+            vals[i] = x
+    return vals, empty
+
+
+def _text_number(text: str) -> float | None:
+    t = text.strip().replace("\u00a0", "").replace(" ", "")
+    if _COMMA_DECIMAL_RE.match(t):
+        t = t.replace(",", ".")
+    elif "," in t:
+        return None
+    try:
+        x = float(t)
+    except ValueError:
+        return None
+    return x if math.isfinite(x) and not _NONFINITE_RE.match(t) else None
+
+
+def _looks_numeric(ctx: _Ctx, cells: np.ndarray) -> tuple[int, int]:
+    """(non-empty cells, cells that look like numbers) of a column sample."""
+    n_filled = n_num = 0
+    for v in cells[:2000]:
+        if isinstance(v, str):
+            t = v.strip()
+            if not t:
+                continue
+            n_filled += 1
+            if _text_number(t) is not None or _NONFINITE_RE.match(t) or _EXCEL_ERROR_RE.match(t):
+                n_num += 1
+            elif re.match(r"^[+-]?[\d.,]+$", t):
+                n_num += 1
+        elif isinstance(v, bool):
+            n_filled += 1
+        elif isinstance(v, int | float):
+            n_filled += 1
+            n_num += 1
+        else:
+            n_filled += 1
+    return n_filled, n_num
+
+
+def _labels(cells: np.ndarray, text_cells: bool) -> np.ndarray:
+    if text_cells:
+        return np.asarray([c.strip() for c in cells], dtype=object)
+    out = np.empty(len(cells), dtype=object)
+    out[:] = [_cell_text(v) if v != "" else "" for v in cells]
+    return out
+
+
+def _filled(cells: np.ndarray, text_cells: bool) -> np.ndarray:
+    if text_cells:
+        import pandas as pd
+
+        return (pd.Series(cells, dtype=object).str.strip() != "").to_numpy(dtype=bool)
+    return np.fromiter((not (isinstance(v, str) and v == "") for v in cells), bool, len(cells))
+
+
+# ----------------------------------------------------------------------------------------------
+# main reader
+
+
+def _find_column(header, wanted: str, *, what: str, option: str, src_name: str) -> int:
+    for i, h in enumerate(header):
+        if h == wanted:
+            return i
+    folded = str(wanted).strip().casefold()
+    for i, h in enumerate(header):
+        if h.casefold() == folded or parse_header(h)[0].casefold() == folded:
+            return i
+    raise DataFileError(
+        f"there is no column named '{wanted}' (given as `{option}` for the {what}). The header "
+        "has: " + ", ".join(f"'{h}'" for h in header if h) + ". Use one of these names.",
+        file=src_name, value=wanted,
+    )
+
+
+def _detect(header, names_set) -> int | None:
+    for i, h in enumerate(header):
+        if h and _norm_header(h) in names_set:
+            return i
+    return None
+
+
+def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
+          characteristic_column=None, value_column=None, time_column=None, note_column=None,
+          encoding=None) -> Measurements:
+    if layout not in ("auto", "wide", "long"):
+        raise StudyInputError(
+            f"`layout` must be 'auto', 'wide' or 'long', not '{layout}'.", value=layout
+        )
+    if subgroup_size is not None:
+        if isinstance(subgroup_size, bool) or not isinstance(subgroup_size, int | np.integer):
+            try:
+                ok = float(subgroup_size).is_integer()
+            except (TypeError, ValueError):
+                ok = False
+            if not ok:
+                raise StudyInputError(
+                    f"`subgroup_size` must be a whole number, not '{subgroup_size}'.",
+                    value=subgroup_size,
+                )
+        subgroup_size = int(subgroup_size)
+        if subgroup_size < 1:
+            raise StudyInputError(
+                f"`subgroup_size` must be 1 or more, not {subgroup_size}.", value=subgroup_size
+            )
+        if subgroup_column is not None:
+            raise StudyInputError(
+                f"give either `subgroup_column` ('{subgroup_column}') or `subgroup_size` "
+                f"({subgroup_size}), not both: subgroups come from a column or from a fixed "
+                "size.",
+            )
+    notes: list[str] = []
+    warnings_: list[str] = []
+    _inspect(src, encoding)
+    if src.kind == "xlsx":
+        table = _open_xlsx(src, sheet, notes)
+    else:
+        if sheet is not None:
+            notes.append(f"`sheet` ('{sheet}') was ignored: the file is a text table, not a workbook")
+        table = _open_csv(src)
+        sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[table.separator]
+        notes.append(
+            f"text table: {sep_name}-separated, decimal sign '{table.decimal}', "
+            f"encoding {src.encoding_label}"
+        )
+    header = table.header
+    hrow = table.header_row
+
+    # --- header checks -------------------------------------------------------------------
+    seen: dict[str, int] = {}
+    for j, h in enumerate(header):
+        if not h:
+            continue
+        key = parse_header(h)[0].casefold()
+        if key in seen:
+            i = seen[key]
+            raise DataFileError(
+                f"columns {_col_letter(i)} ('{header[i]}') and {_col_letter(j)} ('{h}') have the "
+                "same name. Every column needs its own name: rename one of them (for example "
+                f"'{parse_header(h)[0]} 2').",
+                file=src.name, row=hrow, column=h, value=h,
+            )
+        seen[key] = j
+
+    # --- roles ---------------------------------------------------------------------------
+    def find(wanted, what, option):
+        return _find_column(header, wanted, what=what, option=option, src_name=src.name)
+
+    role: dict[int, str] = {}
+    if characteristic_column is not None or value_column is not None:
+        if layout == "wide":
+            raise StudyInputError(
+                "`characteristic_column`/`value_column` describe a long table, but "
+                "`layout='wide'` was given. Leave `layout` at 'auto' or set it to 'long'."
+            )
+        layout = "long"
+    char_idx = value_idx = None
+    if layout in ("auto", "long"):
+        char_idx = (find(characteristic_column, "characteristic names", "characteristic_column")
+                    if characteristic_column is not None else _detect(header, _CHARACTERISTIC_NAMES))
+        value_idx = (find(value_column, "values", "value_column")
+                     if value_column is not None else _detect(header, _VALUE_NAMES))
+        if layout == "long" and (char_idx is None or value_idx is None):
+            missing = "a characteristic column" if char_idx is None else "a value column"
+            raise DataFileError(
+                f"a long table needs {missing}, and none was found. Name the columns e.g. "
+                "'Characteristic'/'Merkmal' and 'Value'/'Messwert', or give them with "
+                "`characteristic_column` and `value_column`. The header has: "
+                + ", ".join(f"'{h}'" for h in header if h) + ".",
+                file=src.name, row=hrow,
+            )
+        if char_idx is not None and value_idx is not None:
+            layout = "long"
+            why = "given" if characteristic_column or value_column else "detected"
+            notes.append(
+                f"long layout ({why}): characteristic names in '{header[char_idx]}', values in "
+                f"'{header[value_idx]}'"
+            )
+        else:
+            layout = "wide"
+            notes.append(
+                "wide layout (detected): one column per characteristic, one row per part, "
+                "rows in production order"
+            )
+    else:
+        notes.append("wide layout (given): one column per characteristic, one row per part")
+    if layout == "long":
+        role[char_idx] = "characteristic"
+        role[value_idx] = "value"
+        unit_idx = _detect(header, _UNIT_NAMES)
+        if unit_idx is not None and unit_idx not in role:
+            role[unit_idx] = "unit"
+
+    sg_idx = None
+    if subgroup_column is not None:
+        sg_idx = find(subgroup_column, "subgroup labels", "subgroup_column")
+    else:
+        cand = _detect(header, _SUBGROUP_NAMES)
+        if cand is not None and cand not in role:
+            if subgroup_size is not None:
+                notes.append(
+                    f"column '{header[cand]}' looks like a subgroup column but was not used, "
+                    f"because a subgroup size ({subgroup_size}) was given"
+                )
+                role[cand] = "ignored"
+            else:
+                sg_idx = cand
+    if sg_idx is not None:
+        if sg_idx in role and role[sg_idx] in ("characteristic", "value"):
+            raise StudyInputError(
+                f"column '{header[sg_idx]}' cannot hold both subgroups and "
+                f"{role[sg_idx]} names/values; choose another column."
+            )
+        role[sg_idx] = "subgroup"
+    t_idx = _optional_role(header, role, time_column, _TIME_NAMES, "time", find)
+    n_idx = _optional_role(header, role, note_column, _NOTE_NAMES, "note", find)
+
+    if sg_idx is not None:
+        subgroup_source = "column"
+        how = "given" if subgroup_column is not None else "detected"
+        notes.append(f"subgroups from column '{header[sg_idx]}' ({how})")
+    elif subgroup_size is not None:
+        subgroup_source = "size"
+        notes.append(f"subgroups of {subgroup_size} consecutive values (given size)")
+    else:
+        subgroup_source = "none"
+        notes.append(
+            "no subgroups: values are individuals (no subgroup column found; name one e.g. "
+            "'Subgroup' or 'Stichprobe', or give a subgroup size)"
+        )
+    if t_idx is not None:
+        notes.append(f"times from column '{header[t_idx]}'")
+    if n_idx is not None:
+        notes.append(f"notes from column '{header[n_idx]}'")
+
+    ctx = _Ctx(src, table)
+    if layout == "wide":
+        result = _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
+                                notes, warnings_)
+    else:
+        result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
+                                subgroup_size, notes, warnings_)
+    characteristics, n_rows = result
+    for col, k in ctx.text_numbers.items():
+        notes.append(
+            f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"
+        )
+    _subgroup_messages(characteristics, subgroup_source, notes, warnings_)
+    return Measurements(
+        source=src.name, sha256=src.sha256, layout=layout, subgroup_source=subgroup_source,
+        characteristics=tuple(characteristics), warnings=tuple(warnings_), notes=tuple(notes),
+        subgroup_column=header[sg_idx] if sg_idx is not None else None,
+        subgroup_size=subgroup_size, sheet=table.sheet,
+        encoding=src.encoding_label if src.kind == "csv" else None,
+        separator=table.separator, decimal=table.decimal if src.kind == "csv" else None,
+        n_rows=n_rows,
+    )
+
+
+def _optional_role(header, role, given, names_set, what, find):
+    if given is not None:
+        j = find(given, f"{what}s", f"{what}_column")
+        if j in role:
+            raise StudyInputError(
+                f"column '{header[j]}' is already used for {role[j]}s; give another column "
+                f"as `{what}_column`.", value=given,
+            )
+    else:
+        j = _detect(header, names_set)
+        if j is None or j in role:
+            return None
+    role[j] = what
+    return j
+
+
+def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
+    filled = _filled(cells, text_cells)
+    if filled.any():
+        i = int(np.flatnonzero(filled)[0])
+        letter = _col_letter(j)
+        if j >= len(header):
+            why = (f"this row has a value ('{_show(cells[i])}') in column {letter}, beyond the "
+                   f"{len(header)} named columns. Give the column a name in the header "
+                   f"(row {hrow}) or delete the value; check for an extra separator.")
+        else:
+            why = (f"column {letter} has values (here '{_show(cells[i])}') but no name in the "
+                   f"header (row {hrow}). Write a name into the header cell.")
+        raise DataFileError(why, file=src.name, row=int(rows[i]), column=letter, value=cells[i])
+
+
+class _Acc:
+    """Lists of chunk arrays, concatenated at the end."""
+
+    def __init__(self):
+        self.parts: list[np.ndarray] = []
+
+    def add(self, a):
+        self.parts.append(a)
+
+    def result(self, dtype=None):
+        if not self.parts:
+            return np.empty(0, dtype=dtype or float)
+        out = np.concatenate(self.parts) if len(self.parts) > 1 else self.parts[0]
+        self.parts = []
+        return out
+
+
+def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
+    header = table.header
+    kinds: dict[int, str] | None = None  # column -> 'value' | 'text' | 'empty' | role
+    rows_acc = _Acc()
+    filled_acc = _Acc()
+    value_acc: dict[int, _Acc] = {}
+    sg_acc, t_acc, n_acc = _Acc(), _Acc(), _Acc()
+    for rows, cols in table.chunks:
+        if kinds is None:
+            kinds = {}
+            for j, cells in enumerate(cols):
+                if j >= len(header) or not header[j]:
+                    kinds[j] = "unnamed"
+                elif j in role:
+                    kinds[j] = role[j]
+                else:
+                    n_filled, n_num = _looks_numeric(ctx, cells)
+                    if n_filled == 0:
+                        kinds[j] = "value"
+                    elif n_num * 2 >= n_filled:
+                        kinds[j] = "value"
+                    else:
+                        kinds[j] = "text"
+            for j in range(len(cols), len(header)):
+                kinds[j] = "absent"
+            for j, k in kinds.items():
+                if k == "value":
+                    value_acc[j] = _Acc()
+            text_cols = [header[j] for j, k in kinds.items() if k == "text"]
+            if text_cols:
+                notes.append(
+                    "columns holding text, not read as measurements: "
+                    + ", ".join(f"'{h}'" for h in text_cols)
+                )
+        row_filled = np.zeros(len(rows), dtype=bool)
+        for j, cells in enumerate(cols):
+            k = kinds.get(j, "unnamed")
+            if k == "unnamed":
+                _check_unnamed(src, header, table.header_row, j, cells, rows, table.text_cells)
+                continue
+            if k == "value":
+                vals, empty = _numeric(ctx, cells, rows, header[j])
+                value_acc[j].add(vals)
+                row_filled |= ~empty
+            else:
+                row_filled |= _filled(cells, table.text_cells)
+                if k == "subgroup":
+                    sg_acc.add(_labels(cells, table.text_cells))
+                elif k == "time":
+                    t_acc.add(cells.copy())
+                elif k == "note":
+                    n_acc.add(_labels(cells, table.text_cells))
+        rows_acc.add(rows)
+        filled_acc.add(row_filled)
+
+    rows = rows_acc.result(np.int64)
+    filled = filled_acc.result(bool)
+    if kinds is None or not filled.any():
+        raise DataFileError(
+            "the file has a header but no values below it. Add the measurements, one row per "
+            "part, under the column names.",
+            file=src.name, row=table.header_row + 1,
+        )
+    last = int(np.flatnonzero(filled)[-1]) + 1
+    keep = np.ones(last, dtype=bool)
+    filled = filled[:last]
+    rows = rows[:last]
+    interior_empty = np.flatnonzero(~filled)
+    sg = sg_acc.result(object)[:last] if sg_idx is not None else None
+    if sg is not None:
+        sg = _fill_merged(sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx])
+    if interior_empty.size:
+        if sg is not None:
+            keep[interior_empty] = False
+            notes.append(f"empty rows skipped: {_fmt_rows(rows[interior_empty])}")
+        else:
+            notes.append(
+                "empty rows kept as missing values (they may be parts that were not measured): "
+                + _fmt_rows(rows[interior_empty])
+            )
+    rows = rows[keep]
+    if sg is not None:
+        sg = sg[keep]
+        no_label = np.flatnonzero(sg == "")
+        if no_label.size:
+            i = int(no_label[0])
+            raise DataFileError(
+                f"this row has values but no subgroup label. Every row needs its subgroup in "
+                f"column '{header[sg_idx]}' (rows without a label: {_fmt_rows(rows[no_label])}). "
+                "Fill in the labels, or leave out the subgroup column to read individuals.",
+                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+            )
+        subgroups = sg.astype(str)
+    elif subgroup_size is not None:
+        subgroups = (np.arange(rows.size) // subgroup_size + 1).astype(str)
+    else:
+        subgroups = (np.arange(rows.size) + 1).astype(str)
+    times = _parse_times(t_acc.result(object)[:last][keep], notes) if t_idx is not None else None
+    note_arr = n_acc.result(object)[:last][keep].astype(str) if n_idx is not None else None
+    for a in (rows, subgroups, times, note_arr):
+        if a is not None:
+            a.flags.writeable = False
+
+    characteristics = []
+    empty_cols = []
+    for j, acc in value_acc.items():
+        vals = acc.result(float)[:last][keep]
+        name, unit = parse_header(header[j])
+        if np.isnan(vals).all():
+            empty_cols.append(header[j])
+            continue
+        characteristics.append(_make_char(name, unit, vals, subgroups, times, note_arr, rows,
+                                          warnings_))
+    if empty_cols:
+        notes.append("empty columns skipped: " + ", ".join(f"'{h}'" for h in empty_cols))
+    if not characteristics:
+        raise DataFileError(
+            "no column holds measurements. Each characteristic needs its own column of numbers "
+            "under a header name; the columns found were: "
+            + ", ".join(f"'{h}'" for h in header if h) + ".",
+            file=src.name, row=table.header_row,
+        )
+    return characteristics, int(rows.size)
+
+
+def _fill_merged(sg, rows, ranges, notes, colname):
+    if not len(ranges):
+        return sg
+    sg = sg.copy()
+    pos = {int(r): i for i, r in enumerate(rows)}
+    filled_any = False
+    for r1, r2 in ranges:
+        top = pos.get(r1)
+        if top is None or sg[top] == "":
+            continue
+        for r in range(r1 + 1, r2 + 1):
+            i = pos.get(r)
+            if i is not None and sg[i] == "":
+                sg[i] = sg[top]
+                filled_any = True
+    if filled_any:
+        notes.append(f"merged cells in column '{colname}': each label applied to all its rows")
+    return sg
+
+
+def _make_char(name, unit, vals, subgroups, times, notes_arr, rows, warnings_):
+    missing = np.isnan(vals)
+    valid = vals[~missing]
+    is_int = bool(valid.size and np.all(np.floor(valid) == valid))
+    import pandas as pd
+
+    codes, uniques = pd.factorize(subgroups, sort=False)
+    counts = np.bincount(codes, weights=(~missing).astype(float), minlength=len(uniques))
+    sizes = {str(u): int(c) for u, c in zip(uniques, counts, strict=True)}
+    n_missing = int(missing.sum())
+    if n_missing:
+        warnings_.append(
+            f"'{name}': {n_missing} empty cell(s) (rows {_fmt_rows(rows[missing])}); the "
+            "analysis leaves them out"
+        )
+    if valid.size == 1:
+        warnings_.append(
+            f"'{name}': only one value ({valid[0]:g}); a study needs many more (common "
+            "practice: at least 25 subgroups or 100 individual values)"
+        )
+    elif valid.size > 1 and np.ptp(valid) == 0:
+        warnings_.append(
+            f"'{name}': all {valid.size} values are {valid[0]:g}, so there is no spread and no "
+            "capability can be computed. Check that the gauge resolution is fine enough and "
+            "that this is the right column."
+        )
+    return CharacteristicData(
+        name=name, unit=unit, values=vals, subgroups=subgroups, times=times, notes=notes_arr,
+        rows=rows, n_missing=n_missing, subgroup_sizes=sizes, is_integer=is_int,
+    )
+
+
+def _subgroup_messages(chars, subgroup_source, notes, warnings_):
+    if subgroup_source == "none":
+        return
+    groups: dict[tuple, list[str]] = {}
+    for c in chars:
+        sizes = np.fromiter(c.subgroup_sizes.values(), dtype=np.int64)
+        filled = sizes[sizes > 0]
+        msgs = []
+        if filled.size < 2:
+            msgs.append((
+                "warn",
+                f"values in only {filled.size} subgroup(s); a subgrouped analysis needs at "
+                "least 2 (common practice: 25 or more)",
+            ))
+        if filled.size and filled.min() != filled.max():
+            vals, cnt = np.unique(filled, return_counts=True)
+            dist = ", ".join(f"{k} x size {v}" for v, k in zip(vals.tolist(), cnt.tolist(),
+                                                              strict=True))
+            msgs.append(("note", f"unequal subgroup sizes: {dist} (allowed; limits vary)"))
+        if filled.size and filled.max() > LARGE_SUBGROUP:
+            msgs.append((
+                "warn",
+                f"subgroups of up to {int(filled.max())} values (more than {LARGE_SUBGROUP}); "
+                "allowed, but an X-bar/S chart suits large subgroups better than X-bar/R",
+            ))
+        # a label that comes back after other labels
+        sg = c.subgroups
+        if sg.size > 1:
+            changes = int(np.count_nonzero(sg[1:] != sg[:-1])) + 1
+            if changes > len(c.subgroup_sizes):
+                msgs.append((
+                    "warn",
+                    "some subgroup labels appear in separate blocks of rows; rows of one "
+                    "subgroup are expected together, in production order",
+                ))
+        for kind, text in msgs:
+            groups.setdefault((kind, text), []).append(c.name)
+    for (kind, text), names in groups.items():
+        who = ("all characteristics" if len(names) == len(chars) and len(chars) > 1
+               else ", ".join(f"'{n}'" for n in names))
+        (warnings_ if kind == "warn" else notes).append(f"{who}: {text}")
+
+
+_TIME_FORMATS = (
+    "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d",
+    "%d.%m.%Y %H:%M:%S", "%d.%m.%Y %H:%M", "%d.%m.%Y", "%d.%m.%y %H:%M", "%d.%m.%y",
+    "%Y-%m-%d %H:%M:%S.%f", "%Y-%m-%dT%H:%M:%S.%f",
+)
+
+
+def _parse_times(cells: np.ndarray, notes: list) -> np.ndarray:
+    """datetime64[ns] if every filled cell is a date/time in one format, else the text."""
+    import pandas as pd
+
+    n = len(cells)
+    is_dt = np.fromiter((isinstance(v, _dt.datetime | _dt.date) for v in cells), bool, n)
+    is_empty = np.fromiter((isinstance(v, str) and v.strip() == "" for v in cells), bool, n)
+    if is_dt[~is_empty].all():
+        out = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
+        if is_dt.any():
+            out[is_dt] = np.array([np.datetime64(v) for v in cells[is_dt]], dtype="datetime64[ns]")
+        return out
+    text = np.asarray([_cell_text(v) if not isinstance(v, str) else v.strip() for v in cells],
+                      dtype=object)
+    filled = text != ""
+    sample = pd.Series(text[filled][:500])
+    for fmt in _TIME_FORMATS:
+        try:
+            pd.to_datetime(sample, format=fmt)
+        except (ValueError, TypeError):
+            continue
+        try:
+            parsed = pd.to_datetime(pd.Series(text).where(filled, None), format=fmt)
+        except (ValueError, TypeError):
+            break
+        return parsed.to_numpy(dtype="datetime64[ns]")
+    notes.append("times kept as text: not all time cells could be read as one date/time format")
+    return text.astype(str)
+
+
+def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
+                   subgroup_size, notes, warnings_):
+    header = table.header
+    codes_of: dict[str, int] = {}
+    code_acc, val_acc, rows_acc, filled_acc = _Acc(), _Acc(), _Acc(), _Acc()
+    sg_acc, t_acc, n_acc, unit_acc = _Acc(), _Acc(), _Acc(), _Acc()
+    unit_idx = next((j for j, r in role.items() if r == "unit"), None)
+    ignored_noted = False
+    for rows, cols in table.chunks:
+        if not ignored_noted:
+            others = [header[j] for j in range(min(len(cols), len(header)))
+                      if header[j] and j not in role]
+            if others:
+                notes.append("columns not used in the long layout: "
+                             + ", ".join(f"'{h}'" for h in others))
+            ignored_noted = True
+        for j in range(len(cols)):
+            if j >= len(header) or not header[j]:
+                _check_unnamed(src, header, table.header_row, j, cols[j], rows, table.text_cells)
+        names = _labels(cols[char_idx], table.text_cells)
+        vals, empty = _numeric(ctx, cols[value_idx], rows, header[value_idx])
+        row_filled = ~empty | (names != "")
+        extra = [sg_idx, t_idx, n_idx, unit_idx]
+        for j in extra:
+            if j is not None and j < len(cols):
+                row_filled |= _filled(cols[j], table.text_cells)
+        bad = row_filled & (names == "")
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise DataFileError(
+                f"this row has no characteristic name in column '{header[char_idx]}'. Every "
+                "row of a long table names the characteristic its value belongs to.",
+                file=src.name, row=int(rows[i]), column=header[char_idx], value="",
+            )
+        codes = np.full(len(rows), -1, dtype=np.int64)
+        for i in np.flatnonzero(row_filled):
+            nm = names[i]
+            k = codes_of.get(nm)
+            if k is None:
+                k = codes_of[nm] = len(codes_of)
+            codes[i] = k
+        code_acc.add(codes)
+        val_acc.add(vals)
+        rows_acc.add(rows)
+        filled_acc.add(row_filled)
+        if sg_idx is not None:
+            sg_acc.add(_labels(cols[sg_idx], table.text_cells))
+        if t_idx is not None:
+            t_acc.add(cols[t_idx].copy())
+        if n_idx is not None:
+            n_acc.add(_labels(cols[n_idx], table.text_cells))
+        if unit_idx is not None:
+            unit_acc.add(_labels(cols[unit_idx], table.text_cells))
+
+    filled = filled_acc.result(bool)
+    if not filled.any():
+        raise DataFileError(
+            "the file has a header but no values below it. Add the measurements, one row per "
+            "value, under the column names.",
+            file=src.name, row=table.header_row + 1,
+        )
+    rows = rows_acc.result(np.int64)
+    last = int(np.flatnonzero(filled)[-1]) + 1
+    interior = np.flatnonzero(~filled[:last])
+    if interior.size:
+        notes.append(f"empty rows skipped: {_fmt_rows(rows[interior])}")
+    keep = filled.copy()
+    rows = rows[keep]
+    codes = code_acc.result(np.int64)[keep]
+    vals = val_acc.result(float)[keep]
+    sg = sg_acc.result(object)[keep] if sg_idx is not None else None
+    if sg is not None:
+        sg = _fill_merged(sg, rows, (), notes, header[sg_idx])
+        no_label = np.flatnonzero(sg == "")
+        if no_label.size:
+            i = int(no_label[0])
+            raise DataFileError(
+                f"this row has no subgroup label in column '{header[sg_idx]}' (rows without a "
+                f"label: {_fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
+                "subgroup column to read individuals.",
+                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+            )
+    times_all = _parse_times(t_acc.result(object)[keep], notes) if t_idx is not None else None
+    notes_all = n_acc.result(object)[keep].astype(str) if n_idx is not None else None
+    units_all = unit_acc.result(object)[keep] if unit_idx is not None else None
+
+    order = np.argsort(codes, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(codes_of)))])
+    characteristics = []
+    seen_names: dict[str, str] = {}
+    for raw_name, k in codes_of.items():
+        idx = order[bounds[k] : bounds[k + 1]]
+        name, unit = parse_header(raw_name)
+        key = name.casefold()
+        if key in seen_names:
+            raise DataFileError(
+                f"'{raw_name}' and '{seen_names[key]}' name the same characteristic with "
+                "different units or spelling. Use one name (and one unit) per characteristic.",
+                file=src.name, column=header[char_idx], value=raw_name,
+            )
+        seen_names[key] = raw_name
+        if units_all is not None:
+            us = [u for u in dict.fromkeys(units_all[idx].tolist()) if u != ""]
+            if len(us) > 1:
+                first_other = int(idx[np.flatnonzero(units_all[idx] == us[1])[0]])
+                raise DataFileError(
+                    f"'{name}' is given in more than one unit ({', '.join(us)}). Convert the "
+                    "values to one unit.",
+                    file=src.name, row=int(rows[first_other]), column=header[unit_idx],
+                    value=us[1],
+                )
+            if us:
+                unit = us[0]
+        cvals = vals[idx]
+        crows = rows[idx]
+        if sg is not None:
+            csg = sg[idx].astype(str)
+        elif subgroup_size is not None:
+            csg = (np.arange(idx.size) // subgroup_size + 1).astype(str)
+        else:
+            csg = (np.arange(idx.size) + 1).astype(str)
+        characteristics.append(_make_char(
+            name, unit, cvals, csg,
+            times_all[idx] if times_all is not None else None,
+            notes_all[idx] if notes_all is not None else None,
+            crows, warnings_,
+        ))
+    empty = [c.name for c in characteristics if c.n_valid == 0]
+    if empty:
+        notes.append("characteristics without any value skipped: "
+                     + ", ".join(f"'{n}'" for n in empty))
+    characteristics = [c for c in characteristics if c.n_valid > 0]
+    if not characteristics:
+        raise DataFileError(
+            f"column '{header[value_idx]}' holds no values. Add the measured values.",
+            file=src.name, column=header[value_idx], row=table.header_row + 1,
+        )
+    return characteristics, int(rows.size)
