@@ -13,12 +13,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from functools import lru_cache
 
 import numpy as np
-from scipy import integrate, special, stats
+from scipy import stats
 
 from studykit.errors import AnalysisError, SpecError
+from studykit.stats import constants
 
 __all__ = [
     "APPRAISER",
@@ -72,6 +72,11 @@ GRR_REJECT_ABOVE = 30.0
 NDC_MINIMUM = 5
 #: default significance level for keeping the appraiser-by-part interaction in the model.
 DEFAULT_ALPHA_INTERACTION = 0.25
+#: largest number of values in one range (parts, appraisers, trials) for the range method.
+MAX_RANGE_N = constants.MAX_SUBGROUP_SIZE
+#: Satterthwaite intervals are not formed below this many degrees of freedom (common practice,
+#: no source: below one degree of freedom the approximation carries no usable information).
+MIN_INTERVAL_DF = 1.0
 
 
 # ----------------------------------------------------------------------------------------------
@@ -289,30 +294,7 @@ def _f(x) -> float | None:
 
 
 # ----------------------------------------------------------------------------------------------
-# Range constants (private; studykit.stats.constants was not there when this was written)
-@lru_cache(maxsize=64)
-def _range_moments(n: int) -> tuple[float, float]:
-    """E[R] and E[R^2] of the range of ``n`` standard normal values, by numerical integration.
-
-    E[R^k] = int_0^inf r^k f_R(r) dr with f_R(r) = n(n-1) int phi(x) phi(x+r)
-    (Phi(x+r) - Phi(x))^(n-2) dx; the inner integral uses a fine trapezoid grid (spectrally
-    accurate for this smooth, fast-decaying integrand), the outer one scipy.integrate.quad.
-    """
-    x = np.linspace(-10.0, 10.0, 4001)
-    phi_x = np.exp(-0.5 * x * x) / math.sqrt(2 * math.pi)
-    cdf_x = special.ndtr(x)
-
-    def density(r: float) -> float:
-        y = x + r
-        phi_y = np.exp(-0.5 * y * y) / math.sqrt(2 * math.pi)
-        inner = phi_x * phi_y * (special.ndtr(y) - cdf_x) ** (n - 2)
-        return n * (n - 1) * float(np.trapezoid(inner, x))
-
-    m1 = integrate.quad(lambda r: r * density(r), 0, np.inf, epsabs=1e-11, epsrel=1e-11, limit=200)[0]
-    m2 = integrate.quad(lambda r: r * r * density(r), 0, np.inf, epsabs=1e-11, epsrel=1e-11, limit=200)[0]
-    return m1, m2
-
-
+# Range constants: d2 and d3 from studykit.stats.constants; d2* built on them here.
 def range_constants(n: int, *, g: int | float = 1) -> dict:
     """d2, d3 and d2* for the range of ``n`` normal values (``g`` ranges averaged).
 
@@ -347,12 +329,15 @@ def range_constants(n: int, *, g: int | float = 1) -> dict:
     >>> round(c["d2"], 6), round(c["d2_star"], 5)
     (1.128379, 1.41421)
     """
-    if int(n) != n or n < 2:
-        raise AnalysisError(f"`n` ({n}) must be a whole number of at least 2 values per range")
-    m1, m2 = _range_moments(int(n))
-    d3 = math.sqrt(max(m2 - m1 * m1, 0.0))
-    d2_star = math.sqrt(m1 * m1 + (d3 * d3 / g if g != math.inf else 0.0))
-    return {"n": int(n), "g": g, "d2": m1, "d3": d3, "d2_star": d2_star}
+    if isinstance(n, bool) or not isinstance(n, int | np.integer) or not 2 <= n <= MAX_RANGE_N:
+        raise AnalysisError(
+            f"`n` ({n!r}) must be a whole number of values per range from 2 to {MAX_RANGE_N}"
+        )
+    if not (g == math.inf or (isinstance(g, int | float | np.integer) and g >= 1)):
+        raise AnalysisError(f"`g` ({g!r}) must be a number of ranges of at least 1, or math.inf")
+    m1, sd = constants.d2(int(n)), constants.d3(int(n))
+    d2_star = math.sqrt(m1 * m1 + (0.0 if g == math.inf else sd * sd / g))
+    return {"n": int(n), "g": g, "d2": m1, "d3": sd, "d2_star": d2_star}
 
 
 # ----------------------------------------------------------------------------------------------
@@ -455,9 +440,15 @@ def _satterthwaite(coefs: dict[str, float], ms: dict[str, float], df: dict[str, 
         return None, None, None
     denom = sum((c * ms[k]) ** 2 / df[k] for k, c in coefs.items())
     nu = est * est / denom
+    if nu < MIN_INTERVAL_DF:
+        # the chi-square quantiles of a fraction of a degree of freedom give no usable bound
+        # (the upper one overflows; the lower one can even exceed the estimate)
+        return None, None, nu
     a = 1 - confidence
     lo = nu * est / stats.chi2.ppf(1 - a / 2, nu)
     hi = nu * est / stats.chi2.ppf(a / 2, nu)
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return None, None, nu
     return math.sqrt(lo), math.sqrt(hi), nu
 
 
@@ -566,7 +557,8 @@ def gauge_rr(
 
     Intervals (on the sigmas): repeatability exact chi-square with p o (r - 1) df; all other
     components Satterthwaite's approximation on the linear combination of mean squares that
-    defines them (a component set to 0 contributes nothing); no interval when an estimate is 0.
+    defines them (a component set to 0 contributes nothing); no interval (None bounds, a note)
+    when an estimate is 0 or its Satterthwaite degrees of freedom are below 1.
     This is the simple method; the modified large-sample method of Burdick, Borror & Montgomery
     (2005) is more accurate for small studies and is NOT used here.
 
@@ -728,6 +720,14 @@ def gauge_rr(
                 set_to_zero=name in zeroed,
             )
         )
+    no_ci = [c.name for c in components if c.lower is None and c.variance > 0
+             and c.interval_method == "Satterthwaite"]
+    if no_ci:
+        notes.append(
+            "No confidence interval for " + ", ".join(no_ci) + ": fewer than "
+            f"{MIN_INTERVAL_DF:g} Satterthwaite degree(s) of freedom; the study is too small to "
+            "bound these components (more appraisers or parts would help)."
+        )
     sd_grr = math.sqrt(variances[GAUGE_RR])
     sd_part = math.sqrt(variances[PART])
     ratio = sd_part / sd_grr if sd_grr > 0 else None
@@ -786,6 +786,11 @@ def _check_options(alpha, k, lsl, usl, confidence) -> None:
 
 def _range_method(cube: np.ndarray, k: float, tolerance: float | None) -> RangeMethodEstimate:
     p, o, r = cube.shape
+    if max(p, o, r) > MAX_RANGE_N:
+        raise AnalysisError(
+            f"the average-and-range estimate handles at most {MAX_RANGE_N} parts, appraisers "
+            f"and trials; this study has {p} parts, {o} appraisers, {r} trials; use fewer parts"
+        )
     k1 = 1.0 / range_constants(r)["d2"]
     k2 = 1.0 / range_constants(o, g=1)["d2_star"]
     k3 = 1.0 / range_constants(p, g=1)["d2_star"]
