@@ -458,7 +458,7 @@ class Decision:
 
     def to_dict(self) -> dict:
         """JSON-safe dict of every field."""
-        d = dataclasses.asdict(dataclasses.replace(self, payload={}))
+        d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         d["payload"] = json.loads(json.dumps(dict(self.payload)))
         return d
 
