@@ -1,0 +1,365 @@
+"""The workbook shell: header, step bar, guidance, messages, the current step and the overview.
+
+How a step plugs in
+-------------------
+A step is any object with the attributes of :class:`Step` (a ``typing.Protocol``)::
+
+    key: str          # stable identifier, e.g. "stability"
+    title: str        # what the step bar shows, e.g. "Stability"
+    guidance: str     # one line telling the engineer what this step is for
+    def build(self, context: WorkbookContext) -> ipywidgets.Widget: ...
+    def refresh(self, context: WorkbookContext) -> None: ...
+
+``build`` is called once, the first time the step is opened; ``refresh`` is called on every
+built step after anything in the context changes (``context.update(...)``). Steps never compute
+statistics: they ask ``studykit.analysis`` for result objects and draw them. Every callback a
+step registers is wrapped in :func:`studykit.app.widgets.guarded`; ``build``/``refresh`` are
+guarded by the shell. A step may also define ``is_done(context) -> bool`` (a tick in the bar).
+
+The default step list is :data:`DEFAULT_STEPS` (one module per step in ``studykit.app.steps``).
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Protocol, runtime_checkable
+
+import ipywidgets as widgets
+
+from studykit.app.widgets import (
+    MAX_UPLOAD_BYTES,
+    MessageArea,
+    caution_banner,
+    esc,
+    guarded,
+    html_box,
+    style_sheet,
+)
+from studykit.errors import StudyFileError
+
+log = logging.getLogger("studykit.app")
+
+ENV_STUDY = "STUDYKIT_STUDY"  # path of the study file, set by `studykit serve`
+
+STATE_NO_STUDY = "No study loaded"
+
+
+@dataclass(eq=False)
+class WorkbookContext:
+    """Everything the steps share. Change it only through :meth:`update` so the views follow.
+
+    Attributes
+    ----------
+    messages : MessageArea
+        Where steps report to the engineer (``context.messages.error(...)`` etc.).
+    study_path : Path or None
+        The study file this workbook was opened on.
+    study : object or None
+        The loaded study (``studykit.study.Study``) when a study file was read.
+    measurements : object or None
+        The measurements the engineer confirmed in the first step
+        (``studykit.data.Measurements``).
+    reader : callable(bytes, filename) -> Measurements
+        Reads an uploaded file; defaults to ``studykit.data.read_measurements_bytes``.
+    max_upload_bytes : int
+        Upload size limit.
+    title, part, state : str
+        What the header shows.
+    extra : dict
+        Free slot for later steps (e.g. the current analysis result); use namespaced keys.
+    """
+
+    messages: MessageArea
+    study_path: Path | None = None
+    study: Any = None
+    measurements: Any = None
+    reader: Callable[[bytes, str], Any] | None = None
+    max_upload_bytes: int = MAX_UPLOAD_BYTES
+    title: str = STATE_NO_STUDY
+    part: str = ""
+    state: str = STATE_NO_STUDY
+    extra: dict = field(default_factory=dict)
+    _listeners: list = field(default_factory=list, repr=False)
+
+    _FIELDS = ("study_path", "study", "measurements", "title", "part", "state")
+
+    def update(self, **changes) -> None:
+        """Set fields (``study``, ``measurements``, ``title``, ``part``, ``state``, ...) and
+        tell every listener (the shell refreshes the header, the overview and the steps)."""
+        for name, value in changes.items():
+            if name not in self._FIELDS:
+                raise TypeError(f"WorkbookContext.update: unknown field {name!r}")
+            setattr(self, name, value)
+        for listener in list(self._listeners):
+            listener(self)
+
+    def subscribe(self, listener: Callable[[WorkbookContext], None]) -> None:
+        self._listeners.append(listener)
+
+    def read_measurements(self, data: bytes, filename: str):
+        """Read an uploaded file with the configured reader."""
+        reader = self.reader
+        if reader is None:
+            from studykit.data import read_measurements_bytes as reader
+        return reader(data, filename)
+
+    @property
+    def characteristics(self) -> list:
+        """Characteristics of the confirmed measurements (empty list when none)."""
+        return list(getattr(self.measurements, "characteristics", None) or [])
+
+    @property
+    def safety_critical(self) -> list[str]:
+        """Names of characteristics the study marks safety-critical."""
+        chars = getattr(self.study, "characteristics", None) or {}
+        values = chars.values() if hasattr(chars, "values") else chars
+        return [c.name for c in values if getattr(c, "safety_critical", False)]
+
+
+@runtime_checkable
+class Step(Protocol):
+    """What a workbook step provides (see the module docstring)."""
+
+    key: str
+    title: str
+    guidance: str
+
+    def build(self, context: WorkbookContext) -> widgets.Widget: ...
+
+    def refresh(self, context: WorkbookContext) -> None: ...
+
+
+def default_steps() -> list[Step]:
+    """Fresh instances of the workbook's steps, in order (one module each in
+    ``studykit.app.steps``)."""
+    from studykit.app.steps import (
+        capability,
+        export,
+        intake,
+        limits,
+        measuring,
+        shape,
+        signoff,
+        stability,
+    )
+
+    # steps that hold widgets are created per workbook; placeholders are stateless
+    return [intake.IntakeStep(), limits.STEP, measuring.STEP, stability.STEP, shape.STEP,
+            capability.STEP, signoff.STEP, export.STEP]
+
+
+class Workbook(widgets.VBox):
+    """The workbook widget. Build it with :func:`build_workbook`.
+
+    Attributes
+    ----------
+    context : WorkbookContext
+    steps : list of Step
+    current : str
+        Key of the open step.
+    """
+
+    def __init__(self, steps: Sequence[Step], context: WorkbookContext):
+        self.context = context
+        self.steps = list(steps)
+        self._built: dict[str, widgets.Widget] = {}
+        self.current = self.steps[0].key
+        self._header = html_box("", "sk-header")
+        self._caution = widgets.VBox([])
+        self._buttons = {}
+        for number, step in enumerate(self.steps, 1):
+            b = widgets.Button(description=f"{number}  {step.title}", tooltip=step.guidance,
+                               layout=widgets.Layout(width="auto"))
+            b.add_class("sk-step")
+            b.add_class(f"sk-step-{step.key}")
+            b.on_click(guarded(lambda _b, key=step.key: self.select(key),
+                               messages=context.messages))
+            self._buttons[step.key] = b
+        self._stepbar = widgets.HBox(list(self._buttons.values()),
+                                     layout=widgets.Layout(flex_flow="row wrap"))
+        self._stepbar.add_class("sk-stepbar")
+        self._guidance = html_box("", "sk-guidance")
+        self._body = widgets.VBox([])
+        self._body.add_class("sk-body")
+        self._overview = html_box("", "sk-overview")
+        overview_card = widgets.VBox([self._overview])
+        overview_card.add_class("sk-body")
+        overview_card.add_class("sk-overview-card")
+        super().__init__([style_sheet(), self._header, self._stepbar, self._guidance,
+                          context.messages, self._caution, self._body, overview_card])
+        self.add_class("sk-root")
+        context.subscribe(self._on_context_change)
+        self._render_header()
+        self._render_overview()
+        self.select(self.current)
+
+    # --- navigation ---------------------------------------------------------------------------
+    def step(self, key: str) -> Step:
+        for s in self.steps:
+            if s.key == key:
+                return s
+        raise KeyError(f"no workbook step {key!r}; steps: {[s.key for s in self.steps]}")
+
+    def select(self, key: str) -> None:
+        """Open a step (building it the first time)."""
+        step = self.step(key)
+        if key not in self._built:
+            built = guarded(step.build, messages=self.context.messages)(self.context)
+            if built is None:
+                return
+            self._built[key] = built
+        self.current = key
+        self._body.children = [self._built[key]]
+        number = [s.key for s in self.steps].index(key) + 1
+        self._guidance.value = (f"<b>Step {number} of {len(self.steps)} · {esc(step.title)}.</b> "
+                                f"{esc(step.guidance)}")
+        self._render_stepbar()
+
+    # --- rendering ----------------------------------------------------------------------------
+    def _on_context_change(self, context: WorkbookContext) -> None:
+        self._render_header()
+        self._render_overview()
+        for key, _w in self._built.items():
+            guarded(self.step(key).refresh, messages=context.messages)(context)
+        self._render_stepbar()
+
+    def _render_stepbar(self) -> None:
+        for step in self.steps:
+            b = self._buttons[step.key]
+            done = bool(getattr(step, "is_done", lambda _c: False)(self.context))
+            for cls, on in (("sk-current", step.key == self.current), ("sk-done", done)):
+                (b.add_class if on else b.remove_class)(cls)
+            number = [s.key for s in self.steps].index(step.key) + 1
+            b.description = f"{'✓' if done else number}  {step.title}"
+
+    def _render_header(self) -> None:
+        c = self.context
+        where = esc(c.study_path.name) if c.study_path else "no study file"
+        part = f"Part: {esc(c.part)} · " if c.part else ""
+        self._header.value = (
+            '<div style="display:flex;justify-content:space-between;align-items:center;gap:16px">'
+            f'<div><div class="sk-brand">studykit workbook</div>'
+            f'<div class="sk-title">{esc(c.title)}</div>'
+            f'<div class="sk-sub">{part}Study file: {where}</div></div>'
+            f'<div><span class="sk-state" title="Study state">{esc(c.state)}</span></div></div>'
+        )
+        names = c.safety_critical
+        self._caution.children = (
+            [caution_banner(title="Safety-critical: " + ", ".join(names))] if names else []
+        )
+
+    def _render_overview(self) -> None:
+        chars = self.context.characteristics
+        head = '<div class="sk-section">Characteristics at a glance</div>'
+        if not chars:
+            self._overview.value = head + (
+                '<div class="sk-muted">No measurements confirmed yet. Bring in a data file '
+                "in step 1; each characteristic then gets a row here with its stability, "
+                "shape and capability status.</div>")
+            return
+        pending = '<span class="sk-muted">not yet assessed</span>'
+        rows = "".join(
+            f"<tr><td>{esc(getattr(ch, 'name', '?'))}</td><td>{esc(getattr(ch, 'unit', None))}</td>"
+            f'<td class="num">{_count_values(ch)}</td>'
+            f"<td>{pending}</td><td>{pending}</td><td>{pending}</td></tr>"
+            for ch in chars
+        )
+        self._overview.value = head + (
+            '<table class="sk-table"><thead><tr><th>Characteristic</th><th>Unit</th>'
+            "<th>Values</th><th>Stability</th><th>Shape</th><th>Capability</th></tr></thead>"
+            f"<tbody>{rows}</tbody></table>")
+
+
+def _count_values(ch) -> str:
+    values = getattr(ch, "values", None)
+    if values is None:
+        return "—"
+    return str(len(values) - int(getattr(ch, "n_missing", 0) or 0))
+
+
+def load_study_into(context: WorkbookContext, path: str | os.PathLike) -> None:
+    """Open a study file and put it into the context (errors become messages, not crashes)."""
+    path = Path(path)
+    if not path.is_file():
+        context.update(study_path=path, state="Study file not found")
+        raise StudyFileError(
+            f"the study file '{path.name}' does not exist; start the workbook with an existing "
+            "study file, or without one to begin from a data file")
+    opener = _study_opener()
+    if opener is None:
+        context.update(study_path=path, title=path.stem, state="Study file found")
+        context.messages.info(
+            f"Study file '{path.name}' found; reading saved studies arrives with the study-file "
+            "module. You can bring in a data file meanwhile.")
+        return
+    study = opener(path)
+    context.update(study_path=path, study=study,
+                   title=getattr(study, "title", "") or path.stem,
+                   part=getattr(study, "part", "") or "", state="Study open")
+
+
+def _study_opener():
+    """``studykit.store``'s open function if that module is present (written in parallel)."""
+    try:
+        from studykit import store
+    except ImportError:
+        return None
+    for name in ("load_study", "open_study", "read_study"):
+        fn = getattr(store, name, None)
+        if callable(fn):
+            return fn
+    return None
+
+
+def build_workbook(study_path: str | os.PathLike | None = None, *,
+                   steps: Sequence[Step] | None = None,
+                   reader: Callable[[bytes, str], Any] | None = None,
+                   max_upload_bytes: int = MAX_UPLOAD_BYTES) -> Workbook:
+    """Build the workbook widget.
+
+    Parameters
+    ----------
+    study_path : path, optional
+        Study file to open. ``None`` starts in the "no study loaded" state.
+    steps : sequence of Step, optional
+        Steps to show (default :func:`default_steps`).
+    reader : callable(bytes, filename) -> Measurements, optional
+        Measurement reader for uploads (default ``studykit.data.read_measurements_bytes``).
+    max_upload_bytes : int
+        Upload size limit (default 50 MB).
+
+    Returns
+    -------
+    Workbook
+        An ``ipywidgets.VBox``; ``.context`` holds the shared state, ``.select(key)`` opens a
+        step.
+
+    Examples
+    --------
+    >>> wb = build_workbook()
+    >>> [s.key for s in wb.steps][:2], wb.context.state
+    (['intake', 'limits'], 'No study loaded')
+    """
+    messages = MessageArea()
+    context = WorkbookContext(messages=messages, reader=reader,
+                              max_upload_bytes=max_upload_bytes)
+    wb = Workbook(steps if steps is not None else default_steps(), context)
+    if study_path is not None and str(study_path) != "":
+        guarded(load_study_into, messages=messages)(context, study_path)
+    return wb
+
+
+def workbook_from_environment() -> Workbook:
+    """What the notebook calls: load BokehJS, build the workbook on ``$STUDYKIT_STUDY``.
+
+    ``studykit serve`` sets ``STUDYKIT_STUDY`` (empty or unset: no study loaded).
+    """
+    from studykit.app.bokeh_assets import load_bokehjs
+
+    logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
+    load_bokehjs()
+    return build_workbook(os.environ.get(ENV_STUDY) or None)

@@ -1,0 +1,269 @@
+"""Shared workbook pieces: style sheet, message area, the ``guarded`` decorator, banners.
+
+No statistics in here. Every callback a step registers is wrapped with :func:`guarded`, so an
+error raised while handling a click or an upload shows up as a readable message in the page
+(Voila hides tracebacks, so an unhandled error would otherwise vanish silently).
+"""
+
+from __future__ import annotations
+
+import functools
+import html
+import logging
+from collections.abc import Callable
+from datetime import datetime
+
+import ipywidgets as widgets
+
+from studykit import theme
+from studykit.errors import StudyInputError
+
+log = logging.getLogger("studykit.app")
+
+MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
+SAFETY_NOTE = (
+    "Statistics support, but do not replace, product validation. Customer requirements, "
+    "applicable codes and licensed professional practice govern acceptance of this "
+    "characteristic."
+)
+
+
+def esc(value) -> str:
+    """HTML-escape any value for display (``None`` shows as an em dash)."""
+    return "—" if value is None else html.escape(str(value))
+
+
+# --- style sheet --------------------------------------------------------------------------------
+
+CSS = f"""
+<style>
+.sk-root {{ font-family: {theme.CSS_FONT_STACK}; color: {theme.INK}; font-size: 14px;
+  max-width: 1400px; margin: 0 auto; }}
+.sk-root .widget-html-content, .sk-root .widget-label {{ font-family: {theme.CSS_FONT_STACK};
+  font-size: 14px; line-height: 1.45; }}
+.sk-header {{ background: #24292F; color: #FFFFFF; padding: 14px 22px; border-radius: 4px 4px 0 0; }}
+.sk-header .widget-html-content {{ color: #FFFFFF; line-height: 1.3; }}
+.sk-brand {{ font-size: 12px; letter-spacing: .08em; text-transform: uppercase; color: #AFB8C1; }}
+.sk-title {{ font-size: 22px; font-weight: 600; margin-top: 2px; }}
+.sk-sub {{ font-size: 13px; color: #D0D7DE; margin-top: 2px; }}
+.sk-state {{ display: inline-block; padding: 3px 10px; border-radius: 12px; font-size: 12px;
+  font-weight: 600; border: 1px solid #57606A; background: #32383F; color: #FFFFFF; }}
+.sk-stepbar {{ background: {theme.PANEL}; border: 1px solid {theme.RULE}; border-top: none;
+  padding: 0 12px; }}
+.sk-stepbar .sk-step {{ background: transparent; border: none; border-bottom: 3px solid transparent;
+  border-radius: 0; color: {theme.INK_SOFT}; font-size: 14px; height: 46px; padding: 0 14px;
+  box-shadow: none; }}
+.sk-stepbar .sk-step:hover {{ color: {theme.INK}; background: #EAEEF2; }}
+.sk-stepbar .sk-step.sk-current {{ color: {theme.INK}; font-weight: 600;
+  border-bottom-color: {theme.OKABE_ITO['blue']}; }}
+.sk-stepbar .sk-step.sk-done {{ color: {theme.INK}; }}
+.sk-guidance {{ padding: 10px 22px; border: 1px solid {theme.RULE}; border-top: none;
+  background: #FFFFFF; color: {theme.INK_SOFT}; }}
+.sk-guidance b {{ color: {theme.INK}; }}
+.sk-body {{ padding: 18px 22px; border: 1px solid {theme.RULE}; border-top: none; background: #FFFFFF;
+  min-height: 260px; }}
+.sk-section {{ font-size: 16px; font-weight: 600; margin: 4px 0 8px 0; color: {theme.INK}; }}
+.sk-muted {{ color: {theme.INK_SOFT}; }}
+.sk-table {{ border-collapse: collapse; margin: 6px 0 10px 0; font-size: 14px; min-width: 60%; }}
+.sk-table th {{ text-align: left; font-weight: 600; color: {theme.INK_SOFT}; font-size: 12px;
+  text-transform: uppercase; letter-spacing: .04em; border-bottom: 2px solid {theme.RULE};
+  padding: 6px 14px 6px 0; }}
+.sk-table td {{ border-bottom: 1px solid #EAEEF2; padding: 7px 14px 7px 0; vertical-align: top; }}
+.sk-table td.num {{ text-align: right; font-variant-numeric: tabular-nums; }}
+.sk-facts {{ display: grid; grid-template-columns: max-content auto; gap: 4px 18px; margin: 6px 0 12px 0; }}
+.sk-facts dt {{ color: {theme.INK_SOFT}; }}
+.sk-facts dd {{ margin: 0; font-weight: 600; }}
+.sk-msg {{ border-left: 4px solid; padding: 8px 12px; margin: 6px 0; border-radius: 2px; }}
+.sk-msg-error {{ border-color: {theme.VERDICTS['fail'].color}; background: {theme.VERDICTS['fail'].background}; }}
+.sk-msg-warning {{ border-color: {theme.VERDICTS['caution'].color}; background: {theme.VERDICTS['caution'].background}; }}
+.sk-msg-info {{ border-color: {theme.OKABE_ITO['blue']}; background: #E8F1F8; }}
+.sk-msg-ok {{ border-color: {theme.VERDICTS['pass'].color}; background: {theme.VERDICTS['pass'].background}; }}
+.sk-msg .sk-msg-kind {{ font-weight: 700; margin-right: 6px; }}
+.sk-msg .sk-msg-time {{ color: {theme.INK_SOFT}; font-size: 12px; margin-left: 8px; }}
+.sk-caution {{ border: 1px solid {theme.VERDICTS['caution'].color};
+  background: {theme.VERDICTS['caution'].background}; padding: 10px 14px; border-radius: 3px; }}
+.sk-coming {{ border: 1px dashed {theme.RULE}; background: {theme.PANEL}; padding: 16px 18px;
+  border-radius: 3px; color: {theme.INK_SOFT}; }}
+.sk-coming b {{ color: {theme.INK}; }}
+.sk-verdict {{ display: inline-block; padding: 1px 8px; border-radius: 10px; font-size: 12px;
+  font-weight: 600; }}
+.sk-root .jupyter-button.mod-primary {{ background: {theme.OKABE_ITO['blue']}; }}
+.sk-root .jupyter-button {{ font-size: 14px; height: 34px; padding: 0 16px; }}
+.sk-upload .jupyter-button {{ width: auto; }}
+</style>
+"""
+
+
+def style_sheet() -> widgets.HTML:
+    """The workbook's style sheet as a widget (must be displayed once, anywhere in the page)."""
+    return widgets.HTML(CSS, layout=widgets.Layout(height="0px", overflow="hidden"))
+
+
+def html_box(text: str = "", *classes: str) -> widgets.HTML:
+    """An HTML widget with our CSS classes."""
+    box = widgets.HTML(text)
+    for c in classes:
+        box.add_class(c)
+    return box
+
+
+def verdict_badge(name: str) -> str:
+    """HTML for a verdict chip: symbol + word + colour (never colour alone).
+
+    Examples
+    --------
+    >>> "✓" in verdict_badge("pass")
+    True
+    """
+    v = theme.VERDICTS[name]
+    return (f'<span class="sk-verdict" style="color:{v.color};background:{v.background}">'
+            f"{v.symbol} {esc(v.label)}</span>")
+
+
+def caution_banner(text: str = SAFETY_NOTE, *, title: str = "Safety-critical characteristic"):
+    """The caution banner shown with every safety-critical characteristic.
+
+    Examples
+    --------
+    >>> "do not replace" in caution_banner().value
+    True
+    """
+    symbol = theme.VERDICTS["caution"].symbol
+    return html_box(
+        f'<div class="sk-caution" role="note"><b>{symbol} {esc(title)}.</b> {esc(text)}</div>',
+        "sk-caution-banner",
+    )
+
+
+def coming_panel(title: str, what: str) -> widgets.HTML:
+    """Placeholder for a step that a later version fills in."""
+    return html_box(
+        f'<div class="sk-coming"><b>{esc(title)}: coming in a later version.</b><br>'
+        f"{esc(what)}</div>",
+        "sk-coming-panel",
+    )
+
+
+# --- messages -----------------------------------------------------------------------------------
+
+
+class MessageArea(widgets.VBox):
+    """Where errors, warnings and notes from callbacks are shown (newest first, at most 6).
+
+    Examples
+    --------
+    >>> area = MessageArea()
+    >>> area.error("`usl` (9.5) must be greater than `lsl` (10.0)")
+    >>> area.messages[0][0], "9.5" in area.messages[0][1]
+    ('error', True)
+    """
+
+    _KINDS = {"error": "Problem", "warning": "Caution", "info": "Note", "ok": "Done"}
+    _current: MessageArea | None = None
+    limit = 6
+
+    def __init__(self, **kwargs):
+        self._list = widgets.HTML("")
+        self._clear = widgets.Button(description="Clear messages", layout={"display": "none"})
+        self._clear.on_click(lambda _b: self.clear())
+        self.messages: list[tuple[str, str, str]] = []
+        super().__init__([self._list, self._clear], **kwargs)
+        self.add_class("sk-messages")
+        MessageArea._current = self
+
+    @classmethod
+    def current(cls) -> MessageArea | None:
+        """The most recently built message area (one workbook per kernel)."""
+        return cls._current
+
+    def show(self, kind: str, text: str) -> None:
+        if kind not in self._KINDS:
+            kind = "info"
+        stamp = datetime.now().strftime("%H:%M:%S")
+        self.messages.insert(0, (kind, str(text), stamp))
+        del self.messages[self.limit:]
+        self._render()
+
+    def error(self, text: str) -> None:
+        self.show("error", text)
+
+    def warning(self, text: str) -> None:
+        self.show("warning", text)
+
+    def info(self, text: str) -> None:
+        self.show("info", text)
+
+    def ok(self, text: str) -> None:
+        self.show("ok", text)
+
+    def clear(self) -> None:
+        self.messages.clear()
+        self._render()
+
+    def _render(self) -> None:
+        parts = [
+            f'<div class="sk-msg sk-msg-{kind}" role="{"alert" if kind == "error" else "status"}">'
+            f'<span class="sk-msg-kind">{self._KINDS[kind]}</span>{esc(text)}'
+            f'<span class="sk-msg-time">{stamp}</span></div>'
+            for kind, text, stamp in self.messages
+        ]
+        self._list.value = "".join(parts)
+        self._clear.layout.display = "" if self.messages else "none"
+
+
+def describe_exception(exc: BaseException) -> str:
+    """The text a user sees for an exception: our input errors verbatim, others in short.
+
+    Examples
+    --------
+    >>> describe_exception(StudyInputError("`lsl` must be a number"))
+    '`lsl` must be a number'
+    >>> describe_exception(KeyError("x"))
+    "Something went wrong: KeyError: 'x'. The details are in the server log."
+    """
+    if isinstance(exc, StudyInputError):
+        return str(exc)
+    return f"Something went wrong: {type(exc).__name__}: {exc}. The details are in the server log."
+
+
+def guarded(callback: Callable | None = None, *, messages: MessageArea | None = None):
+    """Wrap a widget callback so every exception becomes a message in the page.
+
+    ``StudyInputError`` (and subclasses) show their own text; any other exception shows
+    "Something went wrong: <type>: <message>" and its traceback goes to the ``studykit.app``
+    logger (the server log), never to the page. The callback's return value is passed
+    through (``None`` when it failed).
+
+    Use as ``@guarded`` or ``guarded(messages=area)(fn)``; without ``messages`` the most
+    recently built :class:`MessageArea` is used.
+
+    Examples
+    --------
+    >>> area = MessageArea()
+    >>> @guarded(messages=area)
+    ... def on_click(_button):
+    ...     raise StudyInputError("`usl` (9.5) must be greater than `lsl` (10.0)")
+    >>> on_click(None)
+    >>> area.messages[0][:2]
+    ('error', '`usl` (9.5) must be greater than `lsl` (10.0)')
+    """
+
+    def decorate(fn: Callable) -> Callable:
+        @functools.wraps(fn)
+        def wrapper(*args, **kwargs):
+            try:
+                return fn(*args, **kwargs)
+            except Exception as exc:  # noqa: BLE001 - the whole point: nothing escapes
+                if isinstance(exc, StudyInputError):
+                    log.info("input error in %s: %s", getattr(fn, "__name__", fn), exc)
+                else:
+                    log.exception("callback %s failed", getattr(fn, "__name__", fn))
+                area = messages or MessageArea.current()
+                if area is not None:
+                    area.error(describe_exception(exc))
+                return None
+
+        wrapper.__studykit_guarded__ = True
+        return wrapper
+
+    return decorate(callback) if callback is not None else decorate

@@ -1,0 +1,196 @@
+"""``studykit serve``: open the browser workbook on a study file.
+
+Starts Voila (through :mod:`studykit.app.server`) on ``notebooks/workbook.ipynb``, bound to
+127.0.0.1 unless ``--host`` says otherwise. Any other address needs a token: one is generated
+(``secrets.token_urlsafe``), handed to the server through its environment (not the command
+line, where other users of the machine could read it) and printed in the address. Ctrl-C or
+SIGTERM stops the server and its kernels.
+"""
+
+from __future__ import annotations
+
+import ipaddress
+import os
+import secrets
+import signal
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+import webbrowser
+from pathlib import Path
+
+from studykit.errors import StudyFileError, StudyInputError
+
+ENV_STUDY = "STUDYKIT_STUDY"  # same name as studykit.app.shell.ENV_STUDY
+ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # read (and removed) by studykit.app.server
+REPO_ROOT = Path(__file__).resolve().parents[2]
+NOTEBOOK = REPO_ROOT / "notebooks" / "workbook.ipynb"
+DEMO_DIR = REPO_ROOT / "demo_data"
+STARTUP_TIMEOUT = 90.0
+
+_FALLBACK_NOTEBOOK = """{"cells": [{"cell_type": "code", "execution_count": null, "metadata": {},
+ "outputs": [], "source": ["from studykit.app import workbook_from_environment\\n",
+ "workbook_from_environment()"]}], "metadata": {"kernelspec": {"display_name": "Python 3",
+ "language": "python", "name": "python3"}}, "nbformat": 4, "nbformat_minor": 4}"""
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "serve",
+        help="open the browser workbook",
+        description="Open the browser workbook on a study file (or on the demo study).",
+    )
+    p.add_argument("study", nargs="?", metavar="STUDY_FILE",
+                   help="study file to open (omit to start with no study loaded)")
+    p.add_argument("--demo", action="store_true", help="open the demo study from demo_data/")
+    p.add_argument("--port", type=int, default=8866, help="port to listen on (default 8866)")
+    p.add_argument("--host", default="127.0.0.1",
+                   help="address to bind (default 127.0.0.1, this machine only); any other "
+                        "address requires the printed token")
+    p.add_argument("--no-browser", action="store_true", help="do not open a browser window")
+    p.set_defaults(func=run)
+
+
+def is_loopback(host: str) -> bool:
+    """Whether ``host`` only accepts connections from this machine.
+
+    Examples
+    --------
+    >>> is_loopback("127.0.0.1"), is_loopback("localhost"), is_loopback("0.0.0.0")
+    (True, True, False)
+    """
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+def find_demo_study(demo_dir: Path = DEMO_DIR) -> Path | None:
+    """The demo study file (first ``demo_data/*.study``), or None when it is not made yet."""
+    found = sorted(demo_dir.glob("*.study")) if demo_dir.is_dir() else []
+    return found[0] if found else None
+
+
+def check_port_free(host: str, port: int) -> None:
+    if not 0 < port < 65536:
+        raise StudyInputError(f"`--port` ({port}) must be between 1 and 65535")
+    with socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET) as s:
+        try:
+            s.bind((host, port))
+        except OSError as exc:
+            raise StudyInputError(
+                f"`--port` ({port}) cannot be used on {host}: {exc.strerror}; choose another "
+                "port, e.g. --port 8870") from None
+
+
+def workbook_notebook() -> Path:
+    """The workbook notebook (the repository's, or a generated copy for installed packages)."""
+    if NOTEBOOK.is_file():
+        return NOTEBOOK
+    folder = Path(tempfile.mkdtemp(prefix="studykit-workbook-"))
+    path = folder / "workbook.ipynb"
+    path.write_text(_FALLBACK_NOTEBOOK, encoding="utf-8")
+    return path
+
+
+def server_command(notebook: Path, *, host: str, port: int) -> list[str]:
+    """The command line that starts the Voila server (no secrets in it)."""
+    return [
+        sys.executable, "-m", "studykit.app.server", str(notebook),
+        "--no-browser", f"--port={port}", f"--Voila.ip={host}", "--Voila.port_retries=0",
+    ]
+
+
+def wait_until_listening(proc: subprocess.Popen, host: str, port: int,
+                         timeout: float = STARTUP_TIMEOUT) -> bool:
+    probe = "127.0.0.1" if host in ("0.0.0.0", "") else ("::1" if host == "::" else host)
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            return False
+        try:
+            with socket.create_connection((probe, port), timeout=1.0):
+                return True
+        except OSError:
+            time.sleep(0.2)
+    return False
+
+
+def stop(proc: subprocess.Popen, timeout: float = 15.0) -> int:
+    """Terminate the server (SIGTERM, then SIGKILL after ``timeout`` seconds)."""
+    if proc.poll() is None:
+        proc.terminate()
+        try:
+            proc.wait(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+    return proc.returncode
+
+
+def run(args) -> int:
+    host, port = args.host, args.port
+    if args.demo and args.study:
+        raise StudyInputError("give either STUDY_FILE or --demo, not both")
+    study = None
+    if args.demo:
+        study = find_demo_study()
+        if study is None:
+            print("studykit serve: no demo study yet (demo_data/*.study); the workbook opens "
+                  "with no study loaded. Run demo_data/make_demo.py to make it.", file=sys.stderr)
+    elif args.study:
+        study = Path(args.study).expanduser().resolve()
+        if not study.is_file():
+            raise StudyFileError(f"the study file '{args.study}' does not exist; check the "
+                                 "path, or run `studykit serve` without it")
+    check_port_free(host, port)
+
+    env = dict(os.environ)
+    env[ENV_STUDY] = str(study) if study else ""
+    token = None
+    if not is_loopback(host):
+        token = secrets.token_urlsafe(24)
+        env[ENV_TOKEN] = token
+    else:
+        env.pop(ENV_TOKEN, None)
+
+    notebook = workbook_notebook()
+    proc = subprocess.Popen(server_command(notebook, host=host, port=port), env=env,
+                            cwd=str(notebook.parent), start_new_session=True)
+
+    def on_term(_signum, _frame):
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGTERM, on_term)
+    try:
+        if not wait_until_listening(proc, host, port):
+            stop(proc)
+            print("studykit serve: the workbook server did not start; see the messages above",
+                  file=sys.stderr)
+            return 1
+        shown = socket.gethostname() if host in ("0.0.0.0", "::") else host
+        if ":" in shown:
+            shown = f"[{shown}]"
+        url = f"http://{shown}:{port}/" + (f"?token={token}" if token else "")
+        print(f"studykit workbook: {url}", flush=True)
+        if study:
+            print(f"study file: {study}", flush=True)
+        if token:
+            print("Anyone with this address (including the token) can open and change the "
+                  "study; share it only with the team.", flush=True)
+        print("Press Ctrl-C to stop.", flush=True)
+        if not args.no_browser:
+            webbrowser.open(url)
+        return proc.wait()
+    except KeyboardInterrupt:
+        print("\nstudykit serve: stopping the workbook server", file=sys.stderr, flush=True)
+        stop(proc)
+        return 0
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        if proc.poll() is None:
+            stop(proc)

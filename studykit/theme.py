@@ -1,0 +1,353 @@
+"""studykit's visual language: one palette and one set of marks for the workbook and the PDF.
+
+Every chart, in the browser (bokeh) and in the PDF (matplotlib), draws its lines and points
+through the named *roles* below, so a control limit looks the same on screen and on paper.
+
+Choices
+-------
+* Colours come from the eight-colour palette of Okabe and Ito, designed to stay distinguishable
+  for the common forms of colour-vision deficiency (protanopia, deuteranopia, tritanopia).
+* Colour is never the only carrier of meaning: every role also has its own line style or marker
+  shape, and every verdict has a symbol and a word, so a grey-scale print or a colour-blind reader
+  loses nothing.
+* Sizes are chosen to stay legible on a meeting-room projector: data lines 2 px, limits 2 px,
+  markers 7-11 px, axis text 13 px on screen and 10-11 pt on paper (common practice, no source).
+
+References
+----------
+.. [1] M. Okabe and K. Ito, "Color Universal Design (CUD): how to make figures and presentations
+   that are friendly to colorblind people", J*FLY, 2002/2008, https://jfly.uni-koeln.de/color/
+.. [2] B. Wong, "Points of view: Color blindness", Nature Methods 8, 441 (2011),
+   doi:10.1038/nmeth.1618 (reprints the Okabe-Ito palette with its RGB values).
+
+Examples
+--------
+>>> from studykit import theme
+>>> theme.ROLES["control_limit"].color
+'#D55E00'
+>>> theme.ROLES["control_limit"].mpl_linestyle
+'--'
+>>> markers = [role.marker for role in theme.ROLES.values() if role.marker]
+>>> len(markers) == len(set(markers))  # point roles differ by shape, not colour alone
+True
+>>> theme.VERDICTS["fail"].symbol
+'✗'
+"""
+
+from __future__ import annotations
+
+import contextlib
+from dataclasses import asdict, dataclass
+
+# --- the Okabe-Ito palette [1], [2]; hex values as published (Wong 2011, Fig. 2) ----------------
+OKABE_ITO = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish_purple": "#CC79A7",
+}
+
+# neutral tones for text, grids and page (not part of the published palette)
+INK = "#1F2328"  # body text
+INK_SOFT = "#57606A"  # secondary text, axis labels
+RULE = "#D0D7DE"  # borders, grid
+PAPER = "#FFFFFF"
+PANEL = "#F6F8FA"  # quiet panel background
+EXCLUDED_GREY = "#8C959F"
+
+FONT_FAMILY = "DejaVu Sans"  # ships with matplotlib, so the PDF never falls back silently
+CSS_FONT_STACK = '"Segoe UI", "Helvetica Neue", Arial, "DejaVu Sans", sans-serif'
+
+
+@dataclass(frozen=True)
+class Role:
+    """How one kind of chart element is drawn.
+
+    Attributes
+    ----------
+    name : str
+        Role key, e.g. ``"control_limit"``.
+    label : str
+        Legend text.
+    color : str
+        Hex colour.
+    line_dash : str or None
+        bokeh dash name (``"solid"``, ``"dashed"``, ``"dotted"``, ``"dashdot"``) for line roles.
+    line_width : float
+        Line width in screen pixels (matplotlib: points, scaled by ``PT_PER_PX``).
+    marker : str or None
+        bokeh marker name for point roles (matplotlib code in ``mpl_marker``).
+    marker_size : float
+        Marker size in screen pixels.
+    filled : bool
+        Whether the marker is filled.
+    """
+
+    name: str
+    label: str
+    color: str
+    line_dash: str | None = None
+    line_width: float = 2.0
+    marker: str | None = None
+    marker_size: float = 7.0
+    filled: bool = True
+
+    @property
+    def mpl_linestyle(self) -> str | None:
+        """The matplotlib line style for ``line_dash``."""
+        return _MPL_DASH.get(self.line_dash) if self.line_dash else None
+
+    @property
+    def mpl_marker(self) -> str | None:
+        """The matplotlib marker code for ``marker``."""
+        return _MPL_MARKER.get(self.marker) if self.marker else None
+
+    def to_dict(self) -> dict:
+        """JSON-safe description of the role."""
+        return asdict(self)
+
+
+_MPL_DASH = {"solid": "-", "dashed": "--", "dotted": ":", "dashdot": "-."}
+_MPL_MARKER = {
+    "circle": "o",
+    "square": "s",
+    "diamond": "D",
+    "triangle": "^",
+    "inverted_triangle": "v",
+    "x": "x",
+    "cross": "+",
+}
+PT_PER_PX = 0.75  # 1 CSS pixel = 0.75 pt
+
+ROLES: dict[str, Role] = {
+    r.name: r
+    for r in [
+        Role("data", "Measured values", OKABE_ITO["blue"], "solid", 1.6, "circle", 7.0),
+        Role("centre_line", "Centre line", OKABE_ITO["black"], "solid", 2.0),
+        Role("control_limit", "Control limit", OKABE_ITO["vermillion"], "dashed", 2.0),
+        Role("warning_limit", "Warning limit", OKABE_ITO["orange"], "dotted", 2.0),
+        Role("spec_limit", "Specification limit", OKABE_ITO["reddish_purple"], "dashdot", 2.5),
+        Role("target", "Target", OKABE_ITO["bluish_green"], "dotted", 2.0),
+        Role("fit", "Fitted model", OKABE_ITO["sky_blue"], "solid", 2.5),
+        Role("signal", "Signal (rule broken)", OKABE_ITO["vermillion"], None, 0, "diamond", 11.0),
+        Role("excluded", "Excluded (reason recorded)", EXCLUDED_GREY, None, 0, "x", 10.0, False),
+        Role("secondary", "Second series", OKABE_ITO["orange"], "solid", 1.6, "square", 7.0),
+    ]
+}
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """How a verdict is shown: colour, symbol and word together (never colour alone)."""
+
+    name: str
+    label: str
+    color: str
+    background: str
+    symbol: str
+
+
+VERDICTS: dict[str, Verdict] = {
+    "pass": Verdict("pass", "Meets criteria", OKABE_ITO["bluish_green"], "#E3F4EE", "✓"),
+    "fail": Verdict("fail", "Does not meet criteria", OKABE_ITO["vermillion"], "#FBE9E0", "✗"),
+    "caution": Verdict("caution", "Read with care", "#9A6A00", "#FDF3D8", "!"),
+    "pending": Verdict("pending", "Not yet assessed", INK_SOFT, PANEL, "…"),
+}
+
+
+def color(role: str) -> str:
+    """Colour of a role or verdict by name.
+
+    Examples
+    --------
+    >>> color("pass")
+    '#009E73'
+    """
+    if role in ROLES:
+        return ROLES[role].color
+    if role in VERDICTS:
+        return VERDICTS[role].color
+    from studykit.errors import StudyInputError
+
+    known = ", ".join([*ROLES, *VERDICTS])
+    raise StudyInputError(f"`role` ({role!r}) is not a known role; use one of: {known}")
+
+
+# --- matplotlib (PDF) ---------------------------------------------------------------------------
+
+
+def matplotlib_style() -> dict:
+    """rcParams for PDF figures in studykit's style (use with ``matplotlib.rc_context``).
+
+    Examples
+    --------
+    >>> style = matplotlib_style()
+    >>> style["axes.prop_cycle"].by_key()["color"][0]
+    '#0072B2'
+    """
+    from cycler import cycler
+
+    cycle = [OKABE_ITO[k] for k in ("blue", "orange", "bluish_green", "reddish_purple",
+                                    "sky_blue", "vermillion", "black")]
+    return {
+        "font.family": "sans-serif",
+        "font.sans-serif": [FONT_FAMILY],
+        "font.size": 10.0,
+        "axes.titlesize": 11.0,
+        "axes.titleweight": "bold",
+        "axes.titlelocation": "left",
+        "axes.labelsize": 10.0,
+        "axes.labelcolor": INK,
+        "axes.edgecolor": INK_SOFT,
+        "axes.linewidth": 0.8,
+        "axes.grid": True,
+        "axes.spines.top": False,
+        "axes.spines.right": False,
+        "axes.prop_cycle": cycler(color=cycle),
+        "grid.color": RULE,
+        "grid.linewidth": 0.6,
+        "grid.linestyle": "-",
+        "xtick.color": INK_SOFT,
+        "ytick.color": INK_SOFT,
+        "xtick.labelsize": 9.0,
+        "ytick.labelsize": 9.0,
+        "lines.linewidth": ROLES["data"].line_width * PT_PER_PX,
+        "lines.markersize": ROLES["data"].marker_size * PT_PER_PX,
+        "legend.fontsize": 9.0,
+        "legend.frameon": False,
+        "figure.facecolor": PAPER,
+        "axes.facecolor": PAPER,
+        "savefig.facecolor": PAPER,
+        "figure.dpi": 100,
+        "savefig.dpi": 200,
+        "pdf.fonttype": 42,  # embed TrueType, text stays searchable
+    }
+
+
+@contextlib.contextmanager
+def matplotlib_context():
+    """Context manager applying :func:`matplotlib_style` for the figures drawn inside it."""
+    import matplotlib
+
+    with matplotlib.rc_context(matplotlib_style()):
+        yield
+
+
+def mpl_line_kwargs(role: str) -> dict:
+    """``Axes.plot``/``axhline`` keyword arguments for a line role.
+
+    Examples
+    --------
+    >>> mpl_line_kwargs("spec_limit")["linestyle"]
+    '-.'
+    """
+    r = _role(role)
+    return {"color": r.color, "linestyle": r.mpl_linestyle or "-",
+            "linewidth": r.line_width * PT_PER_PX, "label": r.label}
+
+
+def mpl_marker_kwargs(role: str) -> dict:
+    """``Axes.scatter`` keyword arguments for a point role (``s`` is an area in pt²)."""
+    r = _role(role)
+    size_pt = r.marker_size * PT_PER_PX
+    kw = {"marker": r.mpl_marker or "o", "s": size_pt**2, "label": r.label, "zorder": 3}
+    if r.filled and r.marker not in ("x", "cross"):
+        kw.update(color=r.color, edgecolors=PAPER, linewidths=0.5)
+    else:
+        kw.update(color=r.color, linewidths=1.5)
+    return kw
+
+
+# --- bokeh (workbook) ---------------------------------------------------------------------------
+
+
+def bokeh_line_kwargs(role: str) -> dict:
+    """Keyword arguments for ``figure.line``/``Span`` for a line role.
+
+    Examples
+    --------
+    >>> bokeh_line_kwargs("control_limit")
+    {'line_color': '#D55E00', 'line_dash': 'dashed', 'line_width': 2.0}
+    """
+    r = _role(role)
+    return {"line_color": r.color, "line_dash": r.line_dash or "solid", "line_width": r.line_width}
+
+
+def bokeh_marker_kwargs(role: str) -> dict:
+    """Keyword arguments for ``figure.scatter`` for a point role.
+
+    Examples
+    --------
+    >>> bokeh_marker_kwargs("excluded")["marker"]
+    'x'
+    """
+    r = _role(role)
+    kw = {"marker": r.marker or "circle", "size": r.marker_size, "line_color": r.color}
+    if r.filled and r.marker not in ("x", "cross"):
+        kw.update(fill_color=r.color, line_color=PAPER, line_width=0.8)
+    else:
+        kw.update(fill_alpha=0.0, line_width=2.0)
+    return kw
+
+
+def bokeh_theme():
+    """A :class:`bokeh.themes.Theme` with studykit's fonts, sizes and quiet axes."""
+    from bokeh.themes import Theme
+
+    text = {"text_font": "Helvetica, Arial, sans-serif"}
+    return Theme(json={
+        "attrs": {
+            "Plot": {"background_fill_color": PAPER, "border_fill_color": PAPER,
+                     "outline_line_color": None, "min_border_left": 50},
+            "Axis": {"axis_label_text_font_size": "13px", "axis_label_text_color": INK_SOFT,
+                     "axis_label_text_font_style": "normal",
+                     "major_label_text_font_size": "12px", "major_label_text_color": INK_SOFT,
+                     "axis_line_color": INK_SOFT, "major_tick_line_color": INK_SOFT,
+                     "minor_tick_line_color": None},
+            "Grid": {"grid_line_color": RULE, "grid_line_alpha": 0.8},
+            "Title": {"text_font_size": "14px", "text_color": INK, "text_font_style": "bold",
+                      **text},
+            "Legend": {"label_text_font_size": "12px", "label_text_color": INK,
+                       "border_line_color": None, "background_fill_alpha": 0.85},
+        }
+    })
+
+
+def style_bokeh_figure(fig):
+    """Apply the theme's look to an existing bokeh figure in place and return it.
+
+    Widgets built with :class:`jupyter_bokeh.widgets.BokehModel` do not pass through a bokeh
+    ``Document`` theme, so charts call this on each figure they build.
+    """
+    fig.background_fill_color = PAPER
+    fig.border_fill_color = PAPER
+    fig.outline_line_color = None
+    fig.toolbar.logo = None
+    if fig.title is not None:
+        fig.title.text_font_size = "14px"
+        fig.title.text_color = INK
+    for axis in [*fig.xaxis, *fig.yaxis]:
+        axis.axis_label_text_font_size = "13px"
+        axis.axis_label_text_color = INK_SOFT
+        axis.axis_label_text_font_style = "normal"
+        axis.major_label_text_font_size = "12px"
+        axis.major_label_text_color = INK_SOFT
+        axis.axis_line_color = INK_SOFT
+        axis.minor_tick_line_color = None
+    for grid in [*fig.xgrid, *fig.ygrid]:
+        grid.grid_line_color = RULE
+    return fig
+
+
+def _role(name: str) -> Role:
+    if name not in ROLES:
+        from studykit.errors import StudyInputError
+
+        raise StudyInputError(
+            f"`role` ({name!r}) is not a chart role; use one of: {', '.join(ROLES)}"
+        )
+    return ROLES[name]
