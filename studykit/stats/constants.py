@@ -174,7 +174,8 @@ def c4(n: int) -> float:
     """
     n = _check_size(n, high=10**9)
     return float(
-        math.sqrt(2.0 / (n - 1)) * math.exp(special.gammaln(n / 2.0) - special.gammaln((n - 1) / 2.0))
+        math.sqrt(2.0 / (n - 1))
+        * math.exp(special.gammaln(n / 2.0) - special.gammaln((n - 1) / 2.0))
     )
 
 
