@@ -1,0 +1,881 @@
+"""Run rules for control charts: Nelson's eight tests and the Western Electric set.
+
+A control chart's limits catch single wild points; run rules catch the quieter patterns that a
+stable process rarely makes by chance (long runs on one side, trends, zigzags, clusters near a
+limit, points hugging the centre line). :func:`evaluate` checks a plotted statistic against a set
+of :class:`Rule` objects and returns one :class:`Signal` per pattern found.
+
+Rules
+-----
+Zones are measured from the centre line in units of ``sigma`` (the standard error of the plotted
+statistic): zone C within 1 sigma, zone B from 1 to 2 sigma, zone A from 2 to 3 sigma.
+
+=============  ======  =====================================================  ===================
+rule id        Nelson  what it looks for (parameters, Nelson's values)        Western Electric
+=============  ======  =====================================================  ===================
+beyond_limits  1       one point beyond the control limits (``sigmas=3``)     same
+run            2       ``length`` points in a row on one side (``length=9``)   ``length=8``
+trend          3       ``length`` points in a row steadily increasing or       --
+                       decreasing (``length=6``)
+alternation    4       ``length`` points in a row alternating up and down      --
+                       (``length=14``)
+zone_a         5       ``count`` of ``window`` points in a row more than       same
+                       ``sigmas`` sigma from the centre, same side (2, 3, 2)
+zone_b         6       the same with (``count=4, window=5, sigmas=1``)          same
+hugging        7       ``length`` points in a row within ``sigmas`` sigma of   --
+                       the centre line, either side (``length=15, sigmas=1``)
+mixture        8       ``length`` points in a row more than ``sigmas`` sigma   --
+                       from the centre line with points on both sides
+                       (``length=8, sigmas=1, both_sides=True``)
+=============  ======  =====================================================  ===================
+
+Rule sets: ``NELSON`` (all eight with Nelson's parameters), ``WESTERN_ELECTRIC`` (beyond_limits,
+run with ``length=8``, zone_a, zone_b) and ``LIMITS_ONLY`` (beyond_limits).
+
+Rule text syntax (:func:`parse_rules`)
+--------------------------------------
+A comma-separated list of items, read left to right (a ``:`` or ``;`` counts as a comma, so
+``"nelson:run=8"`` reads naturally). Spaces and letter case do not matter.
+
+``nelson`` | ``western_electric`` | ``limits_only``
+    add every rule of that set with the set's parameters.
+``run`` or ``2``
+    add one rule by its id or Nelson number (Nelson's parameters if it is not in the list yet).
+``run=8``
+    add the rule and set its main parameter: ``length`` for run, trend, alternation, hugging and
+    mixture; ``sigmas`` for beyond_limits; ``count/window`` (or just ``count``) for zone_a/zone_b,
+    e.g. ``zone_b=3/4``.
+``zone_a.sigmas=2.5``
+    add the rule and set any named parameter.
+``-alternation`` or ``-4``
+    switch the rule off (it stays in the list, with ``enabled=False``, so a view can show it).
+
+Examples: ``"nelson"``, ``"1,2,5"``, ``"beyond_limits,run"``, ``"nelson:run=8,trend=7,-4"``,
+``"western_electric, zone_b=3/4"``.
+
+Conventions (decided here; common practice unless a source is named)
+--------------------------------------------------------------------
+- **Zone boundaries** belong to the inner zone: "beyond k sigma" means strictly more than
+  ``center + k*sigma`` (or strictly less than ``center - k*sigma``); a point exactly on a control
+  limit is not beyond it. The boundaries are computed as ``center + k*sigma`` -- the same
+  numbers a chart draws -- and compared with the raw points, so what is marked matches the plot.
+- **Points exactly on the centre line** are on neither side: they break a run (rule ``run``) and
+  never count towards a one-sided zone rule; they are inside zone C for ``hugging``.
+- **Ties** (two equal consecutive points) break a trend and an alternation.
+- **Counting trends and alternations in points**, as Nelson states them: "six points in a row
+  steadily increasing" is 6 points, i.e. 5 increases; "fourteen points in a row alternating up
+  and down" is 14 points, i.e. 13 changes of alternating sign.
+- **k of m** (zone_a, zone_b): point ``i`` signals when it is itself beyond the zone boundary and
+  at least ``count`` of the points ``i-window+1 .. i`` (fewer at the start of the chart) are
+  beyond the same boundary on the same side. The trigger is thus always a point in the zone --
+  the one that completes the pattern; every pattern that fits in some window of ``window`` points
+  is found this way.
+- **Missing points** (NaN) are skipped: the rules run on the remaining points in order, as if the
+  missing ones were not plotted, so a gap neither breaks nor extends a pattern. Positions in the
+  result still refer to the original array.
+- **One signal per pattern, every completing point marked**: each point that completes a pattern
+  is a *trigger*. For the "in a row" rules (run, trend, alternation, hugging, mixture) triggers on
+  consecutive points of the same rule and direction (above/below, up/down) merge into one
+  :class:`Signal` listing all their points and triggers: a run of 12 points above the centre line
+  under ``run=9`` is one signal covering points 1-12 with triggers 9-12, not four signals. For
+  zone_a/zone_b, occurrences on the same side whose windows share a point merge (a cluster near
+  a limit is one signal). ``beyond_limits`` gives one signal per point.
+
+Notes
+-----
+"``length`` points in a row" is found for all points at once by window doubling: boolean
+windows of 1, 2, 4, ... points are ANDed from shifted copies, and two overlapping power-of-two
+windows cover any length. k-of-m counts are shifted sums (cumulative sums for long windows).
+Every rule is O(n log length) numpy work on booleans; only the (few) signals are built in Python.
+
+References
+----------
+Nelson, L. S. (1984). The Shewhart control chart -- tests for special causes. Journal of Quality
+Technology 16(4), 237-239.
+Western Electric Company (1956). Statistical Quality Control Handbook. Indianapolis.
+Montgomery, D. C. Introduction to Statistical Quality Control, section on sensitizing rules for
+Shewhart charts (from memory).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from studykit.errors import StudyInputError
+
+__all__ = [
+    "LIMITS_ONLY",
+    "NELSON",
+    "RULE_IDS",
+    "RULE_SETS",
+    "WESTERN_ELECTRIC",
+    "Rule",
+    "Signal",
+    "evaluate",
+    "parse_rules",
+]
+
+RULE_IDS: tuple[str, ...] = (
+    "beyond_limits",
+    "run",
+    "trend",
+    "alternation",
+    "zone_a",
+    "zone_b",
+    "hugging",
+    "mixture",
+)
+
+# id -> (Nelson number, default parameters in display order, main parameter)
+_TABLE: dict[str, tuple[int | None, dict[str, float | int | bool], str]] = {
+    "beyond_limits": (1, {"sigmas": 3.0}, "sigmas"),
+    "run": (2, {"length": 9}, "length"),
+    "trend": (3, {"length": 6}, "length"),
+    "alternation": (4, {"length": 14}, "length"),
+    "zone_a": (5, {"count": 2, "window": 3, "sigmas": 2.0}, "count"),
+    "zone_b": (6, {"count": 4, "window": 5, "sigmas": 1.0}, "count"),
+    "hugging": (7, {"length": 15, "sigmas": 1.0}, "length"),
+    "mixture": (8, {"length": 8, "sigmas": 1.0, "both_sides": True}, "length"),
+}
+_BY_NUMBER = {number: rid for rid, (number, _, _) in _TABLE.items()}
+# smallest allowed value for each integer parameter
+_MIN_INT = {
+    ("run", "length"): 2,
+    ("trend", "length"): 3,
+    ("alternation", "length"): 3,
+    ("hugging", "length"): 2,
+    ("mixture", "length"): 2,
+}
+
+Number = float | int | bool
+
+
+def _check_parameter(rid: str, name: str, value) -> Number:
+    """Validate one parameter value and return it in its canonical type."""
+    default = _TABLE[rid][1][name]
+    where = f"rule `{rid}` parameter `{name}`"
+    if isinstance(default, bool):
+        if isinstance(value, bool | np.bool_):
+            return bool(value)
+        raise StudyInputError(f"{where} ({value!r}) must be true or false")
+    if isinstance(default, int):
+        if isinstance(value, bool | np.bool_) or not isinstance(value, int | float | np.number):
+            raise StudyInputError(f"{where} ({value!r}) must be a whole number")
+        if not float(value).is_integer():
+            raise StudyInputError(f"{where} ({value!r}) must be a whole number")
+        value = int(value)
+        low = _MIN_INT.get((rid, name), 1)
+        if value < low:
+            raise StudyInputError(f"{where} ({value}) must be at least {low}")
+        return value
+    if isinstance(value, bool | np.bool_) or not isinstance(value, int | float | np.number):
+        raise StudyInputError(f"{where} ({value!r}) must be a number")
+    value = float(value)
+    if not (math.isfinite(value) and value > 0):
+        raise StudyInputError(f"{where} ({value}) must be a positive finite number of sigmas")
+    return value
+
+
+def _describe(rid: str, p: dict) -> str:
+    if rid == "beyond_limits":
+        return f"1 point beyond the control limits (centre +- {p['sigmas']:g} sigma unless given)"
+    if rid == "run":
+        return f"{p['length']} points in a row on the same side of the centre line"
+    if rid == "trend":
+        return f"{p['length']} points in a row steadily increasing or steadily decreasing"
+    if rid == "alternation":
+        return f"{p['length']} points in a row alternating up and down"
+    if rid in ("zone_a", "zone_b"):
+        return (
+            f"{p['count']} of {p['window']} points in a row more than {p['sigmas']:g} sigma "
+            "from the centre line on the same side"
+        )
+    if rid == "hugging":
+        return f"{p['length']} points in a row within {p['sigmas']:g} sigma of the centre line"
+    both = " with points on both sides" if p["both_sides"] else ""
+    return f"{p['length']} points in a row more than {p['sigmas']:g} sigma from the centre line{both}"
+
+
+@dataclass(frozen=True)
+class Rule:
+    """One run rule with its parameters.
+
+    Build rules with the class methods (``Rule.run(length=8)``), from text with
+    :func:`parse_rules`, or directly: ``Rule("run", parameters={"length": 8})``. Missing
+    parameters take Nelson's values; ``number`` and ``description`` are filled in.
+
+    Attributes
+    ----------
+    id : str
+        One of :data:`RULE_IDS`.
+    number : int or None
+        The Nelson (1984) test this rule generalises (1-8), None for a rule outside Nelson's set.
+    parameters : tuple of (name, value) pairs
+        Every parameter of the rule, in a fixed order (see the module docstring).
+    enabled : bool
+        :func:`evaluate` skips a rule that is switched off.
+    description : str
+        One line in plain words, with the parameter values.
+    """
+
+    id: str
+    number: int | None = None
+    parameters: tuple[tuple[str, Number], ...] = ()
+    enabled: bool = True
+    description: str = field(default="", compare=False)
+
+    def __post_init__(self):
+        if self.id not in _TABLE:
+            raise StudyInputError(
+                f"rule id {self.id!r} is unknown; use one of {', '.join(RULE_IDS)}"
+            )
+        number, defaults, _ = _TABLE[self.id]
+        if self.number is not None and self.number != number:
+            raise StudyInputError(
+                f"rule `{self.id}` is Nelson test {number}, not {self.number!r}; "
+                "leave `number` out"
+            )
+        given = dict(self.parameters.items() if isinstance(self.parameters, dict) else self.parameters)
+        unknown = sorted(set(given) - set(defaults))
+        if unknown:
+            raise StudyInputError(
+                f"rule `{self.id}` has no parameter {unknown[0]!r}; "
+                f"its parameters are {', '.join(defaults)}"
+            )
+        values = {name: _check_parameter(self.id, name, given.get(name, d)) for name, d in defaults.items()}
+        if "window" in values and values["count"] > values["window"]:
+            raise StudyInputError(
+                f"rule `{self.id}` parameter `count` ({values['count']}) must not exceed "
+                f"`window` ({values['window']})"
+            )
+        if not isinstance(self.enabled, bool | np.bool_):
+            raise StudyInputError(f"rule `{self.id}` `enabled` ({self.enabled!r}) must be true or false")
+        object.__setattr__(self, "number", number)
+        object.__setattr__(self, "parameters", tuple(values.items()))
+        object.__setattr__(self, "enabled", bool(self.enabled))
+        object.__setattr__(self, "description", _describe(self.id, values))
+
+    # ---- constructors ---------------------------------------------------------------------
+    @classmethod
+    def beyond_limits(cls, sigmas: float = 3.0, *, enabled: bool = True) -> Rule:
+        """Nelson test 1: one point beyond the control limits (``center +- sigmas*sigma``)."""
+        return cls("beyond_limits", parameters={"sigmas": sigmas}, enabled=enabled)
+
+    @classmethod
+    def run(cls, length: int = 9, *, enabled: bool = True) -> Rule:
+        """Nelson test 2 (9) / Western Electric (8): ``length`` points in a row on one side."""
+        return cls("run", parameters={"length": length}, enabled=enabled)
+
+    @classmethod
+    def trend(cls, length: int = 6, *, enabled: bool = True) -> Rule:
+        """Nelson test 3: ``length`` points (``length-1`` steps) steadily up or down."""
+        return cls("trend", parameters={"length": length}, enabled=enabled)
+
+    @classmethod
+    def alternation(cls, length: int = 14, *, enabled: bool = True) -> Rule:
+        """Nelson test 4: ``length`` points in a row alternating up and down."""
+        return cls("alternation", parameters={"length": length}, enabled=enabled)
+
+    @classmethod
+    def zone_a(cls, count: int = 2, window: int = 3, sigmas: float = 2.0, *, enabled: bool = True) -> Rule:
+        """Nelson test 5: ``count`` of ``window`` points beyond ``sigmas`` sigma, same side."""
+        return cls(
+            "zone_a", parameters={"count": count, "window": window, "sigmas": sigmas}, enabled=enabled
+        )
+
+    @classmethod
+    def zone_b(cls, count: int = 4, window: int = 5, sigmas: float = 1.0, *, enabled: bool = True) -> Rule:
+        """Nelson test 6: ``count`` of ``window`` points beyond ``sigmas`` sigma, same side."""
+        return cls(
+            "zone_b", parameters={"count": count, "window": window, "sigmas": sigmas}, enabled=enabled
+        )
+
+    @classmethod
+    def hugging(cls, length: int = 15, sigmas: float = 1.0, *, enabled: bool = True) -> Rule:
+        """Nelson test 7: ``length`` points in a row within ``sigmas`` sigma of the centre."""
+        return cls("hugging", parameters={"length": length, "sigmas": sigmas}, enabled=enabled)
+
+    @classmethod
+    def mixture(
+        cls, length: int = 8, sigmas: float = 1.0, both_sides: bool = True, *, enabled: bool = True
+    ) -> Rule:
+        """Nelson test 8: ``length`` points in a row outside ``sigmas`` sigma, on both sides."""
+        return cls(
+            "mixture",
+            parameters={"length": length, "sigmas": sigmas, "both_sides": both_sides},
+            enabled=enabled,
+        )
+
+    # ---- access ---------------------------------------------------------------------------
+    @property
+    def params(self) -> dict[str, Number]:
+        """The parameters as a new dict."""
+        return dict(self.parameters)
+
+    def param(self, name: str) -> Number:
+        """One parameter's value by name."""
+        for key, value in self.parameters:
+            if key == name:
+                return value
+        raise StudyInputError(
+            f"rule `{self.id}` has no parameter {name!r}; its parameters are "
+            f"{', '.join(k for k, _ in self.parameters)}"
+        )
+
+    def with_parameters(self, **changes: Number) -> Rule:
+        """A copy with some parameters changed (validated)."""
+        return Rule(self.id, parameters={**self.params, **changes}, enabled=self.enabled)
+
+    def with_enabled(self, enabled: bool) -> Rule:
+        """A copy switched on or off."""
+        return Rule(self.id, parameters=self.parameters, enabled=enabled)
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict: id, number, parameters (dict), enabled, description."""
+        return {
+            "id": self.id,
+            "number": self.number,
+            "parameters": self.params,
+            "enabled": self.enabled,
+            "description": self.description,
+        }
+
+
+NELSON: tuple[Rule, ...] = tuple(Rule(rid) for rid in RULE_IDS)
+WESTERN_ELECTRIC: tuple[Rule, ...] = (
+    Rule.beyond_limits(3.0),
+    Rule.run(8),
+    Rule.zone_a(2, 3, 2.0),
+    Rule.zone_b(4, 5, 1.0),
+)
+LIMITS_ONLY: tuple[Rule, ...] = (Rule.beyond_limits(3.0),)
+RULE_SETS: dict[str, tuple[Rule, ...]] = {
+    "nelson": NELSON,
+    "western_electric": WESTERN_ELECTRIC,
+    "limits_only": LIMITS_ONLY,
+}
+
+
+@dataclass(frozen=True)
+class Signal:
+    """One pattern found by a run rule.
+
+    Attributes
+    ----------
+    rule : str
+        The rule id (one of :data:`RULE_IDS`).
+    number : int or None
+        The Nelson (1984) test number, None for rules outside Nelson's set.
+    points : tuple of int
+        0-based positions (in the array given to :func:`evaluate`) of every point in the pattern,
+        in increasing order.
+    trigger : int
+        The first position that completed the pattern.
+    text : str
+        One line in plain words, with point numbers counted from 1 as on a chart's axis (or the
+        ``labels`` given to :func:`evaluate`).
+    triggers : tuple of int
+        Every position that completed the pattern (``trigger`` is the first).
+    """
+
+    rule: str
+    number: int | None
+    points: tuple[int, ...]
+    trigger: int
+    text: str
+    triggers: tuple[int, ...] = ()
+
+    def __post_init__(self):
+        if not self.triggers:
+            object.__setattr__(self, "triggers", (self.trigger,))
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict with the fields rule, number, points, trigger, triggers, text."""
+        return {
+            "rule": self.rule,
+            "number": self.number,
+            "points": list(self.points),
+            "trigger": self.trigger,
+            "triggers": list(self.triggers),
+            "text": self.text,
+        }
+
+
+# ---------------------------------------------------------------------------------------------
+# parsing
+
+
+def _rule_ref(token: str, spec: str) -> str:
+    if token in _TABLE:
+        return token
+    if token.isdigit() and int(token) in _BY_NUMBER:
+        return _BY_NUMBER[int(token)]
+    raise StudyInputError(
+        f"`rules` ({spec!r}): {token!r} is not a rule; use a set ({', '.join(RULE_SETS)}), "
+        f"a rule id ({', '.join(RULE_IDS)}) or a Nelson number 1-8"
+    )
+
+
+def _parse_value(rid: str, name: str, text: str, spec: str) -> Number:
+    default = _TABLE[rid][1][name]
+    if isinstance(default, bool):
+        low = text.lower()
+        if low in ("true", "yes", "on", "1"):
+            return True
+        if low in ("false", "no", "off", "0"):
+            return False
+        raise StudyInputError(
+            f"`rules` ({spec!r}): rule `{rid}` parameter `{name}` ({text!r}) must be true or false"
+        )
+    try:
+        value = float(text)
+    except ValueError:
+        raise StudyInputError(
+            f"`rules` ({spec!r}): rule `{rid}` parameter `{name}` ({text!r}) must be a number"
+        ) from None
+    return value
+
+
+def parse_rules(spec) -> tuple[Rule, ...]:
+    """Turn a rule specification into a tuple of :class:`Rule`.
+
+    Parameters
+    ----------
+    spec : str, Rule or iterable of Rule
+        A set name, a comma list of rule ids / Nelson numbers with optional parameters (syntax in
+        the module docstring), a single rule, or rules.
+
+    Returns
+    -------
+    tuple of Rule
+        For text: one rule per id, in the order of :data:`RULE_IDS`; switched-off rules are kept
+        with ``enabled=False``. Rule objects are returned as given.
+
+    Examples
+    --------
+    >>> [(r.id, r.param("length")) for r in parse_rules("nelson:run=8,-3") if r.id in ("run", "trend")]
+    [('run', 8), ('trend', 6)]
+    >>> [r.enabled for r in parse_rules("nelson:-3") if r.id == "trend"]
+    [False]
+    >>> [r.id for r in parse_rules("1,zone_b=3/4")]
+    ['beyond_limits', 'zone_b']
+    >>> parse_rules("zone_b=3/4")[0].params
+    {'count': 3, 'window': 4, 'sigmas': 1.0}
+    """
+    if isinstance(spec, Rule):
+        return (spec,)
+    if isinstance(spec, str):
+        return _parse_text(spec)
+    if isinstance(spec, Iterable):
+        rules = tuple(spec)
+        bad = [r for r in rules if not isinstance(r, Rule)]
+        if bad or not rules:
+            raise StudyInputError(
+                f"`rules` must be a rule text such as 'nelson' or a tuple of Rule objects; "
+                f"got {bad[0]!r}" if bad else "`rules` is empty; give at least one rule"
+            )
+        return rules
+    raise StudyInputError(
+        f"`rules` ({spec!r}) must be a rule text such as 'nelson' or '1,2,5', or Rule objects"
+    )
+
+
+def _parse_text(spec: str) -> tuple[Rule, ...]:
+    text = "".join(spec.lower().split()).replace(":", ",").replace(";", ",")
+    tokens = [t for t in text.split(",") if t]
+    if not tokens:
+        raise StudyInputError(
+            f"`rules` ({spec!r}) is empty; give a set such as 'nelson' or rule ids such as 'run'"
+        )
+    chosen: dict[str, Rule] = {}
+    for token in tokens:
+        if token in RULE_SETS:
+            for rule in RULE_SETS[token]:
+                chosen[rule.id] = rule
+            continue
+        if token.startswith("-"):
+            rid = _rule_ref(token[1:], spec)
+            chosen[rid] = chosen.get(rid, Rule(rid)).with_enabled(False)
+            continue
+        ref, eq, value = token.partition("=")
+        ref, dot, name = ref.partition(".")
+        rid = _rule_ref(ref, spec)
+        rule = chosen.get(rid, Rule(rid)).with_enabled(True)
+        if eq:
+            if not value:
+                raise StudyInputError(f"`rules` ({spec!r}): {token!r} needs a value after '='")
+            if dot:
+                if name not in _TABLE[rid][1]:
+                    raise StudyInputError(
+                        f"`rules` ({spec!r}): rule `{rid}` has no parameter {name!r}; "
+                        f"its parameters are {', '.join(_TABLE[rid][1])}"
+                    )
+                changes = {name: _parse_value(rid, name, value, spec)}
+            elif rid in ("zone_a", "zone_b"):
+                count, slash, window = value.partition("/")
+                changes = {"count": _parse_value(rid, "count", count, spec)}
+                if slash:
+                    changes["window"] = _parse_value(rid, "window", window, spec)
+            else:
+                main = _TABLE[rid][2]
+                changes = {main: _parse_value(rid, main, value, spec)}
+            rule = rule.with_parameters(**changes)
+        elif dot:
+            raise StudyInputError(f"`rules` ({spec!r}): {token!r} needs '=value'")
+        chosen[rid] = rule
+    return tuple(chosen[rid] for rid in RULE_IDS if rid in chosen)
+
+
+# ---------------------------------------------------------------------------------------------
+# vectorised detection (all on the compressed sequence of non-missing points)
+
+
+def _all_in_window(mask: np.ndarray, width: int) -> np.ndarray:
+    """``out[i] = mask[i : i + width].all()`` for ``i = 0 .. n - width``, by window doubling.
+
+    Windows of 1, 2, 4, ... points are ANDed from two shifted copies of the previous level; the
+    last step covers ``width`` with two overlapping power-of-two windows. O(n log width) on
+    booleans, no large index arrays.
+    """
+    if mask.size < width:
+        return np.zeros(0, dtype=bool)
+    level, span = mask, 1
+    while 2 * span <= width:
+        level = level[:-span] & level[span:]
+        span *= 2
+    if span == width:
+        return level
+    return level[: level.size - (width - span)] & level[width - span :]
+
+
+def _count_in_window(mask: np.ndarray, width: int) -> np.ndarray:
+    """``out[i]`` = number of True in ``mask[max(0, i-width+1) : i+1]``."""
+    if width <= 16:
+        count = mask.astype(np.int8)
+        for shift in range(1, min(width, mask.size)):
+            count[shift:] += mask[:-shift]
+        return count
+    csum = np.cumsum(mask, dtype=np.int64)
+    count = csum.copy()
+    count[width:] -= csum[:-width]
+    return count
+
+
+class _Found:
+    """Groups found by one rule in one direction (positions in the compressed sequence).
+
+    ``starts``/``ends`` bound each group's points; ``triggers`` lists each group's completing
+    points; ``members`` (zone rules only) lists each group's points when they are not every
+    point from start to end.
+    """
+
+    __slots__ = ("kind", "starts", "ends", "triggers", "members")
+
+    def __init__(self, kind, starts, ends, triggers, members=None):
+        self.kind, self.starts, self.ends = kind, starts, ends
+        self.triggers, self.members = triggers, members
+
+
+def _merge(kind: str, trig: np.ndarray, length: int, max_gap: int, zone=None):
+    """Group sorted triggers: a new group starts where the gap to the previous trigger exceeds
+    ``max_gap``. Each occurrence covers ``[t-length+1, t]``; for zone rules ``zone`` (the
+    in-zone mask) restricts a group's points to the in-zone ones."""
+    if trig.size == 0:
+        return None
+    breaks = np.flatnonzero(np.diff(trig) > max_gap) + 1
+    firsts = np.concatenate(([0], breaks))
+    lasts = np.concatenate((breaks - 1, [trig.size - 1]))
+    starts = np.maximum(trig[firsts] - (length - 1), 0).tolist()
+    ends = trig[lasts].tolist()
+    trig_list = trig.tolist()
+    bounds = firsts.tolist() + [trig.size]
+    triggers = [trig_list[bounds[g] : bounds[g + 1]] for g in range(len(starts))]
+    members = None
+    if zone is not None:
+        members = [
+            (np.flatnonzero(zone[a : e + 1]) + a).tolist() for a, e in zip(starts, ends, strict=True)
+        ]
+    return _Found(kind, starts, ends, triggers, members)
+
+
+def _in_a_row(kind: str, mask: np.ndarray, length: int, extra: int = 0):
+    """Groups for "``length`` points in a row" rules.
+
+    ``mask[j]`` describes points ``j .. j+extra`` (extra = 0 for a point property, 1 for the step
+    between two points, 2 for a pair of steps), so ``length - extra`` True in a row ending at
+    ``j`` complete a pattern at point ``j + extra``. Triggers on consecutive points merge.
+    """
+    width = length - extra
+    trig = np.flatnonzero(_all_in_window(mask, width)) + (width - 1 + extra)
+    return _merge(kind, trig, length, 1)
+
+
+def _detect(rule: Rule, x, c, s, lcl, ucl) -> list[_Found]:
+    """All groups found by one rule, in compressed positions."""
+    rid, p = rule.id, rule.params
+    found = []
+    if rid == "beyond_limits":
+        upper = c + p["sigmas"] * s if ucl is None else ucl
+        lower = c - p["sigmas"] * s if lcl is None else lcl
+        for kind, mask in (("above", x > upper), ("below", x < lower)):
+            t = np.flatnonzero(mask).tolist()
+            if t:
+                found.append(_Found(kind, t, t, [[i] for i in t]))
+    elif rid == "run":
+        for kind, mask in (("above", x > c), ("below", x < c)):
+            found.append(_in_a_row(kind, mask, p["length"]))
+    elif rid == "trend":
+        d = np.diff(x)
+        for kind, mask in (("up", d > 0), ("down", d < 0)):
+            found.append(_in_a_row(kind, mask, p["length"], extra=1))
+    elif rid == "alternation":
+        sign = np.sign(np.diff(x))
+        flips = sign[1:] * sign[:-1] < 0
+        found.append(_in_a_row("alternating", flips, p["length"], extra=2))
+    elif rid in ("zone_a", "zone_b"):
+        k, m = p["count"], p["window"]
+        for kind, zone in (("above", x > c + p["sigmas"] * s), ("below", x < c - p["sigmas"] * s)):
+            trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
+            found.append(_merge(kind, trig, m, m - 1, zone=zone))
+    elif rid == "hugging":
+        inside = (x >= c - p["sigmas"] * s) & (x <= c + p["sigmas"] * s)
+        found.append(_in_a_row("inside", inside, p["length"]))
+    elif rid == "mixture":
+        length = p["length"]
+        above = x > c + p["sigmas"] * s
+        below = x < c - p["sigmas"] * s
+        if not p["both_sides"]:
+            found.append(_in_a_row("outside", above | below, length))
+        else:
+            window = _all_in_window(above | below, length)
+            window &= ~_all_in_window(above, length)
+            window &= ~_all_in_window(below, length)
+            trig = np.flatnonzero(window) + (length - 1)
+            found.append(_merge("both", trig, length, 1))
+    return [f for f in found if f is not None]
+
+
+# ---------------------------------------------------------------------------------------------
+# text
+
+
+def _where(positions: list[int], labels) -> str:
+    """'point 4', 'points 4, 6', 'points 12-20, 22' (numbers from 1, or the labels)."""
+    if labels is None:
+        names = [str(i + 1) for i in positions]
+        dash = "-"
+    else:
+        names = [str(labels[i]) for i in positions]
+        dash = " to "
+    if len(positions) == 1:
+        return f"point {names[0]}"
+    parts = []
+    i = 0
+    while i < len(positions):
+        j = i
+        while j + 1 < len(positions) and positions[j + 1] == positions[j] + 1:
+            j += 1
+        if j - i >= 2:
+            parts.append(f"{names[i]}{dash}{names[j]}")
+        else:
+            parts.extend(names[i : j + 1])
+        i = j + 1
+    return "points " + ", ".join(parts)
+
+
+def _template(rule: Rule, kind: str, given_limit: bool) -> str:
+    """Signal text with ``{n}`` (number of points) and ``{where}`` left to fill."""
+    p = rule.params
+    if rule.id == "beyond_limits":
+        limit = "upper" if kind == "above" else "lower"
+        sign = "+" if kind == "above" else "-"
+        detail = "" if given_limit else f" (centre {sign} {p['sigmas']:g} sigma)"
+        return f"{{where}} {kind} the {limit} control limit{detail}"
+    if rule.id == "run":
+        return f"{{n}} points in a row {kind} the centre line ({{where}})"
+    if rule.id == "trend":
+        way = "increasing" if kind == "up" else "decreasing"
+        return f"{{n}} points in a row steadily {way} ({{where}})"
+    if rule.id == "alternation":
+        return "{n} points in a row alternating up and down ({where})"
+    if rule.id in ("zone_a", "zone_b"):
+        return (
+            f"{p['count']} of {p['window']} points in a row more than {p['sigmas']:g} sigma "
+            f"{kind} the centre line ({{where}})"
+        )
+    if rule.id == "hugging":
+        return f"{{n}} points in a row within {p['sigmas']:g} sigma of the centre line ({{where}})"
+    both = ", on both sides" if kind == "both" else ""
+    return f"{{n}} points in a row more than {p['sigmas']:g} sigma from the centre line{both} ({{where}})"
+
+
+# ---------------------------------------------------------------------------------------------
+# evaluate
+
+
+def _as_points(points) -> np.ndarray:
+    try:
+        x = np.asarray(points, dtype=float)
+    except (TypeError, ValueError):
+        raise StudyInputError(
+            "`points` must be numbers (use NaN for a missing point); "
+            f"got values such as {list(points)[:3]!r}"
+        ) from None
+    if x.ndim != 1:
+        raise StudyInputError(f"`points` must be one-dimensional (a series in time order); got shape {x.shape}")
+    bad = np.flatnonzero(np.isinf(x))
+    if bad.size:
+        raise StudyInputError(
+            f"`points` has an infinite value ({x[bad[0]]}) at position {bad[0]}; "
+            "use NaN for a missing point"
+        )
+    return x
+
+
+def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = False):
+    """Scalar or per-point array, restricted to the kept (non-missing) points."""
+    try:
+        arr = np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`{name}` ({value!r}) must be a number or one number per point") from None
+    if arr.ndim == 0:
+        values = arr.reshape(1)
+        out = float(arr)
+    elif arr.ndim == 1 and arr.size == n:
+        values = arr[keep]
+        out = values
+    else:
+        raise StudyInputError(
+            f"`{name}` must be a number or one number per point ({n}); got shape {arr.shape}"
+        )
+    if values.size:
+        bad = np.isnan(values) if allow_inf else ~np.isfinite(values)
+        if bad.any():
+            i = int(np.argmax(bad))
+            at = "" if arr.ndim == 0 else f" at position {int(np.flatnonzero(keep)[i])}"
+            what = "a number (use -inf/inf for no limit)" if allow_inf else "finite"
+            raise StudyInputError(f"`{name}` ({values[i]}){at} must be {what}")
+    return out
+
+
+def evaluate(
+    points,
+    *,
+    center,
+    sigma,
+    lcl=None,
+    ucl=None,
+    rules="nelson",
+    labels: Sequence | None = None,
+) -> tuple[Signal, ...]:
+    """Check a control chart's points against run rules.
+
+    Parameters
+    ----------
+    points : array-like of float, 1-D
+        The plotted statistic in time order; NaN marks a missing point (skipped, see Notes).
+    center : float or array-like
+        The centre line, one value or one per point.
+    sigma : float or array-like
+        Standard error of the plotted statistic (one value or one per point, > 0); zone ``k``
+        is ``center +- k*sigma``.
+    lcl, ucl : float or array-like, optional
+        Control limits for ``beyond_limits``, replacing ``center -+ sigmas*sigma`` (for example
+        an LCL floored at 0). Use ``-inf``/``inf`` for "no limit on this side".
+    rules : str, Rule or tuple of Rule
+        ``"nelson"`` (default), ``"western_electric"``, ``"limits_only"``, a comma list such as
+        ``"1,2,5"`` or ``"nelson:run=8,-4"`` (see :func:`parse_rules`), or Rule objects.
+    labels : sequence, optional
+        One label per point (e.g. subgroup ids) used in the signal texts instead of the point
+        numbers 1, 2, ...
+
+    Returns
+    -------
+    tuple of Signal
+        Sorted by first trigger, then by rule order. Each has ``rule``, ``number``, ``points``
+        (0-based positions), ``trigger`` (first completing position), ``triggers`` (all
+        completing positions) and ``text``.
+
+    Notes
+    -----
+    Conventions (boundaries, centre-line points, ties, counting, k of m, missing points,
+    merging) are listed in the module docstring. Definitions follow Nelson (1984), tests 1-8,
+    with zone C = within 1 sigma, B = 1-2 sigma, A = 2-3 sigma.
+
+    References
+    ----------
+    Nelson, L. S. (1984). The Shewhart control chart -- tests for special causes. Journal of
+    Quality Technology 16(4), 237-239.
+
+    Examples
+    --------
+    >>> x = [0.5, 0.2, 0.4, 0.9, 0.1, 0.3, 0.6, 0.7, 0.8, 3.4]
+    >>> for s in evaluate(x, center=0.0, sigma=1.0, rules="nelson"):
+    ...     print(s.rule, s.number, s.trigger, s.triggers, "|", s.text)
+    run 2 8 (8, 9) | 10 points in a row above the centre line (points 1-10)
+    beyond_limits 1 9 (9,) | Point 10 above the upper control limit (centre + 3 sigma)
+    trend 3 9 (9,) | 6 points in a row steadily increasing (points 5-10)
+    >>> [s.rule for s in evaluate(x, center=0.0, sigma=1.0, rules="western_electric")]
+    ['run', 'beyond_limits']
+    """
+    x_all = _as_points(points)
+    n_all = x_all.size
+    rule_list = parse_rules(rules)
+    if labels is not None and len(labels) != n_all:
+        raise StudyInputError(f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point")
+    keep = ~np.isnan(x_all)
+    all_kept = bool(keep.all())
+    x = x_all if all_kept else x_all[keep]
+    positions = None if all_kept else np.flatnonzero(keep)
+    c = _as_level(center, "center", n_all, keep)
+    s = _as_level(sigma, "sigma", n_all, keep)
+    if np.any(np.asarray(s) <= 0):
+        sv = np.asarray(s).reshape(-1)
+        raise StudyInputError(f"`sigma` ({sv[np.argmax(sv <= 0)]}) must be greater than 0")
+    low = None if lcl is None else _as_level(lcl, "lcl", n_all, keep, allow_inf=True)
+    high = None if ucl is None else _as_level(ucl, "ucl", n_all, keep, allow_inf=True)
+    if low is not None and high is not None and np.any(np.asarray(low) >= np.asarray(high)):
+        lo_v = np.broadcast_to(low, x.shape) if np.ndim(low) else np.full(max(x.size, 1), low)
+        hi_v = np.broadcast_to(high, x.shape) if np.ndim(high) else np.full(max(x.size, 1), high)
+        i = int(np.argmax(lo_v >= hi_v))
+        raise StudyInputError(f"`lcl` ({lo_v[i]}) must be less than `ucl` ({hi_v[i]})")
+
+    pos_map = None if positions is None else positions.tolist()
+    found = []
+    for order, rule in enumerate(rule_list):
+        if not rule.enabled:
+            continue
+        for group in _detect(rule, x, c, s, low, high):
+            given = (high if group.kind == "above" else low) is not None
+            template = _template(rule, group.kind, given)
+            for g, (start, end, trig) in enumerate(
+                zip(group.starts, group.ends, group.triggers, strict=True)
+            ):
+                if start == end and pos_map is None and labels is None:
+                    text = template.format(n=1, where=f"Point {start + 1}")
+                    found.append((trig[0], order, Signal(rule.id, rule.number, (start,), start, text, (start,))))
+                    continue
+                if group.members is not None:
+                    pts = group.members[g]
+                elif pos_map is None and labels is None and end - start >= 2:
+                    # fast path: contiguous points numbered from 1
+                    points = tuple(range(start, end + 1))
+                    text = template.format(n=end - start + 1, where=f"points {start + 1}-{end + 1}")
+                    found.append((trig[0], order, Signal(rule.id, rule.number, points, trig[0], text, tuple(trig))))
+                    continue
+                else:
+                    pts = list(range(start, end + 1))
+                if pos_map is not None:
+                    pts = [pos_map[i] for i in pts]
+                    trig = [pos_map[i] for i in trig]
+                where = _where(pts, labels)
+                if len(pts) == 1:
+                    where = where[0].upper() + where[1:]
+                text = template.format(n=len(pts), where=where)
+                found.append((trig[0], order, Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig))))
+    found.sort(key=lambda item: (item[0], item[1]))
+    return tuple(item[2] for item in found)
