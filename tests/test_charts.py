@@ -357,7 +357,7 @@ def test_signals_come_from_the_rules_module_with_documented_defaults():
     from studykit.stats import rules
 
     rng = np.random.default_rng(3)
-    x = np.concatenate([rng.normal(0, 1, 30), rng.normal(1.5, 1, 20)])
+    x = np.concatenate([rng.normal(0, 1, 30), rng.normal(3.0, 1, 20)])
     ch = charts.control_chart(x)
     loc = ch.location
     expect = rules.evaluate(
