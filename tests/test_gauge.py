@@ -408,3 +408,23 @@ def test_dropping_one_value_is_refused(cube, data):
     keep = np.arange(y.size) != k
     with pytest.raises(AnalysisError, match="unbalanced"):
         gauge_rr(y[keep], p[keep], a[keep])
+
+
+def test_chart_limits_machines(machines_result):
+    ch = machines_result.charts
+    rbar = machines_result.range_method.mean_range
+    # D4(3) = 2.574, D3(3) = 0, A2(3) = 1.023: Montgomery, Introduction to SQC, Appendix VI
+    # (REFERENCES.md table; printed to 3-4 digits, hence rtol 1e-3)
+    assert_allclose(ch.range_ucl, 2.574 * rbar, rtol=1e-3)
+    assert ch.range_lcl == 0
+    grand = machines_result.values.mean()
+    assert_allclose(ch.mean_ucl, grand + 1.023 * rbar, rtol=1e-4)
+    assert_allclose(ch.mean_lcl, grand - 1.023 * rbar, rtol=1e-4)
+    means = machines_result.values.mean(axis=2)
+    outside = np.mean((means > ch.mean_ucl) | (means < ch.mean_lcl)) * 100
+    assert_allclose(ch.pct_means_outside, outside)
+    ranges = np.ptp(machines_result.values, axis=2)
+    assert len(ch.ranges_above_ucl) == int((ranges > ch.range_ucl).sum())
+    # Machine A, Worker 6 scores 46.4, 44.8, 49.2 (nlme Machines rows 16-18): range 4.4 > 3.95
+    assert ch.ranges_above_ucl == (("A", "6"),)
+    assert any("Range above" in n for n in machines_result.notes)

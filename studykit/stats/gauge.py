@@ -32,6 +32,7 @@ __all__ = [
     "VarianceComponent",
     "RangeMethodEstimate",
     "GaugeVerdict",
+    "GaugeChartLimits",
     "GaugeResult",
     "gauge_rr",
     "range_constants",
@@ -181,6 +182,34 @@ class RangeMethodEstimate:
 
 
 @dataclass(frozen=True)
+class GaugeChartLimits:
+    """Limits of the range chart and the mean chart drawn by appraiser.
+
+    Range chart: centre ``range_centre`` = Rbar, ``range_ucl`` = D4 Rbar, ``range_lcl`` = D3 Rbar
+    (n = trials). Mean chart: centre = grand mean, limits = grand mean +- A2 Rbar. On a gauge
+    study the mean chart should show most cell means OUTSIDE its limits (the parts differ by more
+    than the gauge's noise); ``pct_means_outside`` says how many did. ``ranges_above_ucl`` lists
+    (part, appraiser) cells whose range is above the range UCL.
+    """
+
+    range_centre: float
+    range_ucl: float
+    range_lcl: float
+    mean_centre: float
+    mean_ucl: float
+    mean_lcl: float
+    pct_means_outside: float
+    ranges_above_ucl: tuple[tuple[str, str], ...]
+
+    def to_dict(self) -> dict:
+        out = {k: _f(getattr(self, k)) for k in (
+            "range_centre", "range_ucl", "range_lcl", "mean_centre", "mean_ucl", "mean_lcl",
+            "pct_means_outside")}
+        out["ranges_above_ucl"] = [list(c) for c in self.ranges_above_ucl]
+        return out
+
+
+@dataclass(frozen=True)
 class GaugeVerdict:
     """The plain-words verdict.
 
@@ -240,6 +269,7 @@ class GaugeResult:
     confidence: float
     range_method: RangeMethodEstimate
     verdict: GaugeVerdict
+    charts: GaugeChartLimits
     notes: tuple[str, ...]
     method: str = "two-way crossed ANOVA, random effects, expected mean squares"
 
@@ -281,6 +311,7 @@ class GaugeResult:
             "confidence": self.confidence,
             "range_method": self.range_method.to_dict(),
             "verdict": self.verdict.to_dict(),
+            "charts": self.charts.to_dict(),
             "notes": list(self.notes),
         }
 
@@ -524,7 +555,8 @@ def gauge_rr(
         interval_df, interval_method, set_to_zero);
         ``ndc`` (int), ``ndc_ratio`` (sigma_part / sigma_grr); ``study_variation``, ``lsl``,
         ``usl``, ``tolerance``, ``confidence``; ``range_method`` (:class:`RangeMethodEstimate`);
-        ``verdict`` (:class:`GaugeVerdict`); ``notes`` (plain sentences about choices made).
+        ``verdict`` (:class:`GaugeVerdict`); ``charts`` (:class:`GaugeChartLimits`: range and
+        mean chart limits by appraiser); ``notes`` (plain sentences about choices made).
 
     Raises
     ------
@@ -734,6 +766,13 @@ def gauge_rr(
     ndc = None if ratio is None else int(math.floor(1.41 * ratio + 1e-12))
     if ratio is None:
         notes.append("The gauge shows no measurement variation; ndc is undefined.")
+    charts = _chart_limits(cube, part_levels, appr_levels)
+    if charts.ranges_above_ucl:
+        cells = ", ".join(f"part {a} by appraiser {b}" for a, b in charts.ranges_above_ucl[:5])
+        notes.append(
+            f"Range above the range chart's upper limit: {cells}. Check for a misreading, a "
+            "damaged part or a measuring-position error there before trusting repeatability."
+        )
     rm = _range_method(cube, study_variation, tolerance)
     comp = {c.name: c for c in components}
     verdict = _verdict(comp, ndc, tolerance is not None)
@@ -760,6 +799,7 @@ def gauge_rr(
         confidence=float(confidence),
         range_method=rm,
         verdict=verdict,
+        charts=charts,
         notes=tuple(notes),
     )
 
@@ -820,6 +860,24 @@ def _range_method(cube: np.ndarray, k: float, tolerance: float | None) -> RangeM
         pct_tolerance=100 * k * grr / tolerance if tolerance else None,
         ndc=ndc,
         reproducibility_set_to_zero=av2 < 0,
+    )
+
+
+def _chart_limits(cube: np.ndarray, part_levels, appr_levels) -> GaugeChartLimits:
+    p, o, r = cube.shape
+    cc = constants.chart_constants(r)
+    ranges = np.ptp(cube, axis=2)
+    means = cube.mean(axis=2)
+    rbar = float(ranges.mean())
+    centre = float(cube.mean())
+    ucl, lcl = centre + cc.A2 * rbar, centre - cc.A2 * rbar
+    outside = float(np.mean((means > ucl) | (means < lcl))) * 100
+    r_ucl = cc.D4 * rbar
+    above = tuple((str(part_levels[i]), str(appr_levels[j]))
+                  for i, j in np.argwhere(ranges > r_ucl * (1 + 1e-12)))
+    return GaugeChartLimits(
+        range_centre=rbar, range_ucl=r_ucl, range_lcl=cc.D3 * rbar, mean_centre=centre,
+        mean_ucl=ucl, mean_lcl=lcl, pct_means_outside=outside, ranges_above_ucl=above,
     )
 
 
