@@ -59,6 +59,11 @@ PAPER = "#FFFFFF"
 PANEL = "#F6F8FA"  # quiet panel background
 EXCLUDED_GREY = "#8C959F"
 
+# Two palette colours are too light for a line on white (WCAG 2.1 SC 1.4.11 asks 3:1 for graphics
+# needed to read a chart): they are darkened, keeping their hue, until they reach 3:1.
+ORANGE_LINE = "#C68900"  # Okabe-Ito orange x 0.86 -> 3.0:1 on white
+SKY_BLUE_LINE = "#4B9DCB"  # Okabe-Ito sky blue x 0.87 -> 3.0:1 on white
+
 FONT_FAMILY = "DejaVu Sans"  # ships with matplotlib, so the PDF never falls back silently
 CSS_FONT_STACK = '"Segoe UI", "Helvetica Neue", Arial, "DejaVu Sans", sans-serif'
 
@@ -76,7 +81,8 @@ class Role:
     color : str
         Hex colour.
     line_dash : str or None
-        bokeh dash name (``"solid"``, ``"dashed"``, ``"dotted"``, ``"dashdot"``) for line roles.
+        Dash name for line roles: ``"solid"``, ``"dashed"``, ``"dotted"``, ``"dashdot"``,
+        ``"longdash"`` (see ``bokeh_dash`` and ``mpl_linestyle``). Limit lines all differ.
     line_width : float
         Line width in screen pixels (matplotlib: points, scaled by ``PT_PER_PX``).
     marker : str or None
@@ -99,7 +105,12 @@ class Role:
     @property
     def mpl_linestyle(self) -> str | None:
         """The matplotlib line style for ``line_dash``."""
-        return _MPL_DASH.get(self.line_dash) if self.line_dash else None
+        return _DASHES[self.line_dash][1] if self.line_dash else None
+
+    @property
+    def bokeh_dash(self):
+        """The bokeh ``line_dash`` value for ``line_dash``."""
+        return _DASHES[self.line_dash][0] if self.line_dash else "solid"
 
     @property
     def mpl_marker(self) -> str | None:
@@ -111,7 +122,14 @@ class Role:
         return asdict(self)
 
 
-_MPL_DASH = {"solid": "-", "dashed": "--", "dotted": ":", "dashdot": "-."}
+# our dash names -> (bokeh dash, matplotlib linestyle)
+_DASHES = {
+    "solid": ("solid", "-"),
+    "dashed": ("dashed", "--"),
+    "dotted": ("dotted", ":"),
+    "dashdot": ("dashdot", "-."),
+    "longdash": ([12, 5], (0, (8, 3.5))),
+}
 _MPL_MARKER = {
     "circle": "o",
     "square": "s",
@@ -129,34 +147,71 @@ ROLES: dict[str, Role] = {
         Role("data", "Measured values", OKABE_ITO["blue"], "solid", 1.6, "circle", 7.0),
         Role("centre_line", "Centre line", OKABE_ITO["black"], "solid", 2.0),
         Role("control_limit", "Control limit", OKABE_ITO["vermillion"], "dashed", 2.0),
-        Role("warning_limit", "Warning limit", OKABE_ITO["orange"], "dotted", 2.0),
+        Role("warning_limit", "Warning limit", ORANGE_LINE, "dotted", 2.0),
         Role("spec_limit", "Specification limit", OKABE_ITO["reddish_purple"], "dashdot", 2.5),
-        Role("target", "Target", OKABE_ITO["bluish_green"], "dotted", 2.0),
-        Role("fit", "Fitted model", OKABE_ITO["sky_blue"], "solid", 2.5),
+        Role("target", "Target", OKABE_ITO["bluish_green"], "longdash", 2.0),
+        Role("fit", "Fitted model", SKY_BLUE_LINE, "solid", 2.5),
         Role("signal", "Signal (rule broken)", OKABE_ITO["vermillion"], None, 0, "diamond", 11.0),
         Role("excluded", "Excluded (reason recorded)", EXCLUDED_GREY, None, 0, "x", 10.0, False),
-        Role("secondary", "Second series", OKABE_ITO["orange"], "solid", 1.6, "square", 7.0),
+        Role("secondary", "Second series", ORANGE_LINE, "solid", 1.6, "square", 7.0),
     ]
 }
 
 
 @dataclass(frozen=True)
 class Verdict:
-    """How a verdict is shown: colour, symbol and word together (never colour alone)."""
+    """How a verdict is shown: colour, symbol and word together (never colour alone).
+
+    ``color`` is for marks (bars, borders); ``text_color`` is the same hue darkened to reach
+    4.5:1 on ``background`` (WCAG 2.1 SC 1.4.3, contrast for normal-size text).
+    """
 
     name: str
     label: str
     color: str
     background: str
     symbol: str
+    text_color: str
 
 
 VERDICTS: dict[str, Verdict] = {
-    "pass": Verdict("pass", "Meets criteria", OKABE_ITO["bluish_green"], "#E3F4EE", "✓"),
-    "fail": Verdict("fail", "Does not meet criteria", OKABE_ITO["vermillion"], "#FBE9E0", "✗"),
-    "caution": Verdict("caution", "Read with care", "#9A6A00", "#FDF3D8", "!"),
-    "pending": Verdict("pending", "Not yet assessed", INK_SOFT, PANEL, "…"),
+    "pass": Verdict("pass", "Meets criteria", OKABE_ITO["bluish_green"], "#E3F4EE", "✓",
+                    "#007D5B"),
+    "fail": Verdict("fail", "Does not meet criteria", OKABE_ITO["vermillion"], "#FBE9E0", "✗",
+                    "#B14E00"),
+    "caution": Verdict("caution", "Read with care", ORANGE_LINE, "#FDF3D8", "!", "#956700"),
+    "pending": Verdict("pending", "Not yet assessed", INK_SOFT, PANEL, "…", INK_SOFT),
 }
+
+
+def relative_luminance(hex_color: str) -> float:
+    """Relative luminance of an sRGB colour as WCAG 2.1 defines it (0 black, 1 white).
+
+    References
+    ----------
+    W3C, Web Content Accessibility Guidelines 2.1, definition "relative luminance".
+
+    Examples
+    --------
+    >>> relative_luminance("#FFFFFF"), relative_luminance("#000000")
+    (1.0, 0.0)
+    """
+    h = hex_color.lstrip("#")
+    channels = [int(h[i:i + 2], 16) / 255 for i in (0, 2, 4)]
+    r, g, b = (c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in channels)
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+def contrast_ratio(foreground: str, background: str) -> float:
+    """WCAG 2.1 contrast ratio ``(L1 + 0.05) / (L2 + 0.05)``, from 1 to 21.
+
+    Examples
+    --------
+    >>> contrast_ratio("#000000", "#FFFFFF")
+    21.0
+    """
+    a, b = sorted([relative_luminance(foreground), relative_luminance(background)], reverse=True)
+    return (a + 0.05) / (b + 0.05)
 
 
 def color(role: str) -> str:
@@ -274,7 +329,7 @@ def bokeh_line_kwargs(role: str) -> dict:
     {'line_color': '#D55E00', 'line_dash': 'dashed', 'line_width': 2.0}
     """
     r = _role(role)
-    return {"line_color": r.color, "line_dash": r.line_dash or "solid", "line_width": r.line_width}
+    return {"line_color": r.color, "line_dash": r.bokeh_dash, "line_width": r.line_width}
 
 
 def bokeh_marker_kwargs(role: str) -> dict:

@@ -116,7 +116,7 @@ def verdict_badge(name: str) -> str:
     True
     """
     v = theme.VERDICTS[name]
-    return (f'<span class="sk-verdict" style="color:{v.color};background:{v.background}">'
+    return (f'<span class="sk-verdict" style="color:{v.text_color};background:{v.background}">'
             f"{v.symbol} {esc(v.label)}</span>")
 
 

@@ -56,13 +56,24 @@ def _sizes_text(sizes) -> str:
     return f"{lo} to {hi} ({len(sizes)} subgroups)"
 
 
+def _subgroup_text(m) -> str | None:
+    source = getattr(m, "subgroup_source", None)
+    column = getattr(m, "subgroup_column", None)
+    size = getattr(m, "subgroup_size", None)
+    if column:
+        return f"{source} '{column}'"
+    if size:
+        return f"{source} of {size} consecutive values"
+    return source
+
+
 def measurements_html(m, *, filename: str = "") -> str:
     """The detection result as HTML, for the engineer to confirm (reads attributes only)."""
     chars = list(getattr(m, "characteristics", []) or [])
     facts = [
         ("File", filename or "—"),
         ("Layout found", getattr(m, "layout", None)),
-        ("Subgroups from", getattr(m, "subgroup_source", None)),
+        ("Subgroups from", _subgroup_text(m)),
         ("Characteristics", len(chars)),
     ]
     out = ['<div class="sk-section">What was found in the file</div><dl class="sk-facts">']
@@ -83,9 +94,12 @@ def measurements_html(m, *, filename: str = "") -> str:
                f"<tbody>{''.join(rows)}</tbody></table>")
     warnings = [str(w) for w in (getattr(m, "warnings", None) or [])]
     notes = [str(n) for n in (getattr(m, "notes", None) or [])]
-    for kind, label, items in (("warning", "Caution", warnings), ("info", "Note", notes)):
-        out += [f'<div class="sk-msg sk-msg-{kind}"><span class="sk-msg-kind">{label}</span>'
-                f"{esc(t)}</div>" for t in items]
+    out += [f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
+            f"{esc(t)}</div>" for t in warnings]
+    if notes:
+        out.append('<div class="sk-muted sk-notes" style="margin-top:8px">How the file was read:'
+                   '<ul style="margin:4px 0 0 0;padding-left:20px">'
+                   + "".join(f"<li>{esc(t)}</li>" for t in notes) + "</ul></div>")
     return "".join(out)
 
 
