@@ -1,0 +1,261 @@
+"""``studykit study``: create a study file, show it, and record decisions and sign-offs.
+
+Subcommands::
+
+    studykit study new STUDYFILE --data FILE [--specs SPECS.csv] [--title T] [--part P]
+    studykit study show STUDYFILE [--json]
+    studykit study exclude STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
+    studykit study restore STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
+    studykit study comment STUDYFILE TEXT [--characteristic C] [--who W]
+    studykit study sign STUDYFILE --role ROLE --decision approve|reject|comment [--who W]
+    studykit study log STUDYFILE [--json]
+
+A change to an approved study needs ``--override-lock REASON``; it voids the approval, which
+stays on record as voided.
+"""
+
+from __future__ import annotations
+
+import getpass
+import json
+import sys
+from pathlib import Path
+
+from studykit.errors import DataFileError, SpecError, StudyFileError
+from studykit.store import StudyFile
+from studykit.study import Study, match_to_data, read_specs
+
+
+def _default_who() -> str:
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no login name on this system
+        return "unknown"
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "study",
+        help="create a study file, show it, record decisions and sign-offs",
+        description="Work with a study file: one file that keeps a copy of the data, the "
+        "specifications, every decision with its reason, comments and sign-offs.",
+    )
+    sub = p.add_subparsers(dest="study_command", metavar="ACTION")
+    sub.required = True
+
+    new = sub.add_parser("new", help="create a study file from a data file and a specs table",
+                         description="Create a study file holding a copy of the data file and "
+                         "the specifications. Spec columns: characteristic, unit, lsl, usl, target, "
+                         "safety_critical, criterion, threshold, basis (and optionally confidence, "
+                         "chart, subgroup_size, size_column, model, description).")
+    new.add_argument("studyfile", metavar="STUDYFILE", help="the study file to create")
+    new.add_argument("--data", required=True, metavar="FILE", help="measurement file (CSV/XLSX)")
+    new.add_argument("--specs", metavar="SPECS.csv", help="specifications table (CSV)")
+    new.add_argument("--title", help="study title (default: the data file's name)")
+    new.add_argument("--part", default="", help="part number or name")
+    new.add_argument("--supplier", default="", help="supplier")
+    new.add_argument("--who", default=None, help="your name (default: the login name)")
+    new.add_argument("--force", action="store_true", help="replace an existing study file")
+    new.set_defaults(func=run_new)
+
+    show = sub.add_parser("show", help="show specs, criteria, decisions and sign-offs")
+    show.add_argument("studyfile", metavar="STUDYFILE")
+    show.add_argument("--json", action="store_true", help="print as JSON")
+    show.set_defaults(func=run_show)
+
+    for action in ("exclude", "restore"):
+        q = sub.add_parser(action, help=f"{action} a subgroup of a characteristic (with a reason)")
+        q.add_argument("studyfile", metavar="STUDYFILE")
+        q.add_argument("characteristic", metavar="CHARACTERISTIC")
+        q.add_argument("subgroup", metavar="SUBGROUP")
+        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
+        q.add_argument("--who", default=None, help="your name (default: the login name)")
+        q.add_argument("--override-lock", metavar="REASON",
+                       help="change an approved study anyway; voids the approval")
+        q.set_defaults(func=run_decision, action=action)
+
+    com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
+    com.add_argument("studyfile", metavar="STUDYFILE")
+    com.add_argument("text", metavar="TEXT")
+    com.add_argument("--characteristic", default=None)
+    com.add_argument("--who", default=None)
+    com.set_defaults(func=run_comment)
+
+    sign = sub.add_parser("sign", help="sign the study as it stands")
+    sign.add_argument("studyfile", metavar="STUDYFILE")
+    sign.add_argument("--role", required=True,
+                      help="prepared, reviewed, approved (approved + approve locks the study)")
+    sign.add_argument("--decision", required=True, choices=("approve", "reject", "comment"))
+    sign.add_argument("--comment", default="")
+    sign.add_argument("--who", default=None)
+    sign.set_defaults(func=run_sign)
+
+    log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
+    log.add_argument("studyfile", metavar="STUDYFILE")
+    log.add_argument("--json", action="store_true")
+    log.set_defaults(func=run_log)
+
+
+# -- new ----------------------------------------------------------------------------------------
+
+
+def run_new(args) -> int:
+    from studykit.data import read_measurements
+
+    data_path = Path(args.data)
+    if not data_path.is_file():
+        raise DataFileError("the data file does not exist: check the path", file=args.data)
+    measurements = read_measurements(data_path)
+    chars, criteria = ((), {})
+    if args.specs:
+        chars, criteria = read_specs(args.specs)
+        try:
+            chars, criteria = match_to_data(chars, criteria, measurements)
+        except SpecError as exc:
+            raise SpecError(exc.detail, file=args.specs, column=exc.column,
+                            value=exc.value) from None
+    target = Path(args.studyfile)
+    if target.exists() and not args.force:
+        raise StudyFileError(f"'{target}' already exists: choose another name, or pass --force "
+                             "to replace it")
+    sf = StudyFile.create(
+        target, data=data_path.read_bytes(), filename=data_path.name,
+        title=args.title or data_path.stem, part=args.part, supplier=args.supplier,
+        characteristics=chars, criteria=criteria, who=args.who or _default_who(),
+        overwrite=args.force,
+    )
+    study = sf.load()
+    print(f"created {target}: {len(study.characteristics)} characteristic(s) from "
+          f"{data_path.name} (sha256 {study.data_sha256[:12]}...)")
+    missing = [n for n in measurements.names if n not in study.characteristics]
+    if missing:
+        print(f"no specification for: {', '.join(missing)} (not part of the study)")
+    return 0
+
+
+# -- show ---------------------------------------------------------------------------------------
+
+
+def _num(x) -> str:
+    return "" if x is None else f"{x:g}"
+
+
+def _table(headers: list[str], rows: list[list[str]]) -> str:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
+              for i, h in enumerate(headers)]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(headers, widths, strict=True)).rstrip()]
+    lines.append("  ".join("-" * w for w in widths))
+    for r in rows:
+        lines.append("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
+    return "\n".join("  " + ln for ln in lines)
+
+
+def format_study(study: Study) -> str:
+    """The study as text for a terminal."""
+    out = [f"Study     {study.title}"]
+    if study.part:
+        out.append(f"Part      {study.part}")
+    if study.supplier:
+        out.append(f"Supplier  {study.supplier}")
+    out.append(f"Data      {study.data_filename} ({len(study.data)} bytes, "
+               f"sha256 {study.data_sha256})")
+    out.append(f"Digest    {study.content_digest()}")
+    holder = study.lock_holder()
+    out.append("State     " + (f"APPROVED by {holder.name} on {holder.when} (locked)"
+                               if holder else "open"))
+    out.append("")
+    out.append("Characteristics")
+    rows = []
+    for name, c in study.characteristics.items():
+        excluded = sorted(study.excluded_subgroups(name), key=lambda s: (len(s), s))
+        rows.append([
+            name, c.unit or "", _num(c.lsl), _num(c.target), _num(c.usl),
+            "yes" if c.safety_critical else "", study.criteria_for(name).describe(),
+            study.chart_for(name), study.model_for(name), ", ".join(excluded),
+        ])
+    if rows:
+        out.append(_table(["name", "unit", "LSL", "target", "USL", "safety", "criterion",
+                           "chart", "model", "excluded"], rows))
+    else:
+        out.append("  (none specified)")
+    out.append("")
+    out.append(f"Decisions ({len(study.decisions)})")
+    for i, d in enumerate(study.decisions, start=1):
+        on = f" '{d.characteristic}'" if d.characteristic else ""
+        sub = f" subgroup {d.subgroup}" if d.subgroup else ""
+        extra = f" {json.dumps(dict(d.payload), sort_keys=True)}" if d.payload else ""
+        auto = " [automatic]" if d.automatic else ""
+        out.append(f"  {i:>3}. {d.when}  {d.who}: {d.action}{on}{sub}{extra}{auto}")
+        if d.reason:
+            out.append(f"       reason: {d.reason}")
+    out.append("")
+    out.append(f"Comments ({len(study.comments)})")
+    for c in study.comments:
+        on = f" on '{c.characteristic}'" if c.characteristic else ""
+        out.append(f"  {c.when}  {c.who}{on}: {c.text}")
+    out.append("")
+    out.append(f"Sign-offs ({len(study.signoffs)})")
+    for st in study.signoff_state():
+        s = st.signoff
+        state = "valid" if st.valid else f"VOIDED ({st.why})"
+        out.append(f"  {s.when}  {s.name} ({s.role}): {s.decision} - {state}")
+        if s.comment:
+            out.append(f"       comment: {s.comment}")
+    return "\n".join(out) + "\n"
+
+
+def run_show(args) -> int:
+    study = StudyFile(args.studyfile).load()
+    if args.json:
+        json.dump(study.to_dict(), sys.stdout, indent=2, ensure_ascii=False)
+        sys.stdout.write("\n")
+    else:
+        sys.stdout.write(format_study(study))
+    return 0
+
+
+# -- changes ------------------------------------------------------------------------------------
+
+
+def _lock_kw(args) -> dict:
+    reason = getattr(args, "override_lock", None)
+    return {"override_lock": True, "override_reason": reason} if reason else {}
+
+
+def run_decision(args) -> int:
+    sf = StudyFile(args.studyfile)
+    who = args.who or _default_who()
+    if args.action == "exclude":
+        sf.exclude(args.characteristic, args.subgroup, reason=args.reason, who=who,
+                   **_lock_kw(args))
+    else:
+        sf.restore(args.characteristic, args.subgroup, reason=args.reason, who=who,
+                   **_lock_kw(args))
+    print(f"{args.action}d subgroup {args.subgroup} of '{args.characteristic}'")
+    return 0
+
+
+def run_comment(args) -> int:
+    StudyFile(args.studyfile).add_comment(args.text, who=args.who or _default_who(),
+                                          characteristic=args.characteristic)
+    print("comment added")
+    return 0
+
+
+def run_sign(args) -> int:
+    s = StudyFile(args.studyfile).add_signoff(args.who or _default_who(), role=args.role,
+                                              decision=args.decision, comment=args.comment)
+    print(f"signed as {s.role} ({s.decision}); study digest {s.digest}")
+    return 0
+
+
+def run_log(args) -> int:
+    entries = StudyFile(args.studyfile).audit_log()
+    if args.json:
+        json.dump([e.to_dict() for e in entries], sys.stdout, indent=2, ensure_ascii=False)
+        sys.stdout.write("\n")
+        return 0
+    for e in entries:
+        why = f"  (why: {e.why})" if e.why else ""
+        print(f"{e.id:>4}  {e.when}  {e.who}: {e.what}{why}")
+    return 0

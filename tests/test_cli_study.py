@@ -1,0 +1,117 @@
+"""`studykit study new|show|exclude|sign|log` from the command line (in process)."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from studykit.cli import main
+from studykit.errors import SpecError
+from studykit.store import StudyFile
+from studykit.study import read_specs_bytes
+
+DATA = (
+    "subgroup,timestamp,note,bore [mm],runout [mm]\n"
+    "1,2026-03-02 06:00,,12.001,0.010\n1,2026-03-02 06:00,,12.003,0.011\n"
+    "2,2026-03-02 06:30,,11.999,0.012\n2,2026-03-02 06:30,,12.000,0.014\n"
+)
+SPECS = (
+    "characteristic,unit,lsl,usl,target,safety_critical,criterion,threshold,basis\n"
+    "bore,mm,11.97,12.03,12.0,yes,cpk,1.33,lower_bound\n"
+    "Runout,,,0.05,,no,,,\n"
+)
+
+
+@pytest.fixture
+def files(tmp_path):
+    (tmp_path / "pilot.csv").write_text(DATA)
+    (tmp_path / "specs.csv").write_text(SPECS)
+    return tmp_path
+
+
+def new(files, *extra):
+    return main(["study", "new", str(files / "a.study"), "--data", str(files / "pilot.csv"),
+                 "--specs", str(files / "specs.csv"), "--title", "Pilot", "--part", "P1",
+                 "--who", "A. Ruiz", *extra])
+
+
+def test_new_then_show(files, capsys):
+    assert new(files) == 0
+    assert "created" in capsys.readouterr().out
+    study = StudyFile(files / "a.study").load()
+    assert list(study.characteristics) == ["bore", "runout"]  # data's spelling of 'Runout'
+    assert study.characteristics["runout"].unit == "mm"  # unit taken from the data header
+    assert study.characteristics["bore"].safety_critical
+    assert study.criteria_for("bore").describe() == "Cpk lower 95% bound >= 1.33"
+    assert study.data == DATA.encode()
+    assert main(["study", "show", str(files / "a.study")]) == 0
+    out = capsys.readouterr().out
+    assert "Study     Pilot" in out and "Cpk lower 95% bound >= 1.33" in out
+    assert study.content_digest() in out
+    assert main(["study", "show", str(files / "a.study"), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["content_digest"] == study.content_digest()
+    assert [c["name"] for c in d["characteristics"]] == ["bore", "runout"]
+
+
+def test_exclude_sign_lock_override_log(files, capsys):
+    new(files)
+    path = str(files / "a.study")
+    assert main(["study", "exclude", path, "bore", "2", "--reason", "setup part", "--who", "B"]) == 0
+    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
+                 "--who", "M. Brandt"]) == 0
+    capsys.readouterr()
+    assert main(["study", "exclude", path, "bore", "1", "--reason", "x", "--who", "B"]) == 2
+    assert "--override-lock REASON" in capsys.readouterr().err
+    assert main(["study", "exclude", path, "bore", "1", "--reason", "x", "--who", "B",
+                 "--override-lock", "customer request"]) == 0
+    assert main(["study", "comment", path, "kept for the record", "--who", "B"]) == 0
+    capsys.readouterr()
+    assert main(["study", "show", path]) == 0
+    out = capsys.readouterr().out
+    assert "VOIDED (voided on" in out and "customer request" in out
+    assert main(["study", "log", path, "--json"]) == 0
+    log = json.loads(capsys.readouterr().out)
+    assert [e["what"].split()[0] for e in log] == ["create", "exclude", "sign-off:", "void",
+                                                  "exclude", "comment"]
+
+
+def test_new_refuses_unknown_name_and_existing_file(files, capsys):
+    (files / "bad.csv").write_text(SPECS + "flatness,mm,,0.02,,no,,,\n")
+    rc = main(["study", "new", str(files / "b.study"), "--data", str(files / "pilot.csv"),
+               "--specs", str(files / "bad.csv")])
+    err = capsys.readouterr().err
+    assert rc == 2 and "'flatness', which is not in the data" in err and "bad.csv" in err
+    assert not (files / "b.study").exists()
+    assert new(files) == 0
+    assert new(files) == 2
+    assert "already exists" in capsys.readouterr().err
+    assert new(files, "--force") == 0
+
+
+def test_unit_mismatch_is_an_error(files, capsys):
+    (files / "specs.csv").write_text(SPECS.replace("bore,mm", "bore,um"))
+    assert new(files) == 2
+    assert "unit 'um' but the data say 'mm'" in capsys.readouterr().err
+
+
+def test_show_on_a_data_file_is_a_clear_error(files, capsys):
+    assert main(["study", "show", str(files / "pilot.csv")]) == 2
+    assert "not a studykit study file" in capsys.readouterr().err
+
+
+def test_specs_table_errors_name_row_and_column():
+    with pytest.raises(SpecError, match=r"row 3: characteristic 'b': `usl` \(1\) must be greater"):
+        read_specs_bytes(b"characteristic,lsl,usl\na,0,1\nb,2,1\n", "s.csv")
+    with pytest.raises(SpecError, match=r"row 1: unknown column\(s\) 'tol'"):
+        read_specs_bytes(b"characteristic,tol\na,1\n", "s.csv")
+    with pytest.raises(SpecError, match=r"row 2, column 'safety_critical'.*must be yes or no"):
+        read_specs_bytes(b"characteristic,usl,safety_critical\na,1,maybe\n", "s.csv")
+    with pytest.raises(SpecError, match=r"'a' is listed twice \(rows 2 and 3\)"):
+        read_specs_bytes(b"characteristic,usl\na,1\na,2\n", "s.csv")
+    with pytest.raises(SpecError, match="'cp' needs both limits"):
+        read_specs_bytes(b"characteristic,usl,criterion\na,1,cp\n", "s.csv")
+    # semicolon tables may use a decimal comma
+    chars, _ = read_specs_bytes(b"characteristic;lsl;usl\na;11,97;12,03\n", "s.csv")
+    assert (chars[0].lsl, chars[0].usl) == (11.97, 12.03)
