@@ -1,0 +1,449 @@
+"""Phase I: trial limits, removal of signalling subgroups with a log, recomputed limits.
+
+The loop: (1) apply the engineer's manual exclusions, each with a reason and a name; (2) compute
+trial limits; (3) find the subgroups that signal under the removal rules (default: a point beyond
+the control limits on either chart); (4) remove them all, logging one entry per subgroup;
+(5) recompute, until nothing signals or the round limit is reached.
+
+What the loop guarantees, and what it does not:
+
+* When ``stopped == "stable"``, no kept subgroup signals under the removal rules against the
+  final limits (the loop ends only then). Each automatically removed subgroup signalled against
+  the limits of the round in which it was removed.
+* Removing points narrows the limits, so a later round can flag subgroups that were inside the
+  trial limits; the number of signals is *not* monotone. The round limit (default 10) stops
+  runaway trimming, and heavy removal is reported.
+
+Choices (common practice, no source): all signalling subgroups of a round are removed together;
+for a rule about a pattern (run, trend...) every point that completed it is removed; on the
+individuals chart, a moving-range signal at position i removes value i (the later of the pair)
+unless value i-1 or i is already removed in that round for the individuals chart; after a removal
+the moving range is taken across the gap. A warning is raised when more than 10 % of the values
+(for attribute charts: of the subgroups) were removed or fewer than 20 subgroups remain.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from studykit.errors import AnalysisError, HeavyRemovalWarning, StudyInputError
+from studykit.stats.charts import (
+    ATTRIBUTE_KINDS,
+    DISPERSION_RULES,
+    ChartSeries,
+    ControlChart,
+    _plain_label,
+    control_chart,
+    evaluate_series,
+)
+
+__all__ = ["Removal", "Phase1Result", "phase1", "MIN_SUBGROUPS", "MAX_REMOVED_SHARE"]
+
+#: Fewer kept subgroups than this raises a HeavyRemovalWarning (common practice, no source).
+MIN_SUBGROUPS = 20
+#: A larger removed share of the values raises a HeavyRemovalWarning (common practice, no source).
+MAX_REMOVED_SHARE = 0.10
+
+_NAMES = {
+    "xbar": "subgroup average",
+    "range": "subgroup range",
+    "stdev": "subgroup standard deviation",
+    "individual": "value",
+    "moving_range": "moving range",
+    "p": "proportion nonconforming",
+    "np": "number nonconforming",
+    "c": "count of nonconformities",
+    "u": "nonconformities per unit",
+}
+
+
+@dataclass(frozen=True)
+class Removal:
+    """One subgroup taken out of the phase-I limits.
+
+    Attributes
+    ----------
+    label : object
+        Subgroup label.
+    rule : str
+        ``"manual"`` or the rule id(s) that flagged it (e.g. ``"beyond_limits"``).
+    chart : str or None
+        ``"location"``, ``"dispersion"``, ``"location+dispersion"``, or None when manual.
+    iteration : int
+        0 for manual exclusions, else the round (1 = trial limits).
+    reason : str
+        Plain-words reason.
+    who : str
+        ``"auto"`` or the person who excluded it.
+    n_values : int
+        Values (attribute charts: inspected units) in the subgroup.
+    """
+
+    label: object
+    rule: str
+    chart: str | None
+    iteration: int
+    reason: str
+    who: str
+    n_values: int
+
+    def to_dict(self) -> dict:
+        """JSON-safe dictionary."""
+        return {
+            "label": _plain_label(self.label),
+            "rule": self.rule,
+            "chart": self.chart,
+            "iteration": self.iteration,
+            "reason": self.reason,
+            "who": self.who,
+            "n_values": int(self.n_values),
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class Phase1Result:
+    """Outcome of the phase-I loop.
+
+    Attributes
+    ----------
+    chart : ControlChart
+        Final chart on the kept subgroups, with signals under the display rules.
+    trial_chart : ControlChart
+        The first chart (after manual exclusions), before any automatic removal.
+    removals : tuple of Removal
+        Manual exclusions first, then automatic removals by round.
+    iterations : int
+        Automatic removal rounds carried out.
+    stopped : str
+        ``"stable"`` (nothing signals under the removal rules), ``"iteration_cap"`` or
+        ``"too_few"`` (a further removal would leave fewer than 3 subgroups).
+    removal_rules, removal_dispersion_rules : str
+        Rules that decided removals.
+    n_values_total, n_values_kept : int
+        Values before and after (attribute charts: subgroups).
+    removed_share : float
+        1 - kept / total.
+    warnings : tuple of str
+        Cautions in plain words (heavy removal, round limit reached...).
+    """
+
+    chart: ControlChart
+    trial_chart: ControlChart
+    removals: tuple
+    iterations: int
+    stopped: str
+    removal_rules: str
+    removal_dispersion_rules: str
+    n_values_total: int
+    n_values_kept: int
+    removed_share: float
+    warnings: tuple = ()
+
+    @property
+    def signals(self) -> tuple:
+        """Signals of the final chart under the display rules."""
+        return self.chart.signals
+
+    @property
+    def removed_labels(self) -> tuple:
+        """Labels of every removed subgroup, in log order."""
+        return tuple(r.label for r in self.removals)
+
+    def to_dict(self) -> dict:
+        """JSON-safe dictionary (the final and trial charts included)."""
+        return {
+            "chart": self.chart.to_dict(),
+            "trial_chart": self.trial_chart.to_dict(),
+            "removals": [r.to_dict() for r in self.removals],
+            "iterations": self.iterations,
+            "stopped": self.stopped,
+            "removal_rules": self.removal_rules,
+            "removal_dispersion_rules": self.removal_dispersion_rules,
+            "n_values_total": self.n_values_total,
+            "n_values_kept": self.n_values_kept,
+            "removed_share": float(self.removed_share),
+            "warnings": list(self.warnings),
+        }
+
+
+def _fmt(v) -> str:
+    return f"{float(v):.6g}"
+
+
+def _describe(series: ChartSeries, pos: int, signal, rnd: int) -> str:
+    what = _NAMES.get(series.name, series.name)
+    value = series.points[pos]
+    if signal.rule == "beyond_limits":
+        if value > series.ucl[pos]:
+            side = f"above the upper control limit {_fmt(series.ucl[pos])}"
+        else:
+            side = f"below the lower control limit {_fmt(series.lcl[pos])}"
+        return f"{what} {_fmt(value)} lies {side} of round {rnd}"
+    return f"{what} {_fmt(value)} completes a pattern in round {rnd}: {signal.text}"
+
+
+def _flagged(series: ChartSeries, rules, labels) -> dict[int, list]:
+    found: dict[int, list] = {}
+    sigs = evaluate_series(
+        series.points,
+        center=series.center,
+        sigma=series.sigma,
+        lcl=series.lcl,
+        ucl=series.ucl,
+        rules=rules,
+        labels=list(labels),
+    )
+    for s in sigs:
+        for t in s.triggers:
+            found.setdefault(int(t), []).append(s)
+    return found
+
+
+def phase1(
+    values,
+    subgroups=None,
+    *,
+    kind: str = "auto",
+    sizes=None,
+    exclude: dict | None = None,
+    excluded_by: str = "user",
+    removal_rules="limits_only",
+    removal_dispersion_rules="limits_only",
+    max_iterations: int = 10,
+    rules="nelson",
+    dispersion_rules=DISPERSION_RULES,
+    min_subgroups: int = MIN_SUBGROUPS,
+    max_removed_share: float = MAX_REMOVED_SHARE,
+    **chart_options,
+) -> Phase1Result:
+    """Iterate trial control limits, removing signalling subgroups with a logged reason.
+
+    Parameters
+    ----------
+    values, subgroups, kind, sizes
+        As for :func:`studykit.stats.charts.control_chart` (for attribute kinds ``values``
+        are the counts and ``subgroups`` one label per count). Without ``subgroups`` the
+        labels are 1, 2, ... in order.
+    exclude : dict, optional
+        Manual exclusions applied before the first limits: ``{label: reason}`` or
+        ``{label: (reason, who)}``.
+    excluded_by : str
+        Name logged as ``who`` for exclusions given as a bare reason.
+    removal_rules, removal_dispersion_rules : str or tuple
+        Rules that decide automatic removal on the location and dispersion charts
+        (default: beyond the control limits only).
+    max_iterations : int
+        Most automatic removal rounds (default 10).
+    rules, dispersion_rules
+        Display rules for the signals of the returned charts.
+    min_subgroups, max_removed_share
+        Thresholds of the :class:`~studykit.errors.HeavyRemovalWarning`.
+    **chart_options
+        Passed to ``control_chart`` (``sigma_method``, ``mu``, ``sigma``, ``standard``,
+        ``laney``).
+
+    Returns
+    -------
+    Phase1Result
+        Final chart, trial chart, removal log, rounds, stop reason, removed share, warnings.
+
+    Notes
+    -----
+    Each round recomputes centre, sigma and limits from the kept subgroups only. The chart kind
+    chosen for the trial limits is kept in every round. See the module notes for what the loop
+    guarantees.
+
+    References
+    ----------
+    Montgomery, *Introduction to Statistical Quality Control*, ch. 6 (trial control limits and
+    their revision in phase I).
+
+    Examples
+    --------
+    >>> x = [10.0, 10.2, 9.9, 10.1, 14.0, 10.0, 9.8, 10.1, 10.2, 9.9, 10.0, 10.1]
+    >>> res = phase1(x, exclude={2: ("probe swapped", "A. Jensen")}, min_subgroups=5,
+    ...              max_removed_share=0.2)
+    >>> [(r.label, r.rule, r.who) for r in res.removals]
+    [(2, 'manual', 'A. Jensen'), (5, 'beyond_limits', 'auto')]
+    >>> res.stopped
+    'stable'
+    """
+    if isinstance(max_iterations, bool) or not isinstance(max_iterations, int | np.integer):
+        raise StudyInputError(
+            f"`max_iterations` ({max_iterations!r}) must be a whole number of rounds, e.g. 10."
+        )
+    if max_iterations < 0:
+        raise StudyInputError(f"`max_iterations` ({max_iterations}) must be 0 or more.")
+    attribute = kind in ATTRIBUTE_KINDS
+    x = np.asarray(values, dtype=float).ravel() if not attribute else np.asarray(values)
+    n_items = x.shape[0]
+    if subgroups is None:
+        sub = np.arange(1, n_items + 1)
+    else:
+        sub = np.asarray(subgroups)
+        if sub.shape[0] != n_items:
+            raise StudyInputError(
+                f"`subgroups` has {sub.shape[0]} labels but `values` has {n_items} entries; give "
+                "one label per value."
+            )
+    size_arr = None
+    if attribute and sizes is not None:
+        size_arr = np.asarray(sizes, dtype=float).ravel()
+        if size_arr.size == 1:
+            size_arr = np.full(n_items, size_arr[0])
+    label_list = [_plain_label(v) for v in sub.tolist()]
+    known = set(label_list)
+
+    removals: list[Removal] = []
+    removed: set = set()
+    for label, entry in (exclude or {}).items():
+        key = _plain_label(label)
+        if key not in known:
+            raise StudyInputError(
+                f"`exclude` names subgroup {label!r}, which is not in the data; check the label "
+                "(labels are compared exactly, text and numbers differ)."
+            )
+        if isinstance(entry, tuple | list):
+            if len(entry) != 2:
+                raise StudyInputError(
+                    f"`exclude[{label!r}]` must be a reason or a (reason, who) pair."
+                )
+            reason, who = str(entry[0]), str(entry[1])
+        else:
+            reason, who = str(entry), str(excluded_by)
+        if not reason.strip():
+            raise StudyInputError(
+                f"`exclude[{label!r}]` has no reason; say why the subgroup is left out."
+            )
+        removed.add(key)
+        removals.append(
+            Removal(
+                key, "manual", None, 0, reason, who, _count(label_list, size_arr, key, attribute)
+            )
+        )
+
+    def build(kind_now):
+        mask = np.array([lab not in removed for lab in label_list], dtype=bool)
+        if not mask.any():
+            raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
+        return control_chart(
+            x[mask],
+            sub[mask],
+            kind=kind_now,
+            sizes=None if size_arr is None else size_arr[mask],
+            rules=rules,
+            dispersion_rules=dispersion_rules,
+            **chart_options,
+        )
+
+    chart = build(kind)
+    trial = chart
+    kind_fixed = chart.kind
+    iterations = 0
+    stopped = "stable"
+    while True:
+        loc_flags = _flagged(chart.location, removal_rules, chart.labels)
+        disp_flags = (
+            {}
+            if chart.dispersion is None
+            else _flagged(chart.dispersion, removal_dispersion_rules, chart.labels)
+        )
+        if chart.kind == "imr" and disp_flags:
+            kept = {}
+            for pos, sigs in disp_flags.items():
+                if pos in loc_flags or (pos - 1) in loc_flags:
+                    continue  # the individuals chart already removes the value behind it
+                kept[pos] = sigs
+            disp_flags = kept
+        positions = sorted(set(loc_flags) | set(disp_flags))
+        if not positions:
+            stopped = "stable"
+            break
+        if iterations >= max_iterations:
+            stopped = "iteration_cap"
+            break
+        if chart.n_subgroups - len(positions) < 3:
+            stopped = "too_few"
+            break
+        iterations += 1
+        for pos in positions:
+            label = chart.labels[pos]
+            parts, rule_ids, where = [], [], []
+            for name, flags, series in (
+                ("location", loc_flags, chart.location),
+                ("dispersion", disp_flags, chart.dispersion),
+            ):
+                for s in flags.get(pos, []):
+                    if s.rule not in rule_ids:
+                        rule_ids.append(s.rule)
+                    if name not in where:
+                        where.append(name)
+                    parts.append(_describe(series, pos, s, iterations))
+            removed.add(label)
+            removals.append(
+                Removal(
+                    label,
+                    ",".join(rule_ids),
+                    "+".join(where),
+                    iterations,
+                    "; ".join(dict.fromkeys(parts)),
+                    "auto",
+                    _count(label_list, size_arr, label, attribute),
+                )
+            )
+        chart = build(kind_fixed)
+
+    total = n_items if not attribute else n_items
+    kept_n = chart.n_values
+    share = 1.0 - kept_n / total
+    notes: list[str] = []
+    if share > max_removed_share:
+        notes.append(
+            f"{share:.0%} of the {'values' if not attribute else 'subgroups'} were removed "
+            f"(more than {max_removed_share:.0%}); the limits may describe a trimmed process "
+            "(common practice, no source)."
+        )
+    if chart.n_subgroups < min_subgroups:
+        notes.append(
+            f"only {chart.n_subgroups} subgroups remain (fewer than {min_subgroups}); the limits "
+            "are uncertain (common practice, no source)."
+        )
+    for msg in notes:
+        warnings.warn(msg, HeavyRemovalWarning, stacklevel=2)
+    if stopped == "iteration_cap":
+        notes.append(
+            f"the round limit ({max_iterations}) was reached and subgroups still signal; "
+            "investigate the causes rather than trimming further."
+        )
+    elif stopped == "too_few":
+        notes.append("removing further signalling subgroups would leave fewer than 3 subgroups.")
+    return Phase1Result(
+        chart=chart,
+        trial_chart=trial,
+        removals=tuple(removals),
+        iterations=iterations,
+        stopped=stopped,
+        removal_rules=_text(removal_rules),
+        removal_dispersion_rules=_text(removal_dispersion_rules),
+        n_values_total=int(total),
+        n_values_kept=int(kept_n),
+        removed_share=float(share) if math.isfinite(share) else 0.0,
+        warnings=tuple(notes),
+    )
+
+
+def _count(label_list, size_arr, key, attribute) -> int:
+    idx = [i for i, lab in enumerate(label_list) if lab == key]
+    if attribute:
+        return int(sum(size_arr[i] for i in idx)) if size_arr is not None else len(idx)
+    return len(idx)
+
+
+def _text(rules) -> str:
+    if isinstance(rules, str):
+        return rules
+    return ",".join(str(getattr(r, "id", r)) for r in rules)
