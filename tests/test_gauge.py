@@ -428,3 +428,66 @@ def test_chart_limits_machines(machines_result):
     # Machine A, Worker 6 scores 46.4, 44.8, 49.2 (nlme Machines rows 16-18): range 4.4 > 3.95
     assert ch.ranges_above_ucl == (("A", "6"),)
     assert any("Range above" in n for n in machines_result.notes)
+
+
+# --- figures (studykit.report.gauge_figures), Agg backend -----------------------------------------
+@pytest.fixture(scope="module")
+def figs():
+    matplotlib = pytest.importorskip("matplotlib")
+    matplotlib.use("Agg")
+    from studykit.report import gauge_figures
+
+    return gauge_figures
+
+
+def _drawn(fig):
+    fig.canvas.draw()  # Figure() without pyplot gets an Agg canvas when drawn
+    return fig.axes[0]
+
+
+def test_components_figure_bars(figs, machines_result, machines):
+    ax = _drawn(figs.components_figure(machines_result))
+    assert len(ax.patches) == 4 * 2  # 4 components x (%contribution, %study variation)
+    assert len(ax.lines) == 2  # the 10 % and 30 % guide lines
+    with_tol = gauge_rr(machines["score"], machines["Machine"], machines["Worker"], lsl=40,
+                        usl=80)
+    ax = _drawn(figs.components_figure(with_tol))
+    assert len(ax.patches) == 4 * 3
+    heights = sorted(round(b.get_height(), 6) for b in ax.patches)
+    assert round(with_tol.component(GAUGE_RR).pct_tolerance, 6) in heights
+
+
+def test_point_figures(figs, machines_result):
+    ax = _drawn(figs.by_part_figure(machines_result))
+    assert len(ax.lines) == 1 and len(ax.collections) == 1
+    assert ax.collections[0].get_offsets().shape == (54, 2)
+    assert_allclose(ax.lines[0].get_ydata(), machines_result.values.mean(axis=(1, 2)))
+    ax = _drawn(figs.by_appraiser_figure(machines_result))
+    assert len(ax.lines) == 1 and len(ax.collections) == 6
+
+
+def test_chart_figures(figs, machines_result):
+    ax = _drawn(figs.range_chart_figure(machines_result))
+    # 6 appraisers + centre + upper limit (lower limit is 0 for 3 trials: not drawn)
+    assert len(ax.lines) == 6 + 2
+    assert len(ax.collections) == 1  # the one range above the limit
+    assert_allclose(ax.collections[0].get_offsets()[0], [5 * 4 + 0, 4.4], rtol=1e-9)
+    ax = _drawn(figs.mean_chart_figure(machines_result))
+    assert len(ax.lines) == 6 + 3
+    ax = _drawn(figs.interaction_figure(machines_result))
+    assert len(ax.lines) == 6
+    assert_allclose(ax.lines[0].get_ydata(), machines_result.values[:, 0, :].mean(axis=1))
+
+
+def test_figure_into_given_axes(figs, machines_result):
+    from matplotlib.figure import Figure
+
+    fig = Figure()
+    axes = fig.subplots(2, 3)
+    builders = [figs.components_figure, figs.by_part_figure, figs.by_appraiser_figure,
+                figs.range_chart_figure, figs.mean_chart_figure, figs.interaction_figure]
+    for build, ax in zip(builders, axes.ravel(), strict=True):
+        assert build(machines_result, ax=ax) is fig
+    assert all(ax.has_data() for ax in axes.ravel())
+    assert set(figs.all_figures(machines_result)) == {
+        "components", "by_part", "by_appraiser", "range_chart", "mean_chart", "interaction"}
