@@ -258,7 +258,7 @@ def _clean_data(x, *, name="x", minimum=2):
     if bad.any():
         where = int(np.flatnonzero(bad)[0])
         raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({arr[where]!r}) at position "
+            f"`{name}` contains a missing or non-finite value ({float(arr[where])!r}) at position "
             f"{where}; remove it or exclude it with a reason before computing capability."
         )
     if arr.size < minimum:
@@ -623,7 +623,7 @@ def capability(
     overall_sigma = float(arr.std(ddof=1))
     if not overall_sigma > 0:
         raise AnalysisError(
-            f"the {n} values have zero spread (all equal {arr[0]!r}); capability indices would "
+            f"the {n} values have zero spread (all equal {float(arr[0]):g}); capability indices would "
             "be infinite. Check the gauge resolution (it may be too coarse for this tolerance) "
             "or the data import."
         )

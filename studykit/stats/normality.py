@@ -47,7 +47,7 @@ def _clean(x, *, name="x", minimum=3):
     if bad.any():
         where = int(np.flatnonzero(bad)[0])
         raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({arr[where]!r}) at position "
+            f"`{name}` contains a missing or non-finite value ({float(arr[where])!r}) at position "
             f"{where}; remove it or mark it as excluded before testing normality."
         )
     if arr.size < minimum:
@@ -56,7 +56,7 @@ def _clean(x, *, name="x", minimum=3):
         )
     if np.ptp(arr) == 0:
         raise AnalysisError(
-            f"`{name}` has zero spread (every value is {arr[0]!r}); a normality test is "
+            f"`{name}` has zero spread (every value is {float(arr[0]):g}); a normality test is "
             "meaningless. Check the gauge resolution or the data import."
         )
     return arr

@@ -1,0 +1,315 @@
+"""Capability of attribute (pass/fail and count) characteristics.
+
+Defective parts: average defective rate with an exact Clopper-Pearson interval, PPM and the
+process Z. Defects counted on units: defects per unit with an exact Poisson interval.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from studykit.errors import AnalysisError, StudyInputError
+
+__all__ = ["AttributeCapability", "DefectsPerUnit", "attribute_capability", "defects_per_unit"]
+
+
+def _level(level):
+    if not isinstance(level, int | float) or not 0.5 <= float(level) < 1:
+        raise StudyInputError(f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95.")
+    return float(level)
+
+
+def _suffix(level):
+    pct = level * 100
+    return f"{round(pct):d}" if abs(pct - round(pct)) < 1e-9 else f"{pct:g}".replace(".", "_")
+
+
+def _counts(values, name, *, integer=True):
+    try:
+        arr = np.atleast_1d(np.asarray(values, dtype=float)).ravel()
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`{name}` must contain numbers only.") from None
+    if arr.size == 0:
+        raise AnalysisError(f"`{name}` is empty; give at least one count.")
+    bad = ~np.isfinite(arr) | (arr < 0)
+    if integer:
+        bad |= arr != np.round(arr)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        kind = "a whole number of at least 0" if integer else "a number of at least 0"
+        raise StudyInputError(
+            f"`{name}` value {float(arr[i]):g} at position {i} must be {kind}; correct the count."
+        )
+    return arr
+
+
+def _z(p):
+    """Phi^-1(1 - p); None when p is 0 (infinitely far) and -inf is never returned."""
+    if p <= 0:
+        return None
+    if p >= 1:
+        return None
+    return float(stats.norm.isf(p))
+
+
+@dataclass(frozen=True)
+class AttributeCapability:
+    """Defective rate, its exact confidence bounds, PPM and process Z.
+
+    Attributes
+    ----------
+    defective_rate : float
+        p = total defectives / total inspected.
+    defective_rate_lower, defective_rate_upper : float
+        Two-sided Clopper-Pearson interval at ``level``.
+    defective_rate_upper_bound : float
+        One-sided upper Clopper-Pearson bound at ``level`` (``defective_rate_upper_95`` in
+        ``to_dict`` for level 0.95).
+    ppm_defective, ppm_defective_upper_bound : float
+        10^6 p and 10^6 times the one-sided upper bound.
+    z_process : float or None
+        Phi^-1(1 - p); None when no defectives were found (p = 0, unbounded).
+    z_process_lower_bound : float or None
+        Phi^-1(1 - upper bound): the Z the data demonstrate at ``level``.
+    defectives, inspected, n_subgroups : int
+    level : float
+    method : str
+        ``"clopper_pearson"``.
+    """
+
+    defective_rate: float
+    defective_rate_lower: float
+    defective_rate_upper: float
+    defective_rate_upper_bound: float
+    ppm_defective: float
+    ppm_defective_upper_bound: float
+    z_process: float | None
+    z_process_lower_bound: float | None
+    defectives: int
+    inspected: int
+    n_subgroups: int
+    level: float
+    method: str = "clopper_pearson"
+
+    @property
+    def defective_rate_upper_95(self) -> float:
+        """One-sided upper bound; defined only for level 0.95."""
+        if abs(self.level - 0.95) > 1e-12:
+            raise AttributeError(
+                f"defective_rate_upper_95 exists only for level 0.95 (level is {self.level}); "
+                "use defective_rate_upper_bound."
+            )
+        return self.defective_rate_upper_bound
+
+    def to_dict(self) -> dict:
+        s = _suffix(self.level)
+        return {
+            "method": self.method,
+            "level": self.level,
+            "defectives": self.defectives,
+            "inspected": self.inspected,
+            "n_subgroups": self.n_subgroups,
+            "defective_rate": self.defective_rate,
+            "defective_rate_lower": self.defective_rate_lower,
+            "defective_rate_upper": self.defective_rate_upper,
+            f"defective_rate_upper_{s}": self.defective_rate_upper_bound,
+            "ppm_defective": self.ppm_defective,
+            f"ppm_defective_upper_{s}": self.ppm_defective_upper_bound,
+            "z_process": self.z_process,
+            f"z_process_lower_{s}": self.z_process_lower_bound,
+        }
+
+
+def attribute_capability(defectives, inspected, *, level: float = 0.95) -> AttributeCapability:
+    """Capability of a pass/fail characteristic from counts of defective parts.
+
+    Parameters
+    ----------
+    defectives : int or array-like of int
+        Defective parts found, per subgroup (or a total).
+    inspected : int or array-like of int
+        Parts inspected, per subgroup (same length as ``defectives``), or a total.
+    level : float
+        Confidence level (default 0.95).
+
+    Returns
+    -------
+    AttributeCapability
+        defective_rate, its two-sided interval and one-sided upper bound, PPM, process Z and its
+        lower bound, counts, level, method.
+
+    Notes
+    -----
+    With x defectives out of n: p = x / n. Clopper-Pearson bounds from beta quantiles:
+    lower = B(alpha/2; x, n - x + 1) (0 if x = 0), upper = B(1 - alpha/2; x + 1, n - x) (1 if
+    x = n); the one-sided upper bound uses 1 - alpha. Z = Phi^-1(1 - p): the process Z is the
+    standard normal quantile with the same one-sided tail share as the defective rate.
+
+    References
+    ----------
+    C. J. Clopper and E. S. Pearson, "The use of confidence or fiducial limits illustrated in
+    the case of the binomial", Biometrika 26 (1934) 404-413; D. C. Montgomery, *Introduction to
+    Statistical Quality Control*, ch. 8 (process capability from attribute data; from memory).
+
+    Examples
+    --------
+    >>> r = attribute_capability([2, 0, 1], [500, 500, 500])
+    >>> r.ppm_defective, round(r.z_process, 3)
+    (2000.0, 2.878)
+    >>> round(r.defective_rate_upper_95, 5)
+    0.00516
+    """
+    level = _level(level)
+    x = _counts(defectives, "defectives")
+    n = _counts(inspected, "inspected")
+    if x.size != n.size and n.size != 1:
+        raise StudyInputError(
+            f"`defectives` has {x.size} entries but `inspected` has {n.size}; give one inspected "
+            "count per subgroup, or a single total."
+        )
+    if n.size == 1 and x.size > 1:
+        raise StudyInputError(
+            "`inspected` is a single number but `defectives` has several subgroups; give the "
+            "inspected count of each subgroup."
+        )
+    if np.any(n <= 0):
+        i = int(np.flatnonzero(n <= 0)[0])
+        raise StudyInputError(f"`inspected` value {float(n[i]):g} at position {i} must be at least 1.")
+    over = x > n
+    if over.any():
+        i = int(np.flatnonzero(over)[0])
+        raise StudyInputError(
+            f"`defectives` ({x[i]:g}) exceeds `inspected` ({n[i]:g}) at position {i}; a "
+            "subgroup cannot have more defectives than parts."
+        )
+    xt, nt = int(x.sum()), int(n.sum())
+    alpha = 1.0 - level
+    p = xt / nt
+    lower = 0.0 if xt == 0 else float(stats.beta.ppf(alpha / 2, xt, nt - xt + 1))
+    upper = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha / 2, xt + 1, nt - xt))
+    upper1 = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha, xt + 1, nt - xt))
+    return AttributeCapability(
+        defective_rate=p,
+        defective_rate_lower=lower,
+        defective_rate_upper=upper,
+        defective_rate_upper_bound=upper1,
+        ppm_defective=p * 1e6,
+        ppm_defective_upper_bound=upper1 * 1e6,
+        z_process=_z(p),
+        z_process_lower_bound=_z(upper1),
+        defectives=xt,
+        inspected=nt,
+        n_subgroups=int(x.size),
+        level=level,
+    )
+
+
+@dataclass(frozen=True)
+class DefectsPerUnit:
+    """Defects per unit with an exact Poisson confidence interval.
+
+    Attributes
+    ----------
+    dpu : float
+        Total defects / total units.
+    dpu_lower, dpu_upper : float
+        Two-sided exact interval at ``level``.
+    dpu_upper_bound : float
+        One-sided upper bound at ``level`` (``dpu_upper_95`` in ``to_dict`` for 0.95).
+    defects : int
+    units : float
+    n_subgroups : int
+    level : float
+    method : str
+        ``"poisson_exact"``.
+    """
+
+    dpu: float
+    dpu_lower: float
+    dpu_upper: float
+    dpu_upper_bound: float
+    defects: int
+    units: float
+    n_subgroups: int
+    level: float
+    method: str = "poisson_exact"
+
+    def to_dict(self) -> dict:
+        s = _suffix(self.level)
+        return {
+            "method": self.method,
+            "level": self.level,
+            "defects": self.defects,
+            "units": self.units,
+            "n_subgroups": self.n_subgroups,
+            "dpu": self.dpu,
+            "dpu_lower": self.dpu_lower,
+            "dpu_upper": self.dpu_upper,
+            f"dpu_upper_{s}": self.dpu_upper_bound,
+        }
+
+
+def defects_per_unit(defects, units, *, level: float = 0.95) -> DefectsPerUnit:
+    """Defects per unit with an exact (Garwood) Poisson confidence interval.
+
+    Parameters
+    ----------
+    defects : int or array-like of int
+        Defects counted, per subgroup (or a total).
+    units : float or array-like of float
+        Inspection units per subgroup (may be fractional, e.g. area), same length, or a total.
+    level : float
+        Confidence level (default 0.95).
+
+    Returns
+    -------
+    DefectsPerUnit
+        dpu, dpu_lower, dpu_upper, dpu_upper_bound, defects, units, n_subgroups, level, method.
+
+    Notes
+    -----
+    With c defects on u units: DPU = c / u; lower = chi2_(alpha/2)(2c) / (2u) (0 if c = 0),
+    upper = chi2_(1 - alpha/2)(2c + 2) / (2u); the one-sided upper bound uses 1 - alpha.
+
+    References
+    ----------
+    F. Garwood, "Fiducial limits for the Poisson distribution", Biometrika 28 (1936) 437-442.
+
+    Examples
+    --------
+    >>> r = defects_per_unit([3, 5, 2], [10, 10, 10])
+    >>> round(r.dpu, 3), round(r.dpu_upper, 4)
+    (0.333, 0.613)
+    """
+    level = _level(level)
+    c = _counts(defects, "defects")
+    u = _counts(units, "units", integer=False)
+    if c.size != u.size:
+        raise StudyInputError(
+            f"`defects` has {c.size} entries but `units` has {u.size}; give the units of each "
+            "subgroup."
+        )
+    if np.any(u <= 0):
+        i = int(np.flatnonzero(u <= 0)[0])
+        raise StudyInputError(f"`units` value {float(u[i]):g} at position {i} must be greater than 0.")
+    ct, ut = int(c.sum()), float(u.sum())
+    alpha = 1.0 - level
+    lower = 0.0 if ct == 0 else float(stats.chi2.ppf(alpha / 2, 2 * ct)) / (2 * ut)
+    upper = float(stats.chi2.ppf(1 - alpha / 2, 2 * ct + 2)) / (2 * ut)
+    upper1 = float(stats.chi2.ppf(1 - alpha, 2 * ct + 2)) / (2 * ut)
+    if not math.isfinite(upper):
+        raise AnalysisError("the Poisson upper bound is not finite; check the counts.")
+    return DefectsPerUnit(
+        dpu=ct / ut,
+        dpu_lower=lower,
+        dpu_upper=upper,
+        dpu_upper_bound=upper1,
+        defects=ct,
+        units=ut,
+        n_subgroups=int(c.size),
+        level=level,
+    )
