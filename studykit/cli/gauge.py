@@ -213,7 +213,16 @@ def _anova_lines(rows) -> list[str]:
 
 
 def format_gauge(res: GaugeResult, *, source: str = "") -> str:
-    """Plain-text report of a gauge study (used by ``studykit gauge``)."""
+    """Plain-text report of a gauge study (used by ``studykit gauge``).
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge import gauge_rr
+    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+    ...                ["A", "A", "B", "B"] * 2)
+    >>> print(format_gauge(res).splitlines()[0])
+    Design:      2 parts x 2 appraisers x 2 trials = 8 values (crossed, balanced)
+    """
     k = res.study_variation
     lines = []
     if source:

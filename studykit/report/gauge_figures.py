@@ -230,7 +230,23 @@ def interaction_figure(result: GaugeResult, *, ax=None) -> Figure:
 
 
 def all_figures(result: GaugeResult) -> dict[str, Figure]:
-    """Every gauge figure by name, in report order."""
+    """Every gauge figure by name, in report order.
+
+    Returns
+    -------
+    dict of str to Figure
+        ``components``, ``by_part``, ``by_appraiser``, ``range_chart``, ``mean_chart``,
+        ``interaction``.
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge import gauge_rr
+    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+    ...                ["A", "A", "B", "B"] * 2)
+    >>> figs = all_figures(res)
+    >>> list(figs)[:2], len(figs["interaction"].axes[0].lines)
+    (['components', 'by_part'], 2)
+    """
     return {
         "components": components_figure(result),
         "by_part": by_part_figure(result),

@@ -78,6 +78,10 @@ MAX_RANGE_N = constants.MAX_SUBGROUP_SIZE
 #: Satterthwaite intervals are not formed below this many degrees of freedom (common practice,
 #: no source: below one degree of freedom the approximation carries no usable information).
 MIN_INTERVAL_DF = 1.0
+#: below this many parts a note warns that part variation is poorly estimated; 10 is the usual
+#: plan (common practice, no source).
+FEW_PARTS = 5
+FEW_PARTS_USUAL = 10
 
 
 # ----------------------------------------------------------------------------------------------
@@ -454,6 +458,7 @@ def _arrange(values, parts, appraisers, trials) -> tuple[np.ndarray, list, list]
         t_keys = [_sort_key(v) for v in t_lab]
         order = np.array(sorted(range(n), key=lambda k: (pi[k], ai[k], t_keys[k])))
     cube = y[order].reshape(len(part_levels), len(appr_levels), r)
+    cube.flags.writeable = False  # the result is frozen; so are its values
     if not np.isfinite(cube.var()) or np.ptp(cube) == 0:
         raise AnalysisError(
             "all values are equal; the gauge shows no variation at all (check the resolution: "
@@ -766,6 +771,12 @@ def gauge_rr(
     ndc = None if ratio is None else int(math.floor(1.41 * ratio + 1e-12))
     if ratio is None:
         notes.append("The gauge shows no measurement variation; ndc is undefined.")
+    if p < FEW_PARTS:
+        notes.append(
+            f"Only {p} parts: the part-to-part sigma, and so %GRR and ndc, rest on {p - 1} "
+            f"degree(s) of freedom; {FEW_PARTS_USUAL} parts spanning the process range is the "
+            "usual plan (common practice, no source)."
+        )
     charts = _chart_limits(cube, part_levels, appr_levels)
     if charts.ranges_above_ucl:
         cells = ", ".join(f"part {a} by appraiser {b}" for a, b in charts.ranges_above_ucl[:5])
