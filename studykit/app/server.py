@@ -18,8 +18,14 @@ Nothing else changes: authentication (``--Voila.token``), ports and templates ar
 
 from __future__ import annotations
 
+import contextlib
 import os
+import socket
+import subprocess
 import sys
+import time
+import urllib.error
+import urllib.request
 
 import bokeh
 import tornado.web
@@ -80,6 +86,52 @@ class StudykitVoila(Voila):
         os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url,
                                                     BOKEHJS_ROUTE)
         super().start()
+
+
+def free_port(host: str = "127.0.0.1") -> int:
+    """A TCP port that is free right now on ``host``."""
+    with socket.socket() as s:
+        s.bind((host, 0))
+        return s.getsockname()[1]
+
+
+@contextlib.contextmanager
+def running_server(path, *, port: int | None = None, env: dict | None = None,
+                   extra_args: tuple[str, ...] = (), timeout: float = 90.0, log=None):
+    """Run this server on a notebook or folder in a subprocess; yield its base URL.
+
+    For tests and benchmarks. The server is stopped (SIGTERM, then SIGKILL) on exit.
+    """
+    port = port or free_port()
+    path = os.fspath(path)
+    cwd = path if os.path.isdir(path) else os.path.dirname(os.path.abspath(path))
+    cmd = [sys.executable, "-m", "studykit.app.server", os.path.abspath(path), "--no-browser",
+           f"--port={port}", "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", *extra_args]
+    proc = subprocess.Popen(cmd, cwd=cwd, env={**os.environ, **(env or {})},
+                            stdout=log or subprocess.DEVNULL, stderr=subprocess.STDOUT)
+    url = f"http://127.0.0.1:{port}/"
+    try:
+        deadline = time.monotonic() + timeout
+        while True:
+            if proc.poll() is not None:
+                raise RuntimeError(f"voila exited with status {proc.returncode}")
+            try:
+                with urllib.request.urlopen(url + "studykit/ping", timeout=2):
+                    break
+            except urllib.error.HTTPError:  # any HTTP answer (here 404) means it is up
+                break
+            except OSError:
+                if time.monotonic() > deadline:
+                    raise RuntimeError(f"voila did not answer on {url} in {timeout} s") from None
+                time.sleep(0.2)
+        yield url
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
 
 
 def main(argv: list[str] | None = None) -> None:
