@@ -491,3 +491,34 @@ def test_figure_into_given_axes(figs, machines_result):
     assert all(ax.has_data() for ax in axes.ravel())
     assert set(figs.all_figures(machines_result)) == {
         "components", "by_part", "by_appraiser", "range_chart", "mean_chart", "interaction"}
+
+
+def test_pooling_boundary():
+    y, p, a, _ = _long(_cube(seed=5))
+    first = gauge_rr(y, p, a)
+    at = gauge_rr(y, p, a, alpha_interaction=first.interaction_p)
+    above = gauge_rr(y, p, a, alpha_interaction=min(1.0, first.interaction_p * 1.0001))
+    assert at.interaction_pooled  # pooled when p >= alpha
+    assert not above.interaction_pooled
+
+
+def test_repeatability_dominant_advice():
+    rng = np.random.default_rng(11)
+    cube = (np.arange(10)[:, None, None] * 0.5 + rng.normal(size=(1, 3, 1)) * 0.01
+            + rng.normal(size=(10, 3, 3)) * 1.0)
+    res = gauge_rr(*_long(cube)[:3])
+    assert res.verdict.status == "not acceptable"
+    assert res.verdict.dominant == REPEATABILITY
+    assert "the gauge" in res.verdict.advice
+
+
+def test_satterthwaite_below_one_df_gives_no_interval():
+    # found by hypothesis: reproducibility barely positive -> Satterthwaite df 0.0004
+    cube = np.array([[[1.53980055, -1.0265336], [-0.86277313, -1.50119186]],
+                     [[1.77881053, 0.66056232], [-0.22034111, -1.19924453]],
+                     [[-0.22025198, 0.31041686], [-0.52278357, 2.61654987]]])
+    res = gauge_rr(*_long(cube)[:3])
+    repro = res.component(REPRODUCIBILITY)
+    assert repro.variance > 0 and repro.interval_df < 1
+    assert repro.lower is None and repro.upper is None
+    assert any("No confidence interval for" in n for n in res.notes)
