@@ -115,3 +115,29 @@ def test_specs_table_errors_name_row_and_column():
     # semicolon tables may use a decimal comma
     chars, _ = read_specs_bytes(b"characteristic;lsl;usl\na;11,97;12,03\n", "s.csv")
     assert (chars[0].lsl, chars[0].usl) == (11.97, 12.03)
+
+
+def _load_make_demo(repo_root):
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("make_demo", repo_root / "demo_data" / "make_demo.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def test_demo_check_detects_a_changed_byte_and_a_changed_decision(tmp_path, repo_root):
+    md = _load_make_demo(repo_root)
+    md.generate(tmp_path)
+    assert md.check(tmp_path) == []
+    study = StudyFile(tmp_path / md.STUDY_FILE).load()
+    assert sorted(study.excluded_subgroups("flange_thickness")) == ["17", "18"]
+    assert study.model_for("face_runout") == "lognormal"
+    assert [c.name for c in study.characteristics.values() if c.safety_critical] == ["bore_diameter"]
+    pull = tmp_path / md.PULL_CSV
+    pull.write_bytes(pull.read_bytes().replace(b"\n2,", b"\n3,", 1))
+    StudyFile(tmp_path / md.STUDY_FILE).exclude("bore_diameter", 3, reason="test", who="A")
+    problems = md.check(tmp_path)
+    assert any(p.startswith(md.PULL_CSV) for p in problems)
+    assert any("'decisions' differs" in p for p in problems)
+    assert md.main(["--check", "--out", str(tmp_path)]) == 1
