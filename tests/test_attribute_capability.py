@@ -36,14 +36,23 @@ def test_clopper_pearson_matches_scipy_and_statsmodels(n, share, level):
     r = attribute_capability(x, n, level=level)
     # scipy.stats.binomtest(x, n).proportion_ci(confidence_level=level, method='exact')
     ci = stats.binomtest(x, n).proportion_ci(confidence_level=level, method="exact")
-    assert_allclose([r.defective_rate_lower, r.defective_rate_upper], [ci.low, ci.high], rtol=1e-8, atol=1e-12)
+    assert_allclose(
+        [r.defective_rate_lower, r.defective_rate_upper], [ci.low, ci.high], rtol=1e-8, atol=1e-12
+    )
     # statsmodels proportion_confint(x, n, alpha=1-level, method='beta')
     lo, hi = proportion_confint(x, n, alpha=1 - level, method="beta")
-    assert_allclose([r.defective_rate_lower, r.defective_rate_upper], [lo, hi], rtol=1e-8, atol=1e-12)
+    assert_allclose(
+        [r.defective_rate_lower, r.defective_rate_upper], [lo, hi], rtol=1e-8, atol=1e-12
+    )
     # One-sided upper bound = upper end of the two-sided interval at 2*level - 1.
     ci1 = stats.binomtest(x, n).proportion_ci(confidence_level=2 * level - 1, method="exact")
     assert_allclose(r.defective_rate_upper_bound, ci1.high, rtol=1e-8, atol=1e-12)
-    assert r.defective_rate_lower <= r.defective_rate <= r.defective_rate_upper_bound <= r.defective_rate_upper
+    assert (
+        r.defective_rate_lower
+        <= r.defective_rate
+        <= r.defective_rate_upper_bound
+        <= r.defective_rate_upper
+    )
 
 
 def test_ppm_and_z():
@@ -52,7 +61,9 @@ def test_ppm_and_z():
     assert_allclose(r.ppm_defective, 2000.0, rtol=1e-12)
     # Z = Phi^-1(1 - p): scipy.stats.norm.ppf(1 - 0.002)
     assert_allclose(r.z_process, stats.norm.ppf(1 - 0.002), rtol=1e-10)
-    assert_allclose(r.z_process_lower_bound, stats.norm.ppf(1 - r.defective_rate_upper_95), rtol=1e-10)
+    assert_allclose(
+        r.z_process_lower_bound, stats.norm.ppf(1 - r.defective_rate_upper_95), rtol=1e-10
+    )
     assert r.z_process_lower_bound < r.z_process
     d = r.to_dict()
     for key in ("defective_rate", "defective_rate_upper_95", "ppm_defective", "z_process"):

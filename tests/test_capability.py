@@ -130,7 +130,9 @@ def test_bissell_cpk_interval_cases():
     x = sample_with(10.0 - 3.99, 1.0, 20)
     r = capability(x, lsl=0.0, usl=10.0, within_sigma=1.0, df_within=19)
     assert_allclose(r.cpk, 1.33, atol=1e-12)
-    assert_allclose([r.bounds["cpk"]["lower"], r.bounds["cpk"]["upper"]], [0.8826, 1.7774], atol=5e-5)
+    assert_allclose(
+        [r.bounds["cpk"]["lower"], r.bounds["cpk"]["upper"]], [0.8826, 1.7774], atol=5e-5
+    )
 
 
 def test_bissell_data(bissell):
@@ -140,7 +142,9 @@ def test_bissell_data(bissell):
     r = capability(bissell, lsl=5.49, usl=5.79)
     assert_allclose([r.inputs["mean"], r.inputs["overall_sigma"]], [5.6136, 0.048313], atol=5e-7)
     assert_allclose([r.pp, r.ppk], [1.0349, 0.8528], atol=5e-5)
-    assert_allclose([r.bounds["ppk"]["lower"], r.bounds["ppk"]["upper"]], [0.6960, 1.0095], atol=5e-5)
+    assert_allclose(
+        [r.bounds["ppk"]["lower"], r.bounds["ppk"]["upper"]], [0.6960, 1.0095], atol=5e-5
+    )
     assert_allclose([r.bounds["pp"]["lower"], r.bounds["pp"]["upper"]], [0.8684, 1.2011], atol=5e-5)
     assert r.inputs["within_sigma_source"] == "moving_range"
     assert_allclose(r.inputs["within_sigma"], 0.046347, atol=5e-7)
@@ -151,7 +155,9 @@ def test_bissell_data(bissell):
     assert_allclose(rbar, 0.115333, atol=5e-7)
     sigma_r = rbar / 2.325929  # exact d2(5), REFERENCES.md control-chart constants
     assert_allclose(sigma_r, 0.049586, atol=5e-7)
-    rr = capability(bissell, lsl=5.49, usl=5.79, within_sigma=sigma_r, df_within=effective_df_range(15, 5))
+    rr = capability(
+        bissell, lsl=5.49, usl=5.79, within_sigma=sigma_r, df_within=effective_df_range(15, 5)
+    )
     assert_allclose([rr.cp, rr.cpk], [1.0084, 0.8309], atol=5e-5)
 
 
@@ -167,7 +173,9 @@ def test_lognormal_percentile_and_equivalent_ppm():
     # REFERENCES.md percentile method (COMPUTED): X0.135 0.223133, X50 1, X99.865 4.481638,
     # Pp 1.12716, PPU 1.14888, PPL 1.02978, Ppk 1.02978; equivalent-tail PPU = PPL = 1.07296.
     q = r.alternatives["quantiles"]
-    assert_allclose([q["x_lower"], q["x_median"], q["x_upper"]], [0.223133, 1.0, 4.481638], atol=5e-7)
+    assert_allclose(
+        [q["x_lower"], q["x_median"], q["x_upper"]], [0.223133, 1.0, 4.481638], atol=5e-7
+    )
     assert_allclose([r.pp, r.ppu, r.ppl, r.ppk], [1.12716, 1.14888, 1.02978, 1.02978], atol=5e-6)
     assert r.method == "percentile" and r.model == "lognormal"
     eq = r.alternatives["equivalent_ppm"]
@@ -180,7 +188,9 @@ def test_lognormal_percentile_and_equivalent_ppm():
     b = r.bounds["ppk"]
     assert b["lower"] < b["lower_bound"] < r.ppk < b["upper"]
     assert b["method"] == "parametric_bootstrap_percentile"
-    r2 = capability(x, lsl=0.2, usl=5.0, model=model, method="equivalent_ppm", n_boot=200, random_state=1)
+    r2 = capability(
+        x, lsl=0.2, usl=5.0, model=model, method="equivalent_ppm", n_boot=200, random_state=1
+    )
     assert r2.method == "equivalent_ppm"
     assert_allclose(r2.ppk, 1.07296, atol=5e-6)
     assert_allclose(r2.alternatives["percentile"]["ppk"], 1.02978, atol=5e-6)
@@ -196,7 +206,9 @@ def test_tail_convention_is_0_135_percent():
     rn = capability(x, lsl=8.0, usl=12.5)
     factor = 3.0 / stats.norm.isf(0.00135)
     assert_allclose(
-        [rp.pp, rp.ppk, rp.ppu, rp.ppl], [factor * v for v in (rn.pp, rn.ppk, rn.ppu, rn.ppl)], rtol=1e-10
+        [rp.pp, rp.ppk, rp.ppu, rp.ppl],
+        [factor * v for v in (rn.pp, rn.ppk, rn.ppu, rn.ppl)],
+        rtol=1e-10,
     )
 
 
@@ -262,7 +274,11 @@ def test_against_plain_implementation(seed, level):
         assert_allclose(getattr(r, k), ref[k], rtol=1e-10)
     for k in ("cp", "pp", "cpk", "ppk"):
         assert_allclose(r.lower_bound(k), ref[f"{k}_lb"], rtol=1e-10)
-    assert_allclose([r.bounds["cpm"]["lower"], r.bounds["cpm"]["upper"]], [ref["cpm_lo"], ref["cpm_hi"]], rtol=1e-10)
+    assert_allclose(
+        [r.bounds["cpm"]["lower"], r.bounds["cpm"]["upper"]],
+        [ref["cpm_lo"], ref["cpm_hi"]],
+        rtol=1e-10,
+    )
     assert_allclose(r.ppm_within, ref["ppm_w"], rtol=1e-9, atol=1e-9)
     assert_allclose(r.ppm_overall, ref["ppm_o"], rtol=1e-9, atol=1e-9)
     d = r.to_dict()
@@ -285,7 +301,16 @@ def test_observed_ppm_and_to_dict_keys():
     ):  # fmt: skip
         assert key in d, key
     assert d["bounds"]["level"] == 0.95
-    assert set(d["inputs"]) >= {"n", "mean", "within_sigma", "overall_sigma", "lsl", "usl", "target", "level"}
+    assert set(d["inputs"]) >= {
+        "n",
+        "mean",
+        "within_sigma",
+        "overall_sigma",
+        "lsl",
+        "usl",
+        "target",
+        "level",
+    }
     assert d["cpm"] is None  # no target
     r90 = capability(x, lsl=1.5, usl=9.0, level=0.9)
     assert "ppk_lower_90" in r90.to_dict() and "ppk_lower_95" not in r90.to_dict()
@@ -329,7 +354,12 @@ def test_properties(values, below, above, shift, scale):
     assert r.cpm <= r.pp + 1e-12
     assert r.ppk_lower_95 < r.ppk and r.pp_lower_95 < r.pp
     # Shift and positive scale of data and limits together leave every index unchanged.
-    t = capability(shift + scale * x, lsl=shift + scale * lsl, usl=shift + scale * usl, target=shift + scale * (lsl + usl) / 2)
+    t = capability(
+        shift + scale * x,
+        lsl=shift + scale * lsl,
+        usl=shift + scale * usl,
+        target=shift + scale * (lsl + usl) / 2,
+    )
     for k in ("cp", "cpk", "pp", "ppk", "cpm"):
         assert_allclose(getattr(t, k), getattr(r, k), rtol=1e-7)
         assert_allclose(t.lower_bound(k), r.lower_bound(k), rtol=1e-7)
@@ -456,3 +486,17 @@ def test_model_band():
     assert not same.verdict_changes and same.warning is None
     with pytest.raises(StudyInputError, match="no models with a value"):
         model_band({"a": None}, 1.0)
+
+
+def test_with_fitted_model_from_fit_module():
+    # Integration with studykit.stats.fit (the FittedModel protocol); the lognormal percentile
+    # indices must equal those computed from scipy.stats.lognorm with the fitted parameters.
+    fit = pytest.importorskip("studykit.stats.fit")
+    x = stats.lognorm(s=0.5).rvs(125, random_state=np.random.default_rng(21))
+    model = fit.FAMILIES["lognormal"].fit(x)
+    r = capability(x, lsl=0.2, usl=5.0, model=model, n_boot=100, random_state=2)
+    lo, mid, hi = model.ppf([0.00135, 0.5, 0.99865])
+    assert_allclose(r.ppu, (5.0 - mid) / (hi - mid), rtol=1e-12)
+    assert_allclose(r.ppl, (mid - 0.2) / (mid - lo), rtol=1e-12)
+    assert r.model == model.name and r.inputs["model_parameters"] == model.parameters
+    assert r.bounds["ppk"]["lower_bound"] < r.ppk < r.bounds["ppk"]["upper"]

@@ -97,9 +97,7 @@ def test_anderson_darling_pvalue_branches():
         *[rng.normal(size=30) for _ in range(12)],
     ):
         r = anderson_darling(sample)
-        seen.add(
-            0 if r.a2_star < 0.2 else 1 if r.a2_star < 0.34 else 2 if r.a2_star < 0.6 else 3
-        )
+        seen.add(0 if r.a2_star < 0.2 else 1 if r.a2_star < 0.34 else 2 if r.a2_star < 0.6 else 3)
         assert_allclose(r.p_value, normal_ad(sample)[1], rtol=1e-8, atol=1e-14)
     assert seen == {0, 1, 2, 3}
 

@@ -19,7 +19,9 @@ __all__ = ["AttributeCapability", "DefectsPerUnit", "attribute_capability", "def
 
 def _level(level):
     if not isinstance(level, int | float) or not 0.5 <= float(level) < 1:
-        raise StudyInputError(f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95.")
+        raise StudyInputError(
+            f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95."
+        )
     return float(level)
 
 
@@ -178,7 +180,9 @@ def attribute_capability(defectives, inspected, *, level: float = 0.95) -> Attri
         )
     if np.any(n <= 0):
         i = int(np.flatnonzero(n <= 0)[0])
-        raise StudyInputError(f"`inspected` value {float(n[i]):g} at position {i} must be at least 1.")
+        raise StudyInputError(
+            f"`inspected` value {float(n[i]):g} at position {i} must be at least 1."
+        )
     over = x > n
     if over.any():
         i = int(np.flatnonzero(over)[0])
@@ -295,7 +299,9 @@ def defects_per_unit(defects, units, *, level: float = 0.95) -> DefectsPerUnit:
         )
     if np.any(u <= 0):
         i = int(np.flatnonzero(u <= 0)[0])
-        raise StudyInputError(f"`units` value {float(u[i]):g} at position {i} must be greater than 0.")
+        raise StudyInputError(
+            f"`units` value {float(u[i]):g} at position {i} must be greater than 0."
+        )
     ct, ut = int(c.sum()), float(u.sum())
     alpha = 1.0 - level
     lower = 0.0 if ct == 0 else float(stats.chi2.ppf(alpha / 2, 2 * ct)) / (2 * ut)

@@ -77,7 +77,9 @@ _PRETTY = {
 
 def _chi_mean(nu: float) -> float:
     """E[chi_nu / sqrt(nu)] for real nu > 0 (equals c4(nu + 1))."""
-    return math.exp(0.5 * math.log(2.0 / nu) + special.gammaln((nu + 1) / 2) - special.gammaln(nu / 2))
+    return math.exp(
+        0.5 * math.log(2.0 / nu) + special.gammaln((nu + 1) / 2) - special.gammaln(nu / 2)
+    )
 
 
 def _df_from_cv2(cv2: float) -> float:
@@ -307,7 +309,9 @@ def _normal_indices(mean, sigma, lsl, usl):
 
 
 def _percentile_indices(model, lsl, usl):
-    q_lo, q_mid, q_hi = (float(v) for v in model.ppf(np.array([TAIL_PROBABILITY, 0.5, 1 - TAIL_PROBABILITY])))
+    q_lo, q_mid, q_hi = (
+        float(v) for v in model.ppf(np.array([TAIL_PROBABILITY, 0.5, 1 - TAIL_PROBABILITY]))
+    )
     if not (q_lo < q_mid < q_hi):
         raise AnalysisError(
             f"the fitted model '{model.name}' has no spread (quantiles {q_lo!r}, {q_mid!r}, "
@@ -728,7 +732,9 @@ def capability(
         "within_sigma_source": source if method == "normal" else None,
         "model_parameters": model_parameters,
         "n_boot": int(n_boot) if method != "normal" else None,
-        "random_state": random_state if isinstance(random_state, int) and method != "normal" else None,
+        "random_state": random_state
+        if isinstance(random_state, int) and method != "normal"
+        else None,
     }
     return CapabilityResult(
         **values,
@@ -849,7 +855,11 @@ class Verdict:
 
 
 def judge(
-    result: CapabilityResult, *, index: str = "ppk", threshold: float = 1.67, basis: str = "lower_bound"
+    result: CapabilityResult,
+    *,
+    index: str = "ppk",
+    threshold: float = 1.67,
+    basis: str = "lower_bound",
 ) -> Verdict:
     """Judge a capability result against a requirement ``index >= threshold``.
 
@@ -901,7 +911,11 @@ def judge(
     est = getattr(result, index)
     lb = result.lower_bound(index)
     name = _PRETTY[index]
-    pct = f"{result.level:.0%}" if abs(result.level * 100 - round(result.level * 100)) < 1e-9 else f"{result.level:.1%}"
+    pct = (
+        f"{result.level:.0%}"
+        if abs(result.level * 100 - round(result.level * 100)) < 1e-9
+        else f"{result.level:.1%}"
+    )
     criterion = f"{index} >= {threshold:g}"
     if est is None:
         why = (

@@ -44,7 +44,9 @@ def _check(index, level):
             f"`index` ({index!r}) must be one of {list(_CHI2_INDICES + _BISSELL_INDICES)}."
         )
     if not isinstance(level, int | float) or not 0.5 <= float(level) < 1:
-        raise StudyInputError(f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95.")
+        raise StudyInputError(
+            f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95."
+        )
     return float(level)
 
 
@@ -193,7 +195,9 @@ def parts_needed(
         f"parts is expected to reach {target:g} (it does so in about half of such studies; use "
         "more parts for a safer margin)."
     )
-    return DemonstrationPlan(n, index, assumed, target, level, float(bound), method, CRITERION, text)
+    return DemonstrationPlan(
+        n, index, assumed, target, level, float(bound), method, CRITERION, text
+    )
 
 
 @dataclass(frozen=True)
