@@ -375,6 +375,7 @@ def test_components_non_negative(cube):
         if comp.lower is not None:
             assert 0 <= comp.lower <= comp.sigma <= comp.upper
     assert res.ndc is None or res.ndc >= 0
+    json.dumps(res.to_dict(), allow_nan=False)  # JSON-safe for every study
 
 
 @PROP
