@@ -53,7 +53,7 @@ def _rows(rows):
 # --- ANOVA table ----------------------------------------------------------------------------------
 def test_machines_anova_published_values(machines_result):
     rows = _rows(machines_result.anova_full)
-    # /work/shared REFERENCES.md "Gauge R&R": statsmodels ols('score ~ C(Worker)*C(Machine)') +
+    # REFERENCES.md "Gauge R&R": statsmodels ols('score ~ C(Worker)*C(Machine)') +
     # anova_lm(typ=2) on nlme Machines; pingouin.anova agrees
     assert_allclose(rows[APPRAISER].ss, 1241.895, rtol=1e-9)  # Worker
     assert_allclose(rows[PART].ss, 1755.26333, rtol=1e-7)  # Machine
