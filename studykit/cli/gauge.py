@@ -244,7 +244,9 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
     rows = []
     for c in res.components:
         ci = "-" if c.lower is None else f"{c.lower:.4g} .. {c.upper:.4g}"
-        rows.append((COMPONENT_LABELS[c.name] + (" (set to 0)" if c.set_to_zero else ""),
+        tag = (" (set to 0)" if c.set_to_zero else
+               " (pooled)" if c.interval_method == "pooled into repeatability" else "")
+        rows.append((COMPONENT_LABELS[c.name] + tag,
                      _num(c.variance, ".5g"), _num(c.pct_contribution, ".2f"),
                      _num(c.sigma, ".5g"), _num(c.study_variation, ".5g"),
                      _num(c.pct_study_variation, ".2f"), _num(c.pct_tolerance, ".2f"), ci))
