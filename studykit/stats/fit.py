@@ -61,7 +61,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
 
@@ -159,7 +159,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
             hi = k
         dg = vz + 1.0 / (k * k)
         k_new = k - g / dg
-        if not (lo < k_new < hi):
+        if not (lo <= k_new <= hi):
             k_new = 0.5 * (lo + hi) if math.isfinite(hi) else 2.0 * k
         if abs(k_new - k) <= 1e-12 * k:
             k = k_new
@@ -300,28 +300,39 @@ def _logistic_start(x):
 # Profile likelihood over the threshold
 # ---------------------------------------------------------------------------------------------
 _GRID_DECADES = np.linspace(-4.0, 3.0, 8)
+_REFINE_POINTS = 17
+_REFINE_PASSES = 3
 
 
-def _profile_threshold(x: np.ndarray, inner, label: str):
+def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     """Maximise the profile log-likelihood over theta < min(x).
 
-    ``inner(y, state) -> (loglik, params, state)`` fits the two-parameter family to
-    y = x - theta > 0. Returns (theta, params, loglik, converged, note).
+    ``inner(Y) -> (loglik, params)`` fits the two-parameter family to every row of
+    Y = x - theta > 0 at once (one row per trial threshold; vectorised, so a pass over many
+    thresholds costs about as much as one fit); ``dtheta(Y, params)`` is the derivative of the
+    log-likelihood with respect to theta at fixed other parameters, which at the inner maximum
+    is the derivative of the profile (envelope theorem).
+
+    Search in u = log(min(x) - theta): a grid of 8 points from 1e-4 s to 1e3 s, then three
+    passes of 17 points across the bracket of the best point (each shrinking it 8-fold), then
+    the root of the profile derivative by linear interpolation between the two points where
+    it changes sign, kept only if it beats the best grid point.
+    Returns (theta, params, loglik, converged, note).
     """
     xmin = float(x.min())
     sd = float(x.std())
-    ds = sd * 10.0 ** _GRID_DECADES
-    lls = np.empty(ds.size)
-    state = None
-    for i in range(ds.size - 1, -1, -1):  # from far to near: warm starts follow the path
-        ll, params, state = inner(x - (xmin - ds[i]), state)
-        lls[i] = ll
-    lls = np.where(np.isfinite(lls), lls, -np.inf)
+
+    def evaluate(us):
+        ys = x[None, :] - (xmin - np.exp(us))[:, None]
+        ll, params = inner(ys)
+        return ys, np.where(np.isfinite(ll), ll, -np.inf), params
+
+    us = math.log(sd) + _GRID_DECADES * math.log(10.0)
+    ys, lls, params = evaluate(us)
     best = int(np.argmax(lls))
     note = None
-    converged = True
     if best == 0:
-        interior = [i for i in range(1, ds.size - 1)
+        interior = [i for i in range(1, us.size - 1)
                     if lls[i] >= lls[i - 1] and lls[i] >= lls[i + 1]]
         if not interior:
             raise AnalysisError(
@@ -331,60 +342,171 @@ def _profile_threshold(x: np.ndarray, inner, label: str):
         best = max(interior, key=lambda i: lls[i])
         note = ("likelihood unbounded at the smallest reading; the interior local maximum is "
                 "used (Smith 1985)")
-    if best == ds.size - 1:
-        ll, params, _ = inner(x - (xmin - ds[-1]), None)
-        theta = xmin - ds[-1]
+    if best == us.size - 1:
         note = ("threshold at the search limit (min(x) - 1000 s): the data show no skew for "
                 "this family, which tends to its limiting form")
-        return theta, params, ll, False, note
-    lo, hi = math.log(ds[best - 1]), math.log(ds[best + 1])
-    cache = {}
+        return (xmin - math.exp(us[-1]), {k: float(v[-1]) for k, v in params.items()},
+                float(lls[-1]), False, note)
+    for _ in range(_REFINE_PASSES):
+        us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
+        ys, lls, params = evaluate(us)
+        best = min(max(int(np.argmax(lls)), 1), _REFINE_POINTS - 2)
+    slopes = -np.exp(us) * dtheta(ys, params)
+    u_best, ll_best = float(us[best]), float(lls[best])
+    p_best = {k: float(v[best]) for k, v in params.items()}
+    for k in (best - 1, best):
+        if slopes[k] > 0 >= slopes[k + 1]:
+            u = float(us[k] + (us[k + 1] - us[k]) * slopes[k] / (slopes[k] - slopes[k + 1]))
+            _, ll1, p1 = evaluate(np.array([u]))
+            if ll1[0] >= ll_best:
+                u_best, ll_best = u, float(ll1[0])
+                p_best = {k: float(v[0]) for k, v in p1.items()}
+            break
+    return xmin - math.exp(u_best), p_best, ll_best, True, note
 
-    def negprof(u):
-        ll, params, st = inner(x - (xmin - math.exp(u)), cache.get("state"))
-        cache["state"] = st
-        return -ll if math.isfinite(ll) else math.inf
 
-    res = optimize.minimize_scalar(negprof, bounds=(lo, hi), method="bounded",
-                                   options={"xatol": 1e-5})
-    u = float(res.x)
-    theta = xmin - math.exp(u)
-    ll, params, _ = inner(x - theta, cache.get("state"))
-    if ll < lls[best]:  # Brent should never lose to the grid; keep the grid point if it did
-        theta = xmin - ds[best]
-        ll, params, _ = inner(x - theta, None)
-    return theta, params, ll, converged, note
+def _rowsum(a):
+    return a.sum(axis=1)
 
 
-def _inner_lognormal(y, state):
-    ly = np.log(y)
-    n = y.size
-    sly = float(ly.sum())
+def _inner_lognormal(ys):
+    ly = np.log(ys)
+    n = ys.shape[1]
+    sly = _rowsum(ly)
     mu = sly / n
-    c = ly - mu
-    var = float(c @ c) / n
-    if not var > 0:
-        return -math.inf, {"log_mean": mu, "log_sd": 0.0}, None
-    ll = -sly - 0.5 * n * (_LOG_2PI + math.log(var)) - 0.5 * n
-    return ll, {"log_mean": float(mu), "log_sd": math.sqrt(var)}, None
+    c = ly - mu[:, None]
+    var = _rowsum(c * c) / n
+    with np.errstate(divide="ignore"):
+        ll = -sly - 0.5 * n * (_LOG_2PI + np.log(var)) - 0.5 * n
+    return ll, {"log_mean": mu, "log_sd": np.sqrt(var)}
 
 
-def _inner_weibull(y, state):
-    ly = np.log(y)
-    k, scale, ll = _weibull_fit(ly, state)
-    return ll, {"shape": k, "scale": scale}, k
+def _dtheta_lognormal(ys, p):
+    r = 1.0 / ys
+    return _rowsum(r) + _rowsum((np.log(ys) - p["log_mean"][:, None]) * r) / p["log_sd"] ** 2
 
 
-def _inner_gamma(y, state):
-    k, scale, ll = _gamma_fit(y, state)
-    return ll, {"shape": k, "scale": scale}, k
+def _inner_weibull(ys):
+    """Row-wise Weibull ML (same root as :func:`_weibull_fit`)."""
+    n = ys.shape[1]
+    ly = np.log(ys)
+    slog = _rowsum(ly)
+    z = ly - (slog / n)[:, None]
+    zmax = z.max(axis=1)
+    zs = z - zmax[:, None]
+    k = 1.2825 / np.sqrt(_rowsum(z * z) / n)
+    lo = np.zeros_like(k)
+    hi = np.full_like(k, np.inf)
+    for _ in range(100):
+        w = np.exp(k[:, None] * zs)
+        sw = _rowsum(w)
+        wz = w * z
+        mz = _rowsum(wz) / sw
+        g = mz - 1.0 / k
+        vz = _rowsum(wz * z) / sw - mz * mz
+        lo = np.where(g < 0, k, lo)
+        hi = np.where(g < 0, hi, k)
+        k_new = k - g / (vz + 1.0 / (k * k))
+        bad = ~((k_new >= lo) & (k_new <= hi))
+        k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
+        active = np.abs(k_new - k) > 1e-10 * k
+        k = k_new
+        if not active.any():
+            break
+    w = np.exp(k[:, None] * zs)
+    log_scale = slog / n + zmax + np.log(_rowsum(w) / n) / k
+    ll = n * np.log(k) - n * k * log_scale + (k - 1.0) * slog - n
+    return ll, {"shape": k, "scale": np.exp(log_scale)}
 
 
-def _inner_loglogistic(y, state):
-    ly = np.log(y)
-    mu0, s0 = (0.0, 0.0) if state is not None else _logistic_start(ly)
-    loc, s, ll, ab, _ = _ls_fit(ly, _logistic_terms, mu0, s0, start=state)
-    return ll - float(ly.sum()), {"shape": 1.0 / s, "scale": math.exp(loc)}, ab
+def _dtheta_weibull(ys, p):
+    k, lam = p["shape"][:, None], p["scale"][:, None]
+    r = 1.0 / ys
+    t = (ys / lam) ** k
+    return p["shape"] * _rowsum(t * r) - (p["shape"] - 1.0) * _rowsum(r)
+
+
+def _inner_gamma(ys):
+    """Row-wise gamma ML (same root and iteration as :func:`_gamma_fit`)."""
+    n = ys.shape[1]
+    mean = _rowsum(ys) / n
+    sly = _rowsum(np.log(ys))
+    s = np.log(mean) - sly / n
+    s = np.where(s > 0, s, np.nan)
+    k = (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s)
+    for _ in range(50):
+        f = np.log(k) - special.digamma(k) - s
+        fp = 1.0 / k - special.zeta(2.0, k)
+        k_new = 1.0 / (1.0 / k + f / (k * k * fp))
+        k_new = np.where(k_new > 0, k_new, 0.5 * k)
+        active = np.abs(k_new - k) > 1e-8 * k  # rounding noise of s limits very large k
+        k = k_new
+        if not active.any():
+            break
+    scale = mean / k
+    ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
+    return ll, {"shape": k, "scale": scale}
+
+
+def _dtheta_gamma(ys, p):
+    return ys.shape[1] / p["scale"] - (p["shape"] - 1.0) * _rowsum(1.0 / ys)
+
+
+def _inner_loglogistic(ys):
+    """Row-wise loglogistic ML: logistic Newton iteration (see :func:`_ls_fit`) per row."""
+    n = ys.shape[1]
+    ly = np.log(ys)
+    m = _rowsum(ly) / n
+    c = ly - m[:, None]
+    sd = np.sqrt(_rowsum(c * c) / n)
+    v = c / sd[:, None]
+    vv = v * v
+    # start: location = median, scale = sd sqrt(3)/pi (standardised units)
+    a = np.full(ys.shape[0], math.pi / math.sqrt(3.0))
+    b = (np.median(v, axis=1)) * a
+
+    def ev(a, b):
+        lg, d1, d2 = _logistic_terms(a[:, None] * v - b[:, None])
+        return _rowsum(lg) + n * np.log(a), d1, d2
+
+    ll, d1, d2 = ev(a, b)
+    for _ in range(100):
+        ga = _rowsum(d1 * v) + n / a
+        gb = -_rowsum(d1)
+        haa = _rowsum(d2 * vv) - n / (a * a)
+        hab = -_rowsum(d2 * v)
+        hbb = _rowsum(d2)
+        det = haa * hbb - hab * hab
+        da = -(hbb * ga - hab * gb) / det
+        db = -(haa * gb - hab * ga) / det
+        dec = ga * da + gb * db
+        if not np.any(dec > 1e-9):
+            break
+        t = np.ones_like(a)
+        for _ in range(40):
+            an = a + t * da
+            an_ok = an > 0
+            lln, d1n, d2n = ev(np.where(an_ok, an, a), b + t * db)
+            good = an_ok & (lln >= ll - 1e-12 * np.abs(ll))
+            if good.all():
+                break
+            t = np.where(good, t, 0.5 * t)
+        keep = good[:, None]
+        a = np.where(good, an, a)
+        b = np.where(good, b + t * db, b)
+        ll = np.where(good, lln, ll)
+        d1 = np.where(keep, d1n, d1)
+        d2 = np.where(keep, d2n, d2)
+    scale = sd / a
+    loc = m + b * scale
+    ll_orig = ll - n * np.log(sd) - _rowsum(ly)
+    return ll_orig, {"shape": 1.0 / scale, "scale": np.exp(loc)}
+
+
+def _dtheta_loglogistic(ys, p):
+    c = p["shape"][:, None]
+    z = c * (np.log(ys) - np.log(p["scale"])[:, None])
+    return _rowsum((1.0 + c * np.tanh(0.5 * z)) / ys)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -698,7 +820,8 @@ class _Lognormal3(_Lognormal):
     support, base_id, ad_p_source, minimum_n = "real", "lognormal", None, 5
 
     def _estimate(self, x):
-        theta, params, _, conv, note = _profile_threshold(x, _inner_lognormal, self.label)
+        theta, params, _, conv, note = _profile_threshold(x, _inner_lognormal, _dtheta_lognormal,
+                                                         self.label)
         return {**params, "threshold": theta}, conv, note
 
     def _ad_p(self, a2, n, xs, p):
@@ -743,7 +866,8 @@ class _Weibull3(_Weibull):
     support, base_id, ad_p_source, minimum_n = "real", "weibull", None, 5
 
     def _estimate(self, x):
-        theta, params, _, conv, note = _profile_threshold(x, _inner_weibull, self.label)
+        theta, params, _, conv, note = _profile_threshold(x, _inner_weibull, _dtheta_weibull,
+                                                         self.label)
         return {**params, "threshold": theta}, conv, note
 
     def _ad_p(self, a2, n, xs, p):
@@ -781,7 +905,8 @@ class _Gamma3(_Gamma):
     support, base_id, minimum_n = "real", "gamma", 5
 
     def _estimate(self, x):
-        theta, params, _, conv, note = _profile_threshold(x, _inner_gamma, self.label)
+        theta, params, _, conv, note = _profile_threshold(x, _inner_gamma, _dtheta_gamma,
+                                                         self.label)
         return {**params, "threshold": theta}, conv, note
 
 
@@ -888,7 +1013,8 @@ class _Loglogistic3(_Loglogistic):
     support, base_id, ad_p_source, minimum_n = "real", "loglogistic", None, 5
 
     def _estimate(self, x):
-        theta, params, _, conv, note = _profile_threshold(x, _inner_loglogistic, self.label)
+        theta, params, _, conv, note = _profile_threshold(x, _inner_loglogistic, _dtheta_loglogistic,
+                                                         self.label)
         return {**params, "threshold": theta}, conv, note
 
     def _ad_p(self, a2, n, xs, p):
