@@ -334,6 +334,13 @@ class StudyFile:
             try:
                 yield conn
                 conn.execute("COMMIT")
+            except sqlite3.DatabaseError as exc:
+                if conn.in_transaction:
+                    conn.execute("ROLLBACK")
+                raise StudyFileError(
+                    f"could not save to study file '{self.path}' ({exc}); nothing was changed: "
+                    "check free disk space and write permission, then try again"
+                ) from None
             except BaseException:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
@@ -530,35 +537,37 @@ class StudyFile:
         return ids[-1]
 
     def exclude(self, characteristic: str, subgroup, *, reason: str, who: str = "",
-                automatic: bool = False, payload: Mapping | None = None, **lock) -> int:
+                automatic: bool = False, payload: Mapping | None = None, when: str = "",
+                **lock) -> int:
         """Record the exclusion of one subgroup; returns the decision id."""
         return self.append_decision(
             Decision(characteristic, "exclude", subgroup=subgroup, reason=reason, who=who,
-                     automatic=automatic, payload=payload or {}), **lock)
+                     automatic=automatic, payload=payload or {}, when=when), **lock)
 
     def restore(self, characteristic: str, subgroup, *, reason: str, who: str = "",
-                automatic: bool = False, **lock) -> int:
+                automatic: bool = False, when: str = "", **lock) -> int:
         """Record that an excluded subgroup comes back; returns the decision id."""
         return self.append_decision(
             Decision(characteristic, "restore", subgroup=subgroup, reason=reason, who=who,
-                     automatic=automatic), **lock)
+                     automatic=automatic, when=when), **lock)
 
-    def update_spec(self, characteristic: str, *, who: str, reason: str,
+    def update_spec(self, characteristic: str, *, who: str, reason: str, when: str = "",
                     override_lock: bool = False, override_reason: str | None = None,
                     **changes) -> int:
         """Change specification fields (``lsl=``, ``usl=``, ``target=`` ...), recorded as a
         ``set_spec`` decision with old and new values; returns its id."""
         ids = self._change(lambda s: s.with_spec(
-            characteristic, who=who, reason=reason, override_lock=override_lock,
+            characteristic, who=who, reason=reason, when=when, override_lock=override_lock,
             override_reason=override_reason, **changes))
         return ids[-1]
 
     def update_criteria(self, characteristic: str, criteria: Criteria, *, who: str, reason: str,
-                        override_lock: bool = False, override_reason: str | None = None) -> int:
+                        when: str = "", override_lock: bool = False,
+                        override_reason: str | None = None) -> int:
         """Change the acceptance criterion, recorded as a ``set_criteria`` decision."""
         ids = self._change(lambda s: s.with_criteria(
-            characteristic, criteria, who=who, reason=reason, override_lock=override_lock,
-            override_reason=override_reason))
+            characteristic, criteria, who=who, reason=reason, when=when,
+            override_lock=override_lock, override_reason=override_reason))
         return ids[-1]
 
     def add_comment(self, text: str, *, who: str, characteristic: str | None = None,

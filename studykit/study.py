@@ -129,6 +129,20 @@ def _text(value, *, name: str, error=StudyInputError, required: bool = False) ->
     return value
 
 
+def _when(value, *, name: str = "when") -> str:
+    """An ISO 8601 time (now when empty); a clear error for anything else."""
+    text = _text(value, name=name).strip()
+    if not text:
+        return now_utc()
+    try:
+        datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError:
+        raise StudyInputError(
+            f"`{name}` ({value!r}) is not an ISO 8601 time: write e.g. 2026-03-02T06:00:00Z"
+        ) from None
+    return text
+
+
 def _fmt(x: float | None) -> str:
     return "none" if x is None else f"{x:g}"
 
@@ -456,8 +470,7 @@ class Decision:
                 )
         set_(self, "reason", reason.strip())
         set_(self, "who", who)
-        when = _text(self.when, name="when").strip() or now_utc()
-        set_(self, "when", when)
+        set_(self, "when", _when(self.when))
         set_(self, "payload", MappingProxyType(_json_safe(self.payload, name="payload")))
 
     def to_dict(self) -> dict:
@@ -490,7 +503,7 @@ class Comment:
     def __post_init__(self):
         object.__setattr__(self, "text", _text(self.text, name="text", required=True))
         object.__setattr__(self, "who", _text(self.who, name="who", required=True).strip())
-        object.__setattr__(self, "when", _text(self.when, name="when").strip() or now_utc())
+        object.__setattr__(self, "when", _when(self.when))
         ch = self.characteristic
         if ch is not None:
             ch = _text(ch, name="characteristic").strip() or None
@@ -543,7 +556,7 @@ class SignOff:
             )
         set_(self, "decision", decision)
         set_(self, "comment", _text(self.comment, name="comment"))
-        set_(self, "when", _text(self.when, name="when").strip() or now_utc())
+        set_(self, "when", _when(self.when))
         digest = _text(self.digest, name="digest").strip().lower()
         if not re.fullmatch(r"[0-9a-f]{64}", digest):
             raise StudyInputError(
@@ -1039,6 +1052,11 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
         new_fields = dict(d.payload.get("changes", {}))
         if "name" in new_fields and new_fields["name"] != old.name:
             raise SpecError("a characteristic cannot be renamed; create a new study instead")
+        known = {f.name for f in dataclasses.fields(Characteristic)}
+        unknown = sorted(set(new_fields) - known)
+        if unknown:
+            raise SpecError(f"set_spec: unknown specification field(s) {unknown}: known are "
+                            f"{sorted(known)}")
         new = dataclasses.replace(old, **new_fields)
         if new.name in crit:
             _check_criteria_fits(new, crit[new.name])

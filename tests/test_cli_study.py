@@ -141,3 +141,12 @@ def test_demo_check_detects_a_changed_byte_and_a_changed_decision(tmp_path, repo
     assert any(p.startswith(md.PULL_CSV) for p in problems)
     assert any("'decisions' differs" in p for p in problems)
     assert md.main(["--check", "--out", str(tmp_path)]) == 1
+
+
+def test_exclude_refuses_a_subgroup_the_data_do_not_have(files, capsys):
+    new(files)
+    path = str(files / "a.study")
+    assert main(["study", "exclude", path, "bore", "7", "--reason", "x", "--who", "B"]) == 2
+    assert "'bore' has no subgroup '7' in pilot.csv (its subgroups are 1, 2)" in capsys.readouterr().err
+    assert main(["study", "exclude", path, "flatness", "1", "--reason", "x", "--who", "B"]) == 2
+    assert "no characteristic 'flatness'" in capsys.readouterr().err

@@ -272,3 +272,25 @@ def test_writer_killed_mid_loop_loses_no_committed_entry(study_path, repo_root):
     assert seqs == list(range(len(seqs)))  # in order, no gaps, nothing half-written
     sf.exclude("bore", 1, reason="file still writable after the crash", who="A")
     assert "1" in sf.load().excluded_subgroups("bore")
+
+
+def test_file_and_memory_agree(study_path):
+    """The same changes made in memory and through the file give the same study and digest."""
+    sf = StudyFile(study_path)
+    memory = sf.load()
+    steps = [
+        ("exclude", ("bore", 1), dict(reason="setup", who="A", when="2026-03-03T09:00:00Z")),
+        ("exclude", ("runout", 3), dict(reason="probe", who="A", when="2026-03-03T09:01:00Z")),
+        ("restore", ("bore", 1), dict(reason="fine", who="B", when="2026-03-03T09:02:00Z")),
+    ]
+    for method, args, kw in steps:
+        memory = getattr(memory, method)(*args, **kw)
+        getattr(sf, method)(*args, **kw)
+    memory = memory.with_spec("runout", usl=0.045, who="B", reason="rev C",
+                              when="2026-03-03T09:03:00Z")
+    sf.update_spec("runout", usl=0.045, who="B", reason="rev C")
+    on_file = sf.load()
+    assert on_file.content_digest() == memory.content_digest()
+    assert on_file.characteristics == memory.characteristics
+    assert [d.to_dict() | {"when": ""} for d in on_file.decisions] == \
+        [d.to_dict() | {"when": ""} for d in memory.decisions]

@@ -308,3 +308,17 @@ def test_tampered_data_sha_refused():
 def test_decision_for_unknown_characteristic_refused():
     with pytest.raises(StudyInputError, match="no characteristic 'flatness'"):
         make_study().exclude("flatness", 1, reason="r", who="A")
+
+
+def test_times_must_be_iso_8601():
+    assert Decision("bore", "note", who="A", when="2026-03-02T06:00:00Z").when.startswith("2026")
+    with pytest.raises(StudyInputError, match=r"`when` \('yesterday'\) is not an ISO 8601 time"):
+        Decision("bore", "note", who="A", when="yesterday")
+    with pytest.raises(StudyInputError, match="is not an ISO 8601 time"):
+        SignOff("M", "approved", "approve", digest="0" * 64, when="3/2/26")
+
+
+def test_set_spec_decision_with_unknown_field_refused():
+    d = Decision("bore", "set_spec", who="A", reason="r", payload={"changes": {"colour": "red"}})
+    with pytest.raises(SpecError, match=r"set_spec: unknown specification field\(s\) \['colour'\]"):
+        make_study().with_decision(d)

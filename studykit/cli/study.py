@@ -21,7 +21,7 @@ import json
 import sys
 from pathlib import Path
 
-from studykit.errors import DataFileError, SpecError, StudyFileError
+from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import Study, match_to_data, read_specs
 
@@ -222,9 +222,28 @@ def _lock_kw(args) -> dict:
     return {"override_lock": True, "override_reason": reason} if reason else {}
 
 
+def _check_subgroup(study: Study, name: str, label: str) -> None:
+    """Refuse a subgroup label that the study's data do not have."""
+    from studykit.data import read_measurements_bytes
+
+    study.characteristic(name)
+    spec = study.characteristics[name]
+    options = {"subgroup_size": spec.subgroup_size} if spec.subgroup_size else {}
+    data = read_measurements_bytes(study.data, study.data_filename, **options).get(name)
+    labels = list(dict.fromkeys(str(x) for x in data.subgroups))
+    if label not in labels:
+        shown = ", ".join(labels[:8]) + (", ..." if len(labels) > 8 else "")
+        raise StudyInputError(
+            f"'{name}' has no subgroup '{label}' in {study.data_filename} (its subgroups are "
+            f"{shown}): give a label exactly as the data show it"
+        )
+
+
 def run_decision(args) -> int:
     sf = StudyFile(args.studyfile)
     who = args.who or _default_who()
+    if args.action == "exclude":
+        _check_subgroup(sf.load(), args.characteristic, args.subgroup.strip())
     if args.action == "exclude":
         sf.exclude(args.characteristic, args.subgroup, reason=args.reason, who=who,
                    **_lock_kw(args))
