@@ -62,9 +62,11 @@ Conventions (decided here; common practice unless a source is named)
 - **Points exactly on the centre line** are on neither side: they break a run (rule ``run``) and
   never count towards a one-sided zone rule; they are inside zone C for ``hugging``.
 - **Ties** (two equal consecutive points) break a trend and an alternation.
-- **Counting trends and alternations in points**, as Nelson states them: "six points in a row
-  steadily increasing" is 6 points, i.e. 5 increases; "fourteen points in a row alternating up
-  and down" is 14 points, i.e. 13 changes of alternating sign.
+- **Trends and alternations are counted in points**, as Nelson's tests are worded ("six points
+  in a row steadily increasing or decreasing", "fourteen points in a row alternating up and
+  down"; Nelson 1984, tests 3 and 4, wording as reproduced in the project's REFERENCES.md): a
+  trend of 6 points is 5 increases in a row, an alternation of 14 points is 13 steps, each in the
+  opposite direction to the one before.
 - **k of m** (zone_a, zone_b): point ``i`` signals when it is itself beyond the zone boundary and
   at least ``count`` of the points ``i-window+1 .. i`` (fewer at the start of the chart) are
   beyond the same boundary on the same side. The trigger is thus always a point in the zone --
