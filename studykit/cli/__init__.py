@@ -48,6 +48,8 @@ def main(argv: list[str] | None = None) -> int:
     except StudyInputError as exc:
         print(f"studykit {args.command}: error: {exc}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        return 0
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130

@@ -1,0 +1,1020 @@
+"""One characteristic in, one frozen result tree out.
+
+:func:`analyze_characteristic` runs the whole capability study for one characteristic:
+missing values dropped (and counted), phase-I control limits with logged removals, normality,
+the distribution model (normal, Box-Cox, Johnson or a fitted family), capability indices with
+confidence bounds, the verdict against the acceptance criterion, findings in plain words, the
+model-uncertainty band and the demonstration plan. :func:`analyze_study` does the same from a
+saved :class:`~studykit.study.Study` (its exclusions, settings and criteria), and
+:func:`analyze_all` runs every characteristic of a study.
+
+The workbook, the PDF, the JSON of ``studykit analyze`` and the phase-II hand-off all draw from
+the :class:`CharacteristicResult` built here, so they cannot disagree. Field names of the JSON are
+defined once, in :meth:`CharacteristicResult.to_dict`.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from studykit.errors import AnalysisError, StudyInputError, StudyWarning
+from studykit.stats import attribute as attribute_module
+from studykit.stats import capability as capability_module
+from studykit.stats import fit as fit_module
+from studykit.stats import normality as normality_module
+from studykit.stats import planning as planning_module
+from studykit.stats import transform as transform_module
+from studykit.stats.charts import ATTRIBUTE_KINDS, ControlChart, control_chart
+from studykit.stats.phase1 import Phase1Result, phase1
+
+__all__ = [
+    "AnalysisOptions",
+    "CharacteristicResult",
+    "StudyResult",
+    "analyze_characteristic",
+    "analyze_study",
+    "analyze_all",
+    "NORMALITY_ALPHA",
+    "SAFETY_CAUTION",
+]
+
+#: Significance level at which a model is taken as rejected by its Anderson-Darling test
+#: (common practice, no source).
+NORMALITY_ALPHA = 0.05
+
+#: AIC distance within which a model without an AD p-value still counts as supported.
+BAND_DELTA_AIC = 2.0
+
+#: The caution shown wherever a characteristic is marked safety-critical.
+SAFETY_CAUTION = (
+    "Safety-critical characteristic: these statistics support, but do not replace, product "
+    "validation. Customer requirements, local codes and licensed engineering practice govern "
+    "acceptance."
+)
+
+_CHART_ALIASES = {
+    "auto": "auto",
+    "xbar-r": "xbar_r",
+    "xbar_r": "xbar_r",
+    "xbar-s": "xbar_s",
+    "xbar_s": "xbar_s",
+    "imr": "imr",
+    "i-mr": "imr",
+    "p": "p",
+    "np": "np",
+    "c": "c",
+    "u": "u",
+}
+_TRANSFORMS = ("boxcox", "johnson")
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """How to analyse one characteristic. Every field has a documented default.
+
+    Attributes
+    ----------
+    chart : str
+        ``"auto"``, ``"xbar_r"``, ``"xbar_s"``, ``"imr"``, ``"p"``, ``"np"``, ``"c"``, ``"u"``
+        (``xbar-r`` style spellings accepted). ``None`` takes the characteristic's setting.
+    subgroup_size : int or None
+        Form subgroups of this many consecutive values (when the data have no subgroup column).
+    phase1 : {"auto", "off"}
+        ``"auto"`` removes subgroups that signal under ``removal_rules``, round by round;
+        ``"off"`` applies only the recorded manual exclusions.
+    rules : str
+        Run rules shown on the charts (default: the eight Nelson tests).
+    removal_rules : str
+        Rules that remove subgroups automatically in phase I (default: beyond the limits).
+    model : str or None
+        ``"auto"``, ``"normal"``, ``"boxcox"``, ``"johnson"`` or a family id of
+        :data:`studykit.stats.fit.FAMILIES`. ``None`` takes the characteristic's setting.
+    confidence : float
+        Level of the confidence bounds (default 0.95).
+    n_boot : int
+        Parametric bootstrap resamples for the bounds of a fitted non-normal model.
+    random_state : int
+        Seed of that bootstrap: the same study always gives the same numbers.
+    laney : {"auto", True, False}
+        Laney's adjustment for attribute charts (``"auto"`` only suggests it).
+    """
+
+    chart: str | None = None
+    subgroup_size: int | None = None
+    phase1: str = "auto"
+    rules: str = "nelson"
+    removal_rules: str = "limits_only"
+    model: str | None = None
+    confidence: float = 0.95
+    n_boot: int = 500
+    random_state: int = 0
+    laney: object = "auto"
+
+    def __post_init__(self):
+        if self.chart is not None:
+            key = str(self.chart).strip().lower()
+            if key not in _CHART_ALIASES:
+                raise StudyInputError(
+                    f"`chart` ({self.chart!r}) is not a chart we know; use one of "
+                    "auto, xbar-r, xbar-s, imr, p, np, c, u."
+                )
+            object.__setattr__(self, "chart", _CHART_ALIASES[key])
+        if self.phase1 not in ("auto", "off"):
+            raise StudyInputError(f"`phase1` ({self.phase1!r}) must be 'auto' or 'off'.")
+        if not 0.5 <= float(self.confidence) < 1:
+            raise StudyInputError(
+                f"`confidence` ({self.confidence!r}) must lie between 0.5 and 1, e.g. 0.95."
+            )
+        if self.model is not None:
+            model = str(self.model).strip().lower()
+            known = ("auto", "normal", *_TRANSFORMS, *fit_module.FAMILIES)
+            if model not in known:
+                raise StudyInputError(
+                    f"`model` ({self.model!r}) is not a model we know; use one of "
+                    + ", ".join(known)
+                    + "."
+                )
+            object.__setattr__(self, "model", model)
+        if self.subgroup_size is not None and (
+            isinstance(self.subgroup_size, bool) or int(self.subgroup_size) < 1
+        ):
+            raise StudyInputError(
+                f"`subgroup_size` ({self.subgroup_size!r}) must be a whole number of at least 1."
+            )
+
+
+def _f(v):
+    """JSON-safe float."""
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _label(v):
+    try:
+        return v.item()
+    except AttributeError:
+        return v
+
+
+@dataclass(frozen=True, eq=False)
+class ModelChoice:
+    """The distribution model the capability indices rest on, and why.
+
+    Attributes
+    ----------
+    name : str
+        ``"normal"``, ``"boxcox"``, ``"johnson"`` or a fitted family id.
+    label : str
+        Display name.
+    parameters : dict
+        Parameters of the model (lambda and shift for Box-Cox, the Johnson parameters, or the
+        fitted family's parameters).
+    reason : str
+        Why this model was used, in plain words.
+    fitted : FittedModel or None
+        The fitted family (non-normal families only).
+    transform : BoxCoxResult or JohnsonResult or None
+        The transformation (Box-Cox / Johnson only).
+    """
+
+    name: str
+    label: str
+    parameters: dict
+    reason: str
+    fitted: object = None
+    transform: object = None
+
+    def to_dict(self) -> dict:
+        return {
+            "name": self.name,
+            "label": self.label,
+            "parameters": {k: _f(v) for k, v in self.parameters.items()},
+            "reason": self.reason,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class CharacteristicResult:
+    """Everything studykit concludes about one characteristic. Immutable.
+
+    Attributes
+    ----------
+    characteristic, unit : str
+    spec : dict
+        lsl, usl, target, safety_critical as used.
+    attribute : bool
+        Counted data (p, np, c, u charts).
+    n : int
+        Values used after missing values and phase-I removals (attribute data: subgroups).
+    n_missing : int
+        Empty cells dropped before the analysis.
+    subgroups : int
+        Subgroups used.
+    subgroup_size : int or None
+        Nominal subgroup size (None when sizes vary).
+    mean, within_sigma, overall_sigma : float or None
+        Of the values used; overall_sigma is the sample standard deviation (n - 1).
+    values, labels : ndarray
+        The values used and the subgroup label of each.
+    phase1 : Phase1Result
+        Final chart, trial chart, removal log.
+    normality : dict or None
+        ``anderson_darling`` and ``shapiro_wilk`` results (variables data).
+    probability_plot : ProbabilityPlot or None
+    ranking : Ranking or None
+        Every fitted family, best first.
+    model : ModelChoice or None
+    capability : CapabilityResult or None
+    attribute_capability : AttributeCapability or DefectsPerUnit or None
+    verdict : Verdict or None
+    findings : tuple of Finding
+    model_band : ModelBand or None
+    plan : DemonstrationPlan or None
+    criteria : dict
+        index, threshold, basis, confidence.
+    warnings : tuple of str
+    cautions : tuple of str
+        The safety caution where the characteristic is safety-critical.
+    options : AnalysisOptions
+    """
+
+    characteristic: str
+    unit: str | None
+    spec: dict
+    attribute: bool
+    n: int
+    n_missing: int
+    subgroups: int
+    subgroup_size: int | None
+    mean: float | None
+    within_sigma: float | None
+    overall_sigma: float | None
+    values: np.ndarray
+    labels: np.ndarray
+    phase1: Phase1Result
+    criteria: dict
+    options: AnalysisOptions
+    normality: dict | None = None
+    probability_plot: object = None
+    ranking: object = None
+    model: ModelChoice | None = None
+    capability: object = None
+    attribute_capability: object = None
+    verdict: object = None
+    findings: tuple = ()
+    model_band: object = None
+    plan: object = None
+    warnings: tuple = ()
+    cautions: tuple = ()
+    times: dict = field(default_factory=dict)
+    notes: dict = field(default_factory=dict)
+
+    @property
+    def chart(self) -> ControlChart:
+        """The final phase-I chart."""
+        return self.phase1.chart
+
+    @property
+    def removed_subgroups(self) -> tuple:
+        return tuple(_label(r.label) for r in self.phase1.removals)
+
+    def headline(self) -> dict:
+        """The numbers an overview row shows: index, its lower bound, verdict, removals."""
+        index = self.criteria.get("index", "ppk")
+        estimate = lower = None
+        if self.verdict is not None:
+            estimate, lower = self.verdict.estimate, self.verdict.lower_bound
+        return {
+            "characteristic": self.characteristic,
+            "index": index,
+            "estimate": _f(estimate),
+            "lower_bound": _f(lower),
+            "meets": None if self.verdict is None else self.verdict.meets,
+            "verdict": None if self.verdict is None else self.verdict.text,
+            "removed": len(self.phase1.removals),
+            "model": None if self.model is None else self.model.name,
+            "warnings": len(self.warnings),
+        }
+
+    def to_dict(self) -> dict:
+        """The JSON of ``studykit analyze --json`` (every field documented in the README)."""
+        chart = self.phase1.chart
+        labels = chart.labels
+
+        def series(s):
+            if s is None:
+                return None
+            return {"center": _f(s.center[0]), "lcl": _f(s.lcl[0]), "ucl": _f(s.ucl[0])}
+
+        signals = []
+        for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
+            if s is None:
+                continue
+            for sig in s.signals:
+                signals.append(
+                    {
+                        "rule": sig.rule,
+                        "number": sig.number,
+                        "chart": part,
+                        "subgroups": [_label(labels[int(p)]) for p in sig.points],
+                        "text": sig.text,
+                    }
+                )
+        chart_d = {
+            "kind": chart.kind,
+            "reason": chart.reason,
+            "sigma_method": chart.sigma_method_text,
+            "location": series(chart.location),
+            "dispersion": series(chart.dispersion),
+            "signals": signals,
+        }
+        if self.attribute:
+            nominal = self.subgroup_size
+            loc = chart.location
+            if nominal is not None and np.allclose(chart.sizes, nominal):
+                chart_d["location"] = series(loc)
+            else:
+                # centre and limits of the nominal (median) subgroup size
+                center, lcl, ucl = _attribute_nominal(chart)
+                chart_d["location"] = {"center": center, "lcl": lcl, "ucl": ucl}
+            chart_d["limits"] = [
+                {
+                    "subgroup": _label(labels[i]),
+                    "size": _f(chart.sizes[i]),
+                    "center": _f(loc.center[i]),
+                    "lcl": _f(loc.lcl[i]),
+                    "ucl": _f(loc.ucl[i]),
+                }
+                for i in range(len(labels))
+            ]
+            if chart.overdispersion is not None:
+                chart_d["overdispersion"] = chart.overdispersion.to_dict()
+        out = {
+            "characteristic": self.characteristic,
+            "unit": self.unit,
+            "spec": dict(self.spec),
+            "n": self.n,
+            "n_missing": self.n_missing,
+            "subgroups": self.subgroups,
+            "subgroup_size": self.subgroup_size,
+            "mean": _f(self.mean),
+            "within_sigma": _f(self.within_sigma),
+            "overall_sigma": _f(self.overall_sigma),
+            "chart": chart_d,
+            "phase1": {
+                "removed_subgroups": list(self.removed_subgroups),
+                "iterations": self.phase1.iterations,
+                "stopped": self.phase1.stopped,
+                "removed_share": _f(self.phase1.removed_share),
+                "removals": [r.to_dict() for r in self.phase1.removals],
+            },
+            "normality": None,
+            "model": None if self.model is None else self.model.to_dict(),
+            "capability": None,
+            "verdict": None,
+            "criteria": dict(self.criteria),
+            "findings": [f.to_dict() for f in self.findings],
+            "model_band": None if self.model_band is None else self.model_band.to_dict(),
+            "plan": None if self.plan is None else self.plan.to_dict(),
+            "warnings": list(self.warnings),
+            "cautions": list(self.cautions),
+        }
+        if self.normality is not None:
+            ad, sw = self.normality["anderson_darling"], self.normality["shapiro_wilk"]
+            out["normality"] = {
+                "anderson_darling": {
+                    "statistic": _f(ad.a2),
+                    "adjusted_statistic": _f(ad.a2_star),
+                    "p_value": _f(ad.p_value),
+                },
+                "shapiro_wilk": {"statistic": _f(sw.w), "p_value": _f(sw.p_value)},
+            }
+        if self.capability is not None:
+            out["capability"] = self.capability.to_dict()
+        if self.verdict is not None:
+            v = self.verdict
+            out["verdict"] = {
+                "criterion": v.criterion,
+                "index": v.index,
+                "threshold": _f(v.threshold),
+                "basis": v.basis,
+                "estimate": _f(v.estimate),
+                "lower_bound": _f(v.lower_bound),
+                "level": _f(v.level),
+                "meets": v.meets,
+                "text": v.text,
+            }
+        if self.ranking is not None:
+            out["ranking"] = [row.to_dict() for row in self.ranking.rows]
+        ac = self.attribute_capability
+        if ac is not None:
+            out.update(ac.to_dict())
+        return out
+
+
+def _attribute_nominal(chart: ControlChart):
+    """Centre and limits at the median subgroup size (from the chart's per-subgroup arrays)."""
+    sizes = np.asarray(chart.sizes, dtype=float)
+    i = int(np.argmin(np.abs(sizes - np.median(sizes))))
+    loc = chart.location
+    return _f(loc.center[i]), _f(loc.lcl[i]), _f(loc.ucl[i])
+
+
+@dataclass(frozen=True, eq=False)
+class StudyResult:
+    """Every characteristic of a study, in the study's order.
+
+    Attributes
+    ----------
+    results : dict
+        name -> CharacteristicResult.
+    errors : dict
+        name -> message for characteristics that could not be analysed (never stops the batch).
+    digest : str
+        Content digest of the study analysed.
+    """
+
+    results: dict
+    errors: dict
+    digest: str = ""
+
+    def rows(self) -> list[dict]:
+        out = []
+        for res in self.results.values():
+            out.append(res.headline())
+        for name, msg in self.errors.items():
+            out.append({"characteristic": name, "error": msg})
+        return out
+
+
+# ----------------------------------------------------------------------------- the pipeline
+
+
+def _regroup(labels: np.ndarray, size: int) -> np.ndarray:
+    return (np.arange(labels.size) // size + 1).astype(str)
+
+
+def _df_within(chart: ControlChart) -> float | None:
+    """Effective degrees of freedom of the chart's within-sigma estimator."""
+    k, n = chart.n_subgroups, chart.subgroup_size
+    method = chart.sigma_method
+    try:
+        if method == "mrbar":
+            return capability_module.effective_df_moving_range(chart.n_values)
+        if n is None:
+            return None
+        if method == "rbar":
+            return capability_module.effective_df_range(k, n)
+        if method in ("sbar",):
+            return capability_module.effective_df_stdev(k, n)
+        if method == "pooled":
+            return float(chart.n_values - k)
+    except StudyInputError:
+        return None
+    return None
+
+
+def _criteria_dict(criteria) -> dict:
+    if criteria is None:
+        return {"index": "ppk", "threshold": 1.67, "basis": "lower_bound", "confidence": 0.95}
+    return {
+        "index": criteria.index,
+        "threshold": float(criteria.threshold),
+        "basis": criteria.basis,
+        "confidence": float(criteria.confidence),
+    }
+
+
+def _choose_model(x, requested: str, ad_normal, lsl, usl):
+    """Pick the distribution model; returns (ModelChoice, Ranking or None, notes)."""
+    ranking = None
+    notes: list[str] = []
+    positive = bool(np.all(x > 0))
+    need_ranking = requested not in ("normal", *_TRANSFORMS)
+    if need_ranking or requested == "auto":
+        ranking = fit_module.fit_all(x)
+    if requested == "auto":
+        if ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA:
+            return (
+                ModelChoice(
+                    "normal",
+                    "Normal",
+                    {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
+                    f"the normal model is not rejected (Anderson-Darling p = "
+                    f"{ad_normal.p_value:.3f} >= {NORMALITY_ALPHA}, common practice)",
+                ),
+                ranking,
+                notes,
+            )
+        best = None
+        for row in ranking.rows:
+            if row.id == "normal" or not row.converged or row.error:
+                continue
+            best = ranking.models.get(row.id)
+            if best is not None:
+                break
+        if best is None:
+            notes.append("no non-normal model could be fitted; the normal model is used")
+            return (
+                ModelChoice("normal", "Normal", {}, "fallback: no other model fitted"),
+                ranking,
+                notes,
+            )
+        return (
+            ModelChoice(
+                best.name,
+                best.family.label,
+                dict(best.parameters),
+                f"the normal model is rejected (Anderson-Darling p = {ad_normal.p_value:.3g}); "
+                f"{best.family.label} ranks best of the fitted models ({ranking.rule})",
+                fitted=best,
+            ),
+            ranking,
+            notes,
+        )
+    if requested == "normal":
+        return (
+            ModelChoice(
+                "normal",
+                "Normal",
+                {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
+                "chosen by the user",
+            ),
+            ranking,
+            notes,
+        )
+    if requested == "boxcox":
+        bc = transform_module.box_cox(x)
+        return (
+            ModelChoice(
+                "boxcox",
+                "Box-Cox transformed normal",
+                {"lambda": bc.lam_used, "shift": bc.shift},
+                "chosen by the user" + (f"; {bc.note}" if getattr(bc, "note", "") else ""),
+                transform=bc,
+            ),
+            ranking,
+            notes,
+        )
+    if requested == "johnson":
+        jr = transform_module.johnson(x)
+        params = {k: v for k, v in jr.to_dict().items() if isinstance(v, int | float)}
+        return (
+            ModelChoice(
+                "johnson",
+                f"Johnson {jr.kind}",
+                params,
+                "chosen by the user",
+                transform=jr,
+            ),
+            ranking,
+            notes,
+        )
+    model = ranking.models.get(requested)
+    if model is None:
+        row = next((r for r in ranking.rows if r.id == requested), None)
+        why = row.error if row is not None and row.error else "the fit did not converge"
+        raise AnalysisError(f"the model '{requested}' cannot be fitted to these data: {why}.")
+    if not positive and requested != "normal":
+        notes.append("the data contain values <= 0")
+    return (
+        ModelChoice(
+            model.name, model.family.label, dict(model.parameters), "chosen by the user",
+            fitted=model,
+        ),
+        ranking,
+        notes,
+    )
+
+
+def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice, *, lsl, usl,
+                            target, level, df_within):
+    """Normal-theory capability on the transformed scale (Box-Cox, Johnson)."""
+    t = choice.transform
+
+    def tr(v):
+        if v is None:
+            return None
+        out = np.asarray(t.transform(np.asarray([v], dtype=float)), dtype=float)[0]
+        if not math.isfinite(out):
+            raise AnalysisError(
+                f"the specification limit {v:g} lies outside the range of the {choice.label} "
+                "transformation; choose another model."
+            )
+        return float(out)
+
+    y = np.asarray(t.transform(x), dtype=float)
+    within = None
+    if chart.kind != "imr" and chart.subgroup_size is not None:
+        tchart = control_chart(y, labels, kind=chart.kind, evaluate=False)
+        within = tchart.within_sigma
+    result = capability_module.capability(
+        y,
+        lsl=tr(lsl),
+        usl=tr(usl),
+        target=tr(target),
+        within_sigma=within,
+        df_within=df_within if within is not None else None,
+        level=level,
+    )
+    return result
+
+
+def analyze_characteristic(
+    data,
+    spec=None,
+    *,
+    criteria=None,
+    sizes=None,
+    exclusions: Mapping | None = None,
+    options: AnalysisOptions | None = None,
+    gauge: Mapping | None = None,
+) -> CharacteristicResult:
+    """Run the capability study for one characteristic.
+
+    Parameters
+    ----------
+    data : studykit.data.CharacteristicData
+        The values in production order with their subgroup labels (attribute data: one count per
+        subgroup).
+    spec : studykit.study.Characteristic, optional
+        Limits, target, chart and model settings; without it only the stability part is done.
+    criteria : studykit.study.Criteria, optional
+        Acceptance criterion (default: Ppk lower 95% bound >= 1.67, common practice).
+    sizes : array_like or CharacteristicData, optional
+        Attribute data: subgroup sizes (items inspected or inspection units), one per count.
+    exclusions : mapping, optional
+        Manual exclusions ``{subgroup label: (reason, who)}`` applied before phase I.
+    options : AnalysisOptions, optional
+    gauge : mapping, optional
+        A stored gauge R&R result for this characteristic (its verdict is mentioned).
+
+    Returns
+    -------
+    CharacteristicResult
+
+    Notes
+    -----
+    Model choice ``"auto"``: the normal model unless its Anderson-Darling test rejects it at
+    :data:`NORMALITY_ALPHA`; then the best-ranked fitted family, with the ISO 22514-2
+    percentile method for the indices. Within sigma comes from the final phase-I chart
+    (R-bar/d2, S-bar/c4 or MR-bar/d2) with the effective degrees of freedom of that estimator.
+
+    Examples
+    --------
+    >>> from studykit.data import CharacteristicData
+    >>> from studykit.study import Characteristic
+    >>> x = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
+    >>> res = analyze_characteristic(CharacteristicData("x", None, x),
+    ...                              Characteristic("x", lsl=40, usl=60))
+    >>> res.chart.kind, res.n, round(res.mean, 2)
+    ('imr', 10, 50.81)
+    """
+    options = options or AnalysisOptions()
+    warn: list[str] = []
+    name = data.name
+    kind = options.chart or (spec.chart if spec is not None else "auto")
+    attribute = kind in ATTRIBUTE_KINDS
+    values = np.asarray(data.values, dtype=float)
+    labels = np.asarray(data.subgroups).astype(str)
+    size_arr = None
+    if sizes is not None:
+        size_arr = np.asarray(getattr(sizes, "values", sizes), dtype=float)
+        if size_arr.shape != values.shape:
+            raise StudyInputError(
+                f"the size column has {size_arr.size} entries but '{name}' has {values.size}; "
+                "give one lot size per count."
+            )
+    missing = np.isnan(values)
+    if size_arr is not None:
+        missing |= np.isnan(size_arr)
+    n_missing = int(missing.sum())
+    if n_missing:
+        warn.append(f"{n_missing} empty cell(s) left out of the analysis")
+    keep = ~missing
+    values, labels = values[keep], labels[keep]
+    if size_arr is not None:
+        size_arr = size_arr[keep]
+    subgroup_size = options.subgroup_size or (spec.subgroup_size if spec is not None else None)
+    if subgroup_size and not attribute and len(set(labels.tolist())) == labels.size:
+        labels = _regroup(labels, int(subgroup_size))
+    if attribute and kind in ("p", "np", "u") and size_arr is None:
+        raise StudyInputError(
+            f"the {kind} chart of '{name}' needs the subgroup sizes: name the column that holds "
+            "them (size column / --size-column)."
+        )
+    if values.size < 2:
+        raise AnalysisError(
+            f"'{name}' has {values.size} usable value(s); a study needs at least 2 (better 100 "
+            "or more)."
+        )
+
+    excl = {}
+    for label, why in (exclusions or {}).items():
+        excl[str(label)] = why
+    unknown = [k for k in excl if k not in set(labels.tolist())]
+    if unknown:
+        warn.append(
+            "recorded exclusion(s) for subgroup(s) not in the data: " + ", ".join(unknown)
+        )
+        excl = {k: v for k, v in excl.items() if k not in unknown}
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", StudyWarning)
+        p1 = phase1(
+            values,
+            labels,
+            kind=kind,
+            sizes=size_arr,
+            exclude=excl or None,
+            removal_rules=options.removal_rules,
+            max_iterations=10 if options.phase1 == "auto" else 0,
+            rules=options.rules,
+            **({"laney": options.laney} if attribute else {}),
+        )
+    for w in caught:
+        msg = str(w.message)
+        if msg not in warn:
+            warn.append(msg)
+    for msg in p1.warnings:
+        if msg not in warn:
+            warn.append(msg)
+    chart = p1.chart
+    removed = {str(_label(r.label)) for r in p1.removals}
+    kept_mask = np.array([lab not in removed for lab in labels.tolist()], dtype=bool)
+    x = values[kept_mask]
+    kept_labels = labels[kept_mask]
+
+    spec_d = {
+        "lsl": None if spec is None else spec.lsl,
+        "usl": None if spec is None else spec.usl,
+        "target": None if spec is None else spec.target,
+        "safety_critical": bool(spec is not None and spec.safety_critical),
+    }
+    crit = _criteria_dict(criteria)
+    level = float(options.confidence if criteria is None else crit["confidence"])
+    if options.confidence != 0.95 and criteria is not None:
+        level = float(options.confidence)
+    cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
+    unit = data.unit if data.unit else (spec.unit if spec is not None else None)
+
+    common = dict(
+        characteristic=name,
+        unit=unit,
+        spec=spec_d,
+        attribute=attribute,
+        n_missing=n_missing,
+        subgroups=int(chart.n_subgroups),
+        phase1=p1,
+        criteria=crit,
+        options=options,
+        cautions=cautions,
+    )
+
+    if attribute:
+        return _attribute_result(common, chart, x, size_arr[kept_mask] if size_arr is not None
+                                 else None, kept_labels, warn, level)
+
+    mean = float(np.mean(x))
+    overall = float(np.std(x, ddof=1)) if x.size > 1 else None
+    within = None if chart.within_sigma is None else float(chart.within_sigma)
+    result_kw = dict(
+        common,
+        n=int(x.size),
+        subgroup_size=chart.subgroup_size,
+        mean=mean,
+        within_sigma=within,
+        overall_sigma=overall,
+        values=x,
+        labels=kept_labels,
+    )
+    if x.size < 3 or overall is None or overall == 0:
+        if overall == 0:
+            warn.append(
+                "every value used is the same: the spread is zero, so no capability index can "
+                "be computed (check the gauge resolution)"
+            )
+        return CharacteristicResult(**result_kw, warnings=tuple(warn))
+
+    ad = normality_module.anderson_darling(x)
+    sw = normality_module.shapiro_wilk(x)
+    pplot = normality_module.probability_plot(x)
+    normality = {"anderson_darling": ad, "shapiro_wilk": sw}
+    result_kw.update(normality=normality, probability_plot=pplot)
+    if spec is None or (spec.lsl is None and spec.usl is None):
+        return CharacteristicResult(**result_kw, warnings=tuple(warn))
+
+    requested = options.model or spec.model or "auto"
+    choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
+    warn.extend(notes)
+    df_within = _df_within(chart)
+    if choice.transform is not None:
+        cap = _transformed_capability(
+            x, kept_labels, chart, choice, lsl=spec.lsl, usl=spec.usl, target=spec.target,
+            level=level, df_within=df_within,
+        )
+    else:
+        cap = capability_module.capability(
+            x,
+            lsl=spec.lsl,
+            usl=spec.usl,
+            target=spec.target,
+            within_sigma=within,
+            df_within=df_within,
+            model=choice.fitted,
+            level=level,
+            n_boot=options.n_boot,
+            random_state=options.random_state,
+        )
+    index = crit["index"]
+    judged_index = index
+    if getattr(cap, index) is None and index in ("cpk", "cp") and choice.fitted is not None:
+        judged_index = {"cpk": "ppk", "cp": "pp"}[index]
+        warn.append(
+            f"{index.capitalize()} is not defined for the fitted {choice.label} model; the "
+            f"verdict uses {judged_index.capitalize()} by the percentile method"
+        )
+    verdict = capability_module.judge(
+        cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"]
+    )
+    findings = list(
+        capability_module.diagnose(
+            cap,
+            n_subgroups=int(chart.n_subgroups) if chart.subgroup_size else None,
+            threshold=crit["threshold"],
+            index=judged_index,
+        )
+    )
+    if gauge is not None:
+        findings.append(_gauge_finding(gauge))
+    band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
+    plan = None
+    if verdict.estimate is not None and verdict.meets is False and judged_index in (
+        "cp", "cpk", "pp", "ppk"
+    ) and verdict.estimate > crit["threshold"]:
+        try:
+            plan = planning_module.parts_needed(
+                verdict.estimate, crit["threshold"], index=judged_index, level=level
+            )
+        except StudyInputError:
+            plan = None
+    return CharacteristicResult(
+        **result_kw,
+        ranking=ranking,
+        model=choice,
+        capability=cap,
+        verdict=verdict,
+        findings=tuple(findings),
+        model_band=band,
+        plan=plan,
+        warnings=tuple(warn),
+    )
+
+
+def _gauge_finding(gauge: Mapping):
+    Finding = capability_module.Finding
+    verdict = str(gauge.get("verdict_text") or gauge.get("verdict") or "")
+    acceptable = gauge.get("acceptable")
+    if acceptable is False:
+        text = "The gauge study for this characteristic did not pass: " + verdict
+        return Finding(code="gauge_failed", severity="warning", text=text)
+    return Finding(code="gauge_checked", severity="info",
+                   text="The gauge study for this characteristic: " + verdict)
+
+
+def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
+    """The judged index under every model the data do not reject (ISO 22514-2 percentiles).
+
+    A model counts as "not rejected" when its Anderson-Darling p-value is at least
+    :data:`NORMALITY_ALPHA`; a model for which no published p-value exists counts when its AIC
+    is within :data:`BAND_DELTA_AIC` of the best (Burnham & Anderson 2002, "Model Selection and
+    Multimodel Inference", section 2.6: Delta AIC <= 2 means substantial support; from memory).
+    """
+    if index not in ("pp", "ppk", "cp", "cpk") or ranking is None:
+        return None
+    key = {"cp": "pp", "cpk": "ppk"}.get(index, index)
+    values: dict[str, float] = {}
+    aics = [r.aic for r in ranking.rows if r.aic is not None and not r.error and r.converged]
+    best_aic = min(aics) if aics else None
+    if ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA:
+        normal = capability_module.capability(x, lsl=spec.lsl, usl=spec.usl, level=level)
+        if getattr(normal, key) is not None:
+            values["normal"] = float(getattr(normal, key))
+    for row in ranking.rows:
+        if row.id == "normal" or row.error or not row.converged:
+            continue
+        if row.ad_p_value is not None:
+            if row.ad_p_value < NORMALITY_ALPHA:
+                continue
+        elif best_aic is None or row.aic is None or row.aic - best_aic > BAND_DELTA_AIC:
+            continue
+        model = ranking.models.get(row.id)
+        if model is None:
+            continue
+        try:
+            indices, _ = capability_module._percentile_indices(model, spec.lsl, spec.usl)
+        except StudyInputError:
+            continue
+        v = indices.get(key)
+        if v is not None and math.isfinite(v):
+            values[row.id] = float(v)
+    if not values:
+        return None
+    return capability_module.model_band(values, threshold)
+
+
+def _attribute_result(common, chart, counts, sizes, labels, warn, level):
+    kind = chart.kind
+    if kind in ("p", "np"):
+        ac = attribute_module.attribute_capability(counts, sizes, level=level)
+    else:
+        units = sizes if sizes is not None else np.ones_like(counts)
+        ac = attribute_module.defects_per_unit(counts, units, level=level)
+    nominal = None
+    if sizes is not None and np.allclose(sizes, sizes[0]):
+        nominal = int(sizes[0]) if float(sizes[0]).is_integer() else None
+    return CharacteristicResult(
+        **common,
+        n=int(counts.size),
+        subgroup_size=nominal,
+        mean=float(chart.center_value),
+        within_sigma=None,
+        overall_sigma=None,
+        values=np.asarray(counts, dtype=float),
+        labels=labels,
+        attribute_capability=ac,
+        warnings=tuple(warn),
+    )
+
+
+# ----------------------------------------------------------------------------- studies
+
+
+def _exclusions(study, name) -> dict:
+    return {
+        label: (d.reason, d.who or ("auto" if d.automatic else "user"))
+        for label, d in study.excluded_subgroups(name).items()
+    }
+
+
+def read_study_measurements(study, **read_options):
+    """The study's stored data copy read as Measurements."""
+    from studykit.data import read_measurements_bytes
+
+    return read_measurements_bytes(study.data, study.data_filename, **read_options)
+
+
+def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptions | None = None,
+                  gauge: Mapping | None = None) -> CharacteristicResult:
+    """Analyse characteristic ``name`` of a saved study with its recorded decisions.
+
+    The chart and model settings recorded in the study (``set_chart``, ``set_model``) apply
+    unless ``options`` names others; manual exclusions are applied with their reasons.
+    """
+    spec = study.characteristic(name)
+    measurements = measurements or read_study_measurements(study)
+    data = measurements.get(name)
+    sizes = measurements.get(spec.size_column) if spec.size_column else None
+    options = options or AnalysisOptions()
+    chart = options.chart or study.chart_for(name)
+    model = options.model or study.model_for(name)
+    options = replace(options, chart=chart, model=model)
+    return analyze_characteristic(
+        data,
+        spec,
+        criteria=study.criteria_for(name),
+        sizes=sizes,
+        exclusions=_exclusions(study, name),
+        options=options,
+        gauge=gauge,
+    )
+
+
+def analyze_all(study, *, measurements=None, options: AnalysisOptions | None = None,
+                progress: Callable[[int, int, str], None] | None = None,
+                gauges: Mapping | None = None) -> StudyResult:
+    """Analyse every characteristic of ``study``; one failure never stops the others.
+
+    ``progress(done, total, name)`` is called after each characteristic.
+    """
+    measurements = measurements or read_study_measurements(study)
+    names = study.characteristic_names
+    results, errors = {}, {}
+    for i, name in enumerate(names):
+        try:
+            results[name] = analyze_study(
+                study, name, measurements=measurements, options=options,
+                gauge=(gauges or {}).get(name),
+            )
+        except StudyInputError as exc:
+            errors[name] = str(exc)
+        if progress is not None:
+            progress(i + 1, len(names), name)
+    return StudyResult(results=results, errors=errors, digest=study.content_digest())

@@ -1,0 +1,276 @@
+"""``studykit analyze``: the capability study of one characteristic (or all) in the terminal."""
+
+from __future__ import annotations
+
+import json
+import sys
+
+from studykit.errors import StudyInputError
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "analyze",
+        help="stability, shape and capability of a characteristic",
+        description=(
+            "Run the capability study of one characteristic: phase-I control limits with "
+            "logged removals, normality, the distribution model, capability indices with "
+            "confidence bounds and the verdict. Give a data FILE, or --study for a saved study "
+            "(its specs, exclusions and settings apply)."
+        ),
+    )
+    p.add_argument("file", nargs="?", help="measurement file (CSV or XLSX)")
+    p.add_argument("--study", metavar="STUDYFILE", help="a saved study file instead of FILE")
+    p.add_argument("--characteristic", "-c", metavar="NAME", help="characteristic to analyse")
+    p.add_argument("--all", action="store_true", help="analyse every characteristic")
+    p.add_argument("--specs", metavar="SPECS", help="specs table (CSV/XLSX) for --all")
+    p.add_argument("--out", metavar="SUMMARY", help="with --all: write the summary (.csv/.xlsx)")
+    p.add_argument("--sheet", help="XLSX sheet name")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--subgroup-size", type=int, metavar="N", help="subgroups of N values")
+    g.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
+    p.add_argument(
+        "--chart",
+        choices=["auto", "xbar-r", "xbar-s", "imr", "p", "np", "c", "u"],
+        help="chart kind (default: auto, from the subgroup size)",
+    )
+    p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
+    p.add_argument("--phase1", choices=["auto", "off"], default="auto",
+                   help="remove out-of-control subgroups automatically (default auto)")
+    p.add_argument("--rules", default="nelson",
+                   help="run rules shown: nelson, western_electric, limits_only or a list "
+                   "such as 1,2,5 (default nelson)")
+    p.add_argument("--lsl", type=float, help="lower specification limit")
+    p.add_argument("--usl", type=float, help="upper specification limit")
+    p.add_argument("--target", type=float, help="target (nominal) value")
+    p.add_argument("--model", help="auto, normal, boxcox, johnson or a family id (default auto)")
+    p.add_argument("--confidence", type=float, default=0.95,
+                   help="confidence level of the bounds (default 0.95)")
+    p.add_argument("--index", choices=["cp", "cpk", "pp", "ppk", "cpm"],
+                   help="acceptance index (default ppk)")
+    p.add_argument("--threshold", type=float, help="acceptance threshold (default 1.67)")
+    p.add_argument("--basis", choices=["lower_bound", "estimate"],
+                   help="judge the lower bound (default) or the estimate")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--jobs", type=int, default=None, help="--all: worker processes")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="--all: run on a Dask cluster at ADDRESS (optional backend)")
+    p.set_defaults(func=run)
+
+
+def _options(args):
+    from studykit.analysis import AnalysisOptions
+
+    return AnalysisOptions(
+        chart=args.chart,
+        subgroup_size=args.subgroup_size,
+        phase1=args.phase1,
+        rules=args.rules,
+        model=args.model,
+        confidence=args.confidence,
+    )
+
+
+def _criteria(args, base=None):
+    from studykit.study import Criteria
+
+    if args.index is None and args.threshold is None and args.basis is None:
+        return base
+    base = base or Criteria()
+    return Criteria(
+        index=args.index or base.index,
+        threshold=args.threshold if args.threshold is not None else base.threshold,
+        basis=args.basis or base.basis,
+        confidence=args.confidence,
+    )
+
+
+def _spec(args, name, unit, base=None):
+    from studykit.study import Characteristic
+
+    if base is not None and args.lsl is None and args.usl is None and args.target is None:
+        return base
+    if args.lsl is None and args.usl is None and args.chart not in ("p", "np", "c", "u"):
+        if base is not None:
+            return base
+        return None
+    lsl = args.lsl if args.lsl is not None else (base.lsl if base is not None else None)
+    usl = args.usl if args.usl is not None else (base.usl if base is not None else None)
+    target = args.target if args.target is not None else (base.target if base else None)
+    return Characteristic(
+        name,
+        unit=unit,
+        lsl=lsl,
+        usl=usl,
+        target=target,
+        chart=(args.chart or "auto").replace("-", "_"),
+        safety_critical=bool(base.safety_critical) if base is not None else False,
+        size_column=args.size_column,
+    )
+
+
+def run(args) -> int:
+    if args.all:
+        from studykit.cli.batch import run_batch
+
+        return run_batch(args)
+    if not args.characteristic:
+        raise StudyInputError("name the characteristic with --characteristic NAME (or use --all)")
+    result = analyze_from_args(args, args.characteristic)
+    if args.json:
+        json.dump(result.to_dict(), sys.stdout, indent=2)
+        sys.stdout.write("\n")
+    else:
+        sys.stdout.write(format_result(result))
+    return 0
+
+
+def analyze_from_args(args, name):
+    """One characteristic from a FILE or a --study, with the command-line overrides."""
+    from studykit.analysis import analyze_characteristic, analyze_study, read_study_measurements
+
+    options = _options(args)
+    if args.study:
+        from studykit.store import StudyFile
+
+        study = StudyFile(args.study).load()
+        if name not in study.characteristic_names:
+            raise StudyInputError(
+                f"the study has no characteristic '{name}' (it has: "
+                + ", ".join(study.characteristic_names)
+                + ")"
+            )
+        base = study.characteristic(name)
+        spec = _spec(args, name, base.unit, base)
+        if spec is not base or _criteria(args) is not None:
+            measurements = read_study_measurements(study)
+            from dataclasses import replace
+
+            if args.size_column is None and base.size_column:
+                args.size_column = base.size_column
+            data = measurements.get(name)
+            sizes = measurements.get(args.size_column) if args.size_column else None
+            from studykit.analysis import _exclusions
+
+            options = replace(options, chart=options.chart or study.chart_for(name),
+                              model=options.model or study.model_for(name))
+            return analyze_characteristic(
+                data, spec, criteria=_criteria(args, study.criteria_for(name)), sizes=sizes,
+                exclusions=_exclusions(study, name), options=options,
+            )
+        return analyze_study(study, name, options=options)
+    if not args.file:
+        raise StudyInputError("give a measurement FILE or --study STUDYFILE")
+    from studykit.data import read_measurements
+
+    read_kw = {}
+    if args.subgroup_column:
+        read_kw["subgroup_column"] = args.subgroup_column
+    if args.sheet:
+        read_kw["sheet"] = args.sheet
+    m = read_measurements(args.file, **read_kw)
+    data = m.get(name)
+    sizes = m.get(args.size_column) if args.size_column else None
+    spec = _spec(args, name, data.unit)
+    return analyze_characteristic(
+        data, spec, criteria=_criteria(args), sizes=sizes, options=options
+    )
+
+
+def _fmt(v, digits=4):
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return f"{v:.{digits}g}"
+    return str(v)
+
+
+_PRETTY = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+
+
+def format_result(res) -> str:
+    """A plain terminal report of one characteristic."""
+    d = res.to_dict()
+    lines = []
+    unit = f" [{res.unit}]" if res.unit else ""
+    lines.append(f"{res.characteristic}{unit}")
+    lines.append("=" * len(lines[0]))
+    spec = d["spec"]
+    lines.append(
+        f"spec: LSL {_fmt(spec['lsl'])}  USL {_fmt(spec['usl'])}  target {_fmt(spec['target'])}"
+    )
+    for c in d["cautions"]:
+        lines.append(f"CAUTION: {c}")
+    ch = d["chart"]
+    lines.append(
+        f"chart: {ch['kind']} ({ch['reason']}); n = {d['n']} values in {d['subgroups']} "
+        f"subgroups; missing {d['n_missing']}"
+    )
+    loc = ch["location"]
+    lines.append(
+        f"  location: centre {_fmt(loc['center'], 6)}  LCL {_fmt(loc['lcl'], 6)}  "
+        f"UCL {_fmt(loc['ucl'], 6)}"
+    )
+    if ch["dispersion"]:
+        disp = ch["dispersion"]
+        lines.append(
+            f"  dispersion: centre {_fmt(disp['center'], 6)}  LCL {_fmt(disp['lcl'], 6)}  "
+            f"UCL {_fmt(disp['ucl'], 6)}"
+        )
+    lines.append(
+        f"  mean {_fmt(d['mean'], 6)}  within sigma {_fmt(d['within_sigma'], 5)}  "
+        f"overall sigma {_fmt(d['overall_sigma'], 5)}"
+    )
+    p1 = d["phase1"]
+    if p1["removals"]:
+        lines.append(f"phase I: {len(p1['removals'])} subgroup(s) removed")
+        for r in p1["removals"]:
+            lines.append(f"  - subgroup {r['label']} ({r['who']}, round {r['iteration']}): "
+                         f"{r['reason']}")
+    else:
+        lines.append("phase I: no subgroup removed")
+    if ch["signals"]:
+        lines.append(f"signals on the final chart ({len(ch['signals'])}):")
+        for s in ch["signals"][:12]:
+            lines.append(f"  - [{s['chart']}] {s['text']}")
+    if d["normality"]:
+        ad, sw = d["normality"]["anderson_darling"], d["normality"]["shapiro_wilk"]
+        lines.append(
+            f"normality: Anderson-Darling A2 {_fmt(ad['statistic'])} (p {_fmt(ad['p_value'], 3)}); "
+            f"Shapiro-Wilk W {_fmt(sw['statistic'])} (p {_fmt(sw['p_value'], 3)})"
+        )
+    if d["model"]:
+        lines.append(f"model: {d['model']['label']} - {d['model']['reason']}")
+    cap = d["capability"]
+    if cap:
+        level = cap["level"]
+        lines.append(f"capability ({cap['method']} method; lower bounds at {level:.0%}):")
+        for key in ("cp", "cpk", "pp", "ppk", "cpm"):
+            if cap.get(key) is None:
+                continue
+            lb = cap["bounds"].get(key, {}).get("lower_bound")
+            lines.append(f"  {_PRETTY[key]:5s} "
+                         f"{cap[key]:8.3f}   lower bound {_fmt(lb, 4)}")
+        lines.append(
+            f"  PPM expected within {_fmt(cap['ppm_within'], 4)}, overall "
+            f"{_fmt(cap['ppm_overall'], 4)}; observed {_fmt(cap['ppm_observed'], 4)}"
+        )
+    if "defective_rate" in d:
+        lines.append(
+            f"defective rate {d['defective_rate']:.5f} (upper bound "
+            f"{_fmt(d.get('defective_rate_upper_95'), 4)}), PPM {_fmt(d['ppm_defective'], 5)}, "
+            f"process Z {_fmt(d['z_process'], 4)}"
+        )
+    if d["verdict"]:
+        mark = {True: "MEETS", False: "DOES NOT MEET", None: "NOT JUDGED"}[d["verdict"]["meets"]]
+        lines.append(f"verdict: {mark} {d['verdict']['criterion']}")
+        lines.append(f"  {d['verdict']['text']}")
+    for f in d["findings"]:
+        lines.append(f"  * {f['text']}")
+    if d["model_band"] and d["model_band"].get("warning"):
+        lines.append(f"model band: {d['model_band']['warning']}")
+    if d["plan"]:
+        lines.append(f"planning: {d['plan']['text']}")
+    for w in d["warnings"]:
+        lines.append(f"warning: {w}")
+    return "\n".join(lines) + "\n"
