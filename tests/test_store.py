@@ -294,3 +294,34 @@ def test_file_and_memory_agree(study_path):
     assert on_file.characteristics == memory.characteristics
     assert [d.to_dict() | {"when": ""} for d in on_file.decisions] == \
         [d.to_dict() | {"when": ""} for d in memory.decisions]
+
+
+_EXCLUDER = r"""
+import sys
+from studykit.errors import StudyFileError
+from studykit.store import StudyFile
+sf = StudyFile(sys.argv[1])
+for k in range(1, 5000):
+    try:
+        sf.exclude("bore", k, reason="race test", who="excluder")
+    except StudyFileError as exc:
+        print("refused", "locked" in str(exc), flush=True)
+        break
+    print(k, flush=True)
+"""
+
+
+def test_approval_racing_a_writer_covers_exactly_what_was_saved(study_path, repo_root):
+    writer = subprocess.Popen([sys.executable, "-c", _EXCLUDER, str(study_path)], cwd=repo_root,
+                              stdout=subprocess.PIPE, text=True)
+    first = writer.stdout.readline()  # the writer is under way
+    assert first.strip() == "1"
+    signed = StudyFile(study_path).add_signoff("M. Brandt", role="approved", decision="approve")
+    out = first + writer.communicate(timeout=60)[0]
+    lines = out.split("\n")
+    committed = [int(x) for x in lines if x.strip().isdigit()]
+    assert "refused True" in lines  # the writer hit the lock ...
+    study = StudyFile(study_path).load()
+    assert study.is_locked  # ... and the approval still holds,
+    assert len(study.decisions) == len(committed)  # covering every saved exclusion
+    assert signed.digest == study.content_digest()
