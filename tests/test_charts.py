@@ -361,10 +361,19 @@ def test_signals_come_from_the_rules_module_with_documented_defaults():
     ch = charts.control_chart(x)
     loc = ch.location
     expect = rules.evaluate(
-        loc.points, center=loc.center, sigma=loc.sigma, lcl=loc.lcl, ucl=loc.ucl, rules="nelson",
-        labels=list(ch.labels),
+        loc.points, center=loc.center, sigma=loc.sigma, lcl=loc.lcl, ucl=loc.ucl, rules="nelson"
     )  # fmt: skip
     assert loc.signals == expect and loc.rules == "nelson"
     assert ch.dispersion.rules == charts.DISPERSION_RULES == "1,2"
     assert {s.number for s in ch.dispersion.signals} <= {1, 2}
     assert any(s.rule == "run" for s in loc.signals)  # the shifted half runs above the centre
+
+
+def test_signal_texts_use_subgroup_labels():
+    x = np.array([10.0, 10.2, 9.9, 10.1, 10.0, 9.8, 14.0, 10.1, 10.2, 9.9, 10.0, 10.1])
+    ch = charts.control_chart(x, [f"lot{i}" for i in range(12)], rules="limits_only")
+    # lot6 beyond the individuals limits; the moving ranges into and out of it (lot6, lot7)
+    # exceed the MR limit.
+    assert ch.signalling_labels == ("lot6", "lot7")
+    assert [ch.labels[i] for i in ch.location.signalling] == ["lot6"]
+    assert "lot6" in ch.location.signals[0].text

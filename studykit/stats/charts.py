@@ -120,15 +120,27 @@ def evaluate_series(series_points, *, center, sigma, lcl, ucl, rules, labels=Non
     >>> [s.trigger for s in sig]
     [1]
     """
+    levels = [_scalar_if_constant(a) for a in (center, sigma, lcl, ucl)]
     return rules_module.evaluate(
         np.asarray(series_points, dtype=float),
-        center=center,
-        sigma=sigma,
-        lcl=lcl,
-        ucl=ucl,
+        center=levels[0],
+        sigma=levels[1],
+        lcl=levels[2],
+        ucl=levels[3],
         rules=rules,
         labels=None if labels is None else list(labels),
     )
+
+
+def _scalar_if_constant(a):
+    """A per-point array whose values are all equal is passed on as one number (faster)."""
+    arr = np.asarray(a, dtype=float)
+    if arr.ndim == 0 or arr.size == 0:
+        return arr
+    first = arr.flat[0]
+    if np.all(arr == first):
+        return float(first)
+    return arr
 
 
 # --------------------------------------------------------------------------- results
@@ -661,6 +673,7 @@ def control_chart(
     mu = _check_finite(mu, name="mu")
     sigma = _check_positive(sigma, name="sigma")
     codes, labels, sizes_arr = _group(x, subgroups)
+    sig_labels = None if subgroups is None else labels  # None: the rules number points 1, 2...
     k = sizes_arr.size
     notes: list[str] = []
     if kind == "auto":
@@ -733,7 +746,7 @@ def control_chart(
             floor_zero=False,
             rules=rules,
             evaluate=evaluate,
-            labels=labels,
+            labels=sig_labels,
         )
         mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
         if method == "mrbar":
@@ -749,7 +762,7 @@ def control_chart(
             floor_zero=True,
             rules=dispersion_rules,
             evaluate=evaluate,
-            labels=labels,
+            labels=sig_labels,
         )
     else:
         root_n = np.sqrt(sizes_arr)
@@ -761,7 +774,7 @@ def control_chart(
             floor_zero=False,
             rules=rules,
             evaluate=evaluate,
-            labels=labels,
+            labels=sig_labels,
         )
         if kind == "xbar_r":
             if method == "rbar" and equal:
@@ -778,7 +791,7 @@ def control_chart(
                 floor_zero=True,
                 rules=dispersion_rules,
                 evaluate=evaluate,
-                labels=labels,
+                labels=sig_labels,
             )
         else:
             c4s = _per_size(c4, sizes_arr)
@@ -796,7 +809,7 @@ def control_chart(
                 floor_zero=True,
                 rules=dispersion_rules,
                 evaluate=evaluate,
-                labels=labels,
+                labels=sig_labels,
             )
     return ControlChart(
         kind=kind,
@@ -973,7 +986,7 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         floor_zero=True,
         rules=rules,
         evaluate=evaluate,
-        labels=labels_t,
+        labels=None if labels is None else labels_t,
     )
     method = "laney" if applied else ("binomial" if binomial else "poisson")
     equal = bool(np.all(n == n[0]))
