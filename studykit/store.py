@@ -49,6 +49,7 @@ __all__ = [
     "AuditEntry",
     "StoredResult",
     "StudyFile",
+    "load_study",
 ]
 
 #: PRAGMA application_id of a study file ("SKST" in ASCII)
@@ -655,3 +656,10 @@ class StudyFile:
         with self._read() as conn:
             return "; ".join(r[0] for r in conn.execute("PRAGMA integrity_check"))
 
+
+def load_study(path: str | os.PathLike) -> Study:
+    """Open a study file and return its current :class:`~studykit.study.Study`.
+
+    Shorthand for ``StudyFile(path).load()``; raises :class:`StudyFileError` like it.
+    """
+    return StudyFile(path).load()

@@ -325,3 +325,9 @@ def test_approval_racing_a_writer_covers_exactly_what_was_saved(study_path, repo
     assert study.is_locked  # ... and the approval still holds,
     assert len(study.decisions) == len(committed)  # covering every saved exclusion
     assert signed.digest == study.content_digest()
+
+
+def test_load_study_shorthand(study_path):
+    from studykit.store import load_study
+
+    assert load_study(study_path) == StudyFile(study_path).load()
