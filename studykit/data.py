@@ -33,8 +33,9 @@ import io
 import math
 import re
 import zipfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -59,7 +60,7 @@ LARGE_SUBGROUP = 25
 #: limit unless ``max_bytes`` is given.
 DEFAULT_MAX_BYTES = 100 * 1024 * 1024
 
-_CHUNK_ROWS = 100_000
+_CHUNK_ROWS = 50_000
 _XLSX_CHUNK_ROWS = 20_000
 _SAMPLE_BYTES = 64 * 1024
 _READ_BLOCK = 1 << 20
@@ -152,6 +153,10 @@ def _show(value) -> str:
     return text if len(text) <= 40 else text[:37] + "..."
 
 
+def _row_word(n: int) -> str:
+    return "row" if n == 1 else "rows"
+
+
 def _fmt_rows(rows, limit: int = 5) -> str:
     rows = [int(r) for r in rows]
     shown = ", ".join(str(r) for r in rows[:limit])
@@ -181,6 +186,10 @@ def _json_float(x) -> float | None:
 class CharacteristicData:
     """The values of one characteristic as read from a file.
 
+    Only `name`, `unit` and `values` are required; the other fields are derived when left out
+    (individuals labelled ``'1'..'n'``, rows ``2..n+1``), so tests and other modules can build
+    one directly.
+
     Attributes
     ----------
     name : str
@@ -194,33 +203,75 @@ class CharacteristicData:
         position ``'1'..'n'``; subgrouping by a fixed size gives ``'1', '1', ..., '2', ...``.
     times : ndarray or None
         ``datetime64[ns]`` when every time cell could be read as a date/time, otherwise the
-        cell text; ``None`` when the file has no time column.
+        cell text (object array); ``None`` when the file has no time column.
     notes : ndarray of str or None
-        Note cell text ('' where empty); ``None`` when the file has no note column.
+        Note cell text, object array ('' where empty); ``None`` without a note column.
     rows : ndarray of int
         Spreadsheet row number of each value (the header is row 1).
     n_missing : int
         Number of empty cells (NaN values).
-    subgroup_sizes : dict
-        Subgroup label -> number of non-missing values, in order of first appearance.
     is_integer : bool
         Every non-missing value is a whole number (counts, lot sizes).
+    subgroup_labels : ndarray of str
+        Distinct subgroup labels in order of first appearance.
+    subgroup_counts : ndarray of int
+        Non-missing values per label of `subgroup_labels`.
+    subgroup_sizes : dict (property)
+        Subgroup label -> number of non-missing values, in order of first appearance.
     """
 
     name: str
     unit: str | None
     values: np.ndarray
-    subgroups: np.ndarray
-    times: np.ndarray | None
-    notes: np.ndarray | None
-    rows: np.ndarray
-    n_missing: int
-    subgroup_sizes: dict
-    is_integer: bool
+    subgroups: np.ndarray | None = None
+    times: np.ndarray | None = None
+    notes: np.ndarray | None = None
+    rows: np.ndarray | None = None
+    n_missing: int | None = None
+    is_integer: bool | None = None
+    subgroup_labels: np.ndarray | None = None
+    subgroup_counts: np.ndarray | None = None
 
     def __post_init__(self):
-        for key in ("values", "subgroups", "times", "notes", "rows"):
-            object.__setattr__(self, key, _frozen_array(getattr(self, key)))
+        put = object.__setattr__
+        values = np.asarray(self.values, dtype=float)
+        put(self, "values", values)
+        n = values.size
+        missing = np.isnan(values)
+        if self.subgroups is None:
+            put(self, "subgroups", (np.arange(n) + 1).astype(str))
+        elif np.asarray(self.subgroups).dtype.kind not in "UO":
+            put(self, "subgroups", np.asarray(self.subgroups).astype(str))
+        if self.rows is None:
+            put(self, "rows", np.arange(2, n + 2, dtype=np.int64))
+        for key in ("subgroups", "rows", "times", "notes"):
+            a = getattr(self, key)
+            if a is not None and len(a) != n:
+                raise StudyInputError(
+                    f"`{key}` has {len(a)} entries but `values` has {n}; they must match.",
+                    column=self.name,
+                )
+        if self.n_missing is None:
+            put(self, "n_missing", int(missing.sum()))
+        if self.is_integer is None:
+            valid = values[~missing]
+            put(self, "is_integer", bool(valid.size and np.all(np.floor(valid) == valid)))
+        if self.subgroup_labels is None or self.subgroup_counts is None:
+            import pandas as pd
+
+            codes, uniq = pd.factorize(np.asarray(self.subgroups), sort=False)
+            counts = np.bincount(codes, weights=(~missing).astype(float), minlength=len(uniq))
+            put(self, "subgroup_labels", np.asarray(uniq).astype(str))
+            put(self, "subgroup_counts", counts.astype(np.int64))
+        for key in ("values", "subgroups", "times", "notes", "rows", "subgroup_labels",
+                    "subgroup_counts"):
+            put(self, key, _frozen_array(getattr(self, key)))
+
+    @cached_property
+    def subgroup_sizes(self) -> dict:
+        """Subgroup label -> number of non-missing values, in order of first appearance."""
+        return dict(zip(self.subgroup_labels.tolist(), self.subgroup_counts.tolist(),
+                        strict=True))
 
     @property
     def n(self) -> int:
@@ -234,7 +285,7 @@ class CharacteristicData:
 
     @property
     def n_subgroups(self) -> int:
-        return len(self.subgroup_sizes)
+        return int(self.subgroup_labels.size)
 
     @property
     def label(self) -> str:
@@ -250,23 +301,20 @@ class CharacteristicData:
 
         Call this before a subgrouped analysis (X-bar/R, X-bar/S, within-subgroup sigma).
         """
-        filled = [k for k, v in self.subgroup_sizes.items() if v > 0]
-        if len(filled) < min_subgroups:
+        filled = int(np.count_nonzero(self.subgroup_counts))
+        if filled < min_subgroups:
             raise DataFileError(
-                f"'{self.name}' has values in {len(filled)} subgroup(s), but at least "
+                f"'{self.name}' has values in {filled} subgroup(s), but at least "
                 f"{min_subgroups} are needed for a subgrouped analysis. Add a subgroup column "
                 "that groups the parts (e.g. one subgroup per production hour), give a subgroup "
                 "size, or analyse the values as individuals.",
-                file=source, column=self.name, value=len(filled),
+                file=source, column=self.name, value=filled,
             )
 
     def summary(self) -> dict:
         """Compact JSON-safe description (no values)."""
         valid = self.valid_values()
-        sizes = list(self.subgroup_sizes.values())
-        size_counts: dict[str, int] = {}
-        for s in sizes:
-            size_counts[str(s)] = size_counts.get(str(s), 0) + 1
+        sizes, counts = np.unique(self.subgroup_counts, return_counts=True)
         return {
             "name": self.name,
             "unit": self.unit,
@@ -274,9 +322,10 @@ class CharacteristicData:
             "n_valid": self.n_valid,
             "n_missing": int(self.n_missing),
             "n_subgroups": self.n_subgroups,
-            "subgroup_size_min": int(min(sizes)) if sizes else None,
-            "subgroup_size_max": int(max(sizes)) if sizes else None,
-            "subgroup_size_counts": size_counts,
+            "subgroup_size_min": int(sizes[0]) if sizes.size else None,
+            "subgroup_size_max": int(sizes[-1]) if sizes.size else None,
+            "subgroup_size_counts": {str(s): int(k) for s, k in zip(sizes.tolist(),
+                                                                     counts.tolist(), strict=True)},
             "min": _json_float(valid.min()) if valid.size else None,
             "max": _json_float(valid.max()) if valid.size else None,
             "mean": _json_float(valid.mean()) if valid.size else None,
@@ -724,12 +773,15 @@ def _raise_binary(src: _Source, offset) -> None:
 class _Table:
     header: list            # header cell texts (stripped)
     header_row: int         # spreadsheet row number of the header
-    chunks: Iterator        # yields (rows: int ndarray, columns: list of object ndarrays)
+    open_chunks: Callable   # () -> iterator of (rows: int ndarray, columns: list of arrays)
     separator: str | None = None
     decimal: str | None = None
     text_cells: bool = True  # every cell is a str (CSV); XLSX cells are python values
     merged_fill: dict = field(default_factory=dict)  # column index -> list of (r1, r2)
     sheet: str | None = None
+    # (float column indices) -> iterator like open_chunks, with those columns already float
+    fast_chunks: Callable | None = None
+    close: Callable = lambda: None
 
 
 def _sample_lines(src: _Source) -> list[str]:
@@ -809,8 +861,41 @@ def _open_csv(src: _Source) -> _Table:
         finally:
             handle.close()
 
-    return _Table(header=header, header_row=header_index + 1, chunks=chunks(), separator=sep,
-                  decimal=decimal, text_cells=True)
+    def fast_chunks(float_cols):
+        """Numbers parsed by pandas' C reader; any doubt raises _Fallback."""
+        width = len(header)
+        handle = src.binary()
+        try:
+            reader = pd.read_csv(
+                handle, sep=sep, header=None, skiprows=header_index + 1, names=list(range(width)),
+                dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
+                decimal=decimal, keep_default_na=False, na_values=[""], na_filter=True,
+                skip_blank_lines=False, chunksize=_CHUNK_ROWS, encoding=src.encoding,
+                quotechar='"', engine="c", encoding_errors="strict",
+            )
+            start = header_index + 2
+            for frame in reader:
+                if frame.shape[1] != width or not frame.index.equals(
+                        pd.RangeIndex(start - header_index - 2,
+                                      start - header_index - 2 + len(frame))):
+                    raise _Fallback
+                cols = []
+                for j in range(width):
+                    if j in float_cols:
+                        cols.append(np.array(frame[j], dtype=np.float64))
+                    else:
+                        cols.append(frame[j].fillna("").to_numpy(dtype=object))
+                rows = np.arange(start, start + len(frame), dtype=np.int64)
+                start += len(frame)
+                yield rows, cols
+        except (ValueError, TypeError, OverflowError, pd.errors.ParserError,
+                UnicodeDecodeError):
+            raise _Fallback from None
+        finally:
+            handle.close()
+
+    return _Table(header=header, header_row=header_index + 1, open_chunks=chunks,
+                  fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True)
 
 
 def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFileError:
@@ -840,12 +925,18 @@ def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFi
 def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     import openpyxl
 
+    handle = src.binary()
     try:
-        wb = openpyxl.load_workbook(
-            src.path if src.path is not None else io.BytesIO(src.data),
-            read_only=True, data_only=True,
-        )
+        wb = openpyxl.load_workbook(handle, read_only=True, data_only=True)
+        wb_close = wb.close
+
+        def _close():
+            wb_close()
+            handle.close()
+
+        wb.close = _close
     except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as exc:
+        handle.close()
         raise DataFileError(
             f"the workbook cannot be opened ({type(exc).__name__}: {_show(exc)}). It may be "
             "damaged or protected with a password. Open it in the spreadsheet program and save "
@@ -855,6 +946,7 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     names = list(wb.sheetnames)
     if sheet is None:
         if not names:
+            wb.close()
             raise DataFileError("the workbook has no worksheets.", file=src.name)
         sheet_name = names[0]
         if len(names) > 1:
@@ -867,6 +959,7 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
             n for n in names if n.strip().casefold() == str(sheet).strip().casefold()
         ]
         if not matches:
+            wb.close()
             raise DataFileError(
                 f"the workbook has no sheet named '{sheet}'. Its sheets are: "
                 + ", ".join(f"'{n}'" for n in names) + ". Give one of these names.",
@@ -880,10 +973,9 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
         notes.append("the file is an Excel workbook despite its name; read it as .xlsx")
 
     merged = _merged_ranges(wb, ws)
-    rows_iter = ws.iter_rows(values_only=True)
     header = None
     header_row = 0
-    for r, values in enumerate(rows_iter, start=1):
+    for r, values in enumerate(ws.iter_rows(values_only=True), start=1):
         if values and any(v is not None and str(v).strip() != "" for v in values):
             header = [("" if v is None else _cell_text(v)) for v in values]
             header_row = r
@@ -916,42 +1008,39 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     width = len(header)
 
     def chunks():
-        try:
-            rows_buf: list[int] = []
-            cols_buf: list[list] = [[] for _ in range(width)]
-            r = header_row
-            for values in rows_iter:
-                r += 1
-                rows_buf.append(r)
-                nv = len(values)
-                for j in range(width):
-                    v = values[j] if j < nv else None
-                    if v is None:
-                        v = ""
-                    elif isinstance(v, str):
-                        v = v.strip()
-                    cols_buf[j].append(v)
-                if nv > width:
-                    for j in range(width, nv):
-                        v = values[j]
-                        if v is not None and str(v).strip() != "":
-                            raise DataFileError(
-                                f"there is a value ('{_show(v)}') in column "
-                                f"{_col_letter(j)}, which has no name in the header row. "
-                                "Give the column a name in the header or delete the value.",
-                                file=src.name, row=r, column=_col_letter(j), value=v,
-                            )
-                if len(rows_buf) >= _XLSX_CHUNK_ROWS:
-                    yield _xlsx_chunk(rows_buf, cols_buf)
-                    rows_buf = []
-                    cols_buf = [[] for _ in range(width)]
-            if rows_buf:
+        rows_buf: list[int] = []
+        cols_buf: list[list] = [[] for _ in range(width)]
+        r = header_row
+        for values in ws.iter_rows(min_row=header_row + 1, values_only=True):
+            r += 1
+            rows_buf.append(r)
+            nv = len(values)
+            for j in range(width):
+                v = values[j] if j < nv else None
+                if v is None:
+                    v = ""
+                elif isinstance(v, str):
+                    v = v.strip()
+                cols_buf[j].append(v)
+            if nv > width:
+                for j in range(width, nv):
+                    v = values[j]
+                    if v is not None and str(v).strip() != "":
+                        raise DataFileError(
+                            f"there is a value ('{_show(v)}') in column "
+                            f"{_col_letter(j)}, which has no name in the header row. "
+                            "Give the column a name in the header or delete the value.",
+                            file=src.name, row=r, column=_col_letter(j), value=v,
+                        )
+            if len(rows_buf) >= _XLSX_CHUNK_ROWS:
                 yield _xlsx_chunk(rows_buf, cols_buf)
-        finally:
-            wb.close()
+                rows_buf = []
+                cols_buf = [[] for _ in range(width)]
+        if rows_buf:
+            yield _xlsx_chunk(rows_buf, cols_buf)
 
-    return _Table(header=header, header_row=header_row, chunks=chunks(), text_cells=False,
-                  merged_fill=fill, sheet=sheet_name)
+    return _Table(header=header, header_row=header_row, open_chunks=chunks, text_cells=False,
+                  merged_fill=fill, sheet=sheet_name, close=wb.close)
 
 
 def _xlsx_chunk(rows_buf, cols_buf):
@@ -1043,6 +1132,11 @@ def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
     import pandas as pd
 
     n = len(cells)
+    if cells.dtype.kind == "f":  # already parsed by the fast reader
+        empty = np.isnan(cells)
+        if np.isinf(cells).any():
+            raise _Fallback
+        return cells, empty
     if ctx.text_cells:
         s = pd.Series(cells, dtype=object).str.strip()
         empty = (s == "").to_numpy(dtype=bool)
@@ -1128,6 +1222,8 @@ def _labels(cells: np.ndarray, text_cells: bool) -> np.ndarray:
 
 
 def _filled(cells: np.ndarray, text_cells: bool) -> np.ndarray:
+    if cells.dtype.kind == "f":
+        return ~np.isnan(cells)
     if text_cells:
         import pandas as pd
 
@@ -1204,6 +1300,18 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
             f"text table: {sep_name}-separated, decimal sign '{table.decimal}', "
             f"encoding {src.encoding_label}"
         )
+    try:
+        return _read_table(src, table, notes, warnings_, layout=layout,
+                           subgroup_column=subgroup_column, subgroup_size=subgroup_size,
+                           characteristic_column=characteristic_column,
+                           value_column=value_column, time_column=time_column,
+                           note_column=note_column)
+    finally:
+        table.close()
+
+
+def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgroup_size,
+                characteristic_column, value_column, time_column, note_column):
     header = table.header
     hrow = table.header_row
 
@@ -1319,8 +1427,8 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
         result = _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
                                 notes, warnings_)
     else:
-        result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
-                                subgroup_size, notes, warnings_)
+        result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
+                                n_idx, subgroup_size, notes, warnings_)
     characteristics, n_rows = result
     for col, k in ctx.text_numbers.items():
         notes.append(
@@ -1386,64 +1494,144 @@ class _Acc:
         return out
 
 
+class _LabelAcc:
+    """Text labels of many rows kept as integer codes into one list of distinct labels, so a
+    label repeated on many rows is stored once."""
+
+    def __init__(self):
+        self.index: dict[str, int] = {}
+        self.codes = _Acc()
+
+    def add(self, labels: np.ndarray) -> None:
+        import pandas as pd
+
+        local, uniq = pd.factorize(labels, sort=False)
+        mapping = np.array([self.index.setdefault(u, len(self.index)) for u in uniq],
+                           dtype=np.int64)
+        self.codes.add(mapping[local].astype(np.int32) if mapping.size else local.astype(np.int32))
+
+    def labels(self) -> np.ndarray:
+        labels = np.empty(len(self.index), dtype=object)
+        labels[:] = list(self.index)
+        return labels
+
+    def result_codes(self) -> np.ndarray:
+        return self.codes.result(np.int32)
+
+    def result(self) -> np.ndarray:
+        return self.labels()[self.result_codes()]
+
+
+class _TimeAcc:
+    """Time cells, converted chunk by chunk to datetime64 while one format fits."""
+
+    def __init__(self):
+        self.parts: list[np.ndarray] = []
+        self.fmt: str | None = None
+        self.as_text = False
+
+    def add(self, cells: np.ndarray) -> None:
+        if not self.as_text:
+            parsed, fmt = _times_chunk(cells, self.fmt)
+            if parsed is not None:
+                self.fmt = fmt or self.fmt
+                self.parts.append(parsed)
+                return
+            self.as_text = True
+            self.parts = [_times_text(p) for p in self.parts]
+        self.parts.append(_times_text(cells))
+
+    def result(self, notes: list) -> np.ndarray:
+        if self.as_text:
+            notes.append("times kept as text: not all time cells could be read as one "
+                         "date/time format (e.g. 2025-03-01 08:00 or 01.03.2025 08:00)")
+            out = np.concatenate(self.parts) if self.parts else np.empty(0, dtype=object)
+            return out
+        if not self.parts:
+            return np.empty(0, dtype="datetime64[ns]")
+        return np.concatenate(self.parts)
+
+
+class _Fallback(Exception):
+    """The fast CSV path met something it cannot judge; read again cell by cell."""
+
+
+def _with_fast_path(table, float_cols, collect):
+    if table.fast_chunks is not None and float_cols:
+        try:
+            return collect(table.fast_chunks(float_cols))
+        except (_Fallback, DataFileError):
+            pass  # the cell-by-cell reader below finds the cell and says what is wrong
+    return collect(table.open_chunks())
+
+
+def _classify(table, ctx, role, notes) -> dict:
+    header = table.header
+    gen = table.open_chunks()
+    try:
+        first = next(gen, None)
+    finally:
+        gen.close()
+    kinds: dict[int, str] = {}
+    cols = first[1] if first is not None else []
+    for j in range(max(len(cols), len(header))):
+        if j >= len(header) or not header[j]:
+            kinds[j] = "unnamed"
+        elif j in role:
+            kinds[j] = role[j]
+        elif j >= len(cols):
+            kinds[j] = "value"
+        else:
+            n_filled, n_num = _looks_numeric(ctx, cols[j])
+            kinds[j] = "value" if n_num * 2 >= n_filled else "text"
+    text_cols = [header[j] for j, k in kinds.items() if k == "text"]
+    if text_cols:
+        notes.append(
+            "columns holding text, not read as measurements: "
+            + ", ".join(f"'{h}'" for h in text_cols)
+        )
+    return kinds
+
+
 def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
     header = table.header
-    kinds: dict[int, str] | None = None  # column -> 'value' | 'text' | 'empty' | role
-    rows_acc = _Acc()
-    filled_acc = _Acc()
-    value_acc: dict[int, _Acc] = {}
-    sg_acc, t_acc, n_acc = _Acc(), _Acc(), _Acc()
-    for rows, cols in table.chunks:
-        if kinds is None:
-            kinds = {}
-            for j, cells in enumerate(cols):
-                if j >= len(header) or not header[j]:
-                    kinds[j] = "unnamed"
-                elif j in role:
-                    kinds[j] = role[j]
-                else:
-                    n_filled, n_num = _looks_numeric(ctx, cells)
-                    if n_filled == 0:
-                        kinds[j] = "value"
-                    elif n_num * 2 >= n_filled:
-                        kinds[j] = "value"
-                    else:
-                        kinds[j] = "text"
-            for j in range(len(cols), len(header)):
-                kinds[j] = "absent"
-            for j, k in kinds.items():
-                if k == "value":
-                    value_acc[j] = _Acc()
-            text_cols = [header[j] for j, k in kinds.items() if k == "text"]
-            if text_cols:
-                notes.append(
-                    "columns holding text, not read as measurements: "
-                    + ", ".join(f"'{h}'" for h in text_cols)
-                )
-        row_filled = np.zeros(len(rows), dtype=bool)
-        for j, cells in enumerate(cols):
-            k = kinds.get(j, "unnamed")
-            if k == "unnamed":
-                _check_unnamed(src, header, table.header_row, j, cells, rows, table.text_cells)
-                continue
-            if k == "value":
-                vals, empty = _numeric(ctx, cells, rows, header[j])
-                value_acc[j].add(vals)
-                row_filled |= ~empty
-            else:
-                row_filled |= _filled(cells, table.text_cells)
-                if k == "subgroup":
-                    sg_acc.add(_labels(cells, table.text_cells))
-                elif k == "time":
-                    t_acc.add(cells.copy())
-                elif k == "note":
-                    n_acc.add(_labels(cells, table.text_cells))
-        rows_acc.add(rows)
-        filled_acc.add(row_filled)
+    kinds = _classify(table, ctx, role, notes)
+    float_cols = {j for j, k in kinds.items() if k == "value"}
 
+    def collect(chunks):
+        rows_acc = _Acc()
+        filled_acc = _Acc()
+        value_acc = {j: _Acc() for j in float_cols}
+        sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(), _LabelAcc()
+        for rows, cols in chunks:
+            row_filled = np.zeros(len(rows), dtype=bool)
+            for j, cells in enumerate(cols):
+                k = kinds.get(j, "unnamed")
+                if k == "unnamed":
+                    _check_unnamed(src, header, table.header_row, j, cells, rows,
+                                   table.text_cells)
+                    continue
+                if k == "value":
+                    vals, empty = _numeric(ctx, cells, rows, header[j])
+                    value_acc[j].add(vals)
+                    row_filled |= ~empty
+                else:
+                    row_filled |= _filled(cells, table.text_cells)
+                    if k == "subgroup":
+                        sg_acc.add(_labels(cells, table.text_cells))
+                    elif k == "time":
+                        t_acc.add(cells)
+                    elif k == "note":
+                        n_acc.add(_labels(cells, table.text_cells))
+            rows_acc.add(rows)
+            filled_acc.add(row_filled)
+        return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
+
+    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _with_fast_path(
+        table, float_cols, collect)
     rows = rows_acc.result(np.int64)
     filled = filled_acc.result(bool)
-    if kinds is None or not filled.any():
+    if not filled.any():
         raise DataFileError(
             "the file has a header but no values below it. Add the measurements, one row per "
             "part, under the column names.",
@@ -1454,22 +1642,30 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
     filled = filled[:last]
     rows = rows[:last]
     interior_empty = np.flatnonzero(~filled)
-    sg = sg_acc.result(object)[:last] if sg_idx is not None else None
+    sg = sg_acc.result_codes()[:last] if sg_idx is not None else None
+    empty_code = sg_acc.index.get("", -1)
     if sg is not None:
-        sg = _fill_merged(sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx])
+        sg = _fill_merged(sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx],
+                          empty_code)
     if interior_empty.size:
         if sg is not None:
             keep[interior_empty] = False
-            notes.append(f"empty rows skipped: {_fmt_rows(rows[interior_empty])}")
+            notes.append(f"empty {_row_word(interior_empty.size)} skipped: "
+                         f"{_fmt_rows(rows[interior_empty])}")
         else:
             notes.append(
                 "empty rows kept as missing values (they may be parts that were not measured): "
                 + _fmt_rows(rows[interior_empty])
             )
-    rows = rows[keep]
+    all_kept = bool(keep.all())
+
+    def kept(a):
+        return a if all_kept else a[keep]
+
+    rows = kept(rows)
     if sg is not None:
-        sg = sg[keep]
-        no_label = np.flatnonzero(sg == "")
+        sg = kept(sg)
+        no_label = np.flatnonzero(sg == empty_code)
         if no_label.size:
             i = int(no_label[0])
             raise DataFileError(
@@ -1478,27 +1674,39 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
                 "Fill in the labels, or leave out the subgroup column to read individuals.",
                 file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
             )
-        subgroups = sg.astype(str)
-    elif subgroup_size is not None:
-        subgroups = (np.arange(rows.size) // subgroup_size + 1).astype(str)
+        label_text = sg_acc.labels().astype(str)
+        codes = sg
+
+        def labels_of(u):
+            return label_text[u]
+
+        subgroups = label_text[codes]
     else:
-        subgroups = (np.arange(rows.size) + 1).astype(str)
-    times = _parse_times(t_acc.result(object)[:last][keep], notes) if t_idx is not None else None
-    note_arr = n_acc.result(object)[:last][keep].astype(str) if n_idx is not None else None
+        codes = np.arange(rows.size) // (subgroup_size or 1)
+
+        def labels_of(u):
+            return (u + 1).astype(str)
+
+        subgroups = labels_of(codes)
+    times = kept(t_acc.result(notes)[:last]) if t_idx is not None else None
+    note_arr = kept(n_acc.result()[:last]) if n_idx is not None else None
     for a in (rows, subgroups, times, note_arr):
         if a is not None:
             a.flags.writeable = False
 
+    grouping = _grouping(codes, labels_of)
+    del codes
+    sg_acc.index.clear()
     characteristics = []
     empty_cols = []
     for j, acc in value_acc.items():
-        vals = acc.result(float)[:last][keep]
+        vals = kept(acc.result(float)[:last])
         name, unit = parse_header(header[j])
         if np.isnan(vals).all():
             empty_cols.append(header[j])
             continue
-        characteristics.append(_make_char(name, unit, vals, subgroups, times, note_arr, rows,
-                                          warnings_))
+        characteristics.append(_make_char(name, unit, vals, subgroups, grouping, times,
+                                          note_arr, rows, warnings_))
     if empty_cols:
         notes.append("empty columns skipped: " + ", ".join(f"'{h}'" for h in empty_cols))
     if not characteristics:
@@ -1511,40 +1719,53 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
     return characteristics, int(rows.size)
 
 
-def _fill_merged(sg, rows, ranges, notes, colname):
-    if not len(ranges):
-        return sg
-    sg = sg.copy()
-    pos = {int(r): i for i, r in enumerate(rows)}
+def _fill_merged(codes, rows, ranges, notes, colname, empty_code):
+    """Give rows inside a vertically merged subgroup cell the label of its top cell."""
+    if not len(ranges) or empty_code < 0:
+        return codes
+    codes = codes.copy()
+    pos = {int(r): i for i, r in enumerate(rows)} if len(ranges) else {}
     filled_any = False
     for r1, r2 in ranges:
         top = pos.get(r1)
-        if top is None or sg[top] == "":
+        if top is None or codes[top] == empty_code:
             continue
         for r in range(r1 + 1, r2 + 1):
             i = pos.get(r)
-            if i is not None and sg[i] == "":
-                sg[i] = sg[top]
+            if i is not None and codes[i] == empty_code:
+                codes[i] = codes[top]
                 filled_any = True
     if filled_any:
         notes.append(f"merged cells in column '{colname}': each label applied to all its rows")
-    return sg
+    return codes
 
 
-def _make_char(name, unit, vals, subgroups, times, notes_arr, rows, warnings_):
-    missing = np.isnan(vals)
-    valid = vals[~missing]
-    is_int = bool(valid.size and np.all(np.floor(valid) == valid))
+def _grouping(codes, labels_of):
+    """(codes 0..k-1 in order of first appearance, the k labels as str array)."""
     import pandas as pd
 
-    codes, uniques = pd.factorize(subgroups, sort=False)
-    counts = np.bincount(codes, weights=(~missing).astype(float), minlength=len(uniques))
-    sizes = {str(u): int(c) for u, c in zip(uniques, counts, strict=True)}
+    codes = np.asarray(codes)
+    if codes.size:
+        # codes that already run 0, 1, 2, ... in order of first appearance need no factorizing
+        running_max = np.maximum.accumulate(codes)
+        if codes[0] == 0 and np.all(codes[1:] <= running_max[:-1] + 1):
+            k = int(running_max[-1]) + 1
+            return codes, np.asarray(labels_of(np.arange(k))).astype(str)
+    local, uniq = pd.factorize(codes, sort=False)
+    return local, np.asarray(labels_of(np.asarray(uniq))).astype(str)
+
+
+def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, warnings_):
+    """Build one CharacteristicData; `grouping` comes from :func:`_grouping`."""
+    local, group_labels = grouping
+    missing = np.isnan(vals)
+    valid = vals[~missing]
+    counts = np.bincount(local, weights=(~missing).astype(float), minlength=len(group_labels))
     n_missing = int(missing.sum())
     if n_missing:
         warnings_.append(
-            f"'{name}': {n_missing} empty cell(s) (rows {_fmt_rows(rows[missing])}); the "
-            "analysis leaves them out"
+            f"'{name}': {n_missing} empty cell(s) ({_row_word(n_missing)} "
+            f"{_fmt_rows(rows[missing])}); the analysis leaves them out"
         )
     if valid.size == 1:
         warnings_.append(
@@ -1559,7 +1780,10 @@ def _make_char(name, unit, vals, subgroups, times, notes_arr, rows, warnings_):
         )
     return CharacteristicData(
         name=name, unit=unit, values=vals, subgroups=subgroups, times=times, notes=notes_arr,
-        rows=rows, n_missing=n_missing, subgroup_sizes=sizes, is_integer=is_int,
+        rows=rows, n_missing=n_missing,
+        is_integer=bool(valid.size and np.all(np.floor(valid) == valid)),
+        subgroup_labels=group_labels,
+        subgroup_counts=counts.astype(np.int64),
     )
 
 
@@ -1568,7 +1792,7 @@ def _subgroup_messages(chars, subgroup_source, notes, warnings_):
         return
     groups: dict[tuple, list[str]] = {}
     for c in chars:
-        sizes = np.fromiter(c.subgroup_sizes.values(), dtype=np.int64)
+        sizes = c.subgroup_counts
         filled = sizes[sizes > 0]
         msgs = []
         if filled.size < 2:
@@ -1592,7 +1816,7 @@ def _subgroup_messages(chars, subgroup_source, notes, warnings_):
         sg = c.subgroups
         if sg.size > 1:
             changes = int(np.count_nonzero(sg[1:] != sg[:-1])) + 1
-            if changes > len(c.subgroup_sizes):
+            if changes > c.n_subgroups:
                 msgs.append((
                     "warn",
                     "some subgroup labels appear in separate blocks of rows; rows of one "
@@ -1613,8 +1837,8 @@ _TIME_FORMATS = (
 )
 
 
-def _parse_times(cells: np.ndarray, notes: list) -> np.ndarray:
-    """datetime64[ns] if every filled cell is a date/time in one format, else the text."""
+def _times_chunk(cells: np.ndarray, fmt: str | None):
+    """(datetime64[ns] array, format) when every filled cell is a date/time, else (None, None)."""
     import pandas as pd
 
     n = len(cells)
@@ -1624,79 +1848,79 @@ def _parse_times(cells: np.ndarray, notes: list) -> np.ndarray:
         out = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
         if is_dt.any():
             out[is_dt] = np.array([np.datetime64(v) for v in cells[is_dt]], dtype="datetime64[ns]")
-        return out
-    text = np.asarray([_cell_text(v) if not isinstance(v, str) else v.strip() for v in cells],
-                      dtype=object)
+        return out, fmt
+    if (is_dt & ~is_empty).any():
+        return None, None
+    text = pd.Series(cells, dtype=object).str.strip()
     filled = text != ""
-    sample = pd.Series(text[filled][:500])
-    for fmt in _TIME_FORMATS:
+    candidates = [fmt] if fmt else list(_TIME_FORMATS)
+    sample = text[filled][:500]
+    for f in candidates:
         try:
-            pd.to_datetime(sample, format=fmt)
+            pd.to_datetime(sample, format=f)
+            parsed = pd.to_datetime(text.where(filled, None), format=f)
         except (ValueError, TypeError):
             continue
-        try:
-            parsed = pd.to_datetime(pd.Series(text).where(filled, None), format=fmt)
-        except (ValueError, TypeError):
-            break
-        return parsed.to_numpy(dtype="datetime64[ns]")
-    notes.append("times kept as text: not all time cells could be read as one date/time format")
-    return text.astype(str)
+        return np.array(parsed, dtype="datetime64[ns]"), f
+    return None, None
+
+
+def _times_text(cells: np.ndarray) -> np.ndarray:
+    out = np.empty(len(cells), dtype=object)
+    if cells.dtype.kind == "M":
+        out[:] = [_time_text(t) or "" for t in cells]
+    else:
+        out[:] = [v.strip() if isinstance(v, str) else _cell_text(v) for v in cells]
+    return out
 
 
 def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
                    subgroup_size, notes, warnings_):
     header = table.header
-    codes_of: dict[str, int] = {}
-    code_acc, val_acc, rows_acc, filled_acc = _Acc(), _Acc(), _Acc(), _Acc()
-    sg_acc, t_acc, n_acc, unit_acc = _Acc(), _Acc(), _Acc(), _Acc()
     unit_idx = next((j for j, r in role.items() if r == "unit"), None)
-    ignored_noted = False
-    for rows, cols in table.chunks:
-        if not ignored_noted:
-            others = [header[j] for j in range(min(len(cols), len(header)))
-                      if header[j] and j not in role]
-            if others:
-                notes.append("columns not used in the long layout: "
-                             + ", ".join(f"'{h}'" for h in others))
-            ignored_noted = True
-        for j in range(len(cols)):
-            if j >= len(header) or not header[j]:
-                _check_unnamed(src, header, table.header_row, j, cols[j], rows, table.text_cells)
-        names = _labels(cols[char_idx], table.text_cells)
-        vals, empty = _numeric(ctx, cols[value_idx], rows, header[value_idx])
-        row_filled = ~empty | (names != "")
-        extra = [sg_idx, t_idx, n_idx, unit_idx]
-        for j in extra:
-            if j is not None and j < len(cols):
-                row_filled |= _filled(cols[j], table.text_cells)
-        bad = row_filled & (names == "")
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise DataFileError(
-                f"this row has no characteristic name in column '{header[char_idx]}'. Every "
-                "row of a long table names the characteristic its value belongs to.",
-                file=src.name, row=int(rows[i]), column=header[char_idx], value="",
-            )
-        codes = np.full(len(rows), -1, dtype=np.int64)
-        for i in np.flatnonzero(row_filled):
-            nm = names[i]
-            k = codes_of.get(nm)
-            if k is None:
-                k = codes_of[nm] = len(codes_of)
-            codes[i] = k
-        code_acc.add(codes)
-        val_acc.add(vals)
-        rows_acc.add(rows)
-        filled_acc.add(row_filled)
-        if sg_idx is not None:
-            sg_acc.add(_labels(cols[sg_idx], table.text_cells))
-        if t_idx is not None:
-            t_acc.add(cols[t_idx].copy())
-        if n_idx is not None:
-            n_acc.add(_labels(cols[n_idx], table.text_cells))
-        if unit_idx is not None:
-            unit_acc.add(_labels(cols[unit_idx], table.text_cells))
+    others = [h for j, h in enumerate(header) if h and j not in role]
+    if others:
+        notes.append("columns not used in the long layout: "
+                     + ", ".join(f"'{h}'" for h in others))
 
+    def collect(chunks):
+        name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), _Acc(), _Acc(), _Acc()
+        sg_acc, t_acc, n_acc, unit_acc = _LabelAcc(), _TimeAcc(), _LabelAcc(), _LabelAcc()
+        for rows, cols in chunks:
+            for j in range(len(cols)):
+                if j >= len(header) or not header[j]:
+                    _check_unnamed(src, header, table.header_row, j, cols[j], rows,
+                                   table.text_cells)
+            names = _labels(cols[char_idx], table.text_cells)
+            vals, empty = _numeric(ctx, cols[value_idx], rows, header[value_idx])
+            row_filled = ~empty | (names != "")
+            for j in (sg_idx, t_idx, n_idx, unit_idx):
+                if j is not None and j < len(cols):
+                    row_filled |= _filled(cols[j], table.text_cells)
+            bad = row_filled & (names == "")
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise DataFileError(
+                    f"this row has no characteristic name in column '{header[char_idx]}'. "
+                    "Every row of a long table names the characteristic its value belongs to.",
+                    file=src.name, row=int(rows[i]), column=header[char_idx], value="",
+                )
+            name_acc.add(names)
+            val_acc.add(vals)
+            rows_acc.add(rows)
+            filled_acc.add(row_filled)
+            if sg_idx is not None:
+                sg_acc.add(_labels(cols[sg_idx], table.text_cells))
+            if t_idx is not None:
+                t_acc.add(cols[t_idx])
+            if n_idx is not None:
+                n_acc.add(_labels(cols[n_idx], table.text_cells))
+            if unit_idx is not None:
+                unit_acc.add(_labels(cols[unit_idx], table.text_cells))
+        return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
+
+    name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc = _with_fast_path(
+        table, {value_idx}, collect)
     filled = filled_acc.result(bool)
     if not filled.any():
         raise DataFileError(
@@ -1711,12 +1935,16 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
         notes.append(f"empty rows skipped: {_fmt_rows(rows[interior])}")
     keep = filled.copy()
     rows = rows[keep]
-    codes = code_acc.result(np.int64)[keep]
+    codes = name_acc.result_codes()[keep]
+    name_labels = name_acc.labels()
+    # drop the code of the empty name (only on rows that are not kept) and renumber
+    present, codes = np.unique(codes, return_inverse=True)
+    codes_of = {str(name_labels[c]): k for k, c in enumerate(present)}
     vals = val_acc.result(float)[keep]
-    sg = sg_acc.result(object)[keep] if sg_idx is not None else None
+    sg = sg_acc.result_codes()[keep] if sg_idx is not None else None
+    label_text = sg_acc.labels().astype(str)
     if sg is not None:
-        sg = _fill_merged(sg, rows, (), notes, header[sg_idx])
-        no_label = np.flatnonzero(sg == "")
+        no_label = np.flatnonzero(sg == sg_acc.index.get("", -1))
         if no_label.size:
             i = int(no_label[0])
             raise DataFileError(
@@ -1725,9 +1953,9 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
                 "subgroup column to read individuals.",
                 file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
             )
-    times_all = _parse_times(t_acc.result(object)[keep], notes) if t_idx is not None else None
-    notes_all = n_acc.result(object)[keep].astype(str) if n_idx is not None else None
-    units_all = unit_acc.result(object)[keep] if unit_idx is not None else None
+    times_all = t_acc.result(notes)[keep] if t_idx is not None else None
+    notes_all = n_acc.result()[keep] if n_idx is not None else None
+    units_all = unit_acc.result()[keep] if unit_idx is not None else None
 
     order = np.argsort(codes, kind="stable")
     bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(codes_of)))])
@@ -1759,13 +1987,18 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
         cvals = vals[idx]
         crows = rows[idx]
         if sg is not None:
-            csg = sg[idx].astype(str)
-        elif subgroup_size is not None:
-            csg = (np.arange(idx.size) // subgroup_size + 1).astype(str)
+            ccodes = sg[idx]
+
+            def labels_of(u):
+                return label_text[u]
         else:
-            csg = (np.arange(idx.size) + 1).astype(str)
+            ccodes = np.arange(idx.size) // (subgroup_size or 1)
+
+            def labels_of(u):
+                return (u + 1).astype(str)
+
         characteristics.append(_make_char(
-            name, unit, cvals, csg,
+            name, unit, cvals, labels_of(ccodes), _grouping(ccodes, labels_of),
             times_all[idx] if times_all is not None else None,
             notes_all[idx] if notes_all is not None else None,
             crows, warnings_,
