@@ -377,3 +377,8 @@ def test_signal_texts_use_subgroup_labels():
     assert ch.signalling_labels == ("lot6", "lot7")
     assert [ch.labels[i] for i in ch.location.signalling] == ["lot6"]
     assert "lot6" in ch.location.signals[0].text
+
+
+def test_few_subgroups_note():
+    assert any("only 10 subgroups" in w for w in charts.control_chart(NIST_IMR).warnings)
+    assert charts.control_chart(NIST_IMR, mu=50.0, sigma=1.0).warnings == ()

@@ -64,6 +64,8 @@ VARIABLE_KINDS = ("xbar_r", "xbar_s", "imr")
 ATTRIBUTE_KINDS = ("p", "np", "c", "u")
 #: Largest subgroup size for which ``kind="auto"`` picks X-bar/R (common practice, no source).
 AUTO_R_MAX_SIZE = 8
+#: Fewer subgroups than this add a caution to ``ControlChart.warnings`` (no Python warning).
+FEW_SUBGROUPS = 20
 #: Default rules on the dispersion chart: Nelson 1 (beyond limits) and 2 (nine on one side).
 DISPERSION_RULES = "1,2"
 #: Laney suggestion thresholds (common practice, no source): sigma_z outside [1/1.5, 1.5] and
@@ -711,6 +713,11 @@ def control_chart(
         raise AnalysisError(
             f"only {k} subgroup(s); estimating the within sigma needs at least {min_groups}. "
             "Collect more data or give a known `sigma`."
+        )
+    if sigma is None and mu is None and k < FEW_SUBGROUPS:
+        notes.append(
+            f"only {k} subgroups: trial limits from fewer than {FEW_SUBGROUPS} subgroups are "
+            "uncertain (Montgomery recommends 20 to 25, from memory)."
         )
     if kind == "xbar_r" and sizes_arr.max() > 10:
         msg = (
