@@ -1316,6 +1316,13 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     hrow = table.header_row
 
     # --- header checks -------------------------------------------------------------------
+    named = [h for h in header if h]
+    if named and all(_text_number(h) is not None for h in named):
+        raise DataFileError(
+            f"the first row holds numbers ('{_show(named[0])}'), not column names. Add a header "
+            "row that names each column (e.g. 'Diameter [mm]', 'Subgroup') above the values.",
+            file=src.name, row=hrow, value=named[0],
+        )
     seen: dict[str, int] = {}
     for j, h in enumerate(header):
         if not h:

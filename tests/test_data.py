@@ -516,3 +516,105 @@ def test_50mb_file_in_bounded_memory(tmp_path):
     assert n == row
     assert n_missing == 0
     assert after - before < 5 * size, f"peak rise {(after - before) / 2**20:.0f} MB for {size / 2**20:.0f} MB"
+
+
+def test_numbers_in_first_row_mean_no_header(tmp_path):
+    with pytest.raises(DataFileError, match=r"row 1: the first row holds numbers \('10\.1'\), not column names"):
+        read_measurements(write(tmp_path, "n.csv", "10.1\n10.2\n"))
+
+
+def test_crlf_line_ends_and_quotes(tmp_path):
+    text = 'Part,"Diameter, outer [mm]",Note\r\n1,"10,5",\r\n2,"10,7","re-measured, ok"\r\n'
+    m = read_measurements(write(tmp_path, "q.csv", text))
+    d = m.get("Diameter, outer")
+    assert d.unit == "mm"
+    assert d.values.tolist() == [10.5, 10.7]  # quoted decimal commas
+    assert d.notes.tolist() == ["", "re-measured, ok"]
+    assert d.rows.tolist() == [2, 3]
+
+
+def test_long_layout_with_subgroup_size_from_xlsx(tmp_path):
+    rows = [("Characteristic", "Value")] + [("A" if i % 2 else "B", float(i)) for i in range(12)]
+    m = read_measurements(write_xlsx(tmp_path, "l.xlsx", rows), subgroup_size=3)
+    assert m.layout == "long"
+    assert m.names == ("B", "A")
+    assert m.get("B").values.tolist() == [0.0, 2.0, 4.0, 6.0, 8.0, 10.0]
+    assert m.get("B").subgroups.tolist() == ["1", "1", "1", "2", "2", "2"]
+    assert m.get("A").rows.tolist() == [3, 5, 7, 9, 11, 13]
+
+
+def test_characteristic_data_built_directly():
+    c = CharacteristicData("Gap", "mm", [1.0, float("nan"), 3.0], subgroups=["a", "a", "b"])
+    assert c.n_missing == 1 and c.n_valid == 2
+    assert c.subgroup_sizes == {"a": 1, "b": 1}
+    assert c.rows.tolist() == [2, 3, 4]
+    with pytest.raises(StudyInputError, match=r"`subgroups` has 2 entries but `values` has 3"):
+        CharacteristicData("Gap", "mm", [1.0, 2.0, 3.0], subgroups=["a", "b"])
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    table=st.lists(
+        st.tuples(
+            st.sampled_from(["", "1", "2", "3"]),
+            st.one_of(st.just(""), st.floats(-100, 100, allow_nan=False).map(lambda v: f"{v:.4f}")),
+            st.one_of(st.just(""), st.integers(-5, 5).map(str)),
+        ),
+        min_size=1, max_size=30,
+    ),
+    sep=st.sampled_from([";", "\t", ","]),
+    blank_line=st.booleans(),
+)
+def test_fast_reader_agrees_with_cell_by_cell_reader(table, sep, blank_line):
+    """The pandas fast path and the cell-by-cell path give the same result or the same error."""
+    import studykit.data as data
+
+    lines = [f"Subgroup{sep}A [mm]{sep}B"]
+    lines += [sep.join(r) for r in table]
+    if blank_line:
+        lines.insert(2, "")
+    raw = ("\n".join(lines) + "\n").encode()
+
+    def read(fast):
+        original = data._with_fast_path
+        if not fast:
+            data._with_fast_path = lambda table, float_cols, collect: collect(table.open_chunks())
+        try:
+            return read_measurements_bytes(raw, "f.csv")
+        except DataFileError as exc:
+            return str(exc)
+        finally:
+            data._with_fast_path = original
+
+    a, b = read(True), read(False)
+    if isinstance(a, str) or isinstance(b, str):
+        assert a == b
+        return
+    assert a.names == b.names and a.notes == b.notes and a.warnings == b.warnings
+    for x, y in zip(a, b, strict=True):
+        np.testing.assert_array_equal(x.values, y.values)
+        assert x.rows.tolist() == y.rows.tolist()
+        assert x.subgroups.tolist() == y.subgroups.tolist()
+        assert x.subgroup_sizes == y.subgroup_sizes
+
+
+def test_clean_csv_uses_the_fast_reader(monkeypatch):
+    import studykit.data as data
+
+    used = []
+    original = data._with_fast_path
+
+    def spy(table, float_cols, collect):
+        def record(chunks):
+            used.append(getattr(chunks, "__name__", "?"))
+            return collect(chunks)
+
+        return original(table, float_cols, record)
+
+    monkeypatch.setattr(data, "_with_fast_path", spy)
+    read_measurements_bytes(b"Subgroup;A [mm]\n1;1,5\n1;\n2;2,5\n", "x.csv")
+    assert used == ["fast_chunks"]
+    used.clear()
+    with pytest.raises(DataFileError, match="'abc' is not a number"):
+        read_measurements_bytes(b"A\n1\nabc\n", "x.csv")
+    assert used == ["fast_chunks", "chunks"]  # the fallback finds the cell
