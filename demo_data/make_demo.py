@@ -27,7 +27,7 @@ sys.path.insert(0, str(HERE.parent))  # run from a source checkout without insta
 from studykit.store import StudyFile  # noqa: E402
 from studykit.study import Characteristic, Criteria, Decision  # noqa: E402
 
-SEED = 20260315
+SEED = 20260325
 SUPPLIER = "Quendle & Vask Castings (fictional)"
 PART = "QV-4410 coolant pump housing (fictional)"
 TITLE = "QV-4410 pre-launch capability study"
