@@ -568,11 +568,11 @@ def _count_in_window(mask: np.ndarray, width: int) -> np.ndarray:
 
 
 class _Found:
-    """Groups found by one rule in one direction (positions in the compressed sequence).
+    """Groups found by one rule in one direction, in positions of the caller's array.
 
-    ``starts``/``ends`` bound each group's points; ``triggers`` lists each group's completing
-    points; ``members`` (zone rules only) lists each group's points when they are not every
-    point from start to end.
+    ``starts``/``ends`` are each group's first and last point; ``triggers`` lists each group's
+    completing points; ``members`` lists each group's points, or is None when they are every
+    position from start to end.
     """
 
     __slots__ = ("kind", "starts", "ends", "triggers", "members")
@@ -582,29 +582,55 @@ class _Found:
         self.triggers, self.members = triggers, members
 
 
-def _merge(kind: str, trig: np.ndarray, length: int, max_gap: int, zone=None):
-    """Group sorted triggers: a new group starts where the gap to the previous trigger exceeds
-    ``max_gap``. Each occurrence covers ``[t-length+1, t]``; for zone rules ``zone`` (the
-    in-zone mask) restricts a group's points to the in-zone ones."""
+def _expand(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Concatenate the integer ranges ``lo[g] .. hi[g]`` (inclusive; empty when hi < lo)."""
+    sizes = np.maximum(hi - lo + 1, 0)
+    total = int(sizes.sum())
+    if total == 0:
+        return np.zeros(0, dtype=np.int64)
+    offsets = np.repeat(lo - (np.cumsum(sizes) - sizes), sizes)
+    return np.arange(total) + offsets
+
+
+def _gather(values: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> list[list[int]]:
+    """``[values[lo[g]:hi[g]].tolist() for g]`` with one gather and one conversion."""
+    flat = values[_expand(lo, hi - 1)].tolist()
+    bounds = np.concatenate(([0], np.cumsum(hi - lo))).tolist()
+    return [flat[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+
+
+def _merge(kind, trig, length, max_gap, positions, zone=None):
+    """Group sorted triggers (compressed positions) into a :class:`_Found`.
+
+    A new group starts where the gap to the previous trigger exceeds ``max_gap``. Each
+    occurrence covers ``[t-length+1, t]``; for zone rules ``zone`` (the in-zone mask) restricts a
+    group's points to the in-zone ones. ``positions`` maps compressed to original positions
+    (None when nothing is missing).
+    """
     if trig.size == 0:
         return None
     breaks = np.flatnonzero(np.diff(trig) > max_gap) + 1
     firsts = np.concatenate(([0], breaks))
     lasts = np.concatenate((breaks - 1, [trig.size - 1]))
-    starts = np.maximum(trig[firsts] - (length - 1), 0).tolist()
-    ends = trig[lasts].tolist()
-    trig_list = trig.tolist()
-    bounds = firsts.tolist() + [trig.size]
-    triggers = [trig_list[bounds[g] : bounds[g + 1]] for g in range(len(starts))]
+    starts = np.maximum(trig[firsts] - (length - 1), 0)
+    ends = trig[lasts]
     members = None
     if zone is not None:
-        members = [
-            (np.flatnonzero(zone[a : e + 1]) + a).tolist() for a, e in zip(starts, ends, strict=True)
-        ]
-    return _Found(kind, starts, ends, triggers, members)
+        in_zone = np.flatnonzero(zone)
+        lo = np.searchsorted(in_zone, starts, "left")
+        hi = np.searchsorted(in_zone, ends, "right")
+        members = _gather(in_zone if positions is None else positions[in_zone], lo, hi)
+    elif positions is not None:
+        members = _gather(positions, starts, ends + 1)
+    if positions is not None:
+        trig, starts, ends = positions[trig], positions[starts], positions[ends]
+    trig_list = trig.tolist()
+    bounds = firsts.tolist() + [trig.size]
+    triggers = [trig_list[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+    return _Found(kind, starts.tolist(), ends.tolist(), triggers, members)
 
 
-def _in_a_row(kind: str, mask: np.ndarray, length: int, extra: int = 0):
+def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 0):
     """Groups for "``length`` points in a row" rules.
 
     ``mask[j]`` describes points ``j .. j+extra`` (extra = 0 for a point property, 1 for the step
@@ -613,51 +639,53 @@ def _in_a_row(kind: str, mask: np.ndarray, length: int, extra: int = 0):
     """
     width = length - extra
     trig = np.flatnonzero(_all_in_window(mask, width)) + (width - 1 + extra)
-    return _merge(kind, trig, length, 1)
+    return _merge(kind, trig, length, 1, positions)
 
 
-def _detect(rule: Rule, x, c, s, lcl, ucl) -> list[_Found]:
-    """All groups found by one rule, in compressed positions."""
+def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
+    """All groups found by one rule (``x`` etc. hold the non-missing points only; ``positions``
+    maps them to the caller's positions, None when nothing is missing)."""
     rid, p = rule.id, rule.params
     found = []
     if rid == "beyond_limits":
         upper = c + p["sigmas"] * s if ucl is None else ucl
         lower = c - p["sigmas"] * s if lcl is None else lcl
         for kind, mask in (("above", x > upper), ("below", x < lower)):
-            t = np.flatnonzero(mask).tolist()
+            t = np.flatnonzero(mask)
+            t = (t if positions is None else positions[t]).tolist()
             if t:
                 found.append(_Found(kind, t, t, [[i] for i in t]))
     elif rid == "run":
         for kind, mask in (("above", x > c), ("below", x < c)):
-            found.append(_in_a_row(kind, mask, p["length"]))
+            found.append(_in_a_row(kind, mask, p["length"], positions))
     elif rid == "trend":
         d = np.diff(x)
         for kind, mask in (("up", d > 0), ("down", d < 0)):
-            found.append(_in_a_row(kind, mask, p["length"], extra=1))
+            found.append(_in_a_row(kind, mask, p["length"], positions, extra=1))
     elif rid == "alternation":
         sign = np.sign(np.diff(x))
         flips = sign[1:] * sign[:-1] < 0
-        found.append(_in_a_row("alternating", flips, p["length"], extra=2))
+        found.append(_in_a_row("alternating", flips, p["length"], positions, extra=2))
     elif rid in ("zone_a", "zone_b"):
         k, m = p["count"], p["window"]
         for kind, zone in (("above", x > c + p["sigmas"] * s), ("below", x < c - p["sigmas"] * s)):
             trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
-            found.append(_merge(kind, trig, m, m - 1, zone=zone))
+            found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
     elif rid == "hugging":
         inside = (x >= c - p["sigmas"] * s) & (x <= c + p["sigmas"] * s)
-        found.append(_in_a_row("inside", inside, p["length"]))
+        found.append(_in_a_row("inside", inside, p["length"], positions))
     elif rid == "mixture":
         length = p["length"]
         above = x > c + p["sigmas"] * s
         below = x < c - p["sigmas"] * s
         if not p["both_sides"]:
-            found.append(_in_a_row("outside", above | below, length))
+            found.append(_in_a_row("outside", above | below, length, positions))
         else:
             window = _all_in_window(above | below, length)
             window &= ~_all_in_window(above, length)
             window &= ~_all_in_window(below, length)
             trig = np.flatnonzero(window) + (length - 1)
-            found.append(_merge("both", trig, length, 1))
+            found.append(_merge("both", trig, length, 1, positions))
     return [f for f in found if f is not None]
 
 
@@ -846,38 +874,31 @@ def evaluate(
         i = int(np.argmax(lo_v >= hi_v))
         raise StudyInputError(f"`lcl` ({lo_v[i]}) must be less than `ucl` ({hi_v[i]})")
 
-    pos_map = None if positions is None else positions.tolist()
     found = []
     for order, rule in enumerate(rule_list):
         if not rule.enabled:
             continue
-        for group in _detect(rule, x, c, s, low, high):
+        for group in _detect(rule, x, c, s, low, high, positions):
             given = (high if group.kind == "above" else low) is not None
             template = _template(rule, group.kind, given)
+            members = group.members
             for g, (start, end, trig) in enumerate(
                 zip(group.starts, group.ends, group.triggers, strict=True)
             ):
-                if start == end and pos_map is None and labels is None:
-                    text = template.format(n=1, where=f"Point {start + 1}")
-                    found.append((trig[0], order, Signal(rule.id, rule.number, (start,), start, text, (start,))))
-                    continue
-                if group.members is not None:
-                    pts = group.members[g]
-                elif pos_map is None and labels is None and end - start >= 2:
-                    # fast path: contiguous points numbered from 1
-                    points = tuple(range(start, end + 1))
-                    text = template.format(n=end - start + 1, where=f"points {start + 1}-{end + 1}")
-                    found.append((trig[0], order, Signal(rule.id, rule.number, points, trig[0], text, tuple(trig))))
-                    continue
+                pts = range(start, end + 1) if members is None else members[g]
+                count = len(pts)
+                if labels is not None:
+                    where = _where(list(pts), labels)
+                elif count == 1:
+                    where = f"point {start + 1}"
+                elif end - start == count - 1 and count > 2:  # every position from start to end
+                    where = f"points {start + 1}-{end + 1}"
                 else:
-                    pts = list(range(start, end + 1))
-                if pos_map is not None:
-                    pts = [pos_map[i] for i in pts]
-                    trig = [pos_map[i] for i in trig]
-                where = _where(pts, labels)
-                if len(pts) == 1:
+                    where = _where(list(pts), labels)
+                if count == 1:
                     where = where[0].upper() + where[1:]
-                text = template.format(n=len(pts), where=where)
-                found.append((trig[0], order, Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig))))
+                text = template.format(n=count, where=where)
+                signal = Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig))
+                found.append((trig[0], order, signal))
     found.sort(key=lambda item: (item[0], item[1]))
     return tuple(item[2] for item in found)
