@@ -10,24 +10,25 @@ Rules
 Zones are measured from the centre line in units of ``sigma`` (the standard error of the plotted
 statistic): zone C within 1 sigma, zone B from 1 to 2 sigma, zone A from 2 to 3 sigma.
 
-=============  ======  =====================================================  ===================
-rule id        Nelson  what it looks for (parameters, Nelson's values)        Western Electric
-=============  ======  =====================================================  ===================
-beyond_limits  1       one point beyond the control limits (``sigmas=3``)     same
-run            2       ``length`` points in a row on one side (``length=9``)   ``length=8``
-trend          3       ``length`` points in a row steadily increasing or       --
-                       decreasing (``length=6``)
-alternation    4       ``length`` points in a row alternating up and down      --
-                       (``length=14``)
-zone_a         5       ``count`` of ``window`` points in a row more than       same
-                       ``sigmas`` sigma from the centre, same side (2, 3, 2)
-zone_b         6       the same with (``count=4, window=5, sigmas=1``)          same
-hugging        7       ``length`` points in a row within ``sigmas`` sigma of   --
-                       the centre line, either side (``length=15, sigmas=1``)
-mixture        8       ``length`` points in a row more than ``sigmas`` sigma   --
-                       from the centre line with points on both sides
-                       (``length=8, sigmas=1, both_sides=True``)
-=============  ======  =====================================================  ===================
+Each rule: our id, the Nelson (1984) test it generalises, what it looks for, its parameters with
+Nelson's values, and its use in the Western Electric (WE) set.
+
+- ``beyond_limits`` (Nelson 1): one point beyond the control limits, ``center +- sigmas*sigma``
+  unless ``lcl``/``ucl`` are given; ``sigmas=3``. WE: same.
+- ``run`` (Nelson 2): ``length`` points in a row on the same side of the centre line;
+  ``length=9``. WE: ``length=8``.
+- ``trend`` (Nelson 3): ``length`` points in a row steadily increasing or steadily decreasing;
+  ``length=6``.
+- ``alternation`` (Nelson 4): ``length`` points in a row alternating up and down;
+  ``length=14``.
+- ``zone_a`` (Nelson 5): ``count`` of ``window`` points in a row more than ``sigmas`` sigma from
+  the centre line on the same side; ``count=2, window=3, sigmas=2``. WE: same.
+- ``zone_b`` (Nelson 6): as zone_a with ``count=4, window=5, sigmas=1``. WE: same.
+- ``hugging`` (Nelson 7): ``length`` points in a row within ``sigmas`` sigma of the centre line,
+  on either side; ``length=15, sigmas=1``.
+- ``mixture`` (Nelson 8): ``length`` points in a row more than ``sigmas`` sigma from the centre
+  line, with points on both sides (``both_sides=False`` drops that condition);
+  ``length=8, sigmas=1, both_sides=True``.
 
 Rule sets: ``NELSON`` (all eight with Nelson's parameters), ``WESTERN_ELECTRIC`` (beyond_limits,
 run with ``length=8``, zone_a, zone_b) and ``LIMITS_ONLY`` (beyond_limits).
@@ -73,8 +74,8 @@ Conventions (decided here; common practice unless a source is named)
   the one that completes the pattern; every pattern that fits in some window of ``window`` points
   is found this way.
 - **Missing points** (NaN) are skipped: the rules run on the remaining points in order, as if the
-  missing ones were not plotted, so a gap neither breaks nor extends a pattern. Positions in the
-  result still refer to the original array.
+  missing ones were not plotted, so a gap neither breaks a pattern nor counts as one of its
+  points. Positions in the result still refer to the original array.
 - **One signal per pattern, every completing point marked**: each point that completes a pattern
   is a *trigger*. For the "in a row" rules (run, trend, alternation, hugging, mixture) triggers on
   consecutive points of the same rule and direction (above/below, up/down) merge into one
@@ -82,6 +83,8 @@ Conventions (decided here; common practice unless a source is named)
   under ``run=9`` is one signal covering points 1-12 with triggers 9-12, not four signals. For
   zone_a/zone_b, occurrences on the same side whose windows share a point merge (a cluster near
   a limit is one signal). ``beyond_limits`` gives one signal per point.
+- **Signal text** numbers points from 1, as a chart's axis does (``Signal.points`` holds 0-based
+  positions), or uses the ``labels`` given to :func:`evaluate`.
 
 Notes
 -----
