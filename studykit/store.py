@@ -517,6 +517,27 @@ class StudyFile:
                                 "automatic": d.automatic, "decided_at": d.when})
         return ids
 
+    def _insert_comment(self, conn, c: Comment) -> int:
+        cur = conn.execute(
+            "INSERT INTO comments (characteristic, text, who, at) VALUES (?, ?, ?, ?)",
+            (c.characteristic, c.text, c.who, c.when),
+        )
+        on = f" on '{c.characteristic}'" if c.characteristic else ""
+        self._audit(conn, who=c.who, what=f"comment{on}",
+                    detail={"comment_id": cur.lastrowid, "text": c.text})
+        return cur.lastrowid
+
+    def _insert_signoff(self, conn, s: SignOff, index: int) -> int:
+        cur = conn.execute(
+            "INSERT INTO signoffs (name, role, decision, comment, at, digest) "
+            "VALUES (?, ?, ?, ?, ?, ?)",
+            (s.name, s.role, s.decision, s.comment, s.when, s.digest),
+        )
+        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}", why=s.comment,
+                    detail={"signoff_index": index, "signoff_id": cur.lastrowid,
+                            "digest": s.digest})
+        return cur.lastrowid
+
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
         """Load, derive the new study, append the new decisions; all in one transaction."""
         with self._write() as conn:
@@ -524,6 +545,63 @@ class StudyFile:
             new = make(study)
             added = new.decisions[len(study.decisions):]
             return self._insert_decisions(conn, added)
+
+    def apply(self, change: Callable[[Study], Study]) -> Study:
+        """Make several changes at once: ``change(study) -> new study``, saved atomically.
+
+        ``change`` receives the study as it is on file (inside the write transaction, so no
+        other writer can slip in between) and returns a study derived from it with the pure
+        methods of :class:`~studykit.study.Study` (``exclude``, ``with_spec``, ``with_comment``,
+        ``sign`` ...). The new decisions, comments and sign-offs are appended in one
+        transaction: all or nothing. Returns the study as saved.
+
+        Examples
+        --------
+        >>> import tempfile, pathlib
+        >>> from studykit.study import Characteristic
+        >>> path = pathlib.Path(tempfile.mkdtemp()) / "demo.study"
+        >>> sf = StudyFile.create(path, data=b"subgroup,x\\n1,1\\n2,1.2\\n", filename="x.csv",
+        ...                       title="demo", characteristics=[Characteristic("x", usl=2)])
+        >>> study = sf.apply(lambda s: s.exclude("x", 1, reason="setup", who="A")
+        ...                              .exclude("x", 2, reason="setup", who="A"))
+        >>> sorted(sf.load().excluded_subgroups("x"))
+        ['1', '2']
+        """
+        with self._write() as conn:
+            study = self._load(conn)
+            new = change(study)
+            if not isinstance(new, Study):
+                raise StudyInputError(f"the change must return a Study, got {type(new).__name__}")
+            for kind in ("decisions", "comments", "signoffs"):
+                old_items, new_items = getattr(study, kind), getattr(new, kind)
+                if new_items[:len(old_items)] != old_items:
+                    raise StudyFileError(
+                        f"the change rewrote saved {kind}: a study file only grows; derive the "
+                        "new study from the one passed in"
+                    )
+            for attr in ("title", "part", "supplier", "data_sha256"):
+                if getattr(new, attr) != getattr(study, attr):
+                    raise StudyFileError(f"the change altered the study's {attr}, which is "
+                                         "fixed when the file is created")
+            self._insert_decisions(conn, new.decisions[len(study.decisions):])
+            for c in new.comments[len(study.comments):]:
+                self._insert_comment(conn, c)
+            for i, s in enumerate(new.signoffs[len(study.signoffs):], start=len(study.signoffs)):
+                self._insert_signoff(conn, s, i)
+            saved = self._load(conn)
+            added = new.decisions[len(study.decisions):]
+            if (study.is_locked and saved.content_digest() != study.content_digest()
+                    and not any(d.action == "void_signoff" for d in added)):
+                raise StudyFileError(
+                    "the study is approved and therefore locked: pass override_lock=True with a "
+                    "reason to the change that needs it"
+                )
+            if saved.content_digest() != new.content_digest():
+                raise StudyFileError(
+                    "the change cannot be saved as decisions (specifications or criteria changed "
+                    "without a set_spec/set_criteria decision): use with_spec/with_criteria"
+                )
+            return saved
 
     def append_decision(self, decision: Decision, *, override_lock: bool = False,
                         override_reason: str | None = None) -> int:
@@ -578,14 +656,7 @@ class StudyFile:
             study = self._load(conn)
             c = study.with_comment(text, who=who, characteristic=characteristic,
                                    when=when).comments[-1]
-            cur = conn.execute(
-                "INSERT INTO comments (characteristic, text, who, at) VALUES (?, ?, ?, ?)",
-                (c.characteristic, c.text, c.who, c.when),
-            )
-            on = f" on '{c.characteristic}'" if c.characteristic else ""
-            self._audit(conn, who=c.who, what=f"comment{on}", detail={"comment_id": cur.lastrowid,
-                                                                     "text": c.text})
-            return cur.lastrowid
+            return self._insert_comment(conn, c)
 
     def add_signoff(self, name: str, *, role: str, decision: str, comment: str = "",
                     when: str = "") -> SignOff:
@@ -594,14 +665,7 @@ class StudyFile:
             study = self._load(conn)
             s = study.sign(name, role=role, decision=decision, comment=comment,
                            when=when).signoffs[-1]
-            cur = conn.execute(
-                "INSERT INTO signoffs (name, role, decision, comment, at, digest) "
-                "VALUES (?, ?, ?, ?, ?, ?)",
-                (s.name, s.role, s.decision, s.comment, s.when, s.digest),
-            )
-            self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}",
-                        why=s.comment, detail={"signoff_index": len(study.signoffs),
-                                               "signoff_id": cur.lastrowid, "digest": s.digest})
+            self._insert_signoff(conn, s, len(study.signoffs))
             return s
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],

@@ -331,3 +331,44 @@ def test_load_study_shorthand(study_path):
     from studykit.store import load_study
 
     assert load_study(study_path) == StudyFile(study_path).load()
+
+
+def test_apply_saves_several_changes_atomically(study_path):
+    sf = StudyFile(study_path)
+    saved = sf.apply(lambda s: s.exclude("bore", 1, reason="setup", who="A")
+                     .with_spec("runout", usl=0.04, who="A", reason="rev C")
+                     .with_comment("both done", who="A")
+                     .sign("P. Novak", role="reviewed", decision="approve"))
+    assert saved == sf.load()
+    assert list(saved.excluded_subgroups("bore")) == ["1"]
+    assert saved.characteristics["runout"].usl == 0.04
+    assert [st.state for st in saved.signoff_state()] == ["valid"]
+    n_log = len(sf.audit_log())
+
+    def half_bad(s):
+        s = s.exclude("bore", 2, reason="fine", who="A")
+        return s.exclude("flatness", 1, reason="no such characteristic", who="A")
+
+    with pytest.raises(StudyInputError, match="no characteristic 'flatness'"):
+        sf.apply(half_bad)
+    assert sf.load() == saved and len(sf.audit_log()) == n_log  # all or nothing
+
+
+def test_apply_refuses_rewriting_history_and_hidden_spec_changes(study_path):
+    import dataclasses
+
+    from studykit.study import Characteristic
+
+    sf = StudyFile(study_path)
+    sf.exclude("bore", 1, reason="setup", who="A")
+    with pytest.raises(StudyFileError, match="rewrote saved decisions"):
+        sf.apply(lambda s: dataclasses.replace(s, decisions=()))
+    with pytest.raises(StudyFileError, match="without a set_spec/set_criteria decision"):
+        sf.apply(lambda s: dataclasses.replace(
+            s, characteristics=[s.characteristics["bore"], Characteristic("runout", usl=1.0)]))
+    sf.add_signoff("M. Brandt", role="approved", decision="approve")
+    with pytest.raises(StudyFileError, match="locked"):
+        sf.apply(lambda s: s.exclude("bore", 2, reason="r", who="A"))
+    with pytest.raises(StudyFileError, match="locked"):  # a bypass of the lock check is caught too
+        sf.apply(lambda s: s._apply(Decision("bore", "exclude", subgroup=2, reason="r", who="A")))
+    assert sf.load().is_locked and len(sf.load().decisions) == 1
