@@ -250,6 +250,25 @@ def test_j_shaped_data_have_no_interior_threshold_maximum():
     assert r.rows[-1].id == "weibull3" and "no interior maximum" in r.rows[-1].error
 
 
+def test_tiny_relative_spread_runs_clean():
+    # readings 1e4 +- 0.01: no numpy warnings; the gamma shape tends to mean^2/var (moments of
+    # the gamma distribution, from memory: mean k*theta, variance k*theta^2)
+    x = stats.norm(1e4, 0.01).rvs(size=125, random_state=np.random.default_rng(30))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        r = fit.fit_all(x)
+    assert all(row.error is None for row in r.rows)
+    assert_allclose(r.models["gamma"].parameters["shape"], x.mean() ** 2 / x.var(), rtol=0.02)
+    # 1e6 +- 0.01: below double precision for a gamma shape; said so, the rest still fitted
+    x = stats.norm(1e6, 0.01).rvs(size=125, random_state=np.random.default_rng(31))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        r = fit.fit_all(x)
+    by_id = {row.id: row for row in r.rows}
+    assert "too small to estimate a gamma shape" in by_id["gamma"].error
+    assert by_id["normal"].error is None
+
+
 def test_bad_input_messages():
     with pytest.raises(StudyInputError, match=r"`families` contains unknown id\(s\) \['norm'\]"):
         fit.fit_all([1.0, 2.0, 3.0], families=["norm"])

@@ -129,6 +129,12 @@ def test_box_cox_bad_options():
         tr.box_cox([3.0, 3.0, 3.0])
 
 
+def test_box_cox_refuses_data_without_relative_spread():
+    x = stats.norm(1e6, 0.01).rvs(size=125, random_state=_rng(31))
+    with pytest.raises(AnalysisError, match="too small for a power transformation"):
+        tr.box_cox(x)
+
+
 @settings(max_examples=30, deadline=None)
 @given(c=st.floats(min_value=1e-3, max_value=1e3), seed=st.integers(0, 2**32 - 1))
 def test_box_cox_lambda_is_scale_invariant(c, seed):

@@ -184,12 +184,18 @@ def _gamma_fit(y: np.ndarray, k0: float | None = None) -> tuple[float, float, fl
     ly = np.log(y)
     sly = float(ly.sum())
     s = math.log(mean) - sly / n
-    if not s > 0:
-        raise AnalysisError("gamma fit: the data have no spread on the log scale.")
-    if k0 is None or not (k0 > 0):
+    if not s > 1e-14:
+        raise AnalysisError(
+            f"Gamma: the relative spread of the data (sd/mean = {y.std() / mean:.3g}) is too "
+            "small to estimate a gamma shape in double precision; the normal family describes "
+            "such data (or fit the threshold variant)."
+        )
+    if s < 1e-4:  # k > ~5000: log k - digamma(k) = 1/(2k) + 1/(12k^2) + O(k^-4), solved for k
+        k0 = (math.sqrt(0.25 + s / 3.0) + 0.5) / (2.0 * s)
+    elif k0 is None or not (k0 > 0):
         k0 = (3.0 - s + math.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s)
     k = k0
-    for _ in range(100):
+    for _ in range(0 if s < 1e-4 else 100):
         f = math.log(k) - special.digamma(k) - s
         fp = 1.0 / k - special.zeta(2.0, k)
         k_new = 1.0 / (1.0 / k + f / (k * k * fp))
@@ -443,12 +449,15 @@ def _inner_gamma(ys, start=None):
     sly = _rowsum(np.log(ys))
     s = np.log(mean) - sly / n
     s = np.where(s > 0, s, np.nan)
-    k = (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s)
+    large = s < 1e-4  # asymptotic root, as in _gamma_fit
+    k = np.where(large, (np.sqrt(0.25 + s / 3.0) + 0.5) / (2.0 * s),
+                 (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s))
     for _ in range(50):
         f = np.log(k) - special.digamma(k) - s
         fp = 1.0 / k - special.zeta(2.0, k)
-        k_new = 1.0 / (1.0 / k + f / (k * k * fp))
-        k_new = np.where(k_new > 0, k_new, 0.5 * k)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k_new = 1.0 / (1.0 / k + f / (k * k * fp))
+        k_new = np.where(large, k, np.where(k_new > 0, k_new, 0.5 * k))
         active = np.abs(k_new - k) > 1e-8 * k  # rounding noise of s limits very large k
         k = k_new
         if not active.any():
@@ -1026,8 +1035,8 @@ class _Loglogistic3(_Loglogistic):
     support, base_id, ad_p_source, minimum_n = "real", "loglogistic", None, 5
 
     def _estimate(self, x):
-        theta, params, _, conv, note = _profile_threshold(x, _inner_loglogistic, _dtheta_loglogistic,
-                                                         self.label)
+        theta, params, _, conv, note = _profile_threshold(
+            x, _inner_loglogistic, _dtheta_loglogistic, self.label)
         return {**params, "threshold": theta}, conv, note
 
     def _ad_p(self, a2, n, xs, p):

@@ -69,15 +69,20 @@ def _boxcox_llf(lam: float, lx: np.ndarray) -> float:
     The variance is computed on a scaled copy for large |lam| to avoid overflow.
     """
     n = lx.size
-    if abs(lam) < 1e-12:
-        logvar = math.log(lx.var())
-    elif abs(lam) * max(abs(lx.max()), abs(lx.min())) < 30.0:
-        y = np.expm1(lam * lx) / lam
-        logvar = math.log(y.var())
-    else:
-        c = lx.max() if lam > 0 else lx.min()
-        e = np.exp(lam * (lx - c))
-        logvar = math.log(e.var()) + 2.0 * lam * c - 2.0 * math.log(abs(lam))
+    with np.errstate(all="ignore"):
+        if abs(lam) < 1e-12:
+            var = lx.var()
+            logvar = math.log(var) if var > 0 else -math.inf
+        elif abs(lam) * max(abs(lx.max()), abs(lx.min())) < 30.0:
+            var = (np.expm1(lam * lx) / lam).var()
+            logvar = math.log(var) if var > 0 else -math.inf
+        else:
+            c = lx.max() if lam > 0 else lx.min()
+            var = np.exp(lam * (lx - c)).var()
+            logvar = (math.log(var) + 2.0 * lam * c - 2.0 * math.log(abs(lam))
+                      if var > 0 else -math.inf)
+    if not math.isfinite(logvar):  # the spread vanished in rounding: no evidence here
+        return -math.inf
     return (lam - 1.0) * float(lx.sum()) - 0.5 * n * logvar
 
 
@@ -278,7 +283,8 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
     def neg(lmb):
         return -_boxcox_llf(lmb, lx)
 
-    lam_hat = float(optimize.brent(neg, brack=(-2.0, 2.0)))
+    with np.errstate(all="ignore"):
+        lam_hat = float(optimize.brent(neg, brack=(-2.0, 2.0)))
     ll_hat = -neg(lam_hat)
     cut = ll_hat - 0.5 * stats.chi2.ppf(1.0 - alpha, 1)
 
@@ -338,9 +344,18 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
                 + (f", inside the {level} interval" if inside else
                    f", OUTSIDE the {level} interval") +
                 f" [{_fmt(interval[0])}, {_fmt(interval[1])}]")
-    y = _boxcox_forward(v, used)
-    my = float(y.mean())
-    sy = float(y.std(ddof=1))
+    with np.errstate(all="ignore"):
+        y = _boxcox_forward(v, used)
+        my = float(y.mean())
+        sy = float(y.std(ddof=1))
+    if not (math.isfinite(lam_hat) and math.isfinite(my) and math.isfinite(sy)
+            and sy > 1e-9 * abs(my)):
+        raise AnalysisError(
+            f"Box-Cox: lambda {_fmt(used)} makes the transformed readings overflow or collapse; "
+            f"the relative spread of the data (sd/mean = {_fmt(float(v.std() / v.mean()))}) is "
+            "too small for a power transformation to change their shape. Use `shift` to "
+            "measure from a reference value, or a fitted distribution."
+        )
     back = _boxcox_backward(np.array([my, my - 3 * sy, my + 3 * sy]), used) - shift
     sw0 = stats.shapiro(x)
     sw1 = stats.shapiro(y)
