@@ -1692,7 +1692,7 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
         codes = np.arange(rows.size) // (subgroup_size or 1)
 
         def labels_of(u):
-            return (u + 1).astype(str)
+            return _position_labels(u)
 
         subgroups = labels_of(codes)
     times = kept(t_acc.result(notes)[:last]) if t_idx is not None else None
@@ -1701,7 +1701,10 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
         if a is not None:
             a.flags.writeable = False
 
-    grouping = _grouping(codes, labels_of)
+    if sg is None and subgroup_size is None:
+        grouping = (codes, subgroups)  # individuals: one subgroup per row, labels = positions
+    else:
+        grouping = _grouping(codes, labels_of)
     del codes
     sg_acc.index.clear()
     characteristics = []
@@ -1745,6 +1748,13 @@ def _fill_merged(codes, rows, ranges, notes, colname, empty_code):
     if filled_any:
         notes.append(f"merged cells in column '{colname}': each label applied to all its rows")
     return codes
+
+
+def _position_labels(codes: np.ndarray) -> np.ndarray:
+    """``codes + 1`` as the narrowest string array (not the 21 characters of any int64)."""
+    codes = np.asarray(codes)
+    width = len(str(int(codes.max()) + 1)) if codes.size else 1
+    return (codes + 1).astype(f"<U{width}")
 
 
 def _grouping(codes, labels_of):
@@ -2002,7 +2012,7 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
             ccodes = np.arange(idx.size) // (subgroup_size or 1)
 
             def labels_of(u):
-                return (u + 1).astype(str)
+                return _position_labels(u)
 
         characteristics.append(_make_char(
             name, unit, cvals, labels_of(ccodes), _grouping(ccodes, labels_of),

@@ -479,12 +479,14 @@ def test_roundtrip_values(values, german, missing):
 
 @pytest.mark.slow
 def test_50mb_file_in_bounded_memory(tmp_path):
-    """A 50 MB CSV is read with a peak memory rise of at most 5x the file size.
+    """A 50 MB CSV is read with a peak memory rise of at most 6x the file size.
 
     Measured in a fresh interpreter (ru_maxrss before and after reading), so the C parser's
     buffers count too. What is kept is about 1.8x the file here (three float64 columns, int64
-    row numbers and 6-character subgroup labels for 1.6 million rows); the bound leaves room
-    for one chunk of text and the concatenation. The factor is our own choice, no source.
+    row numbers and 6-character subgroup labels for 1.6 million rows); the peak adds one chunk
+    of text, the table of 328,000 distinct subgroup labels and allocator slack (measured 4.1x
+    to 4.6x with tests/bench/bench_import.py). Reading the whole file as text cells would grow
+    with the number of cells instead. The factor is our own choice, no source.
     """
     path = tmp_path / "big.csv"
     rng = np.random.default_rng(seed=1)
@@ -515,7 +517,7 @@ def test_50mb_file_in_bounded_memory(tmp_path):
     before, after, n, n_missing = (int(x) for x in out.stdout.split())
     assert n == row
     assert n_missing == 0
-    assert after - before < 5 * size, f"peak rise {(after - before) / 2**20:.0f} MB for {size / 2**20:.0f} MB"
+    assert after - before < 6 * size, f"peak rise {(after - before) / 2**20:.0f} MB for {size / 2**20:.0f} MB"
 
 
 def test_numbers_in_first_row_mean_no_header(tmp_path):
