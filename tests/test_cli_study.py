@@ -150,3 +150,24 @@ def test_exclude_refuses_a_subgroup_the_data_do_not_have(files, capsys):
     assert "'bore' has no subgroup '7' in pilot.csv (its subgroups are 1, 2)" in capsys.readouterr().err
     assert main(["study", "exclude", path, "flatness", "1", "--reason", "x", "--who", "B"]) == 2
     assert "no characteristic 'flatness'" in capsys.readouterr().err
+
+
+def test_set_records_each_change_with_the_reason(files, capsys):
+    new(files)
+    path = str(files / "a.study")
+    assert main(["study", "set", path, "runout", "--usl", "0.04", "--criterion", "ppk",
+                 "--threshold", "1.33", "--model", "lognormal", "--reason", "customer PPAP manual",
+                 "--who", "B"]) == 0
+    study = StudyFile(files / "a.study").load()
+    assert study.characteristics["runout"].usl == 0.04
+    assert study.criteria_for("runout").threshold == 1.33
+    assert study.model_for("runout") == "lognormal"
+    assert [d.action for d in study.decisions] == ["set_spec", "set_criteria", "set_model"]
+    assert {d.reason for d in study.decisions} == {"customer PPAP manual"}
+    assert main(["study", "set", path, "bore", "--target", "none", "--reason", "r"]) == 0
+    assert StudyFile(files / "a.study").load().characteristics["bore"].target is None
+    capsys.readouterr()
+    assert main(["study", "set", path, "bore", "--lsl", "12.1", "--reason", "typo"]) == 2
+    assert "`usl` (12.03) must be greater than `lsl` (12.1)" in capsys.readouterr().err
+    assert main(["study", "set", path, "bore", "--reason", "r"]) == 2
+    assert "nothing to change" in capsys.readouterr().err

@@ -6,6 +6,7 @@ Subcommands::
     studykit study show STUDYFILE [--json]
     studykit study exclude STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
     studykit study restore STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
+    studykit study set STUDYFILE CHARACTERISTIC [--usl X ...] [--criterion ...] --reason R
     studykit study comment STUDYFILE TEXT [--characteristic C] [--who W]
     studykit study sign STUDYFILE --role ROLE --decision approve|reject|comment [--who W]
     studykit study log STUDYFILE [--json]
@@ -73,6 +74,26 @@ def register(subparsers) -> None:
         q.add_argument("--override-lock", metavar="REASON",
                        help="change an approved study anyway; voids the approval")
         q.set_defaults(func=run_decision, action=action)
+
+    st = sub.add_parser("set", help="change a specification, criterion, model or chart",
+                        description="Change the specification, acceptance criterion, model or "
+                        "chart of one characteristic. Each change is recorded as a decision with "
+                        "your reason; write 'none' to clear a limit or the target.")
+    st.add_argument("studyfile", metavar="STUDYFILE")
+    st.add_argument("characteristic", metavar="CHARACTERISTIC")
+    for opt in ("lsl", "usl", "target"):
+        st.add_argument(f"--{opt}", metavar="X")
+    st.add_argument("--criterion", choices=("cp", "cpk", "pp", "ppk", "cpm"))
+    st.add_argument("--threshold", type=float)
+    st.add_argument("--basis", choices=("lower_bound", "estimate"))
+    st.add_argument("--confidence", type=float)
+    st.add_argument("--model", help="distribution model name, or auto")
+    st.add_argument("--chart", help="auto, xbar_r, xbar_s, imr, p, np, c, u")
+    st.add_argument("--reason", required=True, help="why (kept in the audit log)")
+    st.add_argument("--who", default=None)
+    st.add_argument("--override-lock", metavar="REASON",
+                    help="change an approved study anyway; voids the approval")
+    st.set_defaults(func=run_set)
 
     com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
     com.add_argument("studyfile", metavar="STUDYFILE")
@@ -251,6 +272,56 @@ def run_decision(args) -> int:
         sf.restore(args.characteristic, args.subgroup, reason=args.reason, who=who,
                    **_lock_kw(args))
     print(f"{args.action}d subgroup {args.subgroup} of '{args.characteristic}'")
+    return 0
+
+
+def _limit(text):
+    if text is None:
+        return None, False
+    if text.strip().lower() in ("none", "-", ""):
+        return None, True
+    return text, True
+
+
+def run_set(args) -> int:
+    from studykit.study import Criteria, Decision
+
+    who = args.who or _default_who()
+    lock = _lock_kw(args)
+    name = args.characteristic
+    spec_changes = {}
+    for key in ("lsl", "usl", "target"):
+        value, given = _limit(getattr(args, key))
+        if given:
+            spec_changes[key] = value
+    crit_changes = {k: v for k, v in (("index", args.criterion), ("threshold", args.threshold),
+                                      ("basis", args.basis), ("confidence", args.confidence))
+                    if v is not None}
+    if not (spec_changes or crit_changes or args.model or args.chart):
+        raise StudyInputError("nothing to change: give --lsl, --usl, --target, --criterion, "
+                              "--threshold, --basis, --confidence, --model or --chart")
+
+    def change(study: Study) -> Study:
+        if spec_changes:
+            study = study.with_spec(name, who=who, reason=args.reason, **spec_changes, **lock)
+        if crit_changes:
+            crit = Criteria(**{**study.criteria_for(name).to_dict(), **crit_changes})
+            study = study.with_criteria(name, crit, who=who, reason=args.reason, **lock)
+        if args.model:
+            study = study.with_decision(Decision(name, "set_model", who=who, reason=args.reason,
+                                                 payload={"model": args.model.strip().lower()}),
+                                        **lock)
+        if args.chart:
+            study = study.with_decision(Decision(name, "set_chart", who=who, reason=args.reason,
+                                                 payload={"chart": args.chart.strip().lower()
+                                                          .replace("-", "_")}), **lock)
+        return study
+
+    saved = StudyFile(args.studyfile).apply(change)
+    c = saved.characteristics[name]
+    print(f"'{name}': LSL {_num(c.lsl) or '-'}  target {_num(c.target) or '-'}  USL "
+          f"{_num(c.usl) or '-'}; {saved.criteria_for(name).describe()}; model "
+          f"{saved.model_for(name)}; chart {saved.chart_for(name)}")
     return 0
 
 
