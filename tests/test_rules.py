@@ -378,6 +378,13 @@ def test_labels_in_text():
     assert sig[0].text == "Point lot 7 above the upper control limit (centre + 3 sigma)"
 
 
+def test_labels_with_missing_points():
+    x = [2.5, np.nan, 2.5, 0.0]
+    sig = _fired(x, Rule.zone_a(), labels=["a", "b", "c", "d"])
+    assert _summary(sig) == [("zone_a", (0, 2), (2,))]
+    assert sig[0].text == "2 of 3 points in a row more than 2 sigma above the centre line (points a, c)"
+
+
 def test_signals_sorted_by_trigger_then_rule_order():
     x = [0.5, 0.2, 0.4, 0.9, 0.1, 0.3, 0.6, 0.7, 0.8, 3.4]
     sig = evaluate(x, center=0.0, sigma=1.0)
@@ -477,8 +484,11 @@ def test_rule_objects_validate():
         Rule.run(True)
     with pytest.raises(StudyInputError, match=r"must be a rule text such as 'nelson'"):
         parse_rules(42)
-    with pytest.raises(StudyInputError, match=r"tuple of Rule objects; got 'run'"):
-        parse_rules([Rule.run(), "run"])
+    with pytest.raises(StudyInputError, match=r"Rule objects or rule texts; got 3"):
+        parse_rules([Rule.run(), 3])
+    assert parse_rules([Rule.run(7), "1,2"]) == (Rule.run(7), Rule.beyond_limits(), Rule.run())
+    assert parse_rules(()) == ()
+    assert evaluate([9.0] * 10, center=0, sigma=1, rules=()) == ()
     r = Rule.run(8)
     assert r.with_parameters(length=10).param("length") == 10
     assert r.with_enabled(False).enabled is False

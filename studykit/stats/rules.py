@@ -450,15 +450,16 @@ def parse_rules(spec) -> tuple[Rule, ...]:
 
     Parameters
     ----------
-    spec : str, Rule or iterable of Rule
+    spec : str, Rule or iterable of Rule and str
         A set name, a comma list of rule ids / Nelson numbers with optional parameters (syntax in
-        the module docstring), a single rule, or rules.
+        the module docstring), a single rule, or several rules and texts.
 
     Returns
     -------
     tuple of Rule
-        For text: one rule per id, in the order of :data:`RULE_IDS`; switched-off rules are kept
-        with ``enabled=False``. Rule objects are returned as given.
+        For one text: one rule per id, in the order of :data:`RULE_IDS`; switched-off rules are
+        kept with ``enabled=False``. Rule objects are returned as given; an iterable gives its
+        items' rules in its own order (an empty one gives no rules).
 
     Examples
     --------
@@ -476,14 +477,18 @@ def parse_rules(spec) -> tuple[Rule, ...]:
     if isinstance(spec, str):
         return _parse_text(spec)
     if isinstance(spec, Iterable):
-        rules = tuple(spec)
-        bad = [r for r in rules if not isinstance(r, Rule)]
-        if bad or not rules:
-            raise StudyInputError(
-                f"`rules` must be a rule text such as 'nelson' or a tuple of Rule objects; "
-                f"got {bad[0]!r}" if bad else "`rules` is empty; give at least one rule"
-            )
-        return rules
+        rules: list[Rule] = []
+        for item in spec:
+            if isinstance(item, Rule):
+                rules.append(item)
+            elif isinstance(item, str):
+                rules.extend(_parse_text(item))
+            else:
+                raise StudyInputError(
+                    "`rules` must be a rule text such as 'nelson', Rule objects or rule texts; "
+                    f"got {item!r}"
+                )
+        return tuple(rules)
     raise StudyInputError(
         f"`rules` ({spec!r}) must be a rule text such as 'nelson' or '1,2,5', or Rule objects"
     )
