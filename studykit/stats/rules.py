@@ -98,8 +98,8 @@ References
 Nelson, L. S. (1984). The Shewhart control chart -- tests for special causes. Journal of Quality
 Technology 16(4), 237-239.
 Western Electric Company (1956). Statistical Quality Control Handbook. Indianapolis.
-Montgomery, D. C. Introduction to Statistical Quality Control, section on sensitizing rules for
-Shewhart charts (from memory).
+Montgomery, D. C. and Runger, G. C. Applied Statistics and Probability for Engineers, ch. 16
+(rules as reproduced there; cited from the project's REFERENCES.md).
 """
 
 from __future__ import annotations
