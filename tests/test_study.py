@@ -322,3 +322,35 @@ def test_set_spec_decision_with_unknown_field_refused():
     d = Decision("bore", "set_spec", who="A", reason="r", payload={"changes": {"colour": "red"}})
     with pytest.raises(SpecError, match=r"set_spec: unknown specification field\(s\) \['colour'\]"):
         make_study().with_decision(d)
+
+
+_limit = st.one_of(st.none(), st.floats(-1e6, 1e6, allow_nan=False))
+
+
+@settings(max_examples=200, deadline=None)
+@given(_limit, _limit, _limit)
+def test_spec_accepted_exactly_when_consistent(lsl, usl, target):
+    consistent = (
+        (lsl is not None or usl is not None)
+        and (lsl is None or usl is None or lsl < usl)
+        and (target is None or ((lsl is None or target >= lsl) and (usl is None or target <= usl)))
+    )
+    if consistent:
+        c = Characteristic("x", lsl=lsl, usl=usl, target=target)
+        assert (c.lsl, c.usl, c.target) == (lsl, usl, target)
+    else:
+        with pytest.raises(SpecError, match="characteristic 'x': "):
+            Characteristic("x", lsl=lsl, usl=usl, target=target)
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.lists(st.sampled_from(["bore", "runout"]), min_size=1, max_size=6),
+       st.permutations([0, 1]))
+def test_digest_ignores_characteristic_order(names, order):
+    chars = [Characteristic("bore", lsl=11.97, usl=12.03), Characteristic("runout", usl=0.05)]
+    a = make_study(characteristics=chars)
+    b = make_study(characteristics=[chars[i] for i in order])
+    for k, n in enumerate(names):
+        a = a.exclude(n, k, reason="r", who="A")
+        b = b.exclude(n, k, reason="r", who="A")
+    assert a.content_digest() == b.content_digest()
