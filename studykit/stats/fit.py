@@ -75,18 +75,21 @@ _TINY = 1e-300
 # ---------------------------------------------------------------------------------------------
 # Anderson-Darling p-value tables
 # ---------------------------------------------------------------------------------------------
+# The critical values below are those scipy.stats.anderson (scipy 1.17) tabulates, citing
+# D'Agostino & Stephens (1986) and Stephens (1977, 1979); the table numbers of the book are
+# given from memory. tests/test_fit.py checks every p-value chain by simulation.
 #: Exponential, scale estimated: A*^2 = A^2 (1 + 0.6/n); upper-tail levels 15..1 %.
-#: D'Agostino & Stephens (1986) Table 4.14, values as tabulated in scipy.stats.anderson
-#: (scipy 1.17, ``_Avals_expon``).
+#: D'Agostino & Stephens (1986) Table 4.14 (from memory); scipy ``_Avals_expon``.
 _AD_EXPON = (np.array([0.916, 1.062, 1.321, 1.591, 1.959]),
              np.array([0.15, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.6 / n)
 #: Extreme value (and Weibull through log x), both parameters estimated: A*^2 = A^2 (1 +
-#: 0.2/sqrt(n)); Stephens (1977), D'Agostino & Stephens (1986) Table 4.17, as in
-#: scipy.stats.anderson (``_Avals_gumbel``).
+#: 0.2/sqrt(n)); Stephens (1977), Biometrika 64, 583-588; D'Agostino & Stephens (1986)
+#: Table 4.17 (from memory); scipy ``_Avals_gumbel``.
 _AD_EV = (np.array([0.474, 0.637, 0.757, 0.877, 1.038]),
           np.array([0.25, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.2 / math.sqrt(n))
 #: Logistic, both parameters estimated: A*^2 = A^2 (1 + 0.25/n); Stephens (1979),
-#: D'Agostino & Stephens (1986) Table 4.22, as in scipy.stats.anderson (``_Avals_logistic``).
+#: Biometrika 66, 591-595; D'Agostino & Stephens (1986) Table 4.22 (from memory); scipy
+#: ``_Avals_logistic``.
 _AD_LOGISTIC = (np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
                 np.array([0.25, 0.10, 0.05, 0.025, 0.01, 0.005]), lambda n: 1.0 + 0.25 / n)
 
