@@ -704,6 +704,11 @@ class Study:
             if name != c.name:
                 raise SpecError(f"characteristic stored under '{name}' is named '{c.name}'")
         set_(self, "characteristics", chars)
+        if self.criteria is not None and not isinstance(self.criteria, Mapping):
+            raise StudyInputError(
+                "`criteria` must map characteristic names to Criteria, e.g. "
+                "{'bore': Criteria(index='cpk', threshold=1.33)}"
+            )
         crit = _as_mapping(self.criteria, Criteria, key=None)
         for name, c in crit.items():
             if name not in chars:
