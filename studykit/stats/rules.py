@@ -225,6 +225,15 @@ class Rule:
         :func:`evaluate` skips a rule that is switched off.
     description : str
         One line in plain words, with the parameter values.
+
+    Examples
+    --------
+    >>> Rule.run(8).description
+    '8 points in a row on the same side of the centre line'
+    >>> Rule("zone_b", parameters={"count": 3}).params
+    {'count': 3, 'window': 5, 'sigmas': 1.0}
+    >>> Rule.trend().with_parameters(length=7).to_dict()["parameters"]
+    {'length': 7}
     """
 
     id: str
@@ -384,7 +393,14 @@ class Signal:
         One line in plain words, with point numbers counted from 1 as on a chart's axis (or the
         ``labels`` given to :func:`evaluate`).
     triggers : tuple of int
-        Every position that completed the pattern (``trigger`` is the first).
+        Every position that completed the pattern (``trigger`` is the first; filled with
+        ``(trigger,)`` when left out).
+
+    Examples
+    --------
+    >>> (sig,) = evaluate([0.5] * 10, center=0.0, sigma=1.0, rules="run")
+    >>> sig.to_dict()
+    {'rule': 'run', 'number': 2, 'points': [0, 1, 2, 3, 4, 5, 6, 7, 8, 9], 'trigger': 8, 'triggers': [8, 9], 'text': '10 points in a row above the centre line (points 1-10)'}
     """
 
     rule: str
