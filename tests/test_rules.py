@@ -584,14 +584,14 @@ def series(draw, max_len=80):
     return values
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=150, deadline=None)
 @given(x=series(), rules=rules_strategy(), center=st.integers(-2, 2), sigma=st.sampled_from([1.0, 2.0]))
 def test_matches_reference_scalar_levels(x, rules, center, sigma):
     got = _summary(evaluate(x, center=center, sigma=sigma, rules=rules))
     assert got == reference_evaluate(x, center=center, sigma=sigma, rules=rules)
 
 
-@settings(max_examples=120, deadline=None)
+@settings(max_examples=80, deadline=None)
 @given(data=st.data(), x=series(max_len=50), rules=rules_strategy())
 def test_matches_reference_per_point_levels(data, x, rules):
     n = len(x)
@@ -603,7 +603,7 @@ def test_matches_reference_per_point_levels(data, x, rules):
     assert got == reference_evaluate(x, center=center, sigma=sigma, lcl=lcl, ucl=ucl, rules=rules)
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=40, deadline=None)
 @given(x=series(), center=st.integers(-2, 2))
 def test_matches_reference_named_sets(x, center):
     for spec in ("nelson", "western_electric", "limits_only"):
@@ -615,7 +615,7 @@ def test_matches_reference_named_sets(x, center):
 # invariances
 
 
-@settings(max_examples=100, deadline=None)
+@settings(max_examples=60, deadline=None)
 @given(
     x=series(),
     rules=rules_strategy(),
@@ -640,7 +640,7 @@ def _flip_words(text):
     return " ".join(_FLIP.get(w, w) for w in text.split(" "))
 
 
-@settings(max_examples=100, deadline=None)
+@settings(max_examples=60, deadline=None)
 @given(x=series(), rules=rules_strategy(), center=st.integers(-2, 2))
 def test_mirror_flips_the_side(x, rules, center):
     # reflecting the points about the centre line turns above into below, up into down
