@@ -782,6 +782,7 @@ class _Table:
     # (float column indices) -> iterator like open_chunks, with those columns already float
     fast_chunks: Callable | None = None
     close: Callable = lambda: None
+    title_rows: tuple | None = None  # (first, last) spreadsheet rows skipped above the header
 
 
 def _sample_lines(src: _Source) -> list[str]:
@@ -791,18 +792,41 @@ def _sample_lines(src: _Source) -> list[str]:
     return lines
 
 
-def _sniff(lines: list[str]) -> str:
-    content = [ln for ln in lines if ln.strip()][:50]
-    if not content:
-        return ","
+def _sniff(lines: list[str], start: int) -> tuple[str, int]:
+    """Separator and index of the header line.
+
+    The header is the first line with two or more filled cells when only title lines (one
+    filled cell each) stand before it; the separator is the one that splits the header and the
+    lines below it into the same number of cells (tab, then semicolon, then comma).
+    """
+    idx = [i for i in range(start, len(lines)) if lines[i].strip()][:60]
+    if not idx:
+        return ",", start
+    delims = ("\t", ";", ",")
+    recs = {d: list(csv.reader([lines[i] for i in idx], delimiter=d)) for d in delims}
+
+    def filled(rec):
+        return sum(1 for c in rec if c.strip())
+
+    for d in delims:
+        r = recs[d]
+        k = next((m for m in range(min(10, len(r))) if filled(r[m]) >= 2), None)
+        if k is None or any(filled(r[m]) > 1 for m in range(k)):
+            continue
+        if k > 0 and all(_text_number(c) is not None for c in r[k] if c.strip()):
+            continue  # numbers, not a header below a title
+        if all(len(x) == len(r[k]) for x in r[k:]):
+            return d, idx[k]
+    # one column of numbers with decimal commas: nothing to split
+    semi = recs[";"]
+    if len(recs[","][0]) == 1 and all(len(x) == 1 for x in semi) and any(_COMMA_DECIMAL_RE.match(x[0].strip())
+                                               for x in semi[1:]):
+        return ";", idx[0]
     best, best_cols = ",", 1
-    for d in ("\t", ";", ","):
-        counts = [len(r) for r in csv.reader(content, delimiter=d)]
-        if counts and counts[0] > 1 and all(c == counts[0] for c in counts):
-            return d
-        if counts and counts[0] > best_cols:
-            best, best_cols = d, counts[0]
-    return best
+    for d in delims:
+        if len(recs[d][0]) > best_cols:
+            best, best_cols = d, len(recs[d][0])
+    return best, idx[0]
 
 
 def _open_csv(src: _Source) -> _Table:
@@ -816,7 +840,8 @@ def _open_csv(src: _Source) -> _Table:
             "the measurements again with the column names in the first row.",
             file=src.name,
         )
-    sep = _sniff(lines[header_index:])
+    first_line = header_index
+    sep, header_index = _sniff(lines, header_index)
     header = [h.strip() for h in next(csv.reader([lines[header_index]], delimiter=sep))]
 
     # decimal sign from the sample cells
@@ -895,7 +920,8 @@ def _open_csv(src: _Source) -> _Table:
             handle.close()
 
     return _Table(header=header, header_row=header_index + 1, open_chunks=chunks,
-                  fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True)
+                  fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True,
+                  title_rows=(first_line + 1, header_index) if header_index > first_line else None)
 
 
 def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFileError:
@@ -975,10 +1001,22 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     merged = _merged_ranges(wb, ws)
     header = None
     header_row = 0
+    first_row = None
     for r, values in enumerate(ws.iter_rows(values_only=True), start=1):
-        if values and any(v is not None and str(v).strip() != "" for v in values):
+        n_filled = sum(1 for v in (values or ()) if v is not None and str(v).strip() != "")
+        if n_filled == 0:
+            if first_row is not None and r - first_row > 10:
+                break
+            continue
+        if first_row is None:
+            first_row = r
             header = [("" if v is None else _cell_text(v)) for v in values]
             header_row = r
+        if n_filled >= 2:
+            header = [("" if v is None else _cell_text(v)) for v in values]
+            header_row = r
+            break
+        if r - first_row >= 10:
             break
     if header is None:
         wb.close()
@@ -1040,7 +1078,8 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
             yield _xlsx_chunk(rows_buf, cols_buf)
 
     return _Table(header=header, header_row=header_row, open_chunks=chunks, text_cells=False,
-                  merged_fill=fill, sheet=sheet_name, close=wb.close)
+                  merged_fill=fill, sheet=sheet_name, close=wb.close,
+                  title_rows=(first_row, header_row - 1) if header_row > first_row else None)
 
 
 def _xlsx_chunk(rows_buf, cols_buf):
@@ -1300,6 +1339,11 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
             f"text table: {sep_name}-separated, decimal sign '{table.decimal}', "
             f"encoding {src.encoding_label}"
         )
+    if table.title_rows:
+        a, b = table.title_rows
+        span = f"row {a}" if a == b else f"rows {a} to {b}"
+        notes.append(f"{span} above the header look like a title and were skipped; the header "
+                     f"is row {table.header_row}")
     try:
         return _read_table(src, table, notes, warnings_, layout=layout,
                            subgroup_column=subgroup_column, subgroup_size=subgroup_size,

@@ -620,3 +620,41 @@ def test_clean_csv_uses_the_fast_reader(monkeypatch):
     with pytest.raises(DataFileError, match="'abc' is not a number"):
         read_measurements_bytes(b"A\n1\nabc\n", "x.csv")
     assert used == ["fast_chunks", "chunks"]  # the fallback finds the cell
+
+
+def test_title_rows_above_the_header_are_skipped(tmp_path):
+    text = "Messprotokoll Welle 4711;;\n\nStichprobe;Durchmesser [mm];Bemerkung\n1;10,1;\n1;10,2;\n"
+    m = read_measurements(write(tmp_path, "t.csv", text))
+    d = m.get("Durchmesser")
+    assert d.rows.tolist() == [4, 5]
+    assert any("rows 1 to 2 above the header look like a title" in n for n in m.notes)
+    text = "Report shaft 4711\nSubgroup,Diameter [mm]\n1,10.1\n"
+    assert read_measurements(write(tmp_path, "u.csv", text)).get("Diameter").rows.tolist() == [3]
+    p = write_xlsx(tmp_path, "t.xlsx", [("Report shaft 4711",), (), ("Subgroup", "Diameter [mm]"),
+                                        (1, 10.1), (1, 10.2)], merge="A1:B1")
+    m = read_measurements(p)
+    assert m.get("Diameter").rows.tolist() == [4, 5]
+    assert m.subgroup_column == "Subgroup"
+
+
+def test_single_column_with_decimal_commas(tmp_path):
+    m = read_measurements(write(tmp_path, "s.csv", "Rauheit [um]\n0,81\n0,79\n\n0,85\n"))
+    r = m.get("Rauheit")
+    assert r.values[[0, 1, 3]].tolist() == [0.81, 0.79, 0.85] and r.n_missing == 1
+    assert m.decimal == ","
+
+
+def test_row_numbers_across_chunks(tmp_path, monkeypatch):
+    import studykit.data as data
+
+    monkeypatch.setattr(data, "_CHUNK_ROWS", 7)
+    lines = ["Subgroup;X"] + [f"{i // 5 + 1};{i},5" for i in range(30)]
+    lines.insert(12, "")  # an empty row between subgroups (skipped, noted)
+    m = read_measurements(write(tmp_path, "c.csv", "\n".join(lines) + "\n"))
+    x = m.get("X")
+    assert x.n == 30
+    assert x.rows.tolist() == list(range(2, 13)) + list(range(14, 33))
+    assert x.values[-1] == 29.5
+    lines[25] = "5;oops"
+    with pytest.raises(DataFileError, match=r"row 26, column 'X': 'oops' is not a number"):
+        read_measurements(write(tmp_path, "d.csv", "\n".join(lines) + "\n"))
