@@ -1,0 +1,613 @@
+"""The workbook's service over one study file: load, analyse, decide, sign, notify.
+
+A :class:`StudySession` is what every workbook panel talks to. It holds the study as last read
+from the study file, caches one :class:`~studykit.analysis.CharacteristicResult` per
+characteristic, and turns the engineer's actions (exclude or restore a subgroup, change a
+specification or criterion, choose a model, comment, sign) into appends to the study file
+(:class:`studykit.store.StudyFile`), each with who and why. After every change the study is read
+back from the file, the affected results are recomputed on demand and every listener is told.
+
+No statistics are computed here: results come from :mod:`studykit.analysis`; the only other
+numbers are a control chart over *every* subgroup (:func:`studykit.stats.charts.control_chart`),
+so a removed subgroup can still be drawn where it was.
+
+Results are cached under a fingerprint of everything that decides them (specification,
+criterion, exclusions with reasons, settings such as the chosen model, attached gauge study), so
+a change made by another person in another browser on the same file is picked up by
+:meth:`StudySession.reload` without stale numbers.
+
+Examples
+--------
+>>> import shutil, tempfile, pathlib
+>>> from studykit.app.session import StudySession, demo_study_path
+>>> path = pathlib.Path(tempfile.mkdtemp()) / "pilot.study"
+>>> _ = shutil.copy(demo_study_path(), path)
+>>> session = StudySession(path)
+>>> session.names
+('bore_diameter', 'face_runout', 'flange_thickness')
+>>> sorted(session.result("flange_thickness").removed_subgroups)
+['17', '18']
+>>> session.restore("flange_thickness", "17", reason="made before the chip (NCR-0412)",
+...                 who="A. Reviewer")
+>>> sorted(session.result("flange_thickness").removed_subgroups)
+['18']
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+import numpy as np
+
+from studykit.analysis import AnalysisOptions, analyze_study, read_study_measurements
+from studykit.errors import AnalysisError, StudyFileError, StudyInputError
+from studykit.store import StudyFile
+from studykit.study import Criteria
+
+__all__ = [
+    "WORKBOOK_OPTIONS",
+    "Proposal",
+    "RemovalRow",
+    "StudySession",
+    "demo_study_path",
+]
+
+#: How the workbook analyses: only *recorded* exclusions remove subgroups. Automatic phase-I
+#: removals are proposals that a person reviews (:meth:`StudySession.propose_removals`), then
+#: records; so what the screen shows is exactly what the study file says.
+WORKBOOK_OPTIONS = AnalysisOptions(phase1="off")
+
+_MODEL_PAYLOAD = "model"
+
+
+def demo_study_path() -> Path:
+    """The demo study file shipped in ``demo_data/`` (for examples and tests)."""
+    return Path(__file__).resolve().parents[2] / "demo_data" / "pump_housing_pilot.study"
+
+
+@dataclass(frozen=True)
+class Proposal:
+    """A subgroup that the automatic phase-I run would remove (not yet recorded).
+
+    Attributes
+    ----------
+    label : str
+        Subgroup label.
+    rule : str
+        The run rule that flagged it (e.g. ``"1"``: beyond the control limits).
+    chart : str or None
+        ``"location"`` or ``"dispersion"`` part of the chart.
+    iteration : int
+        Removal round (1 = on the first trial limits).
+    reason : str
+        studykit's description of the signal, e.g. "point 17 above UCL ...".
+    """
+
+    label: str
+    rule: str
+    chart: str | None
+    iteration: int
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {"label": self.label, "rule": self.rule, "chart": self.chart,
+                "iteration": self.iteration, "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class RemovalRow:
+    """One line of the removal log of a characteristic, read from the study file.
+
+    Attributes
+    ----------
+    label : str
+        Subgroup label.
+    action : {"exclude", "restore"}
+    who, when, reason : str
+    origin : {"person", "rule"}
+        ``"rule"`` when the removal was proposed by the automatic phase-I run and accepted by
+        ``who``; ``"person"`` when a person picked the subgroup.
+    rule : str or None
+        The run rule of a rule-proposed removal.
+    in_force : bool
+        The subgroup is excluded now (this is the latest exclude/restore for it).
+    """
+
+    label: str
+    action: str
+    who: str
+    when: str
+    reason: str
+    origin: str
+    rule: str | None
+    in_force: bool
+
+    def to_dict(self) -> dict:
+        return {"label": self.label, "action": self.action, "who": self.who, "when": self.when,
+                "reason": self.reason, "origin": self.origin, "rule": self.rule,
+                "in_force": self.in_force}
+
+
+def _check_name(who: str) -> str:
+    who = (who or "").strip()
+    if not who:
+        raise StudyInputError(
+            "`who` is empty: type your name in the 'Your name' field at the top of the panel; "
+            "every decision in the study file carries the name of the person who made it")
+    return who
+
+
+def _check_reason(reason: str, *, what: str) -> str:
+    reason = (reason or "").strip()
+    if not reason:
+        raise StudyInputError(
+            f"`reason` is empty: {what} needs a reason on record, e.g. 'tool change, logged in "
+            "shift book'")
+    return reason
+
+
+class StudySession:
+    """One open study file, its cached results and the changes made to it.
+
+    Parameters
+    ----------
+    path : str or Path
+        An existing study file.
+    options : AnalysisOptions, optional
+        How results are computed (default :data:`WORKBOOK_OPTIONS`: recorded exclusions only).
+
+    Attributes
+    ----------
+    path : Path
+    file : StudyFile
+    study : Study
+        The study as last read from the file.
+    current : str
+        The characteristic the panels show.
+    timings : dict
+        Seconds taken by the last analysis of each characteristic (for the benchmark).
+    """
+
+    def __init__(self, path, *, options: AnalysisOptions | None = None):
+        self.path = Path(path)
+        self.file = StudyFile(self.path)
+        self.study = self.file.load()
+        self.options = options or WORKBOOK_OPTIONS
+        self._measurements = None
+        self._results: dict[str, tuple[str, object]] = {}
+        self._errors: dict[str, tuple[str, str]] = {}
+        self._full_charts: dict[tuple, object] = {}
+        self._listeners: list[Callable[[StudySession, frozenset], None]] = []
+        self.timings: dict[str, float] = {}
+        names = self.study.characteristic_names
+        self.current = names[0] if names else None
+
+    # --- notification -------------------------------------------------------------------------
+    def subscribe(self, listener: Callable[[StudySession, frozenset], None]) -> None:
+        """Call ``listener(session, changed_names)`` after every change."""
+        self._listeners.append(listener)
+
+    def _notify(self, changed: Iterable[str]) -> None:
+        changed = frozenset(changed)
+        for listener in list(self._listeners):
+            listener(self, changed)
+
+    def select(self, name: str) -> None:
+        """Make ``name`` the characteristic the panels show (listeners are told)."""
+        self.study.characteristic(name)  # clear error for an unknown name
+        if name != self.current:
+            self.current = name
+            self._notify(())
+
+    # --- reading ------------------------------------------------------------------------------
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.study.characteristic_names
+
+    @property
+    def measurements(self):
+        """The study's stored data copy, read once."""
+        if self._measurements is None:
+            self._measurements = read_study_measurements(self.study)
+        return self._measurements
+
+    def data(self, name: str):
+        """The :class:`~studykit.data.CharacteristicData` of ``name`` (times, notes, values)."""
+        return self.measurements.get(name)
+
+    def gauge(self, name: str) -> dict | None:
+        """Payload of the latest gauge R&R result attached for ``name``, if any."""
+        try:
+            found = self.file.results("gauge_rr", name)
+        except StudyInputError:
+            return None
+        return dict(found[-1].payload) if found else None
+
+    def _fingerprint(self, name: str) -> str:
+        s = self.study
+        excluded = {k: [d.reason, d.who, d.automatic]
+                    for k, d in s.excluded_subgroups(name).items()}
+        settings = [[d.action, dict(d.payload)] for d in s.decisions
+                    if d.characteristic == name and d.action.startswith("set_")]
+        return json.dumps([s.data_sha256, s.characteristic(name).to_dict(),
+                           s.criteria_for(name).to_dict(), excluded, settings,
+                           self._gauge_key(name)], sort_keys=True, default=str)
+
+    def _gauge_key(self, name: str):
+        g = getattr(self, "_gauges", None)
+        if g is None:
+            g = self._gauges = {}
+        if name not in g:
+            g[name] = self.gauge(name)
+        return g[name]
+
+    def result(self, name: str | None = None):
+        """The :class:`~studykit.analysis.CharacteristicResult` of ``name`` (default current).
+
+        Raises the analysis error (a :class:`StudyInputError`) when it cannot be analysed; see
+        :meth:`error` for a non-raising check.
+        """
+        name = name or self.current
+        key = self._fingerprint(name)
+        cached = self._results.get(name)
+        if cached is not None and cached[0] == key:
+            return cached[1]
+        failed = self._errors.get(name)
+        if failed is not None and failed[0] == key:
+            raise AnalysisError(failed[1])
+        start = time.perf_counter()
+        try:
+            res = analyze_study(self.study, name, measurements=self.measurements,
+                                options=self.options, gauge=self._gauge_key(name))
+        except StudyInputError as exc:
+            self._errors[name] = (key, str(exc))
+            raise
+        finally:
+            self.timings[name] = time.perf_counter() - start
+        self._results[name] = (key, res)
+        self._errors.pop(name, None)
+        return res
+
+    def error(self, name: str) -> str | None:
+        """Why ``name`` cannot be analysed (None when it can)."""
+        try:
+            self.result(name)
+        except StudyInputError as exc:
+            return str(exc)
+        return None
+
+    def is_cached(self, name: str) -> bool:
+        cached = self._results.get(name)
+        return cached is not None and cached[0] == self._fingerprint(name)
+
+    def analyze_all(self, *, progress: Callable[[int, int, str], None] | None = None) -> dict:
+        """Analyse every characteristic (cached ones are not recomputed).
+
+        ``progress(done, total, name)`` is called after each. Returns ``{name: result or
+        error text}``; one failure never stops the others.
+        """
+        out = {}
+        names = self.names
+        for i, name in enumerate(names, 1):
+            try:
+                out[name] = self.result(name)
+            except StudyInputError as exc:
+                out[name] = str(exc)
+            if progress is not None:
+                progress(i, len(names), name)
+        return out
+
+    def full_chart(self, name: str | None = None):
+        """A control chart of the same kind over every subgroup (no exclusions, no rules).
+
+        Only for drawing removed subgroups where they were; limits come from the result.
+        """
+        from studykit.stats.charts import control_chart
+
+        name = name or self.current
+        res = self.result(name)
+        chart = res.chart
+        key = (name, chart.kind, self.study.characteristic(name).subgroup_size)
+        if key not in self._full_charts:
+            data = self.data(name)
+            values = np.asarray(data.values, dtype=float)
+            labels = np.asarray(data.subgroups).astype(str)
+            keep = ~np.isnan(values)
+            sizes = None
+            spec = self.study.characteristic(name)
+            if spec.size_column:
+                sizes = np.asarray(self.data(spec.size_column).values, dtype=float)
+                keep &= ~np.isnan(sizes)
+                sizes = sizes[keep]
+            values, labels = values[keep], labels[keep]
+            if spec.subgroup_size and len(set(labels.tolist())) == labels.size:
+                labels = np.array([str(i // int(spec.subgroup_size) + 1)
+                                   for i in range(labels.size)])
+            try:
+                self._full_charts[key] = control_chart(values, labels, kind=chart.kind,
+                                                       sizes=sizes, evaluate=False)
+            except StudyInputError:
+                self._full_charts[key] = None
+        return self._full_charts[key]
+
+    def subgroup_details(self, name: str | None = None) -> dict[str, dict]:
+        """Per subgroup label: ``time`` (first value's), ``note`` (joined), ``values`` (list).
+
+        Read from the data file as it is (nothing computed).
+        """
+        name = name or self.current
+        data = self.data(name)
+        labels = np.asarray(data.subgroups).astype(str)
+        times = data.times
+        notes = data.notes
+        spec = self.study.characteristic(name)
+        if spec.subgroup_size and len(set(labels.tolist())) == labels.size:
+            labels = np.array([str(i // int(spec.subgroup_size) + 1) for i in range(labels.size)])
+        out: dict[str, dict] = {}
+        for i, lab in enumerate(labels.tolist()):
+            entry = out.setdefault(lab, {"time": "", "note": [], "values": []})
+            v = float(data.values[i])
+            entry["values"].append(None if np.isnan(v) else v)
+            if times is not None and not entry["time"]:
+                t = str(times[i])
+                entry["time"] = t[:16].replace("T", " ") if "T" in t else t
+            if notes is not None:
+                text = str(notes[i] or "").strip()
+                if text and text not in entry["note"]:
+                    entry["note"].append(text)
+        for entry in out.values():
+            entry["note"] = "; ".join(entry["note"])
+        return out
+
+    def removal_log(self, name: str | None = None) -> list[RemovalRow]:
+        """Every exclude/restore decision of ``name`` in the order made (from the study file)."""
+        name = name or self.current
+        decisions = [d for d in self.study.decisions
+                     if d.characteristic == name and d.action in ("exclude", "restore")]
+        in_force = self.study.excluded_subgroups(name)
+        rows = []
+        for d in decisions:
+            rule = d.payload.get("rule") if d.payload else None
+            rows.append(RemovalRow(
+                label=d.subgroup, action=d.action, who=d.who, when=d.when, reason=d.reason,
+                origin="rule" if d.automatic or rule else "person",
+                rule=None if rule is None else str(rule),
+                in_force=d.action == "exclude" and in_force.get(d.subgroup) is d))
+        return rows
+
+    # --- sign-off state -----------------------------------------------------------------------
+    @property
+    def is_locked(self) -> bool:
+        return self.study.is_locked
+
+    def signoff_state(self):
+        return self.study.signoff_state()
+
+    def state_text(self) -> str:
+        """Short state for the header: open / approved and locked / approval voided."""
+        states = self.study.signoff_state()
+        if self.study.is_locked:
+            return "Approved · locked"
+        if any(st.signoff.is_approval and not st.valid for st in states):
+            return "Approval voided"
+        if any(st.valid for st in states):
+            return "Signed in part"
+        return "Study open"
+
+    def audit_log(self):
+        return self.file.audit_log()
+
+    # --- changes ------------------------------------------------------------------------------
+    def _lock(self, override_reason: str | None) -> dict:
+        reason = (override_reason or "").strip()
+        return {"override_lock": True, "override_reason": reason} if reason else {}
+
+    def _saved(self, changed: Iterable[str]) -> None:
+        self.study = self.file.load()
+        self._notify(changed)
+
+    def reload(self) -> None:
+        """Read the study file again (changes made in another browser show up)."""
+        self._gauges = {}
+        self._saved(self.names)
+
+    def exclude(self, name: str, subgroup, *, reason: str, who: str,
+                override_reason: str | None = None) -> None:
+        """Record the exclusion of one subgroup (a person's decision)."""
+        who = _check_name(who)
+        reason = _check_reason(reason, what=f"removing subgroup {subgroup}")
+        self._check_subgroup(name, subgroup)
+        self.file.exclude(name, str(subgroup), reason=reason, who=who,
+                          **self._lock(override_reason))
+        self._saved([name])
+
+    def restore(self, name: str, subgroup, *, reason: str, who: str,
+                override_reason: str | None = None) -> None:
+        """Bring an excluded subgroup back (recorded with who and why)."""
+        who = _check_name(who)
+        reason = _check_reason(reason, what=f"restoring subgroup {subgroup}")
+        if str(subgroup) not in self.study.excluded_subgroups(name):
+            raise StudyInputError(
+                f"subgroup {subgroup} of '{name}' is not excluded, so there is nothing to "
+                "restore; pick one of: "
+                + (", ".join(self.study.excluded_subgroups(name)) or "none"))
+        self.file.restore(name, str(subgroup), reason=reason, who=who,
+                          **self._lock(override_reason))
+        self._saved([name])
+
+    def _check_subgroup(self, name: str, subgroup) -> None:
+        labels = set(np.asarray(self.data(name).subgroups).astype(str).tolist())
+        spec = self.study.characteristic(name)
+        if spec.subgroup_size:
+            n = len(self.data(name).values)
+            labels |= {str(i // int(spec.subgroup_size) + 1) for i in range(n)}
+        if str(subgroup) not in labels:
+            raise StudyInputError(
+                f"`subgroup` ({subgroup!r}) is not a subgroup of '{name}'; pick one shown on "
+                "the chart")
+        if str(subgroup) in self.study.excluded_subgroups(name):
+            raise StudyInputError(
+                f"subgroup {subgroup} of '{name}' is already excluded; restore it first if the "
+                "reason should change")
+
+    def propose_removals(self, name: str | None = None) -> tuple[Proposal, ...]:
+        """What the automatic phase-I run would remove on top of the recorded exclusions.
+
+        Nothing is recorded: each proposal is accepted (with a reason) or rejected by a person,
+        then :meth:`record_removals` writes the accepted ones.
+        """
+        name = name or self.current
+        res = analyze_study(self.study, name, measurements=self.measurements,
+                            options=replace(self.options, phase1="auto"))
+        manual = set(self.study.excluded_subgroups(name))
+        out = []
+        for r in res.phase1.removals:
+            label = str(r.label.item() if hasattr(r.label, "item") else r.label)
+            if r.rule == "manual" or label in manual:
+                continue
+            out.append(Proposal(label=label, rule=str(r.rule), chart=r.chart,
+                                iteration=int(r.iteration), reason=str(r.reason)))
+        return tuple(out)
+
+    def record_removals(self, name: str, accepted: Sequence[tuple[Proposal, str]], *, who: str,
+                        override_reason: str | None = None) -> int:
+        """Record accepted proposals in one transaction: ``[(proposal, reason), ...]``.
+
+        Each becomes an ``exclude`` decision marked automatic (proposed by the rule), with the
+        person who accepted it as ``who``, their reason, and the rule in the payload. Returns
+        how many were recorded.
+        """
+        who = _check_name(who)
+        items = []
+        for proposal, reason in accepted:
+            reason = _check_reason(reason, what=f"accepting the removal of subgroup "
+                                                f"{proposal.label}")
+            items.append((proposal, reason))
+        if not items:
+            return 0
+        lock = self._lock(override_reason)
+
+        # after the first change voids the approval, later ones need no override
+        def change_once(study):
+            first = True
+            for proposal, reason in items:
+                kwargs = lock if first else {}
+                study = study.exclude(
+                    name, proposal.label, reason=reason, who=who, automatic=True,
+                    payload={"rule": proposal.rule, "chart": proposal.chart,
+                             "signal": proposal.reason, "accepted_by": who}, **kwargs)
+                first = False
+            return study
+
+        self.file.apply(change_once)
+        self._saved([name])
+        return len(items)
+
+    def update_characteristic(self, name: str, *, who: str, reason: str,
+                              spec: Mapping | None = None, criteria: Criteria | None = None,
+                              override_reason: str | None = None) -> bool:
+        """Change specification fields and/or the criterion of ``name`` in one transaction.
+
+        Only fields that differ from the current ones are recorded. Returns False when nothing
+        changed.
+        """
+        who = _check_name(who)
+        reason = _check_reason(reason, what="a change of specification or criterion")
+        current = self.study.characteristic(name)
+        changes = {k: v for k, v in dict(spec or {}).items() if getattr(current, k) != v}
+        crit_changed = criteria is not None and criteria != self.study.criteria_for(name)
+        if not changes and not crit_changed:
+            return False
+        lock = self._lock(override_reason)
+
+        def change(study):
+            kwargs = dict(lock)
+            if changes:
+                study = study.with_spec(name, who=who, reason=reason, **kwargs, **changes)
+                kwargs = {}
+            if crit_changed:
+                study = study.with_criteria(name, criteria, who=who, reason=reason, **kwargs)
+            return study
+
+        self.file.apply(change)
+        self._saved([name])
+        return True
+
+    def set_model(self, name: str, model: str, *, who: str, reason: str,
+                  override_reason: str | None = None) -> None:
+        """Record the model choice (``auto``, ``normal``, ``boxcox``, ``johnson`` or a family)."""
+        self._setting(name, "set_model", {"model": str(model)}, who=who, reason=reason,
+                      override_reason=override_reason)
+
+    def set_chart(self, name: str, chart: str, *, who: str, reason: str,
+                  override_reason: str | None = None) -> None:
+        """Record the control chart choice (``auto``, ``xbar_r``, ``imr`` ...)."""
+        self._setting(name, "set_chart", {"chart": str(chart)}, who=who, reason=reason,
+                      override_reason=override_reason)
+
+    def _setting(self, name, action, payload, *, who, reason, override_reason):
+        from studykit.study import Decision
+
+        who = _check_name(who)
+        reason = _check_reason(reason, what=f"the {action.replace('_', ' ')} decision")
+        # validates the name through AnalysisOptions before anything is written
+        if action == "set_model":
+            AnalysisOptions(model=payload["model"])
+        else:
+            AnalysisOptions(chart=payload["chart"])
+        self.file.append_decision(Decision(name, action, reason=reason, who=who, payload=payload),
+                                  **self._lock(override_reason))
+        self._saved([name])
+
+    def preview(self, name: str, *, model: str | None = None):
+        """The result of ``name`` with another model, not recorded (for a before/after view)."""
+        return analyze_study(self.study, name, measurements=self.measurements,
+                             options=replace(self.options, model=model or None),
+                             gauge=self._gauge_key(name))
+
+    def add_comment(self, text: str, *, who: str, characteristic: str | None = None) -> None:
+        """A comment on the study or one characteristic (allowed on an approved study)."""
+        who = _check_name(who)
+        if not (text or "").strip():
+            raise StudyInputError("the comment is empty: write what the team should know")
+        self.file.add_comment(text.strip(), who=who, characteristic=characteristic)
+        self._saved(())
+
+    def comments(self, characteristic: str | None = None, *, all_: bool = False) -> list:
+        return [c for c in self.study.comments if all_ or c.characteristic == characteristic]
+
+    def sign(self, *, who: str, role: str, decision: str, comment: str = ""):
+        """Sign the study as it stands now; returns the saved SignOff."""
+        who = _check_name(who)
+        if not (role or "").strip():
+            raise StudyInputError("`role` is empty: choose prepared, reviewed or approved")
+        if decision in ("reject",) and not (comment or "").strip():
+            raise StudyInputError("a rejection needs a comment saying what must change")
+        s = self.file.add_signoff(who, role=role.strip(), decision=decision, comment=comment)
+        self._saved(())
+        return s
+
+    # --- export -------------------------------------------------------------------------------
+    def results_json(self) -> bytes:
+        """Every characteristic's result as JSON (the fields of ``studykit analyze --json``)."""
+        out = {"study": {"title": self.study.title, "part": self.study.part,
+                         "content_digest": self.study.content_digest(),
+                         "state": self.state_text()},
+               "characteristics": {}}
+        for name in self.names:
+            try:
+                out["characteristics"][name] = self.result(name).to_dict()
+            except StudyInputError as exc:
+                out["characteristics"][name] = {"error": str(exc)}
+        return json.dumps(out, indent=2, sort_keys=False, allow_nan=False).encode("utf-8")
+
+
+def open_session(path) -> StudySession:
+    """Open ``path`` as a :class:`StudySession` (StudyFileError when it is no study file)."""
+    if not Path(path).is_file():
+        raise StudyFileError(f"the study file '{Path(path).name}' does not exist")
+    return StudySession(path)
