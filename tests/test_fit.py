@@ -240,6 +240,9 @@ def test_ranking_rows_lrt_and_order():
     # shifted Weibull data: the threshold variant is clearly better than the 2-parameter one
     assert by_id["weibull3"].lrt_p_value < 1e-3
     json.dumps(r.to_dict(), allow_nan=False)
+    import dataclasses
+    assert tuple(f.name for f in dataclasses.fields(fit.FitRow)) == fit.ROW_FIELDS
+    assert tuple(r.to_dict()["rows"][0]) == fit.ROW_FIELDS
 
 
 def test_non_positive_data_skip_families_with_a_reason():

@@ -67,7 +67,8 @@ from scipy import special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
 
-__all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all"]
+__all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all", "ROW_FIELDS",
+           "RANKING_RULE"]
 
 _LOG_2PI = math.log(2.0 * math.pi)
 _TINY = 1e-300
@@ -755,12 +756,14 @@ class Family:
             Data unsuitable for the family (non-positive, too few, no spread) or no
             interior likelihood maximum.
         """
-        x = _clean(x)
-        self.check(x)
-        params, converged, note = self._estimate(x)
+        return self._fit_sorted(np.sort(_clean(x)))
+
+    def _fit_sorted(self, xs: np.ndarray) -> FittedModel:
+        """Fit to readings already checked by ``_clean`` and sorted (fit_all's path)."""
+        self.check(xs)
+        params, converged, note = self._estimate(xs)
         params = {k: float(v) for k, v in params.items()}
-        xs = np.sort(x)
-        n = x.size
+        n = xs.size
         loglik = float(self._logpdf(xs, params).sum())
         k = self.n_params
         a2 = self._ad(xs, params)
@@ -1158,14 +1161,18 @@ class FitRow:
     note: str | None
 
     def to_dict(self) -> dict:
-        return {
-            "rank": self.rank, "id": self.id, "label": self.label, "n_params": self.n_params,
-            "loglik": _f(self.loglik), "aic": _f(self.aic), "bic": _f(self.bic),
-            "ad_statistic": _f(self.ad_statistic), "ad_p_value": _f(self.ad_p_value),
-            "ad_p_text": self.ad_p_text, "lrt_p_value": _f(self.lrt_p_value),
-            "lrt_against": self.lrt_against, "converged": bool(self.converged),
-            "error": self.error, "note": self.note,
-        }
+        out = {}
+        for name in ROW_FIELDS:
+            v = getattr(self, name)
+            out[name] = _f(v) if isinstance(v, float) else v
+        out["converged"] = bool(self.converged)
+        return out
+
+
+#: Column names of the ranking table, defined once for the JSON, the table and the report.
+ROW_FIELDS = ("rank", "id", "label", "n_params", "loglik", "aic", "bic", "ad_statistic",
+              "ad_p_value", "ad_p_text", "lrt_p_value", "lrt_against", "converged", "error",
+              "note")
 
 
 @dataclass(frozen=True)
@@ -1253,7 +1260,7 @@ def fit_all(x, *, families=None) -> Ranking:
     >>> round(r.best.parameters["shape"], 3)
     1.893
     """
-    x = _clean(x)
+    x = np.sort(_clean(x))
     if families is None:
         ids = list(FAMILIES)
     else:
@@ -1269,7 +1276,7 @@ def fit_all(x, *, families=None) -> Ranking:
     errors: dict[str, str] = {}
     for fid in ids:
         try:
-            models[fid] = FAMILIES[fid].fit(x)
+            models[fid] = FAMILIES[fid]._fit_sorted(x)
         except AnalysisError as exc:
             errors[fid] = str(exc)
     rows = []
