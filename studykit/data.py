@@ -693,8 +693,9 @@ def _inspect(src: _Source, encoding: str | None) -> None:
         return
     if head.startswith(b"\xd0\xcf\x11\xe0"):
         raise DataFileError(
-            "this is an old-style Excel .xls workbook, which studykit does not read. Open it in "
-            "the spreadsheet program and save it as .xlsx (Excel workbook) or as CSV.",
+            "this is an old-style Excel .xls workbook or a password-protected workbook, which "
+            "studykit does not read. Open it in the spreadsheet program, remove the password if "
+            "there is one, and save it as .xlsx (Excel workbook) or as CSV.",
             file=src.name,
         )
     if suffix in (".xlsx", ".xlsm"):
@@ -1912,7 +1913,8 @@ def _times_chunk(cells: np.ndarray, fmt: str | None):
         return out, fmt
     if (is_dt & ~is_empty).any():
         return None, None
-    text = pd.Series(cells, dtype=object).str.strip()
+    text = pd.Series([v.strip() if isinstance(v, str) else _cell_text(v) for v in cells],
+                     dtype=object)
     filled = text != ""
     candidates = [fmt] if fmt else list(_TIME_FORMATS)
     sample = text[filled][:500]

@@ -658,3 +658,12 @@ def test_row_numbers_across_chunks(tmp_path, monkeypatch):
     lines[25] = "5;oops"
     with pytest.raises(DataFileError, match=r"row 26, column 'X': 'oops' is not a number"):
         read_measurements(write(tmp_path, "d.csv", "\n".join(lines) + "\n"))
+
+
+def test_xlsx_time_of_day_cells_kept_as_text(tmp_path):
+    import datetime as dt
+
+    p = write_xlsx(tmp_path, "t.xlsx", [("Time", "X"), (dt.time(8, 0), 1.0), (dt.time(9, 30), 2.0)])
+    m = read_measurements(p)
+    assert m.get("X").times.tolist() == ["08:00:00", "09:30:00"]
+    assert any("times kept as text" in n for n in m.notes)
