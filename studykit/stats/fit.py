@@ -755,6 +755,14 @@ class Family:
         AnalysisError
             Data unsuitable for the family (non-positive, too few, no spread) or no
             interior likelihood maximum.
+
+        Examples
+        --------
+        >>> m = FAMILIES["weibull"].fit([2.1, 3.4, 1.7, 2.8, 3.9, 2.2, 3.1])
+        >>> m.name, round(m.parameters["shape"], 3), round(m.parameters["scale"], 3)
+        ('weibull', 4.251, 3.022)
+        >>> round(float(m.ppf(0.5)), 3), m.ad_p_text
+        (2.773, '>0.25')
         """
         return self._fit_sorted(np.sort(_clean(x)))
 
