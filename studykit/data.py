@@ -633,6 +633,7 @@ class _Source:
     encoding_label: str = ""
     sample: str = ""
     sample_truncated: bool = False
+    encoding_given: bool = False
 
     def blocks(self) -> Iterator[bytes]:
         if self.data is not None:
@@ -717,6 +718,7 @@ def _inspect(src: _Source, encoding: str | None) -> None:
                 file=src.name, value=encoding,
             ) from None
         enc, label = encoding, encoding
+        src.encoding_given = True
     elif head.startswith(codecs.BOM_UTF8):
         enc, label = "utf-8-sig", "UTF-8 with BOM"
     elif head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
@@ -881,7 +883,9 @@ def _open_csv(src: _Source) -> _Table:
         except UnicodeDecodeError as exc:
             raise DataFileError(
                 f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
-                "Save the file as UTF-8 CSV, or give the encoding explicitly.",
+                + ("Leave the encoding out to have it detected, or give the one the file was "
+                   "saved with (e.g. 'cp1252' or 'utf-16')." if src.encoding_given else
+                   "Save the file as UTF-8 CSV, or give its encoding explicitly."),
                 file=src.name,
             ) from None
         finally:

@@ -667,3 +667,10 @@ def test_xlsx_time_of_day_cells_kept_as_text(tmp_path):
     m = read_measurements(p)
     assert m.get("X").times.tolist() == ["08:00:00", "09:30:00"]
     assert any("times kept as text" in n for n in m.notes)
+
+
+def test_wrong_encoding_given(tmp_path):
+    p = write(tmp_path, "w.csv", "A;Länge\n1;2\n", encoding="latin-1")
+    with pytest.raises(DataFileError, match=r"cannot be read as utf-8 .*Leave the encoding out"):
+        read_measurements(p, encoding="utf-8")
+    assert read_measurements(p, encoding="latin-1").names == ("A", "Länge")
