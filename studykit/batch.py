@@ -1,0 +1,530 @@
+"""Many characteristics at once: a plant-wide overview in one run.
+
+:func:`run_many` analyses every characteristic of a measurement file (or a chosen subset)
+with :func:`studykit.analysis.analyze_characteristic` and returns one overview row per
+characteristic (the numbers of :meth:`~studykit.analysis.CharacteristicResult.headline`).
+The work runs in parallel on the machine's cores (``concurrent.futures`` worker processes) or,
+optionally, on a Dask cluster (``scheduler=ADDRESS``). Each worker receives a chunk of
+characteristics as plain numpy arrays and specification dicts and sends back plain row dicts,
+so little is pickled and the numbers are identical whichever backend runs them.
+
+One characteristic that cannot be analysed gives a row with its error message; it never
+stops the batch. A characteristic with no specification is analysed for stability only and
+its row says so.
+
+:class:`BatchResult` writes the overview as JSON lines, CSV or XLSX; text cells that a
+spreadsheet would run as a formula are neutralised (see :func:`neutralise`).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import time
+import warnings
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, fields
+from pathlib import Path
+
+import numpy as np
+
+from studykit.errors import StudyInputError
+
+__all__ = [
+    "BATCH_COLUMNS",
+    "BatchResult",
+    "NO_SPEC_NOTE",
+    "neutralise",
+    "run_many",
+]
+
+#: Columns of the overview, in order (field names defined once for JSON, CSV and XLSX).
+BATCH_COLUMNS = (
+    "characteristic",
+    "verdict",
+    "meets",
+    "index",
+    "estimate",
+    "lower_bound",
+    "model",
+    "removed",
+    "warnings",
+    "n",
+    "note",
+    "error",
+)
+
+#: Note on the row of a characteristic analysed without specification limits.
+NO_SPEC_NOTE = "no specification limits: stability only (add a row to the specs table)"
+
+#: Chunks per worker: several, so the progress display moves and a slow chunk does not hold
+#: back the end of the run (common practice, no source).
+CHUNKS_PER_WORKER = 4
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise(value):
+    """Make a text cell safe for a spreadsheet: text starting with ``= + - @``, a tab or a
+    carriage return gets a leading apostrophe, so the spreadsheet shows it as text instead of
+    running it as a formula. Numbers, booleans and None pass unchanged.
+
+    References
+    ----------
+    OWASP, "CSV Injection" (formula characters = + - @, tab and carriage return).
+
+    Examples
+    --------
+    >>> neutralise("=1+2"), neutralise("bore"), neutralise(-1.5)
+    ("'=1+2", 'bore', -1.5)
+    """
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
+
+
+# ----------------------------------------------------------------------------- result
+
+
+@dataclass(frozen=True)
+class BatchResult:
+    """The overview of a batch run: one row per characteristic.
+
+    Attributes
+    ----------
+    rows : tuple of dict
+        One dict per characteristic with the keys of :data:`BATCH_COLUMNS`: ``characteristic``,
+        ``verdict`` (sentence or None), ``meets`` (True/False/None), ``index`` (e.g. ``"ppk"``),
+        ``estimate`` and ``lower_bound`` of that index, ``model`` (distribution model id),
+        ``removed`` (phase-I removals), ``warnings`` (count), ``n`` (values used), ``note`` and
+        ``error`` (message, or None when the analysis ran).
+    jobs : int
+        Worker processes used (1: in this process).
+    backend : str
+        ``"local"`` (this process), ``"processes"`` or ``"dask"``.
+    seconds : float
+        Wall time of the analyses (not of reading the file).
+    """
+
+    rows: tuple
+    jobs: int = 1
+    backend: str = "local"
+    seconds: float = 0.0
+
+    @property
+    def n(self) -> int:
+        return len(self.rows)
+
+    @property
+    def n_failed(self) -> int:
+        """Rows whose analysis raised an error."""
+        return sum(1 for r in self.rows if r["error"] is not None)
+
+    @property
+    def n_meeting(self) -> int:
+        return sum(1 for r in self.rows if r["meets"] is True)
+
+    @property
+    def n_not_meeting(self) -> int:
+        return sum(1 for r in self.rows if r["meets"] is False)
+
+    def row(self, name: str) -> dict:
+        """The row of characteristic ``name``."""
+        for r in self.rows:
+            if r["characteristic"] == name:
+                return r
+        raise StudyInputError(f"the batch has no characteristic '{name}'")
+
+    def to_dict(self) -> dict:
+        """JSON-safe: counts, backend and every row."""
+        return {
+            "n": self.n,
+            "n_meeting": self.n_meeting,
+            "n_not_meeting": self.n_not_meeting,
+            "n_failed": self.n_failed,
+            "jobs": self.jobs,
+            "backend": self.backend,
+            "seconds": _f(self.seconds),
+            "columns": list(BATCH_COLUMNS),
+            "rows": [dict(r) for r in self.rows],
+        }
+
+    def to_jsonl(self) -> str:
+        """One JSON object per line, one line per characteristic."""
+        return "".join(json.dumps(r, allow_nan=False) + "\n" for r in self.rows)
+
+    def to_csv(self) -> str:
+        """The overview as CSV text (comma separated, header row, formula text neutralised)."""
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(BATCH_COLUMNS)
+        for r in self.rows:
+            w.writerow(["" if r[c] is None else neutralise(r[c]) for c in BATCH_COLUMNS])
+        return buf.getvalue()
+
+    def write(self, path) -> Path:
+        """Write the overview; the format follows the suffix: ``.csv``, ``.xlsx``, ``.jsonl``
+        (or ``.json``: JSON lines as well)."""
+        p = Path(path)
+        suffix = p.suffix.lower()
+        if suffix == ".csv":
+            p.write_text(self.to_csv(), encoding="utf-8")
+        elif suffix in (".jsonl", ".json", ".ndjson"):
+            p.write_text(self.to_jsonl(), encoding="utf-8")
+        elif suffix == ".xlsx":
+            self._write_xlsx(p)
+        else:
+            raise StudyInputError(
+                f"the summary file '{p.name}' has suffix '{p.suffix}': use .csv, .xlsx or .jsonl"
+            )
+        return p
+
+    def _write_xlsx(self, p: Path) -> None:
+        from openpyxl import Workbook
+
+        wb = Workbook(write_only=True)
+        ws = wb.create_sheet("overview")
+        ws.append(list(BATCH_COLUMNS))
+        for r in self.rows:
+            ws.append([neutralise(r[c]) for c in BATCH_COLUMNS])
+        wb.save(p)
+
+
+def _f(v):
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+# ----------------------------------------------------------------------------- tasks
+
+
+@dataclass(frozen=True)
+class _Data:
+    """The part of CharacteristicData the analysis reads (cheap to rebuild in a worker)."""
+
+    name: str
+    unit: str | None
+    values: np.ndarray
+    subgroups: np.ndarray
+
+
+@dataclass(frozen=True)
+class _Task:
+    """One characteristic, as sent to a worker: arrays and plain dicts only."""
+
+    name: str
+    unit: str | None = None
+    values: np.ndarray | None = None
+    subgroups: np.ndarray | None = None
+    sizes: np.ndarray | None = None
+    spec: dict | None = None
+    criteria: dict | None = None
+    exclusions: dict | None = None
+    note: str | None = None
+    error: str | None = None
+
+
+def _empty_row(name: str) -> dict:
+    return dict.fromkeys(BATCH_COLUMNS) | {"characteristic": name}
+
+
+def _analyse_task(task: _Task, options) -> dict:
+    """One row; never raises."""
+    from studykit.analysis import analyze_characteristic
+    from studykit.study import Characteristic, Criteria
+
+    row = _empty_row(task.name)
+    row["note"] = task.note
+    if task.error is not None:
+        row["error"] = task.error
+        return row
+    try:
+        spec = Characteristic(**task.spec) if task.spec is not None else None
+        crit = Criteria(**task.criteria) if task.criteria is not None else None
+        data = _Data(task.name, task.unit, task.values, task.subgroups)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            res = analyze_characteristic(
+                data, spec, criteria=crit, sizes=task.sizes, exclusions=task.exclusions,
+                options=options,
+            )
+        row = result_row(res, note=task.note)
+        row["characteristic"] = task.name
+    except StudyInputError as exc:
+        row["error"] = str(exc)
+    except Exception as exc:  # noqa: BLE001 - one bad characteristic never stops the batch
+        row["error"] = f"could not be analysed ({type(exc).__name__}: {exc})"
+    return row
+
+
+def _run_chunk(tasks: list, options_dict: dict) -> list:
+    """Worker entry point: a chunk of tasks -> a list of row dicts (module level: picklable)."""
+    from studykit.analysis import AnalysisOptions
+
+    options = AnalysisOptions(**options_dict)
+    return [_analyse_task(t, options) for t in tasks]
+
+
+def _chunks(items: list, size: int) -> list:
+    return [items[i:i + size] for i in range(0, len(items), size)]
+
+
+# ----------------------------------------------------------------------------- building tasks
+
+
+def _spec_map(specs) -> dict:
+    if specs is None:
+        return {}
+    if isinstance(specs, Mapping):
+        return dict(specs)
+    return {c.name: c for c in specs}
+
+
+def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mapping,
+                 names: Iterable[str] | None) -> list[_Task]:
+    from studykit.study import match_to_data
+
+    size_columns = {c.size_column for c in specs.values() if c is not None and c.size_column}
+    data_names = list(measurements.names)
+    # specs are matched to the data's spelling (case, "name [unit]")
+    resolved: dict[str, tuple] = {}
+    spec_errors: dict[str, str] = {}
+    for key, c in specs.items():
+        if c is None:
+            continue
+        try:
+            (matched,), crit = match_to_data([c], {c.name: criteria[key]} if key in criteria
+                                             else {}, measurements)
+        except StudyInputError as exc:
+            spec_errors[c.name] = str(exc)
+            continue
+        resolved[matched.name] = (matched, crit.get(matched.name))
+    if names is None:
+        wanted = [n for n in data_names if n not in size_columns]
+        wanted += [n for n in spec_errors if n not in wanted]
+    else:
+        wanted = list(names)
+    tasks = []
+    for name in wanted:
+        if name in spec_errors:
+            tasks.append(_Task(name=name, error=spec_errors[name]))
+            continue
+        try:
+            data = measurements.get(name)
+        except StudyInputError as exc:
+            tasks.append(_Task(name=name, error=str(exc)))
+            continue
+        spec, crit = resolved.get(data.name, (None, None))
+        if crit is None:
+            crit = criteria.get(data.name)
+        sizes = None
+        if spec is not None and spec.size_column:
+            try:
+                sizes = np.asarray(measurements.get(spec.size_column).values, dtype=float)
+            except StudyInputError as exc:
+                tasks.append(_Task(name=data.name, error=str(exc)))
+                continue
+        no_limits = spec is None or (spec.lsl is None and spec.usl is None
+                                     and not spec.is_attribute)
+        tasks.append(_Task(
+            name=data.name,
+            unit=data.unit,
+            values=np.asarray(data.values, dtype=float),
+            subgroups=np.asarray(data.subgroups),
+            sizes=sizes,
+            spec=None if spec is None else spec.to_dict(),
+            criteria=None if crit is None else crit.to_dict(),
+            exclusions=dict(exclusions.get(data.name, {})) or None,
+            note=NO_SPEC_NOTE if no_limits else None,
+        ))
+    return tasks
+
+
+# ----------------------------------------------------------------------------- run
+
+
+def default_jobs() -> int:
+    """Cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def run_many(
+    measurements,
+    specs=None,
+    criteria: Mapping | None = None,
+    *,
+    options=None,
+    jobs: int | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+    scheduler=None,
+    names: Iterable[str] | None = None,
+    exclusions: Mapping | None = None,
+    chunk_size: int | None = None,
+) -> BatchResult:
+    """Analyse many characteristics; one overview row each, in the order of the data file.
+
+    Parameters
+    ----------
+    measurements : studykit.data.Measurements
+        The data (``names`` and ``get(name)``).
+    specs : iterable of Characteristic or mapping name -> Characteristic, optional
+        Specifications (e.g. from :func:`studykit.study.read_specs`). A characteristic without
+        one is analysed for stability only (row note :data:`NO_SPEC_NOTE`); a spec naming a
+        characteristic that is not in the data gives an error row. Columns named as a
+        ``size_column`` are lot sizes, not characteristics, and get no row of their own.
+    criteria : mapping name -> Criteria, optional
+        Acceptance criteria (default :class:`studykit.study.Criteria`).
+    options : AnalysisOptions, optional
+        The same options for every characteristic.
+    jobs : int, optional
+        Worker processes; default: the cores available. ``1`` runs in this process.
+    progress : callable, optional
+        ``progress(done, total, name)`` after each finished chunk (``name``: its last
+        characteristic), in the calling process.
+    scheduler : str or distributed.Client, optional
+        Address of a Dask scheduler (``tcp://host:8786``) or a client: the same chunks run on
+        that cluster instead of local processes. Needs the ``distributed`` package.
+    names : iterable of str, optional
+        Analyse only these characteristics, in this order.
+    exclusions : mapping name -> {subgroup label: (reason, who)}, optional
+        Recorded manual exclusions per characteristic.
+    chunk_size : int, optional
+        Characteristics per task; default total / (jobs x :data:`CHUNKS_PER_WORKER`).
+
+    Returns
+    -------
+    BatchResult
+        ``rows`` (dicts with the keys of :data:`BATCH_COLUMNS`), ``jobs``, ``backend``,
+        ``seconds``; ``n``, ``n_failed``, ``n_meeting``, ``n_not_meeting``; ``to_dict()``,
+        ``to_jsonl()``, ``to_csv()``, ``write(path)``.
+
+    Notes
+    -----
+    Each row holds exactly the numbers of ``analyze_characteristic(...).headline()`` for that
+    characteristic, whichever backend computed it: the work is deterministic (the bootstrap
+    seed is ``options.random_state``) and no state is shared between characteristics.
+
+    Examples
+    --------
+    >>> from studykit.data import CharacteristicData, Measurements
+    >>> from studykit.study import Characteristic
+    >>> x = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
+    >>> m = Measurements("demo.csv", "", "wide", "none",
+    ...                  (CharacteristicData("gap", "mm", x), CharacteristicData("flat", "mm", x)))
+    >>> res = run_many(m, [Characteristic("gap", lsl=40, usl=60)], jobs=1)
+    >>> [(r["characteristic"], r["meets"], r["n"]) for r in res.rows]
+    [('gap', False, 10), ('flat', None, 10)]
+    >>> res.rows[1]["note"] == NO_SPEC_NOTE
+    True
+    """
+    from studykit.analysis import AnalysisOptions
+
+    options = options or AnalysisOptions()
+    options_dict = {f.name: getattr(options, f.name) for f in fields(options)}
+    tasks = _build_tasks(measurements, _spec_map(specs), dict(criteria or {}),
+                         dict(exclusions or {}), names)
+    total = len(tasks)
+    if jobs is not None and (isinstance(jobs, bool) or int(jobs) < 1):
+        raise StudyInputError(f"`jobs` ({jobs!r}) must be a whole number of at least 1")
+    jobs = default_jobs() if jobs is None else int(jobs)
+    started = time.perf_counter()
+    if scheduler is not None:
+        rows = _run_dask(tasks, options_dict, scheduler, progress, chunk_size)
+        backend = "dask"
+    else:
+        jobs = max(1, min(jobs, total))
+        if chunk_size is None:
+            chunk_size = max(1, math.ceil(total / (jobs * CHUNKS_PER_WORKER)))
+        chunks = _chunks(tasks, int(chunk_size))
+        if jobs == 1 or len(chunks) <= 1:
+            rows = []
+            for chunk in chunks:
+                rows.extend(_run_chunk(chunk, options_dict))
+                if progress is not None:
+                    progress(len(rows), total, rows[-1]["characteristic"])
+            backend, jobs = "local", 1
+        else:
+            rows = _run_processes(chunks, options_dict, jobs, progress, total)
+            backend = "processes"
+    return BatchResult(rows=tuple(rows), jobs=jobs, backend=backend,
+                       seconds=time.perf_counter() - started)
+
+
+def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    import studykit.analysis  # noqa: F401 - imported before the fork, so workers start warm
+
+    methods = multiprocessing.get_all_start_methods()
+    ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
+    results: list = [None] * len(chunks)
+    done = 0
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+        futures = {pool.submit(_run_chunk, chunk, options_dict): i
+                   for i, chunk in enumerate(chunks)}
+        for fut in as_completed(futures):
+            i = futures[fut]
+            results[i] = fut.result()
+            done += len(results[i])
+            if progress is not None:
+                progress(done, total, results[i][-1]["characteristic"])
+    return [row for chunk in results for row in chunk]
+
+
+def _run_dask(tasks, options_dict, scheduler, progress, chunk_size) -> list:
+    try:
+        from distributed import Client, as_completed
+    except ImportError:  # pragma: no cover - optional dependency
+        raise StudyInputError(
+            "`scheduler` needs the Dask 'distributed' package: pip install 'dask[distributed]'"
+        ) from None
+    own = not isinstance(scheduler, Client)
+    try:
+        client = Client(scheduler, set_as_default=False) if own else scheduler
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise StudyInputError(
+            f"`scheduler` ({scheduler!r}): no Dask scheduler answers at that address ({exc}); "
+            "start one (dask scheduler) or leave --scheduler out to run locally"
+        ) from None
+    try:
+        total = len(tasks)
+        if chunk_size is None:
+            workers = max(1, sum(client.nthreads().values()))
+            chunk_size = max(1, math.ceil(total / (workers * CHUNKS_PER_WORKER)))
+        chunks = _chunks(tasks, int(chunk_size))
+        futures = client.map(_run_chunk, chunks, [options_dict] * len(chunks), pure=False)
+        index = {f.key: i for i, f in enumerate(futures)}
+        results: list = [None] * len(chunks)
+        done = 0
+        for fut in as_completed(futures):
+            i = index[fut.key]
+            results[i] = fut.result()
+            done += len(results[i])
+            if progress is not None:
+                progress(done, total, results[i][-1]["characteristic"])
+        return [row for chunk in results for row in chunk]
+    finally:
+        if own:
+            client.close()
+
+
+def result_row(result, *, note: str | None = None) -> dict:
+    """The overview row of one :class:`~studykit.analysis.CharacteristicResult`, as a batch
+    shows it (``error`` None)."""
+    row = _empty_row(result.characteristic)
+    row["note"] = note
+    head = result.headline()
+    for key in BATCH_COLUMNS:
+        if key in head:
+            row[key] = head[key]
+    row["n"] = int(result.n)
+    return row

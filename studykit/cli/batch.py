@@ -1,0 +1,160 @@
+"""``studykit analyze FILE --all``: every characteristic of a file, one overview row each.
+
+Called by :mod:`studykit.cli.analyze` for ``--all``. Specifications come from ``--specs``
+(a specs table), from a saved ``--study``, or, for characteristics not in the table, from
+``--lsl/--usl/--target`` when given; otherwise the characteristic is analysed for stability
+only. The overview goes to the terminal (a table), to stdout as JSON lines (``--json``) or to
+a file (``--out summary.csv|.xlsx|.jsonl``). Work runs on ``--jobs N`` local processes
+(default: every core) or on a Dask cluster (``--scheduler ADDRESS``).
+"""
+
+from __future__ import annotations
+
+import sys
+
+from studykit.errors import StudyInputError
+
+
+class ProgressBar:
+    """A one-line progress bar on a terminal stream (silent when it is not a terminal)."""
+
+    def __init__(self, stream=None, *, width: int = 30, force: bool = False):
+        self.stream = stream if stream is not None else sys.stderr
+        self.width = width
+        self.active = force or bool(getattr(self.stream, "isatty", lambda: False)())
+        self._shown = False
+
+    def __call__(self, done: int, total: int, name: str) -> None:
+        if not self.active or total <= 0:
+            return
+        filled = int(self.width * done / total)
+        bar = "#" * filled + "-" * (self.width - filled)
+        label = str(name)[:30]
+        self.stream.write(f"\r[{bar}] {done}/{total} {label:<30}")
+        self.stream.flush()
+        self._shown = True
+
+    def close(self) -> None:
+        if self._shown:
+            self.stream.write("\n")
+            self.stream.flush()
+            self._shown = False
+
+
+def _inputs(args):
+    """(measurements, specs dict, criteria dict, exclusions dict) from the arguments."""
+    from studykit.cli.analyze import _criteria, _spec
+
+    if args.study:
+        from studykit.analysis import _exclusions, read_study_measurements
+        from studykit.store import StudyFile
+
+        study = StudyFile(args.study).load()
+        measurements = read_study_measurements(study)
+        specs, criteria, exclusions = {}, {}, {}
+        from dataclasses import replace
+
+        for name in study.characteristic_names:
+            base = study.characteristic(name)
+            spec = _spec(args, name, base.unit, base)
+            specs[name] = replace(spec, chart=args.chart.replace("-", "_") if args.chart
+                                  else study.chart_for(name),
+                                  model=args.model or study.model_for(name))
+            criteria[name] = _criteria(args, study.criteria_for(name))
+            exclusions[name] = _exclusions(study, name)
+        return measurements, specs, criteria, exclusions
+    if not args.file:
+        raise StudyInputError("give a measurement FILE or --study STUDYFILE")
+    from studykit.data import read_measurements
+
+    read_kw = {}
+    if args.subgroup_column:
+        read_kw["subgroup_column"] = args.subgroup_column
+    if args.sheet:
+        read_kw["sheet"] = args.sheet
+    measurements = read_measurements(args.file, **read_kw)
+    specs, criteria = {}, {}
+    if args.specs:
+        from studykit.study import read_specs
+
+        chars, table_criteria = read_specs(args.specs)
+        specs = {c.name: c for c in chars}
+        criteria = dict(table_criteria)
+    sizes = {c.size_column for c in specs.values() if c.size_column}
+    for name in measurements.names:
+        if name in specs or name in sizes:
+            continue
+        if any(name.casefold() == k.casefold() for k in specs):
+            continue
+        spec = _spec(args, name, measurements.get(name).unit)
+        if spec is not None:
+            specs[name] = spec
+    if args.index is not None or args.threshold is not None or args.basis is not None:
+        criteria = {name: _criteria(args, criteria.get(name)) for name in specs}
+    return measurements, specs, criteria, {}
+
+
+def format_table(result) -> str:
+    """The overview as a plain terminal table."""
+    head = ("characteristic", "verdict", "index", "estimate", "lower", "model", "removed",
+            "warn")
+    rows = []
+    for r in result.rows:
+        if r["error"] is not None:
+            verdict = "ERROR"
+        else:
+            verdict = {True: "meets", False: "does not meet", None: "not judged"}[r["meets"]]
+        rows.append((
+            r["characteristic"], verdict, r["index"] or "-", _num(r["estimate"]),
+            _num(r["lower_bound"]), r["model"] or "-", str(r["removed"] or 0),
+            str(r["warnings"] or 0),
+        ))
+    widths = [max(len(h), *(len(str(row[i])) for row in rows)) if rows else len(h)
+              for i, h in enumerate(head)]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)),
+             "  ".join("-" * w for w in widths)]
+    for row in rows:
+        lines.append("  ".join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)))
+    for r in result.rows:
+        if r["error"] is not None:
+            lines.append(f"error: {r['characteristic']}: {r['error']}")
+        elif r["note"]:
+            lines.append(f"note: {r['characteristic']}: {r['note']}")
+    lines.append(_summary_line(result))
+    return "\n".join(lines) + "\n"
+
+
+def _summary_line(result) -> str:
+    return (f"{result.n} characteristic(s): {result.n_meeting} meet, {result.n_not_meeting} do "
+            f"not meet, {result.n_failed} could not be analysed ({result.seconds:.1f} s, "
+            f"{result.backend}, {result.jobs} job(s))")
+
+
+def _num(v) -> str:
+    return "-" if v is None else f"{v:.3f}"
+
+
+def run_batch(args) -> int:
+    """``studykit analyze ... --all``; exit status 0 when the batch ran (error rows included)."""
+    from studykit.batch import run_many
+    from studykit.cli.analyze import _options
+
+    if args.characteristic:
+        raise StudyInputError("give either --characteristic NAME or --all, not both")
+    measurements, specs, criteria, exclusions = _inputs(args)
+    bar = ProgressBar()
+    try:
+        result = run_many(
+            measurements, specs, criteria, options=_options(args), jobs=args.jobs,
+            progress=bar, scheduler=args.scheduler, exclusions=exclusions,
+        )
+    finally:
+        bar.close()
+    if args.out:
+        path = result.write(args.out)
+        print(f"{_summary_line(result)}; overview written to {path.name}", file=sys.stderr)
+    if args.json:
+        sys.stdout.write(result.to_jsonl())
+    elif not args.out:
+        sys.stdout.write(format_table(result))
+    return 0
