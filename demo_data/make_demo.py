@@ -54,9 +54,15 @@ CHARACTERISTICS = [
                    description="Sealing face runout to bore axis; bounded at zero"),
     Characteristic("flange_thickness", unit="mm", lsl=7.900, usl=8.100, target=8.000,
                    chart="xbar_r", description="Mounting flange thickness, op 30"),
+    Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True, chart="imr",
+                   source=PULL_CSV,
+                   description="Destructive pull-off test of the pressed-in bushing, one specimen "
+                               "per half hour"),
+    Characteristic("leak_test_defectives", chart="p", size_column="lot_size", source=LOTS_CSV,
+                   description="End-of-line leak test: rejected housings per lot"),
 ]
 CRITERIA = {c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
-            for c in CHARACTERISTICS}
+            for c in CHARACTERISTICS if not c.is_attribute}
 
 # the recorded decisions and the comment of the demo study (fixed times so the demo is stable)
 DECISIONS = [
@@ -74,8 +80,8 @@ DECISIONS = [
              who="R. Okonkwo", when="2026-03-03T09:20:00Z"),
 ]
 COMMENT = dict(
-    text="Gauge R&R for flange thickness (10 parts x 3 appraisers x 3 trials) is in "
-         "gauge_flange_thickness.csv; attach its result before sign-off.",
+    text="Gauge R&R for flange thickness (10 parts x 3 appraisers x 3 trials, "
+         "gauge_flange_thickness.csv) is attached to the study; read its verdict before sign-off.",
     who="L. Haverkamp", when="2026-03-03T10:05:00Z",
 )
 
@@ -122,7 +128,7 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
     defectives = rng.binomial(sizes, 0.012)
     rows = [[f"L{k + 1:03d}", str(n), str(d)] for k, (n, d) in enumerate(zip(sizes, defectives,
                                                                             strict=True))]
-    files[LOTS_CSV] = _rows_to_csv(["lot", "lot_size", "defectives"], rows)
+    files[LOTS_CSV] = _rows_to_csv(["lot", "lot_size", "leak_test_defectives"], rows)
 
     # -- crossed gauge study on flange thickness: 10 parts x 3 appraisers x 3 trials ---------
     true = 8.000 + rng.normal(0, 0.03, 10)
@@ -148,21 +154,32 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
     header = ["characteristic", "unit", "lsl", "usl", "target", "safety_critical", "criterion",
               "threshold", "basis"]
     files[SPECS_CSV] = _rows_to_csv(header, [spec_row(c, CRITERIA[c.name])
-                                             for c in CHARACTERISTICS])
+                                             for c in CHARACTERISTICS
+                                             if c.source is None])
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
     return files
 
 
-def write_study(folder: Path, pilot: bytes) -> Path:
-    """The demo study file: specs, criteria, three decisions with reasons, one comment."""
+def write_study(folder: Path, files: dict[str, bytes]) -> Path:
+    """The demo study file: three data files, specs, criteria, decisions with reasons, one
+    comment, and the gauge R&R result beside the characteristic it qualifies."""
+    from studykit.stats.gauge import gauge_rr
+
     path = folder / STUDY_FILE
-    sf = StudyFile.create(path, data=pilot, filename=PILOT_CSV, title=TITLE, part=PART,
-                          supplier=SUPPLIER, characteristics=CHARACTERISTICS, criteria=CRITERIA,
-                          who="demo script", overwrite=True)
+    sf = StudyFile.create(path, data=files[PILOT_CSV], filename=PILOT_CSV, title=TITLE,
+                          part=PART, supplier=SUPPLIER, characteristics=CHARACTERISTICS,
+                          criteria=CRITERIA, who="demo script", overwrite=True,
+                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV])])
     for d in DECISIONS:
         sf.append_decision(d)
     sf.add_comment(**COMMENT)
+    rows = [line.split(",") for line in files[GAUGE_CSV].decode().splitlines()[1:]]
+    flange = next(c for c in CHARACTERISTICS if c.name == "flange_thickness")
+    result = gauge_rr([float(r[3]) for r in rows], [r[0] for r in rows], [r[1] for r in rows],
+                      trials=[r[2] for r in rows], lsl=flange.lsl, usl=flange.usl)
+    sf.attach_result("gauge_rr", "flange_thickness",
+                     dict(result.to_dict(), source=GAUGE_CSV), who="L. Haverkamp")
     return path
 
 
@@ -170,7 +187,7 @@ def generate(folder: Path) -> None:
     files = make_files(np.random.default_rng(SEED))
     for name, content in files.items():
         (folder / name).write_bytes(content)
-    write_study(folder, files[PILOT_CSV])
+    write_study(folder, files)
 
 
 def logical_content(path: Path) -> dict:

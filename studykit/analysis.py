@@ -40,6 +40,9 @@ __all__ = [
     "analyze_study",
     "analyze_all",
     "NORMALITY_ALPHA",
+    "NO_GAUGE",
+    "gauge_results",
+    "read_study_measurements",
     "SAFETY_CAUTION",
 ]
 
@@ -878,15 +881,40 @@ def analyze_characteristic(
     )
 
 
+#: Marker for "the study was searched for a gauge study and none is attached".
+NO_GAUGE: Mapping = {"status": "not_checked"}
+
+
 def _gauge_finding(gauge: Mapping):
+    """A plain-word finding about the gauge study behind a characteristic."""
     Finding = capability_module.Finding
-    verdict = str(gauge.get("verdict_text") or gauge.get("verdict") or "")
-    acceptable = gauge.get("acceptable")
-    if acceptable is False:
-        text = "The gauge study for this characteristic did not pass: " + verdict
-        return Finding(code="gauge_failed", severity="warning", text=text)
+    verdict = gauge.get("verdict") if isinstance(gauge.get("verdict"), Mapping) else {}
+    status = verdict.get("status", gauge.get("status"))
+    message = verdict.get("message", "")
+    if status == "not_checked":
+        return Finding(
+            code="gauge_not_checked", severity="warning",
+            text="No gauge study is attached for this characteristic: the measurement system "
+                 "was not checked, so part of the spread may be measurement error.",
+        )
+    if status in ("unacceptable", "not_acceptable", "fail", "failed"):
+        return Finding(code="gauge_failed", severity="warning",
+                       text="The gauge study for this characteristic failed: " + message)
+    if status in ("conditional", "conditionally_acceptable", "marginal"):
+        return Finding(code="gauge_conditional", severity="caution",
+                       text="The gauge study for this characteristic is only conditionally "
+                            "acceptable: " + message)
     return Finding(code="gauge_checked", severity="info",
-                   text="The gauge study for this characteristic: " + verdict)
+                   text="Gauge study for this characteristic: " + message)
+
+
+def gauge_results(study_file) -> dict:
+    """Latest stored gauge R&R payload per characteristic of a study file (kind "gauge_rr")."""
+    out: dict = {}
+    for r in study_file.results("gauge_rr"):
+        if r.characteristic:
+            out[r.characteristic] = r.payload
+    return out
 
 
 def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
@@ -964,11 +992,44 @@ def _exclusions(study, name) -> dict:
     }
 
 
-def read_study_measurements(study, **read_options):
-    """The study's stored data copy read as Measurements."""
-    from studykit.data import read_measurements_bytes
+class StudyMeasurements:
+    """Every data file of a study, read once; ``get(name)`` looks in the characteristic's file.
 
-    return read_measurements_bytes(study.data, study.data_filename, **read_options)
+    Behaves like :class:`studykit.data.Measurements` for what the analysis needs (``names``,
+    ``get``); ``files`` maps each file name to its own Measurements.
+    """
+
+    def __init__(self, study, **read_options):
+        from studykit.data import read_measurements_bytes
+
+        self.study = study
+        self.files = {
+            name: read_measurements_bytes(data, name, **read_options)
+            for name, data in study.files
+        }
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        out: list[str] = []
+        for m in self.files.values():
+            out.extend(n for n in m.names if n not in out)
+        return tuple(out)
+
+    def get(self, name: str, *, source: str | None = None):
+        """The data of ``name`` from ``source`` (default: the file the study assigns it)."""
+        if source is None and name in self.study.characteristics:
+            source = self.study.source_of(name)
+        if source is not None:
+            return self.files[source].get(name)
+        for m in self.files.values():
+            if name in m.names:
+                return m.get(name)
+        return next(iter(self.files.values())).get(name)  # raises the reader's clear error
+
+
+def read_study_measurements(study, **read_options) -> StudyMeasurements:
+    """The study's stored data copies read as measurements (all files of the study)."""
+    return StudyMeasurements(study, **read_options)
 
 
 def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptions | None = None,
@@ -977,11 +1038,17 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
 
     The chart and model settings recorded in the study (``set_chart``, ``set_model``) apply
     unless ``options`` names others; manual exclusions are applied with their reasons.
+    ``gauge`` is the stored gauge R&R payload of this characteristic (see :func:`gauge_results`)
+    or :data:`NO_GAUGE` when the study has none, which the findings then say.
     """
     spec = study.characteristic(name)
     measurements = measurements or read_study_measurements(study)
     data = measurements.get(name)
-    sizes = measurements.get(spec.size_column) if spec.size_column else None
+    sizes = None
+    if spec.size_column:
+        source = study.source_of(name) if isinstance(measurements, StudyMeasurements) else None
+        sizes = (measurements.get(spec.size_column, source=source) if source
+                 else measurements.get(spec.size_column))
     options = options or AnalysisOptions()
     chart = options.chart or study.chart_for(name)
     model = options.model or study.model_for(name)
@@ -1002,16 +1069,18 @@ def analyze_all(study, *, measurements=None, options: AnalysisOptions | None = N
                 gauges: Mapping | None = None) -> StudyResult:
     """Analyse every characteristic of ``study``; one failure never stops the others.
 
-    ``progress(done, total, name)`` is called after each characteristic.
+    ``progress(done, total, name)`` is called after each characteristic. ``gauges`` maps
+    characteristic names to stored gauge R&R payloads (:func:`gauge_results`); given, a
+    characteristic without one gets the finding that its gauge was not checked.
     """
     measurements = measurements or read_study_measurements(study)
     names = study.characteristic_names
     results, errors = {}, {}
     for i, name in enumerate(names):
         try:
+            gauge = None if gauges is None else gauges.get(name, NO_GAUGE)
             results[name] = analyze_study(
-                study, name, measurements=measurements, options=options,
-                gauge=(gauges or {}).get(name),
+                study, name, measurements=measurements, options=options, gauge=gauge,
             )
         except StudyInputError as exc:
             errors[name] = str(exc)

@@ -36,6 +36,7 @@ from studykit.study import (
     Characteristic,
     Comment,
     Criteria,
+    DataFile,
     Decision,
     SignOff,
     Study,
@@ -364,12 +365,14 @@ class StudyFile:
                part: str = "", supplier: str = "",
                characteristics: Iterable[Characteristic] | Mapping[str, Characteristic] = (),
                criteria: Mapping[str, Criteria] | None = None, who: str = "",
-               overwrite: bool = False) -> StudyFile:
+               overwrite: bool = False,
+               extra_files: Iterable[tuple[str, bytes]] = ()) -> StudyFile:
         """Create a new study file holding ``data`` and the first specifications.
 
         The file is built under a temporary name beside ``path`` and moved into place only when
         complete, so a crash never leaves a half-made study file. An existing file is refused
-        unless ``overwrite=True``.
+        unless ``overwrite=True``. ``extra_files`` are further measurement files,
+        ``(filename, bytes)``; a characteristic names its file with ``Characteristic.source``.
 
         Returns
         -------
@@ -378,7 +381,8 @@ class StudyFile:
         path = Path(path)
         study = Study(title=title, part=part, supplier=supplier, data=data,
                       data_filename=Path(str(filename)).name, characteristics=characteristics,
-                      criteria=criteria or {})
+                      criteria=criteria or {},
+                      extra_files=tuple(DataFile(Path(str(n)).name, b) for n, b in extra_files))
         if path.exists() and not overwrite:
             raise StudyFileError(
                 f"'{path}' already exists: choose another name or pass overwrite=True "
@@ -405,6 +409,12 @@ class StudyFile:
                 "VALUES (?, ?, ?, ?, ?, ?)",
                 (study.data_filename, study.data_sha256, len(study.data), study.data, at, who),
             )
+            for f in study.extra_files:
+                conn.execute(
+                    "INSERT INTO data_files (filename, sha256, size, content, added_at, added_by) "
+                    "VALUES (?, ?, ?, ?, ?, ?)",
+                    (f.filename, f.sha256, len(f.data), f.data, at, who),
+                )
             for pos, (name, c) in enumerate(study.characteristics.items()):
                 crit = study.criteria.get(name)
                 conn.execute(
@@ -447,19 +457,21 @@ class StudyFile:
 
     def _load(self, conn) -> Study:
         meta = dict(conn.execute("SELECT key, value FROM meta"))
-        row = conn.execute(
-            "SELECT filename, sha256, content FROM data_files ORDER BY id DESC LIMIT 1"
-        ).fetchone()
-        if row is None:
+        rows = conn.execute(
+            "SELECT filename, sha256, content FROM data_files ORDER BY id"
+        ).fetchall()
+        if not rows:
             raise StudyFileError(f"study file '{self.path}' holds no data copy: it is damaged")
-        filename, sha, content = row
-        actual = hashlib.sha256(content).hexdigest()
-        if actual != sha:
-            raise StudyFileError(
-                f"study file '{self.path}': the stored copy of '{filename}' does not match its "
-                f"recorded SHA-256 (recorded {sha[:12]}..., now {actual[:12]}...): the data were "
-                "altered outside studykit; restore the study file from a backup"
-            )
+        for filename, sha, content in rows:
+            actual = hashlib.sha256(content).hexdigest()
+            if actual != sha:
+                raise StudyFileError(
+                    f"study file '{self.path}': the stored copy of '{filename}' does not match "
+                    f"its recorded SHA-256 (recorded {sha[:12]}..., now {actual[:12]}...): the "
+                    "data were altered outside studykit; restore the study file from a backup"
+                )
+        filename, sha, content = rows[0]
+        extra = tuple(DataFile(f, c, sha256=h) for f, h, c in rows[1:])
         chars, crit = [], {}
         for name, spec_json, crit_json in conn.execute(
             "SELECT name, spec_json, criteria_json FROM characteristics ORDER BY position"
@@ -492,7 +504,7 @@ class StudyFile:
                 title=meta.get("title", ""), part=meta.get("part", ""),
                 supplier=meta.get("supplier", ""), data=content, data_filename=filename,
                 data_sha256=sha, characteristics=chars, criteria=crit, decisions=decisions,
-                comments=comments, signoffs=signoffs,
+                comments=comments, signoffs=signoffs, extra_files=extra,
             )
         except StudyFileError:
             raise

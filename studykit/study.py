@@ -196,6 +196,9 @@ class Characteristic:
         ``"auto"`` or the name of a distribution model (e.g. ``"normal"``, ``"lognormal"``).
     description : str
         Free text (drawing reference, gauge used...).
+    source : str, optional
+        File name of the data file (within the study) that holds this characteristic; None
+        means the study's first data file.
 
     Raises
     ------
@@ -222,6 +225,7 @@ class Characteristic:
     size_column: str | None = None
     model: str = "auto"
     description: str = ""
+    source: str | None = None
 
     def __post_init__(self):
         name = _text(self.name, name="name", error=SpecError, required=True).strip()
@@ -277,6 +281,10 @@ class Characteristic:
             )
         set_(self, "model", model)
         set_(self, "description", _text(self.description, name="description", error=SpecError))
+        source = self.source
+        if source is not None:
+            source = _text(source, name="source", error=SpecError).strip() or None
+        set_(self, "source", source)
 
     @property
     def two_sided(self) -> bool:
@@ -294,8 +302,12 @@ class Characteristic:
         return self.chart in ATTRIBUTE_CHARTS
 
     def to_dict(self) -> dict:
-        """JSON-safe dict of every field."""
-        return dataclasses.asdict(self)
+        """JSON-safe dict of every field (``source`` only when set, so single-file studies keep
+        the digest they always had)."""
+        out = dataclasses.asdict(self)
+        if out.get("source") is None:
+            out.pop("source", None)
+        return out
 
     @classmethod
     def from_dict(cls, d: Mapping) -> Characteristic:
@@ -629,6 +641,45 @@ def _as_mapping(items, kind, *, key) -> MappingProxyType:
     return MappingProxyType(out)
 
 
+@dataclass(frozen=True)
+class DataFile:
+    """A further measurement file kept in a study (the first one is ``Study.data``).
+
+    Attributes
+    ----------
+    filename : str
+        Its original file name (unique within the study).
+    data : bytes
+        The file exactly as imported.
+    sha256 : str
+        SHA-256 of ``data``; computed when empty, checked when given.
+    """
+
+    filename: str
+    data: bytes
+    sha256: str = ""
+
+    def __post_init__(self):
+        name = _text(self.filename, name="filename", required=True).strip()
+        object.__setattr__(self, "filename", name)
+        if not isinstance(self.data, bytes | bytearray | memoryview):
+            raise StudyInputError(
+                f"`data` of '{name}' must be the raw bytes of the file, got "
+                f"{type(self.data).__name__}"
+            )
+        data = bytes(self.data)
+        object.__setattr__(self, "data", data)
+        actual = hashlib.sha256(data).hexdigest()
+        given = (self.sha256 or "").strip().lower()
+        if given and given != actual:
+            raise StudyFileError(
+                f"the stored copy of '{name}' does not match its recorded SHA-256 (recorded "
+                f"{given[:12]}..., actual {actual[:12]}...): the data were altered; restore the "
+                "file from a backup"
+            )
+        object.__setattr__(self, "sha256", actual)
+
+
 @dataclass(frozen=True, kw_only=True)
 class Study:
     """A capability study: raw data, specifications, criteria, decisions, comments, sign-offs.
@@ -679,6 +730,7 @@ class Study:
     decisions: tuple[Decision, ...] = ()
     comments: tuple[Comment, ...] = ()
     signoffs: tuple[SignOff, ...] = ()
+    extra_files: tuple[DataFile, ...] = ()
 
     def __post_init__(self):
         set_ = object.__setattr__
@@ -699,10 +751,27 @@ class Study:
                 "restore the file from a backup"
             )
         set_(self, "data_sha256", actual)
+        extra = tuple(self.extra_files)
+        names = [self.data_filename]
+        for f in extra:
+            if not isinstance(f, DataFile):
+                raise StudyInputError(f"`extra_files` must hold DataFile objects, got {f!r}")
+            if f.filename in names:
+                raise StudyInputError(
+                    f"two data files are named '{f.filename}': give each file of a study its own "
+                    "name"
+                )
+            names.append(f.filename)
+        set_(self, "extra_files", extra)
         chars = _as_mapping(self.characteristics, Characteristic, key=lambda c: c.name)
         for name, c in chars.items():
             if name != c.name:
                 raise SpecError(f"characteristic stored under '{name}' is named '{c.name}'")
+            if c.source is not None and c.source not in names:
+                raise SpecError(
+                    f"characteristic '{name}' names data file '{c.source}', which is not in this "
+                    f"study (files: {', '.join(names)})"
+                )
         set_(self, "characteristics", chars)
         if self.criteria is not None and not isinstance(self.criteria, Mapping):
             raise StudyInputError(
@@ -824,7 +893,22 @@ class Study:
             "characteristics": {n: c.to_dict() for n, c in self.characteristics.items()},
             "criteria": {n: self.criteria_for(n).to_dict() for n in self.characteristics},
             "decisions": self._effective_decisions(),
+            **(
+                {"extra_files": [{"filename": f.filename, "sha256": f.sha256}
+                                 for f in self.extra_files]}
+                if self.extra_files else {}
+            ),
         }
+
+    @property
+    def files(self) -> tuple[tuple[str, bytes], ...]:
+        """Every data file of the study as (filename, bytes), the first one first."""
+        return ((self.data_filename, self.data),
+                *((f.filename, f.data) for f in self.extra_files))
+
+    def source_of(self, name: str) -> str:
+        """File name of the data file that holds characteristic ``name``."""
+        return self.characteristic(name).source or self.data_filename
 
     def content_digest(self) -> str:
         """SHA-256 (hex) of :meth:`content_dict` as canonical JSON; stable across runs."""
@@ -1023,6 +1107,8 @@ class Study:
             "supplier": self.supplier,
             "data": {"filename": self.data_filename, "bytes": len(self.data),
                      "sha256": self.data_sha256},
+            "extra_files": [{"filename": f.filename, "bytes": len(f.data), "sha256": f.sha256}
+                            for f in self.extra_files],
             "characteristics": [
                 dict(c.to_dict(), criteria=self.criteria_for(n).to_dict(),
                      criteria_text=self.criteria_for(n).describe(),

@@ -7,7 +7,7 @@ import json
 import pytest
 
 from studykit.cli import main
-from studykit.errors import SpecError
+from studykit.errors import SpecError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import read_specs_bytes
 
@@ -133,7 +133,8 @@ def test_demo_check_detects_a_changed_byte_and_a_changed_decision(tmp_path, repo
     study = StudyFile(tmp_path / md.STUDY_FILE).load()
     assert sorted(study.excluded_subgroups("flange_thickness")) == ["17", "18"]
     assert study.model_for("face_runout") == "lognormal"
-    assert [c.name for c in study.characteristics.values() if c.safety_critical] == ["bore_diameter"]
+    assert [c.name for c in study.characteristics.values() if c.safety_critical] == [
+        "bore_diameter", "pull_off_force"]
     pull = tmp_path / md.PULL_CSV
     pull.write_bytes(pull.read_bytes().replace(b"\n2,", b"\n3,", 1))
     StudyFile(tmp_path / md.STUDY_FILE).exclude("bore_diameter", 3, reason="test", who="A")
@@ -171,3 +172,43 @@ def test_set_records_each_change_with_the_reason(files, capsys):
     assert "`usl` (12.03) must be greater than `lsl` (12.1)" in capsys.readouterr().err
     assert main(["study", "set", path, "bore", "--reason", "r"]) == 2
     assert "nothing to change" in capsys.readouterr().err
+
+
+def test_study_over_several_files_takes_each_characteristic_from_its_file(tmp_path, capsys):
+    a = tmp_path / "dims.csv"
+    a.write_text("subgroup,width [mm]\n1,10.0\n1,10.1\n2,10.2\n2,9.9\n3,10.0\n3,10.1\n")
+    b = tmp_path / "lab.csv"
+    b.write_text("sample,force [N]\n1,250\n2,244\n3,251\n4,248\n")
+    specs = tmp_path / "specs.csv"
+    specs.write_text("characteristic,unit,lsl,usl\nwidth,mm,9,11\nforce,N,180,\n")
+    out = tmp_path / "two.study"
+    assert main(["study", "new", str(out), "--data", str(a), "--data", str(b),
+                 "--specs", str(specs), "--who", "T. Test"]) == 0
+    study = StudyFile(out).load()
+    assert [f.filename for f in study.extra_files] == ["lab.csv"]
+    assert study.source_of("width") == "dims.csv" and study.source_of("force") == "lab.csv"
+    from studykit.analysis import read_study_measurements
+
+    m = read_study_measurements(study)
+    assert list(m.get("force").values) == [250, 244, 251, 248]
+    assert m.get("width").n_subgroups == 3
+    # the extra file is part of the content digest: another lab file gives another digest
+    from studykit.study import DataFile
+
+    changed = study._replace(extra_files=(DataFile("lab.csv", b"sample,force [N]\n1,1\n"),))
+    assert changed.content_digest() != study.content_digest()
+
+
+def test_two_data_files_with_one_name_are_refused(tmp_path):
+    a = tmp_path / "x" / "d.csv"
+    b = tmp_path / "y" / "d.csv"
+    for p in (a, b):
+        p.parent.mkdir()
+        p.write_text("v [mm]\n1\n2\n")
+    with pytest.raises(StudyInputError, match="two data files are named 'd.csv'"):
+        import argparse
+
+        from studykit.cli.study import run_new
+
+        run_new(argparse.Namespace(data=[str(a), str(b)], specs=None, studyfile=str(tmp_path / "s"),
+                                   force=False, title=None, part="", supplier="", who="T"))

@@ -131,9 +131,12 @@ def analyze_from_args(args, name):
 
     options = _options(args)
     if args.study:
+        from studykit.analysis import NO_GAUGE, gauge_results
         from studykit.store import StudyFile
 
-        study = StudyFile(args.study).load()
+        study_file = StudyFile(args.study)
+        study = study_file.load()
+        gauge = gauge_results(study_file).get(name, NO_GAUGE)
         if name not in study.characteristic_names:
             raise StudyInputError(
                 f"the study has no characteristic '{name}' (it has: "
@@ -156,9 +159,9 @@ def analyze_from_args(args, name):
                               model=options.model or study.model_for(name))
             return analyze_characteristic(
                 data, spec, criteria=_criteria(args, study.criteria_for(name)), sizes=sizes,
-                exclusions=_exclusions(study, name), options=options,
+                exclusions=_exclusions(study, name), options=options, gauge=gauge,
             )
-        return analyze_study(study, name, options=options)
+        return analyze_study(study, name, options=options, gauge=gauge)
     if not args.file:
         raise StudyInputError("give a measurement FILE or --study STUDYFILE")
     from studykit.data import read_measurements

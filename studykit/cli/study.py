@@ -17,6 +17,7 @@ stays on record as voided.
 
 from __future__ import annotations
 
+import dataclasses
 import getpass
 import json
 import sys
@@ -50,7 +51,9 @@ def register(subparsers) -> None:
                          "safety_critical, criterion, threshold, basis (and optionally confidence, "
                          "chart, subgroup_size, size_column, model, description).")
     new.add_argument("studyfile", metavar="STUDYFILE", help="the study file to create")
-    new.add_argument("--data", required=True, metavar="FILE", help="measurement file (CSV/XLSX)")
+    new.add_argument("--data", required=True, metavar="FILE", action="append",
+                     help="measurement file (CSV/XLSX); repeat for a study over several files "
+                     "(each characteristic is taken from the file that holds it)")
     new.add_argument("--specs", metavar="SPECS.csv", help="specifications table (CSV)")
     new.add_argument("--title", help="study title (default: the data file's name)")
     new.add_argument("--part", default="", help="part number or name")
@@ -123,32 +126,55 @@ def register(subparsers) -> None:
 def run_new(args) -> int:
     from studykit.data import read_measurements
 
-    data_path = Path(args.data)
-    if not data_path.is_file():
-        raise DataFileError("the data file does not exist: check the path", file=args.data)
-    measurements = read_measurements(data_path)
+    paths = [Path(p) for p in args.data]
+    names = [p.name for p in paths]
+    for p in paths:
+        if not p.is_file():
+            raise DataFileError("the data file does not exist: check the path", file=str(p))
+    dup = sorted({n for n in names if names.count(n) > 1})
+    if dup:
+        raise StudyInputError(f"two data files are named '{dup[0]}': rename one of them")
+    readings = [read_measurements(p) for p in paths]
     chars, criteria = ((), {})
     if args.specs:
-        chars, criteria = read_specs(args.specs)
-        try:
-            chars, criteria = match_to_data(chars, criteria, measurements)
-        except SpecError as exc:
-            raise SpecError(exc.detail, file=args.specs, column=exc.column,
-                            value=exc.value) from None
+        specs, spec_criteria = read_specs(args.specs)
+        matched = []
+        for c in specs:
+            home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
+            if home is None:
+                home = next((i for i, m in enumerate(readings)
+                             if c.name.casefold() in {n.casefold() for n in m.names}), 0)
+            try:
+                one, crit = match_to_data(
+                    [c], {k: v for k, v in spec_criteria.items() if k == c.name}, readings[home]
+                )
+            except SpecError as exc:
+                raise SpecError(exc.detail, file=args.specs, column=exc.column,
+                                value=exc.value) from None
+            c2 = one[0]
+            if home:
+                c2 = dataclasses.replace(c2, source=names[home])
+            matched.append(c2)
+            criteria.update(crit)
+        chars = tuple(matched)
     target = Path(args.studyfile)
     if target.exists() and not args.force:
         raise StudyFileError(f"'{target}' already exists: choose another name, or pass --force "
                              "to replace it")
     sf = StudyFile.create(
-        target, data=data_path.read_bytes(), filename=data_path.name,
-        title=args.title or data_path.stem, part=args.part, supplier=args.supplier,
+        target, data=paths[0].read_bytes(), filename=names[0],
+        title=args.title or paths[0].stem, part=args.part, supplier=args.supplier,
         characteristics=chars, criteria=criteria, who=args.who or _default_who(),
-        overwrite=args.force,
+        overwrite=args.force, extra_files=[(p.name, p.read_bytes()) for p in paths[1:]],
     )
     study = sf.load()
     print(f"created {target}: {len(study.characteristics)} characteristic(s) from "
-          f"{data_path.name} (sha256 {study.data_sha256[:12]}...)")
-    missing = [n for n in measurements.names if n not in study.characteristics]
+          f"{', '.join(names)} (sha256 {study.data_sha256[:12]}...)")
+    taken = set(study.characteristics)
+    for c in study.characteristics.values():
+        if c.size_column:
+            taken.add(c.size_column)
+    missing = [n for m in readings for n in m.names if n not in taken]
     if missing:
         print(f"no specification for: {', '.join(missing)} (not part of the study)")
     return 0
