@@ -23,7 +23,7 @@ Examples
 >>> path = pathlib.Path(tempfile.mkdtemp()) / "pilot.study"
 >>> _ = shutil.copy(demo_study_path(), path)
 >>> session = StudySession(path)
->>> session.names
+>>> session.names[:3]
 ('bore_diameter', 'face_runout', 'flange_thickness')
 >>> sorted(session.result("flange_thickness").removed_subgroups)
 ['17', '18']

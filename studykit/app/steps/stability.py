@@ -1,10 +1,309 @@
-"""Workbook step: Stability (panel arrives in a later version)."""
+"""Workbook step "Stability": phase-I control charts, removals with reasons, the removal log.
 
-from studykit.app.steps._coming import ComingStep
+The engineer looks at the location and dispersion charts of the chosen characteristic (centre,
+control limits, faint 1-sigma zone, optional 2-sigma warning limits, rule signals as diamonds,
+removed subgroups as grey crosses where they were). Hovering shows the subgroup, its time,
+statistic, values and note. Clicking a subgroup (or picking it in the list beside the chart)
+proposes its removal; a reason is required, the name comes from the "Your name" field, and the
+decision goes into the study file. A removed subgroup can be restored the same way.
 
-STEP = ComingStep(
-    key="stability",
-    title="Stability",
-    guidance="Confirm the process runs in statistical control; every removed subgroup needs a recorded reason.",
-    what="Phase-I control charts with run rules, trial limits recomputed after each recorded removal, and the removal log.",
-)
+"Find rule-breaking subgroups" runs the automatic phase-I loop without recording anything; each
+proposal is then accepted (with a reason) or rejected, and only the accepted ones are recorded.
+"""
+
+from __future__ import annotations
+
+import ipywidgets as widgets
+
+from studykit.app.bokeh_assets import chart_widget
+from studykit.app.charts import ControlChartView
+from studykit.app.overview import fmt, no_study_panel, panel_css, workspace
+from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.errors import StudyInputError
+
+_NONE = "—"
+
+
+class StabilityStep:
+    """Step "Stability" (key ``stability``)."""
+
+    key = "stability"
+    title = "Stability"
+    guidance = ("Confirm the process runs in statistical control; every removed subgroup needs "
+                "a recorded reason.")
+
+    def __init__(self):
+        self.ws = None
+        self.view = None
+        self._drawn = None
+        self._proposals = []
+        self.tap_events = 0  # how many tap selections reached Python (checked by tests)
+
+    def is_done(self, context) -> bool:
+        ws = context.extra.get("studykit.workspace")
+        return bool(ws is not None and ws.session.is_cached(ws.session.current))
+
+    # --- building -------------------------------------------------------------------------------
+    def build(self, context) -> widgets.Widget:
+        ws = self.ws = workspace(context)
+        if ws is None:
+            return no_study_panel("The stability step")
+        m = context.messages
+        self.view = ControlChartView()
+        self.chart = chart_widget(self.view.layout)
+        self.chart.add_class("sk-stability-chart")
+        for part in ("location", "dispersion"):
+            src = self.view.sources[part]["points"]
+            src.selected.on_change("indices", guarded(
+                lambda _attr, _old, new, part=part: self._on_tap(part, new), messages=m))
+        self.summary = html_box("", "sk-stability-summary")
+        self.caution = widgets.VBox([])
+        self.warning_toggle = widgets.Checkbox(value=False, description="Show warning limits (2σ)",
+                                               indent=False)
+        self.warning_toggle.observe(guarded(
+            lambda c: self.view.show_warning_limits(c["new"]), messages=m), names="value")
+        # the selected subgroup (tap on the chart, or this list as the fallback)
+        self.subgroup = widgets.Dropdown(options=[(_NONE, "")], value="",
+                                         layout=widgets.Layout(width="200px"))
+        self.subgroup.add_class("sk-subgroup-pick")
+        self.subgroup.observe(guarded(lambda _c: self._show_selected(), messages=m),
+                              names="value")
+        self.selected_info = html_box("", "sk-selected-info")
+        self.reason = widgets.Textarea(placeholder="Why? e.g. 'tool change at 10:40, logged "
+                                       "in shift book'", layout=widgets.Layout(width="100%",
+                                                                                height="64px"))
+        self.reason.add_class("sk-removal-reason")
+        self.reason.observe(guarded(lambda _c: self._update_buttons(), messages=m),
+                            names="value")
+        ws.who.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
+        self.act = widgets.Button(description="Remove subgroup", disabled=True,
+                                  button_style="danger", icon="times",
+                                  layout=widgets.Layout(width="auto"))
+        self.act.add_class("sk-remove")
+        self.act.on_click(guarded(lambda _b: self._on_act(), messages=m))
+        self.act_hint = html_box("", "sk-small")
+        side = widgets.VBox([
+            html_box('<div class="sk-panel-title" style="margin-top:0">Selected subgroup</div>'
+                     '<div class="sk-small">Click a point on the chart, or pick it here.</div>'),
+            self.subgroup, self.selected_info,
+            html_box('<div class="sk-field-label" style="margin-top:8px">Reason</div>'),
+            self.reason, self.act, self.act_hint],
+            layout=widgets.Layout(width="330px", min_width="280px"))
+        side.add_class("sk-side")
+        chart_box = widgets.VBox([self.chart, self.warning_toggle],
+                                 layout=widgets.Layout(flex="1 1 600px", min_width="0"))
+        main = widgets.HBox([chart_box, side],
+                            layout=widgets.Layout(width="100%", gap="18px",
+                                                  flex_flow="row wrap", align_items="flex-start"))
+        # automatic phase-I proposals
+        self.find = widgets.Button(description="Find rule-breaking subgroups", icon="search",
+                                   layout=widgets.Layout(width="auto"))
+        self.find.add_class("sk-find-proposals")
+        self.find.on_click(guarded(lambda _b: self._on_find(), messages=m))
+        self.proposal_box = widgets.VBox([])
+        self.record = widgets.Button(description="Record accepted removals",
+                                     button_style="primary", disabled=True,
+                                     layout=widgets.Layout(width="auto", display="none"))
+        self.record.add_class("sk-record-proposals")
+        self.record.on_click(guarded(lambda _b: self._on_record(), messages=m))
+        auto = widgets.VBox([
+            html_box('<div class="sk-panel-title">Automatic phase-I removal</div>'
+                     '<div class="sk-muted">studykit recomputes the limits round by round and '
+                     "proposes every subgroup that breaks the removal rule. Nothing is recorded "
+                     "until each proposal is accepted with a reason or rejected.</div>"),
+            self.find, self.proposal_box, self.record])
+        self.log = html_box("", "sk-removal-log")
+        self.refresh(context)
+        return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.summary, main, auto,
+                             self.log])
+
+    # --- drawing --------------------------------------------------------------------------------
+    def refresh(self, context) -> None:
+        ws = self.ws
+        if ws is None or self.view is None:
+            return
+        s = ws.session
+        name = s.current
+        try:
+            res = s.result(name)
+        except StudyInputError as exc:
+            self.summary.value = (f'<div class="sk-msg sk-msg-error">{esc(name)} cannot be '
+                                  f"analysed: {esc(exc)}</div>")
+            return
+        key = (name, id(res), id(s.study))
+        if key == self._drawn:
+            return
+        new_char = self._drawn is None or self._drawn[0] != name
+        self._drawn = key
+        self.view.update(res, full_chart=s.full_chart(name), details=s.subgroup_details(name),
+                         unit=res.unit)
+        self.caution.children = [caution_banner()] if res.spec.get("safety_critical") else []
+        chart = res.chart
+        signals = sum(len(getattr(chart, p).signals) for p in ("location", "dispersion")
+                      if getattr(chart, p) is not None)
+        removed = len(res.phase1.removals)
+        labels = self.view._labels
+        facts = [("Chart", f"{chart.kind.replace('_', '-')} — {chart.reason}"),
+                 ("Subgroups used", f"{chart.n_subgroups} of {len(labels)}"
+                                    + (f" ({removed} removed)" if removed else "")),
+                 ("Within sigma", f"{fmt(res.within_sigma, 5)} ({chart.sigma_method_text})"
+                  if res.within_sigma is not None else _NONE),
+                 ("Rule signals", f"{signals} on the current limits" if signals
+                  else "none on the current limits")]
+        warn = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
+                       f"</span>{esc(w)}</div>" for w in res.phase1.warnings)
+        self.summary.value = ('<dl class="sk-facts">' + "".join(
+            f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in facts) + "</dl>" + warn)
+        status = dict(zip(self.view.sources["location"]["points"].data["label"],
+                          self.view.sources["location"]["points"].data["status"], strict=False))
+        keep = self.subgroup.value if self.subgroup.value in status and not new_char else ""
+        self.subgroup.options = [(_NONE, "")] + [
+            (f"{lab}{'  (removed)' if status[lab] == 'removed' else ''}", lab) for lab in labels]
+        self.subgroup.value = keep
+        if new_char:
+            self._proposals = []
+            self._render_proposals()
+        self._show_selected()
+        self._render_log()
+
+    def _row(self, label):
+        data = self.view.sources["location"]["points"].data
+        if label not in data["label"]:
+            return None
+        i = data["label"].index(label)
+        return {k: data[k][i] for k in data}
+
+    def _show_selected(self) -> None:
+        label = self.subgroup.value
+        row = self._row(label) if label else None
+        if row is None:
+            self.selected_info.value = '<div class="sk-small">No subgroup selected.</div>'
+        else:
+            removed = row["status"] == "removed"
+            facts = [("Subgroup", row["label"]), ("Time", row["time"]),
+                     ("Statistic", fmt(row["value"], 5)), ("Values", row["values"]),
+                     ("Note", row["note"]), ("Rules broken", row["rules"]),
+                     ("Status", "removed — " + row["removed_why"] if removed else "in use")]
+            self.selected_info.value = '<dl class="sk-kv">' + "".join(
+                f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in facts) + "</dl>"
+        self._update_buttons()
+
+    def _update_buttons(self) -> None:
+        if self.view is None:
+            return
+        row = self._row(self.subgroup.value) if self.subgroup.value else None
+        removed = row is not None and row["status"] == "removed"
+        self.act.description = "Restore subgroup" if removed else "Remove subgroup"
+        self.act.icon = "undo" if removed else "times"
+        self.act.button_style = "" if removed else "danger"
+        missing = []
+        if row is None:
+            missing.append("select a subgroup")
+        if not self.reason.value.strip():
+            missing.append("give a reason")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        self.act.disabled = bool(missing)
+        self.act_hint.value = ("To record: " + ", ".join(missing) + ".") if missing else ""
+        ok = self._proposals and all(
+            (state.value != "accept" or reason.value.strip()) for _p, state, reason in
+            self._proposals) and any(state.value == "accept" for _p, state, _r in self._proposals)
+        self.record.disabled = not (ok and self.ws.who_name)
+
+    # --- callbacks ------------------------------------------------------------------------------
+    def _on_tap(self, part: str, indices) -> None:
+        self.tap_events += 1
+        if not indices:
+            return
+        label = self.view.label_at(part, int(indices[-1]))
+        if label != self.subgroup.value:
+            self.subgroup.value = label
+
+    def _on_act(self) -> None:
+        ws, s = self.ws, self.ws.session
+        label = self.subgroup.value
+        row = self._row(label)
+        if row is None:
+            raise StudyInputError("select a subgroup on the chart or in the list first")
+        name = s.current
+        if row["status"] == "removed":
+            s.restore(name, label, reason=self.reason.value, who=ws.who_name,
+                      override_reason=ws.override_reason)
+            msg = f"Subgroup {label} of {name} restored; the limits were recomputed."
+        else:
+            s.exclude(name, label, reason=self.reason.value, who=ws.who_name,
+                      override_reason=ws.override_reason)
+            msg = f"Subgroup {label} of {name} removed and recorded; the limits were recomputed."
+        self.reason.value = ""
+        ws.context.messages.ok(msg)
+
+    def _on_find(self) -> None:
+        s = self.ws.session
+        proposals = s.propose_removals(s.current)
+        m = self.ws.context.messages
+        self._proposals = []
+        for p in proposals:
+            state = widgets.ToggleButtons(options=[("Undecided", ""), ("Accept", "accept"),
+                                                   ("Reject", "reject")], value="",
+                                          style={"button_width": "96px"})
+            state.add_class(f"sk-proposal-{p.label}")
+            reason = widgets.Text(placeholder="reason for accepting (required)",
+                                  layout=widgets.Layout(width="380px"))
+            state.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
+            reason.observe(guarded(lambda _c: self._update_buttons(), messages=m),
+                           names="value")
+            self._proposals.append((p, state, reason))
+        self._render_proposals(found=True)
+        self._update_buttons()
+
+    def _render_proposals(self, *, found: bool = False) -> None:
+        rows = []
+        for p, state, reason in self._proposals:
+            head = html_box(f"<b>Subgroup {esc(p.label)}</b> · rule {esc(p.rule)} · "
+                            f"{esc(p.chart or '')} chart, round {p.iteration}<br>"
+                            f'<span class="sk-small">{esc(p.reason)}</span>')
+            box = widgets.VBox([head, widgets.HBox([state, reason],
+                                                   layout=widgets.Layout(gap="10px",
+                                                                         flex_flow="row wrap"))])
+            box.add_class("sk-proposal")
+            rows.append(box)
+        if found and not rows:
+            rows = [html_box('<div class="sk-msg sk-msg-ok"><span class="sk-msg-kind">Stable'
+                             "</span>No subgroup breaks the removal rule on the current limits; "
+                             "nothing to propose.</div>")]
+        self.proposal_box.children = rows
+        self.record.layout.display = "" if self._proposals else "none"
+
+    def _on_record(self) -> None:
+        ws, s = self.ws, self.ws.session
+        accepted = [(p, reason.value) for p, state, reason in self._proposals
+                    if state.value == "accept"]
+        rejected = [p.label for p, state, _r in self._proposals if state.value == "reject"]
+        n = s.record_removals(s.current, accepted, who=ws.who_name,
+                              override_reason=ws.override_reason)
+        self._proposals = []
+        self._render_proposals()
+        ws.context.messages.ok(
+            f"Recorded {n} removal{'s' if n != 1 else ''}"
+            + (f"; rejected and kept: {', '.join(rejected)}" if rejected else "")
+            + ". Run the search again: new limits can reveal further signals.")
+
+    def _render_log(self) -> None:
+        rows = self.ws.session.removal_log()
+        head = '<div class="sk-panel-title">Removal log (from the study file)</div>'
+        if not rows:
+            self.log.value = head + '<div class="sk-muted">No subgroup removed.</div>'
+            return
+        body = "".join(
+            f"<tr><td>{esc(r.label)}</td><td>{'removed' if r.action == 'exclude' else 'restored'}"
+            f"{'' if r.in_force or r.action != 'exclude' else ' (later restored)'}</td>"
+            f"<td>{'rule ' + esc(r.rule) + ', accepted by a person' if r.origin == 'rule' else 'person'}"
+            f"</td><td>{esc(r.who)}</td><td>{esc(r.when.replace('T', ' ').rstrip('Z'))}</td>"
+            f"<td>{esc(r.reason)}</td></tr>" for r in rows)
+        self.log.value = head + (
+            '<table class="sk-table sk-removal-table"><thead><tr><th>Subgroup</th><th>Action</th>'
+            "<th>Proposed by</th><th>Who</th><th>When (UTC)</th><th>Reason</th></tr></thead>"
+            f"<tbody>{body}</tbody></table>")
+
+
+STEP = StabilityStep()

@@ -1,0 +1,573 @@
+"""bokeh chart builders for the workbook panels: they draw result objects, nothing else.
+
+Every builder makes its figures once, bound to named ``ColumnDataSource`` objects, and an
+``update(...)`` method that only replaces the sources' data; so a removal or a spec change
+redraws in milliseconds and the live widget (``jupyter_bokeh.BokehModel``) stays the same.
+Colours, dashes and markers come from :mod:`studykit.theme` roles.
+
+The pure functions ``*_columns`` turn a :class:`~studykit.analysis.CharacteristicResult` into the
+plain columns a chart shows; they are what the unit tests check.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from studykit import theme
+
+__all__ = [
+    "ControlChartView",
+    "ShapeView",
+    "IntervalView",
+    "control_chart_columns",
+    "histogram_columns",
+    "interval_columns",
+]
+
+LOCATION_NAMES = {"xbar_r": "Subgroup mean", "xbar_s": "Subgroup mean", "imr": "Individual value",
+                  "p": "Proportion defective", "np": "Defectives", "c": "Defects",
+                  "u": "Defects per unit"}
+DISPERSION_NAMES = {"xbar_r": "Subgroup range", "xbar_s": "Subgroup std. deviation",
+                    "imr": "Moving range"}
+_TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
+
+
+def _floats(a) -> list:
+    return [float("nan") if v is None else float(v) for v in np.asarray(a, dtype=float).tolist()]
+
+
+def _fmt(v, digits: int = 4) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "—"
+    return f"{v:.{digits}g}"
+
+
+def _label(v) -> str:
+    return str(v.item() if hasattr(v, "item") else v)
+
+
+# --- control charts -----------------------------------------------------------------------------
+
+
+def control_chart_columns(result, *, full_chart=None, details: dict | None = None) -> dict:
+    """Columns of the stability charts.
+
+    Parameters
+    ----------
+    result : CharacteristicResult
+    full_chart : ControlChart, optional
+        A chart of the same kind over every subgroup (``StudySession.full_chart``); its points
+        place the removed subgroups. Without it only kept subgroups are shown.
+    details : dict, optional
+        ``{label: {"time", "note", "values"}}`` for the hover (``StudySession.subgroup_details``).
+
+    Returns
+    -------
+    dict
+        ``{"labels": [...all subgroups in order], "location": part, "dispersion": part or None}``;
+        a part has ``points`` (x, label, value, status 'kept'/'removed', time, note, values,
+        removed_why, rules), ``limits`` (x, center, lcl, ucl, lower_warning, upper_warning,
+        lower_zone, upper_zone), ``signals`` (x, value, rule) and ``limit_text``.
+    """
+    chart = result.phase1.chart
+    details = details or {}
+    kept = [_label(v) for v in chart.labels]
+    removal_why = {_label(r.label): f"{r.reason} ({r.who})" for r in result.phase1.removals}
+    if full_chart is not None:
+        order = [_label(v) for v in full_chart.labels]
+        if set(kept) - set(order):
+            full_chart, order = None, kept
+    else:
+        order = kept
+    xpos = {lab: i + 1 for i, lab in enumerate(order)}
+    out = {"labels": order, "kind": chart.kind}
+    for part in ("location", "dispersion"):
+        series = getattr(chart, part)
+        if series is None:
+            out[part] = None
+            continue
+        full_series = getattr(full_chart, part) if full_chart is not None else None
+        pts = {"x": [], "label": [], "value": [], "status": [], "time": [], "note": [],
+               "values": [], "removed_why": [], "rules": []}
+        by_label = {lab: float(v) for lab, v in zip(kept, _floats(series.points), strict=False)}
+        full_values = {}
+        if full_series is not None:
+            full_values = {lab: float(v) for lab, v in
+                           zip(order, _floats(full_series.points), strict=False)}
+        rules_at: dict[int, list[str]] = {}
+        for sig in series.signals:
+            for p in sig.triggers if hasattr(sig, "triggers") else sig.points:
+                rules_at.setdefault(int(p), []).append(str(sig.number))
+        kept_index = {lab: i for i, lab in enumerate(kept)}
+        for lab in order:
+            is_kept = lab in kept_index
+            value = by_label.get(lab) if is_kept else full_values.get(lab, float("nan"))
+            d = details.get(lab, {})
+            vals = d.get("values") or []
+            pts["x"].append(xpos[lab])
+            pts["label"].append(lab)
+            pts["value"].append(float("nan") if value is None else value)
+            pts["status"].append("kept" if is_kept else "removed")
+            pts["time"].append(d.get("time") or "—")
+            pts["note"].append(d.get("note") or "—")
+            pts["values"].append(", ".join(_fmt(v, 6) for v in vals) or "—")
+            pts["removed_why"].append(removal_why.get(lab, "—") if not is_kept else "—")
+            rules = sorted(set(rules_at.get(kept_index[lab], []))) if is_kept else []
+            pts["rules"].append(", ".join(rules) if rules else "—")
+        xs = [xpos[lab] for lab in kept]
+        limits = {"x": xs}
+        for key in ("center", "lcl", "ucl", "lower_warning", "upper_warning", "lower_zone",
+                    "upper_zone"):
+            limits[key] = _floats(getattr(series, key))[: len(xs)]
+        signals = {"x": [], "value": [], "rule": []}
+        for pos, rules in sorted(rules_at.items()):
+            if pos < len(kept):
+                signals["x"].append(xpos[kept[pos]])
+                signals["value"].append(by_label[kept[pos]])
+                signals["rule"].append(", ".join(sorted(set(rules))))
+        c = limits["center"]
+        text = {"center": c[-1] if c else None, "lcl": limits["lcl"][-1] if c else None,
+                "ucl": limits["ucl"][-1] if c else None,
+                "varies": bool(c) and (len(set(limits["ucl"])) > 1)}
+        out[part] = {"points": pts, "limits": limits, "signals": signals, "limit_text": text,
+                     "name": (LOCATION_NAMES if part == "location" else DISPERSION_NAMES).get(
+                         chart.kind, part)}
+    return out
+
+
+class ControlChartView:
+    """Location and dispersion charts of phase I, with hover and tap selection.
+
+    Attributes
+    ----------
+    layout : bokeh column
+        Give it to :func:`studykit.app.bokeh_assets.chart_widget`.
+    sources : dict
+        ``{"location": {...}, "dispersion": {...}}`` with the ``points``, ``limits`` and
+        ``signals`` ColumnDataSources; ``points.selected.indices`` is the tap selection.
+    """
+
+    def __init__(self, *, height: int = 260):
+        from bokeh.layouts import column
+
+        self.sources: dict[str, dict] = {}
+        self.figures: dict[str, object] = {}
+        self.warning_renderers: list = []
+        self._labels: list[str] = []
+        for part, h in (("location", height), ("dispersion", int(height * 0.8))):
+            self.figures[part] = self._figure(part, h)
+        self.layout = column(self.figures["location"], self.figures["dispersion"],
+                             sizing_mode="stretch_width")
+
+    def _figure(self, part: str, height: int):
+        from bokeh.models import (
+            CDSView,
+            ColumnDataSource,
+            GroupFilter,
+            HoverTool,
+            LabelSet,
+            Legend,
+            LegendItem,
+            TapTool,
+        )
+        from bokeh.plotting import figure
+
+        pts = ColumnDataSource({k: [] for k in ("x", "label", "value", "status", "time", "note",
+                                                "values", "removed_why", "rules")},
+                               name=f"{part}_points")
+        lim = ColumnDataSource({k: [] for k in ("x", "center", "lcl", "ucl", "lower_warning",
+                                                "upper_warning", "lower_zone", "upper_zone")},
+                               name=f"{part}_limits")
+        sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
+        tags = ColumnDataSource({"x": [], "y": [], "text": []}, name=f"{part}_limit_labels")
+        fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
+                     toolbar_location="right", x_axis_label="Subgroup (production order)")
+        fig.min_border_right = 90
+        zone = fig.varea("x", "lower_zone", "upper_zone", source=lim,
+                         fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.10)
+        for key in ("lower_zone", "upper_zone"):
+            fig.step("x", key, source=lim, mode="center", line_color=theme.SKY_BLUE_LINE,
+                     line_alpha=0.45, line_width=1, line_dash="dotted")
+        warn = [fig.step("x", key, source=lim, mode="center",
+                         **theme.bokeh_line_kwargs("warning_limit"))
+                for key in ("lower_warning", "upper_warning")]
+        for r in warn:
+            r.visible = False
+        self.warning_renderers.extend(warn)
+        centre = fig.step("x", "center", source=lim, mode="center",
+                          **theme.bokeh_line_kwargs("centre_line"))
+        limits = [fig.step("x", key, source=lim, mode="center",
+                           **theme.bokeh_line_kwargs("control_limit")) for key in ("lcl", "ucl")]
+        kept_view = CDSView(filter=GroupFilter(column_name="status", group="kept"))
+        removed_view = CDSView(filter=GroupFilter(column_name="status", group="removed"))
+        data_line = theme.bokeh_line_kwargs("data")
+        line = fig.line("x", "value", source=pts, view=kept_view, line_alpha=0.6,
+                        line_color=data_line["line_color"], line_width=data_line["line_width"])
+        sel = {"selection_line_color": theme.INK, "selection_line_width": 3.0,
+               "nonselection_fill_alpha": 1.0, "nonselection_line_alpha": 1.0}
+        kept = fig.scatter("x", "value", source=pts, view=kept_view,
+                           **theme.bokeh_marker_kwargs("data"), **sel)
+        removed_kw = theme.bokeh_marker_kwargs("excluded")
+        removed = fig.scatter("x", "value", source=pts, view=removed_view, **removed_kw,
+                              selection_line_color=theme.INK, nonselection_line_alpha=1.0)
+        signal = fig.scatter("x", "value", source=sig, **theme.bokeh_marker_kwargs("signal"))
+        signal.nonselection_glyph = None
+        fig.add_layout(LabelSet(x="x", y="y", text="text", source=tags, x_offset=8, y_offset=-7,
+                                text_font_size="12px", text_color=theme.INK_SOFT))
+        hover = HoverTool(renderers=[kept, removed], tooltips=[
+            ("Subgroup", "@label"), ("Time", "@time"), ("Statistic", "@value{0.00000}"),
+            ("Values", "@values"), ("Note", "@note"), ("Rules broken", "@rules"),
+            ("Removed because", "@removed_why")])
+        fig.add_tools(hover, TapTool(renderers=[kept, removed]))
+        items = [LegendItem(label="Subgroups", renderers=[kept, line]),
+                 LegendItem(label="Centre line", renderers=[centre]),
+                 LegendItem(label="Control limits", renderers=limits),
+                 LegendItem(label="±1σ zone", renderers=[zone]),
+                 LegendItem(label="Warning limits (2σ)", renderers=warn),
+                 LegendItem(label="Signal (rule broken)", renderers=[signal]),
+                 LegendItem(label="Removed (reason on record)", renderers=[removed])]
+        fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
+                              label_text_font_size="12px", spacing=14, padding=2, margin=4,
+                              border_line_color=None), "above")
+        theme.style_bokeh_figure(fig)
+        fig.toolbar.active_tap = fig.select_one(TapTool)
+        self.sources[part] = {"points": pts, "limits": lim, "signals": sig, "tags": tags}
+        return fig
+
+    def update(self, result, *, full_chart=None, details=None, unit: str | None = None) -> dict:
+        """Redraw from ``result``; returns the columns drawn."""
+        from bokeh.models import FixedTicker
+
+        cols = control_chart_columns(result, full_chart=full_chart, details=details)
+        self._labels = list(cols["labels"])
+        n = len(self._labels)
+        step = max(1, int(math.ceil(n / 30)))
+        ticks = list(range(1, n + 1, step))
+        unit_text = f" ({unit})" if unit else ""
+        for part in ("location", "dispersion"):
+            fig = self.figures[part]
+            c = cols.get(part)
+            fig.visible = c is not None
+            if c is None:
+                continue
+            src = self.sources[part]
+            src["points"].selected.indices = []
+            src["points"].data = c["points"]
+            src["limits"].data = c["limits"]
+            src["signals"].data = c["signals"]
+            t = c["limit_text"]
+            x_end = c["limits"]["x"][-1] if c["limits"]["x"] else 0
+            tag = {"x": [], "y": [], "text": []}
+            if not t["varies"]:
+                for key, name in (("ucl", "UCL"), ("center", "CL"), ("lcl", "LCL")):
+                    if t[key] is not None and math.isfinite(t[key]):
+                        tag["x"].append(x_end)
+                        tag["y"].append(t[key])
+                        tag["text"].append(f"{name} {_fmt(t[key], 5)}")
+            src["tags"].data = tag
+            fig.yaxis.axis_label = c["name"] + unit_text
+            fig.title.text = (f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
+                              if part == "location" else f"{c['name']} chart")
+            fig.xaxis.ticker = FixedTicker(ticks=ticks)
+            fig.xaxis.major_label_overrides = {t_: self._labels[t_ - 1] for t_ in ticks}
+            fig.x_range.start, fig.x_range.end = 0.3, n + 1.9
+        return cols
+
+    def show_warning_limits(self, show: bool) -> None:
+        for r in self.warning_renderers:
+            r.visible = bool(show)
+
+    def label_at(self, part: str, index: int) -> str:
+        """Subgroup label of row ``index`` of a points source (a tap selection)."""
+        return self.sources[part]["points"].data["label"][index]
+
+
+# --- shape --------------------------------------------------------------------------------------
+
+
+def _bins(n: int) -> int:
+    """Histogram bin count: sqrt(n) clipped to 6..30 (common practice, no source); the PDF
+    figure uses the same rule."""
+    return int(np.clip(np.ceil(np.sqrt(max(n, 1))), 6, 30))
+
+
+def _model_density(result, grid, model=None):
+    """Density of a model on ``grid``: the chosen model or a fitted family from the ranking."""
+    if model is not None:
+        return np.asarray(model.pdf(grid), dtype=float)
+    choice = result.model
+    if choice is None:
+        return None
+    if choice.fitted is not None:
+        return np.asarray(choice.fitted.pdf(grid), dtype=float)
+    ranking = result.ranking
+    if choice.name == "normal" and ranking is not None and "normal" in ranking.models:
+        return np.asarray(ranking.models["normal"].pdf(grid), dtype=float)
+    if choice.transform is not None:
+        from scipy import stats
+
+        t = choice.transform
+        eps = (grid[1] - grid[0]) * 1e-3
+        y = np.asarray(t.transform(grid), dtype=float)
+        dy = (np.asarray(t.transform(grid + eps), dtype=float)
+              - np.asarray(t.transform(grid - eps), dtype=float)) / (2 * eps)
+        ty = np.asarray(t.transform(result.values), dtype=float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dens = stats.norm.pdf(y, float(np.mean(ty)), float(np.std(ty, ddof=1))) * np.abs(dy)
+        dens[~np.isfinite(dens)] = np.nan
+        return dens
+    return None
+
+
+def histogram_columns(result, *, compare: str | None = "normal") -> dict:
+    """Columns of the histogram: bars (density scale), the chosen model's density, one
+    comparison model's density, and the specification.
+
+    Returns
+    -------
+    dict
+        ``bars`` (left, right, top, count), ``model`` (x, y, name), ``compare`` (x, y, name),
+        ``spec`` (lsl, usl, target), ``range`` (lo, hi).
+    """
+    x = np.asarray(result.values, dtype=float)
+    spec = result.spec
+    lo, hi = float(x.min()), float(x.max())
+    for v in (spec.get("lsl"), spec.get("usl")):
+        if v is not None:
+            lo, hi = min(lo, v), max(hi, v)
+    pad = 0.06 * (hi - lo or 1.0)
+    counts, edges = np.histogram(x, bins=_bins(x.size))
+    width = np.diff(edges)
+    density = counts / (counts.sum() * width)
+    grid = np.linspace(lo - pad, hi + pad, 300)
+    out = {"bars": {"left": edges[:-1].tolist(), "right": edges[1:].tolist(),
+                    "top": density.tolist(), "count": counts.tolist()},
+           "spec": {k: spec.get(k) for k in ("lsl", "usl", "target")},
+           "range": (lo - pad, hi + pad)}
+    dens = _model_density(result, grid)
+    name = result.model.label if result.model is not None else ""
+    out["model"] = {"x": grid.tolist() if dens is not None else [],
+                    "y": _floats(dens) if dens is not None else [], "name": name}
+    comp = {"x": [], "y": [], "name": ""}
+    if (compare and result.ranking is not None and compare in result.ranking.models
+            and (result.model is None or result.model.name != compare)):
+        m = result.ranking.models[compare]
+        comp = {"x": grid.tolist(), "y": _floats(_model_density(result, grid, m)),
+                "name": next((r.label for r in result.ranking.rows if r.id == compare), compare)}
+    out["compare"] = comp
+    return out
+
+
+class ShapeView:
+    """Histogram with fitted densities and specification, and the normal probability plot."""
+
+    def __init__(self, *, height: int = 300):
+        from bokeh.layouts import row
+        from bokeh.models import ColumnDataSource, HoverTool, Legend, LegendItem, Span
+        from bokeh.plotting import figure
+
+        self.bars = ColumnDataSource({"left": [], "right": [], "top": [], "count": []})
+        self.model = ColumnDataSource({"x": [], "y": []})
+        self.compare = ColumnDataSource({"x": [], "y": []})
+        h = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
+                   title="Distribution of the values used", y_axis_label="Density")
+        bars = h.quad(left="left", right="right", top="top", bottom=0, source=self.bars,
+                      fill_color=theme.OKABE_ITO["blue"], fill_alpha=0.30,
+                      line_color=theme.OKABE_ITO["blue"], line_alpha=0.8)
+        h.add_tools(HoverTool(renderers=[bars], tooltips=[("From", "@left{0.0000}"),
+                                                          ("To", "@right{0.0000}"),
+                                                          ("Values", "@count")]))
+        fit = h.line("x", "y", source=self.model, **theme.bokeh_line_kwargs("fit"))
+        comp_kw = theme.bokeh_line_kwargs("secondary")
+        comp_kw["line_dash"] = "dashed"
+        comp = h.line("x", "y", source=self.compare, **comp_kw)
+        self.spans = {}
+        for key, role in (("lsl", "spec_limit"), ("usl", "spec_limit"), ("target", "target")):
+            s = Span(location=0, dimension="height", **theme.bokeh_line_kwargs(role))
+            s.visible = False
+            h.add_layout(s)
+            self.spans[key] = s
+        spec_r = h.line([], [], **theme.bokeh_line_kwargs("spec_limit"))
+        target_r = h.line([], [], **theme.bokeh_line_kwargs("target"))
+        self._fit_item = LegendItem(label="Model", renderers=[fit])
+        self._comp_item = LegendItem(label="Normal", renderers=[comp])
+        h.add_layout(Legend(items=[LegendItem(label="Values used", renderers=[bars]),
+                                   self._fit_item, self._comp_item,
+                                   LegendItem(label="Spec limits", renderers=[spec_r]),
+                                   LegendItem(label="Target", renderers=[target_r])],
+                            orientation="horizontal", location="top_left", spacing=12,
+                            label_text_font_size="12px", border_line_color=None), "above")
+        theme.style_bokeh_figure(h)
+        self.points = ColumnDataSource({"value": [], "z": [], "line": [], "lower": [],
+                                        "upper": []})
+        p = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
+                   title="Normal probability plot", y_axis_label="Cumulative %")
+        band = p.harea(y="z", x1="lower", x2="upper", source=self.points,
+                       fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.18)
+        pline = p.line("line", "z", source=self.points, **theme.bokeh_line_kwargs("fit"))
+        mk = theme.bokeh_marker_kwargs("data")
+        mk["size"] = 6
+        pts = p.scatter("value", "z", source=self.points, **mk)
+        p.add_tools(HoverTool(renderers=[pts], tooltips=[("Value", "@value{0.00000}")]))
+        p.add_layout(Legend(items=[LegendItem(label="Ordered values", renderers=[pts]),
+                                   LegendItem(label="Normal line", renderers=[pline]),
+                                   LegendItem(label="Confidence band", renderers=[band])],
+                            orientation="horizontal", location="top_left", spacing=12,
+                            label_text_font_size="12px", border_line_color=None), "above")
+        theme.style_bokeh_figure(p)
+        self.histogram, self.probability = h, p
+        self.layout = row(h, p, sizing_mode="stretch_width")
+
+    def update(self, result) -> dict:
+        from bokeh.models import FixedTicker
+        from scipy import stats
+
+        cols = histogram_columns(result)
+        self.bars.data = cols["bars"]
+        self.model.data = {"x": cols["model"]["x"], "y": cols["model"]["y"]}
+        self.compare.data = {"x": cols["compare"]["x"], "y": cols["compare"]["y"]}
+        self._fit_item.label = {"value": f"Model: {cols['model']['name'] or '—'}"}
+        self._comp_item.label = {"value": cols["compare"]["name"] or "—"}
+        for key, span in self.spans.items():
+            v = cols["spec"].get(key)
+            span.visible = v is not None
+            if v is not None:
+                span.location = float(v)
+        unit = f" ({result.unit})" if result.unit else ""
+        self.histogram.xaxis.axis_label = result.characteristic + unit
+        self.histogram.x_range.start, self.histogram.x_range.end = cols["range"]
+        pp = result.probability_plot
+        if pp is None:
+            self.points.data = {"value": [], "z": [], "line": [], "lower": [], "upper": []}
+            return cols
+        z = np.asarray(pp.normal_scores, dtype=float)
+        n = z.size
+        lower = _floats(pp.band_lower) if pp.band_lower is not None else [float("nan")] * n
+        upper = _floats(pp.band_upper) if pp.band_upper is not None else [float("nan")] * n
+        self.points.data = {"value": _floats(pp.values), "z": z.tolist(),
+                            "line": (pp.line_mean + pp.line_sigma * z).tolist(),
+                            "lower": lower, "upper": upper}
+        probs = [0.001, 0.01, 0.05, 0.2, 0.5, 0.8, 0.95, 0.99, 0.999]
+        ticks = [(float(stats.norm.ppf(q)), q) for q in probs]
+        ticks = [(t, q) for t, q in ticks if z.min() - 0.6 <= t <= z.max() + 0.6]
+        self.probability.yaxis.ticker = FixedTicker(ticks=[t for t, _ in ticks])
+        self.probability.yaxis.major_label_overrides = {t: f"{q * 100:g}" for t, q in ticks}
+        self.probability.xaxis.axis_label = result.characteristic + unit
+        return cols
+
+
+# --- capability intervals -------------------------------------------------------------------------
+
+_INDEX_ORDER = ("cp", "cpk", "pp", "ppk", "cpm")
+
+
+def interval_columns(result) -> dict:
+    """Rows of the interval chart: each defined index with its estimate, two-sided interval and
+    one-sided lower bound (from ``result.capability.bounds``), plus the model band.
+
+    Returns
+    -------
+    dict
+        ``rows`` (name, estimate, lower, upper, lower_bound, judged), ``threshold``,
+        ``level``, ``band`` (low, high) or None.
+    """
+    cap = result.capability
+    crit = result.criteria
+    judged = result.verdict.index if result.verdict is not None else crit.get("index")
+    rows = {"name": [], "estimate": [], "lower": [], "upper": [], "lower_bound": [],
+            "judged": []}
+    if cap is not None:
+        for key in _INDEX_ORDER:
+            est = getattr(cap, key, None)
+            if est is None or not math.isfinite(est):
+                continue
+            b = (cap.bounds or {}).get(key) or {}
+            rows["name"].append(key[0].upper() + key[1:] + (" (judged)" if key == judged else ""))
+            rows["estimate"].append(float(est))
+            rows["lower"].append(float(b.get("lower", float("nan"))))
+            rows["upper"].append(float(b.get("upper", float("nan"))))
+            rows["lower_bound"].append(float(b.get("lower_bound", float("nan"))))
+            rows["judged"].append(key == judged)
+    band = None
+    if result.model_band is not None:
+        band = (float(result.model_band.low), float(result.model_band.high))
+    return {"rows": rows, "threshold": float(crit.get("threshold", 1.67)),
+            "level": float(getattr(cap, "level", 0.95) or 0.95), "band": band,
+            "judged": judged}
+
+
+class IntervalView:
+    """Capability indices as intervals against the required threshold."""
+
+    def __init__(self, *, height: int = 250):
+        from bokeh.models import ColumnDataSource, HoverTool, Label, Legend, LegendItem, Span
+        from bokeh.plotting import figure
+
+        self.rows = ColumnDataSource({"name": [], "estimate": [], "lower": [], "upper": [],
+                                      "lower_bound": [], "judged": []})
+        self.band = ColumnDataSource({"name": [], "low": [], "high": []})
+        f = figure(height=height, sizing_mode="stretch_width", y_range=["—"], tools="save",
+                   x_axis_label="Index value")
+        band = f.hbar(y="name", left="low", right="high", height=0.35, source=self.band,
+                      fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.35,
+                      line_color=theme.SKY_BLUE_LINE)
+        seg = f.segment(x0="lower", x1="upper", y0="name", y1="name", source=self.rows,
+                        line_color=theme.OKABE_ITO["blue"], line_width=4)
+        lb = f.scatter("lower_bound", "name", source=self.rows, marker="dash", angle=math.pi / 2,
+                       size=22, line_color=theme.INK, line_width=3)
+        est = f.scatter("estimate", "name", source=self.rows, marker="circle", size=11,
+                        fill_color=theme.PAPER, line_color=theme.INK, line_width=2.5)
+        f.add_tools(HoverTool(renderers=[est], tooltips=[
+            ("Index", "@name"), ("Estimate", "@estimate{0.000}"),
+            ("Lower bound", "@lower_bound{0.000}"), ("Interval", "@lower{0.000} – @upper{0.000}")]))
+        self.threshold = Span(location=1.67, dimension="height",
+                              **theme.bokeh_line_kwargs("spec_limit"))
+        f.add_layout(self.threshold)
+        self.threshold_label = Label(x=1.67, y=0, x_offset=6, y_offset=4, y_units="screen",
+                                     text="required", text_font_size="12px",
+                                     text_color=theme.ROLES["spec_limit"].color)
+        f.add_layout(self.threshold_label)
+        req = f.line([], [], **theme.bokeh_line_kwargs("spec_limit"))
+        self._interval_item = LegendItem(label="95% interval", renderers=[seg])
+        self._bound_item = LegendItem(label="Lower 95% bound", renderers=[lb])
+        f.add_layout(Legend(items=[LegendItem(label="Estimate", renderers=[est]),
+                                   self._interval_item, self._bound_item,
+                                   LegendItem(label="Range over plausible models",
+                                              renderers=[band]),
+                                   LegendItem(label="Required", renderers=[req])],
+                            orientation="horizontal", location="top_left", spacing=12,
+                            label_text_font_size="12px", border_line_color=None), "above")
+        theme.style_bokeh_figure(f)
+        f.toolbar_location = None
+        self.figure = self.layout = f
+
+    def update(self, result) -> dict:
+        cols = interval_columns(result)
+        rows = cols["rows"]
+        names = list(rows["name"])
+        band = {"name": [], "low": [], "high": []}
+        if cols["band"] is not None:
+            label = f"{(cols['judged'] or 'index').capitalize()} across models"
+            band = {"name": [label], "low": [cols["band"][0]], "high": [cols["band"][1]]}
+            names.append(label)
+        self.figure.y_range.factors = list(reversed(names)) or ["—"]
+        self.rows.data = rows
+        self.band.data = band
+        t = cols["threshold"]
+        self.threshold.location = t
+        self.threshold_label.x = t
+        self.threshold_label.text = f"required {t:g}"
+        pct = f"{cols['level'] * 100:g}%"
+        self._interval_item.label = {"value": f"Two-sided {pct} interval"}
+        self._bound_item.label = {"value": f"Lower {pct} bound"}
+        values = [v for key in ("lower", "upper", "estimate", "lower_bound")
+                  for v in rows[key] if math.isfinite(v)] + [t]
+        if cols["band"]:
+            values += list(cols["band"])
+        lo, hi = min(values), max(values)
+        pad = 0.08 * (hi - lo or 1.0)
+        self.figure.x_range.start, self.figure.x_range.end = max(0.0, lo - pad), hi + pad
+        self.figure.height = 90 + 46 * max(len(names), 1)
+        return cols

@@ -1,0 +1,391 @@
+"""The study overview and the pieces every study panel shares.
+
+* :class:`Workspace` holds, for one workbook, the :class:`~studykit.app.session.StudySession`
+  of the open study file and the widgets every panel shows at its top: the characteristic
+  picker, the "Your name" field (recorded as *who* with every decision) and, while the study is
+  approved, the reason field that lets a change through the lock. The same widget instances
+  appear in every panel, so a name typed once is used everywhere.
+* :class:`OverviewPanel` is the table of all characteristics (verdict, index and lower bound,
+  removals, review state), sortable by any column; a click on a name opens it in the
+  stability, shape and capability panels. "Analyse all" shows a progress bar.
+
+After every change the session reports, :class:`Workspace` calls ``context.update(study=...,
+state=...)`` so the shell refreshes the header and every built panel.
+"""
+
+from __future__ import annotations
+
+import math
+
+import ipywidgets as widgets
+
+from studykit import theme
+from studykit.app.widgets import esc, guarded, html_box
+
+__all__ = ["Workspace", "OverviewPanel", "workspace", "verdict_chip", "PANEL_CSS",
+           "overview_rows", "SORT_KEYS"]
+
+WORKSPACE_KEY = "studykit.workspace"
+
+PANEL_CSS = f"""
+<style>
+.sk-toolbar {{ gap: 14px; align-items: flex-end; padding: 0 0 12px 0; margin-bottom: 12px;
+  border-bottom: 1px solid {theme.RULE}; flex-wrap: wrap; }}
+.sk-toolbar .widget-label {{ color: {theme.INK_SOFT}; }}
+.sk-field-label {{ font-size: 12px; color: {theme.INK_SOFT}; text-transform: uppercase;
+  letter-spacing: .04em; margin-bottom: 2px; }}
+.sk-panel-title {{ font-size: 16px; font-weight: 600; color: {theme.INK}; margin: 14px 0 6px 0; }}
+.sk-side {{ border-left: 3px solid {theme.RULE}; padding: 4px 0 4px 16px; }}
+.sk-kv {{ display: grid; grid-template-columns: max-content auto; gap: 2px 14px; }}
+.sk-kv dt {{ color: {theme.INK_SOFT}; }} .sk-kv dd {{ margin: 0; font-weight: 600; }}
+.sk-chip {{ display: inline-block; padding: 2px 10px; border-radius: 11px; font-size: 13px;
+  font-weight: 600; white-space: nowrap; border: 1px solid transparent; }}
+.sk-verdict-box {{ border-left: 6px solid; padding: 12px 16px; margin: 4px 0 12px 0;
+  font-size: 16px; line-height: 1.45; }}
+.sk-ovtable .sk-ovcell {{ padding: 8px 12px 8px 0; border-bottom: 1px solid #EAEEF2;
+  display: flex; align-items: center; }}
+.sk-ovtable .sk-ovhead {{ font-size: 12px; text-transform: uppercase; letter-spacing: .04em;
+  color: {theme.INK_SOFT}; font-weight: 600; border-bottom: 2px solid {theme.RULE}; }}
+.sk-ovtable .sk-ovcell.num {{ justify-content: flex-end; font-variant-numeric: tabular-nums; }}
+.sk-root .jupyter-button.sk-link {{ background: transparent; color: {theme.OKABE_ITO['blue']};
+  text-decoration: underline; padding: 0; height: auto; text-align: left; font-weight: 600;
+  box-shadow: none; }}
+.sk-root .jupyter-button.sk-link:hover {{ color: {theme.INK}; }}
+.sk-voided {{ text-decoration: line-through; color: {theme.INK_SOFT}; }}
+.sk-lock {{ border: 1px solid {theme.OKABE_ITO['blue']}; background: #E8F1F8; padding: 10px 14px;
+  border-radius: 3px; margin: 6px 0; }}
+.sk-void {{ border: 2px solid {theme.VERDICTS['fail'].color};
+  background: {theme.VERDICTS['fail'].background}; padding: 10px 14px; border-radius: 3px;
+  margin: 6px 0; }}
+.sk-proposal {{ border: 1px solid {theme.RULE}; padding: 8px 12px; margin: 4px 0;
+  border-radius: 3px; background: {theme.PANEL}; }}
+.sk-small {{ font-size: 12px; color: {theme.INK_SOFT}; }}
+.sk-root .widget-text input, .sk-root .widget-textarea textarea,
+.sk-root .widget-dropdown select {{ font-size: 14px; }}
+</style>
+"""
+
+
+def panel_css() -> widgets.HTML:
+    """The study panels' extra style sheet (idempotent: the same rules may appear twice)."""
+    return widgets.HTML(PANEL_CSS, layout=widgets.Layout(height="0px", overflow="hidden"))
+
+
+def fmt(v, digits: int = 3) -> str:
+    """A number for a table: ``digits`` decimals, an em dash for None/NaN."""
+    if v is None:
+        return "—"
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return esc(v)
+    if not math.isfinite(f):
+        return "—"
+    return f"{f:.{digits}f}"
+
+
+def verdict_chip(meets, *, text: str | None = None) -> str:
+    """Our verdict chip: symbol, word and colour (never colour alone).
+
+    ``meets`` True -> "Meets", False -> "Does not meet", None -> "Not judged".
+
+    Examples
+    --------
+    >>> "Not judged" in verdict_chip(None)
+    True
+    """
+    key, word = {True: ("pass", "Meets"), False: ("fail", "Does not meet")}.get(
+        meets, ("pending", "Not judged"))
+    v = theme.VERDICTS[key]
+    return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
+            f'border-color:{v.color}">{v.symbol} {esc(text or word)}</span>')
+
+
+class Workspace:
+    """The study session of one workbook and the widgets every study panel shares."""
+
+    def __init__(self, context, session):
+        self.context = context
+        self.session = session
+        self.who = widgets.Text(placeholder="e.g. R. Okonkwo",
+                                layout=widgets.Layout(width="220px"))
+        self.who.add_class("sk-who")
+        names = list(session.names)
+        self.picker = widgets.Dropdown(options=names, value=session.current,
+                                       layout=widgets.Layout(width="260px"))
+        self.picker.add_class("sk-picker")
+        self.override = widgets.Text(placeholder="why the approved study must change",
+                                     layout=widgets.Layout(width="340px"))
+        self.override.add_class("sk-override")
+        self._override_box = widgets.VBox(
+            [html_box('<div class="sk-field-label">Change an approved study because</div>'),
+             self.override], layout=widgets.Layout(display="none"))
+        messages = context.messages
+        self.picker.observe(guarded(self._on_pick, messages=messages), names="value")
+        session.subscribe(self._on_session)
+        self._update_lock_field()
+
+    # --- widgets --------------------------------------------------------------------------------
+    def toolbar(self) -> widgets.Widget:
+        """Picker + name + lock-override field, for the top of a panel."""
+        def labelled(text, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
+
+        bar = widgets.HBox([labelled("Characteristic", self.picker),
+                            labelled("Your name (recorded with each decision)", self.who),
+                            self._override_box])
+        bar.add_class("sk-toolbar")
+        return bar
+
+    @property
+    def who_name(self) -> str:
+        return self.who.value.strip()
+
+    @property
+    def override_reason(self) -> str | None:
+        return self.override.value.strip() or None
+
+    # --- events ---------------------------------------------------------------------------------
+    def _on_pick(self, change) -> None:
+        if change["new"] and change["new"] != self.session.current:
+            self.session.select(change["new"])
+
+    def _on_session(self, session, changed) -> None:
+        if self.picker.value != session.current:
+            self.picker.value = session.current
+        self._update_lock_field()
+        self.context.update(study=session.study, state=session.state_text())
+
+    def _update_lock_field(self) -> None:
+        self._override_box.layout.display = "" if self.session.is_locked else "none"
+        if not self.session.is_locked:
+            self.override.value = ""
+
+    def open(self, name: str, step_key: str = "stability") -> None:
+        """Show ``name`` and open a step (the workbook's ``select`` when it can be found)."""
+        self.session.select(name)
+        opener = self.context.extra.get("studykit.open_step")
+        if opener is None:
+            # the shell subscribes its bound method Workbook._on_context_change
+            for listener in self.context._listeners:
+                wb = getattr(listener, "__self__", None)
+                if wb is not None and hasattr(wb, "select") and hasattr(wb, "steps"):
+                    opener = wb.select
+                    break
+        if opener is not None:
+            opener(step_key)
+
+
+def workspace(context):
+    """The :class:`Workspace` of this workbook, made on first use; None without a study file.
+
+    The session opens ``context.study_path`` (the study file the workbook was started on).
+    """
+    from studykit.app.session import StudySession
+
+    path = getattr(context, "study_path", None)
+    if path is None or getattr(context, "study", None) is None:
+        return None
+    ws = context.extra.get(WORKSPACE_KEY)
+    if ws is not None and ws.session.path == path:
+        return ws
+    ws = Workspace(context, StudySession(path))
+    context.extra[WORKSPACE_KEY] = ws
+    return ws
+
+
+def no_study_panel(what: str) -> widgets.Widget:
+    return html_box(
+        '<div class="sk-coming"><b>No study file open.</b><br>'
+        f"{esc(what)} works on a study file: start the workbook with "
+        "<code>studykit serve STUDY_FILE</code>, or create one from a data file and a "
+        "specifications table with <code>studykit study new</code>.</div>", "sk-no-study")
+
+
+# --- the overview -------------------------------------------------------------------------------
+
+SORT_KEYS = {
+    "characteristic": "Characteristic",
+    "verdict": "Verdict",
+    "estimate": "Index",
+    "lower_bound": "Lower bound",
+    "removed": "Removed subgroups",
+    "review": "Review state",
+}
+_VERDICT_ORDER = {False: 0, None: 1, True: 2}
+
+
+def review_state(session, name: str) -> str:
+    """Review state of one characteristic: sign-off state of the study and its comments."""
+    state = session.state_text()
+    n = sum(1 for c in session.study.comments if c.characteristic == name)
+    if state == "Study open":
+        state = "Not signed"
+    return f"{state}" + (f" · {n} comment{'s' if n != 1 else ''}" if n else "")
+
+
+def overview_rows(session, *, analyse: bool = False) -> list[dict]:
+    """One dict per characteristic: name, unit, safety, verdict (meets), index, estimate,
+    lower_bound, removed, review, error, analysed. Only cached results are used unless
+    ``analyse``."""
+    rows = []
+    for i, name in enumerate(session.names):
+        spec = session.study.characteristic(name)
+        row = {"order": i, "characteristic": name, "unit": spec.unit,
+               "safety": spec.safety_critical, "verdict": None, "index": None,
+               "estimate": None, "lower_bound": None, "removed": None,
+               "review": review_state(session, name), "error": None, "analysed": False,
+               "verdict_text": ""}
+        if analyse or session.is_cached(name):
+            try:
+                head = session.result(name).headline()
+            except Exception as exc:  # noqa: BLE001 - shown in the row
+                row["error"] = str(exc)
+            else:
+                row.update(verdict=head["meets"], index=head["index"],
+                           estimate=head["estimate"], lower_bound=head["lower_bound"],
+                           removed=head["removed"], analysed=True,
+                           verdict_text=head["verdict"] or "")
+        rows.append(row)
+    return rows
+
+
+def sort_rows(rows: list[dict], key: str, *, descending: bool = False) -> list[dict]:
+    """Rows sorted by a column of :data:`SORT_KEYS`; empty values always last.
+
+    Examples
+    --------
+    >>> rows = [{"characteristic": "b", "estimate": None}, {"characteristic": "a",
+    ...          "estimate": 2.0}, {"characteristic": "c", "estimate": 1.0}]
+    >>> [r["characteristic"] for r in sort_rows(rows, "estimate")]
+    ['c', 'a', 'b']
+    >>> [r["characteristic"] for r in sort_rows(rows, "estimate", descending=True)]
+    ['a', 'c', 'b']
+    """
+    if key not in SORT_KEYS:
+        from studykit.errors import StudyInputError
+
+        raise StudyInputError(f"`key` ({key!r}) is not a column; use one of {', '.join(SORT_KEYS)}")
+
+    def value(r):
+        v = r.get(key)
+        if key == "verdict":
+            return None if not r.get("analysed") else _VERDICT_ORDER[v]
+        return v.lower() if isinstance(v, str) else v
+
+    present = [r for r in rows if value(r) is not None]
+    missing = [r for r in rows if value(r) is None]
+    present.sort(key=value, reverse=descending)
+    return present + missing
+
+
+class OverviewPanel(widgets.VBox):
+    """All characteristics at a glance; sortable; a click opens one.
+
+    Parameters
+    ----------
+    ws : Workspace
+    """
+
+    COLUMNS = ("characteristic", "verdict", "estimate", "lower_bound", "removed", "review")
+
+    def __init__(self, ws):
+        self.ws = ws
+        messages = ws.context.messages
+        self.sort = widgets.Dropdown(options=[(v, k) for k, v in SORT_KEYS.items()],
+                                     value="characteristic",
+                                     layout=widgets.Layout(width="200px"))
+        self.sort.add_class("sk-sort")
+        self.descending = widgets.ToggleButton(value=False, description="Descending",
+                                               icon="sort-amount-desc",
+                                               layout=widgets.Layout(width="auto"))
+        self.analyse = widgets.Button(description="Analyse all characteristics",
+                                      button_style="primary", icon="play",
+                                      layout=widgets.Layout(width="auto"))
+        self.analyse.add_class("sk-analyse-all")
+        self.progress = widgets.IntProgress(value=0, min=0, max=max(len(ws.session.names), 1),
+                                            description="", layout=widgets.Layout(
+                                                width="260px", display="none"))
+        self.progress.add_class("sk-progress")
+        self.progress_text = html_box("", "sk-small")
+        self.table = widgets.GridBox([], layout=widgets.Layout(
+            grid_template_columns="minmax(180px, 1.4fr) minmax(150px, 1fr) 110px 110px 100px "
+                                  "minmax(150px, 1.2fr)", width="100%"))
+        self.table.add_class("sk-ovtable")
+        self.sort.observe(guarded(lambda _c: self.render(), messages=messages), names="value")
+        self.descending.observe(guarded(lambda _c: self.render(), messages=messages),
+                                names="value")
+        self.analyse.on_click(guarded(lambda _b: self.analyse_all(), messages=messages))
+        head = html_box('<div class="sk-section">Characteristics at a glance</div>')
+        controls = widgets.HBox([html_box('<div class="sk-field-label">Sort by</div>'),
+                                 self.sort, self.descending, self.analyse, self.progress,
+                                 self.progress_text],
+                                layout=widgets.Layout(align_items="center", gap="10px",
+                                                      flex_flow="row wrap"))
+        super().__init__([head, controls, self.table])
+        self.add_class("sk-overview-panel")
+        self._key = None
+
+    def analyse_all(self) -> None:
+        session = self.ws.session
+        self.progress.max = max(len(session.names), 1)
+        self.progress.value = 0
+        self.progress.layout.display = ""
+
+        def progress(done, total, name):
+            self.progress.value = done
+            self.progress_text.value = f"{done} of {total} analysed ({esc(name)})"
+            self.render(force=True)
+
+        session.analyze_all(progress=progress)
+        self.progress_text.value = f"All {len(session.names)} characteristics analysed."
+        self.render(force=True)
+
+    def render(self, *, force: bool = True) -> None:
+        session = self.ws.session
+        key = (id(session.study), tuple(session.is_cached(n) for n in session.names),
+               self.sort.value, self.descending.value, session.current)
+        if not force and key == self._key:
+            return
+        self._key = key
+        rows = sort_rows(overview_rows(session), self.sort.value,
+                         descending=self.descending.value)
+        cells = []
+        heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed", "Review state"]
+        for i, h in enumerate(heads):
+            cell = html_box(esc(h), "sk-ovcell", "sk-ovhead")
+            if i in (2, 3, 4):
+                cell.add_class("num")
+            cells.append(cell)
+        for r in rows:
+            name = r["characteristic"]
+            b = widgets.Button(description=name, tooltip=f"Open {name} in the Stability step",
+                               layout=widgets.Layout(width="auto"))
+            b.add_class("sk-link")
+            b.add_class(f"sk-open-{name}")
+            b.on_click(guarded(lambda _b, n=name: self.ws.open(n, "stability"),
+                               messages=self.ws.context.messages))
+            safety = (' <span title="safety-critical" style="color:'
+                      f'{theme.VERDICTS["caution"].text_color}">{theme.VERDICTS["caution"].symbol}'
+                      "</span>") if r["safety"] else ""
+            current = " ◂" if name == session.current else ""
+            name_cell = widgets.HBox([b, html_box(safety + current)])
+            name_cell.add_class("sk-ovcell")
+            if r["error"]:
+                verdict = f'<span class="sk-muted" title="{esc(r["error"])}">cannot analyse</span>'
+            elif not r["analysed"]:
+                verdict = '<span class="sk-muted">not analysed yet</span>'
+            else:
+                verdict = verdict_chip(r["verdict"])
+            index_text = (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
+                          if r["analysed"] and r["estimate"] is not None else "—")
+            cells += [name_cell,
+                      html_box(f'<span title="{esc(r["verdict_text"])}">{verdict}</span>',
+                               "sk-ovcell"),
+                      html_box(index_text, "sk-ovcell", "num"),
+                      html_box(fmt(r["lower_bound"], 2) if r["analysed"] else "—",
+                               "sk-ovcell", "num"),
+                      html_box(esc(r["removed"]) if r["analysed"] else "—", "sk-ovcell",
+                               "num"),
+                      html_box(esc(r["review"]), "sk-ovcell")]
+        self.table.children = cells
