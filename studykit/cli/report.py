@@ -1,0 +1,94 @@
+"""``studykit report``: the evidence PDF of a study, optionally signed, optionally a hand-off zip."""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+from studykit.errors import StudyInputError
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "report",
+        help="write the evidence PDF of a study (sign it, make the hand-off pack)",
+        description="Analyse every characteristic of STUDYFILE and write the evidence PDF. "
+        "With --sign, add a PAdES signature from a PKCS#12 file (run again with the next "
+        "signer's file and role to add further signatures). With --handoff, also write the "
+        "hand-off zip (PDF, study, data, frozen limits, chart forms).",
+    )
+    p.add_argument("study", metavar="STUDYFILE", help="the study file")
+    p.add_argument("-o", "--output", metavar="PDF", help="the PDF to write (default: "
+                   "STUDYFILE with .pdf); with --sign and an existing PDF, that PDF is signed")
+    p.add_argument("--sign", metavar="P12", help="sign with this PKCS#12 file")
+    p.add_argument("--role", default="prepared", help="role of the signer: prepared, reviewed, "
+                   "approved (default prepared)")
+    p.add_argument("--name", help="signer's name as written in the signature (default: the "
+                   "certificate's common name)")
+    p.add_argument("--passphrase-env", metavar="VAR", default="STUDYKIT_P12_PASSPHRASE",
+                   help="environment variable holding the .p12 passphrase "
+                   "(default STUDYKIT_P12_PASSPHRASE)")
+    p.add_argument("--sign-existing", action="store_true", help="sign the PDF given by -o as "
+                   "it is (add a further signature) instead of building it again")
+    p.add_argument("--handoff", metavar="ZIP", help="also write the hand-off zip")
+    p.add_argument("--quiet", action="store_true", help="no progress lines")
+    p.set_defaults(func=run)
+
+
+def _progress(quiet: bool):
+    if quiet:
+        return None
+
+    def show(done, total, what):
+        print(f"[{done}/{total}] {what}", file=sys.stderr, flush=True)
+
+    return show
+
+
+def _common_name(p12: str, passphrase: str) -> str:
+    from cryptography.hazmat.primitives.serialization import pkcs12
+    from cryptography.x509.oid import NameOID
+
+    try:
+        _, cert, _ = pkcs12.load_key_and_certificates(Path(p12).read_bytes(),
+                                                      passphrase.encode("utf-8"))
+        return cert.subject.get_attributes_for_oid(NameOID.COMMON_NAME)[0].value
+    except (ValueError, IndexError, AttributeError):
+        return ""
+
+
+def run(args) -> int:
+    from studykit.report.pdf import build_report
+
+    out = Path(args.output) if args.output else Path(args.study).with_suffix(".pdf")
+    progress = _progress(args.quiet)
+    if not (args.sign and args.sign_existing):
+        info = build_report(args.study, out, progress=progress)
+        print(f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
+              f"{info.seconds:.1f} s).")
+        for name, msg in info.errors.items():
+            print(f"  not analysed: {name}: {msg}")
+    elif not out.exists():
+        raise StudyInputError(f"--sign-existing: '{out}' does not exist; build it first")
+    if args.sign:
+        from studykit.report.signing import sign_report
+
+        passphrase = os.environ.get(args.passphrase_env)
+        if passphrase is None:
+            raise StudyInputError(
+                f"the passphrase of '{args.sign}' is not set: put it into the environment "
+                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
+        name = args.name or _common_name(args.sign, passphrase) or "unnamed signer"
+        sig = sign_report(out, out, args.sign, passphrase, role=args.role, name=name)
+        print(f"Signed {out} as {sig.field_name} ({sig.reason}; certificate {sig.subject})"
+              + ("" if sig.visible else "; no box for this role, signature is invisible"))
+    if args.handoff:
+        from studykit.report.handoff import build_handoff
+
+        h = build_handoff(args.study, args.handoff, report_pdf=out)
+        print(f"Wrote {args.handoff} ({len(h.entries)} files; limits frozen for "
+              f"{len(h.plans)} characteristic(s)).")
+        for name, why in h.skipped.items():
+            print(f"  no limits for {name}: {why}")
+    return 0

@@ -1,0 +1,400 @@
+"""Matplotlib figures of one characteristic, for the PDF report and the hand-off forms.
+
+Every builder takes a :class:`~studykit.analysis.CharacteristicResult` (which carries its own
+values, chart limits, fitted model and bounds; nothing is estimated here) and returns a
+:class:`matplotlib.figure.Figure`. Colours, line styles and markers come from
+:mod:`studykit.theme`, so the PDF matches the workbook; meaning never rests on colour alone.
+
+:func:`figure_png` turns a figure into PNG bytes without a timestamp or software tag, so the same
+study always gives the same image bytes (and the same PDF).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from studykit import theme
+
+__all__ = [
+    "control_chart_figure",
+    "shape_figure",
+    "interval_figure",
+    "blank_form_figure",
+    "figure_png",
+]
+
+_DISPERSION_NAMES = {"xbar_r": "Range", "xbar_s": "Std. deviation", "imr": "Moving range"}
+_LOCATION_NAMES = {"xbar_r": "Subgroup mean", "xbar_s": "Subgroup mean", "imr": "Individual value",
+                   "p": "Proportion defective", "np": "Number defective", "c": "Defects",
+                   "u": "Defects per unit"}
+
+
+def figure_png(fig: Figure, *, dpi: int = 200) -> bytes:
+    """PNG bytes of ``fig`` at print resolution, with no time or software metadata."""
+    buf = io.BytesIO()
+    with theme.matplotlib_context():
+        fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _tidy(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
+    ax.set_title(title, loc="left", fontweight="bold", fontsize=10)
+    ax.set_ylabel(ylabel)
+    if xlabel:
+        ax.set_xlabel(xlabel)
+    ax.grid(True, color=theme.RULE, linewidth=0.6)
+    ax.set_axisbelow(True)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    try:
+        ax.ticklabel_format(axis="both", useOffset=False)
+    except AttributeError:  # categorical or log axes
+        pass
+
+
+def _hline(ax, y, role, text, x_end):
+    if y is None or not math.isfinite(float(y)):
+        return
+    kw = theme.mpl_line_kwargs(role)
+    kw["linewidth"] = kw["linewidth"] * 0.8
+    kw.pop("label")
+    ax.axhline(float(y), **kw)
+    ax.annotate(f"{text} {float(y):.5g}", xy=(1.0, float(y)), xycoords=("axes fraction", "data"),
+                xytext=(3, 0), textcoords="offset points", va="center", ha="left", fontsize=7.5,
+                color=kw["color"])
+
+
+def _step(ax, x, y, role):
+    """Per-subgroup limits (variable sizes) as a step line; constant ones as one line."""
+    y = np.asarray(y, dtype=float)
+    kw = theme.mpl_line_kwargs(role)
+    kw["linewidth"] = kw["linewidth"] * 0.8
+    kw.pop("label")
+    ax.step(x, y, where="mid", **kw)
+
+
+def _series_panel(ax, series, x, removed_x, removed_y, title, ylabel, labels):
+    pts = np.asarray(series.points, dtype=float)
+    data_kw = theme.mpl_line_kwargs("data")
+    ax.plot(x, pts, color=data_kw["color"], linewidth=1.0, zorder=2)
+    mk = theme.mpl_marker_kwargs("data")
+    mk["s"] = mk["s"] * 0.5
+    mk["label"] = "Subgroup used"
+    ax.scatter(x, pts, **mk)
+    constant = np.allclose(series.ucl, series.ucl[0], equal_nan=True)
+    x_end = x[-1] if len(x) else 0
+    if constant:
+        _hline(ax, series.ucl[0], "control_limit", "UCL", x_end)
+        _hline(ax, series.center[0], "centre_line", "CL", x_end)
+        _hline(ax, series.lcl[0], "control_limit", "LCL", x_end)
+    else:
+        _step(ax, x, series.ucl, "control_limit")
+        _step(ax, x, series.lcl, "control_limit")
+        _step(ax, x, series.center, "centre_line")
+    flagged = sorted({int(p) for s in series.signals for p in s.points})
+    if flagged:
+        sk = theme.mpl_marker_kwargs("signal")
+        sk["label"] = "Signal (rule number beside it)"
+        sk["facecolors"] = "none"
+        sk.pop("color", None)
+        sk["edgecolors"] = theme.ROLES["signal"].color
+        sk["linewidths"] = 1.4
+        sk["s"] = sk["s"] * 1.4
+        ax.scatter(np.asarray(x)[flagged], pts[flagged], **sk)
+        numbers: dict[int, list[int]] = {}
+        for s in series.signals:
+            for p in s.points:
+                numbers.setdefault(int(p), [])
+                if s.number not in numbers[int(p)]:
+                    numbers[int(p)].append(s.number)
+        for p, nums in numbers.items():
+            ax.annotate(",".join(str(n) for n in sorted(nums)), xy=(x[p], pts[p]),
+                        xytext=(0, 7), textcoords="offset points", ha="center", fontsize=7,
+                        color=theme.OKABE_ITO["vermillion"])
+    if len(removed_x):
+        ek = theme.mpl_marker_kwargs("excluded")
+        ek["label"] = "Removed subgroup (see log)"
+        ry = np.asarray(removed_y, dtype=float)
+        finite = np.isfinite(ry)
+        for rx in removed_x:
+            ax.axvspan(rx - 0.4, rx + 0.4, color=theme.PANEL, zorder=0)
+        if finite.any():
+            ax.scatter(np.asarray(removed_x)[finite], ry[finite], **ek)
+    _tidy(ax, title, ylabel)
+    ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=3, fontsize=7.5,
+              handletextpad=0.3, columnspacing=1.2)
+
+
+def _order(labels_all, labels_used):
+    pos = {lab: i + 1 for i, lab in enumerate(labels_all)}
+    return np.asarray([pos[lab] for lab in labels_used], dtype=float)
+
+
+def _removed_points(result, raw, kind):
+    """Location/dispersion values of removed subgroups (for display only)."""
+    removed = [str(r.label) for r in result.phase1.removals]
+    trial = result.phase1.trial_chart
+    tl = [str(v) for v in trial.labels]
+    loc, disp = {}, {}
+    for lab in removed:
+        if lab in tl:
+            i = tl.index(lab)
+            loc[lab] = float(trial.location.points[i])
+            if trial.dispersion is not None and i < len(trial.dispersion.points):
+                disp[lab] = float(trial.dispersion.points[i])
+        elif raw is not None and kind in ("xbar_r", "xbar_s", "imr"):
+            vals = np.asarray(raw.values, dtype=float)
+            subs = np.asarray(raw.subgroups).astype(str)
+            v = vals[(subs == lab) & np.isfinite(vals)]
+            if v.size == 0:
+                continue
+            loc[lab] = float(v.mean()) if kind != "imr" else float(v[0])
+            if kind == "xbar_r" and v.size > 1:
+                disp[lab] = float(v.max() - v.min())
+            elif kind == "xbar_s" and v.size > 1:
+                disp[lab] = float(v.std(ddof=1))
+    return removed, loc, disp
+
+
+def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
+    """Location (and dispersion) chart of the final phase-I limits.
+
+    Removed subgroups keep their place on the axis on a grey band with a grey cross; run-rule
+    signals are ringed and numbered with the rule. ``raw`` (the characteristic's
+    :class:`~studykit.data.CharacteristicData`) lets manually removed subgroups be drawn too.
+    """
+    chart = result.phase1.chart
+    kind = chart.kind
+    used = [str(v) for v in chart.labels]
+    removed, loc_r, disp_r = _removed_points(result, raw, kind)
+    all_labels = list(used)
+    if raw is not None and kind != "imr":
+        seen = []
+        for lab in np.asarray(raw.subgroups).astype(str).tolist():
+            if lab not in seen:
+                seen.append(lab)
+        all_labels = [lab for lab in seen if lab in set(used) | set(removed)]
+    else:
+        trial = [str(v) for v in result.phase1.trial_chart.labels]
+        all_labels = trial + [lab for lab in removed if lab not in trial]
+        if set(used) - set(all_labels):
+            all_labels = used + [lab for lab in removed if lab not in used]
+    x = _order(all_labels, used)
+    panels = 2 if chart.dispersion is not None else 1
+    with theme.matplotlib_context():
+        fig = Figure(figsize=(width, 2.35 * panels + 0.5), layout="constrained")
+        axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
+        unit = f" [{result.unit}]" if result.unit else ""
+        rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
+        ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
+        _series_panel(axes[0], chart.location, x, rx, ry,
+                      f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({kind.replace('_', '-')})",
+                      _LOCATION_NAMES.get(kind, "Value") + unit, used)
+        if panels == 2:
+            dx = x[-len(chart.dispersion.points):]
+            drx = [all_labels.index(lab) + 1 for lab in removed if lab in disp_r
+                   and lab in all_labels]
+            dry = [disp_r[lab] for lab in removed if lab in disp_r and lab in all_labels]
+            _series_panel(axes[1], chart.dispersion, dx, drx, dry,
+                          f"{_DISPERSION_NAMES.get(kind, 'Dispersion')} chart",
+                          _DISPERSION_NAMES.get(kind, "Dispersion") + unit, used)
+        n = len(all_labels)
+        step = max(1, int(math.ceil(n / 25)))
+        ticks = list(range(1, n + 1, step))
+        for ax in axes:
+            ax.set_xticks(ticks)
+            ax.set_xticklabels([all_labels[t - 1] for t in ticks], fontsize=7)
+            ax.set_xlim(0.3, n + 0.7)
+        axes[-1].set_xlabel("Subgroup (production order)")
+    return fig
+
+
+def _spec_lines(ax, spec, vertical=True):
+    for key, role, text in (("lsl", "spec_limit", "LSL"), ("usl", "spec_limit", "USL"),
+                            ("target", "target", "Target")):
+        v = spec.get(key)
+        if v is None:
+            continue
+        kw = theme.mpl_line_kwargs(role)
+        kw.pop("label")
+        kw["linewidth"] *= 0.8
+        if vertical:
+            ax.axvline(v, **kw)
+            ax.annotate(text, xy=(v, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -2),
+                        textcoords="offset points", ha="left", va="top", fontsize=7.5,
+                        color=kw["color"], rotation=90)
+        else:
+            ax.axhline(v, **kw)
+
+
+def _model_pdf(result, grid):
+    """Density of the chosen model on ``grid`` (original scale), or None."""
+    model = result.model
+    if model is None:
+        return None, ""
+    if model.fitted is not None:
+        return np.asarray(model.fitted.pdf(grid), dtype=float), model.label
+    if model.name == "normal" or model.transform is not None:
+        from scipy import stats
+
+        if model.transform is None:
+            return stats.norm.pdf(grid, result.mean, result.overall_sigma), "Normal"
+        t = model.transform
+        eps = (grid[1] - grid[0]) * 1e-3
+        y0 = np.asarray(t.transform(grid - eps), dtype=float)
+        y1 = np.asarray(t.transform(grid + eps), dtype=float)
+        y = np.asarray(t.transform(grid), dtype=float)
+        ty = np.asarray(t.transform(result.values), dtype=float)
+        mu, sd = float(np.mean(ty)), float(np.std(ty, ddof=1))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dens = stats.norm.pdf(y, mu, sd) * np.abs((y1 - y0) / (2 * eps))
+        dens[~np.isfinite(dens)] = np.nan
+        return dens, model.label
+    return None, ""
+
+
+def shape_figure(result, *, width: float = 7.0) -> Figure:
+    """Histogram with the chosen model's density and the specification, beside a normal
+    probability plot with its confidence band."""
+    x = np.asarray(result.values, dtype=float)
+    with theme.matplotlib_context():
+        fig = Figure(figsize=(width, 2.9), layout="constrained")
+        ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.25, 1]})
+        lo, hi = float(x.min()), float(x.max())
+        for v in (result.spec.get("lsl"), result.spec.get("usl")):
+            if v is not None:
+                lo, hi = min(lo, v), max(hi, v)
+        pad = 0.05 * (hi - lo or 1.0)
+        bins = int(np.clip(np.ceil(np.sqrt(x.size)), 6, 30))
+        ax1.hist(x, bins=bins, density=True, color=theme.OKABE_ITO["blue"], alpha=0.35,
+                 edgecolor=theme.OKABE_ITO["blue"], linewidth=0.6, label="Values used")
+        grid = np.linspace(lo - pad, hi + pad, 400)
+        dens, label = _model_pdf(result, grid)
+        if dens is not None:
+            kw = theme.mpl_line_kwargs("fit")
+            kw["label"] = f"Model: {label}"
+            ax1.plot(grid, dens, **kw)
+        _spec_lines(ax1, result.spec)
+        ax1.set_xlim(lo - pad, hi + pad)
+        unit = f" [{result.unit}]" if result.unit else ""
+        _tidy(ax1, "Distribution of the values", "Density", result.characteristic + unit)
+        ax1.legend(loc="upper left", fontsize=7.5)
+        pp = result.probability_plot
+        if pp is not None:
+            z = np.asarray(pp.normal_scores, dtype=float)
+            v = np.asarray(pp.values, dtype=float)
+            mk = theme.mpl_marker_kwargs("data")
+            mk["s"] = mk["s"] * 0.35
+            mk["label"] = "Ordered values"
+            ax2.scatter(v, z, **mk)
+            line = pp.line_mean + pp.line_sigma * z
+            kw = theme.mpl_line_kwargs("fit")
+            kw["label"] = "Normal line"
+            ax2.plot(line, z, **kw)
+            if pp.band_lower is not None and pp.band_upper is not None:
+                ax2.fill_betweenx(z, np.asarray(pp.band_lower, dtype=float),
+                                  np.asarray(pp.band_upper, dtype=float),
+                                  color=theme.SKY_BLUE_LINE, alpha=0.15, linewidth=0,
+                                  label=f"{pp.level * 100:g}% band")
+            probs = [0.001, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999]
+            from scipy import stats
+
+            zt = [stats.norm.ppf(p) for p in probs]
+            keep = [(t, p) for t, p in zip(zt, probs, strict=True) if z.min() - 0.5 <= t
+                    <= z.max() + 0.5]
+            ax2.set_yticks([t for t, _ in keep])
+            ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
+            _tidy(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
+            ax2.legend(loc="upper left", fontsize=7.5)
+        else:
+            ax2.set_axis_off()
+    return fig
+
+
+def interval_figure(result, *, width: float = 7.0) -> Figure:
+    """Each index's estimate and two-sided interval, with the one-sided lower bound marked,
+    against the required threshold."""
+    cap = result.capability
+    crit = result.criteria
+    rows = []
+    for key in ("cp", "cpk", "pp", "ppk", "cpm"):
+        est = getattr(cap, key, None)
+        b = (cap.bounds or {}).get(key) if isinstance(cap.bounds, dict) else None
+        if est is None or not math.isfinite(est):
+            continue
+        rows.append((key, est, b))
+    with theme.matplotlib_context():
+        fig = Figure(figsize=(width, 0.42 * max(len(rows), 1) + 0.9), layout="constrained")
+        ax = fig.subplots()
+        threshold = float(crit.get("threshold", 1.33))
+        for i, (key, est, b) in enumerate(rows):
+            y = len(rows) - i
+            judged = key == result.criteria.get("index")
+            col = theme.OKABE_ITO["blue"] if not judged else theme.OKABE_ITO["black"]
+            if b and b.get("lower") is not None and b.get("upper") is not None:
+                ax.plot([b["lower"], b["upper"]], [y, y], color=col, linewidth=2.2,
+                        solid_capstyle="butt")
+            if b and b.get("lower_bound") is not None:
+                ax.plot([b["lower_bound"]], [y], marker="|", markersize=14, color=col,
+                        markeredgewidth=2.2)
+            ax.plot([est], [y], marker="o", markersize=6, color=col)
+        kw = theme.mpl_line_kwargs("spec_limit")
+        kw.pop("label")
+        ax.axvline(threshold, **kw)
+        ax.annotate(f"required {threshold:g}", xy=(threshold, 1.0),
+                    xycoords=("data", "axes fraction"), xytext=(3, -2),
+                    textcoords="offset points", va="top", fontsize=7.5, color=kw["color"])
+        ax.set_yticks([len(rows) - i for i in range(len(rows))])
+        ax.set_yticklabels([(k.capitalize() + (" (judged)" if k == crit.get("index") else ""))
+                            for k, _, _ in rows])
+        ax.set_ylim(0.4, len(rows) + 0.6)
+        level = getattr(cap, "level", 0.95) or 0.95
+        _tidy(ax, f"Estimate (dot), two-sided {level * 100:g}% interval (bar), "
+                  f"lower {level * 100:g}% bound (tick)", "")
+        ax.title.set_fontsize(9)
+    return fig
+
+
+def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
+                      height: float = 6.6) -> Figure:
+    """A printable phase-II control-chart form: frozen limits drawn, empty plotting space.
+
+    ``plan`` is a :class:`~studykit.stats.phase2.Phase2Plan`. Each column is one subgroup to be
+    plotted by hand; a table under the charts has rows for date, time, operator and values.
+    """
+    panels = [("location", plan.location_center, plan.location_lcl, plan.location_ucl)]
+    if plan.dispersion_center is not None:
+        panels.append(("dispersion", plan.dispersion_center, plan.dispersion_lcl,
+                       plan.dispersion_ucl))
+    kind = plan.kind
+    with theme.matplotlib_context():
+        fig = Figure(figsize=(width, height), layout="constrained")
+        axes = fig.subplots(len(panels), 1, squeeze=False)[:, 0]
+        for ax, (part, cl, lcl, ucl) in zip(axes, panels, strict=True):
+            if cl is None:
+                ax.text(0.5, 0.5, "Limits depend on each subgroup's size: compute them from the "
+                        "frozen centre with the plan file", ha="center", va="center",
+                        transform=ax.transAxes, fontsize=9)
+                ax.set_axis_off()
+                continue
+            lo = lcl if lcl is not None else cl - (ucl - cl)
+            span = (ucl - lo) if ucl is not None else abs(cl) or 1.0
+            ax.set_ylim(lo - 0.35 * span, (ucl if ucl is not None else cl) + 0.35 * span)
+            ax.set_xlim(0.5, n_columns + 0.5)
+            for val, role, text in ((ucl, "control_limit", "UCL"), (cl, "centre_line", "CL"),
+                                    (lcl, "control_limit", "LCL")):
+                _hline(ax, val, role, text, n_columns)
+            ax.set_xticks(range(1, n_columns + 1))
+            ax.tick_params(axis="x", labelsize=7)
+            ax.grid(True, which="both", color=theme.RULE, linewidth=0.5)
+            ax.minorticks_on()
+            ax.grid(True, which="minor", axis="y", color=theme.RULE, linewidth=0.3)
+            name = (_LOCATION_NAMES.get(kind, "Value") if part == "location"
+                    else _DISPERSION_NAMES.get(kind, "Dispersion"))
+            _tidy(ax, name, name + (f" [{plan.unit}]" if plan.unit else ""))
+        axes[-1].set_xlabel("Subgroup number (write date and time in the table below)")
+    return fig

@@ -1,0 +1,1096 @@
+"""The evidence report: one PDF from one study, with every reported number embedded as JSON.
+
+:func:`build_report` analyses every characteristic of a study (exactly as ``studykit analyze``
+does, through :func:`studykit.analysis.analyze_study`), draws the figures with matplotlib and lays
+the document out with reportlab's platypus. The same :class:`~studykit.analysis.CharacteristicResult`
+feeds the printed tables and the embedded JSON (``studykit-evidence.json``, a PDF embedded file), so
+:mod:`studykit.report.verify` can recompute the study and compare every number.
+
+The PDF is reproducible: reportlab's invariant mode fixes the creation date and document id, PNG
+figures carry no time stamp, and the only date printed is the study's own last recorded time. The
+same study therefore gives the same bytes (until someone signs it).
+
+Layout (our own): cover with the verdicts at a glance; one section per characteristic (stability,
+shape, model, capability, verdict, findings, planning); gauge R&R where a stored result exists;
+decisions, comments and sign-offs with boxes for the digital signatures; an appendix with the
+methods, their published sources, the software versions and the digests.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import html
+import io
+import json
+import math
+import os
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from studykit import __version__, theme
+from studykit.errors import StudyFileError, StudyInputError
+
+__all__ = [
+    "EVIDENCE_FILENAME",
+    "EVIDENCE_FORMAT",
+    "SIGNATURE_ROLES",
+    "ReportInfo",
+    "build_report",
+    "collect_evidence",
+    "read_evidence",
+    "METHODS",
+]
+
+#: Name of the embedded JSON file holding every reported number and the digests.
+EVIDENCE_FILENAME = "studykit-evidence.json"
+#: Format tag inside that file.
+EVIDENCE_FORMAT = "studykit-evidence/1"
+#: Roles that get a reserved box for a visible digital signature on the sign-off page.
+SIGNATURE_ROLES = ("prepared", "reviewed", "approved")
+#: Document-information key holding the signature boxes (JSON: role -> [page, x1, y1, x2, y2]).
+BOXES_KEY = "/StudykitSignatureBoxes"
+#: Gauge results are stored under this kind by ``studykit gauge --study``.
+GAUGE_KIND = "gauge_rr"
+
+#: The methods used and their published sources (collected from the docstrings of
+#: studykit.stats); printed in the appendix.
+METHODS: tuple[tuple[str, str], ...] = (
+    ("Control charts (X-bar/R, X-bar/S, I-MR, p, np, c, u), phase I and phase II",
+     "D. C. Montgomery, Introduction to Statistical Quality Control, chapters 6-7; "
+     "NIST/SEMATECH e-Handbook of Statistical Methods, section 6.3."),
+    ("Control chart constants d2, d3, c4",
+     "Computed exactly by integration; checked against Montgomery, Appendix Table VI, and "
+     "ASTM E2587."),
+    ("Run rules (tests 1-8)",
+     "L. S. Nelson (1984), The Shewhart control chart - tests for special causes, J. Quality "
+     "Technology 16(4); Western Electric Statistical Quality Control Handbook (1956)."),
+    ("Overdispersed attribute charts (p', u')",
+     "D. B. Laney (2002), Improved control charts for attributes, Quality Engineering 14(4)."),
+    ("Normality: Anderson-Darling and Shapiro-Wilk tests, probability plot",
+     "R. B. D'Agostino & M. A. Stephens (1986), Goodness-of-Fit Techniques, chapter 4; "
+     "NIST/SEMATECH e-Handbook, sections 1.3.5.14 and 1.3.3.21."),
+    ("Box-Cox and Johnson transformations",
+     "G. E. P. Box & D. R. Cox (1964), J. Royal Statistical Society B 26; Y.-M. Chou, "
+     "A. M. Polansky & R. L. Mason (1998), Transforming non-normal data to normality in "
+     "statistical process control, J. Quality Technology 30(2)."),
+    ("Distribution fitting and ranking (maximum likelihood, AIC)",
+     "NIST/SEMATECH e-Handbook, section 1.3.6; K. P. Burnham & D. R. Anderson (2002), Model "
+     "Selection and Multimodel Inference."),
+    ("Capability indices Cp, Cpk, Pp, Ppk, Cpm; percentile method for non-normal models",
+     "ISO 22514-2:2017, Statistical methods in process management - capability and "
+     "performance - Part 2; Montgomery, chapter 8."),
+    ("Confidence bounds: chi-square (Cp, Pp), Bissell (Cpk, Ppk), Boyles (Cpm)",
+     "A. F. Bissell (1990), How reliable is your capability index?, Applied Statistics 39(3); "
+     "R. A. Boyles (1991), The Taguchi capability index, J. Quality Technology 23(1)."),
+    ("Gauge R&R by two-way ANOVA",
+     "Montgomery, Design and Analysis of Experiments, chapter 13 (random effects); "
+     "R. K. Burdick, C. M. Borror & D. C. Montgomery (2005), Design and Analysis of Gauge "
+     "R&R Studies."),
+    ("Demonstration planning (parts needed for the bound to clear the requirement)",
+     "Inverts the bound formulas above (Bissell 1990; chi-square for Cp/Pp)."),
+)
+
+
+# ---------------------------------------------------------------------------------------------
+# result
+
+
+@dataclass(frozen=True)
+class ReportInfo:
+    """What :func:`build_report` wrote.
+
+    Attributes
+    ----------
+    path : str
+        The PDF written.
+    pages : int
+        Number of pages.
+    characteristics : tuple of str
+        Characteristics reported (in the study's order).
+    errors : dict
+        Characteristics that could not be analysed -> message (reported in the PDF too).
+    verdicts : dict
+        name -> True (meets), False (does not), None (no verdict).
+    data_sha256, content_digest : str
+        Digests of the raw data and of the study content (data + effective decisions).
+    evidence_sha256 : str
+        SHA-256 of the embedded evidence JSON (also printed in the appendix).
+    signature_boxes : dict
+        role -> [page index (0-based), x1, y1, x2, y2] in PDF points: where a visible
+        digital signature of that role goes.
+    seconds : float
+        Wall time of the build.
+    """
+
+    path: str
+    pages: int
+    characteristics: tuple
+    errors: dict
+    verdicts: dict
+    data_sha256: str
+    content_digest: str
+    evidence_sha256: str
+    signature_boxes: dict = field(default_factory=dict)
+    seconds: float = 0.0
+
+    def to_dict(self) -> dict:
+        return {
+            "path": self.path,
+            "pages": self.pages,
+            "characteristics": list(self.characteristics),
+            "errors": dict(self.errors),
+            "verdicts": dict(self.verdicts),
+            "data_sha256": self.data_sha256,
+            "content_digest": self.content_digest,
+            "evidence_sha256": self.evidence_sha256,
+            "signature_boxes": {k: list(v) for k, v in self.signature_boxes.items()},
+            "seconds": self.seconds,
+        }
+
+
+# ---------------------------------------------------------------------------------------------
+# loading and analysing
+
+
+def _load(study_or_path):
+    """(Study, gauges, study_path or None) from a Study or a study-file path."""
+    from studykit.study import Study
+
+    if isinstance(study_or_path, Study):
+        return study_or_path, None, None
+    if isinstance(study_or_path, str | os.PathLike):
+        from studykit.store import StudyFile
+
+        path = Path(study_or_path)
+        if not path.exists():
+            raise StudyFileError(f"study file '{path}' does not exist: check the path")
+        sf = StudyFile(path)
+        study = sf.load()
+        gauges = {}
+        for r in sf.results(GAUGE_KIND):
+            if r.characteristic in study.characteristics:
+                gauges[r.characteristic] = dict(r.payload)
+        return study, gauges, path
+    raise StudyInputError(
+        f"`study` must be a Study or the path of a study file, got {type(study_or_path).__name__}"
+    )
+
+
+def analyze_for_report(study, gauges: Mapping | None = None, *,
+                       progress: Callable[[int, int, str], None] | None = None):
+    """Analyse every characteristic as the report does: (results, errors, measurements).
+
+    Exactly :func:`studykit.analysis.analyze_all` (with the stored gauge results; ``gauges``
+    None means no gauge search was made), so the report, ``studykit analyze`` and ``verify``
+    agree.
+    """
+    from studykit.analysis import analyze_all, read_study_measurements
+
+    measurements = read_study_measurements(study)
+    res = analyze_all(study, measurements=measurements, progress=progress,
+                      gauges=None if gauges is None else dict(gauges))
+    return res.results, res.errors, measurements
+
+
+def _canonical(obj) -> str:
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=False)
+
+
+def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping | None) -> dict:
+    """The machine-readable evidence embedded in the PDF (JSON-safe).
+
+    Holds the study content (specifications, criteria, every decision) so the study can be
+    rebuilt from the raw data alone, the gauge results used, every characteristic's
+    ``to_dict()`` (the JSON of ``studykit analyze --json``) and the digests.
+    """
+    return {
+        "format": EVIDENCE_FORMAT,
+        "software": {"studykit": __version__},
+        "study": {
+            "title": study.title,
+            "part": study.part,
+            "supplier": study.supplier,
+            "data_filename": study.data_filename,
+            "data_sha256": study.data_sha256,
+            "content_digest": study.content_digest(),
+            "characteristics": {n: c.to_dict() for n, c in study.characteristics.items()},
+            "criteria": {n: study.criteria_for(n).to_dict() for n in study.characteristics},
+            "decisions": [d.to_dict() for d in study.decisions],
+            "signoffs": [s.to_dict() for s in study.signoff_state()],
+        },
+        "gauges": None if gauges is None else {k: gauges[k] for k in sorted(gauges)},
+        "results": {n: r.to_dict() for n, r in results.items()},
+        "errors": dict(errors),
+        "tolerance": {"relative": RELATIVE_TOLERANCE,
+                      "note": "numbers are compared with this relative tolerance "
+                              "(absolute 1e-12 near zero) to allow for float printing"},
+    }
+
+
+#: Relative tolerance verify uses when it compares recomputed with reported numbers.
+RELATIVE_TOLERANCE = 1e-9
+
+
+def read_evidence(pdf) -> dict:
+    """The embedded evidence JSON of a report (path, bytes or file object).
+
+    Raises
+    ------
+    StudyFileError
+        When the PDF cannot be read or holds no studykit evidence.
+    """
+    from pypdf import PdfReader
+    from pypdf.errors import PyPdfError
+
+    if isinstance(pdf, bytes | bytearray):
+        pdf = io.BytesIO(bytes(pdf))
+    try:
+        reader = PdfReader(pdf)
+        attachments = reader.attachments
+        blobs = attachments.get(EVIDENCE_FILENAME)
+    except (PyPdfError, OSError, ValueError, KeyError, TypeError) as exc:
+        raise StudyFileError(f"the PDF cannot be read ({exc}); is it a studykit report?") from None
+    if not blobs:
+        raise StudyFileError(
+            f"the PDF holds no embedded '{EVIDENCE_FILENAME}': it was not made by "
+            "`studykit report`, or the file was stripped"
+        )
+    try:
+        data = json.loads(blobs[0].decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise StudyFileError(f"the embedded evidence is not valid JSON ({exc})") from None
+    if not isinstance(data, dict) or data.get("format") != EVIDENCE_FORMAT:
+        raise StudyFileError(f"the embedded evidence is not in format {EVIDENCE_FORMAT}")
+    return data
+
+
+# ---------------------------------------------------------------------------------------------
+# formatting helpers
+
+
+def _num(v, digits: int = 4) -> str:
+    if v is None:
+        return "–"
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return str(v)
+    if not math.isfinite(v):
+        return "–"
+    return f"{v:.{digits}g}"
+
+
+def _idx(v) -> str:
+    """Capability indices are printed with two decimals (the usual precision)."""
+    if v is None:
+        return "–"
+    v = float(v)
+    return f"{v:.2f}" if math.isfinite(v) else "–"
+
+
+def _esc(text) -> str:
+    return html.escape(str(text if text is not None else ""), quote=False)
+
+
+def _index_name(key: str) -> str:
+    return key[0].upper() + key[1:] if key else key
+
+
+def _verdict_key(res) -> str:
+    if res is None or res.verdict is None or res.verdict.meets is None:
+        return "pending"
+    return "pass" if res.verdict.meets else "fail"
+
+
+# ---------------------------------------------------------------------------------------------
+# reportlab document
+
+
+_FONTS_READY = False
+
+
+def _register_fonts() -> tuple[str, str]:
+    """DejaVu Sans (shipped with matplotlib) so text and figures share one typeface."""
+    global _FONTS_READY
+    if not _FONTS_READY:
+        import matplotlib
+        from reportlab.lib.fonts import addMapping
+        from reportlab.pdfbase import pdfmetrics
+        from reportlab.pdfbase.ttfonts import TTFont
+
+        d = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
+        pdfmetrics.registerFont(TTFont("SKSans", str(d / "DejaVuSans.ttf")))
+        pdfmetrics.registerFont(TTFont("SKSans-Bold", str(d / "DejaVuSans-Bold.ttf")))
+        pdfmetrics.registerFont(TTFont("SKSans-Oblique", str(d / "DejaVuSans-Oblique.ttf")))
+        pdfmetrics.registerFont(TTFont("SKSans-BoldOblique",
+                                       str(d / "DejaVuSans-BoldOblique.ttf")))
+        addMapping("SKSans", 0, 0, "SKSans")
+        addMapping("SKSans", 1, 0, "SKSans-Bold")
+        addMapping("SKSans", 0, 1, "SKSans-Oblique")
+        addMapping("SKSans", 1, 1, "SKSans-BoldOblique")
+        _FONTS_READY = True
+    return "SKSans", "SKSans-Bold"
+
+
+def _styles():
+    from reportlab.lib import colors
+    from reportlab.lib.styles import ParagraphStyle
+
+    regular, bold = _register_fonts()
+    ink = colors.HexColor(theme.INK)
+    soft = colors.HexColor(theme.INK_SOFT)
+    base = ParagraphStyle("body", fontName=regular, fontSize=9, leading=12, textColor=ink)
+    return {
+        "body": base,
+        "small": ParagraphStyle("small", parent=base, fontSize=7.5, leading=9.5, textColor=soft),
+        "cell": ParagraphStyle("cell", parent=base, fontSize=8, leading=10),
+        "cellb": ParagraphStyle("cellb", parent=base, fontName=bold, fontSize=8, leading=10),
+        "title": ParagraphStyle("title", parent=base, fontName=bold, fontSize=22, leading=27,
+                                spaceAfter=6),
+        "subtitle": ParagraphStyle("subtitle", parent=base, fontSize=12, leading=16,
+                                   textColor=soft, spaceAfter=14),
+        "h1": ParagraphStyle("h1", parent=base, fontName=bold, fontSize=15, leading=19,
+                             spaceBefore=2, spaceAfter=8),
+        "h2": ParagraphStyle("h2", parent=base, fontName=bold, fontSize=11, leading=14,
+                             spaceBefore=10, spaceAfter=5,
+                             textColor=colors.HexColor(theme.OKABE_ITO["blue"])),
+        "bullet": ParagraphStyle("bullet", parent=base, leftIndent=12, bulletIndent=2),
+        "mono": ParagraphStyle("mono", parent=base, fontName=regular, fontSize=7.5, leading=10),
+    }
+
+
+def _table(rows, widths, *, header=True, align_right_from=None, zebra=True, styles=None):
+    from reportlab.lib import colors
+    from reportlab.platypus import Paragraph, Table, TableStyle
+
+    st = styles or _styles()
+    body = []
+    for r, row in enumerate(rows):
+        cells = []
+        for cell in row:
+            if isinstance(cell, str):
+                cells.append(Paragraph(cell, st["cellb"] if header and r == 0 else st["cell"]))
+            else:
+                cells.append(cell)
+        body.append(cells)
+    t = Table(body, colWidths=widths, repeatRows=1 if header else 0, hAlign="LEFT")
+    cmds = [
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("LEFTPADDING", (0, 0), (-1, -1), 4),
+        ("RIGHTPADDING", (0, 0), (-1, -1), 4),
+        ("TOPPADDING", (0, 0), (-1, -1), 2.5),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2.5),
+        ("LINEBELOW", (0, -1), (-1, -1), 0.6, colors.HexColor(theme.RULE)),
+    ]
+    if header:
+        cmds += [("BACKGROUND", (0, 0), (-1, 0), colors.HexColor(theme.PANEL)),
+                 ("LINEBELOW", (0, 0), (-1, 0), 0.9, colors.HexColor(theme.INK_SOFT))]
+    if zebra:
+        for r in range(1 if header else 0, len(rows)):
+            if (r % 2 == 0) == header:
+                continue
+            cmds.append(("BACKGROUND", (0, r), (-1, r), colors.HexColor("#FBFCFD")))
+        for r in range(1 if header else 0, len(rows)):
+            cmds.append(("LINEBELOW", (0, r), (-1, r), 0.3, colors.HexColor(theme.RULE)))
+    t.setStyle(TableStyle(cmds))
+    return t
+
+
+def _box(paragraphs, *, background, border, width):
+    from reportlab.lib import colors
+    from reportlab.platypus import Table, TableStyle
+
+    t = Table([[p] for p in paragraphs], colWidths=[width], hAlign="LEFT")
+    t.setStyle(TableStyle([
+        ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor(background)),
+        ("LINEBEFORE", (0, 0), (0, -1), 3, colors.HexColor(border)),
+        ("LEFTPADDING", (0, 0), (-1, -1), 8),
+        ("RIGHTPADDING", (0, 0), (-1, -1), 8),
+        ("TOPPADDING", (0, 0), (-1, -1), 4),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 4),
+    ]))
+    return t
+
+
+def _image(png: bytes, width: float):
+    from reportlab.lib.utils import ImageReader
+    from reportlab.platypus import Image
+
+    w, h = ImageReader(io.BytesIO(png)).getSize()
+    return Image(io.BytesIO(png), width=width, height=width * h / w)
+
+
+class _SignatureBoxes:
+    """Factory for a flowable that draws the digital-signature boxes and records where."""
+
+    def __new__(cls, width, record: dict, styles):
+        from reportlab.lib import colors
+        from reportlab.platypus import Flowable
+
+        class Boxes(Flowable):
+            def __init__(self):
+                super().__init__()
+                self.width = width
+                self.box_h = 62
+                self.gap = 10
+                self.height = len(SIGNATURE_ROLES) * (self.box_h + self.gap)
+
+            def wrap(self, aw, ah):
+                return self.width, self.height
+
+            def draw(self):
+                c = self.canv
+                page = c.getPageNumber() - 1
+                for i, role in enumerate(SIGNATURE_ROLES):
+                    y = self.height - (i + 1) * (self.box_h + self.gap) + self.gap
+                    c.setStrokeColor(colors.HexColor(theme.RULE))
+                    c.setLineWidth(0.8)
+                    c.setDash(3, 2)
+                    c.rect(0, y, self.width, self.box_h)
+                    c.setDash()
+                    c.setFillColor(colors.HexColor(theme.INK_SOFT))
+                    c.setFont(styles["small"].fontName, 7)
+                    c.drawString(4, y + self.box_h - 9, f"Digital signature - {role}")
+                    x1, y1 = c.absolutePosition(0, y)
+                    x2, y2 = c.absolutePosition(self.width, y + self.box_h - 12)
+                    record[role] = [page, round(x1, 2), round(y1, 2), round(x2, 2), round(y2, 2)]
+
+        return Boxes()
+
+
+def _numbered_canvas(footer_left: str, header: str):
+    from reportlab.lib import colors
+    from reportlab.pdfgen import canvas
+
+    class NumberedCanvas(canvas.Canvas):
+        def __init__(self, *args, **kwargs):
+            kwargs["invariant"] = 1
+            super().__init__(*args, **kwargs)
+            self._saved = []
+
+        def showPage(self):
+            self._saved.append(dict(self.__dict__))
+            self._startPage()
+
+        def save(self):
+            total = len(self._saved)
+            for state in self._saved:
+                self.__dict__.update(state)
+                self._decorate(total)
+                super().showPage()
+            super().save()
+
+        def _decorate(self, total):
+            w, h = self._pagesize
+            self.saveState()
+            self.setStrokeColor(colors.HexColor(theme.RULE))
+            self.setLineWidth(0.6)
+            self.line(18 * 2.835, 14 * 2.835, w - 18 * 2.835, 14 * 2.835)
+            self.setFont("SKSans", 7.5)
+            self.setFillColor(colors.HexColor(theme.INK_SOFT))
+            self.drawString(18 * 2.835, 10 * 2.835, footer_left)
+            self.drawRightString(w - 18 * 2.835, 10 * 2.835,
+                                 f"page {self._pageNumber} of {total}")
+            if self._pageNumber > 1:
+                self.line(18 * 2.835, h - 13 * 2.835, w - 18 * 2.835, h - 13 * 2.835)
+                self.drawString(18 * 2.835, h - 11.5 * 2.835, header)
+                self.drawRightString(w - 18 * 2.835, h - 11.5 * 2.835,
+                                     "studykit capability evidence")
+            self.restoreState()
+
+    return NumberedCanvas
+
+
+# ---------------------------------------------------------------------------------------------
+# sections
+
+
+def _cover(story, study, results, errors, st, width, evidence_sha):
+    from reportlab.platypus import Paragraph, Spacer
+
+    story.append(Spacer(1, 18))
+    story.append(Paragraph("Capability evidence report", st["title"]))
+    story.append(Paragraph(_esc(study.title), st["subtitle"]))
+    facts = [
+        ["Part", _esc(study.part or "–")],
+        ["Supplier", _esc(study.supplier or "–")],
+        ["Measurement file", f"{_esc(study.data_filename)} ({len(study.data):,} bytes)"],
+        ["Data SHA-256", f"<font size=7>{study.data_sha256}</font>"],
+        ["Study content digest", f"<font size=7>{study.content_digest()}</font>"],
+        ["Study state as of", _esc(_last_time(study) or "–")],
+        ["Produced by", f"studykit {__version__}"],
+    ]
+    story.append(_table(facts, [42 * 2.835, width - 42 * 2.835], header=False, zebra=False,
+                        styles=st))
+    story.append(Spacer(1, 12))
+    critical = [n for n, c in study.characteristics.items() if c.safety_critical]
+    if critical:
+        from studykit.analysis import SAFETY_CAUTION
+
+        v = theme.VERDICTS["caution"]
+        story.append(_box([Paragraph(f"<b>! Safety-critical:</b> {_esc(', '.join(critical))}",
+                                     st["body"]),
+                           Paragraph(_esc(SAFETY_CAUTION), st["body"])],
+                          background=v.background, border=v.color, width=width))
+        story.append(Spacer(1, 10))
+    story.append(Paragraph("Verdicts at a glance", st["h2"]))
+    head = ["Characteristic", "Specification", "Chart / model", "Criterion", "Estimate",
+            "Lower bound", "Verdict"]
+    rows = [head]
+    verdict_rows = []
+    for name, c in study.characteristics.items():
+        res = results.get(name)
+        spec = _spec_text(c)
+        crit = study.criteria_for(name).describe()
+        if res is None:
+            rows.append([_esc(name), spec, "–", _esc(crit), "–", "–",
+                         "<b>not analysed</b>"])
+            verdict_rows.append("pending")
+            continue
+        model = res.model.label if res.model is not None else "–"
+        chart = res.chart.kind.replace("_", "-")
+        key = _verdict_key(res)
+        v = theme.VERDICTS[key]
+        est = lb = "–"
+        if res.verdict is not None:
+            est, lb = _idx(res.verdict.estimate), _idx(res.verdict.lower_bound)
+        elif res.attribute_capability is not None:
+            est = "see section"
+        caution_colour = theme.VERDICTS["caution"].text_color
+        safety = f" <font color='{caution_colour}'>(!)</font>" if c.safety_critical else ""
+        rows.append([f"<b>{_esc(name)}</b>{safety}" + (f" [{_esc(res.unit)}]" if res.unit else ""),
+                     spec, f"{chart} / {_esc(model)}", _esc(crit), est, lb,
+                     f"<font color='{v.text_color}'><b>{v.symbol} {v.label}</b></font>"])
+        verdict_rows.append(key)
+    t = _table(rows, [w * width for w in (0.19, 0.15, 0.14, 0.16, 0.1, 0.1, 0.16)], styles=st)
+    from reportlab.lib import colors
+
+    for r, key in enumerate(verdict_rows, start=1):
+        v = theme.VERDICTS[key]
+        t.setStyle([("BACKGROUND", (6, r), (6, r), colors.HexColor(v.background))])
+    story.append(t)
+    n_pass = sum(1 for k in verdict_rows if k == "pass")
+    story.append(Spacer(1, 6))
+    story.append(Paragraph(
+        f"{n_pass} of {len(verdict_rows)} characteristic(s) meet their criterion. "
+        "(!) marks a safety-critical characteristic. Estimates and bounds are printed with two "
+        "decimals; the embedded evidence file holds them in full.", st["small"]))
+    if errors:
+        story.append(Spacer(1, 6))
+        for name, msg in errors.items():
+            story.append(Paragraph(f"<b>{_esc(name)}</b> could not be analysed: {_esc(msg)}",
+                                   st["body"]))
+    states = study.signoff_state()
+    story.append(Paragraph("Sign-off status", st["h2"]))
+    if not states:
+        story.append(Paragraph("No one has signed this study yet.", st["body"]))
+    else:
+        for s in states:
+            so = s.signoff
+            word = "still valid" if s.valid else f"VOIDED ({_esc(s.why)})"
+            story.append(Paragraph(f"{_esc(so.role)}: {_esc(so.name)} - {_esc(so.decision)} "
+                                   f"on {_esc(so.when)}, {word}", st["body"]))
+    story.append(Spacer(1, 8))
+    story.append(Paragraph(f"Evidence file SHA-256: <font size=7>{evidence_sha}</font>",
+                           st["small"]))
+
+
+def _last_time(study) -> str:
+    times = [d.when for d in study.decisions] + [c.when for c in study.comments] + \
+        [s.when for s in study.signoffs]
+    times = [t for t in times if t]
+    return max(times) if times else ""
+
+
+def _spec_text(c) -> str:
+    parts = []
+    if c.lsl is not None:
+        parts.append(f"LSL {c.lsl:g}")
+    if c.target is not None:
+        parts.append(f"T {c.target:g}")
+    if c.usl is not None:
+        parts.append(f"USL {c.usl:g}")
+    return _esc(", ".join(parts) or ("attribute" if c.is_attribute else "–"))
+
+
+def _characteristic_section(story, number, name, res, study, raw, st, width, figures_cache):
+    from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
+
+    from studykit.report import figures
+
+    c = study.characteristic(name)
+    unit = f" [{_esc(res.unit)}]" if res.unit else ""
+    story.append(Paragraph(f"{number}. {_esc(name)}{unit}", st["h1"]))
+    if res.cautions:
+        v = theme.VERDICTS["caution"]
+        story.append(_box([Paragraph("<b>! Safety-critical characteristic</b>", st["body"])]
+                          + [Paragraph(_esc(t), st["body"]) for t in res.cautions],
+                          background=v.background, border=v.color, width=width))
+        story.append(Spacer(1, 6))
+    if c.description:
+        story.append(Paragraph(_esc(c.description), st["small"]))
+    # verdict first: the reader's question
+    key = _verdict_key(res)
+    v = theme.VERDICTS[key]
+    if res.verdict is not None:
+        story.append(_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} {v.label}"
+                                     f"</b></font> - {_esc(res.verdict.text)}", st["body"])],
+                          background=v.background, border=v.color, width=width))
+    story.append(Spacer(1, 6))
+    chart = res.chart
+    facts = [
+        ["Specification", _spec_text(c), "Criterion", _esc(study.criteria_for(name).describe())],
+        ["Values used", f"{res.n} in {res.subgroups} subgroups"
+         + (f" of {res.subgroup_size}" if res.subgroup_size else ""),
+         "Removed", f"{len(res.phase1.removals)} subgroup(s)"
+         + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
+        ["Mean", _num(res.mean, 6), "Chart", f"{chart.kind.replace('_', '-')} "
+         f"({_esc(chart.reason)})"],
+        ["Within sigma", _num(res.within_sigma, 4) + (f" ({_esc(chart.sigma_method_text)})"
+                                                     if chart.sigma_method_text else ""),
+         "Overall sigma", _num(res.overall_sigma, 4) + " (sample, n - 1)"],
+    ]
+    q = width / 4
+    story.append(_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
+                        zebra=False, styles=st))
+    # stability
+    story.append(Paragraph("Stability (phase I)", st["h2"]))
+    png = figures.figure_png(figures.control_chart_figure(res, raw=raw))
+    story.append(_image(png, width))
+    signals = []
+    for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
+        if s is None:
+            continue
+        for sig in s.signals:
+            labels = [str(chart.labels[int(p)]) if part == "location" or chart.kind != "imr"
+                      else str(chart.labels[min(int(p) + 1, len(chart.labels) - 1)])
+                      for p in sig.points]
+            signals.append(f"{part} chart, test {sig.number}: {_esc(sig.text)} "
+                           f"(subgroup(s) {_esc(', '.join(labels[:12]))}"
+                           f"{'...' if len(labels) > 12 else ''})")
+    if signals:
+        story.append(Paragraph(f"Signals on the final limits ({_esc(chart.location.rules)} "
+                               "rules):", st["body"]))
+        for s in signals[:20]:
+            story.append(Paragraph(s, st["bullet"], bulletText="•"))
+    else:
+        story.append(Paragraph(f"No run-rule signal on the final limits "
+                               f"({_esc(chart.location.rules)} rules).", st["body"]))
+    if res.phase1.removals:
+        story.append(Spacer(1, 4))
+        rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
+        for r in res.phase1.removals:
+            rows.append([_esc(r.label), _esc(r.rule), str(r.iteration), _esc(r.who or "–"),
+                         _esc(r.reason)])
+        story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
+                                   _table(rows, [w * width for w in (0.1, 0.1, 0.07, 0.15,
+                                                                     0.58)], styles=st)]))
+    else:
+        story.append(Paragraph("No subgroup was removed.", st["body"]))
+    if res.attribute:
+        _attribute_block(story, res, st, width)
+        _warnings_block(story, res, st)
+        return
+    if res.probability_plot is None:
+        _warnings_block(story, res, st)
+        return
+    # shape
+    story.append(CondPageBreak(260))
+    story.append(Paragraph("Shape and model", st["h2"]))
+    story.append(_image(figures.figure_png(figures.shape_figure(res)), width))
+    nm = res.normality or {}
+    ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
+    if ad is not None:
+        story.append(Paragraph(
+            f"Normality of the values used: Anderson-Darling A² = {_num(ad.a2)} "
+            f"(A*² = {_num(ad.a2_star)}, p = {_num(ad.p_value, 3)})"
+            + (f"; Shapiro-Wilk W = {_num(sw.w)} (p = {_num(sw.p_value, 3)})." if sw is not None
+               else "."),
+            st["body"]))
+    if res.model is not None:
+        params = ", ".join(f"{k} = {_num(val, 5)}" for k, val in res.model.parameters.items())
+        story.append(Paragraph(f"<b>Model used: {_esc(res.model.label)}</b>"
+                               + (f" ({_esc(params)})" if params else "")
+                               + f". Why: {_esc(res.model.reason)}.", st["body"]))
+    if res.ranking is not None:
+        rows = [["#", "Model", "Parameters", "AIC", "AD A²", "AD p"]]
+        for row in res.ranking.rows[:6]:
+            if row.error:
+                continue
+            rows.append([str(row.rank), _esc(row.label), str(row.n_params), _num(row.aic, 6),
+                         _num(row.ad_statistic, 3),
+                         _esc(row.ad_p_text) if row.ad_p_text else _num(row.ad_p_value, 3)])
+        story.append(Spacer(1, 4))
+        story.append(KeepTogether([
+            Paragraph(f"Model ranking (best {len(rows) - 1} of {len(res.ranking.rows)}; "
+                      f"{_esc(res.ranking.rule)})", st["cellb"]),
+            _table(rows, [w * width for w in (0.05, 0.35, 0.13, 0.17, 0.13, 0.17)], styles=st)]))
+    if res.model_band is not None:
+        mb = res.model_band
+        text = (f"Model uncertainty: across the models the data do not reject, the judged index "
+                f"ranges from {_idx(mb.low)} ({_esc(', '.join(mb.low_models))}) to "
+                f"{_idx(mb.high)} ({_esc(', '.join(mb.high_models))}).")
+        if mb.warning:
+            text += " " + _esc(mb.warning)
+        story.append(Spacer(1, 4))
+        story.append(Paragraph(text, st["body"]))
+    # capability
+    if res.capability is not None:
+        cap = res.capability
+        story.append(CondPageBreak(220))
+        story.append(Paragraph("Capability", st["h2"]))
+        level = cap.level
+        rows = [["Index", "Estimate", f"Lower {level * 100:g}% bound (one-sided)",
+                 f"Two-sided {level * 100:g}% interval", "Bound method"]]
+        for k in ("cp", "cpk", "pp", "ppk", "cpm"):
+            est = getattr(cap, k)
+            b = (cap.bounds or {}).get(k) or {}
+            if est is None:
+                continue
+            judged = " (judged)" if k == res.criteria.get("index") else ""
+            rows.append([f"<b>{_index_name(k)}</b>{judged}", _idx(est), _idx(b.get("lower_bound")),
+                         f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
+                         if b.get("lower") is not None else "–",
+                         _esc(str(b.get("method", "–")).replace("_", " "))])
+        story.append(_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)],
+                            styles=st))
+        ppm = (f"Expected parts per million outside the specification: overall "
+               f"{_num(cap.ppm_overall, 3)}")
+        if cap.ppm_within is not None:
+            ppm += f", within {_num(cap.ppm_within, 3)}"
+        ppm += f"; observed {_num(cap.ppm_observed, 3)}. Method: {_esc(cap.method)}."
+        story.append(Spacer(1, 3))
+        story.append(Paragraph(ppm, st["body"]))
+        story.append(Spacer(1, 4))
+        story.append(_image(figures.figure_png(figures.interval_figure(res)), width))
+    if res.findings:
+        story.append(Paragraph("Findings", st["h2"]))
+        for f in res.findings:
+            story.append(Paragraph(_esc(f.text), st["bullet"], bulletText="•"))
+    if res.plan is not None:
+        story.append(Paragraph("Demonstration planning", st["h2"]))
+        story.append(Paragraph(_esc(res.plan.text), st["body"]))
+    _warnings_block(story, res, st)
+
+
+def _attribute_block(story, res, st, width):
+    from reportlab.platypus import Paragraph
+
+    ac = res.attribute_capability
+    if ac is None:
+        return
+    story.append(Paragraph("Attribute capability", st["h2"]))
+    rows = [["Quantity", "Value"]]
+    for k, v in ac.to_dict().items():
+        if isinstance(v, int | float) and not isinstance(v, bool):
+            rows.append([_esc(k.replace("_", " ")), _num(v, 5)])
+        elif isinstance(v, str) and len(v) < 120:
+            rows.append([_esc(k.replace("_", " ")), _esc(v)])
+    story.append(_table(rows, [0.4 * width, 0.6 * width], styles=st))
+
+
+def _warnings_block(story, res, st):
+    from reportlab.platypus import Paragraph
+
+    if res.warnings:
+        story.append(Paragraph("Read with care", st["h2"]))
+        for w in res.warnings:
+            story.append(Paragraph(_esc(w), st["bullet"], bulletText="!"))
+
+
+def _gauge_section(story, number, gauges, study, st, width):
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
+    from studykit.report import figures
+
+    story.append(Paragraph(f"{number}. Measurement system (gauge R&amp;R)", st["h1"]))
+    for name, payload in gauges.items():
+        story.append(CondPageBreak(200))
+        story.append(Paragraph(f"{_esc(name)}: {payload.get('n_parts')} parts x "
+                               f"{payload.get('n_appraisers')} appraisers x "
+                               f"{payload.get('n_trials')} trials"
+                               + (f" (file {_esc(payload.get('source_file'))})"
+                                  if payload.get("source_file") else ""), st["h2"]))
+        verdict = payload.get("verdict") or {}
+        if isinstance(verdict, dict) and verdict.get("text"):
+            ok = verdict.get("acceptable")
+            key = "pass" if ok else ("fail" if ok is False else "caution")
+            v = theme.VERDICTS[key]
+            story.append(_box([Paragraph(_esc(verdict.get("text")), st["body"])],
+                              background=v.background, border=v.color, width=width))
+            story.append(Spacer(1, 4))
+        rows = [["Source", "Variance", "Sigma", "% contribution", "% study var.", "% tolerance"]]
+        for comp in payload.get("components", []):
+            rows.append([_esc(str(comp.get("name", "")).replace("_", " ")),
+                         _num(comp.get("variance")), _num(comp.get("sigma")),
+                         _num(comp.get("pct_contribution"), 3),
+                         _num(comp.get("pct_study_variation"), 3),
+                         _num(comp.get("pct_tolerance"), 3)])
+        story.append(_table(rows, [w * width for w in (0.26, 0.15, 0.15, 0.15, 0.15, 0.14)],
+                            styles=st))
+        story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
+                               f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
+        res = _gauge_result(payload)
+        if res is not None:
+            from studykit.report import gauge_figures
+
+            for build in (gauge_figures.components_figure, gauge_figures.range_chart_figure):
+                try:
+                    fig = build(res)
+                except Exception:  # noqa: BLE001 - a figure must never stop the report
+                    continue
+                story.append(_image(figures.figure_png(fig), width * 0.85))
+
+
+def _gauge_result(payload):
+    """Recompute the GaugeResult from the stored values (for its figures)."""
+    try:
+        import numpy as np
+
+        from studykit.stats.gauge import gauge_rr
+
+        cube = payload["values"]
+        parts, apprs = payload["part_labels"], payload["appraiser_labels"]
+        vals, pl, al, tl = [], [], [], []
+        for i, row in enumerate(cube):
+            for j, cell in enumerate(row):
+                for k, v in enumerate(cell):
+                    vals.append(np.nan if v is None else v)
+                    pl.append(parts[i])
+                    al.append(apprs[j])
+                    tl.append(k + 1)
+        return gauge_rr(vals, pl, al, trials=tl,
+                        alpha_interaction=payload.get("alpha_interaction", 0.25),
+                        study_variation=payload.get("study_variation", 6.0),
+                        lsl=payload.get("lsl"), usl=payload.get("usl"),
+                        confidence=payload.get("confidence", 0.95))
+    except (StudyInputError, KeyError, TypeError, ValueError, IndexError):
+        return None
+
+
+def _signoff_section(story, number, study, st, width, boxes):
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
+    story.append(Paragraph(f"{number}. Decisions and sign-off", st["h1"]))
+    story.append(Paragraph(f"Current study content digest: <font size=7>"
+                           f"{study.content_digest()}</font>. A sign-off is valid only while "
+                           "the content it signed is unchanged.", st["body"]))
+    story.append(Paragraph("Recorded decisions", st["h2"]))
+    if study.decisions:
+        rows = [["When", "Who", "Characteristic", "Decision", "Reason"]]
+        for d in study.decisions:
+            what = d.action.replace("_", " ")
+            if d.subgroup:
+                what += f" subgroup {d.subgroup}"
+            if d.payload:
+                what += " " + ", ".join(f"{k}={v}" for k, v in d.payload.items())
+            rows.append([_esc(d.when), _esc(d.who or ("auto" if d.automatic else "–")),
+                         _esc(d.characteristic or "study"), _esc(what), _esc(d.reason)])
+        story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)],
+                            styles=st))
+    else:
+        story.append(Paragraph("No decision recorded.", st["body"]))
+    if study.comments:
+        story.append(Paragraph("Comments", st["h2"]))
+        rows = [["When", "Who", "About", "Comment"]]
+        for cm in study.comments:
+            rows.append([_esc(cm.when), _esc(cm.who), _esc(cm.characteristic or "study"),
+                         _esc(cm.text)])
+        story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.54)], styles=st))
+    story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
+    states = study.signoff_state()
+    if states:
+        rows = [["Role", "Name", "Decision", "When", "Comment", "Valid now?"]]
+        for s in states:
+            so = s.signoff
+            rows.append([_esc(so.role), _esc(so.name), _esc(so.decision), _esc(so.when),
+                         _esc(so.comment or "–"),
+                         "yes" if s.valid else f"<b>no</b> - {_esc(s.why)}"])
+        story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
+                            styles=st))
+    else:
+        story.append(Paragraph("No sign-off recorded in the study.", st["body"]))
+    story.append(CondPageBreak(280))
+    story.append(Paragraph("Digital signatures on this document", st["h2"]))
+    story.append(Paragraph("Each signer adds a PDF signature (PAdES) with `studykit report "
+                           "--sign`; it appears in the box of its role. `studykit verify` checks "
+                           "that every signature is intact and names the certificate.",
+                           st["small"]))
+    story.append(Spacer(1, 6))
+    story.append(_SignatureBoxes(width, boxes, st))
+
+
+def _appendix(story, number, study, st, width, evidence_sha):
+    from reportlab.platypus import Paragraph
+
+    story.append(Paragraph(f"{number}. Methods, sources and digests", st["h1"]))
+    rows = [["Method", "Published source"]]
+    for m, src in METHODS:
+        rows.append([_esc(m), _esc(src)])
+    story.append(_table(rows, [0.36 * width, 0.64 * width], styles=st))
+    story.append(Paragraph("Software", st["h2"]))
+    story.append(Paragraph(_esc(_software_versions()), st["body"]))
+    story.append(Paragraph("Digests (SHA-256)", st["h2"]))
+    rows = [["What", "SHA-256"],
+            [f"Raw data ({_esc(study.data_filename)})", study.data_sha256],
+            ["Study content (data + effective decisions)", study.content_digest()],
+            [f"Embedded evidence ({EVIDENCE_FILENAME})", evidence_sha]]
+    story.append(_table(rows, [0.38 * width, 0.62 * width], styles=st))
+    story.append(Paragraph(
+        f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
+        "in full precision, the specifications, criteria and decisions. `studykit verify "
+        "REPORT.pdf --data FILE` (or --study FILE) recomputes the study and compares them with "
+        f"a relative tolerance of {RELATIVE_TOLERANCE:g}.", st["small"]))
+
+
+def _software_versions() -> str:
+    import matplotlib
+    import numpy
+    import reportlab
+    import scipy
+
+    return (f"studykit {__version__}; numpy {numpy.__version__}; scipy {scipy.__version__}; "
+            f"matplotlib {matplotlib.__version__}; reportlab {reportlab.Version}.")
+
+
+# ---------------------------------------------------------------------------------------------
+# entry point
+
+
+def build_report(study_path_or_study, out_path, *,
+                 progress: Callable[[int, int, str], None] | None = None,
+                 gauges: Mapping | None = None) -> ReportInfo:
+    """Write the evidence PDF of a study.
+
+    Parameters
+    ----------
+    study_path_or_study : str, PathLike or Study
+        A study file (its stored gauge results are reported too) or a loaded study.
+    out_path : str or PathLike
+        The PDF to write (written under a temporary name and moved into place).
+    progress : callable, optional
+        ``progress(done, total, name)`` after each characteristic is analysed and drawn.
+    gauges : mapping, optional
+        name -> stored gauge R&R payload (overrides those read from the study file).
+
+    Returns
+    -------
+    ReportInfo
+
+    Notes
+    -----
+    Reproducible: reportlab's invariant mode and figures without time stamps mean the same
+    study gives the same PDF bytes. Every number printed comes from the
+    :class:`~studykit.analysis.CharacteristicResult` whose ``to_dict()`` is embedded.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> demo = pathlib.Path(__file__).parents[2] / "demo_data" / "pump_housing_pilot.study"
+    >>> with tempfile.TemporaryDirectory() as d:                    # doctest: +SKIP
+    ...     info = build_report(demo, pathlib.Path(d) / "r.pdf")
+    """
+    import time
+
+    from reportlab.lib.pagesizes import A4
+    from reportlab.lib.units import mm
+    from reportlab.platypus import PageBreak, SimpleDocTemplate
+
+    t0 = time.perf_counter()
+    study, stored_gauges, _ = _load(study_path_or_study)
+    if gauges is not None:
+        stored_gauges = dict(gauges)
+    if stored_gauges is not None:
+        stored_gauges = {k: v for k, v in stored_gauges.items() if k in study.characteristics}
+    names = study.characteristic_names
+    total = len(names) + 1
+
+    def _analysis_progress(done, _n, name):
+        if progress is not None:
+            progress(done - 1, total, f"analysing {name}")
+
+    results, errors, measurements = analyze_for_report(study, stored_gauges,
+                                                       progress=_analysis_progress)
+    evidence = collect_evidence(study, results, errors, stored_gauges)
+    evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
+                                allow_nan=False).encode("utf-8")
+    evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
+
+    st = _styles()
+    page_w, page_h = A4
+    margin = 18 * mm
+    width = page_w - 2 * margin
+    story: list = []
+    _cover(story, study, results, errors, st, width, evidence_sha)
+    section = 1
+    for i, name in enumerate(names):
+        res = results.get(name)
+        if res is None:
+            continue
+        story.append(PageBreak())
+        section += 1
+        try:
+            raw = measurements.get(name)
+        except StudyInputError:
+            raw = None
+        _characteristic_section(story, section, name, res, study, raw, st, width, None)
+        if progress is not None:
+            progress(i + 1, total, f"drawn {name}")
+    if stored_gauges:
+        story.append(PageBreak())
+        section += 1
+        _gauge_section(story, section, stored_gauges, study, st, width)
+    story.append(PageBreak())
+    section += 1
+    boxes: dict = {}
+    _signoff_section(story, section, study, st, width, boxes)
+    story.append(PageBreak())
+    section += 1
+    _appendix(story, section, study, st, width, evidence_sha)
+
+    footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
+    buf = io.BytesIO()
+    doc = SimpleDocTemplate(
+        buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
+        bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
+        author="studykit", subject=f"content digest {study.content_digest()}",
+        creator=f"studykit {__version__}", invariant=1,
+    )
+    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    pdf = _attach(buf.getvalue(), evidence_bytes, boxes)
+    out = Path(out_path)
+    tmp = out.with_name(out.name + ".part")
+    tmp.write_bytes(pdf)
+    os.replace(tmp, out)
+    if progress is not None:
+        progress(total, total, "written")
+    from pypdf import PdfReader
+
+    pages = len(PdfReader(io.BytesIO(pdf)).pages)
+    return ReportInfo(
+        path=str(out),
+        pages=pages,
+        characteristics=tuple(names),
+        errors=dict(errors),
+        verdicts={n: (None if r.verdict is None else r.verdict.meets) for n, r in results.items()},
+        data_sha256=study.data_sha256,
+        content_digest=study.content_digest(),
+        evidence_sha256=evidence_sha,
+        signature_boxes=boxes,
+        seconds=time.perf_counter() - t0,
+    )
+
+
+def _attach(pdf: bytes, evidence: bytes, boxes: Mapping) -> bytes:
+    """Embed the evidence JSON as a PDF embedded file, and the signature boxes as document
+    metadata (deterministic output)."""
+    from pypdf import PdfReader, PdfWriter
+
+    writer = PdfWriter(clone_from=PdfReader(io.BytesIO(pdf)))
+    writer.add_attachment(EVIDENCE_FILENAME, evidence)
+    writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
+    out = io.BytesIO()
+    writer.write(out)
+    return out.getvalue()

@@ -1,0 +1,151 @@
+"""The evidence PDF: pages render, text holds the reported numbers, same study -> same bytes."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+from pypdf import PdfReader
+
+from studykit.analysis import SAFETY_CAUTION, analyze_all, gauge_results
+from studykit.errors import StudyFileError, StudyInputError
+from studykit.report.pdf import EVIDENCE_FORMAT, build_report, read_evidence
+from studykit.store import StudyFile
+from studykit.study import Characteristic
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_data"
+
+
+def small_study(tmp: Path, *, safety: bool = True) -> Path:
+    """One characteristic of the demo data (fast to analyse)."""
+    path = tmp / "small.study"
+    StudyFile.create(path, data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
+                     filename="pump_housing_pilot.csv", title="Small evidence study",
+                     part="Test part", supplier="Test supplier",
+                     characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97,
+                                                     usl=12.03, target=12.0,
+                                                     safety_critical=safety)], who="tester")
+    return path
+
+
+@pytest.fixture(scope="module")
+def demo_report(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("report")
+    study = tmp / "demo.study"
+    shutil.copy(DEMO / "pump_housing_pilot.study", study)
+    calls = []
+    info = build_report(study, tmp / "demo.pdf", progress=lambda *a: calls.append(a))
+    return study, tmp / "demo.pdf", info, calls
+
+
+def _analyze(study_path):
+    """analyze_all with the gauge results stored in the study file, as `studykit analyze`."""
+    sf = StudyFile(study_path)
+    study = sf.load()
+    return study, analyze_all(study, gauges=gauge_results(sf))
+
+
+def _text(pdf: Path) -> str:
+    return "\n".join(p.extract_text() or "" for p in PdfReader(pdf).pages)
+
+
+def test_report_holds_the_numbers_of_the_result_object(demo_report):
+    study_path, pdf, info, _ = demo_report
+    study, result = _analyze(study_path)
+    text = _text(pdf)
+    assert info.pages == len(PdfReader(pdf).pages) >= 5
+    for name, res in result.results.items():
+        assert name in text
+        if res.verdict is not None:
+            # the cover prints the judged index estimate and bound with two decimals
+            assert f"{res.verdict.estimate:.2f}" in text
+            assert f"{res.verdict.lower_bound:.2f}" in text
+            assert info.verdicts[name] == res.verdict.meets
+    assert study.data_sha256 in text
+    assert study.content_digest() in text
+    assert "Montgomery" in text and "Bissell" in text and "ISO 22514-2" in text
+
+
+def test_embedded_evidence_is_the_analyze_json(demo_report):
+    study_path, pdf, info, _ = demo_report
+    study, result = _analyze(study_path)
+    ev = read_evidence(pdf)
+    assert ev["format"] == EVIDENCE_FORMAT
+    assert ev["study"]["data_sha256"] == study.data_sha256 == info.data_sha256
+    assert ev["study"]["content_digest"] == study.content_digest()
+    for name, res in result.results.items():
+        assert ev["results"][name] == res.to_dict()
+
+
+def test_safety_caution_on_cover_and_in_its_section(demo_report):
+    study_path, pdf, _, _ = demo_report
+    study = StudyFile(study_path).load()
+    critical = [n for n, c in study.characteristics.items() if c.safety_critical]
+    assert critical, "the demo study marks a safety-critical characteristic"
+    pages = [(p.extract_text() or "").replace("\n", " ") for p in PdfReader(pdf).pages]
+    words = SAFETY_CAUTION.split()[:8]
+    probe = " ".join(words)
+    assert probe in pages[0]
+    for name in critical:
+        section = [t for t in pages[1:] if f". {name}" in t and "Stability" in t]
+        assert section and probe in section[0]
+
+
+def test_progress_is_reported_per_characteristic(demo_report):
+    _, _, info, calls = demo_report
+    total = calls[-1][1]
+    assert total == len(info.characteristics) + 1
+    assert calls[-1][0] == total
+    named = {c[2].split(" ", 1)[1] for c in calls if c[2].startswith("drawn")}
+    assert named == set(info.characteristics) - set(info.errors)
+
+
+@pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="poppler-utils not installed")
+def test_pages_render_to_png(demo_report, tmp_path):
+    _, pdf, info, _ = demo_report
+    subprocess.run(["pdftoppm", "-png", "-r", "30", str(pdf), str(tmp_path / "page")],
+                   check=True, capture_output=True, timeout=120)
+    pngs = sorted(tmp_path.glob("page*.png"))
+    assert len(pngs) == info.pages
+    assert all(p.stat().st_size > 2000 for p in pngs)
+
+
+def test_footer_has_page_numbers_and_study_id(demo_report):
+    study_path, pdf, info, _ = demo_report
+    study = StudyFile(study_path).load()
+    pages = PdfReader(pdf).pages
+    for i, page in enumerate(pages, start=1):
+        t = page.extract_text()
+        assert f"page {i} of {info.pages}" in t
+        assert study.content_digest()[:12] in t
+
+
+def test_same_study_gives_the_same_bytes(tmp_path):
+    study = small_study(tmp_path)
+    a = build_report(study, tmp_path / "a.pdf")
+    b = build_report(study, tmp_path / "b.pdf")
+    assert (tmp_path / "a.pdf").read_bytes() == (tmp_path / "b.pdf").read_bytes()
+    assert a.evidence_sha256 == b.evidence_sha256
+    assert set(a.signature_boxes) == {"prepared", "reviewed", "approved"}
+
+
+def test_changed_decision_changes_the_report(tmp_path):
+    study = small_study(tmp_path)
+    a = build_report(study, tmp_path / "a.pdf")
+    StudyFile(study).exclude("bore_diameter", "3", reason="probe fell", who="tester")
+    b = build_report(study, tmp_path / "b.pdf")
+    assert a.content_digest != b.content_digest
+    text = _text(tmp_path / "b.pdf")
+    assert "probe fell" in text and "Removal log" in text
+
+
+def test_errors_are_clear(tmp_path):
+    with pytest.raises(StudyFileError, match="does not exist"):
+        build_report(tmp_path / "missing.study", tmp_path / "x.pdf")
+    with pytest.raises(StudyInputError, match="must be a Study or the path"):
+        build_report(42, tmp_path / "x.pdf")
+    (tmp_path / "plain.pdf").write_bytes(b"%PDF-1.4\n%%EOF\n")
+    with pytest.raises(StudyFileError, match="studykit report|cannot be read"):
+        read_evidence(tmp_path / "plain.pdf")
