@@ -16,7 +16,9 @@ from studykit import __version__
 from studykit.errors import StudyInputError
 
 # subcommand modules, in the order --help lists them; a module that is not there yet is skipped
-SUBCOMMANDS = ["check", "study", "analyze", "gauge", "report", "verify", "keygen", "serve"]
+SUBCOMMANDS = [
+    "check", "study", "analyze", "gauge", "report", "verify", "keygen", "monitor", "serve",
+]
 
 
 def build_parser() -> argparse.ArgumentParser:
