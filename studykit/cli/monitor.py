@@ -61,6 +61,8 @@ def _plan(args):
 
 
 def run(args) -> int:
+    import numpy as np
+
     from studykit.data import read_measurements
     from studykit.stats.phase2 import monitor
 
@@ -70,7 +72,7 @@ def run(args) -> int:
     m = read_measurements(args.file, **read_kw)
     data = m.get(name)
     sizes = m.get(args.size_column).values if args.size_column else None
-    keep = ~__import__("numpy").isnan(data.values)
+    keep = ~np.isnan(data.values)
     values, labels = data.values[keep], data.subgroups[keep]
     if sizes is not None:
         sizes = sizes[keep]
