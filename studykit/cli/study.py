@@ -206,6 +206,8 @@ def format_study(study: Study) -> str:
         out.append(f"Supplier  {study.supplier}")
     out.append(f"Data      {study.data_filename} ({len(study.data)} bytes, "
                f"sha256 {study.data_sha256})")
+    for f in study.extra_files:
+        out.append(f"          {f.filename} ({len(f.data)} bytes, sha256 {f.sha256})")
     out.append(f"Digest    {study.content_digest()}")
     holder = study.lock_holder()
     out.append("State     " + (f"APPROVED by {holder.name} on {holder.when} (locked)"
