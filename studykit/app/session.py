@@ -402,9 +402,19 @@ class StudySession:
         return self.file.audit_log()
 
     # --- changes ------------------------------------------------------------------------------
-    def _lock(self, override_reason: str | None) -> dict:
+    def _lock(self, override_reason: str | None, what: str = "this change") -> dict:
+        """Keyword arguments for the store; a clear refusal while the study is locked."""
         reason = (override_reason or "").strip()
-        return {"override_lock": True, "override_reason": reason} if reason else {}
+        if reason:
+            return {"override_lock": True, "override_reason": reason}
+        holder = self.study.lock_holder()
+        if holder is not None:
+            raise StudyFileError(
+                f"the study is approved (by {holder.name} on {holder.when}) and therefore "
+                f"locked: {what} would change it. To change it anyway, give the reason in "
+                "'Change an approved study because' (`override_reason`); the change then voids "
+                "the approval, which stays on record as voided")
+        return {}
 
     def _saved(self, changed: Iterable[str]) -> None:
         self.study = self.file.load()
@@ -422,7 +432,7 @@ class StudySession:
         reason = _check_reason(reason, what=f"removing subgroup {subgroup}")
         self._check_subgroup(name, subgroup)
         self.file.exclude(name, str(subgroup), reason=reason, who=who,
-                          **self._lock(override_reason))
+                          **self._lock(override_reason, f"removing subgroup {subgroup}"))
         self._saved([name])
 
     def restore(self, name: str, subgroup, *, reason: str, who: str,
@@ -436,7 +446,7 @@ class StudySession:
                 "restore; pick one of: "
                 + (", ".join(self.study.excluded_subgroups(name)) or "none"))
         self.file.restore(name, str(subgroup), reason=reason, who=who,
-                          **self._lock(override_reason))
+                          **self._lock(override_reason, f"restoring subgroup {subgroup}"))
         self._saved([name])
 
     def _check_subgroup(self, name: str, subgroup) -> None:
@@ -489,7 +499,7 @@ class StudySession:
             items.append((proposal, reason))
         if not items:
             return 0
-        lock = self._lock(override_reason)
+        lock = self._lock(override_reason, "recording the removals")
 
         # after the first change voids the approval, later ones need no override
         def change_once(study):
@@ -522,7 +532,7 @@ class StudySession:
         crit_changed = criteria is not None and criteria != self.study.criteria_for(name)
         if not changes and not crit_changed:
             return False
-        lock = self._lock(override_reason)
+        lock = self._lock(override_reason, "changing the specification")
 
         def change(study):
             kwargs = dict(lock)
@@ -560,7 +570,7 @@ class StudySession:
         else:
             AnalysisOptions(chart=payload["chart"])
         self.file.append_decision(Decision(name, action, reason=reason, who=who, payload=payload),
-                                  **self._lock(override_reason))
+                                  **self._lock(override_reason, f"the {action} decision"))
         self._saved([name])
 
     def preview(self, name: str, *, model: str | None = None):

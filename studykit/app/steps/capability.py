@@ -1,10 +1,202 @@
-"""Workbook step: Capability (panel arrives in a later version)."""
+"""Workbook step "Capability": the indices with their bounds, PPM, the verdict and the plan.
 
-from studykit.app.steps._coming import ComingStep
+The verdict sentence comes first (with our verdict chip), then the indices drawn as intervals
+against the required threshold, expected (within, overall) and observed PPM, the findings in
+plain words, the range of the judged index across the models the data do not reject, and the
+demonstration planner: slide the index you believe the process has and read how many parts a
+study needs (:func:`studykit.stats.planning.parts_needed`). Safety-critical characteristics
+carry the caution banner.
+"""
 
-STEP = ComingStep(
-    key="capability",
-    title="Capability",
-    guidance="Compare the process spread with the tolerance and read the verdict with its confidence bound.",
-    what="Cp, Cpk, Pp, Ppk and Cpm with lower confidence bounds, expected and observed PPM, and the verdict against the chosen criteria.",
-)
+from __future__ import annotations
+
+import ipywidgets as widgets
+
+from studykit import theme
+from studykit.app.bokeh_assets import chart_widget
+from studykit.app.charts import IntervalView
+from studykit.app.overview import fmt, no_study_panel, panel_css, verdict_chip, workspace
+from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.errors import StudyInputError
+
+_PLANNABLE = ("cp", "cpk", "pp", "ppk", "cpu", "cpl", "ppu", "ppl")
+
+
+def verdict_html(result) -> str:
+    """The verdict sentence in a coloured box with its chip."""
+    v = result.verdict
+    if v is None:
+        text = ("No verdict: " + "; ".join(result.warnings)) if result.warnings else (
+            "No verdict: the characteristic has no specification limit to judge against.")
+        meets = None
+    else:
+        text, meets = v.text, v.meets
+    key = {True: "pass", False: "fail"}.get(meets, "pending")
+    colour = theme.VERDICTS[key].color
+    crit = result.criteria
+    label = (crit.get("index") or "").capitalize()
+    basis = ("lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
+             if crit.get("basis") == "lower_bound" else "estimate")
+    return (f'<div class="sk-verdict-box" style="border-color:{colour}">'
+            f"{verdict_chip(meets)}<div style=\"margin-top:6px\">{esc(text)}</div>"
+            f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
+            f"≥ {fmt(crit.get('threshold'), 2)}</div></div>")
+
+
+def ppm_html(result) -> str:
+    cap = result.capability
+    if cap is None:
+        return ""
+    rows = [("Expected, within sigma", cap.ppm_within_below, cap.ppm_within_above,
+             cap.ppm_within),
+            ("Expected, overall", cap.ppm_overall_below, cap.ppm_overall_above,
+             cap.ppm_overall),
+            ("Observed in the data", cap.ppm_observed_below, cap.ppm_observed_above,
+             cap.ppm_observed)]
+    body = "".join(f"<tr><td>{esc(n)}</td><td class=\"num\">{fmt(b, 1)}</td>"
+                   f'<td class="num">{fmt(a, 1)}</td><td class="num"><b>{fmt(t, 1)}</b></td></tr>'
+                   for n, b, a, t in rows)
+    return ('<div class="sk-panel-title">Parts per million outside the limits</div>'
+            '<table class="sk-table sk-ppm"><thead><tr><th></th><th>Below LSL</th>'
+            "<th>Above USL</th><th>Total</th></tr></thead><tbody>" + body + "</tbody></table>"
+            f'<div class="sk-small">Method: {esc(cap.method)}; model: {esc(cap.model)}.</div>')
+
+
+def findings_html(result) -> str:
+    items = list(result.findings)
+    warnings = list(result.warnings)
+    if not items and not warnings:
+        return ('<div class="sk-panel-title">Findings</div><div class="sk-muted">Nothing to '
+                "report beyond the numbers.</div>")
+    out = []
+    for f in items:
+        kind = {"warning": "warning", "error": "error"}.get(f.severity, "info")
+        out.append(f'<div class="sk-msg sk-msg-{kind}">{esc(f.text)}</div>')
+    for w in warnings:
+        out.append(f'<div class="sk-msg sk-msg-warning">{esc(w)}</div>')
+    return '<div class="sk-panel-title">Findings</div>' + "".join(out)
+
+
+def band_html(result) -> str:
+    b = result.model_band
+    if b is None:
+        return ""
+    text = (f"Across the models the data do not reject, the judged index lies between "
+            f"{fmt(b.low, 2)} ({esc(', '.join(b.low_models))}) and {fmt(b.high, 2)} "
+            f"({esc(', '.join(b.high_models))}).")
+    warn = (f'<div class="sk-msg sk-msg-warning">{esc(b.warning)}</div>' if b.warning else "")
+    return (f'<div class="sk-panel-title">Model uncertainty</div><div>{text}</div>{warn}')
+
+
+def attribute_html(result) -> str:
+    ac = result.attribute_capability
+    if ac is None:
+        return ""
+    d = ac.to_dict()
+    facts = [(k.replace("_", " "), fmt(v, 4) if isinstance(v, float) else esc(v))
+             for k, v in d.items()]
+    return ('<div class="sk-panel-title">Counted data</div><dl class="sk-facts">'
+            + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>")
+
+
+class CapabilityStep:
+    """Step "Capability" (key ``capability``)."""
+
+    key = "capability"
+    title = "Capability"
+    guidance = ("Compare the process spread with the tolerance and read the verdict with its "
+                "confidence bound.")
+
+    def __init__(self):
+        self.ws = None
+        self.view = None
+        self._drawn = None
+
+    def build(self, context) -> widgets.Widget:
+        ws = self.ws = workspace(context)
+        if ws is None:
+            return no_study_panel("The capability step")
+        m = context.messages
+        self.view = IntervalView()
+        self.chart = chart_widget(self.view.layout)
+        self.chart.add_class("sk-interval-chart")
+        self.caution = widgets.VBox([])
+        self.verdict = html_box("", "sk-verdict")
+        self.ppm = html_box("", "sk-ppm-box")
+        self.findings = html_box("", "sk-findings")
+        self.band = html_box("", "sk-band")
+        self.attribute = html_box("", "sk-attribute")
+        self.assumed = widgets.FloatSlider(min=1.0, max=3.0, step=0.01, value=2.0,
+                                           description="", readout_format=".2f",
+                                           continuous_update=False,
+                                           layout=widgets.Layout(width="420px"))
+        self.assumed.add_class("sk-plan-slider")
+        self.plan = html_box("", "sk-plan")
+        self.assumed.observe(guarded(lambda _c: self._on_plan(), messages=m), names="value")
+        self.planner = widgets.VBox([
+            html_box('<div class="sk-panel-title">Demonstration planner</div>'
+                     '<div class="sk-muted">If the process truly has this index, how many parts '
+                     "does a study need for its lower bound to reach the requirement?</div>"),
+            widgets.HBox([html_box('<div class="sk-field-label">Assumed index</div>'),
+                          self.assumed], layout=widgets.Layout(align_items="center",
+                                                               gap="12px")),
+            self.plan])
+        self.numbers = widgets.VBox([self.chart, widgets.HBox(
+            [self.ppm, self.band], layout=widgets.Layout(gap="28px", flex_flow="row wrap"))])
+        self.refresh(context)
+        return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.verdict,
+                             self.numbers, self.attribute, self.findings, self.planner])
+
+    def refresh(self, context) -> None:
+        ws = self.ws
+        if ws is None or self.view is None:
+            return
+        s = ws.session
+        try:
+            res = s.result(s.current)
+        except StudyInputError as exc:
+            self.verdict.value = f'<div class="sk-msg sk-msg-error">{esc(exc)}</div>'
+            return
+        key = (s.current, id(res))
+        if key == self._drawn:
+            return
+        self._drawn = key
+        self.caution.children = [caution_banner()] if res.spec.get("safety_critical") else []
+        self.verdict.value = verdict_html(res)
+        has_cap = res.capability is not None
+        self.numbers.layout.display = "" if has_cap else "none"
+        if has_cap:
+            self.view.update(res)
+        self.ppm.value = ppm_html(res)
+        self.band.value = band_html(res)
+        self.attribute.value = attribute_html(res)
+        self.findings.value = findings_html(res)
+        index = res.verdict.index if res.verdict is not None else None
+        self.planner.layout.display = "" if index in _PLANNABLE else "none"
+        if index in _PLANNABLE:
+            threshold = float(res.verdict.threshold)
+            start = res.verdict.estimate if res.verdict.estimate else threshold + 0.3
+            self.assumed.min = round(threshold + 0.01, 2)
+            self.assumed.max = max(round(threshold * 2, 2), self.assumed.min + 0.5)
+            self.assumed.value = min(max(float(start), self.assumed.min), self.assumed.max)
+            self._on_plan()
+
+    def _on_plan(self) -> None:
+        from studykit.stats.planning import parts_needed
+
+        s = self.ws.session
+        res = s.result(s.current)
+        v = res.verdict
+        if v is None or v.index not in _PLANNABLE:
+            self.plan.value = ""
+            return
+        plan = parts_needed(float(self.assumed.value), float(v.threshold), index=v.index,
+                            level=float(v.level))
+        n = "—" if plan.n is None else f"{plan.n}"
+        self.plan.value = (f'<div style="font-size:22px;font-weight:600;margin:6px 0">'
+                           f"{esc(n)} parts</div><div>{esc(plan.text)}</div>"
+                           f'<div class="sk-small">Study so far: {res.n} values. '
+                           f"{esc(plan.criterion)}.</div>")
+
+
+STEP = CapabilityStep()

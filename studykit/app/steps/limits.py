@@ -1,10 +1,184 @@
-"""Workbook step: Limits & targets (panel arrives in a later version)."""
+"""Workbook step "Limits & targets": the study overview and each characteristic's specification.
 
-from studykit.app.steps._coming import ComingStep
+At the top, every characteristic at a glance (:class:`~studykit.app.overview.OverviewPanel`):
+verdict, index and lower bound, removals, review state; sortable; a click opens one in the
+stability step. Below, the specification of the chosen characteristic: LSL, USL, target,
+safety-critical, and the acceptance criterion (index, threshold, basis). A change is stored in
+the study file as a ``set_spec``/``set_criteria`` decision with who and why; a reason is
+required.
+"""
 
-STEP = ComingStep(
-    key="limits",
-    title="Limits & targets",
-    guidance="Enter the specification limits, the target and the acceptance criteria for each characteristic.",
-    what="For each characteristic: lower and upper specification limit, target, whether it is safety-critical, and the capability index and threshold the customer asks for.",
-)
+from __future__ import annotations
+
+import ipywidgets as widgets
+
+from studykit.app.overview import OverviewPanel, no_study_panel, panel_css, workspace
+from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.errors import SpecError
+from studykit.study import INDICES, Criteria
+
+
+def _number_or_none(text: str, *, name: str):
+    text = (text or "").strip().replace(",", ".")
+    if text == "":
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        raise SpecError(f"`{name}` ({text!r}) is not a number: write it like 12.03, or leave it "
+                        "empty for no limit") from None
+
+
+def _show(v) -> str:
+    return "" if v is None else f"{v:g}"
+
+
+class LimitsStep:
+    """Step "Limits & targets" (key ``limits``)."""
+
+    key = "limits"
+    title = "Limits & targets"
+    guidance = ("Check every characteristic at a glance, then set each one's specification "
+                "limits, target and acceptance criterion (changes are recorded with a reason).")
+
+    def __init__(self):
+        self.ws = None
+        self.overview = None
+        self._drawn = None
+
+    def build(self, context) -> widgets.Widget:
+        ws = self.ws = workspace(context)
+        if ws is None:
+            return no_study_panel("The limits step")
+        m = context.messages
+        self.overview = OverviewPanel(ws)
+        lay = widgets.Layout(width="150px")
+        self.lsl = widgets.Text(layout=lay, placeholder="none")
+        self.usl = widgets.Text(layout=lay, placeholder="none")
+        self.target = widgets.Text(layout=lay, placeholder="none")
+        self.safety = widgets.Checkbox(description="Safety-critical", indent=False)
+        self.index = widgets.Dropdown(options=[(i[0].upper() + i[1:], i) for i in INDICES],
+                                      layout=widgets.Layout(width="110px"))
+        self.threshold = widgets.BoundedFloatText(min=0.01, max=10, step=0.01,
+                                                  layout=widgets.Layout(width="110px"))
+        self.basis = widgets.Dropdown(options=[("lower confidence bound", "lower_bound"),
+                                               ("point estimate", "estimate")],
+                                      layout=widgets.Layout(width="200px"))
+        self.reason = widgets.Text(placeholder="why, e.g. 'drawing rev C, ECN-118'",
+                                   layout=widgets.Layout(width="420px"))
+        self.reason.add_class("sk-spec-reason")
+        self.save = widgets.Button(description="Save specification", button_style="primary",
+                                   icon="save", disabled=True)
+        self.save.add_class("sk-spec-save")
+        self.hint = html_box("", "sk-small")
+        for w in (self.reason, ws.who):
+            w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
+        self.save.on_click(guarded(lambda _b: self._on_save(), messages=m))
+        self.heading = html_box("", "sk-spec-heading")
+        self.caution = widgets.VBox([])
+        self.history = html_box("", "sk-spec-history")
+
+        def field(label, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
+
+        form = widgets.VBox([
+            widgets.HBox([field("Lower limit (LSL)", self.lsl), field("Upper limit (USL)",
+                                                                      self.usl),
+                          field("Target", self.target), field("", self.safety)],
+                         layout=widgets.Layout(gap="14px", flex_flow="row wrap")),
+            widgets.HBox([field("Index judged", self.index), field("At least", self.threshold),
+                          field("Judged on", self.basis)],
+                         layout=widgets.Layout(gap="14px", flex_flow="row wrap")),
+            field("Reason for the change (required)", self.reason),
+            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center",
+                                                                        gap="12px")),
+        ])
+        form.add_class("sk-spec-form")
+        self.refresh(context)
+        return widgets.VBox([panel_css(), self.overview, ws.toolbar(), self.heading,
+                             self.caution, form, self.history])
+
+    def refresh(self, context) -> None:
+        ws = self.ws
+        if ws is None or self.overview is None:
+            return
+        s = ws.session
+        self.overview.render(force=False)
+        key = (s.current, id(s.study))
+        if key == self._drawn:
+            return
+        self._drawn = key
+        spec = s.study.characteristic(s.current)
+        crit = s.study.criteria_for(s.current)
+        self.heading.value = (f'<div class="sk-panel-title">Specification of '
+                              f"{esc(spec.name)}{' (' + esc(spec.unit) + ')' if spec.unit else ''}"
+                              f"</div><div class=\"sk-muted\">{esc(spec.description)}</div>")
+        self.caution.children = [caution_banner()] if spec.safety_critical else []
+        self.lsl.value, self.usl.value = _show(spec.lsl), _show(spec.usl)
+        self.target.value = _show(spec.target)
+        self.safety.value = spec.safety_critical
+        self.index.value, self.threshold.value = crit.index, crit.threshold
+        self.basis.value = crit.basis
+        attribute = spec.is_attribute
+        for w in (self.lsl, self.usl, self.target, self.index, self.threshold, self.basis):
+            w.disabled = attribute
+        self.reason.value = ""
+        rows = [d for d in s.study.decisions if d.characteristic == spec.name
+                and d.action in ("set_spec", "set_criteria")]
+        if rows:
+            body = "".join(
+                f"<tr><td>{esc(d.when.replace('T', ' ').rstrip('Z'))}</td><td>{esc(d.who)}</td>"
+                f"<td>{esc(_change_text(d))}</td><td>{esc(d.reason)}</td></tr>" for d in rows)
+            self.history.value = ('<div class="sk-panel-title">Changes on record</div>'
+                                  '<table class="sk-table"><thead><tr><th>When (UTC)</th>'
+                                  "<th>Who</th><th>Change</th><th>Reason</th></tr></thead>"
+                                  f"<tbody>{body}</tbody></table>")
+        else:
+            self.history.value = ('<div class="sk-small" style="margin-top:10px">No change '
+                                  "since the study was created.</div>")
+        self._update_buttons()
+
+    def _update_buttons(self) -> None:
+        missing = []
+        if not self.reason.value.strip():
+            missing.append("give a reason")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        self.save.disabled = bool(missing)
+        self.hint.value = ("To save: " + ", ".join(missing) + ".") if missing else ""
+
+    def _on_save(self) -> None:
+        ws, s = self.ws, self.ws.session
+        name = s.current
+        spec = {"safety_critical": bool(self.safety.value)}
+        crit = None
+        if not s.study.characteristic(name).is_attribute:
+            spec.update(lsl=_number_or_none(self.lsl.value, name="lsl"),
+                        usl=_number_or_none(self.usl.value, name="usl"),
+                        target=_number_or_none(self.target.value, name="target"))
+            crit = Criteria(index=self.index.value, threshold=float(self.threshold.value),
+                            basis=self.basis.value,
+                            confidence=s.study.criteria_for(name).confidence)
+        changed = s.update_characteristic(name, who=ws.who_name, reason=self.reason.value,
+                                          spec=spec, criteria=crit,
+                                          override_reason=ws.override_reason)
+        if changed:
+            ws.context.messages.ok(f"Specification of {name} saved with your reason; the "
+                                   "analysis was updated.")
+        else:
+            ws.context.messages.info(f"Nothing changed in the specification of {name}.")
+
+
+def _change_text(d) -> str:
+    if d.action == "set_spec":
+        old = d.payload.get("old", {})
+        return "; ".join(f"{k}: {old.get(k)!r} → {v!r}" for k, v in
+                         d.payload.get("changes", {}).items())
+    crit = d.payload.get("criteria", {})
+    try:
+        return "criterion: " + Criteria.from_dict(crit).describe()
+    except SpecError:
+        return "criterion changed"
+
+
+STEP = LimitsStep()

@@ -1,10 +1,218 @@
-"""Workbook step: Review & sign (panel arrives in a later version)."""
+"""Workbook step "Review & sign": comments, named sign-offs, the lock and its voiding.
 
-from studykit.app.steps._coming import ComingStep
+Comments are kept per characteristic (or for the whole study). A sign-off records who, in which
+role, what they decided, a comment and the time, together with the study's content digest. An
+approval (role ``approved``, decision ``approve``) locks the study: any later change is refused
+with a clear message unless a reason to change an approved study is given (the field appears at
+the top of every panel while the study is locked); that change voids the approval, and the
+voided sign-off stays on record, struck through with the reason. Several people may sign at the
+same time from different browsers: the study file serialises the writes, and "Read the study
+file again" shows what others did.
+"""
 
-STEP = ComingStep(
-    key="signoff",
-    title="Review & sign",
-    guidance="The team reviews the evidence and signs; a later change to data or decisions voids the sign-off.",
-    what="Comments, named sign-offs with role and decision, and a visible warning when data or decisions changed after approval.",
-)
+from __future__ import annotations
+
+import ipywidgets as widgets
+
+from studykit.app.overview import no_study_panel, panel_css, verdict_chip, workspace
+from studykit.app.widgets import esc, guarded, html_box
+from studykit.study import SIGNOFF_ROLES
+
+_DECISIONS = [("Approve", "approve"), ("Reject", "reject"), ("Comment only", "comment")]
+
+
+def _when(text: str) -> str:
+    return esc((text or "").replace("T", " ").rstrip("Z"))
+
+
+def lock_html(session) -> str:
+    """The banner saying whether the study is approved, voided or open."""
+    states = session.signoff_state()
+    holder = session.study.lock_holder()
+    voided = [st for st in states if not st.valid]
+    out = []
+    if holder is not None:
+        out.append(f'<div class="sk-lock sk-locked"><b>Approved and locked.</b> '
+                   f"{esc(holder.name)} approved this study on {_when(holder.when)}. Changes to "
+                   "data or decisions are refused; to change it anyway, give a reason in the "
+                   "field at the top of the panel: the change then voids the approval, which "
+                   "stays on record as voided.</div>")
+    if voided:
+        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> ({esc(st.signoff.role)}, "
+                        f"{esc(st.signoff.decision)}, {_when(st.signoff.when)}): "
+                        f"{esc(st.why)}</li>" for st in voided)
+        out.append('<div class="sk-void sk-voided-banner"><b>✗ Sign-off voided.</b> The study '
+                   "changed after these sign-offs, so they no longer hold and the study must be "
+                   f"signed again:<ul style=\"margin:4px 0 0 0\">{items}</ul></div>")
+    if not out:
+        out.append('<div class="sk-muted">Not approved yet. Review the evidence, comment, and '
+                   "sign below.</div>")
+    return "".join(out)
+
+
+def signoffs_html(session) -> str:
+    states = session.signoff_state()
+    if not states:
+        return ('<div class="sk-panel-title">Sign-offs</div><div class="sk-muted">Nobody has '
+                "signed yet.</div>")
+    body = []
+    for st in states:
+        s = st.signoff
+        cls = "" if st.valid else ' class="sk-voided"'
+        state = (verdict_chip(True, text="Holds") if st.valid
+                 else verdict_chip(False, text="Voided"))
+        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(s.role)}</td>"
+                    f"<td{cls}>{esc(s.decision)}</td><td{cls}>{esc(s.comment)}</td>"
+                    f"<td{cls}>{_when(s.when)}</td><td>{state}"
+                    f"{'<div class=sk-small>' + esc(st.why) + '</div>' if st.why else ''}"
+                    f"</td></tr>")
+    return ('<div class="sk-panel-title">Sign-offs</div><table class="sk-table sk-signoffs">'
+            "<thead><tr><th>Name</th><th>Role</th><th>Decision</th><th>Comment</th>"
+            "<th>When (UTC)</th><th>State</th></tr></thead><tbody>" + "".join(body)
+            + "</tbody></table>")
+
+
+def comments_html(session, name: str) -> str:
+    rows = [c for c in session.study.comments if c.characteristic in (None, name)]
+    if not rows:
+        return '<div class="sk-muted">No comments yet.</div>'
+    return "".join(
+        f'<div class="sk-proposal"><b>{esc(c.who)}</b> <span class="sk-small">'
+        f"{_when(c.when)} · {esc(c.characteristic or 'whole study')}</span>"
+        f"<div>{esc(c.text)}</div></div>" for c in rows)
+
+
+def audit_html(session, *, limit: int = 12) -> str:
+    entries = session.audit_log()[-limit:]
+    body = "".join(f"<tr><td>{_when(e.when)}</td><td>{esc(e.who)}</td><td>{esc(e.what)}</td>"
+                   f"<td>{esc(e.why)}</td></tr>" for e in reversed(entries))
+    return ('<div class="sk-panel-title">Latest entries of the audit log</div>'
+            '<table class="sk-table sk-audit"><thead><tr><th>When (UTC)</th><th>Who</th>'
+            f"<th>What</th><th>Why</th></tr></thead><tbody>{body}</tbody></table>")
+
+
+class SignoffStep:
+    """Step "Review & sign" (key ``signoff``)."""
+
+    key = "signoff"
+    title = "Review & sign"
+    guidance = ("The team reviews the evidence and signs; a later change to data or decisions "
+                "voids the sign-off.")
+
+    def __init__(self):
+        self.ws = None
+        self._drawn = None
+
+    def is_done(self, context) -> bool:
+        ws = context.extra.get("studykit.workspace")
+        return bool(ws is not None and ws.session.is_locked)
+
+    def build(self, context) -> widgets.Widget:
+        ws = self.ws = workspace(context)
+        if ws is None:
+            return no_study_panel("The review step")
+        m = context.messages
+        self.lock = html_box("", "sk-lock-state")
+        self.signoffs = html_box("", "sk-signoff-table")
+        self.role = widgets.Combobox(options=list(SIGNOFF_ROLES), value="reviewed",
+                                     placeholder="prepared, reviewed, approved …",
+                                     ensure_option=False, layout=widgets.Layout(width="200px"))
+        self.role.add_class("sk-sign-role")
+        self.decision = widgets.ToggleButtons(options=_DECISIONS, value="approve",
+                                              style={"button_width": "120px"})
+        self.decision.add_class("sk-sign-decision")
+        self.sign_comment = widgets.Textarea(placeholder="comment (required when rejecting)",
+                                             layout=widgets.Layout(width="100%",
+                                                                   max_width="640px",
+                                                                   height="60px"))
+        self.sign = widgets.Button(description="Sign the study as it stands",
+                                   button_style="primary", icon="pencil", disabled=True)
+        self.sign.add_class("sk-sign")
+        self.sign_hint = html_box("", "sk-small")
+        self.comments = html_box("", "sk-comments")
+        self.comment = widgets.Textarea(placeholder="what should the team know?",
+                                        layout=widgets.Layout(width="100%", max_width="640px",
+                                                              height="60px"))
+        self.comment.add_class("sk-comment-text")
+        self.about = widgets.Checkbox(value=True, indent=False,
+                                      description="about the characteristic shown")
+        self.add = widgets.Button(description="Add comment", icon="comment", disabled=True)
+        self.add.add_class("sk-add-comment")
+        self.reload = widgets.Button(description="Read the study file again", icon="refresh")
+        self.reload.add_class("sk-reload")
+        self.audit = html_box("", "sk-audit-box")
+        for w in (ws.who, self.comment, self.sign_comment, self.role):
+            w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
+        self.sign.on_click(guarded(lambda _b: self._on_sign(), messages=m))
+        self.add.on_click(guarded(lambda _b: self._on_comment(), messages=m))
+        self.reload.on_click(guarded(lambda _b: self._on_reload(), messages=m))
+
+        def field(label, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
+
+        sign_form = widgets.VBox([
+            html_box('<div class="sk-panel-title">Sign</div><div class="sk-muted">Your '
+                     "signature covers the study as it stands now (its content digest is "
+                     "stored with it).</div>"),
+            widgets.HBox([field("Role", self.role), field("Decision", self.decision)],
+                         layout=widgets.Layout(gap="16px", flex_flow="row wrap")),
+            field("Comment", self.sign_comment),
+            widgets.HBox([self.sign, self.sign_hint], layout=widgets.Layout(
+                gap="12px", align_items="center"))])
+        comment_form = widgets.VBox([
+            html_box('<div class="sk-panel-title">Comments</div>'), self.comments,
+            self.comment, widgets.HBox([self.about, self.add],
+                                       layout=widgets.Layout(gap="12px", align_items="center"))])
+        self.refresh(context)
+        return widgets.VBox([panel_css(), ws.toolbar(), self.lock, self.reload, self.signoffs,
+                             sign_form, comment_form, self.audit])
+
+    def refresh(self, context) -> None:
+        ws = self.ws
+        if ws is None or not hasattr(self, "lock"):
+            return
+        s = ws.session
+        key = (s.current, id(s.study))
+        if key == self._drawn:
+            return
+        self._drawn = key
+        self.lock.value = lock_html(s)
+        self.signoffs.value = signoffs_html(s)
+        self.comments.value = comments_html(s, s.current)
+        self.audit.value = audit_html(s)
+        self._update_buttons()
+
+    def _update_buttons(self) -> None:
+        who = self.ws.who_name
+        missing = [] if who else ["type your name at the top"]
+        if not self.role.value.strip():
+            missing.append("name your role")
+        if self.decision.value == "reject" and not self.sign_comment.value.strip():
+            missing.append("say in the comment what must change")
+        self.sign.disabled = bool(missing)
+        self.sign_hint.value = ("To sign: " + ", ".join(missing) + ".") if missing else ""
+        self.add.disabled = not (who and self.comment.value.strip())
+
+    def _on_sign(self) -> None:
+        ws, s = self.ws, self.ws.session
+        signed = s.sign(who=ws.who_name, role=self.role.value, decision=self.decision.value,
+                        comment=self.sign_comment.value)
+        self.sign_comment.value = ""
+        lock = " The study is now approved and locked." if s.is_locked else ""
+        ws.context.messages.ok(f"Signed by {signed.name} as {signed.role} ({signed.decision})."
+                               + lock)
+
+    def _on_comment(self) -> None:
+        ws, s = self.ws, self.ws.session
+        s.add_comment(self.comment.value, who=ws.who_name,
+                      characteristic=s.current if self.about.value else None)
+        self.comment.value = ""
+        ws.context.messages.ok("Comment added.")
+
+    def _on_reload(self) -> None:
+        self.ws.session.reload()
+        self.ws.context.messages.info("Read the study file again; changes made elsewhere are "
+                                      "shown.")
+
+
+STEP = SignoffStep()
