@@ -61,16 +61,16 @@ def _rows(header: Sequence | None, rows: Iterable[Sequence]):
 
 
 def csv_text(rows: Iterable[Sequence], *, header: Sequence | None = None) -> str:
-    """CSV text (comma, ``\\n`` line ends) with every cell neutralised by :func:`safe_cell`.
+    r"""CSV text (comma, CRLF line ends as RFC 4180, so a cell holding a carriage return is
+    quoted) with every cell neutralised by :func:`safe_cell`.
 
     Examples
     --------
-    >>> print(csv_text([["=cmd|' /C calc'!A0", 1.5]], header=["note", "value"]), end="")
-    note,value
-    '=cmd|' /C calc'!A0,1.5
+    >>> csv_text([["=cmd|' /C calc'!A0", 1.5]], header=["note", "value"])
+    "note,value\r\n'=cmd|' /C calc'!A0,1.5\r\n"
     """
     buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    w = csv.writer(buf, lineterminator="\r\n")
     for row in _rows(header, rows):
         w.writerow(["" if v is None else v for v in row])
     return buf.getvalue()
@@ -96,7 +96,8 @@ def write_xlsx(path, rows: Iterable[Sequence], *, header: Sequence | None = None
 
     wb = Workbook()
     ws = wb.active
-    ws.title = safe_cell(sheet)[:31].lstrip("'") or "studykit"
+    # a sheet title may not start with a quote; leading formula characters are dropped
+    ws.title = str(sheet).lstrip("".join(FORMULA_TRIGGERS) + "'")[:31] or "studykit"
     for r, row in enumerate(_rows(header, rows), start=1):
         for c, v in enumerate(row, start=1):
             cell = ws.cell(row=r, column=c)

@@ -198,7 +198,7 @@ def _signature_checks(pdf_bytes: bytes, trust) -> tuple[list[Check], bool]:
         except Exception as exc:  # noqa: BLE001
             raise StudyInputError(f"`--trust` '{t}' is not a PEM/DER certificate ({exc})") \
                 from None
-    vc = ValidationContext(trust_roots=roots) if roots else ValidationContext()
+    vc = ValidationContext(trust_roots=roots)
     logger = logging.getLogger("pyhanko")
     level = logger.level
     logger.setLevel(logging.CRITICAL + 1)
