@@ -73,14 +73,14 @@ def test_default_steps_follow_the_protocol():
     assert len({s.key for s in steps}) == len(steps) == 8
     for s in steps:
         assert isinstance(s, Step)
-        assert s.title and s.guidance and len(s.guidance) < 140
+        assert s.title and s.guidance and "\n" not in s.guidance
 
 
 def test_empty_workbook_shows_no_study_state():
     wb = build_workbook()
     assert isinstance(wb, widgets.VBox)
     assert wb.context.state == "No study loaded"
-    assert "No study loaded" in wb._header.value
+    assert "No study loaded" in wb._header.value and "New capability study" in wb._header.value
     assert "No measurements confirmed yet" in wb._overview.value
     assert wb.current == "intake"
 
@@ -98,8 +98,18 @@ def test_every_step_opens():
         wb.select(s.key)
         assert wb.current == s.key
         assert html.escape(s.title) in wb._guidance.value
+        assert isinstance(wb._body.children[0], widgets.Widget)
+    errors = [m for m in wb.context.messages.messages if m[0] == "error"]
+    assert errors == []
+
+
+def test_placeholder_step_says_it_is_coming():
+    from studykit.app.steps._coming import ComingStep
+
+    step = ComingStep("later", "Later", "Comes later.", "What it will do.")
+    wb = build_workbook(steps=[step])
     assert "coming in a later version" in wb._body.children[0].value
-    assert wb.context.messages.messages == []
+    assert "What it will do." in wb._body.children[0].value
 
 
 def test_upload_shows_detection_then_confirm_uses_it():
@@ -113,6 +123,9 @@ def test_upload_shows_detection_then_confirm_uses_it():
     assert step._upload.value == ()  # bytes released
     assert wb.context.measurements is None  # nothing used before confirmation
     assert step._chart_area.layout.display == ""
+    (chart,) = step._chart_box.children
+    assert type(chart).__name__ == "BokehModel"
+    step._pick.value = step._pick.options[0]
     step._confirm.click()
     assert wb.context.measurements is not None
     assert wb.context.state == "Data confirmed"

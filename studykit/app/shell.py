@@ -79,7 +79,7 @@ class WorkbookContext:
     measurements: Any = None
     reader: Callable[[bytes, str], Any] | None = None
     max_upload_bytes: int = MAX_UPLOAD_BYTES
-    title: str = STATE_NO_STUDY
+    title: str = ""
     part: str = ""
     state: str = STATE_NO_STUDY
     extra: dict = field(default_factory=dict)
@@ -238,12 +238,13 @@ class Workbook(widgets.VBox):
 
     def _render_header(self) -> None:
         c = self.context
-        where = esc(c.study_path.name) if c.study_path else "no study file"
+        where = esc(c.study_path.name) if c.study_path else "none yet"
         part = f"Part: {esc(c.part)} · " if c.part else ""
+        title = esc(c.title) if c.title else "New capability study"
         self._header.value = (
             '<div style="display:flex;justify-content:space-between;align-items:center;gap:16px">'
             f'<div><div class="sk-brand">studykit workbook</div>'
-            f'<div class="sk-title">{esc(c.title)}</div>'
+            f'<div class="sk-title">{title}</div>'
             f'<div class="sk-sub">{part}Study file: {where}</div></div>'
             f'<div><span class="sk-state" title="Study state">{esc(c.state)}</span></div></div>'
         )

@@ -70,7 +70,8 @@ CSS = f"""
   padding: 6px 14px 6px 0; }}
 .sk-table td {{ border-bottom: 1px solid #EAEEF2; padding: 7px 14px 7px 0; vertical-align: top; }}
 .sk-table td.num {{ text-align: right; font-variant-numeric: tabular-nums; }}
-.sk-facts {{ display: grid; grid-template-columns: max-content auto; gap: 4px 18px; margin: 6px 0 12px 0; }}
+.sk-facts {{ display: grid; grid-template-columns: max-content 1fr; gap: 4px 24px; margin: 6px 0 12px 0;
+  justify-content: start; }}
 .sk-facts dt {{ color: {theme.INK_SOFT}; }}
 .sk-facts dd {{ margin: 0; font-weight: 600; }}
 .sk-msg {{ border-left: 4px solid; padding: 8px 12px; margin: 6px 0; border-radius: 2px; }}
@@ -89,7 +90,10 @@ CSS = f"""
   font-weight: 600; }}
 .sk-root .jupyter-button.mod-primary {{ background: {theme.OKABE_ITO['blue']}; }}
 .sk-root .jupyter-button {{ font-size: 14px; height: 34px; padding: 0 16px; }}
-.sk-upload .jupyter-button {{ width: auto; }}
+.sk-root .jupyter-button.sk-clear {{ background: transparent; color: {theme.INK_SOFT};
+  font-size: 12px; height: 24px; box-shadow: none; padding: 0 6px; }}
+.sk-root .jupyter-button.sk-clear:hover {{ color: {theme.INK}; text-decoration: underline; }}
+.sk-messages {{ margin: 6px 0 0 0; }}
 </style>
 """
 
@@ -164,7 +168,10 @@ class MessageArea(widgets.VBox):
 
     def __init__(self, **kwargs):
         self._list = widgets.HTML("")
-        self._clear = widgets.Button(description="Clear messages", layout={"display": "none"})
+        self._clear = widgets.Button(description="Clear messages", icon="times",
+                                     layout={"display": "none", "width": "auto",
+                                             "align_self": "flex-end"})
+        self._clear.add_class("sk-clear")
         self._clear.on_click(lambda _b: self.clear())
         self.messages: list[tuple[str, str, str]] = []
         super().__init__([self._list, self._clear], **kwargs)

@@ -122,7 +122,9 @@ class IntakeStep:
         limit = context.max_upload_bytes
         self._upload = widgets.FileUpload(accept=ACCEPT, multiple=False,
                                           description="Choose measurement file",
-                                          layout=widgets.Layout(width="auto"))
+                                          button_style="primary", icon="upload",
+                                          layout=widgets.Layout(width="auto",
+                                                                align_self="flex-start"))
         self._upload.add_class("sk-upload")
         intro = html_box(
             f'<div class="sk-muted">CSV, TXT or Excel, one file of at most {_mb(limit)}. '
@@ -133,6 +135,8 @@ class IntakeStep:
                                        icon="check", disabled=True)
         self._discard = widgets.Button(description="Discard", disabled=True)
         self._confirm.add_class("sk-confirm")
+        self._actions = widgets.HBox([self._confirm, self._discard],
+                                     layout=widgets.Layout(display="none"))
         self._pick = widgets.Dropdown(description="Look at", options=[],
                                       layout=widgets.Layout(width="360px"))
         self._chart_box = widgets.VBox([])
@@ -149,8 +153,8 @@ class IntakeStep:
         self._pick.observe(guarded(lambda change: self._show_chart(change["new"]),
                                    messages=messages), names="value")
         self.refresh(context)
-        return widgets.VBox([intro, self._upload, self._result,
-                             widgets.HBox([self._confirm, self._discard]), self._chart_area])
+        return widgets.VBox([intro, self._upload, self._result, self._actions,
+                             self._chart_area])
 
     def refresh(self, context) -> None:
         if self._pending is None and context.measurements is not None:
@@ -183,16 +187,18 @@ class IntakeStep:
     def _set_pending(self, m, name: str) -> None:
         self._pending, self._pending_name = m, name
         self._confirm.disabled = self._discard.disabled = m is None
+        self._actions.layout.display = "none" if m is None else ""
         if m is None:
             self._result.value = ""
             self._chart_area.layout.display = "none"
             return
         self._result.value = measurements_html(m, filename=name)
         names = [getattr(c, "name", str(i)) for i, c in enumerate(m.characteristics)]
-        self._pick.options = names
+        self._pick.options = names  # ipywidgets 8 selects nothing here
         self._chart_area.layout.display = "" if names else "none"
         if names:
-            self._show_chart(self._pick.value)
+            self._pick.value = names[0]
+            self._show_chart(names[0])  # also when the value did not change
 
     def _show_chart(self, name) -> None:
         m = self._pending
@@ -219,10 +225,11 @@ class IntakeStep:
             return
         self._pending = None
         self._confirm.disabled = self._discard.disabled = True
+        self._actions.layout.display = "none"
         n = len(m.characteristics)
         state = "Data confirmed" if context.study is None else context.state
         updates = {"measurements": m, "state": state}
-        if context.study is None and context.title == "No study loaded":
+        if context.study is None and not context.title:
             updates["title"] = f"New study from {name}"
         context.update(**updates)
         context.messages.ok(f"Using '{name}': {n} characteristic{'s' if n != 1 else ''}.")
