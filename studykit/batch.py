@@ -64,6 +64,9 @@ NO_SPEC_NOTE = "no specification limits: stability only (add a row to the specs 
 #: back the end of the run (common practice, no source).
 CHUNKS_PER_WORKER = 4
 
+#: Seconds to wait for a Dask scheduler to answer.
+DASK_CONNECT_TIMEOUT = 10
+
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
@@ -298,6 +301,12 @@ def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mappi
         if c is None:
             continue
         try:
+            measurements.get(c.name)
+        except StudyInputError:
+            spec_errors[c.name] = (f"the specs table names '{c.name}', which is not in the "
+                                   "data: correct the name or remove the row")
+            continue
+        try:
             (matched,), crit = match_to_data([c], {c.name: criteria[key]} if key in criteria
                                              else {}, measurements)
         except StudyInputError as exc:
@@ -489,7 +498,8 @@ def _run_dask(tasks, options_dict, scheduler, progress, chunk_size) -> list:
         ) from None
     own = not isinstance(scheduler, Client)
     try:
-        client = Client(scheduler, set_as_default=False) if own else scheduler
+        client = (Client(scheduler, set_as_default=False, timeout=DASK_CONNECT_TIMEOUT)
+                  if own else scheduler)
     except (OSError, TimeoutError, ValueError) as exc:
         raise StudyInputError(
             f"`scheduler` ({scheduler!r}): no Dask scheduler answers at that address ({exc}); "
@@ -505,7 +515,7 @@ def _run_dask(tasks, options_dict, scheduler, progress, chunk_size) -> list:
         index = {f.key: i for i, f in enumerate(futures)}
         results: list = [None] * len(chunks)
         done = 0
-        for fut in as_completed(futures):
+        for fut in as_completed(futures, loop=client.loop):
             i = index[fut.key]
             results[i] = fut.result()
             done += len(results[i])

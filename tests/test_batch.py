@@ -1,0 +1,329 @@
+"""Batch analysis of many characteristics: the same numbers as one-by-one, error rows, outputs,
+the command line, the optional Dask backend, and the fast bootstrap path of capability.
+
+The reference for every batch number is the one-characteristic route
+(``studykit.analysis.analyze_characteristic(...).headline()``); the reference for the fast
+bootstrap and quantile code is the generic route through scipy.stats frozen distributions
+(``scipy.stats.<family>(...).ppf`` / ``.rvs``), which it must reproduce.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from studykit.analysis import AnalysisOptions, analyze_characteristic
+from studykit.batch import BATCH_COLUMNS, NO_SPEC_NOTE, neutralise, run_many
+from studykit.cli import main
+from studykit.data import read_measurements
+from studykit.errors import StudyInputError
+from studykit.stats import capability as cap
+from studykit.stats.fit import FAMILIES
+from studykit.study import Criteria, read_specs
+
+OPTIONS = AnalysisOptions(n_boot=100)
+N = 40
+
+
+def _write_data(folder):
+    """Invented data (test fixture): normal, skewed, one with a single value, a formula name."""
+    rng = np.random.default_rng(11)
+    cols = {
+        "bore [mm]": rng.normal(12.0, 0.005, N),
+        "gap [mm]": rng.normal(0.50, 0.02, N),
+        "runout [mm]": 0.01 + rng.lognormal(-4.0, 0.5, N),
+        "flat": rng.normal(3.0, 0.1, N),
+        "lonely": [1.0] + [None] * (N - 1),
+        "=cmd": rng.normal(1.0, 0.1, N),
+    }
+    lines = [",".join(cols)]
+    for i in range(N):
+        cells = []
+        for v in cols.values():
+            cells.append("" if v[i] is None else f"{float(v[i]):.6f}")
+        lines.append(",".join(cells))
+    data = folder / "wide.csv"
+    data.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    specs = folder / "specs.csv"
+    specs.write_text(
+        "characteristic,lsl,usl,criterion,threshold,model\n"
+        "bore,11.97,12.03,cpk,1.33,\n"
+        "gap,0.40,0.60,,,\n"
+        "runout,,0.2,,,lognormal3\n"
+        "lonely,0,2,,,\n"
+        "=cmd,0,2,,,\n"
+        "ghost,0,1,,,\n",
+        encoding="utf-8",
+    )
+    return data, specs
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    return _write_data(tmp_path_factory.mktemp("batch"))
+
+
+@pytest.fixture(scope="module")
+def inputs(files):
+    data, specs = files
+    m = read_measurements(data)
+    chars, crit = read_specs(specs)
+    return m, chars, crit
+
+
+@pytest.fixture(scope="module")
+def local(inputs):
+    m, chars, crit = inputs
+    return run_many(m, chars, crit, options=OPTIONS, jobs=1)
+
+
+def _one_by_one(m, chars, crit, name):
+    spec = {c.name: c for c in chars}.get(name)
+    return analyze_characteristic(m.get(name), spec, criteria=crit.get(name), options=OPTIONS)
+
+
+def test_rows_equal_one_by_one_analysis(inputs, local):
+    m, chars, crit = inputs
+    assert [r["characteristic"] for r in local.rows] == [
+        "bore", "gap", "runout", "flat", "lonely", "=cmd", "ghost",
+    ]
+    for name in ("bore", "gap", "runout", "flat", "=cmd"):
+        res = _one_by_one(m, chars, crit, name)
+        row = local.row(name)
+        # reference: the one-characteristic route, analyze_characteristic(...).headline()
+        for key, value in res.headline().items():
+            assert row[key] == value, (name, key)
+        assert row["n"] == res.n
+        assert row["error"] is None
+    assert local.row("bore")["index"] == "cpk"  # the specs table's criterion is used
+    assert local.row("runout")["model"] == "lognormal3"  # and its model
+    assert local.row("gap")["meets"] in (True, False)
+
+
+def test_processes_give_identical_rows(inputs, local):
+    m, chars, crit = inputs
+    calls = []
+    par = run_many(m, chars, crit, options=OPTIONS, jobs=2, chunk_size=2,
+                   progress=lambda d, t, n: calls.append((d, t, n)))
+    assert par.backend == "processes" and par.jobs == 2
+    assert par.rows == local.rows
+    done = [c[0] for c in calls]
+    assert done == sorted(done) and done[-1] == len(local.rows)
+    assert {c[1] for c in calls} == {len(local.rows)}
+
+
+def test_error_rows_do_not_stop_the_batch(local):
+    lonely = local.row("lonely")
+    assert lonely["meets"] is None and lonely["estimate"] is None
+    assert "1 usable value" in lonely["error"]
+    ghost = local.row("ghost")
+    assert "'ghost'" in ghost["error"] and "not in the data" in ghost["error"]
+    assert local.n_failed == 2
+    assert local.n_meeting + local.n_not_meeting == 4  # bore, gap, runout, =cmd
+
+
+def test_no_spec_is_stability_only(inputs, local):
+    flat = local.row("flat")
+    assert flat["note"] == NO_SPEC_NOTE
+    assert flat["verdict"] is None and flat["estimate"] is None and flat["error"] is None
+    assert flat["n"] == N
+
+
+def test_progress_callback_local(inputs):
+    m, chars, crit = inputs
+    calls = []
+    res = run_many(m, chars, crit, options=OPTIONS, jobs=1, chunk_size=3,
+                   names=["bore", "gap", "flat", "lonely"],
+                   progress=lambda d, t, n: calls.append((d, t, n)))
+    assert [r["characteristic"] for r in res.rows] == ["bore", "gap", "flat", "lonely"]
+    assert calls == [(3, 4, "flat"), (4, 4, "lonely")]
+
+
+def test_exclusions_and_criteria_reach_the_analysis(inputs):
+    m, chars, crit = inputs
+    strict = {"gap": Criteria(index="pp", threshold=50.0)}
+    res = run_many(m, chars, strict, options=OPTIONS, jobs=1, names=["gap"],
+                   exclusions={"gap": {"1": ("tool change", "tester")}})
+    row = res.rows[0]
+    assert row["index"] == "pp" and row["meets"] is False
+    assert row["n"] == N - 1
+
+
+def test_jobs_must_be_positive(inputs):
+    m, chars, crit = inputs
+    with pytest.raises(StudyInputError, match="`jobs` \\(0\\) must be a whole number"):
+        run_many(m, chars, crit, jobs=0)
+
+
+# ----------------------------------------------------------------------------- outputs
+
+
+def test_jsonl_csv_xlsx(local, tmp_path):
+    lines = local.to_jsonl().splitlines()
+    assert len(lines) == local.n
+    assert [json.loads(ln) for ln in lines] == [dict(r) for r in local.rows]
+
+    local.write(tmp_path / "o.csv")
+    rows = list(csv.DictReader(io.StringIO((tmp_path / "o.csv").read_text(encoding="utf-8"))))
+    assert tuple(rows[0]) == BATCH_COLUMNS
+    assert rows[0]["characteristic"] == "bore"
+    assert float(rows[0]["estimate"]) == pytest.approx(local.rows[0]["estimate"], rel=1e-12)
+    cmd = [r for r in rows if r["characteristic"].endswith("=cmd")][0]
+    assert cmd["characteristic"] == "'=cmd"  # neutralised for spreadsheets
+
+    from openpyxl import load_workbook
+
+    local.write(tmp_path / "o.xlsx")
+    ws = load_workbook(tmp_path / "o.xlsx").active
+    table = list(ws.iter_rows(values_only=True))
+    assert table[0] == BATCH_COLUMNS
+    assert table[1][0] == "bore" and table[1][4] == pytest.approx(local.rows[0]["estimate"])
+    assert "'=cmd" in [r[0] for r in table]
+    assert all(not (isinstance(c, str) and c.startswith("=")) for r in table for c in r)
+
+    with pytest.raises(StudyInputError, match="suffix '.txt'"):
+        local.write(tmp_path / "o.txt")
+    d = local.to_dict()
+    assert d["n"] == local.n and d["columns"] == list(BATCH_COLUMNS)
+    json.dumps(d, allow_nan=False)
+
+
+@given(st.text(max_size=12))
+def test_neutralise_never_leaves_a_formula_start(text):
+    out = neutralise(text)
+    # OWASP "CSV Injection": cells must not start with = + - @ tab or carriage return
+    assert not out.startswith(("=", "+", "-", "@", "\t", "\r"))
+    assert out == text or out == "'" + text
+
+
+def test_neutralise_leaves_numbers():
+    assert neutralise(-3.5) == -3.5 and neutralise(None) is None and neutralise(True) is True
+
+
+# ----------------------------------------------------------------------------- command line
+
+
+def test_cli_all_to_csv(files, tmp_path, capsys):
+    data, specs = files
+    out = tmp_path / "summary.csv"
+    status = main(["analyze", str(data), "--all", "--specs", str(specs), "--out", str(out),
+                   "--jobs", "1"])
+    assert status == 0
+    rows = list(csv.DictReader(io.StringIO(out.read_text(encoding="utf-8"))))
+    assert [r["characteristic"] for r in rows] == [
+        "bore", "gap", "runout", "flat", "lonely", "'=cmd", "ghost",
+    ]
+    err = capsys.readouterr().err
+    assert "7 characteristic(s)" in err and "summary.csv" in err
+
+
+def test_cli_all_json_and_table(files, capsys):
+    data, specs = files
+    assert main(["analyze", str(data), "--all", "--specs", str(specs), "--json",
+                 "--jobs", "1"]) == 0
+    rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines()]
+    assert rows[0]["characteristic"] == "bore" and rows[0]["index"] == "cpk"
+    assert main(["analyze", str(data), "--all", "--specs", str(specs), "--jobs", "1"]) == 0
+    text = capsys.readouterr().out
+    assert "ERROR" in text and "note: flat:" in text and "could not be analysed" in text
+
+
+def test_cli_all_limits_from_arguments(files, capsys):
+    data, _ = files
+    assert main(["analyze", str(data), "--all", "--lsl", "0", "--usl", "100", "--json",
+                 "--jobs", "1", "--index", "pp", "--threshold", "1.0"]) == 0
+    rows = {r["characteristic"]: r for r in map(json.loads, capsys.readouterr().out.split("\n")
+                                               [:-1])}
+    assert rows["flat"]["index"] == "pp" and rows["flat"]["meets"] is True
+
+
+def test_cli_rejects_characteristic_with_all(files, capsys):
+    data, _ = files
+    assert main(["analyze", str(data), "--all", "-c", "bore"]) == 2
+    assert "either --characteristic" in capsys.readouterr().err
+
+
+# ----------------------------------------------------------------------------- Dask backend
+
+
+def test_dask_backend_identical_rows(inputs, local):
+    distributed = pytest.importorskip("distributed")
+    m, chars, crit = inputs
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        calls = []
+        res = run_many(m, chars, crit, options=OPTIONS, scheduler=cluster.scheduler_address,
+                       chunk_size=3, progress=lambda d, t, n: calls.append(d))
+    assert res.backend == "dask"
+    assert res.rows == local.rows
+    assert calls[-1] == local.n
+
+
+def test_dask_unreachable_scheduler(inputs, monkeypatch):
+    pytest.importorskip("distributed")
+    import studykit.batch
+
+    monkeypatch.setattr(studykit.batch, "DASK_CONNECT_TIMEOUT", 1)
+    m, chars, crit = inputs
+    with pytest.raises(StudyInputError, match="no Dask scheduler answers"):
+        run_many(m, chars, crit, scheduler="tcp://127.0.0.1:9", names=["gap"])
+
+
+# ----------------------------------------------------------------------------- fast bootstrap
+
+SKEWED = np.exp(np.random.default_rng(7).normal(1.0, 0.3, 60)) + 2.0
+
+
+@pytest.mark.parametrize("fid", list(FAMILIES))
+def test_family_quantiles_equal_scipy_frozen_ppf(fid):
+    model = FAMILIES[fid].fit(SKEWED)
+    # reference: the frozen scipy.stats distribution, model.dist.ppf([0.00135, 0.5, 0.99865])
+    expected = model.dist.ppf(cap._PROBS)
+    np.testing.assert_array_equal(cap._family_quantiles(fid, dict(model.parameters)), expected)
+
+
+@pytest.mark.parametrize("fid", ["normal", "lognormal", "weibull", "gamma", "exponential2",
+                                 "logistic", "loglogistic", "lev", "halfnormal", "gamma3"])
+def test_fast_bootstrap_equals_generic(fid):
+    model = FAMILIES[fid].fit(SKEWED)
+    present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)
+    # reference: one scipy rvs call, FittedModel refit and frozen ppf per bootstrap sample
+    ref, ref_failed = cap._bootstrap_draws_generic(
+        model, SKEWED.size, 1.0, 12.0, "percentile", 60, np.random.default_rng(3), present)
+    fast, failed = cap._bootstrap_draws_fast(
+        model, fid, SKEWED.size, 1.0, 12.0, 60, np.random.default_rng(3), present)
+    assert failed == ref_failed
+    for k in present:
+        # rtol: rounding of vectorised means / Newton stopping only (7e-14 seen)
+        np.testing.assert_allclose(fast[k], ref[k], rtol=1e-9)
+
+
+def test_fast_bootstrap_one_sided_and_failures():
+    model = FAMILIES["lognormal"].fit(SKEWED)
+    present = {"pp": None, "ppk": 1.0, "ppu": 1.0, "ppl": None}
+    ref, _ = cap._bootstrap_draws_generic(model, 4, None, 12.0, "percentile", 50,
+                                          np.random.default_rng(1), present)
+    fast, failed = cap._bootstrap_draws_fast(model, "lognormal", 4, None, 12.0, 50,
+                                             np.random.default_rng(1), present)
+    assert failed == 0 and len(fast["pp"]) == 0 and len(fast["ppl"]) == 0
+    np.testing.assert_allclose(fast["ppk"], ref["ppk"], rtol=1e-12)
+    # a sample with a non-positive value cannot be refitted by a positive family
+    _, ok = cap._vector_estimates("lognormal", np.array([[1.0, 2.0, 3.0], [-1.0, 2.0, 3.0]]))
+    assert ok.tolist() == [True, False]
+
+
+def test_capability_bounds_unchanged_by_fast_path():
+    model = FAMILIES["weibull"].fit(SKEWED)
+    fast = cap.capability(SKEWED, lsl=1.0, usl=12.0, model=model, n_boot=80, random_state=2)
+    generic = cap._bootstrap_draws_generic(model, SKEWED.size, 1.0, 12.0, "percentile", 80,
+                                           np.random.default_rng(2), dict.fromkeys(
+                                               ("pp", "ppk", "ppu", "ppl"), 1.0))[0]
+    # reference: the 5 % quantile of the generic draws (numpy.quantile, default method)
+    assert fast.bounds["ppk"]["lower_bound"] == pytest.approx(
+        float(np.quantile(generic["ppk"], 0.05)), rel=1e-12)
