@@ -183,8 +183,8 @@ class ControlChartView:
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
         tags = ColumnDataSource({"x": [], "y": [], "text": []}, name=f"{part}_limit_labels")
         fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
-                     toolbar_location="right", x_axis_label="Subgroup (production order)")
-        fig.min_border_right = 90
+                     toolbar_location="above", x_axis_label="Subgroup (production order)")
+        fig.min_border_right = 96
         zone = fig.varea("x", "lower_zone", "upper_zone", source=lim,
                          fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.10)
         for key in ("lower_zone", "upper_zone"):
@@ -221,16 +221,17 @@ class ControlChartView:
             ("Values", "@values"), ("Note", "@note"), ("Rules broken", "@rules"),
             ("Removed because", "@removed_why")])
         fig.add_tools(hover, TapTool(renderers=[kept, removed]))
-        items = [LegendItem(label="Subgroups", renderers=[kept, line]),
-                 LegendItem(label="Centre line", renderers=[centre]),
-                 LegendItem(label="Control limits", renderers=limits),
-                 LegendItem(label="±1σ zone", renderers=[zone]),
-                 LegendItem(label="Warning limits (2σ)", renderers=warn),
-                 LegendItem(label="Signal (rule broken)", renderers=[signal]),
-                 LegendItem(label="Removed (reason on record)", renderers=[removed])]
-        fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
-                              label_text_font_size="12px", spacing=14, padding=2, margin=4,
-                              border_line_color=None), "above")
+        if part == "location":
+            items = [LegendItem(label="Subgroup", renderers=[kept, line]),
+                     LegendItem(label="Centre", renderers=[centre]),
+                     LegendItem(label="Control limits", renderers=limits),
+                     LegendItem(label="±1σ zone", renderers=[zone]),
+                     LegendItem(label="2σ warning", renderers=warn),
+                     LegendItem(label="Signal", renderers=[signal]),
+                     LegendItem(label="Removed", renderers=[removed])]
+            fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
+                                  label_text_font_size="12px", spacing=12, padding=2,
+                                  margin=4, border_line_color=None), "above")
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
         self.sources[part] = {"points": pts, "limits": lim, "signals": sig, "tags": tags}
@@ -571,3 +572,44 @@ class IntervalView:
         self.figure.x_range.start, self.figure.x_range.end = max(0.0, lo - pad), hi + pad
         self.figure.height = 90 + 46 * max(len(names), 1)
         return cols
+
+
+# --- keeping a live chart widget right ----------------------------------------------------------
+
+
+class LiveChart:
+    """A bokeh layout shown through ``jupyter_bokeh.BokehModel``, kept right when re-shown.
+
+    ``BokehModel`` sends later changes to the views that exist *now*; a view made later (the
+    step opened again) is drawn from the bundle serialised when the widget was made. So a
+    chart is only wrapped after its first update (:meth:`widget`), every later update marks it
+    stale (:meth:`changed`), and :meth:`resync` re-serialises it when its step is shown again
+    (about 0.1 s, so it is not done on every change).
+    """
+
+    def __init__(self, layout):
+        self.layout = layout
+        self._widget = None
+        self.stale = False
+
+    def widget(self, css_class: str = ""):
+        from studykit.app.bokeh_assets import chart_widget
+
+        if self._widget is None:
+            self._widget = chart_widget(self.layout)
+            if css_class:
+                self._widget.add_class(css_class)
+            self.stale = False
+        return self._widget
+
+    def changed(self) -> None:
+        if self._widget is not None:
+            self.stale = True
+
+    def resync(self) -> bool:
+        """Re-serialise the layout into the widget if it changed since; True if it did."""
+        if self._widget is None or not self.stale:
+            return False
+        self._widget.render_bundle = type(self._widget)._model_to_traits(self.layout)
+        self.stale = False
+        return True

@@ -59,6 +59,7 @@ PANEL_CSS = f"""
   margin: 6px 0; }}
 .sk-proposal {{ border: 1px solid {theme.RULE}; padding: 8px 12px; margin: 4px 0;
   border-radius: 3px; background: {theme.PANEL}; }}
+.sk-summary {{ margin: 2px 0 10px 0; line-height: 1.8; }}
 .sk-small {{ font-size: 12px; color: {theme.INK_SOFT}; }}
 .sk-root .widget-text input, .sk-root .widget-textarea textarea,
 .sk-root .widget-dropdown select {{ font-size: 14px; }}
@@ -166,12 +167,8 @@ class Workspace:
         self.session.select(name)
         opener = self.context.extra.get("studykit.open_step")
         if opener is None:
-            # the shell subscribes its bound method Workbook._on_context_change
-            for listener in self.context._listeners:
-                wb = getattr(listener, "__self__", None)
-                if wb is not None and hasattr(wb, "select") and hasattr(wb, "steps"):
-                    opener = wb.select
-                    break
+            wb = _workbook(self.context)
+            opener = None if wb is None else wb.select
         if opener is not None:
             opener(step_key)
 
@@ -389,3 +386,36 @@ class OverviewPanel(widgets.VBox):
                                "num"),
                       html_box(esc(r["review"]), "sk-ovcell")]
         self.table.children = cells
+
+
+def _workbook(context):
+    """The Workbook showing this context (the shell subscribes its bound method)."""
+    for listener in getattr(context, "_listeners", []):
+        wb = getattr(listener, "__self__", None)
+        if wb is not None and hasattr(wb, "select") and hasattr(wb, "steps"):
+            return wb
+    return None
+
+
+def is_shown(context, key: str) -> bool:
+    """Whether step ``key`` is the open step (True when no workbook is found)."""
+    wb = _workbook(context)
+    return wb is None or getattr(wb, "current", key) == key
+
+
+def when_shown(context, key: str, callback) -> None:
+    """Call ``callback()`` each time the workbook opens step ``key`` again.
+
+    Uses the shell's body container (``Workbook._body``); a shell hook ``shown(context)`` on
+    the step would make this unnecessary.
+    """
+    wb = _workbook(context)
+    body = getattr(wb, "_body", None)
+    if body is None:
+        return
+
+    def on_children(change):
+        if getattr(wb, "current", None) == key:
+            guarded(callback, messages=context.messages)()
+
+    body.observe(on_children, names="children")

@@ -13,9 +13,15 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import theme
-from studykit.app.bokeh_assets import chart_widget
-from studykit.app.charts import IntervalView
-from studykit.app.overview import fmt, no_study_panel, panel_css, verdict_chip, workspace
+from studykit.app.charts import IntervalView, LiveChart
+from studykit.app.overview import (
+    fmt,
+    no_study_panel,
+    panel_css,
+    verdict_chip,
+    when_shown,
+    workspace,
+)
 from studykit.app.widgets import caution_banner, esc, guarded, html_box
 from studykit.errors import StudyInputError
 
@@ -118,8 +124,8 @@ class CapabilityStep:
             return no_study_panel("The capability step")
         m = context.messages
         self.view = IntervalView()
-        self.chart = chart_widget(self.view.layout)
-        self.chart.add_class("sk-interval-chart")
+        self.live = LiveChart(self.view.layout)
+        self.chart = widgets.VBox([])
         self.caution = widgets.VBox([])
         self.verdict = html_box("", "sk-verdict")
         self.ppm = html_box("", "sk-ppm-box")
@@ -144,8 +150,15 @@ class CapabilityStep:
         self.numbers = widgets.VBox([self.chart, widgets.HBox(
             [self.ppm, self.band], layout=widgets.Layout(gap="28px", flex_flow="row wrap"))])
         self.refresh(context)
+        self.chart.children = [self.live.widget("sk-interval-chart")]
+        when_shown(context, self.key, self.live.resync)
         return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.verdict,
                              self.numbers, self.attribute, self.findings, self.planner])
+
+    def shown(self, context) -> None:
+        """The step is open again: bring its chart widget up to date."""
+        if self.view is not None:
+            self.live.resync()
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -167,6 +180,7 @@ class CapabilityStep:
         self.numbers.layout.display = "" if has_cap else "none"
         if has_cap:
             self.view.update(res)
+            self.live.changed()
         self.ppm.value = ppm_html(res)
         self.band.value = band_html(res)
         self.attribute.value = attribute_html(res)

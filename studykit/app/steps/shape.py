@@ -11,10 +11,16 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
-from studykit.app.bokeh_assets import chart_widget
-from studykit.app.charts import ShapeView
-from studykit.app.overview import fmt, no_study_panel, panel_css, verdict_chip, workspace
-from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.app.charts import LiveChart, ShapeView
+from studykit.app.overview import (
+    fmt,
+    no_study_panel,
+    panel_css,
+    verdict_chip,
+    when_shown,
+    workspace,
+)
+from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 
 _BASE_MODELS = [("Let studykit choose (auto)", "auto"), ("Normal", "normal"),
@@ -87,8 +93,8 @@ class ShapeStep:
             return no_study_panel("The shape step")
         m = context.messages
         self.view = ShapeView()
-        self.chart = chart_widget(self.view.layout)
-        self.chart.add_class("sk-shape-chart")
+        self.live = LiveChart(self.view.layout)
+        self.chart = widgets.VBox([])
         self.caution = widgets.VBox([])
         self.tests = html_box("", "sk-normality")
         self.ranking = html_box("", "sk-ranking-box")
@@ -118,7 +124,14 @@ class ShapeStep:
                                                                         align_items="center"))])
         self.content = widgets.VBox([self.tests, self.chart, choice, self.ranking])
         self.refresh(context)
+        self.chart.children = [self.live.widget("sk-shape-chart")]
+        when_shown(context, self.key, self.live.resync)
         return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.body, self.content])
+
+    def shown(self, context) -> None:
+        """The step is open again: bring its chart widget up to date."""
+        if self.view is not None:
+            self.live.resync()
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -135,7 +148,6 @@ class ShapeStep:
         if key == self._drawn:
             return
         self._drawn = key
-        self.caution.children = [caution_banner()] if res.spec.get("safety_critical") else []
         if res.attribute or res.probability_plot is None:
             self.body.children = [html_box(
                 '<div class="sk-coming">Counted data (defectives or defects) are judged by '
@@ -146,6 +158,7 @@ class ShapeStep:
         self.body.children = []
         self.content.layout.display = ""
         self.view.update(res)
+        self.live.changed()
         self.tests.value = self._tests_html(res)
         self.ranking.value = ranking_html(res)
         recorded = s.study.model_for(s.current)
@@ -197,7 +210,12 @@ class ShapeStep:
             self.effect.value = ""
             return
         before = s.result(s.current)
-        after = s.preview(s.current, model=self.model.value)
+        try:
+            after = s.preview(s.current, model=self.model.value)
+        except StudyInputError as exc:
+            self.effect.value = (f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">'
+                                 f"Cannot use this model</span>{esc(exc)}</div>")
+            return
         self.effect.value = effect_html(before, after)
 
     def _on_save(self) -> None:

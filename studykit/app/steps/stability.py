@@ -15,10 +15,9 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
-from studykit.app.bokeh_assets import chart_widget
-from studykit.app.charts import ControlChartView
-from studykit.app.overview import fmt, no_study_panel, panel_css, workspace
-from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.app.charts import ControlChartView, LiveChart
+from studykit.app.overview import fmt, no_study_panel, panel_css, when_shown, workspace
+from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 
 _NONE = "—"
@@ -50,8 +49,8 @@ class StabilityStep:
             return no_study_panel("The stability step")
         m = context.messages
         self.view = ControlChartView()
-        self.chart = chart_widget(self.view.layout)
-        self.chart.add_class("sk-stability-chart")
+        self.live = LiveChart(self.view.layout)
+        self.chart_box = widgets.VBox([])
         for part in ("location", "dispersion"):
             src = self.view.sources[part]["points"]
             src.selected.on_change("indices", guarded(
@@ -90,9 +89,9 @@ class StabilityStep:
             self.reason, self.act, self.act_hint],
             layout=widgets.Layout(width="330px", min_width="280px"))
         side.add_class("sk-side")
-        chart_box = widgets.VBox([self.chart, self.warning_toggle],
+        chart_col = widgets.VBox([self.chart_box, self.warning_toggle],
                                  layout=widgets.Layout(flex="1 1 600px", min_width="0"))
-        main = widgets.HBox([chart_box, side],
+        main = widgets.HBox([chart_col, side],
                             layout=widgets.Layout(width="100%", gap="18px",
                                                   flex_flow="row wrap", align_items="flex-start"))
         # automatic phase-I proposals
@@ -114,8 +113,15 @@ class StabilityStep:
             self.find, self.proposal_box, self.record])
         self.log = html_box("", "sk-removal-log")
         self.refresh(context)
+        self.chart_box.children = [self.live.widget("sk-stability-chart")]
+        when_shown(context, self.key, self.live.resync)
         return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.summary, main, auto,
                              self.log])
+
+    def shown(self, context) -> None:
+        """The step is open again: bring its chart widget up to date."""
+        if self.view is not None:
+            self.live.resync()
 
     # --- drawing --------------------------------------------------------------------------------
     def refresh(self, context) -> None:
@@ -137,23 +143,24 @@ class StabilityStep:
         self._drawn = key
         self.view.update(res, full_chart=s.full_chart(name), details=s.subgroup_details(name),
                          unit=res.unit)
-        self.caution.children = [caution_banner()] if res.spec.get("safety_critical") else []
+        self.live.changed()
         chart = res.chart
         signals = sum(len(getattr(chart, p).signals) for p in ("location", "dispersion")
                       if getattr(chart, p) is not None)
         removed = len(res.phase1.removals)
         labels = self.view._labels
-        facts = [("Chart", f"{chart.kind.replace('_', '-')} — {chart.reason}"),
+        facts = [("Chart", f"{chart.kind.replace('_', '-')} ({chart.reason})"),
                  ("Subgroups used", f"{chart.n_subgroups} of {len(labels)}"
-                                    + (f" ({removed} removed)" if removed else "")),
+                                    + (f", {removed} removed" if removed else "")),
                  ("Within sigma", f"{fmt(res.within_sigma, 5)} ({chart.sigma_method_text})"
                   if res.within_sigma is not None else _NONE),
                  ("Rule signals", f"{signals} on the current limits" if signals
                   else "none on the current limits")]
         warn = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
                        f"</span>{esc(w)}</div>" for w in res.phase1.warnings)
-        self.summary.value = ('<dl class="sk-facts">' + "".join(
-            f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in facts) + "</dl>" + warn)
+        self.summary.value = ('<div class="sk-summary">' + " · ".join(
+            f'<span class="sk-muted">{esc(k)}</span> <b>{esc(v)}</b>' for k, v in facts)
+            + "</div>" + warn)
         status = dict(zip(self.view.sources["location"]["points"].data["label"],
                           self.view.sources["location"]["points"].data["status"], strict=False))
         keep = self.subgroup.value if self.subgroup.value in status and not new_char else ""
