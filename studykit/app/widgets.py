@@ -62,6 +62,7 @@ CSS = f"""
 .sk-guidance b {{ color: {theme.INK}; }}
 .sk-body {{ padding: 18px 22px; border: 1px solid {theme.RULE}; border-top: none; background: #FFFFFF;
   min-height: 260px; }}
+.sk-overview-card {{ min-height: 0; }}
 .sk-section {{ font-size: 16px; font-weight: 600; margin: 4px 0 8px 0; color: {theme.INK}; }}
 .sk-muted {{ color: {theme.INK_SOFT}; }}
 .sk-table {{ border-collapse: collapse; margin: 6px 0 10px 0; font-size: 14px; min-width: 60%; }}
