@@ -25,6 +25,7 @@ __all__ = [
     "interval_figure",
     "blank_form_figure",
     "figure_png",
+    "figure_image",
 ]
 
 _DISPERSION_NAMES = {"xbar_r": "Range", "xbar_s": "Std. deviation", "imr": "Moving range"}
@@ -39,6 +40,30 @@ def figure_png(fig: Figure, *, dpi: int = 200) -> bytes:
     with theme.matplotlib_context():
         fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
+
+
+def figure_image(fig: Figure, *, dpi: int = 160):
+    """The figure rendered to an RGB :class:`PIL.Image.Image` (no PNG round trip: the PDF
+    compresses the pixels itself, which halves the time per figure)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from PIL import Image
+
+    with theme.matplotlib_context():
+        fig.set_dpi(dpi)
+        canvas = FigureCanvasAgg(fig)
+        canvas.draw()
+        rgba = canvas.buffer_rgba()
+        img = Image.frombuffer("RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw",
+                               "RGBA", 0, 1)
+        return img.convert("RGB")
+
+
+def _margins(fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75,
+             wspace=0.8) -> None:
+    """Fixed margins in inches (constrained layout costs half the drawing time)."""
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=left / w, right=1 - right / w, top=1 - top / h, bottom=bottom / h,
+                        hspace=hspace / (h / max(1, len(fig.axes))), wspace=wspace)
 
 
 def _tidy(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
@@ -125,8 +150,6 @@ def _series_panel(ax, series, x, removed_x, removed_y, title, ylabel, labels):
         if finite.any():
             ax.scatter(np.asarray(removed_x)[finite], ry[finite], **ek)
     _tidy(ax, title, ylabel)
-    ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=3, fontsize=7.5,
-              handletextpad=0.3, columnspacing=1.2)
 
 
 def _order(labels_all, labels_used):
@@ -186,8 +209,9 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
     x = _order(all_labels, used)
     panels = 2 if chart.dispersion is not None else 1
     with theme.matplotlib_context():
-        fig = Figure(figsize=(width, 2.35 * panels + 0.5), layout="constrained")
+        fig = Figure(figsize=(width, 2.3 * panels + 0.45))
         axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
+        _margins(fig, right=1.0, top=0.3, bottom=0.75, hspace=0.55)
         unit = f" [{result.unit}]" if result.unit else ""
         rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
         ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
@@ -210,6 +234,12 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             ax.set_xticklabels([all_labels[t - 1] for t in ticks], fontsize=7)
             ax.set_xlim(0.3, n + 0.7)
         axes[-1].set_xlabel("Subgroup (production order)")
+        handles: dict = {}
+        for ax in axes:
+            for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+                handles.setdefault(lab, h)
+        fig.legend(list(handles.values()), list(handles), loc="lower center", ncol=3,
+                   fontsize=7.5, bbox_to_anchor=(0.5, 0.0), columnspacing=1.5)
     return fig
 
 
@@ -262,8 +292,9 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
     probability plot with its confidence band."""
     x = np.asarray(result.values, dtype=float)
     with theme.matplotlib_context():
-        fig = Figure(figsize=(width, 2.9), layout="constrained")
+        fig = Figure(figsize=(width, 2.9))
         ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.25, 1]})
+        _margins(fig, left=0.6, right=0.15, top=0.3, bottom=0.5, wspace=0.42)
         lo, hi = float(x.min()), float(x.max())
         for v in (result.spec.get("lsl"), result.spec.get("usl")):
             if v is not None:
@@ -282,7 +313,8 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         ax1.set_xlim(lo - pad, hi + pad)
         unit = f" [{result.unit}]" if result.unit else ""
         _tidy(ax1, "Distribution of the values", "Density", result.characteristic + unit)
-        ax1.legend(loc="upper left", fontsize=7.5)
+        ax1.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
+                   edgecolor=theme.PAPER, framealpha=0.9)
         pp = result.probability_plot
         if pp is not None:
             z = np.asarray(pp.normal_scores, dtype=float)
@@ -309,7 +341,8 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
             ax2.set_yticks([t for t, _ in keep])
             ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
             _tidy(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
-            ax2.legend(loc="upper left", fontsize=7.5)
+            ax2.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
+                       edgecolor=theme.PAPER, framealpha=0.9)
         else:
             ax2.set_axis_off()
     return fig
@@ -328,8 +361,9 @@ def interval_figure(result, *, width: float = 7.0) -> Figure:
             continue
         rows.append((key, est, b))
     with theme.matplotlib_context():
-        fig = Figure(figsize=(width, 0.42 * max(len(rows), 1) + 0.9), layout="constrained")
+        fig = Figure(figsize=(width, 0.42 * max(len(rows), 1) + 0.9))
         ax = fig.subplots()
+        _margins(fig, left=1.15, right=0.25, top=0.32, bottom=0.35)
         threshold = float(crit.get("threshold", 1.33))
         for i, (key, est, b) in enumerate(rows):
             y = len(rows) - i

@@ -414,12 +414,38 @@ def _box(paragraphs, *, background, border, width):
     return t
 
 
-def _image(png: bytes, width: float):
+def _image(png, width: float):
+    """A platypus Image from PNG bytes or a figure (rendered without a PNG round trip)."""
     from reportlab.lib.utils import ImageReader
     from reportlab.platypus import Image
 
+    if not isinstance(png, bytes | bytearray):
+        from studykit.report.figures import figure_image
+
+        return _PixelImage(figure_image(png), width)
     w, h = ImageReader(io.BytesIO(png)).getSize()
     return Image(io.BytesIO(png), width=width, height=width * h / w)
+
+
+def _PixelImage(pil, width):  # noqa: N802 - a flowable factory
+    """A flowable drawing a PIL image at ``width`` (platypus Image wants a file)."""
+    from reportlab.lib.utils import ImageReader
+    from reportlab.platypus import Flowable
+
+    class PixelImage(Flowable):
+        def __init__(self):
+            super().__init__()
+            w, h = pil.size
+            self.reader = ImageReader(pil)
+            self.drawWidth, self.drawHeight = width, width * h / w
+
+        def wrap(self, aw, ah):
+            return self.drawWidth, self.drawHeight
+
+        def draw(self):
+            self.canv.drawImage(self.reader, 0, 0, self.drawWidth, self.drawHeight)
+
+    return PixelImage()
 
 
 class _SignatureBoxes:
@@ -597,6 +623,11 @@ def _cover(story, study, results, errors, st, width, evidence_sha):
                            st["small"]))
 
 
+def _when(text: str) -> str:
+    """ISO time shown compactly (``2026-03-03 09:12:00Z``), so table cells do not wrap."""
+    return _esc(str(text or "").replace("T", " "))
+
+
 def _last_time(study) -> str:
     times = [d.when for d in study.decisions] + [c.when for c in study.comments] + \
         [s.when for s in study.signoffs]
@@ -657,8 +688,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                         zebra=False, styles=st))
     # stability
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    png = figures.figure_png(figures.control_chart_figure(res, raw=raw))
-    story.append(_image(png, width))
+    story.append(_image(figures.control_chart_figure(res, raw=raw), width))
     signals = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
@@ -685,8 +715,8 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             rows.append([_esc(r.label), _esc(r.rule), str(r.iteration), _esc(r.who or "–"),
                          _esc(r.reason)])
         story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
-                                   _table(rows, [w * width for w in (0.1, 0.1, 0.07, 0.15,
-                                                                     0.58)], styles=st)]))
+                                   _table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15,
+                                                                     0.55)], styles=st)]))
     else:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
     if res.attribute:
@@ -699,7 +729,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     # shape
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(_image(figures.figure_png(figures.shape_figure(res)), width))
+    story.append(_image(figures.shape_figure(res), width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
@@ -764,7 +794,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Spacer(1, 3))
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))
-        story.append(_image(figures.figure_png(figures.interval_figure(res)), width))
+        story.append(_image(figures.interval_figure(res), width))
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
         for f in res.findings:
@@ -803,7 +833,6 @@ def _warnings_block(story, res, st):
 def _gauge_section(story, number, gauges, study, st, width):
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
-    from studykit.report import figures
 
     story.append(Paragraph(f"{number}. Measurement system (gauge R&amp;R)", st["h1"]))
     for name, payload in gauges.items():
@@ -830,6 +859,7 @@ def _gauge_section(story, number, gauges, study, st, width):
                          _num(comp.get("pct_tolerance"), 3)])
         story.append(_table(rows, [w * width for w in (0.26, 0.15, 0.15, 0.15, 0.15, 0.14)],
                             styles=st))
+        story.append(Spacer(1, 3))
         story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
                                f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
         res = _gauge_result(payload)
@@ -841,7 +871,7 @@ def _gauge_section(story, number, gauges, study, st, width):
                     fig = build(res)
                 except Exception:  # noqa: BLE001 - a figure must never stop the report
                     continue
-                story.append(_image(figures.figure_png(fig), width * 0.85))
+                story.append(_image(fig, width * 0.85))
 
 
 def _gauge_result(payload):
@@ -886,7 +916,7 @@ def _signoff_section(story, number, study, st, width, boxes):
                 what += f" subgroup {d.subgroup}"
             if d.payload:
                 what += " " + ", ".join(f"{k}={v}" for k, v in d.payload.items())
-            rows.append([_esc(d.when), _esc(d.who or ("auto" if d.automatic else "–")),
+            rows.append([_when(d.when), _esc(d.who or ("auto" if d.automatic else "–")),
                          _esc(d.characteristic or "study"), _esc(what), _esc(d.reason)])
         story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)],
                             styles=st))
@@ -896,7 +926,7 @@ def _signoff_section(story, number, study, st, width, boxes):
         story.append(Paragraph("Comments", st["h2"]))
         rows = [["When", "Who", "About", "Comment"]]
         for cm in study.comments:
-            rows.append([_esc(cm.when), _esc(cm.who), _esc(cm.characteristic or "study"),
+            rows.append([_when(cm.when), _esc(cm.who), _esc(cm.characteristic or "study"),
                          _esc(cm.text)])
         story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.54)], styles=st))
     story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
@@ -905,7 +935,7 @@ def _signoff_section(story, number, study, st, width, boxes):
         rows = [["Role", "Name", "Decision", "When", "Comment", "Valid now?"]]
         for s in states:
             so = s.signoff
-            rows.append([_esc(so.role), _esc(so.name), _esc(so.decision), _esc(so.when),
+            rows.append([_esc(so.role), _esc(so.name), _esc(so.decision), _when(so.when),
                          _esc(so.comment or "–"),
                          "yes" if s.valid else f"<b>no</b> - {_esc(s.why)}"])
         story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
