@@ -59,6 +59,8 @@ PANEL_CSS = f"""
   margin: 6px 0; }}
 .sk-proposal {{ border: 1px solid {theme.RULE}; padding: 8px 12px; margin: 4px 0;
   border-radius: 3px; background: {theme.PANEL}; }}
+.sk-panel .widget-hbox {{ gap: 12px; }}
+.sk-panel .widget-hbox.sk-toolbar {{ gap: 18px; }}
 .sk-summary {{ margin: 2px 0 10px 0; line-height: 1.8; }}
 .sk-small {{ font-size: 12px; color: {theme.INK_SOFT}; }}
 .sk-root .widget-text input, .sk-root .widget-textarea textarea,
@@ -317,11 +319,13 @@ class OverviewPanel(widgets.VBox):
         controls = widgets.HBox([html_box('<div class="sk-field-label">Sort by</div>'),
                                  self.sort, self.descending, self.analyse, self.progress,
                                  self.progress_text],
-                                layout=widgets.Layout(align_items="center", gap="10px",
+                                layout=widgets.Layout(align_items="center",
                                                       flex_flow="row wrap"))
         super().__init__([head, controls, self.table])
         self.add_class("sk-overview-panel")
         self._key = None
+        self._head = None
+        self._rows: dict[str, tuple] = {}
 
     def analyse_all(self) -> None:
         session = self.ws.session
@@ -347,45 +351,57 @@ class OverviewPanel(widgets.VBox):
         self._key = key
         rows = sort_rows(overview_rows(session), self.sort.value,
                          descending=self.descending.value)
-        cells = []
-        heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed", "Review state"]
-        for i, h in enumerate(heads):
-            cell = html_box(esc(h), "sk-ovcell", "sk-ovhead")
-            if i in (2, 3, 4):
-                cell.add_class("num")
-            cells.append(cell)
+        if self._head is None:
+            heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed",
+                     "Review state"]
+            self._head = []
+            for i, h in enumerate(heads):
+                cell = html_box(esc(h), "sk-ovcell", "sk-ovhead")
+                if i in (2, 3, 4):
+                    cell.add_class("num")
+                self._head.append(cell)
+        cells = list(self._head)
         for r in rows:
-            name = r["characteristic"]
+            cells += self._row_cells(r, current=session.current)
+        self.table.children = cells
+
+    def _row_cells(self, r: dict, *, current: str) -> list:
+        """The six cells of one row; widgets are made once per characteristic and reused."""
+        name = r["characteristic"]
+        if name not in self._rows:
             b = widgets.Button(description=name, tooltip=f"Open {name} in the Stability step",
                                layout=widgets.Layout(width="auto"))
             b.add_class("sk-link")
             b.add_class(f"sk-open-{name}")
             b.on_click(guarded(lambda _b, n=name: self.ws.open(n, "stability"),
                                messages=self.ws.context.messages))
-            safety = (' <span title="safety-critical" style="color:'
-                      f'{theme.VERDICTS["caution"].text_color}">{theme.VERDICTS["caution"].symbol}'
-                      "</span>") if r["safety"] else ""
-            current = " ◂" if name == session.current else ""
-            name_cell = widgets.HBox([b, html_box(safety + current)])
+            mark = html_box("")
+            name_cell = widgets.HBox([b, mark])
             name_cell.add_class("sk-ovcell")
-            if r["error"]:
-                verdict = f'<span class="sk-muted" title="{esc(r["error"])}">cannot analyse</span>'
-            elif not r["analysed"]:
-                verdict = '<span class="sk-muted">not analysed yet</span>'
-            else:
-                verdict = verdict_chip(r["verdict"])
-            index_text = (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
-                          if r["analysed"] and r["estimate"] is not None else "—")
-            cells += [name_cell,
-                      html_box(f'<span title="{esc(r["verdict_text"])}">{verdict}</span>',
-                               "sk-ovcell"),
-                      html_box(index_text, "sk-ovcell", "num"),
-                      html_box(fmt(r["lower_bound"], 2) if r["analysed"] else "—",
-                               "sk-ovcell", "num"),
-                      html_box(esc(r["removed"]) if r["analysed"] else "—", "sk-ovcell",
-                               "num"),
-                      html_box(esc(r["review"]), "sk-ovcell")]
-        self.table.children = cells
+            others = [html_box("", "sk-ovcell"), html_box("", "sk-ovcell", "num"),
+                      html_box("", "sk-ovcell", "num"), html_box("", "sk-ovcell", "num"),
+                      html_box("", "sk-ovcell")]
+            self._rows[name] = (name_cell, mark, others)
+        name_cell, mark, others = self._rows[name]
+        caution = theme.VERDICTS["caution"]
+        safety = (f' <span title="safety-critical" style="color:{caution.text_color}">'
+                  f"{caution.symbol}</span>") if r["safety"] else ""
+        mark.value = safety + (" ◂" if name == current else "")
+        if r["error"]:
+            verdict = f'<span class="sk-muted" title="{esc(r["error"])}">cannot analyse</span>'
+        elif not r["analysed"]:
+            verdict = '<span class="sk-muted">not analysed yet</span>'
+        else:
+            verdict = verdict_chip(r["verdict"])
+        index_text = (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
+                      if r["analysed"] and r["estimate"] is not None else "—")
+        values = [f'<span title="{esc(r["verdict_text"])}">{verdict}</span>', index_text,
+                  fmt(r["lower_bound"], 2) if r["analysed"] else "—",
+                  esc(r["removed"]) if r["analysed"] else "—", esc(r["review"])]
+        for cell, value in zip(others, values, strict=True):
+            if cell.value != value:
+                cell.value = value
+        return [name_cell, *others]
 
 
 def _workbook(context):
@@ -419,3 +435,10 @@ def when_shown(context, key: str, callback) -> None:
             guarded(callback, messages=context.messages)()
 
     body.observe(on_children, names="children")
+
+
+def panel(children) -> widgets.VBox:
+    """The root box of a study panel (carries the ``sk-panel`` class the style sheet uses)."""
+    box = widgets.VBox(list(children))
+    box.add_class("sk-panel")
+    return box

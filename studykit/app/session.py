@@ -389,6 +389,14 @@ class StudySession:
 
     def state_text(self) -> str:
         """Short state for the header: open / approved and locked / approval voided."""
+        cached = getattr(self, "_state_cache", None)
+        if cached is not None and cached[0] is self.study:
+            return cached[1]
+        text = self._state_text()
+        self._state_cache = (self.study, text)
+        return text
+
+    def _state_text(self) -> str:
         states = self.study.signoff_state()
         if self.study.is_locked:
             return "Approved · locked"

@@ -17,6 +17,7 @@ from studykit.app.charts import IntervalView, LiveChart
 from studykit.app.overview import (
     fmt,
     no_study_panel,
+    panel,
     panel_css,
     verdict_chip,
     when_shown,
@@ -144,15 +145,14 @@ class CapabilityStep:
                      '<div class="sk-muted">If the process truly has this index, how many parts '
                      "does a study need for its lower bound to reach the requirement?</div>"),
             widgets.HBox([html_box('<div class="sk-field-label">Assumed index</div>'),
-                          self.assumed], layout=widgets.Layout(align_items="center",
-                                                               gap="12px")),
+                          self.assumed], layout=widgets.Layout(align_items="center")),
             self.plan])
         self.numbers = widgets.VBox([self.chart, widgets.HBox(
-            [self.ppm, self.band], layout=widgets.Layout(gap="28px", flex_flow="row wrap"))])
+            [self.ppm, self.band], layout=widgets.Layout(flex_flow="row wrap"))])
         self.refresh(context)
         self.chart.children = [self.live.widget("sk-interval-chart")]
         when_shown(context, self.key, self.live.resync)
-        return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.verdict,
+        return panel([panel_css(), ws.toolbar(), self.caution, self.verdict,
                              self.numbers, self.attribute, self.findings, self.planner])
 
     def shown(self, context) -> None:

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
-from studykit.app.overview import no_study_panel, panel_css, workspace
+from studykit.app.overview import no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import esc, guarded, html_box
 
 
@@ -110,13 +110,11 @@ class ExportStep:
             "hand-off zip holds the frozen phase-I limits for series production, shop-floor "
             "chart forms, the study file and the PDF.</div>" + note)
         self.refresh(context)
-        return widgets.VBox([panel_css(), intro, self.state,
+        return panel([panel_css(), intro, self.state,
                              widgets.HBox([self.pdf, self.handoff, self.json],
-                                          layout=widgets.Layout(gap="10px",
-                                                                flex_flow="row wrap")),
+                                          layout=widgets.Layout(flex_flow="row wrap")),
                              widgets.HBox([self.progress, self.progress_text],
-                                          layout=widgets.Layout(gap="10px",
-                                                                align_items="center")),
+                                          layout=widgets.Layout(align_items="center")),
                              self.links])
 
     def refresh(self, context) -> None:

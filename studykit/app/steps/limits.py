@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
-from studykit.app.overview import OverviewPanel, no_study_panel, panel_css, workspace
+from studykit.app.overview import OverviewPanel, no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import caution_banner, esc, guarded, html_box
 from studykit.errors import SpecError
 from studykit.study import INDICES, Criteria
@@ -85,17 +85,16 @@ class LimitsStep:
             widgets.HBox([field("Lower limit (LSL)", self.lsl), field("Upper limit (USL)",
                                                                       self.usl),
                           field("Target", self.target), field("", self.safety)],
-                         layout=widgets.Layout(gap="14px", flex_flow="row wrap")),
+                         layout=widgets.Layout(flex_flow="row wrap")),
             widgets.HBox([field("Index judged", self.index), field("At least", self.threshold),
                           field("Judged on", self.basis)],
-                         layout=widgets.Layout(gap="14px", flex_flow="row wrap")),
+                         layout=widgets.Layout(flex_flow="row wrap")),
             field("Reason for the change (required)", self.reason),
-            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center",
-                                                                        gap="12px")),
+            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
         ])
         form.add_class("sk-spec-form")
         self.refresh(context)
-        return widgets.VBox([panel_css(), self.overview, ws.toolbar(), self.heading,
+        return panel([panel_css(), self.overview, ws.toolbar(), self.heading,
                              self.caution, form, self.history])
 
     def refresh(self, context) -> None:

@@ -15,6 +15,7 @@ from studykit.app.charts import LiveChart, ShapeView
 from studykit.app.overview import (
     fmt,
     no_study_panel,
+    panel,
     panel_css,
     verdict_chip,
     when_shown,
@@ -117,16 +118,15 @@ class ShapeStep:
         choice = widgets.VBox([
             html_box('<div class="sk-panel-title">Model for the capability indices</div>'),
             widgets.HBox([self.model, self.effect],
-                         layout=widgets.Layout(gap="18px", flex_flow="row wrap",
+                         layout=widgets.Layout(flex_flow="row wrap",
                                                align_items="flex-start")),
             html_box('<div class="sk-field-label">Reason (required)</div>'), self.reason,
-            widgets.HBox([self.save, self.hint], layout=widgets.Layout(gap="12px",
-                                                                        align_items="center"))])
+            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center"))])
         self.content = widgets.VBox([self.tests, self.chart, choice, self.ranking])
         self.refresh(context)
         self.chart.children = [self.live.widget("sk-shape-chart")]
         when_shown(context, self.key, self.live.resync)
-        return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.body, self.content])
+        return panel([panel_css(), ws.toolbar(), self.caution, self.body, self.content])
 
     def shown(self, context) -> None:
         """The step is open again: bring its chart widget up to date."""

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
-from studykit.app.overview import no_study_panel, panel_css, verdict_chip, workspace
+from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.study import SIGNOFF_ROLES
 
@@ -155,16 +155,16 @@ class SignoffStep:
                      "signature covers the study as it stands now (its content digest is "
                      "stored with it).</div>"),
             widgets.HBox([field("Role", self.role), field("Decision", self.decision)],
-                         layout=widgets.Layout(gap="16px", flex_flow="row wrap")),
+                         layout=widgets.Layout(flex_flow="row wrap")),
             field("Comment", self.sign_comment),
             widgets.HBox([self.sign, self.sign_hint], layout=widgets.Layout(
-                gap="12px", align_items="center"))])
+                align_items="center"))])
         comment_form = widgets.VBox([
             html_box('<div class="sk-panel-title">Comments</div>'), self.comments,
             self.comment, widgets.HBox([self.about, self.add],
-                                       layout=widgets.Layout(gap="12px", align_items="center"))])
+                                       layout=widgets.Layout(align_items="center"))])
         self.refresh(context)
-        return widgets.VBox([panel_css(), ws.toolbar(), self.lock, self.reload, self.signoffs,
+        return panel([panel_css(), ws.toolbar(), self.lock, self.reload, self.signoffs,
                              sign_form, comment_form, self.audit])
 
     def refresh(self, context) -> None:

@@ -16,7 +16,14 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit.app.charts import ControlChartView, LiveChart
-from studykit.app.overview import fmt, no_study_panel, panel_css, when_shown, workspace
+from studykit.app.overview import (
+    fmt,
+    no_study_panel,
+    panel,
+    panel_css,
+    when_shown,
+    workspace,
+)
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 
@@ -92,7 +99,7 @@ class StabilityStep:
         chart_col = widgets.VBox([self.chart_box, self.warning_toggle],
                                  layout=widgets.Layout(flex="1 1 600px", min_width="0"))
         main = widgets.HBox([chart_col, side],
-                            layout=widgets.Layout(width="100%", gap="18px",
+                            layout=widgets.Layout(width="100%",
                                                   flex_flow="row wrap", align_items="flex-start"))
         # automatic phase-I proposals
         self.find = widgets.Button(description="Find rule-breaking subgroups", icon="search",
@@ -115,7 +122,7 @@ class StabilityStep:
         self.refresh(context)
         self.chart_box.children = [self.live.widget("sk-stability-chart")]
         when_shown(context, self.key, self.live.resync)
-        return widgets.VBox([panel_css(), ws.toolbar(), self.caution, self.summary, main, auto,
+        return panel([panel_css(), ws.toolbar(), self.caution, self.summary, main, auto,
                              self.log])
 
     def shown(self, context) -> None:
@@ -270,8 +277,7 @@ class StabilityStep:
                             f"{esc(p.chart or '')} chart, round {p.iteration}<br>"
                             f'<span class="sk-small">{esc(p.reason)}</span>')
             box = widgets.VBox([head, widgets.HBox([state, reason],
-                                                   layout=widgets.Layout(gap="10px",
-                                                                         flex_flow="row wrap"))])
+                                                   layout=widgets.Layout(flex_flow="row wrap"))])
             box.add_class("sk-proposal")
             rows.append(box)
         if found and not rows:
