@@ -143,6 +143,25 @@ def _when(value, *, name: str = "when") -> str:
     return text
 
 
+def known_models() -> tuple[str, ...]:
+    """Model names an analysis understands: ``auto``, ``normal``, the transforms, the families."""
+    from studykit.stats import fit as fit_module
+
+    names = ["auto", "normal", "boxcox", "johnson"]
+    names += [n for n in fit_module.FAMILIES if n not in names]
+    return tuple(names)
+
+
+def _check_model(model, *, error=SpecError) -> str:
+    """A model name the analysis knows (lower case), else a clear error listing them."""
+    text = _text(model, name="model", error=error).strip().lower() or "auto"
+    known = known_models()
+    if text not in known:
+        raise error(f"`model` ({model!r}) is not a model studykit knows; use one of "
+                    f"{', '.join(known)}")
+    return text
+
+
 def _fmt(x: float | None) -> str:
     return "none" if x is None else f"{x:g}"
 
@@ -368,8 +387,10 @@ class Criteria:
             raise SpecError(f"`basis` ({self.basis!r}) must be one of {', '.join(BASES)}")
         object.__setattr__(self, "basis", basis)
         conf = _number(self.confidence, name="confidence")
-        if conf is None or not 0 < conf < 1:
-            raise SpecError(f"`confidence` ({self.confidence!r}) must lie between 0 and 1, e.g. 0.95")
+        if conf is None or not 0.5 <= conf < 1:
+            # the analysis computes bounds only for levels in [0.5, 1): refuse here, not later
+            raise SpecError(f"`confidence` ({self.confidence!r}) must lie between 0 and 1, at "
+                            "0.5 or above (a bound below 50% is no lower bound), e.g. 0.95")
         object.__setattr__(self, "confidence", conf)
 
     def describe(self) -> str:
@@ -461,11 +482,12 @@ class Decision:
             sub = str(sub).strip() or None
         set_(self, "subgroup", sub)
         what = f"{action} decision"
+        article = "an" if action[:1] in "aeiou" else "a"
         if action in ("exclude", "restore") and sub is None:
             raise StudyInputError(f"an {what} needs the `subgroup` it applies to")
         if action in ("exclude", "restore", "set_spec", "set_criteria", "set_model", "set_chart"):
             if ch is None:
-                raise StudyInputError(f"a {what} needs the `characteristic` it applies to")
+                raise StudyInputError(f"{article} {what} needs the `characteristic` it applies to")
         reason = _text(self.reason, name="reason")
         who = _text(self.who, name="who").strip()
         if self.automatic:
@@ -473,11 +495,11 @@ class Decision:
         else:
             if not who:
                 raise StudyInputError(
-                    f"a {what} made by a person needs `who` (the person's name)"
+                    f"{article} {what} made by a person needs `who` (the person's name)"
                 )
             if action != "note" and not reason.strip():
                 raise StudyInputError(
-                    f"a {what} made by a person needs a non-empty `reason`, e.g. "
+                    f"{article} {what} made by a person needs a non-empty `reason`, e.g. "
                     "'tool change, logged in shift book'"
                 )
         set_(self, "reason", reason.strip())
@@ -1012,6 +1034,8 @@ class Study:
             raise StudyInputError(f"`decision` must be a Decision, got {decision!r}")
         if decision.characteristic is not None:
             self.characteristic(decision.characteristic)
+        if decision.action == "set_model":
+            _check_model(decision.payload.get("model", ""), error=StudyInputError)
         study = self
         if decision.action not in DIGEST_NEUTRAL_ACTIONS:
             what = f"{decision.action} on '{decision.characteristic}'"
@@ -1046,6 +1070,8 @@ class Study:
             raise SpecError(f"unknown specification field(s) {unknown}: known are {sorted(known)}")
         if not changes:
             raise SpecError("with_spec needs at least one field to change, e.g. usl=12.03")
+        if "model" in changes:
+            changes = {**changes, "model": _check_model(changes["model"])}
         new = dataclasses.replace(old, **changes)  # validates
         fields = {k: getattr(new, k) for k in changes}
         d = Decision(name, "set_spec", reason=reason, who=who, when=when,
@@ -1282,7 +1308,8 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
                 name, unit=cell.get("unit") or None, lsl=cell.get("lsl"), usl=cell.get("usl"),
                 target=cell.get("target"), safety_critical=flag in _TRUE,
                 chart=cell.get("chart") or "auto", subgroup_size=size_value,
-                size_column=cell.get("size_column") or None, model=cell.get("model") or "auto",
+                size_column=cell.get("size_column") or None,
+                model=_check_model(cell.get("model") or "auto"),
                 description=cell.get("description", ""),
             )
             crit_cells = {k: cell.get(k, "") for k in ("criterion", "threshold", "basis",

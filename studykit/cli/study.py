@@ -271,19 +271,45 @@ def _lock_kw(args) -> dict:
     return {"override_lock": True, "override_reason": reason} if reason else {}
 
 
-def _check_subgroup(study: Study, name: str, label: str) -> None:
-    """Refuse a subgroup label that the study's data do not have."""
-    from studykit.data import read_measurements_bytes
+def _subgroup_labels(study: Study, name: str) -> list[str]:
+    """The subgroup labels of ``name`` as the analysis numbers them (from the characteristic's
+    own data file of the study, after empty cells and with the spec's subgroup size)."""
+    import numpy as np
 
-    study.characteristic(name)
-    spec = study.characteristics[name]
-    options = {"subgroup_size": spec.subgroup_size} if spec.subgroup_size else {}
-    data = read_measurements_bytes(study.data, study.data_filename, **options).get(name)
-    labels = list(dict.fromkeys(str(x) for x in data.subgroups))
+    from studykit.analysis import read_study_measurements
+
+    spec = study.characteristic(name)
+    data = read_study_measurements(study).get(name)
+    values = np.asarray(data.values, dtype=float)
+    labels = [str(x) for x, v in zip(data.subgroups, values, strict=True) if not np.isnan(v)]
+    if spec.subgroup_size and not spec.is_attribute and len(set(labels)) == len(labels):
+        # consecutive values form subgroups 1, 2, ... (as studykit.analysis numbers them)
+        labels = [str(i // spec.subgroup_size + 1) for i in range(len(labels))]
+    return list(dict.fromkeys(labels))
+
+
+def _check_subgroup(study: Study, name: str, label: str, action: str) -> None:
+    """Refuse a subgroup label the data do not have, an exclusion already in force, and the
+    restore of a subgroup that is not excluded."""
+    excluded = study.excluded_subgroups(name)
+    if action == "restore":
+        if label not in excluded:
+            raise StudyInputError(
+                f"subgroup '{label}' of '{name}' is not excluded, so there is nothing to restore "
+                "(excluded now: " + (", ".join(excluded) or "none") + ")"
+            )
+        return
+    if label in excluded:
+        d = excluded[label]
+        raise StudyInputError(
+            f"subgroup '{label}' of '{name}' is already excluded (by {d.who} on {d.when}: "
+            f"{d.reason}); restore it first if the reason has to change"
+        )
+    labels = _subgroup_labels(study, name)
     if label not in labels:
         shown = ", ".join(labels[:8]) + (", ..." if len(labels) > 8 else "")
         raise StudyInputError(
-            f"'{name}' has no subgroup '{label}' in {study.data_filename} (its subgroups are "
+            f"'{name}' has no subgroup '{label}' in {study.source_of(name)} (its subgroups are "
             f"{shown}): give a label exactly as the data show it"
         )
 
@@ -291,15 +317,13 @@ def _check_subgroup(study: Study, name: str, label: str) -> None:
 def run_decision(args) -> int:
     sf = StudyFile(args.studyfile)
     who = args.who or _default_who()
+    label = args.subgroup.strip()
+    _check_subgroup(sf.load(), args.characteristic, label, args.action)
     if args.action == "exclude":
-        _check_subgroup(sf.load(), args.characteristic, args.subgroup.strip())
-    if args.action == "exclude":
-        sf.exclude(args.characteristic, args.subgroup, reason=args.reason, who=who,
-                   **_lock_kw(args))
+        sf.exclude(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
     else:
-        sf.restore(args.characteristic, args.subgroup, reason=args.reason, who=who,
-                   **_lock_kw(args))
-    print(f"{args.action}d subgroup {args.subgroup} of '{args.characteristic}'")
+        sf.restore(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
+    print(f"{args.action}d subgroup {label} of '{args.characteristic}'")
     return 0
 
 
