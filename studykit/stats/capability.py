@@ -888,6 +888,112 @@ def _vector_estimates(fid, s):
     return {"log_mean": ly.mean(axis=1), "log_sd": ly.std(axis=1)}, ok
 
 
+# two-parameter families whose row-wise ML solver (studykit.stats.fit) refits all samples at
+# once; the same root as the family's own estimator
+_ROW_FAMILIES = ("weibull", "gamma", "loglogistic")
+# threshold variants: the profile likelihood over the threshold, all samples at once
+_THRESHOLD_FAMILIES = ("lognormal3", "weibull3", "gamma3", "loglogistic3")
+
+
+def _row_solvers(fid):
+    from studykit.stats import fit as fit_module
+
+    base = _FAMILY_BASE.get(fid, fid)
+    return (getattr(fit_module, f"_inner_{base}"), getattr(fit_module, f"_dtheta_{base}"),
+            fit_module)
+
+
+def _row_estimates(fid, block, model):
+    """Refits of every row of ``block`` by the row-wise solvers of studykit.stats.fit.
+
+    Returns (params dict of arrays, ok mask, rows left for the one-at-a-time estimator).
+
+    Threshold families follow ``_profile_threshold`` for all samples at once: the same grid
+    of 8 thresholds; a sample whose best grid point is at either end goes to the family's own
+    estimator (its special cases); otherwise the maximum inside the bracket of the best grid
+    point is the root of the profile slope, found by the Illinois variant of regula falsi to
+    1e-9 in u = log(min(x) - threshold) instead of two refining passes of 33 points (a
+    sample whose slope does not change sign across the bracket goes to the family's own
+    estimator too).
+    """
+    inner, dtheta, fit_module = _row_solvers(fid)
+    n_boot, n = block.shape
+    positive = block.min(axis=1) > 0
+    spread = block.max(axis=1) > block.min(axis=1)
+    if fid not in _THRESHOLD_FAMILIES:
+        ok = positive & spread
+        ys = np.where(ok[:, None], block, 1.0)
+        with np.errstate(all="ignore"):
+            _, params, _ = inner(ys)
+        ok &= np.all([np.isfinite(v) & (v > 0) for v in params.values()], axis=0)
+        return dict(params), ok, ()
+    xmin = block.min(axis=1)
+    sd = block.std(axis=1)
+    decades = fit_module._GRID_DECADES * math.log(10.0)
+
+    def evaluate(rows, u):
+        ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
+        with np.errstate(all="ignore"):
+            ll, params, _ = inner(ys)
+            s = -np.exp(u) * dtheta(ys, params)
+        return np.where(np.isfinite(s), s, np.nan), params, np.where(np.isfinite(ll), ll, -np.inf)
+
+    rows = np.flatnonzero(spread & (sd > 0))
+    fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
+    # the grid of _profile_threshold, every sample at once
+    grid = np.log(sd[rows])[:, None] + decades[None, :]
+    _, _, ll_grid = evaluate(np.repeat(rows, decades.size), grid.ravel())
+    best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
+    # best at either end of the grid: the family's own estimator (its special cases)
+    edge = (best == 0) | (best == decades.size - 1)
+    fallback.update(rows[edge].tolist())
+    rows, grid, best = rows[~edge], grid[~edge], best[~edge]
+    at = np.arange(rows.size)
+    lo_u, hi_u = grid[at, best - 1], grid[at, best + 1]
+    lo_s, _, _ = evaluate(rows, lo_u)
+    hi_s, _, _ = evaluate(rows, hi_u)
+    bracketed = (lo_s > 0) & (hi_s < 0)
+    fallback.update(rows[~bracketed].tolist())
+    solve = np.flatnonzero(bracketed)
+    lo_u, hi_u, lo_s, hi_s = lo_u[solve], hi_u[solve], lo_s[solve], hi_s[solve]
+    root = np.full(rows.size, np.nan)
+    side = np.zeros(solve.size)
+    for _ in range(100):
+        if not solve.size:
+            break
+        u = (lo_u * hi_s - hi_u * lo_s) / (hi_s - lo_s)
+        s_u, _, _ = evaluate(rows[solve], u)
+        same_lo = s_u > 0
+        # Illinois: halve the slope kept at the end that stayed put twice in a row
+        hi_s = np.where(same_lo & (side == 1), hi_s / 2, hi_s)
+        lo_s = np.where(~same_lo & (side == -1), lo_s / 2, lo_s)
+        lo_u, lo_s = np.where(same_lo, u, lo_u), np.where(same_lo, s_u, lo_s)
+        hi_u, hi_s = np.where(same_lo, hi_u, u), np.where(same_lo, hi_s, s_u)
+        side = np.where(same_lo, 1, -1)
+        done = ((np.abs(hi_u - lo_u) <= 1e-9 * np.maximum(1.0, np.abs(u))) | (s_u == 0)
+                | ~np.isfinite(s_u))
+        root[solve[done]] = u[done]
+        keep = ~done
+        solve, lo_u, lo_s, hi_u, hi_s, side = (solve[keep], lo_u[keep], lo_s[keep],
+                                               hi_u[keep], hi_s[keep], side[keep])
+    fallback.update(rows[solve].tolist())
+    good = np.isfinite(root)
+    rows, root = rows[good], root[good]
+    ok = np.zeros(n_boot, dtype=bool)
+    params = None
+    if rows.size:
+        _, p, _ = evaluate(rows, root)
+        params = {}
+        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
+            params[k] = np.full(n_boot, np.nan)
+            params[k][rows] = v
+        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
+    fallback.update(np.flatnonzero(~ok & spread).tolist())
+    rest = sorted(fallback)
+    ok[rest] = False
+    return params, ok, rest
+
+
 def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
     """The percentile-method draws of :func:`_bootstrap_draws_generic` for the families of
     studykit.stats.fit: the same random samples (drawn as one n_boot x n block, which takes
@@ -904,19 +1010,24 @@ def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
     if n < getattr(family, "minimum_n", 3):
         ok = np.zeros(n_boot, dtype=bool)
         q = np.full((n_boot, 3), np.nan)
-    elif fid in _VECTOR_FAMILIES:
-        params, ok = _vector_estimates(fid, block)
-        with np.errstate(all="ignore"):
-            q = _family_quantiles(fid, {k: v[:, None] for k, v in params.items()})
     else:
-        ok = np.ones(n_boot, dtype=bool)
+        if fid in _VECTOR_FAMILIES:
+            params, ok, rest = *_vector_estimates(fid, block), ()
+        elif fid in _ROW_FAMILIES or fid in _THRESHOLD_FAMILIES:
+            params, ok, rest = _row_estimates(fid, block, model)
+        else:
+            params, ok, rest = None, np.ones(n_boot, dtype=bool), range(n_boot)
         q = np.full((n_boot, 3), np.nan)
-        for i in range(n_boot):
+        if params is not None:
+            with np.errstate(all="ignore"):
+                q[:] = _family_quantiles(fid, {k: v[:, None] for k, v in params.items()})
+        for i in rest:  # one sample at a time, by the family's own estimator
             try:
                 x = _clean(block[i])
                 family.check(x)
-                params, _, _ = family._estimate(x)
-                q[i] = _family_quantiles(fid, {k: float(v) for k, v in params.items()})
+                p, _, _ = family._estimate(x)
+                q[i] = _family_quantiles(fid, {k: float(v) for k, v in p.items()})
+                ok[i] = True
             except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
                 ok[i] = False
     q_lo, q_mid, q_hi = q[:, 0], q[:, 1], q[:, 2]
