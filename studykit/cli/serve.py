@@ -102,6 +102,8 @@ def server_command(notebook: Path, *, host: str, port: int) -> list[str]:
     return [
         sys.executable, "-m", "studykit.app.server", str(notebook),
         "--no-browser", f"--port={port}", f"--Voila.ip={host}", "--Voila.port_retries=0",
+        # a kernel runs the workbook before anyone asks, so the page opens in about 3 s
+        "--VoilaConfiguration.preheat_kernel=True",
     ]
 
 
