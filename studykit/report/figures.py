@@ -227,7 +227,8 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
                           f"{_DISPERSION_NAMES.get(kind, 'Dispersion')} chart",
                           _DISPERSION_NAMES.get(kind, "Dispersion") + unit, used)
         n = len(all_labels)
-        step = max(1, int(math.ceil(n / 25)))
+        longest = max((len(lab) for lab in all_labels), default=1)
+        step = max(1, int(math.ceil(n / 25)), int(math.ceil(n * (longest + 1.5) / 110)))
         ticks = list(range(1, n + 1, step))
         for ax in axes:
             ax.set_xticks(ticks)

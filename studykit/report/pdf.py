@@ -60,8 +60,8 @@ METHODS: tuple[tuple[str, str], ...] = (
      "D. C. Montgomery, Introduction to Statistical Quality Control, chapters 6-7; "
      "NIST/SEMATECH e-Handbook of Statistical Methods, section 6.3."),
     ("Control chart constants d2, d3, c4",
-     "Computed exactly by integration; checked against Montgomery, Appendix Table VI, and "
-     "ASTM E2587."),
+     "Computed exactly by integration; checked against Montgomery, Introduction to "
+     "Statistical Quality Control, Appendix VI."),
     ("Run rules (tests 1-8)",
      "L. S. Nelson (1984), The Shewhart control chart - tests for special causes, J. Quality "
      "Technology 16(4); Western Electric Statistical Quality Control Handbook (1956)."),
@@ -84,9 +84,10 @@ METHODS: tuple[tuple[str, str], ...] = (
      "A. F. Bissell (1990), How reliable is your capability index?, Applied Statistics 39(3); "
      "R. A. Boyles (1991), The Taguchi capability index, J. Quality Technology 23(1)."),
     ("Gauge R&R by two-way ANOVA",
-     "Montgomery, Design and Analysis of Experiments, chapter 13 (random effects); "
-     "R. K. Burdick, C. M. Borror & D. C. Montgomery (2005), Design and Analysis of Gauge "
-     "R&R Studies."),
+     "D. C. Montgomery & G. C. Runger (1993), Gauge capability and designed experiments, "
+     "Part II, Quality Engineering 6(2); R. K. Burdick, C. M. Borror & D. C. Montgomery "
+     "(2005), Design and Analysis of Gauge R&R Studies; range method: P. B. Patnaik (1950), "
+     "Biometrika 37."),
     ("Demonstration planning (parts needed for the bound to clear the requirement)",
      "Inverts the bound formulas above (Bissell 1990; chi-square for Cp/Pp)."),
 )
@@ -677,12 +678,16 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
          + (f" of {res.subgroup_size}" if res.subgroup_size else ""),
          "Removed", f"{len(res.phase1.removals)} subgroup(s)"
          + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
-        ["Mean", _num(res.mean, 6), "Chart", f"{chart.kind.replace('_', '-')} "
-         f"({_esc(chart.reason)})"],
-        ["Within sigma", _num(res.within_sigma, 4) + (f" ({_esc(chart.sigma_method_text)})"
-                                                     if chart.sigma_method_text else ""),
-         "Overall sigma", _num(res.overall_sigma, 4) + " (sample, n - 1)"],
+        ["Centre" if res.attribute else "Mean", _num(res.mean, 6), "Chart",
+         f"{chart.kind.replace('_', '-')} ({_esc(chart.reason)})"],
     ]
+    if not res.attribute:
+        facts.append(["Within sigma", _num(res.within_sigma, 4)
+                      + (f" ({_esc(chart.sigma_method_text)})" if chart.sigma_method_text
+                         else ""),
+                      "Overall sigma", _num(res.overall_sigma, 4) + " (sample, n - 1)"])
+    else:
+        facts[0][3] = "not judged by an index (counted data; see the defective rate below)"
     q = width / 4
     story.append(_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
                         zebra=False, styles=st))
@@ -964,10 +969,11 @@ def _appendix(story, number, study, st, width, evidence_sha):
     story.append(Paragraph(_esc(_software_versions()), st["body"]))
     story.append(Paragraph("Digests (SHA-256)", st["h2"]))
     rows = [["What", "SHA-256"],
-            [f"Raw data ({_esc(study.data_filename)})", study.data_sha256],
-            ["Study content (data + effective decisions)", study.content_digest()],
-            [f"Embedded evidence ({EVIDENCE_FILENAME})", evidence_sha]]
-    story.append(_table(rows, [0.38 * width, 0.62 * width], styles=st))
+            [f"Raw data ({_esc(study.data_filename)})", f"<font size=7>{study.data_sha256}</font>"],
+            ["Study content (data + effective decisions)",
+             f"<font size=7>{study.content_digest()}</font>"],
+            [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"]]
+    story.append(_table(rows, [0.34 * width, 0.66 * width], styles=st))
     story.append(Paragraph(
         f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
         "in full precision, the specifications, criteria and decisions. `studykit verify "
@@ -992,7 +998,7 @@ def _software_versions() -> str:
 def build_report(study_path_or_study, out_path, *,
                  progress: Callable[[int, int, str], None] | None = None,
                  gauges: Mapping | None = None) -> ReportInfo:
-    """Write the evidence PDF of a study.
+    r"""Write the evidence PDF of a study.
 
     Parameters
     ----------
@@ -1018,9 +1024,15 @@ def build_report(study_path_or_study, out_path, *,
     Examples
     --------
     >>> import tempfile, pathlib
-    >>> demo = pathlib.Path(__file__).parents[2] / "demo_data" / "pump_housing_pilot.study"
-    >>> with tempfile.TemporaryDirectory() as d:                    # doctest: +SKIP
-    ...     info = build_report(demo, pathlib.Path(d) / "r.pdf")
+    >>> from studykit.study import Characteristic, Study
+    >>> rows = [f"{i // 5 + 1},{10 + 0.01 * ((i * 7) % 11 - 5):.3f}" for i in range(60)]
+    >>> study = Study(title="Doctest study", data=("subgroup,bore [mm]\n" + "\n".join(rows))
+    ...               .encode(), data_filename="bore.csv",
+    ...               characteristics=[Characteristic("bore", unit="mm", lsl=9.8, usl=10.2)])
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     info = build_report(study, pathlib.Path(d) / "r.pdf")
+    >>> info.characteristics, info.pages >= 4, len(info.evidence_sha256)
+    (('bore',), True, 64)
     """
     import time
 
