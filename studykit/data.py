@@ -1145,8 +1145,72 @@ class _Ctx:
         self.text_numbers: dict[str, int] = {}
 
 
+#: labels of a spreadsheet's summary rows (totals, means...) that are not measurements
+_SUMMARY_WORDS = frozenset({
+    "total", "totals", "grand total", "sum", "sums", "subtotal", "mean", "average", "avg",
+    "median", "min", "max", "minimum", "maximum", "range", "std", "stdev", "std dev", "sd",
+    "sigma", "count", "x-bar", "xbar", "cpk", "ppk",
+    "summe", "gesamt", "gesamtsumme", "mittelwert", "mittel", "durchschnitt", "anzahl",
+    "spannweite", "standardabweichung",
+})
+
+
+#: the subset that is unmistakable in any text column (no first names such as 'Max')
+_STRONG_SUMMARY_WORDS = frozenset({
+    "total", "totals", "grand total", "sum", "subtotal", "mean", "average", "summe", "gesamt",
+    "gesamtsumme", "mittelwert", "durchschnitt",
+})
+
+
+def _summary_word(text, words=_SUMMARY_WORDS) -> bool:
+    """True when a label cell reads like the label of a totals/summary row ('Total:', 'Mean')."""
+    if not isinstance(text, str):
+        return False
+    key = re.sub(r"\s+", " ", text.strip().rstrip(":.=").strip()).casefold()
+    return key in words
+
+
+def _check_text_column(file, cells, rows, column) -> None:
+    """A text column (part numbers, operators...) labelling a row 'Total' or 'Mean'."""
+    import pandas as pd
+
+    uniq = pd.unique(np.asarray(cells, dtype=object))
+    hits = {u for u in uniq.tolist() if _summary_word(u, _STRONG_SUMMARY_WORDS)}
+    if hits:
+        i = next(i for i, v in enumerate(cells.tolist()) if v in hits)
+        raise _summary_row_error(file, rows[i], column, str(cells[i]))
+
+
+def _summary_row_error(file, row: int, column: str, label: str) -> DataFileError:
+    return DataFileError(
+        f"'{_show(label)}' labels a summary row (totals, means...), not a part or subgroup: its "
+        "numbers are results, not measurements, and would be analysed as data. Delete the row "
+        "(and any other summary rows) from the export.",
+        file=file, row=int(row), column=column, value=label,
+    )
+
+
+def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
+    """Refuse a totals/mean row at the foot of a table (labelled 'Total', 'Mean', 'Summe'...)
+    in the subgroup or time column: its numbers would otherwise enter the analysis."""
+    for c in characteristics:
+        columns = []
+        if sg_idx is not None:
+            columns.append((header[sg_idx], c.subgroups))
+        if t_idx is not None and c.times is not None and c.times.dtype.kind == "O":
+            columns.append((header[t_idx], c.times))
+        for column, cells in columns:
+            uniq = set(np.unique(np.asarray(cells, dtype=object).astype(str)).tolist())
+            hits = {u for u in uniq if _summary_word(u)}
+            if hits:
+                i = next(i for i, v in enumerate(cells.tolist()) if str(v) in hits)
+                raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
+
+
 def _bad_number(ctx: _Ctx, raw, row: int, column: str) -> DataFileError:
     text = str(raw).strip()
+    if _summary_word(text):
+        return _summary_row_error(ctx.file, row, column, text)
     if _EXCEL_ERROR_RE.match(text):
         why = (f"the cell shows the spreadsheet error '{text}' instead of a value. Fix the "
                "formula that produced it, or clear the cell if the part was not measured.")
@@ -1486,6 +1550,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
                                 n_idx, subgroup_size, notes, warnings_)
     characteristics, n_rows = result
+    _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     for col, k in ctx.text_numbers.items():
         notes.append(
             f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"
@@ -1673,7 +1738,9 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
                     row_filled |= ~empty
                 else:
                     row_filled |= _filled(cells, table.text_cells)
-                    if k == "subgroup":
+                    if k == "text":
+                        _check_text_column(src.name, cells, rows, header[j])
+                    elif k == "subgroup":
                         sg_acc.add(_labels(cells, table.text_cells))
                     elif k == "time":
                         t_acc.add(cells)
@@ -1872,6 +1939,16 @@ def _subgroup_messages(chars, subgroup_source, notes, warnings_):
             dist = ", ".join(f"{k} x size {v}" for v, k in zip(vals.tolist(), cnt.tolist(),
                                                               strict=True))
             msgs.append(("note", f"unequal subgroup sizes: {dist} (allowed; limits vary)"))
+            if filled.min() == 1:
+                single = c.subgroup_labels[sizes == 1].tolist()
+                shown = ", ".join(f"'{x}'" for x in single[:5]) + (
+                    f" and {len(single) - 5} more" if len(single) > 5 else "")
+                msgs.append((
+                    "warn",
+                    f"{len(single)} subgroup(s) hold a single value ({shown}) while others hold "
+                    f"up to {int(filled.max())}: X-bar charts need at least 2 values in every "
+                    "subgroup. Merge or exclude them, or read the values as individuals",
+                ))
         if filled.size and filled.max() > LARGE_SUBGROUP:
             msgs.append((
                 "warn",

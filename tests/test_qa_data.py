@@ -1,0 +1,147 @@
+"""Quality review: odd measurement files a user brings (German Excel exports, totals rows, ...).
+
+Defects found by trying to break `studykit check` are pinned here; files that already read
+correctly are kept as regression tests with the values checked cell by cell.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from studykit.cli import main
+from studykit.data import read_measurements
+from studykit.errors import DataFileError
+
+
+def write(tmp_path, name, text, newline=""):
+    path = tmp_path / name
+    with open(path, "w", newline=newline, encoding="utf-8") as fh:
+        fh.write(text)
+    return path
+
+
+# -- totals / summary rows (defect: they were read as one more subgroup or part) ----------------
+
+
+def test_totals_row_in_subgroup_column_is_refused(tmp_path):
+    # before: 'Total' became a subgroup of one value (4.6) and entered the analysis silently
+    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n1,1.2\n2,1.1\n2,1.3\nTotal,4.6\n")
+    with pytest.raises(DataFileError, match=r"file 't.csv', row 6, column 'subgroup': 'Total' "
+                                            r"labels a summary row"):
+        read_measurements(path)
+
+
+def test_mean_row_in_time_column_is_refused(tmp_path):
+    # before: the time column fell back to text and the mean (1.1) was read as a fourth part
+    path = write(tmp_path, "t.csv", "time,x\n2026-03-02 06:00,1.0\n2026-03-02 06:10,1.2\n"
+                                    "2026-03-02 06:20,1.1\nMean,1.1\n")
+    with pytest.raises(DataFileError, match=r"row 5, column 'time': 'Mean' labels a summary"):
+        read_measurements(path)
+
+
+def test_total_row_in_text_column_is_refused(tmp_path):
+    # before: the part-number column was set aside as text and 3.3 was read as a fourth value
+    path = write(tmp_path, "t.csv", "part,x\nP1,1.0\nP2,1.2\nP3,1.1\nTotal:,3.3\n")
+    with pytest.raises(DataFileError, match=r"row 5, column 'part': 'Total:' labels a summary"):
+        read_measurements(path)
+
+
+def test_german_summe_row_semicolon_file(tmp_path):
+    path = write(tmp_path, "t.csv", "Stichprobe;Durchmesser [mm]\n1;12,003\n1;12,005\n"
+                                    "2;11,998\n2;12,001\nSumme;48,007\n")
+    with pytest.raises(DataFileError, match=r"row 6, column 'Stichprobe': 'Summe' labels"):
+        read_measurements(path)
+
+
+def test_sum_word_in_value_column_names_the_summary_row(tmp_path):
+    path = write(tmp_path, "t.csv", "x,y\n1.0,2\n1.2,3\n1.1,4\nSum,9\n")
+    with pytest.raises(DataFileError, match=r"row 5, column 'x': 'Sum' labels a summary row"):
+        read_measurements(path)
+
+
+def test_totals_row_in_workbook(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Subgroup", "Bore [mm]"])
+    for sg, x in ((1, 12.001), (1, 12.003), (2, 11.999), (2, 12.000)):
+        ws.append([sg, x])
+    ws.append(["Average", 12.00075])
+    path = tmp_path / "t.xlsx"
+    wb.save(path)
+    with pytest.raises(DataFileError, match=r"row 6, column 'Subgroup': 'Average' labels"):
+        read_measurements(path)
+
+
+def test_operator_named_max_is_not_a_summary_row(tmp_path):
+    # 'Max' is a first name; only unmistakable words count in free text columns
+    path = write(tmp_path, "t.csv", "operator,x\nMax,1.0\nAnna,1.2\nMax,1.1\n")
+    m = read_measurements(path)
+    assert m.get("x").values.tolist() == [1.0, 1.2, 1.1]
+
+
+def test_cli_totals_row_exit_2_one_line(tmp_path, capsys):
+    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n1,1.2\n2,1.1\n2,1.3\nTotal,4.6\n")
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "row 6" in err and "Traceback" not in err
+
+
+# -- 1-value subgroups among larger ones (defect: check said "allowed", analyze then refused) ---
+
+
+def test_single_value_subgroups_warned_by_check(tmp_path):
+    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n2,1.1\n2,1.2\n2,1.3\n2,1.0\n2,1.1\n"
+                                    "3,1.2\n")
+    m = read_measurements(path)
+    assert any("2 subgroup(s) hold a single value ('1', '3') while others hold up to 5" in w
+               for w in m.warnings)
+
+
+def test_equal_sizes_no_single_value_warning(tmp_path):
+    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n1,1.1\n2,1.2\n2,1.3\n")
+    assert not any("single value" in w for w in read_measurements(path).warnings)
+
+
+# -- files that already read correctly (regression) ---------------------------------------------
+
+
+def test_german_excel_semicolon_decimal_comma(tmp_path):
+    path = write(tmp_path, "de.csv", "Stichprobe;Durchmesser [mm]\r\n1;12,003\r\n1;12,005\r\n"
+                                     "2;11,998\r\n2;12,001\r\n", newline="")
+    m = read_measurements(path)
+    c = m.get("Durchmesser")
+    assert c.unit == "mm" and m.decimal == "," and m.separator == ";"
+    assert c.values.tolist() == [12.003, 12.005, 11.998, 12.001]
+    assert c.subgroups.tolist() == ["1", "1", "2", "2"]
+
+
+def test_trailing_separator_units_in_parentheses_empty_column(tmp_path):
+    path = write(tmp_path, "t.csv", "subgroup,width (mm),height (in),blank,\n"
+                                    "1,1.0,2,,\n1,1.2,3,,\n2,1.1,4,,\n2,1.3,5,,\n")
+    m = read_measurements(path)
+    assert m.names == ("width", "height")
+    assert m.get("width").unit == "mm" and m.get("height").unit == "in"
+    assert m.get("height").values.tolist() == [2.0, 3.0, 4.0, 5.0]
+    assert any("empty columns skipped: 'blank'" in n for n in m.notes)
+
+
+def test_thousands_separator_refused_with_row(tmp_path):
+    path = write(tmp_path, "t.csv", 'x\n"1,234.5"\n"1,240.1"\n')
+    with pytest.raises(DataFileError, match=r"row 2, column 'x': '1,234.5' uses ','"):
+        read_measurements(path)
+
+
+@pytest.mark.parametrize("scale", [1e-9, 1e9])
+def test_tiny_and_huge_magnitudes_exact(tmp_path, scale):
+    raw = [1.01, 1.02, 0.99, 1.0, 1.03]
+    path = write(tmp_path, "t.csv", "x\n" + "\n".join(repr(v * scale) for v in raw) + "\n")
+    got = read_measurements(path).get("x").values
+    np.testing.assert_array_equal(got, np.array([v * scale for v in raw]))
+
+
+def test_nan_text_is_not_a_value(tmp_path):
+    path = write(tmp_path, "t.csv", "x\n1\nNaN\n2\n")
+    with pytest.raises(DataFileError, match=r"row 3, column 'x': 'NaN' is not a measured value"):
+        read_measurements(path)
