@@ -149,3 +149,30 @@ def test_errors_are_clear(tmp_path):
     (tmp_path / "plain.pdf").write_bytes(b"%PDF-1.4\n%%EOF\n")
     with pytest.raises(StudyFileError, match="studykit report|cannot be read"):
         read_evidence(tmp_path / "plain.pdf")
+
+
+def test_signals_and_automatic_removals_are_reported(tmp_path):
+    # one subgroup far off (removed in phase I) and a lasting shift (run-rule signals)
+    lines = (DEMO / "pump_housing_pilot.csv").read_text().splitlines()
+    out = [lines[0]]
+    for line in lines[1:]:
+        cells = line.split(",")
+        if cells[0] == "6":
+            cells[3] = f"{float(cells[3]) + 0.02:.3f}"
+        if int(cells[0]) >= 14:
+            cells[3] = f"{float(cells[3]) + 0.005:.3f}"
+        out.append(",".join(cells))
+    path = tmp_path / "shift.study"
+    StudyFile.create(path, data=("\n".join(out) + "\n").encode(), filename="shift.csv",
+                     title="Shifted", characteristics=[Characteristic(
+                         "bore_diameter", unit="mm", lsl=11.97, usl=12.03)], who="tester")
+    build_report(path, tmp_path / "shift.pdf")
+    study, result = _analyze(path)
+    res = result.results["bore_diameter"]
+    assert res.phase1.removals and res.chart.location.signals
+    text = _text(tmp_path / "shift.pdf").replace("\n", " ")
+    assert "Removal log" in text and "Signals on the final limits" in text
+    for removal in res.phase1.removals:
+        assert removal.reason[:30] in text
+    for sig in res.chart.location.signals:
+        assert f"test {sig.number}" in text

@@ -418,7 +418,10 @@ def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
                 continue
             lo = lcl if lcl is not None else cl - (ucl - cl)
             span = (ucl - lo) if ucl is not None else abs(cl) or 1.0
-            ax.set_ylim(lo - 0.35 * span, (ucl if ucl is not None else cl) + 0.35 * span)
+            bottom = lo - 0.35 * span
+            if part == "dispersion" and lo >= 0:
+                bottom = max(0.0, bottom) - 0.02 * span  # ranges and deviations are >= 0
+            ax.set_ylim(bottom, (ucl if ucl is not None else cl) + 0.35 * span)
             ax.set_xlim(0.5, n_columns + 0.5)
             for val, role, text in ((ucl, "control_limit", "UCL"), (cl, "centre_line", "CL"),
                                     (lcl, "control_limit", "LCL")):

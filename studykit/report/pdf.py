@@ -717,7 +717,8 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Spacer(1, 4))
         rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
         for r in res.phase1.removals:
-            rows.append([_esc(r.label), _esc(r.rule), str(r.iteration), _esc(r.who or "–"),
+            rows.append([_esc(r.label), _esc(str(r.rule).replace("_", " ")), str(r.iteration),
+                         _esc(r.who or "–"),
                          _esc(r.reason)])
         story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
                                    _table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15,
