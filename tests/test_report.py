@@ -96,8 +96,10 @@ def test_safety_caution_on_cover_and_in_its_section(demo_report):
 def test_progress_is_reported_per_characteristic(demo_report):
     _, _, info, calls = demo_report
     total = calls[-1][1]
-    assert total == len(info.characteristics) + 1
-    assert calls[-1][0] == total
+    assert total == 2 * len(info.characteristics) + 1
+    assert [c[0] for c in calls] == list(range(1, total + 1))
+    analysed = {c[2].split(" ", 1)[1] for c in calls if c[2].startswith("analysed")}
+    assert analysed == set(info.characteristics)
     named = {c[2].split(" ", 1)[1] for c in calls if c[2].startswith("drawn")}
     assert named == set(info.characteristics) - set(info.errors)
 

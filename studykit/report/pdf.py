@@ -584,7 +584,13 @@ def _cover(story, study, results, errors, st, width, evidence_sha):
         if res.verdict is not None:
             est, lb = _idx(res.verdict.estimate), _idx(res.verdict.lower_bound)
         elif res.attribute_capability is not None:
-            est = "see section"
+            ac = res.attribute_capability
+            if getattr(ac, "defective_rate", None) is not None:
+                est = f"{ac.defective_rate * 100:.3g}% defective"
+                lb = f"upper {ac.defective_rate_upper_bound * 100:.3g}%"
+            elif getattr(ac, "dpu", None) is not None:
+                est = f"{ac.dpu:.3g} per unit"
+                lb = f"upper {ac.dpu_upper_bound:.3g}"
         caution_colour = theme.VERDICTS["caution"].text_color
         safety = f" <font color='{caution_colour}'>(!)</font>" if c.safety_critical else ""
         rows.append([f"<b>{_esc(name)}</b>{safety}" + (f" [{_esc(res.unit)}]" if res.unit else ""),
@@ -1008,7 +1014,8 @@ def build_report(study_path_or_study, out_path, *,
     out_path : str or PathLike
         The PDF to write (written under a temporary name and moved into place).
     progress : callable, optional
-        ``progress(done, total, name)`` after each characteristic is analysed and drawn.
+        ``progress(done, total, text)``: ``total`` is twice the number of characteristics
+        plus one; called with "analysed NAME", then "drawn NAME", then "written".
     gauges : mapping, optional
         name -> stored gauge R&R payload (overrides those read from the study file).
 
@@ -1048,11 +1055,11 @@ def build_report(study_path_or_study, out_path, *,
     if stored_gauges is not None:
         stored_gauges = {k: v for k, v in stored_gauges.items() if k in study.characteristics}
     names = study.characteristic_names
-    total = len(names) + 1
+    total = 2 * len(names) + 1  # analysed 1..n, drawn n+1..2n, written
 
     def _analysis_progress(done, _n, name):
         if progress is not None:
-            progress(done - 1, total, f"analysing {name}")
+            progress(done, total, f"analysed {name}")
 
     results, errors, measurements = analyze_for_report(study, stored_gauges,
                                                        progress=_analysis_progress)
@@ -1071,6 +1078,8 @@ def build_report(study_path_or_study, out_path, *,
     for i, name in enumerate(names):
         res = results.get(name)
         if res is None:
+            if progress is not None:
+                progress(len(names) + i + 1, total, f"skipped {name}")
             continue
         story.append(PageBreak())
         section += 1
@@ -1080,7 +1089,7 @@ def build_report(study_path_or_study, out_path, *,
             raw = None
         _characteristic_section(story, section, name, res, study, raw, st, width, None)
         if progress is not None:
-            progress(i + 1, total, f"drawn {name}")
+            progress(len(names) + i + 1, total, f"drawn {name}")
     if stored_gauges:
         story.append(PageBreak())
         section += 1

@@ -67,7 +67,7 @@ def main() -> None:
         info = build_report(study, folder / "bench.pdf", progress=progress)
         total = time.perf_counter() - t0
         cpu = time.process_time() - c0
-        analysed = [t for t, w in marks if w.startswith("analysing")]
+        analysed = [t for t, w in marks if w.startswith("analysed")]
         drawn = [t for t, w in marks if w.startswith("drawn")]
         t_analysis = analysed[-1] if analysed else 0.0
         t_draw = (drawn[-1] - t_analysis) if drawn else 0.0
