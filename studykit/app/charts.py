@@ -168,7 +168,6 @@ class ControlChartView:
             FixedTicker,
             GroupFilter,
             HoverTool,
-            LabelSet,
             Legend,
             LegendItem,
             TapTool,
@@ -182,10 +181,9 @@ class ControlChartView:
                                                 "upper_warning", "lower_zone", "upper_zone")},
                                name=f"{part}_limits")
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
-        tags = ColumnDataSource({"x": [], "y": [], "text": []}, name=f"{part}_limit_labels")
         fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
                      toolbar_location="above", x_axis_label="Subgroup (production order)")
-        fig.min_border_right = 96
+        fig.min_border_right = 16
         zone = fig.varea("x", "lower_zone", "upper_zone", source=lim,
                          fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.10)
         for key in ("lower_zone", "upper_zone"):
@@ -204,7 +202,7 @@ class ControlChartView:
         kept_view = CDSView(filter=GroupFilter(column_name="status", group="kept"))
         removed_view = CDSView(filter=GroupFilter(column_name="status", group="removed"))
         data_line = theme.bokeh_line_kwargs("data")
-        line = fig.line("x", "value", source=pts, view=kept_view, line_alpha=0.6,
+        fig.line("x", "value", source=pts, view=kept_view, line_alpha=0.6,
                         line_color=data_line["line_color"], line_width=data_line["line_width"])
         sel = {"selection_line_color": theme.INK, "selection_line_width": 3.0,
                "nonselection_fill_alpha": 1.0, "nonselection_line_alpha": 1.0}
@@ -213,30 +211,32 @@ class ControlChartView:
         removed_kw = theme.bokeh_marker_kwargs("excluded")
         removed = fig.scatter("x", "value", source=pts, view=removed_view, **removed_kw,
                               selection_line_color=theme.INK, nonselection_line_alpha=1.0)
-        signal = fig.scatter("x", "value", source=sig, **theme.bokeh_marker_kwargs("signal"))
-        signal.nonselection_glyph = None
-        fig.add_layout(LabelSet(x="x", y="y", text="text", source=tags, x_offset=8, y_offset=-7,
-                                text_font_size="12px", text_color=theme.INK_SOFT))
+        fig.scatter("x", "value", source=sig, **theme.bokeh_marker_kwargs("signal"))
+        # legend swatches: bokeh 3.9 draws none for a renderer without data or with a view
+        nan = [float("nan")]
+        signal_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("signal"))
+        removed_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("excluded"))
+        kept_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("data"))
         hover = HoverTool(renderers=[kept, removed], tooltips=[
             ("Subgroup", "@label"), ("Time", "@time"), ("Statistic", "@value{0.00000}"),
             ("Values", "@values"), ("Note", "@note"), ("Rules broken", "@rules"),
             ("Removed because", "@removed_why")])
         fig.add_tools(hover, TapTool(renderers=[kept, removed]))
         if part == "location":
-            items = [LegendItem(label="Subgroup", renderers=[kept, line]),
+            items = [LegendItem(label="Subgroup", renderers=[kept_key]),
                      LegendItem(label="Centre", renderers=[centre]),
                      LegendItem(label="Control limits", renderers=limits),
                      LegendItem(label="±1σ zone", renderers=[zone]),
                      LegendItem(label="2σ warning", renderers=warn),
-                     LegendItem(label="Signal", renderers=[signal]),
-                     LegendItem(label="Removed", renderers=[removed])]
+                     LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
+                     LegendItem(label="Removed (reason on file)", renderers=[removed_key])]
             fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
                                   label_text_font_size="12px", spacing=12, padding=2,
                                   margin=4, border_line_color=None), "above")
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
-        self.sources[part] = {"points": pts, "limits": lim, "signals": sig, "tags": tags}
+        self.sources[part] = {"points": pts, "limits": lim, "signals": sig}
         return fig
 
     def update(self, result, *, full_chart=None, details=None, unit: str | None = None) -> dict:
@@ -259,18 +259,16 @@ class ControlChartView:
             src["limits"].data = c["limits"]
             src["signals"].data = c["signals"]
             t = c["limit_text"]
-            x_end = c["limits"]["x"][-1] if c["limits"]["x"] else 0
-            tag = {"x": [], "y": [], "text": []}
-            if not t["varies"]:
-                for key, name in (("ucl", "UCL"), ("center", "CL"), ("lcl", "LCL")):
-                    if t[key] is not None and math.isfinite(t[key]):
-                        tag["x"].append(x_end)
-                        tag["y"].append(t[key])
-                        tag["text"].append(f"{name} {_fmt(t[key], 5)}")
-            src["tags"].data = tag
+            if t["varies"]:
+                limits_text = "limits vary with the subgroup size"
+            else:
+                limits_text = " · ".join(f"{name} {_fmt(t[key], 5)}" for key, name in
+                                         (("lcl", "LCL"), ("center", "CL"), ("ucl", "UCL"))
+                                         if t[key] is not None and math.isfinite(t[key]))
             fig.yaxis.axis_label = c["name"] + unit_text
-            fig.title.text = (f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
-                              if part == "location" else f"{c['name']} chart")
+            head = (f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
+                    if part == "location" else f"{c['name']} chart")
+            fig.title.text = f"{head}    {limits_text}"
             # change the ticker's ticks, never swap models: a new model makes bokeh walk the
             # whole document again (about 0.1 s)
             fig.xaxis[0].ticker.ticks = ticks
@@ -399,8 +397,9 @@ class ShapeView:
             s.visible = False
             h.add_layout(s)
             self.spans[key] = s
-        spec_r = h.line([], [], **theme.bokeh_line_kwargs("spec_limit"))
-        target_r = h.line([], [], **theme.bokeh_line_kwargs("target"))
+        nan = [float("nan")]
+        spec_r = h.line(nan, nan, **theme.bokeh_line_kwargs("spec_limit"))
+        target_r = h.line(nan, nan, **theme.bokeh_line_kwargs("target"))
         self._fit_item = LegendItem(label="Model", renderers=[fit])
         self._comp_item = LegendItem(label="Normal", renderers=[comp])
         h.add_layout(Legend(items=[LegendItem(label="Values used", renderers=[bars]),
@@ -440,6 +439,7 @@ class ShapeView:
         self.compare.data = {"x": cols["compare"]["x"], "y": cols["compare"]["y"]}
         self._fit_item.label = {"value": f"Model: {cols['model']['name'] or '—'}"}
         self._comp_item.label = {"value": cols["compare"]["name"] or "—"}
+        self._comp_item.visible = bool(cols["compare"]["name"])
         for key, span in self.spans.items():
             v = cols["spec"].get(key)
             span.visible = v is not None
@@ -539,7 +539,7 @@ class IntervalView:
                                      text="required", text_font_size="12px",
                                      text_color=theme.ROLES["spec_limit"].color)
         f.add_layout(self.threshold_label)
-        req = f.line([], [], **theme.bokeh_line_kwargs("spec_limit"))
+        req = f.line([float("nan")], [float("nan")], **theme.bokeh_line_kwargs("spec_limit"))
         self._interval_item = LegendItem(label="95% interval", renderers=[seg])
         self._bound_item = LegendItem(label="Lower 95% bound", renderers=[lb])
         f.add_layout(Legend(items=[LegendItem(label="Estimate", renderers=[est]),

@@ -60,6 +60,13 @@ PANEL_CSS = f"""
 .sk-proposal {{ border: 1px solid {theme.RULE}; padding: 8px 12px; margin: 4px 0;
   border-radius: 3px; background: {theme.PANEL}; }}
 .sk-panel .widget-hbox {{ gap: 12px; }}
+.sk-root .sk-panel .jupyter-button {{ width: auto; min-width: 0; align-self: flex-start;
+  white-space: nowrap; }}
+.sk-root .sk-panel .widget-toggle-buttons .widget-toggle-button {{ width: auto;
+  padding: 0 14px; }}
+.sk-kvtable td {{ padding: 2px 12px 2px 0; vertical-align: top; }}
+.sk-kvtable td:first-child {{ color: {theme.INK_SOFT}; white-space: nowrap; }}
+.sk-kvtable td:last-child {{ font-weight: 600; word-break: break-word; }}
 .sk-panel .widget-hbox.sk-toolbar {{ gap: 18px; }}
 .sk-summary {{ margin: 2px 0 10px 0; line-height: 1.8; }}
 .sk-small {{ font-size: 12px; color: {theme.INK_SOFT}; }}

@@ -118,8 +118,7 @@ class SignoffStep:
                                      placeholder="prepared, reviewed, approved …",
                                      ensure_option=False, layout=widgets.Layout(width="200px"))
         self.role.add_class("sk-sign-role")
-        self.decision = widgets.ToggleButtons(options=_DECISIONS, value="approve",
-                                              style={"button_width": "120px"})
+        self.decision = widgets.ToggleButtons(options=_DECISIONS, value="approve")
         self.decision.add_class("sk-sign-decision")
         self.sign_comment = widgets.Textarea(placeholder="comment (required when rejecting)",
                                              layout=widgets.Layout(width="100%",

@@ -198,8 +198,8 @@ class StabilityStep:
                      ("Statistic", fmt(row["value"], 5)), ("Values", row["values"]),
                      ("Note", row["note"]), ("Rules broken", row["rules"]),
                      ("Status", "removed — " + row["removed_why"] if removed else "in use")]
-            self.selected_info.value = '<dl class="sk-kv">' + "".join(
-                f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in facts) + "</dl>"
+            self.selected_info.value = '<table class="sk-kvtable">' + "".join(
+                f"<tr><td>{esc(k)}</td><td>{esc(v)}</td></tr>" for k, v in facts) + "</table>"
         self._update_buttons()
 
     def _update_buttons(self) -> None:
@@ -258,8 +258,7 @@ class StabilityStep:
         self._proposals = []
         for p in proposals:
             state = widgets.ToggleButtons(options=[("Undecided", ""), ("Accept", "accept"),
-                                                   ("Reject", "reject")], value="",
-                                          style={"button_width": "96px"})
+                                                   ("Reject", "reject")], value="")
             state.add_class(f"sk-proposal-{p.label}")
             reason = widgets.Text(placeholder="reason for accepting (required)",
                                   layout=widgets.Layout(width="380px"))
