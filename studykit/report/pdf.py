@@ -580,6 +580,10 @@ def _cover(story, study, results, errors, st, width, evidence_sha):
         chart = res.chart.kind.replace("_", "-")
         key = _verdict_key(res)
         v = theme.VERDICTS[key]
+        label = v.label
+        if res.attribute:
+            crit = "rate with upper bound (counted data)"
+            label = "Rate reported"
         est = lb = "–"
         if res.verdict is not None:
             est, lb = _idx(res.verdict.estimate), _idx(res.verdict.lower_bound)
@@ -595,9 +599,9 @@ def _cover(story, study, results, errors, st, width, evidence_sha):
         safety = f" <font color='{caution_colour}'>(!)</font>" if c.safety_critical else ""
         rows.append([f"<b>{_esc(name)}</b>{safety}" + (f" [{_esc(res.unit)}]" if res.unit else ""),
                      spec, f"{chart} / {_esc(model)}", _esc(crit), est, lb,
-                     f"<font color='{v.text_color}'><b>{v.symbol} {v.label}</b></font>"])
+                     f"<font color='{v.text_color}'><b>{v.symbol} {label}</b></font>"])
         verdict_rows.append(key)
-    t = _table(rows, [w * width for w in (0.19, 0.15, 0.14, 0.16, 0.1, 0.1, 0.16)], styles=st)
+    t = _table(rows, [w * width for w in (0.23, 0.14, 0.14, 0.15, 0.1, 0.1, 0.14)], styles=st)
     from reportlab.lib import colors
 
     for r, key in enumerate(verdict_rows, start=1):
