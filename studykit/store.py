@@ -237,6 +237,13 @@ class StudyFile:
         try:
             version = self._check_version(conn)
             if version < SCHEMA_VERSION:
+                why = self._not_writable()
+                if why is not None:
+                    raise StudyFileError(
+                        f"study file '{self.path}' is from an older studykit (schema {version}) "
+                        f"and must be brought up to date, but {why}. Copy it to a folder where "
+                        "you may write and open the copy"
+                    )
                 conn.execute("BEGIN IMMEDIATE")
                 try:
                     version = self._check_version(conn)  # another process may have migrated
@@ -270,14 +277,52 @@ class StudyFile:
                 "pass the .study file made by `studykit study new`, not a data file"
             )
 
-    def _connect(self) -> sqlite3.Connection:
+    def _not_writable(self) -> str | None:
+        """Why this study file cannot be written to (read-only file or folder), else None."""
+        if not os.access(self.path.parent, os.W_OK):
+            return (f"the folder '{self.path.parent}' is read-only, and a study file needs its "
+                    "folder writable for its journal")
+        if not os.access(self.path, os.W_OK):
+            return f"the study file '{self.path}' is read-only"
+        return None
+
+    def _connect(self, *, write: bool = False) -> sqlite3.Connection:
         try:
             conn = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None)
             conn.execute(f"PRAGMA busy_timeout = {int(_BUSY_TIMEOUT_S * 1000)}")
             conn.execute("PRAGMA synchronous = FULL")
             conn.execute("PRAGMA foreign_keys = ON")
+            if not write:
+                conn.execute("SELECT count(*) FROM sqlite_master").fetchone()  # opens the WAL
         except sqlite3.DatabaseError as exc:
+            why = self._not_writable()
+            if why is not None and not write:
+                return self._connect_read_only(why, exc)
+            if why is not None:
+                raise StudyFileError(
+                    f"cannot save to study file '{self.path}': {why}. Copy the study file to a "
+                    "folder where you may write, or ask for write permission"
+                ) from None
             raise StudyFileError(f"cannot open study file '{self.path}': {exc}") from None
+        return conn
+
+    def _connect_read_only(self, why: str, exc: Exception) -> sqlite3.Connection:
+        """Read a study file in a read-only place (an archive share, a CD): open it as
+        immutable. Refused when a journal with unsaved changes lies beside it, since reading
+        without the journal would show an older state."""
+        wal = Path(f"{self.path}-wal")
+        if wal.exists() and wal.stat().st_size > 0:
+            raise StudyFileError(
+                f"cannot read study file '{self.path}' ({exc}): {why}, and its journal "
+                f"'{wal.name}' holds changes not yet merged. Copy both files to a folder where "
+                "you may write and open the copy"
+            ) from None
+        uri = self.path.resolve().as_uri() + "?immutable=1"
+        try:
+            conn = sqlite3.connect(uri, uri=True, isolation_level=None)
+            conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        except sqlite3.DatabaseError as exc2:
+            raise StudyFileError(f"cannot open study file '{self.path}': {exc2}") from None
         return conn
 
     def _check_version(self, conn: sqlite3.Connection) -> int:
@@ -324,11 +369,18 @@ class StudyFile:
 
     @contextmanager
     def _write(self):
-        conn = self._connect()
+        conn = self._connect(write=True)
         try:
             try:
                 conn.execute("BEGIN IMMEDIATE")
             except sqlite3.OperationalError as exc:
+                why = self._not_writable()
+                if why is not None:
+                    raise StudyFileError(
+                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
+                        "Copy the study file to a folder where you may write, or ask for write "
+                        "permission"
+                    ) from None
                 raise StudyFileError(
                     f"study file '{self.path}' is busy or read-only ({exc}): try again, or check "
                     "that you may write to it"
@@ -339,6 +391,13 @@ class StudyFile:
             except sqlite3.DatabaseError as exc:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
+                why = self._not_writable()
+                if why is not None:
+                    raise StudyFileError(
+                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
+                        "Copy the study file to a folder where you may write, or ask for write "
+                        "permission"
+                    ) from None
                 raise StudyFileError(
                     f"could not save to study file '{self.path}' ({exc}); nothing was changed: "
                     "check free disk space and write permission, then try again"
