@@ -16,7 +16,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "tests" / "browser"))
 
-from conftest import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
+from browser_support import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 
 from studykit.app.server import running_server  # noqa: E402
 

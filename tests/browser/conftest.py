@@ -13,13 +13,15 @@ from pathlib import Path
 
 import pytest
 
-ROOT = Path(__file__).resolve().parents[2]
-ARTIFACTS = ROOT / "test-artifacts"
-CHROMIUM = os.environ.get("STUDYKIT_CHROMIUM", "/usr/bin/chromium")
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync"]
-TIMEOUT_MS = int(os.environ.get("STUDYKIT_BROWSER_TIMEOUT_MS", "90000"))
+# re-exported for journeys that import them from here
+from browser_support import (  # noqa: F401
+    ARTIFACTS,
+    CHROMIUM,
+    CHROMIUM_ARGS,
+    ROOT,
+    TIMEOUT_MS,
+    run_with_retry,
+)
 
 _missing = None
 if not (os.path.isfile(CHROMIUM) and os.access(CHROMIUM, os.X_OK)) and not shutil.which(CHROMIUM):
@@ -53,35 +55,13 @@ def artifacts() -> Path:
 
 
 @pytest.fixture(scope="module")
-def workbook_url():
+def workbook_url(artifacts):
     from studykit.app.server import running_server
 
-    log = open(ARTIFACTS.parent / "test-artifacts" / "voila-journeys.log", "w")  # noqa: SIM115
+    log = open(artifacts / "voila-journeys.log", "w")  # noqa: SIM115
     try:
         with running_server(ROOT / "notebooks" / "workbook.ipynb",
                             env={"STUDYKIT_STUDY": ""}, log=log) as url:
             yield url
     finally:
         log.close()
-
-
-def run_with_retry(browser, journey, *, viewport, attempts: int = 2):
-    """Run ``journey(page)`` in a fresh page; on failure try once more in a new page."""
-    last = None
-    for attempt in range(attempts):
-        context = browser.new_context(viewport=viewport)
-        context.set_default_timeout(TIMEOUT_MS)
-        page = context.new_page()
-        console = []
-        page.on("console", lambda m, console=console: console.append(f"{m.type}: {m.text}"))
-        try:
-            return journey(page, console)
-        except Exception as exc:  # noqa: BLE001 - retried once, then re-raised
-            last = exc
-            try:
-                page.screenshot(path=str(ARTIFACTS / f"failed-attempt-{attempt + 1}.png"))
-            except Exception:  # noqa: BLE001
-                pass
-        finally:
-            context.close()
-    raise last

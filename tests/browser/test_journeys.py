@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import run_with_retry
+from browser_support import run_with_retry
 
 
 def sample_csv() -> bytes:
