@@ -70,8 +70,10 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
         if path.suffix.lower() in (".xlsx", ".xlsm"):
             frame = pd.read_excel(path, sheet_name=sheet or 0, dtype=object)
         else:
+            # blank lines are kept (and dropped below) so that row numbers match the file
             frame = pd.read_csv(path, sep=None, engine="python", dtype=str,
-                                skipinitialspace=True, encoding="utf-8-sig")
+                                skipinitialspace=True, encoding="utf-8-sig",
+                                skip_blank_lines=False)
     except (ValueError, OSError, UnicodeDecodeError) as exc:
         raise DataFileError(f"cannot read the table: {exc}", file=path) from None
     frame.columns = [str(c).strip() for c in frame.columns]
@@ -85,10 +87,36 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
                 + ", ".join(f"'{c}'" for c in frame.columns),
                 file=path,
             )
+    given = list(wanted.items())
+    for k, (option, col) in enumerate(given):
+        for other, col2 in given[k + 1:]:
+            if col == col2:
+                raise DataFileError(
+                    f"{option} and {other} both name column '{col}'; each role needs its own "
+                    "column (parts, appraisers, trials and values)", file=path, column=col,
+                )
+    # spreadsheet row of each table row (header = row 1); wholly empty rows are left out
+    file_rows = [int(i) + 2 for i in range(len(frame))]
+    blank = frame.isna().all(axis=1).to_numpy()
+    if blank.any():
+        frame = frame[~blank]
+        file_rows = [r for r, b in zip(file_rows, blank.tolist(), strict=True) if not b]
     values = []
+    first_sign: dict[str, int] = {}
     for i, raw in enumerate(frame[value].tolist()):
         text = "" if raw is None or (isinstance(raw, float) and math.isnan(raw)) else str(raw)
         text = text.strip()
+        if isinstance(raw, str):
+            for sign in (".", ","):
+                if sign in text:
+                    first_sign.setdefault(sign, file_rows[i])
+            if len(first_sign) == 2:
+                raise DataFileError(
+                    f"'{text}' mixes the decimal signs '.' and ',' with the rest of the column "
+                    f"(first '.' in row {first_sign['.']}, first ',' in row {first_sign[',']}); "
+                    "use one decimal sign throughout and no thousands separators",
+                    file=path, row=file_rows[i], column=value,
+                )
         try:
             x = float(text.replace(",", ".")) if "," in text and "." not in text else float(text)
         except ValueError:
@@ -98,7 +126,7 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
             raise DataFileError(
                 f"{shown} is not a number; every row needs a measured value (delete the row of "
                 "a missing measurement from every appraiser's cell, or re-measure)",
-                file=path, row=i + 2, column=value,
+                file=path, row=file_rows[i], column=value,
             )
         values.append(x)
     labels = {}
@@ -111,8 +139,8 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
             text = "" if raw is None or (isinstance(raw, float) and math.isnan(raw)) else str(raw)
             text = text.strip()
             if not text:
-                raise DataFileError("empty label; every row needs one", file=path, row=i + 2,
-                                    column=col)
+                raise DataFileError("empty label; every row needs one", file=path,
+                                    row=file_rows[i], column=col)
             out.append(_natural(text))
         labels[key] = out
     return {"values": values, **labels}
