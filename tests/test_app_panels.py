@@ -241,3 +241,24 @@ def test_chart_columns_read_the_result():
     iv = interval_columns(res)
     j = iv["rows"]["name"].index("Ppk (judged)")
     assert iv["rows"]["lower_bound"][j] == pytest.approx(res.verdict.lower_bound)
+
+
+def test_without_a_study_file_the_panels_say_so():
+    steps = [IntakeStep(), LimitsStep(), StabilityStep(), ShapeStep(), CapabilityStep(),
+             SignoffStep(), ExportStep()]
+    wb = build_workbook(None, steps=steps)
+    for s in steps[1:]:
+        wb.select(s.key)
+        assert "No study file open" in wb._body.children[0].value
+    assert not wb.context.messages.messages
+
+
+def test_stability_tick_needs_every_characteristic_quiet(wb):
+    stab = wb.step("stability")
+    assert not stab.is_done(wb.context)  # not every characteristic analysed yet
+    stab.ws.session.analyze_all()
+    quiet = all(not stab.ws.session.result(n).chart.location.signals
+                and not (stab.ws.session.result(n).chart.dispersion is not None
+                         and stab.ws.session.result(n).chart.dispersion.signals)
+                for n in stab.ws.session.names)
+    assert stab.is_done(wb.context) is quiet

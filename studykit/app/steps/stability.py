@@ -46,8 +46,19 @@ class StabilityStep:
         self.tap_events = 0  # how many tap selections reached Python (checked by tests)
 
     def is_done(self, context) -> bool:
+        """Every characteristic analysed, and no rule signal left on any final chart."""
         ws = context.extra.get("studykit.workspace")
-        return bool(ws is not None and ws.session.is_cached(ws.session.current))
+        if ws is None:
+            return False
+        s = ws.session
+        if not all(s.is_cached(n) for n in s.names):
+            return False
+        for n in s.names:
+            chart = s.result(n).chart
+            if any(getattr(chart, p) is not None and getattr(chart, p).signals
+                   for p in ("location", "dispersion")):
+                return False
+        return True
 
     # --- building -------------------------------------------------------------------------------
     def build(self, context) -> widgets.Widget:
