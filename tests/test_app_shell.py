@@ -174,7 +174,8 @@ def test_safety_critical_characteristics_get_the_caution_banner():
     (banner,) = wb._caution.children
     assert "Weld" in banner.value and "Hole" not in banner.value
     assert "do not replace" in banner.value and "product validation" in caution_banner().value
-    assert "licensed" in SAFETY_NOTE
+    assert "licensed" in SAFETY_NOTE and "govern acceptance" in SAFETY_NOTE
+    assert "<td>Weld</td>" in wb._overview.value and "<td>Yes</td>" in wb._overview.value
 
 
 def test_a_new_step_plugs_in_and_is_refreshed():

@@ -256,6 +256,19 @@ class Workbook(widgets.VBox):
     def _render_overview(self) -> None:
         chars = self.context.characteristics
         head = '<div class="sk-section">Characteristics at a glance</div>'
+        study_chars = getattr(self.context.study, "characteristics", None) or {}
+        if not chars and study_chars:
+            values = study_chars.values() if hasattr(study_chars, "values") else study_chars
+            rows = "".join(
+                f"<tr><td>{esc(getattr(c, 'name', '?'))}</td><td>{esc(getattr(c, 'unit', None))}"
+                f"</td><td>{'Yes' if getattr(c, 'safety_critical', False) else 'No'}</td></tr>"
+                for c in values)
+            self._overview.value = head + (
+                '<table class="sk-table"><thead><tr><th>Characteristic</th><th>Unit</th>'
+                f"<th>Safety-critical</th></tr></thead><tbody>{rows}</tbody></table>"
+                '<div class="sk-muted">Each step shows its own status for every '
+                "characteristic of the study.</div>")
+            return
         if not chars:
             self._overview.value = head + (
                 '<div class="sk-muted">No measurements confirmed yet. Bring in a data file '

@@ -22,9 +22,8 @@ log = logging.getLogger("studykit.app")
 
 MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
 SAFETY_NOTE = (
-    "Statistics support, but do not replace, product validation. Customer requirements, "
-    "applicable codes and licensed professional practice govern acceptance of this "
-    "characteristic."
+    "Statistics support, but do not replace, product validation; customer requirements, "
+    "local codes and licensed professional practice govern acceptance."
 )
 
 
