@@ -42,7 +42,7 @@ def figure_png(fig: Figure, *, dpi: int = 200) -> bytes:
     return buf.getvalue()
 
 
-def figure_image(fig: Figure, *, dpi: int = 160):
+def figure_image(fig: Figure, *, dpi: int = 150):
     """The figure rendered to an RGB :class:`PIL.Image.Image` (no PNG round trip: the PDF
     compresses the pixels itself, which halves the time per figure)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg

@@ -810,7 +810,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Spacer(1, 3))
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))
-        story.append(_image(figures.interval_figure(res), width))
+        story.append(_interval_drawing(res, width, st))
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
         for f in res.findings:
@@ -819,6 +819,77 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Paragraph("Demonstration planning", st["h2"]))
         story.append(Paragraph(_esc(res.plan.text), st["body"]))
     _warnings_block(story, res, st)
+
+
+def _interval_drawing(res, width, st):
+    """Each index: estimate (dot), two-sided interval (bar), one-sided lower bound (tick),
+    against the required threshold (dash-dot line). Vector graphics, drawn by reportlab (the
+    matplotlib version is :func:`studykit.report.figures.interval_figure`)."""
+    from reportlab.graphics.shapes import Circle, Drawing, Line, String
+    from reportlab.lib import colors
+
+    cap = res.capability
+    rows = []
+    for key in ("cp", "cpk", "pp", "ppk", "cpm"):
+        est = getattr(cap, key, None)
+        if est is None or not math.isfinite(est):
+            continue
+        rows.append((key, float(est), (cap.bounds or {}).get(key) or {}))
+    threshold = float(res.criteria.get("threshold", 1.33))
+    values = [threshold] + [v for _, e, b in rows for v in (e, b.get("lower"), b.get("upper"),
+                                                             b.get("lower_bound"))
+                            if v is not None and math.isfinite(v)]
+    lo, hi = min(values), max(values)
+    pad = 0.06 * (hi - lo or 1.0)
+    lo, hi = lo - pad, hi + pad
+    row_h, top, bottom, left, right = 17, 22, 24, 78, 12
+    height = top + bottom + row_h * max(len(rows), 1)
+    d = Drawing(width, height)
+    font = st["small"].fontName
+    ink, soft, rule = (colors.HexColor(theme.INK), colors.HexColor(theme.INK_SOFT),
+                       colors.HexColor(theme.RULE))
+
+    def x(v):
+        return left + (v - lo) / (hi - lo) * (width - left - right)
+
+    level = (cap.level or 0.95) * 100
+    d.add(String(0, height - 11, f"Estimate (dot), two-sided {level:g}% interval (bar), "
+                 f"one-sided lower {level:g}% bound (tick); required {threshold:g} (dash-dot)",
+                 fontName=st["cellb"].fontName, fontSize=8, fillColor=ink))
+    # axis with ticks
+    y0 = bottom - 6
+    d.add(Line(left, y0, width - right, y0, strokeColor=soft, strokeWidth=0.6))
+    span = hi - lo
+    step = 10 ** math.floor(math.log10(span / 5)) if span > 0 else 1
+    for mult in (1, 2, 5, 10):
+        if span / (step * mult) <= 7:
+            step *= mult
+            break
+    t = math.ceil(lo / step) * step
+    while t <= hi:
+        d.add(Line(x(t), y0, x(t), height - top + 4, strokeColor=rule, strokeWidth=0.4))
+        d.add(String(x(t), y0 - 10, f"{t:.3g}", fontName=font, fontSize=7, fillColor=soft,
+                     textAnchor="middle"))
+        t += step
+    spec = theme.ROLES["spec_limit"]
+    d.add(Line(x(threshold), y0, x(threshold), height - top + 4,
+               strokeColor=colors.HexColor(spec.color), strokeWidth=1.4,
+               strokeDashArray=[5, 2, 1, 2]))
+    judged = res.criteria.get("index")
+    for i, (key, est, b) in enumerate(rows):
+        y = height - top - row_h * (i + 0.5)
+        col = colors.HexColor(theme.OKABE_ITO["black" if key == judged else "blue"])
+        name = _index_name(key) + (" (judged)" if key == judged else "")
+        d.add(String(left - 6, y - 3, name, fontName=st["cellb"].fontName if key == judged
+                     else font, fontSize=8, fillColor=ink, textAnchor="end"))
+        if b.get("lower") is not None and b.get("upper") is not None:
+            d.add(Line(x(b["lower"]), y, x(b["upper"]), y, strokeColor=col, strokeWidth=2.4))
+        if b.get("lower_bound") is not None:
+            d.add(Line(x(b["lower_bound"]), y - 6, x(b["lower_bound"]), y + 6, strokeColor=col,
+                       strokeWidth=2.2))
+        d.add(Circle(x(est), y, 3.2, fillColor=col, strokeColor=colors.white,
+                     strokeWidth=0.6))
+    return d
 
 
 def _attribute_block(story, res, st, width):
