@@ -112,7 +112,20 @@ def test_cli_keygen_report_sign(signed, tmp_path, monkeypatch, capsys):
                  "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "Signature1" in out and "reviewed: Rita Review" in out
-    monkeypatch.delenv("SK_TEST_PW")
+    # a second signer on the same study state adds to the signed PDF (never drops the first)
+    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",
+                 str(p12), "--role", "approved", "--name", "Rita Review", "--passphrase-env",
+                 "SK_TEST_PW", "--quiet"]) == 0
+    assert "Signature2" in capsys.readouterr().out
+    with open(tmp_path / "r.pdf", "rb") as f:
+        assert len(PdfFileReader(f).embedded_signatures) == 2
+    # after a change to the study, the signed PDF is not overwritten
+    StudyFile(tmp_path / "s.study").exclude("bore_diameter", "4", reason="late", who="t")
     assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",
                  str(p12), "--passphrase-env", "SK_TEST_PW", "--quiet"]) == 2
+    assert "never overwritten" in capsys.readouterr().err
+    monkeypatch.delenv("SK_TEST_PW")
+    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r2.pdf"), "--sign",
+                 str(p12), "--passphrase-env", "SK_TEST_PW", "--quiet"]) == 2
     assert "SK_TEST_PW" in capsys.readouterr().err
+    assert not (tmp_path / "r2.pdf").exists()  # refused before any work

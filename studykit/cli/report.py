@@ -30,7 +30,8 @@ def register(sub) -> None:
                    help="environment variable holding the .p12 passphrase "
                    "(default STUDYKIT_P12_PASSPHRASE)")
     p.add_argument("--sign-existing", action="store_true", help="sign the PDF given by -o as "
-                   "it is (add a further signature) instead of building it again")
+                   "it is (a PDF already signed for the current study state is always signed "
+                   "as it is, so earlier signatures stay)")
     p.add_argument("--handoff", metavar="ZIP", help="also write the hand-off zip")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
@@ -58,12 +59,50 @@ def _common_name(p12: str, passphrase: str) -> str:
         return ""
 
 
+def _signed_same_study(pdf: Path, study_path) -> bool:
+    """True when ``pdf`` is a signed report of the study as it stands (so signing adds to it;
+    rebuilding would drop the earlier signatures). A signed report of another state is an
+    error: it is never overwritten silently."""
+    if not pdf.exists():
+        return False
+    from studykit.report.pdf import read_evidence
+    from studykit.report.signing import signature_count
+    from studykit.store import StudyFile
+
+    n = signature_count(pdf.read_bytes())
+    if n == 0:
+        return False
+    try:
+        evidence = read_evidence(pdf)
+        same = evidence["study"]["content_digest"] == StudyFile(study_path).load()\
+            .content_digest()
+    except (StudyInputError, KeyError):
+        same = False
+    if not same:
+        raise StudyInputError(
+            f"'{pdf}' already carries {n} signature(s) for another state of the study: "
+            "write the new report to another file with -o (signed evidence is never "
+            "overwritten)")
+    return True
+
+
 def run(args) -> int:
     from studykit.report.pdf import build_report
 
     out = Path(args.output) if args.output else Path(args.study).with_suffix(".pdf")
     progress = _progress(args.quiet)
-    if not (args.sign and args.sign_existing):
+    passphrase = None
+    if args.sign:
+        passphrase = os.environ.get(args.passphrase_env)
+        if passphrase is None:
+            raise StudyInputError(
+                f"the passphrase of '{args.sign}' is not set: put it into the environment "
+                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
+    sign_existing = bool(args.sign and (args.sign_existing or _signed_same_study(out,
+                                                                               args.study)))
+    if args.sign and sign_existing and not args.sign_existing:
+        print(f"{out} is already signed for this study state: adding a further signature.")
+    if not sign_existing:
         info = build_report(args.study, out, progress=progress)
         print(f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
               f"{info.seconds:.1f} s).")
@@ -74,11 +113,6 @@ def run(args) -> int:
     if args.sign:
         from studykit.report.signing import sign_report
 
-        passphrase = os.environ.get(args.passphrase_env)
-        if passphrase is None:
-            raise StudyInputError(
-                f"the passphrase of '{args.sign}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
         name = args.name or _common_name(args.sign, passphrase) or "unnamed signer"
         sig = sign_report(out, out, args.sign, passphrase, role=args.role, name=name)
         print(f"Signed {out} as {sig.field_name} ({sig.reason}; certificate {sig.subject})"

@@ -33,6 +33,7 @@ __all__ = [
     "make_demo_certificate",
     "sign_report",
     "next_field_name",
+    "signature_count",
 ]
 
 #: Organisation written into every demo certificate's subject.
@@ -178,14 +179,21 @@ def make_demo_certificate(out_dir, *, name: str = "Demo Signer", passphrase: str
                            cert.fingerprint(hashes.SHA256()).hex())
 
 
-def next_field_name(pdf_bytes: bytes) -> str:
-    """``SignatureN`` with N one more than the signatures already in the PDF."""
+def signature_count(pdf_bytes: bytes) -> int:
+    """How many signatures the PDF carries (0 when it cannot be parsed)."""
     import io
 
     from pyhanko.pdf_utils.reader import PdfFileReader
 
-    reader = PdfFileReader(io.BytesIO(pdf_bytes), strict=False)
-    return f"Signature{len(reader.embedded_signatures) + 1}"
+    try:
+        return len(PdfFileReader(io.BytesIO(pdf_bytes), strict=False).embedded_signatures)
+    except Exception:  # noqa: BLE001 - not a readable PDF: nothing signed in it
+        return 0
+
+
+def next_field_name(pdf_bytes: bytes) -> str:
+    """``SignatureN`` with N one more than the signatures already in the PDF."""
+    return f"Signature{signature_count(pdf_bytes) + 1}"
 
 
 def _boxes(pdf_bytes: bytes) -> dict:
