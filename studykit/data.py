@@ -31,6 +31,7 @@ import datetime as _dt
 import hashlib
 import io
 import math
+import os
 import re
 import zipfile
 from collections.abc import Callable, Iterator
@@ -547,6 +548,11 @@ def read_measurements(
     >>> bore.rows.tolist()
     [2, 3, 4, 5]
     """
+    if not isinstance(path, str | os.PathLike):
+        raise StudyInputError(
+            f"`path` must be the file's path (text or Path), not {type(path).__name__}; for "
+            "file content in memory use read_measurements_bytes(data, filename)", value=path,
+        )
     p = Path(path)
     if not p.exists():
         raise DataFileError(
@@ -1375,7 +1381,8 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
     if subgroup_size is not None:
         if isinstance(subgroup_size, bool) or not isinstance(subgroup_size, int | np.integer):
             try:
-                ok = float(subgroup_size).is_integer()
+                ok = (not isinstance(subgroup_size, bool)
+                      and float(subgroup_size).is_integer())
             except (TypeError, ValueError):
                 ok = False
             if not ok:

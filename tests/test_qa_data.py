@@ -11,7 +11,7 @@ import pytest
 
 from studykit.cli import main
 from studykit.data import read_measurements
-from studykit.errors import DataFileError
+from studykit.errors import DataFileError, StudyInputError
 
 
 def write(tmp_path, name, text, newline=""):
@@ -145,3 +145,21 @@ def test_nan_text_is_not_a_value(tmp_path):
     path = write(tmp_path, "t.csv", "x\n1\nNaN\n2\n")
     with pytest.raises(DataFileError, match=r"row 3, column 'x': 'NaN' is not a measured value"):
         read_measurements(path)
+
+
+# -- Python API misuse ----------------------------------------------------------------------------
+
+
+def test_subgroup_size_true_is_refused(tmp_path):
+    # defect: subgroup_size=True was taken as 1
+    path = write(tmp_path, "t.csv", "x\n1\n2\n")
+    with pytest.raises(StudyInputError, match=r"`subgroup_size` must be a whole number, not "
+                                              r"'True'"):
+        read_measurements(path, subgroup_size=True)
+
+
+@pytest.mark.parametrize("bad", [None, 5, b"x\n1\n"])
+def test_path_of_wrong_type_is_a_clear_error(bad):
+    # defect: TypeError from pathlib ("expected str, bytes or os.PathLike object")
+    with pytest.raises(StudyInputError, match=r"`path` must be the file's path"):
+        read_measurements(bad)
