@@ -119,6 +119,9 @@ def test_cli_keygen_report_sign(signed, tmp_path, monkeypatch, capsys):
     assert "Signature2" in capsys.readouterr().out
     with open(tmp_path / "r.pdf", "rb") as f:
         assert len(PdfFileReader(f).embedded_signatures) == 2
+    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"),
+                 "--quiet"]) == 2
+    assert "never overwritten" in capsys.readouterr().err
     # after a change to the study, the signed PDF is not overwritten
     StudyFile(tmp_path / "s.study").exclude("bore_diameter", "4", reason="late", who="t")
     assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",

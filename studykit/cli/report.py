@@ -102,6 +102,14 @@ def run(args) -> int:
                                                                                args.study)))
     if args.sign and sign_existing and not args.sign_existing:
         print(f"{out} is already signed for this study state: adding a further signature.")
+    if not sign_existing and out.exists():
+        from studykit.report.signing import signature_count
+
+        n = signature_count(out.read_bytes())
+        if n:
+            raise StudyInputError(
+                f"'{out}' carries {n} signature(s): write the new report to another file with "
+                "-o (signed evidence is never overwritten)")
     if not sign_existing:
         info = build_report(args.study, out, progress=progress)
         print(f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
