@@ -44,6 +44,24 @@ def _fmt(v, digits: int = 4) -> str:
     return f"{v:.{digits}g}"
 
 
+def _span(*columns, pad: float = 0.08, floor: float | None = None) -> tuple[float, float]:
+    """(low, high) over the finite values of some columns, padded; (0, 1) when empty.
+
+    Figures use fixed ranges set here: a bokeh ``DataRange1d`` does not follow data that
+    arrive as patches in a live ``BokehModel`` view.
+    """
+    vals = [float(v) for col in columns for v in col
+            if v is not None and math.isfinite(float(v))]
+    if not vals:
+        return 0.0, 1.0
+    lo, hi = min(vals), max(vals)
+    width = hi - lo or (abs(hi) * 0.1 or 1.0)
+    lo, hi = lo - pad * width, hi + pad * width
+    if floor is not None and lo < floor <= min(vals):
+        lo = floor - 0.02 * width
+    return lo, hi
+
+
 def _label(v) -> str:
     return str(v.item() if hasattr(v, "item") else v)
 
@@ -170,6 +188,7 @@ class ControlChartView:
             HoverTool,
             Legend,
             LegendItem,
+            Range1d,
             TapTool,
         )
         from bokeh.plotting import figure
@@ -182,7 +201,8 @@ class ControlChartView:
                                name=f"{part}_limits")
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
         fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
-                     toolbar_location="above", x_axis_label="Subgroup (production order)")
+                     toolbar_location="above", x_axis_label="Subgroup (production order)",
+                     x_range=Range1d(0, 1), y_range=Range1d(0, 1))
         fig.min_border_right = 16
         zone = fig.varea("x", "lower_zone", "upper_zone", source=lim,
                          fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.10)
@@ -273,7 +293,13 @@ class ControlChartView:
             # whole document again (about 0.1 s)
             fig.xaxis[0].ticker.ticks = ticks
             fig.xaxis.major_label_overrides = {t_: self._labels[t_ - 1] for t_ in ticks}
-            fig.x_range.start, fig.x_range.end = 0.3, n + 1.9
+            fig.x_range.start, fig.x_range.end = 0.3, n + 0.7
+            lim = c["limits"]
+            fig.y_range.start, fig.y_range.end = _span(
+                c["points"]["value"], lim["lcl"], lim["ucl"], lim["lower_warning"],
+                lim["upper_warning"])
+            fig.xaxis.axis_label = ("Value (production order)" if cols["kind"] == "imr"
+                                    else "Subgroup (production order)")
         return cols
 
     def show_warning_limits(self, show: bool) -> None:
@@ -372,6 +398,7 @@ class ShapeView:
             HoverTool,
             Legend,
             LegendItem,
+            Range1d,
             Span,
         )
         from bokeh.plotting import figure
@@ -380,6 +407,7 @@ class ShapeView:
         self.model = ColumnDataSource({"x": [], "y": []})
         self.compare = ColumnDataSource({"x": [], "y": []})
         h = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
+                   x_range=Range1d(0, 1), y_range=Range1d(0, 1),
                    title="Distribution of the values used", y_axis_label="Density")
         bars = h.quad(left="left", right="right", top="top", bottom=0, source=self.bars,
                       fill_color=theme.OKABE_ITO["blue"], fill_alpha=0.30,
@@ -412,6 +440,7 @@ class ShapeView:
         self.points = ColumnDataSource({"value": [], "z": [], "line": [], "lower": [],
                                         "upper": []})
         p = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
+                   x_range=Range1d(0, 1), y_range=Range1d(0, 1),
                    title="Normal probability plot", y_axis_label="Cumulative %")
         band = p.harea(y="z", x1="lower", x2="upper", source=self.points,
                        fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.18)
@@ -448,6 +477,9 @@ class ShapeView:
         unit = f" ({result.unit})" if result.unit else ""
         self.histogram.xaxis.axis_label = result.characteristic + unit
         self.histogram.x_range.start, self.histogram.x_range.end = cols["range"]
+        top = _span(cols["bars"]["top"], cols["model"]["y"], cols["compare"]["y"], [0.0],
+                    pad=0.06)[1]
+        self.histogram.y_range.start, self.histogram.y_range.end = 0.0, top
         pp = result.probability_plot
         if pp is None:
             self.points.data = {"value": [], "z": [], "line": [], "lower": [], "upper": []}
@@ -465,6 +497,10 @@ class ShapeView:
         self.probability.yaxis[0].ticker.ticks = [t for t, _ in ticks]
         self.probability.yaxis.major_label_overrides = {t: f"{q * 100:g}" for t, q in ticks}
         self.probability.xaxis.axis_label = result.characteristic + unit
+        self.probability.x_range.start, self.probability.x_range.end = _span(
+            self.points.data["value"], self.points.data["line"], pad=0.05)
+        self.probability.y_range.start, self.probability.y_range.end = (
+            float(z.min()) - 0.3, float(z.max()) + 0.3)
         return cols
 
 
@@ -512,13 +548,22 @@ class IntervalView:
     """Capability indices as intervals against the required threshold."""
 
     def __init__(self, *, height: int = 250):
-        from bokeh.models import ColumnDataSource, HoverTool, Label, Legend, LegendItem, Span
+        from bokeh.models import (
+            ColumnDataSource,
+            HoverTool,
+            Label,
+            Legend,
+            LegendItem,
+            Range1d,
+            Span,
+        )
         from bokeh.plotting import figure
 
         self.rows = ColumnDataSource({"name": [], "estimate": [], "lower": [], "upper": [],
                                       "lower_bound": [], "judged": []})
         self.band = ColumnDataSource({"name": [], "low": [], "high": []})
         f = figure(height=height, sizing_mode="stretch_width", y_range=["—"], tools="save",
+                   x_range=Range1d(0, 1),
                    x_axis_label="Index value")
         band = f.hbar(y="name", left="low", right="high", height=0.35, source=self.band,
                       fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.35,

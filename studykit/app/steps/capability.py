@@ -32,6 +32,12 @@ _PLANNABLE = ("cp", "cpk", "pp", "ppk", "cpu", "cpl", "ppu", "ppl")
 def verdict_html(result) -> str:
     """The verdict sentence in a coloured box with its chip."""
     v = result.verdict
+    if v is None and result.attribute:
+        return ('<div class="sk-verdict-box" style="border-color:'
+                f'{theme.VERDICTS["pending"].color}">{verdict_chip(None)}'
+                '<div style="margin-top:6px">Counted data are judged by their defective (or '
+                "defect) rate with its confidence interval below; no capability index "
+                "criterion applies.</div></div>")
     if v is None:
         text = ("No verdict: " + "; ".join(result.warnings)) if result.warnings else (
             "No verdict: the characteristic has no specification limit to judge against.")
@@ -100,8 +106,29 @@ def attribute_html(result) -> str:
     if ac is None:
         return ""
     d = ac.to_dict()
-    facts = [(k.replace("_", " "), fmt(v, 4) if isinstance(v, float) else esc(v))
-             for k, v in d.items()]
+    level = f"{float(d.get('level', 0.95)) * 100:g}%"
+    facts = []
+    shown = set()
+
+    def add(label, text, *keys):
+        if all(d.get(k) is not None for k in keys):
+            facts.append((label, text))
+            shown.update(keys)
+
+    add("Inspected / defectives", f"{d.get('inspected')} / {d.get('defectives')} in "
+        f"{d.get('n_subgroups')} lots", "inspected", "defectives", "n_subgroups")
+    if d.get("defective_rate") is not None:
+        add("Defective rate", f"{d['defective_rate'] * 100:.3f} % ({level} interval "
+            f"{(d.get('defective_rate_lower') or 0) * 100:.3f} – "
+            f"{(d.get('defective_rate_upper') or 0) * 100:.3f} %)",
+            "defective_rate", "defective_rate_lower", "defective_rate_upper")
+    add("PPM defective", f"{fmt(d.get('ppm_defective'), 0)} (upper {level} bound "
+        f"{fmt(d.get('ppm_defective_upper_95'), 0)})", "ppm_defective", "ppm_defective_upper_95")
+    add("Process Z", f"{fmt(d.get('z_process'), 2)} (lower {level} bound "
+        f"{fmt(d.get('z_process_lower_95'), 2)})", "z_process", "z_process_lower_95")
+    shown.update({"level", "defective_rate_upper_95"})
+    facts += [(k.replace("_", " ").capitalize(), fmt(v, 4) if isinstance(v, float) else esc(v))
+              for k, v in d.items() if k not in shown]
     return ('<div class="sk-panel-title">Counted data</div><dl class="sk-facts">'
             + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>")
 

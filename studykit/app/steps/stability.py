@@ -174,8 +174,16 @@ class StabilityStep:
                   if res.within_sigma is not None else _NONE),
                  ("Rule signals", f"{signals} on the current limits" if signals
                   else "none on the current limits")]
+        notes = list(res.phase1.warnings)
+        if res.options.phase1 == "off" and res.phase1.stopped == "iteration_cap":
+            # the workbook never removes on its own: "round limit reached" is by design here
+            notes = [w for w in notes if "round limit" not in w]
+            notes.append(f"{signals} rule signal{'s' if signals != 1 else ''} on the current "
+                         "limits: look at the marked subgroups, and use 'Find rule-breaking "
+                         "subgroups' or remove a subgroup with its reason where the cause is "
+                         "known.")
         warn = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
-                       f"</span>{esc(w)}</div>" for w in res.phase1.warnings)
+                       f"</span>{esc(w)}</div>" for w in notes)
         self.summary.value = ('<div class="sk-summary">' + " · ".join(
             f'<span class="sk-muted">{esc(k)}</span> <b>{esc(v)}</b>' for k, v in facts)
             + "</div>" + warn)
