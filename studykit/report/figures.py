@@ -7,6 +7,20 @@ values, chart limits, fitted model and bounds; nothing is estimated here) and re
 
 :func:`figure_png` turns a figure into PNG bytes without a timestamp or software tag, so the same
 study always gives the same image bytes (and the same PDF).
+
+Examples
+--------
+>>> from studykit.analysis import analyze_characteristic
+>>> from studykit.data import CharacteristicData
+>>> from studykit.study import Characteristic
+>>> x = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1, 50.3, 49.2]
+>>> res = analyze_characteristic(CharacteristicData("x", None, x),
+...                              Characteristic("x", lsl=40, usl=60))
+>>> len(control_chart_figure(res).axes), len(shape_figure(res).axes) >= 2
+(2, True)
+>>> png = figure_png(control_chart_figure(res), dpi=50)
+>>> png[1:4] == b"PNG", png == figure_png(control_chart_figure(res), dpi=50)
+(True, True)
 """
 
 from __future__ import annotations

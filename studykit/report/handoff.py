@@ -61,6 +61,15 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "") -> bytes:
 
     The frozen limits are drawn; a table under the chart has rows for date, time, operator,
     the values of each subgroup and remarks, one column per subgroup.
+
+    Examples
+    --------
+    >>> from studykit.stats.charts import control_chart
+    >>> from studykit.stats.phase2 import freeze
+    >>> chart = control_chart([49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1])
+    >>> pdf = chart_form_pdf(freeze(chart, characteristic="bore depth", unit="mm"))
+    >>> pdf[:5]
+    b'%PDF-'
     """
     from reportlab.lib.pagesizes import A4, landscape
     from reportlab.lib.units import mm

@@ -127,6 +127,14 @@ def make_demo_certificate(out_dir, *, name: str = "Demo Signer", passphrase: str
     RSA 2048 key; subject ``CN=<name>, O=studykit demo certificate - not for production``;
     BasicConstraints CA (so the certificate can be its own trust root for ``verify --trust``);
     KeyUsage digitalSignature + contentCommitment (non-repudiation), as PDF signing expects.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     cert = make_demo_certificate(d, name="Pat Example", passphrase="example only")
+    >>> "not for production" in cert.subject, cert.p12_path.endswith("Pat_Example.p12")
+    (True, True)
     """
     from cryptography import x509
     from cryptography.hazmat.primitives import hashes, serialization
