@@ -178,3 +178,14 @@ def test_csv_as_study_is_one_clear_line():
     assert r.returncode == 2
     assert "is not a studykit study file" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
+
+
+def test_new_without_specs_is_refused_and_lists_the_data(tmp_path, capsys):
+    # defect: `study new` without --specs made a study with no characteristics, which can never
+    # gain any (the characteristics of a study file are fixed when it is created)
+    data = ROOT / "demo_data" / "pump_housing_pilot.csv"
+    assert cli("study", "new", tmp_path / "x.study", "--data", data, "--who", "QA") == 2
+    err = capsys.readouterr().err
+    assert "give the specifications with --specs SPECS.csv" in err
+    assert "'bore_diameter', 'face_runout', 'flange_thickness'" in err
+    assert not (tmp_path / "x.study").exists()

@@ -2,7 +2,7 @@
 
 Subcommands::
 
-    studykit study new STUDYFILE --data FILE [--specs SPECS.csv] [--title T] [--part P]
+    studykit study new STUDYFILE --data FILE --specs SPECS.csv [--title T] [--part P]
     studykit study show STUDYFILE [--json]
     studykit study exclude STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
     studykit study restore STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
@@ -54,7 +54,9 @@ def register(subparsers) -> None:
     new.add_argument("--data", required=True, metavar="FILE", action="append",
                      help="measurement file (CSV/XLSX); repeat for a study over several files "
                      "(each characteristic is taken from the file that holds it)")
-    new.add_argument("--specs", metavar="SPECS.csv", help="specifications table (CSV)")
+    new.add_argument("--specs", metavar="SPECS.csv",
+                     help="specifications table (CSV), required: the study holds the "
+                     "characteristics listed there")
     new.add_argument("--title", help="study title (default: the data file's name)")
     new.add_argument("--part", default="", help="part number or name")
     new.add_argument("--supplier", default="", help="supplier")
@@ -136,7 +138,15 @@ def run_new(args) -> int:
         raise StudyInputError(f"two data files are named '{dup[0]}': rename one of them")
     readings = [read_measurements(p) for p in paths]
     chars, criteria = ((), {})
-    if args.specs:
+    if not args.specs:
+        # a study file never gains characteristics later, so one without specs is a dead end
+        names_in_data = [n for m in readings for n in m.names]
+        raise StudyInputError(
+            "give the specifications with --specs SPECS.csv (columns characteristic, unit, lsl, "
+            "usl, target, ...): a study holds only the characteristics listed there. The data "
+            "have: " + (", ".join(f"'{n}'" for n in names_in_data) or "no characteristics")
+        )
+    else:
         specs, spec_criteria = read_specs(args.specs)
         matched = []
         for c in specs:
