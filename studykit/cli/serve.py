@@ -69,6 +69,25 @@ def is_loopback(host: str) -> bool:
         return False
 
 
+def demo_working_copy(original: Path) -> Path:
+    """A working copy of the demo study, so the workbook never writes into demo_data/.
+
+    The copy lives in ``$STUDYKIT_HOME/demo/`` (default ``~/.studykit/demo/``) and is made once;
+    later runs reopen it, so work done in the demo is not lost. Delete it to start afresh.
+    """
+    import shutil
+
+    home = Path(os.environ.get("STUDYKIT_HOME") or Path.home() / ".studykit")
+    folder = home / "demo"
+    folder.mkdir(parents=True, exist_ok=True)
+    copy = folder / original.name
+    if not copy.exists():
+        tmp = copy.with_name(copy.name + ".tmp")
+        shutil.copyfile(original, tmp)
+        os.replace(tmp, copy)
+    return copy
+
+
 def find_demo_study(demo_dir: Path = DEMO_DIR) -> Path | None:
     """The demo study file (first ``demo_data/*.study``), or None when it is not made yet."""
     found = sorted(demo_dir.glob("*.study")) if demo_dir.is_dir() else []
@@ -144,6 +163,10 @@ def run(args) -> int:
         if study is None:
             print("studykit serve: no demo study yet (demo_data/*.study); the workbook opens "
                   "with no study loaded. Run demo_data/make_demo.py to make it.", file=sys.stderr)
+        else:
+            study = demo_working_copy(study)
+            print(f"demo study: {study}\n  (a working copy: your decisions and sign-offs are "
+                  "kept there; the original in demo_data/ is never changed)")
     elif args.study:
         study = Path(args.study).expanduser().resolve()
         if not study.is_file():
