@@ -684,8 +684,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     chart = res.chart
     facts = [
         ["Specification", _spec_text(c), "Criterion", _esc(study.criteria_for(name).describe())],
-        ["Values used", f"{res.n} in {res.subgroups} subgroups"
-         + (f" of {res.subgroup_size}" if res.subgroup_size else ""),
+        ["Values used", (f"{res.n} individual values" if chart.kind == "imr" else
+                         f"{res.n} in {res.subgroups} subgroups"
+                         + (f" of {res.subgroup_size}" if res.subgroup_size else "")),
          "Removed", f"{len(res.phase1.removals)} subgroup(s)"
          + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
         ["Centre" if res.attribute else "Mean", _num(res.mean, 6), "Chart",
