@@ -94,7 +94,28 @@ def fmt(v, digits: int = 3) -> str:
     return f"{f:.{digits}f}"
 
 
-def verdict_chip(meets, *, text: str | None = None) -> str:
+def verdict_kind(verdict) -> tuple[str, str]:
+    """(theme verdict key, word) for a :class:`~studykit.stats.capability.Verdict` or None.
+
+    "More data needed" (caution) when the estimate meets the threshold but its lower bound
+    does not: the data do not yet demonstrate the requirement, nor refute it.
+
+    Examples
+    --------
+    >>> verdict_kind(None)
+    ('pending', 'Not judged')
+    """
+    if verdict is None or verdict.meets is None:
+        return "pending", "Not judged"
+    if verdict.meets:
+        return "pass", "Meets"
+    if (verdict.basis == "lower_bound" and verdict.estimate is not None
+            and verdict.estimate >= verdict.threshold):
+        return "caution", "More data needed"
+    return "fail", "Does not meet"
+
+
+def verdict_chip(meets, *, text: str | None = None, kind: str | None = None) -> str:
     """Our verdict chip: symbol, word and colour (never colour alone).
 
     ``meets`` True -> "Meets", False -> "Does not meet", None -> "Not judged".
@@ -106,6 +127,7 @@ def verdict_chip(meets, *, text: str | None = None) -> str:
     """
     key, word = {True: ("pass", "Meets"), False: ("fail", "Does not meet")}.get(
         meets, ("pending", "Not judged"))
+    key = kind or key
     v = theme.VERDICTS[key]
     return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
             f'border-color:{v.color}">{v.symbol} {esc(text or word)}</span>')
@@ -248,6 +270,7 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
             except Exception as exc:  # noqa: BLE001 - shown in the row
                 row["error"] = str(exc)
             else:
+                row["kind"] = verdict_kind(session.result(name).verdict)
                 row.update(verdict=head["meets"], index=head["index"],
                            estimate=head["estimate"], lower_bound=head["lower_bound"],
                            removed=head["removed"], analysed=True,
@@ -399,7 +422,8 @@ class OverviewPanel(widgets.VBox):
         elif not r["analysed"]:
             verdict = '<span class="sk-muted">not analysed yet</span>'
         else:
-            verdict = verdict_chip(r["verdict"])
+            kind, word = r.get("kind") or ("pending", "Not judged")
+            verdict = verdict_chip(r["verdict"], text=word, kind=kind)
         index_text = (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
                       if r["analysed"] and r["estimate"] is not None else "—")
         values = [f'<span title="{esc(r["verdict_text"])}">{verdict}</span>', index_text,

@@ -20,6 +20,7 @@ from studykit.app.overview import (
     panel,
     panel_css,
     verdict_chip,
+    verdict_kind,
     when_shown,
     workspace,
 )
@@ -44,16 +45,29 @@ def verdict_html(result) -> str:
         meets = None
     else:
         text, meets = v.text, v.meets
-    key = {True: "pass", False: "fail"}.get(meets, "pending")
+    key, word = verdict_kind(v)
     colour = theme.VERDICTS[key].color
     crit = result.criteria
     label = (crit.get("index") or "").capitalize()
     basis = ("lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
              if crit.get("basis") == "lower_bound" else "estimate")
     return (f'<div class="sk-verdict-box" style="border-color:{colour}">'
-            f"{verdict_chip(meets)}<div style=\"margin-top:6px\">{esc(text)}</div>"
+            f"{verdict_chip(meets, text=word, kind=key)}"
+            f"<div style=\"margin-top:6px\">{esc(text)}</div>"
             f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
             f"≥ {fmt(crit.get('threshold'), 2)}</div></div>")
+
+
+def _ppm(v) -> str:
+    """PPM for a table: small values stay visible ('< 0.01'), large ones get separators."""
+    if v is None:
+        return "—"
+    v = float(v)
+    if v == 0:
+        return "0"
+    if v < 0.01:
+        return "&lt; 0.01"
+    return f"{v:,.2f}" if v < 100 else f"{v:,.0f}"
 
 
 def ppm_html(result) -> str:
@@ -66,8 +80,12 @@ def ppm_html(result) -> str:
              cap.ppm_overall),
             ("Observed in the data", cap.ppm_observed_below, cap.ppm_observed_above,
              cap.ppm_observed)]
-    body = "".join(f"<tr><td>{esc(n)}</td><td class=\"num\">{fmt(b, 1)}</td>"
-                   f'<td class="num">{fmt(a, 1)}</td><td class="num"><b>{fmt(t, 1)}</b></td></tr>'
+    has_lsl = result.spec.get("lsl") is not None
+    has_usl = result.spec.get("usl") is not None
+    body = "".join(f"<tr><td>{esc(n)}</td>"
+                   f'<td class="num">{_ppm(b) if has_lsl else "no LSL"}</td>'
+                   f'<td class="num">{_ppm(a) if has_usl else "no USL"}</td>'
+                   f'<td class="num"><b>{_ppm(t)}</b></td></tr>'
                    for n, b, a, t in rows)
     return ('<div class="sk-panel-title">Parts per million outside the limits</div>'
             '<table class="sk-table sk-ppm"><thead><tr><th></th><th>Below LSL</th>'

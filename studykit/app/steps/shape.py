@@ -18,6 +18,7 @@ from studykit.app.overview import (
     panel,
     panel_css,
     verdict_chip,
+    verdict_kind,
     when_shown,
     workspace,
 )
@@ -66,8 +67,10 @@ def effect_html(before, after) -> str:
         if v is None:
             return "<td>—</td><td>—</td><td>—</td><td>" + verdict_chip(None) + "</td>"
         label = r.model.label if r.model is not None else "—"
+        kind, word = verdict_kind(v)
         return (f"<td>{esc(label)}</td><td class=\"num\">{fmt(v.estimate)}</td>"
-                f'<td class="num">{fmt(v.lower_bound)}</td><td>{verdict_chip(v.meets)}</td>')
+                f'<td class="num">{fmt(v.lower_bound)}</td>'
+                f"<td>{verdict_chip(v.meets, text=word, kind=kind)}</td>")
 
     index = (before.verdict.index if before.verdict is not None else "index").capitalize()
     return ('<table class="sk-table sk-effect"><thead><tr><th></th><th>Model</th>'
