@@ -29,7 +29,7 @@ WORKSPACE_KEY = "studykit.workspace"
 
 PANEL_CSS = f"""
 <style>
-.sk-toolbar {{ gap: 14px; align-items: flex-end; padding: 0 0 12px 0; margin-bottom: 12px;
+.sk-toolbar {{ gap: 14px; align-items: flex-end; padding: 0 0 12px 0; margin: 14px 0 12px 0;
   border-bottom: 1px solid {theme.RULE}; flex-wrap: wrap; }}
 .sk-toolbar .widget-label {{ color: {theme.INK_SOFT}; }}
 .sk-field-label {{ font-size: 12px; color: {theme.INK_SOFT}; text-transform: uppercase;
