@@ -262,3 +262,10 @@ def test_stability_tick_needs_every_characteristic_quiet(wb):
                          and stab.ws.session.result(n).chart.dispersion.signals)
                 for n in stab.ws.session.names)
     assert stab.is_done(wb.context) is quiet
+
+
+def test_header_shows_the_lock_of_a_study_approved_earlier(study_path):
+    StudySession(study_path).sign(who="M. Approver", role="approved", decision="approve")
+    wb = build_workbook(study_path, steps=[IntakeStep(), StabilityStep()])
+    wb.select("stability")
+    assert wb.context.state == "Approved · locked"

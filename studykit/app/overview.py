@@ -219,6 +219,9 @@ def workspace(context):
         return ws
     ws = Workspace(context, StudySession(path))
     context.extra[WORKSPACE_KEY] = ws
+    state = ws.session.state_text()
+    if state != "Study open" and context.state != state:
+        context.update(state=state)  # the header shows "Approved · locked" from the start
     return ws
 
 
