@@ -1213,6 +1213,49 @@ def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
                 raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
 
 
+def _check_unsaved_formulas(src, table) -> None:
+    """Refuse formula cells whose results were never saved in the workbook.
+
+    A workbook written by a program that does not calculate (a script, some exports) stores
+    formulas without their results; read for values, those cells look empty, so a computed
+    column would be skipped as empty or its cells counted as missing. Only called when some
+    cells or columns came out empty, since it reads the sheet a second time.
+    """
+    import openpyxl
+
+    handle, handle_values = src.binary(), src.binary()
+    try:
+        wb = openpyxl.load_workbook(handle, read_only=True, data_only=False)
+        wb_values = openpyxl.load_workbook(handle_values, read_only=True, data_only=True)
+    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError):
+        handle.close()  # the first reading worked; this is only a check
+        handle_values.close()
+        return
+    try:
+        ws, ws_values = wb[table.sheet], wb_values[table.sheet]
+        width = len(table.header)
+        start = table.header_row + 1
+        pairs = zip(ws.iter_rows(min_row=start, max_col=width, values_only=True),
+                    ws_values.iter_rows(min_row=start, max_col=width, values_only=True),
+                    strict=False)
+        for r, (formulas, values) in enumerate(pairs, start=start):
+            for j, f in enumerate(formulas or ()):
+                v = values[j] if values is not None and j < len(values) else None
+                if v is None and isinstance(f, str) and f.startswith("="):
+                    raise DataFileError(
+                        f"the cell holds the formula '{_show(f)}' but no stored result: the "
+                        "workbook was saved by a program that does not calculate formulas, so "
+                        "the value is unknown. Open the workbook in a spreadsheet program, let "
+                        "it calculate, save it, and load it again (or paste the values).",
+                        file=src.name, row=r, column=table.header[j] or _col_letter(j), value=f,
+                    )
+    finally:
+        wb.close()
+        wb_values.close()
+        handle.close()
+        handle_values.close()
+
+
 def _bad_number(ctx: _Ctx, raw, row: int, column: str) -> DataFileError:
     text = str(raw).strip()
     if _summary_word(text):
@@ -1558,6 +1601,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
                                 n_idx, subgroup_size, notes, warnings_)
     characteristics, n_rows = result
     _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
+    if src.kind == "xlsx" and (any(c.n_missing for c in characteristics)
+                               or any(n.startswith("empty columns skipped") for n in notes)):
+        _check_unsaved_formulas(src, table)
     for col, k in ctx.text_numbers.items():
         notes.append(
             f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"

@@ -163,3 +163,64 @@ def test_path_of_wrong_type_is_a_clear_error(bad):
     # defect: TypeError from pathlib ("expected str, bytes or os.PathLike object")
     with pytest.raises(StudyInputError, match=r"`path` must be the file's path"):
         read_measurements(bad)
+
+
+# -- workbooks whose formulas were never calculated ----------------------------------------------
+
+
+def _formula_workbook(path, *, cached: bool):
+    """A workbook with a computed column 'Width [mm]' = 2 x bore; openpyxl stores formulas
+    without results, so `cached=True` writes the results into the sheet XML as a spreadsheet
+    program would when saving."""
+    import zipfile
+
+    openpyxl = pytest.importorskip("openpyxl")
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])
+    bores = [12.001, 12.002, 12.003, 12.004]
+    for i, b in enumerate(bores, start=2):
+        ws.append([(i // 2), b, f"=B{i}*2"])
+    plain = path.with_suffix(".plain.xlsx")
+    wb.save(plain)
+    with zipfile.ZipFile(plain) as zin, zipfile.ZipFile(path, "w") as zout:
+        for item in zin.infolist():
+            data = zin.read(item.filename)
+            if cached and item.filename == "xl/worksheets/sheet1.xml":
+                text = data.decode()
+                for i, b in enumerate(bores, start=2):
+                    text = text.replace(f"<f>B{i}*2</f><v></v>", f"<f>B{i}*2</f><v>{2 * b!r}</v>")
+                data = text.encode()
+            zout.writestr(item, data)
+    return bores
+
+
+def test_formulas_without_stored_results_are_refused(tmp_path):
+    # defect: the computed column came out empty and was skipped with the note "empty columns
+    # skipped", so a characteristic vanished without an error
+    path = tmp_path / "calc.xlsx"
+    _formula_workbook(path, cached=False)
+    with pytest.raises(DataFileError, match=r"row 2, column 'Width \[mm\]': the cell holds the "
+                                            r"formula '=B2\*2' but no stored result"):
+        read_measurements(path)
+
+
+def test_formulas_with_stored_results_are_read(tmp_path):
+    path = tmp_path / "calc.xlsx"
+    bores = _formula_workbook(path, cached=True)
+    m = read_measurements(path)
+    assert m.get("Width").values.tolist() == [2 * b for b in bores]
+
+
+def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Subgroup", "Bore [mm]", "Spare"])
+    ws.append([1, 12.0, None])
+    ws.append([1, None, None])
+    ws.append([2, 12.2, None])
+    path = tmp_path / "gaps.xlsx"
+    wb.save(path)
+    m = read_measurements(path)
+    assert m.get("Bore").n_missing == 1 and m.names == ("Bore",)
