@@ -740,10 +740,14 @@ class StudyFile:
             return s
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
-                      *, who: str) -> int:
+                      *, who: str, override_lock: bool = False,
+                      override_reason: str | None = None) -> int:
         """Keep a result beside the study (e.g. ``kind="gauge_rr"``); returns its id.
 
-        Results are evidence, not decisions: they do not enter the content digest.
+        Results are evidence, not decisions: they do not enter the content digest. Because a
+        result changes what the study reports (a gauge R&R feeds the findings), it is refused
+        while the study is approved, unless ``override_lock=True`` with ``override_reason``:
+        then every sign-off still valid is voided first, as for any other change.
         """
         kind = (kind or "").strip()
         if not kind:
@@ -756,12 +760,16 @@ class StudyFile:
             study = self._load(conn)
             if characteristic is not None:
                 study.characteristic(characteristic)
+            on = f" to '{characteristic}'" if characteristic else ""
+            if study.is_locked:
+                voids = study._check_lock(f"attaching a {kind} result{on}", override_lock,
+                                          override_reason, who)
+                self._insert_decisions(conn, voids)
             at = now_utc()
             cur = conn.execute(
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
                 "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
             )
-            on = f" to '{characteristic}'" if characteristic else ""
             self._audit(conn, who=who, what=f"attach {kind} result{on}",
                         detail={"result_id": cur.lastrowid})
             return cur.lastrowid

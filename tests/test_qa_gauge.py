@@ -23,7 +23,7 @@ def demo_rows() -> tuple[list[str], list[list[str]]]:
 
 
 def run(capsys, path, *extra) -> tuple[int, str, str]:
-    code = main(["gauge", str(path), *ROLES, *extra])
+    code = main(["gauge", str(path), *ROLES, *map(str, extra)])
     out, err = capsys.readouterr()
     return code, out, err
 
@@ -88,3 +88,55 @@ def test_same_column_for_two_roles(capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert "--part and --appraiser both name column 'part'" in err
+
+
+# -- a gauge result attached to an approved study ------------------------------------------------
+
+
+@pytest.fixture
+def approved(tmp_path):
+    import shutil
+
+    path = tmp_path / "pilot.study"
+    shutil.copyfile(ROOT / "demo_data" / "pump_housing_pilot.study", path)
+    assert main(["study", "sign", str(path), "--role", "approved", "--decision", "approve",
+                 "--who", "Q. Lead"]) == 0
+    return path
+
+
+def test_gauge_result_refused_on_approved_study(approved, capsys):
+    # defect: the result was stored and changed the study's findings (gauge checked/failed)
+    # while the approval stayed valid, because results are outside the content digest
+    from studykit.store import StudyFile
+
+    capsys.readouterr()
+    before = len(StudyFile(approved).results("gauge_rr"))
+    code, _, err = run(capsys, DEMO, "--study", approved, "--characteristic",
+                       "flange_thickness")
+    assert code == 2 and "approved" in err and "--override-lock" in err
+    assert len(StudyFile(approved).results("gauge_rr")) == before
+    assert StudyFile(approved).load().is_locked
+
+
+def test_gauge_result_with_override_voids_approval(approved, capsys):
+    from studykit.store import StudyFile
+
+    capsys.readouterr()
+    code, out, _ = run(capsys, DEMO, "--study", approved, "--characteristic",
+                       "flange_thickness", "--override-lock", "gauge repaired, new study")
+    assert code == 0 and "Stored as result" in out
+    study = StudyFile(approved).load()
+    assert not study.is_locked
+    (state,) = study.signoff_state()
+    assert not state.valid and "gauge repaired" in state.why
+
+
+def test_design_error_names_the_file(tmp_path, capsys):
+    # defect: "the study is unbalanced ..." without the file it is about
+    header, body = demo_rows()
+    path = tmp_path / "short.csv"
+    with open(path, "w", newline="") as fh:
+        csv.writer(fh).writerows([header, *body[:-1]])
+    code, _, err = run(capsys, path)
+    assert code == 2
+    assert err.startswith("studykit gauge: error: file 'short.csv': the study is unbalanced")

@@ -52,6 +52,8 @@ def register(subparsers) -> None:
                    help="the characteristic the gauge measures (with --study)")
     p.add_argument("--who", metavar="NAME",
                    help="name recorded with the stored result (default: the login name)")
+    p.add_argument("--override-lock", metavar="REASON",
+                   help="store the result in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
 
@@ -169,11 +171,18 @@ def run(args) -> int:
             lsl, usl, limits_from = spec.lsl, spec.usl, args.characteristic
     table = read_gauge_table(args.file, part=args.part, appraiser=args.appraiser,
                              value=args.value, trial=args.trial, sheet=args.sheet)
-    result = gauge_rr(
-        table["values"], table["parts"], table["appraisers"], trials=table["trials"],
-        alpha_interaction=args.alpha_interaction, study_variation=args.study_variation,
-        lsl=lsl, usl=usl, confidence=args.confidence,
-    )
+    try:
+        result = gauge_rr(
+            table["values"], table["parts"], table["appraisers"], trials=table["trials"],
+            alpha_interaction=args.alpha_interaction, study_variation=args.study_variation,
+            lsl=lsl, usl=usl, confidence=args.confidence,
+        )
+    except StudyInputError as exc:
+        if exc.file is not None:
+            raise
+        # a design problem (unbalanced, too few parts...) belongs to the file: say which
+        raise type(exc)(exc.detail, file=Path(args.file).name, row=exc.row, column=exc.column,
+                        value=exc.value) from None
     stored_id = None
     if args.study:
         who = args.who or _login_name()
@@ -182,8 +191,10 @@ def run(args) -> int:
         payload["limits_from"] = "study" if limits_from else "command line"
         payload["columns"] = {"part": args.part, "appraiser": args.appraiser,
                               "value": args.value, "trial": args.trial}
+        lock = ({"override_lock": True, "override_reason": args.override_lock}
+                if args.override_lock else {})
         stored_id = StudyFile(args.study).attach_result(RESULT_KIND, args.characteristic,
-                                                        payload, who=who)
+                                                        payload, who=who, **lock)
     if args.json:
         out = result.to_dict()
         if stored_id is not None:
