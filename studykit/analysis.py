@@ -50,6 +50,11 @@ __all__ = [
 #: (common practice, no source).
 NORMALITY_ALPHA = 0.05
 
+#: How a saved study is analysed unless the caller says otherwise: the removals recorded in the
+#: study file (by a person, or accepted from a rule's proposal) govern, and nothing is removed
+#: silently. The workbook, the PDF, ``verify`` and ``analyze --study`` all use it, so they agree.
+STUDY_OPTIONS_PHASE1 = "off"
+
 #: AIC distance within which a model without an AD p-value still counts as supported.
 BAND_DELTA_AIC = 2.0
 
@@ -1037,12 +1042,16 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
     """Analyse characteristic ``name`` of a saved study with its recorded decisions.
 
     The chart and model settings recorded in the study (``set_chart``, ``set_model``) apply
-    unless ``options`` names others; manual exclusions are applied with their reasons.
+    unless ``options`` names others; recorded exclusions are applied with their reasons. Without
+    ``options`` no further subgroup is removed automatically (:data:`STUDY_OPTIONS_PHASE1`):
+    in a study, a removal is a recorded decision.
     ``gauge`` is the stored gauge R&R payload of this characteristic (see :func:`gauge_results`)
     or :data:`NO_GAUGE` when the study has none, which the findings then say.
     """
     spec = study.characteristic(name)
     measurements = measurements or read_study_measurements(study)
+    if options is None:
+        options = AnalysisOptions(phase1=STUDY_OPTIONS_PHASE1)
     data = measurements.get(name)
     sizes = None
     if spec.size_column:

@@ -35,8 +35,9 @@ def register(sub) -> None:
         help="chart kind (default: auto, from the subgroup size)",
     )
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
-    p.add_argument("--phase1", choices=["auto", "off"], default="auto",
-                   help="remove out-of-control subgroups automatically (default auto)")
+    p.add_argument("--phase1", choices=["auto", "off"], default=None,
+                   help="remove out-of-control subgroups automatically: default auto for a data "
+                   "FILE; off for --study, where only the removals recorded in the study count")
     p.add_argument("--rules", default="nelson",
                    help="run rules shown: nelson, western_electric, limits_only or a list "
                    "such as 1,2,5 (default nelson)")
@@ -64,7 +65,7 @@ def _options(args):
     return AnalysisOptions(
         chart=args.chart,
         subgroup_size=args.subgroup_size,
-        phase1=args.phase1,
+        phase1=args.phase1 or ("off" if getattr(args, "study", None) else "auto"),
         rules=args.rules,
         model=args.model,
         confidence=args.confidence,

@@ -97,6 +97,25 @@ class SignatureInfo:
         return dict(self.__dict__)
 
 
+def outside_event_loop(fn, /, *args, **kwargs):
+    """Call ``fn`` where no asyncio event loop runs in the calling thread.
+
+    pyHanko's synchronous API (``PdfSigner.sign_pdf``, ``validate_pdf_signature``) starts its own
+    event loop with ``asyncio.run``, which fails inside a Jupyter kernel (the workbook) or any
+    other running loop. There the call goes to a short-lived worker thread.
+    """
+    import asyncio
+
+    try:
+        asyncio.get_running_loop()
+    except RuntimeError:
+        return fn(*args, **kwargs)
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="studykit-pdf") as pool:
+        return pool.submit(fn, *args, **kwargs).result()
+
+
 def _slug(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", text).strip("_") or "signer"
 
@@ -294,7 +313,7 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     pdf_signer = signers.PdfSigner(meta, signer=signer, stamp_style=stamp,
                                    new_field_spec=new_field)
     out_buf = io.BytesIO()
-    pdf_signer.sign_pdf(w, output=out_buf)
+    outside_event_loop(pdf_signer.sign_pdf, w, output=out_buf)
     dst = Path(pdf_out)
     tmp = dst.with_name(dst.name + ".part")
     tmp.write_bytes(out_buf.getvalue())

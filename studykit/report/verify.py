@@ -179,6 +179,8 @@ def _signature_checks(pdf_bytes: bytes, trust) -> tuple[list[Check], bool]:
     from pyhanko.sign.validation import validate_pdf_signature
     from pyhanko_certvalidator import ValidationContext
 
+    from studykit.report.signing import outside_event_loop
+
     checks: list[Check] = []
     try:
         reader = PdfFileReader(io.BytesIO(pdf_bytes), strict=False)
@@ -215,7 +217,7 @@ def _signature_checks(pdf_bytes: bytes, trust) -> tuple[list[Check], bool]:
             if reason:
                 label += f" ({reason})"
             try:
-                st = validate_pdf_signature(sig, vc)
+                st = outside_event_loop(validate_pdf_signature, sig, vc)
             except Exception as exc:  # noqa: BLE001 - a broken signature is a failed check
                 checks.append(Check(label, "fail", f"cannot be validated: {exc}"))
                 continue
