@@ -931,38 +931,63 @@ def _row_estimates(fid, block, model):
     sd = block.std(axis=1)
     decades = fit_module._GRID_DECADES * math.log(10.0)
 
-    def evaluate(rows, u):
+    def evaluate(rows, u, start=None):
         ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
         with np.errstate(all="ignore"):
-            ll, params, _ = inner(ys)
+            ll, params, state = inner(ys, start)
             s = -np.exp(u) * dtheta(ys, params)
-        return np.where(np.isfinite(s), s, np.nan), params, np.where(np.isfinite(ll), ll, -np.inf)
+        return (np.where(np.isfinite(s), s, np.nan), params,
+                np.where(np.isfinite(ll), ll, -np.inf), state)
 
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
     # the grid of _profile_threshold, every sample at once
     grid = np.log(sd[rows])[:, None] + decades[None, :]
-    _, _, ll_grid = evaluate(np.repeat(rows, decades.size), grid.ravel())
+    grid_start = None
+    if fid == "weibull3" and rows.size:
+        # every sample comes from the same model: the Weibull shapes solved on one sample's
+        # grid start the Newton iteration of all the others (fewer steps, same roots)
+        data = block[rows[0]]
+        u0 = math.log(float(np.std(data))) + decades
+        ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
+        with np.errstate(all="ignore"):
+            _, _, st0 = inner(ys0)
+        k0 = np.asarray(st0[0])
+        if np.all(np.isfinite(k0) & (k0 > 0)):
+            grid_start = (np.tile(k0, rows.size),)
+    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(),
+                                         grid_start)
+    s_grid = s_grid.reshape(-1, decades.size)
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
+    if fid != "weibull3":  # warm starts help the Weibull shape's Newton iteration only
+        state = None
+    if state is not None:  # the inner solutions at the best grid points start the search
+        state = tuple(np.asarray(c).reshape(-1, decades.size) for c in state)
     # best at either end of the grid: the family's own estimator (its special cases)
     edge = (best == 0) | (best == decades.size - 1)
     fallback.update(rows[edge].tolist())
-    rows, grid, best = rows[~edge], grid[~edge], best[~edge]
+    rows, grid, best, s_grid = rows[~edge], grid[~edge], best[~edge], s_grid[~edge]
     at = np.arange(rows.size)
     lo_u, hi_u = grid[at, best - 1], grid[at, best + 1]
-    lo_s, _, _ = evaluate(rows, lo_u)
-    hi_s, _, _ = evaluate(rows, hi_u)
+    lo_s, hi_s = s_grid[at, best - 1], s_grid[at, best + 1]
+    if state is not None:
+        state = tuple(c[~edge][at, best] for c in state)
     bracketed = (lo_s > 0) & (hi_s < 0)
     fallback.update(rows[~bracketed].tolist())
     solve = np.flatnonzero(bracketed)
     lo_u, hi_u, lo_s, hi_s = lo_u[solve], hi_u[solve], lo_s[solve], hi_s[solve]
+    if state is not None:
+        state = tuple(c[solve] for c in state)
     root = np.full(rows.size, np.nan)
     side = np.zeros(solve.size)
     for _ in range(100):
         if not solve.size:
             break
         u = (lo_u * hi_s - hi_u * lo_s) / (hi_s - lo_s)
-        s_u, _, _ = evaluate(rows[solve], u)
+        s_u, _, _, new_state = evaluate(rows[solve], u, state)
+        if state is not None and new_state is not None:
+            state = tuple(np.where(np.isfinite(c) & (c > 0) if i == 0 else np.isfinite(c), c, o)
+                          for i, (c, o) in enumerate(zip(new_state, state, strict=True)))
         same_lo = s_u > 0
         # Illinois: halve the slope kept at the end that stayed put twice in a row
         hi_s = np.where(same_lo & (side == 1), hi_s / 2, hi_s)
@@ -976,13 +1001,15 @@ def _row_estimates(fid, block, model):
         keep = ~done
         solve, lo_u, lo_s, hi_u, hi_s, side = (solve[keep], lo_u[keep], lo_s[keep],
                                                hi_u[keep], hi_s[keep], side[keep])
+        if state is not None:
+            state = tuple(c[keep] for c in state)
     fallback.update(rows[solve].tolist())
     good = np.isfinite(root)
     rows, root = rows[good], root[good]
     ok = np.zeros(n_boot, dtype=bool)
     params = None
     if rows.size:
-        _, p, _ = evaluate(rows, root)
+        _, p, _, _ = evaluate(rows, root)
         params = {}
         for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
             params[k] = np.full(n_boot, np.nan)
