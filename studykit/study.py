@@ -1036,6 +1036,9 @@ class Study:
             self.characteristic(decision.characteristic)
         if decision.action == "set_model":
             _check_model(decision.payload.get("model", ""), error=StudyInputError)
+        if decision.action == "set_chart":
+            _check_chart_fits(self.characteristics[decision.characteristic],
+                              str(decision.payload.get("chart", "")).strip().lower())
         study = self
         if decision.action not in DIGEST_NEUTRAL_ACTIONS:
             what = f"{decision.action} on '{decision.characteristic}'"
@@ -1197,6 +1200,30 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             raise StudyInputError(
                 f"void_signoff: `signoff` ({idx!r}) must be the index of an existing sign-off"
             )
+
+
+def _check_chart_fits(c: Characteristic, chart: str) -> None:
+    """Refuse a chart the characteristic's kind of data cannot use (checked when set, so that
+    no later analysis fails on it)."""
+    if chart not in CHARTS:
+        raise SpecError(f"`chart` ({chart!r}) must be one of {', '.join(CHARTS)}")
+    has_limits = c.lsl is not None or c.usl is not None
+    if chart in ATTRIBUTE_CHARTS and has_limits:
+        raise SpecError(
+            f"'{c.name}' has specification limits, so it holds measured values; the {chart} "
+            "chart is for counted data (defectives or defects). Use auto, xbar_r, xbar_s or imr"
+        )
+    if chart not in ATTRIBUTE_CHARTS and not has_limits:
+        raise SpecError(
+            f"'{c.name}' has no specification limits, so it holds counted data; use a chart "
+            "for counts (p, np, c or u), or give it limits first"
+        )
+    if chart in ("p", "np", "u") and not c.size_column:
+        raise SpecError(
+            f"the {chart} chart of '{c.name}' needs the subgroup sizes, and its specification "
+            "names no size column (`size_column` in the specifications table); use the c chart "
+            "or create the study with a size column"
+        )
 
 
 def _check_criteria_fits(c: Characteristic, crit: Criteria) -> None:

@@ -189,3 +189,40 @@ def test_new_without_specs_is_refused_and_lists_the_data(tmp_path, capsys):
     assert "give the specifications with --specs SPECS.csv" in err
     assert "'bore_diameter', 'face_runout', 'flange_thickness'" in err
     assert not (tmp_path / "x.study").exists()
+
+
+# -- charts that the characteristic's data cannot use (defect: saved, then every analysis failed)
+
+
+@pytest.mark.parametrize("name, chart, message", [
+    ("bore_diameter", "p", "'bore_diameter' has specification limits, so it holds measured "
+                           "values; the p chart is for counted data"),
+    ("leak_test_defectives", "xbar_r", "'leak_test_defectives' has no specification limits, "
+                                       "so it holds counted data"),
+    ("bore_diameter", "imr", "'bore_diameter' has subgroups of up to 5 values"),
+    ("pull_off_force", "xbar-s", "'pull_off_force' has one value per subgroup"),
+])
+def test_set_chart_that_cannot_work_is_refused(study, capsys, name, chart, message):
+    before = StudyFile(study).load().chart_for(name)
+    assert cli("study", "set", study, name, "--chart", chart, "--reason", "x",
+               "--who", "QA") == 2
+    assert message in capsys.readouterr().err
+    assert StudyFile(study).load().chart_for(name) == before
+
+
+@pytest.mark.parametrize("name, chart", [("bore_diameter", "xbar-s"), ("pull_off_force", "auto"),
+                                         ("leak_test_defectives", "np"),
+                                         ("leak_test_defectives", "c")])
+def test_set_chart_that_fits_is_saved_and_analyses(study, capsys, name, chart):
+    assert cli("study", "set", study, name, "--chart", chart, "--reason", "x",
+               "--who", "QA") == 0
+    assert StudyFile(study).load().chart_for(name) == chart.replace("-", "_")
+    capsys.readouterr()
+    assert cli("analyze", "--study", study, "-c", name, "--json") == 0
+
+
+def test_python_api_attribute_chart_needs_size_column():
+    s = Study(title="t", data=b"lot,d\n1,2\n2,3\n", data_filename="x.csv",
+              characteristics=[Characteristic("d", chart="c")])
+    with pytest.raises(SpecError, match=r"the p chart of 'd' needs the subgroup sizes"):
+        s.with_decision(Decision("d", "set_chart", who="A", reason="r", payload={"chart": "p"}))

@@ -284,18 +284,7 @@ def _lock_kw(args) -> dict:
 def _subgroup_labels(study: Study, name: str) -> list[str]:
     """The subgroup labels of ``name`` as the analysis numbers them (from the characteristic's
     own data file of the study, after empty cells and with the spec's subgroup size)."""
-    import numpy as np
-
-    from studykit.analysis import read_study_measurements
-
-    spec = study.characteristic(name)
-    data = read_study_measurements(study).get(name)
-    values = np.asarray(data.values, dtype=float)
-    labels = [str(x) for x, v in zip(data.subgroups, values, strict=True) if not np.isnan(v)]
-    if spec.subgroup_size and not spec.is_attribute and len(set(labels)) == len(labels):
-        # consecutive values form subgroups 1, 2, ... (as studykit.analysis numbers them)
-        labels = [str(i // spec.subgroup_size + 1) for i in range(len(labels))]
-    return list(dict.fromkeys(labels))
+    return list(dict.fromkeys(_subgroup_labels_all(study, name)))
 
 
 def _check_subgroup(study: Study, name: str, label: str, action: str) -> None:
@@ -337,6 +326,44 @@ def run_decision(args) -> int:
     return 0
 
 
+def _check_chart_against_data(study: Study, name: str, chart: str) -> None:
+    """Refuse an individuals chart for subgrouped data and a subgroup chart for individuals."""
+    if chart not in ("imr", "xbar_r", "xbar_s"):
+        return
+    labels = _subgroup_labels_all(study, name)
+    counts: dict[str, int] = {}
+    for lab in labels:
+        counts[lab] = counts.get(lab, 0) + 1
+    largest = max(counts.values(), default=0)
+    if chart == "imr" and largest > 1:
+        big = next(k for k, v in counts.items() if v > 1)
+        raise StudyInputError(
+            f"'{name}' has subgroups of up to {largest} values (subgroup '{big}' has "
+            f"{counts[big]}); the individuals chart (imr) needs one value per subgroup. Use "
+            "auto, xbar_r or xbar_s"
+        )
+    if chart in ("xbar_r", "xbar_s") and largest == 1:
+        raise StudyInputError(
+            f"'{name}' has one value per subgroup (individual values); the {chart} chart needs "
+            "subgroups of 2 or more. Use auto or imr, or give the specification a subgroup size"
+        )
+
+
+def _subgroup_labels_all(study: Study, name: str) -> list[str]:
+    """The subgroup label of every used value of ``name`` (see :func:`_subgroup_labels`)."""
+    import numpy as np
+
+    from studykit.analysis import read_study_measurements
+
+    spec = study.characteristic(name)
+    data = read_study_measurements(study).get(name)
+    values = np.asarray(data.values, dtype=float)
+    labels = [str(x) for x, v in zip(data.subgroups, values, strict=True) if not np.isnan(v)]
+    if spec.subgroup_size and not spec.is_attribute and len(set(labels)) == len(labels):
+        labels = [str(i // spec.subgroup_size + 1) for i in range(len(labels))]
+    return labels
+
+
 def _limit(text):
     if text is None:
         return None, False
@@ -362,6 +389,14 @@ def run_set(args) -> int:
     if not (spec_changes or crit_changes or args.model or args.chart):
         raise StudyInputError("nothing to change: give --lsl, --usl, --target, --criterion, "
                               "--threshold, --basis, --confidence, --model or --chart")
+
+    if args.chart:
+        chart = args.chart.strip().lower().replace("-", "_")
+        current = StudyFile(args.studyfile).load()
+        spec = current.characteristic(name)
+        measured = spec.lsl is not None or spec.usl is not None  # else the study refuses it
+        if chart in ("imr", "xbar_r", "xbar_s") and measured:
+            _check_chart_against_data(current, name, chart)
 
     def change(study: Study) -> Study:
         if spec_changes:
