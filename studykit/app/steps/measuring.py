@@ -1,10 +1,790 @@
-"""Workbook step: Gauge check (panel arrives in a later version)."""
+"""Workbook step "Gauge check": the gauge R&R study behind each characteristic.
 
-from studykit.app.steps._coming import ComingStep
+For the characteristic chosen in the toolbar, the step shows the latest gauge R&R result stored
+with the study (kind ``gauge_rr``; :meth:`studykit.store.StudyFile.results`): the verdict in
+plain words with its chip, %GRR of the study variation and of the tolerance, the number of
+distinct categories, the variance components with their confidence intervals, the ANOVA table
+(saying whether the appraiser-by-part interaction was pooled), the average-and-range second
+estimate and the six figures of the PDF report (rendered to PNG from
+:mod:`studykit.report.gauge_figures`, so the palette is the same).
 
-STEP = ComingStep(
-    key="measuring",
-    title="Gauge check",
-    guidance="Show that the measuring system can tell parts apart before judging the process.",
-    what="A crossed gauge R&R study: repeatability, reproducibility, %GRR of tolerance and of total variation, and the number of distinct categories.",
-)
+Below, a new gauge study can be run from an uploaded long table (one row per reading: part,
+appraiser, trial, value). The columns are picked with defaults guessed from the headers, the
+tolerance defaults to the characteristic's LSL/USL, the result is previewed, and only then is it
+attached to the characteristic with the name of the person and a reason
+(:meth:`~studykit.store.StudyFile.attach_result`). No statistics are computed here: the numbers
+come from :func:`studykit.stats.gauge.gauge_rr`.
+
+The acceptance bands (%GRR below 10 % acceptable, 10-30 % conditionally, above 30 % not; ndc at
+least 5) are common practice; the customer's rule governs.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+import tempfile
+from collections.abc import Mapping
+from pathlib import Path
+
+import ipywidgets as widgets
+
+from studykit import theme
+from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
+from studykit.app.widgets import esc, guarded, html_box
+from studykit.errors import DataFileError, StudyInputError
+
+__all__ = [
+    "GaugeStep",
+    "GAUGE_KIND",
+    "STATUS_KIND",
+    "FIGURE_TITLES",
+    "gauge_result_from_payload",
+    "figure_pngs",
+    "guess_columns",
+    "read_gauge_upload",
+    "verdict_html",
+    "components_html",
+    "anova_html",
+    "range_method_html",
+]
+
+GAUGE_KIND = "gauge_rr"
+
+#: Gauge verdict status -> theme verdict key (colour, symbol) and the word on the chip.
+STATUS_KIND = {
+    "acceptable": ("pass", "Acceptable"),
+    "conditionally acceptable": ("caution", "Conditionally acceptable"),
+    "not acceptable": ("fail", "Not acceptable"),
+}
+
+#: The figures shown, in order (keys of :func:`studykit.report.gauge_figures.all_figures`).
+FIGURE_TITLES = {
+    "components": "Components of variation",
+    "by_part": "Measurements by part",
+    "by_appraiser": "Measurements by appraiser",
+    "range_chart": "Range chart by appraiser",
+    "mean_chart": "Mean chart by appraiser",
+    "interaction": "Appraiser-by-part interaction",
+}
+
+_COMPONENT_NAMES = {
+    "gauge_rr": "Gauge R&R (measurement)",
+    "repeatability": "Repeatability (the gauge)",
+    "reproducibility": "Reproducibility (the people)",
+    "appraiser": "Appraiser",
+    "appraiser_by_part": "Appraiser × part",
+    "part_to_part": "Part to part",
+    "total": "Total",
+}
+_SOURCE_NAMES = {
+    "part_to_part": "Parts", "appraiser": "Appraisers",
+    "appraiser_by_part": "Appraiser × part", "repeatability": "Repeatability (error)",
+    "total": "Total",
+}
+_BANDS_NOTE = ("Bands: %GRR below 10 % acceptable, 10 to 30 % conditionally acceptable, above "
+               "30 % not acceptable; at least 5 distinct categories. These are common practice: "
+               "the customer's rule governs.")
+
+#: Header words that suggest each role (lower case, whole words of the header).
+_ROLE_WORDS = {
+    "part": ("part", "parts", "sample", "item", "specimen", "piece", "serial"),
+    "appraiser": ("appraiser", "operator", "inspector", "person", "measurer", "who"),
+    "trial": ("trial", "repeat", "replicate", "repetition", "run", "reading"),
+    "value": ("value", "measurement", "measured", "result", "y", "reading", "mm"),
+}
+_NO_TRIAL = "(none: order in the file)"
+_UPLOAD_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx", ".xlsm")
+
+
+# --- pure helpers (no widgets) -------------------------------------------------------------------
+
+
+def gauge_result_from_payload(payload: Mapping):
+    """Recompute the :class:`~studykit.stats.gauge.GaugeResult` from a stored payload.
+
+    The payload (``GaugeResult.to_dict()``) keeps the readings as a parts x appraisers x
+    trials cube with the labels and the options; the figures need the result object, so the
+    study is computed again from exactly those values (same as the PDF report does).
+
+    Raises
+    ------
+    StudyInputError
+        When the payload lacks the readings (e.g. written by an older version).
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge import gauge_rr
+    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+    ...                ["A", "A", "B", "B"] * 2)
+    >>> again = gauge_result_from_payload(res.to_dict())
+    >>> again.pct_grr == res.pct_grr, again.n_values
+    (True, 8)
+    """
+    import numpy as np
+
+    from studykit.stats.gauge import gauge_rr
+
+    try:
+        cube = payload["values"]
+        parts, apprs = payload["part_labels"], payload["appraiser_labels"]
+        vals, pl, al, tl = [], [], [], []
+        for i, row in enumerate(cube):
+            for j, cell in enumerate(row):
+                for k, v in enumerate(cell):
+                    vals.append(np.nan if v is None else float(v))
+                    pl.append(parts[i])
+                    al.append(apprs[j])
+                    tl.append(k + 1)
+    except (KeyError, TypeError, IndexError, ValueError) as exc:
+        raise StudyInputError(
+            f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
+            "numbers are shown, but the figures need the readings: run the study again from "
+            "its data file to attach a complete result") from None
+    return gauge_rr(vals, pl, al, trials=tl,
+                    alpha_interaction=payload.get("alpha_interaction", 0.25),
+                    study_variation=payload.get("study_variation", 6.0),
+                    lsl=payload.get("lsl"), usl=payload.get("usl"),
+                    confidence=payload.get("confidence", 0.95))
+
+
+def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
+    """The gauge figures of ``result`` as PNG bytes, by the keys of :data:`FIGURE_TITLES`.
+
+    Drawn by :mod:`studykit.report.gauge_figures` (the PDF's figures, same palette).
+    """
+    from studykit.report import gauge_figures as gf
+
+    builders = {"components": gf.components_figure, "by_part": gf.by_part_figure,
+                "by_appraiser": gf.by_appraiser_figure, "range_chart": gf.range_chart_figure,
+                "mean_chart": gf.mean_chart_figure, "interaction": gf.interaction_figure}
+    out = {}
+    for key in only or tuple(builders):
+        fig = builders[key](result)
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=dpi, facecolor="white")
+        out[key] = buf.getvalue()
+    return out
+
+
+def _words(header: str) -> list[str]:
+    return [w for w in re.split(r"[^a-z0-9]+", header.lower()) if w]
+
+
+def guess_columns(headers) -> dict:
+    """Default column for each role (part, appraiser, trial, value) from the header names.
+
+    A header is taken for a role when one of its words names the role (``Part no``,
+    ``Operator``, ``Trial``, ``Value (mm)``); each column serves one role. What is left is
+    filled in file order (the usual layout part, appraiser, trial, value); ``trial`` stays
+    None when no column is left for it.
+
+    Examples
+    --------
+    >>> guess_columns(["Operator", "Part no", "Reading", "Thickness (mm)"])
+    {'part': 'Part no', 'appraiser': 'Operator', 'trial': 'Reading', 'value': 'Thickness (mm)'}
+    >>> guess_columns(["a", "b", "c"])
+    {'part': 'a', 'appraiser': 'b', 'trial': None, 'value': 'c'}
+    """
+    headers = [str(h) for h in headers]
+    chosen: dict[str, str | None] = {"part": None, "appraiser": None, "trial": None,
+                                     "value": None}
+    used: set[str] = set()
+    # the most specific roles first: "reading" names a trial before a value
+    for role in ("part", "appraiser", "trial", "value"):
+        for h in headers:
+            if h not in used and set(_words(h)) & set(_ROLE_WORDS[role]):
+                chosen[role] = h
+                used.add(h)
+                break
+    rest = [h for h in headers if h not in used]
+    if chosen["value"] is None and rest:
+        chosen["value"] = rest.pop()  # the value is usually the last column
+        used.add(chosen["value"])
+    for role in ("part", "appraiser"):
+        if chosen[role] is None and rest:
+            chosen[role] = rest.pop(0)
+    if chosen["trial"] is None and len(rest) == 1 and len(headers) >= 4:
+        chosen["trial"] = rest.pop(0)
+    return chosen
+
+
+def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
+                      appraiser: str | None = None, value: str | None = None,
+                      trial: str | None = None) -> dict:
+    """Read an uploaded long gauge table (bytes) with :func:`studykit.cli.gauge.read_gauge_table`.
+
+    Without ``part``/``appraiser``/``value`` only the headers are read:
+    ``{"headers": [...]}``. With them: ``{"headers", "values", "parts", "appraisers",
+    "trials"}``. Errors are :class:`DataFileError` naming the uploaded file (never a server
+    path), the row and the column.
+    """
+    name = Path(str(filename or "upload.csv")).name or "upload.csv"
+    suffix = Path(name).suffix.lower()
+    if suffix not in _UPLOAD_SUFFIXES:
+        raise DataFileError(
+            f"'{suffix or name}' files cannot be read here; upload the gauge table as CSV "
+            "(comma, semicolon or tab separated) or as an Excel workbook (.xlsx)", file=name)
+    if not data:
+        raise DataFileError("the file is empty; choose the file that holds the readings",
+                            file=name)
+    with tempfile.TemporaryDirectory(prefix="studykit-gauge-") as tmp:
+        path = Path(tmp) / ("upload" + suffix)
+        path.write_bytes(bytes(data))
+        try:
+            headers = _headers(path)
+            if part is None or appraiser is None or value is None:
+                return {"headers": headers}
+            from studykit.cli.gauge import read_gauge_table
+
+            table = read_gauge_table(path, part=part, appraiser=appraiser, value=value,
+                                     trial=trial or None)
+        except StudyInputError as exc:
+            raise type(exc)(exc.detail, file=name, row=exc.row, column=exc.column,
+                            value=exc.value) from None
+    return {"headers": headers, **table}
+
+
+def _headers(path: Path) -> list[str]:
+    import pandas as pd
+
+    try:
+        if path.suffix.lower() in (".xlsx", ".xlsm"):
+            frame = pd.read_excel(path, nrows=0)
+        else:
+            frame = pd.read_csv(path, sep=None, engine="python", nrows=5, dtype=str,
+                                encoding="utf-8-sig")
+    except (ValueError, OSError, UnicodeDecodeError, ImportError) as exc:
+        raise DataFileError(f"cannot read the table: {exc}") from None
+    headers = [str(c).strip() for c in frame.columns]
+    if len(headers) < 3:
+        raise DataFileError(
+            f"the table has {len(headers)} column{'s' if len(headers) != 1 else ''} "
+            f"({', '.join(repr(h) for h in headers)}); a gauge table needs one row per reading "
+            "with at least part, appraiser and value columns (and best a trial column)")
+    return headers
+
+
+def _chip(status: str | None) -> str:
+    kind, word = STATUS_KIND.get(status or "", ("pending", "Not judged"))
+    v = theme.VERDICTS[kind]
+    return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
+            f'border-color:{v.color}">{v.symbol} {esc(word)}</span>')
+
+
+def _pct(v) -> str:
+    return "—" if v is None else f"{fmt(v, 1)} %"
+
+
+def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None = None,
+                 title: str = "Measurement system") -> str:
+    """The verdict box of a gauge payload: chip, plain words, key numbers, where it came from.
+
+    Examples
+    --------
+    >>> html = verdict_html({"verdict": {"status": "not acceptable", "message": "Too noisy."},
+    ...                      "ndc": 2})
+    >>> "Not acceptable" in html and "Too noisy." in html
+    True
+    """
+    v = payload.get("verdict") if isinstance(payload.get("verdict"), Mapping) else {}
+    status = v.get("status")
+    kind = STATUS_KIND.get(status or "", ("pending", ""))[0]
+    colour = theme.VERDICTS[kind].color
+    ndc = payload.get("ndc")
+    ndc_text = "—" if ndc is None else str(ndc)
+    if v.get("ndc_ok") is False:
+        ndc_text += " (below 5)"
+    facts = [("%GRR of study variation", _pct(v.get("pct_grr_study_variation"))),
+             ("%GRR of tolerance", _pct(v.get("pct_grr_tolerance"))
+              if payload.get("tolerance") is not None else "no tolerance given"),
+             ("Distinct categories (ndc)", ndc_text),
+             ("Design", f"{payload.get('n_parts', '?')} parts × "
+                        f"{payload.get('n_appraisers', '?')} appraisers × "
+                        f"{payload.get('n_trials', '?')} trials")]
+    if payload.get("tolerance") is not None:
+        facts.append(("Tolerance", f"{fmt(payload.get('lsl'), 4)} to {fmt(payload.get('usl'), 4)}"
+                                   f" (width {fmt(payload.get('tolerance'), 4)})"))
+    source = payload.get("source_file") or payload.get("source")
+    if source:
+        facts.append(("Data file", str(source)))
+    if who or when:
+        stamp = (when or "").replace("T", " ").rstrip("Z")
+        facts.append(("Attached by", f"{who or '—'}" + (f", {stamp} UTC" if stamp else "")))
+    if payload.get("reason"):
+        facts.append(("Reason", str(payload["reason"])))
+    advice = v.get("advice") or ""
+    return (f'<div class="sk-verdict-box sk-gauge-verdict" style="border-color:{colour}">'
+            f'<div style="display:flex;gap:10px;align-items:center;flex-wrap:wrap">'
+            f'<span style="font-weight:600">{esc(title)}</span>{_chip(status)}</div>'
+            f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
+            + (f'<div style="margin-top:6px">{esc(advice)}</div>' if advice else "")
+            + '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
+            + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
+            + "</table></div>")
+
+
+def components_html(payload: Mapping) -> str:
+    """The variance components with the confidence interval on each sigma."""
+    conf = float(payload.get("confidence") or 0.95) * 100
+    rows = []
+    for c in payload.get("components") or []:
+        name = str(c.get("name", ""))
+        lo, hi = c.get("sigma_lower"), c.get("sigma_upper")
+        ci = "—" if lo is None or hi is None else f"{fmt(lo, 5)} to {fmt(hi, 5)}"
+        if c.get("set_to_zero"):
+            ci = "estimate negative, set to 0"
+        strong = ' style="font-weight:600"' if name in ("gauge_rr", "total") else ""
+        label = esc(_COMPONENT_NAMES.get(name, name.replace("_", " ")))
+        rows.append(
+            f"<tr{strong}><td>{label}</td>"
+            f'<td class="num">{fmt(c.get("variance"), 7)}</td>'
+            f'<td class="num">{fmt(c.get("sigma"), 5)}</td><td class="num">{esc(ci)}</td>'
+            f'<td class="num">{fmt(c.get("pct_contribution"), 2)}</td>'
+            f'<td class="num">{fmt(c.get("pct_study_variation"), 2)}</td>'
+            f'<td class="num">{fmt(c.get("pct_tolerance"), 2)}</td></tr>')
+    return ('<div class="sk-panel-title">Variance components</div>'
+            '<table class="sk-table sk-gauge-components"><thead><tr><th>Source</th>'
+            "<th>Variance</th><th>Sigma</th>"
+            f"<th>Sigma, {conf:g}% interval</th><th>% contribution</th><th>% study var.</th>"
+            f"<th>% tolerance</th></tr></thead><tbody>{''.join(rows)}</tbody></table>"
+            f'<div class="sk-small">Study variation = {fmt(payload.get("study_variation"), 2)} '
+            "× sigma. Intervals bound the sigma of each component "
+            "(chi-square or Satterthwaite degrees of freedom).</div>")
+
+
+def _anova_rows(rows) -> str:
+    out = []
+    for r in rows or []:
+        src = str(r.get("source", ""))
+        p = r.get("p")
+        p_text = "—" if p is None else ("< 0.0001" if p < 1e-4 else fmt(p, 4))
+        out.append(f"<tr><td>{esc(_SOURCE_NAMES.get(src, src.replace('_', ' ')))}</td>"
+                   f'<td class="num">{esc(r.get("df"))}</td>'
+                   f'<td class="num">{fmt(r.get("ss"), 6)}</td>'
+                   f'<td class="num">{fmt(r.get("ms"), 7)}</td>'
+                   f'<td class="num">{fmt(r.get("f"), 2)}</td><td class="num">{p_text}</td></tr>')
+    return "".join(out)
+
+
+def anova_html(payload: Mapping) -> str:
+    """The ANOVA table the components come from, and whether the interaction was pooled."""
+    pooled = bool(payload.get("interaction_pooled"))
+    p = payload.get("interaction_p")
+    alpha = payload.get("alpha_interaction", 0.25)
+    if p is None:
+        note = "The appraiser-by-part interaction could not be tested."
+    elif pooled:
+        note = (f"The appraiser-by-part interaction is not significant (p = {fmt(p, 3)} ≥ "
+                f"{fmt(alpha, 2)}): it was pooled into the repeatability error, and the "
+                "table shows the model without it.")
+    else:
+        note = (f"The appraiser-by-part interaction is significant (p = {fmt(p, 3)} < "
+                f"{fmt(alpha, 2)}): it stays in the model as its own source.")
+    head = ("<thead><tr><th>Source</th><th>df</th><th>Sum of squares</th><th>Mean square</th>"
+            "<th>F</th><th>p</th></tr></thead>")
+    out = ('<div class="sk-panel-title">Analysis of variance</div>'
+           f'<div class="sk-small" style="margin-bottom:4px">{esc(note)}</div>'
+           f'<table class="sk-table sk-gauge-anova">{head}<tbody>'
+           f"{_anova_rows(payload.get('anova_used'))}</tbody></table>")
+    if pooled and payload.get("anova_full"):
+        out += ('<details><summary class="sk-small">The model with the interaction (before '
+                f'pooling)</summary><table class="sk-table">{head}<tbody>'
+                f"{_anova_rows(payload.get('anova_full'))}</tbody></table></details>")
+    return out
+
+
+def range_method_html(payload: Mapping) -> str:
+    """The average-and-range estimate, a second opinion beside the ANOVA."""
+    r = payload.get("range_method") or {}
+    if not r:
+        return ""
+    sigmas = [("Repeatability (EV)", r.get("repeatability")),
+              ("Reproducibility (AV)", r.get("reproducibility")),
+              ("Gauge R&R (GRR)", r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
+              ("Total (TV)", r.get("total"))]
+    cells = "".join(f"<tr><td>{esc(k)}</td><td class=\"num\">{fmt(v, 5)}</td></tr>"
+                    for k, v in sigmas)
+    anova_pct = (payload.get("verdict") or {}).get("pct_grr_study_variation")
+    zero = (" Reproducibility came out negative and was set to zero."
+            if r.get("reproducibility_set_to_zero") else "")
+    return ('<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
+            '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
+            f"<th>Sigma</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
+            f'<div class="sk-small">%GRR of study variation {_pct(r.get("pct_study_variation"))}'
+            f' (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get("pct_tolerance"))}, '
+            f'ndc {esc(r.get("ndc"))}. K1 = {fmt(r.get("k1"), 4)}, K2 = {fmt(r.get("k2"), 4)}, '
+            f'K3 = {fmt(r.get("k3"), 4)}.{zero} The ANOVA figures above decide; this estimate '
+            "ignores the interaction.</div>")
+
+
+# --- the step ------------------------------------------------------------------------------------
+
+
+class GaugeStep:
+    """Step "Gauge check" (key ``measuring``)."""
+
+    key = "measuring"
+    title = "Gauge check"
+    guidance = ("Show that the measuring system can tell parts apart before judging the "
+                "process: review the stored gauge R&R study, or run and attach a new one.")
+
+    def __init__(self):
+        self.ws = None
+        self._drawn = None
+        self._figures: dict[tuple, dict] = {}
+        self._upload_data: bytes | None = None
+        self._upload_name = ""
+        self._preview = None  # (GaugeResult, payload extras) of the last computed study
+
+    # --- status -------------------------------------------------------------------------------
+    def stored(self, name: str | None = None):
+        """Stored gauge results of ``name`` (default: the characteristic shown), oldest first."""
+        if self.ws is None:
+            return []
+        s = self.ws.session
+        return s.file.results(GAUGE_KIND, name or s.current)
+
+    def is_done(self, context) -> bool:
+        """Every characteristic has a stored gauge study that is at least conditionally
+        acceptable."""
+        ws = context.extra.get("studykit.workspace")
+        if ws is None:
+            return False
+        latest = {}
+        for r in ws.session.file.results(GAUGE_KIND):
+            latest[r.characteristic] = r.payload
+        for n in ws.session.names:
+            status = ((latest.get(n) or {}).get("verdict") or {}).get("status")
+            if status not in ("acceptable", "conditionally acceptable"):
+                return False
+        return bool(ws.session.names)
+
+    # --- building -----------------------------------------------------------------------------
+    def build(self, context) -> widgets.Widget:
+        ws = self.ws = workspace(context)
+        if ws is None:
+            return no_study_panel("The gauge check")
+        self.heading = html_box("", "sk-gauge-heading")
+        self.verdict = html_box("", "sk-gauge-stored")
+        self.components = html_box("", "sk-gauge-components-box")
+        self.anova = html_box("", "sk-gauge-anova-box")
+        self.range_method = html_box("", "sk-gauge-range-box")
+        self.notes = html_box("", "sk-gauge-notes")
+        self.figures = widgets.GridBox([], layout=widgets.Layout(
+            grid_template_columns="repeat(auto-fill, minmax(420px, 1fr))", grid_gap="12px 18px",
+            width="100%"))
+        self.figures.add_class("sk-gauge-figures")
+        tables = widgets.HBox([widgets.VBox([self.components, self.anova],
+                                            layout=widgets.Layout(flex="2 1 560px",
+                                                                  min_width="0")),
+                               widgets.VBox([self.range_method],
+                                            layout=widgets.Layout(flex="1 1 300px",
+                                                                  min_width="0"))],
+                              layout=widgets.Layout(flex_flow="row wrap", width="100%",
+                                                    align_items="flex-start"))
+        self.details = widgets.VBox([tables, self.notes,
+                                     html_box('<div class="sk-panel-title">Figures</div>'),
+                                     self.figures])
+        self.new_study = self._build_new_study(context)
+        self.refresh(context)
+        return panel([panel_css(), ws.toolbar(), self.heading, self.verdict, self.details,
+                      self.new_study])
+
+    def _build_new_study(self, context) -> widgets.Widget:
+        m = context.messages
+        limit_mb = context.max_upload_bytes / 1024 / 1024
+        self.upload = widgets.FileUpload(accept=",".join(_UPLOAD_SUFFIXES), multiple=False,
+                                         description="Choose gauge table", icon="upload",
+                                         layout=widgets.Layout(width="auto"))
+        self.upload.add_class("sk-gauge-upload")
+        self.upload.observe(guarded(lambda c: self._on_upload(context, c), messages=m),
+                            names="value")
+        self.file_info = html_box("", "sk-small", "sk-gauge-file")
+        lay = widgets.Layout(width="190px")
+        self.col_part = widgets.Dropdown(options=[], layout=lay)
+        self.col_appraiser = widgets.Dropdown(options=[], layout=lay)
+        self.col_trial = widgets.Dropdown(options=[], layout=lay)
+        self.col_value = widgets.Dropdown(options=[], layout=lay)
+        for w, cls in ((self.col_part, "sk-gauge-col-part"),
+                       (self.col_appraiser, "sk-gauge-col-appraiser"),
+                       (self.col_trial, "sk-gauge-col-trial"),
+                       (self.col_value, "sk-gauge-col-value")):
+            w.add_class(cls)
+        tl = widgets.Layout(width="130px")
+        self.lsl = widgets.Text(placeholder="none", layout=tl)
+        self.usl = widgets.Text(placeholder="none", layout=tl)
+        self.lsl.add_class("sk-gauge-lsl")
+        self.usl.add_class("sk-gauge-usl")
+        self.compute = widgets.Button(description="Compute the study", icon="calculator",
+                                      button_style="primary", disabled=True)
+        self.compute.add_class("sk-gauge-compute")
+        self.compute.on_click(guarded(lambda _b: self._on_compute(), messages=m))
+
+        def labelled(text, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
+
+        self.columns_box = widgets.VBox([
+            widgets.HBox([labelled("Part column", self.col_part),
+                          labelled("Appraiser column", self.col_appraiser),
+                          labelled("Trial column", self.col_trial),
+                          labelled("Value column", self.col_value)],
+                         layout=widgets.Layout(flex_flow="row wrap")),
+            widgets.HBox([labelled("Tolerance: LSL", self.lsl), labelled("USL", self.usl),
+                          self.compute],
+                         layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"))],
+            layout=widgets.Layout(display="none"))
+        self.preview = html_box("", "sk-gauge-preview")
+        self.preview_figure = widgets.Box([], layout=widgets.Layout(max_width="640px"))
+        self.reason = widgets.Text(placeholder="why, e.g. 'gauge GR-07 after recalibration, "
+                                   "study GR-2026-14'", layout=widgets.Layout(width="460px"))
+        self.reason.add_class("sk-gauge-reason")
+        self.attach = widgets.Button(description="Attach to the characteristic", icon="paperclip",
+                                     button_style="primary", disabled=True)
+        self.attach.add_class("sk-gauge-attach")
+        self.attach.on_click(guarded(lambda _b: self._on_attach(), messages=m))
+        self.attach_hint = html_box("", "sk-small")
+        for w in (self.reason, self.ws.who):
+            w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
+        self.attach_box = widgets.VBox([
+            self.preview, self.preview_figure,
+            labelled("Reason for attaching", self.reason), self.attach, self.attach_hint],
+            layout=widgets.Layout(display="none"))
+        intro = html_box(
+            '<div class="sk-panel-title" style="margin-top:22px">Run a new gauge study</div>'
+            '<div class="sk-muted">Upload a long table with one row per reading: part, '
+            "appraiser, trial and value columns (CSV or .xlsx, at most "
+            f"{limit_mb:.0f} MB). studykit computes the study for you to check; nothing is "
+            "stored until you attach it with your name and a reason.</div>")
+        box = widgets.VBox([intro, widgets.HBox([self.upload, self.file_info],
+                                                layout=widgets.Layout(align_items="center")),
+                            self.columns_box, self.attach_box])
+        box.add_class("sk-gauge-new")
+        return box
+
+    # --- drawing ------------------------------------------------------------------------------
+    def refresh(self, context) -> None:
+        ws = self.ws
+        if ws is None or not hasattr(self, "verdict"):
+            return
+        s = ws.session
+        name = s.current
+        stored = self.stored(name)
+        latest = stored[-1] if stored else None
+        key = (name, None if latest is None else latest.id, id(s.study))
+        if key == self._drawn:
+            return
+        changed_name = self._drawn is None or self._drawn[0] != name
+        self._drawn = key
+        if changed_name:
+            self._reset_new_study(name)
+        spec = s.study.characteristic(name)
+        unit = f" ({spec.unit})" if getattr(spec, "unit", None) else ""
+        self.heading.value = (f'<div class="sk-panel-title">Gauge study behind '
+                              f"{esc(name)}{esc(unit)}</div>")
+        if latest is None:
+            self.verdict.value = (
+                '<div class="sk-verdict-box sk-gauge-verdict" style="border-color:'
+                f'{theme.VERDICTS["pending"].color}">{_chip(None)}'
+                f'<div style="margin-top:6px">No gauge study is attached for {esc(name)}: the '
+                "capability findings report its measurement system as not checked. Run one "
+                "below from the readings of the gauge study.</div></div>")
+            self.details.layout.display = "none"
+            self.figures.children = []
+            return
+        payload = latest.payload
+        self.verdict.value = verdict_html(payload, who=latest.who, when=latest.when) + (
+            f'<div class="sk-small">{len(stored) - 1} earlier gauge '
+            f"stud{'y' if len(stored) == 2 else 'ies'} of {esc(name)} on record; the latest "
+            "counts.</div>" if len(stored) > 1 else "") + (
+            f'<div class="sk-small" style="margin-bottom:8px">{esc(_BANDS_NOTE)}</div>')
+        self.components.value = components_html(payload)
+        self.anova.value = anova_html(payload)
+        self.range_method.value = range_method_html(payload)
+        notes = [n for n in payload.get("notes") or [] if n]
+        self.notes.value = "".join(
+            f'<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">Note</span>{esc(n)}'
+            "</div>" for n in notes)
+        self.details.layout.display = ""
+        self._show_figures(latest)
+
+    def _show_figures(self, stored) -> None:
+        cache_key = (str(self.ws.session.path), stored.id)
+        pngs = self._figures.get(cache_key)
+        if pngs is None:
+            try:
+                pngs = figure_pngs(gauge_result_from_payload(stored.payload))
+            except StudyInputError as exc:
+                self.figures.children = [html_box(
+                    f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
+                    f"{esc(exc)}</div>")]
+                return
+            self._figures = {cache_key: pngs}  # one characteristic's figures at a time
+        self.figures.children = [self._figure_widget(k, png) for k, png in pngs.items()]
+
+    @staticmethod
+    def _figure_widget(key: str, png: bytes) -> widgets.Widget:
+        img = widgets.Image(value=png, format="png",
+                            layout=widgets.Layout(width="100%", height="auto"))
+        img.add_class("sk-gauge-figure")
+        img.add_class(f"sk-gauge-figure-{key}")
+        box = widgets.VBox([img], layout=widgets.Layout(min_width="0"))
+        box.add_class("sk-gauge-figure-box")
+        return box
+
+    # --- a new study --------------------------------------------------------------------------
+    def _reset_new_study(self, name: str) -> None:
+        spec = self.ws.session.study.characteristic(name)
+        self.lsl.value = "" if spec.lsl is None else f"{spec.lsl:g}"
+        self.usl.value = "" if spec.usl is None else f"{spec.usl:g}"
+        self._clear_preview()
+
+    def _clear_preview(self) -> None:
+        self._preview = None
+        self.preview.value = ""
+        self.preview_figure.children = []
+        self.attach_box.layout.display = "none"
+        self._update_buttons()
+
+    def _on_upload(self, context, change) -> None:
+        from studykit.app.steps.intake import check_upload_size
+
+        files = change["new"]
+        if not files:
+            return
+        item = files[0]
+        name = Path(str(item.get("name", "upload.csv"))).name
+        content = item.get("content", b"")
+        size = int(item.get("size") or len(content))
+        self.upload.value = ()  # release the bytes held by the widget
+        self._upload_data, self._upload_name = None, ""
+        self.columns_box.layout.display = "none"
+        self.file_info.value = ""
+        self._clear_preview()
+        check_upload_size(max(size, len(content)), filename=name,
+                          limit=context.max_upload_bytes)
+        data = bytes(content)
+        headers = read_gauge_upload(data, name)["headers"]
+        guess = guess_columns(headers)
+        self._upload_data, self._upload_name = data, name
+        for w in (self.col_part, self.col_appraiser, self.col_value):
+            w.options = headers
+        self.col_trial.options = [(_NO_TRIAL, "")] + [(h, h) for h in headers]
+        self.col_part.value = guess["part"]
+        self.col_appraiser.value = guess["appraiser"]
+        self.col_value.value = guess["value"]
+        self.col_trial.value = guess["trial"] or ""
+        self.columns_box.layout.display = ""
+        self.compute.disabled = False
+        self.file_info.value = (f"<b>{esc(name)}</b> · {len(headers)} columns: "
+                                + ", ".join(esc(h) for h in headers)
+                                + ". Check the columns, then compute.")
+
+    def _tolerance(self) -> tuple[float | None, float | None]:
+        from studykit.errors import SpecError
+
+        out = []
+        for label, w in (("LSL", self.lsl), ("USL", self.usl)):
+            text = w.value.strip().replace(",", ".")
+            if not text:
+                out.append(None)
+                continue
+            try:
+                out.append(float(text))
+            except ValueError:
+                raise SpecError(f"the tolerance {label} ({w.value!r}) is not a number: write "
+                                "it like 7.9, or leave both limits empty for no %tolerance"
+                                ) from None
+        lsl, usl = out
+        if (lsl is None) != (usl is None):
+            raise SpecError("give both tolerance limits (LSL and USL) for %GRR of tolerance, "
+                            "or leave both empty")
+        return lsl, usl
+
+    def _on_compute(self) -> None:
+        from studykit.stats.gauge import gauge_rr
+
+        if self._upload_data is None:
+            raise DataFileError("upload the gauge table first")
+        name = self.ws.session.current
+        self._clear_preview()
+        lsl, usl = self._tolerance()
+        cols = {"part": self.col_part.value, "appraiser": self.col_appraiser.value,
+                "value": self.col_value.value, "trial": self.col_trial.value or None}
+        table = read_gauge_upload(self._upload_data, self._upload_name, **cols)
+        try:
+            result = gauge_rr(table["values"], table["parts"], table["appraisers"],
+                              trials=table["trials"], lsl=lsl, usl=usl)
+        except StudyInputError as exc:
+            if exc.file is not None:
+                raise
+            raise type(exc)(exc.detail, file=self._upload_name, row=exc.row,
+                            column=exc.column, value=exc.value) from None
+        spec = self.ws.session.study.characteristic(name)
+        from_study = (lsl, usl) == (spec.lsl, spec.usl) and lsl is not None
+        extras = {"source_file": self._upload_name,
+                  "limits_from": "study" if from_study else ("entered" if lsl is not None
+                                                             else None),
+                  "columns": cols}
+        self._preview = (result, extras, name)
+        payload = {**result.to_dict(), **extras}
+        self.preview.value = (
+            '<div class="sk-panel-title">Preview (not stored yet)</div>'
+            + verdict_html(payload, title=f"New study for {name}")
+            + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>')
+        png = figure_pngs(result, only=("components",))["components"]
+        self.preview_figure.children = [self._figure_widget("preview", png)]
+        self.attach.description = f"Attach to {name}"
+        self.attach_box.layout.display = ""
+        self._update_buttons()
+        self.ws.context.messages.info(
+            f"Gauge study computed from '{self._upload_name}': check the preview, then attach "
+            f"it to {name} with a reason.")
+
+    def _update_buttons(self) -> None:
+        if self.ws is None or not hasattr(self, "attach"):
+            return
+        missing = []
+        if self._preview is None:
+            missing.append("compute the study")
+        if not self.reason.value.strip():
+            missing.append("give a reason")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        self.attach.disabled = bool(missing)
+        self.attach_hint.value = ("To attach: " + ", ".join(missing) + ".") if missing else ""
+
+    def _on_attach(self) -> None:
+        ws = self.ws
+        s = ws.session
+        if self._preview is None:
+            raise StudyInputError("compute the gauge study first, then attach it")
+        result, extras, name = self._preview
+        if name != s.current:
+            raise StudyInputError(
+                f"the preview was computed for '{name}', but '{s.current}' is shown now; "
+                "compute it again for this characteristic")
+        who = ws.who_name
+        reason = self.reason.value.strip()
+        if not who:
+            raise StudyInputError("`who` is empty: type your name in the 'Your name' field at "
+                                  "the top of the panel")
+        if not reason:
+            raise StudyInputError("`reason` is empty: say why this gauge study belongs to the "
+                                  "characteristic, e.g. 'gauge GR-07, study GR-2026-14'")
+        payload = {**result.to_dict(), **extras, "reason": reason}
+        lock = ({"override_lock": True, "override_reason": ws.override_reason}
+                if ws.override_reason else {})
+        s.file.attach_result(GAUGE_KIND, name, payload, who=who, **lock)
+        self.reason.value = ""
+        self._clear_preview()
+        self._upload_data, self._upload_name = None, ""
+        self.columns_box.layout.display = "none"
+        self.file_info.value = ""
+        s.reload()  # the findings and every panel follow the new gauge study
+        status = result.verdict.status
+        ws.context.messages.ok(f"Gauge study attached to {name} ({status}); the capability "
+                               "findings now use it.")
+
+
+STEP = GaugeStep()
