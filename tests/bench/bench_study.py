@@ -1,0 +1,103 @@
+"""Speed of one full characteristic study (125 readings) against the generic scipy route.
+
+Run: .venv/bin/python tests/bench/bench_study.py [--repeat 30]
+
+The full study is ``studykit.analysis.analyze_characteristic`` with default options: phase-I
+limits with removals and the eight run rules, normality tests, the probability plot, the
+ranking of every distribution family, capability with bounds, verdict, findings, model band and
+plan. The generic route fits the same 15 families with ``scipy.stats.<dist>.fit`` alone (no
+charts, no bounds): the ratio says how many full studies run in the time the generic route
+needs for its fits. Runs are interleaved (ours, generic, ours...) so machine load hits both
+alike; median and minimum are printed (the minimum is the least disturbed on a shared machine).
+Targets: normal characteristic <= 30 ms (median), ratio >= 20x.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import time
+import warnings
+
+import numpy as np
+from scipy import stats
+
+from studykit.analysis import analyze_characteristic
+from studykit.data import CharacteristicData
+from studykit.stats import fit
+from studykit.study import Characteristic
+
+# family id -> (scipy distribution, fixed arguments): the generic route, one fit per family
+GENERIC = {
+    "normal": (stats.norm, {}),
+    "lognormal": (stats.lognorm, {"floc": 0}),
+    "lognormal3": (stats.lognorm, {}),
+    "weibull": (stats.weibull_min, {"floc": 0}),
+    "weibull3": (stats.weibull_min, {}),
+    "gamma": (stats.gamma, {"floc": 0}),
+    "gamma3": (stats.gamma, {}),
+    "exponential": (stats.expon, {"floc": 0}),
+    "exponential2": (stats.expon, {}),
+    "logistic": (stats.logistic, {}),
+    "loglogistic": (stats.fisk, {"floc": 0}),
+    "loglogistic3": (stats.fisk, {}),
+    "sev": (stats.gumbel_l, {}),
+    "lev": (stats.gumbel_r, {}),
+    "halfnormal": (stats.halfnorm, {"floc": 0}),
+}
+
+
+def cases(rng_seed=2026):
+    """(label, data, spec) of the benchmark (invented, seeded)."""
+    rng = np.random.default_rng(rng_seed)
+    normal = rng.normal(50.0, 2.0, 125)
+    skewed = stats.weibull_min(1.6, loc=10, scale=3).rvs(125, random_state=rng)
+    return [
+        ("normal, auto model", normal, Characteristic("x", lsl=40.0, usl=60.0)),
+        ("skewed, auto model", skewed, Characteristic("x", usl=40.0)),
+    ]
+
+
+def _generic(x):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for dist, kw in GENERIC.values():
+            dist.fit(x, **kw)
+
+
+def _once_ms(fn):
+    t = time.perf_counter()
+    fn()
+    return 1e3 * (time.perf_counter() - t)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=30)
+    args = ap.parse_args(argv)
+    if set(GENERIC) != set(fit.FAMILIES):
+        raise SystemExit("the generic route must list every family of studykit.stats.fit")
+    print("Full study of one characteristic, 125 readings, warm runs (ms)")
+    summary = []
+    for label, x, spec in cases():
+        data = CharacteristicData("x", None, x)
+        res = analyze_characteristic(data, spec)  # warm up
+        _generic(x)
+        ours, generic = [], []
+        for i in range(args.repeat):
+            ours.append(_once_ms(lambda d=data, s=spec: analyze_characteristic(d, s)))
+            if i % 3 == 0:
+                generic.append(_once_ms(lambda x=x: _generic(x)))
+        om, gm = statistics.median(ours), statistics.median(generic)
+        o0, g0 = min(ours), min(generic)
+        print(f"  {label:20s} model {res.model.name:11s} median: ours {om:6.1f}  scipy fits "
+              f"{gm:7.1f}  ratio {gm / om:5.1f}x | min: ours {o0:6.1f}  scipy {g0:7.1f}  "
+              f"ratio {g0 / o0:5.1f}x")
+        summary.append(f"{label.split(',')[0]} {om:.1f} ms ({gm / om:.0f}x)")
+    print("targets: normal characteristic <= 30 ms, ratio >= 20x")
+    print("summary: full study, median: " + "; ".join(summary))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
