@@ -168,6 +168,13 @@ def test_signals_and_automatic_removals_are_reported(tmp_path):
     StudyFile.create(path, data=("\n".join(out) + "\n").encode(), filename="shift.csv",
                      title="Shifted", characteristics=[Characteristic(
                          "bore_diameter", unit="mm", lsl=11.97, usl=12.03)], who="tester")
+    # a saved study removes nothing silently: the trial chart shows the signals ...
+    study, result = _analyze(path)
+    assert not result.results["bore_diameter"].phase1.removals
+    assert result.results["bore_diameter"].chart.location.signals
+    # ... and subgroup 6 goes only when someone records it (here: accepting the rule's proposal)
+    StudyFile(path).exclude("bore_diameter", "6", who="tester", automatic=True,
+                            reason="beyond the upper control limit of the trial chart")
     build_report(path, tmp_path / "shift.pdf")
     study, result = _analyze(path)
     res = result.results["bore_diameter"]

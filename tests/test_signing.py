@@ -15,7 +15,12 @@ from pyhanko_certvalidator import ValidationContext
 from studykit.cli import main
 from studykit.errors import StudyInputError
 from studykit.report.pdf import build_report
-from studykit.report.signing import DEMO_ORGANISATION, make_demo_certificate, sign_report
+from studykit.report.signing import (
+    DEMO_ORGANISATION,
+    make_demo_certificate,
+    outside_event_loop,
+    sign_report,
+)
 from studykit.store import StudyFile
 from studykit.study import Characteristic
 
@@ -45,7 +50,9 @@ def signed(tmp_path_factory):
 def _statuses(pdf: Path, roots):
     vc = ValidationContext(trust_roots=[load_cert_from_pemder(r) for r in roots])
     with open(pdf, "rb") as f:
-        return [(s.field_name, validate_pdf_signature(s, vc))
+        # pyHanko runs its own event loop; outside_event_loop keeps that working when a loop
+        # already runs in this thread (the browser tests leave one behind)
+        return [(s.field_name, outside_event_loop(validate_pdf_signature, s, vc))
                 for s in PdfFileReader(f).embedded_signatures]
 
 
