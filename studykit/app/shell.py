@@ -11,12 +11,22 @@ A step is any object with the attributes of :class:`Step` (a ``typing.Protocol``
     def refresh(self, context: WorkbookContext) -> None: ...
 
 ``build`` is called once, the first time the step is opened; ``refresh`` is called on every
-built step after anything in the context changes (``context.update(...)``). Steps never compute
+built step after anything in the context changes (``context.update(...)``). A step may define
+``shown(context)``: it is called each time the built step is opened again (e.g. to bring a chart
+widget up to date), before it is put on the page. Steps never compute
 statistics: they ask ``studykit.analysis`` for result objects and draw them. Every callback a
 step registers is wrapped in :func:`studykit.app.widgets.guarded`; ``build``/``refresh`` are
 guarded by the shell. A step may also define ``is_done(context) -> bool`` (a tick in the bar).
 
-The default step list is :data:`DEFAULT_STEPS` (one module per step in ``studykit.app.steps``).
+The default step list is :func:`default_steps` (one module per step in ``studykit.app.steps``;
+fresh instances per workbook, since steps hold widgets).
+
+``context.extra["studykit.open_step"]`` is the workbook's ``select``: a panel opens another
+step through it (e.g. the overview opens a characteristic in the stability step).
+
+With a study file open, the card below the steps is the study overview
+(:class:`studykit.app.overview.OverviewPanel`), except on a step that shows the overview itself
+(a step whose ``overview`` attribute is one), so the page never shows it twice.
 """
 
 from __future__ import annotations
@@ -102,10 +112,11 @@ class WorkbookContext:
 
     def read_measurements(self, data: bytes, filename: str):
         """Read an uploaded file with the configured reader."""
-        reader = self.reader
-        if reader is None:
-            from studykit.data import read_measurements_bytes as reader
-        return reader(data, filename)
+        if self.reader is not None:
+            return self.reader(data, filename)
+        from studykit.data import read_measurements_bytes
+
+        return read_measurements_bytes(data, filename, max_bytes=self.max_upload_bytes)
 
     @property
     def characteristics(self) -> list:
@@ -147,9 +158,10 @@ def default_steps() -> list[Step]:
         stability,
     )
 
-    # steps that hold widgets are created per workbook; placeholders are stateless
-    return [intake.IntakeStep(), limits.STEP, measuring.STEP, stability.STEP, shape.STEP,
-            capability.STEP, signoff.STEP, export.STEP]
+    # steps hold widgets: fresh instances for every workbook (two browsers, two workbooks)
+    return [intake.IntakeStep(), limits.LimitsStep(), measuring.GaugeStep(),
+            stability.StabilityStep(), shape.ShapeStep(), capability.CapabilityStep(),
+            signoff.SignoffStep(), export.ExportStep()]
 
 
 class Workbook(widgets.VBox):
@@ -186,12 +198,14 @@ class Workbook(widgets.VBox):
         self._body = widgets.VBox([])
         self._body.add_class("sk-body")
         self._overview = html_box("", "sk-overview")
-        overview_card = widgets.VBox([self._overview])
-        overview_card.add_class("sk-body")
-        overview_card.add_class("sk-overview-card")
+        self._overview_panel = None  # the study overview, made when a study file is open
+        self._overview_card = widgets.VBox([self._overview])
+        self._overview_card.add_class("sk-body")
+        self._overview_card.add_class("sk-overview-card")
         super().__init__([style_sheet(), self._header, self._stepbar, self._guidance,
-                          context.messages, self._caution, self._body, overview_card])
+                          context.messages, self._caution, self._body, self._overview_card])
         self.add_class("sk-root")
+        context.extra["studykit.open_step"] = self.select
         context.subscribe(self._on_context_change)
         self._render_header()
         self._render_overview()
@@ -212,8 +226,13 @@ class Workbook(widgets.VBox):
             if built is None:
                 return
             self._built[key] = built
+        else:
+            shown = getattr(step, "shown", None)
+            if callable(shown):
+                guarded(shown, messages=self.context.messages)(self.context)
         self.current = key
         self._body.children = [self._built[key]]
+        self._render_overview()
         number = [s.key for s in self.steps].index(key) + 1
         self._guidance.value = (f"<b>Step {number} of {len(self.steps)} · {esc(step.title)}.</b> "
                                 f"{esc(step.guidance)}")
@@ -254,6 +273,11 @@ class Workbook(widgets.VBox):
         )
 
     def _render_overview(self) -> None:
+        if self._render_study_overview():
+            return
+        if self._overview_card.children != (self._overview,):
+            self._overview_card.children = [self._overview]
+        self._overview_card.layout.display = ""
         chars = self.context.characteristics
         head = '<div class="sk-section">Characteristics at a glance</div>'
         study_chars = getattr(self.context.study, "characteristics", None) or {}
@@ -288,6 +312,49 @@ class Workbook(widgets.VBox):
             f"<tbody>{rows}</tbody></table>")
 
 
+    def _render_study_overview(self) -> bool:
+        """The study overview in the card below the steps; False when no study file is open."""
+        from studykit.app.overview import OverviewPanel, workspace
+
+        ws = workspace(self.context)
+        if ws is None:
+            self._overview_panel = None
+            return False
+        if self._overview_panel is None or self._overview_panel.ws is not ws:
+            self._overview_panel = OverviewPanel(ws)
+            self._overview_panel.render()
+        current = self.step(self.current) if self.current in self._built else None
+        if isinstance(getattr(current, "overview", None), OverviewPanel):
+            # the open step shows the overview itself: no second copy below it
+            self._overview_card.children = []
+            self._overview_card.layout.display = "none"
+            return True
+        self._overview_panel.render(force=False)
+        if self._overview_card.children != (self._overview_panel,):
+            self._overview_card.children = [self._overview_panel]
+        self._overview_card.layout.display = ""
+        return True
+
+
+def study_state(study) -> str:
+    """Short state of a loaded study for the header (the words of the study session).
+
+    "Approved · locked" while an approval is valid, "Approval voided" when one was voided,
+    "Signed in part" when some sign-off is valid, else "Study open".
+    """
+    if study is None:
+        return STATE_NO_STUDY
+    if getattr(study, "is_locked", False):
+        return "Approved · locked"
+    signoff_state = getattr(study, "signoff_state", None)
+    states = signoff_state() if callable(signoff_state) else []
+    if any(st.signoff.is_approval and not st.valid for st in states):
+        return "Approval voided"
+    if any(st.valid for st in states):
+        return "Signed in part"
+    return "Study open"
+
+
 def _count_values(ch) -> str:
     values = getattr(ch, "values", None)
     if values is None:
@@ -313,7 +380,7 @@ def load_study_into(context: WorkbookContext, path: str | os.PathLike) -> None:
     study = opener(path)
     context.update(study_path=path, study=study,
                    title=getattr(study, "title", "") or path.stem,
-                   part=getattr(study, "part", "") or "", state="Study open")
+                   part=getattr(study, "part", "") or "", state=study_state(study))
 
 
 def _study_opener():
