@@ -352,3 +352,24 @@ def test_capability_bounds_unchanged_by_fast_path():
     # reference: the 5 % quantile of the generic draws (numpy.quantile, default method)
     assert fast.bounds["ppk"]["lower_bound"] == pytest.approx(
         float(np.quantile(generic["ppk"], 0.05)), rel=1e-12)
+
+
+# ----------------------------------------------------------------------------- saved study
+
+
+def test_cli_all_on_a_saved_study_equals_analyze_all(repo_root, capsys):
+    from studykit.analysis import analyze_all
+    from studykit.store import StudyFile
+
+    path = repo_root / "demo_data" / "pump_housing_pilot.study"
+    if not path.exists():
+        pytest.skip("demo study file not built")
+    assert main(["analyze", "--study", str(path), "--all", "--json", "--jobs", "1"]) == 0
+    rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines()]
+    # reference: the study route, analyze_all(study) with its settings and exclusions
+    expected = analyze_all(StudyFile(path).load())
+    assert [r["characteristic"] for r in rows] == list(expected.results) + list(expected.errors)
+    for r in rows:
+        if r["characteristic"] in expected.results:
+            head = expected.results[r["characteristic"]].headline()
+            assert {k: r[k] for k in head} == head
