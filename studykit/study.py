@@ -1226,6 +1226,28 @@ def _check_chart_fits(c: Characteristic, chart: str) -> None:
         )
 
 
+def _check_chart_against_counts(c: Characteristic, found) -> None:
+    """Refuse an individuals chart for subgrouped data and an X-bar chart for individuals
+    (``found`` is the data of ``c``, with ``subgroup_counts``); a subgroup size in the spec
+    makes subgroups of individual values."""
+    counts = getattr(found, "subgroup_counts", None)
+    if c.chart not in ("imr", "xbar_r", "xbar_s") or counts is None or not len(counts):
+        return
+    largest = int(max(counts))
+    if c.chart == "imr" and largest > 1:
+        raise SpecError(
+            f"characteristic '{c.name}': the data have subgroups of up to {largest} values; the "
+            "individuals chart (imr) needs one value per subgroup. Use auto, xbar_r or xbar_s",
+            column="chart", value=c.chart,
+        )
+    if c.chart in ("xbar_r", "xbar_s") and largest == 1 and not (c.subgroup_size or 1) > 1:
+        raise SpecError(
+            f"characteristic '{c.name}': the data hold one value per subgroup; the {c.chart} "
+            "chart needs subgroups of 2 or more. Use auto or imr, or give a subgroup_size",
+            column="chart", value=c.chart,
+        )
+
+
 def _check_criteria_fits(c: Characteristic, crit: Criteria) -> None:
     if crit.index in ("cp", "pp") and not c.two_sided:
         raise SpecError(
@@ -1281,32 +1303,34 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
     (12.03, 'Cpk lower 95% bound >= 1.33')
     """
     import csv
-    import io
 
     try:
         text = bytes(data).decode("utf-8-sig")
     except UnicodeDecodeError:
         text = bytes(data).decode("cp1252", errors="replace")
-    lines = [ln for ln in text.splitlines() if ln.strip()]
-    if not lines:
+    # (row number as a spreadsheet shows it, text) of each non-blank line
+    numbered = [(i, ln) for i, ln in enumerate(text.splitlines(), start=1) if ln.strip()]
+    if not numbered:
         raise SpecError("the specifications table is empty: it needs a header row with at least "
                         "a 'characteristic' column", file=filename)
-    sep = ";" if lines[0].count(";") > lines[0].count(",") else ","
-    rows = list(csv.reader(io.StringIO("\n".join(lines)), delimiter=sep))
+    first = numbered[0][1]
+    sep = ";" if first.count(";") > first.count(",") else ","
+    rows = [next(csv.reader([ln], delimiter=sep), []) for _, ln in numbered]
+    row_numbers = [i for i, _ in numbered]
     header = [h.strip().lower().replace(" ", "_") for h in rows[0]]
     unknown = [h for h in header if h and h not in SPEC_COLUMNS]
     if unknown:
         raise SpecError(
             f"unknown column(s) {', '.join(repr(u) for u in unknown)}: the columns are "
-            f"{', '.join(SPEC_COLUMNS)}", file=filename, row=1,
+            f"{', '.join(SPEC_COLUMNS)}", file=filename, row=row_numbers[0],
         )
     if "characteristic" not in header:
         raise SpecError("the header needs a 'characteristic' column naming each characteristic",
-                        file=filename, row=1)
+                        file=filename, row=row_numbers[0])
     chars: list[Characteristic] = []
     criteria: dict[str, Criteria] = {}
     seen: dict[str, int] = {}
-    for r, cells in enumerate(rows[1:], start=2):
+    for r, cells in zip(row_numbers[1:], rows[1:], strict=True):
         cell = {h: (cells[i].strip() if i < len(cells) else "") for i, h in enumerate(header) if h}
         if sep == ";":
             for key in ("lsl", "usl", "target", "threshold", "confidence"):
@@ -1339,6 +1363,8 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
                 model=_check_model(cell.get("model") or "auto"),
                 description=cell.get("description", ""),
             )
+            if c.chart != "auto":
+                _check_chart_fits(c, c.chart)
             crit_cells = {k: cell.get(k, "") for k in ("criterion", "threshold", "basis",
                                                        "confidence")}
             if any(crit_cells.values()):
@@ -1400,6 +1426,13 @@ def match_to_data(characteristics: Iterable[Characteristic], criteria: Mapping[s
                 f"say '{found.unit}': convert one of them so both agree", column="unit",
             )
         new = dataclasses.replace(c, name=found.name, unit=unit or found.unit)
+        if c.size_column is not None and c.size_column not in measurements.names:
+            raise SpecError(
+                f"characteristic '{c.name}': the size column '{c.size_column}' is not in the "
+                f"data (the data have: {', '.join(repr(n) for n in measurements.names)}): "
+                "correct the name", column="size_column", value=c.size_column,
+            )
+        _check_chart_against_counts(new, found)
         out.append(new)
         if c.name in criteria:
             crit_out[found.name] = criteria[c.name]

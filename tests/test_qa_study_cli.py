@@ -226,3 +226,34 @@ def test_python_api_attribute_chart_needs_size_column():
               characteristics=[Characteristic("d", chart="c")])
     with pytest.raises(SpecError, match=r"the p chart of 'd' needs the subgroup sizes"):
         s.with_decision(Decision("d", "set_chart", who="A", reason="r", payload={"chart": "p"}))
+
+
+# -- specs tables that would make every analysis fail (defect: accepted by `study new`) ---------
+
+
+@pytest.mark.parametrize("table, message", [
+    ("characteristic,lsl,usl,chart\n\nface_runout,,0.05,\nbore_diameter,11.97,12.03,imr\n",
+     "row 4, column 'chart': characteristic 'bore_diameter': the data have subgroups of up to 5"),
+    ("characteristic,lsl,usl,chart\nbore_diameter,11.97,12.03,p\n",
+     "row 2: 'bore_diameter' has specification limits, so it holds measured values"),
+    ("characteristic,chart,size_column\nleak_test_defectives,p,lot_sz\n",
+     "row 2, column 'size_column': characteristic 'leak_test_defectives': the size column "
+     "'lot_sz' is not in the data"),
+    ("characteristic,chart\nleak_test_defectives,p\n",
+     "the p chart of 'leak_test_defectives' needs the subgroup sizes"),
+])
+def test_new_refuses_specs_the_data_cannot_use(tmp_path, capsys, table, message):
+    specs = tmp_path / "specs.csv"
+    specs.write_text(table)
+    assert cli("study", "new", tmp_path / "x.study", "--data",
+               ROOT / "demo_data" / "pump_housing_pilot.csv", "--data",
+               ROOT / "demo_data" / "leak_test_lots.csv", "--specs", specs, "--who", "QA") == 2
+    assert message in capsys.readouterr().err
+    assert not (tmp_path / "x.study").exists()
+
+
+def test_specs_row_numbers_count_blank_lines():
+    # defect: blank lines were dropped before numbering, so errors named the wrong row
+    table = b"characteristic,usl,safety_critical\n\n\nbore,12,maybe\n"
+    with pytest.raises(SpecError, match=r"row 4, column 'safety_critical'"):
+        read_specs_bytes(table, "specs.csv")

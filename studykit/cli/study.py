@@ -148,8 +148,9 @@ def run_new(args) -> int:
         )
     else:
         specs, spec_criteria = read_specs(args.specs)
+        spec_rows = _spec_rows(args.specs)
         matched = []
-        for c in specs:
+        for k, c in enumerate(specs):
             home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
             if home is None:
                 home = next((i for i, m in enumerate(readings)
@@ -159,7 +160,8 @@ def run_new(args) -> int:
                     [c], {k: v for k, v in spec_criteria.items() if k == c.name}, readings[home]
                 )
             except SpecError as exc:
-                raise SpecError(exc.detail, file=args.specs, column=exc.column,
+                row = spec_rows[k] if k < len(spec_rows) else None
+                raise SpecError(exc.detail, file=args.specs, row=row, column=exc.column,
                                 value=exc.value) from None
             c2 = one[0]
             if home:
@@ -188,6 +190,17 @@ def run_new(args) -> int:
     if missing:
         print(f"no specification for: {', '.join(missing)} (not part of the study)")
     return 0
+
+
+def _spec_rows(path) -> list[int]:
+    """Spreadsheet row of each characteristic of a specs table, in table order (the table has
+    one characteristic per non-blank row under its header, as read_specs reads it)."""
+    data = Path(path).read_bytes()
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        text = data.decode("cp1252", errors="replace")
+    return [i for i, ln in enumerate(text.splitlines(), start=1) if ln.strip()][1:]
 
 
 # -- show ---------------------------------------------------------------------------------------
