@@ -257,3 +257,11 @@ def test_specs_row_numbers_count_blank_lines():
     table = b"characteristic,usl,safety_critical\n\n\nbore,12,maybe\n"
     with pytest.raises(SpecError, match=r"row 4, column 'safety_critical'"):
         read_specs_bytes(table, "specs.csv")
+
+
+def test_empty_who_does_not_become_the_login_name(study, capsys):
+    # defect: --who "" silently signed with the login name
+    assert cli("study", "sign", study, "--role", "approved", "--decision", "approve",
+               "--who", " ") == 2
+    assert "`--who` is empty" in capsys.readouterr().err
+    assert StudyFile(study).load().signoffs == ()

@@ -35,6 +35,18 @@ def _default_who() -> str:
         return "unknown"
 
 
+def _who(args) -> str:
+    """The person named with --who, else the login name; an explicitly empty --who is refused
+    (a decision or signature must not fall back to the login name by accident)."""
+    if args.who is None:
+        return _default_who()
+    if not args.who.strip():
+        raise StudyInputError("`--who` is empty: give the name of the person who decides or "
+                              "signs, e.g. --who 'A. Ruiz' (or leave --who out to use the login "
+                              "name)")
+    return args.who.strip()
+
+
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "study",
@@ -176,7 +188,7 @@ def run_new(args) -> int:
     sf = StudyFile.create(
         target, data=paths[0].read_bytes(), filename=names[0],
         title=args.title or paths[0].stem, part=args.part, supplier=args.supplier,
-        characteristics=chars, criteria=criteria, who=args.who or _default_who(),
+        characteristics=chars, criteria=criteria, who=_who(args),
         overwrite=args.force, extra_files=[(p.name, p.read_bytes()) for p in paths[1:]],
     )
     study = sf.load()
@@ -328,7 +340,7 @@ def _check_subgroup(study: Study, name: str, label: str, action: str) -> None:
 
 def run_decision(args) -> int:
     sf = StudyFile(args.studyfile)
-    who = args.who or _default_who()
+    who = _who(args)
     label = args.subgroup.strip()
     _check_subgroup(sf.load(), args.characteristic, label, args.action)
     if args.action == "exclude":
@@ -388,7 +400,7 @@ def _limit(text):
 def run_set(args) -> int:
     from studykit.study import Criteria, Decision
 
-    who = args.who or _default_who()
+    who = _who(args)
     lock = _lock_kw(args)
     name = args.characteristic
     spec_changes = {}
@@ -436,14 +448,14 @@ def run_set(args) -> int:
 
 
 def run_comment(args) -> int:
-    StudyFile(args.studyfile).add_comment(args.text, who=args.who or _default_who(),
+    StudyFile(args.studyfile).add_comment(args.text, who=_who(args),
                                           characteristic=args.characteristic)
     print("comment added")
     return 0
 
 
 def run_sign(args) -> int:
-    s = StudyFile(args.studyfile).add_signoff(args.who or _default_who(), role=args.role,
+    s = StudyFile(args.studyfile).add_signoff(_who(args), role=args.role,
                                               decision=args.decision, comment=args.comment)
     print(f"signed as {s.role} ({s.decision}); study digest {s.digest}")
     return 0
