@@ -373,3 +373,19 @@ def test_cli_all_on_a_saved_study_equals_analyze_all(repo_root, capsys):
         if r["characteristic"] in expected.results:
             head = expected.results[r["characteristic"]].headline()
             assert {k: r[k] for k in head} == head
+
+
+def test_progress_bar_on_a_terminal_stream():
+    from studykit.cli.batch import ProgressBar
+
+    buf = io.StringIO()
+    bar = ProgressBar(buf, width=10, force=True)
+    bar(5, 10, "bore")
+    bar(10, 10, "gap")
+    bar.close()
+    text = buf.getvalue()
+    assert "\r[#####-----] 5/10 bore" in text and "[##########] 10/10 gap" in text
+    assert text.endswith("\n")
+    silent = io.StringIO()
+    ProgressBar(silent)(1, 2, "x")  # not a terminal: no output
+    assert silent.getvalue() == ""
