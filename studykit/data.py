@@ -1593,12 +1593,17 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         notes.append(f"notes from column '{header[n_idx]}'")
 
     ctx = _Ctx(src, table)
-    if layout == "wide":
-        result = _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
-                                notes, warnings_)
-    else:
-        result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
-                                n_idx, subgroup_size, notes, warnings_)
+    try:
+        if layout == "wide":
+            result = _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
+                                    notes, warnings_)
+        else:
+            result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
+                                    n_idx, subgroup_size, notes, warnings_)
+    except DataFileError:
+        if src.kind == "xlsx":
+            _check_unsaved_formulas(src, table)  # the real cause of an "empty" label or cell
+        raise
     characteristics, n_rows = result
     _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     if src.kind == "xlsx" and (any(c.n_missing for c in characteristics)

@@ -224,3 +224,18 @@ def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
     wb.save(path)
     m = read_measurements(path)
     assert m.get("Bore").n_missing == 1 and m.names == ("Bore",)
+
+
+def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
+    # before: "this row has values but no subgroup label", although the label is a formula
+    openpyxl = pytest.importorskip("openpyxl")
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Subgroup", "Bore [mm]"])
+    for b in (12.001, 12.002, 12.003, 12.004):
+        ws.append(["=ROUNDUP((ROW()-1)/2,0)", b])
+    path = tmp_path / "labels.xlsx"
+    wb.save(path)
+    with pytest.raises(DataFileError, match=r"row 2, column 'Subgroup': the cell holds the "
+                                            r"formula '=ROUNDUP"):
+        read_measurements(path)
