@@ -1172,7 +1172,10 @@ def _summary_word(text, words=_SUMMARY_WORDS) -> bool:
     """True when a label cell reads like the label of a totals/summary row ('Total:', 'Mean')."""
     if not isinstance(text, str):
         return False
-    key = re.sub(r"\s+", " ", text.strip().rstrip(":.=").strip()).casefold()
+    key = text.strip()
+    if not key or len(key) > 24 or key[0].isdigit():  # quick exit for the usual labels
+        return False
+    key = re.sub(r"\s+", " ", key.rstrip(":.=").strip()).casefold()
     return key in words
 
 
@@ -1199,15 +1202,24 @@ def _summary_row_error(file, row: int, column: str, label: str) -> DataFileError
 def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
     """Refuse a totals/mean row at the foot of a table (labelled 'Total', 'Mean', 'Summe'...)
     in the subgroup or time column: its numbers would otherwise enter the analysis."""
+    import pandas as pd
+
+    seen: set[int] = set()  # arrays shared by several characteristics are looked at once
     for c in characteristics:
         columns = []
-        if sg_idx is not None:
-            columns.append((header[sg_idx], c.subgroups))
+        if sg_idx is not None and id(c.subgroup_labels) not in seen:
+            seen.add(id(c.subgroup_labels))
+            labels = np.asarray(c.subgroup_labels).astype(str)
+            if labels.size:  # only labels starting with a letter can be summary words
+                first = np.char.lstrip(labels).astype("U1")
+                labels = labels[np.char.isalpha(first)]
+            columns.append((header[sg_idx], c.subgroups, labels.tolist()))
         if t_idx is not None and c.times is not None and c.times.dtype.kind == "O":
-            columns.append((header[t_idx], c.times))
-        for column, cells in columns:
-            uniq = set(np.unique(np.asarray(cells, dtype=object).astype(str)).tolist())
-            hits = {u for u in uniq if _summary_word(u)}
+            if id(c.times) not in seen:
+                seen.add(id(c.times))
+                columns.append((header[t_idx], c.times, pd.unique(c.times).tolist()))
+        for column, cells, uniq in columns:
+            hits = {str(u) for u in uniq if _summary_word(str(u))}
             if hits:
                 i = next(i for i, v in enumerate(cells.tolist()) if str(v) in hits)
                 raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
