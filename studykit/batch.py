@@ -12,14 +12,12 @@ One characteristic that cannot be analysed gives a row with its error message; i
 stops the batch. A characteristic with no specification is analysed for stability only and
 its row says so.
 
-:class:`BatchResult` writes the overview as JSON lines, CSV or XLSX; text cells that a
-spreadsheet would run as a formula are neutralised (see :func:`neutralise`).
+:class:`BatchResult` writes the overview as JSON lines, CSV or XLSX; CSV and XLSX go through
+:mod:`studykit.export`, which neutralises text cells a spreadsheet would run as a formula.
 """
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 import math
 import os
@@ -37,7 +35,6 @@ __all__ = [
     "BATCH_COLUMNS",
     "BatchResult",
     "NO_SPEC_NOTE",
-    "neutralise",
     "run_many",
 ]
 
@@ -66,28 +63,6 @@ CHUNKS_PER_WORKER = 4
 
 #: Seconds to wait for a Dask scheduler to answer.
 DASK_CONNECT_TIMEOUT = 10
-
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-
-
-def neutralise(value):
-    """Make a text cell safe for a spreadsheet: text starting with ``= + - @``, a tab or a
-    carriage return gets a leading apostrophe, so the spreadsheet shows it as text instead of
-    running it as a formula. Numbers, booleans and None pass unchanged.
-
-    References
-    ----------
-    OWASP, "CSV Injection" (formula characters = + - @, tab and carriage return).
-
-    Examples
-    --------
-    >>> neutralise("=1+2"), neutralise("bore"), neutralise(-1.5)
-    ("'=1+2", 'bore', -1.5)
-    """
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
-        return "'" + value
-    return value
-
 
 # ----------------------------------------------------------------------------- result
 
@@ -160,40 +135,33 @@ class BatchResult:
         return "".join(json.dumps(r, allow_nan=False) + "\n" for r in self.rows)
 
     def to_csv(self) -> str:
-        """The overview as CSV text (comma separated, header row, formula text neutralised)."""
-        buf = io.StringIO()
-        w = csv.writer(buf, lineterminator="\n")
-        w.writerow(BATCH_COLUMNS)
-        for r in self.rows:
-            w.writerow(["" if r[c] is None else neutralise(r[c]) for c in BATCH_COLUMNS])
-        return buf.getvalue()
+        """The overview as CSV text (:func:`studykit.export.csv_text`: header row, formula
+        text neutralised)."""
+        from studykit.export import csv_text
+
+        return csv_text(self._table(), header=BATCH_COLUMNS)
+
+    def _table(self):
+        return [[r[c] for c in BATCH_COLUMNS] for r in self.rows]
 
     def write(self, path) -> Path:
-        """Write the overview; the format follows the suffix: ``.csv``, ``.xlsx``, ``.jsonl``
-        (or ``.json``: JSON lines as well)."""
+        """Write the overview; the format follows the suffix: ``.csv``, ``.xlsx`` (sheet
+        ``overview``), ``.jsonl`` (or ``.json``/``.ndjson``: JSON lines as well)."""
+        from studykit.export import write_csv, write_xlsx
+
         p = Path(path)
         suffix = p.suffix.lower()
         if suffix == ".csv":
-            p.write_text(self.to_csv(), encoding="utf-8")
+            write_csv(p, self._table(), header=BATCH_COLUMNS)
         elif suffix in (".jsonl", ".json", ".ndjson"):
             p.write_text(self.to_jsonl(), encoding="utf-8")
         elif suffix == ".xlsx":
-            self._write_xlsx(p)
+            write_xlsx(p, self._table(), header=BATCH_COLUMNS, sheet="overview")
         else:
             raise StudyInputError(
                 f"the summary file '{p.name}' has suffix '{p.suffix}': use .csv, .xlsx or .jsonl"
             )
         return p
-
-    def _write_xlsx(self, p: Path) -> None:
-        from openpyxl import Workbook
-
-        wb = Workbook(write_only=True)
-        ws = wb.create_sheet("overview")
-        ws.append(list(BATCH_COLUMNS))
-        for r in self.rows:
-            ws.append([neutralise(r[c]) for c in BATCH_COLUMNS])
-        wb.save(p)
 
 
 def _f(v):
