@@ -1225,15 +1225,47 @@ def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
                 raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
 
 
-def _check_unsaved_formulas(src, table) -> None:
+def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None) -> None:
     """Refuse formula cells whose results were never saved in the workbook.
 
     A workbook written by a program that does not calculate (a script, some exports) stores
     formulas without their results; read for values, those cells look empty, so a computed
     column would be skipped as empty or its cells counted as missing. Only called when some
-    cells or columns came out empty, since it reads the sheet a second time.
+    cells or columns came out empty, since it reads the sheet a second time. ``targets``
+    ``{column index: row}`` names the one cell per column to look at (the first empty one):
+    then only the rows down to the last target are read, and only for formulas.
     """
     import openpyxl
+
+    if targets:
+        handle = src.binary()
+        try:
+            wb = openpyxl.load_workbook(handle, read_only=True, data_only=False)
+        except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError):
+            handle.close()
+            return
+        try:
+            ws = wb[table.sheet]
+            width = len(table.header)
+            start, stop = table.header_row + 1, max(targets.values())
+            rows = ws.iter_rows(min_row=start, max_row=stop, max_col=width, values_only=True)
+            for r, formulas in enumerate(rows, start=start):
+                for j, row in targets.items():
+                    f = formulas[j] if formulas is not None and j < len(formulas) else None
+                    if row == r and isinstance(f, str) and f.startswith("="):
+                        raise DataFileError(
+                            f"the cell holds the formula '{_show(f)}' but no stored result: the "
+                            "workbook was saved by a program that does not calculate formulas, "
+                            "so the value is unknown. Open the workbook in a spreadsheet "
+                            "program, let it calculate, save it, and load it again (or paste "
+                            "the values).",
+                            file=src.name, row=r, column=table.header[j] or _col_letter(j),
+                            value=f,
+                        )
+        finally:
+            wb.close()
+            handle.close()
+        return
 
     handle, handle_values = src.binary(), src.binary()
     try:
@@ -1618,8 +1650,21 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         raise
     characteristics, n_rows = result
     _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
-    if src.kind == "xlsx" and (any(c.n_missing for c in characteristics)
-                               or any(n.startswith("empty columns skipped") for n in notes)):
+    if src.kind == "xlsx" and layout == "wide":
+        # the first empty cell of each value column is where an unsaved formula would show
+        targets: dict[int, int] = {}
+        by_name = {c.name: c for c in characteristics}
+        for j, h in enumerate(header):
+            if not h or j in role:
+                continue
+            c = by_name.get(parse_header(h)[0])
+            if c is None:  # a skipped (empty) column
+                targets[j] = hrow + 1
+            elif c.n_missing:
+                targets[j] = int(c.rows[int(np.argmax(np.isnan(c.values)))])
+        if targets:
+            _check_unsaved_formulas(src, table, targets)
+    elif src.kind == "xlsx" and any(c.n_missing for c in characteristics):
         _check_unsaved_formulas(src, table)
     for col, k in ctx.text_numbers.items():
         notes.append(

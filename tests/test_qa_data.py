@@ -239,3 +239,19 @@ def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
     with pytest.raises(DataFileError, match=r"row 2, column 'Subgroup': the cell holds the "
                                             r"formula '=ROUNDUP"):
         read_measurements(path)
+
+
+def test_some_formula_cells_without_results_are_refused(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])
+    ws.append([1, 12.001, 24.0])
+    ws.append([1, 12.002, 24.1])
+    ws.append([2, 12.003, "=B4*2"])
+    ws.append([2, 12.004, 24.2])
+    path = tmp_path / "part.xlsx"
+    wb.save(path)
+    with pytest.raises(DataFileError, match=r"row 4, column 'Width \[mm\]': the cell holds the "
+                                            r"formula '=B4\*2'"):
+        read_measurements(path)
