@@ -140,7 +140,7 @@ class AnalysisOptions:
             )
         if self.model is not None:
             model = str(self.model).strip().lower()
-            known = ("auto", "normal", *_TRANSFORMS, *fit_module.FAMILIES)
+            known = tuple(dict.fromkeys(("auto", "normal", *_TRANSFORMS, *fit_module.FAMILIES)))
             if model not in known:
                 raise StudyInputError(
                     f"`model` ({self.model!r}) is not a model we know; use one of "
@@ -589,7 +589,9 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl):
     if model is None:
         row = next((r for r in ranking.rows if r.id == requested), None)
         why = row.error if row is not None and row.error else "the fit did not converge"
-        raise AnalysisError(f"the model '{requested}' cannot be fitted to these data: {why}.")
+        raise AnalysisError(
+            f"the model '{requested}' cannot be fitted to these data: {str(why).rstrip('.')}."
+        )
     if not positive and requested != "normal":
         notes.append("the data contain values <= 0")
     return (
@@ -700,6 +702,12 @@ def analyze_characteristic(
                 f"the size column has {size_arr.size} entries but '{name}' has {values.size}; "
                 "give one lot size per count."
             )
+    subgroup_size = options.subgroup_size or (spec.subgroup_size if spec is not None else None)
+    if subgroup_size and not attribute and len(set(labels.tolist())) == labels.size:
+        # group consecutive rows, as `studykit check` does: an empty cell stays in its subgroup
+        labels = _regroup(labels, int(subgroup_size))
+    if attribute:
+        _check_counts(data, values, size_arr, kind)
     missing = np.isnan(values)
     if size_arr is not None:
         missing |= np.isnan(size_arr)
@@ -710,9 +718,6 @@ def analyze_characteristic(
     values, labels = values[keep], labels[keep]
     if size_arr is not None:
         size_arr = size_arr[keep]
-    subgroup_size = options.subgroup_size or (spec.subgroup_size if spec is not None else None)
-    if subgroup_size and not attribute and len(set(labels.tolist())) == labels.size:
-        labels = _regroup(labels, int(subgroup_size))
     if attribute and kind in ("p", "np", "u") and size_arr is None:
         raise StudyInputError(
             f"the {kind} chart of '{name}' needs the subgroup sizes: name the column that holds "
@@ -804,6 +809,11 @@ def analyze_characteristic(
         labels=kept_labels,
     )
     if x.size < 3 or overall is None or overall == 0:
+        if x.size < 3:
+            warn.append(
+                f"only {x.size} value(s) are left: no normality test, model or capability index "
+                "can be computed from so few (a capability study needs about 100 or more)"
+            )
         if overall == 0:
             warn.append(
                 "every value used is the same: the spread is zero, so no capability index can "
@@ -860,6 +870,9 @@ def analyze_characteristic(
             index=judged_index,
         )
     )
+    if chart.signals:
+        finding, verdict = _not_in_control(chart, verdict)
+        findings.insert(0, finding)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
     band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
@@ -884,6 +897,96 @@ def analyze_characteristic(
         plan=plan,
         warnings=tuple(warn),
     )
+
+
+def _signal_summary(chart: ControlChart) -> str:
+    parts = []
+    for name, series in (("location", chart.location), ("dispersion", chart.dispersion)):
+        if series is None:
+            continue
+        for sig in series.signals:
+            labels = [str(_label(chart.labels[int(p)])) for p in sig.triggers or (sig.trigger,)]
+            parts.append(f"{sig.rule} on the {name} chart at subgroup(s) {', '.join(labels[:6])}"
+                         + (" ..." if len(labels) > 6 else ""))
+    return "; ".join(parts[:5]) + (f"; and {len(parts) - 5} more" if len(parts) > 5 else "")
+
+
+def _not_in_control(chart: ControlChart, verdict):
+    """What the signals left on the final chart mean for the verdict.
+
+    A point still beyond the control limits is an unexplained special cause: the capability is
+    then not judged (``meets`` None; the numbers stay, for information). Other run-rule signals
+    (runs, trends, zone patterns) give a warning finding and a note in the verdict text but do
+    not withhold it: with every Nelson test on, in-control data raise such a signal now and then
+    (each rule has its own false-alarm rate), so the engineer weighs them.
+    """
+    n = len(chart.signals)
+    beyond = [s for s in chart.signals if s.rule == "beyond_limits"]
+    where = _signal_summary(chart)
+    finding = capability_module.Finding(
+        code="not_in_control" if beyond else "run_rule_signals", severity="warning",
+        text=(f"The process is not shown to be in statistical control: the final chart has {n} "
+              f"signal(s) ({where}). Capability indices describe a stable process only; find "
+              "the special causes and record each removal with its reason, or record why the "
+              "signals are not special causes, before relying on the indices."),
+    )
+    if verdict is None:
+        return finding, None
+    if not beyond:
+        return finding, replace(
+            verdict, text=verdict.text + f" Read it with the {n} run-rule signal(s) on the final "
+                                         "chart in mind (see the findings).")
+    est = "-" if verdict.estimate is None else f"{verdict.estimate:.2f}"
+    low = "-" if verdict.lower_bound is None else f"{verdict.lower_bound:.2f}"
+    name = _PRETTY_INDEX.get(verdict.index, verdict.index)
+    text = (f"Not judged: {len(beyond)} point(s) still lie beyond the control limits of the "
+            f"final chart, so the process is not shown to be in statistical control. For "
+            f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
+            f"against the required {verdict.threshold:g}.")
+    return finding, replace(verdict, meets=None, text=text)
+
+
+_PRETTY_INDEX = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+
+
+def _check_counts(data, values, sizes, kind):
+    """Counts (and sizes) of an attribute chart: whole, non-negative, count <= size for p/np."""
+    rows = getattr(data, "rows", None)
+    name = data.name
+
+    def row_of(i):
+        return None if rows is None else int(rows[i])
+
+    for i, v in enumerate(values):
+        if np.isnan(v):
+            continue
+        if v < 0 or v != np.floor(v):
+            raise AnalysisError(
+                f"'{_fmt_num(v)}' is not a count: a {kind} chart needs whole numbers of defectives "
+                "or defects, 0 or more; check that this is the count column", row=row_of(i),
+                column=name, value=_fmt_num(v),
+            )
+        if sizes is None:
+            continue
+        n = sizes[i]
+        if np.isnan(n):
+            continue
+        if n <= 0:
+            raise AnalysisError(
+                f"the subgroup size is '{_fmt_num(n)}'; sizes must be greater than 0",
+                row=row_of(i), column="size column", value=_fmt_num(n),
+            )
+        if kind in ("p", "np") and v > n:
+            raise AnalysisError(
+                f"{_fmt_num(v)} defectives in a subgroup of {_fmt_num(n)}: a count cannot exceed "
+                "its subgroup size; check the count and size columns", row=row_of(i),
+                column=name, value=_fmt_num(v),
+            )
+
+
+def _fmt_num(v) -> str:
+    v = float(v)
+    return str(int(v)) if v.is_integer() else f"{v:g}"
 
 
 #: Marker for "the study was searched for a gauge study and none is attached".
@@ -973,8 +1076,10 @@ def _attribute_result(common, chart, counts, sizes, labels, warn, level):
     nominal = None
     if sizes is not None and np.allclose(sizes, sizes[0]):
         nominal = int(sizes[0]) if float(sizes[0]).is_integer() else None
+    findings = (_not_in_control(chart, None)[0],) if chart.signals else ()
     return CharacteristicResult(
         **common,
+        findings=findings,
         n=int(counts.size),
         subgroup_size=nominal,
         mean=float(chart.center_value),

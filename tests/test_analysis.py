@@ -248,3 +248,24 @@ def test_box_cox_model_reports_lambda_and_transformed_specs():
     lo, hi = stats.boxcox(np.array([5.49, 5.79]), lam)
     ppk = min(hi - y.mean(), y.mean() - lo) / (3 * y.std(ddof=1))
     assert_allclose(res.capability.ppk, ppk, rtol=1e-4)
+
+
+def test_points_left_beyond_the_limits_withhold_the_verdict():
+    # behaviour check (no reference value): Bissell's data with one value moved far out
+    x = bissell().copy()
+    x[40] = 6.2
+    data = CharacteristicData("y", None, x)
+    spec = Characteristic("y", lsl=5.0, usl=6.5)
+    off = analyze_characteristic(data, spec, criteria=Criteria(index="ppk", threshold=1.0),
+                                 options=AnalysisOptions(chart="imr", phase1="off",
+                                                         model="normal"))
+    assert any(s.rule == "beyond_limits" for s in off.chart.signals)
+    assert off.verdict.meets is None and off.verdict.text.startswith("Not judged")
+    assert off.verdict.estimate is not None  # the numbers stay, for information
+    assert off.findings[0].code == "not_in_control"
+    # once the point is removed (automatically here), the verdict is given
+    auto = analyze_characteristic(data, spec, criteria=Criteria(index="ppk", threshold=1.0),
+                                  options=AnalysisOptions(chart="imr", model="normal"))
+    assert "41" in auto.removed_subgroups
+    assert not any(s.rule == "beyond_limits" for s in auto.chart.signals)
+    assert auto.verdict.meets in (True, False)

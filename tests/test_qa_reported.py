@@ -1,8 +1,7 @@
-"""Quality review: defects found in modules this reviewer may not edit, pinned as strict xfails.
+"""Quality review: defects found by the adversarial review in the analysis and its command.
 
-Each test states what a user sees now and what they should see. They are marked
-``xfail(strict=True)``: the owner of the module removes the marker together with the fix (a
-fixed defect then fails the suite until the marker goes, so none is forgotten).
+Each test states what a user must see. They were first pinned as strict xfails and the markers
+went with the fixes.
 """
 
 from __future__ import annotations
@@ -28,7 +27,6 @@ def analyze(capsys, *argv) -> tuple[int, dict | None, str]:
     return code, (json.loads(out) if code == 0 else None), err
 
 
-@pytest.mark.xfail(strict=True, reason="stats/phase1.py: rebuilt chart says 'chosen by the user'")
 def test_chart_reason_after_automatic_removal(tmp_path, capsys):
     # phase1() rebuilds the chart with kind=kind_fixed after each removal round, so the final
     # chart's reason reads "chosen by the user" although the user left --chart at auto
@@ -40,8 +38,6 @@ def test_chart_reason_after_automatic_removal(tmp_path, capsys):
     assert "individuals" in d["chart"]["reason"]
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: --subgroup-size regroups after dropping "
-                                       "empty cells, shifting every later subgroup")
 def test_subgroup_size_counts_rows_not_filled_cells(tmp_path, capsys):
     # `studykit check --subgroup-size 3` groups by rows: {1.0, 1.1, (empty)}, {1.2, 5.0, 5.1},
     # {5.2, 5.3, 5.4}. The analysis drops the empty cell first and then counts threes:
@@ -55,15 +51,12 @@ def test_subgroup_size_counts_rows_not_filled_cells(tmp_path, capsys):
     assert d["within_sigma"] > 0.5
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: --subgroup-size silently ignored when "
-                                       "the file has a subgroup column")
 def test_subgroup_size_with_subgroup_column_is_not_silently_ignored(capsys):
     code, d, err = analyze(capsys, PILOT, "-c", "bore_diameter", "--subgroup-size", "2")
     # either refused (exit 2, naming both) or honoured; now: subgroups of 5, no word
     assert code == 2 or d["subgroup_size"] == 2
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: capability silently missing with 2 values")
 def test_two_values_say_why_there_is_no_capability(tmp_path, capsys):
     path = tmp_path / "x.csv"
     path.write_text("x\n1.0\n1.2\n")
@@ -72,8 +65,6 @@ def test_two_values_say_why_there_is_no_capability(tmp_path, capsys):
     assert any("capability" in w for w in d["warnings"])
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py/stats.charts: attribute count errors give a "
-                                       "0-based position and a numpy repr, no file row")
 def test_attribute_count_error_names_file_row(capsys):
     # a measured column given as counts (a slip of -c) must name the row of the file
     code, _, err = analyze(capsys, PILOT, "-c", "bore_diameter", "--chart", "p",
@@ -82,15 +73,12 @@ def test_attribute_count_error_names_file_row(capsys):
     assert "np.float64" not in err and "row 2" in err
 
 
-@pytest.mark.xfail(strict=True, reason="cli/analyze.py: --size-column typo reported as an "
-                                       "unknown characteristic")
 def test_size_column_typo_names_the_option(capsys):
     code, _, err = analyze(capsys, LEAK, "-c", "leak_test_defectives", "--chart", "p",
                            "--size-column", "lotsize")
     assert code == 2 and "--size-column" in err
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: model error ends in '..'")
 def test_model_error_single_full_stop(tmp_path, capsys):
     path = tmp_path / "x.csv"
     path.write_text("x\n" + "\n".join(map(str, OUTLIER_FIRST)) + "\n")
@@ -100,7 +88,6 @@ def test_model_error_single_full_stop(tmp_path, capsys):
     assert ".." not in err
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: 'normal' listed twice among the models")
 def test_model_list_without_repeats(capsys):
     code, _, err = analyze(capsys, PILOT, "-c", "bore_diameter", "--model", "nope")
     assert code == 2
@@ -108,7 +95,6 @@ def test_model_list_without_repeats(capsys):
     assert len(listed) == len(set(listed))
 
 
-@pytest.mark.xfail(strict=True, reason="stats/charts.py: command-line users are told kind='imr'")
 def test_single_value_subgroup_advice_uses_command_line_words(tmp_path, capsys):
     path = tmp_path / "x.csv"
     path.write_text("subgroup,x\n1,1.0\n2,1.1\n2,1.2\n2,1.3\n")
@@ -117,8 +103,6 @@ def test_single_value_subgroup_advice_uses_command_line_words(tmp_path, capsys):
     assert "kind=" not in err
 
 
-@pytest.mark.xfail(strict=True, reason="analysis.py: capability verdict 'meets' with no word "
-                                       "that the final chart still signals (Nile level shift)")
 def test_verdict_on_unstable_process_says_so(tmp_path, capsys):
     sm = pytest.importorskip("statsmodels.datasets")
     # statsmodels.datasets.nile: Nile flow 1871-1970 with the documented drop after 1898

@@ -89,6 +89,14 @@ def _criteria(args, base=None):
 def _spec(args, name, unit, base=None):
     from studykit.study import Characteristic
 
+    if args.chart in ("p", "np", "c", "u") and (
+        args.lsl is not None or args.usl is not None or args.target is not None
+    ):
+        raise StudyInputError(
+            f"--lsl/--usl/--target do not apply to a {args.chart} chart: counted data are "
+            "judged by their defective rate or defects per unit; leave the limits out"
+        )
+
     if base is not None and args.lsl is None and args.usl is None and args.target is None:
         return base
     if args.lsl is None and args.usl is None and args.chart not in ("p", "np", "c", "u"):
@@ -170,11 +178,20 @@ def analyze_from_args(args, name):
     read_kw = {}
     if args.subgroup_column:
         read_kw["subgroup_column"] = args.subgroup_column
+    if args.subgroup_size:
+        read_kw["subgroup_size"] = args.subgroup_size
     if args.sheet:
         read_kw["sheet"] = args.sheet
     m = read_measurements(args.file, **read_kw)
     data = m.get(name)
-    sizes = m.get(args.size_column) if args.size_column else None
+    sizes = None
+    if args.size_column:
+        if args.size_column not in m.names:
+            raise StudyInputError(
+                f"--size-column '{args.size_column}' is not a column of the file (its columns: "
+                + ", ".join(m.names) + ")", file=args.file,
+            )
+        sizes = m.get(args.size_column)
     spec = _spec(args, name, data.unit)
     return analyze_characteristic(
         data, spec, criteria=_criteria(args), sizes=sizes, options=options

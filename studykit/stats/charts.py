@@ -687,14 +687,15 @@ def control_chart(
             bad = labels[int(np.argmax(sizes_arr > 1))]
             raise StudyInputError(
                 f"the individuals chart needs one value per subgroup, but subgroup {bad!r} has "
-                f"{int(sizes_arr.max())}; use kind='xbar_r' or 'xbar_s', or drop `subgroups`."
+                f"{int(sizes_arr.max())}; use an X-bar/R or X-bar/S chart (xbar-r, xbar-s), or "
+                "analyse the values as individuals without subgroups."
             )
     else:
         if sizes_arr.min() < 2:
             bad = labels[int(np.argmin(sizes_arr))]
             raise AnalysisError(
                 f"subgroup {bad!r} has a single value; {kind} charts need at least 2 values per "
-                "subgroup. Merge or exclude it, or use the individuals chart (kind='imr')."
+                "subgroup. Merge or exclude it, or use the individuals chart (imr)."
             )
         if sizes_arr.max() > MAX_SUBGROUP_SIZE:
             raise AnalysisError(

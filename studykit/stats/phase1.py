@@ -24,6 +24,7 @@ the moving range is taken across the gap. A warning is raised when more than 10 
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import warnings
 from dataclasses import dataclass
@@ -397,6 +398,9 @@ def phase1(
             )
         chart = build(kind_fixed)
 
+    if chart.reason != trial.reason and kind == "auto":
+        # rebuilt with the kind fixed in round 1: keep the reason the automatic choice gave
+        chart = dataclasses.replace(chart, reason=trial.reason)
     total = n_items if not attribute else n_items
     kept_n = chart.n_values
     share = 1.0 - kept_n / total
