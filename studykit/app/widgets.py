@@ -56,6 +56,7 @@ CSS = f"""
 .sk-stepbar .sk-step.sk-current {{ color: {theme.INK}; font-weight: 600;
   border-bottom-color: {theme.OKABE_ITO['blue']}; }}
 .sk-stepbar .sk-step.sk-done {{ color: {theme.INK}; }}
+.sk-stepbar .sk-step:focus:not(:focus-visible) {{ outline: none; }}
 .sk-guidance {{ padding: 10px 22px; border: 1px solid {theme.RULE}; border-top: none;
   background: #FFFFFF; color: {theme.INK_SOFT}; }}
 .sk-guidance b {{ color: {theme.INK}; }}

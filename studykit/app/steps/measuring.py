@@ -127,7 +127,9 @@ def gauge_result_from_payload(payload: Mapping):
 
     try:
         cube = payload["values"]
-        parts, apprs = payload["part_labels"], payload["appraiser_labels"]
+        # whole-number labels compare as numbers (part 10 after part 9), as when first read
+        parts = [_natural(x) for x in payload["part_labels"]]
+        apprs = [_natural(x) for x in payload["appraiser_labels"]]
         vals, pl, al, tl = [], [], [], []
         for i, row in enumerate(cube):
             for j, cell in enumerate(row):
@@ -146,6 +148,13 @@ def gauge_result_from_payload(payload: Mapping):
                     study_variation=payload.get("study_variation", 6.0),
                     lsl=payload.get("lsl"), usl=payload.get("usl"),
                     confidence=payload.get("confidence", 0.95))
+
+
+def _natural(label):
+    """'7' -> 7 (numbers sort as numbers); anything else unchanged."""
+    if isinstance(label, str) and label.strip().lstrip("-").isdigit():
+        return int(label)
+    return label
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
@@ -272,6 +281,14 @@ def _chip(status: str | None) -> str:
             f'border-color:{v.color}">{v.symbol} {esc(word)}</span>')
 
 
+def _num(v) -> str:
+    """A limit as written (7.9, not 7.9000)."""
+    try:
+        return f"{float(v):.6g}"
+    except (TypeError, ValueError):
+        return "—"
+
+
 def _pct(v) -> str:
     return "—" if v is None else f"{fmt(v, 1)} %"
 
@@ -303,8 +320,8 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
                         f"{payload.get('n_appraisers', '?')} appraisers × "
                         f"{payload.get('n_trials', '?')} trials")]
     if payload.get("tolerance") is not None:
-        facts.append(("Tolerance", f"{fmt(payload.get('lsl'), 4)} to {fmt(payload.get('usl'), 4)}"
-                                   f" (width {fmt(payload.get('tolerance'), 4)})"))
+        facts.append(("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"
+                                   f" (width {_num(payload.get('tolerance'))})"))
     source = payload.get("source_file") or payload.get("source")
     if source:
         facts.append(("Data file", str(source)))
@@ -601,7 +618,9 @@ class GaugeStep:
         self.components.value = components_html(payload)
         self.anova.value = anova_html(payload)
         self.range_method.value = range_method_html(payload)
-        notes = [n for n in payload.get("notes") or [] if n]
+        # the pooling note is already said above the ANOVA table
+        notes = [n for n in payload.get("notes") or []
+                 if n and not (payload.get("interaction_pooled") and "pooled" in n)]
         self.notes.value = "".join(
             f'<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">Note</span>{esc(n)}'
             "</div>" for n in notes)
