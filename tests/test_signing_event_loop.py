@@ -22,4 +22,8 @@ def test_outside_event_loop_runs_asyncio_run_inside_a_running_loop():
         # as in a Jupyter kernel: a loop runs in this thread, so asyncio.run would fail here
         return outside_event_loop(uses_asyncio_run)
 
-    assert asyncio.run(main()) == 7
+    # run the scenario in a thread of its own, so a loop left by other tests does not matter
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        assert pool.submit(lambda: asyncio.run(main())).result() == 7
