@@ -1,5 +1,6 @@
 """Journey in chromium: open the demo study (a copy), open "Gauge check", see the stored gauge
-study's verdict and its figures. Screenshots go to test-artifacts/gauge-*.png.
+study's verdict and its figures, then run a new gauge study from the demo readings and attach it
+with a name and a reason. Screenshots go to test-artifacts/gauge-*.png.
 """
 
 from __future__ import annotations
@@ -52,10 +53,14 @@ def shot(page, name: str, *, full: bool = False) -> None:
 
 def test_gauge_journey(browser, gauge_server, artifacts):
     url, path = gauge_server
+    fresh = path.with_name("fresh.study")
+    shutil.copy(path, fresh)
+    readings = (ROOT / "demo_data" / "gauge_flange_thickness.csv").read_bytes()
     stored = StudyFile(path).results("gauge_rr", NAME)[-1]
     pct = f"{stored.payload['verdict']['pct_grr_study_variation']:.1f} %"
 
     def journey(page, console):
+        shutil.copy(fresh, path)  # a retry starts from the same file
         page.goto(url, wait_until="domcontentloaded")
         page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
         page.locator(".sk-step-measuring").click()
@@ -78,8 +83,30 @@ def test_gauge_journey(browser, gauge_server, artifacts):
         assert page.locator("img.sk-gauge-figure").count() == 6
         shot(page, "1280")
         shot(page, "full-1280", full=True)
+
+        # a new study from the readings: columns guessed, preview, attach with name and reason
+        with page.expect_file_chooser() as chooser:
+            page.locator(".sk-gauge-upload").click()
+        chooser.value.set_files(files=[{"name": "gauge_flange_thickness.csv",
+                                        "mimeType": "text/csv", "buffer": readings}])
+        page.wait_for_selector(".sk-gauge-compute:not([disabled])")
+        assert page.locator(".sk-gauge-col-value select").input_value() == "value"
+        assert page.locator(".sk-gauge-lsl input").input_value() == "7.9"
+        page.locator(".sk-gauge-compute").click()
+        page.wait_for_selector(".sk-gauge-preview :text('Preview (not stored yet)')")
+        page.locator(".sk-who input").first.fill("A. Tester")
+        page.locator(".sk-gauge-reason input").fill("gauge GR-07 after recalibration")
+        page.wait_for_selector(".sk-gauge-attach:not([disabled])")
+        page.locator(".sk-gauge-new").scroll_into_view_if_needed()
+        page.wait_for_timeout(400)
+        shot(page, "preview-1280")
+        page.locator(".sk-gauge-attach").click()
+        page.wait_for_selector(":text('Gauge study attached to flange_thickness')")
+        page.wait_for_selector(".sk-gauge-stored :text('A. Tester')")
         body = page.locator("body").inner_text()
         assert "Traceback" not in body and "Something went wrong" not in body
         return True
 
     assert run_with_retry(browser, journey, viewport={"width": 1280, "height": 800})
+    new = StudyFile(path).results("gauge_rr", NAME)[-1]
+    assert (new.who, new.payload["reason"]) == ("A. Tester", "gauge GR-07 after recalibration")
