@@ -341,6 +341,11 @@ def study_state(study) -> str:
 
     "Approved · locked" while an approval is valid, "Approval voided" when one was voided,
     "Signed in part" when some sign-off is valid, else "Study open".
+
+    Examples
+    --------
+    >>> study_state(None)
+    'No study loaded'
     """
     if study is None:
         return STATE_NO_STUDY

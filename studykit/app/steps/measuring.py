@@ -161,6 +161,14 @@ def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) 
     """The gauge figures of ``result`` as PNG bytes, by the keys of :data:`FIGURE_TITLES`.
 
     Drawn by :mod:`studykit.report.gauge_figures` (the PDF's figures, same palette).
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge import gauge_rr
+    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+    ...                ["A", "A", "B", "B"] * 2)
+    >>> figure_pngs(res, only=("components",))["components"][:4]
+    b'\\x89PNG'
     """
     from studykit.report import gauge_figures as gf
 
@@ -227,6 +235,14 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
     ``{"headers": [...]}``. With them: ``{"headers", "values", "parts", "appraisers",
     "trials"}``. Errors are :class:`DataFileError` naming the uploaded file (never a server
     path), the row and the column.
+
+    Examples
+    --------
+    >>> data = b"part,appraiser,trial,value\\n1,A,1,8.01\\n1,A,2,8.02\\n"
+    >>> read_gauge_upload(data, "g.csv")
+    {'headers': ['part', 'appraiser', 'trial', 'value']}
+    >>> read_gauge_upload(data, "g.csv", part="part", appraiser="appraiser", value="value")["values"]
+    [8.01, 8.02]
     """
     name = Path(str(filename or "upload.csv")).name or "upload.csv"
     suffix = Path(name).suffix.lower()
