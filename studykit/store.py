@@ -741,8 +741,10 @@ class StudyFile:
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
                       *, who: str, override_lock: bool = False,
-                      override_reason: str | None = None) -> int:
+                      override_reason: str | None = None, reason: str = "") -> int:
         """Keep a result beside the study (e.g. ``kind="gauge_rr"``); returns its id.
+
+        ``reason`` (why it is attached) goes into the audit log's "why".
 
         Results are evidence, not decisions: they do not enter the content digest. Because a
         result changes what the study reports (a gauge R&R feeds the findings), it is refused
@@ -770,7 +772,7 @@ class StudyFile:
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
                 "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
             )
-            self._audit(conn, who=who, what=f"attach {kind} result{on}",
+            self._audit(conn, who=who, what=f"attach {kind} result{on}", why=reason or "",
                         detail={"result_id": cur.lastrowid})
             return cur.lastrowid
 

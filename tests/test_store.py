@@ -372,3 +372,12 @@ def test_apply_refuses_rewriting_history_and_hidden_spec_changes(study_path):
     with pytest.raises(StudyFileError, match="locked"):  # a bypass of the lock check is caught too
         sf.apply(lambda s: s._apply(Decision("bore", "exclude", subgroup=2, reason="r", who="A")))
     assert sf.load().is_locked and len(sf.load().decisions) == 1
+
+
+def test_attach_result_reason_reaches_the_audit_log(tmp_path):
+    sf = StudyFile.create(tmp_path / "r.study", data=b"subgroup,x\n1,1.0\n2,1.2\n",
+                          filename="x.csv", title="r",
+                          characteristics=[Characteristic("x", lsl=0, usl=2)], who="T. Test")
+    sf.attach_result("gauge_rr", "x", {"ok": True}, who="T. Test", reason="gauge GR-07")
+    entry = sf.audit_log()[-1]
+    assert entry.what.startswith("attach gauge_rr") and entry.why == "gauge GR-07"

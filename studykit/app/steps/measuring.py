@@ -810,7 +810,7 @@ class GaugeStep:
         payload = {**result.to_dict(), **extras, "reason": reason}
         lock = ({"override_lock": True, "override_reason": ws.override_reason}
                 if ws.override_reason else {})
-        s.file.attach_result(GAUGE_KIND, name, payload, who=who, **lock)
+        s.file.attach_result(GAUGE_KIND, name, payload, who=who, reason=reason, **lock)
         self.reason.value = ""
         self._clear_preview()
         self._upload_data, self._upload_name = None, ""
