@@ -389,6 +389,11 @@ def run_many(
     characteristic, whichever backend computed it: the work is deterministic (the bootstrap
     seed is ``options.random_state``) and no state is shared between characteristics.
 
+    A Dask cluster pays when one machine cannot finish the run in time: at about 12 ms of
+    CPU per characteristic (about 50 ms for one with a fitted non-normal model), 100,000
+    characteristics take 10-20 minutes on 2 cores and a minute or two on 20-40 cores; on one
+    machine, local processes are faster (no scheduler round trips).
+
     Examples
     --------
     >>> from studykit.data import CharacteristicData, Measurements
