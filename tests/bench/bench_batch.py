@@ -113,14 +113,16 @@ def main(argv=None) -> int:
         workers_cpu = (cpu1.ru_utime + cpu1.ru_stime) - (cpu0.ru_utime + cpu0.ru_stime)
         print(f"  batch ({res.backend}, {res.jobs} jobs): {t_batch:6.2f} s wall "
               f"(load {t_load:.2f} s, analyses {res.seconds:.2f} s; workers' CPU "
-              f"{workers_cpu:.1f} s); {res.n_meeting} meet, {res.n_not_meeting} do not, "
-              f"{res.n_failed} failed")
+              f"{workers_cpu:.1f} s = {1e3 * workers_cpu / res.n:.1f} ms per characteristic, "
+              f"idle-machine estimate {t_load + workers_cpu / res.jobs:.1f} s); "
+              f"{res.n_meeting} meet, {res.n_not_meeting} do not, {res.n_failed} failed")
         models = {}
         for r in res.rows:
             models[r["model"]] = models.get(r["model"], 0) + 1
         print("  models chosen: " + ", ".join(f"{k} {v}" for k, v in sorted(
             models.items(), key=lambda kv: -kv[1])))
-        summary = f"batch {t_batch:.1f} s"
+        summary = (f"batch {t_batch:.1f} s (CPU {workers_cpu:.1f} s, idle estimate "
+                   f"{t_load + workers_cpu / res.jobs:.1f} s)")
         if not args.no_loop:
             rows, t_loop = loop(data, specs)
             same = [dict(r) for r in res.rows] == rows
