@@ -389,3 +389,14 @@ def test_progress_bar_on_a_terminal_stream():
     silent = io.StringIO()
     ProgressBar(silent)(1, 2, "x")  # not a terminal: no output
     assert silent.getvalue() == ""
+
+
+def test_cli_all_attribute_size_column_is_not_a_characteristic(repo_root, capsys):
+    path = repo_root / "demo_data" / "leak_test_lots.csv"
+    if not path.exists():
+        pytest.skip("demo data not built")
+    assert main(["analyze", str(path), "--all", "--chart", "p", "--size-column", "lot_size",
+                 "--json", "--jobs", "1"]) == 0
+    rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines()]
+    assert [r["characteristic"] for r in rows] == ["leak_test_defectives"]
+    assert rows[0]["error"] is None and rows[0]["n"] > 0

@@ -81,6 +81,8 @@ def _inputs(args):
         specs = {c.name: c for c in chars}
         criteria = dict(table_criteria)
     sizes = {c.size_column for c in specs.values() if c.size_column}
+    if args.size_column:
+        sizes.add(args.size_column)
     for name in measurements.names:
         if name in specs or name in sizes:
             continue
