@@ -298,6 +298,9 @@ def phase1(
             size_arr = np.full(n_items, size_arr[0])
     label_list = [_plain_label(v) for v in sub.tolist()]
     known = set(label_list)
+    # values (attribute data with sizes: items) per label, counted once; a removal looks its
+    # count up instead of scanning every label (quadratic at 10^6 individuals)
+    counts = _label_counts(label_list, size_arr, attribute)
 
     removals: list[Removal] = []
     removed: set = set()
@@ -323,7 +326,7 @@ def phase1(
         removed.add(key)
         removals.append(
             Removal(
-                key, "manual", None, 0, reason, who, _count(label_list, size_arr, key, attribute)
+                key, "manual", None, 0, reason, who, counts[key]
             )
         )
 
@@ -393,7 +396,7 @@ def phase1(
                     iterations,
                     "; ".join(dict.fromkeys(parts)),
                     "auto",
-                    _count(label_list, size_arr, label, attribute),
+                    counts[label],
                 )
             )
         chart = build(kind_fixed)
@@ -440,11 +443,17 @@ def phase1(
     )
 
 
-def _count(label_list, size_arr, key, attribute) -> int:
-    idx = [i for i, lab in enumerate(label_list) if lab == key]
-    if attribute:
-        return int(sum(size_arr[i] for i in idx)) if size_arr is not None else len(idx)
-    return len(idx)
+def _label_counts(label_list, size_arr, attribute) -> dict:
+    """Label -> number of values, or for attribute data with sizes the summed size (added in
+    data order, as one label's sizes were summed before)."""
+    counts: dict = {}
+    if attribute and size_arr is not None:
+        for lab, size in zip(label_list, size_arr, strict=False):
+            counts[lab] = counts.get(lab, 0) + size
+        return {lab: int(v) for lab, v in counts.items()}
+    for lab in label_list:
+        counts[lab] = counts.get(lab, 0) + 1
+    return counts
 
 
 def _text(rules) -> str:
