@@ -55,6 +55,10 @@ NORMALITY_ALPHA = 0.05
 #: silently. The workbook, the PDF, ``verify`` and ``analyze --study`` all use it, so they agree.
 STUDY_OPTIONS_PHASE1 = "off"
 
+#: Above this many values the Shapiro-Wilk p-value is flagged as unreliable (scipy documents
+#: its approximation for N <= 5000) and the probability plot has no band (it would cost seconds).
+LARGE_SAMPLE = 5000
+
 #: AIC distance within which a model without an AD p-value still counts as supported.
 BAND_DELTA_AIC = 2.0
 
@@ -757,6 +761,8 @@ def analyze_characteristic(
         if msg not in warn:
             warn.append(msg)
     for msg in p1.warnings:
+        if options.phase1 == "off" and msg.startswith("the round limit (0)"):
+            continue  # no automatic rounds were asked for; the signals are reported as findings
         if msg not in warn:
             warn.append(msg)
     chart = p1.chart
@@ -822,8 +828,17 @@ def analyze_characteristic(
         return CharacteristicResult(**result_kw, warnings=tuple(warn))
 
     ad = normality_module.anderson_darling(x)
-    sw = normality_module.shapiro_wilk(x)
-    pplot = normality_module.probability_plot(x)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # scipy: p-value may be inaccurate, N > 5000
+        sw = normality_module.shapiro_wilk(x)
+    if x.size > LARGE_SAMPLE:
+        warn.append(
+            f"{x.size} values: the Shapiro-Wilk p-value is not reliable above {LARGE_SAMPLE} "
+            "values (scipy's note); read Anderson-Darling instead. The probability plot is "
+            "drawn without its confidence band."
+        )
+    pplot = normality_module.probability_plot(x, band=None if x.size > LARGE_SAMPLE
+                                              else "beta_pointwise")
     normality = {"anderson_darling": ad, "shapiro_wilk": sw}
     result_kw.update(normality=normality, probability_plot=pplot)
     if spec is None or (spec.lsl is None and spec.usl is None):
