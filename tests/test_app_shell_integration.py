@@ -101,8 +101,8 @@ def test_the_real_chart_steps_resync_on_reopen(study_path, monkeypatch):
 
 def test_header_shows_the_lock_as_soon_as_the_study_loads(study_path):
     StudySession(study_path).sign(who="M. Approver", role="approved", decision="approve")
-    wb = build_workbook(study_path)  # no study panel opened
-    assert wb.current == "intake"
+    wb = build_workbook(study_path)  # a study opens on its overview (Limits & targets)
+    assert wb.current == "limits"
     assert wb.context.state == "Approved · locked"
     assert "Approved · locked" in wb._header.value
 
@@ -119,8 +119,11 @@ def test_header_shows_a_voided_approval(study_path):
 def test_an_open_study_is_shown_once_in_the_overview(study_path):
     wb = build_workbook(study_path)
     card = wb._overview_card
+    assert wb.current == "limits"  # a study opens on the limits step, which shows the overview
+    assert card.children == () and card.layout.display == "none"
+    wb.select("intake")
     assert len(card.children) == 1 and isinstance(card.children[0], OverviewPanel)
-    wb.select("limits")  # the limits step shows the overview itself
+    wb.select("limits")
     assert card.children == () and card.layout.display == "none"
     wb.select("measuring")
     assert isinstance(card.children[0], OverviewPanel)

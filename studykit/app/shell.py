@@ -202,8 +202,11 @@ class Workbook(widgets.VBox):
         self._overview_card = widgets.VBox([self._overview])
         self._overview_card.add_class("sk-body")
         self._overview_card.add_class("sk-overview-card")
-        super().__init__([style_sheet(), self._header, self._stepbar, self._guidance,
-                          context.messages, self._caution, self._body, self._overview_card])
+        from studykit.app.overview import panel_css  # the panels' rules, needed from the start
+
+        super().__init__([style_sheet(), panel_css(), self._header, self._stepbar,
+                          self._guidance, context.messages, self._caution, self._body,
+                          self._overview_card])
         self.add_class("sk-root")
         context.extra["studykit.open_step"] = self.select
         context.subscribe(self._on_context_change)
@@ -436,6 +439,8 @@ def build_workbook(study_path: str | os.PathLike | None = None, *,
     wb = Workbook(steps if steps is not None else default_steps(), context)
     if study_path is not None and str(study_path) != "":
         guarded(load_study_into, messages=messages)(context, study_path)
+        if context.study is not None and any(s.key == "limits" for s in wb.steps):
+            wb.select("limits")  # a study with data: open on its overview, not on the upload
     return wb
 
 
