@@ -32,7 +32,7 @@ logistic, loglogistic, sev, lev
 threshold variants (lognormal3, weibull3, gamma3, loglogistic3)
     Profile likelihood ``l(theta) = max over the other parameters`` as a function of the
     distance ``d = min(x) - theta`` on a logarithmic grid from ``1e-4 s`` to ``1e3 s``
-    (s = sample standard deviation), then two finer vectorised passes around the best grid
+    (s = sample standard deviation), then one finer vectorised pass around the best grid
     point and the root of the profile slope (envelope theorem: the partial derivative in theta
     at the inner maximum); see :func:`_profile_threshold`.
     The likelihood of these families is unbounded as theta approaches min(x) when the shape
@@ -313,7 +313,32 @@ def _logistic_start(x):
 # ---------------------------------------------------------------------------------------------
 _GRID_DECADES = np.linspace(-4.0, 3.0, 8)
 _REFINE_POINTS = 33
-_REFINE_PASSES = 2
+
+
+def _slope_zero(us, slopes, k):
+    """Zero of the profile slope between us[k] and us[k + 1] (slope > 0 >= next slope).
+
+    Inverse cubic interpolation through the four points around the sign change (u as a
+    cubic in the slope, Lagrange form, evaluated at slope 0) when the slope falls strictly
+    across them; otherwise, or if the result leaves the bracket, linear interpolation.
+    On the 33-point pass the cubic's error (order h^4, h = 0.144) is about that of linear
+    interpolation on a pass 16 times finer, which it replaces.
+    """
+    u0, u1, s0, s1 = float(us[k]), float(us[k + 1]), float(slopes[k]), float(slopes[k + 1])
+    lin = u0 + (u1 - u0) * s0 / (s0 - s1)
+    j = min(max(k - 1, 0), us.size - 4)
+    uu = [float(v) for v in us[j:j + 4]]
+    ss = [float(v) for v in slopes[j:j + 4]]
+    if not (ss[0] > ss[1] > ss[2] > ss[3]) or not all(math.isfinite(v) for v in ss):
+        return lin
+    u = 0.0
+    for i in range(4):
+        w = uu[i]
+        for m in range(4):
+            if m != i:
+                w *= ss[m] / (ss[m] - ss[i])
+        u += w
+    return u if u0 <= u <= u1 else lin
 
 
 def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
@@ -325,11 +350,12 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     log-likelihood with respect to theta at fixed other parameters, which at the inner maximum
     is the derivative of the profile (envelope theorem).
 
-    Search in u = log(min(x) - theta): a grid of 8 points from 1e-4 s to 1e3 s, then two
-    passes of 33 points across the bracket of the best point (each shrinking it 16-fold; the
-    Newton iterations start from the previous pass's solutions), then the root of the profile
-    derivative by linear interpolation between the two points where it changes sign, kept
-    only if it beats the best grid point.
+    Search in u = log(min(x) - theta): a grid of 8 points from 1e-4 s to 1e3 s, then one
+    pass of 33 points across the bracket of the best point (the Newton iterations start from
+    the grid's solutions), then the root of the profile derivative between the two points
+    where it changes sign: inverse cubic interpolation (:func:`_slope_zero`), then, unless
+    the slope there puts the root within 1e-6 in u, one secant step; each candidate is kept
+    only if it beats the best point of the pass.
     Returns (theta, params, loglik, converged, note).
     """
     xmin = float(x.min())
@@ -367,26 +393,38 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
                 "this family, which tends to its limiting form")
         return (xmin - math.exp(us[-1]), {k: float(v[-1]) for k, v in params.items()},
                 float(lls[-1]), False, note)
-    for _ in range(_REFINE_PASSES):
-        us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
-        ys, lls, params = evaluate(us)
-        best = min(max(int(np.argmax(lls)), 1), _REFINE_POINTS - 2)
+    us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
+    ys, lls, params = evaluate(us)
+    best = min(max(int(np.argmax(lls)), 1), _REFINE_POINTS - 2)
     slopes = -np.exp(us) * dtheta(ys, params)
     u_best, ll_best = float(us[best]), float(lls[best])
     p_best = {k: float(v[best]) for k, v in params.items()}
     for k in (best - 1, best):
         if slopes[k] > 0 >= slopes[k + 1]:
-            u = float(us[k] + (us[k + 1] - us[k]) * slopes[k] / (slopes[k] - slopes[k + 1]))
-            _, ll1, p1 = evaluate(np.array([u]))
-            if ll1[0] >= ll_best:
-                u_best, ll_best = u, float(ll1[0])
-                p_best = {k: float(v[0]) for k, v in p1.items()}
+            u = _slope_zero(us, slopes, k)
+            for _ in range(2):  # the interpolated zero, then a secant step if needed
+                y1, ll1, p1 = evaluate(np.array([u]))
+                if ll1[0] >= ll_best:
+                    u_best, ll_best = u, float(ll1[0])
+                    p_best = {k: float(v[0]) for k, v in p1.items()}
+                s1 = float(-math.exp(u) * dtheta(y1, p1)[0])
+                j = k + 1 if s1 > 0 else k  # the pass point across the zero from u
+                if not (math.isfinite(s1) and s1 != float(slopes[j])):
+                    break
+                u_next = u - s1 * (u - float(us[j])) / (s1 - float(slopes[j]))
+                if not float(us[k]) <= u_next <= float(us[k + 1]) or abs(u_next - u) <= 1e-6:
+                    break  # (a correction below 1e-6 in u changes the loglik by ~1e-12)
+                u = u_next
             break
     return xmin - math.exp(u_best), p_best, ll_best, True, note
 
 
+_add_reduce = np.add.reduce
+
+
 def _rowsum(a):
-    return a.sum(axis=1)
+    # the ufunc directly: same sums as a.sum(axis=1) without the method's Python wrapper
+    return _add_reduce(a, 1)
 
 
 def _inner_lognormal(ys, start=None):
@@ -429,9 +467,12 @@ def _inner_weibull(ys, start=None):
         k_new = k - g / (vz + 1.0 / (k * k))
         bad = ~((k_new >= lo) & (k_new <= hi))
         k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
-        active = np.abs(k_new - k) > 1e-10 * k
+        step = np.abs(k_new - k)
+        # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
+        # is of order step^2, below 1e-11 k)
+        done = (step <= 1e-10 * k) | (~bad & (step <= 1e-6 * k))
         k = k_new
-        if not active.any():
+        if done.all():
             break
     w = np.exp(k[:, None] * zs)
     log_scale = slog / n + zmax + np.log(_rowsum(w) / n) / k
@@ -461,10 +502,14 @@ def _inner_gamma(ys, start=None):
         fp = 1.0 / k - special.zeta(2.0, k)
         with np.errstate(divide="ignore", invalid="ignore"):
             k_new = 1.0 / (1.0 / k + f / (k * k * fp))
-        k_new = np.where(large, k, np.where(k_new > 0, k_new, 0.5 * k))
-        active = np.abs(k_new - k) > 1e-8 * k  # rounding noise of s limits very large k
+        newton = k_new > 0
+        k_new = np.where(large, k, np.where(newton, k_new, 0.5 * k))
+        # rounding noise of s limits very large k to 1e-8; a Newton step below 1e-5 k leaves a
+        # correction of order step^2 (quadratic convergence)
+        step = np.abs(k_new - k)
+        done = (step <= 1e-8 * k) | (newton & (step <= 1e-5 * k))
         k = k_new
-        if not active.any():
+        if done.all():
             break
     scale = mean / k
     ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
@@ -517,6 +562,11 @@ def _inner_loglogistic(ys, start=None):
             if good.all():
                 break
             t = np.where(good, t, 0.5 * t)
+        if good.all():
+            a, b, ll, d1, d2 = an, b + t * db, lln, d1n, d2n
+            if dec.max() < 1e-6 and (t == 1.0).all():
+                break  # a full Newton step from a decrement below 1e-6 leaves ~1e-12
+            continue
         keep = good[:, None]
         a = np.where(good, an, a)
         b = np.where(good, b + t * db, b)
