@@ -132,6 +132,18 @@ def _ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
     return float(-n - (w @ (logcdf + logsf[::-1])) / n)
 
 
+_add_reduce = np.add.reduce
+
+
+def _mean_sd(x, ddof=0):
+    """(mean, standard deviation) of a 1-D array: the sums of x.mean() and x.std(ddof=ddof)
+    without their Python wrappers (fit_all calls them many times on small arrays)."""
+    n = x.size
+    m = float(_add_reduce(x)) / n
+    c = x - m
+    return m, math.sqrt(float(_add_reduce(c * c)) / (n - ddof))
+
+
 # ---------------------------------------------------------------------------------------------
 # Fast estimators
 # ---------------------------------------------------------------------------------------------
@@ -295,17 +307,19 @@ def _ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
 
 
 def _sev_start(x):
-    s = x.std() * math.sqrt(6.0) / math.pi
-    return x.mean() + 0.5772156649 * s, s
+    m, sd = _mean_sd(x)
+    s = sd * math.sqrt(6.0) / math.pi
+    return m + 0.5772156649 * s, s
 
 
 def _lev_start(x):
-    s = x.std() * math.sqrt(6.0) / math.pi
-    return x.mean() - 0.5772156649 * s, s
+    m, sd = _mean_sd(x)
+    s = sd * math.sqrt(6.0) / math.pi
+    return m - 0.5772156649 * s, s
 
 
 def _logistic_start(x):
-    return float(np.median(x)), x.std() * math.sqrt(3.0) / math.pi
+    return float(np.median(x)), _mean_sd(x)[1] * math.sqrt(3.0) / math.pi
 
 
 # ---------------------------------------------------------------------------------------------
@@ -359,7 +373,7 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     Returns (theta, params, loglik, converged, note).
     """
     xmin = float(x.min())
-    sd = float(x.std())
+    sd = _mean_sd(x)[1]
 
     warm = {}
 
@@ -419,9 +433,6 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     return xmin - math.exp(u_best), p_best, ll_best, True, note
 
 
-_add_reduce = np.add.reduce
-
-
 def _rowsum(a):
     # the ufunc directly: same sums as a.sum(axis=1) without the method's Python wrapper
     return _add_reduce(a, 1)
@@ -466,7 +477,8 @@ def _inner_weibull(ys, start=None):
         hi = np.where(g < 0, hi, k)
         k_new = k - g / (vz + 1.0 / (k * k))
         bad = ~((k_new >= lo) & (k_new <= hi))
-        k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
+        if bad.any():
+            k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
         step = np.abs(k_new - k)
         # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
         # is of order step^2, below 1e-11 k)
@@ -842,7 +854,8 @@ class _Normal(Family):
     ad_p_source = "D'Agostino & Stephens (1986) Table 4.9, case 3"
 
     def _estimate(self, x):
-        return {"mean": x.mean(), "sd": x.std()}, True, None
+        m, sd = _mean_sd(x)
+        return {"mean": m, "sd": sd}, True, None
 
     def frozen(self, p):
         return stats.norm(p["mean"], p["sd"])
@@ -858,7 +871,8 @@ class _Normal(Family):
         return special.log_ndtr((p["mean"] - x) / p["sd"])
 
     def _ad(self, xs, p):
-        z = (xs - xs.mean()) / xs.std(ddof=1)
+        m, sd = _mean_sd(xs, 1)
+        z = (xs - m) / sd
         return _ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
 
     def _ad_p(self, a2, n, xs, p):
@@ -872,7 +886,8 @@ class _Lognormal(Family):
 
     def _estimate(self, x):
         ly = np.log(x)
-        return {"log_mean": ly.mean(), "log_sd": ly.std()}, True, None
+        m, sd = _mean_sd(ly)
+        return {"log_mean": m, "log_sd": sd}, True, None
 
     def frozen(self, p):
         return stats.lognorm(p["log_sd"], loc=_th(p), scale=math.exp(p["log_mean"]))
@@ -893,7 +908,8 @@ class _Lognormal(Family):
 
     def _ad(self, xs, p):
         ly = np.log(xs - _th(p))
-        z = (ly - ly.mean()) / ly.std(ddof=1)
+        m, sd = _mean_sd(ly, 1)
+        z = (ly - m) / sd
         return _ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
 
     def _ad_p(self, a2, n, xs, p):
