@@ -327,6 +327,7 @@ def _logistic_start(x):
 # ---------------------------------------------------------------------------------------------
 _GRID_DECADES = np.linspace(-4.0, 3.0, 8)
 _REFINE_POINTS = 33
+_ZERO_POINTS = 4
 
 
 def _slope_zero(us, slopes, k):
@@ -340,15 +341,17 @@ def _slope_zero(us, slopes, k):
     """
     u0, u1, s0, s1 = float(us[k]), float(us[k + 1]), float(slopes[k]), float(slopes[k + 1])
     lin = u0 + (u1 - u0) * s0 / (s0 - s1)
-    j = min(max(k - 1, 0), us.size - 4)
-    uu = [float(v) for v in us[j:j + 4]]
-    ss = [float(v) for v in slopes[j:j + 4]]
-    if not (ss[0] > ss[1] > ss[2] > ss[3]) or not all(math.isfinite(v) for v in ss):
+    p = min(_ZERO_POINTS, us.size)
+    j = min(max(k - (p - 2) // 2, 0), us.size - p)
+    uu = [float(v) for v in us[j:j + p]]
+    ss = [float(v) for v in slopes[j:j + p]]
+    if (not all(math.isfinite(v) for v in ss)
+            or not all(ss[i] > ss[i + 1] for i in range(p - 1))):
         return lin
     u = 0.0
-    for i in range(4):
+    for i in range(p):
         w = uu[i]
-        for m in range(4):
+        for m in range(p):
             if m != i:
                 w *= ss[m] / (ss[m] - ss[i])
         u += w
@@ -407,9 +410,18 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
                 "this family, which tends to its limiting form")
         return (xmin - math.exp(us[-1]), {k: float(v[-1]) for k, v in params.items()},
                 float(lls[-1]), False, note)
-    us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
+    # the pass spans the grid step where the profile slope changes sign next to the best
+    # point (17 points), or both steps around it (33 points) when the grid slopes do not
+    # show that sign change
+    grid_slopes = -np.exp(us) * dtheta(ys, params)
+    if grid_slopes[best] > 0 >= grid_slopes[best + 1]:
+        us = np.linspace(us[best], us[best + 1], _REFINE_POINTS // 2 + 1)
+    elif grid_slopes[best - 1] > 0 >= grid_slopes[best]:
+        us = np.linspace(us[best - 1], us[best], _REFINE_POINTS // 2 + 1)
+    else:
+        us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
     ys, lls, params = evaluate(us)
-    best = min(max(int(np.argmax(lls)), 1), _REFINE_POINTS - 2)
+    best = min(max(int(np.argmax(lls)), 1), us.size - 2)
     slopes = -np.exp(us) * dtheta(ys, params)
     u_best, ll_best = float(us[best]), float(lls[best])
     p_best = {k: float(v[best]) for k, v in params.items()}
