@@ -385,7 +385,11 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
         start = None
         if warm:  # interpolate the previous pass's solutions: fewer Newton steps
             start = tuple(np.interp(us, warm["u"], c) for c in warm["state"])
-        ll, params, state = inner(ys, start)
+        single = _SINGLE.get(inner.__name__) if us.size == 1 else None
+        if single is not None:  # one threshold: the scalar estimator, less numpy overhead
+            ll, params, state = single(ys[0], start)
+        else:
+            ll, params, state = inner(ys, start)
         if us.size > 1 and state is not None:
             warm["u"], warm["state"] = us, state
         return ys, np.where(np.isfinite(ll), ll, -np.inf), params
@@ -607,6 +611,39 @@ def _dtheta_loglogistic(ys, p):
     c = p["shape"][:, None]
     z = c * (np.log(ys) - np.log(p["scale"])[:, None])
     return _rowsum((1.0 + c * np.tanh(0.5 * z)) / ys)
+
+
+def _single_weibull(y, start=None):
+    """:func:`_inner_weibull` for one row by the scalar :func:`_weibull_fit` (same root)."""
+    k, scale, ll = _weibull_fit(np.log(y), None if start is None else float(start[0][0]))
+    return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, (np.array([k]),)
+
+
+def _single_gamma(y, start=None):
+    """:func:`_inner_gamma` for one row by the scalar :func:`_gamma_fit` (same root)."""
+    try:
+        k, scale, ll = _gamma_fit(y)
+    except AnalysisError:  # no spread left in double precision: not a candidate
+        k = scale = ll = math.nan
+    return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, None
+
+
+def _single_loglogistic(y, start=None):
+    """:func:`_inner_loglogistic` for one row by the scalar :func:`_ls_fit` (same root)."""
+    ly = np.log(y)
+    if start is None:
+        loc, s, ll, ab, _ = _ls_fit(ly, _logistic_terms, *_logistic_start(ly))
+    else:
+        loc, s, ll, ab, _ = _ls_fit(ly, _logistic_terms, 0.0, 1.0,
+                                    start=(float(start[0][0]), float(start[1][0])))
+    return (np.array([ll - float(_add_reduce(ly))]),
+            {"shape": np.array([1.0 / s]), "scale": np.array([math.exp(loc)])},
+            (np.array([ab[0]]), np.array([ab[1]])))
+
+
+#: scalar versions of the row-wise inner fits, used by _profile_threshold for one threshold
+_SINGLE = {"_inner_weibull": _single_weibull, "_inner_gamma": _single_gamma,
+           "_inner_loglogistic": _single_loglogistic}
 
 
 # ---------------------------------------------------------------------------------------------
