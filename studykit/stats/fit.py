@@ -541,7 +541,9 @@ def _inner_gamma(ys, start=None):
             break
     scale = mean / k
     ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
-    return ll, {"shape": k, "scale": scale}, None
+    # the shapes start the scalar iteration of single thresholds (_single_gamma); the
+    # row-wise iteration itself always starts from Minka's value
+    return ll, {"shape": k, "scale": scale}, (k,)
 
 
 def _dtheta_gamma(ys, p):
@@ -564,43 +566,55 @@ def _inner_loglogistic(ys, start=None):
     else:
         a, b = start
 
-    def ev(a, b):
-        lg, d1, d2 = _logistic_terms(a[:, None] * v - b[:, None])
-        return _rowsum(lg) + n * np.log(a), d1, d2
+    # sums of v and v^2 per row (n and 0 up to rounding): the Hessian sums below use
+    # sum (1 - t^2) w = sum w - sum t^2 w, with t = tanh(z/2)
+    s_v, s_vv = _rowsum(v), _rowsum(vv)
 
-    ll, d1, d2 = ev(a, b)
+    def ev(a, b):
+        """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
+        log-density derivatives of :func:`_logistic_terms` are -t and -(1 - t^2)/2."""
+        z = a[:, None] * v - b[:, None]
+        az = np.abs(z)
+        t = np.tanh(0.5 * z)
+        lg = _rowsum(az) + 2.0 * _rowsum(np.log1p(np.exp(-az)))
+        return n * np.log(a) - lg, t, t * t
+
+    ll, t1, q1 = ev(a, b)
     for _ in range(100):
-        ga = _rowsum(d1 * v) + n / a
-        gb = -_rowsum(d1)
-        haa = _rowsum(d2 * vv) - n / (a * a)
-        hab = -_rowsum(d2 * v)
-        hbb = _rowsum(d2)
+        ga = n / a - _rowsum(t1 * v)
+        gb = _rowsum(t1)
+        haa = -0.5 * (s_vv - _rowsum(q1 * vv)) - n / (a * a)
+        hab = 0.5 * (s_v - _rowsum(q1 * v))
+        hbb = -0.5 * (n - _rowsum(q1))
         det = haa * hbb - hab * hab
         da = -(hbb * ga - hab * gb) / det
         db = -(haa * gb - hab * ga) / det
         dec = ga * da + gb * db
-        if not np.any(dec > 1e-9):
+        if not dec.max() > 1e-9:
             break
-        t = np.ones_like(a)
+        an = a + da
+        if (an > 0).all():  # the full Newton step, accepted when no likelihood decreases
+            lln, t1n, q1n = ev(an, b + db)
+            if (lln >= ll - 1e-12 * np.abs(ll)).all():
+                a, b, ll, t1, q1 = an, b + db, lln, t1n, q1n
+                if dec.max() < 1e-5:
+                    break  # a full Newton step from a decrement below 1e-5 leaves ~1e-10
+                continue
+        t = np.ones_like(a)  # step halving, row by row
         for _ in range(40):
             an = a + t * da
             an_ok = an > 0
-            lln, d1n, d2n = ev(np.where(an_ok, an, a), b + t * db)
+            lln, t1n, q1n = ev(np.where(an_ok, an, a), b + t * db)
             good = an_ok & (lln >= ll - 1e-12 * np.abs(ll))
             if good.all():
                 break
             t = np.where(good, t, 0.5 * t)
-        if good.all():
-            a, b, ll, d1, d2 = an, b + t * db, lln, d1n, d2n
-            if dec.max() < 1e-6 and (t == 1.0).all():
-                break  # a full Newton step from a decrement below 1e-6 leaves ~1e-12
-            continue
         keep = good[:, None]
         a = np.where(good, an, a)
         b = np.where(good, b + t * db, b)
         ll = np.where(good, lln, ll)
-        d1 = np.where(keep, d1n, d1)
-        d2 = np.where(keep, d2n, d2)
+        t1 = np.where(keep, t1n, t1)
+        q1 = np.where(keep, q1n, q1)
     scale = sd / a
     loc = m + b * scale
     ll_orig = ll - n * np.log(sd) - _rowsum(ly)
@@ -622,10 +636,10 @@ def _single_weibull(y, start=None):
 def _single_gamma(y, start=None):
     """:func:`_inner_gamma` for one row by the scalar :func:`_gamma_fit` (same root)."""
     try:
-        k, scale, ll = _gamma_fit(y)
+        k, scale, ll = _gamma_fit(y, None if start is None else float(start[0][0]))
     except AnalysisError:  # no spread left in double precision: not a candidate
         k = scale = ll = math.nan
-    return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, None
+    return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, (np.array([k]),)
 
 
 def _single_loglogistic(y, start=None):
