@@ -9,7 +9,7 @@ boundary, ties, missing points, merging) are the module's documented choices, "c
 no source".
 
 The vectorised implementation is checked against ``reference_evaluate`` below: a plain-Python,
-point-by-point transcription of the same definitions (one loop per rule, windows checked
+point-by-point restatement of the same definitions (one loop per rule, windows checked
 literally), on hypothesis-generated data for every rule and parameter.
 """
 
