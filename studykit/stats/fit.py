@@ -443,8 +443,9 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
                 if not (math.isfinite(s1) and s1 != float(slopes[j])):
                     break
                 u_next = u - s1 * (u - float(us[j])) / (s1 - float(slopes[j]))
-                if not float(us[k]) <= u_next <= float(us[k + 1]) or abs(u_next - u) <= 1e-6:
-                    break  # (a correction below 1e-6 in u changes the loglik by ~1e-12)
+                if (not float(us[k]) <= u_next <= float(us[k + 1]) or abs(u_next - u) <= 1e-6
+                        or abs(s1 * (u_next - u)) <= 2e-10 * max(1.0, abs(float(ll1[0])))):
+                    break  # the step would gain ~ s1 (u_next - u) / 2: below rounding
                 u = u_next
             break
     return xmin - math.exp(u_best), p_best, ll_best, True, note
