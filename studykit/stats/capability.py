@@ -27,6 +27,7 @@ import numpy as np
 from scipy import optimize, special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
+from studykit.stats._checks import check_sample
 
 __all__ = [
     "TAIL_PROBABILITY",
@@ -252,22 +253,8 @@ def moving_range_sigma(x) -> float:
 
 
 def _clean_data(x, *, name="x", minimum=2):
-    try:
-        arr = np.asarray(x, dtype=float).ravel()
-    except (TypeError, ValueError) as exc:
-        raise StudyInputError(f"`{name}` must contain numbers only ({exc}).") from None
-    bad = ~np.isfinite(arr)
-    if bad.any():
-        where = int(np.flatnonzero(bad)[0])
-        raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({float(arr[where])!r}) at position "
-            f"{where}; remove it or exclude it with a reason before computing capability."
-        )
-    if arr.size < minimum:
-        raise AnalysisError(
-            f"`{name}` has {arr.size} value(s); at least {minimum} are needed for capability."
-        )
-    return arr
+    return check_sample(x, name=name, minimum=minimum,
+                        before="computing capability", needed_for="capability")
 
 
 def _spec_value(value, name):

@@ -12,7 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special, stats
 
-from studykit.errors import AnalysisError, StudyInputError
+from studykit.errors import StudyInputError
+from studykit.stats._checks import check_sample
 
 __all__ = [
     "PLOTTING_POSITIONS",
@@ -37,29 +38,11 @@ BANDS = ("beta_pointwise", "ks_simultaneous", None)
 
 def _clean(x, *, name="x", minimum=3):
     """Return a finite float array, or raise an error naming the problem."""
-    try:
-        arr = np.asarray(x, dtype=float).ravel()
-    except (TypeError, ValueError) as exc:
-        raise StudyInputError(
-            f"`{name}` must contain numbers only; could not read it as numbers ({exc})."
-        ) from None
-    bad = ~np.isfinite(arr)
-    if bad.any():
-        where = int(np.flatnonzero(bad)[0])
-        raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({float(arr[where])!r}) at position "
-            f"{where}; remove it or mark it as excluded before testing normality."
-        )
-    if arr.size < minimum:
-        raise AnalysisError(
-            f"`{name}` has {arr.size} values; at least {minimum} are needed for this test."
-        )
-    if np.ptp(arr) == 0:
-        raise AnalysisError(
-            f"`{name}` has zero spread (every value is {float(arr[0]):g}); a normality test is "
-            "meaningless. Check the gauge resolution or the data import."
-        )
-    return arr
+    return check_sample(
+        x, name=name, minimum=minimum, before="testing normality", needed_for="this test",
+        zero_spread="a normality test is meaningless. Check the gauge resolution or the data "
+                    "import.",
+    )
 
 
 def _ad_pvalue(a2_star: float) -> float:

@@ -14,6 +14,7 @@ import numpy as np
 from scipy import optimize, special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
+from studykit.stats._checks import check_sample
 
 __all__ = ["BoxCoxResult", "JohnsonResult", "box_cox", "johnson", "NICE_LAMBDAS",
            "JOHNSON_Z_GRID"]
@@ -27,30 +28,12 @@ JOHNSON_Z_GRID = tuple(round(0.25 + 0.01 * i, 2) for i in range(101))
 
 
 def _clean(x, *, name="x", minimum=3) -> np.ndarray:
-    try:
-        arr = np.asarray(x, dtype=float).ravel()
-    except (TypeError, ValueError) as exc:
-        raise StudyInputError(
-            f"`{name}` must contain numbers only; could not read it as numbers ({exc})."
-        ) from None
-    bad = ~np.isfinite(arr)
-    if bad.any():
-        where = int(np.flatnonzero(bad)[0])
-        raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({arr[where]!r}) at position "
-            f"{where}; remove it or exclude it before transforming."
-        )
-    if arr.size < minimum:
-        raise AnalysisError(
-            f"`{name}` has {arr.size} values; at least {minimum} are needed for this "
-            "transformation."
-        )
-    if np.ptp(arr) == 0:
-        raise AnalysisError(
-            f"`{name}` has zero spread (every value is {arr[0]!r}); no transformation can be "
-            "estimated. Check the gauge resolution or the data import."
-        )
-    return arr
+    return check_sample(
+        x, name=name, minimum=minimum, before="transforming",
+        needed_for="this transformation",
+        zero_spread="no transformation can be estimated. Check the gauge resolution or the data "
+                    "import.",
+    )
 
 
 def _f(v):
