@@ -491,16 +491,20 @@ def _inner_weibull(ys, start=None):
         mz = _rowsum(wz) / sw
         g = mz - 1.0 / k
         vz = _rowsum(wz * z) / sw - mz * mz
-        lo = np.where(g < 0, k, lo)
-        hi = np.where(g < 0, hi, k)
+        below = g < 0
+        lo = np.where(below, k, lo)
+        hi = np.where(below, hi, k)
         k_new = k - g / (vz + 1.0 / (k * k))
         bad = ~((k_new >= lo) & (k_new <= hi))
-        if bad.any():
-            k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
         step = np.abs(k_new - k)
         # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
         # is of order step^2, below 1e-11 k)
-        done = (step <= 1e-10 * k) | (~bad & (step <= 1e-6 * k))
+        if bad.any():
+            k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
+            step = np.abs(k_new - k)
+            done = (step <= 1e-10 * k) | (~bad & (step <= 1e-6 * k))
+        else:
+            done = step <= 1e-6 * k
         k = k_new
         if done.all():
             break
