@@ -338,6 +338,9 @@ def _logistic_start(x):
 # ---------------------------------------------------------------------------------------------
 _GRID_DECADES = np.linspace(-4.0, 3.0, 8)
 _REFINE_POINTS = 33
+# fractions of the bracket at the points of a pass (np.linspace without its overhead)
+_FULL_PASS = np.arange(_REFINE_POINTS) / (_REFINE_POINTS - 1)
+_HALF_PASS = np.arange(_REFINE_POINTS // 2 + 1) / (_REFINE_POINTS // 2)
 _ZERO_POINTS = 4
 
 
@@ -430,11 +433,11 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     # show that sign change
     grid_slopes = -np.exp(us) * dtheta(ys, params)
     if grid_slopes[best] > 0 >= grid_slopes[best + 1]:
-        us = np.linspace(us[best], us[best + 1], _REFINE_POINTS // 2 + 1)
+        us = us[best] + (us[best + 1] - us[best]) * _HALF_PASS
     elif grid_slopes[best - 1] > 0 >= grid_slopes[best]:
-        us = np.linspace(us[best - 1], us[best], _REFINE_POINTS // 2 + 1)
+        us = us[best - 1] + (us[best] - us[best - 1]) * _HALF_PASS
     else:
-        us = np.linspace(us[best - 1], us[best + 1], _REFINE_POINTS)
+        us = us[best - 1] + (us[best + 1] - us[best - 1]) * _FULL_PASS
     ys, lls, params = evaluate(us)
     best = min(max(int(np.argmax(lls)), 1), us.size - 2)
     slopes = -np.exp(us) * dtheta(ys, params)
