@@ -369,3 +369,23 @@ def test_threshold_moves_with_the_data(shift, seed):
     b = fit.FAMILIES["weibull3"].fit(x + shift)
     assert_allclose(b.parameters["threshold"], a.parameters["threshold"] + shift, atol=1e-3)
     assert_allclose(b.loglik, a.loglik, atol=1e-6)
+
+
+@pytest.mark.parametrize("fid", ["lognormal3", "weibull3", "gamma3", "loglogistic3"])
+@pytest.mark.parametrize("rel", [1e-3, 1e-2])
+def test_threshold_is_the_profile_maximum(fid, rel):
+    # The profile likelihood at thresholds just either side of ours, each maximised over the
+    # other parameters by scipy.stats.<dist>.fit(x, floc=theta), must not beat our fit: the
+    # root of the profile slope is within a small fraction of the spacing of the readings.
+    x, dist, _, _ = CASES[fid]
+    m = fit.FAMILIES[fid].fit(x)
+    theta = m.parameters["threshold"]
+    step = rel * float(np.std(x))
+    for t in (theta - step, theta + step):
+        if t >= x.min():
+            continue
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ref = dist.fit(x, floc=t)  # reference: scipy.stats.<dist>.fit with fixed loc
+        ref_ll = float(dist.logpdf(x, *ref).sum())
+        assert m.loglik >= ref_ll - 1e-9 * abs(ref_ll), (t, ref_ll, m.loglik)
