@@ -432,15 +432,20 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     # point (17 points), or both steps around it (33 points) when the grid slopes do not
     # show that sign change
     grid_slopes = -np.exp(us) * dtheta(ys, params)
+    full = (us[best - 1], us[best + 1], _FULL_PASS)
     if grid_slopes[best] > 0 >= grid_slopes[best + 1]:
-        us = us[best] + (us[best + 1] - us[best]) * _HALF_PASS
+        spans = [(us[best], us[best + 1], _HALF_PASS), full]
     elif grid_slopes[best - 1] > 0 >= grid_slopes[best]:
-        us = us[best - 1] + (us[best] - us[best - 1]) * _HALF_PASS
+        spans = [(us[best - 1], us[best], _HALF_PASS), full]
     else:
-        us = us[best - 1] + (us[best + 1] - us[best - 1]) * _FULL_PASS
-    ys, lls, params = evaluate(us)
-    best = min(max(int(np.argmax(lls)), 1), us.size - 2)
-    slopes = -np.exp(us) * dtheta(ys, params)
+        spans = [full]
+    for lo_u, hi_u, frac in spans:  # the full bracket only if the half shows no sign change
+        us = lo_u + (hi_u - lo_u) * frac
+        ys, lls, params = evaluate(us)
+        best = min(max(int(np.argmax(lls)), 1), us.size - 2)
+        slopes = -np.exp(us) * dtheta(ys, params)
+        if slopes[best - 1] > 0 >= slopes[best] or slopes[best] > 0 >= slopes[best + 1]:
+            break
     u_best, ll_best = float(us[best]), float(lls[best])
     p_best = {k: float(v[best]) for k, v in params.items()}
     for k in (best - 1, best):
@@ -1040,6 +1045,10 @@ class _Weibull(Family):
     def _logsf(self, x, p):
         return -self._t(x, p)
 
+    def _ad(self, xs, p):  # _logcdf and _logsf from one power
+        t = self._t(xs, p)
+        return _ad_from_logs(np.log(-np.expm1(-t)), -t)
+
     def _ad_p(self, a2, n, xs, p):
         return _ad_p_table(a2, n, _AD_EV)
 
@@ -1201,6 +1210,10 @@ class _Loglogistic(Family):
     def _logsf(self, x, p):
         return -np.logaddexp(0.0, self._w(x, p))
 
+    def _ad(self, xs, p):  # _logcdf and _logsf from one log
+        w = self._w(xs, p)
+        return _ad_from_logs(-np.logaddexp(0.0, -w), -np.logaddexp(0.0, w))
+
     def _ad_p(self, a2, n, xs, p):
         return _ad_p_table(a2, n, _AD_LOGISTIC)
 
@@ -1242,6 +1255,10 @@ class _SEV(Family):
     def _logsf(self, x, p):
         return -np.exp(self._z(x, p))
 
+    def _ad(self, xs, p):  # _logcdf and _logsf from one exponential
+        e = np.exp(self._z(xs, p))
+        return _ad_from_logs(np.log(-np.expm1(-e)), -e)
+
     def _ad_p(self, a2, n, xs, p):
         return _ad_p_table(a2, n, _AD_EV)
 
@@ -1264,6 +1281,10 @@ class _LEV(_SEV):
 
     def _logsf(self, x, p):
         return np.log(-np.expm1(-np.exp(-self._z(x, p))))
+
+    def _ad(self, xs, p):  # _logcdf and _logsf from one exponential
+        e = np.exp(-self._z(xs, p))
+        return _ad_from_logs(-e, np.log(-np.expm1(-e)))
 
 
 class _Halfnormal(Family):
