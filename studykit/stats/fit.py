@@ -381,9 +381,12 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     log-likelihood with respect to theta at fixed other parameters, which at the inner maximum
     is the derivative of the profile (envelope theorem).
 
-    Search in u = log(min(x) - theta): a grid of 8 points from 1e-4 s to 1e3 s, then one
-    pass of 33 points across the bracket of the best point (the Newton iterations start from
-    the grid's solutions), then the root of the profile derivative between the two points
+    Search in u = log(min(x) - theta): a grid of 8 points from 1e-4 s to 1e3 s (inner fits
+    to a looser tolerance, ``rough=True``: the grid only picks the bracket and the starting
+    values; every value returned comes from a full-precision fit), then one pass across
+    the grid step next to the best point where the profile slope changes sign (17 points; 33
+    across both steps around the best point when the grid or that pass shows no sign change;
+    the Newton iterations start from the grid's solutions), then the root of the profile derivative between the two points
     where it changes sign: inverse cubic interpolation (:func:`_slope_zero`), then, unless
     the slope there puts the root within 1e-6 in u, one secant step; each candidate is kept
     only if it beats the best point of the pass.
@@ -394,7 +397,7 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
 
     warm = {}
 
-    def evaluate(us):
+    def evaluate(us, rough=False):
         ys = x[None, :] - (xmin - np.exp(us))[:, None]
         start = None
         if warm:  # interpolate the previous pass's solutions: fewer Newton steps
@@ -403,13 +406,13 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
         if single is not None:  # one threshold: the scalar estimator, less numpy overhead
             ll, params, state = single(ys[0], start)
         else:
-            ll, params, state = inner(ys, start)
+            ll, params, state = inner(ys, start, rough=rough)
         if us.size > 1 and state is not None:
             warm["u"], warm["state"] = us, state
         return ys, np.where(np.isfinite(ll), ll, -np.inf), params
 
     us = math.log(sd) + _GRID_DECADES * math.log(10.0)
-    ys, lls, params = evaluate(us)
+    ys, lls, params = evaluate(us, rough=True)
     best = int(np.argmax(lls))
     note = None
     if best == 0:
@@ -426,8 +429,9 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     if best == us.size - 1:
         note = ("threshold at the search limit (min(x) - 1000 s): the data show no skew for "
                 "this family, which tends to its limiting form")
-        return (xmin - math.exp(us[-1]), {k: float(v[-1]) for k, v in params.items()},
-                float(lls[-1]), False, note)
+        _, lls, params = evaluate(us[-1:])  # the grid's inner fits are rough: refit
+        return (xmin - math.exp(us[-1]), {k: float(v[0]) for k, v in params.items()},
+                float(lls[0]), False, note)
     # the pass spans the grid step where the profile slope changes sign next to the best
     # point (17 points), or both steps around it (33 points) when the grid slopes do not
     # show that sign change
@@ -474,7 +478,7 @@ def _rowsum(a):
     return _add_reduce(a, 1)
 
 
-def _inner_lognormal(ys, start=None):
+def _inner_lognormal(ys, start=None, *, rough=False):
     ly = np.log(ys)
     n = ys.shape[1]
     sly = _rowsum(ly)
@@ -491,8 +495,9 @@ def _dtheta_lognormal(ys, p):
     return _rowsum(r) + _rowsum((np.log(ys) - p["log_mean"][:, None]) * r) / p["log_sd"] ** 2
 
 
-def _inner_weibull(ys, start=None):
-    """Row-wise Weibull ML (same root as :func:`_weibull_fit`)."""
+def _inner_weibull(ys, start=None, *, rough=False):
+    """Row-wise Weibull ML (same root as :func:`_weibull_fit`); ``rough=True`` (the profile
+    grid) stops at a relative Newton step of 1e-3 instead of 1e-6."""
     n = ys.shape[1]
     ly = np.log(ys)
     slog = _rowsum(ly)
@@ -500,6 +505,7 @@ def _inner_weibull(ys, start=None):
     zmax = z.max(axis=1)
     zs = z - zmax[:, None]
     k = 1.2825 / np.sqrt(_rowsum(z * z) / n) if start is None else start[0]
+    tol = 1e-3 if rough else 1e-6
     lo = np.zeros_like(k)
     hi = np.full_like(k, np.inf)
     for _ in range(100):
@@ -520,9 +526,9 @@ def _inner_weibull(ys, start=None):
         if bad.any():
             k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
             step = np.abs(k_new - k)
-            done = (step <= 1e-10 * k) | (~bad & (step <= 1e-6 * k))
+            done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
         else:
-            done = step <= 1e-6 * k
+            done = step <= tol * k
         k = k_new
         if done.all():
             break
@@ -539,7 +545,7 @@ def _dtheta_weibull(ys, p):
     return p["shape"] * _rowsum(t * r) - (p["shape"] - 1.0) * _rowsum(r)
 
 
-def _inner_gamma(ys, start=None):
+def _inner_gamma(ys, start=None, *, rough=False):
     """Row-wise gamma ML (same root and iteration as :func:`_gamma_fit`)."""
     n = ys.shape[1]
     mean = _rowsum(ys) / n
@@ -574,8 +580,10 @@ def _dtheta_gamma(ys, p):
     return ys.shape[1] / p["scale"] - (p["shape"] - 1.0) * _rowsum(1.0 / ys)
 
 
-def _inner_loglogistic(ys, start=None):
-    """Row-wise loglogistic ML: logistic Newton iteration (see :func:`_ls_fit`) per row."""
+def _inner_loglogistic(ys, start=None, *, rough=False):
+    """Row-wise loglogistic ML: logistic Newton iteration (see :func:`_ls_fit`) per row;
+    ``rough=True`` (the profile grid) stops after a full step from a decrement below 1e-3
+    instead of 1e-5."""
     n = ys.shape[1]
     ly = np.log(ys)
     m = _rowsum(ly) / n
@@ -593,6 +601,7 @@ def _inner_loglogistic(ys, start=None):
     # sums of v and v^2 per row (n and 0 up to rounding): the Hessian sums below use
     # sum (1 - t^2) w = sum w - sum t^2 w, with t = tanh(z/2)
     s_v, s_vv = _rowsum(v), _rowsum(vv)
+    tol = 1e-3 if rough else 1e-5
 
     def ev(a, b):
         """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
@@ -621,7 +630,7 @@ def _inner_loglogistic(ys, start=None):
             lln, t1n, q1n = ev(an, b + db)
             if (lln >= ll - 1e-12 * np.abs(ll)).all():
                 a, b, ll, t1, q1 = an, b + db, lln, t1n, q1n
-                if dec.max() < 1e-5:
+                if dec.max() < tol:
                     break  # a full Newton step from a decrement below 1e-5 leaves ~1e-10
                 continue
         t = np.ones_like(a)  # step halving, row by row
