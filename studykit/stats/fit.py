@@ -546,7 +546,8 @@ def _dtheta_weibull(ys, p):
 
 
 def _inner_gamma(ys, start=None, *, rough=False):
-    """Row-wise gamma ML (same root and iteration as :func:`_gamma_fit`)."""
+    """Row-wise gamma ML (same root and iteration as :func:`_gamma_fit`); ``rough=True``
+    (the profile grid) stops at a relative Newton step of 1e-3 instead of 1e-5."""
     n = ys.shape[1]
     mean = _rowsum(ys) / n
     sly = _rowsum(np.log(ys))
@@ -565,7 +566,7 @@ def _inner_gamma(ys, start=None, *, rough=False):
         # rounding noise of s limits very large k to 1e-8; a Newton step below 1e-5 k leaves a
         # correction of order step^2 (quadratic convergence)
         step = np.abs(k_new - k)
-        done = (step <= 1e-8 * k) | (newton & (step <= 1e-5 * k))
+        done = (step <= 1e-8 * k) | (newton & (step <= (1e-3 if rough else 1e-5) * k))
         k = k_new
         if done.all():
             break
@@ -884,6 +885,8 @@ class Family:
             raise AnalysisError(
                 f"{self.label}: {x.size} readings; at least {self.minimum_n} are needed."
             )
+        if self.support not in ("positive", "nonnegative"):
+            return
         xmin = float(x.min())
         if self.support == "positive" and xmin <= 0:
             raise AnalysisError(
