@@ -232,6 +232,12 @@ def _logistic_terms(z):
     return -az - 2.0 * np.log1p(np.exp(-az)), -t, -0.5 * (1.0 - t * t)
 
 
+def _logistic_logpdf(z):
+    """The first term of :func:`_logistic_terms` alone (same expression)."""
+    az = np.abs(z)
+    return -az - 2.0 * np.log1p(np.exp(-az))
+
+
 def _sev_terms(z):
     e = np.exp(z)
     return z - e, 1.0 - e, -e
@@ -1182,7 +1188,7 @@ class _Logistic(Family):
         return stats.logistic(p["location"], p["scale"])
 
     def _logpdf(self, x, p):
-        return _logistic_terms((x - p["location"]) / p["scale"])[0] - math.log(p["scale"])
+        return _logistic_logpdf((x - p["location"]) / p["scale"]) - math.log(p["scale"])
 
     def _logcdf(self, x, p):
         return -np.logaddexp(0.0, -(x - p["location"]) / p["scale"])
@@ -1214,7 +1220,7 @@ class _Loglogistic(Family):
     def _logpdf(self, x, p):
         ly = np.log(x - _th(p))
         w = p["shape"] * (ly - math.log(p["scale"]))
-        return _logistic_terms(w)[0] + math.log(p["shape"]) - ly
+        return _logistic_logpdf(w) + math.log(p["shape"]) - ly
 
     def _logcdf(self, x, p):
         return -np.logaddexp(0.0, -self._w(x, p))
@@ -1259,7 +1265,8 @@ class _SEV(Family):
         return (x - p["location"]) / p["scale"]
 
     def _logpdf(self, x, p):
-        return _sev_terms(self._z(x, p))[0] - math.log(p["scale"])
+        z = self._z(x, p)
+        return z - np.exp(z) - math.log(p["scale"])
 
     def _logcdf(self, x, p):
         return np.log(-np.expm1(-np.exp(self._z(x, p))))
@@ -1286,7 +1293,8 @@ class _LEV(_SEV):
         return stats.gumbel_r(p["location"], p["scale"])
 
     def _logpdf(self, x, p):
-        return _lev_terms(self._z(x, p))[0] - math.log(p["scale"])
+        z = self._z(x, p)
+        return -z - np.exp(-z) - math.log(p["scale"])
 
     def _logcdf(self, x, p):
         return -np.exp(-self._z(x, p))
