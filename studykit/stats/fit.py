@@ -66,6 +66,7 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
+from studykit.stats._checks import check_sample
 
 __all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all", "ROW_FIELDS",
            "RANKING_RULE"]
@@ -704,30 +705,12 @@ _SINGLE = {"_inner_weibull": _single_weibull, "_inner_gamma": _single_gamma,
 # Input checks
 # ---------------------------------------------------------------------------------------------
 def _clean(x, *, name="x", minimum=3) -> np.ndarray:
-    try:
-        arr = np.asarray(x, dtype=float).ravel()
-    except (TypeError, ValueError) as exc:
-        raise StudyInputError(
-            f"`{name}` must contain numbers only; could not read it as numbers ({exc})."
-        ) from None
-    bad = ~np.isfinite(arr)
-    if bad.any():
-        where = int(np.flatnonzero(bad)[0])
-        raise AnalysisError(
-            f"`{name}` contains a missing or non-finite value ({arr[where]!r}) at position "
-            f"{where}; remove it or exclude it before fitting a distribution."
-        )
-    if arr.size < minimum:
-        raise AnalysisError(
-            f"`{name}` has {arr.size} values; at least {minimum} are needed to fit a "
-            "distribution."
-        )
-    if np.ptp(arr) == 0:
-        raise AnalysisError(
-            f"`{name}` has zero spread (every value is {arr[0]!r}); no distribution can be "
-            "fitted. Check the gauge resolution or the data import."
-        )
-    return arr
+    return check_sample(
+        x, name=name, minimum=minimum, before="fitting a distribution",
+        needed_for="fitting a distribution",
+        zero_spread="no distribution can be fitted. Check the gauge resolution or the data "
+                    "import.",
+    )
 
 
 # ---------------------------------------------------------------------------------------------
