@@ -405,17 +405,19 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     warm = {}
 
     def evaluate(us, rough=False):
-        ys = x[None, :] - (xmin - np.exp(us))[:, None]
+        gap = np.exp(us)  # min(x) - theta
+        ys = x[None, :] - (xmin - gap)[:, None]
         start = None
-        if warm:  # interpolate the previous pass's solutions: fewer Newton steps
-            start = tuple(np.interp(us, warm["u"], c) for c in warm["state"])
+        if warm:  # interpolate the previous pass's solutions linearly in theta (closer to
+            # the solutions than linear in u: fewer Newton steps)
+            start = tuple(np.interp(gap, warm["gap"], c) for c in warm["state"])
         single = _SINGLE.get(inner.__name__) if us.size == 1 else None
         if single is not None:  # one threshold: the scalar estimator, less numpy overhead
             ll, params, state = single(ys[0], start)
         else:
             ll, params, state = inner(ys, start, rough=rough)
         if us.size > 1 and state is not None:
-            warm["u"], warm["state"] = us, state
+            warm["gap"], warm["state"] = gap, state
         return ys, np.where(np.isfinite(ll), ll, -np.inf), params
 
     us = math.log(sd) + _GRID_DECADES * math.log(10.0)
