@@ -601,10 +601,13 @@ def _inner_loglogistic(ys, start=None, *, rough=False):
     sd = np.sqrt(_rowsum(c * c) / n)
     v = c / sd[:, None]
     vv = v * v
-    # start: location = median, scale = sd sqrt(3)/pi (standardised units)
+    # start: location = median, scale = mean absolute deviation from the median / (2 ln 2)
+    # (the logistic's E|X - mu| = 2 s ln 2; less swayed than the sd by the one far reading of
+    # a threshold close to min(x): half the Newton steps on the profile grid)
     if start is None:
-        a = np.full(ys.shape[0], math.pi / math.sqrt(3.0))
-        b = _median(v, axis=1) * a
+        med = _median(v, axis=1)
+        a = (2.0 * math.log(2.0) * n) / _rowsum(np.abs(v - med[:, None]))
+        b = med * a
     else:
         a, b = start
 
