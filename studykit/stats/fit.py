@@ -351,6 +351,12 @@ _HALF_PASS = np.arange(_REFINE_POINTS // 2 + 1) / (_REFINE_POINTS // 2)
 _ZERO_POINTS = 4
 
 
+#: inner fits whose warm starts are interpolated linearly in the threshold (the Weibull shape
+#: is close to linear in theta across a grid step: one Newton step fewer on the pass); the
+#: others' (the loglogistic's a, b) linearly in u = log(min(x) - theta), which suits them better
+_WARM_IN_THETA = frozenset({"_inner_weibull"})
+
+
 def _slope_zero(us, slopes, k):
     """Zero of the profile slope between us[k] and us[k + 1] (slope > 0 >= next slope).
 
@@ -404,20 +410,22 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
 
     warm = {}
 
+    in_theta = inner.__name__ in _WARM_IN_THETA
+
     def evaluate(us, rough=False):
         gap = np.exp(us)  # min(x) - theta
         ys = x[None, :] - (xmin - gap)[:, None]
+        at = gap if in_theta else us
         start = None
-        if warm:  # interpolate the previous pass's solutions linearly in theta (closer to
-            # the solutions than linear in u: fewer Newton steps)
-            start = tuple(np.interp(gap, warm["gap"], c) for c in warm["state"])
+        if warm:  # interpolate the previous pass's solutions: fewer Newton steps
+            start = tuple(np.interp(at, warm["at"], c) for c in warm["state"])
         single = _SINGLE.get(inner.__name__) if us.size == 1 else None
         if single is not None:  # one threshold: the scalar estimator, less numpy overhead
             ll, params, state = single(ys[0], start)
         else:
             ll, params, state = inner(ys, start, rough=rough)
         if us.size > 1 and state is not None:
-            warm["gap"], warm["state"] = gap, state
+            warm["at"], warm["state"] = at, state
         return ys, np.where(np.isfinite(ll), ll, -np.inf), params
 
     us = math.log(sd) + _GRID_DECADES * math.log(10.0)
