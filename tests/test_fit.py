@@ -389,3 +389,28 @@ def test_threshold_is_the_profile_maximum(fid, rel):
             ref = dist.fit(x, floc=t)  # reference: scipy.stats.<dist>.fit with fixed loc
         ref_ll = float(dist.logpdf(x, *ref).sum())
         assert m.loglik >= ref_ll - 1e-9 * abs(ref_ll), (t, ref_ll, m.loglik)
+
+
+@pytest.mark.parametrize("fid, inner, dist", [
+    ("weibull3", fit._inner_weibull, stats.weibull_min),
+    ("gamma3", fit._inner_gamma, stats.gamma),
+    ("loglogistic3", fit._inner_loglogistic, stats.fisk),
+])
+def test_row_wise_inner_fits_on_the_profile_grid(fid, inner, dist):
+    # Each row of the profile grid (thresholds 1e-4 sd to 1e3 sd below min(x), the first
+    # one leaving a single reading far out in log(x - theta)) fitted from the default start:
+    # the full-precision row fit is at least as likely as scipy.stats.<dist>.fit(x, floc=theta)
+    # (reference), and the rough fit of the grid is within 1e-6 (relative) of the full one.
+    x = np.sort(CASES[fid][0])
+    sd = float(np.std(x))
+    thetas = x.min() - sd * 10.0 ** fit._GRID_DECADES
+    ys = x[None, :] - thetas[:, None]
+    ll, _, _ = inner(ys)
+    ll_rough, _, _ = inner(ys, rough=True)
+    assert_allclose(ll_rough, ll, rtol=1e-6)
+    for t, ll_t in zip(thetas, ll, strict=True):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ref = dist.fit(x, floc=t)  # reference: scipy.stats.<dist>.fit with fixed loc
+        ref_ll = float(dist.logpdf(x, *ref).sum())
+        assert ll_t >= ref_ll - 1e-9 * abs(ref_ll), (t, ref_ll, ll_t)
