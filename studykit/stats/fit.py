@@ -155,7 +155,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
     in k), by Newton steps kept inside a bracket.
     """
     n = logy.size
-    slog = float(logy.sum())
+    slog = float(_add_reduce(logy))
     mlog = slog / n
     z = logy - mlog
     zmax = z.max()
@@ -167,7 +167,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
     lo, hi = 0.0, math.inf
     for _ in range(100):
         w = np.exp(k * zs)
-        sw = w.sum()
+        sw = _add_reduce(w)
         wz = w @ z
         mz = wz / sw
         g = mz - 1.0 / k
@@ -200,9 +200,9 @@ def _gamma_fit(y: np.ndarray, k0: float | None = None) -> tuple[float, float, fl
     Newton iteration on 1/k.
     """
     n = y.size
-    mean = float(y.sum()) / n
+    mean = float(_add_reduce(y)) / n
     ly = np.log(y)
-    sly = float(ly.sum())
+    sly = float(_add_reduce(ly))
     s = math.log(mean) - sly / n
     if not s > 1e-14:
         raise AnalysisError(
@@ -263,7 +263,7 @@ def _ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
     Returns (location, scale, loglik, (a, b), converged).
     """
     n = u.size
-    m = float(u.sum()) / n
+    m = float(_add_reduce(u)) / n
     c = u - m
     sd = math.sqrt(float(c @ c) / n)
     v = c / sd
@@ -275,16 +275,16 @@ def _ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
 
     def evaluate(a, b):
         lg, d1, d2 = terms(a * v - b)
-        return float(lg.sum()) + n * math.log(a), d1, d2
+        return float(_add_reduce(lg)) + n * math.log(a), d1, d2
 
     ll, d1, d2 = evaluate(a, b)
     converged = False
     for _ in range(200):
         ga = float(d1 @ v) + n / a
-        gb = -float(d1.sum())
+        gb = -float(_add_reduce(d1))
         haa = float(d2 @ vv) - n / (a * a)
         hab = -float(d2 @ v)
-        hbb = float(d2.sum())
+        hbb = float(_add_reduce(d2))
         det = haa * hbb - hab * hab
         if det > 0 and haa < 0:
             da = -(hbb * ga - hab * gb) / det
@@ -941,7 +941,7 @@ class Family:
         params, converged, note = self._estimate(xs)
         params = {k: float(v) for k, v in params.items()}
         n = xs.size
-        loglik = float(self._logpdf(xs, params).sum())
+        loglik = float(_add_reduce(self._logpdf(xs, params)))
         k = self.n_params
         a2 = self._ad(xs, params)
         p, ptext = self._ad_p(a2, n, xs, params) if math.isfinite(a2) else (None, None)
