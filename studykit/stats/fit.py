@@ -188,7 +188,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
         if step <= 1e-12 * k or (newton and step <= 1e-7 * k):
             break
     w = np.exp(k * zs)
-    log_scale = mlog + zmax + math.log(w.mean()) / k
+    log_scale = mlog + zmax + math.log(float(_add_reduce(w)) / n) / k
     loglik = n * math.log(k) - n * k * log_scale + (k - 1.0) * slog - n
     return k, math.exp(log_scale), loglik
 
@@ -1143,7 +1143,7 @@ class _Exponential(Family):
     ad_p_source = "D'Agostino & Stephens (1986) Table 4.14 (scale estimated), interpolated"
 
     def _estimate(self, x):
-        return {"scale": x.mean()}, True, None
+        return {"scale": float(_add_reduce(x)) / x.size}, True, None
 
     def frozen(self, p):
         return stats.expon(loc=_th(p), scale=p["scale"])
@@ -1169,7 +1169,7 @@ class _Exponential2(_Exponential):
     def _estimate(self, x):
         n = x.size
         x1 = float(x.min())
-        scale = n * (x.mean() - x1) / (n - 1)
+        scale = n * (float(_add_reduce(x)) / n - x1) / (n - 1)
         note = ("unbiased estimates (the likelihood maximum puts the threshold at the smallest "
                 "reading)")
         return {"scale": scale, "threshold": x1 - scale / n}, True, note
