@@ -134,6 +134,8 @@ def _ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
 
 
 _add_reduce = np.add.reduce
+# the ufuncs behind ndarray.max/all/any (same results, without the methods' Python wrappers)
+_max_reduce, _all, _any = np.maximum.reduce, np.logical_and.reduce, np.logical_or.reduce
 
 
 def _mean_sd(x, ddof=0):
@@ -158,7 +160,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
     slog = float(_add_reduce(logy))
     mlog = slog / n
     z = logy - mlog
-    zmax = z.max()
+    zmax = _max_reduce(z)
     zs = z - zmax
     if k0 is None or not (k0 > 0):
         sd = math.sqrt(float(z @ z) / n)
@@ -524,7 +526,7 @@ def _inner_weibull(ys, start=None, *, rough=False):
     ly = np.log(ys)
     slog = _rowsum(ly)
     z = ly - (slog / n)[:, None]
-    zmax = z.max(axis=1)
+    zmax = _max_reduce(z, 1)
     zs = z - zmax[:, None]
     k = 1.2825 / np.sqrt(_rowsum(z * z) / n) if start is None else start[0]
     tol = 1e-2 if rough else 1e-6
@@ -545,14 +547,14 @@ def _inner_weibull(ys, start=None, *, rough=False):
         step = np.abs(k_new - k)
         # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
         # is of order step^2, below 1e-11 k)
-        if bad.any():
+        if _any(bad):
             k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
             step = np.abs(k_new - k)
             done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
         else:
             done = step <= tol * k
         k = k_new
-        if done.all():
+        if _all(done):
             break
     w = np.exp(k[:, None] * zs)
     log_scale = slog / n + zmax + np.log(_rowsum(w) / n) / k
@@ -591,7 +593,7 @@ def _inner_gamma(ys, start=None, *, rough=False):
         step = np.abs(k_new - k)
         done = (step <= 1e-8 * k) | (newton & (step <= (1e-2 if rough else 1e-5) * k))
         k = k_new
-        if done.all():
+        if _all(done):
             break
     scale = mean / k
     ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
@@ -650,14 +652,14 @@ def _inner_loglogistic(ys, start=None, *, rough=False):
         da = -(hbb * ga - hab * gb) / det
         db = -(haa * gb - hab * ga) / det
         dec = ga * da + gb * db
-        if not dec.max() > 1e-9:
+        if not _max_reduce(dec) > 1e-9:
             break
         an = a + da
-        if (an > 0).all():  # the full Newton step, accepted when no likelihood decreases
+        if _all(an > 0):  # the full Newton step, accepted when no likelihood decreases
             lln, t1n, q1n = ev(an, b + db)
-            if (lln >= ll - 1e-12 * np.abs(ll)).all():
+            if _all(lln >= ll - 1e-12 * np.abs(ll)):
                 a, b, ll, t1, q1 = an, b + db, lln, t1n, q1n
-                if dec.max() < tol:
+                if _max_reduce(dec) < tol:
                     break  # a full Newton step from a decrement below 1e-5 leaves ~1e-10
                 continue
         t = np.ones_like(a)  # step halving, row by row
@@ -666,7 +668,7 @@ def _inner_loglogistic(ys, start=None, *, rough=False):
             an_ok = an > 0
             lln, t1n, q1n = ev(np.where(an_ok, an, a), b + t * db)
             good = an_ok & (lln >= ll - 1e-12 * np.abs(ll))
-            if good.all():
+            if _all(good):
                 break
             t = np.where(good, t, 0.5 * t)
         keep = good[:, None]
