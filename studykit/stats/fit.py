@@ -60,7 +60,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from functools import cached_property
+from functools import cached_property, lru_cache
 
 import numpy as np
 from scipy import special, stats
@@ -126,10 +126,19 @@ def _ad_p_table(a2: float, n: int, table) -> tuple[float, str]:
     return p, f"{p:.4f}"
 
 
+@lru_cache(maxsize=16)
+def _ad_weights(n: int) -> np.ndarray:
+    """The weights 2i - 1, i = 1..n, of :func:`_ad_from_logs` (read-only, cached: fit_all
+    computes the statistic for every family on the same n)."""
+    w = np.arange(1.0, 2.0 * n, 2.0)
+    w.flags.writeable = False
+    return w
+
+
 def _ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
     """A^2 = -n - (1/n) sum (2i-1) [ln F(x_(i)) + ln(1 - F(x_(n+1-i)))] for sorted data."""
     n = logcdf.size
-    w = np.arange(1.0, 2.0 * n, 2.0)
+    w = _ad_weights(n)
     return float(-n - (w @ (logcdf + logsf[::-1])) / n)
 
 
@@ -435,7 +444,7 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
 
     us = math.log(sd) + _GRID_DECADES * math.log(10.0)
     ys, lls, params = evaluate(us, rough=True)
-    best = int(np.argmax(lls))
+    best = int(lls.argmax())
     note = None
     if best == 0:
         interior = [i for i in range(1, us.size - 1)
@@ -468,7 +477,7 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     for lo_u, hi_u, frac in spans:  # the full bracket only if the half shows no sign change
         us = lo_u + (hi_u - lo_u) * frac
         ys, lls, params = evaluate(us)
-        best = min(max(int(np.argmax(lls)), 1), us.size - 2)
+        best = min(max(int(lls.argmax()), 1), us.size - 2)
         slopes = -np.exp(us) * dtheta(ys, params)
         if slopes[best - 1] > 0 >= slopes[best] or slopes[best] > 0 >= slopes[best + 1]:
             break
