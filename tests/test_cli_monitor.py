@@ -7,7 +7,7 @@ import json
 from studykit.cli import main
 
 # NIST/SEMATECH e-Handbook 6.3.2.2 individuals example: UCL 55.8024, LCL 45.8176 with the exact
-# d2 (REFERENCES.md)
+# d2 (tests/reference/check_values.md)
 NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 

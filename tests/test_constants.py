@@ -13,7 +13,7 @@ from studykit.errors import StudyInputError
 from studykit.stats.constants import c4, chart_constants, d2, d3
 
 # Montgomery, Introduction to Statistical Quality Control, Appendix VI (FOUND, as listed in the
-# project's REFERENCES.md "Control-chart constants" table). Columns: n, d2, d3, c4, A2, A3, D3, D4,
+# project's tests/reference/check_values.md "Control-chart constants" table). Columns: n, d2, d3, c4, A2, A3, D3, D4,
 # B3, B4, printed to the digits shown.
 MONTGOMERY_APPENDIX_VI = [
     (2, "1.128", "0.853", "0.7979", "1.880", "2.659", "0", "3.267", "0", "3.267"),
@@ -45,7 +45,7 @@ def test_constants_match_montgomery_appendix_vi_to_printed_digits(row):
         got = getattr(k, field)
         if n == 3 and field == "D4":
             # The printed D4(3) = 2.574 was derived from the rounded d2 = 1.693, d3 = 0.888
-            # (1 + 3 * 0.888 / 1.693 = 2.57354); exact 2.57459 (REFERENCES.md note). Check both.
+            # (1 + 3 * 0.888 / 1.693 = 2.57354); exact 2.57459 (tests/reference/check_values.md note). Check both.
             assert abs(1 + 3 * 0.888 / 1.693 - float(text)) <= _half_unit(text)
             assert abs(got - 2.57459) <= 5e-6
             continue
@@ -53,7 +53,7 @@ def test_constants_match_montgomery_appendix_vi_to_printed_digits(row):
         assert abs(got - float(text)) <= _half_unit(text) + 1e-9, (n, field, got, text)
 
 
-# Exact d2, COMPUTED with scipy.integrate.quad (REFERENCES.md, "Exact d2").
+# Exact d2, COMPUTED with scipy.integrate.quad (tests/reference/check_values.md, "Exact d2").
 EXACT_D2 = {
     2: 1.128379,
     3: 1.692569,

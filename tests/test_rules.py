@@ -3,7 +3,7 @@
 Rule definitions checked here are Nelson's eight tests (Nelson, L. S. 1984, "The Shewhart control
 chart -- tests for special causes", J. Quality Technology 16(4):237-239) and the Western Electric
 set (Western Electric Statistical Quality Control Handbook, 1956), with the wording and parameters
-reproduced in the project's REFERENCES.md ("Run rules"). Zones: C within 1 sigma, B 1-2 sigma,
+reproduced in tests/reference/check_values.md ("Run rules"). Zones: C within 1 sigma, B 1-2 sigma,
 A 2-3 sigma. Conventions that the literature leaves open (points on the centre line or on a zone
 boundary, ties, missing points, merging) are the module's documented choices, "common practice,
 no source".
@@ -177,7 +177,7 @@ def _fired(points, rule, **kw):
 
 
 def test_nelson_set_has_the_published_parameters():
-    # Nelson (1984) tests 1-8 as listed in REFERENCES.md "Run rules"
+    # Nelson (1984) tests 1-8 as listed in tests/reference/check_values.md "Run rules"
     got = {r.id: (r.number, r.params) for r in NELSON}
     assert got == {
         "beyond_limits": (1, {"sigmas": 3.0}),
@@ -193,7 +193,7 @@ def test_nelson_set_has_the_published_parameters():
 
 
 def test_western_electric_set_has_the_published_parameters():
-    # Western Electric handbook (1956) as listed in REFERENCES.md: one beyond 3 sigma; two of three
+    # Western Electric handbook (1956) as listed in tests/reference/check_values.md: one beyond 3 sigma; two of three
     # beyond 2 sigma; four of five beyond 1 sigma (same side); eight in a row on one side
     got = {r.id: r.params for r in WESTERN_ELECTRIC}
     assert got == {

@@ -148,7 +148,7 @@ def test_box_cox_lambda_is_scale_invariant(c, seed):
 
 # -- Johnson ----------------------------------------------------------------------------------
 # No numeric worked example of the Chou, Polansky & Mason (1998) procedure was found
-# (REFERENCES.md). The checks are (1) the Slifker-Shapiro formulas return the exact parameters
+# (tests/reference/check_values.md). The checks are (1) the Slifker-Shapiro formulas return the exact parameters
 # when fed population quantiles of a known member (scipy.stats.johnsonsu / johnsonsb /
 # lognorm.ppf), and (2) samples from known members are transformed close to the true
 # transformation, with loose tolerances.

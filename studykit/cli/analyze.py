@@ -45,8 +45,9 @@ def register(sub) -> None:
     p.add_argument("--usl", type=float, help="upper specification limit")
     p.add_argument("--target", type=float, help="target (nominal) value")
     p.add_argument("--model", help="auto, normal, boxcox, johnson or a family id (default auto)")
-    p.add_argument("--confidence", type=float, default=0.95,
-                   help="confidence level of the bounds (default 0.95)")
+    p.add_argument("--confidence", type=float, default=None,
+                   help="confidence level of the bounds (default: the study's criterion, "
+                        "else 0.95)")
     p.add_argument("--index", choices=["cp", "cpk", "pp", "ppk", "cpm"],
                    help="acceptance index (default ppk)")
     p.add_argument("--threshold", type=float, help="acceptance threshold (default 1.67)")
@@ -82,7 +83,7 @@ def _criteria(args, base=None):
         index=args.index or base.index,
         threshold=args.threshold if args.threshold is not None else base.threshold,
         basis=args.basis or base.basis,
-        confidence=args.confidence,
+        confidence=args.confidence if args.confidence is not None else base.confidence,
     )
 
 

@@ -65,7 +65,7 @@ Conventions (decided here; common practice unless a source is named)
 - **Ties** (two equal consecutive points) break a trend and an alternation.
 - **Trends and alternations are counted in points**, as Nelson's tests are worded ("six points
   in a row steadily increasing or decreasing", "fourteen points in a row alternating up and
-  down"; Nelson 1984, tests 3 and 4, wording as reproduced in the project's REFERENCES.md): a
+  down"; Nelson 1984, tests 3 and 4, wording as reproduced in tests/reference/check_values.md): a
   trend of 6 points is 5 increases in a row, an alternation of 14 points is 13 steps, each in the
   opposite direction to the one before.
 - **k of m** (zone_a, zone_b): point ``i`` signals when it is itself beyond the zone boundary and
@@ -99,7 +99,7 @@ Nelson, L. S. (1984). The Shewhart control chart -- tests for special causes. Jo
 Technology 16(4), 237-239.
 Western Electric Company (1956). Statistical Quality Control Handbook. Indianapolis.
 Montgomery, D. C. and Runger, G. C. Applied Statistics and Probability for Engineers, ch. 16
-(rules as reproduced there; cited from the project's REFERENCES.md).
+(rules as reproduced there; cited from tests/reference/check_values.md).
 """
 
 from __future__ import annotations

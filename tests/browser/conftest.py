@@ -2,7 +2,7 @@
 
 Skipped, with the reason, when /usr/bin/chromium or Playwright is missing. Screenshots go to
 test-artifacts/ at the repository root. Journeys get generous timeouts and one retry
-(STACK.md: about one run in nine of a Voila journey hangs for minutes).
+(DEVELOPERS.md, "Stack notes": about one run in nine of a Voila journey hangs for minutes).
 """
 
 from __future__ import annotations
