@@ -241,7 +241,8 @@ def freeze(
     >>> round(plan.location_ucl, 4), plan.subgroup_size
     (55.8024, 1)
     """
-    chart = getattr(chart, "chart", chart)
+    # a phase-I result charted on a model's scale keeps the chart of its raw values for this
+    chart = getattr(chart, "raw_chart", None) or getattr(chart, "chart", chart)
     if not isinstance(chart, ControlChart):
         raise StudyInputError(
             f"`chart` must be a ControlChart or a phase-I result; got {type(chart).__name__}."
