@@ -346,6 +346,13 @@ class CharacteristicResult:
         return self.phase1.chart
 
     @property
+    def withheld_codes(self) -> tuple:
+        """Codes of the findings that withhold the verdict (heavy automatic removal, too few
+        values left by it, data not in production order); empty when none does."""
+        return tuple(f.code for f in self.findings
+                     if f.code in _WITHHOLDING_CODES or f.code.startswith("order_"))
+
+    @property
     def removed_subgroups(self) -> tuple:
         return tuple(_label(r.label) for r in self.phase1.removals)
 
@@ -361,6 +368,7 @@ class CharacteristicResult:
             "estimate": _f(estimate),
             "lower_bound": _f(lower),
             "meets": None if self.verdict is None else self.verdict.meets,
+            "withheld": ",".join(self.withheld_codes) or None,
             "verdict": None if self.verdict is None else self.verdict.text,
             "removed": len(self.phase1.removals),
             "model": None if self.model is None else self.model.name,
@@ -455,9 +463,7 @@ class CharacteristicResult:
                 "removed_share_recorded": _f(self.phase1.manual_removed_share),
                 "removals": [r.to_dict() for r in self.phase1.removals],
                 "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
-                "verdict_withheld": [f.code for f in self.findings
-                                     if f.code in _WITHHOLDING_CODES
-                                     or f.code.startswith("order_")],
+                "verdict_withheld": list(self.withheld_codes),
             },
             "order": None if self.order is None else self.order.to_dict(),
             "normality": None,
@@ -1028,8 +1034,10 @@ def analyze_characteristic(
     )
 
     if attribute:
+        if not np.any(np.asarray(chart.location.sigma) > 0):
+            warn.extend(w for w in chart.warnings if w not in warn)  # the centre-line chart
         return _attribute_result(common, chart, x, size_arr[kept_mask] if size_arr is not None
-                                 else None, kept_labels, warn, level)
+                                 else None, kept_labels, warn, level, crit, withheld)
 
     mean = float(np.mean(x))
     overall = float(np.std(x, ddof=1)) if x.size > 1 else None
@@ -1320,20 +1328,32 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
     return capability_module.model_band(values, threshold)
 
 
-def _attribute_result(common, chart, counts, sizes, labels, warn, level):
+def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=None,
+                      withheld=()):
     kind = chart.kind
+    verdict = None
     if kind in ("p", "np"):
         ac = attribute_module.attribute_capability(counts, sizes, level=level)
+        crit = crit or _criteria_dict(None)
+        # pass/fail data are judged by the exact bound on the defective rate (process Z / 3)
+        verdict = attribute_module.attribute_verdict(
+            ac, threshold=crit["threshold"], basis=crit["basis"], index=crit["index"],
+        )
     else:
         units = sizes if sizes is not None else np.ones_like(counts)
         ac = attribute_module.defects_per_unit(counts, units, level=level)
     nominal = None
     if sizes is not None and np.allclose(sizes, sizes[0]):
         nominal = int(sizes[0]) if float(sizes[0]).is_integer() else None
-    findings = (_not_in_control(chart, None)[0],) if chart.signals else ()
+    findings = list(withheld)
+    if chart.signals:
+        finding, verdict = _not_in_control(chart, verdict)
+        findings.insert(0, finding)
+    verdict = _withhold(verdict, tuple(withheld))
     return CharacteristicResult(
         **common,
-        findings=findings,
+        verdict=verdict,
+        findings=tuple(findings),
         n=int(counts.size),
         subgroup_size=nominal,
         mean=float(chart.center_value),

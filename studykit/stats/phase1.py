@@ -251,6 +251,8 @@ def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None) -> st
 
 def _flagged(series: ChartSeries, rules, labels) -> dict[int, list]:
     found: dict[int, list] = {}
+    if not np.any(np.asarray(series.sigma) > 0):
+        return found  # a chart that is its centre line (no defective at all): nothing signals
     sigs = evaluate_series(
         series.points,
         center=series.center,
