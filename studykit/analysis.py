@@ -390,12 +390,16 @@ class CharacteristicResult:
             if s is None:
                 continue
             for sig in s.signals:
+                pos = [int(p) for p in sig.points]
+                if s.name == "moving_range":  # a moving range is the difference of two readings
+                    pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
                 signals.append(
                     {
                         "rule": sig.rule,
                         "number": sig.number,
                         "chart": part,
                         "subgroups": [_label(labels[int(p)]) for p in sig.points],
+                        "readings": [_label(labels[p]) for p in pos],
                         "text": sig.text,
                     }
                 )
