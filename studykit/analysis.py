@@ -27,10 +27,16 @@ from studykit.stats import attribute as attribute_module
 from studykit.stats import capability as capability_module
 from studykit.stats import fit as fit_module
 from studykit.stats import normality as normality_module
+from studykit.stats import order as order_module
 from studykit.stats import planning as planning_module
 from studykit.stats import transform as transform_module
-from studykit.stats.charts import ATTRIBUTE_KINDS, ControlChart, control_chart
-from studykit.stats.phase1 import Phase1Result, phase1
+from studykit.stats.charts import (
+    ATTRIBUTE_KINDS,
+    DISPERSION_RULES,
+    ControlChart,
+    control_chart,
+)
+from studykit.stats.phase1 import ChartScale, Phase1Result, phase1
 
 __all__ = [
     "AnalysisOptions",
@@ -44,6 +50,8 @@ __all__ = [
     "gauge_results",
     "read_study_measurements",
     "SAFETY_CAUTION",
+    "MAX_AUTO_REMOVED_SHARE",
+    "MIN_KEPT_VALUES",
 ]
 
 #: Significance level at which a model is taken as rejected by its Anderson-Darling test
@@ -61,6 +69,14 @@ LARGE_SAMPLE = 5000
 
 #: AIC distance within which a model without an AD p-value still counts as supported.
 BAND_DELTA_AIC = 2.0
+
+#: Automatic phase-I removal of a larger share of the values withholds the verdict (the README's
+#: "heavy" line, common practice, no source). Removals a person recorded are not counted here.
+MAX_AUTO_REMOVED_SHARE = 0.10
+
+#: Automatic phase-I removal that leaves fewer values than this withholds the verdict (common
+#: practice, no source).
+MIN_KEPT_VALUES = 20
 
 #: The caution shown wherever a characteristic is marked safety-critical.
 SAFETY_CAUTION = (
@@ -116,6 +132,16 @@ class AnalysisOptions:
         Seed of that bootstrap: the same study always gives the same numbers.
     laney : {"auto", True, False}
         Laney's adjustment for attribute charts (``"auto"`` only suggests it).
+    max_auto_removed_share : float
+        Automatic phase-I removal of more than this share of the values withholds the verdict
+        (default :data:`MAX_AUTO_REMOVED_SHARE`, 0.10).
+    min_kept_values : int
+        Automatic phase-I removal that leaves fewer values withholds the verdict (default
+        :data:`MIN_KEPT_VALUES`, 20).
+    sigma_method : str or None
+        Within sigma of subgrouped charts: ``None`` (the chart's default: R-bar/d2 for X-bar/R,
+        S-bar/c4 for X-bar/S; with unequal sizes the mean of R_i/d2(n_i) or s_i/c4(n_i)),
+        ``"rbar"``, ``"sbar"`` or ``"pooled"`` (pooled standard deviation / c4(d + 1)).
     """
 
     chart: str | None = None
@@ -128,8 +154,30 @@ class AnalysisOptions:
     n_boot: int = 500
     random_state: int = 0
     laney: object = "auto"
+    max_auto_removed_share: float = MAX_AUTO_REMOVED_SHARE
+    min_kept_values: int = MIN_KEPT_VALUES
+    sigma_method: str | None = None
 
     def __post_init__(self):
+        share = self.max_auto_removed_share
+        if isinstance(share, bool) or not isinstance(share, int | float) or not 0 <= share < 1:
+            raise StudyInputError(
+                f"`max_auto_removed_share` ({share!r}) must be a share between 0 and 1, e.g. 0.10."
+            )
+        keep = self.min_kept_values
+        if isinstance(keep, bool) or not isinstance(keep, int | np.integer) or keep < 0:
+            raise StudyInputError(
+                f"`min_kept_values` ({keep!r}) must be a whole number of 0 or more, e.g. 20."
+            )
+        if self.sigma_method is not None:
+            method = str(self.sigma_method).strip().lower().replace("-", "_")
+            method = {"auto": None, "default": None, "mean": None}.get(method, method)
+            if method not in (None, "rbar", "sbar", "pooled"):
+                raise StudyInputError(
+                    f"`sigma_method` ({self.sigma_method!r}) must be one of auto, rbar, sbar, "
+                    "pooled."
+                )
+            object.__setattr__(self, "sigma_method", method)
         if self.chart is not None:
             key = str(self.chart).strip().lower()
             if key not in _CHART_ALIASES:
@@ -257,6 +305,9 @@ class CharacteristicResult:
     cautions : tuple of str
         The safety caution where the characteristic is safety-critical.
     options : AnalysisOptions
+    order : OrderCheck or None
+        Whether the values are in production order (variables data; see
+        :mod:`studykit.stats.order`).
     """
 
     characteristic: str
@@ -289,11 +340,19 @@ class CharacteristicResult:
     cautions: tuple = ()
     times: dict = field(default_factory=dict)
     notes: dict = field(default_factory=dict)
+    order: object = None
 
     @property
     def chart(self) -> ControlChart:
         """The final phase-I chart."""
         return self.phase1.chart
+
+    @property
+    def withheld_codes(self) -> tuple:
+        """Codes of the findings that withhold the verdict (heavy automatic removal, too few
+        values left by it, data not in production order); empty when none does."""
+        return tuple(f.code for f in self.findings
+                     if f.code in _WITHHOLDING_CODES or f.code.startswith("order_"))
 
     @property
     def removed_subgroups(self) -> tuple:
@@ -311,6 +370,7 @@ class CharacteristicResult:
             "estimate": _f(estimate),
             "lower_bound": _f(lower),
             "meets": None if self.verdict is None else self.verdict.meets,
+            "withheld": ",".join(self.withheld_codes) or None,
             "verdict": None if self.verdict is None else self.verdict.text,
             "removed": len(self.phase1.removals),
             "model": None if self.model is None else self.model.name,
@@ -332,23 +392,39 @@ class CharacteristicResult:
             if s is None:
                 continue
             for sig in s.signals:
+                pos = [int(p) for p in sig.points]
+                if s.name == "moving_range":  # a moving range is the difference of two readings
+                    pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
                 signals.append(
                     {
                         "rule": sig.rule,
                         "number": sig.number,
                         "chart": part,
                         "subgroups": [_label(labels[int(p)]) for p in sig.points],
+                        "readings": [_label(labels[p]) for p in pos],
                         "text": sig.text,
                     }
                 )
+        scale = self.phase1.scale
+        stat_chart = self.phase1.raw_chart or chart
         chart_d = {
             "kind": chart.kind,
             "reason": chart.reason,
-            "sigma_method": chart.sigma_method_text,
+            "sigma_method": stat_chart.sigma_method_text,
             "location": series(chart.location),
             "dispersion": series(chart.dispersion),
             "signals": signals,
         }
+        if scale is not None and scale.name != "raw":
+            chart_d["scale"] = scale.name
+            chart_d["scale_text"] = scale.label
+            fitted = getattr(scale.model, "fitted", None)
+            if scale.name == "normal_score" and fitted is not None:
+                q = fitted.ppf(np.array([0.00135, 0.5, 0.99865]))
+                chart_d["probability_limits"] = {
+                    "lcl": _f(q[0]), "center": _f(q[1]), "ucl": _f(q[2]),
+                    "model": scale.model.name,
+                }
         if self.attribute:
             nominal = self.subgroup_size
             loc = chart.location
@@ -387,8 +463,15 @@ class CharacteristicResult:
                 "iterations": self.phase1.iterations,
                 "stopped": self.phase1.stopped,
                 "removed_share": _f(self.phase1.removed_share),
+                "removed_auto": int(self.phase1.n_removed_auto),
+                "removed_recorded": int(self.phase1.n_removed_manual),
+                "removed_share_auto": _f(self.phase1.auto_removed_share),
+                "removed_share_recorded": _f(self.phase1.manual_removed_share),
                 "removals": [r.to_dict() for r in self.phase1.removals],
+                "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
+                "verdict_withheld": list(self.withheld_codes),
             },
+            "order": None if self.order is None else self.order.to_dict(),
             "normality": None,
             "model": None if self.model is None else self.model.to_dict(),
             "capability": None,
@@ -610,6 +693,142 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl):
     )
 
 
+#: What the phase-I chart plots on each scale, in words.
+_SCALE_TEXT = {
+    "raw": "values as measured",
+    "transformed": "{label} values",
+    "normal_score": "normal scores under the fitted {label} model (limits at its 0.135 %, 50 % "
+                    "and 99.865 % points)",
+}
+
+
+def _normal_scores(model, x) -> np.ndarray:
+    """Phi^-1(F(x)) of a fitted model, from the upper tail where that is more accurate."""
+    from scipy import stats as _stats
+
+    x = np.asarray(x, dtype=float)
+    cdf = np.asarray(model.cdf(x), dtype=float)
+    sf = np.asarray(model.sf(x), dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(cdf < 0.5, _stats.norm.ppf(cdf), _stats.norm.isf(sf))
+    # outside the fitted support (or beyond double precision): far beyond any limit
+    return np.clip(np.nan_to_num(z, nan=0.0, posinf=38.0, neginf=-38.0), -38.0, 38.0)
+
+
+def _model_scale(requested: str):
+    """The ``rescale`` function phase I calls each round: the distribution model is refitted
+    to the values still kept and the chart is drawn on that model's scale.
+
+    * normal (chosen, or ``auto`` where Anderson-Darling does not reject it): the raw values;
+    * Box-Cox / Johnson: the transformed values, charted with the usual estimated limits;
+    * a fitted family: normal scores z = Phi^-1(F(x)) with the known standard 0 and 1, so the
+      limits -3, 0, +3 are the model's 0.135 %, 50 % and 99.865 % points (probability limits)
+      and the moving-range / range / S chart is on the same scale.
+
+    Where the model cannot be fitted to a round's values the raw values are charted (the
+    capability step then reports the fit error in words).
+    """
+
+    def rescale(xs):
+        xs = np.asarray(xs, dtype=float)
+        raw = ChartScale("raw", _SCALE_TEXT["raw"], xs)
+        if xs.size < 3 or not np.ptp(xs) > 0:
+            return raw
+        try:
+            ad = normality_module.anderson_darling(xs)
+            choice, _, _ = _choose_model(xs, requested, ad, None, None)
+        except (StudyInputError, ValueError, FloatingPointError):
+            return raw
+        if choice.name == "normal":
+            return ChartScale("raw", _SCALE_TEXT["raw"], xs, model=choice)
+        if choice.transform is not None:
+            y = np.asarray(choice.transform.transform(xs), dtype=float)
+            if not np.all(np.isfinite(y)):
+                return raw
+            return ChartScale("transformed",
+                              _SCALE_TEXT["transformed"].format(label=choice.label), y,
+                              model=choice)
+        if choice.fitted is None:
+            return raw
+        z = _normal_scores(choice.fitted, xs)
+        return ChartScale("normal_score",
+                          _SCALE_TEXT["normal_score"].format(label=choice.label), z,
+                          mu=0.0, sigma=1.0, model=choice)
+
+    return rescale
+
+
+def _pct(v: float) -> str:
+    return f"{100 * v:.0f} %" if abs(100 * v - round(100 * v)) < 1e-9 else f"{100 * v:.1f} %"
+
+
+def _withheld_findings(p1: Phase1Result, order, options: AnalysisOptions) -> tuple:
+    """Findings that withhold the verdict: heavy automatic trimming, too few values left by it,
+    or values not in production order. Removals a person recorded are not counted as trimming.
+    """
+    Finding = capability_module.Finding
+    out = []
+    if order is not None and order.flagged:
+        out.append(Finding(
+            code="order_" + order.status, severity="warning",
+            text="Stability could not be judged from the order of the data: " + order.text
+                 + " No run rule was applied and nothing was removed automatically.",
+        ))
+    total = p1.n_values_total
+    n_auto = p1.n_removed_auto
+    if n_auto and total:
+        share = n_auto / total
+        kept = p1.n_values_kept
+        manual = ""
+        if p1.n_removed_manual:
+            manual = (f" ({p1.n_removed_manual} further value(s) were removed by recorded "
+                      "decisions and are not counted here)")
+        if share > options.max_auto_removed_share:
+            out.append(Finding(
+                code="heavy_auto_removal", severity="warning",
+                text=(f"Automatic phase I removed {n_auto} of {total} values ({_pct(share)}, "
+                      f"more than {_pct(options.max_auto_removed_share)}){manual}. A sample "
+                      "trimmed this much describes the kept values, not the process: the removed "
+                      "values may be the tail of the distribution rather than special causes. "
+                      "Find the cause of each removal and record it with a reason, or analyse "
+                      "with --phase1 off."),
+            ))
+        if kept < options.min_kept_values:
+            out.append(Finding(
+                code="too_few_after_removal", severity="warning",
+                text=(f"Automatic phase I left {kept} values (fewer than "
+                      f"{options.min_kept_values}){manual}: too few to judge capability from."),
+            ))
+    return tuple(out)
+
+
+def _withhold(verdict, withheld: tuple):
+    """The verdict with ``meets`` None and the reasons in its text (numbers kept for
+    information)."""
+    if verdict is None or not withheld:
+        return verdict
+    est = "-" if verdict.estimate is None else f"{verdict.estimate:.2f}"
+    low = "-" if verdict.lower_bound is None else f"{verdict.lower_bound:.2f}"
+    name = _PRETTY_INDEX.get(verdict.index, verdict.index)
+    reasons = []
+    for f in withheld:
+        if f.code.startswith("order_"):
+            reasons.append("stability could not be judged from the order of the data (the "
+                           "values are not in production order)")
+        elif f.code == "heavy_auto_removal":
+            reasons.append("automatic phase I removed more of the values than the stated "
+                           "share")
+        elif f.code == "too_few_after_removal":
+            reasons.append("automatic phase I left too few values")
+    if verdict.meets is None and verdict.text.startswith("Not judged"):
+        text = verdict.text + f" Not judged either because {'; '.join(reasons)}."
+    else:
+        text = (f"Not judged: {'; '.join(reasons)} (see the findings). For information only, "
+                f"{name} would be {est} with lower {verdict.level:.0%} bound {low} against the "
+                f"required {verdict.threshold:g}.")
+    return replace(verdict, meets=None, text=text)
+
+
 def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice, *, lsl, usl,
                             target, level, df_within):
     """Normal-theory capability on the transformed scale (Box-Cox, Johnson)."""
@@ -745,6 +964,23 @@ def analyze_characteristic(
         )
         excl = {k: v for k, v in excl.items() if k not in unknown}
 
+    order = None
+    if not attribute:
+        manual = np.array([lab in excl for lab in labels.tolist()], dtype=bool)
+        order = order_module.check_order(
+            values[~manual], name=name, unit=data.unit or (spec.unit if spec is not None else None),
+            has_times=getattr(data, "times", None) is not None,
+        )
+    order_flagged = order is not None and order.flagged
+    requested = options.model or (spec.model if spec is not None else None) or "auto"
+    has_limits = spec is not None and (spec.lsl is not None or spec.usl is not None)
+    rescale = (_model_scale(requested) if has_limits and not attribute and requested != "normal"
+               else None)
+    chart_kw = {}
+    if attribute:
+        chart_kw["laney"] = options.laney
+    elif options.sigma_method is not None and len(set(labels.tolist())) < labels.size:
+        chart_kw["sigma_method"] = options.sigma_method
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", StudyWarning)
         p1 = phase1(
@@ -754,16 +990,18 @@ def analyze_characteristic(
             sizes=size_arr,
             exclude=excl or None,
             removal_rules=options.removal_rules,
-            max_iterations=10 if options.phase1 == "auto" else 0,
-            rules=options.rules,
-            **({"laney": options.laney} if attribute else {}),
+            max_iterations=10 if options.phase1 == "auto" and not order_flagged else 0,
+            rules=() if order_flagged else options.rules,
+            dispersion_rules=() if order_flagged else DISPERSION_RULES,
+            rescale=rescale,
+            **chart_kw,
         )
     for w in caught:
         msg = str(w.message)
         if msg not in warn:
             warn.append(msg)
     for msg in p1.warnings:
-        if options.phase1 == "off" and msg.startswith("the round limit (0)"):
+        if msg.startswith("the round limit (0)"):
             continue  # no automatic rounds were asked for; the signals are reported as findings
         if msg not in warn:
             warn.append(msg)
@@ -772,6 +1010,7 @@ def analyze_characteristic(
     kept_mask = np.array([lab not in removed for lab in labels.tolist()], dtype=bool)
     x = values[kept_mask]
     kept_labels = labels[kept_mask]
+    withheld = _withheld_findings(p1, order, options)
 
     spec_d = {
         "lsl": None if spec is None else spec.lsl,
@@ -798,17 +1037,23 @@ def analyze_characteristic(
         criteria=crit,
         options=options,
         cautions=cautions,
+        order=order,
     )
 
     if attribute:
+        if not np.any(np.asarray(chart.location.sigma) > 0):
+            warn.extend(w for w in chart.warnings if w not in warn)  # the centre-line chart
         return _attribute_result(common, chart, x, size_arr[kept_mask] if size_arr is not None
-                                 else None, kept_labels, warn, level)
+                                 else None, kept_labels, warn, level, crit, withheld)
 
     mean = float(np.mean(x))
     overall = float(np.std(x, ddof=1)) if x.size > 1 else None
-    within = None if chart.within_sigma is None else float(chart.within_sigma)
+    # the within sigma of the raw values (the chart itself may be on the model's scale)
+    stat_chart = p1.raw_chart or chart
+    within = None if stat_chart.within_sigma is None else float(stat_chart.within_sigma)
     result_kw = dict(
         common,
+        findings=withheld,
         n=int(x.size),
         subgroup_size=chart.subgroup_size,
         mean=mean,
@@ -847,13 +1092,12 @@ def analyze_characteristic(
     if spec is None or (spec.lsl is None and spec.usl is None):
         return CharacteristicResult(**result_kw, warnings=tuple(warn))
 
-    requested = options.model or spec.model or "auto"
     choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
     warn.extend(notes)
-    df_within = _df_within(chart)
+    df_within = _df_within(stat_chart)
     if choice.transform is not None:
         cap = _transformed_capability(
-            x, kept_labels, chart, choice, lsl=spec.lsl, usl=spec.usl, target=spec.target,
+            x, kept_labels, stat_chart, choice, lsl=spec.lsl, usl=spec.usl, target=spec.target,
             level=level, df_within=df_within,
         )
     else:
@@ -891,6 +1135,9 @@ def analyze_characteristic(
     if chart.signals:
         finding, verdict = _not_in_control(chart, verdict)
         findings.insert(0, finding)
+    if withheld:
+        verdict = _withhold(verdict, withheld)
+        findings[:0] = list(withheld)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
     band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
@@ -904,6 +1151,7 @@ def analyze_characteristic(
             )
         except StudyInputError:
             plan = None
+    result_kw.pop("findings", None)
     return CharacteristicResult(
         **result_kw,
         ranking=ranking,
@@ -965,6 +1213,9 @@ def _not_in_control(chart: ControlChart, verdict):
 
 
 _PRETTY_INDEX = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+
+#: Finding codes that withhold the verdict besides ``order_*`` (see ``_withheld_findings``).
+_WITHHOLDING_CODES = ("heavy_auto_removal", "too_few_after_removal")
 
 
 def _check_counts(data, values, sizes, kind):
@@ -1084,20 +1335,32 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
     return capability_module.model_band(values, threshold)
 
 
-def _attribute_result(common, chart, counts, sizes, labels, warn, level):
+def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=None,
+                      withheld=()):
     kind = chart.kind
+    verdict = None
     if kind in ("p", "np"):
         ac = attribute_module.attribute_capability(counts, sizes, level=level)
+        crit = crit or _criteria_dict(None)
+        # pass/fail data are judged by the exact bound on the defective rate (process Z / 3)
+        verdict = attribute_module.attribute_verdict(
+            ac, threshold=crit["threshold"], basis=crit["basis"], index=crit["index"],
+        )
     else:
         units = sizes if sizes is not None else np.ones_like(counts)
         ac = attribute_module.defects_per_unit(counts, units, level=level)
     nominal = None
     if sizes is not None and np.allclose(sizes, sizes[0]):
         nominal = int(sizes[0]) if float(sizes[0]).is_integer() else None
-    findings = (_not_in_control(chart, None)[0],) if chart.signals else ()
+    findings = list(withheld)
+    if chart.signals:
+        finding, verdict = _not_in_control(chart, verdict)
+        findings.insert(0, finding)
+    verdict = _withhold(verdict, tuple(withheld))
     return CharacteristicResult(
         **common,
-        findings=findings,
+        verdict=verdict,
+        findings=tuple(findings),
         n=int(counts.size),
         subgroup_size=nominal,
         mean=float(chart.center_value),

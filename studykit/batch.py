@@ -43,6 +43,7 @@ BATCH_COLUMNS = (
     "characteristic",
     "verdict",
     "meets",
+    "withheld",
     "index",
     "estimate",
     "lower_bound",
@@ -75,7 +76,8 @@ class BatchResult:
     ----------
     rows : tuple of dict
         One dict per characteristic with the keys of :data:`BATCH_COLUMNS`: ``characteristic``,
-        ``verdict`` (sentence or None), ``meets`` (True/False/None), ``index`` (e.g. ``"ppk"``),
+        ``verdict`` (sentence or None), ``meets`` (True/False/None), ``withheld`` (codes of the
+        findings that withhold the verdict, comma-separated, or None), ``index`` (e.g. ``"ppk"``),
         ``estimate`` and ``lower_bound`` of that index, ``model`` (distribution model id),
         ``removed`` (phase-I removals), ``warnings`` (count), ``n`` (values used), ``note`` and
         ``error`` (message, or None when the analysis ran).

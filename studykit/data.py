@@ -1954,10 +1954,40 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
         raise DataFileError(
             "no column holds measurements. Each characteristic needs its own column of numbers "
             "under a header name; the columns found were: "
-            + ", ".join(f"'{h}'" for h in header if h) + ".",
+            + ", ".join(f"'{h}'" for h in header if h) + "."
+            + _time_header_hint(header, t_idx, times),
             file=src.name, row=table.header_row,
         )
+    if t_idx is not None and _plain_numbers(times):
+        warnings_.append(_time_header_hint(header, t_idx, times).strip())
     return characteristics, int(rows.size)
+
+
+def _plain_numbers(times) -> bool:
+    """Every non-empty time cell is a plain number (so the column may be a measurement)."""
+    if times is None or np.asarray(times).dtype.kind != "O":
+        return False
+    cells = [str(v).strip() for v in np.asarray(times).tolist() if str(v).strip()]
+    if not cells:
+        return False
+    try:
+        for c in cells:
+            float(c.replace(",", "."))
+    except ValueError:
+        return False
+    return True
+
+
+def _time_header_hint(header, t_idx, times) -> str:
+    """Why a column of numbers was not taken as a characteristic: its header reads as a time."""
+    if t_idx is None:
+        return ""
+    name = header[t_idx]
+    numbers = " and its cells are plain numbers" if _plain_numbers(times) else ""
+    return (f" Column '{name}' was read as time stamps, not as measurements, because its header "
+            f"is a time or date name (time, Zeit, date, Datum, timestamp...){numbers}. If it "
+            "holds measurements, rename the header, e.g. 'cycle time [s]' or 'elapsed [s]' (a time column is "
+            "recognised only by an exact time or date name).")
 
 
 def _fill_merged(codes, rows, ranges, notes, colname, empty_code):

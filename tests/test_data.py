@@ -674,3 +674,23 @@ def test_wrong_encoding_given(tmp_path):
     with pytest.raises(DataFileError, match=r"cannot be read as utf-8 .*Leave the encoding out"):
         read_measurements(p, encoding="utf-8")
     assert read_measurements(p, encoding="latin-1").names == ("A", "Länge")
+
+
+@pytest.mark.parametrize("header", ["time", "time [s]", "Zeit", "date"])
+def test_numeric_column_under_a_time_header_says_why_and_how_to_override(tmp_path, header):
+    # issue 11: a column of numbers headed like a time stamp is read as times; the error must
+    # say so and how to get it read as a measurement (rename the header)
+    from studykit.data import read_measurements
+    from studykit.errors import StudyInputError
+
+    path = tmp_path / "t.csv"
+    path.write_text(f"{header}\n1.5\n2.5\n3.5\n", encoding="utf-8")
+    with pytest.raises(StudyInputError) as err:
+        read_measurements(path)
+    msg = str(err.value)
+    assert "no column holds measurements" in msg
+    assert f"Column '{header}' was read as time stamps" in msg
+    assert "plain numbers" in msg and "rename the header" in msg
+    renamed = tmp_path / "r.csv"
+    renamed.write_text("cycle time [s]\n1.5\n2.5\n3.5\n", encoding="utf-8")
+    assert read_measurements(renamed).names == ("cycle time",)

@@ -38,6 +38,16 @@ def register(sub) -> None:
     p.add_argument("--phase1", choices=["auto", "off"], default=None,
                    help="remove out-of-control subgroups automatically: default auto for a data "
                    "FILE; off for --study, where only the removals recorded in the study count")
+    p.add_argument("--max-auto-removal", type=float, default=None, metavar="SHARE",
+                   help="automatic phase-I removal of more than this share of the values "
+                   "withholds the verdict (default 0.10)")
+    p.add_argument("--min-kept", type=int, default=None, metavar="N",
+                   help="automatic phase-I removal that leaves fewer than N values withholds "
+                   "the verdict (default 20)")
+    p.add_argument("--sigma-method", choices=["auto", "rbar", "sbar", "pooled"], default=None,
+                   help="within sigma of subgrouped charts: auto (R-bar/d2 or S-bar/c4; unequal "
+                   "sizes: mean of R_i/d2(n_i) or s_i/c4(n_i)), rbar, sbar, or pooled "
+                   "(pooled standard deviation / c4(d + 1))")
     p.add_argument("--rules", default="nelson",
                    help="run rules shown: nelson, western_electric, limits_only or a list "
                    "such as 1,2,5 (default nelson)")
@@ -70,6 +80,11 @@ def _options(args):
         rules=args.rules,
         model=args.model,
         confidence=args.confidence,
+        **({"max_auto_removed_share": args.max_auto_removal}
+           if getattr(args, "max_auto_removal", None) is not None else {}),
+        **({"min_kept_values": args.min_kept} if getattr(args, "min_kept", None) is not None
+           else {}),
+        sigma_method=getattr(args, "sigma_method", None),
     )
 
 
@@ -207,6 +222,10 @@ def _fmt(v, digits=4):
     return str(v)
 
 
+def _pct(v) -> str:
+    return "-" if v is None else f"{100 * v:.0f} %"
+
+
 _PRETTY = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
 
 
@@ -239,13 +258,27 @@ def format_result(res) -> str:
             f"  dispersion: centre {_fmt(disp['center'], 6)}  LCL {_fmt(disp['lcl'], 6)}  "
             f"UCL {_fmt(disp['ucl'], 6)}"
         )
+    if ch.get("scale_text"):
+        lines.append(f"  charted on the model's scale: {ch['scale_text']}")
+    if ch.get("probability_limits"):
+        pl = ch["probability_limits"]
+        lines.append(
+            f"  probability limits in measured units: LCL {_fmt(pl['lcl'], 6)}  centre "
+            f"{_fmt(pl['center'], 6)}  UCL {_fmt(pl['ucl'], 6)}"
+        )
+    if d.get("order") and d["order"]["flagged"]:
+        lines.append(f"order: {d['order']['status']} - run rules not applied")
     lines.append(
         f"  mean {_fmt(d['mean'], 6)}  within sigma {_fmt(d['within_sigma'], 5)}  "
         f"overall sigma {_fmt(d['overall_sigma'], 5)}"
     )
     p1 = d["phase1"]
     if p1["removals"]:
-        lines.append(f"phase I: {len(p1['removals'])} subgroup(s) removed")
+        lines.append(
+            f"phase I: {len(p1['removals'])} subgroup(s) removed ({p1['removed_auto']} value(s) "
+            f"automatically, {_pct(p1['removed_share_auto'])}; {p1['removed_recorded']} by "
+            "recorded decisions)"
+        )
         for r in p1["removals"]:
             lines.append(f"  - subgroup {r['label']} ({r['who']}, round {r['iteration']}): "
                          f"{r['reason']}")
@@ -281,7 +314,8 @@ def format_result(res) -> str:
         lines.append(
             f"defective rate {d['defective_rate']:.5f} (upper bound "
             f"{_fmt(d.get('defective_rate_upper_95'), 4)}), PPM {_fmt(d['ppm_defective'], 5)}, "
-            f"process Z {_fmt(d['z_process'], 4)}"
+            f"process Z {_fmt(d['z_process'], 4)} (from the bound "
+            f"{_fmt(d.get('z_process_lower_95'), 4)})"
         )
     if d["verdict"]:
         mark = {True: "MEETS", False: "DOES NOT MEET", None: "NOT JUDGED"}[d["verdict"]["meets"]]

@@ -106,6 +106,8 @@ def format_table(result) -> str:
             verdict = "ERROR"
         else:
             verdict = {True: "meets", False: "does not meet", None: "not judged"}[r["meets"]]
+            if r.get("withheld"):
+                verdict += f" ({r['withheld']})"
         rows.append((
             r["characteristic"], verdict, r["index"] or "-", _num(r["estimate"]),
             _num(r["lower_bound"]), r["model"] or "-", str(r["removed"] or 0),

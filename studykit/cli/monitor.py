@@ -88,11 +88,7 @@ def run(args) -> int:
             "kind": plan.kind,
             "in_control": res.in_control,
             "first_signal": res.first_signal_label,
-            "signals": [
-                {"rule": s.rule, "number": s.number,
-                 "subgroups": [str(res.chart.labels[int(i)]) for i in s.points], "text": s.text}
-                for s in res.signals
-            ],
+            "signals": res.signal_records(),
             "warnings": list(res.warnings),
             "n_missing": int((~keep).sum()),
         }
@@ -107,8 +103,8 @@ def run(args) -> int:
             print("  in control: no rule signals")
         else:
             print(f"  OUT OF CONTROL from subgroup {res.first_signal_label}:")
-            for s in res.signals:
-                print(f"  - {s.text}")
+            for rec in res.signal_records():
+                print(f"  - {rec['text']}")
         for w in res.warnings:
             print(f"  warning: {w}")
     return 0 if res.in_control else 1

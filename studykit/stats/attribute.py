@@ -14,7 +14,14 @@ from scipy import stats
 
 from studykit.errors import AnalysisError, StudyInputError
 
-__all__ = ["AttributeCapability", "DefectsPerUnit", "attribute_capability", "defects_per_unit"]
+__all__ = [
+    "AttributeCapability",
+    "DefectsPerUnit",
+    "attribute_capability",
+    "attribute_verdict",
+    "defects_per_unit",
+    "zero_defect_sample_size",
+]
 
 
 def _level(level):
@@ -209,6 +216,92 @@ def attribute_capability(defectives, inspected, *, level: float = 0.95) -> Attri
         inspected=nt,
         n_subgroups=int(x.size),
         level=level,
+    )
+
+
+def zero_defect_sample_size(rate: float, *, level: float = 0.95) -> int:
+    """Items to inspect with no defective found so that the one-sided upper bound at ``level``
+    is at most ``rate``: the smallest n with 1 - (1 - level)^(1/n) <= rate, i.e.
+    n = ceil(ln(1 - level) / ln(1 - rate)) (Clopper & Pearson 1934 with x = 0).
+
+    Examples
+    --------
+    >>> zero_defect_sample_size(0.0117, level=0.95)
+    255
+    """
+    level = _level(level)
+    if not 0 < rate < 1:
+        raise StudyInputError(f"`rate` ({rate!r}) must lie strictly between 0 and 1.")
+    return int(math.ceil(math.log(1 - level) / math.log1p(-rate)))
+
+
+def attribute_verdict(ac: AttributeCapability, *, threshold: float, basis: str = "lower_bound",
+                      index: str = "ppk"):
+    """Judge a pass/fail characteristic from its defective rate (p and np charts).
+
+    The requirement "index >= threshold" is read as a one-sided defective rate: Ppk = Z / 3,
+    so the rate allowed is Phi(-3 threshold) (process Z = 3 Ppk; common practice for attribute
+    capability, Montgomery ch. 8, from memory). The judged figure is the process Z divided by 3
+    from the exact one-sided upper Clopper-Pearson bound on the rate (``basis="lower_bound"``),
+    or from the observed rate (``basis="estimate"``). With no defective found the observed rate
+    gives no finite Z, so the verdict always uses the bound then; with only defectives found the
+    requirement is not met.
+
+    Returns
+    -------
+    studykit.stats.capability.Verdict
+
+    Examples
+    --------
+    >>> v = attribute_verdict(attribute_capability([0], [255]), threshold=0.7)
+    >>> v.meets, round(v.lower_bound, 3)
+    (True, 0.756)
+    """
+    from studykit.stats.capability import Verdict
+
+    level = ac.level
+    allowed = float(stats.norm.sf(3 * threshold))
+    est = None if ac.z_process is None else ac.z_process / 3
+    low = None if ac.z_process_lower_bound is None else ac.z_process_lower_bound / 3
+    pct = f"{level:.0%}"
+    bound_ppm = ac.ppm_defective_upper_bound
+    head = (f"{ac.defectives} defective(s) in {ac.inspected} items: the exact one-sided {pct} "
+            f"upper bound on the defective rate is {ac.defective_rate_upper_bound:.4g} "
+            f"({bound_ppm:,.0f} PPM, Clopper-Pearson)")
+    judged_on_bound = basis == "lower_bound" or ac.defectives == 0
+    if ac.defectives == ac.inspected:
+        meets = False
+        text = (f"Every inspected item ({ac.inspected}) is defective: the requirement "
+                f"({index.capitalize()} >= {threshold:g}, a defective rate of at most "
+                f"{allowed * 1e6:.3g} PPM) is not met.")
+    else:
+        judged = low if judged_on_bound else est
+        meets = judged is not None and judged >= threshold
+        what = "the bound" if judged_on_bound else "the observed rate"
+        zval = ac.z_process_lower_bound if judged_on_bound else ac.z_process
+        text = (f"{head}; the process Z from {what} is {zval:.2f}, equivalent to "
+                f"{index.capitalize()} {judged:.2f} against the required {threshold:g} (a rate "
+                f"of at most {allowed * 1e6:.3g} PPM): ")
+        if meets:
+            text += "the data demonstrate the requirement."
+        else:
+            text += "the data do not demonstrate the requirement."
+            if ac.defectives == 0:
+                need = zero_defect_sample_size(allowed, level=level)
+                text += (f" With no defective found, {need:,} items without a defective would "
+                         f"be needed to show it at {pct} confidence.")
+        if ac.defectives == 0 and basis == "estimate":
+            text += " (No defective was found, so the bound is judged, not the estimate.)"
+    return Verdict(
+        criterion=f"{index} >= {threshold:g}",
+        index=index,
+        threshold=float(threshold),
+        basis="lower_bound" if judged_on_bound else basis,
+        estimate=est,
+        lower_bound=low,
+        level=level,
+        meets=meets,
+        text=text,
     )
 
 

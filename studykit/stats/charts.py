@@ -23,7 +23,9 @@ Choices (each stated once here and in the result's ``reason`` / ``sigma_method``
   so the zone rules (2 of 3 in zone A, 4 of 5 in zone B, ...) built for a symmetric normal
   statistic give false-alarm rates far from their nominal ones; trend and alternation rules are
   not used on the moving range because neighbouring moving ranges share a value.
-* Attribute charts: LCL below zero is set to zero. The over-dispersion check computes Laney's
+* Attribute charts: LCL below zero is set to zero. With no nonconforming item (or only
+  nonconforming items) in any subgroup the chart is its centre line (limits equal to it), no
+  rule is evaluated and a note says so; the capability is then judged from the exact bound. The over-dispersion check computes Laney's
   sigma_z (moving range of the standardised points / d2(2)); ``laney=True`` widens the limits by
   sigma_z (Laney 2002), ``"auto"`` only suggests it.
 """
@@ -922,14 +924,12 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
                 "per count."
             )
     binomial = kind in ("p", "np")
+    edge = None
     if standard is None:
         rate = float(y.sum() / n.sum())
         if rate <= 0 or (binomial and rate >= 1):
-            raise AnalysisError(
-                f"every subgroup has {'no' if rate <= 0 else 'only'} nonconforming "
-                f"{'items' if binomial else 'findings'}; a {kind} chart has no spread to work "
-                "with. Check the counts or collect more subgroups."
-            )
+            # zero (or all) nonconforming: the chart is its centre line, nothing can signal
+            edge = "none" if rate <= 0 else "all"
     else:
         rate = float(standard)
         if not (rate > 0 and (rate < 1 or not binomial)):
@@ -942,8 +942,14 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         points, center, sd = y / n, np.full(k, rate), base_sd
     else:
         points, center, sd = y, n * rate, n * base_sd
-    z = (points - center) / sd
-    sigma_z = float(np.mean(np.abs(np.diff(z))) / d2(2)) if k >= 2 else float("nan")
+    if edge is not None:
+        if laney is True or not (isinstance(laney, bool) or laney == "auto"):
+            laney = False  # nothing to widen
+        z = np.zeros(k)
+        sigma_z = float("nan")
+    else:
+        z = (points - center) / sd
+        sigma_z = float(np.mean(np.abs(np.diff(z))) / d2(2)) if k >= 2 else float("nan")
     mean_size = float(n.mean())
     mean_count = float(np.mean(n * rate))
     large = mean_size >= LANEY_MIN_SIZE if binomial else mean_count >= LANEY_MIN_COUNT
@@ -959,7 +965,11 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
             f"Laney's sigma_z ({sz_used}) must be positive and needs at least 2 subgroups that "
             "differ; use laney=False for these counts."
         )
-    if far and large:
+    if edge is not None:
+        why = (f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
+               f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
+               "and no point can signal; the over-dispersion check does not apply")
+    elif far and large:
         why = (
             f"the points vary {sigma_z:.2f} times as much as the "
             f"{'binomial' if binomial else 'Poisson'} model expects and subgroups are large; "
@@ -984,6 +994,8 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
     )
     sd_plot = sd * sz_used if applied else sd
     notes = []
+    if edge is not None:
+        notes.append(why)
     if laney == "auto" and check.suggested:
         notes.append(why)
     loc = _series(
@@ -993,7 +1005,7 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         sd_plot,
         floor_zero=True,
         rules=rules,
-        evaluate=evaluate,
+        evaluate=evaluate and edge is None,
         labels=None if labels is None else labels_t,
     )
     method = "laney" if applied else ("binomial" if binomial else "poisson")

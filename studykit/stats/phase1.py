@@ -42,7 +42,14 @@ from studykit.stats.charts import (
     evaluate_series,
 )
 
-__all__ = ["Removal", "Phase1Result", "phase1", "MIN_SUBGROUPS", "MAX_REMOVED_SHARE"]
+__all__ = [
+    "Removal",
+    "Phase1Result",
+    "ChartScale",
+    "phase1",
+    "MIN_SUBGROUPS",
+    "MAX_REMOVED_SHARE",
+]
 
 #: Fewer kept subgroups than this raises a HeavyRemovalWarning (common practice, no source).
 MIN_SUBGROUPS = 20
@@ -106,6 +113,35 @@ class Removal:
 
 
 @dataclass(frozen=True, eq=False)
+class ChartScale:
+    """The scale on which phase I charts the values (see ``phase1(..., rescale=...)``).
+
+    Attributes
+    ----------
+    name : str
+        ``"raw"`` (the values as measured), ``"transformed"`` (Box-Cox or Johnson values) or
+        ``"normal_score"`` (Phi^-1 of the fitted model's cdf: limits at -3, 0, +3 there are the
+        model's 0.135 %, 50 % and 99.865 % points).
+    label : str
+        What the plotted values are, in words (used in removal reasons and on the charts).
+    values : ndarray
+        The kept values on this scale, in the order given.
+    mu, sigma : float or None
+        A known standard for the chart on this scale (normal scores: 0 and 1), else None (the
+        chart estimates centre and within sigma as usual).
+    model : object
+        Whatever the caller attaches (the analysis keeps its model choice here).
+    """
+
+    name: str
+    label: str
+    values: np.ndarray
+    mu: float | None = None
+    sigma: float | None = None
+    model: object = None
+
+
+@dataclass(frozen=True, eq=False)
 class Phase1Result:
     """Outcome of the phase-I loop.
 
@@ -130,6 +166,13 @@ class Phase1Result:
         1 - kept / total.
     warnings : tuple of str
         Cautions in plain words (heavy removal, round limit reached...).
+    scale : ChartScale or None
+        The scale of the final chart when a ``rescale`` function was given (None: raw values).
+    raw_chart : ControlChart or None
+        When the final chart is not on the raw scale: the normal-theory chart of the kept raw
+        values (its within sigma is the one reported; the phase-II hand-off freezes it).
+    n_removed_manual, n_removed_auto : int
+        Values (attribute charts: subgroups) taken out by recorded exclusions and by the rules.
     """
 
     chart: ControlChart
@@ -143,6 +186,20 @@ class Phase1Result:
     n_values_kept: int
     removed_share: float
     warnings: tuple = ()
+    scale: ChartScale | None = None
+    n_removed_manual: int = 0
+    n_removed_auto: int = 0
+    raw_chart: ControlChart | None = None
+
+    @property
+    def auto_removed_share(self) -> float:
+        """Share of the values removed by the rules (recorded exclusions not counted)."""
+        return self.n_removed_auto / self.n_values_total if self.n_values_total else 0.0
+
+    @property
+    def manual_removed_share(self) -> float:
+        """Share of the values removed by exclusions a person recorded."""
+        return self.n_removed_manual / self.n_values_total if self.n_values_total else 0.0
 
     @property
     def signals(self) -> tuple:
@@ -168,6 +225,9 @@ class Phase1Result:
             "n_values_kept": self.n_values_kept,
             "removed_share": float(self.removed_share),
             "warnings": list(self.warnings),
+            "scale": None if self.scale is None else self.scale.name,
+            "n_removed_manual": int(self.n_removed_manual),
+            "n_removed_auto": int(self.n_removed_auto),
         }
 
 
@@ -175,8 +235,10 @@ def _fmt(v) -> str:
     return f"{float(v):.6g}"
 
 
-def _describe(series: ChartSeries, pos: int, signal, rnd: int) -> str:
+def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None) -> str:
     what = _NAMES.get(series.name, series.name)
+    if scale is not None and scale.name != "raw":
+        what = f"{what} ({scale.label})"
     value = series.points[pos]
     if signal.rule == "beyond_limits":
         if value > series.ucl[pos]:
@@ -189,6 +251,8 @@ def _describe(series: ChartSeries, pos: int, signal, rnd: int) -> str:
 
 def _flagged(series: ChartSeries, rules, labels) -> dict[int, list]:
     found: dict[int, list] = {}
+    if not np.any(np.asarray(series.sigma) > 0):
+        return found  # a chart that is its centre line (no defective at all): nothing signals
     sigs = evaluate_series(
         series.points,
         center=series.center,
@@ -219,6 +283,7 @@ def phase1(
     dispersion_rules=DISPERSION_RULES,
     min_subgroups: int = MIN_SUBGROUPS,
     max_removed_share: float = MAX_REMOVED_SHARE,
+    rescale=None,
     **chart_options,
 ) -> Phase1Result:
     """Iterate trial control limits, removing signalling subgroups with a logged reason.
@@ -243,6 +308,11 @@ def phase1(
         Display rules for the signals of the returned charts.
     min_subgroups, max_removed_share
         Thresholds of the :class:`~studykit.errors.HeavyRemovalWarning`.
+    rescale : callable, optional
+        ``rescale(kept_values) -> ChartScale``, called in every round with the values still
+        kept (variables charts only): the chart of that round is drawn on the returned scale.
+        The analysis passes a function that refits the distribution model to the kept values,
+        so model and removals are decided together. None: the raw values.
     **chart_options
         Passed to ``control_chart`` (``sigma_method``, ``mu``, ``sigma``, ``standard``,
         ``laney``).
@@ -330,18 +400,29 @@ def phase1(
             )
         )
 
+    scales: list = []
+
     def build(kind_now):
         mask = np.array([lab not in removed for lab in label_list], dtype=bool)
         if not mask.any():
             raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
+        xs, extra = x[mask], {}
+        if rescale is not None and not attribute:
+            sc = rescale(xs)
+            scales.append(sc)
+            xs = np.asarray(sc.values, dtype=float)
+            if sc.mu is not None:
+                extra["mu"] = sc.mu
+            if sc.sigma is not None:
+                extra["sigma"] = sc.sigma
         return control_chart(
-            x[mask],
+            xs,
             sub[mask],
             kind=kind_now,
             sizes=None if size_arr is None else size_arr[mask],
             rules=rules,
             dispersion_rules=dispersion_rules,
-            **chart_options,
+            **{**chart_options, **extra},
         )
 
     chart = build(kind)
@@ -386,7 +467,9 @@ def phase1(
                         rule_ids.append(s.rule)
                     if name not in where:
                         where.append(name)
-                    parts.append(_describe(series, pos, s, iterations))
+                    parts.append(
+                        _describe(series, pos, s, iterations, scales[-1] if scales else None)
+                    )
             removed.add(label)
             removals.append(
                 Removal(
@@ -428,6 +511,20 @@ def phase1(
         )
     elif stopped == "too_few":
         notes.append("removing further signalling subgroups would leave fewer than 3 subgroups.")
+    raw_chart = None
+    if scales and scales[-1].name != "raw":
+        mask = np.array([lab not in removed for lab in label_list], dtype=bool)
+        raw_chart = control_chart(
+            x[mask], sub[mask], kind=kind_fixed, rules=rules, dispersion_rules=dispersion_rules,
+            **chart_options,
+        )
+        if raw_chart.reason != trial.reason and kind == "auto":
+            raw_chart = dataclasses.replace(raw_chart, reason=trial.reason)
+    n_manual = sum(r.n_values for r in removals if r.rule == "manual")
+    n_auto = sum(r.n_values for r in removals if r.rule != "manual")
+    if attribute:
+        n_manual = sum(1 for r in removals if r.rule == "manual")
+        n_auto = sum(1 for r in removals if r.rule != "manual")
     return Phase1Result(
         chart=chart,
         trial_chart=trial,
@@ -440,6 +537,10 @@ def phase1(
         n_values_kept=int(kept_n),
         removed_share=float(share) if math.isfinite(share) else 0.0,
         warnings=tuple(notes),
+        scale=scales[-1] if scales else None,
+        n_removed_manual=int(n_manual),
+        n_removed_auto=int(n_auto),
+        raw_chart=raw_chart,
     )
 
 

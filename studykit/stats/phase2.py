@@ -184,16 +184,101 @@ class MonitorResult:
     first_signal_label: object
     warnings: tuple = ()
 
+    def signal_records(self) -> list[dict]:
+        """Each signal with the chart it is on; see :func:`signal_records`."""
+        return signal_records(self.chart)
+
     def to_dict(self) -> dict:
         """JSON-safe dictionary."""
         return {
             "plan": self.plan.to_dict(),
             "chart": self.chart.to_dict(),
             "signals": [s.to_dict() for s in self.signals],
+            "signal_records": self.signal_records(),
             "in_control": self.in_control,
             "first_signal_label": _plain_label(self.first_signal_label),
             "warnings": list(self.warnings),
         }
+
+
+#: What each plotted statistic is called in a signal's text.
+_STATISTIC_WORDS = {
+    "xbar": "subgroup average",
+    "range": "subgroup range",
+    "stdev": "subgroup standard deviation",
+    "individual": "reading",
+    "moving_range": "moving range",
+    "p": "proportion nonconforming",
+    "np": "number nonconforming",
+    "c": "count of nonconformities",
+    "u": "nonconformities per unit",
+}
+_CHART_WORDS = {
+    "xbar": "X-bar chart",
+    "range": "range chart",
+    "stdev": "S chart",
+    "individual": "individuals chart",
+    "moving_range": "moving-range chart",
+}
+
+
+def signal_records(chart: ControlChart) -> list[dict]:
+    """The signals of a chart with the chart each is on and the readings it points at.
+
+    Each record: ``rule``, ``number`` (Nelson), ``chart`` (``"location"`` or ``"dispersion"``),
+    ``statistic`` (what is plotted: ``individual``, ``moving_range``, ``xbar``...),
+    ``subgroups`` (labels of the plotted points of the pattern), ``readings`` (labels of every
+    reading behind them: a moving range at reading i is |x_i - x_(i-1)|, so it points at
+    readings i-1 and i) and ``text`` (one line naming the chart, the statistic and the
+    readings).
+
+    Examples
+    --------
+    >>> from studykit.stats.charts import control_chart
+    >>> ch = control_chart([49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1])
+    >>> res = monitor(freeze(ch, characteristic="d"), [50.0, 54.5, 47.0, 50.1], list("abcd"))
+    >>> [(r["chart"], r["readings"]) for r in res.signal_records()]
+    [('dispersion', ['b', 'c'])]
+    >>> res.signal_records()[0]["text"]
+    'moving-range chart: moving range of readings b and c (7.5) above the upper control limit 6.134'
+    """
+    out = []
+    labels = chart.labels
+    for part, series in (("location", chart.location), ("dispersion", chart.dispersion)):
+        if series is None:
+            continue
+        where = _CHART_WORDS.get(series.name, f"{series.name} chart")
+        for sig in series.signals:
+            pos = [int(p) for p in sig.points]
+            subgroups = [_plain_label(labels[p]) for p in pos]
+            readings = subgroups
+            text = f"{where}: {sig.text}"
+            if series.name == "moving_range":
+                behind = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
+                readings = [_plain_label(labels[q]) for q in behind]
+                if sig.rule == "beyond_limits" and len(pos) == 1:
+                    p = pos[0]
+                    value = float(series.points[p])
+                    side, lim = (("above the upper", series.ucl[p]) if value > series.ucl[p]
+                                 else ("below the lower", series.lcl[p]))
+                    text = (f"{where}: moving range of readings {labels[p - 1]} and "
+                            f"{labels[p]} ({value:.4g}) {side} control limit {float(lim):.4g}")
+                else:
+                    text = (f"{where}: {sig.text} (a moving range at a reading is its "
+                            "difference from the reading before; readings "
+                            + ", ".join(str(r) for r in readings) + ")")
+            elif series.name != "individual" or chart.kind in ("xbar_r", "xbar_s"):
+                text = f"{where} ({_STATISTIC_WORDS.get(series.name, series.name)}): {sig.text}"
+            out.append({
+                "rule": sig.rule,
+                "number": sig.number,
+                "chart": part,
+                "statistic": series.name,
+                "subgroups": [str(v) for v in subgroups],
+                "readings": [str(v) for v in readings],
+                "text": text,
+            })
+    return out
 
 
 def freeze(
@@ -241,7 +326,8 @@ def freeze(
     >>> round(plan.location_ucl, 4), plan.subgroup_size
     (55.8024, 1)
     """
-    chart = getattr(chart, "chart", chart)
+    # a phase-I result charted on a model's scale keeps the chart of its raw values for this
+    chart = getattr(chart, "raw_chart", None) or getattr(chart, "chart", chart)
     if not isinstance(chart, ControlChart):
         raise StudyInputError(
             f"`chart` must be a ControlChart or a phase-I result; got {type(chart).__name__}."
