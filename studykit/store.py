@@ -1149,6 +1149,13 @@ class StudyFile:
         with self._read() as conn:
             return check_chain(conn)
 
+    def chain_entry_hash(self, entry_id: int) -> str | None:
+        """The stored ``entry_hash`` of audit entry ``entry_id`` (None when there is none)."""
+        with self._read() as conn:
+            row = conn.execute("SELECT entry_hash FROM audit_log WHERE id = ?",
+                               (int(entry_id),)).fetchone()
+        return None if row is None else row[0]
+
     def require_intact(self) -> ChainCheck:
         """:meth:`check_chain`, raising :class:`StudyFileError` (one line naming the first
         break) when the chain is broken."""
