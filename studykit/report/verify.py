@@ -470,12 +470,33 @@ def _page_prints(pdf_bytes: bytes) -> list[tuple[str, list[str], str]]:
     reader = PdfReader(io.BytesIO(pdf_bytes))
     memo: dict = {}
     out = []
+    from pypdf.generic import DictionaryObject
+
     for page in reader.pages:
         h = hashlib.sha256()
-        for key in ("/Contents", "/Resources", "/MediaBox", "/CropBox", "/Rotate"):
+        for key in ("/Contents", "/MediaBox", "/CropBox", "/Rotate"):
             h.update(key.encode())
             if key in page:
                 _tree_digest(page.raw_get(key), h, memo)
+        # resources: only those the page's content names (a shared font dictionary that an
+        # edit of another page extended does not make this page differ)
+        try:
+            contents = page.get_contents()
+            used = contents.get_data() if contents is not None else b""
+        except Exception:  # noqa: BLE001
+            used = b""
+        res = page.get("/Resources")
+        res = res.get_object() if res is not None else {}
+        for cat in sorted(res.keys()):
+            entries = res[cat].get_object() if hasattr(res[cat], "get_object") else res[cat]
+            h.update(str(cat).encode())
+            if isinstance(entries, DictionaryObject):
+                for name in sorted(entries.keys()):
+                    if str(name).encode("latin-1", "replace") in used:
+                        h.update(str(name).encode("utf-8", "replace"))
+                        _tree_digest(entries.raw_get(name), h, memo)
+            else:
+                _tree_digest(res.raw_get(cat), h, memo)
         foreign = []
         for a in page.get("/Annots") or []:
             a = a.get_object()
