@@ -13,6 +13,12 @@ busy timeout): a process killed mid-write leaves the file as of its last commit,
 processes writing at once wait for each other instead of losing entries. The lock check of an
 approved study happens inside the same transaction as the write.
 
+The audit log is a hash chain (schema 3): each entry stores the hash of the entry before it,
+the hashes of the rows it wrote (canonical JSON of the whole row, in any table), and the hash of
+its own canonical content. :meth:`StudyFile.check_chain` recomputes it and names the entry or row
+that breaks it, so rows inserted, deleted or edited behind studykit's back (even with the
+triggers dropped) are found. See :func:`check_chain`.
+
 The schema carries a version (``PRAGMA user_version``) and an application id; :data:`MIGRATIONS`
 lists the functions that bring a file from each version to the next. A file from a newer
 studykit is refused with a clear message instead of being misread.
@@ -45,6 +51,8 @@ from studykit.study import (
 
 __all__ = [
     "APPLICATION_ID",
+    "CHAIN_GENESIS",
+    "ChainCheck",
     "MIGRATIONS",
     "SCHEMA_VERSION",
     "AuditEntry",
@@ -118,8 +126,37 @@ def _migrate_1_to_2(conn: sqlite3.Connection) -> None:
     _append_only(conn, "results")
 
 
+def _migrate_2_to_3(conn: sqlite3.Connection) -> None:
+    """Schema 3: the audit log becomes a hash chain; sign-offs carry the chain head they signed.
+
+    Entries already in the file are sealed as found (each gets the previous entry's hash and its
+    own); every row already in the file is then claimed by the next audit entry (the migration
+    entry written by :class:`StudyFile`), so from here on every row is under the chain.
+    """
+    conn.execute("ALTER TABLE audit_log ADD COLUMN prev_hash TEXT")
+    conn.execute("ALTER TABLE audit_log ADD COLUMN rows_json TEXT")
+    conn.execute("ALTER TABLE audit_log ADD COLUMN entry_hash TEXT")
+    conn.execute("ALTER TABLE signoffs ADD COLUMN chain_head TEXT")
+    rows = _table_rows(conn, "audit_log", order="id")
+    if rows:
+        conn.execute("DROP TRIGGER IF EXISTS audit_log_no_update")
+        prev = CHAIN_GENESIS
+        for row in rows:
+            row = dict(row, prev_hash=prev, rows_json="[]")
+            row.pop("entry_hash", None)
+            h = _entry_hash(row)
+            conn.execute("UPDATE audit_log SET prev_hash = ?, rows_json = ?, entry_hash = ? "
+                         "WHERE id = ?", (prev, "[]", h, row["id"]))
+            prev = h
+        conn.execute(
+            "CREATE TRIGGER audit_log_no_update BEFORE UPDATE ON audit_log BEGIN SELECT "
+            "RAISE(ABORT, 'audit_log is append-only: entries cannot be changed'); END")
+    _chain_begin(conn, claim_existing=True)
+
+
 #: MIGRATIONS[v] brings a file from schema v to v + 1; the last one reached is SCHEMA_VERSION
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_0_to_1, _migrate_1_to_2]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_0_to_1, _migrate_1_to_2,
+                                                          _migrate_2_to_3]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
@@ -128,6 +165,290 @@ def _apply_migrations(conn: sqlite3.Connection, start: int, stop: int = SCHEMA_V
     for version in range(start, stop):
         MIGRATIONS[version](conn)
         conn.execute(f"PRAGMA user_version = {version + 1}")
+
+
+
+# ---------------------------------------------------------------------------------------------
+# the hash chain over the audit log
+
+#: ``prev_hash`` of the first audit entry
+CHAIN_GENESIS = "0" * 64
+_CHAIN_FORMAT = "studykit-chain-1"
+#: tables made append-only by the migrations (their guards are checked by check_chain)
+_GUARDED = ("meta", "data_files", "characteristics", "decisions", "comments", "signoffs",
+            "audit_log", "results")
+
+
+class _ChainConnection(sqlite3.Connection):
+    """A connection that remembers, per table, the last row already claimed by an audit entry
+    in the running transaction (``chain_marks``; None outside a write)."""
+
+    chain_marks: dict | None = None
+
+
+def _canonical_json(obj) -> str:
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=False)
+
+
+def _encode_value(v):
+    if isinstance(v, bytes | bytearray | memoryview):
+        b = bytes(v)
+        return {"blob_sha256": hashlib.sha256(b).hexdigest(), "bytes": len(b)}
+    return v
+
+
+def _canonical_row(row: Mapping) -> dict:
+    """A row as JSON: NULL columns left out (so a column added later as NULL changes no hash),
+    BLOBs as their SHA-256 and length."""
+    return {k: _encode_value(v) for k, v in row.items() if v is not None}
+
+
+def _row_hash(table: str, row: Mapping) -> str:
+    """SHA-256 of the canonical JSON of a whole row of ``table`` (every column)."""
+    text = _canonical_json({"format": _CHAIN_FORMAT, "table": table, "row": _canonical_row(row)})
+    return hashlib.sha256(text.encode("ascii")).hexdigest()
+
+
+def _entry_hash(entry: Mapping) -> str:
+    """SHA-256 of the canonical JSON of an audit entry: every column but ``entry_hash``."""
+    body = _canonical_row({k: v for k, v in entry.items() if k != "entry_hash"})
+    text = _canonical_json({"format": _CHAIN_FORMAT, "entry": body})
+    return hashlib.sha256(text.encode("ascii")).hexdigest()
+
+
+def _chained_tables(conn) -> list[str]:
+    """Every table whose rows the chain covers: all but the audit log and SQLite's own."""
+    return [r[0] for r in conn.execute(
+        "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%' "
+        "AND name != 'audit_log' ORDER BY name")]
+
+
+def _key_columns(conn, table: str) -> list[str]:
+    cols = sorted((r[5], r[1]) for r in conn.execute(f'PRAGMA table_info("{table}")') if r[5])
+    return [c for _, c in cols]
+
+
+def _table_rows(conn, table: str, *, order: str = "_rowid_", after: int | None = None):
+    """Rows of ``table`` as dicts with every column (plus ``_rowid_`` under ``"_sk_rowid_"``
+    when ``after`` is given)."""
+    where = "" if after is None else " WHERE _rowid_ > ?"
+    cur = conn.execute(f'SELECT _rowid_ AS "_sk_rowid_", * FROM "{table}"{where} ORDER BY {order}',
+                       () if after is None else (after,))
+    names = [d[0] for d in cur.description]
+    out = []
+    for values in cur:
+        row = dict(zip(names, values, strict=True))
+        rowid = row.pop("_sk_rowid_")
+        if after is not None:
+            row["_sk_rowid_"] = rowid
+        out.append(row)
+    return out
+
+
+def _row_key(keys: list[str], row: Mapping, rowid=None):
+    if not keys:
+        return rowid
+    return row[keys[0]] if len(keys) == 1 else [row[k] for k in keys]
+
+
+def _chain_begin(conn, *, claim_existing: bool = False) -> None:
+    """Start claiming rows for the chain in this write: rows present now are already claimed
+    (or, with ``claim_existing``, none is: the next audit entry claims them all)."""
+    marks = {}
+    for t in _chained_tables(conn):
+        marks[t] = 0 if claim_existing else conn.execute(
+            f'SELECT coalesce(max(_rowid_), 0) FROM "{t}"').fetchone()[0]
+    try:
+        conn.chain_marks = marks
+    except AttributeError:  # a plain sqlite3 connection (should not happen): no claiming
+        pass
+
+
+def _claim_new_rows(conn) -> list[dict]:
+    """References (table, key, sha256) of the rows written since the last claim."""
+    marks = getattr(conn, "chain_marks", None)
+    if marks is None:
+        return []
+    refs = []
+    for t in _chained_tables(conn):
+        keys = _key_columns(conn, t)
+        for row in _table_rows(conn, t, after=marks.get(t, 0)):
+            rowid = row.pop("_sk_rowid_")
+            marks[t] = max(marks.get(t, 0), rowid)
+            refs.append({"table": t, "key": _row_key(keys, row, rowid),
+                         "sha256": _row_hash(t, row)})
+    return refs
+
+
+def _chain_tail(conn) -> tuple[int, str]:
+    row = conn.execute("SELECT id, entry_hash FROM audit_log ORDER BY id DESC LIMIT 1").fetchone()
+    if row is None:
+        return 0, CHAIN_GENESIS
+    return int(row[0]), row[1] or ""
+
+
+def _chain_finish(conn) -> None:
+    """Before a commit: rows written after the last audit entry get an entry of their own, so
+    no row ever escapes the chain."""
+    if getattr(conn, "chain_marks", None) is None:
+        return
+    refs = _claim_new_rows(conn)
+    if refs:
+        tables = sorted({r["table"] for r in refs})
+        _append_entry(conn, who="studykit", what=f"store {len(refs)} row(s) in "
+                      + ", ".join(tables), why="", detail={}, refs=refs)
+    conn.chain_marks = None
+
+
+def _append_entry(conn, *, who: str, what: str, why: str, detail: Mapping, when: str | None = None,
+                  refs: list | None = None) -> int:
+    if refs is None:
+        refs = _claim_new_rows(conn)
+    last_id, prev = _chain_tail(conn)
+    entry = {"id": last_id + 1, "at": when or now_utc(), "who": who or "unknown", "what": what,
+             "why": why or "", "detail_json": _dumps(dict(detail or {})), "prev_hash": prev,
+             "rows_json": _canonical_json(refs)}
+    entry["entry_hash"] = _entry_hash(entry)
+    cols = list(entry)
+    conn.execute(f"INSERT INTO audit_log ({', '.join(cols)}) VALUES "
+                 f"({', '.join('?' for _ in cols)})", [entry[c] for c in cols])
+    return entry["id"]
+
+
+@dataclass(frozen=True)
+class ChainCheck:
+    """The result of checking a study file's audit chain (:meth:`StudyFile.check_chain`).
+
+    Fields: ``entries`` (how many audit entries), ``head`` (``"<id>:<sha256>"`` of the last
+    entry, the chain head), ``rows`` (rows covered), ``problems`` (tuple of (entry id or None,
+    sentence), in file order). ``ok`` when there is no problem.
+    """
+
+    entries: int
+    head: str
+    rows: int
+    problems: tuple
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+    def summary(self) -> str:
+        """One line: the chain holds, or the first break (and how many more)."""
+        if self.ok:
+            return (f"audit chain intact: {self.entries} entries over {self.rows} rows, head "
+                    f"{self.head[:20]}...")
+        more = f" (and {len(self.problems) - 1} more problem(s))" if len(self.problems) > 1 \
+            else ""
+        return f"audit chain BROKEN: {self.problems[0][1]}{more}"
+
+    def to_dict(self) -> dict:
+        return {"ok": self.ok, "entries": self.entries, "head": self.head, "rows": self.rows,
+                "problems": [{"entry": e, "problem": p} for e, p in self.problems]}
+
+
+def _describe_row(table: str, row: Mapping) -> str:
+    bits = []
+    for k in ("name", "role", "decision", "action", "characteristic", "subgroup", "kind",
+              "filename", "key", "who"):
+        v = row.get(k)
+        if v not in (None, ""):
+            bits.append(f"{k} {str(v)[:40]!r}")
+    return ", ".join(bits[:4])
+
+
+def check_chain(conn) -> ChainCheck:
+    """Recompute the audit chain of an open study file connection; see :class:`ChainCheck`.
+
+    Checks, in order: every entry's ``prev_hash`` is the hash of the entry before it (the first
+    one's is :data:`CHAIN_GENESIS`); every entry's ``entry_hash`` is the hash of its content;
+    every row of every other table is claimed by exactly one entry with the hash it has now (a
+    row no entry claims was inserted behind studykit; a claimed row that is gone was deleted;
+    one whose hash differs was edited); every sign-off's ``chain_head`` names an entry of the
+    chain with that hash; the append-only guards (triggers) are all in place.
+    """
+    problems: list[tuple] = []
+    cols = {r[1] for r in conn.execute("PRAGMA table_info(audit_log)")}
+    if not {"prev_hash", "rows_json", "entry_hash"} <= cols:
+        return ChainCheck(0, "", 0, ((None, "the audit log has no hash chain (the file was not "
+                                      "brought to schema 3)"),))
+    entries = _table_rows(conn, "audit_log", order="id")
+    claimed: dict = {}
+    hashes: dict[int, str] = {}
+    prev, prev_id = CHAIN_GENESIS, None
+    for e in entries:
+        eid = e.get("id")
+        stored = e.get("entry_hash")
+        where = f"audit entry {eid} ({str(e.get('what'))[:60]!r} by {e.get('who')})"
+        if not stored:
+            problems.append((eid, f"{where} carries no chain hash: it was added outside "
+                             "studykit"))
+        else:
+            if e.get("prev_hash") != prev:
+                after = "the start of the log" if prev_id is None else f"entry {prev_id}"
+                problems.append((eid, f"{where} does not follow {after}: an entry between them "
+                                 "was deleted or inserted outside studykit"))
+            if _entry_hash(e) != stored:
+                problems.append((eid, f"{where} was changed after it was written (its content "
+                                 "no longer matches its hash)"))
+        hashes[eid] = stored or ""
+        prev, prev_id = stored or _entry_hash(e), eid
+        try:
+            refs = json.loads(e.get("rows_json") or "[]")
+            for r in refs:
+                k = (r["table"], _canonical_json(r["key"]))
+                if k in claimed:
+                    problems.append((eid, f"{where} claims {r['table']} row {r['key']} already "
+                                     f"claimed by entry {claimed[k][1]}"))
+                claimed[k] = (r["sha256"], eid)
+        except (ValueError, TypeError, KeyError):
+            problems.append((eid, f"{where} has an unreadable list of rows"))
+    n_rows = 0
+    signoffs = []
+    for t in _chained_tables(conn):
+        keys = _key_columns(conn, t)
+        for row in _table_rows(conn, t, after=0):
+            rowid = row.pop("_sk_rowid_")
+            n_rows += 1
+            key = _row_key(keys, row, rowid)
+            k = (t, _canonical_json(key))
+            h = _row_hash(t, row)
+            if t == "signoffs":
+                signoffs.append(row)
+            if k not in claimed:
+                problems.append((None, f"{t} row {key} ({_describe_row(t, row)}) is in no audit "
+                                 "entry: it was inserted outside studykit"))
+                continue
+            want, eid = claimed.pop(k)
+            if want != h:
+                problems.append((eid, f"{t} row {key} ({_describe_row(t, row)}), written with "
+                                 f"audit entry {eid}, was changed outside studykit"))
+    for (t, key), (_, eid) in claimed.items():
+        problems.append((eid, f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
+                         "missing: it was deleted outside studykit"))
+    for row in signoffs:
+        head = row.get("chain_head")
+        if not head:
+            continue
+        sid, _, h = str(head).partition(":")
+        if not sid.isdigit() or hashes.get(int(sid)) != h:
+            problems.append((None, f"sign-off row {row.get('id')} by {row.get('name')} signed "
+                             f"chain head {str(head)[:24]}..., which is not an entry of this "
+                             "chain: the history before it was rewritten"))
+    triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = "
+                                           "'trigger'")}
+    tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    for t in _GUARDED:
+        if t not in tables:
+            continue
+        for op in ("update", "delete"):
+            if f"{t}_no_{op}" not in triggers:
+                problems.append((None, f"the guard against {op}s of {t} "
+                                 f"({t}_no_{op}) was removed outside studykit"))
+    last_id, last = (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries \
+        else (0, CHAIN_GENESIS)
+    return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -247,11 +568,13 @@ class StudyFile:
                 conn.execute("BEGIN IMMEDIATE")
                 try:
                     version = self._check_version(conn)  # another process may have migrated
+                    _chain_begin(conn)
                     _apply_migrations(conn, version)
                     self._audit(conn, who="studykit",
                                 what=f"migrate file from schema {version} to {SCHEMA_VERSION}",
                                 why="opened by a newer studykit",
                                 detail={"studykit": __version__})
+                    _chain_finish(conn)
                     conn.execute("COMMIT")
                 except BaseException:
                     conn.execute("ROLLBACK")
@@ -288,13 +611,14 @@ class StudyFile:
 
     def _connect(self, *, write: bool = False) -> sqlite3.Connection:
         try:
-            conn = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None)
+            conn = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None,
+                                   factory=_ChainConnection)
             conn.execute(f"PRAGMA busy_timeout = {int(_BUSY_TIMEOUT_S * 1000)}")
             conn.execute("PRAGMA synchronous = FULL")
             conn.execute("PRAGMA foreign_keys = ON")
             if not write:
                 conn.execute("SELECT count(*) FROM sqlite_master").fetchone()  # opens the WAL
-        except sqlite3.DatabaseError as exc:
+        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
             why = self._not_writable()
             if why is not None and not write:
                 return self._connect_read_only(why, exc)
@@ -319,9 +643,9 @@ class StudyFile:
             ) from None
         uri = self.path.resolve().as_uri() + "?immutable=1"
         try:
-            conn = sqlite3.connect(uri, uri=True, isolation_level=None)
+            conn = sqlite3.connect(uri, uri=True, isolation_level=None, factory=_ChainConnection)
             conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
-        except sqlite3.DatabaseError as exc2:
+        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc2:
             raise StudyFileError(f"cannot open study file '{self.path}': {exc2}") from None
         return conn
 
@@ -329,7 +653,7 @@ class StudyFile:
         try:
             app_id = conn.execute("PRAGMA application_id").fetchone()[0]
             version = conn.execute("PRAGMA user_version").fetchone()[0]
-        except sqlite3.DatabaseError as exc:
+        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
             raise StudyFileError(
                 f"'{self.path}' is damaged or not a study file ({exc}): restore it from a backup"
             ) from None
@@ -364,6 +688,10 @@ class StudyFile:
             conn.execute("COMMIT")
         except sqlite3.DatabaseError as exc:
             raise StudyFileError(f"cannot read study file '{self.path}': {exc}") from None
+        except StudyInputError:
+            raise
+        except _DAMAGE as exc:
+            raise StudyFileError(_damaged(self.path, exc)) from None
         finally:
             conn.close()
 
@@ -373,6 +701,7 @@ class StudyFile:
         try:
             try:
                 conn.execute("BEGIN IMMEDIATE")
+                _chain_begin(conn)
             except sqlite3.OperationalError as exc:
                 why = self._not_writable()
                 if why is not None:
@@ -387,6 +716,7 @@ class StudyFile:
                 ) from None
             try:
                 yield conn
+                _chain_finish(conn)
                 conn.execute("COMMIT")
             except sqlite3.DatabaseError as exc:
                 if conn.in_transaction:
@@ -402,6 +732,15 @@ class StudyFile:
                     f"could not save to study file '{self.path}' ({exc}); nothing was changed: "
                     "check free disk space and write permission, then try again"
                 ) from None
+            except StudyInputError:
+                if conn.in_transaction:
+                    conn.execute("ROLLBACK")
+                raise
+            except _DAMAGE as exc:
+                if conn.in_transaction:
+                    conn.execute("ROLLBACK")
+                raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") \
+                    from None
             except BaseException:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
@@ -412,11 +751,10 @@ class StudyFile:
     @staticmethod
     def _audit(conn, *, who: str, what: str, why: str = "", detail: Mapping | None = None,
                when: str | None = None) -> int:
-        cur = conn.execute(
-            "INSERT INTO audit_log (at, who, what, why, detail_json) VALUES (?, ?, ?, ?, ?)",
-            (when or now_utc(), who or "unknown", what, why or "", _dumps(dict(detail or {}))),
-        )
-        return cur.lastrowid
+        """Append one audit entry to the chain; it claims every row written since the last
+        entry of this transaction (see :func:`check_chain`)."""
+        return _append_entry(conn, who=who, what=what, why=why, detail=dict(detail or {}),
+                             when=when)
 
     # -- create --------------------------------------------------------------------------------
     @classmethod
@@ -452,12 +790,13 @@ class StudyFile:
         tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
         for leftover in (tmp, Path(f"{tmp}-wal"), Path(f"{tmp}-shm"), Path(f"{tmp}-journal")):
             leftover.unlink(missing_ok=True)
-        conn = sqlite3.connect(tmp, isolation_level=None)
+        conn = sqlite3.connect(tmp, isolation_level=None, factory=_ChainConnection)
         try:
             conn.execute("PRAGMA journal_mode = WAL")
             conn.execute("PRAGMA synchronous = FULL")
             conn.execute("BEGIN IMMEDIATE")
             _apply_migrations(conn, 0)
+            _chain_begin(conn, claim_existing=True)
             at = now_utc()
             who = (who or "").strip() or "unknown"
             meta = {"title": study.title, "part": study.part, "supplier": study.supplier,
@@ -485,6 +824,7 @@ class StudyFile:
                        what=f"create study '{study.title}' from '{study.data_filename}'",
                        detail={"data_sha256": study.data_sha256,
                                "characteristics": list(study.characteristics)})
+            _chain_finish(conn)
             conn.execute("COMMIT")
             conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
         except BaseException:
@@ -553,9 +893,11 @@ class StudyFile:
             )
         ]
         signoffs = [
-            SignOff(name, role, decision, comment=comment, when=at, digest=digest)
-            for name, role, decision, comment, at, digest in conn.execute(
-                "SELECT name, role, decision, comment, at, digest FROM signoffs ORDER BY id"
+            SignOff(name, role, decision, comment=comment, when=at, digest=digest,
+                    chain_head=head or "")
+            for name, role, decision, comment, at, digest, head in conn.execute(
+                "SELECT name, role, decision, comment, at, digest, chain_head FROM signoffs "
+                "ORDER BY id"
             )
         ]
         try:
@@ -599,14 +941,19 @@ class StudyFile:
         return cur.lastrowid
 
     def _insert_signoff(self, conn, s: SignOff, index: int) -> int:
+        """Insert a sign-off carrying the chain head it signs; refused on a broken chain (a
+        signature on a file altered behind studykit would vouch for the alteration)."""
+        chain = check_chain(conn)
+        if not chain.ok:
+            raise StudyFileError(f"study file '{self.path}' cannot be signed: {chain.summary()}")
         cur = conn.execute(
-            "INSERT INTO signoffs (name, role, decision, comment, at, digest) "
-            "VALUES (?, ?, ?, ?, ?, ?)",
-            (s.name, s.role, s.decision, s.comment, s.when, s.digest),
+            "INSERT INTO signoffs (name, role, decision, comment, at, digest, chain_head) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?)",
+            (s.name, s.role, s.decision, s.comment, s.when, s.digest, chain.head),
         )
         self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}", why=s.comment,
                     detail={"signoff_index": index, "signoff_id": cur.lastrowid,
-                            "digest": s.digest})
+                            "digest": s.digest, "chain_head": chain.head})
         return cur.lastrowid
 
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
@@ -737,7 +1084,7 @@ class StudyFile:
             s = study.sign(name, role=role, decision=decision, comment=comment,
                            when=when).signoffs[-1]
             self._insert_signoff(conn, s, len(study.signoffs))
-            return s
+            return self._load(conn).signoffs[-1]
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
                       *, who: str, override_lock: bool = False,
@@ -796,10 +1143,44 @@ class StudyFile:
             ).fetchall()
         return [AuditEntry(i, at, who, what, why, json.loads(d)) for i, at, who, what, why, d in rows]
 
+    def check_chain(self) -> ChainCheck:
+        """Recompute the audit chain (see :func:`check_chain`); never raises on a break, the
+        problems are in the result."""
+        with self._read() as conn:
+            return check_chain(conn)
+
+    def chain_entry_hash(self, entry_id: int) -> str | None:
+        """The stored ``entry_hash`` of audit entry ``entry_id`` (None when there is none)."""
+        with self._read() as conn:
+            row = conn.execute("SELECT entry_hash FROM audit_log WHERE id = ?",
+                               (int(entry_id),)).fetchone()
+        return None if row is None else row[0]
+
+    def require_intact(self) -> ChainCheck:
+        """:meth:`check_chain`, raising :class:`StudyFileError` (one line naming the first
+        break) when the chain is broken."""
+        chain = self.check_chain()
+        if not chain.ok:
+            raise StudyFileError(f"study file '{self.path}' was altered outside studykit: "
+                                 f"{chain.summary()}; `studykit study log` lists every break. "
+                                 "Restore the study file from a backup")
+        return chain
+
     def integrity_check(self) -> str:
         """SQLite's own consistency check of the file: ``"ok"`` when sound."""
         with self._read() as conn:
             return "; ".join(r[0] for r in conn.execute("PRAGMA integrity_check"))
+
+
+#: errors a damaged study file can raise while it is read (turned into StudyFileError)
+_DAMAGE = (sqlite3.DatabaseError, UnicodeDecodeError, ValueError, TypeError, KeyError,
+           IndexError, OverflowError, AttributeError)
+
+
+def _damaged(path, exc) -> str:
+    what = type(exc).__name__ if not str(exc) else str(exc).splitlines()[0][:160]
+    return (f"study file '{path}' is damaged and cannot be read ({what}): restore it from a "
+            "backup")
 
 
 def load_study(path: str | os.PathLike) -> Study:

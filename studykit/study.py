@@ -564,6 +564,9 @@ class SignOff:
         ISO 8601 UTC time; now when empty.
     digest : str
         :meth:`Study.content_digest` at signing time (64 hex digits).
+    chain_head : str
+        The study file's audit chain head when it was signed, ``"<entry id>:<sha256>"``
+        (filled in by the study file; empty for a sign-off not yet saved).
 
     Examples
     --------
@@ -578,9 +581,15 @@ class SignOff:
     comment: str = ""
     when: str = ""
     digest: str = ""
+    chain_head: str = ""
 
     def __post_init__(self):
         set_ = object.__setattr__
+        head = _text(self.chain_head, name="chain_head").strip().lower()
+        if head and not re.fullmatch(r"\d+:[0-9a-f]{64}", head):
+            raise StudyInputError(f"`chain_head` ({self.chain_head!r}) must be "
+                                  "'<entry id>:<sha256>'")
+        set_(self, "chain_head", head)
         set_(self, "name", _text(self.name, name="name", required=True).strip())
         set_(self, "role", _text(self.role, name="role", required=True).strip())
         decision = _text(self.decision, name="decision").strip().lower()

@@ -52,12 +52,17 @@ def test_signed_report_verifies_against_study_and_data(made):
                 "numbers of bore_diameter", "numbers of flange_thickness"} <= items
 
 
-def test_unsigned_report_verifies_numbers_and_says_unsigned(made):
+def test_unsigned_report_is_not_evidence_unless_allowed(made):
     tmp, data, _, _ = made
     res = verify_report(tmp / "r.pdf", data=data)
-    assert res.ok and not res.signed
+    assert not res.ok and not res.signed and res.status == "not_evidence"
+    assert res.exit_code == 1 and res.consistent
+    assert res.summary().startswith("NOT EVIDENCE: unsigned")
+    res = verify_report(tmp / "r.pdf", data=data, allow_unsigned=True)
+    assert res.ok and res.status == "consistent_unsigned" and res.exit_code == 0
     assert any(c.status == "info" and "unsigned" in c.detail for c in res.checks)
-    assert res.summary().startswith("VERIFIED: unsigned")
+    assert res.summary().startswith("CONSISTENT BUT UNSIGNED")
+    assert next(c for c in res.checks if c.item == "every page").status == "pass"
 
 
 def test_one_changed_byte_of_the_pdf_is_named(made, tmp_path):
@@ -125,8 +130,11 @@ def test_cli_verify_exit_status(made, capsys, tmp_path):
                  cert.cert_path]) == 0
     out = capsys.readouterr().out
     assert "PASS  signature Signature1" in out and "VERIFIED" in out
-    assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--json"]) == 0
-    assert json.loads(capsys.readouterr().out)["ok"] is True
+    # without --trust the signer is not established: exit 3, never "verified"
+    assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--json"]) == 3
+    out = json.loads(capsys.readouterr().out)
+    assert out["ok"] is False and out["consistent"] is True
+    assert out["status"] == "signer_not_established" and out["exit_code"] == 3
     other = make_demo_certificate(tmp_path, name="Someone Else", passphrase=PASS)
     assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--trust",
                  other.cert_path]) == 1

@@ -15,8 +15,12 @@ def register(sub) -> None:
         help="write the evidence PDF of a study (sign it, make the hand-off pack)",
         description="Analyse every characteristic of STUDYFILE and write the evidence PDF. "
         "With --sign, add a PAdES signature from a PKCS#12 file (run again with the next "
-        "signer's file and role to add further signatures). With --handoff, also write the "
-        "hand-off zip (PDF, study, data, frozen limits, chart forms).",
+        "signer's file and role to add further signatures; a certificate outside its validity is "
+        "refused). With --handoff, also write the hand-off zip (PDF, study, every data file, "
+        "frozen limits, chart forms): only when every characteristic has a verdict that meets "
+        "its criterion and no open signal, else refused (or, with --handoff-draft, made with "
+        "every file stamped DRAFT and the reason). A study file altered outside studykit (its "
+        "audit chain broken) is refused.",
     )
     p.add_argument("study", metavar="STUDYFILE", help="the study file")
     p.add_argument("-o", "--output", metavar="PDF", help="the PDF to write (default: "
@@ -33,6 +37,9 @@ def register(sub) -> None:
                    "it is (a PDF already signed for the current study state is always signed "
                    "as it is, so earlier signatures stay)")
     p.add_argument("--handoff", metavar="ZIP", help="also write the hand-off zip")
+    p.add_argument("--handoff-draft", action="store_true",
+                   help="make the hand-off zip even when not every characteristic is ready, "
+                   "with every file stamped DRAFT and the reason")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
 
@@ -128,9 +135,13 @@ def run(args) -> int:
     if args.handoff:
         from studykit.report.handoff import build_handoff
 
-        h = build_handoff(args.study, args.handoff, report_pdf=out)
+        h = build_handoff(args.study, args.handoff, report_pdf=out,
+                          when_not_ready="draft" if args.handoff_draft else "refuse")
         print(f"Wrote {args.handoff} ({len(h.entries)} files; limits frozen for "
-              f"{len(h.plans)} characteristic(s)).")
+              f"{len(h.plans)} characteristic(s))"
+              + (": DRAFT, not for production, every file stamped." if h.is_draft else "."))
+        for name, why in h.draft.items():
+            print(f"  DRAFT because {name}: {why}")
         for name, why in h.skipped.items():
             print(f"  no limits for {name}: {why}")
     return 0

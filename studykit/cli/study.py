@@ -232,8 +232,8 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
     return "\n".join("  " + ln for ln in lines)
 
 
-def format_study(study: Study) -> str:
-    """The study as text for a terminal."""
+def format_study(study: Study, chain=None) -> str:
+    """The study as text for a terminal (``chain``: the file's ChainCheck, shown when given)."""
     out = [f"Study     {study.title}"]
     if study.part:
         out.append(f"Part      {study.part}")
@@ -244,6 +244,9 @@ def format_study(study: Study) -> str:
     for f in study.extra_files:
         out.append(f"          {f.filename} ({len(f.data)} bytes, sha256 {f.sha256})")
     out.append(f"Digest    {study.content_digest()}")
+    if chain is not None:
+        out.append(f"Chain     {'intact' if chain.ok else 'BROKEN'}: {chain.entries} audit "
+                   f"entries over {chain.rows} rows, head {chain.head}")
     holder = study.lock_holder()
     out.append("State     " + (f"APPROVED by {holder.name} on {holder.when} (locked)"
                                if holder else "open"))
@@ -283,18 +286,23 @@ def format_study(study: Study) -> str:
         s = st.signoff
         state = "valid" if st.valid else f"VOIDED ({st.why})"
         out.append(f"  {s.when}  {s.name} ({s.role}): {s.decision} - {state}")
+        if s.chain_head:
+            out.append(f"       signed chain head {s.chain_head[:28]}...")
         if s.comment:
             out.append(f"       comment: {s.comment}")
     return "\n".join(out) + "\n"
 
 
 def run_show(args) -> int:
-    study = StudyFile(args.studyfile).load()
+    sf = StudyFile(args.studyfile)
+    chain = sf.require_intact()  # a file altered behind studykit is never shown as valid
+    study = sf.load()
     if args.json:
-        json.dump(study.to_dict(), sys.stdout, indent=2, ensure_ascii=False)
+        json.dump(dict(study.to_dict(), chain=chain.to_dict()), sys.stdout, indent=2,
+                  ensure_ascii=False)
         sys.stdout.write("\n")
     else:
-        sys.stdout.write(format_study(study))
+        sys.stdout.write(format_study(study, chain))
     return 0
 
 
@@ -462,12 +470,28 @@ def run_sign(args) -> int:
 
 
 def run_log(args) -> int:
-    entries = StudyFile(args.studyfile).audit_log()
+    """Print the audit log; every entry that breaks the hash chain is marked beside it and the
+    exit status is 2 when the chain is broken."""
+    sf = StudyFile(args.studyfile)
+    chain = sf.check_chain()
+    entries = sf.audit_log()
     if args.json:
         json.dump([e.to_dict() for e in entries], sys.stdout, indent=2, ensure_ascii=False)
         sys.stdout.write("\n")
-        return 0
-    for e in entries:
-        why = f"  (why: {e.why})" if e.why else ""
-        print(f"{e.id:>4}  {e.when}  {e.who}: {e.what}{why}")
+    else:
+        by_entry: dict = {}
+        for eid, problem in chain.problems:
+            by_entry.setdefault(eid, []).append(problem)
+        for e in entries:
+            why = f"  (why: {e.why})" if e.why else ""
+            print(f"{e.id:>4}  {e.when}  {e.who}: {e.what}{why}")
+            for problem in by_entry.get(e.id, []):
+                print(f"      !! BROKEN: {problem}")
+        for problem in by_entry.get(None, []):
+            print(f"      !! BROKEN: {problem}")
+        print(chain.summary())
+    if not chain.ok:
+        print(f"studykit study log: error: study file '{sf.path}' was altered outside studykit: "
+              f"{chain.summary()}", file=sys.stderr)
+        return 2
     return 0

@@ -5,6 +5,16 @@ the frozen phase-II limits of every characteristic (JSON and CSV from
 :func:`studykit.stats.phase2.freeze`) and, for every variables characteristic, a printable
 control-chart form (PDF, landscape) with the frozen limits drawn and empty space for plotting by
 hand. Entries carry a fixed time stamp, so the same study gives the same zip.
+
+The hand-off gate (:func:`handoff_readiness`): a characteristic is ready for series production
+only when it was analysed, nothing signals on its final control chart, and it has a verdict
+that meets its criterion (counted data, which have no capability criterion, need only the
+stable chart); a study whose valid sign-offs include a rejection is ready for nothing. A pack
+with anything not ready is refused (``when_not_ready="refuse"``) or made as a DRAFT: every
+file says DRAFT with the reason (the chart forms in a banner over the form, the limits in a
+``status`` field, the manifest and a ``DRAFT-NOT-FOR-PRODUCTION.txt`` beside them).
+Every data file of the study goes into ``data/``, so ``studykit verify report.pdf --data
+data/*`` works from the zip alone.
 """
 
 from __future__ import annotations
@@ -16,12 +26,15 @@ import os
 import re
 import zipfile
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from studykit.errors import StudyFileError, StudyInputError
 
-__all__ = ["HandoffInfo", "build_handoff", "chart_form_pdf"]
+__all__ = ["DRAFT_NOTE", "HandoffInfo", "build_handoff", "chart_form_pdf", "handoff_readiness"]
+
+#: the stamp on every file of a pack that is not ready for series production
+DRAFT_NOTE = "DRAFT - not for production"
 
 _FIXED_TIME = (2000, 1, 1, 0, 0, 0)
 
@@ -40,27 +53,75 @@ class HandoffInfo:
         characteristic -> Phase2Plan.to_dict() for every characteristic frozen.
     skipped : dict
         characteristic -> why no limits were frozen.
+    draft : dict
+        characteristic (or ``"study"``) -> why it is not ready; empty for a pack ready for
+        series production. A non-empty dict means every file is stamped DRAFT.
     """
 
     path: str
     entries: tuple
     plans: dict
     skipped: dict
+    draft: dict = field(default_factory=dict)
+
+    @property
+    def is_draft(self) -> bool:
+        return bool(self.draft)
 
     def to_dict(self) -> dict:
         return {"path": self.path, "entries": list(self.entries), "plans": dict(self.plans),
-                "skipped": dict(self.skipped)}
+                "skipped": dict(self.skipped), "draft": dict(self.draft)}
+
+
+def handoff_readiness(study, results, errors) -> dict:
+    """Why each characteristic is not ready for series production: ``{name: reason}``, with
+    the key ``"study"`` for a reason that holds for the whole study. Empty when all are ready.
+
+    Ready means: analysed; no signal left on the final control chart (a signal a person has
+    not resolved is an open question about the process); a verdict that meets the criterion
+    (counted data have no capability criterion and need only the stable chart). A valid
+    sign-off that rejects the study makes nothing ready.
+    """
+    reasons: dict = {}
+    for st in study.signoff_state():
+        if st.valid and st.signoff.decision == "reject":
+            so = st.signoff
+            reasons["study"] = (f"the study was rejected by {so.name} ({so.role}) on {so.when}"
+                                + (f": {so.comment}" if so.comment else ""))
+            break
+    for name in study.characteristic_names:
+        res = results.get(name)
+        if res is None:
+            reasons[name] = f"not analysed ({errors.get(name, 'no result')})"
+            continue
+        signals = tuple(getattr(res.phase1, "signals", ()) or ())
+        if signals:
+            rules = sorted({str(getattr(sg, "rule", "signal")) for sg in signals})
+            reasons[name] = (f"{len(signals)} open signal(s) on the control chart "
+                             f"({', '.join(rules)}): decide on them before freezing limits")
+            continue
+        if res.attribute:
+            continue
+        v = res.verdict
+        if v is None or v.meets is None:
+            reasons[name] = "no verdict" + (f" ({v.text})" if v is not None and
+                                            getattr(v, "text", "") else "")
+        elif not v.meets:
+            reasons[name] = "does not meet its criterion" + (
+                f" ({v.text})" if getattr(v, "text", "") else "")
+    return reasons
 
 
 def _safe_name(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("_") or "characteristic"
 
 
-def chart_form_pdf(plan, *, study_title: str = "", part: str = "") -> bytes:
+def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = "") -> bytes:
     """A one-page landscape A4 control-chart form for the shop floor (PDF bytes).
 
     The frozen limits are drawn; a table under the chart has rows for date, time, operator,
-    the values of each subgroup and remarks, one column per subgroup.
+    the values of each subgroup and remarks, one column per subgroup. With ``draft`` (the
+    reason), a red DRAFT banner with the reason heads the form and a large DRAFT runs across it.
 
     Examples
     --------
@@ -83,7 +144,15 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "") -> bytes:
     margin = 10 * mm
     width = size[0] - 2 * margin
     n_cols = 25
-    story = [
+    story = []
+    if draft:
+        from studykit.report.pdf import _box
+
+        story.append(_box([Paragraph(f"<b>{DRAFT_NOTE.upper()}</b>: {_esc(draft)}",
+                                     st["body"])], background="#FDECEA",
+                          border="#B3261E", width=width))
+        story.append(Spacer(1, 3))
+    story += [
         Paragraph(f"Control chart form - {_esc(plan.characteristic)}"
                   + (f" [{_esc(plan.unit)}]" if plan.unit else ""), st["h1"]),
         Paragraph(f"{_esc(study_title)}{' - ' + _esc(part) if part else ''}. Chart "
@@ -113,14 +182,28 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "") -> bytes:
     buf = io.BytesIO()
     doc = SimpleDocTemplate(buf, pagesize=size, leftMargin=margin, rightMargin=margin,
                             topMargin=margin, bottomMargin=margin, invariant=1,
-                            title=f"Control chart form - {plan.characteristic}",
+                            title=("DRAFT " if draft else "")
+                            + f"Control chart form - {plan.characteristic}",
                             creator="studykit")
-    doc.build(story)
+
+    def watermark(canvas, _doc):
+        if not draft:
+            return
+        canvas.saveState()
+        canvas.setFillColorRGB(0.70, 0.15, 0.12, alpha=0.18)
+        canvas.setFont("Helvetica-Bold", 110)
+        canvas.translate(size[0] / 2, size[1] / 2)
+        canvas.rotate(25)
+        canvas.drawCentredString(0, -40, "DRAFT")
+        canvas.restoreState()
+
+    doc.build(story, onFirstPage=watermark, onLaterPages=watermark)
     return buf.getvalue()
 
 
 def build_handoff(study_path, out_zip, *, report_pdf=None,
-                  progress: Callable[[int, int, str], None] | None = None) -> HandoffInfo:
+                  progress: Callable[[int, int, str], None] | None = None,
+                  when_not_ready: str = "draft") -> HandoffInfo:
     """Write the hand-off zip of a study file.
 
     Parameters
@@ -133,11 +216,18 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         An evidence PDF already made (signed or not); without it one is built.
     progress : callable, optional
         ``progress(done, total, name)``.
+    when_not_ready : {"draft", "refuse"}
+        What to do when a characteristic is not ready (:func:`handoff_readiness`): stamp
+        every file DRAFT with the reason (default), or refuse with a
+        :class:`~studykit.errors.StudyInputError` naming each reason (nothing is written).
 
     Returns
     -------
     HandoffInfo
     """
+    if when_not_ready not in ("draft", "refuse"):
+        raise StudyInputError(f"`when_not_ready` ({when_not_ready!r}) must be 'draft' or "
+                              "'refuse'")
     from studykit.report.pdf import analyze_for_report, build_report
     from studykit.stats.phase2 import freeze
     spath = Path(study_path)
@@ -146,6 +236,13 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
     from studykit.report.pdf import _load
 
     study, gauges, _ = _load(spath)
+    results, errors, _ = analyze_for_report(study, gauges)
+    draft = handoff_readiness(study, results, errors)
+    if draft and when_not_ready == "refuse":
+        listed = "; ".join(f"{k}: {v}" for k, v in draft.items())
+        raise StudyInputError(
+            f"no hand-off pack for series production: {listed}. Resolve these, or make a "
+            "pack stamped DRAFT (--handoff-draft)")
     out = Path(out_zip)
     if report_pdf is None:
         pdf_path = out.with_name(out.stem + ".report.pdf.part")
@@ -157,12 +254,20 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
                 pdf_path.unlink()
     else:
         pdf = Path(report_pdf).read_bytes()
-    results, errors, _ = analyze_for_report(study, gauges)
     entries: list[tuple[str, bytes]] = [
         ("report.pdf", pdf),
         (f"study/{spath.name}", spath.read_bytes()),
-        (f"data/{study.data_filename}", study.data),
+        *((f"data/{name}", blob) for name, blob in study.files),
     ]
+    pack_note = ""
+    if draft:
+        pack_note = "; ".join(f"{k}: {v}" for k, v in draft.items())
+        entries.append(("DRAFT-NOT-FOR-PRODUCTION.txt", (
+            f"{DRAFT_NOTE.upper()}\n\nThis hand-off pack was made although not every "
+            "characteristic is ready for series production. Do not use its limits or chart "
+            "forms in production until the reasons below are resolved and a new pack is "
+            "made.\n\n" + "\n".join(f"- {k}: {v}" for k, v in draft.items()) + "\n")
+            .encode("utf-8")))
     plans, skipped = {}, dict(errors)
     for name, res in results.items():
         try:
@@ -172,16 +277,33 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
             continue
         plans[name] = plan.to_dict()
         stem = _safe_name(name)
-        entries.append((f"limits/{stem}.json", plan.to_json().encode("utf-8")))
-        entries.append((f"limits/{stem}.csv", plan.to_csv().encode("utf-8")))
+        stamp = ""
+        if draft:
+            stamp = draft.get(name) or draft.get("study") or \
+                f"this pack is a draft ({pack_note})"
+        plan_json = plan.to_json()
+        plan_csv = plan.to_csv()
+        if stamp:
+            plan_json = json.dumps(dict(json.loads(plan_json), status=f"{DRAFT_NOTE}: {stamp}"),
+                                   indent=2, sort_keys=True)
+            head, _, rest = plan_csv.partition("\n")
+            cell = f"{DRAFT_NOTE}: {stamp}".replace('"', "'")
+            plan_csv = f'{head}\nstatus,"{cell}"\n{rest}'
+        entries.append((f"limits/{stem}.json", plan_json.encode("utf-8")))
+        entries.append((f"limits/{stem}.csv", plan_csv.encode("utf-8")))
         if not res.attribute:
             entries.append((f"forms/{stem}_chart_form.pdf",
-                            chart_form_pdf(plan, study_title=study.title, part=study.part)))
+                            chart_form_pdf(plan, study_title=study.title, part=study.part,
+                                           draft=stamp)))
     manifest = {
         "format": "studykit-handoff/1",
         "study": study.title,
+        "status": "DRAFT" if draft else "ready",
+        "draft_reasons": dict(draft),
         "content_digest": study.content_digest(),
         "data_sha256": study.data_sha256,
+        "data_files": [{"filename": n, "bytes": len(b), "sha256": hashlib.sha256(b).hexdigest()}
+                       for n, b in study.files],
         "files": {n: hashlib.sha256(b).hexdigest() for n, b in entries},
         "skipped": skipped,
     }
@@ -195,4 +317,4 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
             info.external_attr = 0o644 << 16
             zf.writestr(info, blob)
     os.replace(tmp, out)
-    return HandoffInfo(str(out), tuple(n for n, _ in entries), plans, skipped)
+    return HandoffInfo(str(out), tuple(n for n, _ in entries), plans, skipped, dict(draft))

@@ -156,10 +156,21 @@ class ReportInfo:
 
 def _load(study_or_path):
     """(Study, gauges, study_path or None) from a Study or a study-file path."""
+    study, gauges, path, _ = _load_with_chain(study_or_path)
+    return study, gauges, path
+
+
+def _load_with_chain(study_or_path):
+    """(Study, gauges, study_path or None, chain dict or None) from a Study or a study file.
+
+    A study file must pass its audit-chain check (:meth:`StudyFile.require_intact`): a report
+    is never made from a file altered behind studykit. The chain dict (``entries``, ``head``,
+    ``rows``) goes into the evidence.
+    """
     from studykit.study import Study
 
     if isinstance(study_or_path, Study):
-        return study_or_path, None, None
+        return study_or_path, None, None, None
     if isinstance(study_or_path, str | os.PathLike):
         from studykit.store import StudyFile
 
@@ -167,12 +178,14 @@ def _load(study_or_path):
         if not path.exists():
             raise StudyFileError(f"study file '{path}' does not exist: check the path")
         sf = StudyFile(path)
+        chain = sf.require_intact()
         study = sf.load()
         gauges = {}
         for r in sf.results(GAUGE_KIND):
             if r.characteristic in study.characteristics:
                 gauges[r.characteristic] = dict(r.payload)
-        return study, gauges, path
+        return study, gauges, path, {"entries": chain.entries, "head": chain.head,
+                                     "rows": chain.rows}
     raise StudyInputError(
         f"`study` must be a Study or the path of a study file, got {type(study_or_path).__name__}"
     )
@@ -199,12 +212,15 @@ def _canonical(obj) -> str:
                       allow_nan=False)
 
 
-def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping | None) -> dict:
+def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping | None,
+                     chain: Mapping | None = None) -> dict:
     """The machine-readable evidence embedded in the PDF (JSON-safe).
 
-    Holds the study content (specifications, criteria, every decision) so the study can be
-    rebuilt from the raw data alone, the gauge results used, every characteristic's
-    ``to_dict()`` (the JSON of ``studykit analyze --json``) and the digests.
+    Holds the study content (specifications, criteria, every decision, comments, sign-offs) so
+    the study and every page of the report can be rebuilt from the raw data alone, every data
+    file's name, size and SHA-256, the study file's audit chain head (``chain``, None for a
+    study not read from a file), the gauge results used, every characteristic's ``to_dict()``
+    (the JSON of ``studykit analyze --json``) and the digests.
     """
     return {
         "format": EVIDENCE_FORMAT,
@@ -216,10 +232,15 @@ def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping |
             "data_filename": study.data_filename,
             "data_sha256": study.data_sha256,
             "content_digest": study.content_digest(),
+            "characteristic_order": list(study.characteristics),
             "characteristics": {n: c.to_dict() for n, c in study.characteristics.items()},
             "criteria": {n: study.criteria_for(n).to_dict() for n in study.characteristics},
             "decisions": [d.to_dict() for d in study.decisions],
             "signoffs": [s.to_dict() for s in study.signoff_state()],
+            "comments": [c.to_dict() for c in study.comments],
+            "data_files": [{"filename": n, "bytes": len(b),
+                            "sha256": hashlib.sha256(b).hexdigest()} for n, b in study.files],
+            "chain": None if chain is None else dict(chain),
         },
         "gauges": None if gauges is None else {k: gauges[k] for k in sorted(gauges)},
         "results": {n: r.to_dict() for n, r in results.items()},
@@ -242,6 +263,11 @@ def read_evidence(pdf) -> dict:
     StudyFileError
         When the PDF cannot be read or holds no studykit evidence.
     """
+    return json.loads(read_evidence_bytes(pdf).decode("utf-8"))
+
+
+def read_evidence_bytes(pdf) -> bytes:
+    """The embedded evidence file of a report, as stored (checked to be studykit evidence)."""
     from pypdf import PdfReader
     from pypdf.errors import PyPdfError
 
@@ -264,7 +290,7 @@ def read_evidence(pdf) -> dict:
         raise StudyFileError(f"the embedded evidence is not valid JSON ({exc})") from None
     if not isinstance(data, dict) or data.get("format") != EVIDENCE_FORMAT:
         raise StudyFileError(f"the embedded evidence is not in format {EVIDENCE_FORMAT}")
-    return data
+    return bytes(blobs[0])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -534,7 +560,26 @@ def _numbered_canvas(footer_left: str, header: str):
 # sections
 
 
-def _cover(story, study, results, errors, st, width, evidence_sha):
+def _data_file_rows(study) -> list[list[str]]:
+    """One row per data file of the study: name and size, then its SHA-256."""
+    rows = []
+    files = study.files
+    for i, (name, blob) in enumerate(files, start=1):
+        label = "Measurement file" if len(files) == 1 else f"Measurement file {i} of {len(files)}"
+        rows.append([label, f"{_esc(name)} ({len(blob):,} bytes)<br/><font size=7>SHA-256 "
+                     f"{hashlib.sha256(blob).hexdigest()}</font>"])
+    return rows
+
+
+def _chain_text(chain) -> str:
+    if not chain:
+        return "– (not made from a study file)"
+    eid, _, h = str(chain.get("head", "")).partition(":")
+    return (f"entry {_esc(eid)} of {int(chain.get('entries', 0))}<br/><font size=7>"
+            f"{_esc(h)}</font>")
+
+
+def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
     from reportlab.platypus import Paragraph, Spacer
 
     story.append(Spacer(1, 18))
@@ -543,9 +588,9 @@ def _cover(story, study, results, errors, st, width, evidence_sha):
     facts = [
         ["Part", _esc(study.part or "–")],
         ["Supplier", _esc(study.supplier or "–")],
-        ["Measurement file", f"{_esc(study.data_filename)} ({len(study.data):,} bytes)"],
-        ["Data SHA-256", f"<font size=7>{study.data_sha256}</font>"],
+        *_data_file_rows(study),
         ["Study content digest", f"<font size=7>{study.content_digest()}</font>"],
+        ["Audit chain head", _chain_text(chain)],
         ["Study state as of", _esc(_last_time(study) or "–")],
         ["Produced by", f"studykit {__version__}"],
     ]
@@ -1040,7 +1085,7 @@ def _signoff_section(story, number, study, st, width, boxes):
     story.append(_SignatureBoxes(width, boxes, st))
 
 
-def _appendix(story, number, study, st, width, evidence_sha):
+def _appendix(story, number, study, st, width, evidence_sha, chain=None):
     from reportlab.platypus import Paragraph
 
     story.append(Paragraph(f"{number}. Methods, sources and digests", st["h1"]))
@@ -1051,17 +1096,27 @@ def _appendix(story, number, study, st, width, evidence_sha):
     story.append(Paragraph("Software", st["h2"]))
     story.append(Paragraph(_esc(_software_versions()), st["body"]))
     story.append(Paragraph("Digests (SHA-256)", st["h2"]))
-    rows = [["What", "SHA-256"],
-            [f"Raw data ({_esc(study.data_filename)})", f"<font size=7>{study.data_sha256}</font>"],
-            ["Study content (data + effective decisions)",
-             f"<font size=7>{study.content_digest()}</font>"],
-            [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"]]
+    rows = [["What", "SHA-256"]]
+    for name, blob in study.files:
+        rows.append([f"Raw data ({_esc(name)}, {len(blob):,} bytes)",
+                     f"<font size=7>{hashlib.sha256(blob).hexdigest()}</font>"])
+    rows += [["Study content (data + effective decisions)",
+              f"<font size=7>{study.content_digest()}</font>"],
+             ["Audit chain head of the study file" + (
+                 f" (entry {_esc(str(chain.get('head', '')).partition(':')[0])})" if chain
+                 else ""),
+              f"<font size=7>{_esc(str(chain.get('head', '')).partition(':')[2])}</font>"
+              if chain else "– (not made from a study file)"],
+             [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"]]
     story.append(_table(rows, [0.34 * width, 0.66 * width], styles=st))
     story.append(Paragraph(
         f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
         "in full precision, the specifications, criteria and decisions. `studykit verify "
-        "REPORT.pdf --data FILE` (or --study FILE) recomputes the study and compares them with "
-        f"a relative tolerance of {RELATIVE_TOLERANCE:g}.", st["small"]))
+        "REPORT.pdf --data FILE ...` (every data file above, or --study FILE) recomputes the "
+        "study, compares the numbers with "
+        f"a relative tolerance of {RELATIVE_TOLERANCE:g} and redraws every page to compare it "
+        "with this one. The audit chain head names the last entry of the study file's "
+        "hash-chained audit log when the report was made.", st["small"]))
 
 
 def _software_versions() -> str:
@@ -1076,6 +1131,64 @@ def _software_versions() -> str:
 
 # ---------------------------------------------------------------------------------------------
 # entry point
+
+
+def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
+                 *, chain: Mapping | None, evidence_sha: str,
+                 progress: Callable[[int, int, str], None] | None = None,
+                 total: int = 0) -> tuple[bytes, dict]:
+    """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
+    boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
+    a report from its evidence and compares every page."""
+    from reportlab.lib.pagesizes import A4
+    from reportlab.lib.units import mm
+    from reportlab.platypus import PageBreak, SimpleDocTemplate
+
+    names = study.characteristic_names
+    st = _styles()
+    page_w, page_h = A4
+    margin = 18 * mm
+    width = page_w - 2 * margin
+    story: list = []
+    _cover(story, study, results, errors, st, width, evidence_sha, chain)
+    section = 1
+    for i, name in enumerate(names):
+        res = results.get(name)
+        if res is None:
+            if progress is not None:
+                progress(len(names) + i + 1, total, f"skipped {name}")
+            continue
+        story.append(PageBreak())
+        section += 1
+        try:
+            raw = measurements.get(name)
+        except StudyInputError:
+            raw = None
+        _characteristic_section(story, section, name, res, study, raw, st, width, None)
+        if progress is not None:
+            progress(len(names) + i + 1, total, f"drawn {name}")
+    if gauges:
+        story.append(PageBreak())
+        section += 1
+        _gauge_section(story, section, gauges, study, st, width)
+    story.append(PageBreak())
+    section += 1
+    boxes: dict = {}
+    _signoff_section(story, section, study, st, width, boxes)
+    story.append(PageBreak())
+    section += 1
+    _appendix(story, section, study, st, width, evidence_sha, chain)
+
+    footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
+    buf = io.BytesIO()
+    doc = SimpleDocTemplate(
+        buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
+        bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
+        author="studykit", subject=f"content digest {study.content_digest()}",
+        creator=f"studykit {__version__}", invariant=1,
+    )
+    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    return buf.getvalue(), boxes
 
 
 def build_report(study_path_or_study, out_path, *,
@@ -1120,12 +1233,8 @@ def build_report(study_path_or_study, out_path, *,
     """
     import time
 
-    from reportlab.lib.pagesizes import A4
-    from reportlab.lib.units import mm
-    from reportlab.platypus import PageBreak, SimpleDocTemplate
-
     t0 = time.perf_counter()
-    study, stored_gauges, _ = _load(study_path_or_study)
+    study, stored_gauges, _, chain = _load_with_chain(study_path_or_study)
     if gauges is not None:
         stored_gauges = dict(gauges)
     if stored_gauges is not None:
@@ -1139,55 +1248,14 @@ def build_report(study_path_or_study, out_path, *,
 
     results, errors, measurements = analyze_for_report(study, stored_gauges,
                                                        progress=_analysis_progress)
-    evidence = collect_evidence(study, results, errors, stored_gauges)
+    evidence = collect_evidence(study, results, errors, stored_gauges, chain)
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
-
-    st = _styles()
-    page_w, page_h = A4
-    margin = 18 * mm
-    width = page_w - 2 * margin
-    story: list = []
-    _cover(story, study, results, errors, st, width, evidence_sha)
-    section = 1
-    for i, name in enumerate(names):
-        res = results.get(name)
-        if res is None:
-            if progress is not None:
-                progress(len(names) + i + 1, total, f"skipped {name}")
-            continue
-        story.append(PageBreak())
-        section += 1
-        try:
-            raw = measurements.get(name)
-        except StudyInputError:
-            raw = None
-        _characteristic_section(story, section, name, res, study, raw, st, width, None)
-        if progress is not None:
-            progress(len(names) + i + 1, total, f"drawn {name}")
-    if stored_gauges:
-        story.append(PageBreak())
-        section += 1
-        _gauge_section(story, section, stored_gauges, study, st, width)
-    story.append(PageBreak())
-    section += 1
-    boxes: dict = {}
-    _signoff_section(story, section, study, st, width, boxes)
-    story.append(PageBreak())
-    section += 1
-    _appendix(story, section, study, st, width, evidence_sha)
-
-    footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
-    buf = io.BytesIO()
-    doc = SimpleDocTemplate(
-        buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
-        bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
-        author="studykit", subject=f"content digest {study.content_digest()}",
-        creator=f"studykit {__version__}", invariant=1,
-    )
-    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
-    pdf = _attach(buf.getvalue(), evidence_bytes, boxes)
+    pages_pdf, boxes = render_pages(study, results, errors, measurements, stored_gauges,
+                                    chain=chain, evidence_sha=evidence_sha,
+                                    progress=progress, total=total)
+    pdf = _attach(pages_pdf, evidence_bytes, boxes)
     out = Path(out_path)
     tmp = out.with_name(out.name + ".part")
     tmp.write_bytes(pdf)

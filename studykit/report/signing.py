@@ -28,6 +28,8 @@ from studykit.errors import StudyFileError, StudyInputError
 
 __all__ = [
     "DEMO_ORGANISATION",
+    "CertificateInfo",
+    "certificate_info",
     "DemoCertificate",
     "SignatureInfo",
     "make_demo_certificate",
@@ -95,6 +97,70 @@ class SignatureInfo:
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
+
+
+@dataclass(frozen=True)
+class CertificateInfo:
+    """What a verifier needs to know about a signing certificate.
+
+    Attributes
+    ----------
+    subject, issuer : str
+        Human-readable names.
+    fingerprint_sha256 : str
+        SHA-256 over the certificate's DER bytes, as colon-separated hex pairs (the form
+        certificate viewers show), so a signer can read theirs out over the phone.
+    not_before, not_after : datetime
+        The validity period (UTC).
+    self_signed : bool
+    """
+
+    subject: str
+    issuer: str
+    fingerprint_sha256: str
+    not_before: _dt.datetime
+    not_after: _dt.datetime
+    self_signed: bool
+
+    def valid_at(self, when: _dt.datetime) -> bool:
+        return self.not_before <= when <= self.not_after
+
+    def validity_problem(self, when: _dt.datetime) -> str:
+        """``"expired on ..."`` / ``"not valid before ..."`` at ``when`` (empty when valid)."""
+        if when < self.not_before:
+            return f"not yet valid at {_iso(when)} (valid from {_iso(self.not_before)})"
+        if when > self.not_after:
+            return f"expired at {_iso(when)} (valid until {_iso(self.not_after)})"
+        return ""
+
+    def period(self) -> str:
+        return f"valid {_iso(self.not_before)} to {_iso(self.not_after)}"
+
+    def to_dict(self) -> dict:
+        return {"subject": self.subject, "issuer": self.issuer,
+                "fingerprint_sha256": self.fingerprint_sha256,
+                "not_before": _iso(self.not_before), "not_after": _iso(self.not_after),
+                "self_signed": self.self_signed}
+
+
+def _iso(when: _dt.datetime) -> str:
+    return when.astimezone(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def certificate_info(cert) -> CertificateInfo:
+    """:class:`CertificateInfo` of an ``asn1crypto`` certificate (as pyHanko gives it)."""
+    import hashlib
+
+    der = cert.dump()
+    fp = hashlib.sha256(der).hexdigest().upper()
+    validity = cert["tbs_certificate"]["validity"]
+    nb = validity["not_before"].native
+    na = validity["not_after"].native
+    return CertificateInfo(
+        subject=cert.subject.human_friendly, issuer=cert.issuer.human_friendly,
+        fingerprint_sha256=":".join(fp[i:i + 2] for i in range(0, len(fp), 2)),
+        not_before=nb.astimezone(_dt.UTC), not_after=na.astimezone(_dt.UTC),
+        self_signed=cert.subject == cert.issuer)
 
 
 def outside_event_loop(fn, /, *args, **kwargs):
@@ -293,6 +359,13 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     if signer is None:
         raise StudyInputError(f"cannot open '{p12.name}': wrong passphrase or not a PKCS#12 "
                               "file with a key and a certificate")
+    info = certificate_info(signer.signing_cert)
+    now = _dt.datetime.now(_dt.UTC)
+    if not info.valid_at(now):
+        raise StudyInputError(
+            f"the certificate in '{p12.name}' ({info.subject}) is "
+            f"{info.validity_problem(now)}: a signature made with it would not be evidence. "
+            "Use a certificate valid now")
     data = src.read_bytes()
     field_name = next_field_name(data)
     reason = f"{role}: {name}"
