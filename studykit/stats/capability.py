@@ -16,6 +16,21 @@ Fitted models
 A non-normal model is any object with ``name``, ``parameters`` (dict), ``n``, ``cdf(x)``,
 ``sf(x)``, ``ppf(q)``, ``rvs(size, *, random_state)`` and ``family.fit(x)`` returning another
 such object (the protocol of :mod:`studykit.stats.fit`).
+
+Bootstrap of a large sample
+---------------------------
+The bounds of a fitted model come from a parametric bootstrap. Its samples are drawn and
+refitted in blocks (at most :data:`studykit.stats.fit.ROW_CELLS` cells at a time), so memory
+does not grow with the number of samples times n. Above :data:`BOOTSTRAP_FULL_N` readings
+each bootstrap sample has m = BOOTSTRAP_FULL_N readings instead of n, and the spread of its
+index around the estimate T_n is scaled to n: T_n + sqrt(m / n) (T*_m - T_n). This is the
+rescaled m-out-of-n bootstrap for a statistic that is asymptotically normal at rate sqrt(n)
+(the indices are smooth functions of maximum-likelihood estimates): P. J. Bickel, F. Goetze
+and W. R. van Zwet, "Resampling fewer than n observations: gains, losses, and remedies for
+losses", Statistica Sinica 7 (1997) 1-31; D. N. Politis, J. P. Romano and M. Wolf,
+*Subsampling*, Springer 1999, ch. 2. The time and memory of a study then stop growing with n
+beyond the sample itself; at 20,000 readings the percentile interval's own bias, of order
+1/m, is far below the width of the interval.
 """
 
 from __future__ import annotations
@@ -31,6 +46,7 @@ from studykit.stats._checks import check_sample
 
 __all__ = [
     "TAIL_PROBABILITY",
+    "BOOTSTRAP_FULL_N",
     "INDEX_NAMES",
     "DEFAULT_CRITERIA",
     "CapabilityResult",
@@ -57,6 +73,10 @@ OVERALL_INDICES = ("pp", "ppk", "ppu", "ppl")
 #: Indices whose one-sided lower bound also appears as a top-level key, e.g. ``ppk_lower_95``.
 HEADLINE_BOUNDS = ("cp", "cpk", "pp", "ppk")
 METHODS = ("normal", "percentile", "equivalent_ppm")
+
+#: Above this many readings the bootstrap of a fitted model uses samples of this size with
+#: their spread scaled by sqrt(m / n) (module notes, "Bootstrap of a large sample").
+BOOTSTRAP_FULL_N = 20_000
 
 #: Default demonstration criteria: common practice, no source; the customer's requirement governs.
 DEFAULT_CRITERIA = {
@@ -754,10 +774,26 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     rng = np.random.default_rng(random_state)
     names = ("pp", "ppk", "ppu", "ppl")
     fid = _fast_family_id(model) if method == "percentile" else None
+    n_draw = min(n, BOOTSTRAP_FULL_N)
     if fid is None:
-        draws, failed = _bootstrap_draws_generic(model, n, lsl, usl, method, n_boot, rng, values)
+        draws, failed = _bootstrap_draws_generic(model, n_draw, lsl, usl, method, n_boot, rng,
+                                                 values)
     else:
-        draws, failed = _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values)
+        draws, failed = _bootstrap_draws_fast(model, fid, n_draw, lsl, usl, n_boot, rng, values)
+    if n_draw < n:
+        # large sample: samples of BOOTSTRAP_FULL_N readings, their spread around the
+        # estimate scaled by sqrt(m / n) (module notes, "Bootstrap of a large sample")
+        shrink = math.sqrt(n_draw / n)
+        for k in names:
+            if values[k] is not None and len(draws[k]):
+                d = np.asarray(draws[k], dtype=float)
+                with np.errstate(invalid="ignore"):
+                    draws[k] = np.where(np.isfinite(d), values[k] + shrink * (d - values[k]), d)
+        notes.append(
+            f"{n} values: the bootstrap bounds come from {n_boot} samples of {n_draw} values "
+            f"with their spread scaled by sqrt({n_draw}/{n}) (large-sample bootstrap, "
+            "Bickel, Goetze & van Zwet 1997)."
+        )
     if failed > 0.1 * n_boot:
         raise AnalysisError(
             f"the model '{model.name}' could not be refitted to {failed} of {n_boot} bootstrap "
@@ -890,7 +926,7 @@ def _row_solvers(fid):
             fit_module)
 
 
-def _row_estimates(fid, block, model):
+def _row_estimates(fid, block, model, shared=None):
     """Refits of every row of ``block`` by the row-wise solvers of studykit.stats.fit.
 
     Returns (params dict of arrays, ok mask, rows left for the one-at-a-time estimator).
@@ -931,17 +967,20 @@ def _row_estimates(fid, block, model):
     # the grid of _profile_threshold, every sample at once
     grid = np.log(sd[rows])[:, None] + decades[None, :]
     grid_start = None
-    if fid == "weibull3" and rows.size:
+    shared = {} if shared is None else shared
+    if fid == "weibull3" and rows.size and "k0" not in shared:
         # every sample comes from the same model: the Weibull shapes solved on one sample's
-        # grid start the Newton iteration of all the others (fewer steps, same roots)
+        # grid start the Newton iteration of all the others (fewer steps, same roots); with
+        # the samples in blocks, the first block's first sample starts every block
         data = block[rows[0]]
         u0 = math.log(float(np.std(data))) + decades
         ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
         with np.errstate(all="ignore"):
             _, _, st0 = inner(ys0)
         k0 = np.asarray(st0[0])
-        if np.all(np.isfinite(k0) & (k0 > 0)):
-            grid_start = (np.tile(k0, rows.size),)
+        shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
+    if fid == "weibull3" and rows.size and shared.get("k0") is not None:
+        grid_start = (np.tile(shared["k0"], rows.size),)
     s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(),
                                          grid_start)
     s_grid = s_grid.reshape(-1, decades.size)
@@ -1010,40 +1049,37 @@ def _row_estimates(fid, block, model):
 
 def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
     """The percentile-method draws of :func:`_bootstrap_draws_generic` for the families of
-    studykit.stats.fit: the same random samples (drawn as one n_boot x n block, which takes
-    the generator's stream in the same order), closed-form refits vectorised over the
-    samples, iterative refits by the family's estimator without the goodness-of-fit work
-    of ``fit``, quantiles without frozen scipy objects."""
-    from studykit.stats.fit import _clean
+    studykit.stats.fit: the same random samples (drawn in blocks of whole samples, which takes
+    the generator's stream in the same order as one draw per sample), closed-form refits
+    vectorised over the samples, iterative refits by the family's estimator without the
+    goodness-of-fit work of ``fit``, quantiles without frozen scipy objects.
 
-    try:
-        block = np.asarray(model.rvs((n_boot, n), random_state=rng), dtype=float)
-    except (TypeError, ValueError):
-        return _bootstrap_draws_generic(model, n, lsl, usl, "percentile", n_boot, rng, values)
+    Memory: a block holds at most :data:`studykit.stats.fit.ROW_CELLS` cells (samples x n,
+    counting the 8 grid thresholds of a threshold family as 8 rows each), so it is
+    O(ROW_CELLS + n) whatever ``n_boot``; a study whose whole bootstrap fits in one block
+    (n_boot x n x grid <= ROW_CELLS, e.g. 500 x 125 x 8) is computed in one block as before.
+    """
+    from studykit.stats.fit import _GRID_DECADES, rows_per_group
+
     family = model.family
-    if n < getattr(family, "minimum_n", 3):
-        ok = np.zeros(n_boot, dtype=bool)
-        q = np.full((n_boot, 3), np.nan)
-    else:
-        if fid in _VECTOR_FAMILIES:
-            params, ok, rest = *_vector_estimates(fid, block), ()
-        elif fid in _ROW_FAMILIES or fid in _THRESHOLD_FAMILIES:
-            params, ok, rest = _row_estimates(fid, block, model)
-        else:
-            params, ok, rest = None, np.ones(n_boot, dtype=bool), range(n_boot)
-        q = np.full((n_boot, 3), np.nan)
-        if params is not None:
-            with np.errstate(all="ignore"):
-                q[:] = _family_quantiles(fid, {k: v[:, None] for k, v in params.items()})
-        for i in rest:  # one sample at a time, by the family's own estimator
-            try:
-                x = _clean(block[i])
-                family.check(x)
-                p, _, _ = family._estimate(x)
-                q[i] = _family_quantiles(fid, {k: float(v) for k, v in p.items()})
-                ok[i] = True
-            except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
-                ok[i] = False
+    q = np.full((n_boot, 3), np.nan)
+    ok = np.zeros(n_boot, dtype=bool)
+    grid = _GRID_DECADES.size if fid in _THRESHOLD_FAMILIES else 1
+    per_block = min(n_boot, rows_per_group(n * grid))
+    shared = {}  # the Weibull shapes of the first sample's grid start every block
+    for i in range(0, n_boot, per_block):
+        m = min(per_block, n_boot - i)
+        try:
+            block = np.asarray(model.rvs((m, n), random_state=rng), dtype=float)
+        except (TypeError, ValueError):
+            if i:
+                raise
+            return _bootstrap_draws_generic(model, n, lsl, usl, "percentile", n_boot, rng,
+                                            values)
+        if n < getattr(family, "minimum_n", 3):
+            continue
+        q[i : i + m], ok[i : i + m] = _block_quantiles(model, fid, block, shared)
+        del block
     q_lo, q_mid, q_hi = q[:, 0], q[:, 1], q[:, 2]
     with np.errstate(invalid="ignore"):
         ok &= (q_lo < q_mid) & (q_mid < q_hi)
@@ -1056,6 +1092,35 @@ def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
     draws = {k: (idx[k] if values[k] is not None and idx[k] is not None else np.empty(0))
              for k in idx}
     return draws, int(n_boot - np.count_nonzero(ok))
+
+
+def _block_quantiles(model, fid, block, shared):
+    """Model quantiles (0.135 %, 50 %, 99.865 %) refitted to every row of ``block``, and the
+    rows whose refit worked."""
+    from studykit.stats.fit import _clean
+
+    family = model.family
+    m = block.shape[0]
+    if fid in _VECTOR_FAMILIES:
+        params, ok, rest = *_vector_estimates(fid, block), ()
+    elif fid in _ROW_FAMILIES or fid in _THRESHOLD_FAMILIES:
+        params, ok, rest = _row_estimates(fid, block, model, shared)
+    else:
+        params, ok, rest = None, np.ones(m, dtype=bool), range(m)
+    q = np.full((m, 3), np.nan)
+    if params is not None:
+        with np.errstate(all="ignore"):
+            q[:] = _family_quantiles(fid, {k: v[:, None] for k, v in params.items()})
+    for i in rest:  # one sample at a time, by the family's own estimator
+        try:
+            x = _clean(block[i])
+            family.check(x)
+            p, _, _ = family._estimate(x)
+            q[i] = _family_quantiles(fid, {k: float(v) for k, v in p.items()})
+            ok[i] = True
+        except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
+            ok[i] = False
+    return q, ok
 
 
 def _finite_or_none(v):

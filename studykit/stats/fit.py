@@ -99,6 +99,8 @@ _AD_LOGISTIC = (np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
 def _ad_p_normal(a2: float, n: int) -> tuple[float, str]:
     """D'Agostino & Stephens (1986) Table 4.9, case 3 (mean and variance estimated)."""
     a = a2 * (1.0 + 0.75 / n + 2.25 / (n * n))
+    if a >= 153.0:  # the formula's minimum (p < 1e-189); beyond it, it rises and overflows
+        return 0.0, f"{0.0:.4f}"
     if a >= 0.6:
         p = math.exp(1.2937 - 5.709 * a + 0.0186 * a * a)
     elif a >= 0.34:
@@ -370,6 +372,18 @@ _ZERO_POINTS = 4
 #: others' (the loglogistic's a, b) linearly in u = log(min(x) - theta), which suits them better
 _WARM_IN_THETA = frozenset({"_inner_weibull"})
 
+#: Most cells (rows x readings) a row-wise evaluation holds in one array: 2**21 doubles, 16 MB.
+#: Above it the rows (thresholds of a profile pass, bootstrap samples) are evaluated in groups,
+#: so memory is O(ROW_CELLS + n) whatever the number of rows; below it one call as before
+#: (identical numbers). The row-wise Newton loops stop when every row of a call has converged,
+#: so grouped rows can differ from one call in the last digits, far inside the tolerances.
+ROW_CELLS = 1 << 21
+
+
+def rows_per_group(n_cols: int, cells: int | None = None) -> int:
+    """Rows of ``n_cols`` readings that fit in ``cells`` (default :data:`ROW_CELLS`); >= 1."""
+    return max(1, (ROW_CELLS if cells is None else cells) // max(1, int(n_cols)))
+
 
 def _slope_zero(us, slopes, k):
     """Zero of the profile slope between us[k] and us[k + 1] (slope > 0 >= next slope).
@@ -427,23 +441,44 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     in_theta = inner.__name__ in _WARM_IN_THETA
 
     def evaluate(us, rough=False):
+        """(dtheta, log-likelihoods, params) at the thresholds xmin - exp(us)."""
         gap = np.exp(us)  # min(x) - theta
-        ys = x[None, :] - (xmin - gap)[:, None]
         at = gap if in_theta else us
         start = None
         if warm:  # interpolate the previous pass's solutions: fewer Newton steps
             start = tuple(np.interp(at, warm["at"], c) for c in warm["state"])
         single = _SINGLE.get(inner.__name__) if us.size == 1 else None
+        group = rows_per_group(x.size)
         if single is not None:  # one threshold: the scalar estimator, less numpy overhead
+            ys = x[None, :] - (xmin - gap)[:, None]
             ll, params, state = single(ys[0], start)
-        else:
+            dt = dtheta(ys, params)
+        elif us.size <= group:
+            ys = x[None, :] - (xmin - gap)[:, None]
             ll, params, state = inner(ys, start, rough=rough)
+            dt = dtheta(ys, params)
+        else:  # many readings: the thresholds in groups, memory O(ROW_CELLS + n)
+            parts = []
+            for i in range(0, us.size, group):
+                part = slice(i, i + group)
+                ys = x[None, :] - (xmin - gap[part])[:, None]
+                ll_p, p_p, st_p = inner(ys, None if start is None
+                                        else tuple(c[part] for c in start), rough=rough)
+                parts.append((ll_p, p_p, st_p, dtheta(ys, p_p)))
+                del ys
+            ll = np.concatenate([q[0] for q in parts])
+            params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
+            state = (None if parts[0][2] is None else
+                     tuple(np.concatenate([q[2][j] for q in parts])
+                           for j in range(len(parts[0][2]))))
+            dt = np.concatenate([q[3] for q in parts])
         if us.size > 1 and state is not None:
             warm["at"], warm["state"] = at, state
-        return ys, np.where(np.isfinite(ll), ll, -np.inf), params
+        return dt, np.where(np.isfinite(ll), ll, -np.inf), params
 
     us = math.log(sd) + _GRID_DECADES * math.log(10.0)
-    ys, lls, params = evaluate(us, rough=True)
+    with np.errstate(all="ignore"):  # slopes at rough grid fits, used only when interior
+        grid_dt, lls, params = evaluate(us, rough=True)
     best = int(lls.argmax())
     note = None
     if best == 0:
@@ -466,7 +501,7 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
     # the pass spans the grid step where the profile slope changes sign next to the best
     # point (17 points), or both steps around it (33 points) when the grid slopes do not
     # show that sign change
-    grid_slopes = -np.exp(us) * dtheta(ys, params)
+    grid_slopes = -np.exp(us) * grid_dt
     full = (us[best - 1], us[best + 1], _FULL_PASS)
     if grid_slopes[best] > 0 >= grid_slopes[best + 1]:
         spans = [(us[best], us[best + 1], _HALF_PASS), full]
@@ -476,9 +511,9 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
         spans = [full]
     for lo_u, hi_u, frac in spans:  # the full bracket only if the half shows no sign change
         us = lo_u + (hi_u - lo_u) * frac
-        ys, lls, params = evaluate(us)
+        dts, lls, params = evaluate(us)
+        slopes = -np.exp(us) * dts
         best = min(max(int(lls.argmax()), 1), us.size - 2)
-        slopes = -np.exp(us) * dtheta(ys, params)
         if slopes[best - 1] > 0 >= slopes[best] or slopes[best] > 0 >= slopes[best + 1]:
             break
     u_best, ll_best = float(us[best]), float(lls[best])
@@ -487,11 +522,11 @@ def _profile_threshold(x: np.ndarray, inner, dtheta, label: str):
         if slopes[k] > 0 >= slopes[k + 1]:
             u = _slope_zero(us, slopes, k)
             for _ in range(2):  # the interpolated zero, then a secant step if needed
-                y1, ll1, p1 = evaluate(np.array([u]))
+                dt1, ll1, p1 = evaluate(np.array([u]))
                 if ll1[0] >= ll_best:
                     u_best, ll_best = u, float(ll1[0])
                     p_best = {k: float(v[0]) for k, v in p1.items()}
-                s1 = float(-math.exp(u) * dtheta(y1, p1)[0])
+                s1 = float(-math.exp(u) * dt1[0])
                 j = k + 1 if s1 > 0 else k  # the pass point across the zero from u
                 if not (math.isfinite(s1) and s1 != float(slopes[j])):
                     break

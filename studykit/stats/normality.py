@@ -48,6 +48,10 @@ def _clean(x, *, name="x", minimum=3):
 def _ad_pvalue(a2_star: float) -> float:
     """D'Agostino & Stephens (1986) Table 4.9 p-value for the adjusted statistic."""
     a = a2_star
+    if a >= 153.0:
+        # the quadratic has its minimum at a = 5.709 / (2 * 0.0186) = 153.5 (p < 1e-189 there)
+        # and would rise again, then overflow: beyond it the p-value is 0 in double precision
+        return 0.0
     if a >= 0.6:
         p = math.exp(1.2937 - 5.709 * a + 0.0186 * a * a)
     elif a >= 0.34:
