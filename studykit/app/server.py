@@ -1,25 +1,37 @@
 """The Voila server that hosts the workbook, with BokehJS served once as a static file.
 
-``python -m studykit.app.server [voila options] NOTEBOOK`` behaves exactly like ``voila`` with
-two additions:
+``python -m studykit.app.server [voila options] NOTEBOOK`` behaves like ``voila`` with these
+additions:
 
 * ``/studykit/bokehjs/<bokeh version>/<file>`` serves BokehJS from the installed ``bokeh``
   package (gzip-compressed, cacheable), so pages need neither a CDN nor 1-8 MB of inline
   JavaScript. The workbook kernel finds the address in the ``STUDYKIT_BOKEHJS_URL`` environment
   variable (set here, inherited by every kernel) and writes one ``<script src>`` tag.
 * ``STUDYKIT_SERVE_TOKEN`` in the environment, when set, becomes ``Voila.token`` (Jupyter
-  server token authentication: pages without ``?token=`` are refused).
+  server token authentication: pages without ``?token=`` are refused). The token never reaches
+  a log line or a kernel (:mod:`studykit.app.server_guard`).
+* Only the server's own names are answered (``Host``: loopback names, the bound address,
+  ``StudykitVoila.allow_hosts``) and only same-origin requests, on every route and the kernel
+  websocket: a page of another site cannot drive the workbook, also not by DNS rebinding.
+* The page sets the ``_xsrf`` cookie that Voila's close beacon sends back, so the kernel of a
+  closed page is shut down; kernels with no page connected are shut down after
+  ``StudykitVoila.kernel_idle_minutes`` idle (Jupyter's kernel culler).
+* Pages that need a new kernel are started at most ``StudykitVoila.concurrent_page_starts``
+  at a time (the others wait their turn), and the executor waits up to
+  :data:`IOPUB_TIMEOUT` s for a cell's output, so many pages opened at once all render.
 * The kernel websocket accepts messages up to the upload limit plus headroom, so an upload of
   up to :data:`studykit.app.widgets.MAX_UPLOAD_BYTES` reaches the kernel (tornado's default cap
-  is 10 MiB).
-
-Nothing else changes: authentication (``--Voila.token``), ports and templates are Voila's.
+  is 10 MiB); the page refuses larger files before sending them, with a message.
+* SIGINT and SIGTERM stop the server whatever the parent did with them (ignored or blocked),
+  and with ``STUDYKIT_PARENT_PID`` set the server stops when that process goes away.
 """
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import os
+import signal
 import socket
 import subprocess
 import sys
@@ -28,17 +40,36 @@ import urllib.error
 import urllib.request
 
 import bokeh
+import tornado.ioloop
 import tornado.web
 from bokeh.util.paths import bokehjs_path
 from jupyter_server.utils import url_path_join
+from traitlets import Float, Integer, Unicode
 from voila.app import Voila
+from voila.tornado.handler import TornadoVoilaHandler
 
+from studykit.app.server_guard import (
+    HostPolicy,
+    inject_into_head,
+    install_redaction,
+    log_request,
+    request_rule,
+    restore_stop_signals,
+    strip_token,
+    upload_guard_script,
+)
 from studykit.app.widgets import MAX_UPLOAD_BYTES
 
 ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"
 ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # set by `studykit serve` for non-loopback addresses
+ENV_PARENT_PID = "STUDYKIT_PARENT_PID"  # stop when this process goes away
 BOKEHJS_FILES = ("bokeh.min.js", "bokeh-widgets.min.js", "bokeh-tables.min.js")
 BOKEHJS_ROUTE = f"/studykit/bokehjs/{bokeh.__version__}/"
+WEBSOCKET_MAX_MESSAGE = MAX_UPLOAD_BYTES * 2 + 1024 * 1024  # one message carries a whole upload
+DEFAULT_KERNEL_IDLE_MINUTES = 10.0
+IOPUB_TIMEOUT = 120  # s a cell's output may take after its reply (nbclient's default is 4 s)
+_SLOTS = "studykit_page_start_slots"
+_HEAD_SNIPPET = "studykit_head_snippet"
 
 
 class BokehJSHandler(tornado.web.StaticFileHandler):
@@ -55,26 +86,102 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
         return 365 * 24 * 3600
 
 
+class WorkbookPageHandler(TornadoVoilaHandler):
+    """Voila's page handler, with three changes.
+
+    * It sets the ``_xsrf`` cookie. Voila's page reads that cookie on close and sends it with
+      its kernel-shutdown request (``navigator.sendBeacon``); a page rendered from a preheated
+      kernel never touched the XSRF token, so no cookie was set and every shutdown was refused
+      with "_xsrf argument missing" (the XSRF check itself stays on).
+    * Once authenticated, the token is taken out of the request, so Voila does not hand it to
+      the kernel (``QUERY_STRING``, ``VOILA_REQUEST_URL``) or the log.
+    * Pages wait for one of a few start slots before a kernel is started and the notebook run,
+      and the upload guard script is put into the page's ``<head>``.
+    """
+
+    _client_gone = False
+
+    async def prepare(self):
+        await super().prepare()
+        if self._finished:  # refused or redirected to the login page
+            return
+        self.xsrf_token  # noqa: B018 - reading it sets the cookie
+        strip_token(self.request)
+
+    def on_connection_close(self):
+        self._client_gone = True
+        super().on_connection_close()
+
+    @tornado.web.authenticated
+    async def get(self, path=None):
+        slots = self.settings.get(_SLOTS)
+        async with slots if slots is not None else contextlib.nullcontext():
+            if self._client_gone:  # closed while waiting: start no kernel for nobody
+                return
+            snippet = self.settings.get(_HEAD_SNIPPET, "")
+            injected = not snippet
+            async for html in self.get_generator(path=path):
+                if not injected:
+                    html, injected = inject_into_head(html, snippet)
+                self.write(html)
+                self.flush()
+
+
 class StudykitVoila(Voila):
-    """Voila plus the BokehJS route and a websocket size fitting the upload limit."""
+    """Voila plus the BokehJS route, request checks, kernel clean-up and page start slots."""
 
     name = "studykit-voila"
 
-    def init_handlers(self):
-        handlers = super().init_handlers()
-        route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
-        handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
-        return handlers
+    allow_hosts = Unicode(
+        "", config=True,
+        help="More names (comma-separated) accepted in the Host header, besides the loopback "
+             "names and the bound address (`studykit serve --allow-host`).")
+    kernel_idle_minutes = Float(
+        DEFAULT_KERNEL_IDLE_MINUTES, config=True,
+        help="A kernel with no page connected is shut down after this many idle minutes "
+             "(0: never). Sets MappingKernelManager.cull_idle_timeout unless that is given.")
+    concurrent_page_starts = Integer(
+        0, config=True,
+        help="Pages whose kernel is started and whose notebook is run at the same time; more "
+             "wait their turn (0: the number of CPUs, at least 1, at most 4).")
 
     def initialize(self, argv=None):
         super().initialize(argv)
         # serve no files from the notebook folder (Voila's default allows images)
         self.voila_configuration.file_allowlist = []
+        self._set_config_if_unset("VoilaExecutor", "iopub_timeout", IOPUB_TIMEOUT)
+        if self.kernel_idle_minutes > 0:
+            idle = max(1, round(self.kernel_idle_minutes * 60))
+            self._set_config_if_unset("MappingKernelManager", "cull_idle_timeout", idle)
+            self._set_config_if_unset("MappingKernelManager", "cull_interval",
+                                 max(1, min(60, idle // 4)))
+        extra = [n.strip() for n in self.allow_hosts.split(",") if n.strip()]
+        self.host_policy = HostPolicy(self.ip or "", extra, machine_name=socket.gethostname())
+
+    def _set_config_if_unset(self, section: str, name: str, value) -> None:
+        if name not in self.config[section]:
+            self.config[section][name] = value
+
+    def init_handlers(self):
+        handlers = []
+        for spec in super().init_handlers():
+            if isinstance(spec, tuple) and len(spec) >= 2 and spec[1] is TornadoVoilaHandler:
+                spec = (spec[0], WorkbookPageHandler, *spec[2:])
+            handlers.append(spec)
+        route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
+        handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
+        # first of all: refuse foreign Host names and cross-origin requests on every route
+        handlers.insert(0, request_rule(self.host_policy, self.log))
+        return handlers
 
     def init_settings(self):
         settings = super().init_settings()
-        settings["websocket_max_message_size"] = MAX_UPLOAD_BYTES * 2 + 1024 * 1024
+        settings["websocket_max_message_size"] = WEBSOCKET_MAX_MESSAGE
         settings["compress_response"] = True  # BokehJS: 1.3 MB -> about 0.35 MB on the wire
+        settings["log_function"] = log_request  # the path, never the query string
+        slots = self.concurrent_page_starts or min(4, max(1, os.cpu_count() or 1))
+        settings[_SLOTS] = asyncio.Semaphore(slots)
+        settings[_HEAD_SNIPPET] = upload_guard_script(MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE)
         return settings
 
     def start(self):
@@ -83,9 +190,26 @@ class StudykitVoila(Voila):
         token = os.environ.pop(ENV_TOKEN, "")
         if token:
             self.token = token
+        install_redaction(token or None, loggers=[self.log])
         os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url,
                                                     BOKEHJS_ROUTE)
+        self._watch_parent()
         super().start()
+
+    def _watch_parent(self) -> None:
+        """Stop when the process named in ``STUDYKIT_PARENT_PID`` is no longer our parent."""
+        value = os.environ.pop(ENV_PARENT_PID, "")
+        if not value.isdigit():
+            return
+        parent = int(value)
+
+        def check():
+            if os.getppid() != parent:
+                self.log.warning("the process that started this server has ended; stopping")
+                tornado.ioloop.IOLoop.current().stop()
+
+        self._parent_watch = tornado.ioloop.PeriodicCallback(check, 1000)
+        self._parent_watch.start()
 
 
 def free_port(host: str = "127.0.0.1") -> int:
@@ -100,15 +224,19 @@ def running_server(path, *, port: int | None = None, env: dict | None = None,
                    extra_args: tuple[str, ...] = (), timeout: float = 90.0, log=None):
     """Run this server on a notebook or folder in a subprocess; yield its base URL.
 
-    For tests and benchmarks. The server is stopped (SIGTERM, then SIGKILL) on exit.
+    For tests and benchmarks. The server runs in its own process group, which is stopped
+    (SIGTERM, then SIGKILL) on exit, also when the body raises; the server also stops by itself
+    if this process dies (``STUDYKIT_PARENT_PID``).
     """
     port = port or free_port()
     path = os.fspath(path)
     cwd = path if os.path.isdir(path) else os.path.dirname(os.path.abspath(path))
     cmd = [sys.executable, "-m", "studykit.app.server", os.path.abspath(path), "--no-browser",
            f"--port={port}", "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", *extra_args]
-    proc = subprocess.Popen(cmd, cwd=cwd, env={**os.environ, **(env or {})},
-                            stdout=log or subprocess.DEVNULL, stderr=subprocess.STDOUT)
+    proc = subprocess.Popen(cmd, cwd=cwd,
+                            env={**os.environ, ENV_PARENT_PID: str(os.getpid()), **(env or {})},
+                            stdout=log or subprocess.DEVNULL, stderr=subprocess.STDOUT,
+                            start_new_session=True)
     url = f"http://127.0.0.1:{port}/"
     try:
         deadline = time.monotonic() + timeout
@@ -126,16 +254,27 @@ def running_server(path, *, port: int | None = None, env: dict | None = None,
                 time.sleep(0.2)
         yield url
     finally:
-        proc.terminate()
+        stop_process_group(proc)
+
+
+def stop_process_group(proc: subprocess.Popen, timeout: float = 20.0) -> int:
+    """SIGTERM the process group led by ``proc``; SIGKILL it after ``timeout`` seconds."""
+    for sig, wait in ((signal.SIGTERM, timeout), (signal.SIGKILL, None)):
+        with contextlib.suppress(ProcessLookupError, PermissionError):
+            os.killpg(proc.pid, sig)
         try:
-            proc.wait(timeout=20)
+            proc.wait(timeout=wait)
+            break
         except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+            continue
+    with contextlib.suppress(ProcessLookupError, PermissionError):
+        os.killpg(proc.pid, signal.SIGKILL)  # anything the leader left behind in its group
+    return proc.returncode
 
 
 def main(argv: list[str] | None = None) -> None:
     """Run the server (the command line of ``voila``)."""
+    restore_stop_signals()
     StudykitVoila.launch_instance(argv=sys.argv[1:] if argv is None else argv)
 
 

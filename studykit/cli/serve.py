@@ -4,7 +4,12 @@ Starts Voila (through :mod:`studykit.app.server`) on ``notebooks/workbook.ipynb`
 127.0.0.1 unless ``--host`` says otherwise. Any other address needs a token: one is generated
 (``secrets.token_urlsafe``), handed to the server through its environment (not the command
 line, where other users of the machine could read it) and printed in the address. Ctrl-C or
-SIGTERM stops the server and its kernels.
+SIGTERM stops the server and its kernels, also when this process was started with those
+signals ignored or blocked; the server stops by itself if this process is killed.
+
+The server answers only to its own names (the loopback names, the ``--host`` address and any
+``--allow-host`` name) and only to same-origin requests; kernels of closed pages are shut down,
+and kernels with no page connected are shut down after ``--kernel-idle-minutes``.
 """
 
 from __future__ import annotations
@@ -25,6 +30,8 @@ from studykit.errors import StudyFileError, StudyInputError
 
 ENV_STUDY = "STUDYKIT_STUDY"  # same name as studykit.app.shell.ENV_STUDY
 ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # read (and removed) by studykit.app.server
+ENV_PARENT_PID = "STUDYKIT_PARENT_PID"  # same name as studykit.app.server.ENV_PARENT_PID
+DEFAULT_KERNEL_IDLE_MINUTES = 10.0  # same as studykit.app.server.DEFAULT_KERNEL_IDLE_MINUTES
 REPO_ROOT = Path(__file__).resolve().parents[2]
 NOTEBOOK = REPO_ROOT / "notebooks" / "workbook.ipynb"
 DEMO_DIR = REPO_ROOT / "demo_data"
@@ -49,6 +56,17 @@ def register(subparsers) -> None:
     p.add_argument("--host", default="127.0.0.1",
                    help="address to bind (default 127.0.0.1, this machine only); any other "
                         "address requires the printed token")
+    p.add_argument("--allow-host", action="append", default=[], metavar="NAME",
+                   help="also accept this server name in the address (e.g. the name colleagues "
+                        "type, or a proxy's name); repeat for more. By default only the loopback "
+                        "names, the --host address and (for 0.0.0.0) this machine's name and IP "
+                        "addresses are accepted")
+    p.add_argument("--kernel-idle-minutes", type=float, default=DEFAULT_KERNEL_IDLE_MINUTES,
+                   metavar="MINUTES",
+                   help="shut down a page's kernel (its memory) once no page has been "
+                        f"connected to it for this long (default {DEFAULT_KERNEL_IDLE_MINUTES:g}; "
+                        "0 keeps them until the server stops); closing a page shuts its kernel "
+                        "down at once")
     p.add_argument("--no-browser", action="store_true", help="do not open a browser window")
     p.set_defaults(func=run)
 
@@ -116,14 +134,45 @@ def workbook_notebook() -> Path:
     return path
 
 
-def server_command(notebook: Path, *, host: str, port: int) -> list[str]:
+def check_host_names(names) -> list[str]:
+    """The ``--allow-host`` names, checked: a host name or an IP address, no port or path.
+
+    Examples
+    --------
+    >>> check_host_names(["review.example", "10.0.0.7", "[::1]"])
+    ['review.example', '10.0.0.7', '::1']
+    """
+    checked = []
+    for raw in names:
+        name = raw.strip().strip("[]").rstrip(".").lower()
+        ok = bool(name)
+        try:
+            ipaddress.ip_address(name)
+        except ValueError:
+            ok = ok and len(name) <= 253 and all(
+                part and len(part) <= 63 and part.replace("-", "").replace("_", "").isalnum()
+                and part.isascii() for part in name.split("."))
+        if not ok:
+            raise StudyInputError(
+                f"`--allow-host` ({raw!r}) is not a server name or IP address; give the name "
+                "alone, without http:// or a port, e.g. --allow-host review.example")
+        checked.append(name)
+    return checked
+
+
+def server_command(notebook: Path, *, host: str, port: int, allow_hosts=(),
+                   kernel_idle_minutes: float = DEFAULT_KERNEL_IDLE_MINUTES) -> list[str]:
     """The command line that starts the Voila server (no secrets in it)."""
-    return [
+    cmd = [
         sys.executable, "-m", "studykit.app.server", str(notebook),
         "--no-browser", f"--port={port}", f"--Voila.ip={host}", "--Voila.port_retries=0",
         # a kernel runs the workbook before anyone asks, so the page opens in about 3 s
         "--VoilaConfiguration.preheat_kernel=True",
+        f"--StudykitVoila.kernel_idle_minutes={kernel_idle_minutes:g}",
     ]
+    if allow_hosts:
+        cmd.append(f"--StudykitVoila.allow_hosts={','.join(allow_hosts)}")
+    return cmd
 
 
 def wait_until_listening(proc: subprocess.Popen, host: str, port: int,
@@ -142,19 +191,32 @@ def wait_until_listening(proc: subprocess.Popen, host: str, port: int,
 
 
 def stop(proc: subprocess.Popen, timeout: float = 15.0) -> int:
-    """Terminate the server (SIGTERM, then SIGKILL after ``timeout`` seconds)."""
-    if proc.poll() is None:
-        proc.terminate()
+    """Terminate the server's process group (SIGTERM, then SIGKILL after ``timeout`` s)."""
+    for sig, wait in ((signal.SIGTERM, timeout), (signal.SIGKILL, None)):
+        if proc.poll() is not None:
+            break
         try:
-            proc.wait(timeout=timeout)
+            os.killpg(proc.pid, sig)  # the server leads its own session (start_new_session)
+        except (ProcessLookupError, PermissionError):
+            proc.send_signal(sig)
+        try:
+            proc.wait(timeout=wait)
         except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+            continue
     return proc.returncode
 
 
 def run(args) -> int:
+    # Ctrl-C and SIGTERM must stop us even if the parent started us with them ignored/blocked
+    from studykit.app.server_guard import restore_stop_signals
+
+    restore_stop_signals()
     host, port = args.host, args.port
+    allow_hosts = check_host_names(args.allow_host)
+    idle = args.kernel_idle_minutes
+    if not (idle >= 0 and idle < 1e6):
+        raise StudyInputError(f"`--kernel-idle-minutes` ({idle:g}) must be 0 or more minutes, "
+                              "e.g. --kernel-idle-minutes 10")
     if args.demo and args.study:
         raise StudyInputError("give either STUDY_FILE or --demo, not both")
     study = None
@@ -176,6 +238,7 @@ def run(args) -> int:
 
     env = dict(os.environ)
     env[ENV_STUDY] = str(study) if study else ""
+    env[ENV_PARENT_PID] = str(os.getpid())
     token = None
     if not is_loopback(host):
         token = secrets.token_urlsafe(24)
@@ -184,8 +247,9 @@ def run(args) -> int:
         env.pop(ENV_TOKEN, None)
 
     notebook = workbook_notebook()
-    proc = subprocess.Popen(server_command(notebook, host=host, port=port), env=env,
-                            cwd=str(notebook.parent), start_new_session=True)
+    proc = subprocess.Popen(server_command(notebook, host=host, port=port,
+                                           allow_hosts=allow_hosts, kernel_idle_minutes=idle),
+                            env=env, cwd=str(notebook.parent), start_new_session=True)
 
     def on_term(_signum, _frame):
         raise KeyboardInterrupt

@@ -126,6 +126,9 @@ class IntakeStep:
                                           layout=widgets.Layout(width="auto",
                                                                 align_self="flex-start"))
         self._upload.add_class("sk-upload")
+        # the page's upload guard (studykit.app.server_guard) refuses a larger file in the
+        # browser, with a message, before any byte is sent
+        self._upload.add_class(f"sk-upload-limit-{int(limit)}")
         intro = html_box(
             f'<div class="sk-muted">CSV, TXT or Excel, one file of at most {_mb(limit)}. '
             "Wide tables (one column per characteristic) and long tables (characteristic, "
