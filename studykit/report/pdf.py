@@ -1125,7 +1125,7 @@ def build_report(study_path_or_study, out_path, *,
     from reportlab.platypus import PageBreak, SimpleDocTemplate
 
     t0 = time.perf_counter()
-    study, stored_gauges, _ = _load(study_path_or_study)
+    study, stored_gauges, study_path = _load(study_path_or_study)
     if gauges is not None:
         stored_gauges = dict(gauges)
     if stored_gauges is not None:
@@ -1140,6 +1140,12 @@ def build_report(study_path_or_study, out_path, *,
     results, errors, measurements = analyze_for_report(study, stored_gauges,
                                                        progress=_analysis_progress)
     evidence = collect_evidence(study, results, errors, stored_gauges)
+    # gauge error section (issue 17): stored short gauge studies go into the evidence
+    from studykit.report import gauge_error
+
+    short_gauges = gauge_error.stored_short_studies(study_path, study)
+    if short_gauges:
+        evidence["short_gauges"] = short_gauges
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
@@ -1170,6 +1176,10 @@ def build_report(study_path_or_study, out_path, *,
         story.append(PageBreak())
         section += 1
         _gauge_section(story, section, stored_gauges, study, st, width)
+    if gauge_error.has_content(short_gauges, results):
+        story.append(PageBreak())
+        section += 1
+        gauge_error.gauge_error_section(story, section, short_gauges, results, st, width)
     story.append(PageBreak())
     section += 1
     boxes: dict = {}

@@ -399,4 +399,28 @@ def verify_report(pdf_path, *, data=None, study=None, trust=()) -> VerifyResult:
                 checks.append(Check(f"numbers of {name}", "pass",
                                     f"all {n} numbers agree (relative tolerance "
                                     f"{RELATIVE_TOLERANCE:g})"))
+        numbers += _short_gauge_checks(evidence, checks)
     return VerifyResult(str(path), tuple(checks), signed, numbers)
+
+
+def _short_gauge_checks(evidence: dict, checks: list) -> int:
+    """Recompute each embedded short gauge study from its readings; returns numbers compared."""
+    from studykit.report.gauge_error import recheck_short_study
+
+    total = 0
+    for name, payload in sorted((evidence.get("short_gauges") or {}).items()):
+        label = f"short gauge study of {name}"
+        try:
+            fresh = recheck_short_study(payload)
+        except (StudyInputError, KeyError, TypeError) as exc:
+            checks.append(Check(label, "fail", f"cannot be recomputed from its readings: {exc}"))
+            continue
+        reported = {k: v for k, v in payload.items() if k in fresh}
+        n, diffs = compare_numbers(reported, fresh)
+        total += n
+        if diffs:
+            checks.append(Check(label, "fail", f"{len(diffs)} difference(s) among {n} numbers: "
+                                + "; ".join(diffs[:4])))
+        else:
+            checks.append(Check(label, "pass", f"all {n} numbers agree with the readings"))
+    return total
