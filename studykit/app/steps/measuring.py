@@ -500,9 +500,9 @@ def short_study_html(payload: Mapping, *, who: str | None = None, when: str | No
         ("Mean, s", f"{_num(payload.get('mean'))}, {_num(payload.get('sd'))}"),
         ("Bias", f"{_num(payload.get('bias'))} ({fmt(payload.get('bias_pct_tolerance'), 2)} % "
                  "of the tolerance)"),
-        ("Bias t-test", f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p = "
-                        + ("—" if p_val is None else ("< 0.0001" if p_val < 1e-4
-                                                      else fmt(p_val, 4)))),
+        ("Bias t-test", f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p "
+                        + ("= —" if p_val is None else ("< 0.0001" if p_val < 1e-4
+                                                        else "= " + fmt(p_val, 4)))),
         ("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"),
     ]
     if payload.get("source_file"):
