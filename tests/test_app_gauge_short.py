@@ -58,7 +58,9 @@ def test_gauge_error_panel_shows_the_result_block(wb):
     for basis, k in (("within", "cp"), ("overall", "pp")):
         assert f"{me[basis]['process'][k]:.3f}" in html
         assert f"{me[basis]['observed'][k]:.3f}" in html
-    assert "No short gauge study" in step.short_box.value
+    # the demo study holds a short study of flange_thickness (demo_data/make_demo.py)
+    assert "Short gauge study (one reference part)" in step.short_box.value
+    assert "L. Haverkamp" in step.short_box.value
 
 
 def test_no_gauge_no_error_panel(wb):
@@ -66,6 +68,7 @@ def test_no_gauge_no_error_panel(wb):
     ws = wb.context.extra["studykit.workspace"]
     ws.picker.value = "bore_diameter"
     assert step.error_box.value == ""
+    assert "No short gauge study" in step.short_box.value
 
 
 def test_short_study_previewed_then_attached(wb, study_path):
@@ -87,9 +90,9 @@ def test_short_study_previewed_then_attached(wb, study_path):
     assert not step.short_attach.disabled
     step.short_attach.click()
     stored = StudyFile(study_path).results("gauge_short", NAME)
-    assert len(stored) == 1 and stored[0].who == "Q. Engineer"
-    assert stored[0].payload["reason"] == "gauge GR-07 on master M-5.000"
-    assert stored[0].payload["limits_from"] == "entered"
+    assert len(stored) == 2 and stored[-1].who == "Q. Engineer"  # the demo's, then this one
+    assert stored[-1].payload["reason"] == "gauge GR-07 on master M-5.000"
+    assert stored[-1].payload["limits_from"] == "entered"
     assert "Capable" in step.short_box.value and "Q. Engineer" in step.short_box.value
 
 
