@@ -191,3 +191,13 @@ def test_large_gauge_share_gives_a_warning_finding():
     assert "gauge_error_large" in codes
     text = next(f.text for f in res.findings if f.code == "gauge_error_large")
     assert "64 % of the observed variance" in text
+
+
+def test_analyze_table_shows_gauge_error_lines(capsys, demo_study):
+    code = main(["analyze", "--study", str(demo_study), "-c", "flange_thickness"])
+    out, err = capsys.readouterr()
+    assert code == 0, err
+    d = _analyze(capsys, demo_study, "flange_thickness")["measurement_error"]
+    assert "gauge error taken out" in out
+    assert f"process only {d['within']['process']['cp']:.3f}" in out
+    assert f"process only {d['overall']['process']['ppk']:.3f}" in out
