@@ -83,3 +83,27 @@ def test_verify_names_a_changed_short_study_number(made):
     checks = []
     _short_gauge_checks(evidence, checks)
     assert checks[0].status == "fail" and "cgk" in checks[0].detail
+
+
+def test_safety_caution_kept_beside_process_only_indices(tmp_path):
+    """A safety-critical characteristic's process-only indices carry the safety caution."""
+    import numpy as np
+
+    from studykit.analysis import SAFETY_CAUTION, analyze_characteristic
+    from studykit.data import CharacteristicData
+    from studykit.report import gauge_error
+    from studykit.report.pdf import _styles
+    from studykit.study import Characteristic
+
+    x = np.random.default_rng(3).normal(10.0, 0.5, 60)  # invented for the test
+    gauge = {"components": [{"name": "gauge_rr", "sigma": 0.2, "interval_df": 20.0}]}
+    res = analyze_characteristic(CharacteristicData("x", None, x),
+                                 Characteristic("x", lsl=7, usl=13, safety_critical=True),
+                                 gauge=gauge)
+    story: list = []
+    gauge_error.gauge_error_section(story, 1, {}, {"x": res}, _styles(), 480)
+    texts = []
+    for flowable in story:
+        for cell in getattr(flowable, "_cellvalues", []):
+            texts += [getattr(p, "text", "") for p in cell]
+    assert any(SAFETY_CAUTION.split(":")[0] in t for t in texts)

@@ -136,6 +136,7 @@ def gauge_error_section(story, number, short: Mapping, results: Mapping, st, wid
             warn = list(me.get("warnings") or [])
             if me.get("model_note"):
                 warn.append(me["model_note"])
+            warn += list(getattr(res, "cautions", ()) or ())  # the safety caution, if any
             if warn:
                 v = theme.VERDICTS["caution"]
                 story.append(Spacer(1, 3))
