@@ -37,10 +37,15 @@ PILOT_CSV = "pump_housing_pilot.csv"
 PULL_CSV = "pull_off_force.csv"
 LOTS_CSV = "leak_test_lots.csv"
 GAUGE_CSV = "gauge_flange_thickness.csv"
+REFERENCE_CSV = "gauge_flange_reference.csv"
 SPECS_CSV = "specs.csv"
 PULL_SPECS_CSV = "specs_pull_off.csv"
 STUDY_FILE = "pump_housing_pilot.study"
-DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV)
+DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
+              REFERENCE_CSV)
+#: the short gauge study has its own seed, so the other files stay as they were before it
+REFERENCE_SEED = SEED + 17
+REFERENCE_VALUE = 8.0004
 
 N_SUBGROUPS = 28
 SUBGROUP_SIZE = 5
@@ -161,6 +166,13 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
     return files
 
 
+def make_reference_readings(rng: np.random.Generator) -> bytes:
+    """Short gauge study: one reference part (8.0004 mm) read 50 times by one person."""
+    readings = REFERENCE_VALUE + 0.0006 + rng.normal(0, 0.0025, 50)
+    rows = [[str(i + 1), f"{v:.3f}"] for i, v in enumerate(readings)]
+    return _rows_to_csv(["reading_no", "reading"], rows)
+
+
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     """The demo study file: three data files, specs, criteria, decisions with reasons, one
     comment, and the gauge R&R result beside the characteristic it qualifies."""
@@ -180,11 +192,21 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
                       trials=[r[2] for r in rows], lsl=flange.lsl, usl=flange.usl)
     sf.attach_result("gauge_rr", "flange_thickness",
                      dict(result.to_dict(), source=GAUGE_CSV), who="L. Haverkamp")
+    from studykit.stats.gauge_type1 import short_gauge_study
+
+    readings = [float(line.split(",")[1])
+                for line in files[REFERENCE_CSV].decode().splitlines()[1:]]
+    short = short_gauge_study(readings, reference=REFERENCE_VALUE, lsl=flange.lsl,
+                              usl=flange.usl)
+    sf.attach_result("gauge_short", "flange_thickness",
+                     dict(short.to_dict(), source_file=REFERENCE_CSV, limits_from="study",
+                          columns={"value": "reading"}), who="L. Haverkamp")
     return path
 
 
 def generate(folder: Path) -> None:
     files = make_files(np.random.default_rng(SEED))
+    files[REFERENCE_CSV] = make_reference_readings(np.random.default_rng(REFERENCE_SEED))
     for name, content in files.items():
         (folder / name).write_bytes(content)
     write_study(folder, files)

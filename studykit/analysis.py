@@ -341,6 +341,8 @@ class CharacteristicResult:
     times: dict = field(default_factory=dict)
     notes: dict = field(default_factory=dict)
     order: object = None
+    #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
+    measurement_error: dict | None = None
 
     @property
     def chart(self) -> ControlChart:
@@ -513,6 +515,8 @@ class CharacteristicResult:
         ac = self.attribute_capability
         if ac is not None:
             out.update(ac.to_dict())
+        if self.measurement_error is not None:
+            out["measurement_error"] = self.measurement_error
         return out
 
 
@@ -1140,6 +1144,13 @@ def analyze_characteristic(
         findings[:0] = list(withheld)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
+    measurement_error = _measurement_error(gauge, mean=mean, within=within, df_within=df_within,
+                                           overall=overall, n=int(x.size), spec=spec, level=level,
+                                           model=choice.name)
+    if measurement_error is not None and measurement_error["warnings"]:
+        findings.append(capability_module.Finding(
+            code="gauge_error_large", severity="warning",
+            text=" ".join(measurement_error["warnings"])))
     band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
     plan = None
     if verdict.estimate is not None and verdict.meets is False and judged_index in (
@@ -1162,6 +1173,7 @@ def analyze_characteristic(
         model_band=band,
         plan=plan,
         warnings=tuple(warn),
+        measurement_error=measurement_error,
     )
 
 
@@ -1283,6 +1295,31 @@ def _gauge_finding(gauge: Mapping):
                             "acceptable: " + message)
     return Finding(code="gauge_checked", severity="info",
                    text="Gauge study for this characteristic: " + message)
+
+
+def _measurement_error(gauge, *, mean, within, df_within, overall, n, spec, level, model):
+    """The ``measurement_error`` block (observed vs process-only indices) or None.
+
+    Given only when ``gauge`` is a stored gauge R&R payload with a total gauge R&R sigma; built
+    by :func:`studykit.stats.measurement_error.remove_gauge_variance` at the study's level.
+    """
+    from studykit.stats import measurement_error as me_module
+
+    found = me_module.gauge_sigma_from_stored(gauge) if gauge is not None else None
+    if found is None:
+        return None
+    try:
+        res = me_module.remove_gauge_variance(
+            gauge_sigma=found[0], gauge_df=found[1], mean=mean, lsl=spec.lsl, usl=spec.usl,
+            within_sigma=within, within_df=df_within, overall_sigma=overall, n=n,
+            confidence=level)
+    except StudyInputError:
+        return None
+    out = res.to_dict()
+    out["model_note"] = (None if model == "normal" else
+                         f"The study's indices use the {model} model; the observed and "
+                         "process-only indices here are normal-theory figures from the sigmas.")
+    return out
 
 
 def gauge_results(study_file) -> dict:

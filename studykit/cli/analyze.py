@@ -229,6 +229,32 @@ def _pct(v) -> str:
 _PRETTY = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
 
 
+def _i3(v) -> str:
+    return "-" if v is None else f"{v:.3f}"
+
+
+def _measurement_error_lines(me: dict) -> list[str]:
+    """Observed and process-only indices (the gauge variance removed), one line per index."""
+    lvl = f"{100 * (me.get('level') or 0.95):g}%"
+    lines = [f"gauge error taken out (gauge sigma {_fmt(me.get('gauge_sigma'), 4)} on "
+             f"{_fmt(me.get('gauge_df'), 3)} df; {lvl} interval, modified large-sample):"]
+    for basis in ("within", "overall"):
+        b = me.get(basis)
+        if not b:
+            continue
+        spread = b.get("spread_interval") or {}
+        for key, obs in (b.get("observed") or {}).items():
+            iv = spread.get(key)
+            lines.append(f"  {_PRETTY[key]:5s} observed {_i3(obs)}  process only "
+                         f"{_i3((b.get('process') or {}).get(key))}"
+                         + (f"  ({_i3(iv[0])} .. {_i3(iv[1])})" if iv else "")
+                         + (f"  gauge share {100 * b['gauge_share']:.1f}% of the {basis} "
+                            "variance" if key in ("cp", "pp") and b.get("gauge_share")
+                            is not None else ""))
+    lines += [f"  ! {w}" for w in me.get("warnings") or []]
+    return lines
+
+
 def format_result(res) -> str:
     """A plain terminal report of one characteristic."""
     d = res.to_dict()
@@ -323,6 +349,8 @@ def format_result(res) -> str:
         lines.append(f"  {d['verdict']['text']}")
     for f in d["findings"]:
         lines.append(f"  * {f['text']}")
+    if d.get("measurement_error"):
+        lines += _measurement_error_lines(d["measurement_error"])
     if d["model_band"] and d["model_band"].get("warning"):
         lines.append(f"model band: {d['model_band']['warning']}")
     if d["plan"]:

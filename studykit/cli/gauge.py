@@ -1,8 +1,13 @@
-"""``studykit gauge FILE``: crossed gauge R&R from a long table.
+"""``studykit gauge FILE``: crossed gauge R&R from a long table, or the short gauge study.
 
-The file has one row per measurement with a part column, an appraiser column, a value column and
-optionally a trial column. The result is printed as a table (or one JSON object with ``--json``)
-and, with ``--study``, kept in the study file beside the characteristic it qualifies.
+Crossed study: the file has one row per measurement with a part column, an appraiser column, a
+value column and optionally a trial column.
+
+Short gauge study (``--reference VALUE``): one reference part measured repeatedly; the file has
+one row per reading (the value column only is needed); Cg, Cgk, bias and its t-test.
+
+The result is printed as a table (or one JSON object with ``--json``) and, with ``--study``, kept
+in the study file beside the characteristic it qualifies (kinds ``gauge_rr`` and ``gauge_short``).
 """
 
 from __future__ import annotations
@@ -15,22 +20,35 @@ from pathlib import Path
 
 from studykit.errors import DataFileError, StudyInputError
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
+from studykit.stats.gauge_type1 import (
+    DEFAULT_K_PERCENT,
+    DEFAULT_L_SIGMAS,
+    DEFAULT_MINIMUM,
+    ShortGaugeResult,
+    short_gauge_study,
+)
 
 RESULT_KIND = "gauge_rr"
+#: Kind under which a short gauge study (one reference part) is kept in the study file.
+SHORT_KIND = "gauge_short"
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "gauge",
-        help="gauge check: crossed gauge R&R (parts x appraisers x trials) by ANOVA",
+        help="gauge check: crossed gauge R&R by ANOVA, or the short gauge study of one "
+        "reference part (--reference)",
         description="Read a long table (one row per measurement) and judge the measurement "
         "system: ANOVA table, variance components, %study variation, %tolerance, ndc and a "
-        "verdict. Exit status 0 when the analysis ran (whatever the verdict), 2 on bad input.",
+        "verdict. With --reference VALUE: the short gauge study of one reference part measured "
+        "repeatedly (Cg, Cgk, bias and its t-test; needs --value and the tolerance). Exit "
+        "status 0 when the analysis ran (whatever the verdict), 2 on bad input.",
     )
     p.add_argument("file", metavar="FILE", help="CSV or XLSX file, one row per measurement")
-    p.add_argument("--part", required=True, metavar="COL", help="column with the part labels")
-    p.add_argument("--appraiser", required=True, metavar="COL",
-                   help="column with the appraiser (operator) labels")
+    p.add_argument("--part", metavar="COL",
+                   help="column with the part labels (crossed study)")
+    p.add_argument("--appraiser", metavar="COL",
+                   help="column with the appraiser (operator) labels (crossed study)")
     p.add_argument("--value", required=True, metavar="COL", help="column with the measurements")
     p.add_argument("--trial", metavar="COL", help="column with the trial number (optional)")
     p.add_argument("--lsl", type=float, metavar="X",
@@ -44,6 +62,23 @@ def register(subparsers) -> None:
                    "(default 0.25)")
     p.add_argument("--confidence", type=float, default=0.95, metavar="C",
                    help="confidence level of the intervals (default 0.95)")
+    short = p.add_argument_group("short gauge study (one reference part)")
+    short.add_argument("--reference", type=float, metavar="VALUE",
+                       help="reference value of the part measured repeatedly; selects the short "
+                       "gauge study (Cg, Cgk, bias)")
+    short.add_argument("--tolerance", type=float, metavar="T",
+                       help="tolerance width USL - LSL (instead of --lsl/--usl)")
+    short.add_argument("--k-percent", type=float, default=DEFAULT_K_PERCENT, metavar="K",
+                       help="share of the tolerance granted to the gauge, in percent (default "
+                       f"{DEFAULT_K_PERCENT:g}; common practice)")
+    short.add_argument("--l-sigmas", type=float, default=DEFAULT_L_SIGMAS, metavar="L",
+                       help=f"sigmas standing for the gauge spread (default {DEFAULT_L_SIGMAS:g}; "
+                       "4 in some plans)")
+    short.add_argument("--alpha", type=float, default=0.05, metavar="A",
+                       help="significance level of the bias t-test (default 0.05)")
+    short.add_argument("--minimum", type=float, default=DEFAULT_MINIMUM, metavar="C",
+                       help=f"Cg and Cgk needed to call the gauge capable (default "
+                       f"{DEFAULT_MINIMUM:g}; common practice)")
     p.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
     p.add_argument("--json", action="store_true", help="print the result as one JSON object")
     p.add_argument("--study", metavar="STUDYFILE",
@@ -57,12 +92,8 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str | None = None,
-                     sheet: str | None = None) -> dict:
-    """Read the long gauge table; returns ``{"values", "parts", "appraisers", "trials"}``.
-
-    Raises DataFileError naming the file, column and spreadsheet row of each problem.
-    """
+def _read_frame(path, *, sheet: str | None, wanted: dict):
+    """The table as text cells, with the spreadsheet row of each kept row; checks the columns."""
     import pandas as pd
 
     path = Path(path)
@@ -73,15 +104,12 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
             frame = pd.read_excel(path, sheet_name=sheet or 0, dtype=object)
         else:
             # blank lines are kept (and dropped below) so that row numbers match the file
-            frame = pd.read_csv(path, sep=None, engine="python", dtype=str,
+            frame = pd.read_csv(path, sep=_separator(path), engine="python", dtype=str,
                                 skipinitialspace=True, encoding="utf-8-sig",
                                 skip_blank_lines=False)
     except (ValueError, OSError, UnicodeDecodeError) as exc:
         raise DataFileError(f"cannot read the table: {exc}", file=path) from None
     frame.columns = [str(c).strip() for c in frame.columns]
-    wanted = {"--part": part, "--appraiser": appraiser, "--value": value}
-    if trial:
-        wanted["--trial"] = trial
     for option, col in wanted.items():
         if col not in frame.columns:
             raise DataFileError(
@@ -103,6 +131,24 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
     if blank.any():
         frame = frame[~blank]
         file_rows = [r for r, b in zip(file_rows, blank.tolist(), strict=True) if not b]
+    return frame, file_rows
+
+
+def _separator(path: Path):
+    """None (let pandas sniff) unless the header has no separator at all: a one-column file.
+
+    The sniffer would otherwise take a letter of the lone header as the separator.
+    """
+    try:
+        with open(path, encoding="utf-8-sig", errors="replace") as fh:
+            head = next((line for line in fh if line.strip()), "")
+    except OSError:
+        return None
+    return None if any(c in head for c in ",;\t|") else ","
+
+
+def _parse_values(frame, file_rows, path, value: str, missing_hint: str) -> list[float]:
+    """The value column as floats; a bad cell raises naming file, row and column."""
     values = []
     first_sign: dict[str, int] = {}
     for i, raw in enumerate(frame[value].tolist()):
@@ -125,12 +171,27 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
             x = math.nan
         if not math.isfinite(x):
             shown = f"'{text}'" if text else "an empty cell"
-            raise DataFileError(
-                f"{shown} is not a number; every row needs a measured value (delete the row of "
-                "a missing measurement from every appraiser's cell, or re-measure)",
-                file=path, row=file_rows[i], column=value,
-            )
+            raise DataFileError(f"{shown} is not a number; {missing_hint}",
+                                file=path, row=file_rows[i], column=value)
         values.append(x)
+    return values
+
+
+def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str | None = None,
+                     sheet: str | None = None) -> dict:
+    """Read the long gauge table; returns ``{"values", "parts", "appraisers", "trials"}``.
+
+    Raises DataFileError naming the file, column and spreadsheet row of each problem.
+    """
+    path = Path(path)
+    wanted = {"--part": part, "--appraiser": appraiser, "--value": value}
+    if trial:
+        wanted["--trial"] = trial
+    frame, file_rows = _read_frame(path, sheet=sheet, wanted=wanted)
+    values = _parse_values(
+        frame, file_rows, path, value,
+        "every row needs a measured value (delete the row of a missing measurement from every "
+        "appraiser's cell, or re-measure)")
     labels = {}
     for key, col in (("parts", part), ("appraisers", appraiser), ("trials", trial)):
         if col is None:
@@ -148,6 +209,18 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
     return {"values": values, **labels}
 
 
+def read_reference_readings(path, *, value: str, sheet: str | None = None) -> list[float]:
+    """Read the readings of one reference part (one row per reading, in the order taken).
+
+    Raises DataFileError naming the file, column and spreadsheet row of each problem.
+    """
+    path = Path(path)
+    frame, file_rows = _read_frame(path, sheet=sheet, wanted={"--value": value})
+    return _parse_values(
+        frame, file_rows, path, value,
+        "every row needs a reading of the reference part (delete the row or re-measure)")
+
+
 def _natural(text: str):
     """Whole-number labels sort as numbers (part 10 after part 9); others stay text."""
     try:
@@ -161,6 +234,18 @@ def run(args) -> int:
         raise StudyInputError(
             "`--study` and `--characteristic` go together: name the study file and the "
             "characteristic the gauge measures"
+        )
+    if args.reference is not None:
+        return run_short(args)
+    if args.tolerance is not None:
+        raise StudyInputError("`--tolerance` belongs to the short gauge study (with "
+                              "--reference); the crossed study takes --lsl and --usl")
+    missing = [o for o, v in (("--part", args.part), ("--appraiser", args.appraiser)) if not v]
+    if missing:
+        raise StudyInputError(
+            f"the crossed gauge study needs {' and '.join(missing)} (the columns with the part "
+            "and appraiser labels); for one reference part measured repeatedly give "
+            "--reference VALUE instead"
         )
     lsl, usl, limits_from = args.lsl, args.usl, None
     if args.study:
@@ -212,6 +297,113 @@ def run(args) -> int:
             sys.stdout.write(f"Stored as result {stored_id} of '{args.characteristic}' in "
                              f"{Path(args.study).name}.\n")
     return 0
+
+
+def run_short(args) -> int:
+    """``studykit gauge FILE --reference VALUE``: the short gauge study of one reference part."""
+    if args.part or args.appraiser or args.trial:
+        raise StudyInputError(
+            "--reference selects the short gauge study of one reference part: leave out "
+            "--part, --appraiser and --trial (one reading per row in the --value column)"
+        )
+    if args.tolerance is not None and (args.lsl is not None or args.usl is not None):
+        raise StudyInputError("give either --tolerance or --lsl and --usl, not both")
+    lsl, usl, tol, limits_from = args.lsl, args.usl, args.tolerance, None
+    if args.study:
+        from studykit.store import StudyFile
+
+        spec = StudyFile(args.study).load().characteristic(args.characteristic)
+        if (tol is None and lsl is None and usl is None and spec.lsl is not None
+                and spec.usl is not None):
+            lsl, usl, limits_from = spec.lsl, spec.usl, args.characteristic
+    if tol is None and (lsl is None or usl is None):
+        raise StudyInputError(
+            "the short gauge study needs the tolerance: give --tolerance T, or --lsl and --usl"
+            + ("" if args.study else ", or --study with a characteristic that has both limits")
+        )
+    readings = read_reference_readings(args.file, value=args.value, sheet=args.sheet)
+    try:
+        result = short_gauge_study(
+            readings, reference=args.reference, lsl=None if tol is not None else lsl,
+            usl=None if tol is not None else usl, tolerance=tol, k_percent=args.k_percent,
+            l_sigmas=args.l_sigmas, alpha=args.alpha, minimum=args.minimum,
+        )
+    except StudyInputError as exc:
+        if exc.file is not None:
+            raise
+        raise type(exc)(exc.detail, file=Path(args.file).name, column=exc.column or args.value,
+                        value=exc.value) from None
+    stored_id = None
+    from_ = "study" if limits_from else "command line"
+    if args.study:
+        payload = result.to_dict()
+        payload["source_file"] = Path(args.file).name
+        payload["limits_from"] = from_
+        payload["columns"] = {"value": args.value}
+        lock = ({"override_lock": True, "override_reason": args.override_lock}
+                if args.override_lock else {})
+        stored_id = StudyFile(args.study).attach_result(SHORT_KIND, args.characteristic,
+                                                        payload, who=args.who or _login_name(),
+                                                        **lock)
+    if args.json:
+        out = result.to_dict()
+        if stored_id is not None:
+            out["stored"] = {"study": Path(args.study).name, "characteristic": args.characteristic,
+                             "result_id": stored_id, "limits_from": from_}
+        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
+        sys.stdout.write("\n")
+    else:
+        sys.stdout.write(format_short(result, source=Path(args.file).name))
+        if limits_from:
+            sys.stdout.write(f"Tolerance taken from the specification of '{limits_from}' in the "
+                             "study file.\n")
+        if stored_id is not None:
+            sys.stdout.write(f"Stored as result {stored_id} of '{args.characteristic}' in "
+                             f"{Path(args.study).name}.\n")
+    return 0
+
+
+def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
+    """Plain-text report of a short gauge study (used by ``studykit gauge --reference``).
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge_type1 import short_gauge_study
+    >>> res = short_gauge_study([5.001, 5.003, 5.002, 5.002, 5.004, 5.000, 5.002, 5.001, 5.003,
+    ...                          5.002], reference=5.0, tolerance=0.1)
+    >>> print(format_short(res).splitlines()[0])
+    Design:      10 readings of one reference part (reference 5)
+    """
+    lines = []
+    if source:
+        lines.append(f"File:        {source}")
+    lines.append(f"Design:      {res.n} readings of one reference part (reference {res.reference:g})")
+    lines.append(f"Tolerance:   {res.lsl:g} .. {res.usl:g} (width {res.tolerance:g}); "
+                 f"K = {res.k_percent:g} % of it granted to the gauge, L = {res.l_sigmas:g} sigma")
+    lines.append("")
+    rows = [
+        ("Mean of the readings", _num(res.mean, ".6g")),
+        ("Standard deviation s", _num(res.sd, ".4g")),
+        ("Bias (mean - reference)", _num(res.bias, ".4g")),
+        ("Bias, % of tolerance", _num(res.bias_pct_tolerance, ".2f")),
+        ("Cg", _num(res.cg, ".3f")),
+        ("Cgk", _num(res.cgk, ".3f")),
+        ("%Var repeatability (K/Cg)", _num(res.pct_repeatability, ".2f")),
+        ("%Var repeatability and bias (K/Cgk)", _num(res.pct_repeatability_bias, ".2f")),
+    ]
+    lines += _table(("Figure", "Value"), rows)
+    lines.append("")
+    conf = f"{100 * (1 - res.alpha):g}%"
+    lines.append(f"Bias t-test (H0: bias = 0, two-sided): t = {_num(res.t_statistic, '.4g')}, "
+                 f"df = {res.df}, p = {_num(res.p_value, '.4g')}; {conf} interval of the bias "
+                 f"{_num(res.bias_lower, '.4g')} .. {_num(res.bias_upper, '.4g')}")
+    lines.append("")
+    lines.append(f"Verdict: {res.status.upper()}")
+    lines.append(f"  {res.message}")
+    if res.notes:
+        lines.append("Notes:")
+        lines += [f"  - {n}" for n in res.notes]
+    return "\n".join(lines) + "\n"
 
 
 def _login_name() -> str:

@@ -1135,6 +1135,7 @@ def _software_versions() -> str:
 
 def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
                  *, chain: Mapping | None, evidence_sha: str,
+                 short_gauges: Mapping | None = None,
                  progress: Callable[[int, int, str], None] | None = None,
                  total: int = 0) -> tuple[bytes, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
@@ -1171,6 +1172,12 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
         story.append(PageBreak())
         section += 1
         _gauge_section(story, section, gauges, study, st, width)
+    from studykit.report import gauge_error
+
+    if gauge_error.has_content(short_gauges, results):
+        story.append(PageBreak())
+        section += 1
+        gauge_error.gauge_error_section(story, section, short_gauges or {}, results, st, width)
     story.append(PageBreak())
     section += 1
     boxes: dict = {}
@@ -1234,7 +1241,7 @@ def build_report(study_path_or_study, out_path, *,
     import time
 
     t0 = time.perf_counter()
-    study, stored_gauges, _, chain = _load_with_chain(study_path_or_study)
+    study, stored_gauges, study_path, chain = _load_with_chain(study_path_or_study)
     if gauges is not None:
         stored_gauges = dict(gauges)
     if stored_gauges is not None:
@@ -1249,11 +1256,18 @@ def build_report(study_path_or_study, out_path, *,
     results, errors, measurements = analyze_for_report(study, stored_gauges,
                                                        progress=_analysis_progress)
     evidence = collect_evidence(study, results, errors, stored_gauges, chain)
+    # stored short gauge studies (one reference part) go into the evidence when there are any
+    from studykit.report import gauge_error
+
+    short_gauges = gauge_error.stored_short_studies(study_path, study)
+    if short_gauges:
+        evidence["short_gauges"] = short_gauges
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
     pages_pdf, boxes = render_pages(study, results, errors, measurements, stored_gauges,
                                     chain=chain, evidence_sha=evidence_sha,
+                                    short_gauges=short_gauges,
                                     progress=progress, total=total)
     pdf = _attach(pages_pdf, evidence_bytes, boxes)
     out = Path(out_path)

@@ -801,6 +801,7 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
                 checks.append(Check(f"numbers of {name}", "pass",
                                     f"all {n} numbers agree (relative tolerance "
                                     f"{RELATIVE_TOLERANCE:g})"))
+        numbers += _short_gauge_checks(evidence, checks)
         made_by = (evidence.get("software") or {}).get("studykit")
         if measurements is None:
             pass
@@ -814,10 +815,33 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
                                                                                   blobs)
                 redrawn, _ = render_pages(
                     page_study, results, errors, measurements, evidence.get("gauges"),
-                    chain=s.get("chain"),
+                    chain=s.get("chain"), short_gauges=evidence.get("short_gauges"),
                     evidence_sha=hashlib.sha256(evidence_bytes).hexdigest())
                 checks.append(_pages_check(pdf_bytes, redrawn))
             except (StudyInputError, KeyError, TypeError, ValueError) as exc:
                 checks.append(Check("every page", "fail", f"the pages cannot be redrawn from "
                                     f"the embedded evidence ({exc})"))
     return result()
+
+
+def _short_gauge_checks(evidence: dict, checks: list) -> int:
+    """Recompute each embedded short gauge study from its readings; returns numbers compared."""
+    from studykit.report.gauge_error import recheck_short_study
+
+    total = 0
+    for name, payload in sorted((evidence.get("short_gauges") or {}).items()):
+        label = f"short gauge study of {name}"
+        try:
+            fresh = recheck_short_study(payload)
+        except (StudyInputError, KeyError, TypeError) as exc:
+            checks.append(Check(label, "fail", f"cannot be recomputed from its readings: {exc}"))
+            continue
+        reported = {k: v for k, v in payload.items() if k in fresh}
+        n, diffs = compare_numbers(reported, fresh)
+        total += n
+        if diffs:
+            checks.append(Check(label, "fail", f"{len(diffs)} difference(s) among {n} numbers: "
+                                + "; ".join(diffs[:4])))
+        else:
+            checks.append(Check(label, "pass", f"all {n} numbers agree with the readings"))
+    return total

@@ -17,6 +17,13 @@ come from :func:`studykit.stats.gauge.gauge_rr`.
 
 The acceptance bands (%GRR below 10 % acceptable, 10-30 % conditionally, above 30 % not; ndc at
 least 5) are common practice; the customer's rule governs.
+
+Above the crossed study, the panel "Short gauge study (one reference part)" shows the latest
+stored short study (kind ``gauge_short``: Cg, Cgk, bias and its t-test, from
+:func:`studykit.stats.gauge_type1.short_gauge_study`) and lets one be run from an uploaded list
+of readings and attached; below the crossed study's verdict, the panel "Gauge error taken out"
+shows the observed against the process-only indices of the characteristic's analysis result
+(its ``measurement_error`` block; nothing is computed here).
 """
 
 from __future__ import annotations
@@ -47,9 +54,15 @@ __all__ = [
     "components_html",
     "anova_html",
     "range_method_html",
+    "SHORT_KIND",
+    "short_study_html",
+    "measurement_error_html",
+    "read_reference_upload",
 ]
 
 GAUGE_KIND = "gauge_rr"
+#: Kind of a stored short gauge study (one reference part measured repeatedly).
+SHORT_KIND = "gauge_short"
 
 #: Gauge verdict status -> theme verdict key (colour, symbol) and the word on the chip.
 STATUS_KIND = {
@@ -451,6 +464,150 @@ def range_method_html(payload: Mapping) -> str:
             "ignores the interaction.</div>")
 
 
+# --- short gauge study and gauge error (pure helpers) ----------------------------------------------
+
+_SHORT_CHIP = {"capable": ("pass", "Capable"), "not capable": ("fail", "Not capable")}
+
+
+def short_study_html(payload: Mapping, *, who: str | None = None, when: str | None = None,
+                     title: str = "Short gauge study (one reference part)") -> str:
+    """The box of a stored (or previewed) short gauge study: chip, verdict, Cg, Cgk, bias, t-test.
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge_type1 import short_gauge_study
+    >>> p = short_gauge_study([5.001, 5.003, 5.002, 5.002, 5.004, 5.000, 5.002, 5.001, 5.003,
+    ...                        5.002], reference=5.0, tolerance=0.1).to_dict()
+    >>> html = short_study_html(p)
+    >>> "Capable" in html and "2.887" in html
+    True
+    """
+    v = payload.get("verdict") if isinstance(payload.get("verdict"), Mapping) else {}
+    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", "Not judged"))
+    verdict = theme.VERDICTS[kind]
+    chip = (f'<span class="sk-chip" style="color:{verdict.text_color};background:'
+            f'{verdict.background};border-color:{verdict.color}">{verdict.symbol} '
+            f"{esc(word)}</span>")
+    t = payload.get("t_test") or {}
+    p_val = t.get("p_value")
+    facts = [
+        ("Cg, Cgk", f"{fmt(payload.get('cg'), 3)}, {fmt(payload.get('cgk'), 3)} (at least "
+                    f"{_num(payload.get('minimum'))})"),
+        ("K, L", f"{_num(payload.get('k_percent'))} % of the tolerance, "
+                 f"{_num(payload.get('l_sigmas'))} sigma"),
+        ("Readings", f"{payload.get('n', '?')} of a part with reference "
+                     f"{_num(payload.get('reference'))}"),
+        ("Mean, s", f"{_num(payload.get('mean'))}, {_num(payload.get('sd'))}"),
+        ("Bias", f"{_num(payload.get('bias'))} ({fmt(payload.get('bias_pct_tolerance'), 2)} % "
+                 "of the tolerance)"),
+        ("Bias t-test", f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p "
+                        + ("= —" if p_val is None else ("< 0.0001" if p_val < 1e-4
+                                                        else "= " + fmt(p_val, 4)))),
+        ("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"),
+    ]
+    if payload.get("source_file"):
+        facts.append(("Data file", str(payload["source_file"])))
+    if who or when:
+        stamp = (when or "").replace("T", " ").rstrip("Z")
+        facts.append(("Attached by", f"{who or '—'}" + (f", {stamp} UTC" if stamp else "")))
+    if payload.get("reason"):
+        facts.append(("Reason", str(payload["reason"])))
+    notes = "".join(f'<div class="sk-small">{esc(n)}</div>' for n in payload.get("notes") or [])
+    return (f'<div class="sk-verdict-box sk-gauge-short-verdict" style="border-color:'
+            f'{verdict.color}"><div style="display:flex;gap:10px;align-items:center;'
+            f'flex-wrap:wrap"><span style="font-weight:600">{esc(title)}</span>{chip}</div>'
+            f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
+            '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
+            + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
+            + f"</table>{notes}</div>")
+
+
+def measurement_error_html(me: Mapping | None) -> str:
+    """Observed against process-only indices from a result's ``measurement_error`` block.
+
+    Examples
+    --------
+    >>> from studykit.stats.measurement_error import remove_gauge_variance
+    >>> me = remove_gauge_variance(gauge_sigma=0.3, gauge_df=40.0, mean=10.0, lsl=7.0,
+    ...                            usl=13.0, overall_sigma=0.5, n=100).to_dict()
+    >>> html = measurement_error_html(me)
+    >>> "Process only" in html and "2.500" in html
+    True
+    """
+    if not me:
+        return ""
+    lvl = f"{100 * float(me.get('level') or 0.95):g} %"
+    rows = []
+    for basis in ("within", "overall"):
+        b = me.get(basis)
+        if not b:
+            continue
+        spread = b.get("spread_interval") or {}
+        for k, obs in (b.get("observed") or {}).items():
+            iv = spread.get(k)
+            rows.append(
+                f"<tr><td>{esc(k[0].upper() + k[1:])}</td>"
+                f'<td class="num">{fmt(obs, 3)}</td>'
+                f'<td class="num">{fmt((b.get("process") or {}).get(k), 3)}</td>'
+                f'<td class="num">{"—" if not iv else f"{fmt(iv[0], 3)} to {fmt(iv[1], 3)}"}</td>'
+                f'<td class="num">{fmt(b.get("observed_sigma"), 5)}</td>'
+                f'<td class="num">{fmt(b.get("process_sigma"), 5)}</td>'
+                f'<td class="num">{fmt(100 * (b.get("gauge_share") or 0), 1)} %</td></tr>')
+    warn = list(me.get("warnings") or [])
+    if me.get("model_note"):
+        warn.append(me["model_note"])
+    warn_html = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
+                        f"</span>{esc(w)}</div>" for w in warn)
+    return ('<div class="sk-panel-title" style="margin-top:14px">Gauge error taken out</div>'
+            '<div class="sk-small" style="margin-bottom:4px">sigma_process² = '
+            "sigma_observed² − sigma_gauge², with the gauge sigma "
+            f"{fmt(me.get('gauge_sigma'), 5)} of the stored gauge R&amp;R "
+            f"({fmt(me.get('gauge_df'), 1)} degrees of freedom). The interval is a modified "
+            "large-sample interval (Ting et al. 1990; Burdick, Borror &amp; Montgomery 2005). "
+            "The verdict stays on the observed indices.</div>"
+            '<table class="sk-table sk-gauge-error"><thead><tr><th>Index</th><th>Observed</th>'
+            f"<th>Process only</th><th>Process only, {esc(lvl)} interval</th>"
+            "<th>Observed sigma</th><th>Process sigma</th><th>Gauge share of variance</th>"
+            f"</tr></thead><tbody>{''.join(rows)}</tbody></table>{warn_html}")
+
+
+def read_reference_upload(data: bytes, filename: str, *, value: str | None = None) -> dict:
+    """Read uploaded readings of one reference part (one reading per row).
+
+    Without ``value`` only the headers: ``{"headers": [...]}``; with it also ``"values"``.
+    Errors name the uploaded file (never a server path), the row and the column.
+
+    Examples
+    --------
+    >>> read_reference_upload(b"reading\\n5.001\\n5.002\\n", "r.csv", value="reading")
+    {'headers': ['reading'], 'values': [5.001, 5.002]}
+    """
+    name = Path(str(filename or "upload.csv")).name or "upload.csv"
+    suffix = Path(name).suffix.lower()
+    if suffix not in _UPLOAD_SUFFIXES:
+        raise DataFileError(
+            f"'{suffix or name}' files cannot be read here; upload the readings as CSV or as an "
+            "Excel workbook (.xlsx)", file=name)
+    if not data:
+        raise DataFileError("the file is empty; choose the file that holds the readings",
+                            file=name)
+    from studykit.cli.gauge import _read_frame, read_reference_readings
+
+    with tempfile.TemporaryDirectory(prefix="studykit-short-") as tmp:
+        path = Path(tmp) / ("upload" + suffix)
+        path.write_bytes(bytes(data))
+        try:
+            frame, _ = _read_frame(path, sheet=None, wanted={})
+            headers = [str(c) for c in frame.columns]
+            if value is None:
+                return {"headers": headers}
+            values = read_reference_readings(path, value=value)
+        except StudyInputError as exc:
+            raise type(exc)(exc.detail, file=name, row=exc.row, column=exc.column,
+                            value=exc.value) from None
+    return {"headers": headers, "values": values}
+
+
 # --- the step ------------------------------------------------------------------------------------
 
 
@@ -469,6 +626,9 @@ class GaugeStep:
         self._upload_data: bytes | None = None
         self._upload_name = ""
         self._preview = None  # (GaugeResult, payload extras) of the last computed study
+        self._short_data: bytes | None = None
+        self._short_name = ""
+        self._short_preview = None  # (ShortGaugeResult, payload extras, characteristic)
 
     # --- status -------------------------------------------------------------------------------
     def stored(self, name: str | None = None):
@@ -520,9 +680,236 @@ class GaugeStep:
                                      html_box('<div class="sk-panel-title">Figures</div>'),
                                      self.figures])
         self.new_study = self._build_new_study(context)
+        self.short_box = html_box("", "sk-gauge-short")
+        self.error_box = html_box("", "sk-gauge-error-box")
+        self.new_short = self._build_new_short(context)
         self.refresh(context)
-        return panel([panel_css(), ws.toolbar(), self.heading, self.verdict, self.details,
-                      self.new_study])
+        return panel([panel_css(), ws.toolbar(), self.heading, self.short_box, self.verdict,
+                      self.error_box, self.details, self.new_short, self.new_study])
+
+    def _build_new_short(self, context) -> widgets.Widget:
+        """Upload readings of one reference part, compute, preview and attach (kind
+        ``gauge_short``)."""
+        m = context.messages
+        self.short_upload = widgets.FileUpload(accept=",".join(_UPLOAD_SUFFIXES),
+                                               multiple=False, description="Choose readings",
+                                               icon="upload", layout=widgets.Layout(width="auto"))
+        self.short_upload.add_class("sk-short-upload")
+        self.short_upload.observe(guarded(lambda c: self._on_short_upload(context, c),
+                                          messages=m), names="value")
+        self.short_info = html_box("", "sk-small", "sk-short-file")
+        lay = widgets.Layout(width="130px")
+        self.short_value = widgets.Dropdown(options=[], layout=widgets.Layout(width="190px"))
+        self.short_reference = widgets.Text(placeholder="e.g. 8.0004", layout=lay)
+        self.short_lsl = widgets.Text(placeholder="LSL", layout=lay)
+        self.short_usl = widgets.Text(placeholder="USL", layout=lay)
+        self.short_k = widgets.Text(value="20", layout=widgets.Layout(width="80px"))
+        self.short_l = widgets.Text(value="6", layout=widgets.Layout(width="80px"))
+        for w, cls in ((self.short_value, "sk-short-value"),
+                       (self.short_reference, "sk-short-reference"),
+                       (self.short_lsl, "sk-short-lsl"), (self.short_usl, "sk-short-usl"),
+                       (self.short_k, "sk-short-k"), (self.short_l, "sk-short-l")):
+            w.add_class(cls)
+        self.short_compute = widgets.Button(description="Compute Cg, Cgk", icon="calculator",
+                                            button_style="primary", disabled=True)
+        self.short_compute.add_class("sk-short-compute")
+        self.short_compute.on_click(guarded(lambda _b: self._on_short_compute(), messages=m))
+        self.short_preview = html_box("", "sk-short-preview")
+        self.short_reason = widgets.Text(placeholder="why, e.g. 'gauge GR-07 on master "
+                                         "M-8.000, certificate C-114'",
+                                         layout=widgets.Layout(width="460px"))
+        self.short_reason.add_class("sk-short-reason")
+        self.short_attach = widgets.Button(description="Attach to the characteristic",
+                                           icon="paperclip", button_style="primary",
+                                           disabled=True)
+        self.short_attach.add_class("sk-short-attach")
+        self.short_attach.on_click(guarded(lambda _b: self._on_short_attach(), messages=m))
+        self.short_hint = html_box("", "sk-small")
+        for w in (self.short_reason, self.ws.who):
+            w.observe(guarded(lambda _c: self._update_short_buttons(), messages=m),
+                      names="value")
+
+        def labelled(text, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
+
+        self.short_fields = widgets.HBox(
+            [labelled("Reading column", self.short_value),
+             labelled("Reference value", self.short_reference),
+             labelled("Tolerance: LSL", self.short_lsl), labelled("USL", self.short_usl),
+             labelled("K (% of tolerance)", self.short_k), labelled("L (sigmas)", self.short_l),
+             self.short_compute],
+            layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end", display="none"))
+        self.short_attach_box = widgets.VBox(
+            [self.short_preview, labelled("Reason for attaching", self.short_reason),
+             self.short_attach, self.short_hint], layout=widgets.Layout(display="none"))
+        intro = html_box(
+            '<div class="sk-panel-title" style="margin-top:22px">Run a short gauge study</div>'
+            '<div class="sk-muted">One reference part of known value measured repeatedly by one '
+            "person at the same place (25 readings at least, 50 usual; common practice): "
+            "upload the readings, one per row. Cg and Cgk use K = 20 % of the tolerance and "
+            "L = 6 sigma unless changed (common practice, no source); the gauge is called "
+            "capable when both are at least 1.33. Nothing is stored until you attach it with "
+            "your name and a reason.</div>")
+        box = widgets.VBox([intro, widgets.HBox([self.short_upload, self.short_info],
+                                                layout=widgets.Layout(align_items="center")),
+                            self.short_fields, self.short_attach_box])
+        box.add_class("sk-short-new")
+        return box
+
+    def _reset_short(self, name: str) -> None:
+        spec = self.ws.session.study.characteristic(name)
+        self.short_lsl.value = "" if spec.lsl is None else f"{spec.lsl:g}"
+        self.short_usl.value = "" if spec.usl is None else f"{spec.usl:g}"
+        self._clear_short_preview()
+
+    def _clear_short_preview(self) -> None:
+        self._short_preview = None
+        self.short_preview.value = ""
+        self.short_attach_box.layout.display = "none"
+        self._update_short_buttons()
+
+    def _on_short_upload(self, context, change) -> None:
+        from studykit.app.steps.intake import check_upload_size
+
+        files = change["new"]
+        if not files:
+            return
+        item = files[0]
+        name = Path(str(item.get("name", "upload.csv"))).name
+        content = item.get("content", b"")
+        size = int(item.get("size") or len(content))
+        self.short_upload.value = ()
+        self._short_data, self._short_name = None, ""
+        self.short_fields.layout.display = "none"
+        self.short_info.value = ""
+        self._clear_short_preview()
+        check_upload_size(max(size, len(content)), filename=name,
+                          limit=context.max_upload_bytes)
+        data = bytes(content)
+        headers = read_reference_upload(data, name)["headers"]
+        self._short_data, self._short_name = data, name
+        self.short_value.options = headers
+        guess = [h for h in headers if set(_words(h)) & set(_ROLE_WORDS["value"])]
+        self.short_value.value = guess[0] if guess else headers[-1]
+        self.short_fields.layout.display = ""
+        self.short_compute.disabled = False
+        self.short_info.value = (f"<b>{esc(name)}</b> · columns: "
+                                 + ", ".join(esc(h) for h in headers)
+                                 + ". Give the reference value, then compute.")
+
+    def _short_number(self, label: str, w, *, required: bool = True) -> float | None:
+        from studykit.errors import SpecError
+
+        text = w.value.strip().replace(",", ".")
+        if not text:
+            if required:
+                raise SpecError(f"the {label} is empty: write it like 8.0004")
+            return None
+        try:
+            return float(text)
+        except ValueError:
+            raise SpecError(f"the {label} ({w.value!r}) is not a number: write it like "
+                            "8.0004") from None
+
+    def _on_short_compute(self) -> None:
+        from studykit.stats.gauge_type1 import short_gauge_study
+
+        if self._short_data is None:
+            raise DataFileError("upload the readings first")
+        name = self.ws.session.current
+        self._clear_short_preview()
+        reference = self._short_number("reference value", self.short_reference)
+        lsl = self._short_number("tolerance LSL", self.short_lsl)
+        usl = self._short_number("tolerance USL", self.short_usl)
+        k = self._short_number("K", self.short_k)
+        ell = self._short_number("L", self.short_l)
+        values = read_reference_upload(self._short_data, self._short_name,
+                                       value=self.short_value.value)["values"]
+        try:
+            result = short_gauge_study(values, reference=reference, lsl=lsl, usl=usl,
+                                       k_percent=k, l_sigmas=ell)
+        except StudyInputError as exc:
+            if exc.file is not None:
+                raise
+            raise type(exc)(exc.detail, file=self._short_name, column=self.short_value.value,
+                            value=exc.value) from None
+        spec = self.ws.session.study.characteristic(name)
+        extras = {"source_file": self._short_name,
+                  "limits_from": "study" if (lsl, usl) == (spec.lsl, spec.usl) else "entered",
+                  "columns": {"value": self.short_value.value}}
+        self._short_preview = (result, extras, name)
+        self.short_preview.value = (
+            '<div class="sk-panel-title">Preview (not stored yet)</div>'
+            + short_study_html({**result.to_dict(), **extras},
+                               title=f"New short gauge study for {name}"))
+        self.short_attach.description = f"Attach to {name}"
+        self.short_attach_box.layout.display = ""
+        self._update_short_buttons()
+        self.ws.context.messages.info(
+            f"Short gauge study computed from '{self._short_name}': check the preview, then "
+            f"attach it to {name} with a reason.")
+
+    def _update_short_buttons(self) -> None:
+        if self.ws is None or not hasattr(self, "short_attach"):
+            return
+        missing = []
+        if self._short_preview is None:
+            missing.append("compute the study")
+        if not self.short_reason.value.strip():
+            missing.append("give a reason")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        self.short_attach.disabled = bool(missing)
+        self.short_hint.value = ("To attach: " + ", ".join(missing) + ".") if missing else ""
+
+    def _on_short_attach(self) -> None:
+        ws = self.ws
+        s = ws.session
+        if self._short_preview is None:
+            raise StudyInputError("compute the short gauge study first, then attach it")
+        result, extras, name = self._short_preview
+        if name != s.current:
+            raise StudyInputError(
+                f"the preview was computed for '{name}', but '{s.current}' is shown now; "
+                "compute it again for this characteristic")
+        who = ws.who_name
+        reason = self.short_reason.value.strip()
+        if not who:
+            raise StudyInputError("`who` is empty: type your name in the 'Your name' field at "
+                                  "the top of the panel")
+        if not reason:
+            raise StudyInputError("`reason` is empty: say why this short gauge study belongs to "
+                                  "the characteristic, e.g. 'gauge GR-07 on master M-8.000'")
+        payload = {**result.to_dict(), **extras, "reason": reason}
+        lock = ({"override_lock": True, "override_reason": ws.override_reason}
+                if ws.override_reason else {})
+        s.file.attach_result(SHORT_KIND, name, payload, who=who, reason=reason, **lock)
+        self.short_reason.value = ""
+        self._clear_short_preview()
+        self._short_data, self._short_name = None, ""
+        self.short_fields.layout.display = "none"
+        self.short_info.value = ""
+        s.reload()
+        ws.context.messages.ok(f"Short gauge study attached to {name} ({result.status}).")
+
+    def _show_short_and_error(self, name: str, has_gauge: bool) -> None:
+        """The stored short study and the gauge-error panel of ``name`` (nothing computed)."""
+        short = self.ws.session.file.results(SHORT_KIND, name)
+        if short:
+            last = short[-1]
+            self.short_box.value = short_study_html(last.payload, who=last.who, when=last.when)
+        else:
+            self.short_box.value = (
+                '<div class="sk-small" style="margin-bottom:8px">No short gauge study (one '
+                f"reference part) is attached for {esc(name)}; it qualifies the gauge alone "
+                "before the crossed study. Run one below.</div>")
+        me = None
+        if has_gauge:
+            try:
+                me = getattr(self.ws.session.result(name), "measurement_error", None)
+            except StudyInputError:
+                me = None
+        self.error_box.value = measurement_error_html(me)
 
     def _build_new_study(self, context) -> widgets.Widget:
         m = context.messages
@@ -604,13 +991,17 @@ class GaugeStep:
         name = s.current
         stored = self.stored(name)
         latest = stored[-1] if stored else None
-        key = (name, None if latest is None else latest.id, id(s.study))
+        short = s.file.results(SHORT_KIND, name)
+        key = (name, None if latest is None else latest.id,
+               None if not short else short[-1].id, id(s.study))
         if key == self._drawn:
             return
         changed_name = self._drawn is None or self._drawn[0] != name
         self._drawn = key
         if changed_name:
             self._reset_new_study(name)
+            self._reset_short(name)
+        self._show_short_and_error(name, latest is not None)
         spec = s.study.characteristic(name)
         unit = f" ({spec.unit})" if getattr(spec, "unit", None) else ""
         self.heading.value = (f'<div class="sk-panel-title">Gauge study behind '
