@@ -340,3 +340,22 @@ def test_sigma_method_option_is_used_and_named():
     assert res.to_dict()["chart"]["sigma_method"].startswith("pooled standard deviation")
     with pytest.raises(Exception, match="sigma_method"):
         AnalysisOptions(sigma_method="median")
+
+
+def test_skewed_sample_never_meets_in_the_all_summary(tmp_path, capsys):
+    specs = tmp_path / "specs.csv"
+    specs.write_text(f"characteristic,unit,usl,criterion,threshold\nradiation,mW/cm2,{USL},ppk,"
+                     f"{THRESHOLD}\n")
+    for extra in ([], ["--model", "normal"]):
+        capsys.readouterr()
+        assert main(["analyze", str(MICROWAVE), "--all", "--specs", str(specs), "--json",
+                     *extra]) == 0
+        rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines() if ln.strip()]
+        (row,) = [r for r in rows if r["characteristic"] == "radiation"]
+        # the full-data fits fail 1.33 (see above): the summary says "does not meet" or
+        # withholds the verdict with its reason, never "meets"
+        assert row["meets"] is not True
+        if row["meets"] is None:
+            assert row["withheld"] or row["verdict"].startswith("Not judged")
+    # with the normal model the trimmed sample's verdict is withheld, and the row says why
+    assert row["meets"] is None and row["withheld"] == "heavy_auto_removal"
