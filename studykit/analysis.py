@@ -350,6 +350,55 @@ class CharacteristicResult:
         return self.phase1.chart
 
     @property
+    def chart_scale(self) -> str:
+        """``"raw"``, ``"transformed"`` (Box-Cox/Johnson) or ``"normal_score"`` (fitted model):
+        the scale of the phase-I chart."""
+        scale = self.phase1.scale
+        return "raw" if scale is None else scale.name
+
+    @property
+    def probability_limits(self) -> dict | None:
+        """For a chart of normal scores: its limits in measured units, the fitted model's
+        0.135 %, 50 % and 99.865 % points (``lcl``, ``center``, ``ucl``, ``model``), else None."""
+        scale = self.phase1.scale
+        fitted = getattr(getattr(scale, "model", None), "fitted", None)
+        if scale is None or scale.name != "normal_score" or fitted is None:
+            return None
+        q = fitted.ppf(np.array([0.00135, 0.5, 0.99865]))
+        return {"lcl": _f(q[0]), "center": _f(q[1]), "ucl": _f(q[2]), "model": scale.model.name}
+
+    @property
+    def chart_scale_axis(self) -> str | None:
+        """A short axis label for a chart on the model's scale (e.g. "normal score, Weibull"),
+        else None."""
+        scale = self.phase1.scale
+        if scale is None or scale.name == "raw":
+            return None
+        label = getattr(scale.model, "label", "model")
+        return (f"normal score, {label}" if scale.name == "normal_score"
+                else f"{label.split(' ')[0]} scale")
+
+    @property
+    def chart_scale_text(self) -> str | None:
+        """What the chart plots when it is not the raw values (for axis labels), else None."""
+        scale = self.phase1.scale
+        return None if scale is None or scale.name == "raw" else scale.label
+
+    def to_chart_scale(self, values) -> np.ndarray:
+        """Raw values mapped onto the phase-I chart's scale (to draw removed subgroups where
+        they belong); the identity when the chart plots the raw values."""
+        v = np.asarray(values, dtype=float)
+        scale = self.phase1.scale
+        if scale is None or scale.name == "raw":
+            return v
+        choice = scale.model
+        if scale.name == "transformed" and getattr(choice, "transform", None) is not None:
+            return np.asarray(choice.transform.transform(v), dtype=float)
+        if scale.name == "normal_score" and getattr(choice, "fitted", None) is not None:
+            return _normal_scores(choice.fitted, v)
+        return v
+
+    @property
     def withheld_codes(self) -> tuple:
         """Codes of the findings that withhold the verdict (heavy automatic removal, too few
         values left by it, data not in production order); empty when none does."""
@@ -420,13 +469,8 @@ class CharacteristicResult:
         if scale is not None and scale.name != "raw":
             chart_d["scale"] = scale.name
             chart_d["scale_text"] = scale.label
-            fitted = getattr(scale.model, "fitted", None)
-            if scale.name == "normal_score" and fitted is not None:
-                q = fitted.ppf(np.array([0.00135, 0.5, 0.99865]))
-                chart_d["probability_limits"] = {
-                    "lcl": _f(q[0]), "center": _f(q[1]), "ucl": _f(q[2]),
-                    "model": scale.model.name,
-                }
+            if self.probability_limits is not None:
+                chart_d["probability_limits"] = self.probability_limits
         if self.attribute:
             nominal = self.subgroup_size
             loc = chart.location

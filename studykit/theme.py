@@ -181,6 +181,8 @@ VERDICTS: dict[str, Verdict] = {
                     "#B14E00"),
     "caution": Verdict("caution", "Read with care", ORANGE_LINE, "#FDF3D8", "!", "#956700"),
     "pending": Verdict("pending", "Not yet assessed", INK_SOFT, PANEL, "…", INK_SOFT),
+    # a verdict computed but withheld (signals left, trimming, order): the text says why
+    "withheld": Verdict("withheld", "Not judged", INK_SOFT, PANEL, "?", INK_SOFT),
 }
 
 

@@ -184,7 +184,8 @@ def test_jsonl_csv_xlsx(local, tmp_path):
     ws = load_workbook(tmp_path / "o.xlsx").active
     table = list(ws.iter_rows(values_only=True))
     assert table[0] == BATCH_COLUMNS
-    assert table[1][0] == "bore" and table[1][4] == pytest.approx(local.rows[0]["estimate"])
+    est = BATCH_COLUMNS.index("estimate")
+    assert table[1][0] == "bore" and table[1][est] == pytest.approx(local.rows[0]["estimate"])
     assert "'=cmd" in [r[0] for r in table]
     assert all(not (isinstance(c, str) and c.startswith("=")) for r in table for c in r)
 

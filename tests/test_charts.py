@@ -286,8 +286,11 @@ def test_errors_name_the_problem():
         charts.p_chart([3, 60], [50, 50])
     with pytest.raises(StudyInputError, match="whole numbers of 0 or more"):
         charts.c_chart([3, -1])
-    with pytest.raises(AnalysisError, match="no nonconforming"):
-        charts.p_chart([0, 0, 0], [10, 10, 10])
+    # no nonconforming item anywhere: no error (issue 11) but a chart that is its centre line at
+    # 0 (p-bar = 0 / 30, binomial sigma 0), nothing evaluated, and a note that says so
+    zero = charts.p_chart([0, 0, 0], [10, 10, 10])
+    assert list(zero.location.center) == [0.0] * 3 and list(zero.location.ucl) == [0.0] * 3
+    assert zero.signals == () and any("no nonconforming" in w for w in zero.warnings)
     with pytest.raises(StudyInputError, match=r"`sigma` \(-1.0\) must be a positive"):
         charts.control_chart([1.0, 2.0, 3.0], sigma=-1)
     with pytest.raises(StudyInputError, match="needs `sizes`"):

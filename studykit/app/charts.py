@@ -267,6 +267,8 @@ class ControlChartView:
         step = max(1, int(math.ceil(n / 30)))
         ticks = list(range(1, n + 1, step))
         unit_text = f" ({unit})" if unit else ""
+        if getattr(result, "chart_scale_text", None):  # phase I on the model's scale
+            unit_text = f" ({result.chart_scale_axis})"
         for part in ("location", "dispersion"):
             fig = self.figures[part]
             c = cols.get(part)

@@ -311,7 +311,8 @@ class StudySession:
         name = name or self.current
         res = self.result(name)
         chart = res.chart
-        key = (name, chart.kind, self.study.characteristic(name).subgroup_size)
+        key = (name, chart.kind, self.study.characteristic(name).subgroup_size,
+               res.chart_scale, repr(getattr(res.model, "parameters", None)))
         if key not in self._full_charts:
             data = self.data(name)
             values = np.asarray(data.values, dtype=float)
@@ -327,6 +328,7 @@ class StudySession:
             if spec.subgroup_size and len(set(labels.tolist())) == labels.size:
                 labels = np.array([str(i // int(spec.subgroup_size) + 1)
                                    for i in range(labels.size)])
+            values = res.to_chart_scale(values)  # a chart on the model's scale (phase I)
             try:
                 self._full_charts[key] = control_chart(values, labels, kind=chart.kind,
                                                        sizes=sizes, evaluate=False)

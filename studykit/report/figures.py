@@ -189,6 +189,7 @@ def _removed_points(result, raw, kind):
             v = vals[(subs == lab) & np.isfinite(vals)]
             if v.size == 0:
                 continue
+            v = result.to_chart_scale(v)  # a chart on the model's scale (phase I)
             loc[lab] = float(v.mean()) if kind != "imr" else float(v[0])
             if kind == "xbar_r" and v.size > 1:
                 disp[lab] = float(v.max() - v.min())
@@ -227,6 +228,8 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
         _margins(fig, right=1.0, top=0.3, bottom=0.75, hspace=0.55)
         unit = f" [{result.unit}]" if result.unit else ""
+        if getattr(result, "chart_scale_text", None):  # phase I on the model's scale
+            unit = f"\n({result.chart_scale_axis})"
         rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
         ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
         _series_panel(axes[0], chart.location, x, rx, ry,

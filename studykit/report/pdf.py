@@ -326,8 +326,10 @@ def _index_name(key: str) -> str:
 
 
 def _verdict_key(res) -> str:
-    if res is None or res.verdict is None or res.verdict.meets is None:
+    if res is None or res.verdict is None:
         return "pending"
+    if res.verdict.meets is None:
+        return "withheld"  # computed, then withheld: the verdict text says why
     return "pass" if res.verdict.meets else "fail"
 
 
@@ -626,9 +628,11 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         key = _verdict_key(res)
         v = theme.VERDICTS[key]
         label = v.label
-        if res.attribute:
+        if res.attribute and res.verdict is None:
             crit = "rate with upper bound (counted data)"
             label = "Rate reported"
+        elif res.attribute:  # p/np: judged as process Z / 3 from the bound on the rate
+            crit = f"{crit}, as Z/3 of the rate bound"
         est = lb = "–"
         if res.verdict is not None:
             est, lb = _idx(res.verdict.estimate), _idx(res.verdict.lower_bound)
@@ -738,26 +742,38 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
          f"{chart.kind.replace('_', '-')} ({_esc(chart.reason)})"],
     ]
     if not res.attribute:
+        sigma_text = (res.phase1.raw_chart or chart).sigma_method_text  # raw values' sigma
         facts.append(["Within sigma", _num(res.within_sigma, 4)
-                      + (f" ({_esc(chart.sigma_method_text)})" if chart.sigma_method_text
-                         else ""),
+                      + (f" ({_esc(sigma_text)})" if sigma_text else ""),
                       "Overall sigma", _num(res.overall_sigma, 4) + " (sample, n - 1)"])
     else:
-        facts[0][3] = "not judged by an index (counted data; see the defective rate below)"
+        facts[0][3] = ("read as process Z / 3 from the exact upper bound on the defective rate "
+                       f"({_esc(study.criteria_for(name).describe())})"
+                       if chart.kind in ("p", "np") else
+                       "not judged by an index (counted data; see the defects per unit below)")
     q = width / 4
     story.append(_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
                         zebra=False, styles=st))
     # stability
     story.append(Paragraph("Stability (phase I)", st["h2"]))
     story.append(_image(figures.control_chart_figure(res, raw=raw), width))
+    if res.chart_scale_text:  # phase I judged on the model's scale
+        scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
+        pl = res.probability_limits
+        if pl is not None:
+            scale_note += (f" In measured units the limits are LCL {_num(pl['lcl'], 5)}, "
+                           f"centre {_num(pl['center'], 5)}, UCL {_num(pl['ucl'], 5)}.")
+        story.append(Paragraph(_esc(scale_note), st["body"]))
     signals = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
             continue
         for sig in s.signals:
-            labels = [str(chart.labels[int(p)]) if part == "location" or chart.kind != "imr"
-                      else str(chart.labels[min(int(p) + 1, len(chart.labels) - 1)])
-                      for p in sig.points]
+            pos = [int(p) for p in sig.points]
+            if part == "dispersion" and chart.kind == "imr":
+                # a moving range at reading p is |x_p - x_(p-1)|: it points at both readings
+                pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
+            labels = [str(chart.labels[p]) for p in pos]
             signals.append(f"{part} chart, test {sig.number}: {_esc(sig.text)} "
                            f"(subgroup(s) {_esc(', '.join(labels[:12]))}"
                            f"{'...' if len(labels) > 12 else ''})")
@@ -767,8 +783,13 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         for s in signals[:20]:
             story.append(Paragraph(s, st["bullet"], bulletText="•"))
     else:
-        story.append(Paragraph(f"No run-rule signal on the final limits "
-                               f"({_esc(chart.location.rules)} rules).", st["body"]))
+        if res.order is not None and res.order.flagged:
+            story.append(Paragraph("Run rules not applied: the values are not in production "
+                                   "order, so stability could not be judged from them (see the "
+                                   "findings).", st["body"]))
+        else:
+            story.append(Paragraph(f"No run-rule signal on the final limits "
+                                   f"({_esc(chart.location.rules)} rules).", st["body"]))
     if res.phase1.removals:
         story.append(Spacer(1, 4))
         rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]

@@ -14,6 +14,11 @@ What the loop guarantees, and what it does not:
   trial limits; the number of signals is *not* monotone. The round limit (default 10) stops
   runaway trimming, and heavy removal is reported.
 
+On a model's scale: with ``rescale`` the chart of every round is drawn on the scale the function
+returns for the values still kept (the analysis refits its distribution model each round and
+returns transformed values or normal scores with known standard 0 and 1, i.e. probability
+limits), so the model and the removals are decided together.
+
 Choices (common practice, no source): all signalling subgroups of a round are removed together;
 for a rule about a pattern (run, trend...) every point that completed it is removed; on the
 individuals chart, a moving-range signal at position i removes value i (the later of the pair)

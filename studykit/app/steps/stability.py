@@ -170,7 +170,8 @@ class StabilityStep:
         facts = [("Chart", f"{chart.kind.replace('_', '-')} ({chart.reason})"),
                  ("Subgroups used", f"{chart.n_subgroups} of {len(labels)}"
                                     + (f", {removed} removed" if removed else "")),
-                 ("Within sigma", f"{fmt(res.within_sigma, 5)} ({chart.sigma_method_text})"
+                 ("Within sigma", f"{fmt(res.within_sigma, 5)} "
+                  f"({(res.phase1.raw_chart or chart).sigma_method_text})"
                   if res.within_sigma is not None else _NONE),
                  ("Rule signals", f"{signals} on the current limits" if signals
                   else "none on the current limits")]
