@@ -701,7 +701,6 @@ class StudyFile:
         try:
             try:
                 conn.execute("BEGIN IMMEDIATE")
-                _chain_begin(conn)
             except sqlite3.OperationalError as exc:
                 why = self._not_writable()
                 if why is not None:
@@ -715,12 +714,16 @@ class StudyFile:
                     "that you may write to it"
                 ) from None
             try:
+                _chain_begin(conn)
                 yield conn
                 _chain_finish(conn)
                 conn.execute("COMMIT")
             except sqlite3.DatabaseError as exc:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
+                if any(w in str(exc) for w in ("malformed", "not a database", "corrupt")):
+                    raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") \
+                        from None
                 why = self._not_writable()
                 if why is not None:
                     raise StudyFileError(
@@ -1133,7 +1136,7 @@ class StudyFile:
             args.append(characteristic)
         with self._read() as conn:
             rows = conn.execute(sql + " ORDER BY id", args).fetchall()
-        return [StoredResult(i, k, c, json.loads(p), w, a) for i, k, c, p, w, a in rows]
+            return [StoredResult(i, k, c, json.loads(p), w, a) for i, k, c, p, w, a in rows]
 
     def audit_log(self) -> list[AuditEntry]:
         """Every audit entry, oldest first."""
@@ -1141,7 +1144,8 @@ class StudyFile:
             rows = conn.execute(
                 "SELECT id, at, who, what, why, detail_json FROM audit_log ORDER BY id"
             ).fetchall()
-        return [AuditEntry(i, at, who, what, why, json.loads(d)) for i, at, who, what, why, d in rows]
+            return [AuditEntry(i, at, who, what, why, json.loads(d))
+                    for i, at, who, what, why, d in rows]
 
     def check_chain(self) -> ChainCheck:
         """Recompute the audit chain (see :func:`check_chain`); never raises on a break, the
