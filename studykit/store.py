@@ -192,6 +192,8 @@ def _canonical_json(obj) -> str:
 
 
 def _encode_value(v):
+    if isinstance(v, _KnownBlob):
+        return {"blob_sha256": v.sha256, "bytes": v.length}
     if isinstance(v, bytes | bytearray | memoryview):
         b = bytes(v)
         return {"blob_sha256": hashlib.sha256(b).hexdigest(), "bytes": len(b)}
@@ -358,7 +360,42 @@ def _describe_row(table: str, row: Mapping) -> str:
     return ", ".join(bits[:4])
 
 
-def check_chain(conn) -> ChainCheck:
+def _rows_with_known_blobs(conn, table: str, known: Mapping):
+    """Rows of ``table`` like ``_table_rows(after=0)``, but BLOB columns whose hash is already
+    known (``known[key][column] = (sha256, length)``, checked against the bytes in the same
+    read) are not read again."""
+    info = list(conn.execute(f'PRAGMA table_info("{table}")'))
+    blobs = [r[1] for r in info if str(r[2]).upper() == "BLOB"]
+    keys = _key_columns(conn, table)
+    if not blobs or len(keys) != 1:
+        yield from _table_rows(conn, table, after=0)
+        return
+    plain = [r[1] for r in info if r[1] not in blobs]
+    cols = ", ".join(f'"{c}"' for c in plain)
+    for values in conn.execute(f'SELECT _rowid_, {cols} FROM "{table}" ORDER BY _rowid_'):
+        row = dict(zip(plain, values[1:], strict=True))
+        row["_sk_rowid_"] = values[0]
+        have = known.get(row[keys[0]])
+        if have is None or any(b not in have for b in blobs):
+            full = conn.execute(f'SELECT {", ".join(chr(34) + b + chr(34) for b in blobs)} '
+                                f'FROM "{table}" WHERE _rowid_ = ?', (values[0],)).fetchone()
+            row.update(zip(blobs, full, strict=True))
+        else:
+            for b in blobs:
+                row[b] = _KnownBlob(*have[b])
+        yield row
+
+
+class _KnownBlob:
+    """A BLOB whose SHA-256 and length were computed from its bytes in the same read."""
+
+    __slots__ = ("sha256", "length")
+
+    def __init__(self, sha256: str, length: int):
+        self.sha256, self.length = sha256, int(length)
+
+
+def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
     """Recompute the audit chain of an open study file connection; see :class:`ChainCheck`.
 
     Checks, in order: every entry's ``prev_hash`` is the hash of the entry before it (the first
@@ -408,7 +445,10 @@ def check_chain(conn) -> ChainCheck:
     signoffs = []
     for t in _chained_tables(conn):
         keys = _key_columns(conn, t)
-        for row in _table_rows(conn, t, after=0):
+        known = (known_blobs or {}).get(t)
+        rows = _rows_with_known_blobs(conn, t, known) if known else \
+            _table_rows(conn, t, after=0)
+        for row in rows:
             rowid = row.pop("_sk_rowid_")
             n_rows += 1
             key = _row_key(keys, row, rowid)
@@ -852,10 +892,22 @@ class StudyFile:
     def load(self) -> Study:
         """The study as it stands: first specifications with every decision replayed.
 
-        Raises :class:`StudyFileError` when the stored data copy does not match its SHA-256.
+        Raises :class:`StudyFileError` when the stored data copy does not match its SHA-256,
+        or when the audit chain is broken (the file was altered outside studykit; the message
+        names the first break, :meth:`check_chain` lists them all).
         """
         with self._read() as conn:
-            return self._load(conn)
+            study = self._load(conn)
+            # the data copies were just hashed and matched their sha256 column: the chain
+            # check uses those hashes instead of reading the copies again
+            known = {i: {"content": (sha, n)} for i, sha, n in conn.execute(
+                "SELECT id, sha256, length(content) FROM data_files")}
+            chain = check_chain(conn, known_blobs={"data_files": known})
+        if not chain.ok:
+            raise StudyFileError(f"study file '{self.path}' was altered outside studykit: "
+                                 f"{chain.summary()}; `studykit study log` lists every break. "
+                                 "Restore the study file from a backup")
+        return study
 
     def _load(self, conn) -> Study:
         meta = dict(conn.execute("SELECT key, value FROM meta"))

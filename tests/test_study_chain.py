@@ -70,8 +70,10 @@ def test_forged_signoff_row(tmp_path, capsys):
     _raw(path, "INSERT INTO signoffs (name, role, decision, comment, at, digest) VALUES "
          "('M. Mallory', 'approved', 'approve', '', '2026-03-05T10:00:00Z', ?)",
          params=(study.content_digest(),))
-    # the forged row carries the current digest: the model alone would call it a valid approval
-    assert StudyFile(path).load().is_locked
+    # the forged row carries the current digest: replayed alone it would be a valid approval;
+    # loading the study (workbook, analyze, report) refuses the file instead
+    with pytest.raises(StudyFileError, match="signoffs row 2"):
+        StudyFile(path).load()
     chain = StudyFile(path).check_chain()
     assert not chain.ok
     assert "signoffs row 2" in chain.problems[0][1] and "inserted outside" in chain.problems[0][1]
