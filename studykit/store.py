@@ -53,6 +53,7 @@ __all__ = [
     "APPLICATION_ID",
     "CHAIN_GENESIS",
     "ChainCheck",
+    "SignoffSignature",
     "MIGRATIONS",
     "SCHEMA_VERSION",
     "AuditEntry",
@@ -395,6 +396,135 @@ class _KnownBlob:
         self.sha256, self.length = sha256, int(length)
 
 
+_SIGNOFF_SIGNATURE_FORMAT = "studykit-signoff-signature-1"
+
+
+def _signoff_payload(row: Mapping) -> bytes:
+    """What a sign-off's certificate signature covers: the sign-off as written (who, role,
+    decision, comment, time, content digest) and the chain head it signed."""
+    body = {k: row.get(k) for k in ("name", "role", "decision", "comment", "at", "digest",
+                                    "chain_head")}
+    return _canonical_json({"format": _SIGNOFF_SIGNATURE_FORMAT, "signoff": body}).encode()
+
+
+def sign_signoff_payload(payload: bytes, p12_path, passphrase) -> dict:
+    """Sign ``payload`` with the key of a PKCS#12 file; returns the JSON-safe signature record
+    (certificate PEM, its SHA-256 fingerprint, algorithm, value in base64). A certificate not
+    valid now is refused."""
+    import base64
+    import datetime as dt
+
+    from cryptography.hazmat.primitives import hashes, serialization
+    from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
+    from cryptography.hazmat.primitives.serialization import pkcs12
+
+    p12 = Path(p12_path)
+    if not p12.is_file():
+        raise StudyInputError(f"`--p12` '{p12}' does not exist: give the signer's .p12 file")
+    pw = passphrase.encode("utf-8") if isinstance(passphrase, str) else passphrase
+    try:
+        key, cert, _ = pkcs12.load_key_and_certificates(p12.read_bytes(), pw)
+    except (ValueError, TypeError) as exc:
+        raise StudyInputError(f"cannot open '{p12.name}': {exc} (wrong passphrase?)") from None
+    if key is None or cert is None:
+        raise StudyInputError(f"'{p12.name}' holds no key and certificate")
+    now = dt.datetime.now(dt.UTC)
+    if not cert.not_valid_before_utc <= now <= cert.not_valid_after_utc:
+        raise StudyInputError(
+            f"the certificate in '{p12.name}' is not valid now (valid "
+            f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ} to "
+            f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}): a sign-off signed with it would "
+            "not be evidence")
+    if isinstance(key, rsa.RSAPrivateKey):
+        value, alg = key.sign(payload, padding.PKCS1v15(), hashes.SHA256()), "rsa-pkcs1v15-sha256"
+    elif isinstance(key, ec.EllipticCurvePrivateKey):
+        value, alg = key.sign(payload, ec.ECDSA(hashes.SHA256())), "ecdsa-sha256"
+    else:
+        raise StudyInputError(f"'{p12.name}' holds a {type(key).__name__}: studykit signs "
+                              "sign-offs with RSA or EC keys")
+    return {"format": _SIGNOFF_SIGNATURE_FORMAT, "algorithm": alg,
+            "certificate_pem": cert.public_bytes(serialization.Encoding.PEM).decode("ascii"),
+            "fingerprint_sha256": cert.fingerprint(hashes.SHA256()).hex(),
+            "value": base64.b64encode(value).decode("ascii")}
+
+
+@dataclass(frozen=True)
+class SignoffSignature:
+    """The certificate signature of one sign-off (:meth:`StudyFile.signoff_signatures`).
+
+    Fields: ``index`` (of the sign-off), ``status`` (``valid``, ``INVALID`` or ``none``),
+    ``subject``, ``fingerprint_sha256`` (colon-separated hex), ``not_before``, ``not_after``,
+    ``why`` (what is wrong when INVALID). A valid signature says the holder of that
+    certificate's key signed exactly this sign-off and chain head; whether the certificate is
+    the person's is for the reader to check (compare the fingerprint).
+    """
+
+    index: int
+    status: str
+    subject: str = ""
+    fingerprint_sha256: str = ""
+    not_before: str = ""
+    not_after: str = ""
+    why: str = ""
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def _check_signoff_signature(index: int, row: Mapping, record) -> SignoffSignature:
+    import base64
+
+    from cryptography import x509
+    from cryptography.exceptions import InvalidSignature
+    from cryptography.hazmat.primitives import hashes
+    from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
+
+    if not record:
+        return SignoffSignature(index, "none")
+    try:
+        cert = x509.load_pem_x509_certificate(str(record["certificate_pem"]).encode("ascii"))
+        fp = cert.fingerprint(hashes.SHA256()).hex().upper()
+        info = dict(subject=cert.subject.rfc4514_string(),
+                    fingerprint_sha256=":".join(fp[i:i + 2] for i in range(0, len(fp), 2)),
+                    not_before=f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ}",
+                    not_after=f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}")
+        value = base64.b64decode(str(record["value"]), validate=True)
+        pub = cert.public_key()
+        payload = _signoff_payload(row)
+        if isinstance(pub, rsa.RSAPublicKey):
+            pub.verify(value, payload, padding.PKCS1v15(), hashes.SHA256())
+        elif isinstance(pub, ec.EllipticCurvePublicKey):
+            pub.verify(value, payload, ec.ECDSA(hashes.SHA256()))
+        else:
+            return SignoffSignature(index, "INVALID", **info, why="unsupported key type")
+    except InvalidSignature:
+        return SignoffSignature(index, "INVALID", **info, why="the sign-off or its chain head "
+                                "differs from what the certificate's key signed")
+    except (KeyError, TypeError, ValueError) as exc:
+        return SignoffSignature(index, "INVALID", why=f"unreadable signature ({exc})")
+    when = str(row.get("at") or "")
+    if when and not info["not_before"] <= when <= info["not_after"]:
+        return SignoffSignature(index, "INVALID", **info, why=f"the certificate was not valid "
+                                f"at the sign-off's time {when}")
+    return SignoffSignature(index, "valid", **info)
+
+
+def signoff_signatures(conn) -> list[SignoffSignature]:
+    """Check the certificate signature (if any) of every sign-off, in order."""
+    records = {}
+    for (detail,) in conn.execute("SELECT detail_json FROM audit_log ORDER BY id"):
+        try:
+            d = json.loads(detail or "{}")
+        except ValueError:
+            continue
+        if isinstance(d, dict) and d.get("signoff_id") is not None and d.get("signature"):
+            records[d["signoff_id"]] = d["signature"]
+    out = []
+    for i, row in enumerate(_table_rows(conn, "signoffs", order="id")):
+        out.append(_check_signoff_signature(i, row, records.get(row.get("id"))))
+    return out
+
+
 def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
     """Recompute the audit chain of an open study file connection; see :class:`ChainCheck`.
 
@@ -476,6 +606,12 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
             problems.append((None, f"sign-off row {row.get('id')} by {row.get('name')} signed "
                              f"chain head {str(head)[:24]}..., which is not an entry of this "
                              "chain: the history before it was rewritten"))
+    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
+        for sig in signoff_signatures(conn):
+            if sig.status == "INVALID":
+                problems.append((None, f"the certificate signature of sign-off #{sig.index + 1} "
+                                 f"({sig.subject or 'unknown certificate'}) does not hold: "
+                                 f"{sig.why}"))
     triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = "
                                            "'trigger'")}
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
@@ -995,7 +1131,7 @@ class StudyFile:
                     detail={"comment_id": cur.lastrowid, "text": c.text})
         return cur.lastrowid
 
-    def _insert_signoff(self, conn, s: SignOff, index: int) -> int:
+    def _insert_signoff(self, conn, s: SignOff, index: int, signer=None) -> int:
         """Insert a sign-off carrying the chain head it signs; refused on a broken chain (a
         signature on a file altered behind studykit would vouch for the alteration)."""
         chain = check_chain(conn)
@@ -1006,9 +1142,15 @@ class StudyFile:
             "VALUES (?, ?, ?, ?, ?, ?, ?)",
             (s.name, s.role, s.decision, s.comment, s.when, s.digest, chain.head),
         )
-        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}", why=s.comment,
-                    detail={"signoff_index": index, "signoff_id": cur.lastrowid,
-                            "digest": s.digest, "chain_head": chain.head})
+        detail = {"signoff_index": index, "signoff_id": cur.lastrowid, "digest": s.digest,
+                  "chain_head": chain.head}
+        if signer is not None:
+            row = {"name": s.name, "role": s.role, "decision": s.decision, "comment": s.comment,
+                   "at": s.when, "digest": s.digest, "chain_head": chain.head}
+            detail["signature"] = sign_signoff_payload(_signoff_payload(row), *signer)
+        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}"
+                    + (" (certificate signature)" if signer is not None else ""),
+                    why=s.comment, detail=detail)
         return cur.lastrowid
 
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
@@ -1132,13 +1274,20 @@ class StudyFile:
             return self._insert_comment(conn, c)
 
     def add_signoff(self, name: str, *, role: str, decision: str, comment: str = "",
-                    when: str = "") -> SignOff:
-        """Sign the study as it stands now; returns the SignOff with the content digest."""
+                    when: str = "", certificate: tuple | None = None) -> SignOff:
+        """Sign the study as it stands now; returns the SignOff with the content digest and the
+        chain head it signed.
+
+        ``certificate=(p12_path, passphrase)`` adds a signature with that certificate's key
+        over the sign-off and its chain head (kept in its audit entry; the passphrase is never
+        stored); :meth:`signoff_signatures` checks it, and the chain check reports one that no
+        longer holds.
+        """
         with self._write() as conn:
             study = self._load(conn)
             s = study.sign(name, role=role, decision=decision, comment=comment,
                            when=when).signoffs[-1]
-            self._insert_signoff(conn, s, len(study.signoffs))
+            self._insert_signoff(conn, s, len(study.signoffs), signer=certificate)
             return self._load(conn).signoffs[-1]
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
@@ -1204,6 +1353,11 @@ class StudyFile:
         problems are in the result."""
         with self._read() as conn:
             return check_chain(conn)
+
+    def signoff_signatures(self) -> list[SignoffSignature]:
+        """The certificate signature of each sign-off: valid, INVALID (and why) or none."""
+        with self._read() as conn:
+            return signoff_signatures(conn)
 
     def chain_entry_hash(self, entry_id: int) -> str | None:
         """The stored ``entry_hash`` of audit entry ``entry_id`` (None when there is none)."""

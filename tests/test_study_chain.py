@@ -282,3 +282,84 @@ def test_chain_hash_is_sha256_of_canonical_row():
                                         "bytes": 3}, "id": 1, "name": "A"}},
                       sort_keys=True, separators=(",", ":"))
     assert _row_hash("t", row) == hashlib.sha256(text.encode()).hexdigest()
+
+
+# -- certificate signatures on sign-offs --------------------------------------------------------
+
+
+def _reseal(path: Path) -> None:
+    """What a forger with the source code can do: recompute every row hash and the whole chain
+    after editing rows."""
+    from studykit.store import _entry_hash, _key_columns, _row_hash, _table_rows
+
+    conn = sqlite3.connect(path)
+    conn.execute("DROP TRIGGER audit_log_no_update")
+    rows = {}
+    for (t,) in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT "
+                             "LIKE 'sqlite_%' AND name != 'audit_log'").fetchall():
+        keys = _key_columns(conn, t)
+        for r in _table_rows(conn, t, after=0):
+            r.pop("_sk_rowid_")
+            rows[(t, json.dumps(r[keys[0]]))] = _row_hash(t, r)
+    cur = conn.execute("SELECT * FROM audit_log ORDER BY id")
+    names = [d[0] for d in cur.description]
+    prev = CHAIN_GENESIS
+    for entry in [dict(zip(names, r, strict=True)) for r in cur.fetchall()]:
+        refs = json.loads(entry["rows_json"])
+        for ref in refs:
+            ref["sha256"] = rows[(ref["table"], json.dumps(ref["key"]))]
+        entry["rows_json"] = json.dumps(refs, sort_keys=True, separators=(",", ":"))
+        entry["prev_hash"] = prev
+        h = _entry_hash(entry)
+        conn.execute("UPDATE audit_log SET rows_json = ?, prev_hash = ?, entry_hash = ? "
+                     "WHERE id = ?", (entry["rows_json"], prev, h, entry["id"]))
+        prev = h
+    conn.execute("CREATE TRIGGER audit_log_no_update BEFORE UPDATE ON audit_log BEGIN SELECT "
+                 "RAISE(ABORT, 'x'); END")
+    conn.commit()
+    conn.close()
+
+
+def test_signoff_with_a_certificate_signature(tmp_path, capsys, monkeypatch):
+    import datetime as dt
+
+    from studykit.report.signing import make_demo_certificate
+
+    pw = "test-only-passphrase"  # made at test time
+    path = _study(tmp_path)
+    cert = make_demo_certificate(tmp_path / "k", name="Q. Lead", passphrase=pw)
+    monkeypatch.setenv("SK_CHAIN_PW", pw)
+    assert main(["study", "sign", str(path), "--role", "approved", "--decision", "approve",
+                 "--who", "Q. Lead", "--p12", cert.p12_path, "--passphrase-env",
+                 "SK_CHAIN_PW"]) == 0
+    out = capsys.readouterr().out
+    fp = cert.fingerprint_sha256.upper()
+    colon = ":".join(fp[i:i + 2] for i in range(0, len(fp), 2))
+    assert "certificate signature: valid" in out and colon in out
+    sigs = StudyFile(path).signoff_signatures()
+    assert [s.status for s in sigs] == ["none", "valid"]
+    assert main(["study", "show", str(path)]) == 0
+    assert f"certificate signature valid: {sigs[1].subject}" in capsys.readouterr().out
+    # a forger edits the signed sign-off and recomputes every hash: the chain holds again,
+    # but the certificate signature does not
+    _raw(path, "DROP TRIGGER signoffs_no_update",
+         "UPDATE signoffs SET comment = 'approved with waiver' WHERE id = 2",
+         "CREATE TRIGGER signoffs_no_update BEFORE UPDATE ON signoffs BEGIN SELECT "
+         "RAISE(ABORT, 'x'); END")
+    _reseal(path)
+    problems = [p for _, p in StudyFile(path).check_chain().problems]
+    assert len(problems) == 1 and "certificate signature of sign-off #2" in problems[0]
+    assert StudyFile(path).signoff_signatures()[1].status == "INVALID"
+    assert main(["study", "show", str(path)]) == 2
+    capsys.readouterr()
+    # an expired certificate is refused, nothing is written
+    path2 = _study(tmp_path / "b" if (tmp_path / "b").mkdir() is None else tmp_path)
+    old = make_demo_certificate(tmp_path / "old", name="Q. Lead", passphrase=pw, days=10,
+                                when=dt.datetime.now(dt.UTC) - dt.timedelta(days=100))
+    n = len(StudyFile(path2).audit_log())
+    assert main(["study", "sign", str(path2), "--role", "approved", "--decision", "approve",
+                 "--who", "Q. Lead", "--p12", old.p12_path, "--passphrase-env",
+                 "SK_CHAIN_PW"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "not valid now" in err[0]
+    assert len(StudyFile(path2).audit_log()) == n
