@@ -752,8 +752,15 @@ class StudyFile:
                                 detail={"studykit": __version__})
                     _chain_finish(conn)
                     conn.execute("COMMIT")
+                except StudyInputError:
+                    _rollback(conn)
+                    raise
+                except _DAMAGE as exc:
+                    _rollback(conn)
+                    raise StudyFileError(_damaged(self.path, exc) + "; it was not migrated") \
+                        from None
                 except BaseException:
-                    conn.execute("ROLLBACK")
+                    _rollback(conn)
                     raise
         finally:
             conn.close()
@@ -1385,6 +1392,14 @@ class StudyFile:
 #: errors a damaged study file can raise while it is read (turned into StudyFileError)
 _DAMAGE = (sqlite3.DatabaseError, UnicodeDecodeError, ValueError, TypeError, KeyError,
            IndexError, OverflowError, AttributeError)
+
+
+def _rollback(conn) -> None:
+    try:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+    except sqlite3.DatabaseError:  # a damaged file may refuse even that; nothing was committed
+        pass
 
 
 def _damaged(path, exc) -> str:

@@ -249,6 +249,12 @@ def test_corrupted_files_give_one_line_and_exit_2(tmp_path, capsys):
     # a seeded corpus of damaged copies of the demo study file
     base = (DEMO / "pump_housing_pilot.study").read_bytes()
     files += _corpus(base, np.random.default_rng(20261202), 40)
+    # damaged files of the older schema: the migration meets the damage
+    old = tmp_path / "old.study"
+    shutil.copy(DEMO / "pump_housing_pilot.study", old)
+    _as_schema_2(old)
+    files += [("old_" + n, b) for n, b in _corpus(old.read_bytes(),
+                                                   np.random.default_rng(20261203), 15)]
     outcomes = {}
     for name, blob in files:
         p = tmp_path / "corpus" / name
