@@ -53,6 +53,7 @@ __all__ = [
     "APPLICATION_ID",
     "CHAIN_GENESIS",
     "ChainCheck",
+    "SignoffSignature",
     "MIGRATIONS",
     "SCHEMA_VERSION",
     "AuditEntry",
@@ -192,6 +193,8 @@ def _canonical_json(obj) -> str:
 
 
 def _encode_value(v):
+    if isinstance(v, _KnownBlob):
+        return {"blob_sha256": v.sha256, "bytes": v.length}
     if isinstance(v, bytes | bytearray | memoryview):
         b = bytes(v)
         return {"blob_sha256": hashlib.sha256(b).hexdigest(), "bytes": len(b)}
@@ -358,7 +361,171 @@ def _describe_row(table: str, row: Mapping) -> str:
     return ", ".join(bits[:4])
 
 
-def check_chain(conn) -> ChainCheck:
+def _rows_with_known_blobs(conn, table: str, known: Mapping):
+    """Rows of ``table`` like ``_table_rows(after=0)``, but BLOB columns whose hash is already
+    known (``known[key][column] = (sha256, length)``, checked against the bytes in the same
+    read) are not read again."""
+    info = list(conn.execute(f'PRAGMA table_info("{table}")'))
+    blobs = [r[1] for r in info if str(r[2]).upper() == "BLOB"]
+    keys = _key_columns(conn, table)
+    if not blobs or len(keys) != 1:
+        yield from _table_rows(conn, table, after=0)
+        return
+    plain = [r[1] for r in info if r[1] not in blobs]
+    cols = ", ".join(f'"{c}"' for c in plain)
+    for values in conn.execute(f'SELECT _rowid_, {cols} FROM "{table}" ORDER BY _rowid_'):
+        row = dict(zip(plain, values[1:], strict=True))
+        row["_sk_rowid_"] = values[0]
+        have = known.get(row[keys[0]])
+        if have is None or any(b not in have for b in blobs):
+            full = conn.execute(f'SELECT {", ".join(chr(34) + b + chr(34) for b in blobs)} '
+                                f'FROM "{table}" WHERE _rowid_ = ?', (values[0],)).fetchone()
+            row.update(zip(blobs, full, strict=True))
+        else:
+            for b in blobs:
+                row[b] = _KnownBlob(*have[b])
+        yield row
+
+
+class _KnownBlob:
+    """A BLOB whose SHA-256 and length were computed from its bytes in the same read."""
+
+    __slots__ = ("sha256", "length")
+
+    def __init__(self, sha256: str, length: int):
+        self.sha256, self.length = sha256, int(length)
+
+
+_SIGNOFF_SIGNATURE_FORMAT = "studykit-signoff-signature-1"
+
+
+def _signoff_payload(row: Mapping) -> bytes:
+    """What a sign-off's certificate signature covers: the sign-off as written (who, role,
+    decision, comment, time, content digest) and the chain head it signed."""
+    body = {k: row.get(k) for k in ("name", "role", "decision", "comment", "at", "digest",
+                                    "chain_head")}
+    return _canonical_json({"format": _SIGNOFF_SIGNATURE_FORMAT, "signoff": body}).encode()
+
+
+def sign_signoff_payload(payload: bytes, p12_path, passphrase) -> dict:
+    """Sign ``payload`` with the key of a PKCS#12 file; returns the JSON-safe signature record
+    (certificate PEM, its SHA-256 fingerprint, algorithm, value in base64). A certificate not
+    valid now is refused."""
+    import base64
+    import datetime as dt
+
+    from cryptography.hazmat.primitives import hashes, serialization
+    from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
+    from cryptography.hazmat.primitives.serialization import pkcs12
+
+    p12 = Path(p12_path)
+    if not p12.is_file():
+        raise StudyInputError(f"`--p12` '{p12}' does not exist: give the signer's .p12 file")
+    pw = passphrase.encode("utf-8") if isinstance(passphrase, str) else passphrase
+    try:
+        key, cert, _ = pkcs12.load_key_and_certificates(p12.read_bytes(), pw)
+    except (ValueError, TypeError) as exc:
+        raise StudyInputError(f"cannot open '{p12.name}': {exc} (wrong passphrase?)") from None
+    if key is None or cert is None:
+        raise StudyInputError(f"'{p12.name}' holds no key and certificate")
+    now = dt.datetime.now(dt.UTC)
+    if not cert.not_valid_before_utc <= now <= cert.not_valid_after_utc:
+        raise StudyInputError(
+            f"the certificate in '{p12.name}' is not valid now (valid "
+            f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ} to "
+            f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}): a sign-off signed with it would "
+            "not be evidence")
+    if isinstance(key, rsa.RSAPrivateKey):
+        value, alg = key.sign(payload, padding.PKCS1v15(), hashes.SHA256()), "rsa-pkcs1v15-sha256"
+    elif isinstance(key, ec.EllipticCurvePrivateKey):
+        value, alg = key.sign(payload, ec.ECDSA(hashes.SHA256())), "ecdsa-sha256"
+    else:
+        raise StudyInputError(f"'{p12.name}' holds a {type(key).__name__}: studykit signs "
+                              "sign-offs with RSA or EC keys")
+    return {"format": _SIGNOFF_SIGNATURE_FORMAT, "algorithm": alg,
+            "certificate_pem": cert.public_bytes(serialization.Encoding.PEM).decode("ascii"),
+            "fingerprint_sha256": cert.fingerprint(hashes.SHA256()).hex(),
+            "value": base64.b64encode(value).decode("ascii")}
+
+
+@dataclass(frozen=True)
+class SignoffSignature:
+    """The certificate signature of one sign-off (:meth:`StudyFile.signoff_signatures`).
+
+    Fields: ``index`` (of the sign-off), ``status`` (``valid``, ``INVALID`` or ``none``),
+    ``subject``, ``fingerprint_sha256`` (colon-separated hex), ``not_before``, ``not_after``,
+    ``why`` (what is wrong when INVALID). A valid signature says the holder of that
+    certificate's key signed exactly this sign-off and chain head; whether the certificate is
+    the person's is for the reader to check (compare the fingerprint).
+    """
+
+    index: int
+    status: str
+    subject: str = ""
+    fingerprint_sha256: str = ""
+    not_before: str = ""
+    not_after: str = ""
+    why: str = ""
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def _check_signoff_signature(index: int, row: Mapping, record) -> SignoffSignature:
+    import base64
+
+    from cryptography import x509
+    from cryptography.exceptions import InvalidSignature
+    from cryptography.hazmat.primitives import hashes
+    from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
+
+    if not record:
+        return SignoffSignature(index, "none")
+    try:
+        cert = x509.load_pem_x509_certificate(str(record["certificate_pem"]).encode("ascii"))
+        fp = cert.fingerprint(hashes.SHA256()).hex().upper()
+        info = dict(subject=cert.subject.rfc4514_string(),
+                    fingerprint_sha256=":".join(fp[i:i + 2] for i in range(0, len(fp), 2)),
+                    not_before=f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ}",
+                    not_after=f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}")
+        value = base64.b64decode(str(record["value"]), validate=True)
+        pub = cert.public_key()
+        payload = _signoff_payload(row)
+        if isinstance(pub, rsa.RSAPublicKey):
+            pub.verify(value, payload, padding.PKCS1v15(), hashes.SHA256())
+        elif isinstance(pub, ec.EllipticCurvePublicKey):
+            pub.verify(value, payload, ec.ECDSA(hashes.SHA256()))
+        else:
+            return SignoffSignature(index, "INVALID", **info, why="unsupported key type")
+    except InvalidSignature:
+        return SignoffSignature(index, "INVALID", **info, why="the sign-off or its chain head "
+                                "differs from what the certificate's key signed")
+    except (KeyError, TypeError, ValueError) as exc:
+        return SignoffSignature(index, "INVALID", why=f"unreadable signature ({exc})")
+    when = str(row.get("at") or "")
+    if when and not info["not_before"] <= when <= info["not_after"]:
+        return SignoffSignature(index, "INVALID", **info, why=f"the certificate was not valid "
+                                f"at the sign-off's time {when}")
+    return SignoffSignature(index, "valid", **info)
+
+
+def signoff_signatures(conn) -> list[SignoffSignature]:
+    """Check the certificate signature (if any) of every sign-off, in order."""
+    records = {}
+    for (detail,) in conn.execute("SELECT detail_json FROM audit_log ORDER BY id"):
+        try:
+            d = json.loads(detail or "{}")
+        except ValueError:
+            continue
+        if isinstance(d, dict) and d.get("signoff_id") is not None and d.get("signature"):
+            records[d["signoff_id"]] = d["signature"]
+    out = []
+    for i, row in enumerate(_table_rows(conn, "signoffs", order="id")):
+        out.append(_check_signoff_signature(i, row, records.get(row.get("id"))))
+    return out
+
+
+def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
     """Recompute the audit chain of an open study file connection; see :class:`ChainCheck`.
 
     Checks, in order: every entry's ``prev_hash`` is the hash of the entry before it (the first
@@ -408,7 +575,10 @@ def check_chain(conn) -> ChainCheck:
     signoffs = []
     for t in _chained_tables(conn):
         keys = _key_columns(conn, t)
-        for row in _table_rows(conn, t, after=0):
+        known = (known_blobs or {}).get(t)
+        rows = _rows_with_known_blobs(conn, t, known) if known else \
+            _table_rows(conn, t, after=0)
+        for row in rows:
             rowid = row.pop("_sk_rowid_")
             n_rows += 1
             key = _row_key(keys, row, rowid)
@@ -436,6 +606,12 @@ def check_chain(conn) -> ChainCheck:
             problems.append((None, f"sign-off row {row.get('id')} by {row.get('name')} signed "
                              f"chain head {str(head)[:24]}..., which is not an entry of this "
                              "chain: the history before it was rewritten"))
+    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
+        for sig in signoff_signatures(conn):
+            if sig.status == "INVALID":
+                problems.append((None, f"the certificate signature of sign-off #{sig.index + 1} "
+                                 f"({sig.subject or 'unknown certificate'}) does not hold: "
+                                 f"{sig.why}"))
     triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = "
                                            "'trigger'")}
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
@@ -576,8 +752,15 @@ class StudyFile:
                                 detail={"studykit": __version__})
                     _chain_finish(conn)
                     conn.execute("COMMIT")
+                except StudyInputError:
+                    _rollback(conn)
+                    raise
+                except _DAMAGE as exc:
+                    _rollback(conn)
+                    raise StudyFileError(_damaged(self.path, exc) + "; it was not migrated") \
+                        from None
                 except BaseException:
-                    conn.execute("ROLLBACK")
+                    _rollback(conn)
                     raise
         finally:
             conn.close()
@@ -701,7 +884,6 @@ class StudyFile:
         try:
             try:
                 conn.execute("BEGIN IMMEDIATE")
-                _chain_begin(conn)
             except sqlite3.OperationalError as exc:
                 why = self._not_writable()
                 if why is not None:
@@ -715,12 +897,16 @@ class StudyFile:
                     "that you may write to it"
                 ) from None
             try:
+                _chain_begin(conn)
                 yield conn
                 _chain_finish(conn)
                 conn.execute("COMMIT")
             except sqlite3.DatabaseError as exc:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
+                if any(w in str(exc) for w in ("malformed", "not a database", "corrupt")):
+                    raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") \
+                        from None
                 why = self._not_writable()
                 if why is not None:
                     raise StudyFileError(
@@ -849,10 +1035,22 @@ class StudyFile:
     def load(self) -> Study:
         """The study as it stands: first specifications with every decision replayed.
 
-        Raises :class:`StudyFileError` when the stored data copy does not match its SHA-256.
+        Raises :class:`StudyFileError` when the stored data copy does not match its SHA-256,
+        or when the audit chain is broken (the file was altered outside studykit; the message
+        names the first break, :meth:`check_chain` lists them all).
         """
         with self._read() as conn:
-            return self._load(conn)
+            study = self._load(conn)
+            # the data copies were just hashed and matched their sha256 column: the chain
+            # check uses those hashes instead of reading the copies again
+            known = {i: {"content": (sha, n)} for i, sha, n in conn.execute(
+                "SELECT id, sha256, length(content) FROM data_files")}
+            chain = check_chain(conn, known_blobs={"data_files": known})
+        if not chain.ok:
+            raise StudyFileError(f"study file '{self.path}' was altered outside studykit: "
+                                 f"{chain.summary()}; `studykit study log` lists every break. "
+                                 "Restore the study file from a backup")
+        return study
 
     def _load(self, conn) -> Study:
         meta = dict(conn.execute("SELECT key, value FROM meta"))
@@ -940,7 +1138,7 @@ class StudyFile:
                     detail={"comment_id": cur.lastrowid, "text": c.text})
         return cur.lastrowid
 
-    def _insert_signoff(self, conn, s: SignOff, index: int) -> int:
+    def _insert_signoff(self, conn, s: SignOff, index: int, signer=None) -> int:
         """Insert a sign-off carrying the chain head it signs; refused on a broken chain (a
         signature on a file altered behind studykit would vouch for the alteration)."""
         chain = check_chain(conn)
@@ -951,9 +1149,15 @@ class StudyFile:
             "VALUES (?, ?, ?, ?, ?, ?, ?)",
             (s.name, s.role, s.decision, s.comment, s.when, s.digest, chain.head),
         )
-        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}", why=s.comment,
-                    detail={"signoff_index": index, "signoff_id": cur.lastrowid,
-                            "digest": s.digest, "chain_head": chain.head})
+        detail = {"signoff_index": index, "signoff_id": cur.lastrowid, "digest": s.digest,
+                  "chain_head": chain.head}
+        if signer is not None:
+            row = {"name": s.name, "role": s.role, "decision": s.decision, "comment": s.comment,
+                   "at": s.when, "digest": s.digest, "chain_head": chain.head}
+            detail["signature"] = sign_signoff_payload(_signoff_payload(row), *signer)
+        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}"
+                    + (" (certificate signature)" if signer is not None else ""),
+                    why=s.comment, detail=detail)
         return cur.lastrowid
 
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
@@ -1077,13 +1281,20 @@ class StudyFile:
             return self._insert_comment(conn, c)
 
     def add_signoff(self, name: str, *, role: str, decision: str, comment: str = "",
-                    when: str = "") -> SignOff:
-        """Sign the study as it stands now; returns the SignOff with the content digest."""
+                    when: str = "", certificate: tuple | None = None) -> SignOff:
+        """Sign the study as it stands now; returns the SignOff with the content digest and the
+        chain head it signed.
+
+        ``certificate=(p12_path, passphrase)`` adds a signature with that certificate's key
+        over the sign-off and its chain head (kept in its audit entry; the passphrase is never
+        stored); :meth:`signoff_signatures` checks it, and the chain check reports one that no
+        longer holds.
+        """
         with self._write() as conn:
             study = self._load(conn)
             s = study.sign(name, role=role, decision=decision, comment=comment,
                            when=when).signoffs[-1]
-            self._insert_signoff(conn, s, len(study.signoffs))
+            self._insert_signoff(conn, s, len(study.signoffs), signer=certificate)
             return self._load(conn).signoffs[-1]
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
@@ -1133,7 +1344,7 @@ class StudyFile:
             args.append(characteristic)
         with self._read() as conn:
             rows = conn.execute(sql + " ORDER BY id", args).fetchall()
-        return [StoredResult(i, k, c, json.loads(p), w, a) for i, k, c, p, w, a in rows]
+            return [StoredResult(i, k, c, json.loads(p), w, a) for i, k, c, p, w, a in rows]
 
     def audit_log(self) -> list[AuditEntry]:
         """Every audit entry, oldest first."""
@@ -1141,13 +1352,19 @@ class StudyFile:
             rows = conn.execute(
                 "SELECT id, at, who, what, why, detail_json FROM audit_log ORDER BY id"
             ).fetchall()
-        return [AuditEntry(i, at, who, what, why, json.loads(d)) for i, at, who, what, why, d in rows]
+            return [AuditEntry(i, at, who, what, why, json.loads(d))
+                    for i, at, who, what, why, d in rows]
 
     def check_chain(self) -> ChainCheck:
         """Recompute the audit chain (see :func:`check_chain`); never raises on a break, the
         problems are in the result."""
         with self._read() as conn:
             return check_chain(conn)
+
+    def signoff_signatures(self) -> list[SignoffSignature]:
+        """The certificate signature of each sign-off: valid, INVALID (and why) or none."""
+        with self._read() as conn:
+            return signoff_signatures(conn)
 
     def chain_entry_hash(self, entry_id: int) -> str | None:
         """The stored ``entry_hash`` of audit entry ``entry_id`` (None when there is none)."""
@@ -1175,6 +1392,14 @@ class StudyFile:
 #: errors a damaged study file can raise while it is read (turned into StudyFileError)
 _DAMAGE = (sqlite3.DatabaseError, UnicodeDecodeError, ValueError, TypeError, KeyError,
            IndexError, OverflowError, AttributeError)
+
+
+def _rollback(conn) -> None:
+    try:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+    except sqlite3.DatabaseError:  # a damaged file may refuse even that; nothing was committed
+        pass
 
 
 def _damaged(path, exc) -> str:

@@ -56,7 +56,7 @@ def test_unsigned_report_is_not_evidence_unless_allowed(made):
     tmp, data, _, _ = made
     res = verify_report(tmp / "r.pdf", data=data)
     assert not res.ok and not res.signed and res.status == "not_evidence"
-    assert res.exit_code == 1 and res.consistent
+    assert res.exit_code == 1 and [c.item for c in res.failures] == ["signatures"]
     assert res.summary().startswith("NOT EVIDENCE: unsigned")
     res = verify_report(tmp / "r.pdf", data=data, allow_unsigned=True)
     assert res.ok and res.status == "consistent_unsigned" and res.exit_code == 0

@@ -126,6 +126,10 @@ def register(subparsers) -> None:
     sign.add_argument("--decision", required=True, choices=("approve", "reject", "comment"))
     sign.add_argument("--comment", default="")
     sign.add_argument("--who", default=None)
+    sign.add_argument("--p12", metavar="P12", help="also sign the sign-off with this "
+                      "certificate's key (PKCS#12 file; it must be valid now)")
+    sign.add_argument("--passphrase-env", metavar="VAR", default="STUDYKIT_P12_PASSPHRASE",
+                      help="environment variable holding the .p12 passphrase")
     sign.set_defaults(func=run_sign)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
@@ -232,8 +236,9 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
     return "\n".join("  " + ln for ln in lines)
 
 
-def format_study(study: Study, chain=None) -> str:
-    """The study as text for a terminal (``chain``: the file's ChainCheck, shown when given)."""
+def format_study(study: Study, chain=None, signatures=None) -> str:
+    """The study as text for a terminal (``chain``: the file's ChainCheck, ``signatures``: the
+    sign-offs' certificate signatures; each shown when given)."""
     out = [f"Study     {study.title}"]
     if study.part:
         out.append(f"Part      {study.part}")
@@ -288,6 +293,11 @@ def format_study(study: Study, chain=None) -> str:
         out.append(f"  {s.when}  {s.name} ({s.role}): {s.decision} - {state}")
         if s.chain_head:
             out.append(f"       signed chain head {s.chain_head[:28]}...")
+        sig = (signatures or {}).get(st.index)
+        if sig is not None and sig.status != "none":
+            out.append(f"       certificate signature {sig.status}: {sig.subject}, SHA-256 "
+                       f"fingerprint {sig.fingerprint_sha256}, valid {sig.not_before} to "
+                       f"{sig.not_after}" + (f" ({sig.why})" if sig.why else ""))
         if s.comment:
             out.append(f"       comment: {s.comment}")
     return "\n".join(out) + "\n"
@@ -297,12 +307,17 @@ def run_show(args) -> int:
     sf = StudyFile(args.studyfile)
     chain = sf.require_intact()  # a file altered behind studykit is never shown as valid
     study = sf.load()
+    signatures = {sg.index: sg for sg in sf.signoff_signatures()}
     if args.json:
-        json.dump(dict(study.to_dict(), chain=chain.to_dict()), sys.stdout, indent=2,
-                  ensure_ascii=False)
+        d = study.to_dict()
+        for so in d["signoffs"]:
+            sg = signatures.get(so["index"])
+            so["certificate_signature"] = None if sg is None or sg.status == "none" \
+                else sg.to_dict()
+        json.dump(dict(d, chain=chain.to_dict()), sys.stdout, indent=2, ensure_ascii=False)
         sys.stdout.write("\n")
     else:
-        sys.stdout.write(format_study(study, chain))
+        sys.stdout.write(format_study(study, chain, signatures))
     return 0
 
 
@@ -463,9 +478,25 @@ def run_comment(args) -> int:
 
 
 def run_sign(args) -> int:
-    s = StudyFile(args.studyfile).add_signoff(_who(args), role=args.role,
-                                              decision=args.decision, comment=args.comment)
-    print(f"signed as {s.role} ({s.decision}); study digest {s.digest}")
+    import os
+
+    certificate = None
+    if args.p12:
+        passphrase = os.environ.get(args.passphrase_env)
+        if passphrase is None:
+            raise StudyInputError(
+                f"the passphrase of '{args.p12}' is not set: put it into the environment "
+                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
+        certificate = (args.p12, passphrase)
+    sf = StudyFile(args.studyfile)
+    s = sf.add_signoff(_who(args), role=args.role, decision=args.decision,
+                       comment=args.comment, certificate=certificate)
+    print(f"signed as {s.role} ({s.decision}); study digest {s.digest}; chain head "
+          f"{s.chain_head[:28]}...")
+    if certificate is not None:
+        sig = sf.signoff_signatures()[-1]
+        print(f"certificate signature: {sig.status} ({sig.subject}, SHA-256 fingerprint "
+              f"{sig.fingerprint_sha256})")
     return 0
 
 

@@ -164,7 +164,8 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
                   st["small"]),
         Spacer(1, 3),
     ]
-    fig = figures.blank_form_figure(plan, n_columns=n_cols, width=11.0, height=4.3)
+    fig = figures.blank_form_figure(plan, n_columns=n_cols, width=11.0,
+                                    height=3.7 if draft else 4.3)
     story.append(_image(figures.figure_png(fig, dpi=150), width))
     rows = [["Subgroup"] + [str(i) for i in range(1, n_cols + 1)]]
     n_values = plan.subgroup_size if plan.subgroup_size and plan.subgroup_size <= 5 else 1
@@ -186,18 +187,23 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
                             + f"Control chart form - {plan.characteristic}",
                             creator="studykit")
 
-    def watermark(canvas, _doc):
-        if not draft:
-            return
-        canvas.saveState()
-        canvas.setFillColorRGB(0.70, 0.15, 0.12, alpha=0.18)
-        canvas.setFont("Helvetica-Bold", 110)
-        canvas.translate(size[0] / 2, size[1] / 2)
-        canvas.rotate(25)
-        canvas.drawCentredString(0, -40, "DRAFT")
-        canvas.restoreState()
+    from reportlab.pdfgen.canvas import Canvas
 
-    doc.build(story, onFirstPage=watermark, onLaterPages=watermark)
+    class _Stamped(Canvas):
+        """Draws DRAFT across the page on top of the form (a draft pack)."""
+
+        def showPage(self):  # noqa: N802 - reportlab's name
+            if draft:
+                self.saveState()
+                self.setFillColorRGB(0.70, 0.15, 0.12, alpha=0.16)
+                self.setFont("Helvetica-Bold", 120)
+                self.translate(size[0] / 2, size[1] / 2)
+                self.rotate(22)
+                self.drawCentredString(0, -40, "DRAFT")
+                self.restoreState()
+            super().showPage()
+
+    doc.build(story, canvasmaker=_Stamped)
     return buf.getvalue()
 
 

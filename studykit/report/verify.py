@@ -757,7 +757,10 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
         spath = Path(study)
         if not spath.exists():
             raise StudyInputError(f"`--study` '{spath}' does not exist: check the path")
-        checks.extend(_chain_checks(spath, evidence))
+        chain_checks = _chain_checks(spath, evidence)
+        checks.extend(chain_checks)
+        if chain_checks[0].status == "fail":
+            return result()  # a file altered outside studykit is not read as a study
         rebuilt = StudyFile(spath).load()
         dchecks, blobs = _data_checks(evidence, dict(rebuilt.files))
         checks.extend(c if c.status == "pass" else
