@@ -170,6 +170,38 @@ def test_idle_kernel_is_culled_and_the_preheated_one_kept(loopback):
     assert served in pooled  # the next page gets it
 
 
+def test_a_connected_kernel_is_never_culled(loopback):
+    import asyncio
+
+    from tornado.httpclient import HTTPRequest
+    from tornado.websocket import websocket_connect
+
+    server, log_path = loopback
+    port = port_of(server.url)
+    connected, _ = open_page(server.url)
+    unconnected, _ = open_page(server.url)
+
+    async def hold_open():
+        ws = await websocket_connect(HTTPRequest(
+            f"ws://127.0.0.1:{port}/api/kernels/{connected}/channels?session_id=held",
+            headers={"Origin": f"http://127.0.0.1:{port}"}))
+        try:
+            gone = False
+            deadline = time.monotonic() + IDLE_SECONDS + 90
+            while time.monotonic() < deadline and not gone:
+                await asyncio.sleep(1.0)
+                gone = unconnected not in kernel_pids(server.pid)
+            await asyncio.sleep(4.0)  # a few more culler rounds
+            return gone, connected in kernel_pids(server.pid)
+        finally:
+            ws.close()
+
+    gone, kept = asyncio.run(hold_open())
+    assert gone, "the culler never ran"
+    assert kept, "a kernel with its page connected was culled"
+    assert not re.search(rf"Culling .*{connected}", log_path.read_text())
+
+
 @pytest.fixture(scope="module")
 def with_token(tmp_path_factory):
     token = "Tq8-" + base64.urlsafe_b64encode(os.urandom(18)).decode().rstrip("=")
