@@ -19,8 +19,8 @@ from browser_support import ARTIFACTS, ROOT
 from studykit.app.server import kernel_pids, server_process
 
 PAGES = 10
-# ten kernels and ten pages on 2 cores: about 1.5 min on an idle machine, 5 min when other jobs
-# load it (load average 17); the bound only matters when something hangs
+# ten kernels and ten pages on 2 cores took 2 min (load average 9 from other jobs) to 5 min
+# (load average 17); the bound only matters when something hangs
 PAGE_TIMEOUT_MS = 480_000
 
 
