@@ -87,7 +87,8 @@ def loopback(tmp_path_factory):
     log_path = tmp_path_factory.mktemp("serve") / "server.log"
     with open(log_path, "w") as log, server_process(
             NOTEBOOK, env={"STUDYKIT_STUDY": ""}, log=log, timeout=180,
-            extra_args=(PREHEAT, f"--StudykitVoila.kernel_idle_minutes={IDLE_SECONDS / 60:g}")
+            extra_args=(PREHEAT, f"--StudykitVoila.kernel_idle_minutes={IDLE_SECONDS / 60:g}",
+                        "--StudykitVoila.allow_hosts=review.example,10.0.0.7")
     ) as server:
         yield server, log_path
 
@@ -108,9 +109,11 @@ def test_foreign_host_is_refused_on_every_route(loopback):
         status, body, _ = raw(server.url, method, path, host="localhost")
         assert "is not one of this server's names" not in body, (method, path)
     assert raw(server.url, "GET", f"{BOKEHJS_ROUTE}bokeh.min.js")[0] == 200
-    for name in ("127.0.0.1", "localhost", "[::1]"):
+    for name in ("127.0.0.1", "localhost", "[::1]", "review.example", "10.0.0.7"):  # + allowed
         assert raw(server.url, "GET", f"{BOKEHJS_ROUTE}bokeh.min.js",
                    host=f"{name}:{port_of(server.url)}")[0] == 200, name
+    for name in ("review.example.evil.example", "10.0.0.8", "192.168.1.20"):  # others are not
+        assert raw(server.url, "GET", "/", host=f"{name}:{port_of(server.url)}")[0] == 403, name
     assert kernel in kernel_pids(server.pid)  # nothing above shut the kernel down
 
 
