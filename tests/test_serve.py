@@ -1,7 +1,12 @@
-"""`studykit serve`: arguments, loopback by default, token outside loopback, clean stop."""
+"""`studykit serve`: arguments, loopback by default, token outside loopback, clean stop.
+
+Every `studykit serve` started here is killed at the end of its test, also on failure: its
+process group, and the group of the Voila server it started (which leads its own session).
+"""
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import signal
@@ -33,20 +38,87 @@ def status(url: str) -> int:
         return exc.code
 
 
-def start_serve(*args):
+def children(pid: int) -> list[int]:
+    """Process ids whose parent is ``pid`` (Linux /proc)."""
+    found = []
+    for entry in os.scandir("/proc"):
+        if entry.name.isdigit():
+            try:
+                with open(f"/proc/{entry.name}/stat", "rb") as f:
+                    if int(f.read().decode().rsplit(")", 1)[1].split()[1]) == pid:
+                        found.append(int(entry.name))
+            except (OSError, ValueError, IndexError):
+                continue
+    return found
+
+
+def alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat", "rb") as f:
+            return f.read().decode().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return False
+
+
+def kill_group(pid: int) -> None:
+    with contextlib.suppress(ProcessLookupError, PermissionError):
+        if os.getpgid(pid) != os.getpgid(0):  # never our own group
+            os.killpg(os.getpgid(pid), signal.SIGKILL)
+
+
+@contextlib.contextmanager
+def serving(*args, preexec_fn=None):
+    """Start `studykit serve --no-browser ARGS` in its own process group; yield
+    (process, printed address, printed lines, Voila server pid). Always killed at the end."""
     proc = subprocess.Popen([sys.executable, "-m", "studykit", "serve", "--no-browser", *args],
-                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    lines = []
-    deadline = time.monotonic() + 120
+                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+                            start_new_session=preexec_fn is None, preexec_fn=preexec_fn)
+    server_pids = []
+    try:
+        lines = []
+        deadline = time.monotonic() + 120
+        url = None
+        while time.monotonic() < deadline:
+            line = proc.stdout.readline()
+            if not line:
+                break
+            lines.append(line)
+            if line.startswith("studykit workbook: "):
+                url = line.split(": ", 1)[1].strip()
+                break
+        assert url, "serve did not print its address:\n" + "".join(lines)
+        server_pids = children(proc.pid)
+        assert len(server_pids) == 1, server_pids
+        yield proc, url, lines, server_pids[0]
+    finally:
+        server_pids = server_pids or children(proc.pid)
+        if proc.poll() is None:
+            kill_group(proc.pid)
+            proc.kill()
+        proc.wait(timeout=30)
+        for pid in server_pids:
+            kill_group(pid)
+
+
+def start_in_new_session_with(*, ignore=(), block=()):
+    """A preexec_fn: new session, then the given signals ignored and/or blocked (inherited
+    across exec, as a careless parent would leave them)."""
+    def prepare():
+        os.setsid()
+        for sig in ignore:
+            signal.signal(sig, signal.SIG_IGN)
+        if block:
+            signal.pthread_sigmask(signal.SIG_BLOCK, set(block))
+    return prepare
+
+
+def gone(pid: int, timeout: float) -> bool:
+    deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
-        line = proc.stdout.readline()
-        if not line:
-            break
-        lines.append(line)
-        if line.startswith("studykit workbook: "):
-            return proc, line.split(": ", 1)[1].strip(), lines
-    proc.kill()
-    raise AssertionError("serve did not print its address:\n" + "".join(lines))
+        if not alive(pid):
+            return True
+        time.sleep(0.2)
+    return not alive(pid)
 
 
 def port_closed(port: int) -> bool:
@@ -88,14 +160,12 @@ def test_busy_port_exits_2(capsys):
 
 def test_loopback_serves_without_token_and_stops_on_sigint():
     port = free_port()
-    proc, url, _ = start_serve("--port", str(port))
-    try:
+    with serving("--port", str(port)) as (proc, url, _, server):
         assert url == f"http://127.0.0.1:{port}/"
         assert status(url) == 200
-    finally:
         proc.send_signal(signal.SIGINT)
-        proc.wait(timeout=30)
-    assert proc.returncode == 0
+        assert proc.wait(timeout=60) == 0
+        assert gone(server, 30)
     assert port_closed(port)
 
 
@@ -103,8 +173,7 @@ def test_loopback_serves_without_token_and_stops_on_sigint():
                     reason="binding 0.0.0.0 disabled on this machine")
 def test_wide_host_requires_the_token_and_stops_on_sigterm():
     port = free_port("0.0.0.0")
-    proc, url, lines = start_serve("--host", "0.0.0.0", "--port", str(port))
-    try:
+    with serving("--host", "0.0.0.0", "--port", str(port)) as (proc, url, lines, server):
         match = re.search(r"\?token=([\w-]{20,})$", url)
         assert match, url
         token = match.group(1)
@@ -115,8 +184,70 @@ def test_wide_host_requires_the_token_and_stops_on_sigterm():
         assert status(base + "?token=wrong" + token[:4]) in (302, 401, 403)
         assert status(f"{base}?token={token}") == 200
         assert any("share it only with the team" in line for line in lines + [proc.stdout.readline()])
-    finally:
         proc.send_signal(signal.SIGTERM)
-        proc.wait(timeout=30)
-    assert proc.returncode == 0
+        assert proc.wait(timeout=60) == 0
+        assert gone(server, 30)
     assert port_closed(port)
+
+
+@pytest.mark.slow
+def test_stops_on_ctrl_c_when_started_with_sigint_ignored():
+    # e.g. started from a shell script as a background job, or by `nohup`: Python then
+    # installs no KeyboardInterrupt handler unless serve restores it
+    port = free_port()
+    with serving("--port", str(port),
+                 preexec_fn=start_in_new_session_with(ignore=[signal.SIGINT])) as (proc, url, _,
+                                                                                  server):
+        assert status(url) == 200
+        proc.send_signal(signal.SIGINT)
+        assert proc.wait(timeout=60) == 0
+        assert gone(server, 30)
+    assert port_closed(port)
+
+
+@pytest.mark.slow
+def test_stops_on_sigterm_and_sigint_when_started_with_them_blocked():
+    port = free_port()
+    prepare = start_in_new_session_with(ignore=[signal.SIGINT, signal.SIGTERM],
+                                        block=[signal.SIGINT, signal.SIGTERM])
+    with serving("--port", str(port), preexec_fn=prepare) as (proc, url, _, server):
+        assert status(url) == 200
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(timeout=60) == 0
+        assert gone(server, 30)
+    assert port_closed(port)
+
+
+@pytest.mark.slow
+def test_server_stops_when_serve_is_killed():
+    # SIGKILL cannot be handled: the Voila server notices its parent is gone and stops, and
+    # its kernels follow it (ipykernel watches its parent too)
+    port = free_port()
+    with serving("--port", str(port)) as (proc, url, _, server):
+        assert status(url) == 200
+        kernels = children(server)
+        assert kernels  # the preheated kernel
+        proc.kill()
+        proc.wait(timeout=30)
+        assert gone(server, 30)
+        assert all(gone(k, 30) for k in kernels)
+    assert port_closed(port)
+
+
+@pytest.mark.parametrize("value", ["-1", "0.5", "nan", "inf"])
+def test_bad_kernel_idle_minutes_exits_2(value, capsys):
+    assert main(["serve", "--no-browser", "--kernel-idle-minutes", value]) == 2
+    assert "`--kernel-idle-minutes`" in capsys.readouterr().err
+
+
+def test_bad_allow_host_exits_2(capsys):
+    assert main(["serve", "--no-browser", "--allow-host", "http://review.example:8866"]) == 2
+    assert "`--allow-host` ('http://review.example:8866') is not a server name" in (
+        capsys.readouterr().err)
+
+
+def test_server_command_carries_options():
+    cmd = server_command(__import__("pathlib").Path("wb.ipynb"), host="127.0.0.1", port=9000,
+                         allow_hosts=["review.example", "10.0.0.7"], kernel_idle_minutes=30)
+    assert "--StudykitVoila.allow_hosts=review.example,10.0.0.7" in cmd
+    assert "--StudykitVoila.kernel_idle_minutes=30" in cmd

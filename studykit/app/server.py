@@ -38,6 +38,7 @@ import sys
 import time
 import urllib.error
 import urllib.request
+from dataclasses import dataclass
 
 import bokeh
 import tornado.ioloop
@@ -219,10 +220,22 @@ def free_port(host: str = "127.0.0.1") -> int:
         return s.getsockname()[1]
 
 
+@dataclass(frozen=True)
+class ServerProcess:
+    """A server started by :func:`server_process`: its base URL and its process."""
+
+    url: str
+    proc: subprocess.Popen
+
+    @property
+    def pid(self) -> int:
+        return self.proc.pid
+
+
 @contextlib.contextmanager
-def running_server(path, *, port: int | None = None, env: dict | None = None,
+def server_process(path, *, port: int | None = None, env: dict | None = None,
                    extra_args: tuple[str, ...] = (), timeout: float = 90.0, log=None):
-    """Run this server on a notebook or folder in a subprocess; yield its base URL.
+    """Run this server on a notebook or folder in a subprocess; yield a :class:`ServerProcess`.
 
     For tests and benchmarks. The server runs in its own process group, which is stopped
     (SIGTERM, then SIGKILL) on exit, also when the body raises; the server also stops by itself
@@ -252,9 +265,43 @@ def running_server(path, *, port: int | None = None, env: dict | None = None,
                 if time.monotonic() > deadline:
                     raise RuntimeError(f"voila did not answer on {url} in {timeout} s") from None
                 time.sleep(0.2)
-        yield url
+        yield ServerProcess(url, proc)
     finally:
         stop_process_group(proc)
+
+
+@contextlib.contextmanager
+def running_server(path, **kwargs):
+    """:func:`server_process`, yielding only the base URL."""
+    with server_process(path, **kwargs) as server:
+        yield server.url
+
+
+def kernel_pids(server_pid: int) -> dict[str, int]:
+    """The kernels a server runs now: ``{kernel id: process id}`` (Linux ``/proc``; else {}).
+
+    A kernel is a process whose command line names a ``kernel-<id>.json`` connection file and
+    whose parent is ``server_pid``.
+    """
+    found = {}
+    for entry in os.scandir("/proc") if os.path.isdir("/proc") else ():
+        if not entry.name.isdigit():
+            continue
+        try:
+            with open(f"/proc/{entry.name}/stat", "rb") as f:
+                stat = f.read().decode(errors="replace")
+            ppid = int(stat.rsplit(")", 1)[1].split()[1])
+            if ppid != server_pid:
+                continue
+            with open(f"/proc/{entry.name}/cmdline", "rb") as f:
+                args = f.read().decode(errors="replace").split("\0")
+        except (OSError, ValueError, IndexError):
+            continue  # gone meanwhile
+        for arg in args:
+            name = os.path.basename(arg)
+            if name.startswith("kernel-") and name.endswith(".json"):
+                found[name[len("kernel-"):-len(".json")]] = int(entry.name)
+    return found
 
 
 def stop_process_group(proc: subprocess.Popen, timeout: float = 20.0) -> int:

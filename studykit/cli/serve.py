@@ -65,8 +65,8 @@ def register(subparsers) -> None:
                    metavar="MINUTES",
                    help="shut down a page's kernel (its memory) once no page has been "
                         f"connected to it for this long (default {DEFAULT_KERNEL_IDLE_MINUTES:g}; "
-                        "0 keeps them until the server stops); closing a page shuts its kernel "
-                        "down at once")
+                        "at least 1; 0 keeps them until the server stops); closing a page shuts "
+                        "its kernel down at once")
     p.add_argument("--no-browser", action="store_true", help="do not open a browser window")
     p.set_defaults(func=run)
 
@@ -214,9 +214,11 @@ def run(args) -> int:
     host, port = args.host, args.port
     allow_hosts = check_host_names(args.allow_host)
     idle = args.kernel_idle_minutes
-    if not (idle >= 0 and idle < 1e6):
-        raise StudyInputError(f"`--kernel-idle-minutes` ({idle:g}) must be 0 or more minutes, "
-                              "e.g. --kernel-idle-minutes 10")
+    if not (idle == 0 or 1 <= idle < 1e6):
+        # a page must have time to load and connect before its kernel counts as abandoned
+        # (ten pages opened at once on 2 cores took up to 2 minutes)
+        raise StudyInputError(f"`--kernel-idle-minutes` ({idle:g}) must be 0 (never) or at "
+                              "least 1 minute, e.g. --kernel-idle-minutes 10")
     if args.demo and args.study:
         raise StudyInputError("give either STUDY_FILE or --demo, not both")
     study = None
