@@ -2207,7 +2207,7 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
             f"'{name}': only one value ({valid[0]:g}); a study needs many more (common "
             "practice: at least 25 subgroups or 100 individual values)"
         )
-    elif valid.size > 1 and np.ptp(valid) == 0:
+    elif valid.size > 1 and valid.max() == valid.min():  # (ptp overflows near 1e308)
         warnings_.append(
             f"'{name}': all {valid.size} values are {valid[0]:g}, so there is no spread and no "
             "capability can be computed. Check that the gauge resolution is fine enough and "
