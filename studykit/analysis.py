@@ -22,7 +22,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from studykit.errors import AnalysisError, StudyInputError, StudyWarning
+from studykit.errors import AnalysisError, StudyInputError, StudyWarning, printable
 from studykit.stats import attribute as attribute_module
 from studykit.stats import capability as capability_module
 from studykit.stats import fit as fit_module
@@ -30,6 +30,7 @@ from studykit.stats import normality as normality_module
 from studykit.stats import order as order_module
 from studykit.stats import planning as planning_module
 from studykit.stats import transform as transform_module
+from studykit.stats._checks import check_resolution
 from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
     DISPERSION_RULES,
@@ -881,11 +882,13 @@ def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice,
                             target, level, df_within):
     """Normal-theory capability on the transformed scale (Box-Cox, Johnson)."""
     t = choice.transform
+    # Box-Cox: the unit-free form (an increasing affine map of the plain one: the same indices)
+    forward = getattr(t, "scaled_transform", t.transform)
 
     def tr(v):
         if v is None:
             return None
-        out = np.asarray(t.transform(np.asarray([v], dtype=float)), dtype=float)[0]
+        out = np.asarray(forward(np.asarray([v], dtype=float)), dtype=float)[0]
         if not math.isfinite(out):
             raise AnalysisError(
                 f"the specification limit {v:g} lies outside the range of the {choice.label} "
@@ -893,7 +896,7 @@ def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice,
             )
         return float(out)
 
-    y = np.asarray(t.transform(x), dtype=float)
+    y = np.asarray(forward(x), dtype=float)
     within = None
     if chart.kind != "imr" and chart.subgroup_size is not None:
         tchart = control_chart(y, labels, kind=chart.kind, evaluate=False)
@@ -1001,6 +1004,8 @@ def analyze_characteristic(
             f"'{name}' has {values.size} usable value(s); a study needs at least 2 (better 100 "
             "or more)."
         )
+    if not attribute:  # overflow, rounding-noise spread, precision collapse: refused here
+        check_resolution(values, name=f"'{printable(name)}'")
 
     excl = {}
     for label, why in (exclusions or {}).items():

@@ -33,7 +33,9 @@ import io
 import math
 import os
 import re
+import stat
 import zipfile
+import zlib
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -41,7 +43,7 @@ from pathlib import Path
 
 import numpy as np
 
-from studykit.errors import DataFileError, StudyInputError
+from studykit.errors import DataFileError, StudyInputError, printable
 
 __all__ = [
     "CharacteristicData",
@@ -64,6 +66,10 @@ DEFAULT_MAX_BYTES = 100 * 1024 * 1024
 _CHUNK_ROWS = 50_000
 _XLSX_CHUNK_ROWS = 20_000
 _SAMPLE_BYTES = 64 * 1024
+#: The sample read to find the header grows up to this size when its first lines are longer
+#: than _SAMPLE_BYTES (a header of thousands of columns); a first line longer than this is
+#: refused with a message that says so.
+_HEADER_MAX_BYTES = 8 * 1024 * 1024
 _READ_BLOCK = 1 << 20
 
 # ----------------------------------------------------------------------------------------------
@@ -150,7 +156,8 @@ def _col_letter(index: int) -> str:
 
 
 def _show(value) -> str:
-    text = str(value)
+    """Cell text for a message: control characters escaped, at most 40 characters."""
+    text = printable(value)
     return text if len(text) <= 40 else text[:37] + "..."
 
 
@@ -561,7 +568,18 @@ def read_measurements(
     if p.is_dir():
         raise DataFileError("this is a folder, not a file. Give the path of a CSV or XLSX file.",
                             file=str(path))
-    size = p.stat().st_size
+    st = p.stat()  # stat does not open the file: a pipe or device is refused before reading
+    if not stat.S_ISREG(st.st_mode):
+        kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
+                "a device" if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else
+                "a socket" if stat.S_ISSOCK(st.st_mode) else "not a regular file")
+        raise DataFileError(
+            f"this is {kind}, not a measurement file; studykit reads only regular files (a "
+            "pipe or device could block or never end). Save the measurements to a CSV or XLSX "
+            "file and give its path.",
+            file=str(path),
+        )
+    size = st.st_size
     _check_size(size, max_bytes, p.name)
     src = _Source(name=p.name, path=p, data=None, size=size)
     return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
@@ -668,10 +686,15 @@ def _inspect(src: _Source, encoding: str | None) -> None:
     utf8_ok = True
     has_nul = False
     cp1252_ok = True
+    want = _SAMPLE_BYTES
     for block in src.blocks():
         digest.update(block)
-        if len(head) < _SAMPLE_BYTES:
-            head += block[: _SAMPLE_BYTES - len(head)]
+        if len(head) < want:
+            used = want - len(head)
+            head += block[:used]
+            if len(head) >= want and want < _HEADER_MAX_BYTES and head.count(b"\n") < 3:
+                want = _HEADER_MAX_BYTES  # a very wide header: read on to its end
+                head += block[used : used + want - len(head)]
         if utf8_ok:
             try:
                 utf8.decode(block)
@@ -801,7 +824,23 @@ def _sample_lines(src: _Source) -> list[str]:
     return lines
 
 
-def _sniff(lines: list[str], start: int) -> tuple[str, int]:
+def _csv_rows(lines: list[str], delimiter: str, file=None) -> list[list[str]]:
+    """The cells of sample lines; a field may be as long as the sample (a wide header is one
+    field for a separator that does not split it), beyond the csv module's 128 KiB default."""
+    old = csv.field_size_limit()
+    csv.field_size_limit(max(old, _HEADER_MAX_BYTES + 1))
+    try:
+        return list(csv.reader(lines, delimiter=delimiter))
+    except csv.Error as exc:
+        raise DataFileError(
+            f"the first lines cannot be split into cells ({exc}). Check quotes (\") and "
+            "separators, or save the file again from the spreadsheet as CSV.", file=file,
+        ) from None
+    finally:
+        csv.field_size_limit(old)
+
+
+def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
     """Separator and index of the header line.
 
     The header is the first line with two or more filled cells when only title lines (one
@@ -812,7 +851,7 @@ def _sniff(lines: list[str], start: int) -> tuple[str, int]:
     if not idx:
         return ",", start
     delims = ("\t", ";", ",")
-    recs = {d: list(csv.reader([lines[i] for i in idx], delimiter=d)) for d in delims}
+    recs = {d: _csv_rows([lines[i] for i in idx], delimiter=d, file=file) for d in delims}
 
     def filled(rec):
         return sum(1 for c in rec if c.strip())
@@ -842,6 +881,14 @@ def _open_csv(src: _Source) -> _Table:
     import pandas as pd
 
     lines = _sample_lines(src)
+    if not lines and src.sample_truncated:
+        raise DataFileError(
+            f"the first line is longer than {_human_size(_HEADER_MAX_BYTES)} without a line "
+            "break, so no header row can be found. Check that the file is a table with one "
+            "row per line (a file with only carriage returns or no line breaks at all is not), "
+            "or save it again from the spreadsheet as CSV.",
+            file=src.name, row=1,
+        )
     header_index = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
     if header_index is None:
         raise DataFileError(
@@ -850,12 +897,13 @@ def _open_csv(src: _Source) -> _Table:
             file=src.name,
         )
     first_line = header_index
-    sep, header_index = _sniff(lines, header_index)
-    header = [h.strip() for h in next(csv.reader([lines[header_index]], delimiter=sep))]
+    sep, header_index = _sniff(lines, header_index, src.name)
+    header = [h.strip() for h in _csv_rows([lines[header_index]], delimiter=sep, file=src.name)[0]]
 
     # decimal sign from the sample cells
     n_comma = n_point = 0
-    for rec in csv.reader(lines[header_index + 1 : header_index + 200], delimiter=sep):
+    for rec in _csv_rows(lines[header_index + 1 : header_index + 200], delimiter=sep,
+                          file=src.name):
         for cell in rec:
             cell = cell.strip()
             if _COMMA_DECIMAL_RE.match(cell):
@@ -959,7 +1007,113 @@ def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFi
     )
 
 
+#: An XLSX file is a zip package. Before it is parsed, the sizes its members declare are
+#: checked (zipfile never unpacks more than a member declares, so the declared sizes bound the
+#: work): at most XLSX_MAX_UNPACKED bytes in all (a full sheet of 1,048,576 rows and a few
+#: columns unpacks to well under this), at most XLSX_MAX_MEMBERS members, and no member above
+#: 1 MiB unpacking more than XLSX_MAX_RATIO times its packed size. Spreadsheet programs pack
+#: sheets about 5 to 15 times (measured on workbooks written by openpyxl); a "zip bomb" packs
+#: hundreds to a thousand times. Our limits; common practice, no source.
+XLSX_MAX_UNPACKED = 1024 * 1024 * 1024
+XLSX_MAX_RATIO = 100
+XLSX_MAX_MEMBERS = 10_000
+_XLSX_RATIO_FROM = 1024 * 1024
+
+
+def _check_xlsx_package(src: _Source) -> None:
+    """Refuse a package whose members would unpack to too much (module constants above)."""
+    handle = src.binary()
+    try:
+        with zipfile.ZipFile(handle) as zf:
+            infos = zf.infolist()
+    except Exception as exc:  # noqa: BLE001 - any failure of a damaged package is a user error
+        raise _xlsx_open_failure(src, exc) from None
+    finally:
+        handle.close()
+    if len(infos) > XLSX_MAX_MEMBERS:
+        raise DataFileError(
+            f"the workbook package holds {len(infos)} parts, more than the {XLSX_MAX_MEMBERS} "
+            "a spreadsheet has; it is not read. Export the measurements as CSV, or save them "
+            "in a new workbook.",
+            file=src.name, value=len(infos),
+        )
+    for info in infos:
+        if (info.file_size > _XLSX_RATIO_FROM
+                and info.file_size > XLSX_MAX_RATIO * max(info.compress_size, 1)):
+            ratio = info.file_size / max(info.compress_size, 1)
+            raise DataFileError(
+                f"part '{_show(info.filename)}' of the workbook unpacks from "
+                f"{_human_size(info.compress_size)} to {_human_size(info.file_size)} "
+                f"({ratio:.0f} times; spreadsheet programs pack about 5 to 15 times, the limit "
+                f"is {XLSX_MAX_RATIO}). A file packed this tightly is built to exhaust memory "
+                "(a 'zip bomb') and is not read. If it is a genuine export, save the "
+                "measurements as CSV and load that file.",
+                file=src.name, value=info.filename,
+            )
+    total = sum(i.file_size for i in infos)
+    if total > XLSX_MAX_UNPACKED:
+        raise DataFileError(
+            f"the workbook unpacks to {_human_size(total)}, more than the limit of "
+            f"{_human_size(XLSX_MAX_UNPACKED)}. Save the measurements as CSV (read in pieces, "
+            "without this limit), or split the workbook.",
+            file=src.name, value=total,
+        )
+
+
+def _xlsx_reason(exc: BaseException) -> str:
+    """Plain words for what a damaged workbook's parser ran into."""
+    import xml.parsers.expat
+    from xml.etree.ElementTree import ParseError
+
+    text = _show(exc) if str(exc) else type(exc).__name__
+    if isinstance(exc, zipfile.BadZipFile | zlib.error | EOFError):
+        return f"the zip package is damaged or cut short: {text}"
+    if isinstance(exc, ParseError | xml.parsers.expat.ExpatError | SyntaxError):
+        return f"its XML is malformed: {text}"
+    if isinstance(exc, KeyError):
+        return f"a part it refers to is missing: {text}"
+    if isinstance(exc, IndexError):
+        return f"a cell refers to a shared text or style entry that does not exist: {text}"
+    if isinstance(exc, ValueError | TypeError | ArithmeticError):
+        return f"a cell, cell reference or style entry holds an invalid value: {text}"
+    if isinstance(exc, MemoryError):
+        return "it needs more memory than is available"
+    return f"{type(exc).__name__}: {text}"
+
+
+def _xlsx_open_failure(src: _Source, exc: BaseException) -> DataFileError:
+    return DataFileError(
+        f"the workbook cannot be opened ({_xlsx_reason(exc)}). It may be damaged or protected "
+        "with a password. Open it in the spreadsheet program and save it again as .xlsx, or "
+        "export the measurements as CSV.",
+        file=src.name,
+    )
+
+
+def _xlsx_failure(src: _Source, exc: BaseException, *, sheet=None, row=None) -> DataFileError:
+    """Any failure of the workbook parser as one user message (file, sheet and row if known)."""
+    if isinstance(exc, StudyInputError):
+        return exc
+    where = f" near row {row}" if row is not None else ""
+    return DataFileError(
+        f"the workbook is damaged and cannot be read{where}: {_xlsx_reason(exc)}. Open it in "
+        "the spreadsheet program and save it again as .xlsx (or export the measurements as "
+        "CSV), then load that file.",
+        file=src.name, sheet=sheet,
+    )
+
+
 def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
+    _check_xlsx_package(src)
+    try:
+        return _open_xlsx_inner(src, sheet, notes)
+    except StudyInputError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - a damaged workbook can fail anywhere in the parser
+        raise _xlsx_failure(src, exc, sheet=sheet) from None
+
+
+def _open_xlsx_inner(src: _Source, sheet: str | None, notes: list) -> _Table:
     import openpyxl
 
     handle = src.binary()
@@ -972,14 +1126,9 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
             handle.close()
 
         wb.close = _close
-    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as exc:
+    except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged workbook
         handle.close()
-        raise DataFileError(
-            f"the workbook cannot be opened ({type(exc).__name__}: {_show(exc)}). It may be "
-            "damaged or protected with a password. Open it in the spreadsheet program and save "
-            "it again as .xlsx, or export the measurements as CSV.",
-            file=src.name,
-        ) from None
+        raise _xlsx_open_failure(src, exc) from None
     names = list(wb.sheetnames)
     if sheet is None:
         if not names:
@@ -1009,7 +1158,26 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     if src.path is not None and Path(src.name).suffix.lower() not in (".xlsx", ".xlsm"):
         notes.append("the file is an Excel workbook despite its name; read it as .xlsx")
 
-    merged = _merged_ranges(wb, ws)
+    try:
+        merged = _merged_ranges(wb, ws)
+        header, header_row, first_row = _xlsx_header(ws)
+    except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged workbook
+        wb.close()
+        raise _xlsx_failure(src, exc, sheet=sheet_name) from None
+    if header is None:
+        wb.close()
+        raise DataFileError(
+            f"sheet '{sheet_name}' is empty. Put the column names in the first row and the "
+            "measurements below them, or choose the sheet that holds them.",
+            file=src.name, value=sheet_name,
+        )
+    while header and header[-1] == "":
+        header.pop()
+    return _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row)
+
+
+def _xlsx_header(ws):
+    """(header cells, header row, first filled row) of a sheet; header None when empty."""
     header = None
     header_row = 0
     first_row = None
@@ -1029,16 +1197,10 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
             break
         if r - first_row >= 10:
             break
-    if header is None:
-        wb.close()
-        raise DataFileError(
-            f"sheet '{sheet_name}' is empty. Put the column names in the first row and the "
-            "measurements below them, or choose the sheet that holds them.",
-            file=src.name, value=sheet_name,
-        )
-    while header and header[-1] == "":
-        header.pop()
+    return header, header_row, first_row
 
+
+def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) -> _Table:
     fill: dict[int, list] = {}
     for (r1, c1, r2, c2) in merged:
         if r1 <= header_row <= r2 and (c1 != c2 or r1 != r2):
@@ -1057,11 +1219,21 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
     width = len(header)
 
     def chunks():
+        at = [header_row]  # the last row read, for the message if the next one fails
+        try:  # a damaged sheet fails while its rows are read: say where
+            yield from xlsx_rows(at)
+        except StudyInputError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged sheet
+            raise _xlsx_failure(src, exc, sheet=sheet_name, row=at[0] + 1) from None
+
+    def xlsx_rows(at):
         rows_buf: list[int] = []
         cols_buf: list[list] = [[] for _ in range(width)]
         r = header_row
         for values in ws.iter_rows(min_row=header_row + 1, values_only=True):
             r += 1
+            at[0] = r
             rows_buf.append(r)
             nv = len(values)
             for j in range(width):
@@ -1225,7 +1397,22 @@ def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
                 raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
 
 
-def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None) -> None:
+def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None, *,
+                            damage_known: bool = False) -> None:
+    """See :func:`_check_unsaved_formulas_inner`. A workbook the parser fails on is reported
+    as damaged, unless ``damage_known`` (the first reading already failed with a message
+    that says where: that message stands)."""
+    try:
+        _check_unsaved_formulas_inner(src, table, targets)
+    except StudyInputError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged workbook
+        if damage_known:
+            return
+        raise _xlsx_failure(src, exc, sheet=table.sheet) from None
+
+
+def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = None) -> None:
     """Refuse formula cells whose results were never saved in the workbook.
 
     A workbook written by a program that does not calculate (a script, some exports) stores
@@ -1241,7 +1428,7 @@ def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None) -
         handle = src.binary()
         try:
             wb = openpyxl.load_workbook(handle, read_only=True, data_only=False)
-        except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError):
+        except Exception:  # noqa: BLE001 - the first reading worked; this is only a check
             handle.close()
             return
         try:
@@ -1271,8 +1458,8 @@ def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None) -
     try:
         wb = openpyxl.load_workbook(handle, read_only=True, data_only=False)
         wb_values = openpyxl.load_workbook(handle_values, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError):
-        handle.close()  # the first reading worked; this is only a check
+    except Exception:  # noqa: BLE001 - the first reading worked; this is only a check
+        handle.close()
         handle_values.close()
         return
     try:
@@ -1645,8 +1832,8 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
             result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
                                     n_idx, subgroup_size, notes, warnings_)
     except DataFileError:
-        if src.kind == "xlsx":
-            _check_unsaved_formulas(src, table)  # the real cause of an "empty" label or cell
+        if src.kind == "xlsx":  # the real cause of an "empty" label or cell, if there is one
+            _check_unsaved_formulas(src, table, damage_known=True)
         raise
     characteristics, n_rows = result
     _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
@@ -2050,7 +2237,7 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
             f"'{name}': only one value ({valid[0]:g}); a study needs many more (common "
             "practice: at least 25 subgroups or 100 individual values)"
         )
-    elif valid.size > 1 and np.ptp(valid) == 0:
+    elif valid.size > 1 and valid.max() == valid.min():  # (ptp overflows near 1e308)
         warnings_.append(
             f"'{name}': all {valid.size} values are {valid[0]:g}, so there is no spread and no "
             "capability can be computed. Check that the gauge resolution is fine enough and "

@@ -411,7 +411,7 @@ def test_effective_df_matches_simulated_cv(kind):
 def test_errors_are_clear():
     with pytest.raises(AnalysisError, match="zero spread"):
         capability([5.0] * 10, lsl=4, usl=6)
-    with pytest.raises(AnalysisError, match="`within_sigma`"):
+    with pytest.raises(AnalysisError, match="within-subgroup sigma .* zero or below the resolution"):
         capability(NIST10, lsl=40, usl=60, within_sigma=0.0)
     with pytest.raises(SpecError, match=r"`usl` \(9.5\) must be greater than `lsl` \(10\)"):
         capability(NIST10, lsl=10.0, usl=9.5)
@@ -484,7 +484,7 @@ def test_model_band():
     assert b.meeting == ["lognormal"] and b.failing == ["normal", "weibull"]
     same = model_band({"a": 1.8, "b": 1.9}, 1.67)
     assert not same.verdict_changes and same.warning is None
-    with pytest.raises(StudyInputError, match="no models with a value"):
+    with pytest.raises(StudyInputError, match="no model with an index value"):
         model_band({"a": None}, 1.0)
 
 

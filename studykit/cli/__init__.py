@@ -13,6 +13,7 @@ import importlib
 import sys
 
 from studykit import __version__
+from studykit.cli._output import EscapingWriter
 from studykit.errors import StudyInputError
 
 # subcommand modules, in the order --help lists them; a module that is not there yet is skipped
@@ -45,6 +46,8 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 0
+    out, err = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = EscapingWriter(out), EscapingWriter(err)  # no raw control chars
     try:
         return int(args.func(args) or 0)
     except StudyInputError as exc:
@@ -55,6 +58,8 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    finally:
+        sys.stdout, sys.stderr = out, err
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -11,6 +11,7 @@ import json
 import sys
 
 from studykit.data import Measurements, read_measurements
+from studykit.errors import printable
 
 
 def register(subparsers) -> None:
@@ -65,18 +66,23 @@ def _sizes_text(c) -> str:
 
 
 def format_check(m: Measurements) -> str:
-    """Plain-text report of what was read (used by ``studykit check``)."""
-    lines = [f"File:       {m.source}", f"SHA-256:    {m.sha256}"]
+    """Plain-text report of what was read (used by ``studykit check``).
+
+    Text from the file (names, units, labels in notes and warnings) is shown with its control
+    characters escaped (:func:`studykit.errors.printable`): one table row per line, and no
+    terminal escape sequence from a cell reaches the terminal.
+    """
+    lines = [f"File:       {printable(m.source)}", f"SHA-256:    {m.sha256}"]
     how = {"wide": "wide (one column per characteristic)",
            "long": "long (one row per value)"}[m.layout]
     lines.append(f"Layout:     {how}")
     if m.sheet:
-        lines.append(f"Sheet:      {m.sheet}")
+        lines.append(f"Sheet:      {printable(m.sheet)}")
     if m.separator is not None:
         sep = {",": "comma", ";": "semicolon", "\t": "tab"}.get(m.separator, repr(m.separator))
         lines.append(f"Text:       {sep}-separated, decimal sign '{m.decimal}', {m.encoding}")
     if m.subgroup_source == "column":
-        sg = f"from column '{m.subgroup_column}'"
+        sg = f"from column '{printable(m.subgroup_column)}'"
     elif m.subgroup_source == "size":
         sg = f"{m.subgroup_size} consecutive values each"
     else:
@@ -89,7 +95,7 @@ def format_check(m: Measurements) -> str:
     for c in m.characteristics:
         s = c.summary()
         table.append((
-            c.name, c.unit or "-", str(c.n_valid), str(c.n_missing),
+            printable(c.name), printable(c.unit or "-"), str(c.n_valid), str(c.n_missing),
             str(c.n_subgroups) if m.subgroup_source != "none" else "-",
             _sizes_text(c) if m.subgroup_source != "none" else "-",
             "-" if s["min"] is None else f"{s['min']:g}",
@@ -104,10 +110,10 @@ def format_check(m: Measurements) -> str:
             lines.append("  ".join("-" * w for w in widths))
     lines.append("")
     lines.append("Detected:")
-    lines += [f"  - {n}" for n in m.notes]
+    lines += [f"  - {printable(n)}" for n in m.notes]
     if m.warnings:
         lines.append("Warnings:")
-        lines += [f"  ! {w}" for w in m.warnings]
+        lines += [f"  ! {printable(w)}" for w in m.warnings]
     else:
         lines.append("Warnings:   none")
     return "\n".join(lines) + "\n"

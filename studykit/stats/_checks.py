@@ -54,3 +54,78 @@ def check_sample(x, *, name: str = "x", minimum: int = 3, before: str, needed_fo
             f"`{name}` has zero spread (every value is {float(arr[0]):g}); {zero_spread}"
         )
     return arr
+
+
+#: Readings larger than this in magnitude are refused: their squares and sums overflow double
+#: precision (about 1.8e308) in variances and likelihoods. Our limit (any measurement in a
+#: sensible unit is far inside it).
+MAX_MAGNITUDE = 1e100
+#: A standard deviation within this many units in the last place of the readings' magnitude is
+#: rounding noise (e.g. 0.3 and 0.1 + 0.2 = 0.30000000000000004): treated as zero spread.
+NOISE_ULPS = 16
+#: A spread below this fraction of the mean is refused: double precision keeps about 16
+#: significant digits, so such a spread has at most 4 left ("precision collapse").
+MIN_RELATIVE_SPREAD = 1e-12
+
+
+def check_resolution(x, *, name: str = "the values") -> None:
+    """Refuse readings that double precision cannot analyse, with a message in user words.
+
+    * magnitude above :data:`MAX_MAGNITUDE` (or every reading non-zero and below its inverse):
+      sums and squares overflow or underflow;
+    * a standard deviation at the resolution of the readings (at most :data:`NOISE_ULPS`
+      units in the last place of their largest magnitude): the spread is rounding noise and is
+      treated as zero, so no limits or indices exist (instead of a Cp of 1e13);
+    * a standard deviation below :data:`MIN_RELATIVE_SPREAD` times the mean: too few digits
+      of the spread survive ("precision collapse").
+
+    ``x`` holds finite readings (missing values already left out).
+
+    Examples
+    --------
+    >>> check_resolution([10.01, 10.02, 9.98])
+    >>> try:
+    ...     check_resolution([0.3, 0.1 + 0.2, 0.3], name="'gap'")
+    ... except AnalysisError as exc:
+    ...     print(str(exc)[:45])
+    the readings of 'gap' differ only by rounding
+    """
+    arr = np.asarray(x, dtype=float).ravel()
+    if arr.size < 2:
+        return
+    big = float(np.max(np.abs(arr)))
+    if big > MAX_MAGNITUDE:
+        raise AnalysisError(
+            f"the readings of {name} reach {big:.3g} in size; numbers beyond {MAX_MAGNITUDE:g} "
+            "overflow in the analysis (their squares and sums exceed double precision). "
+            "Record them in a larger unit, or check the import (a column of codes or "
+            "serial numbers read as measurements?)."
+        )
+    if 0.0 < big < 1.0 / MAX_MAGNITUDE:
+        raise AnalysisError(
+            f"the readings of {name} are all below {big:.3g} in size; their squares underflow "
+            "double precision. Record them in a smaller unit (e.g. micrometres instead of "
+            "metres)."
+        )
+    if float(np.ptp(arr)) == 0.0:
+        return  # exactly equal readings: the callers' own zero-spread messages apply
+    mean = float(np.mean(arr))
+    sd = float(np.std(arr))
+    resolution = float(np.spacing(big))
+    if sd <= NOISE_ULPS * resolution:
+        raise AnalysisError(
+            f"the readings of {name} differ only by rounding: their standard deviation "
+            f"({sd:.3g}) is within {NOISE_ULPS} units of the last digit double precision "
+            f"keeps at their size ({resolution:.3g}). The spread is treated as zero, so no "
+            "control limits or capability indices can be computed (they would be "
+            "astronomically large). Check the gauge resolution (it may be too coarse for this "
+            "tolerance) or the data import."
+        )
+    if sd < MIN_RELATIVE_SPREAD * abs(mean):
+        raise AnalysisError(
+            f"the spread of the readings of {name} (standard deviation {sd:.3g}) is less than "
+            f"{MIN_RELATIVE_SPREAD:g} of their mean ({mean:.12g}): double precision keeps about "
+            "16 significant digits, so too few digits of the spread are left to analyse "
+            "(precision collapse). Record the deviations from the nominal value instead "
+            "(e.g. reading - nominal), or check the import."
+        )

@@ -42,7 +42,7 @@ import numpy as np
 from scipy import optimize, special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
-from studykit.stats._checks import check_sample
+from studykit.stats._checks import NOISE_ULPS, check_resolution, check_sample
 
 __all__ = [
     "TAIL_PROBABILITY",
@@ -635,6 +635,7 @@ def capability(
             f"`method` '{method}' needs a fitted non-normal `model`; none was given."
         )
 
+    check_resolution(arr)  # overflow, rounding-noise spread, precision collapse
     mean = float(arr.mean())
     overall_sigma = float(arr.std(ddof=1))
     if not overall_sigma > 0:
@@ -655,10 +656,14 @@ def capability(
             within_sigma = float(within_sigma)
         except (TypeError, ValueError):
             raise StudyInputError(f"`within_sigma` ({within_sigma!r}) must be a number.") from None
-        if not (math.isfinite(within_sigma) and within_sigma > 0):
+        floor = NOISE_ULPS * float(np.spacing(np.max(np.abs(arr))))
+        if not (math.isfinite(within_sigma) and within_sigma > floor):
             raise AnalysisError(
-                f"`within_sigma` ({within_sigma!r}) must be a positive finite number; a zero "
-                "within sigma would make Cp/Cpk infinite. Check the control-chart estimate."
+                f"the within-subgroup sigma ({within_sigma:.3g}) is zero or below the "
+                f"resolution of the readings ({floor:.3g}): the values within each subgroup (or "
+                "each moving range) show no variation, so Cp and Cpk would be infinite. Check "
+                "the gauge resolution (it may be too coarse for this tolerance) or the data "
+                "import."
             )
         if df_within is None:
             df_within = n - 1
@@ -1481,13 +1486,18 @@ def model_band(index_by_model: dict, threshold: float) -> ModelBand:
     (True, ['normal'])
     """
     if not isinstance(index_by_model, dict):
-        raise StudyInputError("`index_by_model` must be a dict of model name to index value.")
+        raise StudyInputError(
+            "the model band needs the index under each model (model name -> value)."
+        )
     vals = {str(k): float(v) for k, v in index_by_model.items() if v is not None}
     if not vals:
-        raise StudyInputError("`index_by_model` has no models with a value; give at least one.")
+        raise StudyInputError("the model band has no model with an index value.")
     bad = [k for k, v in vals.items() if not math.isfinite(v)]
     if bad:
-        raise StudyInputError(f"`index_by_model` value for {bad[0]!r} is not a finite number.")
+        raise StudyInputError(
+            f"the index under the model {bad[0]!r} is not a finite number, so the model band "
+            "cannot be drawn; check the readings for extreme values."
+        )
     threshold = float(threshold)
     low, high = min(vals.values()), max(vals.values())
     meeting = sorted(k for k, v in vals.items() if v >= threshold)

@@ -69,6 +69,42 @@ def _boxcox_llf(lam: float, lx: np.ndarray) -> float:
     return (lam - 1.0) * float(lx.sum()) - 0.5 * n * logvar
 
 
+#: Box-Cox is refused when the readings' relative spread (sd of log x) is below this: a power
+#: transformation cannot change the shape of readings that agree to six digits, and lambda
+#: would be set by rounding. Our threshold, no source.
+BOXCOX_MIN_RELATIVE_SPREAD = 1e-6
+
+
+def _var_slope(lam: float, ls: np.ndarray) -> float:
+    """Half the derivative in lambda of var(y_lam) for centred logs ``ls`` (sum 0): with
+    sum log u = 0 the profile log-likelihood is -n/2 log var(y_lam), so its maximum is the
+    zero of this slope. y = expm1(lam ls)/lam, dy/dlam = (ls exp(lam ls) - y)/lam."""
+    if abs(lam) < 1e-12:
+        y, dy = ls, 0.5 * ls * ls
+    else:
+        a = lam * ls
+        y = np.expm1(a) / lam
+        dy = (ls * np.exp(a) - y) / lam
+    return float(np.mean((y - y.mean()) * dy))
+
+
+def _polish_lambda(lam: float, ls: np.ndarray) -> float:
+    """Brent's maximum of the profile likelihood is only as precise as a comparison of nearly
+    equal likelihoods allows (about 1e-8 relative); the zero of the likelihood's slope next to
+    it is precise to rounding, so lambda comes out the same for the data in any unit."""
+    if not math.isfinite(lam) or abs(lam) * float(np.abs(ls).max()) >= 30.0:
+        return lam
+    step = 1e-5 * max(1.0, abs(lam))
+    lo, hi = lam - step, lam + step
+    try:
+        s_lo, s_hi = _var_slope(lo, ls), _var_slope(hi, ls)
+        if not (math.isfinite(s_lo) and math.isfinite(s_hi)) or s_lo * s_hi > 0:
+            return lam
+        return float(optimize.brentq(_var_slope, lo, hi, args=(ls,), xtol=1e-15))
+    except (ValueError, RuntimeError, FloatingPointError):
+        return lam
+
+
 def _boxcox_forward(v: np.ndarray, lam: float) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         out = special.boxcox(np.where(v > 0, v, 1.0), lam)
@@ -116,6 +152,9 @@ class BoxCoxResult:
         spread of the process on the original scale.
     shapiro_before, shapiro_after : tuple of float
         Shapiro-Wilk (W, p) of the readings and of the transformed readings.
+    scale : float
+        Geometric mean of the shifted readings: :meth:`scaled_transform` divides by it first
+        (1.0 when not known).
     """
 
     n: int
@@ -134,6 +173,25 @@ class BoxCoxResult:
     original_upper: float
     shapiro_before: tuple
     shapiro_after: tuple
+    scale: float = 1.0
+
+    def scaled_transform(self, values):
+        """Box-Cox transform of ``(values + shift) / scale`` with ``lam_used``.
+
+        An increasing affine function of :meth:`transform` (``transform(x) = scale^lam *
+        scaled_transform(x) + (scale^lam - 1) / lam``), so capability indices computed on
+        either scale are the same; this one keeps its digits whatever the unit of the data
+        (in metres, ``x^lam - 1`` of readings near 0.01 cancels to a few significant digits).
+        """
+        v = (np.asarray(values, dtype=float) + self.shift) / self.scale
+        out = _boxcox_forward(v, self.lam_used)
+        return float(out) if out.ndim == 0 else out
+
+    def scaled_inverse(self, values):
+        """Inverse of :meth:`scaled_transform`."""
+        y = np.asarray(values, dtype=float)
+        out = _boxcox_backward(y, self.lam_used) * self.scale - self.shift
+        return float(out) if out.ndim == 0 else out
 
     def transform(self, values):
         """Box-Cox transform of ``values + shift`` with ``lam_used``.
@@ -175,6 +233,7 @@ class BoxCoxResult:
             "original_upper": _f(self.original_upper),
             "shapiro_before": [_f(v) for v in self.shapiro_before],
             "shapiro_after": [_f(v) for v in self.shapiro_after],
+            "scale": _f(self.scale),
         }
 
 
@@ -219,6 +278,14 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
     interval is {lam : l(lam) >= l(lam_hat) - chi2_{1, 1-alpha}/2}. This is the computation of
     scipy.stats.boxcox_normmax(x, method='mle') and scipy.stats.boxcox(x, alpha=...).
 
+    Change of unit: the readings are divided by their geometric mean g before the search (Box &
+    Cox 1964, section 3, write the likelihood with the transformation normalised by the
+    geometric mean, for this reason). For readings c x the profile likelihood only gains the
+    constant -n log c, so lambda and its interval do not depend on the unit; dividing by g
+    makes the computation do the same (in metres or micrometres the unscaled x^lam - 1 loses
+    its digits or overflows). ``loglik`` is reported for the readings as given. Capability
+    on the transformed scale uses :meth:`BoxCoxResult.scaled_transform`.
+
     References
     ----------
     Box, G. E. P. & Cox, D. R. (1964). An analysis of transformations. JRSS B 26, 211-252.
@@ -262,21 +329,33 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
     v = x + shift
     lx = np.log(v)
     n = x.size
+    sum_lx = float(lx.sum())
+    log_scale = sum_lx / n
+    scale = math.exp(log_scale)  # geometric mean: the search runs on v / g (see Notes)
+    ls = lx - log_scale
+    if not float(ls.std()) >= BOXCOX_MIN_RELATIVE_SPREAD:
+        raise AnalysisError(
+            f"Box-Cox: the relative spread of the data (sd/mean = "
+            f"{_fmt(float(v.std() / v.mean()))}) is too small for a power transformation to "
+            f"change their shape (below {BOXCOX_MIN_RELATIVE_SPREAD:g}: every lambda gives the "
+            "same shape within rounding). Use `shift` to measure from a reference value, or a "
+            "fitted distribution."
+        )
 
     def neg(lmb):
-        return -_boxcox_llf(lmb, lx)
+        return -_boxcox_llf(lmb, ls)
 
     with np.errstate(all="ignore"):
-        lam_hat = float(optimize.brent(neg, brack=(-2.0, 2.0)))
-    ll_hat = -neg(lam_hat)
+        lam_hat = _polish_lambda(float(optimize.brent(neg, brack=(-2.0, 2.0))), ls)
+    ll_hat = -neg(lam_hat)  # for v / g; + (-sum log g) = - n log g for v, below
     cut = ll_hat - 0.5 * stats.chi2.ppf(1.0 - alpha, 1)
 
     def side(direction):
         step = 0.5
         for _ in range(60):
             b = lam_hat + direction * step
-            if _boxcox_llf(b, lx) < cut:
-                return float(optimize.brentq(lambda t: _boxcox_llf(t, lx) - cut,
+            if _boxcox_llf(b, ls) < cut:
+                return float(optimize.brentq(lambda t: _boxcox_llf(t, ls) - cut,
                                              *sorted((lam_hat, b)), xtol=1e-12))
             step *= 2.0
         return direction * math.inf
@@ -331,20 +410,25 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         y = _boxcox_forward(v, used)
         my = float(y.mean())
         sy = float(y.std(ddof=1))
-    if not (math.isfinite(lam_hat) and math.isfinite(my) and math.isfinite(sy)
-            and sy > 1e-9 * abs(my)):
+        yc = _boxcox_forward(v / scale, used)  # the same readings, unit-free
+        myc = float(yc.mean())
+        syc = float(yc.std(ddof=1))
+    if not (math.isfinite(lam_hat) and math.isfinite(myc) and math.isfinite(syc)
+            and syc > 1e-9 * max(1.0, abs(myc))):
         raise AnalysisError(
             f"Box-Cox: lambda {_fmt(used)} makes the transformed readings overflow or collapse; "
             f"the relative spread of the data (sd/mean = {_fmt(float(v.std() / v.mean()))}) is "
             "too small for a power transformation to change their shape. Use `shift` to "
             "measure from a reference value, or a fitted distribution."
         )
-    back = _boxcox_backward(np.array([my, my - 3 * sy, my + 3 * sy]), used) - shift
+    back = (_boxcox_backward(np.array([myc, myc - 3 * syc, myc + 3 * syc]), used) * scale
+            - shift)
     sw0 = stats.shapiro(x)
-    sw1 = stats.shapiro(y)
+    sw1 = stats.shapiro(yc)  # W is unchanged by the affine map between y and yc
     return BoxCoxResult(
         n=n, lam=lam_hat, lam_interval=interval, alpha=float(alpha), lam_used=float(used),
-        note=note, shift=float(shift), loglik=ll_hat, loglik_used=_boxcox_llf(used, lx),
+        note=note, shift=float(shift), loglik=ll_hat - sum_lx,
+        loglik_used=_boxcox_llf(used, ls) - sum_lx, scale=scale,
         transformed_mean=my, transformed_sd=sy, original_center=float(back[0]),
         original_lower=float(back[1]), original_upper=float(back[2]),
         shapiro_before=(float(sw0.statistic), float(sw0.pvalue)),
