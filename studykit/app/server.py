@@ -85,6 +85,10 @@ class StudykitVoila(Voila):
             self.token = token
         os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url,
                                                     BOKEHJS_ROUTE)
+        # (browser signing) tell the kernels whether this server is loopback, token or open
+        from studykit.app.access import ENV_ACCESS, access_kind
+
+        os.environ[ENV_ACCESS] = access_kind(self.ip, bool(self.token) or bool(self.auto_token))
         super().start()
 
 
