@@ -64,7 +64,11 @@ def changes_html(entries, *, limit: int = 4) -> str:
     if not entries:
         return ""
     shown = entries[-limit:][::-1]
-    items = "".join(f"<li><b>{esc(e.who)}</b>: {esc(e.what)}"
+    def what(e) -> str:
+        text = str((e.detail or {}).get("text") or "")
+        return e.what + (f' "{text[:80]}{"…" if len(text) > 80 else ""}"' if text else "")
+
+    items = "".join(f"<li><b>{esc(e.who)}</b>: {esc(what(e))}"
                     + (f" <span class='sk-small'>({esc(e.why)})</span>" if e.why else "")
                     + f" <span class='sk-small'>· {_when(e.when)} UTC</span></li>"
                     for e in shown)
