@@ -168,7 +168,7 @@ def test_live_update_and_no_stale_page_after_a_change(browser, live):
         # no stale page: A's other steps show the removal as soon as they open
         open_step(a, "stability")
         pick(a, NAME)
-        a.wait_for_selector(f".sk-removal-table :text('gauge dropped, parts re-measured')")
+        a.wait_for_selector(".sk-removal-table :text('gauge dropped, parts re-measured')")
         assert "25 of 28" in a.locator(".sk-stability-summary").inner_text()
 
         # a comment made in A reaches B the same way
