@@ -28,8 +28,8 @@ Examples
 >>> try:
 ...     check_signoff(s, signoff, open_verdicts={})
 ... except SignOffRefused as exc:
-...     print(str(exc)[:60])
-A. Ruiz already signed this study as reviewed; one person ma
+...     print(str(exc)[:45])
+A. Ruiz already signed this study as reviewed
 """
 
 from __future__ import annotations
