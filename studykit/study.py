@@ -1177,6 +1177,9 @@ class Study:
             "signoffs": [st.to_dict() for st in states],
             "content_digest": self.content_digest(),
             "locked": any(st.valid and st.signoff.is_approval for st in states),
+            "signoff_rules": self.signoff_rules(),
+            "waivers": {n: {"reason": d.reason, "who": d.who, "when": d.when}
+                        for n, d in self.waivers().items()},
         }
 
 
