@@ -98,7 +98,7 @@ def open_verdicts(study: Study, results: Mapping[str, object]) -> dict[str, str]
         if name in waived:
             continue
         if name not in results:
-            out[name] = "not analysed"
+            out[name] = "not analysed yet"
             continue
         has, word = verdict_word(results[name])
         if not has:

@@ -11,7 +11,7 @@ import shutil
 
 import numpy as np
 import pytest
-from conftest import waive_open_verdicts
+from study_helpers import waive_open_verdicts
 from test_app_session import raw_values, reference_ppk
 
 from studykit.app.charts import control_chart_columns, histogram_columns, interval_columns

@@ -16,7 +16,7 @@ import threading
 
 import numpy as np
 import pytest
-from conftest import waive_open_verdicts
+from study_helpers import waive_open_verdicts
 
 from studykit.app.session import StudySession, demo_study_path
 from studykit.errors import StudyFileError, StudyInputError

@@ -6,7 +6,7 @@ from __future__ import annotations
 import shutil
 
 import pytest
-from conftest import waive_open_verdicts
+from study_helpers import waive_open_verdicts
 
 from studykit.app.overview import OverviewPanel
 from studykit.app.session import StudySession, demo_study_path

@@ -12,7 +12,7 @@ import logging
 import shutil
 
 import pytest
-from conftest import waive_open_verdicts
+from study_helpers import waive_open_verdicts
 
 from studykit.app.access import ENV_ACCESS
 from studykit.app.session import StudySession, demo_study_path

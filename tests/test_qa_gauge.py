@@ -8,7 +8,7 @@ import json
 from pathlib import Path
 
 import pytest
-from conftest import waive_open_verdicts
+from study_helpers import waive_open_verdicts
 
 from studykit.cli import main
 

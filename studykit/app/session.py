@@ -436,14 +436,16 @@ class StudySession:
     def _saved(self, changed: Iterable[str]) -> None:
         """After a write of this session: read the file back; the page counts as up to date
         when it was up to date before the write (the result reaches it in order)."""
-        before, _after = getattr(self.file, "last_write", (None, None))
+        before, after = getattr(self.file, "last_write", (None, None))
         was_current = self.page_version is None or self.page_version == self.view_version
         version = self.file.version()
         self.study = self.file.load()
         self.view_version = version
-        self.external_changes = []
+        # someone may have written right after this write: that is news for this page
+        self.external_changes = (self.file.entries_since(after)
+                                 if after is not None and version > after else [])
         if was_current and self.page_version is not None and before == self.page_version:
-            self.page_version = version
+            self.page_version = after  # not `version`: the page has not seen later writes
         self._notify(changed)
 
     def reload(self, *, changes: Sequence | None = None) -> None:
@@ -697,12 +699,18 @@ class StudySession:
         self._saved(())
         return s
 
-    def open_verdicts(self) -> dict[str, str]:
-        """Characteristics without a verdict and without a waiver (what blocks an approval)."""
+    def open_verdicts(self, *, analyse: bool = True) -> dict[str, str]:
+        """Characteristics without a verdict and without a waiver (what blocks an approval).
+
+        ``analyse=False`` uses only results already computed; the others show as "not
+        analysed" (cheap, for drawing the page; signing always analyses).
+        """
         from studykit.signoff_rules import open_verdicts
 
         results = {}
         for name in self.names:
+            if not analyse and not self.is_cached(name) and name not in self._errors:
+                continue
             try:
                 results[name] = self.result(name)
             except StudyInputError as exc:

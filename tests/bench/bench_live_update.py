@@ -51,7 +51,7 @@ def main() -> None:
         page.wait_for_selector(".sk-step-signoff", state="visible")
         page.locator(".sk-step-signoff").click()
         page.wait_for_selector(".sk-rules-box .sk-rules", state="attached")
-        page.wait_for_timeout(6000)  # first analysis of every characteristic (approval gate)
+        page.wait_for_timeout(3000)  # let the first drawing settle
         for i in range(args.runs):
             text = f"bench comment {i}"
             start = time.perf_counter()

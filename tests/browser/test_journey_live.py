@@ -260,13 +260,14 @@ def test_same_person_two_roles_and_the_approval_gate(browser, live):
         message(b, "P. Person already signed this study as reviewed")
         assert len(StudyFile(path).load().signoffs) == 1
 
-        # another person: the gate lists what has no verdict
+        # another person: the approval is refused, and the gate lists what has no verdict
         name_field(b).fill("M. Approver")
+        sign(b, "approved")
+        message(b, "an approval needs every characteristic to have a verdict")
+        b.wait_for_selector(".sk-open-verdicts :text('pull_off_force')")
         gate = b.locator(".sk-open-verdicts").inner_text()
         assert "pull_off_force: More data needed" in gate
         assert "leak_test_defectives: Not judged" in gate
-        sign(b, "approved")
-        message(b, "an approval needs every characteristic to have a verdict")
         shot(b, "approval-gate")
 
         # waivers with reasons, recorded from A, then B approves

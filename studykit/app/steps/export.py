@@ -157,8 +157,8 @@ class ExportStep:
                      "signature and then dropped: never saved, never written to a log. Several "
                      "signers sign in turn; each signature is added to the last signed PDF."
                      "</div>"),
-            self.ws.toolbar(),
-            widgets.HBox([field("Certificate", self.p12), field("Passphrase", self.passphrase),
+            widgets.HBox([field("Your name (written into the signature)", self.ws.who),
+                          field("Certificate", self.p12), field("Passphrase", self.passphrase),
                           field("Role", self.sign_role)],
                          layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end")),
             widgets.HBox([self.sign_pdf, self.sign_hint],

@@ -100,9 +100,13 @@ def open_verdicts_html(open_: dict) -> str:
     if not open_:
         return ""
     rows = "".join(f"<li><b>{esc(n)}</b>: {esc(w)}</li>" for n, w in open_.items())
-    return ('<div class="sk-void sk-open-verdicts"><b>Approval not possible yet.</b> These '
-            "characteristics have no verdict; settle them, or record a waiver with its reason "
-            f'for each:<ul style="margin:4px 0 0 0">{rows}</ul></div>')
+    if all(w == "not analysed yet" for w in open_.values()):
+        return ('<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
+                "known once every characteristic is analysed (<i>Analyse all "
+                "characteristics</i> in the overview, or an approval, does it).</div>")
+    return ('<div class="sk-void sk-open-verdicts"><b>An approval is not possible yet.</b> '
+            "These characteristics have no verdict; settle them, or record a waiver with its "
+            f'reason for each (below):<ul style="margin:4px 0 0 0">{rows}</ul></div>')
 
 
 def comments_html(session, name: str) -> str:
@@ -235,7 +239,7 @@ class SignoffStep:
         self.rules.value = rules_html(s)
         gate = {}
         if s.study.signoff_rules().get("approval_needs_verdicts"):
-            gate = {n: w for n, w in s.open_verdicts().items()}
+            gate = s.open_verdicts(analyse=False)  # analysing happens when someone approves
         self.gate.value = open_verdicts_html(gate)
         self._update_buttons()
 
@@ -256,6 +260,13 @@ class SignoffStep:
         self.waive.disabled = not (who and self.waive_reason.value.strip())
 
     def _on_sign(self) -> None:
+        try:
+            self._sign()
+        finally:
+            self._drawn = None  # a refused approval analysed every characteristic: show it
+            self.refresh(self.ws.context)
+
+    def _sign(self) -> None:
         ws, s = self.ws, self.ws.session
         signed = s.sign(who=ws.who_name, role=self.role.value, decision=self.decision.value,
                         comment=self.sign_comment.value)
