@@ -54,6 +54,8 @@ __all__ = [
     "CHAIN_GENESIS",
     "ChainCheck",
     "SignoffSignature",
+    "ChangeWatch",
+    "StaleView",
     "MIGRATIONS",
     "SCHEMA_VERSION",
     "AuditEntry",
@@ -628,6 +630,32 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
 
 
 # ---------------------------------------------------------------------------------------------
+# a view older than the file (live workbook pages, `study sign --saw`)
+
+
+class StaleView(StudyFileError):
+    """A change was made on a view of the study that is older than the study file.
+
+    Attributes
+    ----------
+    newer : list of AuditEntry
+        What was written to the file since the view was drawn (oldest first).
+    """
+
+    def __init__(self, message: str, newer=()):
+        super().__init__(message)
+        self.newer = list(newer)
+
+
+def describe_entries(entries, *, limit: int = 3) -> str:
+    """``"who: what; who: what"`` of the newest audit entries (for a stale-view message)."""
+    shown = list(entries)[-limit:]
+    text = "; ".join(f"{e.who}: {e.what}" for e in shown)
+    more = len(list(entries)) - len(shown)
+    return text + (f" (and {more} earlier)" if more > 0 else "")
+
+
+# ---------------------------------------------------------------------------------------------
 # records
 
 
@@ -897,9 +925,11 @@ class StudyFile:
                     "that you may write to it"
                 ) from None
             try:
+                before = self._check_expected(conn)
                 _chain_begin(conn)
                 yield conn
                 _chain_finish(conn)
+                self.last_write = (before, self._version(conn))
                 conn.execute("COMMIT")
             except sqlite3.DatabaseError as exc:
                 if conn.in_transaction:
@@ -933,6 +963,55 @@ class StudyFile:
                 raise
         finally:
             conn.close()
+
+    # -- versions: what a view of the study was drawn from ------------------------------------
+    @staticmethod
+    def _version(conn) -> int:
+        return int(conn.execute("SELECT coalesce(max(id), 0) FROM audit_log").fetchone()[0])
+
+    def version(self) -> int:
+        """The study file's version: the id of its newest audit entry (every write adds one)."""
+        with self._read() as conn:
+            return self._version(conn)
+
+    def entries_since(self, version: int) -> list[AuditEntry]:
+        """Audit entries written after ``version`` (see :meth:`version`), oldest first."""
+        with self._read() as conn:
+            rows = conn.execute(
+                "SELECT id, at, who, what, why, detail_json FROM audit_log WHERE id > ? "
+                "ORDER BY id", (int(version),)).fetchall()
+        return [AuditEntry(i, at, who, what, why, json.loads(d))
+                for i, at, who, what, why, d in rows]
+
+    @contextmanager
+    def expecting(self, version: int | None):
+        """Writes inside this block are refused (:class:`StaleView`) when the file changed
+        after ``version``: the person acted on an older view. None: no check.
+
+        The check runs inside each write's transaction, so nothing can slip in between.
+        """
+        previous = getattr(self, "_expected", None)
+        self._expected = version
+        try:
+            yield self
+        finally:
+            self._expected = previous
+
+    def _check_expected(self, conn) -> int:
+        """Inside a write transaction: the current version, or StaleView if it moved on."""
+        current = self._version(conn)
+        expected = getattr(self, "_expected", None)
+        if expected is not None and current != int(expected):
+            rows = conn.execute(
+                "SELECT id, at, who, what, why, detail_json FROM audit_log WHERE id > ? "
+                "ORDER BY id", (int(expected),)).fetchall()
+            newer = [AuditEntry(i, at, who, what, why, json.loads(d))
+                     for i, at, who, what, why, d in rows]
+            raise StaleView(
+                "the study changed after this view of it was drawn ("
+                + (describe_entries(newer) or "a newer entry") + "); nothing was saved. Look "
+                "at the study as it is now and do it again if it still applies", newer)
+        return current
 
     @staticmethod
     def _audit(conn, *, who: str, what: str, why: str = "", detail: Mapping | None = None,
@@ -1281,7 +1360,9 @@ class StudyFile:
             return self._insert_comment(conn, c)
 
     def add_signoff(self, name: str, *, role: str, decision: str, comment: str = "",
-                    when: str = "", certificate: tuple | None = None) -> SignOff:
+                    when: str = "", certificate: tuple | None = None,
+                    expected_digest: str | None = None,
+                    check: Callable[[Study, SignOff], None] | None = None) -> SignOff:
         """Sign the study as it stands now; returns the SignOff with the content digest and the
         chain head it signed.
 
@@ -1289,11 +1370,28 @@ class StudyFile:
         over the sign-off and its chain head (kept in its audit entry; the passphrase is never
         stored); :meth:`signoff_signatures` checks it, and the chain check reports one that no
         longer holds.
+
+        ``expected_digest`` is the content digest the signer saw (the page, or ``study show``):
+        when the study's content differs from it, nothing is saved and :class:`StaleView` says
+        what changed. ``check(study, signoff)`` (e.g. the sign-off rules of
+        :mod:`studykit.signoff_rules`) runs inside the same transaction and may refuse by
+        raising.
         """
         with self._write() as conn:
             study = self._load(conn)
             s = study.sign(name, role=role, decision=decision, comment=comment,
                            when=when).signoffs[-1]
+            if expected_digest is not None:
+                seen = str(expected_digest).strip().lower()
+                if len(seen) < 12 or not s.digest.startswith(seen):
+                    raise StaleView(
+                        f"the study's content is now {s.digest[:12]}..., not the "
+                        f"{seen[:12] or '(empty)'}... that was looked at: data or decisions "
+                        "changed after that view was drawn, so the sign-off would cover content "
+                        "its signer did not see; nothing was saved. Look at the study as it is "
+                        "now and sign again")
+            if check is not None:
+                check(study, s)
             self._insert_signoff(conn, s, len(study.signoffs), signer=certificate)
             return self._load(conn).signoffs[-1]
 
@@ -1406,6 +1504,37 @@ def _damaged(path, exc) -> str:
     what = type(exc).__name__ if not str(exc) else str(exc).splitlines()[0][:160]
     return (f"study file '{path}' is damaged and cannot be read ({what}): restore it from a "
             "backup")
+
+
+class ChangeWatch:
+    """Tells cheaply whether anyone wrote to a study file since the last look.
+
+    Keeps one read connection open and asks SQLite's ``PRAGMA data_version``, which changes
+    when another connection commits; only then is the file's version (newest audit id) read.
+    For the live workbook, which asks a few times a second.
+    """
+
+    def __init__(self, study_file: StudyFile):
+        self.file = study_file
+        self._conn = None
+        self._data_version = None
+
+    def version(self) -> int:
+        """The file's current version (see :meth:`StudyFile.version`)."""
+        if self._conn is None:
+            self._conn = self.file._connect()
+        dv = self._conn.execute("PRAGMA data_version").fetchone()[0]
+        if dv != self._data_version or self._last is None:
+            self._data_version = dv
+            self._last = StudyFile._version(self._conn)
+        return self._last
+
+    _last: int | None = None
+
+    def close(self) -> None:
+        if self._conn is not None:
+            self._conn.close()
+            self._conn = None
 
 
 def load_study(path: str | os.PathLike) -> Study:

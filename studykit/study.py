@@ -33,6 +33,7 @@ __all__ = [
     "ATTRIBUTE_CHARTS",
     "BASES",
     "CHARTS",
+    "DEFAULT_SIGNOFF_RULES",
     "DIGEST_NEUTRAL_ACTIONS",
     "INDICES",
     "SIGNOFF_DECISIONS",
@@ -69,6 +70,8 @@ ACTIONS = (
     "set_chart",
     "note",
     "void_signoff",
+    "set_signoff_rules",
+    "waive_verdict",
 )
 #: actions that do not change what the study computes (they never void a sign-off)
 DIGEST_NEUTRAL_ACTIONS = frozenset({"note", "void_signoff"})
@@ -894,6 +897,30 @@ class Study:
             return str(chosen["chart"])
         return self.characteristics[name].chart
 
+    def signoff_rules(self) -> dict:
+        """The sign-off rules in force: :data:`DEFAULT_SIGNOFF_RULES` updated by every
+        ``set_signoff_rules`` decision in order (each carries who, when and why)."""
+        rules = dict(DEFAULT_SIGNOFF_RULES)
+        for d in self.decisions:
+            if d.action == "set_signoff_rules":
+                rules.update(dict(d.payload.get("rules", {})))
+        return rules
+
+    def waivers(self) -> dict[str, Decision]:
+        """Characteristic -> the ``waive_verdict`` decision in force (latest one says waived).
+
+        A waiver lets an approval stand although the characteristic has no verdict; its reason
+        is part of the content digest, so adding or withdrawing one voids earlier sign-offs.
+        """
+        out: dict[str, Decision] = {}
+        for d in self.decisions:
+            if d.action == "waive_verdict" and d.characteristic is not None:
+                if d.payload.get("waived"):
+                    out[d.characteristic] = d
+                else:
+                    out.pop(d.characteristic, None)
+        return out
+
     def _effective_decisions(self) -> dict:
         eff: dict[str, dict] = {}
         for name in sorted(self.characteristics):
@@ -1159,6 +1186,9 @@ class Study:
             "signoffs": [st.to_dict() for st in states],
             "content_digest": self.content_digest(),
             "locked": any(st.valid and st.signoff.is_approval for st in states),
+            "signoff_rules": self.signoff_rules(),
+            "waivers": {n: {"reason": d.reason, "who": d.who, "when": d.when}
+                        for n, d in self.waivers().items()},
         }
 
 
@@ -1203,12 +1233,51 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             raise StudyInputError(
                 f"set_chart: `chart` ({chart!r}) must be one of {', '.join(CHARTS)}"
             )
+    elif d.action in ("set_signoff_rules", "waive_verdict"):
+        _check_signoff_setting(d)
     elif d.action == "void_signoff":
         idx = d.payload.get("signoff")
         if isinstance(idx, bool) or not isinstance(idx, int) or not 0 <= idx < n_signoffs:
             raise StudyInputError(
                 f"void_signoff: `signoff` ({idx!r}) must be the index of an existing sign-off"
             )
+
+
+#: sign-off rules that apply unless the study records others (``set_signoff_rules``)
+DEFAULT_SIGNOFF_RULES = {
+    # one person may not hold two roles among the sign-offs that still hold
+    "distinct_signers": True,
+    # an approval needs every characteristic to have a verdict, or a recorded waiver
+    "approval_needs_verdicts": True,
+    # a rejection records its reason (the sign-off's comment)
+    "rejection_needs_reason": True,
+}
+
+
+def _check_signoff_setting(d: Decision) -> None:
+    """Validate a ``set_signoff_rules`` (study-wide) or ``waive_verdict`` decision."""
+    if d.action == "set_signoff_rules":
+        if d.characteristic is not None:
+            raise StudyInputError("set_signoff_rules applies to the whole study: leave "
+                                  "`characteristic` empty")
+        rules = d.payload.get("rules")
+        if not isinstance(rules, Mapping) or not rules:
+            raise StudyInputError("a set_signoff_rules decision needs payload {'rules': {name: "
+                                  f"true/false}}; names: {', '.join(DEFAULT_SIGNOFF_RULES)}")
+        for key, value in rules.items():
+            if key not in DEFAULT_SIGNOFF_RULES:
+                raise StudyInputError(f"unknown sign-off rule {key!r}; known rules: "
+                                      f"{', '.join(DEFAULT_SIGNOFF_RULES)}")
+            if not isinstance(value, bool):
+                raise StudyInputError(f"sign-off rule {key!r} must be true or false, got "
+                                      f"{value!r}")
+    else:
+        if d.characteristic is None:
+            raise StudyInputError("a waive_verdict decision needs the `characteristic` it "
+                                  "waives")
+        if not isinstance(d.payload.get("waived"), bool):
+            raise StudyInputError("a waive_verdict decision needs payload {'waived': true or "
+                                  "false, 'reason': ...}")
 
 
 def _check_chart_fits(c: Characteristic, chart: str) -> None:

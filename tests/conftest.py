@@ -12,3 +12,4 @@ ROOT = Path(__file__).resolve().parent.parent
 @pytest.fixture
 def repo_root() -> Path:
     return ROOT
+

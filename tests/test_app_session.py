@@ -16,10 +16,11 @@ import threading
 
 import numpy as np
 import pytest
+from study_helpers import waive_open_verdicts
 
 from studykit.app.session import StudySession, demo_study_path
 from studykit.errors import StudyFileError, StudyInputError
-from studykit.store import StudyFile
+from studykit.store import StaleView, StudyFile
 from studykit.study import Criteria
 
 NAME = "flange_thickness"
@@ -163,6 +164,7 @@ def test_model_choice_is_a_decision(study_path):
 
 
 def test_approval_locks_and_a_forced_change_voids_it(study_path):
+    waive_open_verdicts(study_path)
     session = StudySession(study_path)
     session.sign(who="M. Approver", role="approved", decision="approve", comment="ok")
     assert session.is_locked and session.state_text() == "Approved · locked"
@@ -179,7 +181,10 @@ def test_approval_locks_and_a_forced_change_voids_it(study_path):
     assert session.is_locked
 
 
-def test_two_sessions_sign_at_once_and_both_land(study_path):
+def test_two_sessions_sign_at_once_one_lands_the_other_is_refused_then_lands(study_path):
+    """Two pages drawn from the same file sign at the same moment: the file takes the first;
+    the second was made on a view that no longer shows every sign-off, so it is refused with
+    what changed, its page is redrawn, and signing again lands (issue 13, deliver 1)."""
     a, b = StudySession(study_path), StudySession(study_path)
     barrier = threading.Barrier(2)
     errors = []
@@ -188,8 +193,8 @@ def test_two_sessions_sign_at_once_and_both_land(study_path):
         try:
             barrier.wait()
             session.sign(who=who, role=role, decision="approve")
-        except Exception as exc:  # noqa: BLE001 - reported below
-            errors.append(exc)
+        except StaleView as exc:
+            errors.append((session, who, role, exc))
 
     threads = [threading.Thread(target=sign, args=(a, "P. One", "prepared")),
                threading.Thread(target=sign, args=(b, "R. Two", "reviewed"))]
@@ -197,11 +202,16 @@ def test_two_sessions_sign_at_once_and_both_land(study_path):
         t.start()
     for t in threads:
         t.join(30)
-    assert not errors
+    assert len(errors) == 1
+    session, who, role, exc = errors[0]
+    other = "R. Two" if who == "P. One" else "P. One"
+    assert other in str(exc) and "Nothing was saved" in str(exc)
+    # the refused session now shows the other sign-off, and may sign again
+    assert [st.signoff.name for st in session.signoff_state()] == [other]
+    assert [e.who for e in session.external_changes] == [other]
+    session.sign(who=who, role=role, decision="approve")
     names = sorted(s.name for s in StudyFile(study_path).load().signoffs)
     assert names == ["P. One", "R. Two"]
-    a.reload()
-    assert sorted(st.signoff.name for st in a.signoff_state()) == names
 
 
 def test_a_change_in_another_session_reaches_this_one_on_reload(study_path):

@@ -6,6 +6,7 @@ from __future__ import annotations
 import shutil
 
 import pytest
+from study_helpers import waive_open_verdicts
 
 from studykit.app.overview import OverviewPanel
 from studykit.app.session import StudySession, demo_study_path
@@ -100,6 +101,7 @@ def test_the_real_chart_steps_resync_on_reopen(study_path, monkeypatch):
 
 
 def test_header_shows_the_lock_as_soon_as_the_study_loads(study_path):
+    waive_open_verdicts(study_path)
     StudySession(study_path).sign(who="M. Approver", role="approved", decision="approve")
     wb = build_workbook(study_path)  # a study opens on its overview (Limits & targets)
     assert wb.current == "limits"
@@ -108,6 +110,7 @@ def test_header_shows_the_lock_as_soon_as_the_study_loads(study_path):
 
 
 def test_header_shows_a_voided_approval(study_path):
+    waive_open_verdicts(study_path)
     s = StudySession(study_path)
     s.sign(who="M. Approver", role="approved", decision="approve")
     s.exclude(NAME, "3", reason="late change", who="A. Tester", override_reason="ECN-7")

@@ -59,6 +59,9 @@ def test_exclude_sign_lock_override_log(files, capsys):
     new(files)
     path = str(files / "a.study")
     assert main(["study", "exclude", path, "bore", "2", "--reason", "setup part", "--who", "B"]) == 0
+    # two subgroups cannot be analysed; the lock is under test here, not the approval gate
+    assert main(["study", "rules", path, "--approval-needs-verdicts", "off", "--reason",
+                 "lock test on a tiny file", "--who", "B"]) == 0
     assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
                  "--who", "M. Brandt"]) == 0
     capsys.readouterr()
@@ -73,8 +76,8 @@ def test_exclude_sign_lock_override_log(files, capsys):
     assert "VOIDED (voided on" in out and "customer request" in out
     assert main(["study", "log", path, "--json"]) == 0
     log = json.loads(capsys.readouterr().out)
-    assert [e["what"].split()[0] for e in log] == ["create", "exclude", "sign-off:", "void",
-                                                  "exclude", "comment"]
+    assert [e["what"].split()[0] for e in log] == ["create", "exclude", "set_signoff_rules:",
+                                                  "sign-off:", "void", "exclude", "comment"]
 
 
 def test_new_refuses_unknown_name_and_existing_file(files, capsys):

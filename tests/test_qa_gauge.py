@@ -8,6 +8,7 @@ import json
 from pathlib import Path
 
 import pytest
+from study_helpers import waive_open_verdicts
 
 from studykit.cli import main
 
@@ -99,6 +100,7 @@ def approved(tmp_path):
 
     path = tmp_path / "pilot.study"
     shutil.copyfile(ROOT / "demo_data" / "pump_housing_pilot.study", path)
+    waive_open_verdicts(path)  # the lock is under test here, not the approval gate
     assert main(["study", "sign", str(path), "--role", "approved", "--decision", "approve",
                  "--who", "Q. Lead"]) == 0
     return path

@@ -218,6 +218,10 @@ def workspace(context):
     if ws is not None and ws.session.path == path:
         return ws
     ws = Workspace(context, StudySession(path))
+    from studykit.app.live import LiveLink
+
+    # after the Workspace, so the page's version is set once every panel was redrawn
+    ws.live = LiveLink(ws.session, messages=context.messages)
     context.extra[WORKSPACE_KEY] = ws
     state = ws.session.state_text()
     if state != "Study open" and context.state != state:

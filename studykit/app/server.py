@@ -195,6 +195,10 @@ class StudykitVoila(Voila):
         os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url,
                                                     BOKEHJS_ROUTE)
         self._watch_parent()
+        # (browser signing) tell the kernels whether this server is loopback, token or open
+        from studykit.app.access import ENV_ACCESS, access_kind
+
+        os.environ[ENV_ACCESS] = access_kind(self.ip, bool(self.token) or bool(self.auto_token))
         super().start()
 
     def _watch_parent(self) -> None:

@@ -38,6 +38,7 @@ from __future__ import annotations
 import json
 import time
 from collections.abc import Callable, Iterable, Mapping, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -45,7 +46,7 @@ import numpy as np
 
 from studykit.analysis import AnalysisOptions, analyze_study, read_study_measurements
 from studykit.errors import AnalysisError, StudyFileError, StudyInputError
-from studykit.store import StudyFile
+from studykit.store import ChangeWatch, StaleView, StudyFile, describe_entries
 from studykit.study import Criteria
 
 __all__ = [
@@ -175,7 +176,15 @@ class StudySession:
     def __init__(self, path, *, options: AnalysisOptions | None = None):
         self.path = Path(path)
         self.file = StudyFile(self.path)
+        #: version of the study file (newest audit id) that ``study`` was read at
+        self.view_version = self.file.version()
         self.study = self.file.load()
+        #: version the page in the browser has acknowledged showing (None: no page tracking,
+        #: e.g. in a script; then ``view_version`` counts)
+        self.page_version: int | None = None
+        #: audit entries written by others that the last reload brought in (newest last)
+        self.external_changes: list = []
+        self._watch = ChangeWatch(self.file)
         self.options = options or WORKBOOK_OPTIONS
         self._measurements = None
         self._results: dict[str, tuple[str, object]] = {}
@@ -427,13 +436,71 @@ class StudySession:
         return {}
 
     def _saved(self, changed: Iterable[str]) -> None:
+        """After a write of this session: read the file back; the page counts as up to date
+        when it was up to date before the write (the result reaches it in order)."""
+        before, after = getattr(self.file, "last_write", (None, None))
+        was_current = self.page_version is None or self.page_version == self.view_version
+        version = self.file.version()
         self.study = self.file.load()
+        self.view_version = version
+        # someone may have written right after this write: that is news for this page
+        self.external_changes = (self.file.entries_since(after)
+                                 if after is not None and version > after else [])
+        if was_current and self.page_version is not None and before == self.page_version:
+            self.page_version = after  # not `version`: the page has not seen later writes
         self._notify(changed)
 
-    def reload(self) -> None:
-        """Read the study file again (changes made in another browser show up)."""
+    def reload(self, *, changes: Sequence | None = None) -> None:
+        """Read the study file again (changes made in another browser show up).
+
+        ``changes`` are the audit entries that brought the reload about (shown as "who changed
+        what"); by default those written since this session last read the file.
+        """
+        if changes is None:
+            changes = self.file.entries_since(self.view_version)
+        version = self.file.version()
         self._gauges = {}
-        self._saved(self.names)
+        self.study = self.file.load()
+        self.view_version = version
+        self.external_changes = list(changes)
+        self._notify(self.names)
+
+    # --- live state ---------------------------------------------------------------------------
+    def file_version(self) -> int:
+        """The study file's version now (cheap: asks SQLite whether anything was committed)."""
+        return self._watch.version()
+
+    def check_for_changes(self) -> bool:
+        """Reload when the file moved on since this session read it; True when it did."""
+        if self.file_version() == self.view_version:
+            return False
+        self.reload()
+        return True
+
+    @property
+    def expected_version(self) -> int:
+        """The version a change made now must find in the file: the page's, else the view's."""
+        return self.view_version if self.page_version is None else self.page_version
+
+    @property
+    def shown_digest(self) -> str:
+        """Content digest of the study as this session (and its page) shows it."""
+        return self.study.content_digest()
+
+    @contextmanager
+    def _acting(self):
+        """Refuse a write made on a view older than the file; then show the file as it is."""
+        try:
+            with self.file.expecting(self.expected_version):
+                yield
+        except StaleView as exc:
+            newer = exc.newer or self.file.entries_since(self.expected_version)
+            self.reload(changes=newer)
+            what = describe_entries(newer) if newer else "a newer entry"
+            raise StaleView(
+                f"Nothing was saved: the study changed after this page was drawn ({what}). The "
+                "page now shows the study as it is: check it, then do it again if it still "
+                "applies", newer) from None
 
     def exclude(self, name: str, subgroup, *, reason: str, who: str,
                 override_reason: str | None = None) -> None:
@@ -441,8 +508,9 @@ class StudySession:
         who = _check_name(who)
         reason = _check_reason(reason, what=f"removing subgroup {subgroup}")
         self._check_subgroup(name, subgroup)
-        self.file.exclude(name, str(subgroup), reason=reason, who=who,
-                          **self._lock(override_reason, f"removing subgroup {subgroup}"))
+        with self._acting():
+            self.file.exclude(name, str(subgroup), reason=reason, who=who,
+                              **self._lock(override_reason, f"removing subgroup {subgroup}"))
         self._saved([name])
 
     def restore(self, name: str, subgroup, *, reason: str, who: str,
@@ -455,8 +523,9 @@ class StudySession:
                 f"subgroup {subgroup} of '{name}' is not excluded, so there is nothing to "
                 "restore; pick one of: "
                 + (", ".join(self.study.excluded_subgroups(name)) or "none"))
-        self.file.restore(name, str(subgroup), reason=reason, who=who,
-                          **self._lock(override_reason, f"restoring subgroup {subgroup}"))
+        with self._acting():
+            self.file.restore(name, str(subgroup), reason=reason, who=who,
+                              **self._lock(override_reason, f"restoring subgroup {subgroup}"))
         self._saved([name])
 
     def _check_subgroup(self, name: str, subgroup) -> None:
@@ -523,7 +592,8 @@ class StudySession:
                 first = False
             return study
 
-        self.file.apply(change_once)
+        with self._acting():
+            self.file.apply(change_once)
         self._saved([name])
         return len(items)
 
@@ -553,7 +623,8 @@ class StudySession:
                 study = study.with_criteria(name, criteria, who=who, reason=reason, **kwargs)
             return study
 
-        self.file.apply(change)
+        with self._acting():
+            self.file.apply(change)
         self._saved([name])
         return True
 
@@ -579,8 +650,10 @@ class StudySession:
             AnalysisOptions(model=payload["model"])
         else:
             AnalysisOptions(chart=payload["chart"])
-        self.file.append_decision(Decision(name, action, reason=reason, who=who, payload=payload),
-                                  **self._lock(override_reason, f"the {action} decision"))
+        with self._acting():
+            self.file.append_decision(
+                Decision(name, action, reason=reason, who=who, payload=payload),
+                **self._lock(override_reason, f"the {action} decision"))
         self._saved([name])
 
     def preview(self, name: str, *, model: str | None = None):
@@ -594,22 +667,95 @@ class StudySession:
         who = _check_name(who)
         if not (text or "").strip():
             raise StudyInputError("the comment is empty: write what the team should know")
-        self.file.add_comment(text.strip(), who=who, characteristic=characteristic)
+        with self._acting():
+            self.file.add_comment(text.strip(), who=who, characteristic=characteristic)
         self._saved(())
 
     def comments(self, characteristic: str | None = None, *, all_: bool = False) -> list:
         return [c for c in self.study.comments if all_ or c.characteristic == characteristic]
 
-    def sign(self, *, who: str, role: str, decision: str, comment: str = ""):
-        """Sign the study as it stands now; returns the saved SignOff."""
+    def sign(self, *, who: str, role: str, decision: str, comment: str = "",
+             seen_digest: str | None = None):
+        """Sign the study as this page shows it; returns the saved SignOff.
+
+        The sign-off records the content digest of the study shown (``seen_digest``, default
+        :attr:`shown_digest`) and is refused when the file's content differs from it, when the
+        page is older than the file, or when a sign-off rule of the study forbids it
+        (:mod:`studykit.signoff_rules`).
+        """
+        from studykit.signoff_rules import make_check
+        from studykit.study import SignOff
+
         who = _check_name(who)
         if not (role or "").strip():
             raise StudyInputError("`role` is empty: choose prepared, reviewed or approved")
-        if decision in ("reject",) and not (comment or "").strip():
-            raise StudyInputError("a rejection needs a comment saying what must change")
-        s = self.file.add_signoff(who, role=role.strip(), decision=decision, comment=comment)
+        seen = seen_digest or self.shown_digest
+        probe = SignOff(who, role.strip(), decision, comment=comment, digest=seen)
+        missing = {}
+        if probe.is_approval and self.study.signoff_rules().get("approval_needs_verdicts"):
+            missing = self.open_verdicts()
+        with self._acting():
+            s = self.file.add_signoff(who, role=role.strip(), decision=decision,
+                                      comment=comment, expected_digest=seen,
+                                      check=make_check(missing))
         self._saved(())
         return s
+
+    def open_verdicts(self, *, analyse: bool = True) -> dict[str, str]:
+        """Characteristics without a verdict and without a waiver (what blocks an approval).
+
+        ``analyse=False`` uses only results already computed; the others show as "not
+        analysed" (cheap, for drawing the page; signing always analyses).
+        """
+        from studykit.signoff_rules import open_verdicts
+
+        results = {}
+        for name in self.names:
+            if not analyse and not self.is_cached(name) and name not in self._errors:
+                continue
+            try:
+                results[name] = self.result(name)
+            except StudyInputError as exc:
+                results[name] = str(exc)
+        return open_verdicts(self.study, results)
+
+    def waive(self, name: str, *, reason: str, who: str, withdraw: bool = False,
+              override_reason: str | None = None) -> None:
+        """Record (or withdraw) a waiver: ``name`` may be approved without a verdict."""
+        from studykit.study import Decision
+
+        who = _check_name(who)
+        reason = _check_reason(reason, what="a waiver")
+        self.study.characteristic(name)
+        waived = name in self.study.waivers()
+        if withdraw != waived:
+            raise StudyInputError(f"'{name}' has no waiver to withdraw" if withdraw else
+                                  f"'{name}' already has a waiver; withdraw it first")
+        with self._acting():
+            self.file.append_decision(
+                Decision(name, "waive_verdict", reason=reason, who=who,
+                         payload={"waived": not withdraw, "reason": reason}),
+                **self._lock(override_reason, f"a waiver for {name}"))
+        self._saved([name])
+
+    def set_signoff_rules(self, rules: Mapping[str, bool], *, reason: str, who: str,
+                          override_reason: str | None = None) -> bool:
+        """Change sign-off rules of the study (recorded with who and why); False if unchanged."""
+        from studykit.study import Decision
+
+        who = _check_name(who)
+        reason = _check_reason(reason, what="a change of the sign-off rules")
+        current = self.study.signoff_rules()
+        changes = {k: bool(v) for k, v in rules.items() if current.get(k) != bool(v)}
+        if not changes:
+            return False
+        with self._acting():
+            self.file.append_decision(
+                Decision(None, "set_signoff_rules", reason=reason, who=who,
+                         payload={"rules": changes}),
+                **self._lock(override_reason, "changing the sign-off rules"))
+        self._saved(())
+        return True
 
     # --- export -------------------------------------------------------------------------------
     def results_json(self) -> bytes:

@@ -204,9 +204,11 @@ class Workbook(widgets.VBox):
         self._overview_card.add_class("sk-overview-card")
         from studykit.app.overview import panel_css  # the panels' rules, needed from the start
 
+        self._live = widgets.VBox([])  # the live note of the open study (studykit.app.live)
+        self._live.add_class("sk-live-slot")
         super().__init__([style_sheet(), panel_css(), self._header, self._stepbar,
-                          self._guidance, context.messages, self._caution, self._body,
-                          self._overview_card])
+                          self._guidance, context.messages, self._live, self._caution,
+                          self._body, self._overview_card])
         self.add_class("sk-root")
         context.extra["studykit.open_step"] = self.select
         context.subscribe(self._on_context_change)
@@ -323,6 +325,9 @@ class Workbook(widgets.VBox):
         if ws is None:
             self._overview_panel = None
             return False
+        live = getattr(ws, "live", None)
+        if live is not None and self._live.children != (live.widget,):
+            self._live.children = [live.widget]
         if self._overview_panel is None or self._overview_panel.ws is not ws:
             self._overview_panel = OverviewPanel(ws)
             self._overview_panel.render()

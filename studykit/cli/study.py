@@ -9,6 +9,9 @@ Subcommands::
     studykit study set STUDYFILE CHARACTERISTIC [--usl X ...] [--criterion ...] --reason R
     studykit study comment STUDYFILE TEXT [--characteristic C] [--who W]
     studykit study sign STUDYFILE --role ROLE --decision approve|reject|comment [--who W]
+                        [--saw DIGEST]
+    studykit study rules STUDYFILE [--distinct-signers on|off ...] [--reason R]
+    studykit study waive STUDYFILE CHARACTERISTIC --reason R [--withdraw]
     studykit study log STUDYFILE [--json]
 
 A change to an approved study needs ``--override-lock REASON``; it voids the approval, which
@@ -124,13 +127,47 @@ def register(subparsers) -> None:
     sign.add_argument("--role", required=True,
                       help="prepared, reviewed, approved (approved + approve locks the study)")
     sign.add_argument("--decision", required=True, choices=("approve", "reject", "comment"))
-    sign.add_argument("--comment", default="")
+    sign.add_argument("--comment", default="", help="comment; for a rejection, its reason "
+                      "(required)")
     sign.add_argument("--who", default=None)
     sign.add_argument("--p12", metavar="P12", help="also sign the sign-off with this "
                       "certificate's key (PKCS#12 file; it must be valid now)")
     sign.add_argument("--passphrase-env", metavar="VAR", default="STUDYKIT_P12_PASSPHRASE",
                       help="environment variable holding the .p12 passphrase")
+    sign.add_argument("--saw", metavar="DIGEST",
+                      help="the content digest you reviewed (from `study show`, at least 12 "
+                      "characters); the sign-off is refused if the study changed since")
     sign.set_defaults(func=run_sign)
+
+    rules = sub.add_parser("rules", help="show or change the study's sign-off rules",
+                           description="Show the sign-off rules of the study (all on by "
+                           "default). Changing one needs --reason; the change is recorded "
+                           "with who, when and why.")
+    rules.add_argument("studyfile", metavar="STUDYFILE")
+    from studykit.study import DEFAULT_SIGNOFF_RULES
+
+    for key in DEFAULT_SIGNOFF_RULES:
+        rules.add_argument(f"--{key.replace('_', '-')}", choices=("on", "off"), dest=key,
+                           default=None)
+    rules.add_argument("--reason", help="why the rules change (required for a change)")
+    rules.add_argument("--who", default=None)
+    rules.add_argument("--override-lock", metavar="REASON",
+                       help="change the rules of an approved study anyway; voids the approval")
+    rules.set_defaults(func=run_rules)
+
+    waive = sub.add_parser("waive", help="record that a characteristic may be approved "
+                           "without a verdict (with the reason)",
+                           description="Record a waiver for one characteristic: an approval "
+                           "may then stand although it has no verdict. The reason is part of "
+                           "the study content, so earlier sign-offs no longer hold.")
+    waive.add_argument("studyfile", metavar="STUDYFILE")
+    waive.add_argument("characteristic", metavar="CHARACTERISTIC")
+    waive.add_argument("--reason", required=True, help="why (kept in the audit log)")
+    waive.add_argument("--withdraw", action="store_true", help="withdraw the waiver instead")
+    waive.add_argument("--who", default=None)
+    waive.add_argument("--override-lock", metavar="REASON",
+                       help="change an approved study anyway; voids the approval")
+    waive.set_defaults(func=run_waive)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
     log.add_argument("studyfile", metavar="STUDYFILE")
@@ -300,6 +337,18 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
                        f"{sig.not_after}" + (f" ({sig.why})" if sig.why else ""))
         if s.comment:
             out.append(f"       comment: {s.comment}")
+        out.append(f"       signed content {s.digest}")
+    from studykit.signoff_rules import rules_text
+
+    out.append("")
+    out.append("Sign-off rules")
+    out.extend(f"  {line}" for line in rules_text(study))
+    waivers = study.waivers()
+    if waivers:
+        out.append("")
+        out.append(f"Waivers ({len(waivers)})")
+        for name, d in waivers.items():
+            out.append(f"  {name}: {d.reason} ({d.who}, {d.when})")
     return "\n".join(out) + "\n"
 
 
@@ -480,6 +529,10 @@ def run_comment(args) -> int:
 def run_sign(args) -> int:
     import os
 
+    from studykit.analysis import gauge_results
+    from studykit.signoff_rules import analyse_for_signoff, make_check, open_verdicts
+    from studykit.study import SignOff
+
     certificate = None
     if args.p12:
         passphrase = os.environ.get(args.passphrase_env)
@@ -489,14 +542,73 @@ def run_sign(args) -> int:
                 f"variable {args.passphrase_env} (or name another with --passphrase-env)")
         certificate = (args.p12, passphrase)
     sf = StudyFile(args.studyfile)
-    s = sf.add_signoff(_who(args), role=args.role, decision=args.decision,
-                       comment=args.comment, certificate=certificate)
+    who = _who(args)
+    saw = None
+    if args.saw is not None:
+        saw = args.saw.strip().lower()
+        if len(saw) < 12 or any(c not in "0123456789abcdef" for c in saw):
+            raise StudyInputError(f"`--saw` ({args.saw!r}) must be the content digest shown by "
+                                  "`studykit study show` (at least its first 12 hex digits)")
+    study = sf.load()
+    probe = SignOff(who, args.role, args.decision, comment=args.comment,
+                    digest=study.content_digest())
+    needed = probe.is_approval and study.signoff_rules().get("approval_needs_verdicts")
+    results = analyse_for_signoff(study, gauges=gauge_results(sf), needed=bool(needed))
+    missing = open_verdicts(study, results) if needed else {}
+    # the verdicts belong to this content: sign only if it is still the content analysed
+    expected = saw if saw is not None else study.content_digest()
+    s = sf.add_signoff(who, role=args.role, decision=args.decision, comment=args.comment,
+                       expected_digest=expected, check=make_check(missing),
+                       certificate=certificate)
     print(f"signed as {s.role} ({s.decision}); study digest {s.digest}; chain head "
           f"{s.chain_head[:28]}...")
     if certificate is not None:
         sig = sf.signoff_signatures()[-1]
         print(f"certificate signature: {sig.status} ({sig.subject}, SHA-256 fingerprint "
               f"{sig.fingerprint_sha256})")
+    return 0
+
+
+def run_rules(args) -> int:
+    from studykit.signoff_rules import rules_text
+    from studykit.study import DEFAULT_SIGNOFF_RULES, Decision
+
+    sf = StudyFile(args.studyfile)
+    changes = {k: getattr(args, k) == "on" for k in DEFAULT_SIGNOFF_RULES
+               if getattr(args, k) is not None}
+    if changes:
+        if not (args.reason or "").strip():
+            raise StudyInputError("changing a sign-off rule needs --reason (it is recorded with "
+                                  "who and when)")
+        current = sf.load().signoff_rules()
+        changes = {k: v for k, v in changes.items() if current[k] != v}
+        if changes:
+            sf.append_decision(Decision(None, "set_signoff_rules", reason=args.reason,
+                                        who=_who(args), payload={"rules": changes}),
+                               **_lock_kw(args))
+    for line in rules_text(sf.load()):
+        print(line)
+    return 0
+
+
+def run_waive(args) -> int:
+    from studykit.study import Decision
+
+    sf = StudyFile(args.studyfile)
+    study = sf.load()
+    name = args.characteristic
+    study.characteristic(name)
+    waived = name in study.waivers()
+    if args.withdraw and not waived:
+        raise StudyInputError(f"'{name}' has no waiver to withdraw")
+    if not args.withdraw and waived:
+        raise StudyInputError(f"'{name}' already has a waiver ({study.waivers()[name].reason}); "
+                              "withdraw it first to record another reason")
+    sf.append_decision(Decision(name, "waive_verdict", reason=args.reason, who=_who(args),
+                                payload={"waived": not args.withdraw,
+                                         "reason": args.reason.strip()}), **_lock_kw(args))
+    print(("withdrew the waiver of" if args.withdraw else "recorded a waiver for")
+          + f" '{name}'")
     return 0
 
 

@@ -1054,6 +1054,20 @@ def _gauge_result(payload):
         return None
 
 
+def _signoff_digests(story, study, states, width, st):
+    """Which content each sign-off signed (its digest) and whether that is this report's."""
+    from reportlab.platypus import Paragraph
+
+    current = study.content_digest()
+    rows = [["Role", "Name", "Content digest signed", "Matches this report?"]]
+    for s in states:
+        so = s.signoff
+        rows.append([_esc(so.role), _esc(so.name), f"<font size=6>{so.digest}</font>",
+                     "yes" if so.digest == current else "<b>no</b> - signed other content"])
+    story.append(Paragraph("Content each sign-off signed", st["h2"]))
+    story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.52, 0.22)], styles=st))
+
+
 def _signoff_section(story, number, study, st, width, boxes):
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
@@ -1094,6 +1108,7 @@ def _signoff_section(story, number, study, st, width, boxes):
                          "yes" if s.valid else f"<b>no</b> - {_esc(s.why)}"])
         story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
                             styles=st))
+        _signoff_digests(story, study, states, width, st)
     else:
         story.append(Paragraph("No sign-off recorded in the study.", st["body"]))
     story.append(CondPageBreak(280))

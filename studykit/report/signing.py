@@ -304,7 +304,7 @@ def _boxes(pdf_bytes: bytes) -> dict:
 
 
 def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
-                visible: bool = True) -> SignatureInfo:
+                visible: bool = True, p12_data: bytes | None = None) -> SignatureInfo:
     """Add one PAdES signature to a report (incremental update; earlier ones stay intact).
 
     Parameters
@@ -312,7 +312,8 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     pdf_in, pdf_out : str or PathLike
         The report and where to write the signed copy (may be the same path).
     p12_path : str or PathLike
-        PKCS#12 file with the signer's key and certificate.
+        PKCS#12 file with the signer's key and certificate (its name only, for messages,
+        when ``p12_data`` is given).
     passphrase : str or bytes
         Passphrase of the .p12 (never stored).
     role : str
@@ -321,6 +322,9 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
         The signer's name as it should read in the reason.
     visible : bool
         Place a stamp in the role's box on the sign-off page when there is one.
+    p12_data : bytes, optional
+        The PKCS#12 bundle itself (e.g. uploaded in the workbook); then nothing is read from
+        ``p12_path`` and the key never touches the disk.
 
     Returns
     -------
@@ -348,12 +352,16 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     if not src.exists():
         raise StudyFileError(f"report '{src}' does not exist: check the path")
     p12 = Path(p12_path)
-    if not p12.exists():
+    if p12_data is None and not p12.exists():
         raise StudyInputError(f"`p12_path` '{p12}' does not exist: give the signer's .p12 file "
                               "(studykit keygen --demo makes one for trying it out)")
     pw = passphrase.encode("utf-8") if isinstance(passphrase, str) else passphrase
     try:
-        signer = signers.SimpleSigner.load_pkcs12(str(p12), passphrase=pw)
+        if p12_data is not None:
+            signer = signers.SimpleSigner.load_pkcs12_data(bytes(p12_data), other_certs=(),
+                                                           passphrase=pw)
+        else:
+            signer = signers.SimpleSigner.load_pkcs12(str(p12), passphrase=pw)
     except (ValueError, TypeError) as exc:
         raise StudyInputError(f"cannot open '{p12.name}': {exc} (wrong passphrase?)") from None
     if signer is None:

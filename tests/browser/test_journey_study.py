@@ -159,8 +159,17 @@ def test_study_journey(browser, study_server, artifacts):
         page.wait_for_timeout(800)
         shot(page, "capability-1280", full=True)
 
-        # sign-off: approve, the study is locked
+        # sign-off: the approval gate lists what has no verdict; waivers with reasons, then
+        # approve, and the study is locked
         open_step(page, "signoff")
+        page.wait_for_selector(".sk-open-verdicts")
+        for name in ("pull_off_force", "leak_test_defectives"):
+            page.locator(".sk-picker select").first.select_option(name)
+            page.locator(".sk-waive-reason input").fill(f"journey waiver for {name}")
+            page.wait_for_function("() => !document.querySelector('.sk-waive').disabled")
+            page.locator(".sk-waive").click()
+            page.wait_for_selector(f".sk-rules-box :text('journey waiver for {name}')")
+        page.wait_for_function("() => !document.querySelector('.sk-open-verdicts')")
         page.locator(".sk-sign-role input").fill("approved")
         page.locator(".sk-sign-decision button:has-text('Approve')").click()
         page.get_by_role("button", name="Sign the study as it stands").click()

@@ -65,6 +65,7 @@ class ExportStep:
 
     def __init__(self):
         self.ws = None
+        self._pdf = None  # (bytes, file name, content digest) of the last PDF made here
 
     def build(self, context) -> widgets.Widget:
         ws = self.ws = workspace(context)
@@ -109,13 +110,141 @@ class ExportStep:
             "of the raw data and of the decisions, and places for the digital signatures. The "
             "hand-off zip holds the frozen phase-I limits for series production, shop-floor "
             "chart forms, the study file and the PDF.</div>" + note)
+        sign_box = self._build_signing(context)
         self.refresh(context)
         return panel([panel_css(), intro, self.state,
                              widgets.HBox([self.pdf, self.handoff, self.json],
                                           layout=widgets.Layout(flex_flow="row wrap")),
                              widgets.HBox([self.progress, self.progress_text],
                                           layout=widgets.Layout(align_items="center")),
-                             self.links])
+                             self.links, sign_box])
+
+    # --- signing the PDF with the signer's own certificate -----------------------------------
+    def _build_signing(self, context) -> widgets.Widget:
+        from studykit.study import SIGNOFF_ROLES
+
+        m = context.messages
+        self.p12 = widgets.FileUpload(accept=".p12,.pfx", multiple=False,
+                                      description="Choose certificate (.p12)",
+                                      layout=widgets.Layout(width="auto"))
+        self.p12.add_class("sk-p12")
+        self.passphrase = widgets.Password(placeholder="passphrase of the .p12",
+                                           layout=widgets.Layout(width="240px"))
+        self.passphrase.add_class("sk-p12-passphrase")
+        self.sign_role = widgets.Combobox(options=list(SIGNOFF_ROLES), value="prepared",
+                                          ensure_option=False,
+                                          layout=widgets.Layout(width="160px"))
+        self.sign_role.add_class("sk-pdf-role")
+        self.sign_pdf = widgets.Button(description="Sign the PDF with my certificate",
+                                       icon="certificate", disabled=True,
+                                       layout=widgets.Layout(width="auto"))
+        self.sign_pdf.add_class("sk-sign-pdf")
+        self.sign_hint = html_box("", "sk-small")
+        self.signed_links = html_box("", "sk-signed-downloads")
+        for w in (self.p12, self.passphrase, self.sign_role, self.ws.who):
+            w.observe(guarded(lambda _c: self._update_sign_button(), messages=m),
+                      names="value")
+        self.sign_pdf.on_click(guarded(self._on_sign_pdf_click, messages=m))
+        self._update_sign_button()
+
+        def field(label, w):
+            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
+
+        return widgets.VBox([
+            html_box('<div class="sk-panel-title">Sign the PDF</div><div class="sk-muted">'
+                     "Add your digital signature (PAdES) to the PDF made above, with your own "
+                     "certificate. The .p12 file and its passphrase are used for this one "
+                     "signature and then dropped: never saved, never written to a log. Several "
+                     "signers sign in turn; each signature is added to the last signed PDF."
+                     "</div>"),
+            widgets.HBox([field("Your name (written into the signature)", self.ws.who),
+                          field("Certificate", self.p12), field("Passphrase", self.passphrase),
+                          field("Role", self.sign_role)],
+                         layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end")),
+            widgets.HBox([self.sign_pdf, self.sign_hint],
+                         layout=widgets.Layout(align_items="center")),
+            self.signed_links])
+
+    def _update_sign_button(self) -> None:
+        from studykit.app.access import signing_refusal
+
+        missing = []
+        refusal = signing_refusal()
+        if refusal:
+            self.sign_pdf.disabled = True
+            self.sign_hint.value = esc(refusal[0].upper() + refusal[1:]) + "."
+            return
+        if self._pdf is None:
+            missing.append("make the PDF evidence first")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        if not self.p12.value:
+            missing.append("choose your .p12 certificate")
+        if not self.passphrase.value:
+            missing.append("type its passphrase")
+        if not (self.sign_role.value or "").strip():
+            missing.append("name your role")
+        self.sign_pdf.disabled = bool(missing)
+        self.sign_hint.value = ("To sign: " + ", ".join(missing) + ".") if missing else ""
+
+    def _forget_certificate(self) -> None:
+        """Drop the certificate and passphrase from the page and the kernel."""
+        self.passphrase.value = ""
+        self.p12.value = ()
+
+    def _on_sign_pdf_click(self, _button=None) -> None:
+        try:
+            self._on_sign_pdf()
+        finally:
+            self._forget_certificate()
+            self._update_sign_button()
+
+    def _on_sign_pdf(self) -> None:
+        from studykit.app.access import signing_refusal
+        from studykit.errors import StudyInputError
+        from studykit.report.signing import sign_report
+
+        refusal = signing_refusal()
+        if refusal:
+            raise StudyInputError(refusal)
+        if self._pdf is None:
+            raise StudyInputError("make the PDF evidence first: the signature goes on that PDF")
+        s = self.ws.session
+        data, filename, digest = self._pdf
+        if digest != s.shown_digest:
+            raise StudyInputError(
+                "the study changed after this PDF was made (its content digest differs), so the "
+                "PDF no longer shows the study as it is: make the PDF evidence again, then sign")
+        files = self.p12.value
+        if not files:
+            raise StudyInputError("choose your .p12 certificate file")
+        upload = files[0]
+        p12_name = str(upload.get("name", "certificate.p12"))
+        p12_data = bytes(upload["content"])
+        with tempfile.TemporaryDirectory() as d:
+            src = Path(d) / "in.pdf"
+            out = Path(d) / "signed.pdf"
+            src.write_bytes(data)
+            info = sign_report(src, out, p12_name, self.passphrase.value,
+                               role=self.sign_role.value, name=self.ws.who_name,
+                               p12_data=p12_data)
+            signed = out.read_bytes()
+        del p12_data
+        self._pdf = (signed, filename, digest)
+        from studykit.report.signing import signature_count
+
+        n = signature_count(signed)
+        stem = filename[:-4] if filename.endswith(".pdf") else filename
+        self.signed_links.value = (
+            '<div style="margin:6px 0">'
+            + download_link(signed, f"{stem}-signed.pdf", "application/pdf",
+                            label=f"{stem}-signed.pdf ({n} signature{'s' if n != 1 else ''})")
+            + "</div>")
+        where = "in its box on the sign-off page" if info.visible else "(invisible: no box " \
+            "for this role)"
+        self.ws.context.messages.ok(
+            f"Signed by {info.name} as {info.role} with the certificate of {info.subject} "
+            f"{where}. Download the signed PDF; `studykit verify` checks it.")
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -169,6 +298,10 @@ class ExportStep:
                 data = out.read_bytes()
         finally:
             self._finish()
+        self._pdf = (data, f"{_stem(s)}-evidence.pdf", s.shown_digest)
+        if hasattr(self, "sign_pdf"):
+            self.signed_links.value = ""
+            self._update_sign_button()
         pages = getattr(info, "pages", None)
         self._add_link(download_link(data, f"{_stem(s)}-evidence.pdf", "application/pdf",
                                      label=f"{_stem(s)}-evidence.pdf"

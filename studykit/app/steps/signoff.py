@@ -55,21 +55,58 @@ def signoffs_html(session) -> str:
     if not states:
         return ('<div class="sk-panel-title">Sign-offs</div><div class="sk-muted">Nobody has '
                 "signed yet.</div>")
+    current = session.shown_digest
     body = []
     for st in states:
         s = st.signoff
         cls = "" if st.valid else ' class="sk-voided"'
         state = (verdict_chip(True, text="Holds") if st.valid
                  else verdict_chip(False, text="Voided"))
+        match = ("matches the study now" if s.digest == current
+                 else "differs from the study now")
         body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(s.role)}</td>"
                     f"<td{cls}>{esc(s.decision)}</td><td{cls}>{esc(s.comment)}</td>"
-                    f"<td{cls}>{_when(s.when)}</td><td>{state}"
+                    f"<td{cls}>{_when(s.when)}</td>"
+                    f'<td><code class="sk-digest" title="{esc(s.digest)}">{esc(s.digest[:12])}'
+                    f'</code><div class="sk-small">{match}</div></td><td>{state}'
                     f"{'<div class=sk-small>' + esc(st.why) + '</div>' if st.why else ''}"
                     f"</td></tr>")
     return ('<div class="sk-panel-title">Sign-offs</div><table class="sk-table sk-signoffs">'
             "<thead><tr><th>Name</th><th>Role</th><th>Decision</th><th>Comment</th>"
-            "<th>When (UTC)</th><th>State</th></tr></thead><tbody>" + "".join(body)
-            + "</tbody></table>")
+            "<th>When (UTC)</th><th>Content signed</th><th>State</th></tr></thead><tbody>"
+            + "".join(body) + "</tbody></table>")
+
+
+def rules_html(session) -> str:
+    """The sign-off rules in force, and the waivers recorded."""
+    from studykit.signoff_rules import RULE_TEXT
+
+    rules = session.study.signoff_rules()
+    items = "".join(
+        f"<li>{'✓' if rules[k] else '✗ switched off:'} {esc(RULE_TEXT[k])}</li>"
+        for k in RULE_TEXT)
+    waivers = session.study.waivers()
+    wv = ""
+    if waivers:
+        wv = ("<div><b>Waivers</b> (approval without a verdict):<ul style='margin:2px 0'>"
+              + "".join(f"<li><b>{esc(n)}</b>: {esc(d.reason)} <span class='sk-small'>"
+                        f"({esc(d.who)}, {_when(d.when)})</span></li>"
+                        for n, d in waivers.items()) + "</ul></div>")
+    return ('<div class="sk-panel-title">Sign-off rules of this study</div>'
+            f'<ul class="sk-rules" style="margin:2px 0">{items}</ul>{wv}')
+
+
+def open_verdicts_html(open_: dict) -> str:
+    if not open_:
+        return ""
+    rows = "".join(f"<li><b>{esc(n)}</b>: {esc(w)}</li>" for n, w in open_.items())
+    if all(w == "not analysed yet" for w in open_.values()):
+        return ('<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
+                "known once every characteristic is analysed (<i>Analyse all "
+                "characteristics</i> in the overview, or an approval, does it).</div>")
+    return ('<div class="sk-void sk-open-verdicts"><b>An approval is not possible yet.</b> '
+            "These characteristics have no verdict; settle them, or record a waiver with its "
+            f'reason for each (below):<ul style="margin:4px 0 0 0">{rows}</ul></div>')
 
 
 def comments_html(session, name: str) -> str:
@@ -140,6 +177,18 @@ class SignoffStep:
         self.reload = widgets.Button(description="Read the study file again", icon="refresh")
         self.reload.add_class("sk-reload")
         self.audit = html_box("", "sk-audit-box")
+        self.digest = html_box("", "sk-sign-digest")
+        self.rules = html_box("", "sk-rules-box")
+        self.gate = html_box("", "sk-gate")
+        self.waive_reason = widgets.Text(placeholder="why it may be approved without a verdict",
+                                         layout=widgets.Layout(width="420px"))
+        self.waive_reason.add_class("sk-waive-reason")
+        self.waive = widgets.Button(description="Record waiver for the characteristic shown",
+                                    icon="check-square-o", disabled=True)
+        self.waive.add_class("sk-waive")
+        self.waive_reason.observe(guarded(lambda _c: self._update_buttons(), messages=m),
+                                  names="value")
+        self.waive.on_click(guarded(lambda _b: self._on_waive(), messages=m))
         for w in (ws.who, self.comment, self.sign_comment, self.role):
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
         self.sign.on_click(guarded(lambda _b: self._on_sign(), messages=m))
@@ -151,20 +200,26 @@ class SignoffStep:
 
         sign_form = widgets.VBox([
             html_box('<div class="sk-panel-title">Sign</div><div class="sk-muted">Your '
-                     "signature covers the study as it stands now (its content digest is "
-                     "stored with it).</div>"),
+                     "signature covers the study as this page shows it; its content digest is "
+                     "stored with it, and the sign-off is refused if the study changed after "
+                     "the page was drawn.</div>"),
+            self.digest, self.gate,
             widgets.HBox([field("Role", self.role), field("Decision", self.decision)],
                          layout=widgets.Layout(flex_flow="row wrap")),
             field("Comment", self.sign_comment),
             widgets.HBox([self.sign, self.sign_hint], layout=widgets.Layout(
                 align_items="center"))])
+        waive_form = widgets.VBox([
+            self.rules,
+            widgets.HBox([self.waive_reason, self.waive],
+                         layout=widgets.Layout(align_items="center", flex_flow="row wrap"))])
         comment_form = widgets.VBox([
             html_box('<div class="sk-panel-title">Comments</div>'), self.comments,
             self.comment, widgets.HBox([self.about, self.add],
                                        layout=widgets.Layout(align_items="center"))])
         self.refresh(context)
         return panel([panel_css(), ws.toolbar(), self.lock, self.reload, self.signoffs,
-                             sign_form, comment_form, self.audit])
+                             sign_form, waive_form, comment_form, self.audit])
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -179,6 +234,13 @@ class SignoffStep:
         self.signoffs.value = signoffs_html(s)
         self.comments.value = comments_html(s, s.current)
         self.audit.value = audit_html(s)
+        self.digest.value = (f'<div class="sk-small">Content you are signing: <code '
+                             f'class="sk-shown-digest">{esc(s.shown_digest)}</code></div>')
+        self.rules.value = rules_html(s)
+        gate = {}
+        if s.study.signoff_rules().get("approval_needs_verdicts"):
+            gate = s.open_verdicts(analyse=False)  # analysing happens when someone approves
+        self.gate.value = open_verdicts_html(gate)
         self._update_buttons()
 
     def _update_buttons(self) -> None:
@@ -191,8 +253,20 @@ class SignoffStep:
         self.sign.disabled = bool(missing)
         self.sign_hint.value = ("To sign: " + ", ".join(missing) + ".") if missing else ""
         self.add.disabled = not (who and self.comment.value.strip())
+        s = self.ws.session
+        waived = s.current in s.study.waivers()
+        self.waive.description = (f"Withdraw the waiver of {s.current}" if waived
+                                  else f"Record waiver for {s.current}")
+        self.waive.disabled = not (who and self.waive_reason.value.strip())
 
     def _on_sign(self) -> None:
+        try:
+            self._sign()
+        finally:
+            self._drawn = None  # a refused approval analysed every characteristic: show it
+            self.refresh(self.ws.context)
+
+    def _sign(self) -> None:
         ws, s = self.ws, self.ws.session
         signed = s.sign(who=ws.who_name, role=self.role.value, decision=self.decision.value,
                         comment=self.sign_comment.value)
@@ -200,6 +274,16 @@ class SignoffStep:
         lock = " The study is now approved and locked." if s.is_locked else ""
         ws.context.messages.ok(f"Signed by {signed.name} as {signed.role} ({signed.decision})."
                                + lock)
+
+    def _on_waive(self) -> None:
+        ws, s = self.ws, self.ws.session
+        name = s.current
+        withdraw = name in s.study.waivers()
+        s.waive(name, reason=self.waive_reason.value, who=ws.who_name, withdraw=withdraw,
+                override_reason=ws.override_reason)
+        self.waive_reason.value = ""
+        ws.context.messages.ok(("Waiver withdrawn for " if withdraw else "Waiver recorded for ")
+                               + f"{name}. Sign-offs made before no longer hold.")
 
     def _on_comment(self) -> None:
         ws, s = self.ws, self.ws.session
