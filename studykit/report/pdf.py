@@ -1109,6 +1109,13 @@ def _signoff_section(story, number, study, st, width, boxes):
         story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
                             styles=st))
         _signoff_digests(story, study, states, width, st)
+        heads = [f"{_esc(s.signoff.role)} ({_esc(s.signoff.name)}): entry "
+                 f"{_esc(s.signoff.chain_head.partition(':')[0])} "
+                 f"<font size=6>{_esc(s.signoff.chain_head.partition(':')[2])}</font>"
+                 for s in states if getattr(s.signoff, "chain_head", "")]
+        if heads:
+            story.append(Paragraph("Audit chain head each sign-off signed: " + "; ".join(heads)
+                                   + ".", st["small"]))
     else:
         story.append(Paragraph("No sign-off recorded in the study.", st["body"]))
     story.append(CondPageBreak(280))
