@@ -198,3 +198,36 @@ def test_session_keep_and_rejected_proposals(study_path):
     rejected = [e.what for e in s.audit_log() if "rejected proposal" in e.what]
     assert rejected == [f"keep signal beyond_limits at subgroup 17 of '{NAME}' "
                         "(rejected proposal)"]
+
+
+def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
+    from pathlib import Path
+
+    from pypdf import PdfReader
+
+    from studykit.report.pdf import build_report, read_evidence
+    from studykit.study import Characteristic
+
+    demo = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.csv"
+    lines = demo.read_text().splitlines()
+    out = [lines[0]]
+    for line in lines[1:]:  # subgroup 6 of the bore far off: a point beyond the limits
+        cells = line.split(",")
+        if cells[0] == "6":
+            cells[3] = f"{float(cells[3]) + 0.02:.3f}"
+        out.append(",".join(cells))
+    path = tmp_path / "shift.study"
+    sf = StudyFile.create(path, data=("\n".join(out) + "\n").encode(), filename="shift.csv",
+                          title="Shifted", characteristics=[Characteristic(
+                              "bore_diameter", unit="mm", lsl=11.97, usl=12.03)], who="tester")
+    assert "6" in _beyond(analyze_study(sf.load(), "bore_diameter"))
+    sf.apply(lambda s: s.keep_signal("bore_diameter", "6", rule="beyond_limits", who="Q. Lead",
+                                     reason="gauge re-zeroed at 08:10, values re-checked"))
+    build_report(path, tmp_path / "shift.pdf")
+    text = " ".join((p.extract_text() or "").replace("\n", " ")
+                    for p in PdfReader(tmp_path / "shift.pdf").pages)
+    assert "Signals kept with a reason" in text
+    assert "gauge re-zeroed at 08:10" in text and "Q. Lead" in text
+    ev = read_evidence(tmp_path / "shift.pdf")  # the embedded evidence JSON carries them too
+    assert [(k["subgroup"], k["who"]) for k in ev["results"]["bore_diameter"]["kept_signals"]] \
+        == [("6", "Q. Lead")]
