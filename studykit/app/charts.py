@@ -283,9 +283,10 @@ class ControlChartView:
                      LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
                      LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
                      LegendItem(label="Signal kept (reason on file)", renderers=[ring_key])]
+            # two rows: eight entries do not fit one row beside the side panel at 1280 px
             fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
                                   label_text_font_size="12px", spacing=12, padding=2,
-                                  margin=4, border_line_color=None), "above")
+                                  margin=4, border_line_color=None, nrows=2), "above")
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)

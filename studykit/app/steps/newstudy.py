@@ -222,7 +222,7 @@ class NewStudyPanel(widgets.VBox):
         self.head = html_box("", "sk-new-head")
         self.file_list = html_box("", "sk-new-files")
         self.table = widgets.GridBox([], layout=widgets.Layout(
-            grid_template_columns="28px minmax(140px, 1.4fr) 70px 92px 92px 92px 28px 80px "
+            grid_template_columns="60px minmax(140px, 1.4fr) 70px 92px 92px 92px 76px 80px "
                                   "64px 116px", grid_gap="4px 8px", align_items="center",
             width="100%", overflow="auto"))
         self.table.add_class("sk-new-spec-table")

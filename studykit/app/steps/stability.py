@@ -394,10 +394,13 @@ class StabilityStep:
                                            override_reason=ws.override_reason)
         self._proposals = []
         self._render_proposals()
+        parts = [f"recorded {n} removal{'s' if n != 1 else ''}"] if n else []
+        if k:
+            parts.append("rejected and kept with the reason: "
+                         + ", ".join(p.label for p, _r in rejected))
+        text = "; ".join(parts)
         ws.context.messages.ok(
-            f"Recorded {n} removal{'s' if n != 1 else ''}"
-            + (f"; rejected and kept with the reason: {', '.join(p.label for p, _r in rejected)}"
-               if k else "")
+            text[:1].upper() + text[1:]
             + ". Run the search again: new limits can reveal further signals.")
 
     def _render_log(self) -> None:
