@@ -1213,6 +1213,10 @@ class Study:
                 dict(c.to_dict(), criteria=self.criteria_for(n).to_dict(),
                      criteria_text=self.criteria_for(n).describe(),
                      excluded_subgroups=sorted(self.excluded_subgroups(n), key=_label_key),
+                     kept_signals=[{"subgroup": lab, "rule": rule, "reason": d.reason,
+                                    "who": d.who, "when": d.when,
+                                    "origin": d.payload.get("origin", "person")}
+                                   for (lab, rule), d in self.kept_signals(n).items()],
                      model=self.model_for(n), chart=self.chart_for(n))
                 for n, c in self.characteristics.items()
             ],

@@ -164,6 +164,12 @@ def test_cli_keep_and_reopen(study_path, capsys):
     assert main(["analyze", "--study", p, "-c", NAME, "--json"]) == 0
     d = json.loads(capsys.readouterr().out)
     assert d["kept_signals"][0]["reason"] == "warm-up part"
+    assert main(["study", "show", p]) == 0
+    assert "17 (beyond_limits)" in capsys.readouterr().out
+    assert main(["study", "show", p, "--json"]) == 0
+    shown = json.loads(capsys.readouterr().out)
+    flange = next(c for c in shown["characteristics"] if c["name"] == NAME)
+    assert [(k["subgroup"], k["who"]) for k in flange["kept_signals"]] == [("17", "A. Keeper")]
     assert main(["study", "reopen", p, NAME, "17", "--rule", "beyond_limits", "--reason",
                  "cause not confirmed", "--who", "B"]) == 0
     capsys.readouterr()
@@ -231,3 +237,12 @@ def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
     ev = read_evidence(tmp_path / "shift.pdf")  # the embedded evidence JSON carries them too
     assert [(k["subgroup"], k["who"]) for k in ev["results"]["bore_diameter"]["kept_signals"]] \
         == [("6", "Q. Lead")]
+    # `verify` rebuilds the study with the keep decision and gets the same numbers, from the
+    # study file and from the data file alone
+    from studykit.report.verify import verify_report
+
+    data = tmp_path / "shift.csv"
+    data.write_bytes(sf.load().data)
+    for kw in ({"study": path}, {"data": data}):
+        res = verify_report(tmp_path / "shift.pdf", **kw)
+        assert res.ok, [c.line() for c in res.checks]

@@ -358,10 +358,11 @@ def format_study(study: Study) -> str:
             name, c.unit or "", _num(c.lsl), _num(c.target), _num(c.usl),
             "yes" if c.safety_critical else "", study.criteria_for(name).describe(),
             study.chart_for(name), study.model_for(name), ", ".join(excluded),
+            ", ".join(f"{lab} ({rule})" for lab, rule in study.kept_signals(name)),
         ])
     if rows:
         out.append(_table(["name", "unit", "LSL", "target", "USL", "safety", "criterion",
-                           "chart", "model", "excluded"], rows))
+                           "chart", "model", "excluded", "kept signals"], rows))
     else:
         out.append("  (none specified)")
     out.append("")
