@@ -237,7 +237,16 @@ def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
     ev = read_evidence(tmp_path / "shift.pdf")  # the embedded evidence JSON carries them too
     assert [(k["subgroup"], k["who"]) for k in ev["results"]["bore_diameter"]["kept_signals"]] \
         == [("6", "Q. Lead")]
-    # `verify` rebuilds the study with the keep decision and gets the same numbers, from the
+    # the PDF's control chart rings the kept point (a labelled scatter at subgroup 6's mean)
+    from studykit.report.figures import control_chart_figure
+
+    res = analyze_study(sf.load(), "bore_diameter")
+    fig = control_chart_figure(res)
+    rings = [c for c in fig.axes[0].collections if c.get_label() == "Signal kept (reason on file)"]
+    assert len(rings) == 1
+    i6 = [str(v) for v in res.chart.labels].index("6")
+    assert rings[0].get_offsets()[0][1] == pytest.approx(res.chart.location.points[i6])
+        # `verify` rebuilds the study with the keep decision and gets the same numbers, from the
     # study file and from the data file alone
     from studykit.report.verify import verify_report
 
