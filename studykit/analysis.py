@@ -344,6 +344,7 @@ class CharacteristicResult:
     order: object = None
     #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
     measurement_error: dict | None = None
+    kept_signals: tuple = ()
 
     @property
     def chart(self) -> ControlChart:
@@ -530,6 +531,8 @@ class CharacteristicResult:
             "warnings": list(self.warnings),
             "cautions": list(self.cautions),
         }
+        if self.kept_signals:  # only when a signal was kept with a reason (key absent otherwise)
+            out["kept_signals"] = [dict(k) for k in self.kept_signals]
         if self.normality is not None:
             ad, sw = self.normality["anderson_darling"], self.normality["shapiro_wilk"]
             out["normality"] = {
@@ -922,6 +925,7 @@ def analyze_characteristic(
     exclusions: Mapping | None = None,
     options: AnalysisOptions | None = None,
     gauge: Mapping | None = None,
+    kept: Mapping | None = None,
 ) -> CharacteristicResult:
     """Run the capability study for one characteristic.
 
@@ -941,6 +945,11 @@ def analyze_characteristic(
     options : AnalysisOptions, optional
     gauge : mapping, optional
         A stored gauge R&R result for this characteristic (its verdict is mentioned).
+    kept : mapping, optional
+        Signals kept with a reason ``{(subgroup label, rule id): {"reason", "who", "when",
+        "origin"}}``: a signal of that rule whose pattern includes that subgroup counts as
+        reviewed; it stays on the chart, is listed with its reason, and no longer withholds the
+        verdict.
 
     Returns
     -------
@@ -1079,7 +1088,9 @@ def analyze_characteristic(
     cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
     unit = data.unit if data.unit else (spec.unit if spec is not None else None)
 
+    kept_rows, kept_keys = _kept_rows(chart, kept)
     common = dict(
+        kept_signals=kept_rows,
         characteristic=name,
         unit=unit,
         spec=spec_d,
@@ -1185,7 +1196,10 @@ def analyze_characteristic(
             index=judged_index,
         )
     )
-    if chart.signals:
+    if kept_keys:
+        finding, verdict = _signals_with_kept(chart, verdict, kept_keys, kept_rows)
+        findings[:0] = finding
+    elif chart.signals:
         finding, verdict = _not_in_control(chart, verdict)
         findings.insert(0, finding)
     if withheld:
@@ -1271,6 +1285,85 @@ def _not_in_control(chart: ControlChart, verdict):
             f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
             f"against the required {verdict.threshold:g}.")
     return finding, replace(verdict, meets=None, text=text)
+
+
+def _signal_labels(chart: ControlChart, sig) -> list[str]:
+    return [str(_label(chart.labels[int(p)])) for p in sig.points]
+
+
+def _kept_rows(chart: ControlChart, kept: Mapping | None):
+    """The kept-signal decisions as rows for the result, each with ``on_chart`` (a signal of the
+    final chart is covered by it), and the set of keys ``(label, rule)`` in force."""
+    if not kept:
+        return (), set()
+    covered = set()
+    for series in (chart.location, chart.dispersion):
+        if series is None:
+            continue
+        for sig in series.signals:
+            for lab in _signal_labels(chart, sig):
+                covered.add((lab, sig.rule))
+    rows = []
+    for (label, rule), info in sorted(kept.items(), key=lambda kv: (_label_sort(kv[0][0]),
+                                                                   kv[0][1])):
+        info = dict(info or {})
+        rows.append({"subgroup": str(label), "rule": str(rule),
+                     "reason": str(info.get("reason", "")), "who": str(info.get("who", "")),
+                     "when": str(info.get("when", "")),
+                     "origin": str(info.get("origin", "person")),
+                     "on_chart": (str(label), str(rule)) in covered})
+    return tuple(rows), {(r["subgroup"], r["rule"]) for r in rows}
+
+
+def _label_sort(label: str):
+    try:
+        return (0, float(label), label)
+    except ValueError:
+        return (1, 0.0, label)
+
+
+def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
+    """Findings and verdict when some signals are kept with a reason.
+
+    A signal is reviewed when a keep decision names its rule at one of the subgroups of its
+    pattern. Reviewed signals are listed with their reasons (an ``info`` finding) and do not
+    withhold the verdict; the signals still open are judged as in :func:`_not_in_control`.
+    """
+    open_loc, open_disp, reviewed = [], [], []
+    for series, bucket in ((chart.location, open_loc), (chart.dispersion, open_disp)):
+        if series is None:
+            continue
+        for sig in series.signals:
+            labels = _signal_labels(chart, sig)
+            if any((lab, sig.rule) in kept_keys for lab in labels):
+                reviewed.append(sig)
+            else:
+                bucket.append(sig)
+    findings = []
+    if open_loc or open_disp:
+        open_chart = replace(
+            chart,
+            location=None if chart.location is None else replace(chart.location,
+                                                                 signals=tuple(open_loc)),
+            dispersion=None if chart.dispersion is None else replace(chart.dispersion,
+                                                                     signals=tuple(open_disp)))
+        finding, verdict = _not_in_control(open_chart, verdict)
+        findings.append(finding)
+    on_chart = [r for r in kept_rows if r["on_chart"]]
+    if on_chart:
+        listed = "; ".join(f"{r['rule']} at subgroup {r['subgroup']} ({r['reason']}, "
+                           f"{r['who'] or 'unknown'})" for r in on_chart[:8])
+        more = f"; and {len(on_chart) - 8} more" if len(on_chart) > 8 else ""
+        findings.append(capability_module.Finding(
+            code="signals_kept", severity="info",
+            text=(f"{len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
+                  f"recorded reason (not a special cause, or a known common cause): {listed}"
+                  f"{more}. The subgroups stay in the analysis.")))
+        if verdict is not None and not (open_loc or open_disp):
+            verdict = replace(verdict, text=verdict.text + (
+                f" {len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
+                "reason (see the findings)."))
+    return findings, verdict
 
 
 _PRETTY_INDEX = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
@@ -1439,7 +1532,11 @@ def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=No
     if sizes is not None and np.allclose(sizes, sizes[0]):
         nominal = int(sizes[0]) if float(sizes[0]).is_integer() else None
     findings = list(withheld)
-    if chart.signals:
+    if common["kept_signals"]:
+        kept_keys = {(k["subgroup"], k["rule"]) for k in common["kept_signals"]}
+        found, verdict = _signals_with_kept(chart, verdict, kept_keys, common["kept_signals"])
+        findings[:0] = found
+    elif chart.signals:
         finding, verdict = _not_in_control(chart, verdict)
         findings.insert(0, finding)
     verdict = _withhold(verdict, tuple(withheld))
@@ -1460,6 +1557,16 @@ def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=No
 
 
 # ----------------------------------------------------------------------------- studies
+
+
+def _kept(study, name) -> dict:
+    """Signals of ``name`` kept with a reason, as :func:`analyze_characteristic` takes them."""
+    kept_signals = getattr(study, "kept_signals", None)
+    if kept_signals is None:
+        return {}
+    return {key: {"reason": d.reason, "who": d.who, "when": d.when,
+                  "origin": d.payload.get("origin", "person")}
+            for key, d in kept_signals(name).items()}
 
 
 def _exclusions(study, name) -> dict:
@@ -1542,6 +1649,7 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
         exclusions=_exclusions(study, name),
         options=options,
         gauge=gauge,
+        kept=_kept(study, name),
     )
 
 

@@ -707,6 +707,11 @@ def _decision_what(d: Decision) -> str:
     on = f" of '{d.characteristic}'" if d.characteristic else ""
     if d.action in ("exclude", "restore"):
         return f"{d.action} subgroup {d.subgroup}{on}" + (" (automatic)" if d.automatic else "")
+    if d.action == "keep_signal":
+        by = " (rejected proposal)" if d.payload.get("origin") == "rejected_proposal" else ""
+        return f"keep signal {d.payload.get('rule')} at subgroup {d.subgroup}{on}{by}"
+    if d.action == "reopen_signal":
+        return f"reopen signal {d.payload.get('rule')} at subgroup {d.subgroup}{on}"
     if d.action == "set_spec":
         changes = ", ".join(f"{k} {d.payload.get('old', {}).get(k)!r} -> {v!r}"
                             for k, v in d.payload.get("changes", {}).items())

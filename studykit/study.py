@@ -35,6 +35,8 @@ __all__ = [
     "CHARTS",
     "DEFAULT_SIGNOFF_RULES",
     "DIGEST_NEUTRAL_ACTIONS",
+    "KEEP_ORIGINS",
+    "SIGNAL_ACTIONS",
     "INDICES",
     "SIGNOFF_DECISIONS",
     "SIGNOFF_ROLES",
@@ -72,7 +74,15 @@ ACTIONS = (
     "void_signoff",
     "set_signoff_rules",
     "waive_verdict",
+    "keep_signal",
+    "reopen_signal",
 )
+#: decisions on a run-rule signal: "keep, with reason" (the signal is reviewed and not a special
+#: cause, or has a known common cause) and its withdrawal; keyed by (subgroup, rule)
+SIGNAL_ACTIONS = ("keep_signal", "reopen_signal")
+#: where a keep decision came from: a person's review of the chart, or a rejected proposal of
+#: the automatic phase-I search
+KEEP_ORIGINS = ("person", "rejected_proposal")
 #: actions that do not change what the study computes (they never void a sign-off)
 DIGEST_NEUTRAL_ACTIONS = frozenset({"note", "void_signoff"})
 #: the usual roles of a sign-off; any other non-empty text is accepted too
@@ -486,9 +496,15 @@ class Decision:
         set_(self, "subgroup", sub)
         what = f"{action} decision"
         article = "an" if action[:1] in "aeiou" else "a"
-        if action in ("exclude", "restore") and sub is None:
-            raise StudyInputError(f"an {what} needs the `subgroup` it applies to")
-        if action in ("exclude", "restore", "set_spec", "set_criteria", "set_model", "set_chart"):
+        if action in ("exclude", "restore") + SIGNAL_ACTIONS and sub is None:
+            article_ = "an" if action[:1] in "aeiou" else "a"
+            raise StudyInputError(f"{article_} {what} needs the `subgroup` it applies to")
+        if action in SIGNAL_ACTIONS and not str(dict(self.payload or {}).get("rule", "")).strip():
+            raise StudyInputError(
+                f"a {what} needs the run rule of the signal in its payload, e.g. "
+                "{'rule': 'beyond_limits'}")
+        if action in ("exclude", "restore", "set_spec", "set_criteria", "set_model", "set_chart",
+                      *SIGNAL_ACTIONS):
             if ch is None:
                 raise StudyInputError(f"{article} {what} needs the `characteristic` it applies to")
         reason = _text(self.reason, name="reason")
@@ -874,6 +890,30 @@ class Study:
                 out.pop(d.subgroup, None)
         return out
 
+    def kept_signals(self, name: str) -> dict[tuple[str, str], Decision]:
+        """Signals of ``name`` kept with a reason: ``(subgroup label, rule id)`` -> the
+        ``keep_signal`` decision in force (the latest ``keep_signal``/``reopen_signal`` of that
+        subgroup and rule wins).
+
+        Examples
+        --------
+        >>> d = Decision("x", "keep_signal", subgroup=7, reason="known warm-up, common cause",
+        ...              who="A", payload={"rule": "beyond_limits"})
+        >>> d.subgroup, dict(d.payload)
+        ('7', {'rule': 'beyond_limits'})
+        """
+        self.characteristic(name)
+        out: dict[tuple[str, str], Decision] = {}
+        for d in self.decisions:
+            if d.characteristic != name or d.action not in SIGNAL_ACTIONS:
+                continue
+            key = (d.subgroup, str(d.payload.get("rule", "")))
+            if d.action == "keep_signal":
+                out[key] = d
+            else:
+                out.pop(key, None)
+        return out
+
     def setting(self, name: str, action: str, default=None):
         """Latest payload of a setting decision (e.g. ``set_model``) for ``name``, else default."""
         self.characteristic(name)
@@ -932,12 +972,19 @@ class Study:
             for d in self.decisions:
                 if d.characteristic != name:
                     continue
-                if d.action in ("exclude", "restore", "set_spec", "set_criteria"):
+                if d.action in ("exclude", "restore", "set_spec", "set_criteria",
+                                *SIGNAL_ACTIONS):
                     continue
                 if d.action in DIGEST_NEUTRAL_ACTIONS:
                     continue
                 settings[d.action] = dict(d.payload)
             eff[name] = {"excluded": excluded, "settings": settings}
+            kept = {
+                f"{label}|{rule}": {"reason": d.reason, "origin": d.payload.get("origin", "person")}
+                for (label, rule), d in self.kept_signals(name).items()
+            }
+            if kept:  # only then: the digest of a study without kept signals is unchanged
+                eff[name]["kept"] = kept
         return eff
 
     def content_dict(self) -> dict:
@@ -1096,6 +1143,30 @@ class Study:
                      automatic=automatic)
         return self.with_decision(d, **lock)
 
+    def keep_signal(self, name: str, subgroup, *, rule: str, reason: str, who: str,
+                    origin: str = "person", when: str = "", payload: Mapping | None = None,
+                    **lock) -> Study:
+        """Record that the ``rule`` signal at ``subgroup`` of ``name`` is reviewed and kept:
+        not a special cause, or a known common cause ("keep, with reason"). The subgroup stays
+        in the analysis; the signal no longer withholds the verdict and is listed as reviewed.
+        ``origin`` is ``"person"`` or ``"rejected_proposal"`` (a proposal of the automatic
+        phase-I search that a person rejected)."""
+        d = Decision(name, "keep_signal", subgroup=subgroup, reason=reason, who=who, when=when,
+                     payload={**dict(payload or {}), "rule": str(rule), "origin": origin})
+        return self.with_decision(d, **lock)
+
+    def reopen_signal(self, name: str, subgroup, *, rule: str, reason: str, who: str,
+                      when: str = "", **lock) -> Study:
+        """Withdraw a ``keep_signal`` decision: the signal counts as open again."""
+        if (str(subgroup), str(rule)) not in {(k[0], k[1]) for k in self.kept_signals(name)}:
+            kept = ", ".join(f"{s} ({r})" for s, r in self.kept_signals(name)) or "none"
+            raise StudyInputError(
+                f"no kept signal '{rule}' at subgroup {subgroup} of '{name}' to reopen "
+                f"(kept now: {kept})")
+        d = Decision(name, "reopen_signal", subgroup=subgroup, reason=reason, who=who, when=when,
+                     payload={"rule": str(rule)})
+        return self.with_decision(d, **lock)
+
     def with_spec(self, name: str, *, who: str, reason: str, when: str = "", override_lock=False,
                   override_reason=None, **changes) -> Study:
         """Change fields of a specification (``lsl=``, ``usl=``, ``target=``, ...).
@@ -1178,6 +1249,10 @@ class Study:
                 dict(c.to_dict(), criteria=self.criteria_for(n).to_dict(),
                      criteria_text=self.criteria_for(n).describe(),
                      excluded_subgroups=sorted(self.excluded_subgroups(n), key=_label_key),
+                     kept_signals=[{"subgroup": lab, "rule": rule, "reason": d.reason,
+                                    "who": d.who, "when": d.when,
+                                    "origin": d.payload.get("origin", "person")}
+                                   for (lab, rule), d in self.kept_signals(n).items()],
                      model=self.model_for(n), chart=self.chart_for(n))
                 for n, c in self.characteristics.items()
             ],
@@ -1235,6 +1310,11 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             )
     elif d.action in ("set_signoff_rules", "waive_verdict"):
         _check_signoff_setting(d)
+    elif d.action == "keep_signal":
+        origin = d.payload.get("origin", "person")
+        if origin not in KEEP_ORIGINS:
+            raise StudyInputError(
+                f"keep_signal: `origin` ({origin!r}) must be one of {', '.join(KEEP_ORIGINS)}")
     elif d.action == "void_signoff":
         idx = d.payload.get("signoff")
         if isinstance(idx, bool) or not isinstance(idx, int) or not 0 <= idx < n_signoffs:

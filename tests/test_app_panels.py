@@ -103,9 +103,42 @@ def test_proposals_need_a_decision_each(wb):
     assert not stab.record.disabled
     for _p, other, _r in stab._proposals[1:]:
         other.value = "reject"
+    if stab._proposals[1:]:
+        assert stab.record.disabled  # a rejection needs its reason too (it is recorded)
+    for _p, _other, why in stab._proposals[1:]:
+        why.value = "first part after warm-up, a common cause"
+    assert not stab.record.disabled
+    rejected = [p.label for p, _o, _r in stab._proposals[1:]]
     stab.record.click()
     assert proposal.label in s.result(NAME).removed_subgroups
     assert "rule" in stab.log.value
+    kept = s.kept_signals(NAME)
+    assert sorted(lab for lab, _rule in kept) == sorted(rejected)
+    assert all(d.payload["origin"] == "rejected_proposal" for d in kept.values())
+    for label in rejected:
+        assert f"<td>{label}</td>" in stab.kept_log.value
+
+
+def test_keep_with_reason_from_the_side_panel(wb):
+    stab = wb.step("stability")
+    s = stab.ws.session
+    s.restore(NAME, "17", reason="review", who="A. Tester")
+    stab.subgroup.value = "17"
+    assert stab.keep.description == "Keep, with reason" and stab.keep.disabled  # no reason
+    stab.reason.value = "first part after warm-up; common cause per FMEA"
+    assert not stab.keep.disabled
+    stab.keep.click()
+    assert ("17", "beyond_limits") in s.kept_signals(NAME)
+    assert "common cause per FMEA" in stab.kept_log.value
+    ring = stab.view.sources["location"]["kept"].data
+    assert ring["x"] and "common cause per FMEA" in ring["why"][0]
+    assert "kept with a reason" in stab.summary.value
+    # the same button now withdraws it
+    stab.subgroup.value = "17"
+    assert stab.keep.description == "Reopen signal"
+    stab.reason.value = "cause not confirmed"
+    stab.keep.click()
+    assert s.kept_signals(NAME) == {}
 
 
 def test_warning_limits_toggle(wb):

@@ -149,6 +149,29 @@ def test_missing_study_file_exits_2(tmp_path, capsys):
     assert "nope.study' does not exist" in capsys.readouterr().err
 
 
+def test_new_study_file_is_offered_not_assumed(tmp_path, capsys, monkeypatch):
+    from studykit.cli.serve import offer_new_study
+
+    class Args:
+        study = str(tmp_path / "new.study")
+        new = False
+
+    # not interactive, no --new: refused with the way to create it
+    monkeypatch.setattr(sys.stdin, "isatty", lambda: False)
+    assert main(["serve", "--no-browser", str(tmp_path / "new.study")]) == 2
+    assert "add --new to create it in the browser" in capsys.readouterr().err
+    # a name that is no study file, a folder that does not exist
+    for bad, msg in ((tmp_path / "new.csv", "ending in .study"),
+                     (tmp_path / "no" / "x.study", "does not either")):
+        assert main(["serve", "--no-browser", "--new", str(bad)]) == 2
+        assert msg in capsys.readouterr().err
+    # --new: accepted (the page creates it); nothing is written yet
+    Args.new = True
+    offer_new_study(Args, tmp_path / "new.study")
+    assert "not created yet" in capsys.readouterr().out
+    assert not (tmp_path / "new.study").exists()
+
+
 def test_busy_port_exits_2(capsys):
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))

@@ -86,13 +86,15 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
     dict
         ``{"labels": [...all subgroups in order], "location": part, "dispersion": part or None}``;
         a part has ``points`` (x, label, value, status 'kept'/'removed', time, note, values,
-        removed_why, rules), ``limits`` (x, center, lcl, ucl, lower_warning, upper_warning,
-        lower_zone, upper_zone), ``signals`` (x, value, rule) and ``limit_text``.
+        removed_why, rules, kept_why), ``limits`` (x, center, lcl, ucl, lower_warning,
+        upper_warning, lower_zone, upper_zone), ``signals`` (x, value, rule), ``kept`` (x, value,
+        why: signals kept with a reason) and ``limit_text``.
     """
     chart = result.phase1.chart
     details = details or {}
     kept = [_label(v) for v in chart.labels]
     removal_why = {_label(r.label): f"{r.reason} ({r.who})" for r in result.phase1.removals}
+    kept_why = _kept_why(result)
     if full_chart is not None:
         order = [_label(v) for v in full_chart.labels]
         if set(kept) - set(order):
@@ -108,7 +110,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             continue
         full_series = getattr(full_chart, part) if full_chart is not None else None
         pts = {"x": [], "label": [], "value": [], "status": [], "time": [], "note": [],
-               "values": [], "removed_why": [], "rules": []}
+               "values": [], "removed_why": [], "rules": [], "kept_why": []}
         by_label = {lab: float(v) for lab, v in zip(kept, _floats(series.points), strict=False)}
         full_values = {}
         if full_series is not None:
@@ -134,6 +136,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             pts["removed_why"].append(removal_why.get(lab, "—") if not is_kept else "—")
             rules = sorted(set(rules_at.get(kept_index[lab], []))) if is_kept else []
             pts["rules"].append(", ".join(rules) if rules else "—")
+            pts["kept_why"].append(kept_why.get(lab, "—") if is_kept else "—")
         xs = [xpos[lab] for lab in kept]
         limits = {"x": xs}
         for key in ("center", "lcl", "ucl", "lower_warning", "upper_warning", "lower_zone",
@@ -145,14 +148,39 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
                 signals["x"].append(xpos[kept[pos]])
                 signals["value"].append(by_label[kept[pos]])
                 signals["rule"].append(", ".join(sorted(set(rules))))
+        ring = {"x": [], "value": [], "why": []}
+        for lab in kept:
+            if lab in kept_why and _signals_here(series, kept_index[lab]):
+                ring["x"].append(xpos[lab])
+                ring["value"].append(by_label[lab])
+                ring["why"].append(kept_why[lab])
         c = limits["center"]
         text = {"center": c[-1] if c else None, "lcl": limits["lcl"][-1] if c else None,
                 "ucl": limits["ucl"][-1] if c else None,
                 "varies": bool(c) and (len(set(limits["ucl"])) > 1)}
         out[part] = {"points": pts, "limits": limits, "signals": signals, "limit_text": text,
+                     "kept": ring,
                      "name": (LOCATION_NAMES if part == "location" else DISPERSION_NAMES).get(
                          chart.kind, part)}
     return out
+
+
+def _kept_why(result) -> dict[str, str]:
+    """Subgroup label -> 'rule: reason (who)' of the signals kept with a reason there."""
+    out: dict[str, list[str]] = {}
+    for k in getattr(result, "kept_signals", ()) or ():
+        out.setdefault(str(k["subgroup"]), []).append(
+            f"{k['rule']}: {k['reason']} ({k['who']})")
+    return {lab: "; ".join(v) for lab, v in out.items()}
+
+
+def _signals_here(series, pos: int) -> bool:
+    return any(pos in {int(p) for p in sig.points} for sig in series.signals)
+
+
+#: a ring around a signalled point that a person kept with a reason (bluish green, hollow)
+_KEPT_RING = {"marker": "circle", "size": 18, "fill_alpha": 0.0,
+              "line_color": theme.OKABE_ITO["bluish_green"], "line_width": 2.5}
 
 
 class ControlChartView:
@@ -194,12 +222,14 @@ class ControlChartView:
         from bokeh.plotting import figure
 
         pts = ColumnDataSource({k: [] for k in ("x", "label", "value", "status", "time", "note",
-                                                "values", "removed_why", "rules")},
+                                                "values", "removed_why", "rules",
+                                                "kept_why")},
                                name=f"{part}_points")
         lim = ColumnDataSource({k: [] for k in ("x", "center", "lcl", "ucl", "lower_warning",
                                                 "upper_warning", "lower_zone", "upper_zone")},
                                name=f"{part}_limits")
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
+        ring = ColumnDataSource({"x": [], "value": [], "why": []}, name=f"{part}_kept")
         fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
                      toolbar_location="above", x_axis_label="Subgroup (production order)",
                      x_range=Range1d(0, 1), y_range=Range1d(0, 1))
@@ -232,15 +262,17 @@ class ControlChartView:
         removed = fig.scatter("x", "value", source=pts, view=removed_view, **removed_kw,
                               selection_line_color=theme.INK, nonselection_line_alpha=1.0)
         fig.scatter("x", "value", source=sig, **theme.bokeh_marker_kwargs("signal"))
+        fig.scatter("x", "value", source=ring, **_KEPT_RING)
         # legend swatches: bokeh 3.9 draws none for a renderer without data or with a view
         nan = [float("nan")]
         signal_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("signal"))
         removed_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("excluded"))
         kept_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("data"))
+        ring_key = fig.scatter(nan, nan, **_KEPT_RING)
         hover = HoverTool(renderers=[kept, removed], tooltips=[
             ("Subgroup", "@label"), ("Time", "@time"), ("Statistic", "@value{0.00000}"),
             ("Values", "@values"), ("Note", "@note"), ("Rules broken", "@rules"),
-            ("Removed because", "@removed_why")])
+            ("Removed because", "@removed_why"), ("Signal kept because", "@kept_why")])
         fig.add_tools(hover, TapTool(renderers=[kept, removed]))
         if part == "location":
             items = [LegendItem(label="Subgroup", renderers=[kept_key]),
@@ -249,14 +281,16 @@ class ControlChartView:
                      LegendItem(label="±1σ zone", renderers=[zone]),
                      LegendItem(label="2σ warning", renderers=warn),
                      LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
-                     LegendItem(label="Removed (reason on file)", renderers=[removed_key])]
+                     LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
+                     LegendItem(label="Signal kept (reason on file)", renderers=[ring_key])]
+            # two rows: eight entries do not fit one row beside the side panel at 1280 px
             fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
                                   label_text_font_size="12px", spacing=12, padding=2,
-                                  margin=4, border_line_color=None), "above")
+                                  margin=4, border_line_color=None, nrows=2), "above")
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
-        self.sources[part] = {"points": pts, "limits": lim, "signals": sig}
+        self.sources[part] = {"points": pts, "limits": lim, "signals": sig, "kept": ring}
         return fig
 
     def update(self, result, *, full_chart=None, details=None, unit: str | None = None) -> dict:
@@ -280,6 +314,7 @@ class ControlChartView:
             src["points"].data = c["points"]
             src["limits"].data = c["limits"]
             src["signals"].data = c["signals"]
+            src["kept"].data = c["kept"]
             t = c["limit_text"]
             if t["varies"]:
                 limits_text = "limits vary with the subgroup size"

@@ -244,7 +244,8 @@ class StudySession:
                     if d.characteristic == name and d.action.startswith("set_")]
         return json.dumps([s.data_sha256, s.characteristic(name).to_dict(),
                            s.criteria_for(name).to_dict(), excluded, settings,
-                           self._gauge_key(name)], sort_keys=True, default=str)
+                           self._gauge_key(name), self._kept_key(name)],
+                          sort_keys=True, default=str)
 
     def _gauge_key(self, name: str):
         g = getattr(self, "_gauges", None)
@@ -756,6 +757,150 @@ class StudySession:
                 **self._lock(override_reason, "changing the sign-off rules"))
         self._saved(())
         return True
+    # --- signals kept with a reason -----------------------------------------------------------
+    def _kept_key(self, name: str) -> list:
+        """The kept signals of ``name`` as they decide a result (part of the cache key)."""
+        return sorted([k[0], k[1], d.reason, d.who, d.payload.get("origin", "person")]
+                      for k, d in self.study.kept_signals(name).items())
+
+    def kept_signals(self, name: str | None = None) -> dict:
+        """``(subgroup, rule)`` -> the ``keep_signal`` decision in force, for ``name``."""
+        return self.study.kept_signals(name or self.current)
+
+    def signals_at(self, name: str, subgroup) -> list[str]:
+        """Rules that signal at ``subgroup`` on the current final chart of ``name``."""
+        chart = self.result(name).chart
+        label = str(subgroup)
+        found: list[str] = []
+        for series in chart.series:
+            for sig in series.signals:
+                if label in {str(chart.labels[int(p)]) for p in sig.points} \
+                        and sig.rule not in found:
+                    found.append(sig.rule)
+        return found
+
+    def keep_signal(self, name: str, subgroup, *, reason: str, who: str,
+                    rules: Sequence[str] | None = None,
+                    override_reason: str | None = None) -> list[str]:
+        """Record "keep, with reason" for the signals at ``subgroup`` of ``name``.
+
+        ``rules`` defaults to every rule signalling there now and not yet kept; each becomes a
+        ``keep_signal`` decision (origin ``person``) in one transaction. Returns the rules kept.
+        """
+        who = _check_name(who)
+        label = str(subgroup)
+        reason = _check_reason(reason, what=f"keeping the signal at subgroup {label}")
+        if label in self.study.excluded_subgroups(name):
+            raise StudyInputError(
+                f"subgroup {label} of '{name}' is removed; restore it first if it should stay "
+                "in the analysis with a reason")
+        now = self.signals_at(name, label)
+        kept = self.study.kept_signals(name)
+        wanted = list(rules) if rules else [r for r in now if (label, r) not in kept]
+        if not wanted:
+            raise StudyInputError(
+                f"subgroup {label} of '{name}' has no open signal to keep"
+                + (" (its signals are already kept)" if now else
+                   " (no rule signals there on the current limits)"))
+        unknown = [r for r in wanted if r not in now]
+        if unknown:
+            raise StudyInputError(
+                f"subgroup {label} of '{name}' shows no {', '.join(unknown)} signal on the "
+                f"current limits (signals there: {', '.join(now) or 'none'})")
+        lock = self._lock(override_reason, f"keeping the signal at subgroup {label}")
+
+        def change(study):
+            kwargs = dict(lock)
+            for rule in wanted:
+                study = study.keep_signal(name, label, rule=rule, reason=reason, who=who,
+                                          **kwargs)
+                kwargs = {}
+            return study
+
+        with self._acting():
+            self.file.apply(change)
+        self._saved([name])
+        return wanted
+
+    def reopen_signal(self, name: str, subgroup, *, reason: str, who: str,
+                      override_reason: str | None = None) -> list[str]:
+        """Withdraw every kept signal at ``subgroup`` of ``name`` (they count as open again)."""
+        who = _check_name(who)
+        label = str(subgroup)
+        reason = _check_reason(reason, what=f"reopening the signal at subgroup {label}")
+        rules = [r for (lab, r) in self.study.kept_signals(name) if lab == label]
+        if not rules:
+            raise StudyInputError(f"subgroup {label} of '{name}' has no kept signal to reopen")
+        lock = self._lock(override_reason, f"reopening the signal at subgroup {label}")
+
+        def change(study):
+            kwargs = dict(lock)
+            for rule in rules:
+                study = study.reopen_signal(name, label, rule=rule, reason=reason, who=who,
+                                            **kwargs)
+                kwargs = {}
+            return study
+
+        with self._acting():
+            self.file.apply(change)
+        self._saved([name])
+        return rules
+
+    def open_proposals(self, name: str | None = None) -> tuple[Proposal, ...]:
+        """:meth:`propose_removals` without the signals already kept with a reason.
+
+        Proposals of later rounds assume every earlier proposal removed; once a kept one is left
+        out, the later rounds are left out too (run the search again after recording).
+        """
+        name = name or self.current
+        kept = self.study.kept_signals(name)
+        out: list[Proposal] = []
+        skipped_round = None
+        for p in self.propose_removals(name):
+            if skipped_round is not None and p.iteration > skipped_round:
+                break
+            if all((p.label, r) in kept for r in p.rule.split(",")):
+                skipped_round = p.iteration
+                continue
+            out.append(p)
+        return tuple(out)
+
+    def record_proposal_decisions(self, name: str, accepted: Sequence[tuple[Proposal, str]],
+                                  rejected: Sequence[tuple[Proposal, str]], *, who: str,
+                                  override_reason: str | None = None) -> tuple[int, int]:
+        """Record accepted proposals (``exclude``) and rejected ones (``keep_signal`` with origin
+        ``rejected_proposal``) in one transaction, each with its reason. Returns the counts."""
+        who = _check_name(who)
+        acc = [(p, _check_reason(r, what=f"accepting the removal of subgroup {p.label}"))
+               for p, r in accepted]
+        rej = [(p, _check_reason(r, what=f"rejecting the proposal for subgroup {p.label}"))
+               for p, r in rejected]
+        if not acc and not rej:
+            return 0, 0
+        lock = self._lock(override_reason, "recording the proposal decisions")
+
+        def change(study):
+            kwargs = dict(lock)
+            for proposal, reason in acc:
+                study = study.exclude(
+                    name, proposal.label, reason=reason, who=who, automatic=True,
+                    payload={"rule": proposal.rule, "chart": proposal.chart,
+                             "signal": proposal.reason, "accepted_by": who}, **kwargs)
+                kwargs = {}
+            for proposal, reason in rej:
+                for rule in proposal.rule.split(","):
+                    study = study.keep_signal(
+                        name, proposal.label, rule=rule, reason=reason, who=who,
+                        origin="rejected_proposal",
+                        payload={"chart": proposal.chart, "signal": proposal.reason,
+                                 "round": proposal.iteration}, **kwargs)
+                    kwargs = {}
+            return study
+
+        with self._acting():
+            self.file.apply(change)
+        self._saved([name])
+        return len(acc), len(rej)
 
     # --- export -------------------------------------------------------------------------------
     def results_json(self) -> bytes:

@@ -211,6 +211,7 @@ class Workbook(widgets.VBox):
                           self._body, self._overview_card])
         self.add_class("sk-root")
         context.extra["studykit.open_step"] = self.select
+        context.extra["studykit.reopen_steps"] = self.reopen_steps
         context.subscribe(self._on_context_change)
         self._render_header()
         self._render_overview()
@@ -242,6 +243,13 @@ class Workbook(widgets.VBox):
         self._guidance.value = (f"<b>Step {number} of {len(self.steps)} · {esc(step.title)}.</b> "
                                 f"{esc(step.guidance)}")
         self._render_stepbar()
+
+    def reopen_steps(self) -> None:
+        """Build every step again when next opened (the open step at once): after a study file
+        was created in the browser, steps built without one show it."""
+        current = self.current
+        self._built = {k: w for k, w in self._built.items() if k == "intake"}
+        self.select(current)
 
     # --- rendering ----------------------------------------------------------------------------
     def _on_context_change(self, context: WorkbookContext) -> None:
@@ -381,8 +389,9 @@ def load_study_into(context: WorkbookContext, path: str | os.PathLike) -> None:
     if not path.is_file():
         context.update(study_path=path, state="Study file not found")
         raise StudyFileError(
-            f"the study file '{path.name}' does not exist; start the workbook with an existing "
-            "study file, or without one to begin from a data file")
+            f"the study file '{path.name}' does not exist yet: create it in 'Bring in data' "
+            "(confirm your measurement files, fill the specification table, 'Create study'), "
+            "or start the workbook with an existing study file")
     opener = _study_opener()
     if opener is None:
         context.update(study_path=path, title=path.stem, state="Study file found")

@@ -68,6 +68,9 @@ def register(subparsers) -> None:
                         "at least 1; 0 keeps them until the server stops); closing a page shuts "
                         "its kernel down at once")
     p.add_argument("--no-browser", action="store_true", help="do not open a browser window")
+    p.add_argument("--new", action="store_true",
+                   help="STUDY_FILE does not exist yet: create it in the browser from your "
+                        "measurement files (asked for when the terminal is interactive)")
     p.set_defaults(func=run)
 
 
@@ -104,6 +107,37 @@ def demo_working_copy(original: Path) -> Path:
         shutil.copyfile(original, tmp)
         os.replace(tmp, copy)
     return copy
+
+
+ENV_NEW_DIR = "STUDYKIT_NEW_DIR"  # same name as studykit.app.steps.newstudy.ENV_NEW_DIR
+
+
+def offer_new_study(args, study: Path) -> None:
+    """``serve NEW.study`` on a file that does not exist: offer to create it in the browser.
+
+    With ``--new``, or a "y" at the question on an interactive terminal, the workbook opens on
+    "Bring in data" to make it; otherwise a clear refusal (exit 2).
+    """
+    refuse = (f"the study file '{args.study}' does not exist; check the path, run `studykit "
+              "serve` without it, or add --new to create it in the browser")
+    if study.suffix.lower() != ".study":
+        raise StudyFileError(f"the study file '{args.study}' does not exist, and a new one needs "
+                             "a name ending in .study, e.g. pilot-run-3.study")
+    if not study.parent.is_dir():
+        raise StudyFileError(f"the study file '{args.study}' does not exist, and its folder "
+                             f"'{study.parent}' does not either: create the folder first")
+    if not os.access(study.parent, os.W_OK):
+        raise StudyFileError(f"the folder '{study.parent}' cannot be written: choose another "
+                             "place for the new study file")
+    if not args.new:
+        if not (sys.stdin.isatty() and sys.stdout.isatty()):
+            raise StudyFileError(refuse)
+        answer = input(f"'{args.study}' does not exist. Create it in the browser from your "
+                       "measurement files? [y/N] ").strip().lower()
+        if answer not in ("y", "yes"):
+            raise StudyFileError(refuse)
+    print(f"new study file: {study}\n  (not created yet: in the workbook, bring in your "
+          "measurement files, fill the specification table and press 'Create study')")
 
 
 def find_demo_study(demo_dir: Path = DEMO_DIR) -> Path | None:
@@ -234,13 +268,13 @@ def run(args) -> int:
     elif args.study:
         study = Path(args.study).expanduser().resolve()
         if not study.is_file():
-            raise StudyFileError(f"the study file '{args.study}' does not exist; check the "
-                                 "path, or run `studykit serve` without it")
+            offer_new_study(args, study)
     check_port_free(host, port)
 
     env = dict(os.environ)
     env[ENV_STUDY] = str(study) if study else ""
     env[ENV_PARENT_PID] = str(os.getpid())
+    env[ENV_NEW_DIR] = str(study.parent if study else Path.cwd())  # a study made in the page
     token = None
     if not is_loopback(host):
         token = secrets.token_urlsafe(24)

@@ -6,6 +6,8 @@ Subcommands::
     studykit study show STUDYFILE [--json]
     studykit study exclude STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
     studykit study restore STUDYFILE CHARACTERISTIC SUBGROUP --reason R [--who W]
+    studykit study keep STUDYFILE CHARACTERISTIC SUBGROUP --rule RULE --reason R [--who W]
+    studykit study reopen STUDYFILE CHARACTERISTIC SUBGROUP --rule RULE --reason R [--who W]
     studykit study set STUDYFILE CHARACTERISTIC [--usl X ...] [--criterion ...] --reason R
     studykit study comment STUDYFILE TEXT [--characteristic C] [--who W]
     studykit study sign STUDYFILE --role ROLE --decision approve|reject|comment [--who W]
@@ -94,6 +96,8 @@ def register(subparsers) -> None:
         q.add_argument("--override-lock", metavar="REASON",
                        help="change an approved study anyway; voids the approval")
         q.set_defaults(func=run_decision, action=action)
+
+    _register_keep(sub)
 
     st = sub.add_parser("set", help="change a specification, criterion, model or chart",
                         description="Change the specification, acceptance criterion, model or "
@@ -256,6 +260,104 @@ def _spec_rows(path) -> list[int]:
     return [i for i, ln in enumerate(text.splitlines(), start=1) if ln.strip()][1:]
 
 
+# -- keep, with reason ---------------------------------------------------------------------------
+
+
+def _register_keep(sub) -> None:
+    keep = sub.add_parser(
+        "keep", help="keep a signalled subgroup, with the reason it is not a special cause",
+        description="Record that a run-rule signal at one subgroup is reviewed and kept: not a "
+        "special cause, or a known common cause. The subgroup stays in the analysis; the signal "
+        "is listed as reviewed with your reason and no longer withholds the verdict.")
+    reopen = sub.add_parser("reopen", help="withdraw a 'keep' decision (the signal is open "
+                            "again)")
+    for q in (keep, reopen):
+        q.add_argument("studyfile", metavar="STUDYFILE")
+        q.add_argument("characteristic", metavar="CHARACTERISTIC")
+        q.add_argument("subgroup", metavar="SUBGROUP")
+        q.add_argument("--rule", required=True,
+                       help="the rule of the signal: beyond_limits, run, trend, alternation, "
+                       "zone_a, zone_b, hugging, mixture (or its Nelson number 1-8)")
+        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
+        q.add_argument("--who", default=None, help="your name (default: the login name)")
+        q.add_argument("--override-lock", metavar="REASON",
+                       help="change an approved study anyway; voids the approval")
+    keep.set_defaults(func=run_keep)
+    reopen.set_defaults(func=run_reopen)
+
+
+def _rule_id(text: str) -> str:
+    from studykit.stats.rules import _BY_NUMBER, RULE_IDS
+
+    token = (text or "").strip().lower().replace("-", "_")
+    if token.isdigit() and int(token) in _BY_NUMBER:
+        return _BY_NUMBER[int(token)]
+    if token not in RULE_IDS:
+        raise StudyInputError(f"`--rule` ({text!r}) is not a run rule: use one of "
+                              f"{', '.join(RULE_IDS)} or a Nelson number 1-8")
+    return token
+
+
+def signals_at(study: Study, name: str, label: str) -> list[str]:
+    """The rules signalling at subgroup ``label`` on the final chart of ``name`` (as the
+    workbook and ``analyze --study`` draw it)."""
+    from studykit.analysis import analyze_study
+
+    res = analyze_study(study, name)
+    chart = res.chart
+    found = []
+    for series in chart.series:
+        for sig in series.signals:
+            labels = {str(chart.labels[int(p)]) for p in sig.points}
+            if label in labels and sig.rule not in found:
+                found.append(sig.rule)
+    return found
+
+
+def run_keep(args) -> int:
+    sf = StudyFile(args.studyfile)
+    who = _who(args)
+    rule = _rule_id(args.rule)
+    label = args.subgroup.strip()
+    study = sf.load()
+    name = args.characteristic
+    study.characteristic(name)
+    if label in study.excluded_subgroups(name):
+        raise StudyInputError(f"subgroup '{label}' of '{name}' is removed from the analysis; "
+                              "restore it first if it should stay with a reason")
+    labels = _subgroup_labels(study, name)
+    if label not in labels:
+        shown = ", ".join(labels[:8]) + (", ..." if len(labels) > 8 else "")
+        raise StudyInputError(f"'{name}' has no subgroup '{label}' (its subgroups are {shown}): "
+                              "give a label exactly as the data show it")
+    rules = signals_at(study, name, label)
+    if rule not in rules:
+        raise StudyInputError(
+            f"subgroup '{label}' of '{name}' shows no '{rule}' signal on the current chart "
+            f"(signals there: {', '.join(rules) or 'none'}); `studykit analyze --study` lists "
+            "the signals")
+    if (label, rule) in study.kept_signals(name):
+        d = study.kept_signals(name)[(label, rule)]
+        raise StudyInputError(f"the '{rule}' signal at subgroup '{label}' of '{name}' is already "
+                              f"kept (by {d.who} on {d.when}: {d.reason})")
+    sf.apply(lambda s: s.keep_signal(name, label, rule=rule, reason=args.reason, who=who,
+                                     **_lock_kw(args)))
+    print(f"kept the {rule} signal at subgroup {label} of '{name}' (reviewed, with reason)")
+    return 0
+
+
+def run_reopen(args) -> int:
+    sf = StudyFile(args.studyfile)
+    who = _who(args)
+    rule = _rule_id(args.rule)
+    label = args.subgroup.strip()
+    name = args.characteristic
+    sf.apply(lambda s: s.reopen_signal(name, label, rule=rule, reason=args.reason, who=who,
+                                       **_lock_kw(args)))
+    print(f"reopened the {rule} signal at subgroup {label} of '{name}'")
+    return 0
+
+
 # -- show ---------------------------------------------------------------------------------------
 
 
@@ -301,10 +403,11 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
             name, c.unit or "", _num(c.lsl), _num(c.target), _num(c.usl),
             "yes" if c.safety_critical else "", study.criteria_for(name).describe(),
             study.chart_for(name), study.model_for(name), ", ".join(excluded),
+            ", ".join(f"{lab} ({rule})" for lab, rule in study.kept_signals(name)),
         ])
     if rows:
         out.append(_table(["name", "unit", "LSL", "target", "USL", "safety", "criterion",
-                           "chart", "model", "excluded"], rows))
+                           "chart", "model", "excluded", "kept signals"], rows))
     else:
         out.append("  (none specified)")
     out.append("")

@@ -198,6 +198,20 @@ def _removed_points(result, raw, kind):
     return removed, loc, disp
 
 
+def _kept_rings(ax, series, x, labels, result) -> None:
+    """A green ring around each signalled point that a person kept with a reason."""
+    kept = {str(k["subgroup"]) for k in getattr(result, "kept_signals", ()) or ()}
+    if not kept:
+        return
+    at = {int(p) for sig in series.signals for p in sig.points}
+    pts = np.asarray(series.points, dtype=float)
+    idx = [i for i, lab in enumerate(labels) if lab in kept and i in at and i < len(pts)]
+    if idx:
+        ax.scatter([x[i] for i in idx], pts[idx], s=150, facecolors="none",
+                   edgecolors=theme.OKABE_ITO["bluish_green"], linewidths=1.6, zorder=6,
+                   label="Signal kept (reason on file)")
+
+
 def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
     """Location (and dispersion) chart of the final phase-I limits.
 
@@ -235,6 +249,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         _series_panel(axes[0], chart.location, x, rx, ry,
                       f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({kind.replace('_', '-')})",
                       _LOCATION_NAMES.get(kind, "Value") + unit, used)
+        _kept_rings(axes[0], chart.location, x, used, result)
         if panels == 2:
             dx = x[-len(chart.dispersion.points):]
             drx = [all_labels.index(lab) + 1 for lab in removed if lab in disp_r
@@ -243,6 +258,8 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             _series_panel(axes[1], chart.dispersion, dx, drx, dry,
                           f"{_DISPERSION_NAMES.get(kind, 'Dispersion')} chart",
                           _DISPERSION_NAMES.get(kind, "Dispersion") + unit, used)
+            _kept_rings(axes[1], chart.dispersion, dx, used[-len(chart.dispersion.points):],
+                        result)
         n = len(all_labels)
         longest = max((len(lab) for lab in all_labels), default=1)
         step = max(1, int(math.ceil(n / 25)), int(math.ceil(n * (longest + 1.5) / 110)))

@@ -802,6 +802,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                                                                      0.55)], styles=st)]))
     else:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
+    _kept_signals_block(story, res, st, width)
     if res.attribute:
         _attribute_block(story, res, st, width)
         _warnings_block(story, res, st)
@@ -973,6 +974,26 @@ def _attribute_block(story, res, st, width):
         elif isinstance(v, str) and len(v) < 120:
             rows.append([_esc(k.replace("_", " ")), _esc(v)])
     story.append(_table(rows, [0.4 * width, 0.6 * width], styles=st))
+
+
+def _kept_signals_block(story, res, st, width) -> None:
+    """Signals kept with a reason (reviewed: not a special cause, or a known common cause)."""
+    kept = getattr(res, "kept_signals", ()) or ()
+    if not kept:
+        return
+    from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+    rows = [["Subgroup", "Rule", "From", "Who", "Reason"]]
+    for k in kept:
+        origin = "rejected proposal" if k["origin"] == "rejected_proposal" else "person"
+        rows.append([_esc(k["subgroup"]), _esc(str(k["rule"]).replace("_", " ")), origin,
+                     _esc(k["who"] or "–"),
+                     _esc(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)")])
+    story.append(Spacer(1, 4))
+    story.append(KeepTogether([
+        Paragraph("Signals kept with a reason (reviewed; the subgroups stay in the analysis)",
+                  st["cellb"]),
+        _table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
 
 
 def _warnings_block(story, res, st):

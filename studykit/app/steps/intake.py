@@ -155,11 +155,14 @@ class IntakeStep:
         self._discard.on_click(guarded(lambda _b: self._on_discard(context), messages=messages))
         self._pick.observe(guarded(lambda change: self._show_chart(change["new"]),
                                    messages=messages), names="value")
+        self._newstudy = _new_study_panel(context)
         self.refresh(context)
         return widgets.VBox([intro, self._upload, self._result, self._actions,
-                             self._chart_area])
+                             self._chart_area, self._newstudy])
 
     def refresh(self, context) -> None:
+        if getattr(self, "_newstudy", None) is not None:
+            self._newstudy.refresh()
         if self._pending is None and context.measurements is not None:
             self._result.value = (
                 '<div class="sk-msg sk-msg-ok"><span class="sk-msg-kind">In use</span>'
@@ -183,6 +186,7 @@ class IntakeStep:
             raise DataFileError("the file is empty; choose the file that holds the measurements",
                                 file=name)
         m = context.read_measurements(bytes(content), name)
+        self._pending_bytes = bytes(content)  # kept for a new study made from this file
         self._set_pending(m, name)
         context.messages.info(f"Read '{name}': check what was found, then press "
                               "'Use this data'.")
@@ -235,12 +239,32 @@ class IntakeStep:
         if context.study is None and not context.title:
             updates["title"] = f"New study from {name}"
         context.update(**updates)
+        _add_to_new_study(self, context, name, m)
         context.messages.ok(f"Using '{name}': {n} characteristic{'s' if n != 1 else ''}.")
 
     def _on_discard(self, context) -> None:
         self._set_pending(None, "")
         context.messages.info("Discarded the file; choose another one.")
         self.refresh(context)
+
+
+# --- a new study from the confirmed files (studykit.app.steps.newstudy) -------------------------
+
+
+def _new_study_panel(context):
+    from studykit.app.steps.newstudy import NewStudyPanel
+
+    return NewStudyPanel(context)
+
+
+def _add_to_new_study(step, context, name: str, m) -> None:
+    """A file confirmed while no study is open joins the "New study from these files" table."""
+    panel = getattr(step, "_newstudy", None)
+    data = getattr(step, "_pending_bytes", None)
+    if panel is None or data is None or context.study is not None:
+        return
+    panel.add_file(name, data, m)
+    step._pending_bytes = None
 
 
 STEP = IntakeStep()

@@ -8,7 +8,14 @@ proposes its removal; a reason is required, the name comes from the "Your name" 
 decision goes into the study file. A removed subgroup can be restored the same way.
 
 "Find rule-breaking subgroups" runs the automatic phase-I loop without recording anything; each
-proposal is then accepted (with a reason) or rejected, and only the accepted ones are recorded.
+proposal is then accepted or rejected, each with a reason: an accepted one is recorded as a
+removal, a rejected one as a signal kept with its reason (``keep_signal``, origin
+``rejected_proposal``).
+
+"Keep, with reason" records that the signal at the selected subgroup is reviewed and is not a
+special cause (or has a known common cause): the subgroup stays, the chart rings it in green,
+the verdict is no longer withheld by it, and the signal is listed as reviewed with the reason.
+"Reopen signal" withdraws that decision.
 """
 
 from __future__ import annotations
@@ -28,6 +35,19 @@ from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 
 _NONE = "—"
+
+
+def open_signal_count(res) -> int:
+    """Signals on the final chart not covered by a signal kept with a reason."""
+    chart = res.chart
+    kept = {(k["subgroup"], k["rule"]) for k in getattr(res, "kept_signals", ()) or ()}
+    n = 0
+    for series in chart.series:
+        for sig in series.signals:
+            labels = {str(chart.labels[int(p)]) for p in sig.points}
+            if not any((lab, sig.rule) in kept for lab in labels):
+                n += 1
+    return n
 
 
 class StabilityStep:
@@ -53,12 +73,7 @@ class StabilityStep:
         s = ws.session
         if not all(s.is_cached(n) for n in s.names):
             return False
-        for n in s.names:
-            chart = s.result(n).chart
-            if any(getattr(chart, p) is not None and getattr(chart, p).signals
-                   for p in ("location", "dispersion")):
-                return False
-        return True
+        return all(open_signal_count(s.result(n)) == 0 for n in s.names)
 
     # --- building -------------------------------------------------------------------------------
     def build(self, context) -> widgets.Widget:
@@ -98,13 +113,21 @@ class StabilityStep:
                                   layout=widgets.Layout(width="auto"))
         self.act.add_class("sk-remove")
         self.act.on_click(guarded(lambda _b: self._on_act(), messages=m))
+        self.keep = widgets.Button(description="Keep, with reason", disabled=True,
+                                   icon="check-circle", layout=widgets.Layout(width="auto"))
+        self.keep.add_class("sk-keep")
+        self.keep.tooltip = ("The signal here is not a special cause (or has a known common "
+                             "cause): keep the subgroup and record why")
+        self.keep.on_click(guarded(lambda _b: self._on_keep(), messages=m))
         self.act_hint = html_box("", "sk-small")
         side = widgets.VBox([
             html_box('<div class="sk-panel-title" style="margin-top:0">Selected subgroup</div>'
                      '<div class="sk-small">Click a point on the chart, or pick it here.</div>'),
             self.subgroup, self.selected_info,
             html_box('<div class="sk-field-label" style="margin-top:8px">Reason</div>'),
-            self.reason, self.act, self.act_hint],
+            self.reason, widgets.HBox([self.act, self.keep],
+                                      layout=widgets.Layout(flex_flow="row wrap")),
+            self.act_hint],
             layout=widgets.Layout(width="330px", min_width="280px"))
         side.add_class("sk-side")
         chart_col = widgets.VBox([self.chart_box, self.warning_toggle],
@@ -118,7 +141,7 @@ class StabilityStep:
         self.find.add_class("sk-find-proposals")
         self.find.on_click(guarded(lambda _b: self._on_find(), messages=m))
         self.proposal_box = widgets.VBox([])
-        self.record = widgets.Button(description="Record accepted removals",
+        self.record = widgets.Button(description="Record decisions on proposals",
                                      button_style="primary", disabled=True,
                                      layout=widgets.Layout(width="auto", display="none"))
         self.record.add_class("sk-record-proposals")
@@ -127,14 +150,17 @@ class StabilityStep:
             html_box('<div class="sk-panel-title">Automatic phase-I removal</div>'
                      '<div class="sk-muted">studykit recomputes the limits round by round and '
                      "proposes every subgroup that breaks the removal rule. Nothing is recorded "
-                     "until each proposal is accepted with a reason or rejected.</div>"),
+                     "until each proposal is accepted or rejected with a reason: an accepted one "
+                     "is removed, a rejected one stays and its signal is kept with the reason."
+                     "</div>"),
             self.find, self.proposal_box, self.record])
         self.log = html_box("", "sk-removal-log")
+        self.kept_log = html_box("", "sk-kept-log")
         self.refresh(context)
         self.chart_box.children = [self.live.widget("sk-stability-chart")]
         when_shown(context, self.key, self.live.resync)
         return panel([panel_css(), ws.toolbar(), self.caution, self.summary, main, auto,
-                             self.log])
+                             self.log, self.kept_log])
 
     def shown(self, context) -> None:
         """The step is open again: bring its chart widget up to date."""
@@ -165,6 +191,7 @@ class StabilityStep:
         chart = res.chart
         signals = sum(len(getattr(chart, p).signals) for p in ("location", "dispersion")
                       if getattr(chart, p) is not None)
+        n_open = open_signal_count(res)
         removed = len(res.phase1.removals)
         labels = self.view._labels
         facts = [("Chart", f"{chart.kind.replace('_', '-')} ({chart.reason})"),
@@ -173,16 +200,20 @@ class StabilityStep:
                  ("Within sigma", f"{fmt(res.within_sigma, 5)} "
                   f"({(res.phase1.raw_chart or chart).sigma_method_text})"
                   if res.within_sigma is not None else _NONE),
-                 ("Rule signals", f"{signals} on the current limits" if signals
+                 ("Rule signals", (f"{signals} on the current limits"
+                                   + (f", {signals - n_open} kept with a reason"
+                                      if n_open != signals else "")) if signals
                   else "none on the current limits")]
         notes = list(res.phase1.warnings)
-        if res.options.phase1 == "off" and res.phase1.stopped == "iteration_cap":
+        if res.options.phase1 == "off" and res.phase1.stopped == "iteration_cap" and n_open:
             # the workbook never removes on its own: "round limit reached" is by design here
             notes = [w for w in notes if "round limit" not in w]
-            notes.append(f"{signals} rule signal{'s' if signals != 1 else ''} on the current "
+            notes.append(f"{n_open} open rule signal{'s' if n_open != 1 else ''} on the current "
                          "limits: look at the marked subgroups, and use 'Find rule-breaking "
                          "subgroups' or remove a subgroup with its reason where the cause is "
-                         "known.")
+                         "known, or keep it with the reason it is not a special cause.")
+        elif res.options.phase1 == "off" and res.phase1.stopped == "iteration_cap":
+            notes = [w for w in notes if "round limit" not in w]
         warn = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
                        f"</span>{esc(w)}</div>" for w in notes)
         self.summary.value = ('<div class="sk-summary">' + " · ".join(
@@ -199,6 +230,7 @@ class StabilityStep:
             self._render_proposals()
         self._show_selected()
         self._render_log()
+        self._render_kept_log()
 
     def _row(self, label):
         data = self.view.sources["location"]["points"].data
@@ -218,6 +250,8 @@ class StabilityStep:
                      ("Statistic", fmt(row["value"], 5)), ("Values", row["values"]),
                      ("Note", row["note"]), ("Rules broken", row["rules"]),
                      ("Status", "removed — " + row["removed_why"] if removed else "in use")]
+            if row.get("kept_why", _NONE) != _NONE:
+                facts.append(("Signal kept", row["kept_why"]))
             self.selected_info.value = '<table class="sk-kvtable">' + "".join(
                 f"<tr><td>{esc(k)}</td><td>{esc(v)}</td></tr>" for k, v in facts) + "</table>"
         self._update_buttons()
@@ -238,11 +272,33 @@ class StabilityStep:
         if not self.ws.who_name:
             missing.append("type your name at the top")
         self.act.disabled = bool(missing)
+        self._update_keep(row, missing)
         self.act_hint.value = ("To record: " + ", ".join(missing) + ".") if missing else ""
         ok = self._proposals and all(
-            (state.value != "accept" or reason.value.strip()) for _p, state, reason in
-            self._proposals) and any(state.value == "accept" for _p, state, _r in self._proposals)
+            (not state.value or reason.value.strip()) for _p, state, reason in
+            self._proposals) and any(state.value for _p, state, _r in self._proposals)
         self.record.disabled = not (ok and self.ws.who_name)
+
+    def _keep_state(self, label: str) -> tuple[list[str], list[str]]:
+        """(open rules, kept rules) at subgroup ``label`` of the current characteristic."""
+        s = self.ws.session
+        try:
+            here = s.signals_at(s.current, label)
+        except StudyInputError:
+            return [], []
+        kept_rules = [r for (lab, r) in s.kept_signals(s.current) if lab == label]
+        return [r for r in here if r not in kept_rules], kept_rules
+
+    def _update_keep(self, row, missing) -> None:
+        if row is None or row["status"] == "removed":
+            self.keep.description = "Keep, with reason"
+            self.keep.disabled = True
+            return
+        open_rules, kept_rules = self._keep_state(row["label"])
+        reopen = not open_rules and bool(kept_rules)
+        self.keep.description = "Reopen signal" if reopen else "Keep, with reason"
+        self.keep.icon = "undo" if reopen else "check-circle"
+        self.keep.disabled = bool(missing) or not (open_rules or kept_rules)
 
     # --- callbacks ------------------------------------------------------------------------------
     def _on_tap(self, part: str, indices) -> None:
@@ -271,16 +327,39 @@ class StabilityStep:
         self.reason.value = ""
         ws.context.messages.ok(msg)
 
+    def _on_keep(self) -> None:
+        ws, s = self.ws, self.ws.session
+        label = self.subgroup.value
+        row = self._row(label)
+        if row is None:
+            raise StudyInputError("select a subgroup on the chart or in the list first")
+        name = s.current
+        open_rules, kept_rules = self._keep_state(label)
+        if open_rules:
+            rules = s.keep_signal(name, label, reason=self.reason.value, who=ws.who_name,
+                                  override_reason=ws.override_reason)
+            msg = (f"Signal{'s' if len(rules) != 1 else ''} {', '.join(rules)} at subgroup "
+                   f"{label} of {name} kept with your reason; the subgroup stays in the "
+                   "analysis and the signal is listed as reviewed.")
+        elif kept_rules:
+            rules = s.reopen_signal(name, label, reason=self.reason.value, who=ws.who_name,
+                                    override_reason=ws.override_reason)
+            msg = f"Signal at subgroup {label} of {name} reopened: {', '.join(rules)}."
+        else:
+            raise StudyInputError(f"subgroup {label} of '{name}' has no rule signal to keep")
+        self.reason.value = ""
+        ws.context.messages.ok(msg)
+
     def _on_find(self) -> None:
         s = self.ws.session
-        proposals = s.propose_removals(s.current)
+        proposals = s.open_proposals(s.current)
         m = self.ws.context.messages
         self._proposals = []
         for p in proposals:
             state = widgets.ToggleButtons(options=[("Undecided", ""), ("Accept", "accept"),
                                                    ("Reject", "reject")], value="")
             state.add_class(f"sk-proposal-{p.label}")
-            reason = widgets.Text(placeholder="reason for accepting (required)",
+            reason = widgets.Text(placeholder="reason for accepting or rejecting (required)",
                                   layout=widgets.Layout(width="380px"))
             state.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
             reason.observe(guarded(lambda _c: self._update_buttons(), messages=m),
@@ -310,14 +389,19 @@ class StabilityStep:
         ws, s = self.ws, self.ws.session
         accepted = [(p, reason.value) for p, state, reason in self._proposals
                     if state.value == "accept"]
-        rejected = [p.label for p, state, _r in self._proposals if state.value == "reject"]
-        n = s.record_removals(s.current, accepted, who=ws.who_name,
-                              override_reason=ws.override_reason)
+        rejected = [(p, reason.value) for p, state, reason in self._proposals
+                    if state.value == "reject"]
+        n, k = s.record_proposal_decisions(s.current, accepted, rejected, who=ws.who_name,
+                                           override_reason=ws.override_reason)
         self._proposals = []
         self._render_proposals()
+        parts = [f"recorded {n} removal{'s' if n != 1 else ''}"] if n else []
+        if k:
+            parts.append("rejected and kept with the reason: "
+                         + ", ".join(p.label for p, _r in rejected))
+        text = "; ".join(parts)
         ws.context.messages.ok(
-            f"Recorded {n} removal{'s' if n != 1 else ''}"
-            + (f"; rejected and kept: {', '.join(rejected)}" if rejected else "")
+            text[:1].upper() + text[1:]
             + ". Run the search again: new limits can reveal further signals.")
 
     def _render_log(self) -> None:
@@ -336,6 +420,31 @@ class StabilityStep:
             '<table class="sk-table sk-removal-table"><thead><tr><th>Subgroup</th><th>Action</th>'
             "<th>Proposed by</th><th>Who</th><th>When (UTC)</th><th>Reason</th></tr></thead>"
             f"<tbody>{body}</tbody></table>")
+
+    def _render_kept_log(self) -> None:
+        s = self.ws.session
+        name = s.current
+        rows = [d for d in s.study.decisions
+                if d.characteristic == name and d.action in ("keep_signal", "reopen_signal")]
+        head = ('<div class="sk-panel-title">Signals kept with a reason (from the study file)'
+                "</div>")
+        if not rows:
+            self.kept_log.value = head + ('<div class="sk-muted">No signal kept. Select a '
+                                          "signalled subgroup and use 'Keep, with reason' when "
+                                          "it is not a special cause.</div>")
+            return
+        in_force = s.kept_signals(name)
+        body = "".join(
+            f"<tr><td>{esc(d.subgroup)}</td><td>{esc(d.payload.get('rule', ''))}</td>"
+            f"<td>{'kept' if d.action == 'keep_signal' else 'reopened'}"
+            f"{' (later reopened)' if d.action == 'keep_signal' and in_force.get((d.subgroup, str(d.payload.get('rule')))) is not d else ''}"  # noqa: E501
+            f"</td><td>{'rejected proposal' if d.payload.get('origin') == 'rejected_proposal' else 'person'}"  # noqa: E501
+            f"</td><td>{esc(d.who)}</td><td>{esc(d.when.replace('T', ' ').rstrip('Z'))}</td>"
+            f"<td>{esc(d.reason)}</td></tr>" for d in rows)
+        self.kept_log.value = head + (
+            '<table class="sk-table sk-kept-table"><thead><tr><th>Subgroup</th><th>Rule</th>'
+            "<th>Decision</th><th>From</th><th>Who</th><th>When (UTC)</th><th>Reason</th></tr>"
+            f"</thead><tbody>{body}</tbody></table>")
 
 
 STEP = StabilityStep()
