@@ -17,7 +17,7 @@ import pytest
 from scipy import integrate, stats
 
 from studykit.errors import StudyInputError
-from studykit.stats.position import ppm_index, position_study, prob_outside_circle
+from studykit.stats.position import position_study, ppm_index, prob_outside_circle
 
 
 @pytest.mark.parametrize("radius_in_sigmas", [0.5, 1.0, 2.0, 3.0, 4.5, 6.0])
