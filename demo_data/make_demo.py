@@ -39,8 +39,10 @@ LOTS_CSV = "leak_test_lots.csv"
 GAUGE_CSV = "gauge_flange_thickness.csv"
 SPECS_CSV = "specs.csv"
 PULL_SPECS_CSV = "specs_pull_off.csv"
+POSITION_CSV = "mounting_hole_position.csv"
 STUDY_FILE = "pump_housing_pilot.study"
-DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV)
+DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
+              POSITION_CSV)
 
 N_SUBGROUPS = 28
 SUBGROUP_SIZE = 5
@@ -158,7 +160,22 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
                                              if c.source is None])
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
+    files[POSITION_CSV] = position_file()
     return files
+
+
+def position_file() -> bytes:
+    """Mounting-hole position (invented): X/Y deviations from nominal of 60 parts.
+
+    Its own generator (seed SEED + 1), so the other files stay as they were. Built in: the hole
+    sits 0.02 mm off nominal in X, spreads more in Y than in X and X and Y are correlated, so
+    the two-dimensional PPM and the one-dimensional shortcut differ visibly (zone 0.20 mm).
+    """
+    g = np.random.default_rng(SEED + 1)
+    cov = [[0.016**2, 0.4 * 0.016 * 0.026], [0.4 * 0.016 * 0.026, 0.026**2]]
+    pts = g.multivariate_normal([0.020, -0.004], cov, size=60)
+    rows = [[str(i + 1), f"{x:.4f}", f"{y:.4f}"] for i, (x, y) in enumerate(pts)]
+    return _rows_to_csv(["part", "hole_dx [mm]", "hole_dy [mm]"], rows)
 
 
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:

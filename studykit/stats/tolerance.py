@@ -549,7 +549,8 @@ class SampleSizePlan:
         Smallest n for which the extreme values (every part inside the specification) make the
         criterion (:func:`distribution_free_sample_size`, r = s = 1).
     normal : int or None
-        Smallest n at which a process like the sample (its mean and sd) passes the normal
+        Smallest n at which a process like the sample (its mean and sd, on the log or Box-Cox
+        scale for those models, with the limits transformed the same way) passes the normal
         criterion with probability ``power`` (:func:`normal_sample_size`); None without limits or
         when such a process cannot pass.
     power : float
@@ -637,10 +638,13 @@ class ToleranceInterval:
         if self.lower is None and self.upper is None:
             return (f"No {self.model.replace('_', '-')} interval: {self.n} values are too few "
                     f"for {p} coverage with {c} confidence.")
-        lo = "-inf" if self.lower is None else f"{self.lower:.6g}"
-        hi = "+inf" if self.upper is None else f"{self.upper:.6g}"
-        return (f"With {c} confidence at least {p} of the population lies in "
-                f"[{lo}, {hi}].")
+        if self.lower is None:
+            where = f"below {self.upper:.6g}"
+        elif self.upper is None:
+            where = f"above {self.lower:.6g}"
+        else:
+            where = f"in [{self.lower:.6g}, {self.upper:.6g}]"
+        return f"With {c} confidence at least {p} of the population lies {where}."
 
     def to_dict(self) -> dict:
         """JSON-safe fields (see the README table of ``studykit interval --json``)."""
@@ -825,15 +829,9 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
     meets = _decide(lower, upper, lsl, usl, kind)
     plan = None
     if lsl is not None or usl is not None:
-        spec_l = lsl if kind in ("both", "lower") else None
-        spec_u = usl if kind in ("both", "upper") else None
-        normal_n = None
-        if spec_l is not None or spec_u is not None:
-            m0, s0 = float(np.mean(arr)), float(np.std(arr, ddof=1))
-            if s0 > 0:
-                normal_n = normal_sample_size(p, c, mean=m0, sd=s0, lsl=spec_l, usl=spec_u,
-                                              power=power)
-        plan = SampleSizePlan(distribution_free_sample_size(p, c, sides=sides), normal_n,
+        plan = SampleSizePlan(distribution_free_sample_size(p, c, sides=sides),
+                              _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl,
+                                           power),
                               _level(power, "power"))
     return ToleranceInterval(
         model=model, sides=sides, bound=kind, coverage=p, confidence=c, n=n,
@@ -844,17 +842,42 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
     )
 
 
-def _transformed(arr: np.ndarray, model: str, boxcox_lambda):
+def _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl, power):
+    """Normal sample size for a process like the sample, on the model's computing scale."""
+    spec_l = lsl if kind in ("both", "lower") else None
+    spec_u = usl if kind in ("both", "upper") else None
+    if spec_l is None and spec_u is None:
+        return None
+    if model in ("lognormal", "boxcox"):
+        y, _, _, _, forward = _transformed(arr, model, boxcox_lambda, with_forward=True)
+        try:
+            spec_l = None if spec_l is None else float(forward(spec_l))
+            spec_u = None if spec_u is None else float(forward(spec_u))
+        except (ValueError, FloatingPointError):  # pragma: no cover - limit outside the range
+            return None
+        if any(v is not None and not math.isfinite(v) for v in (spec_l, spec_u)):
+            return None
+    else:
+        y = arr
+    m0, s0 = float(np.mean(y)), float(np.std(y, ddof=1))
+    if not s0 > 0:
+        return None
+    return normal_sample_size(p, c, mean=m0, sd=s0, lsl=spec_l, usl=spec_u, power=power)
+
+
+def _transformed(arr: np.ndarray, model: str, boxcox_lambda, *, with_forward: bool = False):
     """(values on the computing scale, note, back-transformation, scale label)."""
-    if model == "normal":
-        return arr, None, (lambda v: v), "data"
+    if model in ("normal", "distribution_free"):
+        out = (arr, None, (lambda v: v), "data")
+        return (*out, (lambda v: v)) if with_forward else out
     if model == "lognormal":
         if np.any(arr <= 0):
             bad = int(np.flatnonzero(arr <= 0)[0])
             raise AnalysisError(f"a lognormal interval needs positive values; value {bad + 1} "
                                 f"is {arr[bad]:g}. Use model 'boxcox' (it shifts) or "
                                 "'distribution_free'.")
-        return np.log(arr), None, math.exp, "log"
+        out = (np.log(arr), None, math.exp, "log")
+        return (*out, (lambda v: math.log(v) if v > 0 else -math.inf)) if with_forward else out
     from studykit.stats.transform import box_cox
 
     bc = box_cox(arr, lam=boxcox_lambda)
@@ -863,7 +886,8 @@ def _transformed(arr: np.ndarray, model: str, boxcox_lambda):
             + (f", shift {bc.shift:.4g}" if bc.shift else "")
             + ("; estimated from these data and treated as known (its uncertainty is not in the "
                "interval)" if boxcox_lambda is None else " (given)"))
-    return y, note, (lambda v: float(bc.inverse(v))), f"boxcox(lambda={bc.lam_used:.4g})"
+    out = (y, note, (lambda v: float(bc.inverse(v))), f"boxcox(lambda={bc.lam_used:.4g})")
+    return (*out, (lambda v: float(bc.transform(v)))) if with_forward else out
 
 
 def _distribution_free(arr: np.ndarray, p: float, c: float, kind: str):
