@@ -140,6 +140,13 @@ def test_shortcut_overstates_a_centred_process():
     assert res.shortcut_ppm < 0.5 * true
 
 
+def test_absolute_coordinates_get_a_note():
+    rng = np.random.default_rng(2)
+    res = position_study(12.0 + rng.normal(0, 0.01, 40), rng.normal(0, 0.01, 40), tolerance=0.2)
+    assert res.ppm_expected == pytest.approx(1e6)
+    assert any("deviations from nominal" in n for n in res.notes)
+
+
 @pytest.mark.parametrize("dx,dy,tol,match", [
     ([0.1, 0.2, 0.3, 0.1, 0.2], [0.1, 0.2, 0.3, 0.0, 0.1, 0.2], 0.5, "paired"),
     ([0.1, 0.2, 0.3], [0.1, 0.2, 0.3], 0.5, "at least 5"),

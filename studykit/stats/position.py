@@ -325,6 +325,9 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     axes = (math.sqrt(q * lam[1]), math.sqrt(q * lam[0]))
     angle = math.degrees(math.atan2(vec[1, 1], vec[0, 1]))
     angle = (angle + 90.0) % 180.0 - 90.0
+    if math.hypot(mx, my) > t / 2.0:
+        notes.append("the mean position lies outside the zone: check that the columns hold "
+                     "deviations from nominal, not absolute coordinates.")
     if n < 30:
         notes.append(f"only {n} parts: the fitted spreads and correlation are uncertain, and so "
                      "is the expected PPM (common practice, no source: 30 or more).")
