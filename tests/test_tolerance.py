@@ -378,3 +378,23 @@ def test_plan_in_the_result():
 def test_bad_arguments_raise_clear_errors(kwargs, match):
     with pytest.raises(StudyInputError, match=match):
         tolerance_interval([1.0, 2.0, 3.0, 4.5], **kwargs)
+
+
+def test_written_tolerance_check_values_agree_with_scipy():
+    # tests/reference/compute_tolerance_check_values.py recomputes the COMPUTED values of
+    # tests/reference/tolerance_check_values.md from scipy alone (never studykit)
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    script = Path(__file__).parent / "reference" / "compute_tolerance_check_values.py"
+    run = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                         timeout=300)
+    assert run.returncode == 0, run.stdout + run.stderr
+    assert "all agree" in run.stdout and "BAD" not in run.stdout
+
+
+def test_exact_two_sided_factor_of_the_nist_example():
+    # tests/reference/tolerance_check_values.md: independent quad/brentq implementation,
+    # n 43, P .90, C .99 -> 2.222825 (Howe's approximation gives 2.2173 there)
+    assert normal_factor_two_sided(43, 0.90, 0.99) == pytest.approx(2.222825, abs=5e-7)
