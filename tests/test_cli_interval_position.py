@@ -64,6 +64,16 @@ def test_interval_one_sided_from_one_limit(capsys, bissell_csv):
     assert d["meets"] is False
 
 
+def test_interval_bound_implies_one_sided(capsys, bissell_csv):
+    code, out, _ = run(capsys, "interval", bissell_csv, "--bound", "lower", "--json")
+    assert code == 0
+    d = json.loads(out)
+    k = normal_factor_one_sided(75, 0.95, 0.95)
+    assert d["sides"] == 1 and d["upper"] is None
+    assert d["lower"] == pytest.approx(d["mean"] - k * d["sd"], rel=1e-12)
+    assert d["meets"] is None and d["plan"] is None
+
+
 def test_interval_table_and_distribution_free_too_few(capsys, bissell_csv):
     code, out, _ = run(capsys, "interval", bissell_csv, "--model", "distribution-free",
                        "--lsl", 5.49, "--usl", 5.79, "--safety-critical")

@@ -42,7 +42,8 @@ def register(sub) -> None:
                    help="2: two-sided interval; 1: one-sided limit (default: 2, or 1 when only "
                    "one specification limit is given)")
     p.add_argument("--bound", choices=["upper", "lower"],
-                   help="which one-sided limit (default: from the one specification limit)")
+                   help="which one-sided limit (implies --sides 1; default: from the one "
+                   "specification limit)")
     p.add_argument("--model", default="normal", choices=sorted(_MODELS),
                    help="normal (default), lognormal, boxcox or distribution-free")
     p.add_argument("--method", default="exact", choices=sorted(_METHODS),
@@ -111,7 +112,7 @@ def run(args) -> int:
     values, missing_note = _finite(data, m.source)
     sides = args.sides
     if sides is None:
-        sides = 1 if (args.lsl is None) != (args.usl is None) else 2
+        sides = 1 if args.bound or (args.lsl is None) != (args.usl is None) else 2
     try:
         res = tolerance_interval(
             values, coverage=args.coverage, confidence=args.confidence, sides=sides,
