@@ -157,3 +157,25 @@ def test_absolute_coordinates_get_a_note():
 def test_bad_input(dx, dy, tol, match):
     with pytest.raises(StudyInputError, match=match):
         position_study(dx, dy, tolerance=tol)
+
+
+def test_figure_draws_the_zone_and_the_fitted_ellipse():
+    from studykit.report.position_figures import position_figure
+
+    rng = np.random.default_rng(30)
+    pts = rng.multivariate_normal([0.03, 0.0], _cov(0.02, 0.04, 0.5), size=80)
+    res = position_study(pts[:, 0], pts[:, 1], tolerance=0.2)
+    fig = position_figure(res, unit="mm")
+    ax = fig.axes[0]
+    lines = {ln.get_label(): ln for ln in ax.get_lines()}
+    zone = lines["Position zone, diameter 0.2"]
+    assert np.hypot(zone.get_xdata(), zone.get_ydata()) == pytest.approx(0.1, rel=1e-12)
+    ell = lines["Fitted ellipse (99.73 %)"]
+    d = np.column_stack([ell.get_xdata() - res.mean_x, ell.get_ydata() - res.mean_y])
+    # every ellipse point sits on the 99.73 % contour: d' S^-1 d = chi2.ppf(0.9973, 2)
+    q = np.einsum("ij,jk,ik->i", d, np.linalg.inv(res.covariance), d)
+    assert q == pytest.approx(stats.chi2.ppf(0.9973, 2), rel=1e-9)
+    # parts outside the zone are drawn as a separate, labelled series
+    labels = [c.get_label() for c in ax.collections]
+    assert ("Outside the zone" in labels) == bool(res.outside)
+    assert ax.get_xlabel() == "X deviation from nominal [mm]"
