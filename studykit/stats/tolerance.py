@@ -114,21 +114,32 @@ def _sides(sides) -> int:
 
 
 def _half_width(x: np.ndarray, p: float) -> np.ndarray:
-    """r(x) with Phi(x + r) - Phi(x - r) = p, for each x >= 0 (vectorised bisection).
+    """r(x) with Phi(x + r) - Phi(x - r) = p, for each x >= 0 (vectorised, safeguarded Newton).
 
     r lies in [z, x + z] with z = Phi^-1((1 + p)/2): coverage falls as |x| grows (lower end) and
-    Phi(2x + z) - Phi(-z) >= p (upper end).
+    Phi(2x + z) - Phi(-z) >= p (upper end). The coverage rises with r (derivative
+    phi(x + r) + phi(x - r) > 0), so each Newton step either stays inside the current bracket or
+    is replaced by bisection.
     """
     z = special.ndtri(0.5 * (1.0 + p))
     lo = np.full_like(x, z)
     hi = x + z
-    for _ in range(64):
-        mid = 0.5 * (lo + hi)
-        cover = special.ndtr(x + mid) - special.ndtr(x - mid)
-        below = cover < p
-        lo = np.where(below, mid, lo)
-        hi = np.where(below, hi, mid)
-    return 0.5 * (lo + hi)
+    r = 0.5 * (lo + hi)
+    for _ in range(100):
+        f = special.ndtr(x + r) - special.ndtr(x - r) - p
+        below = f < 0
+        lo = np.where(below, r, lo)
+        hi = np.where(below, hi, r)
+        d = (np.exp(-0.5 * (x + r) ** 2) + np.exp(-0.5 * (x - r) ** 2)) / math.sqrt(2 * math.pi)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = r - f / d
+        bad = ~np.isfinite(step) | (step <= lo) | (step >= hi)
+        new = np.where(bad, 0.5 * (lo + hi), step)
+        done = np.max(np.abs(new - r)) <= 4e-16 * np.max(np.abs(r))
+        r = new
+        if done:
+            break
+    return r
 
 
 def two_sided_confidence(k: float, n: int, p: float, *, df: float | None = None) -> float:
@@ -246,13 +257,19 @@ def normal_factor_two_sided(n: int, p: float, c: float, *, method: str = "exact"
 def _exact_two_sided(n: int, p: float, c: float, nu: float) -> float:
     lo = float(special.ndtri(0.5 * (1.0 + p)))  # the factor with mu and sigma known
     hi = 2.0 * max(_howe(n, p, c, nu), lo)
-    while two_sided_confidence(hi, n, p, df=nu) < c:
+    # r(x) does not depend on k: solve it once, then only the chi-square term changes
+    nur2 = nu * _half_width(_T / math.sqrt(n), p) ** 2
+
+    def conf(k: float) -> float:
+        return float(np.sum(_W * special.chdtrc(nu, nur2 / k**2)))
+
+    while conf(hi) < c:
         hi *= 2.0
         if hi > 1e7:  # pragma: no cover - beyond any table
             raise AnalysisError(f"no two-sided tolerance factor below 1e7 for n = {n}, "
                                 f"p = {p:g}, c = {c:g}.")
-    return float(optimize.brentq(lambda k: two_sided_confidence(k, n, p, df=nu) - c,
-                                 lo * (1 + 1e-12), hi, xtol=1e-12, rtol=1e-12))
+    return float(optimize.brentq(lambda k: conf(k) - c, lo * (1 + 1e-12), hi, xtol=1e-12,
+                                 rtol=1e-12))
 
 
 def normal_factor_one_sided(n: int, p: float, c: float, *, method: str = "exact",
