@@ -184,3 +184,49 @@ def test_position_bad_input_exit_2(capsys, argv, words):
     assert len(err.strip().splitlines()) == 1
     for w in words:
         assert w in err
+
+
+# ---- interval --study on the demo study --------------------------------------------------------
+
+STUDY = DEMO / "pump_housing_pilot.study"
+
+
+def test_interval_on_the_demo_study_applies_removals_model_and_limits(capsys):
+    from studykit.stats.tolerance import tolerance_interval
+
+    code, out, err = run(capsys, "interval", "--study", STUDY, "-c", "flange_thickness", "--json")
+    assert code == 0, err
+    d = json.loads(out)
+    # the study records the removal of subgroups 17 and 18 (5 parts each): 140 - 10 values
+    assert d["n"] == 130
+    assert any("17, 18" in n for n in d["notes"])
+    assert d["lsl"] == 7.9 and d["usl"] == 8.1
+    raw = np.genfromtxt(DEMO / "pump_housing_pilot.csv", delimiter=",", skip_header=1,
+                        usecols=(0, 5))
+    kept = raw[(raw[:, 0] != 17) & (raw[:, 0] != 18), 1]
+    ref = tolerance_interval(kept, lsl=7.9, usl=8.1)
+    assert d["lower"] == pytest.approx(ref.lower, rel=1e-12)
+    assert d["upper"] == pytest.approx(ref.upper, rel=1e-12)
+    assert d["mean"] == pytest.approx(kept.mean(), rel=1e-12)
+
+
+def test_interval_on_the_demo_study_uses_the_recorded_lognormal_model(capsys):
+    code, out, _ = run(capsys, "interval", "--study", STUDY, "-c", "face_runout", "--json")
+    assert code == 0
+    d = json.loads(out)
+    assert d["model"] == "lognormal" and d["scale"] == "log"
+    assert d["sides"] == 1 and d["bound"] == "upper" and d["usl"] == 0.05
+    code, out, _ = run(capsys, "interval", "--study", STUDY, "-c", "face_runout", "--json",
+                       "--model", "normal")
+    assert json.loads(out)["model"] == "normal"
+
+
+def test_interval_on_the_demo_study_shows_the_safety_caution(capsys):
+    code, out, _ = run(capsys, "interval", "--study", STUDY, "-c", "bore_diameter")
+    assert code == 0
+    assert "Safety-critical characteristic" in out and "do not replace" in out
+
+
+def test_interval_study_and_file_together_is_refused(capsys):
+    code, _, err = run(capsys, "interval", POS, "--study", STUDY, "-c", "bore_diameter")
+    assert code == 2 and "not both" in err

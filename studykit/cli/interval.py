@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import sys
+from pathlib import Path
 
 from studykit.errors import DataFileError, StudyInputError
 
@@ -31,7 +32,11 @@ def register(sub) -> None:
         "criterion needs. Exit status 0 when the interval was computed (whatever the "
         "decision), 2 on bad input.",
     )
-    p.add_argument("file", metavar="FILE", help="measurement file (CSV or XLSX)")
+    p.add_argument("file", metavar="FILE", nargs="?", help="measurement file (CSV or XLSX)")
+    p.add_argument("--study", metavar="STUDYFILE",
+                   help="a saved study instead of FILE: its data copy without the recorded "
+                   "removals, its limits, its safety-critical mark and its lognormal/Box-Cox "
+                   "model choice apply (options given here override them)")
     p.add_argument("--characteristic", "-c", metavar="NAME",
                    help="characteristic (column) to use; may be left out when the file has one")
     p.add_argument("--coverage", type=float, default=0.95, metavar="P",
@@ -44,8 +49,9 @@ def register(sub) -> None:
     p.add_argument("--bound", choices=["upper", "lower"],
                    help="which one-sided limit (implies --sides 1; default: from the one "
                    "specification limit)")
-    p.add_argument("--model", default="normal", choices=sorted(_MODELS),
-                   help="normal (default), lognormal, boxcox or distribution-free")
+    p.add_argument("--model", default=None, choices=sorted(_MODELS),
+                   help="normal (default; with --study the study's lognormal or Box-Cox "
+                   "choice), lognormal, boxcox or distribution-free")
     p.add_argument("--method", default="exact", choices=sorted(_METHODS),
                    help="factor: exact (default); two-sided approximations howe, "
                    "wald-wolfowitz; one-sided approximation natrella")
@@ -105,42 +111,94 @@ def _finite(data, source):
     return vals[keep], note
 
 
+def _from_study(args):
+    """(source name, data, values, notes, lsl, usl, safety_critical, model) from --study."""
+    import numpy as np
+
+    from studykit.analysis import read_study_measurements
+    from studykit.store import StudyFile
+
+    if args.file:
+        raise StudyInputError("give either a measurement FILE or --study STUDYFILE, not both")
+    if not args.characteristic:
+        raise StudyInputError("with --study, name the characteristic with --characteristic NAME")
+    study = StudyFile(args.study).load()
+    spec = study.characteristic(args.characteristic)
+    name = spec.name
+    data = read_study_measurements(study).get(name)
+    source = study.source_of(name)
+    values = np.asarray(data.values, dtype=float)
+    excluded = study.excluded_subgroups(name)
+    notes = []
+    if excluded:
+        drop = np.isin(np.asarray(data.subgroups).astype(str), list(excluded))
+        values = np.where(drop, np.nan, values)
+        notes.append("subgroups removed in the study left out: " + ", ".join(excluded))
+    keep = ~np.isnan(values)
+    if not keep.any():
+        raise DataFileError("no values left after the recorded removals", file=source,
+                            column=data.label)
+    n_empty = int(np.isnan(np.asarray(data.values, dtype=float)).sum())
+    if n_empty:
+        notes.append(f"{n_empty} empty cell(s) left out")
+    chosen = study.model_for(name)
+    model = chosen if chosen in ("lognormal", "boxcox") else "normal"
+    if chosen not in ("auto", "normal", "lognormal", "boxcox"):
+        notes.append(f"the study's model '{chosen}' has no tolerance interval here; the normal "
+                     "interval is shown (try --model distribution-free)")
+    lsl = args.lsl if args.lsl is not None else spec.lsl
+    usl = args.usl if args.usl is not None else spec.usl
+    if args.lsl is None and args.usl is None and (spec.lsl is not None or spec.usl is not None):
+        notes.append("specification limits taken from the study")
+    return (Path(args.study).name + f" ({source})", data, values[keep], notes, lsl, usl,
+            bool(spec.safety_critical), model)
+
+
 def run(args) -> int:
     from studykit.stats.tolerance import tolerance_interval
 
-    m, (data,) = read_values(args, [args.characteristic])
-    values, missing_note = _finite(data, m.source)
+    if args.study:
+        (source, data, values, pre_notes, lsl, usl, critical,
+         study_model) = _from_study(args)
+    else:
+        if not args.file:
+            raise StudyInputError("give a measurement FILE or --study STUDYFILE")
+        m, (data,) = read_values(args, [args.characteristic])
+        values, missing_note = _finite(data, m.source)
+        source = m.source
+        pre_notes = [missing_note] if missing_note else []
+        lsl, usl, critical, study_model = args.lsl, args.usl, False, "normal"
+    critical = critical or args.safety_critical
+    model = _MODELS[args.model] if args.model else study_model
     sides = args.sides
     if sides is None:
-        sides = 1 if args.bound or (args.lsl is None) != (args.usl is None) else 2
+        sides = 1 if args.bound or (lsl is None) != (usl is None) else 2
     try:
         res = tolerance_interval(
             values, coverage=args.coverage, confidence=args.confidence, sides=sides,
-            bound=args.bound, model=_MODELS[args.model], method=_METHODS[args.method],
-            lsl=args.lsl, usl=args.usl, power=args.power,
+            bound=args.bound, model=model, method=_METHODS[args.method],
+            lsl=lsl, usl=usl, power=args.power,
         )
     except StudyInputError as exc:
         if exc.file is not None or exc.column is not None:
             raise
-        raise type(exc)(exc.detail, file=m.source, column=data.label) from None
+        raise type(exc)(exc.detail, file=source, column=data.label) from None
     caution = None
-    if args.safety_critical:
+    if critical:
         from studykit.analysis import SAFETY_CAUTION
 
         caution = SAFETY_CAUTION
     if args.json:
-        out = {"source": m.source, "characteristic": data.name, "unit": data.unit,
+        out = {"source": source, "characteristic": data.name, "unit": data.unit,
                **res.to_dict()}
-        if missing_note:
-            out["notes"] = [missing_note, *out["notes"]]
-        out["safety_critical"] = bool(args.safety_critical)
+        out["notes"] = [*pre_notes, *out["notes"]]
+        out["safety_critical"] = bool(critical)
         out["caution"] = caution
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
-        sys.stdout.write(format_interval(res, source=m.source, name=data.label,
-                                         notes=[missing_note] if missing_note else [],
-                                         caution=caution))
+        sys.stdout.write(format_interval(res, source=source, name=data.label,
+                                         notes=pre_notes, caution=caution))
     return 0
 
 
