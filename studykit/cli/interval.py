@@ -49,10 +49,12 @@ def register(sub) -> None:
     p.add_argument("--bound", choices=["upper", "lower"],
                    help="which one-sided limit (implies --sides 1; default: from the one "
                    "specification limit)")
-    p.add_argument("--model", default=None, choices=sorted(_MODELS),
+    p.add_argument("--model", default=None,
+                   choices=["normal", "lognormal", "boxcox", "distribution-free"],
                    help="normal (default; with --study the study's lognormal or Box-Cox "
                    "choice), lognormal, boxcox or distribution-free")
-    p.add_argument("--method", default="exact", choices=sorted(_METHODS),
+    p.add_argument("--method", default="exact",
+                   choices=["exact", "howe", "wald-wolfowitz", "natrella"],
                    help="factor: exact (default); two-sided approximations howe, "
                    "wald-wolfowitz; one-sided approximation natrella")
     p.add_argument("--lsl", type=float, help="lower specification limit")
