@@ -40,9 +40,10 @@ GAUGE_CSV = "gauge_flange_thickness.csv"
 REFERENCE_CSV = "gauge_flange_reference.csv"
 SPECS_CSV = "specs.csv"
 PULL_SPECS_CSV = "specs_pull_off.csv"
+POSITION_CSV = "mounting_hole_position.csv"
 STUDY_FILE = "pump_housing_pilot.study"
 DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
-              REFERENCE_CSV)
+              REFERENCE_CSV, POSITION_CSV)
 #: the short gauge study has its own seed, so the other files stay as they were before it
 REFERENCE_SEED = SEED + 17
 REFERENCE_VALUE = 8.0004
@@ -163,6 +164,7 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
                                              if c.source is None])
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
+    files[POSITION_CSV] = position_file()
     return files
 
 
@@ -171,6 +173,20 @@ def make_reference_readings(rng: np.random.Generator) -> bytes:
     readings = REFERENCE_VALUE + 0.0006 + rng.normal(0, 0.0025, 50)
     rows = [[str(i + 1), f"{v:.3f}"] for i, v in enumerate(readings)]
     return _rows_to_csv(["reading_no", "reading"], rows)
+
+
+def position_file() -> bytes:
+    """Mounting-hole position (invented): X/Y deviations from nominal of 60 parts.
+
+    Its own generator (seed SEED + 1), so the other files stay as they were. Built in: the hole
+    sits 0.02 mm off nominal in X, spreads more in Y than in X and X and Y are correlated, so
+    the two-dimensional PPM and the one-dimensional shortcut differ visibly (zone 0.20 mm).
+    """
+    g = np.random.default_rng(SEED + 1)
+    cov = [[0.016**2, 0.4 * 0.016 * 0.026], [0.4 * 0.016 * 0.026, 0.026**2]]
+    pts = g.multivariate_normal([0.020, -0.004], cov, size=60)
+    rows = [[str(i + 1), f"{x:.4f}", f"{y:.4f}"] for i, (x, y) in enumerate(pts)]
+    return _rows_to_csv(["part", "hole_dx [mm]", "hole_dy [mm]"], rows)
 
 
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:
