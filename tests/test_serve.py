@@ -121,9 +121,39 @@ def gone(pid: int, timeout: float) -> bool:
     return not alive(pid)
 
 
-def port_closed(port: int) -> bool:
-    with socket.socket() as s:
-        return s.connect_ex(("127.0.0.1", port)) != 0
+def port_closed(port: int, timeout: float = 15.0) -> bool:
+    """Whether nothing listens on 127.0.0.1:port (waiting up to ``timeout`` s for it to close)."""
+    deadline = time.monotonic() + timeout
+    while True:
+        with socket.socket() as s:
+            if s.connect_ex(("127.0.0.1", port)) != 0:
+                return True
+        if time.monotonic() > deadline:
+            return False
+        time.sleep(0.3)
+
+
+def listener_of(port: int) -> str:
+    """Which process listens on ``port`` (for a failure message): pid and command line."""
+    inodes = set()
+    for table in ("/proc/net/tcp", "/proc/net/tcp6"):
+        with contextlib.suppress(OSError), open(table) as f:
+            for line in f.readlines()[1:]:
+                fields = line.split()
+                if int(fields[1].rsplit(":", 1)[1], 16) == port and fields[3] == "0A":
+                    inodes.add(fields[9])
+    owners = []
+    for entry in os.scandir("/proc"):
+        if not entry.name.isdigit():
+            continue
+        with contextlib.suppress(OSError):
+            for fd in os.scandir(f"/proc/{entry.name}/fd"):
+                link = os.readlink(fd.path)
+                if link.startswith("socket:[") and link[8:-1] in inodes:
+                    with open(f"/proc/{entry.name}/cmdline", "rb") as f:
+                        owners.append(f"{entry.name}: {f.read().replace(bytes(1), b' ')[:200]!r}")
+                    break
+    return "; ".join(owners) or "unknown"
 
 
 def test_loopback_detection():
@@ -254,7 +284,7 @@ def test_server_stops_when_serve_is_killed():
         proc.wait(timeout=30)
         assert gone(server, 30)
         assert all(gone(k, 30) for k in kernels)
-    assert port_closed(port)
+    assert port_closed(port), f"port {port} still answered by {listener_of(port)}"
 
 
 @pytest.mark.parametrize("value", ["-1", "0.5", "nan", "inf"])

@@ -175,6 +175,7 @@ def test_idle_kernel_is_culled_and_the_preheated_one_kept(loopback):
 
 def test_a_connected_kernel_is_never_culled(loopback):
     import asyncio
+    import concurrent.futures
 
     from tornado.httpclient import HTTPRequest
     from tornado.websocket import websocket_connect
@@ -199,7 +200,9 @@ def test_a_connected_kernel_is_never_culled(loopback):
         finally:
             ws.close()
 
-    gone, kept = asyncio.run(hold_open())
+    # in a thread of its own: the browser tests' Playwright may hold this thread's event loop
+    with concurrent.futures.ThreadPoolExecutor(1) as pool:
+        gone, kept = pool.submit(asyncio.run, hold_open()).result()
     assert gone, "the culler never ran"
     assert kept, "a kernel with its page connected was culled"
     assert not re.search(rf"Culling .*{connected}", log_path.read_text())

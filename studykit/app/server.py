@@ -117,7 +117,7 @@ class WorkbookPageHandler(TornadoVoilaHandler):
     async def get(self, path=None):
         slots = self.settings.get(_SLOTS)
         async with slots if slots is not None else contextlib.nullcontext():
-            if self._client_gone:  # closed while waiting: start no kernel for nobody
+            if self._client_gone:  # the page was closed while it waited: start no kernel
                 return
             snippet = self.settings.get(_HEAD_SNIPPET, "")
             injected = not snippet
