@@ -263,8 +263,10 @@ class SignoffStep:
         try:
             self._sign()
         finally:
-            self._drawn = None  # a refused approval analysed every characteristic: show it
-            self.refresh(self.ws.context)
+            # a refused approval analysed every characteristic: show it here and in the
+            # overview
+            self._drawn = None
+            self.ws.context.update()
 
     def _sign(self) -> None:
         ws, s = self.ws, self.ws.session
