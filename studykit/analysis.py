@@ -408,6 +408,14 @@ class CharacteristicResult:
                      if f.code in _WITHHOLDING_CODES or f.code.startswith("order_"))
 
     @property
+    def open_signals(self) -> tuple:
+        """Signals of the final chart that no "keep, with reason" decision covers."""
+        kept = {(str(k["subgroup"]), k["rule"]) for k in self.kept_signals}
+        chart = self.phase1.chart
+        return tuple(sg for sg in chart.signals
+                     if not any((lab, sg.rule) in kept for lab in _signal_labels(chart, sg)))
+
+    @property
     def removed_subgroups(self) -> tuple:
         return tuple(_label(r.label) for r in self.phase1.removals)
 
@@ -794,7 +802,10 @@ def _model_scale(requested: str):
         if choice.name == "normal":
             return ChartScale("raw", _SCALE_TEXT["raw"], xs, model=choice)
         if choice.transform is not None:
-            y = np.asarray(choice.transform.transform(xs), dtype=float)
+            # Box-Cox charts the unit-free transform (an increasing affine map of the plain
+            # one, so limits and signals are the same; its digits survive any unit)
+            forward = getattr(choice.transform, "scaled_transform", choice.transform.transform)
+            y = np.asarray(forward(xs), dtype=float)
             if not np.all(np.isfinite(y)):
                 return raw
             return ChartScale("transformed",

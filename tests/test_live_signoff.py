@@ -89,16 +89,16 @@ def test_one_person_may_not_sign_two_roles(study_path):
 def test_approval_needs_a_verdict_or_a_waiver_for_every_characteristic(study_path):
     s = StudySession(study_path)
     open_ = s.open_verdicts()
-    # the invented demo study: pull_off_force meets on its estimate but not on its lower bound,
-    # the attribute characteristic has no judged index
-    assert open_ == {"pull_off_force": "More data needed", "leak_test_defectives": "Not judged"}
+    # the invented demo study: pull_off_force meets on its estimate but not on its lower bound;
+    # the counted-data characteristic has a verdict of its own (from the exact bound on its rate)
+    assert open_ == {"pull_off_force": "More data needed"}
     with pytest.raises(SignOffRefused, match="pull_off_force: More data needed"):
         s.sign(who="M. Approver", role="approved", decision="approve")
     s.sign(who="R. Viewer", role="reviewed", decision="approve")  # only approvals are gated
-    s.waive("pull_off_force", reason="customer deviation D-17 until lot 4", who="Q. Lead")
-    with pytest.raises(SignOffRefused, match="leak_test_defectives"):
-        s.sign(who="M. Approver", role="approved", decision="approve")
     s.waive("leak_test_defectives", reason="judged by PPM in the customer's PPAP", who="Q. Lead")
+    with pytest.raises(SignOffRefused, match="pull_off_force"):  # a needless waiver opens nothing
+        s.sign(who="M. Approver", role="approved", decision="approve")
+    s.waive("pull_off_force", reason="customer deviation D-17 until lot 4", who="Q. Lead")
     assert s.open_verdicts() == {}
     s.sign(who="M. Approver", role="approved", decision="approve")
     assert s.is_locked

@@ -78,8 +78,9 @@ def handoff_readiness(study, results, errors) -> dict:
     the key ``"study"`` for a reason that holds for the whole study. Empty when all are ready.
 
     Ready means: analysed; no signal left on the final control chart (a signal a person has
-    not resolved is an open question about the process); a verdict that meets the criterion
-    (counted data have no capability criterion and need only the stable chart). A valid
+    not resolved is an open question about the process, one kept with a recorded reason is
+    decided); a verdict that meets the criterion (defects-per-unit data have no capability
+    criterion and need only the stable chart). A valid
     sign-off that rejects the study makes nothing ready.
     """
     reasons: dict = {}
@@ -94,14 +95,14 @@ def handoff_readiness(study, results, errors) -> dict:
         if res is None:
             reasons[name] = f"not analysed ({errors.get(name, 'no result')})"
             continue
-        signals = tuple(getattr(res.phase1, "signals", ()) or ())
+        signals = res.open_signals  # signals kept with a recorded reason are decided
         if signals:
             rules = sorted({str(getattr(sg, "rule", "signal")) for sg in signals})
             reasons[name] = (f"{len(signals)} open signal(s) on the control chart "
                              f"({', '.join(rules)}): decide on them before freezing limits")
             continue
-        if res.attribute:
-            continue
+        if res.attribute and res.verdict is None:
+            continue  # defects per unit (c, u): no capability criterion, the stable chart only
         v = res.verdict
         if v is None or v.meets is None:
             reasons[name] = "no verdict" + (f" ({v.text})" if v is not None and
@@ -265,9 +266,7 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         (f"study/{spath.name}", spath.read_bytes()),
         *((f"data/{name}", blob) for name, blob in study.files),
     ]
-    pack_note = ""
     if draft:
-        pack_note = "; ".join(f"{k}: {v}" for k, v in draft.items())
         entries.append(("DRAFT-NOT-FOR-PRODUCTION.txt", (
             f"{DRAFT_NOTE.upper()}\n\nThis hand-off pack was made although not every "
             "characteristic is ready for series production. Do not use its limits or chart "
@@ -285,8 +284,12 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         stem = _safe_name(name)
         stamp = ""
         if draft:
-            stamp = draft.get(name) or draft.get("study") or \
-                f"this pack is a draft ({pack_note})"
+            others = [k for k in draft if k not in (name, "study")]
+            stamp = draft.get(name) or draft.get("study") or (
+                "this characteristic is ready, but the pack is a draft because "
+                + ", ".join(others[:4]) + (f" and {len(others) - 4} more" if len(others) > 4
+                                           else "")
+                + " are not (reasons in DRAFT-NOT-FOR-PRODUCTION.txt)")
         plan_json = plan.to_json()
         plan_csv = plan.to_csv()
         if stamp:
