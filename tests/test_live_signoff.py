@@ -187,6 +187,20 @@ def test_an_action_on_a_page_that_shows_an_older_state_is_refused(study_path):
     assert a.page_version == a.view_version  # its own change counts as seen
 
 
+def test_a_gauge_result_attached_on_an_older_view_is_refused(study_path):
+    a, b = StudySession(study_path), StudySession(study_path)
+    a.page_version = a.view_version
+    b.add_comment("a change the page has not shown yet", who="B. Other")
+    payload = {"note": "a stored result (test input)"}
+    before = len(StudyFile(study_path).results("gauge_short"))
+    with pytest.raises(StaleView, match="Nothing was saved.*B. Other: comment"):
+        a.attach_result("gauge_short", NAME, payload, who="A. Tester", reason="GR-07")
+    assert len(StudyFile(study_path).results("gauge_short")) == before
+    a.page_version = a.view_version
+    a.attach_result("gauge_short", NAME, payload, who="A. Tester", reason="GR-07")
+    assert len(StudyFile(study_path).results("gauge_short")) == before + 1
+
+
 def test_a_page_behind_its_own_kernel_cannot_sign(study_path):
     a = StudySession(study_path)
     a.page_version = a.view_version

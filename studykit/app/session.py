@@ -503,6 +503,15 @@ class StudySession:
                 "page now shows the study as it is: check it, then do it again if it still "
                 "applies", newer) from None
 
+    def attach_result(self, kind: str, name: str, payload, *, who: str, reason: str,
+                      override_reason: str | None = None) -> int:
+        """Keep a result (e.g. a gauge study) beside ``name``; refused, like every other write
+        from a page, when the page shows an older state of the study file."""
+        lock = ({"override_lock": True, "override_reason": override_reason}
+                if override_reason else {})
+        with self._acting():
+            return self.file.attach_result(kind, name, payload, who=who, reason=reason, **lock)
+
     def exclude(self, name: str, subgroup, *, reason: str, who: str,
                 override_reason: str | None = None) -> None:
         """Record the exclusion of one subgroup (a person's decision)."""

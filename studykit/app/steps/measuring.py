@@ -881,9 +881,8 @@ class GaugeStep:
             raise StudyInputError("`reason` is empty: say why this short gauge study belongs to "
                                   "the characteristic, e.g. 'gauge GR-07 on master M-8.000'")
         payload = {**result.to_dict(), **extras, "reason": reason}
-        lock = ({"override_lock": True, "override_reason": ws.override_reason}
-                if ws.override_reason else {})
-        s.file.attach_result(SHORT_KIND, name, payload, who=who, reason=reason, **lock)
+        s.attach_result(SHORT_KIND, name, payload, who=who, reason=reason,
+                        override_reason=ws.override_reason or None)
         self.short_reason.value = ""
         self._clear_short_preview()
         self._short_data, self._short_name = None, ""
@@ -1199,9 +1198,8 @@ class GaugeStep:
             raise StudyInputError("`reason` is empty: say why this gauge study belongs to the "
                                   "characteristic, e.g. 'gauge GR-07, study GR-2026-14'")
         payload = {**result.to_dict(), **extras, "reason": reason}
-        lock = ({"override_lock": True, "override_reason": ws.override_reason}
-                if ws.override_reason else {})
-        s.file.attach_result(GAUGE_KIND, name, payload, who=who, reason=reason, **lock)
+        s.attach_result(GAUGE_KIND, name, payload, who=who, reason=reason,
+                        override_reason=ws.override_reason or None)
         self.reason.value = ""
         self._clear_preview()
         self._upload_data, self._upload_name = None, ""
