@@ -1029,7 +1029,7 @@ def capability_method_text(capability: Mapping | None, model: Mapping | None) ->
                 "0.135 %, 50 % and 99.865 % points")
     if capability.get("method") == "equivalent_ppm":
         return "equivalent-PPM method: the fitted model's tail shares as z values"
-    return "normal theory: mean and standard deviation of the values"
+    return "normal theory: the mean with the within and overall standard deviations"
 
 
 def analyze_characteristic(

@@ -163,3 +163,18 @@ def test_moving_range_removal_through_the_cli(tmp_path, capsys):
     d = _analyze_json(capsys, path, "-c", "x", "--lsl", 5, "--usl", 15, "--model", "normal")
     assert [str(r["label"]) for r in d["phase1"]["removals"]] == ["12"]
     assert d["phase1"]["mr_removal"] == "later"
+
+
+def test_convention_words_for_each_method():
+    from studykit.analysis import capability_method_text
+
+    boxcox = {"name": "boxcox", "label": "Box-Cox transformed normal"}
+    assert "indices of the transformed values" in capability_method_text(
+        {"method": "normal"}, boxcox)
+    assert "--transform-indices percentile" in capability_method_text(
+        {"method": "percentile"}, boxcox)
+    assert "fitted model's 0.135 %" in capability_method_text(
+        {"method": "percentile"}, {"name": "weibull", "label": "Weibull"})
+    assert capability_method_text({"method": "normal"}, {"name": "normal"}).startswith(
+        "normal theory")
+    assert capability_method_text(None, None) is None
