@@ -961,8 +961,12 @@ class _TransformedNormal:
     so the percentile indices and their parametric-bootstrap bounds come out as for a fitted
     family; the bootstrap refits the transformation to every sample."""
 
-    def __init__(self, choice, transform, mean, sd):
-        self.choice, self.transform = choice, transform
+    def __init__(self, choice, transform, mean, sd, sides=(True, True)):
+        self.choice, self.transform, self.sides = choice, transform, tuple(sides)
+        # Box-Cox: the unit-free form (an increasing affine map of the plain one, so the same
+        # quantiles on the original scale) keeps its digits for a large lambda
+        self._forward = getattr(transform, "scaled_transform", transform.transform)
+        self._inverse = getattr(transform, "scaled_inverse", transform.inverse)
         self.mean, self.sd = float(mean), float(sd)
         self.name = choice.name
         self.parameters = {**{k: v for k, v in choice.parameters.items()
@@ -971,14 +975,19 @@ class _TransformedNormal:
         self.family = self
 
     @classmethod
-    def of(cls, choice, x):
-        y = np.asarray(choice.transform.transform(np.asarray(x, dtype=float)), dtype=float)
+    def of(cls, choice, x, sides=(True, True)):
+        """``sides``: whether the lower and the upper point are needed (a specification limit
+        on that side)."""
+        t = choice.transform
+        forward = getattr(t, "scaled_transform", t.transform)
+        y = np.asarray(forward(np.asarray(x, dtype=float)), dtype=float)
         if not np.all(np.isfinite(y)):
             raise AnalysisError(
                 f"some values lie outside the range of the {choice.label} transformation; "
                 "choose another model."
             )
-        return cls(choice, choice.transform, float(np.mean(y)), float(np.std(y, ddof=1)))
+        return cls(choice, choice.transform, float(np.mean(y)), float(np.std(y, ddof=1)),
+                   sides)
 
     def fit(self, sample):
         """Refit the transformation (as the analysis does) and the normal model to ``sample``."""
@@ -988,26 +997,39 @@ class _TransformedNormal:
             else:
                 t = transform_module.johnson(sample)
             choice = replace(self.choice, transform=t)
-            return _TransformedNormal.of(choice, sample)
+            return _TransformedNormal.of(choice, sample, self.sides)
         except (StudyInputError, ArithmeticError) as exc:  # counted as a failed refit
             raise ValueError(str(exc)) from exc
 
     def ppf(self, q):
         z = special.ndtri(np.asarray(q, dtype=float))  # scipy.stats.norm.ppf
-        return np.asarray(self.transform.inverse(self.mean + self.sd * z), dtype=float)
+        y = self.mean + self.sd * z
+        lam = getattr(self.transform, "lam_used", None)
+        outside = (1.0 + lam * y <= 0) if lam is not None and lam != 0 else np.zeros(y.shape, bool)
+        needed = np.where(np.asarray(q) < 0.5, self.sides[0],
+                          np.where(np.asarray(q) > 0.5, self.sides[1], True))
+        if np.any(outside & needed):
+            # Box-Cox: the transformed normal model puts a point that a specification limit
+            # needs beyond the range of the transformation; the original scale has no such
+            # quantile (a point on a side without a limit maps to the range's end, unused)
+            raise AnalysisError(
+                f"the {self.choice.label} model (lambda {lam:.4g}) puts its 0.135 % or 99.865 % "
+                "point beyond the range of the transformation, so the percentile convention "
+                "has no quantile there; use --transform-indices transformed or another model."
+            )
+        return np.asarray(self._inverse(y), dtype=float)
 
     def cdf(self, v):
-        y = np.asarray(self.transform.transform(np.asarray(v, dtype=float)), dtype=float)
+        y = np.asarray(self._forward(np.asarray(v, dtype=float)), dtype=float)
         return special.ndtr((y - self.mean) / self.sd)
 
     def sf(self, v):
-        y = np.asarray(self.transform.transform(np.asarray(v, dtype=float)), dtype=float)
+        y = np.asarray(self._forward(np.asarray(v, dtype=float)), dtype=float)
         return special.ndtr((self.mean - y) / self.sd)
 
     def rvs(self, n, random_state=None):
         rng = np.random.default_rng(random_state)
-        return np.asarray(self.transform.inverse(rng.normal(self.mean, self.sd, int(n))),
-                          dtype=float)
+        return np.asarray(self._inverse(rng.normal(self.mean, self.sd, int(n))), dtype=float)
 
 
 def capability_method_text(capability: Mapping | None, model: Mapping | None) -> str | None:
@@ -1282,7 +1304,7 @@ def analyze_characteristic(
             lsl=spec.lsl,
             usl=spec.usl,
             target=spec.target,
-            model=_TransformedNormal.of(choice, x),
+            model=_TransformedNormal.of(choice, x, (spec.lsl is not None, spec.usl is not None)),
             method="percentile",
             level=level,
             n_boot=options.n_boot,

@@ -178,3 +178,39 @@ def test_convention_words_for_each_method():
     assert capability_method_text({"method": "normal"}, {"name": "normal"}).startswith(
         "normal theory")
     assert capability_method_text(None, None) is None
+
+
+def _skewed(seed):
+    # constructed test input (not published data): a left-skewed sample drawn with
+    # scipy.stats.skewnorm.rvs(-4, loc=12.0, scale=0.005, size=140, random_state=seed); its
+    # Box-Cox lambda is in the hundreds
+    return stats.skewnorm.rvs(-4, loc=12.0, scale=0.005, size=140, random_state=seed)
+
+
+def _percentile_boxcox(x):
+    return analyze_characteristic(
+        CharacteristicData("d", None, x), Characteristic("d", lsl=11.97, usl=12.03),
+        options=AnalysisOptions(model="boxcox", phase1="off", transform_indices="percentile"),
+    )
+
+
+def test_percentile_convention_with_a_large_lambda():
+    x = _skewed(0)
+    res = _percentile_boxcox(x)
+    lam = res.model.parameters["lambda"]
+    assert lam > 100  # x ** lam overflows: the unit-free form (x / geometric mean) is needed
+    g = stats.gmean(x)  # scipy.stats.gmean
+    y = stats.boxcox(x / g, lmbda=lam)  # scipy.stats.boxcox of the unit-free values
+    m, s = float(np.mean(y)), float(np.std(y, ddof=1))
+    z = stats.norm.ppf(1 - 0.00135)
+    lo, mid, hi = special.inv_boxcox(np.array([m - z * s, m, m + z * s]), lam) * g
+    ppk = min((12.03 - mid) / (hi - mid), (mid - 11.97) / (mid - lo))
+    assert res.capability.ppk == pytest.approx(ppk, rel=1e-6)
+    assert res.capability.bounds["ppk"]["lower_bound"] < res.capability.ppk
+
+
+def test_percentile_convention_refuses_a_quantile_beyond_the_transformation():
+    # lambda > 0: the transformed normal model's 0.135 % point lies below -1/lambda, where
+    # the Box-Cox transformation has no inverse (the original scale has no such quantile)
+    with pytest.raises(StudyInputError, match="beyond the range of the transformation"):
+        _percentile_boxcox(_skewed(2))
