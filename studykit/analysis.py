@@ -21,6 +21,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy import special
 
 from studykit.errors import AnalysisError, StudyInputError, StudyWarning, printable
 from studykit.stats import attribute as attribute_module
@@ -37,7 +38,7 @@ from studykit.stats.charts import (
     ControlChart,
     control_chart,
 )
-from studykit.stats.phase1 import ChartScale, Phase1Result, phase1
+from studykit.stats.phase1 import MR_REMOVAL, ChartScale, Phase1Result, phase1
 
 __all__ = [
     "AnalysisOptions",
@@ -143,6 +144,15 @@ class AnalysisOptions:
         Within sigma of subgrouped charts: ``None`` (the chart's default: R-bar/d2 for X-bar/R,
         S-bar/c4 for X-bar/S; with unequal sizes the mean of R_i/d2(n_i) or s_i/c4(n_i)),
         ``"rbar"``, ``"sbar"`` or ``"pooled"`` (pooled standard deviation / c4(d + 1)).
+    transform_indices : {"transformed", "percentile"}
+        Capability of a Box-Cox / Johnson model: ``"transformed"`` (default) applies the
+        transformation to the limits and the values and computes normal-theory indices on that
+        scale; ``"percentile"`` computes Pp/Ppk/PPU/PPL by the ISO 22514-2 percentile method on
+        the original scale from the back-transformed 0.135 %, 50 % and 99.865 % points of the
+        transformed normal model (as for a fitted family; Cp/Cpk are then not given).
+    mr_removal : {"later", "both"}
+        Automatic phase I on an individuals chart: a moving-range signal removes the later
+        reading of the pair (default) or both readings.
     """
 
     chart: str | None = None
@@ -158,8 +168,19 @@ class AnalysisOptions:
     max_auto_removed_share: float = MAX_AUTO_REMOVED_SHARE
     min_kept_values: int = MIN_KEPT_VALUES
     sigma_method: str | None = None
+    transform_indices: str = "transformed"
+    mr_removal: str = "later"
 
     def __post_init__(self):
+        if self.transform_indices not in TRANSFORM_INDICES:
+            raise StudyInputError(
+                f"`transform_indices` ({self.transform_indices!r}) must be 'transformed' or "
+                "'percentile'."
+            )
+        if self.mr_removal not in MR_REMOVAL:
+            raise StudyInputError(
+                f"`mr_removal` ({self.mr_removal!r}) must be 'later' or 'both'."
+            )
         share = self.max_auto_removed_share
         if isinstance(share, bool) or not isinstance(share, int | float) or not 0 <= share < 1:
             raise StudyInputError(
@@ -525,6 +546,7 @@ class CharacteristicResult:
                 "removed_share_recorded": _f(self.phase1.manual_removed_share),
                 "removals": [r.to_dict() for r in self.phase1.removals],
                 "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
+                "mr_removal": self.phase1.mr_removal,
                 "verdict_withheld": list(self.withheld_codes),
             },
             "order": None if self.order is None else self.order.to_dict(),
@@ -927,6 +949,111 @@ def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice,
     return result
 
 
+#: Capability conventions of a Box-Cox / Johnson model (option ``transform_indices``, ours).
+TRANSFORM_INDICES = ("transformed", "percentile")
+
+
+class _TransformedNormal:
+    """A Box-Cox / Johnson model seen on the original scale: the transformed values are normal
+    with their sample mean and standard deviation (n - 1); quantiles and probabilities are those
+    of that normal model carried back through the inverse transformation. It has the model
+    protocol :func:`studykit.stats.capability.capability` uses (ppf, cdf, sf, rvs, family.fit),
+    so the percentile indices and their parametric-bootstrap bounds come out as for a fitted
+    family; the bootstrap refits the transformation to every sample."""
+
+    def __init__(self, choice, transform, mean, sd, sides=(True, True)):
+        self.choice, self.transform, self.sides = choice, transform, tuple(sides)
+        # Box-Cox: the unit-free form (an increasing affine map of the plain one, so the same
+        # quantiles on the original scale) keeps its digits for a large lambda
+        self._forward = getattr(transform, "scaled_transform", transform.transform)
+        self._inverse = getattr(transform, "scaled_inverse", transform.inverse)
+        self.mean, self.sd = float(mean), float(sd)
+        self.name = choice.name
+        self.parameters = {**{k: v for k, v in choice.parameters.items()
+                              if isinstance(v, int | float) and not isinstance(v, bool)},
+                           "transformed_mean": self.mean, "transformed_sd": self.sd}
+        self.family = self
+
+    @classmethod
+    def of(cls, choice, x, sides=(True, True)):
+        """``sides``: whether the lower and the upper point are needed (a specification limit
+        on that side)."""
+        t = choice.transform
+        forward = getattr(t, "scaled_transform", t.transform)
+        y = np.asarray(forward(np.asarray(x, dtype=float)), dtype=float)
+        if not np.all(np.isfinite(y)):
+            raise AnalysisError(
+                f"some values lie outside the range of the {choice.label} transformation; "
+                "choose another model."
+            )
+        return cls(choice, choice.transform, float(np.mean(y)), float(np.std(y, ddof=1)),
+                   sides)
+
+    def fit(self, sample):
+        """Refit the transformation (as the analysis does) and the normal model to ``sample``."""
+        try:
+            if self.choice.name == "boxcox":
+                t = transform_module.box_cox(sample)
+            else:
+                t = transform_module.johnson(sample)
+            choice = replace(self.choice, transform=t)
+            return _TransformedNormal.of(choice, sample, self.sides)
+        except (StudyInputError, ArithmeticError) as exc:  # counted as a failed refit
+            raise ValueError(str(exc)) from exc
+
+    def ppf(self, q):
+        z = special.ndtri(np.asarray(q, dtype=float))  # scipy.stats.norm.ppf
+        y = self.mean + self.sd * z
+        lam = getattr(self.transform, "lam_used", None)
+        outside = (1.0 + lam * y <= 0) if lam is not None and lam != 0 else np.zeros(y.shape, bool)
+        needed = np.where(np.asarray(q) < 0.5, self.sides[0],
+                          np.where(np.asarray(q) > 0.5, self.sides[1], True))
+        if np.any(outside & needed):
+            # Box-Cox: the transformed normal model puts a point that a specification limit
+            # needs beyond the range of the transformation; the original scale has no such
+            # quantile (a point on a side without a limit maps to the range's end, unused)
+            raise AnalysisError(
+                f"the {self.choice.label} model (lambda {lam:.4g}) puts its 0.135 % or 99.865 % "
+                "point beyond the range of the transformation, so the percentile convention "
+                "has no quantile there; use --transform-indices transformed or another model."
+            )
+        return np.asarray(self._inverse(y), dtype=float)
+
+    def cdf(self, v):
+        y = np.asarray(self._forward(np.asarray(v, dtype=float)), dtype=float)
+        return special.ndtr((y - self.mean) / self.sd)
+
+    def sf(self, v):
+        y = np.asarray(self._forward(np.asarray(v, dtype=float)), dtype=float)
+        return special.ndtr((self.mean - y) / self.sd)
+
+    def rvs(self, n, random_state=None):
+        rng = np.random.default_rng(random_state)
+        return np.asarray(self._inverse(rng.normal(self.mean, self.sd, int(n))), dtype=float)
+
+
+def capability_method_text(capability: Mapping | None, model: Mapping | None) -> str | None:
+    """The capability convention used, in words (terminal and PDF), from the JSON parts."""
+    if not capability:
+        return None
+    name = (model or {}).get("name")
+    label = (model or {}).get("label") or name
+    transformed = name in _TRANSFORMS
+    if capability.get("method") == "normal" and transformed:
+        return (f"indices of the transformed values ({label}): limits and values transformed, "
+                "normal theory on that scale (--transform-indices transformed)")
+    if capability.get("method") == "percentile" and transformed:
+        return (f"ISO 22514-2 percentile method on the original scale: the back-transformed "
+                f"0.135 %, 50 % and 99.865 % points of the {label} model "
+                "(--transform-indices percentile)")
+    if capability.get("method") == "percentile":
+        return ("ISO 22514-2 percentile method on the original scale: the fitted model's "
+                "0.135 %, 50 % and 99.865 % points")
+    if capability.get("method") == "equivalent_ppm":
+        return "equivalent-PPM method: the fitted model's tail shares as z values"
+    return "normal theory: the mean with the within and overall standard deviations"
+
+
 def analyze_characteristic(
     data,
     spec=None,
@@ -1067,6 +1194,7 @@ def analyze_characteristic(
             rules=() if order_flagged else options.rules,
             dispersion_rules=() if order_flagged else DISPERSION_RULES,
             rescale=rescale,
+            mr_removal=options.mr_removal,
             **chart_kw,
         )
     for w in caught:
@@ -1170,7 +1298,19 @@ def analyze_characteristic(
     choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
     warn.extend(notes)
     df_within = _df_within(stat_chart)
-    if choice.transform is not None:
+    if choice.transform is not None and options.transform_indices == "percentile":
+        cap = capability_module.capability(
+            x,
+            lsl=spec.lsl,
+            usl=spec.usl,
+            target=spec.target,
+            model=_TransformedNormal.of(choice, x, (spec.lsl is not None, spec.usl is not None)),
+            method="percentile",
+            level=level,
+            n_boot=options.n_boot,
+            random_state=options.random_state,
+        )
+    elif choice.transform is not None:
         cap = _transformed_capability(
             x, kept_labels, stat_chart, choice, lsl=spec.lsl, usl=spec.usl, target=spec.target,
             level=level, df_within=df_within,
@@ -1190,7 +1330,9 @@ def analyze_characteristic(
         )
     index = crit["index"]
     judged_index = index
-    if getattr(cap, index) is None and index in ("cpk", "cp") and choice.fitted is not None:
+    if getattr(cap, index) is None and index in ("cpk", "cp") and (
+        choice.fitted is not None or cap.method != "normal"
+    ):
         judged_index = {"cpk": "ppk", "cp": "pp"}[index]
         warn.append(
             f"{index.capitalize()} is not defined for the fitted {choice.label} model; the "

@@ -48,6 +48,15 @@ def register(sub) -> None:
                    help="within sigma of subgrouped charts: auto (R-bar/d2 or S-bar/c4; unequal "
                    "sizes: mean of R_i/d2(n_i) or s_i/c4(n_i)), rbar, sbar, or pooled "
                    "(pooled standard deviation / c4(d + 1))")
+    p.add_argument("--transform-indices", choices=["transformed", "percentile"],
+                   default="transformed",
+                   help="capability of a Box-Cox/Johnson model: transformed (limits and values "
+                   "transformed, normal theory on that scale; default) or percentile (ISO "
+                   "22514-2 percentile method on the original scale from the back-transformed "
+                   "0.135 %%, 50 %% and 99.865 %% points)")
+    p.add_argument("--mr-removal", choices=["later", "both"], default="later",
+                   help="automatic phase I on an individuals chart: a moving-range signal "
+                   "removes the later reading of the pair (default) or both")
     p.add_argument("--rules", default="nelson",
                    help="run rules shown: nelson, western_electric, limits_only or a list "
                    "such as 1,2,5 (default nelson)")
@@ -85,6 +94,8 @@ def _options(args):
         **({"min_kept_values": args.min_kept} if getattr(args, "min_kept", None) is not None
            else {}),
         sigma_method=getattr(args, "sigma_method", None),
+        transform_indices=getattr(args, "transform_indices", None) or "transformed",
+        mr_removal=getattr(args, "mr_removal", None) or "later",
     )
 
 
@@ -257,6 +268,8 @@ def _measurement_error_lines(me: dict) -> list[str]:
 
 def format_result(res) -> str:
     """A plain terminal report of one characteristic."""
+    from studykit.analysis import capability_method_text
+
     d = res.to_dict()
     lines = []
     unit = f" [{res.unit}]" if res.unit else ""
@@ -326,6 +339,7 @@ def format_result(res) -> str:
     if cap:
         level = cap["level"]
         lines.append(f"capability ({cap['method']} method; lower bounds at {level:.0%}):")
+        lines.append(f"  convention: {capability_method_text(cap, d['model'])}")
         for key in ("cp", "cpk", "pp", "ppk", "cpm"):
             if cap.get(key) is None:
                 continue

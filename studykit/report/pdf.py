@@ -875,6 +875,10 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         if cap.ppm_within is not None:
             ppm += f", within {_num(cap.ppm_within, 3)}"
         ppm += f"; observed {_num(cap.ppm_observed, 3)}. Method: {_esc(cap.method)}."
+        from studykit.analysis import capability_method_text
+
+        ppm += " Convention: " + _esc(capability_method_text(
+            cap.to_dict(), None if res.model is None else res.model.to_dict())) + "."
         story.append(Spacer(1, 3))
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))

@@ -21,9 +21,9 @@ limits), so the model and the removals are decided together.
 
 Choices (common practice, no source): all signalling subgroups of a round are removed together;
 for a rule about a pattern (run, trend...) every point that completed it is removed; on the
-individuals chart, a moving-range signal at position i removes value i (the later of the pair)
-unless value i-1 or i is already removed in that round for the individuals chart; after a removal
-the moving range is taken across the gap. A warning is raised when more than 10 % of the values
+individuals chart, a moving-range signal at position i removes value i (the later of the pair;
+``mr_removal="both"``: values i-1 and i) unless value i-1 or i is already removed in that round
+for the individuals chart; after a removal the moving range is taken across the gap. A warning is raised when more than 10 % of the values
 (for attribute charts: of the subgroups) were removed or fewer than 20 subgroups remain.
 """
 
@@ -54,12 +54,16 @@ __all__ = [
     "phase1",
     "MIN_SUBGROUPS",
     "MAX_REMOVED_SHARE",
+    "MR_REMOVAL",
 ]
 
 #: Fewer kept subgroups than this raises a HeavyRemovalWarning (common practice, no source).
 MIN_SUBGROUPS = 20
 #: A larger removed share of the values raises a HeavyRemovalWarning (common practice, no source).
 MAX_REMOVED_SHARE = 0.10
+
+#: Which reading a moving-range signal removes (ours): the later of the pair, or both.
+MR_REMOVAL = ("later", "both")
 
 _NAMES = {
     "xbar": "subgroup average",
@@ -178,6 +182,8 @@ class Phase1Result:
         values (its within sigma is the one reported; the phase-II hand-off freezes it).
     n_removed_manual, n_removed_auto : int
         Values (attribute charts: subgroups) taken out by recorded exclusions and by the rules.
+    mr_removal : str
+        Which reading a moving-range signal removed: ``"later"`` (default) or ``"both"``.
     """
 
     chart: ControlChart
@@ -195,6 +201,7 @@ class Phase1Result:
     n_removed_manual: int = 0
     n_removed_auto: int = 0
     raw_chart: ControlChart | None = None
+    mr_removal: str = "later"
 
     @property
     def auto_removed_share(self) -> float:
@@ -233,6 +240,7 @@ class Phase1Result:
             "scale": None if self.scale is None else self.scale.name,
             "n_removed_manual": int(self.n_removed_manual),
             "n_removed_auto": int(self.n_removed_auto),
+            "mr_removal": self.mr_removal,
         }
 
 
@@ -289,6 +297,7 @@ def phase1(
     min_subgroups: int = MIN_SUBGROUPS,
     max_removed_share: float = MAX_REMOVED_SHARE,
     rescale=None,
+    mr_removal: str = "later",
     **chart_options,
 ) -> Phase1Result:
     """Iterate trial control limits, removing signalling subgroups with a logged reason.
@@ -318,6 +327,9 @@ def phase1(
         kept (variables charts only): the chart of that round is drawn on the returned scale.
         The analysis passes a function that refits the distribution model to the kept values,
         so model and removals are decided together. None: the raw values.
+    mr_removal : {"later", "both"}
+        Individuals charts: a moving-range signal (not already explained by an individuals-chart
+        signal of either reading) removes the later reading of the pair (default) or both.
     **chart_options
         Passed to ``control_chart`` (``sigma_method``, ``mu``, ``sigma``, ``standard``,
         ``laney``).
@@ -354,6 +366,11 @@ def phase1(
         )
     if max_iterations < 0:
         raise StudyInputError(f"`max_iterations` ({max_iterations}) must be 0 or more.")
+    if mr_removal not in MR_REMOVAL:
+        raise StudyInputError(
+            f"`mr_removal` ({mr_removal!r}) must be 'later' or 'both' (which reading of a "
+            "signalling moving range is removed)."
+        )
     attribute = kind in ATTRIBUTE_KINDS
     x = np.asarray(values, dtype=float).ravel() if not attribute else np.asarray(values)
     n_items = x.shape[0]
@@ -449,7 +466,12 @@ def phase1(
                     continue  # the individuals chart already removes the value behind it
                 kept[pos] = sigs
             disp_flags = kept
-        positions = sorted(set(loc_flags) | set(disp_flags))
+        earlier: dict[int, list] = {}  # mr_removal "both": the earlier reading of the pair
+        if chart.kind == "imr" and mr_removal == "both":
+            for pos, sigs in disp_flags.items():
+                if pos >= 1 and (pos - 1) not in disp_flags and (pos - 1) not in loc_flags:
+                    earlier[pos - 1] = sigs
+        positions = sorted(set(loc_flags) | set(disp_flags) | set(earlier))
         if not positions:
             stopped = "stable"
             break
@@ -474,7 +496,18 @@ def phase1(
                         where.append(name)
                     parts.append(
                         _describe(series, pos, s, iterations, scales[-1] if scales else None)
+                        + _mr_note(name, chart.kind, mr_removal, "later")
                     )
+            for s in earlier.get(pos, []):
+                if s.rule not in rule_ids:
+                    rule_ids.append(s.rule)
+                if "dispersion" not in where:
+                    where.append("dispersion")
+                parts.append(
+                    _describe(chart.dispersion, pos + 1, s, iterations,
+                              scales[-1] if scales else None)
+                    + _mr_note("dispersion", chart.kind, mr_removal, "earlier")
+                )
             removed.add(label)
             removals.append(
                 Removal(
@@ -546,7 +579,17 @@ def phase1(
         n_removed_manual=int(n_manual),
         n_removed_auto=int(n_auto),
         raw_chart=raw_chart,
+        mr_removal=mr_removal,
     )
+
+
+def _mr_note(chart_name: str, kind: str, mr_removal: str, which: str) -> str:
+    """The removal convention, named in the reason of a moving-range removal."""
+    if chart_name != "dispersion" or kind != "imr":
+        return ""
+    if mr_removal == "later":
+        return " (the later reading of the pair is removed: --mr-removal later)"
+    return (f" (this is the {which} reading of the pair; both are removed: --mr-removal both)")
 
 
 def _label_counts(label_list, size_arr, attribute) -> dict:
