@@ -80,12 +80,13 @@ MAX_AUTO_REMOVED_SHARE = 0.10
 #: practice, no source).
 MIN_KEPT_VALUES = 20
 
-#: The caution shown wherever a characteristic is marked safety-critical.
-SAFETY_CAUTION = (
-    "Safety-critical characteristic: these statistics support, but do not replace, product "
-    "validation. Customer requirements, local codes and licensed engineering practice govern "
-    "acceptance."
+#: The caution, word for word the same on every surface (workbook, PDF, terminal, JSON).
+SAFETY_SENTENCE = (
+    "These statistics support, but do not replace, product validation. Customer requirements, "
+    "local codes and licensed engineering practice govern acceptance."
 )
+#: The caution shown wherever a characteristic is marked safety-critical.
+SAFETY_CAUTION = "Safety-critical characteristic: t" + SAFETY_SENTENCE[1:]
 
 _CHART_ALIASES = {
     "auto": "auto",

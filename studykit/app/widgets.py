@@ -16,15 +16,14 @@ from datetime import datetime
 import ipywidgets as widgets
 
 from studykit import theme
+from studykit.analysis import SAFETY_SENTENCE
 from studykit.errors import StudyInputError
 
 log = logging.getLogger("studykit.app")
 
 MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
-SAFETY_NOTE = (
-    "Statistics support, but do not replace, product validation; customer requirements, "
-    "local codes and licensed professional practice govern acceptance."
-)
+#: the safety caution, the same words as the PDF, the terminal and the JSON
+SAFETY_NOTE = SAFETY_SENTENCE
 
 
 def esc(value) -> str:
