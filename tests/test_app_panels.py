@@ -251,6 +251,24 @@ def test_export_gives_download_links(wb):
     assert "/tmp" not in ex.links.value and str(ex.ws.session.path) not in ex.links.value
 
 
+def test_handoff_from_a_study_not_ready_is_a_visible_draft(wb):
+    # the invented demo study: pull_off_force's lower bound misses its criterion, so the pack
+    # must say DRAFT in the page, in the file name and inside the zip
+    import base64
+    import io
+    import re
+    import zipfile
+
+    ex = wb.step("export")
+    ex.handoff.click()
+    assert 'download="pilot-handoff-DRAFT.zip"' in ex.links.value
+    warnings = [m[1] for m in wb.context.messages.messages if m[0] == "warning"]
+    assert any("DRAFT, not for production" in w and "pull_off_force" in w for w in warnings)
+    data = re.search(r"data:application/zip;base64,([A-Za-z0-9+/=]+)", ex.links.value).group(1)
+    with zipfile.ZipFile(io.BytesIO(base64.b64decode(data))) as zf:
+        assert "DRAFT-NOT-FOR-PRODUCTION.txt" in zf.namelist()
+
+
 def test_download_link_escapes_the_name():
     html = download_link(b"x", 'a"b<c>.txt', "text/plain")
     assert 'download="a_b_c_.txt"' in html

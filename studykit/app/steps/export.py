@@ -319,9 +319,18 @@ class ExportStep:
         finally:
             self._finish()
         skipped = getattr(info, "skipped", {}) or {}
-        self._add_link(download_link(data, f"{_stem(s)}-handoff.zip", "application/zip"))
+        draft = dict(getattr(info, "draft", {}) or {})
+        name = f"{_stem(s)}-handoff" + ("-DRAFT" if draft else "") + ".zip"
+        self._add_link(download_link(data, name, "application/zip"))
         note = ("; no limits frozen for " + ", ".join(skipped)) if skipped else ""
-        self.ws.context.messages.ok("The hand-off zip is ready" + note + ".")
+        if draft:
+            reasons = "; ".join(f"{k}: {v}" for k, v in draft.items())
+            self.ws.context.messages.warning(
+                "The hand-off zip is a DRAFT, not for production: every chart form and limits "
+                "file is stamped DRAFT because not every characteristic is ready for series "
+                f"production ({reasons}){note}. Settle these, then make the pack again.")
+        else:
+            self.ws.context.messages.ok("The hand-off zip is ready" + note + ".")
 
     def _on_json(self) -> None:
         s = self.ws.session
