@@ -569,7 +569,7 @@ def test_characteristic_data_built_directly():
 )
 def test_fast_reader_agrees_with_cell_by_cell_reader(table, sep, blank_line):
     """The pandas fast path and the cell-by-cell path give the same result or the same error."""
-    import studykit.data as data
+    import studykit.io.assemble as data  # the fast-path switch lives there
 
     lines = [f"Subgroup{sep}A [mm]{sep}B"]
     lines += [sep.join(r) for r in table]
@@ -601,7 +601,7 @@ def test_fast_reader_agrees_with_cell_by_cell_reader(table, sep, blank_line):
 
 
 def test_clean_csv_uses_the_fast_reader(monkeypatch):
-    import studykit.data as data
+    import studykit.io.assemble as data
 
     used = []
     original = data._with_fast_path
@@ -645,7 +645,7 @@ def test_single_column_with_decimal_commas(tmp_path):
 
 
 def test_row_numbers_across_chunks(tmp_path, monkeypatch):
-    import studykit.data as data
+    import studykit.io.csv_reader as data  # the CSV chunk size lives there
 
     monkeypatch.setattr(data, "_CHUNK_ROWS", 7)
     lines = ["Subgroup;X"] + [f"{i // 5 + 1};{i},5" for i in range(30)]

@@ -1,0 +1,560 @@
+"""Assembly: wide or long tables turned into one :class:`~studykit.io.values.CharacteristicData`
+per characteristic (subgroups, times, notes, row numbers).
+
+Part of :mod:`studykit.io` (moved unchanged from ``studykit/data.py``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from studykit.errors import DataFileError
+from studykit.io.cells import (
+    _check_text_column,
+    _col_letter,
+    _filled,
+    _fmt_rows,
+    _labels,
+    _looks_numeric,
+    _numeric,
+    _plain_numbers,
+    _row_word,
+    _show,
+    _time_header_hint,
+    _times_chunk,
+    _times_text,
+    parse_header,
+)
+from studykit.io.source import _Fallback
+from studykit.io.values import LARGE_SUBGROUP, CharacteristicData
+
+
+def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
+    filled = _filled(cells, text_cells)
+    if filled.any():
+        i = int(np.flatnonzero(filled)[0])
+        letter = _col_letter(j)
+        if j >= len(header):
+            why = (f"this row has a value ('{_show(cells[i])}') in column {letter}, beyond the "
+                   f"{len(header)} named columns. Give the column a name in the header "
+                   f"(row {hrow}) or delete the value; check for an extra separator.")
+        else:
+            why = (f"column {letter} has values (here '{_show(cells[i])}') but no name in the "
+                   f"header (row {hrow}). Write a name into the header cell.")
+        raise DataFileError(why, file=src.name, row=int(rows[i]), column=letter, value=cells[i])
+
+
+class _Acc:
+    """Lists of chunk arrays, concatenated at the end."""
+
+    def __init__(self):
+        self.parts: list[np.ndarray] = []
+
+    def add(self, a):
+        self.parts.append(a)
+
+    def result(self, dtype=None):
+        if not self.parts:
+            return np.empty(0, dtype=dtype or float)
+        out = np.concatenate(self.parts) if len(self.parts) > 1 else self.parts[0]
+        self.parts = []
+        return out
+
+
+class _LabelAcc:
+    """Text labels of many rows kept as integer codes into one list of distinct labels, so a
+    label repeated on many rows is stored once."""
+
+    def __init__(self):
+        self.index: dict[str, int] = {}
+        self.codes = _Acc()
+
+    def add(self, labels: np.ndarray) -> None:
+        import pandas as pd
+
+        local, uniq = pd.factorize(labels, sort=False)
+        mapping = np.array([self.index.setdefault(u, len(self.index)) for u in uniq],
+                           dtype=np.int64)
+        self.codes.add(mapping[local].astype(np.int32) if mapping.size else local.astype(np.int32))
+
+    def labels(self) -> np.ndarray:
+        labels = np.empty(len(self.index), dtype=object)
+        labels[:] = list(self.index)
+        return labels
+
+    def result_codes(self) -> np.ndarray:
+        return self.codes.result(np.int32)
+
+    def result(self) -> np.ndarray:
+        return self.labels()[self.result_codes()]
+
+
+class _TimeAcc:
+    """Time cells, converted chunk by chunk to datetime64 while one format fits."""
+
+    def __init__(self):
+        self.parts: list[np.ndarray] = []
+        self.fmt: str | None = None
+        self.as_text = False
+
+    def add(self, cells: np.ndarray) -> None:
+        if not self.as_text:
+            parsed, fmt = _times_chunk(cells, self.fmt)
+            if parsed is not None:
+                self.fmt = fmt or self.fmt
+                self.parts.append(parsed)
+                return
+            self.as_text = True
+            self.parts = [_times_text(p) for p in self.parts]
+        self.parts.append(_times_text(cells))
+
+    def result(self, notes: list) -> np.ndarray:
+        if self.as_text:
+            notes.append("times kept as text: not all time cells could be read as one "
+                         "date/time format (e.g. 2025-03-01 08:00 or 01.03.2025 08:00)")
+            out = np.concatenate(self.parts) if self.parts else np.empty(0, dtype=object)
+            return out
+        if not self.parts:
+            return np.empty(0, dtype="datetime64[ns]")
+        return np.concatenate(self.parts)
+
+
+def _with_fast_path(table, float_cols, collect):
+    if table.fast_chunks is not None and float_cols:
+        try:
+            return collect(table.fast_chunks(float_cols))
+        except (_Fallback, DataFileError):
+            pass  # the cell-by-cell reader below finds the cell and says what is wrong
+    return collect(table.open_chunks())
+
+
+def _classify(table, ctx, role, notes) -> dict:
+    header = table.header
+    gen = table.open_chunks()
+    try:
+        first = next(gen, None)
+    finally:
+        gen.close()
+    kinds: dict[int, str] = {}
+    cols = first[1] if first is not None else []
+    for j in range(max(len(cols), len(header))):
+        if j >= len(header) or not header[j]:
+            kinds[j] = "unnamed"
+        elif j in role:
+            kinds[j] = role[j]
+        elif j >= len(cols):
+            kinds[j] = "value"
+        else:
+            n_filled, n_num = _looks_numeric(ctx, cols[j])
+            kinds[j] = "value" if n_num * 2 >= n_filled else "text"
+    text_cols = [header[j] for j, k in kinds.items() if k == "text"]
+    if text_cols:
+        notes.append(
+            "columns holding text, not read as measurements: "
+            + ", ".join(f"'{h}'" for h in text_cols)
+        )
+    return kinds
+
+
+def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
+    header = table.header
+    kinds = _classify(table, ctx, role, notes)
+    float_cols = {j for j, k in kinds.items() if k == "value"}
+
+    def collect(chunks):
+        rows_acc = _Acc()
+        filled_acc = _Acc()
+        value_acc = {j: _Acc() for j in float_cols}
+        sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(), _LabelAcc()
+        for rows, cols in chunks:
+            row_filled = np.zeros(len(rows), dtype=bool)
+            for j, cells in enumerate(cols):
+                k = kinds.get(j, "unnamed")
+                if k == "unnamed":
+                    _check_unnamed(src, header, table.header_row, j, cells, rows,
+                                   table.text_cells)
+                    continue
+                if k == "value":
+                    vals, empty = _numeric(ctx, cells, rows, header[j])
+                    value_acc[j].add(vals)
+                    row_filled |= ~empty
+                else:
+                    row_filled |= _filled(cells, table.text_cells)
+                    if k == "text":
+                        _check_text_column(src.name, cells, rows, header[j])
+                    elif k == "subgroup":
+                        sg_acc.add(_labels(cells, table.text_cells))
+                    elif k == "time":
+                        t_acc.add(cells)
+                    elif k == "note":
+                        n_acc.add(_labels(cells, table.text_cells))
+            rows_acc.add(rows)
+            filled_acc.add(row_filled)
+        return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
+
+    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _with_fast_path(
+        table, float_cols, collect)
+    rows = rows_acc.result(np.int64)
+    filled = filled_acc.result(bool)
+    if not filled.any():
+        raise DataFileError(
+            "the file has a header but no values below it. Add the measurements, one row per "
+            "part, under the column names.",
+            file=src.name, row=table.header_row + 1,
+        )
+    last = int(np.flatnonzero(filled)[-1]) + 1
+    keep = np.ones(last, dtype=bool)
+    filled = filled[:last]
+    rows = rows[:last]
+    interior_empty = np.flatnonzero(~filled)
+    sg = sg_acc.result_codes()[:last] if sg_idx is not None else None
+    empty_code = sg_acc.index.get("", -1)
+    if sg is not None:
+        sg = _fill_merged(sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx],
+                          empty_code)
+    if interior_empty.size:
+        if sg is not None:
+            keep[interior_empty] = False
+            notes.append(f"empty {_row_word(interior_empty.size)} skipped: "
+                         f"{_fmt_rows(rows[interior_empty])}")
+        else:
+            notes.append(
+                "empty rows kept as missing values (they may be parts that were not measured): "
+                + _fmt_rows(rows[interior_empty])
+            )
+    all_kept = bool(keep.all())
+
+    def kept(a):
+        return a if all_kept else a[keep]
+
+    rows = kept(rows)
+    if sg is not None:
+        sg = kept(sg)
+        no_label = np.flatnonzero(sg == empty_code)
+        if no_label.size:
+            i = int(no_label[0])
+            raise DataFileError(
+                f"this row has values but no subgroup label. Every row needs its subgroup in "
+                f"column '{header[sg_idx]}' (rows without a label: {_fmt_rows(rows[no_label])}). "
+                "Fill in the labels, or leave out the subgroup column to read individuals.",
+                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+            )
+        label_text = sg_acc.labels().astype(str)
+        codes = sg
+
+        def labels_of(u):
+            return label_text[u]
+
+        subgroups = label_text[codes]
+    else:
+        codes = np.arange(rows.size) // (subgroup_size or 1)
+
+        def labels_of(u):
+            return _position_labels(u)
+
+        subgroups = labels_of(codes)
+    times = kept(t_acc.result(notes)[:last]) if t_idx is not None else None
+    note_arr = kept(n_acc.result()[:last]) if n_idx is not None else None
+    for a in (rows, subgroups, times, note_arr):
+        if a is not None:
+            a.flags.writeable = False
+
+    if sg is None and subgroup_size is None:
+        grouping = (codes, subgroups)  # individuals: one subgroup per row, labels = positions
+    else:
+        grouping = _grouping(codes, labels_of)
+    del codes
+    sg_acc.index.clear()
+    characteristics = []
+    empty_cols = []
+    for j, acc in value_acc.items():
+        vals = kept(acc.result(float)[:last])
+        name, unit = parse_header(header[j])
+        if np.isnan(vals).all():
+            empty_cols.append(header[j])
+            continue
+        characteristics.append(_make_char(name, unit, vals, subgroups, grouping, times,
+                                          note_arr, rows, warnings_))
+    if empty_cols:
+        notes.append("empty columns skipped: " + ", ".join(f"'{h}'" for h in empty_cols))
+    if not characteristics:
+        raise DataFileError(
+            "no column holds measurements. Each characteristic needs its own column of numbers "
+            "under a header name; the columns found were: "
+            + ", ".join(f"'{h}'" for h in header if h) + "."
+            + _time_header_hint(header, t_idx, times),
+            file=src.name, row=table.header_row,
+        )
+    if t_idx is not None and _plain_numbers(times):
+        warnings_.append(_time_header_hint(header, t_idx, times).strip())
+    return characteristics, int(rows.size)
+
+
+def _fill_merged(codes, rows, ranges, notes, colname, empty_code):
+    """Give rows inside a vertically merged subgroup cell the label of its top cell."""
+    if not len(ranges) or empty_code < 0:
+        return codes
+    codes = codes.copy()
+    pos = {int(r): i for i, r in enumerate(rows)} if len(ranges) else {}
+    filled_any = False
+    for r1, r2 in ranges:
+        top = pos.get(r1)
+        if top is None or codes[top] == empty_code:
+            continue
+        for r in range(r1 + 1, r2 + 1):
+            i = pos.get(r)
+            if i is not None and codes[i] == empty_code:
+                codes[i] = codes[top]
+                filled_any = True
+    if filled_any:
+        notes.append(f"merged cells in column '{colname}': each label applied to all its rows")
+    return codes
+
+
+def _position_labels(codes: np.ndarray) -> np.ndarray:
+    """``codes + 1`` as the narrowest string array (not the 21 characters of any int64)."""
+    codes = np.asarray(codes)
+    width = len(str(int(codes.max()) + 1)) if codes.size else 1
+    return (codes + 1).astype(f"<U{width}")
+
+
+def _grouping(codes, labels_of):
+    """(codes 0..k-1 in order of first appearance, the k labels as str array)."""
+    import pandas as pd
+
+    codes = np.asarray(codes)
+    if codes.size:
+        # codes that already run 0, 1, 2, ... in order of first appearance need no factorizing
+        running_max = np.maximum.accumulate(codes)
+        if codes[0] == 0 and np.all(codes[1:] <= running_max[:-1] + 1):
+            k = int(running_max[-1]) + 1
+            return codes, np.asarray(labels_of(np.arange(k))).astype(str)
+    local, uniq = pd.factorize(codes, sort=False)
+    return local, np.asarray(labels_of(np.asarray(uniq))).astype(str)
+
+
+def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, warnings_):
+    """Build one CharacteristicData; `grouping` comes from :func:`_grouping`."""
+    local, group_labels = grouping
+    missing = np.isnan(vals)
+    valid = vals[~missing]
+    counts = np.bincount(local, weights=(~missing).astype(float), minlength=len(group_labels))
+    n_missing = int(missing.sum())
+    if n_missing:
+        warnings_.append(
+            f"'{name}': {n_missing} empty cell(s) ({_row_word(n_missing)} "
+            f"{_fmt_rows(rows[missing])}); the analysis leaves them out"
+        )
+    if valid.size == 1:
+        warnings_.append(
+            f"'{name}': only one value ({valid[0]:g}); a study needs many more (common "
+            "practice: at least 25 subgroups or 100 individual values)"
+        )
+    elif valid.size > 1 and valid.max() == valid.min():  # (ptp overflows near 1e308)
+        warnings_.append(
+            f"'{name}': all {valid.size} values are {valid[0]:g}, so there is no spread and no "
+            "capability can be computed. Check that the gauge resolution is fine enough and "
+            "that this is the right column."
+        )
+    return CharacteristicData(
+        name=name, unit=unit, values=vals, subgroups=subgroups, times=times, notes=notes_arr,
+        rows=rows, n_missing=n_missing,
+        is_integer=bool(valid.size and np.all(np.floor(valid) == valid)),
+        subgroup_labels=group_labels,
+        subgroup_counts=counts.astype(np.int64),
+    )
+
+
+def _subgroup_messages(chars, subgroup_source, notes, warnings_):
+    if subgroup_source == "none":
+        return
+    groups: dict[tuple, list[str]] = {}
+    for c in chars:
+        sizes = c.subgroup_counts
+        filled = sizes[sizes > 0]
+        msgs = []
+        if filled.size < 2:
+            msgs.append((
+                "warn",
+                f"values in only {filled.size} subgroup(s); a subgrouped analysis needs at "
+                "least 2 (common practice: 25 or more)",
+            ))
+        if filled.size and filled.min() != filled.max():
+            vals, cnt = np.unique(filled, return_counts=True)
+            dist = ", ".join(f"{k} x size {v}" for v, k in zip(vals.tolist(), cnt.tolist(),
+                                                              strict=True))
+            msgs.append(("note", f"unequal subgroup sizes: {dist} (allowed; limits vary)"))
+            if filled.min() == 1:
+                single = c.subgroup_labels[sizes == 1].tolist()
+                shown = ", ".join(f"'{x}'" for x in single[:5]) + (
+                    f" and {len(single) - 5} more" if len(single) > 5 else "")
+                msgs.append((
+                    "warn",
+                    f"{len(single)} subgroup(s) hold a single value ({shown}) while others hold "
+                    f"up to {int(filled.max())}: X-bar charts need at least 2 values in every "
+                    "subgroup. Merge or exclude them, or read the values as individuals",
+                ))
+        if filled.size and filled.max() > LARGE_SUBGROUP:
+            msgs.append((
+                "warn",
+                f"subgroups of up to {int(filled.max())} values (more than {LARGE_SUBGROUP}); "
+                "allowed, but an X-bar/S chart suits large subgroups better than X-bar/R",
+            ))
+        # a label that comes back after other labels
+        sg = c.subgroups
+        if sg.size > 1:
+            changes = int(np.count_nonzero(sg[1:] != sg[:-1])) + 1
+            if changes > c.n_subgroups:
+                msgs.append((
+                    "warn",
+                    "some subgroup labels appear in separate blocks of rows; rows of one "
+                    "subgroup are expected together, in production order",
+                ))
+        for kind, text in msgs:
+            groups.setdefault((kind, text), []).append(c.name)
+    for (kind, text), names in groups.items():
+        who = ("all characteristics" if len(names) == len(chars) and len(chars) > 1
+               else ", ".join(f"'{n}'" for n in names))
+        (warnings_ if kind == "warn" else notes).append(f"{who}: {text}")
+
+
+def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
+                   subgroup_size, notes, warnings_):
+    header = table.header
+    unit_idx = next((j for j, r in role.items() if r == "unit"), None)
+    others = [h for j, h in enumerate(header) if h and j not in role]
+    if others:
+        notes.append("columns not used in the long layout: "
+                     + ", ".join(f"'{h}'" for h in others))
+
+    def collect(chunks):
+        name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), _Acc(), _Acc(), _Acc()
+        sg_acc, t_acc, n_acc, unit_acc = _LabelAcc(), _TimeAcc(), _LabelAcc(), _LabelAcc()
+        for rows, cols in chunks:
+            for j in range(len(cols)):
+                if j >= len(header) or not header[j]:
+                    _check_unnamed(src, header, table.header_row, j, cols[j], rows,
+                                   table.text_cells)
+            names = _labels(cols[char_idx], table.text_cells)
+            vals, empty = _numeric(ctx, cols[value_idx], rows, header[value_idx])
+            row_filled = ~empty | (names != "")
+            for j in (sg_idx, t_idx, n_idx, unit_idx):
+                if j is not None and j < len(cols):
+                    row_filled |= _filled(cols[j], table.text_cells)
+            bad = row_filled & (names == "")
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise DataFileError(
+                    f"this row has no characteristic name in column '{header[char_idx]}'. "
+                    "Every row of a long table names the characteristic its value belongs to.",
+                    file=src.name, row=int(rows[i]), column=header[char_idx], value="",
+                )
+            name_acc.add(names)
+            val_acc.add(vals)
+            rows_acc.add(rows)
+            filled_acc.add(row_filled)
+            if sg_idx is not None:
+                sg_acc.add(_labels(cols[sg_idx], table.text_cells))
+            if t_idx is not None:
+                t_acc.add(cols[t_idx])
+            if n_idx is not None:
+                n_acc.add(_labels(cols[n_idx], table.text_cells))
+            if unit_idx is not None:
+                unit_acc.add(_labels(cols[unit_idx], table.text_cells))
+        return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
+
+    name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc = _with_fast_path(
+        table, {value_idx}, collect)
+    filled = filled_acc.result(bool)
+    if not filled.any():
+        raise DataFileError(
+            "the file has a header but no values below it. Add the measurements, one row per "
+            "value, under the column names.",
+            file=src.name, row=table.header_row + 1,
+        )
+    rows = rows_acc.result(np.int64)
+    last = int(np.flatnonzero(filled)[-1]) + 1
+    interior = np.flatnonzero(~filled[:last])
+    if interior.size:
+        notes.append(f"empty rows skipped: {_fmt_rows(rows[interior])}")
+    keep = filled.copy()
+    rows = rows[keep]
+    codes = name_acc.result_codes()[keep]
+    name_labels = name_acc.labels()
+    # drop the code of the empty name (only on rows that are not kept) and renumber
+    present, codes = np.unique(codes, return_inverse=True)
+    codes_of = {str(name_labels[c]): k for k, c in enumerate(present)}
+    vals = val_acc.result(float)[keep]
+    sg = sg_acc.result_codes()[keep] if sg_idx is not None else None
+    label_text = sg_acc.labels().astype(str)
+    if sg is not None:
+        no_label = np.flatnonzero(sg == sg_acc.index.get("", -1))
+        if no_label.size:
+            i = int(no_label[0])
+            raise DataFileError(
+                f"this row has no subgroup label in column '{header[sg_idx]}' (rows without a "
+                f"label: {_fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
+                "subgroup column to read individuals.",
+                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+            )
+    times_all = t_acc.result(notes)[keep] if t_idx is not None else None
+    notes_all = n_acc.result()[keep] if n_idx is not None else None
+    units_all = unit_acc.result()[keep] if unit_idx is not None else None
+
+    order = np.argsort(codes, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=len(codes_of)))])
+    characteristics = []
+    seen_names: dict[str, str] = {}
+    for raw_name, k in codes_of.items():
+        idx = order[bounds[k] : bounds[k + 1]]
+        name, unit = parse_header(raw_name)
+        key = name.casefold()
+        if key in seen_names:
+            raise DataFileError(
+                f"'{raw_name}' and '{seen_names[key]}' name the same characteristic with "
+                "different units or spelling. Use one name (and one unit) per characteristic.",
+                file=src.name, column=header[char_idx], value=raw_name,
+            )
+        seen_names[key] = raw_name
+        if units_all is not None:
+            us = [u for u in dict.fromkeys(units_all[idx].tolist()) if u != ""]
+            if len(us) > 1:
+                first_other = int(idx[np.flatnonzero(units_all[idx] == us[1])[0]])
+                raise DataFileError(
+                    f"'{name}' is given in more than one unit ({', '.join(us)}). Convert the "
+                    "values to one unit.",
+                    file=src.name, row=int(rows[first_other]), column=header[unit_idx],
+                    value=us[1],
+                )
+            if us:
+                unit = us[0]
+        cvals = vals[idx]
+        crows = rows[idx]
+        if sg is not None:
+            ccodes = sg[idx]
+
+            def labels_of(u):
+                return label_text[u]
+        else:
+            ccodes = np.arange(idx.size) // (subgroup_size or 1)
+
+            def labels_of(u):
+                return _position_labels(u)
+
+        characteristics.append(_make_char(
+            name, unit, cvals, labels_of(ccodes), _grouping(ccodes, labels_of),
+            times_all[idx] if times_all is not None else None,
+            notes_all[idx] if notes_all is not None else None,
+            crows, warnings_,
+        ))
+    empty = [c.name for c in characteristics if c.n_valid == 0]
+    if empty:
+        notes.append("characteristics without any value skipped: "
+                     + ", ".join(f"'{n}'" for n in empty))
+    characteristics = [c for c in characteristics if c.n_valid > 0]
+    if not characteristics:
+        raise DataFileError(
+            f"column '{header[value_idx]}' holds no values. Add the measured values.",
+            file=src.name, column=header[value_idx], row=table.header_row + 1,
+        )
+    return characteristics, int(rows.size)

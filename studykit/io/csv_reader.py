@@ -1,0 +1,207 @@
+"""CSV tables: separator sniffing and chunked reading (with a pandas fast path).
+
+Part of :mod:`studykit.io` (moved unchanged from ``studykit/data.py``).
+"""
+
+from __future__ import annotations
+
+import csv
+import re
+
+import numpy as np
+
+from studykit.errors import DataFileError
+from studykit.io.cells import _COMMA_DECIMAL_RE, _POINT_DECIMAL_RE, _text_number
+from studykit.io.source import _HEADER_MAX_BYTES, _Fallback, _human_size, _Source, _Table
+
+_CHUNK_ROWS = 50_000
+
+
+def _sample_lines(src: _Source) -> list[str]:
+    lines = src.sample.splitlines()
+    if src.sample_truncated and lines:
+        lines = lines[:-1]
+    return lines
+
+
+def _csv_rows(lines: list[str], delimiter: str, file=None) -> list[list[str]]:
+    """The cells of sample lines; a field may be as long as the sample (a wide header is one
+    field for a separator that does not split it), beyond the csv module's 128 KiB default."""
+    old = csv.field_size_limit()
+    csv.field_size_limit(max(old, _HEADER_MAX_BYTES + 1))
+    try:
+        return list(csv.reader(lines, delimiter=delimiter))
+    except csv.Error as exc:
+        raise DataFileError(
+            f"the first lines cannot be split into cells ({exc}). Check quotes (\") and "
+            "separators, or save the file again from the spreadsheet as CSV.", file=file,
+        ) from None
+    finally:
+        csv.field_size_limit(old)
+
+
+def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
+    """Separator and index of the header line.
+
+    The header is the first line with two or more filled cells when only title lines (one
+    filled cell each) stand before it; the separator is the one that splits the header and the
+    lines below it into the same number of cells (tab, then semicolon, then comma).
+    """
+    idx = [i for i in range(start, len(lines)) if lines[i].strip()][:60]
+    if not idx:
+        return ",", start
+    delims = ("\t", ";", ",")
+    recs = {d: _csv_rows([lines[i] for i in idx], delimiter=d, file=file) for d in delims}
+
+    def filled(rec):
+        return sum(1 for c in rec if c.strip())
+
+    for d in delims:
+        r = recs[d]
+        k = next((m for m in range(min(10, len(r))) if filled(r[m]) >= 2), None)
+        if k is None or any(filled(r[m]) > 1 for m in range(k)):
+            continue
+        if k > 0 and all(_text_number(c) is not None for c in r[k] if c.strip()):
+            continue  # numbers, not a header below a title
+        if all(len(x) == len(r[k]) for x in r[k:]):
+            return d, idx[k]
+    # one column of numbers with decimal commas: nothing to split
+    semi = recs[";"]
+    if len(recs[","][0]) == 1 and all(len(x) == 1 for x in semi) and any(_COMMA_DECIMAL_RE.match(x[0].strip())
+                                               for x in semi[1:]):
+        return ";", idx[0]
+    best, best_cols = ",", 1
+    for d in delims:
+        if len(recs[d][0]) > best_cols:
+            best, best_cols = d, len(recs[d][0])
+    return best, idx[0]
+
+
+def _open_csv(src: _Source) -> _Table:
+    import pandas as pd
+
+    lines = _sample_lines(src)
+    if not lines and src.sample_truncated:
+        raise DataFileError(
+            f"the first line is longer than {_human_size(_HEADER_MAX_BYTES)} without a line "
+            "break, so no header row can be found. Check that the file is a table with one "
+            "row per line (a file with only carriage returns or no line breaks at all is not), "
+            "or save it again from the spreadsheet as CSV.",
+            file=src.name, row=1,
+        )
+    header_index = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
+    if header_index is None:
+        raise DataFileError(
+            "the file holds no header and no values (only empty lines or separators). Export "
+            "the measurements again with the column names in the first row.",
+            file=src.name,
+        )
+    first_line = header_index
+    sep, header_index = _sniff(lines, header_index, src.name)
+    header = [h.strip() for h in _csv_rows([lines[header_index]], delimiter=sep, file=src.name)[0]]
+
+    # decimal sign from the sample cells
+    n_comma = n_point = 0
+    for rec in _csv_rows(lines[header_index + 1 : header_index + 200], delimiter=sep,
+                          file=src.name):
+        for cell in rec:
+            cell = cell.strip()
+            if _COMMA_DECIMAL_RE.match(cell):
+                n_comma += 1
+            elif _POINT_DECIMAL_RE.match(cell):
+                n_point += 1
+    decimal = "," if n_comma > n_point else "."
+
+    def chunks():
+        handle = src.binary()
+        try:
+            reader = pd.read_csv(
+                handle, sep=sep, header=None, skiprows=header_index, dtype=object,
+                keep_default_na=False, na_filter=False, skip_blank_lines=False,
+                chunksize=_CHUNK_ROWS, encoding=src.encoding, quotechar='"', engine="c",
+                encoding_errors="strict",
+            )
+            start = header_index + 1  # spreadsheet row of the reader's first line (the header)
+            first = True
+            for frame in reader:
+                cols = [frame[c].to_numpy(dtype=object) for c in frame.columns]
+                rows = np.arange(start, start + len(frame), dtype=np.int64)
+                start += len(frame)
+                if first:
+                    cols = [c[1:] for c in cols]
+                    rows = rows[1:]
+                    first = False
+                yield rows, cols
+        except pd.errors.ParserError as exc:
+            raise _translate_parser_error(exc, src, header, sep) from None
+        except UnicodeDecodeError as exc:
+            raise DataFileError(
+                f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
+                + ("Leave the encoding out to have it detected, or give the one the file was "
+                   "saved with (e.g. 'cp1252' or 'utf-16')." if src.encoding_given else
+                   "Save the file as UTF-8 CSV, or give its encoding explicitly."),
+                file=src.name,
+            ) from None
+        finally:
+            handle.close()
+
+    def fast_chunks(float_cols):
+        """Numbers parsed by pandas' C reader; any doubt raises _Fallback."""
+        width = len(header)
+        handle = src.binary()
+        try:
+            reader = pd.read_csv(
+                handle, sep=sep, header=None, skiprows=header_index + 1, names=list(range(width)),
+                dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
+                decimal=decimal, keep_default_na=False, na_values=[""], na_filter=True,
+                skip_blank_lines=False, chunksize=_CHUNK_ROWS, encoding=src.encoding,
+                quotechar='"', engine="c", encoding_errors="strict",
+            )
+            start = header_index + 2
+            for frame in reader:
+                if frame.shape[1] != width or not frame.index.equals(
+                        pd.RangeIndex(start - header_index - 2,
+                                      start - header_index - 2 + len(frame))):
+                    raise _Fallback
+                cols = []
+                for j in range(width):
+                    if j in float_cols:
+                        cols.append(np.array(frame[j], dtype=np.float64))
+                    else:
+                        cols.append(frame[j].fillna("").to_numpy(dtype=object))
+                rows = np.arange(start, start + len(frame), dtype=np.int64)
+                start += len(frame)
+                yield rows, cols
+        except (ValueError, TypeError, OverflowError, pd.errors.ParserError,
+                UnicodeDecodeError):
+            raise _Fallback from None
+        finally:
+            handle.close()
+
+    return _Table(header=header, header_row=header_index + 1, open_chunks=chunks,
+                  fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True,
+                  title_rows=(first_line + 1, header_index) if header_index > first_line else None)
+
+
+def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFileError:
+    msg = str(exc)
+    m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", msg)
+    sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[sep]
+    if m:
+        row, saw = int(m.group(2)), int(m.group(3))
+        hint = (
+            " In a comma-separated file a decimal comma splits a number in two: save the file "
+            "with ';' as separator, or use '.' as decimal sign."
+            if sep == ","
+            else " Look for a stray separator inside a value or a note."
+        )
+        return DataFileError(
+            f"this row has {saw} cells but the header has {len(header)} columns "
+            f"(separator: {sep_name}).{hint}",
+            file=src.name, row=row, value=saw,
+        )
+    return DataFileError(
+        f"the table cannot be split into cells ({msg.strip()}). Check quotes (\") and "
+        f"separators ({sep_name}) in the file, or save it again from the spreadsheet as CSV.",
+        file=src.name,
+    )
