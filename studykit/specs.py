@@ -1,0 +1,199 @@
+"""The specifications table: a CSV of characteristics with limits and criteria, read into
+:class:`~studykit.study.Characteristic` and :class:`~studykit.study.Criteria`, and matched to the
+names and units of the measurement data.
+
+Moved unchanged from :mod:`studykit.study`, which still answers ``from studykit.study import
+read_specs`` (and the other names here).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+from collections.abc import Iterable, Mapping
+
+from studykit.errors import SpecError, StudyInputError
+from studykit.study import (
+    Characteristic,
+    Criteria,
+    _check_chart_against_counts,
+    _check_chart_fits,
+    _check_criteria_fits,
+    _check_model,
+)
+
+__all__ = ["SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
+
+#: columns of a specifications table (CSV); only ``characteristic`` is required
+SPEC_COLUMNS = (
+    "characteristic", "unit", "lsl", "usl", "target", "safety_critical", "criterion",
+    "threshold", "basis", "confidence", "chart", "subgroup_size", "size_column", "model",
+    "description",
+)
+_TRUE = {"1", "yes", "y", "true", "x", "ja", "j", "safety", "sc"}
+_FALSE = {"", "0", "no", "n", "false", "nein"}
+
+
+def read_specs_bytes(data: bytes, filename: str = "specs.csv"
+                     ) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+    """Read a specifications table (CSV) into characteristics and criteria.
+
+    Columns (header names, any case): ``characteristic`` (required), ``unit``, ``lsl``,
+    ``usl``, ``target``, ``safety_critical`` (yes/no), ``criterion`` (cp, cpk, pp, ppk, cpm),
+    ``threshold``, ``basis`` (lower_bound, estimate), ``confidence``, ``chart``,
+    ``subgroup_size``, ``size_column``, ``model``, ``description``. Separator comma or
+    semicolon; with a semicolon a decimal comma is accepted. A row without ``criterion``,
+    ``threshold``, ``basis`` and ``confidence`` uses the default :class:`Criteria`.
+
+    Returns
+    -------
+    (characteristics, criteria)
+        A tuple of :class:`Characteristic` in table order and a dict name -> :class:`Criteria`.
+
+    Raises
+    ------
+    SpecError
+        Naming the file, row (header = row 1), column, value and the fix.
+
+    Examples
+    --------
+    >>> table = b"characteristic,unit,lsl,usl,criterion,threshold\\nbore,mm,11.97,12.03,cpk,1.33\\n"
+    >>> chars, crit = read_specs_bytes(table)
+    >>> chars[0].usl, crit["bore"].describe()
+    (12.03, 'Cpk lower 95% bound >= 1.33')
+    """
+    import csv
+
+    try:
+        text = bytes(data).decode("utf-8-sig")
+    except UnicodeDecodeError:
+        text = bytes(data).decode("cp1252", errors="replace")
+    # (row number as a spreadsheet shows it, text) of each non-blank line
+    numbered = [(i, ln) for i, ln in enumerate(text.splitlines(), start=1) if ln.strip()]
+    if not numbered:
+        raise SpecError("the specifications table is empty: it needs a header row with at least "
+                        "a 'characteristic' column", file=filename)
+    first = numbered[0][1]
+    sep = ";" if first.count(";") > first.count(",") else ","
+    rows = [next(csv.reader([ln], delimiter=sep), []) for _, ln in numbered]
+    row_numbers = [i for i, _ in numbered]
+    header = [h.strip().lower().replace(" ", "_") for h in rows[0]]
+    unknown = [h for h in header if h and h not in SPEC_COLUMNS]
+    if unknown:
+        raise SpecError(
+            f"unknown column(s) {', '.join(repr(u) for u in unknown)}: the columns are "
+            f"{', '.join(SPEC_COLUMNS)}", file=filename, row=row_numbers[0],
+        )
+    if "characteristic" not in header:
+        raise SpecError("the header needs a 'characteristic' column naming each characteristic",
+                        file=filename, row=row_numbers[0])
+    chars: list[Characteristic] = []
+    criteria: dict[str, Criteria] = {}
+    seen: dict[str, int] = {}
+    for r, cells in zip(row_numbers[1:], rows[1:], strict=True):
+        cell = {h: (cells[i].strip() if i < len(cells) else "") for i, h in enumerate(header) if h}
+        if sep == ";":
+            for key in ("lsl", "usl", "target", "threshold", "confidence"):
+                if re.fullmatch(r"[+-]?\d*,\d+", cell.get(key, "")):
+                    cell[key] = cell[key].replace(",", ".")
+        name = cell.get("characteristic", "")
+        if not name:
+            raise SpecError("the characteristic name is empty", file=filename, row=r,
+                            column="characteristic")
+        if name in seen:
+            raise SpecError(f"'{name}' is listed twice (rows {seen[name]} and {r}): keep one row",
+                            file=filename, row=r, column="characteristic")
+        seen[name] = r
+        flag = cell.get("safety_critical", "").lower()
+        if flag not in _TRUE | _FALSE:
+            raise SpecError(f"`safety_critical` ({cell['safety_critical']!r}) must be yes or no",
+                            file=filename, row=r, column="safety_critical")
+        size = cell.get("subgroup_size", "")
+        try:
+            size_value = int(size) if size else None
+        except ValueError:
+            raise SpecError(f"`subgroup_size` ({size!r}) must be a whole number", file=filename,
+                            row=r, column="subgroup_size") from None
+        try:
+            c = Characteristic(
+                name, unit=cell.get("unit") or None, lsl=cell.get("lsl"), usl=cell.get("usl"),
+                target=cell.get("target"), safety_critical=flag in _TRUE,
+                chart=cell.get("chart") or "auto", subgroup_size=size_value,
+                size_column=cell.get("size_column") or None,
+                model=_check_model(cell.get("model") or "auto"),
+                description=cell.get("description", ""),
+            )
+            if c.chart != "auto":
+                _check_chart_fits(c, c.chart)
+            crit_cells = {k: cell.get(k, "") for k in ("criterion", "threshold", "basis",
+                                                       "confidence")}
+            if any(crit_cells.values()):
+                kw = {}
+                if crit_cells["criterion"]:
+                    kw["index"] = crit_cells["criterion"]
+                if crit_cells["threshold"]:
+                    kw["threshold"] = crit_cells["threshold"]
+                if crit_cells["basis"]:
+                    kw["basis"] = crit_cells["basis"]
+                if crit_cells["confidence"]:
+                    kw["confidence"] = crit_cells["confidence"]
+                crit = Criteria(**kw)
+                _check_criteria_fits(c, crit)
+                criteria[c.name] = crit
+        except SpecError as exc:
+            raise SpecError(exc.detail, file=filename, row=r) from None
+        chars.append(c)
+    return tuple(chars), criteria
+
+
+def read_specs(path) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+    """Read a specifications table from a CSV file; see :func:`read_specs_bytes`."""
+    from pathlib import Path
+
+    p = Path(path)
+    if not p.is_file():
+        raise SpecError("the specifications file does not exist: check the path", file=str(path))
+    return read_specs_bytes(p.read_bytes(), p.name)
+
+
+def match_to_data(characteristics: Iterable[Characteristic], criteria: Mapping[str, Criteria],
+                  measurements) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+    """Check that every specified characteristic is in the data; adopt the data's names/units.
+
+    ``measurements`` is a :class:`studykit.data.Measurements` (anything with ``names`` and
+    ``get(name)`` returning an object with ``name`` and ``unit``). A spec without a unit takes
+    the data's unit; two different units are an error.
+
+    Returns
+    -------
+    (characteristics, criteria)
+        Renamed to the data's spelling of each name.
+    """
+    out, crit_out = [], {}
+    for c in characteristics:
+        try:
+            found = measurements.get(c.name)
+        except StudyInputError:
+            raise SpecError(
+                f"the specifications name '{c.name}', which is not in the data (the data have: "
+                f"{', '.join(repr(n) for n in measurements.names)}): correct the name",
+                column="characteristic", value=c.name,
+            ) from None
+        unit = c.unit
+        if unit and found.unit and unit.strip().casefold() != found.unit.strip().casefold():
+            raise SpecError(
+                f"characteristic '{c.name}': the specifications give unit '{unit}' but the data "
+                f"say '{found.unit}': convert one of them so both agree", column="unit",
+            )
+        new = dataclasses.replace(c, name=found.name, unit=unit or found.unit)
+        if c.size_column is not None and c.size_column not in measurements.names:
+            raise SpecError(
+                f"characteristic '{c.name}': the size column '{c.size_column}' is not in the "
+                f"data (the data have: {', '.join(repr(n) for n in measurements.names)}): "
+                "correct the name", column="size_column", value=c.size_column,
+            )
+        _check_chart_against_counts(new, found)
+        out.append(new)
+        if c.name in criteria:
+            crit_out[found.name] = criteria[c.name]
+    return tuple(out), crit_out
