@@ -12,6 +12,7 @@ second opinion (it ignores the interaction and uses ranges).
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -110,6 +111,12 @@ class AnovaRow:
             "p": _f(self.p),
         }
 
+    @classmethod
+    def from_dict(cls, d: Mapping) -> AnovaRow:
+        """Rebuild the row from :meth:`to_dict` (a stored result is never recomputed)."""
+        return cls(source=d["source"], df=int(d["df"]), ss=_nan(d["ss"]), ms=d["ms"], f=d["f"],
+                   p=d["p"])
+
 
 @dataclass(frozen=True)
 class VarianceComponent:
@@ -149,6 +156,16 @@ class VarianceComponent:
             "set_to_zero": bool(self.set_to_zero),
         }
 
+    @classmethod
+    def from_dict(cls, d: Mapping) -> VarianceComponent:
+        """Rebuild the component from :meth:`to_dict`."""
+        return cls(name=d["name"], variance=_nan(d["variance"]), sigma=_nan(d["sigma"]),
+                   study_variation=_nan(d["study_variation"]),
+                   pct_contribution=d["pct_contribution"],
+                   pct_study_variation=d["pct_study_variation"], pct_tolerance=d["pct_tolerance"],
+                   lower=d["sigma_lower"], upper=d["sigma_upper"], interval_df=d["interval_df"],
+                   interval_method=d["interval_method"], set_to_zero=bool(d["set_to_zero"]))
+
 
 @dataclass(frozen=True)
 class RangeMethodEstimate:
@@ -184,6 +201,16 @@ class RangeMethodEstimate:
         out["reproducibility_set_to_zero"] = bool(self.reproducibility_set_to_zero)
         return out
 
+    @classmethod
+    def from_dict(cls, d: Mapping) -> RangeMethodEstimate:
+        """Rebuild the estimate from :meth:`to_dict`."""
+        floats = {k: _nan(d[k]) for k in (
+            "repeatability", "reproducibility", "gauge_rr", "part", "total", "k1", "k2", "k3",
+            "mean_range", "appraiser_mean_range", "part_mean_range")}
+        return cls(**floats, pct_study_variation=d["pct_study_variation"],
+                   pct_tolerance=d["pct_tolerance"], ndc=d["ndc"],
+                   reproducibility_set_to_zero=bool(d["reproducibility_set_to_zero"]))
+
 
 @dataclass(frozen=True)
 class GaugeChartLimits:
@@ -211,6 +238,14 @@ class GaugeChartLimits:
             "pct_means_outside")}
         out["ranges_above_ucl"] = [list(c) for c in self.ranges_above_ucl]
         return out
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> GaugeChartLimits:
+        """Rebuild the limits from :meth:`to_dict`."""
+        floats = {k: _nan(d[k]) for k in (
+            "range_centre", "range_ucl", "range_lcl", "mean_centre", "mean_ucl", "mean_lcl",
+            "pct_means_outside")}
+        return cls(**floats, ranges_above_ucl=tuple(tuple(c) for c in d["ranges_above_ucl"]))
 
 
 @dataclass(frozen=True)
@@ -245,6 +280,13 @@ class GaugeVerdict:
             "message": self.message,
             "advice": self.advice,
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> GaugeVerdict:
+        """Rebuild the verdict from :meth:`to_dict`."""
+        return cls(**{k: d[k] for k in (
+            "status", "basis", "pct_grr_study_variation", "pct_grr_tolerance", "ndc", "ndc_ok",
+            "dominant", "message", "advice")})
 
 
 @dataclass(frozen=True)
@@ -318,6 +360,47 @@ class GaugeResult:
             "charts": self.charts.to_dict(),
             "notes": list(self.notes),
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> GaugeResult:
+        """Rebuild a stored result from :meth:`to_dict`, without computing anything again.
+
+        Numbers that were not finite are stored as null and come back as NaN where the field is
+        a plain float. Raises ``KeyError``/``TypeError``/``ValueError`` on a payload that is not
+        a gauge R&R result (e.g. one written before the readings were stored).
+
+        Examples
+        --------
+        >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+        ...                ["A", "A", "B", "B"] * 2)
+        >>> again = GaugeResult.from_dict(res.to_dict())
+        >>> again.to_dict() == res.to_dict()
+        True
+        """
+        values = np.array([[[np.nan if v is None else float(v) for v in cell] for cell in row]
+                           for row in d["values"]], dtype=float)
+        return cls(
+            n_parts=int(d["n_parts"]), n_appraisers=int(d["n_appraisers"]),
+            n_trials=int(d["n_trials"]), n_values=int(d["n_values"]),
+            part_labels=tuple(d["part_labels"]), appraiser_labels=tuple(d["appraiser_labels"]),
+            values=values,
+            anova_full=tuple(AnovaRow.from_dict(r) for r in d["anova_full"]),
+            anova_used=tuple(AnovaRow.from_dict(r) for r in d["anova_used"]),
+            interaction_p=d["interaction_p"], interaction_pooled=bool(d["interaction_pooled"]),
+            alpha_interaction=d["alpha_interaction"],
+            components=tuple(VarianceComponent.from_dict(c) for c in d["components"]),
+            ndc=d["ndc"], ndc_ratio=d["ndc_ratio"], study_variation=d["study_variation"],
+            lsl=d["lsl"], usl=d["usl"], tolerance=d["tolerance"], confidence=d["confidence"],
+            range_method=RangeMethodEstimate.from_dict(d["range_method"]),
+            verdict=GaugeVerdict.from_dict(d["verdict"]),
+            charts=GaugeChartLimits.from_dict(d["charts"]), notes=tuple(d["notes"]),
+            method=d.get("method", cls.method),
+        )
+
+
+def _nan(x) -> float:
+    """Back from JSON: null (a non-finite number on the way out) becomes NaN."""
+    return math.nan if x is None else float(x)
 
 
 def _f(x) -> float | None:

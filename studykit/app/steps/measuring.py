@@ -114,11 +114,11 @@ _UPLOAD_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx", ".xlsm")
 
 
 def gauge_result_from_payload(payload: Mapping):
-    """Recompute the :class:`~studykit.stats.gauge.GaugeResult` from a stored payload.
+    """Rebuild the stored :class:`~studykit.stats.gauge.GaugeResult` from its payload.
 
-    The payload (``GaugeResult.to_dict()``) keeps the readings as a parts x appraisers x
-    trials cube with the labels and the options; the figures need the result object, so the
-    study is computed again from exactly those values (same as the PDF report does).
+    The payload (``GaugeResult.to_dict()``) keeps every number of the study and its readings
+    (a parts x appraisers x trials cube); the figures need the result object, which is rebuilt
+    by :meth:`~studykit.stats.gauge.GaugeResult.from_dict`: nothing is computed again.
 
     Raises
     ------
@@ -134,40 +134,15 @@ def gauge_result_from_payload(payload: Mapping):
     >>> again.pct_grr == res.pct_grr, again.n_values
     (True, 8)
     """
-    import numpy as np
-
-    from studykit.stats.gauge import gauge_rr
+    from studykit.stats.gauge import GaugeResult
 
     try:
-        cube = payload["values"]
-        # whole-number labels compare as numbers (part 10 after part 9), as when first read
-        parts = [_natural(x) for x in payload["part_labels"]]
-        apprs = [_natural(x) for x in payload["appraiser_labels"]]
-        vals, pl, al, tl = [], [], [], []
-        for i, row in enumerate(cube):
-            for j, cell in enumerate(row):
-                for k, v in enumerate(cell):
-                    vals.append(np.nan if v is None else float(v))
-                    pl.append(parts[i])
-                    al.append(apprs[j])
-                    tl.append(k + 1)
+        return GaugeResult.from_dict(payload)
     except (KeyError, TypeError, IndexError, ValueError) as exc:
         raise StudyInputError(
             f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
             "numbers are shown, but the figures need the readings: run the study again from "
             "its data file to attach a complete result") from None
-    return gauge_rr(vals, pl, al, trials=tl,
-                    alpha_interaction=payload.get("alpha_interaction", 0.25),
-                    study_variation=payload.get("study_variation", 6.0),
-                    lsl=payload.get("lsl"), usl=payload.get("usl"),
-                    confidence=payload.get("confidence", 0.95))
-
-
-def _natural(label):
-    """'7' -> 7 (numbers sort as numbers); anything else unchanged."""
-    if isinstance(label, str) and label.strip().lstrip("-").isdigit():
-        return int(label)
-    return label
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
