@@ -217,7 +217,7 @@ def guess_columns(headers) -> dict:
 def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
                       appraiser: str | None = None, value: str | None = None,
                       trial: str | None = None) -> dict:
-    """Read an uploaded long gauge table (bytes) with :func:`studykit.cli.gauge.read_gauge_table`.
+    """Read an uploaded long gauge table (bytes) with :func:`studykit.io.gauge_table.read_gauge_table`.
 
     Without ``part``/``appraiser``/``value`` only the headers are read:
     ``{"headers": [...]}``. With them: ``{"headers", "values", "parts", "appraisers",
@@ -248,7 +248,7 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
             headers = _headers(path)
             if part is None or appraiser is None or value is None:
                 return {"headers": headers}
-            from studykit.cli.gauge import read_gauge_table
+            from studykit.io.gauge_table import read_gauge_table
 
             table = read_gauge_table(path, part=part, appraiser=appraiser, value=value,
                                      trial=trial or None)
@@ -566,13 +566,13 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings",
                             file=name)
-    from studykit.cli.gauge import _read_frame, read_reference_readings
+    from studykit.io.gauge_table import read_frame, read_reference_readings
 
     with tempfile.TemporaryDirectory(prefix="studykit-short-") as tmp:
         path = Path(tmp) / ("upload" + suffix)
         path.write_bytes(bytes(data))
         try:
-            frame, _ = _read_frame(path, sheet=None, wanted={})
+            frame, _ = read_frame(path, sheet=None, wanted={})
             headers = [str(c) for c in frame.columns]
             if value is None:
                 return {"headers": headers}
