@@ -1723,7 +1723,8 @@ def _kept(study, name) -> dict:
             for key, d in kept_signals(name).items()}
 
 
-def _exclusions(study, name) -> dict:
+def recorded_exclusions(study, name) -> dict:
+    """Subgroup label -> (reason, who) of the removals recorded in ``study`` for ``name``."""
     return {
         label: (d.reason, d.who or ("auto" if d.automatic else "user"))
         for label, d in study.excluded_subgroups(name).items()
@@ -1800,7 +1801,7 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
         spec,
         criteria=study.criteria_for(name),
         sizes=sizes,
-        exclusions=_exclusions(study, name),
+        exclusions=recorded_exclusions(study, name),
         options=options,
         gauge=gauge,
         kept=_kept(study, name),

@@ -5,6 +5,12 @@ from __future__ import annotations
 import json
 import sys
 
+from studykit.cli.args import (
+    analysis_options,
+    criteria_from_args,
+    read_file_measurements,
+    spec_from_args,
+)
 from studykit.errors import StudyInputError
 
 
@@ -79,72 +85,6 @@ def register(sub) -> None:
     p.set_defaults(func=run)
 
 
-def _options(args):
-    from studykit.analysis import AnalysisOptions
-
-    return AnalysisOptions(
-        chart=args.chart,
-        subgroup_size=args.subgroup_size,
-        phase1=args.phase1 or ("off" if getattr(args, "study", None) else "auto"),
-        rules=args.rules,
-        model=args.model,
-        confidence=args.confidence,
-        **({"max_auto_removed_share": args.max_auto_removal}
-           if getattr(args, "max_auto_removal", None) is not None else {}),
-        **({"min_kept_values": args.min_kept} if getattr(args, "min_kept", None) is not None
-           else {}),
-        sigma_method=getattr(args, "sigma_method", None),
-        transform_indices=getattr(args, "transform_indices", None) or "transformed",
-        mr_removal=getattr(args, "mr_removal", None) or "later",
-    )
-
-
-def _criteria(args, base=None):
-    from studykit.study import Criteria
-
-    if args.index is None and args.threshold is None and args.basis is None:
-        return base
-    base = base or Criteria()
-    return Criteria(
-        index=args.index or base.index,
-        threshold=args.threshold if args.threshold is not None else base.threshold,
-        basis=args.basis or base.basis,
-        confidence=args.confidence if args.confidence is not None else base.confidence,
-    )
-
-
-def _spec(args, name, unit, base=None):
-    from studykit.study import Characteristic
-
-    if args.chart in ("p", "np", "c", "u") and (
-        args.lsl is not None or args.usl is not None or args.target is not None
-    ):
-        raise StudyInputError(
-            f"--lsl/--usl/--target do not apply to a {args.chart} chart: counted data are "
-            "judged by their defective rate or defects per unit; leave the limits out"
-        )
-
-    if base is not None and args.lsl is None and args.usl is None and args.target is None:
-        return base
-    if args.lsl is None and args.usl is None and args.chart not in ("p", "np", "c", "u"):
-        if base is not None:
-            return base
-        return None
-    lsl = args.lsl if args.lsl is not None else (base.lsl if base is not None else None)
-    usl = args.usl if args.usl is not None else (base.usl if base is not None else None)
-    target = args.target if args.target is not None else (base.target if base else None)
-    return Characteristic(
-        name,
-        unit=unit,
-        lsl=lsl,
-        usl=usl,
-        target=target,
-        chart=(args.chart or "auto").replace("-", "_"),
-        safety_critical=bool(base.safety_critical) if base is not None else False,
-        size_column=args.size_column,
-    )
-
-
 def run(args) -> int:
     if args.all:
         from studykit.cli.batch import run_batch
@@ -163,9 +103,14 @@ def run(args) -> int:
 
 def analyze_from_args(args, name):
     """One characteristic from a FILE or a --study, with the command-line overrides."""
-    from studykit.analysis import analyze_characteristic, analyze_study, read_study_measurements
+    from studykit.analysis import (
+        analyze_characteristic,
+        analyze_study,
+        read_study_measurements,
+        recorded_exclusions,
+    )
 
-    options = _options(args)
+    options = analysis_options(args)
     if args.study:
         from studykit.analysis import NO_GAUGE, gauge_results
         from studykit.store import StudyFile
@@ -180,8 +125,8 @@ def analyze_from_args(args, name):
                 + ")"
             )
         base = study.characteristic(name)
-        spec = _spec(args, name, base.unit, base)
-        if spec is not base or _criteria(args) is not None:
+        spec = spec_from_args(args, name, base.unit, base)
+        if spec is not base or criteria_from_args(args) is not None:
             measurements = read_study_measurements(study)
             from dataclasses import replace
 
@@ -189,27 +134,16 @@ def analyze_from_args(args, name):
                 args.size_column = base.size_column
             data = measurements.get(name)
             sizes = measurements.get(args.size_column) if args.size_column else None
-            from studykit.analysis import _exclusions
-
             options = replace(options, chart=options.chart or study.chart_for(name),
                               model=options.model or study.model_for(name))
             return analyze_characteristic(
-                data, spec, criteria=_criteria(args, study.criteria_for(name)), sizes=sizes,
-                exclusions=_exclusions(study, name), options=options, gauge=gauge,
+                data, spec, criteria=criteria_from_args(args, study.criteria_for(name)), sizes=sizes,
+                exclusions=recorded_exclusions(study, name), options=options, gauge=gauge,
             )
         return analyze_study(study, name, options=options, gauge=gauge)
     if not args.file:
         raise StudyInputError("give a measurement FILE or --study STUDYFILE")
-    from studykit.data import read_measurements
-
-    read_kw = {}
-    if args.subgroup_column:
-        read_kw["subgroup_column"] = args.subgroup_column
-    if args.subgroup_size:
-        read_kw["subgroup_size"] = args.subgroup_size
-    if args.sheet:
-        read_kw["sheet"] = args.sheet
-    m = read_measurements(args.file, **read_kw)
+    m = read_file_measurements(args)
     data = m.get(name)
     sizes = None
     if args.size_column:
@@ -219,9 +153,9 @@ def analyze_from_args(args, name):
                 + ", ".join(m.names) + ")", file=args.file,
             )
         sizes = m.get(args.size_column)
-    spec = _spec(args, name, data.unit)
+    spec = spec_from_args(args, name, data.unit)
     return analyze_characteristic(
-        data, spec, criteria=_criteria(args), sizes=sizes, options=options
+        data, spec, criteria=criteria_from_args(args), sizes=sizes, options=options
     )
 
 

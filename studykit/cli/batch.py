@@ -12,6 +12,12 @@ from __future__ import annotations
 
 import sys
 
+from studykit.cli.args import (
+    analysis_options,
+    criteria_from_args,
+    read_file_measurements,
+    spec_from_args,
+)
 from studykit.errors import StudyInputError
 
 
@@ -43,10 +49,8 @@ class ProgressBar:
 
 def _inputs(args):
     """(measurements, specs dict, criteria dict, exclusions dict) from the arguments."""
-    from studykit.cli.analyze import _criteria, _spec
-
     if args.study:
-        from studykit.analysis import _exclusions, read_study_measurements
+        from studykit.analysis import read_study_measurements, recorded_exclusions
         from studykit.store import StudyFile
 
         study = StudyFile(args.study).load()
@@ -56,23 +60,16 @@ def _inputs(args):
 
         for name in study.characteristic_names:
             base = study.characteristic(name)
-            spec = _spec(args, name, base.unit, base)
+            spec = spec_from_args(args, name, base.unit, base)
             specs[name] = replace(spec, chart=args.chart.replace("-", "_") if args.chart
                                   else study.chart_for(name),
                                   model=args.model or study.model_for(name))
-            criteria[name] = _criteria(args, study.criteria_for(name))
-            exclusions[name] = _exclusions(study, name)
+            criteria[name] = criteria_from_args(args, study.criteria_for(name))
+            exclusions[name] = recorded_exclusions(study, name)
         return measurements, specs, criteria, exclusions
     if not args.file:
         raise StudyInputError("give a measurement FILE or --study STUDYFILE")
-    from studykit.data import read_measurements
-
-    read_kw = {}
-    if args.subgroup_column:
-        read_kw["subgroup_column"] = args.subgroup_column
-    if args.sheet:
-        read_kw["sheet"] = args.sheet
-    measurements = read_measurements(args.file, **read_kw)
+    measurements = read_file_measurements(args)
     specs, criteria = {}, {}
     if args.specs:
         from studykit.study import read_specs
@@ -88,11 +85,11 @@ def _inputs(args):
             continue
         if any(name.casefold() == k.casefold() for k in specs):
             continue
-        spec = _spec(args, name, measurements.get(name).unit)
+        spec = spec_from_args(args, name, measurements.get(name).unit)
         if spec is not None:
             specs[name] = spec
     if args.index is not None or args.threshold is not None or args.basis is not None:
-        criteria = {name: _criteria(args, criteria.get(name)) for name in specs}
+        criteria = {name: criteria_from_args(args, criteria.get(name)) for name in specs}
     return measurements, specs, criteria, {}
 
 
@@ -141,7 +138,6 @@ def _num(v) -> str:
 def run_batch(args) -> int:
     """``studykit analyze ... --all``; exit status 0 when the batch ran (error rows included)."""
     from studykit.batch import run_many
-    from studykit.cli.analyze import _options
 
     if args.characteristic:
         raise StudyInputError("give either --characteristic NAME or --all, not both")
@@ -149,7 +145,7 @@ def run_batch(args) -> int:
     bar = ProgressBar()
     try:
         result = run_many(
-            measurements, specs, criteria, options=_options(args), jobs=args.jobs,
+            measurements, specs, criteria, options=analysis_options(args), jobs=args.jobs,
             progress=bar, scheduler=args.scheduler, exclusions=exclusions,
         )
     finally:

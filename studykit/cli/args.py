@@ -1,0 +1,103 @@
+"""Command-line arguments shared by the commands that analyse measurements.
+
+``studykit analyze`` (one characteristic) and ``studykit analyze --all`` (:mod:`studykit.cli.batch`)
+read the measurement file, build the specification, the acceptance criterion and the analysis
+options from the same arguments here, so the two cannot drift apart.
+"""
+
+from __future__ import annotations
+
+from studykit.errors import StudyInputError
+
+__all__ = [
+    "analysis_options",
+    "criteria_from_args",
+    "read_file_measurements",
+    "spec_from_args",
+]
+
+
+def read_file_measurements(args):
+    """The measurements of the data FILE with ``--sheet``, ``--subgroup-column`` and
+    ``--subgroup-size`` applied (each only when given)."""
+    from studykit.data import read_measurements
+
+    read_kw = {}
+    if getattr(args, "subgroup_column", None):
+        read_kw["subgroup_column"] = args.subgroup_column
+    if getattr(args, "subgroup_size", None):
+        read_kw["subgroup_size"] = args.subgroup_size
+    if getattr(args, "sheet", None):
+        read_kw["sheet"] = args.sheet
+    return read_measurements(args.file, **read_kw)
+
+
+def analysis_options(args):
+    """The :class:`~studykit.analysis.AnalysisOptions` of the command-line options."""
+    from studykit.analysis import AnalysisOptions
+
+    return AnalysisOptions(
+        chart=args.chart,
+        subgroup_size=args.subgroup_size,
+        phase1=args.phase1 or ("off" if getattr(args, "study", None) else "auto"),
+        rules=args.rules,
+        model=args.model,
+        confidence=args.confidence,
+        **({"max_auto_removed_share": args.max_auto_removal}
+           if getattr(args, "max_auto_removal", None) is not None else {}),
+        **({"min_kept_values": args.min_kept} if getattr(args, "min_kept", None) is not None
+           else {}),
+        sigma_method=getattr(args, "sigma_method", None),
+        transform_indices=getattr(args, "transform_indices", None) or "transformed",
+        mr_removal=getattr(args, "mr_removal", None) or "later",
+    )
+
+
+def criteria_from_args(args, base=None):
+    """``base`` (a :class:`~studykit.study.Criteria` or None) with ``--index/--threshold/--basis``
+    (and ``--confidence``) applied; ``base`` itself when none of them is given."""
+    from studykit.study import Criteria
+
+    if args.index is None and args.threshold is None and args.basis is None:
+        return base
+    base = base or Criteria()
+    return Criteria(
+        index=args.index or base.index,
+        threshold=args.threshold if args.threshold is not None else base.threshold,
+        basis=args.basis or base.basis,
+        confidence=args.confidence if args.confidence is not None else base.confidence,
+    )
+
+
+def spec_from_args(args, name, unit, base=None):
+    """The :class:`~studykit.study.Characteristic` of ``name`` from ``--lsl/--usl/--target``
+    (and ``--chart``, ``--size-column``) over ``base``; None when there is no specification."""
+    from studykit.study import Characteristic
+
+    if args.chart in ("p", "np", "c", "u") and (
+        args.lsl is not None or args.usl is not None or args.target is not None
+    ):
+        raise StudyInputError(
+            f"--lsl/--usl/--target do not apply to a {args.chart} chart: counted data are "
+            "judged by their defective rate or defects per unit; leave the limits out"
+        )
+
+    if base is not None and args.lsl is None and args.usl is None and args.target is None:
+        return base
+    if args.lsl is None and args.usl is None and args.chart not in ("p", "np", "c", "u"):
+        if base is not None:
+            return base
+        return None
+    lsl = args.lsl if args.lsl is not None else (base.lsl if base is not None else None)
+    usl = args.usl if args.usl is not None else (base.usl if base is not None else None)
+    target = args.target if args.target is not None else (base.target if base else None)
+    return Characteristic(
+        name,
+        unit=unit,
+        lsl=lsl,
+        usl=usl,
+        target=target,
+        chart=(args.chart or "auto").replace("-", "_"),
+        safety_critical=bool(base.safety_critical) if base is not None else False,
+        size_column=args.size_column,
+    )
