@@ -16,10 +16,9 @@ from studykit.errors import SpecError, StudyInputError
 from studykit.study import (
     Characteristic,
     Criteria,
-    _check_chart_against_counts,
-    _check_chart_fits,
-    _check_criteria_fits,
-    _check_model,
+    check_chart_fits,
+    check_criteria_fits,
+    check_model,
 )
 
 __all__ = ["SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
@@ -120,11 +119,11 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
                 target=cell.get("target"), safety_critical=flag in _TRUE,
                 chart=cell.get("chart") or "auto", subgroup_size=size_value,
                 size_column=cell.get("size_column") or None,
-                model=_check_model(cell.get("model") or "auto"),
+                model=check_model(cell.get("model") or "auto"),
                 description=cell.get("description", ""),
             )
             if c.chart != "auto":
-                _check_chart_fits(c, c.chart)
+                check_chart_fits(c, c.chart)
             crit_cells = {k: cell.get(k, "") for k in ("criterion", "threshold", "basis",
                                                        "confidence")}
             if any(crit_cells.values()):
@@ -138,7 +137,7 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
                 if crit_cells["confidence"]:
                     kw["confidence"] = crit_cells["confidence"]
                 crit = Criteria(**kw)
-                _check_criteria_fits(c, crit)
+                check_criteria_fits(c, crit)
                 criteria[c.name] = crit
         except SpecError as exc:
             raise SpecError(exc.detail, file=filename, row=r) from None
@@ -197,3 +196,25 @@ def match_to_data(characteristics: Iterable[Characteristic], criteria: Mapping[s
         if c.name in criteria:
             crit_out[found.name] = criteria[c.name]
     return tuple(out), crit_out
+
+
+def _check_chart_against_counts(c: Characteristic, found) -> None:
+    """Refuse an individuals chart for subgrouped data and an X-bar chart for individuals
+    (``found`` is the data of ``c``, with ``subgroup_counts``); a subgroup size in the spec
+    makes subgroups of individual values."""
+    counts = getattr(found, "subgroup_counts", None)
+    if c.chart not in ("imr", "xbar_r", "xbar_s") or counts is None or not len(counts):
+        return
+    largest = int(max(counts))
+    if c.chart == "imr" and largest > 1:
+        raise SpecError(
+            f"characteristic '{c.name}': the data have subgroups of up to {largest} values; the "
+            "individuals chart (imr) needs one value per subgroup. Use auto, xbar_r or xbar_s",
+            column="chart", value=c.chart,
+        )
+    if c.chart in ("xbar_r", "xbar_s") and largest == 1 and not (c.subgroup_size or 1) > 1:
+        raise SpecError(
+            f"characteristic '{c.name}': the data hold one value per subgroup; the {c.chart} "
+            "chart needs subgroups of 2 or more. Use auto or imr, or give a subgroup_size",
+            column="chart", value=c.chart,
+        )

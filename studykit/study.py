@@ -165,7 +165,7 @@ def known_models() -> tuple[str, ...]:
     return tuple(names)
 
 
-def _check_model(model, *, error=SpecError) -> str:
+def check_model(model, *, error=SpecError) -> str:
     """A model name the analysis knows (lower case), else a clear error listing them."""
     text = _text(model, name="model", error=error).strip().lower() or "auto"
     known = known_models()
@@ -835,7 +835,7 @@ class Study:
                     f"criteria given for '{name}', which is not a characteristic of this study "
                     f"(known: {', '.join(chars) or 'none'})"
                 )
-            _check_criteria_fits(chars[name], c)
+            check_criteria_fits(chars[name], c)
         set_(self, "criteria", crit)
         for kind, seq, cls in (
             ("decisions", self.decisions, Decision),
@@ -1118,9 +1118,9 @@ class Study:
         if decision.characteristic is not None:
             self.characteristic(decision.characteristic)
         if decision.action == "set_model":
-            _check_model(decision.payload.get("model", ""), error=StudyInputError)
+            check_model(decision.payload.get("model", ""), error=StudyInputError)
         if decision.action == "set_chart":
-            _check_chart_fits(self.characteristics[decision.characteristic],
+            check_chart_fits(self.characteristics[decision.characteristic],
                               str(decision.payload.get("chart", "")).strip().lower())
         study = self
         if decision.action not in DIGEST_NEUTRAL_ACTIONS:
@@ -1181,7 +1181,7 @@ class Study:
         if not changes:
             raise SpecError("with_spec needs at least one field to change, e.g. usl=12.03")
         if "model" in changes:
-            changes = {**changes, "model": _check_model(changes["model"])}
+            changes = {**changes, "model": check_model(changes["model"])}
         new = dataclasses.replace(old, **changes)  # validates
         fields = {k: getattr(new, k) for k in changes}
         d = Decision(name, "set_spec", reason=reason, who=who, when=when,
@@ -1293,11 +1293,11 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
                             f"{sorted(known)}")
         new = dataclasses.replace(old, **new_fields)
         if new.name in crit:
-            _check_criteria_fits(new, crit[new.name])
+            check_criteria_fits(new, crit[new.name])
         chars[new.name] = new
     elif d.action == "set_criteria":
         new_crit = Criteria.from_dict(d.payload.get("criteria", {}))
-        _check_criteria_fits(chars[d.characteristic], new_crit)
+        check_criteria_fits(chars[d.characteristic], new_crit)
         crit[d.characteristic] = new_crit
     elif d.action == "set_model":
         if not str(d.payload.get("model", "")).strip():
@@ -1360,7 +1360,7 @@ def _check_signoff_setting(d: Decision) -> None:
                                   "false, 'reason': ...}")
 
 
-def _check_chart_fits(c: Characteristic, chart: str) -> None:
+def check_chart_fits(c: Characteristic, chart: str) -> None:
     """Refuse a chart the characteristic's kind of data cannot use (checked when set, so that
     no later analysis fails on it)."""
     if chart not in CHARTS:
@@ -1384,29 +1384,9 @@ def _check_chart_fits(c: Characteristic, chart: str) -> None:
         )
 
 
-def _check_chart_against_counts(c: Characteristic, found) -> None:
-    """Refuse an individuals chart for subgrouped data and an X-bar chart for individuals
-    (``found`` is the data of ``c``, with ``subgroup_counts``); a subgroup size in the spec
-    makes subgroups of individual values."""
-    counts = getattr(found, "subgroup_counts", None)
-    if c.chart not in ("imr", "xbar_r", "xbar_s") or counts is None or not len(counts):
-        return
-    largest = int(max(counts))
-    if c.chart == "imr" and largest > 1:
-        raise SpecError(
-            f"characteristic '{c.name}': the data have subgroups of up to {largest} values; the "
-            "individuals chart (imr) needs one value per subgroup. Use auto, xbar_r or xbar_s",
-            column="chart", value=c.chart,
-        )
-    if c.chart in ("xbar_r", "xbar_s") and largest == 1 and not (c.subgroup_size or 1) > 1:
-        raise SpecError(
-            f"characteristic '{c.name}': the data hold one value per subgroup; the {c.chart} "
-            "chart needs subgroups of 2 or more. Use auto or imr, or give a subgroup_size",
-            column="chart", value=c.chart,
-        )
-
-
-def _check_criteria_fits(c: Characteristic, crit: Criteria) -> None:
+def check_criteria_fits(c: Characteristic, crit: Criteria) -> None:
+    """Refuse a criterion the characteristic cannot be judged on (Cp/Pp need both limits, Cpm a
+    target)."""
     if crit.index in ("cp", "pp") and not c.two_sided:
         raise SpecError(
             f"characteristic '{c.name}': criterion `index` '{crit.index}' needs both limits "

@@ -10,36 +10,36 @@ import numpy as np
 
 from studykit.errors import DataFileError
 from studykit.io.cells import (
-    _check_text_column,
-    _col_letter,
-    _filled,
-    _fmt_rows,
-    _labels,
-    _looks_numeric,
-    _numeric,
-    _plain_numbers,
-    _row_word,
-    _show,
-    _time_header_hint,
-    _times_chunk,
-    _times_text,
+    check_text_column,
+    col_letter,
+    filled_mask,
+    fmt_rows,
+    label_array,
+    looks_numeric,
+    numeric,
     parse_header,
+    plain_numbers,
+    row_word,
+    show,
+    time_header_hint,
+    times_chunk,
+    times_text,
 )
-from studykit.io.source import _Fallback
+from studykit.io.source import Fallback
 from studykit.io.values import LARGE_SUBGROUP, CharacteristicData
 
 
 def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
-    filled = _filled(cells, text_cells)
+    filled = filled_mask(cells, text_cells)
     if filled.any():
         i = int(np.flatnonzero(filled)[0])
-        letter = _col_letter(j)
+        letter = col_letter(j)
         if j >= len(header):
-            why = (f"this row has a value ('{_show(cells[i])}') in column {letter}, beyond the "
+            why = (f"this row has a value ('{show(cells[i])}') in column {letter}, beyond the "
                    f"{len(header)} named columns. Give the column a name in the header "
                    f"(row {hrow}) or delete the value; check for an extra separator.")
         else:
-            why = (f"column {letter} has values (here '{_show(cells[i])}') but no name in the "
+            why = (f"column {letter} has values (here '{show(cells[i])}') but no name in the "
                    f"header (row {hrow}). Write a name into the header cell.")
         raise DataFileError(why, file=src.name, row=int(rows[i]), column=letter, value=cells[i])
 
@@ -99,14 +99,14 @@ class _TimeAcc:
 
     def add(self, cells: np.ndarray) -> None:
         if not self.as_text:
-            parsed, fmt = _times_chunk(cells, self.fmt)
+            parsed, fmt = times_chunk(cells, self.fmt)
             if parsed is not None:
                 self.fmt = fmt or self.fmt
                 self.parts.append(parsed)
                 return
             self.as_text = True
-            self.parts = [_times_text(p) for p in self.parts]
-        self.parts.append(_times_text(cells))
+            self.parts = [times_text(p) for p in self.parts]
+        self.parts.append(times_text(cells))
 
     def result(self, notes: list) -> np.ndarray:
         if self.as_text:
@@ -123,7 +123,7 @@ def _with_fast_path(table, float_cols, collect):
     if table.fast_chunks is not None and float_cols:
         try:
             return collect(table.fast_chunks(float_cols))
-        except (_Fallback, DataFileError):
+        except (Fallback, DataFileError):
             pass  # the cell-by-cell reader below finds the cell and says what is wrong
     return collect(table.open_chunks())
 
@@ -145,7 +145,7 @@ def _classify(table, ctx, role, notes) -> dict:
         elif j >= len(cols):
             kinds[j] = "value"
         else:
-            n_filled, n_num = _looks_numeric(ctx, cols[j])
+            n_filled, n_num = looks_numeric(ctx, cols[j])
             kinds[j] = "value" if n_num * 2 >= n_filled else "text"
     text_cols = [header[j] for j, k in kinds.items() if k == "text"]
     if text_cols:
@@ -156,7 +156,7 @@ def _classify(table, ctx, role, notes) -> dict:
     return kinds
 
 
-def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
+def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
     header = table.header
     kinds = _classify(table, ctx, role, notes)
     float_cols = {j for j, k in kinds.items() if k == "value"}
@@ -175,19 +175,19 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
                                    table.text_cells)
                     continue
                 if k == "value":
-                    vals, empty = _numeric(ctx, cells, rows, header[j])
+                    vals, empty = numeric(ctx, cells, rows, header[j])
                     value_acc[j].add(vals)
                     row_filled |= ~empty
                 else:
-                    row_filled |= _filled(cells, table.text_cells)
+                    row_filled |= filled_mask(cells, table.text_cells)
                     if k == "text":
-                        _check_text_column(src.name, cells, rows, header[j])
+                        check_text_column(src.name, cells, rows, header[j])
                     elif k == "subgroup":
-                        sg_acc.add(_labels(cells, table.text_cells))
+                        sg_acc.add(label_array(cells, table.text_cells))
                     elif k == "time":
                         t_acc.add(cells)
                     elif k == "note":
-                        n_acc.add(_labels(cells, table.text_cells))
+                        n_acc.add(label_array(cells, table.text_cells))
             rows_acc.add(rows)
             filled_acc.add(row_filled)
         return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
@@ -215,12 +215,12 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
     if interior_empty.size:
         if sg is not None:
             keep[interior_empty] = False
-            notes.append(f"empty {_row_word(interior_empty.size)} skipped: "
-                         f"{_fmt_rows(rows[interior_empty])}")
+            notes.append(f"empty {row_word(interior_empty.size)} skipped: "
+                         f"{fmt_rows(rows[interior_empty])}")
         else:
             notes.append(
                 "empty rows kept as missing values (they may be parts that were not measured): "
-                + _fmt_rows(rows[interior_empty])
+                + fmt_rows(rows[interior_empty])
             )
     all_kept = bool(keep.all())
 
@@ -235,7 +235,7 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
             i = int(no_label[0])
             raise DataFileError(
                 f"this row has values but no subgroup label. Every row needs its subgroup in "
-                f"column '{header[sg_idx]}' (rows without a label: {_fmt_rows(rows[no_label])}). "
+                f"column '{header[sg_idx]}' (rows without a label: {fmt_rows(rows[no_label])}). "
                 "Fill in the labels, or leave out the subgroup column to read individuals.",
                 file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
             )
@@ -282,11 +282,11 @@ def _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, n
             "no column holds measurements. Each characteristic needs its own column of numbers "
             "under a header name; the columns found were: "
             + ", ".join(f"'{h}'" for h in header if h) + "."
-            + _time_header_hint(header, t_idx, times),
+            + time_header_hint(header, t_idx, times),
             file=src.name, row=table.header_row,
         )
-    if t_idx is not None and _plain_numbers(times):
-        warnings_.append(_time_header_hint(header, t_idx, times).strip())
+    if t_idx is not None and plain_numbers(times):
+        warnings_.append(time_header_hint(header, t_idx, times).strip())
     return characteristics, int(rows.size)
 
 
@@ -342,8 +342,8 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
     n_missing = int(missing.sum())
     if n_missing:
         warnings_.append(
-            f"'{name}': {n_missing} empty cell(s) ({_row_word(n_missing)} "
-            f"{_fmt_rows(rows[missing])}); the analysis leaves them out"
+            f"'{name}': {n_missing} empty cell(s) ({row_word(n_missing)} "
+            f"{fmt_rows(rows[missing])}); the analysis leaves them out"
         )
     if valid.size == 1:
         warnings_.append(
@@ -365,7 +365,7 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
     )
 
 
-def _subgroup_messages(chars, subgroup_source, notes, warnings_):
+def subgroup_messages(chars, subgroup_source, notes, warnings_):
     if subgroup_source == "none":
         return
     groups: dict[tuple, list[str]] = {}
@@ -418,7 +418,7 @@ def _subgroup_messages(chars, subgroup_source, notes, warnings_):
         (warnings_ if kind == "warn" else notes).append(f"{who}: {text}")
 
 
-def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
+def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
                    subgroup_size, notes, warnings_):
     header = table.header
     unit_idx = next((j for j, r in role.items() if r == "unit"), None)
@@ -435,12 +435,12 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
                 if j >= len(header) or not header[j]:
                     _check_unnamed(src, header, table.header_row, j, cols[j], rows,
                                    table.text_cells)
-            names = _labels(cols[char_idx], table.text_cells)
-            vals, empty = _numeric(ctx, cols[value_idx], rows, header[value_idx])
+            names = label_array(cols[char_idx], table.text_cells)
+            vals, empty = numeric(ctx, cols[value_idx], rows, header[value_idx])
             row_filled = ~empty | (names != "")
             for j in (sg_idx, t_idx, n_idx, unit_idx):
                 if j is not None and j < len(cols):
-                    row_filled |= _filled(cols[j], table.text_cells)
+                    row_filled |= filled_mask(cols[j], table.text_cells)
             bad = row_filled & (names == "")
             if bad.any():
                 i = int(np.flatnonzero(bad)[0])
@@ -454,13 +454,13 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
             rows_acc.add(rows)
             filled_acc.add(row_filled)
             if sg_idx is not None:
-                sg_acc.add(_labels(cols[sg_idx], table.text_cells))
+                sg_acc.add(label_array(cols[sg_idx], table.text_cells))
             if t_idx is not None:
                 t_acc.add(cols[t_idx])
             if n_idx is not None:
-                n_acc.add(_labels(cols[n_idx], table.text_cells))
+                n_acc.add(label_array(cols[n_idx], table.text_cells))
             if unit_idx is not None:
-                unit_acc.add(_labels(cols[unit_idx], table.text_cells))
+                unit_acc.add(label_array(cols[unit_idx], table.text_cells))
         return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
 
     name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc = _with_fast_path(
@@ -476,7 +476,7 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
     last = int(np.flatnonzero(filled)[-1]) + 1
     interior = np.flatnonzero(~filled[:last])
     if interior.size:
-        notes.append(f"empty rows skipped: {_fmt_rows(rows[interior])}")
+        notes.append(f"empty rows skipped: {fmt_rows(rows[interior])}")
     keep = filled.copy()
     rows = rows[keep]
     codes = name_acc.result_codes()[keep]
@@ -493,7 +493,7 @@ def _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_
             i = int(no_label[0])
             raise DataFileError(
                 f"this row has no subgroup label in column '{header[sg_idx]}' (rows without a "
-                f"label: {_fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
+                f"label: {fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
                 "subgroup column to read individuals.",
                 file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
             )

@@ -13,39 +13,39 @@ import re
 import numpy as np
 
 from studykit.errors import DataFileError, printable
-from studykit.io.source import _Fallback, _Source, _Table
-from studykit.io.values import _time_text
+from studykit.io.source import Fallback, Source, Table
+from studykit.io.values import time_text
 
 # ----------------------------------------------------------------------------------------------
 # header names that give a column a role (compared after _norm_header)
-_SUBGROUP_NAMES = {
+SUBGROUP_NAMES = {
     "subgroup", "sub group", "subgroups", "sample", "samples", "lot", "batch", "group",
     "sample group", "subgroup number",
     "stichprobe", "stichproben", "untergruppe", "gruppe", "los", "charge", "teilgruppe", "probe",
 }
-_TIME_NAMES = {
+TIME_NAMES = {
     "time", "timestamp", "time stamp", "date", "datetime", "date time", "measured at",
     "measurement time", "zeit", "zeitstempel", "datum", "uhrzeit", "datum uhrzeit", "messzeit",
     "messdatum", "zeitpunkt",
 }
-_NOTE_NAMES = {
+NOTE_NAMES = {
     "note", "notes", "comment", "comments", "remark", "remarks", "bemerkung", "bemerkungen",
     "kommentar", "kommentare", "notiz", "notizen", "hinweis", "anmerkung",
 }
-_CHARACTERISTIC_NAMES = {
+CHARACTERISTIC_NAMES = {
     "characteristic", "characteristic name", "feature", "parameter", "variable", "measurand",
     "merkmal", "merkmalsname", "messgrosse", "messgröße", "kenngrosse", "kenngröße", "prüfmerkmal",
 }
-_VALUE_NAMES = {
+VALUE_NAMES = {
     "value", "values", "measurement", "measured value", "reading", "result",
     "wert", "messwert", "istwert", "ergebnis",
 }
-_UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
+UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
 _TRAILING_TOKENS = {"no", "nr", "number", "num", "id", "nummer", "index"}
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")
-_COMMA_DECIMAL_RE = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
-_POINT_DECIMAL_RE = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
+COMMA_DECIMAL_RE = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
+POINT_DECIMAL_RE = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
 _NONFINITE_RE = re.compile(r"^[+-]?(?:nan|inf|infinity|#?n/?a|#num!?)$", re.IGNORECASE)
 _EXCEL_ERROR_RE = re.compile(r"^#(?:DIV/0!|N/A|NAME\?|NULL!|NUM!|REF!|VALUE!|SPILL!|CALC!)$", re.I)
 
@@ -80,7 +80,7 @@ def parse_header(text) -> tuple[str, str | None]:
     return text, None
 
 
-def _norm_header(text: str) -> str:
+def norm_header(text: str) -> str:
     name, _unit = parse_header(text)
     s = re.sub(r"[\s._:#/\\-]+", " ", name.casefold()).strip()
     tokens = s.split()
@@ -89,7 +89,7 @@ def _norm_header(text: str) -> str:
     return " ".join(tokens)
 
 
-def _col_letter(index: int) -> str:
+def col_letter(index: int) -> str:
     """Spreadsheet letter of a 0-based column index (0 -> A, 26 -> AA)."""
     letters = ""
     index += 1
@@ -99,17 +99,17 @@ def _col_letter(index: int) -> str:
     return letters
 
 
-def _show(value) -> str:
+def show(value) -> str:
     """Cell text for a message: control characters escaped, at most 40 characters."""
     text = printable(value)
     return text if len(text) <= 40 else text[:37] + "..."
 
 
-def _row_word(n: int) -> str:
+def row_word(n: int) -> str:
     return "row" if n == 1 else "rows"
 
 
-def _fmt_rows(rows, limit: int = 5) -> str:
+def fmt_rows(rows, limit: int = 5) -> str:
     rows = [int(r) for r in rows]
     shown = ", ".join(str(r) for r in rows[:limit])
     if len(rows) > limit:
@@ -117,7 +117,7 @@ def _fmt_rows(rows, limit: int = 5) -> str:
     return shown
 
 
-def _cell_text(v) -> str:
+def cell_text(v) -> str:
     if isinstance(v, str):
         return v.strip()
     if isinstance(v, bool):
@@ -129,8 +129,8 @@ def _cell_text(v) -> str:
     return str(v)
 
 
-class _Ctx:
-    def __init__(self, src: _Source, table: _Table):
+class Ctx:
+    def __init__(self, src: Source, table: Table):
         self.file = src.name
         self.decimal = table.decimal
         self.text_cells = table.text_cells
@@ -164,7 +164,7 @@ def _summary_word(text, words=_SUMMARY_WORDS) -> bool:
     return key in words
 
 
-def _check_text_column(file, cells, rows, column) -> None:
+def check_text_column(file, cells, rows, column) -> None:
     """A text column (part numbers, operators...) labelling a row 'Total' or 'Mean'."""
     import pandas as pd
 
@@ -177,14 +177,14 @@ def _check_text_column(file, cells, rows, column) -> None:
 
 def _summary_row_error(file, row: int, column: str, label: str) -> DataFileError:
     return DataFileError(
-        f"'{_show(label)}' labels a summary row (totals, means...), not a part or subgroup: its "
+        f"'{show(label)}' labels a summary row (totals, means...), not a part or subgroup: its "
         "numbers are results, not measurements, and would be analysed as data. Delete the row "
         "(and any other summary rows) from the export.",
         file=file, row=int(row), column=column, value=label,
     )
 
 
-def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
+def check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
     """Refuse a totals/mean row at the foot of a table (labelled 'Total', 'Mean', 'Summe'...)
     in the subgroup or time column: its numbers would otherwise enter the analysis."""
     import pandas as pd
@@ -210,7 +210,7 @@ def _check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
                 raise _summary_row_error(src.name, c.rows[i], column, str(cells[i]))
 
 
-def _bad_number(ctx: _Ctx, raw, row: int, column: str) -> DataFileError:
+def _bad_number(ctx: Ctx, raw, row: int, column: str) -> DataFileError:
     text = str(raw).strip()
     if _summary_word(text):
         return _summary_row_error(ctx.file, row, column, text)
@@ -232,13 +232,13 @@ def _bad_number(ctx: _Ctx, raw, row: int, column: str) -> DataFileError:
         why = (f"the cell holds a date/time ('{text}') where a measurement is expected. If this "
                "column holds times, name it 'Time' or 'Zeit'; otherwise enter the number.")
     else:
-        why = (f"'{_show(text)}' is not a number. Measurement cells hold numbers only (no units, "
+        why = (f"'{show(text)}' is not a number. Measurement cells hold numbers only (no units, "
                "no text; decimal sign '.' or ','). Leave the cell empty for a missing value and "
                "put remarks into a note column (e.g. 'Note' or 'Bemerkung').")
     return DataFileError(why, file=ctx.file, row=int(row), column=column, value=raw)
 
 
-def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
+def numeric(ctx: Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
     """Convert one column of cells to float; return (values, empty mask)."""
     import pandas as pd
 
@@ -246,7 +246,7 @@ def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
     if cells.dtype.kind == "f":  # already parsed by the fast reader
         empty = np.isnan(cells)
         if np.isinf(cells).any():
-            raise _Fallback
+            raise Fallback
         return cells, empty
     if ctx.text_cells:
         s = pd.Series(cells, dtype=object).str.strip()
@@ -273,7 +273,7 @@ def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
             if v == "":
                 empty[i] = True
                 continue
-            x = _text_number(v)
+            x = text_number(v)
             if x is None:
                 raise _bad_number(ctx, v, rows[i], column)
             ctx.text_numbers[column] = ctx.text_numbers.get(column, 0) + 1
@@ -288,9 +288,9 @@ def _numeric(ctx: _Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
     return vals, empty
 
 
-def _text_number(text: str) -> float | None:
+def text_number(text: str) -> float | None:
     t = text.strip().replace("\u00a0", "").replace(" ", "")
-    if _COMMA_DECIMAL_RE.match(t):
+    if COMMA_DECIMAL_RE.match(t):
         t = t.replace(",", ".")
     elif "," in t:
         return None
@@ -301,7 +301,7 @@ def _text_number(text: str) -> float | None:
     return x if math.isfinite(x) and not _NONFINITE_RE.match(t) else None
 
 
-def _looks_numeric(ctx: _Ctx, cells: np.ndarray) -> tuple[int, int]:
+def looks_numeric(ctx: Ctx, cells: np.ndarray) -> tuple[int, int]:
     """(non-empty cells, cells that look like numbers) of a column sample."""
     n_filled = n_num = 0
     for v in cells[:2000]:
@@ -310,7 +310,7 @@ def _looks_numeric(ctx: _Ctx, cells: np.ndarray) -> tuple[int, int]:
             if not t:
                 continue
             n_filled += 1
-            if _text_number(t) is not None or _NONFINITE_RE.match(t) or _EXCEL_ERROR_RE.match(t):
+            if text_number(t) is not None or _NONFINITE_RE.match(t) or _EXCEL_ERROR_RE.match(t):
                 n_num += 1
             elif re.match(r"^[+-]?[\d.,]+$", t):
                 n_num += 1
@@ -324,15 +324,15 @@ def _looks_numeric(ctx: _Ctx, cells: np.ndarray) -> tuple[int, int]:
     return n_filled, n_num
 
 
-def _labels(cells: np.ndarray, text_cells: bool) -> np.ndarray:
+def label_array(cells: np.ndarray, text_cells: bool) -> np.ndarray:
     if text_cells:
         return np.asarray([c.strip() for c in cells], dtype=object)
     out = np.empty(len(cells), dtype=object)
-    out[:] = [_cell_text(v) if v != "" else "" for v in cells]
+    out[:] = [cell_text(v) if v != "" else "" for v in cells]
     return out
 
 
-def _filled(cells: np.ndarray, text_cells: bool) -> np.ndarray:
+def filled_mask(cells: np.ndarray, text_cells: bool) -> np.ndarray:
     if cells.dtype.kind == "f":
         return ~np.isnan(cells)
     if text_cells:
@@ -342,7 +342,7 @@ def _filled(cells: np.ndarray, text_cells: bool) -> np.ndarray:
     return np.fromiter((not (isinstance(v, str) and v == "") for v in cells), bool, len(cells))
 
 
-def _plain_numbers(times) -> bool:
+def plain_numbers(times) -> bool:
     """Every non-empty time cell is a plain number (so the column may be a measurement)."""
     if times is None or np.asarray(times).dtype.kind != "O":
         return False
@@ -357,12 +357,12 @@ def _plain_numbers(times) -> bool:
     return True
 
 
-def _time_header_hint(header, t_idx, times) -> str:
+def time_header_hint(header, t_idx, times) -> str:
     """Why a column of numbers was not taken as a characteristic: its header reads as a time."""
     if t_idx is None:
         return ""
     name = header[t_idx]
-    numbers = " and its cells are plain numbers" if _plain_numbers(times) else ""
+    numbers = " and its cells are plain numbers" if plain_numbers(times) else ""
     return (f" Column '{name}' was read as time stamps, not as measurements, because its header "
             f"is a time or date name (time, Zeit, date, Datum, timestamp...){numbers}. If it "
             "holds measurements, rename the header, e.g. 'cycle time [s]' or 'elapsed [s]' (a time column is "
@@ -376,7 +376,7 @@ _TIME_FORMATS = (
 )
 
 
-def _times_chunk(cells: np.ndarray, fmt: str | None):
+def times_chunk(cells: np.ndarray, fmt: str | None):
     """(datetime64[ns] array, format) when every filled cell is a date/time, else (None, None)."""
     import pandas as pd
 
@@ -390,7 +390,7 @@ def _times_chunk(cells: np.ndarray, fmt: str | None):
         return out, fmt
     if (is_dt & ~is_empty).any():
         return None, None
-    text = pd.Series([v.strip() if isinstance(v, str) else _cell_text(v) for v in cells],
+    text = pd.Series([v.strip() if isinstance(v, str) else cell_text(v) for v in cells],
                      dtype=object)
     filled = text != ""
     candidates = [fmt] if fmt else list(_TIME_FORMATS)
@@ -405,10 +405,10 @@ def _times_chunk(cells: np.ndarray, fmt: str | None):
     return None, None
 
 
-def _times_text(cells: np.ndarray) -> np.ndarray:
+def times_text(cells: np.ndarray) -> np.ndarray:
     out = np.empty(len(cells), dtype=object)
     if cells.dtype.kind == "M":
-        out[:] = [_time_text(t) or "" for t in cells]
+        out[:] = [time_text(t) or "" for t in cells]
     else:
-        out[:] = [v.strip() if isinstance(v, str) else _cell_text(v) for v in cells]
+        out[:] = [v.strip() if isinstance(v, str) else cell_text(v) for v in cells]
     return out

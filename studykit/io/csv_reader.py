@@ -11,13 +11,13 @@ import re
 import numpy as np
 
 from studykit.errors import DataFileError
-from studykit.io.cells import _COMMA_DECIMAL_RE, _POINT_DECIMAL_RE, _text_number
-from studykit.io.source import _HEADER_MAX_BYTES, _Fallback, _human_size, _Source, _Table
+from studykit.io.cells import COMMA_DECIMAL_RE, POINT_DECIMAL_RE, text_number
+from studykit.io.source import HEADER_MAX_BYTES, Fallback, Source, Table, human_size
 
 _CHUNK_ROWS = 50_000
 
 
-def _sample_lines(src: _Source) -> list[str]:
+def _sample_lines(src: Source) -> list[str]:
     lines = src.sample.splitlines()
     if src.sample_truncated and lines:
         lines = lines[:-1]
@@ -28,7 +28,7 @@ def _csv_rows(lines: list[str], delimiter: str, file=None) -> list[list[str]]:
     """The cells of sample lines; a field may be as long as the sample (a wide header is one
     field for a separator that does not split it), beyond the csv module's 128 KiB default."""
     old = csv.field_size_limit()
-    csv.field_size_limit(max(old, _HEADER_MAX_BYTES + 1))
+    csv.field_size_limit(max(old, HEADER_MAX_BYTES + 1))
     try:
         return list(csv.reader(lines, delimiter=delimiter))
     except csv.Error as exc:
@@ -61,13 +61,13 @@ def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
         k = next((m for m in range(min(10, len(r))) if filled(r[m]) >= 2), None)
         if k is None or any(filled(r[m]) > 1 for m in range(k)):
             continue
-        if k > 0 and all(_text_number(c) is not None for c in r[k] if c.strip()):
+        if k > 0 and all(text_number(c) is not None for c in r[k] if c.strip()):
             continue  # numbers, not a header below a title
         if all(len(x) == len(r[k]) for x in r[k:]):
             return d, idx[k]
     # one column of numbers with decimal commas: nothing to split
     semi = recs[";"]
-    if len(recs[","][0]) == 1 and all(len(x) == 1 for x in semi) and any(_COMMA_DECIMAL_RE.match(x[0].strip())
+    if len(recs[","][0]) == 1 and all(len(x) == 1 for x in semi) and any(COMMA_DECIMAL_RE.match(x[0].strip())
                                                for x in semi[1:]):
         return ";", idx[0]
     best, best_cols = ",", 1
@@ -77,13 +77,13 @@ def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
     return best, idx[0]
 
 
-def _open_csv(src: _Source) -> _Table:
+def open_csv(src: Source) -> Table:
     import pandas as pd
 
     lines = _sample_lines(src)
     if not lines and src.sample_truncated:
         raise DataFileError(
-            f"the first line is longer than {_human_size(_HEADER_MAX_BYTES)} without a line "
+            f"the first line is longer than {human_size(HEADER_MAX_BYTES)} without a line "
             "break, so no header row can be found. Check that the file is a table with one "
             "row per line (a file with only carriage returns or no line breaks at all is not), "
             "or save it again from the spreadsheet as CSV.",
@@ -106,9 +106,9 @@ def _open_csv(src: _Source) -> _Table:
                           file=src.name):
         for cell in rec:
             cell = cell.strip()
-            if _COMMA_DECIMAL_RE.match(cell):
+            if COMMA_DECIMAL_RE.match(cell):
                 n_comma += 1
-            elif _POINT_DECIMAL_RE.match(cell):
+            elif POINT_DECIMAL_RE.match(cell):
                 n_point += 1
     decimal = "," if n_comma > n_point else "."
 
@@ -162,7 +162,7 @@ def _open_csv(src: _Source) -> _Table:
                 if frame.shape[1] != width or not frame.index.equals(
                         pd.RangeIndex(start - header_index - 2,
                                       start - header_index - 2 + len(frame))):
-                    raise _Fallback
+                    raise Fallback
                 cols = []
                 for j in range(width):
                     if j in float_cols:
@@ -174,16 +174,16 @@ def _open_csv(src: _Source) -> _Table:
                 yield rows, cols
         except (ValueError, TypeError, OverflowError, pd.errors.ParserError,
                 UnicodeDecodeError):
-            raise _Fallback from None
+            raise Fallback from None
         finally:
             handle.close()
 
-    return _Table(header=header, header_row=header_index + 1, open_chunks=chunks,
+    return Table(header=header, header_row=header_index + 1, open_chunks=chunks,
                   fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True,
                   title_rows=(first_line + 1, header_index) if header_index > first_line else None)
 
 
-def _translate_parser_error(exc, src: _Source, header: list, sep: str) -> DataFileError:
+def _translate_parser_error(exc, src: Source, header: list, sep: str) -> DataFileError:
     msg = str(exc)
     m = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", msg)
     sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[sep]

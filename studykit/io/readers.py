@@ -12,26 +12,26 @@ from pathlib import Path
 import numpy as np
 
 from studykit.errors import DataFileError, StudyInputError
-from studykit.io.assemble import _assemble_long, _assemble_wide, _subgroup_messages
+from studykit.io.assemble import assemble_long, assemble_wide, subgroup_messages
 from studykit.io.cells import (
-    _CHARACTERISTIC_NAMES,
-    _NOTE_NAMES,
-    _SUBGROUP_NAMES,
-    _TIME_NAMES,
-    _UNIT_NAMES,
-    _VALUE_NAMES,
-    _check_summary_rows,
-    _col_letter,
-    _Ctx,
-    _norm_header,
-    _show,
-    _text_number,
+    CHARACTERISTIC_NAMES,
+    NOTE_NAMES,
+    SUBGROUP_NAMES,
+    TIME_NAMES,
+    UNIT_NAMES,
+    VALUE_NAMES,
+    Ctx,
+    check_summary_rows,
+    col_letter,
+    norm_header,
     parse_header,
+    show,
+    text_number,
 )
-from studykit.io.csv_reader import _open_csv
-from studykit.io.source import _check_size, _inspect, _Source
+from studykit.io.csv_reader import open_csv
+from studykit.io.source import Source, check_size, inspect
 from studykit.io.values import Measurements
-from studykit.io.xlsx_reader import _check_unsaved_formulas, _open_xlsx
+from studykit.io.xlsx_reader import check_unsaved_formulas, open_xlsx
 
 
 def read_measurements(
@@ -123,8 +123,8 @@ def read_measurements(
             file=str(path),
         )
     size = st.st_size
-    _check_size(size, max_bytes, p.name)
-    src = _Source(name=p.name, path=p, data=None, size=size)
+    check_size(size, max_bytes, p.name)
+    src = Source(name=p.name, path=p, data=None, size=size)
     return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
                  subgroup_size=subgroup_size, characteristic_column=characteristic_column,
                  value_column=value_column, time_column=time_column, note_column=note_column,
@@ -161,8 +161,8 @@ def read_measurements_bytes(data: bytes, filename: str, **options) -> Measuremen
         )
     name = Path(str(filename)).name or "upload"
     max_bytes = options.pop("max_bytes", None)
-    _check_size(len(data), max_bytes, name)
-    src = _Source(name=name, path=None, data=data, size=len(data))
+    check_size(len(data), max_bytes, name)
+    src = Source(name=name, path=None, data=data, size=len(data))
     return _read(src, **options)
 
 
@@ -183,12 +183,12 @@ def _find_column(header, wanted: str, *, what: str, option: str, src_name: str) 
 
 def _detect(header, names_set) -> int | None:
     for i, h in enumerate(header):
-        if h and _norm_header(h) in names_set:
+        if h and norm_header(h) in names_set:
             return i
     return None
 
 
-def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
+def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
           characteristic_column=None, value_column=None, time_column=None, note_column=None,
           encoding=None) -> Measurements:
     if layout not in ("auto", "wide", "long"):
@@ -220,13 +220,13 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
             )
     notes: list[str] = []
     warnings_: list[str] = []
-    _inspect(src, encoding)
+    inspect(src, encoding)
     if src.kind == "xlsx":
-        table = _open_xlsx(src, sheet, notes)
+        table = open_xlsx(src, sheet, notes)
     else:
         if sheet is not None:
             notes.append(f"`sheet` ('{sheet}') was ignored: the file is a text table, not a workbook")
-        table = _open_csv(src)
+        table = open_csv(src)
         sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[table.separator]
         notes.append(
             f"text table: {sep_name}-separated, decimal sign '{table.decimal}', "
@@ -254,9 +254,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
 
     # --- header checks -------------------------------------------------------------------
     named = [h for h in header if h]
-    if named and all(_text_number(h) is not None for h in named):
+    if named and all(text_number(h) is not None for h in named):
         raise DataFileError(
-            f"the first row holds numbers ('{_show(named[0])}'), not column names. Add a header "
+            f"the first row holds numbers ('{show(named[0])}'), not column names. Add a header "
             "row that names each column (e.g. 'Diameter [mm]', 'Subgroup') above the values.",
             file=src.name, row=hrow, value=named[0],
         )
@@ -268,7 +268,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         if key in seen:
             i = seen[key]
             raise DataFileError(
-                f"columns {_col_letter(i)} ('{header[i]}') and {_col_letter(j)} ('{h}') have the "
+                f"columns {col_letter(i)} ('{header[i]}') and {col_letter(j)} ('{h}') have the "
                 "same name. Every column needs its own name: rename one of them (for example "
                 f"'{parse_header(h)[0]} 2').",
                 file=src.name, row=hrow, column=h, value=h,
@@ -290,9 +290,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     char_idx = value_idx = None
     if layout in ("auto", "long"):
         char_idx = (find(characteristic_column, "characteristic names", "characteristic_column")
-                    if characteristic_column is not None else _detect(header, _CHARACTERISTIC_NAMES))
+                    if characteristic_column is not None else _detect(header, CHARACTERISTIC_NAMES))
         value_idx = (find(value_column, "values", "value_column")
-                     if value_column is not None else _detect(header, _VALUE_NAMES))
+                     if value_column is not None else _detect(header, VALUE_NAMES))
         if layout == "long" and (char_idx is None or value_idx is None):
             missing = "a characteristic column" if char_idx is None else "a value column"
             raise DataFileError(
@@ -320,7 +320,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     if layout == "long":
         role[char_idx] = "characteristic"
         role[value_idx] = "value"
-        unit_idx = _detect(header, _UNIT_NAMES)
+        unit_idx = _detect(header, UNIT_NAMES)
         if unit_idx is not None and unit_idx not in role:
             role[unit_idx] = "unit"
 
@@ -328,7 +328,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     if subgroup_column is not None:
         sg_idx = find(subgroup_column, "subgroup labels", "subgroup_column")
     else:
-        cand = _detect(header, _SUBGROUP_NAMES)
+        cand = _detect(header, SUBGROUP_NAMES)
         if cand is not None and cand not in role:
             if subgroup_size is not None:
                 notes.append(
@@ -345,8 +345,8 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
                 f"{role[sg_idx]} names/values; choose another column."
             )
         role[sg_idx] = "subgroup"
-    t_idx = _optional_role(header, role, time_column, _TIME_NAMES, "time", find)
-    n_idx = _optional_role(header, role, note_column, _NOTE_NAMES, "note", find)
+    t_idx = _optional_role(header, role, time_column, TIME_NAMES, "time", find)
+    n_idx = _optional_role(header, role, note_column, NOTE_NAMES, "note", find)
 
     if sg_idx is not None:
         subgroup_source = "column"
@@ -366,20 +366,20 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     if n_idx is not None:
         notes.append(f"notes from column '{header[n_idx]}'")
 
-    ctx = _Ctx(src, table)
+    ctx = Ctx(src, table)
     try:
         if layout == "wide":
-            result = _assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
+            result = assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
                                     notes, warnings_)
         else:
-            result = _assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
+            result = assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
                                     n_idx, subgroup_size, notes, warnings_)
     except DataFileError:
         if src.kind == "xlsx":  # the real cause of an "empty" label or cell, if there is one
-            _check_unsaved_formulas(src, table, damage_known=True)
+            check_unsaved_formulas(src, table, damage_known=True)
         raise
     characteristics, n_rows = result
-    _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
+    check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     if src.kind == "xlsx" and layout == "wide":
         # the first empty cell of each value column is where an unsaved formula would show
         targets: dict[int, int] = {}
@@ -393,14 +393,14 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
             elif c.n_missing:
                 targets[j] = int(c.rows[int(np.argmax(np.isnan(c.values)))])
         if targets:
-            _check_unsaved_formulas(src, table, targets)
+            check_unsaved_formulas(src, table, targets)
     elif src.kind == "xlsx" and any(c.n_missing for c in characteristics):
-        _check_unsaved_formulas(src, table)
+        check_unsaved_formulas(src, table)
     for col, k in ctx.text_numbers.items():
         notes.append(
             f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"
         )
-    _subgroup_messages(characteristics, subgroup_source, notes, warnings_)
+    subgroup_messages(characteristics, subgroup_source, notes, warnings_)
     return Measurements(
         source=src.name, sha256=src.sha256, layout=layout, subgroup_source=subgroup_source,
         characteristics=tuple(characteristics), warnings=tuple(warnings_), notes=tuple(notes),

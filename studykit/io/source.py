@@ -21,21 +21,21 @@ _SAMPLE_BYTES = 64 * 1024
 #: The sample read to find the header grows up to this size when its first lines are longer
 #: than _SAMPLE_BYTES (a header of thousands of columns); a first line longer than this is
 #: refused with a message that says so.
-_HEADER_MAX_BYTES = 8 * 1024 * 1024
-_READ_BLOCK = 1 << 20
+HEADER_MAX_BYTES = 8 * 1024 * 1024
+READ_BLOCK = 1 << 20
 
 
-def _check_size(size: int, max_bytes: int | None, name: str) -> None:
+def check_size(size: int, max_bytes: int | None, name: str) -> None:
     if max_bytes is not None and size > max_bytes:
         raise DataFileError(
-            f"the file is {_human_size(size)}, more than the limit of {_human_size(max_bytes)}. "
+            f"the file is {human_size(size)}, more than the limit of {human_size(max_bytes)}. "
             "Remove columns or rows that the study does not need, or split the file by "
             "characteristic, and load it again.",
             file=name, value=size,
         )
 
 
-def _human_size(n: int) -> str:
+def human_size(n: int) -> str:
     if n >= 1024 * 1024:
         return f"{n / (1024 * 1024):.1f} MB"
     if n >= 1024:
@@ -44,7 +44,7 @@ def _human_size(n: int) -> str:
 
 
 @dataclass
-class _Source:
+class Source:
     name: str
     path: Path | None
     data: bytes | None
@@ -59,12 +59,12 @@ class _Source:
 
     def blocks(self) -> Iterator[bytes]:
         if self.data is not None:
-            for i in range(0, len(self.data), _READ_BLOCK):
-                yield self.data[i : i + _READ_BLOCK]
+            for i in range(0, len(self.data), READ_BLOCK):
+                yield self.data[i : i + READ_BLOCK]
         else:
             with open(self.path, "rb") as fh:
                 while True:
-                    b = fh.read(_READ_BLOCK)
+                    b = fh.read(READ_BLOCK)
                     if not b:
                         return
                     yield b
@@ -76,7 +76,7 @@ class _Source:
 _UNDEFINED_CP1252 = (b"\x81", b"\x8d", b"\x8f", b"\x90", b"\x9d")
 
 
-def _inspect(src: _Source, encoding: str | None) -> None:
+def inspect(src: Source, encoding: str | None) -> None:
     """One pass over the bytes: digest, kind, encoding and a decoded sample."""
     digest = hashlib.sha256()
     head = b""
@@ -90,8 +90,8 @@ def _inspect(src: _Source, encoding: str | None) -> None:
         if len(head) < want:
             used = want - len(head)
             head += block[:used]
-            if len(head) >= want and want < _HEADER_MAX_BYTES and head.count(b"\n") < 3:
-                want = _HEADER_MAX_BYTES  # a very wide header: read on to its end
+            if len(head) >= want and want < HEADER_MAX_BYTES and head.count(b"\n") < 3:
+                want = HEADER_MAX_BYTES  # a very wide header: read on to its end
                 head += block[used : used + want - len(head)]
         if utf8_ok:
             try:
@@ -185,7 +185,7 @@ def _looks_utf16(head: bytes) -> bool:
     return max(even, odd) > 0.4 * n / 2 and min(even, odd) < 0.05 * n / 2
 
 
-def _raise_binary(src: _Source, offset) -> None:
+def _raise_binary(src: Source, offset) -> None:
     where = f" (unreadable bytes near byte {offset})" if offset is not None else ""
     raise DataFileError(
         f"the file does not look like a text table{where}. It may be damaged, or a program "
@@ -196,7 +196,7 @@ def _raise_binary(src: _Source, offset) -> None:
 
 
 @dataclass
-class _Table:
+class Table:
     header: list            # header cell texts (stripped)
     header_row: int         # spreadsheet row number of the header
     open_chunks: Callable   # () -> iterator of (rows: int ndarray, columns: list of arrays)
@@ -211,5 +211,5 @@ class _Table:
     title_rows: tuple | None = None  # (first, last) spreadsheet rows skipped above the header
 
 
-class _Fallback(Exception):
+class Fallback(Exception):
     """The fast CSV path met something it cannot judge; read again cell by cell."""

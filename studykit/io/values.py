@@ -1,4 +1,4 @@
-"""The value objects of a read measurement file: :class:`CharacteristicData` and :class:`Measurements`.
+"""The value objects of a read measurement file: :class:`CharacteristicData`, :class:`Measurements`.
 
 Part of :mod:`studykit.io` (moved unchanged from ``studykit/data.py``).
 """
@@ -192,13 +192,13 @@ class CharacteristicData:
         out["rows"] = [int(r) for r in self.rows.tolist()]
         out["subgroup_sizes"] = {str(k): int(v) for k, v in self.subgroup_sizes.items()}
         if self.times is not None:
-            out["times"] = [_time_text(t) for t in self.times]
+            out["times"] = [time_text(t) for t in self.times]
         if self.notes is not None:
             out["notes"] = [str(s) for s in self.notes.tolist()]
         return out
 
 
-def _time_text(t) -> str | None:
+def time_text(t) -> str | None:
     if isinstance(t, np.datetime64):
         return None if np.isnat(t) else str(np.datetime_as_string(t, unit="s"))
     return None if t is None or t == "" else str(t)

@@ -13,8 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from studykit.errors import DataFileError, StudyInputError
-from studykit.io.cells import _cell_text, _col_letter, _show
-from studykit.io.source import _READ_BLOCK, _human_size, _Source, _Table
+from studykit.io.cells import cell_text, col_letter, show
+from studykit.io.source import READ_BLOCK, Source, Table, human_size
 
 _XLSX_CHUNK_ROWS = 20_000
 #: An XLSX file is a zip package. Before it is parsed, the sizes its members declare are
@@ -30,7 +30,7 @@ XLSX_MAX_MEMBERS = 10_000
 _XLSX_RATIO_FROM = 1024 * 1024
 
 
-def _check_xlsx_package(src: _Source) -> None:
+def _check_xlsx_package(src: Source) -> None:
     """Refuse a package whose members would unpack to too much (module constants above)."""
     handle = src.binary()
     try:
@@ -52,8 +52,8 @@ def _check_xlsx_package(src: _Source) -> None:
                 and info.file_size > XLSX_MAX_RATIO * max(info.compress_size, 1)):
             ratio = info.file_size / max(info.compress_size, 1)
             raise DataFileError(
-                f"part '{_show(info.filename)}' of the workbook unpacks from "
-                f"{_human_size(info.compress_size)} to {_human_size(info.file_size)} "
+                f"part '{show(info.filename)}' of the workbook unpacks from "
+                f"{human_size(info.compress_size)} to {human_size(info.file_size)} "
                 f"({ratio:.0f} times; spreadsheet programs pack about 5 to 15 times, the limit "
                 f"is {XLSX_MAX_RATIO}). A file packed this tightly is built to exhaust memory "
                 "(a 'zip bomb') and is not read. If it is a genuine export, save the "
@@ -63,8 +63,8 @@ def _check_xlsx_package(src: _Source) -> None:
     total = sum(i.file_size for i in infos)
     if total > XLSX_MAX_UNPACKED:
         raise DataFileError(
-            f"the workbook unpacks to {_human_size(total)}, more than the limit of "
-            f"{_human_size(XLSX_MAX_UNPACKED)}. Save the measurements as CSV (read in pieces, "
+            f"the workbook unpacks to {human_size(total)}, more than the limit of "
+            f"{human_size(XLSX_MAX_UNPACKED)}. Save the measurements as CSV (read in pieces, "
             "without this limit), or split the workbook.",
             file=src.name, value=total,
         )
@@ -75,7 +75,7 @@ def _xlsx_reason(exc: BaseException) -> str:
     import xml.parsers.expat
     from xml.etree.ElementTree import ParseError
 
-    text = _show(exc) if str(exc) else type(exc).__name__
+    text = show(exc) if str(exc) else type(exc).__name__
     if isinstance(exc, zipfile.BadZipFile | zlib.error | EOFError):
         return f"the zip package is damaged or cut short: {text}"
     if isinstance(exc, ParseError | xml.parsers.expat.ExpatError | SyntaxError):
@@ -91,7 +91,7 @@ def _xlsx_reason(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text}"
 
 
-def _xlsx_open_failure(src: _Source, exc: BaseException) -> DataFileError:
+def _xlsx_open_failure(src: Source, exc: BaseException) -> DataFileError:
     return DataFileError(
         f"the workbook cannot be opened ({_xlsx_reason(exc)}). It may be damaged or protected "
         "with a password. Open it in the spreadsheet program and save it again as .xlsx, or "
@@ -100,7 +100,7 @@ def _xlsx_open_failure(src: _Source, exc: BaseException) -> DataFileError:
     )
 
 
-def _xlsx_failure(src: _Source, exc: BaseException, *, sheet=None, row=None) -> DataFileError:
+def _xlsx_failure(src: Source, exc: BaseException, *, sheet=None, row=None) -> DataFileError:
     """Any failure of the workbook parser as one user message (file, sheet and row if known)."""
     if isinstance(exc, StudyInputError):
         return exc
@@ -113,7 +113,7 @@ def _xlsx_failure(src: _Source, exc: BaseException, *, sheet=None, row=None) -> 
     )
 
 
-def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
+def open_xlsx(src: Source, sheet: str | None, notes: list) -> Table:
     _check_xlsx_package(src)
     try:
         return _open_xlsx_inner(src, sheet, notes)
@@ -123,7 +123,7 @@ def _open_xlsx(src: _Source, sheet: str | None, notes: list) -> _Table:
         raise _xlsx_failure(src, exc, sheet=sheet) from None
 
 
-def _open_xlsx_inner(src: _Source, sheet: str | None, notes: list) -> _Table:
+def _open_xlsx_inner(src: Source, sheet: str | None, notes: list) -> Table:
     import openpyxl
 
     handle = src.binary()
@@ -199,10 +199,10 @@ def _xlsx_header(ws):
             continue
         if first_row is None:
             first_row = r
-            header = [("" if v is None else _cell_text(v)) for v in values]
+            header = [("" if v is None else cell_text(v)) for v in values]
             header_row = r
         if n_filled >= 2:
-            header = [("" if v is None else _cell_text(v)) for v in values]
+            header = [("" if v is None else cell_text(v)) for v in values]
             header_row = r
             break
         if r - first_row >= 10:
@@ -210,11 +210,11 @@ def _xlsx_header(ws):
     return header, header_row, first_row
 
 
-def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) -> _Table:
+def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) -> Table:
     fill: dict[int, list] = {}
     for (r1, c1, r2, c2) in merged:
         if r1 <= header_row <= r2 and (c1 != c2 or r1 != r2):
-            span = f"{_col_letter(c1 - 1)}{r1}:{_col_letter(c2 - 1)}{r2}"
+            span = f"{col_letter(c1 - 1)}{r1}:{col_letter(c2 - 1)}{r2}"
             wb.close()
             raise DataFileError(
                 f"the header cells {span} are merged. Every column needs its own name in the "
@@ -258,10 +258,10 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
                     v = values[j]
                     if v is not None and str(v).strip() != "":
                         raise DataFileError(
-                            f"there is a value ('{_show(v)}') in column "
-                            f"{_col_letter(j)}, which has no name in the header row. "
+                            f"there is a value ('{show(v)}') in column "
+                            f"{col_letter(j)}, which has no name in the header row. "
                             "Give the column a name in the header or delete the value.",
-                            file=src.name, row=r, column=_col_letter(j), value=v,
+                            file=src.name, row=r, column=col_letter(j), value=v,
                         )
             if len(rows_buf) >= _XLSX_CHUNK_ROWS:
                 yield _xlsx_chunk(rows_buf, cols_buf)
@@ -270,7 +270,7 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
         if rows_buf:
             yield _xlsx_chunk(rows_buf, cols_buf)
 
-    return _Table(header=header, header_row=header_row, open_chunks=chunks, text_cells=False,
+    return Table(header=header, header_row=header_row, open_chunks=chunks, text_cells=False,
                   merged_fill=fill, sheet=sheet_name, close=wb.close,
                   title_rows=(first_row, header_row - 1) if header_row > first_row else None)
 
@@ -298,7 +298,7 @@ def _merged_ranges(wb, ws) -> list[tuple[int, int, int, int]]:
     tail = b""
     with archive.open(path) as fh:
         while True:
-            block = fh.read(_READ_BLOCK)
+            block = fh.read(READ_BLOCK)
             if not block:
                 break
             buf = tail + block
@@ -309,7 +309,7 @@ def _merged_ranges(wb, ws) -> list[tuple[int, int, int, int]]:
     return sorted(set(out))
 
 
-def _check_unsaved_formulas(src, table, targets: dict[int, int] | None = None, *,
+def check_unsaved_formulas(src, table, targets: dict[int, int] | None = None, *,
                             damage_known: bool = False) -> None:
     """See :func:`_check_unsaved_formulas_inner`. A workbook the parser fails on is reported
     as damaged, unless ``damage_known`` (the first reading already failed with a message
@@ -353,12 +353,12 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
                     f = formulas[j] if formulas is not None and j < len(formulas) else None
                     if row == r and isinstance(f, str) and f.startswith("="):
                         raise DataFileError(
-                            f"the cell holds the formula '{_show(f)}' but no stored result: the "
+                            f"the cell holds the formula '{show(f)}' but no stored result: the "
                             "workbook was saved by a program that does not calculate formulas, "
                             "so the value is unknown. Open the workbook in a spreadsheet "
                             "program, let it calculate, save it, and load it again (or paste "
                             "the values).",
-                            file=src.name, row=r, column=table.header[j] or _col_letter(j),
+                            file=src.name, row=r, column=table.header[j] or col_letter(j),
                             value=f,
                         )
         finally:
@@ -386,11 +386,11 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
                 v = values[j] if values is not None and j < len(values) else None
                 if v is None and isinstance(f, str) and f.startswith("="):
                     raise DataFileError(
-                        f"the cell holds the formula '{_show(f)}' but no stored result: the "
+                        f"the cell holds the formula '{show(f)}' but no stored result: the "
                         "workbook was saved by a program that does not calculate formulas, so "
                         "the value is unknown. Open the workbook in a spreadsheet program, let "
                         "it calculate, save it, and load it again (or paste the values).",
-                        file=src.name, row=r, column=table.header[j] or _col_letter(j), value=f,
+                        file=src.name, row=r, column=table.header[j] or col_letter(j), value=f,
                     )
     finally:
         wb.close()
