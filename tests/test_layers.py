@@ -37,26 +37,10 @@ PRIVATE_EXCEPTIONS: dict[tuple[str, str, str], str] = {
         'subgroup label text shared by the chart modules; charts.py is in rework',
     ("studykit.stats.phase2", "studykit.stats.charts", "_plain_label"):
         'subgroup label text shared by the chart modules; charts.py is in rework',
-    ("studykit.report.gauge_error", "studykit.report.pdf", "_box"):
-        _PDF_BLOCK,
-    ("studykit.report.gauge_error", "studykit.report.pdf", "_esc"):
-        _PDF_BLOCK,
-    ("studykit.report.gauge_error", "studykit.report.pdf", "_num"):
-        _PDF_BLOCK,
-    ("studykit.report.gauge_error", "studykit.report.pdf", "_table"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_box"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_esc"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_image"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_load"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_styles"):
-        _PDF_BLOCK,
-    ("studykit.report.handoff", "studykit.report.pdf", "_table"):
-        _PDF_BLOCK,
+    **{(f"studykit.report.{user}", "studykit.report.pdf", name): _PDF_BLOCK
+       for user, names in (("gauge_error", ("_box", "_esc", "_num", "_table")),
+                           ("handoff", ("_box", "_esc", "_image", "_load", "_styles", "_table")))
+       for name in names},
 }
 #: the number of exceptions may only go down
 MAX_EXCEPTIONS = 16
