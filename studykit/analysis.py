@@ -25,13 +25,23 @@ from scipy import special
 
 from studykit.errors import AnalysisError, StudyInputError, StudyWarning, printable
 from studykit.stats import attribute as attribute_module
-from studykit.stats import capability as capability_module
 from studykit.stats import fit as fit_module
 from studykit.stats import normality as normality_module
 from studykit.stats import order as order_module
 from studykit.stats import planning as planning_module
 from studykit.stats import transform as transform_module
 from studykit.stats._checks import check_resolution
+from studykit.stats.capability import (
+    Finding,
+    _percentile_indices,
+    capability,
+    diagnose,
+    effective_df_moving_range,
+    effective_df_range,
+    effective_df_stdev,
+    judge,
+    model_band,
+)
 from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
     DISPERSION_RULES,
@@ -647,13 +657,13 @@ def _df_within(chart: ControlChart) -> float | None:
     method = chart.sigma_method
     try:
         if method == "mrbar":
-            return capability_module.effective_df_moving_range(chart.n_values)
+            return effective_df_moving_range(chart.n_values)
         if n is None:
             return None
         if method == "rbar":
-            return capability_module.effective_df_range(k, n)
+            return effective_df_range(k, n)
         if method in ("sbar",):
-            return capability_module.effective_df_stdev(k, n)
+            return effective_df_stdev(k, n)
         if method == "pooled":
             return float(chart.n_values - k)
     except StudyInputError:
@@ -852,7 +862,6 @@ def _withheld_findings(p1: Phase1Result, order, options: AnalysisOptions) -> tup
     """Findings that withhold the verdict: heavy automatic trimming, too few values left by it,
     or values not in production order. Removals a person recorded are not counted as trimming.
     """
-    Finding = capability_module.Finding
     out = []
     if order is not None and order.flagged:
         out.append(Finding(
@@ -938,7 +947,7 @@ def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice,
     if chart.kind != "imr" and chart.subgroup_size is not None:
         tchart = control_chart(y, labels, kind=chart.kind, evaluate=False)
         within = tchart.within_sigma
-    result = capability_module.capability(
+    result = capability(
         y,
         lsl=tr(lsl),
         usl=tr(usl),
@@ -1300,7 +1309,7 @@ def analyze_characteristic(
     warn.extend(notes)
     df_within = _df_within(stat_chart)
     if choice.transform is not None and options.transform_indices == "percentile":
-        cap = capability_module.capability(
+        cap = capability(
             x,
             lsl=spec.lsl,
             usl=spec.usl,
@@ -1317,7 +1326,7 @@ def analyze_characteristic(
             level=level, df_within=df_within,
         )
     else:
-        cap = capability_module.capability(
+        cap = capability(
             x,
             lsl=spec.lsl,
             usl=spec.usl,
@@ -1339,11 +1348,11 @@ def analyze_characteristic(
             f"{index.capitalize()} is not defined for the fitted {choice.label} model; the "
             f"verdict uses {judged_index.capitalize()} by the percentile method"
         )
-    verdict = capability_module.judge(
+    verdict = judge(
         cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"]
     )
     findings = list(
-        capability_module.diagnose(
+        diagnose(
             cap,
             n_subgroups=int(chart.n_subgroups) if chart.subgroup_size else None,
             threshold=crit["threshold"],
@@ -1365,7 +1374,7 @@ def analyze_characteristic(
                                            overall=overall, n=int(x.size), spec=spec, level=level,
                                            model=choice.name)
     if measurement_error is not None and measurement_error["warnings"]:
-        findings.append(capability_module.Finding(
+        findings.append(Finding(
             code="gauge_error_large", severity="warning",
             text=" ".join(measurement_error["warnings"])))
     band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
@@ -1418,7 +1427,7 @@ def _not_in_control(chart: ControlChart, verdict):
     n = len(chart.signals)
     beyond = [s for s in chart.signals if s.rule == "beyond_limits"]
     where = _signal_summary(chart)
-    finding = capability_module.Finding(
+    finding = Finding(
         code="not_in_control" if beyond else "run_rule_signals", severity="warning",
         text=(f"The process is not shown to be in statistical control: the final chart has {n} "
               f"signal(s) ({where}). Capability indices describe a stable process only; find "
@@ -1508,7 +1517,7 @@ def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
         listed = "; ".join(f"{r['rule']} at subgroup {r['subgroup']} ({r['reason']}, "
                            f"{r['who'] or 'unknown'})" for r in on_chart[:8])
         more = f"; and {len(on_chart) - 8} more" if len(on_chart) > 8 else ""
-        findings.append(capability_module.Finding(
+        findings.append(Finding(
             code="signals_kept", severity="info",
             text=(f"{len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
                   f"recorded reason (not a special cause, or a known common cause): {listed}"
@@ -1572,7 +1581,6 @@ NO_GAUGE: Mapping = {"status": "not_checked"}
 
 def _gauge_finding(gauge: Mapping):
     """A plain-word finding about the gauge study behind a characteristic."""
-    Finding = capability_module.Finding
     verdict = gauge.get("verdict") if isinstance(gauge.get("verdict"), Mapping) else {}
     status = verdict.get("status", gauge.get("status"))
     message = verdict.get("message", "")
@@ -1642,7 +1650,7 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
     aics = [r.aic for r in ranking.rows if r.aic is not None and not r.error and r.converged]
     best_aic = min(aics) if aics else None
     if ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA:
-        normal = capability_module.capability(x, lsl=spec.lsl, usl=spec.usl, level=level)
+        normal = capability(x, lsl=spec.lsl, usl=spec.usl, level=level)
         if getattr(normal, key) is not None:
             values["normal"] = float(getattr(normal, key))
     for row in ranking.rows:
@@ -1657,7 +1665,7 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
         if model is None:
             continue
         try:
-            indices, _ = capability_module._percentile_indices(model, spec.lsl, spec.usl)
+            indices, _ = _percentile_indices(model, spec.lsl, spec.usl)
         except StudyInputError:
             continue
         v = indices.get(key)
@@ -1665,7 +1673,7 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
             values[row.id] = float(v)
     if not values:
         return None
-    return capability_module.model_band(values, threshold)
+    return model_band(values, threshold)
 
 
 def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=None,

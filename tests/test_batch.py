@@ -10,6 +10,7 @@ bootstrap and quantile code is the generic route through scipy.stats frozen dist
 from __future__ import annotations
 
 import csv
+import importlib
 import io
 import json
 
@@ -23,9 +24,11 @@ from studykit.batch import BATCH_COLUMNS, NO_SPEC_NOTE, run_many
 from studykit.cli import main
 from studykit.data import read_measurements
 from studykit.errors import StudyInputError
-from studykit.stats import capability as cap
 from studykit.stats.fit import FAMILIES
 from studykit.study import Criteria, read_specs
+
+# the module (studykit.stats.capability as a package attribute is the function)
+cap = importlib.import_module("studykit.stats.capability")
 
 OPTIONS = AnalysisOptions(n_boot=100)
 N = 40

@@ -15,6 +15,7 @@ Sources of the expected values:
 
 from __future__ import annotations
 
+import importlib
 import json
 import os
 import resource
@@ -29,7 +30,6 @@ from studykit.analysis import AnalysisOptions, analyze_characteristic
 from studykit.cli import main
 from studykit.data import CharacteristicData
 from studykit.errors import AnalysisError
-from studykit.stats import capability as capability_module
 from studykit.stats._checks import check_resolution
 from studykit.stats.capability import capability
 from studykit.stats.transform import box_cox
@@ -175,6 +175,8 @@ def test_large_sample_bootstrap_is_rescaled(monkeypatch):
     x = np.random.default_rng(12).lognormal(0.5, 0.3, 4000)
     model = fit.FAMILIES["lognormal"].fit(x)
     full = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=1000)
+    # the module (studykit.stats.capability as a package attribute is the function)
+    capability_module = importlib.import_module("studykit.stats.capability")
     monkeypatch.setattr(capability_module, "BOOTSTRAP_FULL_N", 1000)
     sub = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=1000)
     assert any("samples of 1000 values" in n for n in sub.notes)

@@ -28,9 +28,8 @@ import tracemalloc
 
 import numpy as np
 
-from studykit.stats import capability as capability_module
 from studykit.stats import normality
-from studykit.stats.capability import effective_df_moving_range
+from studykit.stats.capability import capability, effective_df_moving_range
 from studykit.stats.charts import control_chart
 
 
@@ -41,7 +40,7 @@ def main(argv=None) -> int:
     args = ap.parse_args(argv)
     x = np.random.default_rng(2026).normal(10.0, 0.1, args.n)  # invented, seeded
     control_chart(x[:1000], kind="imr")  # warm up imports and caches
-    capability_module.capability(x[:1000], lsl=9.4, usl=10.6)
+    capability(x[:1000], lsl=9.4, usl=10.6)
     rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
     def run():
@@ -50,7 +49,7 @@ def main(argv=None) -> int:
         chart = control_chart(x, kind="imr", rules="nelson")
         steps.append(("I-MR chart + Nelson 1-8", time.perf_counter() - t))
         t = time.perf_counter()
-        cap = capability_module.capability(
+        cap = capability(
             x, lsl=9.4, usl=10.6, within_sigma=chart.within_sigma,
             df_within=effective_df_moving_range(x.size),
         )
