@@ -49,6 +49,7 @@ from studykit.stats.charts import (
     control_chart,
 )
 from studykit.stats.phase1 import MR_REMOVAL, ChartScale, Phase1Result, phase1
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "AnalysisOptions",
@@ -241,14 +242,6 @@ class AnalysisOptions:
             raise StudyInputError(
                 f"`subgroup_size` ({self.subgroup_size!r}) must be a whole number of at least 1."
             )
-
-
-def _f(v):
-    """JSON-safe float."""
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
 
 
 def _label(v):

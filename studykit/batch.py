@@ -30,6 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from studykit.errors import StudyInputError
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "BATCH_COLUMNS",
@@ -164,13 +165,6 @@ class BatchResult:
                 f"the summary file '{p.name}' has suffix '{p.suffix}': use .csv, .xlsx or .jsonl"
             )
         return p
-
-
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
 
 
 # ----------------------------------------------------------------------------- tasks

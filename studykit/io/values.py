@@ -13,6 +13,7 @@ from functools import cached_property
 import numpy as np
 
 from studykit.errors import DataFileError, StudyInputError
+from studykit.stats.result import json_float as _json_float
 
 #: Subgroups with more values than this are allowed but warned about (range charts lose
 #: efficiency; an S chart is the better choice). Common practice, no source.
@@ -25,11 +26,6 @@ def _frozen_array(a: np.ndarray | None) -> np.ndarray | None:
     a = np.asarray(a)
     a.flags.writeable = False
     return a
-
-
-def _json_float(x) -> float | None:
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 @dataclass(frozen=True, eq=False)

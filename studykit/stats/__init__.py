@@ -149,6 +149,7 @@ from studykit.stats.position import (
     ppm_index,
     prob_outside_circle,
 )
+from studykit.stats.result import Result, json_float
 from studykit.stats.rules import (
     LIMITS_ONLY,
     NELSON,
@@ -248,6 +249,7 @@ __all__ = [
     "johnson",
     "JOHNSON_Z_GRID",
     "JohnsonResult",
+    "json_float",
     "judge",
     "LIFE_TEST_WORDS",
     "LIMITS_ONLY",
@@ -301,6 +303,7 @@ __all__ = [
     "remove_gauge_variance",
     "REPEATABILITY",
     "REPRODUCIBILITY",
+    "Result",
     "ROW_FIELDS",
     "Rule",
     "RULE_IDS",

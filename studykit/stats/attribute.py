@@ -13,6 +13,7 @@ import numpy as np
 from scipy import stats
 
 from studykit.errors import AnalysisError, StudyInputError
+from studykit.stats.result import Result
 
 __all__ = [
     "AttributeCapability",
@@ -66,7 +67,7 @@ def _z(p):
 
 
 @dataclass(frozen=True)
-class AttributeCapability:
+class AttributeCapability(Result):
     """Defective rate, its exact confidence bounds, PPM and process Z.
 
     Attributes
@@ -306,7 +307,7 @@ def attribute_verdict(ac: AttributeCapability, *, threshold: float, basis: str =
 
 
 @dataclass(frozen=True)
-class DefectsPerUnit:
+class DefectsPerUnit(Result):
     """Defects per unit with an exact Poisson confidence interval.
 
     Attributes

@@ -43,6 +43,8 @@ from scipy import optimize, special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import NOISE_ULPS, check_resolution, check_sample
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _finite_or_none
 
 __all__ = [
     "TAIL_PROBABILITY",
@@ -379,7 +381,7 @@ def _bound_entry(bounds, method):
 
 
 @dataclass(frozen=True)
-class CapabilityResult:
+class CapabilityResult(Result):
     """Capability indices, confidence bounds and PPM for one characteristic.
 
     Attributes
@@ -1128,18 +1130,13 @@ def _block_quantiles(model, fid, block, shared):
     return q, ok
 
 
-def _finite_or_none(v):
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
 # --------------------------------------------------------------------------------------------
 # Verdict, findings, model band
 # --------------------------------------------------------------------------------------------
 
 
 @dataclass(frozen=True)
-class Verdict:
+class Verdict(Result):
     """Whether a capability requirement is met, in numbers and in words.
 
     Attributes
@@ -1289,7 +1286,7 @@ def judge(
 
 
 @dataclass(frozen=True)
-class Finding:
+class Finding(Result):
     """One plain-word observation about a capability result.
 
     Attributes
@@ -1417,7 +1414,7 @@ def diagnose(
 
 
 @dataclass(frozen=True)
-class ModelBand:
+class ModelBand(Result):
     """Range of one index over several candidate models.
 
     Attributes

@@ -42,6 +42,7 @@ import numpy as np
 from studykit.errors import AnalysisError, LargeSubgroupWarning, StudyInputError
 from studykit.stats import rules as rules_module
 from studykit.stats.constants import MAX_SUBGROUP_SIZE, c4, d2, d3
+from studykit.stats.result import Result
 
 __all__ = [
     "AUTO_R_MAX_SIZE",
@@ -173,7 +174,7 @@ def _rules_text(rules) -> str:
 
 
 @dataclass(frozen=True, eq=False)
-class ChartSeries:
+class ChartSeries(Result):
     """One plotted series with its per-point reference lines.
 
     Attributes
@@ -234,7 +235,7 @@ class ChartSeries:
 
 
 @dataclass(frozen=True)
-class OverdispersionCheck:
+class OverdispersionCheck(Result):
     """Laney's over-dispersion check for an attribute chart.
 
     Attributes
@@ -274,7 +275,7 @@ class OverdispersionCheck:
 
 
 @dataclass(frozen=True, eq=False)
-class ControlChart:
+class ControlChart(Result):
     """A computed control chart: both series, the sigma used and the reasons for each choice.
 
     Attributes

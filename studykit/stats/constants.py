@@ -22,6 +22,7 @@ import numpy as np
 from scipy import integrate, special
 
 from studykit.errors import StudyInputError
+from studykit.stats.result import Result
 
 __all__ = [
     "MAX_SUBGROUP_SIZE",
@@ -180,7 +181,7 @@ def c4(n: int) -> float:
 
 
 @dataclass(frozen=True)
-class ChartConstants:
+class ChartConstants(Result):
     """All factors for variables control charts at one subgroup size.
 
     Fields are the usual trade symbols: ``d2, d3, c4`` (from the definitions) and

@@ -67,6 +67,8 @@ from scipy import special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all", "ROW_FIELDS",
            "RANKING_RULE"]
@@ -781,15 +783,8 @@ def _clean(x, *, name="x", minimum=3) -> np.ndarray:
 # ---------------------------------------------------------------------------------------------
 # Results
 # ---------------------------------------------------------------------------------------------
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
 @dataclass(frozen=True)
-class FittedModel:
+class FittedModel(Result):
     """One distribution family fitted to one sample by maximum likelihood.
 
     Attributes
@@ -1395,7 +1390,7 @@ RANKING_RULE = ("AIC ascending among converged fits, then fits at a search limit
 
 
 @dataclass(frozen=True)
-class FitRow:
+class FitRow(Result):
     """One line of the ranking table (numbers None when the family could not be fitted).
 
     ``lrt_p_value`` compares a threshold variant with its two-parameter base (``lrt_against``):
@@ -1435,7 +1430,7 @@ ROW_FIELDS = ("rank", "id", "label", "n_params", "loglik", "aic", "bic", "ad_sta
 
 
 @dataclass(frozen=True)
-class Ranking:
+class Ranking(Result):
     """Result of :func:`fit_all`.
 
     Attributes

@@ -20,6 +20,8 @@ from scipy import stats
 
 from studykit.errors import AnalysisError, SpecError
 from studykit.stats import constants
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "APPRAISER",
@@ -88,7 +90,7 @@ FEW_PARTS_USUAL = 10
 # ----------------------------------------------------------------------------------------------
 # Result classes
 @dataclass(frozen=True)
-class AnovaRow:
+class AnovaRow(Result):
     """One row of the ANOVA table.
 
     ``f`` and ``p`` are None for the error rows and the total.
@@ -119,7 +121,7 @@ class AnovaRow:
 
 
 @dataclass(frozen=True)
-class VarianceComponent:
+class VarianceComponent(Result):
     """One variance component with its shares and a confidence interval on its sigma.
 
     ``lower``/``upper`` bound the standard deviation (not the variance); ``interval_df`` is the
@@ -168,7 +170,7 @@ class VarianceComponent:
 
 
 @dataclass(frozen=True)
-class RangeMethodEstimate:
+class RangeMethodEstimate(Result):
     """The average-and-range estimate (a second opinion beside the ANOVA).
 
     Sigmas: ``repeatability`` (EV), ``reproducibility`` (AV), ``gauge_rr`` (GRR), ``part``
@@ -213,7 +215,7 @@ class RangeMethodEstimate:
 
 
 @dataclass(frozen=True)
-class GaugeChartLimits:
+class GaugeChartLimits(Result):
     """Limits of the range chart and the mean chart drawn by appraiser.
 
     Range chart: centre ``range_centre`` = Rbar, ``range_ucl`` = D4 Rbar, ``range_lcl`` = D3 Rbar
@@ -249,7 +251,7 @@ class GaugeChartLimits:
 
 
 @dataclass(frozen=True)
-class GaugeVerdict:
+class GaugeVerdict(Result):
     """The plain-words verdict.
 
     ``status`` is one of "acceptable", "conditionally acceptable", "not acceptable" and is the
@@ -290,7 +292,7 @@ class GaugeVerdict:
 
 
 @dataclass(frozen=True)
-class GaugeResult:
+class GaugeResult(Result):
     """Everything a crossed gauge R&R study produced; see :func:`gauge_rr`."""
 
     n_parts: int
@@ -401,14 +403,6 @@ class GaugeResult:
 def _nan(x) -> float:
     """Back from JSON: null (a non-finite number on the way out) becomes NaN."""
     return math.nan if x is None else float(x)
-
-
-def _f(x) -> float | None:
-    """JSON-safe float: None for None/NaN/inf."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 # ----------------------------------------------------------------------------------------------

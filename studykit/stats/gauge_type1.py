@@ -26,6 +26,8 @@ import numpy as np
 from scipy import stats
 
 from studykit.errors import AnalysisError, SpecError
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "DEFAULT_K_PERCENT",
@@ -51,15 +53,8 @@ CAPABLE = "capable"
 NOT_CAPABLE = "not capable"
 
 
-def _f(x) -> float | None:
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
-
-
 @dataclass(frozen=True)
-class ShortGaugeResult:
+class ShortGaugeResult(Result):
     """Everything a short gauge study (one reference part) produced; see
     :func:`short_gauge_study`.
 

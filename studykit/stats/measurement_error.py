@@ -31,6 +31,8 @@ import numpy as np
 from scipy import special
 
 from studykit.errors import AnalysisError, SpecError
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "MAX_GAUGE_SHARE",
@@ -49,13 +51,6 @@ MAX_GAUGE_SHARE = 0.5
 
 MLS_METHOD = ("modified large-sample (MLS) interval for a difference of two variances "
               "(Ting et al. 1990; Burdick, Borror & Montgomery 2005)")
-
-
-def _f(x) -> float | None:
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 def _chi2_ppf(q, df):
@@ -148,7 +143,7 @@ def mls_difference_interval(s1, df1: float, s2, df2: float, *, confidence: float
 
 
 @dataclass(frozen=True)
-class SigmaWithoutGauge:
+class SigmaWithoutGauge(Result):
     """One observed sigma (within or overall) with the gauge variance taken out.
 
     Attributes
@@ -209,7 +204,7 @@ class SigmaWithoutGauge:
 
 
 @dataclass(frozen=True)
-class MeasurementErrorResult:
+class MeasurementErrorResult(Result):
     """Observed versus process-only capability; see :func:`remove_gauge_variance`.
 
     Attributes

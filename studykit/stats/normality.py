@@ -14,6 +14,7 @@ from scipy import special, stats
 
 from studykit.errors import StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.result import Result
 
 __all__ = [
     "PLOTTING_POSITIONS",
@@ -64,7 +65,7 @@ def _ad_pvalue(a2_star: float) -> float:
 
 
 @dataclass(frozen=True)
-class AndersonDarlingResult:
+class AndersonDarlingResult(Result):
     """Anderson-Darling test of normality (mean and variance estimated).
 
     Attributes
@@ -145,7 +146,7 @@ def anderson_darling(x) -> AndersonDarlingResult:
 
 
 @dataclass(frozen=True)
-class ShapiroWilkResult:
+class ShapiroWilkResult(Result):
     """Shapiro-Wilk test of normality.
 
     Attributes
@@ -245,7 +246,7 @@ def plotting_positions(n: int, *, positions: str = "blom") -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class ProbabilityPlot:
+class ProbabilityPlot(Result):
     """Coordinates of a normal probability plot with a confidence band.
 
     Attributes

@@ -34,6 +34,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from studykit.stats.result import Result
+
 __all__ = ["OrderCheck", "check_order", "TAU_SORTED", "ALPHA", "MIN_VALUES", "LIFE_TEST_WORDS"]
 
 #: |Kendall tau| between value and position at or above which a series counts as nearly sorted
@@ -52,7 +54,7 @@ LIFE_TEST_WORDS = (
 
 
 @dataclass(frozen=True)
-class OrderCheck:
+class OrderCheck(Result):
     """Outcome of :func:`check_order`.
 
     Attributes

@@ -46,6 +46,7 @@ from studykit.stats.charts import (
     control_chart,
     evaluate_series,
 )
+from studykit.stats.result import Result
 
 __all__ = [
     "Removal",
@@ -79,7 +80,7 @@ _NAMES = {
 
 
 @dataclass(frozen=True)
-class Removal:
+class Removal(Result):
     """One subgroup taken out of the phase-I limits.
 
     Attributes
@@ -122,7 +123,7 @@ class Removal:
 
 
 @dataclass(frozen=True, eq=False)
-class ChartScale:
+class ChartScale(Result):
     """The scale on which phase I charts the values (see ``phase1(..., rescale=...)``).
 
     Attributes
@@ -151,7 +152,7 @@ class ChartScale:
 
 
 @dataclass(frozen=True, eq=False)
-class Phase1Result:
+class Phase1Result(Result):
     """Outcome of the phase-I loop.
 
     Attributes

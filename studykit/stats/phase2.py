@@ -14,13 +14,14 @@ import csv
 import hashlib
 import io
 import json
-import math
 from dataclasses import asdict, dataclass, fields
 
 import numpy as np
 
 from studykit.errors import StudyFileError, StudyInputError
 from studykit.stats.charts import ATTRIBUTE_KINDS, ControlChart, _plain_label, control_chart
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = ["PLAN_FORMAT", "Phase2Plan", "MonitorResult", "freeze", "monitor", "chart_digest"]
 
@@ -41,15 +42,8 @@ def chart_digest(chart: ControlChart) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
 @dataclass(frozen=True)
-class Phase2Plan:
+class Phase2Plan(Result):
     """Frozen limits and rules for monitoring one characteristic.
 
     Attributes
@@ -160,7 +154,7 @@ class Phase2Plan:
 
 
 @dataclass(frozen=True, eq=False)
-class MonitorResult:
+class MonitorResult(Result):
     """New subgroups plotted against a frozen plan.
 
     Attributes

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from scipy import stats
 
 from studykit.errors import StudyInputError
+from studykit.stats.result import Result
 
 __all__ = ["DemonstrationPlan", "PlanTable", "parts_needed", "planning_table"]
 
@@ -68,7 +69,7 @@ def _bissell_closed_form(assumed, target, level):
 
 
 @dataclass(frozen=True)
-class DemonstrationPlan:
+class DemonstrationPlan(Result):
     """Number of parts for a capability demonstration.
 
     Attributes
@@ -201,7 +202,7 @@ def parts_needed(
 
 
 @dataclass(frozen=True)
-class PlanTable:
+class PlanTable(Result):
     """Parts needed for several assumed indices and targets.
 
     Attributes

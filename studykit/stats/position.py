@@ -31,6 +31,8 @@ from scipy import integrate, special, stats
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = ["ELLIPSE_LEVEL", "PositionResult", "prob_outside_circle", "ppm_index",
            "position_study"]
@@ -38,13 +40,6 @@ __all__ = ["ELLIPSE_LEVEL", "PositionResult", "prob_outside_circle", "ppm_index"
 #: Probability content of the fitted ellipse drawn and reported: 99.73 %, the content of
 #: +/- 3 sigma in one dimension (common practice, no source).
 ELLIPSE_LEVEL = 0.9973
-
-
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
 
 
 def _readonly(a: np.ndarray) -> np.ndarray:
@@ -146,7 +141,7 @@ def ppm_index(p: float) -> float | None:
 
 
 @dataclass(frozen=True, eq=False)
-class PositionResult:
+class PositionResult(Result):
     """Positional capability of (dx, dy) against a true-position zone of diameter T.
 
     Attributes

@@ -111,6 +111,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from studykit.errors import StudyInputError
+from studykit.stats.result import Result
 
 __all__ = [
     "LIMITS_ONLY",
@@ -206,7 +207,7 @@ def _describe(rid: str, p: dict) -> str:
 
 
 @dataclass(frozen=True)
-class Rule:
+class Rule(Result):
     """One run rule with its parameters.
 
     Build rules with the class methods (``Rule.run(length=8)``), from text with
@@ -375,7 +376,7 @@ RULE_SETS: dict[str, tuple[Rule, ...]] = {
 
 
 @dataclass(frozen=True)
-class Signal:
+class Signal(Result):
     """One pattern found by a run rule.
 
     Attributes

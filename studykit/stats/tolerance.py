@@ -46,6 +46,8 @@ from scipy import optimize, special, stats
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = [
     "TWO_SIDED_METHODS",
@@ -75,13 +77,6 @@ _T = 0.5 * _T_MAX * (_GL_NODES + 1.0)
 _W = 0.5 * _T_MAX * _GL_WEIGHTS * np.sqrt(2.0 / np.pi) * np.exp(-0.5 * _T**2)
 #: Largest sample size searched by the sample-size functions.
 MAX_PARTS = 100_000
-
-
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
 
 
 def _level(value, name: str) -> float:
@@ -557,7 +552,7 @@ def normal_sample_size(p: float, c: float, *, mean: float, sd: float, lsl: float
 
 
 @dataclass(frozen=True)
-class SampleSizePlan:
+class SampleSizePlan(Result):
     """Parts needed for the "at least P % within specification with C % confidence" criterion.
 
     Attributes
@@ -585,7 +580,7 @@ class SampleSizePlan:
 
 
 @dataclass(frozen=True)
-class ToleranceInterval:
+class ToleranceInterval(Result):
     """A (P, C) statistical tolerance interval and, with limits, the acceptance decision.
 
     Attributes

@@ -15,6 +15,8 @@ from scipy import optimize, special, stats
 
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.result import Result
+from studykit.stats.result import json_float as _f
 
 __all__ = ["BoxCoxResult", "JohnsonResult", "box_cox", "johnson", "NICE_LAMBDAS",
            "JOHNSON_Z_GRID"]
@@ -34,13 +36,6 @@ def _clean(x, *, name="x", minimum=3) -> np.ndarray:
         zero_spread="no transformation can be estimated. Check the gauge resolution or the data "
                     "import.",
     )
-
-
-def _f(v):
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -124,7 +119,7 @@ def _boxcox_backward(y: np.ndarray, lam: float) -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class BoxCoxResult:
+class BoxCoxResult(Result):
     """Result of :func:`box_cox`.
 
     Attributes
@@ -520,7 +515,7 @@ def _johnson_backward(zv, kind, gamma, eta, eps, lam):
 
 
 @dataclass(frozen=True)
-class JohnsonResult:
+class JohnsonResult(Result):
     """Result of :func:`johnson`: z = gamma + eta * f((x - epsilon)/lambda).
 
     Attributes
