@@ -23,6 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from scipy import special
 
+from studykit import names
 from studykit.errors import AnalysisError, StudyInputError, StudyWarning, printable
 from studykit.stats import attribute as attribute_module
 from studykit.stats import capability as capability_module
@@ -663,7 +664,7 @@ def _df_within(chart: ControlChart) -> float | None:
 
 def _criteria_dict(criteria) -> dict:
     if criteria is None:
-        return {"index": "ppk", "threshold": 1.67, "basis": "lower_bound", "confidence": 0.95}
+        return dict(names.DEFAULT_CRITERION)
     return {
         "index": criteria.index,
         "threshold": float(criteria.threshold),
@@ -1224,7 +1225,7 @@ def analyze_characteristic(
     if options.confidence is not None:
         level = float(options.confidence)
     else:
-        level = float(0.95 if criteria is None else crit["confidence"])
+        level = float(names.DEFAULT_CONFIDENCE if criteria is None else crit["confidence"])
     cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
     unit = data.unit if data.unit else (spec.unit if spec is not None else None)
 
@@ -1401,7 +1402,9 @@ def _signal_summary(chart: ControlChart) -> str:
             continue
         for sig in series.signals:
             labels = [str(_label(chart.labels[int(p)])) for p in sig.triggers or (sig.trigger,)]
-            parts.append(f"{sig.rule} on the {name} chart at subgroup(s) {', '.join(labels[:6])}"
+            parts.append(f"{names.rule_label(sig.rule)} on the "
+                         f"{names.chart_part_label(chart.kind, name)} at subgroup(s) "
+                         f"{', '.join(labels[:6])}"
                          + (" ..." if len(labels) > 6 else ""))
     return "; ".join(parts[:5]) + (f"; and {len(parts) - 5} more" if len(parts) > 5 else "")
 
@@ -1520,7 +1523,7 @@ def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
     return findings, verdict
 
 
-_PRETTY_INDEX = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+_PRETTY_INDEX = names.INDEX_LABELS
 
 #: Finding codes that withhold the verdict besides ``order_*`` (see ``_withheld_findings``).
 _WITHHOLDING_CODES = ("heavy_auto_removal", "too_few_after_removal")

@@ -26,6 +26,7 @@ from datetime import UTC, datetime
 from types import MappingProxyType
 from typing import Any
 
+from studykit import names
 from studykit.errors import SpecError, StudyFileError, StudyInputError
 
 __all__ = [
@@ -381,10 +382,10 @@ class Criteria:
     'Cpk lower 95% bound >= 1.33'
     """
 
-    index: str = "ppk"
-    threshold: float = 1.67
-    basis: str = "lower_bound"
-    confidence: float = 0.95
+    index: str = names.DEFAULT_CRITERION["index"]
+    threshold: float = names.DEFAULT_CRITERION["threshold"]
+    basis: str = names.DEFAULT_CRITERION["basis"]
+    confidence: float = names.DEFAULT_CRITERION["confidence"]
 
     def __post_init__(self):
         index = _text(self.index, name="index", error=SpecError).strip().lower()
@@ -408,7 +409,7 @@ class Criteria:
 
     def describe(self) -> str:
         """One line for a table, e.g. ``Ppk lower 95% bound >= 1.67``."""
-        label = self.index[0].upper() + self.index[1:]
+        label = names.index_label(self.index)
         if self.basis == "lower_bound":
             return f"{label} lower {self.confidence * 100:g}% bound >= {self.threshold:g}"
         return f"{label} >= {self.threshold:g}"
