@@ -51,6 +51,11 @@ __all__ = [
     "model_list",
     "raw_ids",
     "rule_label",
+    "rule_set_label",
+    "action_label",
+    "ACTIONS",
+    "GAUGE_TOTAL",
+    "finding_title",
     "value_digits",
     "verdict_label",
     "verdict_state",
@@ -193,6 +198,16 @@ RULE_SETS: Mapping[str, str] = {
 }
 
 
+def rule_set_label(rules) -> str:
+    """The run rules in force, in words: ``"nelson"`` -> ``"Nelson rules"``; any other
+    specification (``"1,2,5"``, ``"beyond_limits,run"``) -> ``"run rules: ..."`` in words."""
+    text = str(rules)
+    if text in RULE_SETS:
+        return RULE_SETS[text]
+    parts = [RULE_LABELS.get(p.strip(), p.strip()) for p in text.split(",") if p.strip()]
+    return "run rules: " + "; ".join(parts)
+
+
 def rule_label(rule: str) -> str:
     """``"beyond_limits"`` -> ``"point beyond the control limits"``."""
     return RULE_LABELS.get(rule, str(rule).replace("_", " "))
@@ -262,6 +277,32 @@ ROLES: Mapping[str, str] = {"prepared": "Prepared by", "reviewed": "Reviewed by"
 DECISIONS: Mapping[str, str] = {"approve": "Approves", "reject": "Rejects",
                                 "comment": "Comment only"}
 
+#: Recorded decision (audit) action id -> what it says (ours). One verb for taking a subgroup
+#: out of the analysis: "remove" (the removal log; "restore" undoes it).
+ACTIONS: Mapping[str, str] = {
+    "exclude": "remove subgroup",
+    "restore": "restore subgroup",
+    "set_spec": "set specification",
+    "set_criteria": "set criterion",
+    "set_model": "set model",
+    "set_chart": "set chart",
+    "keep_signal": "keep signal",
+    "reopen_signal": "reopen signal",
+    "note": "note",
+    "signoff": "sign-off",
+    "void_signoff": "void sign-off",
+    "waive_verdict": "waive verdict",
+}
+
+
+def action_label(action: str) -> str:
+    """``"exclude"`` -> ``"remove subgroup"``."""
+    return ACTIONS.get(action, str(action).replace("_", " "))
+
+
+#: The gauge total (repeatability and reproducibility together): one name everywhere.
+GAUGE_TOTAL = "Gauge R&R"
+
 # ----------------------------------------------------------------------------- workbook
 
 #: Workbook step key -> step name (ours).
@@ -314,7 +355,7 @@ def finding_title(code: str) -> str:
 #: The verdict states, one name each on every surface (ours).
 VERDICT_STATES: Mapping[str, str] = {
     "meets": "Meets",
-    "not_demonstrated": "Not demonstrated: more data needed",
+    "not_demonstrated": "More data needed",
     "does_not_meet": "Does not meet",
     "no_verdict_not_in_control": "No verdict: not in control",
     "no_verdict_no_spec": "No verdict: no specification limit",
