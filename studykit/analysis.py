@@ -907,10 +907,10 @@ def _withhold(verdict, withheld: tuple):
                            "share")
         elif f.code == "too_few_after_removal":
             reasons.append("automatic phase I left too few values")
-    if verdict.meets is None and verdict.text.startswith("Not judged"):
-        text = verdict.text + f" Not judged either because {'; '.join(reasons)}."
+    if verdict.meets is None and verdict.text.startswith("No verdict"):
+        text = verdict.text + f" No verdict either because {'; '.join(reasons)}."
     else:
-        text = (f"Not judged: {'; '.join(reasons)} (see the findings). For information only, "
+        text = (f"No verdict: {'; '.join(reasons)} (see the findings). For information only, "
                 f"{name} would be {est} with lower {verdict.level:.0%} bound {low} against the "
                 f"required {verdict.threshold:g}.")
     return replace(verdict, meets=None, text=text)
@@ -1437,7 +1437,7 @@ def _not_in_control(chart: ControlChart, verdict):
     est = "-" if verdict.estimate is None else f"{verdict.estimate:.2f}"
     low = "-" if verdict.lower_bound is None else f"{verdict.lower_bound:.2f}"
     name = _PRETTY_INDEX.get(verdict.index, verdict.index)
-    text = (f"Not judged: {len(beyond)} point(s) still lie beyond the control limits of the "
+    text = (f"No verdict: {len(beyond)} point(s) still lie beyond the control limits of the "
             f"final chart, so the process is not shown to be in statistical control. For "
             f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
             f"against the required {verdict.threshold:g}.")
@@ -1624,7 +1624,7 @@ def _measurement_error(gauge, *, mean, within, df_within, overall, n, spec, leve
 def gauge_results(study_file) -> dict:
     """Latest stored gauge R&R payload per characteristic of a study file (kind "gauge_rr")."""
     out: dict = {}
-    for r in study_file.results("gauge_rr"):
+    for r in study_file.results(names.GAUGE_RR_KIND):
         if r.characteristic:
             out[r.characteristic] = r.payload
     return out

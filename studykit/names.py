@@ -52,6 +52,9 @@ __all__ = [
     "raw_ids",
     "rule_label",
     "rule_set_label",
+    "GAUGE_RR_KIND",
+    "GAUGE_SHORT_KIND",
+    "result_kind_label",
     "action_label",
     "ACTIONS",
     "GAUGE_TOTAL",
@@ -117,11 +120,18 @@ def criterion_text(index: str, threshold: float) -> str:
     return f"{index_label(index)} >= {float(threshold):g}"
 
 
-#: What the JSON field ``kind`` of a result says, in words.
+#: Kind id of a result kept beside a study (``studykit gauge --study``) -> its name (ours).
+GAUGE_RR_KIND = "gauge_rr"
+GAUGE_SHORT_KIND = "gauge_short"
 RESULT_KINDS: Mapping[str, str] = {
-    "variables": "measured values",
-    "attribute": "counted data",
+    GAUGE_RR_KIND: "gauge R&R study",
+    GAUGE_SHORT_KIND: "short gauge study",
 }
+
+
+def result_kind_label(kind: str) -> str:
+    """``"gauge_rr"`` -> ``"gauge R&R study"``."""
+    return RESULT_KINDS.get(kind, f"{str(kind).replace('_', ' ')} result")
 
 # ----------------------------------------------------------------------------- charts
 

@@ -36,7 +36,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from studykit import __version__
+from studykit import __version__, names
 from studykit.errors import StudyFileError, StudyInputError
 from studykit.study import (
     Characteristic,
@@ -1425,7 +1425,8 @@ class StudyFile:
                 study.characteristic(characteristic)
             on = f" to '{characteristic}'" if characteristic else ""
             if study.is_locked:
-                voids = study._check_lock(f"attaching a {kind} result{on}", override_lock,
+                voids = study._check_lock(f"attaching a {names.result_kind_label(kind)}{on}",
+                                          override_lock,
                                           override_reason, who)
                 self._insert_decisions(conn, voids)
             at = now_utc()
@@ -1433,7 +1434,8 @@ class StudyFile:
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
                 "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
             )
-            self._audit(conn, who=who, what=f"attach {kind} result{on}", why=reason or "",
+            self._audit(conn, who=who, what=f"attach {names.result_kind_label(kind)}{on}",
+                        why=reason or "",
                         detail={"result_id": cur.lastrowid})
             return cur.lastrowid
 

@@ -1073,13 +1073,14 @@ class Study:
         if not override_lock:
             raise StudyFileError(
                 f"the study is approved (by {holder.name} on {holder.when}) and therefore locked: "
-                f"{what} would change it. To change it anyway pass override_lock=True with a "
-                "reason (`--override-lock REASON` on the command line); this voids the "
-                "approval, which stays on record as voided"
+                f"{what} would change it. To change it anyway, run the command again with "
+                "--override-lock REASON (in Python: override_lock=True, override_reason=...); "
+                "this voids the approval, which stays on record as voided"
             )
         if not (override_reason or "").strip():
             raise StudyFileError(
-                f"overriding the lock for {what} needs a non-empty reason (`override_reason`)"
+                f"overriding the lock for {what} needs a non-empty reason (--override-lock "
+                "REASON)"
             )
         voids = []
         for st in self.signoff_state():

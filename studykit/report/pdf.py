@@ -51,7 +51,7 @@ SIGNATURE_ROLES = ("prepared", "reviewed", "approved")
 #: Document-information key holding the signature boxes (JSON: role -> [page, x1, y1, x2, y2]).
 BOXES_KEY = "/StudykitSignatureBoxes"
 #: Gauge results are stored under this kind by ``studykit gauge --study``.
-GAUGE_KIND = "gauge_rr"
+GAUGE_KIND = names.GAUGE_RR_KIND
 
 #: The methods used and their published sources (collected from the docstrings of
 #: studykit.stats); printed in the appendix.

@@ -36,7 +36,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
-from studykit import theme
+from studykit import names, theme
 from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import DataFileError, StudyInputError
@@ -60,9 +60,9 @@ __all__ = [
     "read_reference_upload",
 ]
 
-GAUGE_KIND = "gauge_rr"
+GAUGE_KIND = names.GAUGE_RR_KIND
 #: Kind of a stored short gauge study (one reference part measured repeatedly).
-SHORT_KIND = "gauge_short"
+SHORT_KIND = names.GAUGE_SHORT_KIND
 
 #: Gauge verdict status -> theme verdict key (colour, symbol) and the word on the chip.
 STATUS_KIND = {
@@ -304,7 +304,7 @@ def _headers(path: Path) -> list[str]:
 
 
 def _chip(status: str | None) -> str:
-    kind, word = STATUS_KIND.get(status or "", ("pending", "Not judged"))
+    kind, word = STATUS_KIND.get(status or "", ("pending", names.VERDICT_STATES["no_verdict"]))
     v = theme.VERDICTS[kind]
     return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
             f'border-color:{v.color}">{v.symbol} {esc(word)}</span>')
@@ -483,7 +483,7 @@ def short_study_html(payload: Mapping, *, who: str | None = None, when: str | No
     True
     """
     v = payload.get("verdict") if isinstance(payload.get("verdict"), Mapping) else {}
-    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", "Not judged"))
+    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", names.VERDICT_STATES["no_verdict"]))
     verdict = theme.VERDICTS[kind]
     chip = (f'<span class="sk-chip" style="color:{verdict.text_color};background:'
             f'{verdict.background};border-color:{verdict.color}">{verdict.symbol} '

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.study import SIGNOFF_ROLES
@@ -100,7 +101,7 @@ def open_verdicts_html(open_: dict) -> str:
     if not open_:
         return ""
     rows = "".join(f"<li><b>{esc(n)}</b>: {esc(w)}</li>" for n, w in open_.items())
-    if all(w == "not analysed yet" for w in open_.values()):
+    if all(w == names.VERDICT_STATES["not_analysed"] for w in open_.values()):
         return ('<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
                 "known once every characteristic is analysed (<i>Analyse all "
                 "characteristics</i> in the overview, or an approval, does it).</div>")
