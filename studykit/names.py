@@ -52,6 +52,10 @@ __all__ = [
     "raw_ids",
     "rule_label",
     "rule_set_label",
+    "role_label",
+    "decision_label",
+    "SIGNOFF_VALID",
+    "SIGNOFF_VOIDED",
     "GAUGE_RR_KIND",
     "GAUGE_SHORT_KIND",
     "result_kind_label",
@@ -281,17 +285,29 @@ def model_list(models) -> str:
 # ----------------------------------------------------------------------------- sign-off
 
 #: Sign-off role id -> name (ours).
-ROLES: Mapping[str, str] = {"prepared": "Prepared by", "reviewed": "Reviewed by",
-                            "approved": "Approved by"}
+ROLES: Mapping[str, str] = {"prepared": "Author", "reviewed": "Reviewer",
+                            "approved": "Approver"}
 #: Sign-off decision id -> name (ours).
-DECISIONS: Mapping[str, str] = {"approve": "Approves", "reject": "Rejects",
+DECISIONS: Mapping[str, str] = {"approve": "Approve", "reject": "Reject",
                                 "comment": "Comment only"}
+#: Whether a sign-off still covers the study as it is now (ours): one word each.
+SIGNOFF_VALID, SIGNOFF_VOIDED = "Valid", "Voided"
+
+
+def role_label(role: str) -> str:
+    """``"reviewed"`` -> ``"Reviewer"``; a role typed by a person comes back unchanged."""
+    return ROLES.get(role, role)
+
+
+def decision_label(decision: str) -> str:
+    """``"approve"`` -> ``"Approve"``."""
+    return DECISIONS.get(decision, decision)
 
 #: Recorded decision (audit) action id -> what it says (ours). One verb for taking a subgroup
 #: out of the analysis: "remove" (the removal log; "restore" undoes it).
 ACTIONS: Mapping[str, str] = {
-    "exclude": "remove subgroup",
-    "restore": "restore subgroup",
+    "exclude": "remove",
+    "restore": "restore",
     "set_spec": "set specification",
     "set_criteria": "set criterion",
     "set_model": "set model",

@@ -9,6 +9,16 @@ from studykit import names
 from studykit.errors import StudyInputError
 
 
+def _chart_arg(text: str) -> str:
+    """``--chart``: any accepted spelling (xbar-r, xbar_r, X-bar-R) as the hyphenated id."""
+    import argparse
+
+    try:
+        return names.chart_kind_id(text).replace("_", "-")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def register(sub) -> None:
     p = sub.add_parser(
         "analyze",
@@ -32,8 +42,9 @@ def register(sub) -> None:
     g.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
     p.add_argument(
         "--chart",
-        choices=["auto", "xbar-r", "xbar-s", "imr", "p", "np", "c", "u"],
-        help="chart kind (default: auto, from the subgroup size)",
+        type=_chart_arg, metavar="KIND",
+        help="chart kind: auto, xbar-r, xbar-s, imr, p, np, c or u (xbar_r and X-bar-R are "
+        "accepted too; default: auto, from the subgroup size)",
     )
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
     p.add_argument("--phase1", choices=["auto", "off"], default=None,

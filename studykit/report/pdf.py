@@ -1131,12 +1131,14 @@ def _signoff_section(story, number, study, st, width, boxes):
     story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
     states = study.signoff_state()
     if states:
-        rows = [["Role", "Name", "Decision", "When", "Comment", "Valid now?"]]
+        rows = [["Role", "Name", "Decision", "When", "Comment", "State"]]
         for s in states:
             so = s.signoff
-            rows.append([_esc(so.role), _esc(so.name), _esc(so.decision), _when(so.when),
+            rows.append([_esc(names.role_label(so.role)), _esc(so.name),
+                         _esc(names.decision_label(so.decision)), _when(so.when),
                          _esc(so.comment or "–"),
-                         "yes" if s.valid else f"<b>no</b> - {_esc(s.why)}"])
+                         names.SIGNOFF_VALID if s.valid
+                         else f"<b>{names.SIGNOFF_VOIDED}</b> - {_esc(s.why)}"])
         story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
                             styles=st))
         _signoff_digests(story, study, states, width, st)

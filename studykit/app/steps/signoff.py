@@ -19,7 +19,7 @@ from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.study import SIGNOFF_ROLES
 
-_DECISIONS = [("Approve", "approve"), ("Reject", "reject"), ("Comment only", "comment")]
+_DECISIONS = [(names.decision_label(d), d) for d in ("approve", "reject", "comment")]
 
 
 def _when(text: str) -> str:
@@ -61,12 +61,13 @@ def signoffs_html(session) -> str:
     for st in states:
         s = st.signoff
         cls = "" if st.valid else ' class="sk-voided"'
-        state = (verdict_chip(True, text="Holds") if st.valid
-                 else verdict_chip(False, text="Voided"))
+        state = (verdict_chip(True, text=names.SIGNOFF_VALID) if st.valid
+                 else verdict_chip(False, text=names.SIGNOFF_VOIDED))
         match = ("matches the study now" if s.digest == current
                  else "differs from the study now")
-        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(s.role)}</td>"
-                    f"<td{cls}>{esc(s.decision)}</td><td{cls}>{esc(s.comment)}</td>"
+        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(names.role_label(s.role))}"
+                    f"</td><td{cls}>{esc(names.decision_label(s.decision))}</td>"
+                    f"<td{cls}>{esc(s.comment)}</td>"
                     f"<td{cls}>{_when(s.when)}</td>"
                     f'<td><code class="sk-digest" title="{esc(s.digest)}">{esc(s.digest[:12])}'
                     f'</code><div class="sk-small">{match}</div></td><td>{state}'
