@@ -318,6 +318,7 @@ ACTIONS: Mapping[str, str] = {
     "signoff": "sign-off",
     "void_signoff": "void sign-off",
     "waive_verdict": "waive verdict",
+    "set_signoff_rules": "change sign-off rules",
 }
 
 

@@ -346,7 +346,8 @@ def run_keep(args) -> int:
                               f"kept (by {d.who} on {d.when}: {d.reason})")
     sf.apply(lambda s: s.keep_signal(name, label, rule=rule, reason=args.reason, who=who,
                                      **_lock_kw(args)))
-    print(f"kept the {rule} signal at subgroup {label} of '{name}' (reviewed, with reason)")
+    print(f"kept the signal ({names.rule_label(rule)}) at subgroup {label} of '{name}' (reviewed, "
+          "with reason)")
     return 0
 
 

@@ -39,8 +39,10 @@ def lock_html(session) -> str:
                    "field at the top of the panel: the change then voids the approval, which "
                    "stays on record as voided.</div>")
     if voided:
-        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> ({esc(st.signoff.role)}, "
-                        f"{esc(st.signoff.decision)}, {_when(st.signoff.when)}): "
+        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> "
+                        f"({esc(names.role_label(st.signoff.role))}, "
+                        f"{esc(names.decision_label(st.signoff.decision))}, "
+                        f"{_when(st.signoff.when)}): "
                         f"{esc(st.why)}</li>" for st in voided)
         out.append('<div class="sk-void sk-voided-banner"><b>✗ Sign-off voided.</b> The study '
                    "changed after these sign-offs, so they no longer hold and the study must be "
