@@ -1036,8 +1036,11 @@ class StudyFile:
                characteristics: Iterable[Characteristic] | Mapping[str, Characteristic] = (),
                criteria: Mapping[str, Criteria] | None = None, who: str = "",
                overwrite: bool = False,
-               extra_files: Iterable[tuple[str, bytes]] = ()) -> StudyFile:
+               extra_files: Iterable[tuple[str, bytes]] = (),
+               when: str | None = None) -> StudyFile:
         """Create a new study file holding ``data`` and the first specifications.
+
+        ``when`` (ISO 8601 UTC, default now) is the time of the creation entry.
 
         The file is built under a temporary name beside ``path`` and moved into place only when
         complete, so a crash never leaves a half-made study file. An existing file is refused
@@ -1070,7 +1073,7 @@ class StudyFile:
             conn.execute("BEGIN IMMEDIATE")
             _apply_migrations(conn, 0)
             _chain_begin(conn, claim_existing=True)
-            at = now_utc()
+            at = when or now_utc()
             who = (who or "").strip() or "unknown"
             meta = {"title": study.title, "part": study.part, "supplier": study.supplier,
                     "created_at": at, "created_by": who, "created_with": f"studykit {__version__}"}
@@ -1410,8 +1413,11 @@ class StudyFile:
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
                       *, who: str, override_lock: bool = False,
-                      override_reason: str | None = None, reason: str = "") -> int:
+                      override_reason: str | None = None, reason: str = "",
+                      when: str | None = None) -> int:
         """Keep a result beside the study (e.g. ``kind="gauge_rr"``); returns its id.
+
+        ``when`` (ISO 8601 UTC, default now) is the time it was attached.
 
         ``reason`` (why it is attached) goes into the audit log's "why".
 
@@ -1437,13 +1443,13 @@ class StudyFile:
                                           override_lock,
                                           override_reason, who)
                 self._insert_decisions(conn, voids)
-            at = now_utc()
+            at = when or now_utc()
             cur = conn.execute(
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
                 "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
             )
             self._audit(conn, who=who, what=f"attach {names.result_kind_label(kind)}{on}",
-                        why=reason or "",
+                        why=reason or "", when=at,
                         detail={"result_id": cur.lastrowid})
             return cur.lastrowid
 

@@ -251,3 +251,30 @@ def test_every_model_family_has_its_name_here():
     assert ids, "no family ids found in studykit.stats.fit"
     missing = sorted(i for i in ids if i not in names.MODEL_LABELS)
     assert not missing, missing
+
+
+# ----------------------------------------------------------------------------- timestamps
+
+
+def test_pdf_creation_date_is_the_studys_own_time(pdf_path):
+    # the demo's latest recorded event is L. Haverkamp's comment at 2026-03-03T10:05:00Z
+    info = PdfReader(str(pdf_path)).metadata
+    assert info["/CreationDate"].startswith("D:20260303100500"), info["/CreationDate"]
+
+
+def test_one_clock_per_decision(tmp_path):
+    from studykit.store import StudyFile
+
+    path = tmp_path / "s.study"
+    shutil.copy(DEMO, path)
+    sf = StudyFile(path)
+    sf.exclude("bore_diameter", "5", reason="setup part", who="A. Tester")
+    study = sf.load()
+    decision = study.decisions[-1]
+    entry = sf.audit_log()[-1]
+    assert entry.what == "remove subgroup 5 of 'bore_diameter'"
+    assert entry.when == decision.when  # the removal log and the audit log agree
+    # and in the demo study itself
+    demo = StudyFile(DEMO)
+    by_time = {e.when for e in demo.audit_log()}
+    assert all(d.when in by_time for d in demo.load().decisions)

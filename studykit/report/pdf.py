@@ -511,14 +511,40 @@ class _SignatureBoxes:
         return Boxes()
 
 
-def _numbered_canvas(footer_left: str, header: str):
+def _pdf_timestamp(when: str):
+    """A reportlab time stamp at ``when`` (ISO 8601 UTC) for the PDF's creation date: the
+    study's own time (its latest decision, comment or sign-off), so the same study gives the
+    same bytes; None when the study records no time (reportlab's fixed date then)."""
+    import calendar
+    import datetime as dt
+
+    from reportlab.lib.utils import TimeStamp
+
+    try:
+        moment = dt.datetime.fromisoformat(str(when).replace("Z", "+00:00"))
+    except ValueError:
+        return None
+    if moment.tzinfo is not None:
+        moment = moment.astimezone(dt.UTC)
+    stamp = TimeStamp(1)
+    stamp.t = calendar.timegm(moment.timetuple())
+    stamp.lt = tuple(moment.timetuple())
+    stamp.YMDhms = stamp.lt[:6]
+    return stamp
+
+
+def _numbered_canvas(footer_left: str, header: str, when: str = ""):
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
+
+    stamp = _pdf_timestamp(when) if when else None
 
     class NumberedCanvas(canvas.Canvas):
         def __init__(self, *args, **kwargs):
             kwargs["invariant"] = 1
             super().__init__(*args, **kwargs)
+            if stamp is not None:  # the study's time, not reportlab's fixed 2000-01-01
+                self._doc._timeStamp = stamp
             self._saved = []
 
         def showPage(self):
@@ -1270,7 +1296,8 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
         author="studykit", subject=f"content digest {study.content_digest()}",
         creator=f"studykit {__version__}", invariant=1,
     )
-    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
+                                                  when=_last_time(study)))
     return buf.getvalue(), boxes
 
 

@@ -95,7 +95,7 @@ _SOURCE_NAMES = {
     "appraiser_by_part": "Appraiser × part", "repeatability": "Repeatability (error)",
     "total": "Total",
 }
-_BANDS_NOTE = ("Bands: %GRR below 10 % acceptable, 10 to 30 % conditionally acceptable, above "
+_BANDS_NOTE = (f"Bands: {names.GAUGE_TOTAL} below 10 % of the study variation acceptable, 10 to 30 % conditionally acceptable, above "
                "30 % not acceptable; at least 5 distinct categories. These are common practice: "
                "the customer's rule governs.")
 
@@ -341,8 +341,9 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
     ndc_text = "—" if ndc is None else str(ndc)
     if v.get("ndc_ok") is False:
         ndc_text += " (below 5)"
-    facts = [("%GRR of study variation", _pct(v.get("pct_grr_study_variation"))),
-             ("%GRR of tolerance", _pct(v.get("pct_grr_tolerance"))
+    facts = [(f"{names.GAUGE_TOTAL}, share of study variation",
+              _pct(v.get("pct_grr_study_variation"))),
+             (f"{names.GAUGE_TOTAL}, share of tolerance", _pct(v.get("pct_grr_tolerance"))
               if payload.get("tolerance") is not None else "no tolerance given"),
              ("Distinct categories (ndc)", ndc_text),
              ("Design", f"{payload.get('n_parts', '?')} parts × "
@@ -447,7 +448,7 @@ def range_method_html(payload: Mapping) -> str:
         return ""
     sigmas = [("Repeatability (EV)", r.get("repeatability")),
               ("Reproducibility (AV)", r.get("reproducibility")),
-              ("Gauge R&R (GRR)", r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
+              (names.GAUGE_TOTAL, r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
               ("Total (TV)", r.get("total"))]
     cells = "".join(f"<tr><td>{esc(k)}</td><td class=\"num\">{fmt(v, 5)}</td></tr>"
                     for k, v in sigmas)
@@ -457,7 +458,8 @@ def range_method_html(payload: Mapping) -> str:
     return ('<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
             '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
             f"<th>Sigma</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
-            f'<div class="sk-small">%GRR of study variation {_pct(r.get("pct_study_variation"))}'
+            f'<div class="sk-small">{names.GAUGE_TOTAL}, share of study variation '
+            f'{_pct(r.get("pct_study_variation"))}'
             f' (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get("pct_tolerance"))}, '
             f'ndc {esc(r.get("ndc"))}. K1 = {fmt(r.get("k1"), 4)}, K2 = {fmt(r.get("k2"), 4)}, '
             f'K3 = {fmt(r.get("k3"), 4)}.{zero} The ANOVA figures above decide; this estimate '
