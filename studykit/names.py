@@ -334,14 +334,14 @@ GAUGE_TOTAL = "Gauge R&R"
 
 #: Workbook step key -> step name (ours).
 STEP_NAMES: Mapping[str, str] = {
-    "intake": "Data",
-    "measuring": "Gauge",
-    "limits": "Specification",
+    "intake": "Bring in data",
+    "limits": "Specification & criterion",
+    "measuring": "Gauge check",
     "stability": "Stability",
     "shape": "Shape",
     "capability": "Capability",
-    "signoff": "Sign-off",
-    "export": "Report",
+    "signoff": "Review & sign",
+    "export": "Evidence & hand-off",
 }
 
 # ----------------------------------------------------------------------------- findings

@@ -50,11 +50,23 @@ def _second_names(text: str) -> list[str]:
     return [n for n in SECOND_NAMES if n in text]
 
 
+#: British spelling in user text (the command ``studykit analyze`` keeps its name).
+_AMERICAN = re.compile(r"(?<!studykit )\b(analyz(?:e|ed|es|ing)|center(?:ed|s)?|colors?|"
+                       r"behaviors?|favou?rable|minimiz\w*|maximiz\w*|summariz\w*|"
+                       r"recogniz\w*)\b")
+
+
+def _american(text: str) -> list[str]:
+    return sorted({m.group(0) for m in _AMERICAN.finditer(text)} - {"favourable"})
+
+
 def _check(text: str, surface: str) -> None:
     hits = _raw_hits(text)
     assert not hits, f"raw ids on the {surface}:\n" + "\n".join(hits[:20])
     twice = _second_names(text)
     assert not twice, f"second names on the {surface}: {twice}"
+    us = _american(text)
+    assert not us, f"American spelling on the {surface}: {us}"
 
 
 def _widget_texts(w, out: list) -> list:

@@ -187,7 +187,7 @@ class CapabilityStep:
     """Step "Capability" (key ``capability``)."""
 
     key = "capability"
-    title = "Capability"
+    title = names.STEP_NAMES[key]
     guidance = ("Compare the process spread with the tolerance and read the verdict with its "
                 "confidence bound.")
 

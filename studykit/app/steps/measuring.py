@@ -262,7 +262,7 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the gauge table as CSV "
-            "(comma, semicolon or tab separated) or as an Excel workbook (.xlsx)", file=name)
+            "(comma, semicolon or tab separated) or as an Excel file (.xlsx)", file=name)
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings",
                             file=name)
@@ -589,7 +589,7 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the readings as CSV or as an "
-            "Excel workbook (.xlsx)", file=name)
+            "Excel file (.xlsx)", file=name)
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings",
                             file=name)
@@ -617,7 +617,7 @@ class GaugeStep:
     """Step "Gauge check" (key ``measuring``)."""
 
     key = "measuring"
-    title = "Gauge check"
+    title = names.STEP_NAMES[key]
     guidance = ("Show that the measuring system can tell parts apart before judging the "
                 "process: review the stored gauge R&R study, or run and attach a new one.")
 

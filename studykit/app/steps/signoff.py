@@ -136,7 +136,7 @@ class SignoffStep:
     """Step "Review & sign" (key ``signoff``)."""
 
     key = "signoff"
-    title = "Review & sign"
+    title = names.STEP_NAMES[key]
     guidance = ("The team reviews the evidence and signs; a later change to data or decisions "
                 "voids the sign-off.")
 

@@ -55,7 +55,7 @@ class StabilityStep:
     """Step "Stability" (key ``stability``)."""
 
     key = "stability"
-    title = "Stability"
+    title = names.STEP_NAMES[key]
     guidance = ("Confirm the process runs in statistical control; every removed subgroup needs "
                 "a recorded reason.")
 
