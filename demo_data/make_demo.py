@@ -198,16 +198,17 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     sf = StudyFile.create(path, data=files[PILOT_CSV], filename=PILOT_CSV, title=TITLE,
                           part=PART, supplier=SUPPLIER, characteristics=CHARACTERISTICS,
                           criteria=CRITERIA, who="demo script", overwrite=True,
-                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV])])
+                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV])],
+                          when="2026-03-03T08:30:00Z")
     for d in DECISIONS:
         sf.append_decision(d)
-    sf.add_comment(**COMMENT)
     rows = [line.split(",") for line in files[GAUGE_CSV].decode().splitlines()[1:]]
     flange = next(c for c in CHARACTERISTICS if c.name == "flange_thickness")
     result = gauge_rr([float(r[3]) for r in rows], [r[0] for r in rows], [r[1] for r in rows],
                       trials=[r[2] for r in rows], lsl=flange.lsl, usl=flange.usl)
     sf.attach_result("gauge_rr", "flange_thickness",
-                     dict(result.to_dict(), source=GAUGE_CSV), who="L. Haverkamp")
+                     dict(result.to_dict(), source=GAUGE_CSV), who="L. Haverkamp",
+                     when="2026-03-03T10:00:00Z")
     from studykit.stats.gauge_type1 import short_gauge_study
 
     readings = [float(line.split(",")[1])
@@ -216,7 +217,9 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
                               usl=flange.usl)
     sf.attach_result("gauge_short", "flange_thickness",
                      dict(short.to_dict(), source_file=REFERENCE_CSV, limits_from="study",
-                          columns={"value": "reading"}), who="L. Haverkamp")
+                          columns={"value": "reading"}), who="L. Haverkamp",
+                     when="2026-03-03T10:01:00Z")
+    sf.add_comment(**COMMENT)
     return path
 
 

@@ -23,6 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from scipy import special
 
+from studykit import names
 from studykit.errors import AnalysisError, StudyInputError, StudyWarning, printable
 from studykit.stats import attribute as attribute_module
 from studykit.stats import fit as fit_module
@@ -666,7 +667,7 @@ def _df_within(chart: ControlChart) -> float | None:
 
 def _criteria_dict(criteria) -> dict:
     if criteria is None:
-        return {"index": "ppk", "threshold": 1.67, "basis": "lower_bound", "confidence": 0.95}
+        return dict(names.DEFAULT_CRITERION)
     return {
         "index": criteria.index,
         "threshold": float(criteria.threshold),
@@ -908,10 +909,10 @@ def _withhold(verdict, withheld: tuple):
                            "share")
         elif f.code == "too_few_after_removal":
             reasons.append("automatic phase I left too few values")
-    if verdict.meets is None and verdict.text.startswith("Not judged"):
-        text = verdict.text + f" Not judged either because {'; '.join(reasons)}."
+    if verdict.meets is None and verdict.text.startswith("No verdict"):
+        text = verdict.text + f" No verdict either because {'; '.join(reasons)}."
     else:
-        text = (f"Not judged: {'; '.join(reasons)} (see the findings). For information only, "
+        text = (f"No verdict: {'; '.join(reasons)} (see the findings). For information only, "
                 f"{name} would be {est} with lower {verdict.level:.0%} bound {low} against the "
                 f"required {verdict.threshold:g}.")
     return replace(verdict, meets=None, text=text)
@@ -1226,7 +1227,7 @@ def analyze_characteristic(
     if options.confidence is not None:
         level = float(options.confidence)
     else:
-        level = float(0.95 if criteria is None else crit["confidence"])
+        level = float(names.DEFAULT_CONFIDENCE if criteria is None else crit["confidence"])
     cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
     unit = data.unit if data.unit else (spec.unit if spec is not None else None)
 
@@ -1403,7 +1404,9 @@ def _signal_summary(chart: ControlChart) -> str:
             continue
         for sig in series.signals:
             labels = [str(_label(chart.labels[int(p)])) for p in sig.triggers or (sig.trigger,)]
-            parts.append(f"{sig.rule} on the {name} chart at subgroup(s) {', '.join(labels[:6])}"
+            parts.append(f"{names.rule_label(sig.rule)} on the "
+                         f"{names.chart_part_label(chart.kind, name)} at subgroup(s) "
+                         f"{', '.join(labels[:6])}"
                          + (" ..." if len(labels) > 6 else ""))
     return "; ".join(parts[:5]) + (f"; and {len(parts) - 5} more" if len(parts) > 5 else "")
 
@@ -1436,7 +1439,7 @@ def _not_in_control(chart: ControlChart, verdict):
     est = "-" if verdict.estimate is None else f"{verdict.estimate:.2f}"
     low = "-" if verdict.lower_bound is None else f"{verdict.lower_bound:.2f}"
     name = _PRETTY_INDEX.get(verdict.index, verdict.index)
-    text = (f"Not judged: {len(beyond)} point(s) still lie beyond the control limits of the "
+    text = (f"No verdict: {len(beyond)} point(s) still lie beyond the control limits of the "
             f"final chart, so the process is not shown to be in statistical control. For "
             f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
             f"against the required {verdict.threshold:g}.")
@@ -1522,7 +1525,7 @@ def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
     return findings, verdict
 
 
-_PRETTY_INDEX = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+_PRETTY_INDEX = names.INDEX_LABELS
 
 #: Finding codes that withhold the verdict besides ``order_*`` (see ``_withheld_findings``).
 _WITHHOLDING_CODES = ("heavy_auto_removal", "too_few_after_removal")
@@ -1622,7 +1625,7 @@ def _measurement_error(gauge, *, mean, within, df_within, overall, n, spec, leve
 def gauge_results(study_file) -> dict:
     """Latest stored gauge R&R payload per characteristic of a study file (kind "gauge_rr")."""
     out: dict = {}
-    for r in study_file.results("gauge_rr"):
+    for r in study_file.results(names.GAUGE_RR_KIND):
         if r.characteristic:
             out[r.characteristic] = r.payload
     return out

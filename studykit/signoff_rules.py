@@ -36,6 +36,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 
+from studykit import names
 from studykit.errors import StudyInputError
 from studykit.study import DEFAULT_SIGNOFF_RULES, SignOff, Study
 
@@ -74,16 +75,9 @@ def verdict_word(result) -> tuple[bool, str]:
     (False, 'cannot be analysed: no data')
     """
     if isinstance(result, str):
-        return False, f"cannot be analysed: {result}"
-    verdict = getattr(result, "verdict", None)
-    if verdict is None or verdict.meets is None:
-        return False, "Not judged"
-    if verdict.meets:
-        return True, "Meets criteria"
-    if (verdict.basis == "lower_bound" and verdict.estimate is not None
-            and verdict.estimate >= verdict.threshold):
-        return False, "More data needed"
-    return True, "Does not meet criteria"
+        return False, f"{names.VERDICT_STATES['cannot_analyse'].lower()}: {result}"
+    state = names.verdict_state(result)
+    return state in ("meets", "does_not_meet"), names.VERDICT_STATES[state]
 
 
 def open_verdicts(study: Study, results: Mapping[str, object]) -> dict[str, str]:
@@ -98,7 +92,7 @@ def open_verdicts(study: Study, results: Mapping[str, object]) -> dict[str, str]
         if name in waived:
             continue
         if name not in results:
-            out[name] = "not analysed yet"
+            out[name] = names.VERDICT_STATES["not_analysed"]
             continue
         has, word = verdict_word(results[name])
         if not has:

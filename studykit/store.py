@@ -36,7 +36,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from studykit import __version__
+from studykit import __version__, names
 from studykit.errors import StudyFileError, StudyInputError
 from studykit.study import (
     Characteristic,
@@ -706,24 +706,27 @@ def _dumps(obj) -> str:
 def _decision_what(d: Decision) -> str:
     on = f" of '{d.characteristic}'" if d.characteristic else ""
     if d.action in ("exclude", "restore"):
-        return f"{d.action} subgroup {d.subgroup}{on}" + (" (automatic)" if d.automatic else "")
+        return (f"{names.action_label(d.action)} subgroup {d.subgroup}{on}"
+                + (" (automatic)" if d.automatic else ""))
     if d.action == "keep_signal":
         by = " (rejected proposal)" if d.payload.get("origin") == "rejected_proposal" else ""
-        return f"keep signal {d.payload.get('rule')} at subgroup {d.subgroup}{on}{by}"
+        return (f"keep signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
+                f"{d.subgroup}{on}{by}")
     if d.action == "reopen_signal":
-        return f"reopen signal {d.payload.get('rule')} at subgroup {d.subgroup}{on}"
+        return (f"reopen signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
+                f"{d.subgroup}{on}")
     if d.action == "set_spec":
         changes = ", ".join(f"{k} {d.payload.get('old', {}).get(k)!r} -> {v!r}"
                             for k, v in d.payload.get("changes", {}).items())
         return f"change specification{on}: {changes}"
     if d.action == "set_criteria":
-        return f"set criteria{on}: {_dumps(d.payload.get('criteria'))}"
+        return f"set criterion{on}: {_dumps(d.payload.get('criteria'))}"
     if d.action == "void_signoff":
         return (f"void sign-off #{d.payload.get('signoff')} ({d.payload.get('role')} by "
                 f"{d.payload.get('signer')}) to allow: {d.payload.get('change')}")
     if d.action == "note":
         return f"note{on}"
-    return f"{d.action}{on}: {_dumps(dict(d.payload))}"
+    return f"{names.action_label(d.action)}{on}: {_dumps(dict(d.payload))}"
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1033,8 +1036,11 @@ class StudyFile:
                characteristics: Iterable[Characteristic] | Mapping[str, Characteristic] = (),
                criteria: Mapping[str, Criteria] | None = None, who: str = "",
                overwrite: bool = False,
-               extra_files: Iterable[tuple[str, bytes]] = ()) -> StudyFile:
+               extra_files: Iterable[tuple[str, bytes]] = (),
+               when: str | None = None) -> StudyFile:
         """Create a new study file holding ``data`` and the first specifications.
+
+        ``when`` (ISO 8601 UTC, default now) is the time of the creation entry.
 
         The file is built under a temporary name beside ``path`` and moved into place only when
         complete, so a crash never leaves a half-made study file. An existing file is refused
@@ -1067,7 +1073,7 @@ class StudyFile:
             conn.execute("BEGIN IMMEDIATE")
             _apply_migrations(conn, 0)
             _chain_begin(conn, claim_existing=True)
-            at = now_utc()
+            at = when or now_utc()
             who = (who or "").strip() or "unknown"
             meta = {"title": study.title, "part": study.part, "supplier": study.supplier,
                     "created_at": at, "created_by": who, "created_with": f"studykit {__version__}"}
@@ -1206,10 +1212,13 @@ class StudyFile:
                  int(d.automatic), _dumps(dict(d.payload)), recorded),
             )
             ids.append(cur.lastrowid)
-            self._audit(conn, who=d.who, what=_decision_what(d), why=d.reason,
+            # one clock per event: the audit entry carries the decision's own time (the removal
+            # log and the audit log show the same time); when it was written is kept too
+            self._audit(conn, who=d.who, what=_decision_what(d), why=d.reason, when=d.when,
                         detail={"decision_id": cur.lastrowid, "action": d.action,
                                 "characteristic": d.characteristic, "subgroup": d.subgroup,
-                                "automatic": d.automatic, "decided_at": d.when})
+                                "automatic": d.automatic, "decided_at": d.when,
+                                "recorded_at": recorded})
         return ids
 
     def _insert_comment(self, conn, c: Comment) -> int:
@@ -1218,8 +1227,9 @@ class StudyFile:
             (c.characteristic, c.text, c.who, c.when),
         )
         on = f" on '{c.characteristic}'" if c.characteristic else ""
-        self._audit(conn, who=c.who, what=f"comment{on}",
-                    detail={"comment_id": cur.lastrowid, "text": c.text})
+        self._audit(conn, who=c.who, what=f"comment{on}", when=c.when,
+                    detail={"comment_id": cur.lastrowid, "text": c.text,
+                            "recorded_at": now_utc()})
         return cur.lastrowid
 
     def _insert_signoff(self, conn, s: SignOff, index: int, signer=None) -> int:
@@ -1239,9 +1249,10 @@ class StudyFile:
             row = {"name": s.name, "role": s.role, "decision": s.decision, "comment": s.comment,
                    "at": s.when, "digest": s.digest, "chain_head": chain.head}
             detail["signature"] = sign_signoff_payload(_signoff_payload(row), *signer)
-        self._audit(conn, who=s.name, what=f"sign-off: {s.decision} as {s.role}"
+        self._audit(conn, who=s.name, what=f"sign-off: {names.decision_label(s.decision)} as "
+                    f"{names.role_label(s.role)}"
                     + (" (certificate signature)" if signer is not None else ""),
-                    why=s.comment, detail=detail)
+                    why=s.comment, when=s.when, detail=detail)
         return cur.lastrowid
 
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
@@ -1402,8 +1413,11 @@ class StudyFile:
 
     def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
                       *, who: str, override_lock: bool = False,
-                      override_reason: str | None = None, reason: str = "") -> int:
+                      override_reason: str | None = None, reason: str = "",
+                      when: str | None = None) -> int:
         """Keep a result beside the study (e.g. ``kind="gauge_rr"``); returns its id.
+
+        ``when`` (ISO 8601 UTC, default now) is the time it was attached.
 
         ``reason`` (why it is attached) goes into the audit log's "why".
 
@@ -1425,15 +1439,17 @@ class StudyFile:
                 study.characteristic(characteristic)
             on = f" to '{characteristic}'" if characteristic else ""
             if study.is_locked:
-                voids = study._check_lock(f"attaching a {kind} result{on}", override_lock,
+                voids = study._check_lock(f"attaching a {names.result_kind_label(kind)}{on}",
+                                          override_lock,
                                           override_reason, who)
                 self._insert_decisions(conn, voids)
-            at = now_utc()
+            at = when or now_utc()
             cur = conn.execute(
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
                 "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
             )
-            self._audit(conn, who=who, what=f"attach {kind} result{on}", why=reason or "",
+            self._audit(conn, who=who, what=f"attach {names.result_kind_label(kind)}{on}",
+                        why=reason or "", when=at,
                         detail={"result_id": cur.lastrowid})
             return cur.lastrowid
 

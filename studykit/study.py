@@ -26,6 +26,7 @@ from datetime import UTC, datetime
 from types import MappingProxyType
 from typing import Any
 
+from studykit import names
 from studykit.errors import SpecError, StudyFileError, StudyInputError
 
 __all__ = [
@@ -381,10 +382,10 @@ class Criteria:
     'Cpk lower 95% bound >= 1.33'
     """
 
-    index: str = "ppk"
-    threshold: float = 1.67
-    basis: str = "lower_bound"
-    confidence: float = 0.95
+    index: str = names.DEFAULT_CRITERION["index"]
+    threshold: float = names.DEFAULT_CRITERION["threshold"]
+    basis: str = names.DEFAULT_CRITERION["basis"]
+    confidence: float = names.DEFAULT_CRITERION["confidence"]
 
     def __post_init__(self):
         index = _text(self.index, name="index", error=SpecError).strip().lower()
@@ -408,7 +409,7 @@ class Criteria:
 
     def describe(self) -> str:
         """One line for a table, e.g. ``Ppk lower 95% bound >= 1.67``."""
-        label = self.index[0].upper() + self.index[1:]
+        label = names.index_label(self.index)
         if self.basis == "lower_bound":
             return f"{label} lower {self.confidence * 100:g}% bound >= {self.threshold:g}"
         return f"{label} >= {self.threshold:g}"
@@ -1072,13 +1073,14 @@ class Study:
         if not override_lock:
             raise StudyFileError(
                 f"the study is approved (by {holder.name} on {holder.when}) and therefore locked: "
-                f"{what} would change it. To change it anyway pass override_lock=True with a "
-                "reason (`--override-lock REASON` on the command line); this voids the "
-                "approval, which stays on record as voided"
+                f"{what} would change it. To change it anyway, run the command again with "
+                "--override-lock REASON (in Python: override_lock=True, override_reason=...); "
+                "this voids the approval, which stays on record as voided"
             )
         if not (override_reason or "").strip():
             raise StudyFileError(
-                f"overriding the lock for {what} needs a non-empty reason (`override_reason`)"
+                f"overriding the lock for {what} needs a non-empty reason (--override-lock "
+                "REASON)"
             )
         voids = []
         for st in self.signoff_state():

@@ -39,6 +39,8 @@ from __future__ import annotations
 import contextlib
 from dataclasses import asdict, dataclass
 
+from studykit import names
+
 # --- the Okabe-Ito palette [1], [2]; hex values as published (Wong 2011, Fig. 2) ----------------
 OKABE_ITO = {
     "black": "#000000",
@@ -175,14 +177,14 @@ class Verdict:
 
 
 VERDICTS: dict[str, Verdict] = {
-    "pass": Verdict("pass", "Meets criteria", OKABE_ITO["bluish_green"], "#E3F4EE", "✓",
+    "pass": Verdict("pass", names.VERDICT_STATES["meets"], OKABE_ITO["bluish_green"], "#E3F4EE", "✓",
                     "#007D5B"),
-    "fail": Verdict("fail", "Does not meet criteria", OKABE_ITO["vermillion"], "#FBE9E0", "✗",
+    "fail": Verdict("fail", names.VERDICT_STATES["does_not_meet"], OKABE_ITO["vermillion"], "#FBE9E0", "✗",
                     "#B14E00"),
     "caution": Verdict("caution", "Read with care", ORANGE_LINE, "#FDF3D8", "!", "#956700"),
-    "pending": Verdict("pending", "Not yet assessed", INK_SOFT, PANEL, "…", INK_SOFT),
+    "pending": Verdict("pending", names.VERDICT_STATES["not_analysed"], INK_SOFT, PANEL, "…", INK_SOFT),
     # a verdict computed but withheld (signals left, trimming, order): the text says why
-    "withheld": Verdict("withheld", "Not judged", INK_SOFT, PANEL, "?", INK_SOFT),
+    "withheld": Verdict("withheld", names.VERDICT_STATES["no_verdict"], INK_SOFT, PANEL, "?", INK_SOFT),
 }
 
 

@@ -260,7 +260,7 @@ def test_points_left_beyond_the_limits_withhold_the_verdict():
                                  options=AnalysisOptions(chart="imr", phase1="off",
                                                          model="normal"))
     assert any(s.rule == "beyond_limits" for s in off.chart.signals)
-    assert off.verdict.meets is None and off.verdict.text.startswith("Not judged")
+    assert off.verdict.meets is None and off.verdict.text.startswith("No verdict")
     assert off.verdict.estimate is not None  # the numbers stay, for information
     assert off.findings[0].code == "not_in_control"
     # once the point is removed (automatically here), the verdict is given

@@ -74,7 +74,7 @@ def test_removal_changes_the_index_and_is_on_file(study_path):
     decision = on_file.excluded_subgroups(NAME)["5"]
     assert (decision.who, decision.reason) == ("A. Tester", "gauge dropped, parts re-measured")
     assert not decision.automatic
-    assert StudyFile(study_path).audit_log()[-1].what == "exclude subgroup 5 of 'flange_thickness'"
+    assert StudyFile(study_path).audit_log()[-1].what == "remove subgroup 5 of 'flange_thickness'"
     log = session.removal_log(NAME)
     assert [(r.label, r.origin, r.in_force) for r in log][-1] == ("5", "person", True)
 

@@ -103,7 +103,7 @@ def test_the_real_chart_steps_resync_on_reopen(study_path, monkeypatch):
 def test_header_shows_the_lock_as_soon_as_the_study_loads(study_path):
     waive_open_verdicts(study_path)
     StudySession(study_path).sign(who="M. Approver", role="approved", decision="approve")
-    wb = build_workbook(study_path)  # a study opens on its overview (Limits & targets)
+    wb = build_workbook(study_path)  # a study opens on its overview (Specification & criterion)
     assert wb.current == "limits"
     assert wb.context.state == "Approved · locked"
     assert "Approved · locked" in wb._header.value

@@ -76,8 +76,8 @@ def test_exclude_sign_lock_override_log(files, capsys):
     assert "VOIDED (voided on" in out and "customer request" in out
     assert main(["study", "log", path, "--json"]) == 0
     log = json.loads(capsys.readouterr().out)
-    assert [e["what"].split()[0] for e in log] == ["create", "exclude", "set_signoff_rules:",
-                                                  "sign-off:", "void", "exclude", "comment"]
+    assert [e["what"].split()[0] for e in log] == ["create", "remove", "change",
+                                                  "sign-off:", "void", "remove", "comment"]
 
 
 def test_new_refuses_unknown_name_and_existing_file(files, capsys):

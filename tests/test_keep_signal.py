@@ -132,8 +132,8 @@ def test_reopen_restores_the_withholding_and_the_digest(study_path):
     assert study.content_digest() == digest0
     assert analyze_study(study, NAME).verdict.meets is None
     whats = [e.what for e in sf.audit_log()]
-    assert f"keep signal beyond_limits at subgroup 17 of '{NAME}'" in whats
-    assert f"reopen signal beyond_limits at subgroup 17 of '{NAME}'" in whats
+    assert f"keep signal (point beyond the control limits) at subgroup 17 of '{NAME}'" in whats
+    assert f"reopen signal (point beyond the control limits) at subgroup 17 of '{NAME}'" in whats
 
 
 def test_keep_on_an_approved_study_needs_the_override(study_path):
@@ -150,7 +150,7 @@ def test_cli_keep_and_reopen(study_path, capsys):
     p = str(study_path)
     assert main(["study", "keep", p, NAME, "17", "--rule", "1", "--reason",
                  "warm-up part", "--who", "A. Keeper"]) == 0
-    assert "kept the beyond_limits signal at subgroup 17" in capsys.readouterr().out
+    assert "kept the signal (point beyond the control limits) at subgroup 17" in capsys.readouterr().out
     # the same again, an unknown rule, a rule not signalling there, an unknown subgroup
     for args, msg in (
         (["17", "--rule", "beyond_limits"], "already kept"),
@@ -165,7 +165,7 @@ def test_cli_keep_and_reopen(study_path, capsys):
     d = json.loads(capsys.readouterr().out)
     assert d["kept_signals"][0]["reason"] == "warm-up part"
     assert main(["study", "show", p]) == 0
-    assert "17 (beyond_limits)" in capsys.readouterr().out
+    assert "17 (point beyond the control limits)" in capsys.readouterr().out
     assert main(["study", "show", p, "--json"]) == 0
     shown = json.loads(capsys.readouterr().out)
     flange = next(c for c in shown["characteristics"] if c["name"] == NAME)
@@ -202,7 +202,8 @@ def test_session_keep_and_rejected_proposals(study_path):
     with pytest.raises(StudyInputError, match="removed"):
         s.keep_signal(NAME, "18", reason="r", who="A")
     rejected = [e.what for e in s.audit_log() if "rejected proposal" in e.what]
-    assert rejected == [f"keep signal beyond_limits at subgroup 17 of '{NAME}' "
+    assert rejected == [f"keep signal (point beyond the control limits) at subgroup 17 of "
+                        f"'{NAME}' "
                         "(rejected proposal)"]
 
 

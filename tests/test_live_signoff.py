@@ -50,7 +50,7 @@ def test_a_write_on_an_older_view_is_refused_and_nothing_is_saved(study_path):
     v0 = sf.version()
     StudyFile(study_path).exclude(NAME, "3", reason="seen by B", who="B. Other")
     before = sf.load()
-    with sf.expecting(v0), pytest.raises(StaleView, match="B. Other: exclude subgroup 3") as exc:
+    with sf.expecting(v0), pytest.raises(StaleView, match="B. Other: remove subgroup 3") as exc:
         sf.exclude(NAME, "5", reason="decided on the old view", who="A. Tester")
     assert [e.who for e in exc.value.newer] == ["B. Other"]
     after = sf.load()
@@ -126,7 +126,7 @@ def test_rules_are_changed_only_with_a_recorded_reason(study_path):
     assert s.study.signoff_rules()["distinct_signers"] is False
     d = s.study.decisions[-1]
     assert (d.action, d.who, d.reason) == ("set_signoff_rules", "Q. Lead", "two-person supplier")
-    assert "set_signoff_rules" in s.audit_log()[-1].what
+    assert "change sign-off rules" in s.audit_log()[-1].what
     s.sign(who="P. Person", role="reviewed", decision="approve")
     s.sign(who="P. Person", role="prepared", decision="approve")  # allowed now
 
@@ -170,7 +170,7 @@ def test_a_change_elsewhere_reaches_the_session_with_who_changed_what(study_path
     assert a.check_for_changes() is True
     assert "3" in a.result(NAME).removed_subgroups
     assert [(e.who, e.what) for e in a.external_changes] == [
-        ("B. Other", f"exclude subgroup 3 of '{NAME}'")]
+        ("B. Other", f"remove subgroup 3 of '{NAME}'")]
     assert a.check_for_changes() is False
 
 

@@ -163,8 +163,8 @@ def test_two_exclude_processes_at_once_both_recorded(study):
     loaded = StudyFile(study).load()
     assert {"5", "6"} <= set(loaded.excluded_subgroups("bore_diameter"))
     whats = [e.what for e in StudyFile(study).audit_log()]
-    assert whats.count("exclude subgroup 5 of 'bore_diameter'") == 1
-    assert whats.count("exclude subgroup 6 of 'bore_diameter'") == 1
+    assert whats.count("remove subgroup 5 of 'bore_diameter'") == 1
+    assert whats.count("remove subgroup 6 of 'bore_diameter'") == 1
     assert StudyFile(study).integrity_check() == "ok"
 
 

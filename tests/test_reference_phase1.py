@@ -133,7 +133,7 @@ def test_skewed_sample_raw_scale_trimming_withholds_the_verdict(capsys):
     assert d["phase1"]["removed_auto"] == 8 and d["phase1"]["removed_recorded"] == 0
     assert d["verdict"]["meets"] is None
     assert "heavy_auto_removal" in d["phase1"]["verdict_withheld"]
-    assert d["verdict"]["text"].startswith("Not judged")
+    assert d["verdict"]["text"].startswith("No verdict")
     # a looser stated share lets the same trimmed sample be judged (the option is honoured)
     loose = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--threshold",
                      THRESHOLD, "--model", "normal", "--max-auto-removal", "0.25")
@@ -204,7 +204,7 @@ def test_sorted_sample_withheld_in_all_and_in_a_study(tmp_path, capsys):
     rows = [json.loads(line) for line in capsys.readouterr().out.splitlines() if line.strip()]
     (row,) = [r for r in rows if r["characteristic"] == "endurance"]
     assert row["meets"] is None and row["withheld"] == "order_sorted"
-    assert row["verdict"].startswith("Not judged")
+    assert row["verdict"].startswith("No verdict")
     # the same in a saved study (workbook, PDF and verify analyse it with analyze_study)
     study = tmp_path / "life.study"
     assert main(["study", "new", str(study), "--data", str(BEARINGS), "--specs", str(specs),
@@ -359,6 +359,6 @@ def test_skewed_sample_never_meets_in_the_all_summary(tmp_path, capsys):
         # withholds the verdict with its reason, never "meets"
         assert row["meets"] is not True
         if row["meets"] is None:
-            assert row["withheld"] or row["verdict"].startswith("Not judged")
+            assert row["withheld"] or row["verdict"].startswith("No verdict")
     # with the normal model the trimmed sample's verdict is withheld, and the row says why
     assert row["meets"] is None and row["withheld"] == "heavy_auto_removal"

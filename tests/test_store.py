@@ -57,7 +57,7 @@ def test_round_trip(study_path):
     assert study.content_digest() == study.content_digest()
     whats = [e.what for e in sf.audit_log()]
     assert whats[0] == "create study 'Pilot lot' from 'pilot.csv'"
-    assert whats[1] == "exclude subgroup 2 of 'bore'"
+    assert whats[1] == "remove subgroup 2 of 'bore'"
     assert "change specification of 'runout': usl 0.05 -> 0.06" in whats
     assert sf.audit_log()[1].why == "setup part"
 
@@ -380,4 +380,4 @@ def test_attach_result_reason_reaches_the_audit_log(tmp_path):
                           characteristics=[Characteristic("x", lsl=0, usl=2)], who="T. Test")
     sf.attach_result("gauge_rr", "x", {"ok": True}, who="T. Test", reason="gauge GR-07")
     entry = sf.audit_log()[-1]
-    assert entry.what.startswith("attach gauge_rr") and entry.why == "gauge GR-07"
+    assert entry.what.startswith("attach gauge R&R study") and entry.why == "gauge GR-07"

@@ -19,7 +19,7 @@ import math
 
 import ipywidgets as widgets
 
-from studykit import theme
+from studykit import names, theme
 from studykit.app.widgets import esc, guarded, html_box
 
 __all__ = ["Workspace", "OverviewPanel", "workspace", "verdict_chip", "PANEL_CSS",
@@ -103,30 +103,34 @@ def verdict_kind(verdict) -> tuple[str, str]:
     Examples
     --------
     >>> verdict_kind(None)
-    ('pending', 'Not judged')
+    ('withheld', 'No verdict')
     """
     if verdict is None or verdict.meets is None:
-        return "pending", "Not judged"
-    if verdict.meets:
-        return "pass", "Meets"
-    if (verdict.basis == "lower_bound" and verdict.estimate is not None
-            and verdict.estimate >= verdict.threshold):
-        return "caution", "More data needed"
-    return "fail", "Does not meet"
+        return "withheld", names.VERDICT_STATES["no_verdict"]
+    return result_kind(verdict)
+
+
+def result_kind(result) -> tuple[str, str]:
+    """(theme verdict key, the state's one name) of an analysis result: the states of
+    :data:`studykit.names.VERDICT_STATES` ("No verdict: not in control", "Counted data: rate
+    only", ...)."""
+    state = names.verdict_state(result)
+    return names.VERDICT_THEME[state], names.VERDICT_STATES[state]
 
 
 def verdict_chip(meets, *, text: str | None = None, kind: str | None = None) -> str:
     """Our verdict chip: symbol, word and colour (never colour alone).
 
-    ``meets`` True -> "Meets", False -> "Does not meet", None -> "Not judged".
+    ``meets`` True -> "Meets", False -> "Does not meet", None -> "No verdict".
 
     Examples
     --------
-    >>> "Not judged" in verdict_chip(None)
+    >>> "No verdict" in verdict_chip(None)
     True
     """
-    key, word = {True: ("pass", "Meets"), False: ("fail", "Does not meet")}.get(
-        meets, ("pending", "Not judged"))
+    key, word = {True: ("pass", names.VERDICT_STATES["meets"]),
+                 False: ("fail", names.VERDICT_STATES["does_not_meet"])}.get(
+        meets, ("withheld", names.VERDICT_STATES["no_verdict"]))
     key = kind or key
     v = theme.VERDICTS[key]
     return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
@@ -277,7 +281,7 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
             except Exception as exc:  # noqa: BLE001 - shown in the row
                 row["error"] = str(exc)
             else:
-                row["kind"] = verdict_kind(session.result(name).verdict)
+                row["kind"] = result_kind(session.result(name))
                 row.update(verdict=head["meets"], index=head["index"],
                            estimate=head["estimate"], lower_bound=head["lower_bound"],
                            removed=head["removed"], analysed=True,
@@ -425,13 +429,14 @@ class OverviewPanel(widgets.VBox):
                   f"{caution.symbol}</span>") if r["safety"] else ""
         mark.value = safety + (" ◂" if name == current else "")
         if r["error"]:
-            verdict = f'<span class="sk-muted" title="{esc(r["error"])}">cannot analyse</span>'
+            verdict = (f'<span class="sk-muted" title="{esc(r["error"])}">'
+                       f'{names.VERDICT_STATES["cannot_analyse"]}</span>')
         elif not r["analysed"]:
-            verdict = '<span class="sk-muted">not analysed yet</span>'
+            verdict = f'<span class="sk-muted">{names.VERDICT_STATES["not_analysed"]}</span>'
         else:
-            kind, word = r.get("kind") or ("pending", "Not judged")
+            kind, word = r.get("kind") or ("withheld", names.VERDICT_STATES["no_verdict"])
             verdict = verdict_chip(r["verdict"], text=word, kind=kind)
-        index_text = (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
+        index_text = (f"{esc(names.index_label(r['index'] or ''))} {fmt(r['estimate'], 2)}"
                       if r["analysed"] and r["estimate"] is not None else "—")
         values = [f'<span title="{esc(r["verdict_text"])}">{verdict}</span>', index_text,
                   fmt(r["lower_bound"], 2) if r["analysed"] else "—",

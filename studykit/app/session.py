@@ -44,7 +44,8 @@ from pathlib import Path
 
 import numpy as np
 
-from studykit.analysis import AnalysisOptions, analyze_study, read_study_measurements
+from studykit import names
+from studykit.analysis import NO_GAUGE, AnalysisOptions, analyze_study, read_study_measurements
 from studykit.errors import AnalysisError, StudyFileError, StudyInputError
 from studykit.store import ChangeWatch, StaleView, StudyFile, describe_entries
 from studykit.study import Criteria
@@ -231,7 +232,7 @@ class StudySession:
     def gauge(self, name: str) -> dict | None:
         """Payload of the latest gauge R&R result attached for ``name``, if any."""
         try:
-            found = self.file.results("gauge_rr", name)
+            found = self.file.results(names.GAUGE_RR_KIND, name)
         except StudyInputError:
             return None
         return dict(found[-1].payload) if found else None
@@ -252,7 +253,9 @@ class StudySession:
         if g is None:
             g = self._gauges = {}
         if name not in g:
-            g[name] = self.gauge(name)
+            # no gauge study attached: the analysis says so in its findings, as the CLI and
+            # the PDF do (analysis.NO_GAUGE)
+            g[name] = self.gauge(name) or dict(NO_GAUGE)
         return g[name]
 
     def result(self, name: str | None = None):

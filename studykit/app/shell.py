@@ -40,6 +40,7 @@ from typing import Any, Protocol, runtime_checkable
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.widgets import (
     MAX_UPLOAD_BYTES,
     MessageArea,
@@ -312,7 +313,7 @@ class Workbook(widgets.VBox):
                 "in step 1; each characteristic then gets a row here with its stability, "
                 "shape and capability status.</div>")
             return
-        pending = '<span class="sk-muted">not yet assessed</span>'
+        pending = f'<span class="sk-muted">{names.VERDICT_STATES["not_analysed"]}</span>'
         rows = "".join(
             f"<tr><td>{esc(getattr(ch, 'name', '?'))}</td><td>{esc(getattr(ch, 'unit', None))}</td>"
             f'<td class="num">{_count_values(ch)}</td>'

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import sys
 
+from studykit import names
 from studykit.cli.args import (
     analysis_options,
     criteria_from_args,
@@ -12,6 +13,16 @@ from studykit.cli.args import (
     spec_from_args,
 )
 from studykit.errors import StudyInputError
+
+
+def _chart_arg(text: str) -> str:
+    """``--chart``: any accepted spelling (xbar-r, xbar_r, X-bar-R) as the hyphenated id."""
+    import argparse
+
+    try:
+        return names.chart_kind_id(text).replace("_", "-")
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def register(sub) -> None:
@@ -37,8 +48,9 @@ def register(sub) -> None:
     g.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
     p.add_argument(
         "--chart",
-        choices=["auto", "xbar-r", "xbar-s", "imr", "p", "np", "c", "u"],
-        help="chart kind (default: auto, from the subgroup size)",
+        type=_chart_arg, metavar="KIND",
+        help="chart kind: auto, xbar-r, xbar-s, imr, p, np, c or u (xbar_r and X-bar-R are "
+        "accepted too; default: auto, from the subgroup size)",
     )
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
     p.add_argument("--phase1", choices=["auto", "off"], default=None,
@@ -75,7 +87,8 @@ def register(sub) -> None:
                         "else 0.95)")
     p.add_argument("--index", choices=["cp", "cpk", "pp", "ppk", "cpm"],
                    help="acceptance index (default ppk)")
-    p.add_argument("--threshold", type=float, help="acceptance threshold (default 1.67)")
+    p.add_argument("--threshold", type=float, help="acceptance threshold (default "
+                   f"{names.DEFAULT_CRITERION['threshold']:g})")
     p.add_argument("--basis", choices=["lower_bound", "estimate"],
                    help="judge the lower bound (default) or the estimate")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -171,7 +184,7 @@ def _pct(v) -> str:
     return "-" if v is None else f"{100 * v:.0f} %"
 
 
-_PRETTY = {"cp": "Cp", "cpk": "Cpk", "pp": "Pp", "ppk": "Ppk", "cpm": "Cpm"}
+_PRETTY = names.INDEX_LABELS
 
 
 def _i3(v) -> str:
@@ -210,26 +223,33 @@ def format_result(res) -> str:
     lines.append(f"{res.characteristic}{unit}")
     lines.append("=" * len(lines[0]))
     spec = d["spec"]
+    lsl, usl = spec["lsl"], spec["usl"]
+
+    def val(v):  # a value in measured units: enough decimals for 1/100 of the tolerance
+        return "-" if v is None else (names.format_value(v, lsl, usl) if lsl is not None
+                                      and usl is not None else _fmt(v, 6))
+
     lines.append(
-        f"spec: LSL {_fmt(spec['lsl'])}  USL {_fmt(spec['usl'])}  target {_fmt(spec['target'])}"
+        f"specification: LSL {_fmt(lsl)}  USL {_fmt(usl)}  target {_fmt(spec['target'])}"
     )
     for c in d["cautions"]:
         lines.append(f"CAUTION: {c}")
     ch = d["chart"]
     lines.append(
-        f"chart: {ch['kind']} ({ch['reason']}); n = {d['n']} values in {d['subgroups']} "
+        f"chart: {names.chart_kind_label(ch['kind'])} ({ch['reason']}); n = {d['n']} values "
+        f"in {d['subgroups']} "
         f"subgroups; missing {d['n_missing']}"
     )
     loc = ch["location"]
     lines.append(
-        f"  location: centre {_fmt(loc['center'], 6)}  LCL {_fmt(loc['lcl'], 6)}  "
-        f"UCL {_fmt(loc['ucl'], 6)}"
+        f"  {names.chart_part_label(ch['kind'], 'location')}: centre {val(loc['center'])}  "
+        f"LCL {val(loc['lcl'])}  UCL {val(loc['ucl'])}"
     )
     if ch["dispersion"]:
         disp = ch["dispersion"]
         lines.append(
-            f"  dispersion: centre {_fmt(disp['center'], 6)}  LCL {_fmt(disp['lcl'], 6)}  "
-            f"UCL {_fmt(disp['ucl'], 6)}"
+            f"  {names.chart_part_label(ch['kind'], 'dispersion')}: centre "
+            f"{val(disp['center'])}  LCL {val(disp['lcl'])}  UCL {val(disp['ucl'])}"
         )
     if ch.get("scale_text"):
         lines.append(f"  charted on the model's scale: {ch['scale_text']}")
@@ -242,8 +262,8 @@ def format_result(res) -> str:
     if d.get("order") and d["order"]["flagged"]:
         lines.append(f"order: {d['order']['status']} - run rules not applied")
     lines.append(
-        f"  mean {_fmt(d['mean'], 6)}  within sigma {_fmt(d['within_sigma'], 5)}  "
-        f"overall sigma {_fmt(d['overall_sigma'], 5)}"
+        f"  mean {val(d['mean'])}  within sigma {val(d['within_sigma'])}  "
+        f"overall sigma {val(d['overall_sigma'])}"
     )
     p1 = d["phase1"]
     if p1["removals"]:
@@ -260,19 +280,21 @@ def format_result(res) -> str:
     if ch["signals"]:
         lines.append(f"signals on the final chart ({len(ch['signals'])}):")
         for s in ch["signals"][:12]:
-            lines.append(f"  - [{s['chart']}] {s['text']}")
+            lines.append(f"  - [{names.chart_part_label(ch['kind'], s['chart'])}] {s['text']}")
     if d["normality"]:
         ad, sw = d["normality"]["anderson_darling"], d["normality"]["shapiro_wilk"]
         lines.append(
-            f"normality: Anderson-Darling A2 {_fmt(ad['statistic'])} (p {_fmt(ad['p_value'], 3)}); "
-            f"Shapiro-Wilk W {_fmt(sw['statistic'])} (p {_fmt(sw['p_value'], 3)})"
+            f"normality: Anderson-Darling A2 {_fmt(ad['statistic'])} "
+            f"(p {names.format_p(ad['p_value'])}); "
+            f"Shapiro-Wilk W {_fmt(sw['statistic'])} (p {names.format_p(sw['p_value'])})"
         )
     if d["model"]:
         lines.append(f"model: {d['model']['label']} - {d['model']['reason']}")
     cap = d["capability"]
     if cap:
         level = cap["level"]
-        lines.append(f"capability ({cap['method']} method; lower bounds at {level:.0%}):")
+        lines.append(f"capability ({names.bound_method_label(cap['method'])}; lower "
+                     f"bounds at {level:.0%}):")
         lines.append(f"  convention: {capability_method_text(cap, d['model'])}")
         for key in ("cp", "cpk", "pp", "ppk", "cpm"):
             if cap.get(key) is None:
@@ -292,11 +314,12 @@ def format_result(res) -> str:
             f"{_fmt(d.get('z_process_lower_95'), 4)})"
         )
     if d["verdict"]:
-        mark = {True: "MEETS", False: "DOES NOT MEET", None: "NOT JUDGED"}[d["verdict"]["meets"]]
-        lines.append(f"verdict: {mark} {d['verdict']['criterion']}")
+        v = d["verdict"]
+        mark = names.verdict_label(d).upper()
+        lines.append(f"verdict: {mark} ({names.criterion_text(v['index'], v['threshold'])})")
         lines.append(f"  {d['verdict']['text']}")
     for f in d["findings"]:
-        lines.append(f"  * {f['text']}")
+        lines.append(f"  * {names.finding_title(f['code'])}: {f['text']}")
     if d.get("measurement_error"):
         lines += _measurement_error_lines(d["measurement_error"])
     if d["model_band"] and d["model_band"].get("warning"):

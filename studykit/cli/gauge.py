@@ -17,6 +17,7 @@ import json
 import sys
 from pathlib import Path
 
+from studykit import names
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -28,9 +29,9 @@ from studykit.stats.gauge_type1 import (
     short_gauge_study,
 )
 
-RESULT_KIND = "gauge_rr"
+RESULT_KIND = names.GAUGE_RR_KIND
 #: Kind under which a short gauge study (one reference part) is kept in the study file.
-SHORT_KIND = "gauge_short"
+SHORT_KIND = names.GAUGE_SHORT_KIND
 
 
 def register(subparsers) -> None:

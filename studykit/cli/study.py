@@ -28,6 +28,7 @@ import json
 import sys
 from pathlib import Path
 
+from studykit import names
 from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import Study, match_to_data, read_specs
@@ -86,8 +87,10 @@ def register(subparsers) -> None:
     show.add_argument("--json", action="store_true", help="print as JSON")
     show.set_defaults(func=run_show)
 
-    for action in ("exclude", "restore"):
-        q = sub.add_parser(action, help=f"{action} a subgroup of a characteristic (with a reason)")
+    for action, aliases in (("exclude", ["remove"]), ("restore", [])):
+        q = sub.add_parser(action, aliases=aliases,
+                           help=f"{'remove' if action == 'exclude' else action} a subgroup of a "
+                           "characteristic from the analysis (with a reason)")
         q.add_argument("studyfile", metavar="STUDYFILE")
         q.add_argument("characteristic", metavar="CHARACTERISTIC")
         q.add_argument("subgroup", metavar="SUBGROUP")
@@ -112,7 +115,8 @@ def register(subparsers) -> None:
     st.add_argument("--basis", choices=("lower_bound", "estimate"))
     st.add_argument("--confidence", type=float)
     st.add_argument("--model", help="distribution model name, or auto")
-    st.add_argument("--chart", help="auto, xbar_r, xbar_s, imr, p, np, c, u")
+    st.add_argument("--chart", help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and "
+                    "X-bar-R are accepted too)")
     st.add_argument("--reason", required=True, help="why (kept in the audit log)")
     st.add_argument("--who", default=None)
     st.add_argument("--override-lock", metavar="REASON",
@@ -342,7 +346,8 @@ def run_keep(args) -> int:
                               f"kept (by {d.who} on {d.when}: {d.reason})")
     sf.apply(lambda s: s.keep_signal(name, label, rule=rule, reason=args.reason, who=who,
                                      **_lock_kw(args)))
-    print(f"kept the {rule} signal at subgroup {label} of '{name}' (reviewed, with reason)")
+    print(f"kept the signal ({names.rule_label(rule)}) at subgroup {label} of '{name}' (reviewed, "
+          "with reason)")
     return 0
 
 
@@ -402,12 +407,14 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         rows.append([
             name, c.unit or "", _num(c.lsl), _num(c.target), _num(c.usl),
             "yes" if c.safety_critical else "", study.criteria_for(name).describe(),
-            study.chart_for(name), study.model_for(name), ", ".join(excluded),
-            ", ".join(f"{lab} ({rule})" for lab, rule in study.kept_signals(name)),
+            names.chart_kind_label(study.chart_for(name)),
+            names.model_label(study.model_for(name)), ", ".join(excluded),
+            ", ".join(f"{lab} ({names.rule_label(rule)})"
+                      for lab, rule in study.kept_signals(name)),
         ])
     if rows:
         out.append(_table(["name", "unit", "LSL", "target", "USL", "safety", "criterion",
-                           "chart", "model", "excluded", "kept signals"], rows))
+                           "chart", "model", "removed", "kept signals"], rows))
     else:
         out.append("  (none specified)")
     out.append("")
@@ -417,7 +424,8 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         sub = f" subgroup {d.subgroup}" if d.subgroup else ""
         extra = f" {json.dumps(dict(d.payload), sort_keys=True)}" if d.payload else ""
         auto = " [automatic]" if d.automatic else ""
-        out.append(f"  {i:>3}. {d.when}  {d.who}: {d.action}{on}{sub}{extra}{auto}")
+        out.append(f"  {i:>3}. {d.when}  {d.who}: {names.action_label(d.action)}{on}{sub}"
+                   f"{extra}{auto}")
         if d.reason:
             out.append(f"       reason: {d.reason}")
     out.append("")
@@ -522,7 +530,8 @@ def run_decision(args) -> int:
         sf.exclude(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
     else:
         sf.restore(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
-    print(f"{args.action}d subgroup {label} of '{args.characteristic}'")
+    done = "removed" if args.action == "exclude" else "restored"
+    print(f"{done} subgroup {label} of '{args.characteristic}'")
     return 0
 
 
@@ -591,7 +600,10 @@ def run_set(args) -> int:
                               "--threshold, --basis, --confidence, --model or --chart")
 
     if args.chart:
-        chart = args.chart.strip().lower().replace("-", "_")
+        try:
+            chart = names.chart_kind_id(args.chart)
+        except ValueError as exc:
+            raise StudyInputError(str(exc)) from None
         current = StudyFile(args.studyfile).load()
         spec = current.characteristic(name)
         measured = spec.lsl is not None or spec.usl is not None  # else the study refuses it

@@ -31,7 +31,7 @@ import math
 import numpy as np
 from matplotlib.figure import Figure
 
-from studykit import theme
+from studykit import names, theme
 
 __all__ = [
     "control_chart_figure",
@@ -247,7 +247,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
         ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
         _series_panel(axes[0], chart.location, x, rx, ry,
-                      f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({kind.replace('_', '-')})",
+                      f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({names.chart_kind_label(kind)})",
                       _LOCATION_NAMES.get(kind, "Value") + unit, used)
         _kept_rings(axes[0], chart.location, x, used, result)
         if panels == 2:

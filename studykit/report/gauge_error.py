@@ -11,8 +11,10 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
+from studykit import names
+
 #: Kind under which ``studykit gauge --reference ... --study`` stores a short gauge study.
-SHORT_KIND = "gauge_short"
+SHORT_KIND = names.GAUGE_SHORT_KIND
 
 
 def stored_short_studies(study_path, study) -> dict:

@@ -29,6 +29,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from studykit import names
 from studykit.errors import StudyFileError, StudyInputError
 
 __all__ = ["DRAFT_NOTE", "HandoffInfo", "build_handoff", "chart_form_pdf", "handoff_readiness"]
@@ -157,7 +158,7 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
         Paragraph(f"Control chart form - {_esc(plan.characteristic)}"
                   + (f" [{_esc(plan.unit)}]" if plan.unit else ""), st["h1"]),
         Paragraph(f"{_esc(study_title)}{' - ' + _esc(part) if part else ''}. Chart "
-                  f"{_esc(plan.kind.replace('_', '-'))}, subgroup size "
+                  f"{_esc(names.chart_kind_label(plan.kind))}, subgroup size "
                   f"{plan.subgroup_size or 'as in phase I'}; frozen centre {plan.center:.6g}"
                   + (f", within sigma {plan.within_sigma:.4g}" if plan.within_sigma else "")
                   + f". Rules: {_esc(plan.rules)}. Limits frozen from "

@@ -28,7 +28,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from studykit import __version__, theme
+from studykit import __version__, names, theme
 from studykit.errors import StudyFileError, StudyInputError
 
 __all__ = [
@@ -51,7 +51,7 @@ SIGNATURE_ROLES = ("prepared", "reviewed", "approved")
 #: Document-information key holding the signature boxes (JSON: role -> [page, x1, y1, x2, y2]).
 BOXES_KEY = "/StudykitSignatureBoxes"
 #: Gauge results are stored under this kind by ``studykit gauge --study``.
-GAUGE_KIND = "gauge_rr"
+GAUGE_KIND = names.GAUGE_RR_KIND
 
 #: The methods used and their published sources (collected from the docstrings of
 #: studykit.stats); printed in the appendix.
@@ -322,15 +322,11 @@ def _esc(text) -> str:
 
 
 def _index_name(key: str) -> str:
-    return key[0].upper() + key[1:] if key else key
+    return names.index_label(key)
 
 
 def _verdict_key(res) -> str:
-    if res is None or res.verdict is None:
-        return "pending"
-    if res.verdict.meets is None:
-        return "withheld"  # computed, then withheld: the verdict text says why
-    return "pass" if res.verdict.meets else "fail"
+    return names.VERDICT_THEME[names.verdict_state(res)]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -515,14 +511,40 @@ class _SignatureBoxes:
         return Boxes()
 
 
-def _numbered_canvas(footer_left: str, header: str):
+def _pdf_timestamp(when: str):
+    """A reportlab time stamp at ``when`` (ISO 8601 UTC) for the PDF's creation date: the
+    study's own time (its latest decision, comment or sign-off), so the same study gives the
+    same bytes; None when the study records no time (reportlab's fixed date then)."""
+    import calendar
+    import datetime as dt
+
+    from reportlab.lib.utils import TimeStamp
+
+    try:
+        moment = dt.datetime.fromisoformat(str(when).replace("Z", "+00:00"))
+    except ValueError:
+        return None
+    if moment.tzinfo is not None:
+        moment = moment.astimezone(dt.UTC)
+    stamp = TimeStamp(1)
+    stamp.t = calendar.timegm(moment.timetuple())
+    stamp.lt = tuple(moment.timetuple())
+    stamp.YMDhms = stamp.lt[:6]
+    return stamp
+
+
+def _numbered_canvas(footer_left: str, header: str, when: str = ""):
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
+
+    stamp = _pdf_timestamp(when) if when else None
 
     class NumberedCanvas(canvas.Canvas):
         def __init__(self, *args, **kwargs):
             kwargs["invariant"] = 1
             super().__init__(*args, **kwargs)
+            if stamp is not None:  # the study's time, not reportlab's fixed 2000-01-01
+                self._doc._timeStamp = stamp
             self._saved = []
 
         def showPage(self):
@@ -620,17 +642,16 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         crit = study.criteria_for(name).describe()
         if res is None:
             rows.append([_esc(name), spec, "–", _esc(crit), "–", "–",
-                         "<b>not analysed</b>"])
+                         f"<b>{names.verdict_label(None)}</b>"])
             verdict_rows.append("pending")
             continue
         model = res.model.label if res.model is not None else "–"
-        chart = res.chart.kind.replace("_", "-")
+        chart = names.chart_kind_label(res.chart.kind)
         key = _verdict_key(res)
         v = theme.VERDICTS[key]
-        label = v.label
+        label = names.verdict_label(res)
         if res.attribute and res.verdict is None:
             crit = "rate with upper bound (counted data)"
-            label = "Rate reported"
         elif res.attribute:  # p/np: judged as process Z / 3 from the bound on the rate
             crit = f"{crit}, as Z/3 of the rate bound"
         est = lb = "–"
@@ -726,7 +747,8 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     key = _verdict_key(res)
     v = theme.VERDICTS[key]
     if res.verdict is not None:
-        story.append(_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} {v.label}"
+        story.append(_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} "
+                                     f"{names.verdict_label(res)}"
                                      f"</b></font> - {_esc(res.verdict.text)}", st["body"])],
                           background=v.background, border=v.color, width=width))
     story.append(Spacer(1, 6))
@@ -738,8 +760,10 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                          + (f" of {res.subgroup_size}" if res.subgroup_size else "")),
          "Removed", f"{len(res.phase1.removals)} subgroup(s)"
          + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
-        ["Centre" if res.attribute else "Mean", _num(res.mean, 6), "Chart",
-         f"{chart.kind.replace('_', '-')} ({_esc(chart.reason)})"],
+        ["Centre" if res.attribute else "Mean",
+         _num(res.mean, 6) if c.lsl is None or c.usl is None or res.attribute
+         else names.format_value(res.mean, c.lsl, c.usl), "Chart",
+         f"{names.chart_kind_label(chart.kind)} ({_esc(chart.reason)})"],
     ]
     if not res.attribute:
         sigma_text = (res.phase1.raw_chart or chart).sigma_method_text  # raw values' sigma
@@ -774,12 +798,14 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 # a moving range at reading p is |x_p - x_(p-1)|: it points at both readings
                 pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
             labels = [str(chart.labels[p]) for p in pos]
-            signals.append(f"{part} chart, test {sig.number}: {_esc(sig.text)} "
+            signals.append(f"{names.chart_part_label(chart.kind, part).capitalize()}, "
+                           f"Nelson test {sig.number}: {_esc(sig.text)} "
                            f"(subgroup(s) {_esc(', '.join(labels[:12]))}"
                            f"{'...' if len(labels) > 12 else ''})")
     if signals:
-        story.append(Paragraph(f"Signals on the final limits ({_esc(chart.location.rules)} "
-                               "rules):", st["body"]))
+        story.append(Paragraph("Signals on the final limits "
+                               f"({_esc(names.rule_set_label(chart.location.rules))}):",
+                               st["body"]))
         for s in signals[:20]:
             story.append(Paragraph(s, st["bullet"], bulletText="•"))
     else:
@@ -789,12 +815,13 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                                    "findings).", st["body"]))
         else:
             story.append(Paragraph(f"No run-rule signal on the final limits "
-                                   f"({_esc(chart.location.rules)} rules).", st["body"]))
+                                   f"({_esc(names.rule_set_label(chart.location.rules))}).",
+                                   st["body"]))
     if res.phase1.removals:
         story.append(Spacer(1, 4))
         rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
         for r in res.phase1.removals:
-            rows.append([_esc(r.label), _esc(str(r.rule).replace("_", " ")), str(r.iteration),
+            rows.append([_esc(r.label), _esc(names.rule_label(r.rule)), str(r.iteration),
                          _esc(r.who or "–"),
                          _esc(r.reason)])
         story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
@@ -844,8 +871,8 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     if res.model_band is not None:
         mb = res.model_band
         text = (f"Model uncertainty: across the models the data do not reject, the judged index "
-                f"ranges from {_idx(mb.low)} ({_esc(', '.join(mb.low_models))}) to "
-                f"{_idx(mb.high)} ({_esc(', '.join(mb.high_models))}).")
+                f"ranges from {_idx(mb.low)} ({_esc(names.model_list(mb.low_models))}) to "
+                f"{_idx(mb.high)} ({_esc(names.model_list(mb.high_models))}).")
         if mb.warning:
             text += " " + _esc(mb.warning)
         story.append(Spacer(1, 4))
@@ -867,14 +894,15 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             rows.append([f"<b>{_index_name(k)}</b>{judged}", _idx(est), _idx(b.get("lower_bound")),
                          f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
                          if b.get("lower") is not None else "–",
-                         _esc(str(b.get("method", "–")).replace("_", " "))])
+                         _esc(names.bound_method_label(b.get("method", "–")))])
         story.append(_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)],
                             styles=st))
         ppm = (f"Expected parts per million outside the specification: overall "
                f"{_num(cap.ppm_overall, 3)}")
         if cap.ppm_within is not None:
             ppm += f", within {_num(cap.ppm_within, 3)}"
-        ppm += f"; observed {_num(cap.ppm_observed, 3)}. Method: {_esc(cap.method)}."
+        ppm += (f"; observed {_num(cap.ppm_observed, 3)}. Method: "
+                f"{_esc(names.bound_method_label(cap.method))}.")
         from studykit.analysis import capability_method_text
 
         ppm += " Convention: " + _esc(capability_method_text(
@@ -976,7 +1004,8 @@ def _attribute_block(story, res, st, width):
         if isinstance(v, int | float) and not isinstance(v, bool):
             rows.append([_esc(k.replace("_", " ")), _num(v, 5)])
         elif isinstance(v, str) and len(v) < 120:
-            rows.append([_esc(k.replace("_", " ")), _esc(v)])
+            shown = names.bound_method_label(v) if k == "method" else v
+            rows.append([_esc(k.replace("_", " ")), _esc(shown)])
     story.append(_table(rows, [0.4 * width, 0.6 * width], styles=st))
 
 
@@ -990,7 +1019,7 @@ def _kept_signals_block(story, res, st, width) -> None:
     rows = [["Subgroup", "Rule", "From", "Who", "Reason"]]
     for k in kept:
         origin = "rejected proposal" if k["origin"] == "rejected_proposal" else "person"
-        rows.append([_esc(k["subgroup"]), _esc(str(k["rule"]).replace("_", " ")), origin,
+        rows.append([_esc(k["subgroup"]), _esc(names.rule_label(k["rule"])), origin,
                      _esc(k["who"] or "–"),
                      _esc(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)")])
     story.append(Spacer(1, 4))
@@ -1030,8 +1059,11 @@ def _gauge_section(story, number, gauges, study, st, width):
                               background=v.background, border=v.color, width=width))
             story.append(Spacer(1, 4))
         rows = [["Source", "Variance", "Sigma", "% contribution", "% study var.", "% tolerance"]]
+        from studykit.stats.gauge import COMPONENT_LABELS as _COMPONENT_LABELS
+
         for comp in payload.get("components", []):
-            rows.append([_esc(str(comp.get("name", "")).replace("_", " ")),
+            rows.append([_esc(_COMPONENT_LABELS.get(comp.get("name"), str(comp.get("name", ""))
+                                                    .replace("_", " ")).strip()),
                          _num(comp.get("variance")), _num(comp.get("sigma")),
                          _num(comp.get("pct_contribution"), 3),
                          _num(comp.get("pct_study_variation"), 3),
@@ -1088,7 +1120,7 @@ def _signoff_section(story, number, study, st, width, boxes):
     if study.decisions:
         rows = [["When", "Who", "Characteristic", "Decision", "Reason"]]
         for d in study.decisions:
-            what = d.action.replace("_", " ")
+            what = names.action_label(d.action)
             if d.subgroup:
                 what += f" subgroup {d.subgroup}"
             if d.payload:
@@ -1109,12 +1141,14 @@ def _signoff_section(story, number, study, st, width, boxes):
     story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
     states = study.signoff_state()
     if states:
-        rows = [["Role", "Name", "Decision", "When", "Comment", "Valid now?"]]
+        rows = [["Role", "Name", "Decision", "When", "Comment", "State"]]
         for s in states:
             so = s.signoff
-            rows.append([_esc(so.role), _esc(so.name), _esc(so.decision), _when(so.when),
+            rows.append([_esc(names.role_label(so.role)), _esc(so.name),
+                         _esc(names.decision_label(so.decision)), _when(so.when),
                          _esc(so.comment or "–"),
-                         "yes" if s.valid else f"<b>no</b> - {_esc(s.why)}"])
+                         names.SIGNOFF_VALID if s.valid
+                         else f"<b>{names.SIGNOFF_VOIDED}</b> - {_esc(s.why)}"])
         story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
                             styles=st))
         _signoff_digests(story, study, states, width, st)
@@ -1246,7 +1280,8 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
         author="studykit", subject=f"content digest {study.content_digest()}",
         creator=f"studykit {__version__}", invariant=1,
     )
-    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
+                                                  when=_last_time(study)))
     return buf.getvalue(), boxes
 
 

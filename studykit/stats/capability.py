@@ -41,6 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize, special
 
+from studykit import names
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import NOISE_ULPS, check_resolution, check_sample
 from studykit.stats.result import Result
@@ -69,7 +70,7 @@ __all__ = [
 TAIL_PROBABILITY = 0.00135
 
 #: Capability indices, in report order. Output field names are defined here once.
-INDEX_NAMES = ("cp", "cpk", "cpu", "cpl", "cpm", "pp", "ppk", "ppu", "ppl")
+INDEX_NAMES = names.INDEX_IDS
 WITHIN_INDICES = ("cp", "cpk", "cpu", "cpl")
 OVERALL_INDICES = ("pp", "ppk", "ppu", "ppl")
 #: Indices whose one-sided lower bound also appears as a top-level key, e.g. ``ppk_lower_95``.
@@ -82,15 +83,12 @@ BOOTSTRAP_FULL_N = 20_000
 
 #: Default demonstration criteria: common practice, no source; the customer's requirement governs.
 DEFAULT_CRITERIA = {
-    "pre_launch": {"index": "ppk", "threshold": 1.67},
-    "ongoing": {"index": "cpk", "threshold": 1.33},
+    "pre_launch": {k: names.DEFAULT_CRITERION[k] for k in ("index", "threshold")},
+    "ongoing": {k: names.DEFAULT_ONGOING_CRITERION[k] for k in ("index", "threshold")},
     "note": "common practice; the customer's requirement governs",
 }
 
-_PRETTY = {
-    "cp": "Cp", "cpk": "Cpk", "cpu": "CPU", "cpl": "CPL", "cpm": "Cpm",
-    "pp": "Pp", "ppk": "Ppk", "ppu": "PPU", "ppl": "PPL",
-}  # fmt: skip
+_PRETTY = names.INDEX_LABELS
 
 
 # --------------------------------------------------------------------------------------------
@@ -1182,9 +1180,9 @@ class Verdict(Result):
 def judge(
     result: CapabilityResult,
     *,
-    index: str = "ppk",
-    threshold: float = 1.67,
-    basis: str = "lower_bound",
+    index: str = names.DEFAULT_CRITERION["index"],
+    threshold: float = names.DEFAULT_CRITERION["threshold"],
+    basis: str = names.DEFAULT_CRITERION["basis"],
 ) -> Verdict:
     """Judge a capability result against a requirement ``index >= threshold``.
 
@@ -1393,7 +1391,8 @@ def diagnose(
                     Finding(
                         "model_matters",
                         "warning",
-                        f"The fitted model ({result.model}) gives {_PRETTY[index]} {mine:.2f}; "
+                        f"The fitted model ({names.model_label(result.model)}) gives "
+                        f"{_PRETTY[index]} {mine:.2f}; "
                         f"normal theory would give {theirs:.2f}."
                         + (" The verdict depends on the model chosen." if flips else "")
                         + " Justify the model with the goodness-of-fit results.",
@@ -1503,8 +1502,9 @@ def model_band(index_by_model: dict, threshold: float) -> ModelBand:
     warning = None
     if changes:
         warning = (
-            f"The verdict depends on the model: {', '.join(meeting)} meet {threshold:g} but "
-            f"{', '.join(failing)} do not (range {low:.2f} to {high:.2f}). Choose the model on "
+            f"The verdict depends on the model: {names.model_list(meeting)} meet {threshold:g} "
+            f"but {names.model_list(failing)} do not (range {low:.2f} to {high:.2f}). Choose "
+            "the model on "
             "goodness of fit and process knowledge, and record why."
         )
     return ModelBand(

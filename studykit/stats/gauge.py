@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from studykit import names
 from studykit.errors import AnalysisError, SpecError
 from studykit.stats import constants
 from studykit.stats.result import Result
@@ -55,7 +56,7 @@ POOLED_ERROR = "pooled_error"
 
 COMPONENT_ORDER = (GAUGE_RR, REPEATABILITY, REPRODUCIBILITY, APPRAISER, INTERACTION, PART, TOTAL)
 COMPONENT_LABELS = {
-    GAUGE_RR: "Total gauge R&R",
+    GAUGE_RR: names.GAUGE_TOTAL,
     REPEATABILITY: "  Repeatability (gauge)",
     REPRODUCIBILITY: "  Reproducibility (people)",
     APPRAISER: "    Appraiser",
@@ -998,8 +999,9 @@ def _verdict(comp: dict, ndc: int | None, has_tol: bool) -> GaugeVerdict:
     dominant = None
     if v_rep + v_repro > 0:
         dominant = REPEATABILITY if v_rep >= v_repro else REPRODUCIBILITY
-    parts = [f"%GRR is {pct_sv:.1f} % of the study variation" if pct_sv is not None else
-             "%GRR of the study variation is undefined"]
+    parts = [f"{names.GAUGE_TOTAL} is {pct_sv:.1f} % of the study variation"
+             if pct_sv is not None else
+             f"the share of {names.GAUGE_TOTAL} in the study variation is undefined"]
     if pct_tol is not None:
         parts.append(f"{pct_tol:.1f} % of the tolerance")
     msg = (f"The measurement system is {status}: " + " and ".join(parts)

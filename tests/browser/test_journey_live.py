@@ -158,7 +158,7 @@ def test_live_update_and_no_stale_page_after_a_change(browser, live):
         a.wait_for_selector(".sk-live-note :text('B. Remover')", timeout=30_000)
         elapsed = time.monotonic() - started
         note = a.locator(".sk-live-note").inner_text()
-        assert "exclude subgroup 5 of 'flange_thickness'" in note, note
+        assert "remove subgroup 5 of 'flange_thickness'" in note, note
         assert "gauge dropped" in note
         print(f"live update reached the other page after {elapsed:.1f} s (click to note)")
         digest = StudyFile(path).load().content_digest()
@@ -212,7 +212,7 @@ def test_refused_action_on_an_old_view_and_the_signoff_digest(browser, still):
         # A signs what it sees: refused, nothing saved, and A's page now shows the file
         sign(a, "reviewed")
         text = message(a, "Nothing was saved")
-        assert "B. Changer: exclude subgroup 3" in text, text
+        assert "B. Changer: remove subgroup 3" in text, text
         assert StudyFile(path).load().signoffs == ()
         a.wait_for_selector(f".sk-shown-digest:text('{now}')")
         a.wait_for_selector(".sk-live-note :text('B. Changer')")

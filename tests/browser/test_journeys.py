@@ -21,7 +21,7 @@ def sample_csv() -> bytes:
     return ("\n".join(lines) + "\n").encode()
 
 
-STEP_TITLES = ["Bring in data", "Limits & targets", "Gauge check", "Stability", "Shape",
+STEP_TITLES = ["Bring in data", "Specification & criterion", "Gauge check", "Stability", "Shape",
                "Capability", "Review & sign", "Evidence & hand-off"]
 
 

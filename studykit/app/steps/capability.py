@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
-from studykit import theme
+from studykit import names, theme
 from studykit.app.charts import IntervalView, LiveChart
 from studykit.app.overview import (
     fmt,
@@ -20,7 +20,6 @@ from studykit.app.overview import (
     panel,
     panel_css,
     verdict_chip,
-    verdict_kind,
     when_shown,
     workspace,
 )
@@ -35,7 +34,8 @@ def verdict_html(result) -> str:
     v = result.verdict
     if v is None and result.attribute:
         return ('<div class="sk-verdict-box" style="border-color:'
-                f'{theme.VERDICTS["pending"].color}">{verdict_chip(None)}'
+                f'{theme.VERDICTS["withheld"].color}">'
+                f'{verdict_chip(None, text=names.verdict_label(result), kind="withheld")}'
                 '<div style="margin-top:6px">Counted data are judged by their defective (or '
                 "defect) rate with its confidence interval below; no capability index "
                 "criterion applies.</div></div>")
@@ -45,10 +45,11 @@ def verdict_html(result) -> str:
         meets = None
     else:
         text, meets = v.text, v.meets
-    key, word = verdict_kind(v)
+    state = names.verdict_state(result)
+    key, word = names.VERDICT_THEME[state], names.VERDICT_STATES[state]
     colour = theme.VERDICTS[key].color
     crit = result.criteria
-    label = (crit.get("index") or "").capitalize()
+    label = names.index_label(crit.get("index") or "")
     basis = ("lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
              if crit.get("basis") == "lower_bound" else "estimate")
     return (f'<div class="sk-verdict-box" style="border-color:{colour}">'
@@ -56,6 +57,34 @@ def verdict_html(result) -> str:
             f"<div style=\"margin-top:6px\">{esc(text)}</div>"
             f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
             f"≥ {fmt(crit.get('threshold'), 2)}</div></div>")
+
+
+def indices_html(result) -> str:
+    """The table of indices that goes to the customer: estimate, one-sided lower bound and
+    two-sided interval at the study's level, and the bound's method (as in the PDF report)."""
+    cap = result.capability
+    if cap is None:
+        return ""
+    pct = f"{cap.level * 100:g}%"
+    judged = result.criteria.get("index")
+    body = []
+    for k in ("cp", "cpk", "pp", "ppk", "cpm"):
+        est = getattr(cap, k, None)
+        if est is None:
+            continue
+        b = (cap.bounds or {}).get(k) or {}
+        two = (f"{fmt(b.get('lower'), 2)} – {fmt(b.get('upper'), 2)}"
+               if b.get("lower") is not None else "—")
+        mark = " (judged)" if k == judged else ""
+        body.append(f"<tr><td><b>{esc(names.index_label(k))}</b>{mark}</td>"
+                    f'<td class="num">{fmt(est, 2)}</td>'
+                    f'<td class="num">{fmt(b.get("lower_bound"), 2)}</td>'
+                    f'<td class="num">{two}</td>'
+                    f"<td>{esc(names.bound_method_label(b.get('method', '—')))}</td></tr>")
+    return ('<div class="sk-panel-title">Capability indices</div>'
+            '<table class="sk-table sk-indices"><thead><tr><th>Index</th><th>Estimate</th>'
+            f"<th>Lower {pct} bound (one-sided)</th><th>Two-sided {pct} interval</th>"
+            "<th>Bound method</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>")
 
 
 def _ppm(v) -> str:
@@ -90,7 +119,8 @@ def ppm_html(result) -> str:
     return ('<div class="sk-panel-title">Parts per million outside the limits</div>'
             '<table class="sk-table sk-ppm"><thead><tr><th></th><th>Below LSL</th>'
             "<th>Above USL</th><th>Total</th></tr></thead><tbody>" + body + "</tbody></table>"
-            f'<div class="sk-small">Method: {esc(cap.method)}; model: {esc(cap.model)}.</div>')
+            f'<div class="sk-small">Method: {esc(names.bound_method_label(cap.method))}; model: '
+            f"{esc(names.model_label(cap.model))}.</div>")
 
 
 def findings_html(result) -> str:
@@ -102,7 +132,8 @@ def findings_html(result) -> str:
     out = []
     for f in items:
         kind = {"warning": "warning", "error": "error"}.get(f.severity, "info")
-        out.append(f'<div class="sk-msg sk-msg-{kind}">{esc(f.text)}</div>')
+        out.append(f'<div class="sk-msg sk-msg-{kind}"><b>{esc(names.finding_title(f.code))}'
+                   f"</b>: {esc(f.text)}</div>")
     for w in warnings:
         out.append(f'<div class="sk-msg sk-msg-warning">{esc(w)}</div>')
     return '<div class="sk-panel-title">Findings</div>' + "".join(out)
@@ -113,8 +144,8 @@ def band_html(result) -> str:
     if b is None:
         return ""
     text = (f"Across the models the data do not reject, the judged index lies between "
-            f"{fmt(b.low, 2)} ({esc(', '.join(b.low_models))}) and {fmt(b.high, 2)} "
-            f"({esc(', '.join(b.high_models))}).")
+            f"{fmt(b.low, 2)} ({esc(names.model_list(b.low_models))}) and {fmt(b.high, 2)} "
+            f"({esc(names.model_list(b.high_models))}).")
     warn = (f'<div class="sk-msg sk-msg-warning">{esc(b.warning)}</div>' if b.warning else "")
     return (f'<div class="sk-panel-title">Model uncertainty</div><div>{text}</div>{warn}')
 
@@ -145,7 +176,8 @@ def attribute_html(result) -> str:
     add("Process Z", f"{fmt(d.get('z_process'), 2)} (lower {level} bound "
         f"{fmt(d.get('z_process_lower_95'), 2)})", "z_process", "z_process_lower_95")
     shown.update({"level", "defective_rate_upper_95"})
-    facts += [(k.replace("_", " ").capitalize(), fmt(v, 4) if isinstance(v, float) else esc(v))
+    facts += [(k.replace("_", " ").capitalize(), fmt(v, 4) if isinstance(v, float) else
+               esc(names.bound_method_label(v) if k == "method" else v))
               for k, v in d.items() if k not in shown]
     return ('<div class="sk-panel-title">Counted data</div><dl class="sk-facts">'
             + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>")
@@ -155,7 +187,7 @@ class CapabilityStep:
     """Step "Capability" (key ``capability``)."""
 
     key = "capability"
-    title = "Capability"
+    title = names.STEP_NAMES[key]
     guidance = ("Compare the process spread with the tolerance and read the verdict with its "
                 "confidence bound.")
 
@@ -175,6 +207,7 @@ class CapabilityStep:
         self.caution = widgets.VBox([])
         self.verdict = html_box("", "sk-verdict")
         self.ppm = html_box("", "sk-ppm-box")
+        self.indices = html_box("", "sk-indices-box")
         self.findings = html_box("", "sk-findings")
         self.band = html_box("", "sk-band")
         self.attribute = html_box("", "sk-attribute")
@@ -192,7 +225,7 @@ class CapabilityStep:
             widgets.HBox([html_box('<div class="sk-field-label">Assumed index</div>'),
                           self.assumed], layout=widgets.Layout(align_items="center")),
             self.plan])
-        self.numbers = widgets.VBox([self.chart, widgets.HBox(
+        self.numbers = widgets.VBox([self.indices, self.chart, widgets.HBox(
             [self.ppm, self.band], layout=widgets.Layout(flex_flow="row wrap"))])
         self.refresh(context)
         self.chart.children = [self.live.widget("sk-interval-chart")]
@@ -227,6 +260,7 @@ class CapabilityStep:
             self.view.update(res)
             self.live.changed()
         self.ppm.value = ppm_html(res)
+        self.indices.value = indices_html(res)
         self.band.value = band_html(res)
         self.attribute.value = attribute_html(res)
         self.findings.value = findings_html(res)

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import esc, guarded, html_box
 
@@ -60,7 +61,7 @@ class ExportStep:
     """Step "Evidence & hand-off" (key ``export``)."""
 
     key = "export"
-    title = "Evidence & hand-off"
+    title = names.STEP_NAMES[key]
     guidance = "Produce the PDF evidence and the limits for series production."
 
     def __init__(self):

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.bokeh_assets import chart_widget, values_in_order_figure
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import DataFileError
@@ -107,7 +108,7 @@ class IntakeStep:
     """Step "Bring in data" (key ``intake``)."""
 
     key = "intake"
-    title = "Bring in data"
+    title = names.STEP_NAMES[key]
     guidance = ("Upload the measurement file (CSV or Excel) and check what was found in it "
                 "before confirming.")
 

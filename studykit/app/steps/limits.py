@@ -1,4 +1,4 @@
-"""Workbook step "Limits & targets": the study overview and each characteristic's specification.
+"""Workbook step "Specification & criterion": the study overview and each characteristic's specification.
 
 At the top, every characteristic at a glance (:class:`~studykit.app.overview.OverviewPanel`):
 verdict, index and lower bound, removals, review state; sortable; a click opens one in the
@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import OverviewPanel, no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import caution_banner, esc, guarded, html_box
 from studykit.errors import SpecError
@@ -34,10 +35,10 @@ def _show(v) -> str:
 
 
 class LimitsStep:
-    """Step "Limits & targets" (key ``limits``)."""
+    """Step "Specification & criterion" (key ``limits``)."""
 
     key = "limits"
-    title = "Limits & targets"
+    title = names.STEP_NAMES[key]
     guidance = ("Check every characteristic at a glance, then set each one's specification "
                 "limits, target and acceptance criterion (changes are recorded with a reason).")
 

@@ -36,7 +36,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
-from studykit import theme
+from studykit import names, theme
 from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import DataFileError, StudyInputError
@@ -60,9 +60,9 @@ __all__ = [
     "read_reference_upload",
 ]
 
-GAUGE_KIND = "gauge_rr"
+GAUGE_KIND = names.GAUGE_RR_KIND
 #: Kind of a stored short gauge study (one reference part measured repeatedly).
-SHORT_KIND = "gauge_short"
+SHORT_KIND = names.GAUGE_SHORT_KIND
 
 #: Gauge verdict status -> theme verdict key (colour, symbol) and the word on the chip.
 STATUS_KIND = {
@@ -95,7 +95,7 @@ _SOURCE_NAMES = {
     "appraiser_by_part": "Appraiser × part", "repeatability": "Repeatability (error)",
     "total": "Total",
 }
-_BANDS_NOTE = ("Bands: %GRR below 10 % acceptable, 10 to 30 % conditionally acceptable, above "
+_BANDS_NOTE = (f"Bands: {names.GAUGE_TOTAL} below 10 % of the study variation acceptable, 10 to 30 % conditionally acceptable, above "
                "30 % not acceptable; at least 5 distinct categories. These are common practice: "
                "the customer's rule governs.")
 
@@ -237,7 +237,7 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the gauge table as CSV "
-            "(comma, semicolon or tab separated) or as an Excel workbook (.xlsx)", file=name)
+            "(comma, semicolon or tab separated) or as an Excel file (.xlsx)", file=name)
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings",
                             file=name)
@@ -279,7 +279,7 @@ def _headers(path: Path) -> list[str]:
 
 
 def _chip(status: str | None) -> str:
-    kind, word = STATUS_KIND.get(status or "", ("pending", "Not judged"))
+    kind, word = STATUS_KIND.get(status or "", ("pending", names.VERDICT_STATES["no_verdict"]))
     v = theme.VERDICTS[kind]
     return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
             f'border-color:{v.color}">{v.symbol} {esc(word)}</span>')
@@ -316,8 +316,9 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
     ndc_text = "—" if ndc is None else str(ndc)
     if v.get("ndc_ok") is False:
         ndc_text += " (below 5)"
-    facts = [("%GRR of study variation", _pct(v.get("pct_grr_study_variation"))),
-             ("%GRR of tolerance", _pct(v.get("pct_grr_tolerance"))
+    facts = [(f"{names.GAUGE_TOTAL}, share of study variation",
+              _pct(v.get("pct_grr_study_variation"))),
+             (f"{names.GAUGE_TOTAL}, share of tolerance", _pct(v.get("pct_grr_tolerance"))
               if payload.get("tolerance") is not None else "no tolerance given"),
              ("Distinct categories (ndc)", ndc_text),
              ("Design", f"{payload.get('n_parts', '?')} parts × "
@@ -422,7 +423,7 @@ def range_method_html(payload: Mapping) -> str:
         return ""
     sigmas = [("Repeatability (EV)", r.get("repeatability")),
               ("Reproducibility (AV)", r.get("reproducibility")),
-              ("Gauge R&R (GRR)", r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
+              (names.GAUGE_TOTAL, r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
               ("Total (TV)", r.get("total"))]
     cells = "".join(f"<tr><td>{esc(k)}</td><td class=\"num\">{fmt(v, 5)}</td></tr>"
                     for k, v in sigmas)
@@ -432,7 +433,8 @@ def range_method_html(payload: Mapping) -> str:
     return ('<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
             '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
             f"<th>Sigma</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
-            f'<div class="sk-small">%GRR of study variation {_pct(r.get("pct_study_variation"))}'
+            f'<div class="sk-small">{names.GAUGE_TOTAL}, share of study variation '
+            f'{_pct(r.get("pct_study_variation"))}'
             f' (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get("pct_tolerance"))}, '
             f'ndc {esc(r.get("ndc"))}. K1 = {fmt(r.get("k1"), 4)}, K2 = {fmt(r.get("k2"), 4)}, '
             f'K3 = {fmt(r.get("k3"), 4)}.{zero} The ANOVA figures above decide; this estimate '
@@ -458,7 +460,7 @@ def short_study_html(payload: Mapping, *, who: str | None = None, when: str | No
     True
     """
     v = payload.get("verdict") if isinstance(payload.get("verdict"), Mapping) else {}
-    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", "Not judged"))
+    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", names.VERDICT_STATES["no_verdict"]))
     verdict = theme.VERDICTS[kind]
     chip = (f'<span class="sk-chip" style="color:{verdict.text_color};background:'
             f'{verdict.background};border-color:{verdict.color}">{verdict.symbol} '
@@ -562,7 +564,7 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the readings as CSV or as an "
-            "Excel workbook (.xlsx)", file=name)
+            "Excel file (.xlsx)", file=name)
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings",
                             file=name)
@@ -590,7 +592,7 @@ class GaugeStep:
     """Step "Gauge check" (key ``measuring``)."""
 
     key = "measuring"
-    title = "Gauge check"
+    title = names.STEP_NAMES[key]
     guidance = ("Show that the measuring system can tell parts apart before judging the "
                 "process: review the stored gauge R&R study, or run and attach a new one.")
 

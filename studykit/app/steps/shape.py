@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.charts import LiveChart, ShapeView
 from studykit.app.overview import (
     fmt,
@@ -83,7 +84,7 @@ class ShapeStep:
     """Step "Shape" (key ``shape``)."""
 
     key = "shape"
-    title = "Shape"
+    title = names.STEP_NAMES[key]
     guidance = "Check how the values are distributed and choose the model that describes them."
 
     def __init__(self):

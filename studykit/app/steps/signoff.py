@@ -14,11 +14,12 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.study import SIGNOFF_ROLES
 
-_DECISIONS = [("Approve", "approve"), ("Reject", "reject"), ("Comment only", "comment")]
+_DECISIONS = [(names.decision_label(d), d) for d in ("approve", "reject", "comment")]
 
 
 def _when(text: str) -> str:
@@ -38,8 +39,10 @@ def lock_html(session) -> str:
                    "field at the top of the panel: the change then voids the approval, which "
                    "stays on record as voided.</div>")
     if voided:
-        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> ({esc(st.signoff.role)}, "
-                        f"{esc(st.signoff.decision)}, {_when(st.signoff.when)}): "
+        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> "
+                        f"({esc(names.role_label(st.signoff.role))}, "
+                        f"{esc(names.decision_label(st.signoff.decision))}, "
+                        f"{_when(st.signoff.when)}): "
                         f"{esc(st.why)}</li>" for st in voided)
         out.append('<div class="sk-void sk-voided-banner"><b>✗ Sign-off voided.</b> The study '
                    "changed after these sign-offs, so they no longer hold and the study must be "
@@ -60,12 +63,13 @@ def signoffs_html(session) -> str:
     for st in states:
         s = st.signoff
         cls = "" if st.valid else ' class="sk-voided"'
-        state = (verdict_chip(True, text="Holds") if st.valid
-                 else verdict_chip(False, text="Voided"))
+        state = (verdict_chip(True, text=names.SIGNOFF_VALID) if st.valid
+                 else verdict_chip(False, text=names.SIGNOFF_VOIDED))
         match = ("matches the study now" if s.digest == current
                  else "differs from the study now")
-        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(s.role)}</td>"
-                    f"<td{cls}>{esc(s.decision)}</td><td{cls}>{esc(s.comment)}</td>"
+        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(names.role_label(s.role))}"
+                    f"</td><td{cls}>{esc(names.decision_label(s.decision))}</td>"
+                    f"<td{cls}>{esc(s.comment)}</td>"
                     f"<td{cls}>{_when(s.when)}</td>"
                     f'<td><code class="sk-digest" title="{esc(s.digest)}">{esc(s.digest[:12])}'
                     f'</code><div class="sk-small">{match}</div></td><td>{state}'
@@ -100,7 +104,7 @@ def open_verdicts_html(open_: dict) -> str:
     if not open_:
         return ""
     rows = "".join(f"<li><b>{esc(n)}</b>: {esc(w)}</li>" for n, w in open_.items())
-    if all(w == "not analysed yet" for w in open_.values()):
+    if all(w == names.VERDICT_STATES["not_analysed"] for w in open_.values()):
         return ('<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
                 "known once every characteristic is analysed (<i>Analyse all "
                 "characteristics</i> in the overview, or an approval, does it).</div>")
@@ -132,7 +136,7 @@ class SignoffStep:
     """Step "Review & sign" (key ``signoff``)."""
 
     key = "signoff"
-    title = "Review & sign"
+    title = names.STEP_NAMES[key]
     guidance = ("The team reviews the evidence and signs; a later change to data or decisions "
                 "voids the sign-off.")
 

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.charts import ControlChartView, LiveChart
 from studykit.app.overview import (
     fmt,
@@ -54,7 +55,7 @@ class StabilityStep:
     """Step "Stability" (key ``stability``)."""
 
     key = "stability"
-    title = "Stability"
+    title = names.STEP_NAMES[key]
     guidance = ("Confirm the process runs in statistical control; every removed subgroup needs "
                 "a recorded reason.")
 
@@ -194,7 +195,7 @@ class StabilityStep:
         n_open = open_signal_count(res)
         removed = len(res.phase1.removals)
         labels = self.view._labels
-        facts = [("Chart", f"{chart.kind.replace('_', '-')} ({chart.reason})"),
+        facts = [("Chart", f"{names.chart_kind_label(chart.kind)} ({chart.reason})"),
                  ("Subgroups used", f"{chart.n_subgroups} of {len(labels)}"
                                     + (f", {removed} removed" if removed else "")),
                  ("Within sigma", f"{fmt(res.within_sigma, 5)} "

@@ -1,0 +1,292 @@
+"""One vocabulary on every surface: the demo study rendered to screen text (the workbook steps'
+HTML, built without a browser as test_app_panels does), PDF text (pypdf) and terminal text
+(``analyze --study``, ``study show``, ``verify``) carries no raw identifier and no second name
+for one thing; and the helpers of :mod:`studykit.names` (chart-kind spellings, number
+formatting for the tolerance, p-values, verdict states, the confidence parameter).
+
+The rules are ours (names review of the workbook, PDF and terminal; no external source): the
+raw identifiers are built from the id tables of ``studykit.names`` (``names.raw_ids()``).
+"""
+
+from __future__ import annotations
+
+import html
+import re
+import shutil
+from pathlib import Path
+
+import ipywidgets as widgets
+import pytest
+from pypdf import PdfReader
+
+from studykit import names
+from studykit.app.session import demo_study_path
+from studykit.app.shell import build_workbook
+from studykit.cli import main
+from studykit.report.pdf import build_report
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.study"
+
+#: Second names for one thing that earlier versions showed (the state's one name is in
+#: names.VERDICT_STATES; the gauge total is names.GAUGE_TOTAL; a sign-off is Valid or Voided).
+SECOND_NAMES = (
+    "Meets criteria", "Does not meet criteria", "Not judged", "NOT JUDGED", "Not yet assessed",
+    "not yet assessed", "Rate reported", "Holds", "Valid now?", "cannot analyse",
+    "Not demonstrated", "excluded subgroup", "exclude subgroup", "%GRR of", "Gauge RR",
+)
+
+
+def _raw_hits(text: str) -> list[str]:
+    """Raw ids in ``text`` (case-sensitive, as whole words), with some context."""
+    hits = []
+    for rid in (*names.raw_ids(), "xbar-r", "xbar-s"):
+        pat = r"(?<![A-Za-z0-9_\-])" + re.escape(rid) + r"(?![A-Za-z0-9_\-])"
+        for m in re.finditer(pat, text):
+            hits.append(f"{rid!r}: ...{text[max(0, m.start() - 60):m.end() + 30]}...")
+    return hits
+
+
+def _second_names(text: str) -> list[str]:
+    return [n for n in SECOND_NAMES if n in text]
+
+
+#: British spelling in user text (the command ``studykit analyze`` keeps its name).
+_AMERICAN = re.compile(r"(?<!studykit )\b(analyz(?:e|ed|es|ing)|center(?:ed|s)?|colors?|"
+                       r"behaviors?|favou?rable|minimiz\w*|maximiz\w*|summariz\w*|"
+                       r"recogniz\w*)\b")
+
+
+def _american(text: str) -> list[str]:
+    return sorted({m.group(0) for m in _AMERICAN.finditer(text)} - {"favourable"})
+
+
+def _check(text: str, surface: str) -> None:
+    hits = _raw_hits(text)
+    assert not hits, f"raw ids on the {surface}:\n" + "\n".join(hits[:20])
+    twice = _second_names(text)
+    assert not twice, f"second names on the {surface}: {twice}"
+    us = _american(text)
+    assert not us, f"American spelling on the {surface}: {us}"
+
+
+def _widget_texts(w, out: list) -> list:
+    if isinstance(w, widgets.HTML | widgets.HTMLMath | widgets.Label):
+        out.append(str(w.value))
+    for attr in ("description", "tooltip", "placeholder"):
+        v = getattr(w, attr, None)
+        if isinstance(v, str) and v:
+            out.append(v)
+    out.extend(str(o) for o in getattr(w, "_options_labels", ()) or ())
+    for child in getattr(w, "children", ()) or ():
+        _widget_texts(child, out)
+    return out
+
+
+def _plain(markup: str) -> str:
+    markup = re.sub(r"<(style|script)\b.*?</\1>", " ", markup, flags=re.S)
+    markup = re.sub(r"<[^>]+>", " ", markup)
+    return html.unescape(markup)
+
+
+@pytest.fixture(scope="module")
+def study_copy(tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("names") / "pilot.study"
+    shutil.copy(demo_study_path(), path)
+    return path
+
+
+@pytest.fixture(scope="module")
+def screen(study_copy) -> dict:
+    """Plain text of every workbook step for every characteristic of the demo study."""
+    wb = build_workbook(study_copy)
+    for step in wb.steps:
+        wb.select(step.key)
+    ws = wb.context.extra["studykit.workspace"]
+    out = {}
+    for name in ws.session.names:
+        ws.picker.value = name
+        for step in wb.steps:
+            wb.select(step.key)
+            out[(name, step.key)] = _plain("\n".join(_widget_texts(wb, [])))
+    return out
+
+
+def test_screen_text_has_no_raw_id_and_one_name_each(screen):
+    assert len(screen) >= 5 * 6, sorted(screen)
+    _check("\n".join(screen.values()), "workbook")
+
+
+def test_screen_capability_step_shows_findings_table_and_states(screen):
+    cap = {name: text for (name, key), text in screen.items() if key == "capability"}
+    # every finding of the JSON, by its title, in the capability step (gauge not checked too)
+    assert "Gauge not checked" in cap["bore_diameter"], cap["bore_diameter"][:2000]
+    assert "Gauge checked" in cap["flange_thickness"]
+    assert "Run-rule signals" in cap["face_runout"]
+    # the table of indices with estimates and bounds (the numbers that go to the customer)
+    text = cap["flange_thickness"]
+    assert "Capability indices" in text and "Lower 95% bound (one-sided)" in text
+    assert re.search(r"Ppk\s+\(judged\)\s+2\.28\s+2\.05", text), text[:3000]
+    # one name per state: estimate passes, bound fails
+    assert names.VERDICT_STATES["not_demonstrated"] in cap["pull_off_force"]
+    assert names.VERDICT_STATES["meets"] in cap["flange_thickness"]
+
+
+def test_workbook_json_export_carries_every_finding(study_copy):
+    import json
+
+    from studykit.app.session import StudySession
+
+    data = json.loads(StudySession(study_copy).results_json())
+    codes = {n: [f["code"] for f in c.get("findings", [])]
+             for n, c in data["characteristics"].items()}
+    assert "gauge_not_checked" in codes["bore_diameter"]
+    assert "gauge_checked" in codes["flange_thickness"]
+
+
+@pytest.fixture(scope="module")
+def pdf_path(study_copy, tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("pdf") / "demo.pdf"
+    build_report(study_copy, out)
+    return out
+
+
+def test_pdf_text_has_no_raw_id_and_one_name_each(pdf_path):
+    pdf_text = "\n".join(p.extract_text() or "" for p in PdfReader(str(pdf_path)).pages)
+    assert "Verdicts at a glance" in pdf_text
+    _check(pdf_text, "PDF report")
+    assert names.VERDICT_STATES["not_demonstrated"] in pdf_text
+    assert "X-bar-R" in pdf_text and "I-MR" in pdf_text
+
+
+def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, capsys):
+    for name in ("bore_diameter", "face_runout", "flange_thickness", "pull_off_force",
+                 "leak_test_defectives"):
+        assert main(["analyze", "--study", str(study_copy), "-c", name]) == 0
+    assert main(["study", "show", str(study_copy)]) == 0
+    assert main(["verify", str(pdf_path), "--study", str(study_copy), "--allow-unsigned"]) == 0
+    out = capsys.readouterr().out
+    assert "verdict: MEETS" in out and "verdict: MORE DATA NEEDED" in out
+    assert "Gauge not checked:" in out
+    _check(out, "terminal")
+
+
+# ----------------------------------------------------------------------------- the helpers
+
+
+@pytest.mark.parametrize("spelling", ["xbar_r", "xbar-r", "X-bar-R", "XBAR_R", "xbarr"])
+def test_chart_kind_spellings_are_one_kind(spelling):
+    assert names.chart_kind_id(spelling) == "xbar_r"
+    assert names.chart_kind_label(names.chart_kind_id(spelling)) == "X-bar-R"
+
+
+def test_chart_kind_unknown_names_the_accepted_spellings():
+    with pytest.raises(ValueError, match="xbar-r"):
+        names.chart_kind_id("xbar")
+
+
+@pytest.mark.parametrize("spelling", ["xbar_r", "X-bar-R"])
+def test_cli_accepts_every_chart_spelling(spelling, capsys):
+    data = str(DEMO.parent / "pump_housing_pilot.csv")
+    assert main(["analyze", data, "-c", "bore_diameter", "--chart", spelling]) == 0
+    assert "chart: X-bar-R" in capsys.readouterr().out
+
+
+def test_value_digits_resolve_a_hundredth_of_the_tolerance():
+    # tolerance 0.02: 1/100 is 0.0002, so 4 decimals; 20.0055 and 20.0052 stay apart
+    assert names.format_value(20.0055, 19.99, 20.01) != names.format_value(20.0052, 19.99, 20.01)
+    assert names.value_digits(19.99, 20.01) == 4
+    assert names.value_digits(7.9, 8.1) == 3  # tolerance 0.2 -> 0.002
+    assert names.value_digits(0, 100) == 0
+    assert names.value_digits(None, 0.05) == 4  # one-sided: the default
+    for lsl, usl in ((19.99, 20.01), (7.9, 8.1), (11.97, 12.03), (0.0, 3.0)):
+        step = 10.0 ** -names.value_digits(lsl, usl)
+        assert step <= (usl - lsl) / 100 + 1e-15
+
+
+def test_p_values_never_print_as_zero():
+    assert names.format_p(0.0) == "< 0.001"
+    assert names.format_p(4.9e-4) == "< 0.001"
+    assert names.format_p(0.0005) == "0.001"
+    assert names.format_p(0.316) == "0.316"
+
+
+def test_indices_in_sentences_have_two_decimals():
+    assert names.format_index(2.284262470720637) == "2.28"
+    assert names.format_index(None) == "-"
+
+
+def test_verdict_states_are_distinct():
+    est_only = {"verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.9,
+                            "threshold": 1.67}, "chart": {"kind": "imr"}, "findings": []}
+    fails = {"verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.2,
+                         "threshold": 1.67}, "chart": {"kind": "imr"}, "findings": []}
+    unstable = {"verdict": {"meets": None}, "chart": {"kind": "xbar_r"},
+                "findings": [{"code": "not_in_control"}]}
+    no_spec = {"verdict": None, "chart": {"kind": "xbar_r"}, "findings": []}
+    rate = {"verdict": None, "chart": {"kind": "u"}, "findings": []}
+    states = [names.verdict_state(r) for r in (est_only, fails, unstable, no_spec, rate, None)]
+    assert states == ["not_demonstrated", "does_not_meet", "no_verdict_not_in_control",
+                      "no_verdict_no_spec", "rate_only", "not_analysed"]
+    labels = [names.verdict_label(s) for s in states]
+    assert len(set(labels)) == len(labels)
+    assert len(set(names.VERDICT_STATES.values())) == len(names.VERDICT_STATES)
+
+
+def test_confidence_has_one_name_and_none_means_not_given():
+    assert names.confidence_of(None) == names.DEFAULT_CONFIDENCE
+    assert names.confidence_of(0.95, default=0.9) == 0.95  # an explicit 0.95 is kept
+    assert names.confidence_of(level=0.9) == 0.9
+    assert names.confidence_of(alpha=0.01) == pytest.approx(0.99)
+    with pytest.raises(ValueError, match="once"):
+        names.confidence_of(0.9, level=0.95)
+
+
+def test_default_criterion_is_defined_once():
+    from studykit.analysis import _criteria_dict
+    from studykit.stats import capability
+    from studykit.study import Criteria
+
+    c = Criteria()
+    assert (c.index, c.threshold, c.basis, c.confidence) == tuple(
+        names.DEFAULT_CRITERION[k] for k in ("index", "threshold", "basis", "confidence"))
+    assert _criteria_dict(None) == dict(names.DEFAULT_CRITERION)
+    assert capability.DEFAULT_CRITERIA["pre_launch"]["threshold"] == 1.67
+    assert capability.INDEX_NAMES == names.INDEX_IDS
+
+
+def test_every_model_family_has_its_name_here():
+    from studykit.stats import fit
+
+    ids = {row_id for row_id in getattr(fit, "FAMILIES", {})} or {
+        cls.id for cls in vars(fit).values()
+        if isinstance(cls, type) and getattr(cls, "id", "")}
+    assert ids, "no family ids found in studykit.stats.fit"
+    missing = sorted(i for i in ids if i not in names.MODEL_LABELS)
+    assert not missing, missing
+
+
+# ----------------------------------------------------------------------------- timestamps
+
+
+def test_pdf_creation_date_is_the_studys_own_time(pdf_path):
+    # the demo's latest recorded event is L. Haverkamp's comment at 2026-03-03T10:05:00Z
+    info = PdfReader(str(pdf_path)).metadata
+    assert info["/CreationDate"].startswith("D:20260303100500"), info["/CreationDate"]
+
+
+def test_one_clock_per_decision(tmp_path):
+    from studykit.store import StudyFile
+
+    path = tmp_path / "s.study"
+    shutil.copy(DEMO, path)
+    sf = StudyFile(path)
+    sf.exclude("bore_diameter", "5", reason="setup part", who="A. Tester")
+    study = sf.load()
+    decision = study.decisions[-1]
+    entry = sf.audit_log()[-1]
+    assert entry.what == "remove subgroup 5 of 'bore_diameter'"
+    assert entry.when == decision.when  # the removal log and the audit log agree
+    # and in the demo study itself
+    demo = StudyFile(DEMO)
+    by_time = {e.when for e in demo.audit_log()}
+    assert all(d.when in by_time for d in demo.load().decisions)
