@@ -26,17 +26,20 @@ colour AND marker, so the figures read in grey scale too. Every word a reader se
 from __future__ import annotations
 
 import functools
+from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
 import numpy as np
 
 from studykit import theme
+from studykit.errors import StudyInputError
 from studykit.stats.gauge import (
     GAUGE_RR,
     PART,
     REPEATABILITY,
     REPRODUCIBILITY,
     GaugeResult,
+    gauge_rr,
 )
 
 if TYPE_CHECKING:
@@ -50,6 +53,7 @@ __all__ = [
     "readings_figure",
     "repeatability_figure",
     "story",
+    "result_from_payload",
     "all_figures",
 ]
 
@@ -151,6 +155,59 @@ def _legend_below(ax) -> None:
 
 def _pct(v) -> str:
     return "–" if v is None else f"{v:.1f} %"
+
+
+def result_from_payload(payload: Mapping) -> GaugeResult:
+    """Recompute the :class:`~studykit.stats.gauge.GaugeResult` from a stored payload.
+
+    The payload (``GaugeResult.to_dict()``) keeps the readings as a parts x appraisers x
+    trials cube with the labels and the options; the figures need the result object, so the
+    study is computed again from exactly those values (same as the PDF report does).
+
+    Raises
+    ------
+    StudyInputError
+        When the payload lacks the readings (e.g. written by an older version).
+
+    Examples
+    --------
+    >>> from studykit.stats.gauge import gauge_rr
+    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
+    ...                ["A", "A", "B", "B"] * 2)
+    >>> again = result_from_payload(res.to_dict())
+    >>> again.pct_grr == res.pct_grr, again.n_values
+    (True, 8)
+    """
+    try:
+        cube = payload["values"]
+        # whole-number labels compare as numbers (part 10 after part 9), as when first read
+        parts = [_natural(x) for x in payload["part_labels"]]
+        apprs = [_natural(x) for x in payload["appraiser_labels"]]
+        vals, pl, al, tl = [], [], [], []
+        for i, row in enumerate(cube):
+            for j, cell in enumerate(row):
+                for k, v in enumerate(cell):
+                    vals.append(np.nan if v is None else float(v))
+                    pl.append(parts[i])
+                    al.append(apprs[j])
+                    tl.append(k + 1)
+    except (KeyError, TypeError, IndexError, ValueError) as exc:
+        raise StudyInputError(
+            f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
+            "numbers are shown, but the figures need the readings: run the study again from "
+            "its data file to attach a complete result") from None
+    return gauge_rr(vals, pl, al, trials=tl,
+                    alpha_interaction=payload.get("alpha_interaction", 0.25),
+                    study_variation=payload.get("study_variation", 6.0),
+                    lsl=payload.get("lsl"), usl=payload.get("usl"),
+                    confidence=payload.get("confidence", 0.95))
+
+
+def _natural(label):
+    """'7' -> 7 (numbers sort as numbers); anything else unchanged."""
+    if isinstance(label, str) and label.strip().lstrip("-").isdigit():
+        return int(label)
+    return label
 
 
 # --- 1. where the spread comes from ------------------------------------------------------------

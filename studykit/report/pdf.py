@@ -1109,26 +1109,10 @@ def _pct_cell(v) -> str:
 
 def _gauge_result(payload):
     """Recompute the GaugeResult from the stored values (for its figures)."""
+    from studykit.report.gauge_figures import result_from_payload
+
     try:
-        import numpy as np
-
-        from studykit.stats.gauge import gauge_rr
-
-        cube = payload["values"]
-        parts, apprs = payload["part_labels"], payload["appraiser_labels"]
-        vals, pl, al, tl = [], [], [], []
-        for i, row in enumerate(cube):
-            for j, cell in enumerate(row):
-                for k, v in enumerate(cell):
-                    vals.append(np.nan if v is None else v)
-                    pl.append(parts[i])
-                    al.append(apprs[j])
-                    tl.append(k + 1)
-        return gauge_rr(vals, pl, al, trials=tl,
-                        alpha_interaction=payload.get("alpha_interaction", 0.25),
-                        study_variation=payload.get("study_variation", 6.0),
-                        lsl=payload.get("lsl"), usl=payload.get("usl"),
-                        confidence=payload.get("confidence", 0.95))
+        return result_from_payload(payload)
     except (StudyInputError, KeyError, TypeError, ValueError, IndexError):
         return None
 

@@ -99,16 +99,8 @@ _UPLOAD_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx", ".xlsm")
 
 
 def gauge_result_from_payload(payload: Mapping):
-    """Recompute the :class:`~studykit.stats.gauge.GaugeResult` from a stored payload.
-
-    The payload (``GaugeResult.to_dict()``) keeps the readings as a parts x appraisers x
-    trials cube with the labels and the options; the figures need the result object, so the
-    study is computed again from exactly those values (same as the PDF report does).
-
-    Raises
-    ------
-    StudyInputError
-        When the payload lacks the readings (e.g. written by an older version).
+    """Recompute the :class:`~studykit.stats.gauge.GaugeResult` from a stored payload
+    (:func:`studykit.report.gauge_figures.result_from_payload`, shared with the PDF).
 
     Examples
     --------
@@ -119,40 +111,7 @@ def gauge_result_from_payload(payload: Mapping):
     >>> again.pct_grr == res.pct_grr, again.n_values
     (True, 8)
     """
-    import numpy as np
-
-    from studykit.stats.gauge import gauge_rr
-
-    try:
-        cube = payload["values"]
-        # whole-number labels compare as numbers (part 10 after part 9), as when first read
-        parts = [_natural(x) for x in payload["part_labels"]]
-        apprs = [_natural(x) for x in payload["appraiser_labels"]]
-        vals, pl, al, tl = [], [], [], []
-        for i, row in enumerate(cube):
-            for j, cell in enumerate(row):
-                for k, v in enumerate(cell):
-                    vals.append(np.nan if v is None else float(v))
-                    pl.append(parts[i])
-                    al.append(apprs[j])
-                    tl.append(k + 1)
-    except (KeyError, TypeError, IndexError, ValueError) as exc:
-        raise StudyInputError(
-            f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
-            "numbers are shown, but the figures need the readings: run the study again from "
-            "its data file to attach a complete result") from None
-    return gauge_rr(vals, pl, al, trials=tl,
-                    alpha_interaction=payload.get("alpha_interaction", 0.25),
-                    study_variation=payload.get("study_variation", 6.0),
-                    lsl=payload.get("lsl"), usl=payload.get("usl"),
-                    confidence=payload.get("confidence", 0.95))
-
-
-def _natural(label):
-    """'7' -> 7 (numbers sort as numbers); anything else unchanged."""
-    if isinstance(label, str) and label.strip().lstrip("-").isdigit():
-        return int(label)
-    return label
+    return _gauge_figures.result_from_payload(payload)
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
