@@ -51,13 +51,24 @@ OKABE_ITO = {
     "reddish_purple": "#CC79A7",
 }
 
-# neutral tones for text, grids and page (not part of the published palette)
-INK = "#1F2328"  # body text
-INK_SOFT = "#57606A"  # secondary text, axis labels
-RULE = "#D0D7DE"  # borders, grid
+# Neutral tones for text, rules and page: our own, each tinted with the palette's blue (#0072B2)
+# so the frame belongs to the charts (not part of the published palette). The mix is
+# ``(1 - t) * base + t * blue`` per channel; contrast is checked in tests/test_app_theme.py.
+INK = "#12212B"  # body text: near-black + 10 % blue (16.4:1 on white)
+INK_SOFT = "#445A69"  # secondary text, axis labels: slate + 15 % blue (7.2:1 on white)
+RULE = "#CBDAE2"  # borders, grid: light grey + 10 % blue
+RULE_SOFT = "#DEE7EC"  # row lines inside tables: + 6 % blue
 PAPER = "#FFFFFF"
-PANEL = "#F6F8FA"  # quiet panel background
-EXCLUDED_GREY = "#8C959F"
+PANEL = "#F0F7FA"  # quiet panel background: white + 6 % blue
+PAGE = "#F5F9FC"  # the workbook's page behind its cards: white + 4 % blue
+TINT = "#E0EEF6"  # information notes, the current step's halo: white + 12 % blue
+EXCLUDED_GREY = "#778D9A"  # excluded points: grey + 15 % blue (3.5:1 on white)
+ACCENT = "#0072B2"  # Okabe-Ito blue: the current step, primary buttons (white text 5.2:1)
+ACCENT_DEEP = "#005A8C"  # blue darkened: links and text in the accent colour (7.4:1 on white)
+# The keyboard focus ring: a dark ring with a yellow halo (Okabe-Ito yellow), visible on white, on
+# the page tint and on the blue of the current step (WCAG 2.2 SC 2.4.13 asks 3:1 for the ring).
+FOCUS = INK
+FOCUS_HALO = "#F0E442"
 
 # Two palette colours are too light for a line on white (WCAG 2.1 SC 1.4.11 asks 3:1 for graphics
 # needed to read a chart): they are darkened, keeping their hue, until they reach 3:1.
