@@ -122,6 +122,7 @@ body {{ background: {theme.PAGE}; }}
 /* small screens: the page never scrolls sideways; wide tables scroll in their own box */
 @media (max-width: 900px) {{
   .sk-root table.sk-table {{ display: block; max-width: 100%; overflow-x: auto; min-width: 0; }}
+  .sk-root .sk-ovtable {{ overflow-x: auto; max-width: 100%; }}
   .sk-root .bk-root, .sk-root .jupyter-widgets {{ max-width: 100%; }}
 }}
 @media (max-width: 640px) {{

@@ -829,18 +829,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                                + (f" ({_esc(params)})" if params else "")
                                + f". Why: {_esc(res.model.reason)}.", st["body"]))
     if res.ranking is not None:
-        rows = [["#", "Model", "Parameters", "AIC", "AD A²", "AD p"]]
-        for row in res.ranking.rows[:6]:
-            if row.error:
-                continue
-            rows.append([str(row.rank), _esc(row.label), str(row.n_params), _num(row.aic, 6),
-                         _num(row.ad_statistic, 3),
-                         _esc(row.ad_p_text) if row.ad_p_text else _num(row.ad_p_value, 3)])
-        story.append(Spacer(1, 4))
-        story.append(KeepTogether([
-            Paragraph(f"Model ranking (best {len(rows) - 1} of {len(res.ranking.rows)}; "
-                      f"{_esc(res.ranking.rule)})", st["cellb"]),
-            _table(rows, [w * width for w in (0.05, 0.35, 0.13, 0.17, 0.13, 0.17)], styles=st)]))
+        _model_list_pdf(story, res, st, width)
     if res.model_band is not None:
         mb = res.model_band
         text = (f"Model uncertainty: across the models the data do not reject, the judged index "
@@ -1000,6 +989,36 @@ def _kept_signals_block(story, res, st, width) -> None:
         _table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
 
 
+def _model_list_pdf(story, res, st, width):
+    """The fitted families, each once, the threshold variant inside its family's row
+    (:mod:`studykit.report.model_list`, the same list as the workbook's shape step)."""
+    from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+    from studykit.report import model_list
+
+    L = model_list.LABELS
+    chosen = res.model.name if res.model is not None else None
+    lines = model_list.family_lines(res.ranking)
+
+    def aic(row):
+        if row is None:
+            return "–"
+        text = "not fitted" if row.error else _num(row.aic, 6)
+        return text + (f" {L['used']}" if row.id == chosen else "")
+
+    rows = [["#", L["family"], f"{L['aic']}, {L['plain'].lower()}",
+             f"{L['aic']}, {L['shifted'].lower()}", L["effect"]]]
+    for line in lines[:8]:
+        rows.append([str(line.rank), _esc(line.name), _esc(aic(line.plain)),
+                     _esc(aic(line.shifted)), _esc(model_list.threshold_effect(line, _fixed))])
+    story.append(Spacer(1, 4))
+    story.append(KeepTogether([
+        Paragraph(f"{L['title']} (best {len(rows) - 1} of {len(lines)}; "
+                  f"{_esc(L['rule'])} {_esc(res.ranking.rule)})", st["cellb"]),
+        _table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
+        Paragraph(_esc(model_list.SOURCE), st["small"])]))
+
+
 def _warnings_block(story, res, st):
     from reportlab.platypus import Paragraph
 
@@ -1071,7 +1090,7 @@ def _gauge_tables_pdf(story, payload, st, width):
                            f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
     story.append(Spacer(1, 3))
     story.append(Paragraph(gt.LABELS["anova_used_title"], st["cellb"]))
-    story.append(Paragraph(_esc(gt.anova_note(payload, _num)), st["small"]))
+    story.append(Paragraph(_esc(gt.anova_note(payload, _fixed)), st["small"]))
     story.append(_table(_gauge_anova_rows(payload.get("anova_used")),
                         [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st))
     story.append(Spacer(1, 4))
@@ -1101,6 +1120,11 @@ def _gauge_anova_rows(rows_in):
                      _num(r.get("ss")), _num(r.get("ms")), _num(r.get("f"), 3),
                      "–" if p is None else ("< 0.001" if p < 1e-3 else _num(p, 3))])
     return rows
+
+
+def _fixed(v, digits: int) -> str:
+    """``digits`` decimals (the workbook's ``fmt``), for the sentences shared with it."""
+    return "–" if v is None else f"{float(v):.{digits}f}"
 
 
 def _pct_cell(v) -> str:

@@ -6,11 +6,12 @@ recorded, and the test fails naming it; icons, fonts and BokehJS must come from 
 At each size the overview and the stability step (with its bokeh charts) and the gauge step are
 opened and photographed (test-artifacts/offline-<width>-*.png), and the layout is measured:
 
-* 1440 and 1024: the step bar fits in one row inside the page, no chart or legend leaves the
-  page (a bokeh legend is drawn inside its plot's canvas, so a canvas inside the page holds
-  its legend);
-* 390: the page does not scroll sideways; wide tables scroll in their own box; charts keep a
-  readable width (at least 300 px) and stay inside the page.
+* 1440 and 1024: the step bar fits in one row inside the page; no chart leaves the page and
+  every bokeh legend lies within its chart, uncut (legends take as many rows as they need:
+  ``studykit.theme.wrap_legends``);
+* 390: the page does not scroll sideways; wide tables (and the overview grid) scroll in their
+  own box; charts keep a readable width (at least 300 px) and stay inside the page, legends
+  within their charts.
 
 The widths 1024 and 390 are common small-laptop and phone widths (common practice, no source).
 """
@@ -93,23 +94,32 @@ _STEPBAR_JS = """() => {
           scroll: bar.scrollWidth, client: bar.clientWidth, n: steps.length};
 }"""
 
-# bokeh 3.9 renders each plot into a canvas inside shadow roots: collect them all
-_CANVAS_JS = """() => {
-  const out = [];
+# bokeh 3.9 renders each plot into a canvas inside shadow roots, and its legends as elements
+# (class bk-Legend) beside the canvas: collect both, each legend with the box of its plot
+_BOKEH_JS = """() => {
+  const plots = [], legends = [];
+  const box = (e) => { const r = e.getBoundingClientRect(); return [r.left, r.right, r.width]; };
   const walk = (node) => {
     node.querySelectorAll('*').forEach(e => {
-      if (e.tagName === 'CANVAS') {
+      const host = e.getRootNode().host;
+      if (e.tagName === 'CANVAS' && host && String(host.className).includes('bk-Canvas')) {
         const r = e.getBoundingClientRect();
-        if (r.width > 0 && r.height > 0) out.push([r.left, r.right, r.width]);
+        if (r.width > 0 && r.height > 0) plots.push(box(e));
+      }
+      if (e.shadowRoot && String(e.className).includes('bk-Legend')
+          && e.getBoundingClientRect().width > 0) {
+        const plot = e.getRootNode().host;
+        legends.push({legend: box(e), plot: plot ? box(plot) : null,
+                      clipped: e.scrollWidth > e.clientWidth + 1});
       }
       if (e.shadowRoot) walk(e.shadowRoot);
     });
   };
   walk(document);
-  return out;
+  return {plots, legends};
 }"""
 
-_TABLES_JS = """() => [...document.querySelectorAll('.sk-root table')].filter(
+_TABLES_JS = """() => [...document.querySelectorAll('.sk-root table, .sk-root .sk-ovtable')].filter(
   t => t.getBoundingClientRect().width > 0).map(t => {
   const r = t.getBoundingClientRect();
   let box = t, scrolls = false;
@@ -133,10 +143,17 @@ def _check_layout(page, key: str, where: str) -> None:
     sizes = page.evaluate(_OVERFLOW_JS)
     assert sizes["page"] <= view + 1, f"{where} at {key}: the page scrolls sideways ({sizes})"
     assert sizes["rootRight"] <= view + 1, (where, key, sizes)
-    for left, right, width in page.evaluate(_CANVAS_JS):
+    bokeh = page.evaluate(_BOKEH_JS)
+    for left, right, width in bokeh["plots"]:
         assert left >= -1 and right <= view + 1, f"{where} at {key}: a chart leaves the page"
         if key == "390":
             assert width >= 300, f"{where} at {key}: a chart only {width:.0f} px wide"
+    for item in bokeh["legends"]:
+        (left, right, _w), plot = item["legend"], item["plot"]
+        assert right <= view + 1 and not item["clipped"], f"{where} at {key}: a legend is cut"
+        if plot is not None:
+            assert left >= plot[0] - 1 and right <= plot[1] + 1, (
+                f"{where} at {key}: a legend leaves its chart ({item})")
     for table in page.evaluate(_TABLES_JS):
         assert table["right"] <= view + 1 or table["scrolls"], (
             f"{where} at {key}: a table is wider than the page and does not scroll in its box")
@@ -166,10 +183,14 @@ def test_offline_on_three_screens(browser, offline_server, key):
 
         page.locator(".sk-step-stability").click()
         page.wait_for_selector(".sk-step-stability.sk-current")
-        page.wait_for_function(f"({_CANVAS_JS})().length > 0")
+        page.wait_for_function(f"({_BOKEH_JS})().legends.length > 0")
         page.wait_for_timeout(1500)
         _check_layout(page, key, "stability")
         _shot(page, f"{key}-stability")
+        chart = page.locator(".sk-chart, .sk-stability-chart, .jupyter-widgets.bk-root").first
+        if chart.count():
+            chart.scroll_into_view_if_needed()
+            chart.screenshot(path=str(ARTIFACTS / f"offline-{key}-stability-chart.png"))
 
         page.locator(".sk-step-measuring").click()
         page.wait_for_selector(".sk-step-measuring.sk-current")
@@ -178,6 +199,9 @@ def test_offline_on_three_screens(browser, offline_server, key):
         page.wait_for_selector("img.sk-gauge-figure", state="visible")
         _check_layout(page, key, "gauge check")
         _shot(page, f"{key}-gauge")
+        figures = page.locator(".sk-gauge-figures").first
+        figures.scroll_into_view_if_needed()
+        figures.screenshot(path=str(ARTIFACTS / f"offline-{key}-gauge-figures.png"))
 
         # keyboard focus: tab onto a step button and see the ring
         page.locator(".sk-step-capability").focus()
