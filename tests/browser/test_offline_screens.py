@@ -187,10 +187,9 @@ def test_offline_on_three_screens(browser, offline_server, key):
         page.wait_for_timeout(1500)
         _check_layout(page, key, "stability")
         _shot(page, f"{key}-stability")
-        chart = page.locator(".sk-chart, .sk-stability-chart, .jupyter-widgets.bk-root").first
-        if chart.count():
-            chart.scroll_into_view_if_needed()
-            chart.screenshot(path=str(ARTIFACTS / f"offline-{key}-stability-chart.png"))
+        chart = page.locator(".sk-stability-chart").first
+        chart.scroll_into_view_if_needed()
+        chart.screenshot(path=str(ARTIFACTS / f"offline-{key}-stability-chart.png"))
 
         page.locator(".sk-step-measuring").click()
         page.wait_for_selector(".sk-step-measuring.sk-current")
