@@ -53,13 +53,24 @@ OKABE_ITO = {
     "reddish_purple": "#CC79A7",
 }
 
-# neutral tones for text, grids and page (not part of the published palette)
-INK = "#1F2328"  # body text
-INK_SOFT = "#57606A"  # secondary text, axis labels
-RULE = "#D0D7DE"  # borders, grid
+# Neutral tones for text, rules and page: our own, each tinted with the palette's blue (#0072B2)
+# so the frame belongs to the charts (not part of the published palette). The mix is
+# ``(1 - t) * base + t * blue`` per channel; contrast is checked in tests/test_app_theme.py.
+INK = "#12212B"  # body text: near-black + 10 % blue (16.4:1 on white)
+INK_SOFT = "#445A69"  # secondary text, axis labels: slate + 15 % blue (7.2:1 on white)
+RULE = "#CBDAE2"  # borders, grid: light grey + 10 % blue
+RULE_SOFT = "#DEE7EC"  # row lines inside tables: + 6 % blue
 PAPER = "#FFFFFF"
-PANEL = "#F6F8FA"  # quiet panel background
-EXCLUDED_GREY = "#8C959F"
+PANEL = "#F0F7FA"  # quiet panel background: white + 6 % blue
+PAGE = "#F5F9FC"  # the workbook's page behind its cards: white + 4 % blue
+TINT = "#E0EEF6"  # information notes, the current step's halo: white + 12 % blue
+EXCLUDED_GREY = "#778D9A"  # excluded points: grey + 15 % blue (3.5:1 on white)
+ACCENT = "#0072B2"  # Okabe-Ito blue: the current step, primary buttons (white text 5.2:1)
+ACCENT_DEEP = "#005A8C"  # blue darkened: links and text in the accent colour (7.4:1 on white)
+# The keyboard focus ring: a dark ring with a yellow halo (Okabe-Ito yellow), visible on white, on
+# the page tint and on the blue of the current step (WCAG 2.2 SC 2.4.13 asks 3:1 for the ring).
+FOCUS = INK
+FOCUS_HALO = "#F0E442"
 
 # Two palette colours are too light for a line on white (WCAG 2.1 SC 1.4.11 asks 3:1 for graphics
 # needed to read a chart): they are darkened, keeping their hue, until they reach 3:1.
@@ -399,7 +410,66 @@ def style_bokeh_figure(fig):
         axis.minor_tick_line_color = None
     for grid in [*fig.xgrid, *fig.ygrid]:
         grid.grid_line_color = RULE
+    wrap_legends(fig)
     return fig
+
+
+# A horizontal legend is one row wide unless told otherwise, and bokeh clips what does not fit
+# its plot. On every change of the plot's width this picks the fewest rows whose widest
+# columns fit: each entry's width is measured with the legend's own font (canvas measureText).
+_WRAP_LEGEND_JS = """
+const ctx = (window._studykitLegendCtx = window._studykitLegendCtx ||
+             document.createElement('canvas').getContext('2d'));
+const avail = fig.inner_width + (fig.min_border_left || 0) - 16;
+if (!(avail > 0)) { return; }
+let extra = 0;
+for (const leg of legends) {
+  ctx.font = `${leg.label_text_font_size || '12px'} Helvetica, Arial, sans-serif`;
+  const w = leg.items.map((it) => {
+    const l = it.label;
+    const text = typeof l === 'string' ? l : ((l && (l.value ?? l.field)) || '');
+    return ctx.measureText(String(text)).width + leg.glyph_width + leg.label_standoff
+      + leg.spacing;
+  }).sort((a, b) => b - a);
+  let cols = w.length;
+  while (cols > 1 && w.slice(0, cols).reduce((a, b) => a + b, 0)
+         + 2 * (leg.padding + leg.margin) > avail) { cols -= 1; }
+  const rows = Math.max(1, Math.ceil(w.length / cols));
+  if (leg.nrows !== rows) { leg.ncols = 'auto'; leg.nrows = rows; }
+  extra = Math.max(extra, rows - (rows0[legends.indexOf(leg)] || 1));
+}
+// the plot keeps its own height: the figure grows by the rows the legends added
+const height = base_height + row_height * extra;
+if (base_height > 0 && fig.height !== height) { fig.height = height; }
+"""
+
+
+def wrap_legends(fig) -> None:
+    """Let the horizontal legends of ``fig`` take as many rows as its width needs (browser side).
+
+    Examples
+    --------
+    >>> from bokeh.models import Legend, LegendItem
+    >>> from bokeh.plotting import figure
+    >>> f = figure(width=300)
+    >>> r = f.line([1, 2], [1, 2])
+    >>> f.add_layout(Legend(items=[LegendItem(label="a", renderers=[r])],
+    ...                     orientation="horizontal"), "above")
+    >>> wrap_legends(f)
+    >>> len(f.js_property_callbacks["change:inner_width"])
+    1
+    """
+    from bokeh.models import CustomJS
+
+    legends = [leg for leg in fig.legend if leg.orientation == "horizontal"]
+    if not legends or fig.js_property_callbacks.get("change:inner_width"):
+        return
+    rows0 = [leg.nrows if isinstance(leg.nrows, int) else 1 for leg in legends]
+    row_height = 26  # one legend row at 12 px text with its glyph and padding
+    fig.js_on_change("inner_width", CustomJS(
+        args={"fig": fig, "legends": legends, "rows0": rows0, "row_height": row_height,
+              "base_height": fig.height if isinstance(fig.height, int) else 0},
+        code=_WRAP_LEGEND_JS))
 
 
 def _role(name: str) -> Role:

@@ -106,13 +106,22 @@ def test_the_stored_study_is_shown_with_its_verdict_tables_and_figures(wb, study
     assert f"{v['pct_grr_tolerance']:.1f} %" in text
     assert str(stored.payload["ndc"]) in text
     assert "the customer&#x27;s rule governs" in text  # the bands are common practice, no rule
-    assert "Gauge R&amp;R (measurement)" in step.components.value
-    assert "interval" in step.components.value
     pooled = stored.payload["interaction_pooled"]
+    assert "Gauge R&amp;R (all measurement)" in step.components.value
+    assert "interval" in step.components.value
+    # headers in words (issue 15 item 2): no compressed percent headers
+    for words in ("Share of variance", "Spread (σ)", "Share of study spread",
+                  "Share of tolerance"):
+        assert f"<th>{words}</th>" in step.components.value
+    assert "%" + "Contrib" not in step.components.value
+    # the ANOVA used comes first; the full model only behind a toggle, after pooling
+    assert step.anova.value.startswith('<div class="sk-panel-title">Analysis of variance used')
+    assert ("<details" in step.anova.value) is pooled
     assert ("pooled into the repeatability" in step.anova.value) is pooled
     assert "Average-and-range" in step.range_method.value
     pngs = [bytes(box.children[0].value) for box in step.figures.children]
-    assert len(pngs) == len(FIGURE_TITLES) == 6
+    assert len(pngs) == len(FIGURE_TITLES) == 3  # the story: sources, readings, repeatability
+    assert "sk-gauge-figure-sources" in step.figures.children[0].children[0]._dom_classes
     assert all(p.startswith(b"\x89PNG\r\n\x1a\n") and len(p) > 5000 for p in pngs)
 
 

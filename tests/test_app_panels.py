@@ -184,7 +184,7 @@ def test_spec_panel_needs_a_reason(wb, study_path):
 
 def test_shape_model_preview_then_record(wb, study_path):
     shape = wb.step("shape")
-    assert "Anderson-Darling" in shape.tests.value and "Fitted models" in shape.ranking.value
+    assert "Anderson-Darling" in shape.tests.value and "Fitted model families" in shape.ranking.value
     shape.model.value = "boxcox"
     assert "With the choice" in shape.effect.value
     assert shape.save.disabled

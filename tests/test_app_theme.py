@@ -108,3 +108,57 @@ def test_bokeh_helpers_build_a_valid_figure():
     theme.style_bokeh_figure(fig)
     json_item(fig)  # serialises: every property value is valid
     assert theme.bokeh_theme() is not None
+
+
+# --- the workbook frame (issue 15 item 4): our own palette, checked for contrast ----------------
+# WCAG 2.1 SC 1.4.3: text at least 4.5:1 on its background; SC 1.4.11 and WCAG 2.2 SC 2.4.13:
+# a focus indicator at least 3:1 against what surrounds it.
+FRAME_BACKGROUNDS = ("PAPER", "PANEL", "PAGE", "TINT")
+
+
+@pytest.mark.parametrize("text", ["INK", "INK_SOFT", "ACCENT_DEEP"])
+@pytest.mark.parametrize("background", FRAME_BACKGROUNDS)
+def test_frame_text_reaches_4_5_to_1(text, background):
+    assert theme.contrast_ratio(getattr(theme, text), getattr(theme, background)) >= 4.5
+
+
+def test_text_on_the_accent_and_done_steps_reaches_4_5_to_1():
+    # the current step and primary buttons: white on the accent blue
+    assert theme.contrast_ratio(theme.PAPER, theme.ACCENT) >= 4.5
+    # a done step: the pass verdict's text colour on white
+    assert theme.contrast_ratio(theme.VERDICTS["pass"].text_color, theme.PAPER) >= 4.5
+
+
+@pytest.mark.parametrize("background", [*FRAME_BACKGROUNDS, "ACCENT"])
+def test_focus_ring_reaches_3_to_1_on_every_frame_colour(background):
+    bg = getattr(theme, background)
+    # the ring is two colours: at least one of them stands out 3:1 on every background
+    assert max(theme.contrast_ratio(theme.FOCUS, bg),
+               theme.contrast_ratio(theme.FOCUS_HALO, bg)) >= 3.0
+
+
+def test_frame_colours_are_tinted_from_the_chart_palette():
+    # every neutral of the frame leans to the palette's blue: blue channel above red
+    for name in ("INK", "INK_SOFT", "RULE", "RULE_SOFT", "PANEL", "PAGE", "TINT",
+                 "EXCLUDED_GREY"):
+        r, _g, b = rgb(getattr(theme, name))
+        assert b > r, name
+    assert theme.ACCENT == theme.OKABE_ITO["blue"]
+
+
+def test_the_style_sheet_uses_only_theme_colours_and_has_a_focus_ring():
+    import re
+
+    from studykit.app.widgets import CSS
+
+    known = {v.upper() for k, v in vars(theme).items()
+             if k.isupper() and isinstance(v, str) and v.startswith("#")}
+    known |= {v.upper() for v in theme.OKABE_ITO.values()}
+    for v in theme.VERDICTS.values():
+        known |= {v.color.upper(), v.background.upper(), v.text_color.upper()}
+    used = {h.upper() for h in re.findall(r"#[0-9A-Fa-f]{6}\b", CSS)}
+    assert used and used <= known, used - known
+    header = re.search(r"\.sk-header \{\{?([^}]*)\}", CSS).group(1)
+    assert f"background: {theme.PAPER}" in header  # a light header, no dark bar
+    assert ":focus-visible" in CSS and f"outline: 3px solid {theme.FOCUS}" in CSS
+    assert "border-bottom: 3px" not in CSS  # no underlined tabs

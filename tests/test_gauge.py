@@ -445,52 +445,65 @@ def _drawn(fig):
     return fig.axes[0]
 
 
-def test_components_figure_bars(figs, machines_result, machines):
-    ax = _drawn(figs.components_figure(machines_result))
-    assert len(ax.patches) == 4 * 2  # 4 components x (%contribution, %study variation)
-    assert len(ax.lines) == 2  # the 10 % and 30 % guide lines
+def test_sources_figure_one_bar_per_source_over_the_bands(figs, machines_result, machines):
+    ax = _drawn(figs.sources_figure(machines_result))
+    bars = [p for p in ax.patches if type(p).__name__ == "Rectangle" and p.get_height() < 1]
+    # one bar per source: gauge R&R, repeatability, reproducibility, part to part
+    widths = sorted(round(b.get_width(), 9) for b in bars)
+    expected = sorted(round(machines_result.component(n).pct_study_variation, 9)
+                      for n in (GAUGE_RR, REPEATABILITY, REPRODUCIBILITY, PART))
+    assert widths == expected
+    # the three acceptance bands (common practice, no source) are shaded at 10 % and 30 %
+    spans = sorted(round(p.get_x(), 9) for p in ax.patches if type(p).__name__ == "Rectangle"
+                   and p.get_height() >= 1)
+    assert spans[:3] == [0.0, 10.0, 30.0]
+    labels = [t.get_text() for t in ax.get_yticklabels()]
+    assert "Repeatability (the gauge)" in labels and not any("." in t for t in labels)
     with_tol = gauge_rr(machines["score"], machines["Machine"], machines["Worker"], lsl=40,
                         usl=80)
-    ax = _drawn(figs.components_figure(with_tol))
-    assert len(ax.patches) == 4 * 3
-    heights = sorted(round(b.get_height(), 6) for b in ax.patches)
-    assert round(with_tol.component(GAUGE_RR).pct_tolerance, 6) in heights
+    ax = _drawn(figs.sources_figure(with_tol))
+    marks = ax.collections[-1].get_offsets()[:, 0]
+    assert round(with_tol.component(GAUGE_RR).pct_tolerance, 6) in {round(m, 6) for m in marks}
 
 
-def test_point_figures(figs, machines_result):
-    ax = _drawn(figs.by_part_figure(machines_result))
-    assert len(ax.lines) == 1 and len(ax.collections) == 1
-    assert ax.collections[0].get_offsets().shape == (54, 2)
-    assert_allclose(ax.lines[0].get_ydata(), machines_result.values.mean(axis=(1, 2)))
-    ax = _drawn(figs.by_appraiser_figure(machines_result))
-    assert len(ax.lines) == 1 and len(ax.collections) == 6
+def test_readings_and_repeatability_figures(figs, machines_result):
+    ax = _drawn(figs.readings_figure(machines_result))
+    # one scatter of readings per appraiser (54 readings in all), one line of means each
+    assert sum(c.get_offsets().shape[0] for c in ax.collections) == 54
+    assert len(ax.lines) == 6 + 1  # six appraisers + the grand mean
+    assert_allclose(ax.lines[1].get_ydata(), machines_result.values[:, 0, :].mean(axis=1))
+    ax = _drawn(figs.repeatability_figure(machines_result))
+    # the mean range and its upper limit (lower limit 0 for 3 trials: not drawn)
+    assert len(ax.lines) == 2
+    assert_allclose(ax.lines[1].get_ydata()[0], machines_result.charts.range_ucl)
+    ringed = ax.collections[-1].get_offsets()
+    # Machine A, Worker 6 scores 46.4, 44.8, 49.2 (nlme Machines rows 16-18): range 4.4 > 3.95
+    assert ringed.shape == (1, 2) and ringed[0, 1] == pytest.approx(4.4)
 
 
-def test_chart_figures(figs, machines_result):
-    ax = _drawn(figs.range_chart_figure(machines_result))
-    # 6 appraisers + centre + upper limit (lower limit is 0 for 3 trials: not drawn)
-    assert len(ax.lines) == 6 + 2
-    assert len(ax.collections) == 1  # the one range above the limit
-    assert_allclose(ax.collections[0].get_offsets()[0], [5 * 4 + 0, 4.4], rtol=1e-9)
-    ax = _drawn(figs.mean_chart_figure(machines_result))
-    assert len(ax.lines) == 6 + 3
-    ax = _drawn(figs.interaction_figure(machines_result))
-    assert len(ax.lines) == 6
-    assert_allclose(ax.lines[0].get_ydata(), machines_result.values[:, 0, :].mean(axis=1))
+def test_story_follows_the_verdict(figs, machines_result):
+    order = [k for k, _t, _c in figs.story(machines_result)]
+    assert order[0] == "sources" and sorted(order) == ["readings", "repeatability", "sources"]
+    v = machines_result.verdict
+    if v.status != "acceptable" and v.dominant == REPEATABILITY:
+        assert order[1] == "repeatability"
+    else:
+        assert order[1] == "readings"
+    captions = {k: c for k, _t, c in figs.story(machines_result)}
+    assert f"{v.pct_grr_study_variation:.1f} %" in captions["sources"]
+    assert "part A" in captions["repeatability"]  # the cell above the limit is named
+    assert list(figs.all_figures(machines_result)) == order
 
 
 def test_figure_into_given_axes(figs, machines_result):
     from matplotlib.figure import Figure
 
     fig = Figure()
-    axes = fig.subplots(2, 3)
-    builders = [figs.components_figure, figs.by_part_figure, figs.by_appraiser_figure,
-                figs.range_chart_figure, figs.mean_chart_figure, figs.interaction_figure]
+    axes = fig.subplots(1, 3)
+    builders = [figs.sources_figure, figs.readings_figure, figs.repeatability_figure]
     for build, ax in zip(builders, axes.ravel(), strict=True):
         assert build(machines_result, ax=ax) is fig
     assert all(ax.has_data() for ax in axes.ravel())
-    assert set(figs.all_figures(machines_result)) == {
-        "components", "by_part", "by_appraiser", "range_chart", "mean_chart", "interaction"}
 
 
 def test_pooling_boundary():

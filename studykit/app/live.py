@@ -82,7 +82,7 @@ def changes_html(entries, *, limit: int = 4) -> str:
 
 LIVE_CSS = """
 <style>
-.sk-live-note { border: 1px solid #0072B2; border-left: 6px solid #0072B2; background: #E8F1F8;
+.sk-live-note { border: 1px solid #0072B2; border-left: 6px solid #0072B2; background: #E0EEF6;
   padding: 8px 14px; margin: 6px 0; border-radius: 3px; }
 </style>
 """

@@ -42,7 +42,7 @@ PANEL_CSS = f"""
   font-weight: 600; white-space: nowrap; border: 1px solid transparent; }}
 .sk-verdict-box {{ border-left: 6px solid; padding: 12px 16px; margin: 4px 0 12px 0;
   font-size: 16px; line-height: 1.45; }}
-.sk-ovtable .sk-ovcell {{ padding: 8px 12px 8px 0; border-bottom: 1px solid #EAEEF2;
+.sk-ovtable .sk-ovcell {{ padding: 8px 12px 8px 0; border-bottom: 1px solid {theme.RULE_SOFT};
   display: flex; align-items: center; }}
 .sk-ovtable .sk-ovhead {{ font-size: 12px; text-transform: uppercase; letter-spacing: .04em;
   color: {theme.INK_SOFT}; font-weight: 600; border-bottom: 2px solid {theme.RULE}; }}
@@ -52,7 +52,7 @@ PANEL_CSS = f"""
   box-shadow: none; }}
 .sk-root .jupyter-button.sk-link:hover {{ color: {theme.INK}; }}
 .sk-voided {{ text-decoration: line-through; color: {theme.INK_SOFT}; }}
-.sk-lock {{ border: 1px solid {theme.OKABE_ITO['blue']}; background: #E8F1F8; padding: 10px 14px;
+.sk-lock {{ border: 1px solid {theme.OKABE_ITO['blue']}; background: {theme.TINT}; padding: 10px 14px;
   border-radius: 3px; margin: 6px 0; }}
 .sk-void {{ border: 2px solid {theme.VERDICTS['fail'].color};
   background: {theme.VERDICTS['fail'].background}; padding: 10px 14px; border-radius: 3px;

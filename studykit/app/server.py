@@ -7,6 +7,9 @@ additions:
   package (gzip-compressed, cacheable), so pages need neither a CDN nor 1-8 MB of inline
   JavaScript. The workbook kernel finds the address in the ``STUDYKIT_BOKEHJS_URL`` environment
   variable (set here, inherited by every kernel) and writes one ``<script src>`` tag.
+* ``/studykit/fontawesome/5/css|webfonts/<file>`` serves the icon font of the widget buttons
+  from the installed ``fontawesome-free`` package, and the page's links to a CDN copy are
+  rewritten to it (:mod:`studykit.app.local_assets`): no page request leaves the machine.
 * ``STUDYKIT_SERVE_TOKEN`` in the environment, when set, becomes ``Voila.token`` (Jupyter
   server token authentication: pages without ``?token=`` are refused). The token never reaches
   a log line or a kernel (:mod:`studykit.app.server_guard`).
@@ -49,6 +52,12 @@ from traitlets import Float, Integer, Unicode
 from voila.app import Voila
 from voila.tornado.handler import TornadoVoilaHandler
 
+from studykit.app.local_assets import (
+    FONTAWESOME_ROUTE,
+    FontAwesomeHandler,
+    fontawesome_dir,
+    localise_links,
+)
 from studykit.app.server_guard import (
     HostPolicy,
     inject_into_head,
@@ -122,6 +131,7 @@ class WorkbookPageHandler(TornadoVoilaHandler):
             snippet = self.settings.get(_HEAD_SNIPPET, "")
             injected = not snippet
             async for html in self.get_generator(path=path):
+                html = localise_links(html, self.base_url)  # icons from here, not a CDN
                 if not injected:
                     html, injected = inject_into_head(html, snippet)
                 self.write(html)
@@ -171,6 +181,9 @@ class StudykitVoila(Voila):
             handlers.append(spec)
         route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
         handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
+        if fontawesome_dir() is not None:
+            handlers.insert(0, (url_path_join(self.server_url, FONTAWESOME_ROUTE, r"(.*)"),
+                                FontAwesomeHandler, {"path": str(fontawesome_dir())}))
         # first of all: refuse foreign Host names and cross-origin requests on every route
         handlers.insert(0, request_rule(self.host_policy, self.log))
         return handlers

@@ -33,43 +33,65 @@ def esc(value) -> str:
 
 # --- style sheet --------------------------------------------------------------------------------
 
+#: The palette ribbon at the top of the header: the chart colours, in the order the charts use.
+_RIBBON = ", ".join(f"{c} {100 * i / 6:.2f}% {100 * (i + 1) / 6:.2f}%" for i, c in enumerate(
+    [theme.OKABE_ITO["blue"], theme.OKABE_ITO["bluish_green"], theme.OKABE_ITO["orange"],
+     theme.OKABE_ITO["sky_blue"], theme.OKABE_ITO["reddish_purple"], theme.OKABE_ITO["vermillion"]]))
+
 CSS = f"""
 <style>
+body {{ background: {theme.PAGE}; }}
 .sk-root {{ font-family: {theme.CSS_FONT_STACK}; color: {theme.INK}; font-size: 14px;
-  max-width: 1400px; margin: 0 auto; }}
+  max-width: 1400px; margin: 0 auto; background: {theme.PAGE}; }}
 .sk-root .widget-html-content, .sk-root .widget-label {{ font-family: {theme.CSS_FONT_STACK};
   font-size: 14px; line-height: 1.45; }}
-.sk-header {{ background: #24292F; color: #FFFFFF; padding: 14px 22px; border-radius: 4px 4px 0 0; }}
-.sk-header .widget-html-content {{ color: #FFFFFF; line-height: 1.3; }}
-.sk-brand {{ font-size: 12px; letter-spacing: .08em; text-transform: uppercase; color: #AFB8C1; }}
-.sk-title {{ font-size: 22px; font-weight: 600; margin-top: 2px; }}
-.sk-sub {{ font-size: 13px; color: #D0D7DE; margin-top: 2px; }}
-.sk-state {{ display: inline-block; padding: 3px 10px; border-radius: 12px; font-size: 12px;
-  font-weight: 600; border: 1px solid #57606A; background: #32383F; color: #FFFFFF; }}
+/* header: a light card under a ribbon of the chart palette */
+.sk-header {{ background: {theme.PAPER}; color: {theme.INK}; padding: 14px 22px 12px 22px;
+  border: 1px solid {theme.RULE}; border-top: none; border-radius: 10px 10px 0 0;
+  background-image: linear-gradient(90deg, {_RIBBON});
+  background-size: 100% 5px; background-repeat: no-repeat; background-position: top; }}
+.sk-header .widget-html-content {{ color: {theme.INK}; line-height: 1.3; }}
+.sk-brand {{ font-size: 13px; font-weight: 700; color: {theme.ACCENT_DEEP}; margin-top: 4px; }}
+.sk-title {{ font-size: 22px; font-weight: 600; margin-top: 2px; color: {theme.INK}; }}
+.sk-sub {{ font-size: 13px; color: {theme.INK_SOFT}; margin-top: 2px; }}
+.sk-state {{ display: inline-block; padding: 3px 12px; border-radius: 6px; font-size: 13px;
+  font-weight: 600; border: 1px solid {theme.ACCENT}; background: {theme.TINT};
+  color: {theme.INK}; }}
+/* step bar: a path of numbered stops; the current one filled, the done ones ticked */
 .sk-stepbar {{ background: {theme.PANEL}; border: 1px solid {theme.RULE}; border-top: none;
-  padding: 0 12px; }}
-.sk-stepbar .sk-step {{ background: transparent; border: none; border-bottom: 3px solid transparent;
-  border-radius: 0; color: {theme.INK_SOFT}; font-size: 14px; height: 46px; padding: 0 14px;
-  box-shadow: none; }}
-.sk-stepbar .sk-step:hover {{ color: {theme.INK}; background: #EAEEF2; }}
-.sk-stepbar .sk-step.sk-current {{ color: {theme.INK}; font-weight: 600;
-  border-bottom-color: {theme.OKABE_ITO['blue']}; }}
-.sk-stepbar .sk-step.sk-done {{ color: {theme.INK}; }}
-.sk-stepbar .sk-step:focus:not(:focus-visible) {{ outline: none; }}
+  padding: 8px 12px; gap: 4px; align-items: center; }}
+.sk-root .sk-stepbar .jupyter-button.sk-step {{ background: {theme.PAPER};
+  border: 1px solid {theme.RULE}; border-radius: 17px; color: {theme.INK}; font-size: 13px;
+  height: 34px; padding: 0 12px; box-shadow: none; margin: 0; }}
+.sk-root .sk-stepbar .jupyter-button.sk-step:hover {{ border-color: {theme.ACCENT};
+  background: {theme.TINT}; }}
+.sk-root .sk-stepbar .jupyter-button.sk-step.sk-done {{ border-color: {theme.OKABE_ITO['bluish_green']};
+  color: {theme.VERDICTS['pass'].text_color}; }}
+.sk-root .sk-stepbar .jupyter-button.sk-step.sk-current {{ background: {theme.ACCENT};
+  border-color: {theme.ACCENT}; color: {theme.PAPER}; font-weight: 600; }}
+/* a visible keyboard focus ring on everything that takes focus */
+.sk-root :focus-visible, .sk-root .jupyter-button:focus-visible,
+.sk-root input:focus-visible, .sk-root select:focus-visible, .sk-root textarea:focus-visible,
+.sk-root summary:focus-visible, .sk-root a:focus-visible {{
+  outline: 3px solid {theme.FOCUS} !important; outline-offset: 2px;
+  box-shadow: 0 0 0 7px {theme.FOCUS_HALO} !important; }}
+.sk-root .jupyter-button:focus:not(:focus-visible) {{ outline: none; }}
 .sk-guidance {{ padding: 10px 22px; border: 1px solid {theme.RULE}; border-top: none;
-  background: #FFFFFF; color: {theme.INK_SOFT}; }}
+  background: {theme.PAPER}; color: {theme.INK_SOFT}; }}
 .sk-guidance b {{ color: {theme.INK}; }}
-.sk-body {{ padding: 18px 22px; border: 1px solid {theme.RULE}; border-top: none; background: #FFFFFF;
-  min-height: 260px; }}
-.sk-overview-card {{ min-height: 0; }}
+.sk-body {{ padding: 18px 22px; border: 1px solid {theme.RULE}; border-top: none;
+  background: {theme.PAPER}; min-height: 260px; }}
+.sk-overview-card {{ min-height: 0; border-radius: 0 0 10px 10px; }}
 .sk-section {{ font-size: 16px; font-weight: 600; margin: 4px 0 8px 0; color: {theme.INK}; }}
 .sk-muted {{ color: {theme.INK_SOFT}; }}
 .sk-table {{ border-collapse: collapse; margin: 6px 0 10px 0; font-size: 14px; min-width: 60%; }}
-.sk-table th {{ text-align: left; font-weight: 600; color: {theme.INK_SOFT}; font-size: 12px;
-  text-transform: uppercase; letter-spacing: .04em; border-bottom: 2px solid {theme.RULE};
-  padding: 6px 14px 6px 0; }}
-.sk-table td {{ border-bottom: 1px solid #EAEEF2; padding: 7px 14px 7px 0; vertical-align: top; }}
+.sk-table th {{ text-align: left; font-weight: 600; color: {theme.INK}; font-size: 13px;
+  background: {theme.PANEL}; border-bottom: 1px solid {theme.RULE};
+  padding: 6px 14px 6px 6px; }}
+.sk-table td {{ border-bottom: 1px solid {theme.RULE_SOFT}; padding: 7px 14px 7px 6px;
+  vertical-align: top; }}
 .sk-table td.num {{ text-align: right; font-variant-numeric: tabular-nums; }}
+.sk-scroll {{ max-width: 100%; overflow-x: auto; }}
 .sk-facts {{ display: grid; grid-template-columns: max-content 1fr; gap: 4px 24px; margin: 6px 0 12px 0;
   justify-content: start; }}
 .sk-facts dt {{ color: {theme.INK_SOFT}; }}
@@ -77,7 +99,7 @@ CSS = f"""
 .sk-msg {{ border-left: 4px solid; padding: 8px 12px; margin: 6px 0; border-radius: 2px; }}
 .sk-msg-error {{ border-color: {theme.VERDICTS['fail'].color}; background: {theme.VERDICTS['fail'].background}; }}
 .sk-msg-warning {{ border-color: {theme.VERDICTS['caution'].color}; background: {theme.VERDICTS['caution'].background}; }}
-.sk-msg-info {{ border-color: {theme.OKABE_ITO['blue']}; background: #E8F1F8; }}
+.sk-msg-info {{ border-color: {theme.ACCENT}; background: {theme.TINT}; }}
 .sk-msg-ok {{ border-color: {theme.VERDICTS['pass'].color}; background: {theme.VERDICTS['pass'].background}; }}
 .sk-msg .sk-msg-kind {{ font-weight: 700; margin-right: 6px; }}
 .sk-msg .sk-msg-time {{ color: {theme.INK_SOFT}; font-size: 12px; margin-left: 8px; }}
@@ -88,12 +110,27 @@ CSS = f"""
 .sk-coming b {{ color: {theme.INK}; }}
 .sk-verdict {{ display: inline-block; padding: 1px 8px; border-radius: 10px; font-size: 12px;
   font-weight: 600; }}
-.sk-root .jupyter-button.mod-primary {{ background: {theme.OKABE_ITO['blue']}; }}
-.sk-root .jupyter-button {{ font-size: 14px; height: 34px; padding: 0 16px; }}
+.sk-root .jupyter-button.mod-primary {{ background: {theme.ACCENT}; color: {theme.PAPER}; }}
+.sk-root .jupyter-button {{ font-size: 14px; height: 34px; padding: 0 16px; border-radius: 6px; }}
 .sk-root .jupyter-button.sk-clear {{ background: transparent; color: {theme.INK_SOFT};
   font-size: 12px; height: 24px; box-shadow: none; padding: 0 6px; }}
 .sk-root .jupyter-button.sk-clear:hover {{ color: {theme.INK}; text-decoration: underline; }}
 .sk-messages {{ margin: 6px 0 0 0; }}
+.sk-root details > summary {{ cursor: pointer; color: {theme.ACCENT_DEEP}; font-weight: 600;
+  margin: 4px 0; }}
+.sk-figure-caption {{ margin: 2px 0 0 4px; }}
+/* small screens: the page never scrolls sideways; wide tables scroll in their own box */
+@media (max-width: 900px) {{
+  .sk-root table.sk-table {{ display: block; max-width: 100%; overflow-x: auto; min-width: 0; }}
+  .sk-root .sk-ovtable {{ overflow-x: auto; max-width: 100%; }}
+  .sk-root .bk-root, .sk-root .jupyter-widgets {{ max-width: 100%; }}
+}}
+@media (max-width: 640px) {{
+  .sk-root .sk-stepbar {{ flex-wrap: nowrap !important; overflow-x: auto; }}
+  .sk-root .sk-stepbar .jupyter-button.sk-step {{ flex: 0 0 auto; }}
+  .sk-header, .sk-guidance, .sk-body {{ padding-left: 12px; padding-right: 12px; }}
+  .sk-title {{ font-size: 18px; }}
+}}
 </style>
 """
 

@@ -856,18 +856,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                                + (f" ({_esc(params)})" if params else "")
                                + f". Why: {_esc(res.model.reason)}.", st["body"]))
     if res.ranking is not None:
-        rows = [["#", "Model", "Parameters", "AIC", "AD A²", "AD p"]]
-        for row in res.ranking.rows[:6]:
-            if row.error:
-                continue
-            rows.append([str(row.rank), _esc(row.label), str(row.n_params), _num(row.aic, 6),
-                         _num(row.ad_statistic, 3),
-                         _esc(row.ad_p_text) if row.ad_p_text else _num(row.ad_p_value, 3)])
-        story.append(Spacer(1, 4))
-        story.append(KeepTogether([
-            Paragraph(f"Model ranking (best {len(rows) - 1} of {len(res.ranking.rows)}; "
-                      f"{_esc(res.ranking.rule)})", st["cellb"]),
-            _table(rows, [w * width for w in (0.05, 0.35, 0.13, 0.17, 0.13, 0.17)], styles=st)]))
+        _model_list_pdf(story, res, st, width)
     if res.model_band is not None:
         mb = res.model_band
         text = (f"Model uncertainty: across the models the data do not reject, the judged index "
@@ -1029,6 +1018,36 @@ def _kept_signals_block(story, res, st, width) -> None:
         _table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
 
 
+def _model_list_pdf(story, res, st, width):
+    """The fitted families, each once, the threshold variant inside its family's row
+    (:mod:`studykit.report.model_list`, the same list as the workbook's shape step)."""
+    from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+    from studykit.report import model_list
+
+    L = model_list.LABELS
+    chosen = res.model.name if res.model is not None else None
+    lines = model_list.family_lines(res.ranking)
+
+    def aic(row):
+        if row is None:
+            return "–"
+        text = "not fitted" if row.error else _num(row.aic, 6)
+        return text + (f" {L['used']}" if row.id == chosen else "")
+
+    rows = [["#", L["family"], f"{L['aic']}, {L['plain'].lower()}",
+             f"{L['aic']}, {L['shifted'].lower()}", L["effect"]]]
+    for line in lines[:8]:
+        rows.append([str(line.rank), _esc(line.name), _esc(aic(line.plain)),
+                     _esc(aic(line.shifted)), _esc(model_list.threshold_effect(line, _fixed))])
+    story.append(Spacer(1, 4))
+    story.append(KeepTogether([
+        Paragraph(f"{L['title']} (best {len(rows) - 1} of {len(lines)}; "
+                  f"{_esc(L['rule'])} {_esc(res.ranking.rule)})", st["cellb"]),
+        _table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
+        Paragraph(_esc(model_list.SOURCE), st["small"])]))
+
+
 def _warnings_block(story, res, st):
     from reportlab.platypus import Paragraph
 
@@ -1039,7 +1058,7 @@ def _warnings_block(story, res, st):
 
 
 def _gauge_section(story, number, gauges, study, st, width):
-    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+    from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
 
 
     story.append(Paragraph(f"{number}. Measurement system (gauge R&amp;R)", st["h1"]))
@@ -1058,31 +1077,87 @@ def _gauge_section(story, number, gauges, study, st, width):
             story.append(_box([Paragraph(_esc(verdict.get("text")), st["body"])],
                               background=v.background, border=v.color, width=width))
             story.append(Spacer(1, 4))
-        rows = [["Source", "Variance", "Sigma", "% contribution", "% study var.", "% tolerance"]]
-        from studykit.stats.gauge import COMPONENT_LABELS as _COMPONENT_LABELS
-
-        for comp in payload.get("components", []):
-            rows.append([_esc(_COMPONENT_LABELS.get(comp.get("name"), str(comp.get("name", ""))
-                                                    .replace("_", " ")).strip()),
-                         _num(comp.get("variance")), _num(comp.get("sigma")),
-                         _num(comp.get("pct_contribution"), 3),
-                         _num(comp.get("pct_study_variation"), 3),
-                         _num(comp.get("pct_tolerance"), 3)])
-        story.append(_table(rows, [w * width for w in (0.26, 0.15, 0.15, 0.15, 0.15, 0.14)],
-                            styles=st))
-        story.append(Spacer(1, 3))
-        story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
-                               f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
+        _gauge_tables_pdf(story, payload, st, width)
         res = _gauge_result(payload)
         if res is not None:
             from studykit.report import gauge_figures
 
-            for build in (gauge_figures.components_figure, gauge_figures.range_chart_figure):
+            # the figures in the order of the verdict's story, each with its caption
+            for key, _title, caption in gauge_figures.story(res):
                 try:
-                    fig = build(res)
+                    fig = getattr(gauge_figures, f"{key}_figure")(res)
                 except Exception:  # noqa: BLE001 - a figure must never stop the report
                     continue
-                story.append(_image(fig, width * 0.85))
+                story.append(KeepTogether([_image(fig, width * 0.85),
+                                           Paragraph(_esc(caption), st["small"])]))
+                story.append(Spacer(1, 4))
+        _gauge_full_anova_pdf(story, payload, st, width)
+
+
+def _gauge_tables_pdf(story, payload, st, width):
+    """The components in words, then the ANOVA actually used (headers from gauge_tables)."""
+    from reportlab.platypus import Paragraph, Spacer
+
+    from studykit.report import gauge_tables as gt
+
+    tolerance = payload.get("tolerance") is not None
+    rows = [gt.component_headers(payload.get("study_variation"), tolerance=tolerance)]
+    for comp in payload.get("components", []):
+        row = [_esc(gt.component_name(str(comp.get("name", "")))),
+               _num(comp.get("variance")), _pct_cell(comp.get("pct_contribution")),
+               _num(comp.get("sigma")), _num(comp.get("study_variation")),
+               _pct_cell(comp.get("pct_study_variation"))]
+        if tolerance:
+            row.append(_pct_cell(comp.get("pct_tolerance")))
+        rows.append(row)
+    widths = ((0.25, 0.12, 0.12, 0.12, 0.13, 0.13, 0.13) if tolerance
+              else (0.28, 0.14, 0.14, 0.14, 0.15, 0.15))
+    story.append(Paragraph(gt.LABELS["components_title"], st["cellb"]))
+    story.append(_table(rows, [w * width for w in widths], styles=st))
+    story.append(Spacer(1, 3))
+    story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
+                           f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
+    story.append(Spacer(1, 3))
+    story.append(Paragraph(gt.LABELS["anova_used_title"], st["cellb"]))
+    story.append(Paragraph(_esc(gt.anova_note(payload, _fixed)), st["small"]))
+    story.append(_table(_gauge_anova_rows(payload.get("anova_used")),
+                        [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st))
+    story.append(Spacer(1, 4))
+
+
+def _gauge_full_anova_pdf(story, payload, st, width):
+    """After pooling: the full model, for reference (the components do not come from it)."""
+    from reportlab.platypus import KeepTogether, Paragraph
+
+    from studykit.report import gauge_tables as gt
+
+    if not gt.show_full_anova(payload):
+        return
+    story.append(KeepTogether([
+        Paragraph(gt.LABELS["anova_full_title"], st["cellb"]),
+        _table(_gauge_anova_rows(payload.get("anova_full")),
+               [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st)]))
+
+
+def _gauge_anova_rows(rows_in):
+    from studykit.report import gauge_tables as gt
+
+    rows = [gt.anova_headers()]
+    for r in rows_in or []:
+        p = r.get("p")
+        rows.append([_esc(gt.source_name(str(r.get("source", "")))), str(r.get("df", "–")),
+                     _num(r.get("ss")), _num(r.get("ms")), _num(r.get("f"), 3),
+                     "–" if p is None else ("< 0.001" if p < 1e-3 else _num(p, 3))])
+    return rows
+
+
+def _fixed(v, digits: int) -> str:
+    """``digits`` decimals (the workbook's ``fmt``), for the sentences shared with it."""
+    return "–" if v is None else f"{float(v):.{digits}f}"
+
+
+def _pct_cell(v) -> str:
+    return "–" if v is None else f"{_num(v, 3)} %"
 
 
 def _gauge_result(payload):

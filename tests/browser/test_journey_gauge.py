@@ -75,12 +75,12 @@ def test_gauge_journey(browser, gauge_server, artifacts):
         text = verdict.inner_text()
         assert "Acceptable" in text and stored.who in text, text
         # the figures are real images with a size
-        img = page.locator("img.sk-gauge-figure-components").first
+        img = page.locator("img.sk-gauge-figure-sources").first
         img.wait_for(state="visible")
         page.wait_for_function(
-            "() => { const i = document.querySelector('img.sk-gauge-figure-components');"
+            "() => { const i = document.querySelector('img.sk-gauge-figure-sources');"
             " return i && i.complete && i.naturalWidth > 300; }")
-        assert page.locator("img.sk-gauge-figure").count() == 6
+        assert page.locator("img.sk-gauge-figure").count() == 3
         shot(page, "1280")
         shot(page, "full-1280", full=True)
 

@@ -40,6 +40,7 @@ from studykit import names, theme
 from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import DataFileError, StudyInputError
+from studykit.report import gauge_figures as _gauge_figures
 
 __all__ = [
     "GaugeStep",
@@ -71,32 +72,16 @@ STATUS_KIND = {
     "not acceptable": ("fail", "Not acceptable"),
 }
 
-#: The figures shown, in order (keys of :func:`studykit.report.gauge_figures.all_figures`).
-FIGURE_TITLES = {
-    "components": "Components of variation",
-    "by_part": "Measurements by part",
-    "by_appraiser": "Measurements by appraiser",
-    "range_chart": "Range chart by appraiser",
-    "mean_chart": "Mean chart by appraiser",
-    "interaction": "Appraiser-by-part interaction",
-}
+#: The figures shown (keys of :func:`studykit.report.gauge_figures.story`), with their titles.
+FIGURE_TITLES = {key: _gauge_figures.LABELS[key]
+                 for key in ("sources", "readings", "repeatability")}
 
-_COMPONENT_NAMES = {
-    "gauge_rr": "Gauge R&R (measurement)",
-    "repeatability": "Repeatability (the gauge)",
-    "reproducibility": "Reproducibility (the people)",
-    "appraiser": "Appraiser",
-    "appraiser_by_part": "Appraiser × part",
-    "part_to_part": "Part to part",
-    "total": "Total",
-}
-_SOURCE_NAMES = {
-    "part_to_part": "Parts", "appraiser": "Appraisers",
-    "appraiser_by_part": "Appraiser × part", "repeatability": "Repeatability (error)",
-    "total": "Total",
-}
-_BANDS_NOTE = (f"Bands: {names.GAUGE_TOTAL} below 10 % of the study variation acceptable, 10 to 30 % conditionally acceptable, above "
-               "30 % not acceptable; at least 5 distinct categories. These are common practice: "
+#: Words of the verdict box's key numbers (the gauge tables' words, for one vocabulary).
+_GAUGE_FACTS = {"share_study": f"{names.GAUGE_TOTAL}, share of study spread",
+                "share_tolerance": f"{names.GAUGE_TOTAL}, share of tolerance"}
+_BANDS_NOTE = (f"Bands: {names.GAUGE_TOTAL} below 10 % of the study spread acceptable, 10 to 30 % "
+               "conditionally acceptable, above 30 % not acceptable; at least 5 distinct "
+               "categories. These are common practice: "
                "the customer's rule governs.")
 
 #: Header words that suggest each role (lower case, whole words of the header).
@@ -146,26 +131,24 @@ def gauge_result_from_payload(payload: Mapping):
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
-    """The gauge figures of ``result`` as PNG bytes, by the keys of :data:`FIGURE_TITLES`.
+    """The gauge figures of ``result`` as PNG bytes, in the order of the story.
 
-    Drawn by :mod:`studykit.report.gauge_figures` (the PDF's figures, same palette).
+    Drawn by :mod:`studykit.report.gauge_figures` (the PDF's figures, same palette and order:
+    :func:`~studykit.report.gauge_figures.story`).
 
     Examples
     --------
     >>> from studykit.stats.gauge import gauge_rr
     >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
     ...                ["A", "A", "B", "B"] * 2)
-    >>> figure_pngs(res, only=("components",))["components"][:4]
+    >>> figure_pngs(res, only=("sources",))["sources"][:4]
     b'\\x89PNG'
     """
-    from studykit.report import gauge_figures as gf
-
-    builders = {"components": gf.components_figure, "by_part": gf.by_part_figure,
-                "by_appraiser": gf.by_appraiser_figure, "range_chart": gf.range_chart_figure,
-                "mean_chart": gf.mean_chart_figure, "interaction": gf.interaction_figure}
     out = {}
-    for key in only or tuple(builders):
-        fig = builders[key](result)
+    for key, _title, _caption in _gauge_figures.story(result):
+        if only is not None and key not in only:
+            continue
+        fig = getattr(_gauge_figures, f"{key}_figure")(result)
         buf = io.BytesIO()
         fig.savefig(buf, format="png", dpi=dpi, facecolor="white")
         out[key] = buf.getvalue()
@@ -316,9 +299,8 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
     ndc_text = "—" if ndc is None else str(ndc)
     if v.get("ndc_ok") is False:
         ndc_text += " (below 5)"
-    facts = [(f"{names.GAUGE_TOTAL}, share of study variation",
-              _pct(v.get("pct_grr_study_variation"))),
-             (f"{names.GAUGE_TOTAL}, share of tolerance", _pct(v.get("pct_grr_tolerance"))
+    facts = [(_GAUGE_FACTS["share_study"], _pct(v.get("pct_grr_study_variation"))),
+             (_GAUGE_FACTS["share_tolerance"], _pct(v.get("pct_grr_tolerance"))
               if payload.get("tolerance") is not None else "no tolerance given"),
              ("Distinct categories (ndc)", ndc_text),
              ("Design", f"{payload.get('n_parts', '?')} parts × "
@@ -347,8 +329,14 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
 
 
 def components_html(payload: Mapping) -> str:
-    """The variance components with the confidence interval on each sigma."""
+    """The variance components in words, with the confidence interval on each spread.
+
+    Headers and names come from :mod:`studykit.report.gauge_tables` (the PDF uses the same).
+    """
+    from studykit.report import gauge_tables as gt
+
     conf = float(payload.get("confidence") or 0.95) * 100
+    tolerance = payload.get("tolerance") is not None
     rows = []
     for c in payload.get("components") or []:
         name = str(c.get("name", ""))
@@ -357,31 +345,34 @@ def components_html(payload: Mapping) -> str:
         if c.get("set_to_zero"):
             ci = "estimate negative, set to 0"
         strong = ' style="font-weight:600"' if name in ("gauge_rr", "total") else ""
-        label = esc(_COMPONENT_NAMES.get(name, name.replace("_", " ")))
-        rows.append(
-            f"<tr{strong}><td>{label}</td>"
-            f'<td class="num">{fmt(c.get("variance"), 7)}</td>'
-            f'<td class="num">{fmt(c.get("sigma"), 5)}</td><td class="num">{esc(ci)}</td>'
-            f'<td class="num">{fmt(c.get("pct_contribution"), 2)}</td>'
-            f'<td class="num">{fmt(c.get("pct_study_variation"), 2)}</td>'
-            f'<td class="num">{fmt(c.get("pct_tolerance"), 2)}</td></tr>')
-    return ('<div class="sk-panel-title">Variance components</div>'
-            '<table class="sk-table sk-gauge-components"><thead><tr><th>Source</th>'
-            "<th>Variance</th><th>Sigma</th>"
-            f"<th>Sigma, {conf:g}% interval</th><th>% contribution</th><th>% study var.</th>"
-            f"<th>% tolerance</th></tr></thead><tbody>{''.join(rows)}</tbody></table>"
-            f'<div class="sk-small">Study variation = {fmt(payload.get("study_variation"), 2)} '
-            "× sigma. Intervals bound the sigma of each component "
-            "(chi-square or Satterthwaite degrees of freedom).</div>")
+        cells = [fmt(c.get("variance"), 7), _pct(c.get("pct_contribution")),
+                 fmt(c.get("sigma"), 5), ci, fmt(c.get("study_variation"), 5),
+                 _pct(c.get("pct_study_variation"))]
+        if tolerance:
+            cells.append(_pct(c.get("pct_tolerance")))
+        rows.append(f"<tr{strong}><td>{esc(gt.component_name(name))}</td>"
+                    + "".join(f'<td class="num">{esc(v)}</td>' for v in cells) + "</tr>")
+    heads = gt.component_headers(payload.get("study_variation"), tolerance=tolerance)
+    heads.insert(4, gt.LABELS["spread_interval"].format(conf=conf))
+    return (f'<div class="sk-panel-title">{esc(gt.LABELS["components_title"])}</div>'
+            '<div class="sk-scroll"><table class="sk-table sk-gauge-components"><thead><tr>'
+            + "".join(f"<th>{esc(h)}</th>" for h in heads)
+            + f"</tr></thead><tbody>{''.join(rows)}</tbody></table></div>"
+            '<div class="sk-small">Spread is the standard deviation σ of each source; the study '
+            f'spread is {fmt(payload.get("study_variation"), 2)} σ. Shares of spread do not add '
+            "up to 100 % (spreads add as squares; shares of variance do). Intervals bound the "
+            "spread of each source (chi-square or Satterthwaite degrees of freedom)."
+            + ("" if tolerance else " No tolerance given: no share of tolerance.") + "</div>")
 
 
 def _anova_rows(rows) -> str:
+    from studykit.report import gauge_tables as gt
+
     out = []
     for r in rows or []:
-        src = str(r.get("source", ""))
         p = r.get("p")
-        p_text = "—" if p is None else ("< 0.0001" if p < 1e-4 else fmt(p, 4))
-        out.append(f"<tr><td>{esc(_SOURCE_NAMES.get(src, src.replace('_', ' ')))}</td>"
+        p_text = "—" if p is None else ("< 0.001" if p < 1e-3 else fmt(p, 3))
+        out.append(f"<tr><td>{esc(gt.source_name(str(r.get('source', ''))))}</td>"
                    f'<td class="num">{esc(r.get("df"))}</td>'
                    f'<td class="num">{fmt(r.get("ss"), 6)}</td>'
                    f'<td class="num">{fmt(r.get("ms"), 7)}</td>'
@@ -390,29 +381,22 @@ def _anova_rows(rows) -> str:
 
 
 def anova_html(payload: Mapping) -> str:
-    """The ANOVA table the components come from, and whether the interaction was pooled."""
-    pooled = bool(payload.get("interaction_pooled"))
-    p = payload.get("interaction_p")
-    alpha = payload.get("alpha_interaction", 0.25)
-    if p is None:
-        note = "The appraiser-by-part interaction could not be tested."
-    elif pooled:
-        note = (f"The appraiser-by-part interaction is not significant (p = {fmt(p, 3)} ≥ "
-                f"{fmt(alpha, 2)}): it was pooled into the repeatability error, and the "
-                "table shows the model without it.")
-    else:
-        note = (f"The appraiser-by-part interaction is significant (p = {fmt(p, 3)} < "
-                f"{fmt(alpha, 2)}): it stays in the model as its own source.")
-    head = ("<thead><tr><th>Source</th><th>df</th><th>Sum of squares</th><th>Mean square</th>"
-            "<th>F</th><th>p</th></tr></thead>")
-    out = ('<div class="sk-panel-title">Analysis of variance</div>'
+    """The ANOVA the components come from first; the full model behind a toggle."""
+    from studykit.report import gauge_tables as gt
+
+    note = gt.anova_note(payload, fmt)
+    head = ("<thead><tr>" + "".join(f"<th>{esc(h)}</th>" for h in gt.anova_headers())
+            + "</tr></thead>")
+    out = (f'<div class="sk-panel-title">{esc(gt.LABELS["anova_used_title"])}</div>'
            f'<div class="sk-small" style="margin-bottom:4px">{esc(note)}</div>'
-           f'<table class="sk-table sk-gauge-anova">{head}<tbody>'
-           f"{_anova_rows(payload.get('anova_used'))}</tbody></table>")
-    if pooled and payload.get("anova_full"):
-        out += ('<details><summary class="sk-small">The model with the interaction (before '
-                f'pooling)</summary><table class="sk-table">{head}<tbody>'
-                f"{_anova_rows(payload.get('anova_full'))}</tbody></table></details>")
+           f'<div class="sk-scroll"><table class="sk-table sk-gauge-anova">{head}<tbody>'
+           f"{_anova_rows(payload.get('anova_used'))}</tbody></table></div>")
+    if gt.show_full_anova(payload):
+        out += ('<details class="sk-gauge-anova-full"><summary>'
+                f'{esc(gt.LABELS["anova_full_toggle"])}</summary>'
+                f'<div class="sk-small">{esc(gt.LABELS["anova_full_title"])}</div>'
+                f'<div class="sk-scroll"><table class="sk-table">{head}<tbody>'
+                f"{_anova_rows(payload.get('anova_full'))}</tbody></table></div></details>")
     return out
 
 
@@ -432,8 +416,8 @@ def range_method_html(payload: Mapping) -> str:
             if r.get("reproducibility_set_to_zero") else "")
     return ('<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
             '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
-            f"<th>Sigma</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
-            f'<div class="sk-small">{names.GAUGE_TOTAL}, share of study variation '
+            f"<th>Spread (σ)</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
+            f'<div class="sk-small">{esc(names.GAUGE_TOTAL)} share of study spread '
             f'{_pct(r.get("pct_study_variation"))}'
             f' (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get("pct_tolerance"))}, '
             f'ndc {esc(r.get("ndc"))}. K1 = {fmt(r.get("k1"), 4)}, K2 = {fmt(r.get("k2"), 4)}, '
@@ -641,9 +625,8 @@ class GaugeStep:
         self.anova = html_box("", "sk-gauge-anova-box")
         self.range_method = html_box("", "sk-gauge-range-box")
         self.notes = html_box("", "sk-gauge-notes")
-        self.figures = widgets.GridBox([], layout=widgets.Layout(
-            grid_template_columns="repeat(auto-fill, minmax(420px, 1fr))", grid_gap="12px 18px",
-            width="100%"))
+        # one column, in the order of the story (not a fixed grid): each figure with its caption
+        self.figures = widgets.VBox([], layout=widgets.Layout(width="100%", max_width="860px"))
         self.figures.add_class("sk-gauge-figures")
         tables = widgets.HBox([widgets.VBox([self.components, self.anova],
                                             layout=widgets.Layout(flex="2 1 560px",
@@ -653,9 +636,7 @@ class GaugeStep:
                                                                   min_width="0"))],
                               layout=widgets.Layout(flex_flow="row wrap", width="100%",
                                                     align_items="flex-start"))
-        self.details = widgets.VBox([tables, self.notes,
-                                     html_box('<div class="sk-panel-title">Figures</div>'),
-                                     self.figures])
+        self.details = widgets.VBox([self.figures, tables, self.notes])
         self.new_study = self._build_new_study(context)
         self.short_box = html_box("", "sk-gauge-short")
         self.error_box = html_box("", "sk-gauge-error-box")
@@ -1012,25 +993,31 @@ class GaugeStep:
 
     def _show_figures(self, stored) -> None:
         cache_key = (str(self.ws.session.path), stored.id)
-        pngs = self._figures.get(cache_key)
-        if pngs is None:
+        cached = self._figures.get(cache_key)
+        if cached is None:
             try:
-                pngs = figure_pngs(gauge_result_from_payload(stored.payload))
+                result = gauge_result_from_payload(stored.payload)
             except StudyInputError as exc:
                 self.figures.children = [html_box(
                     f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
                     f"{esc(exc)}</div>")]
                 return
-            self._figures = {cache_key: pngs}  # one characteristic's figures at a time
-        self.figures.children = [self._figure_widget(k, png) for k, png in pngs.items()]
+            cached = (_gauge_figures.story(result), figure_pngs(result))
+            self._figures = {cache_key: cached}  # one characteristic's figures at a time
+        chapters, pngs = cached
+        self.figures.children = [self._figure_widget(key, pngs[key], caption)
+                                 for key, _title, caption in chapters]
 
     @staticmethod
-    def _figure_widget(key: str, png: bytes) -> widgets.Widget:
+    def _figure_widget(key: str, png: bytes, caption: str = "") -> widgets.Widget:
         img = widgets.Image(value=png, format="png",
                             layout=widgets.Layout(width="100%", height="auto"))
         img.add_class("sk-gauge-figure")
         img.add_class(f"sk-gauge-figure-{key}")
-        box = widgets.VBox([img], layout=widgets.Layout(min_width="0"))
+        parts = [img]
+        if caption:
+            parts.append(html_box(f'<div class="sk-small sk-figure-caption">{esc(caption)}</div>'))
+        box = widgets.VBox(parts, layout=widgets.Layout(min_width="0", margin="0 0 10px 0"))
         box.add_class("sk-gauge-figure-box")
         return box
 
@@ -1134,7 +1121,7 @@ class GaugeStep:
             '<div class="sk-panel-title">Preview (not stored yet)</div>'
             + verdict_html(payload, title=f"New study for {name}")
             + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>')
-        png = figure_pngs(result, only=("components",))["components"]
+        png = figure_pngs(result, only=("sources",))["sources"]
         self.preview_figure.children = [self._figure_widget("preview", png)]
         self.attach.description = f"Attach to {name}"
         self.attach_box.layout.display = ""

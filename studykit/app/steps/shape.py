@@ -2,9 +2,11 @@
 
 Histogram with the chosen model's density (and the normal one for comparison) and the
 specification limits; the normal probability plot with its confidence band; the normality
-tests; the ranking of fitted families. The engineer may choose the model (auto, normal,
-Box-Cox, Johnson or a fitted family): the effect on the judged index is shown before anything
-is recorded, and the choice is stored as a ``set_model`` decision with who and why.
+tests; the fitted families, each once, with the effect of allowing a threshold
+(:mod:`studykit.report.model_list`). The engineer may choose the model (auto, normal, Box-Cox,
+Johnson or a fitted family, with or without a threshold): the effect on the judged index is
+shown before anything is recorded, and the choice is stored as a ``set_model`` decision (the
+model id, e.g. ``weibull3``) with who and why.
 """
 
 from __future__ import annotations
@@ -25,40 +27,76 @@ from studykit.app.overview import (
 )
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
+from studykit.report import model_list
+from studykit.report.model_list import family_lines
 
 _BASE_MODELS = [("Let studykit choose (auto)", "auto"), ("Normal", "normal"),
                 ("Box-Cox transformation", "boxcox"), ("Johnson transformation", "johnson")]
 
 
 def _model_options(result) -> list:
+    """The model choices: the transformations, then each fitted family once (its threshold
+    variant is chosen with the "Allow a threshold" box)."""
     options = list(_BASE_MODELS)
     if result is not None and result.ranking is not None:
-        for row in result.ranking.rows:
-            if row.id != "normal" and not row.error:
-                options.append((f"Fitted: {row.label}", row.id))
+        for line in family_lines(result.ranking):
+            if line.family != "normal" and (_usable(line.plain) or _usable(line.shifted)):
+                options.append((f"Fitted: {line.name}", line.family))
     return options
 
 
+def _usable(row) -> bool:
+    return row is not None and not row.error
+
+
+def _threshold_variants(result) -> dict:
+    """Family id -> the id of its threshold variant, for the families that have a usable one."""
+    if result is None or result.ranking is None:
+        return {}
+    return {line.family: line.shifted.id for line in family_lines(result.ranking)
+            if _usable(line.shifted)}
+
+
+def _ad_p(row) -> str:
+    if row is None or row.error:
+        return "—"
+    return row.ad_p_text or ("—" if row.ad_p_value is None else f"{row.ad_p_value:.3f}")
+
+
 def ranking_html(result, *, limit: int = 10) -> str:
-    """The ranking of fitted families as an HTML table (best first)."""
+    """The fitted families as an HTML table, best first: each family once, its fit without and
+    with a threshold side by side, and what allowing the threshold changes."""
     ranking = result.ranking
     if ranking is None:
         return ""
     chosen = result.model.name if result.model is not None else None
+    L = model_list.LABELS
     body = []
-    for row in ranking.rows[:limit]:
-        mark = " ◂ used" if row.id == chosen else ""
-        ad_p = row.ad_p_text or ("—" if row.ad_p_value is None else f"{row.ad_p_value:.3f}")
-        note = row.error or row.note or ("" if row.converged else "did not converge")
-        body.append(
-            f"<tr><td class=\"num\">{row.rank}</td><td>{esc(row.label)}<b>{mark}</b></td>"
-            f'<td class="num">{fmt(row.aic, 1)}</td><td class="num">{fmt(row.ad_statistic, 3)}'
-            f'</td><td class="num">{esc(ad_p)}</td><td>{esc(note)}</td></tr>')
-    return ('<div class="sk-panel-title">Fitted models, best first</div>'
-            f'<div class="sk-small">{esc(ranking.rule)}</div>'
-            '<table class="sk-table sk-ranking"><thead><tr><th>#</th><th>Model</th><th>AIC</th>'
-            "<th>AD statistic</th><th>AD p-value</th><th>Note</th></tr></thead><tbody>"
-            + "".join(body) + "</tbody></table>")
+    for line in family_lines(ranking)[:limit]:
+        cells = []
+        for row in (line.plain, line.shifted):
+            if row is None:
+                cells.append('<td class="num">—</td><td class="num">—</td>')
+                continue
+            mark = f" <b>{esc(L['used'])}</b>" if row.id == chosen else ""
+            aic = "not fitted" if row.error else fmt(row.aic, 1)
+            cells.append(f'<td class="num">{esc(aic)}{mark}</td>'
+                         f'<td class="num">{esc(_ad_p(row))}</td>')
+        note = line.best.note or ("" if line.best.converged else "did not converge")
+        effect = model_list.threshold_effect(line, fmt)
+        body.append(f'<tr><td class="num">{line.rank}</td><td>{esc(line.name)}</td>'
+                    + "".join(cells) + f'<td class="sk-small">{esc(effect)}'
+                    + (f"<br>{esc(note)}" if note else "") + "</td></tr>")
+    head = (f'<tr><th rowspan="2">#</th><th rowspan="2">{esc(L["family"])}</th>'
+            f'<th colspan="2">{esc(L["plain"])}</th><th colspan="2">{esc(L["shifted"])}</th>'
+            f'<th rowspan="2">{esc(L["effect"])}</th></tr>'
+            f"<tr><th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th>"
+            f"<th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th></tr>")
+    return (f'<div class="sk-panel-title">{esc(L["title"])}</div>'
+            f'<div class="sk-small">{esc(L["rule"])} {esc(ranking.rule)}</div>'
+            f'<div class="sk-scroll"><table class="sk-table sk-ranking"><thead>{head}</thead>'
+            "<tbody>" + "".join(body) + "</tbody></table></div>"
+            f'<div class="sk-small">{esc(model_list.SOURCE)}</div>')
 
 
 def effect_html(before, after) -> str:
@@ -106,6 +144,11 @@ class ShapeStep:
         self.model = widgets.Dropdown(options=_BASE_MODELS, value="auto",
                                       layout=widgets.Layout(width="320px"))
         self.model.add_class("sk-model-pick")
+        self.threshold = widgets.Checkbox(value=False, description=model_list.LABELS["allow"],
+                                          indent=False, disabled=True,
+                                          layout=widgets.Layout(width="auto"))
+        self.threshold.add_class("sk-model-threshold")
+        self._variants = {}
         self.effect = html_box("", "sk-model-effect")
         self.reason = widgets.Text(placeholder="why this model, e.g. 'runout is bounded at zero'",
                                    layout=widgets.Layout(width="420px"))
@@ -115,13 +158,14 @@ class ShapeStep:
         self.save.add_class("sk-model-save")
         self.hint = html_box("", "sk-small")
         self.model.observe(guarded(lambda _c: self._on_model(), messages=m), names="value")
+        self.threshold.observe(guarded(lambda _c: self._on_model(), messages=m), names="value")
         for w in (self.reason, ws.who):
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
         self.save.on_click(guarded(lambda _b: self._on_save(), messages=m))
         self.body = widgets.VBox([])
         choice = widgets.VBox([
             html_box('<div class="sk-panel-title">Model for the capability indices</div>'),
-            widgets.HBox([self.model, self.effect],
+            widgets.HBox([widgets.VBox([self.model, self.threshold]), self.effect],
                          layout=widgets.Layout(flex_flow="row wrap",
                                                align_items="flex-start")),
             html_box('<div class="sk-field-label">Reason (required)</div>'), self.reason,
@@ -167,10 +211,14 @@ class ShapeStep:
         self.ranking.value = ranking_html(res)
         recorded = s.study.model_for(s.current)
         options = _model_options(res)
+        self._variants = _threshold_variants(res)
+        family = model_list.base_of(recorded) if recorded else "auto"
         self._quiet = True
         try:
             self.model.options = options
-            self.model.value = recorded if recorded in [v for _l, v in options] else "auto"
+            self.model.value = family if family in [v for _l, v in options] else "auto"
+            self.threshold.value = recorded == self._variants.get(family)
+            self.threshold.disabled = family not in self._variants
         finally:
             self._quiet = False
         self.effect.value = ""
@@ -193,10 +241,15 @@ class ShapeStep:
         return ('<dl class="sk-facts">' + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>"
                                                   for k, v in facts) + "</dl>")
 
+    def chosen(self) -> str:
+        """The model id chosen: the family, or its threshold variant when the box is ticked."""
+        variant = self._variants.get(self.model.value)
+        return variant if variant and self.threshold.value else self.model.value
+
     def _update_buttons(self) -> None:
         s = self.ws.session
         missing = []
-        if self.model.value == s.study.model_for(s.current):
+        if self.chosen() == s.study.model_for(s.current):
             missing.append("choose a model different from the one recorded")
         if not self.reason.value.strip():
             missing.append("give a reason")
@@ -209,13 +262,14 @@ class ShapeStep:
         if getattr(self, "_quiet", False):
             return
         s = self.ws.session
+        self.threshold.disabled = self.model.value not in self._variants
         self._update_buttons()
-        if self.model.value == s.study.model_for(s.current):
+        if self.chosen() == s.study.model_for(s.current):
             self.effect.value = ""
             return
         before = s.result(s.current)
         try:
-            after = s.preview(s.current, model=self.model.value)
+            after = s.preview(s.current, model=self.chosen())
         except StudyInputError as exc:
             self.effect.value = (f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">'
                                  f"Cannot use this model</span>{esc(exc)}</div>")
@@ -224,9 +278,13 @@ class ShapeStep:
 
     def _on_save(self) -> None:
         ws, s = self.ws, self.ws.session
-        s.set_model(s.current, self.model.value, who=ws.who_name, reason=self.reason.value,
+        chosen = self.chosen()
+        s.set_model(s.current, chosen, who=ws.who_name, reason=self.reason.value,
                     override_reason=ws.override_reason)
-        ws.context.messages.ok(f"Model '{self.model.value}' recorded for {s.current}.")
+        words = dict((v, label) for label, v in self.model.options).get(self.model.value, chosen)
+        if chosen != self.model.value:
+            words += f" ({model_list.LABELS['shifted'].lower()})"
+        ws.context.messages.ok(f"Model '{words}' recorded for {s.current}.")
 
 
 STEP = ShapeStep()
