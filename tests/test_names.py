@@ -243,15 +243,15 @@ def test_confidence_has_one_name_and_none_means_not_given():
 
 def test_default_criterion_is_defined_once():
     from studykit.analysis import _criteria_dict
-    from studykit.stats import capability
+    from studykit.stats.capability import DEFAULT_CRITERIA, INDEX_NAMES
     from studykit.study import Criteria
 
     c = Criteria()
     assert (c.index, c.threshold, c.basis, c.confidence) == tuple(
         names.DEFAULT_CRITERION[k] for k in ("index", "threshold", "basis", "confidence"))
     assert _criteria_dict(None) == dict(names.DEFAULT_CRITERION)
-    assert capability.DEFAULT_CRITERIA["pre_launch"]["threshold"] == 1.67
-    assert capability.INDEX_NAMES == names.INDEX_IDS
+    assert DEFAULT_CRITERIA["pre_launch"]["threshold"] == 1.67
+    assert INDEX_NAMES == names.INDEX_IDS
 
 
 def test_every_model_family_has_its_name_here():
