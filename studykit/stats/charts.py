@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -60,6 +61,8 @@ __all__ = [
     "c_chart",
     "u_chart",
     "evaluate_series",
+    "Labels",
+    "SubgroupCodes",
 ]
 
 VARIABLE_KINDS = ("xbar_r", "xbar_s", "imr")
@@ -132,7 +135,7 @@ def evaluate_series(series_points, *, center, sigma, lcl, ucl, rules, labels=Non
         lcl=levels[2],
         ucl=levels[3],
         rules=rules,
-        labels=None if labels is None else list(labels),
+        labels=labels,
     )
 
 
@@ -461,11 +464,110 @@ def _as_float_array(values, *, name):
     return x
 
 
+class Labels(Sequence):
+    """Subgroup labels kept as one array; an item becomes a plain Python value when read.
+
+    A chart of 10^6 individuals would otherwise hold 10^6 Python objects; this sequence compares
+    equal to a tuple or list of the same labels.
+    """
+
+    __slots__ = ("_a",)
+
+    def __init__(self, arr):
+        self._a = np.asarray(arr)
+
+    def __len__(self) -> int:
+        return int(self._a.shape[0])
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return Labels(self._a[i])
+        return _plain_label(self._a[i])
+
+    def __iter__(self):
+        return (_plain_label(v) for v in self._a.tolist())
+
+    def __eq__(self, other):
+        if isinstance(other, tuple | list | Labels):
+            return tuple(self) == tuple(other)
+        return NotImplemented
+
+    __hash__ = None
+
+    def __repr__(self) -> str:
+        return f"Labels({tuple(self[:6])!r}{' ...' if len(self) > 6 else ''}, n={len(self)})"
+
+    @property
+    def array(self) -> np.ndarray:
+        """The labels as an array (read-only use)."""
+        return self._a
+
+    def take(self, index) -> Labels:
+        """The labels at the given positions (or boolean mask)."""
+        return Labels(self._a[index])
+
+
+@dataclass(frozen=True, eq=False)
+class SubgroupCodes:
+    """Subgroup membership as integer codes: ``codes[i]`` is the subgroup of value i, numbered
+    0, 1, ... in order of first appearance, and ``names[j]`` is the label of subgroup j.
+
+    Pass it as ``subgroups`` to :func:`control_chart` or ``phase1`` to skip grouping labels
+    (what a study of 10^6 individuals does: the labels are only read for what is shown).
+    """
+
+    codes: np.ndarray
+    names: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.codes.shape[0])
+
+    @classmethod
+    def of(cls, subgroups) -> SubgroupCodes:
+        """Codes of any label array (first-appearance order)."""
+        if isinstance(subgroups, SubgroupCodes):
+            return subgroups
+        lab = np.asarray(subgroups)
+        try:
+            import pandas as pd
+
+            codes, uniq = pd.factorize(lab, sort=False)
+            if lab.dtype.kind in "US" or lab.dtype.kind in "iub":
+                uniq = np.asarray(uniq, dtype=lab.dtype)
+            if lab.dtype.kind == "f" or np.any(codes < 0):
+                raise TypeError  # NaN labels / floats: keep numpy's exact grouping
+            return cls(np.asarray(codes, dtype=np.int64), np.asarray(uniq))
+        except (TypeError, ValueError):
+            pass
+        uniq, first, inverse = np.unique(lab, return_index=True, return_inverse=True)
+        order = np.argsort(first, kind="stable")
+        rank = np.empty_like(order)
+        rank[order] = np.arange(order.size)
+        return cls(rank[inverse.ravel()].astype(np.int64), uniq[order])
+
+    def select(self, mask) -> SubgroupCodes:
+        """The codes of the values where ``mask`` is True, renumbered 0, 1, ... (kept order)."""
+        codes = self.codes[mask]
+        present = np.zeros(self.names.shape[0], dtype=bool)
+        present[codes] = True
+        new = np.cumsum(present) - 1
+        return SubgroupCodes(new[codes], self.names[present])
+
+
 def _group(x, subgroups):
     """Codes 0..k-1 in order of first appearance, labels, sizes."""
     if subgroups is None:
         k = x.size
-        return np.arange(k), tuple(range(1, k + 1)), np.ones(k, dtype=np.int64)
+        return np.arange(k), Labels(np.arange(1, k + 1)), np.ones(k, dtype=np.int64)
+    if isinstance(subgroups, SubgroupCodes):
+        if subgroups.codes.shape[0] != x.size:
+            raise StudyInputError(
+                f"`subgroups` has {subgroups.codes.shape[0]} labels but `values` has {x.size} "
+                "values; give one subgroup label per value."
+            )
+        codes = subgroups.codes
+        labels = Labels(subgroups.names)
+        return codes, labels, np.bincount(codes, minlength=len(labels))
     lab = np.asarray(subgroups)
     if lab.ndim != 1 or lab.shape[0] != x.size:
         raise StudyInputError(
@@ -478,7 +580,8 @@ def _group(x, subgroups):
         rank = np.empty_like(order)
         rank[order] = np.arange(order.size)
         codes = rank[inverse.ravel()]
-        labels = tuple(_plain_label(v) for v in uniq[order].tolist())
+        labels = Labels(uniq[order]) if lab.dtype.kind != "O" else tuple(
+            _plain_label(v) for v in uniq[order].tolist())
     except TypeError:  # labels of mixed types: group in Python
         seen: dict = {}
         codes = np.array([seen.setdefault(v, len(seen)) for v in lab.tolist()], dtype=np.int64)
@@ -914,6 +1017,8 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
             f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
             "inspected; a count cannot exceed its subgroup size."
         )
+    if isinstance(labels, SubgroupCodes):
+        labels = labels.names[labels.codes]
     if labels is None:
         labels_t = tuple(range(1, k + 1))
     else:
