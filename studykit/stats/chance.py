@@ -196,9 +196,14 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
              if sizes is None or series.name in ("individual", "moving_range")
              else np.asarray(sizes, dtype=np.int64))
     # one computation per distinct (size, centre, standard error): constant in most charts
-    key = np.stack([n_arr.astype(float), center, sigma], axis=1)
-    uniq, inv = np.unique(key, axis=0, return_inverse=True)
-    inv = inv.ravel()
+    if (np.all(n_arr == n_arr[0]) and np.all(center == center[0])
+            and np.all(sigma == sigma[0])):
+        uniq = [(float(n_arr[0]), float(center[0]), float(sigma[0]))]
+        inv = np.zeros(pts.size, dtype=np.int64)
+    else:
+        key = np.stack([n_arr.astype(float), center, sigma], axis=1)
+        uniq, inv = np.unique(key, axis=0, return_inverse=True)
+        inv = inv.ravel()
     lo_lim, hi_lim = lcl.copy(), ucl.copy()
     p0_point = np.zeros(pts.size)
     alphas, p0s = [], []
@@ -210,8 +215,9 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
             continue
         up_t, lo_t, up_q, lo_q = _unit_tails(series.name, n)
         off = c if series.name in ("individual", "xbar") else 0.0
-        sel = inv == j
-        u3, l3 = float(ucl[sel][0]), float(lcl[sel][0])
+        sel = inv == j if len(uniq) > 1 else slice(None)
+        first = int(np.argmax(inv == j))
+        u3, l3 = float(ucl[first]), float(lcl[first])
         p_up = float(up_t((u3 - off) / unit))
         location = series.name in ("individual", "xbar")
         p_lo = float(lo_t((l3 - off) / unit)) if location or l3 > 0 else 0.0

@@ -282,21 +282,17 @@ def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None,
         what = f"{what} ({scale.label})"
     value = series.points[pos]
     if signal.rule == "beyond_limits":
-        if chance is not None and chance.adjusted:
-            if value > chance.upper[pos]:
-                side = (f"above the removal limit {_fmt(chance.upper[pos])} (upper control "
-                        f"limit {_fmt(series.ucl[pos])})")
-            else:
-                side = (f"below the removal limit {_fmt(chance.lower[pos])} (lower control "
-                        f"limit {_fmt(series.lcl[pos])})")
-            return (f"{what} {_fmt(value)} lies {side} of round {rnd}; the removal limits of "
-                    f"this chart of {chance.points} points are crossed by a stable process "
-                    f"with probability {chance.fap:.1%} over the whole chart")
         if value > series.ucl[pos]:
             side = f"above the upper control limit {_fmt(series.ucl[pos])}"
         else:
             side = f"below the lower control limit {_fmt(series.lcl[pos])}"
-        return f"{what} {_fmt(value)} lies {side} of round {rnd}"
+        text = f"{what} {_fmt(value)} lies {side} of round {rnd}"
+        if chance is not None and chance.adjusted:
+            limit = chance.upper[pos] if value > series.ucl[pos] else chance.lower[pos]
+            text += (f" and beyond the removal limit {_fmt(limit)}, which a stable process "
+                     f"crosses anywhere on this chart of {chance.points} points with "
+                     f"probability {chance.fap:.1%}")
+        return text
     return f"{what} {_fmt(value)} completes a pattern in round {rnd}: {signal.text}"
 
 
@@ -505,8 +501,10 @@ def phase1(
     kind_fixed = chart.kind
     iterations = 0
     stopped = "stable"
+    chances_of = None
     while True:
         loc_chance, disp_chance = _chances(chart, attribute)
+        chances_of = (chart, loc_chance, disp_chance)
         loc_flags = _flagged(chart.location, removal_rules, chart.labels, loc_chance)
         disp_flags = (
             {}
@@ -580,6 +578,7 @@ def phase1(
             )
         removed[kept_codes[positions]] = True
         del loc_flags, disp_flags, loc_chance, disp_chance
+        chances_of = None
         chart = None  # the next round's chart replaces this one (one chart in memory)
         chart = build(kind_fixed)
 
@@ -642,13 +641,16 @@ def phase1(
         n_removed_auto=int(n_auto),
         raw_chart=raw_chart,
         mr_removal=mr_removal,
-        chance=_final_chances(chart, attribute),
+        chance=_final_chances(chart, attribute, chances_of),
         kept_mask=kept_mask,
     )
 
 
-def _final_chances(chart: ControlChart, attribute: bool) -> dict:
-    loc, disp = _chances(chart, attribute)
+def _final_chances(chart: ControlChart, attribute: bool, last=None) -> dict:
+    if last is not None and last[0] is chart:  # the loop's last chart: computed already
+        loc, disp = last[1], last[2]
+    else:
+        loc, disp = _chances(chart, attribute)
     out = {}
     if loc is not None:
         out["location"] = loc
