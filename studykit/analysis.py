@@ -1489,7 +1489,8 @@ def _chance_signals(chart: ControlChart, verdict, beyond, chance: Mapping):
         return finding, None
     return finding, replace(
         verdict, text=verdict.text + f" Read it with the {n} signal(s) on the final chart in "
-                                     "mind (as many as chance gives; see the findings).")
+                                     f"mind ({len(beyond)} beyond the control limits, as many "
+                                     "as chance gives; see the findings).")
 
 
 def _not_in_control(chart: ControlChart, verdict, chance: Mapping | None = None):
