@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import sys
+import uuid
 
 from studykit.errors import StudyInputError
 
@@ -171,7 +172,7 @@ def dumps_result(out: dict) -> str:
     signals = chart.get("signals") if isinstance(chart, dict) else None
     if not signals:
         return json.dumps(out, indent=2)
-    marker = "@@studykit-signals@@"
+    marker = f"@@signals-{uuid.uuid4().hex}@@"  # cannot occur in the data
     text = json.dumps({**out, "chart": {**chart, "signals": marker}}, indent=2)
     lines = ",\n".join("      " + json.dumps(sig) for sig in signals)
     return text.replace(json.dumps(marker), "[\n" + lines + "\n    ]", 1)
