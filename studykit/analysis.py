@@ -249,6 +249,22 @@ def _label(v):
         return v
 
 
+class _LazyProbabilityPlot:
+    """The probability plot of a long series (no band), computed on first use: the command line
+    never draws it, and its coordinates are three lists of n numbers."""
+
+    def __init__(self, x):
+        self._x = x
+        self._plot = None
+
+    def __getattr__(self, name):
+        if name.startswith("__"):
+            raise AttributeError(name)
+        if self._plot is None:
+            self._plot = normality_module.probability_plot(self._x, band=None)
+        return getattr(self._plot, name)
+
+
 def _labels_at(labels, groups: list) -> list:
     """``[[labels[p] for p in g] for g in groups]`` as plain values, read in one step."""
     if not groups:
@@ -1182,10 +1198,11 @@ def analyze_characteristic(
     n_missing = int(missing.sum())
     if n_missing:
         warn.append(f"{n_missing} empty cell(s) left out of the analysis")
-    keep = ~missing
-    values, labels = values[keep], labels[keep]
-    if size_arr is not None:
-        size_arr = size_arr[keep]
+    if n_missing:  # (no copy of 10^6 values and labels when nothing is missing)
+        keep = ~missing
+        values, labels = values[keep], labels[keep]
+        if size_arr is not None:
+            size_arr = size_arr[keep]
     if attribute and kind in ("p", "np", "u") and size_arr is None:
         raise StudyInputError(
             f"the {kind} chart of '{name}' needs the subgroup sizes: name the column that holds "
@@ -1260,7 +1277,7 @@ def analyze_characteristic(
     chart = p1.chart
     kept_mask = p1.kept_mask
     x = values[kept_mask]
-    kept_labels = labels[kept_mask]
+    kept_labels = labels if kept_mask.all() else labels[kept_mask]
     withheld = _withheld_findings(p1, order, options)
 
     spec_d = {
@@ -1342,8 +1359,10 @@ def analyze_characteristic(
             "values (scipy's note); read Anderson-Darling instead. The probability plot is "
             "drawn without its confidence band."
         )
-    pplot = normality_module.probability_plot(x, band=None if x.size > LARGE_SAMPLE
-                                              else "beta_pointwise")
+    if x.size > LARGE_SAMPLE:  # drawn when a view or report asks for it (3 lists of n floats)
+        pplot = _LazyProbabilityPlot(x)
+    else:
+        pplot = normality_module.probability_plot(x, band="beta_pointwise")
     normality = {"anderson_darling": ad, "shapiro_wilk": sw}
     result_kw.update(normality=normality, probability_plot=pplot)
     if spec is None or (spec.lsl is None and spec.usl is None):

@@ -204,36 +204,42 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         key = np.stack([n_arr.astype(float), center, sigma], axis=1)
         uniq, inv = np.unique(key, axis=0, return_inverse=True)
         inv = inv.ravel()
-    lo_lim, hi_lim = lcl.copy(), ucl.copy()
-    p0_point = np.zeros(pts.size)
+    k = len(uniq)
+    lo_v, hi_v, p0_v = np.empty(k), np.empty(k), np.zeros(k)
     alphas, p0s = [], []
     adjusted = m > reference
     for j, (n_f, c, s) in enumerate(uniq):
         n = int(n_f)
+        first = int(np.argmax(inv == j)) if k > 1 else 0
+        u3, l3 = float(ucl[first]), float(lcl[first])
+        lo_v[j], hi_v[j] = l3, u3
         unit = _scale(series.name, c, s, n)
         if not unit > 0:
             continue
         up_t, lo_t, up_q, lo_q = _unit_tails(series.name, n)
         off = c if series.name in ("individual", "xbar") else 0.0
-        sel = inv == j if len(uniq) > 1 else slice(None)
-        first = int(np.argmax(inv == j))
-        u3, l3 = float(ucl[first]), float(lcl[first])
-        p_up = float(up_t((u3 - off) / unit))
         location = series.name in ("individual", "xbar")
+        p_up = float(up_t((u3 - off) / unit))
         p_lo = float(lo_t((l3 - off) / unit)) if location or l3 > 0 else 0.0
-        p0_point[sel] = p_up + p_lo
+        p0_v[j] = p_up + p_lo
         p0s.append(p_up + p_lo)
         if adjusted:
             a_up = -math.expm1(reference / m * math.log1p(-p_up)) if p_up > 0 else 0.0
             a_lo = -math.expm1(reference / m * math.log1p(-p_lo)) if p_lo > 0 else 0.0
             if a_up > 0:
-                hi_lim[sel] = max(u3, off + unit * float(up_q(a_up)))
+                hi_v[j] = max(u3, off + unit * float(up_q(a_up)))
             if a_lo > 0:
-                lo_lim[sel] = min(l3, off + unit * float(lo_q(a_lo)))
+                lo_v[j] = min(l3, off + unit * float(lo_q(a_lo)))
             alphas.append(a_up)
         else:
             alphas.append(p_up)
-    expected = float(p0_point[ok].sum())
+    if k == 1:  # one number for every point (read-only views)
+        lo_lim = np.broadcast_to(lo_v[0], pts.shape)
+        hi_lim = np.broadcast_to(hi_v[0], pts.shape)
+        expected = float(p0_v[0]) * m
+    else:
+        lo_lim, hi_lim = lo_v[inv], hi_v[inv]
+        expected = float(p0_v[inv][ok].sum())
     p0_mean = float(np.mean(p0s)) if p0s else 0.0
     fap = -math.expm1(reference * math.log1p(-p0_mean)) if p0_mean < 1 else 1.0
     p_value = float(special.pdtrc(seen - 1, expected)) if seen > 0 else 1.0

@@ -144,6 +144,8 @@ def _scalar_if_constant(a):
     arr = np.asarray(a, dtype=float)
     if arr.ndim == 0 or arr.size == 0:
         return arr
+    if arr.ndim == 1 and arr.strides == (0,):  # a broadcast number (see _per_point)
+        return float(arr[0])
     first = arr.flat[0]
     if np.all(arr == first):
         return float(first)
@@ -414,15 +416,20 @@ def _series(
     labels=None,
 ):
     n = points.shape[0]
-    center = np.broadcast_to(np.asarray(center, dtype=float), (n,)).copy()
-    sigma = np.broadcast_to(np.asarray(sigma, dtype=float), (n,)).copy()
+    center = _per_point(center, n)
+    sigma = _per_point(sigma, n)
+    constant = center.strides == (0,) and sigma.strides == (0,)
 
     def line(k):
+        if constant:  # one number for every point (a read-only view: no memory per point)
+            v = np.asarray(center[:1] + k * sigma[:1])
+            v = np.maximum(v, 0.0) if floor_zero else v
+            return np.broadcast_to(v.reshape(()), (n,))
         v = center + k * sigma
         return np.maximum(v, 0.0) if floor_zero else v
 
-    lcl = line(-3.0) if lcl is None else np.broadcast_to(np.asarray(lcl, float), (n,)).copy()
-    ucl = line(3.0) if ucl is None else np.broadcast_to(np.asarray(ucl, float), (n,)).copy()
+    lcl = line(-3.0) if lcl is None else _per_point(lcl, n)
+    ucl = line(3.0) if ucl is None else _per_point(ucl, n)
     signals = ()
     if evaluate:
         signals = evaluate_series(
@@ -442,6 +449,15 @@ def _series(
         rules=_rules_text(rules),
         signals=signals,
     )
+
+
+def _per_point(a, n: int) -> np.ndarray:
+    """``a`` as one value per point: a number becomes a read-only view of length n (a chart of
+    10^6 points then holds one number per line, not 10^6); an array is copied."""
+    arr = np.asarray(a, dtype=float)
+    if arr.ndim == 0 or arr.size == 1:
+        return np.broadcast_to(arr.reshape(()), (n,))
+    return np.broadcast_to(arr, (n,)).copy()
 
 
 def _as_float_array(values, *, name):
@@ -547,6 +563,8 @@ class SubgroupCodes:
 
     def select(self, mask) -> SubgroupCodes:
         """The codes of the values where ``mask`` is True, renumbered 0, 1, ... (kept order)."""
+        if bool(np.all(mask)):
+            return self
         codes = self.codes[mask]
         present = np.zeros(self.names.shape[0], dtype=bool)
         present[codes] = True

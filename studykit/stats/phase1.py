@@ -477,7 +477,7 @@ def phase1(
         mask = ~removed[groups.codes]
         if not mask.any():
             raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
-        xs, extra = x[mask], {}
+        xs, extra = (x if mask.all() else x[mask]), {}
         if rescale is not None and not attribute:
             sc = rescale(xs)
             scales.append(sc)
