@@ -47,6 +47,7 @@ from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
     DISPERSION_RULES,
     ControlChart,
+    SubgroupCodes,
     control_chart,
 )
 from studykit.stats.phase1 import MR_REMOVAL, ChartScale, Phase1Result, phase1
@@ -250,6 +251,40 @@ def _label(v):
         return v.item()
     except AttributeError:
         return v
+
+
+class _LazyProbabilityPlot:
+    """The probability plot of a long series (no band), computed on first use: the command line
+    never draws it, and its coordinates are three lists of n numbers."""
+
+    def __init__(self, x):
+        self._x = x
+        self._plot = None
+
+    def __getattr__(self, name):
+        if name.startswith("__"):
+            raise AttributeError(name)
+        if self._plot is None:
+            self._plot = normality_module.probability_plot(self._x, band=None)
+        return getattr(self._plot, name)
+
+
+def _labels_at(labels, groups: list) -> list:
+    """``[[labels[p] for p in g] for g in groups]`` as plain values, read in one step."""
+    if not groups:
+        return []
+    sizes = [len(g) for g in groups]
+    flat = np.fromiter((p for g in groups for p in g), dtype=np.int64, count=sum(sizes))
+    arr = getattr(labels, "array", None)
+    if arr is not None:
+        values = arr[flat].tolist()
+    else:
+        values = [_label(labels[int(p)]) for p in flat.tolist()]
+    out, start = [], 0
+    for k in sizes:
+        out.append(values[start:start + k])
+        start += k
+    return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -478,17 +513,23 @@ class CharacteristicResult:
         for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
             if s is None:
                 continue
-            for sig in s.signals:
-                pos = [int(p) for p in sig.points]
-                if s.name == "moving_range":  # a moving range is the difference of two readings
-                    pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
+            # every label of every signal read in one step (10^4 signals on 10^6 readings)
+            points = [list(sig.points) for sig in s.signals]
+            if s.name == "moving_range":  # a moving range is the difference of two readings
+                readings = [sorted({q for p in pos for q in (p - 1, p) if q >= 0})
+                            for pos in points]
+            else:
+                readings = points
+            sub_text = _labels_at(labels, points)
+            read_text = sub_text if readings is points else _labels_at(labels, readings)
+            for sig, subs, reads in zip(s.signals, sub_text, read_text, strict=True):
                 signals.append(
                     {
                         "rule": sig.rule,
                         "number": sig.number,
                         "chart": part,
-                        "subgroups": [_label(labels[int(p)]) for p in sig.points],
-                        "readings": [_label(labels[p]) for p in pos],
+                        "subgroups": subs,
+                        "readings": reads,
                         "text": sig.text,
                     }
                 )
@@ -553,6 +594,7 @@ class CharacteristicResult:
                 "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
                 "mr_removal": self.phase1.mr_removal,
                 "verdict_withheld": list(self.withheld_codes),
+                "chance_signals": {k: c.to_dict() for k, c in self.phase1.chance.items()},
             },
             "order": None if self.order is None else self.order.to_dict(),
             "normality": None,
@@ -682,10 +724,17 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl):
     notes: list[str] = []
     positive = bool(np.all(x > 0))
     need_ranking = requested not in ("normal", *_TRANSFORMS)
-    if need_ranking or requested == "auto":
+    normal_kept = (requested == "auto" and ad_normal.p_value is not None
+                   and ad_normal.p_value >= NORMALITY_ALPHA)
+    if normal_kept and x.size > LARGE_SAMPLE:
+        notes.append(
+            f"{x.size} values and the normal model is not rejected: the other models are not "
+            f"ranked above {LARGE_SAMPLE} values (ask for one with --model to fit it)"
+        )
+    elif need_ranking or requested == "auto":
         ranking = fit_module.fit_all(x)
     if requested == "auto":
-        if ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA:
+        if normal_kept:
             return (
                 ModelChoice(
                     "normal",
@@ -818,14 +867,18 @@ def _model_scale(requested: str):
 
     def rescale(xs):
         xs = np.asarray(xs, dtype=float)
+        rescale.last = None
         raw = ChartScale("raw", _SCALE_TEXT["raw"], xs)
         if xs.size < 3 or not np.ptp(xs) > 0:
             return raw
         try:
             ad = normality_module.anderson_darling(xs)
-            choice, _, _ = _choose_model(xs, requested, ad, None, None)
+            choice, ranking, notes = _choose_model(xs, requested, ad, None, None)
         except (StudyInputError, ValueError, FloatingPointError):
             return raw
+        # kept for the analysis: the same values after phase I need no second fit
+        rescale.last = {"values": xs, "ad": ad, "choice": choice, "ranking": ranking,
+                        "notes": tuple(notes)}
         if choice.name == "normal":
             return ChartScale("raw", _SCALE_TEXT["raw"], xs, model=choice)
         if choice.transform is not None:
@@ -1120,7 +1173,12 @@ def analyze_characteristic(
     kind = options.chart or (spec.chart if spec is not None else "auto")
     attribute = kind in ATTRIBUTE_KINDS
     values = np.asarray(data.values, dtype=float)
-    labels = np.asarray(data.subgroups).astype(str)
+    labels = np.asarray(data.subgroups)
+    if labels.dtype.kind != "U":
+        labels = labels.astype(str)
+    # every row its own subgroup (individuals): known from the reader's count of labels
+    distinct = getattr(data, "subgroup_labels", None)
+    all_distinct = distinct is not None and len(distinct) == labels.size
     size_arr = None
     if sizes is not None:
         size_arr = np.asarray(getattr(sizes, "values", sizes), dtype=float)
@@ -1130,9 +1188,11 @@ def analyze_characteristic(
                 "give one lot size per count."
             )
     subgroup_size = options.subgroup_size or (spec.subgroup_size if spec is not None else None)
-    if subgroup_size and not attribute and len(set(labels.tolist())) == labels.size:
+    if subgroup_size and not attribute and (
+            all_distinct or SubgroupCodes.of(labels).names.size == labels.size):
         # group consecutive rows, as `studykit check` does: an empty cell stays in its subgroup
         labels = _regroup(labels, int(subgroup_size))
+        all_distinct = False
     if attribute:
         _check_counts(data, values, size_arr, kind)
     missing = np.isnan(values)
@@ -1141,10 +1201,11 @@ def analyze_characteristic(
     n_missing = int(missing.sum())
     if n_missing:
         warn.append(f"{n_missing} empty cell(s) left out of the analysis")
-    keep = ~missing
-    values, labels = values[keep], labels[keep]
-    if size_arr is not None:
-        size_arr = size_arr[keep]
+    if n_missing:  # (no copy of 10^6 values and labels when nothing is missing)
+        keep = ~missing
+        values, labels = values[keep], labels[keep]
+        if size_arr is not None:
+            size_arr = size_arr[keep]
     if attribute and kind in ("p", "np", "u") and size_arr is None:
         raise StudyInputError(
             f"the {kind} chart of '{name}' needs the subgroup sizes: name the column that holds "
@@ -1158,10 +1219,15 @@ def analyze_characteristic(
     if not attribute:  # overflow, rounding-noise spread, precision collapse: refused here
         check_resolution(values, name=f"'{printable(name)}'")
 
+    # subgroups as integer codes from here on (labels are read only for what is shown)
+    groups = (SubgroupCodes(np.arange(labels.size), labels) if all_distinct
+              else SubgroupCodes.of(labels))
     excl = {}
     for label, why in (exclusions or {}).items():
         excl[str(label)] = why
-    unknown = [k for k in excl if k not in set(labels.tolist())]
+    present = set(np.asarray(list(excl), dtype=str)[np.isin(list(excl), groups.names)]
+                  .tolist()) if excl else set()
+    unknown = [k for k in excl if k not in present]
     if unknown:
         warn.append(
             "recorded exclusion(s) for subgroup(s) not in the data: " + ", ".join(unknown)
@@ -1170,7 +1236,8 @@ def analyze_characteristic(
 
     order = None
     if not attribute:
-        manual = np.array([lab in excl for lab in labels.tolist()], dtype=bool)
+        manual = (np.isin(labels, list(excl)) if excl
+                  else np.zeros(labels.size, dtype=bool))
         order = order_module.check_order(
             values[~manual], name=name, unit=data.unit or (spec.unit if spec is not None else None),
             has_times=getattr(data, "times", None) is not None,
@@ -1183,13 +1250,13 @@ def analyze_characteristic(
     chart_kw = {}
     if attribute:
         chart_kw["laney"] = options.laney
-    elif options.sigma_method is not None and len(set(labels.tolist())) < labels.size:
+    elif options.sigma_method is not None and groups.names.size < labels.size:
         chart_kw["sigma_method"] = options.sigma_method
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", StudyWarning)
         p1 = phase1(
             values,
-            labels,
+            groups,
             kind=kind,
             sizes=size_arr,
             exclude=excl or None,
@@ -1211,10 +1278,9 @@ def analyze_characteristic(
         if msg not in warn:
             warn.append(msg)
     chart = p1.chart
-    removed = {str(_label(r.label)) for r in p1.removals}
-    kept_mask = np.array([lab not in removed for lab in labels.tolist()], dtype=bool)
+    kept_mask = p1.kept_mask
     x = values[kept_mask]
-    kept_labels = labels[kept_mask]
+    kept_labels = labels if kept_mask.all() else labels[kept_mask]
     withheld = _withheld_findings(p1, order, options)
 
     spec_d = {
@@ -1282,7 +1348,11 @@ def analyze_characteristic(
             )
         return CharacteristicResult(**result_kw, warnings=tuple(warn))
 
-    ad = normality_module.anderson_darling(x)
+    # the model phase I settled on for exactly these values (its last round), when there is one
+    last = getattr(rescale, "last", None)
+    reuse = last is not None and last["values"].shape == x.shape and np.array_equal(
+        last["values"], x)
+    ad = last["ad"] if reuse else normality_module.anderson_darling(x)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # scipy: p-value may be inaccurate, N > 5000
         sw = normality_module.shapiro_wilk(x)
@@ -1292,14 +1362,19 @@ def analyze_characteristic(
             "values (scipy's note); read Anderson-Darling instead. The probability plot is "
             "drawn without its confidence band."
         )
-    pplot = normality_module.probability_plot(x, band=None if x.size > LARGE_SAMPLE
-                                              else "beta_pointwise")
+    if x.size > LARGE_SAMPLE:  # drawn when a view or report asks for it (3 lists of n floats)
+        pplot = _LazyProbabilityPlot(x)
+    else:
+        pplot = normality_module.probability_plot(x, band="beta_pointwise")
     normality = {"anderson_darling": ad, "shapiro_wilk": sw}
     result_kw.update(normality=normality, probability_plot=pplot)
     if spec is None or (spec.lsl is None and spec.usl is None):
         return CharacteristicResult(**result_kw, warnings=tuple(warn))
 
-    choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
+    if reuse:
+        choice, ranking, notes = last["choice"], last["ranking"], list(last["notes"])
+    else:
+        choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
     warn.extend(notes)
     df_within = _df_within(stat_chart)
     if choice.transform is not None and options.transform_indices == "percentile":
@@ -1354,10 +1429,10 @@ def analyze_characteristic(
         )
     )
     if kept_keys:
-        finding, verdict = _signals_with_kept(chart, verdict, kept_keys, kept_rows)
+        finding, verdict = _signals_with_kept(chart, verdict, kept_keys, kept_rows, p1.chance)
         findings[:0] = finding
     elif chart.signals:
-        finding, verdict = _not_in_control(chart, verdict)
+        finding, verdict = _not_in_control(chart, verdict, p1.chance)
         findings.insert(0, finding)
     if withheld:
         verdict = _withhold(verdict, withheld)
@@ -1411,7 +1486,38 @@ def _signal_summary(chart: ControlChart) -> str:
     return "; ".join(parts[:5]) + (f"; and {len(parts) - 5} more" if len(parts) > 5 else "")
 
 
-def _not_in_control(chart: ControlChart, verdict):
+def _chance_signals(chart: ControlChart, verdict, beyond, chance: Mapping):
+    """Points beyond the 3-sigma limits of a long chart that are as many as a stable process
+    gives by chance and none beyond the removal limits (``studykit.stats.chance``): reported
+    with the expected count, not treated as special causes."""
+    n = len(chart.signals)
+    parts = []
+    for name, c in chance.items():
+        if c.beyond_limits:
+            parts.append(f"{c.beyond_limits} on the {name} chart of {c.points} points, about "
+                         f"{c.expected:.1f} expected by chance (P(at least that many) = "
+                         f"{c.p_value:.2g})")
+    fap = max(c.fap for c in chance.values())
+    others = n - len(beyond)
+    finding = capability_module.Finding(
+        code="chance_signals", severity="info",
+        text=(f"{len(beyond)} point(s) lie beyond the 3-sigma control limits of the final chart: "
+              + "; ".join(parts) + ". None lies beyond the removal limits, which a stable "
+              f"process crosses anywhere on the chart with probability {fap:.1%}, and the count "
+              "is not more than chance gives: they are not treated as special causes and stay "
+              "in the analysis."
+              + (f" The chart also has {others} run-rule signal(s); with every run rule on, a "
+                 "long stable series raises such signals now and then." if others else "")),
+    )
+    if verdict is None:
+        return finding, None
+    return finding, replace(
+        verdict, text=verdict.text + f" Read it with the {n} signal(s) on the final chart in "
+                                     f"mind ({len(beyond)} beyond the control limits, as many "
+                                     "as chance gives; see the findings).")
+
+
+def _not_in_control(chart: ControlChart, verdict, chance: Mapping | None = None):
     """What the signals left on the final chart mean for the verdict.
 
     A point still beyond the control limits is an unexplained special cause: the capability is
@@ -1422,6 +1528,8 @@ def _not_in_control(chart: ControlChart, verdict):
     """
     n = len(chart.signals)
     beyond = [s for s in chart.signals if s.rule == "beyond_limits"]
+    if beyond and chance and not any(c.unexplained for c in chance.values()):
+        return _chance_signals(chart, verdict, beyond, chance)
     where = _signal_summary(chart)
     finding = Finding(
         code="not_in_control" if beyond else "run_rule_signals", severity="warning",
@@ -1481,7 +1589,7 @@ def _label_sort(label: str):
         return (1, 0.0, label)
 
 
-def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
+def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows, chance=None):
     """Findings and verdict when some signals are kept with a reason.
 
     A signal is reviewed when a keep decision names its rule at one of the subgroups of its
@@ -1506,7 +1614,7 @@ def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows):
                                                                  signals=tuple(open_loc)),
             dispersion=None if chart.dispersion is None else replace(chart.dispersion,
                                                                      signals=tuple(open_disp)))
-        finding, verdict = _not_in_control(open_chart, verdict)
+        finding, verdict = _not_in_control(open_chart, verdict, chance)
         findings.append(finding)
     on_chart = [r for r in kept_rows if r["on_chart"]]
     if on_chart:

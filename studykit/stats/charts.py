@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -61,6 +62,8 @@ __all__ = [
     "c_chart",
     "u_chart",
     "evaluate_series",
+    "Labels",
+    "SubgroupCodes",
 ]
 
 VARIABLE_KINDS = ("xbar_r", "xbar_s", "imr")
@@ -133,7 +136,7 @@ def evaluate_series(series_points, *, center, sigma, lcl, ucl, rules, labels=Non
         lcl=levels[2],
         ucl=levels[3],
         rules=rules,
-        labels=None if labels is None else list(labels),
+        labels=labels,
     )
 
 
@@ -142,6 +145,8 @@ def _scalar_if_constant(a):
     arr = np.asarray(a, dtype=float)
     if arr.ndim == 0 or arr.size == 0:
         return arr
+    if arr.ndim == 1 and arr.strides == (0,):  # a broadcast number (see _per_point)
+        return float(arr[0])
     first = arr.flat[0]
     if np.all(arr == first):
         return float(first)
@@ -412,15 +417,20 @@ def _series(
     labels=None,
 ):
     n = points.shape[0]
-    center = np.broadcast_to(np.asarray(center, dtype=float), (n,)).copy()
-    sigma = np.broadcast_to(np.asarray(sigma, dtype=float), (n,)).copy()
+    center = _per_point(center, n)
+    sigma = _per_point(sigma, n)
+    constant = center.strides == (0,) and sigma.strides == (0,)
 
     def line(k):
+        if constant:  # one number for every point (a read-only view: no memory per point)
+            v = np.asarray(center[:1] + k * sigma[:1])
+            v = np.maximum(v, 0.0) if floor_zero else v
+            return np.broadcast_to(v.reshape(()), (n,))
         v = center + k * sigma
         return np.maximum(v, 0.0) if floor_zero else v
 
-    lcl = line(-3.0) if lcl is None else np.broadcast_to(np.asarray(lcl, float), (n,)).copy()
-    ucl = line(3.0) if ucl is None else np.broadcast_to(np.asarray(ucl, float), (n,)).copy()
+    lcl = line(-3.0) if lcl is None else _per_point(lcl, n)
+    ucl = line(3.0) if ucl is None else _per_point(ucl, n)
     signals = ()
     if evaluate:
         signals = evaluate_series(
@@ -440,6 +450,15 @@ def _series(
         rules=_rules_text(rules),
         signals=signals,
     )
+
+
+def _per_point(a, n: int) -> np.ndarray:
+    """``a`` as one value per point: a number becomes a read-only view of length n (a chart of
+    10^6 points then holds one number per line, not 10^6); an array is copied."""
+    arr = np.asarray(a, dtype=float)
+    if arr.ndim == 0 or arr.size == 1:
+        return np.broadcast_to(arr.reshape(()), (n,))
+    return np.broadcast_to(arr, (n,)).copy()
 
 
 def _as_float_array(values, *, name):
@@ -462,11 +481,112 @@ def _as_float_array(values, *, name):
     return x
 
 
+class Labels(Sequence):
+    """Subgroup labels kept as one array; an item becomes a plain Python value when read.
+
+    A chart of 10^6 individuals would otherwise hold 10^6 Python objects; this sequence compares
+    equal to a tuple or list of the same labels.
+    """
+
+    __slots__ = ("_a",)
+
+    def __init__(self, arr):
+        self._a = np.asarray(arr)
+
+    def __len__(self) -> int:
+        return int(self._a.shape[0])
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return Labels(self._a[i])
+        return _plain_label(self._a[i])
+
+    def __iter__(self):
+        return (_plain_label(v) for v in self._a.tolist())
+
+    def __eq__(self, other):
+        if isinstance(other, tuple | list | Labels):
+            return tuple(self) == tuple(other)
+        return NotImplemented
+
+    __hash__ = None
+
+    def __repr__(self) -> str:
+        return f"Labels({tuple(self[:6])!r}{' ...' if len(self) > 6 else ''}, n={len(self)})"
+
+    @property
+    def array(self) -> np.ndarray:
+        """The labels as an array (read-only use)."""
+        return self._a
+
+    def take(self, index) -> Labels:
+        """The labels at the given positions (or boolean mask)."""
+        return Labels(self._a[index])
+
+
+@dataclass(frozen=True, eq=False)
+class SubgroupCodes:
+    """Subgroup membership as integer codes: ``codes[i]`` is the subgroup of value i, numbered
+    0, 1, ... in order of first appearance, and ``names[j]`` is the label of subgroup j.
+
+    Pass it as ``subgroups`` to :func:`control_chart` or ``phase1`` to skip grouping labels
+    (what a study of 10^6 individuals does: the labels are only read for what is shown).
+    """
+
+    codes: np.ndarray
+    names: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.codes.shape[0])
+
+    @classmethod
+    def of(cls, subgroups) -> SubgroupCodes:
+        """Codes of any label array (first-appearance order)."""
+        if isinstance(subgroups, SubgroupCodes):
+            return subgroups
+        lab = np.asarray(subgroups)
+        try:
+            import pandas as pd
+
+            codes, uniq = pd.factorize(lab, sort=False)
+            if lab.dtype.kind in "US" or lab.dtype.kind in "iub":
+                uniq = np.asarray(uniq, dtype=lab.dtype)
+            if lab.dtype.kind == "f" or np.any(codes < 0):
+                raise TypeError  # NaN labels / floats: keep numpy's exact grouping
+            return cls(np.asarray(codes, dtype=np.int64), np.asarray(uniq))
+        except (TypeError, ValueError):
+            pass
+        uniq, first, inverse = np.unique(lab, return_index=True, return_inverse=True)
+        order = np.argsort(first, kind="stable")
+        rank = np.empty_like(order)
+        rank[order] = np.arange(order.size)
+        return cls(rank[inverse.ravel()].astype(np.int64), uniq[order])
+
+    def select(self, mask) -> SubgroupCodes:
+        """The codes of the values where ``mask`` is True, renumbered 0, 1, ... (kept order)."""
+        if bool(np.all(mask)):
+            return self
+        codes = self.codes[mask]
+        present = np.zeros(self.names.shape[0], dtype=bool)
+        present[codes] = True
+        new = np.cumsum(present) - 1
+        return SubgroupCodes(new[codes], self.names[present])
+
+
 def _group(x, subgroups):
     """Codes 0..k-1 in order of first appearance, labels, sizes."""
     if subgroups is None:
         k = x.size
-        return np.arange(k), tuple(range(1, k + 1)), np.ones(k, dtype=np.int64)
+        return np.arange(k), Labels(np.arange(1, k + 1)), np.ones(k, dtype=np.int64)
+    if isinstance(subgroups, SubgroupCodes):
+        if subgroups.codes.shape[0] != x.size:
+            raise StudyInputError(
+                f"`subgroups` has {subgroups.codes.shape[0]} labels but `values` has {x.size} "
+                "values; give one subgroup label per value."
+            )
+        codes = subgroups.codes
+        labels = Labels(subgroups.names)
+        return codes, labels, np.bincount(codes, minlength=len(labels))
     lab = np.asarray(subgroups)
     if lab.ndim != 1 or lab.shape[0] != x.size:
         raise StudyInputError(
@@ -479,7 +599,8 @@ def _group(x, subgroups):
         rank = np.empty_like(order)
         rank[order] = np.arange(order.size)
         codes = rank[inverse.ravel()]
-        labels = tuple(_plain_label(v) for v in uniq[order].tolist())
+        labels = Labels(uniq[order]) if lab.dtype.kind != "O" else tuple(
+            _plain_label(v) for v in uniq[order].tolist())
     except TypeError:  # labels of mixed types: group in Python
         seen: dict = {}
         codes = np.array([seen.setdefault(v, len(seen)) for v in lab.tolist()], dtype=np.int64)
@@ -915,6 +1036,8 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
             f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
             "inspected; a count cannot exceed its subgroup size."
         )
+    if isinstance(labels, SubgroupCodes):
+        labels = labels.names[labels.codes]
     if labels is None:
         labels_t = tuple(range(1, k + 1))
     else:

@@ -65,6 +65,15 @@ def _range_cdf_tail(r: np.ndarray, n: int, nodes: np.ndarray, weights: np.ndarra
 
 
 @cache
+def _leggauss400():
+    """400-point Gauss-Legendre nodes and weights on [-1, 1] (computed once per process)."""
+    nodes, weights = np.polynomial.legendre.leggauss(400)
+    nodes.setflags(write=False)
+    weights.setflags(write=False)
+    return nodes, weights
+
+
+@cache
 def d2(n: int) -> float:
     """Mean of the range of ``n`` standard normal values (the constant d2).
 
@@ -135,10 +144,10 @@ def d3(n: int) -> float:
     0.852502
     """
     n = _check_size(n)
-    x_nodes, x_weights = np.polynomial.legendre.leggauss(400)
-    x_nodes = 10.0 * x_nodes
-    x_weights = 10.0 * x_weights
-    r_nodes, r_weights = np.polynomial.legendre.leggauss(400)
+    nodes, weights = _leggauss400()  # one eigenvalue problem, not two (same nodes)
+    x_nodes = 10.0 * nodes
+    x_weights = 10.0 * weights
+    r_nodes, r_weights = nodes, weights
     r_nodes = 8.0 * (r_nodes + 1.0)
     r_weights = 8.0 * r_weights
     tail = _range_cdf_tail(r_nodes, n, x_nodes, x_weights)

@@ -8,8 +8,15 @@ the control limits on either chart); (4) remove them all, logging one entry per 
 What the loop guarantees, and what it does not:
 
 * When ``stopped == "stable"``, no kept subgroup signals under the removal rules against the
-  final limits (the loop ends only then). Each automatically removed subgroup signalled against
-  the limits of the round in which it was removed.
+  final removal limits (the loop ends only then). Each automatically removed subgroup signalled
+  against the removal limits of the round in which it was removed.
+* Removal limits (``studykit.stats.chance``): on a variables chart of up to 25 points they are
+  the 3-sigma control limits. On a longer chart they are widened so that a stable normal
+  process crosses them anywhere on the chart with the probability the 3-sigma limits give 25
+  points (6.5 % on the location chart): the per-point probability is Sidak-adjusted for the
+  number of points (Chakraborti, Human and Graham 2009, sections 2-3, from memory). Points
+  between the control limits and the removal limits stay; ``chance`` says how many points lie
+  beyond the control limits and how many a stable process of that length gives by chance.
 * Removing points narrows the limits, so a later round can flag subgroups that were inside the
   trial limits; the number of signals is *not* monotone. The round limit (default 10) stops
   runaway trimming, and heavy removal is reported.
@@ -37,11 +44,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from studykit.errors import AnalysisError, HeavyRemovalWarning, StudyInputError
+from studykit.stats.chance import SeriesChance, series_chance
 from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
     DISPERSION_RULES,
     ChartSeries,
     ControlChart,
+    SubgroupCodes,
     _plain_label,
     control_chart,
     evaluate_series,
@@ -185,7 +194,22 @@ class Phase1Result(Result):
         Values (attribute charts: subgroups) taken out by recorded exclusions and by the rules.
     mr_removal : str
         Which reading a moving-range signal removed: ``"later"`` (default) or ``"both"``.
+    chance : dict
+        Variables charts: ``{"location": SeriesChance, "dispersion": SeriesChance}`` of the
+        final chart: its removal limits, the points beyond its 3-sigma limits and how many a
+        stable process of that many points gives by chance (see ``studykit.stats.chance``).
+    kept_mask : ndarray of bool or None
+        One entry per value given: True where the value is kept.
     """
+
+    @property
+    def unexplained_beyond_limits(self) -> bool:
+        """A point of the final chart is beyond its removal limits, or the chart has more
+        points beyond its 3-sigma limits than a stable process gives by chance. Without a
+        chance record (attribute charts), any point beyond the limits."""
+        if not self.chance:
+            return any(s.rule == "beyond_limits" for s in self.chart.signals)
+        return any(c.unexplained for c in self.chance.values())
 
     chart: ControlChart
     trial_chart: ControlChart
@@ -203,6 +227,8 @@ class Phase1Result(Result):
     n_removed_auto: int = 0
     raw_chart: ControlChart | None = None
     mr_removal: str = "later"
+    chance: dict = dataclasses.field(default_factory=dict)
+    kept_mask: np.ndarray | None = None
 
     @property
     def auto_removed_share(self) -> float:
@@ -242,6 +268,7 @@ class Phase1Result(Result):
             "n_removed_manual": int(self.n_removed_manual),
             "n_removed_auto": int(self.n_removed_auto),
             "mr_removal": self.mr_removal,
+            "chance_signals": {k: c.to_dict() for k, c in self.chance.items()},
         }
 
 
@@ -249,7 +276,8 @@ def _fmt(v) -> str:
     return f"{float(v):.6g}"
 
 
-def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None) -> str:
+def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None,
+              chance: SeriesChance | None = None) -> str:
     what = _NAMES.get(series.name, series.name)
     if scale is not None and scale.name != "raw":
         what = f"{what} ({scale.label})"
@@ -259,27 +287,43 @@ def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None) -> st
             side = f"above the upper control limit {_fmt(series.ucl[pos])}"
         else:
             side = f"below the lower control limit {_fmt(series.lcl[pos])}"
-        return f"{what} {_fmt(value)} lies {side} of round {rnd}"
+        text = f"{what} {_fmt(value)} lies {side} of round {rnd}"
+        if chance is not None and chance.adjusted:
+            limit = chance.upper[pos] if value > series.ucl[pos] else chance.lower[pos]
+            text += (f" and beyond the removal limit {_fmt(limit)}, which a stable process "
+                     f"crosses anywhere on this chart of {chance.points} points with "
+                     f"probability {chance.fap:.1%}")
+        return text
     return f"{what} {_fmt(value)} completes a pattern in round {rnd}: {signal.text}"
 
 
-def _flagged(series: ChartSeries, rules, labels) -> dict[int, list]:
+def _flagged(series: ChartSeries, rules, labels, chance: SeriesChance | None = None
+             ) -> dict[int, list]:
     found: dict[int, list] = {}
     if not np.any(np.asarray(series.sigma) > 0):
         return found  # a chart that is its centre line (no defective at all): nothing signals
+    adjusted = chance is not None and chance.adjusted
     sigs = evaluate_series(
         series.points,
         center=series.center,
         sigma=series.sigma,
-        lcl=series.lcl,
-        ucl=series.ucl,
+        lcl=chance.lower if adjusted else series.lcl,
+        ucl=chance.upper if adjusted else series.ucl,
         rules=rules,
-        labels=list(labels),
+        labels=labels,
     )
     for s in sigs:
         for t in s.triggers:
             found.setdefault(int(t), []).append(s)
     return found
+
+
+def _chances(chart: ControlChart, attribute: bool) -> tuple:
+    """Removal limits and chance-signal counts of the location and dispersion series."""
+    if attribute:
+        return None, None
+    return (series_chance(chart.location, chart.sizes),
+            None if chart.dispersion is None else series_chance(chart.dispersion, chart.sizes))
 
 
 def phase1(
@@ -378,10 +422,10 @@ def phase1(
     if subgroups is None:
         sub = np.arange(1, n_items + 1)
     else:
-        sub = np.asarray(subgroups)
-        if sub.shape[0] != n_items:
+        sub = subgroups if isinstance(subgroups, SubgroupCodes) else np.asarray(subgroups)
+        if len(sub) != n_items:
             raise StudyInputError(
-                f"`subgroups` has {sub.shape[0]} labels but `values` has {n_items} entries; give "
+                f"`subgroups` has {len(sub)} labels but `values` has {n_items} entries; give "
                 "one label per value."
             )
     size_arr = None
@@ -389,17 +433,22 @@ def phase1(
         size_arr = np.asarray(sizes, dtype=float).ravel()
         if size_arr.size == 1:
             size_arr = np.full(n_items, size_arr[0])
-    label_list = [_plain_label(v) for v in sub.tolist()]
-    known = set(label_list)
-    # values (attribute data with sizes: items) per label, counted once; a removal looks its
-    # count up instead of scanning every label (quadratic at 10^6 individuals)
-    counts = _label_counts(label_list, size_arr, attribute)
+    # subgroups as integer codes (labels read only for what is logged or shown)
+    groups = SubgroupCodes.of(sub)
+    names = groups.names
+    n_groups = names.shape[0]
+    if attribute and size_arr is not None:
+        # items per subgroup, summed in data order
+        counts = np.bincount(groups.codes, weights=size_arr, minlength=n_groups)
+    else:
+        counts = np.bincount(groups.codes, minlength=n_groups)
 
     removals: list[Removal] = []
-    removed: set = set()
+    removed = np.zeros(n_groups, dtype=bool)
     for label, entry in (exclude or {}).items():
         key = _plain_label(label)
-        if key not in known:
+        code = _find_code(names, key)
+        if code is None:
             raise StudyInputError(
                 f"`exclude` names subgroup {label!r}, which is not in the data; check the label "
                 "(labels are compared exactly, text and numbers differ)."
@@ -416,20 +465,20 @@ def phase1(
             raise StudyInputError(
                 f"`exclude[{label!r}]` has no reason; say why the subgroup is left out."
             )
-        removed.add(key)
+        removed[code] = True
         removals.append(
             Removal(
-                key, "manual", None, 0, reason, who, counts[key]
+                key, "manual", None, 0, reason, who, int(counts[code])
             )
         )
 
     scales: list = []
 
     def build(kind_now):
-        mask = np.array([lab not in removed for lab in label_list], dtype=bool)
+        mask = ~removed[groups.codes]
         if not mask.any():
             raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
-        xs, extra = x[mask], {}
+        xs, extra = (x if mask.all() else x[mask]), {}
         if rescale is not None and not attribute:
             sc = rescale(xs)
             scales.append(sc)
@@ -440,7 +489,7 @@ def phase1(
                 extra["sigma"] = sc.sigma
         return control_chart(
             xs,
-            sub[mask],
+            groups.select(mask),
             kind=kind_now,
             sizes=None if size_arr is None else size_arr[mask],
             rules=rules,
@@ -453,12 +502,15 @@ def phase1(
     kind_fixed = chart.kind
     iterations = 0
     stopped = "stable"
+    chances_of = None
     while True:
-        loc_flags = _flagged(chart.location, removal_rules, chart.labels)
+        loc_chance, disp_chance = _chances(chart, attribute)
+        chances_of = (chart, loc_chance, disp_chance)
+        loc_flags = _flagged(chart.location, removal_rules, chart.labels, loc_chance)
         disp_flags = (
             {}
             if chart.dispersion is None
-            else _flagged(chart.dispersion, removal_dispersion_rules, chart.labels)
+            else _flagged(chart.dispersion, removal_dispersion_rules, chart.labels, disp_chance)
         )
         if chart.kind == "imr" and disp_flags:
             kept = {}
@@ -483,12 +535,15 @@ def phase1(
             stopped = "too_few"
             break
         iterations += 1
+        # chart position -> subgroup code (attribute charts plot one point per count)
+        kept_codes = (groups.codes[np.flatnonzero(~removed[groups.codes])] if attribute
+                      else np.flatnonzero(~removed))
         for pos in positions:
             label = chart.labels[pos]
             parts, rule_ids, where = [], [], []
-            for name, flags, series in (
-                ("location", loc_flags, chart.location),
-                ("dispersion", disp_flags, chart.dispersion),
+            for name, flags, series, chance in (
+                ("location", loc_flags, chart.location, loc_chance),
+                ("dispersion", disp_flags, chart.dispersion, disp_chance),
             ):
                 for s in flags.get(pos, []):
                     if s.rule not in rule_ids:
@@ -496,7 +551,8 @@ def phase1(
                     if name not in where:
                         where.append(name)
                     parts.append(
-                        _describe(series, pos, s, iterations, scales[-1] if scales else None)
+                        _describe(series, pos, s, iterations, scales[-1] if scales else None,
+                                  chance)
                         + _mr_note(name, chart.kind, mr_removal, "later")
                     )
             for s in earlier.get(pos, []):
@@ -506,10 +562,10 @@ def phase1(
                     where.append("dispersion")
                 parts.append(
                     _describe(chart.dispersion, pos + 1, s, iterations,
-                              scales[-1] if scales else None)
+                              scales[-1] if scales else None, disp_chance)
                     + _mr_note("dispersion", chart.kind, mr_removal, "earlier")
                 )
-            removed.add(label)
+            code = kept_codes[pos]
             removals.append(
                 Removal(
                     label,
@@ -518,9 +574,13 @@ def phase1(
                     iterations,
                     "; ".join(dict.fromkeys(parts)),
                     "auto",
-                    counts[label],
+                    int(counts[code]),
                 )
             )
+        removed[kept_codes[positions]] = True
+        del loc_flags, disp_flags, loc_chance, disp_chance
+        chances_of = None
+        chart = None  # the next round's chart replaces this one (one chart in memory)
         chart = build(kind_fixed)
 
     if chart.reason != trial.reason and kind == "auto":
@@ -550,11 +610,12 @@ def phase1(
         )
     elif stopped == "too_few":
         notes.append("removing further signalling subgroups would leave fewer than 3 subgroups.")
+    kept_mask = ~removed[groups.codes]
     raw_chart = None
     if scales and scales[-1].name != "raw":
-        mask = np.array([lab not in removed for lab in label_list], dtype=bool)
+        mask = kept_mask
         raw_chart = control_chart(
-            x[mask], sub[mask], kind=kind_fixed, rules=rules, dispersion_rules=dispersion_rules,
+            x[mask], groups.select(mask), kind=kind_fixed, rules=rules, dispersion_rules=dispersion_rules,
             **chart_options,
         )
         if raw_chart.reason != trial.reason and kind == "auto":
@@ -581,7 +642,39 @@ def phase1(
         n_removed_auto=int(n_auto),
         raw_chart=raw_chart,
         mr_removal=mr_removal,
+        chance=_final_chances(chart, attribute, chances_of),
+        kept_mask=kept_mask,
     )
+
+
+def _final_chances(chart: ControlChart, attribute: bool, last=None) -> dict:
+    if last is not None and last[0] is chart:  # the loop's last chart: computed already
+        loc, disp = last[1], last[2]
+    else:
+        loc, disp = _chances(chart, attribute)
+    out = {}
+    if loc is not None:
+        out["location"] = loc
+    if disp is not None:
+        out["dispersion"] = disp
+    return out
+
+
+def _find_code(names: np.ndarray, key):
+    """The code of the subgroup labelled ``key`` (compared exactly: text and numbers differ),
+    or None."""
+    kind = names.dtype.kind
+    if (kind in "US" and isinstance(key, str)) or (
+        kind in "iu" and isinstance(key, int) and not isinstance(key, bool)
+    ):
+        hit = np.flatnonzero(names == key)
+        return int(hit[0]) if hit.size else None
+    if kind in "USiu":
+        return None
+    for i, v in enumerate(names.tolist()):
+        if _plain_label(v) == key and type(_plain_label(v)) is type(key):
+            return i
+    return None
 
 
 def _mr_note(chart_name: str, kind: str, mr_removal: str, which: str) -> str:
@@ -591,19 +684,6 @@ def _mr_note(chart_name: str, kind: str, mr_removal: str, which: str) -> str:
     if mr_removal == "later":
         return " (the later reading of the pair is removed: --mr-removal later)"
     return (f" (this is the {which} reading of the pair; both are removed: --mr-removal both)")
-
-
-def _label_counts(label_list, size_arr, attribute) -> dict:
-    """Label -> number of values, or for attribute data with sizes the summed size (added in
-    data order, as one label's sizes were summed before)."""
-    counts: dict = {}
-    if attribute and size_arr is not None:
-        for lab, size in zip(label_list, size_arr, strict=False):
-            counts[lab] = counts.get(lab, 0) + size
-        return {lab: int(v) for lab, v in counts.items()}
-    for lab in label_list:
-        counts[lab] = counts.get(lab, 0) + 1
-    return counts
 
 
 def _text(rules) -> str:

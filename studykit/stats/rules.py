@@ -720,25 +720,34 @@ def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
 
 def _where(positions: list[int], labels) -> str:
     """'point 4', 'points 4, 6', 'points 12-20, 22' (numbers from 1, or the labels)."""
-    if labels is None:
-        names = [str(i + 1) for i in positions]
-        dash = "-"
-    else:
-        names = [str(labels[i]) for i in positions]
-        dash = " to "
-    if len(positions) == 1:
-        return f"point {names[0]}"
-    parts = []
+    # runs of consecutive positions first: a run of 3 or more names only its two ends, so
+    # only those labels are read
+    runs = []
     i = 0
     while i < len(positions):
         j = i
         while j + 1 < len(positions) and positions[j + 1] == positions[j] + 1:
             j += 1
-        if j - i >= 2:
-            parts.append(f"{names[i]}{dash}{names[j]}")
-        else:
-            parts.extend(names[i : j + 1])
+        runs.append((i, j))
         i = j + 1
+    needed = sorted({k for i, j in runs for k in ((i, j) if j - i >= 2 else range(i, j + 1))})
+    if labels is None:
+        got = {k: str(positions[k] + 1) for k in needed}
+        dash = "-"
+    else:
+        arr = getattr(labels, "array", None)  # studykit.stats.charts.Labels: read in one step
+        at = [positions[k] for k in needed]
+        vals = arr[at].tolist() if arr is not None else [labels[p] for p in at]
+        got = {k: str(v) for k, v in zip(needed, vals, strict=True)}
+        dash = " to "
+    if len(positions) == 1:
+        return f"point {got[0]}"
+    parts = []
+    for i, j in runs:
+        if j - i >= 2:
+            parts.append(f"{got[i]}{dash}{got[j]}")
+        else:
+            parts.extend(got[k] for k in range(i, j + 1))
     return "points " + ", ".join(parts)
 
 
