@@ -41,9 +41,10 @@ REFERENCE_CSV = "gauge_flange_reference.csv"
 SPECS_CSV = "specs.csv"
 PULL_SPECS_CSV = "specs_pull_off.csv"
 POSITION_CSV = "mounting_hole_position.csv"
+CAVITIES_CSV = "impeller_cavities.csv"
 STUDY_FILE = "pump_housing_pilot.study"
 DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
-              REFERENCE_CSV, POSITION_CSV)
+              REFERENCE_CSV, POSITION_CSV, CAVITIES_CSV)
 #: the short gauge study has its own seed, so the other files stay as they were before it
 REFERENCE_SEED = SEED + 17
 REFERENCE_VALUE = 8.0004
@@ -66,6 +67,10 @@ CHARACTERISTICS = [
                                "per half hour"),
     Characteristic("leak_test_defectives", chart="p", size_column="lot_size", source=LOTS_CSV,
                    description="End-of-line leak test: rejected housings per lot"),
+    Characteristic("impeller_hub_bore", unit="mm", lsl=5.970, usl=6.030, target=6.000,
+                   source=CAVITIES_CSV,
+                   description="Impeller hub bore, moulded in a 4-cavity tool; cavity 3 runs "
+                               "off-centre (invented)"),
 ]
 CRITERIA = {c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
             for c in CHARACTERISTICS if not c.is_attribute}
@@ -165,6 +170,7 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
     files[POSITION_CSV] = position_file()
+    files[CAVITIES_CSV] = cavities_file()
     return files
 
 
@@ -189,6 +195,28 @@ def position_file() -> bytes:
     return _rows_to_csv(["part", "hole_dx [mm]", "hole_dy [mm]"], rows)
 
 
+def cavities_file() -> bytes:
+    """Impeller hub bore from a 4-cavity injection mould (invented): 25 subgroups of 3
+    consecutive shots, each shot one part per cavity (300 parts).
+
+    Its own generator (seed SEED + 2), so the other files stay as they were. Built in: cavity 3
+    sits 0.012 mm above the others (an off-centre core pin); every cavity has the same spread
+    (0.004 mm) and a small shot-to-shot variation common to all four.
+    """
+    g = np.random.default_rng(SEED + 2)
+    offsets = {"1": 0.0, "2": 0.001, "3": 0.012, "4": -0.001}
+    rows = []
+    for k in range(1, 26):
+        t0 = START + timedelta(days=1, minutes=20 * (k - 1))
+        for shot in range(3):
+            common = 6.000 + g.normal(0, 0.0015)
+            stamp = (t0 + timedelta(seconds=40 * shot)).strftime("%Y-%m-%d %H:%M:%S")
+            for cav, off in offsets.items():
+                v = common + off + g.normal(0, 0.004)
+                rows.append([str(k), stamp, cav, f"{v:.4f}"])
+    return _rows_to_csv(["subgroup", "timestamp", "cavity", "impeller_hub_bore [mm]"], rows)
+
+
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     """The demo study file: three data files, specs, criteria, decisions with reasons, one
     comment, and the gauge R&R result beside the characteristic it qualifies."""
@@ -198,7 +226,8 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     sf = StudyFile.create(path, data=files[PILOT_CSV], filename=PILOT_CSV, title=TITLE,
                           part=PART, supplier=SUPPLIER, characteristics=CHARACTERISTICS,
                           criteria=CRITERIA, who="demo script", overwrite=True,
-                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV])])
+                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV]),
+                                       (CAVITIES_CSV, files[CAVITIES_CSV])])
     for d in DECISIONS:
         sf.append_decision(d)
     sf.add_comment(**COMMENT)

@@ -367,6 +367,8 @@ class CharacteristicResult:
     #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
     measurement_error: dict | None = None
     kept_signals: tuple = ()
+    #: several streams (cavities, spindles...): studykit.stream_analysis.StreamsResult
+    streams: object = None
 
     @property
     def chart(self) -> ControlChart:
@@ -596,6 +598,8 @@ class CharacteristicResult:
             out.update(ac.to_dict())
         if self.measurement_error is not None:
             out["measurement_error"] = self.measurement_error
+        if self.streams is not None:  # only with a stream column (key absent otherwise)
+            out["streams"] = self.streams.to_dict()
         return out
 
 
@@ -1112,6 +1116,13 @@ def analyze_characteristic(
     ('imr', 10, 50.81)
     """
     options = options or AnalysisOptions()
+    streams = getattr(data, "streams", None)
+    if streams is not None and len(set(np.asarray(streams).tolist())) > 1:
+        from studykit.stream_analysis import analyze_streams  # the whole and each stream
+
+        return analyze_streams(data, spec, analyze=analyze_characteristic, criteria=criteria,
+                               sizes=sizes, exclusions=exclusions, options=options, gauge=gauge,
+                               kept=kept)
     warn: list[str] = []
     name = data.name
     kind = options.chart or (spec.chart if spec is not None else "auto")

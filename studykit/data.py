@@ -37,7 +37,7 @@ import stat
 import zipfile
 import zlib
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 
@@ -97,6 +97,13 @@ _VALUE_NAMES = {
     "wert", "messwert", "istwert", "ergebnis",
 }
 _UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
+#: header names of a stream column (cavity, spindle, nest, fixture, head: parallel streams of
+#: one process); see :func:`_attach_streams`
+_STREAM_NAMES = {
+    "stream", "streams", "cavity", "cavity number", "mould cavity", "mold cavity", "nest",
+    "spindle", "fixture", "head", "station",
+    "kavität", "kavitaet", "formnest", "werkzeugnest", "spindel", "vorrichtung", "kopf",
+}
 _TRAILING_TOKENS = {"no", "nr", "number", "num", "id", "nummer", "index"}
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")
@@ -239,6 +246,7 @@ class CharacteristicData:
     is_integer: bool | None = None
     subgroup_labels: np.ndarray | None = None
     subgroup_counts: np.ndarray | None = None
+    streams: np.ndarray | None = None
 
     def __post_init__(self):
         put = object.__setattr__
@@ -252,7 +260,9 @@ class CharacteristicData:
             put(self, "subgroups", np.asarray(self.subgroups).astype(str))
         if self.rows is None:
             put(self, "rows", np.arange(2, n + 2, dtype=np.int64))
-        for key in ("subgroups", "rows", "times", "notes"):
+        if self.streams is not None:
+            put(self, "streams", np.asarray(self.streams).astype(str))
+        for key in ("subgroups", "rows", "times", "notes", "streams"):
             a = getattr(self, key)
             if a is not None and len(a) != n:
                 raise StudyInputError(
@@ -272,7 +282,7 @@ class CharacteristicData:
             put(self, "subgroup_labels", np.asarray(uniq).astype(str))
             put(self, "subgroup_counts", counts.astype(np.int64))
         for key in ("values", "subgroups", "times", "notes", "rows", "subgroup_labels",
-                    "subgroup_counts"):
+                    "subgroup_counts", "streams"):
             put(self, key, _frozen_array(getattr(self, key)))
 
     @cached_property
@@ -504,6 +514,7 @@ def read_measurements(
     note_column: str | None = None,
     encoding: str | None = None,
     max_bytes: int | None = None,
+    stream_column: str | None = None,
 ) -> Measurements:
     """Read a CSV or XLSX measurement file.
 
@@ -524,6 +535,10 @@ def read_measurements(
         Columns of a long table (implies ``layout='long'``).
     time_column, note_column : str, optional
         Columns with the time and a remark of each row; detected by name when omitted.
+    stream_column : str, optional
+        Column naming the stream of each row (mould cavity, spindle, nest, fixture, head);
+        detected by name when omitted ('Cavity', 'Nest', 'Spindle', 'Stream', 'Kavität'...).
+        Each characteristic then carries ``streams``, one label per value.
     encoding : str, optional
         Text encoding of a CSV file; detected when omitted.
     max_bytes : int, optional
@@ -585,7 +600,7 @@ def read_measurements(
     return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
                  subgroup_size=subgroup_size, characteristic_column=characteristic_column,
                  value_column=value_column, time_column=time_column, note_column=note_column,
-                 encoding=encoding)
+                 encoding=encoding, stream_column=stream_column)
 
 
 def read_measurements_bytes(data: bytes, filename: str, **options) -> Measurements:
@@ -1647,7 +1662,7 @@ def _detect(header, names_set) -> int | None:
 
 def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
           characteristic_column=None, value_column=None, time_column=None, note_column=None,
-          encoding=None) -> Measurements:
+          encoding=None, stream_column=None) -> Measurements:
     if layout not in ("auto", "wide", "long"):
         raise StudyInputError(
             f"`layout` must be 'auto', 'wide' or 'long', not '{layout}'.", value=layout
@@ -1699,13 +1714,14 @@ def _read(src: _Source, *, sheet=None, layout="auto", subgroup_column=None, subg
                            subgroup_column=subgroup_column, subgroup_size=subgroup_size,
                            characteristic_column=characteristic_column,
                            value_column=value_column, time_column=time_column,
-                           note_column=note_column)
+                           note_column=note_column, stream_column=stream_column)
     finally:
         table.close()
 
 
 def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgroup_size,
-                characteristic_column, value_column, time_column, note_column):
+                characteristic_column, value_column, time_column, note_column,
+                stream_column=None):
     header = table.header
     hrow = table.header_row
 
@@ -1804,6 +1820,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         role[sg_idx] = "subgroup"
     t_idx = _optional_role(header, role, time_column, _TIME_NAMES, "time", find)
     n_idx = _optional_role(header, role, note_column, _NOTE_NAMES, "note", find)
+    st_idx = _optional_role(header, role, stream_column, _STREAM_NAMES, "stream", find)
 
     if sg_idx is not None:
         subgroup_source = "column"
@@ -1836,6 +1853,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
             _check_unsaved_formulas(src, table, damage_known=True)
         raise
     characteristics, n_rows = result
+    if st_idx is not None:
+        characteristics = _attach_streams(src, table, st_idx, characteristics, notes,
+                                          given=stream_column is not None)
     _check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     if src.kind == "xlsx" and layout == "wide":
         # the first empty cell of each value column is where an unsaved formula would show
@@ -1883,6 +1903,41 @@ def _optional_role(header, role, given, names_set, what, find):
             return None
     role[j] = what
     return j
+
+
+def _attach_streams(src, table, j, characteristics, notes, *, given):
+    """Give each characteristic the stream label of each of its values (from column ``j``).
+
+    The stream column has its own role, so it is never read as a measurement; its labels are
+    read in a second pass and matched to the values by file row. A value without a label is
+    refused with its row.
+    """
+    name = table.header[j]
+    rows_acc, lab_acc = _Acc(), _Acc()
+    for rows, cols in table.open_chunks():
+        rows_acc.add(rows)
+        cells = cols[j] if j < len(cols) else np.full(len(rows), "", dtype=object)
+        lab_acc.add(_labels(cells, table.text_cells).astype(str))
+    all_rows, labels = rows_acc.result(np.int64), lab_acc.result()
+    out = []
+    for c in characteristics:
+        at = np.searchsorted(all_rows, c.rows)
+        lab = labels[np.clip(at, 0, max(labels.size - 1, 0))]
+        lab = np.char.strip(lab.astype(str))
+        bad = np.flatnonzero((lab == "") & ~np.isnan(c.values))
+        if bad.size:
+            i = int(bad[0])
+            raise DataFileError(
+                f"this row has a value of '{c.name}' but no stream label in column '{name}' "
+                f"(rows without a label: {_fmt_rows(c.rows[bad])}). Fill in the stream of each "
+                "row, or rename the column if it does not name streams.",
+                file=src.name, row=int(c.rows[i]), column=name, value="",
+            )
+        out.append(replace(c, streams=lab))
+    k = len(dict.fromkeys(labels[labels != ""].tolist()))
+    notes.append(f"streams from column '{name}' ({'given' if given else 'detected'}): {k} "
+                 "stream(s)")
+    return out
 
 
 def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
