@@ -4,6 +4,7 @@ the stream column of the reader, and the analysis of a streamed characteristic."
 from __future__ import annotations
 
 import json
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -221,3 +222,27 @@ def test_cli_stream_column_json():
     assert st["worst"] == "3" and st["location_test"]["differ"]
     assert st["spread_test"]["test"] == "brown_forsythe"
     assert len(st["group_chart"]["points"]) == 25
+
+
+def test_report_section_and_verify_cover_the_streams(tmp_path):
+    from studykit.report.pdf import build_report, read_evidence
+    from studykit.report.verify import compare_numbers, verify_report
+
+    pdf = tmp_path / "demo.pdf"
+    build_report(DEMO / "pump_housing_pilot.study", pdf)
+    ev = read_evidence(pdf.read_bytes())
+    streams = ev["results"]["impeller_hub_bore"]["streams"]
+    assert streams["worst"] == "3"
+    res = verify_report(pdf, study=DEMO / "pump_housing_pilot.study", allow_unsigned=True)
+    check = next(c for c in res.checks if c.item == "numbers of impeller_hub_bore")
+    assert check.status == "pass"
+    # a changed stream number is a difference verify reports
+    changed = json.loads(json.dumps(ev["results"]["impeller_hub_bore"]))
+    changed["streams"]["per_stream"][2]["mean"] += 1e-6
+    _, diffs = compare_numbers(changed, ev["results"]["impeller_hub_bore"])
+    assert diffs and "per_stream" in diffs[0]
+    if shutil.which("pdftotext") is None:
+        pytest.skip("pdftotext (poppler-utils) is not installed: the page text is not checked")
+    text = subprocess.run(["pdftotext", str(pdf), "-"], capture_output=True, text=True).stdout
+    assert "Streams (4)" in text  # the section is on a page
+    assert "Worst stream: 3" in text

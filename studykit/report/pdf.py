@@ -883,6 +883,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))
         story.append(_interval_drawing(res, width, st))
+    from studykit.report.streams import streams_block  # several streams (cavities...)
+
+    streams_block(story, res, st, width, table=_table, image=_image, esc=_esc)
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
         for f in res.findings:
