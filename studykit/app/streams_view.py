@@ -41,7 +41,8 @@ def streams_html(result) -> str:
             f"<tr class='sk-stream-row'><td>{esc(name)}{worst}</td><td class='num'>{r.n}</td>"
             f"<td class='num'>{fmt(r.mean, 6)}</td><td class='num'>{fmt(r.overall_sigma, 4)}</td>"
             f"<td class='num'>{fmt(est, 2)}</td><td class='num'>{fmt(lower, 2)}</td>"
-            f"<td>{verdict_chip(None if r.verdict is None else r.verdict.meets, text=word, kind=kind)}"
+            f"<td title=\"{esc(r.verdict.text if r.verdict is not None else '')}\">"
+            f"{verdict_chip(None if r.verdict is None else r.verdict.meets, text=word, kind=kind)}"
             "</td></tr>")
     tests = "".join(
         f"<div class='sk-msg sk-msg-{'warning' if t.differ else 'info'}'>{esc(t.text)}</div>"
@@ -49,7 +50,7 @@ def streams_html(result) -> str:
     return ("<div class='sk-panel-title'>Streams</div>"
             "<div class='sk-muted'>Each stream on its own (chart, model, capability, verdict); "
             "the verdict above is the process as a whole.</div>"
-            "<table class='sk-table sk-streams'><thead><tr><th>Stream</th><th>n</th>"
+            "<table class='sk-table sk-stream-table'><thead><tr><th>Stream</th><th>n</th>"
             f"<th>Mean</th><th>Overall sigma</th><th>{esc(index)}</th><th>Lower bound</th>"
             "<th>Verdict</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>" + tests
             + (f"<div><b>Worst stream: {esc(st.worst)}</b> (lowest judged index).</div>"
