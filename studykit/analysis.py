@@ -369,6 +369,8 @@ class CharacteristicResult:
     kept_signals: tuple = ()
     #: several streams (cavities, spindles...): studykit.stream_analysis.StreamsResult
     streams: object = None
+    #: ISO 22514-2 time-dependent model: studykit.stats.timedep.TimeModel
+    time_model: object = None
 
     @property
     def chart(self) -> ControlChart:
@@ -600,6 +602,8 @@ class CharacteristicResult:
             out["measurement_error"] = self.measurement_error
         if self.streams is not None:  # only with a stream column (key absent otherwise)
             out["streams"] = self.streams.to_dict()
+        if self.time_model is not None:
+            out["time_model"] = self.time_model.to_dict()
         return out
 
 
@@ -1391,8 +1395,13 @@ def analyze_characteristic(
         except StudyInputError:
             plan = None
     result_kw.pop("findings", None)
+    from studykit.time_model import time_model_for  # ISO 22514-2 class of the readings used
+
+    time_model, time_findings = time_model_for(x, kept_labels, spec)
+    findings.extend(time_findings)
     return CharacteristicResult(
         **result_kw,
+        time_model=time_model,
         ranking=ranking,
         model=choice,
         capability=cap,
