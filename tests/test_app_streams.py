@@ -33,14 +33,25 @@ def test_capability_step_shows_the_streams_panel(wb):
     cap = wb.step("capability")
     cap.ws.picker.value = STREAMED
     res = cap.ws.session.result(STREAMED)
-    html = cap.streams.children[0].value
+    assert "Class A2" in cap.streams.children[0].value  # ISO 22514-2 class of the whole
+    html = cap.streams.children[1].value
     assert "Streams" in html and html.count("sk-stream-row") == 4
     assert f"Worst stream: {res.streams.worst}" in html
     assert "one-way ANOVA" in html and "Brown-Forsythe" in html
-    img = cap.streams.children[1]
+    img = cap.streams.children[2]
     assert isinstance(img, widgets.Image) and img.value[:4] == b"\x89PNG"
-    cap.ws.picker.value = "flange_thickness"  # no stream column: no panel
-    assert cap.streams.children == ()
+    cap.ws.picker.value = "flange_thickness"  # no stream column: only the class
+    assert len(cap.streams.children) == 1
+    assert "Class A1" in cap.streams.children[0].value
+
+
+def test_capability_step_shows_the_trend_class(wb):
+    cap = wb.step("capability")
+    cap.ws.picker.value = "shaft_seat_diameter"  # invented tool wear: class C3
+    res = cap.ws.session.result("shaft_seat_diameter")
+    html = cap.streams.children[0].value
+    assert "Class C3" in html and "location systematic" in html
+    assert f"ppk {res.time_model.indices['ppk']:.2f}" in html.lower()
 
 
 def test_overview_lists_streams_under_their_characteristic(wb):

@@ -64,7 +64,27 @@ def test_unbalanced_n0():
     assert set(means) == set(g)
 
 
+def test_travel_cdf_against_quad_and_monte_carlo():
+    from scipy.integrate import quad
+
+    from studykit.stats.timedep import travel_cdf
+
+    a, b, sd = 1.0, 1.6, 0.1
+    for x in (0.8, 1.05, 1.3, 1.7, 1.95):
+        # the location uniform on [a, b] plus normal noise: F(x) = mean over m of Phi((x - m)/sd)
+        # (scipy.integrate.quad as the reference)
+        ref = quad(lambda m, x=x: stats.norm.cdf((x - m) / sd), a, b)[0] / (b - a)
+        assert float(travel_cdf(x, a, b, sd)) == pytest.approx(ref, abs=1e-12)
+    rng = np.random.default_rng(4)  # seeded Monte Carlo, 10^6 draws: standard error <= 5e-4
+    draws = rng.uniform(a, b, 1_000_000) + rng.normal(0, sd, 1_000_000)
+    assert float(travel_cdf(1.7, a, b, sd)) == pytest.approx(np.mean(draws <= 1.7), abs=2.5e-3)
+
+
 def test_trend_capability_by_hand():
+    from scipy.optimize import brentq
+
+    from studykit.stats.timedep import travel_cdf
+
     pos = np.repeat(np.arange(1, 11), 4).astype(float)
     rng = np.random.default_rng(2)
     x = 10.0 + 0.05 * pos + rng.normal(0, 0.02, pos.size)
@@ -75,8 +95,14 @@ def test_trend_capability_by_hand():
     lo, hi = intercept + slope * 1, intercept + slope * 10
     assert d["slope"] == pytest.approx(slope) and d["sigma_r"] == pytest.approx(sr)
     assert d["mu_low"] == pytest.approx(lo) and d["mu_high"] == pytest.approx(hi)
-    assert d["pp"] == pytest.approx(1.0 / (hi - lo + 6 * sr))
-    assert d["ppk"] == pytest.approx(min((10.8 - hi) / (3 * sr), (lo - 9.8) / (3 * sr)))
+    q = [brentq(lambda v, p=p: float(travel_cdf(v, lo, hi, sr)) - p, 9, 11, xtol=1e-14)
+         for p in (0.00135, 0.99865)]
+    mid = (lo + hi) / 2
+    # ISO 22514-2 percentile formulas on the 0.135 %, 50 %, 99.865 % points
+    assert d["pp"] == pytest.approx(1.0 / (q[1] - q[0]), rel=1e-9)
+    assert d["ppk"] == pytest.approx(min((10.8 - mid) / (q[1] - mid), (mid - 9.8) / (mid - q[0])),
+                                     rel=1e-9)
+    assert d["pp"] >= d["ppk"]
 
 
 def _process(kind, seed=0, k=30, n=5):

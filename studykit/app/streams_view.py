@@ -13,7 +13,28 @@ import ipywidgets as widgets
 from studykit.app.overview import fmt, verdict_chip, verdict_kind
 from studykit.app.widgets import esc, html_box
 
-__all__ = ["streams_panel", "stream_overview_rows", "stream_cells"]
+__all__ = ["streams_panel", "stream_overview_rows", "stream_cells", "time_model_html"]
+
+
+def time_model_html(result) -> str:
+    """The ISO 22514-2 class of the characteristic, its reason and the class's indices."""
+    tm = getattr(result, "time_model", None)
+    if tm is None:
+        return ""
+    if tm.cls is None:
+        return ("<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
+                f"<div class='sk-muted'>Not classified: {esc(tm.reason)}.</div>")
+    d = tm.to_dict()
+    names = {"pp": "Pp", "ppk": "Ppk", "ppu": "PPU", "ppl": "PPL"}
+    idx = ", ".join(f"{names[k]} {fmt(v, 2)}" for k, v in d["indices"].items() if k in names)
+    if d["indices"].get("sigma") is not None:
+        idx += f" (sigma_total {d['indices']['sigma']:.4g})"
+    return ("<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
+            f"<div class='sk-time-model'><b>Class {esc(tm.cls)}</b>: location "
+            f"{esc(d['location'])}, spread {esc(d['spread'])}. Capability by "
+            f"{esc(tm.method)}" + (f": {idx}" if idx else "") + ".</div>"
+            f"<div class='sk-small'>Why: {esc(tm.reason)}. Classes and methods as recalled from "
+            "the standard (from memory).</div>")
 
 
 def _judged(res) -> tuple:
@@ -60,9 +81,11 @@ def streams_html(result) -> str:
 def streams_panel(result) -> list:
     """Widgets of the "Streams" panel: the table and the group chart (none without streams)."""
     st = getattr(result, "streams", None)
+    tm = time_model_html(result)
+    head = [html_box(tm, "sk-time-model-box")] if tm else []
     if st is None:
-        return []
-    out = [html_box(streams_html(result), "sk-streams-box")]
+        return head
+    out = [*head, html_box(streams_html(result), "sk-streams-box")]
     if st.group is not None:
         from studykit.report.figures import figure_png
         from studykit.report.streams import group_chart_figure

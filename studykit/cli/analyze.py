@@ -398,6 +398,13 @@ def format_result(res) -> str:
         lines += _measurement_error_lines(d["measurement_error"])
     if d.get("streams"):
         lines += _stream_lines(d["streams"])
+    tm = d.get("time_model")
+    if tm:
+        lines.append(f"time-dependent model (ISO 22514-2, from memory): "
+                     f"{tm['class'] or 'not classified'} - {tm['reason']}")
+        if tm["indices"]:
+            lines.append("  by the class's method (" + tm["method"] + "): " + ", ".join(
+                f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items()))
     if d["model_band"] and d["model_band"].get("warning"):
         lines.append(f"model band: {d['model_band']['warning']}")
     if d["plan"]:

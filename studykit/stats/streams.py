@@ -146,8 +146,10 @@ def location_test(values, streams, *, alpha: float = ALPHA) -> StreamTest:
     return StreamTest("one_way_anova", f, df1, df2, p, alpha, differ, text)
 
 
-def spread_test(values, streams, *, alpha: float = ALPHA) -> StreamTest:
+def spread_test(values, streams, *, alpha: float = ALPHA, word: str = "stream") -> StreamTest:
     """Brown-Forsythe test (Levene's test about the stream medians): do the spreads differ?
+
+    ``word`` names the groups in the text ("stream", "subgroup").
 
     >>> t = spread_test([1, 2, 3, 2, 3, 4, 0, 5, 9], list("aaabbbccc"))
     >>> t.name, t.df_between, t.df_within
@@ -159,7 +161,7 @@ def spread_test(values, streams, *, alpha: float = ALPHA) -> StreamTest:
     differ = bool(np.isfinite(p) and p < alpha)
     text = (f"Brown-Forsythe test: W = {f:.3g} on {df1} and {df2} degrees of freedom, "
             f"p = {p:.3g}: "
-            + ("the stream spreads differ" if differ else "no difference between the stream "
+            + (f"the {word} spreads differ" if differ else f"no difference between the {word} "
                "spreads shown") + f" (at {alpha:g})")
     return StreamTest("brown_forsythe", f, df1, df2, p, alpha, differ, text)
 

@@ -20,9 +20,9 @@ C1    random     constant             normal        normal with the between-subg
                                                     included: sigma_total^2 = sigma_w^2 +
                                                     sigma_b^2; Pp/Ppk from sigma_total
 C2    random     constant             not normal    percentile method of the combined distribution
-C3    systematic constant             any           location range of the trend plus the
-                                                    instantaneous spread (below)
-C4    random and constant             any           as C3, the residual about the trend holding
+C3    systematic constant             any           percentile method of the trend's travel
+                                                    plus the spread about it (below)
+C4    random and constant             any           as C3, the spread about the trend holding
       systematic                                    the random part
 D     varies     varies               any           percentile method of the combined distribution
 ===== ========== ==================== ============= ==========================================
@@ -44,13 +44,14 @@ The evidence (each test at :data:`ALPHA`, common practice, no source):
   location it is the instantaneous one); the test of the readings centred on their subgroup
   means is reported beside it (ours).
 
-C3/C4 capability (from memory of ISO 22514-2's treatment of a systematic location change such
-as tool wear, where the trend is part of the process and the limits of its travel count): the
-least-squares line of the readings on the subgroup position gives the location at the first and
-last subgroup, mu_low and mu_high; sigma_r is the standard deviation of the readings about the
-line (N - 2 degrees of freedom). The process spread runs from mu_low - 3 sigma_r to mu_high +
-3 sigma_r, so Pp = (USL - LSL) / (mu_high - mu_low + 6 sigma_r), PPU = (USL - mu_high) /
-(3 sigma_r), PPL = (mu_low - LSL) / (3 sigma_r), Ppk = min(PPU, PPL). A trend is taken out of
+C3/C4 capability (the approach from memory of ISO 22514-2's treatment of a systematic
+location change such as tool wear, where the travel of the location is part of the process;
+the formulas are ours): the least-squares line of the readings on the subgroup position gives
+the location at the first and last subgroup, mu_low and mu_high; sigma_r is the standard
+deviation of the readings about the line (N - 2 degrees of freedom). The resulting
+distribution is the location spread evenly over [mu_low, mu_high] plus normal noise of sigma_r
+(:func:`travel_cdf`); Pp, PPU, PPL and Ppk come from its 0.135 %, 50 % and 99.865 % points by
+the ISO 22514-2 percentile formulas. A trend is taken out of
 the spread only this way, never by removing subgroups as special causes.
 
 Individual values (subgroups of one) cannot separate within from between: no class is given.
@@ -67,7 +68,7 @@ from scipy import stats
 from studykit.errors import StudyInputError
 
 __all__ = ["ALPHA", "CLASSES", "VarianceComponents", "TimeModel", "variance_components",
-           "classify", "trend_capability"]
+           "classify", "trend_capability", "travel_cdf"]
 
 #: Level of every test of the classification (common practice, no source).
 ALPHA = 0.05
@@ -80,9 +81,10 @@ CLASSES = {
     "C1": ("random", "constant", "normal Pp/Ppk from sigma_total (between-subgroup variance "
            "included)"),
     "C2": ("random", "constant", "percentile method of the combined distribution"),
-    "C3": ("systematic", "constant", "location range of the trend plus 3 sigma about it"),
-    "C4": ("random and systematic", "constant", "location range of the trend plus 3 sigma "
-           "about it"),
+    "C3": ("systematic", "constant", "percentile method of the trend's travel plus the normal "
+           "spread about it"),
+    "C4": ("random and systematic", "constant", "percentile method of the trend's travel plus "
+           "the spread about it (random part included)"),
     "D": ("varies", "varies", "percentile method of the combined distribution"),
 }
 
@@ -178,15 +180,45 @@ def variance_components(values, subgroups) -> VarianceComponents:
                               sigma_total=math.sqrt(msw + sb2))
 
 
+def travel_cdf(x, mu_low, mu_high, sigma):
+    """CDF of a location spread evenly over [mu_low, mu_high] plus normal noise of ``sigma``.
+
+    F(x) = sigma / (b - a) * [G((x - a) / sigma) - G((x - b) / sigma)], G(z) = z Phi(z) + phi(z)
+    (the integral of the normal CDF; plain calculus). Checked in the tests against
+    ``scipy.integrate.quad`` and a Monte Carlo.
+    """
+    x = np.asarray(x, dtype=float)
+    a, b = float(mu_low), float(mu_high)
+    if b - a <= 1e-12 * max(1.0, abs(a)) or sigma == 0:
+        return stats.norm.cdf(x, loc=(a + b) / 2, scale=sigma)
+
+    def g(z):
+        return z * stats.norm.cdf(z) + stats.norm.pdf(z)
+
+    return sigma / (b - a) * (g((x - a) / sigma) - g((x - b) / sigma))
+
+
+def _travel_ppf(q, a, b, sigma):
+    from scipy.optimize import brentq
+
+    lo, hi = a - 10 * sigma, b + 10 * sigma
+    return float(brentq(lambda v: float(travel_cdf(v, a, b, sigma)) - q, lo, hi, xtol=1e-14,
+                        rtol=1e-14))
+
+
 def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
     """Capability of a process whose location travels along a straight line (C3/C4).
 
-    ``positions`` is the subgroup position of each reading (1, 2, ...). Returns mu_low,
-    mu_high, sigma_r, slope and pp/ppu/ppl/ppk (None where a limit is missing).
+    ``positions`` is the subgroup position of each reading (1, 2, ...). The least-squares line
+    gives the travel [mu_low, mu_high] from the first to the last position and sigma_r, the
+    standard deviation about the line (N - 2 degrees of freedom). The resulting distribution is
+    taken as the location spread evenly over the travel plus normal noise (:func:`travel_cdf`);
+    its 0.135 %, 50 % and 99.865 % points give Pp, PPU, PPL and Ppk by the percentile method
+    (the same formulas as for a fitted non-normal model).
 
     >>> d = trend_capability([0, 0.2, 1, 1.2, 2, 2.2], [1, 1, 2, 2, 3, 3], lsl=-2, usl=4)
-    >>> round(d["slope"], 3), round(d["mu_low"], 3), round(d["mu_high"], 3)
-    (1.0, 0.1, 2.1)
+    >>> round(d["slope"], 3), round(d["mu_low"], 3), round(d["mu_high"], 3), round(d["x50"], 3)
+    (1.0, 0.1, 2.1, 1.1)
     """
     x = np.asarray(values, dtype=float)
     t = np.asarray(positions, dtype=float)
@@ -198,16 +230,20 @@ def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
     ends = fit.intercept + fit.slope * np.array([t.min(), t.max()])
     mu_low, mu_high = float(ends.min()), float(ends.max())
     out = {"slope": float(fit.slope), "intercept": float(fit.intercept), "sigma_r": sigma_r,
-           "mu_low": mu_low, "mu_high": mu_high, "pp": None, "ppu": None, "ppl": None,
-           "ppk": None}
+           "mu_low": mu_low, "mu_high": mu_high, "x0135": None, "x50": (mu_low + mu_high) / 2,
+           "x99865": None, "pp": None, "ppu": None, "ppl": None, "ppk": None}
     if sigma_r == 0:
         return out
+    lo = _travel_ppf(0.00135, mu_low, mu_high, sigma_r)
+    hi = _travel_ppf(0.99865, mu_low, mu_high, sigma_r)
+    mid = out["x50"]
+    out.update(x0135=lo, x99865=hi)
     if usl is not None:
-        out["ppu"] = (usl - mu_high) / (3 * sigma_r)
+        out["ppu"] = (usl - mid) / (hi - mid)
     if lsl is not None:
-        out["ppl"] = (mu_low - lsl) / (3 * sigma_r)
+        out["ppl"] = (mid - lsl) / (mid - lo)
     if usl is not None and lsl is not None:
-        out["pp"] = (usl - lsl) / (mu_high - mu_low + 6 * sigma_r)
+        out["pp"] = (usl - lsl) / (hi - lo)
     sides = [v for v in (out["ppu"], out["ppl"]) if v is not None]
     out["ppk"] = min(sides) if sides else None
     return out
@@ -304,7 +340,7 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     spread = None
     if np.all(n_i >= 2):
         try:
-            spread = spread_test(x, codes.astype(str), alpha=alpha)
+            spread = spread_test(x, codes.astype(str), alpha=alpha, word="subgroup")
         except StudyInputError:
             spread = None
     spread_varies = bool(spread is not None and spread.differ)
@@ -340,7 +376,7 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     if cls in ("C3", "C4"):
         tc = trend_capability(x, pos[codes], lsl=lsl, usl=usl)
         indices = {k2: tc[k2] for k2 in ("pp", "ppk", "ppu", "ppl", "mu_low", "mu_high",
-                                         "sigma_r")}
+                                         "sigma_r", "x0135", "x50", "x99865")}
     elif cls == "C1":
         s = vc.sigma_total
         mean = float(x.mean())
