@@ -41,9 +41,11 @@ REFERENCE_CSV = "gauge_flange_reference.csv"
 SPECS_CSV = "specs.csv"
 PULL_SPECS_CSV = "specs_pull_off.csv"
 POSITION_CSV = "mounting_hole_position.csv"
+CAVITIES_CSV = "impeller_cavities.csv"
+WEAR_CSV = "shaft_seat_wear.csv"
 STUDY_FILE = "pump_housing_pilot.study"
 DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
-              REFERENCE_CSV, POSITION_CSV)
+              REFERENCE_CSV, POSITION_CSV, CAVITIES_CSV, WEAR_CSV)
 #: the short gauge study has its own seed, so the other files stay as they were before it
 REFERENCE_SEED = SEED + 17
 REFERENCE_VALUE = 8.0004
@@ -66,6 +68,14 @@ CHARACTERISTICS = [
                                "per half hour"),
     Characteristic("leak_test_defectives", chart="p", size_column="lot_size", source=LOTS_CSV,
                    description="End-of-line leak test: rejected housings per lot"),
+    Characteristic("impeller_hub_bore", unit="mm", lsl=5.970, usl=6.030, target=6.000,
+                   source=CAVITIES_CSV,
+                   description="Impeller hub bore, moulded in a 4-cavity tool; cavity 3 runs "
+                               "off-centre (invented)"),
+    Characteristic("shaft_seat_diameter", unit="mm", lsl=14.980, usl=15.020, target=15.000,
+                   source=WEAR_CSV,
+                   description="Turned bearing seat; the insert wears over its life and is "
+                               "changed by plan after 30 subgroups (invented)"),
 ]
 CRITERIA = {c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
             for c in CHARACTERISTICS if not c.is_attribute}
@@ -165,6 +175,8 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
     files[POSITION_CSV] = position_file()
+    files[CAVITIES_CSV] = cavities_file()
+    files[WEAR_CSV] = wear_file()
     return files
 
 
@@ -189,6 +201,47 @@ def position_file() -> bytes:
     return _rows_to_csv(["part", "hole_dx [mm]", "hole_dy [mm]"], rows)
 
 
+def cavities_file() -> bytes:
+    """Impeller hub bore from a 4-cavity injection mould (invented): 25 subgroups of 3
+    consecutive shots, each shot one part per cavity (300 parts).
+
+    Its own generator (seed SEED + 2), so the other files stay as they were. Built in: cavity 3
+    sits 0.012 mm above the others (an off-centre core pin); every cavity has the same spread
+    (0.004 mm) and a small shot-to-shot variation common to all four.
+    """
+    g = np.random.default_rng(SEED + 2)
+    offsets = {"1": 0.0, "2": 0.001, "3": 0.012, "4": -0.001}
+    rows = []
+    for k in range(1, 26):
+        t0 = START + timedelta(days=1, minutes=20 * (k - 1))
+        for shot in range(3):
+            common = 6.000 + g.normal(0, 0.0015)
+            stamp = (t0 + timedelta(seconds=40 * shot)).strftime("%Y-%m-%d %H:%M:%S")
+            for cav, off in offsets.items():
+                v = common + off + g.normal(0, 0.004)
+                rows.append([str(k), stamp, cav, f"{v:.4f}"])
+    return _rows_to_csv(["subgroup", "timestamp", "cavity", "impeller_hub_bore [mm]"], rows)
+
+
+def wear_file() -> bytes:
+    """Shaft seat diameter turned with one insert over its planned life (invented): 30
+    subgroups of 5 consecutive parts, one subgroup every 20 minutes.
+
+    Its own generator (seed SEED + 3). Built in: tool wear moves the diameter up by 0.0005 mm
+    per subgroup (0.0145 mm over the insert's life, a systematic location change), the spread
+    stays 0.0025 mm, no random shift between subgroups: a C3 process of ISO 22514-2.
+    """
+    g = np.random.default_rng(SEED + 3)
+    rows = []
+    for k in range(1, 31):
+        t0 = START + timedelta(days=2, minutes=20 * (k - 1))
+        mean = 14.9935 + 0.0005 * (k - 1)
+        for j, v in enumerate(mean + g.normal(0, 0.0025, 5)):
+            rows.append([str(k), (t0 + timedelta(minutes=j)).strftime("%Y-%m-%d %H:%M"),
+                         f"{v:.4f}"])
+    return _rows_to_csv(["subgroup", "timestamp", "shaft_seat_diameter [mm]"], rows)
+
+
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     """The demo study file: three data files, specs, criteria, decisions with reasons, one
     comment, and the gauge R&R result beside the characteristic it qualifies."""
@@ -198,7 +251,9 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     sf = StudyFile.create(path, data=files[PILOT_CSV], filename=PILOT_CSV, title=TITLE,
                           part=PART, supplier=SUPPLIER, characteristics=CHARACTERISTICS,
                           criteria=CRITERIA, who="demo script", overwrite=True,
-                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV])],
+                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV]),
+                                       (CAVITIES_CSV, files[CAVITIES_CSV]),
+                                       (WEAR_CSV, files[WEAR_CSV])],
                           when="2026-03-03T08:30:00Z")
     for d in DECISIONS:
         sf.append_decision(d)

@@ -406,6 +406,10 @@ class CharacteristicResult:
     #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
     measurement_error: dict | None = None
     kept_signals: tuple = ()
+    #: several streams (cavities, spindles...): studykit.stream_analysis.StreamsResult
+    streams: object = None
+    #: ISO 22514-2 time-dependent model: studykit.stats.timedep.TimeModel
+    time_model: object = None
 
     @property
     def chart(self) -> ControlChart:
@@ -642,6 +646,10 @@ class CharacteristicResult:
             out.update(ac.to_dict())
         if self.measurement_error is not None:
             out["measurement_error"] = self.measurement_error
+        if self.streams is not None:  # only with a stream column (key absent otherwise)
+            out["streams"] = self.streams.to_dict()
+        if self.time_model is not None:
+            out["time_model"] = self.time_model.to_dict()
         return out
 
 
@@ -1168,6 +1176,13 @@ def analyze_characteristic(
     ('imr', 10, 50.81)
     """
     options = options or AnalysisOptions()
+    streams = getattr(data, "streams", None)
+    if streams is not None and len(set(np.asarray(streams).tolist())) > 1:
+        from studykit.stream_analysis import analyze_streams  # the whole and each stream
+
+        return analyze_streams(data, spec, analyze=analyze_characteristic, criteria=criteria,
+                               sizes=sizes, exclusions=exclusions, options=options, gauge=gauge,
+                               kept=kept)
     warn: list[str] = []
     name = data.name
     kind = options.chart or (spec.chart if spec is not None else "auto")
@@ -1458,8 +1473,13 @@ def analyze_characteristic(
         except StudyInputError:
             plan = None
     result_kw.pop("findings", None)
+    from studykit.time_model import time_model_for  # ISO 22514-2 class of the readings used
+
+    time_model, time_findings = time_model_for(x, kept_labels, spec)
+    findings.extend(time_findings)
     return CharacteristicResult(
         **result_kw,
+        time_model=time_model,
         ranking=ranking,
         model=choice,
         capability=cap,
@@ -1499,7 +1519,7 @@ def _chance_signals(chart: ControlChart, verdict, beyond, chance: Mapping):
                          f"{c.p_value:.2g})")
     fap = max(c.fap for c in chance.values())
     others = n - len(beyond)
-    finding = capability_module.Finding(
+    finding = Finding(
         code="chance_signals", severity="info",
         text=(f"{len(beyond)} point(s) lie beyond the 3-sigma control limits of the final chart: "
               + "; ".join(parts) + ". None lies beyond the removal limits, which a stable "

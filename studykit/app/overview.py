@@ -286,6 +286,9 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
                            estimate=head["estimate"], lower_bound=head["lower_bound"],
                            removed=head["removed"], analysed=True,
                            verdict_text=head["verdict"] or "")
+                from studykit.app.streams_view import stream_overview_rows
+
+                row["streams"] = stream_overview_rows(session.result(name))
         rows.append(row)
     return rows
 
@@ -402,8 +405,11 @@ class OverviewPanel(widgets.VBox):
                     cell.add_class("num")
                 self._head.append(cell)
         cells = list(self._head)
+        from studykit.app.streams_view import stream_cells
+
         for r in rows:
             cells += self._row_cells(r, current=session.current)
+            cells += stream_cells(r.get("streams") or [])  # streams under their characteristic
         self.table.children = cells
 
     def _row_cells(self, r: dict, *, current: str) -> list:

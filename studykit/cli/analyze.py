@@ -54,6 +54,11 @@ def register(sub) -> None:
         "accepted too; default: auto, from the subgroup size)",
     )
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
+    p.add_argument("--stream-column", metavar="COL",
+                   help="column naming the stream of each row (mould cavity, spindle, nest, "
+                   "fixture, head): per-stream charts, capability and verdicts, tests of "
+                   "whether the streams differ, the group chart (detected by a header such as "
+                   "'cavity', 'nest', 'spindle', 'stream' when not given)")
     p.add_argument("--phase1", choices=["auto", "off"], default=None,
                    help="remove out-of-control subgroups automatically: default auto for a data "
                    "FILE; off for --study, where only the removals recorded in the study count")
@@ -238,6 +243,30 @@ def _measurement_error_lines(me: dict) -> list[str]:
     return lines
 
 
+def _stream_lines(st: dict) -> list[str]:
+    """Per-stream table, the two tests and the worst stream."""
+    lines = [f"streams ({len(st['names'])}): worst {st['worst'] or '-'}"]
+    for row in st["per_stream"]:
+        if row.get("error"):
+            lines.append(f"  {row['stream']:>8s}  not analysed: {row['error']}")
+            continue
+        v = row.get("verdict") or {}
+        mark = {True: "meets", False: "does not meet", None: "not judged"}[v.get("meets")]
+        idx = _PRETTY.get(v.get("index"), v.get("index") or "")
+        lines.append(f"  {row['stream']:>8s}  n {row['n']:4d}  mean {_fmt(row['mean'], 6)}  "
+                     f"overall sigma {_fmt(row['overall_sigma'], 4)}  {idx} "
+                     f"{_fmt(v.get('estimate'), 3)} (bound {_fmt(v.get('lower_bound'), 3)})  "
+                     f"{mark}")
+    for key in ("location_test", "spread_test"):
+        if st.get(key):
+            lines.append(f"  {st[key]['text']}")
+    g = st.get("group_chart")
+    if g:
+        lines.append(f"  group chart: centre {_fmt(g['center'], 6)}  LCL {_fmt(g['lcl'], 6)}  "
+                     f"UCL {_fmt(g['ucl'], 6)}; {len(g['beyond'])} stream mean(s) beyond")
+    return lines
+
+
 def format_result(res) -> str:
     """A plain terminal report of one characteristic."""
     from studykit.analysis import capability_method_text
@@ -347,6 +376,15 @@ def format_result(res) -> str:
         lines.append(f"  * {names.finding_title(f['code'])}: {f['text']}")
     if d.get("measurement_error"):
         lines += _measurement_error_lines(d["measurement_error"])
+    if d.get("streams"):
+        lines += _stream_lines(d["streams"])
+    tm = d.get("time_model")
+    if tm:
+        lines.append(f"time-dependent model (ISO 22514-2, from memory): "
+                     f"{tm['class'] or 'not classified'} - {tm['reason']}")
+        if tm["indices"]:
+            lines.append("  by the class's method (" + tm["method"] + "): " + ", ".join(
+                f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items()))
     if d["model_band"] and d["model_band"].get("warning"):
         lines.append(f"model band: {d['model_band']['warning']}")
     if d["plan"]:

@@ -19,7 +19,7 @@ __all__ = [
 
 def read_file_measurements(args):
     """The measurements of the data FILE with ``--sheet``, ``--subgroup-column`` and
-    ``--subgroup-size`` applied (each only when given)."""
+    ``--subgroup-size`` and ``--stream-column`` applied (each only when given)."""
     from studykit.data import read_measurements
 
     read_kw = {}
@@ -29,6 +29,8 @@ def read_file_measurements(args):
         read_kw["subgroup_size"] = args.subgroup_size
     if getattr(args, "sheet", None):
         read_kw["sheet"] = args.sheet
+    if getattr(args, "stream_column", None):
+        read_kw["stream_column"] = args.stream_column
     return read_measurements(args.file, **read_kw)
 
 

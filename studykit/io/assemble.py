@@ -44,7 +44,7 @@ def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
         raise DataFileError(why, file=src.name, row=int(rows[i]), column=letter, value=cells[i])
 
 
-class _Acc:
+class Acc:
     """Lists of chunk arrays, concatenated at the end."""
 
     def __init__(self):
@@ -67,7 +67,7 @@ class _LabelAcc:
 
     def __init__(self):
         self.index: dict[str, int] = {}
-        self.codes = _Acc()
+        self.codes = Acc()
 
     def add(self, labels: np.ndarray) -> None:
         import pandas as pd
@@ -162,9 +162,9 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
     float_cols = {j for j, k in kinds.items() if k == "value"}
 
     def collect(chunks):
-        rows_acc = _Acc()
-        filled_acc = _Acc()
-        value_acc = {j: _Acc() for j in float_cols}
+        rows_acc = Acc()
+        filled_acc = Acc()
+        value_acc = {j: Acc() for j in float_cols}
         sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(), _LabelAcc()
         for rows, cols in chunks:
             row_filled = np.zeros(len(rows), dtype=bool)
@@ -428,7 +428,7 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
                      + ", ".join(f"'{h}'" for h in others))
 
     def collect(chunks):
-        name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), _Acc(), _Acc(), _Acc()
+        name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), Acc(), Acc(), Acc()
         sg_acc, t_acc, n_acc, unit_acc = _LabelAcc(), _TimeAcc(), _LabelAcc(), _LabelAcc()
         for rows, cols in chunks:
             for j in range(len(cols)):

@@ -41,6 +41,13 @@ VALUE_NAMES = {
     "wert", "messwert", "istwert", "ergebnis",
 }
 UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
+#: header names of a stream column (cavity, spindle, nest, fixture, head: parallel streams of
+#: one process); see :func:`studykit.io.readers._attach_streams`
+STREAM_NAMES = {
+    "stream", "streams", "cavity", "cavity number", "mould cavity", "mold cavity", "nest",
+    "spindle", "fixture", "head", "station",
+    "kavität", "kavitaet", "formnest", "werkzeugnest", "spindel", "vorrichtung", "kopf",
+}
 _TRAILING_TOKENS = {"no", "nr", "number", "num", "id", "nummer", "index"}
 
 _UNIT_RE = re.compile(r"^(?P<name>.*?)\s*(?:\[(?P<u1>[^\[\]]*)\]|\((?P<u2>[^()]*)\))\s*$")

@@ -7,15 +7,17 @@ from __future__ import annotations
 
 import os
 import stat
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
 from studykit.errors import DataFileError, StudyInputError
-from studykit.io.assemble import assemble_long, assemble_wide, subgroup_messages
+from studykit.io.assemble import Acc, assemble_long, assemble_wide, subgroup_messages
 from studykit.io.cells import (
     CHARACTERISTIC_NAMES,
     NOTE_NAMES,
+    STREAM_NAMES,
     SUBGROUP_NAMES,
     TIME_NAMES,
     UNIT_NAMES,
@@ -23,6 +25,8 @@ from studykit.io.cells import (
     Ctx,
     check_summary_rows,
     col_letter,
+    fmt_rows,
+    label_array,
     norm_header,
     parse_header,
     show,
@@ -47,6 +51,7 @@ def read_measurements(
     note_column: str | None = None,
     encoding: str | None = None,
     max_bytes: int | None = None,
+    stream_column: str | None = None,
 ) -> Measurements:
     """Read a CSV or XLSX measurement file.
 
@@ -67,6 +72,10 @@ def read_measurements(
         Columns of a long table (implies ``layout='long'``).
     time_column, note_column : str, optional
         Columns with the time and a remark of each row; detected by name when omitted.
+    stream_column : str, optional
+        Column naming the stream of each row (mould cavity, spindle, nest, fixture, head);
+        detected by name when omitted ('Cavity', 'Nest', 'Spindle', 'Stream', 'Kavität'...).
+        Each characteristic then carries ``streams``, one label per value.
     encoding : str, optional
         Text encoding of a CSV file; detected when omitted.
     max_bytes : int, optional
@@ -128,7 +137,7 @@ def read_measurements(
     return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
                  subgroup_size=subgroup_size, characteristic_column=characteristic_column,
                  value_column=value_column, time_column=time_column, note_column=note_column,
-                 encoding=encoding)
+                 encoding=encoding, stream_column=stream_column)
 
 
 def read_measurements_bytes(data: bytes, filename: str, **options) -> Measurements:
@@ -190,7 +199,7 @@ def _detect(header, names_set) -> int | None:
 
 def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
           characteristic_column=None, value_column=None, time_column=None, note_column=None,
-          encoding=None) -> Measurements:
+          encoding=None, stream_column=None) -> Measurements:
     if layout not in ("auto", "wide", "long"):
         raise StudyInputError(
             f"`layout` must be 'auto', 'wide' or 'long', not '{layout}'.", value=layout
@@ -242,13 +251,14 @@ def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgr
                            subgroup_column=subgroup_column, subgroup_size=subgroup_size,
                            characteristic_column=characteristic_column,
                            value_column=value_column, time_column=time_column,
-                           note_column=note_column)
+                           note_column=note_column, stream_column=stream_column)
     finally:
         table.close()
 
 
 def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgroup_size,
-                characteristic_column, value_column, time_column, note_column):
+                characteristic_column, value_column, time_column, note_column,
+                stream_column=None):
     header = table.header
     hrow = table.header_row
 
@@ -347,6 +357,7 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         role[sg_idx] = "subgroup"
     t_idx = _optional_role(header, role, time_column, TIME_NAMES, "time", find)
     n_idx = _optional_role(header, role, note_column, NOTE_NAMES, "note", find)
+    st_idx = _optional_role(header, role, stream_column, STREAM_NAMES, "stream", find)
 
     if sg_idx is not None:
         subgroup_source = "column"
@@ -379,6 +390,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
             check_unsaved_formulas(src, table, damage_known=True)
         raise
     characteristics, n_rows = result
+    if st_idx is not None:
+        characteristics = _attach_streams(src, table, st_idx, characteristics, notes,
+                                          given=stream_column is not None)
     check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     if src.kind == "xlsx" and layout == "wide":
         # the first empty cell of each value column is where an unsaved formula would show
@@ -410,6 +424,41 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         separator=table.separator, decimal=table.decimal if src.kind == "csv" else None,
         n_rows=n_rows,
     )
+
+
+def _attach_streams(src, table, j, characteristics, notes, *, given):
+    """Give each characteristic the stream label of each of its values (from column ``j``).
+
+    The stream column has its own role, so it is never read as a measurement; its labels are
+    read in a second pass and matched to the values by file row. A value without a label is
+    refused with its row.
+    """
+    name = table.header[j]
+    rows_acc, lab_acc = Acc(), Acc()
+    for rows, cols in table.open_chunks():
+        rows_acc.add(rows)
+        cells = cols[j] if j < len(cols) else np.full(len(rows), "", dtype=object)
+        lab_acc.add(label_array(cells, table.text_cells).astype(str))
+    all_rows, labels = rows_acc.result(np.int64), lab_acc.result()
+    out = []
+    for c in characteristics:
+        at = np.searchsorted(all_rows, c.rows)
+        lab = labels[np.clip(at, 0, max(labels.size - 1, 0))]
+        lab = np.char.strip(lab.astype(str))
+        bad = np.flatnonzero((lab == "") & ~np.isnan(c.values))
+        if bad.size:
+            i = int(bad[0])
+            raise DataFileError(
+                f"this row has a value of '{c.name}' but no stream label in column '{name}' "
+                f"(rows without a label: {fmt_rows(c.rows[bad])}). Fill in the stream of each "
+                "row, or rename the column if it does not name streams.",
+                file=src.name, row=int(c.rows[i]), column=name, value="",
+            )
+        out.append(replace(c, streams=lab))
+    k = len(dict.fromkeys(labels[labels != ""].tolist()))
+    notes.append(f"streams from column '{name}' ({'given' if given else 'detected'}): {k} "
+                 "stream(s)")
+    return out
 
 
 def _optional_role(header, role, given, names_set, what, find):

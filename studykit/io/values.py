@@ -77,6 +77,7 @@ class CharacteristicData:
     is_integer: bool | None = None
     subgroup_labels: np.ndarray | None = None
     subgroup_counts: np.ndarray | None = None
+    streams: np.ndarray | None = None
 
     def __post_init__(self):
         put = object.__setattr__
@@ -90,7 +91,9 @@ class CharacteristicData:
             put(self, "subgroups", np.asarray(self.subgroups).astype(str))
         if self.rows is None:
             put(self, "rows", np.arange(2, n + 2, dtype=np.int64))
-        for key in ("subgroups", "rows", "times", "notes"):
+        if self.streams is not None:
+            put(self, "streams", np.asarray(self.streams).astype(str))
+        for key in ("subgroups", "rows", "times", "notes", "streams"):
             a = getattr(self, key)
             if a is not None and len(a) != n:
                 raise StudyInputError(
@@ -110,7 +113,7 @@ class CharacteristicData:
             put(self, "subgroup_labels", np.asarray(uniq).astype(str))
             put(self, "subgroup_counts", counts.astype(np.int64))
         for key in ("values", "subgroups", "times", "notes", "rows", "subgroup_labels",
-                    "subgroup_counts"):
+                    "subgroup_counts", "streams"):
             put(self, key, _frozen_array(getattr(self, key)))
 
     @cached_property

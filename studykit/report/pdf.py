@@ -900,6 +900,12 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))
         story.append(_interval_drawing(res, width, st))
+    from studykit.report.streams import streams_block  # several streams (cavities...)
+
+    streams_block(story, res, st, width, table=_table, image=_image, esc=_esc)
+    from studykit.report.time_model import time_model_block  # ISO 22514-2 class
+
+    time_model_block(story, res, st, width, table=_table, esc=_esc)
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
         for f in res.findings:

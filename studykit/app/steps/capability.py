@@ -211,6 +211,8 @@ class CapabilityStep:
         self.findings = html_box("", "sk-findings")
         self.band = html_box("", "sk-band")
         self.attribute = html_box("", "sk-attribute")
+        self.streams = widgets.VBox([])  # several streams: table and group chart
+        self.streams.add_class("sk-streams")
         self.assumed = widgets.FloatSlider(min=1.0, max=3.0, step=0.01, value=2.0,
                                            description="", readout_format=".2f",
                                            continuous_update=False,
@@ -231,7 +233,8 @@ class CapabilityStep:
         self.chart.children = [self.live.widget("sk-interval-chart")]
         when_shown(context, self.key, self.live.resync)
         return panel([panel_css(), ws.toolbar(), self.caution, self.verdict,
-                             self.numbers, self.attribute, self.findings, self.planner])
+                             self.numbers, self.attribute, self.streams, self.findings,
+                             self.planner])
 
     def shown(self, context) -> None:
         """The step is open again: bring its chart widget up to date."""
@@ -263,6 +266,9 @@ class CapabilityStep:
         self.indices.value = indices_html(res)
         self.band.value = band_html(res)
         self.attribute.value = attribute_html(res)
+        from studykit.app.streams_view import streams_panel
+
+        self.streams.children = streams_panel(res)
         self.findings.value = findings_html(res)
         index = res.verdict.index if res.verdict is not None else None
         self.planner.layout.display = "" if index in _PLANNABLE else "none"

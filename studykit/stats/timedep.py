@@ -1,0 +1,389 @@
+"""Time-dependent distribution models (ISO 22514-2): which kind of process made the data, and
+the capability computation that kind calls for.
+
+ISO 22514-2 (and its predecessor ISO 21747) sorts processes by how the distribution of the
+characteristic behaves over time: is the location constant, does it move at random (batch to
+batch) or systematically (tool wear), is the spread constant, is the instantaneous distribution
+normal. **We do not have the standard's text at hand; the classes and the methods below are as we
+recall them ("from memory")**, and the tests check the numbers by independent computations, not
+against the standard:
+
+===== ========== ==================== ============= ==========================================
+class location   spread               instantaneous resulting distribution (our method)
+===== ========== ==================== ============= ==========================================
+A1    constant   constant             normal        normal: Cp/Cpk from the within sigma,
+                                                    Pp/Ppk from the overall sigma
+A2    constant   constant             not normal    the fitted model, percentile method
+B     constant   varies               any           not normal: percentile method of the
+                                                    combined (overall) distribution
+C1    random     constant             normal        normal with the between-subgroup variance
+                                                    included: sigma_total^2 = sigma_w^2 +
+                                                    sigma_b^2; Pp/Ppk from sigma_total
+C2    random     constant             not normal    percentile method of the combined distribution
+C3    systematic constant             any           percentile method of the trend's travel
+                                                    plus the spread about it (below)
+C4    random and constant             any           as C3, the spread about the trend holding
+      systematic                                    the random part
+D     varies     varies               any           percentile method of the combined distribution
+===== ========== ==================== ============= ==========================================
+
+The evidence (each test at :data:`ALPHA`, common practice, no source):
+
+* **location varies at random**: one-way random-effects analysis of variance of the subgroups,
+  F = MSB / MSW; variance components sigma_b^2 = max(0, (MSB - MSW) / n0) with
+  n0 = (N - sum n_i^2 / N) / (k - 1) (Searle, Casella & McCulloch, *Variance Components*, 1992,
+  ch. 3; Montgomery, *Design and Analysis of Experiments*, the random-effects model). Checked
+  against the REML fit of ``statsmodels`` MixedLM and the published lme4 Dyestuff estimates.
+* **location varies systematically**: Mann-Kendall trend test of the subgroup means against
+  their order (Kendall's tau; Mann 1945), with the least-squares slope for the size of the
+  trend; after a trend the random part is tested again on the residuals of the subgroup means
+  about the line (F of the residual mean square of the means, times n0, over MSW, on k - 2 and
+  N - k degrees of freedom; ours).
+* **spread varies**: Brown-Forsythe test of the subgroups (:func:`studykit.stats.streams.spread_test`).
+* **shape**: Anderson-Darling test of all readings (the resulting distribution; with a constant
+  location it is the instantaneous one); the test of the readings centred on their subgroup
+  means is reported beside it (ours).
+
+C3/C4 capability (the approach from memory of ISO 22514-2's treatment of a systematic
+location change such as tool wear, where the travel of the location is part of the process;
+the formulas are ours): the least-squares line of the readings on the subgroup position gives
+the location at the first and last subgroup, mu_low and mu_high; sigma_r is the standard
+deviation of the readings about the line (N - 2 degrees of freedom). The resulting
+distribution is the location spread evenly over [mu_low, mu_high] plus normal noise of sigma_r
+(:func:`travel_cdf`); Pp, PPU, PPL and Ppk come from its 0.135 %, 50 % and 99.865 % points by
+the ISO 22514-2 percentile formulas. A trend is taken out of
+the spread only this way, never by removing subgroups as special causes.
+
+Individual values (subgroups of one) cannot separate within from between: no class is given.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import stats
+
+from studykit.errors import StudyInputError
+
+__all__ = ["ALPHA", "CLASSES", "VarianceComponents", "TimeModel", "variance_components",
+           "classify", "trend_capability", "travel_cdf"]
+
+#: Level of every test of the classification (common practice, no source).
+ALPHA = 0.05
+
+#: Class -> (location, spread, what the capability uses); from memory of ISO 22514-2.
+CLASSES = {
+    "A1": ("constant", "constant", "normal indices (within and overall sigma)"),
+    "A2": ("constant", "constant", "percentile method of the fitted model"),
+    "B": ("constant", "varies", "percentile method of the combined distribution"),
+    "C1": ("random", "constant", "normal Pp/Ppk from sigma_total (between-subgroup variance "
+           "included)"),
+    "C2": ("random", "constant", "percentile method of the combined distribution"),
+    "C3": ("systematic", "constant", "percentile method of the trend's travel plus the normal "
+           "spread about it"),
+    "C4": ("random and systematic", "constant", "percentile method of the trend's travel plus "
+           "the spread about it (random part included)"),
+    "D": ("varies", "varies", "percentile method of the combined distribution"),
+}
+
+
+def _f(v):
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+@dataclass(frozen=True)
+class VarianceComponents:
+    """One-way random-effects ANOVA of readings in subgroups.
+
+    Attributes
+    ----------
+    k, n_total : int
+        Subgroups and readings.
+    n0 : float
+        Effective subgroup size (n for equal sizes).
+    msb, msw : float
+        Between- and within-subgroup mean squares.
+    f, p_value : float
+        MSB / MSW on (k - 1, N - k) degrees of freedom and its p-value.
+    sigma_within, sigma_between, sigma_total : float
+        sqrt(MSW), sqrt(max(0, (MSB - MSW) / n0)), sqrt of their squares' sum.
+    """
+
+    k: int
+    n_total: int
+    n0: float
+    msb: float
+    msw: float
+    f: float
+    p_value: float
+    sigma_within: float
+    sigma_between: float
+    sigma_total: float
+
+    @property
+    def between_share(self) -> float:
+        """sigma_b^2 / sigma_total^2."""
+        tot = self.sigma_total ** 2
+        return 0.0 if tot == 0 else self.sigma_between ** 2 / tot
+
+    def to_dict(self) -> dict:
+        return {"subgroups": self.k, "n": self.n_total, "n0": _f(self.n0), "msb": _f(self.msb),
+                "msw": _f(self.msw), "f": _f(self.f), "p_value": _f(self.p_value),
+                "sigma_within": _f(self.sigma_within), "sigma_between": _f(self.sigma_between),
+                "sigma_total": _f(self.sigma_total), "between_share": _f(self.between_share)}
+
+
+def _codes(labels):
+    lab = np.asarray(labels).astype(str)
+    order = {}
+    codes = np.array([order.setdefault(v, len(order)) for v in lab.tolist()], dtype=int)
+    return codes, len(order)
+
+
+def variance_components(values, subgroups) -> VarianceComponents:
+    """Variance components of the one-way random-effects model (ANOVA estimator).
+
+    >>> vc = variance_components([1, 2, 3, 5, 6, 7], ["a", "a", "a", "b", "b", "b"])
+    >>> vc.msw, round(vc.sigma_between ** 2, 4)
+    (1.0, 7.6667)
+    """
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    if x.shape != codes.shape:
+        raise StudyInputError("variance components need one subgroup label per value.")
+    n_i = np.bincount(codes, minlength=k).astype(float)
+    if k < 2 or np.all(n_i < 2):
+        raise StudyInputError(
+            "variance components need at least 2 subgroups and subgroups of 2 or more values."
+        )
+    big_n = float(n_i.sum())
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    grand = x.mean()
+    ssb = float(np.sum(n_i * (means - grand) ** 2))
+    ssw = float(np.sum((x - means[codes]) ** 2))
+    dfb, dfw = k - 1, big_n - k
+    msb, msw = ssb / dfb, ssw / dfw
+    n0 = (big_n - float(np.sum(n_i ** 2)) / big_n) / dfb
+    if msw > 0:
+        f = msb / msw
+        p = float(stats.f.sf(f, dfb, dfw))
+    else:
+        f, p = (math.inf, 0.0) if msb > 0 else (math.nan, math.nan)
+    sb2 = max(0.0, (msb - msw) / n0)
+    return VarianceComponents(k=k, n_total=int(big_n), n0=n0, msb=msb, msw=msw, f=f, p_value=p,
+                              sigma_within=math.sqrt(msw), sigma_between=math.sqrt(sb2),
+                              sigma_total=math.sqrt(msw + sb2))
+
+
+def travel_cdf(x, mu_low, mu_high, sigma):
+    """CDF of a location spread evenly over [mu_low, mu_high] plus normal noise of ``sigma``.
+
+    F(x) = sigma / (b - a) * [G((x - a) / sigma) - G((x - b) / sigma)], G(z) = z Phi(z) + phi(z)
+    (the integral of the normal CDF; plain calculus). Checked in the tests against
+    ``scipy.integrate.quad`` and a Monte Carlo.
+    """
+    x = np.asarray(x, dtype=float)
+    a, b = float(mu_low), float(mu_high)
+    if b - a <= 1e-12 * max(1.0, abs(a)) or sigma == 0:
+        return stats.norm.cdf(x, loc=(a + b) / 2, scale=sigma)
+
+    def g(z):
+        return z * stats.norm.cdf(z) + stats.norm.pdf(z)
+
+    return sigma / (b - a) * (g((x - a) / sigma) - g((x - b) / sigma))
+
+
+def _travel_ppf(q, a, b, sigma):
+    from scipy.optimize import brentq
+
+    lo, hi = a - 10 * sigma, b + 10 * sigma
+    return float(brentq(lambda v: float(travel_cdf(v, a, b, sigma)) - q, lo, hi, xtol=1e-14,
+                        rtol=1e-14))
+
+
+def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
+    """Capability of a process whose location travels along a straight line (C3/C4).
+
+    ``positions`` is the subgroup position of each reading (1, 2, ...). The least-squares line
+    gives the travel [mu_low, mu_high] from the first to the last position and sigma_r, the
+    standard deviation about the line (N - 2 degrees of freedom). The resulting distribution is
+    taken as the location spread evenly over the travel plus normal noise (:func:`travel_cdf`);
+    its 0.135 %, 50 % and 99.865 % points give Pp, PPU, PPL and Ppk by the percentile method
+    (the same formulas as for a fitted non-normal model).
+
+    >>> d = trend_capability([0, 0.2, 1, 1.2, 2, 2.2], [1, 1, 2, 2, 3, 3], lsl=-2, usl=4)
+    >>> round(d["slope"], 3), round(d["mu_low"], 3), round(d["mu_high"], 3), round(d["x50"], 3)
+    (1.0, 0.1, 2.1, 1.1)
+    """
+    x = np.asarray(values, dtype=float)
+    t = np.asarray(positions, dtype=float)
+    if x.size < 3 or np.ptp(t) == 0:
+        raise StudyInputError("a trend needs at least 3 readings at 2 or more positions.")
+    fit = stats.linregress(t, x)
+    resid = x - (fit.intercept + fit.slope * t)
+    sigma_r = float(np.sqrt(np.sum(resid ** 2) / (x.size - 2)))
+    ends = fit.intercept + fit.slope * np.array([t.min(), t.max()])
+    mu_low, mu_high = float(ends.min()), float(ends.max())
+    out = {"slope": float(fit.slope), "intercept": float(fit.intercept), "sigma_r": sigma_r,
+           "mu_low": mu_low, "mu_high": mu_high, "x0135": None, "x50": (mu_low + mu_high) / 2,
+           "x99865": None, "pp": None, "ppu": None, "ppl": None, "ppk": None}
+    if sigma_r == 0:
+        return out
+    lo = _travel_ppf(0.00135, mu_low, mu_high, sigma_r)
+    hi = _travel_ppf(0.99865, mu_low, mu_high, sigma_r)
+    mid = out["x50"]
+    out.update(x0135=lo, x99865=hi)
+    if usl is not None:
+        out["ppu"] = (usl - mid) / (hi - mid)
+    if lsl is not None:
+        out["ppl"] = (mid - lsl) / (mid - lo)
+    if usl is not None and lsl is not None:
+        out["pp"] = (usl - lsl) / (hi - lo)
+    sides = [v for v in (out["ppu"], out["ppl"]) if v is not None]
+    out["ppk"] = min(sides) if sides else None
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class TimeModel:
+    """The time-dependent distribution model of one characteristic.
+
+    Attributes
+    ----------
+    cls : str or None
+        ``"A1"``, ``"A2"``, ``"B"``, ``"C1"``, ``"C2"``, ``"C3"``, ``"C4"``, ``"D"``; None when
+        the data cannot be classified (individual values).
+    reason : str
+        The evidence in words.
+    method : str
+        What the capability of this class uses.
+    components : VarianceComponents or None
+    trend : dict or None
+        ``tau``, ``p_value`` (Mann-Kendall of the subgroup means), ``slope`` per subgroup,
+        ``residual_f``, ``residual_p`` (random part left about the line).
+    spread : StreamTest or None
+        Brown-Forsythe test of the subgroups.
+    shape : dict or None
+        Anderson-Darling of the centred readings: ``statistic``, ``p_value``, ``normal``.
+    indices : dict
+        The indices by the class's method (pp, ppk, ppu, ppl; cp, cpk for A1), ``sigma`` used,
+        and for C3/C4 the trend capability's mu_low, mu_high, sigma_r.
+    """
+
+    cls: str | None
+    reason: str
+    method: str
+    components: VarianceComponents | None = None
+    trend: dict | None = None
+    spread: object = None
+    shape: dict | None = None
+    indices: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
+        return {
+            "class": self.cls, "location": loc, "spread": spr, "reason": self.reason,
+            "method": self.method,
+            "components": None if self.components is None else self.components.to_dict(),
+            "trend": None if self.trend is None else {k: _f(v) if not isinstance(v, bool) else v
+                                                      for k, v in self.trend.items()},
+            "spread_test": None if self.spread is None else self.spread.to_dict(),
+            "shape": None if self.shape is None else {k: _f(v) if not isinstance(v, bool) else v
+                                                      for k, v in self.shape.items()},
+            "indices": {k: _f(v) for k, v in self.indices.items()},
+            "source": "ISO 22514-2 time-dependent distribution models (classes and methods "
+                      "from memory, not from the standard's text)",
+        }
+
+
+def _p(v) -> str:
+    return f"{v:.3g}"
+
+
+def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> TimeModel:
+    """Classify readings in production order into the ISO 22514-2 time-dependent models and
+    compute the capability by the class's method.
+
+    ``values`` and ``subgroups`` in production order (the order of first appearance of the
+    subgroup labels is their time order).
+    """
+    from studykit.stats.normality import anderson_darling
+    from studykit.stats.streams import spread_test
+
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    n_i = np.bincount(codes, minlength=k)
+    if k < 3 or np.median(n_i) < 2:
+        return TimeModel(None, "individual values or fewer than 3 subgroups: within- and "
+                         "between-subgroup variation cannot be separated, so no time-dependent "
+                         "model is assigned", "the ordinary indices")
+    vc = variance_components(x, codes)
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    pos = np.arange(1, k + 1, dtype=float)
+    tau = stats.kendalltau(pos, means)
+    trend_sig = bool(tau.pvalue < alpha)
+    # the random part left about a straight line through the subgroup means
+    line = stats.linregress(pos, means)
+    resid = means - (line.intercept + line.slope * pos)
+    ms_resid = vc.n0 * float(np.sum(resid ** 2)) / (k - 2) if k > 2 else math.nan
+    dfw = vc.n_total - k
+    rf = ms_resid / vc.msw if vc.msw > 0 else math.inf
+    rp = float(stats.f.sf(rf, k - 2, dfw)) if math.isfinite(rf) else 0.0
+    trend = {"tau": float(tau.statistic), "p_value": float(tau.pvalue),
+             "slope": float(line.slope), "residual_f": rf, "residual_p": rp,
+             "significant": trend_sig}
+    spread = None
+    if np.all(n_i >= 2):
+        try:
+            spread = spread_test(x, codes.astype(str), alpha=alpha, word="subgroup")
+        except StudyInputError:
+            spread = None
+    spread_varies = bool(spread is not None and spread.differ)
+    # shape of the resulting distribution (all readings) and of the instantaneous one (each
+    # subgroup centred); the class reads the resulting one, which for constant location is the
+    # instantaneous one
+    ad = anderson_darling(x)
+    ad_within = anderson_darling(x - means[codes])
+    normal = bool(ad.p_value >= alpha)
+    shape = {"statistic": float(ad.a2), "p_value": float(ad.p_value), "normal": normal,
+             "within_statistic": float(ad_within.a2), "within_p_value": float(ad_within.p_value)}
+    random_loc = bool(vc.p_value < alpha)
+    words = [f"between subgroups F = {_p(vc.f)}, p = {_p(vc.p_value)} (sigma between "
+             f"{_p(vc.sigma_between)}, within {_p(vc.sigma_within)})",
+             f"trend of the subgroup means: Kendall tau = {_p(tau.statistic)}, p = "
+             f"{_p(tau.pvalue)}"]
+    if spread is not None:
+        words.append(f"spread of the subgroups: Brown-Forsythe p = {_p(spread.p_value)}")
+    words.append(f"shape of all readings: Anderson-Darling p = {_p(ad.p_value)} (each "
+                 f"subgroup centred: p = {_p(ad_within.p_value)})")
+    if spread_varies and (random_loc or trend_sig):
+        cls = "D"
+    elif spread_varies:
+        cls = "B"
+    elif trend_sig:
+        cls = "C4" if rp < alpha else "C3"
+        words.append(f"random part about the trend: F = {_p(rf)}, p = {_p(rp)}")
+    elif random_loc:
+        cls = "C1" if normal else "C2"
+    else:
+        cls = "A1" if normal else "A2"
+    indices: dict = {}
+    if cls in ("C3", "C4"):
+        tc = trend_capability(x, pos[codes], lsl=lsl, usl=usl)
+        indices = {k2: tc[k2] for k2 in ("pp", "ppk", "ppu", "ppl", "mu_low", "mu_high",
+                                         "sigma_r", "x0135", "x50", "x99865")}
+    elif cls == "C1":
+        s = vc.sigma_total
+        mean = float(x.mean())
+        ppu = None if usl is None else (usl - mean) / (3 * s)
+        ppl = None if lsl is None else (mean - lsl) / (3 * s)
+        sides = [v for v in (ppu, ppl) if v is not None]
+        indices = {"pp": None if lsl is None or usl is None else (usl - lsl) / (6 * s),
+                   "ppk": min(sides) if sides else None, "ppu": ppu, "ppl": ppl, "sigma": s}
+    return TimeModel(cls, "; ".join(words), CLASSES[cls][2], components=vc, trend=trend,
+                     spread=spread, shape=shape, indices=indices)

@@ -1,0 +1,68 @@
+"""The workbook shows the streams of a characteristic: the Capability step's "Streams" panel
+(table, tests, group chart) and the stream rows under their characteristic in the overview."""
+
+from __future__ import annotations
+
+import shutil
+
+import ipywidgets as widgets
+import pytest
+
+from studykit.app.session import demo_study_path
+from studykit.app.shell import build_workbook
+from studykit.app.steps.capability import CapabilityStep
+from studykit.app.steps.intake import IntakeStep
+from studykit.app.steps.limits import LimitsStep
+
+STREAMED = "impeller_hub_bore"
+
+
+@pytest.fixture
+def wb(tmp_path):
+    path = tmp_path / "pilot.study"
+    shutil.copy(demo_study_path(), path)
+    steps = [IntakeStep(), LimitsStep(), CapabilityStep()]
+    wb = build_workbook(path, steps=steps)
+    for s in steps[1:]:
+        wb.select(s.key)
+    assert not [m for m in wb.context.messages.messages if m[0] == "error"]
+    return wb
+
+
+def test_capability_step_shows_the_streams_panel(wb):
+    cap = wb.step("capability")
+    cap.ws.picker.value = STREAMED
+    res = cap.ws.session.result(STREAMED)
+    assert "Class A2" in cap.streams.children[0].value  # ISO 22514-2 class of the whole
+    html = cap.streams.children[1].value
+    assert "Streams" in html and html.count("sk-stream-row") == 4
+    assert f"Worst stream: {res.streams.worst}" in html
+    assert "one-way ANOVA" in html and "Brown-Forsythe" in html
+    img = cap.streams.children[2]
+    assert isinstance(img, widgets.Image) and img.value[:4] == b"\x89PNG"
+    cap.ws.picker.value = "flange_thickness"  # no stream column: only the class
+    assert len(cap.streams.children) == 1
+    assert "Class A1" in cap.streams.children[0].value
+
+
+def test_capability_step_shows_the_trend_class(wb):
+    cap = wb.step("capability")
+    cap.ws.picker.value = "shaft_seat_diameter"  # invented tool wear: class C3
+    res = cap.ws.session.result("shaft_seat_diameter")
+    html = cap.streams.children[0].value
+    assert "Class C3" in html and "location systematic" in html
+    assert f"ppk {res.time_model.indices['ppk']:.2f}" in html.lower()
+
+
+def test_overview_lists_streams_under_their_characteristic(wb):
+    lim = wb.step("limits")
+    lim.overview.analyse.click()
+    cells = lim.overview.table.children
+    names = [(c.children[0].description if hasattr(c, "children") else c.value)
+             for c in cells[6::6]]
+    at = names.index(STREAMED)
+    assert names[at + 1:at + 5] == ["↳ stream 1", "↳ stream 2", "↳ stream 3 (worst)",
+                                    "↳ stream 4"]
+    res = lim.ws.session.result(STREAMED)
+    row3 = cells[6 * (at + 3) + 6: 6 * (at + 3) + 12]
+    assert f"{res.streams.results['3'].verdict.lower_bound:.2f}" in row3[3].value
