@@ -367,6 +367,9 @@ class CharacteristicResult:
     #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
     measurement_error: dict | None = None
     kept_signals: tuple = ()
+    #: the ISO 16269-6 interval judged by the tolerance-interval criterion, when it is set
+    #: (see studykit.intervals)
+    tolerance_interval: dict | None = None
 
     @property
     def chart(self) -> ControlChart:
@@ -596,6 +599,8 @@ class CharacteristicResult:
             out.update(ac.to_dict())
         if self.measurement_error is not None:
             out["measurement_error"] = self.measurement_error
+        if self.tolerance_interval is not None:
+            out["tolerance_interval"] = self.tolerance_interval
         return out
 
 
@@ -669,6 +674,10 @@ def _criteria_dict(criteria) -> dict:
         "threshold": float(criteria.threshold),
         "basis": criteria.basis,
         "confidence": float(criteria.confidence),
+        # the tolerance-interval criterion only when set (JSON of other studies unchanged)
+        **({"interval_coverage": float(criteria.interval_coverage),
+            "interval_confidence": float(criteria.interval_confidence)}
+           if getattr(criteria, "interval_coverage", None) is not None else {}),
     }
 
 
@@ -1359,6 +1368,15 @@ def analyze_characteristic(
     if withheld:
         verdict = _withhold(verdict, withheld)
         findings[:0] = list(withheld)
+    interval = None
+    if "interval_coverage" in crit:  # the tolerance-interval criterion, beside the index
+        from studykit import intervals
+
+        ti = intervals.criterion_interval(
+            x, lsl=spec.lsl, usl=spec.usl, model_name=choice.name,
+            coverage=crit["interval_coverage"], confidence=crit["interval_confidence"])
+        verdict = intervals.judge_with_interval(verdict, ti)
+        interval = intervals.interval_block(ti)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
     measurement_error = _measurement_error(gauge, mean=mean, within=within, df_within=df_within,
@@ -1391,6 +1409,7 @@ def analyze_characteristic(
         plan=plan,
         warnings=tuple(warn),
         measurement_error=measurement_error,
+        tolerance_interval=interval,
     )
 
 
