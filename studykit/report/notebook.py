@@ -86,13 +86,13 @@ readings. A stored gauge R&R also feeds the analysis (its finding, and the indic
 gauge variance removed).
 """),
         _code("""
-from studykit.report.pdf import _load_with_chain
+from studykit.analysis import gauge_results
 from studykit.report.gauge_error import recheck_short_study, stored_short_studies
 
-_, gauges, _, _ = _load_with_chain(STUDY)
+gauges = {name: g for name, g in gauge_results(study_file).items()
+          if name in study.characteristics}
 for name, g in sorted(gauges.items()):
-    print(f"{name}: gauge R&R {g.get('pct_grr_study_variation')} "
-          f"% of study variation, ndc {g.get('ndc')}")
+    print(f"{name}: {(g.get('verdict') or {}).get('message')}")
 short_gauges = stored_short_studies(STUDY, study)
 for name, payload in short_gauges.items():
     fresh = recheck_short_study(payload)
@@ -169,7 +169,29 @@ for name, res in results.items():
         print("   ", SAFETY_SENTENCE)
 """),
         _md("""
-## 7. The same numbers as the report
+## 7. Positional tolerances
+
+Position studies kept beside the study (X and Y deviations against a true-position zone of
+diameter T) are recomputed from their stored deviations: the bivariate normal model, the expected
+PPM outside the zone and its equivalent index, and the one-dimensional shortcut beside them.
+"""),
+        _code("""
+from studykit.positions import position_result, stored_positions
+
+def three(v):
+    return "-" if v is None else f"{v:.3f}"
+
+
+positions = {}
+for name, payload in stored_positions(STUDY).items():
+    pos = position_result(payload)
+    positions[name] = pos.to_dict()
+    print(f"{name}: {pos.n} parts, zone {pos.tolerance:g}; expected {pos.ppm_expected:.4g} PPM "
+          f"outside (index {three(pos.index)}); shortcut {pos.shortcut_ppm:.4g} PPM "
+          f"(index {three(pos.shortcut_index)}); observed outside {pos.observed_outside}")
+"""),
+        _md("""
+## 8. The same numbers as the report
 
 Every number above, as JSON (the same fields as `studykit analyze --json`). With `PDF` set, the
 numbers are compared with the evidence embedded in the report, at the relative tolerance
@@ -182,8 +204,11 @@ recomputed = {name: res.to_dict() for name, res in results.items()}
 if PDF is not None:
     from studykit.report.pdf import read_evidence
 
-    reported = read_evidence(PDF)["results"]
-    n, diffs = compare_numbers(reported, json.loads(json.dumps(recomputed)))
+    evidence = read_evidence(PDF)
+    n, diffs = compare_numbers(evidence["results"], json.loads(json.dumps(recomputed)))
+    for name, payload in (evidence.get("positions") or {}).items():
+        m, more = compare_numbers(payload["result"], positions.get(name), path=name)
+        n, diffs = n + m, diffs + more
     if diffs:
         raise AssertionError(f"{len(diffs)} number(s) differ from the report: {diffs[:5]}")
     print(f"all {n} numbers of the report agree")
@@ -220,7 +245,7 @@ def analysis_notebook(study_path, *, notebook_dir=None, pdf_path=None,
     --------
     >>> nb = analysis_notebook("demo_data/pump_housing_pilot.study", study_ref="s.study")
     >>> nb["nbformat"], sum(c["cell_type"] == "code" for c in nb["cells"])
-    (4, 8)
+    (4, 9)
     """
     from studykit.store import StudyFile
 
