@@ -49,7 +49,9 @@ def interval_rows(ti: Mapping, num) -> list[list[str]]:
                            False: "no: the interval reaches beyond the specification",
                            None: "not judged"}[meets]],
         ["Parts the criterion needs",
-         f"{plan.get('distribution_free', '-')} with every part inside (distribution-free); "
+         (f"{plan['distribution_free']} with every part inside (distribution-free); "
+          if plan.get("distribution_free") is not None else
+          "more than 100000 without a model (distribution-free); ")
          + (f"{plan['normal']} for a process like this one to pass with probability "
             f"{num(plan.get('power'), 3)} (normal theory)" if plan.get("normal") is not None
             else "no normal-theory size (such a process cannot pass)")],
