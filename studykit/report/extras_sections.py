@@ -124,7 +124,8 @@ def comparison_sentence(d: Mapping) -> str:
                 f"{two:.4g} PPM.")
     word = "fewer" if ratio > 1 else "more"
     factor = ratio if ratio > 1 else 1 / ratio
-    return (f"The shortcut expects {one:.4g} PPM outside the zone, {factor:.3g} times {word} "
+    times = f"{factor:,.0f}" if factor >= 10 else f"{factor:.2g}"
+    return (f"The shortcut expects {one:.4g} PPM outside the zone, {times} times {word} "
             f"than the two-dimensional model's {two:.4g} PPM: judge the position by the "
             "two-dimensional model.")
 

@@ -54,7 +54,8 @@ def test_interval_position_and_notebook(browser, extras_server, artifacts):
         page.screenshot(path=str(ARTIFACTS / "extras-interval-1280.png"))
         page.wait_for_selector(".sk-position-numbers :text('mounting_hole_position')")
         pos = page.locator(".sk-position-numbers").inner_text()
-        assert "One-dimensional shortcut" in pos and "Expected PPM" in pos, pos
+        assert "one-dimensional shortcut" in pos.lower() and "Expected PPM" in pos, pos
+        assert "times fewer than the two-dimensional model" in pos, pos
         assert page.locator(".sk-position-view img").count() == 1
         page.locator(".sk-position-view").scroll_into_view_if_needed()
         page.wait_for_timeout(400)

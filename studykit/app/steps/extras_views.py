@@ -51,7 +51,7 @@ def tolerance_interval_html(result) -> str:
     free = plan.get("distribution_free")
     normal = plan.get("normal")
     if ti.get("factor") is not None:
-        how = (f"x̄ ∓ k·s on the {esc(ti.get('scale'))} scale, k = {fmt(ti.get('factor'), 4)} "
+        how = (f"x̄ ± k·s on the {esc(ti.get('scale'))} scale, k = {fmt(ti.get('factor'), 4)} "
                f"({esc(ti.get('factor_method'))} factor, {esc(ti.get('model'))} model)")
     else:
         ranks = ", ".join("—" if r is None else str(r) for r in ti.get("order_statistics") or [])
@@ -122,6 +122,9 @@ class PositionView:
         self.image = widgets.Image(format="png", layout=widgets.Layout(width="420px"))
         self.numbers = html_box("", "sk-position-numbers")
         self.widget = widgets.VBox([
+            html_box('<div class="sk-panel-title">Position studies kept with this study</div>'
+                     '<div class="sk-muted">A true-position zone judged from X and Y deviations '
+                     "(for the whole study, whichever characteristic is open above).</div>"),
             self.choose,
             widgets.HBox([self.image, self.numbers],
                          layout=widgets.Layout(flex_flow="row wrap", align_items="flex-start")),
