@@ -279,3 +279,24 @@ def test_handoff_pack_holds_the_notebook(built, tmp_path):
     assert "STUDY = Path('study/demo.study')" in code and "PDF = 'report.pdf'" in code
     assert {"study/demo.study", "report.pdf"} <= names
     assert POSITION_KIND == "position"
+
+
+def test_position_cli_keeps_the_study_in_a_study_file(tmp_path, capsys):
+    study = tmp_path / "s.study"
+    shutil.copy(DEMO / "pump_housing_pilot.study", study)
+    csv = DEMO / "mounting_hole_position.csv"
+    assert main(["position", str(csv), "--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.25",
+                 "--study", str(study), "--name", "second_hole", "--who", "A. Tester",
+                 "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    kept = stored_positions(study)
+    assert set(kept) == {"mounting_hole_position", "second_hole"}
+    assert kept["second_hole"]["result"]["ppm_expected"] == out["ppm_expected"]
+    assert kept["second_hole"]["columns"] == {"x": "hole_dx", "y": "hole_dy"}
+    assert out["stored"]["name"] == "second_hole"
+    assert StudyFile(study).results(POSITION_KIND)[-1].who == "A. Tester"
+    # --study without --name is refused before anything is stored
+    assert main(["position", str(csv), "--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.25",
+                 "--study", str(study)]) == 2
+    assert "--name" in capsys.readouterr().err
+    assert len(StudyFile(study).results(POSITION_KIND)) == 2
