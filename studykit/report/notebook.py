@@ -115,8 +115,10 @@ results, errors, measurements = analyze_for_report(study, gauges)
 for name, res in results.items():
     chart = res.chart
     removed = ", ".join(res.removed_subgroups) or "none"
+    loc = res.to_dict()["chart"]["location"] or {}
     print(f"{name}: {chart.kind} chart, {res.n} values in {res.subgroups} subgroups, "
-          f"removed subgroups: {removed}, open signals: {len(res.open_signals)}")
+          f"removed subgroups: {removed}, open signals: {len(res.open_signals)}; "
+          f"limits LCL {loc.get('lcl')}, centre {loc.get('center')}, UCL {loc.get('ucl')}")
 for name, message in errors.items():
     print(f"{name}: not analysed: {message}")
 """),
