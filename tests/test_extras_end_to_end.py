@@ -300,3 +300,34 @@ def test_position_cli_keeps_the_study_in_a_study_file(tmp_path, capsys):
                  "--study", str(study)]) == 2
     assert "--name" in capsys.readouterr().err
     assert len(StudyFile(study).results(POSITION_KIND)) == 2
+
+
+def test_analyze_prints_the_interval_line(capsys):
+    assert main(["analyze", "--study", str(DEMO / "pump_housing_pilot.study"), "-c",
+                 "bore_diameter"]) == 0
+    out = capsys.readouterr().out
+    assert ("tolerance interval (at least 99% of parts within specification with 95% "
+            "confidence): holds") in out
+
+
+def test_a_changed_interval_number_is_found_by_the_comparison_verify_makes():
+    from studykit.report.verify import compare_numbers
+
+    res = analyze_study(StudyFile(DEMO / "pump_housing_pilot.study").load(), "bore_diameter")
+    fresh = json.loads(json.dumps(res.to_dict()))
+    forged = json.loads(json.dumps(fresh))
+    forged["tolerance_interval"]["upper"] = 12.01  # the interval drawn narrower
+    _, diffs = compare_numbers(forged, fresh)
+    assert diffs == [f"tolerance_interval.upper: report 12.01, recomputed "
+                     f"{fresh['tolerance_interval']['upper']:.10g}"]
+
+
+def test_position_view_shows_the_caution_for_a_safety_critical_position():
+    from studykit.app.steps.extras_views import position_html
+    from studykit.positions import position_result
+
+    payload = dict(stored_positions(DEMO / "pump_housing_pilot.study")["mounting_hole_position"])
+    d = position_result(payload).to_dict()
+    assert "do not replace" not in position_html("hole", payload, d)
+    payload["safety_critical"] = True
+    assert "do not replace" in position_html("hole", payload, d)

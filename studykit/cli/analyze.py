@@ -361,6 +361,10 @@ def format_result(res) -> str:
         mark = {True: "MEETS", False: "DOES NOT MEET", None: "NOT JUDGED"}[d["verdict"]["meets"]]
         lines.append(f"verdict: {mark} {d['verdict']['criterion']}")
         lines.append(f"  {d['verdict']['text']}")
+    if d.get("tolerance_interval"):  # the tolerance-interval criterion, when set
+        ti = d["tolerance_interval"]
+        word = {True: "holds", False: "NOT MET", None: "NOT JUDGED"}[ti["meets"]]
+        lines.append(f"tolerance interval ({ti['criterion']}): {word}; {ti['statement']}")
     for f in d["findings"]:
         lines.append(f"  * {f['text']}")
     if d.get("measurement_error"):

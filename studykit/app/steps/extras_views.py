@@ -80,6 +80,7 @@ def tolerance_interval_html(result) -> str:
 
 def position_html(name: str, payload: Mapping, d: Mapping) -> str:
     """Numbers of one position study: the model against the shortcut, and what was observed."""
+    from studykit.analysis import SAFETY_SENTENCE
     from studykit.report.extras_sections import comparison_sentence
 
     sc = d.get("shortcut") or {}
@@ -110,7 +111,9 @@ def position_html(name: str, payload: Mapping, d: Mapping) -> str:
             '<div class="sk-small">Two-dimensional model: bivariate normal with offset, unequal '
             "spreads and correlation, integrated outside the circular zone; the equivalent "
             "index has the same expected PPM. Shortcut: 2·√(dx² + dy²) as normal against T "
-            "(bounded at zero and skewed, so it misjudges the tail).</div>")
+            "(bounded at zero and skewed, so it misjudges the tail).</div>"
+            + (f'<div class="sk-msg sk-msg-warning">{esc(SAFETY_SENTENCE)}</div>'
+               if payload.get("safety_critical") else ""))
 
 
 class PositionView:
