@@ -79,6 +79,13 @@ CHARACTERISTICS = [
 ]
 CRITERIA = {c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
             for c in CHARACTERISTICS if not c.is_attribute}
+# the safety-critical bore is also judged by a tolerance interval: at least 99 % of parts within
+# specification with 95 % confidence (ISO 16269-6), as a medical-device customer might ask
+CRITERIA["bore_diameter"] = Criteria(index="ppk", threshold=1.67, basis="lower_bound",
+                                     interval_coverage=0.99, interval_confidence=0.95)
+#: the position study kept beside the demo study (zone diameter 0.20 mm)
+POSITION_NAME = "mounting_hole_position"
+POSITION_TOLERANCE = 0.20
 
 # the recorded decisions and the comment of the demo study (fixed times so the demo is stable)
 DECISIONS = [
@@ -244,7 +251,8 @@ def wear_file() -> bytes:
 
 def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     """The demo study file: three data files, specs, criteria, decisions with reasons, one
-    comment, and the gauge R&R result beside the characteristic it qualifies."""
+    comment, the gauge R&R result beside the characteristic it qualifies, the short gauge
+    study and the position study of the mounting hole."""
     from studykit.stats.gauge import gauge_rr
 
     path = folder / STUDY_FILE
@@ -274,6 +282,16 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
                      dict(short.to_dict(), source_file=REFERENCE_CSV, limits_from="study",
                           columns={"value": "reading"}), who="L. Haverkamp",
                      when="2026-03-03T10:01:00Z")
+    from studykit.positions import POSITION_KIND, position_payload
+
+    rows = [line.split(",") for line in files[POSITION_CSV].decode().splitlines()[1:]]
+    sf.attach_result(POSITION_KIND, None, position_payload(
+        POSITION_NAME, [float(r[1]) for r in rows], [float(r[2]) for r in rows],
+        tolerance=POSITION_TOLERANCE, unit="mm", source_file=POSITION_CSV,
+        columns={"x": "hole_dx", "y": "hole_dy"},
+        description="Mounting hole true position to datums A|B|C, zone diameter 0.20 mm "
+                    "(invented)"), who="R. Okonkwo", reason="position study of the mounting hole",
+        when="2026-03-03T10:20:00Z")
     sf.add_comment(**COMMENT)
     return path
 
@@ -293,6 +311,9 @@ def logical_content(path: Path) -> dict:
     for key in ("decisions", "comments", "signoffs"):
         for item in d[key]:
             item.pop("when", None)
+    from studykit.positions import stored_positions
+
+    d["positions"] = stored_positions(path)
     return d
 
 

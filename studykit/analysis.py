@@ -410,6 +410,9 @@ class CharacteristicResult:
     streams: object = None
     #: ISO 22514-2 time-dependent model: studykit.stats.timedep.TimeModel
     time_model: object = None
+    #: the ISO 16269-6 interval judged by the tolerance-interval criterion, when it is set
+    #: (see studykit.intervals)
+    tolerance_interval: dict | None = None
 
     @property
     def chart(self) -> ControlChart:
@@ -650,6 +653,8 @@ class CharacteristicResult:
             out["streams"] = self.streams.to_dict()
         if self.time_model is not None:
             out["time_model"] = self.time_model.to_dict()
+        if self.tolerance_interval is not None:
+            out["tolerance_interval"] = self.tolerance_interval
         return out
 
 
@@ -723,6 +728,10 @@ def _criteria_dict(criteria) -> dict:
         "threshold": float(criteria.threshold),
         "basis": criteria.basis,
         "confidence": float(criteria.confidence),
+        # the tolerance-interval criterion only when set (JSON of other studies unchanged)
+        **({"interval_coverage": float(criteria.interval_coverage),
+            "interval_confidence": float(criteria.interval_confidence)}
+           if getattr(criteria, "interval_coverage", None) is not None else {}),
     }
 
 
@@ -1452,6 +1461,15 @@ def analyze_characteristic(
     if withheld:
         verdict = _withhold(verdict, withheld)
         findings[:0] = list(withheld)
+    interval = None
+    if "interval_coverage" in crit:  # the tolerance-interval criterion, beside the index
+        from studykit import intervals
+
+        ti = intervals.criterion_interval(
+            x, lsl=spec.lsl, usl=spec.usl, model_name=choice.name,
+            coverage=crit["interval_coverage"], confidence=crit["interval_confidence"])
+        verdict = intervals.judge_with_interval(verdict, ti)
+        interval = intervals.interval_block(ti)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
     measurement_error = _measurement_error(gauge, mean=mean, within=within, df_within=df_within,
@@ -1489,6 +1507,7 @@ def analyze_characteristic(
         plan=plan,
         warnings=tuple(warn),
         measurement_error=measurement_error,
+        tolerance_interval=interval,
     )
 
 

@@ -367,6 +367,10 @@ class Criteria:
         point estimate.
     confidence : float
         Confidence level of the lower bound, in (0, 1).
+    interval_coverage, interval_confidence : float, optional
+        The tolerance-interval criterion "at least P of parts within specification with
+        confidence C" (ISO 16269-6, common in medical-device process validation), judged beside
+        the index when set (both or neither; see :mod:`studykit.intervals`).
 
     Notes
     -----
@@ -376,8 +380,9 @@ class Criteria:
 
     Examples
     --------
-    >>> Criteria()
-    Criteria(index='ppk', threshold=1.67, basis='lower_bound', confidence=0.95)
+    >>> Criteria()  # doctest: +NORMALIZE_WHITESPACE
+    Criteria(index='ppk', threshold=1.67, basis='lower_bound', confidence=0.95,
+             interval_coverage=None, interval_confidence=None)
     >>> Criteria(index="cpk", threshold=1.33).describe()
     'Cpk lower 95% bound >= 1.33'
     """
@@ -386,8 +391,13 @@ class Criteria:
     threshold: float = names.DEFAULT_CRITERION["threshold"]
     basis: str = names.DEFAULT_CRITERION["basis"]
     confidence: float = names.DEFAULT_CRITERION["confidence"]
+    #: the tolerance-interval criterion "at least P of parts within specification with
+    #: confidence C" (ISO 16269-6), judged beside the index when both are set; None: not used
+    interval_coverage: float | None = None
+    interval_confidence: float | None = None
 
     def __post_init__(self):
+        _check_interval_criterion(self)
         index = _text(self.index, name="index", error=SpecError).strip().lower()
         if index not in INDICES:
             raise SpecError(f"`index` ({self.index!r}) must be one of {', '.join(INDICES)}")
@@ -407,16 +417,41 @@ class Criteria:
                             "0.5 or above (a bound below 50% is no lower bound), e.g. 0.95")
         object.__setattr__(self, "confidence", conf)
 
+    @property
+    def has_interval(self) -> bool:
+        """The tolerance-interval criterion is set."""
+        return self.interval_coverage is not None
+
+    def describe_interval(self) -> str | None:
+        """The tolerance-interval criterion in words, or None when it is not set.
+
+        >>> Criteria(interval_coverage=0.99, interval_confidence=0.95).describe_interval()
+        'at least 99% of parts within specification with 95% confidence'
+        """
+        if not self.has_interval:
+            return None
+        return (f"at least {self.interval_coverage * 100:g}% of parts within specification "
+                f"with {self.interval_confidence * 100:g}% confidence")
+
     def describe(self) -> str:
         """One line for a table, e.g. ``Ppk lower 95% bound >= 1.67``."""
         label = names.index_label(self.index)
         if self.basis == "lower_bound":
-            return f"{label} lower {self.confidence * 100:g}% bound >= {self.threshold:g}"
-        return f"{label} >= {self.threshold:g}"
+            text = f"{label} lower {self.confidence * 100:g}% bound >= {self.threshold:g}"
+        else:
+            text = f"{label} >= {self.threshold:g}"
+        if self.has_interval:
+            text += f"; and {self.describe_interval()}"
+        return text
 
     def to_dict(self) -> dict:
-        """JSON-safe dict of every field."""
-        return dataclasses.asdict(self)
+        """JSON-safe dict of every field (the interval criterion only when set, so studies
+        without it keep the digest they always had)."""
+        out = dataclasses.asdict(self)
+        if not self.has_interval:
+            out.pop("interval_coverage")
+            out.pop("interval_confidence")
+        return out
 
     @classmethod
     def from_dict(cls, d: Mapping) -> Criteria:
@@ -1386,9 +1421,31 @@ def check_chart_fits(c: Characteristic, chart: str) -> None:
         )
 
 
+def _check_interval_criterion(crit: Criteria) -> None:
+    """Both or neither of P and C, each strictly between 0 and 1 (P: 0.5 or above)."""
+    p = _number(crit.interval_coverage, name="interval_coverage")
+    c = _number(crit.interval_confidence, name="interval_confidence")
+    object.__setattr__(crit, "interval_coverage", p)
+    object.__setattr__(crit, "interval_confidence", c)
+    if p is None and c is None:
+        return
+    if p is None or c is None:
+        raise SpecError("the tolerance-interval criterion needs both `interval_coverage` (P, "
+                        "e.g. 0.99) and `interval_confidence` (C, e.g. 0.95), or neither")
+    for key, value in (("interval_coverage", p), ("interval_confidence", c)):
+        if not 0.5 <= value < 1:
+            raise SpecError(f"`{key}` ({value!r}) must lie between 0.5 and 1 (a share, "
+                            "e.g. 0.99 for 99%)")
+
+
 def check_criteria_fits(c: Characteristic, crit: Criteria) -> None:
     """Refuse a criterion the characteristic cannot be judged on (Cp/Pp need both limits, Cpm a
     target)."""
+    if crit.has_interval and c.is_attribute:
+        raise SpecError(
+            f"characteristic '{c.name}': the tolerance-interval criterion needs measured "
+            "values; counted (attribute) data are judged by their defective rate"
+        )
     if crit.index in ("cp", "pp") and not c.two_sided:
         raise SpecError(
             f"characteristic '{c.name}': criterion `index` '{crit.index}' needs both limits "

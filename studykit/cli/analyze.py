@@ -372,6 +372,10 @@ def format_result(res) -> str:
         mark = names.verdict_label(d).upper()
         lines.append(f"verdict: {mark} ({names.criterion_text(v['index'], v['threshold'])})")
         lines.append(f"  {d['verdict']['text']}")
+    if d.get("tolerance_interval"):  # the tolerance-interval criterion, when set
+        ti = d["tolerance_interval"]
+        word = {True: "holds", False: "NOT MET", None: "NOT JUDGED"}[ti["meets"]]
+        lines.append(f"tolerance interval ({ti['criterion']}): {word}; {ti['statement']}")
     for f in d["findings"]:
         lines.append(f"  * {names.finding_title(f['code'])}: {f['text']}")
     if d.get("measurement_error"):

@@ -263,7 +263,9 @@ def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=
                       else f"{res.plan.normal} (a process like this sample, on the "
                       f"{'data' if res.model == 'distribution_free' else res.scale} scale, "
                       f"passes with probability {100 * res.plan.power:g} %)")
-            lines.append(f"Parts needed:  distribution-free {res.plan.distribution_free} "
+            free = ("more than 100000" if res.plan.distribution_free is None
+                    else res.plan.distribution_free)
+            lines.append(f"Parts needed:  distribution-free {free} "
                          "(all inside the specification); normal-theory " + normal)
     all_notes = [*notes, *res.notes]
     if all_notes:

@@ -41,6 +41,14 @@ def register(sub) -> None:
     p.add_argument("--safety-critical", action="store_true",
                    help="mark the characteristic safety-critical (prints the caution)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--study", metavar="STUDYFILE",
+                   help="keep the position study in this study file (needs --name); the "
+                   "workbook, the PDF and verify then show and check it")
+    p.add_argument("--name", metavar="NAME", help="name of the position study (with --study)")
+    p.add_argument("--who", metavar="NAME",
+                   help="name recorded with the stored study (default: the login name)")
+    p.add_argument("--override-lock", metavar="REASON",
+                   help="store it in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
 
@@ -70,6 +78,9 @@ def run(args) -> int:
     if args.figure and Path(args.figure).suffix.lower() not in FIGURE_SUFFIXES:
         raise StudyInputError(f"--figure '{args.figure}': the file name must end in "
                               + ", ".join(FIGURE_SUFFIXES))
+    if bool(args.study) != bool(args.name):
+        raise StudyInputError("--study and --name go together: name the position study kept "
+                              "in the study file, e.g. --study pilot.study --name hole_position")
     if args.x == args.y:
         raise StudyInputError(f"--x and --y both name column '{args.x}'; give the X and the "
                               "Y deviation columns")
@@ -82,6 +93,21 @@ def run(args) -> int:
             raise
         raise type(exc)(exc.detail, file=m.source) from None
     notes = [f"{n_empty} row(s) without deviations left out"] if n_empty else []
+    stored_id = None
+    if args.study:
+        from studykit.cli.gauge import _login_name
+        from studykit.positions import POSITION_KIND, position_payload
+        from studykit.store import StudyFile
+
+        payload = position_payload(args.name, dx, dy, tolerance=args.tolerance, unit=xd.unit,
+                                   source_file=Path(args.file).name,
+                                   columns={"x": xd.name, "y": yd.name},
+                                   safety_critical=bool(args.safety_critical))
+        lock = ({"override_lock": True, "override_reason": args.override_lock}
+                if args.override_lock else {})
+        stored_id = StudyFile(args.study).attach_result(
+            POSITION_KIND, None, payload, who=args.who or _login_name(),
+            reason=f"position study {args.name} from {Path(args.file).name}", **lock)
     if args.figure:
         from studykit.report.position_figures import position_figure
 
@@ -103,6 +129,9 @@ def run(args) -> int:
         out["figure"] = args.figure
         out["safety_critical"] = bool(args.safety_critical)
         out["caution"] = caution
+        if stored_id is not None:
+            out["stored"] = {"study": Path(args.study).name, "name": args.name,
+                             "result_id": stored_id}
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
@@ -110,6 +139,8 @@ def run(args) -> int:
                                          notes=notes, caution=caution))
         if args.figure:
             sys.stdout.write(f"Figure written to {args.figure}\n")
+        if stored_id is not None:
+            sys.stdout.write(f"Kept in {args.study} as position study '{args.name}'.\n")
     return 0
 
 

@@ -40,6 +40,10 @@ def register(sub) -> None:
     p.add_argument("--handoff-draft", action="store_true",
                    help="make the hand-off zip even when not every characteristic is ready, "
                    "with every file stamped DRAFT and the reason")
+    p.add_argument("--notebook", metavar="IPYNB",
+                   help="also write the reproducible analysis notebook: it opens the study "
+                   "file, recomputes every number of the report step by step with the studykit "
+                   "library and compares them with the PDF")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
 
@@ -98,6 +102,8 @@ def run(args) -> int:
 
     out = Path(args.output) if args.output else Path(args.study).with_suffix(".pdf")
     progress = _progress(args.quiet)
+    if args.notebook and Path(args.notebook).suffix.lower() != ".ipynb":
+        raise StudyInputError(f"--notebook '{args.notebook}': the file name must end in .ipynb")
     passphrase = None
     if args.sign:
         passphrase = os.environ.get(args.passphrase_env)
@@ -132,6 +138,11 @@ def run(args) -> int:
         sig = sign_report(out, out, args.sign, passphrase, role=args.role, name=name)
         print(f"Signed {out} as {sig.field_name} ({sig.reason}; certificate {sig.subject})"
               + ("" if sig.visible else "; no box for this role, signature is invisible"))
+    if args.notebook:
+        from studykit.report.notebook import write_notebook
+
+        nb = write_notebook(args.study, args.notebook, pdf_path=out)
+        print(f"Wrote {nb} (run it to recompute the report's numbers from {args.study}).")
     if args.handoff:
         from studykit.report.handoff import build_handoff
 

@@ -114,6 +114,10 @@ def register(subparsers) -> None:
     st.add_argument("--threshold", type=float)
     st.add_argument("--basis", choices=("lower_bound", "estimate"))
     st.add_argument("--confidence", type=float)
+    st.add_argument("--interval", metavar="P,C",
+                    help="tolerance-interval criterion beside the index: at least P of parts "
+                    "within specification with confidence C (ISO 16269-6), e.g. 0.99,0.95; "
+                    "'none' removes it")
     st.add_argument("--model", help="distribution model name, or auto")
     st.add_argument("--chart", help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and "
                     "X-bar-R are accepted too)")
@@ -595,9 +599,12 @@ def run_set(args) -> int:
     crit_changes = {k: v for k, v in (("index", args.criterion), ("threshold", args.threshold),
                                       ("basis", args.basis), ("confidence", args.confidence))
                     if v is not None}
+    if args.interval is not None:
+        crit_changes.update(_interval_option(args.interval))
     if not (spec_changes or crit_changes or args.model or args.chart):
         raise StudyInputError("nothing to change: give --lsl, --usl, --target, --criterion, "
-                              "--threshold, --basis, --confidence, --model or --chart")
+                              "--threshold, --basis, --confidence, --interval, --model or "
+                              "--chart")
 
     if args.chart:
         try:
@@ -753,3 +760,18 @@ def run_log(args) -> int:
               f"{chain.summary()}", file=sys.stderr)
         return 2
     return 0
+
+
+def _interval_option(text: str) -> dict:
+    """``--interval P,C`` (or ``none``) as Criteria fields."""
+    t = text.strip().lower()
+    if t in ("none", "off", ""):
+        return {"interval_coverage": None, "interval_confidence": None}
+    parts = [p.strip() for p in t.replace(";", ",").split(",")]
+    try:
+        p, c = (float(v) for v in parts)
+    except ValueError:
+        raise StudyInputError(f"--interval '{text}': give P and C as shares separated by a "
+                              "comma, e.g. 0.99,0.95 (or 'none' to remove the criterion)"
+                              ) from None
+    return {"interval_coverage": p, "interval_confidence": c}

@@ -267,6 +267,11 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         (f"study/{spath.name}", spath.read_bytes()),
         *((f"data/{name}", blob) for name, blob in study.files),
     ]
+    # the reproducible analysis notebook: opens study/<file> and compares with report.pdf
+    from studykit.report.notebook import NOTEBOOK_FILENAME, analysis_notebook, notebook_bytes
+
+    entries.append((NOTEBOOK_FILENAME, notebook_bytes(analysis_notebook(
+        spath, study_ref=f"study/{spath.name}", pdf_ref="report.pdf"))))
     if draft:
         entries.append(("DRAFT-NOT-FOR-PRODUCTION.txt", (
             f"{DRAFT_NOTE.upper()}\n\nThis hand-off pack was made although not every "

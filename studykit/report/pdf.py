@@ -1304,7 +1304,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
                  *, chain: Mapping | None, evidence_sha: str,
                  short_gauges: Mapping | None = None,
                  progress: Callable[[int, int, str], None] | None = None,
-                 total: int = 0) -> tuple[bytes, dict]:
+                 total: int = 0, positions: Mapping | None = None) -> tuple[bytes, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
     a report from its evidence and compares every page."""
@@ -1345,6 +1345,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
         story.append(PageBreak())
         section += 1
         gauge_error.gauge_error_section(story, section, short_gauges or {}, results, st, width)
+    section = _extra_sections(story, section, results, positions, st, width)
     story.append(PageBreak())
     section += 1
     boxes: dict = {}
@@ -1364,6 +1365,24 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
                                                   when=_last_time(study)))
     return buf.getvalue(), boxes
+
+
+def _extra_sections(story, section, results, positions, st, width) -> int:
+    """Tolerance intervals and positional tolerances (see :mod:`studykit.report.extras_sections`),
+    each only when there is something to show; returns the last section number."""
+    from reportlab.platypus import PageBreak
+
+    from studykit.report import extras_sections
+
+    if extras_sections.has_intervals(results):
+        story.append(PageBreak())
+        section += 1
+        extras_sections.interval_section(story, section, results, st, width)
+    if positions:
+        story.append(PageBreak())
+        section += 1
+        extras_sections.position_section(story, section, positions, st, width)
+    return section
 
 
 def build_report(study_path_or_study, out_path, *,
@@ -1430,12 +1449,18 @@ def build_report(study_path_or_study, out_path, *,
     short_gauges = gauge_error.stored_short_studies(study_path, study)
     if short_gauges:
         evidence["short_gauges"] = short_gauges
+    # position studies kept beside the study (their deviations and numbers), when there are any
+    from studykit.positions import stored_positions
+
+    positions = stored_positions(study_path)
+    if positions:
+        evidence["positions"] = positions
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
     pages_pdf, boxes = render_pages(study, results, errors, measurements, stored_gauges,
                                     chain=chain, evidence_sha=evidence_sha,
-                                    short_gauges=short_gauges,
+                                    short_gauges=short_gauges, positions=positions,
                                     progress=progress, total=total)
     pdf = _attach(pages_pdf, evidence_bytes, boxes)
     out = Path(out_path)

@@ -79,6 +79,10 @@ def position_figure(result: PositionResult, *, ax=None, unit: str | None = None,
         ax.axhline(0.0, color=theme.RULE, linewidth=0.8, zorder=0)
         ax.axvline(0.0, color=theme.RULE, linewidth=0.8, zorder=0)
         ax.set_aspect("equal", adjustable="datalim")
+        from matplotlib.ticker import MaxNLocator
+
+        ax.xaxis.set_major_locator(MaxNLocator(5))  # readable tick labels at small sizes
+        ax.yaxis.set_major_locator(MaxNLocator(5))
         u = f" [{unit}]" if unit else ""
         ax.set_xlabel(f"X deviation from nominal{u}")
         ax.set_ylabel(f"Y deviation from nominal{u}")

@@ -805,6 +805,7 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
                                     f"all {n} numbers agree (relative tolerance "
                                     f"{RELATIVE_TOLERANCE:g})"))
         numbers += _short_gauge_checks(evidence, checks)
+        numbers += _position_checks(evidence, checks)
         made_by = (evidence.get("software") or {}).get("studykit")
         if measurements is None:
             pass
@@ -819,6 +820,7 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
                 redrawn, _ = render_pages(
                     page_study, results, errors, measurements, evidence.get("gauges"),
                     chain=s.get("chain"), short_gauges=evidence.get("short_gauges"),
+                    positions=evidence.get("positions"),
                     evidence_sha=hashlib.sha256(evidence_bytes).hexdigest())
                 checks.append(_pages_check(pdf_bytes, redrawn))
             except (StudyInputError, KeyError, TypeError, ValueError) as exc:
@@ -847,4 +849,27 @@ def _short_gauge_checks(evidence: dict, checks: list) -> int:
                                 + "; ".join(diffs[:4])))
         else:
             checks.append(Check(label, "pass", f"all {n} numbers agree with the readings"))
+    return total
+
+
+def _position_checks(evidence: dict, checks: list) -> int:
+    """Recompute each embedded position study from its deviations; returns numbers compared."""
+    from studykit.positions import recheck_position
+
+    total = 0
+    for name, payload in sorted((evidence.get("positions") or {}).items()):
+        label = f"position study {name}"
+        try:
+            fresh = recheck_position(payload)
+        except (StudyInputError, KeyError, TypeError, ValueError) as exc:
+            checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: "
+                                f"{exc}"))
+            continue
+        n, diffs = compare_numbers(payload.get("result") or {}, fresh)
+        total += n
+        if diffs:
+            checks.append(Check(label, "fail", f"{len(diffs)} difference(s) among {n} numbers: "
+                                + "; ".join(diffs[:4])))
+        else:
+            checks.append(Check(label, "pass", f"all {n} numbers agree with the deviations"))
     return total

@@ -557,9 +557,10 @@ class SampleSizePlan(Result):
 
     Attributes
     ----------
-    distribution_free : int
+    distribution_free : int or None
         Smallest n for which the extreme values (every part inside the specification) make the
-        criterion (:func:`distribution_free_sample_size`, r = s = 1).
+        criterion (:func:`distribution_free_sample_size`, r = s = 1); None when more than
+        ``MAX_PARTS`` would be needed.
     normal : int or None
         Smallest n at which a process like the sample (its mean and sd, on the log or Box-Cox
         scale for those models, with the limits transformed the same way) passes the normal
@@ -568,13 +569,14 @@ class SampleSizePlan(Result):
     power : float
     """
 
-    distribution_free: int
+    distribution_free: int | None
     normal: int | None
     power: float
 
     def to_dict(self) -> dict:
         """JSON-safe fields."""
-        return {"distribution_free": int(self.distribution_free),
+        return {"distribution_free": (None if self.distribution_free is None
+                                      else int(self.distribution_free)),
                 "normal": None if self.normal is None else int(self.normal),
                 "power": float(self.power)}
 
@@ -806,10 +808,11 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
     if model == "distribution_free":
         lower, upper, order, achieved = _distribution_free(arr, p, c, kind)
         if lower is None and upper is None:
-            need = distribution_free_sample_size(p, c, sides=sides)
+            need = _free_size_or_none(p, c, sides)
             notes.append(f"{n} values are too few for a distribution-free interval with "
-                         f"{100 * p:g} % coverage and {100 * c:g} % confidence; {need} are "
-                         "needed.")
+                         f"{100 * p:g} % coverage and {100 * c:g} % confidence; "
+                         + (f"{need} are needed." if need is not None else
+                            f"more than {MAX_PARTS} would be needed."))
     else:
         y, forward_note, back, scale = _transformed(arr, model, boxcox_lambda)
         if forward_note:
@@ -841,7 +844,7 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
     meets = _decide(lower, upper, lsl, usl, kind)
     plan = None
     if lsl is not None or usl is not None:
-        plan = SampleSizePlan(distribution_free_sample_size(p, c, sides=sides),
+        plan = SampleSizePlan(_free_size_or_none(p, c, sides),
                               _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl,
                                            power),
                               _level(power, "power"))
@@ -852,6 +855,14 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
         lsl=None if lsl is None else float(lsl), usl=None if usl is None else float(usl),
         meets=meets, plan=plan, notes=tuple(notes),
     )
+
+
+def _free_size_or_none(p: float, c: float, sides: int) -> int | None:
+    """:func:`distribution_free_sample_size`, or None beyond ``MAX_PARTS`` (e.g. P = 0.99999)."""
+    try:
+        return distribution_free_sample_size(p, c, sides=sides)
+    except AnalysisError:
+        return None
 
 
 def _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl, power):

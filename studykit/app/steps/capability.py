@@ -52,11 +52,16 @@ def verdict_html(result) -> str:
     label = names.index_label(crit.get("index") or "")
     basis = ("lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
              if crit.get("basis") == "lower_bound" else "estimate")
+    also = ""
+    if crit.get("interval_coverage") is not None:  # the tolerance-interval criterion
+        from studykit.intervals import criterion_text
+
+        also = f"; and {esc(criterion_text(crit['interval_coverage'], crit['interval_confidence']))}"
     return (f'<div class="sk-verdict-box" style="border-color:{colour}">'
             f"{verdict_chip(meets, text=word, kind=key)}"
             f"<div style=\"margin-top:6px\">{esc(text)}</div>"
             f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
-            f"≥ {fmt(crit.get('threshold'), 2)}</div></div>")
+            f"≥ {fmt(crit.get('threshold'), 2)}{also}</div></div>")
 
 
 def indices_html(result) -> str:
@@ -213,6 +218,10 @@ class CapabilityStep:
         self.attribute = html_box("", "sk-attribute")
         self.streams = widgets.VBox([])  # several streams: table and group chart
         self.streams.add_class("sk-streams")
+        from studykit.app.steps.extras_views import PositionView
+
+        self.interval = html_box("", "sk-tolerance-interval")  # ISO 16269-6 criterion panel
+        self.position = PositionView()  # position studies kept beside the study
         self.assumed = widgets.FloatSlider(min=1.0, max=3.0, step=0.01, value=2.0,
                                            description="", readout_format=".2f",
                                            continuous_update=False,
@@ -233,8 +242,8 @@ class CapabilityStep:
         self.chart.children = [self.live.widget("sk-interval-chart")]
         when_shown(context, self.key, self.live.resync)
         return panel([panel_css(), ws.toolbar(), self.caution, self.verdict,
-                             self.numbers, self.attribute, self.streams, self.findings,
-                             self.planner])
+                             self.numbers, self.interval, self.attribute, self.streams,
+                             self.findings, self.planner, self.position.widget])
 
     def shown(self, context) -> None:
         """The step is open again: bring its chart widget up to date."""
@@ -269,6 +278,10 @@ class CapabilityStep:
         from studykit.app.streams_view import streams_panel
 
         self.streams.children = streams_panel(res)
+        from studykit.app.steps.extras_views import tolerance_interval_html
+
+        self.interval.value = tolerance_interval_html(res)
+        self.position.refresh(s.path, s.view_version)
         self.findings.value = findings_html(res)
         index = res.verdict.index if res.verdict is not None else None
         self.planner.layout.display = "" if index in _PLANNABLE else "none"

@@ -83,6 +83,9 @@ class ExportStep:
         self.json = widgets.Button(description="Results as JSON", icon="download",
                                    layout=widgets.Layout(width="auto"))
         self.json.add_class("sk-make-json")
+        self.notebook = widgets.Button(description="Analysis notebook", icon="book",
+                                       layout=widgets.Layout(width="auto"))
+        self.notebook.add_class("sk-make-notebook")
         self.progress = widgets.IntProgress(value=0, min=0, max=1,
                                             layout=widgets.Layout(width="320px",
                                                                   display="none"))
@@ -93,6 +96,7 @@ class ExportStep:
         self.pdf.on_click(guarded(lambda _b: self._on_pdf(), messages=m))
         self.handoff.on_click(guarded(lambda _b: self._on_handoff(), messages=m))
         self.json.on_click(guarded(lambda _b: self._on_json(), messages=m))
+        self.notebook.on_click(guarded(lambda _b: self._on_notebook(), messages=m))
         missing = []
         if self.build_report is None:
             self.pdf.disabled = True
@@ -110,11 +114,13 @@ class ExportStep:
             '<div class="sk-muted">The PDF carries every number of this workbook, the digests '
             "of the raw data and of the decisions, and places for the digital signatures. The "
             "hand-off zip holds the frozen phase-I limits for series production, shop-floor "
-            "chart forms, the study file and the PDF.</div>" + note)
+            "chart forms, the study file, the PDF and the analysis notebook. The analysis "
+            "notebook recomputes every number of the report with the studykit library, step "
+            "by step, for a statistician to rerun.</div>" + note)
         sign_box = self._build_signing(context)
         self.refresh(context)
         return panel([panel_css(), intro, self.state,
-                             widgets.HBox([self.pdf, self.handoff, self.json],
+                             widgets.HBox([self.pdf, self.handoff, self.json, self.notebook],
                                           layout=widgets.Layout(flex_flow="row wrap")),
                              widgets.HBox([self.progress, self.progress_text],
                                           layout=widgets.Layout(align_items="center")),
@@ -276,7 +282,7 @@ class ExportStep:
         self.progress.value = 0
         self.progress.layout.display = ""
         self.progress_text.value = esc(what)
-        for b in (self.pdf, self.handoff, self.json):
+        for b in (self.pdf, self.handoff, self.json, self.notebook):
             b.disabled = True
 
     def _finish(self) -> None:
@@ -285,6 +291,7 @@ class ExportStep:
         self.pdf.disabled = self.build_report is None
         self.handoff.disabled = self.build_handoff is None
         self.json.disabled = False
+        self.notebook.disabled = False
 
     def _add_link(self, html: str) -> None:
         self.links.value = f'<div style="margin:6px 0">{html}</div>' + self.links.value
@@ -342,6 +349,23 @@ class ExportStep:
         finally:
             self._finish()
         self._add_link(download_link(data, f"{_stem(s)}-results.json", "application/json"))
+
+    def _on_notebook(self) -> None:
+        """The reproducible analysis notebook (see :mod:`studykit.report.notebook`): it opens
+        the study file and the evidence PDF by their download names, kept beside it."""
+        from studykit.report.notebook import analysis_notebook, notebook_bytes
+
+        s = self.ws.session
+        pdf_name = f"{_stem(s)}-evidence.pdf"
+        nb = analysis_notebook(s.path, study_ref=s.path.name,
+                               pdf_ref=pdf_name if self._pdf is not None else None)
+        self._add_link(download_link(notebook_bytes(nb), f"{_stem(s)}-analysis.ipynb",
+                                     "application/x-ipynb+json"))
+        where = (f"the study file {s.path.name} and {pdf_name}" if self._pdf is not None
+                 else f"the study file {s.path.name}")
+        self.ws.context.messages.ok(
+            f"The analysis notebook is ready: keep it in one folder with {where}, open it in "
+            "Jupyter and run all cells to recompute every number of the report.")
 
 
 STEP = ExportStep()

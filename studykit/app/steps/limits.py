@@ -3,7 +3,8 @@
 At the top, every characteristic at a glance (:class:`~studykit.app.overview.OverviewPanel`):
 verdict, index and lower bound, removals, review state; sortable; a click opens one in the
 stability step. Below, the specification of the chosen characteristic: LSL, USL, target,
-safety-critical, and the acceptance criterion (index, threshold, basis). A change is stored in
+safety-critical, and the acceptance criterion (index, threshold, basis; optionally the
+tolerance interval "at least P % within specification with C % confidence"). A change is stored in
 the study file as a ``set_spec``/``set_criteria`` decision with who and why; a reason is
 required.
 """
@@ -65,6 +66,14 @@ class LimitsStep:
         self.basis = widgets.Dropdown(options=[("lower confidence bound", "lower_bound"),
                                                ("point estimate", "estimate")],
                                       layout=widgets.Layout(width="200px"))
+        # the tolerance-interval criterion beside the index (ISO 16269-6), in percent
+        self.interval_on = widgets.Checkbox(description="Also judge a tolerance interval",
+                                            indent=False)
+        self.interval_on.add_class("sk-interval-on")
+        self.interval_p = widgets.BoundedFloatText(value=99.0, min=50.0, max=99.9999,
+                                                   step=0.1, layout=widgets.Layout(width="110px"))
+        self.interval_c = widgets.BoundedFloatText(value=95.0, min=50.0, max=99.99, step=0.5,
+                                                   layout=widgets.Layout(width="110px"))
         self.reason = widgets.Text(placeholder="why, e.g. 'drawing rev C, ECN-118'",
                                    layout=widgets.Layout(width="420px"))
         self.reason.add_class("sk-spec-reason")
@@ -89,6 +98,10 @@ class LimitsStep:
                          layout=widgets.Layout(flex_flow="row wrap")),
             widgets.HBox([field("Index judged", self.index), field("At least", self.threshold),
                           field("Judged on", self.basis)],
+                         layout=widgets.Layout(flex_flow="row wrap")),
+            widgets.HBox([field("", self.interval_on),
+                          field("Parts within specification, at least (%)", self.interval_p),
+                          field("Confidence (%)", self.interval_c)],
                          layout=widgets.Layout(flex_flow="row wrap")),
             field("Reason for the change (required)", self.reason),
             widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
@@ -119,8 +132,13 @@ class LimitsStep:
         self.safety.value = spec.safety_critical
         self.index.value, self.threshold.value = crit.index, crit.threshold
         self.basis.value = crit.basis
+        self.interval_on.value = crit.has_interval
+        if crit.has_interval:
+            self.interval_p.value = round(100 * crit.interval_coverage, 6)
+            self.interval_c.value = round(100 * crit.interval_confidence, 6)
         attribute = spec.is_attribute
-        for w in (self.lsl, self.usl, self.target, self.index, self.threshold, self.basis):
+        for w in (self.lsl, self.usl, self.target, self.index, self.threshold, self.basis,
+                  self.interval_on, self.interval_p, self.interval_c):
             w.disabled = attribute
         self.reason.value = ""
         rows = [d for d in s.study.decisions if d.characteristic == spec.name
@@ -156,9 +174,13 @@ class LimitsStep:
             spec.update(lsl=_number_or_none(self.lsl.value, name="lsl"),
                         usl=_number_or_none(self.usl.value, name="usl"),
                         target=_number_or_none(self.target.value, name="target"))
+            on = bool(self.interval_on.value)
             crit = Criteria(index=self.index.value, threshold=float(self.threshold.value),
                             basis=self.basis.value,
-                            confidence=s.study.criteria_for(name).confidence)
+                            confidence=s.study.criteria_for(name).confidence,
+                            interval_coverage=float(self.interval_p.value) / 100 if on else None,
+                            interval_confidence=float(self.interval_c.value) / 100 if on
+                            else None)
         changed = s.update_characteristic(name, who=ws.who_name, reason=self.reason.value,
                                           spec=spec, criteria=crit,
                                           override_reason=ws.override_reason)
