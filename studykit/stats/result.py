@@ -121,6 +121,7 @@ class Result:
     def __repr__(self) -> str:
         items = [(k, v) for k, v in _flat(self.to_dict()).items()
                  if v is not None and not isinstance(v, list | dict) and k != "kind"]
+        items.sort(key=lambda kv: "." in kv[0])  # the result's own quantities before nested ones
         parts, text = [], ""
         for k, v in items[:_REPR_ITEMS]:
             part = f"{k}={_short(v)}"
