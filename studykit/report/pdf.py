@@ -846,8 +846,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     if ad is not None:
         story.append(Paragraph(
             f"Normality of the values used: Anderson-Darling A² = {_num(ad.a2)} "
-            f"(A*² = {_num(ad.a2_star)}, p = {_num(ad.p_value, 3)})"
-            + (f"; Shapiro-Wilk W = {_num(sw.w)} (p = {_num(sw.p_value, 3)})." if sw is not None
+            f"(A*² = {_num(ad.a2_star)}, p = {names.format_p(ad.p_value)})"
+            + (f"; Shapiro-Wilk W = {_num(sw.w)} (p = {names.format_p(sw.p_value)})."
+               if sw is not None
                else "."),
             st["body"]))
     if res.model is not None:
@@ -860,9 +861,11 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         for row in res.ranking.rows[:6]:
             if row.error:
                 continue
-            rows.append([str(row.rank), _esc(row.label), str(row.n_params), _num(row.aic, 6),
+            rows.append([str(row.rank), _esc(names.model_label(row.id)), str(row.n_params),
+                         _num(row.aic, 6),
                          _num(row.ad_statistic, 3),
-                         _esc(row.ad_p_text) if row.ad_p_text else _num(row.ad_p_value, 3)])
+                         _esc(row.ad_p_text) if row.ad_p_text
+                         else _esc(names.format_p(row.ad_p_value))])
         story.append(Spacer(1, 4))
         story.append(KeepTogether([
             Paragraph(f"Model ranking (best {len(rows) - 1} of {len(res.ranking.rows)}; "

@@ -48,10 +48,12 @@ def ranking_html(result, *, limit: int = 10) -> str:
     body = []
     for row in ranking.rows[:limit]:
         mark = " ◂ used" if row.id == chosen else ""
-        ad_p = row.ad_p_text or ("—" if row.ad_p_value is None else f"{row.ad_p_value:.3f}")
+        ad_p = row.ad_p_text or ("—" if row.ad_p_value is None
+                                 else names.format_p(row.ad_p_value))
         note = row.error or row.note or ("" if row.converged else "did not converge")
         body.append(
-            f"<tr><td class=\"num\">{row.rank}</td><td>{esc(row.label)}<b>{mark}</b></td>"
+            f"<tr><td class=\"num\">{row.rank}</td><td>{esc(names.model_label(row.id))}"
+            f"<b>{mark}</b></td>"
             f'<td class="num">{fmt(row.aic, 1)}</td><td class="num">{fmt(row.ad_statistic, 3)}'
             f'</td><td class="num">{esc(ad_p)}</td><td>{esc(note)}</td></tr>')
     return ('<div class="sk-panel-title">Fitted models, best first</div>'
@@ -185,9 +187,9 @@ class ShapeStep:
                  ("Mean / overall sigma", f"{fmt(res.mean, 5)} / {fmt(res.overall_sigma, 5)}")]
         if ad is not None:
             facts.append(("Anderson-Darling (normal)",
-                          f"A² = {fmt(ad.a2, 3)}, p = {fmt(ad.p_value, 3)}"))
+                          f"A² = {fmt(ad.a2, 3)}, p = {esc(names.format_p(ad.p_value))}"))
         if sw is not None:
-            facts.append(("Shapiro-Wilk (normal)", f"W = {fmt(sw.w, 4)}, p = {fmt(sw.p_value, 3)}"))
+            facts.append(("Shapiro-Wilk (normal)", f"W = {fmt(sw.w, 4)}, p = {esc(names.format_p(sw.p_value))}"))
         if res.model is not None:
             facts.append(("Model used", f"{res.model.label} — {res.model.reason}"))
         return ('<dl class="sk-facts">' + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>"
