@@ -35,7 +35,7 @@ def _model_options(result) -> list:
     if result is not None and result.ranking is not None:
         for row in result.ranking.rows:
             if row.id != "normal" and not row.error:
-                options.append((f"Fitted: {row.label}", row.id))
+                options.append((f"Fitted: {names.model_label(row.id)}", row.id))
     return options
 
 
