@@ -780,10 +780,10 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl):
         return (
             ModelChoice(
                 best.name,
-                best.family.label,
+                names.model_label(best.name),
                 dict(best.parameters),
                 f"the normal model is rejected (Anderson-Darling p = {ad_normal.p_value:.3g}); "
-                f"{best.family.label} ranks best of the fitted models ({ranking.rule})",
+                f"{names.model_label(best.name)} ranks best of the fitted models ({ranking.rule})",
                 fitted=best,
             ),
             ranking,
@@ -838,7 +838,8 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl):
         notes.append("the data contain values <= 0")
     return (
         ModelChoice(
-            model.name, model.family.label, dict(model.parameters), "chosen by the user",
+            model.name, names.model_label(model.name), dict(model.parameters),
+            "chosen by the user",
             fitted=model,
         ),
         ranking,

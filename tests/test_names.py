@@ -33,6 +33,7 @@ SECOND_NAMES = (
     "Meets criteria", "Does not meet criteria", "Not judged", "NOT JUDGED", "Not yet assessed",
     "not yet assessed", "Rate reported", "Holds", "Valid now?", "cannot analyse",
     "Not demonstrated", "excluded subgroup", "exclude subgroup", "%GRR of", "Gauge RR",
+    "3-parameter", "2-parameter",
 )
 
 
@@ -290,3 +291,16 @@ def test_one_clock_per_decision(tmp_path):
     demo = StudyFile(DEMO)
     by_time = {e.when for e in demo.audit_log()}
     assert all(d.when in by_time for d in demo.load().decisions)
+
+
+def test_confidence_parameter_spellings_agree():
+    from studykit.stats.attribute import attribute_capability, defects_per_unit
+    from studykit.stats.planning import parts_needed, planning_table
+
+    assert parts_needed(2.0, 1.67, confidence=0.9).n == parts_needed(2.0, 1.67, level=0.9).n
+    assert parts_needed(2.0, 1.67).level == names.DEFAULT_CONFIDENCE
+    assert planning_table([2.0], [1.33], confidence=0.99).level == 0.99
+    a = attribute_capability([1, 2, 0], [100, 100, 100], confidence=0.9)
+    b = attribute_capability([1, 2, 0], [100, 100, 100], level=0.9)
+    assert a.to_dict() == b.to_dict() and a.level == 0.9
+    assert defects_per_unit([3, 1], [10, 10]).level == names.DEFAULT_CONFIDENCE

@@ -15,7 +15,7 @@ import math
 
 import numpy as np
 
-from studykit import theme
+from studykit import names, theme
 
 __all__ = [
     "ControlChartView",
@@ -419,7 +419,7 @@ def histogram_columns(result, *, compare: str | None = "normal") -> dict:
             and (result.model is None or result.model.name != compare)):
         m = result.ranking.models[compare]
         comp = {"x": grid.tolist(), "y": _floats(_model_density(result, grid, m)),
-                "name": next((r.label for r in result.ranking.rows if r.id == compare), compare)}
+                "name": names.model_label(compare)}
     out["compare"] = comp
     return out
 

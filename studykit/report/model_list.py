@@ -30,6 +30,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from studykit import names
+
 __all__ = ["LABELS", "SOURCE", "FamilyLine", "family_lines", "threshold_effect", "base_of"]
 
 #: Every word of the model list.
@@ -107,7 +109,7 @@ def family_lines(ranking) -> list[FamilyLine]:
         g["plain" if row.id == fam else "shifted"] = row
     out = []
     for rank, (fam, g) in enumerate(groups.items(), 1):
-        name = g["plain"].label if g["plain"] is not None else fam.capitalize()
+        name = names.model_label(fam)
         out.append(FamilyLine(fam, name, g["plain"], g["shifted"], g["best"], rank))
     return out
 

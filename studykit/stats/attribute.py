@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from studykit import names
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats.result import Result
 
@@ -26,6 +27,8 @@ __all__ = [
 
 
 def _level(level):
+    # the one name of the parameter is ``confidence`` (None: not given -> 0.95); ``level`` is
+    # its deprecated spelling, still accepted
     if not isinstance(level, int | float) or not 0.5 <= float(level) < 1:
         raise StudyInputError(
             f"`level` ({level!r}) must be a confidence level in [0.5, 1), e.g. 0.95."
@@ -134,7 +137,8 @@ class AttributeCapability(Result):
         }
 
 
-def attribute_capability(defectives, inspected, *, level: float = 0.95) -> AttributeCapability:
+def attribute_capability(defectives, inspected, *, confidence: float | None = None,
+                         level: float | None = None) -> AttributeCapability:
     """Capability of a pass/fail characteristic from counts of defective parts.
 
     Parameters
@@ -143,8 +147,8 @@ def attribute_capability(defectives, inspected, *, level: float = 0.95) -> Attri
         Defective parts found, per subgroup (or a total).
     inspected : int or array-like of int
         Parts inspected, per subgroup (same length as ``defectives``), or a total.
-    level : float
-        Confidence level (default 0.95).
+    confidence : float, optional
+        Confidence level; None (not given) means 0.95. ``level`` is its deprecated spelling.
 
     Returns
     -------
@@ -173,7 +177,7 @@ def attribute_capability(defectives, inspected, *, level: float = 0.95) -> Attri
     >>> round(r.defective_rate_upper_95, 5)
     0.00516
     """
-    level = _level(level)
+    level = _level(names.confidence_of(confidence, level=level))
     x = _counts(defectives, "defectives")
     n = _counts(inspected, "inspected")
     if x.size != n.size and n.size != 1:
@@ -220,7 +224,8 @@ def attribute_capability(defectives, inspected, *, level: float = 0.95) -> Attri
     )
 
 
-def zero_defect_sample_size(rate: float, *, level: float = 0.95) -> int:
+def zero_defect_sample_size(rate: float, *, confidence: float | None = None,
+                            level: float | None = None) -> int:
     """Items to inspect with no defective found so that the one-sided upper bound at ``level``
     is at most ``rate``: the smallest n with 1 - (1 - level)^(1/n) <= rate, i.e.
     n = ceil(ln(1 - level) / ln(1 - rate)) (Clopper & Pearson 1934 with x = 0).
@@ -230,7 +235,7 @@ def zero_defect_sample_size(rate: float, *, level: float = 0.95) -> int:
     >>> zero_defect_sample_size(0.0117, level=0.95)
     255
     """
-    level = _level(level)
+    level = _level(names.confidence_of(confidence, level=level))
     if not 0 < rate < 1:
         raise StudyInputError(f"`rate` ({rate!r}) must lie strictly between 0 and 1.")
     return int(math.ceil(math.log(1 - level) / math.log1p(-rate)))
@@ -351,7 +356,8 @@ class DefectsPerUnit(Result):
         }
 
 
-def defects_per_unit(defects, units, *, level: float = 0.95) -> DefectsPerUnit:
+def defects_per_unit(defects, units, *, confidence: float | None = None,
+                     level: float | None = None) -> DefectsPerUnit:
     """Defects per unit with an exact (Garwood) Poisson confidence interval.
 
     Parameters
@@ -360,8 +366,8 @@ def defects_per_unit(defects, units, *, level: float = 0.95) -> DefectsPerUnit:
         Defects counted, per subgroup (or a total).
     units : float or array-like of float
         Inspection units per subgroup (may be fractional, e.g. area), same length, or a total.
-    level : float
-        Confidence level (default 0.95).
+    confidence : float, optional
+        Confidence level; None (not given) means 0.95. ``level`` is its deprecated spelling.
 
     Returns
     -------
@@ -383,7 +389,7 @@ def defects_per_unit(defects, units, *, level: float = 0.95) -> DefectsPerUnit:
     >>> round(r.dpu, 3), round(r.dpu_upper, 4)
     (0.333, 0.613)
     """
-    level = _level(level)
+    level = _level(names.confidence_of(confidence, level=level))
     c = _counts(defects, "defects")
     u = _counts(units, "units", integer=False)
     if c.size != u.size:

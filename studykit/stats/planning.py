@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 from scipy import stats
 
+from studykit import names
 from studykit.errors import StudyInputError
 from studykit.stats.result import Result
 
@@ -113,7 +114,8 @@ class DemonstrationPlan(Result):
 
 
 def parts_needed(
-    assumed: float, target: float, *, index: str = "ppk", level: float = 0.95
+    assumed: float, target: float, *, index: str = "ppk", confidence: float | None = None,
+    level: float | None = None,
 ) -> DemonstrationPlan:
     """Parts needed so that the lower confidence bound is expected to clear the target.
 
@@ -126,8 +128,11 @@ def parts_needed(
     index : str
         ``"ppk"`` (default), ``"cpk"``, ``"ppu"``, ``"ppl"``, ``"cpu"``, ``"cpl"`` (Bissell) or
         ``"pp"``, ``"cp"`` (chi-square).
-    level : float
-        Confidence level of the one-sided lower bound (default 0.95).
+    confidence : float, optional
+        Confidence level of the one-sided lower bound; None (not given) means 0.95
+        (:data:`studykit.names.DEFAULT_CONFIDENCE`).
+    level : float, optional
+        Deprecated spelling of ``confidence`` (kept so existing calls work).
 
     Returns
     -------
@@ -163,7 +168,7 @@ def parts_needed(
     >>> parts_needed(1.5, 1.67).n is None
     True
     """
-    level = _check(index, level)
+    level = _check(index, names.confidence_of(confidence, level=level))
     assumed = _number(assumed, "assumed")
     target = _number(target, "target")
     method = "chi_square" if index in _CHI2_INDICES else "bissell"
@@ -241,7 +246,8 @@ def planning_table(
     targets=(1.0, 1.33, 1.67),
     *,
     index: str = "ppk",
-    level: float = 0.95,
+    confidence: float | None = None,
+    level: float | None = None,
 ) -> PlanTable:
     """Table of :func:`parts_needed` over assumed indices (rows) and targets (columns).
 
@@ -253,8 +259,8 @@ def planning_table(
         Required values.
     index : str
         As in :func:`parts_needed`.
-    level : float
-        Confidence level (default 0.95).
+    confidence : float, optional
+        Confidence level; None (not given) means 0.95. ``level`` is its deprecated spelling.
 
     Returns
     -------
@@ -279,5 +285,6 @@ def planning_table(
     cols = [float(t) for t in targets]
     if not rows or not cols:
         raise StudyInputError("`assumed` and `targets` must each hold at least one value.")
-    table = [[parts_needed(a, t, index=index, level=level).n for t in cols] for a in rows]
+    level = names.confidence_of(confidence, level=level)
+    table = [[parts_needed(a, t, index=index, confidence=level).n for t in cols] for a in rows]
     return PlanTable(index, float(level), rows, cols, table, CRITERION)

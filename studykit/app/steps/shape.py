@@ -60,7 +60,7 @@ def _threshold_variants(result) -> dict:
 def _ad_p(row) -> str:
     if row is None or row.error:
         return "—"
-    return row.ad_p_text or ("—" if row.ad_p_value is None else f"{row.ad_p_value:.3f}")
+    return row.ad_p_text or ("—" if row.ad_p_value is None else names.format_p(row.ad_p_value))
 
 
 def ranking_html(result, *, limit: int = 10) -> str:
