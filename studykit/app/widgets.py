@@ -130,6 +130,9 @@ body {{ background: {theme.PAGE}; }}
   .sk-root .sk-stepbar .jupyter-button.sk-step {{ flex: 0 0 auto; }}
   .sk-header, .sk-guidance, .sk-body {{ padding-left: 12px; padding-right: 12px; }}
   .sk-title {{ font-size: 18px; }}
+  /* figures drawn for paper keep a readable size and scroll in their own box */
+  .sk-root .sk-gauge-figure-box {{ overflow-x: auto; }}
+  .sk-root img.sk-gauge-figure {{ min-width: 560px; }}
 }}
 </style>
 """

@@ -11,7 +11,8 @@ opened and photographed (test-artifacts/offline-<width>-*.png), and the layout i
   ``studykit.theme.wrap_legends``);
 * 390: the page does not scroll sideways; wide tables (and the overview grid) scroll in their
   own box; charts keep a readable width (at least 300 px) and stay inside the page, legends
-  within their charts.
+  within their charts; the gauge figures (drawn for paper) keep at least 500 px and scroll in
+  their own box.
 
 The widths 1024 and 390 are common small-laptop and phone widths (common practice, no source).
 """
@@ -198,6 +199,10 @@ def test_offline_on_three_screens(browser, offline_server, key):
         page.wait_for_selector("img.sk-gauge-figure", state="visible")
         _check_layout(page, key, "gauge check")
         _shot(page, f"{key}-gauge")
+        if key == "390":  # figures drawn for paper: readable width, scrolling in their box
+            widths = page.evaluate("() => [...document.querySelectorAll('img.sk-gauge-figure')]"
+                                   ".map(i => i.getBoundingClientRect().width)")
+            assert widths and min(widths) >= 500, widths
         figures = page.locator(".sk-gauge-figures").first
         figures.scroll_into_view_if_needed()
         figures.screenshot(path=str(ARTIFACTS / f"offline-{key}-gauge-figures.png"))
