@@ -1536,16 +1536,15 @@ def _chance_signals(chart: ControlChart, verdict, beyond, chance: Mapping):
         if c.beyond_limits:
             parts.append(f"{c.beyond_limits} on the {name} chart of {c.points} points, about "
                          f"{c.expected:.1f} expected by chance (P(at least that many) = "
-                         f"{c.p_value:.2g})")
-    fap = max(c.fap for c in chance.values())
+                         f"{c.p_value:.2g}; its removal limits are crossed by a stable process "
+                         f"with probability {c.fap:.1%} over the whole chart)")
     others = n - len(beyond)
     finding = Finding(
         code="chance_signals", severity="info",
         text=(f"{len(beyond)} point(s) lie beyond the 3-sigma control limits of the final chart: "
-              + "; ".join(parts) + ". None lies beyond the removal limits, which a stable "
-              f"process crosses anywhere on the chart with probability {fap:.1%}, and the count "
-              "is not more than chance gives: they are not treated as special causes and stay "
-              "in the analysis."
+              + "; ".join(parts) + ". None lies beyond the removal limits and no count is more "
+              "than chance gives: they are not treated as special causes and stay in the "
+              "analysis."
               + (f" The chart also has {others} run-rule signal(s); with every run rule on, a "
                  "long stable series raises such signals now and then." if others else "")),
     )
