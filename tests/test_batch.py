@@ -291,6 +291,15 @@ def test_family_quantiles_equal_scipy_frozen_ppf(fid):
 
 
 @pytest.mark.parametrize("fid", list(FAMILIES))
+def test_family_sample_equals_scipy_frozen_rvs(fid):
+    model = FAMILIES[fid].fit(SKEWED)
+    # reference: scipy.stats' rvs of the frozen distribution on the same numpy Generator
+    expected = model.dist.rvs(size=(3, 40), random_state=np.random.default_rng(11))
+    got = FAMILIES[fid].sample(dict(model.parameters), (3, 40), np.random.default_rng(11))
+    np.testing.assert_array_equal(got, expected)
+
+
+@pytest.mark.parametrize("fid", list(FAMILIES))
 def test_fast_bootstrap_equals_generic(fid):
     model = FAMILIES[fid].fit(SKEWED)
     present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)

@@ -178,6 +178,8 @@ def test_large_sample_bootstrap_is_rescaled(monkeypatch):
     monkeypatch.setattr(capability_module, "BOOTSTRAP_FULL_N", 1000)
     sub = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=1000)
     assert any("samples of 1000 values" in n for n in sub.notes)
+    assert sub.bounds["ppk"]["method"] == "rescaled_m_out_of_n_bootstrap_percentile"
+    assert full.bounds["ppk"]["method"] == "parametric_bootstrap_percentile"
     w_full = full.bounds["ppk"]["upper"] - full.bounds["ppk"]["lower"]
     w_sub = sub.bounds["ppk"]["upper"] - sub.bounds["ppk"]["lower"]
     assert w_sub == pytest.approx(w_full, rel=0.15)  # Monte-Carlo noise of 1000 draws
@@ -213,3 +215,5 @@ def test_memory_under_resource_limit_200k_weibull(tmp_path):
     assert result["model"]["name"] == "weibull"
     assert result["capability"]["ppk_lower_95"] < result["capability"]["ppk"]
     assert any("samples of 20000 values" in w for w in result["capability"].get("notes", []))
+    assert (result["capability"]["bounds"]["ppk"]["method"]
+            == "rescaled_m_out_of_n_bootstrap_percentile")

@@ -30,7 +30,12 @@ and W. R. van Zwet, "Resampling fewer than n observations: gains, losses, and re
 losses", Statistica Sinica 7 (1997) 1-31; D. N. Politis, J. P. Romano and M. Wolf,
 *Subsampling*, Springer 1999, ch. 2. The time and memory of a study then stop growing with n
 beyond the sample itself; at 20,000 readings the percentile interval's own bias, of order
-1/m, is far below the width of the interval.
+1/m, is far below the width of the interval. The bounds' ``method`` field then reads
+``rescaled_m_out_of_n_bootstrap_percentile`` instead of ``parametric_bootstrap_percentile``.
+
+Bootstrap samples are drawn from the numpy Generator directly by the family's ``sample``
+(the same calls and arithmetic as scipy.stats' ``rvs`` of the frozen model, so the same
+numbers); a model object outside :mod:`studykit.stats.fit` is sampled through its ``rvs``.
 """
 
 from __future__ import annotations
@@ -807,6 +812,8 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     if failed:
         notes.append(f"{failed} of {n_boot} bootstrap refits failed and were left out.")
     alpha = 1.0 - level
+    method_name = ("parametric_bootstrap_percentile" if n_draw == n
+                   else "rescaled_m_out_of_n_bootstrap_percentile")
     out = {}
     for k in names:
         if values[k] is None or not len(draws[k]):
@@ -817,7 +824,7 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
             "lower_bound": _finite_or_none(lb),
             "lower": _finite_or_none(lo),
             "upper": _finite_or_none(hi),
-            "method": "parametric_bootstrap_percentile",
+            "method": method_name,
         }
     return out
 
@@ -884,7 +891,7 @@ def _fast_family_id(model):
     """The family id when ``model`` is a studykit.stats.fit model we can evaluate directly."""
     family = getattr(model, "family", None)
     fid = getattr(family, "id", None)
-    if fid is None or not hasattr(family, "_estimate") or not hasattr(family, "check"):
+    if fid is None or not all(hasattr(family, a) for a in ("_estimate", "check", "sample")):
         return None
     if _FAMILY_BASE.get(fid, fid) not in _FAMILY_PPF:
         return None
@@ -1074,13 +1081,8 @@ def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
     shared = {}  # the Weibull shapes of the first sample's grid start every block
     for i in range(0, n_boot, per_block):
         m = min(per_block, n_boot - i)
-        try:
-            block = np.asarray(model.rvs((m, n), random_state=rng), dtype=float)
-        except (TypeError, ValueError):
-            if i:
-                raise
-            return _bootstrap_draws_generic(model, n, lsl, usl, "percentile", n_boot, rng,
-                                            values)
+        # straight from the numpy generator (the same numbers as scipy's frozen ``rvs``)
+        block = family.sample(model.parameters, (m, n), rng)
         if n < getattr(family, "minimum_n", 3):
             continue
         q[i : i + m], ok[i : i + m] = _block_quantiles(model, fid, block, shared)

@@ -926,6 +926,16 @@ class Family:
     def _logsf(self, x, p):  # pragma: no cover - abstract
         raise NotImplementedError
 
+    def _standard_draws(self, p, size, rng):  # pragma: no cover - abstract
+        """Draws of the family's standard variable (location 0, scale 1) from the numpy
+        Generator ``rng``, with the same calls scipy.stats' ``_rvs`` of the frozen
+        distribution makes, so :meth:`sample` gives scipy's numbers."""
+        raise NotImplementedError
+
+    def _loc_scale(self, p):
+        """(location, scale) that :meth:`frozen` passes to scipy.stats."""
+        return _th(p), p["scale"]
+
     # -- shared -------------------------------------------------------------------------------
     def _ad(self, xs, p) -> float:
         return _ad_from_logs(self._logcdf(xs, p), self._logsf(xs, p))
@@ -981,6 +991,14 @@ class Family:
         """
         return self._fit_sorted(np.sort(_clean(x)))
 
+    def sample(self, p, size, rng: np.random.Generator) -> np.ndarray:
+        """Random readings from the model with parameters ``p``, drawn from the numpy
+        Generator ``rng`` directly: ``standard draws * scale + location``, the arithmetic of
+        scipy.stats' ``rvs`` of :meth:`frozen` (same stream, same numbers) without building
+        a frozen distribution."""
+        loc, scale = self._loc_scale(p)
+        return self._standard_draws(p, size, rng) * scale + loc
+
     def _fit_sorted(self, xs: np.ndarray) -> FittedModel:
         """Fit to readings already checked by ``_clean`` and sorted (fit_all's path)."""
         self.check(xs)
@@ -1012,6 +1030,12 @@ class _Normal(Family):
 
     def frozen(self, p):
         return stats.norm(p["mean"], p["sd"])
+    def _loc_scale(self, p):
+        return p["mean"], p["sd"]
+
+    def _standard_draws(self, p, size, rng):
+        return rng.standard_normal(size)
+
 
     def _logpdf(self, x, p):
         z = (x - p["mean"]) / p["sd"]
@@ -1044,6 +1068,12 @@ class _Lognormal(Family):
 
     def frozen(self, p):
         return stats.lognorm(p["log_sd"], loc=_th(p), scale=math.exp(p["log_mean"]))
+    def _loc_scale(self, p):
+        return _th(p), math.exp(p["log_mean"])
+
+    def _standard_draws(self, p, size, rng):
+        return np.exp(p["log_sd"] * rng.standard_normal(size))
+
 
     def _z(self, x, p):
         return (np.log(x - _th(p)) - p["log_mean"]) / p["log_sd"]
@@ -1095,6 +1125,9 @@ class _Weibull(Family):
 
     def frozen(self, p):
         return stats.weibull_min(p["shape"], loc=_th(p), scale=p["scale"])
+    def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
+        return pow(-special.log1p(-rng.uniform(size=size)), 1.0 / p["shape"])
+
 
     def _t(self, x, p):
         return ((x - _th(p)) / p["scale"]) ** p["shape"]
@@ -1143,6 +1176,9 @@ class _Gamma(Family):
 
     def frozen(self, p):
         return stats.gamma(p["shape"], loc=_th(p), scale=p["scale"])
+    def _standard_draws(self, p, size, rng):
+        return rng.standard_gamma(p["shape"], size)
+
 
     def _logpdf(self, x, p):
         k, s = p["shape"], p["scale"]
@@ -1193,6 +1229,9 @@ class _Exponential(Family):
 
     def frozen(self, p):
         return stats.expon(loc=_th(p), scale=p["scale"])
+    def _standard_draws(self, p, size, rng):
+        return rng.standard_exponential(size)
+
 
     def _logpdf(self, x, p):
         return -math.log(p["scale"]) - (x - _th(p)) / p["scale"]
@@ -1234,6 +1273,12 @@ class _Logistic(Family):
 
     def frozen(self, p):
         return stats.logistic(p["location"], p["scale"])
+    def _loc_scale(self, p):
+        return p["location"], p["scale"]
+
+    def _standard_draws(self, p, size, rng):
+        return rng.logistic(size=size)
+
 
     def _logpdf(self, x, p):
         return _logistic_logpdf((x - p["location"]) / p["scale"]) - math.log(p["scale"])
@@ -1261,6 +1306,10 @@ class _Loglogistic(Family):
 
     def frozen(self, p):
         return stats.fisk(p["shape"], loc=_th(p), scale=p["scale"])
+    def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default (fisk = burr d=1)
+        q = rng.uniform(size=size)
+        return (q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"])
+
 
     def _w(self, x, p):
         return p["shape"] * (np.log(x - _th(p)) - math.log(p["scale"]))
@@ -1308,6 +1357,12 @@ class _SEV(Family):
 
     def frozen(self, p):
         return stats.gumbel_l(p["location"], p["scale"])
+    def _loc_scale(self, p):
+        return p["location"], p["scale"]
+
+    def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
+        return np.log(-special.log1p(-rng.uniform(size=size)))
+
 
     def _z(self, x, p):
         return (x - p["location"]) / p["scale"]
@@ -1339,6 +1394,9 @@ class _LEV(_SEV):
 
     def frozen(self, p):
         return stats.gumbel_r(p["location"], p["scale"])
+    def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
+        return -np.log(-np.log(rng.uniform(size=size)))
+
 
     def _logpdf(self, x, p):
         z = self._z(x, p)
@@ -1364,6 +1422,12 @@ class _Halfnormal(Family):
 
     def frozen(self, p):
         return stats.halfnorm(0.0, p["scale"])
+    def _loc_scale(self, p):
+        return 0.0, p["scale"]
+
+    def _standard_draws(self, p, size, rng):
+        return abs(rng.standard_normal(size=size))
+
 
     def _logpdf(self, x, p):
         z = x / p["scale"]
