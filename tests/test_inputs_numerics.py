@@ -156,12 +156,12 @@ def test_bootstrap_blocks_give_the_single_block_numbers(monkeypatch):
     """Blocks of samples use the same random stream as one block: with blocks of a few
     samples the percentile draws equal those of one block (closed-form family: the refits
     are row by row, so the numbers are identical)."""
-    from studykit.stats import fit
+    from studykit.stats import fit, solvers
 
     x = np.random.default_rng(9).lognormal(0.5, 0.3, 300)
     model = fit.FAMILIES["lognormal"].fit(x)
     one = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=200)
-    monkeypatch.setattr(fit, "ROW_CELLS", 7 * 300)  # blocks of 7 samples
+    monkeypatch.setattr(solvers, "ROW_CELLS", 7 * 300)  # blocks of 7 samples
     blocks = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=200)
     assert blocks.bounds == one.bounds
 
