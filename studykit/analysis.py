@@ -167,6 +167,12 @@ class AnalysisOptions:
     mr_removal : {"later", "both"}
         Automatic phase I on an individuals chart: a moving-range signal removes the later
         reading of the pair (default) or both readings.
+    rank_models : bool or None
+        Fit and rank every distribution family (``ranking`` and ``model_band`` of the result)
+        even when the normal model is not rejected. ``None`` (not given): no for
+        :func:`analyze_characteristic` (the ranking is computed only when model ``auto``
+        rejects the normal model or a family is requested: faster), yes for
+        :func:`analyze_study` (the workbook and the report show it).
     """
 
     chart: str | None = None
@@ -184,6 +190,7 @@ class AnalysisOptions:
     sigma_method: str | None = None
     transform_indices: str = "transformed"
     mr_removal: str = "later"
+    rank_models: bool | None = None
 
     def __post_init__(self):
         if self.transform_indices not in TRANSFORM_INDICES:
@@ -735,20 +742,17 @@ def _criteria_dict(criteria) -> dict:
     }
 
 
-def _choose_model(x, requested: str, ad_normal, lsl, usl):
-    """Pick the distribution model; returns (ModelChoice, Ranking or None, notes)."""
+def _choose_model(x, requested: str, ad_normal, lsl, usl, rank=False):
+    """Pick the distribution model; returns (ModelChoice, Ranking or None, notes).
+
+    The families are fitted and ranked when a family is requested, when ``auto`` finds the
+    normal model rejected, or when ``rank`` asks for the ranking anyway."""
     ranking = None
     notes: list[str] = []
     positive = bool(np.all(x > 0))
-    need_ranking = requested not in ("normal", *_TRANSFORMS)
-    normal_kept = (requested == "auto" and ad_normal.p_value is not None
-                   and ad_normal.p_value >= NORMALITY_ALPHA)
-    if normal_kept and x.size > LARGE_SAMPLE:
-        notes.append(
-            f"{x.size} values and the normal model is not rejected: the other models are not "
-            f"ranked above {LARGE_SAMPLE} values (ask for one with --model to fit it)"
-        )
-    elif need_ranking or requested == "auto":
+    normal_kept = ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA
+    need_ranking = requested not in ("normal", "auto", *_TRANSFORMS)
+    if need_ranking or (requested == "auto" and (rank or not normal_kept)):
         ranking = fit_module.fit_all(x)
     if requested == "auto":
         if normal_kept:
@@ -1399,7 +1403,8 @@ def analyze_characteristic(
     if reuse:
         choice, ranking, notes = last["choice"], last["ranking"], list(last["notes"])
     else:
-        choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl)
+        choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl,
+                                               rank=bool(options.rank_models))
     warn.extend(notes)
     df_within = _df_within(stat_chart)
     if choice.transform is not None and options.transform_indices == "percentile":
@@ -1946,7 +1951,8 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
     options = options or AnalysisOptions()
     chart = options.chart or study.chart_for(name)
     model = options.model or study.model_for(name)
-    options = replace(options, chart=chart, model=model)
+    rank = True if options.rank_models is None else options.rank_models  # shown by the views
+    options = replace(options, chart=chart, model=model, rank_models=rank)
     return analyze_characteristic(
         data,
         spec,

@@ -441,6 +441,9 @@ def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
     import studykit.analysis  # noqa: F401 - imported before the fork, so workers start warm
+    from studykit.stats.constants import gauss_legendre
+
+    gauss_legendre(400)  # the d3 quadrature rule, once here instead of once per worker
 
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)

@@ -24,6 +24,8 @@ from studykit.batch import BATCH_COLUMNS, NO_SPEC_NOTE, run_many
 from studykit.cli import main
 from studykit.data import read_measurements
 from studykit.errors import StudyInputError
+from studykit.stats import bootstrap
+from studykit.stats.capability import _bootstrap_draws_generic, capability
 from studykit.stats.fit import FAMILIES
 from studykit.study import Criteria, read_specs
 
@@ -283,14 +285,27 @@ def test_dask_unreachable_scheduler(inputs, monkeypatch):
 # ----------------------------------------------------------------------------- fast bootstrap
 
 SKEWED = np.exp(np.random.default_rng(7).normal(1.0, 0.3, 60)) + 2.0
+# refitted by the profile search over the threshold, and by a row-wise Newton iteration
+THRESHOLD_FAMILIES = ("lognormal3", "weibull3", "gamma3", "loglogistic3")
+ROW_FAMILIES = ("weibull", "gamma", "loglogistic")
 
 
 @pytest.mark.parametrize("fid", list(FAMILIES))
 def test_family_quantiles_equal_scipy_frozen_ppf(fid):
     model = FAMILIES[fid].fit(SKEWED)
     # reference: the frozen scipy.stats distribution, model.dist.ppf([0.00135, 0.5, 0.99865])
-    expected = model.dist.ppf(cap._PROBS)
-    np.testing.assert_array_equal(cap._family_quantiles(fid, dict(model.parameters)), expected)
+    expected = model.dist.ppf(bootstrap.PROBS)
+    np.testing.assert_array_equal(FAMILIES[fid].quantile(bootstrap.PROBS,
+                                                         dict(model.parameters)), expected)
+
+
+@pytest.mark.parametrize("fid", list(FAMILIES))
+def test_family_sample_equals_scipy_frozen_rvs(fid):
+    model = FAMILIES[fid].fit(SKEWED)
+    # reference: scipy.stats' rvs of the frozen distribution on the same numpy Generator
+    expected = model.dist.rvs(size=(3, 40), random_state=np.random.default_rng(11))
+    got = FAMILIES[fid].sample(dict(model.parameters), (3, 40), np.random.default_rng(11))
+    np.testing.assert_array_equal(got, expected)
 
 
 @pytest.mark.parametrize("fid", list(FAMILIES))
@@ -298,18 +313,17 @@ def test_fast_bootstrap_equals_generic(fid):
     model = FAMILIES[fid].fit(SKEWED)
     present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)
     # reference: one scipy rvs call, FittedModel refit and frozen ppf per bootstrap sample
-    ref, ref_failed = cap._bootstrap_draws_generic(
+    ref, ref_failed = _bootstrap_draws_generic(
         model, SKEWED.size, 1.0, 12.0, "percentile", 60, np.random.default_rng(3), present)
-    fast, failed = cap._bootstrap_draws_fast(
-        model, fid, SKEWED.size, 1.0, 12.0, 60, np.random.default_rng(3), present)
+    fast, failed = bootstrap.percentile_draws(
+        model, SKEWED.size, 1.0, 12.0, 60, np.random.default_rng(3), present)
     assert failed == ref_failed
     # rtol: closed-form and row-wise refits differ by rounding only (7e-14 seen); threshold
     # families: the generic search ends on a 33-point grid pass and a linear interpolation of
     # the profile slope (about 1e-5 in the threshold), ours at the slope's root to 1e-9
     # two-parameter families refitted row-wise: the row-wise Newton stops one step apart from
     # the per-sample one (4e-8 seen for loglogistic)
-    rtol = (1e-4 if fid in cap._THRESHOLD_FAMILIES
-            else 1e-6 if fid in cap._ROW_FAMILIES else 1e-9)
+    rtol = (1e-4 if fid in THRESHOLD_FAMILIES else 1e-6 if fid in ROW_FAMILIES else 1e-9)
     for k in present:
         np.testing.assert_allclose(fast[k], ref[k], rtol=rtol)
 
@@ -324,10 +338,10 @@ def test_threshold_bootstrap_same_failures_and_bounds(fid, shape, seed):
     x = 5.0 + np.random.default_rng(seed).weibull(shape, 30)
     model = FAMILIES[fid].fit(x)
     present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)
-    ref, ref_failed = cap._bootstrap_draws_generic(
+    ref, ref_failed = _bootstrap_draws_generic(
         model, x.size, 4.0, 20.0, "percentile", 50, np.random.default_rng(seed), present)
-    fast, failed = cap._bootstrap_draws_fast(
-        model, fid, x.size, 4.0, 20.0, 50, np.random.default_rng(seed), present)
+    fast, failed = bootstrap.percentile_draws(
+        model, x.size, 4.0, 20.0, 50, np.random.default_rng(seed), present)
     assert ref_failed > 0  # the edge cases are exercised
     assert failed == ref_failed
     for k in present:
@@ -337,21 +351,21 @@ def test_threshold_bootstrap_same_failures_and_bounds(fid, shape, seed):
 def test_fast_bootstrap_one_sided_and_failures():
     model = FAMILIES["lognormal"].fit(SKEWED)
     present = {"pp": None, "ppk": 1.0, "ppu": 1.0, "ppl": None}
-    ref, _ = cap._bootstrap_draws_generic(model, 4, None, 12.0, "percentile", 50,
+    ref, _ = _bootstrap_draws_generic(model, 4, None, 12.0, "percentile", 50,
                                           np.random.default_rng(1), present)
-    fast, failed = cap._bootstrap_draws_fast(model, "lognormal", 4, None, 12.0, 50,
-                                             np.random.default_rng(1), present)
+    fast, failed = bootstrap.percentile_draws(model, 4, None, 12.0, 50,
+                                              np.random.default_rng(1), present)
     assert failed == 0 and len(fast["pp"]) == 0 and len(fast["ppl"]) == 0
     np.testing.assert_allclose(fast["ppk"], ref["ppk"], rtol=1e-12)
     # a sample with a non-positive value cannot be refitted by a positive family
-    _, ok = cap._vector_estimates("lognormal", np.array([[1.0, 2.0, 3.0], [-1.0, 2.0, 3.0]]))
+    _, ok, _ = FAMILIES["lognormal"].refit_rows(np.array([[1.0, 2.0, 3.0], [-1.0, 2.0, 3.0]]))
     assert ok.tolist() == [True, False]
 
 
 def test_capability_bounds_unchanged_by_fast_path():
     model = FAMILIES["weibull"].fit(SKEWED)
-    fast = cap.capability(SKEWED, lsl=1.0, usl=12.0, model=model, n_boot=80, random_state=2)
-    generic = cap._bootstrap_draws_generic(model, SKEWED.size, 1.0, 12.0, "percentile", 80,
+    fast = capability(SKEWED, lsl=1.0, usl=12.0, model=model, n_boot=80, random_state=2)
+    generic = _bootstrap_draws_generic(model, SKEWED.size, 1.0, 12.0, "percentile", 80,
                                            np.random.default_rng(2), dict.fromkeys(
                                                ("pp", "ppk", "ppu", "ppl"), 1.0))[0]
     # reference: the 5 % quantile of the generic draws (numpy.quantile, default method)

@@ -40,7 +40,7 @@ KNOWN = {
     ("studykit/stats/capability.py", "capability"),
     ("studykit/stats/charts.py", "_attribute_chart"),
     ("studykit/stats/charts.py", "control_chart"),
-    ("studykit/stats/fit.py", "_profile_threshold"),
+    ("studykit/stats/solvers.py", "profile_threshold"),  # moved from fit.py
     ("studykit/stats/gauge_type1.py", "short_gauge_study"),
     ("studykit/stats/phase1.py", "phase1"),
     ("studykit/stats/transform.py", "box_cox"),

@@ -156,12 +156,12 @@ def test_bootstrap_blocks_give_the_single_block_numbers(monkeypatch):
     """Blocks of samples use the same random stream as one block: with blocks of a few
     samples the percentile draws equal those of one block (closed-form family: the refits
     are row by row, so the numbers are identical)."""
-    from studykit.stats import fit
+    from studykit.stats import fit, solvers
 
     x = np.random.default_rng(9).lognormal(0.5, 0.3, 300)
     model = fit.FAMILIES["lognormal"].fit(x)
     one = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=200)
-    monkeypatch.setattr(fit, "ROW_CELLS", 7 * 300)  # blocks of 7 samples
+    monkeypatch.setattr(solvers, "ROW_CELLS", 7 * 300)  # blocks of 7 samples
     blocks = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=200)
     assert blocks.bounds == one.bounds
 
@@ -180,6 +180,8 @@ def test_large_sample_bootstrap_is_rescaled(monkeypatch):
     monkeypatch.setattr(capability_module, "BOOTSTRAP_FULL_N", 1000)
     sub = capability(x, lsl=0.5, usl=5.0, model=model, n_boot=1000)
     assert any("samples of 1000 values" in n for n in sub.notes)
+    assert sub.bounds["ppk"]["method"] == "rescaled_m_out_of_n_bootstrap_percentile"
+    assert full.bounds["ppk"]["method"] == "parametric_bootstrap_percentile"
     w_full = full.bounds["ppk"]["upper"] - full.bounds["ppk"]["lower"]
     w_sub = sub.bounds["ppk"]["upper"] - sub.bounds["ppk"]["lower"]
     assert w_sub == pytest.approx(w_full, rel=0.15)  # Monte-Carlo noise of 1000 draws
@@ -215,3 +217,5 @@ def test_memory_under_resource_limit_200k_weibull(tmp_path):
     assert result["model"]["name"] == "weibull"
     assert result["capability"]["ppk_lower_95"] < result["capability"]["ppk"]
     assert any("samples of 20000 values" in w for w in result["capability"].get("notes", []))
+    assert (result["capability"]["bounds"]["ppk"]["method"]
+            == "rescaled_m_out_of_n_bootstrap_percentile")

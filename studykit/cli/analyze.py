@@ -88,6 +88,10 @@ def register(sub) -> None:
     p.add_argument("--usl", type=float, help="upper specification limit")
     p.add_argument("--target", type=float, help="target (nominal) value")
     p.add_argument("--model", help="auto, normal, boxcox, johnson or a family id (default auto)")
+    p.add_argument("--rank-models", action="store_true", default=None,
+                   help="fit and rank every distribution family even when the normal model is "
+                   "not rejected (JSON `ranking`, `model_band`; default: only when needed, "
+                   "always with --study)")
     p.add_argument("--confidence", type=float, default=None,
                    help="confidence level of the bounds (default: the study's criterion, "
                         "else 0.95)")

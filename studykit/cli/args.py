@@ -52,6 +52,7 @@ def analysis_options(args):
         sigma_method=getattr(args, "sigma_method", None),
         transform_indices=getattr(args, "transform_indices", None) or "transformed",
         mr_removal=getattr(args, "mr_removal", None) or "later",
+        rank_models=getattr(args, "rank_models", None),
     )
 
 

@@ -20,7 +20,7 @@ such object (the protocol of :mod:`studykit.stats.fit`).
 Bootstrap of a large sample
 ---------------------------
 The bounds of a fitted model come from a parametric bootstrap. Its samples are drawn and
-refitted in blocks (at most :data:`studykit.stats.fit.ROW_CELLS` cells at a time), so memory
+refitted in blocks (at most :data:`studykit.stats.solvers.ROW_CELLS` cells at a time), so memory
 does not grow with the number of samples times n. Above :data:`BOOTSTRAP_FULL_N` readings
 each bootstrap sample has m = BOOTSTRAP_FULL_N readings instead of n, and the spread of its
 index around the estimate T_n is scaled to n: T_n + sqrt(m / n) (T*_m - T_n). This is the
@@ -30,7 +30,12 @@ and W. R. van Zwet, "Resampling fewer than n observations: gains, losses, and re
 losses", Statistica Sinica 7 (1997) 1-31; D. N. Politis, J. P. Romano and M. Wolf,
 *Subsampling*, Springer 1999, ch. 2. The time and memory of a study then stop growing with n
 beyond the sample itself; at 20,000 readings the percentile interval's own bias, of order
-1/m, is far below the width of the interval.
+1/m, is far below the width of the interval. The bounds' ``method`` field then reads
+``rescaled_m_out_of_n_bootstrap_percentile`` instead of ``parametric_bootstrap_percentile``.
+
+Bootstrap samples are drawn from the numpy Generator directly by the family's ``sample``
+(the same calls and arithmetic as scipy.stats' ``rvs`` of the frozen model, so the same
+numbers); a model object outside :mod:`studykit.stats.fit` is sampled through its ``rvs``.
 """
 
 from __future__ import annotations
@@ -43,6 +48,7 @@ from scipy import optimize, special
 
 from studykit import names
 from studykit.errors import AnalysisError, SpecError, StudyInputError
+from studykit.stats import bootstrap
 from studykit.stats._checks import NOISE_ULPS, check_resolution, check_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _finite_or_none
@@ -67,7 +73,7 @@ __all__ = [
 ]
 
 #: Lower tail of the percentile method: exactly 0.135 % (ISO 22514-2). See module notes.
-TAIL_PROBABILITY = 0.00135
+TAIL_PROBABILITY = bootstrap.TAIL_PROBABILITY
 
 #: Capability indices, in report order. Output field names are defined here once.
 INDEX_NAMES = names.INDEX_IDS
@@ -316,9 +322,8 @@ def _normal_indices(mean, sigma, lsl, usl):
 
 
 def _percentile_indices(model, lsl, usl):
-    fid = _fast_family_id(model)
-    if fid is not None:  # the same numbers as model.ppf, without a frozen scipy object
-        q = _family_quantiles(fid, dict(model.parameters))
+    if bootstrap.is_family_model(model):  # model.ppf's numbers without a frozen scipy object
+        q = model.family.quantile(bootstrap.PROBS, dict(model.parameters))
     else:
         q = model.ppf(np.array([TAIL_PROBABILITY, 0.5, 1 - TAIL_PROBABILITY]))
     q_lo, q_mid, q_hi = (float(v) for v in q)
@@ -778,13 +783,12 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     n_boot = _check_count(n_boot, name="n_boot", low=50)
     rng = np.random.default_rng(random_state)
     names = ("pp", "ppk", "ppu", "ppl")
-    fid = _fast_family_id(model) if method == "percentile" else None
     n_draw = min(n, BOOTSTRAP_FULL_N)
-    if fid is None:
+    if method == "percentile" and bootstrap.is_family_model(model):
+        draws, failed = bootstrap.percentile_draws(model, n_draw, lsl, usl, n_boot, rng, values)
+    else:
         draws, failed = _bootstrap_draws_generic(model, n_draw, lsl, usl, method, n_boot, rng,
                                                  values)
-    else:
-        draws, failed = _bootstrap_draws_fast(model, fid, n_draw, lsl, usl, n_boot, rng, values)
     if n_draw < n:
         # large sample: samples of BOOTSTRAP_FULL_N readings, their spread around the
         # estimate scaled by sqrt(m / n) (module notes, "Bootstrap of a large sample")
@@ -807,6 +811,8 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     if failed:
         notes.append(f"{failed} of {n_boot} bootstrap refits failed and were left out.")
     alpha = 1.0 - level
+    method_name = ("parametric_bootstrap_percentile" if n_draw == n
+                   else "rescaled_m_out_of_n_bootstrap_percentile")
     out = {}
     for k in names:
         if values[k] is None or not len(draws[k]):
@@ -817,7 +823,7 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
             "lower_bound": _finite_or_none(lb),
             "lower": _finite_or_none(lo),
             "upper": _finite_or_none(hi),
-            "method": "parametric_bootstrap_percentile",
+            "method": method_name,
         }
     return out
 
@@ -843,289 +849,6 @@ def _bootstrap_draws_generic(model, n, lsl, usl, method, n_boot, rng, values):
             if values[k] is not None:
                 draws[k].append(np.inf if idx[k] is None else idx[k])
     return draws, failed
-
-
-# Quantile functions of the families of studykit.stats.fit, written with the same arithmetic
-# as scipy.stats' ``ppf`` of the frozen distribution each family builds (``_ppf(q, shape) *
-# scale + loc``), so the numbers are the same without building a frozen scipy object per
-# bootstrap sample (about 1 ms each). ``p`` values may be arrays (one row per sample).
-def _th_of(p):
-    return p.get("threshold", 0.0)
-
-
-def _exp(v):
-    return math.exp(v) if isinstance(v, float) else np.exp(v)
-
-
-_FAMILY_PPF = {
-    "normal": lambda q, p: special.ndtri(q) * p["sd"] + p["mean"],
-    "lognormal": lambda q, p: (np.exp(p["log_sd"] * special.ndtri(q)) * _exp(p["log_mean"])
-                               + _th_of(p)),
-    "weibull": lambda q, p: pow(-special.log1p(-q), 1.0 / p["shape"]) * p["scale"] + _th_of(p),
-    "gamma": lambda q, p: special.gammaincinv(p["shape"], q) * p["scale"] + _th_of(p),
-    "exponential": lambda q, p: -special.log1p(-q) * p["scale"] + _th_of(p),
-    "logistic": lambda q, p: special.logit(q) * p["scale"] + p["location"],
-    "loglogistic": lambda q, p: ((q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"]) * p["scale"]
-                                 + _th_of(p)),
-    "sev": lambda q, p: np.log(-special.log1p(-q)) * p["scale"] + p["location"],
-    "lev": lambda q, p: -np.log(-np.log(q)) * p["scale"] + p["location"],
-    "halfnormal": lambda q, p: special.ndtri((1 + q) / 2.0) * p["scale"] + 0.0,
-}
-_FAMILY_BASE = {
-    "lognormal3": "lognormal", "weibull3": "weibull", "gamma3": "gamma",
-    "exponential2": "exponential", "loglogistic3": "loglogistic",
-}  # fmt: skip
-# families whose estimates are closed-form means: refitted for all samples at once
-_VECTOR_FAMILIES = ("normal", "lognormal", "exponential", "exponential2", "halfnormal")
-_PROBS = np.array([TAIL_PROBABILITY, 0.5, 1 - TAIL_PROBABILITY])
-
-
-def _fast_family_id(model):
-    """The family id when ``model`` is a studykit.stats.fit model we can evaluate directly."""
-    family = getattr(model, "family", None)
-    fid = getattr(family, "id", None)
-    if fid is None or not hasattr(family, "_estimate") or not hasattr(family, "check"):
-        return None
-    if _FAMILY_BASE.get(fid, fid) not in _FAMILY_PPF:
-        return None
-    return fid
-
-
-def _family_quantiles(fid, params, probs=_PROBS):
-    return _FAMILY_PPF[_FAMILY_BASE.get(fid, fid)](probs, params)
-
-
-def _vector_estimates(fid, s):
-    """Closed-form estimates of every row of ``s`` (as the family's ``_estimate``) and the
-    rows that pass the family's data check."""
-    n = s.shape[1]
-    ok = s.max(axis=1) > s.min(axis=1)
-    if fid == "normal":
-        return {"mean": s.mean(axis=1), "sd": s.std(axis=1)}, ok
-    if fid == "halfnormal":
-        ok &= s.min(axis=1) >= 0
-        return {"scale": np.sqrt(np.einsum("ij,ij->i", s, s) / n)}, ok
-    if fid == "exponential2":
-        x1 = s.min(axis=1)
-        scale = n * (s.mean(axis=1) - x1) / (n - 1)
-        return {"scale": scale, "threshold": x1 - scale / n}, ok
-    ok &= s.min(axis=1) > 0
-    if fid == "exponential":
-        return {"scale": s.mean(axis=1)}, ok
-    ly = np.log(np.where(ok[:, None], s, 1.0))
-    return {"log_mean": ly.mean(axis=1), "log_sd": ly.std(axis=1)}, ok
-
-
-# two-parameter families whose row-wise ML solver (studykit.stats.fit) refits all samples at
-# once; the same root as the family's own estimator
-_ROW_FAMILIES = ("weibull", "gamma", "loglogistic")
-# threshold variants: the profile likelihood over the threshold, all samples at once
-_THRESHOLD_FAMILIES = ("lognormal3", "weibull3", "gamma3", "loglogistic3")
-
-
-def _row_solvers(fid):
-    from studykit.stats import fit as fit_module
-
-    base = _FAMILY_BASE.get(fid, fid)
-    return (getattr(fit_module, f"_inner_{base}"), getattr(fit_module, f"_dtheta_{base}"),
-            fit_module)
-
-
-def _row_estimates(fid, block, model, shared=None):
-    """Refits of every row of ``block`` by the row-wise solvers of studykit.stats.fit.
-
-    Returns (params dict of arrays, ok mask, rows left for the one-at-a-time estimator).
-
-    Threshold families follow ``_profile_threshold`` for all samples at once: the same grid
-    of 8 thresholds; a sample whose best grid point is at either end goes to the family's own
-    estimator (its special cases); otherwise the maximum inside the bracket of the best grid
-    point is the root of the profile slope, found by the Illinois variant of regula falsi to
-    1e-9 in u = log(min(x) - threshold) instead of two refining passes of 33 points (a
-    sample whose slope does not change sign across the bracket goes to the family's own
-    estimator too).
-    """
-    inner, dtheta, fit_module = _row_solvers(fid)
-    n_boot, n = block.shape
-    positive = block.min(axis=1) > 0
-    spread = block.max(axis=1) > block.min(axis=1)
-    if fid not in _THRESHOLD_FAMILIES:
-        ok = positive & spread
-        ys = np.where(ok[:, None], block, 1.0)
-        with np.errstate(all="ignore"):
-            _, params, _ = inner(ys)
-        ok &= np.all([np.isfinite(v) & (v > 0) for v in params.values()], axis=0)
-        return dict(params), ok, ()
-    xmin = block.min(axis=1)
-    sd = block.std(axis=1)
-    decades = fit_module._GRID_DECADES * math.log(10.0)
-
-    def evaluate(rows, u, start=None):
-        ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
-        with np.errstate(all="ignore"):
-            ll, params, state = inner(ys, start)
-            s = -np.exp(u) * dtheta(ys, params)
-        return (np.where(np.isfinite(s), s, np.nan), params,
-                np.where(np.isfinite(ll), ll, -np.inf), state)
-
-    rows = np.flatnonzero(spread & (sd > 0))
-    fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
-    # the grid of _profile_threshold, every sample at once
-    grid = np.log(sd[rows])[:, None] + decades[None, :]
-    grid_start = None
-    shared = {} if shared is None else shared
-    if fid == "weibull3" and rows.size and "k0" not in shared:
-        # every sample comes from the same model: the Weibull shapes solved on one sample's
-        # grid start the Newton iteration of all the others (fewer steps, same roots); with
-        # the samples in blocks, the first block's first sample starts every block
-        data = block[rows[0]]
-        u0 = math.log(float(np.std(data))) + decades
-        ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
-        with np.errstate(all="ignore"):
-            _, _, st0 = inner(ys0)
-        k0 = np.asarray(st0[0])
-        shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
-    if fid == "weibull3" and rows.size and shared.get("k0") is not None:
-        grid_start = (np.tile(shared["k0"], rows.size),)
-    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(),
-                                         grid_start)
-    s_grid = s_grid.reshape(-1, decades.size)
-    best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
-    if fid != "weibull3":  # warm starts help the Weibull shape's Newton iteration only
-        state = None
-    if state is not None:  # the inner solutions at the best grid points start the search
-        state = tuple(np.asarray(c).reshape(-1, decades.size) for c in state)
-    # best at either end of the grid: the family's own estimator (its special cases)
-    edge = (best == 0) | (best == decades.size - 1)
-    fallback.update(rows[edge].tolist())
-    rows, grid, best, s_grid = rows[~edge], grid[~edge], best[~edge], s_grid[~edge]
-    at = np.arange(rows.size)
-    lo_u, hi_u = grid[at, best - 1], grid[at, best + 1]
-    lo_s, hi_s = s_grid[at, best - 1], s_grid[at, best + 1]
-    if state is not None:
-        state = tuple(c[~edge][at, best] for c in state)
-    bracketed = (lo_s > 0) & (hi_s < 0)
-    fallback.update(rows[~bracketed].tolist())
-    solve = np.flatnonzero(bracketed)
-    lo_u, hi_u, lo_s, hi_s = lo_u[solve], hi_u[solve], lo_s[solve], hi_s[solve]
-    if state is not None:
-        state = tuple(c[solve] for c in state)
-    root = np.full(rows.size, np.nan)
-    side = np.zeros(solve.size)
-    for _ in range(100):
-        if not solve.size:
-            break
-        u = (lo_u * hi_s - hi_u * lo_s) / (hi_s - lo_s)
-        s_u, _, _, new_state = evaluate(rows[solve], u, state)
-        if state is not None and new_state is not None:
-            state = tuple(np.where(np.isfinite(c) & (c > 0) if i == 0 else np.isfinite(c), c, o)
-                          for i, (c, o) in enumerate(zip(new_state, state, strict=True)))
-        same_lo = s_u > 0
-        # Illinois: halve the slope kept at the end that stayed put twice in a row
-        hi_s = np.where(same_lo & (side == 1), hi_s / 2, hi_s)
-        lo_s = np.where(~same_lo & (side == -1), lo_s / 2, lo_s)
-        lo_u, lo_s = np.where(same_lo, u, lo_u), np.where(same_lo, s_u, lo_s)
-        hi_u, hi_s = np.where(same_lo, hi_u, u), np.where(same_lo, hi_s, s_u)
-        side = np.where(same_lo, 1, -1)
-        done = ((np.abs(hi_u - lo_u) <= 1e-9 * np.maximum(1.0, np.abs(u))) | (s_u == 0)
-                | ~np.isfinite(s_u))
-        root[solve[done]] = u[done]
-        keep = ~done
-        solve, lo_u, lo_s, hi_u, hi_s, side = (solve[keep], lo_u[keep], lo_s[keep],
-                                               hi_u[keep], hi_s[keep], side[keep])
-        if state is not None:
-            state = tuple(c[keep] for c in state)
-    fallback.update(rows[solve].tolist())
-    good = np.isfinite(root)
-    rows, root = rows[good], root[good]
-    ok = np.zeros(n_boot, dtype=bool)
-    params = None
-    if rows.size:
-        _, p, _, _ = evaluate(rows, root)
-        params = {}
-        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
-            params[k] = np.full(n_boot, np.nan)
-            params[k][rows] = v
-        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
-    fallback.update(np.flatnonzero(~ok & spread).tolist())
-    rest = sorted(fallback)
-    ok[rest] = False
-    return params, ok, rest
-
-
-def _bootstrap_draws_fast(model, fid, n, lsl, usl, n_boot, rng, values):
-    """The percentile-method draws of :func:`_bootstrap_draws_generic` for the families of
-    studykit.stats.fit: the same random samples (drawn in blocks of whole samples, which takes
-    the generator's stream in the same order as one draw per sample), closed-form refits
-    vectorised over the samples, iterative refits by the family's estimator without the
-    goodness-of-fit work of ``fit``, quantiles without frozen scipy objects.
-
-    Memory: a block holds at most :data:`studykit.stats.fit.ROW_CELLS` cells (samples x n,
-    counting the 8 grid thresholds of a threshold family as 8 rows each), so it is
-    O(ROW_CELLS + n) whatever ``n_boot``; a study whose whole bootstrap fits in one block
-    (n_boot x n x grid <= ROW_CELLS, e.g. 500 x 125 x 8) is computed in one block as before.
-    """
-    from studykit.stats.fit import _GRID_DECADES, rows_per_group
-
-    family = model.family
-    q = np.full((n_boot, 3), np.nan)
-    ok = np.zeros(n_boot, dtype=bool)
-    grid = _GRID_DECADES.size if fid in _THRESHOLD_FAMILIES else 1
-    per_block = min(n_boot, rows_per_group(n * grid))
-    shared = {}  # the Weibull shapes of the first sample's grid start every block
-    for i in range(0, n_boot, per_block):
-        m = min(per_block, n_boot - i)
-        try:
-            block = np.asarray(model.rvs((m, n), random_state=rng), dtype=float)
-        except (TypeError, ValueError):
-            if i:
-                raise
-            return _bootstrap_draws_generic(model, n, lsl, usl, "percentile", n_boot, rng,
-                                            values)
-        if n < getattr(family, "minimum_n", 3):
-            continue
-        q[i : i + m], ok[i : i + m] = _block_quantiles(model, fid, block, shared)
-        del block
-    q_lo, q_mid, q_hi = q[:, 0], q[:, 1], q[:, 2]
-    with np.errstate(invalid="ignore"):
-        ok &= (q_lo < q_mid) & (q_mid < q_hi)
-    q_lo, q_mid, q_hi = q_lo[ok], q_mid[ok], q_hi[ok]
-    ppu = None if usl is None else (usl - q_mid) / (q_hi - q_mid)
-    ppl = None if lsl is None else (q_mid - lsl) / (q_mid - q_lo)
-    pp = None if lsl is None or usl is None else (usl - lsl) / (q_hi - q_lo)
-    ppk = ppu if ppl is None else (ppl if ppu is None else np.minimum(ppu, ppl))
-    idx = {"pp": pp, "ppk": ppk, "ppu": ppu, "ppl": ppl}
-    draws = {k: (idx[k] if values[k] is not None and idx[k] is not None else np.empty(0))
-             for k in idx}
-    return draws, int(n_boot - np.count_nonzero(ok))
-
-
-def _block_quantiles(model, fid, block, shared):
-    """Model quantiles (0.135 %, 50 %, 99.865 %) refitted to every row of ``block``, and the
-    rows whose refit worked."""
-    from studykit.stats.fit import _clean
-
-    family = model.family
-    m = block.shape[0]
-    if fid in _VECTOR_FAMILIES:
-        params, ok, rest = *_vector_estimates(fid, block), ()
-    elif fid in _ROW_FAMILIES or fid in _THRESHOLD_FAMILIES:
-        params, ok, rest = _row_estimates(fid, block, model, shared)
-    else:
-        params, ok, rest = None, np.ones(m, dtype=bool), range(m)
-    q = np.full((m, 3), np.nan)
-    if params is not None:
-        with np.errstate(all="ignore"):
-            q[:] = _family_quantiles(fid, {k: v[:, None] for k, v in params.items()})
-    for i in rest:  # one sample at a time, by the family's own estimator
-        try:
-            x = _clean(block[i])
-            family.check(x)
-            p, _, _ = family._estimate(x)
-            q[i] = _family_quantiles(fid, {k: float(v) for k, v in p.items()})
-            ok[i] = True
-        except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
-            ok[i] = False
-    return q, ok
 
 
 # --------------------------------------------------------------------------------------------

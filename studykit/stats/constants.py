@@ -28,6 +28,7 @@ __all__ = [
     "MAX_SUBGROUP_SIZE",
     "ChartConstants",
     "chart_constants",
+    "gauss_legendre",
     "d2",
     "d3",
     "c4",
@@ -62,15 +63,6 @@ def _range_cdf_tail(r: np.ndarray, n: int, nodes: np.ndarray, weights: np.ndarra
     diff = special.ndtr(x + r[:, None]) - special.ndtr(x)
     cdf = n * np.sum(weights[None, :] * inner * diff ** (n - 1), axis=1)
     return 1.0 - cdf
-
-
-@cache
-def _leggauss400():
-    """400-point Gauss-Legendre nodes and weights on [-1, 1] (computed once per process)."""
-    nodes, weights = np.polynomial.legendre.leggauss(400)
-    nodes.setflags(write=False)
-    weights.setflags(write=False)
-    return nodes, weights
 
 
 @cache
@@ -113,6 +105,18 @@ def d2(n: int) -> float:
 
 
 @cache
+def gauss_legendre(k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes and weights of the k-point Gauss-Legendre rule on [-1, 1]
+    (``numpy.polynomial.legendre.leggauss``), computed once per process (read-only arrays):
+    the eigenvalue problem behind it takes tens of milliseconds at k = 400. A parallel batch
+    computes it before its worker processes start."""
+    nodes, weights = np.polynomial.legendre.leggauss(k)
+    nodes.flags.writeable = False
+    weights.flags.writeable = False
+    return nodes, weights
+
+
+@cache
 def d3(n: int) -> float:
     """Standard deviation of the range of ``n`` standard normal values (the constant d3).
 
@@ -144,10 +148,10 @@ def d3(n: int) -> float:
     0.852502
     """
     n = _check_size(n)
-    nodes, weights = _leggauss400()  # one eigenvalue problem, not two (same nodes)
-    x_nodes = 10.0 * nodes
-    x_weights = 10.0 * weights
-    r_nodes, r_weights = nodes, weights
+    x_nodes, x_weights = gauss_legendre(400)
+    x_nodes = 10.0 * x_nodes
+    x_weights = 10.0 * x_weights
+    r_nodes, r_weights = gauss_legendre(400)
     r_nodes = 8.0 * (r_nodes + 1.0)
     r_weights = 8.0 * r_weights
     tail = _range_cdf_tail(r_nodes, n, x_nodes, x_weights)

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from scipy import stats
+from scipy import special
 
 from studykit import names
 from studykit.errors import StudyInputError
@@ -53,17 +53,21 @@ def _check(index, level):
 
 
 def _bound(index, assumed, n, level):
-    """Lower one-sided bound at sample size n with the estimate equal to ``assumed``."""
+    """Lower one-sided bound at sample size n with the estimate equal to ``assumed``.
+
+    The quantiles are scipy.stats' ``chi2.ppf`` / ``norm.ppf`` by the special functions they
+    call (``2 gammaincinv(nu/2, p)``, ``ndtri``): the same numbers without the frozen-object
+    overhead."""
     if index in _CHI2_INDICES:
         nu = n - 1
-        return assumed * math.sqrt(stats.chi2.ppf(1 - level, nu) / nu)
-    z = stats.norm.ppf(level)
+        return assumed * math.sqrt(2.0 * special.gammaincinv(nu / 2, 1 - level) / nu)
+    z = float(special.ndtri(level))
     return assumed - z * math.sqrt(1.0 / (9.0 * n) + assumed**2 / (2.0 * (n - 1)))
 
 
 def _bissell_closed_form(assumed, target, level):
     """Real root n of k - z sqrt(1/(9n) + k^2/(2(n-1))) = T (a quadratic in n)."""
-    z = stats.norm.ppf(level)
+    z = float(special.ndtri(level))
     d = (assumed - target) ** 2 / z**2
     b = d + 1.0 / 9.0 + assumed**2 / 2.0
     return (b + math.sqrt(b * b - 4.0 * d / 9.0)) / (2.0 * d)
@@ -188,6 +192,18 @@ def parts_needed(
     lo, hi = 2, MAX_PARTS  # L(lo) < target <= L(hi) after the first check; L increases with n
     if _bound(index, assumed, lo, level) >= target:
         hi = lo
+    elif method == "bissell":
+        # the closed-form root brackets the answer: the smallest whole n >= 2 with
+        # L(n) >= target is ceil(root) up to rounding, checked on both sides
+        root = _bissell_closed_form(assumed, target, level)
+        if math.isfinite(root):
+            c = min(max(math.ceil(root), 3), MAX_PARTS)
+            if _bound(index, assumed, c, level) >= target:
+                hi = c
+                if _bound(index, assumed, c - 1, level) < target:
+                    lo = c - 1
+            else:
+                lo = c
     while hi - lo > 1:
         mid = (lo + hi) // 2
         if _bound(index, assumed, mid, level) >= target:
