@@ -515,6 +515,31 @@ class _SignatureBoxes:
         return Boxes()
 
 
+class _Deferred:
+    """A place in the story filled by ``make()`` (a list of flowables) only when the layout
+    reaches it (:class:`_StreamingDoc`): a section's figures are drawn, laid out and freed one
+    section at a time, so memory does not grow with the number of characteristics."""
+
+    def __init__(self, make: Callable[[], list]):
+        self.make = make
+
+    def getKeepWithNext(self) -> bool:  # noqa: N802 - asked by reportlab's keep-with-next
+        return False
+
+
+def _StreamingDoc(*args, **kwargs):  # noqa: N802 - a document-template factory
+    """reportlab's ``SimpleDocTemplate`` that expands :class:`_Deferred` places on arrival."""
+    from reportlab.platypus import SimpleDocTemplate
+
+    class StreamingDoc(SimpleDocTemplate):
+        def filterFlowables(self, flowables):  # noqa: N802 - reportlab's hook
+            while flowables and isinstance(flowables[0], _Deferred):
+                flowables[0:1] = flowables[0].make() or [None]  # None: skipped by reportlab
+            super().filterFlowables(flowables)
+
+    return StreamingDoc(*args, **kwargs)
+
+
 def _numbered_canvas(footer_left: str, header: str):
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
@@ -1211,7 +1236,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     a report from its evidence and compares every page."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
-    from reportlab.platypus import PageBreak, SimpleDocTemplate
+    from reportlab.platypus import PageBreak
 
     names = study.characteristic_names
     st = _styles()
@@ -1229,13 +1254,21 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
             continue
         story.append(PageBreak())
         section += 1
-        try:
-            raw = measurements.get(name)
-        except StudyInputError:
-            raw = None
-        _characteristic_section(story, section, name, res, study, raw, st, width, None)
-        if progress is not None:
-            progress(len(names) + i + 1, total, f"drawn {name}")
+        done = len(names) + i + 1
+
+        def draw_section(number=section, name=name, res=res, done=done):
+            # made when the layout reaches it, so only one section's figures are in memory
+            try:
+                raw = measurements.get(name)
+            except StudyInputError:
+                raw = None
+            part: list = []
+            _characteristic_section(part, number, name, res, study, raw, st, width, None)
+            if progress is not None:
+                progress(done, total, f"drawn {name}")
+            return part
+
+        story.append(_Deferred(draw_section))
     if gauges:
         story.append(PageBreak())
         section += 1
@@ -1256,13 +1289,20 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
 
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
     buf = io.BytesIO()
-    doc = SimpleDocTemplate(
+    doc = _StreamingDoc(
         buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
         bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
         author="studykit", subject=f"content digest {study.content_digest()}",
         creator=f"studykit {__version__}", invariant=1,
     )
-    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    from reportlab import rl_config
+
+    a85 = rl_config.useA85
+    rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
+    try:
+        doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
+    finally:
+        rl_config.useA85 = a85
     return buf.getvalue(), boxes
 
 
