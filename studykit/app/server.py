@@ -20,7 +20,7 @@ additions:
   at a time (the others wait their turn), and the executor waits up to
   :data:`IOPUB_TIMEOUT` s for a cell's output, so many pages opened at once all render.
 * The kernel websocket accepts messages up to the upload limit plus headroom, so an upload of
-  up to :data:`studykit.app.widgets.MAX_UPLOAD_BYTES` reaches the kernel (tornado's default cap
+  up to :data:`studykit.app.server_guard.MAX_UPLOAD_BYTES` reaches the kernel (tornado's default cap
   is 10 MiB); the page refuses larger files before sending them, with a message.
 * SIGINT and SIGTERM stop the server whatever the parent did with them (ignored or blocked),
   and with ``STUDYKIT_PARENT_PID`` set the server stops when that process goes away.
@@ -50,6 +50,7 @@ from voila.app import Voila
 from voila.tornado.handler import TornadoVoilaHandler
 
 from studykit.app.server_guard import (
+    MAX_UPLOAD_BYTES,
     HostPolicy,
     inject_into_head,
     install_redaction,
@@ -59,7 +60,6 @@ from studykit.app.server_guard import (
     strip_token,
     upload_guard_script,
 )
-from studykit.app.widgets import MAX_UPLOAD_BYTES
 
 ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"
 ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # set by `studykit serve` for non-loopback addresses

@@ -28,6 +28,8 @@ from urllib.parse import parse_qsl, urlencode, urlsplit
 import tornado.routing
 import tornado.web
 
+MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
+
 LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
 WIDE_BINDS = ("", "0.0.0.0", "::")
 
