@@ -1230,10 +1230,12 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
                  *, chain: Mapping | None, evidence_sha: str,
                  short_gauges: Mapping | None = None,
                  progress: Callable[[int, int, str], None] | None = None,
-                 total: int = 0) -> tuple[bytes, dict]:
+                 total: int = 0, out: str | os.PathLike | None = None,
+                 ) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
-    a report from its evidence and compares every page."""
+    a report from its evidence and compares every page. With ``out`` (a path) the pages are
+    written to that file as they are laid out and None is returned instead of the bytes."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
     from reportlab.platypus import PageBreak
@@ -1288,7 +1290,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     _appendix(story, section, study, st, width, evidence_sha, chain)
 
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
-    buf = io.BytesIO()
+    buf = io.BytesIO() if out is None else os.fspath(out)
     doc = _StreamingDoc(
         buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
         bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
@@ -1303,7 +1305,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
         doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90]))
     finally:
         rl_config.useA85 = a85
-    return buf.getvalue(), boxes
+    return (buf.getvalue() if out is None else None), boxes
 
 
 def build_report(study_path_or_study, out_path, *,
@@ -1373,20 +1375,27 @@ def build_report(study_path_or_study, out_path, *,
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
-    pages_pdf, boxes = render_pages(study, results, errors, measurements, stored_gauges,
-                                    chain=chain, evidence_sha=evidence_sha,
-                                    short_gauges=short_gauges,
-                                    progress=progress, total=total)
-    pdf = _attach(pages_pdf, evidence_bytes, boxes)
     out = Path(out_path)
+    pages_path = out.with_name(out.name + ".pages.part")
     tmp = out.with_name(out.name + ".part")
-    tmp.write_bytes(pdf)
-    os.replace(tmp, out)
+    try:
+        # pages go to disk as they are laid out; the evidence is appended to that file as an
+        # update, so the document is never held in memory as a whole
+        _, boxes = render_pages(study, results, errors, measurements, stored_gauges,
+                                chain=chain, evidence_sha=evidence_sha,
+                                short_gauges=short_gauges, progress=progress, total=total,
+                                out=pages_path)
+        _attach(pages_path, evidence_bytes, boxes, tmp)
+        os.replace(tmp, out)
+    finally:
+        for leftover in (pages_path, tmp):
+            leftover.unlink(missing_ok=True)
     if progress is not None:
         progress(total, total, "written")
     from pypdf import PdfReader
 
-    pages = len(PdfReader(io.BytesIO(pdf)).pages)
+    with open(out, "rb") as f:
+        pages = len(PdfReader(f).pages)
     return ReportInfo(
         path=str(out),
         pages=pages,
@@ -1401,14 +1410,14 @@ def build_report(study_path_or_study, out_path, *,
     )
 
 
-def _attach(pdf: bytes, evidence: bytes, boxes: Mapping) -> bytes:
-    """Embed the evidence JSON as a PDF embedded file, and the signature boxes as document
-    metadata (deterministic output)."""
+def _attach(pages: Path, evidence: bytes, boxes: Mapping, out: Path) -> None:
+    """Write ``pages`` (a PDF file) to ``out`` with the evidence JSON as a PDF embedded file and
+    the signature boxes as document metadata, added as an incremental update: the pages' bytes
+    are copied unchanged and only the new objects are parsed and written (deterministic)."""
     from pypdf import PdfReader, PdfWriter
 
-    writer = PdfWriter(clone_from=PdfReader(io.BytesIO(pdf)))
-    writer.add_attachment(EVIDENCE_FILENAME, evidence)
-    writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
-    out = io.BytesIO()
-    writer.write(out)
-    return out.getvalue()
+    with open(pages, "rb") as src, open(out, "wb") as dst:
+        writer = PdfWriter(PdfReader(src), incremental=True)
+        writer.add_attachment(EVIDENCE_FILENAME, evidence)
+        writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
+        writer.write(dst)

@@ -42,6 +42,9 @@ from browser_support import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 
 from studykit.app.server import free_port, kernel_pids  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from figure_rows import row  # noqa: E402
+
 FIRST_GOAL_S = 4.0
 SECOND_GOAL_S = 1.5
 KERNEL_GOAL_MB = 150.0
@@ -105,7 +108,8 @@ def _server_pid(serve_pid: int) -> int | None:
     return None
 
 
-def stock_voila(browser, folder: Path) -> float:
+def stock_voila(browser, folder: Path) -> tuple[float, float]:
+    """Seconds from `voila` start to the one-cell page, and its kernel's RSS (MB)."""
     nb = folder / "one_cell.ipynb"
     nb.write_text(json.dumps(ONE_CELL))
     port = free_port()
@@ -120,8 +124,9 @@ def stock_voila(browser, folder: Path) -> float:
         page.goto(f"http://127.0.0.1:{port}/", timeout=TIMEOUT_MS)
         page.get_by_text("stock voila page ready").wait_for(timeout=TIMEOUT_MS)
         t = time.perf_counter() - t0
+        rss = [_rss_mb(pid) for pid in kernel_pids(proc.pid).values()]
         page.close()
-        return t
+        return t, (max(rss) if rss else float("nan"))
     finally:
         _stop(proc)
 
@@ -176,20 +181,22 @@ def main(argv=None) -> int:
     shots = Path(args.screenshots) if args.screenshots else None
     if shots:
         shots.mkdir(parents=True, exist_ok=True)
-    stock, first, second, kernel = [], [], [], []
+    stock, stock_kernel, first, second, kernel = [], [], [], [], []
     with sync_playwright() as p, tempfile.TemporaryDirectory() as d:
         browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
         try:
             for i in range(args.runs):
                 run_dir = Path(d) / f"run{i}"
                 run_dir.mkdir()
-                s = stock_voila(browser, run_dir)
+                s, sk = stock_voila(browser, run_dir)
+                stock_kernel.append(sk)
                 w = workbook(browser, run_dir, args.warm, shots if i == 0 else None)
                 stock.append(s)
                 first.append(w["first"])
                 second.append(w["second"])
                 kernel.append(w["kernel_mb"])
-                print(f"run {i + 1}: stock Voila one-cell page {s:.2f} s | `studykit serve "
+                print(f"run {i + 1}: stock Voila one-cell page {s:.2f} s (kernel {sk:.0f} MB) "
+                      f"| `studykit serve "
                       f"--demo` first chart {w['first']:.2f} s | second visitor "
                       f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
                       f"{w['kernel_mb']:.0f} MB RSS", flush=True)
@@ -209,6 +216,17 @@ def main(argv=None) -> int:
           f"{verdict(k <= KERNEL_GOAL_MB)}")
     print(f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
           f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB")
+    sk = statistics.median(stock_kernel)
+    cmd = "studykit serve --demo"
+    stock_name = "stock `voila` on a one-cell notebook, start to page"
+    row("Workbook: first chart, from start", cmd, f, "s", baseline_name=stock_name,
+        baseline=s, goal=f"<= {FIRST_GOAL_S:g} s", met=f <= FIRST_GOAL_S)
+    row("Workbook: first chart, second visitor on a warm server", cmd + " (a second page)", v,
+        "s", baseline_name=stock_name, baseline=s, goal=f"<= {SECOND_GOAL_S:g} s",
+        met=v <= SECOND_GOAL_S)
+    row("Workbook: kernel memory (RSS) on the demo study", cmd, k, "MB",
+        baseline_name="stock Voila one-cell kernel", baseline=sk,
+        goal=f"<= {KERNEL_GOAL_MB:g} MB", met=k <= KERNEL_GOAL_MB)
     print("json: " + json.dumps({"stock_s": round(s, 2), "first_s": round(f, 2),
                                  "second_s": round(v, 2), "kernel_mb": round(k),
                                  "first_ratio": round(f / s, 2),

@@ -15,7 +15,7 @@ is its own process, timed from process start to exit, its peak RSS read from ``w
   titles and axis labels), a heading and a small table, laid out by reportlab's platypus with
   each characteristic on a new page; no statistics at all.
 
-The ratio is report / floor. Prints one line per size and a ``summary:`` line (read by
+The ratio is report / floor. Prints one line per size, a ``summary:`` line and the figure rows (read by
 ``run_all.py``). Runs are one after the other (never in parallel), floor and report
 interleaved, so both see the same machine load.
 """
@@ -34,6 +34,10 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve()
+sys.path.insert(0, str(HERE.parent))
+
+from figure_rows import row  # noqa: E402
+
 TARGET_RATIO = 1.5
 TARGET_100_S = 30.0
 SUBGROUPS, SIZE = 25, 5
@@ -202,6 +206,23 @@ def main(argv=None) -> int:
               f"{results[n]['report']['rss_mb']:.0f} MB at {n}" for n in sizes)
           + f"; {rep_hi['seconds']:.1f} s vs {TARGET_100_S:.0f} s goal")
     print("json: " + json.dumps(summary))
+    for n in sizes:
+        rep, flo = results[n]["report"], results[n]["floor"]
+        goal = f"<= {TARGET_RATIO}x floor" + (f", <= {TARGET_100_S:g} s" if n == 100 else "")
+        row(f"PDF report, {n} characteristics", "studykit report STUDY", rep["seconds"], "s",
+            baseline_name="floor: the same figures and pages with matplotlib + reportlab",
+            baseline=flo["seconds"], goal=goal,
+            met=rep["seconds"] <= TARGET_RATIO * flo["seconds"]
+            and (n != 100 or rep["seconds"] <= TARGET_100_S))
+    for n in sizes:
+        rep, flo = results[n]["report"], results[n]["floor"]
+        row(f"PDF report, {n} characteristics: peak RSS", "studykit report STUDY",
+            rep["rss_mb"], "MB", baseline_name="floor's peak RSS", baseline=flo["rss_mb"],
+            goal="flat in the number of characteristics" if n == hi else "")
+    if hi > lo:
+        row(f"PDF report: peak RSS growth per characteristic ({lo} -> {hi})",
+            "studykit report STUDY", growth, "MB", baseline_name="", baseline=None,
+            goal="flat (about 0)")
     return 0
 
 
