@@ -148,11 +148,40 @@ def test_warning_limits_toggle(wb):
     assert all(r.visible for r in stab.view.warning_renderers)
 
 
+def _overview_text(panel) -> str:
+    return " ".join(getattr(c, "value", "") for row in panel.table.children
+                    for c in (row.children if hasattr(row, "children") else [row]))
+
+
+def test_overview_analyses_on_opening_and_after_a_change(wb, study_path):
+    lim = wb.step("limits")
+    session = lim.ws.session
+    # the landing view analysed every characteristic: no "not analysed yet" for an open study
+    assert all(session.is_cached(n) or session.error(n) for n in session.names)
+    assert "not analysed yet" not in _overview_text(lim.overview)
+    # its chart has one row per characteristic with an index, in the table's values
+    rows = {r["characteristic"]: r for r in overview_rows(session)}
+    drawn = lim.overview.chart.source.data
+    assert sorted(drawn["name"]) == sorted(n for n, r in rows.items()
+                                           if r["estimate"] is not None)
+    for name, est, lb in zip(drawn["name"], drawn["estimate"], drawn["lower_bound"],
+                             strict=True):
+        assert est == rows[name]["estimate"] and lb == rows[name]["lower_bound"]
+    # a specification change invalidates the result; the overview analyses it again at once
+    lim.usl.value = "8.08"
+    lim.reason.value = "drawing rev C"
+    lim.save.click()
+    assert StudyFile(study_path).load().characteristic(NAME).usl == 8.08
+    assert session.is_cached(NAME)
+    assert "not analysed yet" not in _overview_text(lim.overview)
+    after = {r["characteristic"]: r for r in overview_rows(session)}[NAME]
+    assert after["estimate"] != rows[NAME]["estimate"]  # the new limit is in the number
+    i = list(lim.overview.chart.source.data["name"]).index(NAME)
+    assert lim.overview.chart.source.data["estimate"][i] == after["estimate"]
+
+
 def test_overview_sorts_and_opens(wb):
     lim = wb.step("limits")
-    lim.overview.analyse.click()
-    assert lim.overview.progress.value == lim.overview.progress.max == len(
-        lim.ws.session.names)
     rows = overview_rows(lim.ws.session)
     ordered = sort_rows(rows, "lower_bound", descending=True)
     bounds = [r["lower_bound"] for r in ordered if r["lower_bound"] is not None]

@@ -7,7 +7,10 @@
   appear in every panel, so a name typed once is used everywhere.
 * :class:`OverviewPanel` is the table of all characteristics (verdict, index and lower bound,
   removals, review state), sortable by any column; a click on a name opens it in the
-  stability, shape and capability panels. "Analyse all" shows a progress bar.
+  stability, shape and capability panels. It analyses every characteristic when it is drawn
+  (cached results are reused), so an open study never shows "not analysed yet"; above the
+  table, :class:`OverviewChart` draws each characteristic's judged index against its
+  requirement (the landing chart).
 
 After every change the session reports, :class:`Workspace` calls ``context.update(study=...,
 state=...)`` so the shell refreshes the header and every built panel.
@@ -22,7 +25,7 @@ import ipywidgets as widgets
 from studykit import names, theme
 from studykit.app.widgets import esc, guarded, html_box
 
-__all__ = ["Workspace", "OverviewPanel", "workspace", "verdict_chip", "PANEL_CSS",
+__all__ = ["Workspace", "OverviewPanel", "OverviewChart", "workspace", "verdict_chip", "PANEL_CSS",
            "overview_rows", "SORT_KEYS"]
 
 WORKSPACE_KEY = "studykit.workspace"
@@ -265,8 +268,8 @@ def review_state(session, name: str) -> str:
 
 def overview_rows(session, *, analyse: bool = False) -> list[dict]:
     """One dict per characteristic: name, unit, safety, verdict (meets), index, estimate,
-    lower_bound, removed, review, error, analysed. Only cached results are used unless
-    ``analyse``."""
+    lower_bound, removed, review, error, analysed (and threshold when analysed). Only cached
+    results are used unless ``analyse``."""
     rows = []
     for i, name in enumerate(session.names):
         spec = session.study.characteristic(name)
@@ -285,7 +288,8 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
                 row.update(verdict=head["meets"], index=head["index"],
                            estimate=head["estimate"], lower_bound=head["lower_bound"],
                            removed=head["removed"], analysed=True,
-                           verdict_text=head["verdict"] or "")
+                           verdict_text=head["verdict"] or "",
+                           threshold=session.result(name).criteria.get("threshold"))
                 from studykit.app.streams_view import stream_overview_rows
 
                 row["streams"] = stream_overview_rows(session.result(name))
@@ -361,11 +365,11 @@ class OverviewPanel(widgets.VBox):
         self.analyse.on_click(guarded(lambda _b: self.analyse_all(), messages=messages))
         head = html_box('<div class="sk-section">Characteristics at a glance</div>')
         controls = widgets.HBox([html_box('<div class="sk-field-label">Sort by</div>'),
-                                 self.sort, self.descending, self.analyse, self.progress,
-                                 self.progress_text],
+                                 self.sort, self.descending],
                                 layout=widgets.Layout(align_items="center",
                                                       flex_flow="row wrap"))
-        super().__init__([head, controls, self.table])
+        self.chart = OverviewChart()
+        super().__init__([head, controls, self.chart.box, self.table])
         self.add_class("sk-overview-panel")
         self._key = None
         self._head = None
@@ -387,14 +391,18 @@ class OverviewPanel(widgets.VBox):
         self.render(force=True)
 
     def render(self, *, force: bool = True) -> None:
+        """Draw the table and the chart; every characteristic not analysed since the study
+        last changed is analysed first (milliseconds each), so an open study is never shown
+        "not analysed yet"."""
         session = self.ws.session
+        rows = overview_rows(session, analyse=True)  # cached results are not recomputed
         key = (id(session.study), tuple(session.is_cached(n) for n in session.names),
                self.sort.value, self.descending.value, session.current)
         if not force and key == self._key:
             return
         self._key = key
-        rows = sort_rows(overview_rows(session), self.sort.value,
-                         descending=self.descending.value)
+        rows = sort_rows(rows, self.sort.value, descending=self.descending.value)
+        self.chart.update(rows)
         if self._head is None:
             heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed",
                      "Review state"]
@@ -451,6 +459,106 @@ class OverviewPanel(widgets.VBox):
             if cell.value != value:
                 cell.value = value
         return [name_cell, *others]
+
+
+class OverviewChart:
+    """The landing chart: each characteristic's judged index (estimate and lower bound) beside
+    the value it must reach, coloured and marked by its verdict.
+
+    One row per characteristic with an index (counted data and characteristics that cannot be
+    analysed have none and are listed below the chart). The bokeh figure is made once; later
+    updates replace its data and re-send it to the page (:class:`~studykit.app.charts.LiveChart`).
+    """
+
+    def __init__(self):
+        self.box = widgets.VBox([])
+        self.box.add_class("sk-overview-chart")
+        self.note = html_box("", "sk-small")
+        self._live = None
+        self._drawn = None
+
+    def _build(self):
+        from bokeh.models import ColumnDataSource, HoverTool, Legend, LegendItem, Range1d
+        from bokeh.plotting import figure
+
+        from studykit.app.charts import LiveChart
+
+        self.source = ColumnDataSource(self._columns([]))
+        f = figure(height=120, sizing_mode="stretch_width", y_range=["—"], x_range=Range1d(0, 2),
+                   tools="save", x_axis_label="Judged capability index")
+        need = f.scatter("threshold", "name", source=self.source, marker="dash",
+                         angle=1.5708, size=26, line_color=theme.ROLES["spec_limit"].color,
+                         line_width=3)
+        span = f.segment(x0="lower_bound", x1="estimate", y0="name", y1="name",
+                         source=self.source, line_color=theme.INK_SOFT, line_width=2)
+        est = f.scatter("estimate", "name", source=self.source, marker="marker", size=13,
+                        fill_color="color", line_color="line", line_width=2)
+        f.add_tools(HoverTool(renderers=[est], tooltips=[
+            ("Characteristic", "@name"), ("Index", "@index"), ("Estimate", "@estimate{0.00}"),
+            ("Lower bound", "@lower_bound{0.00}"), ("Required", "@threshold{0.00}"),
+            ("Verdict", "@word")]))
+        f.add_layout(Legend(items=[LegendItem(label="Estimate (marker and colour: verdict)",
+                                              renderers=[est]),
+                                   LegendItem(label="Lower bound to estimate", renderers=[span]),
+                                   LegendItem(label="Required", renderers=[need])],
+                            orientation="horizontal", location="top_left", spacing=12,
+                            label_text_font_size="12px", border_line_color=None), "above")
+        theme.style_bokeh_figure(f)
+        f.toolbar_location = None
+        self.figure = f
+        self._live = LiveChart(f)
+
+    @staticmethod
+    def _columns(rows: list[dict]) -> dict:
+        markers = {"pass": "circle", "fail": "x", "caution": "triangle", "pending": "square"}
+        cols = {k: [] for k in ("name", "index", "estimate", "lower_bound", "threshold", "color",
+                                "line", "marker", "word")}
+        for r in rows:
+            if not r.get("analysed") or r.get("estimate") is None:
+                continue
+            kind, word = r.get("kind") or ("pending", "Not judged")
+            lb = r.get("lower_bound")
+            cols["name"].append(r["characteristic"])
+            cols["index"].append((r.get("index") or "").capitalize())
+            cols["estimate"].append(float(r["estimate"]))
+            cols["lower_bound"].append(float("nan") if lb is None else float(lb))
+            t = r.get("threshold")
+            cols["threshold"].append(float("nan") if t is None else float(t))
+            cols["color"].append(theme.VERDICTS[kind].color)
+            cols["line"].append(theme.VERDICTS[kind].color if kind == "fail" else theme.INK)
+            cols["marker"].append(markers.get(kind, "square"))
+            cols["word"].append(word)
+        return cols
+
+    def update(self, rows: list[dict]) -> None:
+        cols = self._columns(rows)
+        left_out = [r["characteristic"] for r in rows
+                    if not r.get("analysed") or r.get("estimate") is None]
+        self.note.value = ("No index to draw for: " + ", ".join(esc(n) for n in left_out)
+                           + " (counted data, not analysable, or no specification limit)."
+                           if left_out else "")
+        key = repr(cols)
+        if key == self._drawn:
+            return
+        self._drawn = key
+        if not cols["name"]:
+            self.box.children = [self.note]
+            return
+        if self._live is None:
+            self._build()
+        values = [v for k in ("estimate", "lower_bound", "threshold") for v in cols[k]
+                  if math.isfinite(v)]
+        lo, hi = min(values), max(values)
+        pad = 0.1 * (hi - lo or 1.0)
+        self.figure.x_range.start, self.figure.x_range.end = max(0.0, lo - pad), hi + pad
+        self.figure.y_range.factors = list(reversed(cols["name"]))
+        self.figure.height = 90 + 30 * len(cols["name"])
+        self.source.data = cols
+        self._live.changed()
+        self._live.resync()
+        widget = self._live.widget("sk-overview-bokeh")
+        if self.box.children != (widget, self.note):
+            self.box.children = [widget, self.note]
 
 
 def _workbook(context):

@@ -23,7 +23,7 @@ additions:
   at a time (the others wait their turn), and the executor waits up to
   :data:`IOPUB_TIMEOUT` s for a cell's output, so many pages opened at once all render.
 * The kernel websocket accepts messages up to the upload limit plus headroom, so an upload of
-  up to :data:`studykit.app.widgets.MAX_UPLOAD_BYTES` reaches the kernel (tornado's default cap
+  up to :data:`studykit.app.server_guard.MAX_UPLOAD_BYTES` reaches the kernel (tornado's default cap
   is 10 MiB); the page refuses larger files before sending them, with a message.
 * SIGINT and SIGTERM stop the server whatever the parent did with them (ignored or blocked),
   and with ``STUDYKIT_PARENT_PID`` set the server stops when that process goes away.
@@ -59,6 +59,7 @@ from studykit.app.local_assets import (
     localise_links,
 )
 from studykit.app.server_guard import (
+    MAX_UPLOAD_BYTES,
     HostPolicy,
     inject_into_head,
     install_redaction,
@@ -68,7 +69,6 @@ from studykit.app.server_guard import (
     strip_token,
     upload_guard_script,
 )
-from studykit.app.widgets import MAX_UPLOAD_BYTES
 
 ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"
 ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # set by `studykit serve` for non-loopback addresses
@@ -138,6 +138,21 @@ class WorkbookPageHandler(TornadoVoilaHandler):
                 self.flush()
 
 
+def preload_links(base_url: str) -> str:
+    """``<link rel="preload">`` tags for the page's two big scripts (Voila's front end and
+    BokehJS). Voila names them only at the end of the page, after the kernel has run the
+    notebook; announced in the ``<head>``, the browser fetches them while the kernel works.
+
+    Examples
+    --------
+    >>> 'href="/voila/static/voila.js"' in preload_links("/")
+    True
+    """
+    urls = [url_path_join(base_url, "voila/static/voila.js"),
+            url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0])]
+    return "".join(f'<link rel="preload" as="script" href="{u}">' for u in urls)
+
+
 class StudykitVoila(Voila):
     """Voila plus the BokehJS route, request checks, kernel clean-up and page start slots."""
 
@@ -195,7 +210,8 @@ class StudykitVoila(Voila):
         settings["log_function"] = log_request  # the path, never the query string
         slots = self.concurrent_page_starts or min(4, max(1, os.cpu_count() or 1))
         settings[_SLOTS] = asyncio.Semaphore(slots)
-        settings[_HEAD_SNIPPET] = upload_guard_script(MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE)
+        settings[_HEAD_SNIPPET] = (preload_links(self.base_url)
+                                   + upload_guard_script(MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE))
         return settings
 
     def start(self):

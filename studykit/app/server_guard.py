@@ -28,6 +28,8 @@ from urllib.parse import parse_qsl, urlencode, urlsplit
 import tornado.routing
 import tornado.web
 
+MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
+
 LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
 WIDE_BINDS = ("", "0.0.0.0", "::")
 
@@ -309,8 +311,14 @@ _UPLOAD_GUARD = """<script>/* studykit: files above the upload limit are refused
     else if (data && data.size !== undefined) { n = data.size; }
     else if (typeof data === "string" && data.length * 3 > MESSAGE_CAP) { n = new Blob([data]).size; }
     if (n > MESSAGE_CAP) {
-      show("a message of " + mb(n) + " is above what the server accepts (" + mb(MESSAGE_CAP) +
-           "); it was not sent. Upload a smaller file.");
+      var size = mb(n), cap = mb(MESSAGE_CAP);
+      if (size === cap) {  // just above the cap: the megabytes read the same, give bytes
+        size = n.toLocaleString("en") + " bytes";
+        cap = MESSAGE_CAP.toLocaleString("en") + " bytes";
+      }
+      show("a message of " + size + " is above what the server accepts (" + cap + "); it was " +
+           "not sent, and the connection to the workbook stays open. If it was an upload, " +
+           "choose a smaller file.");
       return undefined;
     }
     return send.call(this, data);

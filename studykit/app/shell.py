@@ -338,8 +338,7 @@ class Workbook(widgets.VBox):
         if live is not None and self._live.children != (live.widget,):
             self._live.children = [live.widget]
         if self._overview_panel is None or self._overview_panel.ws is not ws:
-            self._overview_panel = OverviewPanel(ws)
-            self._overview_panel.render()
+            self._overview_panel = OverviewPanel(ws)  # drawn when first shown (below)
         current = self.step(self.current) if self.current in self._built else None
         if isinstance(getattr(current, "overview", None), OverviewPanel):
             # the open step shows the overview itself: no second copy below it

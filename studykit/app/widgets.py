@@ -17,11 +17,11 @@ import ipywidgets as widgets
 
 from studykit import theme
 from studykit.analysis import SAFETY_SENTENCE
+from studykit.app.server_guard import MAX_UPLOAD_BYTES  # noqa: F401 - re-exported here
 from studykit.errors import StudyInputError
 
 log = logging.getLogger("studykit.app")
 
-MAX_UPLOAD_BYTES = 50 * 1024 * 1024  # one measurement file; larger files are refused
 #: the safety caution, the same words as the PDF, the terminal and the JSON
 SAFETY_NOTE = SAFETY_SENTENCE
 

@@ -533,6 +533,31 @@ def _pdf_timestamp(when: str):
     return stamp
 
 
+class _Deferred:
+    """A place in the story filled by ``make()`` (a list of flowables) only when the layout
+    reaches it (:class:`_StreamingDoc`): a section's figures are drawn, laid out and freed one
+    section at a time, so memory does not grow with the number of characteristics."""
+
+    def __init__(self, make: Callable[[], list]):
+        self.make = make
+
+    def getKeepWithNext(self) -> bool:  # noqa: N802 - asked by reportlab's keep-with-next
+        return False
+
+
+def _StreamingDoc(*args, **kwargs):  # noqa: N802 - a document-template factory
+    """reportlab's ``SimpleDocTemplate`` that expands :class:`_Deferred` places on arrival."""
+    from reportlab.platypus import SimpleDocTemplate
+
+    class StreamingDoc(SimpleDocTemplate):
+        def filterFlowables(self, flowables):  # noqa: N802 - reportlab's hook
+            while flowables and isinstance(flowables[0], _Deferred):
+                flowables[0:1] = flowables[0].make() or [None]  # None: skipped by reportlab
+            super().filterFlowables(flowables)
+
+    return StreamingDoc(*args, **kwargs)
+
+
 def _numbered_canvas(footer_left: str, header: str, when: str = ""):
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
@@ -1304,13 +1329,15 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
                  *, chain: Mapping | None, evidence_sha: str,
                  short_gauges: Mapping | None = None,
                  progress: Callable[[int, int, str], None] | None = None,
-                 total: int = 0, positions: Mapping | None = None) -> tuple[bytes, dict]:
+                 total: int = 0, positions: Mapping | None = None,
+                 out: str | os.PathLike | None = None) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
-    a report from its evidence and compares every page."""
+    a report from its evidence and compares every page. With ``out`` (a path) the pages are
+    written to that file as they are laid out and None is returned instead of the bytes."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
-    from reportlab.platypus import PageBreak, SimpleDocTemplate
+    from reportlab.platypus import PageBreak
 
     names = study.characteristic_names
     st = _styles()
@@ -1328,13 +1355,21 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
             continue
         story.append(PageBreak())
         section += 1
-        try:
-            raw = measurements.get(name)
-        except StudyInputError:
-            raw = None
-        _characteristic_section(story, section, name, res, study, raw, st, width, None)
-        if progress is not None:
-            progress(len(names) + i + 1, total, f"drawn {name}")
+        done = len(names) + i + 1
+
+        def draw_section(number=section, name=name, res=res, done=done):
+            # made when the layout reaches it, so only one section's figures are in memory
+            try:
+                raw = measurements.get(name)
+            except StudyInputError:
+                raw = None
+            part: list = []
+            _characteristic_section(part, number, name, res, study, raw, st, width, None)
+            if progress is not None:
+                progress(done, total, f"drawn {name}")
+            return part
+
+        story.append(_Deferred(draw_section))
     if gauges:
         story.append(PageBreak())
         section += 1
@@ -1355,16 +1390,23 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     _appendix(story, section, study, st, width, evidence_sha, chain)
 
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
-    buf = io.BytesIO()
-    doc = SimpleDocTemplate(
+    buf = io.BytesIO() if out is None else os.fspath(out)
+    doc = _StreamingDoc(
         buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
         bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
         author="studykit", subject=f"content digest {study.content_digest()}",
         creator=f"studykit {__version__}", invariant=1,
     )
-    doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
-                                                  when=_last_time(study)))
-    return buf.getvalue(), boxes
+    from reportlab import rl_config
+
+    a85 = rl_config.useA85
+    rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
+    try:
+        doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
+                                                      when=_last_time(study)))
+    finally:
+        rl_config.useA85 = a85
+    return (buf.getvalue() if out is None else None), boxes
 
 
 def _extra_sections(story, section, results, positions, st, width) -> int:
@@ -1458,20 +1500,27 @@ def build_report(study_path_or_study, out_path, *,
     evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
                                 allow_nan=False).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
-    pages_pdf, boxes = render_pages(study, results, errors, measurements, stored_gauges,
-                                    chain=chain, evidence_sha=evidence_sha,
-                                    short_gauges=short_gauges, positions=positions,
-                                    progress=progress, total=total)
-    pdf = _attach(pages_pdf, evidence_bytes, boxes)
     out = Path(out_path)
+    pages_path = out.with_name(out.name + ".pages.part")
     tmp = out.with_name(out.name + ".part")
-    tmp.write_bytes(pdf)
-    os.replace(tmp, out)
+    try:
+        # pages go to disk as they are laid out; the evidence is appended to that file as an
+        # update, so the document is never held in memory as a whole
+        _, boxes = render_pages(study, results, errors, measurements, stored_gauges,
+                                chain=chain, evidence_sha=evidence_sha,
+                                short_gauges=short_gauges, positions=positions,
+                                progress=progress, total=total, out=pages_path)
+        _attach(pages_path, evidence_bytes, boxes, tmp)
+        os.replace(tmp, out)
+    finally:
+        for leftover in (pages_path, tmp):
+            leftover.unlink(missing_ok=True)
     if progress is not None:
         progress(total, total, "written")
     from pypdf import PdfReader
 
-    pages = len(PdfReader(io.BytesIO(pdf)).pages)
+    with open(out, "rb") as f:
+        pages = len(PdfReader(f).pages)
     return ReportInfo(
         path=str(out),
         pages=pages,
@@ -1486,14 +1535,14 @@ def build_report(study_path_or_study, out_path, *,
     )
 
 
-def _attach(pdf: bytes, evidence: bytes, boxes: Mapping) -> bytes:
-    """Embed the evidence JSON as a PDF embedded file, and the signature boxes as document
-    metadata (deterministic output)."""
+def _attach(pages: Path, evidence: bytes, boxes: Mapping, out: Path) -> None:
+    """Write ``pages`` (a PDF file) to ``out`` with the evidence JSON as a PDF embedded file and
+    the signature boxes as document metadata, added as an incremental update: the pages' bytes
+    are copied unchanged and only the new objects are parsed and written (deterministic)."""
     from pypdf import PdfReader, PdfWriter
 
-    writer = PdfWriter(clone_from=PdfReader(io.BytesIO(pdf)))
-    writer.add_attachment(EVIDENCE_FILENAME, evidence)
-    writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
-    out = io.BytesIO()
-    writer.write(out)
-    return out.getvalue()
+    with open(pages, "rb") as src, open(out, "wb") as dst:
+        writer = PdfWriter(PdfReader(src), incremental=True)
+        writer.add_attachment(EVIDENCE_FILENAME, evidence)
+        writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
+        writer.write(dst)

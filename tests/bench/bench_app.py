@@ -1,16 +1,38 @@
-"""Benchmark: Voila cold start to the first chart on screen (target <= 6 s), and page weight.
+"""Benchmark: the workbook in chromium, against stock Voila serving a one-cell notebook.
 
-Run: ``.venv/bin/python tests/bench/bench_app.py [--runs 3]``. Needs /usr/bin/chromium.
-Prints, per run: server up (process start -> HTTP answer), page to first bokeh canvas, the
-total, and the bytes the browser received; then the median and its ratio to the target.
+Run: ``.venv/bin/python tests/bench/bench_app.py [--runs 3] [--warm 20]``. Needs
+/usr/bin/chromium. Goals: first chart <= 4 s from `studykit serve`, <= 1.5 s for a second
+visitor on a warm server, kernel memory <= 150 MB on the demo study.
+
+Per run, one after the other (interleaved, so all three see the same machine load):
+
+* **stock Voila** (the baseline): ``voila --no-browser ONE_CELL.ipynb`` (stock options, a notebook
+  whose one cell prints a line); process start -> the printed line on the page.
+* **first visitor**: the user's command ``studykit serve --demo --no-browser --port P`` (a fresh
+  ``STUDYKIT_HOME``, so the demo working copy is made as on a first run); process start -> the
+  first chart (a bokeh ``canvas``) of the landing view, the page opened as soon as the port
+  answers (the address printed).
+* **second visitor**: ``--warm`` seconds after the first visitor's chart, a new page on the same
+  server; page open -> first chart.
+* **kernel memory**: resident set size (``VmRSS``) of each kernel process of the server after
+  the second visit, the largest one reported (a kernel holds one page's workbook).
+
+Prints each run, the medians, their ratio to stock Voila, and a ``summary:`` line.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
+import os
+import shutil
+import signal
 import statistics
+import subprocess
 import sys
+import tempfile
 import time
+import urllib.request
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -18,69 +40,197 @@ sys.path.insert(0, str(ROOT / "tests" / "browser"))
 
 from browser_support import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 
-from studykit.app.server import running_server  # noqa: E402
+from studykit.app.server import free_port, kernel_pids  # noqa: E402
 
-TARGET_S = 6.0
-NOTEBOOK = ROOT / "notebooks" / "fixtures" / "chart.ipynb"
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from figure_rows import row  # noqa: E402
+
+FIRST_GOAL_S = 4.0
+SECOND_GOAL_S = 1.5
+KERNEL_GOAL_MB = 150.0
+TIMEOUT_MS = 180_000
+ONE_CELL = {"cells": [{"cell_type": "code", "execution_count": None, "id": "c1", "metadata": {},
+                       "outputs": [], "source": ["print('stock voila page ready')"]}],
+            "metadata": {"kernelspec": {"display_name": "Python 3", "language": "python",
+                                        "name": "python3"}},
+            "nbformat": 4, "nbformat_minor": 5}
 
 
-def one_run(playwright, extra_args=(), delay: float = 0.0) -> dict:
-    browser = playwright.chromium.launch(executable_path=CHROMIUM, headless=True,
-                                         args=CHROMIUM_ARGS)
-    received = []
+def _wait_port(port: int, proc: subprocess.Popen, timeout: float = 120.0) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise RuntimeError(f"server exited with status {proc.returncode}")
+        try:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/studykit/ping", timeout=2):
+                return
+        except urllib.error.HTTPError:  # any HTTP answer means it listens
+            return
+        except OSError:
+            time.sleep(0.05)
+    raise RuntimeError(f"no answer on port {port} in {timeout} s")
+
+
+def _stop(proc: subprocess.Popen) -> None:
+    for sig, wait in ((signal.SIGTERM, 20), (signal.SIGKILL, None)):
+        try:
+            os.killpg(proc.pid, sig)
+        except (ProcessLookupError, PermissionError):
+            break
+        try:
+            proc.wait(timeout=wait)
+            break
+        except subprocess.TimeoutExpired:
+            continue
+
+
+def _rss_mb(pid: int) -> float:
     try:
-        t0 = time.perf_counter()
-        with running_server(NOTEBOOK, env={"STUDYKIT_STUDY": ""},
-                            extra_args=tuple(extra_args)) as url:
-            t_up = t_open = time.perf_counter()
-            if delay:
-                time.sleep(delay)
-                t_open = time.perf_counter()
-            page = browser.new_page(viewport={"width": 1280, "height": 800})
-            page.on("response", lambda r: received.append(r))
-            page.goto(url, timeout=120_000)
-            page.wait_for_selector("canvas", state="attached", timeout=120_000)
-            t_chart = time.perf_counter()
-            size = 0
-            for r in received:
-                try:
-                    size += int(r.headers.get("content-length") or len(r.body()))
-                except Exception:  # noqa: BLE001 - streamed or redirected responses
-                    pass
+        with open(f"/proc/{pid}/status") as f:
+            for line in f:
+                if line.startswith("VmRSS:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return float("nan")
+
+
+def _server_pid(serve_pid: int) -> int | None:
+    """The Voila process started by `studykit serve` (its child)."""
+    for entry in os.scandir("/proc"):
+        if entry.name.isdigit():
+            try:
+                with open(f"/proc/{entry.name}/stat") as f:
+                    if int(f.read().rsplit(")", 1)[1].split()[1]) == serve_pid:
+                        return int(entry.name)
+            except (OSError, ValueError, IndexError):
+                continue
+    return None
+
+
+def stock_voila(browser, folder: Path) -> tuple[float, float]:
+    """Seconds from `voila` start to the one-cell page, and its kernel's RSS (MB)."""
+    nb = folder / "one_cell.ipynb"
+    nb.write_text(json.dumps(ONE_CELL))
+    port = free_port()
+    voila = shutil.which("voila", path=str(Path(sys.executable).parent)) or "voila"
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([voila, "--no-browser", f"--port={port}", "--Voila.ip=127.0.0.1",
+                             str(nb)], cwd=folder, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        _wait_port(port, proc)
+        page = browser.new_page(viewport={"width": 1280, "height": 800})
+        page.goto(f"http://127.0.0.1:{port}/", timeout=TIMEOUT_MS)
+        page.get_by_text("stock voila page ready").wait_for(timeout=TIMEOUT_MS)
+        t = time.perf_counter() - t0
+        rss = [_rss_mb(pid) for pid in kernel_pids(proc.pid).values()]
+        page.close()
+        return t, (max(rss) if rss else float("nan"))
     finally:
-        browser.close()
-    return {"server_up": t_up - t0, "page_to_chart": t_chart - t_open,
-            "total": (t_up - t0) + (t_chart - t_open), "bytes": size}
+        _stop(proc)
 
 
-def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__)
-    parser.add_argument("--runs", type=int, default=3)
-    parser.add_argument("--preheat", action="store_true",
-                        help="start Voila with --preheat_kernel=True (what `studykit serve` does)")
-    parser.add_argument("--delay", type=float, default=0.0,
-                        help="open the page this many seconds after the server answers "
-                             "(a visitor arriving later; with --preheat the kernel is ready)")
-    args = parser.parse_args()
+def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
+    port = free_port()
+    env = {**os.environ, "STUDYKIT_HOME": str(folder / "home")}
+    studykit = Path(sys.executable).with_name("studykit")
+    cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([*cmd, "serve", "--demo", "--no-browser", f"--port={port}"],
+                            env=env, cwd=folder, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        _wait_port(port, proc)
+        url = f"http://127.0.0.1:{port}/"
+        page = browser.new_page(viewport={"width": 1440, "height": 900})
+        page.goto(url, timeout=TIMEOUT_MS)
+        page.wait_for_selector("canvas", state="attached", timeout=TIMEOUT_MS)
+        first = time.perf_counter() - t0
+        if shots:
+            page.wait_for_timeout(1500)
+            page.screenshot(path=str(shots / "landing-first-visitor.png"), full_page=True)
+        time.sleep(warm)
+        page2 = browser.new_page(viewport={"width": 1440, "height": 900})
+        t1 = time.perf_counter()
+        page2.goto(url, timeout=TIMEOUT_MS)
+        page2.wait_for_selector("canvas", state="attached", timeout=TIMEOUT_MS)
+        second = time.perf_counter() - t1
+        if shots:
+            page2.wait_for_timeout(1500)
+            page2.screenshot(path=str(shots / "landing-second-visitor.png"), full_page=True)
+        server = _server_pid(proc.pid)
+        rss = [_rss_mb(pid) for pid in kernel_pids(server).values()] if server else []
+        page.close()
+        page2.close()
+        return {"first": first, "second": second, "kernels": len(rss),
+                "kernel_mb": max(rss) if rss else float("nan")}
+    finally:
+        _stop(proc)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--runs", type=int, default=3)
+    ap.add_argument("--warm", type=float, default=20.0,
+                    help="seconds between the first visitor's chart and the second visitor")
+    ap.add_argument("--screenshots", help="folder for screenshots of the landing view")
+    args = ap.parse_args(argv)
     from playwright.sync_api import sync_playwright
 
-    results = []
-    with sync_playwright() as p:
-        for i in range(args.runs):
-            r = one_run(p, ["--preheat_kernel=True"] if args.preheat else [], args.delay)
-            results.append(r)
-            later = f" (page opened {args.delay:.0f} s later)" if args.delay else ""
-            print(f"run {i + 1}{later}: server up {r['server_up']:.2f} s, page to first chart "
-                  f"{r['page_to_chart']:.2f} s, total {r['total']:.2f} s, "
-                  f"received {r['bytes'] / 1024:.0f} KiB", flush=True)
-    if args.delay:
-        median = statistics.median(r["page_to_chart"] for r in results)
-        print(f"median page to first chart (visitor arriving {args.delay:.0f} s after start): "
-              f"{median:.2f} s; target {TARGET_S:.1f} s; ratio {median / TARGET_S:.2f}")
-        return 0
-    median = statistics.median(r["total"] for r in results)
-    print(f"median cold start to first chart: {median:.2f} s; target {TARGET_S:.1f} s; "
-          f"ratio {median / TARGET_S:.2f} ({'met' if median <= TARGET_S else 'NOT met'})")
+    shots = Path(args.screenshots) if args.screenshots else None
+    if shots:
+        shots.mkdir(parents=True, exist_ok=True)
+    stock, stock_kernel, first, second, kernel = [], [], [], [], []
+    with sync_playwright() as p, tempfile.TemporaryDirectory() as d:
+        browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
+        try:
+            for i in range(args.runs):
+                run_dir = Path(d) / f"run{i}"
+                run_dir.mkdir()
+                s, sk = stock_voila(browser, run_dir)
+                stock_kernel.append(sk)
+                w = workbook(browser, run_dir, args.warm, shots if i == 0 else None)
+                stock.append(s)
+                first.append(w["first"])
+                second.append(w["second"])
+                kernel.append(w["kernel_mb"])
+                print(f"run {i + 1}: stock Voila one-cell page {s:.2f} s (kernel {sk:.0f} MB) "
+                      f"| `studykit serve "
+                      f"--demo` first chart {w['first']:.2f} s | second visitor "
+                      f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
+                      f"{w['kernel_mb']:.0f} MB RSS", flush=True)
+        finally:
+            browser.close()
+    s, f, v, k = (statistics.median(x) for x in (stock, first, second, kernel))
+
+    def verdict(ok):
+        return "met" if ok else "NOT met"
+
+    print(f"median stock Voila (one-cell notebook, cold): {s:.2f} s")
+    print(f"median first chart from `studykit serve --demo`: {f:.2f} s; ratio to stock "
+          f"{f / s:.2f}; goal {FIRST_GOAL_S:g} s {verdict(f <= FIRST_GOAL_S)}")
+    print(f"median second visitor (warm server): {v:.2f} s; ratio to stock {v / s:.2f}; goal "
+          f"{SECOND_GOAL_S:g} s {verdict(v <= SECOND_GOAL_S)}")
+    print(f"median kernel RSS: {k:.0f} MB; goal {KERNEL_GOAL_MB:g} MB "
+          f"{verdict(k <= KERNEL_GOAL_MB)}")
+    print(f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
+          f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB")
+    sk = statistics.median(stock_kernel)
+    cmd = "studykit serve --demo"
+    stock_name = "stock `voila` on a one-cell notebook, start to page"
+    row("Workbook: first chart, from start", cmd, f, "s", baseline_name=stock_name,
+        baseline=s, goal=f"<= {FIRST_GOAL_S:g} s", met=f <= FIRST_GOAL_S)
+    row("Workbook: first chart, second visitor on a warm server", cmd + " (a second page)", v,
+        "s", baseline_name=stock_name, baseline=s, goal=f"<= {SECOND_GOAL_S:g} s",
+        met=v <= SECOND_GOAL_S)
+    row("Workbook: kernel memory (RSS) on the demo study", cmd, k, "MB",
+        baseline_name="stock Voila one-cell kernel", baseline=sk,
+        goal=f"<= {KERNEL_GOAL_MB:g} MB", met=k <= KERNEL_GOAL_MB)
+    print("json: " + json.dumps({"stock_s": round(s, 2), "first_s": round(f, 2),
+                                 "second_s": round(v, 2), "kernel_mb": round(k),
+                                 "first_ratio": round(f / s, 2),
+                                 "second_ratio": round(v / s, 2)}))
     return 0
 
 

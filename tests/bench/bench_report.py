@@ -1,47 +1,69 @@
-"""Benchmark: the evidence PDF of a 30-characteristic study (target <= 20 s on one core).
+"""Benchmark: `studykit report STUDY` against the matplotlib + reportlab floor, at 10 and 100
+characteristics (goals: within 1.5x of the floor, memory flat in the number of characteristics,
+100 characteristics <= 30 s).
 
-Generates a study in a temporary folder with a seeded generator (invented data, benchmark only),
-builds the report with progress, and prints the time per stage and per characteristic.
+Run: ``.venv/bin/python tests/bench/bench_report.py [--sizes 10 100] [--repeats 1]``
 
-    .venv/bin/python tests/bench/bench_report.py [--characteristics 30] [--seed 7]
+For each size a study is generated in a temporary folder with a seeded generator (invented data,
+benchmark only: 25 subgroups of 5 per characteristic, every fifth one skewed). Each measurement
+is its own process, timed from process start to exit, its peak RSS read from ``wait4``:
+
+* **report**: the user's command, ``studykit report STUDY -o OUT.pdf`` (default options);
+* **floor**: the least any report of these figures costs with the same libraries: per
+  characteristic, the same two figures' worth of matplotlib drawing (a 2-panel chart of the
+  125 values and subgroup ranges, a histogram beside a sorted-values plot, same sizes and dpi,
+  titles and axis labels), a heading and a small table, laid out by reportlab's platypus with
+  each characteristic on a new page; no statistics at all.
+
+The ratio is report / floor. Prints one line per size, a ``summary:`` line and the figure rows (read by
+``run_all.py``). Runs are one after the other (never in parallel), floor and report
+interleaved, so both see the same machine load.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import os
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 
-from studykit.report.pdf import build_report
-from studykit.store import StudyFile
-from studykit.study import Characteristic
+HERE = Path(__file__).resolve()
+sys.path.insert(0, str(HERE.parent))
 
-TARGET_SECONDS = 20.0
+from figure_rows import row  # noqa: E402
+
+TARGET_RATIO = 1.5
+TARGET_100_S = 30.0
+SUBGROUPS, SIZE = 25, 5
 
 
 def make_study(folder: Path, n_chars: int, seed: int) -> Path:
+    from studykit.store import StudyFile
+    from studykit.study import Characteristic
+
     rng = np.random.default_rng(seed)
-    subgroups, size = 25, 5
     names = [f"dim_{i + 1:02d}" for i in range(n_chars)]
     cols = []
     specs = []
     for i, name in enumerate(names):
         mean, sd = 10.0 + i, 0.01 * (1 + i % 4)
         if i % 5 == 4:  # some skewed characteristics (non-normal model path)
-            x = mean - 3 * sd + rng.lognormal(np.log(2 * sd), 0.5, subgroups * size)
+            x = mean - 3 * sd + rng.lognormal(np.log(2 * sd), 0.5, SUBGROUPS * SIZE)
             specs.append(Characteristic(name, unit="mm", usl=mean + 12 * sd))
         else:
-            x = rng.normal(mean, sd, subgroups * size)
+            x = rng.normal(mean, sd, SUBGROUPS * SIZE)
             specs.append(Characteristic(name, unit="mm", lsl=mean - 7 * sd, usl=mean + 7 * sd,
                                         safety_critical=i % 10 == 0))
         cols.append(x)
     lines = ["subgroup," + ",".join(f"{n} [mm]" for n in names)]
-    for r in range(subgroups * size):
-        lines.append(f"{r // size + 1}," + ",".join(f"{c[r]:.5f}" for c in cols))
+    for r in range(SUBGROUPS * SIZE):
+        lines.append(f"{r // SIZE + 1}," + ",".join(f"{c[r]:.5f}" for c in cols))
     path = folder / "bench.study"
     StudyFile.create(path, data=("\n".join(lines) + "\n").encode(), filename="bench.csv",
                      title=f"Benchmark study, {n_chars} characteristics", characteristics=specs,
@@ -49,45 +71,166 @@ def make_study(folder: Path, n_chars: int, seed: int) -> Path:
     return path
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser()
-    ap.add_argument("--characteristics", type=int, default=30)
+def floor_report(n_chars: int, out: Path, seed: int = 7) -> None:
+    """The floor: the same amount of matplotlib drawing and reportlab layout, no statistics."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from PIL import Image
+    from reportlab import rl_config
+    from reportlab.lib.pagesizes import A4
+    from reportlab.lib.styles import getSampleStyleSheet
+    from reportlab.lib.units import mm
+    from reportlab.lib.utils import ImageReader
+    from reportlab.platypus import Flowable, PageBreak, Paragraph, SimpleDocTemplate, Table
+
+    rl_config.useA85 = 0  # binary streams: the cheapest way reportlab writes images
+    rng = np.random.default_rng(seed)
+    styles = getSampleStyleSheet()
+    width = A4[0] - 36 * mm
+
+    class Picture(Flowable):
+        def __init__(self, fig):
+            super().__init__()
+            fig.set_dpi(150)
+            canvas = FigureCanvasAgg(fig)
+            canvas.draw()
+            rgba = canvas.buffer_rgba()
+            self.reader = ImageReader(Image.frombuffer(
+                "RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw", "RGBA", 0,
+                1).convert("RGB"))
+            w, h = fig.get_size_inches()
+            self.w, self.h = width, width * h / w
+
+        def wrap(self, aw, ah):
+            return self.w, self.h
+
+        def draw(self):
+            self.canv.drawImage(self.reader, 0, 0, self.w, self.h)
+
+    def section(i):
+        x = rng.normal(10.0, 0.01, SUBGROUPS * SIZE)
+        g = x.reshape(SUBGROUPS, SIZE)
+        fig1 = Figure(figsize=(7.0, 2.3 * 2 + 0.45))
+        a1, a2 = fig1.subplots(2, 1)
+        a1.plot(np.arange(SUBGROUPS), g.mean(axis=1), marker="o")
+        a2.plot(np.arange(SUBGROUPS), np.ptp(g, axis=1), marker="o")
+        for ax, t in ((a1, "Subgroup means"), (a2, "Subgroup ranges")):
+            ax.set_title(t, loc="left")
+            ax.set_xlabel("subgroup")
+            ax.set_ylabel("mm")
+        fig2 = Figure(figsize=(7.0, 2.9))
+        b1, b2 = fig2.subplots(1, 2)
+        b1.hist(x, bins=15)
+        b2.plot(np.sort(x), np.linspace(0, 1, x.size), marker=".")
+        for ax, t in ((b1, "Histogram"), (b2, "Sorted values")):
+            ax.set_title(t, loc="left")
+            ax.set_xlabel("mm")
+        rows = [["Mean", f"{x.mean():.5f}", "SD", f"{x.std(ddof=1):.5f}"],
+                ["n", str(x.size), "Subgroups", str(SUBGROUPS)]]
+        return [PageBreak(), Paragraph(f"{i + 1}. dim_{i + 1:02d} [mm]", styles["Heading1"]),
+                Table(rows), Picture(fig1), Picture(fig2)]
+
+    class Doc(SimpleDocTemplate):
+        def filterFlowables(self, flowables):  # noqa: N802 - one section at a time
+            while flowables and callable(flowables[0]) and not isinstance(flowables[0],
+                                                                         Flowable):
+                flowables[0:1] = flowables[0]()
+            super().filterFlowables(flowables)
+
+    story = [Paragraph("Floor report", styles["Title"])]
+    story += [lambda i=i: section(i) for i in range(n_chars)]
+    Doc(str(out), pagesize=A4, invariant=1).build(story)
+
+
+def measure(cmd: list[str], env=None) -> dict:
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, env=env)
+    _pid, status, usage = os.wait4(proc.pid, 0)
+    seconds = time.perf_counter() - t0
+    out = proc.stdout.read().decode(errors="replace")
+    proc.stdout.close()
+    if status != 0:
+        raise RuntimeError(f"{' '.join(map(str, cmd))} failed ({status}):\n{out[-2000:]}")
+    return {"seconds": seconds, "rss_mb": usage.ru_maxrss / 1024}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", type=int, nargs="+", default=[10, 100])
+    ap.add_argument("--repeats", type=int, default=1, help="runs of each (the best is kept)")
     ap.add_argument("--seed", type=int, default=7)
-    args = ap.parse_args()
+    ap.add_argument("--floor-only", type=int, metavar="N", help=argparse.SUPPRESS)
+    ap.add_argument("--out", help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args.floor_only:
+        floor_report(args.floor_only, Path(args.out), args.seed)
+        return 0
+    studykit = Path(sys.executable).with_name("studykit")
+    report_cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
+    results = {}
     with tempfile.TemporaryDirectory() as d:
-        folder = Path(d)
-        study = make_study(folder, args.characteristics, args.seed)
-        marks = []
-        c0 = time.process_time()
-        t0 = time.perf_counter()
+        for n in args.sizes:
+            folder = Path(d) / f"n{n}"
+            folder.mkdir()
+            study = make_study(folder, n, args.seed)
+            best = {"report": None, "floor": None}
+            for _ in range(args.repeats):
+                f = measure([sys.executable, str(HERE), "--floor-only", str(n),
+                             "--out", str(folder / "floor.pdf")])
+                r = measure([*report_cmd, "report", str(study), "-o", str(folder / "r.pdf"),
+                             "--quiet"])
+                for key, m in (("floor", f), ("report", r)):
+                    if best[key] is None or m["seconds"] < best[key]["seconds"]:
+                        best[key] = m
+            pages = _pages(folder / "r.pdf")
+            results[n] = best
+            rep, flo = best["report"], best["floor"]
+            print(f"{n:4d} characteristics ({pages} pages): report {rep['seconds']:.2f} s, "
+                  f"peak RSS {rep['rss_mb']:.0f} MB | floor {flo['seconds']:.2f} s, "
+                  f"{flo['rss_mb']:.0f} MB | ratio {rep['seconds'] / flo['seconds']:.2f} "
+                  f"(goal <= {TARGET_RATIO})", flush=True)
+    sizes = sorted(results)
+    lo, hi = sizes[0], sizes[-1]
+    rep_hi = results[hi]["report"]
+    growth = ((rep_hi["rss_mb"] - results[lo]["report"]["rss_mb"]) / (hi - lo)
+              if hi > lo else 0.0)
+    ratio = rep_hi["seconds"] / results[hi]["floor"]["seconds"]
+    summary = {"characteristics": hi, "report_s": round(rep_hi["seconds"], 2),
+               "floor_s": round(results[hi]["floor"]["seconds"], 2), "ratio": round(ratio, 2),
+               "peak_rss_mb": {str(n): round(results[n]["report"]["rss_mb"]) for n in sizes},
+               "rss_growth_mb_per_characteristic": round(growth, 2)}
+    print(f"memory growth {growth:.2f} MB per characteristic between {lo} and {hi}")
+    print(f"summary: `studykit report` ({hi} characteristics) {rep_hi['seconds']:.1f} s, "
+          f"floor {results[hi]['floor']['seconds']:.1f} s, ratio {ratio:.2f} (goal <= "
+          f"{TARGET_RATIO}); peak RSS " + ", ".join(
+              f"{results[n]['report']['rss_mb']:.0f} MB at {n}" for n in sizes)
+          + f"; {rep_hi['seconds']:.1f} s vs {TARGET_100_S:.0f} s goal")
+    print("json: " + json.dumps(summary))
+    for n in sizes:
+        rep, flo = results[n]["report"], results[n]["floor"]
+        goal = f"<= {TARGET_RATIO}x floor" + (f", <= {TARGET_100_S:g} s" if n == 100 else "")
+        row(f"PDF report, {n} characteristics", "studykit report STUDY", rep["seconds"], "s",
+            baseline_name="floor: the same figures and pages with matplotlib + reportlab",
+            baseline=flo["seconds"], goal=goal,
+            met=rep["seconds"] <= TARGET_RATIO * flo["seconds"]
+            and (n != 100 or rep["seconds"] <= TARGET_100_S))
+    for n in sizes:
+        rep, flo = results[n]["report"], results[n]["floor"]
+        row(f"PDF report, {n} characteristics: peak RSS", "studykit report STUDY",
+            rep["rss_mb"], "MB", baseline_name="floor's peak RSS", baseline=flo["rss_mb"],
+            goal="flat in the number of characteristics" if n == hi else "")
+    if hi > lo:
+        row(f"PDF report: peak RSS growth per characteristic ({lo} -> {hi})",
+            "studykit report STUDY", growth, "MB", baseline_name="", baseline=None,
+            goal="flat (about 0)")
+    return 0
 
-        def progress(done, total, what):
-            marks.append((time.perf_counter() - t0, what))
 
-        info = build_report(study, folder / "bench.pdf", progress=progress)
-        total = time.perf_counter() - t0
-        cpu = time.process_time() - c0
-        analysed = [t for t, w in marks if w.startswith("analysed")]
-        drawn = [t for t, w in marks if w.startswith("drawn")]
-        t_analysis = analysed[-1] if analysed else 0.0
-        t_draw = (drawn[-1] - t_analysis) if drawn else 0.0
-        size = (folder / "bench.pdf").stat().st_size
-        n = args.characteristics
-        print(f"characteristics      {n}")
-        print(f"pages                {info.pages}")
-        print(f"PDF size             {size / 1e6:.2f} MB")
-        print(f"analysis (approx.)   {t_analysis:6.2f} s  ({t_analysis / n:.3f} s each)")
-        print(f"figures + layout     {t_draw:6.2f} s  ({t_draw / n:.3f} s each)")
-        print(f"total (wall)         {total:6.2f} s  (target <= {TARGET_SECONDS:g} s, "
-              f"ratio {total / TARGET_SECONDS:.2f})")
-        print(f"total (CPU, this process) {cpu:6.2f} s  (ratio {cpu / TARGET_SECONDS:.2f}; "
-              "fairer on a shared machine)")
-        try:
-            load = os.getloadavg()[0]
-            print(f"load average (1 min) {load:.2f} on {os.cpu_count()} cores")
-        except OSError:
-            pass
+def _pages(pdf: Path) -> int:
+    from pypdf import PdfReader
+
+    return len(PdfReader(str(pdf)).pages)
 
 
 if __name__ == "__main__":
-    main()
+    sys.exit(main())

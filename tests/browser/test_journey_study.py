@@ -92,11 +92,12 @@ def test_study_journey(browser, study_server, artifacts):
         page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
         assert "QV-4410" in page.locator(".sk-header").inner_text()
 
-        # overview: analyse all with a progress bar, then open flange_thickness from its row
+        # overview: every characteristic analysed on opening, with its chart; then open
+        # flange_thickness from its row
         open_step(page, "limits")
-        page.get_by_role("button", name="Analyse all characteristics").click()
-        page.wait_for_selector(".sk-overview-panel :text('characteristics analysed')")
         page.wait_for_selector(".sk-overview-panel .sk-chip")
+        page.wait_for_selector(".sk-overview-panel .sk-overview-bokeh canvas", state="attached")
+        assert page.locator(".sk-overview-panel :text('not analysed yet')").count() == 0
         shot(page, "overview-1280", full=True)
         page.locator(".sk-who input").first.fill("A. Tester")
         page.locator(f".sk-open-{NAME}").click()

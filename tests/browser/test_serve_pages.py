@@ -143,3 +143,41 @@ def test_upload_over_the_limit_is_refused_in_the_page(browser, served, tmp_path)
         assert page.locator(".sk-upload-refused").count() == 0
     finally:
         context.close()
+
+
+def test_a_websocket_message_above_the_server_cap_is_refused_in_the_page(browser, served):
+    """Any message above the server's websocket cap (not only a chosen file) is refused in the
+    page with a message naming both sizes, before a byte is sent; the page keeps working."""
+    from studykit.app.server import WEBSOCKET_MAX_MESSAGE
+
+    server, _ = served
+    context = browser.new_context(viewport={"width": 1280, "height": 800})
+    try:
+        page = context.new_page()
+        page.set_default_timeout(PAGE_TIMEOUT_MS)
+        page.goto(server.url, wait_until="domcontentloaded")
+        page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
+        kernel = kernel_of(page)
+        sent = page.evaluate("""async ([kernel, cap]) => {
+            const ws = new WebSocket(`ws://${location.host}/api/kernels/${kernel}/channels`);
+            await new Promise((ok, fail) => { ws.onopen = ok; ws.onerror = fail; });
+            const small = ws.send(new ArrayBuffer(16));  // below the cap: passed on
+            const big = ws.send(new ArrayBuffer(cap + 1));  // above it: refused here
+            const state = ws.readyState;
+            ws.close();
+            return {small: small === undefined, big: big === undefined, state: state};
+        }""", [kernel, WEBSOCKET_MAX_MESSAGE])
+        assert sent["state"] == 1  # the connection was still open after the refusal
+        refused = page.locator(".sk-upload-refused")
+        refused.wait_for(state="visible", timeout=30_000)
+        text = refused.inner_text()
+        # one byte above: the megabytes would read the same, so the message gives bytes
+        assert f"a message of {WEBSOCKET_MAX_MESSAGE + 1:,} bytes" in text
+        assert f"above what the server accepts ({WEBSOCKET_MAX_MESSAGE:,} bytes)" in text
+        assert "it was not sent, and the connection to the workbook stays open" in text
+        page.screenshot(path=str(ARTIFACTS / "serve-frame-refused.png"))
+        # the page's own kernel connection is untouched: a step still opens
+        page.locator(".sk-step-stability").click()
+        page.wait_for_selector(".sk-stability-chart canvas", state="attached")
+    finally:
+        context.close()
