@@ -291,7 +291,7 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
         columns={"x": "hole_dx", "y": "hole_dy"},
         description="Mounting hole true position to datums A|B|C, zone diameter 0.20 mm "
                     "(invented)"), who="R. Okonkwo", reason="position study of the mounting hole",
-        when="2026-03-03T10:20:00Z")
+        when="2026-03-03T10:03:00Z")
     sf.add_comment(**COMMENT)
     return path
 
