@@ -197,7 +197,8 @@ def analyze_from_args(args, name):
             from studykit.analysis import _exclusions
 
             options = replace(options, chart=options.chart or study.chart_for(name),
-                              model=options.model or study.model_for(name))
+                              model=options.model or study.model_for(name),
+                              rank_models=options.rank_models is not False)  # as analyze_study
             return analyze_characteristic(
                 data, spec, criteria=_criteria(args, study.criteria_for(name)), sizes=sizes,
                 exclusions=_exclusions(study, name), options=options, gauge=gauge,
