@@ -63,3 +63,18 @@ def test_cli_rank_models_flag(tmp_path, capsys):
     ranked = json.loads(capsys.readouterr().out)
     assert "ranking" not in plain and len(ranked["ranking"]) == 15
     assert plain["capability"] == ranked["capability"]
+
+
+def test_study_route_always_ranks(capsys):
+    # the study route (workbook, report, verify) keeps the ranking, also with a spec override
+    from pathlib import Path
+
+    from studykit.cli import main
+
+    study = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.study"
+    for extra in ([], ["--usl", "25.1"]):
+        args = ["analyze", "--study", str(study), "-c", "bore_diameter", *extra, "--json"]
+        assert main(args) == 0
+        d = json.loads(capsys.readouterr().out)
+        assert d["model"]["name"] == "normal" and len(d["ranking"]) == 15
+        assert d["model_band"] is not None

@@ -182,7 +182,8 @@ def analyze_from_args(args, name):
             data = measurements.get(name)
             sizes = measurements.get(args.size_column) if args.size_column else None
             options = replace(options, chart=options.chart or study.chart_for(name),
-                              model=options.model or study.model_for(name))
+                              model=options.model or study.model_for(name),
+                              rank_models=options.rank_models is not False)  # as analyze_study
             return analyze_characteristic(
                 data, spec, criteria=criteria_from_args(args, study.criteria_for(name)), sizes=sizes,
                 exclusions=recorded_exclusions(study, name), options=options, gauge=gauge,
