@@ -221,7 +221,7 @@ def main(argv=None) -> int:
     stock_name = "stock `voila` on a one-cell notebook, start to page"
     row("Workbook: first chart, from start", cmd, f, "s", baseline_name=stock_name,
         baseline=s, goal=f"<= {FIRST_GOAL_S:g} s", met=f <= FIRST_GOAL_S)
-    row("Workbook: first chart, second visitor on a warm server", cmd + " (a second page)", v,
+    row("Workbook: first chart for a second visitor (a second page, warm server)", cmd, v,
         "s", baseline_name=stock_name, baseline=s, goal=f"<= {SECOND_GOAL_S:g} s",
         met=v <= SECOND_GOAL_S)
     row("Workbook: kernel memory (RSS) on the demo study", cmd, k, "MB",
