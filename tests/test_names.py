@@ -33,6 +33,7 @@ SECOND_NAMES = (
     "Meets criteria", "Does not meet criteria", "Not judged", "NOT JUDGED", "Not yet assessed",
     "not yet assessed", "Rate reported", "Holds", "Valid now?", "cannot analyse",
     "Not demonstrated", "excluded subgroup", "exclude subgroup", "%GRR of", "Gauge RR",
+    "Model uncertainty",
     "3-parameter", "2-parameter",
 )
 

@@ -94,6 +94,9 @@ CSS = f"""
   font-size: 12px; height: 24px; box-shadow: none; padding: 0 6px; }}
 .sk-root .jupyter-button.sk-clear:hover {{ color: {theme.INK}; text-decoration: underline; }}
 .sk-messages {{ margin: 6px 0 0 0; }}
+.sk-root .widget-upload.sk-no-count {{ font-size: 0; }}
+.sk-root .widget-upload.sk-no-count > i.fa {{ font-size: 13px; margin-right: 6px; }}
+.sk-root .widget-upload.sk-no-count::after {{ content: attr(title); font-size: 13px; }}
 </style>
 """
 
@@ -101,6 +104,15 @@ CSS = f"""
 def style_sheet() -> widgets.HTML:
     """The workbook's style sheet as a widget (must be displayed once, anywhere in the page)."""
     return widgets.HTML(CSS, layout=widgets.Layout(height="0px", overflow="hidden"))
+
+
+def upload_button(description: str, **kwargs) -> widgets.FileUpload:
+    """A file-upload button that shows its label only: ipywidgets appends the number of chosen
+    files ("(0)") to the label; the page hides that text and draws the label from the tooltip
+    (CSS class ``sk-no-count``)."""
+    w = widgets.FileUpload(description=description, tooltip=description, **kwargs)
+    w.add_class("sk-no-count")
+    return w
 
 
 def html_box(text: str = "", *classes: str) -> widgets.HTML:

@@ -873,7 +873,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             _table(rows, [w * width for w in (0.05, 0.35, 0.13, 0.17, 0.13, 0.17)], styles=st)]))
     if res.model_band is not None:
         mb = res.model_band
-        text = (f"Model uncertainty: across the models the data do not reject, the judged index "
+        text = (f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
                 f"ranges from {_idx(mb.low)} ({_esc(names.model_list(mb.low_models))}) to "
                 f"{_idx(mb.high)} ({_esc(names.model_list(mb.high_models))}).")
         if mb.warning:
