@@ -62,6 +62,7 @@ __all__ = [
     "action_label",
     "ACTIONS",
     "GAUGE_TOTAL",
+    "MODEL_BAND",
     "finding_title",
     "value_digits",
     "verdict_label",
@@ -326,6 +327,9 @@ def action_label(action: str) -> str:
     """``"exclude"`` -> ``"remove subgroup"``."""
     return ACTIONS.get(action, str(action).replace("_", " "))
 
+
+#: The range of the judged index over the models the data do not reject: one name everywhere.
+MODEL_BAND = "Range over plausible models"
 
 #: The gauge total (repeatability and reproducibility together): one name everywhere.
 GAUGE_TOTAL = "Gauge R&R"

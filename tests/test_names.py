@@ -33,6 +33,7 @@ SECOND_NAMES = (
     "Meets criteria", "Does not meet criteria", "Not judged", "NOT JUDGED", "Not yet assessed",
     "not yet assessed", "Rate reported", "Holds", "Valid now?", "cannot analyse",
     "Not demonstrated", "excluded subgroup", "exclude subgroup", "%GRR of", "Gauge RR",
+    "Model uncertainty",
     "3-parameter", "2-parameter",
 )
 
@@ -168,6 +169,8 @@ def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, cap
     out = capsys.readouterr().out
     assert "verdict: MEETS" in out and "verdict: MORE DATA NEEDED" in out
     assert "Gauge not checked:" in out
+    # no 6-digit indices in sentences (the planning line said "if the true Ppk is 1.89439")
+    assert not re.search(r"\b(Cp|Cpk|Pp|Ppk) (is|of) \d+\.\d{3,}", out), out
     _check(out, "terminal")
 
 

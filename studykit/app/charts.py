@@ -626,7 +626,7 @@ class IntervalView:
         self._bound_item = LegendItem(label="Lower 95% bound", renderers=[lb])
         f.add_layout(Legend(items=[LegendItem(label="Estimate", renderers=[est]),
                                    self._interval_item, self._bound_item,
-                                   LegendItem(label="Range over plausible models",
+                                   LegendItem(label=names.MODEL_BAND,
                                               renderers=[band]),
                                    LegendItem(label="Required", renderers=[req])],
                             orientation="horizontal", location="top_left", spacing=12,

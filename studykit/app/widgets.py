@@ -134,6 +134,9 @@ body {{ background: {theme.PAGE}; }}
   .sk-root .sk-gauge-figure-box {{ overflow-x: auto; }}
   .sk-root img.sk-gauge-figure {{ min-width: 560px; }}
 }}
+.sk-root .widget-upload.sk-no-count {{ font-size: 0; }}
+.sk-root .widget-upload.sk-no-count > i.fa {{ font-size: 13px; margin-right: 6px; }}
+.sk-root .widget-upload.sk-no-count::after {{ content: attr(title); font-size: 13px; }}
 </style>
 """
 
@@ -141,6 +144,15 @@ body {{ background: {theme.PAGE}; }}
 def style_sheet() -> widgets.HTML:
     """The workbook's style sheet as a widget (must be displayed once, anywhere in the page)."""
     return widgets.HTML(CSS, layout=widgets.Layout(height="0px", overflow="hidden"))
+
+
+def upload_button(description: str, **kwargs) -> widgets.FileUpload:
+    """A file-upload button that shows its label only: ipywidgets appends the number of chosen
+    files ("(0)") to the label; the page hides that text and draws the label from the tooltip
+    (CSS class ``sk-no-count``)."""
+    w = widgets.FileUpload(description=description, tooltip=description, **kwargs)
+    w.add_class("sk-no-count")
+    return w
 
 
 def html_box(text: str = "", *classes: str) -> widgets.HTML:

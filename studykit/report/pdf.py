@@ -884,7 +884,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         _model_list_pdf(story, res, st, width)
     if res.model_band is not None:
         mb = res.model_band
-        text = (f"Model uncertainty: across the models the data do not reject, the judged index "
+        text = (f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
                 f"ranges from {_idx(mb.low)} ({_esc(names.model_list(mb.low_models))}) to "
                 f"{_idx(mb.high)} ({_esc(names.model_list(mb.high_models))}).")
         if mb.warning:

@@ -179,13 +179,15 @@ def parts_needed(
     name = index.capitalize() if len(index) == 2 else index[0].upper() + index[1:]
     if assumed <= target:
         text = (
-            f"An assumed {name} of {assumed:g} does not exceed the target {target:g}: no number of "
+            f"An assumed {name} of {names.format_index(assumed)} does not exceed the target "
+            f"{target:g}: no number of "
             "parts can demonstrate it. Improve the process or revisit the assumption."
         )
         return DemonstrationPlan(None, index, assumed, target, level, None, method, CRITERION, text)
     if _bound(index, assumed, MAX_PARTS, level) < target:
         text = (
-            f"With an assumed {name} of {assumed:g}, more than {MAX_PARTS} parts would be needed to "
+            f"With an assumed {name} of {names.format_index(assumed)}, more than {MAX_PARTS} "
+            "parts would be needed to "
             f"demonstrate {target:g}: the margin is too small to demonstrate in practice."
         )
         return DemonstrationPlan(None, index, assumed, target, level, None, method, CRITERION, text)
@@ -213,7 +215,8 @@ def parts_needed(
     n = hi
     bound = _bound(index, assumed, n, level)
     text = (
-        f"About {n} parts: if the true {name} is {assumed:g}, the lower {level:.0%} bound from {n} "
+        f"About {n} parts: if the true {name} is {names.format_index(assumed)}, the lower "
+        f"{level:.0%} bound from {n} "
         f"parts is expected to reach {target:g} (it does so in about half of such studies; use "
         "more parts for a safer margin)."
     )

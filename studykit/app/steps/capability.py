@@ -152,7 +152,7 @@ def band_html(result) -> str:
             f"{fmt(b.low, 2)} ({esc(names.model_list(b.low_models))}) and {fmt(b.high, 2)} "
             f"({esc(names.model_list(b.high_models))}).")
     warn = (f'<div class="sk-msg sk-msg-warning">{esc(b.warning)}</div>' if b.warning else "")
-    return (f'<div class="sk-panel-title">Model uncertainty</div><div>{text}</div>{warn}')
+    return (f'<div class="sk-panel-title">{names.MODEL_BAND}</div><div>{text}</div>{warn}')
 
 
 def attribute_html(result) -> str:

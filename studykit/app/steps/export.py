@@ -17,7 +17,7 @@ import ipywidgets as widgets
 
 from studykit import names
 from studykit.app.overview import no_study_panel, panel, panel_css, workspace
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.widgets import esc, guarded, html_box, upload_button
 
 
 def download_link(data: bytes, filename: str, mime: str, *, label: str | None = None) -> str:
@@ -131,7 +131,7 @@ class ExportStep:
         from studykit.study import SIGNOFF_ROLES
 
         m = context.messages
-        self.p12 = widgets.FileUpload(accept=".p12,.pfx", multiple=False,
+        self.p12 = upload_button(accept=".p12,.pfx", multiple=False,
                                       description="Choose certificate (.p12)",
                                       layout=widgets.Layout(width="auto"))
         self.p12.add_class("sk-p12")

@@ -12,7 +12,7 @@ import ipywidgets as widgets
 
 from studykit import names
 from studykit.app.bokeh_assets import chart_widget, values_in_order_figure
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.widgets import esc, guarded, html_box, upload_button
 from studykit.errors import DataFileError
 
 ACCEPT = ".csv,.txt,.tsv,.xlsx,.xlsm"
@@ -121,7 +121,7 @@ class IntakeStep:
 
     def build(self, context) -> widgets.Widget:
         limit = context.max_upload_bytes
-        self._upload = widgets.FileUpload(accept=ACCEPT, multiple=False,
+        self._upload = upload_button(accept=ACCEPT, multiple=False,
                                           description="Choose measurement file",
                                           button_style="primary", icon="upload",
                                           layout=widgets.Layout(width="auto",

@@ -38,7 +38,7 @@ import ipywidgets as widgets
 
 from studykit import names, theme
 from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.widgets import esc, guarded, html_box, upload_button
 from studykit.errors import DataFileError, StudyInputError
 from studykit.report import gauge_figures as _gauge_figures
 
@@ -649,7 +649,7 @@ class GaugeStep:
         """Upload readings of one reference part, compute, preview and attach (kind
         ``gauge_short``)."""
         m = context.messages
-        self.short_upload = widgets.FileUpload(accept=",".join(_UPLOAD_SUFFIXES),
+        self.short_upload = upload_button(accept=",".join(_UPLOAD_SUFFIXES),
                                                multiple=False, description="Choose readings",
                                                icon="upload", layout=widgets.Layout(width="auto"))
         self.short_upload.add_class("sk-short-upload")
@@ -871,7 +871,7 @@ class GaugeStep:
     def _build_new_study(self, context) -> widgets.Widget:
         m = context.messages
         limit_mb = context.max_upload_bytes / 1024 / 1024
-        self.upload = widgets.FileUpload(accept=",".join(_UPLOAD_SUFFIXES), multiple=False,
+        self.upload = upload_button(accept=",".join(_UPLOAD_SUFFIXES), multiple=False,
                                          description="Choose gauge table", icon="upload",
                                          layout=widgets.Layout(width="auto"))
         self.upload.add_class("sk-gauge-upload")
