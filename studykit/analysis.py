@@ -1497,9 +1497,9 @@ def analyze_characteristic(
         except StudyInputError:
             plan = None
     result_kw.pop("findings", None)
-    from studykit.time_model import time_model_for  # ISO 22514-2 class of the readings used
-
-    time_model, time_findings = time_model_for(x, kept_labels, spec)
+    from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
+    # the recorded removals (an automatic phase I would trim a trend as special causes)
+    time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
     findings.extend(time_findings)
     return CharacteristicResult(
         **result_kw,

@@ -1,6 +1,8 @@
 """The ISO 22514-2 time-dependent model of an analysed characteristic (result layer).
 
-:func:`time_model_for` classifies the readings the analysis used (:func:`studykit.stats.timedep.classify`)
+:func:`time_model_for` classifies the readings (:func:`studykit.stats.timedep.classify`): every
+reading but the recorded removals, so an automatic phase I that trims a trend as special causes
+does not hide it from the classification.
 and says in a finding what the class means for the capability shown. The verdict itself is not
 changed: where the class calls for another computation than the indices shown (C1: the
 between-subgroup variance; C3/C4: the travel of a trend), the finding gives that index, and its

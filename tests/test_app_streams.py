@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import shutil
+from pathlib import Path
 
 import ipywidgets as widgets
 import pytest
@@ -45,13 +46,25 @@ def test_capability_step_shows_the_streams_panel(wb):
     assert "Class A1" in cap.streams.children[0].value
 
 
-def test_capability_step_shows_the_trend_class(wb):
+def test_capability_step_shows_the_trend_class(tmp_path):
+    # a study of the invented tool-wear file alone (the demo study does not hold it)
+    from studykit.store import StudyFile
+    from studykit.study import Characteristic
+
+    demo = Path(__file__).resolve().parents[1] / "demo_data"
+    path = tmp_path / "wear.study"
+    StudyFile.create(path, data=(demo / "shaft_seat_wear.csv").read_bytes(),
+                     filename="shaft_seat_wear.csv", title="wear", who="test",
+                     characteristics=[Characteristic("shaft_seat_diameter", unit="mm",
+                                                     lsl=14.98, usl=15.02, target=15.0)])
+    steps = [IntakeStep(), CapabilityStep()]
+    wb = build_workbook(path, steps=steps)
+    wb.select("capability")
     cap = wb.step("capability")
-    cap.ws.picker.value = "shaft_seat_diameter"  # invented tool wear: class C3
     res = cap.ws.session.result("shaft_seat_diameter")
     html = cap.streams.children[0].value
     assert "Class C3" in html and "location systematic" in html
-    assert f"ppk {res.time_model.indices['ppk']:.2f}" in html.lower()
+    assert f"Ppk {res.time_model.indices['ppk']:.2f}" in html
 
 
 def test_overview_lists_streams_under_their_characteristic(wb):
