@@ -178,6 +178,7 @@ class _Data:
     unit: str | None
     values: np.ndarray
     subgroups: np.ndarray
+    streams: np.ndarray | None = None  # several streams (cavity, spindle...), one per value
 
 
 @dataclass(frozen=True)
@@ -194,6 +195,7 @@ class _Task:
     exclusions: dict | None = None
     note: str | None = None
     error: str | None = None
+    streams: np.ndarray | None = None
 
 
 def _empty_row(name: str) -> dict:
@@ -213,7 +215,7 @@ def _analyse_task(task: _Task, options) -> dict:
     try:
         spec = Characteristic(**task.spec) if task.spec is not None else None
         crit = Criteria(**task.criteria) if task.criteria is not None else None
-        data = _Data(task.name, task.unit, task.values, task.subgroups)
+        data = _Data(task.name, task.unit, task.values, task.subgroups, task.streams)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             res = analyze_characteristic(
@@ -314,6 +316,7 @@ def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mappi
             criteria=None if crit is None else crit.to_dict(),
             exclusions=dict(exclusions.get(data.name, {})) or None,
             note=NO_SPEC_NOTE if no_limits else None,
+            streams=getattr(data, "streams", None),
         ))
     return tasks
 

@@ -93,12 +93,14 @@ class StreamsResult:
 def _subset(data, mask):
     from studykit.data import CharacteristicData
 
-    def pick(a):
+    def pick(key):  # the batch's lighter data object has no times, notes or rows
+        a = getattr(data, key, None)
         return None if a is None else np.asarray(a)[mask]
 
-    return CharacteristicData(name=data.name, unit=data.unit, values=data.values[mask],
-                              subgroups=pick(data.subgroups), times=pick(data.times),
-                              notes=pick(data.notes), rows=pick(data.rows))
+    return CharacteristicData(name=data.name, unit=data.unit,
+                              values=np.asarray(data.values, dtype=float)[mask],
+                              subgroups=pick("subgroups"), times=pick("times"),
+                              notes=pick("notes"), rows=pick("rows"))
 
 
 def _fmt(v) -> str:
@@ -132,8 +134,9 @@ def analyze_streams(data, spec=None, *, analyze, **kwargs):
             errors[name] = str(exc)
     # the tests and the group chart use the readings the whole analysis kept
     removed = [str(r) for r in whole.removed_subgroups]
-    kept = ~np.isin(np.asarray(data.subgroups).astype(str), removed) & ~np.isnan(data.values)
-    x, sg, st = data.values[kept], np.asarray(data.subgroups).astype(str)[kept], labels[kept]
+    values = np.asarray(data.values, dtype=float)
+    kept = ~np.isin(np.asarray(data.subgroups).astype(str), removed) & ~np.isnan(values)
+    x, sg, st = values[kept], np.asarray(data.subgroups).astype(str)[kept], labels[kept]
     location = spread = group = None
     try:
         location = streams_module.location_test(x, st)
