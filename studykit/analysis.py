@@ -873,7 +873,7 @@ def _normal_scores(model, x) -> np.ndarray:
     return np.clip(np.nan_to_num(z, nan=0.0, posinf=38.0, neginf=-38.0), -38.0, 38.0)
 
 
-def _model_scale(requested: str):
+def _model_scale(requested: str, rank: bool = False):
     """The ``rescale`` function phase I calls each round: the distribution model is refitted
     to the values still kept and the chart is drawn on that model's scale.
 
@@ -895,7 +895,7 @@ def _model_scale(requested: str):
             return raw
         try:
             ad = normality_module.anderson_darling(xs)
-            choice, ranking, notes = _choose_model(xs, requested, ad, None, None)
+            choice, ranking, notes = _choose_model(xs, requested, ad, None, None, rank=rank)
         except (StudyInputError, ValueError, FloatingPointError):
             return raw
         # kept for the analysis: the same values after phase I need no second fit
@@ -1274,8 +1274,8 @@ def analyze_characteristic(
     order_flagged = order is not None and order.flagged
     requested = options.model or (spec.model if spec is not None else None) or "auto"
     has_limits = spec is not None and (spec.lsl is not None or spec.usl is not None)
-    rescale = (_model_scale(requested) if has_limits and not attribute and requested != "normal"
-               else None)
+    rescale = (_model_scale(requested, bool(options.rank_models))
+               if has_limits and not attribute and requested != "normal" else None)
     chart_kw = {}
     if attribute:
         chart_kw["laney"] = options.laney
