@@ -516,10 +516,10 @@ class OverviewChart:
         for r in rows:
             if not r.get("analysed") or r.get("estimate") is None:
                 continue
-            kind, word = r.get("kind") or ("pending", "Not judged")
+            kind, word = r.get("kind") or ("pending", names.VERDICT_STATES["no_verdict"])
             lb = r.get("lower_bound")
             cols["name"].append(r["characteristic"])
-            cols["index"].append((r.get("index") or "").capitalize())
+            cols["index"].append(names.index_label(r.get("index") or ""))
             cols["estimate"].append(float(r["estimate"]))
             cols["lower_bound"].append(float("nan") if lb is None else float(lb))
             t = r.get("threshold")

@@ -44,7 +44,9 @@ def tolerance_interval_html(result) -> str:
     if not ti:
         return ""
     meets = ti.get("meets")
-    word = {True: "Holds", False: "Not met", None: "Not judged"}[meets]
+    from studykit import names
+
+    word = names.VERDICT_STATES[{True: "meets", False: "does_not_meet", None: "no_verdict"}[meets]]
     lo, hi = ti.get("lower"), ti.get("upper")
     lsl, usl = ti.get("lsl"), ti.get("usl")
     plan = ti.get("plan") or {}
