@@ -186,7 +186,7 @@ def test_exponential_table_by_simulation():
     share = np.mean(a2 * (1 + 0.6 / n) > 1.321)
     assert abs(share - 0.05) < 0.01  # binomial sd at 6000 reps: 0.0028
     # and our p-value at that point is 5 %
-    p, text = fit._ad_p_table(1.321 / (1 + 0.6 / n), n, fit._AD_EXPON)
+    p, text = fit.ad_p_table(1.321 / (1 + 0.6 / n), n, fit.AD_EXPON)
     assert_allclose(p, 0.05, atol=1e-12)
 
 
@@ -403,7 +403,7 @@ def test_row_wise_inner_fits_on_the_profile_grid(fid, inner, dist):
     # (reference), and the rough fit of the grid is within 1e-6 (relative) of the full one.
     x = np.sort(CASES[fid][0])
     sd = float(np.std(x))
-    thetas = x.min() - sd * 10.0 ** fit._GRID_DECADES
+    thetas = x.min() - sd * 10.0 ** fit.GRID_DECADES
     ys = x[None, :] - thetas[:, None]
     ll, _, _ = inner(ys)
     ll_rough, _, _ = inner(ys, rough=True)

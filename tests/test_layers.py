@@ -20,30 +20,19 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 PACKAGE = ROOT / "studykit"
 
-_PDF_BLOCK = ("report/pdf.py building block shared by the report's sections; to become public w"
-              "hen pdf.py is split into section modules (its streaming rework is under way)")
-
 #: (importing module, imported module, private name) -> why it is still there
 PRIVATE_EXCEPTIONS: dict[tuple[str, str, str], str] = {
     ("studykit.analysis", "studykit.stats.capability", "_percentile_indices"):
         'percentile-method indices; capability.py is being split (one home per family)',
-    ("studykit.stats.capability", "studykit.stats.fit", "_GRID_DECADES"):
-        'threshold grid shared by fit and capability; moves with the fit split',
-    ("studykit.stats.capability", "studykit.stats.fit", "_clean"):
-        'value cleaning shared by fit and capability; moves with the fit split',
     ("studykit.cli.study", "studykit.stats.rules", "_BY_NUMBER"):
         'run rules by number for the --rules option; rules.py is in rework',
     ("studykit.stats.phase1", "studykit.stats.charts", "_plain_label"):
         'subgroup label text shared by the chart modules; charts.py is in rework',
     ("studykit.stats.phase2", "studykit.stats.charts", "_plain_label"):
         'subgroup label text shared by the chart modules; charts.py is in rework',
-    **{(f"studykit.report.{user}", "studykit.report.pdf", name): _PDF_BLOCK
-       for user, names in (("gauge_error", ("_box", "_esc", "_num", "_table")),
-                           ("handoff", ("_box", "_esc", "_image", "_load", "_styles", "_table")))
-       for name in names},
 }
 #: the number of exceptions may only go down
-MAX_EXCEPTIONS = 16
+MAX_EXCEPTIONS = 4
 
 
 def _module_name(path: Path) -> str:

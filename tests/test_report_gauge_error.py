@@ -92,7 +92,7 @@ def test_safety_caution_kept_beside_process_only_indices(tmp_path):
     from studykit.analysis import SAFETY_CAUTION, analyze_characteristic
     from studykit.data import CharacteristicData
     from studykit.report import gauge_error
-    from studykit.report.pdf import _styles
+    from studykit.report.pdf import report_styles
     from studykit.study import Characteristic
 
     x = np.random.default_rng(3).normal(10.0, 0.5, 60)  # invented for the test
@@ -101,7 +101,7 @@ def test_safety_caution_kept_beside_process_only_indices(tmp_path):
                                  Characteristic("x", lsl=7, usl=13, safety_critical=True),
                                  gauge=gauge)
     story: list = []
-    gauge_error.gauge_error_section(story, 1, {}, {"x": res}, _styles(), 480)
+    gauge_error.gauge_error_section(story, 1, {}, {"x": res}, report_styles(), 480)
     texts = []
     for flowable in story:
         for cell in getattr(flowable, "_cellvalues", []):

@@ -134,7 +134,7 @@ def run(args) -> int:
                         value=exc.value) from None
     stored_id = None
     if args.study:
-        who = args.who or _login_name()
+        who = args.who or login_name()
         payload = result.to_dict()
         payload["source_file"] = Path(args.file).name
         payload["limits_from"] = "study" if limits_from else "command line"
@@ -207,7 +207,7 @@ def run_short(args) -> int:
         lock = ({"override_lock": True, "override_reason": args.override_lock}
                 if args.override_lock else {})
         stored_id = StudyFile(args.study).attach_result(SHORT_KIND, args.characteristic,
-                                                        payload, who=args.who or _login_name(),
+                                                        payload, who=args.who or login_name(),
                                                         **lock)
     if args.json:
         out = result.to_dict()
@@ -270,7 +270,7 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     return "\n".join(lines) + "\n"
 
 
-def _login_name() -> str:
+def login_name() -> str:
     try:
         return getpass.getuser()
     except (OSError, KeyError):

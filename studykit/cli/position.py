@@ -95,7 +95,7 @@ def run(args) -> int:
     notes = [f"{n_empty} row(s) without deviations left out"] if n_empty else []
     stored_id = None
     if args.study:
-        from studykit.cli.gauge import _login_name
+        from studykit.cli.gauge import login_name
         from studykit.positions import POSITION_KIND, position_payload
         from studykit.store import StudyFile
 
@@ -106,7 +106,7 @@ def run(args) -> int:
         lock = ({"override_lock": True, "override_reason": args.override_lock}
                 if args.override_lock else {})
         stored_id = StudyFile(args.study).attach_result(
-            POSITION_KIND, None, payload, who=args.who or _login_name(),
+            POSITION_KIND, None, payload, who=args.who or login_name(),
             reason=f"position study {args.name} from {Path(args.file).name}", **lock)
     if args.figure:
         from studykit.report.position_figures import position_figure

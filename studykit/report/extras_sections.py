@@ -63,7 +63,7 @@ def interval_section(story, number, results: Mapping, st, width) -> None:
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
     from studykit import theme
-    from studykit.report.pdf import _box, _esc, _num, _table
+    from studykit.report.pdf import escape_text, framed_box, grid_table, number_text
 
     story.append(Paragraph(f"{number}. Tolerance intervals", st["h1"]))
     story.append(Paragraph(
@@ -78,17 +78,17 @@ def interval_section(story, number, results: Mapping, st, width) -> None:
         if not ti:
             continue
         story.append(CondPageBreak(160))
-        story.append(Paragraph(_esc(name), st["h2"]))
+        story.append(Paragraph(escape_text(name), st["h2"]))
         rows = [["Tolerance interval", "Value"]] + [
-            [a, _esc(b)] for a, b in interval_rows(ti, _num)]
-        story.append(_table(rows, [0.3 * width, 0.7 * width], styles=st))
-        story.append(Paragraph(_esc(ti.get("statement", "")), st["body"]))
+            [a, escape_text(b)] for a, b in interval_rows(ti, number_text)]
+        story.append(grid_table(rows, [0.3 * width, 0.7 * width], styles=st))
+        story.append(Paragraph(escape_text(ti.get("statement", "")), st["body"]))
         for note in ti.get("notes") or []:
-            story.append(Paragraph(_esc(note), st["small"]))
+            story.append(Paragraph(escape_text(note), st["small"]))
         if res.cautions:
             v = theme.VERDICTS["caution"]
             story.append(Spacer(1, 3))
-            story.append(_box([Paragraph(_esc(t), st["body"]) for t in res.cautions],
+            story.append(framed_box([Paragraph(escape_text(t), st["body"]) for t in res.cautions],
                               background=v.background, border=v.color, width=width))
         story.append(Spacer(1, 6))
 
@@ -135,7 +135,7 @@ def position_section(story, number, positions: Mapping, st, width) -> None:
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
     from studykit.positions import position_result
-    from studykit.report.pdf import _esc, _image, _num, _table
+    from studykit.report.pdf import escape_text, grid_table, number_text, pdf_image
     from studykit.report.position_figures import position_figure
 
     story.append(Paragraph(f"{number}. Positional tolerances", st["h1"]))
@@ -152,31 +152,31 @@ def position_section(story, number, positions: Mapping, st, width) -> None:
         d = res.to_dict()
         unit = payload.get("unit") or ""
         story.append(CondPageBreak(300))
-        story.append(Paragraph(_esc(name), st["h2"]))
+        story.append(Paragraph(escape_text(name), st["h2"]))
         src = payload.get("source_file")
         cols = payload.get("columns") or {}
-        story.append(Paragraph(_esc(
+        story.append(Paragraph(escape_text(
             f"{res.n} parts, zone diameter T = {res.tolerance:g} {unit}".strip()
             + (f"; deviations from {src}" if src else "")
             + (f" (columns {cols.get('x')}, {cols.get('y')})" if cols else "")
             + (f". {payload['description']}" if payload.get("description") else "")),
             st["small"]))
-        story.append(_image(position_figure(res, unit=unit or None, size=4.2), 0.62 * width))
-        story.append(_table(position_rows(d, _num, unit),
+        story.append(pdf_image(position_figure(res, unit=unit or None, size=4.2), 0.62 * width))
+        story.append(grid_table(position_rows(d, number_text, unit),
                             [0.3 * width, 0.4 * width, 0.3 * width], styles=st))
-        story.append(Paragraph(_esc(
+        story.append(Paragraph(escape_text(
             f"Observed: {d['observed_outside']} of {res.n} parts outside the zone "
-            f"({_num(d['ppm_observed'], 4)} PPM)."
+            f"({number_text(d['ppm_observed'], 4)} PPM)."
             + (" Parts outside: " + ", ".join(str(i) for i in d["outside_parts"]) + "."
                if d["outside_parts"] else "") + " " + comparison_sentence(d)), st["body"]))
         for note in d.get("notes") or []:
-            story.append(Paragraph(_esc(note), st["small"]))
+            story.append(Paragraph(escape_text(note), st["small"]))
         if payload.get("safety_critical"):
             from studykit import theme
             from studykit.analysis import SAFETY_SENTENCE
-            from studykit.report.pdf import _box
+            from studykit.report.pdf import framed_box
 
             v = theme.VERDICTS["caution"]
-            story.append(_box([Paragraph(_esc(SAFETY_SENTENCE), st["body"])],
+            story.append(framed_box([Paragraph(escape_text(SAFETY_SENTENCE), st["body"])],
                               background=v.background, border=v.color, width=width))
         story.append(Spacer(1, 6))

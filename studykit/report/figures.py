@@ -72,7 +72,7 @@ def figure_image(fig: Figure, *, dpi: int = 150):
         return img.convert("RGB")
 
 
-def _margins(fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75,
+def set_margins(fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75,
              wspace=0.8) -> None:
     """Fixed margins in inches (constrained layout costs half the drawing time)."""
     w, h = fig.get_size_inches()
@@ -80,7 +80,7 @@ def _margins(fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=
                         hspace=hspace / (h / max(1, len(fig.axes))), wspace=wspace)
 
 
-def _tidy(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
+def tidy_axes(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
     ax.set_title(title, loc="left", fontweight="bold", fontsize=10)
     ax.set_ylabel(ylabel)
     if xlabel:
@@ -95,7 +95,7 @@ def _tidy(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
         pass
 
 
-def _hline(ax, y, role, text, x_end):
+def hline(ax, y, role, text, x_end):
     if y is None or not math.isfinite(float(y)):
         return
     kw = theme.mpl_line_kwargs(role)
@@ -127,9 +127,9 @@ def _series_panel(ax, series, x, removed_x, removed_y, title, ylabel, labels):
     constant = np.allclose(series.ucl, series.ucl[0], equal_nan=True)
     x_end = x[-1] if len(x) else 0
     if constant:
-        _hline(ax, series.ucl[0], "control_limit", "UCL", x_end)
-        _hline(ax, series.center[0], "centre_line", "CL", x_end)
-        _hline(ax, series.lcl[0], "control_limit", "LCL", x_end)
+        hline(ax, series.ucl[0], "control_limit", "UCL", x_end)
+        hline(ax, series.center[0], "centre_line", "CL", x_end)
+        hline(ax, series.lcl[0], "control_limit", "LCL", x_end)
     else:
         _step(ax, x, series.ucl, "control_limit")
         _step(ax, x, series.lcl, "control_limit")
@@ -163,7 +163,7 @@ def _series_panel(ax, series, x, removed_x, removed_y, title, ylabel, labels):
             ax.axvspan(rx - 0.4, rx + 0.4, color=theme.PANEL, zorder=0)
         if finite.any():
             ax.scatter(np.asarray(removed_x)[finite], ry[finite], **ek)
-    _tidy(ax, title, ylabel)
+    tidy_axes(ax, title, ylabel)
 
 
 def _order(labels_all, labels_used):
@@ -240,7 +240,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, 2.3 * panels + 0.45))
         axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
-        _margins(fig, right=1.0, top=0.3, bottom=0.75, hspace=0.55)
+        set_margins(fig, right=1.0, top=0.3, bottom=0.75, hspace=0.55)
         unit = f" [{result.unit}]" if result.unit else ""
         if getattr(result, "chart_scale_text", None):  # phase I on the model's scale
             unit = f"\n({result.chart_scale_axis})"
@@ -329,7 +329,7 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, 2.9))
         ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.25, 1]})
-        _margins(fig, left=0.6, right=0.15, top=0.3, bottom=0.5, wspace=0.42)
+        set_margins(fig, left=0.6, right=0.15, top=0.3, bottom=0.5, wspace=0.42)
         lo, hi = float(x.min()), float(x.max())
         for v in (result.spec.get("lsl"), result.spec.get("usl")):
             if v is not None:
@@ -347,7 +347,7 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         _spec_lines(ax1, result.spec)
         ax1.set_xlim(lo - pad, hi + pad)
         unit = f" [{result.unit}]" if result.unit else ""
-        _tidy(ax1, "Distribution of the values", "Density", result.characteristic + unit)
+        tidy_axes(ax1, "Distribution of the values", "Density", result.characteristic + unit)
         ax1.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
                    edgecolor=theme.PAPER, framealpha=0.9)
         pp = result.probability_plot
@@ -375,7 +375,7 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
                     <= z.max() + 0.5]
             ax2.set_yticks([t for t, _ in keep])
             ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
-            _tidy(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
+            tidy_axes(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
             ax2.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
                        edgecolor=theme.PAPER, framealpha=0.9)
         else:
@@ -398,7 +398,7 @@ def interval_figure(result, *, width: float = 7.0) -> Figure:
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, 0.42 * max(len(rows), 1) + 0.9))
         ax = fig.subplots()
-        _margins(fig, left=1.15, right=0.25, top=0.32, bottom=0.35)
+        set_margins(fig, left=1.15, right=0.25, top=0.32, bottom=0.35)
         threshold = float(crit.get("threshold", 1.33))
         for i, (key, est, b) in enumerate(rows):
             y = len(rows) - i
@@ -422,7 +422,7 @@ def interval_figure(result, *, width: float = 7.0) -> Figure:
                             for k, _, _ in rows])
         ax.set_ylim(0.4, len(rows) + 0.6)
         level = getattr(cap, "level", 0.95) or 0.95
-        _tidy(ax, f"Estimate (dot), two-sided {level * 100:g}% interval (bar), "
+        tidy_axes(ax, f"Estimate (dot), two-sided {level * 100:g}% interval (bar), "
                   f"lower {level * 100:g}% bound (tick)", "")
         ax.title.set_fontsize(9)
     return fig
@@ -459,7 +459,7 @@ def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
             ax.set_xlim(0.5, n_columns + 0.5)
             for val, role, text in ((ucl, "control_limit", "UCL"), (cl, "centre_line", "CL"),
                                     (lcl, "control_limit", "LCL")):
-                _hline(ax, val, role, text, n_columns)
+                hline(ax, val, role, text, n_columns)
             ax.set_xticks(range(1, n_columns + 1))
             ax.tick_params(axis="x", labelsize=7)
             ax.grid(True, which="both", color=theme.RULE, linewidth=0.5)
@@ -467,6 +467,6 @@ def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
             ax.grid(True, which="minor", axis="y", color=theme.RULE, linewidth=0.3)
             name = (_LOCATION_NAMES.get(kind, "Value") if part == "location"
                     else _DISPERSION_NAMES.get(kind, "Dispersion"))
-            _tidy(ax, name, name + (f" [{plan.unit}]" if plan.unit else ""))
+            tidy_axes(ax, name, name + (f" [{plan.unit}]" if plan.unit else ""))
         axes[-1].set_xlabel("Subgroup number (write date and time in the table below)")
     return fig

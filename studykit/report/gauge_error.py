@@ -56,7 +56,7 @@ def gauge_error_section(story, number, short: Mapping, results: Mapping, st, wid
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
     from studykit import theme
-    from studykit.report.pdf import _box, _esc, _num, _table
+    from studykit.report.pdf import escape_text, framed_box, grid_table, number_text
 
     story.append(Paragraph(f"{number}. Gauge error and short gauge studies", st["h1"]))
     story.append(Paragraph(
@@ -70,43 +70,43 @@ def gauge_error_section(story, number, short: Mapping, results: Mapping, st, wid
                                  if getattr(r, "measurement_error", None)})
     for name in names:
         story.append(CondPageBreak(180))
-        story.append(Paragraph(_esc(name), st["h2"]))
+        story.append(Paragraph(escape_text(name), st["h2"]))
         p = short.get(name)
         if p:
             verdict = p.get("verdict") or {}
             ok = verdict.get("status") == "capable"
             v = theme.VERDICTS["pass" if ok else "fail"]
-            story.append(_box([Paragraph(_esc(verdict.get("message", "")), st["body"])],
+            story.append(framed_box([Paragraph(escape_text(verdict.get("message", "")), st["body"])],
                               background=v.background, border=v.color, width=width))
             story.append(Spacer(1, 3))
             t = p.get("t_test") or {}
             rows = [["Short gauge study", "Value"],
                     ["Readings of the reference part", str(p.get("n"))
-                     + (f" (file {_esc(p.get('source_file'))})" if p.get("source_file") else "")],
-                    ["Reference value; tolerance", f"{_num(p.get('reference'), 8)}; "
-                     f"{_num(p.get('lsl'), 8)} .. {_num(p.get('usl'), 8)}"],
+                     + (f" (file {escape_text(p.get('source_file'))})" if p.get("source_file") else "")],
+                    ["Reference value; tolerance", f"{number_text(p.get('reference'), 8)}; "
+                     f"{number_text(p.get('lsl'), 8)} .. {number_text(p.get('usl'), 8)}"],
                     ["K (% of tolerance), L (sigmas)",
-                     f"{_num(p.get('k_percent'))} %, {_num(p.get('l_sigmas'))}"],
-                    ["Mean, standard deviation s", f"{_num(p.get('mean'), 8)}, {_num(p.get('sd'))}"],
-                    ["Cg, Cgk (limit)", f"{_num(p.get('cg'), 3)}, {_num(p.get('cgk'), 3)} "
-                     f"({_num(p.get('minimum'), 3)})"],
-                    ["Bias (% of tolerance)", f"{_num(p.get('bias'))} "
-                     f"({_num(p.get('bias_pct_tolerance'), 3)} %)"],
-                    ["Bias t-test: t, df, p", f"{_num(t.get('statistic'))}, {t.get('df')}, "
-                     f"{_num(t.get('p_value'), 3)}"],
-                    [f"Bias interval ({_num(100 * (1 - (t.get('alpha') or 0.05)), 3)} %)",
-                     f"{_num(t.get('bias_lower'))} .. {_num(t.get('bias_upper'))}"]]
-            story.append(_table(rows, [0.45 * width, 0.55 * width], styles=st))
+                     f"{number_text(p.get('k_percent'))} %, {number_text(p.get('l_sigmas'))}"],
+                    ["Mean, standard deviation s", f"{number_text(p.get('mean'), 8)}, {number_text(p.get('sd'))}"],
+                    ["Cg, Cgk (limit)", f"{number_text(p.get('cg'), 3)}, {number_text(p.get('cgk'), 3)} "
+                     f"({number_text(p.get('minimum'), 3)})"],
+                    ["Bias (% of tolerance)", f"{number_text(p.get('bias'))} "
+                     f"({number_text(p.get('bias_pct_tolerance'), 3)} %)"],
+                    ["Bias t-test: t, df, p", f"{number_text(t.get('statistic'))}, {t.get('df')}, "
+                     f"{number_text(t.get('p_value'), 3)}"],
+                    [f"Bias interval ({number_text(100 * (1 - (t.get('alpha') or 0.05)), 3)} %)",
+                     f"{number_text(t.get('bias_lower'))} .. {number_text(t.get('bias_upper'))}"]]
+            story.append(grid_table(rows, [0.45 * width, 0.55 * width], styles=st))
             for note in p.get("notes") or []:
-                story.append(Paragraph(_esc(note), st["small"]))
+                story.append(Paragraph(escape_text(note), st["small"]))
             story.append(Spacer(1, 4))
         res = results.get(name)
         me = getattr(res, "measurement_error", None) if res is not None else None
         if me:
-            lvl = _num(100 * (me.get("level") or 0.95), 3)
+            lvl = number_text(100 * (me.get("level") or 0.95), 3)
             story.append(Paragraph(
-                f"Gauge error taken out: gauge sigma {_num(me.get('gauge_sigma'))} on "
-                f"{_num(me.get('gauge_df'), 3)} degrees of freedom (stored gauge R&amp;R).",
+                f"Gauge error taken out: gauge sigma {number_text(me.get('gauge_sigma'))} on "
+                f"{number_text(me.get('gauge_df'), 3)} degrees of freedom (stored gauge R&amp;R).",
                 st["body"]))
             rows = [["Sigma", "Observed sigma", "Gauge share", "Process sigma",
                      f"{lvl} % interval", "Index", "Observed", "Process only",
@@ -121,18 +121,18 @@ def gauge_error_section(story, number, short: Mapping, results: Mapping, st, wid
                     iv = spread.get(k)
                     rows.append([
                         basis if k == keys[0] else "",
-                        _num(b.get("observed_sigma")) if k == keys[0] else "",
-                        (_num(100 * b["gauge_share"], 3) + " %") if k == keys[0]
+                        number_text(b.get("observed_sigma")) if k == keys[0] else "",
+                        (number_text(100 * b["gauge_share"], 3) + " %") if k == keys[0]
                         and b.get("gauge_share") is not None else "",
-                        _num(b.get("process_sigma")) if k == keys[0] else "",
-                        (f"{_num(b.get('sigma_lower'))} .. {_num(b.get('sigma_upper'))}"
+                        number_text(b.get("process_sigma")) if k == keys[0] else "",
+                        (f"{number_text(b.get('sigma_lower'))} .. {number_text(b.get('sigma_upper'))}"
                          if k == keys[0] else ""),
                         k[0].upper() + k[1:],
-                        _num(b["observed"].get(k), 3),
-                        _num((b.get("process") or {}).get(k), 3),
-                        "" if not iv else f"{_num(iv[0], 3)} .. {_num(iv[1], 3)}",
+                        number_text(b["observed"].get(k), 3),
+                        number_text((b.get("process") or {}).get(k), 3),
+                        "" if not iv else f"{number_text(iv[0], 3)} .. {number_text(iv[1], 3)}",
                     ])
-            story.append(_table(rows, [w * width for w in
+            story.append(grid_table(rows, [w * width for w in
                                        (0.09, 0.11, 0.09, 0.1, 0.16, 0.07, 0.11, 0.1, 0.17)],
                                 styles=st))
             warn = list(me.get("warnings") or [])
@@ -142,6 +142,6 @@ def gauge_error_section(story, number, short: Mapping, results: Mapping, st, wid
             if warn:
                 v = theme.VERDICTS["caution"]
                 story.append(Spacer(1, 3))
-                story.append(_box([Paragraph(_esc(w), st["body"]) for w in warn],
+                story.append(framed_box([Paragraph(escape_text(w), st["body"]) for w in warn],
                                   background=v.background, border=v.color, width=width))
         story.append(Spacer(1, 6))

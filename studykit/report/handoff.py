@@ -139,36 +139,36 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
     from reportlab.platypus import Paragraph, SimpleDocTemplate, Spacer
 
     from studykit.report import figures
-    from studykit.report.pdf import _esc, _image, _styles, _table
+    from studykit.report.pdf import escape_text, grid_table, pdf_image, report_styles
 
-    st = _styles()
+    st = report_styles()
     size = landscape(A4)
     margin = 10 * mm
     width = size[0] - 2 * margin
     n_cols = 25
     story = []
     if draft:
-        from studykit.report.pdf import _box
+        from studykit.report.pdf import framed_box
 
-        story.append(_box([Paragraph(f"<b>{DRAFT_NOTE.upper()}</b>: {_esc(draft)}",
+        story.append(framed_box([Paragraph(f"<b>{DRAFT_NOTE.upper()}</b>: {escape_text(draft)}",
                                      st["body"])], background="#FDECEA",
                           border="#B3261E", width=width))
         story.append(Spacer(1, 3))
     story += [
-        Paragraph(f"Control chart form - {_esc(plan.characteristic)}"
-                  + (f" [{_esc(plan.unit)}]" if plan.unit else ""), st["h1"]),
-        Paragraph(f"{_esc(study_title)}{' - ' + _esc(part) if part else ''}. Chart "
-                  f"{_esc(names.chart_kind_label(plan.kind))}, subgroup size "
+        Paragraph(f"Control chart form - {escape_text(plan.characteristic)}"
+                  + (f" [{escape_text(plan.unit)}]" if plan.unit else ""), st["h1"]),
+        Paragraph(f"{escape_text(study_title)}{' - ' + escape_text(part) if part else ''}. Chart "
+                  f"{escape_text(names.chart_kind_label(plan.kind))}, subgroup size "
                   f"{plan.subgroup_size or 'as in phase I'}; frozen centre {plan.center:.6g}"
                   + (f", within sigma {plan.within_sigma:.4g}" if plan.within_sigma else "")
-                  + f". Rules: {_esc(plan.rules)}. Limits frozen from "
+                  + f". Rules: {escape_text(plan.rules)}. Limits frozen from "
                   f"{plan.phase1_subgroups} subgroups (source {plan.source_digest[:12]}...).",
                   st["small"]),
         Spacer(1, 3),
     ]
     fig = figures.blank_form_figure(plan, n_columns=n_cols, width=11.0,
                                     height=3.7 if draft else 4.3)
-    story.append(_image(figures.figure_png(fig, dpi=150), width))
+    story.append(pdf_image(figures.figure_png(fig, dpi=150), width))
     rows = [["Subgroup"] + [str(i) for i in range(1, n_cols + 1)]]
     n_values = plan.subgroup_size if plan.subgroup_size and plan.subgroup_size <= 5 else 1
     labels = ["Date", "Time", "Operator"] + [f"Value {i}" for i in range(1, n_values + 1)] \
@@ -176,7 +176,7 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
     for lab in labels:
         rows.append([lab] + [""] * n_cols)
     first = 22 * mm
-    t = _table(rows, [first] + [(width - first) / n_cols] * n_cols, styles=st, zebra=False)
+    t = grid_table(rows, [first] + [(width - first) / n_cols] * n_cols, styles=st, zebra=False)
     from reportlab.lib import colors
 
     t.setStyle([("GRID", (0, 0), (-1, -1), 0.3, colors.HexColor("#D0D7DE")),
@@ -241,9 +241,9 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
     spath = Path(study_path)
     if not spath.exists():
         raise StudyFileError(f"study file '{spath}' does not exist: check the path")
-    from studykit.report.pdf import _load
+    from studykit.report.pdf import load_for_report
 
-    study, gauges, _ = _load(spath)
+    study, gauges, _ = load_for_report(spath)
     results, errors, _ = analyze_for_report(study, gauges)
     draft = handoff_readiness(study, results, errors)
     if draft and when_not_ready == "refuse":

@@ -154,7 +154,7 @@ class ReportInfo:
 # loading and analysing
 
 
-def _load(study_or_path):
+def load_for_report(study_or_path):
     """(Study, gauges, study_path or None) from a Study or a study-file path."""
     study, gauges, path, _ = _load_with_chain(study_or_path)
     return study, gauges, path
@@ -297,7 +297,7 @@ def read_evidence_bytes(pdf) -> bytes:
 # formatting helpers
 
 
-def _num(v, digits: int = 4) -> str:
+def number_text(v, digits: int = 4) -> str:
     if v is None:
         return "–"
     try:
@@ -317,7 +317,7 @@ def _idx(v) -> str:
     return f"{v:.2f}" if math.isfinite(v) else "–"
 
 
-def _esc(text) -> str:
+def escape_text(text) -> str:
     return html.escape(str(text if text is not None else ""), quote=False)
 
 
@@ -359,7 +359,7 @@ def _register_fonts() -> tuple[str, str]:
     return "SKSans", "SKSans-Bold"
 
 
-def _styles():
+def report_styles():
     from reportlab.lib import colors
     from reportlab.lib.styles import ParagraphStyle
 
@@ -386,11 +386,11 @@ def _styles():
     }
 
 
-def _table(rows, widths, *, header=True, align_right_from=None, zebra=True, styles=None):
+def grid_table(rows, widths, *, header=True, align_right_from=None, zebra=True, styles=None):
     from reportlab.lib import colors
     from reportlab.platypus import Paragraph, Table, TableStyle
 
-    st = styles or _styles()
+    st = styles or report_styles()
     body = []
     for r, row in enumerate(rows):
         cells = []
@@ -423,7 +423,7 @@ def _table(rows, widths, *, header=True, align_right_from=None, zebra=True, styl
     return t
 
 
-def _box(paragraphs, *, background, border, width):
+def framed_box(paragraphs, *, background, border, width):
     from reportlab.lib import colors
     from reportlab.platypus import Table, TableStyle
 
@@ -439,7 +439,7 @@ def _box(paragraphs, *, background, border, width):
     return t
 
 
-def _image(png, width: float):
+def pdf_image(png, width: float):
     """A platypus Image from PNG bytes or a figure (rendered without a PNG round trip)."""
     from reportlab.lib.utils import ImageReader
     from reportlab.platypus import Image
@@ -615,7 +615,7 @@ def _data_file_rows(study) -> list[list[str]]:
     files = study.files
     for i, (name, blob) in enumerate(files, start=1):
         label = "Measurement file" if len(files) == 1 else f"Measurement file {i} of {len(files)}"
-        rows.append([label, f"{_esc(name)} ({len(blob):,} bytes)<br/><font size=7>SHA-256 "
+        rows.append([label, f"{escape_text(name)} ({len(blob):,} bytes)<br/><font size=7>SHA-256 "
                      f"{hashlib.sha256(blob).hexdigest()}</font>"])
     return rows
 
@@ -624,8 +624,8 @@ def _chain_text(chain) -> str:
     if not chain:
         return "– (not made from a study file)"
     eid, _, h = str(chain.get("head", "")).partition(":")
-    return (f"entry {_esc(eid)} of {int(chain.get('entries', 0))}<br/><font size=7>"
-            f"{_esc(h)}</font>")
+    return (f"entry {escape_text(eid)} of {int(chain.get('entries', 0))}<br/><font size=7>"
+            f"{escape_text(h)}</font>")
 
 
 def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
@@ -633,17 +633,17 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
 
     story.append(Spacer(1, 18))
     story.append(Paragraph("Capability evidence report", st["title"]))
-    story.append(Paragraph(_esc(study.title), st["subtitle"]))
+    story.append(Paragraph(escape_text(study.title), st["subtitle"]))
     facts = [
-        ["Part", _esc(study.part or "–")],
-        ["Supplier", _esc(study.supplier or "–")],
+        ["Part", escape_text(study.part or "–")],
+        ["Supplier", escape_text(study.supplier or "–")],
         *_data_file_rows(study),
         ["Study content digest", f"<font size=7>{study.content_digest()}</font>"],
         ["Audit chain head", _chain_text(chain)],
-        ["Study state as of", _esc(_last_time(study) or "–")],
+        ["Study state as of", escape_text(_last_time(study) or "–")],
         ["Produced by", f"studykit {__version__}"],
     ]
-    story.append(_table(facts, [42 * 2.835, width - 42 * 2.835], header=False, zebra=False,
+    story.append(grid_table(facts, [42 * 2.835, width - 42 * 2.835], header=False, zebra=False,
                         styles=st))
     story.append(Spacer(1, 12))
     critical = [n for n, c in study.characteristics.items() if c.safety_critical]
@@ -651,9 +651,9 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         from studykit.analysis import SAFETY_CAUTION
 
         v = theme.VERDICTS["caution"]
-        story.append(_box([Paragraph(f"<b>! Safety-critical:</b> {_esc(', '.join(critical))}",
+        story.append(framed_box([Paragraph(f"<b>! Safety-critical:</b> {escape_text(', '.join(critical))}",
                                      st["body"]),
-                           Paragraph(_esc(SAFETY_CAUTION), st["body"])],
+                           Paragraph(escape_text(SAFETY_CAUTION), st["body"])],
                           background=v.background, border=v.color, width=width))
         story.append(Spacer(1, 10))
     story.append(Paragraph("Verdicts at a glance", st["h2"]))
@@ -666,7 +666,7 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         spec = _spec_text(c)
         crit = study.criteria_for(name).describe()
         if res is None:
-            rows.append([_esc(name), spec, "–", _esc(crit), "–", "–",
+            rows.append([escape_text(name), spec, "–", escape_text(crit), "–", "–",
                          f"<b>{names.verdict_label(None)}</b>"])
             verdict_rows.append("pending")
             continue
@@ -692,11 +692,11 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
                 lb = f"upper {ac.dpu_upper_bound:.3g}"
         caution_colour = theme.VERDICTS["caution"].text_color
         safety = f" <font color='{caution_colour}'>(!)</font>" if c.safety_critical else ""
-        rows.append([f"<b>{_esc(name)}</b>{safety}" + (f" [{_esc(res.unit)}]" if res.unit else ""),
-                     spec, f"{chart} / {_esc(model)}", _esc(crit), est, lb,
+        rows.append([f"<b>{escape_text(name)}</b>{safety}" + (f" [{escape_text(res.unit)}]" if res.unit else ""),
+                     spec, f"{chart} / {escape_text(model)}", escape_text(crit), est, lb,
                      f"<font color='{v.text_color}'><b>{v.symbol} {label}</b></font>"])
         verdict_rows.append(key)
-    t = _table(rows, [w * width for w in (0.23, 0.14, 0.14, 0.15, 0.1, 0.1, 0.14)], styles=st)
+    t = grid_table(rows, [w * width for w in (0.23, 0.14, 0.14, 0.15, 0.1, 0.1, 0.14)], styles=st)
     from reportlab.lib import colors
 
     for r, key in enumerate(verdict_rows, start=1):
@@ -712,7 +712,7 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
     if errors:
         story.append(Spacer(1, 6))
         for name, msg in errors.items():
-            story.append(Paragraph(f"<b>{_esc(name)}</b> could not be analysed: {_esc(msg)}",
+            story.append(Paragraph(f"<b>{escape_text(name)}</b> could not be analysed: {escape_text(msg)}",
                                    st["body"]))
     states = study.signoff_state()
     story.append(Paragraph("Sign-off status", st["h2"]))
@@ -721,9 +721,9 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
     else:
         for s in states:
             so = s.signoff
-            word = "still valid" if s.valid else f"VOIDED ({_esc(s.why)})"
-            story.append(Paragraph(f"{_esc(so.role)}: {_esc(so.name)} - {_esc(so.decision)} "
-                                   f"on {_esc(so.when)}, {word}", st["body"]))
+            word = "still valid" if s.valid else f"VOIDED ({escape_text(s.why)})"
+            story.append(Paragraph(f"{escape_text(so.role)}: {escape_text(so.name)} - {escape_text(so.decision)} "
+                                   f"on {escape_text(so.when)}, {word}", st["body"]))
     story.append(Spacer(1, 8))
     story.append(Paragraph(f"Evidence file SHA-256: <font size=7>{evidence_sha}</font>",
                            st["small"]))
@@ -731,7 +731,7 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
 
 def _when(text: str) -> str:
     """ISO time shown compactly (``2026-03-03 09:12:00Z``), so table cells do not wrap."""
-    return _esc(str(text or "").replace("T", " "))
+    return escape_text(str(text or "").replace("T", " "))
 
 
 def _last_time(study) -> str:
@@ -749,7 +749,7 @@ def _spec_text(c) -> str:
         parts.append(f"T {c.target:g}")
     if c.usl is not None:
         parts.append(f"USL {c.usl:g}")
-    return _esc(", ".join(parts) or ("attribute" if c.is_attribute else "–"))
+    return escape_text(", ".join(parts) or ("attribute" if c.is_attribute else "–"))
 
 
 def _characteristic_section(story, number, name, res, study, raw, st, width, figures_cache):
@@ -758,61 +758,61 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     from studykit.report import figures
 
     c = study.characteristic(name)
-    unit = f" [{_esc(res.unit)}]" if res.unit else ""
-    story.append(Paragraph(f"{number}. {_esc(name)}{unit}", st["h1"]))
+    unit = f" [{escape_text(res.unit)}]" if res.unit else ""
+    story.append(Paragraph(f"{number}. {escape_text(name)}{unit}", st["h1"]))
     if res.cautions:
         v = theme.VERDICTS["caution"]
-        story.append(_box([Paragraph("<b>! Safety-critical characteristic</b>", st["body"])]
-                          + [Paragraph(_esc(t), st["body"]) for t in res.cautions],
+        story.append(framed_box([Paragraph("<b>! Safety-critical characteristic</b>", st["body"])]
+                          + [Paragraph(escape_text(t), st["body"]) for t in res.cautions],
                           background=v.background, border=v.color, width=width))
         story.append(Spacer(1, 6))
     if c.description:
-        story.append(Paragraph(_esc(c.description), st["small"]))
+        story.append(Paragraph(escape_text(c.description), st["small"]))
     # verdict first: the reader's question
     key = _verdict_key(res)
     v = theme.VERDICTS[key]
     if res.verdict is not None:
-        story.append(_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} "
+        story.append(framed_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} "
                                      f"{names.verdict_label(res)}"
-                                     f"</b></font> - {_esc(res.verdict.text)}", st["body"])],
+                                     f"</b></font> - {escape_text(res.verdict.text)}", st["body"])],
                           background=v.background, border=v.color, width=width))
     story.append(Spacer(1, 6))
     chart = res.chart
     facts = [
-        ["Specification", _spec_text(c), "Criterion", _esc(study.criteria_for(name).describe())],
+        ["Specification", _spec_text(c), "Criterion", escape_text(study.criteria_for(name).describe())],
         ["Values used", (f"{res.n} individual values" if chart.kind == "imr" else
                          f"{res.n} in {res.subgroups} subgroups"
                          + (f" of {res.subgroup_size}" if res.subgroup_size else "")),
          "Removed", f"{len(res.phase1.removals)} subgroup(s)"
          + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
         ["Centre" if res.attribute else "Mean",
-         _num(res.mean, 6) if c.lsl is None or c.usl is None or res.attribute
+         number_text(res.mean, 6) if c.lsl is None or c.usl is None or res.attribute
          else names.format_value(res.mean, c.lsl, c.usl), "Chart",
-         f"{names.chart_kind_label(chart.kind)} ({_esc(chart.reason)})"],
+         f"{names.chart_kind_label(chart.kind)} ({escape_text(chart.reason)})"],
     ]
     if not res.attribute:
         sigma_text = (res.phase1.raw_chart or chart).sigma_method_text  # raw values' sigma
-        facts.append(["Within sigma", _num(res.within_sigma, 4)
-                      + (f" ({_esc(sigma_text)})" if sigma_text else ""),
-                      "Overall sigma", _num(res.overall_sigma, 4) + " (sample, n - 1)"])
+        facts.append(["Within sigma", number_text(res.within_sigma, 4)
+                      + (f" ({escape_text(sigma_text)})" if sigma_text else ""),
+                      "Overall sigma", number_text(res.overall_sigma, 4) + " (sample, n - 1)"])
     else:
         facts[0][3] = ("read as process Z / 3 from the exact upper bound on the defective rate "
-                       f"({_esc(study.criteria_for(name).describe())})"
+                       f"({escape_text(study.criteria_for(name).describe())})"
                        if chart.kind in ("p", "np") else
                        "not judged by an index (counted data; see the defects per unit below)")
     q = width / 4
-    story.append(_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
+    story.append(grid_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
                         zebra=False, styles=st))
     # stability
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    story.append(_image(figures.control_chart_figure(res, raw=raw), width))
+    story.append(pdf_image(figures.control_chart_figure(res, raw=raw), width))
     if res.chart_scale_text:  # phase I judged on the model's scale
         scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
         pl = res.probability_limits
         if pl is not None:
-            scale_note += (f" In measured units the limits are LCL {_num(pl['lcl'], 5)}, "
-                           f"centre {_num(pl['center'], 5)}, UCL {_num(pl['ucl'], 5)}.")
-        story.append(Paragraph(_esc(scale_note), st["body"]))
+            scale_note += (f" In measured units the limits are LCL {number_text(pl['lcl'], 5)}, "
+                           f"centre {number_text(pl['center'], 5)}, UCL {number_text(pl['ucl'], 5)}.")
+        story.append(Paragraph(escape_text(scale_note), st["body"]))
     signals = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
@@ -824,12 +824,12 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
             labels = [str(chart.labels[p]) for p in pos]
             signals.append(f"{names.chart_part_label(chart.kind, part).capitalize()}, "
-                           f"Nelson test {sig.number}: {_esc(sig.text)} "
-                           f"(subgroup(s) {_esc(', '.join(labels[:12]))}"
+                           f"Nelson test {sig.number}: {escape_text(sig.text)} "
+                           f"(subgroup(s) {escape_text(', '.join(labels[:12]))}"
                            f"{'...' if len(labels) > 12 else ''})")
     if signals:
         story.append(Paragraph("Signals on the final limits "
-                               f"({_esc(names.rule_set_label(chart.location.rules))}):",
+                               f"({escape_text(names.rule_set_label(chart.location.rules))}):",
                                st["body"]))
         for s in signals[:20]:
             story.append(Paragraph(s, st["bullet"], bulletText="•"))
@@ -840,17 +840,17 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                                    "findings).", st["body"]))
         else:
             story.append(Paragraph(f"No run-rule signal on the final limits "
-                                   f"({_esc(names.rule_set_label(chart.location.rules))}).",
+                                   f"({escape_text(names.rule_set_label(chart.location.rules))}).",
                                    st["body"]))
     if res.phase1.removals:
         story.append(Spacer(1, 4))
         rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
         for r in res.phase1.removals:
-            rows.append([_esc(r.label), _esc(names.rule_label(r.rule)), str(r.iteration),
-                         _esc(r.who or "–"),
-                         _esc(r.reason)])
+            rows.append([escape_text(r.label), escape_text(names.rule_label(r.rule)), str(r.iteration),
+                         escape_text(r.who or "–"),
+                         escape_text(r.reason)])
         story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
-                                   _table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15,
+                                   grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15,
                                                                      0.55)], styles=st)]))
     else:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
@@ -865,30 +865,30 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     # shape
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(_image(figures.shape_figure(res), width))
+    story.append(pdf_image(figures.shape_figure(res), width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
         story.append(Paragraph(
-            f"Normality of the values used: Anderson-Darling A² = {_num(ad.a2)} "
-            f"(A*² = {_num(ad.a2_star)}, p = {_num(ad.p_value, 3)})"
-            + (f"; Shapiro-Wilk W = {_num(sw.w)} (p = {_num(sw.p_value, 3)})." if sw is not None
+            f"Normality of the values used: Anderson-Darling A² = {number_text(ad.a2)} "
+            f"(A*² = {number_text(ad.a2_star)}, p = {number_text(ad.p_value, 3)})"
+            + (f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {number_text(sw.p_value, 3)})." if sw is not None
                else "."),
             st["body"]))
     if res.model is not None:
-        params = ", ".join(f"{k} = {_num(val, 5)}" for k, val in res.model.parameters.items())
-        story.append(Paragraph(f"<b>Model used: {_esc(res.model.label)}</b>"
-                               + (f" ({_esc(params)})" if params else "")
-                               + f". Why: {_esc(res.model.reason)}.", st["body"]))
+        params = ", ".join(f"{k} = {number_text(val, 5)}" for k, val in res.model.parameters.items())
+        story.append(Paragraph(f"<b>Model used: {escape_text(res.model.label)}</b>"
+                               + (f" ({escape_text(params)})" if params else "")
+                               + f". Why: {escape_text(res.model.reason)}.", st["body"]))
     if res.ranking is not None:
         _model_list_pdf(story, res, st, width)
     if res.model_band is not None:
         mb = res.model_band
         text = (f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
-                f"ranges from {_idx(mb.low)} ({_esc(names.model_list(mb.low_models))}) to "
-                f"{_idx(mb.high)} ({_esc(names.model_list(mb.high_models))}).")
+                f"ranges from {_idx(mb.low)} ({escape_text(names.model_list(mb.low_models))}) to "
+                f"{_idx(mb.high)} ({escape_text(names.model_list(mb.high_models))}).")
         if mb.warning:
-            text += " " + _esc(mb.warning)
+            text += " " + escape_text(mb.warning)
         story.append(Spacer(1, 4))
         story.append(Paragraph(text, st["body"]))
     # capability
@@ -908,18 +908,18 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             rows.append([f"<b>{_index_name(k)}</b>{judged}", _idx(est), _idx(b.get("lower_bound")),
                          f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
                          if b.get("lower") is not None else "–",
-                         _esc(names.bound_method_label(b.get("method", "–")))])
-        story.append(_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)],
+                         escape_text(names.bound_method_label(b.get("method", "–")))])
+        story.append(grid_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)],
                             styles=st))
         ppm = (f"Expected parts per million outside the specification: overall "
-               f"{_num(cap.ppm_overall, 3)}")
+               f"{number_text(cap.ppm_overall, 3)}")
         if cap.ppm_within is not None:
-            ppm += f", within {_num(cap.ppm_within, 3)}"
-        ppm += (f"; observed {_num(cap.ppm_observed, 3)}. Method: "
-                f"{_esc(names.bound_method_label(cap.method))}.")
+            ppm += f", within {number_text(cap.ppm_within, 3)}"
+        ppm += (f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
+                f"{escape_text(names.bound_method_label(cap.method))}.")
         from studykit.analysis import capability_method_text
 
-        ppm += " Convention: " + _esc(capability_method_text(
+        ppm += " Convention: " + escape_text(capability_method_text(
             cap.to_dict(), None if res.model is None else res.model.to_dict())) + "."
         story.append(Spacer(1, 3))
         story.append(Paragraph(ppm, st["body"]))
@@ -927,17 +927,17 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(_interval_drawing(res, width, st))
     from studykit.report.streams import streams_block  # several streams (cavities...)
 
-    streams_block(story, res, st, width, table=_table, image=_image, esc=_esc)
+    streams_block(story, res, st, width, table=grid_table, image=pdf_image, esc=escape_text)
     from studykit.report.time_model import time_model_block  # ISO 22514-2 class
 
-    time_model_block(story, res, st, width, table=_table, esc=_esc)
+    time_model_block(story, res, st, width, table=grid_table, esc=escape_text)
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
         for f in res.findings:
-            story.append(Paragraph(_esc(f.text), st["bullet"], bulletText="•"))
+            story.append(Paragraph(escape_text(f.text), st["bullet"], bulletText="•"))
     if res.plan is not None:
         story.append(Paragraph("Demonstration planning", st["h2"]))
-        story.append(Paragraph(_esc(res.plan.text), st["body"]))
+        story.append(Paragraph(escape_text(res.plan.text), st["body"]))
     _warnings_block(story, res, st)
 
 
@@ -1022,11 +1022,11 @@ def _attribute_block(story, res, st, width):
     rows = [["Quantity", "Value"]]
     for k, v in ac.to_dict().items():
         if isinstance(v, int | float) and not isinstance(v, bool):
-            rows.append([_esc(k.replace("_", " ")), _num(v, 5)])
+            rows.append([escape_text(k.replace("_", " ")), number_text(v, 5)])
         elif isinstance(v, str) and len(v) < 120:
             shown = names.bound_method_label(v) if k == "method" else v
-            rows.append([_esc(k.replace("_", " ")), _esc(shown)])
-    story.append(_table(rows, [0.4 * width, 0.6 * width], styles=st))
+            rows.append([escape_text(k.replace("_", " ")), escape_text(shown)])
+    story.append(grid_table(rows, [0.4 * width, 0.6 * width], styles=st))
 
 
 def _kept_signals_block(story, res, st, width) -> None:
@@ -1039,14 +1039,14 @@ def _kept_signals_block(story, res, st, width) -> None:
     rows = [["Subgroup", "Rule", "From", "Who", "Reason"]]
     for k in kept:
         origin = "rejected proposal" if k["origin"] == "rejected_proposal" else "person"
-        rows.append([_esc(k["subgroup"]), _esc(names.rule_label(k["rule"])), origin,
-                     _esc(k["who"] or "–"),
-                     _esc(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)")])
+        rows.append([escape_text(k["subgroup"]), escape_text(names.rule_label(k["rule"])), origin,
+                     escape_text(k["who"] or "–"),
+                     escape_text(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)")])
     story.append(Spacer(1, 4))
     story.append(KeepTogether([
         Paragraph("Signals kept with a reason (reviewed; the subgroups stay in the analysis)",
                   st["cellb"]),
-        _table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
+        grid_table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
 
 
 def _model_list_pdf(story, res, st, width):
@@ -1063,20 +1063,20 @@ def _model_list_pdf(story, res, st, width):
     def aic(row):
         if row is None:
             return "–"
-        text = "not fitted" if row.error else _num(row.aic, 6)
+        text = "not fitted" if row.error else number_text(row.aic, 6)
         return text + (f" {L['used']}" if row.id == chosen else "")
 
     rows = [["#", L["family"], f"{L['aic']}, {L['plain'].lower()}",
              f"{L['aic']}, {L['shifted'].lower()}", L["effect"]]]
     for line in lines[:8]:
-        rows.append([str(line.rank), _esc(line.name), _esc(aic(line.plain)),
-                     _esc(aic(line.shifted)), _esc(model_list.threshold_effect(line, _fixed))])
+        rows.append([str(line.rank), escape_text(line.name), escape_text(aic(line.plain)),
+                     escape_text(aic(line.shifted)), escape_text(model_list.threshold_effect(line, _fixed))])
     story.append(Spacer(1, 4))
     story.append(KeepTogether([
         Paragraph(f"{L['title']} (best {len(rows) - 1} of {len(lines)}; "
-                  f"{_esc(L['rule'])} {_esc(res.ranking.rule)})", st["cellb"]),
-        _table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
-        Paragraph(_esc(model_list.SOURCE), st["small"])]))
+                  f"{escape_text(L['rule'])} {escape_text(res.ranking.rule)})", st["cellb"]),
+        grid_table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
+        Paragraph(escape_text(model_list.SOURCE), st["small"])]))
 
 
 def _warnings_block(story, res, st):
@@ -1085,7 +1085,7 @@ def _warnings_block(story, res, st):
     if res.warnings:
         story.append(Paragraph("Read with care", st["h2"]))
         for w in res.warnings:
-            story.append(Paragraph(_esc(w), st["bullet"], bulletText="!"))
+            story.append(Paragraph(escape_text(w), st["bullet"], bulletText="!"))
 
 
 def _gauge_section(story, number, gauges, study, st, width):
@@ -1095,17 +1095,17 @@ def _gauge_section(story, number, gauges, study, st, width):
     story.append(Paragraph(f"{number}. Measurement system (gauge R&amp;R)", st["h1"]))
     for name, payload in gauges.items():
         story.append(CondPageBreak(200))
-        story.append(Paragraph(f"{_esc(name)}: {payload.get('n_parts')} parts x "
+        story.append(Paragraph(f"{escape_text(name)}: {payload.get('n_parts')} parts x "
                                f"{payload.get('n_appraisers')} appraisers x "
                                f"{payload.get('n_trials')} trials"
-                               + (f" (file {_esc(payload.get('source_file'))})"
+                               + (f" (file {escape_text(payload.get('source_file'))})"
                                   if payload.get("source_file") else ""), st["h2"]))
         verdict = payload.get("verdict") or {}
         if isinstance(verdict, dict) and verdict.get("text"):
             ok = verdict.get("acceptable")
             key = "pass" if ok else ("fail" if ok is False else "caution")
             v = theme.VERDICTS[key]
-            story.append(_box([Paragraph(_esc(verdict.get("text")), st["body"])],
+            story.append(framed_box([Paragraph(escape_text(verdict.get("text")), st["body"])],
                               background=v.background, border=v.color, width=width))
             story.append(Spacer(1, 4))
         _gauge_tables_pdf(story, payload, st, width)
@@ -1119,8 +1119,8 @@ def _gauge_section(story, number, gauges, study, st, width):
                     fig = getattr(gauge_figures, f"{key}_figure")(res)
                 except Exception:  # noqa: BLE001 - a figure must never stop the report
                     continue
-                story.append(KeepTogether([_image(fig, width * 0.85),
-                                           Paragraph(_esc(caption), st["small"])]))
+                story.append(KeepTogether([pdf_image(fig, width * 0.85),
+                                           Paragraph(escape_text(caption), st["small"])]))
                 story.append(Spacer(1, 4))
         _gauge_full_anova_pdf(story, payload, st, width)
 
@@ -1134,9 +1134,9 @@ def _gauge_tables_pdf(story, payload, st, width):
     tolerance = payload.get("tolerance") is not None
     rows = [gt.component_headers(payload.get("study_variation"), tolerance=tolerance)]
     for comp in payload.get("components", []):
-        row = [_esc(gt.component_name(str(comp.get("name", "")))),
-               _num(comp.get("variance")), _pct_cell(comp.get("pct_contribution")),
-               _num(comp.get("sigma")), _num(comp.get("study_variation")),
+        row = [escape_text(gt.component_name(str(comp.get("name", "")))),
+               number_text(comp.get("variance")), _pct_cell(comp.get("pct_contribution")),
+               number_text(comp.get("sigma")), number_text(comp.get("study_variation")),
                _pct_cell(comp.get("pct_study_variation"))]
         if tolerance:
             row.append(_pct_cell(comp.get("pct_tolerance")))
@@ -1144,14 +1144,14 @@ def _gauge_tables_pdf(story, payload, st, width):
     widths = ((0.25, 0.12, 0.12, 0.12, 0.13, 0.13, 0.13) if tolerance
               else (0.28, 0.14, 0.14, 0.14, 0.15, 0.15))
     story.append(Paragraph(gt.LABELS["components_title"], st["cellb"]))
-    story.append(_table(rows, [w * width for w in widths], styles=st))
+    story.append(grid_table(rows, [w * width for w in widths], styles=st))
     story.append(Spacer(1, 3))
     story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
-                           f"Method: {_esc(payload.get('method', ''))}.", st["body"]))
+                           f"Method: {escape_text(payload.get('method', ''))}.", st["body"]))
     story.append(Spacer(1, 3))
     story.append(Paragraph(gt.LABELS["anova_used_title"], st["cellb"]))
-    story.append(Paragraph(_esc(gt.anova_note(payload, _fixed)), st["small"]))
-    story.append(_table(_gauge_anova_rows(payload.get("anova_used")),
+    story.append(Paragraph(escape_text(gt.anova_note(payload, _fixed)), st["small"]))
+    story.append(grid_table(_gauge_anova_rows(payload.get("anova_used")),
                         [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st))
     story.append(Spacer(1, 4))
 
@@ -1166,7 +1166,7 @@ def _gauge_full_anova_pdf(story, payload, st, width):
         return
     story.append(KeepTogether([
         Paragraph(gt.LABELS["anova_full_title"], st["cellb"]),
-        _table(_gauge_anova_rows(payload.get("anova_full")),
+        grid_table(_gauge_anova_rows(payload.get("anova_full")),
                [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st)]))
 
 
@@ -1176,9 +1176,9 @@ def _gauge_anova_rows(rows_in):
     rows = [gt.anova_headers()]
     for r in rows_in or []:
         p = r.get("p")
-        rows.append([_esc(gt.source_name(str(r.get("source", "")))), str(r.get("df", "–")),
-                     _num(r.get("ss")), _num(r.get("ms")), _num(r.get("f"), 3),
-                     "–" if p is None else ("< 0.001" if p < 1e-3 else _num(p, 3))])
+        rows.append([escape_text(gt.source_name(str(r.get("source", "")))), str(r.get("df", "–")),
+                     number_text(r.get("ss")), number_text(r.get("ms")), number_text(r.get("f"), 3),
+                     "–" if p is None else ("< 0.001" if p < 1e-3 else number_text(p, 3))])
     return rows
 
 
@@ -1188,7 +1188,7 @@ def _fixed(v, digits: int) -> str:
 
 
 def _pct_cell(v) -> str:
-    return "–" if v is None else f"{_num(v, 3)} %"
+    return "–" if v is None else f"{number_text(v, 3)} %"
 
 
 def _gauge_result(payload):
@@ -1209,10 +1209,10 @@ def _signoff_digests(story, study, states, width, st):
     rows = [["Role", "Name", "Content digest signed", "Matches this report?"]]
     for s in states:
         so = s.signoff
-        rows.append([_esc(so.role), _esc(so.name), f"<font size=6>{so.digest}</font>",
+        rows.append([escape_text(so.role), escape_text(so.name), f"<font size=6>{so.digest}</font>",
                      "yes" if so.digest == current else "<b>no</b> - signed other content"])
     story.append(Paragraph("Content each sign-off signed", st["h2"]))
-    story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.52, 0.22)], styles=st))
+    story.append(grid_table(rows, [w * width for w in (0.11, 0.15, 0.52, 0.22)], styles=st))
 
 
 def _signoff_section(story, number, study, st, width, boxes):
@@ -1231,9 +1231,9 @@ def _signoff_section(story, number, study, st, width, boxes):
                 what += f" subgroup {d.subgroup}"
             if d.payload:
                 what += " " + ", ".join(f"{k}={v}" for k, v in d.payload.items())
-            rows.append([_when(d.when), _esc(d.who or ("auto" if d.automatic else "–")),
-                         _esc(d.characteristic or "study"), _esc(what), _esc(d.reason)])
-        story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)],
+            rows.append([_when(d.when), escape_text(d.who or ("auto" if d.automatic else "–")),
+                         escape_text(d.characteristic or "study"), escape_text(what), escape_text(d.reason)])
+        story.append(grid_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)],
                             styles=st))
     else:
         story.append(Paragraph("No decision recorded.", st["body"]))
@@ -1241,26 +1241,26 @@ def _signoff_section(story, number, study, st, width, boxes):
         story.append(Paragraph("Comments", st["h2"]))
         rows = [["When", "Who", "About", "Comment"]]
         for cm in study.comments:
-            rows.append([_when(cm.when), _esc(cm.who), _esc(cm.characteristic or "study"),
-                         _esc(cm.text)])
-        story.append(_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.54)], styles=st))
+            rows.append([_when(cm.when), escape_text(cm.who), escape_text(cm.characteristic or "study"),
+                         escape_text(cm.text)])
+        story.append(grid_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.54)], styles=st))
     story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
     states = study.signoff_state()
     if states:
         rows = [["Role", "Name", "Decision", "When", "Comment", "State"]]
         for s in states:
             so = s.signoff
-            rows.append([_esc(names.role_label(so.role)), _esc(so.name),
-                         _esc(names.decision_label(so.decision)), _when(so.when),
-                         _esc(so.comment or "–"),
+            rows.append([escape_text(names.role_label(so.role)), escape_text(so.name),
+                         escape_text(names.decision_label(so.decision)), _when(so.when),
+                         escape_text(so.comment or "–"),
                          names.SIGNOFF_VALID if s.valid
-                         else f"<b>{names.SIGNOFF_VOIDED}</b> - {_esc(s.why)}"])
-        story.append(_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
+                         else f"<b>{names.SIGNOFF_VOIDED}</b> - {escape_text(s.why)}"])
+        story.append(grid_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
                             styles=st))
         _signoff_digests(story, study, states, width, st)
-        heads = [f"{_esc(s.signoff.role)} ({_esc(s.signoff.name)}): entry "
-                 f"{_esc(s.signoff.chain_head.partition(':')[0])} "
-                 f"<font size=6>{_esc(s.signoff.chain_head.partition(':')[2])}</font>"
+        heads = [f"{escape_text(s.signoff.role)} ({escape_text(s.signoff.name)}): entry "
+                 f"{escape_text(s.signoff.chain_head.partition(':')[0])} "
+                 f"<font size=6>{escape_text(s.signoff.chain_head.partition(':')[2])}</font>"
                  for s in states if getattr(s.signoff, "chain_head", "")]
         if heads:
             story.append(Paragraph("Audit chain head each sign-off signed: " + "; ".join(heads)
@@ -1283,24 +1283,24 @@ def _appendix(story, number, study, st, width, evidence_sha, chain=None):
     story.append(Paragraph(f"{number}. Methods, sources and digests", st["h1"]))
     rows = [["Method", "Published source"]]
     for m, src in METHODS:
-        rows.append([_esc(m), _esc(src)])
-    story.append(_table(rows, [0.36 * width, 0.64 * width], styles=st))
+        rows.append([escape_text(m), escape_text(src)])
+    story.append(grid_table(rows, [0.36 * width, 0.64 * width], styles=st))
     story.append(Paragraph("Software", st["h2"]))
-    story.append(Paragraph(_esc(_software_versions()), st["body"]))
+    story.append(Paragraph(escape_text(_software_versions()), st["body"]))
     story.append(Paragraph("Digests (SHA-256)", st["h2"]))
     rows = [["What", "SHA-256"]]
     for name, blob in study.files:
-        rows.append([f"Raw data ({_esc(name)}, {len(blob):,} bytes)",
+        rows.append([f"Raw data ({escape_text(name)}, {len(blob):,} bytes)",
                      f"<font size=7>{hashlib.sha256(blob).hexdigest()}</font>"])
     rows += [["Study content (data + effective decisions)",
               f"<font size=7>{study.content_digest()}</font>"],
              ["Audit chain head of the study file" + (
-                 f" (entry {_esc(str(chain.get('head', '')).partition(':')[0])})" if chain
+                 f" (entry {escape_text(str(chain.get('head', '')).partition(':')[0])})" if chain
                  else ""),
-              f"<font size=7>{_esc(str(chain.get('head', '')).partition(':')[2])}</font>"
+              f"<font size=7>{escape_text(str(chain.get('head', '')).partition(':')[2])}</font>"
               if chain else "– (not made from a study file)"],
              [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"]]
-    story.append(_table(rows, [0.34 * width, 0.66 * width], styles=st))
+    story.append(grid_table(rows, [0.34 * width, 0.66 * width], styles=st))
     story.append(Paragraph(
         f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
         "in full precision, the specifications, criteria and decisions. `studykit verify "
@@ -1340,7 +1340,7 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     from reportlab.platypus import PageBreak
 
     names = study.characteristic_names
-    st = _styles()
+    st = report_styles()
     page_w, page_h = A4
     margin = 18 * mm
     width = page_w - 2 * margin

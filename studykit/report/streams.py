@@ -19,7 +19,7 @@ _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
 def group_chart_figure(result, *, width: float = 7.0) -> Figure:
     """Largest and smallest stream mean per subgroup, each point marked by its stream, with
     the limits of a stream mean."""
-    from studykit.report.figures import _hline, _margins, _tidy
+    from studykit.report.figures import hline, set_margins, tidy_axes
 
     g = result.streams.group
     names = list(result.streams.names)
@@ -28,7 +28,7 @@ def group_chart_figure(result, *, width: float = 7.0) -> Figure:
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, 3.2))
         ax = fig.subplots()
-        _margins(fig, left=0.8, right=1.1, top=0.35, bottom=0.85)
+        set_margins(fig, left=0.8, right=1.1, top=0.35, bottom=0.85)
         x = np.arange(1, g.labels.size + 1)
         ax.plot(x, g.high, color=theme.INK, linewidth=0.9, zorder=2)
         ax.plot(x, g.low, color=theme.INK, linewidth=0.9, linestyle="dotted", zorder=2)
@@ -40,13 +40,13 @@ def group_chart_figure(result, *, width: float = 7.0) -> Figure:
             if hi.any() or lo.any():
                 ax.plot(np.concatenate([x[hi], x[lo]]), np.concatenate([g.high[hi], g.low[lo]]),
                         label=f"stream {name}", **kw)
-        _hline(ax, g.ucl, "control_limit", "UCL", x[-1])
-        _hline(ax, g.center, "centre_line", "centre", x[-1])
-        _hline(ax, g.lcl, "control_limit", "LCL", x[-1])
+        hline(ax, g.ucl, "control_limit", "UCL", x[-1])
+        hline(ax, g.center, "centre_line", "centre", x[-1])
+        hline(ax, g.lcl, "control_limit", "LCL", x[-1])
         step = max(1, int(np.ceil(x.size / 25)))
         ax.set_xticks(x[::step])
         ax.set_xticklabels([str(v) for v in g.labels[::step]], fontsize=7)
-        _tidy(ax, "Group chart: largest (solid) and smallest (dotted) stream mean per subgroup",
+        tidy_axes(ax, "Group chart: largest (solid) and smallest (dotted) stream mean per subgroup",
               "Stream mean", "Subgroup")
         ax.title.set_fontsize(9)
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), fontsize=7,

@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from studykit.errors import StudyInputError
-from studykit.stats.families.base import Family, _clean
+from studykit.stats.families.base import Family, clean_sample
 from studykit.stats.solvers import rows_per_group
 
 __all__ = ["PROBS", "TAIL_PROBABILITY", "is_family_model", "percentile_draws"]
@@ -88,7 +88,7 @@ def _block_quantiles(model, block, shared):
             q[:] = family.quantile(PROBS, {k: v[:, None] for k, v in params.items()})
     for i in rest:  # one sample at a time, by the family's own estimator
         try:
-            x = _clean(block[i])
+            x = clean_sample(block[i])
             family.check(x)
             p, _, _ = family._estimate(x)
             q[i] = family.quantile(PROBS, {k: float(v) for k, v in p.items()})

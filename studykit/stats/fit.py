@@ -72,14 +72,14 @@ from __future__ import annotations
 
 from studykit.stats.families import FAMILIES
 from studykit.stats.families.base import (  # noqa: F401 - used by the tests
-    _AD_EXPON,
+    AD_EXPON,
     Family,
     FittedModel,
-    _ad_p_table,
-    _clean,
+    ad_p_table,
+    clean_sample,
 )
 from studykit.stats.ranking import RANKING_RULE, ROW_FIELDS, FitRow, Ranking, fit_all
-from studykit.stats.solvers import _GRID_DECADES, ROW_CELLS, rows_per_group  # noqa: F401
+from studykit.stats.solvers import GRID_DECADES, ROW_CELLS, rows_per_group  # noqa: F401
 
 __all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all", "ROW_FIELDS",
            "RANKING_RULE"]

@@ -15,7 +15,7 @@ from scipy import special
 
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats.families import FAMILIES
-from studykit.stats.families.base import FittedModel, _clean
+from studykit.stats.families.base import FittedModel, clean_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 
@@ -152,7 +152,7 @@ def fit_all(x, *, families=None) -> Ranking:
     >>> round(r.best.parameters["shape"], 3)
     1.893
     """
-    x = np.sort(_clean(x))
+    x = np.sort(clean_sample(x))
     if families is None:
         ids = list(FAMILIES)
     else:

@@ -21,22 +21,22 @@ import numpy as np
 
 from studykit.errors import AnalysisError
 
-_add_reduce = np.add.reduce
+add_reduce = np.add.reduce
 # the ufuncs behind ndarray.max/all/any (same results, without the methods' Python wrappers)
-_max_reduce, _all, _any = np.maximum.reduce, np.logical_and.reduce, np.logical_or.reduce
+max_reduce, all_reduce, any_reduce = np.maximum.reduce, np.logical_and.reduce, np.logical_or.reduce
 
 
-def _mean_sd(x, ddof=0):
+def mean_sd(x, ddof=0):
     """(mean, standard deviation) of a 1-D array: the sums of x.mean() and x.std(ddof=ddof)
     without their Python wrappers (fit_all calls them many times on small arrays)."""
     n = x.size
-    m = float(_add_reduce(x)) / n
+    m = float(add_reduce(x)) / n
     c = x - m
-    return m, math.sqrt(float(_add_reduce(c * c)) / (n - ddof))
+    return m, math.sqrt(float(add_reduce(c * c)) / (n - ddof))
 
 
 
-def _median(x, axis=-1):
+def median_1d(x, axis=-1):
     """np.median(x, axis) (same values: the middle element, or the mean of the two middle
     elements) by one partition, without np.median's generic machinery."""
     n = x.shape[axis]
@@ -47,9 +47,9 @@ def _median(x, axis=-1):
 
 
 
-def _rowsum(a):
+def rowsum(a):
     # the ufunc directly: same sums as a.sum(axis=1) without the method's Python wrapper
-    return _add_reduce(a, 1)
+    return add_reduce(a, 1)
 
 
 
@@ -64,7 +64,7 @@ def ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
     Returns (location, scale, loglik, (a, b), converged).
     """
     n = u.size
-    m = float(_add_reduce(u)) / n
+    m = float(add_reduce(u)) / n
     c = u - m
     sd = math.sqrt(float(c @ c) / n)
     v = c / sd
@@ -76,16 +76,16 @@ def ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
 
     def evaluate(a, b):
         lg, d1, d2 = terms(a * v - b)
-        return float(_add_reduce(lg)) + n * math.log(a), d1, d2
+        return float(add_reduce(lg)) + n * math.log(a), d1, d2
 
     ll, d1, d2 = evaluate(a, b)
     converged = False
     for _ in range(200):
         ga = float(d1 @ v) + n / a
-        gb = -float(_add_reduce(d1))
+        gb = -float(add_reduce(d1))
         haa = float(d2 @ vv) - n / (a * a)
         hab = -float(d2 @ v)
-        hbb = float(_add_reduce(d2))
+        hbb = float(add_reduce(d2))
         det = haa * hbb - hab * hab
         if det > 0 and haa < 0:
             da = -(hbb * ga - hab * gb) / det
@@ -122,7 +122,7 @@ def ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
 # ---------------------------------------------------------------------------------------------
 # Profile likelihood over the threshold
 # ---------------------------------------------------------------------------------------------
-_GRID_DECADES = np.linspace(-4.0, 3.0, 8)
+GRID_DECADES = np.linspace(-4.0, 3.0, 8)
 _REFINE_POINTS = 33
 # fractions of the bracket at the points of a pass (np.linspace without its overhead)
 _FULL_PASS = np.arange(_REFINE_POINTS) / (_REFINE_POINTS - 1)
@@ -194,7 +194,7 @@ def profile_threshold(x: np.ndarray, family):
     Returns (theta, params, loglik, converged, note).
     """
     xmin = float(x.min())
-    sd = _mean_sd(x)[1]
+    sd = mean_sd(x)[1]
 
     warm = {}
 
@@ -236,7 +236,7 @@ def profile_threshold(x: np.ndarray, family):
             warm["at"], warm["state"] = at, state
         return dt, np.where(np.isfinite(ll), ll, -np.inf), params
 
-    us = math.log(sd) + _GRID_DECADES * math.log(10.0)
+    us = math.log(sd) + GRID_DECADES * math.log(10.0)
     with np.errstate(all="ignore"):  # slopes at rough grid fits, used only when interior
         grid_dt, lls, params = evaluate(us, rough=True)
     best = int(lls.argmax())
@@ -320,7 +320,7 @@ def threshold_rows(family, block, shared=None):
     spread = block.max(axis=1) > block.min(axis=1)
     xmin = block.min(axis=1)
     sd = block.std(axis=1)
-    decades = _GRID_DECADES * math.log(10.0)
+    decades = GRID_DECADES * math.log(10.0)
 
     def evaluate(rows, u, start=None):
         ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]

@@ -18,10 +18,10 @@ from studykit.stats import solvers
 from studykit.stats._checks import check_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
-from studykit.stats.solvers import _add_reduce
+from studykit.stats.solvers import add_reduce
 
-_LOG_2PI = math.log(2.0 * math.pi)
-_TINY = 1e-300
+LOG_2PI = math.log(2.0 * math.pi)
+TINY = 1e-300
 
 # ---------------------------------------------------------------------------------------------
 # Anderson-Darling p-value tables
@@ -31,21 +31,21 @@ _TINY = 1e-300
 # given from memory. tests/test_fit.py checks every p-value chain by simulation.
 #: Exponential, scale estimated: A*^2 = A^2 (1 + 0.6/n); upper-tail levels 15..1 %.
 #: D'Agostino & Stephens (1986) Table 4.14 (from memory); scipy ``_Avals_expon``.
-_AD_EXPON = (np.array([0.916, 1.062, 1.321, 1.591, 1.959]),
+AD_EXPON = (np.array([0.916, 1.062, 1.321, 1.591, 1.959]),
              np.array([0.15, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.6 / n)
 #: Extreme value (and Weibull through log x), both parameters estimated: A*^2 = A^2 (1 +
 #: 0.2/sqrt(n)); Stephens (1977), Biometrika 64, 583-588; D'Agostino & Stephens (1986)
 #: Table 4.17 (from memory); scipy ``_Avals_gumbel``.
-_AD_EV = (np.array([0.474, 0.637, 0.757, 0.877, 1.038]),
+AD_EV = (np.array([0.474, 0.637, 0.757, 0.877, 1.038]),
           np.array([0.25, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.2 / math.sqrt(n))
 #: Logistic, both parameters estimated: A*^2 = A^2 (1 + 0.25/n); Stephens (1979),
 #: Biometrika 66, 591-595; D'Agostino & Stephens (1986) Table 4.22 (from memory); scipy
 #: ``_Avals_logistic``.
-_AD_LOGISTIC = (np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
+AD_LOGISTIC = (np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
                 np.array([0.25, 0.10, 0.05, 0.025, 0.01, 0.005]), lambda n: 1.0 + 0.25 / n)
 
 
-def _ad_p_normal(a2: float, n: int) -> tuple[float, str]:
+def ad_p_normal(a2: float, n: int) -> tuple[float, str]:
     """D'Agostino & Stephens (1986) Table 4.9, case 3 (mean and variance estimated)."""
     a = a2 * (1.0 + 0.75 / n + 2.25 / (n * n))
     if a >= 153.0:  # the formula's minimum (p < 1e-189); beyond it, it rises and overflows
@@ -62,7 +62,7 @@ def _ad_p_normal(a2: float, n: int) -> tuple[float, str]:
     return p, f"{p:.4f}"
 
 
-def _ad_p_table(a2: float, n: int, table) -> tuple[float, str]:
+def ad_p_table(a2: float, n: int, table) -> tuple[float, str]:
     """Linear interpolation of the significance level in a critical-value table.
 
     Outside the table the edge level is returned and the text carries ">" or "<".
@@ -79,14 +79,14 @@ def _ad_p_table(a2: float, n: int, table) -> tuple[float, str]:
 
 @lru_cache(maxsize=16)
 def _ad_weights(n: int) -> np.ndarray:
-    """The weights 2i - 1, i = 1..n, of :func:`_ad_from_logs` (read-only, cached: fit_all
+    """The weights 2i - 1, i = 1..n, of :func:`ad_from_logs` (read-only, cached: fit_all
     computes the statistic for every family on the same n)."""
     w = np.arange(1.0, 2.0 * n, 2.0)
     w.flags.writeable = False
     return w
 
 
-def _ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
+def ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
     """A^2 = -n - (1/n) sum (2i-1) [ln F(x_(i)) + ln(1 - F(x_(n+1-i)))] for sorted data."""
     n = logcdf.size
     w = _ad_weights(n)
@@ -96,7 +96,7 @@ def _ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
 # ---------------------------------------------------------------------------------------------
 # Input checks
 # ---------------------------------------------------------------------------------------------
-def _clean(x, *, name="x", minimum=3) -> np.ndarray:
+def clean_sample(x, *, name="x", minimum=3) -> np.ndarray:
     return check_sample(
         x, name=name, minimum=minimum, before="fitting a distribution",
         needed_for="fitting a distribution",
@@ -267,7 +267,7 @@ class Family:
 
     def _loc_scale(self, p):
         """(location, scale) that :meth:`frozen` passes to scipy.stats."""
-        return _th(p), p["scale"]
+        return threshold_of(p), p["scale"]
 
     def quantile(self, q, p):  # pragma: no cover - abstract
         """Quantile function at probabilities ``q`` for parameters ``p`` (values may be
@@ -302,7 +302,7 @@ class Family:
 
     # -- shared -------------------------------------------------------------------------------
     def _ad(self, xs, p) -> float:
-        return _ad_from_logs(self._logcdf(xs, p), self._logsf(xs, p))
+        return ad_from_logs(self._logcdf(xs, p), self._logsf(xs, p))
 
     def _ad_p(self, a2, n, xs, p):
         return None, None
@@ -354,7 +354,7 @@ class Family:
         >>> round(float(m.ppf(0.5)), 3), m.ad_p_text
         (2.773, '>0.25')
         """
-        return self._fit_sorted(np.sort(_clean(x)))
+        return self._fit_sorted(np.sort(clean_sample(x)))
 
     def sample(self, p, size, rng: np.random.Generator) -> np.ndarray:
         """Random readings from the model with parameters ``p``, drawn from the numpy
@@ -365,12 +365,12 @@ class Family:
         return self._standard_draws(p, size, rng) * scale + loc
 
     def _fit_sorted(self, xs: np.ndarray) -> FittedModel:
-        """Fit to readings already checked by ``_clean`` and sorted (fit_all's path)."""
+        """Fit to readings already checked by ``clean_sample`` and sorted (fit_all's path)."""
         self.check(xs)
         params, converged, note = self._estimate(xs)
         params = {k: float(v) for k, v in params.items()}
         n = xs.size
-        loglik = float(_add_reduce(self._logpdf(xs, params)))
+        loglik = float(add_reduce(self._logpdf(xs, params)))
         k = self.n_params
         a2 = self._ad(xs, params)
         p, ptext = self._ad_p(a2, n, xs, params) if math.isfinite(a2) else (None, None)
@@ -381,7 +381,7 @@ class Family:
         )
 
 
-def _th(p):
+def threshold_of(p):
     return p.get("threshold", 0.0)
 
 
@@ -407,7 +407,7 @@ class ThresholdVariant:
     all samples at once."""
 
     #: rows per sample in a block of ``refit_rows``: the grid of the threshold search
-    refit_row_factor = solvers._GRID_DECADES.size
+    refit_row_factor = solvers.GRID_DECADES.size
 
     def _estimate(self, x):
         theta, params, _, conv, note = solvers.profile_threshold(x, self)

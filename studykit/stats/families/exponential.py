@@ -8,13 +8,13 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _AD_EXPON,
+    AD_EXPON,
     Family,
-    _ad_p_table,
-    _th,
+    ad_p_table,
+    threshold_of,
 )
 from studykit.stats.solvers import (
-    _add_reduce,
+    add_reduce,
 )
 
 
@@ -25,28 +25,28 @@ class Exponential(Family):
     ad_p_source = "D'Agostino & Stephens (1986) Table 4.14 (scale estimated), interpolated"
 
     def _estimate(self, x):
-        return {"scale": float(_add_reduce(x)) / x.size}, True, None
+        return {"scale": float(add_reduce(x)) / x.size}, True, None
 
     def frozen(self, p):
-        return stats.expon(loc=_th(p), scale=p["scale"])
+        return stats.expon(loc=threshold_of(p), scale=p["scale"])
     def _standard_draws(self, p, size, rng):
         return rng.standard_exponential(size)
 
 
     def _logpdf(self, x, p):
-        return -math.log(p["scale"]) - (x - _th(p)) / p["scale"]
+        return -math.log(p["scale"]) - (x - threshold_of(p)) / p["scale"]
 
     def _logcdf(self, x, p):
-        return np.log(-np.expm1(-(x - _th(p)) / p["scale"]))
+        return np.log(-np.expm1(-(x - threshold_of(p)) / p["scale"]))
 
     def _logsf(self, x, p):
-        return -(x - _th(p)) / p["scale"]
+        return -(x - threshold_of(p)) / p["scale"]
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_table(a2, n, _AD_EXPON)
+        return ad_p_table(a2, n, AD_EXPON)
 
     def quantile(self, q, p):
-        return -special.log1p(-q) * p["scale"] + _th(p)
+        return -special.log1p(-q) * p["scale"] + threshold_of(p)
 
     def refit_rows(self, block, shared=None):  # closed form, all samples at once
         ok = block.max(axis=1) > block.min(axis=1)
@@ -63,7 +63,7 @@ class Exponential2(Exponential):
     def _estimate(self, x):
         n = x.size
         x1 = float(x.min())
-        scale = n * (float(_add_reduce(x)) / n - x1) / (n - 1)
+        scale = n * (float(add_reduce(x)) / n - x1) / (n - 1)
         note = ("unbiased estimates (the likelihood maximum puts the threshold at the smallest "
                 "reading)")
         return {"scale": scale, "threshold": x1 - scale / n}, True, note

@@ -9,14 +9,14 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _AD_EV,
+    AD_EV,
     Family,
-    _ad_from_logs,
-    _ad_p_table,
+    ad_from_logs,
+    ad_p_table,
 )
 from studykit.stats.solvers import (
-    _mean_sd,
     ls_fit,
+    mean_sd,
 )
 
 
@@ -31,13 +31,13 @@ def _lev_terms(z):
 
 
 def _sev_start(x):
-    m, sd = _mean_sd(x)
+    m, sd = mean_sd(x)
     s = sd * math.sqrt(6.0) / math.pi
     return m + 0.5772156649 * s, s
 
 
 def _lev_start(x):
-    m, sd = _mean_sd(x)
+    m, sd = mean_sd(x)
     s = sd * math.sqrt(6.0) / math.pi
     return m - 0.5772156649 * s, s
 
@@ -75,10 +75,10 @@ class SEV(Family):
 
     def _ad(self, xs, p):  # _logcdf and _logsf from one exponential
         e = np.exp(self._z(xs, p))
-        return _ad_from_logs(np.log(-np.expm1(-e)), -e)
+        return ad_from_logs(np.log(-np.expm1(-e)), -e)
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_table(a2, n, _AD_EV)
+        return ad_p_table(a2, n, AD_EV)
 
     def quantile(self, q, p):
         return np.log(-special.log1p(-q)) * p["scale"] + p["location"]
@@ -110,7 +110,7 @@ class LEV(SEV):
 
     def _ad(self, xs, p):  # _logcdf and _logsf from one exponential
         e = np.exp(-self._z(xs, p))
-        return _ad_from_logs(-e, np.log(-np.expm1(-e)))
+        return ad_from_logs(-e, np.log(-np.expm1(-e)))
 
     def quantile(self, q, p):
         return -np.log(-np.log(q)) * p["scale"] + p["location"]

@@ -9,17 +9,17 @@ from scipy import special, stats
 
 from studykit.errors import AnalysisError
 from studykit.stats.families.base import (
-    _TINY,
+    TINY,
     Family,
     ThresholdVariant,
-    _ad_from_logs,
-    _th,
+    ad_from_logs,
     refit_by_fit_rows,
+    threshold_of,
 )
 from studykit.stats.solvers import (
-    _add_reduce,
-    _all,
-    _rowsum,
+    add_reduce,
+    all_reduce,
+    rowsum,
 )
 
 
@@ -30,9 +30,9 @@ def _gamma_fit(y: np.ndarray, k0: float | None = None) -> tuple[float, float, fl
     Newton iteration on 1/k.
     """
     n = y.size
-    mean = float(_add_reduce(y)) / n
+    mean = float(add_reduce(y)) / n
     ly = np.log(y)
-    sly = float(_add_reduce(ly))
+    sly = float(add_reduce(ly))
     s = math.log(mean) - sly / n
     if not s > 1e-14:
         raise AnalysisError(
@@ -70,40 +70,40 @@ class Gamma(Family):
         return {"shape": k, "scale": scale}, True, None
 
     def frozen(self, p):
-        return stats.gamma(p["shape"], loc=_th(p), scale=p["scale"])
+        return stats.gamma(p["shape"], loc=threshold_of(p), scale=p["scale"])
     def _standard_draws(self, p, size, rng):
         return rng.standard_gamma(p["shape"], size)
 
 
     def _logpdf(self, x, p):
         k, s = p["shape"], p["scale"]
-        y = x - _th(p)
+        y = x - threshold_of(p)
         return (k - 1.0) * np.log(y) - y / s - k * math.log(s) - special.gammaln(k)
 
     def _logcdf(self, x, p):
-        return np.log(np.maximum(special.gammainc(p["shape"], (x - _th(p)) / p["scale"]),
-                                 _TINY))
+        return np.log(np.maximum(special.gammainc(p["shape"], (x - threshold_of(p)) / p["scale"]),
+                                 TINY))
 
     def _logsf(self, x, p):
-        return np.log(np.maximum(special.gammaincc(p["shape"], (x - _th(p)) / p["scale"]),
-                                 _TINY))
+        return np.log(np.maximum(special.gammaincc(p["shape"], (x - threshold_of(p)) / p["scale"]),
+                                 TINY))
 
     def _ad(self, xs, p):
         # each sorted reading needs one incomplete gamma function, not two: below the
         # median P = gammainc (then ln(1 - F) = log1p(-P)), above it Q = gammaincc (then
         # ln F = log1p(-Q)); both log1p terms stay accurate as P, Q < ~0.6
         k = p["shape"]
-        z = (xs - _th(p)) / p["scale"]
+        z = (xs - threshold_of(p)) / p["scale"]
         cut = int(np.searchsorted(z, k * (1.0 - 1.0 / (9.0 * k)) ** 3))  # Wilson-Hilferty
         lower, upper = z[:cut], z[cut:]
         pl = special.gammainc(k, lower)
         qu = special.gammaincc(k, upper)
-        logcdf = np.concatenate((np.log(np.maximum(pl, _TINY)), np.log1p(-qu)))
-        logsf = np.concatenate((np.log1p(-pl), np.log(np.maximum(qu, _TINY))))
-        return _ad_from_logs(logcdf, logsf)
+        logcdf = np.concatenate((np.log(np.maximum(pl, TINY)), np.log1p(-qu)))
+        logsf = np.concatenate((np.log1p(-pl), np.log(np.maximum(qu, TINY))))
+        return ad_from_logs(logcdf, logsf)
 
     def quantile(self, q, p):
-        return special.gammaincinv(p["shape"], q) * p["scale"] + _th(p)
+        return special.gammaincinv(p["shape"], q) * p["scale"] + threshold_of(p)
 
     @staticmethod
     def fit_rows(ys, start=None, *, rough=False):
@@ -111,8 +111,8 @@ class Gamma(Family):
         (the profile grid) stops at a relative Newton step of 1e-2 instead of 1e-5 (the shape is
         then within about 1e-4 of the root, as for :meth:`Weibull.fit_rows`)."""
         n = ys.shape[1]
-        mean = _rowsum(ys) / n
-        sly = _rowsum(np.log(ys))
+        mean = rowsum(ys) / n
+        sly = rowsum(np.log(ys))
         s = np.log(mean) - sly / n
         s = np.where(s > 0, s, np.nan)
         large = s < 1e-4  # asymptotic root, as in _gamma_fit
@@ -130,7 +130,7 @@ class Gamma(Family):
             step = np.abs(k_new - k)
             done = (step <= 1e-8 * k) | (newton & (step <= (1e-2 if rough else 1e-5) * k))
             k = k_new
-            if _all(done):
+            if all_reduce(done):
                 break
         scale = mean / k
         ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
@@ -140,7 +140,7 @@ class Gamma(Family):
 
     @staticmethod
     def dtheta_rows(ys, p):
-        return ys.shape[1] / p["scale"] - (p["shape"] - 1.0) * _rowsum(1.0 / ys)
+        return ys.shape[1] / p["scale"] - (p["shape"] - 1.0) * rowsum(1.0 / ys)
 
     @staticmethod
     def fit_one(y, start=None):

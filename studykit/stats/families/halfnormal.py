@@ -8,7 +8,7 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _TINY,
+    TINY,
     Family,
 )
 
@@ -35,7 +35,7 @@ class Halfnormal(Family):
         return 0.5 * math.log(2.0 / math.pi) - math.log(p["scale"]) - 0.5 * z * z
 
     def _logcdf(self, x, p):
-        return np.log(np.maximum(special.erf(x / (p["scale"] * math.sqrt(2.0))), _TINY))
+        return np.log(np.maximum(special.erf(x / (p["scale"] * math.sqrt(2.0))), TINY))
 
     def _logsf(self, x, p):
         return math.log(2.0) + special.log_ndtr(-x / p["scale"])

@@ -8,31 +8,31 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _AD_LOGISTIC,
+    AD_LOGISTIC,
     Family,
-    _ad_p_table,
+    ad_p_table,
 )
 from studykit.stats.solvers import (
-    _mean_sd,
-    _median,
     ls_fit,
+    mean_sd,
+    median_1d,
 )
 
 
-def _logistic_terms(z):
+def logistic_terms(z):
     t = np.tanh(0.5 * z)
     az = np.abs(z)
     return -az - 2.0 * np.log1p(np.exp(-az)), -t, -0.5 * (1.0 - t * t)
 
 
-def _logistic_logpdf(z):
-    """The first term of :func:`_logistic_terms` alone (same expression)."""
+def logistic_logpdf(z):
+    """The first term of :func:`logistic_terms` alone (same expression)."""
     az = np.abs(z)
     return -az - 2.0 * np.log1p(np.exp(-az))
 
 
-def _logistic_start(x):
-    return float(_median(x)), _mean_sd(x)[1] * math.sqrt(3.0) / math.pi
+def logistic_start(x):
+    return float(median_1d(x)), mean_sd(x)[1] * math.sqrt(3.0) / math.pi
 
 
 class Logistic(Family):
@@ -41,7 +41,7 @@ class Logistic(Family):
     ad_p_source = "Stephens (1979); D'Agostino & Stephens (1986) Table 4.22, interpolated"
 
     def _estimate(self, x):
-        loc, s, _, _, conv = ls_fit(x, _logistic_terms, *_logistic_start(x))
+        loc, s, _, _, conv = ls_fit(x, logistic_terms, *logistic_start(x))
         return {"location": loc, "scale": s}, conv, None
 
     def frozen(self, p):
@@ -54,7 +54,7 @@ class Logistic(Family):
 
 
     def _logpdf(self, x, p):
-        return _logistic_logpdf((x - p["location"]) / p["scale"]) - math.log(p["scale"])
+        return logistic_logpdf((x - p["location"]) / p["scale"]) - math.log(p["scale"])
 
     def _logcdf(self, x, p):
         return -np.logaddexp(0.0, -(x - p["location"]) / p["scale"])
@@ -63,7 +63,7 @@ class Logistic(Family):
         return -np.logaddexp(0.0, (x - p["location"]) / p["scale"])
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_table(a2, n, _AD_LOGISTIC)
+        return ad_p_table(a2, n, AD_LOGISTIC)
 
     def quantile(self, q, p):
         return special.logit(q) * p["scale"] + p["location"]

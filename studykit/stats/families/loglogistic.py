@@ -8,22 +8,22 @@ import numpy as np
 from scipy import stats
 
 from studykit.stats.families.base import (
-    _AD_LOGISTIC,
+    AD_LOGISTIC,
     Family,
     ThresholdVariant,
-    _ad_from_logs,
-    _ad_p_table,
-    _th,
+    ad_from_logs,
+    ad_p_table,
     refit_by_fit_rows,
+    threshold_of,
 )
-from studykit.stats.families.logistic import _logistic_logpdf, _logistic_start, _logistic_terms
+from studykit.stats.families.logistic import logistic_logpdf, logistic_start, logistic_terms
 from studykit.stats.solvers import (
-    _add_reduce,
-    _all,
-    _max_reduce,
-    _median,
-    _rowsum,
+    add_reduce,
+    all_reduce,
     ls_fit,
+    max_reduce,
+    median_1d,
+    rowsum,
 )
 
 
@@ -36,23 +36,23 @@ class Loglogistic(Family):
 
     def _estimate(self, x):
         ly = np.log(x)
-        loc, s, _, _, conv = ls_fit(ly, _logistic_terms, *_logistic_start(ly))
+        loc, s, _, _, conv = ls_fit(ly, logistic_terms, *logistic_start(ly))
         return {"shape": 1.0 / s, "scale": math.exp(loc)}, conv, None
 
     def frozen(self, p):
-        return stats.fisk(p["shape"], loc=_th(p), scale=p["scale"])
+        return stats.fisk(p["shape"], loc=threshold_of(p), scale=p["scale"])
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default (fisk = burr d=1)
         q = rng.uniform(size=size)
         return (q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"])
 
 
     def _w(self, x, p):
-        return p["shape"] * (np.log(x - _th(p)) - math.log(p["scale"]))
+        return p["shape"] * (np.log(x - threshold_of(p)) - math.log(p["scale"]))
 
     def _logpdf(self, x, p):
-        ly = np.log(x - _th(p))
+        ly = np.log(x - threshold_of(p))
         w = p["shape"] * (ly - math.log(p["scale"]))
-        return _logistic_logpdf(w) + math.log(p["shape"]) - ly
+        return logistic_logpdf(w) + math.log(p["shape"]) - ly
 
     def _logcdf(self, x, p):
         return -np.logaddexp(0.0, -self._w(x, p))
@@ -62,13 +62,13 @@ class Loglogistic(Family):
 
     def _ad(self, xs, p):  # _logcdf and _logsf from one log
         w = self._w(xs, p)
-        return _ad_from_logs(-np.logaddexp(0.0, -w), -np.logaddexp(0.0, w))
+        return ad_from_logs(-np.logaddexp(0.0, -w), -np.logaddexp(0.0, w))
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_table(a2, n, _AD_LOGISTIC)
+        return ad_p_table(a2, n, AD_LOGISTIC)
 
     def quantile(self, q, p):
-        return (q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"]) * p["scale"] + _th(p)
+        return (q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"]) * p["scale"] + threshold_of(p)
 
     @staticmethod
     def fit_rows(ys, start=None, *, rough=False):
@@ -77,54 +77,54 @@ class Loglogistic(Family):
         instead of 1e-5."""
         n = ys.shape[1]
         ly = np.log(ys)
-        m = _rowsum(ly) / n
+        m = rowsum(ly) / n
         c = ly - m[:, None]
-        sd = np.sqrt(_rowsum(c * c) / n)
+        sd = np.sqrt(rowsum(c * c) / n)
         v = c / sd[:, None]
         vv = v * v
         # start: location = median, scale = mean absolute deviation from the median / (2 ln 2)
         # (the logistic's E|X - mu| = 2 s ln 2; less swayed than the sd by the one far reading of
         # a threshold close to min(x): half the Newton steps on the profile grid)
         if start is None:
-            med = _median(v, axis=1)
-            a = (2.0 * math.log(2.0) * n) / _rowsum(np.abs(v - med[:, None]))
+            med = median_1d(v, axis=1)
+            a = (2.0 * math.log(2.0) * n) / rowsum(np.abs(v - med[:, None]))
             b = med * a
         else:
             a, b = start
 
         # sums of v and v^2 per row (n and 0 up to rounding): the Hessian sums below use
         # sum (1 - t^2) w = sum w - sum t^2 w, with t = tanh(z/2)
-        s_v, s_vv = _rowsum(v), _rowsum(vv)
+        s_v, s_vv = rowsum(v), rowsum(vv)
         tol = 1e-3 if rough else 1e-5
 
         def ev(a, b):
             """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
-            log-density derivatives of :func:`_logistic_terms` are -t and -(1 - t^2)/2."""
+            log-density derivatives of :func:`logistic_terms` are -t and -(1 - t^2)/2."""
             z = a[:, None] * v - b[:, None]
             az = np.abs(z)
             t = np.tanh(0.5 * z)
-            lg = _rowsum(az) + 2.0 * _rowsum(np.log1p(np.exp(-az)))
+            lg = rowsum(az) + 2.0 * rowsum(np.log1p(np.exp(-az)))
             return n * np.log(a) - lg, t, t * t
 
         ll, t1, q1 = ev(a, b)
         for _ in range(100):
-            ga = n / a - _rowsum(t1 * v)
-            gb = _rowsum(t1)
-            haa = -0.5 * (s_vv - _rowsum(q1 * vv)) - n / (a * a)
-            hab = 0.5 * (s_v - _rowsum(q1 * v))
-            hbb = -0.5 * (n - _rowsum(q1))
+            ga = n / a - rowsum(t1 * v)
+            gb = rowsum(t1)
+            haa = -0.5 * (s_vv - rowsum(q1 * vv)) - n / (a * a)
+            hab = 0.5 * (s_v - rowsum(q1 * v))
+            hbb = -0.5 * (n - rowsum(q1))
             det = haa * hbb - hab * hab
             da = -(hbb * ga - hab * gb) / det
             db = -(haa * gb - hab * ga) / det
             dec = ga * da + gb * db
-            if not _max_reduce(dec) > 1e-9:
+            if not max_reduce(dec) > 1e-9:
                 break
             an = a + da
-            if _all(an > 0):  # the full Newton step, accepted when no likelihood decreases
+            if all_reduce(an > 0):  # the full Newton step, accepted when no likelihood decreases
                 lln, t1n, q1n = ev(an, b + db)
-                if _all(lln >= ll - 1e-12 * np.abs(ll)):
+                if all_reduce(lln >= ll - 1e-12 * np.abs(ll)):
                     a, b, ll, t1, q1 = an, b + db, lln, t1n, q1n
-                    if _max_reduce(dec) < tol:
+                    if max_reduce(dec) < tol:
                         break  # a full Newton step from a decrement below 1e-5 leaves ~1e-10
                     continue
             t = np.ones_like(a)  # step halving, row by row
@@ -133,7 +133,7 @@ class Loglogistic(Family):
                 an_ok = an > 0
                 lln, t1n, q1n = ev(np.where(an_ok, an, a), b + t * db)
                 good = an_ok & (lln >= ll - 1e-12 * np.abs(ll))
-                if _all(good):
+                if all_reduce(good):
                     break
                 t = np.where(good, t, 0.5 * t)
             keep = good[:, None]
@@ -144,25 +144,25 @@ class Loglogistic(Family):
             q1 = np.where(keep, q1n, q1)
         scale = sd / a
         loc = m + b * scale
-        ll_orig = ll - n * np.log(sd) - _rowsum(ly)
+        ll_orig = ll - n * np.log(sd) - rowsum(ly)
         return ll_orig, {"shape": 1.0 / scale, "scale": np.exp(loc)}, (a, b)
 
     @staticmethod
     def dtheta_rows(ys, p):
         c = p["shape"][:, None]
         z = c * (np.log(ys) - np.log(p["scale"])[:, None])
-        return _rowsum((1.0 + c * np.tanh(0.5 * z)) / ys)
+        return rowsum((1.0 + c * np.tanh(0.5 * z)) / ys)
 
     @staticmethod
     def fit_one(y, start=None):
         """:meth:`Loglogistic.fit_rows` for one row by the scalar :func:`studykit.stats.solvers.ls_fit` (same root)."""
         ly = np.log(y)
         if start is None:
-            loc, s, ll, ab, _ = ls_fit(ly, _logistic_terms, *_logistic_start(ly))
+            loc, s, ll, ab, _ = ls_fit(ly, logistic_terms, *logistic_start(ly))
         else:
-            loc, s, ll, ab, _ = ls_fit(ly, _logistic_terms, 0.0, 1.0,
+            loc, s, ll, ab, _ = ls_fit(ly, logistic_terms, 0.0, 1.0,
                                         start=(float(start[0][0]), float(start[1][0])))
-        return (np.array([ll - float(_add_reduce(ly))]),
+        return (np.array([ll - float(add_reduce(ly))]),
                 {"shape": np.array([1.0 / s]), "scale": np.array([math.exp(loc)])},
                 (np.array([ab[0]]), np.array([ab[1]])))
 

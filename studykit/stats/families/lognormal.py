@@ -8,16 +8,16 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _LOG_2PI,
+    LOG_2PI,
     Family,
     ThresholdVariant,
-    _ad_from_logs,
-    _ad_p_normal,
-    _th,
+    ad_from_logs,
+    ad_p_normal,
+    threshold_of,
 )
 from studykit.stats.solvers import (
-    _mean_sd,
-    _rowsum,
+    mean_sd,
+    rowsum,
 )
 
 
@@ -33,25 +33,25 @@ class Lognormal(Family):
 
     def _estimate(self, x):
         ly = np.log(x)
-        m, sd = _mean_sd(ly)
+        m, sd = mean_sd(ly)
         return {"log_mean": m, "log_sd": sd}, True, None
 
     def frozen(self, p):
-        return stats.lognorm(p["log_sd"], loc=_th(p), scale=math.exp(p["log_mean"]))
+        return stats.lognorm(p["log_sd"], loc=threshold_of(p), scale=math.exp(p["log_mean"]))
     def _loc_scale(self, p):
-        return _th(p), math.exp(p["log_mean"])
+        return threshold_of(p), math.exp(p["log_mean"])
 
     def _standard_draws(self, p, size, rng):
         return np.exp(p["log_sd"] * rng.standard_normal(size))
 
 
     def _z(self, x, p):
-        return (np.log(x - _th(p)) - p["log_mean"]) / p["log_sd"]
+        return (np.log(x - threshold_of(p)) - p["log_mean"]) / p["log_sd"]
 
     def _logpdf(self, x, p):
-        ly = np.log(x - _th(p))
+        ly = np.log(x - threshold_of(p))
         z = (ly - p["log_mean"]) / p["log_sd"]
-        return -0.5 * z * z - math.log(p["log_sd"]) - 0.5 * _LOG_2PI - ly
+        return -0.5 * z * z - math.log(p["log_sd"]) - 0.5 * LOG_2PI - ly
 
     def _logcdf(self, x, p):
         return special.log_ndtr(self._z(x, p))
@@ -60,33 +60,33 @@ class Lognormal(Family):
         return special.log_ndtr(-self._z(x, p))
 
     def _ad(self, xs, p):
-        ly = np.log(xs - _th(p))
-        m, sd = _mean_sd(ly, 1)
+        ly = np.log(xs - threshold_of(p))
+        m, sd = mean_sd(ly, 1)
         z = (ly - m) / sd
-        return _ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
+        return ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_normal(a2, n)
+        return ad_p_normal(a2, n)
 
     def quantile(self, q, p):
-        return np.exp(p["log_sd"] * special.ndtri(q)) * _exp(p["log_mean"]) + _th(p)
+        return np.exp(p["log_sd"] * special.ndtri(q)) * _exp(p["log_mean"]) + threshold_of(p)
 
     @staticmethod
     def fit_rows(ys, start=None, *, rough=False):
         ly = np.log(ys)
         n = ys.shape[1]
-        sly = _rowsum(ly)
+        sly = rowsum(ly)
         mu = sly / n
         c = ly - mu[:, None]
-        var = _rowsum(c * c) / n
+        var = rowsum(c * c) / n
         with np.errstate(divide="ignore"):
-            ll = -sly - 0.5 * n * (_LOG_2PI + np.log(var)) - 0.5 * n
+            ll = -sly - 0.5 * n * (LOG_2PI + np.log(var)) - 0.5 * n
         return ll, {"log_mean": mu, "log_sd": np.sqrt(var)}, None
 
     @staticmethod
     def dtheta_rows(ys, p):
         r = 1.0 / ys
-        return _rowsum(r) + _rowsum((np.log(ys) - p["log_mean"][:, None]) * r) / p["log_sd"] ** 2
+        return rowsum(r) + rowsum((np.log(ys) - p["log_mean"][:, None]) * r) / p["log_sd"] ** 2
 
     def refit_rows(self, block, shared=None):  # closed form, all samples at once
         ok = block.max(axis=1) > block.min(axis=1)

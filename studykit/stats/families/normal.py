@@ -7,13 +7,13 @@ import math
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _LOG_2PI,
+    LOG_2PI,
     Family,
-    _ad_from_logs,
-    _ad_p_normal,
+    ad_from_logs,
+    ad_p_normal,
 )
 from studykit.stats.solvers import (
-    _mean_sd,
+    mean_sd,
 )
 
 
@@ -23,7 +23,7 @@ class Normal(Family):
     ad_p_source = "D'Agostino & Stephens (1986) Table 4.9, case 3"
 
     def _estimate(self, x):
-        m, sd = _mean_sd(x)
+        m, sd = mean_sd(x)
         return {"mean": m, "sd": sd}, True, None
 
     def frozen(self, p):
@@ -37,7 +37,7 @@ class Normal(Family):
 
     def _logpdf(self, x, p):
         z = (x - p["mean"]) / p["sd"]
-        return -0.5 * z * z - math.log(p["sd"]) - 0.5 * _LOG_2PI
+        return -0.5 * z * z - math.log(p["sd"]) - 0.5 * LOG_2PI
 
     def _logcdf(self, x, p):
         return special.log_ndtr((x - p["mean"]) / p["sd"])
@@ -46,12 +46,12 @@ class Normal(Family):
         return special.log_ndtr((p["mean"] - x) / p["sd"])
 
     def _ad(self, xs, p):
-        m, sd = _mean_sd(xs, 1)
+        m, sd = mean_sd(xs, 1)
         z = (xs - m) / sd
-        return _ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
+        return ad_from_logs(special.log_ndtr(z), special.log_ndtr(-z))
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_normal(a2, n)
+        return ad_p_normal(a2, n)
 
     def quantile(self, q, p):
         return special.ndtri(q) * p["sd"] + p["mean"]

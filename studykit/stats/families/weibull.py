@@ -8,20 +8,20 @@ import numpy as np
 from scipy import special, stats
 
 from studykit.stats.families.base import (
-    _AD_EV,
+    AD_EV,
     Family,
     ThresholdVariant,
-    _ad_from_logs,
-    _ad_p_table,
-    _th,
+    ad_from_logs,
+    ad_p_table,
     refit_by_fit_rows,
+    threshold_of,
 )
 from studykit.stats.solvers import (
-    _add_reduce,
-    _all,
-    _any,
-    _max_reduce,
-    _rowsum,
+    add_reduce,
+    all_reduce,
+    any_reduce,
+    max_reduce,
+    rowsum,
 )
 
 
@@ -32,10 +32,10 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
     in k), by Newton steps kept inside a bracket.
     """
     n = logy.size
-    slog = float(_add_reduce(logy))
+    slog = float(add_reduce(logy))
     mlog = slog / n
     z = logy - mlog
-    zmax = _max_reduce(z)
+    zmax = max_reduce(z)
     zs = z - zmax
     if k0 is None or not (k0 > 0):
         sd = math.sqrt(float(z @ z) / n)
@@ -44,7 +44,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
     lo, hi = 0.0, math.inf
     for _ in range(100):
         w = np.exp(k * zs)
-        sw = _add_reduce(w)
+        sw = add_reduce(w)
         wz = w @ z
         mz = wz / sw
         g = mz - 1.0 / k
@@ -65,7 +65,7 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
         if step <= 1e-12 * k or (newton and step <= 1e-7 * k):
             break
     w = np.exp(k * zs)
-    log_scale = mlog + zmax + math.log(float(_add_reduce(w)) / n) / k
+    log_scale = mlog + zmax + math.log(float(add_reduce(w)) / n) / k
     loglik = n * math.log(k) - n * k * log_scale + (k - 1.0) * slog - n
     return k, math.exp(log_scale), loglik
 
@@ -83,17 +83,17 @@ class Weibull(Family):
         return {"shape": k, "scale": scale}, True, None
 
     def frozen(self, p):
-        return stats.weibull_min(p["shape"], loc=_th(p), scale=p["scale"])
+        return stats.weibull_min(p["shape"], loc=threshold_of(p), scale=p["scale"])
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
         return pow(-special.log1p(-rng.uniform(size=size)), 1.0 / p["shape"])
 
 
     def _t(self, x, p):
-        return ((x - _th(p)) / p["scale"]) ** p["shape"]
+        return ((x - threshold_of(p)) / p["scale"]) ** p["shape"]
 
     def _logpdf(self, x, p):
         k, lam = p["shape"], p["scale"]
-        ly = np.log((x - _th(p)) / lam)
+        ly = np.log((x - threshold_of(p)) / lam)
         return math.log(k / lam) + (k - 1.0) * ly - np.exp(k * ly)
 
     def _logcdf(self, x, p):
@@ -105,13 +105,13 @@ class Weibull(Family):
 
     def _ad(self, xs, p):  # _logcdf and _logsf from one power
         t = self._t(xs, p)
-        return _ad_from_logs(np.log(-np.expm1(-t)), -t)
+        return ad_from_logs(np.log(-np.expm1(-t)), -t)
 
     def _ad_p(self, a2, n, xs, p):
-        return _ad_p_table(a2, n, _AD_EV)
+        return ad_p_table(a2, n, AD_EV)
 
     def quantile(self, q, p):
-        return pow(-special.log1p(-q), 1.0 / p["shape"]) * p["scale"] + _th(p)
+        return pow(-special.log1p(-q), 1.0 / p["shape"]) * p["scale"] + threshold_of(p)
 
     @staticmethod
     def fit_rows(ys, start=None, *, rough=False):
@@ -121,21 +121,21 @@ class Weibull(Family):
         rank grid points a decade apart)."""
         n = ys.shape[1]
         ly = np.log(ys)
-        slog = _rowsum(ly)
+        slog = rowsum(ly)
         z = ly - (slog / n)[:, None]
-        zmax = _max_reduce(z, 1)
+        zmax = max_reduce(z, 1)
         zs = z - zmax[:, None]
-        k = 1.2825 / np.sqrt(_rowsum(z * z) / n) if start is None else start[0]
+        k = 1.2825 / np.sqrt(rowsum(z * z) / n) if start is None else start[0]
         tol = 1e-2 if rough else 1e-6
         lo = np.zeros_like(k)
         hi = np.full_like(k, np.inf)
         for _ in range(100):
             w = np.exp(k[:, None] * zs)
-            sw = _rowsum(w)
+            sw = rowsum(w)
             wz = w * z
-            mz = _rowsum(wz) / sw
+            mz = rowsum(wz) / sw
             g = mz - 1.0 / k
-            vz = _rowsum(wz * z) / sw - mz * mz
+            vz = rowsum(wz * z) / sw - mz * mz
             below = g < 0
             lo = np.where(below, k, lo)
             hi = np.where(below, hi, k)
@@ -144,17 +144,17 @@ class Weibull(Family):
             step = np.abs(k_new - k)
             # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
             # is of order step^2, below 1e-11 k)
-            if _any(bad):
+            if any_reduce(bad):
                 k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
                 step = np.abs(k_new - k)
                 done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
             else:
                 done = step <= tol * k
             k = k_new
-            if _all(done):
+            if all_reduce(done):
                 break
         w = np.exp(k[:, None] * zs)
-        log_scale = slog / n + zmax + np.log(_rowsum(w) / n) / k
+        log_scale = slog / n + zmax + np.log(rowsum(w) / n) / k
         ll = n * np.log(k) - n * k * log_scale + (k - 1.0) * slog - n
         return ll, {"shape": k, "scale": np.exp(log_scale)}, (k,)
 
@@ -163,7 +163,7 @@ class Weibull(Family):
         k, lam = p["shape"][:, None], p["scale"][:, None]
         r = 1.0 / ys
         t = (ys / lam) ** k
-        return p["shape"] * _rowsum(t * r) - (p["shape"] - 1.0) * _rowsum(r)
+        return p["shape"] * rowsum(t * r) - (p["shape"] - 1.0) * rowsum(r)
 
     @staticmethod
     def fit_one(y, start=None):
