@@ -44,8 +44,18 @@ POSITION_CSV = "mounting_hole_position.csv"
 CAVITIES_CSV = "impeller_cavities.csv"
 WEAR_CSV = "shaft_seat_wear.csv"
 STUDY_FILE = "pump_housing_pilot.study"
-DATA_FILES = (PILOT_CSV, PULL_CSV, LOTS_CSV, GAUGE_CSV, SPECS_CSV, PULL_SPECS_CSV,
-              REFERENCE_CSV, POSITION_CSV, CAVITIES_CSV, WEAR_CSV)
+DATA_FILES = (
+    PILOT_CSV,
+    PULL_CSV,
+    LOTS_CSV,
+    GAUGE_CSV,
+    SPECS_CSV,
+    PULL_SPECS_CSV,
+    REFERENCE_CSV,
+    POSITION_CSV,
+    CAVITIES_CSV,
+    WEAR_CSV,
+)
 #: the short gauge study has its own seed, so the other files stay as they were before it
 REFERENCE_SEED = SEED + 17
 REFERENCE_VALUE = 8.0004
@@ -55,55 +65,115 @@ SUBGROUP_SIZE = 5
 SHIFTED = (17, 18)  # flange thickness: a chipped insert, found and replaced after subgroup 18
 
 CHARACTERISTICS = [
-    Characteristic("bore_diameter", unit="mm", lsl=11.970, usl=12.030, target=12.000,
-                   safety_critical=True, chart="xbar_r",
-                   description="Bearing seat bore, drawing QV-4410 rev B item 7 (invented)"),
-    Characteristic("face_runout", unit="mm", usl=0.050, chart="xbar_r",
-                   description="Sealing face runout to bore axis; bounded at zero"),
-    Characteristic("flange_thickness", unit="mm", lsl=7.900, usl=8.100, target=8.000,
-                   chart="xbar_r", description="Mounting flange thickness, op 30"),
-    Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True, chart="imr",
-                   source=PULL_CSV,
-                   description="Destructive pull-off test of the pressed-in bushing, one specimen "
-                               "per half hour"),
-    Characteristic("leak_test_defectives", chart="p", size_column="lot_size", source=LOTS_CSV,
-                   description="End-of-line leak test: rejected housings per lot"),
-    Characteristic("impeller_hub_bore", unit="mm", lsl=5.970, usl=6.030, target=6.000,
-                   source=CAVITIES_CSV,
-                   description="Impeller hub bore, moulded in a 4-cavity tool; cavity 3 runs "
-                               "off-centre (invented)"),
+    Characteristic(
+        "bore_diameter",
+        unit="mm",
+        lsl=11.970,
+        usl=12.030,
+        target=12.000,
+        safety_critical=True,
+        chart="xbar_r",
+        description="Bearing seat bore, drawing QV-4410 rev B item 7 (invented)",
+    ),
+    Characteristic(
+        "face_runout",
+        unit="mm",
+        usl=0.050,
+        chart="xbar_r",
+        description="Sealing face runout to bore axis; bounded at zero",
+    ),
+    Characteristic(
+        "flange_thickness",
+        unit="mm",
+        lsl=7.900,
+        usl=8.100,
+        target=8.000,
+        chart="xbar_r",
+        description="Mounting flange thickness, op 30",
+    ),
+    Characteristic(
+        "pull_off_force",
+        unit="N",
+        lsl=180.0,
+        safety_critical=True,
+        chart="imr",
+        source=PULL_CSV,
+        description="Destructive pull-off test of the pressed-in bushing, one specimen "
+        "per half hour",
+    ),
+    Characteristic(
+        "leak_test_defectives",
+        chart="p",
+        size_column="lot_size",
+        source=LOTS_CSV,
+        description="End-of-line leak test: rejected housings per lot",
+    ),
+    Characteristic(
+        "impeller_hub_bore",
+        unit="mm",
+        lsl=5.970,
+        usl=6.030,
+        target=6.000,
+        source=CAVITIES_CSV,
+        description="Impeller hub bore, moulded in a 4-cavity tool; cavity 3 runs "
+        "off-centre (invented)",
+    ),
     # the tool-wear file (WEAR_CSV, shaft seat 14.980-15.020 mm) is not in the study: its
     # trend withholds the verdict in phase I, which would change the study's approval gate
 ]
-CRITERIA = {c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
-            for c in CHARACTERISTICS if not c.is_attribute}
+CRITERIA = {
+    c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
+    for c in CHARACTERISTICS
+    if not c.is_attribute
+}
 # the safety-critical bore is also judged by a tolerance interval: at least 99 % of parts within
 # specification with 95 % confidence (ISO 16269-6), as a medical-device customer might ask
-CRITERIA["bore_diameter"] = Criteria(index="ppk", threshold=1.67, basis="lower_bound",
-                                     interval_coverage=0.99, interval_confidence=0.95)
+CRITERIA["bore_diameter"] = Criteria(
+    index="ppk",
+    threshold=1.67,
+    basis="lower_bound",
+    interval_coverage=0.99,
+    interval_confidence=0.95,
+)
 #: the position study kept beside the demo study (zone diameter 0.20 mm)
 POSITION_NAME = "mounting_hole_position"
 POSITION_TOLERANCE = 0.20
 
 # the recorded decisions and the comment of the demo study (fixed times so the demo is stable)
 DECISIONS = [
-    Decision("flange_thickness", "exclude", subgroup="17",
-             reason="Chipped insert on op 30, found at 14:50 and replaced before subgroup 19; "
-                    "parts made 14:00-14:50 quarantined under NCR-0412 (not representative of "
-                    "the process)",
-             who="R. Okonkwo", when="2026-03-03T09:12:00Z"),
-    Decision("flange_thickness", "exclude", subgroup="18",
-             reason="Same chipped insert as subgroup 17 (NCR-0412)",
-             who="R. Okonkwo", when="2026-03-03T09:13:00Z"),
-    Decision("face_runout", "set_model", payload={"model": "lognormal"},
-             reason="Runout is bounded at zero and right-skewed; a lognormal model is used "
-                    "instead of the normal",
-             who="R. Okonkwo", when="2026-03-03T09:20:00Z"),
+    Decision(
+        "flange_thickness",
+        "exclude",
+        subgroup="17",
+        reason="Chipped insert on op 30, found at 14:50 and replaced before subgroup 19; "
+        "parts made 14:00-14:50 quarantined under NCR-0412 (not representative of "
+        "the process)",
+        who="R. Okonkwo",
+        when="2026-03-03T09:12:00Z",
+    ),
+    Decision(
+        "flange_thickness",
+        "exclude",
+        subgroup="18",
+        reason="Same chipped insert as subgroup 17 (NCR-0412)",
+        who="R. Okonkwo",
+        when="2026-03-03T09:13:00Z",
+    ),
+    Decision(
+        "face_runout",
+        "set_model",
+        payload={"model": "lognormal"},
+        reason="Runout is bounded at zero and right-skewed; a lognormal model is used "
+        "instead of the normal",
+        who="R. Okonkwo",
+        when="2026-03-03T09:20:00Z",
+    ),
 ]
 COMMENT = dict(
     text="Gauge R&R for flange thickness (10 parts x 3 appraisers x 3 trials, "
-         "gauge_flange_thickness.csv) is attached to the study; read its verdict before sign-off.",
-    who="L. Haverkamp", when="2026-03-03T10:05:00Z",
+    "gauge_flange_thickness.csv) is attached to the study; read its verdict before sign-off.",
+    who="L. Haverkamp",
+    when="2026-03-03T10:05:00Z",
 )
 
 
@@ -132,23 +202,36 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
             if k == SHIFTED[-1] + 1 and j == 0:
                 note = "op 30 insert replaced (chipped)"
             stamp = (t0 + timedelta(minutes=2 * j)).strftime("%Y-%m-%d %H:%M")
-            rows.append([str(k), stamp, note, f"{bore[j]:.3f}", f"{runout[j]:.4f}",
-                         f"{flange[j]:.3f}"])
+            rows.append(
+                [str(k), stamp, note, f"{bore[j]:.3f}", f"{runout[j]:.4f}", f"{flange[j]:.3f}"]
+            )
     files[PILOT_CSV] = _rows_to_csv(
-        ["subgroup", "timestamp", "note", "bore_diameter [mm]", "face_runout [mm]",
-         "flange_thickness [mm]"], rows)
+        [
+            "subgroup",
+            "timestamp",
+            "note",
+            "bore_diameter [mm]",
+            "face_runout [mm]",
+            "flange_thickness [mm]",
+        ],
+        rows,
+    )
 
     # -- destructive pull-off test: one specimen per half hour, measured individually ---------
     pull = rng.normal(246.0, 11.0, 48)
-    rows = [[str(i + 1), (START + timedelta(minutes=30 * i + 5)).strftime("%Y-%m-%d %H:%M"),
-             f"{v:.1f}"] for i, v in enumerate(pull)]
+    rows = [
+        [str(i + 1), (START + timedelta(minutes=30 * i + 5)).strftime("%Y-%m-%d %H:%M"), f"{v:.1f}"]
+        for i, v in enumerate(pull)
+    ]
     files[PULL_CSV] = _rows_to_csv(["sample", "timestamp", "pull_off_force [N]"], rows)
 
     # -- end-of-line leak test: defectives per lot, lot size varies --------------------------
     sizes = rng.integers(180, 261, 25)
     defectives = rng.binomial(sizes, 0.012)
-    rows = [[f"L{k + 1:03d}", str(n), str(d)] for k, (n, d) in enumerate(zip(sizes, defectives,
-                                                                            strict=True))]
+    rows = [
+        [f"L{k + 1:03d}", str(n), str(d)]
+        for k, (n, d) in enumerate(zip(sizes, defectives, strict=True))
+    ]
     files[LOTS_CSV] = _rows_to_csv(["lot", "lot_size", "leak_test_defectives"], rows)
 
     # -- crossed gauge study on flange thickness: 10 parts x 3 appraisers x 3 trials ---------
@@ -168,15 +251,32 @@ def make_files(rng: np.random.Generator) -> dict[str, bytes]:
         return "" if x is None else f"{x:.3f}"
 
     def spec_row(c: Characteristic, crit: Criteria) -> list[str]:
-        return [c.name, c.unit or "", num(c.lsl), num(c.usl), num(c.target),
-                "yes" if c.safety_critical else "no", crit.index, f"{crit.threshold:g}",
-                crit.basis]
+        return [
+            c.name,
+            c.unit or "",
+            num(c.lsl),
+            num(c.usl),
+            num(c.target),
+            "yes" if c.safety_critical else "no",
+            crit.index,
+            f"{crit.threshold:g}",
+            crit.basis,
+        ]
 
-    header = ["characteristic", "unit", "lsl", "usl", "target", "safety_critical", "criterion",
-              "threshold", "basis"]
-    files[SPECS_CSV] = _rows_to_csv(header, [spec_row(c, CRITERIA[c.name])
-                                             for c in CHARACTERISTICS
-                                             if c.source is None])
+    header = [
+        "characteristic",
+        "unit",
+        "lsl",
+        "usl",
+        "target",
+        "safety_critical",
+        "criterion",
+        "threshold",
+        "basis",
+    ]
+    files[SPECS_CSV] = _rows_to_csv(
+        header, [spec_row(c, CRITERIA[c.name]) for c in CHARACTERISTICS if c.source is None]
+    )
     pull_spec = Characteristic("pull_off_force", unit="N", lsl=180.0, safety_critical=True)
     files[PULL_SPECS_CSV] = _rows_to_csv(header, [spec_row(pull_spec, Criteria())])
     files[POSITION_CSV] = position_file()
@@ -242,8 +342,9 @@ def wear_file() -> bytes:
         t0 = START + timedelta(days=2, minutes=20 * (k - 1))
         mean = 14.9935 + 0.0005 * (k - 1)
         for j, v in enumerate(mean + g.normal(0, 0.0025, 5)):
-            rows.append([str(k), (t0 + timedelta(minutes=j)).strftime("%Y-%m-%d %H:%M"),
-                         f"{v:.4f}"])
+            rows.append(
+                [str(k), (t0 + timedelta(minutes=j)).strftime("%Y-%m-%d %H:%M"), f"{v:.4f}"]
+            )
     return _rows_to_csv(["subgroup", "timestamp", "shaft_seat_diameter [mm]"], rows)
 
 
@@ -254,41 +355,82 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
     from studykit.stats.gauge import gauge_rr
 
     path = folder / STUDY_FILE
-    sf = StudyFile.create(path, data=files[PILOT_CSV], filename=PILOT_CSV, title=TITLE,
-                          part=PART, supplier=SUPPLIER, characteristics=CHARACTERISTICS,
-                          criteria=CRITERIA, who="demo script", overwrite=True,
-                          extra_files=[(PULL_CSV, files[PULL_CSV]), (LOTS_CSV, files[LOTS_CSV]),
-                                       (CAVITIES_CSV, files[CAVITIES_CSV])],
-                          when="2026-03-03T08:30:00Z")
+    sf = StudyFile.create(
+        path,
+        data=files[PILOT_CSV],
+        filename=PILOT_CSV,
+        title=TITLE,
+        part=PART,
+        supplier=SUPPLIER,
+        characteristics=CHARACTERISTICS,
+        criteria=CRITERIA,
+        who="demo script",
+        overwrite=True,
+        extra_files=[
+            (PULL_CSV, files[PULL_CSV]),
+            (LOTS_CSV, files[LOTS_CSV]),
+            (CAVITIES_CSV, files[CAVITIES_CSV]),
+        ],
+        when="2026-03-03T08:30:00Z",
+    )
     for d in DECISIONS:
         sf.append_decision(d)
     rows = [line.split(",") for line in files[GAUGE_CSV].decode().splitlines()[1:]]
     flange = next(c for c in CHARACTERISTICS if c.name == "flange_thickness")
-    result = gauge_rr([float(r[3]) for r in rows], [r[0] for r in rows], [r[1] for r in rows],
-                      trials=[r[2] for r in rows], lsl=flange.lsl, usl=flange.usl)
-    sf.attach_result("gauge_rr", "flange_thickness",
-                     dict(result.to_dict(), source=GAUGE_CSV), who="L. Haverkamp",
-                     when="2026-03-03T10:00:00Z")
+    result = gauge_rr(
+        [float(r[3]) for r in rows],
+        [r[0] for r in rows],
+        [r[1] for r in rows],
+        trials=[r[2] for r in rows],
+        lsl=flange.lsl,
+        usl=flange.usl,
+    )
+    sf.attach_result(
+        "gauge_rr",
+        "flange_thickness",
+        dict(result.to_dict(), source=GAUGE_CSV),
+        who="L. Haverkamp",
+        when="2026-03-03T10:00:00Z",
+    )
     from studykit.stats.gauge_type1 import short_gauge_study
 
-    readings = [float(line.split(",")[1])
-                for line in files[REFERENCE_CSV].decode().splitlines()[1:]]
-    short = short_gauge_study(readings, reference=REFERENCE_VALUE, lsl=flange.lsl,
-                              usl=flange.usl)
-    sf.attach_result("gauge_short", "flange_thickness",
-                     dict(short.to_dict(), source_file=REFERENCE_CSV, limits_from="study",
-                          columns={"value": "reading"}), who="L. Haverkamp",
-                     when="2026-03-03T10:01:00Z")
+    readings = [
+        float(line.split(",")[1]) for line in files[REFERENCE_CSV].decode().splitlines()[1:]
+    ]
+    short = short_gauge_study(readings, reference=REFERENCE_VALUE, lsl=flange.lsl, usl=flange.usl)
+    sf.attach_result(
+        "gauge_short",
+        "flange_thickness",
+        dict(
+            short.to_dict(),
+            source_file=REFERENCE_CSV,
+            limits_from="study",
+            columns={"value": "reading"},
+        ),
+        who="L. Haverkamp",
+        when="2026-03-03T10:01:00Z",
+    )
     from studykit.positions import POSITION_KIND, position_payload
 
     rows = [line.split(",") for line in files[POSITION_CSV].decode().splitlines()[1:]]
-    sf.attach_result(POSITION_KIND, None, position_payload(
-        POSITION_NAME, [float(r[1]) for r in rows], [float(r[2]) for r in rows],
-        tolerance=POSITION_TOLERANCE, unit="mm", source_file=POSITION_CSV,
-        columns={"x": "hole_dx", "y": "hole_dy"},
-        description="Mounting hole true position to datums A|B|C, zone diameter 0.20 mm "
-                    "(invented)"), who="R. Okonkwo", reason="position study of the mounting hole",
-        when="2026-03-03T10:03:00Z")
+    sf.attach_result(
+        POSITION_KIND,
+        None,
+        position_payload(
+            POSITION_NAME,
+            [float(r[1]) for r in rows],
+            [float(r[2]) for r in rows],
+            tolerance=POSITION_TOLERANCE,
+            unit="mm",
+            source_file=POSITION_CSV,
+            columns={"x": "hole_dx", "y": "hole_dy"},
+            description="Mounting hole true position to datums A|B|C, zone diameter 0.20 mm "
+            "(invented)",
+        ),
+        who="R. Okonkwo",
+        reason="position study of the mounting hole",
+        when="2026-03-03T10:03:00Z",
+    )
     sf.add_comment(**COMMENT)
     return path
 
@@ -342,8 +484,11 @@ def check(folder: Path) -> list[str]:
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", type=Path, default=HERE, help="folder to write into")
-    parser.add_argument("--check", action="store_true",
-                        help="compare the committed files with a fresh run; exit 1 on a difference")
+    parser.add_argument(
+        "--check",
+        action="store_true",
+        help="compare the committed files with a fresh run; exit 1 on a difference",
+    )
     args = parser.parse_args(argv)
     if args.check:
         problems = check(args.out)

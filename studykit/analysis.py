@@ -199,9 +199,7 @@ class AnalysisOptions:
                 "'percentile'."
             )
         if self.mr_removal not in MR_REMOVAL:
-            raise StudyInputError(
-                f"`mr_removal` ({self.mr_removal!r}) must be 'later' or 'both'."
-            )
+            raise StudyInputError(f"`mr_removal` ({self.mr_removal!r}) must be 'later' or 'both'.")
         share = self.max_auto_removed_share
         if isinstance(share, bool) or not isinstance(share, int | float) or not 0 <= share < 1:
             raise StudyInputError(
@@ -289,7 +287,7 @@ def _labels_at(labels, groups: list) -> list:
         values = [_label(labels[int(p)]) for p in flat.tolist()]
     out, start = [], 0
     for k in sizes:
-        out.append(values[start:start + k])
+        out.append(values[start : start + k])
         start += k
     return out
 
@@ -452,8 +450,11 @@ class CharacteristicResult:
         if scale is None or scale.name == "raw":
             return None
         label = getattr(scale.model, "label", "model")
-        return (f"normal score, {label}" if scale.name == "normal_score"
-                else f"{label.split(' ')[0]} scale")
+        return (
+            f"normal score, {label}"
+            if scale.name == "normal_score"
+            else f"{label.split(' ')[0]} scale"
+        )
 
     @property
     def chart_scale_text(self) -> str | None:
@@ -479,16 +480,22 @@ class CharacteristicResult:
     def withheld_codes(self) -> tuple:
         """Codes of the findings that withhold the verdict (heavy automatic removal, too few
         values left by it, data not in production order); empty when none does."""
-        return tuple(f.code for f in self.findings
-                     if f.code in _WITHHOLDING_CODES or f.code.startswith("order_"))
+        return tuple(
+            f.code
+            for f in self.findings
+            if f.code in _WITHHOLDING_CODES or f.code.startswith("order_")
+        )
 
     @property
     def open_signals(self) -> tuple:
         """Signals of the final chart that no "keep, with reason" decision covers."""
         kept = {(str(k["subgroup"]), k["rule"]) for k in self.kept_signals}
         chart = self.phase1.chart
-        return tuple(sg for sg in chart.signals
-                     if not any((lab, sg.rule) in kept for lab in _signal_labels(chart, sg)))
+        return tuple(
+            sg
+            for sg in chart.signals
+            if not any((lab, sg.rule) in kept for lab in _signal_labels(chart, sg))
+        )
 
     @property
     def removed_subgroups(self) -> tuple:
@@ -530,8 +537,9 @@ class CharacteristicResult:
             # every label of every signal read in one step (10^4 signals on 10^6 readings)
             points = [list(sig.points) for sig in s.signals]
             if s.name == "moving_range":  # a moving range is the difference of two readings
-                readings = [sorted({q for p in pos for q in (p - 1, p) if q >= 0})
-                            for pos in points]
+                readings = [
+                    sorted({q for p in pos for q in (p - 1, p) if q >= 0}) for pos in points
+                ]
             else:
                 readings = points
             sub_text = _labels_at(labels, points)
@@ -736,9 +744,14 @@ def _criteria_dict(criteria) -> dict:
         "basis": criteria.basis,
         "confidence": float(criteria.confidence),
         # the tolerance-interval criterion only when set (JSON of other studies unchanged)
-        **({"interval_coverage": float(criteria.interval_coverage),
-            "interval_confidence": float(criteria.interval_confidence)}
-           if getattr(criteria, "interval_coverage", None) is not None else {}),
+        **(
+            {
+                "interval_coverage": float(criteria.interval_coverage),
+                "interval_confidence": float(criteria.interval_confidence),
+            }
+            if getattr(criteria, "interval_coverage", None) is not None
+            else {}
+        ),
     }
 
 
@@ -842,7 +855,9 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl, rank=False):
         notes.append("the data contain values <= 0")
     return (
         ModelChoice(
-            model.name, names.model_label(model.name), dict(model.parameters),
+            model.name,
+            names.model_label(model.name),
+            dict(model.parameters),
             "chosen by the user",
             fitted=model,
         ),
@@ -856,7 +871,7 @@ _SCALE_TEXT = {
     "raw": "values as measured",
     "transformed": "{label} values",
     "normal_score": "normal scores under the fitted {label} model (limits at its 0.135 %, 50 % "
-                    "and 99.865 % points)",
+    "and 99.865 % points)",
 }
 
 
@@ -899,8 +914,13 @@ def _model_scale(requested: str, rank: bool = False):
         except (StudyInputError, ValueError, FloatingPointError):
             return raw
         # kept for the analysis: the same values after phase I need no second fit
-        rescale.last = {"values": xs, "ad": ad, "choice": choice, "ranking": ranking,
-                        "notes": tuple(notes)}
+        rescale.last = {
+            "values": xs,
+            "ad": ad,
+            "choice": choice,
+            "ranking": ranking,
+            "notes": tuple(notes),
+        }
         if choice.name == "normal":
             return ChartScale("raw", _SCALE_TEXT["raw"], xs, model=choice)
         if choice.transform is not None:
@@ -910,15 +930,23 @@ def _model_scale(requested: str, rank: bool = False):
             y = np.asarray(forward(xs), dtype=float)
             if not np.all(np.isfinite(y)):
                 return raw
-            return ChartScale("transformed",
-                              _SCALE_TEXT["transformed"].format(label=choice.label), y,
-                              model=choice)
+            return ChartScale(
+                "transformed",
+                _SCALE_TEXT["transformed"].format(label=choice.label),
+                y,
+                model=choice,
+            )
         if choice.fitted is None:
             return raw
         z = _normal_scores(choice.fitted, xs)
-        return ChartScale("normal_score",
-                          _SCALE_TEXT["normal_score"].format(label=choice.label), z,
-                          mu=0.0, sigma=1.0, model=choice)
+        return ChartScale(
+            "normal_score",
+            _SCALE_TEXT["normal_score"].format(label=choice.label),
+            z,
+            mu=0.0,
+            sigma=1.0,
+            model=choice,
+        )
 
     return rescale
 
@@ -933,11 +961,15 @@ def _withheld_findings(p1: Phase1Result, order, options: AnalysisOptions) -> tup
     """
     out = []
     if order is not None and order.flagged:
-        out.append(Finding(
-            code="order_" + order.status, severity="warning",
-            text="Stability could not be judged from the order of the data: " + order.text
-                 + " No run rule was applied and nothing was removed automatically.",
-        ))
+        out.append(
+            Finding(
+                code="order_" + order.status,
+                severity="warning",
+                text="Stability could not be judged from the order of the data: "
+                + order.text
+                + " No run rule was applied and nothing was removed automatically.",
+            )
+        )
     total = p1.n_values_total
     n_auto = p1.n_removed_auto
     if n_auto and total:
@@ -945,24 +977,36 @@ def _withheld_findings(p1: Phase1Result, order, options: AnalysisOptions) -> tup
         kept = p1.n_values_kept
         manual = ""
         if p1.n_removed_manual:
-            manual = (f" ({p1.n_removed_manual} further value(s) were removed by recorded "
-                      "decisions and are not counted here)")
+            manual = (
+                f" ({p1.n_removed_manual} further value(s) were removed by recorded "
+                "decisions and are not counted here)"
+            )
         if share > options.max_auto_removed_share:
-            out.append(Finding(
-                code="heavy_auto_removal", severity="warning",
-                text=(f"Automatic phase I removed {n_auto} of {total} values ({_pct(share)}, "
-                      f"more than {_pct(options.max_auto_removed_share)}){manual}. A sample "
-                      "trimmed this much describes the kept values, not the process: the removed "
-                      "values may be the tail of the distribution rather than special causes. "
-                      "Find the cause of each removal and record it with a reason, or analyse "
-                      "with --phase1 off."),
-            ))
+            out.append(
+                Finding(
+                    code="heavy_auto_removal",
+                    severity="warning",
+                    text=(
+                        f"Automatic phase I removed {n_auto} of {total} values ({_pct(share)}, "
+                        f"more than {_pct(options.max_auto_removed_share)}){manual}. A sample "
+                        "trimmed this much describes the kept values, not the process: the removed "
+                        "values may be the tail of the distribution rather than special causes. "
+                        "Find the cause of each removal and record it with a reason, or analyse "
+                        "with --phase1 off."
+                    ),
+                )
+            )
         if kept < options.min_kept_values:
-            out.append(Finding(
-                code="too_few_after_removal", severity="warning",
-                text=(f"Automatic phase I left {kept} values (fewer than "
-                      f"{options.min_kept_values}){manual}: too few to judge capability from."),
-            ))
+            out.append(
+                Finding(
+                    code="too_few_after_removal",
+                    severity="warning",
+                    text=(
+                        f"Automatic phase I left {kept} values (fewer than "
+                        f"{options.min_kept_values}){manual}: too few to judge capability from."
+                    ),
+                )
+            )
     return tuple(out)
 
 
@@ -977,24 +1021,28 @@ def _withhold(verdict, withheld: tuple):
     reasons = []
     for f in withheld:
         if f.code.startswith("order_"):
-            reasons.append("stability could not be judged from the order of the data (the "
-                           "values are not in production order)")
+            reasons.append(
+                "stability could not be judged from the order of the data (the "
+                "values are not in production order)"
+            )
         elif f.code == "heavy_auto_removal":
-            reasons.append("automatic phase I removed more of the values than the stated "
-                           "share")
+            reasons.append("automatic phase I removed more of the values than the stated share")
         elif f.code == "too_few_after_removal":
             reasons.append("automatic phase I left too few values")
     if verdict.meets is None and verdict.text.startswith("No verdict"):
         text = verdict.text + f" No verdict either because {'; '.join(reasons)}."
     else:
-        text = (f"No verdict: {'; '.join(reasons)} (see the findings). For information only, "
-                f"{name} would be {est} with lower {verdict.level:.0%} bound {low} against the "
-                f"required {verdict.threshold:g}.")
+        text = (
+            f"No verdict: {'; '.join(reasons)} (see the findings). For information only, "
+            f"{name} would be {est} with lower {verdict.level:.0%} bound {low} against the "
+            f"required {verdict.threshold:g}."
+        )
     return replace(verdict, meets=None, text=text)
 
 
-def _transformed_capability(x, labels, chart: ControlChart, choice: ModelChoice, *, lsl, usl,
-                            target, level, df_within):
+def _transformed_capability(
+    x, labels, chart: ControlChart, choice: ModelChoice, *, lsl, usl, target, level, df_within
+):
     """Normal-theory capability on the transformed scale (Box-Cox, Johnson)."""
     t = choice.transform
     # Box-Cox: the unit-free form (an increasing affine map of the plain one: the same indices)
@@ -1048,9 +1096,15 @@ class _TransformedNormal:
         self._inverse = getattr(transform, "scaled_inverse", transform.inverse)
         self.mean, self.sd = float(mean), float(sd)
         self.name = choice.name
-        self.parameters = {**{k: v for k, v in choice.parameters.items()
-                              if isinstance(v, int | float) and not isinstance(v, bool)},
-                           "transformed_mean": self.mean, "transformed_sd": self.sd}
+        self.parameters = {
+            **{
+                k: v
+                for k, v in choice.parameters.items()
+                if isinstance(v, int | float) and not isinstance(v, bool)
+            },
+            "transformed_mean": self.mean,
+            "transformed_sd": self.sd,
+        }
         self.family = self
 
     @classmethod
@@ -1065,8 +1119,7 @@ class _TransformedNormal:
                 f"some values lie outside the range of the {choice.label} transformation; "
                 "choose another model."
             )
-        return cls(choice, choice.transform, float(np.mean(y)), float(np.std(y, ddof=1)),
-                   sides)
+        return cls(choice, choice.transform, float(np.mean(y)), float(np.std(y, ddof=1)), sides)
 
     def fit(self, sample):
         """Refit the transformation (as the analysis does) and the normal model to ``sample``."""
@@ -1085,8 +1138,9 @@ class _TransformedNormal:
         y = self.mean + self.sd * z
         lam = getattr(self.transform, "lam_used", None)
         outside = (1.0 + lam * y <= 0) if lam is not None and lam != 0 else np.zeros(y.shape, bool)
-        needed = np.where(np.asarray(q) < 0.5, self.sides[0],
-                          np.where(np.asarray(q) > 0.5, self.sides[1], True))
+        needed = np.where(
+            np.asarray(q) < 0.5, self.sides[0], np.where(np.asarray(q) > 0.5, self.sides[1], True)
+        )
         if np.any(outside & needed):
             # Box-Cox: the transformed normal model puts a point that a specification limit
             # needs beyond the range of the transformation; the original scale has no such
@@ -1119,15 +1173,21 @@ def capability_method_text(capability: Mapping | None, model: Mapping | None) ->
     label = (model or {}).get("label") or name
     transformed = name in _TRANSFORMS
     if capability.get("method") == "normal" and transformed:
-        return (f"indices of the transformed values ({label}): limits and values transformed, "
-                "normal theory on that scale (--transform-indices transformed)")
+        return (
+            f"indices of the transformed values ({label}): limits and values transformed, "
+            "normal theory on that scale (--transform-indices transformed)"
+        )
     if capability.get("method") == "percentile" and transformed:
-        return (f"ISO 22514-2 percentile method on the original scale: the back-transformed "
-                f"0.135 %, 50 % and 99.865 % points of the {label} model "
-                "(--transform-indices percentile)")
+        return (
+            f"ISO 22514-2 percentile method on the original scale: the back-transformed "
+            f"0.135 %, 50 % and 99.865 % points of the {label} model "
+            "(--transform-indices percentile)"
+        )
     if capability.get("method") == "percentile":
-        return ("ISO 22514-2 percentile method on the original scale: the fitted model's "
-                "0.135 %, 50 % and 99.865 % points")
+        return (
+            "ISO 22514-2 percentile method on the original scale: the fitted model's "
+            "0.135 %, 50 % and 99.865 % points"
+        )
     if capability.get("method") == "equivalent_ppm":
         return "equivalent-PPM method: the fitted model's tail shares as z values"
     return "normal theory: the mean with the within and overall standard deviations"
@@ -1194,9 +1254,17 @@ def analyze_characteristic(
     if streams is not None and len(set(np.asarray(streams).tolist())) > 1:
         from studykit.stream_analysis import analyze_streams  # the whole and each stream
 
-        return analyze_streams(data, spec, analyze=analyze_characteristic, criteria=criteria,
-                               sizes=sizes, exclusions=exclusions, options=options, gauge=gauge,
-                               kept=kept)
+        return analyze_streams(
+            data,
+            spec,
+            analyze=analyze_characteristic,
+            criteria=criteria,
+            sizes=sizes,
+            exclusions=exclusions,
+            options=options,
+            gauge=gauge,
+            kept=kept,
+        )
     warn: list[str] = []
     name = data.name
     kind = options.chart or (spec.chart if spec is not None else "auto")
@@ -1217,8 +1285,11 @@ def analyze_characteristic(
                 "give one lot size per count."
             )
     subgroup_size = options.subgroup_size or (spec.subgroup_size if spec is not None else None)
-    if subgroup_size and not attribute and (
-            all_distinct or SubgroupCodes.of(labels).names.size == labels.size):
+    if (
+        subgroup_size
+        and not attribute
+        and (all_distinct or SubgroupCodes.of(labels).names.size == labels.size)
+    ):
         # group consecutive rows, as `studykit check` does: an empty cell stays in its subgroup
         labels = _regroup(labels, int(subgroup_size))
         all_distinct = False
@@ -1249,33 +1320,39 @@ def analyze_characteristic(
         check_resolution(values, name=f"'{printable(name)}'")
 
     # subgroups as integer codes from here on (labels are read only for what is shown)
-    groups = (SubgroupCodes(np.arange(labels.size), labels) if all_distinct
-              else SubgroupCodes.of(labels))
+    groups = (
+        SubgroupCodes(np.arange(labels.size), labels) if all_distinct else SubgroupCodes.of(labels)
+    )
     excl = {}
     for label, why in (exclusions or {}).items():
         excl[str(label)] = why
-    present = set(np.asarray(list(excl), dtype=str)[np.isin(list(excl), groups.names)]
-                  .tolist()) if excl else set()
+    present = (
+        set(np.asarray(list(excl), dtype=str)[np.isin(list(excl), groups.names)].tolist())
+        if excl
+        else set()
+    )
     unknown = [k for k in excl if k not in present]
     if unknown:
-        warn.append(
-            "recorded exclusion(s) for subgroup(s) not in the data: " + ", ".join(unknown)
-        )
+        warn.append("recorded exclusion(s) for subgroup(s) not in the data: " + ", ".join(unknown))
         excl = {k: v for k, v in excl.items() if k not in unknown}
 
     order = None
     if not attribute:
-        manual = (np.isin(labels, list(excl)) if excl
-                  else np.zeros(labels.size, dtype=bool))
+        manual = np.isin(labels, list(excl)) if excl else np.zeros(labels.size, dtype=bool)
         order = order_module.check_order(
-            values[~manual], name=name, unit=data.unit or (spec.unit if spec is not None else None),
+            values[~manual],
+            name=name,
+            unit=data.unit or (spec.unit if spec is not None else None),
             has_times=getattr(data, "times", None) is not None,
         )
     order_flagged = order is not None and order.flagged
     requested = options.model or (spec.model if spec is not None else None) or "auto"
     has_limits = spec is not None and (spec.lsl is not None or spec.usl is not None)
-    rescale = (_model_scale(requested, bool(options.rank_models))
-               if has_limits and not attribute and requested != "normal" else None)
+    rescale = (
+        _model_scale(requested, bool(options.rank_models))
+        if has_limits and not attribute and requested != "normal"
+        else None
+    )
     chart_kw = {}
     if attribute:
         chart_kw["laney"] = options.laney
@@ -1345,8 +1422,17 @@ def analyze_characteristic(
     if attribute:
         if not np.any(np.asarray(chart.location.sigma) > 0):
             warn.extend(w for w in chart.warnings if w not in warn)  # the centre-line chart
-        return _attribute_result(common, chart, x, size_arr[kept_mask] if size_arr is not None
-                                 else None, kept_labels, warn, level, crit, withheld)
+        return _attribute_result(
+            common,
+            chart,
+            x,
+            size_arr[kept_mask] if size_arr is not None else None,
+            kept_labels,
+            warn,
+            level,
+            crit,
+            withheld,
+        )
 
     mean = float(np.mean(x))
     overall = float(np.std(x, ddof=1)) if x.size > 1 else None
@@ -1379,8 +1465,9 @@ def analyze_characteristic(
 
     # the model phase I settled on for exactly these values (its last round), when there is one
     last = getattr(rescale, "last", None)
-    reuse = last is not None and last["values"].shape == x.shape and np.array_equal(
-        last["values"], x)
+    reuse = (
+        last is not None and last["values"].shape == x.shape and np.array_equal(last["values"], x)
+    )
     ad = last["ad"] if reuse else normality_module.anderson_darling(x)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UserWarning)  # scipy: p-value may be inaccurate, N > 5000
@@ -1403,8 +1490,9 @@ def analyze_characteristic(
     if reuse:
         choice, ranking, notes = last["choice"], last["ranking"], list(last["notes"])
     else:
-        choice, ranking, notes = _choose_model(x, requested, ad, spec.lsl, spec.usl,
-                                               rank=bool(options.rank_models))
+        choice, ranking, notes = _choose_model(
+            x, requested, ad, spec.lsl, spec.usl, rank=bool(options.rank_models)
+        )
     warn.extend(notes)
     df_within = _df_within(stat_chart)
     if choice.transform is not None and options.transform_indices == "percentile":
@@ -1421,8 +1509,15 @@ def analyze_characteristic(
         )
     elif choice.transform is not None:
         cap = _transformed_capability(
-            x, kept_labels, stat_chart, choice, lsl=spec.lsl, usl=spec.usl, target=spec.target,
-            level=level, df_within=df_within,
+            x,
+            kept_labels,
+            stat_chart,
+            choice,
+            lsl=spec.lsl,
+            usl=spec.usl,
+            target=spec.target,
+            level=level,
+            df_within=df_within,
         )
     else:
         cap = capability(
@@ -1439,17 +1534,17 @@ def analyze_characteristic(
         )
     index = crit["index"]
     judged_index = index
-    if getattr(cap, index) is None and index in ("cpk", "cp") and (
-        choice.fitted is not None or cap.method != "normal"
+    if (
+        getattr(cap, index) is None
+        and index in ("cpk", "cp")
+        and (choice.fitted is not None or cap.method != "normal")
     ):
         judged_index = {"cpk": "ppk", "cp": "pp"}[index]
         warn.append(
             f"{index.capitalize()} is not defined for the fitted {choice.label} model; the "
             f"verdict uses {judged_index.capitalize()} by the percentile method"
         )
-    verdict = judge(
-        cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"]
-    )
+    verdict = judge(cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"])
     findings = list(
         diagnose(
             cap,
@@ -1472,24 +1567,44 @@ def analyze_characteristic(
         from studykit import intervals
 
         ti = intervals.criterion_interval(
-            x, lsl=spec.lsl, usl=spec.usl, model_name=choice.name,
-            coverage=crit["interval_coverage"], confidence=crit["interval_confidence"])
+            x,
+            lsl=spec.lsl,
+            usl=spec.usl,
+            model_name=choice.name,
+            coverage=crit["interval_coverage"],
+            confidence=crit["interval_confidence"],
+        )
         verdict = intervals.judge_with_interval(verdict, ti)
         interval = intervals.interval_block(ti)
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
-    measurement_error = _measurement_error(gauge, mean=mean, within=within, df_within=df_within,
-                                           overall=overall, n=int(x.size), spec=spec, level=level,
-                                           model=choice.name)
+    measurement_error = _measurement_error(
+        gauge,
+        mean=mean,
+        within=within,
+        df_within=df_within,
+        overall=overall,
+        n=int(x.size),
+        spec=spec,
+        level=level,
+        model=choice.name,
+    )
     if measurement_error is not None and measurement_error["warnings"]:
-        findings.append(Finding(
-            code="gauge_error_large", severity="warning",
-            text=" ".join(measurement_error["warnings"])))
+        findings.append(
+            Finding(
+                code="gauge_error_large",
+                severity="warning",
+                text=" ".join(measurement_error["warnings"]),
+            )
+        )
     band = _model_band(x, spec, ranking, ad, judged_index, crit["threshold"], level)
     plan = None
-    if verdict.estimate is not None and verdict.meets is False and judged_index in (
-        "cp", "cpk", "pp", "ppk"
-    ) and verdict.estimate > crit["threshold"]:
+    if (
+        verdict.estimate is not None
+        and verdict.meets is False
+        and judged_index in ("cp", "cpk", "pp", "ppk")
+        and verdict.estimate > crit["threshold"]
+    ):
         try:
             plan = planning_module.parts_needed(
                 verdict.estimate, crit["threshold"], index=judged_index, level=level
@@ -1498,6 +1613,7 @@ def analyze_characteristic(
             plan = None
     result_kw.pop("findings", None)
     from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
+
     # the recorded removals (an automatic phase I would trim a trend as special causes)
     time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
     findings.extend(time_findings)
@@ -1524,10 +1640,11 @@ def _signal_summary(chart: ControlChart) -> str:
             continue
         for sig in series.signals:
             labels = [str(_label(chart.labels[int(p)])) for p in sig.triggers or (sig.trigger,)]
-            parts.append(f"{names.rule_label(sig.rule)} on the "
-                         f"{names.chart_part_label(chart.kind, name)} at subgroup(s) "
-                         f"{', '.join(labels[:6])}"
-                         + (" ..." if len(labels) > 6 else ""))
+            parts.append(
+                f"{names.rule_label(sig.rule)} on the "
+                f"{names.chart_part_label(chart.kind, name)} at subgroup(s) "
+                f"{', '.join(labels[:6])}" + (" ..." if len(labels) > 6 else "")
+            )
     return "; ".join(parts[:5]) + (f"; and {len(parts) - 5} more" if len(parts) > 5 else "")
 
 
@@ -1539,26 +1656,38 @@ def _chance_signals(chart: ControlChart, verdict, beyond, chance: Mapping):
     parts = []
     for name, c in chance.items():
         if c.beyond_limits:
-            parts.append(f"{c.beyond_limits} on the {name} chart of {c.points} points, about "
-                         f"{c.expected:.1f} expected by chance (P(at least that many) = "
-                         f"{c.p_value:.2g}; its removal limits are crossed by a stable process "
-                         f"with probability {c.fap:.1%} over the whole chart)")
+            parts.append(
+                f"{c.beyond_limits} on the {name} chart of {c.points} points, about "
+                f"{c.expected:.1f} expected by chance (P(at least that many) = "
+                f"{c.p_value:.2g}; its removal limits are crossed by a stable process "
+                f"with probability {c.fap:.1%} over the whole chart)"
+            )
     others = n - len(beyond)
     finding = Finding(
-        code="chance_signals", severity="info",
-        text=(f"{len(beyond)} point(s) lie beyond the 3-sigma control limits of the final chart: "
-              + "; ".join(parts) + ". None lies beyond the removal limits and no count is more "
-              "than chance gives: they are not treated as special causes and stay in the "
-              "analysis."
-              + (f" The chart also has {others} run-rule signal(s); with every run rule on, a "
-                 "long stable series raises such signals now and then." if others else "")),
+        code="chance_signals",
+        severity="info",
+        text=(
+            f"{len(beyond)} point(s) lie beyond the 3-sigma control limits of the final chart: "
+            + "; ".join(parts)
+            + ". None lies beyond the removal limits and no count is more "
+            "than chance gives: they are not treated as special causes and stay in the "
+            "analysis."
+            + (
+                f" The chart also has {others} run-rule signal(s); with every run rule on, a "
+                "long stable series raises such signals now and then."
+                if others
+                else ""
+            )
+        ),
     )
     if verdict is None:
         return finding, None
     return finding, replace(
-        verdict, text=verdict.text + f" Read it with the {n} signal(s) on the final chart in "
-                                     f"mind ({len(beyond)} beyond the control limits, as many "
-                                     "as chance gives; see the findings).")
+        verdict,
+        text=verdict.text + f" Read it with the {n} signal(s) on the final chart in "
+        f"mind ({len(beyond)} beyond the control limits, as many "
+        "as chance gives; see the findings).",
+    )
 
 
 def _not_in_control(chart: ControlChart, verdict, chance: Mapping | None = None):
@@ -1576,25 +1705,32 @@ def _not_in_control(chart: ControlChart, verdict, chance: Mapping | None = None)
         return _chance_signals(chart, verdict, beyond, chance)
     where = _signal_summary(chart)
     finding = Finding(
-        code="not_in_control" if beyond else "run_rule_signals", severity="warning",
-        text=(f"The process is not shown to be in statistical control: the final chart has {n} "
-              f"signal(s) ({where}). Capability indices describe a stable process only; find "
-              "the special causes and record each removal with its reason, or record why the "
-              "signals are not special causes, before relying on the indices."),
+        code="not_in_control" if beyond else "run_rule_signals",
+        severity="warning",
+        text=(
+            f"The process is not shown to be in statistical control: the final chart has {n} "
+            f"signal(s) ({where}). Capability indices describe a stable process only; find "
+            "the special causes and record each removal with its reason, or record why the "
+            "signals are not special causes, before relying on the indices."
+        ),
     )
     if verdict is None:
         return finding, None
     if not beyond:
         return finding, replace(
-            verdict, text=verdict.text + f" Read it with the {n} run-rule signal(s) on the final "
-                                         "chart in mind (see the findings).")
+            verdict,
+            text=verdict.text + f" Read it with the {n} run-rule signal(s) on the final "
+            "chart in mind (see the findings).",
+        )
     est = "-" if verdict.estimate is None else f"{verdict.estimate:.2f}"
     low = "-" if verdict.lower_bound is None else f"{verdict.lower_bound:.2f}"
     name = _PRETTY_INDEX.get(verdict.index, verdict.index)
-    text = (f"No verdict: {len(beyond)} point(s) still lie beyond the control limits of the "
-            f"final chart, so the process is not shown to be in statistical control. For "
-            f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
-            f"against the required {verdict.threshold:g}.")
+    text = (
+        f"No verdict: {len(beyond)} point(s) still lie beyond the control limits of the "
+        f"final chart, so the process is not shown to be in statistical control. For "
+        f"information only, {name} would be {est} with lower {verdict.level:.0%} bound {low} "
+        f"against the required {verdict.threshold:g}."
+    )
     return finding, replace(verdict, meets=None, text=text)
 
 
@@ -1615,14 +1751,21 @@ def _kept_rows(chart: ControlChart, kept: Mapping | None):
             for lab in _signal_labels(chart, sig):
                 covered.add((lab, sig.rule))
     rows = []
-    for (label, rule), info in sorted(kept.items(), key=lambda kv: (_label_sort(kv[0][0]),
-                                                                   kv[0][1])):
+    for (label, rule), info in sorted(
+        kept.items(), key=lambda kv: (_label_sort(kv[0][0]), kv[0][1])
+    ):
         info = dict(info or {})
-        rows.append({"subgroup": str(label), "rule": str(rule),
-                     "reason": str(info.get("reason", "")), "who": str(info.get("who", "")),
-                     "when": str(info.get("when", "")),
-                     "origin": str(info.get("origin", "person")),
-                     "on_chart": (str(label), str(rule)) in covered})
+        rows.append(
+            {
+                "subgroup": str(label),
+                "rule": str(rule),
+                "reason": str(info.get("reason", "")),
+                "who": str(info.get("who", "")),
+                "when": str(info.get("when", "")),
+                "origin": str(info.get("origin", "person")),
+                "on_chart": (str(label), str(rule)) in covered,
+            }
+        )
     return tuple(rows), {(r["subgroup"], r["rule"]) for r in rows}
 
 
@@ -1654,26 +1797,42 @@ def _signals_with_kept(chart: ControlChart, verdict, kept_keys, kept_rows, chanc
     if open_loc or open_disp:
         open_chart = replace(
             chart,
-            location=None if chart.location is None else replace(chart.location,
-                                                                 signals=tuple(open_loc)),
-            dispersion=None if chart.dispersion is None else replace(chart.dispersion,
-                                                                     signals=tuple(open_disp)))
+            location=None
+            if chart.location is None
+            else replace(chart.location, signals=tuple(open_loc)),
+            dispersion=None
+            if chart.dispersion is None
+            else replace(chart.dispersion, signals=tuple(open_disp)),
+        )
         finding, verdict = _not_in_control(open_chart, verdict, chance)
         findings.append(finding)
     on_chart = [r for r in kept_rows if r["on_chart"]]
     if on_chart:
-        listed = "; ".join(f"{r['rule']} at subgroup {r['subgroup']} ({r['reason']}, "
-                           f"{r['who'] or 'unknown'})" for r in on_chart[:8])
+        listed = "; ".join(
+            f"{r['rule']} at subgroup {r['subgroup']} ({r['reason']}, {r['who'] or 'unknown'})"
+            for r in on_chart[:8]
+        )
         more = f"; and {len(on_chart) - 8} more" if len(on_chart) > 8 else ""
-        findings.append(Finding(
-            code="signals_kept", severity="info",
-            text=(f"{len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
-                  f"recorded reason (not a special cause, or a known common cause): {listed}"
-                  f"{more}. The subgroups stay in the analysis.")))
+        findings.append(
+            Finding(
+                code="signals_kept",
+                severity="info",
+                text=(
+                    f"{len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
+                    f"recorded reason (not a special cause, or a known common cause): {listed}"
+                    f"{more}. The subgroups stay in the analysis."
+                ),
+            )
+        )
         if verdict is not None and not (open_loc or open_disp):
-            verdict = replace(verdict, text=verdict.text + (
-                f" {len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
-                "reason (see the findings)."))
+            verdict = replace(
+                verdict,
+                text=verdict.text
+                + (
+                    f" {len(reviewed)} signal(s) on the final chart were reviewed and kept with a "
+                    "reason (see the findings)."
+                ),
+            )
     return findings, verdict
 
 
@@ -1697,8 +1856,10 @@ def _check_counts(data, values, sizes, kind):
         if v < 0 or v != np.floor(v):
             raise AnalysisError(
                 f"'{_fmt_num(v)}' is not a count: a {kind} chart needs whole numbers of defectives "
-                "or defects, 0 or more; check that this is the count column", row=row_of(i),
-                column=name, value=_fmt_num(v),
+                "or defects, 0 or more; check that this is the count column",
+                row=row_of(i),
+                column=name,
+                value=_fmt_num(v),
             )
         if sizes is None:
             continue
@@ -1708,13 +1869,17 @@ def _check_counts(data, values, sizes, kind):
         if n <= 0:
             raise AnalysisError(
                 f"the subgroup size is '{_fmt_num(n)}'; sizes must be greater than 0",
-                row=row_of(i), column="size column", value=_fmt_num(n),
+                row=row_of(i),
+                column="size column",
+                value=_fmt_num(n),
             )
         if kind in ("p", "np") and v > n:
             raise AnalysisError(
                 f"{_fmt_num(v)} defectives in a subgroup of {_fmt_num(n)}: a count cannot exceed "
-                "its subgroup size; check the count and size columns", row=row_of(i),
-                column=name, value=_fmt_num(v),
+                "its subgroup size; check the count and size columns",
+                row=row_of(i),
+                column=name,
+                value=_fmt_num(v),
             )
 
 
@@ -1734,19 +1899,29 @@ def _gauge_finding(gauge: Mapping):
     message = verdict.get("message", "")
     if status == "not_checked":
         return Finding(
-            code="gauge_not_checked", severity="warning",
+            code="gauge_not_checked",
+            severity="warning",
             text="No gauge study is attached for this characteristic: the measurement system "
-                 "was not checked, so part of the spread may be measurement error.",
+            "was not checked, so part of the spread may be measurement error.",
         )
     if status in ("unacceptable", "not_acceptable", "fail", "failed"):
-        return Finding(code="gauge_failed", severity="warning",
-                       text="The gauge study for this characteristic failed: " + message)
+        return Finding(
+            code="gauge_failed",
+            severity="warning",
+            text="The gauge study for this characteristic failed: " + message,
+        )
     if status in ("conditional", "conditionally_acceptable", "marginal"):
-        return Finding(code="gauge_conditional", severity="caution",
-                       text="The gauge study for this characteristic is only conditionally "
-                            "acceptable: " + message)
-    return Finding(code="gauge_checked", severity="info",
-                   text="Gauge study for this characteristic: " + message)
+        return Finding(
+            code="gauge_conditional",
+            severity="caution",
+            text="The gauge study for this characteristic is only conditionally "
+            "acceptable: " + message,
+        )
+    return Finding(
+        code="gauge_checked",
+        severity="info",
+        text="Gauge study for this characteristic: " + message,
+    )
 
 
 def _measurement_error(gauge, *, mean, within, df_within, overall, n, spec, level, model):
@@ -1762,15 +1937,26 @@ def _measurement_error(gauge, *, mean, within, df_within, overall, n, spec, leve
         return None
     try:
         res = me_module.remove_gauge_variance(
-            gauge_sigma=found[0], gauge_df=found[1], mean=mean, lsl=spec.lsl, usl=spec.usl,
-            within_sigma=within, within_df=df_within, overall_sigma=overall, n=n,
-            confidence=level)
+            gauge_sigma=found[0],
+            gauge_df=found[1],
+            mean=mean,
+            lsl=spec.lsl,
+            usl=spec.usl,
+            within_sigma=within,
+            within_df=df_within,
+            overall_sigma=overall,
+            n=n,
+            confidence=level,
+        )
     except StudyInputError:
         return None
     out = res.to_dict()
-    out["model_note"] = (None if model == "normal" else
-                         f"The study's indices use the {model} model; the observed and "
-                         "process-only indices here are normal-theory figures from the sigmas.")
+    out["model_note"] = (
+        None
+        if model == "normal"
+        else f"The study's indices use the {model} model; the observed and "
+        "process-only indices here are normal-theory figures from the sigmas."
+    )
     return out
 
 
@@ -1824,8 +2010,7 @@ def _model_band(x, spec, ranking, ad_normal, index, threshold, level):
     return model_band(values, threshold)
 
 
-def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=None,
-                      withheld=()):
+def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=None, withheld=()):
     kind = chart.kind
     verdict = None
     if kind in ("p", "np"):
@@ -1833,7 +2018,10 @@ def _attribute_result(common, chart, counts, sizes, labels, warn, level, crit=No
         crit = crit or _criteria_dict(None)
         # pass/fail data are judged by the exact bound on the defective rate (process Z / 3)
         verdict = attribute_module.attribute_verdict(
-            ac, threshold=crit["threshold"], basis=crit["basis"], index=crit["index"],
+            ac,
+            threshold=crit["threshold"],
+            basis=crit["basis"],
+            index=crit["index"],
         )
     else:
         units = sizes if sizes is not None else np.ones_like(counts)
@@ -1874,9 +2062,15 @@ def _kept(study, name) -> dict:
     kept_signals = getattr(study, "kept_signals", None)
     if kept_signals is None:
         return {}
-    return {key: {"reason": d.reason, "who": d.who, "when": d.when,
-                  "origin": d.payload.get("origin", "person")}
-            for key, d in kept_signals(name).items()}
+    return {
+        key: {
+            "reason": d.reason,
+            "who": d.who,
+            "when": d.when,
+            "origin": d.payload.get("origin", "person"),
+        }
+        for key, d in kept_signals(name).items()
+    }
 
 
 def recorded_exclusions(study, name) -> dict:
@@ -1899,8 +2093,7 @@ class StudyMeasurements:
 
         self.study = study
         self.files = {
-            name: read_measurements_bytes(data, name, **read_options)
-            for name, data in study.files
+            name: read_measurements_bytes(data, name, **read_options) for name, data in study.files
         }
 
     @property
@@ -1927,8 +2120,14 @@ def read_study_measurements(study, **read_options) -> StudyMeasurements:
     return StudyMeasurements(study, **read_options)
 
 
-def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptions | None = None,
-                  gauge: Mapping | None = None) -> CharacteristicResult:
+def analyze_study(
+    study,
+    name: str,
+    *,
+    measurements=None,
+    options: AnalysisOptions | None = None,
+    gauge: Mapping | None = None,
+) -> CharacteristicResult:
     """Analyse characteristic ``name`` of a saved study with its recorded decisions.
 
     The chart and model settings recorded in the study (``set_chart``, ``set_model``) apply
@@ -1946,8 +2145,11 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
     sizes = None
     if spec.size_column:
         source = study.source_of(name) if isinstance(measurements, StudyMeasurements) else None
-        sizes = (measurements.get(spec.size_column, source=source) if source
-                 else measurements.get(spec.size_column))
+        sizes = (
+            measurements.get(spec.size_column, source=source)
+            if source
+            else measurements.get(spec.size_column)
+        )
     options = options or AnalysisOptions()
     chart = options.chart or study.chart_for(name)
     model = options.model or study.model_for(name)
@@ -1965,9 +2167,14 @@ def analyze_study(study, name: str, *, measurements=None, options: AnalysisOptio
     )
 
 
-def analyze_all(study, *, measurements=None, options: AnalysisOptions | None = None,
-                progress: Callable[[int, int, str], None] | None = None,
-                gauges: Mapping | None = None) -> StudyResult:
+def analyze_all(
+    study,
+    *,
+    measurements=None,
+    options: AnalysisOptions | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+    gauges: Mapping | None = None,
+) -> StudyResult:
     """Analyse every characteristic of ``study``; one failure never stops the others.
 
     ``progress(done, total, name)`` is called after each characteristic. ``gauges`` maps
@@ -1981,7 +2188,11 @@ def analyze_all(study, *, measurements=None, options: AnalysisOptions | None = N
         try:
             gauge = None if gauges is None else gauges.get(name, NO_GAUGE)
             results[name] = analyze_study(
-                study, name, measurements=measurements, options=options, gauge=gauge,
+                study,
+                name,
+                measurements=measurements,
+                options=options,
+                gauge=gauge,
             )
         except StudyInputError as exc:
             errors[name] = str(exc)

@@ -219,7 +219,11 @@ def _analyse_task(task: _Task, options) -> dict:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             res = analyze_characteristic(
-                data, spec, criteria=crit, sizes=task.sizes, exclusions=task.exclusions,
+                data,
+                spec,
+                criteria=crit,
+                sizes=task.sizes,
+                exclusions=task.exclusions,
                 options=options,
             )
         row = result_row(res, note=task.note)
@@ -240,7 +244,7 @@ def _run_chunk(tasks: list, options_dict: dict) -> list:
 
 
 def _chunks(items: list, size: int) -> list:
-    return [items[i:i + size] for i in range(0, len(items), size)]
+    return [items[i : i + size] for i in range(0, len(items), size)]
 
 
 # ----------------------------------------------------------------------------- building tasks
@@ -254,8 +258,9 @@ def _spec_map(specs) -> dict:
     return {c.name: c for c in specs}
 
 
-def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mapping,
-                 names: Iterable[str] | None) -> list[_Task]:
+def _build_tasks(
+    measurements, specs: dict, criteria: Mapping, exclusions: Mapping, names: Iterable[str] | None
+) -> list[_Task]:
     from studykit.study import match_to_data
 
     size_columns = {c.size_column for c in specs.values() if c is not None and c.size_column}
@@ -269,12 +274,15 @@ def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mappi
         try:
             measurements.get(c.name)
         except StudyInputError:
-            spec_errors[c.name] = (f"the specs table names '{c.name}', which is not in the "
-                                   "data: correct the name or remove the row")
+            spec_errors[c.name] = (
+                f"the specs table names '{c.name}', which is not in the "
+                "data: correct the name or remove the row"
+            )
             continue
         try:
-            (matched,), crit = match_to_data([c], {c.name: criteria[key]} if key in criteria
-                                             else {}, measurements)
+            (matched,), crit = match_to_data(
+                [c], {c.name: criteria[key]} if key in criteria else {}, measurements
+            )
         except StudyInputError as exc:
             spec_errors[c.name] = str(exc)
             continue
@@ -304,20 +312,23 @@ def _build_tasks(measurements, specs: dict, criteria: Mapping, exclusions: Mappi
             except StudyInputError as exc:
                 tasks.append(_Task(name=data.name, error=str(exc)))
                 continue
-        no_limits = spec is None or (spec.lsl is None and spec.usl is None
-                                     and not spec.is_attribute)
-        tasks.append(_Task(
-            name=data.name,
-            unit=data.unit,
-            values=np.asarray(data.values, dtype=float),
-            subgroups=np.asarray(data.subgroups),
-            sizes=sizes,
-            spec=None if spec is None else spec.to_dict(),
-            criteria=None if crit is None else crit.to_dict(),
-            exclusions=dict(exclusions.get(data.name, {})) or None,
-            note=NO_SPEC_NOTE if no_limits else None,
-            streams=getattr(data, "streams", None),
-        ))
+        no_limits = spec is None or (
+            spec.lsl is None and spec.usl is None and not spec.is_attribute
+        )
+        tasks.append(
+            _Task(
+                name=data.name,
+                unit=data.unit,
+                values=np.asarray(data.values, dtype=float),
+                subgroups=np.asarray(data.subgroups),
+                sizes=sizes,
+                spec=None if spec is None else spec.to_dict(),
+                criteria=None if crit is None else crit.to_dict(),
+                exclusions=dict(exclusions.get(data.name, {})) or None,
+                note=NO_SPEC_NOTE if no_limits else None,
+                streams=getattr(data, "streams", None),
+            )
+        )
     return tasks
 
 
@@ -410,8 +421,9 @@ def run_many(
 
     options = options or AnalysisOptions()
     options_dict = {f.name: getattr(options, f.name) for f in fields(options)}
-    tasks = _build_tasks(measurements, _spec_map(specs), dict(criteria or {}),
-                         dict(exclusions or {}), names)
+    tasks = _build_tasks(
+        measurements, _spec_map(specs), dict(criteria or {}), dict(exclusions or {}), names
+    )
     total = len(tasks)
     if jobs is not None and (isinstance(jobs, bool) or int(jobs) < 1):
         raise StudyInputError(f"`jobs` ({jobs!r}) must be a whole number of at least 1")
@@ -435,8 +447,9 @@ def run_many(
         else:
             rows = _run_processes(chunks, options_dict, jobs, progress, total)
             backend = "processes"
-    return BatchResult(rows=tuple(rows), jobs=jobs, backend=backend,
-                       seconds=time.perf_counter() - started)
+    return BatchResult(
+        rows=tuple(rows), jobs=jobs, backend=backend, seconds=time.perf_counter() - started
+    )
 
 
 def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
@@ -453,8 +466,9 @@ def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
     results: list = [None] * len(chunks)
     done = 0
     with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
-        futures = {pool.submit(_run_chunk, chunk, options_dict): i
-                   for i, chunk in enumerate(chunks)}
+        futures = {
+            pool.submit(_run_chunk, chunk, options_dict): i for i, chunk in enumerate(chunks)
+        }
         for fut in as_completed(futures):
             i = futures[fut]
             results[i] = fut.result()
@@ -473,8 +487,11 @@ def _run_dask(tasks, options_dict, scheduler, progress, chunk_size) -> list:
         ) from None
     own = not isinstance(scheduler, Client)
     try:
-        client = (Client(scheduler, set_as_default=False, timeout=DASK_CONNECT_TIMEOUT)
-                  if own else scheduler)
+        client = (
+            Client(scheduler, set_as_default=False, timeout=DASK_CONNECT_TIMEOUT)
+            if own
+            else scheduler
+        )
     except (OSError, TimeoutError, ValueError) as exc:
         raise StudyInputError(
             f"`scheduler` ({scheduler!r}): no Dask scheduler answers at that address ({exc}); "

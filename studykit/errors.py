@@ -61,8 +61,7 @@ class StudyInputError(ValueError):
     escape sequences) are written as escapes (:func:`printable`).
     """
 
-    def __init__(self, message: str, *, file=None, row=None, column=None, value=None,
-                 sheet=None):
+    def __init__(self, message: str, *, file=None, row=None, column=None, value=None, sheet=None):
         self.file = None if file is None else str(file)
         self.sheet = None if sheet is None else str(sheet)
         self.row = row

@@ -85,8 +85,9 @@ def write_csv(path, rows: Iterable[Sequence], *, header: Sequence | None = None)
     return path
 
 
-def write_xlsx(path, rows: Iterable[Sequence], *, header: Sequence | None = None,
-               sheet: str = "studykit") -> Path:
+def write_xlsx(
+    path, rows: Iterable[Sequence], *, header: Sequence | None = None, sheet: str = "studykit"
+) -> Path:
     """Write an XLSX workbook with one sheet; text cells are neutralised and stored as text.
 
     openpyxl would otherwise store a string starting with ``=`` as a formula; after

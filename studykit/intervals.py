@@ -18,8 +18,15 @@ from __future__ import annotations
 from studykit.errors import AnalysisError
 from studykit.stats.tolerance import ToleranceInterval, tolerance_interval
 
-__all__ = ["INTERVAL_MODEL", "criterion_interval", "criterion_text", "interval_block",
-           "interval_for_result", "interval_model_for", "judge_with_interval"]
+__all__ = [
+    "INTERVAL_MODEL",
+    "criterion_interval",
+    "criterion_text",
+    "interval_block",
+    "interval_for_result",
+    "interval_model_for",
+    "judge_with_interval",
+]
 
 #: The interval computed for each model of the analysis: normal theory for a normal model, the
 #: back-transformed interval for lognormal and Box-Cox, distribution-free for every other model
@@ -40,8 +47,14 @@ def interval_model_for(model_name: str | None) -> str:
     return INTERVAL_MODEL.get(model_name, "distribution_free")
 
 
-def interval_for_result(result, *, coverage: float = 0.95, confidence: float = 0.95,
-                        power: float = 0.9, model: str | None = None) -> ToleranceInterval:
+def interval_for_result(
+    result,
+    *,
+    coverage: float = 0.95,
+    confidence: float = 0.95,
+    power: float = 0.9,
+    model: str | None = None,
+) -> ToleranceInterval:
     """Tolerance interval of the values a capability result used, against its specification.
 
     Parameters
@@ -81,18 +94,36 @@ def interval_for_result(result, *, coverage: float = 0.95, confidence: float = 0
     ('normal', True, True)
     """
     if result.attribute:
-        raise AnalysisError(f"'{result.characteristic}' is counted (attribute) data; a "
-                            "tolerance interval needs measured values.")
+        raise AnalysisError(
+            f"'{result.characteristic}' is counted (attribute) data; a "
+            "tolerance interval needs measured values."
+        )
     chosen = model or interval_model_for(None if result.model is None else result.model.name)
     lsl = result.spec.get("lsl")
     usl = result.spec.get("usl")
     sides = 1 if (lsl is None) != (usl is None) else 2
-    return tolerance_interval(result.values, coverage=coverage, confidence=confidence,
-                              sides=sides, model=chosen, lsl=lsl, usl=usl, power=power)
+    return tolerance_interval(
+        result.values,
+        coverage=coverage,
+        confidence=confidence,
+        sides=sides,
+        model=chosen,
+        lsl=lsl,
+        usl=usl,
+        power=power,
+    )
 
 
-def criterion_interval(values, *, lsl, usl, model_name: str | None, coverage: float,
-                       confidence: float, power: float = 0.9) -> ToleranceInterval:
+def criterion_interval(
+    values,
+    *,
+    lsl,
+    usl,
+    model_name: str | None,
+    coverage: float,
+    confidence: float,
+    power: float = 0.9,
+) -> ToleranceInterval:
     """The interval an acceptance criterion "at least P within specification with C" judges.
 
     Two-sided against two limits, one-sided on the side of a single limit, on the scale of the
@@ -100,15 +131,24 @@ def criterion_interval(values, *, lsl, usl, model_name: str | None, coverage: fl
     criterion is set; :func:`interval_for_result` gives the same interval from a result.
     """
     sides = 1 if (lsl is None) != (usl is None) else 2
-    return tolerance_interval(values, coverage=coverage, confidence=confidence, sides=sides,
-                              model=interval_model_for(model_name), lsl=lsl, usl=usl,
-                              power=power)
+    return tolerance_interval(
+        values,
+        coverage=coverage,
+        confidence=confidence,
+        sides=sides,
+        model=interval_model_for(model_name),
+        lsl=lsl,
+        usl=usl,
+        power=power,
+    )
 
 
 def criterion_text(coverage: float, confidence: float) -> str:
     """``at least 99% of parts within specification with 95% confidence``."""
-    return (f"at least {coverage * 100:g}% of parts within specification with "
-            f"{confidence * 100:g}% confidence")
+    return (
+        f"at least {coverage * 100:g}% of parts within specification with "
+        f"{confidence * 100:g}% confidence"
+    )
 
 
 def judge_with_interval(verdict, interval: ToleranceInterval):
@@ -145,8 +185,10 @@ def judge_with_interval(verdict, interval: ToleranceInterval):
         part = f"The tolerance-interval criterion ({crit}) cannot be judged: {interval.statement}"
         meets = None if verdict.meets is not False else False
     else:
-        part = (f"The tolerance-interval criterion ({crit}) is not met: {interval.statement} "
-                "That reaches beyond the specification.")
+        part = (
+            f"The tolerance-interval criterion ({crit}) is not met: {interval.statement} "
+            "That reaches beyond the specification."
+        )
         meets = False if verdict.meets is not None else None
     return replace(verdict, meets=meets, text=f"{verdict.text} {part}")
 
@@ -154,5 +196,6 @@ def judge_with_interval(verdict, interval: ToleranceInterval):
 def interval_block(interval: ToleranceInterval) -> dict:
     """The ``tolerance_interval`` block of the analysis JSON: the interval's fields and the
     criterion in words."""
-    return dict(interval.to_dict(),
-                criterion=criterion_text(interval.coverage, interval.confidence))
+    return dict(
+        interval.to_dict(), criterion=criterion_text(interval.coverage, interval.confidence)
+    )

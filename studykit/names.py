@@ -78,12 +78,19 @@ DEFAULT_CONFIDENCE = 0.95
 
 #: Default acceptance criterion before launch: Ppk lower 95 % bound >= 1.67 (common practice,
 #: no source; the customer's requirement governs).
-DEFAULT_CRITERION: Mapping = {"index": "ppk", "threshold": 1.67, "basis": "lower_bound",
-                              "confidence": DEFAULT_CONFIDENCE}
+DEFAULT_CRITERION: Mapping = {
+    "index": "ppk",
+    "threshold": 1.67,
+    "basis": "lower_bound",
+    "confidence": DEFAULT_CONFIDENCE,
+}
 #: Default criterion in series production: Cpk >= 1.33 (common practice, no source).
-DEFAULT_ONGOING_CRITERION: Mapping = {"index": "cpk", "threshold": 1.33,
-                                      "basis": "lower_bound",
-                                      "confidence": DEFAULT_CONFIDENCE}
+DEFAULT_ONGOING_CRITERION: Mapping = {
+    "index": "cpk",
+    "threshold": 1.33,
+    "basis": "lower_bound",
+    "confidence": DEFAULT_CONFIDENCE,
+}
 
 
 def confidence_of(confidence=None, *, level=None, alpha=None, default=DEFAULT_CONFIDENCE):
@@ -96,11 +103,15 @@ def confidence_of(confidence=None, *, level=None, alpha=None, default=DEFAULT_CO
     >>> confidence_of(None), confidence_of(0.9), confidence_of(level=0.99), confidence_of(alpha=0.1)
     (0.95, 0.9, 0.99, 0.9)
     """
-    given = [v for v in (confidence, level, None if alpha is None else 1.0 - float(alpha))
-             if v is not None]
+    given = [
+        v
+        for v in (confidence, level, None if alpha is None else 1.0 - float(alpha))
+        if v is not None
+    ]
     if len(given) > 1 and any(abs(float(g) - float(given[0])) > 1e-12 for g in given):
-        raise ValueError("give the confidence level once (`confidence`), not also as "
-                         "`level` or `alpha`")
+        raise ValueError(
+            "give the confidence level once (`confidence`), not also as `level` or `alpha`"
+        )
     return float(given[0]) if given else default
 
 
@@ -138,6 +149,7 @@ def result_kind_label(kind: str) -> str:
     """``"gauge_rr"`` -> ``"gauge R&R study"``."""
     return RESULT_KINDS.get(kind, f"{str(kind).replace('_', ' ')} result")
 
+
 # ----------------------------------------------------------------------------- charts
 
 #: Chart kind id -> the name people see (trade terms).
@@ -174,9 +186,10 @@ def chart_kind_id(text: str) -> str:
     for kid, label in CHART_KINDS.items():
         if key in (kid.replace("_", ""), "".join(c for c in label.lower() if c.isalnum())):
             return kid
-    raise ValueError(f"chart kind {text!r} is not known; use auto or one of "
-                     + ", ".join(f"{lab} ({kid.replace('_', '-')})"
-                                 for kid, lab in CHART_KINDS.items()))
+    raise ValueError(
+        f"chart kind {text!r} is not known; use auto or one of "
+        + ", ".join(f"{lab} ({kid.replace('_', '-')})" for kid, lab in CHART_KINDS.items())
+    )
 
 
 def chart_kind_label(kind: str) -> str:
@@ -187,7 +200,8 @@ def chart_kind_label(kind: str) -> str:
 def chart_part_label(kind: str, part: str) -> str:
     """``chart_part_label("xbar_r", "location")`` -> ``"subgroup mean chart"``."""
     return CHART_PARTS.get(kind, {}).get(part) or (
-        "upper chart" if part == "location" else "lower chart")
+        "upper chart" if part == "location" else "lower chart"
+    )
 
 
 # ----------------------------------------------------------------------------- run rules
@@ -286,11 +300,9 @@ def model_list(models) -> str:
 # ----------------------------------------------------------------------------- sign-off
 
 #: Sign-off role id -> name (ours).
-ROLES: Mapping[str, str] = {"prepared": "Author", "reviewed": "Reviewer",
-                            "approved": "Approver"}
+ROLES: Mapping[str, str] = {"prepared": "Author", "reviewed": "Reviewer", "approved": "Approver"}
 #: Sign-off decision id -> name (ours).
-DECISIONS: Mapping[str, str] = {"approve": "Approve", "reject": "Reject",
-                                "comment": "Comment only"}
+DECISIONS: Mapping[str, str] = {"approve": "Approve", "reject": "Reject", "comment": "Comment only"}
 #: Whether a sign-off still covers the study as it is now (ours): one word each.
 SIGNOFF_VALID, SIGNOFF_VOIDED = "Valid", "Voided"
 
@@ -303,6 +315,7 @@ def role_label(role: str) -> str:
 def decision_label(decision: str) -> str:
     """``"approve"`` -> ``"Approve"``."""
     return DECISIONS.get(decision, decision)
+
 
 #: Recorded decision (audit) action id -> what it says (ours). One verb for taking a subgroup
 #: out of the analysis: "remove" (the removal log; "restore" undoes it).
@@ -440,8 +453,12 @@ def verdict_state(result) -> str:
         return "meets"
     if meets is False:
         est, thr = _get(verdict, "estimate"), _get(verdict, "threshold")
-        if (_get(verdict, "basis") == "lower_bound" and est is not None and thr is not None
-                and est >= thr):
+        if (
+            _get(verdict, "basis") == "lower_bound"
+            and est is not None
+            and thr is not None
+            and est >= thr
+        ):
             return "not_demonstrated"
         return "does_not_meet"
     codes = [_get(f, "code") for f in (_get(result, "findings") or ())]
@@ -538,14 +555,30 @@ def raw_ids() -> tuple[str, ...]:
     threshold-family codes, and their spellings with the underscore as a space.
     """
     ids = set()
-    for table in (RULE_LABELS, BOUND_METHODS, MODEL_LABELS, FINDING_TITLES, VERDICT_STATES,
-                  CHART_KINDS):
+    for table in (
+        RULE_LABELS,
+        BOUND_METHODS,
+        MODEL_LABELS,
+        FINDING_TITLES,
+        VERDICT_STATES,
+        CHART_KINDS,
+    ):
         for key in table:
             if "_" in key or key[-1].isdigit() or key in ("sev", "lev", "imr", "halfnormal"):
                 ids.add(key)
     for table in (RULE_LABELS, BOUND_METHODS):
         ids.update(key.replace("_", " ") for key in table if "_" in key)
     # spellings of ids seen in earlier versions' text
-    ids.update(("gauge rr", "gauge_rr", "location chart", "dispersion chart", "(nelson rules)",
-                "lower_bound", "normal_score", "part_to_part"))
+    ids.update(
+        (
+            "gauge rr",
+            "gauge_rr",
+            "location chart",
+            "dispersion chart",
+            "(nelson rules)",
+            "lower_bound",
+            "normal_score",
+            "part_to_part",
+        )
+    )
     return tuple(sorted(ids))

@@ -20,16 +20,30 @@ import numpy as np
 
 from studykit.errors import StudyInputError
 
-__all__ = ["POSITION_KIND", "position_payload", "position_result", "recheck_position",
-           "stored_positions"]
+__all__ = [
+    "POSITION_KIND",
+    "position_payload",
+    "position_result",
+    "recheck_position",
+    "stored_positions",
+]
 
 #: Kind under which a position study is attached to a study file.
 POSITION_KIND = "position"
 
 
-def position_payload(name: str, dx, dy, *, tolerance: float, unit: str | None = None,
-                     source_file: str | None = None, columns: Mapping | None = None,
-                     safety_critical: bool = False, description: str = "") -> dict:
+def position_payload(
+    name: str,
+    dx,
+    dy,
+    *,
+    tolerance: float,
+    unit: str | None = None,
+    source_file: str | None = None,
+    columns: Mapping | None = None,
+    safety_critical: bool = False,
+    description: str = "",
+) -> dict:
     """The JSON payload that keeps a position study in a study file.
 
     Computes the study once (so a bad input is refused before anything is stored) and keeps
@@ -68,9 +82,11 @@ def position_result(payload: Mapping):
     """The :class:`~studykit.stats.position.PositionResult` recomputed from a payload."""
     from studykit.stats.position import position_study
 
-    return position_study(np.asarray(payload["dx"], dtype=float),
-                          np.asarray(payload["dy"], dtype=float),
-                          tolerance=payload["tolerance"])
+    return position_study(
+        np.asarray(payload["dx"], dtype=float),
+        np.asarray(payload["dy"], dtype=float),
+        tolerance=payload["tolerance"],
+    )
 
 
 def recheck_position(payload: Mapping) -> dict:

@@ -53,7 +53,7 @@ __all__ = [
 RULE_TEXT = {
     "distinct_signers": "one person may not sign two roles",
     "approval_needs_verdicts": "an approval needs every characteristic to have a verdict, or a "
-                               "recorded waiver with a reason",
+    "recorded waiver with a reason",
     "rejection_needs_reason": "a rejection records its reason",
 }
 assert set(RULE_TEXT) == set(DEFAULT_SIGNOFF_RULES)  # noqa: S101 - a programming check
@@ -111,29 +111,38 @@ def check_signoff(study: Study, signoff: SignOff, *, open_verdicts: Mapping[str,
     the store checks in the same transaction that the content is still the one analysed).
     """
     rules = study.signoff_rules()
-    if rules.get("rejection_needs_reason") and signoff.decision == "reject" \
-            and not signoff.comment.strip():
+    if (
+        rules.get("rejection_needs_reason")
+        and signoff.decision == "reject"
+        and not signoff.comment.strip()
+    ):
         raise SignOffRefused(
             "a rejection needs its reason: say in the comment what must change (sign-off rule "
-            "'rejection_needs_reason')")
+            "'rejection_needs_reason')"
+        )
     if rules.get("distinct_signers"):
         me = _person(signoff.name)
         for st in study.signoff_state():
             other = st.signoff
-            if st.valid and _person(other.name) == me and \
-                    other.role.strip().casefold() != signoff.role.strip().casefold():
+            if (
+                st.valid
+                and _person(other.name) == me
+                and other.role.strip().casefold() != signoff.role.strip().casefold()
+            ):
                 raise SignOffRefused(
                     f"{other.name} already signed this study as {other.role} ({other.when}); "
                     f"one person may not also sign as {signoff.role} (sign-off rule "
                     "'distinct_signers'). Ask another person to sign this role, or record a "
-                    "change of the rule with its reason")
+                    "change of the rule with its reason"
+                )
     if rules.get("approval_needs_verdicts") and signoff.is_approval and open_verdicts:
         listed = "; ".join(f"{n}: {w}" for n, w in open_verdicts.items())
         raise SignOffRefused(
             f"an approval needs every characteristic to have a verdict, and "
             f"{len(open_verdicts)} {'has' if len(open_verdicts) == 1 else 'have'} none ("
             f"{listed}). Settle them (more data, a recorded decision) or record a waiver with "
-            "its reason for each, then approve (sign-off rule 'approval_needs_verdicts')")
+            "its reason for each, then approve (sign-off rule 'approval_needs_verdicts')"
+        )
 
 
 def make_check(open_verdicts_: Mapping[str, str]) -> Callable[[Study, SignOff], None]:
@@ -146,8 +155,9 @@ def make_check(open_verdicts_: Mapping[str, str]) -> Callable[[Study, SignOff], 
     return check
 
 
-def analyse_for_signoff(study: Study, *, gauges: Mapping | None = None,
-                        needed: bool = True) -> dict[str, object]:
+def analyse_for_signoff(
+    study: Study, *, gauges: Mapping | None = None, needed: bool = True
+) -> dict[str, object]:
     """Every characteristic's result (or error text), for :func:`open_verdicts`.
 
     Only computed when ``needed`` (an approval under ``approval_needs_verdicts``); else empty.
@@ -160,8 +170,9 @@ def analyse_for_signoff(study: Study, *, gauges: Mapping | None = None,
     out: dict[str, object] = {}
     for name in study.characteristic_names:
         try:
-            out[name] = analyze_study(study, name, measurements=measurements,
-                                      gauge=(gauges or {}).get(name, NO_GAUGE))
+            out[name] = analyze_study(
+                study, name, measurements=measurements, gauge=(gauges or {}).get(name, NO_GAUGE)
+            )
         except StudyInputError as exc:
             out[name] = str(exc)
     return out

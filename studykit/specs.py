@@ -25,16 +25,29 @@ __all__ = ["SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
 
 #: columns of a specifications table (CSV); only ``characteristic`` is required
 SPEC_COLUMNS = (
-    "characteristic", "unit", "lsl", "usl", "target", "safety_critical", "criterion",
-    "threshold", "basis", "confidence", "chart", "subgroup_size", "size_column", "model",
+    "characteristic",
+    "unit",
+    "lsl",
+    "usl",
+    "target",
+    "safety_critical",
+    "criterion",
+    "threshold",
+    "basis",
+    "confidence",
+    "chart",
+    "subgroup_size",
+    "size_column",
+    "model",
     "description",
 )
 _TRUE = {"1", "yes", "y", "true", "x", "ja", "j", "safety", "sc"}
 _FALSE = {"", "0", "no", "n", "false", "nein"}
 
 
-def read_specs_bytes(data: bytes, filename: str = "specs.csv"
-                     ) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+def read_specs_bytes(
+    data: bytes, filename: str = "specs.csv"
+) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
     """Read a specifications table (CSV) into characteristics and criteria.
 
     Columns (header names, any case): ``characteristic`` (required), ``unit``, ``lsl``,
@@ -70,8 +83,11 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
     # (row number as a spreadsheet shows it, text) of each non-blank line
     numbered = [(i, ln) for i, ln in enumerate(text.splitlines(), start=1) if ln.strip()]
     if not numbered:
-        raise SpecError("the specifications table is empty: it needs a header row with at least "
-                        "a 'characteristic' column", file=filename)
+        raise SpecError(
+            "the specifications table is empty: it needs a header row with at least "
+            "a 'characteristic' column",
+            file=filename,
+        )
     first = numbered[0][1]
     sep = ";" if first.count(";") > first.count(",") else ","
     rows = [next(csv.reader([ln], delimiter=sep), []) for _, ln in numbered]
@@ -81,11 +97,16 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
     if unknown:
         raise SpecError(
             f"unknown column(s) {', '.join(repr(u) for u in unknown)}: the columns are "
-            f"{', '.join(SPEC_COLUMNS)}", file=filename, row=row_numbers[0],
+            f"{', '.join(SPEC_COLUMNS)}",
+            file=filename,
+            row=row_numbers[0],
         )
     if "characteristic" not in header:
-        raise SpecError("the header needs a 'characteristic' column naming each characteristic",
-                        file=filename, row=row_numbers[0])
+        raise SpecError(
+            "the header needs a 'characteristic' column naming each characteristic",
+            file=filename,
+            row=row_numbers[0],
+        )
     chars: list[Characteristic] = []
     criteria: dict[str, Criteria] = {}
     seen: dict[str, int] = {}
@@ -97,35 +118,54 @@ def read_specs_bytes(data: bytes, filename: str = "specs.csv"
                     cell[key] = cell[key].replace(",", ".")
         name = cell.get("characteristic", "")
         if not name:
-            raise SpecError("the characteristic name is empty", file=filename, row=r,
-                            column="characteristic")
+            raise SpecError(
+                "the characteristic name is empty", file=filename, row=r, column="characteristic"
+            )
         if name in seen:
-            raise SpecError(f"'{name}' is listed twice (rows {seen[name]} and {r}): keep one row",
-                            file=filename, row=r, column="characteristic")
+            raise SpecError(
+                f"'{name}' is listed twice (rows {seen[name]} and {r}): keep one row",
+                file=filename,
+                row=r,
+                column="characteristic",
+            )
         seen[name] = r
         flag = cell.get("safety_critical", "").lower()
         if flag not in _TRUE | _FALSE:
-            raise SpecError(f"`safety_critical` ({cell['safety_critical']!r}) must be yes or no",
-                            file=filename, row=r, column="safety_critical")
+            raise SpecError(
+                f"`safety_critical` ({cell['safety_critical']!r}) must be yes or no",
+                file=filename,
+                row=r,
+                column="safety_critical",
+            )
         size = cell.get("subgroup_size", "")
         try:
             size_value = int(size) if size else None
         except ValueError:
-            raise SpecError(f"`subgroup_size` ({size!r}) must be a whole number", file=filename,
-                            row=r, column="subgroup_size") from None
+            raise SpecError(
+                f"`subgroup_size` ({size!r}) must be a whole number",
+                file=filename,
+                row=r,
+                column="subgroup_size",
+            ) from None
         try:
             c = Characteristic(
-                name, unit=cell.get("unit") or None, lsl=cell.get("lsl"), usl=cell.get("usl"),
-                target=cell.get("target"), safety_critical=flag in _TRUE,
-                chart=cell.get("chart") or "auto", subgroup_size=size_value,
+                name,
+                unit=cell.get("unit") or None,
+                lsl=cell.get("lsl"),
+                usl=cell.get("usl"),
+                target=cell.get("target"),
+                safety_critical=flag in _TRUE,
+                chart=cell.get("chart") or "auto",
+                subgroup_size=size_value,
                 size_column=cell.get("size_column") or None,
                 model=check_model(cell.get("model") or "auto"),
                 description=cell.get("description", ""),
             )
             if c.chart != "auto":
                 check_chart_fits(c, c.chart)
-            crit_cells = {k: cell.get(k, "") for k in ("criterion", "threshold", "basis",
-                                                       "confidence")}
+            crit_cells = {
+                k: cell.get(k, "") for k in ("criterion", "threshold", "basis", "confidence")
+            }
             if any(crit_cells.values()):
                 kw = {}
                 if crit_cells["criterion"]:
@@ -155,8 +195,9 @@ def read_specs(path) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
     return read_specs_bytes(p.read_bytes(), p.name)
 
 
-def match_to_data(characteristics: Iterable[Characteristic], criteria: Mapping[str, Criteria],
-                  measurements) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+def match_to_data(
+    characteristics: Iterable[Characteristic], criteria: Mapping[str, Criteria], measurements
+) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
     """Check that every specified characteristic is in the data; adopt the data's names/units.
 
     ``measurements`` is a :class:`studykit.data.Measurements` (anything with ``names`` and
@@ -176,20 +217,24 @@ def match_to_data(characteristics: Iterable[Characteristic], criteria: Mapping[s
             raise SpecError(
                 f"the specifications name '{c.name}', which is not in the data (the data have: "
                 f"{', '.join(repr(n) for n in measurements.names)}): correct the name",
-                column="characteristic", value=c.name,
+                column="characteristic",
+                value=c.name,
             ) from None
         unit = c.unit
         if unit and found.unit and unit.strip().casefold() != found.unit.strip().casefold():
             raise SpecError(
                 f"characteristic '{c.name}': the specifications give unit '{unit}' but the data "
-                f"say '{found.unit}': convert one of them so both agree", column="unit",
+                f"say '{found.unit}': convert one of them so both agree",
+                column="unit",
             )
         new = dataclasses.replace(c, name=found.name, unit=unit or found.unit)
         if c.size_column is not None and c.size_column not in measurements.names:
             raise SpecError(
                 f"characteristic '{c.name}': the size column '{c.size_column}' is not in the "
                 f"data (the data have: {', '.join(repr(n) for n in measurements.names)}): "
-                "correct the name", column="size_column", value=c.size_column,
+                "correct the name",
+                column="size_column",
+                value=c.size_column,
             )
         _check_chart_against_counts(new, found)
         out.append(new)
@@ -210,11 +255,13 @@ def _check_chart_against_counts(c: Characteristic, found) -> None:
         raise SpecError(
             f"characteristic '{c.name}': the data have subgroups of up to {largest} values; the "
             "individuals chart (imr) needs one value per subgroup. Use auto, xbar_r or xbar_s",
-            column="chart", value=c.chart,
+            column="chart",
+            value=c.chart,
         )
     if c.chart in ("xbar_r", "xbar_s") and largest == 1 and not (c.subgroup_size or 1) > 1:
         raise SpecError(
             f"characteristic '{c.name}': the data hold one value per subgroup; the {c.chart} "
             "chart needs subgroups of 2 or more. Use auto or imr, or give a subgroup_size",
-            column="chart", value=c.chart,
+            column="chart",
+            value=c.chart,
         )

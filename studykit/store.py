@@ -114,8 +114,15 @@ def _migrate_0_to_1(conn: sqlite3.Connection) -> None:
         "CREATE TABLE audit_log (id INTEGER PRIMARY KEY AUTOINCREMENT, at TEXT NOT NULL, "
         "who TEXT NOT NULL, what TEXT NOT NULL, why TEXT NOT NULL, detail_json TEXT NOT NULL)"
     )
-    for table in ("meta", "data_files", "characteristics", "decisions", "comments", "signoffs",
-                  "audit_log"):
+    for table in (
+        "meta",
+        "data_files",
+        "characteristics",
+        "decisions",
+        "comments",
+        "signoffs",
+        "audit_log",
+    ):
         _append_only(conn, table)
 
 
@@ -148,18 +155,24 @@ def _migrate_2_to_3(conn: sqlite3.Connection) -> None:
             row = dict(row, prev_hash=prev, rows_json="[]")
             row.pop("entry_hash", None)
             h = _entry_hash(row)
-            conn.execute("UPDATE audit_log SET prev_hash = ?, rows_json = ?, entry_hash = ? "
-                         "WHERE id = ?", (prev, "[]", h, row["id"]))
+            conn.execute(
+                "UPDATE audit_log SET prev_hash = ?, rows_json = ?, entry_hash = ? WHERE id = ?",
+                (prev, "[]", h, row["id"]),
+            )
             prev = h
         conn.execute(
             "CREATE TRIGGER audit_log_no_update BEFORE UPDATE ON audit_log BEGIN SELECT "
-            "RAISE(ABORT, 'audit_log is append-only: entries cannot be changed'); END")
+            "RAISE(ABORT, 'audit_log is append-only: entries cannot be changed'); END"
+        )
     _chain_begin(conn, claim_existing=True)
 
 
 #: MIGRATIONS[v] brings a file from schema v to v + 1; the last one reached is SCHEMA_VERSION
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_0_to_1, _migrate_1_to_2,
-                                                          _migrate_2_to_3]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [
+    _migrate_0_to_1,
+    _migrate_1_to_2,
+    _migrate_2_to_3,
+]
 SCHEMA_VERSION = len(MIGRATIONS)
 
 
@@ -170,7 +183,6 @@ def _apply_migrations(conn: sqlite3.Connection, start: int, stop: int = SCHEMA_V
         conn.execute(f"PRAGMA user_version = {version + 1}")
 
 
-
 # ---------------------------------------------------------------------------------------------
 # the hash chain over the audit log
 
@@ -178,8 +190,16 @@ def _apply_migrations(conn: sqlite3.Connection, start: int, stop: int = SCHEMA_V
 CHAIN_GENESIS = "0" * 64
 _CHAIN_FORMAT = "studykit-chain-1"
 #: tables made append-only by the migrations (their guards are checked by check_chain)
-_GUARDED = ("meta", "data_files", "characteristics", "decisions", "comments", "signoffs",
-            "audit_log", "results")
+_GUARDED = (
+    "meta",
+    "data_files",
+    "characteristics",
+    "decisions",
+    "comments",
+    "signoffs",
+    "audit_log",
+    "results",
+)
 
 
 class _ChainConnection(sqlite3.Connection):
@@ -190,8 +210,9 @@ class _ChainConnection(sqlite3.Connection):
 
 
 def _canonical_json(obj) -> str:
-    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                      allow_nan=False)
+    return json.dumps(
+        obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
+    )
 
 
 def _encode_value(v):
@@ -224,9 +245,13 @@ def _entry_hash(entry: Mapping) -> str:
 
 def _chained_tables(conn) -> list[str]:
     """Every table whose rows the chain covers: all but the audit log and SQLite's own."""
-    return [r[0] for r in conn.execute(
-        "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%' "
-        "AND name != 'audit_log' ORDER BY name")]
+    return [
+        r[0]
+        for r in conn.execute(
+            "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%' "
+            "AND name != 'audit_log' ORDER BY name"
+        )
+    ]
 
 
 def _key_columns(conn, table: str) -> list[str]:
@@ -238,8 +263,10 @@ def _table_rows(conn, table: str, *, order: str = "_rowid_", after: int | None =
     """Rows of ``table`` as dicts with every column (plus ``_rowid_`` under ``"_sk_rowid_"``
     when ``after`` is given)."""
     where = "" if after is None else " WHERE _rowid_ > ?"
-    cur = conn.execute(f'SELECT _rowid_ AS "_sk_rowid_", * FROM "{table}"{where} ORDER BY {order}',
-                       () if after is None else (after,))
+    cur = conn.execute(
+        f'SELECT _rowid_ AS "_sk_rowid_", * FROM "{table}"{where} ORDER BY {order}',
+        () if after is None else (after,),
+    )
     names = [d[0] for d in cur.description]
     out = []
     for values in cur:
@@ -262,8 +289,11 @@ def _chain_begin(conn, *, claim_existing: bool = False) -> None:
     (or, with ``claim_existing``, none is: the next audit entry claims them all)."""
     marks = {}
     for t in _chained_tables(conn):
-        marks[t] = 0 if claim_existing else conn.execute(
-            f'SELECT coalesce(max(_rowid_), 0) FROM "{t}"').fetchone()[0]
+        marks[t] = (
+            0
+            if claim_existing
+            else conn.execute(f'SELECT coalesce(max(_rowid_), 0) FROM "{t}"').fetchone()[0]
+        )
     try:
         conn.chain_marks = marks
     except AttributeError:  # a plain sqlite3 connection (should not happen): no claiming
@@ -281,8 +311,9 @@ def _claim_new_rows(conn) -> list[dict]:
         for row in _table_rows(conn, t, after=marks.get(t, 0)):
             rowid = row.pop("_sk_rowid_")
             marks[t] = max(marks.get(t, 0), rowid)
-            refs.append({"table": t, "key": _row_key(keys, row, rowid),
-                         "sha256": _row_hash(t, row)})
+            refs.append(
+                {"table": t, "key": _row_key(keys, row, rowid), "sha256": _row_hash(t, row)}
+            )
     return refs
 
 
@@ -301,23 +332,46 @@ def _chain_finish(conn) -> None:
     refs = _claim_new_rows(conn)
     if refs:
         tables = sorted({r["table"] for r in refs})
-        _append_entry(conn, who="studykit", what=f"store {len(refs)} row(s) in "
-                      + ", ".join(tables), why="", detail={}, refs=refs)
+        _append_entry(
+            conn,
+            who="studykit",
+            what=f"store {len(refs)} row(s) in " + ", ".join(tables),
+            why="",
+            detail={},
+            refs=refs,
+        )
     conn.chain_marks = None
 
 
-def _append_entry(conn, *, who: str, what: str, why: str, detail: Mapping, when: str | None = None,
-                  refs: list | None = None) -> int:
+def _append_entry(
+    conn,
+    *,
+    who: str,
+    what: str,
+    why: str,
+    detail: Mapping,
+    when: str | None = None,
+    refs: list | None = None,
+) -> int:
     if refs is None:
         refs = _claim_new_rows(conn)
     last_id, prev = _chain_tail(conn)
-    entry = {"id": last_id + 1, "at": when or now_utc(), "who": who or "unknown", "what": what,
-             "why": why or "", "detail_json": _dumps(dict(detail or {})), "prev_hash": prev,
-             "rows_json": _canonical_json(refs)}
+    entry = {
+        "id": last_id + 1,
+        "at": when or now_utc(),
+        "who": who or "unknown",
+        "what": what,
+        "why": why or "",
+        "detail_json": _dumps(dict(detail or {})),
+        "prev_hash": prev,
+        "rows_json": _canonical_json(refs),
+    }
     entry["entry_hash"] = _entry_hash(entry)
     cols = list(entry)
-    conn.execute(f"INSERT INTO audit_log ({', '.join(cols)}) VALUES "
-                 f"({', '.join('?' for _ in cols)})", [entry[c] for c in cols])
+    conn.execute(
+        f"INSERT INTO audit_log ({', '.join(cols)}) VALUES ({', '.join('?' for _ in cols)})",
+        [entry[c] for c in cols],
+    )
     return entry["id"]
 
 
@@ -342,21 +396,37 @@ class ChainCheck:
     def summary(self) -> str:
         """One line: the chain holds, or the first break (and how many more)."""
         if self.ok:
-            return (f"audit chain intact: {self.entries} entries over {self.rows} rows, head "
-                    f"{self.head[:20]}...")
-        more = f" (and {len(self.problems) - 1} more problem(s))" if len(self.problems) > 1 \
-            else ""
+            return (
+                f"audit chain intact: {self.entries} entries over {self.rows} rows, head "
+                f"{self.head[:20]}..."
+            )
+        more = f" (and {len(self.problems) - 1} more problem(s))" if len(self.problems) > 1 else ""
         return f"audit chain BROKEN: {self.problems[0][1]}{more}"
 
     def to_dict(self) -> dict:
-        return {"ok": self.ok, "entries": self.entries, "head": self.head, "rows": self.rows,
-                "problems": [{"entry": e, "problem": p} for e, p in self.problems]}
+        return {
+            "ok": self.ok,
+            "entries": self.entries,
+            "head": self.head,
+            "rows": self.rows,
+            "problems": [{"entry": e, "problem": p} for e, p in self.problems],
+        }
 
 
 def _describe_row(table: str, row: Mapping) -> str:
     bits = []
-    for k in ("name", "role", "decision", "action", "characteristic", "subgroup", "kind",
-              "filename", "key", "who"):
+    for k in (
+        "name",
+        "role",
+        "decision",
+        "action",
+        "characteristic",
+        "subgroup",
+        "kind",
+        "filename",
+        "key",
+        "who",
+    ):
         v = row.get(k)
         if v not in (None, ""):
             bits.append(f"{k} {str(v)[:40]!r}")
@@ -380,8 +450,11 @@ def _rows_with_known_blobs(conn, table: str, known: Mapping):
         row["_sk_rowid_"] = values[0]
         have = known.get(row[keys[0]])
         if have is None or any(b not in have for b in blobs):
-            full = conn.execute(f'SELECT {", ".join(chr(34) + b + chr(34) for b in blobs)} '
-                                f'FROM "{table}" WHERE _rowid_ = ?', (values[0],)).fetchone()
+            full = conn.execute(
+                f"SELECT {', '.join(chr(34) + b + chr(34) for b in blobs)} "
+                f'FROM "{table}" WHERE _rowid_ = ?',
+                (values[0],),
+            ).fetchone()
             row.update(zip(blobs, full, strict=True))
         else:
             for b in blobs:
@@ -404,8 +477,9 @@ _SIGNOFF_SIGNATURE_FORMAT = "studykit-signoff-signature-1"
 def _signoff_payload(row: Mapping) -> bytes:
     """What a sign-off's certificate signature covers: the sign-off as written (who, role,
     decision, comment, time, content digest) and the chain head it signed."""
-    body = {k: row.get(k) for k in ("name", "role", "decision", "comment", "at", "digest",
-                                    "chain_head")}
+    body = {
+        k: row.get(k) for k in ("name", "role", "decision", "comment", "at", "digest", "chain_head")
+    }
     return _canonical_json({"format": _SIGNOFF_SIGNATURE_FORMAT, "signoff": body}).encode()
 
 
@@ -436,18 +510,24 @@ def sign_signoff_payload(payload: bytes, p12_path, passphrase) -> dict:
             f"the certificate in '{p12.name}' is not valid now (valid "
             f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ} to "
             f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}): a sign-off signed with it would "
-            "not be evidence")
+            "not be evidence"
+        )
     if isinstance(key, rsa.RSAPrivateKey):
         value, alg = key.sign(payload, padding.PKCS1v15(), hashes.SHA256()), "rsa-pkcs1v15-sha256"
     elif isinstance(key, ec.EllipticCurvePrivateKey):
         value, alg = key.sign(payload, ec.ECDSA(hashes.SHA256())), "ecdsa-sha256"
     else:
-        raise StudyInputError(f"'{p12.name}' holds a {type(key).__name__}: studykit signs "
-                              "sign-offs with RSA or EC keys")
-    return {"format": _SIGNOFF_SIGNATURE_FORMAT, "algorithm": alg,
-            "certificate_pem": cert.public_bytes(serialization.Encoding.PEM).decode("ascii"),
-            "fingerprint_sha256": cert.fingerprint(hashes.SHA256()).hex(),
-            "value": base64.b64encode(value).decode("ascii")}
+        raise StudyInputError(
+            f"'{p12.name}' holds a {type(key).__name__}: studykit signs "
+            "sign-offs with RSA or EC keys"
+        )
+    return {
+        "format": _SIGNOFF_SIGNATURE_FORMAT,
+        "algorithm": alg,
+        "certificate_pem": cert.public_bytes(serialization.Encoding.PEM).decode("ascii"),
+        "fingerprint_sha256": cert.fingerprint(hashes.SHA256()).hex(),
+        "value": base64.b64encode(value).decode("ascii"),
+    }
 
 
 @dataclass(frozen=True)
@@ -486,10 +566,12 @@ def _check_signoff_signature(index: int, row: Mapping, record) -> SignoffSignatu
     try:
         cert = x509.load_pem_x509_certificate(str(record["certificate_pem"]).encode("ascii"))
         fp = cert.fingerprint(hashes.SHA256()).hex().upper()
-        info = dict(subject=cert.subject.rfc4514_string(),
-                    fingerprint_sha256=":".join(fp[i:i + 2] for i in range(0, len(fp), 2)),
-                    not_before=f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ}",
-                    not_after=f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}")
+        info = dict(
+            subject=cert.subject.rfc4514_string(),
+            fingerprint_sha256=":".join(fp[i : i + 2] for i in range(0, len(fp), 2)),
+            not_before=f"{cert.not_valid_before_utc:%Y-%m-%dT%H:%M:%SZ}",
+            not_after=f"{cert.not_valid_after_utc:%Y-%m-%dT%H:%M:%SZ}",
+        )
         value = base64.b64decode(str(record["value"]), validate=True)
         pub = cert.public_key()
         payload = _signoff_payload(row)
@@ -500,14 +582,22 @@ def _check_signoff_signature(index: int, row: Mapping, record) -> SignoffSignatu
         else:
             return SignoffSignature(index, "INVALID", **info, why="unsupported key type")
     except InvalidSignature:
-        return SignoffSignature(index, "INVALID", **info, why="the sign-off or its chain head "
-                                "differs from what the certificate's key signed")
+        return SignoffSignature(
+            index,
+            "INVALID",
+            **info,
+            why="the sign-off or its chain head differs from what the certificate's key signed",
+        )
     except (KeyError, TypeError, ValueError) as exc:
         return SignoffSignature(index, "INVALID", why=f"unreadable signature ({exc})")
     when = str(row.get("at") or "")
     if when and not info["not_before"] <= when <= info["not_after"]:
-        return SignoffSignature(index, "INVALID", **info, why=f"the certificate was not valid "
-                                f"at the sign-off's time {when}")
+        return SignoffSignature(
+            index,
+            "INVALID",
+            **info,
+            why=f"the certificate was not valid at the sign-off's time {when}",
+        )
     return SignoffSignature(index, "valid", **info)
 
 
@@ -540,8 +630,12 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
     problems: list[tuple] = []
     cols = {r[1] for r in conn.execute("PRAGMA table_info(audit_log)")}
     if not {"prev_hash", "rows_json", "entry_hash"} <= cols:
-        return ChainCheck(0, "", 0, ((None, "the audit log has no hash chain (the file was not "
-                                      "brought to schema 3)"),))
+        return ChainCheck(
+            0,
+            "",
+            0,
+            ((None, "the audit log has no hash chain (the file was not brought to schema 3)"),),
+        )
     entries = _table_rows(conn, "audit_log", order="id")
     claimed: dict = {}
     hashes: dict[int, str] = {}
@@ -551,16 +645,25 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
         stored = e.get("entry_hash")
         where = f"audit entry {eid} ({str(e.get('what'))[:60]!r} by {e.get('who')})"
         if not stored:
-            problems.append((eid, f"{where} carries no chain hash: it was added outside "
-                             "studykit"))
+            problems.append((eid, f"{where} carries no chain hash: it was added outside studykit"))
         else:
             if e.get("prev_hash") != prev:
                 after = "the start of the log" if prev_id is None else f"entry {prev_id}"
-                problems.append((eid, f"{where} does not follow {after}: an entry between them "
-                                 "was deleted or inserted outside studykit"))
+                problems.append(
+                    (
+                        eid,
+                        f"{where} does not follow {after}: an entry between them "
+                        "was deleted or inserted outside studykit",
+                    )
+                )
             if _entry_hash(e) != stored:
-                problems.append((eid, f"{where} was changed after it was written (its content "
-                                 "no longer matches its hash)"))
+                problems.append(
+                    (
+                        eid,
+                        f"{where} was changed after it was written (its content "
+                        "no longer matches its hash)",
+                    )
+                )
         hashes[eid] = stored or ""
         prev, prev_id = stored or _entry_hash(e), eid
         try:
@@ -568,8 +671,13 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
             for r in refs:
                 k = (r["table"], _canonical_json(r["key"]))
                 if k in claimed:
-                    problems.append((eid, f"{where} claims {r['table']} row {r['key']} already "
-                                     f"claimed by entry {claimed[k][1]}"))
+                    problems.append(
+                        (
+                            eid,
+                            f"{where} claims {r['table']} row {r['key']} already "
+                            f"claimed by entry {claimed[k][1]}",
+                        )
+                    )
                 claimed[k] = (r["sha256"], eid)
         except (ValueError, TypeError, KeyError):
             problems.append((eid, f"{where} has an unreadable list of rows"))
@@ -578,8 +686,7 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
     for t in _chained_tables(conn):
         keys = _key_columns(conn, t)
         known = (known_blobs or {}).get(t)
-        rows = _rows_with_known_blobs(conn, t, known) if known else \
-            _table_rows(conn, t, after=0)
+        rows = _rows_with_known_blobs(conn, t, known) if known else _table_rows(conn, t, after=0)
         for row in rows:
             rowid = row.pop("_sk_rowid_")
             n_rows += 1
@@ -589,43 +696,73 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
             if t == "signoffs":
                 signoffs.append(row)
             if k not in claimed:
-                problems.append((None, f"{t} row {key} ({_describe_row(t, row)}) is in no audit "
-                                 "entry: it was inserted outside studykit"))
+                problems.append(
+                    (
+                        None,
+                        f"{t} row {key} ({_describe_row(t, row)}) is in no audit "
+                        "entry: it was inserted outside studykit",
+                    )
+                )
                 continue
             want, eid = claimed.pop(k)
             if want != h:
-                problems.append((eid, f"{t} row {key} ({_describe_row(t, row)}), written with "
-                                 f"audit entry {eid}, was changed outside studykit"))
+                problems.append(
+                    (
+                        eid,
+                        f"{t} row {key} ({_describe_row(t, row)}), written with "
+                        f"audit entry {eid}, was changed outside studykit",
+                    )
+                )
     for (t, key), (_, eid) in claimed.items():
-        problems.append((eid, f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
-                         "missing: it was deleted outside studykit"))
+        problems.append(
+            (
+                eid,
+                f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
+                "missing: it was deleted outside studykit",
+            )
+        )
     for row in signoffs:
         head = row.get("chain_head")
         if not head:
             continue
         sid, _, h = str(head).partition(":")
         if not sid.isdigit() or hashes.get(int(sid)) != h:
-            problems.append((None, f"sign-off row {row.get('id')} by {row.get('name')} signed "
-                             f"chain head {str(head)[:24]}..., which is not an entry of this "
-                             "chain: the history before it was rewritten"))
+            problems.append(
+                (
+                    None,
+                    f"sign-off row {row.get('id')} by {row.get('name')} signed "
+                    f"chain head {str(head)[:24]}..., which is not an entry of this "
+                    "chain: the history before it was rewritten",
+                )
+            )
     if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
         for sig in signoff_signatures(conn):
             if sig.status == "INVALID":
-                problems.append((None, f"the certificate signature of sign-off #{sig.index + 1} "
-                                 f"({sig.subject or 'unknown certificate'}) does not hold: "
-                                 f"{sig.why}"))
-    triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = "
-                                           "'trigger'")}
+                problems.append(
+                    (
+                        None,
+                        f"the certificate signature of sign-off #{sig.index + 1} "
+                        f"({sig.subject or 'unknown certificate'}) does not hold: "
+                        f"{sig.why}",
+                    )
+                )
+    triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")}
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
     for t in _GUARDED:
         if t not in tables:
             continue
         for op in ("update", "delete"):
             if f"{t}_no_{op}" not in triggers:
-                problems.append((None, f"the guard against {op}s of {t} "
-                                 f"({t}_no_{op}) was removed outside studykit"))
-    last_id, last = (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries \
-        else (0, CHAIN_GENESIS)
+                problems.append(
+                    (
+                        None,
+                        f"the guard against {op}s of {t} "
+                        f"({t}_no_{op}) was removed outside studykit",
+                    )
+                )
+    last_id, last = (
+        (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries else (0, CHAIN_GENESIS)
+    )
     return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
 
 
@@ -675,8 +812,14 @@ class AuditEntry:
     detail: dict
 
     def to_dict(self) -> dict:
-        return {"id": self.id, "when": self.when, "who": self.who, "what": self.what,
-                "why": self.why, "detail": self.detail}
+        return {
+            "id": self.id,
+            "when": self.when,
+            "who": self.who,
+            "what": self.what,
+            "why": self.why,
+            "detail": self.detail,
+        }
 
 
 @dataclass(frozen=True)
@@ -695,8 +838,14 @@ class StoredResult:
     when: str
 
     def to_dict(self) -> dict:
-        return {"id": self.id, "kind": self.kind, "characteristic": self.characteristic,
-                "payload": self.payload, "who": self.who, "when": self.when}
+        return {
+            "id": self.id,
+            "kind": self.kind,
+            "characteristic": self.characteristic,
+            "payload": self.payload,
+            "who": self.who,
+            "when": self.when,
+        }
 
 
 def _dumps(obj) -> str:
@@ -706,24 +855,33 @@ def _dumps(obj) -> str:
 def _decision_what(d: Decision) -> str:
     on = f" of '{d.characteristic}'" if d.characteristic else ""
     if d.action in ("exclude", "restore"):
-        return (f"{names.action_label(d.action)} subgroup {d.subgroup}{on}"
-                + (" (automatic)" if d.automatic else ""))
+        return f"{names.action_label(d.action)} subgroup {d.subgroup}{on}" + (
+            " (automatic)" if d.automatic else ""
+        )
     if d.action == "keep_signal":
         by = " (rejected proposal)" if d.payload.get("origin") == "rejected_proposal" else ""
-        return (f"keep signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
-                f"{d.subgroup}{on}{by}")
+        return (
+            f"keep signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
+            f"{d.subgroup}{on}{by}"
+        )
     if d.action == "reopen_signal":
-        return (f"reopen signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
-                f"{d.subgroup}{on}")
+        return (
+            f"reopen signal ({names.rule_label(d.payload.get('rule'))}) at subgroup "
+            f"{d.subgroup}{on}"
+        )
     if d.action == "set_spec":
-        changes = ", ".join(f"{k} {d.payload.get('old', {}).get(k)!r} -> {v!r}"
-                            for k, v in d.payload.get("changes", {}).items())
+        changes = ", ".join(
+            f"{k} {d.payload.get('old', {}).get(k)!r} -> {v!r}"
+            for k, v in d.payload.get("changes", {}).items()
+        )
         return f"change specification{on}: {changes}"
     if d.action == "set_criteria":
         return f"set criterion{on}: {_dumps(d.payload.get('criteria'))}"
     if d.action == "void_signoff":
-        return (f"void sign-off #{d.payload.get('signoff')} ({d.payload.get('role')} by "
-                f"{d.payload.get('signer')}) to allow: {d.payload.get('change')}")
+        return (
+            f"void sign-off #{d.payload.get('signoff')} ({d.payload.get('role')} by "
+            f"{d.payload.get('signer')}) to allow: {d.payload.get('change')}"
+        )
     if d.action == "note":
         return f"note{on}"
     return f"{names.action_label(d.action)}{on}: {_dumps(dict(d.payload))}"
@@ -782,10 +940,13 @@ class StudyFile:
                     version = self._check_version(conn)  # another process may have migrated
                     _chain_begin(conn)
                     _apply_migrations(conn, version)
-                    self._audit(conn, who="studykit",
-                                what=f"migrate file from schema {version} to {SCHEMA_VERSION}",
-                                why="opened by a newer studykit",
-                                detail={"studykit": __version__})
+                    self._audit(
+                        conn,
+                        who="studykit",
+                        what=f"migrate file from schema {version} to {SCHEMA_VERSION}",
+                        why="opened by a newer studykit",
+                        detail={"studykit": __version__},
+                    )
                     _chain_finish(conn)
                     conn.execute("COMMIT")
                 except StudyInputError:
@@ -793,8 +954,9 @@ class StudyFile:
                     raise
                 except _DAMAGE as exc:
                     _rollback(conn)
-                    raise StudyFileError(_damaged(self.path, exc) + "; it was not migrated") \
-                        from None
+                    raise StudyFileError(
+                        _damaged(self.path, exc) + "; it was not migrated"
+                    ) from None
                 except BaseException:
                     _rollback(conn)
                     raise
@@ -807,8 +969,10 @@ class StudyFile:
     # -- opening -------------------------------------------------------------------------------
     def _check_header(self) -> None:
         if not self.path.exists():
-            raise StudyFileError(f"study file '{self.path}' does not exist: check the path, or "
-                                 "create it with `studykit study new`")
+            raise StudyFileError(
+                f"study file '{self.path}' does not exist: check the path, or "
+                "create it with `studykit study new`"
+            )
         if self.path.is_dir():
             raise StudyFileError(f"'{self.path}' is a folder, not a study file")
         with open(self.path, "rb") as fh:
@@ -822,16 +986,19 @@ class StudyFile:
     def _not_writable(self) -> str | None:
         """Why this study file cannot be written to (read-only file or folder), else None."""
         if not os.access(self.path.parent, os.W_OK):
-            return (f"the folder '{self.path.parent}' is read-only, and a study file needs its "
-                    "folder writable for its journal")
+            return (
+                f"the folder '{self.path.parent}' is read-only, and a study file needs its "
+                "folder writable for its journal"
+            )
         if not os.access(self.path, os.W_OK):
             return f"the study file '{self.path}' is read-only"
         return None
 
     def _connect(self, *, write: bool = False) -> sqlite3.Connection:
         try:
-            conn = sqlite3.connect(self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None,
-                                   factory=_ChainConnection)
+            conn = sqlite3.connect(
+                self.path, timeout=_BUSY_TIMEOUT_S, isolation_level=None, factory=_ChainConnection
+            )
             conn.execute(f"PRAGMA busy_timeout = {int(_BUSY_TIMEOUT_S * 1000)}")
             conn.execute("PRAGMA synchronous = FULL")
             conn.execute("PRAGMA foreign_keys = ON")
@@ -943,8 +1110,9 @@ class StudyFile:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
                 if any(w in str(exc) for w in ("malformed", "not a database", "corrupt")):
-                    raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") \
-                        from None
+                    raise StudyFileError(
+                        _damaged(self.path, exc) + "; nothing was changed"
+                    ) from None
                 why = self._not_writable()
                 if why is not None:
                     raise StudyFileError(
@@ -963,8 +1131,7 @@ class StudyFile:
             except _DAMAGE as exc:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
-                raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") \
-                    from None
+                raise StudyFileError(_damaged(self.path, exc) + "; nothing was changed") from None
             except BaseException:
                 if conn.in_transaction:
                     conn.execute("ROLLBACK")
@@ -987,9 +1154,12 @@ class StudyFile:
         with self._read() as conn:
             rows = conn.execute(
                 "SELECT id, at, who, what, why, detail_json FROM audit_log WHERE id > ? "
-                "ORDER BY id", (int(version),)).fetchall()
-        return [AuditEntry(i, at, who, what, why, json.loads(d))
-                for i, at, who, what, why, d in rows]
+                "ORDER BY id",
+                (int(version),),
+            ).fetchall()
+        return [
+            AuditEntry(i, at, who, what, why, json.loads(d)) for i, at, who, what, why, d in rows
+        ]
 
     @contextmanager
     def expecting(self, version: int | None):
@@ -1012,32 +1182,56 @@ class StudyFile:
         if expected is not None and current != int(expected):
             rows = conn.execute(
                 "SELECT id, at, who, what, why, detail_json FROM audit_log WHERE id > ? "
-                "ORDER BY id", (int(expected),)).fetchall()
-            newer = [AuditEntry(i, at, who, what, why, json.loads(d))
-                     for i, at, who, what, why, d in rows]
+                "ORDER BY id",
+                (int(expected),),
+            ).fetchall()
+            newer = [
+                AuditEntry(i, at, who, what, why, json.loads(d))
+                for i, at, who, what, why, d in rows
+            ]
             raise StaleView(
                 "the study changed after this view of it was drawn ("
-                + (describe_entries(newer) or "a newer entry") + "); nothing was saved. Look "
-                "at the study as it is now and do it again if it still applies", newer)
+                + (describe_entries(newer) or "a newer entry")
+                + "); nothing was saved. Look "
+                "at the study as it is now and do it again if it still applies",
+                newer,
+            )
         return current
 
     @staticmethod
-    def _audit(conn, *, who: str, what: str, why: str = "", detail: Mapping | None = None,
-               when: str | None = None) -> int:
+    def _audit(
+        conn,
+        *,
+        who: str,
+        what: str,
+        why: str = "",
+        detail: Mapping | None = None,
+        when: str | None = None,
+    ) -> int:
         """Append one audit entry to the chain; it claims every row written since the last
         entry of this transaction (see :func:`check_chain`)."""
-        return _append_entry(conn, who=who, what=what, why=why, detail=dict(detail or {}),
-                             when=when)
+        return _append_entry(
+            conn, who=who, what=what, why=why, detail=dict(detail or {}), when=when
+        )
 
     # -- create --------------------------------------------------------------------------------
     @classmethod
-    def create(cls, path: str | os.PathLike, *, data: bytes, filename: str, title: str,
-               part: str = "", supplier: str = "",
-               characteristics: Iterable[Characteristic] | Mapping[str, Characteristic] = (),
-               criteria: Mapping[str, Criteria] | None = None, who: str = "",
-               overwrite: bool = False,
-               extra_files: Iterable[tuple[str, bytes]] = (),
-               when: str | None = None) -> StudyFile:
+    def create(
+        cls,
+        path: str | os.PathLike,
+        *,
+        data: bytes,
+        filename: str,
+        title: str,
+        part: str = "",
+        supplier: str = "",
+        characteristics: Iterable[Characteristic] | Mapping[str, Characteristic] = (),
+        criteria: Mapping[str, Criteria] | None = None,
+        who: str = "",
+        overwrite: bool = False,
+        extra_files: Iterable[tuple[str, bytes]] = (),
+        when: str | None = None,
+    ) -> StudyFile:
         """Create a new study file holding ``data`` and the first specifications.
 
         ``when`` (ISO 8601 UTC, default now) is the time of the creation entry.
@@ -1052,10 +1246,16 @@ class StudyFile:
         StudyFile
         """
         path = Path(path)
-        study = Study(title=title, part=part, supplier=supplier, data=data,
-                      data_filename=Path(str(filename)).name, characteristics=characteristics,
-                      criteria=criteria or {},
-                      extra_files=tuple(DataFile(Path(str(n)).name, b) for n, b in extra_files))
+        study = Study(
+            title=title,
+            part=part,
+            supplier=supplier,
+            data=data,
+            data_filename=Path(str(filename)).name,
+            characteristics=characteristics,
+            criteria=criteria or {},
+            extra_files=tuple(DataFile(Path(str(n)).name, b) for n, b in extra_files),
+        )
         if path.exists() and not overwrite:
             raise StudyFileError(
                 f"'{path}' already exists: choose another name or pass overwrite=True "
@@ -1075,8 +1275,14 @@ class StudyFile:
             _chain_begin(conn, claim_existing=True)
             at = when or now_utc()
             who = (who or "").strip() or "unknown"
-            meta = {"title": study.title, "part": study.part, "supplier": study.supplier,
-                    "created_at": at, "created_by": who, "created_with": f"studykit {__version__}"}
+            meta = {
+                "title": study.title,
+                "part": study.part,
+                "supplier": study.supplier,
+                "created_at": at,
+                "created_by": who,
+                "created_with": f"studykit {__version__}",
+            }
             conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", meta.items())
             conn.execute(
                 "INSERT INTO data_files (filename, sha256, size, content, added_at, added_by) "
@@ -1094,12 +1300,23 @@ class StudyFile:
                 conn.execute(
                     "INSERT INTO characteristics (position, name, spec_json, criteria_json) "
                     "VALUES (?, ?, ?, ?)",
-                    (pos, name, _dumps(c.to_dict()), None if crit is None else _dumps(crit.to_dict())),
+                    (
+                        pos,
+                        name,
+                        _dumps(c.to_dict()),
+                        None if crit is None else _dumps(crit.to_dict()),
+                    ),
                 )
-            cls._audit(conn, who=who, when=at,
-                       what=f"create study '{study.title}' from '{study.data_filename}'",
-                       detail={"data_sha256": study.data_sha256,
-                               "characteristics": list(study.characteristics)})
+            cls._audit(
+                conn,
+                who=who,
+                when=at,
+                what=f"create study '{study.title}' from '{study.data_filename}'",
+                detail={
+                    "data_sha256": study.data_sha256,
+                    "characteristics": list(study.characteristics),
+                },
+            )
             _chain_finish(conn)
             conn.execute("COMMIT")
             conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
@@ -1133,13 +1350,17 @@ class StudyFile:
             study = self._load(conn)
             # the data copies were just hashed and matched their sha256 column: the chain
             # check uses those hashes instead of reading the copies again
-            known = {i: {"content": (sha, n)} for i, sha, n in conn.execute(
-                "SELECT id, sha256, length(content) FROM data_files")}
+            known = {
+                i: {"content": (sha, n)}
+                for i, sha, n in conn.execute("SELECT id, sha256, length(content) FROM data_files")
+            }
             chain = check_chain(conn, known_blobs={"data_files": known})
         if not chain.ok:
-            raise StudyFileError(f"study file '{self.path}' was altered outside studykit: "
-                                 f"{chain.summary()}; `studykit study log` lists every break. "
-                                 "Restore the study file from a backup")
+            raise StudyFileError(
+                f"study file '{self.path}' was altered outside studykit: "
+                f"{chain.summary()}; `studykit study log` lists every break. "
+                "Restore the study file from a backup"
+            )
         return study
 
     def _load(self, conn) -> Study:
@@ -1167,8 +1388,16 @@ class StudyFile:
             if crit_json is not None:
                 crit[name] = Criteria.from_dict(json.loads(crit_json))
         decisions = [
-            Decision(ch, action, subgroup=sub, reason=reason, who=who, when=at,
-                     automatic=bool(auto), payload=json.loads(payload))
+            Decision(
+                ch,
+                action,
+                subgroup=sub,
+                reason=reason,
+                who=who,
+                when=at,
+                automatic=bool(auto),
+                payload=json.loads(payload),
+            )
             for ch, action, sub, reason, who, at, auto, payload in conn.execute(
                 "SELECT characteristic, action, subgroup, reason, who, at, automatic, "
                 "payload_json FROM decisions ORDER BY id"
@@ -1181,8 +1410,9 @@ class StudyFile:
             )
         ]
         signoffs = [
-            SignOff(name, role, decision, comment=comment, when=at, digest=digest,
-                    chain_head=head or "")
+            SignOff(
+                name, role, decision, comment=comment, when=at, digest=digest, chain_head=head or ""
+            )
             for name, role, decision, comment, at, digest, head in conn.execute(
                 "SELECT name, role, decision, comment, at, digest, chain_head FROM signoffs "
                 "ORDER BY id"
@@ -1190,10 +1420,18 @@ class StudyFile:
         ]
         try:
             return Study.replay(
-                title=meta.get("title", ""), part=meta.get("part", ""),
-                supplier=meta.get("supplier", ""), data=content, data_filename=filename,
-                data_sha256=sha, characteristics=chars, criteria=crit, decisions=decisions,
-                comments=comments, signoffs=signoffs, extra_files=extra,
+                title=meta.get("title", ""),
+                part=meta.get("part", ""),
+                supplier=meta.get("supplier", ""),
+                data=content,
+                data_filename=filename,
+                data_sha256=sha,
+                characteristics=chars,
+                criteria=crit,
+                decisions=decisions,
+                comments=comments,
+                signoffs=signoffs,
+                extra_files=extra,
             )
         except StudyFileError:
             raise
@@ -1208,17 +1446,37 @@ class StudyFile:
             cur = conn.execute(
                 "INSERT INTO decisions (characteristic, action, subgroup, reason, who, at, "
                 "automatic, payload_json, recorded_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (d.characteristic, d.action, d.subgroup, d.reason, d.who, d.when,
-                 int(d.automatic), _dumps(dict(d.payload)), recorded),
+                (
+                    d.characteristic,
+                    d.action,
+                    d.subgroup,
+                    d.reason,
+                    d.who,
+                    d.when,
+                    int(d.automatic),
+                    _dumps(dict(d.payload)),
+                    recorded,
+                ),
             )
             ids.append(cur.lastrowid)
             # one clock per event: the audit entry carries the decision's own time (the removal
             # log and the audit log show the same time); when it was written is kept too
-            self._audit(conn, who=d.who, what=_decision_what(d), why=d.reason, when=d.when,
-                        detail={"decision_id": cur.lastrowid, "action": d.action,
-                                "characteristic": d.characteristic, "subgroup": d.subgroup,
-                                "automatic": d.automatic, "decided_at": d.when,
-                                "recorded_at": recorded})
+            self._audit(
+                conn,
+                who=d.who,
+                what=_decision_what(d),
+                why=d.reason,
+                when=d.when,
+                detail={
+                    "decision_id": cur.lastrowid,
+                    "action": d.action,
+                    "characteristic": d.characteristic,
+                    "subgroup": d.subgroup,
+                    "automatic": d.automatic,
+                    "decided_at": d.when,
+                    "recorded_at": recorded,
+                },
+            )
         return ids
 
     def _insert_comment(self, conn, c: Comment) -> int:
@@ -1227,9 +1485,13 @@ class StudyFile:
             (c.characteristic, c.text, c.who, c.when),
         )
         on = f" on '{c.characteristic}'" if c.characteristic else ""
-        self._audit(conn, who=c.who, what=f"comment{on}", when=c.when,
-                    detail={"comment_id": cur.lastrowid, "text": c.text,
-                            "recorded_at": now_utc()})
+        self._audit(
+            conn,
+            who=c.who,
+            what=f"comment{on}",
+            when=c.when,
+            detail={"comment_id": cur.lastrowid, "text": c.text, "recorded_at": now_utc()},
+        )
         return cur.lastrowid
 
     def _insert_signoff(self, conn, s: SignOff, index: int, signer=None) -> int:
@@ -1243,16 +1505,33 @@ class StudyFile:
             "VALUES (?, ?, ?, ?, ?, ?, ?)",
             (s.name, s.role, s.decision, s.comment, s.when, s.digest, chain.head),
         )
-        detail = {"signoff_index": index, "signoff_id": cur.lastrowid, "digest": s.digest,
-                  "chain_head": chain.head}
+        detail = {
+            "signoff_index": index,
+            "signoff_id": cur.lastrowid,
+            "digest": s.digest,
+            "chain_head": chain.head,
+        }
         if signer is not None:
-            row = {"name": s.name, "role": s.role, "decision": s.decision, "comment": s.comment,
-                   "at": s.when, "digest": s.digest, "chain_head": chain.head}
+            row = {
+                "name": s.name,
+                "role": s.role,
+                "decision": s.decision,
+                "comment": s.comment,
+                "at": s.when,
+                "digest": s.digest,
+                "chain_head": chain.head,
+            }
             detail["signature"] = sign_signoff_payload(_signoff_payload(row), *signer)
-        self._audit(conn, who=s.name, what=f"sign-off: {names.decision_label(s.decision)} as "
-                    f"{names.role_label(s.role)}"
-                    + (" (certificate signature)" if signer is not None else ""),
-                    why=s.comment, when=s.when, detail=detail)
+        self._audit(
+            conn,
+            who=s.name,
+            what=f"sign-off: {names.decision_label(s.decision)} as "
+            f"{names.role_label(s.role)}"
+            + (" (certificate signature)" if signer is not None else ""),
+            why=s.comment,
+            when=s.when,
+            detail=detail,
+        )
         return cur.lastrowid
 
     def _change(self, make: Callable[[Study], Study]) -> list[int]:
@@ -1260,7 +1539,7 @@ class StudyFile:
         with self._write() as conn:
             study = self._load(conn)
             new = make(study)
-            added = new.decisions[len(study.decisions):]
+            added = new.decisions[len(study.decisions) :]
             return self._insert_decisions(conn, added)
 
     def apply(self, change: Callable[[Study], Study]) -> Study:
@@ -1291,24 +1570,29 @@ class StudyFile:
                 raise StudyInputError(f"the change must return a Study, got {type(new).__name__}")
             for kind in ("decisions", "comments", "signoffs"):
                 old_items, new_items = getattr(study, kind), getattr(new, kind)
-                if new_items[:len(old_items)] != old_items:
+                if new_items[: len(old_items)] != old_items:
                     raise StudyFileError(
                         f"the change rewrote saved {kind}: a study file only grows; derive the "
                         "new study from the one passed in"
                     )
             for attr in ("title", "part", "supplier", "data_sha256"):
                 if getattr(new, attr) != getattr(study, attr):
-                    raise StudyFileError(f"the change altered the study's {attr}, which is "
-                                         "fixed when the file is created")
-            self._insert_decisions(conn, new.decisions[len(study.decisions):])
-            for c in new.comments[len(study.comments):]:
+                    raise StudyFileError(
+                        f"the change altered the study's {attr}, which is "
+                        "fixed when the file is created"
+                    )
+            self._insert_decisions(conn, new.decisions[len(study.decisions) :])
+            for c in new.comments[len(study.comments) :]:
                 self._insert_comment(conn, c)
-            for i, s in enumerate(new.signoffs[len(study.signoffs):], start=len(study.signoffs)):
+            for i, s in enumerate(new.signoffs[len(study.signoffs) :], start=len(study.signoffs)):
                 self._insert_signoff(conn, s, i)
             saved = self._load(conn)
-            added = new.decisions[len(study.decisions):]
-            if (study.is_locked and saved.content_digest() != study.content_digest()
-                    and not any(d.action == "void_signoff" for d in added)):
+            added = new.decisions[len(study.decisions) :]
+            if (
+                study.is_locked
+                and saved.content_digest() != study.content_digest()
+                and not any(d.action == "void_signoff" for d in added)
+            ):
                 raise StudyFileError(
                     "the study is approved and therefore locked: pass override_lock=True with a "
                     "reason to the change that needs it"
@@ -1320,65 +1604,148 @@ class StudyFile:
                 )
             return saved
 
-    def append_decision(self, decision: Decision, *, override_lock: bool = False,
-                        override_reason: str | None = None) -> int:
+    def append_decision(
+        self, decision: Decision, *, override_lock: bool = False, override_reason: str | None = None
+    ) -> int:
         """Append one decision; returns its id.
 
         A decision that changes the analysis (anything but a note) is refused while the study is
         approved, unless ``override_lock=True`` with ``override_reason``: then the approval and
         every other sign-off still valid are voided by ``void_signoff`` entries written first.
         """
-        ids = self._change(lambda s: s.with_decision(
-            decision, override_lock=override_lock, override_reason=override_reason))
+        ids = self._change(
+            lambda s: s.with_decision(
+                decision, override_lock=override_lock, override_reason=override_reason
+            )
+        )
         return ids[-1]
 
-    def exclude(self, characteristic: str, subgroup, *, reason: str, who: str = "",
-                automatic: bool = False, payload: Mapping | None = None, when: str = "",
-                **lock) -> int:
+    def exclude(
+        self,
+        characteristic: str,
+        subgroup,
+        *,
+        reason: str,
+        who: str = "",
+        automatic: bool = False,
+        payload: Mapping | None = None,
+        when: str = "",
+        **lock,
+    ) -> int:
         """Record the exclusion of one subgroup; returns the decision id."""
         return self.append_decision(
-            Decision(characteristic, "exclude", subgroup=subgroup, reason=reason, who=who,
-                     automatic=automatic, payload=payload or {}, when=when), **lock)
+            Decision(
+                characteristic,
+                "exclude",
+                subgroup=subgroup,
+                reason=reason,
+                who=who,
+                automatic=automatic,
+                payload=payload or {},
+                when=when,
+            ),
+            **lock,
+        )
 
-    def restore(self, characteristic: str, subgroup, *, reason: str, who: str = "",
-                automatic: bool = False, when: str = "", **lock) -> int:
+    def restore(
+        self,
+        characteristic: str,
+        subgroup,
+        *,
+        reason: str,
+        who: str = "",
+        automatic: bool = False,
+        when: str = "",
+        **lock,
+    ) -> int:
         """Record that an excluded subgroup comes back; returns the decision id."""
         return self.append_decision(
-            Decision(characteristic, "restore", subgroup=subgroup, reason=reason, who=who,
-                     automatic=automatic, when=when), **lock)
+            Decision(
+                characteristic,
+                "restore",
+                subgroup=subgroup,
+                reason=reason,
+                who=who,
+                automatic=automatic,
+                when=when,
+            ),
+            **lock,
+        )
 
-    def update_spec(self, characteristic: str, *, who: str, reason: str, when: str = "",
-                    override_lock: bool = False, override_reason: str | None = None,
-                    **changes) -> int:
+    def update_spec(
+        self,
+        characteristic: str,
+        *,
+        who: str,
+        reason: str,
+        when: str = "",
+        override_lock: bool = False,
+        override_reason: str | None = None,
+        **changes,
+    ) -> int:
         """Change specification fields (``lsl=``, ``usl=``, ``target=`` ...), recorded as a
         ``set_spec`` decision with old and new values; returns its id."""
-        ids = self._change(lambda s: s.with_spec(
-            characteristic, who=who, reason=reason, when=when, override_lock=override_lock,
-            override_reason=override_reason, **changes))
+        ids = self._change(
+            lambda s: s.with_spec(
+                characteristic,
+                who=who,
+                reason=reason,
+                when=when,
+                override_lock=override_lock,
+                override_reason=override_reason,
+                **changes,
+            )
+        )
         return ids[-1]
 
-    def update_criteria(self, characteristic: str, criteria: Criteria, *, who: str, reason: str,
-                        when: str = "", override_lock: bool = False,
-                        override_reason: str | None = None) -> int:
+    def update_criteria(
+        self,
+        characteristic: str,
+        criteria: Criteria,
+        *,
+        who: str,
+        reason: str,
+        when: str = "",
+        override_lock: bool = False,
+        override_reason: str | None = None,
+    ) -> int:
         """Change the acceptance criterion, recorded as a ``set_criteria`` decision."""
-        ids = self._change(lambda s: s.with_criteria(
-            characteristic, criteria, who=who, reason=reason, when=when,
-            override_lock=override_lock, override_reason=override_reason))
+        ids = self._change(
+            lambda s: s.with_criteria(
+                characteristic,
+                criteria,
+                who=who,
+                reason=reason,
+                when=when,
+                override_lock=override_lock,
+                override_reason=override_reason,
+            )
+        )
         return ids[-1]
 
-    def add_comment(self, text: str, *, who: str, characteristic: str | None = None,
-                    when: str = "") -> int:
+    def add_comment(
+        self, text: str, *, who: str, characteristic: str | None = None, when: str = ""
+    ) -> int:
         """Add a comment (allowed on an approved study; it changes no result)."""
         with self._write() as conn:
             study = self._load(conn)
-            c = study.with_comment(text, who=who, characteristic=characteristic,
-                                   when=when).comments[-1]
+            c = study.with_comment(
+                text, who=who, characteristic=characteristic, when=when
+            ).comments[-1]
             return self._insert_comment(conn, c)
 
-    def add_signoff(self, name: str, *, role: str, decision: str, comment: str = "",
-                    when: str = "", certificate: tuple | None = None,
-                    expected_digest: str | None = None,
-                    check: Callable[[Study, SignOff], None] | None = None) -> SignOff:
+    def add_signoff(
+        self,
+        name: str,
+        *,
+        role: str,
+        decision: str,
+        comment: str = "",
+        when: str = "",
+        certificate: tuple | None = None,
+        expected_digest: str | None = None,
+        check: Callable[[Study, SignOff], None] | None = None,
+    ) -> SignOff:
         """Sign the study as it stands now; returns the SignOff with the content digest and the
         chain head it signed.
 
@@ -1395,8 +1762,9 @@ class StudyFile:
         """
         with self._write() as conn:
             study = self._load(conn)
-            s = study.sign(name, role=role, decision=decision, comment=comment,
-                           when=when).signoffs[-1]
+            s = study.sign(name, role=role, decision=decision, comment=comment, when=when).signoffs[
+                -1
+            ]
             if expected_digest is not None:
                 seen = str(expected_digest).strip().lower()
                 if len(seen) < 12 or not s.digest.startswith(seen):
@@ -1405,16 +1773,25 @@ class StudyFile:
                         f"{seen[:12] or '(empty)'}... that was looked at: data or decisions "
                         "changed after that view was drawn, so the sign-off would cover content "
                         "its signer did not see; nothing was saved. Look at the study as it is "
-                        "now and sign again")
+                        "now and sign again"
+                    )
             if check is not None:
                 check(study, s)
             self._insert_signoff(conn, s, len(study.signoffs), signer=certificate)
             return self._load(conn).signoffs[-1]
 
-    def attach_result(self, kind: str, characteristic: str | None, payload: Mapping[str, Any],
-                      *, who: str, override_lock: bool = False,
-                      override_reason: str | None = None, reason: str = "",
-                      when: str | None = None) -> int:
+    def attach_result(
+        self,
+        kind: str,
+        characteristic: str | None,
+        payload: Mapping[str, Any],
+        *,
+        who: str,
+        override_lock: bool = False,
+        override_reason: str | None = None,
+        reason: str = "",
+        when: str | None = None,
+    ) -> int:
         """Keep a result beside the study (e.g. ``kind="gauge_rr"``); returns its id.
 
         ``when`` (ISO 8601 UTC, default now) is the time it was attached.
@@ -1439,18 +1816,27 @@ class StudyFile:
                 study.characteristic(characteristic)
             on = f" to '{characteristic}'" if characteristic else ""
             if study.is_locked:
-                voids = study._check_lock(f"attaching a {names.result_kind_label(kind)}{on}",
-                                          override_lock,
-                                          override_reason, who)
+                voids = study._check_lock(
+                    f"attaching a {names.result_kind_label(kind)}{on}",
+                    override_lock,
+                    override_reason,
+                    who,
+                )
                 self._insert_decisions(conn, voids)
             at = when or now_utc()
             cur = conn.execute(
                 "INSERT INTO results (kind, characteristic, payload_json, who, at) "
-                "VALUES (?, ?, ?, ?, ?)", (kind, characteristic, text, who or "unknown", at),
+                "VALUES (?, ?, ?, ?, ?)",
+                (kind, characteristic, text, who or "unknown", at),
             )
-            self._audit(conn, who=who, what=f"attach {names.result_kind_label(kind)}{on}",
-                        why=reason or "", when=at,
-                        detail={"result_id": cur.lastrowid})
+            self._audit(
+                conn,
+                who=who,
+                what=f"attach {names.result_kind_label(kind)}{on}",
+                why=reason or "",
+                when=at,
+                detail={"result_id": cur.lastrowid},
+            )
             return cur.lastrowid
 
     # -- reading records -----------------------------------------------------------------------
@@ -1471,8 +1857,10 @@ class StudyFile:
             rows = conn.execute(
                 "SELECT id, at, who, what, why, detail_json FROM audit_log ORDER BY id"
             ).fetchall()
-            return [AuditEntry(i, at, who, what, why, json.loads(d))
-                    for i, at, who, what, why, d in rows]
+            return [
+                AuditEntry(i, at, who, what, why, json.loads(d))
+                for i, at, who, what, why, d in rows
+            ]
 
     def check_chain(self) -> ChainCheck:
         """Recompute the audit chain (see :func:`check_chain`); never raises on a break, the
@@ -1488,8 +1876,9 @@ class StudyFile:
     def chain_entry_hash(self, entry_id: int) -> str | None:
         """The stored ``entry_hash`` of audit entry ``entry_id`` (None when there is none)."""
         with self._read() as conn:
-            row = conn.execute("SELECT entry_hash FROM audit_log WHERE id = ?",
-                               (int(entry_id),)).fetchone()
+            row = conn.execute(
+                "SELECT entry_hash FROM audit_log WHERE id = ?", (int(entry_id),)
+            ).fetchone()
         return None if row is None else row[0]
 
     def require_intact(self) -> ChainCheck:
@@ -1497,9 +1886,11 @@ class StudyFile:
         break) when the chain is broken."""
         chain = self.check_chain()
         if not chain.ok:
-            raise StudyFileError(f"study file '{self.path}' was altered outside studykit: "
-                                 f"{chain.summary()}; `studykit study log` lists every break. "
-                                 "Restore the study file from a backup")
+            raise StudyFileError(
+                f"study file '{self.path}' was altered outside studykit: "
+                f"{chain.summary()}; `studykit study log` lists every break. "
+                "Restore the study file from a backup"
+            )
         return chain
 
     def integrity_check(self) -> str:
@@ -1509,8 +1900,16 @@ class StudyFile:
 
 
 #: errors a damaged study file can raise while it is read (turned into StudyFileError)
-_DAMAGE = (sqlite3.DatabaseError, UnicodeDecodeError, ValueError, TypeError, KeyError,
-           IndexError, OverflowError, AttributeError)
+_DAMAGE = (
+    sqlite3.DatabaseError,
+    UnicodeDecodeError,
+    ValueError,
+    TypeError,
+    KeyError,
+    IndexError,
+    OverflowError,
+    AttributeError,
+)
 
 
 def _rollback(conn) -> None:
@@ -1523,8 +1922,7 @@ def _rollback(conn) -> None:
 
 def _damaged(path, exc) -> str:
     what = type(exc).__name__ if not str(exc) else str(exc).splitlines()[0][:160]
-    return (f"study file '{path}' is damaged and cannot be read ({what}): restore it from a "
-            "backup")
+    return f"study file '{path}' is damaged and cannot be read ({what}): restore it from a backup"
 
 
 class ChangeWatch:

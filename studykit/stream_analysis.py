@@ -26,8 +26,20 @@ __all__ = ["StreamsResult", "analyze_streams"]
 
 #: Keys of each stream's own analysis JSON kept in ``streams.per_stream`` (the same meaning as
 #: at the top level of ``analyze --json``).
-_STREAM_KEYS = ("n", "subgroups", "subgroup_size", "mean", "within_sigma", "overall_sigma",
-                "chart", "model", "capability", "verdict", "findings", "warnings")
+_STREAM_KEYS = (
+    "n",
+    "subgroups",
+    "subgroup_size",
+    "mean",
+    "within_sigma",
+    "overall_sigma",
+    "chart",
+    "model",
+    "capability",
+    "verdict",
+    "findings",
+    "warnings",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -97,10 +109,15 @@ def _subset(data, mask):
         a = getattr(data, key, None)
         return None if a is None else np.asarray(a)[mask]
 
-    return CharacteristicData(name=data.name, unit=data.unit,
-                              values=np.asarray(data.values, dtype=float)[mask],
-                              subgroups=pick("subgroups"), times=pick("times"),
-                              notes=pick("notes"), rows=pick("rows"))
+    return CharacteristicData(
+        name=data.name,
+        unit=data.unit,
+        values=np.asarray(data.values, dtype=float)[mask],
+        subgroups=pick("subgroups"),
+        times=pick("times"),
+        notes=pick("notes"),
+        rows=pick("rows"),
+    )
 
 
 def _fmt(v) -> str:
@@ -117,8 +134,11 @@ def analyze_streams(data, spec=None, *, analyze, **kwargs):
     labels = np.asarray(data.streams).astype(str)
     whole = analyze(replace(data, streams=None), spec, **kwargs)
     if whole.attribute:
-        return replace(whole, warnings=whole.warnings + (
-            "the stream column was not used: streams are analysed for measured values only",))
+        return replace(
+            whole,
+            warnings=whole.warnings
+            + ("the stream column was not used: streams are analysed for measured values only",),
+        )
     names = tuple(streams_module.stream_order(labels))
     excl = kwargs.get("exclusions") or {}
     results, errors = {}, {}
@@ -126,8 +146,12 @@ def analyze_streams(data, spec=None, *, analyze, **kwargs):
         mask = labels == name
         sub = _subset(data, mask)
         own = set(np.asarray(sub.subgroups).astype(str).tolist())
-        kw = dict(kwargs, gauge=None, kept=None,
-                  exclusions={k: v for k, v in excl.items() if str(k) in own})
+        kw = dict(
+            kwargs,
+            gauge=None,
+            kept=None,
+            exclusions={k: v for k, v in excl.items() if str(k) in own},
+        )
         try:
             results[name] = analyze(sub, spec, **kw)
         except StudyInputError as exc:
@@ -147,32 +171,52 @@ def analyze_streams(data, spec=None, *, analyze, **kwargs):
         group = streams_module.group_chart(x, sg, st)
     except StudyInputError as exc:
         errors["group_chart"] = str(exc)
-    differ = bool((location is not None and location.differ)
-                  or (spread is not None and spread.differ))
-    out = StreamsResult(names=names, results=results, location=location, spread=spread,
-                        group=group, worst=None, differ=differ, errors=errors)
+    differ = bool(
+        (location is not None and location.differ) or (spread is not None and spread.differ)
+    )
+    out = StreamsResult(
+        names=names,
+        results=results,
+        location=location,
+        spread=spread,
+        group=group,
+        worst=None,
+        differ=differ,
+        errors=errors,
+    )
     judged = {n: out.judged(n) for n in results}
     judged = {n: v for n, v in judged.items() if v is not None}
     worst = min(judged, key=judged.get) if judged else None
     out = replace(out, worst=worst)
     findings = list(whole.findings)
     verdict = whole.verdict
-    failing = [n for n, r in results.items()
-               if r.verdict is not None and r.verdict.meets is False]
+    failing = [n for n, r in results.items() if r.verdict is not None and r.verdict.meets is False]
     if verdict is not None and worst is not None:
         wv = results[worst].verdict
         basis = "lower bound" if wv.basis == "lower_bound" else "estimate"
         what = f"stream {worst}: {wv.index.capitalize()} {basis} {_fmt(judged[worst])}"
         if verdict.meets is True and failing:
-            verdict = replace(verdict, meets=False, text=(
-                f"Does not meet {verdict.criterion} in every stream: {what}; the process "
-                f"as a whole would meet it. {verdict.text}"))
+            verdict = replace(
+                verdict,
+                meets=False,
+                text=(
+                    f"Does not meet {verdict.criterion} in every stream: {what}; the process "
+                    f"as a whole would meet it. {verdict.text}"
+                ),
+            )
         elif differ or failing:
             verdict = replace(verdict, text=f"{verdict.text} Worst {what}.")
     if differ:
         tests = [t.text for t in (location, spread) if t is not None and t.differ]
-        findings.append(Finding(
-            code="streams_differ", severity="warning",
-            text=("The streams differ: " + "; ".join(tests)
-                  + (f". Worst stream: {worst}." if worst else "."))))
+        findings.append(
+            Finding(
+                code="streams_differ",
+                severity="warning",
+                text=(
+                    "The streams differ: "
+                    + "; ".join(tests)
+                    + (f". Worst stream: {worst}." if worst else ".")
+                ),
+            )
+        )
     return replace(whole, streams=out, verdict=verdict, findings=tuple(findings))

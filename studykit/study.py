@@ -171,8 +171,9 @@ def check_model(model, *, error=SpecError) -> str:
     text = _text(model, name="model", error=error).strip().lower() or "auto"
     known = known_models()
     if text not in known:
-        raise error(f"`model` ({model!r}) is not a model studykit knows; use one of "
-                    f"{', '.join(known)}")
+        raise error(
+            f"`model` ({model!r}) is not a model studykit knows; use one of {', '.join(known)}"
+        )
     return text
 
 
@@ -195,7 +196,9 @@ def _json_safe(payload, *, name: str) -> dict:
 
 
 def _canonical(obj) -> str:
-    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+    return json.dumps(
+        obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -276,7 +279,9 @@ class Characteristic:
         set_(self, "usl", usl)
         set_(self, "target", target)
         if not isinstance(self.safety_critical, bool):
-            raise SpecError(where + f"`safety_critical` ({self.safety_critical!r}) must be True or False")
+            raise SpecError(
+                where + f"`safety_critical` ({self.safety_critical!r}) must be True or False"
+            )
         chart = _text(self.chart, name="chart", error=SpecError).strip().lower() or "auto"
         if chart not in CHARTS:
             raise SpecError(where + f"`chart` ({self.chart!r}) must be one of {', '.join(CHARTS)}")
@@ -404,7 +409,9 @@ class Criteria:
         object.__setattr__(self, "index", index)
         threshold = _number(self.threshold, name="threshold")
         if threshold is None or threshold <= 0:
-            raise SpecError(f"`threshold` ({self.threshold!r}) must be a positive number, e.g. 1.33")
+            raise SpecError(
+                f"`threshold` ({self.threshold!r}) must be a positive number, e.g. 1.33"
+            )
         object.__setattr__(self, "threshold", threshold)
         basis = _text(self.basis, name="basis", error=SpecError).strip().lower()
         if basis not in BASES:
@@ -413,8 +420,10 @@ class Criteria:
         conf = _number(self.confidence, name="confidence")
         if conf is None or not 0.5 <= conf < 1:
             # the analysis computes bounds only for levels in [0.5, 1): refuse here, not later
-            raise SpecError(f"`confidence` ({self.confidence!r}) must lie between 0 and 1, at "
-                            "0.5 or above (a bound below 50% is no lower bound), e.g. 0.95")
+            raise SpecError(
+                f"`confidence` ({self.confidence!r}) must lie between 0 and 1, at "
+                "0.5 or above (a bound below 50% is no lower bound), e.g. 0.95"
+            )
         object.__setattr__(self, "confidence", conf)
 
     @property
@@ -430,8 +439,10 @@ class Criteria:
         """
         if not self.has_interval:
             return None
-        return (f"at least {self.interval_coverage * 100:g}% of parts within specification "
-                f"with {self.interval_confidence * 100:g}% confidence")
+        return (
+            f"at least {self.interval_coverage * 100:g}% of parts within specification "
+            f"with {self.interval_confidence * 100:g}% confidence"
+        )
 
     def describe(self) -> str:
         """One line for a table, e.g. ``Ppk lower 95% bound >= 1.67``."""
@@ -538,9 +549,17 @@ class Decision:
         if action in SIGNAL_ACTIONS and not str(dict(self.payload or {}).get("rule", "")).strip():
             raise StudyInputError(
                 f"a {what} needs the run rule of the signal in its payload, e.g. "
-                "{'rule': 'beyond_limits'}")
-        if action in ("exclude", "restore", "set_spec", "set_criteria", "set_model", "set_chart",
-                      *SIGNAL_ACTIONS):
+                "{'rule': 'beyond_limits'}"
+            )
+        if action in (
+            "exclude",
+            "restore",
+            "set_spec",
+            "set_criteria",
+            "set_model",
+            "set_chart",
+            *SIGNAL_ACTIONS,
+        ):
             if ch is None:
                 raise StudyInputError(f"{article} {what} needs the `characteristic` it applies to")
         reason = _text(self.reason, name="reason")
@@ -642,8 +661,9 @@ class SignOff:
         set_ = object.__setattr__
         head = _text(self.chain_head, name="chain_head").strip().lower()
         if head and not re.fullmatch(r"\d+:[0-9a-f]{64}", head):
-            raise StudyInputError(f"`chain_head` ({self.chain_head!r}) must be "
-                                  "'<entry id>:<sha256>'")
+            raise StudyInputError(
+                f"`chain_head` ({self.chain_head!r}) must be '<entry id>:<sha256>'"
+            )
         set_(self, "chain_head", head)
         set_(self, "name", _text(self.name, name="name", required=True).strip())
         set_(self, "role", _text(self.role, name="role", required=True).strip())
@@ -824,7 +844,9 @@ class Study:
         set_(self, "part", _text(self.part, name="part").strip())
         set_(self, "supplier", _text(self.supplier, name="supplier").strip())
         if not isinstance(self.data, bytes | bytearray | memoryview):
-            raise StudyInputError(f"`data` must be the raw bytes of the file, got {type(self.data).__name__}")
+            raise StudyInputError(
+                f"`data` must be the raw bytes of the file, got {type(self.data).__name__}"
+            )
         data = bytes(self.data)
         set_(self, "data", data)
         set_(self, "data_filename", _text(self.data_filename, name="data_filename", required=True))
@@ -881,7 +903,9 @@ class Study:
             seq = tuple(seq)
             for item in seq:
                 if not isinstance(item, cls):
-                    raise StudyInputError(f"`{kind}` must hold {cls.__name__} objects, got {item!r}")
+                    raise StudyInputError(
+                        f"`{kind}` must hold {cls.__name__} objects, got {item!r}"
+                    )
             set_(self, kind, seq)
         for d in self.decisions:
             if d.characteristic is not None and d.characteristic not in chars:
@@ -1008,8 +1032,7 @@ class Study:
             for d in self.decisions:
                 if d.characteristic != name:
                     continue
-                if d.action in ("exclude", "restore", "set_spec", "set_criteria",
-                                *SIGNAL_ACTIONS):
+                if d.action in ("exclude", "restore", "set_spec", "set_criteria", *SIGNAL_ACTIONS):
                     continue
                 if d.action in DIGEST_NEUTRAL_ACTIONS:
                     continue
@@ -1035,17 +1058,20 @@ class Study:
             "criteria": {n: self.criteria_for(n).to_dict() for n in self.characteristics},
             "decisions": self._effective_decisions(),
             **(
-                {"extra_files": [{"filename": f.filename, "sha256": f.sha256}
-                                 for f in self.extra_files]}
-                if self.extra_files else {}
+                {
+                    "extra_files": [
+                        {"filename": f.filename, "sha256": f.sha256} for f in self.extra_files
+                    ]
+                }
+                if self.extra_files
+                else {}
             ),
         }
 
     @property
     def files(self) -> tuple[tuple[str, bytes], ...]:
         """Every data file of the study as (filename, bytes), the first one first."""
-        return ((self.data_filename, self.data),
-                *((f.filename, f.data) for f in self.extra_files))
+        return ((self.data_filename, self.data), *((f.filename, f.data) for f in self.extra_files))
 
     def source_of(self, name: str) -> str:
         """File name of the data file that holds characteristic ``name``."""
@@ -1076,9 +1102,7 @@ class Study:
                 why = f"voided on {v.when} by {v.who}: {v.reason}"
                 out.append(SignOffState(i, s, "voided", why))
             elif s.digest != current:
-                out.append(
-                    SignOffState(i, s, "voided", "data or decisions changed after signing")
-                )
+                out.append(SignOffState(i, s, "voided", "data or decisions changed after signing"))
             else:
                 out.append(SignOffState(i, s, "valid", ""))
         return tuple(out)
@@ -1099,8 +1123,9 @@ class Study:
     def _replace(self, **changes) -> Study:
         return dataclasses.replace(self, **changes)
 
-    def _check_lock(self, what: str, override_lock: bool, override_reason: str | None,
-                    who: str) -> tuple[Decision, ...]:
+    def _check_lock(
+        self, what: str, override_lock: bool, override_reason: str | None, who: str
+    ) -> tuple[Decision, ...]:
         """Refuse a change to a locked study, or return the void decisions an override adds."""
         holder = self.lock_holder()
         if holder is None:
@@ -1114,8 +1139,7 @@ class Study:
             )
         if not (override_reason or "").strip():
             raise StudyFileError(
-                f"overriding the lock for {what} needs a non-empty reason (--override-lock "
-                "REASON)"
+                f"overriding the lock for {what} needs a non-empty reason (--override-lock REASON)"
             )
         voids = []
         for st in self.signoff_state():
@@ -1126,8 +1150,12 @@ class Study:
                         "void_signoff",
                         reason=override_reason.strip(),
                         who=who or "unknown",
-                        payload={"signoff": st.index, "signer": st.signoff.name,
-                                 "role": st.signoff.role, "change": what},
+                        payload={
+                            "signoff": st.index,
+                            "signer": st.signoff.name,
+                            "role": st.signoff.role,
+                            "change": what,
+                        },
                     )
                 )
         return tuple(voids)
@@ -1139,11 +1167,11 @@ class Study:
         chars = dict(self.characteristics)
         crit = dict(self.criteria)
         _apply_effect(chars, crit, len(self.signoffs), d)
-        return self._replace(decisions=self.decisions + (d,), characteristics=chars,
-                             criteria=crit)
+        return self._replace(decisions=self.decisions + (d,), characteristics=chars, criteria=crit)
 
-    def with_decision(self, decision: Decision, *, override_lock: bool = False,
-                      override_reason: str | None = None) -> Study:
+    def with_decision(
+        self, decision: Decision, *, override_lock: bool = False, override_reason: str | None = None
+    ) -> Study:
         """A new Study with ``decision`` appended (and its effect applied).
 
         Raises :class:`~studykit.errors.StudyFileError` when the study is locked by an approval,
@@ -1157,8 +1185,10 @@ class Study:
         if decision.action == "set_model":
             check_model(decision.payload.get("model", ""), error=StudyInputError)
         if decision.action == "set_chart":
-            check_chart_fits(self.characteristics[decision.characteristic],
-                              str(decision.payload.get("chart", "")).strip().lower())
+            check_chart_fits(
+                self.characteristics[decision.characteristic],
+                str(decision.payload.get("chart", "")).strip().lower(),
+            )
         study = self
         if decision.action not in DIGEST_NEUTRAL_ACTIONS:
             what = f"{decision.action} on '{decision.characteristic}'"
@@ -1166,46 +1196,115 @@ class Study:
                 study = study._apply(v)
         return study._apply(decision)
 
-    def exclude(self, name: str, subgroup, *, reason: str, who: str = "", automatic: bool = False,
-                when: str = "", payload: Mapping | None = None, **lock) -> Study:
+    def exclude(
+        self,
+        name: str,
+        subgroup,
+        *,
+        reason: str,
+        who: str = "",
+        automatic: bool = False,
+        when: str = "",
+        payload: Mapping | None = None,
+        **lock,
+    ) -> Study:
         """Exclude ``subgroup`` of ``name`` from the analysis (with the reason on record)."""
-        d = Decision(name, "exclude", subgroup=subgroup, reason=reason, who=who, when=when,
-                     automatic=automatic, payload=payload or {})
+        d = Decision(
+            name,
+            "exclude",
+            subgroup=subgroup,
+            reason=reason,
+            who=who,
+            when=when,
+            automatic=automatic,
+            payload=payload or {},
+        )
         return self.with_decision(d, **lock)
 
-    def restore(self, name: str, subgroup, *, reason: str, who: str = "", automatic: bool = False,
-                when: str = "", **lock) -> Study:
+    def restore(
+        self,
+        name: str,
+        subgroup,
+        *,
+        reason: str,
+        who: str = "",
+        automatic: bool = False,
+        when: str = "",
+        **lock,
+    ) -> Study:
         """Bring an excluded subgroup back."""
-        d = Decision(name, "restore", subgroup=subgroup, reason=reason, who=who, when=when,
-                     automatic=automatic)
+        d = Decision(
+            name,
+            "restore",
+            subgroup=subgroup,
+            reason=reason,
+            who=who,
+            when=when,
+            automatic=automatic,
+        )
         return self.with_decision(d, **lock)
 
-    def keep_signal(self, name: str, subgroup, *, rule: str, reason: str, who: str,
-                    origin: str = "person", when: str = "", payload: Mapping | None = None,
-                    **lock) -> Study:
+    def keep_signal(
+        self,
+        name: str,
+        subgroup,
+        *,
+        rule: str,
+        reason: str,
+        who: str,
+        origin: str = "person",
+        when: str = "",
+        payload: Mapping | None = None,
+        **lock,
+    ) -> Study:
         """Record that the ``rule`` signal at ``subgroup`` of ``name`` is reviewed and kept:
         not a special cause, or a known common cause ("keep, with reason"). The subgroup stays
         in the analysis; the signal no longer withholds the verdict and is listed as reviewed.
         ``origin`` is ``"person"`` or ``"rejected_proposal"`` (a proposal of the automatic
         phase-I search that a person rejected)."""
-        d = Decision(name, "keep_signal", subgroup=subgroup, reason=reason, who=who, when=when,
-                     payload={**dict(payload or {}), "rule": str(rule), "origin": origin})
+        d = Decision(
+            name,
+            "keep_signal",
+            subgroup=subgroup,
+            reason=reason,
+            who=who,
+            when=when,
+            payload={**dict(payload or {}), "rule": str(rule), "origin": origin},
+        )
         return self.with_decision(d, **lock)
 
-    def reopen_signal(self, name: str, subgroup, *, rule: str, reason: str, who: str,
-                      when: str = "", **lock) -> Study:
+    def reopen_signal(
+        self, name: str, subgroup, *, rule: str, reason: str, who: str, when: str = "", **lock
+    ) -> Study:
         """Withdraw a ``keep_signal`` decision: the signal counts as open again."""
         if (str(subgroup), str(rule)) not in {(k[0], k[1]) for k in self.kept_signals(name)}:
             kept = ", ".join(f"{s} ({r})" for s, r in self.kept_signals(name)) or "none"
             raise StudyInputError(
                 f"no kept signal '{rule}' at subgroup {subgroup} of '{name}' to reopen "
-                f"(kept now: {kept})")
-        d = Decision(name, "reopen_signal", subgroup=subgroup, reason=reason, who=who, when=when,
-                     payload={"rule": str(rule)})
+                f"(kept now: {kept})"
+            )
+        d = Decision(
+            name,
+            "reopen_signal",
+            subgroup=subgroup,
+            reason=reason,
+            who=who,
+            when=when,
+            payload={"rule": str(rule)},
+        )
         return self.with_decision(d, **lock)
 
-    def with_spec(self, name: str, *, who: str, reason: str, when: str = "", override_lock=False,
-                  override_reason=None, **changes) -> Study:
+    def with_spec(
+        self,
+        name: str,
+        *,
+        who: str,
+        reason: str,
+        when: str = "",
+        override_lock=False,
+        override_reason=None,
+        **changes,
+    ) -> Study:
         """Change fields of a specification (``lsl=``, ``usl=``, ``target=``, ...).
 
         The change is recorded as a ``set_spec`` decision with the old and new values.
@@ -1221,37 +1320,66 @@ class Study:
             changes = {**changes, "model": check_model(changes["model"])}
         new = dataclasses.replace(old, **changes)  # validates
         fields = {k: getattr(new, k) for k in changes}
-        d = Decision(name, "set_spec", reason=reason, who=who, when=when,
-                     payload={"changes": fields, "old": {k: getattr(old, k) for k in changes}})
+        d = Decision(
+            name,
+            "set_spec",
+            reason=reason,
+            who=who,
+            when=when,
+            payload={"changes": fields, "old": {k: getattr(old, k) for k in changes}},
+        )
         return self.with_decision(d, override_lock=override_lock, override_reason=override_reason)
 
-    def with_criteria(self, name: str, criteria: Criteria, *, who: str, reason: str,
-                      when: str = "", override_lock=False, override_reason=None) -> Study:
+    def with_criteria(
+        self,
+        name: str,
+        criteria: Criteria,
+        *,
+        who: str,
+        reason: str,
+        when: str = "",
+        override_lock=False,
+        override_reason=None,
+    ) -> Study:
         """Set the acceptance criterion of ``name`` (recorded as a ``set_criteria`` decision)."""
         if not isinstance(criteria, Criteria):
             raise SpecError(f"`criteria` must be a Criteria, got {criteria!r}")
-        d = Decision(name, "set_criteria", reason=reason, who=who, when=when,
-                     payload={"criteria": criteria.to_dict(),
-                              "old": self.criteria_for(name).to_dict()})
+        d = Decision(
+            name,
+            "set_criteria",
+            reason=reason,
+            who=who,
+            when=when,
+            payload={"criteria": criteria.to_dict(), "old": self.criteria_for(name).to_dict()},
+        )
         return self.with_decision(d, override_lock=override_lock, override_reason=override_reason)
 
-    def with_comment(self, text: str, *, who: str, characteristic: str | None = None,
-                     when: str = "") -> Study:
+    def with_comment(
+        self, text: str, *, who: str, characteristic: str | None = None, when: str = ""
+    ) -> Study:
         """Add a comment (never locked, never voids a sign-off)."""
         if characteristic is not None:
             self.characteristic(characteristic)
         c = Comment(text, who=who, when=when, characteristic=characteristic)
         return self._replace(comments=self.comments + (c,))
 
-    def sign(self, name: str, *, role: str, decision: str, comment: str = "",
-             when: str = "") -> Study:
+    def sign(
+        self, name: str, *, role: str, decision: str, comment: str = "", when: str = ""
+    ) -> Study:
         """Add a sign-off on the study as it stands now (its digest is taken here)."""
         s = SignOff(name, role, decision, comment=comment, when=when, digest=self.content_digest())
         return self._replace(signoffs=self.signoffs + (s,))
 
     @classmethod
-    def replay(cls, *, characteristics, criteria=None, decisions: Iterable[Decision] = (),
-               signoffs: Iterable[SignOff] = (), **fields) -> Study:
+    def replay(
+        cls,
+        *,
+        characteristics,
+        criteria=None,
+        decisions: Iterable[Decision] = (),
+        signoffs: Iterable[SignOff] = (),
+        **fields,
+    ) -> Study:
         """Rebuild a study from its first specifications and its decisions in order.
 
         This is how a study file is read: specifications and criteria on file are the first ones;
@@ -1267,8 +1395,9 @@ class Study:
             if not isinstance(d, Decision):
                 raise StudyInputError(f"`decisions` must hold Decision objects, got {d!r}")
             _apply_effect(chars, crit, len(signoffs), d)
-        return base._replace(characteristics=chars, criteria=crit, decisions=decisions,
-                             signoffs=signoffs)
+        return base._replace(
+            characteristics=chars, criteria=crit, decisions=decisions, signoffs=signoffs
+        )
 
     # -- output --------------------------------------------------------------------------------
     def to_dict(self) -> dict:
@@ -1278,19 +1407,35 @@ class Study:
             "title": self.title,
             "part": self.part,
             "supplier": self.supplier,
-            "data": {"filename": self.data_filename, "bytes": len(self.data),
-                     "sha256": self.data_sha256},
-            "extra_files": [{"filename": f.filename, "bytes": len(f.data), "sha256": f.sha256}
-                            for f in self.extra_files],
+            "data": {
+                "filename": self.data_filename,
+                "bytes": len(self.data),
+                "sha256": self.data_sha256,
+            },
+            "extra_files": [
+                {"filename": f.filename, "bytes": len(f.data), "sha256": f.sha256}
+                for f in self.extra_files
+            ],
             "characteristics": [
-                dict(c.to_dict(), criteria=self.criteria_for(n).to_dict(),
-                     criteria_text=self.criteria_for(n).describe(),
-                     excluded_subgroups=sorted(self.excluded_subgroups(n), key=_label_key),
-                     kept_signals=[{"subgroup": lab, "rule": rule, "reason": d.reason,
-                                    "who": d.who, "when": d.when,
-                                    "origin": d.payload.get("origin", "person")}
-                                   for (lab, rule), d in self.kept_signals(n).items()],
-                     model=self.model_for(n), chart=self.chart_for(n))
+                dict(
+                    c.to_dict(),
+                    criteria=self.criteria_for(n).to_dict(),
+                    criteria_text=self.criteria_for(n).describe(),
+                    excluded_subgroups=sorted(self.excluded_subgroups(n), key=_label_key),
+                    kept_signals=[
+                        {
+                            "subgroup": lab,
+                            "rule": rule,
+                            "reason": d.reason,
+                            "who": d.who,
+                            "when": d.when,
+                            "origin": d.payload.get("origin", "person"),
+                        }
+                        for (lab, rule), d in self.kept_signals(n).items()
+                    ],
+                    model=self.model_for(n),
+                    chart=self.chart_for(n),
+                )
                 for n, c in self.characteristics.items()
             ],
             "decisions": [d.to_dict() for d in self.decisions],
@@ -1299,8 +1444,10 @@ class Study:
             "content_digest": self.content_digest(),
             "locked": any(st.valid and st.signoff.is_approval for st in states),
             "signoff_rules": self.signoff_rules(),
-            "waivers": {n: {"reason": d.reason, "who": d.who, "when": d.when}
-                        for n, d in self.waivers().items()},
+            "waivers": {
+                n: {"reason": d.reason, "who": d.who, "when": d.when}
+                for n, d in self.waivers().items()
+            },
         }
 
 
@@ -1326,8 +1473,9 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
         known = {f.name for f in dataclasses.fields(Characteristic)}
         unknown = sorted(set(new_fields) - known)
         if unknown:
-            raise SpecError(f"set_spec: unknown specification field(s) {unknown}: known are "
-                            f"{sorted(known)}")
+            raise SpecError(
+                f"set_spec: unknown specification field(s) {unknown}: known are {sorted(known)}"
+            )
         new = dataclasses.replace(old, **new_fields)
         if new.name in crit:
             check_criteria_fits(new, crit[new.name])
@@ -1351,7 +1499,8 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
         origin = d.payload.get("origin", "person")
         if origin not in KEEP_ORIGINS:
             raise StudyInputError(
-                f"keep_signal: `origin` ({origin!r}) must be one of {', '.join(KEEP_ORIGINS)}")
+                f"keep_signal: `origin` ({origin!r}) must be one of {', '.join(KEEP_ORIGINS)}"
+            )
     elif d.action == "void_signoff":
         idx = d.payload.get("signoff")
         if isinstance(idx, bool) or not isinstance(idx, int) or not 0 <= idx < n_signoffs:
@@ -1375,26 +1524,30 @@ def _check_signoff_setting(d: Decision) -> None:
     """Validate a ``set_signoff_rules`` (study-wide) or ``waive_verdict`` decision."""
     if d.action == "set_signoff_rules":
         if d.characteristic is not None:
-            raise StudyInputError("set_signoff_rules applies to the whole study: leave "
-                                  "`characteristic` empty")
+            raise StudyInputError(
+                "set_signoff_rules applies to the whole study: leave `characteristic` empty"
+            )
         rules = d.payload.get("rules")
         if not isinstance(rules, Mapping) or not rules:
-            raise StudyInputError("a set_signoff_rules decision needs payload {'rules': {name: "
-                                  f"true/false}}; names: {', '.join(DEFAULT_SIGNOFF_RULES)}")
+            raise StudyInputError(
+                "a set_signoff_rules decision needs payload {'rules': {name: "
+                f"true/false}}; names: {', '.join(DEFAULT_SIGNOFF_RULES)}"
+            )
         for key, value in rules.items():
             if key not in DEFAULT_SIGNOFF_RULES:
-                raise StudyInputError(f"unknown sign-off rule {key!r}; known rules: "
-                                      f"{', '.join(DEFAULT_SIGNOFF_RULES)}")
+                raise StudyInputError(
+                    f"unknown sign-off rule {key!r}; known rules: "
+                    f"{', '.join(DEFAULT_SIGNOFF_RULES)}"
+                )
             if not isinstance(value, bool):
-                raise StudyInputError(f"sign-off rule {key!r} must be true or false, got "
-                                      f"{value!r}")
+                raise StudyInputError(f"sign-off rule {key!r} must be true or false, got {value!r}")
     else:
         if d.characteristic is None:
-            raise StudyInputError("a waive_verdict decision needs the `characteristic` it "
-                                  "waives")
+            raise StudyInputError("a waive_verdict decision needs the `characteristic` it waives")
         if not isinstance(d.payload.get("waived"), bool):
-            raise StudyInputError("a waive_verdict decision needs payload {'waived': true or "
-                                  "false, 'reason': ...}")
+            raise StudyInputError(
+                "a waive_verdict decision needs payload {'waived': true or false, 'reason': ...}"
+            )
 
 
 def check_chart_fits(c: Characteristic, chart: str) -> None:
@@ -1430,12 +1583,15 @@ def _check_interval_criterion(crit: Criteria) -> None:
     if p is None and c is None:
         return
     if p is None or c is None:
-        raise SpecError("the tolerance-interval criterion needs both `interval_coverage` (P, "
-                        "e.g. 0.99) and `interval_confidence` (C, e.g. 0.95), or neither")
+        raise SpecError(
+            "the tolerance-interval criterion needs both `interval_coverage` (P, "
+            "e.g. 0.99) and `interval_confidence` (C, e.g. 0.95), or neither"
+        )
     for key, value in (("interval_coverage", p), ("interval_confidence", c)):
         if not 0.5 <= value < 1:
-            raise SpecError(f"`{key}` ({value!r}) must lie between 0.5 and 1 (a share, "
-                            "e.g. 0.99 for 99%)")
+            raise SpecError(
+                f"`{key}` ({value!r}) must lie between 0.5 and 1 (a share, e.g. 0.99 for 99%)"
+            )
 
 
 def check_criteria_fits(c: Characteristic, crit: Criteria) -> None:

@@ -188,14 +188,25 @@ class Verdict:
 
 
 VERDICTS: dict[str, Verdict] = {
-    "pass": Verdict("pass", names.VERDICT_STATES["meets"], OKABE_ITO["bluish_green"], "#E3F4EE", "✓",
-                    "#007D5B"),
-    "fail": Verdict("fail", names.VERDICT_STATES["does_not_meet"], OKABE_ITO["vermillion"], "#FBE9E0", "✗",
-                    "#B14E00"),
+    "pass": Verdict(
+        "pass", names.VERDICT_STATES["meets"], OKABE_ITO["bluish_green"], "#E3F4EE", "✓", "#007D5B"
+    ),
+    "fail": Verdict(
+        "fail",
+        names.VERDICT_STATES["does_not_meet"],
+        OKABE_ITO["vermillion"],
+        "#FBE9E0",
+        "✗",
+        "#B14E00",
+    ),
     "caution": Verdict("caution", "Read with care", ORANGE_LINE, "#FDF3D8", "!", "#956700"),
-    "pending": Verdict("pending", names.VERDICT_STATES["not_analysed"], INK_SOFT, PANEL, "…", INK_SOFT),
+    "pending": Verdict(
+        "pending", names.VERDICT_STATES["not_analysed"], INK_SOFT, PANEL, "…", INK_SOFT
+    ),
     # a verdict computed but withheld (signals left, trimming, order): the text says why
-    "withheld": Verdict("withheld", names.VERDICT_STATES["no_verdict"], INK_SOFT, PANEL, "?", INK_SOFT),
+    "withheld": Verdict(
+        "withheld", names.VERDICT_STATES["no_verdict"], INK_SOFT, PANEL, "?", INK_SOFT
+    ),
 }
 
 
@@ -212,7 +223,7 @@ def relative_luminance(hex_color: str) -> float:
     (1.0, 0.0)
     """
     h = hex_color.lstrip("#")
-    channels = [int(h[i:i + 2], 16) / 255 for i in (0, 2, 4)]
+    channels = [int(h[i : i + 2], 16) / 255 for i in (0, 2, 4)]
     r, g, b = (c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in channels)
     return 0.2126 * r + 0.7152 * g + 0.0722 * b
 
@@ -261,8 +272,18 @@ def matplotlib_style() -> dict:
     """
     from cycler import cycler
 
-    cycle = [OKABE_ITO[k] for k in ("blue", "orange", "bluish_green", "reddish_purple",
-                                    "sky_blue", "vermillion", "black")]
+    cycle = [
+        OKABE_ITO[k]
+        for k in (
+            "blue",
+            "orange",
+            "bluish_green",
+            "reddish_purple",
+            "sky_blue",
+            "vermillion",
+            "black",
+        )
+    ]
     return {
         "font.family": "sans-serif",
         "font.sans-serif": [FONT_FAMILY],
@@ -316,8 +337,12 @@ def mpl_line_kwargs(role: str) -> dict:
     '-.'
     """
     r = _role(role)
-    return {"color": r.color, "linestyle": r.mpl_linestyle or "-",
-            "linewidth": r.line_width * PT_PER_PX, "label": r.label}
+    return {
+        "color": r.color,
+        "linestyle": r.mpl_linestyle or "-",
+        "linewidth": r.line_width * PT_PER_PX,
+        "label": r.label,
+    }
 
 
 def mpl_marker_kwargs(role: str) -> dict:
@@ -369,22 +394,41 @@ def bokeh_theme():
     from bokeh.themes import Theme
 
     text = {"text_font": "Helvetica, Arial, sans-serif"}
-    return Theme(json={
-        "attrs": {
-            "Plot": {"background_fill_color": PAPER, "border_fill_color": PAPER,
-                     "outline_line_color": None, "min_border_left": 50},
-            "Axis": {"axis_label_text_font_size": "13px", "axis_label_text_color": INK_SOFT,
-                     "axis_label_text_font_style": "normal",
-                     "major_label_text_font_size": "12px", "major_label_text_color": INK_SOFT,
-                     "axis_line_color": INK_SOFT, "major_tick_line_color": INK_SOFT,
-                     "minor_tick_line_color": None},
-            "Grid": {"grid_line_color": RULE, "grid_line_alpha": 0.8},
-            "Title": {"text_font_size": "14px", "text_color": INK, "text_font_style": "bold",
-                      **text},
-            "Legend": {"label_text_font_size": "12px", "label_text_color": INK,
-                       "border_line_color": None, "background_fill_alpha": 0.85},
+    return Theme(
+        json={
+            "attrs": {
+                "Plot": {
+                    "background_fill_color": PAPER,
+                    "border_fill_color": PAPER,
+                    "outline_line_color": None,
+                    "min_border_left": 50,
+                },
+                "Axis": {
+                    "axis_label_text_font_size": "13px",
+                    "axis_label_text_color": INK_SOFT,
+                    "axis_label_text_font_style": "normal",
+                    "major_label_text_font_size": "12px",
+                    "major_label_text_color": INK_SOFT,
+                    "axis_line_color": INK_SOFT,
+                    "major_tick_line_color": INK_SOFT,
+                    "minor_tick_line_color": None,
+                },
+                "Grid": {"grid_line_color": RULE, "grid_line_alpha": 0.8},
+                "Title": {
+                    "text_font_size": "14px",
+                    "text_color": INK,
+                    "text_font_style": "bold",
+                    **text,
+                },
+                "Legend": {
+                    "label_text_font_size": "12px",
+                    "label_text_color": INK,
+                    "border_line_color": None,
+                    "background_fill_alpha": 0.85,
+                },
+            }
         }
-    })
+    )
 
 
 def style_bokeh_figure(fig):
@@ -466,10 +510,19 @@ def wrap_legends(fig) -> None:
         return
     rows0 = [leg.nrows if isinstance(leg.nrows, int) else 1 for leg in legends]
     row_height = 26  # one legend row at 12 px text with its glyph and padding
-    fig.js_on_change("inner_width", CustomJS(
-        args={"fig": fig, "legends": legends, "rows0": rows0, "row_height": row_height,
-              "base_height": fig.height if isinstance(fig.height, int) else 0},
-        code=_WRAP_LEGEND_JS))
+    fig.js_on_change(
+        "inner_width",
+        CustomJS(
+            args={
+                "fig": fig,
+                "legends": legends,
+                "rows0": rows0,
+                "row_height": row_height,
+                "base_height": fig.height if isinstance(fig.height, int) else 0,
+            },
+            code=_WRAP_LEGEND_JS,
+        ),
+    )
 
 
 def _role(name: str) -> Role:

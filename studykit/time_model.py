@@ -38,8 +38,14 @@ def time_model_for(values, labels, spec) -> tuple:
         "C4": "the location moves systematically (a trend) and at random",
         "D": "location and spread both change between subgroups",
     }[tm.cls]
-    return tm, (Finding(
-        code="time_model", severity="warning",
-        text=(f"Time-dependent model {tm.cls} (ISO 22514-2, from memory): {text}. Cp/Cpk from "
-              f"the within-subgroup sigma do not describe this process; the capability uses "
-              f"{tm.method}.{index}")),)
+    return tm, (
+        Finding(
+            code="time_model",
+            severity="warning",
+            text=(
+                f"Time-dependent model {tm.cls} (ISO 22514-2, from memory): {text}. Cp/Cpk from "
+                f"the within-subgroup sigma do not describe this process; the capability uses "
+                f"{tm.method}.{index}"
+            ),
+        ),
+    )

@@ -12,4 +12,3 @@ ROOT = Path(__file__).resolve().parent.parent
 @pytest.fixture
 def repo_root() -> Path:
     return ROOT
-

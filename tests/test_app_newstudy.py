@@ -31,9 +31,15 @@ SPECS = {  # demo_data/specs.csv and demo_data/specs_pull_off.csv
 
 
 def upload(step, data: bytes, name: str):
-    step._upload.value = ({"name": name, "type": "text/csv", "size": len(data),
-                           "content": memoryview(data),
-                           "last_modified": datetime.datetime(2026, 1, 1)},)
+    step._upload.value = (
+        {
+            "name": name,
+            "type": "text/csv",
+            "size": len(data),
+            "content": memoryview(data),
+            "last_modified": datetime.datetime(2026, 1, 1),
+        },
+    )
 
 
 @pytest.fixture
@@ -84,20 +90,40 @@ def test_study_made_in_the_page_equals_the_cli_study(wb, tmp_path, capsys):
     # the same study from the command line
     (tmp_path / "specs.csv").write_text(
         (DEMO / "specs.csv").read_text()
-        + (DEMO / "specs_pull_off.csv").read_text().splitlines()[1] + "\n")
+        + (DEMO / "specs_pull_off.csv").read_text().splitlines()[1]
+        + "\n"
+    )
     for name in ("pump_housing_pilot.csv", "pull_off_force.csv"):
         shutil.copy(DEMO / name, tmp_path / name)
     cli = tmp_path / "pilot-from-cli.study"
-    assert main(["study", "new", str(cli), "--data", str(tmp_path / "pump_housing_pilot.csv"),
-                 "--data", str(tmp_path / "pull_off_force.csv"), "--specs",
-                 str(tmp_path / "specs.csv"), "--title", "Pilot", "--who", "R. Okonkwo"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "new",
+                str(cli),
+                "--data",
+                str(tmp_path / "pump_housing_pilot.csv"),
+                "--data",
+                str(tmp_path / "pull_off_force.csv"),
+                "--specs",
+                str(tmp_path / "specs.csv"),
+                "--title",
+                "Pilot",
+                "--who",
+                "R. Okonkwo",
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
     a, b = StudyFile(made).load(), StudyFile(cli).load()
     assert a.content_digest() == b.content_digest()
     assert [n for n, _ in a.files] == [n for n, _ in b.files]
     ra, rb = analyze_all(a), analyze_all(b)
-    assert json.dumps({n: r.to_dict() for n, r in ra.results.items()}, sort_keys=True) == \
-        json.dumps({n: r.to_dict() for n, r in rb.results.items()}, sort_keys=True)
+    assert json.dumps(
+        {n: r.to_dict() for n, r in ra.results.items()}, sort_keys=True
+    ) == json.dumps({n: r.to_dict() for n, r in rb.results.items()}, sort_keys=True)
 
 
 def test_bad_upload_gives_the_command_line_message(wb, tmp_path, capsys):
@@ -124,16 +150,29 @@ def test_bad_table_cell_gives_the_command_line_message(wb, tmp_path, capsys):
     # the same row in a specs file given to the command line
     (tmp_path / "specs.csv").write_text(
         "characteristic,unit,lsl,usl,target,safety_critical,criterion,threshold,basis\n"
-        "pull_off_force,N,\"180,5x\",,,yes,ppk,1.67,lower_bound\n")
+        'pull_off_force,N,"180,5x",,,yes,ppk,1.67,lower_bound\n'
+    )
     shutil.copy(DEMO / "pull_off_force.csv", tmp_path / "pull_off_force.csv")
-    assert main(["study", "new", str(tmp_path / "y.study"), "--data",
-                 str(tmp_path / "pull_off_force.csv"), "--specs",
-                 str(tmp_path / "specs.csv")]) == 2
+    assert (
+        main(
+            [
+                "study",
+                "new",
+                str(tmp_path / "y.study"),
+                "--data",
+                str(tmp_path / "pull_off_force.csv"),
+                "--specs",
+                str(tmp_path / "specs.csv"),
+            ]
+        )
+        == 2
+    )
     cli = capsys.readouterr().err.strip()
     assert "row 2" in text and "`lsl` ('180,5x') is not a number" in text
     # word for word, apart from the name of the table
     assert cli == "studykit study: error: " + text.replace(
-        "specification table (in the page)", "specs.csv")
+        "specification table (in the page)", "specs.csv"
+    )
 
 
 def test_an_existing_study_file_is_never_overwritten(wb, tmp_path):

@@ -14,17 +14,35 @@ from studykit.app.server import BOKEHJS_ROUTE, running_server
 
 ROOT = Path(__file__).resolve().parent.parent
 NOTEBOOKS = ROOT / "notebooks"
-ERROR_SIGNS = ["Traceback", "There was an error when executing", '"output_type": "error"',
-               '"ename"', "Something went wrong"]
+ERROR_SIGNS = [
+    "Traceback",
+    "There was an error when executing",
+    '"output_type": "error"',
+    '"ename"',
+    "Something went wrong",
+]
 
 
 def test_notebooks_run_under_nbval():
     # nbval runs in its own pytest process so the plain `pytest tests` run includes it
     # without collecting notebooks/ (DEVELOPERS.md, "Stack notes": --nbval-lax --nbval-current-env)
     proc = subprocess.run(
-        [sys.executable, "-m", "pytest", "--nbval-lax", "--nbval-current-env",
-         "-p", "no:cacheprovider", "-q", "notebooks"],
-        cwd=ROOT, capture_output=True, text=True, timeout=300)
+        [
+            sys.executable,
+            "-m",
+            "pytest",
+            "--nbval-lax",
+            "--nbval-current-env",
+            "-p",
+            "no:cacheprovider",
+            "-q",
+            "notebooks",
+        ],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-2000:]
     assert " passed" in proc.stdout
 
@@ -53,17 +71,24 @@ def fetch(url: str) -> str:
         return response.read().decode("utf-8")
 
 
-@pytest.mark.parametrize("notebook, must_show", [
-    ("workbook.ipynb", ["application/vnd.jupyter.widget-view+json"]),
-    ("fixtures/chart.ipynb", ["application/vnd.jupyter.widget-view+json"]),
-    ("fixtures/messages.ipynb", ["Study file not found"]),
-])
+@pytest.mark.parametrize(
+    "notebook, must_show",
+    [
+        ("workbook.ipynb", ["application/vnd.jupyter.widget-view+json"]),
+        ("fixtures/chart.ipynb", ["application/vnd.jupyter.widget-view+json"]),
+        ("fixtures/messages.ipynb", ["Study file not found"]),
+    ],
+)
 def test_voila_renders_without_errors_or_source(voila_root, notebook, must_show):
     page = fetch(f"{voila_root}voila/render/{notebook}")
     for sign in ERROR_SIGNS:
         assert sign not in page, f"{notebook}: page shows {sign!r}"
-    for source_line in ("workbook_from_environment()", "load_bokehjs()", "build_workbook(",
-                        "import "):
+    for source_line in (
+        "workbook_from_environment()",
+        "load_bokehjs()",
+        "build_workbook(",
+        "import ",
+    ):
         assert source_line not in page, f"{notebook}: page shows source {source_line!r}"
     for text in must_show:
         assert text in page
@@ -73,8 +98,9 @@ def test_bokehjs_is_one_static_file_not_inlined(voila_root):
     page = fetch(f"{voila_root}voila/render/fixtures/chart.ipynb")
     assert f"{BOKEHJS_ROUTE}bokeh.min.js" in page
     assert len(page.encode()) < 300_000  # inline BokehJS would add about 1.3 MB
-    request = urllib.request.Request(f"{voila_root}{BOKEHJS_ROUTE.lstrip('/')}bokeh.min.js",
-                                     headers={"Accept-Encoding": "gzip"})
+    request = urllib.request.Request(
+        f"{voila_root}{BOKEHJS_ROUTE.lstrip('/')}bokeh.min.js", headers={"Accept-Encoding": "gzip"}
+    )
     with urllib.request.urlopen(request, timeout=30) as response:
         assert response.headers["Content-Encoding"] == "gzip"
         assert "max-age" in response.headers.get("Cache-Control", "")

@@ -20,9 +20,11 @@ def test_the_icon_font_is_installed_with_its_files():
 
 
 def test_remote_links_are_rewritten_to_the_server():
-    page = ('<link href="https://cdn.example.org/npm/@fortawesome/fontawesome-free@^5/css/'
-            'all.min.css"/><link href="https://cdn.example.org/npm/@fortawesome/'
-            'fontawesome-free@^5/css/v4-shims.min.css"/><link href="/static/x.css"/>')
+    page = (
+        '<link href="https://cdn.example.org/npm/@fortawesome/fontawesome-free@^5/css/'
+        'all.min.css"/><link href="https://cdn.example.org/npm/@fortawesome/'
+        'fontawesome-free@^5/css/v4-shims.min.css"/><link href="/static/x.css"/>'
+    )
     out = local_assets.localise_links(page, "/base/")
     assert out.count('href="/base/studykit/fontawesome/5/css/') == 2
     assert "example.org" not in out and 'href="/static/x.css"' in out
@@ -34,7 +36,10 @@ def test_only_style_sheets_and_fonts_are_served(tmp_path):
 
     handler = local_assets.FontAwesomeHandler.__new__(local_assets.FontAwesomeHandler)
     root = str(local_assets.fontawesome_dir())
-    for bad in ("LICENSE.txt", "js-packages/@fortawesome/fontawesome-free/css/all.min.css",
-                "css/../LICENSE.txt"):
+    for bad in (
+        "LICENSE.txt",
+        "js-packages/@fortawesome/fontawesome-free/css/all.min.css",
+        "css/../LICENSE.txt",
+    ):
         with pytest.raises(tornado.web.HTTPError):
             handler.validate_absolute_path(root, f"{root}/{bad}")

@@ -39,8 +39,15 @@ def study_path(tmp_path):
 
 @pytest.fixture
 def wb(study_path):
-    steps = [IntakeStep(), LimitsStep(), StabilityStep(), ShapeStep(), CapabilityStep(),
-             SignoffStep(), ExportStep()]
+    steps = [
+        IntakeStep(),
+        LimitsStep(),
+        StabilityStep(),
+        ShapeStep(),
+        CapabilityStep(),
+        SignoffStep(),
+        ExportStep(),
+    ]
     wb = build_workbook(study_path, steps=steps)
     for s in steps[1:]:
         wb.select(s.key)
@@ -67,8 +74,9 @@ def test_tap_removal_changes_every_panel_and_the_file(wb, study_path):
     stab.act.click()
     after = session.result(NAME).capability.ppk
     spec = session.study.characteristic(NAME)
-    assert after == pytest.approx(reference_ppk(session.study, NAME, {"17", "18", "5"},
-                                                spec.lsl, spec.usl), rel=1e-9)
+    assert after == pytest.approx(
+        reference_ppk(session.study, NAME, {"17", "18", "5"}, spec.lsl, spec.usl), rel=1e-9
+    )
     assert after != pytest.approx(before, rel=1e-6)
     # the capability panel shows the new bound; the stability chart shows 5 as removed
     assert f"{session.result(NAME).verdict.lower_bound:.2f}" in cap.verdict.value
@@ -149,8 +157,11 @@ def test_warning_limits_toggle(wb):
 
 
 def _overview_text(panel) -> str:
-    return " ".join(getattr(c, "value", "") for row in panel.table.children
-                    for c in (row.children if hasattr(row, "children") else [row]))
+    return " ".join(
+        getattr(c, "value", "")
+        for row in panel.table.children
+        for c in (row.children if hasattr(row, "children") else [row])
+    )
 
 
 def test_overview_analyses_on_opening_and_after_a_change(wb, study_path):
@@ -162,10 +173,8 @@ def test_overview_analyses_on_opening_and_after_a_change(wb, study_path):
     # its chart has one row per characteristic with an index, in the table's values
     rows = {r["characteristic"]: r for r in overview_rows(session)}
     drawn = lim.overview.chart.source.data
-    assert sorted(drawn["name"]) == sorted(n for n, r in rows.items()
-                                           if r["estimate"] is not None)
-    for name, est, lb in zip(drawn["name"], drawn["estimate"], drawn["lower_bound"],
-                             strict=True):
+    assert sorted(drawn["name"]) == sorted(n for n, r in rows.items() if r["estimate"] is not None)
+    for name, est, lb in zip(drawn["name"], drawn["estimate"], drawn["lower_bound"], strict=True):
         assert est == rows[name]["estimate"] and lb == rows[name]["lower_bound"]
     # a specification change invalidates the result; the overview analyses it again at once
     lim.usl.value = "8.08"
@@ -188,8 +197,11 @@ def test_overview_sorts_and_opens(wb):
     assert bounds == sorted(bounds, reverse=True)
     lim.overview.sort.value = "lower_bound"
     lim.overview.descending.value = True
-    names_shown = [c.children[0].description for c in lim.overview.table.children[6::6]
-                   if hasattr(c, "children")]  # stream rows (an HTML cell) sit under theirs
+    names_shown = [
+        c.children[0].description
+        for c in lim.overview.table.children[6::6]
+        if hasattr(c, "children")
+    ]  # stream rows (an HTML cell) sit under theirs
     assert names_shown == [r["characteristic"] for r in ordered]
     button = lim.overview.table.children[6].children[0]
     button.click()
@@ -214,7 +226,9 @@ def test_spec_panel_needs_a_reason(wb, study_path):
 
 def test_shape_model_preview_then_record(wb, study_path):
     shape = wb.step("shape")
-    assert "Anderson-Darling" in shape.tests.value and "Fitted model families" in shape.ranking.value
+    assert (
+        "Anderson-Darling" in shape.tests.value and "Fitted model families" in shape.ranking.value
+    )
     shape.model.value = "boxcox"
     assert "With the choice" in shape.effect.value
     assert shape.save.disabled
@@ -230,8 +244,9 @@ def test_capability_planner_uses_parts_needed(wb):
     cap = wb.step("capability")
     res = cap.ws.session.result(NAME)
     cap.assumed.value = 2.0
-    plan = parts_needed(2.0, res.verdict.threshold, index=res.verdict.index,
-                        level=res.verdict.level)
+    plan = parts_needed(
+        2.0, res.verdict.threshold, index=res.verdict.index, level=res.verdict.level
+    )
     assert f"{plan.n} parts" in cap.plan.value
     assert "Parts per million" in cap.ppm.value
 
@@ -307,8 +322,9 @@ def test_download_link_escapes_the_name():
 def test_chart_columns_read_the_result():
     session = StudySession(demo_study_path())
     res = session.result(NAME)
-    cols = control_chart_columns(res, full_chart=session.full_chart(NAME),
-                                 details=session.subgroup_details(NAME))
+    cols = control_chart_columns(
+        res, full_chart=session.full_chart(NAME), details=session.subgroup_details(NAME)
+    )
     loc = cols["location"]["points"]
     status = dict(zip(loc["label"], loc["status"], strict=True))
     assert status["17"] == status["18"] == "removed" and status["1"] == "kept"
@@ -329,8 +345,15 @@ def test_chart_columns_read_the_result():
 
 
 def test_without_a_study_file_the_panels_say_so():
-    steps = [IntakeStep(), LimitsStep(), StabilityStep(), ShapeStep(), CapabilityStep(),
-             SignoffStep(), ExportStep()]
+    steps = [
+        IntakeStep(),
+        LimitsStep(),
+        StabilityStep(),
+        ShapeStep(),
+        CapabilityStep(),
+        SignoffStep(),
+        ExportStep(),
+    ]
     wb = build_workbook(None, steps=steps)
     for s in steps[1:]:
         wb.select(s.key)
@@ -342,10 +365,14 @@ def test_stability_tick_needs_every_characteristic_quiet(wb):
     stab = wb.step("stability")
     assert not stab.is_done(wb.context)  # not every characteristic analysed yet
     stab.ws.session.analyze_all()
-    quiet = all(not stab.ws.session.result(n).chart.location.signals
-                and not (stab.ws.session.result(n).chart.dispersion is not None
-                         and stab.ws.session.result(n).chart.dispersion.signals)
-                for n in stab.ws.session.names)
+    quiet = all(
+        not stab.ws.session.result(n).chart.location.signals
+        and not (
+            stab.ws.session.result(n).chart.dispersion is not None
+            and stab.ws.session.result(n).chart.dispersion.signals
+        )
+        for n in stab.ws.session.names
+    )
     assert stab.is_done(wb.context) is quiet
 
 

@@ -57,7 +57,8 @@ def test_removal_changes_the_index_and_is_on_file(study_path):
     assert sorted(before.removed_subgroups) == ["17", "18"]
     spec = session.study.characteristic(NAME)
     assert before.capability.ppk == pytest.approx(
-        reference_ppk(session.study, NAME, {"17", "18"}, spec.lsl, spec.usl), rel=1e-9)
+        reference_ppk(session.study, NAME, {"17", "18"}, spec.lsl, spec.usl), rel=1e-9
+    )
     heard = []
     session.subscribe(lambda s, changed: heard.append(changed))
 
@@ -89,10 +90,13 @@ def test_restore_brings_the_subgroup_back(study_path):
     assert [(r.action, r.in_force) for r in rows] == [("exclude", False), ("restore", False)]
 
 
-@pytest.mark.parametrize("kwargs, match", [
-    ({"reason": "", "who": "A. Tester"}, "`reason` is empty"),
-    ({"reason": "x", "who": "  "}, "`who` is empty"),
-])
+@pytest.mark.parametrize(
+    "kwargs, match",
+    [
+        ({"reason": "", "who": "A. Tester"}, "`reason` is empty"),
+        ({"reason": "x", "who": "  "}, "`who` is empty"),
+    ],
+)
 def test_removal_needs_reason_and_name(study_path, kwargs, match):
     session = StudySession(study_path)
     with pytest.raises(StudyInputError, match=match):
@@ -123,8 +127,7 @@ def test_proposals_are_reviewed_before_they_are_recorded(study_path):
     assert not StudyFile(study_path).load().excluded_subgroups(NAME)
     with pytest.raises(StudyInputError, match="`reason` is empty"):
         session.record_removals(NAME, [(proposals[0], "")], who="A. Tester")
-    n = session.record_removals(NAME, [(proposals[0], "insert chipped, NCR-0412")],
-                                who="A. Tester")
+    n = session.record_removals(NAME, [(proposals[0], "insert chipped, NCR-0412")], who="A. Tester")
     assert n == 1
     d = StudyFile(study_path).load().excluded_subgroups(NAME)[proposals[0].label]
     assert d.automatic and d.who == "A. Tester" and d.payload["rule"] == proposals[0].rule
@@ -137,17 +140,27 @@ def test_spec_change_is_recorded_and_recomputed(study_path):
     with pytest.raises(StudyInputError, match="`reason` is empty"):
         session.update_characteristic(NAME, who="A", reason=" ", spec={"usl": 8.08})
     changed = session.update_characteristic(
-        NAME, who="A. Tester", reason="drawing rev C", spec={"usl": 8.08},
-        criteria=Criteria(index="ppk", threshold=1.33))
+        NAME,
+        who="A. Tester",
+        reason="drawing rev C",
+        spec={"usl": 8.08},
+        criteria=Criteria(index="ppk", threshold=1.33),
+    )
     assert changed
     res = session.result(NAME)
     assert res.spec["usl"] == 8.08 and res.criteria["threshold"] == 1.33
     assert res.capability.ppk == pytest.approx(
-        reference_ppk(session.study, NAME, {"17", "18"}, spec.lsl, 8.08), rel=1e-9)
-    actions = [(d.action, d.who, d.reason) for d in StudyFile(study_path).load().decisions
-               if d.characteristic == NAME][-2:]
-    assert actions == [("set_spec", "A. Tester", "drawing rev C"),
-                       ("set_criteria", "A. Tester", "drawing rev C")]
+        reference_ppk(session.study, NAME, {"17", "18"}, spec.lsl, 8.08), rel=1e-9
+    )
+    actions = [
+        (d.action, d.who, d.reason)
+        for d in StudyFile(study_path).load().decisions
+        if d.characteristic == NAME
+    ][-2:]
+    assert actions == [
+        ("set_spec", "A. Tester", "drawing rev C"),
+        ("set_criteria", "A. Tester", "drawing rev C"),
+    ]
     assert not session.update_characteristic(NAME, who="A", reason="x", spec={"usl": 8.08})
 
 
@@ -196,8 +209,10 @@ def test_two_sessions_sign_at_once_one_lands_the_other_is_refused_then_lands(stu
         except StaleView as exc:
             errors.append((session, who, role, exc))
 
-    threads = [threading.Thread(target=sign, args=(a, "P. One", "prepared")),
-               threading.Thread(target=sign, args=(b, "R. Two", "reviewed"))]
+    threads = [
+        threading.Thread(target=sign, args=(a, "P. One", "prepared")),
+        threading.Thread(target=sign, args=(b, "R. Two", "reviewed")),
+    ]
     for t in threads:
         t.start()
     for t in threads:
@@ -221,8 +236,7 @@ def test_a_change_in_another_session_reaches_this_one_on_reload(study_path):
     assert a.result(NAME).capability.ppk == ppk_a  # not read yet
     a.reload()
     assert "3" in a.result(NAME).removed_subgroups
-    assert a.result(NAME).capability.ppk == pytest.approx(
-        b.result(NAME).capability.ppk, rel=1e-12)
+    assert a.result(NAME).capability.ppk == pytest.approx(b.result(NAME).capability.ppk, rel=1e-12)
 
 
 def test_subgroup_details_come_from_the_file(study_path):

@@ -19,9 +19,15 @@ CSV = b"Bore (mm),Batch\n10.01,1\n10.02,1\n9.99,2\n10.00,2\n10.03,3\n,3\n"
 
 
 def upload(step, data: bytes, name: str = "bore.csv"):
-    step._upload.value = ({"name": name, "type": "text/csv", "size": len(data),
-                           "content": memoryview(data),
-                           "last_modified": datetime.datetime(2026, 1, 1)},)
+    step._upload.value = (
+        {
+            "name": name,
+            "type": "text/csv",
+            "size": len(data),
+            "content": memoryview(data),
+            "last_modified": datetime.datetime(2026, 1, 1),
+        },
+    )
 
 
 def test_guarded_shows_input_errors_verbatim():
@@ -155,7 +161,8 @@ def test_reader_crash_is_summarised():
     wb = build_workbook(reader=reader)
     upload(wb.steps[0], CSV)
     assert wb.context.messages.messages[0][1].startswith(
-        "Something went wrong: RuntimeError: disk on fire")
+        "Something went wrong: RuntimeError: disk on fire"
+    )
 
 
 def test_characteristic_names_are_escaped():
@@ -166,9 +173,14 @@ def test_characteristic_names_are_escaped():
 
 def test_safety_critical_characteristics_get_the_caution_banner():
     wb = build_workbook()
-    study = SimpleNamespace(title="Bracket", part="BR-7", characteristics={
-        "Weld": SimpleNamespace(name="Weld", safety_critical=True),
-        "Hole": SimpleNamespace(name="Hole", safety_critical=False)})
+    study = SimpleNamespace(
+        title="Bracket",
+        part="BR-7",
+        characteristics={
+            "Weld": SimpleNamespace(name="Weld", safety_critical=True),
+            "Hole": SimpleNamespace(name="Hole", safety_critical=False),
+        },
+    )
     wb.context.update(study=study, title=study.title, part=study.part, state="Study open")
     assert "Bracket" in wb._header.value and "BR-7" in wb._header.value
     (banner,) = wb._caution.children

@@ -46,8 +46,16 @@ class Counting:
 
 def test_every_workbook_gets_its_own_step_objects():
     a, b = default_steps(), default_steps()
-    assert [s.key for s in a] == ["intake", "limits", "measuring", "stability", "shape",
-                                  "capability", "signoff", "export"]
+    assert [s.key for s in a] == [
+        "intake",
+        "limits",
+        "measuring",
+        "stability",
+        "shape",
+        "capability",
+        "signoff",
+        "export",
+    ]
     assert all(x is not y for x, y in zip(a, b, strict=True))
     wb1, wb2 = build_workbook(), build_workbook()
     assert not {id(s) for s in wb1.steps} & {id(s) for s in wb2.steps}

@@ -53,10 +53,16 @@ def test_capability_step_shows_the_trend_class(tmp_path):
 
     demo = Path(__file__).resolve().parents[1] / "demo_data"
     path = tmp_path / "wear.study"
-    StudyFile.create(path, data=(demo / "shaft_seat_wear.csv").read_bytes(),
-                     filename="shaft_seat_wear.csv", title="wear", who="test",
-                     characteristics=[Characteristic("shaft_seat_diameter", unit="mm",
-                                                     lsl=14.98, usl=15.02, target=15.0)])
+    StudyFile.create(
+        path,
+        data=(demo / "shaft_seat_wear.csv").read_bytes(),
+        filename="shaft_seat_wear.csv",
+        title="wear",
+        who="test",
+        characteristics=[
+            Characteristic("shaft_seat_diameter", unit="mm", lsl=14.98, usl=15.02, target=15.0)
+        ],
+    )
     steps = [IntakeStep(), CapabilityStep()]
     wb = build_workbook(path, steps=steps)
     wb.select("capability")
@@ -71,11 +77,16 @@ def test_overview_lists_streams_under_their_characteristic(wb):
     lim = wb.step("limits")
     lim.overview.analyse.click()
     cells = lim.overview.table.children
-    names = [(c.children[0].description if hasattr(c, "children") else c.value)
-             for c in cells[6::6]]
+    names = [
+        (c.children[0].description if hasattr(c, "children") else c.value) for c in cells[6::6]
+    ]
     at = names.index(STREAMED)
-    assert names[at + 1:at + 5] == ["↳ stream 1", "↳ stream 2", "↳ stream 3 (worst)",
-                                    "↳ stream 4"]
+    assert names[at + 1 : at + 5] == [
+        "↳ stream 1",
+        "↳ stream 2",
+        "↳ stream 3 (worst)",
+        "↳ stream 4",
+    ]
     res = lim.ws.session.result(STREAMED)
-    row3 = cells[6 * (at + 3) + 6: 6 * (at + 3) + 12]
+    row3 = cells[6 * (at + 3) + 6 : 6 * (at + 3) + 12]
     assert f"{res.streams.results['3'].verdict.lower_bound:.2f}" in row3[3].value

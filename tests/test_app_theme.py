@@ -25,7 +25,7 @@ PUBLISHED_OKABE_ITO = {
 
 def rgb(hex_color):
     h = hex_color.lstrip("#")
-    return tuple(int(h[i:i + 2], 16) for i in (0, 2, 4))
+    return tuple(int(h[i : i + 2], 16) for i in (0, 2, 4))
 
 
 def test_palette_matches_published_values():
@@ -70,7 +70,9 @@ def test_meaning_never_rests_on_colour_alone():
 
 
 def test_unknown_role_names_the_known_ones():
-    with pytest.raises(StudyInputError, match=r"`role` \('nope'\) is not a chart role.*control_limit"):
+    with pytest.raises(
+        StudyInputError, match=r"`role` \('nope'\) is not a chart role.*control_limit"
+    ):
         theme.bokeh_line_kwargs("nope")
     with pytest.raises(StudyInputError, match="not a known role"):
         theme.color("nope")
@@ -85,8 +87,9 @@ def test_matplotlib_style_draws_every_role():
     with theme.matplotlib_context():
         assert matplotlib.rcParams["pdf.fonttype"] == 42
         fig, ax = plt.subplots(figsize=(4, 2))
-        for i, name in enumerate(["centre_line", "control_limit", "warning_limit",
-                                  "spec_limit", "target", "fit"]):
+        for i, name in enumerate(
+            ["centre_line", "control_limit", "warning_limit", "spec_limit", "target", "fit"]
+        ):
             ax.axhline(i, **theme.mpl_line_kwargs(name))
         for name in ("data", "signal", "excluded", "secondary"):
             ax.scatter([1, 2], [1, 2], **theme.mpl_marker_kwargs(name))
@@ -133,14 +136,15 @@ def test_text_on_the_accent_and_done_steps_reaches_4_5_to_1():
 def test_focus_ring_reaches_3_to_1_on_every_frame_colour(background):
     bg = getattr(theme, background)
     # the ring is two colours: at least one of them stands out 3:1 on every background
-    assert max(theme.contrast_ratio(theme.FOCUS, bg),
-               theme.contrast_ratio(theme.FOCUS_HALO, bg)) >= 3.0
+    assert (
+        max(theme.contrast_ratio(theme.FOCUS, bg), theme.contrast_ratio(theme.FOCUS_HALO, bg))
+        >= 3.0
+    )
 
 
 def test_frame_colours_are_tinted_from_the_chart_palette():
     # every neutral of the frame leans to the palette's blue: blue channel above red
-    for name in ("INK", "INK_SOFT", "RULE", "RULE_SOFT", "PANEL", "PAGE", "TINT",
-                 "EXCLUDED_GREY"):
+    for name in ("INK", "INK_SOFT", "RULE", "RULE_SOFT", "PANEL", "PAGE", "TINT", "EXCLUDED_GREY"):
         r, _g, b = rgb(getattr(theme, name))
         assert b > r, name
     assert theme.ACCENT == theme.OKABE_ITO["blue"]
@@ -151,8 +155,11 @@ def test_the_style_sheet_uses_only_theme_colours_and_has_a_focus_ring():
 
     from studykit.app.widgets import CSS
 
-    known = {v.upper() for k, v in vars(theme).items()
-             if k.isupper() and isinstance(v, str) and v.startswith("#")}
+    known = {
+        v.upper()
+        for k, v in vars(theme).items()
+        if k.isupper() and isinstance(v, str) and v.startswith("#")
+    }
     known |= {v.upper() for v in theme.OKABE_ITO.values()}
     for v in theme.VERDICTS.values():
         known |= {v.color.upper(), v.background.upper(), v.text_color.upper()}

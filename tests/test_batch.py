@@ -96,7 +96,13 @@ def _one_by_one(m, chars, crit, name):
 def test_rows_equal_one_by_one_analysis(inputs, local):
     m, chars, crit = inputs
     assert [r["characteristic"] for r in local.rows] == [
-        "bore", "gap", "runout", "flat", "lonely", "=cmd", "ghost",
+        "bore",
+        "gap",
+        "runout",
+        "flat",
+        "lonely",
+        "=cmd",
+        "ghost",
     ]
     for name in ("bore", "gap", "runout", "flat", "=cmd"):
         res = _one_by_one(m, chars, crit, name)
@@ -114,8 +120,15 @@ def test_rows_equal_one_by_one_analysis(inputs, local):
 def test_processes_give_identical_rows(inputs, local):
     m, chars, crit = inputs
     calls = []
-    par = run_many(m, chars, crit, options=OPTIONS, jobs=2, chunk_size=2,
-                   progress=lambda d, t, n: calls.append((d, t, n)))
+    par = run_many(
+        m,
+        chars,
+        crit,
+        options=OPTIONS,
+        jobs=2,
+        chunk_size=2,
+        progress=lambda d, t, n: calls.append((d, t, n)),
+    )
     assert par.backend == "processes" and par.jobs == 2
     assert par.rows == local.rows
     done = [c[0] for c in calls]
@@ -143,9 +156,16 @@ def test_no_spec_is_stability_only(inputs, local):
 def test_progress_callback_local(inputs):
     m, chars, crit = inputs
     calls = []
-    res = run_many(m, chars, crit, options=OPTIONS, jobs=1, chunk_size=3,
-                   names=["bore", "gap", "flat", "lonely"],
-                   progress=lambda d, t, n: calls.append((d, t, n)))
+    res = run_many(
+        m,
+        chars,
+        crit,
+        options=OPTIONS,
+        jobs=1,
+        chunk_size=3,
+        names=["bore", "gap", "flat", "lonely"],
+        progress=lambda d, t, n: calls.append((d, t, n)),
+    )
     assert [r["characteristic"] for r in res.rows] == ["bore", "gap", "flat", "lonely"]
     assert calls == [(3, 4, "flat"), (4, 4, "lonely")]
 
@@ -153,8 +173,15 @@ def test_progress_callback_local(inputs):
 def test_exclusions_and_criteria_reach_the_analysis(inputs):
     m, chars, crit = inputs
     strict = {"gap": Criteria(index="pp", threshold=50.0)}
-    res = run_many(m, chars, strict, options=OPTIONS, jobs=1, names=["gap"],
-                   exclusions={"gap": {"1": ("tool change", "tester")}})
+    res = run_many(
+        m,
+        chars,
+        strict,
+        options=OPTIONS,
+        jobs=1,
+        names=["gap"],
+        exclusions={"gap": {"1": ("tool change", "tester")}},
+    )
     row = res.rows[0]
     assert row["index"] == "pp" and row["meets"] is False
     assert row["n"] == N - 1
@@ -175,8 +202,7 @@ def test_jsonl_csv_xlsx(local, tmp_path):
     assert [json.loads(ln) for ln in lines] == [dict(r) for r in local.rows]
 
     local.write(tmp_path / "o.csv")
-    rows = list(csv.DictReader(io.StringIO((tmp_path / "o.csv").read_text(
-        encoding="utf-8-sig"))))
+    rows = list(csv.DictReader(io.StringIO((tmp_path / "o.csv").read_text(encoding="utf-8-sig"))))
     assert tuple(rows[0]) == BATCH_COLUMNS
     assert rows[0]["characteristic"] == "bore"
     assert float(rows[0]["estimate"]) == pytest.approx(local.rows[0]["estimate"], rel=1e-12)
@@ -218,12 +244,19 @@ def test_csv_never_starts_a_cell_with_a_formula_character(name):
 def test_cli_all_to_csv(files, tmp_path, capsys):
     data, specs = files
     out = tmp_path / "summary.csv"
-    status = main(["analyze", str(data), "--all", "--specs", str(specs), "--out", str(out),
-                   "--jobs", "1"])
+    status = main(
+        ["analyze", str(data), "--all", "--specs", str(specs), "--out", str(out), "--jobs", "1"]
+    )
     assert status == 0
     rows = list(csv.DictReader(io.StringIO(out.read_text(encoding="utf-8-sig"))))
     assert [r["characteristic"] for r in rows] == [
-        "bore", "gap", "runout", "flat", "lonely", "'=cmd", "ghost",
+        "bore",
+        "gap",
+        "runout",
+        "flat",
+        "lonely",
+        "'=cmd",
+        "ghost",
     ]
     err = capsys.readouterr().err
     assert "7 characteristic(s)" in err and "summary.csv" in err
@@ -231,8 +264,9 @@ def test_cli_all_to_csv(files, tmp_path, capsys):
 
 def test_cli_all_json_and_table(files, capsys):
     data, specs = files
-    assert main(["analyze", str(data), "--all", "--specs", str(specs), "--json",
-                 "--jobs", "1"]) == 0
+    assert (
+        main(["analyze", str(data), "--all", "--specs", str(specs), "--json", "--jobs", "1"]) == 0
+    )
     rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines()]
     assert rows[0]["characteristic"] == "bore" and rows[0]["index"] == "cpk"
     assert main(["analyze", str(data), "--all", "--specs", str(specs), "--jobs", "1"]) == 0
@@ -242,10 +276,30 @@ def test_cli_all_json_and_table(files, capsys):
 
 def test_cli_all_limits_from_arguments(files, capsys):
     data, _ = files
-    assert main(["analyze", str(data), "--all", "--lsl", "0", "--usl", "100", "--json",
-                 "--jobs", "1", "--index", "pp", "--threshold", "1.0"]) == 0
-    rows = {r["characteristic"]: r for r in map(json.loads, capsys.readouterr().out.split("\n")
-                                               [:-1])}
+    assert (
+        main(
+            [
+                "analyze",
+                str(data),
+                "--all",
+                "--lsl",
+                "0",
+                "--usl",
+                "100",
+                "--json",
+                "--jobs",
+                "1",
+                "--index",
+                "pp",
+                "--threshold",
+                "1.0",
+            ]
+        )
+        == 0
+    )
+    rows = {
+        r["characteristic"]: r for r in map(json.loads, capsys.readouterr().out.split("\n")[:-1])
+    }
     assert rows["flat"]["index"] == "pp" and rows["flat"]["meets"] is True
 
 
@@ -260,12 +314,21 @@ def test_cli_rejects_characteristic_with_all(files, capsys):
 
 def test_dask_backend_identical_rows(inputs, local):
     import distributed  # a declared dev dependency: missing means fail, not skip
+
     m, chars, crit = inputs
-    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
-                                  dashboard_address=None) as cluster:
+    with distributed.LocalCluster(
+        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
+    ) as cluster:
         calls = []
-        res = run_many(m, chars, crit, options=OPTIONS, scheduler=cluster.scheduler_address,
-                       chunk_size=3, progress=lambda d, t, n: calls.append(d))
+        res = run_many(
+            m,
+            chars,
+            crit,
+            options=OPTIONS,
+            scheduler=cluster.scheduler_address,
+            chunk_size=3,
+            progress=lambda d, t, n: calls.append(d),
+        )
     assert res.backend == "dask"
     assert res.rows == local.rows
     assert calls[-1] == local.n
@@ -295,8 +358,9 @@ def test_family_quantiles_equal_scipy_frozen_ppf(fid):
     model = FAMILIES[fid].fit(SKEWED)
     # reference: the frozen scipy.stats distribution, model.dist.ppf([0.00135, 0.5, 0.99865])
     expected = model.dist.ppf(bootstrap.PROBS)
-    np.testing.assert_array_equal(FAMILIES[fid].quantile(bootstrap.PROBS,
-                                                         dict(model.parameters)), expected)
+    np.testing.assert_array_equal(
+        FAMILIES[fid].quantile(bootstrap.PROBS, dict(model.parameters)), expected
+    )
 
 
 @pytest.mark.parametrize("fid", list(FAMILIES))
@@ -314,24 +378,34 @@ def test_fast_bootstrap_equals_generic(fid):
     present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)
     # reference: one scipy rvs call, FittedModel refit and frozen ppf per bootstrap sample
     ref, ref_failed = _bootstrap_draws_generic(
-        model, SKEWED.size, 1.0, 12.0, "percentile", 60, np.random.default_rng(3), present)
+        model, SKEWED.size, 1.0, 12.0, "percentile", 60, np.random.default_rng(3), present
+    )
     fast, failed = bootstrap.percentile_draws(
-        model, SKEWED.size, 1.0, 12.0, 60, np.random.default_rng(3), present)
+        model, SKEWED.size, 1.0, 12.0, 60, np.random.default_rng(3), present
+    )
     assert failed == ref_failed
     # rtol: closed-form and row-wise refits differ by rounding only (7e-14 seen); threshold
     # families: the generic search ends on a 33-point grid pass and a linear interpolation of
     # the profile slope (about 1e-5 in the threshold), ours at the slope's root to 1e-9
     # two-parameter families refitted row-wise: the row-wise Newton stops one step apart from
     # the per-sample one (4e-8 seen for loglogistic)
-    rtol = (1e-4 if fid in THRESHOLD_FAMILIES else 1e-6 if fid in ROW_FAMILIES else 1e-9)
+    rtol = 1e-4 if fid in THRESHOLD_FAMILIES else 1e-6 if fid in ROW_FAMILIES else 1e-9
     for k in present:
         np.testing.assert_allclose(fast[k], ref[k], rtol=rtol)
 
 
-@pytest.mark.parametrize("fid, shape, seed", [
-    ("weibull3", 1.2, 2), ("weibull3", 1.2, 3), ("gamma3", 1.2, 3), ("lognormal3", 0.8, 0),
-    ("lognormal3", 0.8, 1), ("loglogistic3", 0.8, 1), ("loglogistic3", 0.8, 2),
-])
+@pytest.mark.parametrize(
+    "fid, shape, seed",
+    [
+        ("weibull3", 1.2, 2),
+        ("weibull3", 1.2, 3),
+        ("gamma3", 1.2, 3),
+        ("lognormal3", 0.8, 0),
+        ("lognormal3", 0.8, 1),
+        ("loglogistic3", 0.8, 1),
+        ("loglogistic3", 0.8, 2),
+    ],
+)
 def test_threshold_bootstrap_same_failures_and_bounds(fid, shape, seed):
     # 30 Weibull readings with a small shape: many bootstrap samples put the threshold fit at
     # an edge of its search (likelihood rising towards min(x)), where refits fail
@@ -339,9 +413,11 @@ def test_threshold_bootstrap_same_failures_and_bounds(fid, shape, seed):
     model = FAMILIES[fid].fit(x)
     present = dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0)
     ref, ref_failed = _bootstrap_draws_generic(
-        model, x.size, 4.0, 20.0, "percentile", 50, np.random.default_rng(seed), present)
+        model, x.size, 4.0, 20.0, "percentile", 50, np.random.default_rng(seed), present
+    )
     fast, failed = bootstrap.percentile_draws(
-        model, x.size, 4.0, 20.0, 50, np.random.default_rng(seed), present)
+        model, x.size, 4.0, 20.0, 50, np.random.default_rng(seed), present
+    )
     assert ref_failed > 0  # the edge cases are exercised
     assert failed == ref_failed
     for k in present:
@@ -351,10 +427,12 @@ def test_threshold_bootstrap_same_failures_and_bounds(fid, shape, seed):
 def test_fast_bootstrap_one_sided_and_failures():
     model = FAMILIES["lognormal"].fit(SKEWED)
     present = {"pp": None, "ppk": 1.0, "ppu": 1.0, "ppl": None}
-    ref, _ = _bootstrap_draws_generic(model, 4, None, 12.0, "percentile", 50,
-                                          np.random.default_rng(1), present)
-    fast, failed = bootstrap.percentile_draws(model, 4, None, 12.0, 50,
-                                              np.random.default_rng(1), present)
+    ref, _ = _bootstrap_draws_generic(
+        model, 4, None, 12.0, "percentile", 50, np.random.default_rng(1), present
+    )
+    fast, failed = bootstrap.percentile_draws(
+        model, 4, None, 12.0, 50, np.random.default_rng(1), present
+    )
     assert failed == 0 and len(fast["pp"]) == 0 and len(fast["ppl"]) == 0
     np.testing.assert_allclose(fast["ppk"], ref["ppk"], rtol=1e-12)
     # a sample with a non-positive value cannot be refitted by a positive family
@@ -365,12 +443,20 @@ def test_fast_bootstrap_one_sided_and_failures():
 def test_capability_bounds_unchanged_by_fast_path():
     model = FAMILIES["weibull"].fit(SKEWED)
     fast = capability(SKEWED, lsl=1.0, usl=12.0, model=model, n_boot=80, random_state=2)
-    generic = _bootstrap_draws_generic(model, SKEWED.size, 1.0, 12.0, "percentile", 80,
-                                           np.random.default_rng(2), dict.fromkeys(
-                                               ("pp", "ppk", "ppu", "ppl"), 1.0))[0]
+    generic = _bootstrap_draws_generic(
+        model,
+        SKEWED.size,
+        1.0,
+        12.0,
+        "percentile",
+        80,
+        np.random.default_rng(2),
+        dict.fromkeys(("pp", "ppk", "ppu", "ppl"), 1.0),
+    )[0]
     # reference: the 5 % quantile of the generic draws (numpy.quantile, default method)
     assert fast.bounds["ppk"]["lower_bound"] == pytest.approx(
-        float(np.quantile(generic["ppk"], 0.05)), rel=1e-12)
+        float(np.quantile(generic["ppk"], 0.05)), rel=1e-12
+    )
 
 
 # ----------------------------------------------------------------------------- saved study
@@ -412,8 +498,23 @@ def test_progress_bar_on_a_terminal_stream():
 def test_cli_all_attribute_size_column_is_not_a_characteristic(repo_root, capsys):
     path = repo_root / "demo_data" / "leak_test_lots.csv"
     assert path.exists(), "committed demo file missing"
-    assert main(["analyze", str(path), "--all", "--chart", "p", "--size-column", "lot_size",
-                 "--json", "--jobs", "1"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(path),
+                "--all",
+                "--chart",
+                "p",
+                "--size-column",
+                "lot_size",
+                "--json",
+                "--jobs",
+                "1",
+            ]
+        )
+        == 0
+    )
     rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines()]
     assert [r["characteristic"] for r in rows] == ["leak_test_defectives"]
     assert rows[0]["error"] is None and rows[0]["n"] > 0

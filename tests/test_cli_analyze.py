@@ -15,20 +15,46 @@ from studykit.cli import main
 NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 ISSUE_FIELDS = {
-    "characteristic", "n", "subgroups", "subgroup_size", "mean", "within_sigma",
-    "overall_sigma", "chart", "phase1", "normality", "model", "capability", "verdict",
+    "characteristic",
+    "n",
+    "subgroups",
+    "subgroup_size",
+    "mean",
+    "within_sigma",
+    "overall_sigma",
+    "chart",
+    "phase1",
+    "normality",
+    "model",
+    "capability",
+    "verdict",
 }
 CAPABILITY_FIELDS = {
-    "cp", "cpk", "cpu", "cpl", "cpm", "pp", "ppk", "ppu", "ppl", "cp_lower_95", "cpk_lower_95",
-    "pp_lower_95", "ppk_lower_95", "ppm_within", "ppm_overall", "ppm_observed",
+    "cp",
+    "cpk",
+    "cpu",
+    "cpl",
+    "cpm",
+    "pp",
+    "ppk",
+    "ppu",
+    "ppl",
+    "cp_lower_95",
+    "cpk_lower_95",
+    "pp_lower_95",
+    "ppk_lower_95",
+    "ppm_within",
+    "ppm_overall",
+    "ppm_observed",
 }
 
 
 @pytest.fixture
 def imr_csv(tmp_path):
     p = tmp_path / "nist.csv"
-    p.write_text("sample,thickness [mm]\n" + "".join(f"{i + 1},{v}\n" for i, v in
-                                                        enumerate(NIST_IMR)))
+    p.write_text(
+        "sample,thickness [mm]\n" + "".join(f"{i + 1},{v}\n" for i, v in enumerate(NIST_IMR))
+    )
     return p
 
 
@@ -38,8 +64,22 @@ def run_json(capsys, *argv):
 
 
 def test_json_fields_have_exactly_the_documented_names(imr_csv, capsys):
-    d = run_json(capsys, "analyze", str(imr_csv), "--characteristic", "thickness",
-                 "--lsl", "40", "--usl", "60", "--target", "50", "--phase1", "off", "--json")
+    d = run_json(
+        capsys,
+        "analyze",
+        str(imr_csv),
+        "--characteristic",
+        "thickness",
+        "--lsl",
+        "40",
+        "--usl",
+        "60",
+        "--target",
+        "50",
+        "--phase1",
+        "off",
+        "--json",
+    )
     assert ISSUE_FIELDS <= set(d)
     assert set(d["chart"]) >= {"kind", "location", "dispersion", "signals"}
     assert set(d["chart"]["location"]) == {"center", "lcl", "ucl"}
@@ -64,10 +104,12 @@ def test_attribute_fields(tmp_path, capsys):
     # NIST e-Handbook 6.3.3.2 fractions of 50 chips (first ten wafers are enough here)
     fr = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20]
     p = tmp_path / "lots.csv"
-    p.write_text("lot,size,bad\n" + "".join(f"W{i + 1},50,{round(f * 50)}\n"
-                                            for i, f in enumerate(fr)))
-    d = run_json(capsys, "analyze", str(p), "-c", "bad", "--chart", "p", "--size-column", "size",
-                 "--json")
+    p.write_text(
+        "lot,size,bad\n" + "".join(f"W{i + 1},50,{round(f * 50)}\n" for i, f in enumerate(fr))
+    )
+    d = run_json(
+        capsys, "analyze", str(p), "-c", "bad", "--chart", "p", "--size-column", "size", "--json"
+    )
     assert {"defective_rate", "defective_rate_upper_95", "ppm_defective", "z_process"} <= set(d)
     assert len(d["chart"]["limits"]) == 10
     assert d["chart"]["limits"][0]["subgroup"] == "W1"
@@ -84,7 +126,8 @@ def test_human_output_names_the_verdict(imr_csv, capsys):
 def test_unknown_characteristic_exits_2_with_one_line(imr_csv):
     proc = subprocess.run(
         [sys.executable, "-m", "studykit", "analyze", str(imr_csv), "-c", "nope", "--lsl", "1"],
-        capture_output=True, text=True,
+        capture_output=True,
+        text=True,
     )
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr

@@ -34,13 +34,20 @@ def _one_column(tmp_path):
 def test_all_rows_match_single_runs(capsys, tmp_path, extra):
     path = _one_column(tmp_path)
     limits = ["--lsl", "4.5", "--usl", "5.5"]
-    rows = [json.loads(line) for line in
-            _run(capsys, ["analyze", str(path), "--all", "--json", "--jobs", "1", *limits, *extra])
-            .splitlines()]
+    rows = [
+        json.loads(line)
+        for line in _run(
+            capsys, ["analyze", str(path), "--all", "--json", "--jobs", "1", *limits, *extra]
+        ).splitlines()
+    ]
     assert rows and all(r["index"] == "ppk" for r in rows)
     for row in rows:
-        one = json.loads(_run(capsys, ["analyze", str(path), "-c", row["characteristic"],
-                                       "--json", *limits, *extra]))
+        one = json.loads(
+            _run(
+                capsys,
+                ["analyze", str(path), "-c", row["characteristic"], "--json", *limits, *extra],
+            )
+        )
         assert one["n"] == row["n"]
         assert one["subgroup_size"] == (int(extra[1]) if extra else 1)
         assert one["capability"]["ppk"] == row["estimate"]
@@ -49,8 +56,12 @@ def test_all_rows_match_single_runs(capsys, tmp_path, extra):
 
 def test_both_commands_use_the_shared_builders():
     # one home: the commands hold no private copy of the argument handling
-    for name in ("analysis_options", "criteria_from_args", "spec_from_args",
-                 "read_file_measurements"):
+    for name in (
+        "analysis_options",
+        "criteria_from_args",
+        "spec_from_args",
+        "read_file_measurements",
+    ):
         assert getattr(analyze_cli, name) is getattr(cli_args, name)
         assert getattr(batch_cli, name) is getattr(cli_args, name)
     for old in ("_options", "_criteria", "_spec"):

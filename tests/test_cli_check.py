@@ -96,13 +96,15 @@ def _studykit_command() -> list[str]:
 def test_check_as_a_program_shows_no_traceback(tmp_path, good):
     bad = tmp_path / "junk.csv"
     bad.write_bytes(bytes(range(256)) * 8)
-    result = subprocess.run([*_studykit_command(), "check", str(bad)], capture_output=True,
-                            text=True, timeout=120)
+    result = subprocess.run(
+        [*_studykit_command(), "check", str(bad)], capture_output=True, text=True, timeout=120
+    )
     assert result.returncode == 2
     assert "Traceback" not in result.stderr
     assert result.stderr.count("\n") == 1
     assert "file 'junk.csv': the file does not look like a text table" in result.stderr
-    ok = subprocess.run([*_studykit_command(), "check", str(good)], capture_output=True,
-                        text=True, timeout=120)
+    ok = subprocess.run(
+        [*_studykit_command(), "check", str(good)], capture_output=True, text=True, timeout=120
+    )
     assert ok.returncode == 0, ok.stderr
     assert "Bohrung" in ok.stdout

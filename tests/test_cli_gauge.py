@@ -38,14 +38,18 @@ def test_table_output(capsys, machines_csv):
 
 
 def test_json_output(capsys, machines_csv):
-    code, out, _ = run(capsys, machines_csv, *ARGS, "--json", "--lsl", 40, "--usl", 80,
-                       "--study-variation", 5.15)
+    code, out, _ = run(
+        capsys, machines_csv, *ARGS, "--json", "--lsl", 40, "--usl", 80, "--study-variation", 5.15
+    )
     assert code == 0
     d = json.loads(out)
     ss = {r["source"]: r["ss"] for r in d["anova_full"]}
     # tests/reference/check_values.md "Gauge R&R" (statsmodels anova_lm(typ=2) on nlme Machines)
-    assert_allclose([ss["appraiser"], ss["part_to_part"], ss["appraiser_by_part"],
-                     ss["repeatability"]], [1241.895, 1755.26333, 426.53, 33.28667], rtol=1e-6)
+    assert_allclose(
+        [ss["appraiser"], ss["part_to_part"], ss["appraiser_by_part"], ss["repeatability"]],
+        [1241.895, 1755.26333, 426.53, 33.28667],
+        rtol=1e-6,
+    )
     comp = {c["name"]: c for c in d["components"]}
     # Pinheiro & Bates (2000) appendix A.14 sigmas, via tests/reference/check_values.md
     assert_allclose(comp["appraiser"]["sigma"], 4.78105, rtol=1e-5)
@@ -59,8 +63,10 @@ def test_json_output(capsys, machines_csv):
 @pytest.mark.parametrize(
     ("argv", "message"),
     [
-        (["--part", "Machine", "--appraiser", "Wrk", "--value", "score"],
-         "no column named 'Wrk' \\(given with --appraiser\\)"),
+        (
+            ["--part", "Machine", "--appraiser", "Wrk", "--value", "score"],
+            "no column named 'Wrk' \\(given with --appraiser\\)",
+        ),
         ([*ARGS, "--lsl", "5"], "only `lsl` was given"),
         ([*ARGS, "--study", "x.study"], "`--study` and `--characteristic` go together"),
     ],
@@ -84,8 +90,12 @@ def test_bad_value_names_row_and_column(capsys, tmp_path):
 
 def test_unbalanced_file(capsys, tmp_path):
     f = tmp_path / "g.csv"
-    rows = ["part;op;x"] + [f"{p};{o};{10 + p + t / 10:.1f}".replace(".", ",")
-                            for p in (1, 2, 3) for o in "AB" for t in (1, 2)]
+    rows = ["part;op;x"] + [
+        f"{p};{o};{10 + p + t / 10:.1f}".replace(".", ",")
+        for p in (1, 2, 3)
+        for o in "AB"
+        for t in (1, 2)
+    ]
     f.write_text("\n".join(rows[:-1]) + "\n")  # last cell has one trial; decimal comma file
     code, _, err = run(capsys, f, "--part", "part", "--appraiser", "op", "--value", "x")
     assert code == 2
@@ -97,10 +107,25 @@ def test_store_in_study(capsys, machines_csv, tmp_path):
     from studykit.study import Characteristic
 
     path = tmp_path / "s.study"
-    StudyFile.create(path, data=b"x\n1\n", filename="x.csv", title="t",
-                     characteristics=[Characteristic("score", lsl=40, usl=80)], who="tester")
-    code, out, err = run(capsys, machines_csv, *ARGS, "--study", path, "--characteristic",
-                         "score", "--who", "Q. Engineer")
+    StudyFile.create(
+        path,
+        data=b"x\n1\n",
+        filename="x.csv",
+        title="t",
+        characteristics=[Characteristic("score", lsl=40, usl=80)],
+        who="tester",
+    )
+    code, out, err = run(
+        capsys,
+        machines_csv,
+        *ARGS,
+        "--study",
+        path,
+        "--characteristic",
+        "score",
+        "--who",
+        "Q. Engineer",
+    )
     assert code == 0, err
     assert "Stored as result" in out and "Tolerance taken from the specification" in out
     stored = StudyFile(path).results("gauge_rr", "score")

@@ -15,8 +15,18 @@ from studykit.cli import main
 
 # invented for the test (see tests/test_gauge_type1.py for the hand arithmetic):
 # Cg = 5 sqrt(3)/3, Cgk = 4 sqrt(3)/3, t = sqrt(30) with T = 0.1, K = 20 %, L = 6
-READINGS = ["5.001", "5.003", "5.002", "5.002", "5.004", "5.000", "5.002", "5.001", "5.003",
-            "5.002"]
+READINGS = [
+    "5.001",
+    "5.003",
+    "5.002",
+    "5.002",
+    "5.004",
+    "5.000",
+    "5.002",
+    "5.001",
+    "5.003",
+    "5.002",
+]
 
 
 @pytest.fixture
@@ -33,8 +43,9 @@ def run(capsys, *argv):
 
 
 def test_table(capsys, readings_csv):
-    code, out, err = run(capsys, readings_csv, "--reference", 5, "--value", "reading",
-                         "--tolerance", 0.1)
+    code, out, err = run(
+        capsys, readings_csv, "--reference", 5, "--value", "reading", "--tolerance", 0.1
+    )
     assert code == 0, err
     assert "10 readings of one reference part" in out
     assert "2.887" in out and "2.309" in out  # 5 sqrt(3)/3, 4 sqrt(3)/3
@@ -43,9 +54,23 @@ def test_table(capsys, readings_csv):
 
 
 def test_json_and_options(capsys, readings_csv):
-    code, out, err = run(capsys, readings_csv, "--reference", 5, "--value", "reading",
-                         "--lsl", 4.95, "--usl", 5.05, "--k-percent", 10, "--l-sigmas", 4,
-                         "--json")
+    code, out, err = run(
+        capsys,
+        readings_csv,
+        "--reference",
+        5,
+        "--value",
+        "reading",
+        "--lsl",
+        4.95,
+        "--usl",
+        5.05,
+        "--k-percent",
+        10,
+        "--l-sigmas",
+        4,
+        "--json",
+    )
     assert code == 0, err
     d = json.loads(out)
     # hand arithmetic with K = 10, L = 4: Cg = 5 sqrt(3)/4, Cgk = 3 sqrt(3)/4
@@ -55,16 +80,23 @@ def test_json_and_options(capsys, readings_csv):
     assert d["verdict"]["status"] == "not capable"
 
 
-@pytest.mark.parametrize(("argv", "message"), [
-    (["--reference", 5, "--value", "reading"], "needs the tolerance"),
-    (["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--part", "p"],
-     "leave out --part"),
-    (["--value", "reading"], "needs --part and --appraiser"),
-    (["--reference", 5, "--value", "x", "--tolerance", 0.1], "no column named 'x'"),
-    (["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--lsl", 1], "not both"),
-    (["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--k-percent", 0],
-     "k_percent"),
-])
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["--reference", 5, "--value", "reading"], "needs the tolerance"),
+        (
+            ["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--part", "p"],
+            "leave out --part",
+        ),
+        (["--value", "reading"], "needs --part and --appraiser"),
+        (["--reference", 5, "--value", "x", "--tolerance", 0.1], "no column named 'x'"),
+        (["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--lsl", 1], "not both"),
+        (
+            ["--reference", 5, "--value", "reading", "--tolerance", 0.1, "--k-percent", 0],
+            "k_percent",
+        ),
+    ],
+)
 def test_bad_input_one_line(capsys, readings_csv, argv, message):
     code, out, err = run(capsys, readings_csv, *argv)
     assert code == 2
@@ -85,9 +117,14 @@ def _study(tmp_path):
     from studykit.study import Characteristic
 
     path = tmp_path / "s.study"
-    StudyFile.create(path, data=b"x\n1\n", filename="x.csv", title="t",
-                     characteristics=[Characteristic("thickness", lsl=4.95, usl=5.05)],
-                     who="tester")
+    StudyFile.create(
+        path,
+        data=b"x\n1\n",
+        filename="x.csv",
+        title="t",
+        characteristics=[Characteristic("thickness", lsl=4.95, usl=5.05)],
+        who="tester",
+    )
     return path
 
 
@@ -95,8 +132,20 @@ def test_store_in_study(capsys, readings_csv, tmp_path):
     from studykit.store import StudyFile
 
     path = _study(tmp_path)
-    code, out, err = run(capsys, readings_csv, "--reference", 5, "--value", "reading",
-                         "--study", path, "--characteristic", "thickness", "--who", "Q. E.")
+    code, out, err = run(
+        capsys,
+        readings_csv,
+        "--reference",
+        5,
+        "--value",
+        "reading",
+        "--study",
+        path,
+        "--characteristic",
+        "thickness",
+        "--who",
+        "Q. E.",
+    )
     assert code == 0, err
     assert "Tolerance taken from the specification" in out and "Stored as result" in out
     stored = StudyFile(path).results("gauge_short", "thickness")
@@ -109,8 +158,19 @@ def test_store_in_study(capsys, readings_csv, tmp_path):
 
 def test_json_reports_where_it_was_stored(capsys, readings_csv, tmp_path):
     path = _study(tmp_path)
-    code, out, _ = run(capsys, readings_csv, "--reference", 5, "--value", "reading", "--study",
-                       path, "--characteristic", "thickness", "--json")
+    code, out, _ = run(
+        capsys,
+        readings_csv,
+        "--reference",
+        5,
+        "--value",
+        "reading",
+        "--study",
+        path,
+        "--characteristic",
+        "thickness",
+        "--json",
+    )
     assert code == 0
     d = json.loads(out)
     assert d["stored"]["characteristic"] == "thickness" and d["stored"]["limits_from"] == "study"
@@ -145,24 +205,32 @@ def test_measurement_error_block_from_stored_gauge(capsys, demo_study):
 
     d = _analyze(capsys, demo_study, "flange_thickness")
     me = d["measurement_error"]
-    g = next(c for c in StudyFile(demo_study).results("gauge_rr", "flange_thickness")[-1]
-             .payload["components"] if c["name"] == "gauge_rr")
+    g = next(
+        c
+        for c in StudyFile(demo_study)
+        .results("gauge_rr", "flange_thickness")[-1]
+        .payload["components"]
+        if c["name"] == "gauge_rr"
+    )
     assert me["gauge_sigma"] == g["sigma"] and me["gauge_df"] == g["interval_df"]
     cap = d["capability"]
     spec = d["spec"]
     # observed indices are the study's own (normal model); process ones use
     # sqrt(sigma_obs^2 - sigma_gauge^2) -- plain arithmetic
-    for basis, sig, names in (("within", d["within_sigma"], ("cp", "cpk")),
-                              ("overall", d["overall_sigma"], ("pp", "ppk"))):
+    for basis, sig, names in (
+        ("within", d["within_sigma"], ("cp", "cpk")),
+        ("overall", d["overall_sigma"], ("pp", "ppk")),
+    ):
         b = me[basis]
         assert_allclose([b["observed"][k] for k in names], [cap[k] for k in names], rtol=1e-12)
-        ps = math.sqrt(sig ** 2 - g["sigma"] ** 2)
+        ps = math.sqrt(sig**2 - g["sigma"] ** 2)
         assert_allclose(b["process_sigma"], ps, rtol=1e-12)
-        assert_allclose(b["process"][names[0]], (spec["usl"] - spec["lsl"]) / (6 * ps),
-                        rtol=1e-12)
-        assert_allclose(b["process"][names[1]],
-                        min(spec["usl"] - d["mean"], d["mean"] - spec["lsl"]) / (3 * ps),
-                        rtol=1e-12)
+        assert_allclose(b["process"][names[0]], (spec["usl"] - spec["lsl"]) / (6 * ps), rtol=1e-12)
+        assert_allclose(
+            b["process"][names[1]],
+            min(spec["usl"] - d["mean"], d["mean"] - spec["lsl"]) / (3 * ps),
+            rtol=1e-12,
+        )
         assert b["variance_lower"] < b["process_variance"] < b["variance_upper"]
     assert me["overall"]["observed_df"] == d["n"] - 1
 
@@ -181,10 +249,13 @@ def test_large_gauge_share_gives_a_warning_finding():
 
     x = np.random.default_rng(5).normal(10.0, 0.5, 100)  # invented for the test
     s = float(np.std(x, ddof=1))
-    gauge = {"verdict": {"status": "not acceptable", "message": "m"},
-             "components": [{"name": "gauge_rr", "sigma": 0.8 * s, "interval_df": 20.0}]}
-    res = analyze_characteristic(CharacteristicData("x", None, x),
-                                 Characteristic("x", lsl=7, usl=13), gauge=gauge)
+    gauge = {
+        "verdict": {"status": "not acceptable", "message": "m"},
+        "components": [{"name": "gauge_rr", "sigma": 0.8 * s, "interval_df": 20.0}],
+    }
+    res = analyze_characteristic(
+        CharacteristicData("x", None, x), Characteristic("x", lsl=7, usl=13), gauge=gauge
+    )
     me = res.to_dict()["measurement_error"]
     assert_allclose(me["overall"]["gauge_share"], 0.64, rtol=1e-12)  # 0.8^2
     codes = [f.code for f in res.findings]

@@ -53,8 +53,7 @@ def test_interval_json_on_bissell_data(capsys, bissell_csv):
 
 
 def test_interval_one_sided_from_one_limit(capsys, bissell_csv):
-    code, out, _ = run(capsys, "interval", bissell_csv, "--usl", 5.70, "--json",
-                       "--coverage", 0.99)
+    code, out, _ = run(capsys, "interval", bissell_csv, "--usl", 5.70, "--json", "--coverage", 0.99)
     assert code == 0
     d = json.loads(out)
     assert d["sides"] == 1 and d["bound"] == "upper" and d["lower"] is None
@@ -75,8 +74,18 @@ def test_interval_bound_implies_one_sided(capsys, bissell_csv):
 
 
 def test_interval_table_and_distribution_free_too_few(capsys, bissell_csv):
-    code, out, _ = run(capsys, "interval", bissell_csv, "--model", "distribution-free",
-                       "--lsl", 5.49, "--usl", 5.79, "--safety-critical")
+    code, out, _ = run(
+        capsys,
+        "interval",
+        bissell_csv,
+        "--model",
+        "distribution-free",
+        "--lsl",
+        5.49,
+        "--usl",
+        5.79,
+        "--safety-critical",
+    )
     assert code == 0
     assert "NOT JUDGED" in out
     assert "75 values are too few" in out and "93 are needed" in out
@@ -90,12 +99,15 @@ def test_interval_text_reports_decision(capsys, bissell_csv):
     assert "Parts needed:  distribution-free 93" in out
 
 
-@pytest.mark.parametrize("argv,words", [
-    (["--coverage", "95"], ["column 'width [mm]'", "between 0 and 1"]),
-    (["-c", "depth"], ["no characteristic named 'depth'"]),
-    (["--lsl", "5.8", "--usl", "5.5"], ["greater than"]),
-    (["--model", "lognormal", "--sides", "1"], ["bound"]),
-])
+@pytest.mark.parametrize(
+    "argv,words",
+    [
+        (["--coverage", "95"], ["column 'width [mm]'", "between 0 and 1"]),
+        (["-c", "depth"], ["no characteristic named 'depth'"]),
+        (["--lsl", "5.8", "--usl", "5.5"], ["greater than"]),
+        (["--model", "lognormal", "--sides", "1"], ["bound"]),
+    ],
+)
 def test_interval_bad_input_exit_2_one_line(capsys, bissell_csv, argv, words):
     code, out, err = run(capsys, "interval", bissell_csv, *argv)
     assert code == 2
@@ -117,8 +129,12 @@ def test_interval_bad_cell_names_row_and_column(capsys, tmp_path):
 def test_interval_no_traceback_in_a_real_process(tmp_path):
     f = tmp_path / "x.csv"
     f.write_text("a\n1\n2\n3\n4\n", encoding="utf-8")
-    proc = subprocess.run([sys.executable, "-m", "studykit", "interval", str(f), "--confidence",
-                           "1.5"], capture_output=True, text=True, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-m", "studykit", "interval", str(f), "--confidence", "1.5"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr
     assert "x.csv" in proc.stderr and "confidence" in proc.stderr
@@ -132,8 +148,20 @@ POS = DEMO / "mounting_hole_position.csv"
 
 def test_position_json_on_demo(capsys, tmp_path):
     fig = tmp_path / "pos.png"
-    code, out, err = run(capsys, "position", POS, "--x", "hole_dx", "--y", "hole_dy",
-                         "--tolerance", 0.2, "--json", "--figure", fig)
+    code, out, err = run(
+        capsys,
+        "position",
+        POS,
+        "--x",
+        "hole_dx",
+        "--y",
+        "hole_dy",
+        "--tolerance",
+        0.2,
+        "--json",
+        "--figure",
+        fig,
+    )
     assert code == 0, err
     d = json.loads(out)
     raw = np.loadtxt(POS, delimiter=",", skiprows=1)
@@ -143,7 +171,8 @@ def test_position_json_on_demo(capsys, tmp_path):
     assert d["correlation"] == pytest.approx(np.corrcoef(dx, dy)[0, 1])
     cov = np.cov(dx, dy)
     assert d["ppm_expected"] == pytest.approx(
-        1e6 * prob_outside_circle([dx.mean(), dy.mean()], cov, 0.1), rel=1e-10)
+        1e6 * prob_outside_circle([dx.mean(), dy.mean()], cov, 0.1), rel=1e-10
+    )
     r = 2 * np.hypot(dx, dy)
     assert d["shortcut"]["index"] == pytest.approx((0.2 - r.mean()) / (3 * r.std(ddof=1)))
     assert d["observed_outside"] == int(np.sum(r > 0.2))
@@ -154,8 +183,9 @@ def test_position_json_on_demo(capsys, tmp_path):
 
 
 def test_position_table(capsys):
-    code, out, _ = run(capsys, "position", POS, "--x", "hole_dx", "--y", "hole_dy",
-                       "--tolerance", 0.2)
+    code, out, _ = run(
+        capsys, "position", POS, "--x", "hole_dx", "--y", "hole_dy", "--tolerance", 0.2
+    )
     assert code == 0
     assert "Two-dimensional model (bivariate normal)" in out
     assert "Shortcut: 2*sqrt(dx^2+dy^2) vs T, normal" in out
@@ -164,20 +194,27 @@ def test_position_table(capsys):
 
 def test_position_missing_partner_names_row_and_column(capsys, tmp_path):
     f = tmp_path / "p.csv"
-    f.write_text("part,dx,dy\n1,0.01,0.02\n2,0.00,-0.01\n3,0.02,\n4,-0.01,0.00\n5,0.0,0.01\n"
-                 "6,0.01,-0.02\n", encoding="utf-8")
+    f.write_text(
+        "part,dx,dy\n1,0.01,0.02\n2,0.00,-0.01\n3,0.02,\n4,-0.01,0.00\n5,0.0,0.01\n6,0.01,-0.02\n",
+        encoding="utf-8",
+    )
     code, _, err = run(capsys, "position", f, "--x", "dx", "--y", "dy", "--tolerance", 0.1)
     assert code == 2
     assert "p.csv" in err and "row 4" in err and "column 'dy'" in err
 
 
-@pytest.mark.parametrize("argv,words", [
-    (["--x", "hole_dx", "--y", "hole_dx", "--tolerance", "0.2"], ["both name"]),
-    (["--x", "hole_dx", "--y", "hole_dy", "--tolerance", "-0.2"], ["positive"]),
-    (["--x", "hole_dx", "--y", "hole_dz", "--tolerance", "0.2"], ["hole_dz"]),
-    (["--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.2", "--figure", "a.gif"],
-     ["--figure"]),
-])
+@pytest.mark.parametrize(
+    "argv,words",
+    [
+        (["--x", "hole_dx", "--y", "hole_dx", "--tolerance", "0.2"], ["both name"]),
+        (["--x", "hole_dx", "--y", "hole_dy", "--tolerance", "-0.2"], ["positive"]),
+        (["--x", "hole_dx", "--y", "hole_dz", "--tolerance", "0.2"], ["hole_dz"]),
+        (
+            ["--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.2", "--figure", "a.gif"],
+            ["--figure"],
+        ),
+    ],
+)
 def test_position_bad_input_exit_2(capsys, argv, words):
     code, out, err = run(capsys, "position", POS, *argv)
     assert code == 2 and out == ""
@@ -201,8 +238,9 @@ def test_interval_on_the_demo_study_applies_removals_model_and_limits(capsys):
     assert d["n"] == 130
     assert any("17, 18" in n for n in d["notes"])
     assert d["lsl"] == 7.9 and d["usl"] == 8.1
-    raw = np.genfromtxt(DEMO / "pump_housing_pilot.csv", delimiter=",", skip_header=1,
-                        usecols=(0, 5))
+    raw = np.genfromtxt(
+        DEMO / "pump_housing_pilot.csv", delimiter=",", skip_header=1, usecols=(0, 5)
+    )
     kept = raw[(raw[:, 0] != 17) & (raw[:, 0] != 18), 1]
     ref = tolerance_interval(kept, lsl=7.9, usl=8.1)
     assert d["lower"] == pytest.approx(ref.lower, rel=1e-12)
@@ -216,8 +254,9 @@ def test_interval_on_the_demo_study_uses_the_recorded_lognormal_model(capsys):
     d = json.loads(out)
     assert d["model"] == "lognormal" and d["scale"] == "log"
     assert d["sides"] == 1 and d["bound"] == "upper" and d["usl"] == 0.05
-    code, out, _ = run(capsys, "interval", "--study", STUDY, "-c", "face_runout", "--json",
-                       "--model", "normal")
+    code, out, _ = run(
+        capsys, "interval", "--study", STUDY, "-c", "face_runout", "--json", "--model", "normal"
+    )
     assert json.loads(out)["model"] == "normal"
 
 

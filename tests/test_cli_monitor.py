@@ -13,13 +13,28 @@ NIST_IMR = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 
 def _study(tmp_path):
     data = tmp_path / "phase1.csv"
-    data.write_text("sample,depth [mm]\n" + "".join(f"{i + 1},{v}\n"
-                                                    for i, v in enumerate(NIST_IMR)))
+    data.write_text(
+        "sample,depth [mm]\n" + "".join(f"{i + 1},{v}\n" for i, v in enumerate(NIST_IMR))
+    )
     specs = tmp_path / "specs.csv"
     specs.write_text("characteristic,unit,lsl,usl\ndepth,mm,40,60\n")
     study = tmp_path / "s.study"
-    assert main(["study", "new", str(study), "--data", str(data), "--specs", str(specs),
-                 "--who", "T. Test"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "new",
+                str(study),
+                "--data",
+                str(data),
+                "--specs",
+                str(specs),
+                "--who",
+                "T. Test",
+            ]
+        )
+        == 0
+    )
     return study
 
 
@@ -30,8 +45,19 @@ def test_monitor_flags_a_value_beyond_the_frozen_ucl(tmp_path, capsys):
     new.write_text("sample,depth [mm]\n1,50.2\n2,55.7\n3,55.9\n4,50.0\n")
     plan = tmp_path / "plan.json"
     capsys.readouterr()
-    rc = main(["monitor", str(new), "--study", str(study), "-c", "depth", "--save-plan",
-               str(plan), "--json"])
+    rc = main(
+        [
+            "monitor",
+            str(new),
+            "--study",
+            str(study),
+            "-c",
+            "depth",
+            "--save-plan",
+            str(plan),
+            "--json",
+        ]
+    )
     out = json.loads(capsys.readouterr().out)
     assert rc == 1 and out["in_control"] is False
     assert out["first_signal"] == "3"

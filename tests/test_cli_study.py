@@ -31,9 +31,24 @@ def files(tmp_path):
 
 
 def new(files, *extra):
-    return main(["study", "new", str(files / "a.study"), "--data", str(files / "pilot.csv"),
-                 "--specs", str(files / "specs.csv"), "--title", "Pilot", "--part", "P1",
-                 "--who", "A. Ruiz", *extra])
+    return main(
+        [
+            "study",
+            "new",
+            str(files / "a.study"),
+            "--data",
+            str(files / "pilot.csv"),
+            "--specs",
+            str(files / "specs.csv"),
+            "--title",
+            "Pilot",
+            "--part",
+            "P1",
+            "--who",
+            "A. Ruiz",
+            *extra,
+        ]
+    )
 
 
 def test_new_then_show(files, capsys):
@@ -58,17 +73,63 @@ def test_new_then_show(files, capsys):
 def test_exclude_sign_lock_override_log(files, capsys):
     new(files)
     path = str(files / "a.study")
-    assert main(["study", "exclude", path, "bore", "2", "--reason", "setup part", "--who", "B"]) == 0
+    assert (
+        main(["study", "exclude", path, "bore", "2", "--reason", "setup part", "--who", "B"]) == 0
+    )
     # two subgroups cannot be analysed; the lock is under test here, not the approval gate
-    assert main(["study", "rules", path, "--approval-needs-verdicts", "off", "--reason",
-                 "lock test on a tiny file", "--who", "B"]) == 0
-    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
-                 "--who", "M. Brandt"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "rules",
+                path,
+                "--approval-needs-verdicts",
+                "off",
+                "--reason",
+                "lock test on a tiny file",
+                "--who",
+                "B",
+            ]
+        )
+        == 0
+    )
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "M. Brandt",
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
     assert main(["study", "exclude", path, "bore", "1", "--reason", "x", "--who", "B"]) == 2
     assert "--override-lock REASON" in capsys.readouterr().err
-    assert main(["study", "exclude", path, "bore", "1", "--reason", "x", "--who", "B",
-                 "--override-lock", "customer request"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "exclude",
+                path,
+                "bore",
+                "1",
+                "--reason",
+                "x",
+                "--who",
+                "B",
+                "--override-lock",
+                "customer request",
+            ]
+        )
+        == 0
+    )
     assert main(["study", "comment", path, "kept for the record", "--who", "B"]) == 0
     capsys.readouterr()
     assert main(["study", "show", path]) == 0
@@ -76,14 +137,30 @@ def test_exclude_sign_lock_override_log(files, capsys):
     assert "VOIDED (voided on" in out and "customer request" in out
     assert main(["study", "log", path, "--json"]) == 0
     log = json.loads(capsys.readouterr().out)
-    assert [e["what"].split()[0] for e in log] == ["create", "remove", "change",
-                                                  "sign-off:", "void", "remove", "comment"]
+    assert [e["what"].split()[0] for e in log] == [
+        "create",
+        "remove",
+        "change",
+        "sign-off:",
+        "void",
+        "remove",
+        "comment",
+    ]
 
 
 def test_new_refuses_unknown_name_and_existing_file(files, capsys):
     (files / "bad.csv").write_text(SPECS + "flatness,mm,,0.02,,no,,,\n")
-    rc = main(["study", "new", str(files / "b.study"), "--data", str(files / "pilot.csv"),
-               "--specs", str(files / "bad.csv")])
+    rc = main(
+        [
+            "study",
+            "new",
+            str(files / "b.study"),
+            "--data",
+            str(files / "pilot.csv"),
+            "--specs",
+            str(files / "bad.csv"),
+        ]
+    )
     err = capsys.readouterr().err
     assert rc == 2 and "'flatness', which is not in the data" in err and "bad.csv" in err
     assert not (files / "b.study").exists()
@@ -123,7 +200,9 @@ def test_specs_table_errors_name_row_and_column():
 def _load_make_demo(repo_root):
     import importlib.util
 
-    spec = importlib.util.spec_from_file_location("make_demo", repo_root / "demo_data" / "make_demo.py")
+    spec = importlib.util.spec_from_file_location(
+        "make_demo", repo_root / "demo_data" / "make_demo.py"
+    )
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     return module
@@ -137,7 +216,9 @@ def test_demo_check_detects_a_changed_byte_and_a_changed_decision(tmp_path, repo
     assert sorted(study.excluded_subgroups("flange_thickness")) == ["17", "18"]
     assert study.model_for("face_runout") == "lognormal"
     assert [c.name for c in study.characteristics.values() if c.safety_critical] == [
-        "bore_diameter", "pull_off_force"]
+        "bore_diameter",
+        "pull_off_force",
+    ]
     pull = tmp_path / md.PULL_CSV
     pull.write_bytes(pull.read_bytes().replace(b"\n2,", b"\n3,", 1))
     StudyFile(tmp_path / md.STUDY_FILE).exclude("bore_diameter", 3, reason="test", who="A")
@@ -151,7 +232,10 @@ def test_exclude_refuses_a_subgroup_the_data_do_not_have(files, capsys):
     new(files)
     path = str(files / "a.study")
     assert main(["study", "exclude", path, "bore", "7", "--reason", "x", "--who", "B"]) == 2
-    assert "'bore' has no subgroup '7' in pilot.csv (its subgroups are 1, 2)" in capsys.readouterr().err
+    assert (
+        "'bore' has no subgroup '7' in pilot.csv (its subgroups are 1, 2)"
+        in capsys.readouterr().err
+    )
     assert main(["study", "exclude", path, "flatness", "1", "--reason", "x", "--who", "B"]) == 2
     assert "no characteristic 'flatness'" in capsys.readouterr().err
 
@@ -159,9 +243,29 @@ def test_exclude_refuses_a_subgroup_the_data_do_not_have(files, capsys):
 def test_set_records_each_change_with_the_reason(files, capsys):
     new(files)
     path = str(files / "a.study")
-    assert main(["study", "set", path, "runout", "--usl", "0.04", "--criterion", "ppk",
-                 "--threshold", "1.33", "--model", "lognormal", "--reason", "customer PPAP manual",
-                 "--who", "B"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "set",
+                path,
+                "runout",
+                "--usl",
+                "0.04",
+                "--criterion",
+                "ppk",
+                "--threshold",
+                "1.33",
+                "--model",
+                "lognormal",
+                "--reason",
+                "customer PPAP manual",
+                "--who",
+                "B",
+            ]
+        )
+        == 0
+    )
     study = StudyFile(files / "a.study").load()
     assert study.characteristics["runout"].usl == 0.04
     assert study.criteria_for("runout").threshold == 1.33
@@ -185,8 +289,24 @@ def test_study_over_several_files_takes_each_characteristic_from_its_file(tmp_pa
     specs = tmp_path / "specs.csv"
     specs.write_text("characteristic,unit,lsl,usl\nwidth,mm,9,11\nforce,N,180,\n")
     out = tmp_path / "two.study"
-    assert main(["study", "new", str(out), "--data", str(a), "--data", str(b),
-                 "--specs", str(specs), "--who", "T. Test"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "new",
+                str(out),
+                "--data",
+                str(a),
+                "--data",
+                str(b),
+                "--specs",
+                str(specs),
+                "--who",
+                "T. Test",
+            ]
+        )
+        == 0
+    )
     study = StudyFile(out).load()
     assert [f.filename for f in study.extra_files] == ["lab.csv"]
     assert study.source_of("width") == "dims.csv" and study.source_of("force") == "lab.csv"
@@ -213,5 +333,15 @@ def test_two_data_files_with_one_name_are_refused(tmp_path):
 
         from studykit.cli.study import run_new
 
-        run_new(argparse.Namespace(data=[str(a), str(b)], specs=None, studyfile=str(tmp_path / "s"),
-                                   force=False, title=None, part="", supplier="", who="T"))
+        run_new(
+            argparse.Namespace(
+                data=[str(a), str(b)],
+                specs=None,
+                studyfile=str(tmp_path / "s"),
+                force=False,
+                title=None,
+                part="",
+                supplier="",
+                who="T",
+            )
+        )

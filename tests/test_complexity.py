@@ -53,10 +53,27 @@ KNOWN = {
 
 def _over_limit() -> set[tuple[str, str]]:
     out = subprocess.run(
-        [sys.executable, "-m", "ruff", "check", "studykit", "tests", "demo_data", "--isolated",
-         "--select", "C901", "--config", f"lint.mccabe.max-complexity={LIMIT}",
-         "--output-format", "json", "--exit-zero"],
-        cwd=ROOT, capture_output=True, text=True, check=True,
+        [
+            sys.executable,
+            "-m",
+            "ruff",
+            "check",
+            "studykit",
+            "tests",
+            "demo_data",
+            "--isolated",
+            "--select",
+            "C901",
+            "--config",
+            f"lint.mccabe.max-complexity={LIMIT}",
+            "--output-format",
+            "json",
+            "--exit-zero",
+        ],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        check=True,
     ).stdout
     found = set()
     for item in json.loads(out):

@@ -49,9 +49,9 @@ def _microwave():
 def _boxcox(transform_indices):
     x = _microwave()
     return analyze_characteristic(
-        CharacteristicData("radiation", None, x), Characteristic("radiation", usl=USL),
-        options=AnalysisOptions(model="boxcox", phase1="off",
-                                transform_indices=transform_indices),
+        CharacteristicData("radiation", None, x),
+        Characteristic("radiation", usl=USL),
+        options=AnalysisOptions(model="boxcox", phase1="off", transform_indices=transform_indices),
     )
 
 
@@ -102,25 +102,70 @@ def test_transformed_convention_is_the_default_and_differs():
     assert default.capability.method == "normal"
     assert default.capability.ppk == pytest.approx((usl_t - m) / (3 * s), rel=1e-9)
     assert AnalysisOptions().transform_indices == "transformed"
-    assert _boxcox("percentile").capability.ppk != pytest.approx(default.capability.ppk,
-                                                                 rel=1e-3)
+    assert _boxcox("percentile").capability.ppk != pytest.approx(default.capability.ppk, rel=1e-3)
 
 
 def test_cli_names_the_convention(capsys):
-    d = _analyze_json(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "boxcox", "--phase1", "off",
-                      "--transform-indices", "percentile")
+    d = _analyze_json(
+        capsys,
+        MICROWAVE,
+        "-c",
+        "radiation",
+        "--usl",
+        USL,
+        "--model",
+        "boxcox",
+        "--phase1",
+        "off",
+        "--transform-indices",
+        "percentile",
+    )
     assert d["capability"]["method"] == "percentile"
     assert d["capability"]["model"] == "boxcox"
-    d0 = _analyze_json(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "boxcox", "--phase1", "off")
+    d0 = _analyze_json(
+        capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "boxcox", "--phase1", "off"
+    )
     assert d0["capability"]["method"] == "normal"
     capsys.readouterr()
-    assert main(["analyze", str(MICROWAVE), "-c", "radiation", "--usl", str(USL), "--model", "boxcox",
-                 "--phase1", "off", "--transform-indices", "percentile"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(MICROWAVE),
+                "-c",
+                "radiation",
+                "--usl",
+                str(USL),
+                "--model",
+                "boxcox",
+                "--phase1",
+                "off",
+                "--transform-indices",
+                "percentile",
+            ]
+        )
+        == 0
+    )
     text = capsys.readouterr().out
     assert "convention: ISO 22514-2 percentile method on the original scale" in text
     assert "--transform-indices percentile" in text
-    assert main(["analyze", str(MICROWAVE), "-c", "radiation", "--usl", str(USL), "--model", "boxcox",
-                 "--phase1", "off"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(MICROWAVE),
+                "-c",
+                "radiation",
+                "--usl",
+                str(USL),
+                "--model",
+                "boxcox",
+                "--phase1",
+                "off",
+            ]
+        )
+        == 0
+    )
     text = capsys.readouterr().out
     assert "convention: indices of the transformed values" in text
 
@@ -156,8 +201,20 @@ def test_moving_range_removal_through_the_cli(tmp_path, capsys):
     path.write_text("x\n" + "\n".join(f"{v:g}" for v in PAIR_SERIES) + "\n")
     # --model normal: phase I on the raw scale, as in the phase1() test above
     for mode, removed in (("later", ["12"]), ("both", ["11", "12"])):
-        d = _analyze_json(capsys, path, "-c", "x", "--lsl", 5, "--usl", 15, "--model", "normal",
-                          "--mr-removal", mode)
+        d = _analyze_json(
+            capsys,
+            path,
+            "-c",
+            "x",
+            "--lsl",
+            5,
+            "--usl",
+            15,
+            "--model",
+            "normal",
+            "--mr-removal",
+            mode,
+        )
         assert d["phase1"]["mr_removal"] == mode
         assert [str(r["label"]) for r in d["phase1"]["removals"]] == removed
     d = _analyze_json(capsys, path, "-c", "x", "--lsl", 5, "--usl", 15, "--model", "normal")
@@ -170,13 +227,17 @@ def test_convention_words_for_each_method():
 
     boxcox = {"name": "boxcox", "label": "Box-Cox transformed normal"}
     assert "indices of the transformed values" in capability_method_text(
-        {"method": "normal"}, boxcox)
+        {"method": "normal"}, boxcox
+    )
     assert "--transform-indices percentile" in capability_method_text(
-        {"method": "percentile"}, boxcox)
+        {"method": "percentile"}, boxcox
+    )
     assert "fitted model's 0.135 %" in capability_method_text(
-        {"method": "percentile"}, {"name": "weibull", "label": "Weibull"})
+        {"method": "percentile"}, {"name": "weibull", "label": "Weibull"}
+    )
     assert capability_method_text({"method": "normal"}, {"name": "normal"}).startswith(
-        "normal theory")
+        "normal theory"
+    )
     assert capability_method_text(None, None) is None
 
 
@@ -189,7 +250,8 @@ def _skewed(seed):
 
 def _percentile_boxcox(x):
     return analyze_characteristic(
-        CharacteristicData("d", None, x), Characteristic("d", lsl=11.97, usl=12.03),
+        CharacteristicData("d", None, x),
+        Characteristic("d", lsl=11.97, usl=12.03),
         options=AnalysisOptions(model="boxcox", phase1="off", transform_indices="percentile"),
     )
 

@@ -79,7 +79,7 @@ def test_wide_semicolon_decimal_comma_german_headers(tmp_path):
     assert bore.subgroup_sizes == {"1": 2, "2": 2}
     assert bore.notes.tolist() == ["", "", "Werkzeugwechsel", ""]
     assert bore.times.dtype == np.dtype("datetime64[ns]")
-    assert str(bore.times[2]) .startswith("2025-03-01T09:00")
+    assert str(bore.times[2]).startswith("2025-03-01T09:00")
     length = m.get("Länge [mm]")  # name with unit works too
     assert length.unit == "mm"
     assert length.n_missing == 1
@@ -221,7 +221,9 @@ def test_get_unknown_name_lists_names(tmp_path):
 
 
 def test_empty_file(tmp_path):
-    with pytest.raises(DataFileError, match=r"file 'e\.csv': the file is empty.*first row must name"):
+    with pytest.raises(
+        DataFileError, match=r"file 'e\.csv': the file is empty.*first row must name"
+    ):
         read_measurements(write(tmp_path, "e.csv", ""))
 
 
@@ -231,7 +233,9 @@ def test_file_with_only_blank_lines_is_empty(tmp_path):
 
 
 def test_header_only(tmp_path):
-    with pytest.raises(DataFileError, match=r"file 'h\.csv', row 2: the file has a header but no values"):
+    with pytest.raises(
+        DataFileError, match=r"file 'h\.csv', row 2: the file has a header but no values"
+    ):
         read_measurements(write(tmp_path, "h.csv", "Diameter [mm];Length [mm]\n"))
 
 
@@ -241,32 +245,44 @@ def test_text_in_value_cell(tmp_path):
         read_measurements(p)
     err = info.value
     assert (err.file, err.row, err.column, err.value) == ("t.csv", 4, "Diameter [mm]", "10.3 mm")
-    assert str(err).startswith("file 't.csv', row 4, column 'Diameter [mm]': '10.3 mm' is not a number")
+    assert str(err).startswith(
+        "file 't.csv', row 4, column 'Diameter [mm]': '10.3 mm' is not a number"
+    )
     assert "Leave the cell empty for a missing value" in str(err)
 
 
 @pytest.mark.parametrize("token", ["NaN", "nan", "inf", "-Inf", "Infinity", "N/A"])
 def test_nan_inf_text(tmp_path, token):
     p = write(tmp_path, "n.csv", f"X\n1.0\n{token}\n2.0\n")
-    with pytest.raises(DataFileError, match=rf"row 3, column 'X': '{token}' is not a measured value\. Leave the cell empty"):
+    with pytest.raises(
+        DataFileError,
+        match=rf"row 3, column 'X': '{token}' is not a measured value\. Leave the cell empty",
+    ):
         read_measurements(p)
 
 
 def test_mixed_decimal_signs(tmp_path):
     p = write(tmp_path, "d.csv", "X;Y\n1,5;2,5\n1,6;2,6\n1.7;2,7\n")
-    with pytest.raises(DataFileError, match=r"row 4, column 'X': '1\.7' uses '\.' but this file uses ','"):
+    with pytest.raises(
+        DataFileError, match=r"row 4, column 'X': '1\.7' uses '\.' but this file uses ','"
+    ):
         read_measurements(p)
 
 
 def test_decimal_comma_in_comma_separated_file(tmp_path):
     p = write(tmp_path, "c.csv", "A,B\n1,2\n3,5,4\n")
-    with pytest.raises(DataFileError, match=r"row 3: this row has 3 cells but the header has 2 columns.*decimal comma"):
+    with pytest.raises(
+        DataFileError,
+        match=r"row 3: this row has 3 cells but the header has 2 columns.*decimal comma",
+    ):
         read_measurements(p)
 
 
 def test_value_in_unnamed_column(tmp_path):
     p = write(tmp_path, "u.csv", "A;;B\n1;;2\n3;7;4\n")
-    with pytest.raises(DataFileError, match=r"row 3, column 'B': column B has values \(here '7'\) but no name"):
+    with pytest.raises(
+        DataFileError, match=r"row 3, column 'B': column B has values \(here '7'\) but no name"
+    ):
         read_measurements(p)
 
 
@@ -285,14 +301,17 @@ def test_single_value(tmp_path):
 def test_fewer_than_two_subgroups(tmp_path):
     m = read_measurements(write(tmp_path, "g.csv", "Subgroup,X\n1,5.1\n1,5.2\n1,5.0\n"))
     assert any("values in only 1 subgroup(s)" in w for w in m.warnings)
-    with pytest.raises(DataFileError, match=r"'X' has values in 1 subgroup\(s\), but at least 2 are needed"):
+    with pytest.raises(
+        DataFileError, match=r"'X' has values in 1 subgroup\(s\), but at least 2 are needed"
+    ):
         m.check_subgroups(min_subgroups=2)
     m.get("X").check_subgroups(min_subgroups=1)  # enough for what is asked: no error
 
 
 def test_unequal_subgroup_sizes_are_noted(tmp_path):
-    text = "Subgroup,X\n" + "".join(f"{g},{v}\n" for g, v in
-                                   [(1, 1), (1, 2), (1, 3), (2, 4), (2, 5), (3, 6), (3, 7), (3, 8)])
+    text = "Subgroup,X\n" + "".join(
+        f"{g},{v}\n" for g, v in [(1, 1), (1, 2), (1, 3), (2, 4), (2, 5), (3, 6), (3, 7), (3, 8)]
+    )
     m = read_measurements(write(tmp_path, "u.csv", text))
     assert m.get("X").subgroup_sizes == {"1": 3, "2": 2, "3": 3}
     assert any("unequal subgroup sizes: 1 x size 2, 2 x size 3" in n for n in m.notes)
@@ -308,13 +327,18 @@ def test_large_subgroups_are_warned(tmp_path):
 
 def test_subgroup_label_missing(tmp_path):
     p = write(tmp_path, "m.csv", "Subgroup,X\n1,5\n,6\n2,7\n")
-    with pytest.raises(DataFileError, match=r"row 3, column 'Subgroup': this row has values but no subgroup label"):
+    with pytest.raises(
+        DataFileError, match=r"row 3, column 'Subgroup': this row has values but no subgroup label"
+    ):
         read_measurements(p)
 
 
 def test_duplicate_column_names(tmp_path):
     p = write(tmp_path, "d.csv", "Diameter [mm],Length,Diameter [mm]\n1,2,3\n")
-    with pytest.raises(DataFileError, match=r"row 1, column 'Diameter \[mm\]': columns A \('Diameter \[mm\]'\) and C .* same name"):
+    with pytest.raises(
+        DataFileError,
+        match=r"row 1, column 'Diameter \[mm\]': columns A \('Diameter \[mm\]'\) and C .* same name",
+    ):
         read_measurements(p)
 
 
@@ -341,13 +365,18 @@ def test_utf16_with_bom(tmp_path):
 def test_xlsx_reads_sheet_numbers_and_dates(tmp_path):
     import datetime as dt
 
-    p = write_xlsx(tmp_path, "m.xlsx", [
-        ("Subgroup", "Time", "Bore [mm]"),
-        (1, dt.datetime(2025, 3, 1, 8), 10.01),
-        (1, dt.datetime(2025, 3, 1, 8), 10.02),
-        (2, dt.datetime(2025, 3, 1, 9), None),
-        (2, dt.datetime(2025, 3, 1, 9), 9.99),
-    ], extra_sheets=("Limits",))
+    p = write_xlsx(
+        tmp_path,
+        "m.xlsx",
+        [
+            ("Subgroup", "Time", "Bore [mm]"),
+            (1, dt.datetime(2025, 3, 1, 8), 10.01),
+            (1, dt.datetime(2025, 3, 1, 8), 10.02),
+            (2, dt.datetime(2025, 3, 1, 9), None),
+            (2, dt.datetime(2025, 3, 1, 9), 9.99),
+        ],
+        extra_sheets=("Limits",),
+    )
     m = read_measurements(p)
     bore = m.get("Bore")
     assert m.sheet == "Data"
@@ -360,14 +389,18 @@ def test_xlsx_reads_sheet_numbers_and_dates(tmp_path):
 
 def test_xlsx_wrong_sheet_name_lists_sheets(tmp_path):
     p = write_xlsx(tmp_path, "m.xlsx", [("X",), (1,)], extra_sheets=("Limits",))
-    with pytest.raises(DataFileError, match=r"no sheet named 'Messwerte'\. Its sheets are: 'Data', 'Limits'"):
+    with pytest.raises(
+        DataFileError, match=r"no sheet named 'Messwerte'\. Its sheets are: 'Data', 'Limits'"
+    ):
         read_measurements(p, sheet="Messwerte")
     assert read_measurements(p, sheet="data").sheet == "Data"  # case does not matter
 
 
 def test_xlsx_merged_header_cells(tmp_path):
     p = write_xlsx(tmp_path, "m.xlsx", [("Diameter", None, "Length"), (1, 2, 3)], merge="A1:B1")
-    with pytest.raises(DataFileError, match=r"row 1, column 'Diameter': the header cells A1:B1 are merged.*unmerge"):
+    with pytest.raises(
+        DataFileError, match=r"row 1, column 'Diameter': the header cells A1:B1 are merged.*unmerge"
+    ):
         read_measurements(p)
 
 
@@ -394,7 +427,9 @@ def test_xlsx_text_and_error_cells(tmp_path):
     with pytest.raises(DataFileError, match=r"row 4, column 'X': 'n\.m\.' is not a number"):
         read_measurements(p)
     p = write_xlsx(tmp_path, "e.xlsx", [("X",), (1,), ("#DIV/0!",)])
-    with pytest.raises(DataFileError, match=r"row 3, column 'X': the cell shows the spreadsheet error '#DIV/0!'"):
+    with pytest.raises(
+        DataFileError, match=r"row 3, column 'X': the cell shows the spreadsheet error '#DIV/0!'"
+    ):
         read_measurements(p)
 
 
@@ -417,7 +452,10 @@ def test_damaged_xlsx(tmp_path):
 
 def test_binary_junk_with_csv_name(tmp_path):
     junk = np.random.default_rng(seed=7).integers(0, 256, 4000, dtype=np.uint8).tobytes()
-    with pytest.raises(DataFileError, match=r"file 'junk\.csv': the file does not look like a text table.*save them as \.xlsx"):
+    with pytest.raises(
+        DataFileError,
+        match=r"file 'junk\.csv': the file does not look like a text table.*save them as \.xlsx",
+    ):
         read_measurements(write(tmp_path, "junk.csv", junk))
     png_like = b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 4
     with pytest.raises(DataFileError, match="does not look like a text table"):
@@ -426,12 +464,17 @@ def test_binary_junk_with_csv_name(tmp_path):
 
 def test_old_xls_workbook(tmp_path):
     with pytest.raises(DataFileError, match=r"old-style Excel \.xls workbook"):
-        read_measurements(write(tmp_path, "old.xls", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 600))
+        read_measurements(
+            write(tmp_path, "old.xls", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 600)
+        )
 
 
 def test_max_bytes_limit(tmp_path):
     raw = ("X\n" + "1.0\n" * 3000).encode()
-    with pytest.raises(DataFileError, match=r"file 'big\.csv': the file is 11\.7 kB, more than the limit of 10\.0 kB"):
+    with pytest.raises(
+        DataFileError,
+        match=r"file 'big\.csv': the file is 11\.7 kB, more than the limit of 10\.0 kB",
+    ):
         read_measurements_bytes(raw, "big.csv", max_bytes=10 * 1024)
     with pytest.raises(DataFileError, match="more than the limit"):
         read_measurements(write(tmp_path, "big.csv", raw), max_bytes=10 * 1024)
@@ -451,7 +494,8 @@ def test_missing_file(tmp_path):
 @given(
     values=st.lists(
         st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinity=False),
-        min_size=2, max_size=40,
+        min_size=2,
+        max_size=40,
     ),
     german=st.booleans(),
     missing=st.sets(st.integers(min_value=0, max_value=39), max_size=5),
@@ -517,11 +561,15 @@ def test_50mb_file_in_bounded_memory(tmp_path):
     before, after, n, n_missing = (int(x) for x in out.stdout.split())
     assert n == row
     assert n_missing == 0
-    assert after - before < 6 * size, f"peak rise {(after - before) / 2**20:.0f} MB for {size / 2**20:.0f} MB"
+    assert after - before < 6 * size, (
+        f"peak rise {(after - before) / 2**20:.0f} MB for {size / 2**20:.0f} MB"
+    )
 
 
 def test_numbers_in_first_row_mean_no_header(tmp_path):
-    with pytest.raises(DataFileError, match=r"row 1: the first row holds numbers \('10\.1'\), not column names"):
+    with pytest.raises(
+        DataFileError, match=r"row 1: the first row holds numbers \('10\.1'\), not column names"
+    ):
         read_measurements(write(tmp_path, "n.csv", "10.1\n10.2\n"))
 
 
@@ -562,7 +610,8 @@ def test_characteristic_data_built_directly():
             st.one_of(st.just(""), st.floats(-100, 100, allow_nan=False).map(lambda v: f"{v:.4f}")),
             st.one_of(st.just(""), st.integers(-5, 5).map(str)),
         ),
-        min_size=1, max_size=30,
+        min_size=1,
+        max_size=30,
     ),
     sep=st.sampled_from([";", "\t", ","]),
     blank_line=st.booleans(),
@@ -630,8 +679,12 @@ def test_title_rows_above_the_header_are_skipped(tmp_path):
     assert any("rows 1 to 2 above the header look like a title" in n for n in m.notes)
     text = "Report shaft 4711\nSubgroup,Diameter [mm]\n1,10.1\n"
     assert read_measurements(write(tmp_path, "u.csv", text)).get("Diameter").rows.tolist() == [3]
-    p = write_xlsx(tmp_path, "t.xlsx", [("Report shaft 4711",), (), ("Subgroup", "Diameter [mm]"),
-                                        (1, 10.1), (1, 10.2)], merge="A1:B1")
+    p = write_xlsx(
+        tmp_path,
+        "t.xlsx",
+        [("Report shaft 4711",), (), ("Subgroup", "Diameter [mm]"), (1, 10.1), (1, 10.2)],
+        merge="A1:B1",
+    )
     m = read_measurements(p)
     assert m.get("Diameter").rows.tolist() == [4, 5]
     assert m.subgroup_column == "Subgroup"

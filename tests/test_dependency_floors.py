@@ -27,7 +27,8 @@ DEV = [Requirement(r) for r in PROJECT["optional-dependencies"]["dev"]]
 def test_installed_version_meets_the_floor(req):
     installed = Version(md.version(req.name))
     assert req.specifier.contains(installed, prereleases=True), (
-        f"{req.name} {installed} is installed but pyproject.toml asks for {req.specifier}")
+        f"{req.name} {installed} is installed but pyproject.toml asks for {req.specifier}"
+    )
 
 
 @pytest.mark.parametrize("req", RUNTIME, ids=str)
@@ -35,4 +36,5 @@ def test_every_runtime_dependency_has_a_floor(req):
     floors = [s for s in req.specifier if s.operator == ">="]
     assert floors, f"{req.name}: give a lower bound (>=) that a user's environment can meet"
     assert not [s for s in req.specifier if s.operator in ("==", "<", "<=", "~=")], (
-        f"{req.name}: no upper pins or exact versions in a library's requirements")
+        f"{req.name}: no upper pins or exact versions in a library's requirements"
+    )

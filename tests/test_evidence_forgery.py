@@ -40,13 +40,17 @@ def made(tmp_path_factory):
     data = tmp / "pump_housing_pilot.csv"
     data.write_bytes((DEMO / "pump_housing_pilot.csv").read_bytes())
     study = tmp / "s.study"
-    StudyFile.create(study, data=data.read_bytes(), filename=data.name, title="Forgery test",
-                     characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97,
-                                                     usl=12.03)], who="tester")
+    StudyFile.create(
+        study,
+        data=data.read_bytes(),
+        filename=data.name,
+        title="Forgery test",
+        characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03)],
+        who="tester",
+    )
     build_report(study, tmp / "r.pdf")
     cert = make_demo_certificate(tmp / "keys", name="Pat Prep", passphrase=PASS)
-    sign_report(tmp / "r.pdf", tmp / "s.pdf", cert.p12_path, PASS, role="prepared",
-                name="Pat Prep")
+    sign_report(tmp / "r.pdf", tmp / "s.pdf", cert.p12_path, PASS, role="prepared", name="Pat Prep")
     return tmp, data, study, cert
 
 
@@ -65,7 +69,7 @@ def _sign_raw(pdf_in: Path, pdf_out: Path, p12: str) -> None:
 
 def _colon_hex(hex_lower: str) -> str:
     h = hex_lower.upper()
-    return ":".join(h[i:i + 2] for i in range(0, len(h), 2))
+    return ":".join(h[i : i + 2] for i in range(0, len(h), 2))
 
 
 # -- signatures ---------------------------------------------------------------------------------
@@ -75,27 +79,35 @@ def test_stripped_signature_with_trust_fails(made, tmp_path, capsys):
     tmp, data, _, cert = made
     signed, unsigned = (tmp / "s.pdf").read_bytes(), (tmp / "r.pdf").read_bytes()
     # a PAdES signature is an incremental update: cutting it off gives the unsigned bytes back
-    cut = signed[:len(unsigned)]
+    cut = signed[: len(unsigned)]
     assert cut == unsigned
     (tmp_path / "cut.pdf").write_bytes(cut)
     res = verify_report(tmp_path / "cut.pdf", data=data, trust=[cert.cert_path])
     assert res.status == "not_evidence" and res.exit_code == 1
-    assert any(c.item == "signatures" and "UNSIGNED, but --trust" in c.detail
-               for c in res.failures)
+    assert any(c.item == "signatures" and "UNSIGNED, but --trust" in c.detail for c in res.failures)
     # --allow-unsigned does not override --trust: a signature was asked for
-    res = verify_report(tmp_path / "cut.pdf", data=data, trust=[cert.cert_path],
-                        allow_unsigned=True)
+    res = verify_report(
+        tmp_path / "cut.pdf", data=data, trust=[cert.cert_path], allow_unsigned=True
+    )
     assert res.exit_code == 1 and res.status == "not_verified"
-    assert main(["verify", str(tmp_path / "cut.pdf"), "--data", str(data), "--trust",
-                 cert.cert_path]) == 1
+    assert (
+        main(["verify", str(tmp_path / "cut.pdf"), "--data", str(data), "--trust", cert.cert_path])
+        == 1
+    )
     assert "NOT EVIDENCE: unsigned" in capsys.readouterr().out
 
 
 def test_differently_signed_with_trust_fails(made, tmp_path):
     tmp, data, _, cert = made
     other = make_demo_certificate(tmp_path / "k", name="Other Person", passphrase=PASS)
-    sign_report(tmp / "s.pdf", tmp_path / "two.pdf", other.p12_path, PASS, role="reviewed",
-                name="Other Person")
+    sign_report(
+        tmp / "s.pdf",
+        tmp_path / "two.pdf",
+        other.p12_path,
+        PASS,
+        role="reviewed",
+        name="Other Person",
+    )
     res = verify_report(tmp_path / "two.pdf", data=data, trust=[cert.cert_path])
     assert res.exit_code == 1
     failed = [c for c in res.failures if c.item.startswith("signature Signature2")]
@@ -116,12 +128,14 @@ def test_certificate_fingerprint_validity_and_trust_always_printed(made, capsys)
 def test_expired_certificate(made, tmp_path, capsys):
     tmp, data, _, _ = made
     now = dt.datetime.now(dt.UTC)
-    old = make_demo_certificate(tmp_path / "k", name="Pat Prep", passphrase=PASS, days=30,
-                                when=now - dt.timedelta(days=400))
+    old = make_demo_certificate(
+        tmp_path / "k", name="Pat Prep", passphrase=PASS, days=30, when=now - dt.timedelta(days=400)
+    )
     # studykit refuses to sign with it
     with pytest.raises(StudyInputError, match="expired"):
-        sign_report(tmp / "r.pdf", tmp_path / "x.pdf", old.p12_path, PASS, role="prepared",
-                    name="Pat Prep")
+        sign_report(
+            tmp / "r.pdf", tmp_path / "x.pdf", old.p12_path, PASS, role="prepared", name="Pat Prep"
+        )
     assert not (tmp_path / "x.pdf").exists()
     # a report signed with it by another tool fails verify, trusted root or not
     _sign_raw(tmp / "r.pdf", tmp_path / "old.pdf", old.p12_path)
@@ -133,11 +147,25 @@ def test_expired_certificate(made, tmp_path, capsys):
     # and `report --sign` refuses it with one line, exit 2
     shutil.copy(tmp / "s.study", tmp_path / "s.study")
     import os
+
     os.environ["SK_FORGERY_PW"] = PASS
     try:
-        assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "rep.pdf"),
-                     "--sign", old.p12_path, "--passphrase-env", "SK_FORGERY_PW",
-                     "--quiet"]) == 2
+        assert (
+            main(
+                [
+                    "report",
+                    str(tmp_path / "s.study"),
+                    "-o",
+                    str(tmp_path / "rep.pdf"),
+                    "--sign",
+                    old.p12_path,
+                    "--passphrase-env",
+                    "SK_FORGERY_PW",
+                    "--quiet",
+                ]
+            )
+            == 2
+        )
     finally:
         del os.environ["SK_FORGERY_PW"]
     err = capsys.readouterr().err
@@ -147,11 +175,18 @@ def test_expired_certificate(made, tmp_path, capsys):
 def test_not_yet_valid_certificate(made, tmp_path):
     tmp, data, _, _ = made
     now = dt.datetime.now(dt.UTC)
-    future = make_demo_certificate(tmp_path / "k", name="Pat Prep", passphrase=PASS, days=365,
-                                   when=now + dt.timedelta(days=30))
+    future = make_demo_certificate(
+        tmp_path / "k", name="Pat Prep", passphrase=PASS, days=365, when=now + dt.timedelta(days=30)
+    )
     with pytest.raises(StudyInputError, match="not yet valid"):
-        sign_report(tmp / "r.pdf", tmp_path / "x.pdf", future.p12_path, PASS,
-                    role="prepared", name="Pat Prep")
+        sign_report(
+            tmp / "r.pdf",
+            tmp_path / "x.pdf",
+            future.p12_path,
+            PASS,
+            role="prepared",
+            name="Pat Prep",
+        )
     _sign_raw(tmp / "r.pdf", tmp_path / "future.pdf", future.p12_path)
     res = verify_report(tmp_path / "future.pdf", data=data, trust=[future.cert_path])
     assert res.exit_code == 1
@@ -165,8 +200,14 @@ def test_lookalike_certificate_forgery_is_not_verified(made, tmp_path, capsys):
     # a report consistent with the data
     fake = make_demo_certificate(tmp_path / "forger", name="Pat Prep", passphrase=PASS)
     assert fake.subject == cert.subject and fake.fingerprint_sha256 != cert.fingerprint_sha256
-    sign_report(tmp / "r.pdf", tmp_path / "forged.pdf", fake.p12_path, PASS, role="prepared",
-                name="Pat Prep")
+    sign_report(
+        tmp / "r.pdf",
+        tmp_path / "forged.pdf",
+        fake.p12_path,
+        PASS,
+        role="prepared",
+        name="Pat Prep",
+    )
     code = main(["verify", str(tmp_path / "forged.pdf"), "--data", str(data)])
     out = capsys.readouterr().out
     assert code == 3  # consistent, but the signer is not established: never 0
@@ -235,8 +276,9 @@ def test_text_added_to_a_page(made, tmp_path):
 def test_annotation_added_to_a_page(made, tmp_path):
     tmp, data, _, _ = made
     writer = PdfWriter(clone_from=PdfReader(tmp / "r.pdf"))
-    writer.add_annotation(page_number=1, annotation=FreeText(
-        text="Meets criteria", rect=(50, 50, 250, 80)))
+    writer.add_annotation(
+        page_number=1, annotation=FreeText(text="Meets criteria", rect=(50, 50, 250, 80))
+    )
     with open(tmp_path / "annot.pdf", "wb") as fh:
         writer.write(fh)
     res = verify_report(tmp_path / "annot.pdf", data=data, allow_unsigned=True)

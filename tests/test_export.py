@@ -20,8 +20,15 @@ from studykit.export import FORMULA_TRIGGERS, csv_text, safe_cell, write_csv, wr
 
 # every trigger character named by the OWASP CSV Injection page
 OWASP_TRIGGERS = ["=", "+", "-", "@", "\t", "\r"]
-PAYLOADS = ["=cmd|' /C calc'!A0", "+1+1", "-2+3", "@SUM(1+1)", "\t=1", "\r=1",
-            '=HYPERLINK("http://x","y")']
+PAYLOADS = [
+    "=cmd|' /C calc'!A0",
+    "+1+1",
+    "-2+3",
+    "@SUM(1+1)",
+    "\t=1",
+    "\r=1",
+    '=HYPERLINK("http://x","y")',
+]
 
 
 def test_trigger_set_is_owasps():

@@ -37,8 +37,17 @@ def built(tmp_path_factory):
     d = tmp_path_factory.mktemp("extras")
     study = d / "demo.study"
     shutil.copy(DEMO / "pump_housing_pilot.study", study)
-    code = main(["report", str(study), "-o", str(d / "r.pdf"), "--notebook",
-                 str(d / "analysis.ipynb"), "--quiet"])
+    code = main(
+        [
+            "report",
+            str(study),
+            "-o",
+            str(d / "r.pdf"),
+            "--notebook",
+            str(d / "analysis.ipynb"),
+            "--quiet",
+        ]
+    )
     assert code == 0
     return d
 
@@ -62,9 +71,12 @@ def test_interval_criterion_refused_on_counted_data(tmp_path):
     shutil.copy(DEMO / "pump_housing_pilot.study", tmp_path / "s.study")
     study = StudyFile(tmp_path / "s.study").load()
     with pytest.raises(SpecError, match="needs measured values"):
-        study.with_criteria("leak_test_defectives",
-                            Criteria(interval_coverage=0.99, interval_confidence=0.95),
-                            who="t", reason="r")
+        study.with_criteria(
+            "leak_test_defectives",
+            Criteria(interval_coverage=0.99, interval_confidence=0.95),
+            who="t",
+            reason="r",
+        )
 
 
 def test_demo_bore_carries_the_interval_and_its_numbers():
@@ -101,8 +113,13 @@ def test_interval_criterion_fails_the_verdict_the_index_passes():
     m, sd = x.mean(), x.std(ddof=1)
     assert m - k * sd < 9.6 or m + k * sd > 10.4  # the premise of this test
     index_only = Criteria(index="ppk", threshold=1.0, basis="estimate")
-    both = Criteria(index="ppk", threshold=1.0, basis="estimate",
-                    interval_coverage=0.9999, interval_confidence=0.95)
+    both = Criteria(
+        index="ppk",
+        threshold=1.0,
+        basis="estimate",
+        interval_coverage=0.9999,
+        interval_confidence=0.95,
+    )
     a = analyze_characteristic(data, spec, criteria=index_only)
     b = analyze_characteristic(_sample(), spec, criteria=both)
     assert a.verdict.meets is True and a.tolerance_interval is None
@@ -115,10 +132,14 @@ def test_interval_criterion_fails_the_verdict_the_index_passes():
 
 
 def test_extreme_coverage_keeps_the_analysis_and_says_no_free_size():
-    crit = Criteria(index="ppk", threshold=1.0, basis="estimate", interval_coverage=0.99999,
-                    interval_confidence=0.99)
-    res = analyze_characteristic(_sample(), Characteristic("d", lsl=9.4, usl=10.6),
-                                 criteria=crit)
+    crit = Criteria(
+        index="ppk",
+        threshold=1.0,
+        basis="estimate",
+        interval_coverage=0.99999,
+        interval_confidence=0.99,
+    )
+    res = analyze_characteristic(_sample(), Characteristic("d", lsl=9.4, usl=10.6), criteria=crit)
     # more than 100 000 parts: 1 - n P^(n-1) + (n-1) P^n < 0.99 at n = 1e5 for P = 0.99999
     assert res.tolerance_interval["plan"]["distribution_free"] is None
     assert res.verdict is not None
@@ -129,8 +150,13 @@ def test_interval_criterion_not_judged_without_enough_values_for_a_free_interval
     # (the extremes of n values cover P with confidence 1 - n P^(n-1) + (n-1) P^n, 3.6 % here)
     x = np.random.default_rng(3).weibull(2.0, 30) + 5.0
     spec = Characteristic("w", lsl=4.0, usl=9.0, model="weibull")
-    crit = Criteria(index="ppk", threshold=0.5, basis="estimate", interval_coverage=0.99,
-                    interval_confidence=0.95)
+    crit = Criteria(
+        index="ppk",
+        threshold=0.5,
+        basis="estimate",
+        interval_coverage=0.99,
+        interval_confidence=0.95,
+    )
     res = analyze_characteristic(CharacteristicData("w", None, x), spec, criteria=crit)
     assert res.model.name == "weibull"
     assert res.tolerance_interval["model"] == "distribution_free"
@@ -141,16 +167,44 @@ def test_interval_criterion_not_judged_without_enough_values_for_a_free_interval
 def test_study_set_interval_option(tmp_path, capsys):
     study = tmp_path / "s.study"
     shutil.copy(DEMO / "pump_housing_pilot.study", study)
-    assert main(["study", "set", str(study), "flange_thickness", "--interval", "0.95,0.9",
-                 "--reason", "customer asks"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "set",
+                str(study),
+                "flange_thickness",
+                "--interval",
+                "0.95,0.9",
+                "--reason",
+                "customer asks",
+            ]
+        )
+        == 0
+    )
     crit = StudyFile(study).load().criteria_for("flange_thickness")
     assert (crit.interval_coverage, crit.interval_confidence) == (0.95, 0.9)
-    assert main(["study", "set", str(study), "flange_thickness", "--interval", "none",
-                 "--reason", "withdrawn"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "set",
+                str(study),
+                "flange_thickness",
+                "--interval",
+                "none",
+                "--reason",
+                "withdrawn",
+            ]
+        )
+        == 0
+    )
     assert not StudyFile(study).load().criteria_for("flange_thickness").has_interval
     capsys.readouterr()
-    assert main(["study", "set", str(study), "flange_thickness", "--interval", "99",
-                 "--reason", "x"]) == 2
+    assert (
+        main(["study", "set", str(study), "flange_thickness", "--interval", "99", "--reason", "x"])
+        == 2
+    )
     assert "--interval '99'" in capsys.readouterr().err
 
 
@@ -158,10 +212,12 @@ def test_study_set_interval_option(tmp_path, capsys):
 
 
 def test_demo_position_study_is_the_csv_recomputed():
-    rows = [ln.split(",") for ln in
-            (DEMO / "mounting_hole_position.csv").read_text().splitlines()[1:]]
-    fresh = position_study([float(r[1]) for r in rows], [float(r[2]) for r in rows],
-                           tolerance=0.20).to_dict()
+    rows = [
+        ln.split(",") for ln in (DEMO / "mounting_hole_position.csv").read_text().splitlines()[1:]
+    ]
+    fresh = position_study(
+        [float(r[1]) for r in rows], [float(r[2]) for r in rows], tolerance=0.20
+    ).to_dict()
     stored = stored_positions(DEMO / "pump_housing_pilot.study")
     assert list(stored) == ["mounting_hole_position"]
     assert stored["mounting_hole_position"]["result"] == fresh
@@ -170,8 +226,9 @@ def test_demo_position_study_is_the_csv_recomputed():
 
 def test_position_payload_refuses_bad_input():
     with pytest.raises(SpecError):
-        position_payload("hole", [0.0, 0.01, 0.02, 0.0, 0.01], [0.0, 0.02, 0.01, 0.01, 0.0],
-                         tolerance=-1)
+        position_payload(
+            "hole", [0.0, 0.01, 0.02, 0.0, 0.01], [0.0, 0.02, 0.01, 0.01, 0.0], tolerance=-1
+        )
 
 
 # -- PDF and verify --------------------------------------------------------------------------------
@@ -191,13 +248,23 @@ def test_report_has_both_sections_and_the_evidence_carries_them(built):
     assert "One-dimensional shortcut" in text and "times fewer" in text
     ev = read_evidence(built / "r.pdf")
     assert ev["results"]["bore_diameter"]["tolerance_interval"]["meets"] is True
-    assert ev["positions"]["mounting_hole_position"]["result"] == \
-        stored_positions(built / "demo.study")["mounting_hole_position"]["result"]
+    assert (
+        ev["positions"]["mounting_hole_position"]["result"]
+        == stored_positions(built / "demo.study")["mounting_hole_position"]["result"]
+    )
 
 
 def test_verify_recomputes_interval_and_position(built, capsys):
-    code = main(["verify", str(built / "r.pdf"), "--allow-unsigned", "--study",
-                 str(built / "demo.study"), "--json"])
+    code = main(
+        [
+            "verify",
+            str(built / "r.pdf"),
+            "--allow-unsigned",
+            "--study",
+            str(built / "demo.study"),
+            "--json",
+        ]
+    )
     out = json.loads(capsys.readouterr().out)
     checks = {c["item"]: c for c in out["checks"]}
     assert checks["position study mounting_hole_position"]["status"] == "pass"
@@ -225,10 +292,12 @@ def _execute(path):
     from nbclient import NotebookClient
 
     nb = nbformat.read(str(path), as_version=4)
-    NotebookClient(nb, timeout=600, kernel_name="python3",
-                   resources={"metadata": {"path": str(path.parent)}}).execute()
-    return "\n".join(o.get("text", "") for c in nb.cells if c.cell_type == "code"
-                     for o in c.outputs)
+    NotebookClient(
+        nb, timeout=600, kernel_name="python3", resources={"metadata": {"path": str(path.parent)}}
+    ).execute()
+    return "\n".join(
+        o.get("text", "") for c in nb.cells if c.cell_type == "code" for o in c.outputs
+    )
 
 
 def test_notebook_recomputes_every_number_of_the_report(built):
@@ -240,7 +309,8 @@ def test_notebook_recomputes_every_number_of_the_report(built):
     out = _execute(built / "analysis.ipynb")
     ev = read_evidence(built / "r.pdf")
     n_expected = sum(compare_numbers(r, r)[0] for r in ev["results"].values()) + sum(
-        compare_numbers(p["result"], p["result"])[0] for p in ev["positions"].values())
+        compare_numbers(p["result"], p["result"])[0] for p in ev["positions"].values()
+    )
     assert f"all {n_expected} numbers of the report agree" in out
     assert "bore_diameter" in out and "mounting_hole_position" in out
 
@@ -260,8 +330,17 @@ def test_notebook_stops_when_the_report_is_of_another_state(built, tmp_path):
 
 
 def test_report_notebook_option_refuses_another_suffix(tmp_path, capsys):
-    code = main(["report", str(DEMO / "pump_housing_pilot.study"), "-o", str(tmp_path / "r.pdf"),
-                 "--notebook", str(tmp_path / "a.txt"), "--quiet"])
+    code = main(
+        [
+            "report",
+            str(DEMO / "pump_housing_pilot.study"),
+            "-o",
+            str(tmp_path / "r.pdf"),
+            "--notebook",
+            str(tmp_path / "a.txt"),
+            "--quiet",
+        ]
+    )
     assert code == 2 and ".ipynb" in capsys.readouterr().err
     assert not (tmp_path / "r.pdf").exists()
 
@@ -269,8 +348,12 @@ def test_report_notebook_option_refuses_another_suffix(tmp_path, capsys):
 def test_handoff_pack_holds_the_notebook(built, tmp_path):
     from studykit.report.handoff import build_handoff
 
-    h = build_handoff(built / "demo.study", tmp_path / "pack.zip", report_pdf=built / "r.pdf",
-                      when_not_ready="draft")
+    h = build_handoff(
+        built / "demo.study",
+        tmp_path / "pack.zip",
+        report_pdf=built / "r.pdf",
+        when_not_ready="draft",
+    )
     assert "analysis.ipynb" in h.entries
     with zipfile.ZipFile(tmp_path / "pack.zip") as z:
         nb = json.loads(z.read("analysis.ipynb"))
@@ -285,9 +368,28 @@ def test_position_cli_keeps_the_study_in_a_study_file(tmp_path, capsys):
     study = tmp_path / "s.study"
     shutil.copy(DEMO / "pump_housing_pilot.study", study)
     csv = DEMO / "mounting_hole_position.csv"
-    assert main(["position", str(csv), "--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.25",
-                 "--study", str(study), "--name", "second_hole", "--who", "A. Tester",
-                 "--json"]) == 0
+    assert (
+        main(
+            [
+                "position",
+                str(csv),
+                "--x",
+                "hole_dx",
+                "--y",
+                "hole_dy",
+                "--tolerance",
+                "0.25",
+                "--study",
+                str(study),
+                "--name",
+                "second_hole",
+                "--who",
+                "A. Tester",
+                "--json",
+            ]
+        )
+        == 0
+    )
     out = json.loads(capsys.readouterr().out)
     kept = stored_positions(study)
     assert set(kept) == {"mounting_hole_position", "second_hole"}
@@ -296,18 +398,36 @@ def test_position_cli_keeps_the_study_in_a_study_file(tmp_path, capsys):
     assert out["stored"]["name"] == "second_hole"
     assert StudyFile(study).results(POSITION_KIND)[-1].who == "A. Tester"
     # --study without --name is refused before anything is stored
-    assert main(["position", str(csv), "--x", "hole_dx", "--y", "hole_dy", "--tolerance", "0.25",
-                 "--study", str(study)]) == 2
+    assert (
+        main(
+            [
+                "position",
+                str(csv),
+                "--x",
+                "hole_dx",
+                "--y",
+                "hole_dy",
+                "--tolerance",
+                "0.25",
+                "--study",
+                str(study),
+            ]
+        )
+        == 2
+    )
     assert "--name" in capsys.readouterr().err
     assert len(StudyFile(study).results(POSITION_KIND)) == 2
 
 
 def test_analyze_prints_the_interval_line(capsys):
-    assert main(["analyze", "--study", str(DEMO / "pump_housing_pilot.study"), "-c",
-                 "bore_diameter"]) == 0
+    assert (
+        main(["analyze", "--study", str(DEMO / "pump_housing_pilot.study"), "-c", "bore_diameter"])
+        == 0
+    )
     out = capsys.readouterr().out
-    assert ("tolerance interval (at least 99% of parts within specification with 95% "
-            "confidence): holds") in out
+    assert (
+        "tolerance interval (at least 99% of parts within specification with 95% confidence): holds"
+    ) in out
 
 
 def test_a_changed_interval_number_is_found_by_the_comparison_verify_makes():
@@ -318,8 +438,10 @@ def test_a_changed_interval_number_is_found_by_the_comparison_verify_makes():
     forged = json.loads(json.dumps(fresh))
     forged["tolerance_interval"]["upper"] = 12.01  # the interval drawn narrower
     _, diffs = compare_numbers(forged, fresh)
-    assert diffs == [f"tolerance_interval.upper: report 12.01, recomputed "
-                     f"{fresh['tolerance_interval']['upper']:.10g}"]
+    assert diffs == [
+        f"tolerance_interval.upper: report 12.01, recomputed "
+        f"{fresh['tolerance_interval']['upper']:.10g}"
+    ]
 
 
 def test_position_view_shows_the_caution_for_a_safety_critical_position():

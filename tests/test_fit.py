@@ -25,34 +25,85 @@ def _sample(dist, seed, size=N):
 
 # family id -> (sample, scipy distribution, fixed arguments for .fit, our params from scipy's)
 CASES = {
-    "normal": (_sample(stats.norm(10, 2), 1), stats.norm, {},
-               lambda p: {"mean": p[0], "sd": p[1]}),
-    "lognormal": (_sample(stats.lognorm(0.4, scale=5), 2), stats.lognorm, {"floc": 0},
-                  lambda p: {"log_mean": math.log(p[2]), "log_sd": p[0]}),
-    "lognormal3": (_sample(stats.lognorm(0.5, loc=5, scale=2), 3), stats.lognorm, {},
-                   lambda p: {"log_mean": math.log(p[2]), "log_sd": p[0], "threshold": p[1]}),
-    "weibull": (_sample(stats.weibull_min(2.5, scale=4), 4), stats.weibull_min, {"floc": 0},
-                lambda p: {"shape": p[0], "scale": p[2]}),
-    "weibull3": (_sample(stats.weibull_min(2.5, loc=10, scale=3), 5), stats.weibull_min, {},
-                 lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]}),
-    "gamma": (_sample(stats.gamma(3.0, scale=2), 6), stats.gamma, {"floc": 0},
-              lambda p: {"shape": p[0], "scale": p[2]}),
-    "gamma3": (_sample(stats.gamma(2.5, loc=5, scale=1.5), 7), stats.gamma, {},
-               lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]}),
-    "exponential": (_sample(stats.expon(scale=3), 8), stats.expon, {"floc": 0},
-                    lambda p: {"scale": p[1]}),
-    "logistic": (_sample(stats.logistic(5, 1.5), 9), stats.logistic, {},
-                 lambda p: {"location": p[0], "scale": p[1]}),
-    "loglogistic": (_sample(stats.fisk(4.0, scale=3), 10), stats.fisk, {"floc": 0},
-                    lambda p: {"shape": p[0], "scale": p[2]}),
-    "loglogistic3": (_sample(stats.fisk(3.0, loc=5, scale=3), 11), stats.fisk, {},
-                     lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]}),
-    "sev": (_sample(stats.gumbel_l(20, 2), 12), stats.gumbel_l, {},
-            lambda p: {"location": p[0], "scale": p[1]}),
-    "lev": (_sample(stats.gumbel_r(20, 2), 13), stats.gumbel_r, {},
-            lambda p: {"location": p[0], "scale": p[1]}),
-    "halfnormal": (np.abs(_sample(stats.norm(0, 0.3), 14)), stats.halfnorm, {"floc": 0},
-                   lambda p: {"scale": p[1]}),
+    "normal": (_sample(stats.norm(10, 2), 1), stats.norm, {}, lambda p: {"mean": p[0], "sd": p[1]}),
+    "lognormal": (
+        _sample(stats.lognorm(0.4, scale=5), 2),
+        stats.lognorm,
+        {"floc": 0},
+        lambda p: {"log_mean": math.log(p[2]), "log_sd": p[0]},
+    ),
+    "lognormal3": (
+        _sample(stats.lognorm(0.5, loc=5, scale=2), 3),
+        stats.lognorm,
+        {},
+        lambda p: {"log_mean": math.log(p[2]), "log_sd": p[0], "threshold": p[1]},
+    ),
+    "weibull": (
+        _sample(stats.weibull_min(2.5, scale=4), 4),
+        stats.weibull_min,
+        {"floc": 0},
+        lambda p: {"shape": p[0], "scale": p[2]},
+    ),
+    "weibull3": (
+        _sample(stats.weibull_min(2.5, loc=10, scale=3), 5),
+        stats.weibull_min,
+        {},
+        lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]},
+    ),
+    "gamma": (
+        _sample(stats.gamma(3.0, scale=2), 6),
+        stats.gamma,
+        {"floc": 0},
+        lambda p: {"shape": p[0], "scale": p[2]},
+    ),
+    "gamma3": (
+        _sample(stats.gamma(2.5, loc=5, scale=1.5), 7),
+        stats.gamma,
+        {},
+        lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]},
+    ),
+    "exponential": (
+        _sample(stats.expon(scale=3), 8),
+        stats.expon,
+        {"floc": 0},
+        lambda p: {"scale": p[1]},
+    ),
+    "logistic": (
+        _sample(stats.logistic(5, 1.5), 9),
+        stats.logistic,
+        {},
+        lambda p: {"location": p[0], "scale": p[1]},
+    ),
+    "loglogistic": (
+        _sample(stats.fisk(4.0, scale=3), 10),
+        stats.fisk,
+        {"floc": 0},
+        lambda p: {"shape": p[0], "scale": p[2]},
+    ),
+    "loglogistic3": (
+        _sample(stats.fisk(3.0, loc=5, scale=3), 11),
+        stats.fisk,
+        {},
+        lambda p: {"shape": p[0], "scale": p[2], "threshold": p[1]},
+    ),
+    "sev": (
+        _sample(stats.gumbel_l(20, 2), 12),
+        stats.gumbel_l,
+        {},
+        lambda p: {"location": p[0], "scale": p[1]},
+    ),
+    "lev": (
+        _sample(stats.gumbel_r(20, 2), 13),
+        stats.gumbel_r,
+        {},
+        lambda p: {"location": p[0], "scale": p[1]},
+    ),
+    "halfnormal": (
+        np.abs(_sample(stats.norm(0, 0.3), 14)),
+        stats.halfnorm,
+        {"floc": 0},
+        lambda p: {"scale": p[1]},
+    ),
 }
 
 
@@ -116,8 +167,7 @@ def _ad_by_definition(x, cdf):
     return -n - np.sum((2 * i - 1) * (np.log(u) + np.log(1 - u[::-1]))) / n
 
 
-@pytest.mark.parametrize("fid", sorted(set(fit.FAMILIES) - {"normal", "lognormal",
-                                                               "lognormal3"}))
+@pytest.mark.parametrize("fid", sorted(set(fit.FAMILIES) - {"normal", "lognormal", "lognormal3"}))
 def test_ad_statistic_by_definition(fid):
     x = CASES.get(fid, CASES["exponential"])[0]
     if fid == "exponential2":
@@ -134,8 +184,9 @@ def test_normal_ad_matches_references():
     assert_allclose(m.ad_statistic, 0.304858, atol=5e-7)
     assert_allclose(m.ad_p_value, 0.507862, atol=5e-7)
     # the statistic is scipy.stats.anderson(x, 'norm'), which uses s with divisor n-1
-    assert_allclose(m.ad_statistic, stats.anderson(x, "norm", method="interpolate").statistic,
-                    rtol=1e-12)
+    assert_allclose(
+        m.ad_statistic, stats.anderson(x, "norm", method="interpolate").statistic, rtol=1e-12
+    )
 
 
 def test_lognormal_ad_is_normal_ad_of_logs():
@@ -145,6 +196,7 @@ def test_lognormal_ad_is_normal_ad_of_logs():
     assert_allclose(m.ad_statistic, ref.statistic, rtol=1e-12)
     # p-value: statsmodels.stats.diagnostic.normal_ad uses the same D'Agostino-Stephens formula
     from statsmodels.stats.diagnostic import normal_ad
+
     assert_allclose(m.ad_p_value, normal_ad(np.log(x))[1], rtol=1e-9)
 
 
@@ -230,8 +282,12 @@ def test_ranking_rows_lrt_and_order():
     assert [row.aic for row in ok] == sorted(row.aic for row in ok)
     assert r.best is r.models[r.rows[0].id]
     by_id = {row.id: row for row in r.rows}
-    for three, two in [("weibull3", "weibull"), ("lognormal3", "lognormal"),
-                       ("gamma3", "gamma"), ("loglogistic3", "loglogistic")]:
+    for three, two in [
+        ("weibull3", "weibull"),
+        ("lognormal3", "lognormal"),
+        ("gamma3", "gamma"),
+        ("loglogistic3", "loglogistic"),
+    ]:
         stat = 2 * (r.models[three].loglik - r.models[two].loglik)
         # reference: scipy.stats.chi2.sf(stat, 1)
         assert_allclose(by_id[three].lrt_p_value, stats.chi2.sf(max(stat, 0), 1), rtol=1e-10)
@@ -241,6 +297,7 @@ def test_ranking_rows_lrt_and_order():
     assert by_id["weibull3"].lrt_p_value < 1e-3
     json.dumps(r.to_dict(), allow_nan=False)
     import dataclasses
+
     assert tuple(f.name for f in dataclasses.fields(fit.FitRow)) == fit.ROW_FIELDS
     assert tuple(r.to_dict()["rows"][0]) == fit.ROW_FIELDS
 
@@ -315,8 +372,9 @@ def test_model_methods_and_dict():
     q = np.array([0.00135, 0.5, 0.99865])
     assert_allclose(m.cdf(m.ppf(q)), q, rtol=1e-10)
     assert_allclose(m.sf(m.ppf(q)), 1 - q, rtol=1e-9)
-    assert_allclose(m.pdf(3.0), stats.gamma.pdf(3.0, m.parameters["shape"],
-                                                scale=m.parameters["scale"]))
+    assert_allclose(
+        m.pdf(3.0), stats.gamma.pdf(3.0, m.parameters["shape"], scale=m.parameters["scale"])
+    )
     assert_allclose(m.rvs(5, random_state=3), m.rvs(5, random_state=3))
     d = json.loads(json.dumps(m.to_dict(), allow_nan=False))
     assert d["family"] == "gamma" and d["n"] == x.size and d["ad_p_value"] is None
@@ -329,8 +387,9 @@ shifts = st.floats(min_value=-1e3, max_value=1e3)
 
 @settings(max_examples=25, deadline=None)
 @given(c=scales, seed=st.integers(0, 2**32 - 1))
-@pytest.mark.parametrize("fid", ["weibull", "gamma", "lognormal", "loglogistic",
-                                 "exponential", "halfnormal"])
+@pytest.mark.parametrize(
+    "fid", ["weibull", "gamma", "lognormal", "loglogistic", "exponential", "halfnormal"]
+)
 def test_scale_equivariance(fid, c, seed):
     x = stats.weibull_min.rvs(1.7, scale=2.0, size=40, random_state=np.random.default_rng(seed))
     a = fit.FAMILIES[fid].fit(x).parameters
@@ -360,8 +419,9 @@ def test_location_scale_equivariance(fid, c, shift, seed):
 @settings(max_examples=10, deadline=None)
 @given(shift=st.floats(min_value=-50, max_value=50), seed=st.integers(0, 2**32 - 1))
 def test_threshold_moves_with_the_data(shift, seed):
-    x = stats.weibull_min.rvs(2.5, loc=1.0, scale=2.0, size=60,
-                              random_state=np.random.default_rng(seed))
+    x = stats.weibull_min.rvs(
+        2.5, loc=1.0, scale=2.0, size=60, random_state=np.random.default_rng(seed)
+    )
     try:
         a = fit.FAMILIES["weibull3"].fit(x)
     except AnalysisError:
@@ -391,11 +451,14 @@ def test_threshold_is_the_profile_maximum(fid, rel):
         assert m.loglik >= ref_ll - 1e-9 * abs(ref_ll), (t, ref_ll, m.loglik)
 
 
-@pytest.mark.parametrize("fid, inner, dist", [
-    ("weibull3", fit._inner_weibull, stats.weibull_min),
-    ("gamma3", fit._inner_gamma, stats.gamma),
-    ("loglogistic3", fit._inner_loglogistic, stats.fisk),
-])
+@pytest.mark.parametrize(
+    "fid, inner, dist",
+    [
+        ("weibull3", fit._inner_weibull, stats.weibull_min),
+        ("gamma3", fit._inner_gamma, stats.gamma),
+        ("loglogistic3", fit._inner_loglogistic, stats.fisk),
+    ],
+)
 def test_row_wise_inner_fits_on_the_profile_grid(fid, inner, dist):
     # Each row of the profile grid (thresholds 1e-4 sd to 1e3 sd below min(x), the first
     # one leaving a single reading far out in log(x - theta)) fitted from the default start:
@@ -403,7 +466,7 @@ def test_row_wise_inner_fits_on_the_profile_grid(fid, inner, dist):
     # (reference), and the rough fit of the grid is within 1e-6 (relative) of the full one.
     x = np.sort(CASES[fid][0])
     sd = float(np.std(x))
-    thetas = x.min() - sd * 10.0 ** fit.GRID_DECADES
+    thetas = x.min() - sd * 10.0**fit.GRID_DECADES
     ys = x[None, :] - thetas[:, None]
     ll, _, _ = inner(ys)
     ll_rough, _, _ = inner(ys, rough=True)

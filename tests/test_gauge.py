@@ -63,12 +63,18 @@ def test_machines_anova_published_values(machines_result):
     assert_allclose(rows[INTERACTION].ms, 42.653, rtol=1e-9)
     assert_allclose(rows[REPEATABILITY].ms, 0.924630, rtol=1e-6)
     assert [rows[k].df for k in (PART, APPRAISER, INTERACTION, REPEATABILITY, TOTAL)] == [
-        2, 5, 10, 36, 53]
+        2,
+        5,
+        10,
+        36,
+        53,
+    ]
 
 
 def test_machines_anova_against_statsmodels(machines, machines_result):
     import statsmodels.api as sm  # a declared dev dependency: missing means fail, not skip
     import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
+
     fit = smf.ols("score ~ C(Worker) * C(Machine)", data=machines).fit()
     ref = sm.stats.anova_lm(fit, typ=2)  # reference: statsmodels anova_lm(typ=2)
     rows = _rows(machines_result.anova_full)
@@ -94,8 +100,11 @@ def test_machines_anova_against_statsmodels(machines, machines_result):
 
 def test_machines_anova_against_pingouin(machines, machines_result):
     import pingouin as pg  # a declared dev dependency: missing means fail, not skip
+
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # pingouin 0.7 + pandas 3 deprecation notice (DEVELOPERS.md, "Stack notes")
+        warnings.simplefilter(
+            "ignore"
+        )  # pingouin 0.7 + pandas 3 deprecation notice (DEVELOPERS.md, "Stack notes")
         ref = pg.anova(data=machines, dv="score", between=["Worker", "Machine"])
     ref = ref.set_index("Source")
     rows = _rows(machines_result.anova_full)
@@ -122,11 +131,13 @@ def test_machines_components_published_sigmas(machines_result):
 
 def test_machines_part_component_against_statsmodels_reml(machines, machines_result):
     import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
+
     data = machines.assign(one=1)
     fit = smf.mixedlm(
-        "score ~ 1", data, groups="one",
-        vc_formula={"M": "0 + C(Machine)", "W": "0 + C(Worker)",
-                    "WM": "0 + C(Worker):C(Machine)"},
+        "score ~ 1",
+        data,
+        groups="one",
+        vc_formula={"M": "0 + C(Machine)", "W": "0 + C(Worker)", "WM": "0 + C(Worker):C(Machine)"},
     ).fit(reml=True)
     vc = dict(zip(fit.model.exog_vc.names, fit.vcomp, strict=True))
     # statsmodels MixedLM REML, all three effects random; REML equals the EMS solution for
@@ -165,7 +176,10 @@ def test_intervals_repeatability_chi_square_and_satterthwaite(machines, machines
     # J appraisers, m trials; nu = s4 / [ (MSB/(mI))^2/(J-1) + ((I-1)MSAB/(mI))^2/((I-1)(J-1))
     # + (MSE/m)^2/(IJ(m-1)) ]
     big_i, big_j, m = 3, 6, 3
-    msb, msab = 248.379, 42.653  # Worker, Worker:Machine mean squares (tests/reference/check_values.md)
+    msb, msab = (
+        248.379,
+        42.653,
+    )  # Worker, Worker:Machine mean squares (tests/reference/check_values.md)
     s2 = msb / (m * big_i) + (big_i - 1) * msab / (m * big_i) - mse / m
     nu = s2**2 / (
         (msb / (m * big_i)) ** 2 / (big_j - 1)
@@ -183,9 +197,11 @@ def test_intervals_repeatability_chi_square_and_satterthwaite(machines, machines
 def test_pooled_model_against_statsmodels_additive(machines):
     import statsmodels.api as sm  # a declared dev dependency: missing means fail, not skip
     import statsmodels.formula.api as smf  # a declared dev dependency: missing means fail, not skip
+
     # a level below the interaction's p-value (1.6e-17) forces pooling on the same data
-    res = gauge_rr(machines["score"], machines["Machine"], machines["Worker"],
-                   alpha_interaction=1e-20)
+    res = gauge_rr(
+        machines["score"], machines["Machine"], machines["Worker"], alpha_interaction=1e-20
+    )
     assert res.interaction_pooled
     ref = sm.stats.anova_lm(smf.ols("score ~ C(Worker) + C(Machine)", machines).fit(), typ=2)
     rows = _rows(res.anova_used)
@@ -218,8 +234,17 @@ def test_negative_component_set_to_zero_and_said():
 @pytest.mark.parametrize(
     ("n", "k"),
     # K2/K3 = 1/d2*(n, g=1): AIAG MSA 4th ed. K tables ("from memory")
-    [(2, 0.7071), (3, 0.5231), (4, 0.4467), (5, 0.4030), (6, 0.3742), (7, 0.3534),
-     (8, 0.3375), (9, 0.3249), (10, 0.3146)],
+    [
+        (2, 0.7071),
+        (3, 0.5231),
+        (4, 0.4467),
+        (5, 0.4030),
+        (6, 0.3742),
+        (7, 0.3534),
+        (8, 0.3375),
+        (9, 0.3249),
+        (10, 0.3146),
+    ],
 )
 def test_k_factors_against_msa_table(n, k):
     assert round(1 / range_constants(n)["d2_star"], 4) == k
@@ -252,15 +277,20 @@ def test_range_method_formulas(machines_result, machines):
 # --- input checks -------------------------------------------------------------------------------
 def _long(cube):
     p, o, r = cube.shape
-    parts, appr, trial = np.meshgrid(range(1, p + 1), [f"op{j}" for j in range(o)], range(r),
-                                     indexing="ij")
+    parts, appr, trial = np.meshgrid(
+        range(1, p + 1), [f"op{j}" for j in range(o)], range(r), indexing="ij"
+    )
     return cube.ravel(), parts.ravel(), appr.ravel(), trial.ravel()
 
 
 def _cube(p=4, o=3, r=2, seed=0):
     rng = np.random.default_rng(seed)
-    return (rng.normal(size=(p, 1, 1)) * 3 + rng.normal(size=(1, o, 1)) * 0.5
-            + rng.normal(size=(p, o, r)) * 0.3 + 20)
+    return (
+        rng.normal(size=(p, 1, 1)) * 3
+        + rng.normal(size=(1, o, 1)) * 0.5
+        + rng.normal(size=(p, o, r)) * 0.3
+        + 20
+    )
 
 
 def test_unbalanced_names_the_cell():
@@ -278,9 +308,11 @@ def test_missing_cell_is_named():
 
 @pytest.mark.parametrize(
     ("shape", "message"),
-    [((1, 3, 2), "at least 2 parts; found 1"),
-     ((4, 1, 2), "at least 2 appraisers; found 1"),
-     ((4, 3, 1), "at least 2 trials per part and appraiser; found 1")],
+    [
+        ((1, 3, 2), "at least 2 parts; found 1"),
+        ((4, 1, 2), "at least 2 appraisers; found 1"),
+        ((4, 3, 1), "at least 2 trials per part and appraiser; found 1"),
+    ],
 )
 def test_too_small(shape, message):
     y, p, a, _ = _long(_cube(*shape))
@@ -330,8 +362,12 @@ def test_tolerance_and_study_variation_option():
 @pytest.mark.parametrize(
     ("pct", "band"),
     # bands: AIAG MSA 4th ed. ("from memory"): < 10 acceptable, 10-30 conditional, > 30 not
-    [(9.99, "acceptable"), (10.0, "conditionally acceptable"), (30.0, "conditionally acceptable"),
-     (30.01, "not acceptable")],
+    [
+        (9.99, "acceptable"),
+        (10.0, "conditionally acceptable"),
+        (30.0, "conditionally acceptable"),
+        (30.01, "not acceptable"),
+    ],
 )
 def test_bands(pct, band):
     assert gauge._band(pct) == band
@@ -357,8 +393,12 @@ def studies(draw):
     seed = draw(st.integers(0, 2**32 - 1))
     scales = draw(st.tuples(*[st.floats(0.0, 5.0)] * 3, st.floats(0.05, 2.0)))
     rng = np.random.default_rng(seed)
-    cube = (rng.normal(size=(p, 1, 1)) * scales[0] + rng.normal(size=(1, o, 1)) * scales[1]
-            + rng.normal(size=(p, o, 1)) * scales[2] + rng.normal(size=(p, o, r)) * scales[3])
+    cube = (
+        rng.normal(size=(p, 1, 1)) * scales[0]
+        + rng.normal(size=(1, o, 1)) * scales[1]
+        + rng.normal(size=(p, o, 1)) * scales[2]
+        + rng.normal(size=(p, o, r)) * scales[3]
+    )
     return cube
 
 
@@ -434,6 +474,7 @@ def test_chart_limits_machines(machines_result):
 @pytest.fixture(scope="module")
 def figs():
     import matplotlib  # a declared dev dependency: missing means fail, not skip
+
     matplotlib.use("Agg")
     from studykit.report import gauge_figures
 
@@ -450,17 +491,21 @@ def test_sources_figure_one_bar_per_source_over_the_bands(figs, machines_result,
     bars = [p for p in ax.patches if type(p).__name__ == "Rectangle" and p.get_height() < 1]
     # one bar per source: gauge R&R, repeatability, reproducibility, part to part
     widths = sorted(round(b.get_width(), 9) for b in bars)
-    expected = sorted(round(machines_result.component(n).pct_study_variation, 9)
-                      for n in (GAUGE_RR, REPEATABILITY, REPRODUCIBILITY, PART))
+    expected = sorted(
+        round(machines_result.component(n).pct_study_variation, 9)
+        for n in (GAUGE_RR, REPEATABILITY, REPRODUCIBILITY, PART)
+    )
     assert widths == expected
     # the three acceptance bands (common practice, no source) are shaded at 10 % and 30 %
-    spans = sorted(round(p.get_x(), 9) for p in ax.patches if type(p).__name__ == "Rectangle"
-                   and p.get_height() >= 1)
+    spans = sorted(
+        round(p.get_x(), 9)
+        for p in ax.patches
+        if type(p).__name__ == "Rectangle" and p.get_height() >= 1
+    )
     assert spans[:3] == [0.0, 10.0, 30.0]
     labels = [t.get_text() for t in ax.get_yticklabels()]
     assert "Repeatability (the gauge)" in labels and not any("." in t for t in labels)
-    with_tol = gauge_rr(machines["score"], machines["Machine"], machines["Worker"], lsl=40,
-                        usl=80)
+    with_tol = gauge_rr(machines["score"], machines["Machine"], machines["Worker"], lsl=40, usl=80)
     ax = _drawn(figs.sources_figure(with_tol))
     marks = ax.collections[-1].get_offsets()[:, 0]
     assert round(with_tol.component(GAUGE_RR).pct_tolerance, 6) in {round(m, 6) for m in marks}
@@ -517,8 +562,11 @@ def test_pooling_boundary():
 
 def test_repeatability_dominant_advice():
     rng = np.random.default_rng(11)
-    cube = (np.arange(10)[:, None, None] * 0.5 + rng.normal(size=(1, 3, 1)) * 0.01
-            + rng.normal(size=(10, 3, 3)) * 1.0)
+    cube = (
+        np.arange(10)[:, None, None] * 0.5
+        + rng.normal(size=(1, 3, 1)) * 0.01
+        + rng.normal(size=(10, 3, 3)) * 1.0
+    )
     res = gauge_rr(*_long(cube)[:3])
     assert res.verdict.status == "not acceptable"
     assert res.verdict.dominant == REPEATABILITY
@@ -527,9 +575,13 @@ def test_repeatability_dominant_advice():
 
 def test_satterthwaite_below_one_df_gives_no_interval():
     # found by hypothesis: reproducibility barely positive -> Satterthwaite df 0.0004
-    cube = np.array([[[1.53980055, -1.0265336], [-0.86277313, -1.50119186]],
-                     [[1.77881053, 0.66056232], [-0.22034111, -1.19924453]],
-                     [[-0.22025198, 0.31041686], [-0.52278357, 2.61654987]]])
+    cube = np.array(
+        [
+            [[1.53980055, -1.0265336], [-0.86277313, -1.50119186]],
+            [[1.77881053, 0.66056232], [-0.22034111, -1.19924453]],
+            [[-0.22025198, 0.31041686], [-0.52278357, 2.61654987]],
+        ]
+    )
     res = gauge_rr(*_long(cube)[:3])
     repro = res.component(REPRODUCIBILITY)
     assert repro.variance > 0 and repro.interval_df < 1

@@ -55,8 +55,9 @@ def test_round_trip_with_a_component_set_to_zero():
     assert GaugeResult.from_dict(stored).to_dict() == stored
 
 
-@pytest.mark.parametrize("rebuild", [measuring.gauge_result_from_payload, pdf._gauge_result],
-                         ids=["workbook", "pdf"])
+@pytest.mark.parametrize(
+    "rebuild", [measuring.gauge_result_from_payload, pdf._gauge_result], ids=["workbook", "pdf"]
+)
 def test_renderers_rebuild_without_computing(monkeypatch, rebuild):
     stored = json.loads(json.dumps(_numbered_parts_result().to_dict(), allow_nan=False))
 

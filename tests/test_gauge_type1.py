@@ -42,8 +42,7 @@ def test_cg_cgk_by_hand():
 def test_k_and_l_options_by_hand():
     # K = 10 %, L = 4: Cg = 0.1 * 100 / (4 s) = 10 / (8/sqrt(3)) = 5 sqrt(3) / 4;
     # Cgk = (0.05 * 100 - 2) / (2 s) = 3 / (4/sqrt(3)) = 3 sqrt(3) / 4 (hand arithmetic)
-    r = short_gauge_study(READINGS, reference=5.0, lsl=4.95, usl=5.05, k_percent=10,
-                          l_sigmas=4)
+    r = short_gauge_study(READINGS, reference=5.0, lsl=4.95, usl=5.05, k_percent=10, l_sigmas=4)
     assert_allclose(r.cg, 5 * math.sqrt(3) / 4, rtol=1e-9)
     assert_allclose(r.cgk, 3 * math.sqrt(3) / 4, rtol=1e-9)
     assert r.status == "not capable"  # Cgk 1.299 < 1.33
@@ -101,16 +100,19 @@ def test_to_dict_is_json_ready():
     assert len(d["values"]) == 10
 
 
-@pytest.mark.parametrize(("kwargs", "message"), [
-    ({"reference": 5.0}, "need the tolerance"),
-    ({"reference": 5.0, "tolerance": 0.1, "lsl": 1, "usl": 2}, "not both"),
-    ({"reference": 5.0, "lsl": 5.1, "usl": 5.0}, "greater than"),
-    ({"reference": float("nan"), "tolerance": 0.1}, "reference"),
-    ({"reference": 5.0, "tolerance": -1}, "positive"),
-    ({"reference": 5.0, "tolerance": 0.1, "k_percent": 150}, "up to 100"),
-    ({"reference": 5.0, "tolerance": 0.1, "l_sigmas": 0}, "positive"),
-    ({"reference": 5.0, "tolerance": 0.1, "alpha": 1.5}, "between 0 and 1"),
-])
+@pytest.mark.parametrize(
+    ("kwargs", "message"),
+    [
+        ({"reference": 5.0}, "need the tolerance"),
+        ({"reference": 5.0, "tolerance": 0.1, "lsl": 1, "usl": 2}, "not both"),
+        ({"reference": 5.0, "lsl": 5.1, "usl": 5.0}, "greater than"),
+        ({"reference": float("nan"), "tolerance": 0.1}, "reference"),
+        ({"reference": 5.0, "tolerance": -1}, "positive"),
+        ({"reference": 5.0, "tolerance": 0.1, "k_percent": 150}, "up to 100"),
+        ({"reference": 5.0, "tolerance": 0.1, "l_sigmas": 0}, "positive"),
+        ({"reference": 5.0, "tolerance": 0.1, "alpha": 1.5}, "between 0 and 1"),
+    ],
+)
 def test_bad_options(kwargs, message):
     with pytest.raises(StudyInputError, match=message):
         short_gauge_study(READINGS, **kwargs)

@@ -27,12 +27,19 @@ DEMO = Path(__file__).resolve().parents[1] / "demo_data"
 
 def _one_char_study(tmp_path: Path, name: str) -> Path:
     path = tmp_path / f"{name}.study"
-    StudyFile.create(path, data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
-                     filename="pump_housing_pilot.csv", title="Gate test",
-                     characteristics=[{"bore_diameter": Characteristic(
-                         "bore_diameter", unit="mm", lsl=11.97, usl=12.03),
-                         "flange_thickness": Characteristic(
-                         "flange_thickness", unit="mm", lsl=7.9, usl=8.1)}[name]], who="T")
+    StudyFile.create(
+        path,
+        data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
+        filename="pump_housing_pilot.csv",
+        title="Gate test",
+        characteristics=[
+            {
+                "bore_diameter": Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03),
+                "flange_thickness": Characteristic("flange_thickness", unit="mm", lsl=7.9, usl=8.1),
+            }[name]
+        ],
+        who="T",
+    )
     return path
 
 
@@ -67,8 +74,9 @@ def test_open_signals_are_not_ready(tmp_path):
 
 def test_rejection_makes_nothing_ready(tmp_path):
     path = _one_char_study(tmp_path, "bore_diameter")
-    StudyFile(path).add_signoff("Q. Lead", role="approved", decision="reject",
-                                comment="wrong gauge")
+    StudyFile(path).add_signoff(
+        "Q. Lead", role="approved", decision="reject", comment="wrong gauge"
+    )
     reasons = _readiness(path)
     assert "rejected by Q. Lead" in reasons["study"] and "wrong gauge" in reasons["study"]
 
@@ -76,8 +84,17 @@ def test_rejection_makes_nothing_ready(tmp_path):
 def test_handoff_gate_refuses_by_default(tmp_path, capsys):
     study = tmp_path / "demo.study"
     study.write_bytes((DEMO / "pump_housing_pilot.study").read_bytes())
-    code = main(["report", str(study), "-o", str(tmp_path / "r.pdf"), "--handoff",
-                 str(tmp_path / "pack.zip"), "--quiet"])
+    code = main(
+        [
+            "report",
+            str(study),
+            "-o",
+            str(tmp_path / "r.pdf"),
+            "--handoff",
+            str(tmp_path / "pack.zip"),
+            "--quiet",
+        ]
+    )
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1
     assert "pull_off_force: does not meet its criterion" in err[0]
@@ -89,8 +106,21 @@ def draft_pack(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("draft")
     study = tmp / "demo.study"
     study.write_bytes((DEMO / "pump_housing_pilot.study").read_bytes())
-    assert main(["report", str(study), "-o", str(tmp / "r.pdf"), "--handoff",
-                 str(tmp / "pack.zip"), "--handoff-draft", "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "report",
+                str(study),
+                "-o",
+                str(tmp / "r.pdf"),
+                "--handoff",
+                str(tmp / "pack.zip"),
+                "--handoff-draft",
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     return tmp, study
 
 

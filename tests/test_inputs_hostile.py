@@ -41,8 +41,14 @@ def _valid_xlsx(rows: int = 30) -> bytes:
     ws.append(["Subgroup", "Bore [mm]", "Torque [Nm]", "Note"])
     rng = random.Random(SEED)
     for i in range(rows):
-        ws.append([i // 5 + 1, round(10 + rng.gauss(0, 0.01), 4), round(5 + rng.gauss(0, 0.1), 3),
-                   "text" if i % 7 == 0 else None])
+        ws.append(
+            [
+                i // 5 + 1,
+                round(10 + rng.gauss(0, 0.01), 4),
+                round(5 + rng.gauss(0, 0.1), 3),
+                "text" if i % 7 == 0 else None,
+            ]
+        )
     buf = io.BytesIO()
     wb.save(buf)
     return buf.getvalue()
@@ -128,24 +134,48 @@ def broken_xlsx_corpus() -> list[tuple[str, bytes]]:
         ("cellref_beyond_xfd", _edit(good, SHEET, _sub(rb'r="B3"', rb'r="ZZZZ3"'))),
         ("row_number_text", _edit(good, SHEET, _sub(rb'<row r="4"', rb'<row r="four"'))),
         ("style_id_text", _edit(good, SHEET, _sub(rb'<c r="B3"', rb'<c r="B3" s="abc"'))),
-        ("style_numfmt_text", _edit(good, "xl/styles.xml",
-                                    _sub(rb'numFmtId="\d+"', rb'numFmtId="abc"', count=0))),
-        ("style_font_text", _edit(good, "xl/styles.xml",
-                                  _sub(rb'fontId="\d+"', rb'fontId="abc"', count=0))),
-        ("shared_string_missing", _edit(good, SHEET, _sub(rb'<c r="B3"([^>]*)>',
-                                                           rb'<c r="B3" t="s">'))),
+        (
+            "style_numfmt_text",
+            _edit(good, "xl/styles.xml", _sub(rb'numFmtId="\d+"', rb'numFmtId="abc"', count=0)),
+        ),
+        (
+            "style_font_text",
+            _edit(good, "xl/styles.xml", _sub(rb'fontId="\d+"', rb'fontId="abc"', count=0)),
+        ),
+        (
+            "shared_string_missing",
+            _edit(good, SHEET, _sub(rb'<c r="B3"([^>]*)>', rb'<c r="B3" t="s">')),
+        ),
         ("number_cell_text", _edit(good, SHEET, _sub(rb"<v>(\d+\.\d+)</v>", rb"<v>abc</v>"))),
         ("bool_cell_value", _edit(good, SHEET, _sub(rb'<c r="B3"', rb'<c r="B3" t="b"'))),
-        ("date_cell_garbage", _edit(good, SHEET, _sub(rb'<c r="B3"([^>]*)>\s*<v>[^<]*</v>',
-                                                       rb'<c r="B3" t="d"><v>yesterday</v>'))),
-        ("error_cell", _edit(good, SHEET, _sub(rb'<c r="B3"([^>]*)>\s*<v>[^<]*</v>',
-                                                rb'<c r="B3" t="e"><v>#DIV/0!</v>'))),
+        (
+            "date_cell_garbage",
+            _edit(
+                good,
+                SHEET,
+                _sub(rb'<c r="B3"([^>]*)>\s*<v>[^<]*</v>', rb'<c r="B3" t="d"><v>yesterday</v>'),
+            ),
+        ),
+        (
+            "error_cell",
+            _edit(
+                good,
+                SHEET,
+                _sub(rb'<c r="B3"([^>]*)>\s*<v>[^<]*</v>', rb'<c r="B3" t="e"><v>#DIV/0!</v>'),
+            ),
+        ),
         ("no_workbook_part", _drop(good, "xl/workbook.xml")),
         ("no_sheet_part", _drop(good, SHEET)),
         ("no_content_types", _drop(good, "[Content_Types].xml")),
         ("no_workbook_rels", _drop(good, "xl/_rels/workbook.xml.rels")),
-        ("rels_to_nowhere", _edit(good, "xl/_rels/workbook.xml.rels",
-                                  _sub(rb"worksheets/sheet1.xml", rb"worksheets/gone.xml"))),
+        (
+            "rels_to_nowhere",
+            _edit(
+                good,
+                "xl/_rels/workbook.xml.rels",
+                _sub(rb"worksheets/sheet1.xml", rb"worksheets/gone.xml"),
+            ),
+        ),
         ("empty_zip", _pack({})),
     ]
     for name, blob in cases:
@@ -187,8 +217,25 @@ def csv_fuzz_corpus(count: int = 120) -> list[tuple[str, bytes]]:
         f"{i // 5 + 1};{10 + rng.gauss(0, 0.01):.4f};{'ok' if i % 9 else ''}" for i in range(40)
     ]
     good = ("\n".join(lines) + "\n").encode()
-    junk = [b";", b",", b'"', b"\n", b"\r", b"\x00", b"\x1b[2J", b"\x1b]0;pwned\x07", b"\xff\xfe",
-            b"\xe2\x80\xae", b"nan", b"1e999", b"-", b"\t", b"A" * 3000, b"\xc3", b"#DIV/0!"]
+    junk = [
+        b";",
+        b",",
+        b'"',
+        b"\n",
+        b"\r",
+        b"\x00",
+        b"\x1b[2J",
+        b"\x1b]0;pwned\x07",
+        b"\xff\xfe",
+        b"\xe2\x80\xae",
+        b"nan",
+        b"1e999",
+        b"-",
+        b"\t",
+        b"A" * 3000,
+        b"\xc3",
+        b"#DIV/0!",
+    ]
     out = []
     for k in range(count):
         raw = bytearray(good)
@@ -251,15 +298,18 @@ def _values(m):
 TOLERATED = {"cellref_row_zero"}
 
 
-@pytest.mark.parametrize("name,blob", broken_xlsx_corpus(), ids=lambda v: v if isinstance(v, str) else "")
+@pytest.mark.parametrize(
+    "name,blob", broken_xlsx_corpus(), ids=lambda v: v if isinstance(v, str) else ""
+)
 def test_broken_xlsx_corpus_exit_2_one_line(name, blob, tmp_path, capsys):
     path = tmp_path / f"{name}.xlsx"
     path.write_bytes(blob)
     code, out, err = _run_check(path, capsys)
     if name in TOLERATED:
         assert code == 0, err
-        assert _values(read_measurements(path)) == _values(read_measurements_bytes(
-            _valid_xlsx(), "good.xlsx"))
+        assert _values(read_measurements(path)) == _values(
+            read_measurements_bytes(_valid_xlsx(), "good.xlsx")
+        )
         return
     _assert_clean_failure(code, out, err, name)
     assert f"{name}.xlsx" in err
@@ -361,8 +411,7 @@ def test_csv_fuzz_corpus_never_a_traceback(tmp_path, capsys):
 def test_cell_text_escaped_in_check_output_and_errors(tmp_path, capsys):
     path = tmp_path / "esc.csv"
     rows = b"".join(b"10.%02d,ok\n" % (i % 50) for i in range(120))  # a text table, mostly
-    path.write_bytes(b'Bore "x"\x1b[31m [mm],Note\n10.01,"two\nlines\x1b]0;title\x07"\n'
-                     + rows)
+    path.write_bytes(b'Bore "x"\x1b[31m [mm],Note\n10.01,"two\nlines\x1b]0;title\x07"\n' + rows)
     code, out, err = _run_check(path, capsys)
     assert code == 0, err
     assert "\x1b" not in out and "\x07" not in out
@@ -408,8 +457,9 @@ def test_header_longer_than_64_kib_is_read(tmp_path, capsys):
     """A header of 4,000 columns (about 150 kB, longer than the 64 kB sample) is read."""
     n = 4_000
     header = ",".join(f"Position {i} on the outer ring [mm]" for i in range(n))
-    rows = "\n".join(",".join(f"{1 + 0.001 * ((i * 7 + j) % 13):.3f}" for j in range(n))
-                     for i in range(3))
+    rows = "\n".join(
+        ",".join(f"{1 + 0.001 * ((i * 7 + j) % 13):.3f}" for j in range(n)) for i in range(3)
+    )
     path = tmp_path / "wide.csv"
     path.write_text(header + "\n" + rows + "\n", encoding="utf-8")
     assert len(header) > 64 * 1024

@@ -75,18 +75,19 @@ def test_box_cox_capability_same_in_every_unit():
     for unit, f in (("mm", 1.0), ("m", 1e-3), ("um", 1e3)):
         data = CharacteristicData("d", unit, x * f)
         spec = Characteristic("d", lsl=20.05 * f, usl=23.5 * f)
-        res = analyze_characteristic(data, spec, options=AnalysisOptions(model="boxcox",
-                                                                         phase1="off"))
+        res = analyze_characteristic(
+            data, spec, options=AnalysisOptions(model="boxcox", phase1="off")
+        )
         results[unit] = res
     mm = results["mm"]
     assert mm.capability.ppk is not None
     for unit in ("m", "um"):
         r = results[unit]
-        assert r.model.parameters["lambda"] == pytest.approx(mm.model.parameters["lambda"],
-                                                             rel=1e-10)
+        assert r.model.parameters["lambda"] == pytest.approx(
+            mm.model.parameters["lambda"], rel=1e-10
+        )
         for k in ("pp", "ppk", "cpk"):
-            assert getattr(r.capability, k) == pytest.approx(getattr(mm.capability, k),
-                                                             rel=1e-8)
+            assert getattr(r.capability, k) == pytest.approx(getattr(mm.capability, k), rel=1e-8)
         assert r.verdict.lower_bound == pytest.approx(mm.verdict.lower_bound, rel=1e-8)
 
 
@@ -100,8 +101,9 @@ def test_sigma_at_resolution_is_zero_spread_not_a_huge_cp():
     with pytest.raises(AnalysisError, match="differ only by rounding.*treated as zero"):
         capability(x, lsl=0.2, usl=0.4)
     with pytest.raises(AnalysisError, match="differ only by rounding"):
-        analyze_characteristic(CharacteristicData("gap", "mm", x),
-                               Characteristic("gap", lsl=0.2, usl=0.4))
+        analyze_characteristic(
+            CharacteristicData("gap", "mm", x), Characteristic("gap", lsl=0.2, usl=0.4)
+        )
 
 
 def test_sigma_at_resolution_cli_exit_2(tmp_path, capsys):
@@ -208,14 +210,31 @@ def test_memory_under_resource_limit_200k_weibull(tmp_path):
         fh.write("\n".join(f"{v:.6f}" for v in x))
         fh.write("\n")
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
-    cmd = [sys.executable, "-m", "studykit", "analyze", str(path), "-c", "diameter",
-           "--lsl", "9.94", "--usl", "10.12", "--model", "weibull", "--json"]
-    p = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=900,
-                       preexec_fn=_limit_address_space)
+    cmd = [
+        sys.executable,
+        "-m",
+        "studykit",
+        "analyze",
+        str(path),
+        "-c",
+        "diameter",
+        "--lsl",
+        "9.94",
+        "--usl",
+        "10.12",
+        "--model",
+        "weibull",
+        "--json",
+    ]
+    p = subprocess.run(
+        cmd, capture_output=True, text=True, env=env, timeout=900, preexec_fn=_limit_address_space
+    )
     assert p.returncode == 0, p.stderr[-2000:]
     result = json.loads(p.stdout)
     assert result["model"]["name"] == "weibull"
     assert result["capability"]["ppk_lower_95"] < result["capability"]["ppk"]
     assert any("samples of 20000 values" in w for w in result["capability"].get("notes", []))
-    assert (result["capability"]["bounds"]["ppk"]["method"]
-            == "rescaled_m_out_of_n_bootstrap_percentile")
+    assert (
+        result["capability"]["bounds"]["ppk"]["method"]
+        == "rescaled_m_out_of_n_bootstrap_percentile"
+    )

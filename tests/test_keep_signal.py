@@ -36,8 +36,9 @@ def study_path(tmp_path):
 
 def _beyond(res):
     chart = res.chart
-    return sorted(str(chart.labels[int(s.trigger)]) for s in chart.signals
-                  if s.rule == "beyond_limits")
+    return sorted(
+        str(chart.labels[int(s.trigger)]) for s in chart.signals if s.rule == "beyond_limits"
+    )
 
 
 def test_decision_needs_subgroup_rule_reason_and_valid_origin():
@@ -62,13 +63,23 @@ def test_kept_point_beyond_limits_lets_the_verdict_stand(study_path):
     before = analyze_study(sf.load(), NAME)
     assert _beyond(before) == ["17", "18"]
     assert before.verdict.meets is None  # withheld: points beyond the limits, no decision yet
-    sf.apply(lambda s: s.keep_signal(NAME, "17", rule="beyond_limits", who="A. Keeper",
-                                     reason="warm-up part; common cause per process FMEA"))
+    sf.apply(
+        lambda s: s.keep_signal(
+            NAME,
+            "17",
+            rule="beyond_limits",
+            who="A. Keeper",
+            reason="warm-up part; common cause per process FMEA",
+        )
+    )
     half = analyze_study(sf.load(), NAME)
     assert half.verdict.meets is None  # 18 is still open
     assert [f.code for f in half.findings][:2] == ["not_in_control", "signals_kept"]
-    sf.apply(lambda s: s.keep_signal(NAME, "18", rule="beyond_limits", who="A. Keeper",
-                                     reason="same warm-up"))
+    sf.apply(
+        lambda s: s.keep_signal(
+            NAME, "18", rule="beyond_limits", who="A. Keeper", reason="same warm-up"
+        )
+    )
     after = analyze_study(sf.load(), NAME)
     # the subgroups stay in the analysis: same values, same numbers as the withheld ones
     assert after.n == before.n and after.removed_subgroups == ()
@@ -84,11 +95,14 @@ def test_kept_point_beyond_limits_lets_the_verdict_stand(study_path):
     kept_text = next(f.text for f in after.findings if f.code == "signals_kept")
     assert "warm-up part; common cause per process FMEA" in kept_text and "A. Keeper" in kept_text
     d = after.to_dict()
-    assert [(k["subgroup"], k["rule"], k["origin"], k["on_chart"]) for k in d["kept_signals"]] \
-        == [("17", "beyond_limits", "person", True), ("18", "beyond_limits", "person", True)]
+    assert [(k["subgroup"], k["rule"], k["origin"], k["on_chart"]) for k in d["kept_signals"]] == [
+        ("17", "beyond_limits", "person", True),
+        ("18", "beyond_limits", "person", True),
+    ]
     # the signals are still on the chart (listed as reviewed, not hidden)
-    assert sorted(s["subgroups"][0] for s in d["chart"]["signals"]
-                  if s["rule"] == "beyond_limits") == ["17", "18"]
+    assert sorted(
+        s["subgroups"][0] for s in d["chart"]["signals"] if s["rule"] == "beyond_limits"
+    ) == ["17", "18"]
 
 
 def test_kept_verdict_matches_the_ppk_formula(study_path):
@@ -96,11 +110,15 @@ def test_kept_verdict_matches_the_ppk_formula(study_path):
     deviation of every value used (ISO 22514-2:2017, 6.2 / AIAG SPC manual 2nd ed., ch. IV):
     the kept subgroups 17 and 18 are part of those values."""
     sf = StudyFile(study_path)
-    sf.append_decision(Decision(NAME, "set_model", who="A", reason="test",
-                                payload={"model": "normal"}))
+    sf.append_decision(
+        Decision(NAME, "set_model", who="A", reason="test", payload={"model": "normal"})
+    )
     for label in ("17", "18"):
-        sf.apply(lambda s, lab=label: s.keep_signal(NAME, lab, rule="beyond_limits", who="A",
-                                                    reason="known common cause"))
+        sf.apply(
+            lambda s, lab=label: s.keep_signal(
+                NAME, lab, rule="beyond_limits", who="A", reason="known common cause"
+            )
+        )
     study = sf.load()
     res = analyze_study(study, NAME)
     x = np.asarray(res.values, dtype=float)
@@ -125,8 +143,11 @@ def test_reopen_restores_the_withholding_and_the_digest(study_path):
     assert list(study.kept_signals(NAME)) == [("17", "beyond_limits")]
     with pytest.raises(StudyInputError, match="no kept signal"):
         study.reopen_signal(NAME, "18", rule="beyond_limits", who="A", reason="r")
-    sf.apply(lambda s: s.reopen_signal(NAME, "17", rule="beyond_limits", who="B",
-                                       reason="cause not confirmed"))
+    sf.apply(
+        lambda s: s.reopen_signal(
+            NAME, "17", rule="beyond_limits", who="B", reason="cause not confirmed"
+        )
+    )
     study = sf.load()
     assert study.kept_signals(NAME) == {}
     assert study.content_digest() == digest0
@@ -141,16 +162,44 @@ def test_keep_on_an_approved_study_needs_the_override(study_path):
     sf.add_signoff("C. Approver", role="approved", decision="approve")
     with pytest.raises(StudyFileError, match="locked|approved"):
         sf.apply(lambda s: s.keep_signal(NAME, "17", rule="beyond_limits", who="A", reason="r"))
-    sf.apply(lambda s: s.keep_signal(NAME, "17", rule="beyond_limits", who="A", reason="r",
-                                     override_lock=True, override_reason="late review"))
+    sf.apply(
+        lambda s: s.keep_signal(
+            NAME,
+            "17",
+            rule="beyond_limits",
+            who="A",
+            reason="r",
+            override_lock=True,
+            override_reason="late review",
+        )
+    )
     assert not sf.load().is_locked
 
 
 def test_cli_keep_and_reopen(study_path, capsys):
     p = str(study_path)
-    assert main(["study", "keep", p, NAME, "17", "--rule", "1", "--reason",
-                 "warm-up part", "--who", "A. Keeper"]) == 0
-    assert "kept the signal (point beyond the control limits) at subgroup 17" in capsys.readouterr().out
+    assert (
+        main(
+            [
+                "study",
+                "keep",
+                p,
+                NAME,
+                "17",
+                "--rule",
+                "1",
+                "--reason",
+                "warm-up part",
+                "--who",
+                "A. Keeper",
+            ]
+        )
+        == 0
+    )
+    assert (
+        "kept the signal (point beyond the control limits) at subgroup 17"
+        in capsys.readouterr().out
+    )
     # the same again, an unknown rule, a rule not signalling there, an unknown subgroup
     for args, msg in (
         (["17", "--rule", "beyond_limits"], "already kept"),
@@ -170,8 +219,24 @@ def test_cli_keep_and_reopen(study_path, capsys):
     shown = json.loads(capsys.readouterr().out)
     flange = next(c for c in shown["characteristics"] if c["name"] == NAME)
     assert [(k["subgroup"], k["who"]) for k in flange["kept_signals"]] == [("17", "A. Keeper")]
-    assert main(["study", "reopen", p, NAME, "17", "--rule", "beyond_limits", "--reason",
-                 "cause not confirmed", "--who", "B"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "reopen",
+                p,
+                NAME,
+                "17",
+                "--rule",
+                "beyond_limits",
+                "--reason",
+                "cause not confirmed",
+                "--who",
+                "B",
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
     assert StudyFile(study_path).load().kept_signals(NAME) == {}
 
@@ -183,9 +248,12 @@ def test_session_keep_and_rejected_proposals(study_path):
     assert {p.label for p in props if p.iteration == 1} == {"17", "18"}
     p17 = next(p for p in props if p.label == "17")
     p18 = next(p for p in props if p.label == "18")
-    n, k = s.record_proposal_decisions(NAME, [(p18, "chipped insert, NCR-0412")],
-                                       [(p17, "first part after warm-up; common cause")],
-                                       who="A. Keeper")
+    n, k = s.record_proposal_decisions(
+        NAME,
+        [(p18, "chipped insert, NCR-0412")],
+        [(p17, "first part after warm-up; common cause")],
+        who="A. Keeper",
+    )
     assert (n, k) == (1, 1)
     kept = s.kept_signals(NAME)
     assert list(kept) == [("17", "beyond_limits")]
@@ -202,9 +270,11 @@ def test_session_keep_and_rejected_proposals(study_path):
     with pytest.raises(StudyInputError, match="removed"):
         s.keep_signal(NAME, "18", reason="r", who="A")
     rejected = [e.what for e in s.audit_log() if "rejected proposal" in e.what]
-    assert rejected == [f"keep signal (point beyond the control limits) at subgroup 17 of "
-                        f"'{NAME}' "
-                        "(rejected proposal)"]
+    assert rejected == [
+        f"keep signal (point beyond the control limits) at subgroup 17 of "
+        f"'{NAME}' "
+        "(rejected proposal)"
+    ]
 
 
 def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
@@ -224,20 +294,34 @@ def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
             cells[3] = f"{float(cells[3]) + 0.02:.3f}"
         out.append(",".join(cells))
     path = tmp_path / "shift.study"
-    sf = StudyFile.create(path, data=("\n".join(out) + "\n").encode(), filename="shift.csv",
-                          title="Shifted", characteristics=[Characteristic(
-                              "bore_diameter", unit="mm", lsl=11.97, usl=12.03)], who="tester")
+    sf = StudyFile.create(
+        path,
+        data=("\n".join(out) + "\n").encode(),
+        filename="shift.csv",
+        title="Shifted",
+        characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03)],
+        who="tester",
+    )
     assert "6" in _beyond(analyze_study(sf.load(), "bore_diameter"))
-    sf.apply(lambda s: s.keep_signal("bore_diameter", "6", rule="beyond_limits", who="Q. Lead",
-                                     reason="gauge re-zeroed at 08:10, values re-checked"))
+    sf.apply(
+        lambda s: s.keep_signal(
+            "bore_diameter",
+            "6",
+            rule="beyond_limits",
+            who="Q. Lead",
+            reason="gauge re-zeroed at 08:10, values re-checked",
+        )
+    )
     build_report(path, tmp_path / "shift.pdf")
-    text = " ".join((p.extract_text() or "").replace("\n", " ")
-                    for p in PdfReader(tmp_path / "shift.pdf").pages)
+    text = " ".join(
+        (p.extract_text() or "").replace("\n", " ") for p in PdfReader(tmp_path / "shift.pdf").pages
+    )
     assert "Signals kept with a reason" in text
     assert "gauge re-zeroed at 08:10" in text and "Q. Lead" in text
     ev = read_evidence(tmp_path / "shift.pdf")  # the embedded evidence JSON carries them too
-    assert [(k["subgroup"], k["who"]) for k in ev["results"]["bore_diameter"]["kept_signals"]] \
-        == [("6", "Q. Lead")]
+    assert [(k["subgroup"], k["who"]) for k in ev["results"]["bore_diameter"]["kept_signals"]] == [
+        ("6", "Q. Lead")
+    ]
     # the PDF's control chart rings the kept point (a labelled scatter at subgroup 6's mean)
     from studykit.report.figures import control_chart_figure
 
@@ -247,7 +331,7 @@ def test_pdf_lists_kept_signals_in_the_characteristic_section(tmp_path):
     assert len(rings) == 1
     i6 = [str(v) for v in res.chart.labels].index("6")
     assert rings[0].get_offsets()[0][1] == pytest.approx(res.chart.location.points[i6])
-        # `verify` rebuilds the study with the keep decision and gets the same numbers, from the
+    # `verify` rebuilds the study with the keep decision and gets the same numbers, from the
     # study file and from the data file alone
     from studykit.report.verify import verify_report
 

@@ -22,14 +22,26 @@ PACKAGE = ROOT / "studykit"
 
 #: (importing module, imported module, private name) -> why it is still there
 PRIVATE_EXCEPTIONS: dict[tuple[str, str, str], str] = {
-    ("studykit.analysis", "studykit.stats.capability", "_percentile_indices"):
-        'percentile-method indices; capability.py is being split (one home per family)',
-    ("studykit.cli.study", "studykit.stats.rules", "_BY_NUMBER"):
-        'run rules by number for the --rules option; rules.py is in rework',
-    ("studykit.stats.phase1", "studykit.stats.charts", "_plain_label"):
-        'subgroup label text shared by the chart modules; charts.py is in rework',
-    ("studykit.stats.phase2", "studykit.stats.charts", "_plain_label"):
-        'subgroup label text shared by the chart modules; charts.py is in rework',
+    (
+        "studykit.analysis",
+        "studykit.stats.capability",
+        "_percentile_indices",
+    ): "percentile-method indices; capability.py is being split (one home per family)",
+    (
+        "studykit.cli.study",
+        "studykit.stats.rules",
+        "_BY_NUMBER",
+    ): "run rules by number for the --rules option; rules.py is in rework",
+    (
+        "studykit.stats.phase1",
+        "studykit.stats.charts",
+        "_plain_label",
+    ): "subgroup label text shared by the chart modules; charts.py is in rework",
+    (
+        "studykit.stats.phase2",
+        "studykit.stats.charts",
+        "_plain_label",
+    ): "subgroup label text shared by the chart modules; charts.py is in rework",
 }
 #: the number of exceptions may only go down
 MAX_EXCEPTIONS = 4
@@ -74,7 +86,8 @@ def _matches(module: str, pattern: str) -> bool:
 def _layer_of(module: str, layers) -> int:
     found = [i for i, (_, pats) in enumerate(layers) if any(_matches(module, p) for p in pats)]
     assert len(found) == 1, (
-        f"{module} is in {len(found)} layers of the DEVELOPERS.md table; it must be in one")
+        f"{module} is in {len(found)} layers of the DEVELOPERS.md table; it must be in one"
+    )
     return found[0]
 
 
@@ -108,9 +121,13 @@ def _imports(module: str, path: Path):
                         aliases[a.asname] = a.name
                     out.append((a.name, None, node.lineno))
     for node in ast.walk(tree):
-        if (isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name)
-                and node.value.id in aliases and node.attr.startswith("_")
-                and not node.attr.startswith("__")):
+        if (
+            isinstance(node, ast.Attribute)
+            and isinstance(node.value, ast.Name)
+            and node.value.id in aliases
+            and node.attr.startswith("_")
+            and not node.attr.startswith("__")
+        ):
             out.append((aliases[node.value.id], node.attr, node.lineno))
     return out
 
@@ -129,14 +146,17 @@ def test_no_module_imports_a_higher_layer():
         own = _layer_of(module, layers)
         for target, _name, line in _imports(module, path):
             if target not in MODULES:  # e.g. "studykit" itself
-                target = target.rpartition(".")[0] if target.rpartition(".")[0] in MODULES \
-                    else target
+                target = (
+                    target.rpartition(".")[0] if target.rpartition(".")[0] in MODULES else target
+                )
             if target not in MODULES:
                 continue
             theirs = _layer_of(target, layers)
             if theirs > own:
-                wrong.append(f"{path.relative_to(ROOT)}:{line}: {module} ({layers[own][0]}) "
-                             f"imports {target} ({layers[theirs][0]})")
+                wrong.append(
+                    f"{path.relative_to(ROOT)}:{line}: {module} ({layers[own][0]}) "
+                    f"imports {target} ({layers[theirs][0]})"
+                )
     assert not wrong, "a lower layer imports a higher one:\n" + "\n".join(wrong)
 
 
@@ -152,9 +172,11 @@ def _private_imports():
 def test_no_private_names_across_modules():
     found = _private_imports()
     new = {k: v for k, v in found.items() if k not in PRIVATE_EXCEPTIONS}
-    assert not new, ("private names used from another module (make the name public where it "
-                     "is defined, or move the code):\n"
-                     + "\n".join(f"{v}: {k[0]} uses {k[1]}.{k[2]}" for k, v in sorted(new.items())))
+    assert not new, (
+        "private names used from another module (make the name public where it "
+        "is defined, or move the code):\n"
+        + "\n".join(f"{v}: {k[0]} uses {k[1]}.{k[2]}" for k, v in sorted(new.items()))
+    )
 
 
 def test_private_exceptions_only_shrink():
@@ -168,8 +190,10 @@ def test_private_exceptions_only_shrink():
 def test_the_checker_sees_a_violation(tmp_path):
     # the walker itself: an import inside a function and a private attribute are both found
     path = tmp_path / "m.py"
-    path.write_text("import studykit.stats.fit as fm\n\ndef f():\n"
-                    "    from studykit.cli.gauge import run\n    return fm._x, run\n")
+    path.write_text(
+        "import studykit.stats.fit as fm\n\ndef f():\n"
+        "    from studykit.cli.gauge import run\n    return fm._x, run\n"
+    )
     found = _imports("studykit.stats.m", path)
     assert ("studykit.cli.gauge", "run", 4) in found
     assert ("studykit.stats.fit", "_x", 5) in found

@@ -33,6 +33,7 @@ def study_path(tmp_path):
 
 # --- the study file: versions, stale views, the digest seen -----------------------------------
 
+
 def test_version_moves_with_every_write_and_the_watch_sees_it(study_path):
     sf = StudyFile(study_path)
     watch = ChangeWatch(sf)
@@ -73,6 +74,7 @@ def test_a_signoff_is_refused_when_the_content_differs_from_what_was_seen(study_
 
 
 # --- the sign-off rules -----------------------------------------------------------------------
+
 
 def test_one_person_may_not_sign_two_roles(study_path):
     waive_open_verdicts(study_path)
@@ -121,8 +123,9 @@ def test_rules_are_changed_only_with_a_recorded_reason(study_path):
     s = StudySession(study_path)
     with pytest.raises(Exception, match="reason"):
         s.set_signoff_rules({"distinct_signers": False}, reason="", who="Q. Lead")
-    assert s.set_signoff_rules({"distinct_signers": False}, reason="two-person supplier",
-                               who="Q. Lead")
+    assert s.set_signoff_rules(
+        {"distinct_signers": False}, reason="two-person supplier", who="Q. Lead"
+    )
     assert s.study.signoff_rules()["distinct_signers"] is False
     d = s.study.decisions[-1]
     assert (d.action, d.who, d.reason) == ("set_signoff_rules", "Q. Lead", "two-person supplier")
@@ -134,27 +137,117 @@ def test_rules_are_changed_only_with_a_recorded_reason(study_path):
 def test_cli_sign_applies_the_same_rules(study_path, capsys):
     path = str(study_path)
     digest = StudyFile(study_path).load().content_digest()
-    assert main(["study", "sign", path, "--role", "reviewed", "--decision", "approve",
-                 "--who", "P. Person", "--saw", digest[:16]]) == 0
-    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
-                 "--who", "P. Person"]) == 2
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "reviewed",
+                "--decision",
+                "approve",
+                "--who",
+                "P. Person",
+                "--saw",
+                digest[:16],
+            ]
+        )
+        == 0
+    )
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "P. Person",
+            ]
+        )
+        == 2
+    )
     assert "distinct_signers" in capsys.readouterr().err
-    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
-                 "--who", "M. Approver"]) == 2
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "M. Approver",
+            ]
+        )
+        == 2
+    )
     assert "approval_needs_verdicts" in capsys.readouterr().err
     for name in ("pull_off_force", "leak_test_defectives"):
-        assert main(["study", "waive", path, name, "--reason", "deviation D-17",
-                     "--who", "Q. Lead"]) == 0
+        assert (
+            main(["study", "waive", path, name, "--reason", "deviation D-17", "--who", "Q. Lead"])
+            == 0
+        )
     # the waivers changed the content: a sign-off on the digest seen before is refused
-    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
-                 "--who", "M. Approver", "--saw", digest]) == 2
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "M. Approver",
+                "--saw",
+                digest,
+            ]
+        )
+        == 2
+    )
     assert "nothing was saved" in capsys.readouterr().err
-    assert main(["study", "sign", path, "--role", "approved", "--decision", "approve",
-                 "--who", "M. Approver"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                path,
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "M. Approver",
+            ]
+        )
+        == 0
+    )
     assert StudyFile(study_path).load().is_locked
     assert main(["study", "rules", path, "--distinct-signers", "off"]) == 2
-    assert main(["study", "rules", path, "--distinct-signers", "off", "--reason", "x",
-                 "--who", "Q. Lead"]) == 2  # approved: locked
+    assert (
+        main(
+            [
+                "study",
+                "rules",
+                path,
+                "--distinct-signers",
+                "off",
+                "--reason",
+                "x",
+                "--who",
+                "Q. Lead",
+            ]
+        )
+        == 2
+    )  # approved: locked
     assert "locked" in capsys.readouterr().err
     assert main(["study", "show", path]) == 0
     out = capsys.readouterr().out
@@ -163,6 +256,7 @@ def test_cli_sign_applies_the_same_rules(study_path, capsys):
 
 # --- the live session -------------------------------------------------------------------------
 
+
 def test_a_change_elsewhere_reaches_the_session_with_who_changed_what(study_path):
     a, b = StudySession(study_path), StudySession(study_path)
     assert a.check_for_changes() is False
@@ -170,7 +264,8 @@ def test_a_change_elsewhere_reaches_the_session_with_who_changed_what(study_path
     assert a.check_for_changes() is True
     assert "3" in a.result(NAME).removed_subgroups
     assert [(e.who, e.what) for e in a.external_changes] == [
-        ("B. Other", f"remove subgroup 3 of '{NAME}'")]
+        ("B. Other", f"remove subgroup 3 of '{NAME}'")
+    ]
     assert a.check_for_changes() is False
 
 
@@ -231,6 +326,7 @@ def test_live_link_follows_the_file_and_the_page(study_path):
 
 # --- signing the PDF in the workbook ----------------------------------------------------------
 
+
 @pytest.fixture
 def export_step(study_path, tmp_path):
     from studykit.app.shell import build_workbook
@@ -245,13 +341,18 @@ def export_step(study_path, tmp_path):
 
 def _upload(step, path):
     data = path.read_bytes()
-    step.p12.value = ({"name": path.name, "type": "application/x-pkcs12", "size": len(data),
-                       "content": memoryview(data),
-                       "last_modified": datetime.datetime(2026, 3, 5, tzinfo=datetime.UTC)},)
+    step.p12.value = (
+        {
+            "name": path.name,
+            "type": "application/x-pkcs12",
+            "size": len(data),
+            "content": memoryview(data),
+            "last_modified": datetime.datetime(2026, 3, 5, tzinfo=datetime.UTC),
+        },
+    )
 
 
-def test_browser_signing_verifies_and_forgets_the_certificate(export_step, tmp_path,
-                                                              monkeypatch):
+def test_browser_signing_verifies_and_forgets_the_certificate(export_step, tmp_path, monkeypatch):
     import base64
     import re
 
@@ -294,8 +395,7 @@ def test_wrong_passphrase_is_a_message_and_is_forgotten(export_step, tmp_path, m
     assert step.signed_links.value == ""
 
 
-def test_browser_signing_is_refused_on_an_open_network_address(export_step, tmp_path,
-                                                               monkeypatch):
+def test_browser_signing_is_refused_on_an_open_network_address(export_step, tmp_path, monkeypatch):
     monkeypatch.setenv(ENV_ACCESS, "open")
     wb, step = export_step
     step.pdf.click()

@@ -24,8 +24,17 @@ def test_variance_removal_plain_arithmetic():
     # limits 7 .. 13, mean 10.6: Pp 6/(6*0.5) = 2.0 observed, 6/(6*0.4) = 2.5 process;
     # Ppk (13 - 10.6)/(3*0.5) = 1.6 observed, 2.4/(3*0.4) = 2.0 process.
     # within 0.45: process sqrt(0.2025 - 0.09) = sqrt(0.1125); Cp = 6/(6 sqrt(0.1125)).
-    r = remove_gauge_variance(gauge_sigma=0.3, gauge_df=40.0, mean=10.6, lsl=7.0, usl=13.0,
-                              within_sigma=0.45, within_df=80.0, overall_sigma=0.5, n=100)
+    r = remove_gauge_variance(
+        gauge_sigma=0.3,
+        gauge_df=40.0,
+        mean=10.6,
+        lsl=7.0,
+        usl=13.0,
+        within_sigma=0.45,
+        within_df=80.0,
+        overall_sigma=0.5,
+        n=100,
+    )
     o = r.overall
     assert_allclose(o.process_sigma, 0.4, rtol=1e-12)
     assert_allclose(o.process_variance, 0.16, rtol=1e-12)
@@ -46,8 +55,9 @@ def test_variance_removal_plain_arithmetic():
 
 
 def test_one_sided_spec_gives_only_the_location_index():
-    r = remove_gauge_variance(gauge_sigma=0.3, gauge_df=40.0, mean=10.6, usl=13.0,
-                              overall_sigma=0.5, n=100)
+    r = remove_gauge_variance(
+        gauge_sigma=0.3, gauge_df=40.0, mean=10.6, usl=13.0, overall_sigma=0.5, n=100
+    )
     assert r.overall.process["pp"] is None
     assert_allclose(r.overall.process["ppk"], 2.0, rtol=1e-12)  # (13 - 10.6)/(3*0.4)
     assert r.overall.spread_interval == {}
@@ -65,12 +75,16 @@ def test_known_gauge_variance_reduces_to_chi_square_bounds():
 
 
 def test_zero_gauge_variance_is_the_chi_square_interval_of_the_observed_variance():
-    r = remove_gauge_variance(gauge_sigma=0.0, gauge_df=10.0, mean=0.0, lsl=-3, usl=3,
-                              overall_sigma=1.0, n=21)
+    r = remove_gauge_variance(
+        gauge_sigma=0.0, gauge_df=10.0, mean=0.0, lsl=-3, usl=3, overall_sigma=1.0, n=21
+    )
     o = r.overall
     # scipy.stats.chi2.ppf(0.975 / 0.025, 20): 20 / chi2 quantile
-    assert_allclose([o.variance_lower, o.variance_upper],
-                    [20 / stats.chi2.ppf(0.975, 20), 20 / stats.chi2.ppf(0.025, 20)], rtol=1e-10)
+    assert_allclose(
+        [o.variance_lower, o.variance_upper],
+        [20 / stats.chi2.ppf(0.975, 20), 20 / stats.chi2.ppf(0.025, 20)],
+        rtol=1e-10,
+    )
     assert o.process_sigma == 1.0
 
 
@@ -82,28 +96,31 @@ def test_uses_scipy_f_quantiles():
     g1, h1 = 1 - 1 / f(1 - a, d1, 1e12), 1 / f(a, d1, 1e12) - 1
     g2, h2 = 1 - 1 / f(1 - a, d2, 1e12), 1 / f(a, d2, 1e12) - 1
     fh, fl = f(1 - a, d1, d2), f(a, d1, d2)
-    g12 = ((fh - 1) ** 2 - g1 ** 2 * fh ** 2 - h2 ** 2) / fh
-    h12 = ((1 - fl) ** 2 - h1 ** 2 * fl ** 2 - g2 ** 2) / fl
-    lo = s1 - s2 - math.sqrt(g1 ** 2 * s1 ** 2 + h2 ** 2 * s2 ** 2 + g12 * s1 * s2)
-    hi = s1 - s2 + math.sqrt(h1 ** 2 * s1 ** 2 + g2 ** 2 * s2 ** 2 + h12 * s1 * s2)
+    g12 = ((fh - 1) ** 2 - g1**2 * fh**2 - h2**2) / fh
+    h12 = ((1 - fl) ** 2 - h1**2 * fl**2 - g2**2) / fl
+    lo = s1 - s2 - math.sqrt(g1**2 * s1**2 + h2**2 * s2**2 + g12 * s1 * s2)
+    hi = s1 - s2 + math.sqrt(h1**2 * s1**2 + g2**2 * s2**2 + h12 * s1 * s2)
     _, lo2, hi2 = mls_difference_interval(s1, d1, s2, d2)
     assert_allclose([lo2, hi2], [lo, hi], rtol=1e-7)
 
 
 def test_warnings_large_share_zero_bound_and_all_gauge():
-    r = remove_gauge_variance(gauge_sigma=0.4, gauge_df=5.0, mean=0.0, lsl=-3, usl=3,
-                              overall_sigma=0.5, n=30)
+    r = remove_gauge_variance(
+        gauge_sigma=0.4, gauge_df=5.0, mean=0.0, lsl=-3, usl=3, overall_sigma=0.5, n=30
+    )
     text = " ".join(r.warnings)
     assert "64 % of the observed variance" in text  # 0.16 / 0.25
     assert "cannot be told from zero" in text  # so few gauge df: lower bound <= 0
     assert r.overall.sigma_lower == 0.0
     assert r.overall.spread_interval["pp"][1] is None
-    r2 = remove_gauge_variance(gauge_sigma=0.6, gauge_df=20.0, mean=0.0, lsl=-3, usl=3,
-                               overall_sigma=0.5, n=30)
+    r2 = remove_gauge_variance(
+        gauge_sigma=0.6, gauge_df=20.0, mean=0.0, lsl=-3, usl=3, overall_sigma=0.5, n=30
+    )
     assert r2.overall.process_sigma is None and r2.overall.process["pp"] is None
     assert "accounts for all the spread" in " ".join(r2.warnings)
-    r3 = remove_gauge_variance(gauge_sigma=0.1, gauge_df=None, mean=0.0, lsl=-3, usl=3,
-                               overall_sigma=0.5, n=30)
+    r3 = remove_gauge_variance(
+        gauge_sigma=0.1, gauge_df=None, mean=0.0, lsl=-3, usl=3, overall_sigma=0.5, n=30
+    )
     assert r3.overall.variance_lower is None and "without an interval" in r3.warnings[0]
 
 
@@ -117,16 +134,24 @@ def test_bad_input():
 
 
 def test_gauge_sigma_from_stored_payload():
-    payload = {"components": [{"name": "repeatability", "sigma": 0.1, "interval_df": 30},
-                              {"name": "gauge_rr", "sigma": 0.2, "interval_df": 12.5}]}
+    payload = {
+        "components": [
+            {"name": "repeatability", "sigma": 0.1, "interval_df": 30},
+            {"name": "gauge_rr", "sigma": 0.2, "interval_df": 12.5},
+        ]
+    }
     assert gauge_sigma_from_stored(payload) == (0.2, 12.5)
-    assert gauge_sigma_from_stored({"components": [{"name": "gauge_rr", "sigma": 0.2,
-                                                    "interval_df": None}]}) == (0.2, None)
+    assert gauge_sigma_from_stored(
+        {"components": [{"name": "gauge_rr", "sigma": 0.2, "interval_df": None}]}
+    ) == (0.2, None)
     assert gauge_sigma_from_stored({"status": "not_checked"}) is None
 
 
 CASES = [  # (sigma_obs^2, sigma_gauge^2, df_obs, df_gauge): shares 0.1 to 0.8, df 5 to 100
-    (1.0, 0.3, 99, 30), (1.0, 0.6, 49, 10), (1.0, 0.1, 20, 60), (1.0, 0.8, 100, 5),
+    (1.0, 0.3, 99, 30),
+    (1.0, 0.6, 49, 10),
+    (1.0, 0.1, 20, 60),
+    (1.0, 0.8, 100, 5),
     (1.0, 0.5, 30.5, 7.3),
 ]
 

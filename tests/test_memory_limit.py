@@ -30,17 +30,33 @@ def _run(path: Path) -> subprocess.CompletedProcess:
     def cap():
         resource.setrlimit(resource.RLIMIT_AS, (LIMIT, LIMIT))
 
-    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1",
-               MKL_NUM_THREADS="1")  # thread stacks and buffers count as address space
+    env = dict(
+        os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1"
+    )  # thread stacks and buffers count as address space
     return subprocess.run(
-        [STUDYKIT, "analyze", str(path), "-c", "diameter", "--lsl", "9.94", "--usl", "10.06",
-         "--json"], capture_output=True, text=True, preexec_fn=cap, env=env, timeout=600)
+        [
+            STUDYKIT,
+            "analyze",
+            str(path),
+            "-c",
+            "diameter",
+            "--lsl",
+            "9.94",
+            "--usl",
+            "10.06",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        preexec_fn=cap,
+        env=env,
+        timeout=600,
+    )
 
 
 def _write(path: Path, n: int) -> None:
     x = np.random.default_rng(2026).normal(10.0, 0.01, n)
-    path.write_text("diameter [mm]\n" + "\n".join(f"{v:.6f}" for v in x) + "\n",
-                    encoding="utf-8")
+    path.write_text("diameter [mm]\n" + "\n".join(f"{v:.6f}" for v in x) + "\n", encoding="utf-8")
 
 
 def test_default_study_of_200k_readings_runs_under_640_mb(tmp_path):

@@ -38,8 +38,9 @@ def test_normal_data_skip_the_ranking_unless_asked():
     assert "ranking" not in a and "ranking" in b
     assert a["model_band"] is None
     # every other number is the same with and without the ranking
-    assert json.dumps(_drop(a, "ranking", "model_band", "options"), sort_keys=True) == \
-        json.dumps(_drop(b, "ranking", "model_band", "options"), sort_keys=True)
+    assert json.dumps(_drop(a, "ranking", "model_band", "options"), sort_keys=True) == json.dumps(
+        _drop(b, "ranking", "model_band", "options"), sort_keys=True
+    )
 
 
 def test_rejected_normal_model_still_ranks_every_family():

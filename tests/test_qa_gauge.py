@@ -72,20 +72,23 @@ def test_mixed_decimal_signs_refused(tmp_path, capsys):
 def test_german_export_semicolon_decimal_comma_same_result(tmp_path, capsys):
     header, body = demo_rows()
     path = tmp_path / "g.csv"
-    path.write_text(";".join(header) + "\n" + "".join(
-        ";".join([*r[:3], r[3].replace(".", ",")]) + "\n" for r in body))
+    path.write_text(
+        ";".join(header)
+        + "\n"
+        + "".join(";".join([*r[:3], r[3].replace(".", ",")]) + "\n" for r in body)
+    )
     code, out, _ = run(capsys, path, "--json")
     _, out_ref, _ = run(capsys, DEMO, "--json")
     assert code == 0
     assert json.loads(out)["ndc"] == json.loads(out_ref)["ndc"]
-    assert json.loads(out)["ndc_ratio"] == pytest.approx(json.loads(out_ref)["ndc_ratio"],
-                                                         rel=1e-12)
+    assert json.loads(out)["ndc_ratio"] == pytest.approx(
+        json.loads(out_ref)["ndc_ratio"], rel=1e-12
+    )
 
 
 def test_same_column_for_two_roles(capsys):
     # defect: --appraiser naming the part column gave a baffling "unbalanced" message
-    code = main(["gauge", str(DEMO), "--part", "part", "--appraiser", "part", "--value",
-                 "value"])
+    code = main(["gauge", str(DEMO), "--part", "part", "--appraiser", "part", "--value", "value"])
     err = capsys.readouterr().err
     assert code == 2
     assert "--part and --appraiser both name column 'part'" in err
@@ -101,8 +104,22 @@ def approved(tmp_path):
     path = tmp_path / "pilot.study"
     shutil.copyfile(ROOT / "demo_data" / "pump_housing_pilot.study", path)
     waive_open_verdicts(path)  # the lock is under test here, not the approval gate
-    assert main(["study", "sign", str(path), "--role", "approved", "--decision", "approve",
-                 "--who", "Q. Lead"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "sign",
+                str(path),
+                "--role",
+                "approved",
+                "--decision",
+                "approve",
+                "--who",
+                "Q. Lead",
+            ]
+        )
+        == 0
+    )
     return path
 
 
@@ -113,8 +130,7 @@ def test_gauge_result_refused_on_approved_study(approved, capsys):
 
     capsys.readouterr()
     before = len(StudyFile(approved).results("gauge_rr"))
-    code, _, err = run(capsys, DEMO, "--study", approved, "--characteristic",
-                       "flange_thickness")
+    code, _, err = run(capsys, DEMO, "--study", approved, "--characteristic", "flange_thickness")
     assert code == 2 and "approved" in err and "--override-lock" in err
     assert len(StudyFile(approved).results("gauge_rr")) == before
     assert StudyFile(approved).load().is_locked
@@ -124,8 +140,16 @@ def test_gauge_result_with_override_voids_approval(approved, capsys):
     from studykit.store import StudyFile
 
     capsys.readouterr()
-    code, out, _ = run(capsys, DEMO, "--study", approved, "--characteristic",
-                       "flange_thickness", "--override-lock", "gauge repaired, new study")
+    code, out, _ = run(
+        capsys,
+        DEMO,
+        "--study",
+        approved,
+        "--characteristic",
+        "flange_thickness",
+        "--override-lock",
+        "gauge repaired, new study",
+    )
     assert code == 0 and "Stored as result" in out
     study = StudyFile(approved).load()
     assert not study.is_locked

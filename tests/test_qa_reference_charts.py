@@ -79,11 +79,18 @@ def test_morley_xbar_s_limits_by_arithmetic(morley, capsys):
     assert d["overall_sigma"] == pytest.approx(statistics.stdev(every), rel=1e-12)
     assert d["n"] == 100 and d["subgroups"] == 5 and d["subgroup_size"] == 20
     # Nelson test 1 on the means: which experiments lie outside Xbarbar +- A3 Sbar
-    outside = sorted(str(e) for e, m in zip(groups, means, strict=True)
-                     if not xbb - a3 * sbar <= m <= xbb + a3 * sbar)
+    outside = sorted(
+        str(e)
+        for e, m in zip(groups, means, strict=True)
+        if not xbb - a3 * sbar <= m <= xbb + a3 * sbar
+    )
     assert outside == ["1"]  # experiment 1 (mean 909) above the upper limit
-    flagged = sorted(s for sig in ch["signals"] if sig["rule"] == "beyond_limits"
-                     and sig["chart"] == "location" for s in sig["subgroups"])
+    flagged = sorted(
+        s
+        for sig in ch["signals"]
+        if sig["rule"] == "beyond_limits" and sig["chart"] == "location"
+        for s in sig["subgroups"]
+    )
     assert flagged == outside
 
 
@@ -107,13 +114,13 @@ def test_morley_phase1_removes_experiment_1_and_recomputes(morley, capsys):
 @pytest.fixture
 def nile(tmp_path):
     import statsmodels.datasets as sm  # a declared dev dependency: missing means fail, not skip
+
     # statsmodels.datasets.nile: annual flow of the Nile at Aswan, 1871-1970 (Cobb 1978)
     df = sm.nile.load_pandas().data
     years = [int(y) for y in df["year"]]
     flow = [float(v) for v in df["volume"]]
     path = tmp_path / "nile.csv"
-    path.write_text("year,flow\n" + "".join(f"{y},{v}\n" for y, v in zip(years, flow,
-                                                                          strict=True)))
+    path.write_text("year,flow\n" + "".join(f"{y},{v}\n" for y, v in zip(years, flow, strict=True)))
     return path, years, flow
 
 
@@ -144,17 +151,27 @@ def test_nile_individuals_limits_and_runs_by_arithmetic(nile, capsys):
     assert ch["location"]["lcl"] == pytest.approx(mean - 3 * sigma, rel=1e-12)
     assert ch["location"]["ucl"] == pytest.approx(mean + 3 * sigma, rel=1e-12)
     # Nelson test 1: years beyond the limits
-    beyond = sorted(str(y) for y, v in zip(years, flow, strict=True)
-                    if not mean - 3 * sigma <= v <= mean + 3 * sigma)
-    got = sorted(s for sig in ch["signals"] if sig["rule"] == "beyond_limits"
-                 and sig["chart"] == "location" for s in sig["subgroups"])
+    beyond = sorted(
+        str(y)
+        for y, v in zip(years, flow, strict=True)
+        if not mean - 3 * sigma <= v <= mean + 3 * sigma
+    )
+    got = sorted(
+        s
+        for sig in ch["signals"]
+        if sig["rule"] == "beyond_limits" and sig["chart"] == "location"
+        for s in sig["subgroups"]
+    )
     assert got == beyond
     # Nelson test 2: every maximal run of 9 or more points on one side of the centre line
     above = _runs([v > mean for v in flow], 9)
     below = _runs([v < mean for v in flow], 9)
     expected = sorted((str(years[a]), str(years[b])) for a, b in above + below)
-    got_runs = sorted((s["subgroups"][0], s["subgroups"][-1]) for s in ch["signals"]
-                      if s["rule"] == "run" and s["chart"] == "location")
+    got_runs = sorted(
+        (s["subgroups"][0], s["subgroups"][-1])
+        for s in ch["signals"]
+        if s["rule"] == "run" and s["chart"] == "location"
+    )
     assert got_runs == expected
     # the level shift documented after 1898 (Cobb 1978): the last run above the centre line
     # ends in 1898 and every run after it lies below
@@ -169,8 +186,11 @@ def test_nile_shift_survives_phase1(nile, capsys):
     path, years, flow = nile
     d = analyze_json(capsys, path, "-c", "flow", "--subgroup-column", "year")
     assert any(s["rule"] == "run" for s in d["chart"]["signals"])
-    kept = [v for y, v in zip(years, flow, strict=True)
-            if str(y) not in d["phase1"]["removed_subgroups"]]
+    kept = [
+        v
+        for y, v in zip(years, flow, strict=True)
+        if str(y) not in d["phase1"]["removed_subgroups"]
+    ]
     assert d["mean"] == pytest.approx(statistics.fmean(kept), rel=1e-12)
     assert d["n"] == len(kept)
 
@@ -184,18 +204,26 @@ def test_insectsprays_c_chart_by_arithmetic(tmp_path, capsys):
     counts = [int(c) for c in df["count"]]
     path = tmp_path / "insects.csv"
     path.write_text("plot,count\n" + "".join(f"{i},{c}\n" for i, c in enumerate(counts, 1)))
-    d = analyze_json(capsys, path, "-c", "count", "--subgroup-column", "plot", "--chart", "c",
-                     "--phase1", "off")
+    d = analyze_json(
+        capsys, path, "-c", "count", "--subgroup-column", "plot", "--chart", "c", "--phase1", "off"
+    )
     cbar = sum(counts) / len(counts)  # Montgomery sec. 7.3.1
     loc = d["chart"]["location"]
     assert loc["center"] == pytest.approx(cbar, rel=1e-12)  # 684 / 72 = 9.5
     assert loc["ucl"] == pytest.approx(cbar + 3 * math.sqrt(cbar), rel=1e-12)
     assert loc["lcl"] == pytest.approx(max(0.0, cbar - 3 * math.sqrt(cbar)), rel=1e-12)
     assert d["dpu"] == pytest.approx(cbar, rel=1e-12)
-    beyond = sorted(str(i) for i, c in enumerate(counts, 1)
-                    if not cbar - 3 * math.sqrt(cbar) <= c <= cbar + 3 * math.sqrt(cbar))
-    got = sorted(s for sig in d["chart"]["signals"] if sig["rule"] == "beyond_limits"
-                 for s in sig["subgroups"])
+    beyond = sorted(
+        str(i)
+        for i, c in enumerate(counts, 1)
+        if not cbar - 3 * math.sqrt(cbar) <= c <= cbar + 3 * math.sqrt(cbar)
+    )
+    got = sorted(
+        s
+        for sig in d["chart"]["signals"]
+        if sig["rule"] == "beyond_limits"
+        for s in sig["subgroups"]
+    )
     assert got == beyond
     # Laney (2002) sigma_z for equal unit sizes
     z = [(c - cbar) / math.sqrt(cbar) for c in counts]
@@ -210,14 +238,30 @@ def test_warpbreaks_u_chart_by_arithmetic(tmp_path, capsys):
     for w, t, b in zip(df["wool"], df["tension"], df["breaks"], strict=True):
         cells.setdefault(f"{w}-{t}", []).append(int(b))
     path = tmp_path / "warp.csv"
-    path.write_text("cell,looms,breaks\n" + "".join(
-        f"{k},{len(v)},{sum(v)}\n" for k, v in cells.items()))
-    d = analyze_json(capsys, path, "-c", "breaks", "--subgroup-column", "cell", "--size-column",
-                     "looms", "--chart", "u", "--phase1", "off")
+    path.write_text(
+        "cell,looms,breaks\n" + "".join(f"{k},{len(v)},{sum(v)}\n" for k, v in cells.items())
+    )
+    d = analyze_json(
+        capsys,
+        path,
+        "-c",
+        "breaks",
+        "--subgroup-column",
+        "cell",
+        "--size-column",
+        "looms",
+        "--chart",
+        "u",
+        "--phase1",
+        "off",
+    )
     total = sum(sum(v) for v in cells.values())
     units = sum(len(v) for v in cells.values())
     ubar = total / units  # Montgomery sec. 7.3.2
-    assert (total, units) == (1520, 54)  # 54 looms; mean 28.15 breaks as R summary() shows (from memory)
+    assert (total, units) == (
+        1520,
+        54,
+    )  # 54 looms; mean 28.15 breaks as R summary() shows (from memory)
     for lim in d["chart"]["limits"]:
         n = len(cells[lim["subgroup"]])
         assert lim["center"] == pytest.approx(ubar, rel=1e-12)

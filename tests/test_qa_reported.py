@@ -65,23 +65,26 @@ def test_two_values_say_why_there_is_no_capability(tmp_path, capsys):
 
 def test_attribute_count_error_names_file_row(capsys):
     # a measured column given as counts (a slip of -c) must name the row of the file
-    code, _, err = analyze(capsys, PILOT, "-c", "bore_diameter", "--chart", "p",
-                           "--size-column", "face_runout")
+    code, _, err = analyze(
+        capsys, PILOT, "-c", "bore_diameter", "--chart", "p", "--size-column", "face_runout"
+    )
     assert code == 2
     assert "np.float64" not in err and "row 2" in err
 
 
 def test_size_column_typo_names_the_option(capsys):
-    code, _, err = analyze(capsys, LEAK, "-c", "leak_test_defectives", "--chart", "p",
-                           "--size-column", "lotsize")
+    code, _, err = analyze(
+        capsys, LEAK, "-c", "leak_test_defectives", "--chart", "p", "--size-column", "lotsize"
+    )
     assert code == 2 and "--size-column" in err
 
 
 def test_model_error_single_full_stop(tmp_path, capsys):
     path = tmp_path / "x.csv"
     path.write_text("x\n" + "\n".join(map(str, OUTLIER_FIRST)) + "\n")
-    code, _, err = analyze(capsys, path, "-c", "x", "--usl", "10", "--model", "lognormal",
-                           "--phase1", "off")
+    code, _, err = analyze(
+        capsys, path, "-c", "x", "--usl", "10", "--model", "lognormal", "--phase1", "off"
+    )
     assert code == 2 and "needs positive data" in err
     assert ".." not in err
 
@@ -103,17 +106,25 @@ def test_single_value_subgroup_advice_uses_command_line_words(tmp_path, capsys):
 
 def test_verdict_on_unstable_process_says_so(tmp_path, capsys):
     import statsmodels.datasets as sm  # a declared dev dependency: missing means fail, not skip
+
     # statsmodels.datasets.nile: Nile flow 1871-1970 with the documented drop after 1898
     df = sm.nile.load_pandas().data
     path = tmp_path / "nile.csv"
-    path.write_text("year,flow\n" + "".join(
-        f"{int(y)},{v}\n" for y, v in zip(df["year"], df["volume"], strict=True)))
-    code, d, _ = analyze(capsys, path, "-c", "flow", "--subgroup-column", "year",
-                         "--lsl", "0", "--usl", "3000")
+    path.write_text(
+        "year,flow\n"
+        + "".join(f"{int(y)},{v}\n" for y, v in zip(df["year"], df["volume"], strict=True))
+    )
+    code, d, _ = analyze(
+        capsys, path, "-c", "flow", "--subgroup-column", "year", "--lsl", "0", "--usl", "3000"
+    )
     assert code == 0
     runs = [s for s in d["chart"]["signals"] if s["rule"] == "run"]
     assert runs  # the final phase-I chart still shows the shift (runs of 9+ on one side)
     # now: verdict "the data demonstrate the requirement", phase1.stopped "stable", and no
     # finding about the signals; a capability claim needs a process in control
-    assert any("signal" in f["text"].lower() or "control" in f["text"].lower()
-               or "stab" in f["text"].lower() for f in d["findings"])
+    assert any(
+        "signal" in f["text"].lower()
+        or "control" in f["text"].lower()
+        or "stab" in f["text"].lower()
+        for f in d["findings"]
+    )

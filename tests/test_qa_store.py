@@ -62,8 +62,22 @@ def test_write_to_study_in_read_only_folder_says_why(tmp_path, frozen, capsys):
     folder.mkdir()
     shutil.copyfile(DEMO, folder / "pilot.study")
     frozen(folder)
-    assert main(["study", "exclude", str(folder / "pilot.study"), "bore_diameter", "3",
-                 "--reason", "x", "--who", "QA"]) == 2
+    assert (
+        main(
+            [
+                "study",
+                "exclude",
+                str(folder / "pilot.study"),
+                "bore_diameter",
+                "3",
+                "--reason",
+                "x",
+                "--who",
+                "QA",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err
     assert "is read-only" in err and "Copy the study file to a folder where you may write" in err
     with pytest.raises(StudyFileError, match="folder .* is read-only"):
@@ -75,7 +89,10 @@ def test_read_only_study_file_write_says_read_only(tmp_path, frozen, capsys):
     shutil.copyfile(DEMO, path)
     StudyFile(path).load()  # creates the journal index beside it, as any first use does
     frozen(path)
-    with pytest.raises(StudyFileError, match=r"the study file '.*pilot.study' is read-only; "
-                                             r"nothing was changed"):
+    with pytest.raises(
+        StudyFileError,
+        match=r"the study file '.*pilot.study' is read-only; "
+        r"nothing was changed",
+    ):
         StudyFile(path).exclude("bore_diameter", 3, reason="x", who="QA")
     assert "3" not in StudyFile(path).load().excluded_subgroups("bore_diameter")

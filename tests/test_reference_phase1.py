@@ -85,8 +85,11 @@ def test_full_data_fits_match_scipy_and_fail_the_requirement():
     # ISO 22514-2 percentile method on the full-data fits: Ppu = (USL - median) / (q(0.99865) -
     # median); every one is far below 1.33 (Weibull 0.84, gamma 0.75, lognormal 0.32) and each
     # expects thousands of PPM above the USL
-    for dist in (stats.weibull_min(c, 0, scale), stats.gamma(a, 0, gscale),
-                 stats.lognorm(s, 0, escale)):
+    for dist in (
+        stats.weibull_min(c, 0, scale),
+        stats.gamma(a, 0, gscale),
+        stats.lognorm(s, 0, escale),
+    ):
         med = dist.ppf(0.5)
         ppu = (USL - med) / (dist.ppf(0.99865) - med)
         assert ppu < 0.9
@@ -96,11 +99,22 @@ def test_full_data_fits_match_scipy_and_fail_the_requirement():
 # ------------------------------------------------------------------ skewed: never MEETS by trimming
 
 
-@pytest.mark.parametrize("model", ["auto", "boxcox", "johnson", "weibull", "gamma", "lognormal",
-                                   "normal"])
+@pytest.mark.parametrize(
+    "model", ["auto", "boxcox", "johnson", "weibull", "gamma", "lognormal", "normal"]
+)
 def test_skewed_sample_default_analyze_never_meets(capsys, model):
-    d = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--threshold", THRESHOLD,
-                 "--model", model)
+    d = _analyze(
+        capsys,
+        MICROWAVE,
+        "-c",
+        "radiation",
+        "--usl",
+        USL,
+        "--threshold",
+        THRESHOLD,
+        "--model",
+        model,
+    )
     v = d["verdict"]
     assert v["meets"] is not True
     if v["meets"] is None:
@@ -128,15 +142,37 @@ def test_skewed_sample_is_charted_on_the_models_scale(capsys):
 
 def test_skewed_sample_raw_scale_trimming_withholds_the_verdict(capsys):
     # the normal model charts the raw values: 8 of 42 (19 %) go, so no verdict (was MEETS)
-    d = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--threshold", THRESHOLD,
-                 "--model", "normal")
+    d = _analyze(
+        capsys,
+        MICROWAVE,
+        "-c",
+        "radiation",
+        "--usl",
+        USL,
+        "--threshold",
+        THRESHOLD,
+        "--model",
+        "normal",
+    )
     assert d["phase1"]["removed_auto"] == 8 and d["phase1"]["removed_recorded"] == 0
     assert d["verdict"]["meets"] is None
     assert "heavy_auto_removal" in d["phase1"]["verdict_withheld"]
     assert d["verdict"]["text"].startswith("No verdict")
     # a looser stated share lets the same trimmed sample be judged (the option is honoured)
-    loose = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--threshold",
-                     THRESHOLD, "--model", "normal", "--max-auto-removal", "0.25")
+    loose = _analyze(
+        capsys,
+        MICROWAVE,
+        "-c",
+        "radiation",
+        "--usl",
+        USL,
+        "--threshold",
+        THRESHOLD,
+        "--model",
+        "normal",
+        "--max-auto-removal",
+        "0.25",
+    )
     assert "heavy_auto_removal" not in loose["phase1"]["verdict_withheld"]
 
 
@@ -144,12 +180,27 @@ def test_skewed_sample_raw_scale_trimming_withholds_the_verdict(capsys):
 def test_phase1_off_non_normal_model_has_no_raw_scale_limit_signals(capsys, model):
     # on the raw scale the two 0.40 readings lie above the individuals UCL 0.357 (normal theory);
     # on the model's scale no reading lies beyond the location limits
-    d = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--threshold", THRESHOLD,
-                 "--model", model, "--phase1", "off")
+    d = _analyze(
+        capsys,
+        MICROWAVE,
+        "-c",
+        "radiation",
+        "--usl",
+        USL,
+        "--threshold",
+        THRESHOLD,
+        "--model",
+        model,
+        "--phase1",
+        "off",
+    )
     assert d["phase1"]["removed_subgroups"] == []
     assert d["chart"]["scale"] in ("normal_score", "transformed")
-    assert not [s for s in d["chart"]["signals"]
-                if s["chart"] == "location" and s["rule"] == "beyond_limits"]
+    assert not [
+        s
+        for s in d["chart"]["signals"]
+        if s["chart"] == "location" and s["rule"] == "beyond_limits"
+    ]
 
 
 # ------------------------------------------------------------------ sorted life test
@@ -207,8 +258,22 @@ def test_sorted_sample_withheld_in_all_and_in_a_study(tmp_path, capsys):
     assert row["verdict"].startswith("No verdict")
     # the same in a saved study (workbook, PDF and verify analyse it with analyze_study)
     study = tmp_path / "life.study"
-    assert main(["study", "new", str(study), "--data", str(BEARINGS), "--specs", str(specs),
-                 "--who", "T. Test"]) == 0
+    assert (
+        main(
+            [
+                "study",
+                "new",
+                str(study),
+                "--data",
+                str(BEARINGS),
+                "--specs",
+                str(specs),
+                "--who",
+                "T. Test",
+            ]
+        )
+        == 0
+    )
     from studykit.store import StudyFile
 
     res = analyze_study(StudyFile(study).load(), "endurance")
@@ -225,10 +290,13 @@ def test_recorded_removals_do_not_count_as_trimming():
     crit = Criteria(index="ppk", threshold=THRESHOLD)
     # a person removes 6 readings with a reason: 14 %, above the automatic 10 % line, but a
     # recorded decision, so it does not withhold the verdict; it is counted and shown apart
-    excl = {str(i): ("door seal replaced after this reading (test)", "T. Test")
-            for i in (1, 2, 3, 4, 5, 6)}
-    res = analyze_characteristic(data, spec, criteria=crit, exclusions=excl,
-                                 options=AnalysisOptions(phase1="off"))
+    excl = {
+        str(i): ("door seal replaced after this reading (test)", "T. Test")
+        for i in (1, 2, 3, 4, 5, 6)
+    }
+    res = analyze_characteristic(
+        data, spec, criteria=crit, exclusions=excl, options=AnalysisOptions(phase1="off")
+    )
     d = res.to_dict()
     assert d["phase1"]["removed_recorded"] == 6 and d["phase1"]["removed_auto"] == 0
     assert d["phase1"]["removed_share_recorded"] == pytest.approx(6 / 42)
@@ -241,8 +309,10 @@ def test_recorded_removals_do_not_count_as_trimming():
 
 def _lots(tmp_path, defectives, size=51, k=5):
     path = tmp_path / "lots.csv"
-    path.write_text("lot,lot_size,defectives\n"
-                    + "".join(f"{i + 1},{size},{d}\n" for i, d in enumerate(defectives[:k])))
+    path.write_text(
+        "lot,lot_size,defectives\n"
+        + "".join(f"{i + 1},{size},{d}\n" for i, d in enumerate(defectives[:k]))
+    )
     return path
 
 
@@ -266,8 +336,18 @@ def test_zero_defect_lots_are_charted_and_judged_by_the_exact_bound(tmp_path, ca
     need = math.ceil(math.log(0.05) / math.log1p(-stats.norm.sf(3 * 1.67)))
     assert f"{need:,} items without a defective" in v["text"]
     # a requirement the bound does show: Ppk >= 0.7 (z / 3 = 0.756)
-    d2 = _analyze(capsys, path, "-c", "defectives", "--chart", "p", "--size-column", "lot_size",
-                  "--threshold", 0.7)
+    d2 = _analyze(
+        capsys,
+        path,
+        "-c",
+        "defectives",
+        "--chart",
+        "p",
+        "--size-column",
+        "lot_size",
+        "--threshold",
+        0.7,
+    )
     assert d2["verdict"]["meets"] is True
 
 
@@ -287,8 +367,9 @@ def test_probability_limits_are_the_fitted_models_quantiles(capsys):
     # --phase1 off keeps all 42 readings, so the fitted Weibull is scipy's full-data fit:
     # scipy.stats.weibull_min.fit(x, floc=0), then .ppf(0.00135 / 0.5 / 0.99865)
     x = _values(MICROWAVE)
-    d = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "weibull",
-                 "--phase1", "off")
+    d = _analyze(
+        capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "weibull", "--phase1", "off"
+    )
     c, _, scale = stats.weibull_min.fit(x, floc=0)
     q = stats.weibull_min(c, 0, scale).ppf([0.00135, 0.5, 0.99865])
     pl = d["chart"]["probability_limits"]
@@ -306,8 +387,9 @@ def test_boxcox_chart_is_the_chart_of_the_transformed_values(capsys):
     # their geometric mean, scipy.stats.gmean, before the transform: an increasing affine map
     # of the plain transform, so the same limits and signals in every unit); centre = their mean
     x = _values(MICROWAVE)
-    d = _analyze(capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "boxcox",
-                 "--phase1", "off")
+    d = _analyze(
+        capsys, MICROWAVE, "-c", "radiation", "--usl", USL, "--model", "boxcox", "--phase1", "off"
+    )
     lam = d["model"]["parameters"]["lambda"]
     assert d["model"]["parameters"].get("shift", 0.0) in (0.0, None)
     y = stats.boxcox(x / stats.gmean(x), lmbda=lam)
@@ -323,8 +405,9 @@ def test_a_normal_model_charts_the_raw_values_exactly_as_before():
     from studykit.data import CharacteristicData
 
     nist = [49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
-    res = analyze_characteristic(CharacteristicData("depth", "mm", nist),
-                                 Characteristic("depth", lsl=40, usl=60))
+    res = analyze_characteristic(
+        CharacteristicData("depth", "mm", nist), Characteristic("depth", lsl=40, usl=60)
+    )
     assert res.chart_scale == "raw" and res.phase1.raw_chart is None
     assert float(res.chart.location.ucl[0]) == pytest.approx(55.8024, abs=5e-5)
     assert res.withheld_codes == ()
@@ -334,8 +417,10 @@ def test_sigma_method_option_is_used_and_named():
     # the within sigma of unequal or equal subgroups by the pooled convention: pooled standard
     # deviation / c4(d + 1) (ASTM E2587; studykit.stats.charts), named in the result. Demo data
     # (invented): only that the option reaches the chart is checked here
-    m = read_measurements(Path(__file__).parents[1] / "demo_data" / "pump_housing_pilot.csv",
-                          subgroup_column="subgroup")
+    m = read_measurements(
+        Path(__file__).parents[1] / "demo_data" / "pump_housing_pilot.csv",
+        subgroup_column="subgroup",
+    )
     data = m.get("bore_diameter")
     spec = Characteristic("bore_diameter", lsl=11.97, usl=12.03)
     res = analyze_characteristic(data, spec, options=AnalysisOptions(sigma_method="pooled"))
@@ -347,12 +432,14 @@ def test_sigma_method_option_is_used_and_named():
 
 def test_skewed_sample_never_meets_in_the_all_summary(tmp_path, capsys):
     specs = tmp_path / "specs.csv"
-    specs.write_text(f"characteristic,unit,usl,criterion,threshold\nradiation,mW/cm2,{USL},ppk,"
-                     f"{THRESHOLD}\n")
+    specs.write_text(
+        f"characteristic,unit,usl,criterion,threshold\nradiation,mW/cm2,{USL},ppk,{THRESHOLD}\n"
+    )
     for extra in ([], ["--model", "normal"]):
         capsys.readouterr()
-        assert main(["analyze", str(MICROWAVE), "--all", "--specs", str(specs), "--json",
-                     *extra]) == 0
+        assert (
+            main(["analyze", str(MICROWAVE), "--all", "--specs", str(specs), "--json", *extra]) == 0
+        )
         rows = [json.loads(ln) for ln in capsys.readouterr().out.splitlines() if ln.strip()]
         (row,) = [r for r in rows if r["characteristic"] == "radiation"]
         # the full-data fits fail 1.33 (see above): the summary says "does not meet" or

@@ -21,12 +21,25 @@ DEMO = Path(__file__).resolve().parents[1] / "demo_data"
 def small_study(tmp: Path, *, safety: bool = True) -> Path:
     """One characteristic of the demo data (fast to analyse)."""
     path = tmp / "small.study"
-    StudyFile.create(path, data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
-                     filename="pump_housing_pilot.csv", title="Small evidence study",
-                     part="Test part", supplier="Test supplier",
-                     characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97,
-                                                     usl=12.03, target=12.0,
-                                                     safety_critical=safety)], who="tester")
+    StudyFile.create(
+        path,
+        data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
+        filename="pump_housing_pilot.csv",
+        title="Small evidence study",
+        part="Test part",
+        supplier="Test supplier",
+        characteristics=[
+            Characteristic(
+                "bore_diameter",
+                unit="mm",
+                lsl=11.97,
+                usl=12.03,
+                target=12.0,
+                safety_critical=safety,
+            )
+        ],
+        who="tester",
+    )
     return path
 
 
@@ -107,8 +120,12 @@ def test_progress_is_reported_per_characteristic(demo_report):
 @pytest.mark.skipif(shutil.which("pdftoppm") is None, reason="poppler-utils not installed")
 def test_pages_render_to_png(demo_report, tmp_path):
     _, pdf, info, _ = demo_report
-    subprocess.run(["pdftoppm", "-png", "-r", "30", str(pdf), str(tmp_path / "page")],
-                   check=True, capture_output=True, timeout=120)
+    subprocess.run(
+        ["pdftoppm", "-png", "-r", "30", str(pdf), str(tmp_path / "page")],
+        check=True,
+        capture_output=True,
+        timeout=120,
+    )
     pngs = sorted(tmp_path.glob("page*.png"))
     assert len(pngs) == info.pages
     assert all(p.stat().st_size > 2000 for p in pngs)
@@ -165,16 +182,26 @@ def test_signals_and_automatic_removals_are_reported(tmp_path):
             cells[3] = f"{float(cells[3]) + 0.005:.3f}"
         out.append(",".join(cells))
     path = tmp_path / "shift.study"
-    StudyFile.create(path, data=("\n".join(out) + "\n").encode(), filename="shift.csv",
-                     title="Shifted", characteristics=[Characteristic(
-                         "bore_diameter", unit="mm", lsl=11.97, usl=12.03)], who="tester")
+    StudyFile.create(
+        path,
+        data=("\n".join(out) + "\n").encode(),
+        filename="shift.csv",
+        title="Shifted",
+        characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03)],
+        who="tester",
+    )
     # a saved study removes nothing silently: the trial chart shows the signals ...
     study, result = _analyze(path)
     assert not result.results["bore_diameter"].phase1.removals
     assert result.results["bore_diameter"].chart.location.signals
     # ... and subgroup 6 goes only when someone records it (here: accepting the rule's proposal)
-    StudyFile(path).exclude("bore_diameter", "6", who="tester", automatic=True,
-                            reason="beyond the upper control limit of the trial chart")
+    StudyFile(path).exclude(
+        "bore_diameter",
+        "6",
+        who="tester",
+        automatic=True,
+        reason="beyond the upper control limit of the trial chart",
+    )
     build_report(path, tmp_path / "shift.pdf")
     study, result = _analyze(path)
     res = result.results["bore_diameter"]

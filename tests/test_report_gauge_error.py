@@ -15,8 +15,28 @@ from studykit.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 # 20 invented readings of a reference part of 8.0004 mm (flange thickness, 7.900-8.100 mm)
-READINGS = [8.0012, 8.0009, 8.0015, 8.0007, 8.0011, 8.0013, 8.0008, 8.0010, 8.0014, 8.0009,
-            8.0012, 8.0006, 8.0011, 8.0010, 8.0013, 8.0008, 8.0012, 8.0009, 8.0011, 8.0010]
+READINGS = [
+    8.0012,
+    8.0009,
+    8.0015,
+    8.0007,
+    8.0011,
+    8.0013,
+    8.0008,
+    8.0010,
+    8.0014,
+    8.0009,
+    8.0012,
+    8.0006,
+    8.0011,
+    8.0010,
+    8.0013,
+    8.0008,
+    8.0012,
+    8.0009,
+    8.0011,
+    8.0010,
+]
 
 
 @pytest.fixture(scope="module")
@@ -26,8 +46,25 @@ def made(tmp_path_factory):
     shutil.copy(ROOT / "demo_data" / "pump_housing_pilot.study", study)
     csv = d / "reference.csv"
     csv.write_text("reading\n" + "\n".join(f"{v:.4f}" for v in READINGS) + "\n")
-    assert main(["gauge", str(csv), "--reference", "8.0004", "--value", "reading", "--study",
-                 str(study), "--characteristic", "flange_thickness", "--who", "Test"]) == 0
+    assert (
+        main(
+            [
+                "gauge",
+                str(csv),
+                "--reference",
+                "8.0004",
+                "--value",
+                "reading",
+                "--study",
+                str(study),
+                "--characteristic",
+                "flange_thickness",
+                "--who",
+                "Test",
+            ]
+        )
+        == 0
+    )
     from studykit.report.pdf import build_report
 
     pdf = d / "report.pdf"
@@ -36,8 +73,9 @@ def made(tmp_path_factory):
 
 
 def _text(pdf: Path) -> str:
-    return subprocess.run(["pdftotext", "-layout", str(pdf), "-"], capture_output=True,
-                          text=True, check=True).stdout
+    return subprocess.run(
+        ["pdftotext", "-layout", str(pdf), "-"], capture_output=True, text=True, check=True
+    ).stdout
 
 
 def test_section_shows_short_study_and_process_only_indices(made):
@@ -51,8 +89,9 @@ def test_section_shows_short_study_and_process_only_indices(made):
     p = sf.results("gauge_short", "flange_thickness")[-1].payload
     assert f"{p['cg']:.3g}, {p['cgk']:.3g}" in text  # printed as stored
     assert "Bias t-test" in text
-    res = analyze_study(sf.load(), "flange_thickness",
-                        gauge=gauge_results(sf).get("flange_thickness"))
+    res = analyze_study(
+        sf.load(), "flange_thickness", gauge=gauge_results(sf).get("flange_thickness")
+    )
     me = res.measurement_error
     assert f"{me['within']['process']['cp']:.3g}" in text
     assert f"{me['overall']['process']['pp']:.3g}" in text
@@ -67,8 +106,9 @@ def test_verify_recomputes_the_short_study(made):
     checks = {c.item: c for c in res.checks}
     c = checks["short gauge study of flange_thickness"]
     assert c.status == "pass", c.detail
-    assert all(ch.status != "fail" for ch in res.checks), [ch for ch in res.checks
-                                                           if ch.status == "fail"]
+    assert all(ch.status != "fail" for ch in res.checks), [
+        ch for ch in res.checks if ch.status == "fail"
+    ]
 
 
 def test_verify_names_a_changed_short_study_number(made):
@@ -97,9 +137,11 @@ def test_safety_caution_kept_beside_process_only_indices(tmp_path):
 
     x = np.random.default_rng(3).normal(10.0, 0.5, 60)  # invented for the test
     gauge = {"components": [{"name": "gauge_rr", "sigma": 0.2, "interval_df": 20.0}]}
-    res = analyze_characteristic(CharacteristicData("x", None, x),
-                                 Characteristic("x", lsl=7, usl=13, safety_critical=True),
-                                 gauge=gauge)
+    res = analyze_characteristic(
+        CharacteristicData("x", None, x),
+        Characteristic("x", lsl=7, usl=13, safety_critical=True),
+        gauge=gauge,
+    )
     story: list = []
     gauge_error.gauge_error_section(story, 1, {}, {"x": res}, report_styles(), 480)
     texts = []

@@ -54,8 +54,17 @@ def _produce():
         st.position_study(rng.normal(0, 0.02, 60), rng.normal(0, 0.02, 60), tolerance=0.2),
         st.tolerance_interval(x, lsl=9.6, usl=10.4),
         st.short_gauge_study(rng.normal(10.0, 0.002, 50), reference=10.0, lsl=9.6, usl=10.4),
-        st.remove_gauge_variance(gauge_sigma=0.02, gauge_df=40, mean=10.0, lsl=9.6, usl=10.4,
-                                 within_sigma=0.1, within_df=100, overall_sigma=0.1, n=125),
+        st.remove_gauge_variance(
+            gauge_sigma=0.02,
+            gauge_df=40,
+            mean=10.0,
+            lsl=9.6,
+            usl=10.4,
+            within_sigma=0.1,
+            within_df=100,
+            overall_sigma=0.1,
+            n=125,
+        ),
         *st.parse_rules("nelson"),
     ]
     parts, appr, _ = np.meshgrid(range(10), ["A", "B", "C"], range(2), indexing="ij")
@@ -71,9 +80,16 @@ def _produce():
     upset[50:55] += 1.0  # one subgroup far off: phase I removes it
     out.append(st.phase1(upset, sub))
     # the scale phase I charts on; a caller attaches its own model object (here a text)
-    out.append(st.ChartScale(
-        name="normal_score", label="normal scores", values=np.zeros(3), mu=0.0, sigma=1.0,
-        model="lognormal"))
+    out.append(
+        st.ChartScale(
+            name="normal_score",
+            label="normal scores",
+            values=np.zeros(3),
+            mu=0.0,
+            sigma=1.0,
+            model="lognormal",
+        )
+    )
     return out
 
 

@@ -154,9 +154,17 @@ def reference_evaluate(points, *, center, sigma, lcl=None, ucl=None, rules="nels
     for order, rule in enumerate(parse_rules(rules)):
         if not rule.enabled:
             continue
-        for _, pts, trig, _ in _reference_groups(rule, _reference_rule(rule, xs, cs, ss, lows, highs)):
+        for _, pts, trig, _ in _reference_groups(
+            rule, _reference_rule(rule, xs, cs, ss, lows, highs)
+        ):
             out.append(
-                (keep[trig[0]], order, rule.id, tuple(keep[j] for j in sorted(pts)), tuple(keep[t] for t in trig))
+                (
+                    keep[trig[0]],
+                    order,
+                    rule.id,
+                    tuple(keep[j] for j in sorted(pts)),
+                    tuple(keep[t] for t in trig),
+                )
             )
     out.sort(key=lambda item: (item[0], item[1]))
     return [item[2:] for item in out]
@@ -243,7 +251,9 @@ def test_run_western_electric_eight():
     # Western Electric: eight in a row on one side
     assert _fired([0.5] * 7, Rule.run(8)) == ()
     assert len(_fired([0.5] * 8, Rule.run(8))) == 1
-    assert [s.rule for s in evaluate([0.5] * 8, center=0, sigma=1, rules="western_electric")] == ["run"]
+    assert [s.rule for s in evaluate([0.5] * 8, center=0, sigma=1, rules="western_electric")] == [
+        "run"
+    ]
     assert evaluate([0.5] * 8, center=0, sigma=1, rules="nelson") == ()
 
 
@@ -290,7 +300,10 @@ def test_zone_a_two_of_three():
     assert _fired([2.5, 0.0, -2.5], Rule.zone_a()) == ()  # opposite sides
     assert _fired([2.0, 2.5, 2.0], Rule.zone_a()) == ()  # exactly 2 sigma is zone B
     sig = _fired([-2.1, -2.2], Rule.zone_a())
-    assert sig[0].text == "2 of 3 points in a row more than 2 sigma below the centre line (points 1, 2)"
+    assert (
+        sig[0].text
+        == "2 of 3 points in a row more than 2 sigma below the centre line (points 1, 2)"
+    )
 
 
 def test_zone_b_four_of_five():
@@ -358,7 +371,10 @@ def test_runs_on_both_sides_are_separate_signals():
 def test_zone_cluster_is_one_signal():
     sig = _fired([2.5, 0, 2.5, 0, 2.5, 0, 0, 0, 2.5, 2.5], Rule.zone_a())
     assert _summary(sig) == [("zone_a", (0, 2, 4), (2, 4)), ("zone_a", (8, 9), (9,))]
-    assert sig[0].text == "2 of 3 points in a row more than 2 sigma above the centre line (points 1, 3, 5)"
+    assert (
+        sig[0].text
+        == "2 of 3 points in a row more than 2 sigma above the centre line (points 1, 3, 5)"
+    )
 
 
 def test_missing_points_are_skipped():
@@ -382,7 +398,10 @@ def test_labels_with_missing_points():
     x = [2.5, np.nan, 2.5, 0.0]
     sig = _fired(x, Rule.zone_a(), labels=["a", "b", "c", "d"])
     assert _summary(sig) == [("zone_a", (0, 2), (2,))]
-    assert sig[0].text == "2 of 3 points in a row more than 2 sigma above the centre line (points a, c)"
+    assert (
+        sig[0].text
+        == "2 of 3 points in a row more than 2 sigma above the centre line (points a, c)"
+    )
 
 
 def test_signals_sorted_by_trigger_then_rule_order():
@@ -474,7 +493,9 @@ def test_parse_rules_errors(spec, message):
 
 
 def test_rule_objects_validate():
-    with pytest.raises(StudyInputError, match=r"rule id 'runs' is unknown; use one of beyond_limits"):
+    with pytest.raises(
+        StudyInputError, match=r"rule id 'runs' is unknown; use one of beyond_limits"
+    ):
         Rule("runs")
     with pytest.raises(StudyInputError, match=r"rule `run` is Nelson test 2, not 3"):
         Rule("run", 3)
@@ -502,13 +523,17 @@ def test_evaluate_input_errors():
         evaluate([1.0, 2.0], center=0, sigma=0.0)
     with pytest.raises(StudyInputError, match=r"`sigma` \(-1.0\) must be greater than 0"):
         evaluate([1.0, 2.0], center=0, sigma=[1.0, -1.0])
-    with pytest.raises(StudyInputError, match=r"`center` must be a number or one number per point \(2\)"):
+    with pytest.raises(
+        StudyInputError, match=r"`center` must be a number or one number per point \(2\)"
+    ):
         evaluate([1.0, 2.0], center=[0, 0, 0], sigma=1)
     with pytest.raises(StudyInputError, match=r"`center` \(nan\) at position 1 must be finite"):
         evaluate([1.0, 2.0], center=[0, np.nan], sigma=1)
     # a missing point may have a missing centre or sigma
     assert evaluate([1.0, np.nan], center=[0, np.nan], sigma=[1, np.nan]) == ()
-    with pytest.raises(StudyInputError, match=r"`points` has an infinite value \(inf\) at position 1"):
+    with pytest.raises(
+        StudyInputError, match=r"`points` has an infinite value \(inf\) at position 1"
+    ):
         evaluate([1.0, np.inf], center=0, sigma=1)
     with pytest.raises(StudyInputError, match=r"`points` must be one-dimensional"):
         evaluate([[1.0, 2.0]], center=0, sigma=1)
@@ -546,11 +571,21 @@ def rules_strategy(draw):
         elif rid in ("zone_a", "zone_b"):
             window = draw(st.integers(1, 6) | st.integers(15, 20))  # short and long windows
             count = draw(st.integers(1, window))
-            made.append(Rule(rid, parameters={"count": count, "window": window, "sigmas": draw(SIGMAS)}, enabled=enabled))
+            made.append(
+                Rule(
+                    rid,
+                    parameters={"count": count, "window": window, "sigmas": draw(SIGMAS)},
+                    enabled=enabled,
+                )
+            )
         elif rid == "hugging":
             made.append(Rule.hugging(draw(st.integers(2, 10)), draw(SIGMAS), enabled=enabled))
         else:
-            made.append(Rule.mixture(draw(st.integers(2, 8)), draw(SIGMAS), draw(st.booleans()), enabled=enabled))
+            made.append(
+                Rule.mixture(
+                    draw(st.integers(2, 8)), draw(SIGMAS), draw(st.booleans()), enabled=enabled
+                )
+            )
     return tuple(made)
 
 
@@ -585,7 +620,9 @@ def series(draw, max_len=80):
 
 
 @settings(max_examples=150, deadline=None)
-@given(x=series(), rules=rules_strategy(), center=st.integers(-2, 2), sigma=st.sampled_from([1.0, 2.0]))
+@given(
+    x=series(), rules=rules_strategy(), center=st.integers(-2, 2), sigma=st.sampled_from([1.0, 2.0])
+)
 def test_matches_reference_scalar_levels(x, rules, center, sigma):
     got = _summary(evaluate(x, center=center, sigma=sigma, rules=rules))
     assert got == reference_evaluate(x, center=center, sigma=sigma, rules=rules)
@@ -628,12 +665,22 @@ def test_invariant_to_shift_and_positive_scale(x, rules, center, shift, power):
     # integer b keep the arithmetic exact, so boundary cases stay on their boundary.
     a = 2.0**power
     before = evaluate(x, center=center, sigma=2.0, rules=rules)
-    after = evaluate([a * v + shift for v in x], center=a * center + shift, sigma=a * 2.0, rules=rules)
+    after = evaluate(
+        [a * v + shift for v in x], center=a * center + shift, sigma=a * 2.0, rules=rules
+    )
     assert _summary(after) == _summary(before)
 
 
-_FLIP = {"above": "below", "below": "above", "increasing": "decreasing", "decreasing": "increasing",
-         "upper": "lower", "lower": "upper", "+": "-", "-": "+"}
+_FLIP = {
+    "above": "below",
+    "below": "above",
+    "increasing": "decreasing",
+    "decreasing": "increasing",
+    "upper": "lower",
+    "lower": "upper",
+    "+": "-",
+    "-": "+",
+}
 
 
 def _flip_words(text):

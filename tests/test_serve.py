@@ -70,9 +70,14 @@ def kill_group(pid: int) -> None:
 def serving(*args, preexec_fn=None):
     """Start `studykit serve --no-browser ARGS` in its own process group; yield
     (process, printed address, printed lines, Voila server pid). Always killed at the end."""
-    proc = subprocess.Popen([sys.executable, "-m", "studykit", "serve", "--no-browser", *args],
-                            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
-                            start_new_session=preexec_fn is None, preexec_fn=preexec_fn)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "studykit", "serve", "--no-browser", *args],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
+        start_new_session=preexec_fn is None,
+        preexec_fn=preexec_fn,
+    )
     server_pids = []
     try:
         lines = []
@@ -103,12 +108,14 @@ def serving(*args, preexec_fn=None):
 def start_in_new_session_with(*, ignore=(), block=()):
     """A preexec_fn: new session, then the given signals ignored and/or blocked (inherited
     across exec, as a careless parent would leave them)."""
+
     def prepare():
         os.setsid()
         for sig in ignore:
             signal.signal(sig, signal.SIG_IGN)
         if block:
             signal.pthread_sigmask(signal.SIG_BLOCK, set(block))
+
     return prepare
 
 
@@ -191,8 +198,10 @@ def test_new_study_file_is_offered_not_assumed(tmp_path, capsys, monkeypatch):
     assert main(["serve", "--no-browser", str(tmp_path / "new.study")]) == 2
     assert "add --new to create it in the browser" in capsys.readouterr().err
     # a name that is no study file, a folder that does not exist
-    for bad, msg in ((tmp_path / "new.csv", "ending in .study"),
-                     (tmp_path / "no" / "x.study", "does not either")):
+    for bad, msg in (
+        (tmp_path / "new.csv", "ending in .study"),
+        (tmp_path / "no" / "x.study", "does not either"),
+    ):
         assert main(["serve", "--no-browser", "--new", str(bad)]) == 2
         assert msg in capsys.readouterr().err
     # --new: accepted (the page creates it); nothing is written yet
@@ -222,8 +231,10 @@ def test_loopback_serves_without_token_and_stops_on_sigint():
     assert port_closed(port)
 
 
-@pytest.mark.skipif(os.environ.get("STUDYKIT_NO_WIDE_BIND") == "1",
-                    reason="binding 0.0.0.0 disabled on this machine")
+@pytest.mark.skipif(
+    os.environ.get("STUDYKIT_NO_WIDE_BIND") == "1",
+    reason="binding 0.0.0.0 disabled on this machine",
+)
 def test_wide_host_requires_the_token_and_stops_on_sigterm():
     port = free_port("0.0.0.0")
     with serving("--host", "0.0.0.0", "--port", str(port)) as (proc, url, lines, server):
@@ -236,7 +247,9 @@ def test_wide_host_requires_the_token_and_stops_on_sigterm():
         assert status(base + "api/kernels") in (302, 401, 403)
         assert status(base + "?token=wrong" + token[:4]) in (302, 401, 403)
         assert status(f"{base}?token={token}") == 200
-        assert any("share it only with the team" in line for line in lines + [proc.stdout.readline()])
+        assert any(
+            "share it only with the team" in line for line in lines + [proc.stdout.readline()]
+        )
         proc.send_signal(signal.SIGTERM)
         assert proc.wait(timeout=60) == 0
         assert gone(server, 30)
@@ -248,9 +261,9 @@ def test_stops_on_ctrl_c_when_started_with_sigint_ignored():
     # e.g. started from a shell script as a background job, or by `nohup`: Python then
     # installs no KeyboardInterrupt handler unless serve restores it
     port = free_port()
-    with serving("--port", str(port),
-                 preexec_fn=start_in_new_session_with(ignore=[signal.SIGINT])) as (proc, url, _,
-                                                                                  server):
+    with serving(
+        "--port", str(port), preexec_fn=start_in_new_session_with(ignore=[signal.SIGINT])
+    ) as (proc, url, _, server):
         assert status(url) == 200
         proc.send_signal(signal.SIGINT)
         assert proc.wait(timeout=60) == 0
@@ -261,8 +274,9 @@ def test_stops_on_ctrl_c_when_started_with_sigint_ignored():
 @pytest.mark.slow
 def test_stops_on_sigterm_and_sigint_when_started_with_them_blocked():
     port = free_port()
-    prepare = start_in_new_session_with(ignore=[signal.SIGINT, signal.SIGTERM],
-                                        block=[signal.SIGINT, signal.SIGTERM])
+    prepare = start_in_new_session_with(
+        ignore=[signal.SIGINT, signal.SIGTERM], block=[signal.SIGINT, signal.SIGTERM]
+    )
     with serving("--port", str(port), preexec_fn=prepare) as (proc, url, _, server):
         assert status(url) == 200
         proc.send_signal(signal.SIGTERM)
@@ -296,11 +310,17 @@ def test_bad_kernel_idle_minutes_exits_2(value, capsys):
 def test_bad_allow_host_exits_2(capsys):
     assert main(["serve", "--no-browser", "--allow-host", "http://review.example:8866"]) == 2
     assert "`--allow-host` ('http://review.example:8866') is not a server name" in (
-        capsys.readouterr().err)
+        capsys.readouterr().err
+    )
 
 
 def test_server_command_carries_options():
-    cmd = server_command(__import__("pathlib").Path("wb.ipynb"), host="127.0.0.1", port=9000,
-                         allow_hosts=["review.example", "10.0.0.7"], kernel_idle_minutes=30)
+    cmd = server_command(
+        __import__("pathlib").Path("wb.ipynb"),
+        host="127.0.0.1",
+        port=9000,
+        allow_hosts=["review.example", "10.0.0.7"],
+        kernel_idle_minutes=30,
+    )
     assert "--StudykitVoila.allow_hosts=review.example,10.0.0.7" in cmd
     assert "--StudykitVoila.kernel_idle_minutes=30" in cmd

@@ -37,10 +37,17 @@ def request(uri="/", **headers) -> HTTPServerRequest:
     return HTTPServerRequest(start_line=RequestStartLine("GET", uri, "HTTP/1.1"), headers=h)
 
 
-@pytest.mark.parametrize("header, name", [
-    ("127.0.0.1:8866", "127.0.0.1"), ("LOCALHOST:8866", "localhost"), ("[::1]:8866", "::1"),
-    ("::1", "::1"), ("example.org.:80", "example.org"), ("evil.example", "evil.example"),
-])
+@pytest.mark.parametrize(
+    "header, name",
+    [
+        ("127.0.0.1:8866", "127.0.0.1"),
+        ("LOCALHOST:8866", "localhost"),
+        ("[::1]:8866", "::1"),
+        ("::1", "::1"),
+        ("example.org.:80", "example.org"),
+        ("evil.example", "evil.example"),
+    ],
+)
 def test_host_name_drops_port_brackets_case_and_trailing_dot(header, name):
     assert host_name(header) == name
 
@@ -49,8 +56,14 @@ def test_loopback_bind_answers_only_loopback_names():
     p = HostPolicy("127.0.0.1")
     for ok in ("127.0.0.1:8866", "localhost:8866", "[::1]:8866", "LocalHost"):
         assert p.host_allowed(ok), ok
-    for bad in ("evil.example:8866", "127.0.0.1.evil.example", "localhost.evil.example",
-                "10.0.0.7:8866", "", None):
+    for bad in (
+        "evil.example:8866",
+        "127.0.0.1.evil.example",
+        "localhost.evil.example",
+        "10.0.0.7:8866",
+        "",
+        None,
+    ):
         assert not p.host_allowed(bad), bad
 
 
@@ -93,8 +106,15 @@ def test_redact_hides_the_token_and_any_token_parameter():
 
 def test_redacting_filter_rewrites_formatted_records_and_tracebacks():
     token = "tok-123456789"
-    record = logging.LogRecord("tornado.general", logging.WARNING, __file__, 1,
-                               "%d %s: %s", (403, f"POST /x?token={token}", "refused"), None)
+    record = logging.LogRecord(
+        "tornado.general",
+        logging.WARNING,
+        __file__,
+        1,
+        "%d %s: %s",
+        (403, f"POST /x?token={token}", "refused"),
+        None,
+    )
     try:
         raise ValueError(f"bad {token}")
     except ValueError:

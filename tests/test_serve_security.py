@@ -19,7 +19,9 @@ import pytest
 
 from studykit.app.server import BOKEHJS_ROUTE, kernel_pids, server_process
 
-NOTEBOOK = __import__("pathlib").Path(__file__).resolve().parents[1] / "notebooks" / "workbook.ipynb"
+NOTEBOOK = (
+    __import__("pathlib").Path(__file__).resolve().parents[1] / "notebooks" / "workbook.ipynb"
+)
 PREHEAT = "--VoilaConfiguration.preheat_kernel=True"
 IDLE_SECONDS = 15  # --StudykitVoila.kernel_idle_minutes=0.25 below
 EVIL = "evil.example"
@@ -49,9 +51,13 @@ def ws_handshake(url, path, *, host=None, origin=None) -> int:
     port = port_of(url)
     conn = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
     try:
-        headers = {"Host": host or f"127.0.0.1:{port}", "Upgrade": "websocket",
-                   "Connection": "Upgrade", "Sec-WebSocket-Version": "13",
-                   "Sec-WebSocket-Key": base64.b64encode(os.urandom(16)).decode()}
+        headers = {
+            "Host": host or f"127.0.0.1:{port}",
+            "Upgrade": "websocket",
+            "Connection": "Upgrade",
+            "Sec-WebSocket-Version": "13",
+            "Sec-WebSocket-Key": base64.b64encode(os.urandom(16)).decode(),
+        }
         if origin:
             headers["Origin"] = origin
         conn.request("GET", path, headers=headers)
@@ -85,22 +91,38 @@ def wait_until(predicate, timeout: float, step: float = 0.5) -> bool:
 @pytest.fixture(scope="module")
 def loopback(tmp_path_factory):
     log_path = tmp_path_factory.mktemp("serve") / "server.log"
-    with open(log_path, "w") as log, server_process(
-            NOTEBOOK, env={"STUDYKIT_STUDY": ""}, log=log, timeout=180,
-            extra_args=(PREHEAT, f"--StudykitVoila.kernel_idle_minutes={IDLE_SECONDS / 60:g}",
-                        "--StudykitVoila.allow_hosts=review.example,10.0.0.7")
-    ) as server:
+    with (
+        open(log_path, "w") as log,
+        server_process(
+            NOTEBOOK,
+            env={"STUDYKIT_STUDY": ""},
+            log=log,
+            timeout=180,
+            extra_args=(
+                PREHEAT,
+                f"--StudykitVoila.kernel_idle_minutes={IDLE_SECONDS / 60:g}",
+                "--StudykitVoila.allow_hosts=review.example,10.0.0.7",
+            ),
+        ) as server,
+    ):
         yield server, log_path
 
 
 def test_foreign_host_is_refused_on_every_route(loopback):
     server, _ = loopback
     kernel, _ = open_page(server.url)
-    routes = [("GET", "/"), ("GET", "/?token=x"), ("GET", f"{BOKEHJS_ROUTE}bokeh.min.js"),
-              ("GET", "/voila/static/voila.js"), ("GET", f"/api/kernels/{kernel}"),
-              ("POST", f"/voila/api/shutdown/{kernel}"), ("GET", "/login"),
-              ("GET", "/voila/files/workbook.ipynb"), ("DELETE", f"/api/kernels/{kernel}"),
-              ("GET", "/no/such/route")]
+    routes = [
+        ("GET", "/"),
+        ("GET", "/?token=x"),
+        ("GET", f"{BOKEHJS_ROUTE}bokeh.min.js"),
+        ("GET", "/voila/static/voila.js"),
+        ("GET", f"/api/kernels/{kernel}"),
+        ("POST", f"/voila/api/shutdown/{kernel}"),
+        ("GET", "/login"),
+        ("GET", "/voila/files/workbook.ipynb"),
+        ("DELETE", f"/api/kernels/{kernel}"),
+        ("GET", "/no/such/route"),
+    ]
     for method, path in routes:
         status, body, _ = raw(server.url, method, path, host=f"{EVIL}:{port_of(server.url)}")
         assert status == 403, (method, path, status)
@@ -110,8 +132,15 @@ def test_foreign_host_is_refused_on_every_route(loopback):
         assert "is not one of this server's names" not in body, (method, path)
     assert raw(server.url, "GET", f"{BOKEHJS_ROUTE}bokeh.min.js")[0] == 200
     for name in ("127.0.0.1", "localhost", "[::1]", "review.example", "10.0.0.7"):  # + allowed
-        assert raw(server.url, "GET", f"{BOKEHJS_ROUTE}bokeh.min.js",
-                   host=f"{name}:{port_of(server.url)}")[0] == 200, name
+        assert (
+            raw(
+                server.url,
+                "GET",
+                f"{BOKEHJS_ROUTE}bokeh.min.js",
+                host=f"{name}:{port_of(server.url)}",
+            )[0]
+            == 200
+        ), name
     for name in ("review.example.evil.example", "10.0.0.8", "192.168.1.20"):  # others are not
         assert raw(server.url, "GET", "/", host=f"{name}:{port_of(server.url)}")[0] == 403, name
     assert kernel in kernel_pids(server.pid)  # nothing above shut the kernel down
@@ -123,8 +152,9 @@ def test_kernel_websocket_refuses_foreign_host_and_origin(loopback):
     kernel, _ = open_page(server.url)
     path = f"/api/kernels/{kernel}/channels?session_id=probe"
     # DNS rebinding: the browser sends the other site's name as Host and Origin
-    assert ws_handshake(server.url, path, host=f"{EVIL}:{port}",
-                        origin=f"http://{EVIL}:{port}") == 403
+    assert (
+        ws_handshake(server.url, path, host=f"{EVIL}:{port}", origin=f"http://{EVIL}:{port}") == 403
+    )
     # a page of another site talking to the real address
     assert ws_handshake(server.url, path, origin=f"http://{EVIL}") == 403
     assert ws_handshake(server.url, path, origin=f"http://{EVIL}:{port}") == 403
@@ -144,15 +174,30 @@ def test_page_close_shuts_its_kernel_down_with_the_xsrf_check_kept(loopback):
     path = f"/voila/api/shutdown/{kernel}"
     origin = {"Origin": server.url.rstrip("/")}
     # without the XSRF value (a forged cross-site beacon could not read the cookie) -> refused
-    status, _, _ = raw(server.url, "POST", path, headers={**origin, "Cookie": f"_xsrf={xsrf}"},
-                       body="")
+    status, _, _ = raw(
+        server.url, "POST", path, headers={**origin, "Cookie": f"_xsrf={xsrf}"}, body=""
+    )
     assert status == 403 and kernel in kernel_pids(server.pid)
-    status, _, _ = raw(server.url, "POST", path, headers={
-        **origin, "Content-Type": "application/x-www-form-urlencoded"}, body=f"_xsrf={xsrf}")
+    status, _, _ = raw(
+        server.url,
+        "POST",
+        path,
+        headers={**origin, "Content-Type": "application/x-www-form-urlencoded"},
+        body=f"_xsrf={xsrf}",
+    )
     assert status == 403 and kernel in kernel_pids(server.pid)  # value without the cookie
     # what Voila's page sends on close: the cookie and the same value in the form
-    status, _, _ = raw(server.url, "POST", path, body=f"_xsrf={xsrf}", headers={
-        **origin, "Cookie": f"_xsrf={xsrf}", "Content-Type": "application/x-www-form-urlencoded"})
+    status, _, _ = raw(
+        server.url,
+        "POST",
+        path,
+        body=f"_xsrf={xsrf}",
+        headers={
+            **origin,
+            "Cookie": f"_xsrf={xsrf}",
+            "Content-Type": "application/x-www-form-urlencoded",
+        },
+    )
     assert status == 204
     assert wait_until(lambda: kernel not in kernel_pids(server.pid), 30)
 
@@ -186,9 +231,12 @@ def test_a_connected_kernel_is_never_culled(loopback):
     unconnected, _ = open_page(server.url)
 
     async def hold_open():
-        ws = await websocket_connect(HTTPRequest(
-            f"ws://127.0.0.1:{port}/api/kernels/{connected}/channels?session_id=held",
-            headers={"Origin": f"http://127.0.0.1:{port}"}))
+        ws = await websocket_connect(
+            HTTPRequest(
+                f"ws://127.0.0.1:{port}/api/kernels/{connected}/channels?session_id=held",
+                headers={"Origin": f"http://127.0.0.1:{port}"},
+            )
+        )
         try:
             gone = False
             deadline = time.monotonic() + IDLE_SECONDS + 90
@@ -212,9 +260,15 @@ def test_a_connected_kernel_is_never_culled(loopback):
 def with_token(tmp_path_factory):
     token = "Tq8-" + base64.urlsafe_b64encode(os.urandom(18)).decode().rstrip("=")
     log_path = tmp_path_factory.mktemp("serve-token") / "server.log"
-    with open(log_path, "w") as log, server_process(
-            NOTEBOOK, env={"STUDYKIT_STUDY": "", "STUDYKIT_SERVE_TOKEN": token}, log=log,
-            timeout=180) as server:
+    with (
+        open(log_path, "w") as log,
+        server_process(
+            NOTEBOOK,
+            env={"STUDYKIT_STUDY": "", "STUDYKIT_SERVE_TOKEN": token},
+            log=log,
+            timeout=180,
+        ) as server,
+    ):
         yield server, token, log_path
 
 
@@ -239,8 +293,16 @@ def test_token_never_reaches_the_log_or_a_kernel(with_token):
     statuses = []
     for method, path, headers in failures:
         host = headers.pop("Host", None)
-        statuses.append(raw(server.url, method, path, host=host, headers=headers,
-                            body="" if method == "POST" else None)[0])
+        statuses.append(
+            raw(
+                server.url,
+                method,
+                path,
+                host=host,
+                headers=headers,
+                body="" if method == "POST" else None,
+            )[0]
+        )
     assert statuses[0] in (302, 401, 403) and statuses[1] == 403 and statuses[2] == 403
     assert all(s >= 300 for s in statuses[:6]), statuses
     pids = kernel_pids(server.pid)

@@ -33,17 +33,23 @@ def signed(tmp_path_factory):
     logging.getLogger("pyhanko").setLevel(logging.CRITICAL)
     tmp = tmp_path_factory.mktemp("sign")
     study = tmp / "s.study"
-    StudyFile.create(study, data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
-                     filename="pump_housing_pilot.csv", title="Signing test",
-                     characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97,
-                                                     usl=12.03)], who="tester")
+    StudyFile.create(
+        study,
+        data=(DEMO / "pump_housing_pilot.csv").read_bytes(),
+        filename="pump_housing_pilot.csv",
+        title="Signing test",
+        characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03)],
+        who="tester",
+    )
     build_report(study, tmp / "r.pdf")
     prep = make_demo_certificate(tmp / "keys", name="Pat Prep", passphrase=PASS)
     appr = make_demo_certificate(tmp / "keys", name="Avery Approver", passphrase=PASS)
-    s1 = sign_report(tmp / "r.pdf", tmp / "s1.pdf", prep.p12_path, PASS, role="prepared",
-                     name="Pat Prep")
-    s2 = sign_report(tmp / "s1.pdf", tmp / "s2.pdf", appr.p12_path, PASS, role="approved",
-                     name="Avery Approver")
+    s1 = sign_report(
+        tmp / "r.pdf", tmp / "s1.pdf", prep.p12_path, PASS, role="prepared", name="Pat Prep"
+    )
+    s2 = sign_report(
+        tmp / "s1.pdf", tmp / "s2.pdf", appr.p12_path, PASS, role="approved", name="Avery Approver"
+    )
     return tmp, study, prep, appr, s1, s2
 
 
@@ -52,8 +58,10 @@ def _statuses(pdf: Path, roots):
     with open(pdf, "rb") as f:
         # pyHanko runs its own event loop; outside_event_loop keeps that working when a loop
         # already runs in this thread (the browser tests leave one behind)
-        return [(s.field_name, outside_event_loop(validate_pdf_signature, s, vc))
-                for s in PdfFileReader(f).embedded_signatures]
+        return [
+            (s.field_name, outside_event_loop(validate_pdf_signature, s, vc))
+            for s in PdfFileReader(f).embedded_signatures
+        ]
 
 
 def test_demo_certificate_is_marked_demo(signed):
@@ -95,13 +103,20 @@ def test_untrusted_without_root(signed):
 def test_signing_errors_are_clear(signed, tmp_path):
     tmp, _, prep, _, _, _ = signed
     with pytest.raises(StudyInputError, match="wrong passphrase"):
-        sign_report(tmp / "r.pdf", tmp_path / "x.pdf", prep.p12_path, "not-it", role="prepared",
-                    name="X")
+        sign_report(
+            tmp / "r.pdf", tmp_path / "x.pdf", prep.p12_path, "not-it", role="prepared", name="X"
+        )
     with pytest.raises(StudyInputError, match="`role` must not be empty"):
         sign_report(tmp / "r.pdf", tmp_path / "x.pdf", prep.p12_path, PASS, role=" ", name="X")
     with pytest.raises(StudyInputError, match="does not exist"):
-        sign_report(tmp / "r.pdf", tmp_path / "x.pdf", tmp_path / "none.p12", PASS,
-                    role="prepared", name="X")
+        sign_report(
+            tmp / "r.pdf",
+            tmp_path / "x.pdf",
+            tmp_path / "none.p12",
+            PASS,
+            role="prepared",
+            name="X",
+        )
     with pytest.raises(StudyInputError, match="`passphrase` must not be empty"):
         make_demo_certificate(tmp_path, passphrase="")
 
@@ -110,32 +125,106 @@ def test_cli_keygen_report_sign(signed, tmp_path, monkeypatch, capsys):
     _, study, _, _, _, _ = signed
     shutil.copy(study, tmp_path / "s.study")
     monkeypatch.setenv("SK_TEST_PW", PASS)
-    assert main(["keygen", "--demo", "-o", str(tmp_path / "k"), "--name", "Rita Review",
-                 "--passphrase-env", "SK_TEST_PW"]) == 0
+    assert (
+        main(
+            [
+                "keygen",
+                "--demo",
+                "-o",
+                str(tmp_path / "k"),
+                "--name",
+                "Rita Review",
+                "--passphrase-env",
+                "SK_TEST_PW",
+            ]
+        )
+        == 0
+    )
     assert "DEMO certificate" in capsys.readouterr().out
     p12 = tmp_path / "k" / "Rita_Review.p12"
-    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",
-                 str(p12), "--role", "reviewed", "--passphrase-env", "SK_TEST_PW",
-                 "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "report",
+                str(tmp_path / "s.study"),
+                "-o",
+                str(tmp_path / "r.pdf"),
+                "--sign",
+                str(p12),
+                "--role",
+                "reviewed",
+                "--passphrase-env",
+                "SK_TEST_PW",
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     out = capsys.readouterr().out
     assert "Signature1" in out and "reviewed: Rita Review" in out
     # a second signer on the same study state adds to the signed PDF (never drops the first)
-    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",
-                 str(p12), "--role", "approved", "--name", "Rita Review", "--passphrase-env",
-                 "SK_TEST_PW", "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "report",
+                str(tmp_path / "s.study"),
+                "-o",
+                str(tmp_path / "r.pdf"),
+                "--sign",
+                str(p12),
+                "--role",
+                "approved",
+                "--name",
+                "Rita Review",
+                "--passphrase-env",
+                "SK_TEST_PW",
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     assert "Signature2" in capsys.readouterr().out
     with open(tmp_path / "r.pdf", "rb") as f:
         assert len(PdfFileReader(f).embedded_signatures) == 2
-    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"),
-                 "--quiet"]) == 2
+    assert (
+        main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--quiet"]) == 2
+    )
     assert "never overwritten" in capsys.readouterr().err
     # after a change to the study, the signed PDF is not overwritten
     StudyFile(tmp_path / "s.study").exclude("bore_diameter", "4", reason="late", who="t")
-    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r.pdf"), "--sign",
-                 str(p12), "--passphrase-env", "SK_TEST_PW", "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "report",
+                str(tmp_path / "s.study"),
+                "-o",
+                str(tmp_path / "r.pdf"),
+                "--sign",
+                str(p12),
+                "--passphrase-env",
+                "SK_TEST_PW",
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     assert "never overwritten" in capsys.readouterr().err
     monkeypatch.delenv("SK_TEST_PW")
-    assert main(["report", str(tmp_path / "s.study"), "-o", str(tmp_path / "r2.pdf"), "--sign",
-                 str(p12), "--passphrase-env", "SK_TEST_PW", "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "report",
+                str(tmp_path / "s.study"),
+                "-o",
+                str(tmp_path / "r2.pdf"),
+                "--sign",
+                str(p12),
+                "--passphrase-env",
+                "SK_TEST_PW",
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     assert "SK_TEST_PW" in capsys.readouterr().err
     assert not (tmp_path / "r2.pdf").exists()  # refused before any work

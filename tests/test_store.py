@@ -27,9 +27,17 @@ CHARS = [
 @pytest.fixture
 def study_path(tmp_path):
     path = tmp_path / "pilot.study"
-    StudyFile.create(path, data=DATA, filename="pilot.csv", title="Pilot lot", part="BW-2207",
-                     supplier="Example supplier", characteristics=CHARS,
-                     criteria={"bore": Criteria(index="cpk", threshold=1.33)}, who="A. Ruiz")
+    StudyFile.create(
+        path,
+        data=DATA,
+        filename="pilot.csv",
+        title="Pilot lot",
+        part="BW-2207",
+        supplier="Example supplier",
+        characteristics=CHARS,
+        criteria={"bore": Criteria(index="cpk", threshold=1.33)},
+        who="A. Ruiz",
+    )
     return path
 
 
@@ -37,11 +45,22 @@ def test_round_trip(study_path):
     sf = StudyFile(study_path)
     assert sf.schema_version == SCHEMA_VERSION == len(MIGRATIONS)
     sf.exclude("bore", 2, reason="setup part", who="A. Ruiz")
-    sf.append_decision(Decision("runout", "set_model", reason="bounded at zero, skewed",
-                                who="A. Ruiz", payload={"model": "lognormal"}))
+    sf.append_decision(
+        Decision(
+            "runout",
+            "set_model",
+            reason="bounded at zero, skewed",
+            who="A. Ruiz",
+            payload={"model": "lognormal"},
+        )
+    )
     sf.update_spec("runout", usl=0.06, who="B. Chen", reason="drawing rev C")
-    sf.update_criteria("runout", Criteria(index="ppk", threshold=1.33), who="B. Chen",
-                       reason="customer requirement")
+    sf.update_criteria(
+        "runout",
+        Criteria(index="ppk", threshold=1.33),
+        who="B. Chen",
+        reason="customer requirement",
+    )
     sf.add_comment("Gauge study done on 3 March.", who="B. Chen", characteristic="bore")
     study = StudyFile(study_path).load()
     assert study.title == "Pilot lot" and study.part == "BW-2207"
@@ -66,8 +85,13 @@ def test_create_refuses_existing_file_and_bad_specs(study_path, tmp_path):
     with pytest.raises(StudyFileError, match="already exists"):
         StudyFile.create(study_path, data=DATA, filename="x.csv", title="t", characteristics=CHARS)
     with pytest.raises(StudyInputError, match=r"`usl` \(1\) must be greater than `lsl` \(2\)"):
-        StudyFile.create(tmp_path / "new.study", data=DATA, filename="x.csv", title="t",
-                         characteristics=[Characteristic("x", lsl=2, usl=1)])
+        StudyFile.create(
+            tmp_path / "new.study",
+            data=DATA,
+            filename="x.csv",
+            title="t",
+            characteristics=[Characteristic("x", lsl=2, usl=1)],
+        )
     assert not (tmp_path / "new.study").exists()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["pilot.study"]  # no leftovers
 
@@ -93,8 +117,10 @@ def test_newer_schema_refused(study_path):
     conn.execute("PRAGMA user_version = 9")
     conn.commit()
     conn.close()
-    expected = (rf"made by a newer studykit \(schema 9, this one reads up to {SCHEMA_VERSION}\): "
-                "update studykit")
+    expected = (
+        rf"made by a newer studykit \(schema 9, this one reads up to {SCHEMA_VERSION}\): "
+        "update studykit"
+    )
     with pytest.raises(StudyFileError, match=expected):
         StudyFile(study_path)
 
@@ -121,9 +147,13 @@ def test_log_tables_cannot_be_updated_or_deleted(study_path, table):
     sf.add_comment("c", who="A")
     sf.attach_result("gauge_rr", "bore", {"ndc": 7}, who="A")
     conn = sqlite3.connect(study_path)
-    with pytest.raises(sqlite3.IntegrityError, match=f"{table} is append-only: entries cannot be changed"):
+    with pytest.raises(
+        sqlite3.IntegrityError, match=f"{table} is append-only: entries cannot be changed"
+    ):
         conn.execute(f"UPDATE {table} SET id = id + 100")
-    with pytest.raises(sqlite3.IntegrityError, match=f"{table} is append-only: entries cannot be deleted"):
+    with pytest.raises(
+        sqlite3.IntegrityError, match=f"{table} is append-only: entries cannot be deleted"
+    ):
         conn.execute(f"DELETE FROM {table}")
     conn.close()
     assert len(sf.audit_log()) == 5
@@ -155,8 +185,14 @@ def test_approved_study_is_locked_until_override(study_path):
     sf.add_comment("Released to production.", who="M. Brandt")
     sf.append_decision(Decision(None, "note", who="M. Brandt", reason="PPAP submitted"))
     assert sf.load().is_locked and len(sf.load().decisions) == n_before + 1
-    sf.update_spec("bore", usl=12.05, who="A. Ruiz", reason="drawing rev C",
-                   override_lock=True, override_reason="customer released drawing rev C")
+    sf.update_spec(
+        "bore",
+        usl=12.05,
+        who="A. Ruiz",
+        reason="drawing rev C",
+        override_lock=True,
+        override_reason="customer released drawing rev C",
+    )
     study = sf.load()
     assert not study.is_locked and study.characteristics["bore"].usl == 12.05
     assert len(study.signoffs) == 2  # both sign-offs stay on file ...
@@ -187,16 +223,23 @@ def _make_v1_file(path):
     conn.execute("PRAGMA journal_mode = WAL")
     conn.execute("BEGIN")
     _apply_migrations(conn, 0, 1)
-    conn.executemany("INSERT INTO meta VALUES (?, ?)", [("title", "Old study"), ("part", "P1"),
-                                                        ("supplier", "S")])
-    conn.execute("INSERT INTO data_files (filename, sha256, size, content, added_at, added_by) "
-                 "VALUES (?, ?, ?, ?, ?, ?)", ("old.csv", hashlib.sha256(DATA).hexdigest(),
-                                               len(DATA), DATA, "2025-01-01T00:00:00Z", "A"))
-    conn.execute("INSERT INTO characteristics VALUES (0, 'bore', ?, NULL)",
-                 (json.dumps(CHARS[0].to_dict()),))
-    conn.execute("INSERT INTO decisions (characteristic, action, subgroup, reason, who, at, "
-                 "automatic, payload_json, recorded_at) VALUES ('bore', 'exclude', '2', "
-                 "'setup', 'A', '2025-01-01T00:00:00Z', 0, '{}', '2025-01-01T00:00:00Z')")
+    conn.executemany(
+        "INSERT INTO meta VALUES (?, ?)",
+        [("title", "Old study"), ("part", "P1"), ("supplier", "S")],
+    )
+    conn.execute(
+        "INSERT INTO data_files (filename, sha256, size, content, added_at, added_by) "
+        "VALUES (?, ?, ?, ?, ?, ?)",
+        ("old.csv", hashlib.sha256(DATA).hexdigest(), len(DATA), DATA, "2025-01-01T00:00:00Z", "A"),
+    )
+    conn.execute(
+        "INSERT INTO characteristics VALUES (0, 'bore', ?, NULL)", (json.dumps(CHARS[0].to_dict()),)
+    )
+    conn.execute(
+        "INSERT INTO decisions (characteristic, action, subgroup, reason, who, at, "
+        "automatic, payload_json, recorded_at) VALUES ('bore', 'exclude', '2', "
+        "'setup', 'A', '2025-01-01T00:00:00Z', 0, '{}', '2025-01-01T00:00:00Z')"
+    )
     conn.execute("COMMIT")
     conn.close()
 
@@ -234,8 +277,12 @@ while count < 0 or k < count:
 
 
 def _writer(path, tag, count, repo_root):
-    return subprocess.Popen([sys.executable, "-c", _WRITER, str(path), tag, str(count)],
-                            cwd=repo_root, stdout=subprocess.PIPE, text=True)
+    return subprocess.Popen(
+        [sys.executable, "-c", _WRITER, str(path), tag, str(count)],
+        cwd=repo_root,
+        stdout=subprocess.PIPE,
+        text=True,
+    )
 
 
 def test_two_processes_appending_at_once_lose_nothing(study_path, repo_root):
@@ -286,14 +333,16 @@ def test_file_and_memory_agree(study_path):
     for method, args, kw in steps:
         memory = getattr(memory, method)(*args, **kw)
         getattr(sf, method)(*args, **kw)
-    memory = memory.with_spec("runout", usl=0.045, who="B", reason="rev C",
-                              when="2026-03-03T09:03:00Z")
+    memory = memory.with_spec(
+        "runout", usl=0.045, who="B", reason="rev C", when="2026-03-03T09:03:00Z"
+    )
     sf.update_spec("runout", usl=0.045, who="B", reason="rev C")
     on_file = sf.load()
     assert on_file.content_digest() == memory.content_digest()
     assert on_file.characteristics == memory.characteristics
-    assert [d.to_dict() | {"when": ""} for d in on_file.decisions] == \
-        [d.to_dict() | {"when": ""} for d in memory.decisions]
+    assert [d.to_dict() | {"when": ""} for d in on_file.decisions] == [
+        d.to_dict() | {"when": ""} for d in memory.decisions
+    ]
 
 
 _EXCLUDER = r"""
@@ -312,8 +361,12 @@ for k in range(1, 5000):
 
 
 def test_approval_racing_a_writer_covers_exactly_what_was_saved(study_path, repo_root):
-    writer = subprocess.Popen([sys.executable, "-c", _EXCLUDER, str(study_path)], cwd=repo_root,
-                              stdout=subprocess.PIPE, text=True)
+    writer = subprocess.Popen(
+        [sys.executable, "-c", _EXCLUDER, str(study_path)],
+        cwd=repo_root,
+        stdout=subprocess.PIPE,
+        text=True,
+    )
     first = writer.stdout.readline()  # the writer is under way
     assert first.strip() == "1"
     signed = StudyFile(study_path).add_signoff("M. Brandt", role="approved", decision="approve")
@@ -335,10 +388,14 @@ def test_load_study_shorthand(study_path):
 
 def test_apply_saves_several_changes_atomically(study_path):
     sf = StudyFile(study_path)
-    saved = sf.apply(lambda s: s.exclude("bore", 1, reason="setup", who="A")
-                     .with_spec("runout", usl=0.04, who="A", reason="rev C")
-                     .with_comment("both done", who="A")
-                     .sign("P. Novak", role="reviewed", decision="approve"))
+    saved = sf.apply(
+        lambda s: (
+            s.exclude("bore", 1, reason="setup", who="A")
+            .with_spec("runout", usl=0.04, who="A", reason="rev C")
+            .with_comment("both done", who="A")
+            .sign("P. Novak", role="reviewed", decision="approve")
+        )
+    )
     assert saved == sf.load()
     assert list(saved.excluded_subgroups("bore")) == ["1"]
     assert saved.characteristics["runout"].usl == 0.04
@@ -364,8 +421,11 @@ def test_apply_refuses_rewriting_history_and_hidden_spec_changes(study_path):
     with pytest.raises(StudyFileError, match="rewrote saved decisions"):
         sf.apply(lambda s: dataclasses.replace(s, decisions=()))
     with pytest.raises(StudyFileError, match="without a set_spec/set_criteria decision"):
-        sf.apply(lambda s: dataclasses.replace(
-            s, characteristics=[s.characteristics["bore"], Characteristic("runout", usl=1.0)]))
+        sf.apply(
+            lambda s: dataclasses.replace(
+                s, characteristics=[s.characteristics["bore"], Characteristic("runout", usl=1.0)]
+            )
+        )
     sf.add_signoff("M. Brandt", role="approved", decision="approve")
     with pytest.raises(StudyFileError, match="locked"):
         sf.apply(lambda s: s.exclude("bore", 2, reason="r", who="A"))
@@ -375,9 +435,14 @@ def test_apply_refuses_rewriting_history_and_hidden_spec_changes(study_path):
 
 
 def test_attach_result_reason_reaches_the_audit_log(tmp_path):
-    sf = StudyFile.create(tmp_path / "r.study", data=b"subgroup,x\n1,1.0\n2,1.2\n",
-                          filename="x.csv", title="r",
-                          characteristics=[Characteristic("x", lsl=0, usl=2)], who="T. Test")
+    sf = StudyFile.create(
+        tmp_path / "r.study",
+        data=b"subgroup,x\n1,1.0\n2,1.2\n",
+        filename="x.csv",
+        title="r",
+        characteristics=[Characteristic("x", lsl=0, usl=2)],
+        who="T. Test",
+    )
     sf.attach_result("gauge_rr", "x", {"ok": True}, who="T. Test", reason="gauge GR-07")
     entry = sf.audit_log()[-1]
     assert entry.what.startswith("attach gauge R&R study") and entry.why == "gauge GR-07"

@@ -102,8 +102,7 @@ def test_tests_refuse_a_single_stream_and_tiny_streams():
 
 def test_group_chart_by_hand():
     # two subgroups, three streams, two readings per stream and subgroup
-    values = [1.0, 1.2, 2.0, 2.4, 0.0, 0.2,
-              1.1, 1.3, 2.1, 2.2, 0.5, 0.3]
+    values = [1.0, 1.2, 2.0, 2.4, 0.0, 0.2, 1.1, 1.3, 2.1, 2.2, 0.5, 0.3]
     subgroups = ["1"] * 6 + ["2"] * 6
     streams = ["a", "a", "b", "b", "c", "c"] * 2
     g = group_chart(values, subgroups, streams)
@@ -157,8 +156,9 @@ def _cavity_data(offset=0.012, seed=1, shots=3, subgroups=25):
                 vals.append(6.0 + off + rng.normal(0, 0.004))
                 sgs.append(str(k + 1))
                 sts.append(cav)
-    return CharacteristicData("hub", "mm", np.array(vals), subgroups=np.array(sgs),
-                              streams=np.array(sts))
+    return CharacteristicData(
+        "hub", "mm", np.array(vals), subgroups=np.array(sgs), streams=np.array(sts)
+    )
 
 
 def test_analysis_of_streams_names_the_off_centre_stream():
@@ -174,8 +174,10 @@ def test_analysis_of_streams_names_the_off_centre_stream():
     assert three.mean == pytest.approx(np.mean(data.values[data.streams == "3"]))
     # the process as a whole is the ordinary analysis of every reading
     whole = analyze_characteristic(
-        CharacteristicData("hub", "mm", data.values, subgroups=data.subgroups), spec,
-        options=AnalysisOptions(phase1="off"))
+        CharacteristicData("hub", "mm", data.values, subgroups=data.subgroups),
+        spec,
+        options=AnalysisOptions(phase1="off"),
+    )
     assert res.capability.ppk == whole.capability.ppk
     assert "stream 3" in res.verdict.text
     assert any(f.code == "streams_differ" for f in res.findings)
@@ -196,13 +198,16 @@ def test_whole_meets_but_one_stream_fails_gives_does_not_meet():
                 vals.append(6.0 + rng.normal(0, sd))
                 sgs.append(str(k + 1))
                 sts.append(cav)
-    data = CharacteristicData("hub", "mm", np.array(vals), subgroups=np.array(sgs),
-                              streams=np.array(sts))
+    data = CharacteristicData(
+        "hub", "mm", np.array(vals), subgroups=np.array(sgs), streams=np.array(sts)
+    )
     spec = Characteristic("hub", lsl=5.96, usl=6.04, target=6.0)
     res = analyze_characteristic(data, spec, options=AnalysisOptions(phase1="off"))
     whole = analyze_characteristic(
-        CharacteristicData("hub", "mm", data.values, subgroups=data.subgroups), spec,
-        options=AnalysisOptions(phase1="off"))
+        CharacteristicData("hub", "mm", data.values, subgroups=data.subgroups),
+        spec,
+        options=AnalysisOptions(phase1="off"),
+    )
     assert whole.verdict.meets is True
     assert res.streams.results["3"].verdict.meets is False
     assert res.streams.spread.differ and res.streams.worst == "3"
@@ -213,9 +218,26 @@ def test_whole_meets_but_one_stream_fails_gives_does_not_meet():
 def test_cli_stream_column_json():
     f = DEMO / "impeller_cavities.csv"
     out = subprocess.run(
-        [sys.executable, "-m", "studykit", "analyze", str(f), "-c", "impeller_hub_bore",
-         "--lsl", "5.97", "--usl", "6.03", "--stream-column", "cavity", "--json"],
-        capture_output=True, text=True, check=True)
+        [
+            sys.executable,
+            "-m",
+            "studykit",
+            "analyze",
+            str(f),
+            "-c",
+            "impeller_hub_bore",
+            "--lsl",
+            "5.97",
+            "--usl",
+            "6.03",
+            "--stream-column",
+            "cavity",
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     d = json.loads(out.stdout)
     st = d["streams"]
     assert st["names"] == ["1", "2", "3", "4"]

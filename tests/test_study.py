@@ -55,7 +55,9 @@ def test_equal_limits_refused():
 
 
 def test_target_outside_limits_names_values():
-    with pytest.raises(SpecError, match=r"`target` \(12\.5\) must lie within .*lsl 11\.97, usl 12\.03"):
+    with pytest.raises(
+        SpecError, match=r"`target` \(12\.5\) must lie within .*lsl 11\.97, usl 12\.03"
+    ):
         Characteristic("bore", lsl=11.97, usl=12.03, target=12.5)
     with pytest.raises(SpecError, match=r"`target` \(-1\) must lie within .*lsl 0, usl none"):
         Characteristic("force", lsl=0, target=-1)
@@ -91,8 +93,18 @@ def test_limit_text_and_bad_values():
 
 
 def test_characteristic_dict_round_trip():
-    c = Characteristic("bore", unit="mm", lsl=1, usl=2, target=1.5, safety_critical=True,
-                       chart="xbar_r", subgroup_size=5, model="normal", description="drawing 4")
+    c = Characteristic(
+        "bore",
+        unit="mm",
+        lsl=1,
+        usl=2,
+        target=1.5,
+        safety_critical=True,
+        chart="xbar_r",
+        subgroup_size=5,
+        model="normal",
+        description="drawing 4",
+    )
     assert Characteristic.from_dict(json.loads(json.dumps(c.to_dict()))) == c
     with pytest.raises(SpecError, match=r"unknown specification field\(s\) \['colour'\]"):
         Characteristic.from_dict({"name": "x", "usl": 1, "colour": "red"})
@@ -110,7 +122,9 @@ def test_criteria_defaults_and_checks():
         Criteria(index="cpx")
     with pytest.raises(SpecError, match=r"`threshold` \(0\) must be a positive number"):
         Criteria(threshold=0)
-    with pytest.raises(SpecError, match=r"`basis` \('median'\) must be one of lower_bound, estimate"):
+    with pytest.raises(
+        SpecError, match=r"`basis` \('median'\) must be one of lower_bound, estimate"
+    ):
         Criteria(basis="median")
     with pytest.raises(SpecError, match=r"`confidence` \(95\) must lie between 0 and 1"):
         Criteria(confidence=95)
@@ -139,8 +153,7 @@ def test_person_exclusion_needs_reason_and_name():
 
 
 def test_automatic_decision_marked_and_attributed():
-    d = Decision("bore", "exclude", subgroup=7.0, automatic=True,
-                 payload={"rule": "beyond limits"})
+    d = Decision("bore", "exclude", subgroup=7.0, automatic=True, payload={"rule": "beyond limits"})
     assert d.automatic and d.who == "studykit" and d.subgroup == "7"
     with pytest.raises(TypeError):
         d.payload["rule"] = "changed"  # read-only payload
@@ -213,8 +226,14 @@ def test_digest_stable_across_processes(repo_root):
     here = make_study().exclude("bore", 2, reason="r", who="A").content_digest()
     for seed in ("1", "2"):
         env = dict(os.environ, PYTHONHASHSEED=seed)
-        out = subprocess.run([sys.executable, "-c", code], cwd=repo_root, env=env,
-                             capture_output=True, text=True, check=True).stdout.strip()
+        out = subprocess.run(
+            [sys.executable, "-c", code],
+            cwd=repo_root,
+            env=env,
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
         assert out == here
 
 
@@ -230,8 +249,11 @@ def test_digest_follows_content_not_commentary():
         s.exclude("bore", 1, reason="setup", who="A"),
         s.with_spec("bore", usl=12.04, who="A", reason="drawing rev C"),
         s.with_criteria("bore", Criteria(index="cpk", threshold=1.33), who="A", reason="PPAP"),
-        s.with_decision(Decision("runout", "set_model", who="A", reason="skewed",
-                                 payload={"model": "lognormal"})),
+        s.with_decision(
+            Decision(
+                "runout", "set_model", who="A", reason="skewed", payload={"model": "lognormal"}
+            )
+        ),
     ]
     digests = {c.content_digest() for c in changed}
     assert d0 not in digests and len(digests) == len(changed)
@@ -245,9 +267,16 @@ def test_spec_change_recorded_and_replayed():
     assert d.payload["old"] == {"usl": 12.03, "target": 12.0}
     assert d.payload["changes"] == {"usl": 12.04, "target": 12.01}
     base = make_study()
-    again = Study.replay(title=base.title, part=base.part, supplier=base.supplier, data=DATA,
-                         data_filename="pilot.csv", characteristics=base.characteristics,
-                         criteria=base.criteria, decisions=s.decisions)
+    again = Study.replay(
+        title=base.title,
+        part=base.part,
+        supplier=base.supplier,
+        data=DATA,
+        data_filename="pilot.csv",
+        characteristics=base.characteristics,
+        criteria=base.criteria,
+        decisions=s.decisions,
+    )
     assert again == s and again.content_digest() == s.content_digest()
     with pytest.raises(SpecError, match=r"`usl` \(11\.9\) must be greater than `lsl` \(11\.97\)"):
         s.with_spec("bore", usl=11.9, target=None, who="A", reason="typo")
@@ -271,8 +300,14 @@ def test_approval_locks_and_override_voids_visibly():
         s.exclude("bore", 1, reason="setup part", who="A", override_lock=True)
     # commentary is allowed on a locked study
     assert s.with_comment("for the record", who="A").is_locked
-    s2 = s.exclude("bore", 1, reason="setup part", who="A", override_lock=True,
-                   override_reason="customer asked to remove setup parts")
+    s2 = s.exclude(
+        "bore",
+        1,
+        reason="setup part",
+        who="A",
+        override_lock=True,
+        override_reason="customer asked to remove setup parts",
+    )
     void, exclusion = s2.decisions[-2:]
     assert void.action == "void_signoff" and void.payload["signoff"] == 0
     assert exclusion.action == "exclude"
@@ -291,8 +326,11 @@ def test_rejection_does_not_lock():
 
 
 def test_to_dict_is_json_safe():
-    s = make_study().exclude("bore", 1, reason="setup", who="A").sign(
-        "M", role="approved", decision="approve")
+    s = (
+        make_study()
+        .exclude("bore", 1, reason="setup", who="A")
+        .sign("M", role="approved", decision="approve")
+    )
     d = json.loads(json.dumps(s.to_dict()))
     assert d["locked"] is True
     assert d["characteristics"][0]["excluded_subgroups"] == ["1"]
@@ -344,8 +382,9 @@ def test_spec_accepted_exactly_when_consistent(lsl, usl, target):
 
 
 @settings(max_examples=50, deadline=None)
-@given(st.lists(st.sampled_from(["bore", "runout"]), min_size=1, max_size=6),
-       st.permutations([0, 1]))
+@given(
+    st.lists(st.sampled_from(["bore", "runout"]), min_size=1, max_size=6), st.permutations([0, 1])
+)
 def test_digest_ignores_characteristic_order(names, order):
     chars = [Characteristic("bore", lsl=11.97, usl=12.03), Characteristic("runout", usl=0.05)]
     a = make_study(characteristics=chars)

@@ -44,8 +44,8 @@ def test_variance_components_against_statsmodels_mixedlm():
     vc = variance_components(x, g)
     fit = sm.mixedlm("y ~ 1", pd.DataFrame({"y": x, "g": g}), groups=g).fit(reml=True)
     # statsmodels MixedLM (REML): equal to the ANOVA estimator for balanced data
-    assert vc.sigma_between ** 2 == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-4)
-    assert vc.sigma_within ** 2 == pytest.approx(float(fit.scale), rel=1e-4)
+    assert vc.sigma_between**2 == pytest.approx(float(fit.cov_re.iloc[0, 0]), rel=1e-4)
+    assert vc.sigma_within**2 == pytest.approx(float(fit.scale), rel=1e-4)
 
 
 def test_unbalanced_n0():
@@ -60,7 +60,7 @@ def test_unbalanced_n0():
     grand = np.mean(x)
     msb = (3 * (2 - grand) ** 2 + 2 * (5.5 - grand) ** 2 + 4 * (9.75 - grand) ** 2) / 2
     assert vc.msb == pytest.approx(msb)
-    assert vc.sigma_between ** 2 == pytest.approx((msb - msw) / vc.n0)
+    assert vc.sigma_between**2 == pytest.approx((msb - msw) / vc.n0)
     assert set(means) == set(g)
 
 
@@ -91,17 +91,20 @@ def test_trend_capability_by_hand():
     d = trend_capability(x, pos, lsl=9.8, usl=10.8)
     slope, intercept = np.polyfit(pos, x, 1)  # least squares (numpy reference)
     resid = x - (intercept + slope * pos)
-    sr = np.sqrt(np.sum(resid ** 2) / (x.size - 2))
+    sr = np.sqrt(np.sum(resid**2) / (x.size - 2))
     lo, hi = intercept + slope * 1, intercept + slope * 10
     assert d["slope"] == pytest.approx(slope) and d["sigma_r"] == pytest.approx(sr)
     assert d["mu_low"] == pytest.approx(lo) and d["mu_high"] == pytest.approx(hi)
-    q = [brentq(lambda v, p=p: float(travel_cdf(v, lo, hi, sr)) - p, 9, 11, xtol=1e-14)
-         for p in (0.00135, 0.99865)]
+    q = [
+        brentq(lambda v, p=p: float(travel_cdf(v, lo, hi, sr)) - p, 9, 11, xtol=1e-14)
+        for p in (0.00135, 0.99865)
+    ]
     mid = (lo + hi) / 2
     # ISO 22514-2 percentile formulas on the 0.135 %, 50 %, 99.865 % points
     assert d["pp"] == pytest.approx(1.0 / (q[1] - q[0]), rel=1e-9)
-    assert d["ppk"] == pytest.approx(min((10.8 - mid) / (q[1] - mid), (mid - 9.8) / (mid - q[0])),
-                                     rel=1e-9)
+    assert d["ppk"] == pytest.approx(
+        min((10.8 - mid) / (q[1] - mid), (mid - 9.8) / (mid - q[0])), rel=1e-9
+    )
     assert d["pp"] >= d["ppk"]
 
 
@@ -116,8 +119,11 @@ def _process(kind, seed=0, k=30, n=5):
             loc += 0.004 * i
         if kind in ("B", "D"):
             sd = 0.01 * (1 + 3 * (i % 2))
-        v = (loc + rng.lognormal(np.log(0.01), 0.6, n) if kind == "A2"
-             else loc + rng.normal(0, sd, n))
+        v = (
+            loc + rng.lognormal(np.log(0.01), 0.6, n)
+            if kind == "A2"
+            else loc + rng.normal(0, sd, n)
+        )
         vals.extend(v)
         labs.extend([str(i + 1)] * n)
     return np.array(vals), np.array(labs)

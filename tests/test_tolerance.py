@@ -30,20 +30,56 @@ from studykit.stats.tolerance import (
 # factors rounded UP in the fourth decimal.
 ISO_F = {
     # (coverage, confidence): {n: k}
-    (0.90, 0.90): {2: 15.5124, 8: 2.7542, 16: 2.2537, 35: 1.9906, 100: 1.8232, 300: 1.7401,
-                   1000: 1.6947},
-    (0.95, 0.90): {3: 6.8233, 9: 3.1323, 15: 2.7196, 30: 2.4166, 90: 2.1862, 150: 2.1276,
-                   400: 2.0569, 1000: 2.0193},
-    (0.99, 0.90): {4: 6.3722, 8: 4.2707, 17: 3.4741, 28: 3.2023, 100: 2.8548, 300: 2.7249,
-                   1000: 2.6538},
-    (0.90, 0.95): {2: 31.0923, 8: 3.1561, 16: 2.4486, 35: 2.0943, 150: 1.8260, 500: 1.7374,
-                   1000: 1.7088},
+    (0.90, 0.90): {
+        2: 15.5124,
+        8: 2.7542,
+        16: 2.2537,
+        35: 1.9906,
+        100: 1.8232,
+        300: 1.7401,
+        1000: 1.6947,
+    },
+    (0.95, 0.90): {
+        3: 6.8233,
+        9: 3.1323,
+        15: 2.7196,
+        30: 2.4166,
+        90: 2.1862,
+        150: 2.1276,
+        400: 2.0569,
+        1000: 2.0193,
+    },
+    (0.99, 0.90): {
+        4: 6.3722,
+        8: 4.2707,
+        17: 3.4741,
+        28: 3.2023,
+        100: 2.8548,
+        300: 2.7249,
+        1000: 2.6538,
+    },
+    (0.90, 0.95): {
+        2: 31.0923,
+        8: 3.1561,
+        16: 2.4486,
+        35: 2.0943,
+        150: 1.8260,
+        500: 1.7374,
+        1000: 1.7088,
+    },
     (0.95, 0.95): {5: 5.0769, 10: 3.3935, 26: 2.6188, 90: 2.2519, 200: 2.1430, 1000: 2.0362},
     (0.99, 0.95): {3: 12.6472, 9: 4.6329, 17: 3.7606, 35: 3.2762, 100: 2.9356, 500: 2.7208},
     (0.90, 0.99): {4: 9.4162, 10: 3.6167, 22: 2.5979, 80: 2.0282, 200: 1.8657, 1000: 1.7359},
     (0.95, 0.99): {2: 182.7201, 9: 4.5810, 17: 3.3641, 40: 2.6836, 150: 2.2712, 500: 2.1175},
-    (0.99, 0.99): {3: 28.5857, 7: 7.1908, 15: 4.6212, 28: 3.8042, 70: 3.2284, 200: 2.9215,
-                   1000: 2.7184},
+    (0.99, 0.99): {
+        3: 28.5857,
+        7: 7.1908,
+        15: 4.6212,
+        28: 3.8042,
+        70: 3.2284,
+        200: 2.9215,
+        1000: 2.7184,
+    },
 }
 
 ISO_CASES = [(p, c, n, k) for (p, c), row in ISO_F.items() for n, k in row.items()]
@@ -70,8 +106,9 @@ MHE_J5B = {
 }
 
 
-@pytest.mark.parametrize("n,p,c,g", [(n, p, c, g) for n, row in MHE_J5B.items()
-                                     for (p, c), g in row.items()])
+@pytest.mark.parametrize(
+    "n,p,c,g", [(n, p, c, g) for n, row in MHE_J5B.items() for (p, c), g in row.items()]
+)
 def test_two_sided_exact_factor_matches_meeker_hahn_escobar_j5b(n, p, c, g):
     assert normal_factor_two_sided(n, p, c) == pytest.approx(g, abs=0.0005 + 1e-9)
 
@@ -92,8 +129,9 @@ def test_two_sided_confidence_against_scipy_dblquad_style_integral():
     nu = n - 1
 
     def r_of(x):
-        return optimize.brentq(lambda r: stats.norm.cdf(x + r) - stats.norm.cdf(x - r) - p,
-                               0.0, x + 10.0)
+        return optimize.brentq(
+            lambda r: stats.norm.cdf(x + r) - stats.norm.cdf(x - r) - p, 0.0, x + 10.0
+        )
 
     def integrand(x):
         return stats.chi2.sf(nu * r_of(x) ** 2 / k**2, nu) * stats.norm.pdf(x, 0, 1 / math.sqrt(n))
@@ -108,14 +146,15 @@ def test_nist_7_2_6_3_worked_example_approximations():
     # formula). FOUND second-hand (a worksheet reproducing the handbook example); the handbook
     # page itself from memory.
     assert normal_factor_one_sided(43, 0.90, 0.99, method="natrella") == pytest.approx(
-        1.8752, abs=5e-5)
-    assert normal_factor_two_sided(43, 0.90, 0.99, method="howe") == pytest.approx(
-        2.2173, abs=5e-5)
+        1.8752, abs=5e-5
+    )
+    assert normal_factor_two_sided(43, 0.90, 0.99, method="howe") == pytest.approx(2.2173, abs=5e-5)
     # the exact one-sided factor differs from the approximation in the third decimal
     assert normal_factor_one_sided(43, 0.90, 0.99) == pytest.approx(1.87395, abs=1e-4)
     # the handbook's limits: 97.07 + 1.8752 * 0.0268 = 97.1203 (upper one-sided)
-    assert 97.07 + normal_factor_one_sided(43, 0.90, 0.99, method="natrella") * 0.0268 == \
-        pytest.approx(97.120255, abs=1e-5)
+    assert 97.07 + normal_factor_one_sided(
+        43, 0.90, 0.99, method="natrella"
+    ) * 0.0268 == pytest.approx(97.120255, abs=1e-5)
 
 
 # Montgomery & Runger, Applied Statistics and Probability for Engineers, Table XII (one-sided
@@ -153,7 +192,8 @@ def test_large_n_factors_follow_the_large_sample_forms():
     large = 1.959964 / (1 - z_c / math.sqrt(2 * (n - 1)))
     assert normal_factor_two_sided(n, 0.95, 0.95) == pytest.approx(large, abs=2e-4)
     assert normal_factor_two_sided(n, 0.95, 0.95) == pytest.approx(
-        normal_factor_two_sided(n, 0.95, 0.95, method="howe"), abs=1e-4)
+        normal_factor_two_sided(n, 0.95, 0.95, method="howe"), abs=1e-4
+    )
     # one-sided: k1 ~ z_p + z_c sqrt(1/n + z_p^2 / (2 nu))
     k1 = 1.644854 + z_c * math.sqrt(1 / n + 1.644854**2 / (2 * (n - 1)))
     assert normal_factor_one_sided(n, 0.95, 0.95) == pytest.approx(k1, abs=2e-4)
@@ -210,11 +250,13 @@ def test_distribution_free_confidence_closed_forms():
     for n, p in [(59, 0.95), (93, 0.95), (20, 0.8)]:
         assert distribution_free_confidence(n, p, sides=1) == pytest.approx(1 - p**n, rel=1e-12)
         assert distribution_free_confidence(n, p, sides=2) == pytest.approx(
-            1 - p**n - n * p ** (n - 1) * (1 - p), rel=1e-12)
+            1 - p**n - n * p ** (n - 1) * (1 - p), rel=1e-12
+        )
     # coverage between order statistics is Beta(n - r - s + 1, r + s):
     # scipy.stats.beta.sf(p, n - r - s + 1, r + s)
     assert distribution_free_confidence(50, 0.9, r=2, s=3) == pytest.approx(
-        stats.beta.sf(0.9, 50 - 5 + 1, 5), rel=1e-10)
+        stats.beta.sf(0.9, 50 - 5 + 1, 5), rel=1e-10
+    )
 
 
 # Meeker, Hahn & Escobar (2017) Table J.11: rank l of the lower one-sided distribution-free
@@ -229,12 +271,14 @@ MHE_J11 = {
 }
 
 
-@pytest.mark.parametrize("n,p,c,rank", [(n, p, c, r) for n, row in MHE_J11.items()
-                                        for (p, c), r in row.items()])
+@pytest.mark.parametrize(
+    "n,p,c,rank", [(n, p, c, r) for n, row in MHE_J11.items() for (p, c), r in row.items()]
+)
 def test_distribution_free_one_sided_rank_matches_meeker_j11(n, p, c, rank):
     x = np.arange(1.0, n + 1.0)  # value i at rank i
-    ti = tolerance_interval(x, coverage=p, confidence=c, sides=1, bound="lower",
-                            model="distribution_free")
+    ti = tolerance_interval(
+        x, coverage=p, confidence=c, sides=1, bound="lower", model="distribution_free"
+    )
     assert ti.order_statistics == (rank, None)
     assert ti.lower == rank
     assert ti.achieved_confidence >= c
@@ -243,8 +287,9 @@ def test_distribution_free_one_sided_rank_matches_meeker_j11(n, p, c, rank):
 
 
 def test_distribution_free_too_few_values_is_reported_not_raised():
-    ti = tolerance_interval(np.arange(20.0), coverage=0.95, confidence=0.95,
-                            model="distribution_free", lsl=-1, usl=30)
+    ti = tolerance_interval(
+        np.arange(20.0), coverage=0.95, confidence=0.95, model="distribution_free", lsl=-1, usl=30
+    )
     assert ti.lower is None and ti.upper is None and ti.meets is None
     assert "93 are needed" in ti.notes[0]
 
@@ -313,11 +358,13 @@ def test_acceptance_decision_compares_the_interval_with_the_limits():
     x = np.random.default_rng(1).normal(10.0, 0.1, size=40)
     k = normal_factor_two_sided(40, 0.99, 0.95)
     m, s = x.mean(), x.std(ddof=1)
-    ok = tolerance_interval(x, coverage=0.99, confidence=0.95, lsl=m - k * s - 1e-6,
-                            usl=m + k * s + 1e-6)
+    ok = tolerance_interval(
+        x, coverage=0.99, confidence=0.95, lsl=m - k * s - 1e-6, usl=m + k * s + 1e-6
+    )
     assert ok.meets is True
-    bad = tolerance_interval(x, coverage=0.99, confidence=0.95, lsl=m - k * s + 1e-6,
-                             usl=m + k * s + 1e-6)
+    bad = tolerance_interval(
+        x, coverage=0.99, confidence=0.95, lsl=m - k * s + 1e-6, usl=m + k * s + 1e-6
+    )
     assert bad.meets is False
     one = tolerance_interval(x, coverage=0.99, confidence=0.95, sides=1, usl=m + 2.0 * s)
     assert one.bound == "upper" and one.lower is None and one.meets is False
@@ -366,15 +413,18 @@ def test_plan_in_the_result():
     assert "95 %" in d["statement"]
 
 
-@pytest.mark.parametrize("kwargs,match", [
-    ({"coverage": 1.2}, "coverage"),
-    ({"confidence": 0}, "confidence"),
-    ({"sides": 3}, "sides"),
-    ({"model": "weibull"}, "model"),
-    ({"sides": 1}, "bound"),
-    ({"lsl": 5, "usl": 1}, "greater"),
-    ({"method": "guess"}, "method"),
-])
+@pytest.mark.parametrize(
+    "kwargs,match",
+    [
+        ({"coverage": 1.2}, "coverage"),
+        ({"confidence": 0}, "confidence"),
+        ({"sides": 3}, "sides"),
+        ({"model": "weibull"}, "model"),
+        ({"sides": 1}, "bound"),
+        ({"lsl": 5, "usl": 1}, "greater"),
+        ({"method": "guess"}, "method"),
+    ],
+)
 def test_bad_arguments_raise_clear_errors(kwargs, match):
     with pytest.raises(StudyInputError, match=match):
         tolerance_interval([1.0, 2.0, 3.0, 4.5], **kwargs)
@@ -388,8 +438,7 @@ def test_written_tolerance_check_values_agree_with_scipy():
     from pathlib import Path
 
     script = Path(__file__).parent / "reference" / "compute_tolerance_check_values.py"
-    run = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
-                         timeout=300)
+    run = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=300)
     assert run.returncode == 0, run.stdout + run.stderr
     assert "all agree" in run.stdout and "BAD" not in run.stdout
 

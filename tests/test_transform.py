@@ -61,8 +61,9 @@ def test_box_cox_original_scale_report():
     # with lambda = 0 the back-transformed mean is the geometric mean (definition)
     assert_allclose(r.original_center, stats.gmean(x), rtol=1e-12)
     s = np.log(x).std(ddof=1)
-    assert_allclose([r.original_lower, r.original_upper],
-                    stats.gmean(x) * np.exp([-3 * s, 3 * s]), rtol=1e-12)
+    assert_allclose(
+        [r.original_lower, r.original_upper], stats.gmean(x) * np.exp([-3 * s, 3 * s]), rtol=1e-12
+    )
     assert_allclose(r.loglik_used, stats.boxcox_llf(0.0, x), rtol=1e-12)
     json.dumps(r.to_dict(), allow_nan=False)
 
@@ -157,8 +158,7 @@ Z = [0.3, 0.524, 0.8, 1.0, 1.25]
 
 @pytest.mark.parametrize("z", Z)
 def test_quantile_formulas_recover_exact_su(z):
-    q = stats.johnsonsu.ppf(special.ndtr(np.array([-3, -1, 1, 3]) * z), 1.0, 2.0, loc=10,
-                            scale=3)
+    q = stats.johnsonsu.ppf(special.ndtr(np.array([-3, -1, 1, 3]) * z), 1.0, 2.0, loc=10, scale=3)
     kind, g, eta, eps, lam, qr = tr._johnson_params(q, z)
     assert kind == "SU" and qr > 1
     assert_allclose([g, eta, eps, lam], [1.0, 2.0, 10.0, 3.0], rtol=1e-9)
@@ -166,8 +166,7 @@ def test_quantile_formulas_recover_exact_su(z):
 
 @pytest.mark.parametrize("z", Z)
 def test_quantile_formulas_recover_exact_sb(z):
-    q = stats.johnsonsb.ppf(special.ndtr(np.array([-3, -1, 1, 3]) * z), -0.5, 1.5, loc=2,
-                            scale=5)
+    q = stats.johnsonsb.ppf(special.ndtr(np.array([-3, -1, 1, 3]) * z), -0.5, 1.5, loc=2, scale=5)
     kind, g, eta, eps, lam, qr = tr._johnson_params(q, z)
     assert kind == "SB" and qr < 1
     assert_allclose([g, eta, eps, lam], [-0.5, 1.5, 2.0, 5.0], rtol=1e-9)
@@ -177,8 +176,9 @@ def test_quantile_formulas_recover_exact_sb(z):
 def test_quantile_formulas_recover_exact_sl(z):
     # SL: z = gamma + eta ln(x - eps) <=> lognorm(s=1/eta, loc=eps, scale=exp(-gamma/eta))
     g, eta, eps = 1.0, 2.0, 3.0
-    q = stats.lognorm.ppf(special.ndtr(np.array([-3, -1, 1, 3]) * z), 1 / eta, loc=eps,
-                          scale=math.exp(-g / eta))
+    q = stats.lognorm.ppf(
+        special.ndtr(np.array([-3, -1, 1, 3]) * z), 1 / eta, loc=eps, scale=math.exp(-g / eta)
+    )
     kind, g2, eta2, eps2, lam, qr = tr._johnson_params(q, z, sl_tolerance=1e-9)
     assert kind == "SL" and lam is None
     assert_allclose([g2, eta2, eps2], [g, eta, eps], rtol=1e-9)

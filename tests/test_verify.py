@@ -27,16 +27,21 @@ def made(tmp_path_factory):
     data = tmp / "pump_housing_pilot.csv"
     data.write_bytes((DEMO / "pump_housing_pilot.csv").read_bytes())
     study = tmp / "s.study"
-    StudyFile.create(study, data=data.read_bytes(), filename=data.name, title="Verify test",
-                     characteristics=[Characteristic("bore_diameter", unit="mm", lsl=11.97,
-                                                     usl=12.03),
-                                      Characteristic("flange_thickness", unit="mm", lsl=7.9,
-                                                     usl=8.1)], who="tester")
+    StudyFile.create(
+        study,
+        data=data.read_bytes(),
+        filename=data.name,
+        title="Verify test",
+        characteristics=[
+            Characteristic("bore_diameter", unit="mm", lsl=11.97, usl=12.03),
+            Characteristic("flange_thickness", unit="mm", lsl=7.9, usl=8.1),
+        ],
+        who="tester",
+    )
     StudyFile(study).exclude("flange_thickness", "17", reason="chipped insert", who="tester")
     build_report(study, tmp / "r.pdf")
     cert = make_demo_certificate(tmp / "keys", name="Pat Prep", passphrase=PASS)
-    sign_report(tmp / "r.pdf", tmp / "s.pdf", cert.p12_path, PASS, role="prepared",
-                name="Pat Prep")
+    sign_report(tmp / "r.pdf", tmp / "s.pdf", cert.p12_path, PASS, role="prepared", name="Pat Prep")
     return tmp, data, study, cert
 
 
@@ -48,8 +53,13 @@ def test_signed_report_verifies_against_study_and_data(made):
         assert res.signed and res.numbers_checked > 100
         assert "VERIFIED: signed" in res.summary()
         items = {c.item.split(" (")[0] for c in res.checks}
-        assert {"signature Signature1", "data digest", "content digest",
-                "numbers of bore_diameter", "numbers of flange_thickness"} <= items
+        assert {
+            "signature Signature1",
+            "data digest",
+            "content digest",
+            "numbers of bore_diameter",
+            "numbers of flange_thickness",
+        } <= items
 
 
 def test_unsigned_report_is_not_evidence_unless_allowed(made):
@@ -126,8 +136,7 @@ def test_compare_numbers_tolerance():
 
 def test_cli_verify_exit_status(made, capsys, tmp_path):
     tmp, data, _, cert = made
-    assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--trust",
-                 cert.cert_path]) == 0
+    assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--trust", cert.cert_path]) == 0
     out = capsys.readouterr().out
     assert "PASS  signature Signature1" in out and "VERIFIED" in out
     # without --trust the signer is not established: exit 3, never "verified"
@@ -136,8 +145,9 @@ def test_cli_verify_exit_status(made, capsys, tmp_path):
     assert out["ok"] is False and out["consistent"] is True
     assert out["status"] == "signer_not_established" and out["exit_code"] == 3
     other = make_demo_certificate(tmp_path, name="Someone Else", passphrase=PASS)
-    assert main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--trust",
-                 other.cert_path]) == 1
+    assert (
+        main(["verify", str(tmp / "s.pdf"), "--data", str(data), "--trust", other.cert_path]) == 1
+    )
     assert "NOT trusted" in capsys.readouterr().out
     assert main(["verify", str(tmp_path / "none.pdf")]) == 2
     with pytest.raises(StudyInputError, match="not both"):

@@ -59,8 +59,10 @@ def signing_refusal(environ=None) -> str | None:
     kind = env.get(ENV_ACCESS, "loopback")
     if kind in ("loopback", "token"):
         return None
-    return ("signing in the browser is refused: this workbook is served on a network address "
-            "without an access token, so a certificate and its passphrase could be read by "
-            "anyone who reaches the address. Restart it with `studykit serve --host ...` (which "
-            "prints an address with a token), or sign on your own machine with "
-            "`studykit report STUDY --sign your.p12`")
+    return (
+        "signing in the browser is refused: this workbook is served on a network address "
+        "without an access token, so a certificate and its passphrase could be read by "
+        "anyone who reaches the address. Restart it with `studykit serve --host ...` (which "
+        "prints an address with a token), or sign on your own machine with "
+        "`studykit report STUDY --sign your.p12`"
+    )

@@ -86,13 +86,17 @@ def values_in_order_figure(values, *, title: str = "", unit: str | None = None, 
     from bokeh.plotting import figure
 
     ys = [float(v) for v in values]
-    source = ColumnDataSource({"order": list(range(1, len(ys) + 1)), "value": ys},
-                              name="values")
+    source = ColumnDataSource({"order": list(range(1, len(ys) + 1)), "value": ys}, name="values")
     if fig is None:
-        fig = figure(height=260, sizing_mode="stretch_width", title=title,
-                     tools="pan,wheel_zoom,box_zoom,reset,save", toolbar_location="right",
-                     x_axis_label="Order in file",
-                     y_axis_label=f"Value ({unit})" if unit else "Value")
+        fig = figure(
+            height=260,
+            sizing_mode="stretch_width",
+            title=title,
+            tools="pan,wheel_zoom,box_zoom,reset,save",
+            toolbar_location="right",
+            x_axis_label="Order in file",
+            y_axis_label=f"Value ({unit})" if unit else "Value",
+        )
     fig.line("order", "value", source=source, **theme.bokeh_line_kwargs("data"))
     fig.scatter("order", "value", source=source, **theme.bokeh_marker_kwargs("data"))
     theme.style_bokeh_figure(fig)

@@ -26,11 +26,20 @@ __all__ = [
     "interval_columns",
 ]
 
-LOCATION_NAMES = {"xbar_r": "Subgroup mean", "xbar_s": "Subgroup mean", "imr": "Individual value",
-                  "p": "Proportion defective", "np": "Defectives", "c": "Defects",
-                  "u": "Defects per unit"}
-DISPERSION_NAMES = {"xbar_r": "Subgroup range", "xbar_s": "Subgroup std. deviation",
-                    "imr": "Moving range"}
+LOCATION_NAMES = {
+    "xbar_r": "Subgroup mean",
+    "xbar_s": "Subgroup mean",
+    "imr": "Individual value",
+    "p": "Proportion defective",
+    "np": "Defectives",
+    "c": "Defects",
+    "u": "Defects per unit",
+}
+DISPERSION_NAMES = {
+    "xbar_r": "Subgroup range",
+    "xbar_s": "Subgroup std. deviation",
+    "imr": "Moving range",
+}
 _TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
 
 
@@ -50,8 +59,7 @@ def _span(*columns, pad: float = 0.08, floor: float | None = None) -> tuple[floa
     Figures use fixed ranges set here: a bokeh ``DataRange1d`` does not follow data that
     arrive as patches in a live ``BokehModel`` view.
     """
-    vals = [float(v) for col in columns for v in col
-            if v is not None and math.isfinite(float(v))]
+    vals = [float(v) for col in columns for v in col if v is not None and math.isfinite(float(v))]
     if not vals:
         return 0.0, 1.0
     lo, hi = min(vals), max(vals)
@@ -109,13 +117,24 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             out[part] = None
             continue
         full_series = getattr(full_chart, part) if full_chart is not None else None
-        pts = {"x": [], "label": [], "value": [], "status": [], "time": [], "note": [],
-               "values": [], "removed_why": [], "rules": [], "kept_why": []}
+        pts = {
+            "x": [],
+            "label": [],
+            "value": [],
+            "status": [],
+            "time": [],
+            "note": [],
+            "values": [],
+            "removed_why": [],
+            "rules": [],
+            "kept_why": [],
+        }
         by_label = {lab: float(v) for lab, v in zip(kept, _floats(series.points), strict=False)}
         full_values = {}
         if full_series is not None:
-            full_values = {lab: float(v) for lab, v in
-                           zip(order, _floats(full_series.points), strict=False)}
+            full_values = {
+                lab: float(v) for lab, v in zip(order, _floats(full_series.points), strict=False)
+            }
         rules_at: dict[int, list[str]] = {}
         for sig in series.signals:
             for p in sig.triggers if hasattr(sig, "triggers") else sig.points:
@@ -139,8 +158,15 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             pts["kept_why"].append(kept_why.get(lab, "—") if is_kept else "—")
         xs = [xpos[lab] for lab in kept]
         limits = {"x": xs}
-        for key in ("center", "lcl", "ucl", "lower_warning", "upper_warning", "lower_zone",
-                    "upper_zone"):
+        for key in (
+            "center",
+            "lcl",
+            "ucl",
+            "lower_warning",
+            "upper_warning",
+            "lower_zone",
+            "upper_zone",
+        ):
             limits[key] = _floats(getattr(series, key))[: len(xs)]
         signals = {"x": [], "value": [], "rule": []}
         for pos, rules in sorted(rules_at.items()):
@@ -155,13 +181,22 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
                 ring["value"].append(by_label[lab])
                 ring["why"].append(kept_why[lab])
         c = limits["center"]
-        text = {"center": c[-1] if c else None, "lcl": limits["lcl"][-1] if c else None,
-                "ucl": limits["ucl"][-1] if c else None,
-                "varies": bool(c) and (len(set(limits["ucl"])) > 1)}
-        out[part] = {"points": pts, "limits": limits, "signals": signals, "limit_text": text,
-                     "kept": ring,
-                     "name": (LOCATION_NAMES if part == "location" else DISPERSION_NAMES).get(
-                         chart.kind, part)}
+        text = {
+            "center": c[-1] if c else None,
+            "lcl": limits["lcl"][-1] if c else None,
+            "ucl": limits["ucl"][-1] if c else None,
+            "varies": bool(c) and (len(set(limits["ucl"])) > 1),
+        }
+        out[part] = {
+            "points": pts,
+            "limits": limits,
+            "signals": signals,
+            "limit_text": text,
+            "kept": ring,
+            "name": (LOCATION_NAMES if part == "location" else DISPERSION_NAMES).get(
+                chart.kind, part
+            ),
+        }
     return out
 
 
@@ -169,8 +204,7 @@ def _kept_why(result) -> dict[str, str]:
     """Subgroup label -> 'rule: reason (who)' of the signals kept with a reason there."""
     out: dict[str, list[str]] = {}
     for k in getattr(result, "kept_signals", ()) or ():
-        out.setdefault(str(k["subgroup"]), []).append(
-            f"{k['rule']}: {k['reason']} ({k['who']})")
+        out.setdefault(str(k["subgroup"]), []).append(f"{k['rule']}: {k['reason']} ({k['who']})")
     return {lab: "; ".join(v) for lab, v in out.items()}
 
 
@@ -179,8 +213,13 @@ def _signals_here(series, pos: int) -> bool:
 
 
 #: a ring around a signalled point that a person kept with a reason (bluish green, hollow)
-_KEPT_RING = {"marker": "circle", "size": 18, "fill_alpha": 0.0,
-              "line_color": theme.OKABE_ITO["bluish_green"], "line_width": 2.5}
+_KEPT_RING = {
+    "marker": "circle",
+    "size": 18,
+    "fill_alpha": 0.0,
+    "line_color": theme.OKABE_ITO["bluish_green"],
+    "line_width": 2.5,
+}
 
 
 class ControlChartView:
@@ -204,8 +243,9 @@ class ControlChartView:
         self._labels: list[str] = []
         for part, h in (("location", height), ("dispersion", int(height * 0.8))):
             self.figures[part] = self._figure(part, h)
-        self.layout = column(self.figures["location"], self.figures["dispersion"],
-                             sizing_mode="stretch_width")
+        self.layout = column(
+            self.figures["location"], self.figures["dispersion"], sizing_mode="stretch_width"
+        )
 
     def _figure(self, part: str, height: int):
         from bokeh.models import (
@@ -221,46 +261,120 @@ class ControlChartView:
         )
         from bokeh.plotting import figure
 
-        pts = ColumnDataSource({k: [] for k in ("x", "label", "value", "status", "time", "note",
-                                                "values", "removed_why", "rules",
-                                                "kept_why")},
-                               name=f"{part}_points")
-        lim = ColumnDataSource({k: [] for k in ("x", "center", "lcl", "ucl", "lower_warning",
-                                                "upper_warning", "lower_zone", "upper_zone")},
-                               name=f"{part}_limits")
+        pts = ColumnDataSource(
+            {
+                k: []
+                for k in (
+                    "x",
+                    "label",
+                    "value",
+                    "status",
+                    "time",
+                    "note",
+                    "values",
+                    "removed_why",
+                    "rules",
+                    "kept_why",
+                )
+            },
+            name=f"{part}_points",
+        )
+        lim = ColumnDataSource(
+            {
+                k: []
+                for k in (
+                    "x",
+                    "center",
+                    "lcl",
+                    "ucl",
+                    "lower_warning",
+                    "upper_warning",
+                    "lower_zone",
+                    "upper_zone",
+                )
+            },
+            name=f"{part}_limits",
+        )
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
         ring = ColumnDataSource({"x": [], "value": [], "why": []}, name=f"{part}_kept")
-        fig = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
-                     toolbar_location="above", x_axis_label="Subgroup (production order)",
-                     x_range=Range1d(0, 1), y_range=Range1d(0, 1))
+        fig = figure(
+            height=height,
+            sizing_mode="stretch_width",
+            tools=_TOOLS,
+            toolbar_location="above",
+            x_axis_label="Subgroup (production order)",
+            x_range=Range1d(0, 1),
+            y_range=Range1d(0, 1),
+        )
         fig.min_border_right = 16
-        zone = fig.varea("x", "lower_zone", "upper_zone", source=lim,
-                         fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.10)
+        zone = fig.varea(
+            "x",
+            "lower_zone",
+            "upper_zone",
+            source=lim,
+            fill_color=theme.SKY_BLUE_LINE,
+            fill_alpha=0.10,
+        )
         for key in ("lower_zone", "upper_zone"):
-            fig.step("x", key, source=lim, mode="center", line_color=theme.SKY_BLUE_LINE,
-                     line_alpha=0.45, line_width=1, line_dash="dotted")
-        warn = [fig.step("x", key, source=lim, mode="center",
-                         **theme.bokeh_line_kwargs("warning_limit"))
-                for key in ("lower_warning", "upper_warning")]
+            fig.step(
+                "x",
+                key,
+                source=lim,
+                mode="center",
+                line_color=theme.SKY_BLUE_LINE,
+                line_alpha=0.45,
+                line_width=1,
+                line_dash="dotted",
+            )
+        warn = [
+            fig.step(
+                "x", key, source=lim, mode="center", **theme.bokeh_line_kwargs("warning_limit")
+            )
+            for key in ("lower_warning", "upper_warning")
+        ]
         for r in warn:
             r.visible = False
         self.warning_renderers.extend(warn)
-        centre = fig.step("x", "center", source=lim, mode="center",
-                          **theme.bokeh_line_kwargs("centre_line"))
-        limits = [fig.step("x", key, source=lim, mode="center",
-                           **theme.bokeh_line_kwargs("control_limit")) for key in ("lcl", "ucl")]
+        centre = fig.step(
+            "x", "center", source=lim, mode="center", **theme.bokeh_line_kwargs("centre_line")
+        )
+        limits = [
+            fig.step(
+                "x", key, source=lim, mode="center", **theme.bokeh_line_kwargs("control_limit")
+            )
+            for key in ("lcl", "ucl")
+        ]
         kept_view = CDSView(filter=GroupFilter(column_name="status", group="kept"))
         removed_view = CDSView(filter=GroupFilter(column_name="status", group="removed"))
         data_line = theme.bokeh_line_kwargs("data")
-        fig.line("x", "value", source=pts, view=kept_view, line_alpha=0.6,
-                        line_color=data_line["line_color"], line_width=data_line["line_width"])
-        sel = {"selection_line_color": theme.INK, "selection_line_width": 3.0,
-               "nonselection_fill_alpha": 1.0, "nonselection_line_alpha": 1.0}
-        kept = fig.scatter("x", "value", source=pts, view=kept_view,
-                           **theme.bokeh_marker_kwargs("data"), **sel)
+        fig.line(
+            "x",
+            "value",
+            source=pts,
+            view=kept_view,
+            line_alpha=0.6,
+            line_color=data_line["line_color"],
+            line_width=data_line["line_width"],
+        )
+        sel = {
+            "selection_line_color": theme.INK,
+            "selection_line_width": 3.0,
+            "nonselection_fill_alpha": 1.0,
+            "nonselection_line_alpha": 1.0,
+        }
+        kept = fig.scatter(
+            "x", "value", source=pts, view=kept_view, **theme.bokeh_marker_kwargs("data"), **sel
+        )
         removed_kw = theme.bokeh_marker_kwargs("excluded")
-        removed = fig.scatter("x", "value", source=pts, view=removed_view, **removed_kw,
-                              selection_line_color=theme.INK, nonselection_line_alpha=1.0)
+        removed = fig.scatter(
+            "x",
+            "value",
+            source=pts,
+            view=removed_view,
+            **removed_kw,
+            selection_line_color=theme.INK,
+            nonselection_line_alpha=1.0,
+        )
         fig.scatter("x", "value", source=sig, **theme.bokeh_marker_kwargs("signal"))
         fig.scatter("x", "value", source=ring, **_KEPT_RING)
         # legend swatches: bokeh 3.9 draws none for a renderer without data or with a view
@@ -269,24 +383,46 @@ class ControlChartView:
         removed_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("excluded"))
         kept_key = fig.scatter(nan, nan, **theme.bokeh_marker_kwargs("data"))
         ring_key = fig.scatter(nan, nan, **_KEPT_RING)
-        hover = HoverTool(renderers=[kept, removed], tooltips=[
-            ("Subgroup", "@label"), ("Time", "@time"), ("Statistic", "@value{0.00000}"),
-            ("Values", "@values"), ("Note", "@note"), ("Rules broken", "@rules"),
-            ("Removed because", "@removed_why"), ("Signal kept because", "@kept_why")])
+        hover = HoverTool(
+            renderers=[kept, removed],
+            tooltips=[
+                ("Subgroup", "@label"),
+                ("Time", "@time"),
+                ("Statistic", "@value{0.00000}"),
+                ("Values", "@values"),
+                ("Note", "@note"),
+                ("Rules broken", "@rules"),
+                ("Removed because", "@removed_why"),
+                ("Signal kept because", "@kept_why"),
+            ],
+        )
         fig.add_tools(hover, TapTool(renderers=[kept, removed]))
         if part == "location":
-            items = [LegendItem(label="Subgroup", renderers=[kept_key]),
-                     LegendItem(label="Centre", renderers=[centre]),
-                     LegendItem(label="Control limits", renderers=limits),
-                     LegendItem(label="±1σ zone", renderers=[zone]),
-                     LegendItem(label="2σ warning", renderers=warn),
-                     LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
-                     LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
-                     LegendItem(label="Signal kept (reason on file)", renderers=[ring_key])]
+            items = [
+                LegendItem(label="Subgroup", renderers=[kept_key]),
+                LegendItem(label="Centre", renderers=[centre]),
+                LegendItem(label="Control limits", renderers=limits),
+                LegendItem(label="±1σ zone", renderers=[zone]),
+                LegendItem(label="2σ warning", renderers=warn),
+                LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
+                LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
+                LegendItem(label="Signal kept (reason on file)", renderers=[ring_key]),
+            ]
             # two rows: eight entries do not fit one row beside the side panel at 1280 px
-            fig.add_layout(Legend(items=items, orientation="horizontal", location="top_left",
-                                  label_text_font_size="12px", spacing=12, padding=2,
-                                  margin=4, border_line_color=None, nrows=2), "above")
+            fig.add_layout(
+                Legend(
+                    items=items,
+                    orientation="horizontal",
+                    location="top_left",
+                    label_text_font_size="12px",
+                    spacing=12,
+                    padding=2,
+                    margin=4,
+                    border_line_color=None,
+                    nrows=2,
+                ),
+                "above",
+            )
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
@@ -319,12 +455,17 @@ class ControlChartView:
             if t["varies"]:
                 limits_text = "limits vary with the subgroup size"
             else:
-                limits_text = " · ".join(f"{name} {_fmt(t[key], 5)}" for key, name in
-                                         (("lcl", "LCL"), ("center", "CL"), ("ucl", "UCL"))
-                                         if t[key] is not None and math.isfinite(t[key]))
+                limits_text = " · ".join(
+                    f"{name} {_fmt(t[key], 5)}"
+                    for key, name in (("lcl", "LCL"), ("center", "CL"), ("ucl", "UCL"))
+                    if t[key] is not None and math.isfinite(t[key])
+                )
             fig.yaxis.axis_label = c["name"] + unit_text
-            head = (f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
-                    if part == "location" else f"{c['name']} chart")
+            head = (
+                f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
+                if part == "location"
+                else f"{c['name']} chart"
+            )
             fig.title.text = f"{head}    {limits_text}"
             # change the ticker's ticks, never swap models: a new model makes bokeh walk the
             # whole document again (about 0.1 s)
@@ -333,10 +474,17 @@ class ControlChartView:
             fig.x_range.start, fig.x_range.end = 0.3, n + 0.7
             lim = c["limits"]
             fig.y_range.start, fig.y_range.end = _span(
-                c["points"]["value"], lim["lcl"], lim["ucl"], lim["lower_warning"],
-                lim["upper_warning"])
-            fig.xaxis.axis_label = ("Value (production order)" if cols["kind"] == "imr"
-                                    else "Subgroup (production order)")
+                c["points"]["value"],
+                lim["lcl"],
+                lim["ucl"],
+                lim["lower_warning"],
+                lim["upper_warning"],
+            )
+            fig.xaxis.axis_label = (
+                "Value (production order)"
+                if cols["kind"] == "imr"
+                else "Subgroup (production order)"
+            )
         return cols
 
     def show_warning_limits(self, show: bool) -> None:
@@ -375,8 +523,10 @@ def _model_density(result, grid, model=None):
         t = choice.transform
         eps = (grid[1] - grid[0]) * 1e-3
         y = np.asarray(t.transform(grid), dtype=float)
-        dy = (np.asarray(t.transform(grid + eps), dtype=float)
-              - np.asarray(t.transform(grid - eps), dtype=float)) / (2 * eps)
+        dy = (
+            np.asarray(t.transform(grid + eps), dtype=float)
+            - np.asarray(t.transform(grid - eps), dtype=float)
+        ) / (2 * eps)
         ty = np.asarray(t.transform(result.values), dtype=float)
         with np.errstate(invalid="ignore", divide="ignore"):
             dens = stats.norm.pdf(y, float(np.mean(ty)), float(np.std(ty, ddof=1))) * np.abs(dy)
@@ -406,20 +556,36 @@ def histogram_columns(result, *, compare: str | None = "normal") -> dict:
     width = np.diff(edges)
     density = counts / (counts.sum() * width)
     grid = np.linspace(lo - pad, hi + pad, 300)
-    out = {"bars": {"left": edges[:-1].tolist(), "right": edges[1:].tolist(),
-                    "top": density.tolist(), "count": counts.tolist()},
-           "spec": {k: spec.get(k) for k in ("lsl", "usl", "target")},
-           "range": (lo - pad, hi + pad)}
+    out = {
+        "bars": {
+            "left": edges[:-1].tolist(),
+            "right": edges[1:].tolist(),
+            "top": density.tolist(),
+            "count": counts.tolist(),
+        },
+        "spec": {k: spec.get(k) for k in ("lsl", "usl", "target")},
+        "range": (lo - pad, hi + pad),
+    }
     dens = _model_density(result, grid)
     name = result.model.label if result.model is not None else ""
-    out["model"] = {"x": grid.tolist() if dens is not None else [],
-                    "y": _floats(dens) if dens is not None else [], "name": name}
+    out["model"] = {
+        "x": grid.tolist() if dens is not None else [],
+        "y": _floats(dens) if dens is not None else [],
+        "name": name,
+    }
     comp = {"x": [], "y": [], "name": ""}
-    if (compare and result.ranking is not None and compare in result.ranking.models
-            and (result.model is None or result.model.name != compare)):
+    if (
+        compare
+        and result.ranking is not None
+        and compare in result.ranking.models
+        and (result.model is None or result.model.name != compare)
+    ):
         m = result.ranking.models[compare]
-        comp = {"x": grid.tolist(), "y": _floats(_model_density(result, grid, m)),
-                "name": names.model_label(compare)}
+        comp = {
+            "x": grid.tolist(),
+            "y": _floats(_model_density(result, grid, m)),
+            "name": names.model_label(compare),
+        }
     out["compare"] = comp
     return out
 
@@ -443,15 +609,36 @@ class ShapeView:
         self.bars = ColumnDataSource({"left": [], "right": [], "top": [], "count": []})
         self.model = ColumnDataSource({"x": [], "y": []})
         self.compare = ColumnDataSource({"x": [], "y": []})
-        h = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
-                   x_range=Range1d(0, 1), y_range=Range1d(0, 1),
-                   title="Distribution of the values used", y_axis_label="Density")
-        bars = h.quad(left="left", right="right", top="top", bottom=0, source=self.bars,
-                      fill_color=theme.OKABE_ITO["blue"], fill_alpha=0.30,
-                      line_color=theme.OKABE_ITO["blue"], line_alpha=0.8)
-        h.add_tools(HoverTool(renderers=[bars], tooltips=[("From", "@left{0.0000}"),
-                                                          ("To", "@right{0.0000}"),
-                                                          ("Values", "@count")]))
+        h = figure(
+            height=height,
+            sizing_mode="stretch_width",
+            tools=_TOOLS,
+            x_range=Range1d(0, 1),
+            y_range=Range1d(0, 1),
+            title="Distribution of the values used",
+            y_axis_label="Density",
+        )
+        bars = h.quad(
+            left="left",
+            right="right",
+            top="top",
+            bottom=0,
+            source=self.bars,
+            fill_color=theme.OKABE_ITO["blue"],
+            fill_alpha=0.30,
+            line_color=theme.OKABE_ITO["blue"],
+            line_alpha=0.8,
+        )
+        h.add_tools(
+            HoverTool(
+                renderers=[bars],
+                tooltips=[
+                    ("From", "@left{0.0000}"),
+                    ("To", "@right{0.0000}"),
+                    ("Values", "@count"),
+                ],
+            )
+        )
         fit = h.line("x", "y", source=self.model, **theme.bokeh_line_kwargs("fit"))
         comp_kw = theme.bokeh_line_kwargs("secondary")
         comp_kw["line_dash"] = "dashed"
@@ -467,30 +654,62 @@ class ShapeView:
         target_r = h.line(nan, nan, **theme.bokeh_line_kwargs("target"))
         self._fit_item = LegendItem(label="Model", renderers=[fit])
         self._comp_item = LegendItem(label="Normal", renderers=[comp])
-        h.add_layout(Legend(items=[LegendItem(label="Values used", renderers=[bars]),
-                                   self._fit_item, self._comp_item,
-                                   LegendItem(label="Spec limits", renderers=[spec_r]),
-                                   LegendItem(label="Target", renderers=[target_r])],
-                            orientation="horizontal", location="top_left", spacing=12,
-                            label_text_font_size="12px", border_line_color=None), "above")
+        h.add_layout(
+            Legend(
+                items=[
+                    LegendItem(label="Values used", renderers=[bars]),
+                    self._fit_item,
+                    self._comp_item,
+                    LegendItem(label="Spec limits", renderers=[spec_r]),
+                    LegendItem(label="Target", renderers=[target_r]),
+                ],
+                orientation="horizontal",
+                location="top_left",
+                spacing=12,
+                label_text_font_size="12px",
+                border_line_color=None,
+            ),
+            "above",
+        )
         theme.style_bokeh_figure(h)
-        self.points = ColumnDataSource({"value": [], "z": [], "line": [], "lower": [],
-                                        "upper": []})
-        p = figure(height=height, sizing_mode="stretch_width", tools=_TOOLS,
-                   x_range=Range1d(0, 1), y_range=Range1d(0, 1),
-                   title="Normal probability plot", y_axis_label="Cumulative %")
-        band = p.harea(y="z", x1="lower", x2="upper", source=self.points,
-                       fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.18)
+        self.points = ColumnDataSource({"value": [], "z": [], "line": [], "lower": [], "upper": []})
+        p = figure(
+            height=height,
+            sizing_mode="stretch_width",
+            tools=_TOOLS,
+            x_range=Range1d(0, 1),
+            y_range=Range1d(0, 1),
+            title="Normal probability plot",
+            y_axis_label="Cumulative %",
+        )
+        band = p.harea(
+            y="z",
+            x1="lower",
+            x2="upper",
+            source=self.points,
+            fill_color=theme.SKY_BLUE_LINE,
+            fill_alpha=0.18,
+        )
         pline = p.line("line", "z", source=self.points, **theme.bokeh_line_kwargs("fit"))
         mk = theme.bokeh_marker_kwargs("data")
         mk["size"] = 6
         pts = p.scatter("value", "z", source=self.points, **mk)
         p.add_tools(HoverTool(renderers=[pts], tooltips=[("Value", "@value{0.00000}")]))
-        p.add_layout(Legend(items=[LegendItem(label="Ordered values", renderers=[pts]),
-                                   LegendItem(label="Normal line", renderers=[pline]),
-                                   LegendItem(label="Confidence band", renderers=[band])],
-                            orientation="horizontal", location="top_left", spacing=12,
-                            label_text_font_size="12px", border_line_color=None), "above")
+        p.add_layout(
+            Legend(
+                items=[
+                    LegendItem(label="Ordered values", renderers=[pts]),
+                    LegendItem(label="Normal line", renderers=[pline]),
+                    LegendItem(label="Confidence band", renderers=[band]),
+                ],
+                orientation="horizontal",
+                location="top_left",
+                spacing=12,
+                label_text_font_size="12px",
+                border_line_color=None,
+            ),
+            "above",
+        )
         p.yaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(p)
         self.histogram, self.probability = h, p
@@ -514,8 +733,9 @@ class ShapeView:
         unit = f" ({result.unit})" if result.unit else ""
         self.histogram.xaxis.axis_label = result.characteristic + unit
         self.histogram.x_range.start, self.histogram.x_range.end = cols["range"]
-        top = _span(cols["bars"]["top"], cols["model"]["y"], cols["compare"]["y"], [0.0],
-                    pad=0.06)[1]
+        top = _span(cols["bars"]["top"], cols["model"]["y"], cols["compare"]["y"], [0.0], pad=0.06)[
+            1
+        ]
         self.histogram.y_range.start, self.histogram.y_range.end = 0.0, top
         pp = result.probability_plot
         if pp is None:
@@ -525,9 +745,13 @@ class ShapeView:
         n = z.size
         lower = _floats(pp.band_lower) if pp.band_lower is not None else [float("nan")] * n
         upper = _floats(pp.band_upper) if pp.band_upper is not None else [float("nan")] * n
-        self.points.data = {"value": _floats(pp.values), "z": z.tolist(),
-                            "line": (pp.line_mean + pp.line_sigma * z).tolist(),
-                            "lower": lower, "upper": upper}
+        self.points.data = {
+            "value": _floats(pp.values),
+            "z": z.tolist(),
+            "line": (pp.line_mean + pp.line_sigma * z).tolist(),
+            "lower": lower,
+            "upper": upper,
+        }
         probs = [0.001, 0.01, 0.05, 0.2, 0.5, 0.8, 0.95, 0.99, 0.999]
         ticks = [(float(stats.norm.ppf(q)), q) for q in probs]
         ticks = [(t, q) for t, q in ticks if z.min() - 0.6 <= t <= z.max() + 0.6]
@@ -535,9 +759,12 @@ class ShapeView:
         self.probability.yaxis.major_label_overrides = {t: f"{q * 100:g}" for t, q in ticks}
         self.probability.xaxis.axis_label = result.characteristic + unit
         self.probability.x_range.start, self.probability.x_range.end = _span(
-            self.points.data["value"], self.points.data["line"], pad=0.05)
+            self.points.data["value"], self.points.data["line"], pad=0.05
+        )
         self.probability.y_range.start, self.probability.y_range.end = (
-            float(z.min()) - 0.3, float(z.max()) + 0.3)
+            float(z.min()) - 0.3,
+            float(z.max()) + 0.3,
+        )
         return cols
 
 
@@ -559,8 +786,7 @@ def interval_columns(result) -> dict:
     cap = result.capability
     crit = result.criteria
     judged = result.verdict.index if result.verdict is not None else crit.get("index")
-    rows = {"name": [], "estimate": [], "lower": [], "upper": [], "lower_bound": [],
-            "judged": []}
+    rows = {"name": [], "estimate": [], "lower": [], "upper": [], "lower_bound": [], "judged": []}
     if cap is not None:
         for key in _INDEX_ORDER:
             est = getattr(cap, key, None)
@@ -576,9 +802,13 @@ def interval_columns(result) -> dict:
     band = None
     if result.model_band is not None:
         band = (float(result.model_band.low), float(result.model_band.high))
-    return {"rows": rows, "threshold": float(crit.get("threshold", 1.67)),
-            "level": float(getattr(cap, "level", 0.95) or 0.95), "band": band,
-            "judged": judged}
+    return {
+        "rows": rows,
+        "threshold": float(crit.get("threshold", 1.67)),
+        "level": float(getattr(cap, "level", 0.95) or 0.95),
+        "band": band,
+        "judged": judged,
+    }
 
 
 class IntervalView:
@@ -596,41 +826,103 @@ class IntervalView:
         )
         from bokeh.plotting import figure
 
-        self.rows = ColumnDataSource({"name": [], "estimate": [], "lower": [], "upper": [],
-                                      "lower_bound": [], "judged": []})
+        self.rows = ColumnDataSource(
+            {"name": [], "estimate": [], "lower": [], "upper": [], "lower_bound": [], "judged": []}
+        )
         self.band = ColumnDataSource({"name": [], "low": [], "high": []})
-        f = figure(height=height, sizing_mode="stretch_width", y_range=["—"], tools="save",
-                   x_range=Range1d(0, 1),
-                   x_axis_label="Index value")
-        band = f.hbar(y="name", left="low", right="high", height=0.35, source=self.band,
-                      fill_color=theme.SKY_BLUE_LINE, fill_alpha=0.35,
-                      line_color=theme.SKY_BLUE_LINE)
-        seg = f.segment(x0="lower", x1="upper", y0="name", y1="name", source=self.rows,
-                        line_color=theme.OKABE_ITO["blue"], line_width=4)
-        lb = f.scatter("lower_bound", "name", source=self.rows, marker="dash", angle=math.pi / 2,
-                       size=22, line_color=theme.INK, line_width=3)
-        est = f.scatter("estimate", "name", source=self.rows, marker="circle", size=11,
-                        fill_color=theme.PAPER, line_color=theme.INK, line_width=2.5)
-        f.add_tools(HoverTool(renderers=[est], tooltips=[
-            ("Index", "@name"), ("Estimate", "@estimate{0.000}"),
-            ("Lower bound", "@lower_bound{0.000}"), ("Interval", "@lower{0.000} – @upper{0.000}")]))
-        self.threshold = Span(location=1.67, dimension="height",
-                              **theme.bokeh_line_kwargs("spec_limit"))
+        f = figure(
+            height=height,
+            sizing_mode="stretch_width",
+            y_range=["—"],
+            tools="save",
+            x_range=Range1d(0, 1),
+            x_axis_label="Index value",
+        )
+        band = f.hbar(
+            y="name",
+            left="low",
+            right="high",
+            height=0.35,
+            source=self.band,
+            fill_color=theme.SKY_BLUE_LINE,
+            fill_alpha=0.35,
+            line_color=theme.SKY_BLUE_LINE,
+        )
+        seg = f.segment(
+            x0="lower",
+            x1="upper",
+            y0="name",
+            y1="name",
+            source=self.rows,
+            line_color=theme.OKABE_ITO["blue"],
+            line_width=4,
+        )
+        lb = f.scatter(
+            "lower_bound",
+            "name",
+            source=self.rows,
+            marker="dash",
+            angle=math.pi / 2,
+            size=22,
+            line_color=theme.INK,
+            line_width=3,
+        )
+        est = f.scatter(
+            "estimate",
+            "name",
+            source=self.rows,
+            marker="circle",
+            size=11,
+            fill_color=theme.PAPER,
+            line_color=theme.INK,
+            line_width=2.5,
+        )
+        f.add_tools(
+            HoverTool(
+                renderers=[est],
+                tooltips=[
+                    ("Index", "@name"),
+                    ("Estimate", "@estimate{0.000}"),
+                    ("Lower bound", "@lower_bound{0.000}"),
+                    ("Interval", "@lower{0.000} – @upper{0.000}"),
+                ],
+            )
+        )
+        self.threshold = Span(
+            location=1.67, dimension="height", **theme.bokeh_line_kwargs("spec_limit")
+        )
         f.add_layout(self.threshold)
-        self.threshold_label = Label(x=1.67, y=0, x_offset=6, y_offset=4, y_units="screen",
-                                     text="required", text_font_size="12px",
-                                     text_color=theme.ROLES["spec_limit"].color)
+        self.threshold_label = Label(
+            x=1.67,
+            y=0,
+            x_offset=6,
+            y_offset=4,
+            y_units="screen",
+            text="required",
+            text_font_size="12px",
+            text_color=theme.ROLES["spec_limit"].color,
+        )
         f.add_layout(self.threshold_label)
         req = f.line([float("nan")], [float("nan")], **theme.bokeh_line_kwargs("spec_limit"))
         self._interval_item = LegendItem(label="95% interval", renderers=[seg])
         self._bound_item = LegendItem(label="Lower 95% bound", renderers=[lb])
-        f.add_layout(Legend(items=[LegendItem(label="Estimate", renderers=[est]),
-                                   self._interval_item, self._bound_item,
-                                   LegendItem(label=names.MODEL_BAND,
-                                              renderers=[band]),
-                                   LegendItem(label="Required", renderers=[req])],
-                            orientation="horizontal", location="top_left", spacing=12,
-                            label_text_font_size="12px", border_line_color=None), "above")
+        f.add_layout(
+            Legend(
+                items=[
+                    LegendItem(label="Estimate", renderers=[est]),
+                    self._interval_item,
+                    self._bound_item,
+                    LegendItem(label=names.MODEL_BAND, renderers=[band]),
+                    LegendItem(label="Required", renderers=[req]),
+                ],
+                orientation="horizontal",
+                location="top_left",
+                spacing=12,
+                label_text_font_size="12px",
+                border_line_color=None,
+            ),
+            "above",
+        )
         theme.style_bokeh_figure(f)
         f.toolbar_location = None
         self.figure = self.layout = f
@@ -654,8 +946,12 @@ class IntervalView:
         pct = f"{cols['level'] * 100:g}%"
         self._interval_item.label = {"value": f"Two-sided {pct} interval"}
         self._bound_item.label = {"value": f"Lower {pct} bound"}
-        values = [v for key in ("lower", "upper", "estimate", "lower_bound")
-                  for v in rows[key] if math.isfinite(v)] + [t]
+        values = [
+            v
+            for key in ("lower", "upper", "estimate", "lower_bound")
+            for v in rows[key]
+            if math.isfinite(v)
+        ] + [t]
         if cols["band"]:
             values += list(cols["band"])
         lo, hi = min(values), max(values)

@@ -64,20 +64,25 @@ def changes_html(entries, *, limit: int = 4) -> str:
     if not entries:
         return ""
     shown = entries[-limit:][::-1]
+
     def what(e) -> str:
         text = str((e.detail or {}).get("text") or "")
         return e.what + (f' "{text[:80]}{"…" if len(text) > 80 else ""}"' if text else "")
 
-    items = "".join(f"<li><b>{esc(e.who)}</b>: {esc(what(e))}"
-                    + (f" <span class='sk-small'>({esc(e.why)})</span>" if e.why else "")
-                    + f" <span class='sk-small'>· {_when(e.when)} UTC</span></li>"
-                    for e in shown)
+    items = "".join(
+        f"<li><b>{esc(e.who)}</b>: {esc(what(e))}"
+        + (f" <span class='sk-small'>({esc(e.why)})</span>" if e.why else "")
+        + f" <span class='sk-small'>· {_when(e.when)} UTC</span></li>"
+        for e in shown
+    )
     more = len(entries) - len(shown)
     tail = f"<div class='sk-small'>and {more} earlier change(s)</div>" if more > 0 else ""
     stamp = datetime.now().strftime("%H:%M:%S")
-    return ('<div class="sk-live-note" role="status"><b>The study file changed</b> '
-            f'<span class="sk-small">(page updated at {stamp})</span>'
-            f'<ul style="margin:4px 0 0 0">{items}</ul>{tail}</div>')
+    return (
+        '<div class="sk-live-note" role="status"><b>The study file changed</b> '
+        f'<span class="sk-small">(page updated at {stamp})</span>'
+        f'<ul style="margin:4px 0 0 0">{items}</ul>{tail}</div>'
+    )
 
 
 LIVE_CSS = """
@@ -104,8 +109,9 @@ class LiveLink:
         self.session = session
         self.messages = messages
         self.note = html_box("", "sk-live")
-        self.shown = widgets.IntText(value=session.view_version,
-                                     layout=widgets.Layout(display="none"))
+        self.shown = widgets.IntText(
+            value=session.view_version, layout=widgets.Layout(display="none")
+        )
         self.shown.add_class("sk-view-version")
         self.seen = widgets.IntText(value=-1, layout=widgets.Layout(display="none"))
         self.seen.add_class("sk-page-version")

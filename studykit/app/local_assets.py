@@ -29,8 +29,10 @@ __all__ = ["FONTAWESOME_ROUTE", "FontAwesomeHandler", "fontawesome_dir", "locali
 #: Where the server answers with the Font Awesome files (major version 5, as the page asks).
 FONTAWESOME_ROUTE = "/studykit/fontawesome/5/"
 #: A link to the Font Awesome Free 5 files on any remote host (the style sheet path is kept).
-_REMOTE = re.compile(r'href="https?://[^"]*/@fortawesome/fontawesome-free@[^/"]*/'
-                     r'(css/[A-Za-z0-9_.-]+)"')
+_REMOTE = re.compile(
+    r'href="https?://[^"]*/@fortawesome/fontawesome-free@[^/"]*/'
+    r'(css/[A-Za-z0-9_.-]+)"'
+)
 _SERVED = ("css", "webfonts")
 
 

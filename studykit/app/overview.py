@@ -25,8 +25,16 @@ import ipywidgets as widgets
 from studykit import names, theme
 from studykit.app.widgets import esc, guarded, html_box
 
-__all__ = ["Workspace", "OverviewPanel", "OverviewChart", "workspace", "verdict_chip", "PANEL_CSS",
-           "overview_rows", "SORT_KEYS"]
+__all__ = [
+    "Workspace",
+    "OverviewPanel",
+    "OverviewChart",
+    "workspace",
+    "verdict_chip",
+    "PANEL_CSS",
+    "overview_rows",
+    "SORT_KEYS",
+]
 
 WORKSPACE_KEY = "studykit.workspace"
 
@@ -50,15 +58,15 @@ PANEL_CSS = f"""
 .sk-ovtable .sk-ovhead {{ font-size: 12px; text-transform: uppercase; letter-spacing: .04em;
   color: {theme.INK_SOFT}; font-weight: 600; border-bottom: 2px solid {theme.RULE}; }}
 .sk-ovtable .sk-ovcell.num {{ justify-content: flex-end; font-variant-numeric: tabular-nums; }}
-.sk-root .jupyter-button.sk-link {{ background: transparent; color: {theme.OKABE_ITO['blue']};
+.sk-root .jupyter-button.sk-link {{ background: transparent; color: {theme.OKABE_ITO["blue"]};
   text-decoration: underline; padding: 0; height: auto; text-align: left; font-weight: 600;
   box-shadow: none; }}
 .sk-root .jupyter-button.sk-link:hover {{ color: {theme.INK}; }}
 .sk-voided {{ text-decoration: line-through; color: {theme.INK_SOFT}; }}
-.sk-lock {{ border: 1px solid {theme.OKABE_ITO['blue']}; background: {theme.TINT}; padding: 10px 14px;
+.sk-lock {{ border: 1px solid {theme.OKABE_ITO["blue"]}; background: {theme.TINT}; padding: 10px 14px;
   border-radius: 3px; margin: 6px 0; }}
-.sk-void {{ border: 2px solid {theme.VERDICTS['fail'].color};
-  background: {theme.VERDICTS['fail'].background}; padding: 10px 14px; border-radius: 3px;
+.sk-void {{ border: 2px solid {theme.VERDICTS["fail"].color};
+  background: {theme.VERDICTS["fail"].background}; padding: 10px 14px; border-radius: 3px;
   margin: 6px 0; }}
 .sk-proposal {{ border: 1px solid {theme.RULE}; padding: 8px 12px; margin: 4px 0;
   border-radius: 3px; background: {theme.PANEL}; }}
@@ -131,13 +139,16 @@ def verdict_chip(meets, *, text: str | None = None, kind: str | None = None) -> 
     >>> "No verdict" in verdict_chip(None)
     True
     """
-    key, word = {True: ("pass", names.VERDICT_STATES["meets"]),
-                 False: ("fail", names.VERDICT_STATES["does_not_meet"])}.get(
-        meets, ("withheld", names.VERDICT_STATES["no_verdict"]))
+    key, word = {
+        True: ("pass", names.VERDICT_STATES["meets"]),
+        False: ("fail", names.VERDICT_STATES["does_not_meet"]),
+    }.get(meets, ("withheld", names.VERDICT_STATES["no_verdict"]))
     key = kind or key
     v = theme.VERDICTS[key]
-    return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
-            f'border-color:{v.color}">{v.symbol} {esc(text or word)}</span>')
+    return (
+        f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
+        f'border-color:{v.color}">{v.symbol} {esc(text or word)}</span>'
+    )
 
 
 class Workspace:
@@ -146,19 +157,24 @@ class Workspace:
     def __init__(self, context, session):
         self.context = context
         self.session = session
-        self.who = widgets.Text(placeholder="e.g. R. Okonkwo",
-                                layout=widgets.Layout(width="220px"))
+        self.who = widgets.Text(placeholder="e.g. R. Okonkwo", layout=widgets.Layout(width="220px"))
         self.who.add_class("sk-who")
         names = list(session.names)
-        self.picker = widgets.Dropdown(options=names, value=session.current,
-                                       layout=widgets.Layout(width="260px"))
+        self.picker = widgets.Dropdown(
+            options=names, value=session.current, layout=widgets.Layout(width="260px")
+        )
         self.picker.add_class("sk-picker")
-        self.override = widgets.Text(placeholder="why the approved study must change",
-                                     layout=widgets.Layout(width="340px"))
+        self.override = widgets.Text(
+            placeholder="why the approved study must change", layout=widgets.Layout(width="340px")
+        )
         self.override.add_class("sk-override")
         self._override_box = widgets.VBox(
-            [html_box('<div class="sk-field-label">Change an approved study because</div>'),
-             self.override], layout=widgets.Layout(display="none"))
+            [
+                html_box('<div class="sk-field-label">Change an approved study because</div>'),
+                self.override,
+            ],
+            layout=widgets.Layout(display="none"),
+        )
         messages = context.messages
         self.picker.observe(guarded(self._on_pick, messages=messages), names="value")
         session.subscribe(self._on_session)
@@ -167,12 +183,17 @@ class Workspace:
     # --- widgets --------------------------------------------------------------------------------
     def toolbar(self) -> widgets.Widget:
         """Picker + name + lock-override field, for the top of a panel."""
+
         def labelled(text, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
-        bar = widgets.HBox([labelled("Characteristic", self.picker),
-                            labelled("Your name (recorded with each decision)", self.who),
-                            self._override_box])
+        bar = widgets.HBox(
+            [
+                labelled("Characteristic", self.picker),
+                labelled("Your name (recorded with each decision)", self.who),
+                self._override_box,
+            ]
+        )
         bar.add_class("sk-toolbar")
         return bar
 
@@ -241,7 +262,9 @@ def no_study_panel(what: str) -> widgets.Widget:
         '<div class="sk-coming"><b>No study file open.</b><br>'
         f"{esc(what)} works on a study file: start the workbook with "
         "<code>studykit serve STUDY_FILE</code>, or create one from a data file and a "
-        "specifications table with <code>studykit study new</code>.</div>", "sk-no-study")
+        "specifications table with <code>studykit study new</code>.</div>",
+        "sk-no-study",
+    )
 
 
 # --- the overview -------------------------------------------------------------------------------
@@ -273,11 +296,21 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
     rows = []
     for i, name in enumerate(session.names):
         spec = session.study.characteristic(name)
-        row = {"order": i, "characteristic": name, "unit": spec.unit,
-               "safety": spec.safety_critical, "verdict": None, "index": None,
-               "estimate": None, "lower_bound": None, "removed": None,
-               "review": review_state(session, name), "error": None, "analysed": False,
-               "verdict_text": ""}
+        row = {
+            "order": i,
+            "characteristic": name,
+            "unit": spec.unit,
+            "safety": spec.safety_critical,
+            "verdict": None,
+            "index": None,
+            "estimate": None,
+            "lower_bound": None,
+            "removed": None,
+            "review": review_state(session, name),
+            "error": None,
+            "analysed": False,
+            "verdict_text": "",
+        }
         if analyse or session.is_cached(name):
             try:
                 head = session.result(name).headline()
@@ -285,11 +318,16 @@ def overview_rows(session, *, analyse: bool = False) -> list[dict]:
                 row["error"] = str(exc)
             else:
                 row["kind"] = result_kind(session.result(name))
-                row.update(verdict=head["meets"], index=head["index"],
-                           estimate=head["estimate"], lower_bound=head["lower_bound"],
-                           removed=head["removed"], analysed=True,
-                           verdict_text=head["verdict"] or "",
-                           threshold=session.result(name).criteria.get("threshold"))
+                row.update(
+                    verdict=head["meets"],
+                    index=head["index"],
+                    estimate=head["estimate"],
+                    lower_bound=head["lower_bound"],
+                    removed=head["removed"],
+                    analysed=True,
+                    verdict_text=head["verdict"] or "",
+                    threshold=session.result(name).criteria.get("threshold"),
+                )
                 from studykit.app.streams_view import stream_overview_rows
 
                 row["streams"] = stream_overview_rows(session.result(name))
@@ -339,35 +377,51 @@ class OverviewPanel(widgets.VBox):
     def __init__(self, ws):
         self.ws = ws
         messages = ws.context.messages
-        self.sort = widgets.Dropdown(options=[(v, k) for k, v in SORT_KEYS.items()],
-                                     value="characteristic",
-                                     layout=widgets.Layout(width="200px"))
+        self.sort = widgets.Dropdown(
+            options=[(v, k) for k, v in SORT_KEYS.items()],
+            value="characteristic",
+            layout=widgets.Layout(width="200px"),
+        )
         self.sort.add_class("sk-sort")
-        self.descending = widgets.ToggleButton(value=False, description="Descending",
-                                               icon="sort-amount-desc",
-                                               layout=widgets.Layout(width="auto"))
-        self.analyse = widgets.Button(description="Analyse all characteristics",
-                                      button_style="primary", icon="play",
-                                      layout=widgets.Layout(width="auto"))
+        self.descending = widgets.ToggleButton(
+            value=False,
+            description="Descending",
+            icon="sort-amount-desc",
+            layout=widgets.Layout(width="auto"),
+        )
+        self.analyse = widgets.Button(
+            description="Analyse all characteristics",
+            button_style="primary",
+            icon="play",
+            layout=widgets.Layout(width="auto"),
+        )
         self.analyse.add_class("sk-analyse-all")
-        self.progress = widgets.IntProgress(value=0, min=0, max=max(len(ws.session.names), 1),
-                                            description="", layout=widgets.Layout(
-                                                width="260px", display="none"))
+        self.progress = widgets.IntProgress(
+            value=0,
+            min=0,
+            max=max(len(ws.session.names), 1),
+            description="",
+            layout=widgets.Layout(width="260px", display="none"),
+        )
         self.progress.add_class("sk-progress")
         self.progress_text = html_box("", "sk-small")
-        self.table = widgets.GridBox([], layout=widgets.Layout(
-            grid_template_columns="minmax(180px, 1.4fr) minmax(150px, 1fr) 110px 110px 100px "
-                                  "minmax(150px, 1.2fr)", width="100%"))
+        self.table = widgets.GridBox(
+            [],
+            layout=widgets.Layout(
+                grid_template_columns="minmax(180px, 1.4fr) minmax(150px, 1fr) 110px 110px 100px "
+                "minmax(150px, 1.2fr)",
+                width="100%",
+            ),
+        )
         self.table.add_class("sk-ovtable")
         self.sort.observe(guarded(lambda _c: self.render(), messages=messages), names="value")
-        self.descending.observe(guarded(lambda _c: self.render(), messages=messages),
-                                names="value")
+        self.descending.observe(guarded(lambda _c: self.render(), messages=messages), names="value")
         self.analyse.on_click(guarded(lambda _b: self.analyse_all(), messages=messages))
         head = html_box('<div class="sk-section">Characteristics at a glance</div>')
-        controls = widgets.HBox([html_box('<div class="sk-field-label">Sort by</div>'),
-                                 self.sort, self.descending],
-                                layout=widgets.Layout(align_items="center",
-                                                      flex_flow="row wrap"))
+        controls = widgets.HBox(
+            [html_box('<div class="sk-field-label">Sort by</div>'), self.sort, self.descending],
+            layout=widgets.Layout(align_items="center", flex_flow="row wrap"),
+        )
         self.chart = OverviewChart()
         super().__init__([head, controls, self.chart.box, self.table])
         self.add_class("sk-overview-panel")
@@ -396,16 +450,20 @@ class OverviewPanel(widgets.VBox):
         "not analysed yet"."""
         session = self.ws.session
         rows = overview_rows(session, analyse=True)  # cached results are not recomputed
-        key = (id(session.study), tuple(session.is_cached(n) for n in session.names),
-               self.sort.value, self.descending.value, session.current)
+        key = (
+            id(session.study),
+            tuple(session.is_cached(n) for n in session.names),
+            self.sort.value,
+            self.descending.value,
+            session.current,
+        )
         if not force and key == self._key:
             return
         self._key = key
         rows = sort_rows(rows, self.sort.value, descending=self.descending.value)
         self.chart.update(rows)
         if self._head is None:
-            heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed",
-                     "Review state"]
+            heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed", "Review state"]
             self._head = []
             for i, h in enumerate(heads):
                 cell = html_box(esc(h), "sk-ovcell", "sk-ovhead")
@@ -424,37 +482,63 @@ class OverviewPanel(widgets.VBox):
         """The six cells of one row; widgets are made once per characteristic and reused."""
         name = r["characteristic"]
         if name not in self._rows:
-            b = widgets.Button(description=name, tooltip=f"Open {name} in the Stability step",
-                               layout=widgets.Layout(width="auto"))
+            b = widgets.Button(
+                description=name,
+                tooltip=f"Open {name} in the Stability step",
+                layout=widgets.Layout(width="auto"),
+            )
             b.add_class("sk-link")
             b.add_class(f"sk-open-{name}")
-            b.on_click(guarded(lambda _b, n=name: self.ws.open(n, "stability"),
-                               messages=self.ws.context.messages))
+            b.on_click(
+                guarded(
+                    lambda _b, n=name: self.ws.open(n, "stability"),
+                    messages=self.ws.context.messages,
+                )
+            )
             mark = html_box("")
             name_cell = widgets.HBox([b, mark])
             name_cell.add_class("sk-ovcell")
-            others = [html_box("", "sk-ovcell"), html_box("", "sk-ovcell", "num"),
-                      html_box("", "sk-ovcell", "num"), html_box("", "sk-ovcell", "num"),
-                      html_box("", "sk-ovcell")]
+            others = [
+                html_box("", "sk-ovcell"),
+                html_box("", "sk-ovcell", "num"),
+                html_box("", "sk-ovcell", "num"),
+                html_box("", "sk-ovcell", "num"),
+                html_box("", "sk-ovcell"),
+            ]
             self._rows[name] = (name_cell, mark, others)
         name_cell, mark, others = self._rows[name]
         caution = theme.VERDICTS["caution"]
-        safety = (f' <span title="safety-critical" style="color:{caution.text_color}">'
-                  f"{caution.symbol}</span>") if r["safety"] else ""
+        safety = (
+            (
+                f' <span title="safety-critical" style="color:{caution.text_color}">'
+                f"{caution.symbol}</span>"
+            )
+            if r["safety"]
+            else ""
+        )
         mark.value = safety + (" ◂" if name == current else "")
         if r["error"]:
-            verdict = (f'<span class="sk-muted" title="{esc(r["error"])}">'
-                       f'{names.VERDICT_STATES["cannot_analyse"]}</span>')
+            verdict = (
+                f'<span class="sk-muted" title="{esc(r["error"])}">'
+                f"{names.VERDICT_STATES['cannot_analyse']}</span>"
+            )
         elif not r["analysed"]:
             verdict = f'<span class="sk-muted">{names.VERDICT_STATES["not_analysed"]}</span>'
         else:
             kind, word = r.get("kind") or ("withheld", names.VERDICT_STATES["no_verdict"])
             verdict = verdict_chip(r["verdict"], text=word, kind=kind)
-        index_text = (f"{esc(names.index_label(r['index'] or ''))} {fmt(r['estimate'], 2)}"
-                      if r["analysed"] and r["estimate"] is not None else "—")
-        values = [f'<span title="{esc(r["verdict_text"])}">{verdict}</span>', index_text,
-                  fmt(r["lower_bound"], 2) if r["analysed"] else "—",
-                  esc(r["removed"]) if r["analysed"] else "—", esc(r["review"])]
+        index_text = (
+            f"{esc(names.index_label(r['index'] or ''))} {fmt(r['estimate'], 2)}"
+            if r["analysed"] and r["estimate"] is not None
+            else "—"
+        )
+        values = [
+            f'<span title="{esc(r["verdict_text"])}">{verdict}</span>',
+            index_text,
+            fmt(r["lower_bound"], 2) if r["analysed"] else "—",
+            esc(r["removed"]) if r["analysed"] else "—",
+            esc(r["review"]),
+        ]
         for cell, value in zip(others, values, strict=True):
             if cell.value != value:
                 cell.value = value
@@ -484,25 +568,71 @@ class OverviewChart:
         from studykit.app.charts import LiveChart
 
         self.source = ColumnDataSource(self._columns([]))
-        f = figure(height=120, sizing_mode="stretch_width", y_range=["—"], x_range=Range1d(0, 2),
-                   tools="save", x_axis_label="Judged capability index")
-        need = f.scatter("threshold", "name", source=self.source, marker="dash",
-                         angle=1.5708, size=26, line_color=theme.ROLES["spec_limit"].color,
-                         line_width=3)
-        span = f.segment(x0="lower_bound", x1="estimate", y0="name", y1="name",
-                         source=self.source, line_color=theme.INK_SOFT, line_width=2)
-        est = f.scatter("estimate", "name", source=self.source, marker="marker", size=13,
-                        fill_color="color", line_color="line", line_width=2)
-        f.add_tools(HoverTool(renderers=[est], tooltips=[
-            ("Characteristic", "@name"), ("Index", "@index"), ("Estimate", "@estimate{0.00}"),
-            ("Lower bound", "@lower_bound{0.00}"), ("Required", "@threshold{0.00}"),
-            ("Verdict", "@word")]))
-        f.add_layout(Legend(items=[LegendItem(label="Estimate (marker and colour: verdict)",
-                                              renderers=[est]),
-                                   LegendItem(label="Lower bound to estimate", renderers=[span]),
-                                   LegendItem(label="Required", renderers=[need])],
-                            orientation="horizontal", location="top_left", spacing=12,
-                            label_text_font_size="12px", border_line_color=None), "above")
+        f = figure(
+            height=120,
+            sizing_mode="stretch_width",
+            y_range=["—"],
+            x_range=Range1d(0, 2),
+            tools="save",
+            x_axis_label="Judged capability index",
+        )
+        need = f.scatter(
+            "threshold",
+            "name",
+            source=self.source,
+            marker="dash",
+            angle=1.5708,
+            size=26,
+            line_color=theme.ROLES["spec_limit"].color,
+            line_width=3,
+        )
+        span = f.segment(
+            x0="lower_bound",
+            x1="estimate",
+            y0="name",
+            y1="name",
+            source=self.source,
+            line_color=theme.INK_SOFT,
+            line_width=2,
+        )
+        est = f.scatter(
+            "estimate",
+            "name",
+            source=self.source,
+            marker="marker",
+            size=13,
+            fill_color="color",
+            line_color="line",
+            line_width=2,
+        )
+        f.add_tools(
+            HoverTool(
+                renderers=[est],
+                tooltips=[
+                    ("Characteristic", "@name"),
+                    ("Index", "@index"),
+                    ("Estimate", "@estimate{0.00}"),
+                    ("Lower bound", "@lower_bound{0.00}"),
+                    ("Required", "@threshold{0.00}"),
+                    ("Verdict", "@word"),
+                ],
+            )
+        )
+        f.add_layout(
+            Legend(
+                items=[
+                    LegendItem(label="Estimate (marker and colour: verdict)", renderers=[est]),
+                    LegendItem(label="Lower bound to estimate", renderers=[span]),
+                    LegendItem(label="Required", renderers=[need]),
+                ],
+                orientation="horizontal",
+                location="top_left",
+                spacing=12,
+                label_text_font_size="12px",
+                border_line_color=None,
+            ),
+            "above",
+        )
         theme.style_bokeh_figure(f)
         f.toolbar_location = None
         self.figure = f
@@ -511,8 +641,20 @@ class OverviewChart:
     @staticmethod
     def _columns(rows: list[dict]) -> dict:
         markers = {"pass": "circle", "fail": "x", "caution": "triangle", "pending": "square"}
-        cols = {k: [] for k in ("name", "index", "estimate", "lower_bound", "threshold", "color",
-                                "line", "marker", "word")}
+        cols = {
+            k: []
+            for k in (
+                "name",
+                "index",
+                "estimate",
+                "lower_bound",
+                "threshold",
+                "color",
+                "line",
+                "marker",
+                "word",
+            )
+        }
         for r in rows:
             if not r.get("analysed") or r.get("estimate") is None:
                 continue
@@ -532,11 +674,16 @@ class OverviewChart:
 
     def update(self, rows: list[dict]) -> None:
         cols = self._columns(rows)
-        left_out = [r["characteristic"] for r in rows
-                    if not r.get("analysed") or r.get("estimate") is None]
-        self.note.value = ("No index to draw for: " + ", ".join(esc(n) for n in left_out)
-                           + " (counted data, not analysable, or no specification limit)."
-                           if left_out else "")
+        left_out = [
+            r["characteristic"] for r in rows if not r.get("analysed") or r.get("estimate") is None
+        ]
+        self.note.value = (
+            "No index to draw for: "
+            + ", ".join(esc(n) for n in left_out)
+            + " (counted data, not analysable, or no specification limit)."
+            if left_out
+            else ""
+        )
         key = repr(cols)
         if key == self._drawn:
             return
@@ -546,8 +693,9 @@ class OverviewChart:
             return
         if self._live is None:
             self._build()
-        values = [v for k in ("estimate", "lower_bound", "threshold") for v in cols[k]
-                  if math.isfinite(v)]
+        values = [
+            v for k in ("estimate", "lower_bound", "threshold") for v in cols[k] if math.isfinite(v)
+        ]
         lo, hi = min(values), max(values)
         pad = 0.1 * (hi - lo or 1.0)
         self.figure.x_range.start, self.figure.x_range.end = max(0.0, lo - pad), hi + pad

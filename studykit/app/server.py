@@ -148,8 +148,10 @@ def preload_links(base_url: str) -> str:
     >>> 'href="/voila/static/voila.js"' in preload_links("/")
     True
     """
-    urls = [url_path_join(base_url, "voila/static/voila.js"),
-            url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0])]
+    urls = [
+        url_path_join(base_url, "voila/static/voila.js"),
+        url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0]),
+    ]
     return "".join(f'<link rel="preload" as="script" href="{u}">' for u in urls)
 
 
@@ -159,17 +161,23 @@ class StudykitVoila(Voila):
     name = "studykit-voila"
 
     allow_hosts = Unicode(
-        "", config=True,
+        "",
+        config=True,
         help="More names (comma-separated) accepted in the Host header, besides the loopback "
-             "names and the bound address (`studykit serve --allow-host`).")
+        "names and the bound address (`studykit serve --allow-host`).",
+    )
     kernel_idle_minutes = Float(
-        DEFAULT_KERNEL_IDLE_MINUTES, config=True,
+        DEFAULT_KERNEL_IDLE_MINUTES,
+        config=True,
         help="A kernel with no page connected is shut down after this many idle minutes "
-             "(0: never). Sets MappingKernelManager.cull_idle_timeout unless that is given.")
+        "(0: never). Sets MappingKernelManager.cull_idle_timeout unless that is given.",
+    )
     concurrent_page_starts = Integer(
-        0, config=True,
+        0,
+        config=True,
         help="Pages whose kernel is started and whose notebook is run at the same time; more "
-             "wait their turn (0: the number of CPUs, at least 1, at most 4).")
+        "wait their turn (0: the number of CPUs, at least 1, at most 4).",
+    )
 
     def initialize(self, argv=None):
         super().initialize(argv)
@@ -179,8 +187,9 @@ class StudykitVoila(Voila):
         if self.kernel_idle_minutes > 0:
             idle = max(1, round(self.kernel_idle_minutes * 60))
             self._set_config_if_unset("MappingKernelManager", "cull_idle_timeout", idle)
-            self._set_config_if_unset("MappingKernelManager", "cull_interval",
-                                 max(1, min(60, idle // 4)))
+            self._set_config_if_unset(
+                "MappingKernelManager", "cull_interval", max(1, min(60, idle // 4))
+            )
         extra = [n.strip() for n in self.allow_hosts.split(",") if n.strip()]
         self.host_policy = HostPolicy(self.ip or "", extra, machine_name=socket.gethostname())
 
@@ -197,8 +206,14 @@ class StudykitVoila(Voila):
         route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
         handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
         if fontawesome_dir() is not None:
-            handlers.insert(0, (url_path_join(self.server_url, FONTAWESOME_ROUTE, r"(.*)"),
-                                FontAwesomeHandler, {"path": str(fontawesome_dir())}))
+            handlers.insert(
+                0,
+                (
+                    url_path_join(self.server_url, FONTAWESOME_ROUTE, r"(.*)"),
+                    FontAwesomeHandler,
+                    {"path": str(fontawesome_dir())},
+                ),
+            )
         # first of all: refuse foreign Host names and cross-origin requests on every route
         handlers.insert(0, request_rule(self.host_policy, self.log))
         return handlers
@@ -210,8 +225,9 @@ class StudykitVoila(Voila):
         settings["log_function"] = log_request  # the path, never the query string
         slots = self.concurrent_page_starts or min(4, max(1, os.cpu_count() or 1))
         settings[_SLOTS] = asyncio.Semaphore(slots)
-        settings[_HEAD_SNIPPET] = (preload_links(self.base_url)
-                                   + upload_guard_script(MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE))
+        settings[_HEAD_SNIPPET] = preload_links(self.base_url) + upload_guard_script(
+            MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE
+        )
         return settings
 
     def start(self):
@@ -221,8 +237,7 @@ class StudykitVoila(Voila):
         if token:
             self.token = token
         install_redaction(token or None, loggers=[self.log])
-        os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url,
-                                                    BOKEHJS_ROUTE)
+        os.environ[ENV_BOKEHJS_URL] = url_path_join(self.base_url, BOKEHJS_ROUTE)
         self._watch_parent()
         # (browser signing) tell the kernels whether this server is loopback, token or open
         from studykit.app.access import ENV_ACCESS, access_kind
@@ -266,8 +281,15 @@ class ServerProcess:
 
 
 @contextlib.contextmanager
-def server_process(path, *, port: int | None = None, env: dict | None = None,
-                   extra_args: tuple[str, ...] = (), timeout: float = 90.0, log=None):
+def server_process(
+    path,
+    *,
+    port: int | None = None,
+    env: dict | None = None,
+    extra_args: tuple[str, ...] = (),
+    timeout: float = 90.0,
+    log=None,
+):
     """Run this server on a notebook or folder in a subprocess; yield a :class:`ServerProcess`.
 
     For tests and benchmarks. The server runs in its own process group, which is stopped
@@ -277,12 +299,25 @@ def server_process(path, *, port: int | None = None, env: dict | None = None,
     port = port or free_port()
     path = os.fspath(path)
     cwd = path if os.path.isdir(path) else os.path.dirname(os.path.abspath(path))
-    cmd = [sys.executable, "-m", "studykit.app.server", os.path.abspath(path), "--no-browser",
-           f"--port={port}", "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", *extra_args]
-    proc = subprocess.Popen(cmd, cwd=cwd,
-                            env={**os.environ, ENV_PARENT_PID: str(os.getpid()), **(env or {})},
-                            stdout=log or subprocess.DEVNULL, stderr=subprocess.STDOUT,
-                            start_new_session=True)
+    cmd = [
+        sys.executable,
+        "-m",
+        "studykit.app.server",
+        os.path.abspath(path),
+        "--no-browser",
+        f"--port={port}",
+        "--Voila.ip=127.0.0.1",
+        "--Voila.port_retries=0",
+        *extra_args,
+    ]
+    proc = subprocess.Popen(
+        cmd,
+        cwd=cwd,
+        env={**os.environ, ENV_PARENT_PID: str(os.getpid()), **(env or {})},
+        stdout=log or subprocess.DEVNULL,
+        stderr=subprocess.STDOUT,
+        start_new_session=True,
+    )
     url = f"http://127.0.0.1:{port}/"
     try:
         deadline = time.monotonic() + timeout
@@ -333,7 +368,7 @@ def kernel_pids(server_pid: int) -> dict[str, int]:
         for arg in args:
             name = os.path.basename(arg)
             if name.startswith("kernel-") and name.endswith(".json"):
-                found[name[len("kernel-"):-len(".json")]] = int(entry.name)
+                found[name[len("kernel-") : -len(".json")]] = int(entry.name)
     return found
 
 

@@ -101,15 +101,19 @@ class HostPolicy:
         """Why ``request`` is refused (a sentence without the query string), or None."""
         host = request.headers.get("Host")
         if not self.host_allowed(host):
-            return (f"the address name {host!r} is not one of this server's names; a page of "
-                    "another site may be trying to reach the workbook. If colleagues use this "
-                    "name, restart with `studykit serve --allow-host NAME`")
+            return (
+                f"the address name {host!r} is not one of this server's names; a page of "
+                "another site may be trying to reach the workbook. If colleagues use this "
+                "name, restart with `studykit serve --allow-host NAME`"
+            )
         origin = request.headers.get("Origin")
         if origin is not None:
             parts = urlsplit(origin.strip())
             if origin.strip().lower() == "null" or parts.netloc.lower() != host.strip().lower():
-                return (f"the request comes from a page of another site ({origin!r}); only the "
-                        "workbook's own page may use this server")
+                return (
+                    f"the request comes from a page of another site ({origin!r}); only the "
+                    "workbook's own page may use this server"
+                )
         return None
 
 
@@ -144,8 +148,9 @@ class RefusedHandler(tornado.web.RequestHandler):
 
 def request_rule(policy: HostPolicy, log: logging.Logger | None = None) -> tornado.routing.Rule:
     """The routing rule to put first, so no other handler sees a refused request."""
-    return tornado.routing.Rule(ForeignRequestMatcher(policy), RefusedHandler,
-                                {"policy": policy, "log": log})
+    return tornado.routing.Rule(
+        ForeignRequestMatcher(policy), RefusedHandler, {"policy": policy, "log": log}
+    )
 
 
 # --- the access token in logs and requests ------------------------------------------------------
@@ -244,8 +249,15 @@ def log_request(handler) -> None:
         level = logging.WARNING
     else:
         level = logging.ERROR
-    logger.log(level, "%d %s %s (%s) %.1f ms", status, request.method, request.path,
-               request.remote_ip, 1000.0 * request.request_time())
+    logger.log(
+        level,
+        "%d %s %s (%s) %.1f ms",
+        status,
+        request.method,
+        request.path,
+        request.remote_ip,
+        1000.0 * request.request_time(),
+    )
 
 
 # --- uploads above the limit --------------------------------------------------------------------
@@ -355,7 +367,7 @@ def inject_into_head(html: str, snippet: str) -> tuple[str, bool]:
     m = _HEAD.search(html)
     if not m:
         return html, False
-    return html[: m.end()] + snippet + html[m.end():], True
+    return html[: m.end()] + snippet + html[m.end() :], True
 
 
 def restore_stop_signals() -> None:

@@ -96,8 +96,13 @@ class Proposal:
     reason: str
 
     def to_dict(self) -> dict:
-        return {"label": self.label, "rule": self.rule, "chart": self.chart,
-                "iteration": self.iteration, "reason": self.reason}
+        return {
+            "label": self.label,
+            "rule": self.rule,
+            "chart": self.chart,
+            "iteration": self.iteration,
+            "reason": self.reason,
+        }
 
 
 @dataclass(frozen=True)
@@ -129,9 +134,16 @@ class RemovalRow:
     in_force: bool
 
     def to_dict(self) -> dict:
-        return {"label": self.label, "action": self.action, "who": self.who, "when": self.when,
-                "reason": self.reason, "origin": self.origin, "rule": self.rule,
-                "in_force": self.in_force}
+        return {
+            "label": self.label,
+            "action": self.action,
+            "who": self.who,
+            "when": self.when,
+            "reason": self.reason,
+            "origin": self.origin,
+            "rule": self.rule,
+            "in_force": self.in_force,
+        }
 
 
 def _check_name(who: str) -> str:
@@ -139,7 +151,8 @@ def _check_name(who: str) -> str:
     if not who:
         raise StudyInputError(
             "`who` is empty: type your name in the 'Your name' field at the top of the panel; "
-            "every decision in the study file carries the name of the person who made it")
+            "every decision in the study file carries the name of the person who made it"
+        )
     return who
 
 
@@ -148,7 +161,8 @@ def _check_reason(reason: str, *, what: str) -> str:
     if not reason:
         raise StudyInputError(
             f"`reason` is empty: {what} needs a reason on record, e.g. 'tool change, logged in "
-            "shift book'")
+            "shift book'"
+        )
     return reason
 
 
@@ -239,14 +253,27 @@ class StudySession:
 
     def _fingerprint(self, name: str) -> str:
         s = self.study
-        excluded = {k: [d.reason, d.who, d.automatic]
-                    for k, d in s.excluded_subgroups(name).items()}
-        settings = [[d.action, dict(d.payload)] for d in s.decisions
-                    if d.characteristic == name and d.action.startswith("set_")]
-        return json.dumps([s.data_sha256, s.characteristic(name).to_dict(),
-                           s.criteria_for(name).to_dict(), excluded, settings,
-                           self._gauge_key(name), self._kept_key(name)],
-                          sort_keys=True, default=str)
+        excluded = {
+            k: [d.reason, d.who, d.automatic] for k, d in s.excluded_subgroups(name).items()
+        }
+        settings = [
+            [d.action, dict(d.payload)]
+            for d in s.decisions
+            if d.characteristic == name and d.action.startswith("set_")
+        ]
+        return json.dumps(
+            [
+                s.data_sha256,
+                s.characteristic(name).to_dict(),
+                s.criteria_for(name).to_dict(),
+                excluded,
+                settings,
+                self._gauge_key(name),
+                self._kept_key(name),
+            ],
+            sort_keys=True,
+            default=str,
+        )
 
     def _gauge_key(self, name: str):
         g = getattr(self, "_gauges", None)
@@ -274,8 +301,13 @@ class StudySession:
             raise AnalysisError(failed[1])
         start = time.perf_counter()
         try:
-            res = analyze_study(self.study, name, measurements=self.measurements,
-                                options=self.options, gauge=self._gauge_key(name))
+            res = analyze_study(
+                self.study,
+                name,
+                measurements=self.measurements,
+                options=self.options,
+                gauge=self._gauge_key(name),
+            )
         except StudyInputError as exc:
             self._errors[name] = (key, str(exc))
             raise
@@ -324,8 +356,13 @@ class StudySession:
         name = name or self.current
         res = self.result(name)
         chart = res.chart
-        key = (name, chart.kind, self.study.characteristic(name).subgroup_size,
-               res.chart_scale, repr(getattr(res.model, "parameters", None)))
+        key = (
+            name,
+            chart.kind,
+            self.study.characteristic(name).subgroup_size,
+            res.chart_scale,
+            repr(getattr(res.model, "parameters", None)),
+        )
         if key not in self._full_charts:
             data = self.data(name)
             values = np.asarray(data.values, dtype=float)
@@ -339,12 +376,14 @@ class StudySession:
                 sizes = sizes[keep]
             values, labels = values[keep], labels[keep]
             if spec.subgroup_size and len(set(labels.tolist())) == labels.size:
-                labels = np.array([str(i // int(spec.subgroup_size) + 1)
-                                   for i in range(labels.size)])
+                labels = np.array(
+                    [str(i // int(spec.subgroup_size) + 1) for i in range(labels.size)]
+                )
             values = res.to_chart_scale(values)  # a chart on the model's scale (phase I)
             try:
-                self._full_charts[key] = control_chart(values, labels, kind=chart.kind,
-                                                       sizes=sizes, evaluate=False)
+                self._full_charts[key] = control_chart(
+                    values, labels, kind=chart.kind, sizes=sizes, evaluate=False
+                )
             except StudyInputError:
                 self._full_charts[key] = None
         return self._full_charts[key]
@@ -381,17 +420,27 @@ class StudySession:
     def removal_log(self, name: str | None = None) -> list[RemovalRow]:
         """Every exclude/restore decision of ``name`` in the order made (from the study file)."""
         name = name or self.current
-        decisions = [d for d in self.study.decisions
-                     if d.characteristic == name and d.action in ("exclude", "restore")]
+        decisions = [
+            d
+            for d in self.study.decisions
+            if d.characteristic == name and d.action in ("exclude", "restore")
+        ]
         in_force = self.study.excluded_subgroups(name)
         rows = []
         for d in decisions:
             rule = d.payload.get("rule") if d.payload else None
-            rows.append(RemovalRow(
-                label=d.subgroup, action=d.action, who=d.who, when=d.when, reason=d.reason,
-                origin="rule" if d.automatic or rule else "person",
-                rule=None if rule is None else str(rule),
-                in_force=d.action == "exclude" and in_force.get(d.subgroup) is d))
+            rows.append(
+                RemovalRow(
+                    label=d.subgroup,
+                    action=d.action,
+                    who=d.who,
+                    when=d.when,
+                    reason=d.reason,
+                    origin="rule" if d.automatic or rule else "person",
+                    rule=None if rule is None else str(rule),
+                    in_force=d.action == "exclude" and in_force.get(d.subgroup) is d,
+                )
+            )
         return rows
 
     # --- sign-off state -----------------------------------------------------------------------
@@ -436,7 +485,8 @@ class StudySession:
                 f"the study is approved (by {holder.name} on {holder.when}) and therefore "
                 f"locked: {what} would change it. To change it anyway, give the reason in "
                 "'Change an approved study because' (`override_reason`); the change then voids "
-                "the approval, which stays on record as voided")
+                "the approval, which stays on record as voided"
+            )
         return {}
 
     def _saved(self, changed: Iterable[str]) -> None:
@@ -448,8 +498,9 @@ class StudySession:
         self.study = self.file.load()
         self.view_version = version
         # someone may have written right after this write: that is news for this page
-        self.external_changes = (self.file.entries_since(after)
-                                 if after is not None and version > after else [])
+        self.external_changes = (
+            self.file.entries_since(after) if after is not None and version > after else []
+        )
         if was_current and self.page_version is not None and before == self.page_version:
             self.page_version = after  # not `version`: the page has not seen later writes
         self._notify(changed)
@@ -504,30 +555,48 @@ class StudySession:
             raise StaleView(
                 f"Nothing was saved: the study changed after this page was drawn ({what}). The "
                 "page now shows the study as it is: check it, then do it again if it still "
-                "applies", newer) from None
+                "applies",
+                newer,
+            ) from None
 
-    def attach_result(self, kind: str, name: str, payload, *, who: str, reason: str,
-                      override_reason: str | None = None) -> int:
+    def attach_result(
+        self,
+        kind: str,
+        name: str,
+        payload,
+        *,
+        who: str,
+        reason: str,
+        override_reason: str | None = None,
+    ) -> int:
         """Keep a result (e.g. a gauge study) beside ``name``; refused, like every other write
         from a page, when the page shows an older state of the study file."""
-        lock = ({"override_lock": True, "override_reason": override_reason}
-                if override_reason else {})
+        lock = (
+            {"override_lock": True, "override_reason": override_reason} if override_reason else {}
+        )
         with self._acting():
             return self.file.attach_result(kind, name, payload, who=who, reason=reason, **lock)
 
-    def exclude(self, name: str, subgroup, *, reason: str, who: str,
-                override_reason: str | None = None) -> None:
+    def exclude(
+        self, name: str, subgroup, *, reason: str, who: str, override_reason: str | None = None
+    ) -> None:
         """Record the exclusion of one subgroup (a person's decision)."""
         who = _check_name(who)
         reason = _check_reason(reason, what=f"removing subgroup {subgroup}")
         self._check_subgroup(name, subgroup)
         with self._acting():
-            self.file.exclude(name, str(subgroup), reason=reason, who=who,
-                              **self._lock(override_reason, f"removing subgroup {subgroup}"))
+            self.file.exclude(
+                name,
+                str(subgroup),
+                reason=reason,
+                who=who,
+                **self._lock(override_reason, f"removing subgroup {subgroup}"),
+            )
         self._saved([name])
 
-    def restore(self, name: str, subgroup, *, reason: str, who: str,
-                override_reason: str | None = None) -> None:
+    def restore(
+        self, name: str, subgroup, *, reason: str, who: str, override_reason: str | None = None
+    ) -> None:
         """Bring an excluded subgroup back (recorded with who and why)."""
         who = _check_name(who)
         reason = _check_reason(reason, what=f"restoring subgroup {subgroup}")
@@ -535,10 +604,16 @@ class StudySession:
             raise StudyInputError(
                 f"subgroup {subgroup} of '{name}' is not excluded, so there is nothing to "
                 "restore; pick one of: "
-                + (", ".join(self.study.excluded_subgroups(name)) or "none"))
+                + (", ".join(self.study.excluded_subgroups(name)) or "none")
+            )
         with self._acting():
-            self.file.restore(name, str(subgroup), reason=reason, who=who,
-                              **self._lock(override_reason, f"restoring subgroup {subgroup}"))
+            self.file.restore(
+                name,
+                str(subgroup),
+                reason=reason,
+                who=who,
+                **self._lock(override_reason, f"restoring subgroup {subgroup}"),
+            )
         self._saved([name])
 
     def _check_subgroup(self, name: str, subgroup) -> None:
@@ -550,11 +625,13 @@ class StudySession:
         if str(subgroup) not in labels:
             raise StudyInputError(
                 f"`subgroup` ({subgroup!r}) is not a subgroup of '{name}'; pick one shown on "
-                "the chart")
+                "the chart"
+            )
         if str(subgroup) in self.study.excluded_subgroups(name):
             raise StudyInputError(
                 f"subgroup {subgroup} of '{name}' is already excluded; restore it first if the "
-                "reason should change")
+                "reason should change"
+            )
 
     def propose_removals(self, name: str | None = None) -> tuple[Proposal, ...]:
         """What the automatic phase-I run would remove on top of the recorded exclusions.
@@ -563,20 +640,37 @@ class StudySession:
         then :meth:`record_removals` writes the accepted ones.
         """
         name = name or self.current
-        res = analyze_study(self.study, name, measurements=self.measurements,
-                            options=replace(self.options, phase1="auto"))
+        res = analyze_study(
+            self.study,
+            name,
+            measurements=self.measurements,
+            options=replace(self.options, phase1="auto"),
+        )
         manual = set(self.study.excluded_subgroups(name))
         out = []
         for r in res.phase1.removals:
             label = str(r.label.item() if hasattr(r.label, "item") else r.label)
             if r.rule == "manual" or label in manual:
                 continue
-            out.append(Proposal(label=label, rule=str(r.rule), chart=r.chart,
-                                iteration=int(r.iteration), reason=str(r.reason)))
+            out.append(
+                Proposal(
+                    label=label,
+                    rule=str(r.rule),
+                    chart=r.chart,
+                    iteration=int(r.iteration),
+                    reason=str(r.reason),
+                )
+            )
         return tuple(out)
 
-    def record_removals(self, name: str, accepted: Sequence[tuple[Proposal, str]], *, who: str,
-                        override_reason: str | None = None) -> int:
+    def record_removals(
+        self,
+        name: str,
+        accepted: Sequence[tuple[Proposal, str]],
+        *,
+        who: str,
+        override_reason: str | None = None,
+    ) -> int:
         """Record accepted proposals in one transaction: ``[(proposal, reason), ...]``.
 
         Each becomes an ``exclude`` decision marked automatic (proposed by the rule), with the
@@ -586,8 +680,9 @@ class StudySession:
         who = _check_name(who)
         items = []
         for proposal, reason in accepted:
-            reason = _check_reason(reason, what=f"accepting the removal of subgroup "
-                                                f"{proposal.label}")
+            reason = _check_reason(
+                reason, what=f"accepting the removal of subgroup {proposal.label}"
+            )
             items.append((proposal, reason))
         if not items:
             return 0
@@ -599,9 +694,19 @@ class StudySession:
             for proposal, reason in items:
                 kwargs = lock if first else {}
                 study = study.exclude(
-                    name, proposal.label, reason=reason, who=who, automatic=True,
-                    payload={"rule": proposal.rule, "chart": proposal.chart,
-                             "signal": proposal.reason, "accepted_by": who}, **kwargs)
+                    name,
+                    proposal.label,
+                    reason=reason,
+                    who=who,
+                    automatic=True,
+                    payload={
+                        "rule": proposal.rule,
+                        "chart": proposal.chart,
+                        "signal": proposal.reason,
+                        "accepted_by": who,
+                    },
+                    **kwargs,
+                )
                 first = False
             return study
 
@@ -610,9 +715,16 @@ class StudySession:
         self._saved([name])
         return len(items)
 
-    def update_characteristic(self, name: str, *, who: str, reason: str,
-                              spec: Mapping | None = None, criteria: Criteria | None = None,
-                              override_reason: str | None = None) -> bool:
+    def update_characteristic(
+        self,
+        name: str,
+        *,
+        who: str,
+        reason: str,
+        spec: Mapping | None = None,
+        criteria: Criteria | None = None,
+        override_reason: str | None = None,
+    ) -> bool:
         """Change specification fields and/or the criterion of ``name`` in one transaction.
 
         Only fields that differ from the current ones are recorded. Returns False when nothing
@@ -641,17 +753,31 @@ class StudySession:
         self._saved([name])
         return True
 
-    def set_model(self, name: str, model: str, *, who: str, reason: str,
-                  override_reason: str | None = None) -> None:
+    def set_model(
+        self, name: str, model: str, *, who: str, reason: str, override_reason: str | None = None
+    ) -> None:
         """Record the model choice (``auto``, ``normal``, ``boxcox``, ``johnson`` or a family)."""
-        self._setting(name, "set_model", {"model": str(model)}, who=who, reason=reason,
-                      override_reason=override_reason)
+        self._setting(
+            name,
+            "set_model",
+            {"model": str(model)},
+            who=who,
+            reason=reason,
+            override_reason=override_reason,
+        )
 
-    def set_chart(self, name: str, chart: str, *, who: str, reason: str,
-                  override_reason: str | None = None) -> None:
+    def set_chart(
+        self, name: str, chart: str, *, who: str, reason: str, override_reason: str | None = None
+    ) -> None:
         """Record the control chart choice (``auto``, ``xbar_r``, ``imr`` ...)."""
-        self._setting(name, "set_chart", {"chart": str(chart)}, who=who, reason=reason,
-                      override_reason=override_reason)
+        self._setting(
+            name,
+            "set_chart",
+            {"chart": str(chart)},
+            who=who,
+            reason=reason,
+            override_reason=override_reason,
+        )
 
     def _setting(self, name, action, payload, *, who, reason, override_reason):
         from studykit.study import Decision
@@ -666,14 +792,19 @@ class StudySession:
         with self._acting():
             self.file.append_decision(
                 Decision(name, action, reason=reason, who=who, payload=payload),
-                **self._lock(override_reason, f"the {action} decision"))
+                **self._lock(override_reason, f"the {action} decision"),
+            )
         self._saved([name])
 
     def preview(self, name: str, *, model: str | None = None):
         """The result of ``name`` with another model, not recorded (for a before/after view)."""
-        return analyze_study(self.study, name, measurements=self.measurements,
-                             options=replace(self.options, model=model or None),
-                             gauge=self._gauge_key(name))
+        return analyze_study(
+            self.study,
+            name,
+            measurements=self.measurements,
+            options=replace(self.options, model=model or None),
+            gauge=self._gauge_key(name),
+        )
 
     def add_comment(self, text: str, *, who: str, characteristic: str | None = None) -> None:
         """A comment on the study or one characteristic (allowed on an approved study)."""
@@ -687,8 +818,15 @@ class StudySession:
     def comments(self, characteristic: str | None = None, *, all_: bool = False) -> list:
         return [c for c in self.study.comments if all_ or c.characteristic == characteristic]
 
-    def sign(self, *, who: str, role: str, decision: str, comment: str = "",
-             seen_digest: str | None = None):
+    def sign(
+        self,
+        *,
+        who: str,
+        role: str,
+        decision: str,
+        comment: str = "",
+        seen_digest: str | None = None,
+    ):
         """Sign the study as this page shows it; returns the saved SignOff.
 
         The sign-off records the content digest of the study shown (``seen_digest``, default
@@ -708,9 +846,14 @@ class StudySession:
         if probe.is_approval and self.study.signoff_rules().get("approval_needs_verdicts"):
             missing = self.open_verdicts()
         with self._acting():
-            s = self.file.add_signoff(who, role=role.strip(), decision=decision,
-                                      comment=comment, expected_digest=seen,
-                                      check=make_check(missing))
+            s = self.file.add_signoff(
+                who,
+                role=role.strip(),
+                decision=decision,
+                comment=comment,
+                expected_digest=seen,
+                check=make_check(missing),
+            )
         self._saved(())
         return s
 
@@ -732,8 +875,15 @@ class StudySession:
                 results[name] = str(exc)
         return open_verdicts(self.study, results)
 
-    def waive(self, name: str, *, reason: str, who: str, withdraw: bool = False,
-              override_reason: str | None = None) -> None:
+    def waive(
+        self,
+        name: str,
+        *,
+        reason: str,
+        who: str,
+        withdraw: bool = False,
+        override_reason: str | None = None,
+    ) -> None:
         """Record (or withdraw) a waiver: ``name`` may be approved without a verdict."""
         from studykit.study import Decision
 
@@ -742,17 +892,32 @@ class StudySession:
         self.study.characteristic(name)
         waived = name in self.study.waivers()
         if withdraw != waived:
-            raise StudyInputError(f"'{name}' has no waiver to withdraw" if withdraw else
-                                  f"'{name}' already has a waiver; withdraw it first")
+            raise StudyInputError(
+                f"'{name}' has no waiver to withdraw"
+                if withdraw
+                else f"'{name}' already has a waiver; withdraw it first"
+            )
         with self._acting():
             self.file.append_decision(
-                Decision(name, "waive_verdict", reason=reason, who=who,
-                         payload={"waived": not withdraw, "reason": reason}),
-                **self._lock(override_reason, f"a waiver for {name}"))
+                Decision(
+                    name,
+                    "waive_verdict",
+                    reason=reason,
+                    who=who,
+                    payload={"waived": not withdraw, "reason": reason},
+                ),
+                **self._lock(override_reason, f"a waiver for {name}"),
+            )
         self._saved([name])
 
-    def set_signoff_rules(self, rules: Mapping[str, bool], *, reason: str, who: str,
-                          override_reason: str | None = None) -> bool:
+    def set_signoff_rules(
+        self,
+        rules: Mapping[str, bool],
+        *,
+        reason: str,
+        who: str,
+        override_reason: str | None = None,
+    ) -> bool:
         """Change sign-off rules of the study (recorded with who and why); False if unchanged."""
         from studykit.study import Decision
 
@@ -764,16 +929,21 @@ class StudySession:
             return False
         with self._acting():
             self.file.append_decision(
-                Decision(None, "set_signoff_rules", reason=reason, who=who,
-                         payload={"rules": changes}),
-                **self._lock(override_reason, "changing the sign-off rules"))
+                Decision(
+                    None, "set_signoff_rules", reason=reason, who=who, payload={"rules": changes}
+                ),
+                **self._lock(override_reason, "changing the sign-off rules"),
+            )
         self._saved(())
         return True
+
     # --- signals kept with a reason -----------------------------------------------------------
     def _kept_key(self, name: str) -> list:
         """The kept signals of ``name`` as they decide a result (part of the cache key)."""
-        return sorted([k[0], k[1], d.reason, d.who, d.payload.get("origin", "person")]
-                      for k, d in self.study.kept_signals(name).items())
+        return sorted(
+            [k[0], k[1], d.reason, d.who, d.payload.get("origin", "person")]
+            for k, d in self.study.kept_signals(name).items()
+        )
 
     def kept_signals(self, name: str | None = None) -> dict:
         """``(subgroup, rule)`` -> the ``keep_signal`` decision in force, for ``name``."""
@@ -786,14 +956,23 @@ class StudySession:
         found: list[str] = []
         for series in chart.series:
             for sig in series.signals:
-                if label in {str(chart.labels[int(p)]) for p in sig.points} \
-                        and sig.rule not in found:
+                if (
+                    label in {str(chart.labels[int(p)]) for p in sig.points}
+                    and sig.rule not in found
+                ):
                     found.append(sig.rule)
         return found
 
-    def keep_signal(self, name: str, subgroup, *, reason: str, who: str,
-                    rules: Sequence[str] | None = None,
-                    override_reason: str | None = None) -> list[str]:
+    def keep_signal(
+        self,
+        name: str,
+        subgroup,
+        *,
+        reason: str,
+        who: str,
+        rules: Sequence[str] | None = None,
+        override_reason: str | None = None,
+    ) -> list[str]:
         """Record "keep, with reason" for the signals at ``subgroup`` of ``name``.
 
         ``rules`` defaults to every rule signalling there now and not yet kept; each becomes a
@@ -805,27 +984,32 @@ class StudySession:
         if label in self.study.excluded_subgroups(name):
             raise StudyInputError(
                 f"subgroup {label} of '{name}' is removed; restore it first if it should stay "
-                "in the analysis with a reason")
+                "in the analysis with a reason"
+            )
         now = self.signals_at(name, label)
         kept = self.study.kept_signals(name)
         wanted = list(rules) if rules else [r for r in now if (label, r) not in kept]
         if not wanted:
             raise StudyInputError(
                 f"subgroup {label} of '{name}' has no open signal to keep"
-                + (" (its signals are already kept)" if now else
-                   " (no rule signals there on the current limits)"))
+                + (
+                    " (its signals are already kept)"
+                    if now
+                    else " (no rule signals there on the current limits)"
+                )
+            )
         unknown = [r for r in wanted if r not in now]
         if unknown:
             raise StudyInputError(
                 f"subgroup {label} of '{name}' shows no {', '.join(unknown)} signal on the "
-                f"current limits (signals there: {', '.join(now) or 'none'})")
+                f"current limits (signals there: {', '.join(now) or 'none'})"
+            )
         lock = self._lock(override_reason, f"keeping the signal at subgroup {label}")
 
         def change(study):
             kwargs = dict(lock)
             for rule in wanted:
-                study = study.keep_signal(name, label, rule=rule, reason=reason, who=who,
-                                          **kwargs)
+                study = study.keep_signal(name, label, rule=rule, reason=reason, who=who, **kwargs)
                 kwargs = {}
             return study
 
@@ -834,8 +1018,9 @@ class StudySession:
         self._saved([name])
         return wanted
 
-    def reopen_signal(self, name: str, subgroup, *, reason: str, who: str,
-                      override_reason: str | None = None) -> list[str]:
+    def reopen_signal(
+        self, name: str, subgroup, *, reason: str, who: str, override_reason: str | None = None
+    ) -> list[str]:
         """Withdraw every kept signal at ``subgroup`` of ``name`` (they count as open again)."""
         who = _check_name(who)
         label = str(subgroup)
@@ -848,8 +1033,9 @@ class StudySession:
         def change(study):
             kwargs = dict(lock)
             for rule in rules:
-                study = study.reopen_signal(name, label, rule=rule, reason=reason, who=who,
-                                            **kwargs)
+                study = study.reopen_signal(
+                    name, label, rule=rule, reason=reason, who=who, **kwargs
+                )
                 kwargs = {}
             return study
 
@@ -877,16 +1063,26 @@ class StudySession:
             out.append(p)
         return tuple(out)
 
-    def record_proposal_decisions(self, name: str, accepted: Sequence[tuple[Proposal, str]],
-                                  rejected: Sequence[tuple[Proposal, str]], *, who: str,
-                                  override_reason: str | None = None) -> tuple[int, int]:
+    def record_proposal_decisions(
+        self,
+        name: str,
+        accepted: Sequence[tuple[Proposal, str]],
+        rejected: Sequence[tuple[Proposal, str]],
+        *,
+        who: str,
+        override_reason: str | None = None,
+    ) -> tuple[int, int]:
         """Record accepted proposals (``exclude``) and rejected ones (``keep_signal`` with origin
         ``rejected_proposal``) in one transaction, each with its reason. Returns the counts."""
         who = _check_name(who)
-        acc = [(p, _check_reason(r, what=f"accepting the removal of subgroup {p.label}"))
-               for p, r in accepted]
-        rej = [(p, _check_reason(r, what=f"rejecting the proposal for subgroup {p.label}"))
-               for p, r in rejected]
+        acc = [
+            (p, _check_reason(r, what=f"accepting the removal of subgroup {p.label}"))
+            for p, r in accepted
+        ]
+        rej = [
+            (p, _check_reason(r, what=f"rejecting the proposal for subgroup {p.label}"))
+            for p, r in rejected
+        ]
         if not acc and not rej:
             return 0, 0
         lock = self._lock(override_reason, "recording the proposal decisions")
@@ -895,17 +1091,36 @@ class StudySession:
             kwargs = dict(lock)
             for proposal, reason in acc:
                 study = study.exclude(
-                    name, proposal.label, reason=reason, who=who, automatic=True,
-                    payload={"rule": proposal.rule, "chart": proposal.chart,
-                             "signal": proposal.reason, "accepted_by": who}, **kwargs)
+                    name,
+                    proposal.label,
+                    reason=reason,
+                    who=who,
+                    automatic=True,
+                    payload={
+                        "rule": proposal.rule,
+                        "chart": proposal.chart,
+                        "signal": proposal.reason,
+                        "accepted_by": who,
+                    },
+                    **kwargs,
+                )
                 kwargs = {}
             for proposal, reason in rej:
                 for rule in proposal.rule.split(","):
                     study = study.keep_signal(
-                        name, proposal.label, rule=rule, reason=reason, who=who,
+                        name,
+                        proposal.label,
+                        rule=rule,
+                        reason=reason,
+                        who=who,
                         origin="rejected_proposal",
-                        payload={"chart": proposal.chart, "signal": proposal.reason,
-                                 "round": proposal.iteration}, **kwargs)
+                        payload={
+                            "chart": proposal.chart,
+                            "signal": proposal.reason,
+                            "round": proposal.iteration,
+                        },
+                        **kwargs,
+                    )
                     kwargs = {}
             return study
 
@@ -917,10 +1132,15 @@ class StudySession:
     # --- export -------------------------------------------------------------------------------
     def results_json(self) -> bytes:
         """Every characteristic's result as JSON (the fields of ``studykit analyze --json``)."""
-        out = {"study": {"title": self.study.title, "part": self.study.part,
-                         "content_digest": self.study.content_digest(),
-                         "state": self.state_text()},
-               "characteristics": {}}
+        out = {
+            "study": {
+                "title": self.study.title,
+                "part": self.study.part,
+                "content_digest": self.study.content_digest(),
+                "state": self.state_text(),
+            },
+            "characteristics": {},
+        }
         for name in self.names:
             try:
                 out["characteristics"][name] = self.result(name).to_dict()

@@ -160,9 +160,16 @@ def default_steps() -> list[Step]:
     )
 
     # steps hold widgets: fresh instances for every workbook (two browsers, two workbooks)
-    return [intake.IntakeStep(), limits.LimitsStep(), measuring.GaugeStep(),
-            stability.StabilityStep(), shape.ShapeStep(), capability.CapabilityStep(),
-            signoff.SignoffStep(), export.ExportStep()]
+    return [
+        intake.IntakeStep(),
+        limits.LimitsStep(),
+        measuring.GaugeStep(),
+        stability.StabilityStep(),
+        shape.ShapeStep(),
+        capability.CapabilityStep(),
+        signoff.SignoffStep(),
+        export.ExportStep(),
+    ]
 
 
 class Workbook(widgets.VBox):
@@ -185,15 +192,20 @@ class Workbook(widgets.VBox):
         self._caution = widgets.VBox([])
         self._buttons = {}
         for number, step in enumerate(self.steps, 1):
-            b = widgets.Button(description=f"{number}  {step.title}", tooltip=step.guidance,
-                               layout=widgets.Layout(width="auto"))
+            b = widgets.Button(
+                description=f"{number}  {step.title}",
+                tooltip=step.guidance,
+                layout=widgets.Layout(width="auto"),
+            )
             b.add_class("sk-step")
             b.add_class(f"sk-step-{step.key}")
-            b.on_click(guarded(lambda _b, key=step.key: self.select(key),
-                               messages=context.messages))
+            b.on_click(
+                guarded(lambda _b, key=step.key: self.select(key), messages=context.messages)
+            )
             self._buttons[step.key] = b
-        self._stepbar = widgets.HBox(list(self._buttons.values()),
-                                     layout=widgets.Layout(flex_flow="row wrap"))
+        self._stepbar = widgets.HBox(
+            list(self._buttons.values()), layout=widgets.Layout(flex_flow="row wrap")
+        )
         self._stepbar.add_class("sk-stepbar")
         self._guidance = html_box("", "sk-guidance")
         self._body = widgets.VBox([])
@@ -207,9 +219,20 @@ class Workbook(widgets.VBox):
 
         self._live = widgets.VBox([])  # the live note of the open study (studykit.app.live)
         self._live.add_class("sk-live-slot")
-        super().__init__([style_sheet(), panel_css(), self._header, self._stepbar,
-                          self._guidance, context.messages, self._live, self._caution,
-                          self._body, self._overview_card])
+        super().__init__(
+            [
+                style_sheet(),
+                panel_css(),
+                self._header,
+                self._stepbar,
+                self._guidance,
+                context.messages,
+                self._live,
+                self._caution,
+                self._body,
+                self._overview_card,
+            ]
+        )
         self.add_class("sk-root")
         context.extra["studykit.open_step"] = self.select
         context.extra["studykit.reopen_steps"] = self.reopen_steps
@@ -241,8 +264,9 @@ class Workbook(widgets.VBox):
         self._body.children = [self._built[key]]
         self._render_overview()
         number = [s.key for s in self.steps].index(key) + 1
-        self._guidance.value = (f"<b>Step {number} of {len(self.steps)} · {esc(step.title)}.</b> "
-                                f"{esc(step.guidance)}")
+        self._guidance.value = (
+            f"<b>Step {number} of {len(self.steps)} · {esc(step.title)}.</b> {esc(step.guidance)}"
+        )
         self._render_stepbar()
 
     def reopen_steps(self) -> None:
@@ -300,18 +324,21 @@ class Workbook(widgets.VBox):
             rows = "".join(
                 f"<tr><td>{esc(getattr(c, 'name', '?'))}</td><td>{esc(getattr(c, 'unit', None))}"
                 f"</td><td>{'Yes' if getattr(c, 'safety_critical', False) else 'No'}</td></tr>"
-                for c in values)
+                for c in values
+            )
             self._overview.value = head + (
                 '<table class="sk-table"><thead><tr><th>Characteristic</th><th>Unit</th>'
                 f"<th>Safety-critical</th></tr></thead><tbody>{rows}</tbody></table>"
                 '<div class="sk-muted">Each step shows its own status for every '
-                "characteristic of the study.</div>")
+                "characteristic of the study.</div>"
+            )
             return
         if not chars:
             self._overview.value = head + (
                 '<div class="sk-muted">No measurements confirmed yet. Bring in a data file '
                 "in step 1; each characteristic then gets a row here with its stability, "
-                "shape and capability status.</div>")
+                "shape and capability status.</div>"
+            )
             return
         pending = f'<span class="sk-muted">{names.VERDICT_STATES["not_analysed"]}</span>'
         rows = "".join(
@@ -323,8 +350,8 @@ class Workbook(widgets.VBox):
         self._overview.value = head + (
             '<table class="sk-table"><thead><tr><th>Characteristic</th><th>Unit</th>'
             "<th>Values</th><th>Stability</th><th>Shape</th><th>Capability</th></tr></thead>"
-            f"<tbody>{rows}</tbody></table>")
-
+            f"<tbody>{rows}</tbody></table>"
+        )
 
     def _render_study_overview(self) -> bool:
         """The study overview in the card below the steps; False when no study file is open."""
@@ -391,18 +418,24 @@ def load_study_into(context: WorkbookContext, path: str | os.PathLike) -> None:
         raise StudyFileError(
             f"the study file '{path.name}' does not exist yet: create it in 'Bring in data' "
             "(confirm your measurement files, fill the specification table, 'Create study'), "
-            "or start the workbook with an existing study file")
+            "or start the workbook with an existing study file"
+        )
     opener = _study_opener()
     if opener is None:
         context.update(study_path=path, title=path.stem, state="Study file found")
         context.messages.info(
             f"Study file '{path.name}' found; reading saved studies arrives with the study-file "
-            "module. You can bring in a data file meanwhile.")
+            "module. You can bring in a data file meanwhile."
+        )
         return
     study = opener(path)
-    context.update(study_path=path, study=study,
-                   title=getattr(study, "title", "") or path.stem,
-                   part=getattr(study, "part", "") or "", state=study_state(study))
+    context.update(
+        study_path=path,
+        study=study,
+        title=getattr(study, "title", "") or path.stem,
+        part=getattr(study, "part", "") or "",
+        state=study_state(study),
+    )
 
 
 def _study_opener():
@@ -418,10 +451,13 @@ def _study_opener():
     return None
 
 
-def build_workbook(study_path: str | os.PathLike | None = None, *,
-                   steps: Sequence[Step] | None = None,
-                   reader: Callable[[bytes, str], Any] | None = None,
-                   max_upload_bytes: int = MAX_UPLOAD_BYTES) -> Workbook:
+def build_workbook(
+    study_path: str | os.PathLike | None = None,
+    *,
+    steps: Sequence[Step] | None = None,
+    reader: Callable[[bytes, str], Any] | None = None,
+    max_upload_bytes: int = MAX_UPLOAD_BYTES,
+) -> Workbook:
     """Build the workbook widget.
 
     Parameters
@@ -448,8 +484,7 @@ def build_workbook(study_path: str | os.PathLike | None = None, *,
     (['intake', 'limits'], 'No study loaded')
     """
     messages = MessageArea()
-    context = WorkbookContext(messages=messages, reader=reader,
-                              max_upload_bytes=max_upload_bytes)
+    context = WorkbookContext(messages=messages, reader=reader, max_upload_bytes=max_upload_bytes)
     wb = Workbook(steps if steps is not None else default_steps(), context)
     if study_path is not None and str(study_path) != "":
         guarded(load_study_into, messages=messages)(context, study_path)

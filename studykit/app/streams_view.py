@@ -22,19 +22,23 @@ def time_model_html(result) -> str:
     if tm is None:
         return ""
     if tm.cls is None:
-        return ("<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
-                f"<div class='sk-muted'>Not classified: {esc(tm.reason)}.</div>")
+        return (
+            "<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
+            f"<div class='sk-muted'>Not classified: {esc(tm.reason)}.</div>"
+        )
     d = tm.to_dict()
     names = {"pp": "Pp", "ppk": "Ppk", "ppu": "PPU", "ppl": "PPL"}
     idx = ", ".join(f"{names[k]} {fmt(v, 2)}" for k, v in d["indices"].items() if k in names)
     if d["indices"].get("sigma") is not None:
         idx += f" (sigma_total {d['indices']['sigma']:.4g})"
-    return ("<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
-            f"<div class='sk-time-model'><b>Class {esc(tm.cls)}</b>: location "
-            f"{esc(d['location'])}, spread {esc(d['spread'])}. Capability by "
-            f"{esc(tm.method)}" + (f": {idx}" if idx else "") + ".</div>"
-            f"<div class='sk-small'>Why: {esc(tm.reason)}. Classes and methods as recalled from "
-            "the standard (from memory).</div>")
+    return (
+        "<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
+        f"<div class='sk-time-model'><b>Class {esc(tm.cls)}</b>: location "
+        f"{esc(d['location'])}, spread {esc(d['spread'])}. Capability by "
+        f"{esc(tm.method)}" + (f": {idx}" if idx else "") + ".</div>"
+        f"<div class='sk-small'>Why: {esc(tm.reason)}. Classes and methods as recalled from "
+        "the standard (from memory).</div>"
+    )
 
 
 def _judged(res) -> tuple:
@@ -52,8 +56,10 @@ def streams_html(result) -> str:
     for name in st.names:
         r = st.results.get(name)
         if r is None:
-            body.append(f"<tr><td>{esc(name)}</td><td colspan='6' class='sk-muted'>not analysed: "
-                        f"{esc(st.errors.get(name, ''))}</td></tr>")
+            body.append(
+                f"<tr><td>{esc(name)}</td><td colspan='6' class='sk-muted'>not analysed: "
+                f"{esc(st.errors.get(name, ''))}</td></tr>"
+            )
             continue
         est, lower = _judged(r)
         kind, word = verdict_kind(r.verdict)
@@ -62,20 +68,31 @@ def streams_html(result) -> str:
             f"<tr class='sk-stream-row'><td>{esc(name)}{worst}</td><td class='num'>{r.n}</td>"
             f"<td class='num'>{fmt(r.mean, 6)}</td><td class='num'>{fmt(r.overall_sigma, 4)}</td>"
             f"<td class='num'>{fmt(est, 2)}</td><td class='num'>{fmt(lower, 2)}</td>"
-            f"<td title=\"{esc(r.verdict.text if r.verdict is not None else '')}\">"
+            f'<td title="{esc(r.verdict.text if r.verdict is not None else "")}">'
             f"{verdict_chip(None if r.verdict is None else r.verdict.meets, text=word, kind=kind)}"
-            "</td></tr>")
+            "</td></tr>"
+        )
     tests = "".join(
         f"<div class='sk-msg sk-msg-{'warning' if t.differ else 'info'}'>{esc(t.text)}</div>"
-        for t in (st.location, st.spread) if t is not None)
-    return ("<div class='sk-panel-title'>Streams</div>"
-            "<div class='sk-muted'>Each stream on its own (chart, model, capability, verdict); "
-            "the verdict above is the process as a whole.</div>"
-            "<table class='sk-table sk-stream-table'><thead><tr><th>Stream</th><th>n</th>"
-            f"<th>Mean</th><th>Overall sigma</th><th>{esc(index)}</th><th>Lower bound</th>"
-            "<th>Verdict</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>" + tests
-            + (f"<div><b>Worst stream: {esc(st.worst)}</b> (lowest judged index).</div>"
-               if st.worst else ""))
+        for t in (st.location, st.spread)
+        if t is not None
+    )
+    return (
+        "<div class='sk-panel-title'>Streams</div>"
+        "<div class='sk-muted'>Each stream on its own (chart, model, capability, verdict); "
+        "the verdict above is the process as a whole.</div>"
+        "<table class='sk-table sk-stream-table'><thead><tr><th>Stream</th><th>n</th>"
+        f"<th>Mean</th><th>Overall sigma</th><th>{esc(index)}</th><th>Lower bound</th>"
+        "<th>Verdict</th></tr></thead><tbody>"
+        + "".join(body)
+        + "</tbody></table>"
+        + tests
+        + (
+            f"<div><b>Worst stream: {esc(st.worst)}</b> (lowest judged index).</div>"
+            if st.worst
+            else ""
+        )
+    )
 
 
 def streams_panel(result) -> list:
@@ -90,8 +107,11 @@ def streams_panel(result) -> list:
         from studykit.report.figures import figure_png
         from studykit.report.streams import group_chart_figure
 
-        img = widgets.Image(value=figure_png(group_chart_figure(result), dpi=110), format="png",
-                            layout=widgets.Layout(max_width="820px", width="100%"))
+        img = widgets.Image(
+            value=figure_png(group_chart_figure(result), dpi=110),
+            format="png",
+            layout=widgets.Layout(max_width="820px", width="100%"),
+        )
         img.add_class("sk-group-chart")
         out.append(img)
     return out
@@ -110,9 +130,18 @@ def stream_overview_rows(result) -> list[dict]:
             continue
         est, lower = _judged(r)
         kind, word = verdict_kind(r.verdict)
-        rows.append({"stream": name, "meets": None if r.verdict is None else r.verdict.meets,
-                     "kind": kind, "word": word, "index": r.criteria.get("index"),
-                     "estimate": est, "lower_bound": lower, "worst": name == st.worst})
+        rows.append(
+            {
+                "stream": name,
+                "meets": None if r.verdict is None else r.verdict.meets,
+                "kind": kind,
+                "word": word,
+                "index": r.criteria.get("index"),
+                "estimate": est,
+                "lower_bound": lower,
+                "worst": name == st.worst,
+            }
+        )
     return rows
 
 
@@ -121,11 +150,18 @@ def stream_cells(rows: list[dict]) -> list:
     cells = []
     for r in rows:
         name = f"↳ stream {esc(r['stream'])}" + (" (worst)" if r["worst"] else "")
-        values = [(name, ("sk-ovcell", "sk-ovstream")),
-                  (verdict_chip(r["meets"], text=r["word"], kind=r["kind"]), ("sk-ovcell",)),
-                  (f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
-                   if r["estimate"] is not None else "—", ("sk-ovcell", "num")),
-                  (fmt(r["lower_bound"], 2), ("sk-ovcell", "num")),
-                  ("", ("sk-ovcell", "num")), ("", ("sk-ovcell",))]
+        values = [
+            (name, ("sk-ovcell", "sk-ovstream")),
+            (verdict_chip(r["meets"], text=r["word"], kind=r["kind"]), ("sk-ovcell",)),
+            (
+                f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
+                if r["estimate"] is not None
+                else "—",
+                ("sk-ovcell", "num"),
+            ),
+            (fmt(r["lower_bound"], 2), ("sk-ovcell", "num")),
+            ("", ("sk-ovcell", "num")),
+            ("", ("sk-ovcell",)),
+        ]
         cells += [html_box(v, *cls) for v, cls in values]
     return cells

@@ -34,9 +34,19 @@ def esc(value) -> str:
 # --- style sheet --------------------------------------------------------------------------------
 
 #: The palette ribbon at the top of the header: the chart colours, in the order the charts use.
-_RIBBON = ", ".join(f"{c} {100 * i / 6:.2f}% {100 * (i + 1) / 6:.2f}%" for i, c in enumerate(
-    [theme.OKABE_ITO["blue"], theme.OKABE_ITO["bluish_green"], theme.OKABE_ITO["orange"],
-     theme.OKABE_ITO["sky_blue"], theme.OKABE_ITO["reddish_purple"], theme.OKABE_ITO["vermillion"]]))
+_RIBBON = ", ".join(
+    f"{c} {100 * i / 6:.2f}% {100 * (i + 1) / 6:.2f}%"
+    for i, c in enumerate(
+        [
+            theme.OKABE_ITO["blue"],
+            theme.OKABE_ITO["bluish_green"],
+            theme.OKABE_ITO["orange"],
+            theme.OKABE_ITO["sky_blue"],
+            theme.OKABE_ITO["reddish_purple"],
+            theme.OKABE_ITO["vermillion"],
+        ]
+    )
+)
 
 CSS = f"""
 <style>
@@ -65,8 +75,8 @@ body {{ background: {theme.PAGE}; }}
   height: 34px; padding: 0 12px; box-shadow: none; margin: 0; }}
 .sk-root .sk-stepbar .jupyter-button.sk-step:hover {{ border-color: {theme.ACCENT};
   background: {theme.TINT}; }}
-.sk-root .sk-stepbar .jupyter-button.sk-step.sk-done {{ border-color: {theme.OKABE_ITO['bluish_green']};
-  color: {theme.VERDICTS['pass'].text_color}; }}
+.sk-root .sk-stepbar .jupyter-button.sk-step.sk-done {{ border-color: {theme.OKABE_ITO["bluish_green"]};
+  color: {theme.VERDICTS["pass"].text_color}; }}
 .sk-root .sk-stepbar .jupyter-button.sk-step.sk-current {{ background: {theme.ACCENT};
   border-color: {theme.ACCENT}; color: {theme.PAPER}; font-weight: 600; }}
 /* a visible keyboard focus ring on everything that takes focus */
@@ -97,14 +107,14 @@ body {{ background: {theme.PAGE}; }}
 .sk-facts dt {{ color: {theme.INK_SOFT}; }}
 .sk-facts dd {{ margin: 0; font-weight: 600; }}
 .sk-msg {{ border-left: 4px solid; padding: 8px 12px; margin: 6px 0; border-radius: 2px; }}
-.sk-msg-error {{ border-color: {theme.VERDICTS['fail'].color}; background: {theme.VERDICTS['fail'].background}; }}
-.sk-msg-warning {{ border-color: {theme.VERDICTS['caution'].color}; background: {theme.VERDICTS['caution'].background}; }}
+.sk-msg-error {{ border-color: {theme.VERDICTS["fail"].color}; background: {theme.VERDICTS["fail"].background}; }}
+.sk-msg-warning {{ border-color: {theme.VERDICTS["caution"].color}; background: {theme.VERDICTS["caution"].background}; }}
 .sk-msg-info {{ border-color: {theme.ACCENT}; background: {theme.TINT}; }}
-.sk-msg-ok {{ border-color: {theme.VERDICTS['pass'].color}; background: {theme.VERDICTS['pass'].background}; }}
+.sk-msg-ok {{ border-color: {theme.VERDICTS["pass"].color}; background: {theme.VERDICTS["pass"].background}; }}
 .sk-msg .sk-msg-kind {{ font-weight: 700; margin-right: 6px; }}
 .sk-msg .sk-msg-time {{ color: {theme.INK_SOFT}; font-size: 12px; margin-left: 8px; }}
-.sk-caution {{ border: 1px solid {theme.VERDICTS['caution'].color};
-  background: {theme.VERDICTS['caution'].background}; padding: 10px 14px; border-radius: 3px; }}
+.sk-caution {{ border: 1px solid {theme.VERDICTS["caution"].color};
+  background: {theme.VERDICTS["caution"].background}; padding: 10px 14px; border-radius: 3px; }}
 .sk-coming {{ border: 1px dashed {theme.RULE}; background: {theme.PANEL}; padding: 16px 18px;
   border-radius: 3px; color: {theme.INK_SOFT}; }}
 .sk-coming b {{ color: {theme.INK}; }}
@@ -172,8 +182,10 @@ def verdict_badge(name: str) -> str:
     True
     """
     v = theme.VERDICTS[name]
-    return (f'<span class="sk-verdict" style="color:{v.text_color};background:{v.background}">'
-            f"{v.symbol} {esc(v.label)}</span>")
+    return (
+        f'<span class="sk-verdict" style="color:{v.text_color};background:{v.background}">'
+        f"{v.symbol} {esc(v.label)}</span>"
+    )
 
 
 def caution_banner(text: str = SAFETY_NOTE, *, title: str = "Safety-critical characteristic"):
@@ -220,9 +232,11 @@ class MessageArea(widgets.VBox):
 
     def __init__(self, **kwargs):
         self._list = widgets.HTML("")
-        self._clear = widgets.Button(description="Clear messages", icon="times",
-                                     layout={"display": "none", "width": "auto",
-                                             "align_self": "flex-end"})
+        self._clear = widgets.Button(
+            description="Clear messages",
+            icon="times",
+            layout={"display": "none", "width": "auto", "align_self": "flex-end"},
+        )
         self._clear.add_class("sk-clear")
         self._clear.on_click(lambda _b: self.clear())
         self.messages: list[tuple[str, str, str]] = []
@@ -240,7 +254,7 @@ class MessageArea(widgets.VBox):
             kind = "info"
         stamp = datetime.now().strftime("%H:%M:%S")
         self.messages.insert(0, (kind, str(text), stamp))
-        del self.messages[self.limit:]
+        del self.messages[self.limit :]
         self._render()
 
     def error(self, text: str) -> None:

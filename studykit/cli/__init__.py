@@ -18,8 +18,17 @@ from studykit.errors import StudyInputError
 
 # subcommand modules, in the order --help lists them; a module that is not there yet is skipped
 SUBCOMMANDS = [
-    "check", "study", "analyze", "gauge", "report", "verify", "keygen", "monitor", "serve",
-    "interval", "position",
+    "check",
+    "study",
+    "analyze",
+    "gauge",
+    "report",
+    "verify",
+    "keygen",
+    "monitor",
+    "serve",
+    "interval",
+    "position",
 ]
 
 

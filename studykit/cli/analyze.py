@@ -49,62 +49,111 @@ def register(sub) -> None:
     g.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
     p.add_argument(
         "--chart",
-        type=_chart_arg, metavar="KIND",
+        type=_chart_arg,
+        metavar="KIND",
         help="chart kind: auto, xbar-r, xbar-s, imr, p, np, c or u (xbar_r and X-bar-R are "
         "accepted too; default: auto, from the subgroup size)",
     )
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
-    p.add_argument("--stream-column", metavar="COL",
-                   help="column naming the stream of each row (mould cavity, spindle, nest, "
-                   "fixture, head): per-stream charts, capability and verdicts, tests of "
-                   "whether the streams differ, the group chart (detected by a header such as "
-                   "'cavity', 'nest', 'spindle', 'stream' when not given)")
-    p.add_argument("--phase1", choices=["auto", "off"], default=None,
-                   help="remove out-of-control subgroups automatically: default auto for a data "
-                   "FILE; off for --study, where only the removals recorded in the study count")
-    p.add_argument("--max-auto-removal", type=float, default=None, metavar="SHARE",
-                   help="automatic phase-I removal of more than this share of the values "
-                   "withholds the verdict (default 0.10)")
-    p.add_argument("--min-kept", type=int, default=None, metavar="N",
-                   help="automatic phase-I removal that leaves fewer than N values withholds "
-                   "the verdict (default 20)")
-    p.add_argument("--sigma-method", choices=["auto", "rbar", "sbar", "pooled"], default=None,
-                   help="within sigma of subgrouped charts: auto (R-bar/d2 or S-bar/c4; unequal "
-                   "sizes: mean of R_i/d2(n_i) or s_i/c4(n_i)), rbar, sbar, or pooled "
-                   "(pooled standard deviation / c4(d + 1))")
-    p.add_argument("--transform-indices", choices=["transformed", "percentile"],
-                   default="transformed",
-                   help="capability of a Box-Cox/Johnson model: transformed (limits and values "
-                   "transformed, normal theory on that scale; default) or percentile (ISO "
-                   "22514-2 percentile method on the original scale from the back-transformed "
-                   "0.135 %%, 50 %% and 99.865 %% points)")
-    p.add_argument("--mr-removal", choices=["later", "both"], default="later",
-                   help="automatic phase I on an individuals chart: a moving-range signal "
-                   "removes the later reading of the pair (default) or both")
-    p.add_argument("--rules", default="nelson",
-                   help="run rules shown: nelson, western_electric, limits_only or a list "
-                   "such as 1,2,5 (default nelson)")
+    p.add_argument(
+        "--stream-column",
+        metavar="COL",
+        help="column naming the stream of each row (mould cavity, spindle, nest, "
+        "fixture, head): per-stream charts, capability and verdicts, tests of "
+        "whether the streams differ, the group chart (detected by a header such as "
+        "'cavity', 'nest', 'spindle', 'stream' when not given)",
+    )
+    p.add_argument(
+        "--phase1",
+        choices=["auto", "off"],
+        default=None,
+        help="remove out-of-control subgroups automatically: default auto for a data "
+        "FILE; off for --study, where only the removals recorded in the study count",
+    )
+    p.add_argument(
+        "--max-auto-removal",
+        type=float,
+        default=None,
+        metavar="SHARE",
+        help="automatic phase-I removal of more than this share of the values "
+        "withholds the verdict (default 0.10)",
+    )
+    p.add_argument(
+        "--min-kept",
+        type=int,
+        default=None,
+        metavar="N",
+        help="automatic phase-I removal that leaves fewer than N values withholds "
+        "the verdict (default 20)",
+    )
+    p.add_argument(
+        "--sigma-method",
+        choices=["auto", "rbar", "sbar", "pooled"],
+        default=None,
+        help="within sigma of subgrouped charts: auto (R-bar/d2 or S-bar/c4; unequal "
+        "sizes: mean of R_i/d2(n_i) or s_i/c4(n_i)), rbar, sbar, or pooled "
+        "(pooled standard deviation / c4(d + 1))",
+    )
+    p.add_argument(
+        "--transform-indices",
+        choices=["transformed", "percentile"],
+        default="transformed",
+        help="capability of a Box-Cox/Johnson model: transformed (limits and values "
+        "transformed, normal theory on that scale; default) or percentile (ISO "
+        "22514-2 percentile method on the original scale from the back-transformed "
+        "0.135 %%, 50 %% and 99.865 %% points)",
+    )
+    p.add_argument(
+        "--mr-removal",
+        choices=["later", "both"],
+        default="later",
+        help="automatic phase I on an individuals chart: a moving-range signal "
+        "removes the later reading of the pair (default) or both",
+    )
+    p.add_argument(
+        "--rules",
+        default="nelson",
+        help="run rules shown: nelson, western_electric, limits_only or a list "
+        "such as 1,2,5 (default nelson)",
+    )
     p.add_argument("--lsl", type=float, help="lower specification limit")
     p.add_argument("--usl", type=float, help="upper specification limit")
     p.add_argument("--target", type=float, help="target (nominal) value")
     p.add_argument("--model", help="auto, normal, boxcox, johnson or a family id (default auto)")
-    p.add_argument("--rank-models", action="store_true", default=None,
-                   help="fit and rank every distribution family even when the normal model is "
-                   "not rejected (JSON `ranking`, `model_band`; default: only when needed, "
-                   "always with --study)")
-    p.add_argument("--confidence", type=float, default=None,
-                   help="confidence level of the bounds (default: the study's criterion, "
-                        "else 0.95)")
-    p.add_argument("--index", choices=["cp", "cpk", "pp", "ppk", "cpm"],
-                   help="acceptance index (default ppk)")
-    p.add_argument("--threshold", type=float, help="acceptance threshold (default "
-                   f"{names.DEFAULT_CRITERION['threshold']:g})")
-    p.add_argument("--basis", choices=["lower_bound", "estimate"],
-                   help="judge the lower bound (default) or the estimate")
+    p.add_argument(
+        "--rank-models",
+        action="store_true",
+        default=None,
+        help="fit and rank every distribution family even when the normal model is "
+        "not rejected (JSON `ranking`, `model_band`; default: only when needed, "
+        "always with --study)",
+    )
+    p.add_argument(
+        "--confidence",
+        type=float,
+        default=None,
+        help="confidence level of the bounds (default: the study's criterion, else 0.95)",
+    )
+    p.add_argument(
+        "--index", choices=["cp", "cpk", "pp", "ppk", "cpm"], help="acceptance index (default ppk)"
+    )
+    p.add_argument(
+        "--threshold",
+        type=float,
+        help=f"acceptance threshold (default {names.DEFAULT_CRITERION['threshold']:g})",
+    )
+    p.add_argument(
+        "--basis",
+        choices=["lower_bound", "estimate"],
+        help="judge the lower bound (default) or the estimate",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--jobs", type=int, default=None, help="--all: worker processes")
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="--all: run on a Dask cluster at ADDRESS (optional backend)")
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="--all: run on a Dask cluster at ADDRESS (optional backend)",
+    )
     p.set_defaults(func=run)
 
 
@@ -144,7 +193,8 @@ def dumps_result(out: dict):
     yield head + "[\n"
     for i in range(0, len(signals), 1000):
         yield (",\n" if i else "") + ",\n".join(
-            "      " + json.dumps(sig) for sig in signals[i:i + 1000])
+            "      " + json.dumps(sig) for sig in signals[i : i + 1000]
+        )
     yield "\n    ]" + tail
 
 
@@ -181,12 +231,20 @@ def analyze_from_args(args, name):
                 args.size_column = base.size_column
             data = measurements.get(name)
             sizes = measurements.get(args.size_column) if args.size_column else None
-            options = replace(options, chart=options.chart or study.chart_for(name),
-                              model=options.model or study.model_for(name),
-                              rank_models=options.rank_models is not False)  # as analyze_study
+            options = replace(
+                options,
+                chart=options.chart or study.chart_for(name),
+                model=options.model or study.model_for(name),
+                rank_models=options.rank_models is not False,
+            )  # as analyze_study
             return analyze_characteristic(
-                data, spec, criteria=criteria_from_args(args, study.criteria_for(name)), sizes=sizes,
-                exclusions=recorded_exclusions(study, name), options=options, gauge=gauge,
+                data,
+                spec,
+                criteria=criteria_from_args(args, study.criteria_for(name)),
+                sizes=sizes,
+                exclusions=recorded_exclusions(study, name),
+                options=options,
+                gauge=gauge,
             )
         return analyze_study(study, name, options=options, gauge=gauge)
     if not args.file:
@@ -198,7 +256,9 @@ def analyze_from_args(args, name):
         if args.size_column not in m.names:
             raise StudyInputError(
                 f"--size-column '{args.size_column}' is not a column of the file (its columns: "
-                + ", ".join(m.names) + ")", file=args.file,
+                + ", ".join(m.names)
+                + ")",
+                file=args.file,
             )
         sizes = m.get(args.size_column)
     spec = spec_from_args(args, name, data.unit)
@@ -229,8 +289,10 @@ def _i3(v) -> str:
 def _measurement_error_lines(me: dict) -> list[str]:
     """Observed and process-only indices (the gauge variance removed), one line per index."""
     lvl = f"{100 * (me.get('level') or 0.95):g}%"
-    lines = [f"gauge error taken out (gauge sigma {_fmt(me.get('gauge_sigma'), 4)} on "
-             f"{_fmt(me.get('gauge_df'), 3)} df; {lvl} interval, modified large-sample):"]
+    lines = [
+        f"gauge error taken out (gauge sigma {_fmt(me.get('gauge_sigma'), 4)} on "
+        f"{_fmt(me.get('gauge_df'), 3)} df; {lvl} interval, modified large-sample):"
+    ]
     for basis in ("within", "overall"):
         b = me.get(basis)
         if not b:
@@ -238,12 +300,16 @@ def _measurement_error_lines(me: dict) -> list[str]:
         spread = b.get("spread_interval") or {}
         for key, obs in (b.get("observed") or {}).items():
             iv = spread.get(key)
-            lines.append(f"  {_PRETTY[key]:5s} observed {_i3(obs)}  process only "
-                         f"{_i3((b.get('process') or {}).get(key))}"
-                         + (f"  ({_i3(iv[0])} .. {_i3(iv[1])})" if iv else "")
-                         + (f"  gauge share {100 * b['gauge_share']:.1f}% of the {basis} "
-                            "variance" if key in ("cp", "pp") and b.get("gauge_share")
-                            is not None else ""))
+            lines.append(
+                f"  {_PRETTY[key]:5s} observed {_i3(obs)}  process only "
+                f"{_i3((b.get('process') or {}).get(key))}"
+                + (f"  ({_i3(iv[0])} .. {_i3(iv[1])})" if iv else "")
+                + (
+                    f"  gauge share {100 * b['gauge_share']:.1f}% of the {basis} variance"
+                    if key in ("cp", "pp") and b.get("gauge_share") is not None
+                    else ""
+                )
+            )
     lines += [f"  ! {w}" for w in me.get("warnings") or []]
     return lines
 
@@ -258,17 +324,21 @@ def _stream_lines(st: dict) -> list[str]:
         v = row.get("verdict") or {}
         mark = {True: "meets", False: "does not meet", None: "not judged"}[v.get("meets")]
         idx = _PRETTY.get(v.get("index"), v.get("index") or "")
-        lines.append(f"  {row['stream']:>8s}  n {row['n']:4d}  mean {_fmt(row['mean'], 6)}  "
-                     f"overall sigma {_fmt(row['overall_sigma'], 4)}  {idx} "
-                     f"{_fmt(v.get('estimate'), 3)} (bound {_fmt(v.get('lower_bound'), 3)})  "
-                     f"{mark}")
+        lines.append(
+            f"  {row['stream']:>8s}  n {row['n']:4d}  mean {_fmt(row['mean'], 6)}  "
+            f"overall sigma {_fmt(row['overall_sigma'], 4)}  {idx} "
+            f"{_fmt(v.get('estimate'), 3)} (bound {_fmt(v.get('lower_bound'), 3)})  "
+            f"{mark}"
+        )
     for key in ("location_test", "spread_test"):
         if st.get(key):
             lines.append(f"  {st[key]['text']}")
     g = st.get("group_chart")
     if g:
-        lines.append(f"  group chart: centre {_fmt(g['center'], 6)}  LCL {_fmt(g['lcl'], 6)}  "
-                     f"UCL {_fmt(g['ucl'], 6)}; {len(g['beyond'])} stream mean(s) beyond")
+        lines.append(
+            f"  group chart: centre {_fmt(g['center'], 6)}  LCL {_fmt(g['lcl'], 6)}  "
+            f"UCL {_fmt(g['ucl'], 6)}; {len(g['beyond'])} stream mean(s) beyond"
+        )
     return lines
 
 
@@ -285,12 +355,17 @@ def format_result(res) -> str:
     lsl, usl = spec["lsl"], spec["usl"]
 
     def val(v):  # a value in measured units: enough decimals for 1/100 of the tolerance
-        return "-" if v is None else (names.format_value(v, lsl, usl) if lsl is not None
-                                      and usl is not None else _fmt(v, 6))
+        return (
+            "-"
+            if v is None
+            else (
+                names.format_value(v, lsl, usl)
+                if lsl is not None and usl is not None
+                else _fmt(v, 6)
+            )
+        )
 
-    lines.append(
-        f"specification: LSL {_fmt(lsl)}  USL {_fmt(usl)}  target {_fmt(spec['target'])}"
-    )
+    lines.append(f"specification: LSL {_fmt(lsl)}  USL {_fmt(usl)}  target {_fmt(spec['target'])}")
     for c in d["cautions"]:
         lines.append(f"CAUTION: {c}")
     ch = d["chart"]
@@ -332,8 +407,9 @@ def format_result(res) -> str:
             "recorded decisions)"
         )
         for r in p1["removals"]:
-            lines.append(f"  - subgroup {r['label']} ({r['who']}, round {r['iteration']}): "
-                         f"{r['reason']}")
+            lines.append(
+                f"  - subgroup {r['label']} ({r['who']}, round {r['iteration']}): {r['reason']}"
+            )
     else:
         lines.append("phase I: no subgroup removed")
     if ch["signals"]:
@@ -352,15 +428,15 @@ def format_result(res) -> str:
     cap = d["capability"]
     if cap:
         level = cap["level"]
-        lines.append(f"capability ({names.bound_method_label(cap['method'])}; lower "
-                     f"bounds at {level:.0%}):")
+        lines.append(
+            f"capability ({names.bound_method_label(cap['method'])}; lower bounds at {level:.0%}):"
+        )
         lines.append(f"  convention: {capability_method_text(cap, d['model'])}")
         for key in ("cp", "cpk", "pp", "ppk", "cpm"):
             if cap.get(key) is None:
                 continue
             lb = cap["bounds"].get(key, {}).get("lower_bound")
-            lines.append(f"  {_PRETTY[key]:5s} "
-                         f"{cap[key]:8.3f}   lower bound {_fmt(lb, 4)}")
+            lines.append(f"  {_PRETTY[key]:5s} {cap[key]:8.3f}   lower bound {_fmt(lb, 4)}")
         lines.append(
             f"  PPM expected within {_fmt(cap['ppm_within'], 4)}, overall "
             f"{_fmt(cap['ppm_overall'], 4)}; observed {_fmt(cap['ppm_observed'], 4)}"
@@ -389,11 +465,17 @@ def format_result(res) -> str:
         lines += _stream_lines(d["streams"])
     tm = d.get("time_model")
     if tm:
-        lines.append(f"time-dependent model (ISO 22514-2, from memory): "
-                     f"{tm['class'] or 'not classified'} - {tm['reason']}")
+        lines.append(
+            f"time-dependent model (ISO 22514-2, from memory): "
+            f"{tm['class'] or 'not classified'} - {tm['reason']}"
+        )
         if tm["indices"]:
-            lines.append("  by the class's method (" + tm["method"] + "): " + ", ".join(
-                f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items()))
+            lines.append(
+                "  by the class's method ("
+                + tm["method"]
+                + "): "
+                + ", ".join(f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items())
+            )
     if d["model_band"] and d["model_band"].get("warning"):
         lines.append(f"model band: {d['model_band']['warning']}")
     if d["plan"]:

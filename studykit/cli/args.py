@@ -45,10 +45,16 @@ def analysis_options(args):
         rules=args.rules,
         model=args.model,
         confidence=args.confidence,
-        **({"max_auto_removed_share": args.max_auto_removal}
-           if getattr(args, "max_auto_removal", None) is not None else {}),
-        **({"min_kept_values": args.min_kept} if getattr(args, "min_kept", None) is not None
-           else {}),
+        **(
+            {"max_auto_removed_share": args.max_auto_removal}
+            if getattr(args, "max_auto_removal", None) is not None
+            else {}
+        ),
+        **(
+            {"min_kept_values": args.min_kept}
+            if getattr(args, "min_kept", None) is not None
+            else {}
+        ),
         sigma_method=getattr(args, "sigma_method", None),
         transform_indices=getattr(args, "transform_indices", None) or "transformed",
         mr_removal=getattr(args, "mr_removal", None) or "later",

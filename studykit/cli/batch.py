@@ -61,9 +61,11 @@ def _inputs(args):
         for name in study.characteristic_names:
             base = study.characteristic(name)
             spec = spec_from_args(args, name, base.unit, base)
-            specs[name] = replace(spec, chart=args.chart.replace("-", "_") if args.chart
-                                  else study.chart_for(name),
-                                  model=args.model or study.model_for(name))
+            specs[name] = replace(
+                spec,
+                chart=args.chart.replace("-", "_") if args.chart else study.chart_for(name),
+                model=args.model or study.model_for(name),
+            )
             criteria[name] = criteria_from_args(args, study.criteria_for(name))
             exclusions[name] = recorded_exclusions(study, name)
         return measurements, specs, criteria, exclusions
@@ -95,8 +97,7 @@ def _inputs(args):
 
 def format_table(result) -> str:
     """The overview as a plain terminal table."""
-    head = ("characteristic", "verdict", "index", "estimate", "lower", "model", "removed",
-            "warn")
+    head = ("characteristic", "verdict", "index", "estimate", "lower", "model", "removed", "warn")
     rows = []
     for r in result.rows:
         if r["error"] is not None:
@@ -105,15 +106,26 @@ def format_table(result) -> str:
             verdict = {True: "meets", False: "does not meet", None: "not judged"}[r["meets"]]
             if r.get("withheld"):
                 verdict += f" ({r['withheld']})"
-        rows.append((
-            r["characteristic"], verdict, r["index"] or "-", _num(r["estimate"]),
-            _num(r["lower_bound"]), r["model"] or "-", str(r["removed"] or 0),
-            str(r["warnings"] or 0),
-        ))
-    widths = [max(len(h), *(len(str(row[i])) for row in rows)) if rows else len(h)
-              for i, h in enumerate(head)]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)),
-             "  ".join("-" * w for w in widths)]
+        rows.append(
+            (
+                r["characteristic"],
+                verdict,
+                r["index"] or "-",
+                _num(r["estimate"]),
+                _num(r["lower_bound"]),
+                r["model"] or "-",
+                str(r["removed"] or 0),
+                str(r["warnings"] or 0),
+            )
+        )
+    widths = [
+        max(len(h), *(len(str(row[i])) for row in rows)) if rows else len(h)
+        for i, h in enumerate(head)
+    ]
+    lines = [
+        "  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)),
+        "  ".join("-" * w for w in widths),
+    ]
     for row in rows:
         lines.append("  ".join(str(c).ljust(w) for c, w in zip(row, widths, strict=True)))
     for r in result.rows:
@@ -126,9 +138,11 @@ def format_table(result) -> str:
 
 
 def _summary_line(result) -> str:
-    return (f"{result.n} characteristic(s): {result.n_meeting} meet, {result.n_not_meeting} do "
-            f"not meet, {result.n_failed} could not be analysed ({result.seconds:.1f} s, "
-            f"{result.backend}, {result.jobs} job(s))")
+    return (
+        f"{result.n} characteristic(s): {result.n_meeting} meet, {result.n_not_meeting} do "
+        f"not meet, {result.n_failed} could not be analysed ({result.seconds:.1f} s, "
+        f"{result.backend}, {result.jobs} job(s))"
+    )
 
 
 def _num(v) -> str:
@@ -145,8 +159,14 @@ def run_batch(args) -> int:
     bar = ProgressBar()
     try:
         result = run_many(
-            measurements, specs, criteria, options=analysis_options(args), jobs=args.jobs,
-            progress=bar, scheduler=args.scheduler, exclusions=exclusions,
+            measurements,
+            specs,
+            criteria,
+            options=analysis_options(args),
+            jobs=args.jobs,
+            progress=bar,
+            scheduler=args.scheduler,
+            exclusions=exclusions,
         )
     finally:
         bar.close()

@@ -24,14 +24,20 @@ def register(subparsers) -> None:
     )
     p.add_argument("file", metavar="FILE", help="CSV or XLSX file with measurements")
     p.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
-    p.add_argument("--layout", choices=("auto", "wide", "long"), default="auto",
-                   help="table shape (default: detected from the header)")
+    p.add_argument(
+        "--layout",
+        choices=("auto", "wide", "long"),
+        default="auto",
+        help="table shape (default: detected from the header)",
+    )
     grp = p.add_mutually_exclusive_group()
     grp.add_argument("--subgroup-column", metavar="C", help="column with the subgroup labels")
-    grp.add_argument("--subgroup-size", metavar="N", type=int,
-                     help="consecutive values form subgroups of N")
-    p.add_argument("--characteristic-column", metavar="C",
-                   help="long table: column naming the characteristic")
+    grp.add_argument(
+        "--subgroup-size", metavar="N", type=int, help="consecutive values form subgroups of N"
+    )
+    p.add_argument(
+        "--characteristic-column", metavar="C", help="long table: column naming the characteristic"
+    )
     p.add_argument("--value-column", metavar="C", help="long table: column with the values")
     p.add_argument("--encoding", metavar="E", help="text encoding of a CSV (default: detected)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
@@ -73,8 +79,9 @@ def format_check(m: Measurements) -> str:
     terminal escape sequence from a cell reaches the terminal.
     """
     lines = [f"File:       {printable(m.source)}", f"SHA-256:    {m.sha256}"]
-    how = {"wide": "wide (one column per characteristic)",
-           "long": "long (one row per value)"}[m.layout]
+    how = {"wide": "wide (one column per characteristic)", "long": "long (one row per value)"}[
+        m.layout
+    ]
     lines.append(f"Layout:     {how}")
     if m.sheet:
         lines.append(f"Sheet:      {printable(m.sheet)}")
@@ -94,13 +101,18 @@ def format_check(m: Measurements) -> str:
     table = [head]
     for c in m.characteristics:
         s = c.summary()
-        table.append((
-            printable(c.name), printable(c.unit or "-"), str(c.n_valid), str(c.n_missing),
-            str(c.n_subgroups) if m.subgroup_source != "none" else "-",
-            _sizes_text(c) if m.subgroup_source != "none" else "-",
-            "-" if s["min"] is None else f"{s['min']:g}",
-            "-" if s["max"] is None else f"{s['max']:g}",
-        ))
+        table.append(
+            (
+                printable(c.name),
+                printable(c.unit or "-"),
+                str(c.n_valid),
+                str(c.n_missing),
+                str(c.n_subgroups) if m.subgroup_source != "none" else "-",
+                _sizes_text(c) if m.subgroup_source != "none" else "-",
+                "-" if s["min"] is None else f"{s['min']:g}",
+                "-" if s["max"] is None else f"{s['max']:g}",
+            )
+        )
     widths = [max(len(r[i]) for r in table) for i in range(len(head))]
     for k, r in enumerate(table):
         cells = [r[0].ljust(widths[0]), r[1].ljust(widths[1])]

@@ -46,50 +46,114 @@ def register(subparsers) -> None:
         "status 0 when the analysis ran (whatever the verdict), 2 on bad input.",
     )
     p.add_argument("file", metavar="FILE", help="CSV or XLSX file, one row per measurement")
-    p.add_argument("--part", metavar="COL",
-                   help="column with the part labels (crossed study)")
-    p.add_argument("--appraiser", metavar="COL",
-                   help="column with the appraiser (operator) labels (crossed study)")
+    p.add_argument("--part", metavar="COL", help="column with the part labels (crossed study)")
+    p.add_argument(
+        "--appraiser",
+        metavar="COL",
+        help="column with the appraiser (operator) labels (crossed study)",
+    )
     p.add_argument("--value", required=True, metavar="COL", help="column with the measurements")
     p.add_argument("--trial", metavar="COL", help="column with the trial number (optional)")
-    p.add_argument("--lsl", type=float, metavar="X",
-                   help="lower specification limit (default with --study: the characteristic's)")
-    p.add_argument("--usl", type=float, metavar="X",
-                   help="upper specification limit (default with --study: the characteristic's)")
-    p.add_argument("--study-variation", type=float, default=6.0, metavar="K",
-                   help="sigmas in the study variation (default 6; 5.15 in older practice)")
-    p.add_argument("--alpha-interaction", type=float, default=0.25, metavar="A",
-                   help="keep the appraiser-by-part interaction when its p-value is below A "
-                   "(default 0.25)")
-    p.add_argument("--confidence", type=float, default=0.95, metavar="C",
-                   help="confidence level of the intervals (default 0.95)")
+    p.add_argument(
+        "--lsl",
+        type=float,
+        metavar="X",
+        help="lower specification limit (default with --study: the characteristic's)",
+    )
+    p.add_argument(
+        "--usl",
+        type=float,
+        metavar="X",
+        help="upper specification limit (default with --study: the characteristic's)",
+    )
+    p.add_argument(
+        "--study-variation",
+        type=float,
+        default=6.0,
+        metavar="K",
+        help="sigmas in the study variation (default 6; 5.15 in older practice)",
+    )
+    p.add_argument(
+        "--alpha-interaction",
+        type=float,
+        default=0.25,
+        metavar="A",
+        help="keep the appraiser-by-part interaction when its p-value is below A (default 0.25)",
+    )
+    p.add_argument(
+        "--confidence",
+        type=float,
+        default=0.95,
+        metavar="C",
+        help="confidence level of the intervals (default 0.95)",
+    )
     short = p.add_argument_group("short gauge study (one reference part)")
-    short.add_argument("--reference", type=float, metavar="VALUE",
-                       help="reference value of the part measured repeatedly; selects the short "
-                       "gauge study (Cg, Cgk, bias)")
-    short.add_argument("--tolerance", type=float, metavar="T",
-                       help="tolerance width USL - LSL (instead of --lsl/--usl)")
-    short.add_argument("--k-percent", type=float, default=DEFAULT_K_PERCENT, metavar="K",
-                       help="share of the tolerance granted to the gauge, in percent (default "
-                       f"{DEFAULT_K_PERCENT:g}; common practice)")
-    short.add_argument("--l-sigmas", type=float, default=DEFAULT_L_SIGMAS, metavar="L",
-                       help=f"sigmas standing for the gauge spread (default {DEFAULT_L_SIGMAS:g}; "
-                       "4 in some plans)")
-    short.add_argument("--alpha", type=float, default=0.05, metavar="A",
-                       help="significance level of the bias t-test (default 0.05)")
-    short.add_argument("--minimum", type=float, default=DEFAULT_MINIMUM, metavar="C",
-                       help=f"Cg and Cgk needed to call the gauge capable (default "
-                       f"{DEFAULT_MINIMUM:g}; common practice)")
+    short.add_argument(
+        "--reference",
+        type=float,
+        metavar="VALUE",
+        help="reference value of the part measured repeatedly; selects the short "
+        "gauge study (Cg, Cgk, bias)",
+    )
+    short.add_argument(
+        "--tolerance",
+        type=float,
+        metavar="T",
+        help="tolerance width USL - LSL (instead of --lsl/--usl)",
+    )
+    short.add_argument(
+        "--k-percent",
+        type=float,
+        default=DEFAULT_K_PERCENT,
+        metavar="K",
+        help="share of the tolerance granted to the gauge, in percent (default "
+        f"{DEFAULT_K_PERCENT:g}; common practice)",
+    )
+    short.add_argument(
+        "--l-sigmas",
+        type=float,
+        default=DEFAULT_L_SIGMAS,
+        metavar="L",
+        help=f"sigmas standing for the gauge spread (default {DEFAULT_L_SIGMAS:g}; "
+        "4 in some plans)",
+    )
+    short.add_argument(
+        "--alpha",
+        type=float,
+        default=0.05,
+        metavar="A",
+        help="significance level of the bias t-test (default 0.05)",
+    )
+    short.add_argument(
+        "--minimum",
+        type=float,
+        default=DEFAULT_MINIMUM,
+        metavar="C",
+        help=f"Cg and Cgk needed to call the gauge capable (default "
+        f"{DEFAULT_MINIMUM:g}; common practice)",
+    )
     p.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
     p.add_argument("--json", action="store_true", help="print the result as one JSON object")
-    p.add_argument("--study", metavar="STUDYFILE",
-                   help="keep the result in this study file (needs --characteristic)")
-    p.add_argument("--characteristic", metavar="NAME",
-                   help="the characteristic the gauge measures (with --study)")
-    p.add_argument("--who", metavar="NAME",
-                   help="name recorded with the stored result (default: the login name)")
-    p.add_argument("--override-lock", metavar="REASON",
-                   help="store the result in an approved study anyway; voids the approval")
+    p.add_argument(
+        "--study",
+        metavar="STUDYFILE",
+        help="keep the result in this study file (needs --characteristic)",
+    )
+    p.add_argument(
+        "--characteristic",
+        metavar="NAME",
+        help="the characteristic the gauge measures (with --study)",
+    )
+    p.add_argument(
+        "--who",
+        metavar="NAME",
+        help="name recorded with the stored result (default: the login name)",
+    )
+    p.add_argument(
+        "--override-lock",
+        metavar="REASON",
+        help="store the result in an approved study anyway; voids the approval",
+    )
     p.set_defaults(func=run)
 
 
@@ -102,8 +166,10 @@ def run(args) -> int:
     if args.reference is not None:
         return run_short(args)
     if args.tolerance is not None:
-        raise StudyInputError("`--tolerance` belongs to the short gauge study (with "
-                              "--reference); the crossed study takes --lsl and --usl")
+        raise StudyInputError(
+            "`--tolerance` belongs to the short gauge study (with "
+            "--reference); the crossed study takes --lsl and --usl"
+        )
     missing = [o for o, v in (("--part", args.part), ("--appraiser", args.appraiser)) if not v]
     if missing:
         raise StudyInputError(
@@ -118,48 +184,75 @@ def run(args) -> int:
         spec = StudyFile(args.study).load().characteristic(args.characteristic)
         if lsl is None and usl is None and spec.lsl is not None and spec.usl is not None:
             lsl, usl, limits_from = spec.lsl, spec.usl, args.characteristic
-    table = read_gauge_table(args.file, part=args.part, appraiser=args.appraiser,
-                             value=args.value, trial=args.trial, sheet=args.sheet)
+    table = read_gauge_table(
+        args.file,
+        part=args.part,
+        appraiser=args.appraiser,
+        value=args.value,
+        trial=args.trial,
+        sheet=args.sheet,
+    )
     try:
         result = gauge_rr(
-            table["values"], table["parts"], table["appraisers"], trials=table["trials"],
-            alpha_interaction=args.alpha_interaction, study_variation=args.study_variation,
-            lsl=lsl, usl=usl, confidence=args.confidence,
+            table["values"],
+            table["parts"],
+            table["appraisers"],
+            trials=table["trials"],
+            alpha_interaction=args.alpha_interaction,
+            study_variation=args.study_variation,
+            lsl=lsl,
+            usl=usl,
+            confidence=args.confidence,
         )
     except StudyInputError as exc:
         if exc.file is not None:
             raise
         # a design problem (unbalanced, too few parts...) belongs to the file: say which
-        raise type(exc)(exc.detail, file=Path(args.file).name, row=exc.row, column=exc.column,
-                        value=exc.value) from None
+        raise type(exc)(
+            exc.detail, file=Path(args.file).name, row=exc.row, column=exc.column, value=exc.value
+        ) from None
     stored_id = None
     if args.study:
         who = args.who or login_name()
         payload = result.to_dict()
         payload["source_file"] = Path(args.file).name
         payload["limits_from"] = "study" if limits_from else "command line"
-        payload["columns"] = {"part": args.part, "appraiser": args.appraiser,
-                              "value": args.value, "trial": args.trial}
-        lock = ({"override_lock": True, "override_reason": args.override_lock}
-                if args.override_lock else {})
-        stored_id = StudyFile(args.study).attach_result(RESULT_KIND, args.characteristic,
-                                                        payload, who=who, **lock)
+        payload["columns"] = {
+            "part": args.part,
+            "appraiser": args.appraiser,
+            "value": args.value,
+            "trial": args.trial,
+        }
+        lock = (
+            {"override_lock": True, "override_reason": args.override_lock}
+            if args.override_lock
+            else {}
+        )
+        stored_id = StudyFile(args.study).attach_result(
+            RESULT_KIND, args.characteristic, payload, who=who, **lock
+        )
     if args.json:
         out = result.to_dict()
         if stored_id is not None:
-            out["stored"] = {"study": Path(args.study).name, "characteristic": args.characteristic,
-                             "result_id": stored_id,
-                             "limits_from": "study" if limits_from else "command line"}
+            out["stored"] = {
+                "study": Path(args.study).name,
+                "characteristic": args.characteristic,
+                "result_id": stored_id,
+                "limits_from": "study" if limits_from else "command line",
+            }
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
         sys.stdout.write(format_gauge(result, source=Path(args.file).name))
         if limits_from:
-            sys.stdout.write(f"Tolerance taken from the specification of '{limits_from}' in the "
-                             "study file.\n")
+            sys.stdout.write(
+                f"Tolerance taken from the specification of '{limits_from}' in the study file.\n"
+            )
         if stored_id is not None:
-            sys.stdout.write(f"Stored as result {stored_id} of '{args.characteristic}' in "
-                             f"{Path(args.study).name}.\n")
+            sys.stdout.write(
+                f"Stored as result {stored_id} of '{args.characteristic}' in "
+                f"{Path(args.study).name}.\n"
+            )
     return 0
 
 
@@ -177,8 +270,13 @@ def run_short(args) -> int:
         from studykit.store import StudyFile
 
         spec = StudyFile(args.study).load().characteristic(args.characteristic)
-        if (tol is None and lsl is None and usl is None and spec.lsl is not None
-                and spec.usl is not None):
+        if (
+            tol is None
+            and lsl is None
+            and usl is None
+            and spec.lsl is not None
+            and spec.usl is not None
+        ):
             lsl, usl, limits_from = spec.lsl, spec.usl, args.characteristic
     if tol is None and (lsl is None or usl is None):
         raise StudyInputError(
@@ -188,15 +286,22 @@ def run_short(args) -> int:
     readings = read_reference_readings(args.file, value=args.value, sheet=args.sheet)
     try:
         result = short_gauge_study(
-            readings, reference=args.reference, lsl=None if tol is not None else lsl,
-            usl=None if tol is not None else usl, tolerance=tol, k_percent=args.k_percent,
-            l_sigmas=args.l_sigmas, alpha=args.alpha, minimum=args.minimum,
+            readings,
+            reference=args.reference,
+            lsl=None if tol is not None else lsl,
+            usl=None if tol is not None else usl,
+            tolerance=tol,
+            k_percent=args.k_percent,
+            l_sigmas=args.l_sigmas,
+            alpha=args.alpha,
+            minimum=args.minimum,
         )
     except StudyInputError as exc:
         if exc.file is not None:
             raise
-        raise type(exc)(exc.detail, file=Path(args.file).name, column=exc.column or args.value,
-                        value=exc.value) from None
+        raise type(exc)(
+            exc.detail, file=Path(args.file).name, column=exc.column or args.value, value=exc.value
+        ) from None
     stored_id = None
     from_ = "study" if limits_from else "command line"
     if args.study:
@@ -204,26 +309,36 @@ def run_short(args) -> int:
         payload["source_file"] = Path(args.file).name
         payload["limits_from"] = from_
         payload["columns"] = {"value": args.value}
-        lock = ({"override_lock": True, "override_reason": args.override_lock}
-                if args.override_lock else {})
-        stored_id = StudyFile(args.study).attach_result(SHORT_KIND, args.characteristic,
-                                                        payload, who=args.who or login_name(),
-                                                        **lock)
+        lock = (
+            {"override_lock": True, "override_reason": args.override_lock}
+            if args.override_lock
+            else {}
+        )
+        stored_id = StudyFile(args.study).attach_result(
+            SHORT_KIND, args.characteristic, payload, who=args.who or login_name(), **lock
+        )
     if args.json:
         out = result.to_dict()
         if stored_id is not None:
-            out["stored"] = {"study": Path(args.study).name, "characteristic": args.characteristic,
-                             "result_id": stored_id, "limits_from": from_}
+            out["stored"] = {
+                "study": Path(args.study).name,
+                "characteristic": args.characteristic,
+                "result_id": stored_id,
+                "limits_from": from_,
+            }
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
         sys.stdout.write(format_short(result, source=Path(args.file).name))
         if limits_from:
-            sys.stdout.write(f"Tolerance taken from the specification of '{limits_from}' in the "
-                             "study file.\n")
+            sys.stdout.write(
+                f"Tolerance taken from the specification of '{limits_from}' in the study file.\n"
+            )
         if stored_id is not None:
-            sys.stdout.write(f"Stored as result {stored_id} of '{args.characteristic}' in "
-                             f"{Path(args.study).name}.\n")
+            sys.stdout.write(
+                f"Stored as result {stored_id} of '{args.characteristic}' in "
+                f"{Path(args.study).name}.\n"
+            )
     return 0
 
 
@@ -241,9 +356,13 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     lines = []
     if source:
         lines.append(f"File:        {source}")
-    lines.append(f"Design:      {res.n} readings of one reference part (reference {res.reference:g})")
-    lines.append(f"Tolerance:   {res.lsl:g} .. {res.usl:g} (width {res.tolerance:g}); "
-                 f"K = {res.k_percent:g} % of it granted to the gauge, L = {res.l_sigmas:g} sigma")
+    lines.append(
+        f"Design:      {res.n} readings of one reference part (reference {res.reference:g})"
+    )
+    lines.append(
+        f"Tolerance:   {res.lsl:g} .. {res.usl:g} (width {res.tolerance:g}); "
+        f"K = {res.k_percent:g} % of it granted to the gauge, L = {res.l_sigmas:g} sigma"
+    )
     lines.append("")
     rows = [
         ("Mean of the readings", _num(res.mean, ".6g")),
@@ -258,9 +377,11 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     lines += _table(("Figure", "Value"), rows)
     lines.append("")
     conf = f"{100 * (1 - res.alpha):g}%"
-    lines.append(f"Bias t-test (H0: bias = 0, two-sided): t = {_num(res.t_statistic, '.4g')}, "
-                 f"df = {res.df}, p = {_num(res.p_value, '.4g')}; {conf} interval of the bias "
-                 f"{_num(res.bias_lower, '.4g')} .. {_num(res.bias_upper, '.4g')}")
+    lines.append(
+        f"Bias t-test (H0: bias = 0, two-sided): t = {_num(res.t_statistic, '.4g')}, "
+        f"df = {res.df}, p = {_num(res.p_value, '.4g')}; {conf} interval of the bias "
+        f"{_num(res.bias_lower, '.4g')} .. {_num(res.bias_upper, '.4g')}"
+    )
     lines.append("")
     lines.append(f"Verdict: {res.status.upper()}")
     lines.append(f"  {res.message}")
@@ -286,24 +407,39 @@ def _table(head, rows, right_from=1) -> list[str]:
     widths = [max(len(r[i]) for r in rows) for i in range(len(head))]
     lines = []
     for k, r in enumerate(rows):
-        cells = [r[i].ljust(widths[i]) if i < right_from else r[i].rjust(widths[i])
-                 for i in range(len(head))]
+        cells = [
+            r[i].ljust(widths[i]) if i < right_from else r[i].rjust(widths[i])
+            for i in range(len(head))
+        ]
         lines.append("  ".join(cells).rstrip())
         if k == 0:
             lines.append("  ".join("-" * w for w in widths))
     return lines
 
 
-_SOURCE_NAMES = {"part_to_part": "Part", "appraiser": "Appraiser",
-                 INTERACTION: "Appraiser x part", "repeatability": "Repeatability",
-                 "total": "Total"}
+_SOURCE_NAMES = {
+    "part_to_part": "Part",
+    "appraiser": "Appraiser",
+    INTERACTION: "Appraiser x part",
+    "repeatability": "Repeatability",
+    "total": "Total",
+}
 
 
 def _anova_lines(rows) -> list[str]:
     return _table(
         ("Source", "df", "SS", "MS", "F", "p"),
-        [(_SOURCE_NAMES.get(r.source, r.source), str(r.df), _num(r.ss, ".6g"),
-          _num(r.ms, ".6g"), _num(r.f, ".4g"), _num(r.p, ".4g")) for r in rows],
+        [
+            (
+                _SOURCE_NAMES.get(r.source, r.source),
+                str(r.df),
+                _num(r.ss, ".6g"),
+                _num(r.ms, ".6g"),
+                _num(r.f, ".4g"),
+                _num(r.p, ".4g"),
+            )
+            for r in rows
+        ],
     )
 
 
@@ -322,8 +458,10 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
     lines = []
     if source:
         lines.append(f"File:        {source}")
-    lines.append(f"Design:      {res.n_parts} parts x {res.n_appraisers} appraisers x "
-                 f"{res.n_trials} trials = {res.n_values} values (crossed, balanced)")
+    lines.append(
+        f"Design:      {res.n_parts} parts x {res.n_appraisers} appraisers x "
+        f"{res.n_trials} trials = {res.n_values} values (crossed, balanced)"
+    )
     if res.tolerance is not None:
         lines.append(f"Tolerance:   {res.lsl:g} .. {res.usl:g} (width {res.tolerance:g})")
     lines.append("")
@@ -339,14 +477,38 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
     rows = []
     for c in res.components:
         ci = "-" if c.lower is None else f"{c.lower:.4g} .. {c.upper:.4g}"
-        tag = (" (set to 0)" if c.set_to_zero else
-               " (pooled)" if c.interval_method == "pooled into repeatability" else "")
-        rows.append((COMPONENT_LABELS[c.name] + tag,
-                     _num(c.variance, ".5g"), _num(c.pct_contribution, ".2f"),
-                     _num(c.sigma, ".5g"), _num(c.study_variation, ".5g"),
-                     _num(c.pct_study_variation, ".2f"), _num(c.pct_tolerance, ".2f"), ci))
-    lines += _table(("Source", "Variance", "%Contrib", "Sigma", f"{k:g}*Sigma", "%StudyVar",
-                     "%Tol", "Sigma interval"), rows)
+        tag = (
+            " (set to 0)"
+            if c.set_to_zero
+            else " (pooled)"
+            if c.interval_method == "pooled into repeatability"
+            else ""
+        )
+        rows.append(
+            (
+                COMPONENT_LABELS[c.name] + tag,
+                _num(c.variance, ".5g"),
+                _num(c.pct_contribution, ".2f"),
+                _num(c.sigma, ".5g"),
+                _num(c.study_variation, ".5g"),
+                _num(c.pct_study_variation, ".2f"),
+                _num(c.pct_tolerance, ".2f"),
+                ci,
+            )
+        )
+    lines += _table(
+        (
+            "Source",
+            "Variance",
+            "%Contrib",
+            "Sigma",
+            f"{k:g}*Sigma",
+            "%StudyVar",
+            "%Tol",
+            "Sigma interval",
+        ),
+        rows,
+    )
     lines.append("")
     lines.append(f"Distinct categories (ndc): {'-' if res.ndc is None else res.ndc}")
     rm = res.range_method

@@ -14,11 +14,21 @@ from pathlib import Path
 
 from studykit.errors import DataFileError, StudyInputError
 
-_MODELS = {"normal": "normal", "lognormal": "lognormal", "boxcox": "boxcox",
-           "box-cox": "boxcox", "distribution-free": "distribution_free",
-           "distribution_free": "distribution_free"}
-_METHODS = {"exact": "exact", "howe": "howe", "wald-wolfowitz": "wald_wolfowitz",
-            "wald_wolfowitz": "wald_wolfowitz", "natrella": "natrella"}
+_MODELS = {
+    "normal": "normal",
+    "lognormal": "lognormal",
+    "boxcox": "boxcox",
+    "box-cox": "boxcox",
+    "distribution-free": "distribution_free",
+    "distribution_free": "distribution_free",
+}
+_METHODS = {
+    "exact": "exact",
+    "howe": "howe",
+    "wald-wolfowitz": "wald_wolfowitz",
+    "wald_wolfowitz": "wald_wolfowitz",
+    "natrella": "natrella",
+}
 
 
 def register(sub) -> None:
@@ -33,40 +43,81 @@ def register(sub) -> None:
         "decision), 2 on bad input.",
     )
     p.add_argument("file", metavar="FILE", nargs="?", help="measurement file (CSV or XLSX)")
-    p.add_argument("--study", metavar="STUDYFILE",
-                   help="a saved study instead of FILE: its data copy without the recorded "
-                   "removals, its limits, its safety-critical mark and its lognormal/Box-Cox "
-                   "model choice apply (options given here override them)")
-    p.add_argument("--characteristic", "-c", metavar="NAME",
-                   help="characteristic (column) to use; may be left out when the file has one")
-    p.add_argument("--coverage", type=float, default=0.95, metavar="P",
-                   help="proportion of the population inside, 0..1 (default 0.95)")
-    p.add_argument("--confidence", type=float, default=0.95, metavar="C",
-                   help="confidence level, 0..1 (default 0.95)")
-    p.add_argument("--sides", type=int, choices=[1, 2], default=None,
-                   help="2: two-sided interval; 1: one-sided limit (default: 2, or 1 when only "
-                   "one specification limit is given)")
-    p.add_argument("--bound", choices=["upper", "lower"],
-                   help="which one-sided limit (implies --sides 1; default: from the one "
-                   "specification limit)")
-    p.add_argument("--model", default=None,
-                   choices=["normal", "lognormal", "boxcox", "distribution-free"],
-                   help="normal (default; with --study the study's lognormal or Box-Cox "
-                   "choice), lognormal, boxcox or distribution-free")
-    p.add_argument("--method", default="exact",
-                   choices=["exact", "howe", "wald-wolfowitz", "natrella"],
-                   help="factor: exact (default); two-sided approximations howe, "
-                   "wald-wolfowitz; one-sided approximation natrella")
+    p.add_argument(
+        "--study",
+        metavar="STUDYFILE",
+        help="a saved study instead of FILE: its data copy without the recorded "
+        "removals, its limits, its safety-critical mark and its lognormal/Box-Cox "
+        "model choice apply (options given here override them)",
+    )
+    p.add_argument(
+        "--characteristic",
+        "-c",
+        metavar="NAME",
+        help="characteristic (column) to use; may be left out when the file has one",
+    )
+    p.add_argument(
+        "--coverage",
+        type=float,
+        default=0.95,
+        metavar="P",
+        help="proportion of the population inside, 0..1 (default 0.95)",
+    )
+    p.add_argument(
+        "--confidence",
+        type=float,
+        default=0.95,
+        metavar="C",
+        help="confidence level, 0..1 (default 0.95)",
+    )
+    p.add_argument(
+        "--sides",
+        type=int,
+        choices=[1, 2],
+        default=None,
+        help="2: two-sided interval; 1: one-sided limit (default: 2, or 1 when only "
+        "one specification limit is given)",
+    )
+    p.add_argument(
+        "--bound",
+        choices=["upper", "lower"],
+        help="which one-sided limit (implies --sides 1; default: from the one specification limit)",
+    )
+    p.add_argument(
+        "--model",
+        default=None,
+        choices=["normal", "lognormal", "boxcox", "distribution-free"],
+        help="normal (default; with --study the study's lognormal or Box-Cox "
+        "choice), lognormal, boxcox or distribution-free",
+    )
+    p.add_argument(
+        "--method",
+        default="exact",
+        choices=["exact", "howe", "wald-wolfowitz", "natrella"],
+        help="factor: exact (default); two-sided approximations howe, "
+        "wald-wolfowitz; one-sided approximation natrella",
+    )
     p.add_argument("--lsl", type=float, help="lower specification limit")
     p.add_argument("--usl", type=float, help="upper specification limit")
-    p.add_argument("--power", type=float, default=0.9, metavar="Q",
-                   help="probability of passing used for the normal sample size (default 0.9)")
+    p.add_argument(
+        "--power",
+        type=float,
+        default=0.9,
+        metavar="Q",
+        help="probability of passing used for the normal sample size (default 0.9)",
+    )
     p.add_argument("--sheet", help="XLSX sheet name")
-    p.add_argument("--characteristic-column", metavar="COL",
-                   help="long table: column naming the characteristic of each row")
+    p.add_argument(
+        "--characteristic-column",
+        metavar="COL",
+        help="long table: column naming the characteristic of each row",
+    )
     p.add_argument("--value-column", metavar="COL", help="long table: column with the values")
-    p.add_argument("--safety-critical", action="store_true",
-                   help="mark the characteristic safety-critical (prints the caution)")
+    p.add_argument(
+        "--safety-critical",
+        action="store_true",
+        help="mark the characteristic safety-critical (prints the caution)",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=run)
 
@@ -90,7 +141,9 @@ def read_values(args, names: list[str | None]):
                 raise StudyInputError(
                     "the file has several characteristics ("
                     + ", ".join(f"'{n}'" for n in m.names)
-                    + "); name one with --characteristic NAME", file=m.source)
+                    + "); name one with --characteristic NAME",
+                    file=m.source,
+                )
             out.append(m.characteristics[0])
         else:
             out.append(m.get(name))
@@ -108,8 +161,12 @@ def _finite(data, source):
     note = None
     if not keep.all():
         rows = [int(r) for r in np.asarray(data.rows)[~keep][:5]]
-        note = (f"{int((~keep).sum())} empty cell(s) left out (rows "
-                + ", ".join(map(str, rows)) + ("..." if (~keep).sum() > 5 else "") + ")")
+        note = (
+            f"{int((~keep).sum())} empty cell(s) left out (rows "
+            + ", ".join(map(str, rows))
+            + ("..." if (~keep).sum() > 5 else "")
+            + ")"
+        )
     return vals[keep], note
 
 
@@ -138,30 +195,40 @@ def _from_study(args):
         notes.append("subgroups removed in the study left out: " + ", ".join(excluded))
     keep = ~np.isnan(values)
     if not keep.any():
-        raise DataFileError("no values left after the recorded removals", file=source,
-                            column=data.label)
+        raise DataFileError(
+            "no values left after the recorded removals", file=source, column=data.label
+        )
     n_empty = int(np.isnan(np.asarray(data.values, dtype=float)).sum())
     if n_empty:
         notes.append(f"{n_empty} empty cell(s) left out")
     chosen = study.model_for(name)
     model = chosen if chosen in ("lognormal", "boxcox") else "normal"
     if chosen not in ("auto", "normal", "lognormal", "boxcox"):
-        notes.append(f"the study's model '{chosen}' has no tolerance interval here; the normal "
-                     "interval is shown (try --model distribution-free)")
+        notes.append(
+            f"the study's model '{chosen}' has no tolerance interval here; the normal "
+            "interval is shown (try --model distribution-free)"
+        )
     lsl = args.lsl if args.lsl is not None else spec.lsl
     usl = args.usl if args.usl is not None else spec.usl
     if args.lsl is None and args.usl is None and (spec.lsl is not None or spec.usl is not None):
         notes.append("specification limits taken from the study")
-    return (Path(args.study).name + f" ({source})", data, values[keep], notes, lsl, usl,
-            bool(spec.safety_critical), model)
+    return (
+        Path(args.study).name + f" ({source})",
+        data,
+        values[keep],
+        notes,
+        lsl,
+        usl,
+        bool(spec.safety_critical),
+        model,
+    )
 
 
 def run(args) -> int:
     from studykit.stats.tolerance import tolerance_interval
 
     if args.study:
-        (source, data, values, pre_notes, lsl, usl, critical,
-         study_model) = _from_study(args)
+        (source, data, values, pre_notes, lsl, usl, critical, study_model) = _from_study(args)
     else:
         if not args.file:
             raise StudyInputError("give a measurement FILE or --study STUDYFILE")
@@ -177,9 +244,16 @@ def run(args) -> int:
         sides = 1 if args.bound or (lsl is None) != (usl is None) else 2
     try:
         res = tolerance_interval(
-            values, coverage=args.coverage, confidence=args.confidence, sides=sides,
-            bound=args.bound, model=model, method=_METHODS[args.method],
-            lsl=lsl, usl=usl, power=args.power,
+            values,
+            coverage=args.coverage,
+            confidence=args.confidence,
+            sides=sides,
+            bound=args.bound,
+            model=model,
+            method=_METHODS[args.method],
+            lsl=lsl,
+            usl=usl,
+            power=args.power,
         )
     except StudyInputError as exc:
         if exc.file is not None or exc.column is not None:
@@ -191,16 +265,16 @@ def run(args) -> int:
 
         caution = SAFETY_CAUTION
     if args.json:
-        out = {"source": source, "characteristic": data.name, "unit": data.unit,
-               **res.to_dict()}
+        out = {"source": source, "characteristic": data.name, "unit": data.unit, **res.to_dict()}
         out["notes"] = [*pre_notes, *out["notes"]]
         out["safety_critical"] = bool(critical)
         out["caution"] = caution
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
-        sys.stdout.write(format_interval(res, source=source, name=data.label,
-                                         notes=pre_notes, caution=caution))
+        sys.stdout.write(
+            format_interval(res, source=source, name=data.label, notes=pre_notes, caution=caution)
+        )
     return 0
 
 
@@ -208,12 +282,18 @@ def _num(v, fmt=".6g"):
     return "-" if v is None else format(v, fmt)
 
 
-_MODEL_WORDS = {"normal": "normal", "lognormal": "lognormal (log scale, back-transformed)",
-                "boxcox": "Box-Cox scale, back-transformed",
-                "distribution_free": "distribution-free (order statistics)"}
-_METHOD_WORDS = {"exact": "exact", "howe": "Howe approximation",
-                 "wald_wolfowitz": "Wald-Wolfowitz approximation",
-                 "natrella": "Natrella approximation"}
+_MODEL_WORDS = {
+    "normal": "normal",
+    "lognormal": "lognormal (log scale, back-transformed)",
+    "boxcox": "Box-Cox scale, back-transformed",
+    "distribution_free": "distribution-free (order statistics)",
+}
+_METHOD_WORDS = {
+    "exact": "exact",
+    "howe": "Howe approximation",
+    "wald_wolfowitz": "Wald-Wolfowitz approximation",
+    "natrella": "Natrella approximation",
+}
 
 
 def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=None) -> str:
@@ -231,19 +311,25 @@ def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=
     if source:
         lines.append(f"File:          {source}" + (f"  ({name})" if name else ""))
     side = "two-sided" if res.sides == 2 else f"one-sided ({res.bound} limit)"
-    lines.append(f"Interval:      {res.model.replace('_', '-')}, {side}, "
-                 f"{100 * res.coverage:g} % coverage, {100 * res.confidence:g} % confidence, "
-                 f"n = {res.n}")
+    lines.append(
+        f"Interval:      {res.model.replace('_', '-')}, {side}, "
+        f"{100 * res.coverage:g} % coverage, {100 * res.confidence:g} % confidence, "
+        f"n = {res.n}"
+    )
     lines.append(f"Model:         {_MODEL_WORDS[res.model]}")
     if res.factor is not None:
-        lines.append(f"Factor k:      {res.factor:.4f} ({_METHOD_WORDS[res.factor_method]}); "
-                     f"mean {res.mean:.6g}, s {res.sd:.6g} on the {res.scale} scale")
+        lines.append(
+            f"Factor k:      {res.factor:.4f} ({_METHOD_WORDS[res.factor_method]}); "
+            f"mean {res.mean:.6g}, s {res.sd:.6g} on the {res.scale} scale"
+        )
     if res.order_statistics is not None:
         lo, hi = res.order_statistics
-        ranks = ", ".join(f"{w} x_({v})" for w, v in (("lower", lo), ("upper", hi))
-                          if v is not None)
-        lines.append(f"Order stats:   {ranks}; achieved confidence "
-                     f"{100 * res.achieved_confidence:.2f} %")
+        ranks = ", ".join(
+            f"{w} x_({v})" for w, v in (("lower", lo), ("upper", hi)) if v is not None
+        )
+        lines.append(
+            f"Order stats:   {ranks}; achieved confidence {100 * res.achieved_confidence:.2f} %"
+        )
     lines.append(f"Limits:        lower {_num(res.lower)}   upper {_num(res.upper)}")
     lines.append(f"Statement:     {res.statement}")
     if res.lsl is not None or res.usl is not None:
@@ -252,21 +338,30 @@ def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=
         if res.meets is None:
             verdict = "NOT JUDGED (no interval on the side the specification needs)"
         elif res.meets:
-            verdict = (f"MEETS: at least {p} of parts within specification with {c} "
-                       "confidence")
+            verdict = f"MEETS: at least {p} of parts within specification with {c} confidence"
         else:
-            verdict = (f"DOES NOT MEET: the interval reaches beyond the specification; "
-                       f"at least {p} within specification is not shown with {c} confidence")
+            verdict = (
+                f"DOES NOT MEET: the interval reaches beyond the specification; "
+                f"at least {p} within specification is not shown with {c} confidence"
+            )
         lines.append(f"Decision:      {verdict}")
         if res.plan is not None:
-            normal = ("not reachable for a process like this sample" if res.plan.normal is None
-                      else f"{res.plan.normal} (a process like this sample, on the "
-                      f"{'data' if res.model == 'distribution_free' else res.scale} scale, "
-                      f"passes with probability {100 * res.plan.power:g} %)")
-            free = ("more than 100000" if res.plan.distribution_free is None
-                    else res.plan.distribution_free)
-            lines.append(f"Parts needed:  distribution-free {free} "
-                         "(all inside the specification); normal-theory " + normal)
+            normal = (
+                "not reachable for a process like this sample"
+                if res.plan.normal is None
+                else f"{res.plan.normal} (a process like this sample, on the "
+                f"{'data' if res.model == 'distribution_free' else res.scale} scale, "
+                f"passes with probability {100 * res.plan.power:g} %)"
+            )
+            free = (
+                "more than 100000"
+                if res.plan.distribution_free is None
+                else res.plan.distribution_free
+            )
+            lines.append(
+                f"Parts needed:  distribution-free {free} "
+                "(all inside the specification); normal-theory " + normal
+            )
     all_notes = [*notes, *res.notes]
     if all_notes:
         lines.append("Notes:")
@@ -274,4 +369,3 @@ def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=
     if caution:
         lines.append(caution)
     return "\n".join(lines) + "\n"
-

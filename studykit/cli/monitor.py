@@ -23,8 +23,12 @@ def register(sub) -> None:
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--plan", metavar="PLAN.json", help="phase-II plan from the hand-off pack")
     src.add_argument("--study", metavar="STUDYFILE", help="freeze the limits from a saved study")
-    p.add_argument("--characteristic", "-c", metavar="NAME",
-                   help="column of FILE to check (default: the plan's characteristic)")
+    p.add_argument(
+        "--characteristic",
+        "-c",
+        metavar="NAME",
+        help="column of FILE to check (default: the plan's characteristic)",
+    )
     p.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
     p.add_argument("--size-column", metavar="COL", help="attribute data: lot/sample sizes")
     p.add_argument("--save-plan", metavar="PLAN.json", help="with --study: also write the plan")
@@ -44,7 +48,8 @@ def _plan(args):
         except (ValueError, KeyError, TypeError) as exc:
             raise StudyInputError(
                 f"this is not a phase-II plan written by studykit ({exc}); use the plan JSON "
-                "from the hand-off pack", file=args.plan,
+                "from the hand-off pack",
+                file=args.plan,
             ) from None
     if not args.characteristic:
         raise StudyInputError("with --study, name the characteristic with --characteristic NAME")
@@ -53,8 +58,9 @@ def _plan(args):
 
     study = StudyFile(args.study).load()
     res = analyze_study(study, args.characteristic)
-    plan = freeze(res.phase1, characteristic=res.characteristic, unit=res.unit or "",
-                  rules=res.options.rules)
+    plan = freeze(
+        res.phase1, characteristic=res.characteristic, unit=res.unit or "", rules=res.options.rules
+    )
     if args.save_plan:
         Path(args.save_plan).write_text(plan.to_json(), encoding="utf-8")
     return plan
@@ -79,7 +85,9 @@ def run(args) -> int:
     if plan.kind == "imr" and len(set(labels.tolist())) != labels.size:
         raise StudyInputError(
             f"the plan is for individual values but '{name}' in the file is subgrouped: "
-            "give one value per row", file=args.file, column=name,
+            "give one value per row",
+            file=args.file,
+            column=name,
         )
     res = monitor(plan, values, labels, sizes=sizes)
     if args.json:
@@ -95,8 +103,10 @@ def run(args) -> int:
         json.dump(out, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
-        print(f"{plan.characteristic}: {len(res.chart.labels)} new subgroup(s) against the "
-              f"limits frozen from the study ({plan.kind})")
+        print(
+            f"{plan.characteristic}: {len(res.chart.labels)} new subgroup(s) against the "
+            f"limits frozen from the study ({plan.kind})"
+        )
         if int((~keep).sum()):
             print(f"  {int((~keep).sum())} empty cell(s) left out")
         if res.in_control:

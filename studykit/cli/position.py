@@ -32,23 +32,42 @@ def register(sub) -> None:
     p.add_argument("file", metavar="FILE", help="measurement file (CSV or XLSX)")
     p.add_argument("--x", required=True, metavar="COL", help="column of X deviations")
     p.add_argument("--y", required=True, metavar="COL", help="column of Y deviations")
-    p.add_argument("--tolerance", required=True, type=float, metavar="T",
-                   help="diameter of the position zone (same unit as the deviations)")
-    p.add_argument("--figure", metavar="PATH",
-                   help="write the scatter plot with the zone and fitted ellipse "
-                   "(.png, .pdf or .svg)")
+    p.add_argument(
+        "--tolerance",
+        required=True,
+        type=float,
+        metavar="T",
+        help="diameter of the position zone (same unit as the deviations)",
+    )
+    p.add_argument(
+        "--figure",
+        metavar="PATH",
+        help="write the scatter plot with the zone and fitted ellipse (.png, .pdf or .svg)",
+    )
     p.add_argument("--sheet", help="XLSX sheet name")
-    p.add_argument("--safety-critical", action="store_true",
-                   help="mark the characteristic safety-critical (prints the caution)")
+    p.add_argument(
+        "--safety-critical",
+        action="store_true",
+        help="mark the characteristic safety-critical (prints the caution)",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--study", metavar="STUDYFILE",
-                   help="keep the position study in this study file (needs --name); the "
-                   "workbook, the PDF and verify then show and check it")
+    p.add_argument(
+        "--study",
+        metavar="STUDYFILE",
+        help="keep the position study in this study file (needs --name); the "
+        "workbook, the PDF and verify then show and check it",
+    )
     p.add_argument("--name", metavar="NAME", help="name of the position study (with --study)")
-    p.add_argument("--who", metavar="NAME",
-                   help="name recorded with the stored study (default: the login name)")
-    p.add_argument("--override-lock", metavar="REASON",
-                   help="store it in an approved study anyway; voids the approval")
+    p.add_argument(
+        "--who",
+        metavar="NAME",
+        help="name recorded with the stored study (default: the login name)",
+    )
+    p.add_argument(
+        "--override-lock",
+        metavar="REASON",
+        help="store it in an approved study anyway; voids the approval",
+    )
     p.set_defaults(func=run)
 
 
@@ -57,16 +76,22 @@ def _paired(m, xd, yd):
     xv, yv = np.asarray(xd.values, dtype=float), np.asarray(yd.values, dtype=float)
     xr, yr = np.asarray(xd.rows), np.asarray(yd.rows)
     if xv.size != yv.size or not np.array_equal(xr, yr):
-        raise DataFileError(f"columns '{xd.label}' and '{yd.label}' are not read row by row "
-                            "(a long table?); put X and Y side by side, one part per row",
-                            file=m.source)
+        raise DataFileError(
+            f"columns '{xd.label}' and '{yd.label}' are not read row by row "
+            "(a long table?); put X and Y side by side, one part per row",
+            file=m.source,
+        )
     one = np.isnan(xv) != np.isnan(yv)
     if one.any():
         i = int(np.flatnonzero(one)[0])
         col = xd.label if np.isnan(xv[i]) else yd.label
-        raise DataFileError("this cell is empty but the other deviation of the part is "
-                            "given; every part needs both X and Y (or neither)",
-                            file=m.source, row=int(xr[i]), column=col)
+        raise DataFileError(
+            "this cell is empty but the other deviation of the part is "
+            "given; every part needs both X and Y (or neither)",
+            file=m.source,
+            row=int(xr[i]),
+            column=col,
+        )
     keep = ~np.isnan(xv)
     return xv[keep], yv[keep], int((~keep).sum())
 
@@ -76,14 +101,18 @@ def run(args) -> int:
     from studykit.stats.position import position_study
 
     if args.figure and Path(args.figure).suffix.lower() not in FIGURE_SUFFIXES:
-        raise StudyInputError(f"--figure '{args.figure}': the file name must end in "
-                              + ", ".join(FIGURE_SUFFIXES))
+        raise StudyInputError(
+            f"--figure '{args.figure}': the file name must end in " + ", ".join(FIGURE_SUFFIXES)
+        )
     if bool(args.study) != bool(args.name):
-        raise StudyInputError("--study and --name go together: name the position study kept "
-                              "in the study file, e.g. --study pilot.study --name hole_position")
+        raise StudyInputError(
+            "--study and --name go together: name the position study kept "
+            "in the study file, e.g. --study pilot.study --name hole_position"
+        )
     if args.x == args.y:
-        raise StudyInputError(f"--x and --y both name column '{args.x}'; give the X and the "
-                              "Y deviation columns")
+        raise StudyInputError(
+            f"--x and --y both name column '{args.x}'; give the X and the Y deviation columns"
+        )
     m, (xd, yd) = read_values(args, [args.x, args.y])
     dx, dy, n_empty = _paired(m, xd, yd)
     try:
@@ -99,15 +128,29 @@ def run(args) -> int:
         from studykit.positions import POSITION_KIND, position_payload
         from studykit.store import StudyFile
 
-        payload = position_payload(args.name, dx, dy, tolerance=args.tolerance, unit=xd.unit,
-                                   source_file=Path(args.file).name,
-                                   columns={"x": xd.name, "y": yd.name},
-                                   safety_critical=bool(args.safety_critical))
-        lock = ({"override_lock": True, "override_reason": args.override_lock}
-                if args.override_lock else {})
+        payload = position_payload(
+            args.name,
+            dx,
+            dy,
+            tolerance=args.tolerance,
+            unit=xd.unit,
+            source_file=Path(args.file).name,
+            columns={"x": xd.name, "y": yd.name},
+            safety_critical=bool(args.safety_critical),
+        )
+        lock = (
+            {"override_lock": True, "override_reason": args.override_lock}
+            if args.override_lock
+            else {}
+        )
         stored_id = StudyFile(args.study).attach_result(
-            POSITION_KIND, None, payload, who=args.who or login_name(),
-            reason=f"position study {args.name} from {Path(args.file).name}", **lock)
+            POSITION_KIND,
+            None,
+            payload,
+            who=args.who or login_name(),
+            reason=f"position study {args.name} from {Path(args.file).name}",
+            **lock,
+        )
     if args.figure:
         from studykit.report.position_figures import position_figure
 
@@ -115,28 +158,34 @@ def run(args) -> int:
         try:
             fig.savefig(args.figure, dpi=150)
         except OSError as exc:
-            raise StudyInputError(f"cannot write the figure '{args.figure}': "
-                                  f"{exc.strerror or exc}") from None
+            raise StudyInputError(
+                f"cannot write the figure '{args.figure}': {exc.strerror or exc}"
+            ) from None
     caution = None
     if args.safety_critical:
         from studykit.analysis import SAFETY_CAUTION
 
         caution = SAFETY_CAUTION
     if args.json:
-        out = {"source": m.source, "x": xd.name, "y": yd.name, "unit": xd.unit,
-               **res.to_dict()}
+        out = {"source": m.source, "x": xd.name, "y": yd.name, "unit": xd.unit, **res.to_dict()}
         out["notes"] = [*notes, *out["notes"]]
         out["figure"] = args.figure
         out["safety_critical"] = bool(args.safety_critical)
         out["caution"] = caution
         if stored_id is not None:
-            out["stored"] = {"study": Path(args.study).name, "name": args.name,
-                             "result_id": stored_id}
+            out["stored"] = {
+                "study": Path(args.study).name,
+                "name": args.name,
+                "result_id": stored_id,
+            }
         json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
         sys.stdout.write("\n")
     else:
-        sys.stdout.write(format_position(res, source=m.source, x=xd.label, y=yd.label,
-                                         notes=notes, caution=caution))
+        sys.stdout.write(
+            format_position(
+                res, source=m.source, x=xd.label, y=yd.label, notes=notes, caution=caution
+            )
+        )
         if args.figure:
             sys.stdout.write(f"Figure written to {args.figure}\n")
         if stored_id is not None:
@@ -164,14 +213,22 @@ def format_position(res, *, source="", x="dx", y="dy", notes=(), caution=None) -
     if source:
         lines.append(f"File:        {source}  (X: {x}, Y: {y})")
     lines.append(f"Zone:        diameter {res.tolerance:g} around nominal; {res.n} parts")
-    lines.append(f"Model:       bivariate normal: mean ({res.mean_x:.4g}, {res.mean_y:.4g}), "
-                 f"offset {res.offset:.4g}; sd X {res.sd_x:.4g}, sd Y {res.sd_y:.4g}, "
-                 f"correlation {res.correlation:.3f}")
+    lines.append(
+        f"Model:       bivariate normal: mean ({res.mean_x:.4g}, {res.mean_y:.4g}), "
+        f"offset {res.offset:.4g}; sd X {res.sd_x:.4g}, sd Y {res.sd_y:.4g}, "
+        f"correlation {res.correlation:.3f}"
+    )
     rows = [
-        ("Two-dimensional model (bivariate normal)", _g(res.ppm_expected, ".4g"),
-         _g(res.index, ".3f")),
-        ("Shortcut: 2*sqrt(dx^2+dy^2) vs T, normal", _g(res.shortcut_ppm, ".4g"),
-         _g(res.shortcut_index, ".3f")),
+        (
+            "Two-dimensional model (bivariate normal)",
+            _g(res.ppm_expected, ".4g"),
+            _g(res.index, ".3f"),
+        ),
+        (
+            "Shortcut: 2*sqrt(dx^2+dy^2) vs T, normal",
+            _g(res.shortcut_ppm, ".4g"),
+            _g(res.shortcut_index, ".3f"),
+        ),
         ("Observed", f"{res.ppm_observed:.4g} ({res.observed_outside} of {res.n})", "-"),
     ]
     w0 = max(len(r[0]) for r in rows)
@@ -181,13 +238,17 @@ def format_position(res, *, source="", x="dx", y="dy", notes=(), caution=None) -
     lines.append(f"{'-' * w0}  {'-' * w1}  -----")
     lines += [f"{a:{w0}}  {b:>{w1}}  {c}" for a, b, c in rows]
     lines.append("")
-    lines.append("Index: Phi^-1(1 - PPM/1e6) / 3, the one-sided Ppk with the same fraction "
-                 "outside (common practice, no source). The shortcut ignores that the "
-                 "position value is never negative and skewed; read the two-dimensional row.")
+    lines.append(
+        "Index: Phi^-1(1 - PPM/1e6) / 3, the one-sided Ppk with the same fraction "
+        "outside (common practice, no source). The shortcut ignores that the "
+        "position value is never negative and skewed; read the two-dimensional row."
+    )
     if res.outside:
-        lines.append("Parts outside the zone (order in the file): "
-                     + ", ".join(str(i + 1) for i in res.outside[:20])
-                     + (" ..." if len(res.outside) > 20 else ""))
+        lines.append(
+            "Parts outside the zone (order in the file): "
+            + ", ".join(str(i + 1) for i in res.outside[:20])
+            + (" ..." if len(res.outside) > 20 else "")
+        )
     all_notes = [*notes, *res.notes]
     if all_notes:
         lines.append("Notes:")

@@ -23,27 +23,50 @@ def register(sub) -> None:
         "audit chain broken) is refused.",
     )
     p.add_argument("study", metavar="STUDYFILE", help="the study file")
-    p.add_argument("-o", "--output", metavar="PDF", help="the PDF to write (default: "
-                   "STUDYFILE with .pdf); with --sign and an existing PDF, that PDF is signed")
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="PDF",
+        help="the PDF to write (default: "
+        "STUDYFILE with .pdf); with --sign and an existing PDF, that PDF is signed",
+    )
     p.add_argument("--sign", metavar="P12", help="sign with this PKCS#12 file")
-    p.add_argument("--role", default="prepared", help="role of the signer: prepared, reviewed, "
-                   "approved (default prepared)")
-    p.add_argument("--name", help="signer's name as written in the signature (default: the "
-                   "certificate's common name)")
-    p.add_argument("--passphrase-env", metavar="VAR", default="STUDYKIT_P12_PASSPHRASE",
-                   help="environment variable holding the .p12 passphrase "
-                   "(default STUDYKIT_P12_PASSPHRASE)")
-    p.add_argument("--sign-existing", action="store_true", help="sign the PDF given by -o as "
-                   "it is (a PDF already signed for the current study state is always signed "
-                   "as it is, so earlier signatures stay)")
+    p.add_argument(
+        "--role",
+        default="prepared",
+        help="role of the signer: prepared, reviewed, approved (default prepared)",
+    )
+    p.add_argument(
+        "--name",
+        help="signer's name as written in the signature (default: the certificate's common name)",
+    )
+    p.add_argument(
+        "--passphrase-env",
+        metavar="VAR",
+        default="STUDYKIT_P12_PASSPHRASE",
+        help="environment variable holding the .p12 passphrase (default STUDYKIT_P12_PASSPHRASE)",
+    )
+    p.add_argument(
+        "--sign-existing",
+        action="store_true",
+        help="sign the PDF given by -o as "
+        "it is (a PDF already signed for the current study state is always signed "
+        "as it is, so earlier signatures stay)",
+    )
     p.add_argument("--handoff", metavar="ZIP", help="also write the hand-off zip")
-    p.add_argument("--handoff-draft", action="store_true",
-                   help="make the hand-off zip even when not every characteristic is ready, "
-                   "with every file stamped DRAFT and the reason")
-    p.add_argument("--notebook", metavar="IPYNB",
-                   help="also write the reproducible analysis notebook: it opens the study "
-                   "file, recomputes every number of the report step by step with the studykit "
-                   "library and compares them with the PDF")
+    p.add_argument(
+        "--handoff-draft",
+        action="store_true",
+        help="make the hand-off zip even when not every characteristic is ready, "
+        "with every file stamped DRAFT and the reason",
+    )
+    p.add_argument(
+        "--notebook",
+        metavar="IPYNB",
+        help="also write the reproducible analysis notebook: it opens the study "
+        "file, recomputes every number of the report step by step with the studykit "
+        "library and compares them with the PDF",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
 
@@ -63,8 +86,9 @@ def _common_name(p12: str, passphrase: str) -> str:
     from cryptography.x509.oid import NameOID
 
     try:
-        _, cert, _ = pkcs12.load_key_and_certificates(Path(p12).read_bytes(),
-                                                      passphrase.encode("utf-8"))
+        _, cert, _ = pkcs12.load_key_and_certificates(
+            Path(p12).read_bytes(), passphrase.encode("utf-8")
+        )
         return cert.subject.get_attributes_for_oid(NameOID.COMMON_NAME)[0].value
     except (ValueError, IndexError, AttributeError):
         return ""
@@ -85,15 +109,15 @@ def _signed_same_study(pdf: Path, study_path) -> bool:
         return False
     try:
         evidence = read_evidence(pdf)
-        same = evidence["study"]["content_digest"] == StudyFile(study_path).load()\
-            .content_digest()
+        same = evidence["study"]["content_digest"] == StudyFile(study_path).load().content_digest()
     except (StudyInputError, KeyError):
         same = False
     if not same:
         raise StudyInputError(
             f"'{pdf}' already carries {n} signature(s) for another state of the study: "
             "write the new report to another file with -o (signed evidence is never "
-            "overwritten)")
+            "overwritten)"
+        )
     return True
 
 
@@ -110,9 +134,9 @@ def run(args) -> int:
         if passphrase is None:
             raise StudyInputError(
                 f"the passphrase of '{args.sign}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
-    sign_existing = bool(args.sign and (args.sign_existing or _signed_same_study(out,
-                                                                               args.study)))
+                f"variable {args.passphrase_env} (or name another with --passphrase-env)"
+            )
+    sign_existing = bool(args.sign and (args.sign_existing or _signed_same_study(out, args.study)))
     if args.sign and sign_existing and not args.sign_existing:
         print(f"{out} is already signed for this study state: adding a further signature.")
     if not sign_existing and out.exists():
@@ -122,11 +146,14 @@ def run(args) -> int:
         if n:
             raise StudyInputError(
                 f"'{out}' carries {n} signature(s): write the new report to another file with "
-                "-o (signed evidence is never overwritten)")
+                "-o (signed evidence is never overwritten)"
+            )
     if not sign_existing:
         info = build_report(args.study, out, progress=progress)
-        print(f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
-              f"{info.seconds:.1f} s).")
+        print(
+            f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
+            f"{info.seconds:.1f} s)."
+        )
         for name, msg in info.errors.items():
             print(f"  not analysed: {name}: {msg}")
     elif not out.exists():
@@ -136,8 +163,10 @@ def run(args) -> int:
 
         name = args.name or _common_name(args.sign, passphrase) or "unnamed signer"
         sig = sign_report(out, out, args.sign, passphrase, role=args.role, name=name)
-        print(f"Signed {out} as {sig.field_name} ({sig.reason}; certificate {sig.subject})"
-              + ("" if sig.visible else "; no box for this role, signature is invisible"))
+        print(
+            f"Signed {out} as {sig.field_name} ({sig.reason}; certificate {sig.subject})"
+            + ("" if sig.visible else "; no box for this role, signature is invisible")
+        )
     if args.notebook:
         from studykit.report.notebook import write_notebook
 
@@ -146,11 +175,17 @@ def run(args) -> int:
     if args.handoff:
         from studykit.report.handoff import build_handoff
 
-        h = build_handoff(args.study, args.handoff, report_pdf=out,
-                          when_not_ready="draft" if args.handoff_draft else "refuse")
-        print(f"Wrote {args.handoff} ({len(h.entries)} files; limits frozen for "
-              f"{len(h.plans)} characteristic(s))"
-              + (": DRAFT, not for production, every file stamped." if h.is_draft else "."))
+        h = build_handoff(
+            args.study,
+            args.handoff,
+            report_pdf=out,
+            when_not_ready="draft" if args.handoff_draft else "refuse",
+        )
+        print(
+            f"Wrote {args.handoff} ({len(h.entries)} files; limits frozen for "
+            f"{len(h.plans)} characteristic(s))"
+            + (": DRAFT, not for production, every file stamped." if h.is_draft else ".")
+        )
         for name, why in h.draft.items():
             print(f"  DRAFT because {name}: {why}")
         for name, why in h.skipped.items():

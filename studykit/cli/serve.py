@@ -49,28 +49,47 @@ def register(subparsers) -> None:
         help="open the browser workbook",
         description="Open the browser workbook on a study file (or on the demo study).",
     )
-    p.add_argument("study", nargs="?", metavar="STUDY_FILE",
-                   help="study file to open (omit to start with no study loaded)")
+    p.add_argument(
+        "study",
+        nargs="?",
+        metavar="STUDY_FILE",
+        help="study file to open (omit to start with no study loaded)",
+    )
     p.add_argument("--demo", action="store_true", help="open the demo study from demo_data/")
     p.add_argument("--port", type=int, default=8866, help="port to listen on (default 8866)")
-    p.add_argument("--host", default="127.0.0.1",
-                   help="address to bind (default 127.0.0.1, this machine only); any other "
-                        "address requires the printed token")
-    p.add_argument("--allow-host", action="append", default=[], metavar="NAME",
-                   help="also accept this server name in the address (e.g. the name colleagues "
-                        "type, or a proxy's name); repeat for more. By default only the loopback "
-                        "names, the --host address and (for 0.0.0.0) this machine's name and IP "
-                        "addresses are accepted")
-    p.add_argument("--kernel-idle-minutes", type=float, default=DEFAULT_KERNEL_IDLE_MINUTES,
-                   metavar="MINUTES",
-                   help="shut down a page's kernel (its memory) once no page has been "
-                        f"connected to it for this long (default {DEFAULT_KERNEL_IDLE_MINUTES:g}; "
-                        "at least 1; 0 keeps them until the server stops); closing a page shuts "
-                        "its kernel down at once")
+    p.add_argument(
+        "--host",
+        default="127.0.0.1",
+        help="address to bind (default 127.0.0.1, this machine only); any other "
+        "address requires the printed token",
+    )
+    p.add_argument(
+        "--allow-host",
+        action="append",
+        default=[],
+        metavar="NAME",
+        help="also accept this server name in the address (e.g. the name colleagues "
+        "type, or a proxy's name); repeat for more. By default only the loopback "
+        "names, the --host address and (for 0.0.0.0) this machine's name and IP "
+        "addresses are accepted",
+    )
+    p.add_argument(
+        "--kernel-idle-minutes",
+        type=float,
+        default=DEFAULT_KERNEL_IDLE_MINUTES,
+        metavar="MINUTES",
+        help="shut down a page's kernel (its memory) once no page has been "
+        f"connected to it for this long (default {DEFAULT_KERNEL_IDLE_MINUTES:g}; "
+        "at least 1; 0 keeps them until the server stops); closing a page shuts "
+        "its kernel down at once",
+    )
     p.add_argument("--no-browser", action="store_true", help="do not open a browser window")
-    p.add_argument("--new", action="store_true",
-                   help="STUDY_FILE does not exist yet: create it in the browser from your "
-                        "measurement files (asked for when the terminal is interactive)")
+    p.add_argument(
+        "--new",
+        action="store_true",
+        help="STUDY_FILE does not exist yet: create it in the browser from your "
+        "measurement files (asked for when the terminal is interactive)",
+    )
     p.set_defaults(func=run)
 
 
@@ -118,26 +137,42 @@ def offer_new_study(args, study: Path) -> None:
     With ``--new``, or a "y" at the question on an interactive terminal, the workbook opens on
     "Bring in data" to make it; otherwise a clear refusal (exit 2).
     """
-    refuse = (f"the study file '{args.study}' does not exist; check the path, run `studykit "
-              "serve` without it, or add --new to create it in the browser")
+    refuse = (
+        f"the study file '{args.study}' does not exist; check the path, run `studykit "
+        "serve` without it, or add --new to create it in the browser"
+    )
     if study.suffix.lower() != ".study":
-        raise StudyFileError(f"the study file '{args.study}' does not exist, and a new one needs "
-                             "a name ending in .study, e.g. pilot-run-3.study")
+        raise StudyFileError(
+            f"the study file '{args.study}' does not exist, and a new one needs "
+            "a name ending in .study, e.g. pilot-run-3.study"
+        )
     if not study.parent.is_dir():
-        raise StudyFileError(f"the study file '{args.study}' does not exist, and its folder "
-                             f"'{study.parent}' does not either: create the folder first")
+        raise StudyFileError(
+            f"the study file '{args.study}' does not exist, and its folder "
+            f"'{study.parent}' does not either: create the folder first"
+        )
     if not os.access(study.parent, os.W_OK):
-        raise StudyFileError(f"the folder '{study.parent}' cannot be written: choose another "
-                             "place for the new study file")
+        raise StudyFileError(
+            f"the folder '{study.parent}' cannot be written: choose another "
+            "place for the new study file"
+        )
     if not args.new:
         if not (sys.stdin.isatty() and sys.stdout.isatty()):
             raise StudyFileError(refuse)
-        answer = input(f"'{args.study}' does not exist. Create it in the browser from your "
-                       "measurement files? [y/N] ").strip().lower()
+        answer = (
+            input(
+                f"'{args.study}' does not exist. Create it in the browser from your "
+                "measurement files? [y/N] "
+            )
+            .strip()
+            .lower()
+        )
         if answer not in ("y", "yes"):
             raise StudyFileError(refuse)
-    print(f"new study file: {study}\n  (not created yet: in the workbook, bring in your "
-          "measurement files, fill the specification table and press 'Create study')")
+    print(
+        f"new study file: {study}\n  (not created yet: in the workbook, bring in your "
+        "measurement files, fill the specification table and press 'Create study')"
+    )
 
 
 def find_demo_study(demo_dir: Path = DEMO_DIR) -> Path | None:
@@ -155,7 +190,8 @@ def check_port_free(host: str, port: int) -> None:
         except OSError as exc:
             raise StudyInputError(
                 f"`--port` ({port}) cannot be used on {host}: {exc.strerror}; choose another "
-                "port, e.g. --port 8870") from None
+                "port, e.g. --port 8870"
+            ) from None
 
 
 def workbook_notebook() -> Path:
@@ -183,23 +219,44 @@ def check_host_names(names) -> list[str]:
         try:
             ipaddress.ip_address(name)
         except ValueError:
-            ok = ok and len(name) <= 253 and all(
-                part and len(part) <= 63 and part.replace("-", "").replace("_", "").isalnum()
-                and part.isascii() for part in name.split("."))
+            ok = (
+                ok
+                and len(name) <= 253
+                and all(
+                    part
+                    and len(part) <= 63
+                    and part.replace("-", "").replace("_", "").isalnum()
+                    and part.isascii()
+                    for part in name.split(".")
+                )
+            )
         if not ok:
             raise StudyInputError(
                 f"`--allow-host` ({raw!r}) is not a server name or IP address; give the name "
-                "alone, without http:// or a port, e.g. --allow-host review.example")
+                "alone, without http:// or a port, e.g. --allow-host review.example"
+            )
         checked.append(name)
     return checked
 
 
-def server_command(notebook: Path, *, host: str, port: int, allow_hosts=(),
-                   kernel_idle_minutes: float = DEFAULT_KERNEL_IDLE_MINUTES) -> list[str]:
+def server_command(
+    notebook: Path,
+    *,
+    host: str,
+    port: int,
+    allow_hosts=(),
+    kernel_idle_minutes: float = DEFAULT_KERNEL_IDLE_MINUTES,
+) -> list[str]:
     """The command line that starts the Voila server (no secrets in it)."""
     cmd = [
-        sys.executable, "-m", "studykit.app.server", str(notebook),
-        "--no-browser", f"--port={port}", f"--Voila.ip={host}", "--Voila.port_retries=0",
+        sys.executable,
+        "-m",
+        "studykit.app.server",
+        str(notebook),
+        "--no-browser",
+        f"--port={port}",
+        f"--Voila.ip={host}",
+        "--Voila.port_retries=0",
         # a kernel runs the workbook before anyone asks, so the page opens in about 3 s
         "--VoilaConfiguration.preheat_kernel=True",
         f"--StudykitVoila.kernel_idle_minutes={kernel_idle_minutes:g}",
@@ -209,8 +266,9 @@ def server_command(notebook: Path, *, host: str, port: int, allow_hosts=(),
     return cmd
 
 
-def wait_until_listening(proc: subprocess.Popen, host: str, port: int,
-                         timeout: float = STARTUP_TIMEOUT) -> bool:
+def wait_until_listening(
+    proc: subprocess.Popen, host: str, port: int, timeout: float = STARTUP_TIMEOUT
+) -> bool:
     probe = "127.0.0.1" if host in ("0.0.0.0", "") else ("::1" if host == "::" else host)
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
@@ -251,20 +309,27 @@ def run(args) -> int:
     if not (idle == 0 or 1 <= idle < 1e6):
         # a page must have time to load and connect before its kernel counts as abandoned
         # (ten pages opened at once on 2 cores took up to 2 minutes)
-        raise StudyInputError(f"`--kernel-idle-minutes` ({idle:g}) must be 0 (never) or at "
-                              "least 1 minute, e.g. --kernel-idle-minutes 10")
+        raise StudyInputError(
+            f"`--kernel-idle-minutes` ({idle:g}) must be 0 (never) or at "
+            "least 1 minute, e.g. --kernel-idle-minutes 10"
+        )
     if args.demo and args.study:
         raise StudyInputError("give either STUDY_FILE or --demo, not both")
     study = None
     if args.demo:
         study = find_demo_study()
         if study is None:
-            print("studykit serve: no demo study yet (demo_data/*.study); the workbook opens "
-                  "with no study loaded. Run demo_data/make_demo.py to make it.", file=sys.stderr)
+            print(
+                "studykit serve: no demo study yet (demo_data/*.study); the workbook opens "
+                "with no study loaded. Run demo_data/make_demo.py to make it.",
+                file=sys.stderr,
+            )
         else:
             study = demo_working_copy(study)
-            print(f"demo study: {study}\n  (a working copy: your decisions and sign-offs are "
-                  "kept there; the original in demo_data/ is never changed)")
+            print(
+                f"demo study: {study}\n  (a working copy: your decisions and sign-offs are "
+                "kept there; the original in demo_data/ is never changed)"
+            )
     elif args.study:
         study = Path(args.study).expanduser().resolve()
         if not study.is_file():
@@ -283,9 +348,14 @@ def run(args) -> int:
         env.pop(ENV_TOKEN, None)
 
     notebook = workbook_notebook()
-    proc = subprocess.Popen(server_command(notebook, host=host, port=port,
-                                           allow_hosts=allow_hosts, kernel_idle_minutes=idle),
-                            env=env, cwd=str(notebook.parent), start_new_session=True)
+    proc = subprocess.Popen(
+        server_command(
+            notebook, host=host, port=port, allow_hosts=allow_hosts, kernel_idle_minutes=idle
+        ),
+        env=env,
+        cwd=str(notebook.parent),
+        start_new_session=True,
+    )
 
     def on_term(_signum, _frame):
         raise KeyboardInterrupt
@@ -294,8 +364,10 @@ def run(args) -> int:
     try:
         if not wait_until_listening(proc, host, port):
             stop(proc)
-            print("studykit serve: the workbook server did not start; see the messages above",
-                  file=sys.stderr)
+            print(
+                "studykit serve: the workbook server did not start; see the messages above",
+                file=sys.stderr,
+            )
             return 1
         shown = socket.gethostname() if host in ("0.0.0.0", "::") else host
         if ":" in shown:
@@ -305,8 +377,11 @@ def run(args) -> int:
         if study:
             print(f"study file: {study}", flush=True)
         if token:
-            print("Anyone with this address (including the token) can open and change the "
-                  "study; share it only with the team.", flush=True)
+            print(
+                "Anyone with this address (including the token) can open and change the "
+                "study; share it only with the team.",
+                flush=True,
+            )
         print("Press Ctrl-C to stop.", flush=True)
         if not args.no_browser:
             webbrowser.open(url)

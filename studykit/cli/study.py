@@ -47,9 +47,11 @@ def _who(args) -> str:
     if args.who is None:
         return _default_who()
     if not args.who.strip():
-        raise StudyInputError("`--who` is empty: give the name of the person who decides or "
-                              "signs, e.g. --who 'A. Ruiz' (or leave --who out to use the login "
-                              "name)")
+        raise StudyInputError(
+            "`--who` is empty: give the name of the person who decides or "
+            "signs, e.g. --who 'A. Ruiz' (or leave --who out to use the login "
+            "name)"
+        )
     return args.who.strip()
 
 
@@ -63,18 +65,29 @@ def register(subparsers) -> None:
     sub = p.add_subparsers(dest="study_command", metavar="ACTION")
     sub.required = True
 
-    new = sub.add_parser("new", help="create a study file from a data file and a specs table",
-                         description="Create a study file holding a copy of the data file and "
-                         "the specifications. Spec columns: characteristic, unit, lsl, usl, target, "
-                         "safety_critical, criterion, threshold, basis (and optionally confidence, "
-                         "chart, subgroup_size, size_column, model, description).")
+    new = sub.add_parser(
+        "new",
+        help="create a study file from a data file and a specs table",
+        description="Create a study file holding a copy of the data file and "
+        "the specifications. Spec columns: characteristic, unit, lsl, usl, target, "
+        "safety_critical, criterion, threshold, basis (and optionally confidence, "
+        "chart, subgroup_size, size_column, model, description).",
+    )
     new.add_argument("studyfile", metavar="STUDYFILE", help="the study file to create")
-    new.add_argument("--data", required=True, metavar="FILE", action="append",
-                     help="measurement file (CSV/XLSX); repeat for a study over several files "
-                     "(each characteristic is taken from the file that holds it)")
-    new.add_argument("--specs", metavar="SPECS.csv",
-                     help="specifications table (CSV), required: the study holds the "
-                     "characteristics listed there")
+    new.add_argument(
+        "--data",
+        required=True,
+        metavar="FILE",
+        action="append",
+        help="measurement file (CSV/XLSX); repeat for a study over several files "
+        "(each characteristic is taken from the file that holds it)",
+    )
+    new.add_argument(
+        "--specs",
+        metavar="SPECS.csv",
+        help="specifications table (CSV), required: the study holds the "
+        "characteristics listed there",
+    )
     new.add_argument("--title", help="study title (default: the data file's name)")
     new.add_argument("--part", default="", help="part number or name")
     new.add_argument("--supplier", default="", help="supplier")
@@ -88,24 +101,33 @@ def register(subparsers) -> None:
     show.set_defaults(func=run_show)
 
     for action, aliases in (("exclude", ["remove"]), ("restore", [])):
-        q = sub.add_parser(action, aliases=aliases,
-                           help=f"{'remove' if action == 'exclude' else action} a subgroup of a "
-                           "characteristic from the analysis (with a reason)")
+        q = sub.add_parser(
+            action,
+            aliases=aliases,
+            help=f"{'remove' if action == 'exclude' else action} a subgroup of a "
+            "characteristic from the analysis (with a reason)",
+        )
         q.add_argument("studyfile", metavar="STUDYFILE")
         q.add_argument("characteristic", metavar="CHARACTERISTIC")
         q.add_argument("subgroup", metavar="SUBGROUP")
         q.add_argument("--reason", required=True, help="why (kept in the audit log)")
         q.add_argument("--who", default=None, help="your name (default: the login name)")
-        q.add_argument("--override-lock", metavar="REASON",
-                       help="change an approved study anyway; voids the approval")
+        q.add_argument(
+            "--override-lock",
+            metavar="REASON",
+            help="change an approved study anyway; voids the approval",
+        )
         q.set_defaults(func=run_decision, action=action)
 
     _register_keep(sub)
 
-    st = sub.add_parser("set", help="change a specification, criterion, model or chart",
-                        description="Change the specification, acceptance criterion, model or "
-                        "chart of one characteristic. Each change is recorded as a decision with "
-                        "your reason; write 'none' to clear a limit or the target.")
+    st = sub.add_parser(
+        "set",
+        help="change a specification, criterion, model or chart",
+        description="Change the specification, acceptance criterion, model or "
+        "chart of one characteristic. Each change is recorded as a decision with "
+        "your reason; write 'none' to clear a limit or the target.",
+    )
     st.add_argument("studyfile", metavar="STUDYFILE")
     st.add_argument("characteristic", metavar="CHARACTERISTIC")
     for opt in ("lsl", "usl", "target"):
@@ -114,17 +136,25 @@ def register(subparsers) -> None:
     st.add_argument("--threshold", type=float)
     st.add_argument("--basis", choices=("lower_bound", "estimate"))
     st.add_argument("--confidence", type=float)
-    st.add_argument("--interval", metavar="P,C",
-                    help="tolerance-interval criterion beside the index: at least P of parts "
-                    "within specification with confidence C (ISO 16269-6), e.g. 0.99,0.95; "
-                    "'none' removes it")
+    st.add_argument(
+        "--interval",
+        metavar="P,C",
+        help="tolerance-interval criterion beside the index: at least P of parts "
+        "within specification with confidence C (ISO 16269-6), e.g. 0.99,0.95; "
+        "'none' removes it",
+    )
     st.add_argument("--model", help="distribution model name, or auto")
-    st.add_argument("--chart", help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and "
-                    "X-bar-R are accepted too)")
+    st.add_argument(
+        "--chart",
+        help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and X-bar-R are accepted too)",
+    )
     st.add_argument("--reason", required=True, help="why (kept in the audit log)")
     st.add_argument("--who", default=None)
-    st.add_argument("--override-lock", metavar="REASON",
-                    help="change an approved study anyway; voids the approval")
+    st.add_argument(
+        "--override-lock",
+        metavar="REASON",
+        help="change an approved study anyway; voids the approval",
+    )
     st.set_defaults(func=run_set)
 
     com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
@@ -136,49 +166,76 @@ def register(subparsers) -> None:
 
     sign = sub.add_parser("sign", help="sign the study as it stands")
     sign.add_argument("studyfile", metavar="STUDYFILE")
-    sign.add_argument("--role", required=True,
-                      help="prepared, reviewed, approved (approved + approve locks the study)")
+    sign.add_argument(
+        "--role",
+        required=True,
+        help="prepared, reviewed, approved (approved + approve locks the study)",
+    )
     sign.add_argument("--decision", required=True, choices=("approve", "reject", "comment"))
-    sign.add_argument("--comment", default="", help="comment; for a rejection, its reason "
-                      "(required)")
+    sign.add_argument(
+        "--comment", default="", help="comment; for a rejection, its reason (required)"
+    )
     sign.add_argument("--who", default=None)
-    sign.add_argument("--p12", metavar="P12", help="also sign the sign-off with this "
-                      "certificate's key (PKCS#12 file; it must be valid now)")
-    sign.add_argument("--passphrase-env", metavar="VAR", default="STUDYKIT_P12_PASSPHRASE",
-                      help="environment variable holding the .p12 passphrase")
-    sign.add_argument("--saw", metavar="DIGEST",
-                      help="the content digest you reviewed (from `study show`, at least 12 "
-                      "characters); the sign-off is refused if the study changed since")
+    sign.add_argument(
+        "--p12",
+        metavar="P12",
+        help="also sign the sign-off with this "
+        "certificate's key (PKCS#12 file; it must be valid now)",
+    )
+    sign.add_argument(
+        "--passphrase-env",
+        metavar="VAR",
+        default="STUDYKIT_P12_PASSPHRASE",
+        help="environment variable holding the .p12 passphrase",
+    )
+    sign.add_argument(
+        "--saw",
+        metavar="DIGEST",
+        help="the content digest you reviewed (from `study show`, at least 12 "
+        "characters); the sign-off is refused if the study changed since",
+    )
     sign.set_defaults(func=run_sign)
 
-    rules = sub.add_parser("rules", help="show or change the study's sign-off rules",
-                           description="Show the sign-off rules of the study (all on by "
-                           "default). Changing one needs --reason; the change is recorded "
-                           "with who, when and why.")
+    rules = sub.add_parser(
+        "rules",
+        help="show or change the study's sign-off rules",
+        description="Show the sign-off rules of the study (all on by "
+        "default). Changing one needs --reason; the change is recorded "
+        "with who, when and why.",
+    )
     rules.add_argument("studyfile", metavar="STUDYFILE")
     from studykit.study import DEFAULT_SIGNOFF_RULES
 
     for key in DEFAULT_SIGNOFF_RULES:
-        rules.add_argument(f"--{key.replace('_', '-')}", choices=("on", "off"), dest=key,
-                           default=None)
+        rules.add_argument(
+            f"--{key.replace('_', '-')}", choices=("on", "off"), dest=key, default=None
+        )
     rules.add_argument("--reason", help="why the rules change (required for a change)")
     rules.add_argument("--who", default=None)
-    rules.add_argument("--override-lock", metavar="REASON",
-                       help="change the rules of an approved study anyway; voids the approval")
+    rules.add_argument(
+        "--override-lock",
+        metavar="REASON",
+        help="change the rules of an approved study anyway; voids the approval",
+    )
     rules.set_defaults(func=run_rules)
 
-    waive = sub.add_parser("waive", help="record that a characteristic may be approved "
-                           "without a verdict (with the reason)",
-                           description="Record a waiver for one characteristic: an approval "
-                           "may then stand although it has no verdict. The reason is part of "
-                           "the study content, so earlier sign-offs no longer hold.")
+    waive = sub.add_parser(
+        "waive",
+        help="record that a characteristic may be approved without a verdict (with the reason)",
+        description="Record a waiver for one characteristic: an approval "
+        "may then stand although it has no verdict. The reason is part of "
+        "the study content, so earlier sign-offs no longer hold.",
+    )
     waive.add_argument("studyfile", metavar="STUDYFILE")
     waive.add_argument("characteristic", metavar="CHARACTERISTIC")
     waive.add_argument("--reason", required=True, help="why (kept in the audit log)")
     waive.add_argument("--withdraw", action="store_true", help="withdraw the waiver instead")
     waive.add_argument("--who", default=None)
-    waive.add_argument("--override-lock", metavar="REASON",
-                       help="change an approved study anyway; voids the approval")
+    waive.add_argument(
+        "--override-lock",
+        metavar="REASON",
+        help="change an approved study anyway; voids the approval",
+    )
     waive.set_defaults(func=run_waive)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
@@ -218,16 +275,23 @@ def run_new(args) -> int:
         for k, c in enumerate(specs):
             home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
             if home is None:
-                home = next((i for i, m in enumerate(readings)
-                             if c.name.casefold() in {n.casefold() for n in m.names}), 0)
+                home = next(
+                    (
+                        i
+                        for i, m in enumerate(readings)
+                        if c.name.casefold() in {n.casefold() for n in m.names}
+                    ),
+                    0,
+                )
             try:
                 one, crit = match_to_data(
                     [c], {k: v for k, v in spec_criteria.items() if k == c.name}, readings[home]
                 )
             except SpecError as exc:
                 row = spec_rows[k] if k < len(spec_rows) else None
-                raise SpecError(exc.detail, file=args.specs, row=row, column=exc.column,
-                                value=exc.value) from None
+                raise SpecError(
+                    exc.detail, file=args.specs, row=row, column=exc.column, value=exc.value
+                ) from None
             c2 = one[0]
             if home:
                 c2 = dataclasses.replace(c2, source=names[home])
@@ -236,17 +300,27 @@ def run_new(args) -> int:
         chars = tuple(matched)
     target = Path(args.studyfile)
     if target.exists() and not args.force:
-        raise StudyFileError(f"'{target}' already exists: choose another name, or pass --force "
-                             "to replace it")
+        raise StudyFileError(
+            f"'{target}' already exists: choose another name, or pass --force to replace it"
+        )
     sf = StudyFile.create(
-        target, data=paths[0].read_bytes(), filename=names[0],
-        title=args.title or paths[0].stem, part=args.part, supplier=args.supplier,
-        characteristics=chars, criteria=criteria, who=_who(args),
-        overwrite=args.force, extra_files=[(p.name, p.read_bytes()) for p in paths[1:]],
+        target,
+        data=paths[0].read_bytes(),
+        filename=names[0],
+        title=args.title or paths[0].stem,
+        part=args.part,
+        supplier=args.supplier,
+        characteristics=chars,
+        criteria=criteria,
+        who=_who(args),
+        overwrite=args.force,
+        extra_files=[(p.name, p.read_bytes()) for p in paths[1:]],
     )
     study = sf.load()
-    print(f"created {target}: {len(study.characteristics)} characteristic(s) from "
-          f"{', '.join(names)} (sha256 {study.data_sha256[:12]}...)")
+    print(
+        f"created {target}: {len(study.characteristics)} characteristic(s) from "
+        f"{', '.join(names)} (sha256 {study.data_sha256[:12]}...)"
+    )
     taken = set(study.characteristics)
     for c in study.characteristics.values():
         if c.size_column:
@@ -273,23 +347,30 @@ def _spec_rows(path) -> list[int]:
 
 def _register_keep(sub) -> None:
     keep = sub.add_parser(
-        "keep", help="keep a signalled subgroup, with the reason it is not a special cause",
+        "keep",
+        help="keep a signalled subgroup, with the reason it is not a special cause",
         description="Record that a run-rule signal at one subgroup is reviewed and kept: not a "
         "special cause, or a known common cause. The subgroup stays in the analysis; the signal "
-        "is listed as reviewed with your reason and no longer withholds the verdict.")
-    reopen = sub.add_parser("reopen", help="withdraw a 'keep' decision (the signal is open "
-                            "again)")
+        "is listed as reviewed with your reason and no longer withholds the verdict.",
+    )
+    reopen = sub.add_parser("reopen", help="withdraw a 'keep' decision (the signal is open again)")
     for q in (keep, reopen):
         q.add_argument("studyfile", metavar="STUDYFILE")
         q.add_argument("characteristic", metavar="CHARACTERISTIC")
         q.add_argument("subgroup", metavar="SUBGROUP")
-        q.add_argument("--rule", required=True,
-                       help="the rule of the signal: beyond_limits, run, trend, alternation, "
-                       "zone_a, zone_b, hugging, mixture (or its Nelson number 1-8)")
+        q.add_argument(
+            "--rule",
+            required=True,
+            help="the rule of the signal: beyond_limits, run, trend, alternation, "
+            "zone_a, zone_b, hugging, mixture (or its Nelson number 1-8)",
+        )
         q.add_argument("--reason", required=True, help="why (kept in the audit log)")
         q.add_argument("--who", default=None, help="your name (default: the login name)")
-        q.add_argument("--override-lock", metavar="REASON",
-                       help="change an approved study anyway; voids the approval")
+        q.add_argument(
+            "--override-lock",
+            metavar="REASON",
+            help="change an approved study anyway; voids the approval",
+        )
     keep.set_defaults(func=run_keep)
     reopen.set_defaults(func=run_reopen)
 
@@ -301,8 +382,10 @@ def _rule_id(text: str) -> str:
     if token.isdigit() and int(token) in _BY_NUMBER:
         return _BY_NUMBER[int(token)]
     if token not in RULE_IDS:
-        raise StudyInputError(f"`--rule` ({text!r}) is not a run rule: use one of "
-                              f"{', '.join(RULE_IDS)} or a Nelson number 1-8")
+        raise StudyInputError(
+            f"`--rule` ({text!r}) is not a run rule: use one of "
+            f"{', '.join(RULE_IDS)} or a Nelson number 1-8"
+        )
     return token
 
 
@@ -331,27 +414,39 @@ def run_keep(args) -> int:
     name = args.characteristic
     study.characteristic(name)
     if label in study.excluded_subgroups(name):
-        raise StudyInputError(f"subgroup '{label}' of '{name}' is removed from the analysis; "
-                              "restore it first if it should stay with a reason")
+        raise StudyInputError(
+            f"subgroup '{label}' of '{name}' is removed from the analysis; "
+            "restore it first if it should stay with a reason"
+        )
     labels = _subgroup_labels(study, name)
     if label not in labels:
         shown = ", ".join(labels[:8]) + (", ..." if len(labels) > 8 else "")
-        raise StudyInputError(f"'{name}' has no subgroup '{label}' (its subgroups are {shown}): "
-                              "give a label exactly as the data show it")
+        raise StudyInputError(
+            f"'{name}' has no subgroup '{label}' (its subgroups are {shown}): "
+            "give a label exactly as the data show it"
+        )
     rules = signals_at(study, name, label)
     if rule not in rules:
         raise StudyInputError(
             f"subgroup '{label}' of '{name}' shows no '{rule}' signal on the current chart "
             f"(signals there: {', '.join(rules) or 'none'}); `studykit analyze --study` lists "
-            "the signals")
+            "the signals"
+        )
     if (label, rule) in study.kept_signals(name):
         d = study.kept_signals(name)[(label, rule)]
-        raise StudyInputError(f"the '{rule}' signal at subgroup '{label}' of '{name}' is already "
-                              f"kept (by {d.who} on {d.when}: {d.reason})")
-    sf.apply(lambda s: s.keep_signal(name, label, rule=rule, reason=args.reason, who=who,
-                                     **_lock_kw(args)))
-    print(f"kept the signal ({names.rule_label(rule)}) at subgroup {label} of '{name}' (reviewed, "
-          "with reason)")
+        raise StudyInputError(
+            f"the '{rule}' signal at subgroup '{label}' of '{name}' is already "
+            f"kept (by {d.who} on {d.when}: {d.reason})"
+        )
+    sf.apply(
+        lambda s: s.keep_signal(
+            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+        )
+    )
+    print(
+        f"kept the signal ({names.rule_label(rule)}) at subgroup {label} of '{name}' (reviewed, "
+        "with reason)"
+    )
     return 0
 
 
@@ -361,8 +456,11 @@ def run_reopen(args) -> int:
     rule = _rule_id(args.rule)
     label = args.subgroup.strip()
     name = args.characteristic
-    sf.apply(lambda s: s.reopen_signal(name, label, rule=rule, reason=args.reason, who=who,
-                                       **_lock_kw(args)))
+    sf.apply(
+        lambda s: s.reopen_signal(
+            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+        )
+    )
     print(f"reopened the {rule} signal at subgroup {label} of '{name}'")
     return 0
 
@@ -375,8 +473,9 @@ def _num(x) -> str:
 
 
 def _table(headers: list[str], rows: list[list[str]]) -> str:
-    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
-              for i, h in enumerate(headers)]
+    widths = [
+        max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(headers)
+    ]
     lines = ["  ".join(h.ljust(w) for h, w in zip(headers, widths, strict=True)).rstrip()]
     lines.append("  ".join("-" * w for w in widths))
     for r in rows:
@@ -392,33 +491,63 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         out.append(f"Part      {study.part}")
     if study.supplier:
         out.append(f"Supplier  {study.supplier}")
-    out.append(f"Data      {study.data_filename} ({len(study.data)} bytes, "
-               f"sha256 {study.data_sha256})")
+    out.append(
+        f"Data      {study.data_filename} ({len(study.data)} bytes, sha256 {study.data_sha256})"
+    )
     for f in study.extra_files:
         out.append(f"          {f.filename} ({len(f.data)} bytes, sha256 {f.sha256})")
     out.append(f"Digest    {study.content_digest()}")
     if chain is not None:
-        out.append(f"Chain     {'intact' if chain.ok else 'BROKEN'}: {chain.entries} audit "
-                   f"entries over {chain.rows} rows, head {chain.head}")
+        out.append(
+            f"Chain     {'intact' if chain.ok else 'BROKEN'}: {chain.entries} audit "
+            f"entries over {chain.rows} rows, head {chain.head}"
+        )
     holder = study.lock_holder()
-    out.append("State     " + (f"APPROVED by {holder.name} on {holder.when} (locked)"
-                               if holder else "open"))
+    out.append(
+        "State     "
+        + (f"APPROVED by {holder.name} on {holder.when} (locked)" if holder else "open")
+    )
     out.append("")
     out.append("Characteristics")
     rows = []
     for name, c in study.characteristics.items():
         excluded = sorted(study.excluded_subgroups(name), key=lambda s: (len(s), s))
-        rows.append([
-            name, c.unit or "", _num(c.lsl), _num(c.target), _num(c.usl),
-            "yes" if c.safety_critical else "", study.criteria_for(name).describe(),
-            names.chart_kind_label(study.chart_for(name)),
-            names.model_label(study.model_for(name)), ", ".join(excluded),
-            ", ".join(f"{lab} ({names.rule_label(rule)})"
-                      for lab, rule in study.kept_signals(name)),
-        ])
+        rows.append(
+            [
+                name,
+                c.unit or "",
+                _num(c.lsl),
+                _num(c.target),
+                _num(c.usl),
+                "yes" if c.safety_critical else "",
+                study.criteria_for(name).describe(),
+                names.chart_kind_label(study.chart_for(name)),
+                names.model_label(study.model_for(name)),
+                ", ".join(excluded),
+                ", ".join(
+                    f"{lab} ({names.rule_label(rule)})" for lab, rule in study.kept_signals(name)
+                ),
+            ]
+        )
     if rows:
-        out.append(_table(["name", "unit", "LSL", "target", "USL", "safety", "criterion",
-                           "chart", "model", "removed", "kept signals"], rows))
+        out.append(
+            _table(
+                [
+                    "name",
+                    "unit",
+                    "LSL",
+                    "target",
+                    "USL",
+                    "safety",
+                    "criterion",
+                    "chart",
+                    "model",
+                    "removed",
+                    "kept signals",
+                ],
+                rows,
+            )
+        )
     else:
         out.append("  (none specified)")
     out.append("")
@@ -428,8 +557,9 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         sub = f" subgroup {d.subgroup}" if d.subgroup else ""
         extra = f" {json.dumps(dict(d.payload), sort_keys=True)}" if d.payload else ""
         auto = " [automatic]" if d.automatic else ""
-        out.append(f"  {i:>3}. {d.when}  {d.who}: {names.action_label(d.action)}{on}{sub}"
-                   f"{extra}{auto}")
+        out.append(
+            f"  {i:>3}. {d.when}  {d.who}: {names.action_label(d.action)}{on}{sub}{extra}{auto}"
+        )
         if d.reason:
             out.append(f"       reason: {d.reason}")
     out.append("")
@@ -447,9 +577,11 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
             out.append(f"       signed chain head {s.chain_head[:28]}...")
         sig = (signatures or {}).get(st.index)
         if sig is not None and sig.status != "none":
-            out.append(f"       certificate signature {sig.status}: {sig.subject}, SHA-256 "
-                       f"fingerprint {sig.fingerprint_sha256}, valid {sig.not_before} to "
-                       f"{sig.not_after}" + (f" ({sig.why})" if sig.why else ""))
+            out.append(
+                f"       certificate signature {sig.status}: {sig.subject}, SHA-256 "
+                f"fingerprint {sig.fingerprint_sha256}, valid {sig.not_before} to "
+                f"{sig.not_after}" + (f" ({sig.why})" if sig.why else "")
+            )
         if s.comment:
             out.append(f"       comment: {s.comment}")
         out.append(f"       signed content {s.digest}")
@@ -476,8 +608,9 @@ def run_show(args) -> int:
         d = study.to_dict()
         for so in d["signoffs"]:
             sg = signatures.get(so["index"])
-            so["certificate_signature"] = None if sg is None or sg.status == "none" \
-                else sg.to_dict()
+            so["certificate_signature"] = (
+                None if sg is None or sg.status == "none" else sg.to_dict()
+            )
         json.dump(dict(d, chain=chain.to_dict()), sys.stdout, indent=2, ensure_ascii=False)
         sys.stdout.write("\n")
     else:
@@ -596,15 +729,24 @@ def run_set(args) -> int:
         value, given = _limit(getattr(args, key))
         if given:
             spec_changes[key] = value
-    crit_changes = {k: v for k, v in (("index", args.criterion), ("threshold", args.threshold),
-                                      ("basis", args.basis), ("confidence", args.confidence))
-                    if v is not None}
+    crit_changes = {
+        k: v
+        for k, v in (
+            ("index", args.criterion),
+            ("threshold", args.threshold),
+            ("basis", args.basis),
+            ("confidence", args.confidence),
+        )
+        if v is not None
+    }
     if args.interval is not None:
         crit_changes.update(_interval_option(args.interval))
     if not (spec_changes or crit_changes or args.model or args.chart):
-        raise StudyInputError("nothing to change: give --lsl, --usl, --target, --criterion, "
-                              "--threshold, --basis, --confidence, --interval, --model or "
-                              "--chart")
+        raise StudyInputError(
+            "nothing to change: give --lsl, --usl, --target, --criterion, "
+            "--threshold, --basis, --confidence, --interval, --model or "
+            "--chart"
+        )
 
     if args.chart:
         try:
@@ -624,26 +766,43 @@ def run_set(args) -> int:
             crit = Criteria(**{**study.criteria_for(name).to_dict(), **crit_changes})
             study = study.with_criteria(name, crit, who=who, reason=args.reason, **lock)
         if args.model:
-            study = study.with_decision(Decision(name, "set_model", who=who, reason=args.reason,
-                                                 payload={"model": args.model.strip().lower()}),
-                                        **lock)
+            study = study.with_decision(
+                Decision(
+                    name,
+                    "set_model",
+                    who=who,
+                    reason=args.reason,
+                    payload={"model": args.model.strip().lower()},
+                ),
+                **lock,
+            )
         if args.chart:
-            study = study.with_decision(Decision(name, "set_chart", who=who, reason=args.reason,
-                                                 payload={"chart": args.chart.strip().lower()
-                                                          .replace("-", "_")}), **lock)
+            study = study.with_decision(
+                Decision(
+                    name,
+                    "set_chart",
+                    who=who,
+                    reason=args.reason,
+                    payload={"chart": args.chart.strip().lower().replace("-", "_")},
+                ),
+                **lock,
+            )
         return study
 
     saved = StudyFile(args.studyfile).apply(change)
     c = saved.characteristics[name]
-    print(f"'{name}': LSL {_num(c.lsl) or '-'}  target {_num(c.target) or '-'}  USL "
-          f"{_num(c.usl) or '-'}; {saved.criteria_for(name).describe()}; model "
-          f"{saved.model_for(name)}; chart {saved.chart_for(name)}")
+    print(
+        f"'{name}': LSL {_num(c.lsl) or '-'}  target {_num(c.target) or '-'}  USL "
+        f"{_num(c.usl) or '-'}; {saved.criteria_for(name).describe()}; model "
+        f"{saved.model_for(name)}; chart {saved.chart_for(name)}"
+    )
     return 0
 
 
 def run_comment(args) -> int:
-    StudyFile(args.studyfile).add_comment(args.text, who=_who(args),
-                                          characteristic=args.characteristic)
+    StudyFile(args.studyfile).add_comment(
+        args.text, who=_who(args), characteristic=args.characteristic
+    )
     print("comment added")
     return 0
 
@@ -661,7 +820,8 @@ def run_sign(args) -> int:
         if passphrase is None:
             raise StudyInputError(
                 f"the passphrase of '{args.p12}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)")
+                f"variable {args.passphrase_env} (or name another with --passphrase-env)"
+            )
         certificate = (args.p12, passphrase)
     sf = StudyFile(args.studyfile)
     who = _who(args)
@@ -669,25 +829,38 @@ def run_sign(args) -> int:
     if args.saw is not None:
         saw = args.saw.strip().lower()
         if len(saw) < 12 or any(c not in "0123456789abcdef" for c in saw):
-            raise StudyInputError(f"`--saw` ({args.saw!r}) must be the content digest shown by "
-                                  "`studykit study show` (at least its first 12 hex digits)")
+            raise StudyInputError(
+                f"`--saw` ({args.saw!r}) must be the content digest shown by "
+                "`studykit study show` (at least its first 12 hex digits)"
+            )
     study = sf.load()
-    probe = SignOff(who, args.role, args.decision, comment=args.comment,
-                    digest=study.content_digest())
+    probe = SignOff(
+        who, args.role, args.decision, comment=args.comment, digest=study.content_digest()
+    )
     needed = probe.is_approval and study.signoff_rules().get("approval_needs_verdicts")
     results = analyse_for_signoff(study, gauges=gauge_results(sf), needed=bool(needed))
     missing = open_verdicts(study, results) if needed else {}
     # the verdicts belong to this content: sign only if it is still the content analysed
     expected = saw if saw is not None else study.content_digest()
-    s = sf.add_signoff(who, role=args.role, decision=args.decision, comment=args.comment,
-                       expected_digest=expected, check=make_check(missing),
-                       certificate=certificate)
-    print(f"signed as {s.role} ({s.decision}); study digest {s.digest}; chain head "
-          f"{s.chain_head[:28]}...")
+    s = sf.add_signoff(
+        who,
+        role=args.role,
+        decision=args.decision,
+        comment=args.comment,
+        expected_digest=expected,
+        check=make_check(missing),
+        certificate=certificate,
+    )
+    print(
+        f"signed as {s.role} ({s.decision}); study digest {s.digest}; chain head "
+        f"{s.chain_head[:28]}..."
+    )
     if certificate is not None:
         sig = sf.signoff_signatures()[-1]
-        print(f"certificate signature: {sig.status} ({sig.subject}, SHA-256 fingerprint "
-              f"{sig.fingerprint_sha256})")
+        print(
+            f"certificate signature: {sig.status} ({sig.subject}, SHA-256 fingerprint "
+            f"{sig.fingerprint_sha256})"
+        )
     return 0
 
 
@@ -696,18 +869,27 @@ def run_rules(args) -> int:
     from studykit.study import DEFAULT_SIGNOFF_RULES, Decision
 
     sf = StudyFile(args.studyfile)
-    changes = {k: getattr(args, k) == "on" for k in DEFAULT_SIGNOFF_RULES
-               if getattr(args, k) is not None}
+    changes = {
+        k: getattr(args, k) == "on" for k in DEFAULT_SIGNOFF_RULES if getattr(args, k) is not None
+    }
     if changes:
         if not (args.reason or "").strip():
-            raise StudyInputError("changing a sign-off rule needs --reason (it is recorded with "
-                                  "who and when)")
+            raise StudyInputError(
+                "changing a sign-off rule needs --reason (it is recorded with who and when)"
+            )
         current = sf.load().signoff_rules()
         changes = {k: v for k, v in changes.items() if current[k] != v}
         if changes:
-            sf.append_decision(Decision(None, "set_signoff_rules", reason=args.reason,
-                                        who=_who(args), payload={"rules": changes}),
-                               **_lock_kw(args))
+            sf.append_decision(
+                Decision(
+                    None,
+                    "set_signoff_rules",
+                    reason=args.reason,
+                    who=_who(args),
+                    payload={"rules": changes},
+                ),
+                **_lock_kw(args),
+            )
     for line in rules_text(sf.load()):
         print(line)
     return 0
@@ -724,13 +906,21 @@ def run_waive(args) -> int:
     if args.withdraw and not waived:
         raise StudyInputError(f"'{name}' has no waiver to withdraw")
     if not args.withdraw and waived:
-        raise StudyInputError(f"'{name}' already has a waiver ({study.waivers()[name].reason}); "
-                              "withdraw it first to record another reason")
-    sf.append_decision(Decision(name, "waive_verdict", reason=args.reason, who=_who(args),
-                                payload={"waived": not args.withdraw,
-                                         "reason": args.reason.strip()}), **_lock_kw(args))
-    print(("withdrew the waiver of" if args.withdraw else "recorded a waiver for")
-          + f" '{name}'")
+        raise StudyInputError(
+            f"'{name}' already has a waiver ({study.waivers()[name].reason}); "
+            "withdraw it first to record another reason"
+        )
+    sf.append_decision(
+        Decision(
+            name,
+            "waive_verdict",
+            reason=args.reason,
+            who=_who(args),
+            payload={"waived": not args.withdraw, "reason": args.reason.strip()},
+        ),
+        **_lock_kw(args),
+    )
+    print(("withdrew the waiver of" if args.withdraw else "recorded a waiver for") + f" '{name}'")
     return 0
 
 
@@ -756,8 +946,11 @@ def run_log(args) -> int:
             print(f"      !! BROKEN: {problem}")
         print(chain.summary())
     if not chain.ok:
-        print(f"studykit study log: error: study file '{sf.path}' was altered outside studykit: "
-              f"{chain.summary()}", file=sys.stderr)
+        print(
+            f"studykit study log: error: study file '{sf.path}' was altered outside studykit: "
+            f"{chain.summary()}",
+            file=sys.stderr,
+        )
         return 2
     return 0
 
@@ -771,7 +964,8 @@ def _interval_option(text: str) -> dict:
     try:
         p, c = (float(v) for v in parts)
     except ValueError:
-        raise StudyInputError(f"--interval '{text}': give P and C as shares separated by a "
-                              "comma, e.g. 0.99,0.95 (or 'none' to remove the criterion)"
-                              ) from None
+        raise StudyInputError(
+            f"--interval '{text}': give P and C as shares separated by a "
+            "comma, e.g. 0.99,0.95 (or 'none' to remove the criterion)"
+        ) from None
     return {"interval_coverage": p, "interval_confidence": c}

@@ -25,16 +25,29 @@ def register(sub) -> None:
     )
     p.add_argument("report", metavar="REPORT.pdf")
     src = p.add_mutually_exclusive_group()
-    src.add_argument("--data", metavar="FILE", nargs="+", action="extend",
-                     help="the raw measurement file(s): every data file of the study "
-                     "(e.g. data/* from the hand-off zip)")
+    src.add_argument(
+        "--data",
+        metavar="FILE",
+        nargs="+",
+        action="extend",
+        help="the raw measurement file(s): every data file of the study "
+        "(e.g. data/* from the hand-off zip)",
+    )
     src.add_argument("--study", metavar="FILE", help="the study file")
-    p.add_argument("--trust", metavar="CERT.pem", action="append", default=[],
-                   help="trust this certificate as a root (repeatable); with it, every "
-                   "signature must be trusted and an unsigned report fails")
-    p.add_argument("--allow-unsigned", action="store_true",
-                   help="check the content of an unsigned report (exit 0 when it is "
-                   "consistent) instead of stopping at NOT EVIDENCE")
+    p.add_argument(
+        "--trust",
+        metavar="CERT.pem",
+        action="append",
+        default=[],
+        help="trust this certificate as a root (repeatable); with it, every "
+        "signature must be trusted and an unsigned report fails",
+    )
+    p.add_argument(
+        "--allow-unsigned",
+        action="store_true",
+        help="check the content of an unsigned report (exit 0 when it is "
+        "consistent) instead of stopping at NOT EVIDENCE",
+    )
     p.add_argument("--json", action="store_true", help="print the checks as JSON")
     p.set_defaults(func=run)
 
@@ -42,8 +55,13 @@ def register(sub) -> None:
 def run(args) -> int:
     from studykit.report.verify import verify_report
 
-    res = verify_report(args.report, data=args.data, study=args.study, trust=args.trust,
-                        allow_unsigned=args.allow_unsigned)
+    res = verify_report(
+        args.report,
+        data=args.data,
+        study=args.study,
+        trust=args.trust,
+        allow_unsigned=args.allow_unsigned,
+    )
     if args.json:
         json.dump(res.to_dict(), sys.stdout, indent=2, ensure_ascii=False)
         sys.stdout.write("\n")

@@ -35,12 +35,16 @@ def _check_unnamed(src, header, hrow, j, cells, rows, text_cells):
         i = int(np.flatnonzero(filled)[0])
         letter = col_letter(j)
         if j >= len(header):
-            why = (f"this row has a value ('{show(cells[i])}') in column {letter}, beyond the "
-                   f"{len(header)} named columns. Give the column a name in the header "
-                   f"(row {hrow}) or delete the value; check for an extra separator.")
+            why = (
+                f"this row has a value ('{show(cells[i])}') in column {letter}, beyond the "
+                f"{len(header)} named columns. Give the column a name in the header "
+                f"(row {hrow}) or delete the value; check for an extra separator."
+            )
         else:
-            why = (f"column {letter} has values (here '{show(cells[i])}') but no name in the "
-                   f"header (row {hrow}). Write a name into the header cell.")
+            why = (
+                f"column {letter} has values (here '{show(cells[i])}') but no name in the "
+                f"header (row {hrow}). Write a name into the header cell."
+            )
         raise DataFileError(why, file=src.name, row=int(rows[i]), column=letter, value=cells[i])
 
 
@@ -73,8 +77,9 @@ class _LabelAcc:
         import pandas as pd
 
         local, uniq = pd.factorize(labels, sort=False)
-        mapping = np.array([self.index.setdefault(u, len(self.index)) for u in uniq],
-                           dtype=np.int64)
+        mapping = np.array(
+            [self.index.setdefault(u, len(self.index)) for u in uniq], dtype=np.int64
+        )
         self.codes.add(mapping[local].astype(np.int32) if mapping.size else local.astype(np.int32))
 
     def labels(self) -> np.ndarray:
@@ -110,8 +115,10 @@ class _TimeAcc:
 
     def result(self, notes: list) -> np.ndarray:
         if self.as_text:
-            notes.append("times kept as text: not all time cells could be read as one "
-                         "date/time format (e.g. 2025-03-01 08:00 or 01.03.2025 08:00)")
+            notes.append(
+                "times kept as text: not all time cells could be read as one "
+                "date/time format (e.g. 2025-03-01 08:00 or 01.03.2025 08:00)"
+            )
             out = np.concatenate(self.parts) if self.parts else np.empty(0, dtype=object)
             return out
         if not self.parts:
@@ -171,8 +178,7 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
             for j, cells in enumerate(cols):
                 k = kinds.get(j, "unnamed")
                 if k == "unnamed":
-                    _check_unnamed(src, header, table.header_row, j, cells, rows,
-                                   table.text_cells)
+                    _check_unnamed(src, header, table.header_row, j, cells, rows, table.text_cells)
                     continue
                 if k == "value":
                     vals, empty = numeric(ctx, cells, rows, header[j])
@@ -193,14 +199,16 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
         return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
 
     rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _with_fast_path(
-        table, float_cols, collect)
+        table, float_cols, collect
+    )
     rows = rows_acc.result(np.int64)
     filled = filled_acc.result(bool)
     if not filled.any():
         raise DataFileError(
             "the file has a header but no values below it. Add the measurements, one row per "
             "part, under the column names.",
-            file=src.name, row=table.header_row + 1,
+            file=src.name,
+            row=table.header_row + 1,
         )
     last = int(np.flatnonzero(filled)[-1]) + 1
     keep = np.ones(last, dtype=bool)
@@ -210,13 +218,15 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
     sg = sg_acc.result_codes()[:last] if sg_idx is not None else None
     empty_code = sg_acc.index.get("", -1)
     if sg is not None:
-        sg = _fill_merged(sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx],
-                          empty_code)
+        sg = _fill_merged(
+            sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx], empty_code
+        )
     if interior_empty.size:
         if sg is not None:
             keep[interior_empty] = False
-            notes.append(f"empty {row_word(interior_empty.size)} skipped: "
-                         f"{fmt_rows(rows[interior_empty])}")
+            notes.append(
+                f"empty {row_word(interior_empty.size)} skipped: {fmt_rows(rows[interior_empty])}"
+            )
         else:
             notes.append(
                 "empty rows kept as missing values (they may be parts that were not measured): "
@@ -237,7 +247,10 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
                 f"this row has values but no subgroup label. Every row needs its subgroup in "
                 f"column '{header[sg_idx]}' (rows without a label: {fmt_rows(rows[no_label])}). "
                 "Fill in the labels, or leave out the subgroup column to read individuals.",
-                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+                file=src.name,
+                row=int(rows[i]),
+                column=header[sg_idx],
+                value="",
             )
         label_text = sg_acc.labels().astype(str)
         codes = sg
@@ -273,17 +286,20 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
         if np.isnan(vals).all():
             empty_cols.append(header[j])
             continue
-        characteristics.append(_make_char(name, unit, vals, subgroups, grouping, times,
-                                          note_arr, rows, warnings_))
+        characteristics.append(
+            _make_char(name, unit, vals, subgroups, grouping, times, note_arr, rows, warnings_)
+        )
     if empty_cols:
         notes.append("empty columns skipped: " + ", ".join(f"'{h}'" for h in empty_cols))
     if not characteristics:
         raise DataFileError(
             "no column holds measurements. Each characteristic needs its own column of numbers "
             "under a header name; the columns found were: "
-            + ", ".join(f"'{h}'" for h in header if h) + "."
+            + ", ".join(f"'{h}'" for h in header if h)
+            + "."
             + time_header_hint(header, t_idx, times),
-            file=src.name, row=table.header_row,
+            file=src.name,
+            row=table.header_row,
         )
     if t_idx is not None and plain_numbers(times):
         warnings_.append(time_header_hint(header, t_idx, times).strip())
@@ -357,8 +373,14 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
             "that this is the right column."
         )
     return CharacteristicData(
-        name=name, unit=unit, values=vals, subgroups=subgroups, times=times, notes=notes_arr,
-        rows=rows, n_missing=n_missing,
+        name=name,
+        unit=unit,
+        values=vals,
+        subgroups=subgroups,
+        times=times,
+        notes=notes_arr,
+        rows=rows,
+        n_missing=n_missing,
         is_integer=bool(valid.size and np.all(np.floor(valid) == valid)),
         subgroup_labels=group_labels,
         subgroup_counts=counts.astype(np.int64),
@@ -374,58 +396,82 @@ def subgroup_messages(chars, subgroup_source, notes, warnings_):
         filled = sizes[sizes > 0]
         msgs = []
         if filled.size < 2:
-            msgs.append((
-                "warn",
-                f"values in only {filled.size} subgroup(s); a subgrouped analysis needs at "
-                "least 2 (common practice: 25 or more)",
-            ))
+            msgs.append(
+                (
+                    "warn",
+                    f"values in only {filled.size} subgroup(s); a subgrouped analysis needs at "
+                    "least 2 (common practice: 25 or more)",
+                )
+            )
         if filled.size and filled.min() != filled.max():
             vals, cnt = np.unique(filled, return_counts=True)
-            dist = ", ".join(f"{k} x size {v}" for v, k in zip(vals.tolist(), cnt.tolist(),
-                                                              strict=True))
+            dist = ", ".join(
+                f"{k} x size {v}" for v, k in zip(vals.tolist(), cnt.tolist(), strict=True)
+            )
             msgs.append(("note", f"unequal subgroup sizes: {dist} (allowed; limits vary)"))
             if filled.min() == 1:
                 single = c.subgroup_labels[sizes == 1].tolist()
                 shown = ", ".join(f"'{x}'" for x in single[:5]) + (
-                    f" and {len(single) - 5} more" if len(single) > 5 else "")
-                msgs.append((
-                    "warn",
-                    f"{len(single)} subgroup(s) hold a single value ({shown}) while others hold "
-                    f"up to {int(filled.max())}: X-bar charts need at least 2 values in every "
-                    "subgroup. Merge or exclude them, or read the values as individuals",
-                ))
+                    f" and {len(single) - 5} more" if len(single) > 5 else ""
+                )
+                msgs.append(
+                    (
+                        "warn",
+                        f"{len(single)} subgroup(s) hold a single value ({shown}) while others hold "
+                        f"up to {int(filled.max())}: X-bar charts need at least 2 values in every "
+                        "subgroup. Merge or exclude them, or read the values as individuals",
+                    )
+                )
         if filled.size and filled.max() > LARGE_SUBGROUP:
-            msgs.append((
-                "warn",
-                f"subgroups of up to {int(filled.max())} values (more than {LARGE_SUBGROUP}); "
-                "allowed, but an X-bar/S chart suits large subgroups better than X-bar/R",
-            ))
+            msgs.append(
+                (
+                    "warn",
+                    f"subgroups of up to {int(filled.max())} values (more than {LARGE_SUBGROUP}); "
+                    "allowed, but an X-bar/S chart suits large subgroups better than X-bar/R",
+                )
+            )
         # a label that comes back after other labels
         sg = c.subgroups
         if sg.size > 1:
             changes = int(np.count_nonzero(sg[1:] != sg[:-1])) + 1
             if changes > c.n_subgroups:
-                msgs.append((
-                    "warn",
-                    "some subgroup labels appear in separate blocks of rows; rows of one "
-                    "subgroup are expected together, in production order",
-                ))
+                msgs.append(
+                    (
+                        "warn",
+                        "some subgroup labels appear in separate blocks of rows; rows of one "
+                        "subgroup are expected together, in production order",
+                    )
+                )
         for kind, text in msgs:
             groups.setdefault((kind, text), []).append(c.name)
     for (kind, text), names in groups.items():
-        who = ("all characteristics" if len(names) == len(chars) and len(chars) > 1
-               else ", ".join(f"'{n}'" for n in names))
+        who = (
+            "all characteristics"
+            if len(names) == len(chars) and len(chars) > 1
+            else ", ".join(f"'{n}'" for n in names)
+        )
         (warnings_ if kind == "warn" else notes).append(f"{who}: {text}")
 
 
-def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_idx,
-                   subgroup_size, notes, warnings_):
+def assemble_long(
+    src,
+    table,
+    ctx,
+    role,
+    char_idx,
+    value_idx,
+    sg_idx,
+    t_idx,
+    n_idx,
+    subgroup_size,
+    notes,
+    warnings_,
+):
     header = table.header
     unit_idx = next((j for j, r in role.items() if r == "unit"), None)
     others = [h for j, h in enumerate(header) if h and j not in role]
     if others:
-        notes.append("columns not used in the long layout: "
-                     + ", ".join(f"'{h}'" for h in others))
+        notes.append("columns not used in the long layout: " + ", ".join(f"'{h}'" for h in others))
 
     def collect(chunks):
         name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), Acc(), Acc(), Acc()
@@ -433,8 +479,9 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
         for rows, cols in chunks:
             for j in range(len(cols)):
                 if j >= len(header) or not header[j]:
-                    _check_unnamed(src, header, table.header_row, j, cols[j], rows,
-                                   table.text_cells)
+                    _check_unnamed(
+                        src, header, table.header_row, j, cols[j], rows, table.text_cells
+                    )
             names = label_array(cols[char_idx], table.text_cells)
             vals, empty = numeric(ctx, cols[value_idx], rows, header[value_idx])
             row_filled = ~empty | (names != "")
@@ -447,7 +494,10 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
                 raise DataFileError(
                     f"this row has no characteristic name in column '{header[char_idx]}'. "
                     "Every row of a long table names the characteristic its value belongs to.",
-                    file=src.name, row=int(rows[i]), column=header[char_idx], value="",
+                    file=src.name,
+                    row=int(rows[i]),
+                    column=header[char_idx],
+                    value="",
                 )
             name_acc.add(names)
             val_acc.add(vals)
@@ -464,13 +514,15 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
         return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
 
     name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc = _with_fast_path(
-        table, {value_idx}, collect)
+        table, {value_idx}, collect
+    )
     filled = filled_acc.result(bool)
     if not filled.any():
         raise DataFileError(
             "the file has a header but no values below it. Add the measurements, one row per "
             "value, under the column names.",
-            file=src.name, row=table.header_row + 1,
+            file=src.name,
+            row=table.header_row + 1,
         )
     rows = rows_acc.result(np.int64)
     last = int(np.flatnonzero(filled)[-1]) + 1
@@ -495,7 +547,10 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
                 f"this row has no subgroup label in column '{header[sg_idx]}' (rows without a "
                 f"label: {fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
                 "subgroup column to read individuals.",
-                file=src.name, row=int(rows[i]), column=header[sg_idx], value="",
+                file=src.name,
+                row=int(rows[i]),
+                column=header[sg_idx],
+                value="",
             )
     times_all = t_acc.result(notes)[keep] if t_idx is not None else None
     notes_all = n_acc.result()[keep] if n_idx is not None else None
@@ -513,7 +568,9 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
             raise DataFileError(
                 f"'{raw_name}' and '{seen_names[key]}' name the same characteristic with "
                 "different units or spelling. Use one name (and one unit) per characteristic.",
-                file=src.name, column=header[char_idx], value=raw_name,
+                file=src.name,
+                column=header[char_idx],
+                value=raw_name,
             )
         seen_names[key] = raw_name
         if units_all is not None:
@@ -523,7 +580,9 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
                 raise DataFileError(
                     f"'{name}' is given in more than one unit ({', '.join(us)}). Convert the "
                     "values to one unit.",
-                    file=src.name, row=int(rows[first_other]), column=header[unit_idx],
+                    file=src.name,
+                    row=int(rows[first_other]),
+                    column=header[unit_idx],
                     value=us[1],
                 )
             if us:
@@ -541,20 +600,30 @@ def assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx, n_i
             def labels_of(u):
                 return _position_labels(u)
 
-        characteristics.append(_make_char(
-            name, unit, cvals, labels_of(ccodes), _grouping(ccodes, labels_of),
-            times_all[idx] if times_all is not None else None,
-            notes_all[idx] if notes_all is not None else None,
-            crows, warnings_,
-        ))
+        characteristics.append(
+            _make_char(
+                name,
+                unit,
+                cvals,
+                labels_of(ccodes),
+                _grouping(ccodes, labels_of),
+                times_all[idx] if times_all is not None else None,
+                notes_all[idx] if notes_all is not None else None,
+                crows,
+                warnings_,
+            )
+        )
     empty = [c.name for c in characteristics if c.n_valid == 0]
     if empty:
-        notes.append("characteristics without any value skipped: "
-                     + ", ".join(f"'{n}'" for n in empty))
+        notes.append(
+            "characteristics without any value skipped: " + ", ".join(f"'{n}'" for n in empty)
+        )
     characteristics = [c for c in characteristics if c.n_valid > 0]
     if not characteristics:
         raise DataFileError(
             f"column '{header[value_idx]}' holds no values. Add the measured values.",
-            file=src.name, column=header[value_idx], row=table.header_row + 1,
+            file=src.name,
+            column=header[value_idx],
+            row=table.header_row + 1,
         )
     return characteristics, int(rows.size)

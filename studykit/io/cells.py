@@ -19,34 +19,108 @@ from studykit.io.values import time_text
 # ----------------------------------------------------------------------------------------------
 # header names that give a column a role (compared after _norm_header)
 SUBGROUP_NAMES = {
-    "subgroup", "sub group", "subgroups", "sample", "samples", "lot", "batch", "group",
-    "sample group", "subgroup number",
-    "stichprobe", "stichproben", "untergruppe", "gruppe", "los", "charge", "teilgruppe", "probe",
+    "subgroup",
+    "sub group",
+    "subgroups",
+    "sample",
+    "samples",
+    "lot",
+    "batch",
+    "group",
+    "sample group",
+    "subgroup number",
+    "stichprobe",
+    "stichproben",
+    "untergruppe",
+    "gruppe",
+    "los",
+    "charge",
+    "teilgruppe",
+    "probe",
 }
 TIME_NAMES = {
-    "time", "timestamp", "time stamp", "date", "datetime", "date time", "measured at",
-    "measurement time", "zeit", "zeitstempel", "datum", "uhrzeit", "datum uhrzeit", "messzeit",
-    "messdatum", "zeitpunkt",
+    "time",
+    "timestamp",
+    "time stamp",
+    "date",
+    "datetime",
+    "date time",
+    "measured at",
+    "measurement time",
+    "zeit",
+    "zeitstempel",
+    "datum",
+    "uhrzeit",
+    "datum uhrzeit",
+    "messzeit",
+    "messdatum",
+    "zeitpunkt",
 }
 NOTE_NAMES = {
-    "note", "notes", "comment", "comments", "remark", "remarks", "bemerkung", "bemerkungen",
-    "kommentar", "kommentare", "notiz", "notizen", "hinweis", "anmerkung",
+    "note",
+    "notes",
+    "comment",
+    "comments",
+    "remark",
+    "remarks",
+    "bemerkung",
+    "bemerkungen",
+    "kommentar",
+    "kommentare",
+    "notiz",
+    "notizen",
+    "hinweis",
+    "anmerkung",
 }
 CHARACTERISTIC_NAMES = {
-    "characteristic", "characteristic name", "feature", "parameter", "variable", "measurand",
-    "merkmal", "merkmalsname", "messgrosse", "messgröße", "kenngrosse", "kenngröße", "prüfmerkmal",
+    "characteristic",
+    "characteristic name",
+    "feature",
+    "parameter",
+    "variable",
+    "measurand",
+    "merkmal",
+    "merkmalsname",
+    "messgrosse",
+    "messgröße",
+    "kenngrosse",
+    "kenngröße",
+    "prüfmerkmal",
 }
 VALUE_NAMES = {
-    "value", "values", "measurement", "measured value", "reading", "result",
-    "wert", "messwert", "istwert", "ergebnis",
+    "value",
+    "values",
+    "measurement",
+    "measured value",
+    "reading",
+    "result",
+    "wert",
+    "messwert",
+    "istwert",
+    "ergebnis",
 }
 UNIT_NAMES = {"unit", "units", "einheit", "masseinheit", "maßeinheit"}
 #: header names of a stream column (cavity, spindle, nest, fixture, head: parallel streams of
 #: one process); see :func:`studykit.io.readers._attach_streams`
 STREAM_NAMES = {
-    "stream", "streams", "cavity", "cavity number", "mould cavity", "mold cavity", "nest",
-    "spindle", "fixture", "head", "station",
-    "kavität", "kavitaet", "formnest", "werkzeugnest", "spindel", "vorrichtung", "kopf",
+    "stream",
+    "streams",
+    "cavity",
+    "cavity number",
+    "mould cavity",
+    "mold cavity",
+    "nest",
+    "spindle",
+    "fixture",
+    "head",
+    "station",
+    "kavität",
+    "kavitaet",
+    "formnest",
+    "werkzeugnest",
+    "spindel",
+    "vorrichtung",
+    "kopf",
 }
 _TRAILING_TOKENS = {"no", "nr", "number", "num", "id", "nummer", "index"}
 
@@ -145,19 +219,62 @@ class Ctx:
 
 
 #: labels of a spreadsheet's summary rows (totals, means...) that are not measurements
-_SUMMARY_WORDS = frozenset({
-    "total", "totals", "grand total", "sum", "sums", "subtotal", "mean", "average", "avg",
-    "median", "min", "max", "minimum", "maximum", "range", "std", "stdev", "std dev", "sd",
-    "sigma", "count", "x-bar", "xbar", "cpk", "ppk",
-    "summe", "gesamt", "gesamtsumme", "mittelwert", "mittel", "durchschnitt", "anzahl",
-    "spannweite", "standardabweichung",
-})
+_SUMMARY_WORDS = frozenset(
+    {
+        "total",
+        "totals",
+        "grand total",
+        "sum",
+        "sums",
+        "subtotal",
+        "mean",
+        "average",
+        "avg",
+        "median",
+        "min",
+        "max",
+        "minimum",
+        "maximum",
+        "range",
+        "std",
+        "stdev",
+        "std dev",
+        "sd",
+        "sigma",
+        "count",
+        "x-bar",
+        "xbar",
+        "cpk",
+        "ppk",
+        "summe",
+        "gesamt",
+        "gesamtsumme",
+        "mittelwert",
+        "mittel",
+        "durchschnitt",
+        "anzahl",
+        "spannweite",
+        "standardabweichung",
+    }
+)
 
 #: the subset that is unmistakable in any text column (no first names such as 'Max')
-_STRONG_SUMMARY_WORDS = frozenset({
-    "total", "totals", "grand total", "sum", "subtotal", "mean", "average", "summe", "gesamt",
-    "gesamtsumme", "mittelwert", "durchschnitt",
-})
+_STRONG_SUMMARY_WORDS = frozenset(
+    {
+        "total",
+        "totals",
+        "grand total",
+        "sum",
+        "subtotal",
+        "mean",
+        "average",
+        "summe",
+        "gesamt",
+        "gesamtsumme",
+        "mittelwert",
+        "durchschnitt",
+    }
+)
 
 
 def _summary_word(text, words=_SUMMARY_WORDS) -> bool:
@@ -187,7 +304,10 @@ def _summary_row_error(file, row: int, column: str, label: str) -> DataFileError
         f"'{show(label)}' labels a summary row (totals, means...), not a part or subgroup: its "
         "numbers are results, not measurements, and would be analysed as data. Delete the row "
         "(and any other summary rows) from the export.",
-        file=file, row=int(row), column=column, value=label,
+        file=file,
+        row=int(row),
+        column=column,
+        value=label,
     )
 
 
@@ -222,26 +342,38 @@ def _bad_number(ctx: Ctx, raw, row: int, column: str) -> DataFileError:
     if _summary_word(text):
         return _summary_row_error(ctx.file, row, column, text)
     if _EXCEL_ERROR_RE.match(text):
-        why = (f"the cell shows the spreadsheet error '{text}' instead of a value. Fix the "
-               "formula that produced it, or clear the cell if the part was not measured.")
+        why = (
+            f"the cell shows the spreadsheet error '{text}' instead of a value. Fix the "
+            "formula that produced it, or clear the cell if the part was not measured."
+        )
     elif _NONFINITE_RE.match(text):
-        why = (f"'{text}' is not a measured value. Leave the cell empty where a value is "
-               "missing: studykit counts empty cells and reports them.")
+        why = (
+            f"'{text}' is not a measured value. Leave the cell empty where a value is "
+            "missing: studykit counts empty cells and reports them."
+        )
     elif ctx.decimal == "," and "." in text and re.match(r"^[+-]?[\d.]+(,\d+)?$", text):
-        why = (f"'{text}' uses '.' but this file uses ',' as decimal sign. Use one decimal sign "
-               "throughout and no thousands separators.")
+        why = (
+            f"'{text}' uses '.' but this file uses ',' as decimal sign. Use one decimal sign "
+            "throughout and no thousands separators."
+        )
     elif ctx.decimal == "." and "," in text and re.match(r"^[+-]?[\d,]+(\.\d+)?$", text):
-        why = (f"'{text}' uses ',' but this file uses '.' as decimal sign. Use one decimal sign "
-               "throughout and no thousands separators.")
+        why = (
+            f"'{text}' uses ',' but this file uses '.' as decimal sign. Use one decimal sign "
+            "throughout and no thousands separators."
+        )
     elif isinstance(raw, bool):
         why = f"'{text}' is a yes/no value, not a measurement. Enter the measured number."
     elif isinstance(raw, _dt.datetime | _dt.date | _dt.time):
-        why = (f"the cell holds a date/time ('{text}') where a measurement is expected. If this "
-               "column holds times, name it 'Time' or 'Zeit'; otherwise enter the number.")
+        why = (
+            f"the cell holds a date/time ('{text}') where a measurement is expected. If this "
+            "column holds times, name it 'Time' or 'Zeit'; otherwise enter the number."
+        )
     else:
-        why = (f"'{show(text)}' is not a number. Measurement cells hold numbers only (no units, "
-               "no text; decimal sign '.' or ','). Leave the cell empty for a missing value and "
-               "put remarks into a note column (e.g. 'Note' or 'Bemerkung').")
+        why = (
+            f"'{show(text)}' is not a number. Measurement cells hold numbers only (no units, "
+            "no text; decimal sign '.' or ','). Leave the cell empty for a missing value and "
+            "put remarks into a note column (e.g. 'Note' or 'Bemerkung')."
+        )
     return DataFileError(why, file=ctx.file, row=int(row), column=column, value=raw)
 
 
@@ -370,16 +502,27 @@ def time_header_hint(header, t_idx, times) -> str:
         return ""
     name = header[t_idx]
     numbers = " and its cells are plain numbers" if plain_numbers(times) else ""
-    return (f" Column '{name}' was read as time stamps, not as measurements, because its header "
-            f"is a time or date name (time, Zeit, date, Datum, timestamp...){numbers}. If it "
-            "holds measurements, rename the header, e.g. 'cycle time [s]' or 'elapsed [s]' (a time column is "
-            "recognised only by an exact time or date name).")
+    return (
+        f" Column '{name}' was read as time stamps, not as measurements, because its header "
+        f"is a time or date name (time, Zeit, date, Datum, timestamp...){numbers}. If it "
+        "holds measurements, rename the header, e.g. 'cycle time [s]' or 'elapsed [s]' (a time column is "
+        "recognised only by an exact time or date name)."
+    )
 
 
 _TIME_FORMATS = (
-    "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d",
-    "%d.%m.%Y %H:%M:%S", "%d.%m.%Y %H:%M", "%d.%m.%Y", "%d.%m.%y %H:%M", "%d.%m.%y",
-    "%Y-%m-%d %H:%M:%S.%f", "%Y-%m-%dT%H:%M:%S.%f",
+    "%Y-%m-%d %H:%M:%S",
+    "%Y-%m-%dT%H:%M:%S",
+    "%Y-%m-%d %H:%M",
+    "%Y-%m-%dT%H:%M",
+    "%Y-%m-%d",
+    "%d.%m.%Y %H:%M:%S",
+    "%d.%m.%Y %H:%M",
+    "%d.%m.%Y",
+    "%d.%m.%y %H:%M",
+    "%d.%m.%y",
+    "%Y-%m-%d %H:%M:%S.%f",
+    "%Y-%m-%dT%H:%M:%S.%f",
 )
 
 
@@ -397,8 +540,9 @@ def times_chunk(cells: np.ndarray, fmt: str | None):
         return out, fmt
     if (is_dt & ~is_empty).any():
         return None, None
-    text = pd.Series([v.strip() if isinstance(v, str) else cell_text(v) for v in cells],
-                     dtype=object)
+    text = pd.Series(
+        [v.strip() if isinstance(v, str) else cell_text(v) for v in cells], dtype=object
+    )
     filled = text != ""
     candidates = [fmt] if fmt else list(_TIME_FORMATS)
     sample = text[filled][:500]

@@ -33,8 +33,9 @@ def _csv_rows(lines: list[str], delimiter: str, file=None) -> list[list[str]]:
         return list(csv.reader(lines, delimiter=delimiter))
     except csv.Error as exc:
         raise DataFileError(
-            f"the first lines cannot be split into cells ({exc}). Check quotes (\") and "
-            "separators, or save the file again from the spreadsheet as CSV.", file=file,
+            f'the first lines cannot be split into cells ({exc}). Check quotes (") and '
+            "separators, or save the file again from the spreadsheet as CSV.",
+            file=file,
         ) from None
     finally:
         csv.field_size_limit(old)
@@ -67,8 +68,11 @@ def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
             return d, idx[k]
     # one column of numbers with decimal commas: nothing to split
     semi = recs[";"]
-    if len(recs[","][0]) == 1 and all(len(x) == 1 for x in semi) and any(COMMA_DECIMAL_RE.match(x[0].strip())
-                                               for x in semi[1:]):
+    if (
+        len(recs[","][0]) == 1
+        and all(len(x) == 1 for x in semi)
+        and any(COMMA_DECIMAL_RE.match(x[0].strip()) for x in semi[1:])
+    ):
         return ";", idx[0]
     best, best_cols = ",", 1
     for d in delims:
@@ -87,7 +91,8 @@ def open_csv(src: Source) -> Table:
             "break, so no header row can be found. Check that the file is a table with one "
             "row per line (a file with only carriage returns or no line breaks at all is not), "
             "or save it again from the spreadsheet as CSV.",
-            file=src.name, row=1,
+            file=src.name,
+            row=1,
         )
     header_index = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
     if header_index is None:
@@ -102,8 +107,9 @@ def open_csv(src: Source) -> Table:
 
     # decimal sign from the sample cells
     n_comma = n_point = 0
-    for rec in _csv_rows(lines[header_index + 1 : header_index + 200], delimiter=sep,
-                          file=src.name):
+    for rec in _csv_rows(
+        lines[header_index + 1 : header_index + 200], delimiter=sep, file=src.name
+    ):
         for cell in rec:
             cell = cell.strip()
             if COMMA_DECIMAL_RE.match(cell):
@@ -116,9 +122,18 @@ def open_csv(src: Source) -> Table:
         handle = src.binary()
         try:
             reader = pd.read_csv(
-                handle, sep=sep, header=None, skiprows=header_index, dtype=object,
-                keep_default_na=False, na_filter=False, skip_blank_lines=False,
-                chunksize=_CHUNK_ROWS, encoding=src.encoding, quotechar='"', engine="c",
+                handle,
+                sep=sep,
+                header=None,
+                skiprows=header_index,
+                dtype=object,
+                keep_default_na=False,
+                na_filter=False,
+                skip_blank_lines=False,
+                chunksize=_CHUNK_ROWS,
+                encoding=src.encoding,
+                quotechar='"',
+                engine="c",
                 encoding_errors="strict",
             )
             start = header_index + 1  # spreadsheet row of the reader's first line (the header)
@@ -137,9 +152,12 @@ def open_csv(src: Source) -> Table:
         except UnicodeDecodeError as exc:
             raise DataFileError(
                 f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
-                + ("Leave the encoding out to have it detected, or give the one the file was "
-                   "saved with (e.g. 'cp1252' or 'utf-16')." if src.encoding_given else
-                   "Save the file as UTF-8 CSV, or give its encoding explicitly."),
+                + (
+                    "Leave the encoding out to have it detected, or give the one the file was "
+                    "saved with (e.g. 'cp1252' or 'utf-16')."
+                    if src.encoding_given
+                    else "Save the file as UTF-8 CSV, or give its encoding explicitly."
+                ),
                 file=src.name,
             ) from None
         finally:
@@ -151,17 +169,28 @@ def open_csv(src: Source) -> Table:
         handle = src.binary()
         try:
             reader = pd.read_csv(
-                handle, sep=sep, header=None, skiprows=header_index + 1, names=list(range(width)),
+                handle,
+                sep=sep,
+                header=None,
+                skiprows=header_index + 1,
+                names=list(range(width)),
                 dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
-                decimal=decimal, keep_default_na=False, na_values=[""], na_filter=True,
-                skip_blank_lines=False, chunksize=_CHUNK_ROWS, encoding=src.encoding,
-                quotechar='"', engine="c", encoding_errors="strict",
+                decimal=decimal,
+                keep_default_na=False,
+                na_values=[""],
+                na_filter=True,
+                skip_blank_lines=False,
+                chunksize=_CHUNK_ROWS,
+                encoding=src.encoding,
+                quotechar='"',
+                engine="c",
+                encoding_errors="strict",
             )
             start = header_index + 2
             for frame in reader:
                 if frame.shape[1] != width or not frame.index.equals(
-                        pd.RangeIndex(start - header_index - 2,
-                                      start - header_index - 2 + len(frame))):
+                    pd.RangeIndex(start - header_index - 2, start - header_index - 2 + len(frame))
+                ):
                     raise Fallback
                 cols = []
                 for j in range(width):
@@ -172,15 +201,21 @@ def open_csv(src: Source) -> Table:
                 rows = np.arange(start, start + len(frame), dtype=np.int64)
                 start += len(frame)
                 yield rows, cols
-        except (ValueError, TypeError, OverflowError, pd.errors.ParserError,
-                UnicodeDecodeError):
+        except (ValueError, TypeError, OverflowError, pd.errors.ParserError, UnicodeDecodeError):
             raise Fallback from None
         finally:
             handle.close()
 
-    return Table(header=header, header_row=header_index + 1, open_chunks=chunks,
-                  fast_chunks=fast_chunks, separator=sep, decimal=decimal, text_cells=True,
-                  title_rows=(first_line + 1, header_index) if header_index > first_line else None)
+    return Table(
+        header=header,
+        header_row=header_index + 1,
+        open_chunks=chunks,
+        fast_chunks=fast_chunks,
+        separator=sep,
+        decimal=decimal,
+        text_cells=True,
+        title_rows=(first_line + 1, header_index) if header_index > first_line else None,
+    )
 
 
 def _translate_parser_error(exc, src: Source, header: list, sep: str) -> DataFileError:
@@ -198,10 +233,12 @@ def _translate_parser_error(exc, src: Source, header: list, sep: str) -> DataFil
         return DataFileError(
             f"this row has {saw} cells but the header has {len(header)} columns "
             f"(separator: {sep_name}).{hint}",
-            file=src.name, row=row, value=saw,
+            file=src.name,
+            row=row,
+            value=saw,
         )
     return DataFileError(
-        f"the table cannot be split into cells ({msg.strip()}). Check quotes (\") and "
+        f'the table cannot be split into cells ({msg.strip()}). Check quotes (") and '
         f"separators ({sep_name}) in the file, or save it again from the spreadsheet as CSV.",
         file=src.name,
     )

@@ -27,9 +27,15 @@ def read_frame(path, *, sheet: str | None, wanted: dict):
             frame = pd.read_excel(path, sheet_name=sheet or 0, dtype=object)
         else:
             # blank lines are kept (and dropped below) so that row numbers match the file
-            frame = pd.read_csv(path, sep=_separator(path), engine="python", dtype=str,
-                                skipinitialspace=True, encoding="utf-8-sig",
-                                skip_blank_lines=False)
+            frame = pd.read_csv(
+                path,
+                sep=_separator(path),
+                engine="python",
+                dtype=str,
+                skipinitialspace=True,
+                encoding="utf-8-sig",
+                skip_blank_lines=False,
+            )
     except (ValueError, OSError, UnicodeDecodeError) as exc:
         raise DataFileError(f"cannot read the table: {exc}", file=path) from None
     frame.columns = [str(c).strip() for c in frame.columns]
@@ -42,11 +48,13 @@ def read_frame(path, *, sheet: str | None, wanted: dict):
             )
     given = list(wanted.items())
     for k, (option, col) in enumerate(given):
-        for other, col2 in given[k + 1:]:
+        for other, col2 in given[k + 1 :]:
             if col == col2:
                 raise DataFileError(
                     f"{option} and {other} both name column '{col}'; each role needs its own "
-                    "column (parts, appraisers, trials and values)", file=path, column=col,
+                    "column (parts, appraisers, trials and values)",
+                    file=path,
+                    column=col,
                 )
     # spreadsheet row of each table row (header = row 1); wholly empty rows are left out
     file_rows = [int(i) + 2 for i in range(len(frame))]
@@ -86,7 +94,9 @@ def _parse_values(frame, file_rows, path, value: str, missing_hint: str) -> list
                     f"'{text}' mixes the decimal signs '.' and ',' with the rest of the column "
                     f"(first '.' in row {first_sign['.']}, first ',' in row {first_sign[',']}); "
                     "use one decimal sign throughout and no thousands separators",
-                    file=path, row=file_rows[i], column=value,
+                    file=path,
+                    row=file_rows[i],
+                    column=value,
                 )
         try:
             x = float(text.replace(",", ".")) if "," in text and "." not in text else float(text)
@@ -94,14 +104,25 @@ def _parse_values(frame, file_rows, path, value: str, missing_hint: str) -> list
             x = math.nan
         if not math.isfinite(x):
             shown = f"'{text}'" if text else "an empty cell"
-            raise DataFileError(f"{shown} is not a number; {missing_hint}",
-                                file=path, row=file_rows[i], column=value)
+            raise DataFileError(
+                f"{shown} is not a number; {missing_hint}",
+                file=path,
+                row=file_rows[i],
+                column=value,
+            )
         values.append(x)
     return values
 
 
-def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str | None = None,
-                     sheet: str | None = None) -> dict:
+def read_gauge_table(
+    path,
+    *,
+    part: str,
+    appraiser: str,
+    value: str,
+    trial: str | None = None,
+    sheet: str | None = None,
+) -> dict:
     """Read the long gauge table; returns ``{"values", "parts", "appraisers", "trials"}``.
 
     Raises DataFileError naming the file, column and spreadsheet row of each problem.
@@ -112,9 +133,13 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
         wanted["--trial"] = trial
     frame, file_rows = read_frame(path, sheet=sheet, wanted=wanted)
     values = _parse_values(
-        frame, file_rows, path, value,
+        frame,
+        file_rows,
+        path,
+        value,
         "every row needs a measured value (delete the row of a missing measurement from every "
-        "appraiser's cell, or re-measure)")
+        "appraiser's cell, or re-measure)",
+    )
     labels = {}
     for key, col in (("parts", part), ("appraisers", appraiser), ("trials", trial)):
         if col is None:
@@ -125,8 +150,9 @@ def read_gauge_table(path, *, part: str, appraiser: str, value: str, trial: str 
             text = "" if raw is None or (isinstance(raw, float) and math.isnan(raw)) else str(raw)
             text = text.strip()
             if not text:
-                raise DataFileError("empty label; every row needs one", file=path,
-                                    row=file_rows[i], column=col)
+                raise DataFileError(
+                    "empty label; every row needs one", file=path, row=file_rows[i], column=col
+                )
             out.append(_natural(text))
         labels[key] = out
     return {"values": values, **labels}
@@ -140,8 +166,12 @@ def read_reference_readings(path, *, value: str, sheet: str | None = None) -> li
     path = Path(path)
     frame, file_rows = read_frame(path, sheet=sheet, wanted={"--value": value})
     return _parse_values(
-        frame, file_rows, path, value,
-        "every row needs a reading of the reference part (delete the row or re-measure)")
+        frame,
+        file_rows,
+        path,
+        value,
+        "every row needs a reading of the reference part (delete the row or re-measure)",
+    )
 
 
 def _natural(text: str):

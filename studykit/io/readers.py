@@ -110,7 +110,8 @@ def read_measurements(
     if not isinstance(path, str | os.PathLike):
         raise StudyInputError(
             f"`path` must be the file's path (text or Path), not {type(path).__name__}; for "
-            "file content in memory use read_measurements_bytes(data, filename)", value=path,
+            "file content in memory use read_measurements_bytes(data, filename)",
+            value=path,
         )
     p = Path(path)
     if not p.exists():
@@ -118,13 +119,20 @@ def read_measurements(
             "the file does not exist. Check the path and the file name.", file=str(path)
         )
     if p.is_dir():
-        raise DataFileError("this is a folder, not a file. Give the path of a CSV or XLSX file.",
-                            file=str(path))
+        raise DataFileError(
+            "this is a folder, not a file. Give the path of a CSV or XLSX file.", file=str(path)
+        )
     st = p.stat()  # stat does not open the file: a pipe or device is refused before reading
     if not stat.S_ISREG(st.st_mode):
-        kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
-                "a device" if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else
-                "a socket" if stat.S_ISSOCK(st.st_mode) else "not a regular file")
+        kind = (
+            "a named pipe (FIFO)"
+            if stat.S_ISFIFO(st.st_mode)
+            else "a device"
+            if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode)
+            else "a socket"
+            if stat.S_ISSOCK(st.st_mode)
+            else "not a regular file"
+        )
         raise DataFileError(
             f"this is {kind}, not a measurement file; studykit reads only regular files (a "
             "pipe or device could block or never end). Save the measurements to a CSV or XLSX "
@@ -134,10 +142,19 @@ def read_measurements(
     size = st.st_size
     check_size(size, max_bytes, p.name)
     src = Source(name=p.name, path=p, data=None, size=size)
-    return _read(src, sheet=sheet, layout=layout, subgroup_column=subgroup_column,
-                 subgroup_size=subgroup_size, characteristic_column=characteristic_column,
-                 value_column=value_column, time_column=time_column, note_column=note_column,
-                 encoding=encoding, stream_column=stream_column)
+    return _read(
+        src,
+        sheet=sheet,
+        layout=layout,
+        subgroup_column=subgroup_column,
+        subgroup_size=subgroup_size,
+        characteristic_column=characteristic_column,
+        value_column=value_column,
+        time_column=time_column,
+        note_column=note_column,
+        encoding=encoding,
+        stream_column=stream_column,
+    )
 
 
 def read_measurements_bytes(data: bytes, filename: str, **options) -> Measurements:
@@ -186,7 +203,8 @@ def _find_column(header, wanted: str, *, what: str, option: str, src_name: str) 
     raise DataFileError(
         f"there is no column named '{wanted}' (given as `{option}` for the {what}). The header "
         "has: " + ", ".join(f"'{h}'" for h in header if h) + ". Use one of these names.",
-        file=src_name, value=wanted,
+        file=src_name,
+        value=wanted,
     )
 
 
@@ -197,9 +215,20 @@ def _detect(header, names_set) -> int | None:
     return None
 
 
-def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgroup_size=None,
-          characteristic_column=None, value_column=None, time_column=None, note_column=None,
-          encoding=None, stream_column=None) -> Measurements:
+def _read(
+    src: Source,
+    *,
+    sheet=None,
+    layout="auto",
+    subgroup_column=None,
+    subgroup_size=None,
+    characteristic_column=None,
+    value_column=None,
+    time_column=None,
+    note_column=None,
+    encoding=None,
+    stream_column=None,
+) -> Measurements:
     if layout not in ("auto", "wide", "long"):
         raise StudyInputError(
             f"`layout` must be 'auto', 'wide' or 'long', not '{layout}'.", value=layout
@@ -207,8 +236,7 @@ def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgr
     if subgroup_size is not None:
         if isinstance(subgroup_size, bool) or not isinstance(subgroup_size, int | np.integer):
             try:
-                ok = (not isinstance(subgroup_size, bool)
-                      and float(subgroup_size).is_integer())
+                ok = not isinstance(subgroup_size, bool) and float(subgroup_size).is_integer()
             except (TypeError, ValueError):
                 ok = False
             if not ok:
@@ -234,7 +262,9 @@ def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgr
         table = open_xlsx(src, sheet, notes)
     else:
         if sheet is not None:
-            notes.append(f"`sheet` ('{sheet}') was ignored: the file is a text table, not a workbook")
+            notes.append(
+                f"`sheet` ('{sheet}') was ignored: the file is a text table, not a workbook"
+            )
         table = open_csv(src)
         sep_name = {",": "comma", ";": "semicolon", "\t": "tab"}[table.separator]
         notes.append(
@@ -244,21 +274,44 @@ def _read(src: Source, *, sheet=None, layout="auto", subgroup_column=None, subgr
     if table.title_rows:
         a, b = table.title_rows
         span = f"row {a}" if a == b else f"rows {a} to {b}"
-        notes.append(f"{span} above the header look like a title and were skipped; the header "
-                     f"is row {table.header_row}")
+        notes.append(
+            f"{span} above the header look like a title and were skipped; the header "
+            f"is row {table.header_row}"
+        )
     try:
-        return _read_table(src, table, notes, warnings_, layout=layout,
-                           subgroup_column=subgroup_column, subgroup_size=subgroup_size,
-                           characteristic_column=characteristic_column,
-                           value_column=value_column, time_column=time_column,
-                           note_column=note_column, stream_column=stream_column)
+        return _read_table(
+            src,
+            table,
+            notes,
+            warnings_,
+            layout=layout,
+            subgroup_column=subgroup_column,
+            subgroup_size=subgroup_size,
+            characteristic_column=characteristic_column,
+            value_column=value_column,
+            time_column=time_column,
+            note_column=note_column,
+            stream_column=stream_column,
+        )
     finally:
         table.close()
 
 
-def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgroup_size,
-                characteristic_column, value_column, time_column, note_column,
-                stream_column=None):
+def _read_table(
+    src,
+    table,
+    notes,
+    warnings_,
+    *,
+    layout,
+    subgroup_column,
+    subgroup_size,
+    characteristic_column,
+    value_column,
+    time_column,
+    note_column,
+    stream_column=None,
+):
     header = table.header
     hrow = table.header_row
 
@@ -268,7 +321,9 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         raise DataFileError(
             f"the first row holds numbers ('{show(named[0])}'), not column names. Add a header "
             "row that names each column (e.g. 'Diameter [mm]', 'Subgroup') above the values.",
-            file=src.name, row=hrow, value=named[0],
+            file=src.name,
+            row=hrow,
+            value=named[0],
         )
     seen: dict[str, int] = {}
     for j, h in enumerate(header):
@@ -281,7 +336,10 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
                 f"columns {col_letter(i)} ('{header[i]}') and {col_letter(j)} ('{h}') have the "
                 "same name. Every column needs its own name: rename one of them (for example "
                 f"'{parse_header(h)[0]} 2').",
-                file=src.name, row=hrow, column=h, value=h,
+                file=src.name,
+                row=hrow,
+                column=h,
+                value=h,
             )
         seen[key] = j
 
@@ -299,18 +357,26 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         layout = "long"
     char_idx = value_idx = None
     if layout in ("auto", "long"):
-        char_idx = (find(characteristic_column, "characteristic names", "characteristic_column")
-                    if characteristic_column is not None else _detect(header, CHARACTERISTIC_NAMES))
-        value_idx = (find(value_column, "values", "value_column")
-                     if value_column is not None else _detect(header, VALUE_NAMES))
+        char_idx = (
+            find(characteristic_column, "characteristic names", "characteristic_column")
+            if characteristic_column is not None
+            else _detect(header, CHARACTERISTIC_NAMES)
+        )
+        value_idx = (
+            find(value_column, "values", "value_column")
+            if value_column is not None
+            else _detect(header, VALUE_NAMES)
+        )
         if layout == "long" and (char_idx is None or value_idx is None):
             missing = "a characteristic column" if char_idx is None else "a value column"
             raise DataFileError(
                 f"a long table needs {missing}, and none was found. Name the columns e.g. "
                 "'Characteristic'/'Merkmal' and 'Value'/'Messwert', or give them with "
                 "`characteristic_column` and `value_column`. The header has: "
-                + ", ".join(f"'{h}'" for h in header if h) + ".",
-                file=src.name, row=hrow,
+                + ", ".join(f"'{h}'" for h in header if h)
+                + ".",
+                file=src.name,
+                row=hrow,
             )
         if char_idx is not None and value_idx is not None:
             layout = "long"
@@ -380,19 +446,33 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
     ctx = Ctx(src, table)
     try:
         if layout == "wide":
-            result = assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size,
-                                    notes, warnings_)
+            result = assemble_wide(
+                src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_
+            )
         else:
-            result = assemble_long(src, table, ctx, role, char_idx, value_idx, sg_idx, t_idx,
-                                    n_idx, subgroup_size, notes, warnings_)
+            result = assemble_long(
+                src,
+                table,
+                ctx,
+                role,
+                char_idx,
+                value_idx,
+                sg_idx,
+                t_idx,
+                n_idx,
+                subgroup_size,
+                notes,
+                warnings_,
+            )
     except DataFileError:
         if src.kind == "xlsx":  # the real cause of an "empty" label or cell, if there is one
             check_unsaved_formulas(src, table, damage_known=True)
         raise
     characteristics, n_rows = result
     if st_idx is not None:
-        characteristics = _attach_streams(src, table, st_idx, characteristics, notes,
-                                          given=stream_column is not None)
+        characteristics = _attach_streams(
+            src, table, st_idx, characteristics, notes, given=stream_column is not None
+        )
     check_summary_rows(src, characteristics, header, sg_idx, t_idx)
     if src.kind == "xlsx" and layout == "wide":
         # the first empty cell of each value column is where an unsaved formula would show
@@ -416,12 +496,19 @@ def _read_table(src, table, notes, warnings_, *, layout, subgroup_column, subgro
         )
     subgroup_messages(characteristics, subgroup_source, notes, warnings_)
     return Measurements(
-        source=src.name, sha256=src.sha256, layout=layout, subgroup_source=subgroup_source,
-        characteristics=tuple(characteristics), warnings=tuple(warnings_), notes=tuple(notes),
+        source=src.name,
+        sha256=src.sha256,
+        layout=layout,
+        subgroup_source=subgroup_source,
+        characteristics=tuple(characteristics),
+        warnings=tuple(warnings_),
+        notes=tuple(notes),
         subgroup_column=header[sg_idx] if sg_idx is not None else None,
-        subgroup_size=subgroup_size, sheet=table.sheet,
+        subgroup_size=subgroup_size,
+        sheet=table.sheet,
         encoding=src.encoding_label if src.kind == "csv" else None,
-        separator=table.separator, decimal=table.decimal if src.kind == "csv" else None,
+        separator=table.separator,
+        decimal=table.decimal if src.kind == "csv" else None,
         n_rows=n_rows,
     )
 
@@ -452,12 +539,16 @@ def _attach_streams(src, table, j, characteristics, notes, *, given):
                 f"this row has a value of '{c.name}' but no stream label in column '{name}' "
                 f"(rows without a label: {fmt_rows(c.rows[bad])}). Fill in the stream of each "
                 "row, or rename the column if it does not name streams.",
-                file=src.name, row=int(c.rows[i]), column=name, value="",
+                file=src.name,
+                row=int(c.rows[i]),
+                column=name,
+                value="",
             )
         out.append(replace(c, streams=lab))
     k = len(dict.fromkeys(labels[labels != ""].tolist()))
-    notes.append(f"streams from column '{name}' ({'given' if given else 'detected'}): {k} "
-                 "stream(s)")
+    notes.append(
+        f"streams from column '{name}' ({'given' if given else 'detected'}): {k} stream(s)"
+    )
     return out
 
 
@@ -467,7 +558,8 @@ def _optional_role(header, role, given, names_set, what, find):
         if j in role:
             raise StudyInputError(
                 f"column '{header[j]}' is already used for {role[j]}s; give another column "
-                f"as `{what}_column`.", value=given,
+                f"as `{what}_column`.",
+                value=given,
             )
     else:
         j = _detect(header, names_set)

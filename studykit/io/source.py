@@ -31,7 +31,8 @@ def check_size(size: int, max_bytes: int | None, name: str) -> None:
             f"the file is {human_size(size)}, more than the limit of {human_size(max_bytes)}. "
             "Remove columns or rows that the study does not need, or split the file by "
             "characteristic, and load it again.",
-            file=name, value=size,
+            file=name,
+            value=size,
         )
 
 
@@ -142,7 +143,8 @@ def inspect(src: Source, encoding: str | None) -> None:
             raise DataFileError(
                 f"'{encoding}' is not a known text encoding. Use e.g. 'utf-8', 'cp1252' or "
                 "'utf-16', or leave the encoding out to have it detected.",
-                file=src.name, value=encoding,
+                file=src.name,
+                value=encoding,
             ) from None
         enc, label = encoding, encoding
         src.encoding_given = True
@@ -171,8 +173,11 @@ def inspect(src: Source, encoding: str | None) -> None:
     src.sample_truncated = len(head) < src.size
     bad = sum(1 for ch in text if (ord(ch) < 32 and ch not in "\t\r\n") or ch == "\ufffd")
     if text and (bad > max(2, 0.005 * len(text)) or "\x00" in text):
-        first = next(i for i, ch in enumerate(text)
-                     if (ord(ch) < 32 and ch not in "\t\r\n") or ch == "\ufffd")
+        first = next(
+            i
+            for i, ch in enumerate(text)
+            if (ord(ch) < 32 and ch not in "\t\r\n") or ch == "\ufffd"
+        )
         _raise_binary(src, first)
 
 
@@ -197,9 +202,9 @@ def _raise_binary(src: Source, offset) -> None:
 
 @dataclass
 class Table:
-    header: list            # header cell texts (stripped)
-    header_row: int         # spreadsheet row number of the header
-    open_chunks: Callable   # () -> iterator of (rows: int ndarray, columns: list of arrays)
+    header: list  # header cell texts (stripped)
+    header_row: int  # spreadsheet row number of the header
+    open_chunks: Callable  # () -> iterator of (rows: int ndarray, columns: list of arrays)
     separator: str | None = None
     decimal: str | None = None
     text_cells: bool = True  # every cell is a str (CSV); XLSX cells are python values

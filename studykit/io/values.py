@@ -112,15 +112,22 @@ class CharacteristicData:
             counts = np.bincount(codes, weights=(~missing).astype(float), minlength=len(uniq))
             put(self, "subgroup_labels", np.asarray(uniq).astype(str))
             put(self, "subgroup_counts", counts.astype(np.int64))
-        for key in ("values", "subgroups", "times", "notes", "rows", "subgroup_labels",
-                    "subgroup_counts", "streams"):
+        for key in (
+            "values",
+            "subgroups",
+            "times",
+            "notes",
+            "rows",
+            "subgroup_labels",
+            "subgroup_counts",
+            "streams",
+        ):
             put(self, key, _frozen_array(getattr(self, key)))
 
     @cached_property
     def subgroup_sizes(self) -> dict:
         """Subgroup label -> number of non-missing values, in order of first appearance."""
-        return dict(zip(self.subgroup_labels.tolist(), self.subgroup_counts.tolist(),
-                        strict=True))
+        return dict(zip(self.subgroup_labels.tolist(), self.subgroup_counts.tolist(), strict=True))
 
     @property
     def n(self) -> int:
@@ -157,7 +164,9 @@ class CharacteristicData:
                 f"{min_subgroups} are needed for a subgrouped analysis. Add a subgroup column "
                 "that groups the parts (e.g. one subgroup per production hour), give a subgroup "
                 "size, or analyse the values as individuals.",
-                file=source, column=self.name, value=filled,
+                file=source,
+                column=self.name,
+                value=filled,
             )
 
     def summary(self) -> dict:
@@ -173,8 +182,9 @@ class CharacteristicData:
             "n_subgroups": self.n_subgroups,
             "subgroup_size_min": int(sizes[0]) if sizes.size else None,
             "subgroup_size_max": int(sizes[-1]) if sizes.size else None,
-            "subgroup_size_counts": {str(s): int(k) for s, k in zip(sizes.tolist(),
-                                                                     counts.tolist(), strict=True)},
+            "subgroup_size_counts": {
+                str(s): int(k) for s, k in zip(sizes.tolist(), counts.tolist(), strict=True)
+            },
             "min": _json_float(valid.min()) if valid.size else None,
             "max": _json_float(valid.max()) if valid.size else None,
             "mean": _json_float(valid.mean()) if valid.size else None,
@@ -267,7 +277,8 @@ class Measurements:
             f"there is no characteristic named '{name}'. The file has: "
             + ", ".join(f"'{n}'" for n in self.names)
             + ". Use one of these names exactly as written.",
-            file=self.source, value=name,
+            file=self.source,
+            value=name,
         )
 
     def check_subgroups(self, *, min_subgroups: int = 2, name: str | None = None) -> None:
@@ -299,7 +310,9 @@ class Measurements:
                 )
             )
         if not parts:
-            return pd.DataFrame(columns=["characteristic", "subgroup", "value", "time", "note", "row"])
+            return pd.DataFrame(
+                columns=["characteristic", "subgroup", "value", "time", "note", "row"]
+            )
         return pd.concat(parts, ignore_index=True)
 
     def summary(self) -> dict:

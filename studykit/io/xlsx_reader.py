@@ -45,11 +45,13 @@ def _check_xlsx_package(src: Source) -> None:
             f"the workbook package holds {len(infos)} parts, more than the {XLSX_MAX_MEMBERS} "
             "a spreadsheet has; it is not read. Export the measurements as CSV, or save them "
             "in a new workbook.",
-            file=src.name, value=len(infos),
+            file=src.name,
+            value=len(infos),
         )
     for info in infos:
-        if (info.file_size > _XLSX_RATIO_FROM
-                and info.file_size > XLSX_MAX_RATIO * max(info.compress_size, 1)):
+        if info.file_size > _XLSX_RATIO_FROM and info.file_size > XLSX_MAX_RATIO * max(
+            info.compress_size, 1
+        ):
             ratio = info.file_size / max(info.compress_size, 1)
             raise DataFileError(
                 f"part '{show(info.filename)}' of the workbook unpacks from "
@@ -58,7 +60,8 @@ def _check_xlsx_package(src: Source) -> None:
                 f"is {XLSX_MAX_RATIO}). A file packed this tightly is built to exhaust memory "
                 "(a 'zip bomb') and is not read. If it is a genuine export, save the "
                 "measurements as CSV and load that file.",
-                file=src.name, value=info.filename,
+                file=src.name,
+                value=info.filename,
             )
     total = sum(i.file_size for i in infos)
     if total > XLSX_MAX_UNPACKED:
@@ -66,7 +69,8 @@ def _check_xlsx_package(src: Source) -> None:
             f"the workbook unpacks to {human_size(total)}, more than the limit of "
             f"{human_size(XLSX_MAX_UNPACKED)}. Save the measurements as CSV (read in pieces, "
             "without this limit), or split the workbook.",
-            file=src.name, value=total,
+            file=src.name,
+            value=total,
         )
 
 
@@ -109,7 +113,8 @@ def _xlsx_failure(src: Source, exc: BaseException, *, sheet=None, row=None) -> D
         f"the workbook is damaged and cannot be read{where}: {_xlsx_reason(exc)}. Open it in "
         "the spreadsheet program and save it again as .xlsx (or export the measurements as "
         "CSV), then load that file.",
-        file=src.name, sheet=sheet,
+        file=src.name,
+        sheet=sheet,
     )
 
 
@@ -148,7 +153,8 @@ def _open_xlsx_inner(src: Source, sheet: str | None, notes: list) -> Table:
         if len(names) > 1:
             notes.append(
                 f"read sheet '{sheet_name}', the first of {len(names)} sheets ("
-                + ", ".join(f"'{n}'" for n in names) + "); choose another with `sheet`."
+                + ", ".join(f"'{n}'" for n in names)
+                + "); choose another with `sheet`."
             )
     else:
         matches = [n for n in names if n == sheet] or [
@@ -158,8 +164,10 @@ def _open_xlsx_inner(src: Source, sheet: str | None, notes: list) -> Table:
             wb.close()
             raise DataFileError(
                 f"the workbook has no sheet named '{sheet}'. Its sheets are: "
-                + ", ".join(f"'{n}'" for n in names) + ". Give one of these names.",
-                file=src.name, value=sheet,
+                + ", ".join(f"'{n}'" for n in names)
+                + ". Give one of these names.",
+                file=src.name,
+                value=sheet,
             )
         sheet_name = matches[0]
     ws = wb[sheet_name]
@@ -179,7 +187,8 @@ def _open_xlsx_inner(src: Source, sheet: str | None, notes: list) -> Table:
         raise DataFileError(
             f"sheet '{sheet_name}' is empty. Put the column names in the first row and the "
             "measurements below them, or choose the sheet that holds them.",
-            file=src.name, value=sheet_name,
+            file=src.name,
+            value=sheet_name,
         )
     while header and header[-1] == "":
         header.pop()
@@ -212,7 +221,7 @@ def _xlsx_header(ws):
 
 def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) -> Table:
     fill: dict[int, list] = {}
-    for (r1, c1, r2, c2) in merged:
+    for r1, c1, r2, c2 in merged:
         if r1 <= header_row <= r2 and (c1 != c2 or r1 != r2):
             span = f"{col_letter(c1 - 1)}{r1}:{col_letter(c2 - 1)}{r2}"
             wb.close()
@@ -220,7 +229,9 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
                 f"the header cells {span} are merged. Every column needs its own name in the "
                 "header row: unmerge these cells and write a name into each column (for example "
                 "'Diameter 1', 'Diameter 2'), or put the header in a single row.",
-                file=src.name, row=header_row, column=header[c1 - 1] if c1 - 1 < len(header) else None,
+                file=src.name,
+                row=header_row,
+                column=header[c1 - 1] if c1 - 1 < len(header) else None,
                 value=span,
             )
         if r1 > header_row and c1 == c2:
@@ -261,7 +272,10 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
                             f"there is a value ('{show(v)}') in column "
                             f"{col_letter(j)}, which has no name in the header row. "
                             "Give the column a name in the header or delete the value.",
-                            file=src.name, row=r, column=col_letter(j), value=v,
+                            file=src.name,
+                            row=r,
+                            column=col_letter(j),
+                            value=v,
                         )
             if len(rows_buf) >= _XLSX_CHUNK_ROWS:
                 yield _xlsx_chunk(rows_buf, cols_buf)
@@ -270,9 +284,16 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
         if rows_buf:
             yield _xlsx_chunk(rows_buf, cols_buf)
 
-    return Table(header=header, header_row=header_row, open_chunks=chunks, text_cells=False,
-                  merged_fill=fill, sheet=sheet_name, close=wb.close,
-                  title_rows=(first_row, header_row - 1) if header_row > first_row else None)
+    return Table(
+        header=header,
+        header_row=header_row,
+        open_chunks=chunks,
+        text_cells=False,
+        merged_fill=fill,
+        sheet=sheet_name,
+        close=wb.close,
+        title_rows=(first_row, header_row - 1) if header_row > first_row else None,
+    )
 
 
 def _xlsx_chunk(rows_buf, cols_buf):
@@ -309,8 +330,9 @@ def _merged_ranges(wb, ws) -> list[tuple[int, int, int, int]]:
     return sorted(set(out))
 
 
-def check_unsaved_formulas(src, table, targets: dict[int, int] | None = None, *,
-                            damage_known: bool = False) -> None:
+def check_unsaved_formulas(
+    src, table, targets: dict[int, int] | None = None, *, damage_known: bool = False
+) -> None:
     """See :func:`_check_unsaved_formulas_inner`. A workbook the parser fails on is reported
     as damaged, unless ``damage_known`` (the first reading already failed with a message
     that says where: that message stands)."""
@@ -358,7 +380,9 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
                             "so the value is unknown. Open the workbook in a spreadsheet "
                             "program, let it calculate, save it, and load it again (or paste "
                             "the values).",
-                            file=src.name, row=r, column=table.header[j] or col_letter(j),
+                            file=src.name,
+                            row=r,
+                            column=table.header[j] or col_letter(j),
                             value=f,
                         )
         finally:
@@ -378,9 +402,11 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
         ws, ws_values = wb[table.sheet], wb_values[table.sheet]
         width = len(table.header)
         start = table.header_row + 1
-        pairs = zip(ws.iter_rows(min_row=start, max_col=width, values_only=True),
-                    ws_values.iter_rows(min_row=start, max_col=width, values_only=True),
-                    strict=False)
+        pairs = zip(
+            ws.iter_rows(min_row=start, max_col=width, values_only=True),
+            ws_values.iter_rows(min_row=start, max_col=width, values_only=True),
+            strict=False,
+        )
         for r, (formulas, values) in enumerate(pairs, start=start):
             for j, f in enumerate(formulas or ()):
                 v = values[j] if values is not None and j < len(values) else None
@@ -390,7 +416,10 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
                         "workbook was saved by a program that does not calculate formulas, so "
                         "the value is unknown. Open the workbook in a spreadsheet program, let "
                         "it calculate, save it, and load it again (or paste the values).",
-                        file=src.name, row=r, column=table.header[j] or col_letter(j), value=f,
+                        file=src.name,
+                        row=r,
+                        column=table.header[j] or col_letter(j),
+                        value=f,
                     )
     finally:
         wb.close()

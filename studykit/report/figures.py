@@ -43,9 +43,15 @@ __all__ = [
 ]
 
 _DISPERSION_NAMES = {"xbar_r": "Range", "xbar_s": "Std. deviation", "imr": "Moving range"}
-_LOCATION_NAMES = {"xbar_r": "Subgroup mean", "xbar_s": "Subgroup mean", "imr": "Individual value",
-                   "p": "Proportion defective", "np": "Number defective", "c": "Defects",
-                   "u": "Defects per unit"}
+_LOCATION_NAMES = {
+    "xbar_r": "Subgroup mean",
+    "xbar_s": "Subgroup mean",
+    "imr": "Individual value",
+    "p": "Proportion defective",
+    "np": "Number defective",
+    "c": "Defects",
+    "u": "Defects per unit",
+}
 
 
 def figure_png(fig: Figure, *, dpi: int = 200) -> bytes:
@@ -67,17 +73,25 @@ def figure_image(fig: Figure, *, dpi: int = 150):
         canvas = FigureCanvasAgg(fig)
         canvas.draw()
         rgba = canvas.buffer_rgba()
-        img = Image.frombuffer("RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw",
-                               "RGBA", 0, 1)
+        img = Image.frombuffer(
+            "RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw", "RGBA", 0, 1
+        )
         return img.convert("RGB")
 
 
-def set_margins(fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75,
-             wspace=0.8) -> None:
+def set_margins(
+    fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75, wspace=0.8
+) -> None:
     """Fixed margins in inches (constrained layout costs half the drawing time)."""
     w, h = fig.get_size_inches()
-    fig.subplots_adjust(left=left / w, right=1 - right / w, top=1 - top / h, bottom=bottom / h,
-                        hspace=hspace / (h / max(1, len(fig.axes))), wspace=wspace)
+    fig.subplots_adjust(
+        left=left / w,
+        right=1 - right / w,
+        top=1 - top / h,
+        bottom=bottom / h,
+        hspace=hspace / (h / max(1, len(fig.axes))),
+        wspace=wspace,
+    )
 
 
 def tidy_axes(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
@@ -102,9 +116,17 @@ def hline(ax, y, role, text, x_end):
     kw["linewidth"] = kw["linewidth"] * 0.8
     kw.pop("label")
     ax.axhline(float(y), **kw)
-    ax.annotate(f"{text} {float(y):.5g}", xy=(1.0, float(y)), xycoords=("axes fraction", "data"),
-                xytext=(3, 0), textcoords="offset points", va="center", ha="left", fontsize=7.5,
-                color=kw["color"])
+    ax.annotate(
+        f"{text} {float(y):.5g}",
+        xy=(1.0, float(y)),
+        xycoords=("axes fraction", "data"),
+        xytext=(3, 0),
+        textcoords="offset points",
+        va="center",
+        ha="left",
+        fontsize=7.5,
+        color=kw["color"],
+    )
 
 
 def _step(ax, x, y, role):
@@ -151,9 +173,15 @@ def _series_panel(ax, series, x, removed_x, removed_y, title, ylabel, labels):
                 if s.number not in numbers[int(p)]:
                     numbers[int(p)].append(s.number)
         for p, nums in numbers.items():
-            ax.annotate(",".join(str(n) for n in sorted(nums)), xy=(x[p], pts[p]),
-                        xytext=(0, 7), textcoords="offset points", ha="center", fontsize=7,
-                        color=theme.OKABE_ITO["vermillion"])
+            ax.annotate(
+                ",".join(str(n) for n in sorted(nums)),
+                xy=(x[p], pts[p]),
+                xytext=(0, 7),
+                textcoords="offset points",
+                ha="center",
+                fontsize=7,
+                color=theme.OKABE_ITO["vermillion"],
+            )
     if len(removed_x):
         ek = theme.mpl_marker_kwargs("excluded")
         ek["label"] = "Removed subgroup (see log)"
@@ -207,9 +235,16 @@ def _kept_rings(ax, series, x, labels, result) -> None:
     pts = np.asarray(series.points, dtype=float)
     idx = [i for i, lab in enumerate(labels) if lab in kept and i in at and i < len(pts)]
     if idx:
-        ax.scatter([x[i] for i in idx], pts[idx], s=150, facecolors="none",
-                   edgecolors=theme.OKABE_ITO["bluish_green"], linewidths=1.6, zorder=6,
-                   label="Signal kept (reason on file)")
+        ax.scatter(
+            [x[i] for i in idx],
+            pts[idx],
+            s=150,
+            facecolors="none",
+            edgecolors=theme.OKABE_ITO["bluish_green"],
+            linewidths=1.6,
+            zorder=6,
+            label="Signal kept (reason on file)",
+        )
 
 
 def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
@@ -246,20 +281,36 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             unit = f"\n({result.chart_scale_axis})"
         rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
         ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
-        _series_panel(axes[0], chart.location, x, rx, ry,
-                      f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({names.chart_kind_label(kind)})",
-                      _LOCATION_NAMES.get(kind, "Value") + unit, used)
+        _series_panel(
+            axes[0],
+            chart.location,
+            x,
+            rx,
+            ry,
+            f"{_LOCATION_NAMES.get(kind, 'Value')} chart ({names.chart_kind_label(kind)})",
+            _LOCATION_NAMES.get(kind, "Value") + unit,
+            used,
+        )
         _kept_rings(axes[0], chart.location, x, used, result)
         if panels == 2:
-            dx = x[-len(chart.dispersion.points):]
-            drx = [all_labels.index(lab) + 1 for lab in removed if lab in disp_r
-                   and lab in all_labels]
+            dx = x[-len(chart.dispersion.points) :]
+            drx = [
+                all_labels.index(lab) + 1 for lab in removed if lab in disp_r and lab in all_labels
+            ]
             dry = [disp_r[lab] for lab in removed if lab in disp_r and lab in all_labels]
-            _series_panel(axes[1], chart.dispersion, dx, drx, dry,
-                          f"{_DISPERSION_NAMES.get(kind, 'Dispersion')} chart",
-                          _DISPERSION_NAMES.get(kind, "Dispersion") + unit, used)
-            _kept_rings(axes[1], chart.dispersion, dx, used[-len(chart.dispersion.points):],
-                        result)
+            _series_panel(
+                axes[1],
+                chart.dispersion,
+                dx,
+                drx,
+                dry,
+                f"{_DISPERSION_NAMES.get(kind, 'Dispersion')} chart",
+                _DISPERSION_NAMES.get(kind, "Dispersion") + unit,
+                used,
+            )
+            _kept_rings(
+                axes[1], chart.dispersion, dx, used[-len(chart.dispersion.points) :], result
+            )
         n = len(all_labels)
         longest = max((len(lab) for lab in all_labels), default=1)
         step = max(1, int(math.ceil(n / 25)), int(math.ceil(n * (longest + 1.5) / 110)))
@@ -273,14 +324,24 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         for ax in axes:
             for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
                 handles.setdefault(lab, h)
-        fig.legend(list(handles.values()), list(handles), loc="lower center", ncol=3,
-                   fontsize=7.5, bbox_to_anchor=(0.5, 0.0), columnspacing=1.5)
+        fig.legend(
+            list(handles.values()),
+            list(handles),
+            loc="lower center",
+            ncol=3,
+            fontsize=7.5,
+            bbox_to_anchor=(0.5, 0.0),
+            columnspacing=1.5,
+        )
     return fig
 
 
 def _spec_lines(ax, spec, vertical=True):
-    for key, role, text in (("lsl", "spec_limit", "LSL"), ("usl", "spec_limit", "USL"),
-                            ("target", "target", "Target")):
+    for key, role, text in (
+        ("lsl", "spec_limit", "LSL"),
+        ("usl", "spec_limit", "USL"),
+        ("target", "target", "Target"),
+    ):
         v = spec.get(key)
         if v is None:
             continue
@@ -289,9 +350,18 @@ def _spec_lines(ax, spec, vertical=True):
         kw["linewidth"] *= 0.8
         if vertical:
             ax.axvline(v, **kw)
-            ax.annotate(text, xy=(v, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -2),
-                        textcoords="offset points", ha="left", va="top", fontsize=7.5,
-                        color=kw["color"], rotation=90)
+            ax.annotate(
+                text,
+                xy=(v, 1.0),
+                xycoords=("data", "axes fraction"),
+                xytext=(2, -2),
+                textcoords="offset points",
+                ha="left",
+                va="top",
+                fontsize=7.5,
+                color=kw["color"],
+                rotation=90,
+            )
         else:
             ax.axhline(v, **kw)
 
@@ -336,8 +406,16 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
                 lo, hi = min(lo, v), max(hi, v)
         pad = 0.05 * (hi - lo or 1.0)
         bins = int(np.clip(np.ceil(np.sqrt(x.size)), 6, 30))
-        ax1.hist(x, bins=bins, density=True, color=theme.OKABE_ITO["blue"], alpha=0.35,
-                 edgecolor=theme.OKABE_ITO["blue"], linewidth=0.6, label="Values used")
+        ax1.hist(
+            x,
+            bins=bins,
+            density=True,
+            color=theme.OKABE_ITO["blue"],
+            alpha=0.35,
+            edgecolor=theme.OKABE_ITO["blue"],
+            linewidth=0.6,
+            label="Values used",
+        )
         grid = np.linspace(lo - pad, hi + pad, 400)
         dens, label = _model_pdf(result, grid)
         if dens is not None:
@@ -348,8 +426,14 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         ax1.set_xlim(lo - pad, hi + pad)
         unit = f" [{result.unit}]" if result.unit else ""
         tidy_axes(ax1, "Distribution of the values", "Density", result.characteristic + unit)
-        ax1.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
-                   edgecolor=theme.PAPER, framealpha=0.9)
+        ax1.legend(
+            loc="upper left",
+            fontsize=7.5,
+            frameon=True,
+            facecolor=theme.PAPER,
+            edgecolor=theme.PAPER,
+            framealpha=0.9,
+        )
         pp = result.probability_plot
         if pp is not None:
             z = np.asarray(pp.normal_scores, dtype=float)
@@ -363,21 +447,35 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
             kw["label"] = "Normal line"
             ax2.plot(line, z, **kw)
             if pp.band_lower is not None and pp.band_upper is not None:
-                ax2.fill_betweenx(z, np.asarray(pp.band_lower, dtype=float),
-                                  np.asarray(pp.band_upper, dtype=float),
-                                  color=theme.SKY_BLUE_LINE, alpha=0.15, linewidth=0,
-                                  label=f"{pp.level * 100:g}% band")
+                ax2.fill_betweenx(
+                    z,
+                    np.asarray(pp.band_lower, dtype=float),
+                    np.asarray(pp.band_upper, dtype=float),
+                    color=theme.SKY_BLUE_LINE,
+                    alpha=0.15,
+                    linewidth=0,
+                    label=f"{pp.level * 100:g}% band",
+                )
             probs = [0.001, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999]
             from scipy import stats
 
             zt = [stats.norm.ppf(p) for p in probs]
-            keep = [(t, p) for t, p in zip(zt, probs, strict=True) if z.min() - 0.5 <= t
-                    <= z.max() + 0.5]
+            keep = [
+                (t, p)
+                for t, p in zip(zt, probs, strict=True)
+                if z.min() - 0.5 <= t <= z.max() + 0.5
+            ]
             ax2.set_yticks([t for t, _ in keep])
             ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
             tidy_axes(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
-            ax2.legend(loc="upper left", fontsize=7.5, frameon=True, facecolor=theme.PAPER,
-                       edgecolor=theme.PAPER, framealpha=0.9)
+            ax2.legend(
+                loc="upper left",
+                fontsize=7.5,
+                frameon=True,
+                facecolor=theme.PAPER,
+                edgecolor=theme.PAPER,
+                framealpha=0.9,
+            )
         else:
             ax2.set_axis_off()
     return fig
@@ -405,31 +503,55 @@ def interval_figure(result, *, width: float = 7.0) -> Figure:
             judged = key == result.criteria.get("index")
             col = theme.OKABE_ITO["blue"] if not judged else theme.OKABE_ITO["black"]
             if b and b.get("lower") is not None and b.get("upper") is not None:
-                ax.plot([b["lower"], b["upper"]], [y, y], color=col, linewidth=2.2,
-                        solid_capstyle="butt")
+                ax.plot(
+                    [b["lower"], b["upper"]],
+                    [y, y],
+                    color=col,
+                    linewidth=2.2,
+                    solid_capstyle="butt",
+                )
             if b and b.get("lower_bound") is not None:
-                ax.plot([b["lower_bound"]], [y], marker="|", markersize=14, color=col,
-                        markeredgewidth=2.2)
+                ax.plot(
+                    [b["lower_bound"]],
+                    [y],
+                    marker="|",
+                    markersize=14,
+                    color=col,
+                    markeredgewidth=2.2,
+                )
             ax.plot([est], [y], marker="o", markersize=6, color=col)
         kw = theme.mpl_line_kwargs("spec_limit")
         kw.pop("label")
         ax.axvline(threshold, **kw)
-        ax.annotate(f"required {threshold:g}", xy=(threshold, 1.0),
-                    xycoords=("data", "axes fraction"), xytext=(3, -2),
-                    textcoords="offset points", va="top", fontsize=7.5, color=kw["color"])
+        ax.annotate(
+            f"required {threshold:g}",
+            xy=(threshold, 1.0),
+            xycoords=("data", "axes fraction"),
+            xytext=(3, -2),
+            textcoords="offset points",
+            va="top",
+            fontsize=7.5,
+            color=kw["color"],
+        )
         ax.set_yticks([len(rows) - i for i in range(len(rows))])
-        ax.set_yticklabels([(k.capitalize() + (" (judged)" if k == crit.get("index") else ""))
-                            for k, _, _ in rows])
+        ax.set_yticklabels(
+            [(k.capitalize() + (" (judged)" if k == crit.get("index") else "")) for k, _, _ in rows]
+        )
         ax.set_ylim(0.4, len(rows) + 0.6)
         level = getattr(cap, "level", 0.95) or 0.95
-        tidy_axes(ax, f"Estimate (dot), two-sided {level * 100:g}% interval (bar), "
-                  f"lower {level * 100:g}% bound (tick)", "")
+        tidy_axes(
+            ax,
+            f"Estimate (dot), two-sided {level * 100:g}% interval (bar), "
+            f"lower {level * 100:g}% bound (tick)",
+            "",
+        )
         ax.title.set_fontsize(9)
     return fig
 
 
-def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
-                      height: float = 6.6) -> Figure:
+def blank_form_figure(
+    plan, *, n_columns: int = 25, width: float = 10.4, height: float = 6.6
+) -> Figure:
     """A printable phase-II control-chart form: frozen limits drawn, empty plotting space.
 
     ``plan`` is a :class:`~studykit.stats.phase2.Phase2Plan`. Each column is one subgroup to be
@@ -437,17 +559,25 @@ def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
     """
     panels = [("location", plan.location_center, plan.location_lcl, plan.location_ucl)]
     if plan.dispersion_center is not None:
-        panels.append(("dispersion", plan.dispersion_center, plan.dispersion_lcl,
-                       plan.dispersion_ucl))
+        panels.append(
+            ("dispersion", plan.dispersion_center, plan.dispersion_lcl, plan.dispersion_ucl)
+        )
     kind = plan.kind
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, height), layout="constrained")
         axes = fig.subplots(len(panels), 1, squeeze=False)[:, 0]
         for ax, (part, cl, lcl, ucl) in zip(axes, panels, strict=True):
             if cl is None:
-                ax.text(0.5, 0.5, "Limits depend on each subgroup's size: compute them from the "
-                        "frozen centre with the plan file", ha="center", va="center",
-                        transform=ax.transAxes, fontsize=9)
+                ax.text(
+                    0.5,
+                    0.5,
+                    "Limits depend on each subgroup's size: compute them from the "
+                    "frozen centre with the plan file",
+                    ha="center",
+                    va="center",
+                    transform=ax.transAxes,
+                    fontsize=9,
+                )
                 ax.set_axis_off()
                 continue
             lo = lcl if lcl is not None else cl - (ucl - cl)
@@ -457,16 +587,22 @@ def blank_form_figure(plan, *, n_columns: int = 25, width: float = 10.4,
                 bottom = max(0.0, bottom) - 0.02 * span  # ranges and deviations are >= 0
             ax.set_ylim(bottom, (ucl if ucl is not None else cl) + 0.35 * span)
             ax.set_xlim(0.5, n_columns + 0.5)
-            for val, role, text in ((ucl, "control_limit", "UCL"), (cl, "centre_line", "CL"),
-                                    (lcl, "control_limit", "LCL")):
+            for val, role, text in (
+                (ucl, "control_limit", "UCL"),
+                (cl, "centre_line", "CL"),
+                (lcl, "control_limit", "LCL"),
+            ):
                 hline(ax, val, role, text, n_columns)
             ax.set_xticks(range(1, n_columns + 1))
             ax.tick_params(axis="x", labelsize=7)
             ax.grid(True, which="both", color=theme.RULE, linewidth=0.5)
             ax.minorticks_on()
             ax.grid(True, which="minor", axis="y", color=theme.RULE, linewidth=0.3)
-            name = (_LOCATION_NAMES.get(kind, "Value") if part == "location"
-                    else _DISPERSION_NAMES.get(kind, "Dispersion"))
+            name = (
+                _LOCATION_NAMES.get(kind, "Value")
+                if part == "location"
+                else _DISPERSION_NAMES.get(kind, "Dispersion")
+            )
             tidy_axes(ax, name, name + (f" [{plan.unit}]" if plan.unit else ""))
         axes[-1].set_xlabel("Subgroup number (write date and time in the table below)")
     return fig

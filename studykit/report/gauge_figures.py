@@ -73,17 +73,24 @@ LABELS = {
     "range_limit": "upper limit of a range",
     "above": "above the limit",
     # captions: the story in words
-    "cap_sources": ("The measurement takes {grr} of the study spread{tol}; the verdict is "
-                    "{status}."),
+    "cap_sources": (
+        "The measurement takes {grr} of the study spread{tol}; the verdict is {status}."
+    ),
     "cap_sources_tol": " and {tol} of the tolerance",
-    "cap_readings": ("{outside} of the part means lie outside the band the gauge's own noise "
-                     "would explain (the more, the better the gauge tells parts apart). "
-                     "Lines that cross show appraisers who rank parts differently "
-                     "(interaction p = {p})."),
-    "cap_repeat_ok": ("Every part's repeat readings stay within the limit: the gauge repeats "
-                      "evenly for every appraiser."),
-    "cap_repeat_bad": ("{n} part-and-appraiser cell(s) repeat worse than the limit ({cells}): "
-                       "look at those readings first."),
+    "cap_readings": (
+        "{outside} of the part means lie outside the band the gauge's own noise "
+        "would explain (the more, the better the gauge tells parts apart). "
+        "Lines that cross show appraisers who rank parts differently "
+        "(interaction p = {p})."
+    ),
+    "cap_repeat_ok": (
+        "Every part's repeat readings stay within the limit: the gauge repeats "
+        "evenly for every appraiser."
+    ),
+    "cap_repeat_bad": (
+        "{n} part-and-appraiser cell(s) repeat worse than the limit ({cells}): "
+        "look at those readings first."
+    ),
 }
 
 #: Source names in words (the order is the order of the rows, top to bottom).
@@ -96,19 +103,29 @@ SOURCE_LABELS = {
 
 #: Acceptance bands of the share of study spread (common practice, no source): upper edge, key of
 #: the theme verdict whose tint shades the band, words.
-BANDS = ((10.0, "pass", "below 10 %: acceptable"),
-         (30.0, "caution", "10 to 30 %: conditional"),
-         (None, "fail", "above 30 %: not acceptable"))
+BANDS = (
+    (10.0, "pass", "below 10 %: acceptable"),
+    (30.0, "caution", "10 to 30 %: conditional"),
+    (None, "fail", "above 30 %: not acceptable"),
+)
 
-_APPRAISER_COLOURS = [theme.OKABE_ITO["blue"], theme.ORANGE_LINE, theme.OKABE_ITO["bluish_green"],
-                      theme.OKABE_ITO["reddish_purple"], theme.SKY_BLUE_LINE,
-                      theme.OKABE_ITO["vermillion"], theme.OKABE_ITO["black"]]
+_APPRAISER_COLOURS = [
+    theme.OKABE_ITO["blue"],
+    theme.ORANGE_LINE,
+    theme.OKABE_ITO["bluish_green"],
+    theme.OKABE_ITO["reddish_purple"],
+    theme.SKY_BLUE_LINE,
+    theme.OKABE_ITO["vermillion"],
+    theme.OKABE_ITO["black"],
+]
 _APPRAISER_MARKERS = ["o", "s", "D", "^", "v", "P", "X", "*"]
 
 
 def _appraiser_style(j: int) -> dict:
-    return {"color": _APPRAISER_COLOURS[j % len(_APPRAISER_COLOURS)],
-            "marker": _APPRAISER_MARKERS[j % len(_APPRAISER_MARKERS)]}
+    return {
+        "color": _APPRAISER_COLOURS[j % len(_APPRAISER_COLOURS)],
+        "marker": _APPRAISER_MARKERS[j % len(_APPRAISER_MARKERS)],
+    }
 
 
 def _styled(build):
@@ -148,8 +165,7 @@ def _dodge(n: int) -> np.ndarray:
 def _legend_below(ax) -> None:
     """The legend in rows under the axes (the plot keeps the full width on paper and screen)."""
     n = len(ax.get_legend_handles_labels()[0])
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncols=min(4, max(1, n)),
-              fontsize=7.5)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncols=min(4, max(1, n)), fontsize=7.5)
 
 
 def _pct(v) -> str:
@@ -183,7 +199,8 @@ def result_from_payload(payload: Mapping) -> GaugeResult:
         raise StudyInputError(
             f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
             "numbers are shown, but the figures need the readings: run the study again from "
-            "its data file to attach a complete result") from None
+            "its data file to attach a complete result"
+        ) from None
 
 
 def _natural(label):
@@ -207,8 +224,9 @@ def sources_figure(result: GaugeResult, *, ax=None) -> Figure:
     fig, ax = _axes(ax, size=(6.6, 3.0))
     names = list(SOURCE_LABELS)
     shares = [result.component(n).pct_study_variation or 0.0 for n in names]
-    tol = ([result.component(n).pct_tolerance for n in names]
-           if result.tolerance is not None else None)
+    tol = (
+        [result.component(n).pct_tolerance for n in names] if result.tolerance is not None else None
+    )
     top = max(105.0, 1.15 * max([*shares, *[t or 0.0 for t in tol or []]]))
     from matplotlib.patches import Patch
 
@@ -217,31 +235,59 @@ def sources_figure(result: GaugeResult, *, ax=None) -> Figure:
     for edge, key, words in BANDS:
         hi = top if edge is None else edge
         ax.axvspan(lo, hi, color=theme.VERDICTS[key].background, zorder=0, linewidth=0)
-        handles.append(Patch(facecolor=theme.VERDICTS[key].background,
-                             edgecolor=theme.VERDICTS[key].color, linewidth=0.8, label=words))
+        handles.append(
+            Patch(
+                facecolor=theme.VERDICTS[key].background,
+                edgecolor=theme.VERDICTS[key].color,
+                linewidth=0.8,
+                label=words,
+            )
+        )
         lo = hi
     y = np.arange(len(names))[::-1].astype(float)
     measurement = theme.OKABE_ITO["blue"]
     colours = [measurement, measurement, measurement, theme.INK_SOFT]
     ax.barh(y, shares, height=0.55, color=colours, edgecolor=theme.PAPER, zorder=2)
-    ends = list(shares) if tol is None else [max(s, t or 0.0) for s, t in zip(shares, tol,
-                                                                             strict=True)]
+    ends = (
+        list(shares)
+        if tol is None
+        else [max(s, t or 0.0) for s, t in zip(shares, tol, strict=True)]
+    )
     for yi, s, end in zip(y, shares, ends, strict=True):
-        ax.text(end + 0.012 * top + (1.2 if end > s else 0.0), yi, _pct(s), va="center",
-                ha="left", fontsize=8.5, color=theme.INK, zorder=4)
+        ax.text(
+            end + 0.012 * top + (1.2 if end > s else 0.0),
+            yi,
+            _pct(s),
+            va="center",
+            ha="left",
+            fontsize=8.5,
+            color=theme.INK,
+            zorder=4,
+        )
     if tol is not None:
         ty = [yi for yi, t in zip(y, tol, strict=True) if t is not None]
         tx = [t for t in tol if t is not None]
-        handles.append(ax.scatter(tx, ty, marker="D", s=36, facecolors="none",
-                                  edgecolors=theme.INK, linewidths=1.2, zorder=5,
-                                  label=LABELS["tolerance_mark"]))
+        handles.append(
+            ax.scatter(
+                tx,
+                ty,
+                marker="D",
+                s=36,
+                facecolors="none",
+                edgecolors=theme.INK,
+                linewidths=1.2,
+                zorder=5,
+                label=LABELS["tolerance_mark"],
+            )
+        )
     ax.set_yticks(y, [SOURCE_LABELS[n] for n in names])
     ax.set_xlim(0, top)
     ax.set_ylim(-0.5, len(names) - 0.5)
     ax.grid(True, axis="x", color=theme.RULE, linewidth=0.6)
     ax.grid(False, axis="y")
-    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.4, -0.2), ncols=2,
-              fontsize=7.5)
+    ax.legend(
+        handles=handles, loc="upper center", bbox_to_anchor=(0.4, -0.2), ncols=2, fontsize=7.5
+    )
     _finish(ax, LABELS["sources"], f"{LABELS['share_axis']} · {LABELS['bands_note']}", "")
     return fig
 
@@ -261,19 +307,41 @@ def readings_figure(result: GaugeResult, *, ax=None) -> Figure:
     cube = result.values
     p, o, r = cube.shape
     ch = result.charts
-    ax.axhspan(ch.mean_lcl, ch.mean_ucl, color=theme.OKABE_ITO["sky_blue"], alpha=0.25,
-               linewidth=0, zorder=0, label=LABELS["noise_band"])
+    ax.axhspan(
+        ch.mean_lcl,
+        ch.mean_ucl,
+        color=theme.OKABE_ITO["sky_blue"],
+        alpha=0.25,
+        linewidth=0,
+        zorder=0,
+        label=LABELS["noise_band"],
+    )
     ax.axhline(ch.mean_centre, color=theme.INK_SOFT, linewidth=0.8, zorder=1)
     offsets = _dodge(o)
     for j in range(o):
         st = _appraiser_style(j)
         xs = np.arange(p) + offsets[j]
-        ax.scatter(np.repeat(xs, r), cube[:, j, :].ravel(), color=st["color"],
-                   marker=st["marker"], s=16, alpha=0.75, edgecolors=theme.PAPER,
-                   linewidths=0.3, zorder=3)
-        ax.plot(xs, np.nanmean(cube[:, j, :], axis=1), color=st["color"], marker=st["marker"],
-                markersize=4.5, linewidth=1.3, zorder=4,
-                label=LABELS["appraiser"].format(label=result.appraiser_labels[j]))
+        ax.scatter(
+            np.repeat(xs, r),
+            cube[:, j, :].ravel(),
+            color=st["color"],
+            marker=st["marker"],
+            s=16,
+            alpha=0.75,
+            edgecolors=theme.PAPER,
+            linewidths=0.3,
+            zorder=3,
+        )
+        ax.plot(
+            xs,
+            np.nanmean(cube[:, j, :], axis=1),
+            color=st["color"],
+            marker=st["marker"],
+            markersize=4.5,
+            linewidth=1.3,
+            zorder=4,
+            label=LABELS["appraiser"].format(label=result.appraiser_labels[j]),
+        )
     ax.set_xticks(np.arange(p), [str(x) for x in result.part_labels])
     ax.set_xlim(-0.6, p - 0.4)
     ax.grid(True, axis="y", color=theme.RULE, linewidth=0.6)
@@ -300,14 +368,27 @@ def repeatability_figure(result: GaugeResult, *, ax=None) -> Figure:
     offsets = _dodge(o)
     for j in range(o):
         st = _appraiser_style(j)
-        ax.scatter(np.arange(p) + offsets[j], ranges[:, j], color=st["color"],
-                   marker=st["marker"], s=26, edgecolors=theme.PAPER, linewidths=0.4,
-                   zorder=3, label=LABELS["appraiser"].format(label=result.appraiser_labels[j]))
+        ax.scatter(
+            np.arange(p) + offsets[j],
+            ranges[:, j],
+            color=st["color"],
+            marker=st["marker"],
+            s=26,
+            edgecolors=theme.PAPER,
+            linewidths=0.4,
+            zorder=3,
+            label=LABELS["appraiser"].format(label=result.appraiser_labels[j]),
+        )
     above = np.argwhere(ranges > ch.range_ucl * (1 + 1e-12))
     if above.size:
         sig = theme.mpl_marker_kwargs("signal")
-        sig.update(label=LABELS["above"], facecolors="none", edgecolors=sig.pop("color"),
-                   linewidths=1.5, s=sig["s"] * 1.8)
+        sig.update(
+            label=LABELS["above"],
+            facecolors="none",
+            edgecolors=sig.pop("color"),
+            linewidths=1.5,
+            s=sig["s"] * 1.8,
+        )
         ax.scatter(above[:, 0] + offsets[above[:, 1]], ranges[above[:, 0], above[:, 1]], **sig)
     kw = theme.mpl_line_kwargs("centre_line")
     kw.update(label=LABELS["mean_range"], linewidth=1.0)
@@ -330,8 +411,11 @@ def repeatability_figure(result: GaugeResult, *, ax=None) -> Figure:
 
 # --- the story -----------------------------------------------------------------------------------
 
-_BUILDERS = {"sources": sources_figure, "readings": readings_figure,
-             "repeatability": repeatability_figure}
+_BUILDERS = {
+    "sources": sources_figure,
+    "readings": readings_figure,
+    "repeatability": repeatability_figure,
+}
 
 
 def story(result: GaugeResult) -> list[tuple[str, str, str]]:
@@ -353,17 +437,23 @@ def story(result: GaugeResult) -> list[tuple[str, str, str]]:
     'sources'
     """
     v = result.verdict
-    tol = ("" if v.pct_grr_tolerance is None
-           else LABELS["cap_sources_tol"].format(tol=_pct(v.pct_grr_tolerance)))
-    cap_sources = LABELS["cap_sources"].format(grr=_pct(v.pct_grr_study_variation), tol=tol,
-                                               status=v.status)
+    tol = (
+        ""
+        if v.pct_grr_tolerance is None
+        else LABELS["cap_sources_tol"].format(tol=_pct(v.pct_grr_tolerance))
+    )
+    cap_sources = LABELS["cap_sources"].format(
+        grr=_pct(v.pct_grr_study_variation), tol=tol, status=v.status
+    )
     p_text = "–" if result.interaction_p is None else f"{result.interaction_p:.2g}"
     cap_readings = LABELS["cap_readings"].format(
-        outside=f"{result.charts.pct_means_outside:.0f} %", p=p_text)
+        outside=f"{result.charts.pct_means_outside:.0f} %", p=p_text
+    )
     cells = result.charts.ranges_above_ucl
     if cells:
-        listed = ", ".join(f"part {part}, {LABELS['appraiser'].format(label=appr)}"
-                           for part, appr in cells[:4]) + (", …" if len(cells) > 4 else "")
+        listed = ", ".join(
+            f"part {part}, {LABELS['appraiser'].format(label=appr)}" for part, appr in cells[:4]
+        ) + (", …" if len(cells) > 4 else "")
         cap_repeat = LABELS["cap_repeat_bad"].format(n=len(cells), cells=listed)
     else:
         cap_repeat = LABELS["cap_repeat_ok"]

@@ -20,8 +20,17 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-__all__ = ["LABELS", "COMPONENT_NAMES", "ANOVA_SOURCES", "component_headers", "anova_headers",
-           "component_name", "source_name", "anova_note", "show_full_anova"]
+__all__ = [
+    "LABELS",
+    "COMPONENT_NAMES",
+    "ANOVA_SOURCES",
+    "component_headers",
+    "anova_headers",
+    "component_name",
+    "source_name",
+    "anova_note",
+    "show_full_anova",
+]
 
 #: Every word of the gauge tables (headers, titles, sentences).
 LABELS = {
@@ -43,11 +52,15 @@ LABELS = {
     "anova_full_title": "Full model with the appraiser-by-part interaction (for reference)",
     "anova_full_toggle": "Show the full model (before pooling)",
     "not_tested": "The appraiser-by-part interaction could not be tested.",
-    "pooled": ("The appraiser-by-part interaction is not significant (p = {p} ≥ {alpha}): it was "
-               "pooled into the repeatability error, and the components come from the model "
-               "without it."),
-    "kept": ("The appraiser-by-part interaction is significant (p = {p} < {alpha}): it stays in "
-             "the model as its own source; this is the full model."),
+    "pooled": (
+        "The appraiser-by-part interaction is not significant (p = {p} ≥ {alpha}): it was "
+        "pooled into the repeatability error, and the components come from the model "
+        "without it."
+    ),
+    "kept": (
+        "The appraiser-by-part interaction is significant (p = {p} < {alpha}): it stays in "
+        "the model as its own source; this is the full model."
+    ),
 }
 
 #: Variance components in words (JSON ids stay as they are).
@@ -75,8 +88,14 @@ def component_headers(study_variation: float | None, *, tolerance: bool = True) 
     """Headers of the components table: source, variance, its share, spread, study spread and
     the two shares of spread."""
     k = 6.0 if study_variation is None else float(study_variation)
-    out = [LABELS["source"], LABELS["variance"], LABELS["share_variance"], LABELS["spread"],
-           LABELS["study_spread"].format(k=k), LABELS["share_study"]]
+    out = [
+        LABELS["source"],
+        LABELS["variance"],
+        LABELS["share_variance"],
+        LABELS["spread"],
+        LABELS["study_spread"].format(k=k),
+        LABELS["share_study"],
+    ]
     if tolerance:
         out.append(LABELS["share_tolerance"])
     return out

@@ -70,8 +70,13 @@ class HandoffInfo:
         return bool(self.draft)
 
     def to_dict(self) -> dict:
-        return {"path": self.path, "entries": list(self.entries), "plans": dict(self.plans),
-                "skipped": dict(self.skipped), "draft": dict(self.draft)}
+        return {
+            "path": self.path,
+            "entries": list(self.entries),
+            "plans": dict(self.plans),
+            "skipped": dict(self.skipped),
+            "draft": dict(self.draft),
+        }
 
 
 def handoff_readiness(study, results, errors) -> dict:
@@ -88,8 +93,9 @@ def handoff_readiness(study, results, errors) -> dict:
     for st in study.signoff_state():
         if st.valid and st.signoff.decision == "reject":
             so = st.signoff
-            reasons["study"] = (f"the study was rejected by {so.name} ({so.role}) on {so.when}"
-                                + (f": {so.comment}" if so.comment else ""))
+            reasons["study"] = f"the study was rejected by {so.name} ({so.role}) on {so.when}" + (
+                f": {so.comment}" if so.comment else ""
+            )
             break
     for name in study.characteristic_names:
         res = results.get(name)
@@ -99,18 +105,22 @@ def handoff_readiness(study, results, errors) -> dict:
         signals = res.open_signals  # signals kept with a recorded reason are decided
         if signals:
             rules = sorted({str(getattr(sg, "rule", "signal")) for sg in signals})
-            reasons[name] = (f"{len(signals)} open signal(s) on the control chart "
-                             f"({', '.join(rules)}): decide on them before freezing limits")
+            reasons[name] = (
+                f"{len(signals)} open signal(s) on the control chart "
+                f"({', '.join(rules)}): decide on them before freezing limits"
+            )
             continue
         if res.attribute and res.verdict is None:
             continue  # defects per unit (c, u): no capability criterion, the stable chart only
         v = res.verdict
         if v is None or v.meets is None:
-            reasons[name] = "no verdict" + (f" ({v.text})" if v is not None and
-                                            getattr(v, "text", "") else "")
+            reasons[name] = "no verdict" + (
+                f" ({v.text})" if v is not None and getattr(v, "text", "") else ""
+            )
         elif not v.meets:
             reasons[name] = "does not meet its criterion" + (
-                f" ({v.text})" if getattr(v, "text", "") else "")
+                f" ({v.text})" if getattr(v, "text", "") else ""
+            )
     return reasons
 
 
@@ -150,44 +160,66 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
     if draft:
         from studykit.report.pdf import framed_box
 
-        story.append(framed_box([Paragraph(f"<b>{DRAFT_NOTE.upper()}</b>: {escape_text(draft)}",
-                                     st["body"])], background="#FDECEA",
-                          border="#B3261E", width=width))
+        story.append(
+            framed_box(
+                [Paragraph(f"<b>{DRAFT_NOTE.upper()}</b>: {escape_text(draft)}", st["body"])],
+                background="#FDECEA",
+                border="#B3261E",
+                width=width,
+            )
+        )
         story.append(Spacer(1, 3))
     story += [
-        Paragraph(f"Control chart form - {escape_text(plan.characteristic)}"
-                  + (f" [{escape_text(plan.unit)}]" if plan.unit else ""), st["h1"]),
-        Paragraph(f"{escape_text(study_title)}{' - ' + escape_text(part) if part else ''}. Chart "
-                  f"{escape_text(names.chart_kind_label(plan.kind))}, subgroup size "
-                  f"{plan.subgroup_size or 'as in phase I'}; frozen centre {plan.center:.6g}"
-                  + (f", within sigma {plan.within_sigma:.4g}" if plan.within_sigma else "")
-                  + f". Rules: {escape_text(plan.rules)}. Limits frozen from "
-                  f"{plan.phase1_subgroups} subgroups (source {plan.source_digest[:12]}...).",
-                  st["small"]),
+        Paragraph(
+            f"Control chart form - {escape_text(plan.characteristic)}"
+            + (f" [{escape_text(plan.unit)}]" if plan.unit else ""),
+            st["h1"],
+        ),
+        Paragraph(
+            f"{escape_text(study_title)}{' - ' + escape_text(part) if part else ''}. Chart "
+            f"{escape_text(names.chart_kind_label(plan.kind))}, subgroup size "
+            f"{plan.subgroup_size or 'as in phase I'}; frozen centre {plan.center:.6g}"
+            + (f", within sigma {plan.within_sigma:.4g}" if plan.within_sigma else "")
+            + f". Rules: {escape_text(plan.rules)}. Limits frozen from "
+            f"{plan.phase1_subgroups} subgroups (source {plan.source_digest[:12]}...).",
+            st["small"],
+        ),
         Spacer(1, 3),
     ]
-    fig = figures.blank_form_figure(plan, n_columns=n_cols, width=11.0,
-                                    height=3.7 if draft else 4.3)
+    fig = figures.blank_form_figure(
+        plan, n_columns=n_cols, width=11.0, height=3.7 if draft else 4.3
+    )
     story.append(pdf_image(figures.figure_png(fig, dpi=150), width))
     rows = [["Subgroup"] + [str(i) for i in range(1, n_cols + 1)]]
     n_values = plan.subgroup_size if plan.subgroup_size and plan.subgroup_size <= 5 else 1
-    labels = ["Date", "Time", "Operator"] + [f"Value {i}" for i in range(1, n_values + 1)] \
-        + ["Remark"]
+    labels = (
+        ["Date", "Time", "Operator"] + [f"Value {i}" for i in range(1, n_values + 1)] + ["Remark"]
+    )
     for lab in labels:
         rows.append([lab] + [""] * n_cols)
     first = 22 * mm
     t = grid_table(rows, [first] + [(width - first) / n_cols] * n_cols, styles=st, zebra=False)
     from reportlab.lib import colors
 
-    t.setStyle([("GRID", (0, 0), (-1, -1), 0.3, colors.HexColor("#D0D7DE")),
-                ("FONTSIZE", (0, 0), (-1, -1), 6.5)])
+    t.setStyle(
+        [
+            ("GRID", (0, 0), (-1, -1), 0.3, colors.HexColor("#D0D7DE")),
+            ("FONTSIZE", (0, 0), (-1, -1), 6.5),
+        ]
+    )
     story.append(t)
     buf = io.BytesIO()
-    doc = SimpleDocTemplate(buf, pagesize=size, leftMargin=margin, rightMargin=margin,
-                            topMargin=margin, bottomMargin=margin, invariant=1,
-                            title=("DRAFT " if draft else "")
-                            + f"Control chart form - {plan.characteristic}",
-                            creator="studykit")
+    doc = SimpleDocTemplate(
+        buf,
+        pagesize=size,
+        leftMargin=margin,
+        rightMargin=margin,
+        topMargin=margin,
+        bottomMargin=margin,
+        invariant=1,
+        title=("DRAFT " if draft else "") + f"Control chart form - {plan.characteristic}",
+        creator="studykit",
+    )
 
     from reportlab.pdfgen.canvas import Canvas
 
@@ -209,9 +241,14 @@ def chart_form_pdf(plan, *, study_title: str = "", part: str = "", draft: str = 
     return buf.getvalue()
 
 
-def build_handoff(study_path, out_zip, *, report_pdf=None,
-                  progress: Callable[[int, int, str], None] | None = None,
-                  when_not_ready: str = "draft") -> HandoffInfo:
+def build_handoff(
+    study_path,
+    out_zip,
+    *,
+    report_pdf=None,
+    progress: Callable[[int, int, str], None] | None = None,
+    when_not_ready: str = "draft",
+) -> HandoffInfo:
     """Write the hand-off zip of a study file.
 
     Parameters
@@ -234,10 +271,10 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
     HandoffInfo
     """
     if when_not_ready not in ("draft", "refuse"):
-        raise StudyInputError(f"`when_not_ready` ({when_not_ready!r}) must be 'draft' or "
-                              "'refuse'")
+        raise StudyInputError(f"`when_not_ready` ({when_not_ready!r}) must be 'draft' or 'refuse'")
     from studykit.report.pdf import analyze_for_report, build_report
     from studykit.stats.phase2 import freeze
+
     spath = Path(study_path)
     if not spath.exists():
         raise StudyFileError(f"study file '{spath}' does not exist: check the path")
@@ -250,7 +287,8 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         listed = "; ".join(f"{k}: {v}" for k, v in draft.items())
         raise StudyInputError(
             f"no hand-off pack for series production: {listed}. Resolve these, or make a "
-            "pack stamped DRAFT (--handoff-draft)")
+            "pack stamped DRAFT (--handoff-draft)"
+        )
     out = Path(out_zip)
     if report_pdf is None:
         pdf_path = out.with_name(out.stem + ".report.pdf.part")
@@ -270,15 +308,26 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
     # the reproducible analysis notebook: opens study/<file> and compares with report.pdf
     from studykit.report.notebook import NOTEBOOK_FILENAME, analysis_notebook, notebook_bytes
 
-    entries.append((NOTEBOOK_FILENAME, notebook_bytes(analysis_notebook(
-        spath, study_ref=f"study/{spath.name}", pdf_ref="report.pdf"))))
+    entries.append(
+        (
+            NOTEBOOK_FILENAME,
+            notebook_bytes(
+                analysis_notebook(spath, study_ref=f"study/{spath.name}", pdf_ref="report.pdf")
+            ),
+        )
+    )
     if draft:
-        entries.append(("DRAFT-NOT-FOR-PRODUCTION.txt", (
-            f"{DRAFT_NOTE.upper()}\n\nThis hand-off pack was made although not every "
-            "characteristic is ready for series production. Do not use its limits or chart "
-            "forms in production until the reasons below are resolved and a new pack is "
-            "made.\n\n" + "\n".join(f"- {k}: {v}" for k, v in draft.items()) + "\n")
-            .encode("utf-8")))
+        entries.append(
+            (
+                "DRAFT-NOT-FOR-PRODUCTION.txt",
+                (
+                    f"{DRAFT_NOTE.upper()}\n\nThis hand-off pack was made although not every "
+                    "characteristic is ready for series production. Do not use its limits or chart "
+                    "forms in production until the reasons below are resolved and a new pack is "
+                    "made.\n\n" + "\n".join(f"- {k}: {v}" for k, v in draft.items()) + "\n"
+                ).encode("utf-8"),
+            )
+        )
     plans, skipped = {}, dict(errors)
     for name, res in results.items():
         try:
@@ -291,25 +340,36 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         stamp = ""
         if draft:
             others = [k for k in draft if k not in (name, "study")]
-            stamp = draft.get(name) or draft.get("study") or (
-                "this characteristic is ready, but the pack is a draft because "
-                + ", ".join(others[:4]) + (f" and {len(others) - 4} more" if len(others) > 4
-                                           else "")
-                + " are not (reasons in DRAFT-NOT-FOR-PRODUCTION.txt)")
+            stamp = (
+                draft.get(name)
+                or draft.get("study")
+                or (
+                    "this characteristic is ready, but the pack is a draft because "
+                    + ", ".join(others[:4])
+                    + (f" and {len(others) - 4} more" if len(others) > 4 else "")
+                    + " are not (reasons in DRAFT-NOT-FOR-PRODUCTION.txt)"
+                )
+            )
         plan_json = plan.to_json()
         plan_csv = plan.to_csv()
         if stamp:
-            plan_json = json.dumps(dict(json.loads(plan_json), status=f"{DRAFT_NOTE}: {stamp}"),
-                                   indent=2, sort_keys=True)
+            plan_json = json.dumps(
+                dict(json.loads(plan_json), status=f"{DRAFT_NOTE}: {stamp}"),
+                indent=2,
+                sort_keys=True,
+            )
             head, _, rest = plan_csv.partition("\n")
             cell = f"{DRAFT_NOTE}: {stamp}".replace('"', "'")
             plan_csv = f'{head}\nstatus,"{cell}"\n{rest}'
         entries.append((f"limits/{stem}.json", plan_json.encode("utf-8")))
         entries.append((f"limits/{stem}.csv", plan_csv.encode("utf-8")))
         if not res.attribute:
-            entries.append((f"forms/{stem}_chart_form.pdf",
-                            chart_form_pdf(plan, study_title=study.title, part=study.part,
-                                           draft=stamp)))
+            entries.append(
+                (
+                    f"forms/{stem}_chart_form.pdf",
+                    chart_form_pdf(plan, study_title=study.title, part=study.part, draft=stamp),
+                )
+            )
     manifest = {
         "format": "studykit-handoff/1",
         "study": study.title,
@@ -317,13 +377,16 @@ def build_handoff(study_path, out_zip, *, report_pdf=None,
         "draft_reasons": dict(draft),
         "content_digest": study.content_digest(),
         "data_sha256": study.data_sha256,
-        "data_files": [{"filename": n, "bytes": len(b), "sha256": hashlib.sha256(b).hexdigest()}
-                       for n, b in study.files],
+        "data_files": [
+            {"filename": n, "bytes": len(b), "sha256": hashlib.sha256(b).hexdigest()}
+            for n, b in study.files
+        ],
         "files": {n: hashlib.sha256(b).hexdigest() for n, b in entries},
         "skipped": skipped,
     }
-    entries.append(("MANIFEST.json", json.dumps(manifest, indent=2, sort_keys=True)
-                    .encode("utf-8")))
+    entries.append(
+        ("MANIFEST.json", json.dumps(manifest, indent=2, sort_keys=True).encode("utf-8"))
+    )
     tmp = out.with_name(out.name + ".part")
     with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_DEFLATED) as zf:
         for name, blob in entries:

@@ -52,18 +52,27 @@ LABELS = {
     "worse": "AIC higher by {d}: no better than without it",
     "helps": "improves the fit",
     "not_needed": "is not needed (the gain is within chance)",
-    "rule": ("Each family once, ranked by its better AIC (smaller is better); the threshold "
-             "variant is shown inside its family's row."),
-    "source": ("Families as in Meeker & Escobar, Statistical Methods for Reliability Data "
-               "(1998), ch. 4-5, and Johnson, Kotz & Balakrishnan, Continuous Univariate "
-               "Distributions vol. 1 (1994), ch. 13 (half-normal)."),
+    "rule": (
+        "Each family once, ranked by its better AIC (smaller is better); the threshold "
+        "variant is shown inside its family's row."
+    ),
+    "source": (
+        "Families as in Meeker & Escobar, Statistical Methods for Reliability Data "
+        "(1998), ch. 4-5, and Johnson, Kotz & Balakrishnan, Continuous Univariate "
+        "Distributions vol. 1 (1994), ch. 13 (half-normal)."
+    ),
 }
 #: The citation shown under the list (also in the module docstring).
 SOURCE = LABELS["source"]
 
 #: Threshold variant id -> its family (used when a row does not name it in ``lrt_against``).
-_BASE = {"lognormal3": "lognormal", "weibull3": "weibull", "gamma3": "gamma",
-         "exponential2": "exponential", "loglogistic3": "loglogistic"}
+_BASE = {
+    "lognormal3": "lognormal",
+    "weibull3": "weibull",
+    "gamma3": "gamma",
+    "exponential2": "exponential",
+    "loglogistic3": "loglogistic",
+}
 
 
 def base_of(model_id: str, lrt_against: str | None = None) -> str:
@@ -128,9 +137,11 @@ def threshold_effect(line: FamilyLine, fmt) -> str:
     if not _fitted(line.shifted):
         return LABELS["not_fitted"].format(why=line.shifted.error or line.shifted.note or "—")
     if not _fitted(line.plain):
-        return LABELS["not_fitted"].format(
-            why=(line.plain.error if line.plain is not None else None) or "—").replace(
-            "not fitted", "without threshold not fitted")
+        return (
+            LABELS["not_fitted"]
+            .format(why=(line.plain.error if line.plain is not None else None) or "—")
+            .replace("not fitted", "without threshold not fitted")
+        )
     d = line.plain.aic - line.shifted.aic
     if d <= 0:
         return LABELS["worse"].format(d=fmt(-d, 1))

@@ -31,8 +31,13 @@ def _md(text: str) -> dict:
 
 
 def _code(text: str) -> dict:
-    return {"cell_type": "code", "metadata": {}, "execution_count": None, "outputs": [],
-            "source": text.strip("\n")}
+    return {
+        "cell_type": "code",
+        "metadata": {},
+        "execution_count": None,
+        "outputs": [],
+        "source": text.strip("\n"),
+    }
 
 
 def _cells(study_ref: str, pdf_ref: str | None, title: str) -> list[dict]:
@@ -228,8 +233,14 @@ def _relative(target: Path, start: Path) -> str:
         return str(target.resolve())
 
 
-def analysis_notebook(study_path, *, notebook_dir=None, pdf_path=None,
-                      study_ref: str | None = None, pdf_ref: str | None = None) -> dict:
+def analysis_notebook(
+    study_path,
+    *,
+    notebook_dir=None,
+    pdf_path=None,
+    study_ref: str | None = None,
+    pdf_ref: str | None = None,
+) -> dict:
     """The notebook (nbformat 4, as a dict) that recomputes the report of ``study_path``.
 
     Parameters
@@ -266,15 +277,17 @@ def analysis_notebook(study_path, *, notebook_dir=None, pdf_path=None,
             "language_info": {"name": "python"},
             "studykit": {"version": __version__},
         },
-        "cells": [dict(c, id=f"step-{i:02d}") for i, c in enumerate(_cells(study_ref, pdf_ref,
-                                                                            title))],
+        "cells": [
+            dict(c, id=f"step-{i:02d}") for i, c in enumerate(_cells(study_ref, pdf_ref, title))
+        ],
     }
 
 
 def notebook_bytes(notebook: dict) -> bytes:
     """The notebook as the bytes of an ``.ipynb`` file (stable key order)."""
-    return (json.dumps(notebook, indent=1, sort_keys=True, ensure_ascii=False) + "\n"
-            ).encode("utf-8")
+    return (json.dumps(notebook, indent=1, sort_keys=True, ensure_ascii=False) + "\n").encode(
+        "utf-8"
+    )
 
 
 def write_notebook(study_path, out_path, *, pdf_path=None) -> Path:
@@ -289,6 +302,5 @@ def write_notebook(study_path, out_path, *, pdf_path=None) -> Path:
     try:
         out.write_bytes(notebook_bytes(nb))
     except OSError as exc:
-        raise StudyInputError(f"cannot write the notebook '{out}': {exc.strerror or exc}"
-                              ) from None
+        raise StudyInputError(f"cannot write the notebook '{out}': {exc.strerror or exc}") from None
     return out

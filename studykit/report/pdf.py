@@ -56,40 +56,62 @@ GAUGE_KIND = names.GAUGE_RR_KIND
 #: The methods used and their published sources (collected from the docstrings of
 #: studykit.stats); printed in the appendix.
 METHODS: tuple[tuple[str, str], ...] = (
-    ("Control charts (X-bar/R, X-bar/S, I-MR, p, np, c, u), phase I and phase II",
-     "D. C. Montgomery, Introduction to Statistical Quality Control, chapters 6-7; "
-     "NIST/SEMATECH e-Handbook of Statistical Methods, section 6.3."),
-    ("Control chart constants d2, d3, c4",
-     "Computed exactly by integration; checked against Montgomery, Introduction to "
-     "Statistical Quality Control, Appendix VI."),
-    ("Run rules (tests 1-8)",
-     "L. S. Nelson (1984), The Shewhart control chart - tests for special causes, J. Quality "
-     "Technology 16(4); Western Electric Statistical Quality Control Handbook (1956)."),
-    ("Overdispersed attribute charts (p', u')",
-     "D. B. Laney (2002), Improved control charts for attributes, Quality Engineering 14(4)."),
-    ("Normality: Anderson-Darling and Shapiro-Wilk tests, probability plot",
-     "R. B. D'Agostino & M. A. Stephens (1986), Goodness-of-Fit Techniques, chapter 4; "
-     "NIST/SEMATECH e-Handbook, sections 1.3.5.14 and 1.3.3.21."),
-    ("Box-Cox and Johnson transformations",
-     "G. E. P. Box & D. R. Cox (1964), J. Royal Statistical Society B 26; Y.-M. Chou, "
-     "A. M. Polansky & R. L. Mason (1998), Transforming non-normal data to normality in "
-     "statistical process control, J. Quality Technology 30(2)."),
-    ("Distribution fitting and ranking (maximum likelihood, AIC)",
-     "NIST/SEMATECH e-Handbook, section 1.3.6; K. P. Burnham & D. R. Anderson (2002), Model "
-     "Selection and Multimodel Inference."),
-    ("Capability indices Cp, Cpk, Pp, Ppk, Cpm; percentile method for non-normal models",
-     "ISO 22514-2:2017, Statistical methods in process management - capability and "
-     "performance - Part 2; Montgomery, chapter 8."),
-    ("Confidence bounds: chi-square (Cp, Pp), Bissell (Cpk, Ppk), Boyles (Cpm)",
-     "A. F. Bissell (1990), How reliable is your capability index?, Applied Statistics 39(3); "
-     "R. A. Boyles (1991), The Taguchi capability index, J. Quality Technology 23(1)."),
-    ("Gauge R&R by two-way ANOVA",
-     "D. C. Montgomery & G. C. Runger (1993), Gauge capability and designed experiments, "
-     "Part II, Quality Engineering 6(2); R. K. Burdick, C. M. Borror & D. C. Montgomery "
-     "(2005), Design and Analysis of Gauge R&R Studies; range method: P. B. Patnaik (1950), "
-     "Biometrika 37."),
-    ("Demonstration planning (parts needed for the bound to clear the requirement)",
-     "Inverts the bound formulas above (Bissell 1990; chi-square for Cp/Pp)."),
+    (
+        "Control charts (X-bar/R, X-bar/S, I-MR, p, np, c, u), phase I and phase II",
+        "D. C. Montgomery, Introduction to Statistical Quality Control, chapters 6-7; "
+        "NIST/SEMATECH e-Handbook of Statistical Methods, section 6.3.",
+    ),
+    (
+        "Control chart constants d2, d3, c4",
+        "Computed exactly by integration; checked against Montgomery, Introduction to "
+        "Statistical Quality Control, Appendix VI.",
+    ),
+    (
+        "Run rules (tests 1-8)",
+        "L. S. Nelson (1984), The Shewhart control chart - tests for special causes, J. Quality "
+        "Technology 16(4); Western Electric Statistical Quality Control Handbook (1956).",
+    ),
+    (
+        "Overdispersed attribute charts (p', u')",
+        "D. B. Laney (2002), Improved control charts for attributes, Quality Engineering 14(4).",
+    ),
+    (
+        "Normality: Anderson-Darling and Shapiro-Wilk tests, probability plot",
+        "R. B. D'Agostino & M. A. Stephens (1986), Goodness-of-Fit Techniques, chapter 4; "
+        "NIST/SEMATECH e-Handbook, sections 1.3.5.14 and 1.3.3.21.",
+    ),
+    (
+        "Box-Cox and Johnson transformations",
+        "G. E. P. Box & D. R. Cox (1964), J. Royal Statistical Society B 26; Y.-M. Chou, "
+        "A. M. Polansky & R. L. Mason (1998), Transforming non-normal data to normality in "
+        "statistical process control, J. Quality Technology 30(2).",
+    ),
+    (
+        "Distribution fitting and ranking (maximum likelihood, AIC)",
+        "NIST/SEMATECH e-Handbook, section 1.3.6; K. P. Burnham & D. R. Anderson (2002), Model "
+        "Selection and Multimodel Inference.",
+    ),
+    (
+        "Capability indices Cp, Cpk, Pp, Ppk, Cpm; percentile method for non-normal models",
+        "ISO 22514-2:2017, Statistical methods in process management - capability and "
+        "performance - Part 2; Montgomery, chapter 8.",
+    ),
+    (
+        "Confidence bounds: chi-square (Cp, Pp), Bissell (Cpk, Ppk), Boyles (Cpm)",
+        "A. F. Bissell (1990), How reliable is your capability index?, Applied Statistics 39(3); "
+        "R. A. Boyles (1991), The Taguchi capability index, J. Quality Technology 23(1).",
+    ),
+    (
+        "Gauge R&R by two-way ANOVA",
+        "D. C. Montgomery & G. C. Runger (1993), Gauge capability and designed experiments, "
+        "Part II, Quality Engineering 6(2); R. K. Burdick, C. M. Borror & D. C. Montgomery "
+        "(2005), Design and Analysis of Gauge R&R Studies; range method: P. B. Patnaik (1950), "
+        "Biometrika 37.",
+    ),
+    (
+        "Demonstration planning (parts needed for the bound to clear the requirement)",
+        "Inverts the bound formulas above (Bissell 1990; chi-square for Cp/Pp).",
+    ),
 )
 
 
@@ -184,15 +206,20 @@ def _load_with_chain(study_or_path):
         for r in sf.results(GAUGE_KIND):
             if r.characteristic in study.characteristics:
                 gauges[r.characteristic] = dict(r.payload)
-        return study, gauges, path, {"entries": chain.entries, "head": chain.head,
-                                     "rows": chain.rows}
+        return (
+            study,
+            gauges,
+            path,
+            {"entries": chain.entries, "head": chain.head, "rows": chain.rows},
+        )
     raise StudyInputError(
         f"`study` must be a Study or the path of a study file, got {type(study_or_path).__name__}"
     )
 
 
-def analyze_for_report(study, gauges: Mapping | None = None, *,
-                       progress: Callable[[int, int, str], None] | None = None):
+def analyze_for_report(
+    study, gauges: Mapping | None = None, *, progress: Callable[[int, int, str], None] | None = None
+):
     """Analyse every characteristic as the report does: (results, errors, measurements).
 
     Exactly :func:`studykit.analysis.analyze_all` (with the stored gauge results; ``gauges``
@@ -202,18 +229,24 @@ def analyze_for_report(study, gauges: Mapping | None = None, *,
     from studykit.analysis import analyze_all, read_study_measurements
 
     measurements = read_study_measurements(study)
-    res = analyze_all(study, measurements=measurements, progress=progress,
-                      gauges=None if gauges is None else dict(gauges))
+    res = analyze_all(
+        study,
+        measurements=measurements,
+        progress=progress,
+        gauges=None if gauges is None else dict(gauges),
+    )
     return res.results, res.errors, measurements
 
 
 def _canonical(obj) -> str:
-    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                      allow_nan=False)
+    return json.dumps(
+        obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
+    )
 
 
-def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping | None,
-                     chain: Mapping | None = None) -> dict:
+def collect_evidence(
+    study, results: Mapping, errors: Mapping, gauges: Mapping | None, chain: Mapping | None = None
+) -> dict:
     """The machine-readable evidence embedded in the PDF (JSON-safe).
 
     Holds the study content (specifications, criteria, every decision, comments, sign-offs) so
@@ -238,16 +271,20 @@ def collect_evidence(study, results: Mapping, errors: Mapping, gauges: Mapping |
             "decisions": [d.to_dict() for d in study.decisions],
             "signoffs": [s.to_dict() for s in study.signoff_state()],
             "comments": [c.to_dict() for c in study.comments],
-            "data_files": [{"filename": n, "bytes": len(b),
-                            "sha256": hashlib.sha256(b).hexdigest()} for n, b in study.files],
+            "data_files": [
+                {"filename": n, "bytes": len(b), "sha256": hashlib.sha256(b).hexdigest()}
+                for n, b in study.files
+            ],
             "chain": None if chain is None else dict(chain),
         },
         "gauges": None if gauges is None else {k: gauges[k] for k in sorted(gauges)},
         "results": {n: r.to_dict() for n, r in results.items()},
         "errors": dict(errors),
-        "tolerance": {"relative": RELATIVE_TOLERANCE,
-                      "note": "numbers are compared with this relative tolerance "
-                              "(absolute 1e-12 near zero) to allow for float printing"},
+        "tolerance": {
+            "relative": RELATIVE_TOLERANCE,
+            "note": "numbers are compared with this relative tolerance "
+            "(absolute 1e-12 near zero) to allow for float printing",
+        },
     }
 
 
@@ -349,8 +386,7 @@ def _register_fonts() -> tuple[str, str]:
         pdfmetrics.registerFont(TTFont("SKSans", str(d / "DejaVuSans.ttf")))
         pdfmetrics.registerFont(TTFont("SKSans-Bold", str(d / "DejaVuSans-Bold.ttf")))
         pdfmetrics.registerFont(TTFont("SKSans-Oblique", str(d / "DejaVuSans-Oblique.ttf")))
-        pdfmetrics.registerFont(TTFont("SKSans-BoldOblique",
-                                       str(d / "DejaVuSans-BoldOblique.ttf")))
+        pdfmetrics.registerFont(TTFont("SKSans-BoldOblique", str(d / "DejaVuSans-BoldOblique.ttf")))
         addMapping("SKSans", 0, 0, "SKSans")
         addMapping("SKSans", 1, 0, "SKSans-Bold")
         addMapping("SKSans", 0, 1, "SKSans-Oblique")
@@ -372,15 +408,25 @@ def report_styles():
         "small": ParagraphStyle("small", parent=base, fontSize=7.5, leading=9.5, textColor=soft),
         "cell": ParagraphStyle("cell", parent=base, fontSize=8, leading=10),
         "cellb": ParagraphStyle("cellb", parent=base, fontName=bold, fontSize=8, leading=10),
-        "title": ParagraphStyle("title", parent=base, fontName=bold, fontSize=22, leading=27,
-                                spaceAfter=6),
-        "subtitle": ParagraphStyle("subtitle", parent=base, fontSize=12, leading=16,
-                                   textColor=soft, spaceAfter=14),
-        "h1": ParagraphStyle("h1", parent=base, fontName=bold, fontSize=15, leading=19,
-                             spaceBefore=2, spaceAfter=8),
-        "h2": ParagraphStyle("h2", parent=base, fontName=bold, fontSize=11, leading=14,
-                             spaceBefore=10, spaceAfter=5,
-                             textColor=colors.HexColor(theme.OKABE_ITO["blue"])),
+        "title": ParagraphStyle(
+            "title", parent=base, fontName=bold, fontSize=22, leading=27, spaceAfter=6
+        ),
+        "subtitle": ParagraphStyle(
+            "subtitle", parent=base, fontSize=12, leading=16, textColor=soft, spaceAfter=14
+        ),
+        "h1": ParagraphStyle(
+            "h1", parent=base, fontName=bold, fontSize=15, leading=19, spaceBefore=2, spaceAfter=8
+        ),
+        "h2": ParagraphStyle(
+            "h2",
+            parent=base,
+            fontName=bold,
+            fontSize=11,
+            leading=14,
+            spaceBefore=10,
+            spaceAfter=5,
+            textColor=colors.HexColor(theme.OKABE_ITO["blue"]),
+        ),
         "bullet": ParagraphStyle("bullet", parent=base, leftIndent=12, bulletIndent=2),
         "mono": ParagraphStyle("mono", parent=base, fontName=regular, fontSize=7.5, leading=10),
     }
@@ -410,8 +456,10 @@ def grid_table(rows, widths, *, header=True, align_right_from=None, zebra=True, 
         ("LINEBELOW", (0, -1), (-1, -1), 0.6, colors.HexColor(theme.RULE)),
     ]
     if header:
-        cmds += [("BACKGROUND", (0, 0), (-1, 0), colors.HexColor(theme.PANEL)),
-                 ("LINEBELOW", (0, 0), (-1, 0), 0.9, colors.HexColor(theme.INK_SOFT))]
+        cmds += [
+            ("BACKGROUND", (0, 0), (-1, 0), colors.HexColor(theme.PANEL)),
+            ("LINEBELOW", (0, 0), (-1, 0), 0.9, colors.HexColor(theme.INK_SOFT)),
+        ]
     if zebra:
         for r in range(1 if header else 0, len(rows)):
             if (r % 2 == 0) == header:
@@ -428,14 +476,18 @@ def framed_box(paragraphs, *, background, border, width):
     from reportlab.platypus import Table, TableStyle
 
     t = Table([[p] for p in paragraphs], colWidths=[width], hAlign="LEFT")
-    t.setStyle(TableStyle([
-        ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor(background)),
-        ("LINEBEFORE", (0, 0), (0, -1), 3, colors.HexColor(border)),
-        ("LEFTPADDING", (0, 0), (-1, -1), 8),
-        ("RIGHTPADDING", (0, 0), (-1, -1), 8),
-        ("TOPPADDING", (0, 0), (-1, -1), 4),
-        ("BOTTOMPADDING", (0, 0), (-1, -1), 4),
-    ]))
+    t.setStyle(
+        TableStyle(
+            [
+                ("BACKGROUND", (0, 0), (-1, -1), colors.HexColor(background)),
+                ("LINEBEFORE", (0, 0), (0, -1), 3, colors.HexColor(border)),
+                ("LEFTPADDING", (0, 0), (-1, -1), 8),
+                ("RIGHTPADDING", (0, 0), (-1, -1), 8),
+                ("TOPPADDING", (0, 0), (-1, -1), 4),
+                ("BOTTOMPADDING", (0, 0), (-1, -1), 4),
+            ]
+        )
+    )
     return t
 
 
@@ -593,13 +645,13 @@ def _numbered_canvas(footer_left: str, header: str, when: str = ""):
             self.setFont("SKSans", 7.5)
             self.setFillColor(colors.HexColor(theme.INK_SOFT))
             self.drawString(18 * 2.835, 10 * 2.835, footer_left)
-            self.drawRightString(w - 18 * 2.835, 10 * 2.835,
-                                 f"page {self._pageNumber} of {total}")
+            self.drawRightString(w - 18 * 2.835, 10 * 2.835, f"page {self._pageNumber} of {total}")
             if self._pageNumber > 1:
                 self.line(18 * 2.835, h - 13 * 2.835, w - 18 * 2.835, h - 13 * 2.835)
                 self.drawString(18 * 2.835, h - 11.5 * 2.835, header)
-                self.drawRightString(w - 18 * 2.835, h - 11.5 * 2.835,
-                                     "studykit capability evidence")
+                self.drawRightString(
+                    w - 18 * 2.835, h - 11.5 * 2.835, "studykit capability evidence"
+                )
             self.restoreState()
 
     return NumberedCanvas
@@ -615,8 +667,13 @@ def _data_file_rows(study) -> list[list[str]]:
     files = study.files
     for i, (name, blob) in enumerate(files, start=1):
         label = "Measurement file" if len(files) == 1 else f"Measurement file {i} of {len(files)}"
-        rows.append([label, f"{escape_text(name)} ({len(blob):,} bytes)<br/><font size=7>SHA-256 "
-                     f"{hashlib.sha256(blob).hexdigest()}</font>"])
+        rows.append(
+            [
+                label,
+                f"{escape_text(name)} ({len(blob):,} bytes)<br/><font size=7>SHA-256 "
+                f"{hashlib.sha256(blob).hexdigest()}</font>",
+            ]
+        )
     return rows
 
 
@@ -624,8 +681,10 @@ def _chain_text(chain) -> str:
     if not chain:
         return "– (not made from a study file)"
     eid, _, h = str(chain.get("head", "")).partition(":")
-    return (f"entry {escape_text(eid)} of {int(chain.get('entries', 0))}<br/><font size=7>"
-            f"{escape_text(h)}</font>")
+    return (
+        f"entry {escape_text(eid)} of {int(chain.get('entries', 0))}<br/><font size=7>"
+        f"{escape_text(h)}</font>"
+    )
 
 
 def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
@@ -643,22 +702,39 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         ["Study state as of", escape_text(_last_time(study) or "–")],
         ["Produced by", f"studykit {__version__}"],
     ]
-    story.append(grid_table(facts, [42 * 2.835, width - 42 * 2.835], header=False, zebra=False,
-                        styles=st))
+    story.append(
+        grid_table(facts, [42 * 2.835, width - 42 * 2.835], header=False, zebra=False, styles=st)
+    )
     story.append(Spacer(1, 12))
     critical = [n for n, c in study.characteristics.items() if c.safety_critical]
     if critical:
         from studykit.analysis import SAFETY_CAUTION
 
         v = theme.VERDICTS["caution"]
-        story.append(framed_box([Paragraph(f"<b>! Safety-critical:</b> {escape_text(', '.join(critical))}",
-                                     st["body"]),
-                           Paragraph(escape_text(SAFETY_CAUTION), st["body"])],
-                          background=v.background, border=v.color, width=width))
+        story.append(
+            framed_box(
+                [
+                    Paragraph(
+                        f"<b>! Safety-critical:</b> {escape_text(', '.join(critical))}", st["body"]
+                    ),
+                    Paragraph(escape_text(SAFETY_CAUTION), st["body"]),
+                ],
+                background=v.background,
+                border=v.color,
+                width=width,
+            )
+        )
         story.append(Spacer(1, 10))
     story.append(Paragraph("Verdicts at a glance", st["h2"]))
-    head = ["Characteristic", "Specification", "Chart / model", "Criterion", "Estimate",
-            "Lower bound", "Verdict"]
+    head = [
+        "Characteristic",
+        "Specification",
+        "Chart / model",
+        "Criterion",
+        "Estimate",
+        "Lower bound",
+        "Verdict",
+    ]
     rows = [head]
     verdict_rows = []
     for name, c in study.characteristics.items():
@@ -666,8 +742,17 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         spec = _spec_text(c)
         crit = study.criteria_for(name).describe()
         if res is None:
-            rows.append([escape_text(name), spec, "–", escape_text(crit), "–", "–",
-                         f"<b>{names.verdict_label(None)}</b>"])
+            rows.append(
+                [
+                    escape_text(name),
+                    spec,
+                    "–",
+                    escape_text(crit),
+                    "–",
+                    "–",
+                    f"<b>{names.verdict_label(None)}</b>",
+                ]
+            )
             verdict_rows.append("pending")
             continue
         model = res.model.label if res.model is not None else "–"
@@ -692,9 +777,18 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
                 lb = f"upper {ac.dpu_upper_bound:.3g}"
         caution_colour = theme.VERDICTS["caution"].text_color
         safety = f" <font color='{caution_colour}'>(!)</font>" if c.safety_critical else ""
-        rows.append([f"<b>{escape_text(name)}</b>{safety}" + (f" [{escape_text(res.unit)}]" if res.unit else ""),
-                     spec, f"{chart} / {escape_text(model)}", escape_text(crit), est, lb,
-                     f"<font color='{v.text_color}'><b>{v.symbol} {label}</b></font>"])
+        rows.append(
+            [
+                f"<b>{escape_text(name)}</b>{safety}"
+                + (f" [{escape_text(res.unit)}]" if res.unit else ""),
+                spec,
+                f"{chart} / {escape_text(model)}",
+                escape_text(crit),
+                est,
+                lb,
+                f"<font color='{v.text_color}'><b>{v.symbol} {label}</b></font>",
+            ]
+        )
         verdict_rows.append(key)
     t = grid_table(rows, [w * width for w in (0.23, 0.14, 0.14, 0.15, 0.1, 0.1, 0.14)], styles=st)
     from reportlab.lib import colors
@@ -705,15 +799,23 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
     story.append(t)
     n_pass = sum(1 for k in verdict_rows if k == "pass")
     story.append(Spacer(1, 6))
-    story.append(Paragraph(
-        f"{n_pass} of {len(verdict_rows)} characteristic(s) meet their criterion. "
-        "(!) marks a safety-critical characteristic. Estimates and bounds are printed with two "
-        "decimals; the embedded evidence file holds them in full.", st["small"]))
+    story.append(
+        Paragraph(
+            f"{n_pass} of {len(verdict_rows)} characteristic(s) meet their criterion. "
+            "(!) marks a safety-critical characteristic. Estimates and bounds are printed with two "
+            "decimals; the embedded evidence file holds them in full.",
+            st["small"],
+        )
+    )
     if errors:
         story.append(Spacer(1, 6))
         for name, msg in errors.items():
-            story.append(Paragraph(f"<b>{escape_text(name)}</b> could not be analysed: {escape_text(msg)}",
-                                   st["body"]))
+            story.append(
+                Paragraph(
+                    f"<b>{escape_text(name)}</b> could not be analysed: {escape_text(msg)}",
+                    st["body"],
+                )
+            )
     states = study.signoff_state()
     story.append(Paragraph("Sign-off status", st["h2"]))
     if not states:
@@ -722,11 +824,17 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
         for s in states:
             so = s.signoff
             word = "still valid" if s.valid else f"VOIDED ({escape_text(s.why)})"
-            story.append(Paragraph(f"{escape_text(so.role)}: {escape_text(so.name)} - {escape_text(so.decision)} "
-                                   f"on {escape_text(so.when)}, {word}", st["body"]))
+            story.append(
+                Paragraph(
+                    f"{escape_text(so.role)}: {escape_text(so.name)} - {escape_text(so.decision)} "
+                    f"on {escape_text(so.when)}, {word}",
+                    st["body"],
+                )
+            )
     story.append(Spacer(1, 8))
-    story.append(Paragraph(f"Evidence file SHA-256: <font size=7>{evidence_sha}</font>",
-                           st["small"]))
+    story.append(
+        Paragraph(f"Evidence file SHA-256: <font size=7>{evidence_sha}</font>", st["small"])
+    )
 
 
 def _when(text: str) -> str:
@@ -735,8 +843,11 @@ def _when(text: str) -> str:
 
 
 def _last_time(study) -> str:
-    times = [d.when for d in study.decisions] + [c.when for c in study.comments] + \
-        [s.when for s in study.signoffs]
+    times = (
+        [d.when for d in study.decisions]
+        + [c.when for c in study.comments]
+        + [s.when for s in study.signoffs]
+    )
     times = [t for t in times if t]
     return max(times) if times else ""
 
@@ -762,9 +873,15 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     story.append(Paragraph(f"{number}. {escape_text(name)}{unit}", st["h1"]))
     if res.cautions:
         v = theme.VERDICTS["caution"]
-        story.append(framed_box([Paragraph("<b>! Safety-critical characteristic</b>", st["body"])]
-                          + [Paragraph(escape_text(t), st["body"]) for t in res.cautions],
-                          background=v.background, border=v.color, width=width))
+        story.append(
+            framed_box(
+                [Paragraph("<b>! Safety-critical characteristic</b>", st["body"])]
+                + [Paragraph(escape_text(t), st["body"]) for t in res.cautions],
+                background=v.background,
+                border=v.color,
+                width=width,
+            )
+        )
         story.append(Spacer(1, 6))
     if c.description:
         story.append(Paragraph(escape_text(c.description), st["small"]))
@@ -772,37 +889,75 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     key = _verdict_key(res)
     v = theme.VERDICTS[key]
     if res.verdict is not None:
-        story.append(framed_box([Paragraph(f"<font color='{v.text_color}'><b>{v.symbol} "
-                                     f"{names.verdict_label(res)}"
-                                     f"</b></font> - {escape_text(res.verdict.text)}", st["body"])],
-                          background=v.background, border=v.color, width=width))
+        story.append(
+            framed_box(
+                [
+                    Paragraph(
+                        f"<font color='{v.text_color}'><b>{v.symbol} "
+                        f"{names.verdict_label(res)}"
+                        f"</b></font> - {escape_text(res.verdict.text)}",
+                        st["body"],
+                    )
+                ],
+                background=v.background,
+                border=v.color,
+                width=width,
+            )
+        )
     story.append(Spacer(1, 6))
     chart = res.chart
     facts = [
-        ["Specification", _spec_text(c), "Criterion", escape_text(study.criteria_for(name).describe())],
-        ["Values used", (f"{res.n} individual values" if chart.kind == "imr" else
-                         f"{res.n} in {res.subgroups} subgroups"
-                         + (f" of {res.subgroup_size}" if res.subgroup_size else "")),
-         "Removed", f"{len(res.phase1.removals)} subgroup(s)"
-         + (f", {res.n_missing} empty cell(s)" if res.n_missing else "")],
-        ["Centre" if res.attribute else "Mean",
-         number_text(res.mean, 6) if c.lsl is None or c.usl is None or res.attribute
-         else names.format_value(res.mean, c.lsl, c.usl), "Chart",
-         f"{names.chart_kind_label(chart.kind)} ({escape_text(chart.reason)})"],
+        [
+            "Specification",
+            _spec_text(c),
+            "Criterion",
+            escape_text(study.criteria_for(name).describe()),
+        ],
+        [
+            "Values used",
+            (
+                f"{res.n} individual values"
+                if chart.kind == "imr"
+                else f"{res.n} in {res.subgroups} subgroups"
+                + (f" of {res.subgroup_size}" if res.subgroup_size else "")
+            ),
+            "Removed",
+            f"{len(res.phase1.removals)} subgroup(s)"
+            + (f", {res.n_missing} empty cell(s)" if res.n_missing else ""),
+        ],
+        [
+            "Centre" if res.attribute else "Mean",
+            number_text(res.mean, 6)
+            if c.lsl is None or c.usl is None or res.attribute
+            else names.format_value(res.mean, c.lsl, c.usl),
+            "Chart",
+            f"{names.chart_kind_label(chart.kind)} ({escape_text(chart.reason)})",
+        ],
     ]
     if not res.attribute:
         sigma_text = (res.phase1.raw_chart or chart).sigma_method_text  # raw values' sigma
-        facts.append(["Within sigma", number_text(res.within_sigma, 4)
-                      + (f" ({escape_text(sigma_text)})" if sigma_text else ""),
-                      "Overall sigma", number_text(res.overall_sigma, 4) + " (sample, n - 1)"])
+        facts.append(
+            [
+                "Within sigma",
+                number_text(res.within_sigma, 4)
+                + (f" ({escape_text(sigma_text)})" if sigma_text else ""),
+                "Overall sigma",
+                number_text(res.overall_sigma, 4) + " (sample, n - 1)",
+            ]
+        )
     else:
-        facts[0][3] = ("read as process Z / 3 from the exact upper bound on the defective rate "
-                       f"({escape_text(study.criteria_for(name).describe())})"
-                       if chart.kind in ("p", "np") else
-                       "not judged by an index (counted data; see the defects per unit below)")
+        facts[0][3] = (
+            "read as process Z / 3 from the exact upper bound on the defective rate "
+            f"({escape_text(study.criteria_for(name).describe())})"
+            if chart.kind in ("p", "np")
+            else "not judged by an index (counted data; see the defects per unit below)"
+        )
     q = width / 4
-    story.append(grid_table(facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False,
-                        zebra=False, styles=st))
+    story.append(
+        grid_table(
+            facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False, zebra=False, styles=st
+        )
+    )
     # stability
     story.append(Paragraph("Stability (phase I)", st["h2"]))
     story.append(pdf_image(figures.control_chart_figure(res, raw=raw), width))
@@ -810,8 +965,10 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
         pl = res.probability_limits
         if pl is not None:
-            scale_note += (f" In measured units the limits are LCL {number_text(pl['lcl'], 5)}, "
-                           f"centre {number_text(pl['center'], 5)}, UCL {number_text(pl['ucl'], 5)}.")
+            scale_note += (
+                f" In measured units the limits are LCL {number_text(pl['lcl'], 5)}, "
+                f"centre {number_text(pl['center'], 5)}, UCL {number_text(pl['ucl'], 5)}."
+            )
         story.append(Paragraph(escape_text(scale_note), st["body"]))
     signals = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
@@ -823,35 +980,61 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 # a moving range at reading p is |x_p - x_(p-1)|: it points at both readings
                 pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
             labels = [str(chart.labels[p]) for p in pos]
-            signals.append(f"{names.chart_part_label(chart.kind, part).capitalize()}, "
-                           f"Nelson test {sig.number}: {escape_text(sig.text)} "
-                           f"(subgroup(s) {escape_text(', '.join(labels[:12]))}"
-                           f"{'...' if len(labels) > 12 else ''})")
+            signals.append(
+                f"{names.chart_part_label(chart.kind, part).capitalize()}, "
+                f"Nelson test {sig.number}: {escape_text(sig.text)} "
+                f"(subgroup(s) {escape_text(', '.join(labels[:12]))}"
+                f"{'...' if len(labels) > 12 else ''})"
+            )
     if signals:
-        story.append(Paragraph("Signals on the final limits "
-                               f"({escape_text(names.rule_set_label(chart.location.rules))}):",
-                               st["body"]))
+        story.append(
+            Paragraph(
+                "Signals on the final limits "
+                f"({escape_text(names.rule_set_label(chart.location.rules))}):",
+                st["body"],
+            )
+        )
         for s in signals[:20]:
             story.append(Paragraph(s, st["bullet"], bulletText="•"))
     else:
         if res.order is not None and res.order.flagged:
-            story.append(Paragraph("Run rules not applied: the values are not in production "
-                                   "order, so stability could not be judged from them (see the "
-                                   "findings).", st["body"]))
+            story.append(
+                Paragraph(
+                    "Run rules not applied: the values are not in production "
+                    "order, so stability could not be judged from them (see the "
+                    "findings).",
+                    st["body"],
+                )
+            )
         else:
-            story.append(Paragraph(f"No run-rule signal on the final limits "
-                                   f"({escape_text(names.rule_set_label(chart.location.rules))}).",
-                                   st["body"]))
+            story.append(
+                Paragraph(
+                    f"No run-rule signal on the final limits "
+                    f"({escape_text(names.rule_set_label(chart.location.rules))}).",
+                    st["body"],
+                )
+            )
     if res.phase1.removals:
         story.append(Spacer(1, 4))
         rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
         for r in res.phase1.removals:
-            rows.append([escape_text(r.label), escape_text(names.rule_label(r.rule)), str(r.iteration),
-                         escape_text(r.who or "–"),
-                         escape_text(r.reason)])
-        story.append(KeepTogether([Paragraph("Removal log", st["cellb"]),
-                                   grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15,
-                                                                     0.55)], styles=st)]))
+            rows.append(
+                [
+                    escape_text(r.label),
+                    escape_text(names.rule_label(r.rule)),
+                    str(r.iteration),
+                    escape_text(r.who or "–"),
+                    escape_text(r.reason),
+                ]
+            )
+        story.append(
+            KeepTogether(
+                [
+                    Paragraph("Removal log", st["cellb"]),
+                    grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15, 0.55)], styles=st),
+                ]
+            )
+        )
     else:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
     _kept_signals_block(story, res, st, width)
@@ -869,24 +1052,39 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
-        story.append(Paragraph(
-            f"Normality of the values used: Anderson-Darling A² = {number_text(ad.a2)} "
-            f"(A*² = {number_text(ad.a2_star)}, p = {number_text(ad.p_value, 3)})"
-            + (f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {number_text(sw.p_value, 3)})." if sw is not None
-               else "."),
-            st["body"]))
+        story.append(
+            Paragraph(
+                f"Normality of the values used: Anderson-Darling A² = {number_text(ad.a2)} "
+                f"(A*² = {number_text(ad.a2_star)}, p = {number_text(ad.p_value, 3)})"
+                + (
+                    f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {number_text(sw.p_value, 3)})."
+                    if sw is not None
+                    else "."
+                ),
+                st["body"],
+            )
+        )
     if res.model is not None:
-        params = ", ".join(f"{k} = {number_text(val, 5)}" for k, val in res.model.parameters.items())
-        story.append(Paragraph(f"<b>Model used: {escape_text(res.model.label)}</b>"
-                               + (f" ({escape_text(params)})" if params else "")
-                               + f". Why: {escape_text(res.model.reason)}.", st["body"]))
+        params = ", ".join(
+            f"{k} = {number_text(val, 5)}" for k, val in res.model.parameters.items()
+        )
+        story.append(
+            Paragraph(
+                f"<b>Model used: {escape_text(res.model.label)}</b>"
+                + (f" ({escape_text(params)})" if params else "")
+                + f". Why: {escape_text(res.model.reason)}.",
+                st["body"],
+            )
+        )
     if res.ranking is not None:
         _model_list_pdf(story, res, st, width)
     if res.model_band is not None:
         mb = res.model_band
-        text = (f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
-                f"ranges from {_idx(mb.low)} ({escape_text(names.model_list(mb.low_models))}) to "
-                f"{_idx(mb.high)} ({escape_text(names.model_list(mb.high_models))}).")
+        text = (
+            f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
+            f"ranges from {_idx(mb.low)} ({escape_text(names.model_list(mb.low_models))}) to "
+            f"{_idx(mb.high)} ({escape_text(names.model_list(mb.high_models))})."
+        )
         if mb.warning:
             text += " " + escape_text(mb.warning)
         story.append(Spacer(1, 4))
@@ -897,30 +1095,56 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(CondPageBreak(220))
         story.append(Paragraph("Capability", st["h2"]))
         level = cap.level
-        rows = [["Index", "Estimate", f"Lower {level * 100:g}% bound (one-sided)",
-                 f"Two-sided {level * 100:g}% interval", "Bound method"]]
+        rows = [
+            [
+                "Index",
+                "Estimate",
+                f"Lower {level * 100:g}% bound (one-sided)",
+                f"Two-sided {level * 100:g}% interval",
+                "Bound method",
+            ]
+        ]
         for k in ("cp", "cpk", "pp", "ppk", "cpm"):
             est = getattr(cap, k)
             b = (cap.bounds or {}).get(k) or {}
             if est is None:
                 continue
             judged = " (judged)" if k == res.criteria.get("index") else ""
-            rows.append([f"<b>{_index_name(k)}</b>{judged}", _idx(est), _idx(b.get("lower_bound")),
-                         f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
-                         if b.get("lower") is not None else "–",
-                         escape_text(names.bound_method_label(b.get("method", "–")))])
-        story.append(grid_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)],
-                            styles=st))
-        ppm = (f"Expected parts per million outside the specification: overall "
-               f"{number_text(cap.ppm_overall, 3)}")
+            rows.append(
+                [
+                    f"<b>{_index_name(k)}</b>{judged}",
+                    _idx(est),
+                    _idx(b.get("lower_bound")),
+                    f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
+                    if b.get("lower") is not None
+                    else "–",
+                    escape_text(names.bound_method_label(b.get("method", "–"))),
+                ]
+            )
+        story.append(
+            grid_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)], styles=st)
+        )
+        ppm = (
+            f"Expected parts per million outside the specification: overall "
+            f"{number_text(cap.ppm_overall, 3)}"
+        )
         if cap.ppm_within is not None:
             ppm += f", within {number_text(cap.ppm_within, 3)}"
-        ppm += (f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
-                f"{escape_text(names.bound_method_label(cap.method))}.")
+        ppm += (
+            f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
+            f"{escape_text(names.bound_method_label(cap.method))}."
+        )
         from studykit.analysis import capability_method_text
 
-        ppm += " Convention: " + escape_text(capability_method_text(
-            cap.to_dict(), None if res.model is None else res.model.to_dict())) + "."
+        ppm += (
+            " Convention: "
+            + escape_text(
+                capability_method_text(
+                    cap.to_dict(), None if res.model is None else res.model.to_dict()
+                )
+            )
+            + "."
+        )
         story.append(Spacer(1, 3))
         story.append(Paragraph(ppm, st["body"]))
         story.append(Spacer(1, 4))
@@ -956,9 +1180,12 @@ def _interval_drawing(res, width, st):
             continue
         rows.append((key, float(est), (cap.bounds or {}).get(key) or {}))
     threshold = float(res.criteria.get("threshold", 1.33))
-    values = [threshold] + [v for _, e, b in rows for v in (e, b.get("lower"), b.get("upper"),
-                                                             b.get("lower_bound"))
-                            if v is not None and math.isfinite(v)]
+    values = [threshold] + [
+        v
+        for _, e, b in rows
+        for v in (e, b.get("lower"), b.get("upper"), b.get("lower_bound"))
+        if v is not None and math.isfinite(v)
+    ]
     lo, hi = min(values), max(values)
     pad = 0.06 * (hi - lo or 1.0)
     lo, hi = lo - pad, hi + pad
@@ -966,16 +1193,27 @@ def _interval_drawing(res, width, st):
     height = top + bottom + row_h * max(len(rows), 1)
     d = Drawing(width, height)
     font = st["small"].fontName
-    ink, soft, rule = (colors.HexColor(theme.INK), colors.HexColor(theme.INK_SOFT),
-                       colors.HexColor(theme.RULE))
+    ink, soft, rule = (
+        colors.HexColor(theme.INK),
+        colors.HexColor(theme.INK_SOFT),
+        colors.HexColor(theme.RULE),
+    )
 
     def x(v):
         return left + (v - lo) / (hi - lo) * (width - left - right)
 
     level = (cap.level or 0.95) * 100
-    d.add(String(0, height - 11, f"Estimate (dot), two-sided {level:g}% interval (bar), "
-                 f"one-sided lower {level:g}% bound (tick); required {threshold:g} (dash-dot)",
-                 fontName=st["cellb"].fontName, fontSize=8, fillColor=ink))
+    d.add(
+        String(
+            0,
+            height - 11,
+            f"Estimate (dot), two-sided {level:g}% interval (bar), "
+            f"one-sided lower {level:g}% bound (tick); required {threshold:g} (dash-dot)",
+            fontName=st["cellb"].fontName,
+            fontSize=8,
+            fillColor=ink,
+        )
+    )
     # axis with ticks
     y0 = bottom - 6
     d.add(Line(left, y0, width - right, y0, strokeColor=soft, strokeWidth=0.6))
@@ -988,27 +1226,60 @@ def _interval_drawing(res, width, st):
     t = math.ceil(lo / step) * step
     while t <= hi:
         d.add(Line(x(t), y0, x(t), height - top + 4, strokeColor=rule, strokeWidth=0.4))
-        d.add(String(x(t), y0 - 10, f"{t:.3g}", fontName=font, fontSize=7, fillColor=soft,
-                     textAnchor="middle"))
+        d.add(
+            String(
+                x(t),
+                y0 - 10,
+                f"{t:.3g}",
+                fontName=font,
+                fontSize=7,
+                fillColor=soft,
+                textAnchor="middle",
+            )
+        )
         t += step
     spec = theme.ROLES["spec_limit"]
-    d.add(Line(x(threshold), y0, x(threshold), height - top + 4,
-               strokeColor=colors.HexColor(spec.color), strokeWidth=1.4,
-               strokeDashArray=[5, 2, 1, 2]))
+    d.add(
+        Line(
+            x(threshold),
+            y0,
+            x(threshold),
+            height - top + 4,
+            strokeColor=colors.HexColor(spec.color),
+            strokeWidth=1.4,
+            strokeDashArray=[5, 2, 1, 2],
+        )
+    )
     judged = res.criteria.get("index")
     for i, (key, est, b) in enumerate(rows):
         y = height - top - row_h * (i + 0.5)
         col = colors.HexColor(theme.OKABE_ITO["black" if key == judged else "blue"])
         name = _index_name(key) + (" (judged)" if key == judged else "")
-        d.add(String(left - 6, y - 3, name, fontName=st["cellb"].fontName if key == judged
-                     else font, fontSize=8, fillColor=ink, textAnchor="end"))
+        d.add(
+            String(
+                left - 6,
+                y - 3,
+                name,
+                fontName=st["cellb"].fontName if key == judged else font,
+                fontSize=8,
+                fillColor=ink,
+                textAnchor="end",
+            )
+        )
         if b.get("lower") is not None and b.get("upper") is not None:
             d.add(Line(x(b["lower"]), y, x(b["upper"]), y, strokeColor=col, strokeWidth=2.4))
         if b.get("lower_bound") is not None:
-            d.add(Line(x(b["lower_bound"]), y - 6, x(b["lower_bound"]), y + 6, strokeColor=col,
-                       strokeWidth=2.2))
-        d.add(Circle(x(est), y, 3.2, fillColor=col, strokeColor=colors.white,
-                     strokeWidth=0.6))
+            d.add(
+                Line(
+                    x(b["lower_bound"]),
+                    y - 6,
+                    x(b["lower_bound"]),
+                    y + 6,
+                    strokeColor=col,
+                    strokeWidth=2.2,
+                )
+            )
+        d.add(Circle(x(est), y, 3.2, fillColor=col, strokeColor=colors.white, strokeWidth=0.6))
     return d
 
 
@@ -1039,14 +1310,27 @@ def _kept_signals_block(story, res, st, width) -> None:
     rows = [["Subgroup", "Rule", "From", "Who", "Reason"]]
     for k in kept:
         origin = "rejected proposal" if k["origin"] == "rejected_proposal" else "person"
-        rows.append([escape_text(k["subgroup"]), escape_text(names.rule_label(k["rule"])), origin,
-                     escape_text(k["who"] or "–"),
-                     escape_text(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)")])
+        rows.append(
+            [
+                escape_text(k["subgroup"]),
+                escape_text(names.rule_label(k["rule"])),
+                origin,
+                escape_text(k["who"] or "–"),
+                escape_text(k["reason"]) + ("" if k["on_chart"] else " (no such signal now)"),
+            ]
+        )
     story.append(Spacer(1, 4))
-    story.append(KeepTogether([
-        Paragraph("Signals kept with a reason (reviewed; the subgroups stay in the analysis)",
-                  st["cellb"]),
-        grid_table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st)]))
+    story.append(
+        KeepTogether(
+            [
+                Paragraph(
+                    "Signals kept with a reason (reviewed; the subgroups stay in the analysis)",
+                    st["cellb"],
+                ),
+                grid_table(rows, [w * width for w in (0.12, 0.14, 0.14, 0.15, 0.45)], styles=st),
+            ]
+        )
+    )
 
 
 def _model_list_pdf(story, res, st, width):
@@ -1066,17 +1350,39 @@ def _model_list_pdf(story, res, st, width):
         text = "not fitted" if row.error else number_text(row.aic, 6)
         return text + (f" {L['used']}" if row.id == chosen else "")
 
-    rows = [["#", L["family"], f"{L['aic']}, {L['plain'].lower()}",
-             f"{L['aic']}, {L['shifted'].lower()}", L["effect"]]]
+    rows = [
+        [
+            "#",
+            L["family"],
+            f"{L['aic']}, {L['plain'].lower()}",
+            f"{L['aic']}, {L['shifted'].lower()}",
+            L["effect"],
+        ]
+    ]
     for line in lines[:8]:
-        rows.append([str(line.rank), escape_text(line.name), escape_text(aic(line.plain)),
-                     escape_text(aic(line.shifted)), escape_text(model_list.threshold_effect(line, _fixed))])
+        rows.append(
+            [
+                str(line.rank),
+                escape_text(line.name),
+                escape_text(aic(line.plain)),
+                escape_text(aic(line.shifted)),
+                escape_text(model_list.threshold_effect(line, _fixed)),
+            ]
+        )
     story.append(Spacer(1, 4))
-    story.append(KeepTogether([
-        Paragraph(f"{L['title']} (best {len(rows) - 1} of {len(lines)}; "
-                  f"{escape_text(L['rule'])} {escape_text(res.ranking.rule)})", st["cellb"]),
-        grid_table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
-        Paragraph(escape_text(model_list.SOURCE), st["small"])]))
+    story.append(
+        KeepTogether(
+            [
+                Paragraph(
+                    f"{L['title']} (best {len(rows) - 1} of {len(lines)}; "
+                    f"{escape_text(L['rule'])} {escape_text(res.ranking.rule)})",
+                    st["cellb"],
+                ),
+                grid_table(rows, [w * width for w in (0.05, 0.22, 0.16, 0.16, 0.41)], styles=st),
+                Paragraph(escape_text(model_list.SOURCE), st["small"]),
+            ]
+        )
+    )
 
 
 def _warnings_block(story, res, st):
@@ -1091,22 +1397,35 @@ def _warnings_block(story, res, st):
 def _gauge_section(story, number, gauges, study, st, width):
     from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
 
-
     story.append(Paragraph(f"{number}. Measurement system (gauge R&amp;R)", st["h1"]))
     for name, payload in gauges.items():
         story.append(CondPageBreak(200))
-        story.append(Paragraph(f"{escape_text(name)}: {payload.get('n_parts')} parts x "
-                               f"{payload.get('n_appraisers')} appraisers x "
-                               f"{payload.get('n_trials')} trials"
-                               + (f" (file {escape_text(payload.get('source_file'))})"
-                                  if payload.get("source_file") else ""), st["h2"]))
+        story.append(
+            Paragraph(
+                f"{escape_text(name)}: {payload.get('n_parts')} parts x "
+                f"{payload.get('n_appraisers')} appraisers x "
+                f"{payload.get('n_trials')} trials"
+                + (
+                    f" (file {escape_text(payload.get('source_file'))})"
+                    if payload.get("source_file")
+                    else ""
+                ),
+                st["h2"],
+            )
+        )
         verdict = payload.get("verdict") or {}
         if isinstance(verdict, dict) and verdict.get("text"):
             ok = verdict.get("acceptable")
             key = "pass" if ok else ("fail" if ok is False else "caution")
             v = theme.VERDICTS[key]
-            story.append(framed_box([Paragraph(escape_text(verdict.get("text")), st["body"])],
-                              background=v.background, border=v.color, width=width))
+            story.append(
+                framed_box(
+                    [Paragraph(escape_text(verdict.get("text")), st["body"])],
+                    background=v.background,
+                    border=v.color,
+                    width=width,
+                )
+            )
             story.append(Spacer(1, 4))
         _gauge_tables_pdf(story, payload, st, width)
         res = _gauge_result(payload)
@@ -1119,8 +1438,11 @@ def _gauge_section(story, number, gauges, study, st, width):
                     fig = getattr(gauge_figures, f"{key}_figure")(res)
                 except Exception:  # noqa: BLE001 - a figure must never stop the report
                     continue
-                story.append(KeepTogether([pdf_image(fig, width * 0.85),
-                                           Paragraph(escape_text(caption), st["small"])]))
+                story.append(
+                    KeepTogether(
+                        [pdf_image(fig, width * 0.85), Paragraph(escape_text(caption), st["small"])]
+                    )
+                )
                 story.append(Spacer(1, 4))
         _gauge_full_anova_pdf(story, payload, st, width)
 
@@ -1134,25 +1456,42 @@ def _gauge_tables_pdf(story, payload, st, width):
     tolerance = payload.get("tolerance") is not None
     rows = [gt.component_headers(payload.get("study_variation"), tolerance=tolerance)]
     for comp in payload.get("components", []):
-        row = [escape_text(gt.component_name(str(comp.get("name", "")))),
-               number_text(comp.get("variance")), _pct_cell(comp.get("pct_contribution")),
-               number_text(comp.get("sigma")), number_text(comp.get("study_variation")),
-               _pct_cell(comp.get("pct_study_variation"))]
+        row = [
+            escape_text(gt.component_name(str(comp.get("name", "")))),
+            number_text(comp.get("variance")),
+            _pct_cell(comp.get("pct_contribution")),
+            number_text(comp.get("sigma")),
+            number_text(comp.get("study_variation")),
+            _pct_cell(comp.get("pct_study_variation")),
+        ]
         if tolerance:
             row.append(_pct_cell(comp.get("pct_tolerance")))
         rows.append(row)
-    widths = ((0.25, 0.12, 0.12, 0.12, 0.13, 0.13, 0.13) if tolerance
-              else (0.28, 0.14, 0.14, 0.14, 0.15, 0.15))
+    widths = (
+        (0.25, 0.12, 0.12, 0.12, 0.13, 0.13, 0.13)
+        if tolerance
+        else (0.28, 0.14, 0.14, 0.14, 0.15, 0.15)
+    )
     story.append(Paragraph(gt.LABELS["components_title"], st["cellb"]))
     story.append(grid_table(rows, [w * width for w in widths], styles=st))
     story.append(Spacer(1, 3))
-    story.append(Paragraph(f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
-                           f"Method: {escape_text(payload.get('method', ''))}.", st["body"]))
+    story.append(
+        Paragraph(
+            f"Distinct categories (ndc): {payload.get('ndc', '–')}. "
+            f"Method: {escape_text(payload.get('method', ''))}.",
+            st["body"],
+        )
+    )
     story.append(Spacer(1, 3))
     story.append(Paragraph(gt.LABELS["anova_used_title"], st["cellb"]))
     story.append(Paragraph(escape_text(gt.anova_note(payload, _fixed)), st["small"]))
-    story.append(grid_table(_gauge_anova_rows(payload.get("anova_used")),
-                        [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st))
+    story.append(
+        grid_table(
+            _gauge_anova_rows(payload.get("anova_used")),
+            [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)],
+            styles=st,
+        )
+    )
     story.append(Spacer(1, 4))
 
 
@@ -1164,10 +1503,18 @@ def _gauge_full_anova_pdf(story, payload, st, width):
 
     if not gt.show_full_anova(payload):
         return
-    story.append(KeepTogether([
-        Paragraph(gt.LABELS["anova_full_title"], st["cellb"]),
-        grid_table(_gauge_anova_rows(payload.get("anova_full")),
-               [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)], styles=st)]))
+    story.append(
+        KeepTogether(
+            [
+                Paragraph(gt.LABELS["anova_full_title"], st["cellb"]),
+                grid_table(
+                    _gauge_anova_rows(payload.get("anova_full")),
+                    [w * width for w in (0.3, 0.14, 0.16, 0.16, 0.12, 0.12)],
+                    styles=st,
+                ),
+            ]
+        )
+    )
 
 
 def _gauge_anova_rows(rows_in):
@@ -1176,9 +1523,16 @@ def _gauge_anova_rows(rows_in):
     rows = [gt.anova_headers()]
     for r in rows_in or []:
         p = r.get("p")
-        rows.append([escape_text(gt.source_name(str(r.get("source", "")))), str(r.get("df", "–")),
-                     number_text(r.get("ss")), number_text(r.get("ms")), number_text(r.get("f"), 3),
-                     "–" if p is None else ("< 0.001" if p < 1e-3 else number_text(p, 3))])
+        rows.append(
+            [
+                escape_text(gt.source_name(str(r.get("source", "")))),
+                str(r.get("df", "–")),
+                number_text(r.get("ss")),
+                number_text(r.get("ms")),
+                number_text(r.get("f"), 3),
+                "–" if p is None else ("< 0.001" if p < 1e-3 else number_text(p, 3)),
+            ]
+        )
     return rows
 
 
@@ -1209,8 +1563,14 @@ def _signoff_digests(story, study, states, width, st):
     rows = [["Role", "Name", "Content digest signed", "Matches this report?"]]
     for s in states:
         so = s.signoff
-        rows.append([escape_text(so.role), escape_text(so.name), f"<font size=6>{so.digest}</font>",
-                     "yes" if so.digest == current else "<b>no</b> - signed other content"])
+        rows.append(
+            [
+                escape_text(so.role),
+                escape_text(so.name),
+                f"<font size=6>{so.digest}</font>",
+                "yes" if so.digest == current else "<b>no</b> - signed other content",
+            ]
+        )
     story.append(Paragraph("Content each sign-off signed", st["h2"]))
     story.append(grid_table(rows, [w * width for w in (0.11, 0.15, 0.52, 0.22)], styles=st))
 
@@ -1219,9 +1579,14 @@ def _signoff_section(story, number, study, st, width, boxes):
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
 
     story.append(Paragraph(f"{number}. Decisions and sign-off", st["h1"]))
-    story.append(Paragraph(f"Current study content digest: <font size=7>"
-                           f"{study.content_digest()}</font>. A sign-off is valid only while "
-                           "the content it signed is unchanged.", st["body"]))
+    story.append(
+        Paragraph(
+            f"Current study content digest: <font size=7>"
+            f"{study.content_digest()}</font>. A sign-off is valid only while "
+            "the content it signed is unchanged.",
+            st["body"],
+        )
+    )
     story.append(Paragraph("Recorded decisions", st["h2"]))
     if study.decisions:
         rows = [["When", "Who", "Characteristic", "Decision", "Reason"]]
@@ -1231,18 +1596,32 @@ def _signoff_section(story, number, study, st, width, boxes):
                 what += f" subgroup {d.subgroup}"
             if d.payload:
                 what += " " + ", ".join(f"{k}={v}" for k, v in d.payload.items())
-            rows.append([_when(d.when), escape_text(d.who or ("auto" if d.automatic else "–")),
-                         escape_text(d.characteristic or "study"), escape_text(what), escape_text(d.reason)])
-        story.append(grid_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)],
-                            styles=st))
+            rows.append(
+                [
+                    _when(d.when),
+                    escape_text(d.who or ("auto" if d.automatic else "–")),
+                    escape_text(d.characteristic or "study"),
+                    escape_text(what),
+                    escape_text(d.reason),
+                ]
+            )
+        story.append(
+            grid_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.17, 0.37)], styles=st)
+        )
     else:
         story.append(Paragraph("No decision recorded.", st["body"]))
     if study.comments:
         story.append(Paragraph("Comments", st["h2"]))
         rows = [["When", "Who", "About", "Comment"]]
         for cm in study.comments:
-            rows.append([_when(cm.when), escape_text(cm.who), escape_text(cm.characteristic or "study"),
-                         escape_text(cm.text)])
+            rows.append(
+                [
+                    _when(cm.when),
+                    escape_text(cm.who),
+                    escape_text(cm.characteristic or "study"),
+                    escape_text(cm.text),
+                ]
+            )
         story.append(grid_table(rows, [w * width for w in (0.17, 0.13, 0.16, 0.54)], styles=st))
     story.append(Paragraph("Sign-offs recorded in the study", st["h2"]))
     states = study.signoff_state()
@@ -1250,29 +1629,47 @@ def _signoff_section(story, number, study, st, width, boxes):
         rows = [["Role", "Name", "Decision", "When", "Comment", "State"]]
         for s in states:
             so = s.signoff
-            rows.append([escape_text(names.role_label(so.role)), escape_text(so.name),
-                         escape_text(names.decision_label(so.decision)), _when(so.when),
-                         escape_text(so.comment or "–"),
-                         names.SIGNOFF_VALID if s.valid
-                         else f"<b>{names.SIGNOFF_VOIDED}</b> - {escape_text(s.why)}"])
-        story.append(grid_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)],
-                            styles=st))
+            rows.append(
+                [
+                    escape_text(names.role_label(so.role)),
+                    escape_text(so.name),
+                    escape_text(names.decision_label(so.decision)),
+                    _when(so.when),
+                    escape_text(so.comment or "–"),
+                    names.SIGNOFF_VALID
+                    if s.valid
+                    else f"<b>{names.SIGNOFF_VOIDED}</b> - {escape_text(s.why)}",
+                ]
+            )
+        story.append(
+            grid_table(rows, [w * width for w in (0.11, 0.15, 0.11, 0.17, 0.26, 0.2)], styles=st)
+        )
         _signoff_digests(story, study, states, width, st)
-        heads = [f"{escape_text(s.signoff.role)} ({escape_text(s.signoff.name)}): entry "
-                 f"{escape_text(s.signoff.chain_head.partition(':')[0])} "
-                 f"<font size=6>{escape_text(s.signoff.chain_head.partition(':')[2])}</font>"
-                 for s in states if getattr(s.signoff, "chain_head", "")]
+        heads = [
+            f"{escape_text(s.signoff.role)} ({escape_text(s.signoff.name)}): entry "
+            f"{escape_text(s.signoff.chain_head.partition(':')[0])} "
+            f"<font size=6>{escape_text(s.signoff.chain_head.partition(':')[2])}</font>"
+            for s in states
+            if getattr(s.signoff, "chain_head", "")
+        ]
         if heads:
-            story.append(Paragraph("Audit chain head each sign-off signed: " + "; ".join(heads)
-                                   + ".", st["small"]))
+            story.append(
+                Paragraph(
+                    "Audit chain head each sign-off signed: " + "; ".join(heads) + ".", st["small"]
+                )
+            )
     else:
         story.append(Paragraph("No sign-off recorded in the study.", st["body"]))
     story.append(CondPageBreak(280))
     story.append(Paragraph("Digital signatures on this document", st["h2"]))
-    story.append(Paragraph("Each signer adds a PDF signature (PAdES) with `studykit report "
-                           "--sign`; it appears in the box of its role. `studykit verify` checks "
-                           "that every signature is intact and names the certificate.",
-                           st["small"]))
+    story.append(
+        Paragraph(
+            "Each signer adds a PDF signature (PAdES) with `studykit report "
+            "--sign`; it appears in the box of its role. `studykit verify` checks "
+            "that every signature is intact and names the certificate.",
+            st["small"],
+        )
+    )
     story.append(Spacer(1, 6))
     story.append(_SignatureBoxes(width, boxes, st))
 
@@ -1290,25 +1687,43 @@ def _appendix(story, number, study, st, width, evidence_sha, chain=None):
     story.append(Paragraph("Digests (SHA-256)", st["h2"]))
     rows = [["What", "SHA-256"]]
     for name, blob in study.files:
-        rows.append([f"Raw data ({escape_text(name)}, {len(blob):,} bytes)",
-                     f"<font size=7>{hashlib.sha256(blob).hexdigest()}</font>"])
-    rows += [["Study content (data + effective decisions)",
-              f"<font size=7>{study.content_digest()}</font>"],
-             ["Audit chain head of the study file" + (
-                 f" (entry {escape_text(str(chain.get('head', '')).partition(':')[0])})" if chain
-                 else ""),
-              f"<font size=7>{escape_text(str(chain.get('head', '')).partition(':')[2])}</font>"
-              if chain else "– (not made from a study file)"],
-             [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"]]
+        rows.append(
+            [
+                f"Raw data ({escape_text(name)}, {len(blob):,} bytes)",
+                f"<font size=7>{hashlib.sha256(blob).hexdigest()}</font>",
+            ]
+        )
+    rows += [
+        [
+            "Study content (data + effective decisions)",
+            f"<font size=7>{study.content_digest()}</font>",
+        ],
+        [
+            "Audit chain head of the study file"
+            + (
+                f" (entry {escape_text(str(chain.get('head', '')).partition(':')[0])})"
+                if chain
+                else ""
+            ),
+            f"<font size=7>{escape_text(str(chain.get('head', '')).partition(':')[2])}</font>"
+            if chain
+            else "– (not made from a study file)",
+        ],
+        [f"Embedded evidence ({EVIDENCE_FILENAME})", f"<font size=7>{evidence_sha}</font>"],
+    ]
     story.append(grid_table(rows, [0.34 * width, 0.66 * width], styles=st))
-    story.append(Paragraph(
-        f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
-        "in full precision, the specifications, criteria and decisions. `studykit verify "
-        "REPORT.pdf --data FILE ...` (every data file above, or --study FILE) recomputes the "
-        "study, compares the numbers with "
-        f"a relative tolerance of {RELATIVE_TOLERANCE:g} and redraws every page to compare it "
-        "with this one. The audit chain head names the last entry of the study file's "
-        "hash-chained audit log when the report was made.", st["small"]))
+    story.append(
+        Paragraph(
+            f"The file {EVIDENCE_FILENAME} embedded in this PDF holds every number reported here "
+            "in full precision, the specifications, criteria and decisions. `studykit verify "
+            "REPORT.pdf --data FILE ...` (every data file above, or --study FILE) recomputes the "
+            "study, compares the numbers with "
+            f"a relative tolerance of {RELATIVE_TOLERANCE:g} and redraws every page to compare it "
+            "with this one. The audit chain head names the last entry of the study file's "
+            "hash-chained audit log when the report was made.",
+            st["small"],
+        )
+    )
 
 
 def _software_versions() -> str:
@@ -1317,20 +1732,31 @@ def _software_versions() -> str:
     import reportlab
     import scipy
 
-    return (f"studykit {__version__}; numpy {numpy.__version__}; scipy {scipy.__version__}; "
-            f"matplotlib {matplotlib.__version__}; reportlab {reportlab.Version}.")
+    return (
+        f"studykit {__version__}; numpy {numpy.__version__}; scipy {scipy.__version__}; "
+        f"matplotlib {matplotlib.__version__}; reportlab {reportlab.Version}."
+    )
 
 
 # ---------------------------------------------------------------------------------------------
 # entry point
 
 
-def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
-                 *, chain: Mapping | None, evidence_sha: str,
-                 short_gauges: Mapping | None = None,
-                 progress: Callable[[int, int, str], None] | None = None,
-                 total: int = 0, positions: Mapping | None = None,
-                 out: str | os.PathLike | None = None) -> tuple[bytes | None, dict]:
+def render_pages(
+    study,
+    results: Mapping,
+    errors: Mapping,
+    measurements,
+    gauges,
+    *,
+    chain: Mapping | None,
+    evidence_sha: str,
+    short_gauges: Mapping | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+    total: int = 0,
+    positions: Mapping | None = None,
+    out: str | os.PathLike | None = None,
+) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
     a report from its evidence and compares every page. With ``out`` (a path) the pages are
@@ -1392,18 +1818,26 @@ def render_pages(study, results: Mapping, errors: Mapping, measurements, gauges,
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
     buf = io.BytesIO() if out is None else os.fspath(out)
     doc = _StreamingDoc(
-        buf, pagesize=A4, leftMargin=margin, rightMargin=margin, topMargin=20 * mm,
-        bottomMargin=20 * mm, title=f"Capability evidence - {study.title}",
-        author="studykit", subject=f"content digest {study.content_digest()}",
-        creator=f"studykit {__version__}", invariant=1,
+        buf,
+        pagesize=A4,
+        leftMargin=margin,
+        rightMargin=margin,
+        topMargin=20 * mm,
+        bottomMargin=20 * mm,
+        title=f"Capability evidence - {study.title}",
+        author="studykit",
+        subject=f"content digest {study.content_digest()}",
+        creator=f"studykit {__version__}",
+        invariant=1,
     )
     from reportlab import rl_config
 
     a85 = rl_config.useA85
     rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
     try:
-        doc.build(story, canvasmaker=_numbered_canvas(footer, study.title[:90],
-                                                      when=_last_time(study)))
+        doc.build(
+            story, canvasmaker=_numbered_canvas(footer, study.title[:90], when=_last_time(study))
+        )
     finally:
         rl_config.useA85 = a85
     return (buf.getvalue() if out is None else None), boxes
@@ -1427,9 +1861,13 @@ def _extra_sections(story, section, results, positions, st, width) -> int:
     return section
 
 
-def build_report(study_path_or_study, out_path, *,
-                 progress: Callable[[int, int, str], None] | None = None,
-                 gauges: Mapping | None = None) -> ReportInfo:
+def build_report(
+    study_path_or_study,
+    out_path,
+    *,
+    progress: Callable[[int, int, str], None] | None = None,
+    gauges: Mapping | None = None,
+) -> ReportInfo:
     r"""Write the evidence PDF of a study.
 
     Parameters
@@ -1482,8 +1920,9 @@ def build_report(study_path_or_study, out_path, *,
         if progress is not None:
             progress(done, total, f"analysed {name}")
 
-    results, errors, measurements = analyze_for_report(study, stored_gauges,
-                                                       progress=_analysis_progress)
+    results, errors, measurements = analyze_for_report(
+        study, stored_gauges, progress=_analysis_progress
+    )
     evidence = collect_evidence(study, results, errors, stored_gauges, chain)
     # stored short gauge studies (one reference part) go into the evidence when there are any
     from studykit.report import gauge_error
@@ -1497,8 +1936,9 @@ def build_report(study_path_or_study, out_path, *,
     positions = stored_positions(study_path)
     if positions:
         evidence["positions"] = positions
-    evidence_bytes = json.dumps(evidence, sort_keys=True, indent=1, ensure_ascii=False,
-                                allow_nan=False).encode("utf-8")
+    evidence_bytes = json.dumps(
+        evidence, sort_keys=True, indent=1, ensure_ascii=False, allow_nan=False
+    ).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
     out = Path(out_path)
     pages_path = out.with_name(out.name + ".pages.part")
@@ -1506,10 +1946,20 @@ def build_report(study_path_or_study, out_path, *,
     try:
         # pages go to disk as they are laid out; the evidence is appended to that file as an
         # update, so the document is never held in memory as a whole
-        _, boxes = render_pages(study, results, errors, measurements, stored_gauges,
-                                chain=chain, evidence_sha=evidence_sha,
-                                short_gauges=short_gauges, positions=positions,
-                                progress=progress, total=total, out=pages_path)
+        _, boxes = render_pages(
+            study,
+            results,
+            errors,
+            measurements,
+            stored_gauges,
+            chain=chain,
+            evidence_sha=evidence_sha,
+            short_gauges=short_gauges,
+            positions=positions,
+            progress=progress,
+            total=total,
+            out=pages_path,
+        )
         _attach(pages_path, evidence_bytes, boxes, tmp)
         os.replace(tmp, out)
     finally:

@@ -20,8 +20,9 @@ from studykit.stats.position import PositionResult
 __all__ = ["position_figure"]
 
 
-def position_figure(result: PositionResult, *, ax=None, unit: str | None = None,
-                    size: float = 4.8) -> Figure:
+def position_figure(
+    result: PositionResult, *, ax=None, unit: str | None = None, size: float = 4.8
+) -> Figure:
     """Scatter of (dx, dy) with the true-position zone and the fitted ellipse.
 
     Parameters
@@ -57,25 +58,48 @@ def position_figure(result: PositionResult, *, ax=None, unit: str | None = None,
             fig = ax.figure
         r = result.tolerance / 2.0
         theta = np.linspace(0.0, 2.0 * math.pi, 361)
-        ax.plot(r * np.cos(theta), r * np.sin(theta), **{
-            **theme.mpl_line_kwargs("spec_limit"),
-            "label": f"Position zone, diameter {result.tolerance:g}"})
+        ax.plot(
+            r * np.cos(theta),
+            r * np.sin(theta),
+            **{
+                **theme.mpl_line_kwargs("spec_limit"),
+                "label": f"Position zone, diameter {result.tolerance:g}",
+            },
+        )
         a, b = result.ellipse_axes
         phi = math.radians(result.ellipse_angle)
         ex = a * np.cos(theta) * math.cos(phi) - b * np.sin(theta) * math.sin(phi)
         ey = a * np.cos(theta) * math.sin(phi) + b * np.sin(theta) * math.cos(phi)
-        ax.plot(result.mean_x + ex, result.mean_y + ey, **{
-            **theme.mpl_line_kwargs("fit"),
-            "label": f"Fitted ellipse ({100 * result.ellipse_level:g} %)"})
+        ax.plot(
+            result.mean_x + ex,
+            result.mean_y + ey,
+            **{
+                **theme.mpl_line_kwargs("fit"),
+                "label": f"Fitted ellipse ({100 * result.ellipse_level:g} %)",
+            },
+        )
         inside = np.ones(result.n, dtype=bool)
         inside[list(result.outside)] = False
-        ax.scatter(result.dx[inside], result.dy[inside],
-                   **{**theme.mpl_marker_kwargs("data"), "label": "Parts"})
+        ax.scatter(
+            result.dx[inside],
+            result.dy[inside],
+            **{**theme.mpl_marker_kwargs("data"), "label": "Parts"},
+        )
         if result.outside:
-            ax.scatter(result.dx[~inside], result.dy[~inside],
-                       **{**theme.mpl_marker_kwargs("signal"), "label": "Outside the zone"})
-        ax.plot([result.mean_x], [result.mean_y], linestyle="none", marker="+",
-                markersize=12, color=theme.color("centre_line"), label="Mean position")
+            ax.scatter(
+                result.dx[~inside],
+                result.dy[~inside],
+                **{**theme.mpl_marker_kwargs("signal"), "label": "Outside the zone"},
+            )
+        ax.plot(
+            [result.mean_x],
+            [result.mean_y],
+            linestyle="none",
+            marker="+",
+            markersize=12,
+            color=theme.color("centre_line"),
+            label="Mean position",
+        )
         ax.axhline(0.0, color=theme.RULE, linewidth=0.8, zorder=0)
         ax.axvline(0.0, color=theme.RULE, linewidth=0.8, zorder=0)
         ax.set_aspect("equal", adjustable="datalim")
@@ -89,6 +113,7 @@ def position_figure(result: PositionResult, *, ax=None, unit: str | None = None,
         ax.set_title("Position against the zone", loc="left", fontweight="bold", fontsize=11)
         for side in ("top", "right"):
             ax.spines[side].set_visible(False)
-        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=2, fontsize=7,
-                  frameon=False)
+        ax.legend(
+            loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=2, fontsize=7, frameon=False
+        )
     return fig

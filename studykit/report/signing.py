@@ -63,8 +63,12 @@ class DemoCertificate:
     fingerprint_sha256: str
 
     def to_dict(self) -> dict:
-        return {"p12_path": self.p12_path, "cert_path": self.cert_path, "subject": self.subject,
-                "fingerprint_sha256": self.fingerprint_sha256}
+        return {
+            "p12_path": self.p12_path,
+            "cert_path": self.cert_path,
+            "subject": self.subject,
+            "fingerprint_sha256": self.fingerprint_sha256,
+        }
 
 
 @dataclass(frozen=True)
@@ -137,10 +141,14 @@ class CertificateInfo:
         return f"valid {_iso(self.not_before)} to {_iso(self.not_after)}"
 
     def to_dict(self) -> dict:
-        return {"subject": self.subject, "issuer": self.issuer,
-                "fingerprint_sha256": self.fingerprint_sha256,
-                "not_before": _iso(self.not_before), "not_after": _iso(self.not_after),
-                "self_signed": self.self_signed}
+        return {
+            "subject": self.subject,
+            "issuer": self.issuer,
+            "fingerprint_sha256": self.fingerprint_sha256,
+            "not_before": _iso(self.not_before),
+            "not_after": _iso(self.not_after),
+            "self_signed": self.self_signed,
+        }
 
 
 def _iso(when: _dt.datetime) -> str:
@@ -157,10 +165,13 @@ def certificate_info(cert) -> CertificateInfo:
     nb = validity["not_before"].native
     na = validity["not_after"].native
     return CertificateInfo(
-        subject=cert.subject.human_friendly, issuer=cert.issuer.human_friendly,
-        fingerprint_sha256=":".join(fp[i:i + 2] for i in range(0, len(fp), 2)),
-        not_before=nb.astimezone(_dt.UTC), not_after=na.astimezone(_dt.UTC),
-        self_signed=cert.subject == cert.issuer)
+        subject=cert.subject.human_friendly,
+        issuer=cert.issuer.human_friendly,
+        fingerprint_sha256=":".join(fp[i : i + 2] for i in range(0, len(fp), 2)),
+        not_before=nb.astimezone(_dt.UTC),
+        not_after=na.astimezone(_dt.UTC),
+        self_signed=cert.subject == cert.issuer,
+    )
 
 
 def outside_event_loop(fn, /, *args, **kwargs):
@@ -186,8 +197,14 @@ def _slug(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", text).strip("_") or "signer"
 
 
-def make_demo_certificate(out_dir, *, name: str = "Demo Signer", passphrase: str,
-                          days: int = 365, when: _dt.datetime | None = None) -> DemoCertificate:
+def make_demo_certificate(
+    out_dir,
+    *,
+    name: str = "Demo Signer",
+    passphrase: str,
+    days: int = 365,
+    when: _dt.datetime | None = None,
+) -> DemoCertificate:
     """Write a self-signed DEMO signing certificate and its PKCS#12 bundle.
 
     Parameters
@@ -234,11 +251,13 @@ def make_demo_certificate(out_dir, *, name: str = "Demo Signer", passphrase: str
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     key = rsa.generate_private_key(public_exponent=65537, key_size=2048)
-    subject = x509.Name([
-        x509.NameAttribute(NameOID.COMMON_NAME, name.strip()),
-        x509.NameAttribute(NameOID.ORGANIZATION_NAME, DEMO_ORGANISATION),
-        x509.NameAttribute(NameOID.ORGANIZATIONAL_UNIT_NAME, "DEMO ONLY"),
-    ])
+    subject = x509.Name(
+        [
+            x509.NameAttribute(NameOID.COMMON_NAME, name.strip()),
+            x509.NameAttribute(NameOID.ORGANIZATION_NAME, DEMO_ORGANISATION),
+            x509.NameAttribute(NameOID.ORGANIZATIONAL_UNIT_NAME, "DEMO ONLY"),
+        ]
+    )
     start = when or _dt.datetime.now(_dt.UTC)
     cert = (
         x509.CertificateBuilder()
@@ -249,27 +268,43 @@ def make_demo_certificate(out_dir, *, name: str = "Demo Signer", passphrase: str
         .not_valid_before(start - _dt.timedelta(minutes=5))
         .not_valid_after(start + _dt.timedelta(days=int(days)))
         .add_extension(x509.BasicConstraints(ca=True, path_length=None), critical=True)
-        .add_extension(x509.KeyUsage(digital_signature=True, content_commitment=True,
-                                     key_encipherment=False, data_encipherment=False,
-                                     key_agreement=False, key_cert_sign=True, crl_sign=False,
-                                     encipher_only=False, decipher_only=False), critical=True)
-        .add_extension(x509.SubjectKeyIdentifier.from_public_key(key.public_key()),
-                       critical=False)
+        .add_extension(
+            x509.KeyUsage(
+                digital_signature=True,
+                content_commitment=True,
+                key_encipherment=False,
+                data_encipherment=False,
+                key_agreement=False,
+                key_cert_sign=True,
+                crl_sign=False,
+                encipher_only=False,
+                decipher_only=False,
+            ),
+            critical=True,
+        )
+        .add_extension(x509.SubjectKeyIdentifier.from_public_key(key.public_key()), critical=False)
         .sign(key, hashes.SHA256())
     )
     stem = _slug(name)
     p12 = out / f"{stem}.p12"
     crt = out / f"{stem}.crt.pem"
-    p12.write_bytes(pkcs12.serialize_key_and_certificates(
-        name.encode("utf-8"), key, cert, None,
-        serialization.BestAvailableEncryption(passphrase.encode("utf-8"))))
+    p12.write_bytes(
+        pkcs12.serialize_key_and_certificates(
+            name.encode("utf-8"),
+            key,
+            cert,
+            None,
+            serialization.BestAvailableEncryption(passphrase.encode("utf-8")),
+        )
+    )
     try:
         os.chmod(p12, 0o600)
     except OSError:  # pragma: no cover - e.g. some network file systems
         pass
     crt.write_bytes(cert.public_bytes(serialization.Encoding.PEM))
-    return DemoCertificate(str(p12), str(crt), subject.rfc4514_string(),
-                           cert.fingerprint(hashes.SHA256()).hex())
+    return DemoCertificate(
+        str(p12), str(crt), subject.rfc4514_string(), cert.fingerprint(hashes.SHA256()).hex()
+    )
 
 
 def signature_count(pdf_bytes: bytes) -> int:
@@ -303,8 +338,17 @@ def _boxes(pdf_bytes: bytes) -> dict:
         return {}
 
 
-def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
-                visible: bool = True, p12_data: bytes | None = None) -> SignatureInfo:
+def sign_report(
+    pdf_in,
+    pdf_out,
+    p12_path,
+    passphrase,
+    *,
+    role: str,
+    name: str,
+    visible: bool = True,
+    p12_data: bytes | None = None,
+) -> SignatureInfo:
     """Add one PAdES signature to a report (incremental update; earlier ones stay intact).
 
     Parameters
@@ -344,8 +388,10 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     role = (role or "").strip()
     name = (name or "").strip()
     if not role:
-        raise StudyInputError("`role` must not be empty: say what the signature means, e.g. "
-                              "prepared, reviewed or approved")
+        raise StudyInputError(
+            "`role` must not be empty: say what the signature means, e.g. "
+            "prepared, reviewed or approved"
+        )
     if not name:
         raise StudyInputError("`name` must not be empty: give the signer's name")
     src = Path(pdf_in)
@@ -353,27 +399,33 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
         raise StudyFileError(f"report '{src}' does not exist: check the path")
     p12 = Path(p12_path)
     if p12_data is None and not p12.exists():
-        raise StudyInputError(f"`p12_path` '{p12}' does not exist: give the signer's .p12 file "
-                              "(studykit keygen --demo makes one for trying it out)")
+        raise StudyInputError(
+            f"`p12_path` '{p12}' does not exist: give the signer's .p12 file "
+            "(studykit keygen --demo makes one for trying it out)"
+        )
     pw = passphrase.encode("utf-8") if isinstance(passphrase, str) else passphrase
     try:
         if p12_data is not None:
-            signer = signers.SimpleSigner.load_pkcs12_data(bytes(p12_data), other_certs=(),
-                                                           passphrase=pw)
+            signer = signers.SimpleSigner.load_pkcs12_data(
+                bytes(p12_data), other_certs=(), passphrase=pw
+            )
         else:
             signer = signers.SimpleSigner.load_pkcs12(str(p12), passphrase=pw)
     except (ValueError, TypeError) as exc:
         raise StudyInputError(f"cannot open '{p12.name}': {exc} (wrong passphrase?)") from None
     if signer is None:
-        raise StudyInputError(f"cannot open '{p12.name}': wrong passphrase or not a PKCS#12 "
-                              "file with a key and a certificate")
+        raise StudyInputError(
+            f"cannot open '{p12.name}': wrong passphrase or not a PKCS#12 "
+            "file with a key and a certificate"
+        )
     info = certificate_info(signer.signing_cert)
     now = _dt.datetime.now(_dt.UTC)
     if not info.valid_at(now):
         raise StudyInputError(
             f"the certificate in '{p12.name}' ({info.subject}) is "
             f"{info.validity_problem(now)}: a signature made with it would not be evidence. "
-            "Use a certificate valid now")
+            "Use a certificate valid now"
+        )
     data = src.read_bytes()
     field_name = next_field_name(data)
     reason = f"{role}: {name}"
@@ -383,16 +435,17 @@ def sign_report(pdf_in, pdf_out, p12_path, passphrase, *, role: str, name: str,
     stamp = None
     if box:
         page, x1, y1, x2, y2 = box
-        new_field = fields.SigFieldSpec(sig_field_name=field_name, on_page=int(page),
-                                        box=(x1, y1, x2, y2))
+        new_field = fields.SigFieldSpec(
+            sig_field_name=field_name, on_page=int(page), box=(x1, y1, x2, y2)
+        )
         stamp = TextStampStyle(
             stamp_text=f"Signed ({role}) by %(signer)s\nReason: {reason}\nTime: %(ts)s",
             border_width=0,
         )
-    meta = signers.PdfSignatureMetadata(field_name=field_name, reason=reason,
-                                        name=name, location=None)
-    pdf_signer = signers.PdfSigner(meta, signer=signer, stamp_style=stamp,
-                                   new_field_spec=new_field)
+    meta = signers.PdfSignatureMetadata(
+        field_name=field_name, reason=reason, name=name, location=None
+    )
+    pdf_signer = signers.PdfSigner(meta, signer=signer, stamp_style=stamp, new_field_spec=new_field)
     out_buf = io.BytesIO()
     outside_event_loop(pdf_signer.sign_pdf, w, output=out_buf)
     dst = Path(pdf_out)

@@ -4,9 +4,19 @@ from __future__ import annotations
 
 __all__ = ["time_model_block", "time_model_rows"]
 
-_NAMES = {"pp": "Pp", "ppk": "Ppk", "ppu": "PPU", "ppl": "PPL", "sigma": "sigma_total",
-          "mu_low": "travel from", "mu_high": "travel to", "sigma_r": "sigma about the trend",
-          "x0135": "0.135 % point", "x50": "50 % point", "x99865": "99.865 % point"}
+_NAMES = {
+    "pp": "Pp",
+    "ppk": "Ppk",
+    "ppu": "PPU",
+    "ppl": "PPL",
+    "sigma": "sigma_total",
+    "mu_low": "travel from",
+    "mu_high": "travel to",
+    "sigma_r": "sigma about the trend",
+    "x0135": "0.135 % point",
+    "x50": "50 % point",
+    "x99865": "99.865 % point",
+}
 
 
 def _n(v, digits=4) -> str:
@@ -18,23 +28,39 @@ def time_model_rows(tm) -> list[list[str]]:
     vc = tm.components
     rows = [["Evidence", "Value"]]
     if vc is not None:
-        rows.append(["Between subgroups (random-effects ANOVA)",
-                     f"F = {_n(vc.f)}, p = {_n(vc.p_value, 3)}; sigma between {_n(vc.sigma_between)}"
-                     f", within {_n(vc.sigma_within)}, total {_n(vc.sigma_total)} "
-                     f"(between share {vc.between_share * 100:.0f} %)"])
+        rows.append(
+            [
+                "Between subgroups (random-effects ANOVA)",
+                f"F = {_n(vc.f)}, p = {_n(vc.p_value, 3)}; sigma between {_n(vc.sigma_between)}"
+                f", within {_n(vc.sigma_within)}, total {_n(vc.sigma_total)} "
+                f"(between share {vc.between_share * 100:.0f} %)",
+            ]
+        )
     if tm.trend is not None:
         t = tm.trend
-        rows.append(["Trend of the subgroup means (Mann-Kendall)",
-                     f"tau = {_n(t['tau'], 3)}, p = {_n(t['p_value'], 3)}; slope "
-                     f"{_n(t['slope'])} per subgroup; random part about it p = "
-                     f"{_n(t['residual_p'], 3)}"])
+        rows.append(
+            [
+                "Trend of the subgroup means (Mann-Kendall)",
+                f"tau = {_n(t['tau'], 3)}, p = {_n(t['p_value'], 3)}; slope "
+                f"{_n(t['slope'])} per subgroup; random part about it p = "
+                f"{_n(t['residual_p'], 3)}",
+            ]
+        )
     if tm.spread is not None:
-        rows.append(["Spread of the subgroups (Brown-Forsythe)",
-                     f"W = {_n(tm.spread.statistic, 3)}, p = {_n(tm.spread.p_value, 3)}"])
+        rows.append(
+            [
+                "Spread of the subgroups (Brown-Forsythe)",
+                f"W = {_n(tm.spread.statistic, 3)}, p = {_n(tm.spread.p_value, 3)}",
+            ]
+        )
     if tm.shape is not None:
-        rows.append(["Shape (Anderson-Darling)",
-                     f"all readings p = {_n(tm.shape['p_value'], 3)}; each subgroup centred "
-                     f"p = {_n(tm.shape['within_p_value'], 3)}"])
+        rows.append(
+            [
+                "Shape (Anderson-Darling)",
+                f"all readings p = {_n(tm.shape['p_value'], 3)}; each subgroup centred "
+                f"p = {_n(tm.shape['within_p_value'], 3)}",
+            ]
+        )
     for k, v in tm.indices.items():
         rows.append([f"{_NAMES.get(k, k)} (class {tm.cls} method)", _n(v, 5)])
     return rows
@@ -49,13 +75,23 @@ def time_model_block(story, result, st, width, *, table, esc) -> None:
 
     head = Paragraph("Time-dependent model (ISO 22514-2)", st["h2"])
     if tm.cls is None:
-        story.append(KeepTogether([head, Paragraph(esc(f"Not classified: {tm.reason}."),
-                                                   st["body"])]))
+        story.append(
+            KeepTogether([head, Paragraph(esc(f"Not classified: {tm.reason}."), st["body"])])
+        )
         return
-    text = (f"<b>Class {esc(tm.cls)}</b>: location {esc(tm.to_dict()['location'])}, spread "
-            f"{esc(tm.to_dict()['spread'])}. The capability of this class uses "
-            f"{esc(tm.method)}. Classes and methods as recalled from ISO 22514-2 (from memory, "
-            "not from the standard's text); each test at 0.05.")
+    text = (
+        f"<b>Class {esc(tm.cls)}</b>: location {esc(tm.to_dict()['location'])}, spread "
+        f"{esc(tm.to_dict()['spread'])}. The capability of this class uses "
+        f"{esc(tm.method)}. Classes and methods as recalled from ISO 22514-2 (from memory, "
+        "not from the standard's text); each test at 0.05."
+    )
     rows = [[esc(c) for c in r] for r in time_model_rows(tm)]
-    story.append(KeepTogether([head, Paragraph(text, st["body"]),
-                               table(rows, [0.38 * width, 0.62 * width], styles=st)]))
+    story.append(
+        KeepTogether(
+            [
+                head,
+                Paragraph(text, st["body"]),
+                table(rows, [0.38 * width, 0.62 * width], styles=st),
+            ]
+        )
+    )

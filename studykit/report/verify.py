@@ -38,12 +38,23 @@ from studykit.report.pdf import (
     read_evidence_bytes,
 )
 
-__all__ = ["EXIT_CODES", "Check", "VerifyResult", "verify_report", "compare_numbers",
-           "study_from_evidence"]
+__all__ = [
+    "EXIT_CODES",
+    "Check",
+    "VerifyResult",
+    "verify_report",
+    "compare_numbers",
+    "study_from_evidence",
+]
 
 #: exit status of ``studykit verify`` per :attr:`VerifyResult.status`
-EXIT_CODES = {"verified": 0, "consistent_unsigned": 0, "signer_not_established": 3,
-              "not_evidence": 1, "not_verified": 1}
+EXIT_CODES = {
+    "verified": 0,
+    "consistent_unsigned": 0,
+    "signer_not_established": 3,
+    "not_evidence": 1,
+    "not_verified": 1,
+}
 
 ABSOLUTE_TOLERANCE = 1e-12
 
@@ -135,33 +146,49 @@ class VerifyResult:
         return tuple(c for c in self.checks if c.status == "fail")
 
     def to_dict(self) -> dict:
-        return {"path": self.path, "ok": self.ok, "status": self.status,
-                "exit_code": self.exit_code, "consistent": self.consistent,
-                "signed": self.signed, "signers": [dict(x) for x in self.signers],
-                "numbers_checked": self.numbers_checked,
-                "tolerance": {"relative": RELATIVE_TOLERANCE, "absolute": ABSOLUTE_TOLERANCE},
-                "checks": [c.to_dict() for c in self.checks]}
+        return {
+            "path": self.path,
+            "ok": self.ok,
+            "status": self.status,
+            "exit_code": self.exit_code,
+            "consistent": self.consistent,
+            "signed": self.signed,
+            "signers": [dict(x) for x in self.signers],
+            "numbers_checked": self.numbers_checked,
+            "tolerance": {"relative": RELATIVE_TOLERANCE, "absolute": ABSOLUTE_TOLERANCE},
+            "checks": [c.to_dict() for c in self.checks],
+        }
 
     def summary(self) -> str:
         fails = len(self.failures)
         skips = sum(1 for c in self.checks if c.status == "skip")
         status = self.status
         if status == "verified":
-            who = "; ".join(f"{x['subject']} ({x['fingerprint_sha256'][:23]}...)"
-                            for x in self.signers)
-            return (f"VERIFIED: signed by trusted certificate(s) {who}; "
-                    f"{self.numbers_checked} numbers and every page agree with the recomputed "
-                    "study")
+            who = "; ".join(
+                f"{x['subject']} ({x['fingerprint_sha256'][:23]}...)" for x in self.signers
+            )
+            return (
+                f"VERIFIED: signed by trusted certificate(s) {who}; "
+                f"{self.numbers_checked} numbers and every page agree with the recomputed "
+                "study"
+            )
         if status == "consistent_unsigned":
-            return (f"CONSISTENT BUT UNSIGNED (accepted by --allow-unsigned): "
-                    f"{self.numbers_checked} numbers and every page agree, but nothing shows "
-                    "who made this report")
+            return (
+                f"CONSISTENT BUT UNSIGNED (accepted by --allow-unsigned): "
+                f"{self.numbers_checked} numbers and every page agree, but nothing shows "
+                "who made this report"
+            )
         if status == "signer_not_established":
-            who = "; ".join(f"{x['subject']}, SHA-256 fingerprint {x['fingerprint_sha256']}"
-                            for x in self.signers if x.get("trust") != "trusted")
-            return (f"NOT VERIFIED - SIGNER UNTRUSTED: {self.numbers_checked} numbers agree, "
-                    f"but nothing establishes the signer ({who}); compare the fingerprint with "
-                    "the signer's certificate, or give --trust CERT.pem")
+            who = "; ".join(
+                f"{x['subject']}, SHA-256 fingerprint {x['fingerprint_sha256']}"
+                for x in self.signers
+                if x.get("trust") != "trusted"
+            )
+            return (
+                f"NOT VERIFIED - SIGNER UNTRUSTED: {self.numbers_checked} numbers agree, "
+                f"but nothing establishes the signer ({who}); compare the fingerprint with "
+                "the signer's certificate, or give --trust CERT.pem"
+            )
         parts = []
         if status == "not_evidence":
             parts.append("unsigned")
@@ -171,8 +198,10 @@ class VerifyResult:
         if skips:
             parts.append(f"{skips} check(s) not made")
         if status == "not_evidence":
-            return ("NOT EVIDENCE: " + ", ".join(parts) + " (give --allow-unsigned to check "
-                    "the content of an unsigned report)")
+            return (
+                "NOT EVIDENCE: " + ", ".join(parts) + " (give --allow-unsigned to check "
+                "the content of an unsigned report)"
+            )
         return "NOT VERIFIED: " + ", ".join(parts)
 
 
@@ -184,8 +213,14 @@ def _is_number(v) -> bool:
     return isinstance(v, int | float) and not isinstance(v, bool)
 
 
-def compare_numbers(reported, recomputed, *, path: str = "", rtol: float = RELATIVE_TOLERANCE,
-                    atol: float = ABSOLUTE_TOLERANCE) -> tuple[int, list[str]]:
+def compare_numbers(
+    reported,
+    recomputed,
+    *,
+    path: str = "",
+    rtol: float = RELATIVE_TOLERANCE,
+    atol: float = ABSOLUTE_TOLERANCE,
+) -> tuple[int, list[str]]:
     """Compare two JSON trees; returns (numbers compared, differences as sentences).
 
     Numbers agree when ``|a - b| <= max(rtol * max(|a|, |b|), atol)``; text, booleans and None
@@ -262,24 +297,31 @@ def study_from_evidence(evidence: dict, data):
         blobs = dict(data) if isinstance(data, dict) else {files[0]["filename"]: data}
         missing = [f["filename"] for f in files if f["filename"] not in blobs]
         if missing:
-            raise StudyInputError("the report was made from " + ", ".join(
-                f"'{f['filename']}'" for f in files) + "; give every one of them with --data "
-                "(missing: " + ", ".join(f"'{m}'" for m in missing) + ")")
+            raise StudyInputError(
+                "the report was made from "
+                + ", ".join(f"'{f['filename']}'" for f in files)
+                + "; give every one of them with --data "
+                "(missing: " + ", ".join(f"'{m}'" for m in missing) + ")"
+            )
         first = files[0]["filename"]
         order = [n for n in s.get("characteristic_order") or () if n in s["characteristics"]]
         order += [n for n in s["characteristics"] if n not in order]
         signoff_fields = ("name", "role", "decision", "comment", "when", "digest", "chain_head")
         return Study(
-            title=s["title"], part=s.get("part", ""), supplier=s.get("supplier", ""),
-            data=blobs[first], data_filename=first,
-            extra_files=tuple(DataFile(f["filename"], blobs[f["filename"]])
-                              for f in files[1:]),
+            title=s["title"],
+            part=s.get("part", ""),
+            supplier=s.get("supplier", ""),
+            data=blobs[first],
+            data_filename=first,
+            extra_files=tuple(DataFile(f["filename"], blobs[f["filename"]]) for f in files[1:]),
             characteristics=[Characteristic.from_dict(s["characteristics"][n]) for n in order],
             criteria={n: Criteria.from_dict(c) for n, c in s["criteria"].items()},
             decisions=[Decision.from_dict(d) for d in s["decisions"]],
             comments=tuple(Comment(**c) for c in s.get("comments", ())),
-            signoffs=tuple(SignOff(**{k: v for k, v in so.items() if k in signoff_fields})
-                           for so in s.get("signoffs", ())),
+            signoffs=tuple(
+                SignOff(**{k: v for k, v in so.items() if k in signoff_fields})
+                for so in s.get("signoffs", ())
+            ),
         )
     except (KeyError, TypeError) as exc:
         raise StudyFileError(f"the embedded study content is incomplete ({exc})") from None
@@ -289,8 +331,9 @@ def study_from_evidence(evidence: dict, data):
 # signatures
 
 
-def _signature_checks(pdf_bytes: bytes, trust, allow_unsigned: bool = False
-                      ) -> tuple[list[Check], bool, list[dict]]:
+def _signature_checks(
+    pdf_bytes: bytes, trust, allow_unsigned: bool = False
+) -> tuple[list[Check], bool, list[dict]]:
     """One check per signature (intact, covers the file, certificate valid when it signed,
     trusted); the certificate's subject, SHA-256 fingerprint, validity and trust are always
     named. Returns (checks, signed, signers)."""
@@ -309,27 +352,65 @@ def _signature_checks(pdf_bytes: bytes, trust, allow_unsigned: bool = False
         try:
             roots.append(load_cert_from_pemder(str(t)))
         except Exception as exc:  # noqa: BLE001
-            raise StudyInputError(f"`--trust` '{t}' is not a PEM/DER certificate ({exc})") \
-                from None
+            raise StudyInputError(f"`--trust` '{t}' is not a PEM/DER certificate ({exc})") from None
     root_prints = {certificate_info(r).fingerprint_sha256 for r in roots}
     try:
         reader = PdfFileReader(io.BytesIO(pdf_bytes), strict=False)
         sigs = reader.embedded_signatures
     except Exception as exc:  # noqa: BLE001 - any parse failure is a failed check
-        return [Check("PDF structure", "fail", f"the PDF cannot be parsed ({exc}); it was "
-                      "altered or is not a PDF")], False, []
+        return (
+            [
+                Check(
+                    "PDF structure",
+                    "fail",
+                    f"the PDF cannot be parsed ({exc}); it was altered or is not a PDF",
+                )
+            ],
+            False,
+            [],
+        )
     if not sigs:
         if roots:
-            return [Check("signatures", "fail", "UNSIGNED, but --trust asks for a signature "
-                          "by a trusted certificate: the report carries none (a signature "
-                          "cut off leaves exactly this)")], False, []
+            return (
+                [
+                    Check(
+                        "signatures",
+                        "fail",
+                        "UNSIGNED, but --trust asks for a signature "
+                        "by a trusted certificate: the report carries none (a signature "
+                        "cut off leaves exactly this)",
+                    )
+                ],
+                False,
+                [],
+            )
         if allow_unsigned:
-            return [Check("signatures", "info", "unsigned: the report carries no digital "
-                          "signature; its content is checked because --allow-unsigned was "
-                          "given")], False, []
-        return [Check("signatures", "fail", "NOT EVIDENCE: unsigned; the report carries no "
-                      "digital signature, so nothing shows who made it or that it is unchanged "
-                      "(--allow-unsigned checks its content anyway)")], False, []
+            return (
+                [
+                    Check(
+                        "signatures",
+                        "info",
+                        "unsigned: the report carries no digital "
+                        "signature; its content is checked because --allow-unsigned was "
+                        "given",
+                    )
+                ],
+                False,
+                [],
+            )
+        return (
+            [
+                Check(
+                    "signatures",
+                    "fail",
+                    "NOT EVIDENCE: unsigned; the report carries no "
+                    "digital signature, so nothing shows who made it or that it is unchanged "
+                    "(--allow-unsigned checks its content anyway)",
+                )
+            ],
+            False,
+            [],
+        )
     vc = ValidationContext(trust_roots=roots)
     logger = logging.getLogger("pyhanko")
     level = logger.level
@@ -343,14 +424,17 @@ def _signature_checks(pdf_bytes: bytes, trust, allow_unsigned: bool = False
                 reason = str(reason) if reason is not None else ""
                 info = certificate_info(sig.signer_cert)
             except Exception as exc:  # noqa: BLE001
-                checks.append(Check(label, "fail", f"the signer's certificate cannot be read "
-                                    f"({exc})"))
+                checks.append(
+                    Check(label, "fail", f"the signer's certificate cannot be read ({exc})")
+                )
                 continue
             if reason:
                 label += f" ({reason})"
-            cert_text = (f"certificate {info.subject} ("
-                         + ("self-signed" if info.self_signed else f"issued by {info.issuer}")
-                         + f"), SHA-256 fingerprint {info.fingerprint_sha256}, {info.period()}")
+            cert_text = (
+                f"certificate {info.subject} ("
+                + ("self-signed" if info.self_signed else f"issued by {info.issuer}")
+                + f"), SHA-256 fingerprint {info.fingerprint_sha256}, {info.period()}"
+            )
             signer = dict(info.to_dict(), field=sig.field_name, reason=reason, trust="")
             signers.append(signer)
             try:
@@ -361,35 +445,63 @@ def _signature_checks(pdf_bytes: bytes, trust, allow_unsigned: bool = False
                 continue
             last = i == len(sigs) - 1
             if not (st.intact and st.valid):
-                checks.append(Check(label, "fail", "NOT INTACT: the signed bytes were changed "
-                                    f"after signing; {cert_text}"))
+                checks.append(
+                    Check(
+                        label,
+                        "fail",
+                        f"NOT INTACT: the signed bytes were changed after signing; {cert_text}",
+                    )
+                )
                 signer["trust"] = "invalid"
                 continue
             mod = getattr(st, "modification_level", None)
             mod_name = getattr(mod, "name", str(mod))
             if mod_name not in ("NONE", "LTA_UPDATES", "FORM_FILLING"):
-                checks.append(Check(label, "fail", "intact, but the file was changed after this "
-                                    f"signature in a way signing does not explain ({mod_name}); "
-                                    f"{cert_text}"))
+                checks.append(
+                    Check(
+                        label,
+                        "fail",
+                        "intact, but the file was changed after this "
+                        f"signature in a way signing does not explain ({mod_name}); "
+                        f"{cert_text}",
+                    )
+                )
                 signer["trust"] = "invalid"
                 continue
             cov = getattr(getattr(st, "coverage", None), "name", "")
             if last and cov != "ENTIRE_FILE":
-                checks.append(Check(label, "fail", "intact, but bytes were appended after the "
-                                    f"last signature; {cert_text}"))
+                checks.append(
+                    Check(
+                        label,
+                        "fail",
+                        f"intact, but bytes were appended after the last signature; {cert_text}",
+                    )
+                )
                 signer["trust"] = "invalid"
                 continue
             when = getattr(st, "signer_reported_dt", None)
             if when is None:
-                checks.append(Check(label, "fail", f"intact, but it states no signing time, so "
-                                    f"the certificate's validity cannot be checked; {cert_text}"))
+                checks.append(
+                    Check(
+                        label,
+                        "fail",
+                        f"intact, but it states no signing time, so "
+                        f"the certificate's validity cannot be checked; {cert_text}",
+                    )
+                )
                 signer["trust"] = "invalid"
                 continue
             signer["signed_at"] = when.astimezone(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
             problem = info.validity_problem(when)
             if problem:
-                checks.append(Check(label, "fail", f"intact, but the certificate was {problem} "
-                                    f"when it signed: not evidence; {cert_text}"))
+                checks.append(
+                    Check(
+                        label,
+                        "fail",
+                        f"intact, but the certificate was {problem} "
+                        f"when it signed: not evidence; {cert_text}",
+                    )
+                )
                 signer["trust"] = "invalid"
                 continue
             signed_s = f"signed {signer['signed_at']}"
@@ -398,19 +510,37 @@ def _signature_checks(pdf_bytes: bytes, trust, allow_unsigned: bool = False
                 # --trust certificates (a self-signed signer given as its own root)
                 if st.trusted or info.fingerprint_sha256 in root_prints:
                     signer["trust"] = "trusted"
-                    checks.append(Check(label, "pass", f"intact, {signed_s}; {cert_text}; "
-                                        "TRUSTED by the given --trust certificate(s)"))
+                    checks.append(
+                        Check(
+                            label,
+                            "pass",
+                            f"intact, {signed_s}; {cert_text}; "
+                            "TRUSTED by the given --trust certificate(s)",
+                        )
+                    )
                 else:
                     signer["trust"] = "not trusted"
-                    checks.append(Check(label, "fail", f"intact, {signed_s}; {cert_text}; NOT "
-                                        "trusted by the given --trust certificate(s): another "
-                                        "signer, or a look-alike certificate"))
+                    checks.append(
+                        Check(
+                            label,
+                            "fail",
+                            f"intact, {signed_s}; {cert_text}; NOT "
+                            "trusted by the given --trust certificate(s): another "
+                            "signer, or a look-alike certificate",
+                        )
+                    )
             else:
                 signer["trust"] = "not established"
-                checks.append(Check(label, "warn", f"intact, {signed_s}; {cert_text}; signer "
-                                    "UNTRUSTED: no --trust given, so anyone could have made "
-                                    "this certificate; compare its fingerprint with the "
-                                    "signer's"))
+                checks.append(
+                    Check(
+                        label,
+                        "warn",
+                        f"intact, {signed_s}; {cert_text}; signer "
+                        "UNTRUSTED: no --trust given, so anyone could have made "
+                        "this certificate; compare its fingerprint with the "
+                        "signer's",
+                    )
+                )
     finally:
         logger.setLevel(level)
     return checks, True, signers
@@ -501,8 +631,9 @@ def _page_prints(pdf_bytes: bytes) -> list[tuple[str, list[str], str]]:
         for a in page.get("/Annots") or []:
             a = a.get_object()
             sub = str(a.get("/Subtype", ""))
-            ft = a.get("/FT") or (a.get("/Parent").get_object().get("/FT")
-                                  if a.get("/Parent") is not None else None)
+            ft = a.get("/FT") or (
+                a.get("/Parent").get_object().get("/FT") if a.get("/Parent") is not None else None
+            )
             if sub == "/Widget" and str(ft) == "/Sig":
                 continue  # a digital signature's field (its stamp in a role's box)
             foreign.append(sub.lstrip("/") or "unknown")
@@ -518,17 +649,23 @@ def _first_difference(a: str, b: str) -> str:
     la = [x.strip() for x in a.splitlines() if x.strip()]
     lb = [x.strip() for x in b.splitlines() if x.strip()]
     if la == lb:
-        return ("its text is as studykit prints it, but what is drawn differs (something was "
-                "drawn over it, whited out or an image replaced)")
+        return (
+            "its text is as studykit prints it, but what is drawn differs (something was "
+            "drawn over it, whited out or an image replaced)"
+        )
     extra = [x for x in la if x not in lb]
     gone = [x for x in lb if x not in la]
     bits = []
     if extra:
-        bits.append(f"shows text studykit did not print: {extra[0][:80]!r}"
-                    + (f" (and {len(extra) - 1} more line(s))" if len(extra) > 1 else ""))
+        bits.append(
+            f"shows text studykit did not print: {extra[0][:80]!r}"
+            + (f" (and {len(extra) - 1} more line(s))" if len(extra) > 1 else "")
+        )
     if gone:
-        bits.append(f"lacks text studykit printed: {gone[0][:80]!r}"
-                    + (f" (and {len(gone) - 1} more line(s))" if len(gone) > 1 else ""))
+        bits.append(
+            f"lacks text studykit printed: {gone[0][:80]!r}"
+            + (f" (and {len(gone) - 1} more line(s))" if len(gone) > 1 else "")
+        )
     return "; ".join(bits) or "its text differs in order or spacing"
 
 
@@ -541,19 +678,26 @@ def _pages_check(pdf_bytes: bytes, redrawn: bytes) -> Check:
     want = _page_prints(redrawn)
     problems = []
     if len(got) != len(want):
-        problems.append(f"the report has {len(got)} pages, studykit draws {len(want)} for this "
-                        "evidence")
+        problems.append(
+            f"the report has {len(got)} pages, studykit draws {len(want)} for this evidence"
+        )
     for i, (g, w) in enumerate(zip(got, want, strict=False), start=1):
         if g[1]:
-            problems.append(f"page {i} carries added marks studykit does not make "
-                            f"({', '.join(g[1])} annotation)")
+            problems.append(
+                f"page {i} carries added marks studykit does not make "
+                f"({', '.join(g[1])} annotation)"
+            )
         if g[0] != w[0]:
             problems.append(f"page {i} {_first_difference(g[2], w[2])}")
     if problems:
         more = f" (and {len(problems) - 3} more)" if len(problems) > 3 else ""
         return Check("every page", "fail", "; ".join(problems[:3]) + more)
-    return Check("every page", "pass", f"all {len(got)} pages are exactly what studykit draws "
-                 "from the embedded evidence (text, figures and marks)")
+    return Check(
+        "every page",
+        "pass",
+        f"all {len(got)} pages are exactly what studykit draws "
+        "from the embedded evidence (text, figures and marks)",
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -580,10 +724,12 @@ def _printed_numbers(pdf_bytes: bytes, evidence: dict) -> Check:
                 if f"{x:.2f}" not in text:
                     missing.append(f"{name} {key} {x:.2f}")
     if missing:
-        return Check("printed numbers", "fail", "the cover does not show the embedded "
-                     "values: " + "; ".join(missing[:5]))
-    return Check("printed numbers", "pass", f"the cover shows the {n} embedded verdict "
-                 "numbers")
+        return Check(
+            "printed numbers",
+            "fail",
+            "the cover does not show the embedded values: " + "; ".join(missing[:5]),
+        )
+    return Check("printed numbers", "pass", f"the cover shows the {n} embedded verdict numbers")
 
 
 def _read_data_files(data) -> dict:
@@ -593,8 +739,9 @@ def _read_data_files(data) -> dict:
     for d in paths:
         dpath = Path(d)
         if not dpath.is_file():
-            raise StudyInputError(f"`--data` '{dpath}' does not exist or is not a file: check "
-                                  "the path")
+            raise StudyInputError(
+                f"`--data` '{dpath}' does not exist or is not a file: check the path"
+            )
         if dpath.name in out:
             raise StudyInputError(f"`--data` names two files called '{dpath.name}'")
         out[dpath.name] = dpath.read_bytes()
@@ -616,26 +763,47 @@ def _data_checks(evidence: dict, given: dict) -> tuple[list[Check], dict]:
             matched[name] = blob
             used.add(gname)
             shown = name if gname == name else f"{gname} (recorded as {name})"
-            checks.append(Check(f"data digest {name}", "pass", f"{shown} has the SHA-256 the "
-                                "report records"))
+            checks.append(
+                Check(f"data digest {name}", "pass", f"{shown} has the SHA-256 the report records")
+            )
         elif name in given:
             digest = hashlib.sha256(given[name]).hexdigest()
             matched[name] = given[name]
             used.add(name)
-            checks.append(Check(f"data digest {name}", "fail", f"{name} differs from the data "
-                                f"the report was made from (report {want[:12]}..., file "
-                                f"{digest[:12]}...)"))
+            checks.append(
+                Check(
+                    f"data digest {name}",
+                    "fail",
+                    f"{name} differs from the data "
+                    f"the report was made from (report {want[:12]}..., file "
+                    f"{digest[:12]}...)",
+                )
+            )
         else:
-            checks.append(Check(f"data digest {name}", "fail", f"{name} (SHA-256 {want[:12]}...) "
-                                "is one of the report's data files but was not given: pass "
-                                "every data file with --data"))
+            checks.append(
+                Check(
+                    f"data digest {name}",
+                    "fail",
+                    f"{name} (SHA-256 {want[:12]}...) "
+                    "is one of the report's data files but was not given: pass "
+                    "every data file with --data",
+                )
+            )
     for n in given:
         if n not in used:
-            checks.append(Check(f"data file {n}", "fail", f"{n} is none of the report's data "
-                                "files (" + ", ".join(f["filename"] for f in files) + ")"))
+            checks.append(
+                Check(
+                    f"data file {n}",
+                    "fail",
+                    f"{n} is none of the report's data "
+                    "files (" + ", ".join(f["filename"] for f in files) + ")",
+                )
+            )
     if len(files) == 1:  # the name a single-file report has always used
-        checks = [Check("data digest", c.status, c.detail) if c.item.startswith("data digest")
-                  else c for c in checks]
+        checks = [
+            Check("data digest", c.status, c.detail) if c.item.startswith("data digest") else c
+            for c in checks
+        ]
     return checks, matched
 
 
@@ -653,27 +821,46 @@ def _chain_checks(study_path, evidence: dict) -> list[Check]:
     out.append(Check("study audit chain", "pass", chain.summary()))
     recorded = (evidence["study"].get("chain") or {}).get("head")
     if not recorded:
-        out.append(Check("report chain head", "info", "the report records no audit chain head "
-                         "(made before studykit recorded one, or not from a study file)"))
+        out.append(
+            Check(
+                "report chain head",
+                "info",
+                "the report records no audit chain head "
+                "(made before studykit recorded one, or not from a study file)",
+            )
+        )
         return out
     eid, _, h = str(recorded).partition(":")
     now = sf.chain_entry_hash(int(eid)) if eid.isdigit() else None
     if now == h:
         later = chain.entries - int(eid)
-        out.append(Check("report chain head", "pass", f"the study file's chain holds entry {eid} "
-                         "with the hash the report records"
-                         + (f"; {later} entr(ies) were added since" if later else "")))
+        out.append(
+            Check(
+                "report chain head",
+                "pass",
+                f"the study file's chain holds entry {eid} "
+                "with the hash the report records"
+                + (f"; {later} entr(ies) were added since" if later else ""),
+            )
+        )
     else:
-        out.append(Check("report chain head", "fail", f"the report records audit entry {eid} "
-                         f"with hash {h[:12]}..., but the study file's entry {eid} is "
-                         + (f"{now[:12]}..." if now else "missing")
-                         + ": this study file is not the one the report was made from, or its "
-                         "history was rewritten"))
+        out.append(
+            Check(
+                "report chain head",
+                "fail",
+                f"the report records audit entry {eid} "
+                f"with hash {h[:12]}..., but the study file's entry {eid} is "
+                + (f"{now[:12]}..." if now else "missing")
+                + ": this study file is not the one the report was made from, or its "
+                "history was rewritten",
+            )
+        )
     return out
 
 
-def verify_report(pdf_path, *, data=None, study=None, trust=(),
-                  allow_unsigned: bool = False) -> VerifyResult:
+def verify_report(
+    pdf_path, *, data=None, study=None, trust=(), allow_unsigned: bool = False
+) -> VerifyResult:
     """Verify a studykit evidence report.
 
     Parameters
@@ -721,8 +908,9 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
     checks, signed, signers = _signature_checks(pdf_bytes, trust, allow_unsigned)
 
     def result():
-        return VerifyResult(str(path), tuple(checks), signed, numbers, allow_unsigned,
-                            tuple(signers))
+        return VerifyResult(
+            str(path), tuple(checks), signed, numbers, allow_unsigned, tuple(signers)
+        )
 
     numbers = 0
     try:
@@ -733,13 +921,21 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
     except (StudyFileError, KeyError, TypeError, ValueError) as exc:
         checks.append(Check("embedded evidence", "fail", str(exc)))
         return result()
-    checks.append(Check("embedded evidence", "pass",
-                        f"{len(evidence.get('results', {}))} characteristic(s), "
-                        f"{len(files)} data file(s) ("
-                        + ", ".join(f"{f['filename']} {f['sha256'][:12]}..." for f in files)
-                        + f"), content {s['content_digest'][:12]}..."
-                        + (f", audit chain head entry {s['chain']['head'].split(':')[0]}"
-                           if s.get("chain") else "")))
+    checks.append(
+        Check(
+            "embedded evidence",
+            "pass",
+            f"{len(evidence.get('results', {}))} characteristic(s), "
+            f"{len(files)} data file(s) ("
+            + ", ".join(f"{f['filename']} {f['sha256'][:12]}..." for f in files)
+            + f"), content {s['content_digest'][:12]}..."
+            + (
+                f", audit chain head entry {s['chain']['head'].split(':')[0]}"
+                if s.get("chain")
+                else ""
+            ),
+        )
+    )
     checks.append(_printed_numbers(pdf_bytes, evidence))
     rebuilt = None
     blobs: dict | None = None
@@ -763,21 +959,40 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
             return result()  # a file altered outside studykit is not read as a study
         rebuilt = StudyFile(spath).load()
         dchecks, blobs = _data_checks(evidence, dict(rebuilt.files))
-        checks.extend(c if c.status == "pass" else
-                      Check(c.item, c.status, c.detail.replace("with --data", "in the study"))
-                      for c in dchecks)
+        checks.extend(
+            c
+            if c.status == "pass"
+            else Check(c.item, c.status, c.detail.replace("with --data", "in the study"))
+            for c in dchecks
+        )
     else:
-        checks.append(Check("numbers", "skip", "not recomputed: give --data FILE (every data "
-                            "file) or --study FILE"))
+        checks.append(
+            Check(
+                "numbers",
+                "skip",
+                "not recomputed: give --data FILE (every data file) or --study FILE",
+            )
+        )
     if rebuilt is not None:
         cd = rebuilt.content_digest()
         if cd == s["content_digest"]:
-            checks.append(Check("content digest", "pass", "data, specifications and decisions "
-                                "are those the report records"))
+            checks.append(
+                Check(
+                    "content digest",
+                    "pass",
+                    "data, specifications and decisions are those the report records",
+                )
+            )
         else:
-            checks.append(Check("content digest", "fail", "data, specifications or decisions "
-                                f"differ from the report's (report {s['content_digest'][:12]}..., "
-                                f"now {cd[:12]}...)"))
+            checks.append(
+                Check(
+                    "content digest",
+                    "fail",
+                    "data, specifications or decisions "
+                    f"differ from the report's (report {s['content_digest'][:12]}..., "
+                    f"now {cd[:12]}...)",
+                )
+            )
         try:
             results, errors, measurements = analyze_for_report(rebuilt, evidence.get("gauges"))
         except StudyInputError as exc:
@@ -786,8 +1001,14 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
         reported = evidence.get("results", {})
         for name in sorted(set(reported) | set(results)):
             if name not in results:
-                checks.append(Check(f"numbers of {name}", "fail", "reported, but the recomputed "
-                                    "study cannot analyse it: " + str(errors.get(name, ""))))
+                checks.append(
+                    Check(
+                        f"numbers of {name}",
+                        "fail",
+                        "reported, but the recomputed "
+                        "study cannot analyse it: " + str(errors.get(name, "")),
+                    )
+                )
                 continue
             if name not in reported:
                 checks.append(Check(f"numbers of {name}", "fail", "not in the report"))
@@ -796,36 +1017,61 @@ def verify_report(pdf_path, *, data=None, study=None, trust=(),
             numbers += n
             if diffs:
                 more = f" (and {len(diffs) - 4} more)" if len(diffs) > 4 else ""
-                checks.append(Check(f"numbers of {name}", "fail",
-                                    f"{len(diffs)} difference(s) among {n} numbers compared: "
-                                    + "; ".join(diffs[:4])
-                                    + more))
+                checks.append(
+                    Check(
+                        f"numbers of {name}",
+                        "fail",
+                        f"{len(diffs)} difference(s) among {n} numbers compared: "
+                        + "; ".join(diffs[:4])
+                        + more,
+                    )
+                )
             else:
-                checks.append(Check(f"numbers of {name}", "pass",
-                                    f"all {n} numbers agree (relative tolerance "
-                                    f"{RELATIVE_TOLERANCE:g})"))
+                checks.append(
+                    Check(
+                        f"numbers of {name}",
+                        "pass",
+                        f"all {n} numbers agree (relative tolerance {RELATIVE_TOLERANCE:g})",
+                    )
+                )
         numbers += _short_gauge_checks(evidence, checks)
         numbers += _position_checks(evidence, checks)
         made_by = (evidence.get("software") or {}).get("studykit")
         if measurements is None:
             pass
         elif made_by != __version__:
-            checks.append(Check("every page", "skip", f"not redrawn: the report was made by "
-                                f"studykit {made_by}, this is {__version__}; verify with the "
-                                "version that made it"))
+            checks.append(
+                Check(
+                    "every page",
+                    "skip",
+                    f"not redrawn: the report was made by "
+                    f"studykit {made_by}, this is {__version__}; verify with the "
+                    "version that made it",
+                )
+            )
         elif blobs is not None and len(blobs) == len(files):
             try:
-                page_study = rebuilt if data is not None else study_from_evidence(evidence,
-                                                                                  blobs)
+                page_study = rebuilt if data is not None else study_from_evidence(evidence, blobs)
                 redrawn, _ = render_pages(
-                    page_study, results, errors, measurements, evidence.get("gauges"),
-                    chain=s.get("chain"), short_gauges=evidence.get("short_gauges"),
+                    page_study,
+                    results,
+                    errors,
+                    measurements,
+                    evidence.get("gauges"),
+                    chain=s.get("chain"),
+                    short_gauges=evidence.get("short_gauges"),
                     positions=evidence.get("positions"),
-                    evidence_sha=hashlib.sha256(evidence_bytes).hexdigest())
+                    evidence_sha=hashlib.sha256(evidence_bytes).hexdigest(),
+                )
                 checks.append(_pages_check(pdf_bytes, redrawn))
             except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-                checks.append(Check("every page", "fail", f"the pages cannot be redrawn from "
-                                    f"the embedded evidence ({exc})"))
+                checks.append(
+                    Check(
+                        "every page",
+                        "fail",
+                        f"the pages cannot be redrawn from the embedded evidence ({exc})",
+                    )
+                )
     return result()
 
 
@@ -845,8 +1091,13 @@ def _short_gauge_checks(evidence: dict, checks: list) -> int:
         n, diffs = compare_numbers(reported, fresh)
         total += n
         if diffs:
-            checks.append(Check(label, "fail", f"{len(diffs)} difference(s) among {n} numbers: "
-                                + "; ".join(diffs[:4])))
+            checks.append(
+                Check(
+                    label,
+                    "fail",
+                    f"{len(diffs)} difference(s) among {n} numbers: " + "; ".join(diffs[:4]),
+                )
+            )
         else:
             checks.append(Check(label, "pass", f"all {n} numbers agree with the readings"))
     return total
@@ -862,14 +1113,18 @@ def _position_checks(evidence: dict, checks: list) -> int:
         try:
             fresh = recheck_position(payload)
         except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: "
-                                f"{exc}"))
+            checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: {exc}"))
             continue
         n, diffs = compare_numbers(payload.get("result") or {}, fresh)
         total += n
         if diffs:
-            checks.append(Check(label, "fail", f"{len(diffs)} difference(s) among {n} numbers: "
-                                + "; ".join(diffs[:4])))
+            checks.append(
+                Check(
+                    label,
+                    "fail",
+                    f"{len(diffs)} difference(s) among {n} numbers: " + "; ".join(diffs[:4]),
+                )
+            )
         else:
             checks.append(Check(label, "pass", f"all {n} numbers agree with the deviations"))
     return total

@@ -7,8 +7,15 @@ import numpy as np
 from studykit.errors import AnalysisError, StudyInputError
 
 
-def check_sample(x, *, name: str = "x", minimum: int = 3, before: str, needed_for: str,
-                 zero_spread: str | None = None) -> np.ndarray:
+def check_sample(
+    x,
+    *,
+    name: str = "x",
+    minimum: int = 3,
+    before: str,
+    needed_for: str,
+    zero_spread: str | None = None,
+) -> np.ndarray:
     """A finite 1-D float array of at least ``minimum`` values, or a clear error.
 
     Parameters

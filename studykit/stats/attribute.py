@@ -137,8 +137,9 @@ class AttributeCapability(Result):
         }
 
 
-def attribute_capability(defectives, inspected, *, confidence: float | None = None,
-                         level: float | None = None) -> AttributeCapability:
+def attribute_capability(
+    defectives, inspected, *, confidence: float | None = None, level: float | None = None
+) -> AttributeCapability:
     """Capability of a pass/fail characteristic from counts of defective parts.
 
     Parameters
@@ -224,8 +225,9 @@ def attribute_capability(defectives, inspected, *, confidence: float | None = No
     )
 
 
-def zero_defect_sample_size(rate: float, *, confidence: float | None = None,
-                            level: float | None = None) -> int:
+def zero_defect_sample_size(
+    rate: float, *, confidence: float | None = None, level: float | None = None
+) -> int:
     """Items to inspect with no defective found so that the one-sided upper bound at ``level``
     is at most ``rate``: the smallest n with 1 - (1 - level)^(1/n) <= rate, i.e.
     n = ceil(ln(1 - level) / ln(1 - rate)) (Clopper & Pearson 1934 with x = 0).
@@ -241,8 +243,9 @@ def zero_defect_sample_size(rate: float, *, confidence: float | None = None,
     return int(math.ceil(math.log(1 - level) / math.log1p(-rate)))
 
 
-def attribute_verdict(ac: AttributeCapability, *, threshold: float, basis: str = "lower_bound",
-                      index: str = "ppk"):
+def attribute_verdict(
+    ac: AttributeCapability, *, threshold: float, basis: str = "lower_bound", index: str = "ppk"
+):
     """Judge a pass/fail characteristic from its defective rate (p and np charts).
 
     The requirement "index >= threshold" is read as a one-sided defective rate: Ppk = Z / 3,
@@ -271,31 +274,39 @@ def attribute_verdict(ac: AttributeCapability, *, threshold: float, basis: str =
     low = None if ac.z_process_lower_bound is None else ac.z_process_lower_bound / 3
     pct = f"{level:.0%}"
     bound_ppm = ac.ppm_defective_upper_bound
-    head = (f"{ac.defectives} defective(s) in {ac.inspected} items: the exact one-sided {pct} "
-            f"upper bound on the defective rate is {ac.defective_rate_upper_bound:.4g} "
-            f"({bound_ppm:,.0f} PPM, Clopper-Pearson)")
+    head = (
+        f"{ac.defectives} defective(s) in {ac.inspected} items: the exact one-sided {pct} "
+        f"upper bound on the defective rate is {ac.defective_rate_upper_bound:.4g} "
+        f"({bound_ppm:,.0f} PPM, Clopper-Pearson)"
+    )
     judged_on_bound = basis == "lower_bound" or ac.defectives == 0
     if ac.defectives == ac.inspected:
         meets = False
-        text = (f"Every inspected item ({ac.inspected}) is defective: the requirement "
-                f"({index.capitalize()} >= {threshold:g}, a defective rate of at most "
-                f"{allowed * 1e6:.3g} PPM) is not met.")
+        text = (
+            f"Every inspected item ({ac.inspected}) is defective: the requirement "
+            f"({index.capitalize()} >= {threshold:g}, a defective rate of at most "
+            f"{allowed * 1e6:.3g} PPM) is not met."
+        )
     else:
         judged = low if judged_on_bound else est
         meets = judged is not None and judged >= threshold
         what = "the bound" if judged_on_bound else "the observed rate"
         zval = ac.z_process_lower_bound if judged_on_bound else ac.z_process
-        text = (f"{head}; the process Z from {what} is {zval:.2f}, equivalent to "
-                f"{index.capitalize()} {judged:.2f} against the required {threshold:g} (a rate "
-                f"of at most {allowed * 1e6:.3g} PPM): ")
+        text = (
+            f"{head}; the process Z from {what} is {zval:.2f}, equivalent to "
+            f"{index.capitalize()} {judged:.2f} against the required {threshold:g} (a rate "
+            f"of at most {allowed * 1e6:.3g} PPM): "
+        )
         if meets:
             text += "the data demonstrate the requirement."
         else:
             text += "the data do not demonstrate the requirement."
             if ac.defectives == 0:
                 need = zero_defect_sample_size(allowed, level=level)
-                text += (f" With no defective found, {need:,} items without a defective would "
-                         f"be needed to show it at {pct} confidence.")
+                text += (
+                    f" With no defective found, {need:,} items without a defective would "
+                    f"be needed to show it at {pct} confidence."
+                )
         if ac.defectives == 0 and basis == "estimate":
             text += " (No defective was found, so the bound is judged, not the estimate.)"
     return Verdict(
@@ -356,8 +367,9 @@ class DefectsPerUnit(Result):
         }
 
 
-def defects_per_unit(defects, units, *, confidence: float | None = None,
-                     level: float | None = None) -> DefectsPerUnit:
+def defects_per_unit(
+    defects, units, *, confidence: float | None = None, level: float | None = None
+) -> DefectsPerUnit:
     """Defects per unit with an exact (Garwood) Poisson confidence interval.
 
     Parameters

@@ -71,8 +71,9 @@ def percentile_draws(model, n, lsl, usl, n_boot, rng, values):
     pp = None if lsl is None or usl is None else (usl - lsl) / (q_hi - q_lo)
     ppk = ppu if ppl is None else (ppl if ppu is None else np.minimum(ppu, ppl))
     idx = {"pp": pp, "ppk": ppk, "ppu": ppu, "ppl": ppl}
-    draws = {k: (idx[k] if values[k] is not None and idx[k] is not None else np.empty(0))
-             for k in idx}
+    draws = {
+        k: (idx[k] if values[k] is not None and idx[k] is not None else np.empty(0)) for k in idx
+    }
     return draws, int(n_boot - np.count_nonzero(ok))
 
 

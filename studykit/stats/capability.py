@@ -279,8 +279,9 @@ def moving_range_sigma(x) -> float:
 
 
 def _clean_data(x, *, name="x", minimum=2):
-    return check_sample(x, name=name, minimum=minimum,
-                        before="computing capability", needed_for="capability")
+    return check_sample(
+        x, name=name, minimum=minimum, before="computing capability", needed_for="capability"
+    )
 
 
 def _spec_value(value, name):
@@ -787,8 +788,9 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     if method == "percentile" and bootstrap.is_family_model(model):
         draws, failed = bootstrap.percentile_draws(model, n_draw, lsl, usl, n_boot, rng, values)
     else:
-        draws, failed = _bootstrap_draws_generic(model, n_draw, lsl, usl, method, n_boot, rng,
-                                                 values)
+        draws, failed = _bootstrap_draws_generic(
+            model, n_draw, lsl, usl, method, n_boot, rng, values
+        )
     if n_draw < n:
         # large sample: samples of BOOTSTRAP_FULL_N readings, their spread around the
         # estimate scaled by sqrt(m / n) (module notes, "Bootstrap of a large sample")
@@ -811,8 +813,11 @@ def _bootstrap_bounds(model, n, lsl, usl, method, level, n_boot, random_state, v
     if failed:
         notes.append(f"{failed} of {n_boot} bootstrap refits failed and were left out.")
     alpha = 1.0 - level
-    method_name = ("parametric_bootstrap_percentile" if n_draw == n
-                   else "rescaled_m_out_of_n_bootstrap_percentile")
+    method_name = (
+        "parametric_bootstrap_percentile"
+        if n_draw == n
+        else "rescaled_m_out_of_n_bootstrap_percentile"
+    )
     out = {}
     for k in names:
         if values[k] is None or not len(draws[k]):

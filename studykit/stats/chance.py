@@ -123,8 +123,11 @@ def _range_cdf(w: float, n: int) -> float:
         return 0.0
 
     def f(x):
-        return math.exp(-0.5 * x * x) / math.sqrt(2 * math.pi) * (
-            special.ndtr(x + w) - special.ndtr(x)) ** (n - 1)
+        return (
+            math.exp(-0.5 * x * x)
+            / math.sqrt(2 * math.pi)
+            * (special.ndtr(x + w) - special.ndtr(x)) ** (n - 1)
+        )
 
     cdf, _ = integrate.quad(f, -np.inf, np.inf, epsabs=1e-16, epsrel=1e-13, limit=200)
     return min(1.0, float(n * cdf))
@@ -134,18 +137,28 @@ def _unit_tails(name: str, n: int):
     """(upper tail, lower tail, upper quantile, lower quantile) of the plotted statistic of a
     stable normal process in units of the process sigma (location: of its standard error)."""
     if name in ("individual", "xbar"):
-        return (lambda v: special.ndtr(-v), lambda v: special.ndtr(v),
-                lambda a: -special.ndtri(a), lambda a: special.ndtri(a))
+        return (
+            lambda v: special.ndtr(-v),
+            lambda v: special.ndtr(v),
+            lambda a: -special.ndtri(a),
+            lambda a: special.ndtri(a),
+        )
     if name == "moving_range":
         r2 = math.sqrt(2.0)
-        return (lambda v: 2.0 * special.ndtr(-v / r2) if v > 0 else 1.0, lambda v: 0.0,
-                lambda a: -r2 * special.ndtri(a / 2.0), lambda a: 0.0)
+        return (
+            lambda v: 2.0 * special.ndtr(-v / r2) if v > 0 else 1.0,
+            lambda v: 0.0,
+            lambda a: -r2 * special.ndtri(a / 2.0),
+            lambda a: 0.0,
+        )
     if name == "stdev":
         k = n - 1
-        return (lambda v: special.chdtrc(k, k * v * v) if v > 0 else 1.0,
-                lambda v: special.chdtr(k, k * v * v) if v > 0 else 0.0,
-                lambda a: math.sqrt(special.chdtri(k, a) / k),
-                lambda a: math.sqrt(special.chdtri(k, 1.0 - a) / k))
+        return (
+            lambda v: special.chdtrc(k, k * v * v) if v > 0 else 1.0,
+            lambda v: special.chdtr(k, k * v * v) if v > 0 else 0.0,
+            lambda a: math.sqrt(special.chdtri(k, a) / k),
+            lambda a: math.sqrt(special.chdtri(k, 1.0 - a) / k),
+        )
 
     def up_t(v):
         return 1.0 - _range_cdf(v, n)
@@ -188,16 +201,18 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
     below = int(np.count_nonzero(pts[ok] < lcl[ok]))
     seen = above + below
     if series.name not in _ADJUSTED or m == 0:
-        return SeriesChance(m, False, lcl, ucl, float("nan"), float("nan"), seen,
-                            float("nan"), float("nan"), seen)
+        return SeriesChance(
+            m, False, lcl, ucl, float("nan"), float("nan"), seen, float("nan"), float("nan"), seen
+        )
     center = np.asarray(series.center, float)
     sigma = np.asarray(series.sigma, float)
-    n_arr = (np.full(pts.size, 2 if series.name == "moving_range" else 1, dtype=np.int64)
-             if sizes is None or series.name in ("individual", "moving_range")
-             else np.asarray(sizes, dtype=np.int64))
+    n_arr = (
+        np.full(pts.size, 2 if series.name == "moving_range" else 1, dtype=np.int64)
+        if sizes is None or series.name in ("individual", "moving_range")
+        else np.asarray(sizes, dtype=np.int64)
+    )
     # one computation per distinct (size, centre, standard error): constant in most charts
-    if (np.all(n_arr == n_arr[0]) and np.all(center == center[0])
-            and np.all(sigma == sigma[0])):
+    if np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0]):
         uniq = [(float(n_arr[0]), float(center[0]), float(sigma[0]))]
         inv = np.zeros(pts.size, dtype=np.int64)
     else:
@@ -244,5 +259,15 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
     fap = -math.expm1(reference * math.log1p(-p0_mean)) if p0_mean < 1 else 1.0
     p_value = float(special.pdtrc(seen - 1, expected)) if seen > 0 else 1.0
     beyond = int(np.count_nonzero((pts[ok] > hi_lim[ok]) | (pts[ok] < lo_lim[ok])))
-    return SeriesChance(m, adjusted, lo_lim, hi_lim, float(np.mean(alphas)) if alphas else 0.0,
-                        fap, seen, expected, p_value, beyond)
+    return SeriesChance(
+        m,
+        adjusted,
+        lo_lim,
+        hi_lim,
+        float(np.mean(alphas)) if alphas else 0.0,
+        fap,
+        seen,
+        expected,
+        p_value,
+        beyond,
+    )

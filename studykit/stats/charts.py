@@ -599,8 +599,11 @@ def _group(x, subgroups):
         rank = np.empty_like(order)
         rank[order] = np.arange(order.size)
         codes = rank[inverse.ravel()]
-        labels = Labels(uniq[order]) if lab.dtype.kind != "O" else tuple(
-            _plain_label(v) for v in uniq[order].tolist())
+        labels = (
+            Labels(uniq[order])
+            if lab.dtype.kind != "O"
+            else tuple(_plain_label(v) for v in uniq[order].tolist())
+        )
     except TypeError:  # labels of mixed types: group in Python
         seen: dict = {}
         codes = np.array([seen.setdefault(v, len(seen)) for v in lab.tolist()], dtype=np.int64)
@@ -1090,9 +1093,11 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
             "differ; use laney=False for these counts."
         )
     if edge is not None:
-        why = (f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
-               f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
-               "and no point can signal; the over-dispersion check does not apply")
+        why = (
+            f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
+            f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
+            "and no point can signal; the over-dispersion check does not apply"
+        )
     elif far and large:
         why = (
             f"the points vary {sigma_z:.2f} times as much as the "

@@ -81,8 +81,16 @@ from studykit.stats.families.base import (  # noqa: F401 - used by the tests
 from studykit.stats.ranking import RANKING_RULE, ROW_FIELDS, FitRow, Ranking, fit_all
 from studykit.stats.solvers import GRID_DECADES, ROW_CELLS, rows_per_group  # noqa: F401
 
-__all__ = ["FAMILIES", "Family", "FittedModel", "FitRow", "Ranking", "fit_all", "ROW_FIELDS",
-           "RANKING_RULE"]
+__all__ = [
+    "FAMILIES",
+    "Family",
+    "FittedModel",
+    "FitRow",
+    "Ranking",
+    "fit_all",
+    "ROW_FIELDS",
+    "RANKING_RULE",
+]
 
 # the row-wise two-parameter solvers by their former names (tests/test_fit.py checks them)
 _inner_weibull = FAMILIES["weibull"].fit_rows

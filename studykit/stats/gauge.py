@@ -117,8 +117,9 @@ class AnovaRow(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> AnovaRow:
         """Rebuild the row from :meth:`to_dict` (a stored result is never recomputed)."""
-        return cls(source=d["source"], df=int(d["df"]), ss=_nan(d["ss"]), ms=d["ms"], f=d["f"],
-                   p=d["p"])
+        return cls(
+            source=d["source"], df=int(d["df"]), ss=_nan(d["ss"]), ms=d["ms"], f=d["f"], p=d["p"]
+        )
 
 
 @dataclass(frozen=True)
@@ -162,12 +163,20 @@ class VarianceComponent(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> VarianceComponent:
         """Rebuild the component from :meth:`to_dict`."""
-        return cls(name=d["name"], variance=_nan(d["variance"]), sigma=_nan(d["sigma"]),
-                   study_variation=_nan(d["study_variation"]),
-                   pct_contribution=d["pct_contribution"],
-                   pct_study_variation=d["pct_study_variation"], pct_tolerance=d["pct_tolerance"],
-                   lower=d["sigma_lower"], upper=d["sigma_upper"], interval_df=d["interval_df"],
-                   interval_method=d["interval_method"], set_to_zero=bool(d["set_to_zero"]))
+        return cls(
+            name=d["name"],
+            variance=_nan(d["variance"]),
+            sigma=_nan(d["sigma"]),
+            study_variation=_nan(d["study_variation"]),
+            pct_contribution=d["pct_contribution"],
+            pct_study_variation=d["pct_study_variation"],
+            pct_tolerance=d["pct_tolerance"],
+            lower=d["sigma_lower"],
+            upper=d["sigma_upper"],
+            interval_df=d["interval_df"],
+            interval_method=d["interval_method"],
+            set_to_zero=bool(d["set_to_zero"]),
+        )
 
 
 @dataclass(frozen=True)
@@ -196,10 +205,24 @@ class RangeMethodEstimate(Result):
     reproducibility_set_to_zero: bool
 
     def to_dict(self) -> dict:
-        out = {k: _f(getattr(self, k)) for k in (
-            "repeatability", "reproducibility", "gauge_rr", "part", "total", "k1", "k2", "k3",
-            "mean_range", "appraiser_mean_range", "part_mean_range", "pct_study_variation",
-            "pct_tolerance")}
+        out = {
+            k: _f(getattr(self, k))
+            for k in (
+                "repeatability",
+                "reproducibility",
+                "gauge_rr",
+                "part",
+                "total",
+                "k1",
+                "k2",
+                "k3",
+                "mean_range",
+                "appraiser_mean_range",
+                "part_mean_range",
+                "pct_study_variation",
+                "pct_tolerance",
+            )
+        }
         out["ndc"] = self.ndc
         out["reproducibility_set_to_zero"] = bool(self.reproducibility_set_to_zero)
         return out
@@ -207,12 +230,29 @@ class RangeMethodEstimate(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> RangeMethodEstimate:
         """Rebuild the estimate from :meth:`to_dict`."""
-        floats = {k: _nan(d[k]) for k in (
-            "repeatability", "reproducibility", "gauge_rr", "part", "total", "k1", "k2", "k3",
-            "mean_range", "appraiser_mean_range", "part_mean_range")}
-        return cls(**floats, pct_study_variation=d["pct_study_variation"],
-                   pct_tolerance=d["pct_tolerance"], ndc=d["ndc"],
-                   reproducibility_set_to_zero=bool(d["reproducibility_set_to_zero"]))
+        floats = {
+            k: _nan(d[k])
+            for k in (
+                "repeatability",
+                "reproducibility",
+                "gauge_rr",
+                "part",
+                "total",
+                "k1",
+                "k2",
+                "k3",
+                "mean_range",
+                "appraiser_mean_range",
+                "part_mean_range",
+            )
+        }
+        return cls(
+            **floats,
+            pct_study_variation=d["pct_study_variation"],
+            pct_tolerance=d["pct_tolerance"],
+            ndc=d["ndc"],
+            reproducibility_set_to_zero=bool(d["reproducibility_set_to_zero"]),
+        )
 
 
 @dataclass(frozen=True)
@@ -236,18 +276,36 @@ class GaugeChartLimits(Result):
     ranges_above_ucl: tuple[tuple[str, str], ...]
 
     def to_dict(self) -> dict:
-        out = {k: _f(getattr(self, k)) for k in (
-            "range_centre", "range_ucl", "range_lcl", "mean_centre", "mean_ucl", "mean_lcl",
-            "pct_means_outside")}
+        out = {
+            k: _f(getattr(self, k))
+            for k in (
+                "range_centre",
+                "range_ucl",
+                "range_lcl",
+                "mean_centre",
+                "mean_ucl",
+                "mean_lcl",
+                "pct_means_outside",
+            )
+        }
         out["ranges_above_ucl"] = [list(c) for c in self.ranges_above_ucl]
         return out
 
     @classmethod
     def from_dict(cls, d: Mapping) -> GaugeChartLimits:
         """Rebuild the limits from :meth:`to_dict`."""
-        floats = {k: _nan(d[k]) for k in (
-            "range_centre", "range_ucl", "range_lcl", "mean_centre", "mean_ucl", "mean_lcl",
-            "pct_means_outside")}
+        floats = {
+            k: _nan(d[k])
+            for k in (
+                "range_centre",
+                "range_ucl",
+                "range_lcl",
+                "mean_centre",
+                "mean_ucl",
+                "mean_lcl",
+                "pct_means_outside",
+            )
+        }
         return cls(**floats, ranges_above_ucl=tuple(tuple(c) for c in d["ranges_above_ucl"]))
 
 
@@ -287,9 +345,22 @@ class GaugeVerdict(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> GaugeVerdict:
         """Rebuild the verdict from :meth:`to_dict`."""
-        return cls(**{k: d[k] for k in (
-            "status", "basis", "pct_grr_study_variation", "pct_grr_tolerance", "ndc", "ndc_ok",
-            "dominant", "message", "advice")})
+        return cls(
+            **{
+                k: d[k]
+                for k in (
+                    "status",
+                    "basis",
+                    "pct_grr_study_variation",
+                    "pct_grr_tolerance",
+                    "ndc",
+                    "ndc_ok",
+                    "dominant",
+                    "message",
+                    "advice",
+                )
+            }
+        )
 
 
 @dataclass(frozen=True)
@@ -380,23 +451,38 @@ class GaugeResult(Result):
         >>> again.to_dict() == res.to_dict()
         True
         """
-        values = np.array([[[np.nan if v is None else float(v) for v in cell] for cell in row]
-                           for row in d["values"]], dtype=float)
+        values = np.array(
+            [
+                [[np.nan if v is None else float(v) for v in cell] for cell in row]
+                for row in d["values"]
+            ],
+            dtype=float,
+        )
         return cls(
-            n_parts=int(d["n_parts"]), n_appraisers=int(d["n_appraisers"]),
-            n_trials=int(d["n_trials"]), n_values=int(d["n_values"]),
-            part_labels=tuple(d["part_labels"]), appraiser_labels=tuple(d["appraiser_labels"]),
+            n_parts=int(d["n_parts"]),
+            n_appraisers=int(d["n_appraisers"]),
+            n_trials=int(d["n_trials"]),
+            n_values=int(d["n_values"]),
+            part_labels=tuple(d["part_labels"]),
+            appraiser_labels=tuple(d["appraiser_labels"]),
             values=values,
             anova_full=tuple(AnovaRow.from_dict(r) for r in d["anova_full"]),
             anova_used=tuple(AnovaRow.from_dict(r) for r in d["anova_used"]),
-            interaction_p=d["interaction_p"], interaction_pooled=bool(d["interaction_pooled"]),
+            interaction_p=d["interaction_p"],
+            interaction_pooled=bool(d["interaction_pooled"]),
             alpha_interaction=d["alpha_interaction"],
             components=tuple(VarianceComponent.from_dict(c) for c in d["components"]),
-            ndc=d["ndc"], ndc_ratio=d["ndc_ratio"], study_variation=d["study_variation"],
-            lsl=d["lsl"], usl=d["usl"], tolerance=d["tolerance"], confidence=d["confidence"],
+            ndc=d["ndc"],
+            ndc_ratio=d["ndc_ratio"],
+            study_variation=d["study_variation"],
+            lsl=d["lsl"],
+            usl=d["usl"],
+            tolerance=d["tolerance"],
+            confidence=d["confidence"],
             range_method=RangeMethodEstimate.from_dict(d["range_method"]),
             verdict=GaugeVerdict.from_dict(d["verdict"]),
-            charts=GaugeChartLimits.from_dict(d["charts"]), notes=tuple(d["notes"]),
+            charts=GaugeChartLimits.from_dict(d["charts"]),
+            notes=tuple(d["notes"]),
             method=d.get("method", cls.method),
         )
 
@@ -470,7 +556,11 @@ def _labels(arr, name: str, n: int) -> np.ndarray:
 
 
 def _sort_key(v):
-    return (0, float(v), "") if isinstance(v, (int, float, np.integer, np.floating)) else (1, 0.0, str(v))
+    return (
+        (0, float(v), "")
+        if isinstance(v, (int, float, np.integer, np.floating))
+        else (1, 0.0, str(v))
+    )
 
 
 def _arrange(values, parts, appraisers, trials) -> tuple[np.ndarray, list, list]:
@@ -546,8 +636,9 @@ def _arrange(values, parts, appraisers, trials) -> tuple[np.ndarray, list, list]
 
 
 # ----------------------------------------------------------------------------------------------
-def _satterthwaite(coefs: dict[str, float], ms: dict[str, float], df: dict[str, int],
-                   confidence: float) -> tuple[float | None, float | None, float | None]:
+def _satterthwaite(
+    coefs: dict[str, float], ms: dict[str, float], df: dict[str, int], confidence: float
+) -> tuple[float | None, float | None, float | None]:
     """Satterthwaite interval on sigma for a variance estimated as sum c_k MS_k."""
     est = sum(c * ms[k] for k, c in coefs.items())
     if est <= 0:
@@ -835,8 +926,11 @@ def gauge_rr(
                 set_to_zero=name in zeroed,
             )
         )
-    no_ci = [c.name for c in components if c.lower is None and c.variance > 0
-             and c.interval_method == "Satterthwaite"]
+    no_ci = [
+        c.name
+        for c in components
+        if c.lower is None and c.variance > 0 and c.interval_method == "Satterthwaite"
+    ]
     if no_ci:
         notes.append(
             "No confidence interval for " + ", ".join(no_ci) + ": fewer than "
@@ -962,11 +1056,19 @@ def _chart_limits(cube: np.ndarray, part_levels, appr_levels) -> GaugeChartLimit
     ucl, lcl = centre + cc.A2 * rbar, centre - cc.A2 * rbar
     outside = float(np.mean((means > ucl) | (means < lcl))) * 100
     r_ucl = cc.D4 * rbar
-    above = tuple((str(part_levels[i]), str(appr_levels[j]))
-                  for i, j in np.argwhere(ranges > r_ucl * (1 + 1e-12)))
+    above = tuple(
+        (str(part_levels[i]), str(appr_levels[j]))
+        for i, j in np.argwhere(ranges > r_ucl * (1 + 1e-12))
+    )
     return GaugeChartLimits(
-        range_centre=rbar, range_ucl=r_ucl, range_lcl=cc.D3 * rbar, mean_centre=centre,
-        mean_ucl=ucl, mean_lcl=lcl, pct_means_outside=outside, ranges_above_ucl=above,
+        range_centre=rbar,
+        range_ucl=r_ucl,
+        range_lcl=cc.D3 * rbar,
+        mean_centre=centre,
+        mean_ucl=ucl,
+        mean_lcl=lcl,
+        pct_means_outside=outside,
+        ranges_above_ucl=above,
     )
 
 
@@ -999,37 +1101,52 @@ def _verdict(comp: dict, ndc: int | None, has_tol: bool) -> GaugeVerdict:
     dominant = None
     if v_rep + v_repro > 0:
         dominant = REPEATABILITY if v_rep >= v_repro else REPRODUCIBILITY
-    parts = [f"{names.GAUGE_TOTAL} is {pct_sv:.1f} % of the study variation"
-             if pct_sv is not None else
-             f"the share of {names.GAUGE_TOTAL} in the study variation is undefined"]
+    parts = [
+        f"{names.GAUGE_TOTAL} is {pct_sv:.1f} % of the study variation"
+        if pct_sv is not None
+        else f"the share of {names.GAUGE_TOTAL} in the study variation is undefined"
+    ]
     if pct_tol is not None:
         parts.append(f"{pct_tol:.1f} % of the tolerance")
-    msg = (f"The measurement system is {status}: " + " and ".join(parts)
-           + f" (below {GRR_ACCEPT_BELOW:g} % acceptable, {GRR_ACCEPT_BELOW:g}-"
-             f"{GRR_REJECT_ABOVE:g} % conditionally, above {GRR_REJECT_ABOVE:g} % not).")
+    msg = (
+        f"The measurement system is {status}: "
+        + " and ".join(parts)
+        + f" (below {GRR_ACCEPT_BELOW:g} % acceptable, {GRR_ACCEPT_BELOW:g}-"
+        f"{GRR_REJECT_ABOVE:g} % conditionally, above {GRR_REJECT_ABOVE:g} % not)."
+    )
     if ndc is not None:
-        msg += (f" It tells {ndc} distinct categor{'y' if ndc == 1 else 'ies'} of parts apart"
-                f" ({'meets' if ndc_ok else 'below'} the usual minimum of {NDC_MINIMUM}; common"
-                " practice; the customer's rule governs).")
+        msg += (
+            f" It tells {ndc} distinct categor{'y' if ndc == 1 else 'ies'} of parts apart"
+            f" ({'meets' if ndc_ok else 'below'} the usual minimum of {NDC_MINIMUM}; common"
+            " practice; the customer's rule governs)."
+        )
     advice = ""
     need_action = status != ACCEPTABLE or ndc_ok is False
     if need_action and dominant == REPEATABILITY:
-        advice = ("Repeatability (the gauge) dominates: the same person on the same part gets "
-                  "different readings. Look at the gauge itself: maintenance, clamping and "
-                  "fixturing, resolution, where on the part it measures, and variation within "
-                  "the part.")
+        advice = (
+            "Repeatability (the gauge) dominates: the same person on the same part gets "
+            "different readings. Look at the gauge itself: maintenance, clamping and "
+            "fixturing, resolution, where on the part it measures, and variation within "
+            "the part."
+        )
     elif need_action and dominant == REPRODUCIBILITY:
         if comp[INTERACTION].variance > comp[APPRAISER].variance:
-            advice = ("Reproducibility (the people) dominates, mostly through the appraiser-by-"
-                      "part interaction: some appraisers measure some parts differently. Compare "
-                      "how each appraiser handles those parts and make the method explicit.")
+            advice = (
+                "Reproducibility (the people) dominates, mostly through the appraiser-by-"
+                "part interaction: some appraisers measure some parts differently. Compare "
+                "how each appraiser handles those parts and make the method explicit."
+            )
         else:
-            advice = ("Reproducibility (the people) dominates: appraisers differ on average. "
-                      "Train to one written method, check the gauge's zeroing and reading by "
-                      "each appraiser, or add a fixture that removes handling differences.")
+            advice = (
+                "Reproducibility (the people) dominates: appraisers differ on average. "
+                "Train to one written method, check the gauge's zeroing and reading by "
+                "each appraiser, or add a fixture that removes handling differences."
+            )
     if need_action and ndc_ok is False and status == ACCEPTABLE:
-        advice += (" The parts in the study span too little of the process range for the "
-                   "gauge to tell them apart; choose parts covering the expected range.")
+        advice += (
+            " The parts in the study span too little of the process range for the "
+            "gauge to tell them apart; choose parts covering the expected range."
+        )
     return GaugeVerdict(
         status=status,
         basis=basis,

@@ -170,10 +170,18 @@ def _positive(value, name: str, example: str) -> float:
     return v
 
 
-def short_gauge_study(values, *, reference: float, lsl: float | None = None,
-                      usl: float | None = None, tolerance: float | None = None,
-                      k_percent: float = DEFAULT_K_PERCENT, l_sigmas: float = DEFAULT_L_SIGMAS,
-                      alpha: float = 0.05, minimum: float = DEFAULT_MINIMUM) -> ShortGaugeResult:
+def short_gauge_study(
+    values,
+    *,
+    reference: float,
+    lsl: float | None = None,
+    usl: float | None = None,
+    tolerance: float | None = None,
+    k_percent: float = DEFAULT_K_PERCENT,
+    l_sigmas: float = DEFAULT_L_SIGMAS,
+    alpha: float = 0.05,
+    minimum: float = DEFAULT_MINIMUM,
+) -> ShortGaugeResult:
     """Cg, Cgk, bias and its t-test from repeated readings of one reference part.
 
     Parameters
@@ -228,10 +236,14 @@ def short_gauge_study(values, *, reference: float, lsl: float | None = None,
             f"a short gauge study needs at least 2 readings of the reference part; found "
             f"{y.size} (25 or more is the usual plan)"
         )
-    if isinstance(reference, bool) or not isinstance(reference, int | float | np.integer |
-                                                     np.floating) or not math.isfinite(reference):
-        raise SpecError(f"`reference` ({reference!r}) must be the part's reference value, a "
-                        "finite number")
+    if (
+        isinstance(reference, bool)
+        or not isinstance(reference, int | float | np.integer | np.floating)
+        or not math.isfinite(reference)
+    ):
+        raise SpecError(
+            f"`reference` ({reference!r}) must be the part's reference value, a finite number"
+        )
     reference = float(reference)
     if tolerance is not None:
         if lsl is not None or usl is not None:
@@ -240,8 +252,9 @@ def short_gauge_study(values, *, reference: float, lsl: float | None = None,
         lsl_v, usl_v = reference - t_width / 2, reference + t_width / 2
     else:
         if lsl is None or usl is None:
-            raise SpecError("Cg and Cgk need the tolerance: give `tolerance`, or both `lsl` and "
-                            "`usl`")
+            raise SpecError(
+                "Cg and Cgk need the tolerance: give `tolerance`, or both `lsl` and `usl`"
+            )
         lsl_v, usl_v = float(lsl), float(usl)
         if not (math.isfinite(lsl_v) and math.isfinite(usl_v)):
             raise SpecError(f"`lsl` ({lsl!r}) and `usl` ({usl!r}) must be finite numbers")
@@ -250,8 +263,10 @@ def short_gauge_study(values, *, reference: float, lsl: float | None = None,
         t_width = usl_v - lsl_v
     k = _positive(k_percent, "k_percent", "20")
     if k > 100:
-        raise SpecError(f"`k_percent` ({k_percent!r}) is a share of the tolerance in percent; "
-                        "use a value up to 100, e.g. 20")
+        raise SpecError(
+            f"`k_percent` ({k_percent!r}) is a share of the tolerance in percent; "
+            "use a value up to 100, e.g. 20"
+        )
     ell = _positive(l_sigmas, "l_sigmas", "6 (or 4)")
     if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 < alpha < 1:
         raise SpecError(f"`alpha` ({alpha!r}) must be between 0 and 1, e.g. 0.05")
@@ -277,41 +292,72 @@ def short_gauge_study(values, *, reference: float, lsl: float | None = None,
     else:
         cg = cgk = t_stat = p_value = lo = hi = pct_r = pct_rb = None
         significant = None
-        notes.append("Every reading is the same: the gauge shows no spread on this part, so Cg, "
-                     "Cgk and the t-test are undefined. Check the gauge's resolution: it should "
-                     "resolve at least a tenth of the tolerance in steps small enough to show "
-                     "the repeat variation.")
+        notes.append(
+            "Every reading is the same: the gauge shows no spread on this part, so Cg, "
+            "Cgk and the t-test are undefined. Check the gauge's resolution: it should "
+            "resolve at least a tenth of the tolerance in steps small enough to show "
+            "the repeat variation."
+        )
     if n < FEW_READINGS:
-        notes.append(f"Only {n} readings: 25 is the usual minimum and 50 the usual plan "
-                     "(common practice, no source); Cg and Cgk from so few readings are rough.")
+        notes.append(
+            f"Only {n} readings: 25 is the usual minimum and 50 the usual plan "
+            "(common practice, no source); Cg and Cgk from so few readings are rough."
+        )
     if pct_rb is None and cgk is not None:
-        notes.append("Cgk is zero or negative: the bias alone uses up the share of the tolerance "
-                     "granted to the gauge.")
+        notes.append(
+            "Cgk is zero or negative: the bias alone uses up the share of the tolerance "
+            "granted to the gauge."
+        )
 
     if cg is None:
         status = NOT_CAPABLE
-        message = ("The short gauge study cannot be judged: the readings have no spread "
-                   "(see the notes).")
+        message = (
+            "The short gauge study cannot be judged: the readings have no spread (see the notes)."
+        )
     else:
         ok = cg >= mn and cgk >= mn
         status = CAPABLE if ok else NOT_CAPABLE
         low = [nm for nm, v in (("Cg", cg), ("Cgk", cgk)) if v < mn]
-        message = (f"The gauge is {status} on this reference part: Cg = {cg:.2f}, Cgk = "
-                   f"{cgk:.2f} (K = {k:g} % of the tolerance, L = {ell:g} sigma; both must be at "
-                   f"least {mn:g}, common practice)")
+        message = (
+            f"The gauge is {status} on this reference part: Cg = {cg:.2f}, Cgk = "
+            f"{cgk:.2f} (K = {k:g} % of the tolerance, L = {ell:g} sigma; both must be at "
+            f"least {mn:g}, common practice)"
+        )
         message += "." if ok else f"; {' and '.join(low)} below the limit."
         if significant:
-            message += (f" The bias {bias:.4g} is significant (t = {t_stat:.3g}, p = "
-                        f"{p_value:.3g} < {alpha:g}): correct the gauge's zero or setting against "
-                        "the reference" + (" even though Cgk passes." if ok else "."))
+            message += (
+                f" The bias {bias:.4g} is significant (t = {t_stat:.3g}, p = "
+                f"{p_value:.3g} < {alpha:g}): correct the gauge's zero or setting against "
+                "the reference" + (" even though Cgk passes." if ok else ".")
+            )
         else:
-            message += (f" The bias {bias:.4g} is not significant (p = {p_value:.3g} >= "
-                        f"{alpha:g}).")
+            message += f" The bias {bias:.4g} is not significant (p = {p_value:.3g} >= {alpha:g})."
     return ShortGaugeResult(
-        values=y, n=n, mean=mean, sd=sd, reference=reference, lsl=lsl_v, usl=usl_v,
-        tolerance=t_width, k_percent=k, l_sigmas=ell, cg=cg, cgk=cgk, bias=bias,
-        bias_pct_tolerance=100.0 * abs(bias) / t_width, t_statistic=t_stat, df=df,
-        p_value=p_value, bias_lower=lo, bias_upper=hi, alpha=float(alpha),
-        bias_significant=significant, pct_repeatability=pct_r, pct_repeatability_bias=pct_rb,
-        minimum=mn, status=status, message=message, notes=tuple(notes),
+        values=y,
+        n=n,
+        mean=mean,
+        sd=sd,
+        reference=reference,
+        lsl=lsl_v,
+        usl=usl_v,
+        tolerance=t_width,
+        k_percent=k,
+        l_sigmas=ell,
+        cg=cg,
+        cgk=cgk,
+        bias=bias,
+        bias_pct_tolerance=100.0 * abs(bias) / t_width,
+        t_statistic=t_stat,
+        df=df,
+        p_value=p_value,
+        bias_lower=lo,
+        bias_upper=hi,
+        alpha=float(alpha),
+        bias_significant=significant,
+        pct_repeatability=pct_r,
+        pct_repeatability_bias=pct_rb,
+        minimum=mn,
+        status=status,
+        message=message,
+        notes=tuple(notes),
     )

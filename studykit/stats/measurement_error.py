@@ -49,8 +49,10 @@ __all__ = [
 #: practice, no source: a rule of thumb; the interval says the rest).
 MAX_GAUGE_SHARE = 0.5
 
-MLS_METHOD = ("modified large-sample (MLS) interval for a difference of two variances "
-              "(Ting et al. 1990; Burdick, Borror & Montgomery 2005)")
+MLS_METHOD = (
+    "modified large-sample (MLS) interval for a difference of two variances "
+    "(Ting et al. 1990; Burdick, Borror & Montgomery 2005)"
+)
 
 
 def _chi2_ppf(q, df):
@@ -251,8 +253,14 @@ def _indices(mean, sigma, lsl, usl):
     if sigma is None or not sigma > 0:
         return None, None
     both = None if lsl is None or usl is None else (usl - lsl) / (6.0 * sigma)
-    sides = [v for v in (None if usl is None else (usl - mean) / (3.0 * sigma),
-                         None if lsl is None else (mean - lsl) / (3.0 * sigma)) if v is not None]
+    sides = [
+        v
+        for v in (
+            None if usl is None else (usl - mean) / (3.0 * sigma),
+            None if lsl is None else (mean - lsl) / (3.0 * sigma),
+        )
+        if v is not None
+    ]
     return both, (min(sides) if sides else None)
 
 
@@ -275,18 +283,37 @@ def _one(basis, sigma, df, var_g, df_g, mean, lsl, usl, level):
         width = usl - lsl
         interval[names[0]] = [width / (6.0 * s_hi), width / (6.0 * s_lo) if s_lo else None]
     return SigmaWithoutGauge(
-        basis=basis, observed_sigma=sigma, observed_df=df, gauge_share=var_g / var_o,
-        process_variance=est, process_sigma=p_sigma, variance_lower=lo, variance_upper=hi,
-        sigma_lower=s_lo, sigma_upper=s_hi, observed=obs, process=proc, spread_interval=interval,
+        basis=basis,
+        observed_sigma=sigma,
+        observed_df=df,
+        gauge_share=var_g / var_o,
+        process_variance=est,
+        process_sigma=p_sigma,
+        variance_lower=lo,
+        variance_upper=hi,
+        sigma_lower=s_lo,
+        sigma_upper=s_hi,
+        observed=obs,
+        process=proc,
+        spread_interval=interval,
     )
 
 
-def remove_gauge_variance(*, gauge_sigma: float, gauge_df: float | None, mean: float,
-                          lsl: float | None = None, usl: float | None = None,
-                          within_sigma: float | None = None, within_df: float | None = None,
-                          overall_sigma: float | None = None, n: int | None = None,
-                          confidence: float = 0.95, max_gauge_share: float = MAX_GAUGE_SHARE,
-                          gauge_source: str = "gauge_rr") -> MeasurementErrorResult:
+def remove_gauge_variance(
+    *,
+    gauge_sigma: float,
+    gauge_df: float | None,
+    mean: float,
+    lsl: float | None = None,
+    usl: float | None = None,
+    within_sigma: float | None = None,
+    within_df: float | None = None,
+    overall_sigma: float | None = None,
+    n: int | None = None,
+    confidence: float = 0.95,
+    max_gauge_share: float = MAX_GAUGE_SHARE,
+    gauge_source: str = "gauge_rr",
+) -> MeasurementErrorResult:
     """Observed and process-only capability indices with the gauge variance taken out.
 
     Parameters
@@ -350,40 +377,75 @@ round(r.overall.process["pp"], 3)
     var_g = float(gauge_sigma) ** 2
     parts = {}
     if within_sigma is not None and within_sigma > 0:
-        parts["within"] = _one("within", float(within_sigma), within_df, var_g, gauge_df,
-                               float(mean), lsl, usl, confidence)
+        parts["within"] = _one(
+            "within",
+            float(within_sigma),
+            within_df,
+            var_g,
+            gauge_df,
+            float(mean),
+            lsl,
+            usl,
+            confidence,
+        )
     if overall_sigma is not None and overall_sigma > 0:
         df_o = None if n is None or n < 2 else float(n - 1)
-        parts["overall"] = _one("overall", float(overall_sigma), df_o, var_g, gauge_df,
-                                float(mean), lsl, usl, confidence)
+        parts["overall"] = _one(
+            "overall",
+            float(overall_sigma),
+            df_o,
+            var_g,
+            gauge_df,
+            float(mean),
+            lsl,
+            usl,
+            confidence,
+        )
     if not parts:
-        raise AnalysisError("no observed sigma to correct: give `within_sigma` or "
-                            "`overall_sigma` (positive)")
+        raise AnalysisError(
+            "no observed sigma to correct: give `within_sigma` or `overall_sigma` (positive)"
+        )
     warn: list[str] = []
     share = max(p.gauge_share for p in parts.values())
     if share >= 1:
-        warn.append(f"The gauge variance is {100 * share:.0f} % of the observed variance: the "
-                    "measurement error accounts for all the spread seen, so no process-only "
-                    "index can be given. Improve the gauge (or check that the gauge study "
-                    "matches these parts) before judging the process.")
+        warn.append(
+            f"The gauge variance is {100 * share:.0f} % of the observed variance: the "
+            "measurement error accounts for all the spread seen, so no process-only "
+            "index can be given. Improve the gauge (or check that the gauge study "
+            "matches these parts) before judging the process."
+        )
     elif share > max_gauge_share:
-        warn.append(f"The gauge variance is {100 * share:.0f} % of the observed variance "
-                    f"(above {100 * max_gauge_share:g} %, common practice, no source): the "
-                    "process-only indices rest on the small difference of two uncertain "
-                    "estimates. Read them as rough; improve the gauge first.")
-    zero = [b for b, p in parts.items() if p.variance_lower is not None and p.variance_lower <= 0
-            and p.process_variance > 0]
+        warn.append(
+            f"The gauge variance is {100 * share:.0f} % of the observed variance "
+            f"(above {100 * max_gauge_share:g} %, common practice, no source): the "
+            "process-only indices rest on the small difference of two uncertain "
+            "estimates. Read them as rough; improve the gauge first."
+        )
+    zero = [
+        b
+        for b, p in parts.items()
+        if p.variance_lower is not None and p.variance_lower <= 0 and p.process_variance > 0
+    ]
     if zero:
-        warn.append(f"At {100 * confidence:g} % confidence the process variance ({' and '.join(zero)}) "
-                    "cannot be told from zero: the interval's lower bound reaches 0, so the "
-                    "process-only Cp/Pp has no upper bound.")
+        warn.append(
+            f"At {100 * confidence:g} % confidence the process variance ({' and '.join(zero)}) "
+            "cannot be told from zero: the interval's lower bound reaches 0, so the "
+            "process-only Cp/Pp has no upper bound."
+        )
     if gauge_df is None and var_g > 0:
-        warn.append("The gauge sigma has no degrees of freedom recorded: the process-only "
-                    "figures are given without an interval.")
+        warn.append(
+            "The gauge sigma has no degrees of freedom recorded: the process-only "
+            "figures are given without an interval."
+        )
     return MeasurementErrorResult(
-        gauge_sigma=float(gauge_sigma), gauge_df=gauge_df, gauge_source=gauge_source,
-        level=float(confidence), max_gauge_share=float(max_gauge_share),
-        within=parts.get("within"), overall=parts.get("overall"), warnings=tuple(warn),
+        gauge_sigma=float(gauge_sigma),
+        gauge_df=gauge_df,
+        gauge_source=gauge_source,
+        level=float(confidence),
+        max_gauge_share=float(max_gauge_share),
+        within=parts.get("within"),
+        overall=parts.get("overall"),
+        warnings=tuple(warn),
     )
 
 

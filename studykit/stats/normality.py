@@ -40,9 +40,13 @@ BANDS = ("beta_pointwise", "ks_simultaneous", None)
 def _clean(x, *, name="x", minimum=3):
     """Return a finite float array, or raise an error naming the problem."""
     return check_sample(
-        x, name=name, minimum=minimum, before="testing normality", needed_for="this test",
+        x,
+        name=name,
+        minimum=minimum,
+        before="testing normality",
+        needed_for="this test",
         zero_spread="a normality test is meaningless. Check the gauge resolution or the data "
-                    "import.",
+        "import.",
     )
 
 

@@ -47,9 +47,21 @@ ALPHA = 0.001
 MIN_VALUES = 8
 #: Words in a characteristic's name or unit that mark a life-test result (ours).
 LIFE_TEST_WORDS = (
-    "to failure", "until failure", "failure", "endurance", "lifetime", "life", "cycles to",
-    "time to", "revolutions to", "survival", "lebensdauer", "bis ausfall", "ausfall",
-    "standzeit", "zyklen bis",
+    "to failure",
+    "until failure",
+    "failure",
+    "endurance",
+    "lifetime",
+    "life",
+    "cycles to",
+    "time to",
+    "revolutions to",
+    "survival",
+    "lebensdauer",
+    "bis ausfall",
+    "ausfall",
+    "standzeit",
+    "zyklen bis",
 )
 
 
@@ -91,6 +103,7 @@ class OrderCheck(Result):
 
     def to_dict(self) -> dict:
         """JSON-safe dictionary."""
+
         def f(v):
             return None if v is None or not math.isfinite(v) else float(v)
 
@@ -109,12 +122,14 @@ class OrderCheck(Result):
 def _life_test_name(name: str, unit: str | None) -> bool:
     text = " ".join(str(t) for t in (name, unit or "") if t).lower().replace("_", " ")
     text = re.sub(r"\s+", " ", text)
-    return any(re.search(r"(?<![a-z])" + re.escape(w) + r"(?![a-z])", text)
-               for w in LIFE_TEST_WORDS)
+    return any(
+        re.search(r"(?<![a-z])" + re.escape(w) + r"(?![a-z])", text) for w in LIFE_TEST_WORDS
+    )
 
 
-def check_order(values, *, name: str = "", unit: str | None = None,
-                has_times: bool = False) -> OrderCheck:
+def check_order(
+    values, *, name: str = "", unit: str | None = None, has_times: bool = False
+) -> OrderCheck:
     """Check whether the values are in production order or sorted (see the module notes).
 
     Parameters
@@ -144,16 +159,27 @@ def check_order(values, *, name: str = "", unit: str | None = None,
     if n < MIN_VALUES:
         if life:
             return OrderCheck("life_test", True, None, None, None, n, _life_text(name))
-        return OrderCheck("not_checked", False, None, None, None, n,
-                          f"only {n} values: the order was not checked (fewer than "
-                          f"{MIN_VALUES}).")
+        return OrderCheck(
+            "not_checked",
+            False,
+            None,
+            None,
+            None,
+            n,
+            f"only {n} values: the order was not checked (fewer than {MIN_VALUES}).",
+        )
     d = np.diff(x)
     if np.all(d == 0):
         return OrderCheck("in_order", False, None, None, None, n, "every value is the same.")
     if np.all(d >= 0) or np.all(d <= 0):
         direction = "increasing" if np.all(d >= 0) else "decreasing"
         return OrderCheck(
-            "sorted", True, 1.0 if direction == "increasing" else -1.0, None, direction, n,
+            "sorted",
+            True,
+            1.0 if direction == "increasing" else -1.0,
+            None,
+            direction,
+            n,
             f"the {n} values are sorted ({direction} throughout the file): the file is not in "
             "production order, so stability cannot be judged from it. Put the values in the "
             "order the parts were made (with a time or sequence column) to judge stability.",
@@ -163,7 +189,12 @@ def check_order(values, *, name: str = "", unit: str | None = None,
     if math.isfinite(tau) and abs(tau) >= TAU_SORTED and p < ALPHA:
         direction = "increasing" if tau > 0 else "decreasing"
         return OrderCheck(
-            "nearly_sorted", True, tau, p, direction, n,
+            "nearly_sorted",
+            True,
+            tau,
+            p,
+            direction,
+            n,
             f"the {n} values are nearly sorted ({direction}; Kendall's tau {tau:.2f} against "
             f"their position, p = {p:.2g}): the file is very likely not in production order, so "
             "stability cannot be judged from it. Put the values in the order the parts were made "
@@ -171,13 +202,20 @@ def check_order(values, *, name: str = "", unit: str | None = None,
         )
     if life:
         return OrderCheck("life_test", True, tau, p, None, n, _life_text(name))
-    return OrderCheck("in_order", False, tau if math.isfinite(tau) else None,
-                      p if math.isfinite(p) else None, None, n,
-                      "no sign of sorted data (Kendall's tau against position "
-                      f"{tau:.2f}).")
+    return OrderCheck(
+        "in_order",
+        False,
+        tau if math.isfinite(tau) else None,
+        p if math.isfinite(p) else None,
+        None,
+        n,
+        f"no sign of sorted data (Kendall's tau against position {tau:.2f}).",
+    )
 
 
 def _life_text(name: str) -> str:
-    return (f"'{name}' reads as a life-test result and the file has no time column: nothing "
-            "says in which order the parts were made, so stability cannot be judged from the "
-            "order of the data. Add a time or sequence column in production order to judge it.")
+    return (
+        f"'{name}' reads as a life-test result and the file has no time column: nothing "
+        "says in which order the parts were made, so stability cannot be judged from the "
+        "order of the data. Add a time or sequence column in production order to judge it."
+    )

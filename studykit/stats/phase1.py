@@ -276,8 +276,9 @@ def _fmt(v) -> str:
     return f"{float(v):.6g}"
 
 
-def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None,
-              chance: SeriesChance | None = None) -> str:
+def _describe(
+    series: ChartSeries, pos: int, signal, rnd: int, scale=None, chance: SeriesChance | None = None
+) -> str:
     what = _NAMES.get(series.name, series.name)
     if scale is not None and scale.name != "raw":
         what = f"{what} ({scale.label})"
@@ -290,15 +291,18 @@ def _describe(series: ChartSeries, pos: int, signal, rnd: int, scale=None,
         text = f"{what} {_fmt(value)} lies {side} of round {rnd}"
         if chance is not None and chance.adjusted:
             limit = chance.upper[pos] if value > series.ucl[pos] else chance.lower[pos]
-            text += (f" and beyond the removal limit {_fmt(limit)}, which a stable process "
-                     f"crosses anywhere on this chart of {chance.points} points with "
-                     f"probability {chance.fap:.1%}")
+            text += (
+                f" and beyond the removal limit {_fmt(limit)}, which a stable process "
+                f"crosses anywhere on this chart of {chance.points} points with "
+                f"probability {chance.fap:.1%}"
+            )
         return text
     return f"{what} {_fmt(value)} completes a pattern in round {rnd}: {signal.text}"
 
 
-def _flagged(series: ChartSeries, rules, labels, chance: SeriesChance | None = None
-             ) -> dict[int, list]:
+def _flagged(
+    series: ChartSeries, rules, labels, chance: SeriesChance | None = None
+) -> dict[int, list]:
     found: dict[int, list] = {}
     if not np.any(np.asarray(series.sigma) > 0):
         return found  # a chart that is its centre line (no defective at all): nothing signals
@@ -322,8 +326,10 @@ def _chances(chart: ControlChart, attribute: bool) -> tuple:
     """Removal limits and chance-signal counts of the location and dispersion series."""
     if attribute:
         return None, None
-    return (series_chance(chart.location, chart.sizes),
-            None if chart.dispersion is None else series_chance(chart.dispersion, chart.sizes))
+    return (
+        series_chance(chart.location, chart.sizes),
+        None if chart.dispersion is None else series_chance(chart.dispersion, chart.sizes),
+    )
 
 
 def phase1(
@@ -466,11 +472,7 @@ def phase1(
                 f"`exclude[{label!r}]` has no reason; say why the subgroup is left out."
             )
         removed[code] = True
-        removals.append(
-            Removal(
-                key, "manual", None, 0, reason, who, int(counts[code])
-            )
-        )
+        removals.append(Removal(key, "manual", None, 0, reason, who, int(counts[code])))
 
     scales: list = []
 
@@ -536,8 +538,11 @@ def phase1(
             break
         iterations += 1
         # chart position -> subgroup code (attribute charts plot one point per count)
-        kept_codes = (groups.codes[np.flatnonzero(~removed[groups.codes])] if attribute
-                      else np.flatnonzero(~removed))
+        kept_codes = (
+            groups.codes[np.flatnonzero(~removed[groups.codes])]
+            if attribute
+            else np.flatnonzero(~removed)
+        )
         for pos in positions:
             label = chart.labels[pos]
             parts, rule_ids, where = [], [], []
@@ -551,8 +556,9 @@ def phase1(
                     if name not in where:
                         where.append(name)
                     parts.append(
-                        _describe(series, pos, s, iterations, scales[-1] if scales else None,
-                                  chance)
+                        _describe(
+                            series, pos, s, iterations, scales[-1] if scales else None, chance
+                        )
                         + _mr_note(name, chart.kind, mr_removal, "later")
                     )
             for s in earlier.get(pos, []):
@@ -561,8 +567,14 @@ def phase1(
                 if "dispersion" not in where:
                     where.append("dispersion")
                 parts.append(
-                    _describe(chart.dispersion, pos + 1, s, iterations,
-                              scales[-1] if scales else None, disp_chance)
+                    _describe(
+                        chart.dispersion,
+                        pos + 1,
+                        s,
+                        iterations,
+                        scales[-1] if scales else None,
+                        disp_chance,
+                    )
                     + _mr_note("dispersion", chart.kind, mr_removal, "earlier")
                 )
             code = kept_codes[pos]
@@ -615,7 +627,11 @@ def phase1(
     if scales and scales[-1].name != "raw":
         mask = kept_mask
         raw_chart = control_chart(
-            x[mask], groups.select(mask), kind=kind_fixed, rules=rules, dispersion_rules=dispersion_rules,
+            x[mask],
+            groups.select(mask),
+            kind=kind_fixed,
+            rules=rules,
+            dispersion_rules=dispersion_rules,
             **chart_options,
         )
         if raw_chart.reason != trial.reason and kind == "auto":
@@ -683,7 +699,7 @@ def _mr_note(chart_name: str, kind: str, mr_removal: str, which: str) -> str:
         return ""
     if mr_removal == "later":
         return " (the later reading of the pair is removed: --mr-removal later)"
-    return (f" (this is the {which} reading of the pair; both are removed: --mr-removal both)")
+    return f" (this is the {which} reading of the pair; both are removed: --mr-removal both)"
 
 
 def _text(rules) -> str:

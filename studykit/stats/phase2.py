@@ -253,25 +253,35 @@ def signal_records(chart: ControlChart) -> list[dict]:
                 if sig.rule == "beyond_limits" and len(pos) == 1:
                     p = pos[0]
                     value = float(series.points[p])
-                    side, lim = (("above the upper", series.ucl[p]) if value > series.ucl[p]
-                                 else ("below the lower", series.lcl[p]))
-                    text = (f"{where}: moving range of readings {labels[p - 1]} and "
-                            f"{labels[p]} ({value:.4g}) {side} control limit {float(lim):.4g}")
+                    side, lim = (
+                        ("above the upper", series.ucl[p])
+                        if value > series.ucl[p]
+                        else ("below the lower", series.lcl[p])
+                    )
+                    text = (
+                        f"{where}: moving range of readings {labels[p - 1]} and "
+                        f"{labels[p]} ({value:.4g}) {side} control limit {float(lim):.4g}"
+                    )
                 else:
-                    text = (f"{where}: {sig.text} (a moving range at a reading is its "
-                            "difference from the reading before; readings "
-                            + ", ".join(str(r) for r in readings) + ")")
+                    text = (
+                        f"{where}: {sig.text} (a moving range at a reading is its "
+                        "difference from the reading before; readings "
+                        + ", ".join(str(r) for r in readings)
+                        + ")"
+                    )
             elif series.name != "individual" or chart.kind in ("xbar_r", "xbar_s"):
                 text = f"{where} ({_STATISTIC_WORDS.get(series.name, series.name)}): {sig.text}"
-            out.append({
-                "rule": sig.rule,
-                "number": sig.number,
-                "chart": part,
-                "statistic": series.name,
-                "subgroups": [str(v) for v in subgroups],
-                "readings": [str(v) for v in readings],
-                "text": text,
-            })
+            out.append(
+                {
+                    "rule": sig.rule,
+                    "number": sig.number,
+                    "chart": part,
+                    "statistic": series.name,
+                    "subgroups": [str(v) for v in subgroups],
+                    "readings": [str(v) for v in readings],
+                    "text": text,
+                }
+            )
     return out
 
 

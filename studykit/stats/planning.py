@@ -118,7 +118,11 @@ class DemonstrationPlan(Result):
 
 
 def parts_needed(
-    assumed: float, target: float, *, index: str = "ppk", confidence: float | None = None,
+    assumed: float,
+    target: float,
+    *,
+    index: str = "ppk",
+    confidence: float | None = None,
     level: float | None = None,
 ) -> DemonstrationPlan:
     """Parts needed so that the lower confidence bound is expected to clear the target.

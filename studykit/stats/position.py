@@ -34,8 +34,7 @@ from studykit.stats._checks import check_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 
-__all__ = ["ELLIPSE_LEVEL", "PositionResult", "prob_outside_circle", "ppm_index",
-           "position_study"]
+__all__ = ["ELLIPSE_LEVEL", "PositionResult", "prob_outside_circle", "ppm_index", "position_study"]
 
 #: Probability content of the fitted ellipse drawn and reported: 99.73 %, the content of
 #: +/- 3 sigma in one dimension (common practice, no source).
@@ -99,8 +98,10 @@ def prob_outside_circle(mean, cov, radius: float) -> float:
         raise SpecError(f"the zone radius ({radius!r}) must be a positive number.")
     lam, vec = np.linalg.eigh(c)
     if not lam[0] > 0:
-        raise AnalysisError("the covariance of dx and dy is singular (the points lie on a "
-                            "line or coincide); no two-dimensional model can be fitted.")
+        raise AnalysisError(
+            "the covariance of dx and dy is singular (the points lie on a "
+            "line or coincide); no two-dimensional model can be fitted."
+        )
     mu = vec.T @ m
     s1, s2 = math.sqrt(lam[0]), math.sqrt(lam[1])
     # the axis with the larger spread is integrated (outer); the narrower one in closed form
@@ -119,8 +120,9 @@ def prob_outside_circle(mean, cov, radius: float) -> float:
         return dens * out * h  # du = R cos(theta) dtheta = h dtheta
 
     pts = [math.asin(max(-1.0, min(1.0, v / r))) for v in (m_out - s_out, m_out, m_out + s_out)]
-    inner, _ = integrate.quad(integrand, -math.pi / 2, math.pi / 2, points=pts, limit=400,
-                              epsabs=0.0, epsrel=1e-11)
+    inner, _ = integrate.quad(
+        integrand, -math.pi / 2, math.pi / 2, points=pts, limit=400, epsabs=0.0, epsrel=1e-11
+    )
     return float(min(1.0, max(0.0, tail + inner)))
 
 
@@ -280,18 +282,23 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     >>> res.n, res.observed_outside
     (60, 0)
     """
-    x = check_sample(dx, name="dx", minimum=5, before="the position study",
-                     needed_for="a position study")
-    y = check_sample(dy, name="dy", minimum=5, before="the position study",
-                     needed_for="a position study")
+    x = check_sample(
+        dx, name="dx", minimum=5, before="the position study", needed_for="a position study"
+    )
+    y = check_sample(
+        dy, name="dy", minimum=5, before="the position study", needed_for="a position study"
+    )
     if x.size != y.size:
-        raise StudyInputError(f"`dx` has {x.size} values and `dy` {y.size}; they must be "
-                              "paired (one X and one Y deviation per part).")
+        raise StudyInputError(
+            f"`dx` has {x.size} values and `dy` {y.size}; they must be "
+            "paired (one X and one Y deviation per part)."
+        )
     try:
         t = float(tolerance)
     except (TypeError, ValueError):
-        raise SpecError(f"the tolerance ({tolerance!r}) must be a number (the zone "
-                        "diameter).") from None
+        raise SpecError(
+            f"the tolerance ({tolerance!r}) must be a number (the zone diameter)."
+        ) from None
     if not (math.isfinite(t) and t > 0):
         raise SpecError(f"the tolerance ({tolerance!r}) must be a positive zone diameter.")
     n = int(x.size)
@@ -299,15 +306,18 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     sx, sy = float(x.std(ddof=1)), float(y.std(ddof=1))
     if not (sx > 0 and sy > 0):
         which = "dx" if not sx > 0 else "dy"
-        raise AnalysisError(f"`{which}` has zero spread; the gauge may be too coarse for a "
-                            "two-dimensional model.")
+        raise AnalysisError(
+            f"`{which}` has zero spread; the gauge may be too coarse for a two-dimensional model."
+        )
     rho = float(np.corrcoef(x, y)[0, 1])
     cxy = rho * sx * sy
     cov = np.array([[sx * sx, cxy], [cxy, sy * sy]])
     notes: list[str] = []
     if abs(rho) > 0.999:
-        raise AnalysisError(f"dx and dy are almost perfectly correlated (r = {rho:.4f}); the "
-                            "points lie on a line and no two-dimensional model can be fitted.")
+        raise AnalysisError(
+            f"dx and dy are almost perfectly correlated (r = {rho:.4f}); the "
+            "points lie on a line and no two-dimensional model can be fitted."
+        )
     p_out = prob_outside_circle([mx, my], cov, t / 2.0)
     pos = 2.0 * np.hypot(x, y)
     out_idx = np.flatnonzero(pos > t)
@@ -321,17 +331,37 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     angle = math.degrees(math.atan2(vec[1, 1], vec[0, 1]))
     angle = (angle + 90.0) % 180.0 - 90.0
     if math.hypot(mx, my) > t / 2.0:
-        notes.append("the mean position lies outside the zone: check that the columns hold "
-                     "deviations from nominal, not absolute coordinates.")
+        notes.append(
+            "the mean position lies outside the zone: check that the columns hold "
+            "deviations from nominal, not absolute coordinates."
+        )
     if n < 30:
-        notes.append(f"only {n} parts: the fitted spreads and correlation are uncertain, and so "
-                     "is the expected PPM (common practice, no source: 30 or more).")
+        notes.append(
+            f"only {n} parts: the fitted spreads and correlation are uncertain, and so "
+            "is the expected PPM (common practice, no source: 30 or more)."
+        )
     return PositionResult(
-        n=n, tolerance=t, mean_x=mx, mean_y=my, sd_x=sx, sd_y=sy, correlation=rho,
-        offset=float(math.hypot(mx, my)), ppm_expected=1e6 * p_out, index=ppm_index(p_out),
-        observed_outside=outside, ppm_observed=1e6 * outside / n,
-        shortcut_mean=r_mean, shortcut_sd=r_sd, shortcut_index=sc_index, shortcut_ppm=sc_ppm,
-        ellipse_level=ELLIPSE_LEVEL, ellipse_axes=axes, ellipse_angle=angle,
-        dx=_readonly(x), dy=_readonly(y), outside=tuple(int(i) for i in out_idx),
+        n=n,
+        tolerance=t,
+        mean_x=mx,
+        mean_y=my,
+        sd_x=sx,
+        sd_y=sy,
+        correlation=rho,
+        offset=float(math.hypot(mx, my)),
+        ppm_expected=1e6 * p_out,
+        index=ppm_index(p_out),
+        observed_outside=outside,
+        ppm_observed=1e6 * outside / n,
+        shortcut_mean=r_mean,
+        shortcut_sd=r_sd,
+        shortcut_index=sc_index,
+        shortcut_ppm=sc_ppm,
+        ellipse_level=ELLIPSE_LEVEL,
+        ellipse_axes=axes,
+        ellipse_angle=angle,
+        dx=_readonly(x),
+        dy=_readonly(y),
+        outside=tuple(int(i) for i in out_idx),
         notes=tuple(notes),
     )

@@ -22,9 +22,11 @@ from studykit.stats.result import json_float as _f
 __all__ = ["FitRow", "Ranking", "fit_all", "ROW_FIELDS", "RANKING_RULE"]
 
 
-RANKING_RULE = ("AIC ascending among converged fits, then fits at a search limit "
-                "(converged=False), then families that could not be fitted; ties broken by the "
-                "smaller Anderson-Darling statistic")
+RANKING_RULE = (
+    "AIC ascending among converged fits, then fits at a search limit "
+    "(converged=False), then families that could not be fitted; ties broken by the "
+    "smaller Anderson-Darling statistic"
+)
 
 
 @dataclass(frozen=True)
@@ -62,9 +64,23 @@ class FitRow(Result):
 
 
 #: Column names of the ranking table, defined once for the JSON, the table and the report.
-ROW_FIELDS = ("rank", "id", "label", "n_params", "loglik", "aic", "bic", "ad_statistic",
-              "ad_p_value", "ad_p_text", "lrt_p_value", "lrt_against", "converged", "error",
-              "note")
+ROW_FIELDS = (
+    "rank",
+    "id",
+    "label",
+    "n_params",
+    "loglik",
+    "aic",
+    "bic",
+    "ad_statistic",
+    "ad_p_value",
+    "ad_p_text",
+    "lrt_p_value",
+    "lrt_against",
+    "converged",
+    "error",
+    "note",
+)
 
 
 @dataclass(frozen=True)
@@ -176,10 +192,24 @@ def fit_all(x, *, families=None) -> Ranking:
         fam = FAMILIES[fid]
         m = models.get(fid)
         if m is None:
-            rows.append(dict(id=fid, label=fam.label, n_params=fam.n_params, loglik=None,
-                             aic=None, bic=None, ad_statistic=None, ad_p_value=None,
-                             ad_p_text=None, lrt_p_value=None, lrt_against=None,
-                             converged=False, error=errors[fid], note=None))
+            rows.append(
+                dict(
+                    id=fid,
+                    label=fam.label,
+                    n_params=fam.n_params,
+                    loglik=None,
+                    aic=None,
+                    bic=None,
+                    ad_statistic=None,
+                    ad_p_value=None,
+                    ad_p_text=None,
+                    lrt_p_value=None,
+                    lrt_against=None,
+                    converged=False,
+                    error=errors[fid],
+                    note=None,
+                )
+            )
             continue
         lrt = None
         against = None
@@ -188,10 +218,24 @@ def fit_all(x, *, families=None) -> Ranking:
             stat = max(0.0, 2.0 * (m.loglik - base.loglik))
             lrt = float(special.chdtrc(1.0, stat))
             against = base.name
-        rows.append(dict(id=fid, label=fam.label, n_params=fam.n_params, loglik=m.loglik,
-                         aic=m.aic, bic=m.bic, ad_statistic=m.ad_statistic,
-                         ad_p_value=m.ad_p_value, ad_p_text=m.ad_p_text, lrt_p_value=lrt,
-                         lrt_against=against, converged=m.converged, error=None, note=m.note))
+        rows.append(
+            dict(
+                id=fid,
+                label=fam.label,
+                n_params=fam.n_params,
+                loglik=m.loglik,
+                aic=m.aic,
+                bic=m.bic,
+                ad_statistic=m.ad_statistic,
+                ad_p_value=m.ad_p_value,
+                ad_p_text=m.ad_p_text,
+                lrt_p_value=lrt,
+                lrt_against=against,
+                converged=m.converged,
+                error=None,
+                note=m.note,
+            )
+        )
 
     def key(r):
         if r["error"] is not None:

@@ -103,8 +103,7 @@ class Result:
 
     def to_dict(self) -> dict:
         """The result as JSON-safe plain Python (non-finite numbers as ``None``)."""
-        return {f.name: _plain(getattr(self, f.name))
-                for f in dataclasses.fields(self)}  # type: ignore[arg-type]
+        return {f.name: _plain(getattr(self, f.name)) for f in dataclasses.fields(self)}  # type: ignore[arg-type]
 
     def _items(self) -> dict[str, Any]:
         return {k: v for k, v in _flat(self.to_dict()).items() if not isinstance(v, list)}
@@ -115,12 +114,16 @@ class Result:
         import pandas as pd
 
         items = self._items()
-        return pd.DataFrame({"value": pd.Series(list(items.values()), index=list(items),
-                                                dtype=object)}).rename_axis("quantity")
+        return pd.DataFrame(
+            {"value": pd.Series(list(items.values()), index=list(items), dtype=object)}
+        ).rename_axis("quantity")
 
     def __repr__(self) -> str:
-        items = [(k, v) for k, v in _flat(self.to_dict()).items()
-                 if v is not None and not isinstance(v, list | dict) and k != "kind"]
+        items = [
+            (k, v)
+            for k, v in _flat(self.to_dict()).items()
+            if v is not None and not isinstance(v, list | dict) and k != "kind"
+        ]
         items.sort(key=lambda kv: "." in kv[0])  # the result's own quantities before nested ones
         parts, text = [], ""
         for k, v in items[:_REPR_ITEMS]:
@@ -137,6 +140,9 @@ class Result:
             f"<tr><th style='text-align:left'>{html.escape(k)}</th>"
             f"<td style='text-align:right'>{html.escape(_short(v) if not isinstance(v, str) else v)}"
             "</td></tr>"
-            for k, v in self._items().items())
-        return (f"<table><caption style='text-align:left'><b>{html.escape(type(self).__name__)}"
-                f"</b></caption>{rows}</table>")
+            for k, v in self._items().items()
+        )
+        return (
+            f"<table><caption style='text-align:left'><b>{html.escape(type(self).__name__)}"
+            f"</b></caption>{rows}</table>"
+        )

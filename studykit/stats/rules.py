@@ -203,7 +203,9 @@ def _describe(rid: str, p: dict) -> str:
     if rid == "hugging":
         return f"{p['length']} points in a row within {p['sigmas']:g} sigma of the centre line"
     both = " with points on both sides" if p["both_sides"] else ""
-    return f"{p['length']} points in a row more than {p['sigmas']:g} sigma from the centre line{both}"
+    return (
+        f"{p['length']} points in a row more than {p['sigmas']:g} sigma from the centre line{both}"
+    )
 
 
 @dataclass(frozen=True)
@@ -251,24 +253,30 @@ class Rule(Result):
         number, defaults, _ = _TABLE[self.id]
         if self.number is not None and self.number != number:
             raise StudyInputError(
-                f"rule `{self.id}` is Nelson test {number}, not {self.number!r}; "
-                "leave `number` out"
+                f"rule `{self.id}` is Nelson test {number}, not {self.number!r}; leave `number` out"
             )
-        given = dict(self.parameters.items() if isinstance(self.parameters, dict) else self.parameters)
+        given = dict(
+            self.parameters.items() if isinstance(self.parameters, dict) else self.parameters
+        )
         unknown = sorted(set(given) - set(defaults))
         if unknown:
             raise StudyInputError(
                 f"rule `{self.id}` has no parameter {unknown[0]!r}; "
                 f"its parameters are {', '.join(defaults)}"
             )
-        values = {name: _check_parameter(self.id, name, given.get(name, d)) for name, d in defaults.items()}
+        values = {
+            name: _check_parameter(self.id, name, given.get(name, d))
+            for name, d in defaults.items()
+        }
         if "window" in values and values["count"] > values["window"]:
             raise StudyInputError(
                 f"rule `{self.id}` parameter `count` ({values['count']}) must not exceed "
                 f"`window` ({values['window']})"
             )
         if not isinstance(self.enabled, bool | np.bool_):
-            raise StudyInputError(f"rule `{self.id}` `enabled` ({self.enabled!r}) must be true or false")
+            raise StudyInputError(
+                f"rule `{self.id}` `enabled` ({self.enabled!r}) must be true or false"
+            )
         object.__setattr__(self, "number", number)
         object.__setattr__(self, "parameters", tuple(values.items()))
         object.__setattr__(self, "enabled", bool(self.enabled))
@@ -296,17 +304,25 @@ class Rule(Result):
         return cls("alternation", parameters={"length": length}, enabled=enabled)
 
     @classmethod
-    def zone_a(cls, count: int = 2, window: int = 3, sigmas: float = 2.0, *, enabled: bool = True) -> Rule:
+    def zone_a(
+        cls, count: int = 2, window: int = 3, sigmas: float = 2.0, *, enabled: bool = True
+    ) -> Rule:
         """Nelson test 5: ``count`` of ``window`` points beyond ``sigmas`` sigma, same side."""
         return cls(
-            "zone_a", parameters={"count": count, "window": window, "sigmas": sigmas}, enabled=enabled
+            "zone_a",
+            parameters={"count": count, "window": window, "sigmas": sigmas},
+            enabled=enabled,
         )
 
     @classmethod
-    def zone_b(cls, count: int = 4, window: int = 5, sigmas: float = 1.0, *, enabled: bool = True) -> Rule:
+    def zone_b(
+        cls, count: int = 4, window: int = 5, sigmas: float = 1.0, *, enabled: bool = True
+    ) -> Rule:
         """Nelson test 6: ``count`` of ``window`` points beyond ``sigmas`` sigma, same side."""
         return cls(
-            "zone_b", parameters={"count": count, "window": window, "sigmas": sigmas}, enabled=enabled
+            "zone_b",
+            parameters={"count": count, "window": window, "sigmas": sigmas},
+            enabled=enabled,
         )
 
     @classmethod
@@ -790,7 +806,9 @@ def _as_points(points) -> np.ndarray:
             f"got values such as {list(points)[:3]!r}"
         ) from None
     if x.ndim != 1:
-        raise StudyInputError(f"`points` must be one-dimensional (a series in time order); got shape {x.shape}")
+        raise StudyInputError(
+            f"`points` must be one-dimensional (a series in time order); got shape {x.shape}"
+        )
     bad = np.flatnonzero(np.isinf(x))
     if bad.size:
         raise StudyInputError(
@@ -805,7 +823,9 @@ def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = F
     try:
         arr = np.asarray(value, dtype=float)
     except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({value!r}) must be a number or one number per point") from None
+        raise StudyInputError(
+            f"`{name}` ({value!r}) must be a number or one number per point"
+        ) from None
     if arr.ndim == 0:
         values = arr.reshape(1)
         out = float(arr)
@@ -890,7 +910,9 @@ def evaluate(
     n_all = x_all.size
     rule_list = parse_rules(rules)
     if labels is not None and len(labels) != n_all:
-        raise StudyInputError(f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point")
+        raise StudyInputError(
+            f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point"
+        )
     keep = ~np.isnan(x_all)
     all_kept = bool(keep.all())
     x = x_all if all_kept else x_all[keep]

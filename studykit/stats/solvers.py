@@ -35,7 +35,6 @@ def mean_sd(x, ddof=0):
     return m, math.sqrt(float(add_reduce(c * c)) / (n - ddof))
 
 
-
 def median_1d(x, axis=-1):
     """np.median(x, axis) (same values: the middle element, or the mean of the two middle
     elements) by one partition, without np.median's generic machinery."""
@@ -46,11 +45,9 @@ def median_1d(x, axis=-1):
     return a if lo == hi else (a + b) / 2.0
 
 
-
 def rowsum(a):
     # the ufunc directly: same sums as a.sum(axis=1) without the method's Python wrapper
     return add_reduce(a, 1)
-
 
 
 def ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
@@ -118,7 +115,6 @@ def ls_fit(u: np.ndarray, terms, mu0: float, s0: float, *, start=None):
     return loc, scale, ll - n * math.log(sd), (a, b), converged
 
 
-
 # ---------------------------------------------------------------------------------------------
 # Profile likelihood over the threshold
 # ---------------------------------------------------------------------------------------------
@@ -156,10 +152,9 @@ def _slope_zero(us, slopes, k):
     lin = u0 + (u1 - u0) * s0 / (s0 - s1)
     p = min(_ZERO_POINTS, us.size)
     j = min(max(k - (p - 2) // 2, 0), us.size - p)
-    uu = [float(v) for v in us[j:j + p]]
-    ss = [float(v) for v in slopes[j:j + p]]
-    if (not all(math.isfinite(v) for v in ss)
-            or not all(ss[i] > ss[i + 1] for i in range(p - 1))):
+    uu = [float(v) for v in us[j : j + p]]
+    ss = [float(v) for v in slopes[j : j + p]]
+    if not all(math.isfinite(v) for v in ss) or not all(ss[i] > ss[i + 1] for i in range(p - 1)):
         return lin
     u = 0.0
     for i in range(p):
@@ -222,15 +217,20 @@ def profile_threshold(x: np.ndarray, family):
             for i in range(0, us.size, group):
                 part = slice(i, i + group)
                 ys = x[None, :] - (xmin - gap[part])[:, None]
-                ll_p, p_p, st_p = inner(ys, None if start is None
-                                        else tuple(c[part] for c in start), rough=rough)
+                ll_p, p_p, st_p = inner(
+                    ys, None if start is None else tuple(c[part] for c in start), rough=rough
+                )
                 parts.append((ll_p, p_p, st_p, dtheta(ys, p_p)))
                 del ys
             ll = np.concatenate([q[0] for q in parts])
             params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
-            state = (None if parts[0][2] is None else
-                     tuple(np.concatenate([q[2][j] for q in parts])
-                           for j in range(len(parts[0][2]))))
+            state = (
+                None
+                if parts[0][2] is None
+                else tuple(
+                    np.concatenate([q[2][j] for q in parts]) for j in range(len(parts[0][2]))
+                )
+            )
             dt = np.concatenate([q[3] for q in parts])
         if us.size > 1 and state is not None:
             warm["at"], warm["state"] = at, state
@@ -242,22 +242,32 @@ def profile_threshold(x: np.ndarray, family):
     best = int(lls.argmax())
     note = None
     if best == 0:
-        interior = [i for i in range(1, us.size - 1)
-                    if lls[i] >= lls[i - 1] and lls[i] >= lls[i + 1]]
+        interior = [
+            i for i in range(1, us.size - 1) if lls[i] >= lls[i - 1] and lls[i] >= lls[i + 1]
+        ]
         if not interior:
             raise AnalysisError(
                 f"{label}: the likelihood keeps rising as the threshold approaches the smallest "
                 f"reading ({xmin:g}) and has no interior maximum; use the two-parameter family."
             )
         best = max(interior, key=lambda i: lls[i])
-        note = ("likelihood unbounded at the smallest reading; the interior local maximum is "
-                "used (Smith 1985)")
+        note = (
+            "likelihood unbounded at the smallest reading; the interior local maximum is "
+            "used (Smith 1985)"
+        )
     if best == us.size - 1:
-        note = ("threshold at the search limit (min(x) - 1000 s): the data show no skew for "
-                "this family, which tends to its limiting form")
+        note = (
+            "threshold at the search limit (min(x) - 1000 s): the data show no skew for "
+            "this family, which tends to its limiting form"
+        )
         _, lls, params = evaluate(us[-1:])  # the grid's inner fits are rough: refit
-        return (xmin - math.exp(us[-1]), {k: float(v[0]) for k, v in params.items()},
-                float(lls[0]), False, note)
+        return (
+            xmin - math.exp(us[-1]),
+            {k: float(v[0]) for k, v in params.items()},
+            float(lls[0]),
+            False,
+            note,
+        )
     # the pass spans the grid step where the profile slope changes sign next to the best
     # point (17 points), or both steps around it (33 points) when the grid slopes do not
     # show that sign change
@@ -291,13 +301,15 @@ def profile_threshold(x: np.ndarray, family):
                 if not (math.isfinite(s1) and s1 != float(slopes[j])):
                     break
                 u_next = u - s1 * (u - float(us[j])) / (s1 - float(slopes[j]))
-                if (not float(us[k]) <= u_next <= float(us[k + 1]) or abs(u_next - u) <= 1e-6
-                        or abs(s1 * (u_next - u)) <= 2e-10 * max(1.0, abs(float(ll1[0])))):
+                if (
+                    not float(us[k]) <= u_next <= float(us[k + 1])
+                    or abs(u_next - u) <= 1e-6
+                    or abs(s1 * (u_next - u)) <= 2e-10 * max(1.0, abs(float(ll1[0])))
+                ):
                     break  # the step would gain ~ s1 (u_next - u) / 2: below rounding
                 u = u_next
             break
     return xmin - math.exp(u_best), p_best, ll_best, True, note
-
 
 
 def threshold_rows(family, block, shared=None):
@@ -327,8 +339,12 @@ def threshold_rows(family, block, shared=None):
         with np.errstate(all="ignore"):
             ll, params, state = inner(ys, start)
             s = -np.exp(u) * dtheta(ys, params)
-        return (np.where(np.isfinite(s), s, np.nan), params,
-                np.where(np.isfinite(ll), ll, -np.inf), state)
+        return (
+            np.where(np.isfinite(s), s, np.nan),
+            params,
+            np.where(np.isfinite(ll), ll, -np.inf),
+            state,
+        )
 
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
@@ -349,8 +365,7 @@ def threshold_rows(family, block, shared=None):
         shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
     if family.shared_grid_start and rows.size and shared.get("k0") is not None:
         grid_start = (np.tile(shared["k0"], rows.size),)
-    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(),
-                                         grid_start)
+    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), grid_start)
     s_grid = s_grid.reshape(-1, decades.size)
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
     if not family.shared_grid_start:  # warm starts help the Weibull shape's Newton only
@@ -380,8 +395,10 @@ def threshold_rows(family, block, shared=None):
         u = (lo_u * hi_s - hi_u * lo_s) / (hi_s - lo_s)
         s_u, _, _, new_state = evaluate(rows[solve], u, state)
         if state is not None and new_state is not None:
-            state = tuple(np.where(np.isfinite(c) & (c > 0) if i == 0 else np.isfinite(c), c, o)
-                          for i, (c, o) in enumerate(zip(new_state, state, strict=True)))
+            state = tuple(
+                np.where(np.isfinite(c) & (c > 0) if i == 0 else np.isfinite(c), c, o)
+                for i, (c, o) in enumerate(zip(new_state, state, strict=True))
+            )
         same_lo = s_u > 0
         # Illinois: halve the slope kept at the end that stayed put twice in a row
         hi_s = np.where(same_lo & (side == 1), hi_s / 2, hi_s)
@@ -389,12 +406,21 @@ def threshold_rows(family, block, shared=None):
         lo_u, lo_s = np.where(same_lo, u, lo_u), np.where(same_lo, s_u, lo_s)
         hi_u, hi_s = np.where(same_lo, hi_u, u), np.where(same_lo, hi_s, s_u)
         side = np.where(same_lo, 1, -1)
-        done = ((np.abs(hi_u - lo_u) <= 1e-9 * np.maximum(1.0, np.abs(u))) | (s_u == 0)
-                | ~np.isfinite(s_u))
+        done = (
+            (np.abs(hi_u - lo_u) <= 1e-9 * np.maximum(1.0, np.abs(u)))
+            | (s_u == 0)
+            | ~np.isfinite(s_u)
+        )
         root[solve[done]] = u[done]
         keep = ~done
-        solve, lo_u, lo_s, hi_u, hi_s, side = (solve[keep], lo_u[keep], lo_s[keep],
-                                               hi_u[keep], hi_s[keep], side[keep])
+        solve, lo_u, lo_s, hi_u, hi_s, side = (
+            solve[keep],
+            lo_u[keep],
+            lo_s[keep],
+            hi_u[keep],
+            hi_s[keep],
+            side[keep],
+        )
         if state is not None:
             state = tuple(c[keep] for c in state)
     fallback.update(rows[solve].tolist())
@@ -413,4 +439,3 @@ def threshold_rows(family, block, shared=None):
     rest = sorted(fallback)
     ok[rest] = False
     return params, ok, rest
-

@@ -35,8 +35,15 @@ from scipy import stats
 from studykit.errors import StudyInputError
 from studykit.stats.constants import d2
 
-__all__ = ["ALPHA", "StreamTest", "GroupChart", "location_test", "spread_test", "group_chart",
-           "stream_order"]
+__all__ = [
+    "ALPHA",
+    "StreamTest",
+    "GroupChart",
+    "location_test",
+    "spread_test",
+    "group_chart",
+    "stream_order",
+]
 
 #: Significance level of the location and spread tests (common practice, no source).
 ALPHA = 0.05
@@ -77,10 +84,16 @@ class StreamTest:
     text: str
 
     def to_dict(self) -> dict:
-        return {"test": self.name, "statistic": _f(self.statistic),
-                "df_between": self.df_between, "df_within": self.df_within,
-                "p_value": _f(self.p_value), "alpha": self.alpha, "differ": self.differ,
-                "text": self.text}
+        return {
+            "test": self.name,
+            "statistic": _f(self.statistic),
+            "df_between": self.df_between,
+            "df_within": self.df_within,
+            "p_value": _f(self.p_value),
+            "alpha": self.alpha,
+            "differ": self.differ,
+            "text": self.text,
+        }
 
 
 def stream_order(streams) -> list[str]:
@@ -140,9 +153,11 @@ def location_test(values, streams, *, alpha: float = ALPHA) -> StreamTest:
     _, groups = _groups(values, streams, "the location test of the streams")
     f, df1, df2, p = _anova(groups)
     differ = bool(np.isfinite(p) and p < alpha)
-    text = (f"one-way ANOVA: F = {f:.3g} on {df1} and {df2} degrees of freedom, p = {p:.3g}: "
-            + ("the stream means differ" if differ else "no difference between the stream means "
-               "shown") + f" (at {alpha:g})")
+    text = (
+        f"one-way ANOVA: F = {f:.3g} on {df1} and {df2} degrees of freedom, p = {p:.3g}: "
+        + ("the stream means differ" if differ else "no difference between the stream means shown")
+        + f" (at {alpha:g})"
+    )
     return StreamTest("one_way_anova", f, df1, df2, p, alpha, differ, text)
 
 
@@ -159,10 +174,16 @@ def spread_test(values, streams, *, alpha: float = ALPHA, word: str = "stream") 
     dev = [np.abs(g - np.median(g)) for g in groups]
     f, df1, df2, p = _anova(dev)
     differ = bool(np.isfinite(p) and p < alpha)
-    text = (f"Brown-Forsythe test: W = {f:.3g} on {df1} and {df2} degrees of freedom, "
-            f"p = {p:.3g}: "
-            + (f"the {word} spreads differ" if differ else f"no difference between the {word} "
-               "spreads shown") + f" (at {alpha:g})")
+    text = (
+        f"Brown-Forsythe test: W = {f:.3g} on {df1} and {df2} degrees of freedom, "
+        f"p = {p:.3g}: "
+        + (
+            f"the {word} spreads differ"
+            if differ
+            else f"no difference between the {word} spreads shown"
+        )
+        + f" (at {alpha:g})"
+    )
     return StreamTest("brown_forsythe", f, df1, df2, p, alpha, differ, text)
 
 
@@ -207,15 +228,31 @@ class GroupChart:
 
     def to_dict(self) -> dict:
         return {
-            "center": _f(self.center), "lcl": _f(self.lcl), "ucl": _f(self.ucl),
-            "sigma_within": _f(self.sigma_within), "n": self.n,
-            "points": [{"subgroup": str(lab), "high": _f(h), "high_stream": str(hs),
-                        "low": _f(lo), "low_stream": str(ls)}
-                       for lab, h, hs, lo, ls in zip(self.labels.tolist(), self.high.tolist(),
-                                                     self.high_stream.tolist(), self.low.tolist(),
-                                                     self.low_stream.tolist(), strict=True)],
-            "beyond": [{"subgroup": str(a), "stream": str(b), "side": c}
-                       for a, b, c in self.beyond],
+            "center": _f(self.center),
+            "lcl": _f(self.lcl),
+            "ucl": _f(self.ucl),
+            "sigma_within": _f(self.sigma_within),
+            "n": self.n,
+            "points": [
+                {
+                    "subgroup": str(lab),
+                    "high": _f(h),
+                    "high_stream": str(hs),
+                    "low": _f(lo),
+                    "low_stream": str(ls),
+                }
+                for lab, h, hs, lo, ls in zip(
+                    self.labels.tolist(),
+                    self.high.tolist(),
+                    self.high_stream.tolist(),
+                    self.low.tolist(),
+                    self.low_stream.tolist(),
+                    strict=True,
+                )
+            ],
+            "beyond": [
+                {"subgroup": str(a), "stream": str(b), "side": c} for a, b, c in self.beyond
+            ],
             "longest_run": {k: dict(v) for k, v in self.longest_run.items()},
         }
 
@@ -249,8 +286,9 @@ def group_chart(values, subgroups, streams) -> GroupChart:
     labels = stream_order(sg)
     names = stream_order(st)
     if len(names) < 2:
-        raise StudyInputError(f"the group chart needs at least 2 streams; the data have "
-                              f"{len(names)}.")
+        raise StudyInputError(
+            f"the group chart needs at least 2 streams; the data have {len(names)}."
+        )
     li = {k: i for i, k in enumerate(labels)}
     si = {k: i for i, k in enumerate(names)}
     r = np.array([li[v] for v in sg.tolist()])
@@ -298,9 +336,19 @@ def group_chart(values, subgroups, streams) -> GroupChart:
                 beyond.append((lab, names[j], "below"))
     high_stream, low_stream = names_arr[hi_i], names_arr[lo_i]
     return GroupChart(
-        labels=np.asarray(labels), high=high, low=low, high_stream=high_stream,
-        low_stream=low_stream, center=center, lcl=lcl, ucl=ucl, sigma_within=sigma, n=n,
+        labels=np.asarray(labels),
+        high=high,
+        low=low,
+        high_stream=high_stream,
+        low_stream=low_stream,
+        center=center,
+        lcl=lcl,
+        ucl=ucl,
+        sigma_within=sigma,
+        n=n,
         beyond=tuple(beyond),
-        longest_run={"high": _longest_run(high_stream.tolist()),
-                     "low": _longest_run(low_stream.tolist())},
+        longest_run={
+            "high": _longest_run(high_stream.tolist()),
+            "low": _longest_run(low_stream.tolist()),
+        },
     )

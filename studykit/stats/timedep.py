@@ -67,8 +67,16 @@ from scipy import stats
 
 from studykit.errors import StudyInputError
 
-__all__ = ["ALPHA", "CLASSES", "VarianceComponents", "TimeModel", "variance_components",
-           "classify", "trend_capability", "travel_cdf"]
+__all__ = [
+    "ALPHA",
+    "CLASSES",
+    "VarianceComponents",
+    "TimeModel",
+    "variance_components",
+    "classify",
+    "trend_capability",
+    "travel_cdf",
+]
 
 #: Level of every test of the classification (common practice, no source).
 ALPHA = 0.05
@@ -78,13 +86,22 @@ CLASSES = {
     "A1": ("constant", "constant", "normal indices (within and overall sigma)"),
     "A2": ("constant", "constant", "percentile method of the fitted model"),
     "B": ("constant", "varies", "percentile method of the combined distribution"),
-    "C1": ("random", "constant", "normal Pp/Ppk from sigma_total (between-subgroup variance "
-           "included)"),
+    "C1": (
+        "random",
+        "constant",
+        "normal Pp/Ppk from sigma_total (between-subgroup variance included)",
+    ),
     "C2": ("random", "constant", "percentile method of the combined distribution"),
-    "C3": ("systematic", "constant", "percentile method of the trend's travel plus the normal "
-           "spread about it"),
-    "C4": ("random and systematic", "constant", "percentile method of the trend's travel plus "
-           "the spread about it (random part included)"),
+    "C3": (
+        "systematic",
+        "constant",
+        "percentile method of the trend's travel plus the normal spread about it",
+    ),
+    "C4": (
+        "random and systematic",
+        "constant",
+        "percentile method of the trend's travel plus the spread about it (random part included)",
+    ),
     "D": ("varies", "varies", "percentile method of the combined distribution"),
 }
 
@@ -128,14 +145,23 @@ class VarianceComponents:
     @property
     def between_share(self) -> float:
         """sigma_b^2 / sigma_total^2."""
-        tot = self.sigma_total ** 2
-        return 0.0 if tot == 0 else self.sigma_between ** 2 / tot
+        tot = self.sigma_total**2
+        return 0.0 if tot == 0 else self.sigma_between**2 / tot
 
     def to_dict(self) -> dict:
-        return {"subgroups": self.k, "n": self.n_total, "n0": _f(self.n0), "msb": _f(self.msb),
-                "msw": _f(self.msw), "f": _f(self.f), "p_value": _f(self.p_value),
-                "sigma_within": _f(self.sigma_within), "sigma_between": _f(self.sigma_between),
-                "sigma_total": _f(self.sigma_total), "between_share": _f(self.between_share)}
+        return {
+            "subgroups": self.k,
+            "n": self.n_total,
+            "n0": _f(self.n0),
+            "msb": _f(self.msb),
+            "msw": _f(self.msw),
+            "f": _f(self.f),
+            "p_value": _f(self.p_value),
+            "sigma_within": _f(self.sigma_within),
+            "sigma_between": _f(self.sigma_between),
+            "sigma_total": _f(self.sigma_total),
+            "between_share": _f(self.between_share),
+        }
 
 
 def _codes(labels):
@@ -168,16 +194,25 @@ def variance_components(values, subgroups) -> VarianceComponents:
     ssw = float(np.sum((x - means[codes]) ** 2))
     dfb, dfw = k - 1, big_n - k
     msb, msw = ssb / dfb, ssw / dfw
-    n0 = (big_n - float(np.sum(n_i ** 2)) / big_n) / dfb
+    n0 = (big_n - float(np.sum(n_i**2)) / big_n) / dfb
     if msw > 0:
         f = msb / msw
         p = float(stats.f.sf(f, dfb, dfw))
     else:
         f, p = (math.inf, 0.0) if msb > 0 else (math.nan, math.nan)
     sb2 = max(0.0, (msb - msw) / n0)
-    return VarianceComponents(k=k, n_total=int(big_n), n0=n0, msb=msb, msw=msw, f=f, p_value=p,
-                              sigma_within=math.sqrt(msw), sigma_between=math.sqrt(sb2),
-                              sigma_total=math.sqrt(msw + sb2))
+    return VarianceComponents(
+        k=k,
+        n_total=int(big_n),
+        n0=n0,
+        msb=msb,
+        msw=msw,
+        f=f,
+        p_value=p,
+        sigma_within=math.sqrt(msw),
+        sigma_between=math.sqrt(sb2),
+        sigma_total=math.sqrt(msw + sb2),
+    )
 
 
 def travel_cdf(x, mu_low, mu_high, sigma):
@@ -202,8 +237,9 @@ def _travel_ppf(q, a, b, sigma):
     from scipy.optimize import brentq
 
     lo, hi = a - 10 * sigma, b + 10 * sigma
-    return float(brentq(lambda v: float(travel_cdf(v, a, b, sigma)) - q, lo, hi, xtol=1e-14,
-                        rtol=1e-14))
+    return float(
+        brentq(lambda v: float(travel_cdf(v, a, b, sigma)) - q, lo, hi, xtol=1e-14, rtol=1e-14)
+    )
 
 
 def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
@@ -226,12 +262,23 @@ def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
         raise StudyInputError("a trend needs at least 3 readings at 2 or more positions.")
     fit = stats.linregress(t, x)
     resid = x - (fit.intercept + fit.slope * t)
-    sigma_r = float(np.sqrt(np.sum(resid ** 2) / (x.size - 2)))
+    sigma_r = float(np.sqrt(np.sum(resid**2) / (x.size - 2)))
     ends = fit.intercept + fit.slope * np.array([t.min(), t.max()])
     mu_low, mu_high = float(ends.min()), float(ends.max())
-    out = {"slope": float(fit.slope), "intercept": float(fit.intercept), "sigma_r": sigma_r,
-           "mu_low": mu_low, "mu_high": mu_high, "x0135": None, "x50": (mu_low + mu_high) / 2,
-           "x99865": None, "pp": None, "ppu": None, "ppl": None, "ppk": None}
+    out = {
+        "slope": float(fit.slope),
+        "intercept": float(fit.intercept),
+        "sigma_r": sigma_r,
+        "mu_low": mu_low,
+        "mu_high": mu_high,
+        "x0135": None,
+        "x50": (mu_low + mu_high) / 2,
+        "x99865": None,
+        "pp": None,
+        "ppu": None,
+        "ppl": None,
+        "ppk": None,
+    }
     if sigma_r == 0:
         return out
     lo = _travel_ppf(0.00135, mu_low, mu_high, sigma_r)
@@ -287,17 +334,22 @@ class TimeModel:
     def to_dict(self) -> dict:
         loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
         return {
-            "class": self.cls, "location": loc, "spread": spr, "reason": self.reason,
+            "class": self.cls,
+            "location": loc,
+            "spread": spr,
+            "reason": self.reason,
             "method": self.method,
             "components": None if self.components is None else self.components.to_dict(),
-            "trend": None if self.trend is None else {k: _f(v) if not isinstance(v, bool) else v
-                                                      for k, v in self.trend.items()},
+            "trend": None
+            if self.trend is None
+            else {k: _f(v) if not isinstance(v, bool) else v for k, v in self.trend.items()},
             "spread_test": None if self.spread is None else self.spread.to_dict(),
-            "shape": None if self.shape is None else {k: _f(v) if not isinstance(v, bool) else v
-                                                      for k, v in self.shape.items()},
+            "shape": None
+            if self.shape is None
+            else {k: _f(v) if not isinstance(v, bool) else v for k, v in self.shape.items()},
             "indices": {k: _f(v) for k, v in self.indices.items()},
             "source": "ISO 22514-2 time-dependent distribution models (classes and methods "
-                      "from memory, not from the standard's text)",
+            "from memory, not from the standard's text)",
         }
 
 
@@ -319,9 +371,13 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     codes, k = _codes(subgroups)
     n_i = np.bincount(codes, minlength=k)
     if k < 3 or np.median(n_i) < 2:
-        return TimeModel(None, "individual values or fewer than 3 subgroups: within- and "
-                         "between-subgroup variation cannot be separated, so no time-dependent "
-                         "model is assigned", "the ordinary indices")
+        return TimeModel(
+            None,
+            "individual values or fewer than 3 subgroups: within- and "
+            "between-subgroup variation cannot be separated, so no time-dependent "
+            "model is assigned",
+            "the ordinary indices",
+        )
     vc = variance_components(x, codes)
     means = np.bincount(codes, weights=x, minlength=k) / n_i
     pos = np.arange(1, k + 1, dtype=float)
@@ -330,13 +386,18 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     # the random part left about a straight line through the subgroup means
     line = stats.linregress(pos, means)
     resid = means - (line.intercept + line.slope * pos)
-    ms_resid = vc.n0 * float(np.sum(resid ** 2)) / (k - 2) if k > 2 else math.nan
+    ms_resid = vc.n0 * float(np.sum(resid**2)) / (k - 2) if k > 2 else math.nan
     dfw = vc.n_total - k
     rf = ms_resid / vc.msw if vc.msw > 0 else math.inf
     rp = float(stats.f.sf(rf, k - 2, dfw)) if math.isfinite(rf) else 0.0
-    trend = {"tau": float(tau.statistic), "p_value": float(tau.pvalue),
-             "slope": float(line.slope), "residual_f": rf, "residual_p": rp,
-             "significant": trend_sig}
+    trend = {
+        "tau": float(tau.statistic),
+        "p_value": float(tau.pvalue),
+        "slope": float(line.slope),
+        "residual_f": rf,
+        "residual_p": rp,
+        "significant": trend_sig,
+    }
     spread = None
     if np.all(n_i >= 2):
         try:
@@ -350,17 +411,25 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     ad = anderson_darling(x)
     ad_within = anderson_darling(x - means[codes])
     normal = bool(ad.p_value >= alpha)
-    shape = {"statistic": float(ad.a2), "p_value": float(ad.p_value), "normal": normal,
-             "within_statistic": float(ad_within.a2), "within_p_value": float(ad_within.p_value)}
+    shape = {
+        "statistic": float(ad.a2),
+        "p_value": float(ad.p_value),
+        "normal": normal,
+        "within_statistic": float(ad_within.a2),
+        "within_p_value": float(ad_within.p_value),
+    }
     random_loc = bool(vc.p_value < alpha)
-    words = [f"between subgroups F = {_p(vc.f)}, p = {_p(vc.p_value)} (sigma between "
-             f"{_p(vc.sigma_between)}, within {_p(vc.sigma_within)})",
-             f"trend of the subgroup means: Kendall tau = {_p(tau.statistic)}, p = "
-             f"{_p(tau.pvalue)}"]
+    words = [
+        f"between subgroups F = {_p(vc.f)}, p = {_p(vc.p_value)} (sigma between "
+        f"{_p(vc.sigma_between)}, within {_p(vc.sigma_within)})",
+        f"trend of the subgroup means: Kendall tau = {_p(tau.statistic)}, p = {_p(tau.pvalue)}",
+    ]
     if spread is not None:
         words.append(f"spread of the subgroups: Brown-Forsythe p = {_p(spread.p_value)}")
-    words.append(f"shape of all readings: Anderson-Darling p = {_p(ad.p_value)} (each "
-                 f"subgroup centred: p = {_p(ad_within.p_value)})")
+    words.append(
+        f"shape of all readings: Anderson-Darling p = {_p(ad.p_value)} (each "
+        f"subgroup centred: p = {_p(ad_within.p_value)})"
+    )
     if spread_varies and (random_loc or trend_sig):
         cls = "D"
     elif spread_varies:
@@ -375,15 +444,41 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     indices: dict = {}
     if cls in ("C3", "C4"):
         tc = trend_capability(x, pos[codes], lsl=lsl, usl=usl)
-        indices = {k2: tc[k2] for k2 in ("pp", "ppk", "ppu", "ppl", "mu_low", "mu_high",
-                                         "sigma_r", "x0135", "x50", "x99865")}
+        indices = {
+            k2: tc[k2]
+            for k2 in (
+                "pp",
+                "ppk",
+                "ppu",
+                "ppl",
+                "mu_low",
+                "mu_high",
+                "sigma_r",
+                "x0135",
+                "x50",
+                "x99865",
+            )
+        }
     elif cls == "C1":
         s = vc.sigma_total
         mean = float(x.mean())
         ppu = None if usl is None else (usl - mean) / (3 * s)
         ppl = None if lsl is None else (mean - lsl) / (3 * s)
         sides = [v for v in (ppu, ppl) if v is not None]
-        indices = {"pp": None if lsl is None or usl is None else (usl - lsl) / (6 * s),
-                   "ppk": min(sides) if sides else None, "ppu": ppu, "ppl": ppl, "sigma": s}
-    return TimeModel(cls, "; ".join(words), CLASSES[cls][2], components=vc, trend=trend,
-                     spread=spread, shape=shape, indices=indices)
+        indices = {
+            "pp": None if lsl is None or usl is None else (usl - lsl) / (6 * s),
+            "ppk": min(sides) if sides else None,
+            "ppu": ppu,
+            "ppl": ppl,
+            "sigma": s,
+        }
+    return TimeModel(
+        cls,
+        "; ".join(words),
+        CLASSES[cls][2],
+        components=vc,
+        trend=trend,
+        spread=spread,
+        shape=shape,
+        indices=indices,
+    )

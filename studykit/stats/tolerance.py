@@ -83,11 +83,13 @@ def _level(value, name: str) -> float:
     try:
         v = float(value)
     except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({value!r}) must be a number between 0 and 1, "
-                              "e.g. 0.95.") from None
+        raise StudyInputError(
+            f"`{name}` ({value!r}) must be a number between 0 and 1, e.g. 0.95."
+        ) from None
     if not 0.0 < v < 1.0:
-        raise StudyInputError(f"`{name}` ({value!r}) must be between 0 and 1 (exclusive), "
-                              "e.g. 0.95 for 95 %.")
+        raise StudyInputError(
+            f"`{name}` ({value!r}) must be between 0 and 1 (exclusive), e.g. 0.95 for 95 %."
+        )
     return v
 
 
@@ -196,8 +198,9 @@ def _wald_wolfowitz(n: int, p: float, c: float, nu: float) -> float:
     return r * math.sqrt(nu / stats.chi2.ppf(1.0 - c, nu))
 
 
-def normal_factor_two_sided(n: int, p: float, c: float, *, method: str = "exact",
-                            df: float | None = None) -> float:
+def normal_factor_two_sided(
+    n: int, p: float, c: float, *, method: str = "exact", df: float | None = None
+) -> float:
     """Two-sided normal tolerance factor k: x-bar -/+ k s covers >= p with confidence c.
 
     Parameters
@@ -261,14 +264,17 @@ def _exact_two_sided(n: int, p: float, c: float, nu: float) -> float:
     while conf(hi) < c:
         hi *= 2.0
         if hi > 1e7:  # pragma: no cover - beyond any table
-            raise AnalysisError(f"no two-sided tolerance factor below 1e7 for n = {n}, "
-                                f"p = {p:g}, c = {c:g}.")
-    return float(optimize.brentq(lambda k: conf(k) - c, lo * (1 + 1e-12), hi, xtol=1e-12,
-                                 rtol=1e-12))
+            raise AnalysisError(
+                f"no two-sided tolerance factor below 1e7 for n = {n}, p = {p:g}, c = {c:g}."
+            )
+    return float(
+        optimize.brentq(lambda k: conf(k) - c, lo * (1 + 1e-12), hi, xtol=1e-12, rtol=1e-12)
+    )
 
 
-def normal_factor_one_sided(n: int, p: float, c: float, *, method: str = "exact",
-                            df: float | None = None) -> float:
+def normal_factor_one_sided(
+    n: int, p: float, c: float, *, method: str = "exact", df: float | None = None
+) -> float:
     """One-sided normal tolerance factor k: x-bar + k s (or x-bar - k s) bounds >= p with conf. c.
 
     Parameters
@@ -310,8 +316,9 @@ def normal_factor_one_sided(n: int, p: float, c: float, *, method: str = "exact"
         a = 1.0 - zc**2 / (2.0 * nu)
         b = zp**2 - zc**2 / n
         if a <= 0 or zp**2 - a * b < 0:
-            raise AnalysisError(f"the Natrella approximation is undefined for n = {n}; use "
-                                "method='exact'.")
+            raise AnalysisError(
+                f"the Natrella approximation is undefined for n = {n}; use method='exact'."
+            )
         return float((zp + math.sqrt(zp**2 - a * b)) / a)
     if method != "exact":
         raise StudyInputError(f"`method` ({method!r}) must be 'exact' or 'natrella'.")
@@ -323,8 +330,9 @@ def normal_factor_one_sided(n: int, p: float, c: float, *, method: str = "exact"
 # ---------------------------------------------------------------------------------------------
 
 
-def distribution_free_confidence(n: int, p: float, *, r: int = 1, s: int = 1,
-                                 sides: int = 2) -> float:
+def distribution_free_confidence(
+    n: int, p: float, *, r: int = 1, s: int = 1, sides: int = 2
+) -> float:
     """Confidence that order statistics of a sample of n cover at least ``p`` of any continuous law.
 
     Parameters
@@ -366,8 +374,9 @@ def distribution_free_confidence(n: int, p: float, *, r: int = 1, s: int = 1,
     return float(stats.binom.cdf(n - m, n, p))
 
 
-def distribution_free_sample_size(p: float, c: float, *, sides: int = 2, r: int = 1,
-                                  s: int = 1) -> int:
+def distribution_free_sample_size(
+    p: float, c: float, *, sides: int = 2, r: int = 1, s: int = 1
+) -> int:
     """Smallest n whose order-statistic interval covers ``p`` with confidence ``c``.
 
     Parameters
@@ -402,8 +411,9 @@ def distribution_free_sample_size(p: float, c: float, *, sides: int = 2, r: int 
     while distribution_free_confidence(n, p, r=r, s=s, sides=sides) < c:
         n += 1
         if n > MAX_PARTS:
-            raise AnalysisError(f"more than {MAX_PARTS} parts would be needed for p = {p:g}, "
-                                f"c = {c:g}.")
+            raise AnalysisError(
+                f"more than {MAX_PARTS} parts would be needed for p = {p:g}, c = {c:g}."
+            )
     return n
 
 
@@ -415,8 +425,16 @@ def distribution_free_sample_size(p: float, c: float, *, sides: int = 2, r: int 
 _GL_CHI_NODES, _GL_CHI_WEIGHTS = np.polynomial.legendre.leggauss(200)
 
 
-def normal_pass_probability(n: int, p: float, c: float, *, mean: float, sd: float,
-                            lsl: float | None = None, usl: float | None = None) -> float:
+def normal_pass_probability(
+    n: int,
+    p: float,
+    c: float,
+    *,
+    mean: float,
+    sd: float,
+    lsl: float | None = None,
+    usl: float | None = None,
+) -> float:
     """Probability that a sample of n from N(mean, sd^2) passes the tolerance-interval criterion.
 
     The criterion: the (p, c) normal tolerance interval (two-sided with both limits, else
@@ -477,13 +495,22 @@ def normal_pass_probability(n: int, p: float, c: float, *, mean: float, sd: floa
     q = 0.5 * (hi_q - lo_q) * (_GL_CHI_NODES + 1.0) + lo_q
     w = 0.5 * (hi_q - lo_q) * _GL_CHI_WEIGHTS * stats.chi2.pdf(q, nu)
     s = sd * np.sqrt(q / nu)
-    inside = (special.ndtr(rn * (usl - k * s - mean) / sd)
-              - special.ndtr(rn * (lsl + k * s - mean) / sd))
+    inside = special.ndtr(rn * (usl - k * s - mean) / sd) - special.ndtr(
+        rn * (lsl + k * s - mean) / sd
+    )
     return float(np.sum(w * np.clip(inside, 0.0, None)))
 
 
-def normal_sample_size(p: float, c: float, *, mean: float, sd: float, lsl: float | None = None,
-                       usl: float | None = None, power: float = 0.9) -> int | None:
+def normal_sample_size(
+    p: float,
+    c: float,
+    *,
+    mean: float,
+    sd: float,
+    lsl: float | None = None,
+    usl: float | None = None,
+    power: float = 0.9,
+) -> int | None:
     """Smallest n at which a process N(mean, sd^2) passes the (p, c) criterion with ``power``.
 
     Parameters
@@ -575,10 +602,13 @@ class SampleSizePlan(Result):
 
     def to_dict(self) -> dict:
         """JSON-safe fields."""
-        return {"distribution_free": (None if self.distribution_free is None
-                                      else int(self.distribution_free)),
-                "normal": None if self.normal is None else int(self.normal),
-                "power": float(self.power)}
+        return {
+            "distribution_free": (
+                None if self.distribution_free is None else int(self.distribution_free)
+            ),
+            "normal": None if self.normal is None else int(self.normal),
+            "power": float(self.power),
+        }
 
 
 @dataclass(frozen=True)
@@ -650,8 +680,10 @@ class ToleranceInterval(Result):
         """One sentence: what the interval says."""
         p, c = f"{100 * self.coverage:g} %", f"{100 * self.confidence:g} %"
         if self.lower is None and self.upper is None:
-            return (f"No {self.model.replace('_', '-')} interval: {self.n} values are too few "
-                    f"for {p} coverage with {c} confidence.")
+            return (
+                f"No {self.model.replace('_', '-')} interval: {self.n} values are too few "
+                f"for {p} coverage with {c} confidence."
+            )
         if self.lower is None:
             where = f"below {self.upper:.6g}"
         elif self.upper is None:
@@ -676,9 +708,11 @@ class ToleranceInterval(Result):
             "mean": _f(self.mean),
             "sd": _f(self.sd),
             "scale": self.scale,
-            "order_statistics": (None if self.order_statistics is None
-                                 else [None if v is None else int(v)
-                                       for v in self.order_statistics]),
+            "order_statistics": (
+                None
+                if self.order_statistics is None
+                else [None if v is None else int(v) for v in self.order_statistics]
+            ),
             "achieved_confidence": _f(self.achieved_confidence),
             "lsl": _f(self.lsl),
             "usl": _f(self.usl),
@@ -692,16 +726,19 @@ class ToleranceInterval(Result):
 def _bound_kind(sides: int, bound: str | None, lsl, usl) -> str:
     if sides == 2:
         if bound not in (None, "both"):
-            raise StudyInputError(f"`bound` ({bound!r}) applies to one-sided intervals; leave it "
-                                  "out or use sides=1.")
+            raise StudyInputError(
+                f"`bound` ({bound!r}) applies to one-sided intervals; leave it out or use sides=1."
+            )
         return "both"
     if bound is None:
         if usl is not None and lsl is None:
             return "upper"
         if lsl is not None and usl is None:
             return "lower"
-        raise StudyInputError("a one-sided interval needs `bound` ('upper' or 'lower'), or "
-                              "exactly one specification limit to take it from.")
+        raise StudyInputError(
+            "a one-sided interval needs `bound` ('upper' or 'lower'), or "
+            "exactly one specification limit to take it from."
+        )
     if bound not in ("upper", "lower"):
         raise StudyInputError(f"`bound` ({bound!r}) must be 'upper' or 'lower'.")
     return bound
@@ -723,11 +760,20 @@ def _decide(lower, upper, lsl, usl, bound: str):
     return None if lower is None else bool(lower >= lsl)
 
 
-def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, sides: int = 2,
-                       bound: str | None = None, model: str = "normal",
-                       method: str = "exact", lsl: float | None = None,
-                       usl: float | None = None, power: float = 0.9,
-                       boxcox_lambda: float | None = None) -> ToleranceInterval:
+def tolerance_interval(
+    x,
+    *,
+    coverage: float = 0.95,
+    confidence: float = 0.95,
+    sides: int = 2,
+    bound: str | None = None,
+    model: str = "normal",
+    method: str = "exact",
+    lsl: float | None = None,
+    usl: float | None = None,
+    power: float = 0.9,
+    boxcox_lambda: float | None = None,
+) -> ToleranceInterval:
     """Statistical tolerance interval of a sample and the "P % within specification" decision.
 
     Parameters
@@ -796,10 +842,15 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
     if lsl is not None and usl is not None and not float(usl) > float(lsl):
         raise SpecError(f"`usl` ({usl:g}) must be greater than `lsl` ({lsl:g}).")
     kind = _bound_kind(sides, bound, lsl, usl)
-    arr = check_sample(x, minimum=3, before="computing a tolerance interval",
-                       needed_for="a tolerance interval",
-                       zero_spread=None if model == "distribution_free" else
-                       "a normal tolerance interval needs spread; the gauge may be too coarse.")
+    arr = check_sample(
+        x,
+        minimum=3,
+        before="computing a tolerance interval",
+        needed_for="a tolerance interval",
+        zero_spread=None
+        if model == "distribution_free"
+        else "a normal tolerance interval needs spread; the gauge may be too coarse.",
+    )
     n = int(arr.size)
     notes: list[str] = []
     mean = sd = k = fmethod = None
@@ -809,10 +860,15 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
         lower, upper, order, achieved = _distribution_free(arr, p, c, kind)
         if lower is None and upper is None:
             need = _free_size_or_none(p, c, sides)
-            notes.append(f"{n} values are too few for a distribution-free interval with "
-                         f"{100 * p:g} % coverage and {100 * c:g} % confidence; "
-                         + (f"{need} are needed." if need is not None else
-                            f"more than {MAX_PARTS} would be needed."))
+            notes.append(
+                f"{n} values are too few for a distribution-free interval with "
+                f"{100 * p:g} % coverage and {100 * c:g} % confidence; "
+                + (
+                    f"{need} are needed."
+                    if need is not None
+                    else f"more than {MAX_PARTS} would be needed."
+                )
+            )
     else:
         y, forward_note, back, scale = _transformed(arr, model, boxcox_lambda)
         if forward_note:
@@ -824,36 +880,57 @@ def tolerance_interval(x, *, coverage: float = 0.95, confidence: float = 0.95, s
         if sides == 2:
             fmethod = method
             if method not in TWO_SIDED_METHODS:
-                raise StudyInputError(f"`method` ({method!r}) must be one of "
-                                      f"{list(TWO_SIDED_METHODS)} for a two-sided interval.")
+                raise StudyInputError(
+                    f"`method` ({method!r}) must be one of "
+                    f"{list(TWO_SIDED_METHODS)} for a two-sided interval."
+                )
             k = normal_factor_two_sided(n, p, c, method=method)
             lo_t, hi_t = mean - k * sd, mean + k * sd
         else:
             fmethod = method
             if method not in ("exact", "natrella"):
-                raise StudyInputError(f"`method` ({method!r}) must be 'exact' or 'natrella' for "
-                                      "a one-sided interval.")
+                raise StudyInputError(
+                    f"`method` ({method!r}) must be 'exact' or 'natrella' for a one-sided interval."
+                )
             k = normal_factor_one_sided(n, p, c, method=method)
             lo_t = mean - k * sd if kind == "lower" else None
             hi_t = mean + k * sd if kind == "upper" else None
         lower = None if lo_t is None else float(back(lo_t))
         upper = None if hi_t is None else float(back(hi_t))
         if method != "exact":
-            notes.append(f"factor from the {method.replace('_', '-')} approximation, not the "
-                         "exact computation.")
+            notes.append(
+                f"factor from the {method.replace('_', '-')} approximation, not the "
+                "exact computation."
+            )
     meets = _decide(lower, upper, lsl, usl, kind)
     plan = None
     if lsl is not None or usl is not None:
-        plan = SampleSizePlan(_free_size_or_none(p, c, sides),
-                              _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl,
-                                           power),
-                              _level(power, "power"))
+        plan = SampleSizePlan(
+            _free_size_or_none(p, c, sides),
+            _normal_plan(arr, model, boxcox_lambda, p, c, kind, lsl, usl, power),
+            _level(power, "power"),
+        )
     return ToleranceInterval(
-        model=model, sides=sides, bound=kind, coverage=p, confidence=c, n=n,
-        lower=lower, upper=upper, factor=k, factor_method=fmethod, mean=mean, sd=sd,
-        scale=scale, order_statistics=order, achieved_confidence=achieved,
-        lsl=None if lsl is None else float(lsl), usl=None if usl is None else float(usl),
-        meets=meets, plan=plan, notes=tuple(notes),
+        model=model,
+        sides=sides,
+        bound=kind,
+        coverage=p,
+        confidence=c,
+        n=n,
+        lower=lower,
+        upper=upper,
+        factor=k,
+        factor_method=fmethod,
+        mean=mean,
+        sd=sd,
+        scale=scale,
+        order_statistics=order,
+        achieved_confidence=achieved,
+        lsl=None if lsl is None else float(lsl),
+        usl=None if usl is None else float(usl),
+        meets=meets,
+        plan=plan,
+        notes=tuple(notes),
     )
 
 
@@ -896,19 +973,27 @@ def _transformed(arr: np.ndarray, model: str, boxcox_lambda, *, with_forward: bo
     if model == "lognormal":
         if np.any(arr <= 0):
             bad = int(np.flatnonzero(arr <= 0)[0])
-            raise AnalysisError(f"a lognormal interval needs positive values; value {bad + 1} "
-                                f"is {arr[bad]:g}. Use model 'boxcox' (it shifts) or "
-                                "'distribution_free'.")
+            raise AnalysisError(
+                f"a lognormal interval needs positive values; value {bad + 1} "
+                f"is {arr[bad]:g}. Use model 'boxcox' (it shifts) or "
+                "'distribution_free'."
+            )
         out = (np.log(arr), None, math.exp, "log")
         return (*out, (lambda v: math.log(v) if v > 0 else -math.inf)) if with_forward else out
     from studykit.stats.transform import box_cox
 
     bc = box_cox(arr, lam=boxcox_lambda)
     y = np.asarray(bc.transform(arr), dtype=float)
-    note = (f"Box-Cox lambda {bc.lam_used:.4g}"
-            + (f", shift {bc.shift:.4g}" if bc.shift else "")
-            + ("; estimated from these data and treated as known (its uncertainty is not in the "
-               "interval)" if boxcox_lambda is None else " (given)"))
+    note = (
+        f"Box-Cox lambda {bc.lam_used:.4g}"
+        + (f", shift {bc.shift:.4g}" if bc.shift else "")
+        + (
+            "; estimated from these data and treated as known (its uncertainty is not in the "
+            "interval)"
+            if boxcox_lambda is None
+            else " (given)"
+        )
+    )
     out = (y, note, (lambda v: float(bc.inverse(v))), f"boxcox(lambda={bc.lam_used:.4g})")
     return (*out, (lambda v: float(bc.transform(v)))) if with_forward else out
 
@@ -922,8 +1007,9 @@ def _distribution_free(arr: np.ndarray, p: float, c: float, kind: str):
             return None, None, None, None
         m = 1
         # widen inward while the confidence stays >= c (r = s = m)
-        while (2 * (m + 1) <= n
-               and distribution_free_confidence(n, p, r=m + 1, s=m + 1, sides=2) >= c):
+        while (
+            2 * (m + 1) <= n and distribution_free_confidence(n, p, r=m + 1, s=m + 1, sides=2) >= c
+        ):
             m += 1
         conf = distribution_free_confidence(n, p, r=m, s=m, sides=2)
         return float(xs[m - 1]), float(xs[n - m]), (m, n - m + 1), conf

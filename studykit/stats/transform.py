@@ -18,8 +18,7 @@ from studykit.stats._checks import check_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 
-__all__ = ["BoxCoxResult", "JohnsonResult", "box_cox", "johnson", "NICE_LAMBDAS",
-           "JOHNSON_Z_GRID"]
+__all__ = ["BoxCoxResult", "JohnsonResult", "box_cox", "johnson", "NICE_LAMBDAS", "JOHNSON_Z_GRID"]
 
 #: Convenient Box-Cox exponents (reciprocal square, reciprocal, reciprocal root, log, root,
 #: none, square); common practice, no source.
@@ -31,10 +30,13 @@ JOHNSON_Z_GRID = tuple(round(0.25 + 0.01 * i, 2) for i in range(101))
 
 def _clean(x, *, name="x", minimum=3) -> np.ndarray:
     return check_sample(
-        x, name=name, minimum=minimum, before="transforming",
+        x,
+        name=name,
+        minimum=minimum,
+        before="transforming",
         needed_for="this transformation",
         zero_spread="no transformation can be estimated. Check the gauge resolution or the data "
-                    "import.",
+        "import.",
     )
 
 
@@ -57,8 +59,9 @@ def _boxcox_llf(lam: float, lx: np.ndarray) -> float:
         else:
             c = lx.max() if lam > 0 else lx.min()
             var = np.exp(lam * (lx - c)).var()
-            logvar = (math.log(var) + 2.0 * lam * c - 2.0 * math.log(abs(lam))
-                      if var > 0 else -math.inf)
+            logvar = (
+                math.log(var) + 2.0 * lam * c - 2.0 * math.log(abs(lam)) if var > 0 else -math.inf
+            )
     if not math.isfinite(logvar):  # the spread vanished in rounding: no evidence here
         return -math.inf
     return (lam - 1.0) * float(lx.sum()) - 0.5 * n * logvar
@@ -314,8 +317,9 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         try:
             shift = float(shift)
         except (TypeError, ValueError):
-            raise StudyInputError(f"`shift` ({shift!r}) must be 'auto', a number or None.") \
-                from None
+            raise StudyInputError(
+                f"`shift` ({shift!r}) must be 'auto', a number or None."
+            ) from None
         if not xmin + shift > 0:
             raise StudyInputError(
                 f"`shift` ({shift:g}) leaves the smallest reading at {xmin + shift:g}; it must "
@@ -350,8 +354,11 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         for _ in range(60):
             b = lam_hat + direction * step
             if _boxcox_llf(b, ls) < cut:
-                return float(optimize.brentq(lambda t: _boxcox_llf(t, ls) - cut,
-                                             *sorted((lam_hat, b)), xtol=1e-12))
+                return float(
+                    optimize.brentq(
+                        lambda t: _boxcox_llf(t, ls) - cut, *sorted((lam_hat, b)), xtol=1e-12
+                    )
+                )
             step *= 2.0
         return direction * math.inf
 
@@ -364,26 +371,32 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         except (TypeError, ValueError):
             raise StudyInputError(f"`lam` ({lam!r}) must be a number or None.") from None
         inside = interval[0] <= used <= interval[1]
-        note = (f"lambda {_fmt(used)} chosen by the user (estimate {_fmt(lam_hat)}, "
-                f"{level} interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
-                + ("" if inside else "; outside the interval") + ")")
+        note = (
+            f"lambda {_fmt(used)} chosen by the user (estimate {_fmt(lam_hat)}, "
+            f"{level} interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+            + ("" if inside else "; outside the interval")
+            + ")"
+        )
     elif round_to is None:
         used = lam_hat
     elif isinstance(round_to, str):
         if round_to != "nice":
             raise StudyInputError(
-                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such "
-                "as 0.5."
+                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
             )
         inside = [c for c in NICE_LAMBDAS if interval[0] <= c <= interval[1]]
         if inside:
             used = min(inside, key=lambda c: (abs(c - lam_hat), abs(c)))
-            note = (f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}, inside the {level} "
-                    f"interval [{_fmt(interval[0])}, {_fmt(interval[1])}]")
+            note = (
+                f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}, inside the {level} "
+                f"interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+            )
         else:
             used = lam_hat
-            note = (f"no convenient lambda inside the {level} interval "
-                    f"[{_fmt(interval[0])}, {_fmt(interval[1])}]; the estimate is used")
+            note = (
+                f"no convenient lambda inside the {level} interval "
+                f"[{_fmt(interval[0])}, {_fmt(interval[1])}]; the estimate is used"
+            )
     else:
         try:
             step = float(round_to)
@@ -391,16 +404,16 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
             step = float("nan")
         if not step > 0:
             raise StudyInputError(
-                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such "
-                "as 0.5."
+                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
             )
         used = round(lam_hat / step) * step
         used = 0.0 if abs(used) < 1e-12 else used
         inside = interval[0] <= used <= interval[1]
-        note = (f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}"
-                + (f", inside the {level} interval" if inside else
-                   f", OUTSIDE the {level} interval") +
-                f" [{_fmt(interval[0])}, {_fmt(interval[1])}]")
+        note = (
+            f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}"
+            + (f", inside the {level} interval" if inside else f", OUTSIDE the {level} interval")
+            + f" [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+        )
     with np.errstate(all="ignore"):
         y = _boxcox_forward(v, used)
         my = float(y.mean())
@@ -408,24 +421,37 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         yc = _boxcox_forward(v / scale, used)  # the same readings, unit-free
         myc = float(yc.mean())
         syc = float(yc.std(ddof=1))
-    if not (math.isfinite(lam_hat) and math.isfinite(myc) and math.isfinite(syc)
-            and syc > 1e-9 * max(1.0, abs(myc))):
+    if not (
+        math.isfinite(lam_hat)
+        and math.isfinite(myc)
+        and math.isfinite(syc)
+        and syc > 1e-9 * max(1.0, abs(myc))
+    ):
         raise AnalysisError(
             f"Box-Cox: lambda {_fmt(used)} makes the transformed readings overflow or collapse; "
             f"the relative spread of the data (sd/mean = {_fmt(float(v.std() / v.mean()))}) is "
             "too small for a power transformation to change their shape. Use `shift` to "
             "measure from a reference value, or a fitted distribution."
         )
-    back = (_boxcox_backward(np.array([myc, myc - 3 * syc, myc + 3 * syc]), used) * scale
-            - shift)
+    back = _boxcox_backward(np.array([myc, myc - 3 * syc, myc + 3 * syc]), used) * scale - shift
     sw0 = stats.shapiro(x)
     sw1 = stats.shapiro(yc)  # W is unchanged by the affine map between y and yc
     return BoxCoxResult(
-        n=n, lam=lam_hat, lam_interval=interval, alpha=float(alpha), lam_used=float(used),
-        note=note, shift=float(shift), loglik=ll_hat - sum_lx,
-        loglik_used=_boxcox_llf(used, ls) - sum_lx, scale=scale,
-        transformed_mean=my, transformed_sd=sy, original_center=float(back[0]),
-        original_lower=float(back[1]), original_upper=float(back[2]),
+        n=n,
+        lam=lam_hat,
+        lam_interval=interval,
+        alpha=float(alpha),
+        lam_used=float(used),
+        note=note,
+        shift=float(shift),
+        loglik=ll_hat - sum_lx,
+        loglik_used=_boxcox_llf(used, ls) - sum_lx,
+        scale=scale,
+        transformed_mean=my,
+        transformed_sd=sy,
+        original_center=float(back[0]),
+        original_lower=float(back[1]),
+        original_upper=float(back[2]),
         shapiro_before=(float(sw0.statistic), float(sw0.pvalue)),
         shapiro_after=(float(sw1.statistic), float(sw1.pvalue)),
     )
@@ -495,8 +521,9 @@ def _johnson_forward(x, kind, gamma, eta, eps, lam):
         if kind == "SU":
             return gamma + eta * np.arcsinh((x - eps) / lam)
         if kind == "SL":
-            return np.where(x > eps, gamma + eta * np.log(np.where(x > eps, x - eps, 1.0)),
-                            -math.inf)
+            return np.where(
+                x > eps, gamma + eta * np.log(np.where(x > eps, x - eps, 1.0)), -math.inf
+            )
         inside = (x > eps) & (x < eps + lam)
         safe = np.where(inside, x, eps + 0.5 * lam)
         out = gamma + eta * np.log((safe - eps) / (lam + eps - safe))
@@ -553,9 +580,11 @@ class JohnsonResult(Result):
     shapiro_w: float
     shapiro_p: float
     candidates: tuple
-    method: str = ("Chou, Polansky & Mason (1998): Slifker-Shapiro quantile fit at each z of "
-                   "0.25..1.25 by 0.01, member chosen by the quantile ratio, z chosen by the "
-                   "largest Shapiro-Wilk p-value of the transformed readings")
+    method: str = (
+        "Chou, Polansky & Mason (1998): Slifker-Shapiro quantile fit at each z of "
+        "0.25..1.25 by 0.01, member chosen by the quantile ratio, z chosen by the "
+        "largest Shapiro-Wilk p-value of the transformed readings"
+    )
 
     @property
     def delta(self) -> float:
@@ -565,8 +594,7 @@ class JohnsonResult(Result):
     @property
     def parameters(self) -> dict:
         """gamma, eta, epsilon, lambda by name."""
-        return {"gamma": self.gamma, "eta": self.eta, "epsilon": self.epsilon,
-                "lambda": self.lam}
+        return {"gamma": self.gamma, "eta": self.eta, "epsilon": self.epsilon, "lambda": self.lam}
 
     def transform(self, values):
         """z = gamma + eta f((x - epsilon)/lambda); outside an SB/SL range: -inf or +inf."""
@@ -576,8 +604,7 @@ class JohnsonResult(Result):
     def inverse(self, values):
         """x from z: epsilon + lambda sinh(u), epsilon + lambda/(1+e^-u) or epsilon + e^u,
         u = (z - gamma)/eta."""
-        out = _johnson_backward(values, self.kind, self.gamma, self.eta, self.epsilon,
-                                self.lam)
+        out = _johnson_backward(values, self.kind, self.gamma, self.eta, self.epsilon, self.lam)
         return float(out) if np.ndim(out) == 0 else out
 
     def to_dict(self) -> dict:
@@ -595,8 +622,10 @@ class JohnsonResult(Result):
             "quantile_ratio": _f(self.quantile_ratio),
             "shapiro_w": _f(self.shapiro_w),
             "shapiro_p": _f(self.shapiro_p),
-            "candidates": [{k: (v if isinstance(v, str) else _f(v)) for k, v in c.items()}
-                           for c in self.candidates],
+            "candidates": [
+                {k: (v if isinstance(v, str) else _f(v)) for k, v in c.items()}
+                for c in self.candidates
+            ],
         }
 
 
@@ -671,8 +700,9 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
             continue
         sw = stats.shapiro(t)
         w, p = float(sw.statistic), float(sw.pvalue)
-        candidates.append({"z": float(z), "kind": kind, "quantile_ratio": qr,
-                           "shapiro_w": w, "shapiro_p": p})
+        candidates.append(
+            {"z": float(z), "kind": kind, "quantile_ratio": qr, "shapiro_w": w, "shapiro_p": p}
+        )
         if best is None or p > best[0]:
             best = (p, w, float(z), fitted)
     if best is None:
@@ -682,6 +712,15 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
         )
     p, w, z, (kind, gamma, eta, eps, lam, qr) = best
     return JohnsonResult(
-        n=int(x.size), kind=kind, gamma=gamma, eta=eta, epsilon=eps, lam=lam, z=z,
-        quantile_ratio=qr, shapiro_w=w, shapiro_p=p, candidates=tuple(candidates),
+        n=int(x.size),
+        kind=kind,
+        gamma=gamma,
+        eta=eta,
+        epsilon=eps,
+        lam=lam,
+        z=z,
+        quantile_ratio=qr,
+        shapiro_w=w,
+        shapiro_p=p,
+        candidates=tuple(candidates),
     )

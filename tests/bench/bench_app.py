@@ -49,11 +49,23 @@ FIRST_GOAL_S = 4.0
 SECOND_GOAL_S = 1.5
 KERNEL_GOAL_MB = 150.0
 TIMEOUT_MS = 180_000
-ONE_CELL = {"cells": [{"cell_type": "code", "execution_count": None, "id": "c1", "metadata": {},
-                       "outputs": [], "source": ["print('stock voila page ready')"]}],
-            "metadata": {"kernelspec": {"display_name": "Python 3", "language": "python",
-                                        "name": "python3"}},
-            "nbformat": 4, "nbformat_minor": 5}
+ONE_CELL = {
+    "cells": [
+        {
+            "cell_type": "code",
+            "execution_count": None,
+            "id": "c1",
+            "metadata": {},
+            "outputs": [],
+            "source": ["print('stock voila page ready')"],
+        }
+    ],
+    "metadata": {
+        "kernelspec": {"display_name": "Python 3", "language": "python", "name": "python3"}
+    },
+    "nbformat": 4,
+    "nbformat_minor": 5,
+}
 
 
 def _wait_port(port: int, proc: subprocess.Popen, timeout: float = 120.0) -> None:
@@ -115,9 +127,13 @@ def stock_voila(browser, folder: Path) -> tuple[float, float]:
     port = free_port()
     voila = shutil.which("voila", path=str(Path(sys.executable).parent)) or "voila"
     t0 = time.perf_counter()
-    proc = subprocess.Popen([voila, "--no-browser", f"--port={port}", "--Voila.ip=127.0.0.1",
-                             str(nb)], cwd=folder, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL, start_new_session=True)
+    proc = subprocess.Popen(
+        [voila, "--no-browser", f"--port={port}", "--Voila.ip=127.0.0.1", str(nb)],
+        cwd=folder,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
     try:
         _wait_port(port, proc)
         page = browser.new_page(viewport={"width": 1280, "height": 800})
@@ -137,9 +153,14 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
     studykit = Path(sys.executable).with_name("studykit")
     cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
     t0 = time.perf_counter()
-    proc = subprocess.Popen([*cmd, "serve", "--demo", "--no-browser", f"--port={port}"],
-                            env=env, cwd=folder, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL, start_new_session=True)
+    proc = subprocess.Popen(
+        [*cmd, "serve", "--demo", "--no-browser", f"--port={port}"],
+        env=env,
+        cwd=folder,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
     try:
         _wait_port(port, proc)
         url = f"http://127.0.0.1:{port}/"
@@ -163,8 +184,12 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
         rss = [_rss_mb(pid) for pid in kernel_pids(server).values()] if server else []
         page.close()
         page2.close()
-        return {"first": first, "second": second, "kernels": len(rss),
-                "kernel_mb": max(rss) if rss else float("nan")}
+        return {
+            "first": first,
+            "second": second,
+            "kernels": len(rss),
+            "kernel_mb": max(rss) if rss else float("nan"),
+        }
     finally:
         _stop(proc)
 
@@ -172,8 +197,12 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--runs", type=int, default=3)
-    ap.add_argument("--warm", type=float, default=20.0,
-                    help="seconds between the first visitor's chart and the second visitor")
+    ap.add_argument(
+        "--warm",
+        type=float,
+        default=20.0,
+        help="seconds between the first visitor's chart and the second visitor",
+    )
     ap.add_argument("--screenshots", help="folder for screenshots of the landing view")
     args = ap.parse_args(argv)
     from playwright.sync_api import sync_playwright
@@ -195,11 +224,14 @@ def main(argv=None) -> int:
                 first.append(w["first"])
                 second.append(w["second"])
                 kernel.append(w["kernel_mb"])
-                print(f"run {i + 1}: stock Voila one-cell page {s:.2f} s (kernel {sk:.0f} MB) "
-                      f"| `studykit serve "
-                      f"--demo` first chart {w['first']:.2f} s | second visitor "
-                      f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
-                      f"{w['kernel_mb']:.0f} MB RSS", flush=True)
+                print(
+                    f"run {i + 1}: stock Voila one-cell page {s:.2f} s (kernel {sk:.0f} MB) "
+                    f"| `studykit serve "
+                    f"--demo` first chart {w['first']:.2f} s | second visitor "
+                    f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
+                    f"{w['kernel_mb']:.0f} MB RSS",
+                    flush=True,
+                )
         finally:
             browser.close()
     s, f, v, k = (statistics.median(x) for x in (stock, first, second, kernel))
@@ -208,29 +240,67 @@ def main(argv=None) -> int:
         return "met" if ok else "NOT met"
 
     print(f"median stock Voila (one-cell notebook, cold): {s:.2f} s")
-    print(f"median first chart from `studykit serve --demo`: {f:.2f} s; ratio to stock "
-          f"{f / s:.2f}; goal {FIRST_GOAL_S:g} s {verdict(f <= FIRST_GOAL_S)}")
-    print(f"median second visitor (warm server): {v:.2f} s; ratio to stock {v / s:.2f}; goal "
-          f"{SECOND_GOAL_S:g} s {verdict(v <= SECOND_GOAL_S)}")
-    print(f"median kernel RSS: {k:.0f} MB; goal {KERNEL_GOAL_MB:g} MB "
-          f"{verdict(k <= KERNEL_GOAL_MB)}")
-    print(f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
-          f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB")
+    print(
+        f"median first chart from `studykit serve --demo`: {f:.2f} s; ratio to stock "
+        f"{f / s:.2f}; goal {FIRST_GOAL_S:g} s {verdict(f <= FIRST_GOAL_S)}"
+    )
+    print(
+        f"median second visitor (warm server): {v:.2f} s; ratio to stock {v / s:.2f}; goal "
+        f"{SECOND_GOAL_S:g} s {verdict(v <= SECOND_GOAL_S)}"
+    )
+    print(
+        f"median kernel RSS: {k:.0f} MB; goal {KERNEL_GOAL_MB:g} MB {verdict(k <= KERNEL_GOAL_MB)}"
+    )
+    print(
+        f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
+        f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB"
+    )
     sk = statistics.median(stock_kernel)
     cmd = "studykit serve --demo"
     stock_name = "stock `voila` on a one-cell notebook, start to page"
-    row("Workbook: first chart, from start", cmd, f, "s", baseline_name=stock_name,
-        baseline=s, goal=f"<= {FIRST_GOAL_S:g} s", met=f <= FIRST_GOAL_S)
-    row("Workbook: first chart for a second visitor (a second page, warm server)", cmd, v,
-        "s", baseline_name=stock_name, baseline=s, goal=f"<= {SECOND_GOAL_S:g} s",
-        met=v <= SECOND_GOAL_S)
-    row("Workbook: kernel memory (RSS) on the demo study", cmd, k, "MB",
-        baseline_name="stock Voila one-cell kernel", baseline=sk,
-        goal=f"<= {KERNEL_GOAL_MB:g} MB", met=k <= KERNEL_GOAL_MB)
-    print("json: " + json.dumps({"stock_s": round(s, 2), "first_s": round(f, 2),
-                                 "second_s": round(v, 2), "kernel_mb": round(k),
-                                 "first_ratio": round(f / s, 2),
-                                 "second_ratio": round(v / s, 2)}))
+    row(
+        "Workbook: first chart, from start",
+        cmd,
+        f,
+        "s",
+        baseline_name=stock_name,
+        baseline=s,
+        goal=f"<= {FIRST_GOAL_S:g} s",
+        met=f <= FIRST_GOAL_S,
+    )
+    row(
+        "Workbook: first chart for a second visitor (a second page, warm server)",
+        cmd,
+        v,
+        "s",
+        baseline_name=stock_name,
+        baseline=s,
+        goal=f"<= {SECOND_GOAL_S:g} s",
+        met=v <= SECOND_GOAL_S,
+    )
+    row(
+        "Workbook: kernel memory (RSS) on the demo study",
+        cmd,
+        k,
+        "MB",
+        baseline_name="stock Voila one-cell kernel",
+        baseline=sk,
+        goal=f"<= {KERNEL_GOAL_MB:g} MB",
+        met=k <= KERNEL_GOAL_MB,
+    )
+    print(
+        "json: "
+        + json.dumps(
+            {
+                "stock_s": round(s, 2),
+                "first_s": round(f, 2),
+                "second_s": round(v, 2),
+                "kernel_mb": round(k),
+                "first_ratio": round(f / s, 2),
+                "second_ratio": round(v / s, 2),
+            }
+        )
+    )
     return 0
 
 

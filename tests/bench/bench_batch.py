@@ -101,36 +101,49 @@ def main(argv=None) -> int:
     cores = len(os.sched_getaffinity(0))
     load = os.getloadavg()[0]
     with tempfile.TemporaryDirectory() as tmp:
-        data, specs, n_skewed = write_files(Path(tmp), args.characteristics, args.readings,
-                                            args.skewed)
+        data, specs, n_skewed = write_files(
+            Path(tmp), args.characteristics, args.readings, args.skewed
+        )
         size = data.stat().st_size / 1e6
-        print(f"{args.characteristics} characteristics x {args.readings} readings "
-              f"({n_skewed} skewed), CSV {size:.1f} MB; {cores} cores, load average "
-              f"{load:.1f} at start")
+        print(
+            f"{args.characteristics} characteristics x {args.readings} readings "
+            f"({n_skewed} skewed), CSV {size:.1f} MB; {cores} cores, load average "
+            f"{load:.1f} at start"
+        )
         cpu0 = resource.getrusage(resource.RUSAGE_CHILDREN)
         res, t_load, t_batch = batch(data, specs, args.jobs)
         cpu1 = resource.getrusage(resource.RUSAGE_CHILDREN)
         workers_cpu = (cpu1.ru_utime + cpu1.ru_stime) - (cpu0.ru_utime + cpu0.ru_stime)
-        print(f"  batch ({res.backend}, {res.jobs} jobs): {t_batch:6.2f} s wall "
-              f"(load {t_load:.2f} s, analyses {res.seconds:.2f} s; workers' CPU "
-              f"{workers_cpu:.1f} s = {1e3 * workers_cpu / res.n:.1f} ms per characteristic, "
-              f"idle-machine estimate {t_load + workers_cpu / res.jobs:.1f} s); "
-              f"{res.n_meeting} meet, {res.n_not_meeting} do not, {res.n_failed} failed")
+        print(
+            f"  batch ({res.backend}, {res.jobs} jobs): {t_batch:6.2f} s wall "
+            f"(load {t_load:.2f} s, analyses {res.seconds:.2f} s; workers' CPU "
+            f"{workers_cpu:.1f} s = {1e3 * workers_cpu / res.n:.1f} ms per characteristic, "
+            f"idle-machine estimate {t_load + workers_cpu / res.jobs:.1f} s); "
+            f"{res.n_meeting} meet, {res.n_not_meeting} do not, {res.n_failed} failed"
+        )
         models = {}
         for r in res.rows:
             models[r["model"]] = models.get(r["model"], 0) + 1
-        print("  models chosen: " + ", ".join(f"{k} {v}" for k, v in sorted(
-            models.items(), key=lambda kv: -kv[1])))
-        summary = (f"batch {t_batch:.1f} s (CPU {workers_cpu:.1f} s, idle estimate "
-                   f"{t_load + workers_cpu / res.jobs:.1f} s)")
+        print(
+            "  models chosen: "
+            + ", ".join(f"{k} {v}" for k, v in sorted(models.items(), key=lambda kv: -kv[1]))
+        )
+        summary = (
+            f"batch {t_batch:.1f} s (CPU {workers_cpu:.1f} s, idle estimate "
+            f"{t_load + workers_cpu / res.jobs:.1f} s)"
+        )
         if not args.no_loop:
             rows, t_loop = loop(data, specs)
             same = [dict(r) for r in res.rows] == rows
-            print(f"  one-process loop:           {t_loop:6.2f} s wall; ratio loop/batch "
-                  f"{t_loop / t_batch:4.2f}x; rows identical: {same}")
+            print(
+                f"  one-process loop:           {t_loop:6.2f} s wall; ratio loop/batch "
+                f"{t_loop / t_batch:4.2f}x; rows identical: {same}"
+            )
             summary += f", loop {t_loop:.1f} s ({t_loop / t_batch:.2f}x)"
-        print("target: batch <= 4 s for 1000 x 125 with 2 jobs on 2 cores; --jobs 2 >= 1.6x "
-              f"--jobs 1; load average {os.getloadavg()[0]:.1f} at the end")
+        print(
+            "target: batch <= 4 s for 1000 x 125 with 2 jobs on 2 cores; --jobs 2 >= 1.6x "
+            f"--jobs 1; load average {os.getloadavg()[0]:.1f} at the end"
+        )
         print(f"summary: {args.characteristics} x {args.readings}: {summary}")
     return 0
 

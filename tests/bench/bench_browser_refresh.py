@@ -21,8 +21,16 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 NAME = "bore_diameter"
 
 
@@ -39,10 +47,13 @@ def main() -> None:
     study = tmp / "pilot.study"
     shutil.copy(demo_study_path(), study)
     times: list[float] = []
-    with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                        env={"STUDYKIT_STUDY": str(study)}) as url, sync_playwright() as p:
-        browser = p.chromium.launch(executable_path="/usr/bin/chromium", headless=True,
-                                    args=ARGS)
+    with (
+        running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(study)}
+        ) as url,
+        sync_playwright() as p,
+    ):
+        browser = p.chromium.launch(executable_path="/usr/bin/chromium", headless=True, args=ARGS)
         page = browser.new_page(viewport={"width": 1280, "height": 800})
         page.set_default_timeout(90_000)
         page.goto(url)
@@ -57,14 +68,16 @@ def main() -> None:
             label = str(3 + i)
             page.locator(".sk-subgroup-pick select").select_option(label)
             page.wait_for_function(
-                f"() => document.querySelector('.sk-subgroup-pick select').value === '{label}'")
+                f"() => document.querySelector('.sk-subgroup-pick select').value === '{label}'"
+            )
             page.locator(".sk-removal-reason textarea").fill(f"bench removal {i}")
             page.wait_for_function("() => !document.querySelector('.sk-remove').disabled")
             before = page.locator(".sk-stability-summary").inner_text()
             t0 = time.perf_counter()
             page.locator(".sk-remove").click()
             page.wait_for_function(
-                "(b) => document.querySelector('.sk-stability-summary').innerText !== b", arg=before)
+                "(b) => document.querySelector('.sk-stability-summary').innerText !== b", arg=before
+            )
             page.wait_for_selector(f".sk-removal-table :text('bench removal {i}')")
             times.append(time.perf_counter() - t0)
             page.wait_for_timeout(300)
@@ -73,8 +86,10 @@ def main() -> None:
     for i, t in enumerate(times, 1):
         print(f"run {i}: click to updated page {t * 1000:.0f} ms")
     med = statistics.median(times)
-    print(f"median {med * 1000:.0f} ms; target 500 ms; ratio {med / 0.5:.2f} "
-          f"({'met' if med <= 0.5 else 'not met'})")
+    print(
+        f"median {med * 1000:.0f} ms; target 500 ms; ratio {med / 0.5:.2f} "
+        f"({'met' if med <= 0.5 else 'not met'})"
+    )
 
 
 if __name__ == "__main__":

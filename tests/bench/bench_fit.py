@@ -39,8 +39,9 @@ GENERIC = {
 }
 
 DATASETS = {
-    "shifted Weibull": lambda rng: stats.weibull_min(2.2, loc=10, scale=3).rvs(125,
-                                                                               random_state=rng),
+    "shifted Weibull": lambda rng: stats.weibull_min(2.2, loc=10, scale=3).rvs(
+        125, random_state=rng
+    ),
     "lognormal": lambda rng: stats.lognorm(0.4, scale=5).rvs(125, random_state=rng),
     "normal": lambda rng: stats.norm(50, 2).rvs(125, random_state=rng),
 }
@@ -81,8 +82,10 @@ def main(argv=None) -> int:
                 generic.append(_median_ms(lambda x=x: _generic(x), 1))
         om, gm = statistics.median(ours), statistics.median(generic)
         o0, g0 = min(ours), min(generic)
-        print(f"{label:16s} median: ours {om:6.2f}  scipy {gm:7.1f}  ratio {gm / om:5.1f}x | "
-              f"min: ours {o0:6.2f}  scipy {g0:7.1f}  ratio {g0 / o0:5.1f}x")
+        print(
+            f"{label:16s} median: ours {om:6.2f}  scipy {gm:7.1f}  ratio {gm / om:5.1f}x | "
+            f"min: ours {o0:6.2f}  scipy {g0:7.1f}  ratio {g0 / o0:5.1f}x"
+        )
     print("targets: fit_all <= 20 ms, ratio >= 20x")
     x = DATASETS["shifted Weibull"](np.random.default_rng(2026))
     print("\nper family (shifted Weibull data), ms: ours / scipy.stats.<dist>.fit")

@@ -31,10 +31,12 @@ def make_wide_50mb(path: Path, *, seed: int = 1) -> int:
         fh.write("Stichprobe;Bohrung [mm];Länge [mm];Breite [mm]\n")
         while fh.tell() < 50 * MB:
             block = rng.normal(10.0, 0.01, size=(20000, 3))
-            fh.write("".join(
-                f"{(rows + i) // 5 + 1};{a:.5f};{b:.5f};{c:.5f}\n".replace(".", ",")
-                for i, (a, b, c) in enumerate(block)
-            ))
+            fh.write(
+                "".join(
+                    f"{(rows + i) // 5 + 1};{a:.5f};{b:.5f};{c:.5f}\n".replace(".", ",")
+                    for i, (a, b, c) in enumerate(block)
+                )
+            )
             rows += len(block)
     return rows
 
@@ -47,10 +49,12 @@ def make_long_1m(path: Path, *, seed: int = 2) -> int:
         fh.write("characteristic,subgroup,value\n")
         for start in range(0, n, 50000):
             vals = rng.normal(25.0, 0.2, size=50000)
-            fh.write("".join(
-                f"{'Torque' if (start + i) % 2 else 'Angle'},{(start + i) // 10 + 1},{v:.4f}\n"
-                for i, v in enumerate(vals)
-            ))
+            fh.write(
+                "".join(
+                    f"{'Torque' if (start + i) % 2 else 'Angle'},{(start + i) // 10 + 1},{v:.4f}\n"
+                    for i, v in enumerate(vals)
+                )
+            )
     return n
 
 
@@ -94,15 +98,15 @@ def measure(path: Path) -> dict:
                           "characteristics": len(m), "layout": m.layout}}))
         """
     )
-    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                         check=True)
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True)
     return json.loads(out.stdout)
 
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--xlsx-rows", type=int, default=50_000,
-                        help="rows of the XLSX case (0 to skip)")
+    parser.add_argument(
+        "--xlsx-rows", type=int, default=50_000, help="rows of the XLSX case (0 to skip)"
+    )
     args = parser.parse_args(argv)
     cases = [
         ("wide CSV, ~50 MB, decimal comma", "wide50.csv", make_wide_50mb),
@@ -110,19 +114,25 @@ def main(argv=None) -> int:
         ("individuals CSV, 1,000,000 rows", "ind1m.csv", make_individuals_1m),
     ]
     if args.xlsx_rows:
-        cases.append((f"XLSX, {args.xlsx_rows:,} rows", "sheet.xlsx",
-                      lambda p: make_xlsx(p, args.xlsx_rows)))
-    print(f"{'case':36} {'size MB':>8} {'rows':>10} {'read s':>7} {'peak rise MB':>13} "
-          f"{'rise/size':>9} {'s per 1M rows':>13}")
+        cases.append(
+            (f"XLSX, {args.xlsx_rows:,} rows", "sheet.xlsx", lambda p: make_xlsx(p, args.xlsx_rows))
+        )
+    print(
+        f"{'case':36} {'size MB':>8} {'rows':>10} {'read s':>7} {'peak rise MB':>13} "
+        f"{'rise/size':>9} {'s per 1M rows':>13}"
+    )
     with tempfile.TemporaryDirectory() as tmp:
         for title, name, make in cases:
             path = Path(tmp) / name
             make(path)
             size = path.stat().st_size
             r = measure(path)
-            print(f"{title:36} {size / MB:8.1f} {r['rows']:10,d} {r['seconds']:7.2f} "
-                  f"{r['rise'] / MB:13.1f} {r['rise'] / size:9.2f} "
-                  f"{r['seconds'] / r['rows'] * 1e6:13.2f}", flush=True)
+            print(
+                f"{title:36} {size / MB:8.1f} {r['rows']:10,d} {r['seconds']:7.2f} "
+                f"{r['rise'] / MB:13.1f} {r['rise'] / size:9.2f} "
+                f"{r['seconds'] / r['rows'] * 1e6:13.2f}",
+                flush=True,
+            )
             path.unlink()
     return 0
 

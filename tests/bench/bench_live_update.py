@@ -22,8 +22,16 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
 TARGET_S = 2.0
 
 
@@ -41,10 +49,13 @@ def main() -> None:
     study = tmp / "pilot.study"
     shutil.copy(demo_study_path(), study)
     times = []
-    with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                        env={"STUDYKIT_STUDY": str(study)}) as url, sync_playwright() as p:
-        browser = p.chromium.launch(executable_path="/usr/bin/chromium", args=ARGS,
-                                    headless=True)
+    with (
+        running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(study)}
+        ) as url,
+        sync_playwright() as p,
+    ):
+        browser = p.chromium.launch(executable_path="/usr/bin/chromium", args=ARGS, headless=True)
         page = browser.new_page(viewport={"width": 1280, "height": 900})
         page.set_default_timeout(120_000)
         page.goto(url, wait_until="domcontentloaded")
@@ -63,8 +74,10 @@ def main() -> None:
             page.wait_for_timeout(1000)
         browser.close()
     med = statistics.median(times)
-    print(f"median {med * 1000:.0f} ms; target <= {TARGET_S * 1000:.0f} ms; "
-          f"ratio to target {med / TARGET_S:.2f}")
+    print(
+        f"median {med * 1000:.0f} ms; target <= {TARGET_S * 1000:.0f} ms; "
+        f"ratio to target {med / TARGET_S:.2f}"
+    )
 
 
 if __name__ == "__main__":

@@ -62,8 +62,9 @@ def write_csv(path: Path, n: int, shape: str) -> None:
             j = min(n, i + 200_000)
             t = (start + np.arange(i, j) * np.timedelta64(step, "s")).astype(str)
             t = np.char.replace(t, "T", " ")
-            fh.write("\n".join(f"{a},{b:.6f}" for a, b in zip(t.tolist(), x[i:j].tolist(),
-                                                             strict=True)))
+            fh.write(
+                "\n".join(f"{a},{b:.6f}" for a, b in zip(t.tolist(), x[i:j].tolist(), strict=True))
+            )
             fh.write("\n")
 
 
@@ -87,29 +88,44 @@ def run_child(cmd: list[str], limit_gb: float) -> tuple[int, float, float, float
         "sys.stderr.write(p.stderr[-2000:])\n"
         "print(p.returncode, u.ru_maxrss / 1024, dt, u.ru_utime + u.ru_stime)\n"
     )
-    p = subprocess.run([sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True,
-                       preexec_fn=cap)
+    p = subprocess.run(
+        [sys.executable, "-c", wrapper, *cmd], capture_output=True, text=True, preexec_fn=cap
+    )
     rc, rss, dt, cpu = p.stdout.split()
     return int(rc), float(rss), float(dt), float(cpu), p.stderr.strip()
 
 
-def measure(path: Path, *, shape: str, limit_gb: float, model: str | None = None,
-            repeat: int = 1) -> dict:
+def measure(
+    path: Path, *, shape: str, limit_gb: float, model: str | None = None, repeat: int = 1
+) -> dict:
     """Floor and default study of the CSV at ``path``, ``repeat`` times each (interleaved);
     the fastest wall and CPU time and the largest RSS of each."""
     studykit = str(Path(sys.executable).with_name("studykit"))
     lsl, usl = (9.94, 10.06) if shape == "normal" else (9.94, 10.12)
-    cmd = [studykit, "analyze", str(path), "-c", "diameter", "--lsl", str(lsl),
-           "--usl", str(usl), "--json"]
+    cmd = [
+        studykit,
+        "analyze",
+        str(path),
+        "-c",
+        "diameter",
+        "--lsl",
+        str(lsl),
+        "--usl",
+        str(usl),
+        "--json",
+    ]
     if model:
         cmd += ["--model", model]
-    out = {"command": f"studykit analyze FILE -c diameter --lsl {lsl:g} --usl {usl:g} --json"
-               + (f" --model {model}" if model else "")}
+    out = {
+        "command": f"studykit analyze FILE -c diameter --lsl {lsl:g} --usl {usl:g} --json"
+        + (f" --model {model}" if model else "")
+    }
     for _ in range(repeat):
         for name, c in (("floor", [sys.executable, "-c", FLOOR, str(path)]), ("analyze", cmd)):
             rc, rss, dt, cpu, err = run_child(c, limit_gb)
-            best = out.setdefault(name, {"rc": 0, "rss": 0.0, "wall": float("inf"),
-                                         "cpu": float("inf"), "err": ""})
+            best = out.setdefault(
+                name, {"rc": 0, "rss": 0.0, "wall": float("inf"), "cpu": float("inf"), "err": ""}
+            )
             best["rc"] = best["rc"] or rc
             best["rss"] = max(best["rss"], rss)
             best["wall"] = min(best["wall"], dt)
@@ -123,22 +139,34 @@ def report(res: dict, *, n: int, time_target: float | None, rss_target: float) -
     f, a = res["floor"], res["analyze"]
     print(f"  command: {res['command']}")
     for name, r in (("floor (read + mean/sd)", f), ("analyze (default options)", a)):
-        print(f"  {name:27s} peak RSS {r['rss']:7.0f} MB  wall {r['wall']:6.1f} s  "
-              f"CPU {r['cpu']:6.1f} s  exit {r['rc']}" + (f"  {r['err']}" if r["rc"] else ""))
+        print(
+            f"  {name:27s} peak RSS {r['rss']:7.0f} MB  wall {r['wall']:6.1f} s  "
+            f"CPU {r['cpu']:6.1f} s  exit {r['rc']}" + (f"  {r['err']}" if r["rc"] else "")
+        )
     ok = a["rc"] == 0
-    rt, rw, rc_ = a["rss"] / max(f["rss"], 1), a["wall"] / max(f["wall"], 1e-9), \
-        a["cpu"] / max(f["cpu"], 1e-9)
-    print(f"  ratio to the floor: memory {rt:.1f}x (target <= 10x), wall {rw:.1f}x, CPU "
-          f"{rc_:.1f}x (target <= 5x)")
-    goals = [f"peak RSS <= {rss_target:.0f} MB: {'met' if ok and a['rss'] <= rss_target else 'NOT met'}"]
+    rt, rw, rc_ = (
+        a["rss"] / max(f["rss"], 1),
+        a["wall"] / max(f["wall"], 1e-9),
+        a["cpu"] / max(f["cpu"], 1e-9),
+    )
+    print(
+        f"  ratio to the floor: memory {rt:.1f}x (target <= 10x), wall {rw:.1f}x, CPU "
+        f"{rc_:.1f}x (target <= 5x)"
+    )
+    goals = [
+        f"peak RSS <= {rss_target:.0f} MB: {'met' if ok and a['rss'] <= rss_target else 'NOT met'}"
+    ]
     if time_target is not None:
-        goals.append(f"wall <= {time_target:g} s: "
-                     f"{'met' if ok and a['wall'] <= time_target else 'NOT met'}")
+        goals.append(
+            f"wall <= {time_target:g} s: {'met' if ok and a['wall'] <= time_target else 'NOT met'}"
+        )
     goals.append(f"time within 5x: {'met' if ok and min(rw, rc_) <= 5 else 'NOT met'}")
     goals.append(f"memory within 10x: {'met' if ok and rt <= 10 else 'NOT met'}")
     print("  targets: " + "; ".join(goals))
-    print(f"summary: {n:,} readings analyze {a['wall']:.1f} s wall / {a['cpu']:.1f} s CPU, "
-          f"{a['rss']:.0f} MB; floor {f['wall']:.1f} s / {f['cpu']:.1f} s, {f['rss']:.0f} MB")
+    print(
+        f"summary: {n:,} readings analyze {a['wall']:.1f} s wall / {a['cpu']:.1f} s CPU, "
+        f"{a['rss']:.0f} MB; floor {f['wall']:.1f} s / {f['cpu']:.1f} s, {f['rss']:.0f} MB"
+    )
 
 
 def main(argv=None) -> int:
@@ -154,11 +182,14 @@ def main(argv=None) -> int:
         t = time.perf_counter()
         write_csv(path, args.n, args.shape)
         size = os.path.getsize(path)
-        print(f"{args.n:,} individual readings ({args.shape}), CSV {size / 1e6:.0f} MB, "
-              f"written in {time.perf_counter() - t:.1f} s; child limit {args.limit_gb:g} GB "
-              f"address space; best of {args.repeat}")
-        res = measure(path, shape=args.shape, limit_gb=args.limit_gb, model=args.model,
-                      repeat=args.repeat)
+        print(
+            f"{args.n:,} individual readings ({args.shape}), CSV {size / 1e6:.0f} MB, "
+            f"written in {time.perf_counter() - t:.1f} s; child limit {args.limit_gb:g} GB "
+            f"address space; best of {args.repeat}"
+        )
+        res = measure(
+            path, shape=args.shape, limit_gb=args.limit_gb, model=args.model, repeat=args.repeat
+        )
         report(res, n=args.n, time_target=None, rss_target=1536)
     return 0
 

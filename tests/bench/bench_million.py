@@ -39,8 +39,10 @@ def main(argv=None) -> int:
         path = Path(tmp) / "readings.csv"
         t = time.perf_counter()
         write_csv(path, args.n, "normal")
-        print(f"{args.n:,} individual readings (normal), CSV {os.path.getsize(path) / 1e6:.0f} "
-              f"MB, written in {time.perf_counter() - t:.1f} s; best of {args.repeat}")
+        print(
+            f"{args.n:,} individual readings (normal), CSV {os.path.getsize(path) / 1e6:.0f} "
+            f"MB, written in {time.perf_counter() - t:.1f} s; best of {args.repeat}"
+        )
         res = measure(path, shape="normal", limit_gb=args.limit_gb, repeat=args.repeat)
         report(res, n=args.n, time_target=2.0, rss_target=1024)
     return 0

@@ -39,8 +39,15 @@ def build(path):
     from studykit.app.steps.signoff import SignoffStep
     from studykit.app.steps.stability import StabilityStep
 
-    steps = [IntakeStep(), LimitsStep(), StabilityStep(), ShapeStep(), CapabilityStep(),
-             SignoffStep(), ExportStep()]
+    steps = [
+        IntakeStep(),
+        LimitsStep(),
+        StabilityStep(),
+        ShapeStep(),
+        CapabilityStep(),
+        SignoffStep(),
+        ExportStep(),
+    ]
     wb = build_workbook(path, steps=steps)
     for s in steps[1:]:
         wb.select(s.key)
@@ -81,31 +88,45 @@ def main(argv=None) -> int:
                 analyses.append(analysis)
                 if undo is not None:
                     undo(i)
-            rows.append((label, statistics.median(totals), max(totals),
-                         statistics.median(analyses)))
+            rows.append(
+                (label, statistics.median(totals), max(totals), statistics.median(analyses))
+            )
 
         flange = "flange_thickness"
-        run("removal", flange,
+        run(
+            "removal",
+            flange,
             lambda i: s.exclude(flange, str(i + 1), reason="bench", who="Bench"),
-            lambda i: s.restore(flange, str(i + 1), reason="bench", who="Bench"))
+            lambda i: s.restore(flange, str(i + 1), reason="bench", who="Bench"),
+        )
         for i in range(args.repeat):
             s.exclude(flange, str(i + 1), reason="bench", who="Bench")
-        run("restore", flange,
-            lambda i: s.restore(flange, str(i + 1), reason="bench", who="Bench"))
+        run("restore", flange, lambda i: s.restore(flange, str(i + 1), reason="bench", who="Bench"))
         usl = s.study.characteristic(flange).usl
-        run("spec change", flange,
-            lambda i: s.update_characteristic(flange, who="Bench", reason="bench",
-                                              spec={"usl": usl + 0.001 * (i + 1)}))
+        run(
+            "spec change",
+            flange,
+            lambda i: s.update_characteristic(
+                flange, who="Bench", reason="bench", spec={"usl": usl + 0.001 * (i + 1)}
+            ),
+        )
         runout = "face_runout"
-        run("removal (fitted model)", runout,
+        run(
+            "removal (fitted model)",
+            runout,
             lambda i: s.exclude(runout, str(i + 1), reason="bench", who="Bench"),
-            lambda i: s.restore(runout, str(i + 1), reason="bench", who="Bench"))
+            lambda i: s.restore(runout, str(i + 1), reason="bench", who="Bench"),
+        )
 
-    print(f"{'change':<24}{'median s':>10}{'worst s':>10}{'analysis s':>12}{'panels+file s':>15}"
-          f"{'median/target':>15}")
+    print(
+        f"{'change':<24}{'median s':>10}{'worst s':>10}{'analysis s':>12}{'panels+file s':>15}"
+        f"{'median/target':>15}"
+    )
     for label, med, worst, analysis in rows:
-        print(f"{label:<24}{med:>10.3f}{worst:>10.3f}{analysis:>12.3f}{med - analysis:>15.3f}"
-              f"{med / TARGET:>15.2f}")
+        print(
+            f"{label:<24}{med:>10.3f}{worst:>10.3f}{analysis:>12.3f}{med - analysis:>15.3f}"
+            f"{med / TARGET:>15.2f}"
+        )
     print(f"target: every panel refreshed within {TARGET:.3f} s of a removal or spec change")
     return 0
 

@@ -58,16 +58,28 @@ def make_study(folder: Path, n_chars: int, seed: int) -> Path:
             specs.append(Characteristic(name, unit="mm", usl=mean + 12 * sd))
         else:
             x = rng.normal(mean, sd, SUBGROUPS * SIZE)
-            specs.append(Characteristic(name, unit="mm", lsl=mean - 7 * sd, usl=mean + 7 * sd,
-                                        safety_critical=i % 10 == 0))
+            specs.append(
+                Characteristic(
+                    name,
+                    unit="mm",
+                    lsl=mean - 7 * sd,
+                    usl=mean + 7 * sd,
+                    safety_critical=i % 10 == 0,
+                )
+            )
         cols.append(x)
     lines = ["subgroup," + ",".join(f"{n} [mm]" for n in names)]
     for r in range(SUBGROUPS * SIZE):
         lines.append(f"{r // SIZE + 1}," + ",".join(f"{c[r]:.5f}" for c in cols))
     path = folder / "bench.study"
-    StudyFile.create(path, data=("\n".join(lines) + "\n").encode(), filename="bench.csv",
-                     title=f"Benchmark study, {n_chars} characteristics", characteristics=specs,
-                     who="bench")
+    StudyFile.create(
+        path,
+        data=("\n".join(lines) + "\n").encode(),
+        filename="bench.csv",
+        title=f"Benchmark study, {n_chars} characteristics",
+        characteristics=specs,
+        who="bench",
+    )
     return path
 
 
@@ -95,9 +107,11 @@ def floor_report(n_chars: int, out: Path, seed: int = 7) -> None:
             canvas = FigureCanvasAgg(fig)
             canvas.draw()
             rgba = canvas.buffer_rgba()
-            self.reader = ImageReader(Image.frombuffer(
-                "RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw", "RGBA", 0,
-                1).convert("RGB"))
+            self.reader = ImageReader(
+                Image.frombuffer(
+                    "RGBA", (int(rgba.shape[1]), int(rgba.shape[0])), rgba, "raw", "RGBA", 0, 1
+                ).convert("RGB")
+            )
             w, h = fig.get_size_inches()
             self.w, self.h = width, width * h / w
 
@@ -125,15 +139,21 @@ def floor_report(n_chars: int, out: Path, seed: int = 7) -> None:
         for ax, t in ((b1, "Histogram"), (b2, "Sorted values")):
             ax.set_title(t, loc="left")
             ax.set_xlabel("mm")
-        rows = [["Mean", f"{x.mean():.5f}", "SD", f"{x.std(ddof=1):.5f}"],
-                ["n", str(x.size), "Subgroups", str(SUBGROUPS)]]
-        return [PageBreak(), Paragraph(f"{i + 1}. dim_{i + 1:02d} [mm]", styles["Heading1"]),
-                Table(rows), Picture(fig1), Picture(fig2)]
+        rows = [
+            ["Mean", f"{x.mean():.5f}", "SD", f"{x.std(ddof=1):.5f}"],
+            ["n", str(x.size), "Subgroups", str(SUBGROUPS)],
+        ]
+        return [
+            PageBreak(),
+            Paragraph(f"{i + 1}. dim_{i + 1:02d} [mm]", styles["Heading1"]),
+            Table(rows),
+            Picture(fig1),
+            Picture(fig2),
+        ]
 
     class Doc(SimpleDocTemplate):
         def filterFlowables(self, flowables):  # noqa: N802 - one section at a time
-            while flowables and callable(flowables[0]) and not isinstance(flowables[0],
-                                                                         Flowable):
+            while flowables and callable(flowables[0]) and not isinstance(flowables[0], Flowable):
                 flowables[0:1] = flowables[0]()
             super().filterFlowables(flowables)
 
@@ -175,56 +195,90 @@ def main(argv=None) -> int:
             study = make_study(folder, n, args.seed)
             best = {"report": None, "floor": None}
             for _ in range(args.repeats):
-                f = measure([sys.executable, str(HERE), "--floor-only", str(n),
-                             "--out", str(folder / "floor.pdf")])
-                r = measure([*report_cmd, "report", str(study), "-o", str(folder / "r.pdf"),
-                             "--quiet"])
+                f = measure(
+                    [
+                        sys.executable,
+                        str(HERE),
+                        "--floor-only",
+                        str(n),
+                        "--out",
+                        str(folder / "floor.pdf"),
+                    ]
+                )
+                r = measure(
+                    [*report_cmd, "report", str(study), "-o", str(folder / "r.pdf"), "--quiet"]
+                )
                 for key, m in (("floor", f), ("report", r)):
                     if best[key] is None or m["seconds"] < best[key]["seconds"]:
                         best[key] = m
             pages = _pages(folder / "r.pdf")
             results[n] = best
             rep, flo = best["report"], best["floor"]
-            print(f"{n:4d} characteristics ({pages} pages): report {rep['seconds']:.2f} s, "
-                  f"peak RSS {rep['rss_mb']:.0f} MB | floor {flo['seconds']:.2f} s, "
-                  f"{flo['rss_mb']:.0f} MB | ratio {rep['seconds'] / flo['seconds']:.2f} "
-                  f"(goal <= {TARGET_RATIO})", flush=True)
+            print(
+                f"{n:4d} characteristics ({pages} pages): report {rep['seconds']:.2f} s, "
+                f"peak RSS {rep['rss_mb']:.0f} MB | floor {flo['seconds']:.2f} s, "
+                f"{flo['rss_mb']:.0f} MB | ratio {rep['seconds'] / flo['seconds']:.2f} "
+                f"(goal <= {TARGET_RATIO})",
+                flush=True,
+            )
     sizes = sorted(results)
     lo, hi = sizes[0], sizes[-1]
     rep_hi = results[hi]["report"]
-    growth = ((rep_hi["rss_mb"] - results[lo]["report"]["rss_mb"]) / (hi - lo)
-              if hi > lo else 0.0)
+    growth = (rep_hi["rss_mb"] - results[lo]["report"]["rss_mb"]) / (hi - lo) if hi > lo else 0.0
     ratio = rep_hi["seconds"] / results[hi]["floor"]["seconds"]
-    summary = {"characteristics": hi, "report_s": round(rep_hi["seconds"], 2),
-               "floor_s": round(results[hi]["floor"]["seconds"], 2), "ratio": round(ratio, 2),
-               "peak_rss_mb": {str(n): round(results[n]["report"]["rss_mb"]) for n in sizes},
-               "rss_growth_mb_per_characteristic": round(growth, 2)}
+    summary = {
+        "characteristics": hi,
+        "report_s": round(rep_hi["seconds"], 2),
+        "floor_s": round(results[hi]["floor"]["seconds"], 2),
+        "ratio": round(ratio, 2),
+        "peak_rss_mb": {str(n): round(results[n]["report"]["rss_mb"]) for n in sizes},
+        "rss_growth_mb_per_characteristic": round(growth, 2),
+    }
     print(f"memory growth {growth:.2f} MB per characteristic between {lo} and {hi}")
-    print(f"summary: `studykit report` ({hi} characteristics) {rep_hi['seconds']:.1f} s, "
-          f"floor {results[hi]['floor']['seconds']:.1f} s, ratio {ratio:.2f} (goal <= "
-          f"{TARGET_RATIO}); peak RSS " + ", ".join(
-              f"{results[n]['report']['rss_mb']:.0f} MB at {n}" for n in sizes)
-          + f"; {rep_hi['seconds']:.1f} s vs {TARGET_100_S:.0f} s goal")
+    print(
+        f"summary: `studykit report` ({hi} characteristics) {rep_hi['seconds']:.1f} s, "
+        f"floor {results[hi]['floor']['seconds']:.1f} s, ratio {ratio:.2f} (goal <= "
+        f"{TARGET_RATIO}); peak RSS "
+        + ", ".join(f"{results[n]['report']['rss_mb']:.0f} MB at {n}" for n in sizes)
+        + f"; {rep_hi['seconds']:.1f} s vs {TARGET_100_S:.0f} s goal"
+    )
     print("json: " + json.dumps(summary))
     for n in sizes:
         rep, flo = results[n]["report"], results[n]["floor"]
         goal = f"<= {TARGET_RATIO}x floor" + (f", <= {TARGET_100_S:g} s" if n == 100 else "")
-        row(f"PDF report, {n} characteristics", "studykit report STUDY", rep["seconds"], "s",
+        row(
+            f"PDF report, {n} characteristics",
+            "studykit report STUDY",
+            rep["seconds"],
+            "s",
             baseline_name="floor: the same figures and pages with matplotlib + reportlab",
-            baseline=flo["seconds"], goal=goal,
+            baseline=flo["seconds"],
+            goal=goal,
             met=rep["seconds"] <= TARGET_RATIO * flo["seconds"]
-            and (n != 100 or rep["seconds"] <= TARGET_100_S))
+            and (n != 100 or rep["seconds"] <= TARGET_100_S),
+        )
     for n in sizes:
         rep, flo = results[n]["report"], results[n]["floor"]
-        row(f"PDF report, {n} characteristics: peak RSS", "studykit report STUDY",
-            rep["rss_mb"], "MB", baseline_name="floor's peak RSS", baseline=flo["rss_mb"],
-            goal="flat in the number of characteristics" if n == hi else "")
+        row(
+            f"PDF report, {n} characteristics: peak RSS",
+            "studykit report STUDY",
+            rep["rss_mb"],
+            "MB",
+            baseline_name="floor's peak RSS",
+            baseline=flo["rss_mb"],
+            goal="flat in the number of characteristics" if n == hi else "",
+        )
     if hi > lo:
-        floor_growth = ((results[hi]["floor"]["rss_mb"] - results[lo]["floor"]["rss_mb"])
-                        / (hi - lo))
-        row(f"PDF report: peak RSS growth per characteristic ({lo} -> {hi})",
-            "studykit report STUDY", growth, "MB", baseline_name="floor's growth",
-            baseline=floor_growth, goal="flat: no more than the floor's")
+        floor_growth = (results[hi]["floor"]["rss_mb"] - results[lo]["floor"]["rss_mb"]) / (hi - lo)
+        row(
+            f"PDF report: peak RSS growth per characteristic ({lo} -> {hi})",
+            "studykit report STUDY",
+            growth,
+            "MB",
+            baseline_name="floor's growth",
+            baseline=floor_growth,
+            goal="flat: no more than the floor's",
+        )
     return 0
 
 

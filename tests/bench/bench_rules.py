@@ -62,8 +62,10 @@ def main(n: int = 1_000_000, n_reference: int = 20_000) -> int:
         ),
     ]
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
-    print(f"run rules on n = {n:,} in-control N(0, 1) points; best of 5; "
-          f"{os.cpu_count()} cores, load average {load:.1f}")
+    print(
+        f"run rules on n = {n:,} in-control N(0, 1) points; best of 5; "
+        f"{os.cpu_count()} cores, load average {load:.1f}"
+    )
     print(f"  {'case':36s} {'wall':>9s} {'cpu':>9s}  signals")
     worst = 0.0
     for name, func in cases:
@@ -79,10 +81,14 @@ def main(n: int = 1_000_000, n_reference: int = 20_000) -> int:
     agree = ref == [(s.rule, s.points, s.triggers) for s in vec]
     scaled = ref_cpu * n / n_reference
     full_cpu = best_of(lambda: evaluate(x, center=0.0, sigma=1.0, rules="nelson"))[1]
-    print(f"plain-Python reference, nelson, n = {n_reference:,}: cpu {ref_cpu:.2f} s "
-          f"(vectorised {vec_cpu * 1000:.1f} ms; results agree: {agree})")
-    print(f"reference scaled to n = {n:,}: {scaled:.1f} s; vectorised {full_cpu:.3f} s; "
-          f"ratio x{scaled / full_cpu:,.0f}")
+    print(
+        f"plain-Python reference, nelson, n = {n_reference:,}: cpu {ref_cpu:.2f} s "
+        f"(vectorised {vec_cpu * 1000:.1f} ms; results agree: {agree})"
+    )
+    print(
+        f"reference scaled to n = {n:,}: {scaled:.1f} s; vectorised {full_cpu:.3f} s; "
+        f"ratio x{scaled / full_cpu:,.0f}"
+    )
     verdict = "OK" if worst < TARGET_SECONDS else "SLOWER THAN TARGET"
     print(f"slowest case, cpu {worst:.3f} s against a target of {TARGET_SECONDS} s: {verdict}")
     return 0 if agree else 1

@@ -78,8 +78,12 @@ def _once_ms(fn):
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=30)
-    ap.add_argument("--boot-sample", type=int, default=25,
-                    help="scipy bootstrap refits timed (scaled to n_boot)")
+    ap.add_argument(
+        "--boot-sample",
+        type=int,
+        default=25,
+        help="scipy bootstrap refits timed (scaled to n_boot)",
+    )
     args = ap.parse_args(argv)
     if set(GENERIC) != set(fit.FAMILIES):
         raise SystemExit("the generic route must list every family of studykit.stats.fit")
@@ -96,9 +100,11 @@ def main(argv=None) -> int:
                 generic.append(_once_ms(lambda x=x: _generic(x)))
         om, gm = statistics.median(ours), statistics.median(generic)
         o0, g0 = min(ours), min(generic)
-        print(f"  {label:20s} model {res.model.name:11s} median: ours {om:6.1f}  scipy fits "
-              f"{gm:7.1f}  ratio {gm / om:5.1f}x | min: ours {o0:6.1f}  scipy {g0:7.1f}  "
-              f"ratio {g0 / o0:5.1f}x")
+        print(
+            f"  {label:20s} model {res.model.name:11s} median: ours {om:6.1f}  scipy fits "
+            f"{gm:7.1f}  ratio {gm / om:5.1f}x | min: ours {o0:6.1f}  scipy {g0:7.1f}  "
+            f"ratio {g0 / o0:5.1f}x"
+        )
         summary.append(f"{label.split(',')[0]} {om:.1f} ms ({gm / om:.1f}x)")
         if res.model.fitted is not None:
             # the generic route of the bounds: refit the chosen family with scipy on every
@@ -114,12 +120,16 @@ def main(argv=None) -> int:
                     dist.fit(frozen.rvs(x.size, random_state=rng), **kw)
             per = (time.perf_counter() - t) / args.boot_sample
             full = gm + 1e3 * per * n_boot
-            print(f"  {'':20s} with the bootstrap by scipy refits ({n_boot} x "
-                  f"{1e3 * per:.1f} ms, timed on {args.boot_sample}): generic {full:7.0f} ms, "
-                  f"ratio {full / om:5.1f}x")
+            print(
+                f"  {'':20s} with the bootstrap by scipy refits ({n_boot} x "
+                f"{1e3 * per:.1f} ms, timed on {args.boot_sample}): generic {full:7.0f} ms, "
+                f"ratio {full / om:5.1f}x"
+            )
             summary[-1] += f", {full / om:.0f}x with a scipy bootstrap"
-    print(f"targets: normal characteristic <= 3 ms median (idle machine), ratio >= 20x; load "
-          f"average {os.getloadavg()[0]:.1f}")
+    print(
+        f"targets: normal characteristic <= 3 ms median (idle machine), ratio >= 20x; load "
+        f"average {os.getloadavg()[0]:.1f}"
+    )
     print("summary: full study, median: " + "; ".join(summary))
     return 0
 

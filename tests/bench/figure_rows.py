@@ -20,15 +20,32 @@ import math
 PREFIX = "row: "
 
 
-def row(figure: str, command: str, value: float, unit: str, *, baseline_name: str,
-        baseline: float | None, goal: str = "", ratio: float | None = None,
-        met: bool | None = None) -> dict:
+def row(
+    figure: str,
+    command: str,
+    value: float,
+    unit: str,
+    *,
+    baseline_name: str,
+    baseline: float | None,
+    goal: str = "",
+    ratio: float | None = None,
+    met: bool | None = None,
+) -> dict:
     """Print one figure row (and return it). ``ratio`` defaults to value / baseline."""
     if ratio is None and baseline:
         ratio = value / baseline
-    r = {"figure": figure, "command": command, "value": value, "unit": unit,
-         "baseline_name": baseline_name, "baseline": baseline, "ratio": ratio, "goal": goal,
-         "met": met}
+    r = {
+        "figure": figure,
+        "command": command,
+        "value": value,
+        "unit": unit,
+        "baseline_name": baseline_name,
+        "baseline": baseline,
+        "ratio": ratio,
+        "goal": goal,
+        "met": met,
+    }
     print(PREFIX + json.dumps(r), flush=True)
     return r
 
@@ -40,7 +57,7 @@ def parse(output: str) -> list[dict]:
         line = line.strip()
         if line.startswith(PREFIX):
             try:
-                rows.append(json.loads(line[len(PREFIX):]))
+                rows.append(json.loads(line[len(PREFIX) :]))
             except json.JSONDecodeError:
                 continue
     return rows
@@ -65,8 +82,10 @@ def table(rows: list[dict]) -> str:
     |---|---|---|---|---|---|
     | x | `studykit x` | 2 s | floor: 1 s | 2.00x | <= 3 s (met) |
     """
-    lines = ["| figure | command | measured | floor / baseline (same run) | ratio | goal |",
-             "|---|---|---|---|---|---|"]
+    lines = [
+        "| figure | command | measured | floor / baseline (same run) | ratio | goal |",
+        "|---|---|---|---|---|---|",
+    ]
     for r in rows:
         ratio = r.get("ratio")
         ratio_text = "—" if ratio is None else f"{ratio:.2f}x"
@@ -77,6 +96,8 @@ def table(rows: list[dict]) -> str:
         base = r.get("baseline_name") or "—"
         if r.get("baseline") is not None:
             base += f": {_num(r['baseline'], r.get('unit', ''))}"
-        lines.append(f"| {r['figure']} | `{r['command']}` | {_num(r['value'], r.get('unit', ''))}"
-                     f" | {base} | {ratio_text} | {goal} |")
+        lines.append(
+            f"| {r['figure']} | `{r['command']}` | {_num(r['value'], r.get('unit', ''))}"
+            f" | {base} | {ratio_text} | {goal} |"
+        )
     return "\n".join(lines)

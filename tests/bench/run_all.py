@@ -34,8 +34,11 @@ from figure_rows import parse, table  # noqa: E402
 
 
 def summary_line(output: str) -> str:
-    lines = [ln.strip() for ln in output.splitlines()
-             if ln.strip() and not ln.strip().startswith(("row: ", "json: "))]
+    lines = [
+        ln.strip()
+        for ln in output.splitlines()
+        if ln.strip() and not ln.strip().startswith(("row: ", "json: "))
+    ]
     for ln in reversed(lines):
         if ln.lower().startswith("summary:"):
             return ln.split(":", 1)[1].strip()
@@ -50,15 +53,27 @@ def rows_of(script: str, status: str, output: str) -> list[dict]:
     text = summary_line(output) or "(no output)"
     if status != "0":
         text = f"status {status}: {text}"
-    return [{"figure": text.replace("|", "/"), "command": f"python tests/bench/{script}.py",
-             "value": None, "unit": "", "baseline_name": "", "baseline": None, "ratio": None,
-             "goal": "", "met": None}]
+    return [
+        {
+            "figure": text.replace("|", "/"),
+            "command": f"python tests/bench/{script}.py",
+            "value": None,
+            "unit": "",
+            "baseline_name": "",
+            "baseline": None,
+            "ratio": None,
+            "goal": "",
+            "met": None,
+        }
+    ]
 
 
 def machine_line() -> str:
     cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
-    return (f"{platform.python_implementation()} {platform.python_version()} on "
-            f"{platform.machine()}, {cores} cores, load average {os.getloadavg()[0]:.1f}")
+    return (
+        f"{platform.python_implementation()} {platform.python_version()} on "
+        f"{platform.machine()}, {cores} cores, load average {os.getloadavg()[0]:.1f}"
+    )
 
 
 def main(argv=None) -> int:
@@ -66,8 +81,12 @@ def main(argv=None) -> int:
     ap.add_argument("--only", nargs="*", help="script names (without .py) to run")
     ap.add_argument("--timeout", type=float, default=900.0, help="seconds per script")
     ap.add_argument("--quiet", action="store_true", help="print the tables only")
-    ap.add_argument("--from-logs", nargs="+", metavar="LOG",
-                    help="make the tables from saved outputs of bench scripts (no runs)")
+    ap.add_argument(
+        "--from-logs",
+        nargs="+",
+        metavar="LOG",
+        help="make the tables from saved outputs of bench scripts (no runs)",
+    )
     args = ap.parse_args(argv)
     print(machine_line())
     runs = []
@@ -82,13 +101,21 @@ def main(argv=None) -> int:
         for script in scripts:
             t = time.perf_counter()
             try:
-                proc = subprocess.run([sys.executable, str(script)], capture_output=True,
-                                      text=True, timeout=args.timeout, cwd=HERE.parent.parent)
+                proc = subprocess.run(
+                    [sys.executable, str(script)],
+                    capture_output=True,
+                    text=True,
+                    timeout=args.timeout,
+                    cwd=HERE.parent.parent,
+                )
                 status, out = str(proc.returncode), proc.stdout + proc.stderr
             except subprocess.TimeoutExpired as exc:
                 status = "timeout"
-                out = (exc.stdout or b"").decode() if isinstance(exc.stdout, bytes) else (
-                    exc.stdout or "")
+                out = (
+                    (exc.stdout or b"").decode()
+                    if isinstance(exc.stdout, bytes)
+                    else (exc.stdout or "")
+                )
             seconds = time.perf_counter() - t
             if not args.quiet:
                 print(f"\n=== {script.name} ({seconds:.1f} s, status {status})")
@@ -98,8 +125,9 @@ def main(argv=None) -> int:
     print("\n" + table(figures))
     print()
     head = ("script", "status", "seconds")
-    widths = [max(len(h), *(len(r[i]) for r in runs)) if runs else len(h)
-              for i, h in enumerate(head)]
+    widths = [
+        max(len(h), *(len(r[i]) for r in runs)) if runs else len(h) for i, h in enumerate(head)
+    ]
     print("  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)))
     for r in runs:
         print("  ".join(c.ljust(w) for c, w in zip(r[:3], widths, strict=True)))

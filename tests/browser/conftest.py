@@ -25,8 +25,10 @@ from browser_support import (  # noqa: F401
 
 _missing = None
 if not (os.path.isfile(CHROMIUM) and os.access(CHROMIUM, os.X_OK)) and not shutil.which(CHROMIUM):
-    _missing = (f"browser journeys need Debian's chromium at {CHROMIUM} "
-                "(apt-get install chromium chromium-driver; scripts/setup --browser)")
+    _missing = (
+        f"browser journeys need Debian's chromium at {CHROMIUM} "
+        "(apt-get install chromium chromium-driver; scripts/setup --browser)"
+    )
 try:
     import playwright.sync_api  # noqa: F401
 except ImportError:  # pragma: no cover
@@ -44,8 +46,12 @@ def pytest_collection_modifyitems(config, items):
 
 @pytest.fixture(scope="session")
 def browser_type_launch_args(browser_type_launch_args):
-    return {**browser_type_launch_args, "executable_path": CHROMIUM, "args": CHROMIUM_ARGS,
-            "headless": True}
+    return {
+        **browser_type_launch_args,
+        "executable_path": CHROMIUM,
+        "args": CHROMIUM_ARGS,
+        "headless": True,
+    }
 
 
 @pytest.fixture(scope="session")
@@ -60,8 +66,9 @@ def workbook_url(artifacts):
 
     log = open(artifacts / "voila-journeys.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": ""}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": ""}, log=log
+        ) as url:
             yield url
     finally:
         log.close()

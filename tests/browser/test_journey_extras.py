@@ -29,8 +29,9 @@ def extras_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-extras-journey.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url
     finally:
         log.close()

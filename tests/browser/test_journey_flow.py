@@ -36,8 +36,9 @@ def shot(page, name: str) -> None:
     """Screenshot of the whole workbook (the viewport grown to its height, then restored)."""
     size = page.viewport_size
     height = page.evaluate("() => document.querySelector('.sk-root').scrollHeight")
-    page.set_viewport_size({"width": size["width"], "height": max(size["height"],
-                                                                    int(height) + 80)})
+    page.set_viewport_size(
+        {"width": size["width"], "height": max(size["height"], int(height) + 80)}
+    )
     page.wait_for_timeout(700)
     page.screenshot(path=str(ARTIFACTS / f"flow-{name}.png"))
     page.set_viewport_size(size)
@@ -59,7 +60,8 @@ def pick(page, name: str) -> None:
     page.locator(".sk-picker select").first.select_option(name)
     page.wait_for_function(
         "(n) => [...document.querySelectorAll('.sk-picker select')].some(s => s.value === n)",
-        arg=name)
+        arg=name,
+    )
 
 
 # --- keep, with reason ----------------------------------------------------------------------------
@@ -78,8 +80,9 @@ def keep_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-flow-keep.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url, path
     finally:
         log.close()
@@ -104,7 +107,8 @@ def test_keep_with_reason_two_browsers(browser, keep_server, artifacts):
         # person A keeps the signal at subgroup 17 with a reason
         page.locator(".sk-subgroup-pick select").select_option("17")
         page.locator(".sk-removal-reason textarea").fill(
-            "first part after the planned warm-up; common cause per process FMEA")
+            "first part after the planned warm-up; common cause per process FMEA"
+        )
         page.wait_for_function("() => !document.querySelector('.sk-keep').disabled")
         page.get_by_role("button", name="Keep, with reason").click()
         page.wait_for_selector(":text('kept with your reason')")
@@ -118,9 +122,9 @@ def test_keep_with_reason_two_browsers(browser, keep_server, artifacts):
         assert proposal.count() == 1 and "Subgroup 18" in proposal.first.inner_text()
         proposal.first.locator("button:has-text('Reject')").click()
         proposal.first.locator("input[type=text]").fill(
-            "same warm-up, second part; not a special cause")
-        page.wait_for_function(
-            "() => !document.querySelector('.sk-record-proposals').disabled")
+            "same warm-up, second part; not a special cause"
+        )
+        page.wait_for_function("() => !document.querySelector('.sk-record-proposals').disabled")
         page.get_by_role("button", name="Record decisions on proposals").click()
         page.wait_for_selector(":text('Rejected and kept with the reason: 18')")
         page.wait_for_selector(".sk-kept-table :text('rejected proposal')")
@@ -162,8 +166,10 @@ def test_keep_with_reason_two_browsers(browser, keep_server, artifacts):
     kept = StudyFile(path).load().kept_signals(NAME)
     # A's keep covers every open signal at 17 (beyond the limits, and zone A with 18)
     assert {k: d.payload["origin"] for k, d in kept.items()} == {
-        ("17", "beyond_limits"): "person", ("17", "zone_a"): "person",
-        ("18", "beyond_limits"): "rejected_proposal"}
+        ("17", "beyond_limits"): "person",
+        ("17", "zone_a"): "person",
+        ("18", "beyond_limits"): "rejected_proposal",
+    }
 
 
 # --- a new study from uploads ---------------------------------------------------------------------
@@ -179,9 +185,11 @@ def new_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-flow-new.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path), "STUDYKIT_NEW_DIR": str(folder)},
-                            log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb",
+            env={"STUDYKIT_STUDY": str(path), "STUDYKIT_NEW_DIR": str(folder)},
+            log=log,
+        ) as url:
             yield url, path
     finally:
         log.close()

@@ -29,8 +29,9 @@ def gauge_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-gauge-journey.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url, path
     finally:
         log.close()
@@ -42,8 +43,9 @@ def shot(page, name: str, *, full: bool = False) -> None:
     size = page.viewport_size
     if full:
         height = page.evaluate("() => document.querySelector('.sk-root').scrollHeight")
-        page.set_viewport_size({"width": size["width"],
-                                "height": max(size["height"], int(height) + 80)})
+        page.set_viewport_size(
+            {"width": size["width"], "height": max(size["height"], int(height) + 80)}
+        )
         page.wait_for_timeout(600)
     page.screenshot(path=str(ARTIFACTS / f"gauge-{name}.png"))
     if full:
@@ -71,7 +73,8 @@ def test_gauge_journey(browser, gauge_server, artifacts):
         verdict = page.locator(".sk-gauge-stored")
         verdict.wait_for(state="visible")
         page.wait_for_function(
-            "(p) => document.querySelector('.sk-gauge-stored').innerText.includes(p)", arg=pct)
+            "(p) => document.querySelector('.sk-gauge-stored').innerText.includes(p)", arg=pct
+        )
         text = verdict.inner_text()
         assert "Acceptable" in text and stored.who in text, text
         # the figures are real images with a size
@@ -79,7 +82,8 @@ def test_gauge_journey(browser, gauge_server, artifacts):
         img.wait_for(state="visible")
         page.wait_for_function(
             "() => { const i = document.querySelector('img.sk-gauge-figure-sources');"
-            " return i && i.complete && i.naturalWidth > 300; }")
+            " return i && i.complete && i.naturalWidth > 300; }"
+        )
         assert page.locator("img.sk-gauge-figure").count() == 3
         shot(page, "1280")
         shot(page, "full-1280", full=True)
@@ -87,8 +91,11 @@ def test_gauge_journey(browser, gauge_server, artifacts):
         # a new study from the readings: columns guessed, preview, attach with name and reason
         with page.expect_file_chooser() as chooser:
             page.locator(".sk-gauge-upload").click()
-        chooser.value.set_files(files=[{"name": "gauge_flange_thickness.csv",
-                                        "mimeType": "text/csv", "buffer": readings}])
+        chooser.value.set_files(
+            files=[
+                {"name": "gauge_flange_thickness.csv", "mimeType": "text/csv", "buffer": readings}
+            ]
+        )
         page.wait_for_selector(".sk-gauge-compute:not([disabled])")
         assert page.locator(".sk-gauge-col-value select").input_value() == "value"
         assert page.locator(".sk-gauge-lsl input").input_value() == "7.9"

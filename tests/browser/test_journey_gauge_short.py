@@ -15,9 +15,33 @@ except ImportError:  # pragma: no cover
     from conftest import ARTIFACTS, ROOT, run_with_retry
 
 NAME = "flange_thickness"
-READINGS = [8.0012, 8.0009, 8.0015, 8.0007, 8.0011, 8.0013, 8.0008, 8.0010, 8.0014, 8.0009,
-            8.0012, 8.0006, 8.0011, 8.0010, 8.0013, 8.0008, 8.0012, 8.0009, 8.0011, 8.0010,
-            8.0012, 8.0010, 8.0009, 8.0013, 8.0011]
+READINGS = [
+    8.0012,
+    8.0009,
+    8.0015,
+    8.0007,
+    8.0011,
+    8.0013,
+    8.0008,
+    8.0010,
+    8.0014,
+    8.0009,
+    8.0012,
+    8.0006,
+    8.0011,
+    8.0010,
+    8.0013,
+    8.0008,
+    8.0012,
+    8.0009,
+    8.0011,
+    8.0010,
+    8.0012,
+    8.0010,
+    8.0009,
+    8.0013,
+    8.0011,
+]
 
 
 @pytest.fixture(scope="module")
@@ -31,13 +55,31 @@ def short_server(tmp_path_factory):
     shutil.copy(demo_study_path(), path)
     csv = d / "reference.csv"
     csv.write_text("reading\n" + "\n".join(f"{v:.4f}" for v in READINGS) + "\n")
-    assert main(["gauge", str(csv), "--reference", "8.0004", "--value", "reading", "--study",
-                 str(path), "--characteristic", NAME, "--who", "R. Tester"]) == 0
+    assert (
+        main(
+            [
+                "gauge",
+                str(csv),
+                "--reference",
+                "8.0004",
+                "--value",
+                "reading",
+                "--study",
+                str(path),
+                "--characteristic",
+                NAME,
+                "--who",
+                "R. Tester",
+            ]
+        )
+        == 0
+    )
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-gauge-short-journey.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url
     finally:
         log.close()

@@ -44,8 +44,16 @@ def _serve(tmp_path_factory, tag: str, env: dict, extra_args=()):
     shutil.copy(demo_study_path(), path)
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / f"voila-live-{tag}.log", "w")  # noqa: SIM115
-    return path, log, running_server(NOTEBOOK, env={"STUDYKIT_STUDY": str(path), **env},
-                                     log=log, extra_args=tuple(extra_args))
+    return (
+        path,
+        log,
+        running_server(
+            NOTEBOOK,
+            env={"STUDYKIT_STUDY": str(path), **env},
+            log=log,
+            extra_args=tuple(extra_args),
+        ),
+    )
 
 
 @pytest.fixture(scope="module")
@@ -79,9 +87,11 @@ def open_study(page, url, step: str | None = None, who: str | None = None):
     page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
     page.wait_for_selector(".sk-live-box", state="attached")
     # the page has told its kernel which version it shows (the front-end link)
-    page.wait_for_function("() => { const s = document.querySelector('.sk-view-version input');"
-                           " const p = document.querySelector('.sk-page-version input');"
-                           " return s && p && s.value !== '' && s.value === p.value; }")
+    page.wait_for_function(
+        "() => { const s = document.querySelector('.sk-view-version input');"
+        " const p = document.querySelector('.sk-page-version input');"
+        " return s && p && s.value !== '' && s.value === p.value; }"
+    )
     if step:
         open_step(page, step)
     if who:
@@ -101,7 +111,8 @@ def name_field(page):
 def pick(page, name: str) -> None:
     page.locator(".sk-body .sk-picker select").first.select_option(name)
     page.wait_for_function(
-        "(n) => document.querySelector('.sk-body .sk-picker select').value === n", arg=name)
+        "(n) => document.querySelector('.sk-body .sk-picker select').value === n", arg=name
+    )
 
 
 def sign(page, role: str, decision: str = "Approve", comment: str = "") -> None:
@@ -118,15 +129,18 @@ def message(page, contains: str) -> str:
     """The newest message once it contains ``contains`` (an older one may be showing)."""
     page.wait_for_function(
         "(t) => { const m = document.querySelector('.sk-messages .sk-msg');"
-        " return m && m.innerText.includes(t); }", arg=contains)
+        " return m && m.innerText.includes(t); }",
+        arg=contains,
+    )
     return page.locator(".sk-messages .sk-msg").first.inner_text()
 
 
 def shot(page, name: str) -> None:
     height = page.evaluate("() => document.querySelector('.sk-root').scrollHeight")
     size = page.viewport_size
-    page.set_viewport_size({"width": size["width"], "height": max(size["height"],
-                                                                    int(height) + 80)})
+    page.set_viewport_size(
+        {"width": size["width"], "height": max(size["height"], int(height) + 80)}
+    )
     page.wait_for_timeout(500)
     page.screenshot(path=str(ARTIFACTS / f"live-{name}.png"))
     page.set_viewport_size(size)
@@ -138,6 +152,7 @@ def no_traceback(page) -> None:
 
 
 # --- live: a change in one browser reaches the other without a reload ---------------------------
+
 
 def test_live_update_and_no_stale_page_after_a_change(browser, live):
     url, path = live
@@ -187,6 +202,7 @@ def test_live_update_and_no_stale_page_after_a_change(browser, live):
 
 
 # --- still: an action on an older view is refused, and a sign-off binds to what was seen ----
+
 
 def test_refused_action_on_an_old_view_and_the_signoff_digest(browser, still):
     url, path = still
@@ -244,6 +260,7 @@ def test_refused_action_on_an_old_view_and_the_signoff_digest(browser, still):
 
 # --- live: one person, two roles; the approval gate and waivers -------------------------------
 
+
 def test_same_person_two_roles_and_the_approval_gate(browser, live):
     url, path = live
     ca, a = new_page(browser)
@@ -278,8 +295,9 @@ def test_same_person_two_roles_and_the_approval_gate(browser, live):
             a.wait_for_function("() => !document.querySelector('.sk-waive').disabled")
             a.locator(".sk-waive").click()
             a.wait_for_selector(f".sk-rules-box :text('{why}')")
-        b.wait_for_selector(".sk-rules-box :text('customer deviation D-17')",
-                            timeout=30_000)  # live
+        b.wait_for_selector(
+            ".sk-rules-box :text('customer deviation D-17')", timeout=30_000
+        )  # live
         b.wait_for_function("() => !document.querySelector('.sk-open-verdicts')")
         sign(b, "approved")
         b.wait_for_selector(".sk-lock-state :text('Approved and locked')")
@@ -296,6 +314,7 @@ def test_same_person_two_roles_and_the_approval_gate(browser, live):
 
 # --- live: signing the PDF in the browser with the signer's own certificate -------------------
 
+
 def test_browser_signing_verifies(browser, live, tmp_path):
     from studykit.report.signing import make_demo_certificate
     from studykit.report.verify import verify_report
@@ -308,8 +327,7 @@ def test_browser_signing_verifies(browser, live, tmp_path):
         open_study(a, url, "export", "Pat Prep")
         open_study(b, url, "export", "Other Person")
         a.get_by_role("button", name="Make the PDF evidence").click()
-        a.locator("a.sk-download[download$='.pdf']").wait_for(state="attached",
-                                                               timeout=180_000)
+        a.locator("a.sk-download[download$='.pdf']").wait_for(state="attached", timeout=180_000)
         with a.expect_file_chooser() as chooser:
             a.locator(".sk-p12").click()
         chooser.value.set_files(str(tmp_path / "keys" / "Pat_Prep.p12"))
@@ -329,9 +347,22 @@ def test_browser_signing_verifies(browser, live, tmp_path):
         result = verify_report(signed, study=path, trust=[cert.cert_path])
         assert result.ok, result.summary()
         # `studykit verify` on the command line says the same
-        run = subprocess.run([sys.executable, "-m", "studykit", "verify", str(signed),
-                              "--study", str(path), "--trust", cert.cert_path],
-                             capture_output=True, text=True, timeout=300)
+        run = subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "studykit",
+                "verify",
+                str(signed),
+                "--study",
+                str(path),
+                "--trust",
+                cert.cert_path,
+            ],
+            capture_output=True,
+            text=True,
+            timeout=300,
+        )
         assert run.returncode == 0 and "VERIFIED" in run.stdout, run.stdout + run.stderr
         # the other browser has no PDF of its own yet: nothing to sign there
         assert b.locator(".sk-sign-pdf").is_disabled()
@@ -344,14 +375,15 @@ def test_browser_signing_verifies(browser, live, tmp_path):
 
 # --- a pre-started kernel: the page shows the file as it is when the page opens ---------------
 
-def test_page_opened_later_shows_a_signoff_made_after_the_server_started(browser,
-                                                                          tmp_path_factory):
+
+def test_page_opened_later_shows_a_signoff_made_after_the_server_started(browser, tmp_path_factory):
     """Regression (issue 13): with ``preheat_kernel`` (as ``studykit serve`` runs Voila) a page
     opened 60 s after the start showed no sign-off made at 30 s. Here the delays are shortened
     to 20 s and 30 s: the pre-started kernel has run the workbook by then (it takes about
     5-10 s), which is the mechanism of the bug."""
-    path, log, server = _serve(tmp_path_factory, "preheat", {},
-                               ("--VoilaConfiguration.preheat_kernel=True",))
+    path, log, server = _serve(
+        tmp_path_factory, "preheat", {}, ("--VoilaConfiguration.preheat_kernel=True",)
+    )
     ca, a = new_page(browser)
     try:
         with server as url:

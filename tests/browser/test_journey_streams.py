@@ -28,8 +28,9 @@ def streams_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-streams.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url
     finally:
         log.close()
@@ -38,8 +39,9 @@ def streams_server(tmp_path_factory):
 def _shot(page, name):
     size = page.viewport_size
     height = page.evaluate("() => document.querySelector('.sk-root').scrollHeight")
-    page.set_viewport_size({"width": size["width"], "height": max(size["height"],
-                                                                    int(height) + 80)})
+    page.set_viewport_size(
+        {"width": size["width"], "height": max(size["height"], int(height) + 80)}
+    )
     page.wait_for_timeout(700)
     page.screenshot(path=str(ARTIFACTS / f"streams-{name}.png"))
     page.set_viewport_size(size)
@@ -64,8 +66,7 @@ def test_streams_in_the_workbook(browser, streams_server, artifacts):
         page.wait_for_selector(".sk-step-limits.sk-current")
         page.get_by_role("button", name="Analyse all characteristics").click()
         page.wait_for_selector(".sk-ovstream")
-        page.wait_for_function(
-            "() => [...document.querySelectorAll('.sk-ovstream')].length === 4")
+        page.wait_for_function("() => [...document.querySelectorAll('.sk-ovstream')].length === 4")
         page.wait_for_selector("text=characteristics analysed.")
         text = page.locator(".sk-ovtable").inner_text()
         assert "stream 3 (worst)" in text

@@ -47,8 +47,9 @@ def study_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-study-journey.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url, path
     finally:
         log.close()
@@ -65,8 +66,9 @@ def shot(page, name: str, *, full: bool = False) -> None:
     size = page.viewport_size
     if full:
         height = page.evaluate("() => document.querySelector('.sk-root').scrollHeight")
-        page.set_viewport_size({"width": size["width"], "height": max(size["height"],
-                                                                        int(height) + 80)})
+        page.set_viewport_size(
+            {"width": size["width"], "height": max(size["height"], int(height) + 80)}
+        )
         page.wait_for_timeout(600)
     page.screenshot(path=str(ARTIFACTS / f"study-{name}.png"))
     if full:
@@ -103,8 +105,10 @@ def test_study_journey(browser, study_server, artifacts):
         page.locator(f".sk-open-{NAME}").click()
         page.wait_for_selector(".sk-step-stability.sk-current")
         page.wait_for_selector(".sk-stability-chart canvas", state="attached")
-        page.wait_for_function("() => document.querySelector('.sk-picker select') && "
-                               "document.querySelector('.sk-picker select').value !== ''")
+        page.wait_for_function(
+            "() => document.querySelector('.sk-picker select') && "
+            "document.querySelector('.sk-picker select').value !== ''"
+        )
 
         # the capability before the removal
         open_step(page, "capability")
@@ -136,7 +140,8 @@ def test_study_journey(browser, study_server, artifacts):
         shot(page, "hover-1280")
         page.mouse.click(point["x"], point["y"])
         page.wait_for_function(
-            "() => document.querySelector('.sk-subgroup-pick select').value === '5'")
+            "() => document.querySelector('.sk-subgroup-pick select').value === '5'"
+        )
         assert "in use" in page.locator(".sk-selected-info").inner_text()
         remove = page.get_by_role("button", name="Remove subgroup")
         assert remove.is_disabled()
@@ -153,7 +158,9 @@ def test_study_journey(browser, study_server, artifacts):
         open_step(page, "capability")
         page.wait_for_function(
             "(b) => !document.querySelector('.sk-verdict').innerText.includes("
-            "'bound of Ppk is ' + b + ',')", arg=before)
+            "'bound of Ppk is ' + b + ',')",
+            arg=before,
+        )
         after = lower_bound_text(page)
         assert after != before
         page.wait_for_selector(".sk-interval-chart canvas", state="attached")
@@ -221,9 +228,11 @@ def test_study_panels_at_full_hd(browser, study_server, artifacts, width, height
     def journey(page, console):
         page.goto(url, wait_until="domcontentloaded")
         page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
-        for key, wait in (("stability", ".sk-stability-chart canvas"),
-                          ("shape", ".sk-shape-chart canvas"),
-                          ("capability", ".sk-interval-chart canvas")):
+        for key, wait in (
+            ("stability", ".sk-stability-chart canvas"),
+            ("shape", ".sk-shape-chart canvas"),
+            ("capability", ".sk-interval-chart canvas"),
+        ):
             open_step(page, key)
             page.wait_for_selector(wait, state="attached")
             page.wait_for_timeout(1200)

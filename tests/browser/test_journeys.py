@@ -21,8 +21,16 @@ def sample_csv() -> bytes:
     return ("\n".join(lines) + "\n").encode()
 
 
-STEP_TITLES = ["Bring in data", "Specification & criterion", "Gauge check", "Stability", "Shape",
-               "Capability", "Review & sign", "Evidence & hand-off"]
+STEP_TITLES = [
+    "Bring in data",
+    "Specification & criterion",
+    "Gauge check",
+    "Stability",
+    "Shape",
+    "Capability",
+    "Review & sign",
+    "Evidence & hand-off",
+]
 
 
 def open_workbook(page, url):
@@ -57,15 +65,17 @@ def test_open_upload_confirm(browser, workbook_url, artifacts, width, height):
         # the values chart (bokeh canvas inside its shadow DOM; Playwright CSS pierces it)
         page.wait_for_selector(".sk-intake-chart canvas", state="attached")
         page.wait_for_timeout(800)
-        page.screenshot(path=str(artifacts / f"workbook-detected-{width}x{height}.png"),
-                        full_page=True)
+        page.screenshot(
+            path=str(artifacts / f"workbook-detected-{width}x{height}.png"), full_page=True
+        )
 
         page.get_by_role("button", name="Use this data").click()
         page.wait_for_selector(".sk-overview-card td:text('Torque')")
         assert "Data confirmed" in page.locator(".sk-header").inner_text()
         assert "✓" in page.locator(".sk-step-intake").inner_text()
-        page.screenshot(path=str(artifacts / f"workbook-confirmed-{width}x{height}.png"),
-                        full_page=True)
+        page.screenshot(
+            path=str(artifacts / f"workbook-confirmed-{width}x{height}.png"), full_page=True
+        )
         page.locator(".sk-step-stability").click()
         page.wait_for_selector(".sk-guidance:has-text('Step 4 of 8')")
         body = page.locator("body").inner_text()

@@ -29,8 +29,11 @@ try:  # the shared browser helpers
 except ImportError:  # pragma: no cover
     from conftest import ARTIFACTS, ROOT, run_with_retry
 
-VIEWPORTS = {"1440": {"width": 1440, "height": 900}, "1024": {"width": 1024, "height": 768},
-             "390": {"width": 390, "height": 844}}
+VIEWPORTS = {
+    "1440": {"width": 1440, "height": 900},
+    "1024": {"width": 1024, "height": 768},
+    "390": {"width": 390, "height": 844},
+}
 GAUGE_NAME = "flange_thickness"  # the demo characteristic with a stored gauge study
 LOCAL_HOSTS = {"127.0.0.1", "localhost", "[::1]", "::1"}
 LOCAL_SCHEMES = {"data", "blob", "about", "chrome-extension"}
@@ -46,8 +49,9 @@ def offline_server(tmp_path_factory):
     ARTIFACTS.mkdir(exist_ok=True)
     log = open(ARTIFACTS / "voila-offline.log", "w")  # noqa: SIM115
     try:
-        with running_server(ROOT / "notebooks" / "workbook.ipynb",
-                            env={"STUDYKIT_STUDY": str(path)}, log=log) as url:
+        with running_server(
+            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(path)}, log=log
+        ) as url:
             yield url
     finally:
         log.close()
@@ -154,10 +158,12 @@ def _check_layout(page, key: str, where: str) -> None:
         assert right <= view + 1 and not item["clipped"], f"{where} at {key}: a legend is cut"
         if plot is not None:
             assert left >= plot[0] - 1 and right <= plot[1] + 1, (
-                f"{where} at {key}: a legend leaves its chart ({item})")
+                f"{where} at {key}: a legend leaves its chart ({item})"
+            )
     for table in page.evaluate(_TABLES_JS):
         assert table["right"] <= view + 1 or table["scrolls"], (
-            f"{where} at {key}: a table is wider than the page and does not scroll in its box")
+            f"{where} at {key}: a table is wider than the page and does not scroll in its box"
+        )
 
 
 @pytest.mark.parametrize("key", list(VIEWPORTS))
@@ -200,8 +206,10 @@ def test_offline_on_three_screens(browser, offline_server, key):
         _check_layout(page, key, "gauge check")
         _shot(page, f"{key}-gauge")
         if key == "390":  # figures drawn for paper: readable width, scrolling in their box
-            widths = page.evaluate("() => [...document.querySelectorAll('img.sk-gauge-figure')]"
-                                   ".map(i => i.getBoundingClientRect().width)")
+            widths = page.evaluate(
+                "() => [...document.querySelectorAll('img.sk-gauge-figure')]"
+                ".map(i => i.getBoundingClientRect().width)"
+            )
             assert widths and min(widths) >= 500, widths
         figures = page.locator(".sk-gauge-figures").first
         figures.scroll_into_view_if_needed()

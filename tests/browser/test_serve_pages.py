@@ -32,10 +32,16 @@ def served(tmp_path_factory):
     shutil.copy(demo_study_path(), study)
     ARTIFACTS.mkdir(exist_ok=True)
     log_path = ARTIFACTS / "voila-serve-pages.log"
-    with open(log_path, "w") as log, server_process(
-            ROOT / "notebooks" / "workbook.ipynb", env={"STUDYKIT_STUDY": str(study)}, log=log,
-            timeout=180, extra_args=("--VoilaConfiguration.preheat_kernel=True",),
-    ) as server:
+    with (
+        open(log_path, "w") as log,
+        server_process(
+            ROOT / "notebooks" / "workbook.ipynb",
+            env={"STUDYKIT_STUDY": str(study)},
+            log=log,
+            timeout=180,
+            extra_args=("--VoilaConfiguration.preheat_kernel=True",),
+        ) as server,
+    ):
         yield server, log_path
 
 
@@ -57,8 +63,7 @@ def wait_until(predicate, timeout: float, step: float = 0.5) -> bool:
 @pytest.mark.slow
 def test_ten_pages_opened_at_once_all_show_the_first_chart(browser, served):
     server, log_path = served
-    contexts = [browser.new_context(viewport={"width": 1280, "height": 800})
-                for _ in range(PAGES)]
+    contexts = [browser.new_context(viewport={"width": 1280, "height": 800}) for _ in range(PAGES)]
     try:
         pages = [c.new_page() for c in contexts]
         for page in pages:
@@ -114,8 +119,9 @@ def test_upload_over_the_limit_is_refused_in_the_page(browser, served, tmp_path)
     with open(big, "wb") as f:  # 150 MB, above the websocket limit too: it used to drop the page
         f.truncate(150 * 1024 * 1024)
     small = tmp_path / "small.csv"
-    small.write_text("Lot,Bore (mm)\n" + "".join(f"{i // 5 + 1},{12 + (i % 7) / 1000:.3f}\n"
-                                                 for i in range(50)))
+    small.write_text(
+        "Lot,Bore (mm)\n" + "".join(f"{i // 5 + 1},{12 + (i % 7) / 1000:.3f}\n" for i in range(50))
+    )
     context = browser.new_context(viewport={"width": 1280, "height": 800})
     try:
         page = context.new_page()
@@ -158,7 +164,8 @@ def test_a_websocket_message_above_the_server_cap_is_refused_in_the_page(browser
         page.goto(server.url, wait_until="domcontentloaded")
         page.wait_for_selector(".sk-stepbar .sk-step", state="visible")
         kernel = kernel_of(page)
-        sent = page.evaluate("""async ([kernel, cap]) => {
+        sent = page.evaluate(
+            """async ([kernel, cap]) => {
             const ws = new WebSocket(`ws://${location.host}/api/kernels/${kernel}/channels`);
             await new Promise((ok, fail) => { ws.onopen = ok; ws.onerror = fail; });
             const small = ws.send(new ArrayBuffer(16));  // below the cap: passed on
@@ -166,7 +173,9 @@ def test_a_websocket_message_above_the_server_cap_is_refused_in_the_page(browser
             const state = ws.readyState;
             ws.close();
             return {small: small === undefined, big: big === undefined, state: state};
-        }""", [kernel, WEBSOCKET_MAX_MESSAGE])
+        }""",
+            [kernel, WEBSOCKET_MAX_MESSAGE],
+        )
         assert sent["state"] == 1  # the connection was still open after the refusal
         refused = page.locator(".sk-upload-refused")
         refused.wait_for(state="visible", timeout=30_000)

@@ -29,8 +29,11 @@ def exact_d2(n: int) -> float:
     return integrate.quad(f, -np.inf, np.inf)[0]
 
 
-for n, printed in zip(range(2, 11), [1.128379, 1.692569, 2.058751, 2.325929, 2.534413,
-                                     2.704357, 2.847201, 2.970026, 3.077505], strict=True):
+for n, printed in zip(
+    range(2, 11),
+    [1.128379, 1.692569, 2.058751, 2.325929, 2.534413, 2.704357, 2.847201, 2.970026, 3.077505],
+    strict=True,
+):
     check(f"exact d2({n})", exact_d2(n), printed, 6)
 check("exact d2(25)", exact_d2(25), 3.930629, 6)
 

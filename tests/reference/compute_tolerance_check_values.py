@@ -25,12 +25,16 @@ def two_sided_k(n: int, p: float, c: float) -> float:
     nu = n - 1
 
     def r_of(x):
-        return optimize.brentq(lambda r: stats.norm.cdf(x + r) - stats.norm.cdf(x - r) - p,
-                               0.0, x + 10.0, xtol=1e-14)
+        return optimize.brentq(
+            lambda r: stats.norm.cdf(x + r) - stats.norm.cdf(x - r) - p, 0.0, x + 10.0, xtol=1e-14
+        )
 
     def conf(k):
-        f = lambda x: (stats.chi2.sf(nu * r_of(x) ** 2 / k**2, nu)  # noqa: E731
-                       * stats.norm.pdf(x, 0, 1 / math.sqrt(n)))
+        def f(x):
+            return stats.chi2.sf(nu * r_of(x) ** 2 / k**2, nu) * stats.norm.pdf(
+                x, 0, 1 / math.sqrt(n)
+            )
+
         return 2 * integrate.quad(f, 0, 10 / math.sqrt(n), epsabs=1e-12)[0]
 
     return optimize.brentq(lambda k: conf(k) - c, 1.0, 50.0, xtol=1e-10)
@@ -40,8 +44,12 @@ check("two-sided exact k (10, .95, .95)", two_sided_k(10, 0.95, 0.95), 3.393429,
 check("two-sided exact k (43, .90, .99)", two_sided_k(43, 0.90, 0.99), 2.222825, 6)
 
 zp, zc = stats.norm.ppf(0.90), stats.norm.ppf(0.99)
-check("one-sided exact k (43, .90, .99), scipy.stats.nct.ppf",
-      stats.nct.ppf(0.99, 42, zp * math.sqrt(43)) / math.sqrt(43), 1.873954, 6)
+check(
+    "one-sided exact k (43, .90, .99), scipy.stats.nct.ppf",
+    stats.nct.ppf(0.99, 42, zp * math.sqrt(43)) / math.sqrt(43),
+    1.873954,
+    6,
+)
 a = 1 - zc**2 / (2 * 42)
 b = zp**2 - zc**2 / 43
 k1 = (zp + math.sqrt(zp**2 - a * b)) / a
@@ -61,12 +69,16 @@ def smallest_n(conf_of_n, c):
 
 
 for p, c, one, two in [(0.95, 0.95, 59, 93), (0.90, 0.90, 22, 38), (0.99, 0.95, 299, 473)]:
-    check(f"distribution-free one-sided n ({p}, {c})",
-          smallest_n(lambda n, p=p: 1 - p**n, c), one, 0)
-    check(f"distribution-free two-sided n ({p}, {c})",
-          smallest_n(lambda n, p=p: 1 - p**n - n * p ** (n - 1) * (1 - p), c), two, 0)
-check("distribution-free one-sided n (0.90, 0.99)",
-      smallest_n(lambda n: 1 - 0.9**n, 0.99), 44, 0)
+    check(
+        f"distribution-free one-sided n ({p}, {c})", smallest_n(lambda n, p=p: 1 - p**n, c), one, 0
+    )
+    check(
+        f"distribution-free two-sided n ({p}, {c})",
+        smallest_n(lambda n, p=p: 1 - p**n - n * p ** (n - 1) * (1 - p), c),
+        two,
+        0,
+    )
+check("distribution-free one-sided n (0.90, 0.99)", smallest_n(lambda n: 1 - 0.9**n, 0.99), 44, 0)
 
 check("Rayleigh Pr{R > 3 sigma}", math.exp(-4.5), 0.011109, 6)
 check("chi2.sf(9, 2)", stats.chi2.sf(9, 2), 0.011109, 6)

@@ -33,15 +33,20 @@ def verdict_html(result) -> str:
     """The verdict sentence in a coloured box with its chip."""
     v = result.verdict
     if v is None and result.attribute:
-        return ('<div class="sk-verdict-box" style="border-color:'
-                f'{theme.VERDICTS["withheld"].color}">'
-                f'{verdict_chip(None, text=names.verdict_label(result), kind="withheld")}'
-                '<div style="margin-top:6px">Counted data are judged by their defective (or '
-                "defect) rate with its confidence interval below; no capability index "
-                "criterion applies.</div></div>")
+        return (
+            '<div class="sk-verdict-box" style="border-color:'
+            f'{theme.VERDICTS["withheld"].color}">'
+            f"{verdict_chip(None, text=names.verdict_label(result), kind='withheld')}"
+            '<div style="margin-top:6px">Counted data are judged by their defective (or '
+            "defect) rate with its confidence interval below; no capability index "
+            "criterion applies.</div></div>"
+        )
     if v is None:
-        text = ("No verdict: " + "; ".join(result.warnings)) if result.warnings else (
-            "No verdict: the characteristic has no specification limit to judge against.")
+        text = (
+            ("No verdict: " + "; ".join(result.warnings))
+            if result.warnings
+            else ("No verdict: the characteristic has no specification limit to judge against.")
+        )
         meets = None
     else:
         text, meets = v.text, v.meets
@@ -50,18 +55,25 @@ def verdict_html(result) -> str:
     colour = theme.VERDICTS[key].color
     crit = result.criteria
     label = names.index_label(crit.get("index") or "")
-    basis = ("lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
-             if crit.get("basis") == "lower_bound" else "estimate")
+    basis = (
+        "lower " + f"{float(crit.get('confidence', 0.95)) * 100:g}% bound"
+        if crit.get("basis") == "lower_bound"
+        else "estimate"
+    )
     also = ""
     if crit.get("interval_coverage") is not None:  # the tolerance-interval criterion
         from studykit.intervals import criterion_text
 
-        also = f"; and {esc(criterion_text(crit['interval_coverage'], crit['interval_confidence']))}"
-    return (f'<div class="sk-verdict-box" style="border-color:{colour}">'
-            f"{verdict_chip(meets, text=word, kind=key)}"
-            f"<div style=\"margin-top:6px\">{esc(text)}</div>"
-            f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
-            f"≥ {fmt(crit.get('threshold'), 2)}{also}</div></div>")
+        also = (
+            f"; and {esc(criterion_text(crit['interval_coverage'], crit['interval_confidence']))}"
+        )
+    return (
+        f'<div class="sk-verdict-box" style="border-color:{colour}">'
+        f"{verdict_chip(meets, text=word, kind=key)}"
+        f'<div style="margin-top:6px">{esc(text)}</div>'
+        f'<div class="sk-small" style="margin-top:4px">Criterion: {esc(label)} {esc(basis)} '
+        f"≥ {fmt(crit.get('threshold'), 2)}{also}</div></div>"
+    )
 
 
 def indices_html(result) -> str:
@@ -78,18 +90,25 @@ def indices_html(result) -> str:
         if est is None:
             continue
         b = (cap.bounds or {}).get(k) or {}
-        two = (f"{fmt(b.get('lower'), 2)} – {fmt(b.get('upper'), 2)}"
-               if b.get("lower") is not None else "—")
+        two = (
+            f"{fmt(b.get('lower'), 2)} – {fmt(b.get('upper'), 2)}"
+            if b.get("lower") is not None
+            else "—"
+        )
         mark = " (judged)" if k == judged else ""
-        body.append(f"<tr><td><b>{esc(names.index_label(k))}</b>{mark}</td>"
-                    f'<td class="num">{fmt(est, 2)}</td>'
-                    f'<td class="num">{fmt(b.get("lower_bound"), 2)}</td>'
-                    f'<td class="num">{two}</td>'
-                    f"<td>{esc(names.bound_method_label(b.get('method', '—')))}</td></tr>")
-    return ('<div class="sk-panel-title">Capability indices</div>'
-            '<table class="sk-table sk-indices"><thead><tr><th>Index</th><th>Estimate</th>'
-            f"<th>Lower {pct} bound (one-sided)</th><th>Two-sided {pct} interval</th>"
-            "<th>Bound method</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>")
+        body.append(
+            f"<tr><td><b>{esc(names.index_label(k))}</b>{mark}</td>"
+            f'<td class="num">{fmt(est, 2)}</td>'
+            f'<td class="num">{fmt(b.get("lower_bound"), 2)}</td>'
+            f'<td class="num">{two}</td>'
+            f"<td>{esc(names.bound_method_label(b.get('method', '—')))}</td></tr>"
+        )
+    return (
+        '<div class="sk-panel-title">Capability indices</div>'
+        '<table class="sk-table sk-indices"><thead><tr><th>Index</th><th>Estimate</th>'
+        f"<th>Lower {pct} bound (one-sided)</th><th>Two-sided {pct} interval</th>"
+        "<th>Bound method</th></tr></thead><tbody>" + "".join(body) + "</tbody></table>"
+    )
 
 
 def _ppm(v) -> str:
@@ -108,37 +127,44 @@ def ppm_html(result) -> str:
     cap = result.capability
     if cap is None:
         return ""
-    rows = [("Expected, within sigma", cap.ppm_within_below, cap.ppm_within_above,
-             cap.ppm_within),
-            ("Expected, overall", cap.ppm_overall_below, cap.ppm_overall_above,
-             cap.ppm_overall),
-            ("Observed in the data", cap.ppm_observed_below, cap.ppm_observed_above,
-             cap.ppm_observed)]
+    rows = [
+        ("Expected, within sigma", cap.ppm_within_below, cap.ppm_within_above, cap.ppm_within),
+        ("Expected, overall", cap.ppm_overall_below, cap.ppm_overall_above, cap.ppm_overall),
+        ("Observed in the data", cap.ppm_observed_below, cap.ppm_observed_above, cap.ppm_observed),
+    ]
     has_lsl = result.spec.get("lsl") is not None
     has_usl = result.spec.get("usl") is not None
-    body = "".join(f"<tr><td>{esc(n)}</td>"
-                   f'<td class="num">{_ppm(b) if has_lsl else "no LSL"}</td>'
-                   f'<td class="num">{_ppm(a) if has_usl else "no USL"}</td>'
-                   f'<td class="num"><b>{_ppm(t)}</b></td></tr>'
-                   for n, b, a, t in rows)
-    return ('<div class="sk-panel-title">Parts per million outside the limits</div>'
-            '<table class="sk-table sk-ppm"><thead><tr><th></th><th>Below LSL</th>'
-            "<th>Above USL</th><th>Total</th></tr></thead><tbody>" + body + "</tbody></table>"
-            f'<div class="sk-small">Method: {esc(names.bound_method_label(cap.method))}; model: '
-            f"{esc(names.model_label(cap.model))}.</div>")
+    body = "".join(
+        f"<tr><td>{esc(n)}</td>"
+        f'<td class="num">{_ppm(b) if has_lsl else "no LSL"}</td>'
+        f'<td class="num">{_ppm(a) if has_usl else "no USL"}</td>'
+        f'<td class="num"><b>{_ppm(t)}</b></td></tr>'
+        for n, b, a, t in rows
+    )
+    return (
+        '<div class="sk-panel-title">Parts per million outside the limits</div>'
+        '<table class="sk-table sk-ppm"><thead><tr><th></th><th>Below LSL</th>'
+        "<th>Above USL</th><th>Total</th></tr></thead><tbody>" + body + "</tbody></table>"
+        f'<div class="sk-small">Method: {esc(names.bound_method_label(cap.method))}; model: '
+        f"{esc(names.model_label(cap.model))}.</div>"
+    )
 
 
 def findings_html(result) -> str:
     items = list(result.findings)
     warnings = list(result.warnings)
     if not items and not warnings:
-        return ('<div class="sk-panel-title">Findings</div><div class="sk-muted">Nothing to '
-                "report beyond the numbers.</div>")
+        return (
+            '<div class="sk-panel-title">Findings</div><div class="sk-muted">Nothing to '
+            "report beyond the numbers.</div>"
+        )
     out = []
     for f in items:
         kind = {"warning": "warning", "error": "error"}.get(f.severity, "info")
-        out.append(f'<div class="sk-msg sk-msg-{kind}"><b>{esc(names.finding_title(f.code))}'
-                   f"</b>: {esc(f.text)}</div>")
+        out.append(
+            f'<div class="sk-msg sk-msg-{kind}"><b>{esc(names.finding_title(f.code))}'
+            f"</b>: {esc(f.text)}</div>"
+        )
     for w in warnings:
         out.append(f'<div class="sk-msg sk-msg-warning">{esc(w)}</div>')
     return '<div class="sk-panel-title">Findings</div>' + "".join(out)
@@ -148,11 +174,13 @@ def band_html(result) -> str:
     b = result.model_band
     if b is None:
         return ""
-    text = (f"Across the models the data do not reject, the judged index lies between "
-            f"{fmt(b.low, 2)} ({esc(names.model_list(b.low_models))}) and {fmt(b.high, 2)} "
-            f"({esc(names.model_list(b.high_models))}).")
-    warn = (f'<div class="sk-msg sk-msg-warning">{esc(b.warning)}</div>' if b.warning else "")
-    return (f'<div class="sk-panel-title">{names.MODEL_BAND}</div><div>{text}</div>{warn}')
+    text = (
+        f"Across the models the data do not reject, the judged index lies between "
+        f"{fmt(b.low, 2)} ({esc(names.model_list(b.low_models))}) and {fmt(b.high, 2)} "
+        f"({esc(names.model_list(b.high_models))})."
+    )
+    warn = f'<div class="sk-msg sk-msg-warning">{esc(b.warning)}</div>' if b.warning else ""
+    return f'<div class="sk-panel-title">{names.MODEL_BAND}</div><div>{text}</div>{warn}'
 
 
 def attribute_html(result) -> str:
@@ -169,23 +197,52 @@ def attribute_html(result) -> str:
             facts.append((label, text))
             shown.update(keys)
 
-    add("Inspected / defectives", f"{d.get('inspected')} / {d.get('defectives')} in "
-        f"{d.get('n_subgroups')} lots", "inspected", "defectives", "n_subgroups")
+    add(
+        "Inspected / defectives",
+        f"{d.get('inspected')} / {d.get('defectives')} in {d.get('n_subgroups')} lots",
+        "inspected",
+        "defectives",
+        "n_subgroups",
+    )
     if d.get("defective_rate") is not None:
-        add("Defective rate", f"{d['defective_rate'] * 100:.3f} % ({level} interval "
+        add(
+            "Defective rate",
+            f"{d['defective_rate'] * 100:.3f} % ({level} interval "
             f"{(d.get('defective_rate_lower') or 0) * 100:.3f} – "
             f"{(d.get('defective_rate_upper') or 0) * 100:.3f} %)",
-            "defective_rate", "defective_rate_lower", "defective_rate_upper")
-    add("PPM defective", f"{fmt(d.get('ppm_defective'), 0)} (upper {level} bound "
-        f"{fmt(d.get('ppm_defective_upper_95'), 0)})", "ppm_defective", "ppm_defective_upper_95")
-    add("Process Z", f"{fmt(d.get('z_process'), 2)} (lower {level} bound "
-        f"{fmt(d.get('z_process_lower_95'), 2)})", "z_process", "z_process_lower_95")
+            "defective_rate",
+            "defective_rate_lower",
+            "defective_rate_upper",
+        )
+    add(
+        "PPM defective",
+        f"{fmt(d.get('ppm_defective'), 0)} (upper {level} bound "
+        f"{fmt(d.get('ppm_defective_upper_95'), 0)})",
+        "ppm_defective",
+        "ppm_defective_upper_95",
+    )
+    add(
+        "Process Z",
+        f"{fmt(d.get('z_process'), 2)} (lower {level} bound {fmt(d.get('z_process_lower_95'), 2)})",
+        "z_process",
+        "z_process_lower_95",
+    )
     shown.update({"level", "defective_rate_upper_95"})
-    facts += [(k.replace("_", " ").capitalize(), fmt(v, 4) if isinstance(v, float) else
-               esc(names.bound_method_label(v) if k == "method" else v))
-              for k, v in d.items() if k not in shown]
-    return ('<div class="sk-panel-title">Counted data</div><dl class="sk-facts">'
-            + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in facts) + "</dl>")
+    facts += [
+        (
+            k.replace("_", " ").capitalize(),
+            fmt(v, 4)
+            if isinstance(v, float)
+            else esc(names.bound_method_label(v) if k == "method" else v),
+        )
+        for k, v in d.items()
+        if k not in shown
+    ]
+    return (
+        '<div class="sk-panel-title">Counted data</div><dl class="sk-facts">'
+        + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in facts)
+        + "</dl>"
+    )
 
 
 class CapabilityStep:
@@ -193,8 +250,10 @@ class CapabilityStep:
 
     key = "capability"
     title = names.STEP_NAMES[key]
-    guidance = ("Compare the process spread with the tolerance and read the verdict with its "
-                "confidence bound.")
+    guidance = (
+        "Compare the process spread with the tolerance and read the verdict with its "
+        "confidence bound."
+    )
 
     def __init__(self):
         self.ws = None
@@ -222,28 +281,58 @@ class CapabilityStep:
 
         self.interval = html_box("", "sk-tolerance-interval")  # ISO 16269-6 criterion panel
         self.position = PositionView()  # position studies kept beside the study
-        self.assumed = widgets.FloatSlider(min=1.0, max=3.0, step=0.01, value=2.0,
-                                           description="", readout_format=".2f",
-                                           continuous_update=False,
-                                           layout=widgets.Layout(width="420px"))
+        self.assumed = widgets.FloatSlider(
+            min=1.0,
+            max=3.0,
+            step=0.01,
+            value=2.0,
+            description="",
+            readout_format=".2f",
+            continuous_update=False,
+            layout=widgets.Layout(width="420px"),
+        )
         self.assumed.add_class("sk-plan-slider")
         self.plan = html_box("", "sk-plan")
         self.assumed.observe(guarded(lambda _c: self._on_plan(), messages=m), names="value")
-        self.planner = widgets.VBox([
-            html_box('<div class="sk-panel-title">Demonstration planner</div>'
-                     '<div class="sk-muted">If the process truly has this index, how many parts '
-                     "does a study need for its lower bound to reach the requirement?</div>"),
-            widgets.HBox([html_box('<div class="sk-field-label">Assumed index</div>'),
-                          self.assumed], layout=widgets.Layout(align_items="center")),
-            self.plan])
-        self.numbers = widgets.VBox([self.indices, self.chart, widgets.HBox(
-            [self.ppm, self.band], layout=widgets.Layout(flex_flow="row wrap"))])
+        self.planner = widgets.VBox(
+            [
+                html_box(
+                    '<div class="sk-panel-title">Demonstration planner</div>'
+                    '<div class="sk-muted">If the process truly has this index, how many parts '
+                    "does a study need for its lower bound to reach the requirement?</div>"
+                ),
+                widgets.HBox(
+                    [html_box('<div class="sk-field-label">Assumed index</div>'), self.assumed],
+                    layout=widgets.Layout(align_items="center"),
+                ),
+                self.plan,
+            ]
+        )
+        self.numbers = widgets.VBox(
+            [
+                self.indices,
+                self.chart,
+                widgets.HBox([self.ppm, self.band], layout=widgets.Layout(flex_flow="row wrap")),
+            ]
+        )
         self.refresh(context)
         self.chart.children = [self.live.widget("sk-interval-chart")]
         when_shown(context, self.key, self.live.resync)
-        return panel([panel_css(), ws.toolbar(), self.caution, self.verdict,
-                             self.numbers, self.interval, self.attribute, self.streams,
-                             self.findings, self.planner, self.position.widget])
+        return panel(
+            [
+                panel_css(),
+                ws.toolbar(),
+                self.caution,
+                self.verdict,
+                self.numbers,
+                self.interval,
+                self.attribute,
+                self.streams,
+                self.findings,
+                self.planner,
+                self.position.widget,
+            ]
+        )
 
     def shown(self, context) -> None:
         """The step is open again: bring its chart widget up to date."""
@@ -302,13 +391,16 @@ class CapabilityStep:
         if v is None or v.index not in _PLANNABLE:
             self.plan.value = ""
             return
-        plan = parts_needed(float(self.assumed.value), float(v.threshold), index=v.index,
-                            level=float(v.level))
+        plan = parts_needed(
+            float(self.assumed.value), float(v.threshold), index=v.index, level=float(v.level)
+        )
         n = "—" if plan.n is None else f"{plan.n}"
-        self.plan.value = (f'<div style="font-size:22px;font-weight:600;margin:6px 0">'
-                           f"{esc(n)} parts</div><div>{esc(plan.text)}</div>"
-                           f'<div class="sk-small">Study so far: {res.n} values. '
-                           f"{esc(plan.criterion)}.</div>")
+        self.plan.value = (
+            f'<div style="font-size:22px;font-weight:600;margin:6px 0">'
+            f"{esc(n)} parts</div><div>{esc(plan.text)}</div>"
+            f'<div class="sk-small">Study so far: {res.n} values. '
+            f"{esc(plan.criterion)}.</div>"
+        )
 
 
 STEP = CapabilityStep()

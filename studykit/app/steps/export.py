@@ -30,11 +30,13 @@ def download_link(data: bytes, filename: str, mime: str, *, label: str | None = 
     True
     """
     b64 = base64.b64encode(data).decode("ascii")
-    safe = re.sub(r'[^A-Za-z0-9_.-]+', "_", filename)
+    safe = re.sub(r"[^A-Za-z0-9_.-]+", "_", filename)
     size = f"{len(data) / 1024:.0f} KB" if len(data) >= 1024 else f"{len(data)} bytes"
-    return (f'<a class="sk-download" download="{esc(safe)}" href="data:{mime};base64,{b64}" '
-            f'style="font-weight:600">⬇ {esc(label or safe)}</a> <span class="sk-small">'
-            f"({size})</span>")
+    return (
+        f'<a class="sk-download" download="{esc(safe)}" href="data:{mime};base64,{b64}" '
+        f'style="font-weight:600">⬇ {esc(label or safe)}</a> <span class="sk-small">'
+        f"({size})</span>"
+    )
 
 
 def _report_functions():
@@ -74,21 +76,28 @@ class ExportStep:
             return no_study_panel("The export step")
         m = context.messages
         self.build_report, self.build_handoff = _report_functions()
-        self.pdf = widgets.Button(description="Make the PDF evidence", button_style="primary",
-                                  icon="file-pdf-o", layout=widgets.Layout(width="auto"))
+        self.pdf = widgets.Button(
+            description="Make the PDF evidence",
+            button_style="primary",
+            icon="file-pdf-o",
+            layout=widgets.Layout(width="auto"),
+        )
         self.pdf.add_class("sk-make-pdf")
-        self.handoff = widgets.Button(description="Make the hand-off zip", icon="archive",
-                                      layout=widgets.Layout(width="auto"))
+        self.handoff = widgets.Button(
+            description="Make the hand-off zip", icon="archive", layout=widgets.Layout(width="auto")
+        )
         self.handoff.add_class("sk-make-handoff")
-        self.json = widgets.Button(description="Results as JSON", icon="download",
-                                   layout=widgets.Layout(width="auto"))
+        self.json = widgets.Button(
+            description="Results as JSON", icon="download", layout=widgets.Layout(width="auto")
+        )
         self.json.add_class("sk-make-json")
-        self.notebook = widgets.Button(description="Analysis notebook", icon="book",
-                                       layout=widgets.Layout(width="auto"))
+        self.notebook = widgets.Button(
+            description="Analysis notebook", icon="book", layout=widgets.Layout(width="auto")
+        )
         self.notebook.add_class("sk-make-notebook")
-        self.progress = widgets.IntProgress(value=0, min=0, max=1,
-                                            layout=widgets.Layout(width="320px",
-                                                                  display="none"))
+        self.progress = widgets.IntProgress(
+            value=0, min=0, max=1, layout=widgets.Layout(width="320px", display="none")
+        )
         self.progress.add_class("sk-export-progress")
         self.progress_text = html_box("", "sk-small")
         self.links = html_box("", "sk-downloads")
@@ -106,9 +115,11 @@ class ExportStep:
             missing.append("the hand-off zip")
         note = ""
         if missing:
-            note = ('<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Not available'
-                    "</span>The report module is not available in this installation, so "
-                    f"{esc(' and '.join(missing))} cannot be made here.</div>")
+            note = (
+                '<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Not available'
+                "</span>The report module is not available in this installation, so "
+                f"{esc(' and '.join(missing))} cannot be made here.</div>"
+            )
         intro = html_box(
             '<div class="sk-panel-title" style="margin-top:0">Evidence</div>'
             '<div class="sk-muted">The PDF carries every number of this workbook, the digests '
@@ -116,61 +127,92 @@ class ExportStep:
             "hand-off zip holds the frozen phase-I limits for series production, shop-floor "
             "chart forms, the study file, the PDF and the analysis notebook. The analysis "
             "notebook recomputes every number of the report with the studykit library, step "
-            "by step, for a statistician to rerun.</div>" + note)
+            "by step, for a statistician to rerun.</div>" + note
+        )
         sign_box = self._build_signing(context)
         self.refresh(context)
-        return panel([panel_css(), intro, self.state,
-                             widgets.HBox([self.pdf, self.handoff, self.json, self.notebook],
-                                          layout=widgets.Layout(flex_flow="row wrap")),
-                             widgets.HBox([self.progress, self.progress_text],
-                                          layout=widgets.Layout(align_items="center")),
-                             self.links, sign_box])
+        return panel(
+            [
+                panel_css(),
+                intro,
+                self.state,
+                widgets.HBox(
+                    [self.pdf, self.handoff, self.json, self.notebook],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                widgets.HBox(
+                    [self.progress, self.progress_text], layout=widgets.Layout(align_items="center")
+                ),
+                self.links,
+                sign_box,
+            ]
+        )
 
     # --- signing the PDF with the signer's own certificate -----------------------------------
     def _build_signing(self, context) -> widgets.Widget:
         from studykit.study import SIGNOFF_ROLES
 
         m = context.messages
-        self.p12 = upload_button(accept=".p12,.pfx", multiple=False,
-                                      description="Choose certificate (.p12)",
-                                      layout=widgets.Layout(width="auto"))
+        self.p12 = upload_button(
+            accept=".p12,.pfx",
+            multiple=False,
+            description="Choose certificate (.p12)",
+            layout=widgets.Layout(width="auto"),
+        )
         self.p12.add_class("sk-p12")
-        self.passphrase = widgets.Password(placeholder="passphrase of the .p12",
-                                           layout=widgets.Layout(width="240px"))
+        self.passphrase = widgets.Password(
+            placeholder="passphrase of the .p12", layout=widgets.Layout(width="240px")
+        )
         self.passphrase.add_class("sk-p12-passphrase")
-        self.sign_role = widgets.Combobox(options=list(SIGNOFF_ROLES), value="prepared",
-                                          ensure_option=False,
-                                          layout=widgets.Layout(width="160px"))
+        self.sign_role = widgets.Combobox(
+            options=list(SIGNOFF_ROLES),
+            value="prepared",
+            ensure_option=False,
+            layout=widgets.Layout(width="160px"),
+        )
         self.sign_role.add_class("sk-pdf-role")
-        self.sign_pdf = widgets.Button(description="Sign the PDF with my certificate",
-                                       icon="certificate", disabled=True,
-                                       layout=widgets.Layout(width="auto"))
+        self.sign_pdf = widgets.Button(
+            description="Sign the PDF with my certificate",
+            icon="certificate",
+            disabled=True,
+            layout=widgets.Layout(width="auto"),
+        )
         self.sign_pdf.add_class("sk-sign-pdf")
         self.sign_hint = html_box("", "sk-small")
         self.signed_links = html_box("", "sk-signed-downloads")
         for w in (self.p12, self.passphrase, self.sign_role, self.ws.who):
-            w.observe(guarded(lambda _c: self._update_sign_button(), messages=m),
-                      names="value")
+            w.observe(guarded(lambda _c: self._update_sign_button(), messages=m), names="value")
         self.sign_pdf.on_click(guarded(self._on_sign_pdf_click, messages=m))
         self._update_sign_button()
 
         def field(label, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
 
-        return widgets.VBox([
-            html_box('<div class="sk-panel-title">Sign the PDF</div><div class="sk-muted">'
-                     "Add your digital signature (PAdES) to the PDF made above, with your own "
-                     "certificate. The .p12 file and its passphrase are used for this one "
-                     "signature and then dropped: never saved, never written to a log. Several "
-                     "signers sign in turn; each signature is added to the last signed PDF."
-                     "</div>"),
-            widgets.HBox([field("Your name (written into the signature)", self.ws.who),
-                          field("Certificate", self.p12), field("Passphrase", self.passphrase),
-                          field("Role", self.sign_role)],
-                         layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end")),
-            widgets.HBox([self.sign_pdf, self.sign_hint],
-                         layout=widgets.Layout(align_items="center")),
-            self.signed_links])
+        return widgets.VBox(
+            [
+                html_box(
+                    '<div class="sk-panel-title">Sign the PDF</div><div class="sk-muted">'
+                    "Add your digital signature (PAdES) to the PDF made above, with your own "
+                    "certificate. The .p12 file and its passphrase are used for this one "
+                    "signature and then dropped: never saved, never written to a log. Several "
+                    "signers sign in turn; each signature is added to the last signed PDF."
+                    "</div>"
+                ),
+                widgets.HBox(
+                    [
+                        field("Your name (written into the signature)", self.ws.who),
+                        field("Certificate", self.p12),
+                        field("Passphrase", self.passphrase),
+                        field("Role", self.sign_role),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"),
+                ),
+                widgets.HBox(
+                    [self.sign_pdf, self.sign_hint], layout=widgets.Layout(align_items="center")
+                ),
+                self.signed_links,
+            ]
+        )
 
     def _update_sign_button(self) -> None:
         from studykit.app.access import signing_refusal
@@ -221,7 +263,8 @@ class ExportStep:
         if digest != s.shown_digest:
             raise StudyInputError(
                 "the study changed after this PDF was made (its content digest differs), so the "
-                "PDF no longer shows the study as it is: make the PDF evidence again, then sign")
+                "PDF no longer shows the study as it is: make the PDF evidence again, then sign"
+            )
         files = self.p12.value
         if not files:
             raise StudyInputError("choose your .p12 certificate file")
@@ -232,9 +275,15 @@ class ExportStep:
             src = Path(d) / "in.pdf"
             out = Path(d) / "signed.pdf"
             src.write_bytes(data)
-            info = sign_report(src, out, p12_name, self.passphrase.value,
-                               role=self.sign_role.value, name=self.ws.who_name,
-                               p12_data=p12_data)
+            info = sign_report(
+                src,
+                out,
+                p12_name,
+                self.passphrase.value,
+                role=self.sign_role.value,
+                name=self.ws.who_name,
+                p12_data=p12_data,
+            )
             signed = out.read_bytes()
         del p12_data
         self._pdf = (signed, filename, digest)
@@ -244,14 +293,23 @@ class ExportStep:
         stem = filename[:-4] if filename.endswith(".pdf") else filename
         self.signed_links.value = (
             '<div style="margin:6px 0">'
-            + download_link(signed, f"{stem}-signed.pdf", "application/pdf",
-                            label=f"{stem}-signed.pdf ({n} signature{'s' if n != 1 else ''})")
-            + "</div>")
-        where = "in its box on the sign-off page" if info.visible else "(invisible: no box " \
-            "for this role)"
+            + download_link(
+                signed,
+                f"{stem}-signed.pdf",
+                "application/pdf",
+                label=f"{stem}-signed.pdf ({n} signature{'s' if n != 1 else ''})",
+            )
+            + "</div>"
+        )
+        where = (
+            "in its box on the sign-off page"
+            if info.visible
+            else "(invisible: no box for this role)"
+        )
         self.ws.context.messages.ok(
             f"Signed by {info.name} as {info.role} with the certificate of {info.subject} "
-            f"{where}. Download the signed PDF; `studykit verify` checks it.")
+            f"{where}. Download the signed PDF; `studykit verify` checks it."
+        )
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -260,17 +318,23 @@ class ExportStep:
         s = ws.session
         text = s.state_text()
         if s.is_locked:
-            self.state.value = ('<div class="sk-msg sk-msg-ok"><span class="sk-msg-kind">'
-                                "Approved</span>The evidence will show the valid approval."
-                                "</div>")
+            self.state.value = (
+                '<div class="sk-msg sk-msg-ok"><span class="sk-msg-kind">'
+                "Approved</span>The evidence will show the valid approval."
+                "</div>"
+            )
         elif text == "Approval voided":
-            self.state.value = ('<div class="sk-msg sk-msg-error"><span class="sk-msg-kind">'
-                                "Voided</span>The approval no longer holds: the evidence will "
-                                "say so. Sign again in the review step first.</div>")
+            self.state.value = (
+                '<div class="sk-msg sk-msg-error"><span class="sk-msg-kind">'
+                "Voided</span>The approval no longer holds: the evidence will "
+                "say so. Sign again in the review step first.</div>"
+            )
         else:
-            self.state.value = ('<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">'
-                                "Not approved</span>The evidence can be made now; it will show "
-                                "that nobody has approved the study yet.</div>")
+            self.state.value = (
+                '<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">'
+                "Not approved</span>The evidence can be made now; it will show "
+                "that nobody has approved the study yet.</div>"
+            )
 
     # --- work -----------------------------------------------------------------------------------
     def _progress(self, done: int, total: int, what: str) -> None:
@@ -311,9 +375,14 @@ class ExportStep:
             self.signed_links.value = ""
             self._update_sign_button()
         pages = getattr(info, "pages", None)
-        self._add_link(download_link(data, f"{_stem(s)}-evidence.pdf", "application/pdf",
-                                     label=f"{_stem(s)}-evidence.pdf"
-                                     + (f" ({pages} pages)" if pages else "")))
+        self._add_link(
+            download_link(
+                data,
+                f"{_stem(s)}-evidence.pdf",
+                "application/pdf",
+                label=f"{_stem(s)}-evidence.pdf" + (f" ({pages} pages)" if pages else ""),
+            )
+        )
         self.ws.context.messages.ok("The PDF evidence is ready: use the download link.")
 
     def _on_handoff(self) -> None:
@@ -336,7 +405,8 @@ class ExportStep:
             self.ws.context.messages.warning(
                 "The hand-off zip is a DRAFT, not for production: every chart form and limits "
                 "file is stamped DRAFT because not every characteristic is ready for series "
-                f"production ({reasons}){note}. Settle these, then make the pack again.")
+                f"production ({reasons}){note}. Settle these, then make the pack again."
+            )
         else:
             self.ws.context.messages.ok("The hand-off zip is ready" + note + ".")
 
@@ -357,15 +427,23 @@ class ExportStep:
 
         s = self.ws.session
         pdf_name = f"{_stem(s)}-evidence.pdf"
-        nb = analysis_notebook(s.path, study_ref=s.path.name,
-                               pdf_ref=pdf_name if self._pdf is not None else None)
-        self._add_link(download_link(notebook_bytes(nb), f"{_stem(s)}-analysis.ipynb",
-                                     "application/x-ipynb+json"))
-        where = (f"the study file {s.path.name} and {pdf_name}" if self._pdf is not None
-                 else f"the study file {s.path.name}")
+        nb = analysis_notebook(
+            s.path, study_ref=s.path.name, pdf_ref=pdf_name if self._pdf is not None else None
+        )
+        self._add_link(
+            download_link(
+                notebook_bytes(nb), f"{_stem(s)}-analysis.ipynb", "application/x-ipynb+json"
+            )
+        )
+        where = (
+            f"the study file {s.path.name} and {pdf_name}"
+            if self._pdf is not None
+            else f"the study file {s.path.name}"
+        )
         self.ws.context.messages.ok(
             f"The analysis notebook is ready: keep it in one folder with {where}, open it in "
-            "Jupyter and run all cells to recompute every number of the report.")
+            "Jupyter and run all cells to recompute every number of the report."
+        )
 
 
 STEP = ExportStep()

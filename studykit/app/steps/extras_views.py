@@ -53,31 +53,49 @@ def tolerance_interval_html(result) -> str:
     free = plan.get("distribution_free")
     normal = plan.get("normal")
     if ti.get("factor") is not None:
-        how = (f"x̄ ± k·s on the {esc(ti.get('scale'))} scale, k = {fmt(ti.get('factor'), 4)} "
-               f"({esc(ti.get('factor_method'))} factor, {esc(ti.get('model'))} model)")
+        how = (
+            f"x̄ ± k·s on the {esc(ti.get('scale'))} scale, k = {fmt(ti.get('factor'), 4)} "
+            f"({esc(ti.get('factor_method'))} factor, {esc(ti.get('model'))} model)"
+        )
     else:
         ranks = ", ".join("—" if r is None else str(r) for r in ti.get("order_statistics") or [])
-        how = (f"order statistics {esc(ranks)} (distribution-free; achieved confidence "
-               f"{fmt(ti.get('achieved_confidence'), 4)})")
+        how = (
+            f"order statistics {esc(ranks)} (distribution-free; achieved confidence "
+            f"{fmt(ti.get('achieved_confidence'), 4)})"
+        )
     rows = [
         ("Criterion", esc(ti.get("criterion"))),
         ("Interval", f"{'−∞' if lo is None else _g(lo)} … {'+∞' if hi is None else _g(hi)}"),
         ("Specification", f"{'—' if lsl is None else _g(lsl)} … {'—' if usl is None else _g(usl)}"),
         ("How", how + f"; {ti.get('n')} values"),
-        ("Parts the criterion needs",
-         (f"{free} with every part inside (no model assumed)" if free is not None
-          else "more than 100 000 with no model assumed")
-         + (f"; {normal} for a process like this one to pass with probability "
-            f"{fmt(plan.get('power'), 2)} (normal theory)" if normal is not None else "")),
+        (
+            "Parts the criterion needs",
+            (
+                f"{free} with every part inside (no model assumed)"
+                if free is not None
+                else "more than 100 000 with no model assumed"
+            )
+            + (
+                f"; {normal} for a process like this one to pass with probability "
+                f"{fmt(plan.get('power'), 2)} (normal theory)"
+                if normal is not None
+                else ""
+            ),
+        ),
     ]
     notes = "".join(f'<div class="sk-small">{esc(n)}</div>' for n in ti.get("notes") or [])
-    caution = (f'<div class="sk-msg sk-msg-warning">{esc(SAFETY_SENTENCE)}</div>'
-               if result.spec.get("safety_critical") else "")
-    return ('<div class="sk-panel-title">Tolerance interval (ISO 16269-6)</div>'
-            f"<div>{verdict_chip(meets, text=word)} {esc(ti.get('statement'))}</div>"
-            '<dl class="sk-facts">'
-            + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in rows)
-            + f"</dl>{notes}{caution}")
+    caution = (
+        f'<div class="sk-msg sk-msg-warning">{esc(SAFETY_SENTENCE)}</div>'
+        if result.spec.get("safety_critical")
+        else ""
+    )
+    return (
+        '<div class="sk-panel-title">Tolerance interval (ISO 16269-6)</div>'
+        f"<div>{verdict_chip(meets, text=word)} {esc(ti.get('statement'))}</div>"
+        '<dl class="sk-facts">'
+        + "".join(f"<dt>{esc(k)}</dt><dd>{v}</dd>" for k, v in rows)
+        + f"</dl>{notes}{caution}"
+    )
 
 
 def position_html(name: str, payload: Mapping, d: Mapping) -> str:
@@ -89,33 +107,47 @@ def position_html(name: str, payload: Mapping, d: Mapping) -> str:
     unit = payload.get("unit") or ""
     u = f" {esc(unit)}" if unit else ""
     body = "".join(
-        f"<tr><td>{esc(a)}</td><td class=\"num\">{b}</td><td class=\"num\">{c}</td></tr>"
+        f'<tr><td>{esc(a)}</td><td class="num">{b}</td><td class="num">{c}</td></tr>'
         for a, b, c in (
             ("Expected PPM outside the zone", _g(d.get("ppm_expected"), 4), _g(sc.get("ppm"), 4)),
             ("Equivalent index", fmt(d.get("index"), 3), fmt(sc.get("index"), 3)),
-            ("Mean", f"({fmt(d.get('mean_x'), 4)}, {fmt(d.get('mean_y'), 4)}){u}",
-             f"{fmt(sc.get('mean'), 4)}{u}"),
-            ("Spread", f"sd {fmt(d.get('sd_x'), 4)} / {fmt(d.get('sd_y'), 4)}{u}, "
-                       f"r = {fmt(d.get('correlation'), 3)}", f"sd {fmt(sc.get('sd'), 4)}{u}"),
-        ))
+            (
+                "Mean",
+                f"({fmt(d.get('mean_x'), 4)}, {fmt(d.get('mean_y'), 4)}){u}",
+                f"{fmt(sc.get('mean'), 4)}{u}",
+            ),
+            (
+                "Spread",
+                f"sd {fmt(d.get('sd_x'), 4)} / {fmt(d.get('sd_y'), 4)}{u}, "
+                f"r = {fmt(d.get('correlation'), 3)}",
+                f"sd {fmt(sc.get('sd'), 4)}{u}",
+            ),
+        )
+    )
     outside = d.get("outside_parts") or []
-    return (f'<div class="sk-panel-title">Position: {esc(name)}</div>'
-            f'<div class="sk-muted">{d.get("n")} parts, zone diameter '
-            f'{_g(d.get("tolerance"))}{u}'
-            + (f"; {esc(payload.get('description'))}" if payload.get("description") else "")
-            + "</div>"
-            '<table class="sk-table sk-position"><thead><tr><th></th>'
-            "<th>Two-dimensional model</th><th>One-dimensional shortcut</th></tr></thead>"
-            f"<tbody>{body}</tbody></table>"
-            f"<div>Observed: {d.get('observed_outside')} of {d.get('n')} parts outside the zone"
-            + (f" (parts {esc(', '.join(map(str, outside)))})" if outside else "") + ". "
-            f"{esc(comparison_sentence(d))}</div>"
-            '<div class="sk-small">Two-dimensional model: bivariate normal with offset, unequal '
-            "spreads and correlation, integrated outside the circular zone; the equivalent "
-            "index has the same expected PPM. Shortcut: 2·√(dx² + dy²) as normal against T "
-            "(bounded at zero and skewed, so it misjudges the tail).</div>"
-            + (f'<div class="sk-msg sk-msg-warning">{esc(SAFETY_SENTENCE)}</div>'
-               if payload.get("safety_critical") else ""))
+    return (
+        f'<div class="sk-panel-title">Position: {esc(name)}</div>'
+        f'<div class="sk-muted">{d.get("n")} parts, zone diameter '
+        f"{_g(d.get('tolerance'))}{u}"
+        + (f"; {esc(payload.get('description'))}" if payload.get("description") else "")
+        + "</div>"
+        '<table class="sk-table sk-position"><thead><tr><th></th>'
+        "<th>Two-dimensional model</th><th>One-dimensional shortcut</th></tr></thead>"
+        f"<tbody>{body}</tbody></table>"
+        f"<div>Observed: {d.get('observed_outside')} of {d.get('n')} parts outside the zone"
+        + (f" (parts {esc(', '.join(map(str, outside)))})" if outside else "")
+        + ". "
+        f"{esc(comparison_sentence(d))}</div>"
+        '<div class="sk-small">Two-dimensional model: bivariate normal with offset, unequal '
+        "spreads and correlation, integrated outside the circular zone; the equivalent "
+        "index has the same expected PPM. Shortcut: 2·√(dx² + dy²) as normal against T "
+        "(bounded at zero and skewed, so it misjudges the tail).</div>"
+        + (
+            f'<div class="sk-msg sk-msg-warning">{esc(SAFETY_SENTENCE)}</div>'
+            if payload.get("safety_critical")
+            else ""
+        )
+    )
 
 
 class PositionView:
@@ -126,14 +158,21 @@ class PositionView:
         self.choose.add_class("sk-position-choose")
         self.image = widgets.Image(format="png", layout=widgets.Layout(width="420px"))
         self.numbers = html_box("", "sk-position-numbers")
-        self.widget = widgets.VBox([
-            html_box('<div class="sk-panel-title">Position studies kept with this study</div>'
-                     '<div class="sk-muted">A true-position zone judged from X and Y deviations '
-                     "(for the whole study, whichever characteristic is open above).</div>"),
-            self.choose,
-            widgets.HBox([self.image, self.numbers],
-                         layout=widgets.Layout(flex_flow="row wrap", align_items="flex-start")),
-        ], layout=widgets.Layout(display="none"))
+        self.widget = widgets.VBox(
+            [
+                html_box(
+                    '<div class="sk-panel-title">Position studies kept with this study</div>'
+                    '<div class="sk-muted">A true-position zone judged from X and Y deviations '
+                    "(for the whole study, whichever characteristic is open above).</div>"
+                ),
+                self.choose,
+                widgets.HBox(
+                    [self.image, self.numbers],
+                    layout=widgets.Layout(flex_flow="row wrap", align_items="flex-start"),
+                ),
+            ],
+            layout=widgets.Layout(display="none"),
+        )
         self.widget.add_class("sk-position-view")
         self._positions: dict = {}
         self._key = None
@@ -168,7 +207,8 @@ class PositionView:
             return
         payload = self._positions[name]
         res = position_result(payload)
-        self.image.value = figure_png(position_figure(res, unit=payload.get("unit") or None,
-                                                      size=4.2), dpi=110)
+        self.image.value = figure_png(
+            position_figure(res, unit=payload.get("unit") or None, size=4.2), dpi=110
+        )
         self.numbers.value = position_html(name, payload, res.to_dict())
         self._drawn = name

@@ -36,7 +36,9 @@ def check_upload_size(size: int, *, filename: str, limit: int) -> None:
     if size > limit:
         raise DataFileError(
             f"the file is {_mb(size)}, above the upload limit of {_mb(limit)}; split it by "
-            "characteristic or remove unused columns and upload again", file=filename)
+            "characteristic or remove unused columns and upload again",
+            file=filename,
+        )
 
 
 def _sizes_text(sizes) -> str:
@@ -89,18 +91,26 @@ def measurements_html(m, *, filename: str = "") -> str:
             f"<tr><td>{esc(getattr(ch, 'name', '?'))}</td><td>{esc(getattr(ch, 'unit', None))}</td>"
             f'<td class="num">{esc(None if n_total is None else n_total - n_missing)}</td>'
             f'<td class="num">{n_missing}</td>'
-            f"<td>{_sizes_text(getattr(ch, 'subgroup_sizes', None))}</td></tr>")
-    out.append('<table class="sk-table sk-detected"><thead><tr><th>Characteristic</th>'
-               "<th>Unit</th><th>Values</th><th>Missing</th><th>Subgroup size</th></tr></thead>"
-               f"<tbody>{''.join(rows)}</tbody></table>")
+            f"<td>{_sizes_text(getattr(ch, 'subgroup_sizes', None))}</td></tr>"
+        )
+    out.append(
+        '<table class="sk-table sk-detected"><thead><tr><th>Characteristic</th>'
+        "<th>Unit</th><th>Values</th><th>Missing</th><th>Subgroup size</th></tr></thead>"
+        f"<tbody>{''.join(rows)}</tbody></table>"
+    )
     warnings = [str(w) for w in (getattr(m, "warnings", None) or [])]
     notes = [str(n) for n in (getattr(m, "notes", None) or [])]
-    out += [f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
-            f"{esc(t)}</div>" for t in warnings]
+    out += [
+        f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>{esc(t)}</div>'
+        for t in warnings
+    ]
     if notes:
-        out.append('<div class="sk-muted sk-notes" style="margin-top:8px">How the file was read:'
-                   '<ul style="margin:4px 0 0 0;padding-left:20px">'
-                   + "".join(f"<li>{esc(t)}</li>" for t in notes) + "</ul></div>")
+        out.append(
+            '<div class="sk-muted sk-notes" style="margin-top:8px">How the file was read:'
+            '<ul style="margin:4px 0 0 0;padding-left:20px">'
+            + "".join(f"<li>{esc(t)}</li>" for t in notes)
+            + "</ul></div>"
+        )
     return "".join(out)
 
 
@@ -109,8 +119,10 @@ class IntakeStep:
 
     key = "intake"
     title = names.STEP_NAMES[key]
-    guidance = ("Upload the measurement file (CSV or Excel) and check what was found in it "
-                "before confirming.")
+    guidance = (
+        "Upload the measurement file (CSV or Excel) and check what was found in it "
+        "before confirming."
+    )
 
     def __init__(self):
         self._pending = None  # read but not yet confirmed
@@ -121,11 +133,14 @@ class IntakeStep:
 
     def build(self, context) -> widgets.Widget:
         limit = context.max_upload_bytes
-        self._upload = upload_button(accept=ACCEPT, multiple=False,
-                                          description="Choose measurement file",
-                                          button_style="primary", icon="upload",
-                                          layout=widgets.Layout(width="auto",
-                                                                align_self="flex-start"))
+        self._upload = upload_button(
+            accept=ACCEPT,
+            multiple=False,
+            description="Choose measurement file",
+            button_style="primary",
+            icon="upload",
+            layout=widgets.Layout(width="auto", align_self="flex-start"),
+        )
         self._upload.add_class("sk-upload")
         # the page's upload guard (studykit.app.server_guard) refuses a larger file in the
         # browser, with a message, before any byte is sent
@@ -133,33 +148,43 @@ class IntakeStep:
         intro = html_box(
             f'<div class="sk-muted">CSV, TXT or Excel, one file of at most {_mb(limit)}. '
             "Wide tables (one column per characteristic) and long tables (characteristic, "
-            "subgroup, value) are both recognised. The file is read, never run.</div>")
+            "subgroup, value) are both recognised. The file is read, never run.</div>"
+        )
         self._result = html_box("", "sk-intake-result")
-        self._confirm = widgets.Button(description="Use this data", button_style="primary",
-                                       icon="check", disabled=True)
+        self._confirm = widgets.Button(
+            description="Use this data", button_style="primary", icon="check", disabled=True
+        )
         self._discard = widgets.Button(description="Discard", disabled=True)
         self._confirm.add_class("sk-confirm")
-        self._actions = widgets.HBox([self._confirm, self._discard],
-                                     layout=widgets.Layout(display="none"))
-        self._pick = widgets.Dropdown(description="Look at", options=[],
-                                      layout=widgets.Layout(width="360px"))
+        self._actions = widgets.HBox(
+            [self._confirm, self._discard], layout=widgets.Layout(display="none")
+        )
+        self._pick = widgets.Dropdown(
+            description="Look at", options=[], layout=widgets.Layout(width="360px")
+        )
         self._chart_box = widgets.VBox([])
-        self._chart_area = widgets.VBox([self._pick, self._chart_box],
-                                        layout=widgets.Layout(display="none"))
+        self._chart_area = widgets.VBox(
+            [self._pick, self._chart_box], layout=widgets.Layout(display="none")
+        )
         self._chart_area.add_class("sk-intake-chart")
         self._figure = None
 
         messages = context.messages
-        self._upload.observe(guarded(lambda change: self._on_upload(context, change),
-                                     messages=messages), names="value")
+        self._upload.observe(
+            guarded(lambda change: self._on_upload(context, change), messages=messages),
+            names="value",
+        )
         self._confirm.on_click(guarded(lambda _b: self._on_confirm(context), messages=messages))
         self._discard.on_click(guarded(lambda _b: self._on_discard(context), messages=messages))
-        self._pick.observe(guarded(lambda change: self._show_chart(change["new"]),
-                                   messages=messages), names="value")
+        self._pick.observe(
+            guarded(lambda change: self._show_chart(change["new"]), messages=messages),
+            names="value",
+        )
         self._newstudy = _new_study_panel(context)
         self.refresh(context)
-        return widgets.VBox([intro, self._upload, self._result, self._actions,
-                             self._chart_area, self._newstudy])
+        return widgets.VBox(
+            [intro, self._upload, self._result, self._actions, self._chart_area, self._newstudy]
+        )
 
     def refresh(self, context) -> None:
         if getattr(self, "_newstudy", None) is not None:
@@ -169,7 +194,8 @@ class IntakeStep:
                 '<div class="sk-msg sk-msg-ok"><span class="sk-msg-kind">In use</span>'
                 f"{esc(self._pending_name or 'the confirmed file')} "
                 f"({len(context.characteristics)} characteristics). Upload another file to "
-                "replace it.</div>")
+                "replace it.</div>"
+            )
 
     # --- callbacks (wrapped in guarded by build) ------------------------------------------------
     def _on_upload(self, context, change) -> None:
@@ -184,13 +210,13 @@ class IntakeStep:
         self._set_pending(None, "")
         check_upload_size(max(size, len(content)), filename=name, limit=context.max_upload_bytes)
         if size == 0 or len(content) == 0:
-            raise DataFileError("the file is empty; choose the file that holds the measurements",
-                                file=name)
+            raise DataFileError(
+                "the file is empty; choose the file that holds the measurements", file=name
+            )
         m = context.read_measurements(bytes(content), name)
         self._pending_bytes = bytes(content)  # kept for a new study made from this file
         self._set_pending(m, name)
-        context.messages.info(f"Read '{name}': check what was found, then press "
-                              "'Use this data'.")
+        context.messages.info(f"Read '{name}': check what was found, then press 'Use this data'.")
 
     def _set_pending(self, m, name: str) -> None:
         self._pending, self._pending_name = m, name

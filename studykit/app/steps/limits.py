@@ -27,8 +27,10 @@ def _number_or_none(text: str, *, name: str):
     try:
         return float(text)
     except ValueError:
-        raise SpecError(f"`{name}` ({text!r}) is not a number: write it like 12.03, or leave it "
-                        "empty for no limit") from None
+        raise SpecError(
+            f"`{name}` ({text!r}) is not a number: write it like 12.03, or leave it "
+            "empty for no limit"
+        ) from None
 
 
 def _show(v) -> str:
@@ -40,8 +42,10 @@ class LimitsStep:
 
     key = "limits"
     title = names.STEP_NAMES[key]
-    guidance = ("Check every characteristic at a glance, then set each one's specification "
-                "limits, target and acceptance criterion (changes are recorded with a reason).")
+    guidance = (
+        "Check every characteristic at a glance, then set each one's specification "
+        "limits, target and acceptance criterion (changes are recorded with a reason)."
+    )
 
     def __init__(self):
         self.ws = None
@@ -59,26 +63,35 @@ class LimitsStep:
         self.usl = widgets.Text(layout=lay, placeholder="none")
         self.target = widgets.Text(layout=lay, placeholder="none")
         self.safety = widgets.Checkbox(description="Safety-critical", indent=False)
-        self.index = widgets.Dropdown(options=[(i[0].upper() + i[1:], i) for i in INDICES],
-                                      layout=widgets.Layout(width="110px"))
-        self.threshold = widgets.BoundedFloatText(min=0.01, max=10, step=0.01,
-                                                  layout=widgets.Layout(width="110px"))
-        self.basis = widgets.Dropdown(options=[("lower confidence bound", "lower_bound"),
-                                               ("point estimate", "estimate")],
-                                      layout=widgets.Layout(width="200px"))
+        self.index = widgets.Dropdown(
+            options=[(i[0].upper() + i[1:], i) for i in INDICES],
+            layout=widgets.Layout(width="110px"),
+        )
+        self.threshold = widgets.BoundedFloatText(
+            min=0.01, max=10, step=0.01, layout=widgets.Layout(width="110px")
+        )
+        self.basis = widgets.Dropdown(
+            options=[("lower confidence bound", "lower_bound"), ("point estimate", "estimate")],
+            layout=widgets.Layout(width="200px"),
+        )
         # the tolerance-interval criterion beside the index (ISO 16269-6), in percent
-        self.interval_on = widgets.Checkbox(description="Also judge a tolerance interval",
-                                            indent=False)
+        self.interval_on = widgets.Checkbox(
+            description="Also judge a tolerance interval", indent=False
+        )
         self.interval_on.add_class("sk-interval-on")
-        self.interval_p = widgets.BoundedFloatText(value=99.0, min=50.0, max=99.9999,
-                                                   step=0.1, layout=widgets.Layout(width="110px"))
-        self.interval_c = widgets.BoundedFloatText(value=95.0, min=50.0, max=99.99, step=0.5,
-                                                   layout=widgets.Layout(width="110px"))
-        self.reason = widgets.Text(placeholder="why, e.g. 'drawing rev C, ECN-118'",
-                                   layout=widgets.Layout(width="420px"))
+        self.interval_p = widgets.BoundedFloatText(
+            value=99.0, min=50.0, max=99.9999, step=0.1, layout=widgets.Layout(width="110px")
+        )
+        self.interval_c = widgets.BoundedFloatText(
+            value=95.0, min=50.0, max=99.99, step=0.5, layout=widgets.Layout(width="110px")
+        )
+        self.reason = widgets.Text(
+            placeholder="why, e.g. 'drawing rev C, ECN-118'", layout=widgets.Layout(width="420px")
+        )
         self.reason.add_class("sk-spec-reason")
-        self.save = widgets.Button(description="Save specification", button_style="primary",
-                                   icon="save", disabled=True)
+        self.save = widgets.Button(
+            description="Save specification", button_style="primary", icon="save", disabled=True
+        )
         self.save.add_class("sk-spec-save")
         self.hint = html_box("", "sk-small")
         for w in (self.reason, ws.who):
@@ -91,25 +104,50 @@ class LimitsStep:
         def field(label, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
 
-        form = widgets.VBox([
-            widgets.HBox([field("Lower limit (LSL)", self.lsl), field("Upper limit (USL)",
-                                                                      self.usl),
-                          field("Target", self.target), field("", self.safety)],
-                         layout=widgets.Layout(flex_flow="row wrap")),
-            widgets.HBox([field("Index judged", self.index), field("At least", self.threshold),
-                          field("Judged on", self.basis)],
-                         layout=widgets.Layout(flex_flow="row wrap")),
-            widgets.HBox([field("", self.interval_on),
-                          field("Parts within specification, at least (%)", self.interval_p),
-                          field("Confidence (%)", self.interval_c)],
-                         layout=widgets.Layout(flex_flow="row wrap")),
-            field("Reason for the change (required)", self.reason),
-            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
-        ])
+        form = widgets.VBox(
+            [
+                widgets.HBox(
+                    [
+                        field("Lower limit (LSL)", self.lsl),
+                        field("Upper limit (USL)", self.usl),
+                        field("Target", self.target),
+                        field("", self.safety),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                widgets.HBox(
+                    [
+                        field("Index judged", self.index),
+                        field("At least", self.threshold),
+                        field("Judged on", self.basis),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                widgets.HBox(
+                    [
+                        field("", self.interval_on),
+                        field("Parts within specification, at least (%)", self.interval_p),
+                        field("Confidence (%)", self.interval_c),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                field("Reason for the change (required)", self.reason),
+                widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
+            ]
+        )
         form.add_class("sk-spec-form")
         self.refresh(context)
-        return panel([panel_css(), self.overview, ws.toolbar(), self.heading,
-                             self.caution, form, self.history])
+        return panel(
+            [
+                panel_css(),
+                self.overview,
+                ws.toolbar(),
+                self.heading,
+                self.caution,
+                form,
+                self.history,
+            ]
+        )
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -123,9 +161,11 @@ class LimitsStep:
         self._drawn = key
         spec = s.study.characteristic(s.current)
         crit = s.study.criteria_for(s.current)
-        self.heading.value = (f'<div class="sk-panel-title">Specification of '
-                              f"{esc(spec.name)}{' (' + esc(spec.unit) + ')' if spec.unit else ''}"
-                              f"</div><div class=\"sk-muted\">{esc(spec.description)}</div>")
+        self.heading.value = (
+            f'<div class="sk-panel-title">Specification of '
+            f"{esc(spec.name)}{' (' + esc(spec.unit) + ')' if spec.unit else ''}"
+            f'</div><div class="sk-muted">{esc(spec.description)}</div>'
+        )
         self.caution.children = [caution_banner()] if spec.safety_critical else []
         self.lsl.value, self.usl.value = _show(spec.lsl), _show(spec.usl)
         self.target.value = _show(spec.target)
@@ -137,23 +177,41 @@ class LimitsStep:
             self.interval_p.value = round(100 * crit.interval_coverage, 6)
             self.interval_c.value = round(100 * crit.interval_confidence, 6)
         attribute = spec.is_attribute
-        for w in (self.lsl, self.usl, self.target, self.index, self.threshold, self.basis,
-                  self.interval_on, self.interval_p, self.interval_c):
+        for w in (
+            self.lsl,
+            self.usl,
+            self.target,
+            self.index,
+            self.threshold,
+            self.basis,
+            self.interval_on,
+            self.interval_p,
+            self.interval_c,
+        ):
             w.disabled = attribute
         self.reason.value = ""
-        rows = [d for d in s.study.decisions if d.characteristic == spec.name
-                and d.action in ("set_spec", "set_criteria")]
+        rows = [
+            d
+            for d in s.study.decisions
+            if d.characteristic == spec.name and d.action in ("set_spec", "set_criteria")
+        ]
         if rows:
             body = "".join(
                 f"<tr><td>{esc(d.when.replace('T', ' ').rstrip('Z'))}</td><td>{esc(d.who)}</td>"
-                f"<td>{esc(_change_text(d))}</td><td>{esc(d.reason)}</td></tr>" for d in rows)
-            self.history.value = ('<div class="sk-panel-title">Changes on record</div>'
-                                  '<table class="sk-table"><thead><tr><th>When (UTC)</th>'
-                                  "<th>Who</th><th>Change</th><th>Reason</th></tr></thead>"
-                                  f"<tbody>{body}</tbody></table>")
+                f"<td>{esc(_change_text(d))}</td><td>{esc(d.reason)}</td></tr>"
+                for d in rows
+            )
+            self.history.value = (
+                '<div class="sk-panel-title">Changes on record</div>'
+                '<table class="sk-table"><thead><tr><th>When (UTC)</th>'
+                "<th>Who</th><th>Change</th><th>Reason</th></tr></thead>"
+                f"<tbody>{body}</tbody></table>"
+            )
         else:
-            self.history.value = ('<div class="sk-small" style="margin-top:10px">No change '
-                                  "since the study was created.</div>")
+            self.history.value = (
+                '<div class="sk-small" style="margin-top:10px">No change '
+                "since the study was created.</div>"
+            )
         self._update_buttons()
 
     def _update_buttons(self) -> None:
@@ -171,22 +229,32 @@ class LimitsStep:
         spec = {"safety_critical": bool(self.safety.value)}
         crit = None
         if not s.study.characteristic(name).is_attribute:
-            spec.update(lsl=_number_or_none(self.lsl.value, name="lsl"),
-                        usl=_number_or_none(self.usl.value, name="usl"),
-                        target=_number_or_none(self.target.value, name="target"))
+            spec.update(
+                lsl=_number_or_none(self.lsl.value, name="lsl"),
+                usl=_number_or_none(self.usl.value, name="usl"),
+                target=_number_or_none(self.target.value, name="target"),
+            )
             on = bool(self.interval_on.value)
-            crit = Criteria(index=self.index.value, threshold=float(self.threshold.value),
-                            basis=self.basis.value,
-                            confidence=s.study.criteria_for(name).confidence,
-                            interval_coverage=float(self.interval_p.value) / 100 if on else None,
-                            interval_confidence=float(self.interval_c.value) / 100 if on
-                            else None)
-        changed = s.update_characteristic(name, who=ws.who_name, reason=self.reason.value,
-                                          spec=spec, criteria=crit,
-                                          override_reason=ws.override_reason)
+            crit = Criteria(
+                index=self.index.value,
+                threshold=float(self.threshold.value),
+                basis=self.basis.value,
+                confidence=s.study.criteria_for(name).confidence,
+                interval_coverage=float(self.interval_p.value) / 100 if on else None,
+                interval_confidence=float(self.interval_c.value) / 100 if on else None,
+            )
+        changed = s.update_characteristic(
+            name,
+            who=ws.who_name,
+            reason=self.reason.value,
+            spec=spec,
+            criteria=crit,
+            override_reason=ws.override_reason,
+        )
         if changed:
-            ws.context.messages.ok(f"Specification of {name} saved with your reason; the "
-                                   "analysis was updated.")
+            ws.context.messages.ok(
+                f"Specification of {name} saved with your reason; the analysis was updated."
+            )
         else:
             ws.context.messages.info(f"Nothing changed in the specification of {name}.")
 
@@ -194,8 +262,9 @@ class LimitsStep:
 def _change_text(d) -> str:
     if d.action == "set_spec":
         old = d.payload.get("old", {})
-        return "; ".join(f"{k}: {old.get(k)!r} → {v!r}" for k, v in
-                         d.payload.get("changes", {}).items())
+        return "; ".join(
+            f"{k}: {old.get(k)!r} → {v!r}" for k, v in d.payload.get("changes", {}).items()
+        )
     crit = d.payload.get("criteria", {})
     try:
         return "criterion: " + Criteria.from_dict(crit).describe()

@@ -73,16 +73,21 @@ STATUS_KIND = {
 }
 
 #: The figures shown (keys of :func:`studykit.report.gauge_figures.story`), with their titles.
-FIGURE_TITLES = {key: _gauge_figures.LABELS[key]
-                 for key in ("sources", "readings", "repeatability")}
+FIGURE_TITLES = {
+    key: _gauge_figures.LABELS[key] for key in ("sources", "readings", "repeatability")
+}
 
 #: Words of the verdict box's key numbers (the gauge tables' words, for one vocabulary).
-_GAUGE_FACTS = {"share_study": f"{names.GAUGE_TOTAL}, share of study spread",
-                "share_tolerance": f"{names.GAUGE_TOTAL}, share of tolerance"}
-_BANDS_NOTE = (f"Bands: {names.GAUGE_TOTAL} below 10 % of the study spread acceptable, 10 to 30 % "
-               "conditionally acceptable, above 30 % not acceptable; at least 5 distinct "
-               "categories. These are common practice: "
-               "the customer's rule governs.")
+_GAUGE_FACTS = {
+    "share_study": f"{names.GAUGE_TOTAL}, share of study spread",
+    "share_tolerance": f"{names.GAUGE_TOTAL}, share of tolerance",
+}
+_BANDS_NOTE = (
+    f"Bands: {names.GAUGE_TOTAL} below 10 % of the study spread acceptable, 10 to 30 % "
+    "conditionally acceptable, above 30 % not acceptable; at least 5 distinct "
+    "categories. These are common practice: "
+    "the customer's rule governs."
+)
 
 #: Header words that suggest each role (lower case, whole words of the header).
 _ROLE_WORDS = {
@@ -127,7 +132,8 @@ def gauge_result_from_payload(payload: Mapping):
         raise StudyInputError(
             f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
             "numbers are shown, but the figures need the readings: run the study again from "
-            "its data file to attach a complete result") from None
+            "its data file to attach a complete result"
+        ) from None
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
@@ -175,8 +181,7 @@ def guess_columns(headers) -> dict:
     {'part': 'a', 'appraiser': 'b', 'trial': None, 'value': 'c'}
     """
     headers = [str(h) for h in headers]
-    chosen: dict[str, str | None] = {"part": None, "appraiser": None, "trial": None,
-                                     "value": None}
+    chosen: dict[str, str | None] = {"part": None, "appraiser": None, "trial": None, "value": None}
     used: set[str] = set()
     # the most specific roles first: "reading" names a trial before a value
     for role in ("part", "appraiser", "trial", "value"):
@@ -197,9 +202,15 @@ def guess_columns(headers) -> dict:
     return chosen
 
 
-def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
-                      appraiser: str | None = None, value: str | None = None,
-                      trial: str | None = None) -> dict:
+def read_gauge_upload(
+    data: bytes,
+    filename: str,
+    *,
+    part: str | None = None,
+    appraiser: str | None = None,
+    value: str | None = None,
+    trial: str | None = None,
+) -> dict:
     """Read an uploaded long gauge table (bytes) with :func:`studykit.io.gauge_table.read_gauge_table`.
 
     Without ``part``/``appraiser``/``value`` only the headers are read:
@@ -220,10 +231,11 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the gauge table as CSV "
-            "(comma, semicolon or tab separated) or as an Excel file (.xlsx)", file=name)
+            "(comma, semicolon or tab separated) or as an Excel file (.xlsx)",
+            file=name,
+        )
     if not data:
-        raise DataFileError("the file is empty; choose the file that holds the readings",
-                            file=name)
+        raise DataFileError("the file is empty; choose the file that holds the readings", file=name)
     with tempfile.TemporaryDirectory(prefix="studykit-gauge-") as tmp:
         path = Path(tmp) / ("upload" + suffix)
         path.write_bytes(bytes(data))
@@ -233,11 +245,13 @@ def read_gauge_upload(data: bytes, filename: str, *, part: str | None = None,
                 return {"headers": headers}
             from studykit.io.gauge_table import read_gauge_table
 
-            table = read_gauge_table(path, part=part, appraiser=appraiser, value=value,
-                                     trial=trial or None)
+            table = read_gauge_table(
+                path, part=part, appraiser=appraiser, value=value, trial=trial or None
+            )
         except StudyInputError as exc:
-            raise type(exc)(exc.detail, file=name, row=exc.row, column=exc.column,
-                            value=exc.value) from None
+            raise type(exc)(
+                exc.detail, file=name, row=exc.row, column=exc.column, value=exc.value
+            ) from None
     return {"headers": headers, **table}
 
 
@@ -248,8 +262,9 @@ def _headers(path: Path) -> list[str]:
         if path.suffix.lower() in (".xlsx", ".xlsm"):
             frame = pd.read_excel(path, nrows=0)
         else:
-            frame = pd.read_csv(path, sep=None, engine="python", nrows=5, dtype=str,
-                                encoding="utf-8-sig")
+            frame = pd.read_csv(
+                path, sep=None, engine="python", nrows=5, dtype=str, encoding="utf-8-sig"
+            )
     except (ValueError, OSError, UnicodeDecodeError, ImportError) as exc:
         raise DataFileError(f"cannot read the table: {exc}") from None
     headers = [str(c).strip() for c in frame.columns]
@@ -257,15 +272,18 @@ def _headers(path: Path) -> list[str]:
         raise DataFileError(
             f"the table has {len(headers)} column{'s' if len(headers) != 1 else ''} "
             f"({', '.join(repr(h) for h in headers)}); a gauge table needs one row per reading "
-            "with at least part, appraiser and value columns (and best a trial column)")
+            "with at least part, appraiser and value columns (and best a trial column)"
+        )
     return headers
 
 
 def _chip(status: str | None) -> str:
     kind, word = STATUS_KIND.get(status or "", ("pending", names.VERDICT_STATES["no_verdict"]))
     v = theme.VERDICTS[kind]
-    return (f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
-            f'border-color:{v.color}">{v.symbol} {esc(word)}</span>')
+    return (
+        f'<span class="sk-chip" style="color:{v.text_color};background:{v.background};'
+        f'border-color:{v.color}">{v.symbol} {esc(word)}</span>'
+    )
 
 
 def _num(v) -> str:
@@ -280,8 +298,13 @@ def _pct(v) -> str:
     return "—" if v is None else f"{fmt(v, 1)} %"
 
 
-def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None = None,
-                 title: str = "Measurement system") -> str:
+def verdict_html(
+    payload: Mapping,
+    *,
+    who: str | None = None,
+    when: str | None = None,
+    title: str = "Measurement system",
+) -> str:
     """The verdict box of a gauge payload: chip, plain words, key numbers, where it came from.
 
     Examples
@@ -299,16 +322,30 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
     ndc_text = "—" if ndc is None else str(ndc)
     if v.get("ndc_ok") is False:
         ndc_text += " (below 5)"
-    facts = [(_GAUGE_FACTS["share_study"], _pct(v.get("pct_grr_study_variation"))),
-             (_GAUGE_FACTS["share_tolerance"], _pct(v.get("pct_grr_tolerance"))
-              if payload.get("tolerance") is not None else "no tolerance given"),
-             ("Distinct categories (ndc)", ndc_text),
-             ("Design", f"{payload.get('n_parts', '?')} parts × "
-                        f"{payload.get('n_appraisers', '?')} appraisers × "
-                        f"{payload.get('n_trials', '?')} trials")]
+    facts = [
+        (_GAUGE_FACTS["share_study"], _pct(v.get("pct_grr_study_variation"))),
+        (
+            _GAUGE_FACTS["share_tolerance"],
+            _pct(v.get("pct_grr_tolerance"))
+            if payload.get("tolerance") is not None
+            else "no tolerance given",
+        ),
+        ("Distinct categories (ndc)", ndc_text),
+        (
+            "Design",
+            f"{payload.get('n_parts', '?')} parts × "
+            f"{payload.get('n_appraisers', '?')} appraisers × "
+            f"{payload.get('n_trials', '?')} trials",
+        ),
+    ]
     if payload.get("tolerance") is not None:
-        facts.append(("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"
-                                   f" (width {_num(payload.get('tolerance'))})"))
+        facts.append(
+            (
+                "Tolerance",
+                f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"
+                f" (width {_num(payload.get('tolerance'))})",
+            )
+        )
     source = payload.get("source_file") or payload.get("source")
     if source:
         facts.append(("Data file", str(source)))
@@ -318,14 +355,16 @@ def verdict_html(payload: Mapping, *, who: str | None = None, when: str | None =
     if payload.get("reason"):
         facts.append(("Reason", str(payload["reason"])))
     advice = v.get("advice") or ""
-    return (f'<div class="sk-verdict-box sk-gauge-verdict" style="border-color:{colour}">'
-            f'<div style="display:flex;gap:10px;align-items:center;flex-wrap:wrap">'
-            f'<span style="font-weight:600">{esc(title)}</span>{_chip(status)}</div>'
-            f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
-            + (f'<div style="margin-top:6px">{esc(advice)}</div>' if advice else "")
-            + '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
-            + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
-            + "</table></div>")
+    return (
+        f'<div class="sk-verdict-box sk-gauge-verdict" style="border-color:{colour}">'
+        f'<div style="display:flex;gap:10px;align-items:center;flex-wrap:wrap">'
+        f'<span style="font-weight:600">{esc(title)}</span>{_chip(status)}</div>'
+        f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
+        + (f'<div style="margin-top:6px">{esc(advice)}</div>' if advice else "")
+        + '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
+        + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
+        + "</table></div>"
+    )
 
 
 def components_html(payload: Mapping) -> str:
@@ -345,24 +384,35 @@ def components_html(payload: Mapping) -> str:
         if c.get("set_to_zero"):
             ci = "estimate negative, set to 0"
         strong = ' style="font-weight:600"' if name in ("gauge_rr", "total") else ""
-        cells = [fmt(c.get("variance"), 7), _pct(c.get("pct_contribution")),
-                 fmt(c.get("sigma"), 5), ci, fmt(c.get("study_variation"), 5),
-                 _pct(c.get("pct_study_variation"))]
+        cells = [
+            fmt(c.get("variance"), 7),
+            _pct(c.get("pct_contribution")),
+            fmt(c.get("sigma"), 5),
+            ci,
+            fmt(c.get("study_variation"), 5),
+            _pct(c.get("pct_study_variation")),
+        ]
         if tolerance:
             cells.append(_pct(c.get("pct_tolerance")))
-        rows.append(f"<tr{strong}><td>{esc(gt.component_name(name))}</td>"
-                    + "".join(f'<td class="num">{esc(v)}</td>' for v in cells) + "</tr>")
+        rows.append(
+            f"<tr{strong}><td>{esc(gt.component_name(name))}</td>"
+            + "".join(f'<td class="num">{esc(v)}</td>' for v in cells)
+            + "</tr>"
+        )
     heads = gt.component_headers(payload.get("study_variation"), tolerance=tolerance)
     heads.insert(4, gt.LABELS["spread_interval"].format(conf=conf))
-    return (f'<div class="sk-panel-title">{esc(gt.LABELS["components_title"])}</div>'
-            '<div class="sk-scroll"><table class="sk-table sk-gauge-components"><thead><tr>'
-            + "".join(f"<th>{esc(h)}</th>" for h in heads)
-            + f"</tr></thead><tbody>{''.join(rows)}</tbody></table></div>"
-            '<div class="sk-small">Spread is the standard deviation σ of each source; the study '
-            f'spread is {fmt(payload.get("study_variation"), 2)} σ. Shares of spread do not add '
-            "up to 100 % (spreads add as squares; shares of variance do). Intervals bound the "
-            "spread of each source (chi-square or Satterthwaite degrees of freedom)."
-            + ("" if tolerance else " No tolerance given: no share of tolerance.") + "</div>")
+    return (
+        f'<div class="sk-panel-title">{esc(gt.LABELS["components_title"])}</div>'
+        '<div class="sk-scroll"><table class="sk-table sk-gauge-components"><thead><tr>'
+        + "".join(f"<th>{esc(h)}</th>" for h in heads)
+        + f"</tr></thead><tbody>{''.join(rows)}</tbody></table></div>"
+        '<div class="sk-small">Spread is the standard deviation σ of each source; the study '
+        f"spread is {fmt(payload.get('study_variation'), 2)} σ. Shares of spread do not add "
+        "up to 100 % (spreads add as squares; shares of variance do). Intervals bound the "
+        "spread of each source (chi-square or Satterthwaite degrees of freedom)."
+        + ("" if tolerance else " No tolerance given: no share of tolerance.")
+        + "</div>"
+    )
 
 
 def _anova_rows(rows) -> str:
@@ -372,11 +422,13 @@ def _anova_rows(rows) -> str:
     for r in rows or []:
         p = r.get("p")
         p_text = "—" if p is None else ("< 0.001" if p < 1e-3 else fmt(p, 3))
-        out.append(f"<tr><td>{esc(gt.source_name(str(r.get('source', ''))))}</td>"
-                   f'<td class="num">{esc(r.get("df"))}</td>'
-                   f'<td class="num">{fmt(r.get("ss"), 6)}</td>'
-                   f'<td class="num">{fmt(r.get("ms"), 7)}</td>'
-                   f'<td class="num">{fmt(r.get("f"), 2)}</td><td class="num">{p_text}</td></tr>')
+        out.append(
+            f"<tr><td>{esc(gt.source_name(str(r.get('source', ''))))}</td>"
+            f'<td class="num">{esc(r.get("df"))}</td>'
+            f'<td class="num">{fmt(r.get("ss"), 6)}</td>'
+            f'<td class="num">{fmt(r.get("ms"), 7)}</td>'
+            f'<td class="num">{fmt(r.get("f"), 2)}</td><td class="num">{p_text}</td></tr>'
+        )
     return "".join(out)
 
 
@@ -385,18 +437,23 @@ def anova_html(payload: Mapping) -> str:
     from studykit.report import gauge_tables as gt
 
     note = gt.anova_note(payload, fmt)
-    head = ("<thead><tr>" + "".join(f"<th>{esc(h)}</th>" for h in gt.anova_headers())
-            + "</tr></thead>")
-    out = (f'<div class="sk-panel-title">{esc(gt.LABELS["anova_used_title"])}</div>'
-           f'<div class="sk-small" style="margin-bottom:4px">{esc(note)}</div>'
-           f'<div class="sk-scroll"><table class="sk-table sk-gauge-anova">{head}<tbody>'
-           f"{_anova_rows(payload.get('anova_used'))}</tbody></table></div>")
+    head = (
+        "<thead><tr>" + "".join(f"<th>{esc(h)}</th>" for h in gt.anova_headers()) + "</tr></thead>"
+    )
+    out = (
+        f'<div class="sk-panel-title">{esc(gt.LABELS["anova_used_title"])}</div>'
+        f'<div class="sk-small" style="margin-bottom:4px">{esc(note)}</div>'
+        f'<div class="sk-scroll"><table class="sk-table sk-gauge-anova">{head}<tbody>'
+        f"{_anova_rows(payload.get('anova_used'))}</tbody></table></div>"
+    )
     if gt.show_full_anova(payload):
-        out += ('<details class="sk-gauge-anova-full"><summary>'
-                f'{esc(gt.LABELS["anova_full_toggle"])}</summary>'
-                f'<div class="sk-small">{esc(gt.LABELS["anova_full_title"])}</div>'
-                f'<div class="sk-scroll"><table class="sk-table">{head}<tbody>'
-                f"{_anova_rows(payload.get('anova_full'))}</tbody></table></div></details>")
+        out += (
+            '<details class="sk-gauge-anova-full"><summary>'
+            f"{esc(gt.LABELS['anova_full_toggle'])}</summary>"
+            f'<div class="sk-small">{esc(gt.LABELS["anova_full_title"])}</div>'
+            f'<div class="sk-scroll"><table class="sk-table">{head}<tbody>'
+            f"{_anova_rows(payload.get('anova_full'))}</tbody></table></div></details>"
+        )
     return out
 
 
@@ -405,24 +462,33 @@ def range_method_html(payload: Mapping) -> str:
     r = payload.get("range_method") or {}
     if not r:
         return ""
-    sigmas = [("Repeatability (EV)", r.get("repeatability")),
-              ("Reproducibility (AV)", r.get("reproducibility")),
-              (names.GAUGE_TOTAL, r.get("gauge_rr")), ("Part to part (PV)", r.get("part")),
-              ("Total (TV)", r.get("total"))]
-    cells = "".join(f"<tr><td>{esc(k)}</td><td class=\"num\">{fmt(v, 5)}</td></tr>"
-                    for k, v in sigmas)
+    sigmas = [
+        ("Repeatability (EV)", r.get("repeatability")),
+        ("Reproducibility (AV)", r.get("reproducibility")),
+        (names.GAUGE_TOTAL, r.get("gauge_rr")),
+        ("Part to part (PV)", r.get("part")),
+        ("Total (TV)", r.get("total")),
+    ]
+    cells = "".join(
+        f'<tr><td>{esc(k)}</td><td class="num">{fmt(v, 5)}</td></tr>' for k, v in sigmas
+    )
     anova_pct = (payload.get("verdict") or {}).get("pct_grr_study_variation")
-    zero = (" Reproducibility came out negative and was set to zero."
-            if r.get("reproducibility_set_to_zero") else "")
-    return ('<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
-            '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
-            f"<th>Spread (σ)</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
-            f'<div class="sk-small">{esc(names.GAUGE_TOTAL)} share of study spread '
-            f'{_pct(r.get("pct_study_variation"))}'
-            f' (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get("pct_tolerance"))}, '
-            f'ndc {esc(r.get("ndc"))}. K1 = {fmt(r.get("k1"), 4)}, K2 = {fmt(r.get("k2"), 4)}, '
-            f'K3 = {fmt(r.get("k3"), 4)}.{zero} The ANOVA figures above decide; this estimate '
-            "ignores the interaction.</div>")
+    zero = (
+        " Reproducibility came out negative and was set to zero."
+        if r.get("reproducibility_set_to_zero")
+        else ""
+    )
+    return (
+        '<div class="sk-panel-title">Average-and-range estimate (second opinion)</div>'
+        '<table class="sk-table sk-gauge-range" style="min-width:0"><thead><tr>'
+        f"<th>Spread (σ)</th><th>Estimate</th></tr></thead><tbody>{cells}</tbody></table>"
+        f'<div class="sk-small">{esc(names.GAUGE_TOTAL)} share of study spread '
+        f"{_pct(r.get('pct_study_variation'))}"
+        f" (ANOVA: {_pct(anova_pct)}), of tolerance {_pct(r.get('pct_tolerance'))}, "
+        f"ndc {esc(r.get('ndc'))}. K1 = {fmt(r.get('k1'), 4)}, K2 = {fmt(r.get('k2'), 4)}, "
+        f"K3 = {fmt(r.get('k3'), 4)}.{zero} The ANOVA figures above decide; this estimate "
+        "ignores the interaction.</div>"
+    )
 
 
 # --- short gauge study and gauge error (pure helpers) ----------------------------------------------
@@ -430,8 +496,13 @@ def range_method_html(payload: Mapping) -> str:
 _SHORT_CHIP = {"capable": ("pass", "Capable"), "not capable": ("fail", "Not capable")}
 
 
-def short_study_html(payload: Mapping, *, who: str | None = None, when: str | None = None,
-                     title: str = "Short gauge study (one reference part)") -> str:
+def short_study_html(
+    payload: Mapping,
+    *,
+    who: str | None = None,
+    when: str | None = None,
+    title: str = "Short gauge study (one reference part)",
+) -> str:
     """The box of a stored (or previewed) short gauge study: chip, verdict, Cg, Cgk, bias, t-test.
 
     Examples
@@ -444,26 +515,43 @@ def short_study_html(payload: Mapping, *, who: str | None = None, when: str | No
     True
     """
     v = payload.get("verdict") if isinstance(payload.get("verdict"), Mapping) else {}
-    kind, word = _SHORT_CHIP.get(v.get("status") or "", ("pending", names.VERDICT_STATES["no_verdict"]))
+    kind, word = _SHORT_CHIP.get(
+        v.get("status") or "", ("pending", names.VERDICT_STATES["no_verdict"])
+    )
     verdict = theme.VERDICTS[kind]
-    chip = (f'<span class="sk-chip" style="color:{verdict.text_color};background:'
-            f'{verdict.background};border-color:{verdict.color}">{verdict.symbol} '
-            f"{esc(word)}</span>")
+    chip = (
+        f'<span class="sk-chip" style="color:{verdict.text_color};background:'
+        f'{verdict.background};border-color:{verdict.color}">{verdict.symbol} '
+        f"{esc(word)}</span>"
+    )
     t = payload.get("t_test") or {}
     p_val = t.get("p_value")
     facts = [
-        ("Cg, Cgk", f"{fmt(payload.get('cg'), 3)}, {fmt(payload.get('cgk'), 3)} (at least "
-                    f"{_num(payload.get('minimum'))})"),
-        ("K, L", f"{_num(payload.get('k_percent'))} % of the tolerance, "
-                 f"{_num(payload.get('l_sigmas'))} sigma"),
-        ("Readings", f"{payload.get('n', '?')} of a part with reference "
-                     f"{_num(payload.get('reference'))}"),
+        (
+            "Cg, Cgk",
+            f"{fmt(payload.get('cg'), 3)}, {fmt(payload.get('cgk'), 3)} (at least "
+            f"{_num(payload.get('minimum'))})",
+        ),
+        (
+            "K, L",
+            f"{_num(payload.get('k_percent'))} % of the tolerance, "
+            f"{_num(payload.get('l_sigmas'))} sigma",
+        ),
+        (
+            "Readings",
+            f"{payload.get('n', '?')} of a part with reference {_num(payload.get('reference'))}",
+        ),
         ("Mean, s", f"{_num(payload.get('mean'))}, {_num(payload.get('sd'))}"),
-        ("Bias", f"{_num(payload.get('bias'))} ({fmt(payload.get('bias_pct_tolerance'), 2)} % "
-                 "of the tolerance)"),
-        ("Bias t-test", f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p "
-                        + ("= —" if p_val is None else ("< 0.0001" if p_val < 1e-4
-                                                        else "= " + fmt(p_val, 4)))),
+        (
+            "Bias",
+            f"{_num(payload.get('bias'))} ({fmt(payload.get('bias_pct_tolerance'), 2)} % "
+            "of the tolerance)",
+        ),
+        (
+            "Bias t-test",
+            f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p "
+            + ("= —" if p_val is None else ("< 0.0001" if p_val < 1e-4 else "= " + fmt(p_val, 4))),
+        ),
         ("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"),
     ]
     if payload.get("source_file"):
@@ -474,13 +562,15 @@ def short_study_html(payload: Mapping, *, who: str | None = None, when: str | No
     if payload.get("reason"):
         facts.append(("Reason", str(payload["reason"])))
     notes = "".join(f'<div class="sk-small">{esc(n)}</div>' for n in payload.get("notes") or [])
-    return (f'<div class="sk-verdict-box sk-gauge-short-verdict" style="border-color:'
-            f'{verdict.color}"><div style="display:flex;gap:10px;align-items:center;'
-            f'flex-wrap:wrap"><span style="font-weight:600">{esc(title)}</span>{chip}</div>'
-            f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
-            '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
-            + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
-            + f"</table>{notes}</div>")
+    return (
+        f'<div class="sk-verdict-box sk-gauge-short-verdict" style="border-color:'
+        f'{verdict.color}"><div style="display:flex;gap:10px;align-items:center;'
+        f'flex-wrap:wrap"><span style="font-weight:600">{esc(title)}</span>{chip}</div>'
+        f'<div style="margin-top:6px">{esc(v.get("message") or "No verdict stored.")}</div>'
+        '<table class="sk-kvtable" style="margin-top:8px;font-size:14px">'
+        + "".join(f"<tr><td>{esc(k)}</td><td>{esc(val)}</td></tr>" for k, val in facts)
+        + f"</table>{notes}</div>"
+    )
 
 
 def measurement_error_html(me: Mapping | None) -> str:
@@ -513,23 +603,28 @@ def measurement_error_html(me: Mapping | None) -> str:
                 f'<td class="num">{"—" if not iv else f"{fmt(iv[0], 3)} to {fmt(iv[1], 3)}"}</td>'
                 f'<td class="num">{fmt(b.get("observed_sigma"), 5)}</td>'
                 f'<td class="num">{fmt(b.get("process_sigma"), 5)}</td>'
-                f'<td class="num">{fmt(100 * (b.get("gauge_share") or 0), 1)} %</td></tr>')
+                f'<td class="num">{fmt(100 * (b.get("gauge_share") or 0), 1)} %</td></tr>'
+            )
     warn = list(me.get("warnings") or [])
     if me.get("model_note"):
         warn.append(me["model_note"])
-    warn_html = "".join(f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution'
-                        f"</span>{esc(w)}</div>" for w in warn)
-    return ('<div class="sk-panel-title" style="margin-top:14px">Gauge error taken out</div>'
-            '<div class="sk-small" style="margin-bottom:4px">sigma_process² = '
-            "sigma_observed² − sigma_gauge², with the gauge sigma "
-            f"{fmt(me.get('gauge_sigma'), 5)} of the stored gauge R&amp;R "
-            f"({fmt(me.get('gauge_df'), 1)} degrees of freedom). The interval is a modified "
-            "large-sample interval (Ting et al. 1990; Burdick, Borror &amp; Montgomery 2005). "
-            "The verdict stays on the observed indices.</div>"
-            '<table class="sk-table sk-gauge-error"><thead><tr><th>Index</th><th>Observed</th>'
-            f"<th>Process only</th><th>Process only, {esc(lvl)} interval</th>"
-            "<th>Observed sigma</th><th>Process sigma</th><th>Gauge share of variance</th>"
-            f"</tr></thead><tbody>{''.join(rows)}</tbody></table>{warn_html}")
+    warn_html = "".join(
+        f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>{esc(w)}</div>'
+        for w in warn
+    )
+    return (
+        '<div class="sk-panel-title" style="margin-top:14px">Gauge error taken out</div>'
+        '<div class="sk-small" style="margin-bottom:4px">sigma_process² = '
+        "sigma_observed² − sigma_gauge², with the gauge sigma "
+        f"{fmt(me.get('gauge_sigma'), 5)} of the stored gauge R&amp;R "
+        f"({fmt(me.get('gauge_df'), 1)} degrees of freedom). The interval is a modified "
+        "large-sample interval (Ting et al. 1990; Burdick, Borror &amp; Montgomery 2005). "
+        "The verdict stays on the observed indices.</div>"
+        '<table class="sk-table sk-gauge-error"><thead><tr><th>Index</th><th>Observed</th>'
+        f"<th>Process only</th><th>Process only, {esc(lvl)} interval</th>"
+        "<th>Observed sigma</th><th>Process sigma</th><th>Gauge share of variance</th>"
+        f"</tr></thead><tbody>{''.join(rows)}</tbody></table>{warn_html}"
+    )
 
 
 def read_reference_upload(data: bytes, filename: str, *, value: str | None = None) -> dict:
@@ -548,10 +643,11 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
             f"'{suffix or name}' files cannot be read here; upload the readings as CSV or as an "
-            "Excel file (.xlsx)", file=name)
+            "Excel file (.xlsx)",
+            file=name,
+        )
     if not data:
-        raise DataFileError("the file is empty; choose the file that holds the readings",
-                            file=name)
+        raise DataFileError("the file is empty; choose the file that holds the readings", file=name)
     from studykit.io.gauge_table import read_frame, read_reference_readings
 
     with tempfile.TemporaryDirectory(prefix="studykit-short-") as tmp:
@@ -564,8 +660,9 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
                 return {"headers": headers}
             values = read_reference_readings(path, value=value)
         except StudyInputError as exc:
-            raise type(exc)(exc.detail, file=name, row=exc.row, column=exc.column,
-                            value=exc.value) from None
+            raise type(exc)(
+                exc.detail, file=name, row=exc.row, column=exc.column, value=exc.value
+            ) from None
     return {"headers": headers, "values": values}
 
 
@@ -577,8 +674,10 @@ class GaugeStep:
 
     key = "measuring"
     title = names.STEP_NAMES[key]
-    guidance = ("Show that the measuring system can tell parts apart before judging the "
-                "process: review the stored gauge R&R study, or run and attach a new one.")
+    guidance = (
+        "Show that the measuring system can tell parts apart before judging the "
+        "process: review the stored gauge R&R study, or run and attach a new one."
+    )
 
     def __init__(self):
         self.ws = None
@@ -628,33 +727,53 @@ class GaugeStep:
         # one column, in the order of the story (not a fixed grid): each figure with its caption
         self.figures = widgets.VBox([], layout=widgets.Layout(width="100%", max_width="860px"))
         self.figures.add_class("sk-gauge-figures")
-        tables = widgets.HBox([widgets.VBox([self.components, self.anova],
-                                            layout=widgets.Layout(flex="2 1 560px",
-                                                                  min_width="0")),
-                               widgets.VBox([self.range_method],
-                                            layout=widgets.Layout(flex="1 1 300px",
-                                                                  min_width="0"))],
-                              layout=widgets.Layout(flex_flow="row wrap", width="100%",
-                                                    align_items="flex-start"))
+        tables = widgets.HBox(
+            [
+                widgets.VBox(
+                    [self.components, self.anova],
+                    layout=widgets.Layout(flex="2 1 560px", min_width="0"),
+                ),
+                widgets.VBox(
+                    [self.range_method], layout=widgets.Layout(flex="1 1 300px", min_width="0")
+                ),
+            ],
+            layout=widgets.Layout(flex_flow="row wrap", width="100%", align_items="flex-start"),
+        )
         self.details = widgets.VBox([self.figures, tables, self.notes])
         self.new_study = self._build_new_study(context)
         self.short_box = html_box("", "sk-gauge-short")
         self.error_box = html_box("", "sk-gauge-error-box")
         self.new_short = self._build_new_short(context)
         self.refresh(context)
-        return panel([panel_css(), ws.toolbar(), self.heading, self.short_box, self.verdict,
-                      self.error_box, self.details, self.new_short, self.new_study])
+        return panel(
+            [
+                panel_css(),
+                ws.toolbar(),
+                self.heading,
+                self.short_box,
+                self.verdict,
+                self.error_box,
+                self.details,
+                self.new_short,
+                self.new_study,
+            ]
+        )
 
     def _build_new_short(self, context) -> widgets.Widget:
         """Upload readings of one reference part, compute, preview and attach (kind
         ``gauge_short``)."""
         m = context.messages
-        self.short_upload = upload_button(accept=",".join(_UPLOAD_SUFFIXES),
-                                               multiple=False, description="Choose readings",
-                                               icon="upload", layout=widgets.Layout(width="auto"))
+        self.short_upload = upload_button(
+            accept=",".join(_UPLOAD_SUFFIXES),
+            multiple=False,
+            description="Choose readings",
+            icon="upload",
+            layout=widgets.Layout(width="auto"),
+        )
         self.short_upload.add_class("sk-short-upload")
-        self.short_upload.observe(guarded(lambda c: self._on_short_upload(context, c),
-                                          messages=m), names="value")
+        self.short_upload.observe(
+            guarded(lambda c: self._on_short_upload(context, c), messages=m), names="value"
+        )
         self.short_info = html_box("", "sk-small", "sk-short-file")
         lay = widgets.Layout(width="130px")
         self.short_value = widgets.Dropdown(options=[], layout=widgets.Layout(width="190px"))
@@ -663,43 +782,62 @@ class GaugeStep:
         self.short_usl = widgets.Text(placeholder="USL", layout=lay)
         self.short_k = widgets.Text(value="20", layout=widgets.Layout(width="80px"))
         self.short_l = widgets.Text(value="6", layout=widgets.Layout(width="80px"))
-        for w, cls in ((self.short_value, "sk-short-value"),
-                       (self.short_reference, "sk-short-reference"),
-                       (self.short_lsl, "sk-short-lsl"), (self.short_usl, "sk-short-usl"),
-                       (self.short_k, "sk-short-k"), (self.short_l, "sk-short-l")):
+        for w, cls in (
+            (self.short_value, "sk-short-value"),
+            (self.short_reference, "sk-short-reference"),
+            (self.short_lsl, "sk-short-lsl"),
+            (self.short_usl, "sk-short-usl"),
+            (self.short_k, "sk-short-k"),
+            (self.short_l, "sk-short-l"),
+        ):
             w.add_class(cls)
-        self.short_compute = widgets.Button(description="Compute Cg, Cgk", icon="calculator",
-                                            button_style="primary", disabled=True)
+        self.short_compute = widgets.Button(
+            description="Compute Cg, Cgk", icon="calculator", button_style="primary", disabled=True
+        )
         self.short_compute.add_class("sk-short-compute")
         self.short_compute.on_click(guarded(lambda _b: self._on_short_compute(), messages=m))
         self.short_preview = html_box("", "sk-short-preview")
-        self.short_reason = widgets.Text(placeholder="why, e.g. 'gauge GR-07 on master "
-                                         "M-8.000, certificate C-114'",
-                                         layout=widgets.Layout(width="460px"))
+        self.short_reason = widgets.Text(
+            placeholder="why, e.g. 'gauge GR-07 on master M-8.000, certificate C-114'",
+            layout=widgets.Layout(width="460px"),
+        )
         self.short_reason.add_class("sk-short-reason")
-        self.short_attach = widgets.Button(description="Attach to the characteristic",
-                                           icon="paperclip", button_style="primary",
-                                           disabled=True)
+        self.short_attach = widgets.Button(
+            description="Attach to the characteristic",
+            icon="paperclip",
+            button_style="primary",
+            disabled=True,
+        )
         self.short_attach.add_class("sk-short-attach")
         self.short_attach.on_click(guarded(lambda _b: self._on_short_attach(), messages=m))
         self.short_hint = html_box("", "sk-small")
         for w in (self.short_reason, self.ws.who):
-            w.observe(guarded(lambda _c: self._update_short_buttons(), messages=m),
-                      names="value")
+            w.observe(guarded(lambda _c: self._update_short_buttons(), messages=m), names="value")
 
         def labelled(text, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
         self.short_fields = widgets.HBox(
-            [labelled("Reading column", self.short_value),
-             labelled("Reference value", self.short_reference),
-             labelled("Tolerance: LSL", self.short_lsl), labelled("USL", self.short_usl),
-             labelled("K (% of tolerance)", self.short_k), labelled("L (sigmas)", self.short_l),
-             self.short_compute],
-            layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end", display="none"))
+            [
+                labelled("Reading column", self.short_value),
+                labelled("Reference value", self.short_reference),
+                labelled("Tolerance: LSL", self.short_lsl),
+                labelled("USL", self.short_usl),
+                labelled("K (% of tolerance)", self.short_k),
+                labelled("L (sigmas)", self.short_l),
+                self.short_compute,
+            ],
+            layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end", display="none"),
+        )
         self.short_attach_box = widgets.VBox(
-            [self.short_preview, labelled("Reason for attaching", self.short_reason),
-             self.short_attach, self.short_hint], layout=widgets.Layout(display="none"))
+            [
+                self.short_preview,
+                labelled("Reason for attaching", self.short_reason),
+                self.short_attach,
+                self.short_hint,
+            ],
+            layout=widgets.Layout(display="none"),
+        )
         intro = html_box(
             '<div class="sk-panel-title" style="margin-top:22px">Run a short gauge study</div>'
             '<div class="sk-muted">One reference part of known value measured repeatedly by one '
@@ -707,10 +845,19 @@ class GaugeStep:
             "upload the readings, one per row. Cg and Cgk use K = 20 % of the tolerance and "
             "L = 6 sigma unless changed (common practice, no source); the gauge is called "
             "capable when both are at least 1.33. Nothing is stored until you attach it with "
-            "your name and a reason.</div>")
-        box = widgets.VBox([intro, widgets.HBox([self.short_upload, self.short_info],
-                                                layout=widgets.Layout(align_items="center")),
-                            self.short_fields, self.short_attach_box])
+            "your name and a reason.</div>"
+        )
+        box = widgets.VBox(
+            [
+                intro,
+                widgets.HBox(
+                    [self.short_upload, self.short_info],
+                    layout=widgets.Layout(align_items="center"),
+                ),
+                self.short_fields,
+                self.short_attach_box,
+            ]
+        )
         box.add_class("sk-short-new")
         return box
 
@@ -741,8 +888,7 @@ class GaugeStep:
         self.short_fields.layout.display = "none"
         self.short_info.value = ""
         self._clear_short_preview()
-        check_upload_size(max(size, len(content)), filename=name,
-                          limit=context.max_upload_bytes)
+        check_upload_size(max(size, len(content)), filename=name, limit=context.max_upload_bytes)
         data = bytes(content)
         headers = read_reference_upload(data, name)["headers"]
         self._short_data, self._short_name = data, name
@@ -751,9 +897,11 @@ class GaugeStep:
         self.short_value.value = guess[0] if guess else headers[-1]
         self.short_fields.layout.display = ""
         self.short_compute.disabled = False
-        self.short_info.value = (f"<b>{esc(name)}</b> · columns: "
-                                 + ", ".join(esc(h) for h in headers)
-                                 + ". Give the reference value, then compute.")
+        self.short_info.value = (
+            f"<b>{esc(name)}</b> · columns: "
+            + ", ".join(esc(h) for h in headers)
+            + ". Give the reference value, then compute."
+        )
 
     def _short_number(self, label: str, w, *, required: bool = True) -> float | None:
         from studykit.errors import SpecError
@@ -766,8 +914,9 @@ class GaugeStep:
         try:
             return float(text)
         except ValueError:
-            raise SpecError(f"the {label} ({w.value!r}) is not a number: write it like "
-                            "8.0004") from None
+            raise SpecError(
+                f"the {label} ({w.value!r}) is not a number: write it like 8.0004"
+            ) from None
 
     def _on_short_compute(self) -> None:
         from studykit.stats.gauge_type1 import short_gauge_study
@@ -781,31 +930,39 @@ class GaugeStep:
         usl = self._short_number("tolerance USL", self.short_usl)
         k = self._short_number("K", self.short_k)
         ell = self._short_number("L", self.short_l)
-        values = read_reference_upload(self._short_data, self._short_name,
-                                       value=self.short_value.value)["values"]
+        values = read_reference_upload(
+            self._short_data, self._short_name, value=self.short_value.value
+        )["values"]
         try:
-            result = short_gauge_study(values, reference=reference, lsl=lsl, usl=usl,
-                                       k_percent=k, l_sigmas=ell)
+            result = short_gauge_study(
+                values, reference=reference, lsl=lsl, usl=usl, k_percent=k, l_sigmas=ell
+            )
         except StudyInputError as exc:
             if exc.file is not None:
                 raise
-            raise type(exc)(exc.detail, file=self._short_name, column=self.short_value.value,
-                            value=exc.value) from None
+            raise type(exc)(
+                exc.detail, file=self._short_name, column=self.short_value.value, value=exc.value
+            ) from None
         spec = self.ws.session.study.characteristic(name)
-        extras = {"source_file": self._short_name,
-                  "limits_from": "study" if (lsl, usl) == (spec.lsl, spec.usl) else "entered",
-                  "columns": {"value": self.short_value.value}}
+        extras = {
+            "source_file": self._short_name,
+            "limits_from": "study" if (lsl, usl) == (spec.lsl, spec.usl) else "entered",
+            "columns": {"value": self.short_value.value},
+        }
         self._short_preview = (result, extras, name)
         self.short_preview.value = (
             '<div class="sk-panel-title">Preview (not stored yet)</div>'
-            + short_study_html({**result.to_dict(), **extras},
-                               title=f"New short gauge study for {name}"))
+            + short_study_html(
+                {**result.to_dict(), **extras}, title=f"New short gauge study for {name}"
+            )
+        )
         self.short_attach.description = f"Attach to {name}"
         self.short_attach_box.layout.display = ""
         self._update_short_buttons()
         self.ws.context.messages.info(
             f"Short gauge study computed from '{self._short_name}': check the preview, then "
-            f"attach it to {name} with a reason.")
+            f"attach it to {name} with a reason."
+        )
 
     def _update_short_buttons(self) -> None:
         if self.ws is None or not hasattr(self, "short_attach"):
@@ -829,18 +986,28 @@ class GaugeStep:
         if name != s.current:
             raise StudyInputError(
                 f"the preview was computed for '{name}', but '{s.current}' is shown now; "
-                "compute it again for this characteristic")
+                "compute it again for this characteristic"
+            )
         who = ws.who_name
         reason = self.short_reason.value.strip()
         if not who:
-            raise StudyInputError("`who` is empty: type your name in the 'Your name' field at "
-                                  "the top of the panel")
+            raise StudyInputError(
+                "`who` is empty: type your name in the 'Your name' field at the top of the panel"
+            )
         if not reason:
-            raise StudyInputError("`reason` is empty: say why this short gauge study belongs to "
-                                  "the characteristic, e.g. 'gauge GR-07 on master M-8.000'")
+            raise StudyInputError(
+                "`reason` is empty: say why this short gauge study belongs to "
+                "the characteristic, e.g. 'gauge GR-07 on master M-8.000'"
+            )
         payload = {**result.to_dict(), **extras, "reason": reason}
-        s.attach_result(SHORT_KIND, name, payload, who=who, reason=reason,
-                        override_reason=ws.override_reason or None)
+        s.attach_result(
+            SHORT_KIND,
+            name,
+            payload,
+            who=who,
+            reason=reason,
+            override_reason=ws.override_reason or None,
+        )
         self.short_reason.value = ""
         self._clear_short_preview()
         self._short_data, self._short_name = None, ""
@@ -859,7 +1026,8 @@ class GaugeStep:
             self.short_box.value = (
                 '<div class="sk-small" style="margin-bottom:8px">No short gauge study (one '
                 f"reference part) is attached for {esc(name)}; it qualifies the gauge alone "
-                "before the crossed study. Run one below.</div>")
+                "before the crossed study. Run one below.</div>"
+            )
         me = None
         if has_gauge:
             try:
@@ -871,71 +1039,110 @@ class GaugeStep:
     def _build_new_study(self, context) -> widgets.Widget:
         m = context.messages
         limit_mb = context.max_upload_bytes / 1024 / 1024
-        self.upload = upload_button(accept=",".join(_UPLOAD_SUFFIXES), multiple=False,
-                                         description="Choose gauge table", icon="upload",
-                                         layout=widgets.Layout(width="auto"))
+        self.upload = upload_button(
+            accept=",".join(_UPLOAD_SUFFIXES),
+            multiple=False,
+            description="Choose gauge table",
+            icon="upload",
+            layout=widgets.Layout(width="auto"),
+        )
         self.upload.add_class("sk-gauge-upload")
-        self.upload.observe(guarded(lambda c: self._on_upload(context, c), messages=m),
-                            names="value")
+        self.upload.observe(
+            guarded(lambda c: self._on_upload(context, c), messages=m), names="value"
+        )
         self.file_info = html_box("", "sk-small", "sk-gauge-file")
         lay = widgets.Layout(width="190px")
         self.col_part = widgets.Dropdown(options=[], layout=lay)
         self.col_appraiser = widgets.Dropdown(options=[], layout=lay)
         self.col_trial = widgets.Dropdown(options=[], layout=lay)
         self.col_value = widgets.Dropdown(options=[], layout=lay)
-        for w, cls in ((self.col_part, "sk-gauge-col-part"),
-                       (self.col_appraiser, "sk-gauge-col-appraiser"),
-                       (self.col_trial, "sk-gauge-col-trial"),
-                       (self.col_value, "sk-gauge-col-value")):
+        for w, cls in (
+            (self.col_part, "sk-gauge-col-part"),
+            (self.col_appraiser, "sk-gauge-col-appraiser"),
+            (self.col_trial, "sk-gauge-col-trial"),
+            (self.col_value, "sk-gauge-col-value"),
+        ):
             w.add_class(cls)
         tl = widgets.Layout(width="130px")
         self.lsl = widgets.Text(placeholder="none", layout=tl)
         self.usl = widgets.Text(placeholder="none", layout=tl)
         self.lsl.add_class("sk-gauge-lsl")
         self.usl.add_class("sk-gauge-usl")
-        self.compute = widgets.Button(description="Compute the study", icon="calculator",
-                                      button_style="primary", disabled=True)
+        self.compute = widgets.Button(
+            description="Compute the study",
+            icon="calculator",
+            button_style="primary",
+            disabled=True,
+        )
         self.compute.add_class("sk-gauge-compute")
         self.compute.on_click(guarded(lambda _b: self._on_compute(), messages=m))
 
         def labelled(text, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
-        self.columns_box = widgets.VBox([
-            widgets.HBox([labelled("Part column", self.col_part),
-                          labelled("Appraiser column", self.col_appraiser),
-                          labelled("Trial column", self.col_trial),
-                          labelled("Value column", self.col_value)],
-                         layout=widgets.Layout(flex_flow="row wrap")),
-            widgets.HBox([labelled("Tolerance: LSL", self.lsl), labelled("USL", self.usl),
-                          self.compute],
-                         layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"))],
-            layout=widgets.Layout(display="none"))
+        self.columns_box = widgets.VBox(
+            [
+                widgets.HBox(
+                    [
+                        labelled("Part column", self.col_part),
+                        labelled("Appraiser column", self.col_appraiser),
+                        labelled("Trial column", self.col_trial),
+                        labelled("Value column", self.col_value),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                widgets.HBox(
+                    [labelled("Tolerance: LSL", self.lsl), labelled("USL", self.usl), self.compute],
+                    layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"),
+                ),
+            ],
+            layout=widgets.Layout(display="none"),
+        )
         self.preview = html_box("", "sk-gauge-preview")
         self.preview_figure = widgets.Box([], layout=widgets.Layout(max_width="640px"))
-        self.reason = widgets.Text(placeholder="why, e.g. 'gauge GR-07 after recalibration, "
-                                   "study GR-2026-14'", layout=widgets.Layout(width="460px"))
+        self.reason = widgets.Text(
+            placeholder="why, e.g. 'gauge GR-07 after recalibration, study GR-2026-14'",
+            layout=widgets.Layout(width="460px"),
+        )
         self.reason.add_class("sk-gauge-reason")
-        self.attach = widgets.Button(description="Attach to the characteristic", icon="paperclip",
-                                     button_style="primary", disabled=True)
+        self.attach = widgets.Button(
+            description="Attach to the characteristic",
+            icon="paperclip",
+            button_style="primary",
+            disabled=True,
+        )
         self.attach.add_class("sk-gauge-attach")
         self.attach.on_click(guarded(lambda _b: self._on_attach(), messages=m))
         self.attach_hint = html_box("", "sk-small")
         for w in (self.reason, self.ws.who):
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
-        self.attach_box = widgets.VBox([
-            self.preview, self.preview_figure,
-            labelled("Reason for attaching", self.reason), self.attach, self.attach_hint],
-            layout=widgets.Layout(display="none"))
+        self.attach_box = widgets.VBox(
+            [
+                self.preview,
+                self.preview_figure,
+                labelled("Reason for attaching", self.reason),
+                self.attach,
+                self.attach_hint,
+            ],
+            layout=widgets.Layout(display="none"),
+        )
         intro = html_box(
             '<div class="sk-panel-title" style="margin-top:22px">Run a new gauge study</div>'
             '<div class="sk-muted">Upload a long table with one row per reading: part, '
             "appraiser, trial and value columns (CSV or .xlsx, at most "
             f"{limit_mb:.0f} MB). studykit computes the study for you to check; nothing is "
-            "stored until you attach it with your name and a reason.</div>")
-        box = widgets.VBox([intro, widgets.HBox([self.upload, self.file_info],
-                                                layout=widgets.Layout(align_items="center")),
-                            self.columns_box, self.attach_box])
+            "stored until you attach it with your name and a reason.</div>"
+        )
+        box = widgets.VBox(
+            [
+                intro,
+                widgets.HBox(
+                    [self.upload, self.file_info], layout=widgets.Layout(align_items="center")
+                ),
+                self.columns_box,
+                self.attach_box,
+            ]
+        )
         box.add_class("sk-gauge-new")
         return box
 
@@ -949,8 +1156,12 @@ class GaugeStep:
         stored = self.stored(name)
         latest = stored[-1] if stored else None
         short = s.file.results(SHORT_KIND, name)
-        key = (name, None if latest is None else latest.id,
-               None if not short else short[-1].id, id(s.study))
+        key = (
+            name,
+            None if latest is None else latest.id,
+            None if not short else short[-1].id,
+            id(s.study),
+        )
         if key == self._drawn:
             return
         changed_name = self._drawn is None or self._drawn[0] != name
@@ -961,33 +1172,45 @@ class GaugeStep:
         self._show_short_and_error(name, latest is not None)
         spec = s.study.characteristic(name)
         unit = f" ({spec.unit})" if getattr(spec, "unit", None) else ""
-        self.heading.value = (f'<div class="sk-panel-title">Gauge study behind '
-                              f"{esc(name)}{esc(unit)}</div>")
+        self.heading.value = (
+            f'<div class="sk-panel-title">Gauge study behind {esc(name)}{esc(unit)}</div>'
+        )
         if latest is None:
             self.verdict.value = (
                 '<div class="sk-verdict-box sk-gauge-verdict" style="border-color:'
                 f'{theme.VERDICTS["pending"].color}">{_chip(None)}'
                 f'<div style="margin-top:6px">No gauge study is attached for {esc(name)}: the '
                 "capability findings report its measurement system as not checked. Run one "
-                "below from the readings of the gauge study.</div></div>")
+                "below from the readings of the gauge study.</div></div>"
+            )
             self.details.layout.display = "none"
             self.figures.children = []
             return
         payload = latest.payload
-        self.verdict.value = verdict_html(payload, who=latest.who, when=latest.when) + (
-            f'<div class="sk-small">{len(stored) - 1} earlier gauge '
-            f"stud{'y' if len(stored) == 2 else 'ies'} of {esc(name)} on record; the latest "
-            "counts.</div>" if len(stored) > 1 else "") + (
-            f'<div class="sk-small" style="margin-bottom:8px">{esc(_BANDS_NOTE)}</div>')
+        self.verdict.value = (
+            verdict_html(payload, who=latest.who, when=latest.when)
+            + (
+                f'<div class="sk-small">{len(stored) - 1} earlier gauge '
+                f"stud{'y' if len(stored) == 2 else 'ies'} of {esc(name)} on record; the latest "
+                "counts.</div>"
+                if len(stored) > 1
+                else ""
+            )
+            + (f'<div class="sk-small" style="margin-bottom:8px">{esc(_BANDS_NOTE)}</div>')
+        )
         self.components.value = components_html(payload)
         self.anova.value = anova_html(payload)
         self.range_method.value = range_method_html(payload)
         # the pooling note is already said above the ANOVA table
-        notes = [n for n in payload.get("notes") or []
-                 if n and not (payload.get("interaction_pooled") and "pooled" in n)]
+        notes = [
+            n
+            for n in payload.get("notes") or []
+            if n and not (payload.get("interaction_pooled") and "pooled" in n)
+        ]
         self.notes.value = "".join(
-            f'<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">Note</span>{esc(n)}'
-            "</div>" for n in notes)
+            f'<div class="sk-msg sk-msg-info"><span class="sk-msg-kind">Note</span>{esc(n)}</div>'
+            for n in notes
+        )
         self.details.layout.display = ""
         self._show_figures(latest)
 
@@ -998,20 +1221,25 @@ class GaugeStep:
             try:
                 result = gauge_result_from_payload(stored.payload)
             except StudyInputError as exc:
-                self.figures.children = [html_box(
-                    f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
-                    f"{esc(exc)}</div>")]
+                self.figures.children = [
+                    html_box(
+                        f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">Caution</span>'
+                        f"{esc(exc)}</div>"
+                    )
+                ]
                 return
             cached = (_gauge_figures.story(result), figure_pngs(result))
             self._figures = {cache_key: cached}  # one characteristic's figures at a time
         chapters, pngs = cached
-        self.figures.children = [self._figure_widget(key, pngs[key], caption)
-                                 for key, _title, caption in chapters]
+        self.figures.children = [
+            self._figure_widget(key, pngs[key], caption) for key, _title, caption in chapters
+        ]
 
     @staticmethod
     def _figure_widget(key: str, png: bytes, caption: str = "") -> widgets.Widget:
-        img = widgets.Image(value=png, format="png",
-                            layout=widgets.Layout(width="100%", height="auto"))
+        img = widgets.Image(
+            value=png, format="png", layout=widgets.Layout(width="100%", height="auto")
+        )
         img.add_class("sk-gauge-figure")
         img.add_class(f"sk-gauge-figure-{key}")
         parts = [img]
@@ -1050,8 +1278,7 @@ class GaugeStep:
         self.columns_box.layout.display = "none"
         self.file_info.value = ""
         self._clear_preview()
-        check_upload_size(max(size, len(content)), filename=name,
-                          limit=context.max_upload_bytes)
+        check_upload_size(max(size, len(content)), filename=name, limit=context.max_upload_bytes)
         data = bytes(content)
         headers = read_gauge_upload(data, name)["headers"]
         guess = guess_columns(headers)
@@ -1065,9 +1292,11 @@ class GaugeStep:
         self.col_trial.value = guess["trial"] or ""
         self.columns_box.layout.display = ""
         self.compute.disabled = False
-        self.file_info.value = (f"<b>{esc(name)}</b> · {len(headers)} columns: "
-                                + ", ".join(esc(h) for h in headers)
-                                + ". Check the columns, then compute.")
+        self.file_info.value = (
+            f"<b>{esc(name)}</b> · {len(headers)} columns: "
+            + ", ".join(esc(h) for h in headers)
+            + ". Check the columns, then compute."
+        )
 
     def _tolerance(self) -> tuple[float | None, float | None]:
         from studykit.errors import SpecError
@@ -1081,13 +1310,16 @@ class GaugeStep:
             try:
                 out.append(float(text))
             except ValueError:
-                raise SpecError(f"the tolerance {label} ({w.value!r}) is not a number: write "
-                                "it like 7.9, or leave both limits empty for no %tolerance"
-                                ) from None
+                raise SpecError(
+                    f"the tolerance {label} ({w.value!r}) is not a number: write "
+                    "it like 7.9, or leave both limits empty for no %tolerance"
+                ) from None
         lsl, usl = out
         if (lsl is None) != (usl is None):
-            raise SpecError("give both tolerance limits (LSL and USL) for %GRR of tolerance, "
-                            "or leave both empty")
+            raise SpecError(
+                "give both tolerance limits (LSL and USL) for %GRR of tolerance, "
+                "or leave both empty"
+            )
         return lsl, usl
 
     def _on_compute(self) -> None:
@@ -1098,29 +1330,42 @@ class GaugeStep:
         name = self.ws.session.current
         self._clear_preview()
         lsl, usl = self._tolerance()
-        cols = {"part": self.col_part.value, "appraiser": self.col_appraiser.value,
-                "value": self.col_value.value, "trial": self.col_trial.value or None}
+        cols = {
+            "part": self.col_part.value,
+            "appraiser": self.col_appraiser.value,
+            "value": self.col_value.value,
+            "trial": self.col_trial.value or None,
+        }
         table = read_gauge_upload(self._upload_data, self._upload_name, **cols)
         try:
-            result = gauge_rr(table["values"], table["parts"], table["appraisers"],
-                              trials=table["trials"], lsl=lsl, usl=usl)
+            result = gauge_rr(
+                table["values"],
+                table["parts"],
+                table["appraisers"],
+                trials=table["trials"],
+                lsl=lsl,
+                usl=usl,
+            )
         except StudyInputError as exc:
             if exc.file is not None:
                 raise
-            raise type(exc)(exc.detail, file=self._upload_name, row=exc.row,
-                            column=exc.column, value=exc.value) from None
+            raise type(exc)(
+                exc.detail, file=self._upload_name, row=exc.row, column=exc.column, value=exc.value
+            ) from None
         spec = self.ws.session.study.characteristic(name)
         from_study = (lsl, usl) == (spec.lsl, spec.usl) and lsl is not None
-        extras = {"source_file": self._upload_name,
-                  "limits_from": "study" if from_study else ("entered" if lsl is not None
-                                                             else None),
-                  "columns": cols}
+        extras = {
+            "source_file": self._upload_name,
+            "limits_from": "study" if from_study else ("entered" if lsl is not None else None),
+            "columns": cols,
+        }
         self._preview = (result, extras, name)
         payload = {**result.to_dict(), **extras}
         self.preview.value = (
             '<div class="sk-panel-title">Preview (not stored yet)</div>'
             + verdict_html(payload, title=f"New study for {name}")
-            + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>')
+            + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>'
+        )
         png = figure_pngs(result, only=("sources",))["sources"]
         self.preview_figure.children = [self._figure_widget("preview", png)]
         self.attach.description = f"Attach to {name}"
@@ -1128,7 +1373,8 @@ class GaugeStep:
         self._update_buttons()
         self.ws.context.messages.info(
             f"Gauge study computed from '{self._upload_name}': check the preview, then attach "
-            f"it to {name} with a reason.")
+            f"it to {name} with a reason."
+        )
 
     def _update_buttons(self) -> None:
         if self.ws is None or not hasattr(self, "attach"):
@@ -1152,18 +1398,28 @@ class GaugeStep:
         if name != s.current:
             raise StudyInputError(
                 f"the preview was computed for '{name}', but '{s.current}' is shown now; "
-                "compute it again for this characteristic")
+                "compute it again for this characteristic"
+            )
         who = ws.who_name
         reason = self.reason.value.strip()
         if not who:
-            raise StudyInputError("`who` is empty: type your name in the 'Your name' field at "
-                                  "the top of the panel")
+            raise StudyInputError(
+                "`who` is empty: type your name in the 'Your name' field at the top of the panel"
+            )
         if not reason:
-            raise StudyInputError("`reason` is empty: say why this gauge study belongs to the "
-                                  "characteristic, e.g. 'gauge GR-07, study GR-2026-14'")
+            raise StudyInputError(
+                "`reason` is empty: say why this gauge study belongs to the "
+                "characteristic, e.g. 'gauge GR-07, study GR-2026-14'"
+            )
         payload = {**result.to_dict(), **extras, "reason": reason}
-        s.attach_result(GAUGE_KIND, name, payload, who=who, reason=reason,
-                        override_reason=ws.override_reason or None)
+        s.attach_result(
+            GAUGE_KIND,
+            name,
+            payload,
+            who=who,
+            reason=reason,
+            override_reason=ws.override_reason or None,
+        )
         self.reason.value = ""
         self._clear_preview()
         self._upload_data, self._upload_name = None, ""
@@ -1171,8 +1427,9 @@ class GaugeStep:
         self.file_info.value = ""
         s.reload()  # the findings and every panel follow the new gauge study
         status = result.verdict.status
-        ws.context.messages.ok(f"Gauge study attached to {name} ({status}); the capability "
-                               "findings now use it.")
+        ws.context.messages.ok(
+            f"Gauge study attached to {name} ({status}); the capability findings now use it."
+        )
 
 
 STEP = GaugeStep()

@@ -29,15 +29,29 @@ from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import SpecError, StudyFileError, StudyInputError
 from studykit.study import BASES, INDICES, Criteria, match_to_data, read_specs_bytes
 
-__all__ = ["ENV_NEW_DIR", "NewStudyPanel", "create_study_from_files", "specs_csv",
-           "study_file_name"]
+__all__ = [
+    "ENV_NEW_DIR",
+    "NewStudyPanel",
+    "create_study_from_files",
+    "specs_csv",
+    "study_file_name",
+]
 
 #: folder for a study made in the browser (set by ``studykit serve`` to its working folder)
 ENV_NEW_DIR = "STUDYKIT_NEW_DIR"
 #: how the page's table is named in messages (as the CLI names the --specs file)
 TABLE_NAME = "specification table (in the page)"
-SPEC_COLUMNS = ("characteristic", "unit", "lsl", "usl", "target", "safety_critical",
-                "criterion", "threshold", "basis")
+SPEC_COLUMNS = (
+    "characteristic",
+    "unit",
+    "lsl",
+    "usl",
+    "target",
+    "safety_critical",
+    "criterion",
+    "threshold",
+    "basis",
+)
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.\-]{0,99}$")
 
@@ -62,7 +76,8 @@ def study_file_name(text: str) -> str:
     if not _NAME_RE.match(name) or ".." in name:
         raise StudyInputError(
             f"the study file name ({text!r}) must be a plain file name (letters, digits, space, "
-            "'_', '-', '.'; no folder), e.g. 'pilot-run-3'")
+            "'_', '-', '.'; no folder), e.g. 'pilot-run-3'"
+        )
     return name + ".study"
 
 
@@ -120,19 +135,24 @@ def create_study_from_files(path, files, rows, *, title: str, who: str, part: st
     from studykit.store import StudyFile
 
     if not files:
-        raise StudyInputError("no measurement file confirmed yet: upload one in 'Bring in data' "
-                              "and press 'Use this data'")
+        raise StudyInputError(
+            "no measurement file confirmed yet: upload one in 'Bring in data' "
+            "and press 'Use this data'"
+        )
     names = [Path(str(f[0])).name for f in files]
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
         raise StudyInputError(f"two data files are named '{dup[0]}': rename one of them")
     if not rows:
-        raise StudyInputError("the specification table has no characteristic ticked 'In study': "
-                              "a study needs at least one")
+        raise StudyInputError(
+            "the specification table has no characteristic ticked 'In study': "
+            "a study needs at least one"
+        )
     who = (who or "").strip()
     if not who:
-        raise StudyInputError("`who` is empty: type your name; the study file records who "
-                              "created it")
+        raise StudyInputError(
+            "`who` is empty: type your name; the study file records who created it"
+        )
     specs, spec_criteria = read_specs_bytes(specs_csv(rows), TABLE_NAME)
     readings = [f[2] for f in files]
     chars, criteria = [], {}
@@ -140,10 +160,12 @@ def create_study_from_files(path, files, rows, *, title: str, who: str, part: st
         home = next((i for i, m in enumerate(readings) if c.name in m.names), 0)
         try:
             one, crit = match_to_data(
-                [c], {n: v for n, v in spec_criteria.items() if n == c.name}, readings[home])
+                [c], {n: v for n, v in spec_criteria.items() if n == c.name}, readings[home]
+            )
         except SpecError as exc:
-            raise SpecError(exc.detail, file=TABLE_NAME, row=k + 2, column=exc.column,
-                            value=exc.value) from None
+            raise SpecError(
+                exc.detail, file=TABLE_NAME, row=k + 2, column=exc.column, value=exc.value
+            ) from None
         c2 = one[0]
         if home:
             c2 = dataclasses.replace(c2, source=names[home])
@@ -152,11 +174,17 @@ def create_study_from_files(path, files, rows, *, title: str, who: str, part: st
     path = Path(path)
     if path.exists():
         raise StudyFileError(f"the study file '{path.name}' already exists: choose another name")
-    return StudyFile.create(path, data=bytes(files[0][1]), filename=names[0],
-                            title=(title or "").strip() or Path(names[0]).stem, part=part,
-                            characteristics=chars, criteria=criteria, who=who,
-                            extra_files=[(n, bytes(f[1])) for n, f in zip(names[1:], files[1:],
-                                                                          strict=True)])
+    return StudyFile.create(
+        path,
+        data=bytes(files[0][1]),
+        filename=names[0],
+        title=(title or "").strip() or Path(names[0]).stem,
+        part=part,
+        characteristics=chars,
+        criteria=criteria,
+        who=who,
+        extra_files=[(n, bytes(f[1])) for n, f in zip(names[1:], files[1:], strict=True)],
+    )
 
 
 def _num(v) -> str:
@@ -172,28 +200,40 @@ class _SpecRow:
         small = widgets.Layout(width="92px")
         self.name = name
         self.filename = filename
-        self.include = widgets.Checkbox(value=True, indent=False,
-                                        layout=widgets.Layout(width="28px"))
-        self.label = html_box(f"<b>{esc(name)}</b><br><span class='sk-small'>{esc(filename)}"
-                              "</span>")
+        self.include = widgets.Checkbox(
+            value=True, indent=False, layout=widgets.Layout(width="28px")
+        )
+        self.label = html_box(
+            f"<b>{esc(name)}</b><br><span class='sk-small'>{esc(filename)}</span>"
+        )
         self.unit = widgets.Text(value=unit or "", layout=widgets.Layout(width="70px"))
         self.lsl = widgets.Text(placeholder="none", layout=small)
         self.usl = widgets.Text(placeholder="none", layout=small)
         self.target = widgets.Text(placeholder="none", layout=small)
-        self.safety = widgets.Checkbox(value=False, indent=False,
-                                       layout=widgets.Layout(width="28px"))
+        self.safety = widgets.Checkbox(
+            value=False, indent=False, layout=widgets.Layout(width="28px")
+        )
         d = Criteria()
-        self.index = widgets.Dropdown(options=[(i[0].upper() + i[1:], i) for i in INDICES],
-                                      value=d.index, layout=widgets.Layout(width="80px"))
+        self.index = widgets.Dropdown(
+            options=[(i[0].upper() + i[1:], i) for i in INDICES],
+            value=d.index,
+            layout=widgets.Layout(width="80px"),
+        )
         self.threshold = widgets.Text(value=_num(d.threshold), layout=widgets.Layout(width="64px"))
-        self.basis = widgets.Dropdown(options=[("lower bound", "lower_bound"),
-                                               ("estimate", "estimate")],
-                                      value=d.basis if d.basis in BASES else "lower_bound",
-                                      layout=widgets.Layout(width="116px"))
+        self.basis = widgets.Dropdown(
+            options=[("lower bound", "lower_bound"), ("estimate", "estimate")],
+            value=d.basis if d.basis in BASES else "lower_bound",
+            layout=widgets.Layout(width="116px"),
+        )
         for w in self.cells():
             w.add_class("sk-spec-cell")
-        for w, key in ((self.lsl, "lsl"), (self.usl, "usl"), (self.target, "target"),
-                       (self.unit, "unit"), (self.threshold, "threshold")):
+        for w, key in (
+            (self.lsl, "lsl"),
+            (self.usl, "usl"),
+            (self.target, "target"),
+            (self.unit, "unit"),
+            (self.threshold, "threshold"),
+        ):
             w.add_class(f"sk-new-{key}")
         self.include.add_class("sk-new-include")
         self.safety.add_class("sk-new-safety")
@@ -201,14 +241,31 @@ class _SpecRow:
             w.observe(on_change, names="value")
 
     def cells(self) -> list:
-        return [self.include, self.label, self.unit, self.lsl, self.usl, self.target,
-                self.safety, self.index, self.threshold, self.basis]
+        return [
+            self.include,
+            self.label,
+            self.unit,
+            self.lsl,
+            self.usl,
+            self.target,
+            self.safety,
+            self.index,
+            self.threshold,
+            self.basis,
+        ]
 
     def row(self) -> dict:
-        return {"characteristic": self.name, "unit": self.unit.value, "lsl": self.lsl.value,
-                "usl": self.usl.value, "target": self.target.value,
-                "safety_critical": bool(self.safety.value), "criterion": self.index.value,
-                "threshold": self.threshold.value, "basis": self.basis.value}
+        return {
+            "characteristic": self.name,
+            "unit": self.unit.value,
+            "lsl": self.lsl.value,
+            "usl": self.usl.value,
+            "target": self.target.value,
+            "safety_critical": bool(self.safety.value),
+            "criterion": self.index.value,
+            "threshold": self.threshold.value,
+            "basis": self.basis.value,
+        }
 
 
 class NewStudyPanel(widgets.VBox):
@@ -221,22 +278,36 @@ class NewStudyPanel(widgets.VBox):
         m = context.messages
         self.head = html_box("", "sk-new-head")
         self.file_list = html_box("", "sk-new-files")
-        self.table = widgets.GridBox([], layout=widgets.Layout(
-            grid_template_columns="60px minmax(140px, 1.4fr) 70px 92px 92px 92px 76px 80px "
-                                  "64px 116px", grid_gap="4px 8px", align_items="center",
-            width="100%", overflow="auto"))
+        self.table = widgets.GridBox(
+            [],
+            layout=widgets.Layout(
+                grid_template_columns="60px minmax(140px, 1.4fr) 70px 92px 92px 92px 76px 80px "
+                "64px 116px",
+                grid_gap="4px 8px",
+                align_items="center",
+                width="100%",
+                overflow="auto",
+            ),
+        )
         self.table.add_class("sk-new-spec-table")
-        self.study_name = widgets.Text(placeholder="e.g. pilot-run-3",
-                                       layout=widgets.Layout(width="260px"))
+        self.study_name = widgets.Text(
+            placeholder="e.g. pilot-run-3", layout=widgets.Layout(width="260px")
+        )
         self.study_name.add_class("sk-new-name")
-        self.title = widgets.Text(placeholder="e.g. QV-4410 pre-launch capability study",
-                                  layout=widgets.Layout(width="380px"))
+        self.title = widgets.Text(
+            placeholder="e.g. QV-4410 pre-launch capability study",
+            layout=widgets.Layout(width="380px"),
+        )
         self.title.add_class("sk-new-title")
         self.who = widgets.Text(placeholder="e.g. R. Okonkwo", layout=widgets.Layout(width="220px"))
         self.who.add_class("sk-new-who")
-        self.create = widgets.Button(description="Create study", button_style="primary",
-                                     icon="plus", disabled=True,
-                                     layout=widgets.Layout(width="auto"))
+        self.create = widgets.Button(
+            description="Create study",
+            button_style="primary",
+            icon="plus",
+            disabled=True,
+            layout=widgets.Layout(width="auto"),
+        )
         self.create.add_class("sk-create-study")
         self.hint = html_box("", "sk-small sk-new-hint")
         for w in (self.study_name, self.who):
@@ -246,19 +317,27 @@ class NewStudyPanel(widgets.VBox):
         def labelled(text, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
-        self.form = widgets.VBox([
-            html_box('<div class="sk-panel-title">Specification table</div>'
-                     '<div class="sk-muted">One row per characteristic found. Leave a limit '
-                     "empty for a one-sided specification; untick 'In study' to leave a column "
-                     "out. Changes after creation are recorded with a reason in 'Limits & "
-                     "targets'.</div>"),
-            self.table,
-            widgets.HBox([labelled("Study file name", self.study_name),
-                          labelled("Title", self.title),
-                          labelled("Your name (recorded as creator)", self.who)],
-                         layout=widgets.Layout(flex_flow="row wrap", grid_gap="12px")),
-            widgets.HBox([self.create, self.hint],
-                         layout=widgets.Layout(align_items="center"))])
+        self.form = widgets.VBox(
+            [
+                html_box(
+                    '<div class="sk-panel-title">Specification table</div>'
+                    '<div class="sk-muted">One row per characteristic found. Leave a limit '
+                    "empty for a one-sided specification; untick 'In study' to leave a column "
+                    "out. Changes after creation are recorded with a reason in 'Limits & "
+                    "targets'.</div>"
+                ),
+                self.table,
+                widgets.HBox(
+                    [
+                        labelled("Study file name", self.study_name),
+                        labelled("Title", self.title),
+                        labelled("Your name (recorded as creator)", self.who),
+                    ],
+                    layout=widgets.Layout(flex_flow="row wrap", grid_gap="12px"),
+                ),
+                widgets.HBox([self.create, self.hint], layout=widgets.Layout(align_items="center")),
+            ]
+        )
         super().__init__([self.head, self.file_list, self.form])
         self.add_class("sk-new-study")
         self.refresh()
@@ -304,13 +383,30 @@ class NewStudyPanel(widgets.VBox):
                 if keep is not None and keep.filename == filename:
                     rows.append(keep)
                 else:
-                    rows.append(_SpecRow(name, getattr(ch, "unit", None), filename,
-                                         guarded(lambda _c: self._update(),
-                                                 messages=self.context.messages)))
+                    rows.append(
+                        _SpecRow(
+                            name,
+                            getattr(ch, "unit", None),
+                            filename,
+                            guarded(lambda _c: self._update(), messages=self.context.messages),
+                        )
+                    )
         self.rows = rows
-        header = [html_box(f'<div class="sk-field-label">{esc(t)}</div>')
-                  for t in ("In study", "Characteristic", "Unit", "LSL", "USL", "Target",
-                            "Safety-critical", "Index", "At least", "Judged on")]
+        header = [
+            html_box(f'<div class="sk-field-label">{esc(t)}</div>')
+            for t in (
+                "In study",
+                "Characteristic",
+                "Unit",
+                "LSL",
+                "USL",
+                "Target",
+                "Safety-critical",
+                "Index",
+                "At least",
+                "Judged on",
+            )
+        ]
         cells = list(header)
         for r in rows:
             cells.extend(r.cells())
@@ -324,26 +420,34 @@ class NewStudyPanel(widgets.VBox):
         if named is not None and not self.study_name.value:
             self.study_name.value = named.stem
         self.study_name.disabled = named is not None
-        where = (f"The study file <b>{esc(named.name)}</b> does not exist yet: it is created "
-                 "here." if named is not None else
-                 "The study file is written in the folder the workbook was started from.")
+        where = (
+            f"The study file <b>{esc(named.name)}</b> does not exist yet: it is created here."
+            if named is not None
+            else "The study file is written in the folder the workbook was started from."
+        )
         self.head.value = (
             '<div class="sk-panel-title">New study from these files</div>'
-            '<div class="sk-muted">Confirm each measurement file with \'Use this data\' (one '
+            "<div class=\"sk-muted\">Confirm each measurement file with 'Use this data' (one "
             "after another for a study over several files), fill the specification table, "
-            f"name the study file and create it. {where}</div>")
+            f"name the study file and create it. {where}</div>"
+        )
         if not self.files:
-            self.file_list.value = ('<div class="sk-muted">No file confirmed for the new study '
-                                    "yet.</div>")
+            self.file_list.value = (
+                '<div class="sk-muted">No file confirmed for the new study yet.</div>'
+            )
             self.form.layout.display = "none"
         else:
             items = "".join(
                 f"<li><b>{esc(n)}</b>: {len(getattr(m, 'characteristics', []) or [])} "
                 f"characteristic(s), layout {esc(getattr(m, 'layout', '?'))}"
-                + ("" if i else " (main data file)") + "</li>"
-                for i, (n, _d, m) in enumerate(self.files))
-            self.file_list.value = (f'<div class="sk-field-label">Files in the new study</div>'
-                                    f'<ul class="sk-new-file-list">{items}</ul>')
+                + ("" if i else " (main data file)")
+                + "</li>"
+                for i, (n, _d, m) in enumerate(self.files)
+            )
+            self.file_list.value = (
+                f'<div class="sk-field-label">Files in the new study</div>'
+                f'<ul class="sk-new-file-list">{items}</ul>'
+            )
             self.form.layout.display = ""
         self._update()
 
@@ -353,8 +457,9 @@ class NewStudyPanel(widgets.VBox):
             missing.append("confirm a measurement file")
         if not any(r.include.value for r in self.rows):
             missing.append("tick at least one characteristic")
-        elif not any(r.include.value and (r.lsl.value.strip() or r.usl.value.strip())
-                     for r in self.rows):
+        elif not any(
+            r.include.value and (r.lsl.value.strip() or r.usl.value.strip()) for r in self.rows
+        ):
             missing.append("give at least one specification limit")
         if not self.study_name.value.strip():
             missing.append("name the study file")
@@ -367,11 +472,15 @@ class NewStudyPanel(widgets.VBox):
         from studykit.app.shell import load_study_into
 
         named = self._named_path()
-        path = named if named is not None else self.target_folder() / study_file_name(
-            self.study_name.value)
+        path = (
+            named
+            if named is not None
+            else self.target_folder() / study_file_name(self.study_name.value)
+        )
         rows = [r.row() for r in self.rows if r.include.value]
-        sf = create_study_from_files(path, self.files, rows, title=self.title.value,
-                                     who=self.who.value)
+        sf = create_study_from_files(
+            path, self.files, rows, title=self.title.value, who=self.who.value
+        )
         study = sf.load()
         who = self.who.value.strip()
         ctx = self.context
@@ -386,10 +495,12 @@ class NewStudyPanel(widgets.VBox):
         ws = workspace(ctx)
         if ws is not None and not ws.who.value:
             ws.who.value = who
-        ctx.messages.ok(f"Created the study file '{path.name}' with "
-                        f"{len(study.characteristics)} characteristic(s) from "
-                        f"{', '.join(n for n, _data in study.files)}. Every step now works "
-                        "on it.")
+        ctx.messages.ok(
+            f"Created the study file '{path.name}' with "
+            f"{len(study.characteristics)} characteristic(s) from "
+            f"{', '.join(n for n, _data in study.files)}. Every step now works "
+            "on it."
+        )
         opener = ctx.extra.get("studykit.open_step")
         if callable(opener):
             opener("limits")

@@ -30,8 +30,12 @@ from studykit.errors import StudyInputError
 from studykit.report import model_list
 from studykit.report.model_list import family_lines
 
-_BASE_MODELS = [("Let studykit choose (auto)", "auto"), ("Normal", "normal"),
-                ("Box-Cox transformation", "boxcox"), ("Johnson transformation", "johnson")]
+_BASE_MODELS = [
+    ("Let studykit choose (auto)", "auto"),
+    ("Normal", "normal"),
+    ("Box-Cox transformation", "boxcox"),
+    ("Johnson transformation", "johnson"),
+]
 
 
 def _model_options(result) -> list:
@@ -53,8 +57,11 @@ def _threshold_variants(result) -> dict:
     """Family id -> the id of its threshold variant, for the families that have a usable one."""
     if result is None or result.ranking is None:
         return {}
-    return {line.family: line.shifted.id for line in family_lines(result.ranking)
-            if _usable(line.shifted)}
+    return {
+        line.family: line.shifted.id
+        for line in family_lines(result.ranking)
+        if _usable(line.shifted)
+    }
 
 
 def _ad_p(row) -> str:
@@ -80,42 +87,56 @@ def ranking_html(result, *, limit: int = 10) -> str:
                 continue
             mark = f" <b>{esc(L['used'])}</b>" if row.id == chosen else ""
             aic = "not fitted" if row.error else fmt(row.aic, 1)
-            cells.append(f'<td class="num">{esc(aic)}{mark}</td>'
-                         f'<td class="num">{esc(_ad_p(row))}</td>')
+            cells.append(
+                f'<td class="num">{esc(aic)}{mark}</td><td class="num">{esc(_ad_p(row))}</td>'
+            )
         note = line.best.note or ("" if line.best.converged else "did not converge")
         effect = model_list.threshold_effect(line, fmt)
-        body.append(f'<tr><td class="num">{line.rank}</td><td>{esc(line.name)}</td>'
-                    + "".join(cells) + f'<td class="sk-small">{esc(effect)}'
-                    + (f"<br>{esc(note)}" if note else "") + "</td></tr>")
-    head = (f'<tr><th rowspan="2">#</th><th rowspan="2">{esc(L["family"])}</th>'
-            f'<th colspan="2">{esc(L["plain"])}</th><th colspan="2">{esc(L["shifted"])}</th>'
-            f'<th rowspan="2">{esc(L["effect"])}</th></tr>'
-            f"<tr><th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th>"
-            f"<th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th></tr>")
-    return (f'<div class="sk-panel-title">{esc(L["title"])}</div>'
-            f'<div class="sk-small">{esc(L["rule"])} {esc(ranking.rule)}</div>'
-            f'<div class="sk-scroll"><table class="sk-table sk-ranking"><thead>{head}</thead>'
-            "<tbody>" + "".join(body) + "</tbody></table></div>"
-            f'<div class="sk-small">{esc(model_list.SOURCE)}</div>')
+        body.append(
+            f'<tr><td class="num">{line.rank}</td><td>{esc(line.name)}</td>'
+            + "".join(cells)
+            + f'<td class="sk-small">{esc(effect)}'
+            + (f"<br>{esc(note)}" if note else "")
+            + "</td></tr>"
+        )
+    head = (
+        f'<tr><th rowspan="2">#</th><th rowspan="2">{esc(L["family"])}</th>'
+        f'<th colspan="2">{esc(L["plain"])}</th><th colspan="2">{esc(L["shifted"])}</th>'
+        f'<th rowspan="2">{esc(L["effect"])}</th></tr>'
+        f"<tr><th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th>"
+        f"<th>{esc(L['aic'])}</th><th>{esc(L['ad_p'])}</th></tr>"
+    )
+    return (
+        f'<div class="sk-panel-title">{esc(L["title"])}</div>'
+        f'<div class="sk-small">{esc(L["rule"])} {esc(ranking.rule)}</div>'
+        f'<div class="sk-scroll"><table class="sk-table sk-ranking"><thead>{head}</thead>'
+        "<tbody>" + "".join(body) + "</tbody></table></div>"
+        f'<div class="sk-small">{esc(model_list.SOURCE)}</div>'
+    )
 
 
 def effect_html(before, after) -> str:
     """Before/after of the judged index when the model changes."""
+
     def cells(r):
         v = r.verdict
         if v is None:
             return "<td>—</td><td>—</td><td>—</td><td>" + verdict_chip(None) + "</td>"
         label = r.model.label if r.model is not None else "—"
         kind, word = verdict_kind(v)
-        return (f"<td>{esc(label)}</td><td class=\"num\">{fmt(v.estimate)}</td>"
-                f'<td class="num">{fmt(v.lower_bound)}</td>'
-                f"<td>{verdict_chip(v.meets, text=word, kind=kind)}</td>")
+        return (
+            f'<td>{esc(label)}</td><td class="num">{fmt(v.estimate)}</td>'
+            f'<td class="num">{fmt(v.lower_bound)}</td>'
+            f"<td>{verdict_chip(v.meets, text=word, kind=kind)}</td>"
+        )
 
     index = (before.verdict.index if before.verdict is not None else "index").capitalize()
-    return ('<table class="sk-table sk-effect"><thead><tr><th></th><th>Model</th>'
-            f"<th>{esc(index)}</th><th>Lower bound</th><th>Verdict</th></tr></thead><tbody>"
-            f"<tr><td>Now</td>{cells(before)}</tr><tr><td>With the choice</td>{cells(after)}"
-            "</tr></tbody></table>")
+    return (
+        '<table class="sk-table sk-effect"><thead><tr><th></th><th>Model</th>'
+        f"<th>{esc(index)}</th><th>Lower bound</th><th>Verdict</th></tr></thead><tbody>"
+        f"<tr><td>Now</td>{cells(before)}</tr><tr><td>With the choice</td>{cells(after)}"
+        "</tr></tbody></table>"
+    )
 
 
 class ShapeStep:
@@ -141,20 +162,28 @@ class ShapeStep:
         self.caution = widgets.VBox([])
         self.tests = html_box("", "sk-normality")
         self.ranking = html_box("", "sk-ranking-box")
-        self.model = widgets.Dropdown(options=_BASE_MODELS, value="auto",
-                                      layout=widgets.Layout(width="320px"))
+        self.model = widgets.Dropdown(
+            options=_BASE_MODELS, value="auto", layout=widgets.Layout(width="320px")
+        )
         self.model.add_class("sk-model-pick")
-        self.threshold = widgets.Checkbox(value=False, description=model_list.LABELS["allow"],
-                                          indent=False, disabled=True,
-                                          layout=widgets.Layout(width="auto"))
+        self.threshold = widgets.Checkbox(
+            value=False,
+            description=model_list.LABELS["allow"],
+            indent=False,
+            disabled=True,
+            layout=widgets.Layout(width="auto"),
+        )
         self.threshold.add_class("sk-model-threshold")
         self._variants = {}
         self.effect = html_box("", "sk-model-effect")
-        self.reason = widgets.Text(placeholder="why this model, e.g. 'runout is bounded at zero'",
-                                   layout=widgets.Layout(width="420px"))
+        self.reason = widgets.Text(
+            placeholder="why this model, e.g. 'runout is bounded at zero'",
+            layout=widgets.Layout(width="420px"),
+        )
         self.reason.add_class("sk-model-reason")
-        self.save = widgets.Button(description="Record model choice", button_style="primary",
-                                   disabled=True, icon="check")
+        self.save = widgets.Button(
+            description="Record model choice", button_style="primary", disabled=True, icon="check"
+        )
         self.save.add_class("sk-model-save")
         self.hint = html_box("", "sk-small")
         self.model.observe(guarded(lambda _c: self._on_model(), messages=m), names="value")
@@ -163,13 +192,18 @@ class ShapeStep:
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
         self.save.on_click(guarded(lambda _b: self._on_save(), messages=m))
         self.body = widgets.VBox([])
-        choice = widgets.VBox([
-            html_box('<div class="sk-panel-title">Model for the capability indices</div>'),
-            widgets.HBox([widgets.VBox([self.model, self.threshold]), self.effect],
-                         layout=widgets.Layout(flex_flow="row wrap",
-                                               align_items="flex-start")),
-            html_box('<div class="sk-field-label">Reason (required)</div>'), self.reason,
-            widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center"))])
+        choice = widgets.VBox(
+            [
+                html_box('<div class="sk-panel-title">Model for the capability indices</div>'),
+                widgets.HBox(
+                    [widgets.VBox([self.model, self.threshold]), self.effect],
+                    layout=widgets.Layout(flex_flow="row wrap", align_items="flex-start"),
+                ),
+                html_box('<div class="sk-field-label">Reason (required)</div>'),
+                self.reason,
+                widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
+            ]
+        )
         self.content = widgets.VBox([self.tests, self.chart, choice, self.ranking])
         self.refresh(context)
         self.chart.children = [self.live.widget("sk-shape-chart")]
@@ -197,10 +231,13 @@ class ShapeStep:
             return
         self._drawn = key
         if res.attribute or res.probability_plot is None:
-            self.body.children = [html_box(
-                '<div class="sk-coming">Counted data (defectives or defects) are judged by '
-                "their rate, not by a distribution of measured values: see the capability "
-                "step.</div>")]
+            self.body.children = [
+                html_box(
+                    '<div class="sk-coming">Counted data (defectives or defects) are judged by '
+                    "their rate, not by a distribution of measured values: see the capability "
+                    "step.</div>"
+                )
+            ]
             self.content.layout.display = "none"
             return
         self.body.children = []
@@ -229,17 +266,23 @@ class ShapeStep:
     def _tests_html(res) -> str:
         ad = res.normality["anderson_darling"] if res.normality else None
         sw = res.normality["shapiro_wilk"] if res.normality else None
-        facts = [("Values used", f"{res.n} in {res.subgroups} subgroups"),
-                 ("Mean / overall sigma", f"{fmt(res.mean, 5)} / {fmt(res.overall_sigma, 5)}")]
+        facts = [
+            ("Values used", f"{res.n} in {res.subgroups} subgroups"),
+            ("Mean / overall sigma", f"{fmt(res.mean, 5)} / {fmt(res.overall_sigma, 5)}"),
+        ]
         if ad is not None:
-            facts.append(("Anderson-Darling (normal)",
-                          f"A² = {fmt(ad.a2, 3)}, p = {fmt(ad.p_value, 3)}"))
+            facts.append(
+                ("Anderson-Darling (normal)", f"A² = {fmt(ad.a2, 3)}, p = {fmt(ad.p_value, 3)}")
+            )
         if sw is not None:
             facts.append(("Shapiro-Wilk (normal)", f"W = {fmt(sw.w, 4)}, p = {fmt(sw.p_value, 3)}"))
         if res.model is not None:
             facts.append(("Model used", f"{res.model.label} — {res.model.reason}"))
-        return ('<dl class="sk-facts">' + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>"
-                                                  for k, v in facts) + "</dl>")
+        return (
+            '<dl class="sk-facts">'
+            + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in facts)
+            + "</dl>"
+        )
 
     def chosen(self) -> str:
         """The model id chosen: the family, or its threshold variant when the box is ticked."""
@@ -271,16 +314,23 @@ class ShapeStep:
         try:
             after = s.preview(s.current, model=self.chosen())
         except StudyInputError as exc:
-            self.effect.value = (f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">'
-                                 f"Cannot use this model</span>{esc(exc)}</div>")
+            self.effect.value = (
+                f'<div class="sk-msg sk-msg-warning"><span class="sk-msg-kind">'
+                f"Cannot use this model</span>{esc(exc)}</div>"
+            )
             return
         self.effect.value = effect_html(before, after)
 
     def _on_save(self) -> None:
         ws, s = self.ws, self.ws.session
         chosen = self.chosen()
-        s.set_model(s.current, chosen, who=ws.who_name, reason=self.reason.value,
-                    override_reason=ws.override_reason)
+        s.set_model(
+            s.current,
+            chosen,
+            who=ws.who_name,
+            reason=self.reason.value,
+            override_reason=ws.override_reason,
+        )
         words = dict((v, label) for label, v in self.model.options).get(self.model.value, chosen)
         if chosen != self.model.value:
             words += f" ({model_list.LABELS['shifted'].lower()})"

@@ -33,52 +33,70 @@ def lock_html(session) -> str:
     voided = [st for st in states if not st.valid]
     out = []
     if holder is not None:
-        out.append(f'<div class="sk-lock sk-locked"><b>Approved and locked.</b> '
-                   f"{esc(holder.name)} approved this study on {_when(holder.when)}. Changes to "
-                   "data or decisions are refused; to change it anyway, give a reason in the "
-                   "field at the top of the panel: the change then voids the approval, which "
-                   "stays on record as voided.</div>")
+        out.append(
+            f'<div class="sk-lock sk-locked"><b>Approved and locked.</b> '
+            f"{esc(holder.name)} approved this study on {_when(holder.when)}. Changes to "
+            "data or decisions are refused; to change it anyway, give a reason in the "
+            "field at the top of the panel: the change then voids the approval, which "
+            "stays on record as voided.</div>"
+        )
     if voided:
-        items = "".join(f"<li><b>{esc(st.signoff.name)}</b> "
-                        f"({esc(names.role_label(st.signoff.role))}, "
-                        f"{esc(names.decision_label(st.signoff.decision))}, "
-                        f"{_when(st.signoff.when)}): "
-                        f"{esc(st.why)}</li>" for st in voided)
-        out.append('<div class="sk-void sk-voided-banner"><b>✗ Sign-off voided.</b> The study '
-                   "changed after these sign-offs, so they no longer hold and the study must be "
-                   f"signed again:<ul style=\"margin:4px 0 0 0\">{items}</ul></div>")
+        items = "".join(
+            f"<li><b>{esc(st.signoff.name)}</b> "
+            f"({esc(names.role_label(st.signoff.role))}, "
+            f"{esc(names.decision_label(st.signoff.decision))}, "
+            f"{_when(st.signoff.when)}): "
+            f"{esc(st.why)}</li>"
+            for st in voided
+        )
+        out.append(
+            '<div class="sk-void sk-voided-banner"><b>✗ Sign-off voided.</b> The study '
+            "changed after these sign-offs, so they no longer hold and the study must be "
+            f'signed again:<ul style="margin:4px 0 0 0">{items}</ul></div>'
+        )
     if not out:
-        out.append('<div class="sk-muted">Not approved yet. Review the evidence, comment, and '
-                   "sign below.</div>")
+        out.append(
+            '<div class="sk-muted">Not approved yet. Review the evidence, comment, and '
+            "sign below.</div>"
+        )
     return "".join(out)
 
 
 def signoffs_html(session) -> str:
     states = session.signoff_state()
     if not states:
-        return ('<div class="sk-panel-title">Sign-offs</div><div class="sk-muted">Nobody has '
-                "signed yet.</div>")
+        return (
+            '<div class="sk-panel-title">Sign-offs</div><div class="sk-muted">Nobody has '
+            "signed yet.</div>"
+        )
     current = session.shown_digest
     body = []
     for st in states:
         s = st.signoff
         cls = "" if st.valid else ' class="sk-voided"'
-        state = (verdict_chip(True, text=names.SIGNOFF_VALID) if st.valid
-                 else verdict_chip(False, text=names.SIGNOFF_VOIDED))
-        match = ("matches the study now" if s.digest == current
-                 else "differs from the study now")
-        body.append(f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(names.role_label(s.role))}"
-                    f"</td><td{cls}>{esc(names.decision_label(s.decision))}</td>"
-                    f"<td{cls}>{esc(s.comment)}</td>"
-                    f"<td{cls}>{_when(s.when)}</td>"
-                    f'<td><code class="sk-digest" title="{esc(s.digest)}">{esc(s.digest[:12])}'
-                    f'</code><div class="sk-small">{match}</div></td><td>{state}'
-                    f"{'<div class=sk-small>' + esc(st.why) + '</div>' if st.why else ''}"
-                    f"</td></tr>")
-    return ('<div class="sk-panel-title">Sign-offs</div><table class="sk-table sk-signoffs">'
-            "<thead><tr><th>Name</th><th>Role</th><th>Decision</th><th>Comment</th>"
-            "<th>When (UTC)</th><th>Content signed</th><th>State</th></tr></thead><tbody>"
-            + "".join(body) + "</tbody></table>")
+        state = (
+            verdict_chip(True, text=names.SIGNOFF_VALID)
+            if st.valid
+            else verdict_chip(False, text=names.SIGNOFF_VOIDED)
+        )
+        match = "matches the study now" if s.digest == current else "differs from the study now"
+        body.append(
+            f"<tr><td{cls}>{esc(s.name)}</td><td{cls}>{esc(names.role_label(s.role))}"
+            f"</td><td{cls}>{esc(names.decision_label(s.decision))}</td>"
+            f"<td{cls}>{esc(s.comment)}</td>"
+            f"<td{cls}>{_when(s.when)}</td>"
+            f'<td><code class="sk-digest" title="{esc(s.digest)}">{esc(s.digest[:12])}'
+            f'</code><div class="sk-small">{match}</div></td><td>{state}'
+            f"{'<div class=sk-small>' + esc(st.why) + '</div>' if st.why else ''}"
+            f"</td></tr>"
+        )
+    return (
+        '<div class="sk-panel-title">Sign-offs</div><table class="sk-table sk-signoffs">'
+        "<thead><tr><th>Name</th><th>Role</th><th>Decision</th><th>Comment</th>"
+        "<th>When (UTC)</th><th>Content signed</th><th>State</th></tr></thead><tbody>"
+        + "".join(body)
+        + "</tbody></table>"
+    )
 
 
 def rules_html(session) -> str:
@@ -87,17 +105,24 @@ def rules_html(session) -> str:
 
     rules = session.study.signoff_rules()
     items = "".join(
-        f"<li>{'✓' if rules[k] else '✗ switched off:'} {esc(RULE_TEXT[k])}</li>"
-        for k in RULE_TEXT)
+        f"<li>{'✓' if rules[k] else '✗ switched off:'} {esc(RULE_TEXT[k])}</li>" for k in RULE_TEXT
+    )
     waivers = session.study.waivers()
     wv = ""
     if waivers:
-        wv = ("<div><b>Waivers</b> (approval without a verdict):<ul style='margin:2px 0'>"
-              + "".join(f"<li><b>{esc(n)}</b>: {esc(d.reason)} <span class='sk-small'>"
-                        f"({esc(d.who)}, {_when(d.when)})</span></li>"
-                        for n, d in waivers.items()) + "</ul></div>")
-    return ('<div class="sk-panel-title">Sign-off rules of this study</div>'
-            f'<ul class="sk-rules" style="margin:2px 0">{items}</ul>{wv}')
+        wv = (
+            "<div><b>Waivers</b> (approval without a verdict):<ul style='margin:2px 0'>"
+            + "".join(
+                f"<li><b>{esc(n)}</b>: {esc(d.reason)} <span class='sk-small'>"
+                f"({esc(d.who)}, {_when(d.when)})</span></li>"
+                for n, d in waivers.items()
+            )
+            + "</ul></div>"
+        )
+    return (
+        '<div class="sk-panel-title">Sign-off rules of this study</div>'
+        f'<ul class="sk-rules" style="margin:2px 0">{items}</ul>{wv}'
+    )
 
 
 def open_verdicts_html(open_: dict) -> str:
@@ -105,12 +130,16 @@ def open_verdicts_html(open_: dict) -> str:
         return ""
     rows = "".join(f"<li><b>{esc(n)}</b>: {esc(w)}</li>" for n, w in open_.items())
     if all(w == names.VERDICT_STATES["not_analysed"] for w in open_.values()):
-        return ('<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
-                "known once every characteristic is analysed (<i>Analyse all "
-                "characteristics</i> in the overview, or an approval, does it).</div>")
-    return ('<div class="sk-void sk-open-verdicts"><b>An approval is not possible yet.</b> '
-            "These characteristics have no verdict; settle them, or record a waiver with its "
-            f'reason for each (below):<ul style="margin:4px 0 0 0">{rows}</ul></div>')
+        return (
+            '<div class="sk-muted sk-open-verdicts">Whether an approval is possible is '
+            "known once every characteristic is analysed (<i>Analyse all "
+            "characteristics</i> in the overview, or an approval, does it).</div>"
+        )
+    return (
+        '<div class="sk-void sk-open-verdicts"><b>An approval is not possible yet.</b> '
+        "These characteristics have no verdict; settle them, or record a waiver with its "
+        f'reason for each (below):<ul style="margin:4px 0 0 0">{rows}</ul></div>'
+    )
 
 
 def comments_html(session, name: str) -> str:
@@ -120,16 +149,23 @@ def comments_html(session, name: str) -> str:
     return "".join(
         f'<div class="sk-proposal"><b>{esc(c.who)}</b> <span class="sk-small">'
         f"{_when(c.when)} · {esc(c.characteristic or 'whole study')}</span>"
-        f"<div>{esc(c.text)}</div></div>" for c in rows)
+        f"<div>{esc(c.text)}</div></div>"
+        for c in rows
+    )
 
 
 def audit_html(session, *, limit: int = 12) -> str:
     entries = session.audit_log()[-limit:]
-    body = "".join(f"<tr><td>{_when(e.when)}</td><td>{esc(e.who)}</td><td>{esc(e.what)}</td>"
-                   f"<td>{esc(e.why)}</td></tr>" for e in reversed(entries))
-    return ('<div class="sk-panel-title">Latest entries of the audit log</div>'
-            '<table class="sk-table sk-audit"><thead><tr><th>When (UTC)</th><th>Who</th>'
-            f"<th>What</th><th>Why</th></tr></thead><tbody>{body}</tbody></table>")
+    body = "".join(
+        f"<tr><td>{_when(e.when)}</td><td>{esc(e.who)}</td><td>{esc(e.what)}</td>"
+        f"<td>{esc(e.why)}</td></tr>"
+        for e in reversed(entries)
+    )
+    return (
+        '<div class="sk-panel-title">Latest entries of the audit log</div>'
+        '<table class="sk-table sk-audit"><thead><tr><th>When (UTC)</th><th>Who</th>'
+        f"<th>What</th><th>Why</th></tr></thead><tbody>{body}</tbody></table>"
+    )
 
 
 class SignoffStep:
@@ -137,8 +173,10 @@ class SignoffStep:
 
     key = "signoff"
     title = names.STEP_NAMES[key]
-    guidance = ("The team reviews the evidence and signs; a later change to data or decisions "
-                "voids the sign-off.")
+    guidance = (
+        "The team reviews the evidence and signs; a later change to data or decisions "
+        "voids the sign-off."
+    )
 
     def __init__(self):
         self.ws = None
@@ -155,27 +193,37 @@ class SignoffStep:
         m = context.messages
         self.lock = html_box("", "sk-lock-state")
         self.signoffs = html_box("", "sk-signoff-table")
-        self.role = widgets.Combobox(options=list(SIGNOFF_ROLES), value="reviewed",
-                                     placeholder="prepared, reviewed, approved …",
-                                     ensure_option=False, layout=widgets.Layout(width="200px"))
+        self.role = widgets.Combobox(
+            options=list(SIGNOFF_ROLES),
+            value="reviewed",
+            placeholder="prepared, reviewed, approved …",
+            ensure_option=False,
+            layout=widgets.Layout(width="200px"),
+        )
         self.role.add_class("sk-sign-role")
         self.decision = widgets.ToggleButtons(options=_DECISIONS, value="approve")
         self.decision.add_class("sk-sign-decision")
-        self.sign_comment = widgets.Textarea(placeholder="comment (required when rejecting)",
-                                             layout=widgets.Layout(width="100%",
-                                                                   max_width="640px",
-                                                                   height="60px"))
-        self.sign = widgets.Button(description="Sign the study as it stands",
-                                   button_style="primary", icon="pencil", disabled=True)
+        self.sign_comment = widgets.Textarea(
+            placeholder="comment (required when rejecting)",
+            layout=widgets.Layout(width="100%", max_width="640px", height="60px"),
+        )
+        self.sign = widgets.Button(
+            description="Sign the study as it stands",
+            button_style="primary",
+            icon="pencil",
+            disabled=True,
+        )
         self.sign.add_class("sk-sign")
         self.sign_hint = html_box("", "sk-small")
         self.comments = html_box("", "sk-comments")
-        self.comment = widgets.Textarea(placeholder="what should the team know?",
-                                        layout=widgets.Layout(width="100%", max_width="640px",
-                                                              height="60px"))
+        self.comment = widgets.Textarea(
+            placeholder="what should the team know?",
+            layout=widgets.Layout(width="100%", max_width="640px", height="60px"),
+        )
         self.comment.add_class("sk-comment-text")
-        self.about = widgets.Checkbox(value=True, indent=False,
-                                      description="about the characteristic shown")
+        self.about = widgets.Checkbox(
+            value=True, indent=False, description="about the characteristic shown"
+        )
         self.add = widgets.Button(description="Add comment", icon="comment", disabled=True)
         self.add.add_class("sk-add-comment")
         self.reload = widgets.Button(description="Read the study file again", icon="refresh")
@@ -184,14 +232,20 @@ class SignoffStep:
         self.digest = html_box("", "sk-sign-digest")
         self.rules = html_box("", "sk-rules-box")
         self.gate = html_box("", "sk-gate")
-        self.waive_reason = widgets.Text(placeholder="why it may be approved without a verdict",
-                                         layout=widgets.Layout(width="420px"))
+        self.waive_reason = widgets.Text(
+            placeholder="why it may be approved without a verdict",
+            layout=widgets.Layout(width="420px"),
+        )
         self.waive_reason.add_class("sk-waive-reason")
-        self.waive = widgets.Button(description="Record waiver for the characteristic shown",
-                                    icon="check-square-o", disabled=True)
+        self.waive = widgets.Button(
+            description="Record waiver for the characteristic shown",
+            icon="check-square-o",
+            disabled=True,
+        )
         self.waive.add_class("sk-waive")
-        self.waive_reason.observe(guarded(lambda _c: self._update_buttons(), messages=m),
-                                  names="value")
+        self.waive_reason.observe(
+            guarded(lambda _c: self._update_buttons(), messages=m), names="value"
+        )
         self.waive.on_click(guarded(lambda _b: self._on_waive(), messages=m))
         for w in (ws.who, self.comment, self.sign_comment, self.role):
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
@@ -202,28 +256,57 @@ class SignoffStep:
         def field(label, w):
             return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
 
-        sign_form = widgets.VBox([
-            html_box('<div class="sk-panel-title">Sign</div><div class="sk-muted">Your '
-                     "signature covers the study as this page shows it; its content digest is "
-                     "stored with it, and the sign-off is refused if the study changed after "
-                     "the page was drawn.</div>"),
-            self.digest, self.gate,
-            widgets.HBox([field("Role", self.role), field("Decision", self.decision)],
-                         layout=widgets.Layout(flex_flow="row wrap")),
-            field("Comment", self.sign_comment),
-            widgets.HBox([self.sign, self.sign_hint], layout=widgets.Layout(
-                align_items="center"))])
-        waive_form = widgets.VBox([
-            self.rules,
-            widgets.HBox([self.waive_reason, self.waive],
-                         layout=widgets.Layout(align_items="center", flex_flow="row wrap"))])
-        comment_form = widgets.VBox([
-            html_box('<div class="sk-panel-title">Comments</div>'), self.comments,
-            self.comment, widgets.HBox([self.about, self.add],
-                                       layout=widgets.Layout(align_items="center"))])
+        sign_form = widgets.VBox(
+            [
+                html_box(
+                    '<div class="sk-panel-title">Sign</div><div class="sk-muted">Your '
+                    "signature covers the study as this page shows it; its content digest is "
+                    "stored with it, and the sign-off is refused if the study changed after "
+                    "the page was drawn.</div>"
+                ),
+                self.digest,
+                self.gate,
+                widgets.HBox(
+                    [field("Role", self.role), field("Decision", self.decision)],
+                    layout=widgets.Layout(flex_flow="row wrap"),
+                ),
+                field("Comment", self.sign_comment),
+                widgets.HBox(
+                    [self.sign, self.sign_hint], layout=widgets.Layout(align_items="center")
+                ),
+            ]
+        )
+        waive_form = widgets.VBox(
+            [
+                self.rules,
+                widgets.HBox(
+                    [self.waive_reason, self.waive],
+                    layout=widgets.Layout(align_items="center", flex_flow="row wrap"),
+                ),
+            ]
+        )
+        comment_form = widgets.VBox(
+            [
+                html_box('<div class="sk-panel-title">Comments</div>'),
+                self.comments,
+                self.comment,
+                widgets.HBox([self.about, self.add], layout=widgets.Layout(align_items="center")),
+            ]
+        )
         self.refresh(context)
-        return panel([panel_css(), ws.toolbar(), self.lock, self.reload, self.signoffs,
-                             sign_form, waive_form, comment_form, self.audit])
+        return panel(
+            [
+                panel_css(),
+                ws.toolbar(),
+                self.lock,
+                self.reload,
+                self.signoffs,
+                sign_form,
+                waive_form,
+                comment_form,
+                self.audit,
+            ]
+        )
 
     def refresh(self, context) -> None:
         ws = self.ws
@@ -238,8 +321,10 @@ class SignoffStep:
         self.signoffs.value = signoffs_html(s)
         self.comments.value = comments_html(s, s.current)
         self.audit.value = audit_html(s)
-        self.digest.value = (f'<div class="sk-small">Content you are signing: <code '
-                             f'class="sk-shown-digest">{esc(s.shown_digest)}</code></div>')
+        self.digest.value = (
+            f'<div class="sk-small">Content you are signing: <code '
+            f'class="sk-shown-digest">{esc(s.shown_digest)}</code></div>'
+        )
         self.rules.value = rules_html(s)
         gate = {}
         if s.study.signoff_rules().get("approval_needs_verdicts"):
@@ -259,8 +344,9 @@ class SignoffStep:
         self.add.disabled = not (who and self.comment.value.strip())
         s = self.ws.session
         waived = s.current in s.study.waivers()
-        self.waive.description = (f"Withdraw the waiver of {s.current}" if waived
-                                  else f"Record waiver for {s.current}")
+        self.waive.description = (
+            f"Withdraw the waiver of {s.current}" if waived else f"Record waiver for {s.current}"
+        )
         self.waive.disabled = not (who and self.waive_reason.value.strip())
 
     def _on_sign(self) -> None:
@@ -274,34 +360,50 @@ class SignoffStep:
 
     def _sign(self) -> None:
         ws, s = self.ws, self.ws.session
-        signed = s.sign(who=ws.who_name, role=self.role.value, decision=self.decision.value,
-                        comment=self.sign_comment.value)
+        signed = s.sign(
+            who=ws.who_name,
+            role=self.role.value,
+            decision=self.decision.value,
+            comment=self.sign_comment.value,
+        )
         self.sign_comment.value = ""
         lock = " The study is now approved and locked." if s.is_locked else ""
-        ws.context.messages.ok(f"Signed by {signed.name} as {signed.role} ({signed.decision})."
-                               + lock)
+        ws.context.messages.ok(
+            f"Signed by {signed.name} as {signed.role} ({signed.decision})." + lock
+        )
 
     def _on_waive(self) -> None:
         ws, s = self.ws, self.ws.session
         name = s.current
         withdraw = name in s.study.waivers()
-        s.waive(name, reason=self.waive_reason.value, who=ws.who_name, withdraw=withdraw,
-                override_reason=ws.override_reason)
+        s.waive(
+            name,
+            reason=self.waive_reason.value,
+            who=ws.who_name,
+            withdraw=withdraw,
+            override_reason=ws.override_reason,
+        )
         self.waive_reason.value = ""
-        ws.context.messages.ok(("Waiver withdrawn for " if withdraw else "Waiver recorded for ")
-                               + f"{name}. Sign-offs made before no longer hold.")
+        ws.context.messages.ok(
+            ("Waiver withdrawn for " if withdraw else "Waiver recorded for ")
+            + f"{name}. Sign-offs made before no longer hold."
+        )
 
     def _on_comment(self) -> None:
         ws, s = self.ws, self.ws.session
-        s.add_comment(self.comment.value, who=ws.who_name,
-                      characteristic=s.current if self.about.value else None)
+        s.add_comment(
+            self.comment.value,
+            who=ws.who_name,
+            characteristic=s.current if self.about.value else None,
+        )
         self.comment.value = ""
         ws.context.messages.ok("Comment added.")
 
     def _on_reload(self) -> None:
         self.ws.session.reload()
-        self.ws.context.messages.info("Read the study file again; changes made elsewhere are "
-                                      "shown.")
+        self.ws.context.messages.info(
+            "Read the study file again; changes made elsewhere are shown."
+        )
 
 
 STEP = SignoffStep()

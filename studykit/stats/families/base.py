@@ -31,18 +31,27 @@ TINY = 1e-300
 # given from memory. tests/test_fit.py checks every p-value chain by simulation.
 #: Exponential, scale estimated: A*^2 = A^2 (1 + 0.6/n); upper-tail levels 15..1 %.
 #: D'Agostino & Stephens (1986) Table 4.14 (from memory); scipy ``_Avals_expon``.
-AD_EXPON = (np.array([0.916, 1.062, 1.321, 1.591, 1.959]),
-             np.array([0.15, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.6 / n)
+AD_EXPON = (
+    np.array([0.916, 1.062, 1.321, 1.591, 1.959]),
+    np.array([0.15, 0.10, 0.05, 0.025, 0.01]),
+    lambda n: 1.0 + 0.6 / n,
+)
 #: Extreme value (and Weibull through log x), both parameters estimated: A*^2 = A^2 (1 +
 #: 0.2/sqrt(n)); Stephens (1977), Biometrika 64, 583-588; D'Agostino & Stephens (1986)
 #: Table 4.17 (from memory); scipy ``_Avals_gumbel``.
-AD_EV = (np.array([0.474, 0.637, 0.757, 0.877, 1.038]),
-          np.array([0.25, 0.10, 0.05, 0.025, 0.01]), lambda n: 1.0 + 0.2 / math.sqrt(n))
+AD_EV = (
+    np.array([0.474, 0.637, 0.757, 0.877, 1.038]),
+    np.array([0.25, 0.10, 0.05, 0.025, 0.01]),
+    lambda n: 1.0 + 0.2 / math.sqrt(n),
+)
 #: Logistic, both parameters estimated: A*^2 = A^2 (1 + 0.25/n); Stephens (1979),
 #: Biometrika 66, 591-595; D'Agostino & Stephens (1986) Table 4.22 (from memory); scipy
 #: ``_Avals_logistic``.
-AD_LOGISTIC = (np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
-                np.array([0.25, 0.10, 0.05, 0.025, 0.01, 0.005]), lambda n: 1.0 + 0.25 / n)
+AD_LOGISTIC = (
+    np.array([0.426, 0.563, 0.660, 0.769, 0.906, 1.010]),
+    np.array([0.25, 0.10, 0.05, 0.025, 0.01, 0.005]),
+    lambda n: 1.0 + 0.25 / n,
+)
 
 
 def ad_p_normal(a2: float, n: int) -> tuple[float, str]:
@@ -98,10 +107,12 @@ def ad_from_logs(logcdf: np.ndarray, logsf: np.ndarray) -> float:
 # ---------------------------------------------------------------------------------------------
 def clean_sample(x, *, name="x", minimum=3) -> np.ndarray:
     return check_sample(
-        x, name=name, minimum=minimum, before="fitting a distribution",
+        x,
+        name=name,
+        minimum=minimum,
+        before="fitting a distribution",
         needed_for="fitting a distribution",
-        zero_spread="no distribution can be fitted. Check the gauge resolution or the data "
-                    "import.",
+        zero_spread="no distribution can be fitted. Check the gauge resolution or the data import.",
     )
 
 
@@ -177,9 +188,12 @@ class FittedModel(Result):
 
     def rvs(self, size, *, random_state):
         """Random draws from the fitted model; ``random_state`` (seed or Generator) required."""
-        return self.dist.rvs(size=size, random_state=np.random.default_rng(random_state)
-                             if not isinstance(random_state, np.random.Generator)
-                             else random_state)
+        return self.dist.rvs(
+            size=size,
+            random_state=np.random.default_rng(random_state)
+            if not isinstance(random_state, np.random.Generator)
+            else random_state,
+        )
 
     def to_dict(self) -> dict:
         """JSON-safe summary."""
@@ -375,9 +389,18 @@ class Family:
         a2 = self._ad(xs, params)
         p, ptext = self._ad_p(a2, n, xs, params) if math.isfinite(a2) else (None, None)
         return FittedModel(
-            family=self, name=self.id, parameters=params, n=n, loglik=loglik,
-            aic=2.0 * k - 2.0 * loglik, bic=k * math.log(n) - 2.0 * loglik,
-            ad_statistic=a2, ad_p_value=p, ad_p_text=ptext, converged=converged, note=note,
+            family=self,
+            name=self.id,
+            parameters=params,
+            n=n,
+            loglik=loglik,
+            aic=2.0 * k - 2.0 * loglik,
+            bic=k * math.log(n) - 2.0 * loglik,
+            ad_statistic=a2,
+            ad_p_value=p,
+            ad_p_text=ptext,
+            converged=converged,
+            note=note,
         )
 
 

@@ -29,9 +29,9 @@ class Exponential(Family):
 
     def frozen(self, p):
         return stats.expon(loc=threshold_of(p), scale=p["scale"])
+
     def _standard_draws(self, p, size, rng):
         return rng.standard_exponential(size)
-
 
     def _logpdf(self, x, p):
         return -math.log(p["scale"]) - (x - threshold_of(p)) / p["scale"]
@@ -64,8 +64,9 @@ class Exponential2(Exponential):
         n = x.size
         x1 = float(x.min())
         scale = n * (float(add_reduce(x)) / n - x1) / (n - 1)
-        note = ("unbiased estimates (the likelihood maximum puts the threshold at the smallest "
-                "reading)")
+        note = (
+            "unbiased estimates (the likelihood maximum puts the threshold at the smallest reading)"
+        )
         return {"scale": scale, "threshold": x1 - scale / n}, True, note
 
     def _ad_p(self, a2, n, xs, p):

@@ -53,12 +53,12 @@ class SEV(Family):
 
     def frozen(self, p):
         return stats.gumbel_l(p["location"], p["scale"])
+
     def _loc_scale(self, p):
         return p["location"], p["scale"]
 
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
         return np.log(-special.log1p(-rng.uniform(size=size)))
-
 
     def _z(self, x, p):
         return (x - p["location"]) / p["scale"]
@@ -94,9 +94,9 @@ class LEV(SEV):
 
     def frozen(self, p):
         return stats.gumbel_r(p["location"], p["scale"])
+
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
         return -np.log(-np.log(rng.uniform(size=size)))
-
 
     def _logpdf(self, x, p):
         z = self._z(x, p)

@@ -71,9 +71,9 @@ class Gamma(Family):
 
     def frozen(self, p):
         return stats.gamma(p["shape"], loc=threshold_of(p), scale=p["scale"])
+
     def _standard_draws(self, p, size, rng):
         return rng.standard_gamma(p["shape"], size)
-
 
     def _logpdf(self, x, p):
         k, s = p["shape"], p["scale"]
@@ -81,12 +81,14 @@ class Gamma(Family):
         return (k - 1.0) * np.log(y) - y / s - k * math.log(s) - special.gammaln(k)
 
     def _logcdf(self, x, p):
-        return np.log(np.maximum(special.gammainc(p["shape"], (x - threshold_of(p)) / p["scale"]),
-                                 TINY))
+        return np.log(
+            np.maximum(special.gammainc(p["shape"], (x - threshold_of(p)) / p["scale"]), TINY)
+        )
 
     def _logsf(self, x, p):
-        return np.log(np.maximum(special.gammaincc(p["shape"], (x - threshold_of(p)) / p["scale"]),
-                                 TINY))
+        return np.log(
+            np.maximum(special.gammaincc(p["shape"], (x - threshold_of(p)) / p["scale"]), TINY)
+        )
 
     def _ad(self, xs, p):
         # each sorted reading needs one incomplete gamma function, not two: below the
@@ -116,8 +118,11 @@ class Gamma(Family):
         s = np.log(mean) - sly / n
         s = np.where(s > 0, s, np.nan)
         large = s < 1e-4  # asymptotic root, as in _gamma_fit
-        k = np.where(large, (np.sqrt(0.25 + s / 3.0) + 0.5) / (2.0 * s),
-                     (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s))
+        k = np.where(
+            large,
+            (np.sqrt(0.25 + s / 3.0) + 0.5) / (2.0 * s),
+            (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s),
+        )
         for _ in range(50):
             f = np.log(k) - special.digamma(k) - s
             fp = 1.0 / k - special.zeta(2.0, k)
@@ -149,7 +154,11 @@ class Gamma(Family):
             k, scale, ll = _gamma_fit(y, None if start is None else float(start[0][0]))
         except AnalysisError:  # no spread left in double precision: not a candidate
             k = scale = ll = math.nan
-        return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, (np.array([k]),)
+        return (
+            np.array([ll]),
+            {"shape": np.array([k]), "scale": np.array([scale])},
+            (np.array([k]),),
+        )
 
     def refit_rows(self, block, shared=None):
         return refit_by_fit_rows(self, block)

@@ -23,12 +23,12 @@ class Halfnormal(Family):
 
     def frozen(self, p):
         return stats.halfnorm(0.0, p["scale"])
+
     def _loc_scale(self, p):
         return 0.0, p["scale"]
 
     def _standard_draws(self, p, size, rng):
         return abs(rng.standard_normal(size=size))
-
 
     def _logpdf(self, x, p):
         z = x / p["scale"]

@@ -46,12 +46,12 @@ class Logistic(Family):
 
     def frozen(self, p):
         return stats.logistic(p["location"], p["scale"])
+
     def _loc_scale(self, p):
         return p["location"], p["scale"]
 
     def _standard_draws(self, p, size, rng):
         return rng.logistic(size=size)
-
 
     def _logpdf(self, x, p):
         return logistic_logpdf((x - p["location"]) / p["scale"]) - math.log(p["scale"])

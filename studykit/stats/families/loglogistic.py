@@ -31,8 +31,7 @@ class Loglogistic(Family):
     id, label, param_names = "loglogistic", "Loglogistic", ("shape", "scale")
     order = 11
     support = "positive"
-    ad_p_source = ("Stephens (1979); D'Agostino & Stephens (1986) Table 4.22 on log x, "
-                   "interpolated")
+    ad_p_source = "Stephens (1979); D'Agostino & Stephens (1986) Table 4.22 on log x, interpolated"
 
     def _estimate(self, x):
         ly = np.log(x)
@@ -41,10 +40,10 @@ class Loglogistic(Family):
 
     def frozen(self, p):
         return stats.fisk(p["shape"], loc=threshold_of(p), scale=p["scale"])
+
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default (fisk = burr d=1)
         q = rng.uniform(size=size)
         return (q ** (-1.0 / 1.0) - 1) ** (-1.0 / p["shape"])
-
 
     def _w(self, x, p):
         return p["shape"] * (np.log(x - threshold_of(p)) - math.log(p["scale"]))
@@ -160,11 +159,14 @@ class Loglogistic(Family):
         if start is None:
             loc, s, ll, ab, _ = ls_fit(ly, logistic_terms, *logistic_start(ly))
         else:
-            loc, s, ll, ab, _ = ls_fit(ly, logistic_terms, 0.0, 1.0,
-                                        start=(float(start[0][0]), float(start[1][0])))
-        return (np.array([ll - float(add_reduce(ly))]),
-                {"shape": np.array([1.0 / s]), "scale": np.array([math.exp(loc)])},
-                (np.array([ab[0]]), np.array([ab[1]])))
+            loc, s, ll, ab, _ = ls_fit(
+                ly, logistic_terms, 0.0, 1.0, start=(float(start[0][0]), float(start[1][0]))
+            )
+        return (
+            np.array([ll - float(add_reduce(ly))]),
+            {"shape": np.array([1.0 / s]), "scale": np.array([math.exp(loc)])},
+            (np.array([ab[0]]), np.array([ab[1]])),
+        )
 
     def refit_rows(self, block, shared=None):
         return refit_by_fit_rows(self, block)

@@ -38,12 +38,12 @@ class Lognormal(Family):
 
     def frozen(self, p):
         return stats.lognorm(p["log_sd"], loc=threshold_of(p), scale=math.exp(p["log_mean"]))
+
     def _loc_scale(self, p):
         return threshold_of(p), math.exp(p["log_mean"])
 
     def _standard_draws(self, p, size, rng):
         return np.exp(p["log_sd"] * rng.standard_normal(size))
-
 
     def _z(self, x, p):
         return (np.log(x - threshold_of(p)) - p["log_mean"]) / p["log_sd"]

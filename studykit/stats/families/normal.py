@@ -28,12 +28,12 @@ class Normal(Family):
 
     def frozen(self, p):
         return stats.norm(p["mean"], p["sd"])
+
     def _loc_scale(self, p):
         return p["mean"], p["sd"]
 
     def _standard_draws(self, p, size, rng):
         return rng.standard_normal(size)
-
 
     def _logpdf(self, x, p):
         z = (x - p["mean"]) / p["sd"]

@@ -75,8 +75,10 @@ class Weibull(Family):
     order = 4
     warm_in_theta = True  # the shape is close to linear in theta across a grid step
     support = "positive"
-    ad_p_source = ("Stephens (1977); D'Agostino & Stephens (1986) Table 4.17 (extreme value "
-                   "on log x), interpolated")
+    ad_p_source = (
+        "Stephens (1977); D'Agostino & Stephens (1986) Table 4.17 (extreme value "
+        "on log x), interpolated"
+    )
 
     def _estimate(self, x):
         k, scale, _ = _weibull_fit(np.log(x))
@@ -84,9 +86,9 @@ class Weibull(Family):
 
     def frozen(self, p):
         return stats.weibull_min(p["shape"], loc=threshold_of(p), scale=p["scale"])
+
     def _standard_draws(self, p, size, rng):  # scipy's inverse-cdf default
         return pow(-special.log1p(-rng.uniform(size=size)), 1.0 / p["shape"])
-
 
     def _t(self, x, p):
         return ((x - threshold_of(p)) / p["scale"]) ** p["shape"]
@@ -169,7 +171,11 @@ class Weibull(Family):
     def fit_one(y, start=None):
         """:meth:`Weibull.fit_rows` for one row by the scalar :func:`_weibull_fit` (same root)."""
         k, scale, ll = _weibull_fit(np.log(y), None if start is None else float(start[0][0]))
-        return np.array([ll]), {"shape": np.array([k]), "scale": np.array([scale])}, (np.array([k]),)
+        return (
+            np.array([ll]),
+            {"shape": np.array([k]), "scale": np.array([scale])},
+            (np.array([k]),),
+        )
 
     def refit_rows(self, block, shared=None):
         return refit_by_fit_rows(self, block)
