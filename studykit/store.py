@@ -918,7 +918,7 @@ class StudyFile:
     >>> list(StudyFile(path).load().excluded_subgroups("x"))
     ['1']
     >>> [e.what for e in sf.audit_log()]
-    ["create study 'demo' from 'x.csv'", "exclude subgroup 1 of 'x'"]
+    ["create study 'demo' from 'x.csv'", "remove subgroup 1 of 'x'"]
     """
 
     def __init__(self, path: str | os.PathLike):

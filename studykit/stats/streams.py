@@ -274,7 +274,7 @@ def group_chart(values, subgroups, streams) -> GroupChart:
 
     >>> g = group_chart([1, 3, 2, 4, 1, 3, 2, 4], list("11112222"), list("abababab"))
     >>> g.high.tolist(), g.high_stream.tolist(), g.low_stream.tolist()
-    [[3.5, 3.5], ['b', 'b'], ['a', 'a']]
+    ([3.5, 3.5], ['b', 'b'], ['a', 'a'])
     """
     x = np.asarray(values, dtype=float)
     sg = np.asarray(subgroups).astype(str)
