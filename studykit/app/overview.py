@@ -621,8 +621,8 @@ class OverviewChart:
         f.add_layout(
             Legend(
                 items=[
-                    LegendItem(label="Estimate (marker and colour: verdict)", renderers=[est]),
-                    LegendItem(label="Lower bound to estimate", renderers=[span]),
+                    LegendItem(label="Estimate (colour: verdict)", renderers=[est]),
+                    LegendItem(label="Lower bound", renderers=[span]),
                     LegendItem(label="Required", renderers=[need]),
                 ],
                 orientation="horizontal",
