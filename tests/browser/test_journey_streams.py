@@ -67,7 +67,6 @@ def test_streams_in_the_workbook(browser, streams_server, artifacts):
         # the overview analyses every characteristic when it opens (no button)
         page.wait_for_selector(".sk-ovstream")
         page.wait_for_function("() => [...document.querySelectorAll('.sk-ovstream')].length === 4")
-        page.wait_for_selector("text=characteristics analysed.")
         text = page.locator(".sk-ovtable").inner_text()
         assert "stream 3 (worst)" in text
         _shot(page, "overview")
