@@ -1082,7 +1082,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         mb = res.model_band
         text = (
             f"{names.MODEL_BAND}: across the models the data do not reject, the judged index "
-            f"ranges from {_idx(mb.low)} ({escape_text(names.model_list(mb.low_models))}) to "
+            f"({mb.quantity}) ranges from {_idx(mb.low)} ({escape_text(names.model_list(mb.low_models))}) to "
             f"{_idx(mb.high)} ({escape_text(names.model_list(mb.high_models))})."
         )
         if mb.warning:

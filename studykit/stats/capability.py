@@ -1142,12 +1142,12 @@ def diagnose(
 
 @dataclass(frozen=True)
 class ModelBand(Result):
-    """Range of one index over several candidate models.
+    """Range of one index over several candidate models, on the verdict's basis.
 
     Attributes
     ----------
     low, high : float
-        Smallest and largest value.
+        Smallest and largest value (estimates, or lower confidence bounds: ``basis``).
     low_models, high_models : list of str
         Models that give them.
     meeting, failing : list of str
@@ -1157,6 +1157,11 @@ class ModelBand(Result):
         True when some models meet the threshold and others do not.
     warning : str or None
         Plain-word warning when the verdict changes.
+    basis : str
+        ``"estimate"`` or ``"lower_bound"``: what is compared with the threshold, the same as
+        the verdict's basis.
+    level : float or None
+        Confidence level of the lower bounds (basis ``"lower_bound"``).
     """
 
     low: float
@@ -1168,6 +1173,15 @@ class ModelBand(Result):
     threshold: float
     verdict_changes: bool
     warning: str | None
+    basis: str = "estimate"
+    level: float | None = None
+
+    @property
+    def quantity(self) -> str:
+        """What the band's values are, in words: "estimate" or "lower 95% bound"."""
+        if self.basis == "lower_bound" and self.level is not None:
+            return f"lower {_pct(self.level)} bound"
+        return "estimate"
 
     def to_dict(self) -> dict:
         return {
@@ -1180,18 +1194,39 @@ class ModelBand(Result):
             "threshold": self.threshold,
             "verdict_changes": self.verdict_changes,
             "warning": self.warning,
+            "basis": self.basis,
+            "level": self.level,
+            "quantity": self.quantity,
         }
 
 
-def model_band(index_by_model: dict, threshold: float) -> ModelBand:
+def _pct(level: float) -> str:
+    """A confidence level as a percentage with no needless decimal: 0.95 -> "95%"."""
+    whole = abs(level * 100 - round(level * 100)) < 1e-9
+    return f"{level:.0%}" if whole else f"{level:.1%}"
+
+
+def model_band(
+    index_by_model: dict,
+    threshold: float,
+    *,
+    basis: str = "estimate",
+    level: float | None = None,
+) -> ModelBand:
     """How much an index moves across plausible models, and whether the verdict moves with it.
 
     Parameters
     ----------
     index_by_model : dict of str to float
         E.g. ``{"normal": 1.41, "lognormal": 1.72, "weibull": 1.55}``; None values are skipped.
+        With ``basis="lower_bound"`` the values are each model's lower confidence bound.
     threshold : float
         Requirement the index is judged against.
+    basis : {"estimate", "lower_bound"}
+        What the values are: the verdict's basis, so the band warns only when a model would
+        change the verdict itself.
+    level : float or None
+        Confidence level of the bounds (needed with ``basis="lower_bound"``).
 
     Returns
     -------
@@ -1208,7 +1243,14 @@ def model_band(index_by_model: dict, threshold: float) -> ModelBand:
     >>> b = model_band({"normal": 1.41, "lognormal": 1.72}, 1.67)
     >>> b.verdict_changes, b.low_models
     (True, ['normal'])
+    >>> model_band({"normal": 1.52, "lognormal": 1.60}, 1.67, basis="lower_bound",
+    ...            level=0.95).quantity
+    'lower 95% bound'
     """
+    if basis not in ("estimate", "lower_bound"):
+        raise StudyInputError(f"`basis` ({basis!r}) must be 'lower_bound' or 'estimate'.")
+    if basis == "lower_bound":
+        level = _check_level(level)
     if not isinstance(index_by_model, dict):
         raise StudyInputError(
             "the model band needs the index under each model (model name -> value)."
@@ -1229,9 +1271,10 @@ def model_band(index_by_model: dict, threshold: float) -> ModelBand:
     changes = bool(meeting) and bool(failing)
     warning = None
     if changes:
+        on = "" if basis == "estimate" else f" on the lower {_pct(float(level))} bound"
         warning = (
-            f"The verdict depends on the model: {names.model_list(meeting)} meet {threshold:g} "
-            f"but {names.model_list(failing)} do not (range {low:.2f} to {high:.2f}). Choose "
+            f"The verdict depends on the model: {names.model_list(meeting)} meet {threshold:g}"
+            f"{on} but {names.model_list(failing)} do not (range {low:.2f} to {high:.2f}). Choose "
             "the model on "
             "goodness of fit and process knowledge, and record why."
         )
@@ -1245,4 +1288,6 @@ def model_band(index_by_model: dict, threshold: float) -> ModelBand:
         threshold=threshold,
         verdict_changes=changes,
         warning=warning,
+        basis=basis,
+        level=None if basis == "estimate" else level,
     )

@@ -175,7 +175,8 @@ def band_html(result) -> str:
     if b is None:
         return ""
     text = (
-        f"Across the models the data do not reject, the judged index lies between "
+        f"Across the models the data do not reject, the judged index "
+        f"({esc(b.quantity)}) lies between "
         f"{fmt(b.low, 2)} ({esc(names.model_list(b.low_models))}) and {fmt(b.high, 2)} "
         f"({esc(names.model_list(b.high_models))})."
     )
