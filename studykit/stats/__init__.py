@@ -27,20 +27,13 @@ from studykit.stats.attribute import (
 )
 from studykit.stats.capability import (
     BOOTSTRAP_FULL_N,
-    DEFAULT_CRITERIA,
     INDEX_NAMES,
     TAIL_PROBABILITY,
     CapabilityResult,
-    Finding,
-    ModelBand,
-    Verdict,
     capability,
-    diagnose,
     effective_df_moving_range,
     effective_df_range,
     effective_df_stdev,
-    judge,
-    model_band,
     moving_range_sigma,
 )
 from studykit.stats.charts import (
@@ -182,6 +175,15 @@ from studykit.stats.transform import (
     JohnsonResult,
     box_cox,
     johnson,
+)
+from studykit.stats.verdict import (
+    DEFAULT_CRITERIA,
+    Finding,
+    ModelBand,
+    Verdict,
+    diagnose,
+    judge,
+    model_band,
 )
 
 __all__ = [
