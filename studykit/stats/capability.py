@@ -526,6 +526,7 @@ def _ppm_normal(mean, sigma, lsl, usl):
 # --------------------------------------------------------------------------------------------
 
 
+# long: the numpydoc docstring (formulas, references) is 85 lines; the code is 50, in named steps
 def capability(
     x,
     *,
@@ -618,6 +619,55 @@ def capability(
     """
     arr = _clean_data(x)
     n = arr.size
+    lsl, usl, target, level, method = _checked_inputs(lsl, usl, target, level, model, method)
+    check_resolution(arr)  # overflow, rounding-noise spread, precision collapse
+    mean = float(arr.mean())
+    overall_sigma = _overall_sigma(arr)
+    notes: list = []
+    within_sigma, df_within, source = _within_sigma(arr, within_sigma, df_within, notes)
+    pp_n, ppk_n, ppu_n, ppl_n = _normal_indices(mean, overall_sigma, lsl, usl)
+    normal = {"pp": pp_n, "ppk": ppk_n, "ppu": ppu_n, "ppl": ppl_n}
+    values = dict.fromkeys(INDEX_NAMES)
+    alternatives: dict = {}
+    model_name, model_parameters = "normal", None
+    if method == "normal":
+        bounds, ppm_w, ppm_o = _normal_method(
+            values, normal, mean, within_sigma, overall_sigma, df_within, n,
+            lsl, usl, target, level,
+        )  # fmt: skip
+    else:
+        model_name = str(getattr(model, "name", "model"))
+        model_parameters = {k: float(v) for k, v in dict(getattr(model, "parameters", {})).items()}
+        bounds, ppm_o = _model_method(
+            values, alternatives, normal, model, method, n, lsl, usl, level, n_boot,
+            random_state, notes,
+        )  # fmt: skip
+        ppm_w = (None, None, None)
+    inputs = {
+        "n": int(n),
+        "mean": mean,
+        "within_sigma": float(within_sigma) if method == "normal" else None,
+        "overall_sigma": overall_sigma,
+        "lsl": lsl,
+        "usl": usl,
+        "target": target,
+        "level": level,
+        "df_within": df_within if method == "normal" else None,
+        "within_sigma_source": source if method == "normal" else None,
+        "model_parameters": model_parameters,
+        "n_boot": int(n_boot) if method != "normal" else None,
+        "random_state": random_state
+        if isinstance(random_state, int) and method != "normal"
+        else None,
+    }
+    return _capability_result(
+        arr, lsl, usl, values, bounds, ppm_w, ppm_o, method, model_name, level, alternatives,
+        inputs, notes,
+    )  # fmt: skip
+
+
+def _checked_inputs(lsl, usl, target, level, model, method):
+    """Checked limits, target, level and method of :func:`capability` (messages name the fix)."""
     lsl = _spec_value(lsl, "lsl")
     usl = _spec_value(usl, "usl")
     target = _spec_value(target, "target")
@@ -646,9 +696,12 @@ def capability(
         raise StudyInputError(
             f"`method` '{method}' needs a fitted non-normal `model`; none was given."
         )
+    return lsl, usl, target, level, method
 
-    check_resolution(arr)  # overflow, rounding-noise spread, precision collapse
-    mean = float(arr.mean())
+
+def _overall_sigma(arr) -> float:
+    """Overall standard deviation (n - 1) of the readings; refuses zero spread."""
+    n = arr.size
     overall_sigma = float(arr.std(ddof=1))
     if not overall_sigma > 0:
         raise AnalysisError(
@@ -656,7 +709,12 @@ def capability(
             "be infinite. Check the gauge resolution (it may be too coarse for this tolerance) "
             "or the data import."
         )
-    notes = []
+    return overall_sigma
+
+
+def _within_sigma(arr, within_sigma, df_within, notes):
+    """Within sigma (given, else MR-bar/d2 of ``arr``), its degrees of freedom and its source."""
+    n = arr.size
     if within_sigma is None:
         within_sigma = moving_range_sigma(arr)
         source = "moving_range"
@@ -689,82 +747,75 @@ def capability(
         raise StudyInputError(f"`df_within` ({df_within!r}) must be a number.") from None
     if not (math.isfinite(df_within) and df_within > 0):
         raise StudyInputError(f"`df_within` ({df_within!r}) must be a positive number.")
+    return within_sigma, df_within, source
 
-    values = dict.fromkeys(INDEX_NAMES)
+
+def _normal_method(
+    values, normal, mean, within_sigma, overall_sigma, df_within, n, lsl, usl, target, level
+):
+    """Normal theory: fills ``values``; returns the bounds and the within / overall PPM."""
     bounds: dict = {}
-    alternatives: dict = {}
-    model_name = "normal"
-    model_parameters = None
-    ppm_w = (None, None, None)
-
-    pp_n, ppk_n, ppu_n, ppl_n = _normal_indices(mean, overall_sigma, lsl, usl)
-    if method == "normal":
-        cp, cpk, cpu, cpl = _normal_indices(mean, within_sigma, lsl, usl)
-        values.update(cp=cp, cpk=cpk, cpu=cpu, cpl=cpl, pp=pp_n, ppk=ppk_n, ppu=ppu_n, ppl=ppl_n)
-        if target is not None and lsl is not None and usl is not None:
-            tau = math.sqrt(overall_sigma**2 + (mean - target) ** 2)
-            values["cpm"] = (usl - lsl) / (6.0 * tau)
-            a = (mean - target) / overall_sigma
-            nu_cpm = n * (1 + a * a) ** 2 / (1 + 2 * a * a)
-            bounds["cpm"] = _bound_entry(
-                _chi2_bounds(values["cpm"], nu_cpm, level), "chi_square_boyles"
-            )
-        for name, nu in (("cp", df_within), ("pp", n - 1)):
+    pp_n, ppk_n, ppu_n, ppl_n = (normal[k] for k in ("pp", "ppk", "ppu", "ppl"))
+    cp, cpk, cpu, cpl = _normal_indices(mean, within_sigma, lsl, usl)
+    values.update(cp=cp, cpk=cpk, cpu=cpu, cpl=cpl, pp=pp_n, ppk=ppk_n, ppu=ppu_n, ppl=ppl_n)
+    if target is not None and lsl is not None and usl is not None:
+        tau = math.sqrt(overall_sigma**2 + (mean - target) ** 2)
+        values["cpm"] = (usl - lsl) / (6.0 * tau)
+        a = (mean - target) / overall_sigma
+        nu_cpm = n * (1 + a * a) ** 2 / (1 + 2 * a * a)
+        bounds["cpm"] = _bound_entry(
+            _chi2_bounds(values["cpm"], nu_cpm, level), "chi_square_boyles"
+        )
+    for name, nu in (("cp", df_within), ("pp", n - 1)):
+        if values[name] is not None:
+            bounds[name] = _bound_entry(_chi2_bounds(values[name], nu, level), "chi_square")
+    for group, nu in ((WITHIN_INDICES[1:], df_within), (OVERALL_INDICES[1:], n - 1)):
+        for name in group:
             if values[name] is not None:
-                bounds[name] = _bound_entry(_chi2_bounds(values[name], nu, level), "chi_square")
-        for names, nu in ((WITHIN_INDICES[1:], df_within), (OVERALL_INDICES[1:], n - 1)):
-            for name in names:
-                if values[name] is not None:
-                    bounds[name] = _bound_entry(
-                        _bissell_bounds(values[name], n, nu, level), "bissell"
-                    )
-        ppm_w = _ppm_normal(mean, within_sigma, lsl, usl)
-        ppm_o = _ppm_normal(mean, overall_sigma, lsl, usl)
-    else:
-        model_name = str(getattr(model, "name", "model"))
-        model_parameters = {k: float(v) for k, v in dict(getattr(model, "parameters", {})).items()}
-        perc, quantiles = _percentile_indices(model, lsl, usl)
-        equiv = _equivalent_indices(model, lsl, usl)
-        main, other = (perc, equiv) if method == "percentile" else (equiv, perc)
-        other_name = "equivalent_ppm" if method == "percentile" else "percentile"
-        values.update(main)
-        alternatives[other_name] = dict(other)
-        alternatives["normal"] = {"pp": pp_n, "ppk": ppk_n, "ppu": ppu_n, "ppl": ppl_n}
-        alternatives["quantiles"] = {
-            "x_lower": quantiles[0], "x_median": quantiles[1], "x_upper": quantiles[2],
-            "tail_probability": TAIL_PROBABILITY,
-        }  # fmt: skip
-        bounds = _bootstrap_bounds(
-            model, n, lsl, usl, method, level, n_boot, random_state, values, notes
-        )
-        below = 0.0 if lsl is None else float(model.cdf(lsl)) * 1e6
-        above = 0.0 if usl is None else float(model.sf(usl)) * 1e6
-        ppm_o = (below + above, below, above)
-        notes.append(
-            "Cp, Cpk and Cpm are not given for a fitted non-normal model: the model describes "
-            "the overall distribution only."
-        )
+                bounds[name] = _bound_entry(_bissell_bounds(values[name], n, nu, level), "bissell")
+    ppm_w = _ppm_normal(mean, within_sigma, lsl, usl)
+    ppm_o = _ppm_normal(mean, overall_sigma, lsl, usl)
+    return bounds, ppm_w, ppm_o
 
+
+def _model_method(
+    values, alternatives, normal, model, method, n, lsl, usl, level, n_boot, random_state, notes
+):
+    """A fitted model: fills ``values`` and ``alternatives``; returns the bootstrap bounds and
+    the overall PPM."""
+    perc, quantiles = _percentile_indices(model, lsl, usl)
+    equiv = _equivalent_indices(model, lsl, usl)
+    main, other = (perc, equiv) if method == "percentile" else (equiv, perc)
+    other_name = "equivalent_ppm" if method == "percentile" else "percentile"
+    values.update(main)
+    alternatives[other_name] = dict(other)
+    alternatives["normal"] = normal
+    alternatives["quantiles"] = {
+        "x_lower": quantiles[0], "x_median": quantiles[1], "x_upper": quantiles[2],
+        "tail_probability": TAIL_PROBABILITY,
+    }  # fmt: skip
+    bounds = _bootstrap_bounds(
+        model, n, lsl, usl, method, level, n_boot, random_state, values, notes
+    )
+    below = 0.0 if lsl is None else float(model.cdf(lsl)) * 1e6
+    above = 0.0 if usl is None else float(model.sf(usl)) * 1e6
+    ppm_o = (below + above, below, above)
+    notes.append(
+        "Cp, Cpk and Cpm are not given for a fitted non-normal model: the model describes "
+        "the overall distribution only."
+    )
+    return bounds, ppm_o
+
+
+def _capability_result(
+    arr, lsl, usl, values, bounds, ppm_w, ppm_o, method, model_name, level, alternatives,
+    inputs, notes,
+):  # fmt: skip
+    """The :class:`CapabilityResult`, with the observed PPM of ``arr``."""
+    n = arr.size
     obs_below = 0.0 if lsl is None else float(np.count_nonzero(arr < lsl)) / n * 1e6
     obs_above = 0.0 if usl is None else float(np.count_nonzero(arr > usl)) / n * 1e6
     values = {k: None if v is None else float(v) for k, v in values.items()}
-    inputs = {
-        "n": int(n),
-        "mean": mean,
-        "within_sigma": float(within_sigma) if method == "normal" else None,
-        "overall_sigma": overall_sigma,
-        "lsl": lsl,
-        "usl": usl,
-        "target": target,
-        "level": level,
-        "df_within": df_within if method == "normal" else None,
-        "within_sigma_source": source if method == "normal" else None,
-        "model_parameters": model_parameters,
-        "n_boot": int(n_boot) if method != "normal" else None,
-        "random_state": random_state
-        if isinstance(random_state, int) and method != "normal"
-        else None,
-    }
     return CapabilityResult(
         **values,
         bounds=bounds,
