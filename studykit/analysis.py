@@ -1193,6 +1193,7 @@ def capability_method_text(capability: Mapping | None, model: Mapping | None) ->
     return "normal theory: the mean with the within and overall standard deviations"
 
 
+# long: a 55-line numpydoc docstring; the code is the sequence of named steps below it
 def analyze_characteristic(
     data,
     spec=None,
@@ -1266,9 +1267,97 @@ def analyze_characteristic(
             kept=kept,
         )
     warn: list[str] = []
-    name = data.name
     kind = options.chart or (spec.chart if spec is not None else "auto")
     attribute = kind in ATTRIBUTE_KINDS
+    values, labels, size_arr, groups, n_missing = _prepare_values(
+        data, spec, sizes, options, kind, attribute, warn
+    )
+    excl, manual, order = _apply_exclusions(
+        data, spec, values, labels, groups, exclusions, attribute, warn
+    )
+    requested = options.model or (spec.model if spec is not None else None) or "auto"
+    has_limits = spec is not None and (spec.lsl is not None or spec.usl is not None)
+    rescale = (
+        _model_scale(requested, bool(options.rank_models))
+        if has_limits and not attribute and requested != "normal"
+        else None
+    )
+    p1 = _run_phase1(
+        values, labels, groups, kind, size_arr, excl, order, rescale, attribute, options, warn
+    )
+    chart = p1.chart
+    kept_mask = p1.kept_mask
+    x = values[kept_mask]
+    kept_labels = labels if kept_mask.all() else labels[kept_mask]
+    withheld = _withheld_findings(p1, order, options)
+    crit = _criteria_dict(criteria)
+    level = _confidence_level(options, criteria, crit)
+    kept_rows, kept_keys = _kept_rows(chart, kept)
+    common = _common_fields(
+        data, spec, p1, crit, options, order, kept_rows, attribute=attribute, n_missing=n_missing
+    )
+
+    if attribute:
+        if not np.any(np.asarray(chart.location.sigma) > 0):
+            warn.extend(w for w in chart.warnings if w not in warn)  # the centre-line chart
+        return _attribute_result(
+            common,
+            chart,
+            x,
+            size_arr[kept_mask] if size_arr is not None else None,
+            kept_labels,
+            warn,
+            level,
+            crit,
+            withheld,
+        )
+
+    # the within sigma of the raw values (the chart itself may be on the model's scale)
+    stat_chart = p1.raw_chart or chart
+    result_kw = _variable_fields(common, chart, stat_chart, x, kept_labels, withheld)
+    if _too_few_for_shape(x, result_kw["overall_sigma"], warn):
+        return CharacteristicResult(**result_kw, warnings=tuple(warn))
+    ad, last = _shape(x, rescale, result_kw, warn)
+    if spec is None or (spec.lsl is None and spec.usl is None):
+        return CharacteristicResult(**result_kw, warnings=tuple(warn))
+
+    choice, ranking, cap = _fit_capability(
+        x, kept_labels, stat_chart, spec, requested, ad, last, options, level, warn
+    )
+    judged_index = _judged_index(cap, choice, crit["index"], warn)
+    verdict, findings, interval = _verdict_and_findings(
+        x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld
+    )
+    measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)
+    band = _model_band(x, spec, ranking, ad, judged_index, crit, cap, choice.name)
+    plan = _plan(verdict, judged_index, crit, level)
+    result_kw.pop("findings", None)
+    from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
+
+    # the recorded removals (an automatic phase I would trim a trend as special causes)
+    time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
+    findings.extend(time_findings)
+    return CharacteristicResult(
+        **result_kw,
+        time_model=time_model,
+        ranking=ranking,
+        model=choice,
+        capability=cap,
+        verdict=verdict,
+        findings=tuple(findings),
+        model_band=band,
+        plan=plan,
+        warnings=tuple(warn),
+        measurement_error=measurement_error,
+        tolerance_interval=interval,
+    )
+
+
+def _prepare_values(data, spec, sizes, options, kind, attribute, warn):
+    """Step 1: the readings, subgroup labels and sizes, empty cells left out (``warn`` told),
+    the rows regrouped by ``subgroup_size``; returns values, labels, sizes, the subgroup codes
+    and the number of empty cells."""
+    name = data.name
     values = np.asarray(data.values, dtype=float)
     labels = np.asarray(data.subgroups)
     if labels.dtype.kind != "U":
@@ -1323,6 +1412,12 @@ def analyze_characteristic(
     groups = (
         SubgroupCodes(np.arange(labels.size), labels) if all_distinct else SubgroupCodes.of(labels)
     )
+    return values, labels, size_arr, groups, n_missing
+
+
+def _apply_exclusions(data, spec, values, labels, groups, exclusions, attribute, warn):
+    """Step 2: the recorded exclusions of subgroups in the data (others named in ``warn``),
+    the mask of their rows and the production-order check of the rest."""
     excl = {}
     for label, why in (exclusions or {}).items():
         excl[str(label)] = why
@@ -1337,22 +1432,23 @@ def analyze_characteristic(
         excl = {k: v for k, v in excl.items() if k not in unknown}
 
     order = None
+    manual = None
     if not attribute:
         manual = np.isin(labels, list(excl)) if excl else np.zeros(labels.size, dtype=bool)
         order = order_module.check_order(
             values[~manual],
-            name=name,
+            name=data.name,
             unit=data.unit or (spec.unit if spec is not None else None),
             has_times=getattr(data, "times", None) is not None,
         )
+    return excl, manual, order
+
+
+def _run_phase1(
+    values, labels, groups, kind, size_arr, excl, order, rescale, attribute, options, warn
+):
+    """Step 3: phase I (control chart, run rules, removal rounds); its warnings go to ``warn``."""
     order_flagged = order is not None and order.flagged
-    requested = options.model or (spec.model if spec is not None else None) or "auto"
-    has_limits = spec is not None and (spec.lsl is not None or spec.usl is not None)
-    rescale = (
-        _model_scale(requested, bool(options.rank_models))
-        if has_limits and not attribute and requested != "normal"
-        else None
-    )
     chart_kw = {}
     if attribute:
         chart_kw["laney"] = options.laney
@@ -1383,35 +1479,34 @@ def analyze_characteristic(
             continue  # no automatic rounds were asked for; the signals are reported as findings
         if msg not in warn:
             warn.append(msg)
-    chart = p1.chart
-    kept_mask = p1.kept_mask
-    x = values[kept_mask]
-    kept_labels = labels if kept_mask.all() else labels[kept_mask]
-    withheld = _withheld_findings(p1, order, options)
+    return p1
 
+
+def _confidence_level(options, criteria, crit) -> float:
+    """The confidence level of the bounds: the option, else the criterion's, else the default."""
+    if options.confidence is not None:
+        return float(options.confidence)
+    return float(names.DEFAULT_CONFIDENCE if criteria is None else crit["confidence"])
+
+
+def _common_fields(data, spec, p1, crit, options, order, kept_rows, *, attribute, n_missing):
+    """The result fields shared by attribute and variable data."""
     spec_d = {
         "lsl": None if spec is None else spec.lsl,
         "usl": None if spec is None else spec.usl,
         "target": None if spec is None else spec.target,
         "safety_critical": bool(spec is not None and spec.safety_critical),
     }
-    crit = _criteria_dict(criteria)
-    if options.confidence is not None:
-        level = float(options.confidence)
-    else:
-        level = float(names.DEFAULT_CONFIDENCE if criteria is None else crit["confidence"])
     cautions = (SAFETY_CAUTION,) if spec_d["safety_critical"] else ()
     unit = data.unit if data.unit else (spec.unit if spec is not None else None)
-
-    kept_rows, kept_keys = _kept_rows(chart, kept)
-    common = dict(
+    return dict(
         kept_signals=kept_rows,
-        characteristic=name,
+        characteristic=data.name,
         unit=unit,
         spec=spec_d,
         attribute=attribute,
         n_missing=n_missing,
-        subgroups=int(chart.n_subgroups),
+        subgroups=int(p1.chart.n_subgroups),
         phase1=p1,
         criteria=crit,
         options=options,
@@ -1419,50 +1514,43 @@ def analyze_characteristic(
         order=order,
     )
 
-    if attribute:
-        if not np.any(np.asarray(chart.location.sigma) > 0):
-            warn.extend(w for w in chart.warnings if w not in warn)  # the centre-line chart
-        return _attribute_result(
-            common,
-            chart,
-            x,
-            size_arr[kept_mask] if size_arr is not None else None,
-            kept_labels,
-            warn,
-            level,
-            crit,
-            withheld,
-        )
 
-    mean = float(np.mean(x))
-    overall = float(np.std(x, ddof=1)) if x.size > 1 else None
-    # the within sigma of the raw values (the chart itself may be on the model's scale)
-    stat_chart = p1.raw_chart or chart
+def _variable_fields(common, chart, stat_chart, x, kept_labels, withheld) -> dict:
+    """The result fields of variable data after phase I (mean, sigmas, retained values)."""
     within = None if stat_chart.within_sigma is None else float(stat_chart.within_sigma)
-    result_kw = dict(
+    return dict(
         common,
         findings=withheld,
         n=int(x.size),
         subgroup_size=chart.subgroup_size,
-        mean=mean,
+        mean=float(np.mean(x)),
         within_sigma=within,
-        overall_sigma=overall,
+        overall_sigma=float(np.std(x, ddof=1)) if x.size > 1 else None,
         values=x,
         labels=kept_labels,
     )
-    if x.size < 3 or overall is None or overall == 0:
-        if x.size < 3:
-            warn.append(
-                f"only {x.size} value(s) are left: no normality test, model or capability index "
-                "can be computed from so few (a capability study needs about 100 or more)"
-            )
-        if overall == 0:
-            warn.append(
-                "every value used is the same: the spread is zero, so no capability index can "
-                "be computed (check the gauge resolution)"
-            )
-        return CharacteristicResult(**result_kw, warnings=tuple(warn))
 
+
+def _too_few_for_shape(x, overall, warn) -> bool:
+    """True (and ``warn`` says why) when fewer than 3 values or zero spread are left."""
+    if not (x.size < 3 or overall is None or overall == 0):
+        return False
+    if x.size < 3:
+        warn.append(
+            f"only {x.size} value(s) are left: no normality test, model or capability index "
+            "can be computed from so few (a capability study needs about 100 or more)"
+        )
+    if overall == 0:
+        warn.append(
+            "every value used is the same: the spread is zero, so no capability index can "
+            "be computed (check the gauge resolution)"
+        )
+    return True
+
+
+def _shape(x, rescale, result_kw, warn):
+    """Step 4: normality tests and probability plot (into ``result_kw``); returns the
+    Anderson-Darling result and phase I's last model round when it is for exactly ``x``."""
     # the model phase I settled on for exactly these values (its last round), when there is one
     last = getattr(rescale, "last", None)
     reuse = (
@@ -1484,10 +1572,12 @@ def analyze_characteristic(
         pplot = normality_module.probability_plot(x, band="beta_pointwise")
     normality = {"anderson_darling": ad, "shapiro_wilk": sw}
     result_kw.update(normality=normality, probability_plot=pplot)
-    if spec is None or (spec.lsl is None and spec.usl is None):
-        return CharacteristicResult(**result_kw, warnings=tuple(warn))
+    return ad, (last if reuse else None)
 
-    if reuse:
+
+def _fit_capability(x, kept_labels, stat_chart, spec, requested, ad, last, options, level, warn):
+    """Step 5: the model (phase I's last round, else chosen here) and the capability under it."""
+    if last is not None:
         choice, ranking, notes = last["choice"], last["ranking"], list(last["notes"])
     else:
         choice, ranking, notes = _choose_model(
@@ -1520,6 +1610,7 @@ def analyze_characteristic(
             df_within=df_within,
         )
     else:
+        within = None if stat_chart.within_sigma is None else float(stat_chart.within_sigma)
         cap = capability(
             x,
             lsl=spec.lsl,
@@ -1532,8 +1623,11 @@ def analyze_characteristic(
             n_boot=options.n_boot,
             random_state=options.random_state,
         )
-    index = crit["index"]
-    judged_index = index
+    return choice, ranking, cap
+
+
+def _judged_index(cap, choice, index, warn) -> str:
+    """The index the verdict judges: Ppk / Pp in place of a Cpk / Cp the model does not give."""
     if (
         getattr(cap, index) is None
         and index in ("cpk", "cp")
@@ -1544,6 +1638,15 @@ def analyze_characteristic(
             f"{index.capitalize()} is not defined for the fitted {choice.label} model; the "
             f"verdict uses {judged_index.capitalize()} by the percentile method"
         )
+        return judged_index
+    return index
+
+
+def _verdict_and_findings(
+    x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld
+):
+    """Step 6: the verdict (withheld by open signals or other reasons, joined by a tolerance
+    interval criterion), the findings list and the interval block."""
     verdict = judge(cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"])
     findings = list(
         diagnose(
@@ -1576,15 +1679,20 @@ def analyze_characteristic(
         )
         verdict = intervals.judge_with_interval(verdict, ti)
         interval = intervals.interval_block(ti)
+    return verdict, findings, interval
+
+
+def _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings):
+    """The gauge finding and the measurement-error block (its warnings join ``findings``)."""
     if gauge is not None:
         findings.append(_gauge_finding(gauge))
     measurement_error = _measurement_error(
         gauge,
-        mean=mean,
-        within=within,
-        df_within=df_within,
-        overall=overall,
-        n=int(x.size),
+        mean=result_kw["mean"],
+        within=result_kw["within_sigma"],
+        df_within=_df_within(stat_chart),
+        overall=result_kw["overall_sigma"],
+        n=result_kw["n"],
         spec=spec,
         level=level,
         model=choice.name,
@@ -1597,8 +1705,11 @@ def analyze_characteristic(
                 text=" ".join(measurement_error["warnings"]),
             )
         )
-    band = _model_band(x, spec, ranking, ad, judged_index, crit, cap, choice.name)
-    plan = None
+    return measurement_error
+
+
+def _plan(verdict, judged_index, crit, level):
+    """Parts needed to demonstrate the requirement, when the estimate passes but the bound not."""
     if (
         verdict.estimate is not None
         and verdict.meets is False
@@ -1606,31 +1717,12 @@ def analyze_characteristic(
         and verdict.estimate > crit["threshold"]
     ):
         try:
-            plan = planning_module.parts_needed(
+            return planning_module.parts_needed(
                 verdict.estimate, crit["threshold"], index=judged_index, level=level
             )
         except StudyInputError:
-            plan = None
-    result_kw.pop("findings", None)
-    from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
-
-    # the recorded removals (an automatic phase I would trim a trend as special causes)
-    time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
-    findings.extend(time_findings)
-    return CharacteristicResult(
-        **result_kw,
-        time_model=time_model,
-        ranking=ranking,
-        model=choice,
-        capability=cap,
-        verdict=verdict,
-        findings=tuple(findings),
-        model_band=band,
-        plan=plan,
-        warnings=tuple(warn),
-        measurement_error=measurement_error,
-        tolerance_interval=interval,
-    )
+            return None
+    return None
 
 
 def _signal_summary(chart: ControlChart) -> str:
