@@ -522,75 +522,6 @@ class CharacteristicResult:
 
     def to_dict(self) -> dict:
         """The JSON of ``studykit analyze --json`` (every field documented in the README)."""
-        chart = self.phase1.chart
-        labels = chart.labels
-
-        def series(s):
-            if s is None:
-                return None
-            return {"center": _f(s.center[0]), "lcl": _f(s.lcl[0]), "ucl": _f(s.ucl[0])}
-
-        signals = []
-        for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
-            if s is None:
-                continue
-            # every label of every signal read in one step (10^4 signals on 10^6 readings)
-            points = [list(sig.points) for sig in s.signals]
-            if s.name == "moving_range":  # a moving range is the difference of two readings
-                readings = [
-                    sorted({q for p in pos for q in (p - 1, p) if q >= 0}) for pos in points
-                ]
-            else:
-                readings = points
-            sub_text = _labels_at(labels, points)
-            read_text = sub_text if readings is points else _labels_at(labels, readings)
-            for sig, subs, reads in zip(s.signals, sub_text, read_text, strict=True):
-                signals.append(
-                    {
-                        "rule": sig.rule,
-                        "number": sig.number,
-                        "chart": part,
-                        "subgroups": subs,
-                        "readings": reads,
-                        "text": sig.text,
-                    }
-                )
-        scale = self.phase1.scale
-        stat_chart = self.phase1.raw_chart or chart
-        chart_d = {
-            "kind": chart.kind,
-            "reason": chart.reason,
-            "sigma_method": stat_chart.sigma_method_text,
-            "location": series(chart.location),
-            "dispersion": series(chart.dispersion),
-            "signals": signals,
-        }
-        if scale is not None and scale.name != "raw":
-            chart_d["scale"] = scale.name
-            chart_d["scale_text"] = scale.label
-            if self.probability_limits is not None:
-                chart_d["probability_limits"] = self.probability_limits
-        if self.attribute:
-            nominal = self.subgroup_size
-            loc = chart.location
-            if nominal is not None and np.allclose(chart.sizes, nominal):
-                chart_d["location"] = series(loc)
-            else:
-                # centre and limits of the nominal (median) subgroup size
-                center, lcl, ucl = _attribute_nominal(chart)
-                chart_d["location"] = {"center": center, "lcl": lcl, "ucl": ucl}
-            chart_d["limits"] = [
-                {
-                    "subgroup": _label(labels[i]),
-                    "size": _f(chart.sizes[i]),
-                    "center": _f(loc.center[i]),
-                    "lcl": _f(loc.lcl[i]),
-                    "ucl": _f(loc.ucl[i]),
-                }
-                for i in range(len(labels))
-            ]
-            if chart.overdispersion is not None:
-                chart_d["overdispersion"] = chart.overdispersion.to_dict()
         out = {
             "characteristic": self.characteristic,
             "unit": self.unit,
@@ -602,27 +533,13 @@ class CharacteristicResult:
             "mean": _f(self.mean),
             "within_sigma": _f(self.within_sigma),
             "overall_sigma": _f(self.overall_sigma),
-            "chart": chart_d,
-            "phase1": {
-                "removed_subgroups": list(self.removed_subgroups),
-                "iterations": self.phase1.iterations,
-                "stopped": self.phase1.stopped,
-                "removed_share": _f(self.phase1.removed_share),
-                "removed_auto": int(self.phase1.n_removed_auto),
-                "removed_recorded": int(self.phase1.n_removed_manual),
-                "removed_share_auto": _f(self.phase1.auto_removed_share),
-                "removed_share_recorded": _f(self.phase1.manual_removed_share),
-                "removals": [r.to_dict() for r in self.phase1.removals],
-                "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
-                "mr_removal": self.phase1.mr_removal,
-                "verdict_withheld": list(self.withheld_codes),
-                "chance_signals": {k: c.to_dict() for k, c in self.phase1.chance.items()},
-            },
+            "chart": self._chart_dict(),
+            "phase1": self._phase1_dict(),
             "order": None if self.order is None else self.order.to_dict(),
-            "normality": None,
+            "normality": self._normality_dict(),
             "model": None if self.model is None else self.model.to_dict(),
             "capability": None,
-            "verdict": None,
+            "verdict": self._verdict_dict(),
             "criteria": dict(self.criteria),
             "findings": [f.to_dict() for f in self.findings],
             "model_band": None if self.model_band is None else self.model_band.to_dict(),
@@ -632,31 +549,8 @@ class CharacteristicResult:
         }
         if self.kept_signals:  # only when a signal was kept with a reason (key absent otherwise)
             out["kept_signals"] = [dict(k) for k in self.kept_signals]
-        if self.normality is not None:
-            ad, sw = self.normality["anderson_darling"], self.normality["shapiro_wilk"]
-            out["normality"] = {
-                "anderson_darling": {
-                    "statistic": _f(ad.a2),
-                    "adjusted_statistic": _f(ad.a2_star),
-                    "p_value": _f(ad.p_value),
-                },
-                "shapiro_wilk": {"statistic": _f(sw.w), "p_value": _f(sw.p_value)},
-            }
         if self.capability is not None:
             out["capability"] = self.capability.to_dict()
-        if self.verdict is not None:
-            v = self.verdict
-            out["verdict"] = {
-                "criterion": v.criterion,
-                "index": v.index,
-                "threshold": _f(v.threshold),
-                "basis": v.basis,
-                "estimate": _f(v.estimate),
-                "lower_bound": _f(v.lower_bound),
-                "level": _f(v.level),
-                "meets": v.meets,
-                "text": v.text,
-            }
         if self.ranking is not None:
             out["ranking"] = [row.to_dict() for row in self.ranking.rows]
         ac = self.attribute_capability
@@ -671,6 +565,140 @@ class CharacteristicResult:
         if self.tolerance_interval is not None:
             out["tolerance_interval"] = self.tolerance_interval
         return out
+
+    def _chart_dict(self) -> dict:
+        """The ``chart`` block of :meth:`to_dict`: limits, signals, scale, attribute limits."""
+        chart = self.phase1.chart
+        labels = chart.labels
+        signals = _signal_dicts(chart)
+        scale = self.phase1.scale
+        stat_chart = self.phase1.raw_chart or chart
+        chart_d = {
+            "kind": chart.kind,
+            "reason": chart.reason,
+            "sigma_method": stat_chart.sigma_method_text,
+            "location": _series_dict(chart.location),
+            "dispersion": _series_dict(chart.dispersion),
+            "signals": signals,
+        }
+        if scale is not None and scale.name != "raw":
+            chart_d["scale"] = scale.name
+            chart_d["scale_text"] = scale.label
+            if self.probability_limits is not None:
+                chart_d["probability_limits"] = self.probability_limits
+        if self.attribute:
+            chart_d.update(self._attribute_limits(chart, labels))
+        return chart_d
+
+    def _attribute_limits(self, chart, labels) -> dict:
+        """Attribute chart: the limits at the nominal size and per subgroup."""
+        chart_d: dict = {}
+        nominal = self.subgroup_size
+        loc = chart.location
+        if nominal is not None and np.allclose(chart.sizes, nominal):
+            chart_d["location"] = _series_dict(loc)
+        else:
+            # centre and limits of the nominal (median) subgroup size
+            center, lcl, ucl = _attribute_nominal(chart)
+            chart_d["location"] = {"center": center, "lcl": lcl, "ucl": ucl}
+        chart_d["limits"] = [
+            {
+                "subgroup": _label(labels[i]),
+                "size": _f(chart.sizes[i]),
+                "center": _f(loc.center[i]),
+                "lcl": _f(loc.lcl[i]),
+                "ucl": _f(loc.ucl[i]),
+            }
+            for i in range(len(labels))
+        ]
+        if chart.overdispersion is not None:
+            chart_d["overdispersion"] = chart.overdispersion.to_dict()
+        return chart_d
+
+    def _phase1_dict(self) -> dict:
+        """The ``phase1`` block of :meth:`to_dict`."""
+        return {
+            "removed_subgroups": list(self.removed_subgroups),
+            "iterations": self.phase1.iterations,
+            "stopped": self.phase1.stopped,
+            "removed_share": _f(self.phase1.removed_share),
+            "removed_auto": int(self.phase1.n_removed_auto),
+            "removed_recorded": int(self.phase1.n_removed_manual),
+            "removed_share_auto": _f(self.phase1.auto_removed_share),
+            "removed_share_recorded": _f(self.phase1.manual_removed_share),
+            "removals": [r.to_dict() for r in self.phase1.removals],
+            "scale": "raw" if self.phase1.scale is None else self.phase1.scale.name,
+            "mr_removal": self.phase1.mr_removal,
+            "verdict_withheld": list(self.withheld_codes),
+            "chance_signals": {k: c.to_dict() for k, c in self.phase1.chance.items()},
+        }
+
+    def _normality_dict(self) -> dict | None:
+        """The ``normality`` block of :meth:`to_dict` (None without the tests)."""
+        if self.normality is None:
+            return None
+        ad, sw = self.normality["anderson_darling"], self.normality["shapiro_wilk"]
+        return {
+            "anderson_darling": {
+                "statistic": _f(ad.a2),
+                "adjusted_statistic": _f(ad.a2_star),
+                "p_value": _f(ad.p_value),
+            },
+            "shapiro_wilk": {"statistic": _f(sw.w), "p_value": _f(sw.p_value)},
+        }
+
+    def _verdict_dict(self) -> dict | None:
+        """The ``verdict`` block of :meth:`to_dict` (None without a verdict)."""
+        if self.verdict is None:
+            return None
+        v = self.verdict
+        return {
+            "criterion": v.criterion,
+            "index": v.index,
+            "threshold": _f(v.threshold),
+            "basis": v.basis,
+            "estimate": _f(v.estimate),
+            "lower_bound": _f(v.lower_bound),
+            "level": _f(v.level),
+            "meets": v.meets,
+            "text": v.text,
+        }
+
+
+def _series_dict(s):
+    """Centre line and limits of a chart series at its first point (None without a series)."""
+    if s is None:
+        return None
+    return {"center": _f(s.center[0]), "lcl": _f(s.lcl[0]), "ucl": _f(s.ucl[0])}
+
+
+def _signal_dicts(chart) -> list:
+    """Every run-rule signal of ``chart`` with its subgroup and reading labels."""
+    labels = chart.labels
+    signals = []
+    for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
+        if s is None:
+            continue
+        # every label of every signal read in one step (10^4 signals on 10^6 readings)
+        points = [list(sig.points) for sig in s.signals]
+        if s.name == "moving_range":  # a moving range is the difference of two readings
+            readings = [sorted({q for p in pos for q in (p - 1, p) if q >= 0}) for pos in points]
+        else:
+            readings = points
+        sub_text = _labels_at(labels, points)
+        read_text = sub_text if readings is points else _labels_at(labels, readings)
+        for sig, subs, reads in zip(s.signals, sub_text, read_text, strict=True):
+            signals.append(
+                {
+                    "rule": sig.rule,
+                    "number": sig.number,
+                    "chart": part,
+                    "subgroups": subs,
+                    "readings": reads,
+                    "text": sig.text,
+                }
+            )
+    return signals
 
 
 def _attribute_nominal(chart: ControlChart):
@@ -762,87 +790,75 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl, rank=False):
     normal model rejected, or when ``rank`` asks for the ranking anyway."""
     ranking = None
     notes: list[str] = []
-    positive = bool(np.all(x > 0))
     normal_kept = ad_normal.p_value is not None and ad_normal.p_value >= NORMALITY_ALPHA
     need_ranking = requested not in ("normal", "auto", *_TRANSFORMS)
     if need_ranking or (requested == "auto" and (rank or not normal_kept)):
         ranking = fit_module.fit_all(x)
     if requested == "auto":
-        if normal_kept:
-            return (
-                ModelChoice(
-                    "normal",
-                    "Normal",
-                    {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
-                    f"the normal model is not rejected (Anderson-Darling p = "
-                    f"{ad_normal.p_value:.3f} >= {NORMALITY_ALPHA}, common practice)",
-                ),
-                ranking,
-                notes,
-            )
-        best = None
-        for row in ranking.rows:
-            if row.id == "normal" or not row.converged or row.error:
-                continue
-            best = ranking.models.get(row.id)
-            if best is not None:
-                break
-        if best is None:
-            notes.append("no non-normal model could be fitted; the normal model is used")
-            return (
-                ModelChoice("normal", "Normal", {}, "fallback: no other model fitted"),
-                ranking,
-                notes,
-            )
-        return (
-            ModelChoice(
-                best.name,
-                names.model_label(best.name),
-                dict(best.parameters),
-                f"the normal model is rejected (Anderson-Darling p = {ad_normal.p_value:.3g}); "
-                f"{names.model_label(best.name)} ranks best of the fitted models ({ranking.rule})",
-                fitted=best,
-            ),
-            ranking,
-            notes,
+        choice = _auto_choice(x, ad_normal, normal_kept, ranking, notes)
+    else:
+        choice = _requested_choice(x, requested, ranking, notes)
+    return choice, ranking, notes
+
+
+def _auto_choice(x, ad_normal, normal_kept, ranking, notes) -> ModelChoice:
+    """Model ``auto``: normal unless rejected, else the best-ranked fitted family."""
+    if normal_kept:
+        return ModelChoice(
+            "normal",
+            "Normal",
+            {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
+            f"the normal model is not rejected (Anderson-Darling p = "
+            f"{ad_normal.p_value:.3f} >= {NORMALITY_ALPHA}, common practice)",
         )
+    best = None
+    for row in ranking.rows:
+        if row.id == "normal" or not row.converged or row.error:
+            continue
+        best = ranking.models.get(row.id)
+        if best is not None:
+            break
+    if best is None:
+        notes.append("no non-normal model could be fitted; the normal model is used")
+        return ModelChoice("normal", "Normal", {}, "fallback: no other model fitted")
+    return ModelChoice(
+        best.name,
+        names.model_label(best.name),
+        dict(best.parameters),
+        f"the normal model is rejected (Anderson-Darling p = {ad_normal.p_value:.3g}); "
+        f"{names.model_label(best.name)} ranks best of the fitted models ({ranking.rule})",
+        fitted=best,
+    )
+
+
+def _requested_choice(x, requested, ranking, notes) -> ModelChoice:
+    """The model the user asked for (normal, a transform, or a fitted family)."""
+    positive = bool(np.all(x > 0))
     if requested == "normal":
-        return (
-            ModelChoice(
-                "normal",
-                "Normal",
-                {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
-                "chosen by the user",
-            ),
-            ranking,
-            notes,
+        return ModelChoice(
+            "normal",
+            "Normal",
+            {"mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1))},
+            "chosen by the user",
         )
     if requested == "boxcox":
         bc = transform_module.box_cox(x)
-        return (
-            ModelChoice(
-                "boxcox",
-                "Box-Cox transformed normal",
-                {"lambda": bc.lam_used, "shift": bc.shift},
-                "chosen by the user" + (f"; {bc.note}" if getattr(bc, "note", "") else ""),
-                transform=bc,
-            ),
-            ranking,
-            notes,
+        return ModelChoice(
+            "boxcox",
+            "Box-Cox transformed normal",
+            {"lambda": bc.lam_used, "shift": bc.shift},
+            "chosen by the user" + (f"; {bc.note}" if getattr(bc, "note", "") else ""),
+            transform=bc,
         )
     if requested == "johnson":
         jr = transform_module.johnson(x)
         params = {k: v for k, v in jr.to_dict().items() if isinstance(v, int | float)}
-        return (
-            ModelChoice(
-                "johnson",
-                f"Johnson {jr.kind}",
-                params,
-                "chosen by the user",
-                transform=jr,
-            ),
-            ranking,
-            notes,
+        return ModelChoice(
+            "johnson",
+            f"Johnson {jr.kind}",
+            params,
+            "chosen by the user",
+            transform=jr,
         )
     model = ranking.models.get(requested)
     if model is None:
@@ -853,16 +869,12 @@ def _choose_model(x, requested: str, ad_normal, lsl, usl, rank=False):
         )
     if not positive and requested != "normal":
         notes.append("the data contain values <= 0")
-    return (
-        ModelChoice(
-            model.name,
-            names.model_label(model.name),
-            dict(model.parameters),
-            "chosen by the user",
-            fitted=model,
-        ),
-        ranking,
-        notes,
+    return ModelChoice(
+        model.name,
+        names.model_label(model.name),
+        dict(model.parameters),
+        "chosen by the user",
+        fitted=model,
     )
 
 
