@@ -373,6 +373,10 @@ class CharacteristicResult:
         The safety caution where the characteristic is safety-critical.
     options : AnalysisOptions
     order : OrderCheck or None
+    excluded_points : dict
+        Chart-scale points of each removed subgroup that is not on the trial chart (the
+        recorded exclusions), ``{label: (location, dispersion or None)}``, so a view draws
+        them where they belong without computing them (X-bar/R, X-bar/S, I-MR charts).
         Whether the values are in production order (variables data; see
         :mod:`studykit.stats.order`).
     """
@@ -408,6 +412,7 @@ class CharacteristicResult:
     times: dict = field(default_factory=dict)
     notes: dict = field(default_factory=dict)
     order: object = None
+    excluded_points: dict = field(default_factory=dict)
     #: observed vs process-only indices when a gauge R&R is stored (see _measurement_error)
     measurement_error: dict | None = None
     kept_signals: tuple = ()
@@ -465,16 +470,7 @@ class CharacteristicResult:
     def to_chart_scale(self, values) -> np.ndarray:
         """Raw values mapped onto the phase-I chart's scale (to draw removed subgroups where
         they belong); the identity when the chart plots the raw values."""
-        v = np.asarray(values, dtype=float)
-        scale = self.phase1.scale
-        if scale is None or scale.name == "raw":
-            return v
-        choice = scale.model
-        if scale.name == "transformed" and getattr(choice, "transform", None) is not None:
-            return np.asarray(choice.transform.transform(v), dtype=float)
-        if scale.name == "normal_score" and getattr(choice, "fitted", None) is not None:
-            return _normal_scores(choice.fitted, v)
-        return v
+        return _on_chart_scale(self.phase1.scale, values)
 
     @property
     def withheld_codes(self) -> tuple:
@@ -699,6 +695,44 @@ def _signal_dicts(chart) -> list:
                 }
             )
     return signals
+
+
+def _on_chart_scale(scale, values) -> np.ndarray:
+    """Raw values mapped onto a phase-I chart scale (identity for the raw scale)."""
+    v = np.asarray(values, dtype=float)
+    if scale is None or scale.name == "raw":
+        return v
+    choice = scale.model
+    if scale.name == "transformed" and getattr(choice, "transform", None) is not None:
+        return np.asarray(choice.transform.transform(v), dtype=float)
+    if scale.name == "normal_score" and getattr(choice, "fitted", None) is not None:
+        return _normal_scores(choice.fitted, v)
+    return v
+
+
+def _excluded_points(values, labels, p1) -> dict:
+    """Chart-scale location (subgroup mean, or the reading of an I-MR chart) and dispersion
+    (range or standard deviation, n - 1) of each removed subgroup absent from the trial chart:
+    the recorded exclusions, which phase I never charted. For display only."""
+    kind = p1.chart.kind
+    if kind not in ("xbar_r", "xbar_s", "imr"):
+        return {}
+    trial = {str(v) for v in p1.trial_chart.labels}
+    wanted = [str(r.label) for r in p1.removals if str(r.label) not in trial]
+    out: dict = {}
+    for lab in wanted:
+        v = values[(labels == lab) & np.isfinite(values)]
+        if v.size == 0:
+            continue
+        v = _on_chart_scale(p1.scale, v)
+        loc = float(v.mean()) if kind != "imr" else float(v[0])
+        disp = None
+        if kind == "xbar_r" and v.size > 1:
+            disp = float(v.max() - v.min())
+        elif kind == "xbar_s" and v.size > 1:
+            disp = float(v.std(ddof=1))
+        out[lab] = (loc, disp)
+    return out
 
 
 def _attribute_nominal(chart: ControlChart):
@@ -1308,6 +1342,8 @@ def analyze_characteristic(
     common = _common_fields(
         data, spec, p1, crit, options, order, kept_rows, attribute=attribute, n_missing=n_missing
     )
+    if not attribute:
+        common["excluded_points"] = _excluded_points(values, labels, p1)
 
     if attribute:
         if not np.any(np.asarray(chart.location.sigma) > 0):

@@ -199,11 +199,14 @@ def _order(labels_all, labels_used):
     return np.asarray([pos[lab] for lab in labels_used], dtype=float)
 
 
-def _removed_points(result, raw, kind):
-    """Location/dispersion values of removed subgroups (for display only)."""
+def _removed_points(result, with_excluded):
+    """Location/dispersion points of removed subgroups, as the result holds them (the trial
+    chart's points; with ``with_excluded``, ``result.excluded_points`` of the recorded
+    exclusions)."""
     removed = [str(r.label) for r in result.phase1.removals]
     trial = result.phase1.trial_chart
     tl = [str(v) for v in trial.labels]
+    excluded = (getattr(result, "excluded_points", None) or {}) if with_excluded else {}
     loc, disp = {}, {}
     for lab in removed:
         if lab in tl:
@@ -211,18 +214,10 @@ def _removed_points(result, raw, kind):
             loc[lab] = float(trial.location.points[i])
             if trial.dispersion is not None and i < len(trial.dispersion.points):
                 disp[lab] = float(trial.dispersion.points[i])
-        elif raw is not None and kind in ("xbar_r", "xbar_s", "imr"):
-            vals = np.asarray(raw.values, dtype=float)
-            subs = np.asarray(raw.subgroups).astype(str)
-            v = vals[(subs == lab) & np.isfinite(vals)]
-            if v.size == 0:
-                continue
-            v = result.to_chart_scale(v)  # a chart on the model's scale (phase I)
-            loc[lab] = float(v.mean()) if kind != "imr" else float(v[0])
-            if kind == "xbar_r" and v.size > 1:
-                disp[lab] = float(v.max() - v.min())
-            elif kind == "xbar_s" and v.size > 1:
-                disp[lab] = float(v.std(ddof=1))
+        elif lab in excluded:
+            loc[lab], d = excluded[lab]
+            if d is not None:
+                disp[lab] = d
     return removed, loc, disp
 
 
@@ -252,12 +247,13 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
 
     Removed subgroups keep their place on the axis on a grey band with a grey cross; run-rule
     signals are ringed and numbered with the rule. ``raw`` (the characteristic's
-    :class:`~studykit.data.CharacteristicData`) lets manually removed subgroups be drawn too.
+    :class:`~studykit.data.CharacteristicData`) gives the order of every subgroup, so the
+    recorded exclusions are drawn in their place too (their points come from the result).
     """
     chart = result.phase1.chart
     kind = chart.kind
     used = [str(v) for v in chart.labels]
-    removed, loc_r, disp_r = _removed_points(result, raw, kind)
+    removed, loc_r, disp_r = _removed_points(result, raw is not None)
     all_labels = list(used)
     if raw is not None and kind != "imr":
         seen = []
