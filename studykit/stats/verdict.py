@@ -139,16 +139,7 @@ def judge(
     >>> "more data would be needed" in v.text
     True
     """
-    if index not in INDEX_NAMES:
-        raise StudyInputError(f"`index` ({index!r}) must be one of {list(INDEX_NAMES)}.")
-    if basis not in ("lower_bound", "estimate"):
-        raise StudyInputError(f"`basis` ({basis!r}) must be 'lower_bound' or 'estimate'.")
-    try:
-        threshold = float(threshold)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`threshold` ({threshold!r}) must be a number, e.g. 1.33.") from None
-    if not math.isfinite(threshold):
-        raise StudyInputError(f"`threshold` ({threshold!r}) must be a finite number, e.g. 1.33.")
+    threshold = _checked_criterion(index, basis, threshold)
     est = getattr(result, index)
     lb = result.lower_bound(index)
     name = _PRETTY[index]
@@ -162,6 +153,27 @@ def judge(
         )
         text = f"{name} cannot be judged: {why}."
         return Verdict(criterion, index, threshold, basis, None, lb, result.level, None, text)
+    meets, text = _judged_text(name, est, lb, threshold, basis, pct)
+    return Verdict(criterion, index, threshold, basis, float(est), lb, result.level, meets, text)
+
+
+def _checked_criterion(index, basis, threshold) -> float:
+    """The threshold as a float, after checking the index, basis and threshold of a criterion."""
+    if index not in INDEX_NAMES:
+        raise StudyInputError(f"`index` ({index!r}) must be one of {list(INDEX_NAMES)}.")
+    if basis not in ("lower_bound", "estimate"):
+        raise StudyInputError(f"`basis` ({basis!r}) must be 'lower_bound' or 'estimate'.")
+    try:
+        threshold = float(threshold)
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`threshold` ({threshold!r}) must be a number, e.g. 1.33.") from None
+    if not math.isfinite(threshold):
+        raise StudyInputError(f"`threshold` ({threshold!r}) must be a finite number, e.g. 1.33.")
+    return threshold
+
+
+def _judged_text(name, est, lb, threshold, basis, pct):
+    """Whether the requirement is met (None: no bound to judge) and the verdict's sentence."""
     est_ok = est >= threshold
     lb_txt = "not available" if lb is None else f"{lb:.2f}"
     if basis == "estimate":
@@ -194,7 +206,7 @@ def judge(
                 f"The estimate of {name} is {est:.2f}, below the required {threshold:g}: the "
                 f"process does not meet the requirement (lower {pct} bound {lb:.2f})."
             )
-    return Verdict(criterion, index, threshold, basis, float(est), lb, result.level, meets, text)
+    return meets, text
 
 
 @dataclass(frozen=True)
@@ -263,6 +275,14 @@ def diagnose(
     >>> [f.code for f in diagnose(capability(x, lsl=44.0, usl=58.0))]
     ['few_values']
     """
+    findings = _data_findings(result, n_subgroups)
+    findings += _model_findings(result, threshold, index)
+    findings += _tail_findings(result)
+    return findings
+
+
+def _data_findings(result, n_subgroups) -> list[Finding]:
+    """Between-subgroup variation, too few values, too few subgroups."""
     findings = []
     if result.cpk is not None and result.ppk is not None and result.ppk > 0:
         ratio = result.cpk / result.ppk
@@ -296,6 +316,12 @@ def diagnose(
                 "on few subgroups; 25 or more are usual.",
             )
         )
+    return findings
+
+
+def _model_findings(result, threshold, index) -> list[Finding]:
+    """A fitted model whose index differs much from normal theory's, or flips the verdict."""
+    findings: list[Finding] = []
     normal = result.alternatives.get("normal")
     if result.method != "normal" and normal is not None:
         mine, theirs = getattr(result, index, None), normal.get(index)
@@ -313,6 +339,12 @@ def diagnose(
                         + " Justify the model with the goodness-of-fit results.",
                     )
                 )
+    return findings
+
+
+def _tail_findings(result) -> list[Finding]:
+    """More observed PPM than the model expects (heavy tails or outliers)."""
+    findings: list[Finding] = []
     expected = result.ppm_overall
     if result.ppm_observed > 0 and result.ppm_observed > 3 * expected:
         findings.append(
@@ -437,19 +469,7 @@ def model_band(
     if basis not in ("estimate", "lower_bound"):
         raise StudyInputError(f"`basis` ({basis!r}) must be 'lower_bound' or 'estimate'.")
     level = _check_level(level) if basis == "lower_bound" else None
-    if not isinstance(index_by_model, dict):
-        raise StudyInputError(
-            "the model band needs the index under each model (model name -> value)."
-        )
-    vals = {str(k): float(v) for k, v in index_by_model.items() if v is not None}
-    if not vals:
-        raise StudyInputError("the model band has no model with an index value.")
-    bad = [k for k, v in vals.items() if not math.isfinite(v)]
-    if bad:
-        raise StudyInputError(
-            f"the index under the model {bad[0]!r} is not a finite number, so the model band "
-            "cannot be drawn; check the readings for extreme values."
-        )
+    vals = _band_values(index_by_model)
     threshold = float(threshold)
     low, high = min(vals.values()), max(vals.values())
     meeting = sorted(k for k, v in vals.items() if v >= threshold)
@@ -477,3 +497,21 @@ def model_band(
         basis=basis,
         level=level,
     )
+
+
+def _band_values(index_by_model) -> dict[str, float]:
+    """The finite index values by model name (None values left out); refuses anything else."""
+    if not isinstance(index_by_model, dict):
+        raise StudyInputError(
+            "the model band needs the index under each model (model name -> value)."
+        )
+    vals = {str(k): float(v) for k, v in index_by_model.items() if v is not None}
+    if not vals:
+        raise StudyInputError("the model band has no model with an index value.")
+    bad = [k for k, v in vals.items() if not math.isfinite(v)]
+    if bad:
+        raise StudyInputError(
+            f"the index under the model {bad[0]!r} is not a finite number, so the model band "
+            "cannot be drawn; check the readings for extreme values."
+        )
+    return vals
