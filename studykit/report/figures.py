@@ -242,18 +242,9 @@ def _kept_rings(ax, series, x, labels, result) -> None:
         )
 
 
-def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
-    """Location (and dispersion) chart of the final phase-I limits.
-
-    Removed subgroups keep their place on the axis on a grey band with a grey cross; run-rule
-    signals are ringed and numbered with the rule. ``raw`` (the characteristic's
-    :class:`~studykit.data.CharacteristicData`) gives the order of every subgroup, so the
-    recorded exclusions are drawn in their place too (their points come from the result).
-    """
-    chart = result.phase1.chart
-    kind = chart.kind
-    used = [str(v) for v in chart.labels]
-    removed, loc_r, disp_r = _removed_points(result, raw is not None)
+def _subgroup_order(result, raw, kind, used, removed) -> list:
+    """Every charted or removed subgroup label in production order (the readings' order when
+    ``raw`` is given, else the trial chart's)."""
     all_labels = list(used)
     if raw is not None and kind != "imr":
         seen = []
@@ -266,6 +257,22 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         all_labels = trial + [lab for lab in removed if lab not in trial]
         if set(used) - set(all_labels):
             all_labels = used + [lab for lab in removed if lab not in used]
+    return all_labels
+
+
+def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
+    """Location (and dispersion) chart of the final phase-I limits.
+
+    Removed subgroups keep their place on the axis on a grey band with a grey cross; run-rule
+    signals are ringed and numbered with the rule. ``raw`` (the characteristic's
+    :class:`~studykit.data.CharacteristicData`) gives the order of every subgroup, so the
+    recorded exclusions are drawn in their place too (their points come from the result).
+    """
+    chart = result.phase1.chart
+    kind = chart.kind
+    used = [str(v) for v in chart.labels]
+    removed, loc_r, disp_r = _removed_points(result, raw is not None)
+    all_labels = _subgroup_order(result, raw, kind, used, removed)
     x = _order(all_labels, used)
     panels = 2 if chart.dispersion is not None else 1
     with theme.matplotlib_context():
@@ -430,51 +437,54 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
             edgecolor=theme.PAPER,
             framealpha=0.9,
         )
-        pp = result.probability_plot
-        if pp is not None:
-            z = np.asarray(pp.normal_scores, dtype=float)
-            v = np.asarray(pp.values, dtype=float)
-            mk = theme.mpl_marker_kwargs("data")
-            mk["s"] = mk["s"] * 0.35
-            mk["label"] = "Ordered values"
-            ax2.scatter(v, z, **mk)
-            line = pp.line_mean + pp.line_sigma * z
-            kw = theme.mpl_line_kwargs("fit")
-            kw["label"] = "Normal line"
-            ax2.plot(line, z, **kw)
-            if pp.band_lower is not None and pp.band_upper is not None:
-                ax2.fill_betweenx(
-                    z,
-                    np.asarray(pp.band_lower, dtype=float),
-                    np.asarray(pp.band_upper, dtype=float),
-                    color=theme.SKY_BLUE_LINE,
-                    alpha=0.15,
-                    linewidth=0,
-                    label=f"{pp.level * 100:g}% band",
-                )
-            probs = [0.001, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999]
-            from scipy import stats
-
-            zt = [stats.norm.ppf(p) for p in probs]
-            keep = [
-                (t, p)
-                for t, p in zip(zt, probs, strict=True)
-                if z.min() - 0.5 <= t <= z.max() + 0.5
-            ]
-            ax2.set_yticks([t for t, _ in keep])
-            ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
-            tidy_axes(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
-            ax2.legend(
-                loc="upper left",
-                fontsize=7.5,
-                frameon=True,
-                facecolor=theme.PAPER,
-                edgecolor=theme.PAPER,
-                framealpha=0.9,
-            )
-        else:
-            ax2.set_axis_off()
+        _probability_panel(ax2, result, unit)
     return fig
+
+
+def _probability_panel(ax2, result, unit) -> None:
+    """The normal probability plot of the result (its points, line and band as computed)."""
+    pp = result.probability_plot
+    if pp is not None:
+        z = np.asarray(pp.normal_scores, dtype=float)
+        v = np.asarray(pp.values, dtype=float)
+        mk = theme.mpl_marker_kwargs("data")
+        mk["s"] = mk["s"] * 0.35
+        mk["label"] = "Ordered values"
+        ax2.scatter(v, z, **mk)
+        line = pp.line_mean + pp.line_sigma * z
+        kw = theme.mpl_line_kwargs("fit")
+        kw["label"] = "Normal line"
+        ax2.plot(line, z, **kw)
+        if pp.band_lower is not None and pp.band_upper is not None:
+            ax2.fill_betweenx(
+                z,
+                np.asarray(pp.band_lower, dtype=float),
+                np.asarray(pp.band_upper, dtype=float),
+                color=theme.SKY_BLUE_LINE,
+                alpha=0.15,
+                linewidth=0,
+                label=f"{pp.level * 100:g}% band",
+            )
+        probs = [0.001, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999]
+        from scipy import stats
+
+        zt = [stats.norm.ppf(p) for p in probs]
+        keep = [
+            (t, p) for t, p in zip(zt, probs, strict=True) if z.min() - 0.5 <= t <= z.max() + 0.5
+        ]
+        ax2.set_yticks([t for t, _ in keep])
+        ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
+        tidy_axes(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
+        ax2.legend(
+            loc="upper left",
+            fontsize=7.5,
+            frameon=True,
+            facecolor=theme.PAPER,
+            edgecolor=theme.PAPER,
+            framealpha=0.9,
+        )
+    else:
+        ax2.set_axis_off()
 
 
 def interval_figure(result, *, width: float = 7.0) -> Figure:
