@@ -1373,11 +1373,11 @@ def analyze_characteristic(
         x, kept_labels, stat_chart, spec, requested, ad, last, options, level, warn
     )
     judged_index = _judged_index(cap, choice, crit["index"], warn)
+    band = _model_band(x, spec, ranking, ad, judged_index, crit, cap, choice.name)
     verdict, findings, interval = _verdict_and_findings(
-        x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld
+        x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld, band
     )
     measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)
-    band = _model_band(x, spec, ranking, ad, judged_index, crit, cap, choice.name)
     plan = _plan(verdict, judged_index, crit, level)
     result_kw.pop("findings", None)
     from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
@@ -1691,7 +1691,7 @@ def _judged_index(cap, choice, index, warn) -> str:
 
 
 def _verdict_and_findings(
-    x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld
+    x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld, band
 ):
     """Step 6: the verdict (withheld by open signals or other reasons, joined by a tolerance
     interval criterion), the findings list and the interval block."""
@@ -1702,6 +1702,7 @@ def _verdict_and_findings(
             n_subgroups=int(chart.n_subgroups) if chart.subgroup_size else None,
             threshold=crit["threshold"],
             index=judged_index,
+            band_decides=band is not None,
         )
     )
     if kept_keys:

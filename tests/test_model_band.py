@@ -119,3 +119,21 @@ def test_model_band_basis_checked_and_level_needed():
         model_band({"a": 1.0}, 1.0, basis="median")
     with pytest.raises(StudyInputError, match="level"):
         model_band({"a": 1.0}, 1.0, basis="lower_bound")
+
+
+def test_model_finding_leaves_the_flip_to_the_band(study):
+    # face runout: a fitted model; a threshold between its Ppk and normal theory's makes the
+    # two estimates fall on either side, which alone is not a plausible model changing the
+    # verdict (the band, on the verdict's basis, says that)
+    from studykit.stats.capability import diagnose
+
+    res = analyze_study(study, "face_runout")
+    cap = res.capability
+    assert cap.method != "normal"
+    mine, theirs = cap.ppk, cap.alternatives["normal"]["ppk"]
+    between = (mine + theirs) / 2
+    alone = [f for f in diagnose(cap, threshold=between) if f.code == "model_matters"]
+    assert alone and "The verdict depends on the model chosen." in alone[0].text
+    banded = diagnose(cap, threshold=between, band_decides=True)
+    matters = [f for f in banded if f.code == "model_matters"]
+    assert matters and "depends on the model" not in matters[0].text

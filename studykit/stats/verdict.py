@@ -237,6 +237,7 @@ def diagnose(
     n_subgroups: int | None = None,
     threshold: float | None = None,
     index: str = "ppk",
+    band_decides: bool = False,
 ) -> list[Finding]:
     """Plain-word findings that affect how far a capability result can be trusted.
 
@@ -249,6 +250,11 @@ def diagnose(
         Requirement for ``index``; used to say whether the choice of model changes the verdict.
     index : str
         Index the requirement is about (default ``"ppk"``).
+    band_decides : bool
+        True when a model band on the verdict's basis (:func:`model_band`) says whether a
+        plausible model changes the verdict: the ``model_matters`` finding then leaves that
+        sentence to the band (normal theory's estimate may cross the threshold where no
+        plausible model's bound does, or the normal model may be rejected).
 
     Returns
     -------
@@ -276,7 +282,7 @@ def diagnose(
     ['few_values']
     """
     findings = _data_findings(result, n_subgroups)
-    findings += _model_findings(result, threshold, index)
+    findings += _model_findings(result, threshold, index, band_decides)
     findings += _tail_findings(result)
     return findings
 
@@ -319,7 +325,7 @@ def _data_findings(result, n_subgroups) -> list[Finding]:
     return findings
 
 
-def _model_findings(result, threshold, index) -> list[Finding]:
+def _model_findings(result, threshold, index, band_decides=False) -> list[Finding]:
     """A fitted model whose index differs much from normal theory's, or flips the verdict."""
     findings: list[Finding] = []
     normal = result.alternatives.get("normal")
@@ -335,7 +341,11 @@ def _model_findings(result, threshold, index) -> list[Finding]:
                         f"The fitted model ({names.model_label(result.model)}) gives "
                         f"{_PRETTY[index]} {mine:.2f}; "
                         f"normal theory would give {theirs:.2f}."
-                        + (" The verdict depends on the model chosen." if flips else "")
+                        + (
+                            " The verdict depends on the model chosen."
+                            if flips and not band_decides
+                            else ""
+                        )
                         + " Justify the model with the goodness-of-fit results.",
                     )
                 )
