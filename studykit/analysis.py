@@ -1545,6 +1545,14 @@ def analyze_characteristic(
             f"verdict uses {judged_index.capitalize()} by the percentile method"
         )
     verdict = judge(cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"])
+    from studykit.time_model import time_model_verdict  # ISO 22514-2 class: every reading but
+
+    # the recorded removals (an automatic phase I would trim a trend as special causes); a
+    # moving class judges the verdict on its own index (studykit/time_model.py)
+    time_model, time_findings, verdict = time_model_verdict(
+        values[~manual], labels[~manual], spec, verdict, cap
+    )
+    judged_index = verdict.index
     findings = list(
         diagnose(
             cap,
@@ -1612,10 +1620,6 @@ def analyze_characteristic(
         except StudyInputError:
             plan = None
     result_kw.pop("findings", None)
-    from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
-
-    # the recorded removals (an automatic phase I would trim a trend as special causes)
-    time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
     findings.extend(time_findings)
     return CharacteristicResult(
         **result_kw,
