@@ -284,3 +284,14 @@ def test_stable_class_leaves_the_verdict_alone():
     assert "verdict_basis" not in d["time_model"]
     assert d["verdict"]["estimate"] == d["capability"]["ppk"]
     assert not [f for f in d["findings"] if f["code"] == "time_model"]
+
+
+def test_class_bound_without_spread_gives_no_bound():
+    from studykit.stats.timedep import class_bound
+
+    # readings exactly on a line: no spread about it, so no index and no bound
+    x = np.repeat([1.0, 2.0, 3.0, 4.0], 3)
+    g = np.repeat(["a", "b", "c", "d"], 3)
+    with np.errstate(all="ignore"):
+        b = class_bound(x, g, "C3", lsl=0, usl=5)
+    assert b["ppk_lower"] is None and b["pp_lower"] is None

@@ -647,7 +647,7 @@ def class_bound(
     sd_means = np.sqrt(sb2 + sw2 / n_i)
     chunk = max(1, min(n_boot, _CHUNK_CELLS // max(k, 1)))
     draws: dict = {"pp": [], "ppk": []}
-    done = 0
+    done = 0 if sw2 + sb2 > 0 else n_boot  # no spread: no index, so no bound
     while done < n_boot:
         m = min(chunk, n_boot - done)
         bm = centre + sd_means * rng.standard_normal((m, k))
@@ -670,7 +670,10 @@ def class_bound(
     }
     for key, parts in draws.items():
         est = out[key]
-        if parts and est is not None:
-            q = float(np.quantile(np.concatenate(parts), level))
+        samples = np.concatenate(parts) if parts else np.empty(0)
+        # a degenerate sample (no spread left) gives no index: then no bound rather than a
+        # bound from a part of the samples
+        if est is not None and math.isfinite(est) and samples.size and np.isfinite(samples).all():
+            q = float(np.quantile(samples, level))
             out[f"{key}_lower"] = est * est / q if est > 0 and q > 0 else 2 * est - q
     return out
