@@ -118,8 +118,14 @@ CHARACTERISTICS = [
         description="Impeller hub bore, moulded in a 4-cavity tool; cavity 3 runs "
         "off-centre (invented)",
     ),
-    # the tool-wear file (WEAR_CSV, shaft seat 14.980-15.020 mm) is not in the study: its
-    # trend withholds the verdict in phase I, which would change the study's approval gate
+    Characteristic(
+        "shaft_seat_diameter",
+        unit="mm",
+        lsl=14.980,
+        usl=15.020,
+        source=WEAR_CSV,
+        description="Shaft seat turned over one insert's planned life; the insert wears (invented)",
+    ),
 ]
 CRITERIA = {
     c.name: Criteria(index="ppk", threshold=1.67, basis="lower_bound")
@@ -370,6 +376,7 @@ def write_study(folder: Path, files: dict[str, bytes]) -> Path:
             (PULL_CSV, files[PULL_CSV]),
             (LOTS_CSV, files[LOTS_CSV]),
             (CAVITIES_CSV, files[CAVITIES_CSV]),
+            (WEAR_CSV, files[WEAR_CSV]),
         ],
         when="2026-03-03T08:30:00Z",
     )

@@ -1374,16 +1374,25 @@ def analyze_characteristic(
     )
     judged_index = _judged_index(cap, choice, crit["index"], warn)
     band = _model_band(x, spec, ranking, ad, judged_index, crit, cap, choice.name)
-    verdict, findings, interval = _verdict_and_findings(
-        x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld, band
+    verdict, findings, interval, time_model, time_findings = _verdict_and_findings(
+        x,
+        cap,
+        chart,
+        p1,
+        spec,
+        choice,
+        crit,
+        judged_index,
+        kept_keys,
+        kept_rows,
+        withheld,
+        band,
+        (values[~manual], labels[~manual]),
     )
+    judged_index = verdict.index
     measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)
     plan = _plan(verdict, judged_index, crit, level)
     result_kw.pop("findings", None)
-    from studykit.time_model import time_model_for  # ISO 22514-2 class: every reading but
-
-    # the recorded removals (an automatic phase I would trim a trend as special causes)
-    time_model, time_findings = time_model_for(values[~manual], labels[~manual], spec)
     findings.extend(time_findings)
     return CharacteristicResult(
         **result_kw,
@@ -1691,11 +1700,31 @@ def _judged_index(cap, choice, index, warn) -> str:
 
 
 def _verdict_and_findings(
-    x, cap, chart, p1, spec, choice, crit, judged_index, kept_keys, kept_rows, withheld, band
+    x,
+    cap,
+    chart,
+    p1,
+    spec,
+    choice,
+    crit,
+    judged_index,
+    kept_keys,
+    kept_rows,
+    withheld,
+    band,
+    time_readings,
 ):
-    """Step 6: the verdict (withheld by open signals or other reasons, joined by a tolerance
-    interval criterion), the findings list and the interval block."""
+    """Step 6: the verdict (judged on the ISO 22514-2 class's own index where the location or
+    spread moves; withheld by open signals or other reasons, joined by a tolerance interval
+    criterion), the findings list, the interval block, the time model and its findings.
+
+    ``time_readings`` are the readings and labels of every reading but the recorded removals
+    (an automatic phase I would trim a trend as special causes; studykit/time_model.py)."""
+    from studykit.time_model import time_model_verdict
+
     verdict = judge(cap, index=judged_index, threshold=crit["threshold"], basis=crit["basis"])
+    time_model, time_findings, verdict = time_model_verdict(*time_readings, spec, verdict, cap)
+    judged_index = verdict.index
     findings = list(
         diagnose(
             cap,
@@ -1728,7 +1757,7 @@ def _verdict_and_findings(
         )
         verdict = intervals.judge_with_interval(verdict, ti)
         interval = intervals.interval_block(ti)
-    return verdict, findings, interval
+    return verdict, findings, interval, time_model, time_findings
 
 
 def _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings):

@@ -3,19 +3,44 @@
 :func:`time_model_for` classifies the readings (:func:`studykit.stats.timedep.classify`): every
 reading but the recorded removals, so an automatic phase I that trims a trend as special causes
 does not hide it from the classification.
-and says in a finding what the class means for the capability shown. The verdict itself is not
-changed: where the class calls for another computation than the indices shown (C1: the
-between-subgroup variance; C3/C4: the travel of a trend), the finding gives that index, and its
-confidence bound is not computed yet (so it cannot carry a lower-bound criterion).
+
+:func:`time_model_verdict` also makes the class decide the verdict (the hook the analysis
+calls). A1, A2 and unclassified data leave the verdict as it is. Where the class calls for
+another computation than the usual indices, the verdict is judged on the class's index:
+
+* C1, C3, C4: Pp/Ppk by the class's method (sigma_total with the between-subgroup variance;
+  the trend's travel plus the spread about it), with the lower confidence bound of a
+  parametric bootstrap of the class model (:func:`studykit.stats.timedep.class_bound`; ours).
+* B, C2, D: the combined (overall) distribution, i.e. the Pp/Ppk of the fitted model over all
+  the values the analysis used, with their usual bounds; a Cp/Cpk criterion is judged on
+  Pp/Ppk instead (the within-subgroup sigma does not describe such a process).
+
+A Cpm criterion is left as it is (no class method gives a Cpm). The usual indices stay in the
+capability table; ``time_model.verdict_basis`` says what the verdict used.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass, replace
+
+from studykit import names
 from studykit.errors import StudyInputError
 from studykit.stats import timedep
-from studykit.stats.capability import Finding
+from studykit.stats.capability import Finding, judge
 
-__all__ = ["time_model_for"]
+__all__ = ["time_model_for", "time_model_verdict"]
+
+_TEXT = {
+    "B": "the spread changes between subgroups",
+    "C1": "the location moves at random between subgroups",
+    "C2": "the location moves at random between subgroups",
+    "C3": "the location moves systematically (a trend)",
+    "C4": "the location moves systematically (a trend) and at random",
+    "D": "location and spread both change between subgroups",
+}
+
+#: A within-sigma criterion is judged on its overall counterpart under a moving class.
+_OVERALL = {"cp": "pp", "cpk": "ppk", "pp": "pp", "ppk": "ppk"}
 
 
 def time_model_for(values, labels, spec) -> tuple:
@@ -30,22 +55,123 @@ def time_model_for(values, labels, spec) -> tuple:
         return tm, ()
     ppk = tm.indices.get("ppk")
     index = "" if ppk is None else f" Ppk by that method: {ppk:.2f}."
-    text = {
-        "B": "the spread changes between subgroups",
-        "C1": "the location moves at random between subgroups",
-        "C2": "the location moves at random between subgroups",
-        "C3": "the location moves systematically (a trend)",
-        "C4": "the location moves systematically (a trend) and at random",
-        "D": "location and spread both change between subgroups",
-    }[tm.cls]
     return tm, (
         Finding(
             code="time_model",
             severity="warning",
             text=(
-                f"Time-dependent model {tm.cls} (ISO 22514-2, from memory): {text}. Cp/Cpk from "
-                f"the within-subgroup sigma do not describe this process; the capability uses "
-                f"{tm.method}.{index}"
+                f"Time-dependent model {tm.cls} (ISO 22514-2, from memory): {_TEXT[tm.cls]}. "
+                f"Cp/Cpk from the within-subgroup sigma do not describe this process; the "
+                f"capability uses {tm.method}.{index}"
             ),
         ),
     )
+
+
+@dataclass(frozen=True)
+class _ClassIndices:
+    """What :func:`studykit.stats.capability.judge` reads, for the class's own indices."""
+
+    pp: float | None
+    ppk: float | None
+    bounds: dict
+    level: float
+    method: str = "percentile"
+
+    def lower_bound(self, index):
+        return self.bounds.get(index)
+
+
+def time_model_verdict(values, labels, spec, verdict, capability) -> tuple:
+    """``(TimeModel or None, findings tuple, verdict)``: the class, its finding, and the verdict
+    judged on the class's index where the class calls for it (see the module text)."""
+    tm, _ = time_model_for(values, labels, spec)
+    if tm is None or tm.cls in (None, "A1", "A2") or verdict is None:
+        return tm, (), verdict
+    index = _OVERALL.get(verdict.index)
+    if index is None:  # Cpm: no class method gives one
+        basis = {"basis": "usual", "index": verdict.index, "text": "no class method gives it"}
+        return replace(tm, judged=basis), _finding(tm, None, verdict), verdict
+    pretty = names.INDEX_LABELS[index]
+    if tm.cls in ("C1", "C3", "C4"):
+        b = timedep.class_bound(
+            values, labels, tm.cls, lsl=spec.lsl, usl=spec.usl, level=verdict.level
+        )
+        est = tm.indices.get(index)  # the class's point estimate (classify's numbers)
+        ci = _ClassIndices(
+            pp=tm.indices.get("pp"),
+            ppk=tm.indices.get("ppk"),
+            bounds={"pp": b["pp_lower"], "ppk": b["ppk_lower"]},
+            level=verdict.level,
+        )
+        new = judge(ci, index=index, threshold=verdict.threshold, basis=verdict.basis)
+        lower = b[f"{index}_lower"]
+        basis = {
+            "basis": "class_method",
+            "index": index,
+            "estimate": est,
+            "lower_bound": lower,
+            "level": verdict.level,
+            "bound_method": b["method"],
+            "n_boot": b["n_boot"],
+            "seed": str(b["seed"]),
+            "text": f"{pretty} by the class {tm.cls} method ({tm.method})",
+        }
+    else:  # B, C2, D: the combined distribution = the overall indices of the fitted model
+        new = (
+            verdict
+            if index == verdict.index
+            else judge(capability, index=index, threshold=verdict.threshold, basis=verdict.basis)
+        )
+        n_used = capability.inputs.get("n") if capability is not None else None
+        n_class = len(values)
+        basis = {
+            "basis": "combined_distribution",
+            "index": index,
+            "estimate": new.estimate,
+            "lower_bound": new.lower_bound,
+            "level": new.level,
+            "bound_method": "the usual bound of the overall index",
+            "text": f"{pretty} of the combined distribution (the overall indices shown)",
+        }
+        if n_used is not None and n_used != n_class:
+            basis["caution"] = (
+                f"the indices shown are of the {n_used} values phase I kept, the class was "
+                f"found on {n_class} readings: automatic removals may have taken out the "
+                "variation the class describes"
+            )
+    if new is not verdict:
+        new = replace(
+            new,
+            text=new.text
+            + f" Judged on {basis['text']}: ISO 22514-2 class {tm.cls} (from memory).",
+        )
+    return replace(tm, judged=basis), _finding(tm, basis, verdict), new
+
+
+def _finding(tm, basis, old) -> tuple:
+    head = (
+        f"Time-dependent model {tm.cls} (ISO 22514-2, from memory): {_TEXT[tm.cls]}. Cp/Cpk "
+        f"from the within-subgroup sigma do not describe this process."
+    )
+    if basis is None or basis["basis"] == "usual":
+        tail = (
+            f" The criterion's {names.INDEX_LABELS.get(old.index, old.index)} has no class "
+            "method, so the verdict stays on the usual index."
+        )
+    else:
+        est = "-" if basis["estimate"] is None else f"{basis['estimate']:.2f}"
+        low = "-" if basis["lower_bound"] is None else f"{basis['lower_bound']:.2f}"
+        how = (
+            f"a parametric bootstrap of the class model ({basis['n_boot']} samples, seed from "
+            "the data; ours)"
+            if basis["basis"] == "class_method"
+            else "the usual bound"
+        )
+        tail = (
+            f" The verdict is judged on {basis['text']}: {est}, lower {basis['level']:.0%} bound "
+            f"{low} ({how}). The capability table keeps the usual indices for comparison."
+        )
+        if basis.get("caution"):
+            tail += f" Caution: {basis['caution']}."
+    return (Finding(code="time_model", severity="warning", text=head + tail),)

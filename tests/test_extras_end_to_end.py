@@ -313,6 +313,59 @@ def test_notebook_recomputes_every_number_of_the_report(built):
     )
     assert f"all {n_expected} numbers of the report agree" in out
     assert "bore_diameter" in out and "mounting_hole_position" in out
+    # the gauge R&R is recomputed from its stored readings (10 parts x 3 appraisers x 3
+    # trials, demo_data/README.md) and every stored number compared
+    stored = StudyFile(built / "demo.study").results("gauge_rr")[-1].payload
+    stored = {k: v for k, v in stored.items() if k != "source"}
+    n_gauge = compare_numbers(stored, stored)[0]
+    grr = next(c for c in stored["components"] if c["name"] == "gauge_rr")
+    assert (
+        f"recomputed from its 90 readings: %GRR {grr['pct_study_variation']:.2f}, "
+        f"ndc {stored['ndc']}; all {n_gauge} stored numbers agree" in out
+    )
+
+
+def test_notebook_stops_when_a_stored_gauge_number_was_changed(built, tmp_path):
+    from nbclient.exceptions import CellExecutionError
+
+    from studykit.report.notebook import write_notebook
+
+    study = tmp_path / "demo.study"
+    shutil.copy(built / "demo.study", study)
+    sf = StudyFile(study)
+    payload = json.loads(json.dumps(sf.results("gauge_rr")[-1].payload))
+    payload["ndc"] = payload["ndc"] + 1  # a number the readings do not give
+    sf.attach_result("gauge_rr", "flange_thickness", payload, who="t")
+    write_notebook(study, tmp_path / "a.ipynb")
+    with pytest.raises(CellExecutionError, match="differs from the stored result"):
+        _execute(tmp_path / "a.ipynb")
+
+
+def test_generated_notebook_runs_under_nbval(built):
+    # the notebook of the demo study, run by nbval as CI does (DEVELOPERS.md, "Stack notes":
+    # --nbval-lax --nbval-current-env); its last cell compares with the PDF beside it
+    import subprocess
+    import sys
+
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "pytest",
+            "--nbval-lax",
+            "--nbval-current-env",
+            "-p",
+            "no:cacheprovider",
+            "-q",
+            "analysis.ipynb",
+        ],
+        cwd=built,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-2000:]
+    assert " passed" in proc.stdout
 
 
 def test_notebook_stops_when_the_report_is_of_another_state(built, tmp_path):

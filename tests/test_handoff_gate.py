@@ -152,7 +152,7 @@ def test_handoff_draft_stamps_every_file(draft_pack, capsys):
 def test_every_data_file_in_cover_digest_table_and_zip(draft_pack):
     tmp, study = draft_pack
     s = StudyFile(study).load()
-    assert len(s.files) == 4  # the demo study's data files (the 4-cavity file added)
+    assert len(s.files) == 5  # the demo study's data files (4-cavity and tool-wear added)
     reader = PdfReader(tmp / "r.pdf")
     cover = reader.pages[0].extract_text()
     digests = reader.pages[-1].extract_text()
@@ -169,7 +169,7 @@ def test_verify_with_the_zips_data_files(draft_pack, tmp_path, capsys):
     with zipfile.ZipFile(tmp / "pack.zip") as zf:
         zf.extractall(tmp_path)
     data = sorted(str(p) for p in (tmp_path / "data").iterdir())
-    assert len(data) == 4
+    assert len(data) == 5  # the demo study's data files
     code = main(["verify", str(tmp_path / "report.pdf"), "--data", *data, "--allow-unsigned"])
     out = capsys.readouterr().out
     assert code == 0, out

@@ -92,8 +92,12 @@ def test_approval_needs_a_verdict_or_a_waiver_for_every_characteristic(study_pat
     s = StudySession(study_path)
     open_ = s.open_verdicts()
     # the invented demo study: pull_off_force meets on its estimate but not on its lower bound;
-    # the counted-data characteristic has a verdict of its own (from the exact bound on its rate)
-    assert open_ == {"pull_off_force": "More data needed"}
+    # the tool-wear seat's trend leaves points beyond the control limits (no verdict); the
+    # counted-data characteristic has a verdict of its own (from the exact bound on its rate)
+    assert open_ == {
+        "pull_off_force": "More data needed",
+        "shaft_seat_diameter": "No verdict: not in control",
+    }
     with pytest.raises(SignOffRefused, match="pull_off_force: More data needed"):
         s.sign(who="M. Approver", role="approved", decision="approve")
     s.sign(who="R. Viewer", role="reviewed", decision="approve")  # only approvals are gated
@@ -101,6 +105,11 @@ def test_approval_needs_a_verdict_or_a_waiver_for_every_characteristic(study_pat
     with pytest.raises(SignOffRefused, match="pull_off_force"):  # a needless waiver opens nothing
         s.sign(who="M. Approver", role="approved", decision="approve")
     s.waive("pull_off_force", reason="customer deviation D-17 until lot 4", who="Q. Lead")
+    # one waiver does not open the gate while another characteristic has no verdict
+    with pytest.raises(SignOffRefused, match="shaft_seat_diameter"):
+        s.sign(who="M. Approver", role="approved", decision="approve")
+    assert s.open_verdicts() == {"shaft_seat_diameter": "No verdict: not in control"}
+    s.waive("shaft_seat_diameter", reason="insert change every 30 subgroups", who="Q. Lead")
     assert s.open_verdicts() == {}
     s.sign(who="M. Approver", role="approved", decision="approve")
     assert s.is_locked
@@ -189,7 +198,7 @@ def test_cli_sign_applies_the_same_rules(study_path, capsys):
         == 2
     )
     assert "approval_needs_verdicts" in capsys.readouterr().err
-    for name in ("pull_off_force", "leak_test_defectives"):
+    for name in ("pull_off_force", "leak_test_defectives", "shaft_seat_diameter"):
         assert (
             main(["study", "waive", path, name, "--reason", "deviation D-17", "--who", "Q. Lead"])
             == 0
@@ -251,7 +260,7 @@ def test_cli_sign_applies_the_same_rules(study_path, capsys):
     assert "locked" in capsys.readouterr().err
     assert main(["study", "show", path]) == 0
     out = capsys.readouterr().out
-    assert "on: one person may not sign two roles" in out and "Waivers (2)" in out
+    assert "on: one person may not sign two roles" in out and "Waivers (3)" in out
 
 
 # --- the live session -------------------------------------------------------------------------

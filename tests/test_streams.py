@@ -268,3 +268,74 @@ def test_report_section_and_verify_cover_the_streams(tmp_path):
     text = subprocess.run(["pdftotext", str(pdf), "-"], capture_output=True, text=True).stdout
     assert "Streams (4)" in text  # the section is on a page
     assert "Worst stream: 3" in text
+
+
+# -- the run rule of the group chart -----------------------------------------------------------
+
+
+def test_run_rule_arl_against_a_markov_chain_and_a_monte_carlo():
+    from studykit.stats.streams import run_rule_arl, run_rule_length
+
+    # exact: the expected waiting time of a run of r equal outcomes among s equally likely
+    # ones, from the linear equations of the Markov chain on the current run length j
+    # (E_0 = 1 + E_1; E_j = 1 + E_{j+1} / s + E_1 (s - 1) / s for 1 <= j < r; E_r = 0),
+    # solved by numpy
+    for s, r in ((2, 2), (2, 9), (3, 7), (4, 6), (6, 5)):
+        a = np.zeros((r, r))
+        a[0, 0], a[0, 1] = 1.0, -1.0
+        for j in range(1, r):
+            a[j, j] += 1.0
+            if j + 1 < r:
+                a[j, j + 1] -= 1 / s
+            a[j, 1] -= (s - 1) / s
+        e0 = np.linalg.solve(a, np.ones(r))[0]
+        assert run_rule_arl(s, r) == pytest.approx(e0, rel=1e-9)
+    # seeded Monte Carlo of s = 4 streams, r = 6: 2000 in-control run lengths (the highest
+    # stream uniform and independent), mean within 4 standard errors of 1365
+    rng = np.random.default_rng(8)
+    lengths = []
+    for _ in range(2000):
+        run, last, t = 0, -1, 0
+        while run < 6:
+            top = int(rng.integers(4))
+            run = run + 1 if top == last else 1
+            last, t = top, t + 1
+        lengths.append(t)
+    se = np.std(lengths) / np.sqrt(len(lengths))
+    assert abs(np.mean(lengths) - run_rule_arl(4, 6)) < 4 * se
+    # r: the shortest run with an in-control ARL of at least 370 (common practice, no source)
+    for s in range(2, 11):
+        r = run_rule_length(s)
+        assert run_rule_arl(s, r) >= 370 > run_rule_arl(s, r - 1)
+
+
+def test_run_rule_boundary_and_signals():
+    # 2 streams: r = 9. Stream b higher in subgroups 1..9 (a run of exactly 9) signals; then
+    # alternate; then b higher in 8 successive subgroups (one short) does not
+    vals, sgs, sts = [], [], []
+    pattern = ["b"] * 9 + ["a", "b"] * 3 + ["a"] + ["b"] * 8 + ["a"]
+    for k, top in enumerate(pattern):
+        for st in ("a", "b"):
+            for j in range(2):
+                vals.append((1.0 if st == top else 0.0) + 0.01 * j)
+                sgs.append(str(k + 1))
+                sts.append(st)
+    g = group_chart(vals, sgs, sts)
+    assert g.run_length == 9
+    high = [r for r in g.runs if r["side"] == "high"]
+    assert high == [{"side": "high", "stream": "b", "first": "1", "last": "9", "length": 9}]
+    low = [r for r in g.runs if r["side"] == "low"]  # a is lowest in the same 9
+    assert low == [{"side": "low", "stream": "a", "first": "1", "last": "9", "length": 9}]
+    d = g.to_dict()["run_rule"]
+    assert d["length"] == 9 and d["streams"] == 2 and d["arl"] == 511.0
+    assert len(d["signals"]) == 2
+
+
+def test_run_rule_finds_the_off_centre_cavity():
+    data = _cavity_data()
+    g = group_chart(data.values, data.subgroups, data.streams)
+    # cavity 3 sits 3 sigma above the others: highest in (nearly) every subgroup
+    assert g.run_length == 6
+    assert any(r["side"] == "high" and r["stream"] == "3" for r in g.runs)
+    same = _cavity_data(offset=0.0, seed=4)
+    assert group_chart(same.values, same.subgroups, same.streams).runs == ()

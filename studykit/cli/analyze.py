@@ -339,6 +339,12 @@ def _stream_lines(st: dict) -> list[str]:
             f"  group chart: centre {_fmt(g['center'], 6)}  LCL {_fmt(g['lcl'], 6)}  "
             f"UCL {_fmt(g['ucl'], 6)}; {len(g['beyond'])} stream mean(s) beyond"
         )
+        for r in (g.get("run_rule") or {}).get("signals", []):  # one stream on top (bottom)
+            lines.append(
+                f"  group chart run rule ({g['run_rule']['length']} in a row): stream "
+                f"{r['stream']} {'highest' if r['side'] == 'high' else 'lowest'} in subgroups "
+                f"{r['first']} to {r['last']} ({r['length']})"
+            )
     return lines
 
 

@@ -85,19 +85,49 @@ for name, blob in study.files:
         _md("""
 ## 2. The gauge
 
-Gauge results stored beside the study (a crossed gauge R&R per characteristic, and short gauge
-studies of one reference part) are read as stored; the short studies are recomputed from their
-readings. A stored gauge R&R also feeds the analysis (its finding, and the indices with the
-gauge variance removed).
+A crossed gauge R&R stored beside a characteristic keeps its readings (part x appraiser x
+trial). Each is recomputed here from those readings with the library's `gauge_rr` (two-way
+random-effects ANOVA, the stored settings: interaction pooling level, study variation,
+specification limits, confidence) and every stored number is compared with the recomputed one
+at the tolerance `verify` uses; a difference stops the notebook. Short gauge studies of one
+reference part are recomputed from their readings too. The stored gauge R&R also feeds the
+analysis (its finding, and the indices with the gauge variance removed).
 """),
         _code("""
 from studykit.analysis import gauge_results
 from studykit.report.gauge_error import recheck_short_study, stored_short_studies
+from studykit.report.verify import compare_numbers
+from studykit.stats.gauge import gauge_rr
 
 gauges = {name: g for name, g in gauge_results(study_file).items()
           if name in study.characteristics}
 for name, g in sorted(gauges.items()):
     print(f"{name}: {(g.get('verdict') or {}).get('message')}")
+    if "values" not in g:
+        print("   stored without its readings: read as stored, not recomputed")
+        continue
+    readings, parts, appraisers, trials = [], [], [], []
+    for part, row in zip(g["part_labels"], g["values"]):
+        for appraiser, cell in zip(g["appraiser_labels"], row):
+            for trial, value in enumerate(cell, start=1):
+                if value is not None:  # a missing reading is stored as null
+                    readings.append(value)
+                    parts.append(part)
+                    appraisers.append(appraiser)
+                    trials.append(trial)
+    fresh = gauge_rr(readings, parts, appraisers, trials=trials,
+                     alpha_interaction=g["alpha_interaction"],
+                     study_variation=g["study_variation"], lsl=g["lsl"], usl=g["usl"],
+                     confidence=g["confidence"]).to_dict()
+    stored = {key: value for key, value in g.items() if key in fresh}
+    n, diffs = compare_numbers(stored, fresh, path=name)
+    if diffs or set(fresh) - set(stored):
+        raise AssertionError(f"gauge R&R of {name} differs from the stored result: "
+                             f"{diffs[:5] or sorted(set(fresh) - set(stored))}")
+    grr = next(c for c in fresh["components"] if c["name"] == "gauge_rr")
+    print(f"   recomputed from its {len(readings)} readings: %GRR "
+          f"{grr['pct_study_variation']:.2f}, ndc {fresh['ndc']}; "
+          f"all {n} stored numbers agree")
 short_gauges = stored_short_studies(STUDY, study)
 for name, payload in short_gauges.items():
     fresh = recheck_short_study(payload)

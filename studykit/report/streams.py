@@ -10,10 +10,30 @@ from matplotlib.figure import Figure
 
 from studykit import theme
 
-__all__ = ["group_chart_figure", "streams_block", "stream_rows"]
+__all__ = ["group_chart_figure", "streams_block", "stream_rows", "run_rule_text"]
 
 #: one marker per stream (cycled), so the chart reads without colour too
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+
+
+def run_rule_text(g) -> str:
+    """The group chart's run rule and its signals in words (PDF and screen)."""
+    if not getattr(g, "run_length", 0):
+        return ""
+    d = g.to_dict()["run_rule"]
+    head = (
+        f"Run rule: one stream the highest or the lowest in {d['length']} successive subgroups "
+        f"(for {d['streams']} streams; in-control average run length {d['arl']:.0f} subgroups "
+        "per side; r ours, from that run length)"
+    )
+    if not d["signals"]:
+        return head + ": no signal."
+    parts = [
+        f"stream {r['stream']} the {'highest' if r['side'] == 'high' else 'lowest'} in "
+        f"subgroups {r['first']} to {r['last']} ({r['length']})"
+        for r in d["signals"]
+    ]
+    return head + ": signals: " + "; ".join(parts) + "."
 
 
 def group_chart_figure(result, *, width: float = 7.0) -> Figure:
@@ -178,7 +198,8 @@ def streams_block(story, result, st, width, *, table, image, esc) -> None:
                             f"chart of Boyd 1950). {len(g.beyond)} stream mean(s) beyond the limits. "
                             f"Longest run as the highest mean: stream {g.longest_run['high']['stream']} "
                             f"({g.longest_run['high']['length']} subgroups); as the lowest: stream "
-                            f"{g.longest_run['low']['stream']} ({g.longest_run['low']['length']})."
+                            f"{g.longest_run['low']['stream']} ({g.longest_run['low']['length']}). "
+                            + run_rule_text(g)
                         ),
                         st["small"],
                     ),

@@ -63,6 +63,19 @@ def time_model_rows(tm) -> list[list[str]]:
         )
     for k, v in tm.indices.items():
         rows.append([f"{_NAMES.get(k, k)} (class {tm.cls} method)", _n(v, 5)])
+    jb = getattr(tm, "judged", None)
+    if jb is not None:
+        if jb.get("basis") == "usual":
+            rows.append(["Verdict judged on", f"the usual index ({jb['text']})"])
+        else:
+            rows.append(
+                [
+                    "Verdict judged on",
+                    f"{jb['text']}: {_n(jb['estimate'])}, lower {jb['level']:.0%} bound "
+                    f"{_n(jb['lower_bound'])} ({jb['bound_method']})"
+                    + (f"; caution: {jb['caution']}" if jb.get("caution") else ""),
+                ]
+            )
     return rows
 
 

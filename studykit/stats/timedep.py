@@ -76,6 +76,8 @@ __all__ = [
     "classify",
     "trend_capability",
     "travel_cdf",
+    "class_bound",
+    "N_BOOT",
 ]
 
 #: Level of every test of the classification (common practice, no source).
@@ -320,6 +322,9 @@ class TimeModel:
     indices : dict
         The indices by the class's method (pp, ppk, ppu, ppl; cp, cpk for A1), ``sigma`` used,
         and for C3/C4 the trend capability's mu_low, mu_high, sigma_r.
+    judged : dict or None
+        What the verdict was judged on when the class decides it (B, C1-C4, D; None for A1,
+        A2 and unclassified data): filled by :func:`studykit.time_model.time_model_verdict`.
     """
 
     cls: str | None
@@ -330,10 +335,11 @@ class TimeModel:
     spread: object = None
     shape: dict | None = None
     indices: dict = field(default_factory=dict)
+    judged: dict | None = None
 
     def to_dict(self) -> dict:
         loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
-        return {
+        out = {
             "class": self.cls,
             "location": loc,
             "spread": spr,
@@ -351,6 +357,11 @@ class TimeModel:
             "source": "ISO 22514-2 time-dependent distribution models (classes and methods "
             "from memory, not from the standard's text)",
         }
+        if self.judged is not None:  # only where the class decides the verdict's basis
+            out["verdict_basis"] = {
+                k: _f(v) if isinstance(v, float) else v for k, v in self.judged.items()
+            }
+        return out
 
 
 def _p(v) -> str:
@@ -482,3 +493,187 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
         shape=shape,
         indices=indices,
     )
+
+
+#: Parametric bootstrap samples of the class-method lower bound (:func:`class_bound`).
+N_BOOT = 2000
+
+#: Rows of bootstrap work held at once (samples x subgroups), so memory stays bounded.
+_CHUNK_CELLS = 1_000_000
+
+
+def _seed_from(x: np.ndarray, codes: np.ndarray) -> int:
+    """A seed taken from the data (SHA-256 of the readings and their subgroups), so the bound
+    is the same on every run and machine for the same data."""
+    import hashlib
+
+    h = hashlib.sha256(np.ascontiguousarray(x, dtype="<f8").tobytes())
+    h.update(np.ascontiguousarray(codes, dtype="<i8").tobytes())
+    return int.from_bytes(h.digest()[:8], "little")
+
+
+def _ndtr(z):
+    from scipy.special import ndtr
+
+    return ndtr(z)
+
+
+def _travel_points(a, b, s, q: float, iters: int = 80):
+    """Vectorised quantile ``q`` of :func:`travel_cdf` for rows of (a, b, s) by bisection
+    (checked in the tests against the brentq route of :func:`trend_capability`)."""
+    a, b, s = (np.asarray(v, dtype=float) for v in (a, b, s))
+    lo, hi = a - 10 * s, b + 10 * s
+    w = np.maximum(b - a, 1e-300)
+    tiny = (b - a) <= 1e-12 * np.maximum(1.0, np.abs(a))
+
+    def cdf(v):
+        za, zb = (v - a) / s, (v - b) / s
+        g = (za * _ndtr(za) + np.exp(-0.5 * za**2) / math.sqrt(2 * math.pi)) - (
+            zb * _ndtr(zb) + np.exp(-0.5 * zb**2) / math.sqrt(2 * math.pi)
+        )
+        return np.where(tiny, _ndtr((v - (a + b) / 2) / s), s / w * g)
+
+    for _ in range(iters):
+        mid = (lo + hi) / 2
+        below = cdf(mid) < q
+        lo = np.where(below, mid, lo)
+        hi = np.where(below, hi, mid)
+    return (lo + hi) / 2
+
+
+def _percentile_indices(lo, mid, hi, lsl, usl) -> dict:
+    """Pp, Ppk (rows) from the 0.135 %, 50 %, 99.865 % points (the percentile formulas)."""
+    ppu = None if usl is None else (usl - mid) / (hi - mid)
+    ppl = None if lsl is None else (mid - lsl) / (mid - lo)
+    pp = None if lsl is None or usl is None else (usl - lsl) / (hi - lo)
+    if ppu is None and ppl is None:
+        ppk = None
+    elif ppu is None or ppl is None:
+        ppk = ppu if ppl is None else ppl
+    else:
+        ppk = np.minimum(ppu, ppl)
+    return {"pp": pp, "ppk": ppk}
+
+
+def _class_stats(cls, means, n_i, ssw, lsl, usl) -> dict:
+    """The class method's Pp and Ppk from subgroup means (rows x k), sizes and the within sum
+    of squares (rows): the same numbers as :func:`classify` gives from the readings."""
+    big_n = float(n_i.sum())
+    k = n_i.size
+    grand = (means * n_i).sum(axis=1) / big_n
+    if cls == "C1":
+        dfb = k - 1
+        msb = (n_i * (means - grand[:, None]) ** 2).sum(axis=1) / dfb
+        msw = ssw / (big_n - k)
+        n0 = (big_n - float(np.sum(n_i**2)) / big_n) / dfb
+        s = np.sqrt(msw + np.maximum(0.0, (msb - msw) / n0))
+        return _percentile_indices(grand - 3 * s, grand, grand + 3 * s, lsl, usl)
+    # C3/C4: least squares of the readings on the subgroup position 1..k, from the means
+    t = np.arange(1, k + 1, dtype=float)
+    tbar = float(np.sum(n_i * t) / big_n)
+    stt = float(np.sum(n_i * (t - tbar) ** 2))
+    slope = (n_i * (t - tbar) * (means - grand[:, None])).sum(axis=1) / stt
+    icpt = grand - slope * tbar
+    fit = icpt[:, None] + slope[:, None] * t
+    sse = ssw + (n_i * (means - fit) ** 2).sum(axis=1)
+    s = np.sqrt(sse / (big_n - 2))
+    e1, e2 = icpt + slope * 1.0, icpt + slope * float(k)
+    a, b = np.minimum(e1, e2), np.maximum(e1, e2)
+    lo = _travel_points(a, b, s, 0.00135)
+    hi = _travel_points(a, b, s, 0.99865)
+    return _percentile_indices(lo, (a + b) / 2, hi, lsl, usl)
+
+
+def class_bound(
+    values,
+    subgroups,
+    cls: str,
+    *,
+    lsl=None,
+    usl=None,
+    level: float = 0.95,
+    n_boot: int = N_BOOT,
+    seed: int | None = None,
+) -> dict:
+    """Lower confidence bounds of Pp and Ppk by the class method (C1, C3, C4) from a parametric
+    bootstrap (ours; the parametric bootstrap and the basic interval: Davison & Hinkley,
+    *Bootstrap Methods and their Application*, 1997, ch. 2 and 5, from memory).
+
+    The fitted model of the class is sampled ``n_boot`` times with the data's subgroup sizes:
+    subgroup means N(mu_j, sigma_b^2 + sigma_w^2 / n_j) and the within sum of squares
+    sigma_w^2 chi^2(N - k) (independent for normal readings), where mu_j is the grand mean (C1)
+    or the least-squares line at position j (C3, C4), sigma_b the between-subgroup sigma (C1:
+    the ANOVA estimate; C4: the one left about the line; C3: 0) and sigma_w the within sigma
+    (C3: sigma_r about the line). Each sample's Pp and Ppk are computed as :func:`classify`
+    computes them. The lower bound at ``level`` is the basic bootstrap bound on the log scale,
+    est^2 / q_level (q_level the ``level`` quantile of the samples; an index is a scale
+    quantity, so the ratio est / index is taken as the pivot); when est or q_level is not
+    positive, the basic bound 2 est - q_level. In 300 seeded simulations (tests) the 95 % bound
+    covered the true Ppk in about 91 % (C1, 25 subgroups: few subgroups carry sigma_between),
+    94 % (C1, 60 subgroups) and 94 % (C3, 25 subgroups) of studies; the plain percentile bound
+    covered 87 %, 91 % and 93 %. The seed comes from the data unless given, so the bound is
+    repeatable. Memory: at most about ``_CHUNK_CELLS`` numbers per block of samples.
+
+    Returns ``{"pp", "ppk", "pp_lower", "ppk_lower", "level", "n_boot", "seed", "method"}``.
+    """
+    if cls not in ("C1", "C3", "C4"):
+        raise StudyInputError(f"no class-method bound for class {cls!r} (only C1, C3, C4).")
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    n_i = np.bincount(codes, minlength=k).astype(float)
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    ssw = float(np.sum((x - means[codes]) ** 2))
+    big_n = float(n_i.sum())
+    point = _class_stats(cls, means[None, :], n_i, np.array([ssw]), lsl, usl)
+    t = np.arange(1, k + 1, dtype=float)
+    msw = ssw / (big_n - k)
+    if cls == "C1":
+        vc = variance_components(x, codes)
+        centre = np.full(k, float(x.mean()))
+        sw2, sb2 = vc.msw, vc.sigma_between**2
+    else:
+        tbar = float(np.sum(n_i * t) / big_n)
+        slope = float(np.sum(n_i * (t - tbar) * (means - x.mean())) / np.sum(n_i * (t - tbar) ** 2))
+        centre = float(x.mean()) + slope * (t - tbar)
+        if cls == "C3":
+            sse = ssw + float(np.sum(n_i * (means - centre) ** 2))
+            sw2, sb2 = sse / (big_n - 2), 0.0
+        else:
+            n0 = (big_n - float(np.sum(n_i**2)) / big_n) / (k - 1)
+            ms_resid = n0 * float(np.sum((means - centre) ** 2)) / (k - 2)
+            sw2, sb2 = msw, max(0.0, (ms_resid - msw) / n0)
+    seed = _seed_from(x, codes) if seed is None else int(seed)
+    rng = np.random.default_rng(seed)
+    sd_means = np.sqrt(sb2 + sw2 / n_i)
+    chunk = max(1, min(n_boot, _CHUNK_CELLS // max(k, 1)))
+    draws: dict = {"pp": [], "ppk": []}
+    done = 0 if sw2 + sb2 > 0 else n_boot  # no spread: no index, so no bound
+    while done < n_boot:
+        m = min(chunk, n_boot - done)
+        bm = centre + sd_means * rng.standard_normal((m, k))
+        bssw = sw2 * rng.chisquare(big_n - k, m)
+        st = _class_stats(cls, bm, n_i, bssw, lsl, usl)
+        for key in draws:
+            if st[key] is not None:
+                draws[key].append(np.asarray(st[key], dtype=float))
+        done += m
+    out = {
+        "pp": None if point["pp"] is None else float(point["pp"][0]),
+        "ppk": None if point["ppk"] is None else float(point["ppk"][0]),
+        "pp_lower": None,
+        "ppk_lower": None,
+        "level": float(level),
+        "n_boot": int(n_boot),
+        "seed": seed,
+        "method": "parametric bootstrap of the class model, basic interval on the log scale "
+        "(ours; Davison & Hinkley 1997, from memory)",
+    }
+    for key, parts in draws.items():
+        est = out[key]
+        samples = np.concatenate(parts) if parts else np.empty(0)
+        # a degenerate sample (no spread left) gives no index: then no bound rather than a
+        # bound from a part of the samples
+        if est is not None and math.isfinite(est) and samples.size and np.isfinite(samples).all():
+            q = float(np.quantile(samples, level))
+            out[f"{key}_lower"] = est * est / q if est > 0 and q > 0 else 2 * est - q
+    return out

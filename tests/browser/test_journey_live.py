@@ -284,12 +284,17 @@ def test_same_person_two_roles_and_the_approval_gate(browser, live):
         b.wait_for_selector(".sk-open-verdicts :text('pull_off_force')")
         gate = b.locator(".sk-open-verdicts").inner_text()
         assert "pull_off_force: More data needed" in gate
+        # the tool-wear seat: its trend leaves points beyond the control limits (no verdict)
+        assert "shaft_seat_diameter: No verdict: not in control" in gate
         # the counted-data characteristic has a verdict of its own (judged from the exact bound)
         assert "leak_test_defectives" not in gate
         shot(b, "approval-gate")
 
         # waivers with reasons, recorded from A, then B approves
-        for name, why in (("pull_off_force", "customer deviation D-17 until lot 4"),):
+        for name, why in (
+            ("pull_off_force", "customer deviation D-17 until lot 4"),
+            ("shaft_seat_diameter", "insert changed every 30 subgroups, control plan CP-9"),
+        ):
             pick(a, name)
             a.locator(".sk-waive-reason input").fill(why)
             a.wait_for_function("() => !document.querySelector('.sk-waive').disabled")
@@ -303,7 +308,10 @@ def test_same_person_two_roles_and_the_approval_gate(browser, live):
         b.wait_for_selector(".sk-lock-state :text('Approved and locked')")
         a.wait_for_selector(".sk-header :text('Approved · locked')", timeout=30_000)  # live
         study = StudyFile(path).load()
-        assert study.is_locked and set(study.waivers()) == {"pull_off_force"}
+        assert study.is_locked and set(study.waivers()) == {
+            "pull_off_force",
+            "shaft_seat_diameter",
+        }
         shot(a, "approved-with-waivers")
         no_traceback(a)
         no_traceback(b)

@@ -171,7 +171,7 @@ def test_study_journey(browser, study_server, artifacts):
         # approve, and the study is locked
         open_step(page, "signoff")
         page.wait_for_selector(".sk-open-verdicts")
-        for name in ("pull_off_force", "leak_test_defectives"):
+        for name in ("pull_off_force", "leak_test_defectives", "shaft_seat_diameter"):
             page.locator(".sk-picker select").first.select_option(name)
             page.locator(".sk-waive-reason input").fill(f"journey waiver for {name}")
             page.wait_for_function("() => !document.querySelector('.sk-waive').disabled")
