@@ -53,6 +53,7 @@ __all__ = [
     "rule_label",
     "rule_set_label",
     "role_label",
+    "role_id",
     "decision_label",
     "SIGNOFF_VALID",
     "SIGNOFF_VOIDED",
@@ -310,6 +311,21 @@ SIGNOFF_VALID, SIGNOFF_VOIDED = "Valid", "Voided"
 def role_label(role: str) -> str:
     """``"reviewed"`` -> ``"Reviewer"``; a role typed by a person comes back unchanged."""
     return ROLES.get(role, role)
+
+
+def role_id(text: str) -> str:
+    """The role id of a role name or id as a person types it (any case); other text unchanged.
+
+    Examples
+    --------
+    >>> role_id("Reviewer"), role_id("approver"), role_id("approved"), role_id("Line lead")
+    ('reviewed', 'approved', 'approved', 'Line lead')
+    """
+    t = str(text or "").strip()
+    for rid, label in ROLES.items():
+        if t.lower() in (rid, label.lower()):
+            return rid
+    return t
 
 
 def decision_label(decision: str) -> str:
