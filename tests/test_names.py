@@ -344,3 +344,83 @@ def test_confidence_parameter_spellings_agree():
     b = attribute_capability([1, 2, 0], [100, 100, 100], level=0.9)
     assert a.to_dict() == b.to_dict() and a.level == 0.9
     assert defects_per_unit([3, 1], [10, 10]).level == names.DEFAULT_CONFIDENCE
+
+
+# ----------------------------------------------------------------------------- numbers on screen
+
+#: The demo study's two-sided characteristics and the decimals their tolerance asks for
+#: (names.value_digits: 1/100 of USL - LSL; 12.03 - 11.97 = 0.06 -> 4, 8.1 - 7.9 = 0.2 -> 3).
+TWO_SIDED = {"bore_diameter": 4, "flange_thickness": 3}
+
+_P_ZERO = re.compile(r"\bp\s*(?:=|:)?\s*0\.0+(?![0-9])")
+
+
+def _decimals(number: str) -> int:
+    return len(number.split(".", 1)[1]) if "." in number else 0
+
+
+def test_demo_value_digits_are_those_of_the_tolerance():
+    from studykit.app.session import StudySession
+
+    s = StudySession(DEMO)
+    for name, d in TWO_SIDED.items():
+        assert names.spec_digits(s.result(name).spec) == d
+
+
+def test_screen_numbers_have_the_tolerances_digits(screen):
+    for name, d in TWO_SIDED.items():
+        stab = screen[(name, "stability")]
+        m = re.search(r"Within sigma\s+(-?\d+\.\d+)", stab)
+        assert m, stab[:1500]
+        assert _decimals(m.group(1)) == d + 1, (name, m.group(0))  # a spread: one more
+        shape = screen[(name, "shape")]
+        m = re.search(r"Mean / overall sigma\s+(-?\d+\.\d+)\s*/\s*(-?\d+\.\d+)", shape)
+        assert m, shape[:1500]
+        assert _decimals(m.group(1)) == d and _decimals(m.group(2)) == d + 1, m.group(0)
+    every = "\n".join(screen.values())
+    assert not _P_ZERO.findall(every), _P_ZERO.findall(every)
+
+
+@pytest.mark.parametrize("name", sorted(TWO_SIDED))
+def test_chart_limits_have_the_tolerances_digits(study_copy, name):
+    """The control chart shows its limits (LCL, CL, UCL) with the tolerance's decimals, on a
+    line of their own under the chart's name (so a phone shows them uncut)."""
+    from studykit.app.charts import ControlChartView
+    from studykit.app.session import StudySession
+
+    s = StudySession(study_copy)
+    res = s.result(name)
+    view = ControlChartView()
+    view.update(res, full_chart=s.full_chart(name), details=s.subgroup_details(name))
+    d = TWO_SIDED[name]
+    text = view.limit_titles["location"].text
+    found = re.findall(r"\b(LCL|CL|UCL) (-?\d+\.\d+)", text)
+    assert [k for k, _ in found] == ["LCL", "CL", "UCL"], text
+    assert all(_decimals(v) == d for _, v in found), text
+    assert len(view.figures["location"].title.text) <= 40, view.figures["location"].title.text
+    assert "X-bar-R" in view.figures["location"].title.text or "I-MR" in (
+        view.figures["location"].title.text
+    )
+    lower = re.findall(r"\b(?:LCL|CL|UCL) (-?\d+\.\d+)", view.limit_titles["dispersion"].text)
+    assert lower and all(_decimals(v) == d + 1 for v in lower), view.limit_titles["dispersion"]
+    hover = view.sources["location"]["points"].data["value_text"]
+    assert hover and all(_decimals(v) == d for v in hover if v != "—"), hover[:5]
+
+
+def test_pdf_numbers_have_the_tolerances_digits(pdf_path):
+    text = "\n".join(p.extract_text() or "" for p in PdfReader(str(pdf_path)).pages)
+    means = re.findall(r"\bMean\s+(-?\d+\.\d+)", text)
+    sigmas = re.findall(r"\bWithin sigma\s+(-?\d+\.\d+)", text)
+    assert means and sigmas, text[:2000]
+    # each two-sided characteristic's mean and sigma (demo: 12.0023..., 7.9996...)
+    for mean, d in (("12.0023", 4), ("7.99965", 3)):
+        shown = [m for m in means if abs(float(m) - float(mean)) < 0.01]
+        assert shown and all(_decimals(m) == d for m in shown), (mean, means)
+    assert not _P_ZERO.findall(text), _P_ZERO.findall(text)
+
+
+def test_format_spread_is_one_decimal_finer():
+    assert names.format_spread(0.0044836, 11.97, 12.03) == "0.00448"
+    assert names.format_value(12.0023357, 11.97, 12.03) == "12.0023"
+    assert names.spec_digits({"lsl": 7.9, "usl": 8.1}) == 3
+    assert names.spec_digits(None) == 4

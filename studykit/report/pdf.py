@@ -939,10 +939,10 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         facts.append(
             [
                 "Within sigma",
-                number_text(res.within_sigma, 4)
+                names.format_spread(res.within_sigma, c.lsl, c.usl)
                 + (f" ({escape_text(sigma_text)})" if sigma_text else ""),
                 "Overall sigma",
-                number_text(res.overall_sigma, 4) + " (sample, n - 1)",
+                names.format_spread(res.overall_sigma, c.lsl, c.usl) + " (sample, n - 1)",
             ]
         )
     else:
@@ -966,8 +966,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         pl = res.probability_limits
         if pl is not None:
             scale_note += (
-                f" In measured units the limits are LCL {number_text(pl['lcl'], 5)}, "
-                f"centre {number_text(pl['center'], 5)}, UCL {number_text(pl['ucl'], 5)}."
+                f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
+                f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
+                f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
             )
         story.append(Paragraph(escape_text(scale_note), st["body"]))
     signals = []
@@ -1055,9 +1056,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(
             Paragraph(
                 f"Normality of the values used: Anderson-Darling A² = {number_text(ad.a2)} "
-                f"(A*² = {number_text(ad.a2_star)}, p = {number_text(ad.p_value, 3)})"
+                f"(A*² = {number_text(ad.a2_star)}, p = {names.format_p(ad.p_value)})"
                 + (
-                    f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {number_text(sw.p_value, 3)})."
+                    f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {names.format_p(sw.p_value)})."
                     if sw is not None
                     else "."
                 ),
@@ -1530,7 +1531,7 @@ def _gauge_anova_rows(rows_in):
                 number_text(r.get("ss")),
                 number_text(r.get("ms")),
                 number_text(r.get("f"), 3),
-                "–" if p is None else ("< 0.001" if p < 1e-3 else number_text(p, 3)),
+                "–" if p is None else names.format_p(p),
             ]
         )
     return rows
