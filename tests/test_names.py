@@ -94,6 +94,9 @@ def _widget_texts(w, out: list) -> list:
         if isinstance(v, str) and v:
             out.append(v)
     out.extend(str(o) for o in getattr(w, "_options_labels", ()) or ())
+    if isinstance(w, widgets.Combobox):  # the role boxes: their suggestions are text too
+        out.extend(str(o) for o in w.options)
+        out.append(str(w.value))
     for child in getattr(w, "children", ()) or ():
         _widget_texts(child, out)
     return out
@@ -293,6 +296,66 @@ def test_default_criterion_is_defined_once():
     assert _criteria_dict(None) == dict(names.DEFAULT_CRITERION)
     assert DEFAULT_CRITERIA["pre_launch"]["threshold"] == 1.67
     assert INDEX_NAMES == names.INDEX_IDS
+
+
+def _find(w, cls: str) -> list:
+    found = [w] if cls in getattr(w, "_dom_classes", ()) else []
+    for child in getattr(w, "children", ()) or ():
+        found.extend(_find(child, cls))
+    return found
+
+
+def test_role_boxes_offer_role_names_not_ids(tmp_path):
+    path = tmp_path / "pilot.study"
+    shutil.copy(DEMO, path)
+    wb = build_workbook(path)
+    boxes = []
+    for step, cls in (("signoff", "sk-sign-role"), ("export", "sk-pdf-role")):
+        wb.select(step)
+        boxes += _find(wb, cls)
+    assert len(boxes) == 2, boxes
+    for box in boxes:
+        assert tuple(box.options) == ("Author", "Reviewer", "Approver"), box.options
+        assert box.value in names.ROLES.values()
+    # a name or an id typed by a person is recorded as the id; other roles as typed
+    assert [names.role_id(t) for t in ("Approver", "approved", " reviewer ", "QA lead")] == [
+        "approved",
+        "approved",
+        "reviewed",
+        "QA lead",
+    ]
+
+
+def test_family_labels_in_the_ranking_are_those_of_names():
+    """The ranking's ``label`` (JSON and shape step) is the name of names.MODEL_LABELS, never
+    "Weibull, 3-parameter" (issue 15 item 3: each family once, the threshold as an option)."""
+    import importlib
+    import pkgutil
+
+    import studykit.stats.families as fam
+
+    seen = {}
+    for info in pkgutil.iter_modules(fam.__path__):
+        mod = importlib.import_module(f"studykit.stats.families.{info.name}")
+        for obj in vars(mod).values():
+            if isinstance(obj, type) and getattr(obj, "id", "") and getattr(obj, "label", ""):
+                seen[obj.id] = obj.label
+    assert {"weibull3", "exponential2", "lognormal3", "gamma3", "loglogistic3"} <= set(seen)
+    wrong = {k: v for k, v in seen.items() if names.MODEL_LABELS.get(k) != v}
+    assert not wrong, wrong
+
+
+def test_upload_buttons_carry_no_counter():
+    """ipywidgets writes "label (n)" into an upload button; the served page's script moves the
+    count into ``data-files`` (checked in a browser by tests/browser/test_offline_screens.py)."""
+    from studykit.app.server_guard import upload_guard_script
+    from studykit.app.widgets import CSS, upload_button
+
+    w = upload_button("Choose file")
+    assert w.description == "Choose file" and "sk-no-count" in w._dom_classes
+    script = upload_guard_script(50 * 2**20, 100 * 2**20)
+    assert "data-files" in script and ".widget-upload.sk-no-count" in script
+    assert "attr(title)" not in CSS  # no label drawn by CSS over a hidden text
 
 
 def test_every_model_family_has_its_name_here():
