@@ -177,6 +177,9 @@ def test_pdf_text_has_no_raw_id_and_one_name_each(pdf_path):
     _check(pdf_text, "PDF report")
     assert names.VERDICT_STATES["not_demonstrated"] in pdf_text
     assert "X-bar-R" in pdf_text and "I-MR" in pdf_text
+    # the signature boxes name the roles as the workbook does (names.ROLES), not by their ids
+    assert all(f"Digital signature - {r}" in pdf_text for r in names.ROLES.values())
+    assert not re.search(r"Digital signature - (prepared|reviewed|approved)", pdf_text)
 
 
 def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, capsys):

@@ -555,7 +555,9 @@ class _SignatureBoxes:
                     c.setDash()
                     c.setFillColor(colors.HexColor(theme.INK_SOFT))
                     c.setFont(styles["small"].fontName, 7)
-                    c.drawString(4, y + self.box_h - 9, f"Digital signature - {role}")
+                    c.drawString(
+                        4, y + self.box_h - 9, f"Digital signature - {names.role_label(role)}"
+                    )
                     x1, y1 = c.absolutePosition(0, y)
                     x2, y2 = c.absolutePosition(self.width, y + self.box_h - 12)
                     record[role] = [page, round(x1, 2), round(y1, 2), round(x2, 2), round(y2, 2)]
@@ -826,7 +828,8 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
             word = "still valid" if s.valid else f"VOIDED ({escape_text(s.why)})"
             story.append(
                 Paragraph(
-                    f"{escape_text(so.role)}: {escape_text(so.name)} - {escape_text(so.decision)} "
+                    f"{escape_text(names.role_label(so.role))}: {escape_text(so.name)} - "
+                    f"{escape_text(names.decision_label(so.decision))} "
                     f"on {escape_text(so.when)}, {word}",
                     st["body"],
                 )
@@ -1566,7 +1569,7 @@ def _signoff_digests(story, study, states, width, st):
         so = s.signoff
         rows.append(
             [
-                escape_text(so.role),
+                escape_text(names.role_label(so.role)),
                 escape_text(so.name),
                 f"<font size=6>{so.digest}</font>",
                 "yes" if so.digest == current else "<b>no</b> - signed other content",
@@ -1647,7 +1650,7 @@ def _signoff_section(story, number, study, st, width, boxes):
         )
         _signoff_digests(story, study, states, width, st)
         heads = [
-            f"{escape_text(s.signoff.role)} ({escape_text(s.signoff.name)}): entry "
+            f"{escape_text(names.role_label(s.signoff.role))} ({escape_text(s.signoff.name)}): entry "
             f"{escape_text(s.signoff.chain_head.partition(':')[0])} "
             f"<font size=6>{escape_text(s.signoff.chain_head.partition(':')[2])}</font>"
             for s in states

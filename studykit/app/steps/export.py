@@ -307,7 +307,7 @@ class ExportStep:
             else "(invisible: no box for this role)"
         )
         self.ws.context.messages.ok(
-            f"Signed by {info.name} as {info.role} with the certificate of {info.subject} "
+            f"Signed by {info.name} as {names.role_label(info.role)} with the certificate of {info.subject} "
             f"{where}. Download the signed PDF; `studykit verify` checks it."
         )
 
