@@ -242,6 +242,10 @@ _KEPT_RING = {
 }
 
 
+#: height of the control limits' line under a control chart's title (12 px text and padding)
+_LIMITS_LINE = 20
+
+
 class ControlChartView:
     """Location and dispersion charts of phase I, with hover and tap selection.
 
@@ -262,7 +266,11 @@ class ControlChartView:
         self.warning_renderers: list = []
         self.limit_titles: dict[str, object] = {}
         self._labels: list[str] = []
-        for part, h in (("location", height), ("dispersion", int(height * 0.8))):
+        # each figure carries a line of limits under its title (_LIMITS_LINE px more)
+        for part, h in (
+            ("location", height + _LIMITS_LINE),
+            ("dispersion", int(height * 0.8) + _LIMITS_LINE),
+        ):
             self.figures[part] = self._figure(part, h)
         self.layout = column(
             self.figures["location"], self.figures["dispersion"], sizing_mode="stretch_width"
