@@ -198,6 +198,7 @@ def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, cap
     assert "Gauge not checked:" in out
     # no 6-digit indices in sentences (the planning line said "if the true Ppk is 1.89439")
     assert not re.search(r"\b(Cp|Cpk|Pp|Ppk) (is|of) \d+\.\d{3,}", out), out
+    assert not _P_ZERO.findall(out), _P_ZERO.findall(out)  # p-values never "0.000"
     _check(out, "terminal")
 
 
@@ -445,6 +446,11 @@ def test_screen_numbers_have_the_tolerances_digits(screen):
         assert _decimals(m.group(1)) == d and _decimals(m.group(2)) == d + 1, m.group(0)
     every = "\n".join(screen.values())
     assert not _P_ZERO.findall(every), _P_ZERO.findall(every)
+    # no long indices in the workbook's sentences either (two decimals: names.format_index)
+    long_index = re.findall(
+        r"\b(?:Cp|Cpk|Pp|Ppk|PPL|PPU|CPL|CPU) (?:is |of |= )?\d+\.\d{3,}", every
+    )
+    assert not long_index, long_index
 
 
 @pytest.mark.parametrize("name", sorted(TWO_SIDED))
