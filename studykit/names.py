@@ -45,6 +45,8 @@ __all__ = [
     "criterion_text",
     "format_index",
     "format_p",
+    "format_spread",
+    "spec_digits",
     "format_value",
     "index_label",
     "model_label",
@@ -53,6 +55,7 @@ __all__ = [
     "rule_label",
     "rule_set_label",
     "role_label",
+    "role_id",
     "decision_label",
     "SIGNOFF_VALID",
     "SIGNOFF_VOIDED",
@@ -312,6 +315,21 @@ def role_label(role: str) -> str:
     return ROLES.get(role, role)
 
 
+def role_id(text: str) -> str:
+    """The role id of a role name or id as a person types it (any case); other text unchanged.
+
+    Examples
+    --------
+    >>> role_id("Reviewer"), role_id("approver"), role_id("approved"), role_id("Line lead")
+    ('reviewed', 'approved', 'approved', 'Line lead')
+    """
+    t = str(text or "").strip()
+    for rid, label in ROLES.items():
+        if t.lower() in (rid, label.lower()):
+            return rid
+    return t
+
+
 def decision_label(decision: str) -> str:
     """``"approve"`` -> ``"Approve"``."""
     return DECISIONS.get(decision, decision)
@@ -516,6 +534,26 @@ def format_value(v, lsl=None, usl=None, *, digits: int | None = None) -> str:
         return "-"
     d = value_digits(lsl, usl) if digits is None else digits
     return f"{f:.{d}f}"
+
+
+def format_spread(v, lsl=None, usl=None, *, digits: int | None = None) -> str:
+    """A spread (sigma, range, standard deviation) in the measured unit: one decimal more than
+    :func:`value_digits` (a spread is about a tenth of the tolerance, so it keeps two
+    significant digits at the same resolution rule); "-" for None.
+
+    Examples
+    --------
+    >>> format_spread(0.0021456, 19.99, 20.01), format_spread(None)
+    ('0.00215', '-')
+    """
+    d = value_digits(lsl, usl) if digits is None else digits
+    return format_value(v, digits=d + 1)
+
+
+def spec_digits(spec) -> int:
+    """:func:`value_digits` of a specification given as a mapping or an object with
+    ``lsl``/``usl`` (None: the default)."""
+    return value_digits(_get(spec, "lsl"), _get(spec, "usl"))
 
 
 def format_index(v) -> str:

@@ -466,7 +466,7 @@ const ctx = (window._studykitLegendCtx = window._studykitLegendCtx ||
              document.createElement('canvas').getContext('2d'));
 const avail = fig.inner_width + (fig.min_border_left || 0) - 16;
 if (!(avail > 0)) { return; }
-let extra = 0;
+let extra = 0;  // pixels the added legend rows take
 for (const leg of legends) {
   ctx.font = `${leg.label_text_font_size || '12px'} Helvetica, Arial, sans-serif`;
   const w = leg.items.map((it) => {
@@ -480,11 +480,18 @@ for (const leg of legends) {
          + 2 * (leg.padding + leg.margin) > avail) { cols -= 1; }
   const rows = Math.max(1, Math.ceil(w.length / cols));
   if (leg.nrows !== rows) { leg.ncols = 'auto'; leg.nrows = rows; }
-  extra = Math.max(extra, rows - (rows0[legends.indexOf(leg)] || 1));
+  // a row is its glyph or label and the spacing between rows (bokeh applies both ways)
+  // (label_height is "auto" in bokeh 3.9; the glyph sets the row)
+  const rowPx = Math.max(row_height, (Number(leg.glyph_height) || 20) + (Number(leg.spacing) || 0));
+  extra = Math.max(extra, (rows - (rows0[legends.indexOf(leg)] || 1)) * rowPx);
 }
-// the plot keeps its own height: the figure grows by the rows the legends added
-const height = base_height + row_height * extra;
-if (base_height > 0 && fig.height !== height) { fig.height = height; }
+// the plot keeps its own height: the figure grows by the rows the legends added; a height set
+// from Python since our last change (e.g. one row per characteristic) becomes the new base
+if (!(base_height > 0) || typeof fig.height !== 'number') { return; }
+if (fig._skSet === undefined || fig.height !== fig._skSet) { fig._skBase = fig.height; }
+const height = fig._skBase + extra;
+fig._skSet = height;
+if (fig.height !== height) { fig.height = height; }
 """
 
 
@@ -510,19 +517,18 @@ def wrap_legends(fig) -> None:
         return
     rows0 = [leg.nrows if isinstance(leg.nrows, int) else 1 for leg in legends]
     row_height = 26  # one legend row at 12 px text with its glyph and padding
-    fig.js_on_change(
-        "inner_width",
-        CustomJS(
-            args={
-                "fig": fig,
-                "legends": legends,
-                "rows0": rows0,
-                "row_height": row_height,
-                "base_height": fig.height if isinstance(fig.height, int) else 0,
-            },
-            code=_WRAP_LEGEND_JS,
-        ),
+    callback = CustomJS(
+        args={
+            "fig": fig,
+            "legends": legends,
+            "rows0": rows0,
+            "row_height": row_height,
+            "base_height": fig.height if isinstance(fig.height, int) else 0,
+        },
+        code=_WRAP_LEGEND_JS,
     )
+    fig.js_on_change("inner_width", callback)
+    fig.js_on_change("height", callback)  # a new height from Python gets the legend rows too
 
 
 def _role(name: str) -> Role:

@@ -439,14 +439,14 @@ def test_xlsx_saved_with_csv_name_is_read_as_workbook(tmp_path):
     q.write_bytes(p.read_bytes())
     m = read_measurements(q)
     assert m.get("X").values.tolist() == [1.0, 2.0]
-    assert any("Excel workbook despite its name" in n for n in m.notes)
+    assert any("Excel file (.xlsx) despite its name" in n for n in m.notes)
 
 
 def test_damaged_xlsx(tmp_path):
     p = write(tmp_path, "bad.xlsx", b"PK\x03\x04" + b"\x00" * 100)
-    with pytest.raises(DataFileError, match=r"file 'bad\.xlsx': the workbook cannot be opened"):
+    with pytest.raises(DataFileError, match=r"file 'bad\.xlsx': the Excel file cannot be opened"):
         read_measurements(p)
-    with pytest.raises(DataFileError, match=r"not an Excel workbook"):
+    with pytest.raises(DataFileError, match=r"not an Excel file"):
         read_measurements(write(tmp_path, "text.xlsx", "X\n1\n"))
 
 
@@ -463,7 +463,7 @@ def test_binary_junk_with_csv_name(tmp_path):
 
 
 def test_old_xls_workbook(tmp_path):
-    with pytest.raises(DataFileError, match=r"old-style Excel \.xls workbook"):
+    with pytest.raises(DataFileError, match=r"old-style Excel file \(\.xls\)"):
         read_measurements(
             write(tmp_path, "old.xls", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 600)
         )

@@ -94,6 +94,9 @@ def _widget_texts(w, out: list) -> list:
         if isinstance(v, str) and v:
             out.append(v)
     out.extend(str(o) for o in getattr(w, "_options_labels", ()) or ())
+    if isinstance(w, widgets.Combobox):  # the role boxes: their suggestions are text too
+        out.extend(str(o) for o in w.options)
+        out.append(str(w.value))
     for child in getattr(w, "children", ()) or ():
         _widget_texts(child, out)
     return out
@@ -174,6 +177,9 @@ def test_pdf_text_has_no_raw_id_and_one_name_each(pdf_path):
     _check(pdf_text, "PDF report")
     assert names.VERDICT_STATES["not_demonstrated"] in pdf_text
     assert "X-bar-R" in pdf_text and "I-MR" in pdf_text
+    # the signature boxes name the roles as the workbook does (names.ROLES), not by their ids
+    assert all(f"Digital signature - {r}" in pdf_text for r in names.ROLES.values())
+    assert not re.search(r"Digital signature - (prepared|reviewed|approved)", pdf_text)
 
 
 def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, capsys):
@@ -192,6 +198,7 @@ def test_terminal_text_has_no_raw_id_and_one_name_each(study_copy, pdf_path, cap
     assert "Gauge not checked:" in out
     # no 6-digit indices in sentences (the planning line said "if the true Ppk is 1.89439")
     assert not re.search(r"\b(Cp|Cpk|Pp|Ppk) (is|of) \d+\.\d{3,}", out), out
+    assert not _P_ZERO.findall(out), _P_ZERO.findall(out)  # p-values never "0.000"
     _check(out, "terminal")
 
 
@@ -295,6 +302,66 @@ def test_default_criterion_is_defined_once():
     assert INDEX_NAMES == names.INDEX_IDS
 
 
+def _find(w, cls: str) -> list:
+    found = [w] if cls in getattr(w, "_dom_classes", ()) else []
+    for child in getattr(w, "children", ()) or ():
+        found.extend(_find(child, cls))
+    return found
+
+
+def test_role_boxes_offer_role_names_not_ids(tmp_path):
+    path = tmp_path / "pilot.study"
+    shutil.copy(DEMO, path)
+    wb = build_workbook(path)
+    boxes = []
+    for step, cls in (("signoff", "sk-sign-role"), ("export", "sk-pdf-role")):
+        wb.select(step)
+        boxes += _find(wb, cls)
+    assert len(boxes) == 2, boxes
+    for box in boxes:
+        assert tuple(box.options) == ("Author", "Reviewer", "Approver"), box.options
+        assert box.value in names.ROLES.values()
+    # a name or an id typed by a person is recorded as the id; other roles as typed
+    assert [names.role_id(t) for t in ("Approver", "approved", " reviewer ", "QA lead")] == [
+        "approved",
+        "approved",
+        "reviewed",
+        "QA lead",
+    ]
+
+
+def test_family_labels_in_the_ranking_are_those_of_names():
+    """The ranking's ``label`` (JSON and shape step) is the name of names.MODEL_LABELS, never
+    "Weibull, 3-parameter" (issue 15 item 3: each family once, the threshold as an option)."""
+    import importlib
+    import pkgutil
+
+    import studykit.stats.families as fam
+
+    seen = {}
+    for info in pkgutil.iter_modules(fam.__path__):
+        mod = importlib.import_module(f"studykit.stats.families.{info.name}")
+        for obj in vars(mod).values():
+            if isinstance(obj, type) and getattr(obj, "id", "") and getattr(obj, "label", ""):
+                seen[obj.id] = obj.label
+    assert {"weibull3", "exponential2", "lognormal3", "gamma3", "loglogistic3"} <= set(seen)
+    wrong = {k: v for k, v in seen.items() if names.MODEL_LABELS.get(k) != v}
+    assert not wrong, wrong
+
+
+def test_upload_buttons_carry_no_counter():
+    """ipywidgets writes "label (n)" into an upload button; the served page's script moves the
+    count into ``data-files`` (checked in a browser by tests/browser/test_offline_screens.py)."""
+    from studykit.app.server_guard import upload_guard_script
+    from studykit.app.widgets import CSS, upload_button
+
+    w = upload_button("Choose file")
+    assert w.description == "Choose file" and "sk-no-count" in w._dom_classes
+    script = upload_guard_script(50 * 2**20, 100 * 2**20)
+    assert "data-files" in script and ".widget-upload.sk-no-count" in script
+    assert "attr(title)" not in CSS  # no label drawn by CSS over a hidden text
+
+
 def test_every_model_family_has_its_name_here():
     from studykit.stats import fit
 
@@ -344,3 +411,88 @@ def test_confidence_parameter_spellings_agree():
     b = attribute_capability([1, 2, 0], [100, 100, 100], level=0.9)
     assert a.to_dict() == b.to_dict() and a.level == 0.9
     assert defects_per_unit([3, 1], [10, 10]).level == names.DEFAULT_CONFIDENCE
+
+
+# ----------------------------------------------------------------------------- numbers on screen
+
+#: The demo study's two-sided characteristics and the decimals their tolerance asks for
+#: (names.value_digits: 1/100 of USL - LSL; 12.03 - 11.97 = 0.06 -> 4, 8.1 - 7.9 = 0.2 -> 3).
+TWO_SIDED = {"bore_diameter": 4, "flange_thickness": 3}
+
+_P_ZERO = re.compile(r"\bp\s*(?:=|:)?\s*0\.0+(?![0-9])")
+
+
+def _decimals(number: str) -> int:
+    return len(number.split(".", 1)[1]) if "." in number else 0
+
+
+def test_demo_value_digits_are_those_of_the_tolerance():
+    from studykit.app.session import StudySession
+
+    s = StudySession(DEMO)
+    for name, d in TWO_SIDED.items():
+        assert names.spec_digits(s.result(name).spec) == d
+
+
+def test_screen_numbers_have_the_tolerances_digits(screen):
+    for name, d in TWO_SIDED.items():
+        stab = screen[(name, "stability")]
+        m = re.search(r"Within sigma\s+(-?\d+\.\d+)", stab)
+        assert m, stab[:1500]
+        assert _decimals(m.group(1)) == d + 1, (name, m.group(0))  # a spread: one more
+        shape = screen[(name, "shape")]
+        m = re.search(r"Mean / overall sigma\s+(-?\d+\.\d+)\s*/\s*(-?\d+\.\d+)", shape)
+        assert m, shape[:1500]
+        assert _decimals(m.group(1)) == d and _decimals(m.group(2)) == d + 1, m.group(0)
+    every = "\n".join(screen.values())
+    assert not _P_ZERO.findall(every), _P_ZERO.findall(every)
+    # no long indices in the workbook's sentences either (two decimals: names.format_index)
+    long_index = re.findall(
+        r"\b(?:Cp|Cpk|Pp|Ppk|PPL|PPU|CPL|CPU) (?:is |of |= )?\d+\.\d{3,}", every
+    )
+    assert not long_index, long_index
+
+
+@pytest.mark.parametrize("name", sorted(TWO_SIDED))
+def test_chart_limits_have_the_tolerances_digits(study_copy, name):
+    """The control chart shows its limits (LCL, CL, UCL) with the tolerance's decimals, on a
+    line of their own under the chart's name (so a phone shows them uncut)."""
+    from studykit.app.charts import ControlChartView
+    from studykit.app.session import StudySession
+
+    s = StudySession(study_copy)
+    res = s.result(name)
+    view = ControlChartView()
+    view.update(res, full_chart=s.full_chart(name), details=s.subgroup_details(name))
+    d = TWO_SIDED[name]
+    text = view.limit_titles["location"].text
+    found = re.findall(r"\b(LCL|CL|UCL) (-?\d+\.\d+)", text)
+    assert [k for k, _ in found] == ["LCL", "CL", "UCL"], text
+    assert all(_decimals(v) == d for _, v in found), text
+    assert len(view.figures["location"].title.text) <= 40, view.figures["location"].title.text
+    assert "X-bar-R" in view.figures["location"].title.text or "I-MR" in (
+        view.figures["location"].title.text
+    )
+    lower = re.findall(r"\b(?:LCL|CL|UCL) (-?\d+\.\d+)", view.limit_titles["dispersion"].text)
+    assert lower and all(_decimals(v) == d + 1 for v in lower), view.limit_titles["dispersion"]
+    hover = view.sources["location"]["points"].data["value_text"]
+    assert hover and all(_decimals(v) == d for v in hover if v != "—"), hover[:5]
+
+
+def test_pdf_numbers_have_the_tolerances_digits(pdf_path):
+    text = "\n".join(p.extract_text() or "" for p in PdfReader(str(pdf_path)).pages)
+    means = re.findall(r"\bMean\s+(-?\d+\.\d+)", text)
+    sigmas = re.findall(r"\bWithin sigma\s+(-?\d+\.\d+)", text)
+    assert means and sigmas, text[:2000]
+    # each two-sided characteristic's mean and sigma (demo: 12.0023..., 7.9996...)
+    for mean, d in (("12.0023", 4), ("7.99965", 3)):
+        shown = [m for m in means if abs(float(m) - float(mean)) < 0.01]
+        assert shown and all(_decimals(m) == d for m in shown), (mean, means)
+    assert not _P_ZERO.findall(text), _P_ZERO.findall(text)
+
+
+def test_format_spread_is_one_decimal_finer():
+    assert names.format_spread(0.0044836, 11.97, 12.03) == "0.00448"
+    assert names.format_value(12.0023357, 11.97, 12.03) == "12.0023"
+    assert names.spec_digits({"lsl": 7.9, "usl": 8.1}) == 3
+    assert names.spec_digits(None) == 4

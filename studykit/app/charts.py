@@ -53,6 +53,16 @@ def _fmt(v, digits: int = 4) -> str:
     return f"{v:.{digits}g}"
 
 
+def _number_text(v, digits: int | None) -> str:
+    """A chart number: the tolerance's decimals (``names.format_value``) on the measured
+    scale; five significant digits on a model's scale (``digits`` None)."""
+    if digits is None:
+        return _fmt(v, 5)
+    if v is None or not math.isfinite(float(v)):
+        return "—"
+    return names.format_value(v, digits=digits)
+
+
 def _span(*columns, pad: float = 0.08, floor: float | None = None) -> tuple[float, float]:
     """(low, high) over the finite values of some columns, padded; (0, 1) when empty.
 
@@ -111,12 +121,17 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
         order = kept
     xpos = {lab: i + 1 for i, lab in enumerate(order)}
     out = {"labels": order, "kind": chart.kind}
+    # one rule for numbers (names.value_digits): 1/100 of the tolerance on the measured scale;
+    # spreads (the lower chart) one decimal more; a model's scale has no tolerance to resolve
+    value_digits = names.spec_digits(getattr(result, "spec", None))
+    on_model_scale = bool(getattr(result, "chart_scale_text", None))
     for part in ("location", "dispersion"):
         series = getattr(chart, part)
         if series is None:
             out[part] = None
             continue
         full_series = getattr(full_chart, part) if full_chart is not None else None
+        digits = None if on_model_scale else value_digits + (part == "dispersion")
         pts = {
             "x": [],
             "label": [],
@@ -128,6 +143,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             "removed_why": [],
             "rules": [],
             "kept_why": [],
+            "value_text": [],
         }
         by_label = {lab: float(v) for lab, v in zip(kept, _floats(series.points), strict=False)}
         full_values = {}
@@ -148,10 +164,13 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             pts["x"].append(xpos[lab])
             pts["label"].append(lab)
             pts["value"].append(float("nan") if value is None else value)
+            pts["value_text"].append(_number_text(value, digits))
             pts["status"].append("kept" if is_kept else "removed")
             pts["time"].append(d.get("time") or "—")
             pts["note"].append(d.get("note") or "—")
-            pts["values"].append(", ".join(_fmt(v, 6) for v in vals) or "—")
+            pts["values"].append(
+                ", ".join(names.format_value(v, digits=value_digits) for v in vals) or "—"
+            )
             pts["removed_why"].append(removal_why.get(lab, "—") if not is_kept else "—")
             rules = sorted(set(rules_at.get(kept_index[lab], []))) if is_kept else []
             pts["rules"].append(", ".join(rules) if rules else "—")
@@ -187,6 +206,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             "ucl": limits["ucl"][-1] if c else None,
             "varies": bool(c) and (len(set(limits["ucl"])) > 1),
         }
+        text["texts"] = {k: _number_text(text[k], digits) for k in ("center", "lcl", "ucl")}
         out[part] = {
             "points": pts,
             "limits": limits,
@@ -222,6 +242,10 @@ _KEPT_RING = {
 }
 
 
+#: height of the control limits' line under a control chart's title (12 px text and padding)
+_LIMITS_LINE = 20
+
+
 class ControlChartView:
     """Location and dispersion charts of phase I, with hover and tap selection.
 
@@ -240,8 +264,13 @@ class ControlChartView:
         self.sources: dict[str, dict] = {}
         self.figures: dict[str, object] = {}
         self.warning_renderers: list = []
+        self.limit_titles: dict[str, object] = {}
         self._labels: list[str] = []
-        for part, h in (("location", height), ("dispersion", int(height * 0.8))):
+        # each figure carries a line of limits under its title (_LIMITS_LINE px more)
+        for part, h in (
+            ("location", height + _LIMITS_LINE),
+            ("dispersion", int(height * 0.8) + _LIMITS_LINE),
+        ):
             self.figures[part] = self._figure(part, h)
         self.layout = column(
             self.figures["location"], self.figures["dispersion"], sizing_mode="stretch_width"
@@ -258,6 +287,7 @@ class ControlChartView:
             LegendItem,
             Range1d,
             TapTool,
+            Title,
         )
         from bokeh.plotting import figure
 
@@ -275,6 +305,7 @@ class ControlChartView:
                     "removed_why",
                     "rules",
                     "kept_why",
+                    "value_text",
                 )
             },
             name=f"{part}_points",
@@ -307,6 +338,11 @@ class ControlChartView:
             y_range=Range1d(0, 1),
         )
         fig.min_border_right = 16
+        # the control limits on a line of their own under the chart's name (two short lines
+        # fit a phone; one long title was cut at 390 px)
+        limit_title = Title(text="", text_font_size="12px", text_font_style="normal")
+        fig.add_layout(limit_title, "above")
+        self.limit_titles[part] = limit_title
         zone = fig.varea(
             "x",
             "lower_zone",
@@ -388,7 +424,7 @@ class ControlChartView:
             tooltips=[
                 ("Subgroup", "@label"),
                 ("Time", "@time"),
-                ("Statistic", "@value{0.00000}"),
+                ("Statistic", "@value_text"),
                 ("Values", "@values"),
                 ("Note", "@note"),
                 ("Rules broken", "@rules"),
@@ -456,17 +492,19 @@ class ControlChartView:
                 limits_text = "limits vary with the subgroup size"
             else:
                 limits_text = " · ".join(
-                    f"{name} {_fmt(t[key], 5)}"
+                    f"{name} {t['texts'][key]}"
                     for key, name in (("lcl", "LCL"), ("center", "CL"), ("ucl", "UCL"))
                     if t[key] is not None and math.isfinite(t[key])
                 )
             fig.yaxis.axis_label = c["name"] + unit_text
             head = (
-                f"{c['name']} chart ({cols['kind'].replace('_', '-')})"
+                f"{c['name']} chart ({names.chart_kind_label(cols['kind'])})"
                 if part == "location"
                 else f"{c['name']} chart"
             )
-            fig.title.text = f"{head}    {limits_text}"
+            # two short lines, not one long one: a phone (390 px) shows both uncut
+            fig.title.text = head
+            self.limit_titles[part].text = limits_text
             # change the ticker's ticks, never swap models: a new model makes bokeh walk the
             # whole document again (about 0.1 s)
             fig.xaxis[0].ticker.ticks = ticks

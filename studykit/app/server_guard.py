@@ -335,6 +335,19 @@ _UPLOAD_GUARD = """<script>/* studykit: files above the upload limit are refused
     }
     return send.call(this, data);
   };
+  // upload buttons show their label only: ipywidgets writes "label (n)" into the button; the
+  // count goes into data-files and the text keeps the label (class sk-no-count)
+  function relabel(button) {
+    for (var i = 0; i < button.childNodes.length; i++) {
+      var node = button.childNodes[i];
+      var m = node.nodeType === 3 ? /^(.*) \\(([0-9]+)\\)$/.exec(node.nodeValue) : null;
+      if (m) { button.setAttribute("data-files", m[2]); node.nodeValue = m[1]; }
+    }
+  }
+  new MutationObserver(function () {
+    var buttons = document.querySelectorAll(".widget-upload.sk-no-count");
+    for (var i = 0; i < buttons.length; i++) { relabel(buttons[i]); }
+  }).observe(document.documentElement, { childList: true, subtree: true });
 })();
 </script>"""
 

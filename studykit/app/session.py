@@ -839,8 +839,12 @@ class StudySession:
 
         who = _check_name(who)
         if not (role or "").strip():
-            raise StudyInputError("`role` is empty: choose prepared, reviewed or approved")
+            raise StudyInputError(
+                "the role is empty: choose "
+                + ", ".join(names.role_label(r) for r in ("prepared", "reviewed", "approved"))
+            )
         seen = seen_digest or self.shown_digest
+        role = names.role_id(role)
         probe = SignOff(who, role.strip(), decision, comment=comment, digest=seen)
         missing = {}
         if probe.is_approval and self.study.signoff_rules().get("approval_needs_verdicts"):

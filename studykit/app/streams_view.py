@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import fmt, verdict_chip, verdict_kind
 from studykit.app.widgets import esc, html_box
 
@@ -27,10 +28,17 @@ def time_model_html(result) -> str:
             f"<div class='sk-muted'>Not classified: {esc(tm.reason)}.</div>"
         )
     d = tm.to_dict()
-    names = {"pp": "Pp", "ppk": "Ppk", "ppu": "PPU", "ppl": "PPL"}
-    idx = ", ".join(f"{names[k]} {fmt(v, 2)}" for k, v in d["indices"].items() if k in names)
+    shown = ("pp", "ppk", "ppu", "ppl")
+    idx = ", ".join(
+        f"{names.index_label(k)} {names.format_index(v)}"
+        for k, v in d["indices"].items()
+        if k in shown
+    )
     if d["indices"].get("sigma") is not None:
-        idx += f" (sigma_total {d['indices']['sigma']:.4g})"
+        sigma = names.format_spread(
+            d["indices"]["sigma"], digits=names.spec_digits(getattr(result, "spec", None))
+        )
+        idx += f" (total sigma {sigma})"
     return (
         "<div class='sk-panel-title'>Time-dependent model (ISO 22514-2)</div>"
         f"<div class='sk-time-model'><b>Class {esc(tm.cls)}</b>: location "
@@ -51,7 +59,8 @@ def streams_html(result) -> str:
     st = getattr(result, "streams", None)
     if st is None:
         return ""
-    index = (result.criteria.get("index") or "ppk").capitalize()
+    index = names.index_label(result.criteria.get("index") or "ppk")
+    digits = names.spec_digits(getattr(result, "spec", None))
     body = []
     for name in st.names:
         r = st.results.get(name)
@@ -66,7 +75,8 @@ def streams_html(result) -> str:
         worst = " <b>(worst)</b>" if name == st.worst else ""
         body.append(
             f"<tr class='sk-stream-row'><td>{esc(name)}{worst}</td><td class='num'>{r.n}</td>"
-            f"<td class='num'>{fmt(r.mean, 6)}</td><td class='num'>{fmt(r.overall_sigma, 4)}</td>"
+            f"<td class='num'>{names.format_value(r.mean, digits=digits)}</td>"
+            f"<td class='num'>{names.format_spread(r.overall_sigma, digits=digits)}</td>"
             f"<td class='num'>{fmt(est, 2)}</td><td class='num'>{fmt(lower, 2)}</td>"
             f'<td title="{esc(r.verdict.text if r.verdict is not None else "")}">'
             f"{verdict_chip(None if r.verdict is None else r.verdict.meets, text=word, kind=kind)}"
@@ -154,7 +164,7 @@ def stream_cells(rows: list[dict]) -> list:
             (name, ("sk-ovcell", "sk-ovstream")),
             (verdict_chip(r["meets"], text=r["word"], kind=r["kind"]), ("sk-ovcell",)),
             (
-                f"{esc((r['index'] or '').capitalize())} {fmt(r['estimate'], 2)}"
+                f"{esc(names.index_label(r['index'] or ''))} {fmt(r['estimate'], 2)}"
                 if r["estimate"] is not None
                 else "—",
                 ("sk-ovcell", "num"),

@@ -144,9 +144,6 @@ body {{ background: {theme.PAGE}; }}
   .sk-root .sk-gauge-figure-box {{ overflow-x: auto; }}
   .sk-root img.sk-gauge-figure {{ min-width: 560px; }}
 }}
-.sk-root .widget-upload.sk-no-count {{ font-size: 0; }}
-.sk-root .widget-upload.sk-no-count > i.fa {{ font-size: 13px; margin-right: 6px; }}
-.sk-root .widget-upload.sk-no-count::after {{ content: attr(title); font-size: 13px; }}
 </style>
 """
 
@@ -157,9 +154,10 @@ def style_sheet() -> widgets.HTML:
 
 
 def upload_button(description: str, **kwargs) -> widgets.FileUpload:
-    """A file-upload button that shows its label only: ipywidgets appends the number of chosen
-    files ("(0)") to the label; the page hides that text and draws the label from the tooltip
-    (CSS class ``sk-no-count``)."""
+    """A file-upload button that shows its label only: ipywidgets writes the number of chosen
+    files ("(0)") after the label; the page script of the served workbook
+    (``server_guard.upload_guard_script``) takes it out of the button's text and keeps it in
+    the button's ``data-files`` attribute (class ``sk-no-count`` marks these buttons)."""
     w = widgets.FileUpload(description=description, tooltip=description, **kwargs)
     w.add_class("sk-no-count")
     return w

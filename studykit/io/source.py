@@ -122,14 +122,14 @@ def inspect(src: Source, encoding: str | None) -> None:
         return
     if head.startswith(b"\xd0\xcf\x11\xe0"):
         raise DataFileError(
-            "this is an old-style Excel .xls workbook or a password-protected workbook, which "
+            "this is an old-style Excel file (.xls) or a password-protected Excel file, which "
             "studykit does not read. Open it in the spreadsheet program, remove the password if "
-            "there is one, and save it as .xlsx (Excel workbook) or as CSV.",
+            "there is one, and save it as an Excel file (.xlsx) or as CSV.",
             file=src.name,
         )
     if suffix in (".xlsx", ".xlsm"):
         raise DataFileError(
-            "the file has an Excel name but is not an Excel workbook (it is not a .xlsx "
+            "the file has an Excel name but is not an Excel file (it is not a .xlsx "
             "package). Open it in the spreadsheet program and save it again as .xlsx, or "
             "rename it to .csv if it is a text export.",
             file=src.name,

@@ -42,9 +42,9 @@ def _check_xlsx_package(src: Source) -> None:
         handle.close()
     if len(infos) > XLSX_MAX_MEMBERS:
         raise DataFileError(
-            f"the workbook package holds {len(infos)} parts, more than the {XLSX_MAX_MEMBERS} "
+            f"the Excel file holds {len(infos)} parts, more than the {XLSX_MAX_MEMBERS} "
             "a spreadsheet has; it is not read. Export the measurements as CSV, or save them "
-            "in a new workbook.",
+            "in a new Excel file.",
             file=src.name,
             value=len(infos),
         )
@@ -54,7 +54,7 @@ def _check_xlsx_package(src: Source) -> None:
         ):
             ratio = info.file_size / max(info.compress_size, 1)
             raise DataFileError(
-                f"part '{show(info.filename)}' of the workbook unpacks from "
+                f"part '{show(info.filename)}' of the Excel file unpacks from "
                 f"{human_size(info.compress_size)} to {human_size(info.file_size)} "
                 f"({ratio:.0f} times; spreadsheet programs pack about 5 to 15 times, the limit "
                 f"is {XLSX_MAX_RATIO}). A file packed this tightly is built to exhaust memory "
@@ -66,9 +66,9 @@ def _check_xlsx_package(src: Source) -> None:
     total = sum(i.file_size for i in infos)
     if total > XLSX_MAX_UNPACKED:
         raise DataFileError(
-            f"the workbook unpacks to {human_size(total)}, more than the limit of "
+            f"the Excel file unpacks to {human_size(total)}, more than the limit of "
             f"{human_size(XLSX_MAX_UNPACKED)}. Save the measurements as CSV (read in pieces, "
-            "without this limit), or split the workbook.",
+            "without this limit), or split the Excel file.",
             file=src.name,
             value=total,
         )
@@ -97,7 +97,7 @@ def _xlsx_reason(exc: BaseException) -> str:
 
 def _xlsx_open_failure(src: Source, exc: BaseException) -> DataFileError:
     return DataFileError(
-        f"the workbook cannot be opened ({_xlsx_reason(exc)}). It may be damaged or protected "
+        f"the Excel file cannot be opened ({_xlsx_reason(exc)}). It may be damaged or protected "
         "with a password. Open it in the spreadsheet program and save it again as .xlsx, or "
         "export the measurements as CSV.",
         file=src.name,
@@ -110,7 +110,7 @@ def _xlsx_failure(src: Source, exc: BaseException, *, sheet=None, row=None) -> D
         return exc
     where = f" near row {row}" if row is not None else ""
     return DataFileError(
-        f"the workbook is damaged and cannot be read{where}: {_xlsx_reason(exc)}. Open it in "
+        f"the Excel file is damaged and cannot be read{where}: {_xlsx_reason(exc)}. Open it in "
         "the spreadsheet program and save it again as .xlsx (or export the measurements as "
         "CSV), then load that file.",
         file=src.name,
@@ -174,7 +174,7 @@ def _open_xlsx_inner(src: Source, sheet: str | None, notes: list) -> Table:
     if hasattr(ws, "reset_dimensions"):
         ws.reset_dimensions()  # some writers store wrong dimensions; read every cell
     if src.path is not None and Path(src.name).suffix.lower() not in (".xlsx", ".xlsm"):
-        notes.append("the file is an Excel workbook despite its name; read it as .xlsx")
+        notes.append("the file is an Excel file (.xlsx) despite its name; read it as .xlsx")
 
     try:
         merged = _merged_ranges(wb, ws)

@@ -555,7 +555,9 @@ class _SignatureBoxes:
                     c.setDash()
                     c.setFillColor(colors.HexColor(theme.INK_SOFT))
                     c.setFont(styles["small"].fontName, 7)
-                    c.drawString(4, y + self.box_h - 9, f"Digital signature - {role}")
+                    c.drawString(
+                        4, y + self.box_h - 9, f"Digital signature - {names.role_label(role)}"
+                    )
                     x1, y1 = c.absolutePosition(0, y)
                     x2, y2 = c.absolutePosition(self.width, y + self.box_h - 12)
                     record[role] = [page, round(x1, 2), round(y1, 2), round(x2, 2), round(y2, 2)]
@@ -826,7 +828,8 @@ def _cover(story, study, results, errors, st, width, evidence_sha, chain=None):
             word = "still valid" if s.valid else f"VOIDED ({escape_text(s.why)})"
             story.append(
                 Paragraph(
-                    f"{escape_text(so.role)}: {escape_text(so.name)} - {escape_text(so.decision)} "
+                    f"{escape_text(names.role_label(so.role))}: {escape_text(so.name)} - "
+                    f"{escape_text(names.decision_label(so.decision))} "
                     f"on {escape_text(so.when)}, {word}",
                     st["body"],
                 )
@@ -939,10 +942,10 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         facts.append(
             [
                 "Within sigma",
-                number_text(res.within_sigma, 4)
+                names.format_spread(res.within_sigma, c.lsl, c.usl)
                 + (f" ({escape_text(sigma_text)})" if sigma_text else ""),
                 "Overall sigma",
-                number_text(res.overall_sigma, 4) + " (sample, n - 1)",
+                names.format_spread(res.overall_sigma, c.lsl, c.usl) + " (sample, n - 1)",
             ]
         )
     else:
@@ -966,8 +969,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         pl = res.probability_limits
         if pl is not None:
             scale_note += (
-                f" In measured units the limits are LCL {number_text(pl['lcl'], 5)}, "
-                f"centre {number_text(pl['center'], 5)}, UCL {number_text(pl['ucl'], 5)}."
+                f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
+                f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
+                f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
             )
         story.append(Paragraph(escape_text(scale_note), st["body"]))
     signals = []
@@ -1055,9 +1059,9 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(
             Paragraph(
                 f"Normality of the values used: Anderson-Darling A² = {number_text(ad.a2)} "
-                f"(A*² = {number_text(ad.a2_star)}, p = {number_text(ad.p_value, 3)})"
+                f"(A*² = {number_text(ad.a2_star)}, p = {names.format_p(ad.p_value)})"
                 + (
-                    f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {number_text(sw.p_value, 3)})."
+                    f"; Shapiro-Wilk W = {number_text(sw.w)} (p = {names.format_p(sw.p_value)})."
                     if sw is not None
                     else "."
                 ),
@@ -1530,7 +1534,7 @@ def _gauge_anova_rows(rows_in):
                 number_text(r.get("ss")),
                 number_text(r.get("ms")),
                 number_text(r.get("f"), 3),
-                "–" if p is None else ("< 0.001" if p < 1e-3 else number_text(p, 3)),
+                "–" if p is None else names.format_p(p),
             ]
         )
     return rows
@@ -1565,7 +1569,7 @@ def _signoff_digests(story, study, states, width, st):
         so = s.signoff
         rows.append(
             [
-                escape_text(so.role),
+                escape_text(names.role_label(so.role)),
                 escape_text(so.name),
                 f"<font size=6>{so.digest}</font>",
                 "yes" if so.digest == current else "<b>no</b> - signed other content",
@@ -1646,7 +1650,7 @@ def _signoff_section(story, number, study, st, width, boxes):
         )
         _signoff_digests(story, study, states, width, st)
         heads = [
-            f"{escape_text(s.signoff.role)} ({escape_text(s.signoff.name)}): entry "
+            f"{escape_text(names.role_label(s.signoff.role))} ({escape_text(s.signoff.name)}): entry "
             f"{escape_text(s.signoff.chain_head.partition(':')[0])} "
             f"<font size=6>{escape_text(s.signoff.chain_head.partition(':')[2])}</font>"
             for s in states

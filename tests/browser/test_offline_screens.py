@@ -188,6 +188,15 @@ def test_offline_on_three_screens(browser, offline_server, key):
         _check_layout(page, key, "overview")
         _shot(page, f"{key}-overview")
 
+        # upload buttons carry their label only, no "(0)" counter (issue 15 item 9)
+        page.locator(".sk-step-intake").click()
+        page.wait_for_selector(".sk-upload", state="visible")
+        upload = page.locator(".sk-upload").first
+        page.wait_for_function(
+            "() => document.querySelector('.sk-upload').hasAttribute('data-files')"
+        )
+        assert "(0)" not in upload.inner_text() and upload.get_attribute("data-files") == "0"
+
         page.locator(".sk-step-stability").click()
         page.wait_for_selector(".sk-step-stability.sk-current")
         page.wait_for_function(f"({_BOKEH_JS})().legends.length > 0")

@@ -165,8 +165,8 @@ class ExportStep:
         )
         self.passphrase.add_class("sk-p12-passphrase")
         self.sign_role = widgets.Combobox(
-            options=list(SIGNOFF_ROLES),
-            value="prepared",
+            options=[names.role_label(r) for r in SIGNOFF_ROLES],
+            value=names.role_label("prepared"),
             ensure_option=False,
             layout=widgets.Layout(width="160px"),
         )
@@ -280,7 +280,7 @@ class ExportStep:
                 out,
                 p12_name,
                 self.passphrase.value,
-                role=self.sign_role.value,
+                role=names.role_id(self.sign_role.value),
                 name=self.ws.who_name,
                 p12_data=p12_data,
             )
@@ -307,7 +307,7 @@ class ExportStep:
             else "(invisible: no box for this role)"
         )
         self.ws.context.messages.ok(
-            f"Signed by {info.name} as {info.role} with the certificate of {info.subject} "
+            f"Signed by {info.name} as {names.role_label(info.role)} with the certificate of {info.subject} "
             f"{where}. Download the signed PDF; `studykit verify` checks it."
         )
 

@@ -15,6 +15,7 @@ from collections.abc import Mapping
 
 import ipywidgets as widgets
 
+from studykit import names
 from studykit.app.overview import fmt, verdict_chip
 from studykit.app.widgets import esc, html_box
 
@@ -44,7 +45,6 @@ def tolerance_interval_html(result) -> str:
     if not ti:
         return ""
     meets = ti.get("meets")
-    from studykit import names
 
     word = names.VERDICT_STATES[{True: "meets", False: "does_not_meet", None: "no_verdict"}[meets]]
     lo, hi = ti.get("lower"), ti.get("upper")
@@ -110,7 +110,11 @@ def position_html(name: str, payload: Mapping, d: Mapping) -> str:
         f'<tr><td>{esc(a)}</td><td class="num">{b}</td><td class="num">{c}</td></tr>'
         for a, b, c in (
             ("Expected PPM outside the zone", _g(d.get("ppm_expected"), 4), _g(sc.get("ppm"), 4)),
-            ("Equivalent index", fmt(d.get("index"), 3), fmt(sc.get("index"), 3)),
+            (
+                "Equivalent index",
+                names.format_index(d.get("index")),
+                names.format_index(sc.get("index")),
+            ),
             (
                 "Mean",
                 f"({fmt(d.get('mean_x'), 4)}, {fmt(d.get('mean_y'), 4)}){u}",

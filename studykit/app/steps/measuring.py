@@ -286,6 +286,12 @@ def _chip(status: str | None) -> str:
     )
 
 
+def _p_clause(p) -> str:
+    """``"= 0.046"`` or ``"< 0.001"`` (names.format_p: never "0.000")."""
+    text = names.format_p(p)
+    return text if text.startswith("<") else "= " + text
+
+
 def _num(v) -> str:
     """A limit as written (7.9, not 7.9000)."""
     try:
@@ -421,7 +427,7 @@ def _anova_rows(rows) -> str:
     out = []
     for r in rows or []:
         p = r.get("p")
-        p_text = "—" if p is None else ("< 0.001" if p < 1e-3 else fmt(p, 3))
+        p_text = "—" if p is None else names.format_p(p)
         out.append(
             f"<tr><td>{esc(gt.source_name(str(r.get('source', ''))))}</td>"
             f'<td class="num">{esc(r.get("df"))}</td>'
@@ -526,6 +532,7 @@ def short_study_html(
     )
     t = payload.get("t_test") or {}
     p_val = t.get("p_value")
+    digits = names.value_digits(payload.get("lsl"), payload.get("usl"))
     facts = [
         (
             "Cg, Cgk",
@@ -541,16 +548,21 @@ def short_study_html(
             "Readings",
             f"{payload.get('n', '?')} of a part with reference {_num(payload.get('reference'))}",
         ),
-        ("Mean, s", f"{_num(payload.get('mean'))}, {_num(payload.get('sd'))}"),
+        (
+            "Mean, s",
+            f"{names.format_value(payload.get('mean'), digits=digits)}, "
+            f"{names.format_spread(payload.get('sd'), digits=digits)}",
+        ),
         (
             "Bias",
-            f"{_num(payload.get('bias'))} ({fmt(payload.get('bias_pct_tolerance'), 2)} % "
+            f"{names.format_spread(payload.get('bias'), digits=digits)} "
+            f"({fmt(payload.get('bias_pct_tolerance'), 2)} % "
             "of the tolerance)",
         ),
         (
             "Bias t-test",
             f"t = {fmt(t.get('statistic'), 3)}, df = {t.get('df', '—')}, p "
-            + ("= —" if p_val is None else ("< 0.0001" if p_val < 1e-4 else "= " + fmt(p_val, 4))),
+            + ("= —" if p_val is None else _p_clause(p_val)),
         ),
         ("Tolerance", f"{_num(payload.get('lsl'))} to {_num(payload.get('usl'))}"),
     ]

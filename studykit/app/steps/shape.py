@@ -125,12 +125,12 @@ def effect_html(before, after) -> str:
         label = r.model.label if r.model is not None else "—"
         kind, word = verdict_kind(v)
         return (
-            f'<td>{esc(label)}</td><td class="num">{fmt(v.estimate)}</td>'
-            f'<td class="num">{fmt(v.lower_bound)}</td>'
+            f'<td>{esc(label)}</td><td class="num">{names.format_index(v.estimate)}</td>'
+            f'<td class="num">{names.format_index(v.lower_bound)}</td>'
             f"<td>{verdict_chip(v.meets, text=word, kind=kind)}</td>"
         )
 
-    index = (before.verdict.index if before.verdict is not None else "index").capitalize()
+    index = names.index_label(before.verdict.index) if before.verdict is not None else "Index"
     return (
         '<table class="sk-table sk-effect"><thead><tr><th></th><th>Model</th>'
         f"<th>{esc(index)}</th><th>Lower bound</th><th>Verdict</th></tr></thead><tbody>"
@@ -268,14 +268,23 @@ class ShapeStep:
         sw = res.normality["shapiro_wilk"] if res.normality else None
         facts = [
             ("Values used", f"{res.n} in {res.subgroups} subgroups"),
-            ("Mean / overall sigma", f"{fmt(res.mean, 5)} / {fmt(res.overall_sigma, 5)}"),
+            (
+                "Mean / overall sigma",
+                f"{names.format_value(res.mean, digits=names.spec_digits(res.spec))} / "
+                f"{names.format_spread(res.overall_sigma, digits=names.spec_digits(res.spec))}",
+            ),
         ]
         if ad is not None:
             facts.append(
-                ("Anderson-Darling (normal)", f"A² = {fmt(ad.a2, 3)}, p = {fmt(ad.p_value, 3)}")
+                (
+                    "Anderson-Darling (normal)",
+                    f"A² = {fmt(ad.a2, 3)}, p = {names.format_p(ad.p_value)}",
+                )
             )
         if sw is not None:
-            facts.append(("Shapiro-Wilk (normal)", f"W = {fmt(sw.w, 4)}, p = {fmt(sw.p_value, 3)}"))
+            facts.append(
+                ("Shapiro-Wilk (normal)", f"W = {fmt(sw.w, 4)}, p = {names.format_p(sw.p_value)}")
+            )
         if res.model is not None:
             facts.append(("Model used", f"{res.model.label} — {res.model.reason}"))
         return (

@@ -194,9 +194,9 @@ class SignoffStep:
         self.lock = html_box("", "sk-lock-state")
         self.signoffs = html_box("", "sk-signoff-table")
         self.role = widgets.Combobox(
-            options=list(SIGNOFF_ROLES),
-            value="reviewed",
-            placeholder="prepared, reviewed, approved …",
+            options=[names.role_label(r) for r in SIGNOFF_ROLES],
+            value=names.role_label("reviewed"),
+            placeholder=", ".join(names.role_label(r) for r in SIGNOFF_ROLES) + " …",
             ensure_option=False,
             layout=widgets.Layout(width="200px"),
         )
@@ -362,14 +362,15 @@ class SignoffStep:
         ws, s = self.ws, self.ws.session
         signed = s.sign(
             who=ws.who_name,
-            role=self.role.value,
+            role=names.role_id(self.role.value),
             decision=self.decision.value,
             comment=self.sign_comment.value,
         )
         self.sign_comment.value = ""
         lock = " The study is now approved and locked." if s.is_locked else ""
         ws.context.messages.ok(
-            f"Signed by {signed.name} as {signed.role} ({signed.decision})." + lock
+            f"Signed by {signed.name} as {names.role_label(signed.role)}: "
+            f"{names.decision_label(signed.decision)}." + lock
         )
 
     def _on_waive(self) -> None:

@@ -25,7 +25,6 @@ import ipywidgets as widgets
 from studykit import names
 from studykit.app.charts import ControlChartView, LiveChart
 from studykit.app.overview import (
-    fmt,
     no_study_panel,
     panel,
     panel_css,
@@ -257,7 +256,8 @@ class StabilityStep:
             ),
             (
                 "Within sigma",
-                f"{fmt(res.within_sigma, 5)} ({(res.phase1.raw_chart or chart).sigma_method_text})"
+                f"{names.format_spread(res.within_sigma, digits=names.spec_digits(res.spec))} "
+                f"({(res.phase1.raw_chart or chart).sigma_method_text})"
                 if res.within_sigma is not None
                 else _NONE,
             ),
@@ -332,7 +332,7 @@ class StabilityStep:
             facts = [
                 ("Subgroup", row["label"]),
                 ("Time", row["time"]),
-                ("Statistic", fmt(row["value"], 5)),
+                ("Statistic", row["value_text"]),
                 ("Values", row["values"]),
                 ("Note", row["note"]),
                 ("Rules broken", row["rules"]),

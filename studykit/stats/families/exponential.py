@@ -55,7 +55,7 @@ class Exponential(Family):
 
 
 class Exponential2(Exponential):
-    id, label = "exponential2", "Exponential, 2-parameter"
+    id, label = "exponential2", "Exponential with threshold"
     order = 9
     param_names = ("scale", "threshold")
     support, base_id, ad_p_source = "real", "exponential", None

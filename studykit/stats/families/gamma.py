@@ -165,7 +165,7 @@ class Gamma(Family):
 
 
 class Gamma3(ThresholdVariant, Gamma):
-    id, label = "gamma3", "Gamma, 3-parameter"
+    id, label = "gamma3", "Gamma with threshold"
     order = 7
     param_names = ("shape", "scale", "threshold")
     support, base_id, minimum_n = "real", "gamma", 5

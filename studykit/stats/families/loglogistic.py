@@ -173,7 +173,7 @@ class Loglogistic(Family):
 
 
 class Loglogistic3(ThresholdVariant, Loglogistic):
-    id, label = "loglogistic3", "Loglogistic, 3-parameter"
+    id, label = "loglogistic3", "Loglogistic with threshold"
     order = 12
     param_names = ("shape", "scale", "threshold")
     support, base_id, ad_p_source, minimum_n = "real", "loglogistic", None, 5

@@ -96,7 +96,7 @@ class Lognormal(Family):
 
 
 class Lognormal3(ThresholdVariant, Lognormal):
-    id, label = "lognormal3", "Lognormal, 3-parameter"
+    id, label = "lognormal3", "Lognormal with threshold"
     order = 3
     param_names = ("log_mean", "log_sd", "threshold")
     support, base_id, ad_p_source, minimum_n = "real", "lognormal", None, 5

@@ -182,7 +182,7 @@ class Weibull(Family):
 
 
 class Weibull3(ThresholdVariant, Weibull):
-    id, label = "weibull3", "Weibull, 3-parameter"
+    id, label = "weibull3", "Weibull with threshold"
     order = 5
     shared_grid_start = True
     param_names = ("shape", "scale", "threshold")
