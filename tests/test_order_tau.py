@@ -46,3 +46,12 @@ def test_pairwise_route_is_taken_and_scipy_is_not_called(monkeypatch):
 
     monkeypatch.setattr(stats, "kendalltau", forbidden)
     assert order.kendall_tau_position(x) == (float(expected.statistic), float(expected.pvalue))
+
+
+@pytest.mark.parametrize("kind", [0, 1, 2, 3])
+def test_long_series_match_scipy_bit_for_bit(kind):
+    """The sorting route (beyond PAIRWISE_MAX_N values), 100,000 values."""
+    rng = np.random.default_rng(99 + kind)
+    x = _series(100_000, kind, rng)
+    ref = stats.kendalltau(np.arange(x.size), x)
+    assert order.kendall_tau_position(x) == (float(ref.statistic), float(ref.pvalue))

@@ -97,14 +97,20 @@ class _LabelAcc:
 def _text_times(cells: np.ndarray, fmt: str | None):
     """``times_chunk`` of a chunk of text cells (CSV) in one parse, or None.
 
-    The format is found as :func:`times_chunk` finds it (on the first 500 filled cells); then
-    the raw cells are parsed with it at once, without stripping each cell in Python. The exact
+    The format is found as :func:`times_chunk` finds it (on the first 500 filled cells, or the
+    format of the chunks before); then the raw cells are parsed with it at once, without stripping each cell in Python. The exact
     format rejects a cell with blanks around it (or of blanks only), so a successful parse
     reads every cell as the stripped one would be read. Returns ``(times, format, filled)``
     (``filled``: the cell is not empty), or None when anything needs the cell-by-cell route.
     """
     import pandas as pd
 
+    if fmt is not None:  # the format of the chunks before: times_chunk would try it alone
+        try:
+            out = pd.to_datetime(cells, format=fmt)
+        except (ValueError, TypeError):
+            return None
+        return np.array(out, dtype="datetime64[ns]"), fmt, np.asarray(cells != "", dtype=bool)
     sample = []
     for v in cells:
         t = v.strip() if isinstance(v, str) else None

@@ -217,18 +217,42 @@ def check_order(
 
 #: Up to this many values :func:`kendall_tau_position` counts the discordant pairs by one
 #: comparison of every pair (n^2 / 2 comparisons, faster than the sorting route's fixed cost);
-#: longer series go to ``scipy.stats.kendalltau`` (O(n log n)).
+#: longer series are ranked with one sort and their discordant pairs counted by scipy's
+#: merge-sort counter (O(n log n)), the routine ``scipy.stats.kendalltau`` itself uses.
 PAIRWISE_MAX_N = 600
+
+
+def _discordant_and_ties(x: np.ndarray):
+    """(discordant pairs between position and value, sizes of the groups of tied values), or
+    None when scipy's counter cannot be imported."""
+    size = int(x.size)
+    if size <= PAIRWISE_MAX_N:
+        dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
+        cnt = np.unique(x, return_counts=True)[1].astype("int64", copy=False)
+        return dis, cnt
+    try:
+        from scipy.stats._stats import _kendall_dis
+    except ImportError:  # pragma: no cover - a scipy without the private counter
+        return None
+    perm = np.argsort(x)
+    ordered = x[perm]
+    dense = np.r_[True, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
+    ranks = np.empty(size, dtype=np.intp)
+    ranks[perm] = dense  # dense ranks of the values, in position order
+    dis = int(_kendall_dis(np.arange(1, size + 1, dtype=np.intp), ranks))
+    cnt = np.bincount(ranks).astype("int64", copy=False)
+    return dis, cnt
 
 
 def kendall_tau_position(x) -> tuple[float, float]:
     """Kendall's tau-b between position and ``x`` and its two-sided p-value, as
     ``scipy.stats.kendalltau(np.arange(n), x)`` returns them, bit for bit.
 
-    Up to :data:`PAIRWISE_MAX_N` values the discordant pairs and the ties are counted directly
-    and scipy's arithmetic for tau-b and for the asymptotic p-value (positions have no ties) is
-    repeated step by step; the cases where scipy uses its exact p-value (no ties and n <= 33,
-    or at most one pair out of place either way) and longer series are passed to scipy itself.
+    The discordant pairs and the ties are counted (:func:`_discordant_and_ties`) and scipy's
+    arithmetic for tau-b and for the asymptotic p-value (positions have no ties) is repeated
+    step by step, without scipy's second sort and argument handling. The cases where scipy
+    uses its exact p-value (no ties and n <= 33, or at most one pair out of place either way)
+    are passed to scipy itself.
 
     >>> x = np.array([5.1, 4.9, 5.3, 5.0, 4.8, 5.2, 5.1, 4.9, 5.0, 5.2, 5.4, 4.7] * 3)
     >>> from scipy import stats
@@ -238,10 +262,10 @@ def kendall_tau_position(x) -> tuple[float, float]:
     """
     x = np.asarray(x, dtype=float).ravel()
     size = int(x.size)
-    if 2 < size <= PAIRWISE_MAX_N:
+    counted = _discordant_and_ties(x) if size > 2 else None
+    if counted is not None:
+        dis, cnt = counted
         tot = (size * (size - 1)) // 2
-        dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
-        cnt = np.unique(x, return_counts=True)[1].astype("int64", copy=False)
         cnt = cnt[cnt > 1]
         ytie = int((cnt * (cnt - 1) // 2).sum())
         y0 = int((cnt * (cnt - 1.0) * (cnt - 2)).sum())
