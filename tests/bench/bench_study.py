@@ -116,9 +116,10 @@ def main(argv=None) -> int:
         summary.append(f"{label.split(',')[0]} {om:.1f} ms ({gm / om:.1f}x)")
         normal = label.startswith("normal")
         row(
-            f"One study, 125 readings, {label}: CPU time, median of {args.repeat} warm runs "
+            f"One study, 125 readings, {label} (the study `studykit analyze` runs, default "
+            f"options): CPU time, median of {args.repeat} warm runs "
             f"(min {o0:.1f} ms; load average {os.getloadavg()[0]:.1f})",
-            "analyze_characteristic(data, spec) (the study of `studykit analyze`, default options)",
+            "analyze_characteristic(data, spec)",
             om,
             "ms",
             baseline_name="scipy.stats fits of the 15 families alone, median",
