@@ -94,24 +94,73 @@ class _LabelAcc:
         return self.labels()[self.result_codes()]
 
 
+def _text_times(cells: np.ndarray, fmt: str | None):
+    """``times_chunk`` of a chunk of text cells (CSV) in one parse, or None.
+
+    The format is found as :func:`times_chunk` finds it (on the first 500 filled cells, or the
+    format of the chunks before); then the raw cells are parsed with it at once, without stripping each cell in Python. The exact
+    format rejects a cell with blanks around it (or of blanks only), so a successful parse
+    reads every cell as the stripped one would be read. Returns ``(times, format, filled)``
+    (``filled``: the cell is not empty), or None when anything needs the cell-by-cell route.
+    """
+    import pandas as pd
+
+    if fmt is not None:  # the format of the chunks before: times_chunk would try it alone
+        try:
+            out = pd.to_datetime(cells, format=fmt)
+        except (ValueError, TypeError):
+            return None
+        return np.array(out, dtype="datetime64[ns]"), fmt, np.asarray(cells != "", dtype=bool)
+    sample = []
+    for v in cells:
+        t = v.strip() if isinstance(v, str) else None
+        if t is None:
+            return None
+        if t:
+            sample.append(t)
+            if len(sample) == 500:
+                break
+    if not sample:
+        return None
+    head = np.empty(len(sample), dtype=object)
+    head[:] = sample
+    parsed, f = times_chunk(head, fmt)
+    if parsed is None or f is None:
+        return None
+    try:
+        out = pd.to_datetime(cells, format=f)
+    except (ValueError, TypeError):
+        return None
+    return np.array(out, dtype="datetime64[ns]"), f, np.asarray(cells != "", dtype=bool)
+
+
 class _TimeAcc:
     """Time cells, converted chunk by chunk to datetime64 while one format fits."""
 
-    def __init__(self):
+    def __init__(self, text_cells: bool = False):
         self.parts: list[np.ndarray] = []
         self.fmt: str | None = None
         self.as_text = False
+        self.text_cells = text_cells
 
-    def add(self, cells: np.ndarray) -> None:
+    def add(self, cells: np.ndarray) -> np.ndarray | None:
+        """Add a chunk; returns its filled mask when the fast route of text cells knew it."""
         if not self.as_text:
+            if self.text_cells:
+                fast = _text_times(cells, self.fmt)
+                if fast is not None:
+                    parsed, self.fmt, filled = fast
+                    self.parts.append(parsed)
+                    return filled
             parsed, fmt = times_chunk(cells, self.fmt)
             if parsed is not None:
                 self.fmt = fmt or self.fmt
                 self.parts.append(parsed)
-                return
+                return None
             self.as_text = True
             self.parts = [times_text(p) for p in self.parts]
         self.parts.append(times_text(cells))
+        return None
 
     def result(self, notes: list) -> np.ndarray:
         if self.as_text:
@@ -172,7 +221,7 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
         rows_acc = Acc()
         filled_acc = Acc()
         value_acc = {j: Acc() for j in float_cols}
-        sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(), _LabelAcc()
+        sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(table.text_cells), _LabelAcc()
         for rows, cols in chunks:
             row_filled = np.zeros(len(rows), dtype=bool)
             for j, cells in enumerate(cols):
@@ -184,14 +233,17 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
                     vals, empty = numeric(ctx, cells, rows, header[j])
                     value_acc[j].add(vals)
                     row_filled |= ~empty
+                elif k == "time":
+                    filled = t_acc.add(cells)
+                    row_filled |= (
+                        filled if filled is not None else filled_mask(cells, table.text_cells)
+                    )
                 else:
                     row_filled |= filled_mask(cells, table.text_cells)
                     if k == "text":
                         check_text_column(src.name, cells, rows, header[j])
                     elif k == "subgroup":
                         sg_acc.add(label_array(cells, table.text_cells))
-                    elif k == "time":
-                        t_acc.add(cells)
                     elif k == "note":
                         n_acc.add(label_array(cells, table.text_cells))
             rows_acc.add(rows)
@@ -475,7 +527,12 @@ def assemble_long(
 
     def collect(chunks):
         name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), Acc(), Acc(), Acc()
-        sg_acc, t_acc, n_acc, unit_acc = _LabelAcc(), _TimeAcc(), _LabelAcc(), _LabelAcc()
+        sg_acc, t_acc, n_acc, unit_acc = (
+            _LabelAcc(),
+            _TimeAcc(table.text_cells),
+            _LabelAcc(),
+            _LabelAcc(),
+        )
         for rows, cols in chunks:
             for j in range(len(cols)):
                 if j >= len(header) or not header[j]:

@@ -167,10 +167,15 @@ class VarianceComponents:
 
 
 def _codes(labels):
-    lab = np.asarray(labels).astype(str)
-    order = {}
-    codes = np.array([order.setdefault(v, len(order)) for v in lab.tolist()], dtype=int)
-    return codes, len(order)
+    """Integer codes of the labels in order of first appearance, and their number."""
+    lab = np.asarray(labels).astype(str).reshape(-1)
+    ordered = np.sort(lab)
+    if not np.any(ordered[1:] == ordered[:-1]):  # all distinct (individuals): codes = positions
+        return np.arange(lab.size), int(lab.size)
+    _, first, inv = np.unique(lab, return_index=True, return_inverse=True)
+    rank = np.empty(first.size, dtype=int)
+    rank[np.argsort(first)] = np.arange(first.size)
+    return rank[inv.reshape(-1)], int(first.size)
 
 
 def variance_components(values, subgroups) -> VarianceComponents:

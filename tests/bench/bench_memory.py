@@ -29,6 +29,7 @@ the bootstrap's). Targets (issues 12 and 14): the default study of 4.4 M reading
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import resource
 import subprocess
@@ -38,6 +39,8 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 FLOOR = """
 import sys, numpy as np
@@ -163,6 +166,30 @@ def report(res: dict, *, n: int, time_target: float | None, rss_target: float) -
     goals.append(f"time within 5x: {'met' if ok and min(rw, rc_) <= 5 else 'NOT met'}")
     goals.append(f"memory within 10x: {'met' if ok and rt <= 10 else 'NOT met'}")
     print("  targets: " + "; ".join(goals))
+    from figure_rows import row
+
+    what = f"{n:,} individual readings, default study"
+    load = f" (load average {os.getloadavg()[0]:.1f})"
+    row(
+        f"{what}: CPU time (user + system), fresh process, best of the runs{load}",
+        res["command"],
+        a["cpu"] if ok else math.inf,
+        "s",
+        baseline_name="floor: read_measurements + mean/sd, CPU time",
+        baseline=f["cpu"],
+        goal=f"<= {time_target:g} s, <= 5x floor" if time_target is not None else "<= 5x floor",
+        met=ok and rc_ <= 5 and (time_target is None or a["cpu"] <= time_target),
+    )
+    row(
+        f"{what}: peak RSS",
+        res["command"],
+        a["rss"] if ok else math.inf,
+        "MB",
+        baseline_name="floor's peak RSS",
+        baseline=f["rss"],
+        goal=f"<= {rss_target:.0f} MB, <= 10x floor",
+        met=ok and a["rss"] <= rss_target and rt <= 10,
+    )
     print(
         f"summary: {n:,} readings analyze {a['wall']:.1f} s wall / {a['cpu']:.1f} s CPU, "
         f"{a['rss']:.0f} MB; floor {f['wall']:.1f} s / {f['cpu']:.1f} s, {f['rss']:.0f} MB"
