@@ -100,7 +100,7 @@ def test_exclude_sign_lock_override_log(files, capsys):
                 "sign",
                 path,
                 "--role",
-                "approved",
+                "Approver",  # the role's name as shown (names.ROLES); the id "approved" works too
                 "--decision",
                 "approve",
                 "--who",

@@ -314,7 +314,16 @@ def _measurement_error_lines(me: dict) -> list[str]:
     return lines
 
 
-def _stream_lines(st: dict) -> list[str]:
+def _value(v, lsl, usl) -> str:
+    """A value in measured units: enough decimals for 1/100 of the tolerance (names.py rule)."""
+    if v is None:
+        return "-"
+    if lsl is not None and usl is not None:
+        return names.format_value(v, lsl, usl)
+    return _fmt(v, 6)
+
+
+def _stream_lines(st: dict, lsl=None, usl=None) -> list[str]:
     """Per-stream table, the two tests and the worst stream."""
     lines = [f"streams ({len(st['names'])}): worst {st['worst'] or '-'}"]
     for row in st["per_stream"]:
@@ -325,7 +334,7 @@ def _stream_lines(st: dict) -> list[str]:
         mark = {True: "meets", False: "does not meet", None: "not judged"}[v.get("meets")]
         idx = _PRETTY.get(v.get("index"), v.get("index") or "")
         lines.append(
-            f"  {row['stream']:>8s}  n {row['n']:4d}  mean {_fmt(row['mean'], 6)}  "
+            f"  {row['stream']:>8s}  n {row['n']:4d}  mean {_value(row['mean'], lsl, usl)}  "
             f"overall sigma {_fmt(row['overall_sigma'], 4)}  {idx} "
             f"{_fmt(v.get('estimate'), 3)} (bound {_fmt(v.get('lower_bound'), 3)})  "
             f"{mark}"
@@ -336,8 +345,8 @@ def _stream_lines(st: dict) -> list[str]:
     g = st.get("group_chart")
     if g:
         lines.append(
-            f"  group chart: centre {_fmt(g['center'], 6)}  LCL {_fmt(g['lcl'], 6)}  "
-            f"UCL {_fmt(g['ucl'], 6)}; {len(g['beyond'])} stream mean(s) beyond"
+            f"  group chart: centre {_value(g['center'], lsl, usl)}  "
+            f"LCL {_value(g['lcl'], lsl, usl)}  UCL {_value(g['ucl'], lsl, usl)}; {len(g['beyond'])} stream mean(s) beyond"
         )
         for r in (g.get("run_rule") or {}).get("signals", []):  # one stream on top (bottom)
             lines.append(
@@ -361,15 +370,7 @@ def format_result(res) -> str:
     lsl, usl = spec["lsl"], spec["usl"]
 
     def val(v):  # a value in measured units: enough decimals for 1/100 of the tolerance
-        return (
-            "-"
-            if v is None
-            else (
-                names.format_value(v, lsl, usl)
-                if lsl is not None and usl is not None
-                else _fmt(v, 6)
-            )
-        )
+        return _value(v, lsl, usl)
 
     lines.append(f"specification: LSL {_fmt(lsl)}  USL {_fmt(usl)}  target {_fmt(spec['target'])}")
     for c in d["cautions"]:
@@ -396,8 +397,8 @@ def format_result(res) -> str:
     if ch.get("probability_limits"):
         pl = ch["probability_limits"]
         lines.append(
-            f"  probability limits in measured units: LCL {_fmt(pl['lcl'], 6)}  centre "
-            f"{_fmt(pl['center'], 6)}  UCL {_fmt(pl['ucl'], 6)}"
+            f"  probability limits in measured units: LCL {val(pl['lcl'])}  centre "
+            f"{val(pl['center'])}  UCL {val(pl['ucl'])}"
         )
     if d.get("order") and d["order"]["flagged"]:
         lines.append(f"order: {d['order']['status']} - run rules not applied")
@@ -468,7 +469,7 @@ def format_result(res) -> str:
     if d.get("measurement_error"):
         lines += _measurement_error_lines(d["measurement_error"])
     if d.get("streams"):
-        lines += _stream_lines(d["streams"])
+        lines += _stream_lines(d["streams"], lsl, usl)
     tm = d.get("time_model")
     if tm:
         lines.append(

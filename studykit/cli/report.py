@@ -6,6 +6,7 @@ import os
 import sys
 from pathlib import Path
 
+from studykit import names
 from studykit.errors import StudyInputError
 
 
@@ -34,7 +35,8 @@ def register(sub) -> None:
     p.add_argument(
         "--role",
         default="prepared",
-        help="role of the signer: prepared, reviewed, approved (default prepared)",
+        type=names.role_id,
+        help="role of the signer: Author, Reviewer or Approver (default Author)",
     )
     p.add_argument(
         "--name",

@@ -169,7 +169,8 @@ def register(subparsers) -> None:
     sign.add_argument(
         "--role",
         required=True,
-        help="prepared, reviewed, approved (approved + approve locks the study)",
+        type=names.role_id,
+        help="Author, Reviewer or Approver (Approver + approve locks the study)",
     )
     sign.add_argument("--decision", required=True, choices=("approve", "reject", "comment"))
     sign.add_argument(

@@ -390,7 +390,7 @@ def sign_report(
     if not role:
         raise StudyInputError(
             "`role` must not be empty: say what the signature means, e.g. "
-            "prepared, reviewed or approved"
+            "Author, Reviewer or Approver"
         )
     if not name:
         raise StudyInputError("`name` must not be empty: give the signer's name")
