@@ -381,7 +381,6 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     subgroup labels is their time order).
     """
     from studykit.stats.normality import anderson_darling
-    from studykit.stats.streams import spread_test
 
     x = np.asarray(values, dtype=float)
     codes, k = _codes(subgroups)
@@ -397,29 +396,8 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
     vc = variance_components(x, codes)
     means = np.bincount(codes, weights=x, minlength=k) / n_i
     pos = np.arange(1, k + 1, dtype=float)
-    tau = stats.kendalltau(pos, means)
-    trend_sig = bool(tau.pvalue < alpha)
-    # the random part left about a straight line through the subgroup means
-    line = stats.linregress(pos, means)
-    resid = means - (line.intercept + line.slope * pos)
-    ms_resid = vc.n0 * float(np.sum(resid**2)) / (k - 2) if k > 2 else math.nan
-    dfw = vc.n_total - k
-    rf = ms_resid / vc.msw if vc.msw > 0 else math.inf
-    rp = float(stats.f.sf(rf, k - 2, dfw)) if math.isfinite(rf) else 0.0
-    trend = {
-        "tau": float(tau.statistic),
-        "p_value": float(tau.pvalue),
-        "slope": float(line.slope),
-        "residual_f": rf,
-        "residual_p": rp,
-        "significant": trend_sig,
-    }
-    spread = None
-    if np.all(n_i >= 2):
-        try:
-            spread = spread_test(x, codes.astype(str), alpha=alpha, word="subgroup")
-        except StudyInputError:
-            spread = None
+    trend, tau = _trend_evidence(means, pos, vc, k, alpha)
+    spread = _spread_evidence(x, codes, n_i, alpha)
     spread_varies = bool(spread is not None and spread.differ)
     # shape of the resulting distribution (all readings) and of the instantaneous one (each
     # subgroup centred); the class reads the resulting one, which for constant location is the
@@ -446,48 +424,12 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
         f"shape of all readings: Anderson-Darling p = {_p(ad.p_value)} (each "
         f"subgroup centred: p = {_p(ad_within.p_value)})"
     )
-    if spread_varies and (random_loc or trend_sig):
-        cls = "D"
-    elif spread_varies:
-        cls = "B"
-    elif trend_sig:
-        cls = "C4" if rp < alpha else "C3"
-        words.append(f"random part about the trend: F = {_p(rf)}, p = {_p(rp)}")
-    elif random_loc:
-        cls = "C1" if normal else "C2"
-    else:
-        cls = "A1" if normal else "A2"
-    indices: dict = {}
+    cls = _class_of(spread_varies, random_loc, trend, normal, alpha)
     if cls in ("C3", "C4"):
-        tc = trend_capability(x, pos[codes], lsl=lsl, usl=usl)
-        indices = {
-            k2: tc[k2]
-            for k2 in (
-                "pp",
-                "ppk",
-                "ppu",
-                "ppl",
-                "mu_low",
-                "mu_high",
-                "sigma_r",
-                "x0135",
-                "x50",
-                "x99865",
-            )
-        }
-    elif cls == "C1":
-        s = vc.sigma_total
-        mean = float(x.mean())
-        ppu = None if usl is None else (usl - mean) / (3 * s)
-        ppl = None if lsl is None else (mean - lsl) / (3 * s)
-        sides = [v for v in (ppu, ppl) if v is not None]
-        indices = {
-            "pp": None if lsl is None or usl is None else (usl - lsl) / (6 * s),
-            "ppk": min(sides) if sides else None,
-            "ppu": ppu,
-            "ppl": ppl,
-            "sigma": s,
-        }
+        words.append(
+            f"random part about the trend: F = {_p(trend['residual_f'])}, "
+            f"p = {_p(trend['residual_p'])}"
+        )
     return TimeModel(
         cls,
         "; ".join(words),
@@ -496,8 +438,78 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
         trend=trend,
         spread=spread,
         shape=shape,
-        indices=indices,
+        indices=_class_indices(cls, x, pos[codes], vc, lsl, usl),
     )
+
+
+def _trend_evidence(means, pos, vc, k, alpha) -> tuple:
+    """Mann-Kendall trend of the subgroup means and the random part left about the least-squares
+    line: ``(trend dict, Kendall result)``."""
+    tau = stats.kendalltau(pos, means)
+    line = stats.linregress(pos, means)
+    resid = means - (line.intercept + line.slope * pos)
+    ms_resid = vc.n0 * float(np.sum(resid**2)) / (k - 2) if k > 2 else math.nan
+    dfw = vc.n_total - k
+    rf = ms_resid / vc.msw if vc.msw > 0 else math.inf
+    rp = float(stats.f.sf(rf, k - 2, dfw)) if math.isfinite(rf) else 0.0
+    trend = {
+        "tau": float(tau.statistic),
+        "p_value": float(tau.pvalue),
+        "slope": float(line.slope),
+        "residual_f": rf,
+        "residual_p": rp,
+        "significant": bool(tau.pvalue < alpha),
+    }
+    return trend, tau
+
+
+def _spread_evidence(x, codes, n_i, alpha):
+    """Brown-Forsythe test of the subgroups' spread, None when a subgroup has one reading."""
+    from studykit.stats.streams import spread_test
+
+    if not np.all(n_i >= 2):
+        return None
+    try:
+        return spread_test(x, codes.astype(str), alpha=alpha, word="subgroup")
+    except StudyInputError:
+        return None
+
+
+def _class_of(spread_varies, random_loc, trend, normal, alpha) -> str:
+    """The class from the evidence (the table in the module text)."""
+    if spread_varies and (random_loc or trend["significant"]):
+        return "D"
+    if spread_varies:
+        return "B"
+    if trend["significant"]:
+        return "C4" if trend["residual_p"] < alpha else "C3"
+    if random_loc:
+        return "C1" if normal else "C2"
+    return "A1" if normal else "A2"
+
+
+_TREND_KEYS = ("pp", "ppk", "ppu", "ppl", "mu_low", "mu_high", "sigma_r", "x0135", "x50", "x99865")
+
+
+def _class_indices(cls, x, positions, vc, lsl, usl) -> dict:
+    """The indices by the class's method: the trend's travel for C3/C4, sigma_total for C1."""
+    if cls in ("C3", "C4"):
+        tc = trend_capability(x, positions, lsl=lsl, usl=usl)
+        return {key: tc[key] for key in _TREND_KEYS}
+    if cls != "C1":
+        return {}
+    s = vc.sigma_total
+    mean = float(x.mean())
+    ppu = None if usl is None else (usl - mean) / (3 * s)
+    ppl = None if lsl is None else (mean - lsl) / (3 * s)
+    sides = [v for v in (ppu, ppl) if v is not None]
+    return {
+        "pp": None if lsl is None or usl is None else (usl - lsl) / (6 * s),
+        "ppk": min(sides) if sides else None,
+        "ppu": ppu,
+        "ppl": ppl,
+        "sigma": s,
+    }
 
 
 #: Parametric bootstrap samples of the class-method lower bound (:func:`class_bound`).
