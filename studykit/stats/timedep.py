@@ -640,40 +640,10 @@ def class_bound(
     n_i = np.bincount(codes, minlength=k).astype(float)
     means = np.bincount(codes, weights=x, minlength=k) / n_i
     ssw = float(np.sum((x - means[codes]) ** 2))
-    big_n = float(n_i.sum())
     point = _class_stats(cls, means[None, :], n_i, np.array([ssw]), lsl, usl)
-    t = np.arange(1, k + 1, dtype=float)
-    msw = ssw / (big_n - k)
-    if cls == "C1":
-        vc = variance_components(x, codes)
-        centre = np.full(k, float(x.mean()))
-        sw2, sb2 = vc.msw, vc.sigma_between**2
-    else:
-        tbar = float(np.sum(n_i * t) / big_n)
-        slope = float(np.sum(n_i * (t - tbar) * (means - x.mean())) / np.sum(n_i * (t - tbar) ** 2))
-        centre = float(x.mean()) + slope * (t - tbar)
-        if cls == "C3":
-            sse = ssw + float(np.sum(n_i * (means - centre) ** 2))
-            sw2, sb2 = sse / (big_n - 2), 0.0
-        else:
-            n0 = (big_n - float(np.sum(n_i**2)) / big_n) / (k - 1)
-            ms_resid = n0 * float(np.sum((means - centre) ** 2)) / (k - 2)
-            sw2, sb2 = msw, max(0.0, (ms_resid - msw) / n0)
+    centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     seed = _seed_from(x, codes) if seed is None else int(seed)
-    rng = np.random.default_rng(seed)
-    sd_means = np.sqrt(sb2 + sw2 / n_i)
-    chunk = max(1, min(n_boot, _CHUNK_CELLS // max(k, 1)))
-    draws: dict = {"pp": [], "ppk": []}
-    done = 0 if sw2 + sb2 > 0 else n_boot  # no spread: no index, so no bound
-    while done < n_boot:
-        m = min(chunk, n_boot - done)
-        bm = centre + sd_means * rng.standard_normal((m, k))
-        bssw = sw2 * rng.chisquare(big_n - k, m)
-        st = _class_stats(cls, bm, n_i, bssw, lsl, usl)
-        for key in draws:
-            if st[key] is not None:
-                draws[key].append(np.asarray(st[key], dtype=float))
-        done += m
+    draws = _class_draws(cls, centre, sw2, sb2, n_i, n_boot, seed, lsl, usl)
     out = {
         "pp": None if point["pp"] is None else float(point["pp"][0]),
         "ppk": None if point["ppk"] is None else float(point["ppk"][0]),
@@ -694,3 +664,47 @@ def class_bound(
             q = float(np.quantile(samples, level))
             out[f"{key}_lower"] = est * est / q if est > 0 and q > 0 else 2 * est - q
     return out
+
+
+def _class_model(cls, x, codes, means, n_i, ssw) -> tuple:
+    """``(centre per subgroup, sigma_w^2, sigma_b^2)`` of the class model :func:`class_bound`
+    samples: the grand mean (C1) or the weighted least-squares line of the subgroup means (C3,
+    C4), with the within and between variances of the class."""
+    k = means.size
+    big_n = float(n_i.sum())
+    t = np.arange(1, k + 1, dtype=float)
+    msw = ssw / (big_n - k)
+    if cls == "C1":
+        vc = variance_components(x, codes)
+        return np.full(k, float(x.mean())), vc.msw, vc.sigma_between**2
+    tbar = float(np.sum(n_i * t) / big_n)
+    slope = float(np.sum(n_i * (t - tbar) * (means - x.mean())) / np.sum(n_i * (t - tbar) ** 2))
+    centre = float(x.mean()) + slope * (t - tbar)
+    if cls == "C3":
+        sse = ssw + float(np.sum(n_i * (means - centre) ** 2))
+        return centre, sse / (big_n - 2), 0.0
+    n0 = (big_n - float(np.sum(n_i**2)) / big_n) / (k - 1)
+    ms_resid = n0 * float(np.sum((means - centre) ** 2)) / (k - 2)
+    return centre, msw, max(0.0, (ms_resid - msw) / n0)
+
+
+def _class_draws(cls, centre, sw2, sb2, n_i, n_boot, seed, lsl, usl) -> dict:
+    """Pp and Ppk of ``n_boot`` samples of the class model, in blocks of at most
+    ``_CHUNK_CELLS`` numbers (``{"pp": [arrays], "ppk": [arrays]}``; empty with no spread)."""
+    k = centre.size
+    big_n = float(n_i.sum())
+    rng = np.random.default_rng(seed)
+    sd_means = np.sqrt(sb2 + sw2 / n_i)
+    chunk = max(1, min(n_boot, _CHUNK_CELLS // max(k, 1)))
+    draws: dict = {"pp": [], "ppk": []}
+    done = 0 if sw2 + sb2 > 0 else n_boot  # no spread: no index, so no bound
+    while done < n_boot:
+        m = min(chunk, n_boot - done)
+        bm = centre + sd_means * rng.standard_normal((m, k))
+        bssw = sw2 * rng.chisquare(big_n - k, m)
+        st = _class_stats(cls, bm, n_i, bssw, lsl, usl)
+        for key in draws:
+            if st[key] is not None:
+                draws[key].append(np.asarray(st[key], dtype=float))
+        done += m
+    return draws
