@@ -391,35 +391,13 @@ def group_chart(values, subgroups, streams) -> GroupChart:
     hi_i, lo_i = hi_m.argmax(axis=1), lo_m.argmin(axis=1)
     rows = np.arange(len(labels))
     high, low = hi_m[rows, hi_i], lo_m[rows, lo_i]
-    cell_n = count[count > 0]
-    n = int(np.median(cell_n))
-    if n >= 2:
-        ratios = []
-        for i in range(shape[0]):
-            for j in range(shape[1]):
-                k = int(count[i, j])
-                if k >= 2:
-                    cell = x[(r == i) & (c == j)]
-                    ratios.append((cell.max() - cell.min()) / d2(k))
-        sigma = float(np.mean(ratios))
-    else:
-        per_stream = []
-        for j in range(shape[1]):
-            s = x[c == j]
-            if s.size >= 2:
-                per_stream.append(np.mean(np.abs(np.diff(s))) / d2(2))
-        sigma = float(np.mean(per_stream))
+    n = int(np.median(count[count > 0]))
+    sigma = _group_sigma(x, r, c, count, n)
     center = float(np.nanmean(means))
     half = 3 * sigma / np.sqrt(n)
     lcl, ucl = center - half, center + half
     names_arr = np.asarray(names)
-    beyond = []
-    for i, lab in enumerate(labels):
-        for j in range(shape[1]):
-            if count[i, j] and means[i, j] > ucl:
-                beyond.append((lab, names[j], "above"))
-            elif count[i, j] and means[i, j] < lcl:
-                beyond.append((lab, names[j], "below"))
+    beyond = _beyond(labels, names, count, means, lcl, ucl)
     high_stream, low_stream = names_arr[hi_i], names_arr[lo_i]
     r_len = run_rule_length(len(names))
     return GroupChart(
@@ -445,3 +423,35 @@ def group_chart(values, subgroups, streams) -> GroupChart:
         ),
         n_streams=len(names),
     )
+
+
+def _group_sigma(x, r, c, count, n) -> float:
+    """Within sigma of the group chart: mean of cell range / d2 (cells of 2 or more readings),
+    or with cells of one reading the mean moving range of each stream / d2(2)."""
+    if n >= 2:
+        ratios = []
+        for i in range(count.shape[0]):
+            for j in range(count.shape[1]):
+                k = int(count[i, j])
+                if k >= 2:
+                    cell = x[(r == i) & (c == j)]
+                    ratios.append((cell.max() - cell.min()) / d2(k))
+        return float(np.mean(ratios))
+    per_stream = []
+    for j in range(count.shape[1]):
+        s = x[c == j]
+        if s.size >= 2:
+            per_stream.append(np.mean(np.abs(np.diff(s))) / d2(2))
+    return float(np.mean(per_stream))
+
+
+def _beyond(labels, names, count, means, lcl, ucl) -> list:
+    """``(subgroup, stream, "above"|"below")`` of every stream mean beyond the limits."""
+    out = []
+    for i, lab in enumerate(labels):
+        for j in range(len(names)):
+            if count[i, j] and means[i, j] > ucl:
+                out.append((lab, names[j], "above"))
+            elif count[i, j] and means[i, j] < lcl:
+                out.append((lab, names[j], "below"))
+    return out
