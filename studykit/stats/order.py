@@ -171,22 +171,9 @@ def check_order(
             n,
             f"only {n} values: the order was not checked (fewer than {MIN_VALUES}).",
         )
-    d = np.diff(x)
-    if np.all(d == 0):
-        return OrderCheck("in_order", False, None, None, None, n, "every value is the same.")
-    if np.all(d >= 0) or np.all(d <= 0):
-        direction = "increasing" if np.all(d >= 0) else "decreasing"
-        return OrderCheck(
-            "sorted",
-            True,
-            1.0 if direction == "increasing" else -1.0,
-            None,
-            direction,
-            n,
-            f"the {n} values are sorted ({direction} throughout the file): the file is not in "
-            "production order, so stability cannot be judged from it. Put the values in the "
-            "order the parts were made (with a time or sequence column) to judge stability.",
-        )
+    monotone = _monotone(x, n)
+    if monotone is not None:
+        return monotone
     tau, p = kendall_tau_position(x)
     if math.isfinite(tau) and abs(tau) >= TAU_SORTED and p < ALPHA:
         direction = "increasing" if tau > 0 else "decreasing"
@@ -212,6 +199,27 @@ def check_order(
         None,
         n,
         f"no sign of sorted data (Kendall's tau against position {tau:.2f}).",
+    )
+
+
+def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
+    """The check of values that are all equal or sorted throughout; None otherwise."""
+    d = np.diff(x)
+    if np.all(d == 0):
+        return OrderCheck("in_order", False, None, None, None, n, "every value is the same.")
+    if not (np.all(d >= 0) or np.all(d <= 0)):
+        return None
+    direction = "increasing" if np.all(d >= 0) else "decreasing"
+    return OrderCheck(
+        "sorted",
+        True,
+        1.0 if direction == "increasing" else -1.0,
+        None,
+        direction,
+        n,
+        f"the {n} values are sorted ({direction} throughout the file): the file is not in "
+        "production order, so stability cannot be judged from it. Put the values in the "
+        "order the parts were made (with a time or sequence column) to judge stability.",
     )
 
 
