@@ -34,7 +34,6 @@ from studykit.stats import transform as transform_module
 from studykit.stats._checks import check_resolution
 from studykit.stats.capability import (
     Finding,
-    _percentile_indices,
     capability,
     diagnose,
     effective_df_moving_range,
@@ -42,6 +41,7 @@ from studykit.stats.capability import (
     effective_df_stdev,
     judge,
     model_band,
+    percentile_indices,
 )
 from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
@@ -2185,7 +2185,7 @@ def _band_estimates(x, spec, ranking, ad_normal, key, level):
         if model is None:
             continue
         try:
-            indices, _ = _percentile_indices(model, spec.lsl, spec.usl)
+            indices, _ = percentile_indices(model, spec.lsl, spec.usl)
         except StudyInputError:
             continue
         v = indices.get(key)

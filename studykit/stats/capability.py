@@ -328,7 +328,7 @@ def _normal_indices(mean, sigma, lsl, usl):
     return both, k, upper, lower
 
 
-def _percentile_indices(model, lsl, usl):
+def percentile_indices(model, lsl, usl):
     if bootstrap.is_family_model(model):  # model.ppf's numbers without a frozen scipy object
         q = model.family.quantile(bootstrap.PROBS, dict(model.parameters))
     else:
@@ -783,7 +783,7 @@ def _model_method(
 ):
     """A fitted model: fills ``values`` and ``alternatives``; returns the bootstrap bounds and
     the overall PPM."""
-    perc, quantiles = _percentile_indices(model, lsl, usl)
+    perc, quantiles = percentile_indices(model, lsl, usl)
     equiv = _equivalent_indices(model, lsl, usl)
     main, other = (perc, equiv) if method == "percentile" else (equiv, perc)
     other_name = "equivalent_ppm" if method == "percentile" else "percentile"
@@ -901,7 +901,7 @@ def _bootstrap_draws_generic(model, n, lsl, usl, method, n_boot, rng, values):
         try:
             refit = model.family.fit(sample)
             if method == "percentile":
-                idx, _ = _percentile_indices(refit, lsl, usl)
+                idx, _ = percentile_indices(refit, lsl, usl)
             else:
                 idx = _equivalent_indices(refit, lsl, usl)
         except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
