@@ -1738,8 +1738,12 @@ def _verdict_and_findings(
         finding, verdict = _signals_with_kept(chart, verdict, kept_keys, kept_rows, p1.chance)
         findings[:0] = finding
     elif chart.signals:
-        finding, verdict = _not_in_control(chart, verdict, p1.chance)
-        findings.insert(0, finding)
+        by_class, explained = _explained_by_class(chart, time_model, time_readings)
+        if not explained:
+            finding, verdict = _not_in_control(chart, verdict, p1.chance)
+            findings.insert(0, finding)
+        if by_class is not None:
+            findings.insert(0 if explained else 1, by_class)
     if withheld:
         verdict = _withhold(verdict, withheld)
         findings[:0] = list(withheld)
@@ -1758,6 +1762,23 @@ def _verdict_and_findings(
         verdict = intervals.judge_with_interval(verdict, ti)
         interval = intervals.interval_block(ti)
     return verdict, findings, interval, time_model, time_findings
+
+
+def _explained_by_class(chart, time_model, time_readings):
+    """``(finding or None, explained)``: whether the time-dependent class explains every point
+    beyond the control limits (studykit/time_model.py)."""
+    from studykit.time_model import signals_explained
+
+    if time_model is None or time_model.cls not in ("C1", "C3", "C4"):
+        return None, False
+    beyond = {}
+    for part, series in (("location", chart.location), ("dispersion", chart.dispersion)):
+        labels = []
+        for sig in series.signals if series is not None else ():
+            if sig.rule == "beyond_limits":
+                labels += _signal_labels(chart, sig)
+        beyond[part] = list(dict.fromkeys(labels))
+    return signals_explained(time_model, *time_readings, beyond["location"], beyond["dispersion"])
 
 
 def _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings):

@@ -400,6 +400,7 @@ FINDING_TITLES: Mapping[str, str] = {
     "gauge_failed": "Gauge not acceptable",
     "gauge_not_checked": "Gauge not checked",
     "gauge_error_large": "Gauge error large",
+    "moves_by_class": "Signals explained by the time-dependent model",
 }
 
 

@@ -28,7 +28,7 @@ from studykit.errors import StudyInputError
 from studykit.stats import timedep
 from studykit.stats.capability import Finding, judge
 
-__all__ = ["time_model_for", "time_model_verdict"]
+__all__ = ["time_model_for", "time_model_verdict", "signals_explained"]
 
 _TEXT = {
     "B": "the spread changes between subgroups",
@@ -175,3 +175,56 @@ def _finding(tm, basis, old) -> tuple:
         if basis.get("caution"):
             tail += f" Caution: {basis['caution']}."
     return (Finding(code="time_model", severity="warning", text=head + tail),)
+
+
+def signals_explained(tm, values, labels, beyond_location, beyond_dispersion) -> tuple:
+    """``(finding or None, explained)``: whether every point beyond the control limits is a
+    subgroup mean that the time-dependent class (C1, C3, C4) expects. The location moves as the
+    class describes (at random, or along a trend), so such points are not special causes.
+
+    ``explained`` is True when every point beyond the limits is a subgroup mean within the
+    class model's limits (:func:`studykit.stats.timedep.class_limits`) and no dispersion point
+    is beyond its limits (the class says nothing about the spread); the finding then says so.
+    When the location points are within the class's limits but a dispersion point is not, the
+    finding says that only the dispersion signal is left (``explained`` False). No finding
+    when the class does not move the location or a subgroup mean lies outside the class
+    model's limits too.
+
+    ``beyond_location`` and ``beyond_dispersion`` are the subgroup labels (text) of the points
+    beyond the limits on the final chart; ``values``/``labels`` every reading but the recorded
+    removals (the readings the class was found on).
+    """
+    if tm is None or tm.cls not in ("C1", "C3", "C4") or not beyond_location:
+        return None, False
+    try:
+        lim = timedep.class_limits(values, labels, tm.cls)
+    except StudyInputError:
+        return None, False
+    known = set(lim["labels"])
+    if not set(beyond_location) <= known or set(beyond_location) & set(lim["beyond"]):
+        return None, False
+    shown = ", ".join(list(beyond_location)[:8]) + (" ..." if len(beyond_location) > 8 else "")
+    how = (
+        "the grand mean"
+        if tm.cls == "C1"
+        else "the least-squares line of the subgroup means (the trend)"
+    )
+    head = (
+        f"The {len(beyond_location)} subgroup mean(s) beyond the control limits (subgroups "
+        f"{shown}) lie within the limits of the time-dependent model {tm.cls} (ISO 22514-2, "
+        f"from memory): {_TEXT[tm.cls]}, and every subgroup mean is within {how} +/- 3 "
+        "sigma of a subgroup mean under that model (ours). They are read as the movement the "
+        "class describes, not as special causes."
+    )
+    if beyond_dispersion:
+        tail = (
+            " The dispersion chart still has point(s) beyond its limits (subgroups "
+            f"{', '.join(beyond_dispersion)}): the class says nothing about those, so the "
+            "verdict stays withheld until they are explained and recorded."
+        )
+        return Finding(code="moves_by_class", severity="warning", text=head + tail), False
+    tail = (
+        " The verdict is given on the class's index. Confirm that the movement is planned and "
+        "controlled (e.g. a tool change interval) and record it."
+    )
+    return Finding(code="moves_by_class", severity="warning", text=head + tail), True

@@ -77,6 +77,7 @@ __all__ = [
     "trend_capability",
     "travel_cdf",
     "class_bound",
+    "class_limits",
     "N_BOOT",
 ]
 
@@ -708,3 +709,47 @@ def _class_draws(cls, centre, sw2, sb2, n_i, n_boot, seed, lsl, usl) -> dict:
                 draws[key].append(np.asarray(st[key], dtype=float))
         done += m
     return draws
+
+
+def class_limits(values, subgroups, cls: str) -> dict:
+    """Where the class model expects each subgroup mean (C1, C3, C4): the location chart of a
+    process whose location moves by its class.
+
+    The centre is the grand mean (C1) or the weighted least-squares line of the subgroup means
+    (C3, C4); the limits are 3 sigma of a subgroup mean under the class model,
+    ``3 sqrt(sigma_b^2 + sigma_w^2 / n_j)`` with the variances :func:`class_bound` samples from
+    (C1: the ANOVA components; C3: sigma_r about the line, no between part; C4: the between part
+    left about the line). Ours: the 3-sigma rule of a Shewhart chart (Shewhart 1931) applied to
+    the class model's distribution of a subgroup mean; the acceptance of a systematic or random
+    location change as part of the process follows ISO 22514-2's time-dependent models (from
+    memory).
+
+    Returns ``{"labels", "means", "centre", "half", "beyond"}``: labels in order of first
+    appearance (as text), subgroup means, centre and half-width per subgroup, and the labels of
+    the subgroups whose mean lies outside.
+
+    Examples
+    --------
+    >>> x = [10.0, 10.2, 10.1, 11.0, 11.2, 11.1, 12.0, 12.2, 12.1, 13.0, 13.2, 13.1]
+    >>> out = class_limits(x, [1, 1, 1, 2, 2, 2, 3, 3, 3, 4, 4, 4], "C3")
+    >>> out["labels"], out["beyond"]
+    (['1', '2', '3', '4'], [])
+    """
+    if cls not in ("C1", "C3", "C4"):
+        raise StudyInputError(f"no class-model limits for class {cls!r} (only C1, C3, C4).")
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    n_i = np.bincount(codes, minlength=k).astype(float)
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    ssw = float(np.sum((x - means[codes]) ** 2))
+    centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
+    half = 3.0 * np.sqrt(sb2 + sw2 / n_i)
+    labels = list(dict.fromkeys(np.asarray(subgroups).astype(str).reshape(-1).tolist()))
+    out_of = np.abs(means - centre) > half
+    return {
+        "labels": labels,
+        "means": means,
+        "centre": centre,
+        "half": half,
+        "beyond": [labels[i] for i in np.flatnonzero(out_of)],
+    }
