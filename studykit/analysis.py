@@ -1778,7 +1778,13 @@ def _explained_by_class(chart, time_model, time_readings):
             if sig.rule == "beyond_limits":
                 labels += _signal_labels(chart, sig)
         beyond[part] = list(dict.fromkeys(labels))
-    return signals_explained(time_model, *time_readings, beyond["location"], beyond["dispersion"])
+    return signals_explained(
+        time_model,
+        *time_readings,
+        beyond["location"],
+        beyond["dispersion"],
+        names.chart_part_label(chart.kind, "dispersion"),
+    )
 
 
 def _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings):

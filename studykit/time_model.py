@@ -177,7 +177,9 @@ def _finding(tm, basis, old) -> tuple:
     return (Finding(code="time_model", severity="warning", text=head + tail),)
 
 
-def signals_explained(tm, values, labels, beyond_location, beyond_dispersion) -> tuple:
+def signals_explained(
+    tm, values, labels, beyond_location, beyond_dispersion, dispersion_name="range chart"
+) -> tuple:
     """``(finding or None, explained)``: whether every point beyond the control limits is a
     subgroup mean that the time-dependent class (C1, C3, C4) expects. The location moves as the
     class describes (at random, or along a trend), so such points are not special causes.
@@ -192,7 +194,8 @@ def signals_explained(tm, values, labels, beyond_location, beyond_dispersion) ->
 
     ``beyond_location`` and ``beyond_dispersion`` are the subgroup labels (text) of the points
     beyond the limits on the final chart; ``values``/``labels`` every reading but the recorded
-    removals (the readings the class was found on).
+    removals (the readings the class was found on); ``dispersion_name`` the dispersion chart's
+    name as shown (:func:`studykit.names.chart_part_label`).
     """
     if tm is None or tm.cls not in ("C1", "C3", "C4") or not beyond_location:
         return None, False
@@ -218,7 +221,7 @@ def signals_explained(tm, values, labels, beyond_location, beyond_dispersion) ->
     )
     if beyond_dispersion:
         tail = (
-            " The dispersion chart still has point(s) beyond its limits (subgroups "
+            f" The {dispersion_name} still has point(s) beyond its limits (subgroups "
             f"{', '.join(beyond_dispersion)}): the class says nothing about those, so the "
             "verdict stays withheld until they are explained and recorded."
         )
