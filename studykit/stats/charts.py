@@ -32,6 +32,7 @@ Choices (each stated once here and in the result's ``reason`` / ``sigma_method``
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from collections.abc import Sequence
@@ -696,6 +697,7 @@ def _within_sigma(method, x, sizes, ranges, sds):
 # --------------------------------------------------------------------------- variables
 
 
+# long: signature and numpydoc docstring take 77 lines; the body is a sequence of named steps
 def control_chart(
     values,
     subgroups=None,
@@ -784,12 +786,7 @@ def control_chart(
             rules=rules,
             evaluate=evaluate,
         )
-    if kind != "auto" and kind not in VARIABLE_KINDS:
-        raise StudyInputError(
-            f"`kind` ({kind!r}) is not a chart we know; use one of 'auto', "
-            + ", ".join(repr(k) for k in VARIABLE_KINDS + ATTRIBUTE_KINDS)
-            + "."
-        )
+    _check_variable_kind(kind)
     options = {
         "kind": kind,
         "sigma_method": sigma_method,
@@ -804,57 +801,13 @@ def control_chart(
     codes, labels, sizes_arr = _group(x, subgroups)
     sig_labels = None if subgroups is None else labels  # None: the rules number points 1, 2...
     k = sizes_arr.size
-    notes: list[str] = []
     if kind == "auto":
         kind, reason = _auto_kind(sizes_arr)
     else:
         reason = "chosen by the user"
-    if kind == "imr":
-        if sizes_arr.max() > 1:
-            bad = labels[int(np.argmax(sizes_arr > 1))]
-            raise StudyInputError(
-                f"the individuals chart needs one value per subgroup, but subgroup {bad!r} has "
-                f"{int(sizes_arr.max())}; use an X-bar/R or X-bar/S chart (xbar-r, xbar-s), or "
-                "analyse the values as individuals without subgroups."
-            )
-    else:
-        if sizes_arr.min() < 2:
-            bad = labels[int(np.argmin(sizes_arr))]
-            raise AnalysisError(
-                f"subgroup {bad!r} has a single value; {kind} charts need at least 2 values per "
-                "subgroup. Merge or exclude it, or use the individuals chart (imr)."
-            )
-        if sizes_arr.max() > MAX_SUBGROUP_SIZE:
-            raise AnalysisError(
-                f"the largest subgroup has {int(sizes_arr.max())} values; charts here support up "
-                f"to {MAX_SUBGROUP_SIZE} per subgroup. Split the subgroups."
-            )
-    method = _DEFAULT_SIGMA[kind] if sigma_method is None else sigma_method
-    if method not in _SIGMA_METHODS[kind]:
-        raise StudyInputError(
-            f"`sigma_method` ({method!r}) does not apply to the {kind} chart; use one of "
-            + ", ".join(repr(m) for m in _SIGMA_METHODS[kind])
-            + "."
-        )
-    min_groups = 2 if kind != "imr" else 2
-    if k < min_groups and sigma is None:
-        raise AnalysisError(
-            f"only {k} subgroup(s); estimating the within sigma needs at least {min_groups}. "
-            "Collect more data or give a known `sigma`."
-        )
-    if sigma is None and mu is None and k < FEW_SUBGROUPS:
-        notes.append(
-            f"only {k} subgroups: trial limits from fewer than {FEW_SUBGROUPS} subgroups are "
-            "uncertain (Montgomery recommends 20 to 25, from memory)."
-        )
-    if kind == "xbar_r" and sizes_arr.max() > 10:
-        msg = (
-            f"subgroups of up to {int(sizes_arr.max())} values on a range chart: the range "
-            "uses only two values of each subgroup; the X-bar/S chart is more efficient above 10."
-        )
-        notes.append(msg)
-        warnings.warn(msg, LargeSubgroupWarning, stacklevel=2)
-
+    _check_sizes(kind, sizes_arr, labels)
+    method = _sigma_method(kind, sigma_method)
+    notes = _size_notes(kind, sizes_arr, mu, sigma)
     if kind == "imr":
         means, ranges, sds = x, None, None
     else:
@@ -871,81 +824,14 @@ def control_chart(
         method = "known"
     grand = float(x.mean()) if mu is None else mu
     equal = bool(np.all(sizes_arr == sizes_arr[0]))
-
+    draw = functools.partial(_series, evaluate=evaluate, labels=sig_labels)
     if kind == "imr":
-        loc = _series(
-            "individual",
-            x,
-            grand,
-            within,
-            floor_zero=False,
-            rules=rules,
-            evaluate=evaluate,
-            labels=sig_labels,
-        )
-        mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
-        if method == "mrbar":
-            mr_center = float(np.nanmean(mr))  # exactly MR-bar
-        else:
-            mr_center = d2(2) * within
-        mr_sigma = d3(2) * mr_center / d2(2)
-        disp = _series(
-            "moving_range",
-            mr,
-            mr_center,
-            mr_sigma,
-            floor_zero=True,
-            rules=dispersion_rules,
-            evaluate=evaluate,
-            labels=sig_labels,
-        )
+        loc, disp = _imr_series(x, grand, within, method, draw, rules, dispersion_rules)
     else:
-        root_n = np.sqrt(sizes_arr)
-        loc = _series(
-            "xbar",
-            means,
-            grand,
-            within / root_n,
-            floor_zero=False,
-            rules=rules,
-            evaluate=evaluate,
-            labels=sig_labels,
+        loc = draw("xbar", means, grand, within / np.sqrt(sizes_arr), floor_zero=False, rules=rules)
+        disp = _dispersion_series(
+            kind, method, equal, ranges, sds, sizes_arr, within, draw, dispersion_rules
         )
-        if kind == "xbar_r":
-            if method == "rbar" and equal:
-                center = float(ranges.mean()) * np.ones(k)  # exactly R-bar
-                s_disp = center * d3(int(sizes_arr[0])) / d2(int(sizes_arr[0]))
-            else:
-                center = _per_size(d2, sizes_arr) * within
-                s_disp = _per_size(d3, sizes_arr) * within
-            disp = _series(
-                "range",
-                ranges,
-                center,
-                s_disp,
-                floor_zero=True,
-                rules=dispersion_rules,
-                evaluate=evaluate,
-                labels=sig_labels,
-            )
-        else:
-            c4s = _per_size(c4, sizes_arr)
-            if method == "sbar" and equal:
-                center = float(sds.mean()) * np.ones(k)  # exactly S-bar
-                s_disp = center * np.sqrt(1 - c4s**2) / c4s
-            else:
-                center = c4s * within
-                s_disp = within * np.sqrt(1 - c4s**2)
-            disp = _series(
-                "stdev",
-                sds,
-                center,
-                s_disp,
-                floor_zero=True,
-                rules=dispersion_rules,
-                evaluate=evaluate,
-                labels=sig_labels,
-            )
     return ControlChart(
         kind=kind,
         reason=reason,
@@ -967,6 +853,111 @@ def control_chart(
         warnings=tuple(notes),
         options=options,
     )
+
+
+def _check_variable_kind(kind: str) -> None:
+    """Reject a chart kind that is neither "auto" nor a variables chart."""
+    if kind != "auto" and kind not in VARIABLE_KINDS:
+        raise StudyInputError(
+            f"`kind` ({kind!r}) is not a chart we know; use one of 'auto', "
+            + ", ".join(repr(k) for k in VARIABLE_KINDS + ATTRIBUTE_KINDS)
+            + "."
+        )
+
+
+def _check_sizes(kind: str, sizes_arr: np.ndarray, labels) -> None:
+    """Reject subgroup sizes the chart kind cannot take (imr: 1; subgroup charts: 2 to max)."""
+    if kind == "imr":
+        if sizes_arr.max() > 1:
+            bad = labels[int(np.argmax(sizes_arr > 1))]
+            raise StudyInputError(
+                f"the individuals chart needs one value per subgroup, but subgroup {bad!r} has "
+                f"{int(sizes_arr.max())}; use an X-bar/R or X-bar/S chart (xbar-r, xbar-s), or "
+                "analyse the values as individuals without subgroups."
+            )
+        return
+    if sizes_arr.min() < 2:
+        bad = labels[int(np.argmin(sizes_arr))]
+        raise AnalysisError(
+            f"subgroup {bad!r} has a single value; {kind} charts need at least 2 values per "
+            "subgroup. Merge or exclude it, or use the individuals chart (imr)."
+        )
+    if sizes_arr.max() > MAX_SUBGROUP_SIZE:
+        raise AnalysisError(
+            f"the largest subgroup has {int(sizes_arr.max())} values; charts here support up "
+            f"to {MAX_SUBGROUP_SIZE} per subgroup. Split the subgroups."
+        )
+
+
+def _sigma_method(kind: str, sigma_method: str | None) -> str:
+    """The within-sigma estimator: the kind's default, or the one asked for if it applies."""
+    method = _DEFAULT_SIGMA[kind] if sigma_method is None else sigma_method
+    if method not in _SIGMA_METHODS[kind]:
+        raise StudyInputError(
+            f"`sigma_method` ({method!r}) does not apply to the {kind} chart; use one of "
+            + ", ".join(repr(m) for m in _SIGMA_METHODS[kind])
+            + "."
+        )
+    return method
+
+
+def _size_notes(kind: str, sizes_arr: np.ndarray, mu, sigma) -> list[str]:
+    """Check there are enough subgroups; note few subgroups and ranges of large subgroups."""
+    k = sizes_arr.size
+    notes: list[str] = []
+    min_groups = 2
+    if k < min_groups and sigma is None:
+        raise AnalysisError(
+            f"only {k} subgroup(s); estimating the within sigma needs at least {min_groups}. "
+            "Collect more data or give a known `sigma`."
+        )
+    if sigma is None and mu is None and k < FEW_SUBGROUPS:
+        notes.append(
+            f"only {k} subgroups: trial limits from fewer than {FEW_SUBGROUPS} subgroups are "
+            "uncertain (Montgomery recommends 20 to 25, from memory)."
+        )
+    if kind == "xbar_r" and sizes_arr.max() > 10:
+        msg = (
+            f"subgroups of up to {int(sizes_arr.max())} values on a range chart: the range "
+            "uses only two values of each subgroup; the X-bar/S chart is more efficient above 10."
+        )
+        notes.append(msg)
+        warnings.warn(msg, LargeSubgroupWarning, stacklevel=3)  # the caller of control_chart
+    return notes
+
+
+def _imr_series(x, grand, within, method, draw, rules, dispersion_rules) -> tuple:
+    """The individuals and moving-range series."""
+    loc = draw("individual", x, grand, within, floor_zero=False, rules=rules)
+    mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
+    if method == "mrbar":
+        mr_center = float(np.nanmean(mr))  # exactly MR-bar
+    else:
+        mr_center = d2(2) * within
+    mr_sigma = d3(2) * mr_center / d2(2)
+    disp = draw("moving_range", mr, mr_center, mr_sigma, floor_zero=True, rules=dispersion_rules)
+    return loc, disp
+
+
+def _dispersion_series(kind, method, equal, ranges, sds, sizes_arr, within, draw, rules):
+    """The range or standard-deviation series of a subgroup chart."""
+    k = sizes_arr.size
+    if kind == "xbar_r":
+        if method == "rbar" and equal:
+            center = float(ranges.mean()) * np.ones(k)  # exactly R-bar
+            s_disp = center * d3(int(sizes_arr[0])) / d2(int(sizes_arr[0]))
+        else:
+            center = _per_size(d2, sizes_arr) * within
+            s_disp = _per_size(d3, sizes_arr) * within
+        return draw("range", ranges, center, s_disp, floor_zero=True, rules=rules)
+    c4s = _per_size(c4, sizes_arr)
+    if method == "sbar" and equal:
+        center = float(sds.mean()) * np.ones(k)  # exactly S-bar
+        s_disp = center * np.sqrt(1 - c4s**2) / c4s
+    else:
+        center = c4s * within
+        s_disp = within * np.sqrt(1 - c4s**2)
+    return draw("stdev", sds, center, s_disp, floor_zero=True, rules=rules)
 
 
 def xbar_r_chart(values, subgroups, **options) -> ControlChart:
