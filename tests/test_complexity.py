@@ -38,8 +38,6 @@ KNOWN = {
     ("studykit/report/verify.py", "verify_report"),
     ("studykit/specs.py", "read_specs_bytes"),
     ("studykit/stats/capability.py", "capability"),
-    ("studykit/stats/charts.py", "_attribute_chart"),
-    ("studykit/stats/charts.py", "control_chart"),
     ("studykit/stats/solvers.py", "profile_threshold"),  # moved from fit.py
     ("studykit/stats/gauge_type1.py", "short_gauge_study"),
     ("studykit/stats/transform.py", "box_cox"),

@@ -510,7 +510,7 @@ class Labels(Sequence):
             return tuple(self) == tuple(other)
         return NotImplemented
 
-    __hash__ = None
+    __hash__ = None  # type: ignore[assignment]  # unhashable, like a list
 
     def __repr__(self) -> str:
         return f"Labels({tuple(self[:6])!r}{' ...' if len(self) > 6 else ''}, n={len(self)})"
@@ -1000,61 +1000,14 @@ def imr_chart(values, labels=None, **options) -> ControlChart:
 
 
 def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, evaluate):
+    """The p, np, c or u chart (see :func:`control_chart`)."""
     options = {"kind": kind, "standard": standard, "laney": laney, "rules": rules}
-    y = _as_float_array(counts, name="counts")
-    if np.any(y < 0) or np.any(y != np.round(y)):
-        i = int(np.flatnonzero((y < 0) | (y != np.round(y)))[0])
-        raise StudyInputError(
-            f"`counts` must be whole numbers of 0 or more; position {i} holds {y[i]!r}.",
-            value=y[i],
-        )
+    y = _check_counts(counts)
     k = y.size
-    if sizes is None:
-        if kind in ("p", "np"):
-            raise StudyInputError(f"the {kind} chart needs `sizes` (items inspected per subgroup).")
-        n = np.ones(k)
-    else:
-        n = _as_float_array(sizes, name="sizes")
-        if n.size == 1:
-            n = np.full(k, n[0])
-        if n.size != k:
-            raise StudyInputError(
-                f"`sizes` has {n.size} entries but `counts` has {k}; give one size per subgroup."
-            )
-        if np.any(n <= 0):
-            i = int(np.flatnonzero(n <= 0)[0])
-            raise StudyInputError(f"`sizes` must be positive; position {i} holds {n[i]!r}.")
-    if kind in ("p", "np") and np.any(y > n):
-        i = int(np.flatnonzero(y > n)[0])
-        raise StudyInputError(
-            f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
-            "inspected; a count cannot exceed its subgroup size."
-        )
-    if isinstance(labels, SubgroupCodes):
-        labels = labels.names[labels.codes]
-    if labels is None:
-        labels_t = tuple(range(1, k + 1))
-    else:
-        labels_t = tuple(_plain_label(v) for v in np.asarray(labels).tolist())
-        if len(labels_t) != k:
-            raise StudyInputError(
-                f"`subgroups` has {len(labels_t)} labels but `counts` has {k}; give one label "
-                "per count."
-            )
+    n = _attribute_sizes(kind, sizes, y)
+    labels_t = _attribute_labels(labels, k)
     binomial = kind in ("p", "np")
-    edge = None
-    if standard is None:
-        rate = float(y.sum() / n.sum())
-        if rate <= 0 or (binomial and rate >= 1):
-            # zero (or all) nonconforming: the chart is its centre line, nothing can signal
-            edge = "none" if rate <= 0 else "all"
-    else:
-        rate = float(standard)
-        if not (rate > 0 and (rate < 1 or not binomial)):
-            raise StudyInputError(
-                f"`standard` ({standard}) must be a proportion between 0 and 1 for a {kind} "
-                "chart, or a positive rate for c and u charts."
-            )
+    rate, edge = _attribute_rate(kind, y, n, standard, binomial)
     base_sd = np.sqrt(rate * (1 - rate) / n) if binomial else np.sqrt(rate / n)  # per unit
     if kind in ("p", "u"):
         points, center, sd = y / n, np.full(k, rate), base_sd
@@ -1063,61 +1016,17 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
     if edge is not None:
         if laney is True or not (isinstance(laney, bool) or laney == "auto"):
             laney = False  # nothing to widen
-        z = np.zeros(k)
         sigma_z = float("nan")
     else:
         z = (points - center) / sd
         sigma_z = float(np.mean(np.abs(np.diff(z))) / d2(2)) if k >= 2 else float("nan")
-    mean_size = float(n.mean())
-    mean_count = float(np.mean(n * rate))
-    large = mean_size >= LANEY_MIN_SIZE if binomial else mean_count >= LANEY_MIN_COUNT
-    far = math.isfinite(sigma_z) and (sigma_z > LANEY_RATIO or sigma_z < 1 / LANEY_RATIO)
-    if isinstance(laney, bool) or laney == "auto":
-        applied = laney is True
-        sz_used = sigma_z
-    else:
-        sz_used = _check_positive(laney, name="laney")
-        applied = True
-    if applied and not (math.isfinite(sz_used) and sz_used > 0):
-        raise AnalysisError(
-            f"Laney's sigma_z ({sz_used}) must be positive and needs at least 2 subgroups that "
-            "differ; use laney=False for these counts."
-        )
-    if edge is not None:
-        why = (
-            f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
-            f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
-            "and no point can signal; the over-dispersion check does not apply"
-        )
-    elif far and large:
-        why = (
-            f"the points vary {sigma_z:.2f} times as much as the "
-            f"{'binomial' if binomial else 'Poisson'} model expects and subgroups are large; "
-            "Laney's adjusted limits are advisable"
-        )
-    elif far:
-        why = (
-            f"sigma_z is {sigma_z:.2f}, but subgroups are small, so the model limits are kept "
-            "(common practice, no source)"
-        )
-    else:
-        why = f"sigma_z is {sigma_z:.2f}, close to 1: the {'binomial' if binomial else 'Poisson'} model fits"
-    if applied:
-        why += f"; limits widened by sigma_z = {sz_used:.3f}"
-    check = OverdispersionCheck(
-        sigma_z=sigma_z,
-        mean_size=mean_size,
-        mean_count=mean_count,
-        suggested=bool(far and large),
-        applied=applied,
-        reason=why,
-    )
-    sd_plot = sd * sz_used if applied else sd
+    check, sz_used = _overdispersion(n, rate, binomial, sigma_z, laney, edge)
+    sd_plot = sd * sz_used if check.applied else sd
     notes = []
     if edge is not None:
-        notes.append(why)
+        notes.append(check.reason)
     if laney == "auto" and check.suggested:
-        notes.append(why)
+        notes.append(check.reason)
     loc = _series(
         kind,
         points,
@@ -1128,7 +1037,7 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         evaluate=evaluate and edge is None,
         labels=None if labels is None else labels_t,
     )
-    method = "laney" if applied else ("binomial" if binomial else "poisson")
+    method = "laney" if check.applied else ("binomial" if binomial else "poisson")
     equal = bool(np.all(n == n[0]))
     return ControlChart(
         kind=kind,
@@ -1151,6 +1060,132 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         warnings=tuple(notes),
         options=options,
     )
+
+
+def _check_counts(counts) -> np.ndarray:
+    """The counts as floats; each must be a whole number of 0 or more."""
+    y = _as_float_array(counts, name="counts")
+    if np.any(y < 0) or np.any(y != np.round(y)):
+        i = int(np.flatnonzero((y < 0) | (y != np.round(y)))[0])
+        raise StudyInputError(
+            f"`counts` must be whole numbers of 0 or more; position {i} holds {y[i]!r}.",
+            value=y[i],
+        )
+    return y
+
+
+def _attribute_sizes(kind: str, sizes, y: np.ndarray) -> np.ndarray:
+    """Items (or units) inspected per subgroup: one per count, positive, not below the count."""
+    k = y.size
+    if sizes is None:
+        if kind in ("p", "np"):
+            raise StudyInputError(f"the {kind} chart needs `sizes` (items inspected per subgroup).")
+        n = np.ones(k)
+    else:
+        n = _as_float_array(sizes, name="sizes")
+        if n.size == 1:
+            n = np.full(k, n[0])
+        if n.size != k:
+            raise StudyInputError(
+                f"`sizes` has {n.size} entries but `counts` has {k}; give one size per subgroup."
+            )
+        if np.any(n <= 0):
+            i = int(np.flatnonzero(n <= 0)[0])
+            raise StudyInputError(f"`sizes` must be positive; position {i} holds {n[i]!r}.")
+    if kind in ("p", "np") and np.any(y > n):
+        i = int(np.flatnonzero(y > n)[0])
+        raise StudyInputError(
+            f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
+            "inspected; a count cannot exceed its subgroup size."
+        )
+    return n
+
+
+def _attribute_labels(labels, k: int) -> tuple:
+    """One plain label per count (1, 2, ... when none are given)."""
+    if isinstance(labels, SubgroupCodes):
+        labels = labels.names[labels.codes]
+    if labels is None:
+        return tuple(range(1, k + 1))
+    labels_t = tuple(_plain_label(v) for v in np.asarray(labels).tolist())
+    if len(labels_t) != k:
+        raise StudyInputError(
+            f"`subgroups` has {len(labels_t)} labels but `counts` has {k}; give one label "
+            "per count."
+        )
+    return labels_t
+
+
+def _attribute_rate(kind: str, y, n, standard, binomial: bool) -> tuple[float, str | None]:
+    """The centre rate (estimated, or the known standard) and the edge case: "none" or "all"
+    nonconforming (the chart is its centre line), else None."""
+    edge = None
+    if standard is None:
+        rate = float(y.sum() / n.sum())
+        if rate <= 0 or (binomial and rate >= 1):
+            # zero (or all) nonconforming: the chart is its centre line, nothing can signal
+            edge = "none" if rate <= 0 else "all"
+    else:
+        rate = float(standard)
+        if not (rate > 0 and (rate < 1 or not binomial)):
+            raise StudyInputError(
+                f"`standard` ({standard}) must be a proportion between 0 and 1 for a {kind} "
+                "chart, or a positive rate for c and u charts."
+            )
+    return rate, edge
+
+
+def _overdispersion(n, rate, binomial, sigma_z, laney, edge) -> tuple[OverdispersionCheck, float]:
+    """The over-dispersion check (Laney's sigma_z, whether to widen) and the sigma_z used."""
+    mean_size = float(n.mean())
+    mean_count = float(np.mean(n * rate))
+    large = mean_size >= LANEY_MIN_SIZE if binomial else mean_count >= LANEY_MIN_COUNT
+    far = math.isfinite(sigma_z) and (sigma_z > LANEY_RATIO or sigma_z < 1 / LANEY_RATIO)
+    if isinstance(laney, bool) or laney == "auto":
+        applied = laney is True
+        sz_used = sigma_z
+    else:
+        sz_used = _check_positive(laney, name="laney")
+        applied = True
+    if applied and not (math.isfinite(sz_used) and sz_used > 0):
+        raise AnalysisError(
+            f"Laney's sigma_z ({sz_used}) must be positive and needs at least 2 subgroups that "
+            "differ; use laney=False for these counts."
+        )
+    why = _overdispersion_reason(edge, far, large, sigma_z, binomial)
+    if applied:
+        why += f"; limits widened by sigma_z = {sz_used:.3f}"
+    check = OverdispersionCheck(
+        sigma_z=sigma_z,
+        mean_size=mean_size,
+        mean_count=mean_count,
+        suggested=bool(far and large),
+        applied=applied,
+        reason=why,
+    )
+    return check, sz_used
+
+
+def _overdispersion_reason(edge, far: bool, large: bool, sigma_z: float, binomial: bool) -> str:
+    """The over-dispersion verdict in words."""
+    if edge is not None:
+        return (
+            f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
+            f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
+            "and no point can signal; the over-dispersion check does not apply"
+        )
+    if far and large:
+        return (
+            f"the points vary {sigma_z:.2f} times as much as the "
+            f"{'binomial' if binomial else 'Poisson'} model expects and subgroups are large; "
+            "Laney's adjusted limits are advisable"
+        )
+    if far:
+        return (
+            f"sigma_z is {sigma_z:.2f}, but subgroups are small, so the model limits are kept "
+            "(common practice, no source)"
+        )
+    return f"sigma_z is {sigma_z:.2f}, close to 1: the {'binomial' if binomial else 'Poisson'} model fits"
 
 
 def p_chart(counts, sizes, labels=None, **options) -> ControlChart:
