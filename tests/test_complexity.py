@@ -39,7 +39,6 @@ KNOWN = {
     ("studykit/specs.py", "read_specs_bytes"),
     ("studykit/stats/capability.py", "capability"),
     ("studykit/stats/solvers.py", "profile_threshold"),  # moved from fit.py
-    ("studykit/stats/gauge_type1.py", "short_gauge_study"),
     ("studykit/store.py", "check_chain"),
     ("studykit/study.py", "__post_init__"),
     ("studykit/study.py", "_apply_effect"),
