@@ -38,7 +38,6 @@ KNOWN = {
     ("studykit/report/verify.py", "verify_report"),
     ("studykit/specs.py", "read_specs_bytes"),
     ("studykit/stats/capability.py", "capability"),
-    ("studykit/stats/solvers.py", "profile_threshold"),  # moved from fit.py
     ("studykit/store.py", "check_chain"),
     ("studykit/study.py", "__post_init__"),
     ("studykit/study.py", "_apply_effect"),
