@@ -15,6 +15,7 @@ The method notes (sources, convergence rules) are in :mod:`studykit.stats.fit`.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -353,31 +354,51 @@ def threshold_rows(family, block, shared=None):
     estimator too). With ``family.shared_grid_start`` the inner solutions on the first
     sample's grid start every sample's iteration (``shared`` keeps them across blocks).
     """
-    inner, dtheta = family.fit_rows, family.dtheta_rows
-    n_boot, n = block.shape
+    n_boot = block.shape[0]
     spread = block.max(axis=1) > block.min(axis=1)
     xmin = block.min(axis=1)
     sd = block.std(axis=1)
-    decades = GRID_DECADES * math.log(10.0)
-
-    def evaluate(rows, u, start=None):
-        ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
-        with np.errstate(all="ignore"):
-            ll, params, state = inner(ys, start)
-            s = -np.exp(u) * dtheta(ys, params)
-        return (
-            np.where(np.isfinite(s), s, np.nan),
-            params,
-            np.where(np.isfinite(ll), ll, -np.inf),
-            state,
-        )
-
+    evaluate = functools.partial(_rows_at, block, xmin, family.fit_rows, family.dtheta_rows)
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
-    # the grid of profile_threshold, every sample at once
-    grid = np.log(sd[rows])[:, None] + decades[None, :]
-    grid_start = None
     shared = {} if shared is None else shared
+    rows, bracket, state = _grid_brackets(family, block, rows, sd, shared, evaluate, fallback)
+    root, unsolved = _illinois(evaluate, rows, *bracket, state)
+    fallback.update(rows[unsolved].tolist())
+    good = np.isfinite(root)
+    rows, root = rows[good], root[good]
+    ok = np.zeros(n_boot, dtype=bool)
+    params = None
+    if rows.size:
+        _, p, _, _ = evaluate(rows, root)
+        params = {}
+        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
+            params[k] = np.full(n_boot, np.nan)
+            params[k][rows] = v
+        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
+    fallback.update(np.flatnonzero(~ok & spread).tolist())
+    rest = sorted(fallback)
+    ok[rest] = False
+    return params, ok, rest
+
+
+def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
+    """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
+    xmin - exp(u)."""
+    ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
+    with np.errstate(all="ignore"):
+        ll, params, state = inner(ys, start)
+        s = -np.exp(u) * dtheta(ys, params)
+    return (
+        np.where(np.isfinite(s), s, np.nan),
+        params,
+        np.where(np.isfinite(ll), ll, -np.inf),
+        state,
+    )
+
+
+def _shared_start(family, block, rows, decades, shared: dict):
+    """The first sample's grid solutions, which start every sample's grid (or None)."""
     if family.shared_grid_start and rows.size and "k0" not in shared:
         # every sample comes from the same model: the Weibull shapes solved on one sample's
         # grid start the Newton iteration of all the others (fewer steps, same roots); with
@@ -386,11 +407,21 @@ def threshold_rows(family, block, shared=None):
         u0 = math.log(float(np.std(data))) + decades
         ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
         with np.errstate(all="ignore"):
-            _, _, st0 = inner(ys0)
+            _, _, st0 = family.fit_rows(ys0)
         k0 = np.asarray(st0[0])
         shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
     if family.shared_grid_start and rows.size and shared.get("k0") is not None:
-        grid_start = (np.tile(shared["k0"], rows.size),)
+        return (np.tile(shared["k0"], rows.size),)
+    return None
+
+
+def _grid_brackets(family, block, rows, sd, shared, evaluate, fallback: set):
+    """The grid of :func:`profile_threshold` for every sample at once: the rows whose slope
+    changes sign around an interior best point, their brackets (lo_u, hi_u, lo_s, hi_s,
+    solve) and inner states; the other rows are added to ``fallback``."""
+    decades = GRID_DECADES * math.log(10.0)
+    grid = np.log(sd[rows])[:, None] + decades[None, :]
+    grid_start = _shared_start(family, block, rows, decades, shared)
     s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), grid_start)
     s_grid = s_grid.reshape(-1, decades.size)
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
@@ -413,6 +444,12 @@ def threshold_rows(family, block, shared=None):
     lo_u, hi_u, lo_s, hi_s = lo_u[solve], hi_u[solve], lo_s[solve], hi_s[solve]
     if state is not None:
         state = tuple(c[solve] for c in state)
+    return rows, (lo_u, hi_u, lo_s, hi_s, solve), state
+
+
+def _illinois(evaluate, rows, lo_u, hi_u, lo_s, hi_s, solve, state):
+    """Roots of the profile slope in the brackets by the Illinois variant of regula falsi:
+    (root per row, NaN where none; the positions in ``rows`` still unsolved after 100 steps)."""
     root = np.full(rows.size, np.nan)
     side = np.zeros(solve.size)
     for _ in range(100):
@@ -449,19 +486,4 @@ def threshold_rows(family, block, shared=None):
         )
         if state is not None:
             state = tuple(c[keep] for c in state)
-    fallback.update(rows[solve].tolist())
-    good = np.isfinite(root)
-    rows, root = rows[good], root[good]
-    ok = np.zeros(n_boot, dtype=bool)
-    params = None
-    if rows.size:
-        _, p, _, _ = evaluate(rows, root)
-        params = {}
-        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
-            params[k] = np.full(n_boot, np.nan)
-            params[k][rows] = v
-        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
-    fallback.update(np.flatnonzero(~ok & spread).tolist())
-    rest = sorted(fallback)
-    ok[rest] = False
-    return params, ok, rest
+    return root, solve
