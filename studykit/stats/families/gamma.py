@@ -61,7 +61,8 @@ def _gamma_fit(y: np.ndarray, k0: float | None = None) -> tuple[float, float, fl
 
 
 class Gamma(Family):
-    id, label, param_names = "gamma", "Gamma", ("shape", "scale")
+    id, label = "gamma", "Gamma"
+    param_names: tuple[str, ...] = ("shape", "scale")
     order = 6
     support = "positive"
 

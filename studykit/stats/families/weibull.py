@@ -71,11 +71,12 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
 
 
 class Weibull(Family):
-    id, label, param_names = "weibull", "Weibull", ("shape", "scale")
+    id, label = "weibull", "Weibull"
+    param_names: tuple[str, ...] = ("shape", "scale")
     order = 4
     warm_in_theta = True  # the shape is close to linear in theta across a grid step
     support = "positive"
-    ad_p_source = (
+    ad_p_source: str | None = (
         "Stephens (1977); D'Agostino & Stephens (1986) Table 4.17 (extreme value "
         "on log x), interpolated"
     )
