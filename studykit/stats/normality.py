@@ -355,15 +355,7 @@ def probability_plot(
     mean, sigma = float(arr.mean()), float(arr.std(ddof=1))
     lower = upper = outside = None
     if band is not None:
-        if band == "beta_pointwise":
-            i = np.arange(1, n + 1)
-            qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
-            qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
-        else:
-            d = float(stats.kstwo.ppf(level, n))
-            tiny = 1e-12
-            qlo = np.clip(p - d, tiny, 1 - tiny)
-            qhi = np.clip(p + d, tiny, 1 - tiny)
+        qlo, qhi = _band_probabilities(band, p, n, level)
         lo = mean + sigma * special.ndtri(qlo)  # scipy.stats.norm.ppf
         hi = mean + sigma * special.ndtri(qhi)
         out = (arr < lo) | (arr > hi)
@@ -382,3 +374,15 @@ def probability_plot(
         level=float(level),
         n=n,
     )
+
+
+def _band_probabilities(band: str, p: np.ndarray, n: int, level: float) -> tuple:
+    """The band's lower and upper probabilities at each plotting position."""
+    if band == "beta_pointwise":
+        i = np.arange(1, n + 1)
+        qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+        qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+        return qlo, qhi
+    d = float(stats.kstwo.ppf(level, n))
+    tiny = 1e-12
+    return np.clip(p - d, tiny, 1 - tiny), np.clip(p + d, tiny, 1 - tiny)
