@@ -179,6 +179,22 @@ class VarianceComponent(Result):
         )
 
 
+#: The float fields of a RangeMethodEstimate that are always numbers (NaN when undefined).
+_RANGE_METHOD_FLOATS = (
+    "repeatability",
+    "reproducibility",
+    "gauge_rr",
+    "part",
+    "total",
+    "k1",
+    "k2",
+    "k3",
+    "mean_range",
+    "appraiser_mean_range",
+    "part_mean_range",
+)
+
+
 @dataclass(frozen=True)
 class RangeMethodEstimate(Result):
     """The average-and-range estimate (a second opinion beside the ANOVA).
@@ -207,21 +223,7 @@ class RangeMethodEstimate(Result):
     def to_dict(self) -> dict:
         out: dict[str, object] = {
             k: _f(getattr(self, k))
-            for k in (
-                "repeatability",
-                "reproducibility",
-                "gauge_rr",
-                "part",
-                "total",
-                "k1",
-                "k2",
-                "k3",
-                "mean_range",
-                "appraiser_mean_range",
-                "part_mean_range",
-                "pct_study_variation",
-                "pct_tolerance",
-            )
+            for k in (*_RANGE_METHOD_FLOATS, "pct_study_variation", "pct_tolerance")
         }
         out["ndc"] = self.ndc
         out["reproducibility_set_to_zero"] = bool(self.reproducibility_set_to_zero)
@@ -230,22 +232,7 @@ class RangeMethodEstimate(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> RangeMethodEstimate:
         """Rebuild the estimate from :meth:`to_dict`."""
-        floats = {
-            k: _nan(d[k])
-            for k in (
-                "repeatability",
-                "reproducibility",
-                "gauge_rr",
-                "part",
-                "total",
-                "k1",
-                "k2",
-                "k3",
-                "mean_range",
-                "appraiser_mean_range",
-                "part_mean_range",
-            )
-        }
+        floats = {k: _nan(d[k]) for k in _RANGE_METHOD_FLOATS}
         return cls(
             **floats,
             pct_study_variation=d["pct_study_variation"],
