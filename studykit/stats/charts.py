@@ -632,13 +632,18 @@ def _per_size(func, sizes):
     return vals[inv.ravel()]
 
 
+def _as_number(v, name: str) -> float:
+    """``v`` as a float, with a clear message when it is not a number."""
+    try:
+        return float(v)
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+
+
 def _check_positive(v, *, name):
     if v is None:
         return None
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+    v = _as_number(v, name)
     if not math.isfinite(v) or v <= 0:
         raise StudyInputError(f"`{name}` ({v}) must be a positive finite number.")
     return v
@@ -647,10 +652,7 @@ def _check_positive(v, *, name):
 def _check_finite(v, *, name):
     if v is None:
         return None
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+    v = _as_number(v, name)
     if not math.isfinite(v):
         raise StudyInputError(f"`{name}` ({v}) must be a finite number.")
     return v

@@ -367,31 +367,12 @@ round(r.overall.process["pp"], 3)
         gauge_df = None
     var_g = float(gauge_sigma) ** 2
     parts = {}
+    rest = (var_g, gauge_df, float(mean), lsl, usl, confidence)  # shared by both sigmas
     if within_sigma is not None and within_sigma > 0:
-        parts["within"] = _one(
-            "within",
-            float(within_sigma),
-            within_df,
-            var_g,
-            gauge_df,
-            float(mean),
-            lsl,
-            usl,
-            confidence,
-        )
+        parts["within"] = _one("within", float(within_sigma), within_df, *rest)
     if overall_sigma is not None and overall_sigma > 0:
         df_o = None if n is None or n < 2 else float(n - 1)
-        parts["overall"] = _one(
-            "overall",
-            float(overall_sigma),
-            df_o,
-            var_g,
-            gauge_df,
-            float(mean),
-            lsl,
-            usl,
-            confidence,
-        )
+        parts["overall"] = _one("overall", float(overall_sigma), df_o, *rest)
     if not parts:
         raise AnalysisError(
             "no observed sigma to correct: give `within_sigma` or `overall_sigma` (positive)"
