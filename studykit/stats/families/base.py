@@ -398,6 +398,16 @@ def threshold_of(p):
     return p.get("threshold", 0.0)
 
 
+def shape_scale_row(k: float, scale: float, ll: float) -> tuple:
+    """The (loglik, params, state) of a shape-scale family's one-row fit, as ``fit_rows``
+    returns them for one row."""
+    return (
+        np.array([ll]),
+        {"shape": np.array([k]), "scale": np.array([scale])},
+        (np.array([k]),),
+    )
+
+
 def refit_by_fit_rows(family, block):
     """``refit_rows`` of a two-parameter family with a row-wise solver: every sample by
     ``family.fit_rows`` (the same root as the family's own estimator); rows with a value
