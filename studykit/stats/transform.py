@@ -639,7 +639,6 @@ class JohnsonResult(Result):
         }
 
 
-# long: signature and numpydoc docstring take 49 lines; the body is 46
 def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
     """Johnson transformation chosen as Chou, Polansky & Mason (1998) describe.
 
@@ -696,6 +695,31 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
         raise StudyInputError(
             f"`z_grid` must be a non-empty list of positive numbers; got {z_grid!r}."
         )
+    candidates, best = _johnson_search(xs, zs, sl_tolerance)
+    if best is None:
+        raise AnalysisError(
+            "Johnson transformation: no z in the grid gives a fit that keeps every reading "
+            "inside the fitted range; try a Box-Cox transformation or a fitted distribution."
+        )
+    p, w, z, (kind, gamma, eta, eps, lam, qr) = best
+    return JohnsonResult(
+        n=int(x.size),
+        kind=kind,
+        gamma=gamma,
+        eta=eta,
+        epsilon=eps,
+        lam=lam,
+        z=z,
+        quantile_ratio=qr,
+        shapiro_w=w,
+        shapiro_p=p,
+        candidates=tuple(candidates),
+    )
+
+
+def _johnson_search(xs: np.ndarray, zs: np.ndarray, sl_tolerance) -> tuple[list, tuple | None]:
+    """Fit the Johnson system at each z of the grid: every usable fit as a candidate row, and
+    the best by Shapiro-Wilk p (p, W, z, fitted parameters), or None."""
     probs = special.ndtr(np.outer(zs, [-3.0, -1.0, 1.0, 3.0]))
     candidates = []
     best = None
@@ -716,22 +740,4 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
         )
         if best is None or p > best[0]:
             best = (p, w, float(z), fitted)
-    if best is None:
-        raise AnalysisError(
-            "Johnson transformation: no z in the grid gives a fit that keeps every reading "
-            "inside the fitted range; try a Box-Cox transformation or a fitted distribution."
-        )
-    p, w, z, (kind, gamma, eta, eps, lam, qr) = best
-    return JohnsonResult(
-        n=int(x.size),
-        kind=kind,
-        gamma=gamma,
-        eta=eta,
-        epsilon=eps,
-        lam=lam,
-        z=z,
-        quantile_ratio=qr,
-        shapiro_w=w,
-        shapiro_p=p,
-        candidates=tuple(candidates),
-    )
+    return candidates, best
