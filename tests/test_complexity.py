@@ -35,12 +35,6 @@ KNOWN = {
     ("studykit/report/verify.py", "_signature_checks"),
     ("studykit/report/verify.py", "verify_report"),
     ("studykit/specs.py", "read_specs_bytes"),
-    ("studykit/stats/charts.py", "_attribute_chart"),
-    ("studykit/stats/charts.py", "control_chart"),
-    ("studykit/stats/solvers.py", "profile_threshold"),  # moved from fit.py
-    ("studykit/stats/gauge_type1.py", "short_gauge_study"),
-    ("studykit/stats/phase1.py", "phase1"),
-    ("studykit/stats/transform.py", "box_cox"),
     ("studykit/store.py", "check_chain"),
     ("studykit/study.py", "__post_init__"),
     ("studykit/study.py", "_apply_effect"),

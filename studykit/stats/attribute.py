@@ -179,6 +179,31 @@ def attribute_capability(
     0.00516
     """
     level = _level(names.confidence_of(confidence, level=level))
+    x, n = _checked_counts(defectives, inspected)
+    xt, nt = int(x.sum()), int(n.sum())
+    alpha = 1.0 - level
+    p = xt / nt
+    lower = 0.0 if xt == 0 else float(stats.beta.ppf(alpha / 2, xt, nt - xt + 1))
+    upper = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha / 2, xt + 1, nt - xt))
+    upper1 = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha, xt + 1, nt - xt))
+    return AttributeCapability(
+        defective_rate=p,
+        defective_rate_lower=lower,
+        defective_rate_upper=upper,
+        defective_rate_upper_bound=upper1,
+        ppm_defective=p * 1e6,
+        ppm_defective_upper_bound=upper1 * 1e6,
+        z_process=_z(p),
+        z_process_lower_bound=_z(upper1),
+        defectives=xt,
+        inspected=nt,
+        n_subgroups=int(x.size),
+        level=level,
+    )
+
+
+def _checked_counts(defectives, inspected) -> tuple[np.ndarray, np.ndarray]:
+    """Defectives and inspected counts per subgroup: paired, inspected >= 1 and >= defectives."""
     x = _counts(defectives, "defectives")
     n = _counts(inspected, "inspected")
     if x.size != n.size and n.size != 1:
@@ -203,26 +228,7 @@ def attribute_capability(
             f"`defectives` ({x[i]:g}) exceeds `inspected` ({n[i]:g}) at position {i}; a "
             "subgroup cannot have more defectives than parts."
         )
-    xt, nt = int(x.sum()), int(n.sum())
-    alpha = 1.0 - level
-    p = xt / nt
-    lower = 0.0 if xt == 0 else float(stats.beta.ppf(alpha / 2, xt, nt - xt + 1))
-    upper = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha / 2, xt + 1, nt - xt))
-    upper1 = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha, xt + 1, nt - xt))
-    return AttributeCapability(
-        defective_rate=p,
-        defective_rate_lower=lower,
-        defective_rate_upper=upper,
-        defective_rate_upper_bound=upper1,
-        ppm_defective=p * 1e6,
-        ppm_defective_upper_bound=upper1 * 1e6,
-        z_process=_z(p),
-        z_process_lower_bound=_z(upper1),
-        defectives=xt,
-        inspected=nt,
-        n_subgroups=int(x.size),
-        level=level,
-    )
+    return x, n
 
 
 def zero_defect_sample_size(

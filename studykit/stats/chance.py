@@ -204,50 +204,12 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         return SeriesChance(
             m, False, lcl, ucl, float("nan"), float("nan"), seen, float("nan"), float("nan"), seen
         )
-    center = np.asarray(series.center, float)
-    sigma = np.asarray(series.sigma, float)
-    n_arr = (
-        np.full(pts.size, 2 if series.name == "moving_range" else 1, dtype=np.int64)
-        if sizes is None or series.name in ("individual", "moving_range")
-        else np.asarray(sizes, dtype=np.int64)
-    )
-    # one computation per distinct (size, centre, standard error): constant in most charts
-    if np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0]):
-        uniq = [(float(n_arr[0]), float(center[0]), float(sigma[0]))]
-        inv = np.zeros(pts.size, dtype=np.int64)
-    else:
-        key = np.stack([n_arr.astype(float), center, sigma], axis=1)
-        uniq, inv = np.unique(key, axis=0, return_inverse=True)
-        inv = inv.ravel()
+    uniq, inv = _distinct_points(series, sizes, pts.size)
     k = len(uniq)
-    lo_v, hi_v, p0_v = np.empty(k), np.empty(k), np.zeros(k)
-    alphas, p0s = [], []
     adjusted = m > reference
-    for j, (n_f, c, s) in enumerate(uniq):
-        n = int(n_f)
-        first = int(np.argmax(inv == j)) if k > 1 else 0
-        u3, l3 = float(ucl[first]), float(lcl[first])
-        lo_v[j], hi_v[j] = l3, u3
-        unit = _scale(series.name, c, s, n)
-        if not unit > 0:
-            continue
-        up_t, lo_t, up_q, lo_q = _unit_tails(series.name, n)
-        off = c if series.name in ("individual", "xbar") else 0.0
-        location = series.name in ("individual", "xbar")
-        p_up = float(up_t((u3 - off) / unit))
-        p_lo = float(lo_t((l3 - off) / unit)) if location or l3 > 0 else 0.0
-        p0_v[j] = p_up + p_lo
-        p0s.append(p_up + p_lo)
-        if adjusted:
-            a_up = -math.expm1(reference / m * math.log1p(-p_up)) if p_up > 0 else 0.0
-            a_lo = -math.expm1(reference / m * math.log1p(-p_lo)) if p_lo > 0 else 0.0
-            if a_up > 0:
-                hi_v[j] = max(u3, off + unit * float(up_q(a_up)))
-            if a_lo > 0:
-                lo_v[j] = min(l3, off + unit * float(lo_q(a_lo)))
-            alphas.append(a_up)
-        else:
-            alphas.append(p_up)
+    lo_v, hi_v, p0_v, alphas, p0s = _limits_per_kind(
+        series.name, uniq, inv, lcl, ucl, m, reference, adjusted
+    )
     if k == 1:  # one number for every point (read-only views)
         lo_lim = np.broadcast_to(lo_v[0], pts.shape)
         hi_lim = np.broadcast_to(hi_v[0], pts.shape)
@@ -271,3 +233,57 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         p_value,
         beyond,
     )
+
+
+def _distinct_points(series, sizes, n_points: int) -> tuple:
+    """The distinct (size, centre, standard error) of the points and each point's index
+    into them: one computation per distinct point kind (constant in most charts)."""
+    center = np.asarray(series.center, float)
+    sigma = np.asarray(series.sigma, float)
+    n_arr = (
+        np.full(n_points, 2 if series.name == "moving_range" else 1, dtype=np.int64)
+        if sizes is None or series.name in ("individual", "moving_range")
+        else np.asarray(sizes, dtype=np.int64)
+    )
+    if np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0]):
+        return [(float(n_arr[0]), float(center[0]), float(sigma[0]))], np.zeros(
+            n_points, dtype=np.int64
+        )
+    key = np.stack([n_arr.astype(float), center, sigma], axis=1)
+    uniq, inv = np.unique(key, axis=0, return_inverse=True)
+    return uniq, inv.ravel()
+
+
+def _limits_per_kind(name, uniq, inv, lcl, ucl, m: int, reference: int, adjusted: bool):
+    """Per distinct point kind: the removal limits, the chance beyond the 3-sigma limits and
+    the per-point removal tail (lo_v, hi_v, p0_v, alphas, p0s)."""
+    k = len(uniq)
+    lo_v, hi_v, p0_v = np.empty(k), np.empty(k), np.zeros(k)
+    alphas: list[float] = []
+    p0s: list[float] = []
+    for j, (n_f, c, s) in enumerate(uniq):
+        n = int(n_f)
+        first = int(np.argmax(inv == j)) if k > 1 else 0
+        u3, l3 = float(ucl[first]), float(lcl[first])
+        lo_v[j], hi_v[j] = l3, u3
+        unit = _scale(name, c, s, n)
+        if not unit > 0:
+            continue
+        up_t, lo_t, up_q, lo_q = _unit_tails(name, n)
+        off = c if name in ("individual", "xbar") else 0.0
+        location = name in ("individual", "xbar")
+        p_up = float(up_t((u3 - off) / unit))
+        p_lo = float(lo_t((l3 - off) / unit)) if location or l3 > 0 else 0.0
+        p0_v[j] = p_up + p_lo
+        p0s.append(p_up + p_lo)
+        if adjusted:
+            a_up = -math.expm1(reference / m * math.log1p(-p_up)) if p_up > 0 else 0.0
+            a_lo = -math.expm1(reference / m * math.log1p(-p_lo)) if p_lo > 0 else 0.0
+            if a_up > 0:
+                hi_v[j] = max(u3, off + unit * float(up_q(a_up)))
+            if a_lo > 0:
+                lo_v[j] = min(l3, off + unit * float(lo_q(a_lo)))
+            alphas.append(a_up)
+        else:
+            alphas.append(p_up)
+    return lo_v, hi_v, p0_v, alphas, p0s

@@ -32,6 +32,7 @@ Choices (each stated once here and in the result's ``reason`` / ``sigma_method``
 
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from collections.abc import Sequence
@@ -509,7 +510,7 @@ class Labels(Sequence):
             return tuple(self) == tuple(other)
         return NotImplemented
 
-    __hash__ = None
+    __hash__ = None  # type: ignore[assignment]  # unhashable, like a list
 
     def __repr__(self) -> str:
         return f"Labels({tuple(self[:6])!r}{' ...' if len(self) > 6 else ''}, n={len(self)})"
@@ -631,13 +632,18 @@ def _per_size(func, sizes):
     return vals[inv.ravel()]
 
 
+def _as_number(v, name: str) -> float:
+    """``v`` as a float, with a clear message when it is not a number."""
+    try:
+        return float(v)
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+
+
 def _check_positive(v, *, name):
     if v is None:
         return None
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+    v = _as_number(v, name)
     if not math.isfinite(v) or v <= 0:
         raise StudyInputError(f"`{name}` ({v}) must be a positive finite number.")
     return v
@@ -646,10 +652,7 @@ def _check_positive(v, *, name):
 def _check_finite(v, *, name):
     if v is None:
         return None
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`{name}` ({v!r}) must be a number.") from None
+    v = _as_number(v, name)
     if not math.isfinite(v):
         raise StudyInputError(f"`{name}` ({v}) must be a finite number.")
     return v
@@ -696,6 +699,7 @@ def _within_sigma(method, x, sizes, ranges, sds):
 # --------------------------------------------------------------------------- variables
 
 
+# long: signature and numpydoc docstring take 77 lines; the body is a sequence of named steps
 def control_chart(
     values,
     subgroups=None,
@@ -784,12 +788,7 @@ def control_chart(
             rules=rules,
             evaluate=evaluate,
         )
-    if kind != "auto" and kind not in VARIABLE_KINDS:
-        raise StudyInputError(
-            f"`kind` ({kind!r}) is not a chart we know; use one of 'auto', "
-            + ", ".join(repr(k) for k in VARIABLE_KINDS + ATTRIBUTE_KINDS)
-            + "."
-        )
+    _check_variable_kind(kind)
     options = {
         "kind": kind,
         "sigma_method": sigma_method,
@@ -804,57 +803,13 @@ def control_chart(
     codes, labels, sizes_arr = _group(x, subgroups)
     sig_labels = None if subgroups is None else labels  # None: the rules number points 1, 2...
     k = sizes_arr.size
-    notes: list[str] = []
     if kind == "auto":
         kind, reason = _auto_kind(sizes_arr)
     else:
         reason = "chosen by the user"
-    if kind == "imr":
-        if sizes_arr.max() > 1:
-            bad = labels[int(np.argmax(sizes_arr > 1))]
-            raise StudyInputError(
-                f"the individuals chart needs one value per subgroup, but subgroup {bad!r} has "
-                f"{int(sizes_arr.max())}; use an X-bar/R or X-bar/S chart (xbar-r, xbar-s), or "
-                "analyse the values as individuals without subgroups."
-            )
-    else:
-        if sizes_arr.min() < 2:
-            bad = labels[int(np.argmin(sizes_arr))]
-            raise AnalysisError(
-                f"subgroup {bad!r} has a single value; {kind} charts need at least 2 values per "
-                "subgroup. Merge or exclude it, or use the individuals chart (imr)."
-            )
-        if sizes_arr.max() > MAX_SUBGROUP_SIZE:
-            raise AnalysisError(
-                f"the largest subgroup has {int(sizes_arr.max())} values; charts here support up "
-                f"to {MAX_SUBGROUP_SIZE} per subgroup. Split the subgroups."
-            )
-    method = _DEFAULT_SIGMA[kind] if sigma_method is None else sigma_method
-    if method not in _SIGMA_METHODS[kind]:
-        raise StudyInputError(
-            f"`sigma_method` ({method!r}) does not apply to the {kind} chart; use one of "
-            + ", ".join(repr(m) for m in _SIGMA_METHODS[kind])
-            + "."
-        )
-    min_groups = 2 if kind != "imr" else 2
-    if k < min_groups and sigma is None:
-        raise AnalysisError(
-            f"only {k} subgroup(s); estimating the within sigma needs at least {min_groups}. "
-            "Collect more data or give a known `sigma`."
-        )
-    if sigma is None and mu is None and k < FEW_SUBGROUPS:
-        notes.append(
-            f"only {k} subgroups: trial limits from fewer than {FEW_SUBGROUPS} subgroups are "
-            "uncertain (Montgomery recommends 20 to 25, from memory)."
-        )
-    if kind == "xbar_r" and sizes_arr.max() > 10:
-        msg = (
-            f"subgroups of up to {int(sizes_arr.max())} values on a range chart: the range "
-            "uses only two values of each subgroup; the X-bar/S chart is more efficient above 10."
-        )
-        notes.append(msg)
-        warnings.warn(msg, LargeSubgroupWarning, stacklevel=2)
-
+    _check_sizes(kind, sizes_arr, labels)
+    method = _sigma_method(kind, sigma_method)
+    notes = _size_notes(kind, sizes_arr, mu, sigma)
     if kind == "imr":
         means, ranges, sds = x, None, None
     else:
@@ -871,81 +826,14 @@ def control_chart(
         method = "known"
     grand = float(x.mean()) if mu is None else mu
     equal = bool(np.all(sizes_arr == sizes_arr[0]))
-
+    draw = functools.partial(_series, evaluate=evaluate, labels=sig_labels)
     if kind == "imr":
-        loc = _series(
-            "individual",
-            x,
-            grand,
-            within,
-            floor_zero=False,
-            rules=rules,
-            evaluate=evaluate,
-            labels=sig_labels,
-        )
-        mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
-        if method == "mrbar":
-            mr_center = float(np.nanmean(mr))  # exactly MR-bar
-        else:
-            mr_center = d2(2) * within
-        mr_sigma = d3(2) * mr_center / d2(2)
-        disp = _series(
-            "moving_range",
-            mr,
-            mr_center,
-            mr_sigma,
-            floor_zero=True,
-            rules=dispersion_rules,
-            evaluate=evaluate,
-            labels=sig_labels,
-        )
+        loc, disp = _imr_series(x, grand, within, method, draw, rules, dispersion_rules)
     else:
-        root_n = np.sqrt(sizes_arr)
-        loc = _series(
-            "xbar",
-            means,
-            grand,
-            within / root_n,
-            floor_zero=False,
-            rules=rules,
-            evaluate=evaluate,
-            labels=sig_labels,
+        loc = draw("xbar", means, grand, within / np.sqrt(sizes_arr), floor_zero=False, rules=rules)
+        disp = _dispersion_series(
+            kind, method, equal, ranges, sds, sizes_arr, within, draw, dispersion_rules
         )
-        if kind == "xbar_r":
-            if method == "rbar" and equal:
-                center = float(ranges.mean()) * np.ones(k)  # exactly R-bar
-                s_disp = center * d3(int(sizes_arr[0])) / d2(int(sizes_arr[0]))
-            else:
-                center = _per_size(d2, sizes_arr) * within
-                s_disp = _per_size(d3, sizes_arr) * within
-            disp = _series(
-                "range",
-                ranges,
-                center,
-                s_disp,
-                floor_zero=True,
-                rules=dispersion_rules,
-                evaluate=evaluate,
-                labels=sig_labels,
-            )
-        else:
-            c4s = _per_size(c4, sizes_arr)
-            if method == "sbar" and equal:
-                center = float(sds.mean()) * np.ones(k)  # exactly S-bar
-                s_disp = center * np.sqrt(1 - c4s**2) / c4s
-            else:
-                center = c4s * within
-                s_disp = within * np.sqrt(1 - c4s**2)
-            disp = _series(
-                "stdev",
-                sds,
-                center,
-                s_disp,
-                floor_zero=True,
-                rules=dispersion_rules,
-                evaluate=evaluate,
-                labels=sig_labels,
-            )
     return ControlChart(
         kind=kind,
         reason=reason,
@@ -967,6 +855,111 @@ def control_chart(
         warnings=tuple(notes),
         options=options,
     )
+
+
+def _check_variable_kind(kind: str) -> None:
+    """Reject a chart kind that is neither "auto" nor a variables chart."""
+    if kind != "auto" and kind not in VARIABLE_KINDS:
+        raise StudyInputError(
+            f"`kind` ({kind!r}) is not a chart we know; use one of 'auto', "
+            + ", ".join(repr(k) for k in VARIABLE_KINDS + ATTRIBUTE_KINDS)
+            + "."
+        )
+
+
+def _check_sizes(kind: str, sizes_arr: np.ndarray, labels) -> None:
+    """Reject subgroup sizes the chart kind cannot take (imr: 1; subgroup charts: 2 to max)."""
+    if kind == "imr":
+        if sizes_arr.max() > 1:
+            bad = labels[int(np.argmax(sizes_arr > 1))]
+            raise StudyInputError(
+                f"the individuals chart needs one value per subgroup, but subgroup {bad!r} has "
+                f"{int(sizes_arr.max())}; use an X-bar/R or X-bar/S chart (xbar-r, xbar-s), or "
+                "analyse the values as individuals without subgroups."
+            )
+        return
+    if sizes_arr.min() < 2:
+        bad = labels[int(np.argmin(sizes_arr))]
+        raise AnalysisError(
+            f"subgroup {bad!r} has a single value; {kind} charts need at least 2 values per "
+            "subgroup. Merge or exclude it, or use the individuals chart (imr)."
+        )
+    if sizes_arr.max() > MAX_SUBGROUP_SIZE:
+        raise AnalysisError(
+            f"the largest subgroup has {int(sizes_arr.max())} values; charts here support up "
+            f"to {MAX_SUBGROUP_SIZE} per subgroup. Split the subgroups."
+        )
+
+
+def _sigma_method(kind: str, sigma_method: str | None) -> str:
+    """The within-sigma estimator: the kind's default, or the one asked for if it applies."""
+    method = _DEFAULT_SIGMA[kind] if sigma_method is None else sigma_method
+    if method not in _SIGMA_METHODS[kind]:
+        raise StudyInputError(
+            f"`sigma_method` ({method!r}) does not apply to the {kind} chart; use one of "
+            + ", ".join(repr(m) for m in _SIGMA_METHODS[kind])
+            + "."
+        )
+    return method
+
+
+def _size_notes(kind: str, sizes_arr: np.ndarray, mu, sigma) -> list[str]:
+    """Check there are enough subgroups; note few subgroups and ranges of large subgroups."""
+    k = sizes_arr.size
+    notes: list[str] = []
+    min_groups = 2
+    if k < min_groups and sigma is None:
+        raise AnalysisError(
+            f"only {k} subgroup(s); estimating the within sigma needs at least {min_groups}. "
+            "Collect more data or give a known `sigma`."
+        )
+    if sigma is None and mu is None and k < FEW_SUBGROUPS:
+        notes.append(
+            f"only {k} subgroups: trial limits from fewer than {FEW_SUBGROUPS} subgroups are "
+            "uncertain (Montgomery recommends 20 to 25, from memory)."
+        )
+    if kind == "xbar_r" and sizes_arr.max() > 10:
+        msg = (
+            f"subgroups of up to {int(sizes_arr.max())} values on a range chart: the range "
+            "uses only two values of each subgroup; the X-bar/S chart is more efficient above 10."
+        )
+        notes.append(msg)
+        warnings.warn(msg, LargeSubgroupWarning, stacklevel=3)  # the caller of control_chart
+    return notes
+
+
+def _imr_series(x, grand, within, method, draw, rules, dispersion_rules) -> tuple:
+    """The individuals and moving-range series."""
+    loc = draw("individual", x, grand, within, floor_zero=False, rules=rules)
+    mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
+    if method == "mrbar":
+        mr_center = float(np.nanmean(mr))  # exactly MR-bar
+    else:
+        mr_center = d2(2) * within
+    mr_sigma = d3(2) * mr_center / d2(2)
+    disp = draw("moving_range", mr, mr_center, mr_sigma, floor_zero=True, rules=dispersion_rules)
+    return loc, disp
+
+
+def _dispersion_series(kind, method, equal, ranges, sds, sizes_arr, within, draw, rules):
+    """The range or standard-deviation series of a subgroup chart."""
+    k = sizes_arr.size
+    if kind == "xbar_r":
+        if method == "rbar" and equal:
+            center = float(ranges.mean()) * np.ones(k)  # exactly R-bar
+            s_disp = center * d3(int(sizes_arr[0])) / d2(int(sizes_arr[0]))
+        else:
+            center = _per_size(d2, sizes_arr) * within
+            s_disp = _per_size(d3, sizes_arr) * within
+        return draw("range", ranges, center, s_disp, floor_zero=True, rules=rules)
+    c4s = _per_size(c4, sizes_arr)
+    if method == "sbar" and equal:
+        center = float(sds.mean()) * np.ones(k)  # exactly S-bar
+        s_disp = center * np.sqrt(1 - c4s**2) / c4s
+    else:
+        center = c4s * within
+        s_disp = within * np.sqrt(1 - c4s**2)
+    return draw("stdev", sds, center, s_disp, floor_zero=True, rules=rules)
 
 
 def xbar_r_chart(values, subgroups, **options) -> ControlChart:
@@ -1009,61 +1002,14 @@ def imr_chart(values, labels=None, **options) -> ControlChart:
 
 
 def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, evaluate):
+    """The p, np, c or u chart (see :func:`control_chart`)."""
     options = {"kind": kind, "standard": standard, "laney": laney, "rules": rules}
-    y = _as_float_array(counts, name="counts")
-    if np.any(y < 0) or np.any(y != np.round(y)):
-        i = int(np.flatnonzero((y < 0) | (y != np.round(y)))[0])
-        raise StudyInputError(
-            f"`counts` must be whole numbers of 0 or more; position {i} holds {y[i]!r}.",
-            value=y[i],
-        )
+    y = _check_counts(counts)
     k = y.size
-    if sizes is None:
-        if kind in ("p", "np"):
-            raise StudyInputError(f"the {kind} chart needs `sizes` (items inspected per subgroup).")
-        n = np.ones(k)
-    else:
-        n = _as_float_array(sizes, name="sizes")
-        if n.size == 1:
-            n = np.full(k, n[0])
-        if n.size != k:
-            raise StudyInputError(
-                f"`sizes` has {n.size} entries but `counts` has {k}; give one size per subgroup."
-            )
-        if np.any(n <= 0):
-            i = int(np.flatnonzero(n <= 0)[0])
-            raise StudyInputError(f"`sizes` must be positive; position {i} holds {n[i]!r}.")
-    if kind in ("p", "np") and np.any(y > n):
-        i = int(np.flatnonzero(y > n)[0])
-        raise StudyInputError(
-            f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
-            "inspected; a count cannot exceed its subgroup size."
-        )
-    if isinstance(labels, SubgroupCodes):
-        labels = labels.names[labels.codes]
-    if labels is None:
-        labels_t = tuple(range(1, k + 1))
-    else:
-        labels_t = tuple(_plain_label(v) for v in np.asarray(labels).tolist())
-        if len(labels_t) != k:
-            raise StudyInputError(
-                f"`subgroups` has {len(labels_t)} labels but `counts` has {k}; give one label "
-                "per count."
-            )
+    n = _attribute_sizes(kind, sizes, y)
+    labels_t = _attribute_labels(labels, k)
     binomial = kind in ("p", "np")
-    edge = None
-    if standard is None:
-        rate = float(y.sum() / n.sum())
-        if rate <= 0 or (binomial and rate >= 1):
-            # zero (or all) nonconforming: the chart is its centre line, nothing can signal
-            edge = "none" if rate <= 0 else "all"
-    else:
-        rate = float(standard)
-        if not (rate > 0 and (rate < 1 or not binomial)):
-            raise StudyInputError(
-                f"`standard` ({standard}) must be a proportion between 0 and 1 for a {kind} "
-                "chart, or a positive rate for c and u charts."
-            )
+    rate, edge = _attribute_rate(kind, y, n, standard, binomial)
     base_sd = np.sqrt(rate * (1 - rate) / n) if binomial else np.sqrt(rate / n)  # per unit
     if kind in ("p", "u"):
         points, center, sd = y / n, np.full(k, rate), base_sd
@@ -1072,61 +1018,17 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
     if edge is not None:
         if laney is True or not (isinstance(laney, bool) or laney == "auto"):
             laney = False  # nothing to widen
-        z = np.zeros(k)
         sigma_z = float("nan")
     else:
         z = (points - center) / sd
         sigma_z = float(np.mean(np.abs(np.diff(z))) / d2(2)) if k >= 2 else float("nan")
-    mean_size = float(n.mean())
-    mean_count = float(np.mean(n * rate))
-    large = mean_size >= LANEY_MIN_SIZE if binomial else mean_count >= LANEY_MIN_COUNT
-    far = math.isfinite(sigma_z) and (sigma_z > LANEY_RATIO or sigma_z < 1 / LANEY_RATIO)
-    if isinstance(laney, bool) or laney == "auto":
-        applied = laney is True
-        sz_used = sigma_z
-    else:
-        sz_used = _check_positive(laney, name="laney")
-        applied = True
-    if applied and not (math.isfinite(sz_used) and sz_used > 0):
-        raise AnalysisError(
-            f"Laney's sigma_z ({sz_used}) must be positive and needs at least 2 subgroups that "
-            "differ; use laney=False for these counts."
-        )
-    if edge is not None:
-        why = (
-            f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
-            f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
-            "and no point can signal; the over-dispersion check does not apply"
-        )
-    elif far and large:
-        why = (
-            f"the points vary {sigma_z:.2f} times as much as the "
-            f"{'binomial' if binomial else 'Poisson'} model expects and subgroups are large; "
-            "Laney's adjusted limits are advisable"
-        )
-    elif far:
-        why = (
-            f"sigma_z is {sigma_z:.2f}, but subgroups are small, so the model limits are kept "
-            "(common practice, no source)"
-        )
-    else:
-        why = f"sigma_z is {sigma_z:.2f}, close to 1: the {'binomial' if binomial else 'Poisson'} model fits"
-    if applied:
-        why += f"; limits widened by sigma_z = {sz_used:.3f}"
-    check = OverdispersionCheck(
-        sigma_z=sigma_z,
-        mean_size=mean_size,
-        mean_count=mean_count,
-        suggested=bool(far and large),
-        applied=applied,
-        reason=why,
-    )
-    sd_plot = sd * sz_used if applied else sd
+    check, sz_used = _overdispersion(n, rate, binomial, sigma_z, laney, edge)
+    sd_plot = sd * sz_used if check.applied else sd
     notes = []
     if edge is not None:
-        notes.append(why)
+        notes.append(check.reason)
     if laney == "auto" and check.suggested:
-        notes.append(why)
+        notes.append(check.reason)
     loc = _series(
         kind,
         points,
@@ -1137,7 +1039,7 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         evaluate=evaluate and edge is None,
         labels=None if labels is None else labels_t,
     )
-    method = "laney" if applied else ("binomial" if binomial else "poisson")
+    method = "laney" if check.applied else ("binomial" if binomial else "poisson")
     equal = bool(np.all(n == n[0]))
     return ControlChart(
         kind=kind,
@@ -1160,6 +1062,132 @@ def _attribute_chart(counts, labels, *, kind, sizes, standard, laney, rules, eva
         warnings=tuple(notes),
         options=options,
     )
+
+
+def _check_counts(counts) -> np.ndarray:
+    """The counts as floats; each must be a whole number of 0 or more."""
+    y = _as_float_array(counts, name="counts")
+    if np.any(y < 0) or np.any(y != np.round(y)):
+        i = int(np.flatnonzero((y < 0) | (y != np.round(y)))[0])
+        raise StudyInputError(
+            f"`counts` must be whole numbers of 0 or more; position {i} holds {y[i]!r}.",
+            value=y[i],
+        )
+    return y
+
+
+def _attribute_sizes(kind: str, sizes, y: np.ndarray) -> np.ndarray:
+    """Items (or units) inspected per subgroup: one per count, positive, not below the count."""
+    k = y.size
+    if sizes is None:
+        if kind in ("p", "np"):
+            raise StudyInputError(f"the {kind} chart needs `sizes` (items inspected per subgroup).")
+        n = np.ones(k)
+    else:
+        n = _as_float_array(sizes, name="sizes")
+        if n.size == 1:
+            n = np.full(k, n[0])
+        if n.size != k:
+            raise StudyInputError(
+                f"`sizes` has {n.size} entries but `counts` has {k}; give one size per subgroup."
+            )
+        if np.any(n <= 0):
+            i = int(np.flatnonzero(n <= 0)[0])
+            raise StudyInputError(f"`sizes` must be positive; position {i} holds {n[i]!r}.")
+    if kind in ("p", "np") and np.any(y > n):
+        i = int(np.flatnonzero(y > n)[0])
+        raise StudyInputError(
+            f"subgroup at position {i} has {int(y[i])} nonconforming items out of {n[i]:g} "
+            "inspected; a count cannot exceed its subgroup size."
+        )
+    return n
+
+
+def _attribute_labels(labels, k: int) -> tuple:
+    """One plain label per count (1, 2, ... when none are given)."""
+    if isinstance(labels, SubgroupCodes):
+        labels = labels.names[labels.codes]
+    if labels is None:
+        return tuple(range(1, k + 1))
+    labels_t = tuple(_plain_label(v) for v in np.asarray(labels).tolist())
+    if len(labels_t) != k:
+        raise StudyInputError(
+            f"`subgroups` has {len(labels_t)} labels but `counts` has {k}; give one label "
+            "per count."
+        )
+    return labels_t
+
+
+def _attribute_rate(kind: str, y, n, standard, binomial: bool) -> tuple[float, str | None]:
+    """The centre rate (estimated, or the known standard) and the edge case: "none" or "all"
+    nonconforming (the chart is its centre line), else None."""
+    edge = None
+    if standard is None:
+        rate = float(y.sum() / n.sum())
+        if rate <= 0 or (binomial and rate >= 1):
+            # zero (or all) nonconforming: the chart is its centre line, nothing can signal
+            edge = "none" if rate <= 0 else "all"
+    else:
+        rate = float(standard)
+        if not (rate > 0 and (rate < 1 or not binomial)):
+            raise StudyInputError(
+                f"`standard` ({standard}) must be a proportion between 0 and 1 for a {kind} "
+                "chart, or a positive rate for c and u charts."
+            )
+    return rate, edge
+
+
+def _overdispersion(n, rate, binomial, sigma_z, laney, edge) -> tuple[OverdispersionCheck, float]:
+    """The over-dispersion check (Laney's sigma_z, whether to widen) and the sigma_z used."""
+    mean_size = float(n.mean())
+    mean_count = float(np.mean(n * rate))
+    large = mean_size >= LANEY_MIN_SIZE if binomial else mean_count >= LANEY_MIN_COUNT
+    far = math.isfinite(sigma_z) and (sigma_z > LANEY_RATIO or sigma_z < 1 / LANEY_RATIO)
+    if isinstance(laney, bool) or laney == "auto":
+        applied = laney is True
+        sz_used = sigma_z
+    else:
+        sz_used = _check_positive(laney, name="laney")
+        applied = True
+    if applied and not (math.isfinite(sz_used) and sz_used > 0):
+        raise AnalysisError(
+            f"Laney's sigma_z ({sz_used}) must be positive and needs at least 2 subgroups that "
+            "differ; use laney=False for these counts."
+        )
+    why = _overdispersion_reason(edge, far, large, sigma_z, binomial)
+    if applied:
+        why += f"; limits widened by sigma_z = {sz_used:.3f}"
+    check = OverdispersionCheck(
+        sigma_z=sigma_z,
+        mean_size=mean_size,
+        mean_count=mean_count,
+        suggested=bool(far and large),
+        applied=applied,
+        reason=why,
+    )
+    return check, sz_used
+
+
+def _overdispersion_reason(edge, far: bool, large: bool, sigma_z: float, binomial: bool) -> str:
+    """The over-dispersion verdict in words."""
+    if edge is not None:
+        return (
+            f"every subgroup has {'no' if edge == 'none' else 'only'} nonconforming "
+            f"{'items' if binomial else 'findings'}: the limits coincide with the centre line "
+            "and no point can signal; the over-dispersion check does not apply"
+        )
+    if far and large:
+        return (
+            f"the points vary {sigma_z:.2f} times as much as the "
+            f"{'binomial' if binomial else 'Poisson'} model expects and subgroups are large; "
+            "Laney's adjusted limits are advisable"
+        )
+    if far:
+        return (
+            f"sigma_z is {sigma_z:.2f}, but subgroups are small, so the model limits are kept "
+            "(common practice, no source)"
+        )
+    return f"sigma_z is {sigma_z:.2f}, close to 1: the {'binomial' if binomial else 'Poisson'} model fits"
 
 
 def p_chart(counts, sizes, labels=None, **options) -> ControlChart:

@@ -179,6 +179,22 @@ class VarianceComponent(Result):
         )
 
 
+#: The float fields of a RangeMethodEstimate that are always numbers (NaN when undefined).
+_RANGE_METHOD_FLOATS = (
+    "repeatability",
+    "reproducibility",
+    "gauge_rr",
+    "part",
+    "total",
+    "k1",
+    "k2",
+    "k3",
+    "mean_range",
+    "appraiser_mean_range",
+    "part_mean_range",
+)
+
+
 @dataclass(frozen=True)
 class RangeMethodEstimate(Result):
     """The average-and-range estimate (a second opinion beside the ANOVA).
@@ -205,23 +221,9 @@ class RangeMethodEstimate(Result):
     reproducibility_set_to_zero: bool
 
     def to_dict(self) -> dict:
-        out = {
+        out: dict[str, object] = {
             k: _f(getattr(self, k))
-            for k in (
-                "repeatability",
-                "reproducibility",
-                "gauge_rr",
-                "part",
-                "total",
-                "k1",
-                "k2",
-                "k3",
-                "mean_range",
-                "appraiser_mean_range",
-                "part_mean_range",
-                "pct_study_variation",
-                "pct_tolerance",
-            )
+            for k in (*_RANGE_METHOD_FLOATS, "pct_study_variation", "pct_tolerance")
         }
         out["ndc"] = self.ndc
         out["reproducibility_set_to_zero"] = bool(self.reproducibility_set_to_zero)
@@ -230,22 +232,7 @@ class RangeMethodEstimate(Result):
     @classmethod
     def from_dict(cls, d: Mapping) -> RangeMethodEstimate:
         """Rebuild the estimate from :meth:`to_dict`."""
-        floats = {
-            k: _nan(d[k])
-            for k in (
-                "repeatability",
-                "reproducibility",
-                "gauge_rr",
-                "part",
-                "total",
-                "k1",
-                "k2",
-                "k3",
-                "mean_range",
-                "appraiser_mean_range",
-                "part_mean_range",
-            )
-        }
+        floats = {k: _nan(d[k]) for k in _RANGE_METHOD_FLOATS}
         return cls(
             **floats,
             pct_study_variation=d["pct_study_variation"],
@@ -276,7 +263,7 @@ class GaugeChartLimits(Result):
     ranges_above_ucl: tuple[tuple[str, str], ...]
 
     def to_dict(self) -> dict:
-        out = {
+        out: dict[str, object] = {
             k: _f(getattr(self, k))
             for k in (
                 "range_centre",
@@ -611,7 +598,7 @@ def _arrange(values, parts, appraisers, trials) -> tuple[np.ndarray, list, list]
         )
     if trials is not None:
         t_lab = _labels(trials, "trials", n)
-        seen = {}
+        seen: dict[tuple, int] = {}
         for k in range(n):
             key = (pi[k], ai[k], t_lab[k])
             if key in seen:
@@ -682,6 +669,7 @@ def _fp(num: float, den: float, df1: int, df2: int) -> tuple[float | None, float
     return f, float(stats.f.sf(f, df1, df2))
 
 
+# long: signature and numpydoc docstring (method, sources, example) take 124 lines; body 60
 def gauge_rr(
     values,
     parts,
@@ -810,152 +798,33 @@ def gauge_rr(
     cube, part_levels, appr_levels = _arrange(values, parts, appraisers, trials)
     p, o, r = cube.shape
     an = _anova(cube)
-    ss, df, ms = an["ss"], an["df"], an["ms"]
-
-    f_pa, p_pa = _fp(ms[INTERACTION], ms[ERROR], df[INTERACTION], df[ERROR])
-    f_p, p_p = _fp(ms[PART], ms[INTERACTION], df[PART], df[INTERACTION])
-    f_a, p_a = _fp(ms[APPRAISER], ms[INTERACTION], df[APPRAISER], df[INTERACTION])
-    anova_full = (
-        AnovaRow(PART, df[PART], ss[PART], ms[PART], f_p, p_p),
-        AnovaRow(APPRAISER, df[APPRAISER], ss[APPRAISER], ms[APPRAISER], f_a, p_a),
-        AnovaRow(INTERACTION, df[INTERACTION], ss[INTERACTION], ms[INTERACTION], f_pa, p_pa),
-        AnovaRow(REPEATABILITY, df[ERROR], ss[ERROR], ms[ERROR], None, None),
-        AnovaRow(TOTAL, an["df_total"], an["ss_total"], None, None, None),
-    )
+    anova_full, p_pa = _anova_full(an)
     notes: list[str] = []
     # p_pa is None only when MS_E is 0 (no repeat variation): keep the interaction then
     pooled = p_pa is not None and p_pa >= alpha_interaction
     if pooled:
-        df_err = df[INTERACTION] + df[ERROR]
-        ms_err = (ss[INTERACTION] + ss[ERROR]) / df_err
-        f_p2, p_p2 = _fp(ms[PART], ms_err, df[PART], df_err)
-        f_a2, p_a2 = _fp(ms[APPRAISER], ms_err, df[APPRAISER], df_err)
-        anova_used = (
-            AnovaRow(PART, df[PART], ss[PART], ms[PART], f_p2, p_p2),
-            AnovaRow(APPRAISER, df[APPRAISER], ss[APPRAISER], ms[APPRAISER], f_a2, p_a2),
-            AnovaRow(REPEATABILITY, df_err, ss[INTERACTION] + ss[ERROR], ms_err, None, None),
-            AnovaRow(TOTAL, an["df_total"], an["ss_total"], None, None, None),
-        )
+        anova_used, ms_x, df_x, coef = _pooled_model(an, p, o, r)
         notes.append(
             f"The appraiser-by-part interaction is not significant (p = {p_pa:.3g} >= "
             f"{alpha_interaction:g}); it was pooled into the repeatability error."
         )
-        ms_x = dict(ms)
-        ms_x[POOLED_ERROR] = ms_err
-        df_x = dict(df)
-        df_x[POOLED_ERROR] = df_err
-        coef = {
-            REPEATABILITY: {POOLED_ERROR: 1.0},
-            APPRAISER: {APPRAISER: 1 / (p * r), POOLED_ERROR: -1 / (p * r)},
-            INTERACTION: {},
-            PART: {PART: 1 / (o * r), POOLED_ERROR: -1 / (o * r)},
-        }
     else:
-        anova_used = anova_full
+        anova_used, ms_x, df_x, coef = _full_model(anova_full, an, p, o, r)
         if p_pa is not None:
             notes.append(
                 f"The appraiser-by-part interaction is kept in the model (p = {p_pa:.3g} < "
                 f"{alpha_interaction:g}): some appraisers measure some parts differently."
             )
-        ms_x, df_x = dict(ms), dict(df)
-        coef = {
-            REPEATABILITY: {ERROR: 1.0},
-            APPRAISER: {APPRAISER: 1 / (p * r), INTERACTION: -1 / (p * r)},
-            INTERACTION: {INTERACTION: 1 / r, ERROR: -1 / r},
-            PART: {PART: 1 / (o * r), INTERACTION: -1 / (o * r)},
-        }
-
-    raw = {k: sum(c * ms_x[m] for m, c in v.items()) for k, v in coef.items()}
-    zeroed = [k for k in (APPRAISER, INTERACTION, PART) if coef[k] and raw[k] < 0]
-    for k in zeroed:
-        coef[k] = {}
-    if zeroed:
-        notes.append(
-            "Negative variance estimate(s) set to 0: " + ", ".join(zeroed) + " (the mean square "
-            "was smaller than the one it is compared with; the true component is small)."
-        )
-
-    def add(*names):
-        out: dict[str, float] = {}
-        for nm in names:
-            for m, c in coef[nm].items():
-                out[m] = out.get(m, 0.0) + c
-        return out
-
-    combos = {
-        REPEATABILITY: coef[REPEATABILITY],
-        APPRAISER: coef[APPRAISER],
-        INTERACTION: coef[INTERACTION],
-        REPRODUCIBILITY: add(APPRAISER, INTERACTION),
-        GAUGE_RR: add(REPEATABILITY, APPRAISER, INTERACTION),
-        PART: coef[PART],
-        TOTAL: add(REPEATABILITY, APPRAISER, INTERACTION, PART),
-    }
+    zeroed = _zero_negative(coef, ms_x, notes)
+    combos = _combinations(coef)
     variances = {k: max(0.0, sum(c * ms_x[m] for m, c in v.items())) for k, v in combos.items()}
-    tolerance = None if lsl is None else float(usl) - float(lsl)
-    sd_total = math.sqrt(variances[TOTAL])
-    components = []
-    for name in COMPONENT_ORDER:
-        var = variances[name]
-        sd = math.sqrt(var)
-        if name == REPEATABILITY:
-            dfe = df_x[POOLED_ERROR if pooled else ERROR]
-            a = 1 - confidence
-            lo = math.sqrt(dfe * var / stats.chi2.ppf(1 - a / 2, dfe))
-            hi = math.sqrt(dfe * var / stats.chi2.ppf(a / 2, dfe))
-            nu, method = float(dfe), "chi-square"
-        elif name == INTERACTION and pooled:
-            lo = hi = nu = None
-            method = "pooled into repeatability"
-        else:
-            lo, hi, nu = _satterthwaite(combos[name], ms_x, df_x, confidence)
-            method = "Satterthwaite"
-        components.append(
-            VarianceComponent(
-                name=name,
-                variance=var,
-                sigma=sd,
-                study_variation=study_variation * sd,
-                pct_contribution=100 * var / variances[TOTAL] if variances[TOTAL] > 0 else None,
-                pct_study_variation=100 * sd / sd_total if sd_total > 0 else None,
-                pct_tolerance=100 * study_variation * sd / tolerance if tolerance else None,
-                lower=lo,
-                upper=hi,
-                interval_df=nu,
-                interval_method=method,
-                set_to_zero=name in zeroed,
-            )
-        )
-    no_ci = [
-        c.name
-        for c in components
-        if c.lower is None and c.variance > 0 and c.interval_method == "Satterthwaite"
-    ]
-    if no_ci:
-        notes.append(
-            "No confidence interval for " + ", ".join(no_ci) + ": fewer than "
-            f"{MIN_INTERVAL_DF:g} Satterthwaite degree(s) of freedom; the study is too small to "
-            "bound these components (more appraisers or parts would help)."
-        )
-    sd_grr = math.sqrt(variances[GAUGE_RR])
-    sd_part = math.sqrt(variances[PART])
-    ratio = sd_part / sd_grr if sd_grr > 0 else None
-    ndc = None if ratio is None else int(math.floor(1.41 * ratio + 1e-12))
-    if ratio is None:
-        notes.append("The gauge shows no measurement variation; ndc is undefined.")
-    if p < FEW_PARTS:
-        notes.append(
-            f"Only {p} parts: the part-to-part sigma, and so %GRR and ndc, rest on {p - 1} "
-            f"degree(s) of freedom; {FEW_PARTS_USUAL} parts spanning the process range is the "
-            "usual plan (common practice, no source)."
-        )
+    tolerance = None if lsl is None or usl is None else float(usl) - float(lsl)
+    components = _components(
+        variances, combos, ms_x, df_x, pooled, zeroed, study_variation, tolerance, confidence
+    )
+    ratio, ndc = _ndc(variances)
     charts = _chart_limits(cube, part_levels, appr_levels)
-    if charts.ranges_above_ucl:
-        cells = ", ".join(f"part {a} by appraiser {b}" for a, b in charts.ranges_above_ucl[:5])
-        notes.append(
-            f"Range above the range chart's upper limit: {cells}. Check for a misreading, a "
-            "damaged part or a measuring-position error there before trusting repeatability."
-        )
+    notes += _study_notes(components, ratio, p, charts)
     rm = _range_method(cube, study_variation, tolerance)
     comp = {c.name: c for c in components}
     verdict = _verdict(comp, ndc, tolerance is not None)
@@ -985,6 +854,179 @@ def gauge_rr(
         charts=charts,
         notes=tuple(notes),
     )
+
+
+def _anova_full(an: dict) -> tuple[tuple, float | None]:
+    """The ANOVA table with the interaction term, and the interaction's p-value."""
+    ss, df, ms = an["ss"], an["df"], an["ms"]
+    f_pa, p_pa = _fp(ms[INTERACTION], ms[ERROR], df[INTERACTION], df[ERROR])
+    f_p, p_p = _fp(ms[PART], ms[INTERACTION], df[PART], df[INTERACTION])
+    f_a, p_a = _fp(ms[APPRAISER], ms[INTERACTION], df[APPRAISER], df[INTERACTION])
+    anova_full = (
+        AnovaRow(PART, df[PART], ss[PART], ms[PART], f_p, p_p),
+        AnovaRow(APPRAISER, df[APPRAISER], ss[APPRAISER], ms[APPRAISER], f_a, p_a),
+        AnovaRow(INTERACTION, df[INTERACTION], ss[INTERACTION], ms[INTERACTION], f_pa, p_pa),
+        AnovaRow(REPEATABILITY, df[ERROR], ss[ERROR], ms[ERROR], None, None),
+        AnovaRow(TOTAL, an["df_total"], an["ss_total"], None, None, None),
+    )
+    return anova_full, p_pa
+
+
+def _pooled_model(an: dict, p: int, o: int, r: int) -> tuple[tuple, dict, dict, dict]:
+    """The ANOVA table, mean squares, df and component coefficients with the interaction
+    pooled into the error."""
+    ss, df, ms = an["ss"], an["df"], an["ms"]
+    df_err = df[INTERACTION] + df[ERROR]
+    ms_err = (ss[INTERACTION] + ss[ERROR]) / df_err
+    f_p2, p_p2 = _fp(ms[PART], ms_err, df[PART], df_err)
+    f_a2, p_a2 = _fp(ms[APPRAISER], ms_err, df[APPRAISER], df_err)
+    anova_used = (
+        AnovaRow(PART, df[PART], ss[PART], ms[PART], f_p2, p_p2),
+        AnovaRow(APPRAISER, df[APPRAISER], ss[APPRAISER], ms[APPRAISER], f_a2, p_a2),
+        AnovaRow(REPEATABILITY, df_err, ss[INTERACTION] + ss[ERROR], ms_err, None, None),
+        AnovaRow(TOTAL, an["df_total"], an["ss_total"], None, None, None),
+    )
+    ms_x = dict(ms)
+    ms_x[POOLED_ERROR] = ms_err
+    df_x = dict(df)
+    df_x[POOLED_ERROR] = df_err
+    coef = {
+        REPEATABILITY: {POOLED_ERROR: 1.0},
+        APPRAISER: {APPRAISER: 1 / (p * r), POOLED_ERROR: -1 / (p * r)},
+        INTERACTION: {},
+        PART: {PART: 1 / (o * r), POOLED_ERROR: -1 / (o * r)},
+    }
+    return anova_used, ms_x, df_x, coef
+
+
+def _full_model(
+    anova_full: tuple, an: dict, p: int, o: int, r: int
+) -> tuple[tuple, dict, dict, dict]:
+    """The ANOVA table, mean squares, df and component coefficients with the interaction kept."""
+    coef = {
+        REPEATABILITY: {ERROR: 1.0},
+        APPRAISER: {APPRAISER: 1 / (p * r), INTERACTION: -1 / (p * r)},
+        INTERACTION: {INTERACTION: 1 / r, ERROR: -1 / r},
+        PART: {PART: 1 / (o * r), INTERACTION: -1 / (o * r)},
+    }
+    return anova_full, dict(an["ms"]), dict(an["df"]), coef
+
+
+def _zero_negative(coef: dict, ms_x: dict, notes: list[str]) -> list[str]:
+    """Set components with a negative estimate to 0 (their coefficients emptied), with a note."""
+    raw = {k: sum(c * ms_x[m] for m, c in v.items()) for k, v in coef.items()}
+    zeroed = [k for k in (APPRAISER, INTERACTION, PART) if coef[k] and raw[k] < 0]
+    for k in zeroed:
+        coef[k] = {}
+    if zeroed:
+        notes.append(
+            "Negative variance estimate(s) set to 0: " + ", ".join(zeroed) + " (the mean square "
+            "was smaller than the one it is compared with; the true component is small)."
+        )
+    return zeroed
+
+
+def _combinations(coef: dict) -> dict[str, dict[str, float]]:
+    """Each reported component as a linear combination of mean squares."""
+
+    def add(*names):
+        out: dict[str, float] = {}
+        for nm in names:
+            for m, c in coef[nm].items():
+                out[m] = out.get(m, 0.0) + c
+        return out
+
+    return {
+        REPEATABILITY: coef[REPEATABILITY],
+        APPRAISER: coef[APPRAISER],
+        INTERACTION: coef[INTERACTION],
+        REPRODUCIBILITY: add(APPRAISER, INTERACTION),
+        GAUGE_RR: add(REPEATABILITY, APPRAISER, INTERACTION),
+        PART: coef[PART],
+        TOTAL: add(REPEATABILITY, APPRAISER, INTERACTION, PART),
+    }
+
+
+def _components(
+    variances, combos, ms_x, df_x, pooled, zeroed, study_variation, tolerance, confidence
+) -> list[VarianceComponent]:
+    """The variance components in report order, with their shares and intervals."""
+    sd_total = math.sqrt(variances[TOTAL])
+    components = []
+    for name in COMPONENT_ORDER:
+        var = variances[name]
+        sd = math.sqrt(var)
+        lo, hi, nu, method = _component_interval(name, var, combos, ms_x, df_x, pooled, confidence)
+        components.append(
+            VarianceComponent(
+                name=name,
+                variance=var,
+                sigma=sd,
+                study_variation=study_variation * sd,
+                pct_contribution=100 * var / variances[TOTAL] if variances[TOTAL] > 0 else None,
+                pct_study_variation=100 * sd / sd_total if sd_total > 0 else None,
+                pct_tolerance=100 * study_variation * sd / tolerance if tolerance else None,
+                lower=lo,
+                upper=hi,
+                interval_df=nu,
+                interval_method=method,
+                set_to_zero=name in zeroed,
+            )
+        )
+    return components
+
+
+def _component_interval(name, var, combos, ms_x, df_x, pooled, confidence) -> tuple:
+    """Interval on one component's sigma: (lower, upper, df, method); None bounds when none."""
+    if name == REPEATABILITY:
+        dfe = df_x[POOLED_ERROR if pooled else ERROR]
+        a = 1 - confidence
+        lo = math.sqrt(dfe * var / stats.chi2.ppf(1 - a / 2, dfe))
+        hi = math.sqrt(dfe * var / stats.chi2.ppf(a / 2, dfe))
+        return lo, hi, float(dfe), "chi-square"
+    if name == INTERACTION and pooled:
+        return None, None, None, "pooled into repeatability"
+    return (*_satterthwaite(combos[name], ms_x, df_x, confidence), "Satterthwaite")
+
+
+def _ndc(variances: dict) -> tuple[float | None, int | None]:
+    """The classification ratio sigma_part / sigma_grr and ndc = floor(1.41 x ratio)."""
+    sd_grr = math.sqrt(variances[GAUGE_RR])
+    sd_part = math.sqrt(variances[PART])
+    ratio = sd_part / sd_grr if sd_grr > 0 else None
+    ndc = None if ratio is None else int(math.floor(1.41 * ratio + 1e-12))
+    return ratio, ndc
+
+
+def _study_notes(components, ratio, p: int, charts) -> list[str]:
+    """Notes on missing intervals, an undefined ndc, few parts and ranges above the limit."""
+    notes: list[str] = []
+    no_ci = [
+        c.name
+        for c in components
+        if c.lower is None and c.variance > 0 and c.interval_method == "Satterthwaite"
+    ]
+    if no_ci:
+        notes.append(
+            "No confidence interval for " + ", ".join(no_ci) + ": fewer than "
+            f"{MIN_INTERVAL_DF:g} Satterthwaite degree(s) of freedom; the study is too small to "
+            "bound these components (more appraisers or parts would help)."
+        )
+    if ratio is None:
+        notes.append("The gauge shows no measurement variation; ndc is undefined.")
+    if p < FEW_PARTS:
+        notes.append(
+            f"Only {p} parts: the part-to-part sigma, and so %GRR and ndc, rest on {p - 1} "
+            f"degree(s) of freedom; {FEW_PARTS_USUAL} parts spanning the process range is the "
+            "usual plan (common practice, no source)."
+        )
+    if charts.ranges_above_ucl:
+        cells = ", ".join(f"part {a} by appraiser {b}" for a, b in charts.ranges_above_ucl[:5])
+        notes.append(
+            f"Range above the range chart's upper limit: {cells}. Check for a misreading, a "
+            "damaged part or a measuring-position error there before trusting repeatability."
+        )
+    return notes
 
 
 def _check_options(alpha, k, lsl, usl, confidence) -> None:
@@ -1086,10 +1128,10 @@ def _verdict(comp: dict, ndc: int | None, has_tol: bool) -> GaugeVerdict:
     pct_sv = comp[GAUGE_RR].pct_study_variation
     pct_tol = comp[GAUGE_RR].pct_tolerance if has_tol else None
     rank = {ACCEPTABLE: 0, CONDITIONAL: 1, UNACCEPTABLE: 2}
-    bands = {"study variation": _band(pct_sv)}
+    banded = {"study variation": _band(pct_sv)}
     if has_tol:
-        bands["tolerance"] = _band(pct_tol)
-    bands = {k: v for k, v in bands.items() if v is not None}
+        banded["tolerance"] = _band(pct_tol)
+    bands = {k: v for k, v in banded.items() if v is not None}
     if not bands:  # no variation at all: nothing to judge against
         status, basis = UNACCEPTABLE, "study variation"
     else:

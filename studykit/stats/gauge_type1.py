@@ -170,6 +170,7 @@ def _positive(value, name: str, example: str) -> float:
     return v
 
 
+# long: signature and numpydoc docstring take 54 lines; the body is the Cg/Cgk formulas and the result
 def short_gauge_study(
     values,
     *,
@@ -224,68 +225,28 @@ def short_gauge_study(
     >>> round(r.cg, 4), round(r.cgk, 4), round(r.bias, 4)
     (2.8868, 2.3094, 0.002)
     """
-    y = np.asarray(values, dtype=float).ravel()
-    bad = np.flatnonzero(~np.isfinite(y))
-    if bad.size:
-        raise AnalysisError(
-            f"the readings have {bad.size} missing or non-finite value(s) (first at position "
-            f"{int(bad[0])}, 0-based); remove or re-measure them"
-        )
-    if y.size < 2:
-        raise AnalysisError(
-            f"a short gauge study needs at least 2 readings of the reference part; found "
-            f"{y.size} (25 or more is the usual plan)"
-        )
-    if (
-        isinstance(reference, bool)
-        or not isinstance(reference, int | float | np.integer | np.floating)
-        or not math.isfinite(reference)
-    ):
-        raise SpecError(
-            f"`reference` ({reference!r}) must be the part's reference value, a finite number"
-        )
-    reference = float(reference)
-    if tolerance is not None:
-        if lsl is not None or usl is not None:
-            raise SpecError("give either `tolerance` or `lsl` and `usl`, not both")
-        t_width = _positive(tolerance, "tolerance", "0.1")
-        lsl_v, usl_v = reference - t_width / 2, reference + t_width / 2
-    else:
-        if lsl is None or usl is None:
-            raise SpecError(
-                "Cg and Cgk need the tolerance: give `tolerance`, or both `lsl` and `usl`"
-            )
-        lsl_v, usl_v = float(lsl), float(usl)
-        if not (math.isfinite(lsl_v) and math.isfinite(usl_v)):
-            raise SpecError(f"`lsl` ({lsl!r}) and `usl` ({usl!r}) must be finite numbers")
-        if usl_v <= lsl_v:
-            raise SpecError(f"`usl` ({usl}) must be greater than `lsl` ({lsl})")
-        t_width = usl_v - lsl_v
-    k = _positive(k_percent, "k_percent", "20")
-    if k > 100:
-        raise SpecError(
-            f"`k_percent` ({k_percent!r}) is a share of the tolerance in percent; "
-            "use a value up to 100, e.g. 20"
-        )
-    ell = _positive(l_sigmas, "l_sigmas", "6 (or 4)")
-    if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 < alpha < 1:
-        raise SpecError(f"`alpha` ({alpha!r}) must be between 0 and 1, e.g. 0.05")
-    mn = _positive(minimum, "minimum", "1.33")
-
+    y = _readings(values)
+    reference, lsl_v, usl_v, t_width = _limits(reference, lsl, usl, tolerance)
+    k, ell, mn = _check_factors(k_percent, l_sigmas, alpha, minimum)
     n = int(y.size)
     mean = float(np.mean(y))
     sd = float(np.std(y, ddof=1))
     bias = mean - reference
     df = n - 1
     notes: list[str] = []
+    cg: float | None
+    cgk: float | None
+    t_stat: float | None
+    p_value: float | None
+    lo: float | None
+    hi: float | None
+    pct_r: float | None
+    pct_rb: float | None
+    significant: bool | None
     if sd > 0:
         cg = (k / 100.0 * t_width) / (ell * sd)
         cgk = (k / 200.0 * t_width - abs(bias)) / (ell / 2.0 * sd)
-        se = sd / math.sqrt(n)
-        t_stat = bias / se
-        p_value = float(2.0 * stats.t.sf(abs(t_stat), df))
-        half = float(stats.t.ppf(1 - alpha / 2, df)) * se
-        lo, hi = bias - half, bias + half
+        t_stat, p_value, lo, hi = _bias_test(bias, sd, n, alpha)
         significant = p_value < alpha
         pct_r = k / cg
         pct_rb = k / cgk if cgk > 0 else None
@@ -308,30 +269,7 @@ def short_gauge_study(
             "Cgk is zero or negative: the bias alone uses up the share of the tolerance "
             "granted to the gauge."
         )
-
-    if cg is None:
-        status = NOT_CAPABLE
-        message = (
-            "The short gauge study cannot be judged: the readings have no spread (see the notes)."
-        )
-    else:
-        ok = cg >= mn and cgk >= mn
-        status = CAPABLE if ok else NOT_CAPABLE
-        low = [nm for nm, v in (("Cg", cg), ("Cgk", cgk)) if v < mn]
-        message = (
-            f"The gauge is {status} on this reference part: Cg = {cg:.2f}, Cgk = "
-            f"{cgk:.2f} (K = {k:g} % of the tolerance, L = {ell:g} sigma; both must be at "
-            f"least {mn:g}, common practice)"
-        )
-        message += "." if ok else f"; {' and '.join(low)} below the limit."
-        if significant:
-            message += (
-                f" The bias {bias:.4g} is significant (t = {t_stat:.3g}, p = "
-                f"{p_value:.3g} < {alpha:g}): correct the gauge's zero or setting against "
-                "the reference" + (" even though Cgk passes." if ok else ".")
-            )
-        else:
-            message += f" The bias {bias:.4g} is not significant (p = {p_value:.3g} >= {alpha:g})."
+    status, message = _judge(cg, cgk, k, ell, mn, bias, significant, t_stat, p_value, alpha)
     return ShortGaugeResult(
         values=y,
         n=n,
@@ -361,3 +299,97 @@ def short_gauge_study(
         message=message,
         notes=tuple(notes),
     )
+
+
+def _readings(values) -> np.ndarray:
+    """The readings as floats: all finite, at least 2."""
+    y = np.asarray(values, dtype=float).ravel()
+    bad = np.flatnonzero(~np.isfinite(y))
+    if bad.size:
+        raise AnalysisError(
+            f"the readings have {bad.size} missing or non-finite value(s) (first at position "
+            f"{int(bad[0])}, 0-based); remove or re-measure them"
+        )
+    if y.size < 2:
+        raise AnalysisError(
+            f"a short gauge study needs at least 2 readings of the reference part; found "
+            f"{y.size} (25 or more is the usual plan)"
+        )
+    return y
+
+
+def _limits(reference, lsl, usl, tolerance) -> tuple[float, float, float, float]:
+    """The reference value, the limits and the tolerance width T, checked."""
+    if (
+        isinstance(reference, bool)
+        or not isinstance(reference, int | float | np.integer | np.floating)
+        or not math.isfinite(reference)
+    ):
+        raise SpecError(
+            f"`reference` ({reference!r}) must be the part's reference value, a finite number"
+        )
+    reference = float(reference)
+    if tolerance is not None:
+        if lsl is not None or usl is not None:
+            raise SpecError("give either `tolerance` or `lsl` and `usl`, not both")
+        t_width = _positive(tolerance, "tolerance", "0.1")
+        return reference, reference - t_width / 2, reference + t_width / 2, t_width
+    if lsl is None or usl is None:
+        raise SpecError("Cg and Cgk need the tolerance: give `tolerance`, or both `lsl` and `usl`")
+    lsl_v, usl_v = float(lsl), float(usl)
+    if not (math.isfinite(lsl_v) and math.isfinite(usl_v)):
+        raise SpecError(f"`lsl` ({lsl!r}) and `usl` ({usl!r}) must be finite numbers")
+    if usl_v <= lsl_v:
+        raise SpecError(f"`usl` ({usl}) must be greater than `lsl` ({lsl})")
+    return reference, lsl_v, usl_v, usl_v - lsl_v
+
+
+def _check_factors(k_percent, l_sigmas, alpha, minimum) -> tuple[float, float, float]:
+    """K, L and the minimum, checked (and alpha checked)."""
+    k = _positive(k_percent, "k_percent", "20")
+    if k > 100:
+        raise SpecError(
+            f"`k_percent` ({k_percent!r}) is a share of the tolerance in percent; "
+            "use a value up to 100, e.g. 20"
+        )
+    ell = _positive(l_sigmas, "l_sigmas", "6 (or 4)")
+    if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 < alpha < 1:
+        raise SpecError(f"`alpha` ({alpha!r}) must be between 0 and 1, e.g. 0.05")
+    mn = _positive(minimum, "minimum", "1.33")
+    return k, ell, mn
+
+
+def _bias_test(bias: float, sd: float, n: int, alpha: float) -> tuple[float, float, float, float]:
+    """The one-sample t-test of the bias: t, two-sided p and the confidence bounds."""
+    df = n - 1
+    se = sd / math.sqrt(n)
+    t_stat = bias / se
+    p_value = float(2.0 * stats.t.sf(abs(t_stat), df))
+    half = float(stats.t.ppf(1 - alpha / 2, df)) * se
+    return t_stat, p_value, bias - half, bias + half
+
+
+def _judge(cg, cgk, k, ell, mn, bias, significant, t_stat, p_value, alpha) -> tuple[str, str]:
+    """The status (capable or not) and the message that explains it."""
+    if cg is None:
+        return NOT_CAPABLE, (
+            "The short gauge study cannot be judged: the readings have no spread (see the notes)."
+        )
+    ok = cg >= mn and cgk >= mn
+    status = CAPABLE if ok else NOT_CAPABLE
+    low = [nm for nm, v in (("Cg", cg), ("Cgk", cgk)) if v < mn]
+    message = (
+        f"The gauge is {status} on this reference part: Cg = {cg:.2f}, Cgk = "
+        f"{cgk:.2f} (K = {k:g} % of the tolerance, L = {ell:g} sigma; both must be at "
+        f"least {mn:g}, common practice)"
+    )
+    message += "." if ok else f"; {' and '.join(low)} below the limit."
+    if significant:
+        message += (
+            f" The bias {bias:.4g} is significant (t = {t_stat:.3g}, p = "
+            f"{p_value:.3g} < {alpha:g}): correct the gauge's zero or setting against "
+            "the reference" + (" even though Cgk passes." if ok else ".")
+        )
+    else:
+        message += f" The bias {bias:.4g} is not significant (p = {p_value:.3g} >= {alpha:g})."
+    return status, message

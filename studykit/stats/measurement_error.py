@@ -299,6 +299,7 @@ def _one(basis, sigma, df, var_g, df_g, mean, lsl, usl, level):
     )
 
 
+# long: signature and numpydoc docstring take 62 lines; the body calls named steps
 def remove_gauge_variance(
     *,
     gauge_sigma: float,
@@ -361,6 +362,36 @@ def remove_gauge_variance(
 round(r.overall.process["pp"], 3)
     (0.4, 2.0, 2.5)
     """
+    _check_inputs(gauge_sigma, mean, lsl, usl, confidence, max_gauge_share)
+    if gauge_df is not None and not gauge_df > 0:
+        gauge_df = None
+    var_g = float(gauge_sigma) ** 2
+    parts = {}
+    rest = (var_g, gauge_df, float(mean), lsl, usl, confidence)  # shared by both sigmas
+    if within_sigma is not None and within_sigma > 0:
+        parts["within"] = _one("within", float(within_sigma), within_df, *rest)
+    if overall_sigma is not None and overall_sigma > 0:
+        df_o = None if n is None or n < 2 else float(n - 1)
+        parts["overall"] = _one("overall", float(overall_sigma), df_o, *rest)
+    if not parts:
+        raise AnalysisError(
+            "no observed sigma to correct: give `within_sigma` or `overall_sigma` (positive)"
+        )
+    warn = _warnings(parts, max_gauge_share, confidence, gauge_df, var_g)
+    return MeasurementErrorResult(
+        gauge_sigma=float(gauge_sigma),
+        gauge_df=gauge_df,
+        gauge_source=gauge_source,
+        level=float(confidence),
+        max_gauge_share=float(max_gauge_share),
+        within=parts.get("within"),
+        overall=parts.get("overall"),
+        warnings=tuple(warn),
+    )
+
+
+def _check_inputs(gauge_sigma, mean, lsl, usl, confidence, max_gauge_share) -> None:
+    """Reject a missing or negative gauge sigma, no limit, and levels out of range."""
     for nm, v in (("gauge_sigma", gauge_sigma), ("mean", mean)):
         if v is None or not math.isfinite(float(v)):
             raise AnalysisError(f"`{nm}` ({v!r}) must be a finite number")
@@ -372,39 +403,10 @@ round(r.overall.process["pp"], 3)
         raise SpecError(f"`confidence` ({confidence!r}) must be between 0 and 1, e.g. 0.95")
     if not 0 < max_gauge_share <= 1:
         raise SpecError(f"`max_gauge_share` ({max_gauge_share!r}) must be in (0, 1], e.g. 0.5")
-    if gauge_df is not None and not gauge_df > 0:
-        gauge_df = None
-    var_g = float(gauge_sigma) ** 2
-    parts = {}
-    if within_sigma is not None and within_sigma > 0:
-        parts["within"] = _one(
-            "within",
-            float(within_sigma),
-            within_df,
-            var_g,
-            gauge_df,
-            float(mean),
-            lsl,
-            usl,
-            confidence,
-        )
-    if overall_sigma is not None and overall_sigma > 0:
-        df_o = None if n is None or n < 2 else float(n - 1)
-        parts["overall"] = _one(
-            "overall",
-            float(overall_sigma),
-            df_o,
-            var_g,
-            gauge_df,
-            float(mean),
-            lsl,
-            usl,
-            confidence,
-        )
-    if not parts:
-        raise AnalysisError(
-            "no observed sigma to correct: give `within_sigma` or `overall_sigma` (positive)"
-        )
+
+
+def _warnings(parts: dict, max_gauge_share, confidence, gauge_df, var_g: float) -> list[str]:
+    """Cautions: a large gauge share, a process variance not told from zero, no gauge df."""
     warn: list[str] = []
     share = max(p.gauge_share for p in parts.values())
     if share >= 1:
@@ -437,16 +439,7 @@ round(r.overall.process["pp"], 3)
             "The gauge sigma has no degrees of freedom recorded: the process-only "
             "figures are given without an interval."
         )
-    return MeasurementErrorResult(
-        gauge_sigma=float(gauge_sigma),
-        gauge_df=gauge_df,
-        gauge_source=gauge_source,
-        level=float(confidence),
-        max_gauge_share=float(max_gauge_share),
-        within=parts.get("within"),
-        overall=parts.get("overall"),
-        warnings=tuple(warn),
-    )
+    return warn
 
 
 def gauge_sigma_from_stored(payload: Mapping) -> tuple[float, float | None] | None:

@@ -22,6 +22,7 @@ __all__ = [
     "ShapiroWilkResult",
     "ProbabilityPlot",
     "anderson_darling",
+    "ad_p_value_adjusted",
     "shapiro_wilk",
     "plotting_positions",
     "probability_plot",
@@ -50,8 +51,9 @@ def _clean(x, *, name="x", minimum=3):
     )
 
 
-def _ad_pvalue(a2_star: float) -> float:
-    """D'Agostino & Stephens (1986) Table 4.9 p-value for the adjusted statistic."""
+def ad_p_value_adjusted(a2_star: float) -> float:
+    """D'Agostino & Stephens (1986) Table 4.9 p-value for the adjusted statistic (mean and
+    variance estimated; also used by the normal family's goodness-of-fit)."""
     a = a2_star
     if a >= 153.0:
         # the quadratic has its minimum at a = 5.709 / (2 * 0.0186) = 153.5 (p < 1e-189 there)
@@ -146,7 +148,9 @@ def anderson_darling(x) -> AndersonDarlingResult:
     i = np.arange(1, n + 1)
     a2 = float(-n - np.sum((2 * i - 1) * (logcdf + logsf[::-1])) / n)
     a2_star = a2 * (1.0 + 0.75 / n + 2.25 / n**2)
-    return AndersonDarlingResult(a2=a2, a2_star=float(a2_star), p_value=_ad_pvalue(a2_star), n=n)
+    return AndersonDarlingResult(
+        a2=a2, a2_star=float(a2_star), p_value=ad_p_value_adjusted(a2_star), n=n
+    )
 
 
 @dataclass(frozen=True)
@@ -355,15 +359,7 @@ def probability_plot(
     mean, sigma = float(arr.mean()), float(arr.std(ddof=1))
     lower = upper = outside = None
     if band is not None:
-        if band == "beta_pointwise":
-            i = np.arange(1, n + 1)
-            qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
-            qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
-        else:
-            d = float(stats.kstwo.ppf(level, n))
-            tiny = 1e-12
-            qlo = np.clip(p - d, tiny, 1 - tiny)
-            qhi = np.clip(p + d, tiny, 1 - tiny)
+        qlo, qhi = _band_probabilities(band, p, n, level)
         lo = mean + sigma * special.ndtri(qlo)  # scipy.stats.norm.ppf
         hi = mean + sigma * special.ndtri(qhi)
         out = (arr < lo) | (arr > hi)
@@ -382,3 +378,15 @@ def probability_plot(
         level=float(level),
         n=n,
     )
+
+
+def _band_probabilities(band: str, p: np.ndarray, n: int, level: float) -> tuple:
+    """The band's lower and upper probabilities at each plotting position."""
+    if band == "beta_pointwise":
+        i = np.arange(1, n + 1)
+        qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+        qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+        return qlo, qhi
+    d = float(stats.kstwo.ppf(level, n))
+    tiny = 1e-12
+    return np.clip(p - d, tiny, 1 - tiny), np.clip(p + d, tiny, 1 - tiny)

@@ -306,13 +306,15 @@ def _flagged(
     found: dict[int, list] = {}
     if not np.any(np.asarray(series.sigma) > 0):
         return found  # a chart that is its centre line (no defective at all): nothing signals
-    adjusted = chance is not None and chance.adjusted
+    lcl, ucl = series.lcl, series.ucl
+    if chance is not None and chance.adjusted:
+        lcl, ucl = chance.lower, chance.upper
     sigs = evaluate_series(
         series.points,
         center=series.center,
         sigma=series.sigma,
-        lcl=chance.lower if adjusted else series.lcl,
-        ucl=chance.upper if adjusted else series.ucl,
+        lcl=lcl,
+        ucl=ucl,
         rules=rules,
         labels=labels,
     )
@@ -332,6 +334,7 @@ def _chances(chart: ControlChart, attribute: bool) -> tuple:
     )
 
 
+# long: signature and numpydoc docstring take 78 lines; the body is the round loop over named steps
 def phase1(
     values,
     subgroups=None,
@@ -411,6 +414,89 @@ def phase1(
     >>> res.stopped
     'stable'
     """
+    _check_options(max_iterations, mr_removal)
+    attribute = kind in ATTRIBUTE_KINDS
+    data = _prepare(values, subgroups, sizes, attribute)
+    removed, removals = _manual_exclusions(exclude, excluded_by, data)
+    scales: list = []
+
+    def build(kind_now):
+        return _kept_chart(
+            data, removed, kind_now, rescale, scales, rules, dispersion_rules, chart_options
+        )
+
+    chart = build(kind)
+    trial = chart
+    kind_fixed = chart.kind
+    iterations = 0
+    stopped = "stable"
+    chances_of = None
+    while True:
+        flags = _round_flags(chart, attribute, removal_rules, removal_dispersion_rules, mr_removal)
+        chances_of = (chart, flags.loc_chance, flags.disp_chance)
+        positions = flags.positions()
+        stopped = _stop_reason(positions, iterations, max_iterations, chart.n_subgroups)
+        if stopped:
+            break
+        iterations += 1
+        # chart position -> subgroup code (attribute charts plot one point per count)
+        kept_codes = (
+            data.groups.codes[np.flatnonzero(~removed[data.groups.codes])]
+            if attribute
+            else np.flatnonzero(~removed)
+        )
+        scale = scales[-1] if scales else None
+        for pos in positions:
+            removals.append(
+                _auto_removal(chart, flags, pos, iterations, scale, mr_removal, data, kept_codes)
+            )
+        removed[kept_codes[positions]] = True
+        del flags
+        chances_of = None
+        chart = None  # the next round's chart replaces this one (one chart in memory)
+        chart = build(kind_fixed)
+
+    if chart.reason != trial.reason and kind == "auto":
+        # rebuilt with the kind fixed in round 1: keep the reason the automatic choice gave
+        chart = dataclasses.replace(chart, reason=trial.reason)
+    total = data.n_items
+    kept_n = chart.n_values
+    share = 1.0 - kept_n / total
+    notes = _heavy_removal_notes(share, chart, attribute, max_removed_share, min_subgroups)
+    for msg in notes:
+        warnings.warn(msg, HeavyRemovalWarning, stacklevel=2)
+    notes += _stop_notes(stopped, max_iterations)
+    kept_mask = ~removed[data.groups.codes]
+    raw_chart = None
+    if scales and scales[-1].name != "raw":
+        raw_chart = _raw_chart(
+            data, kept_mask, kind_fixed, rules, dispersion_rules, chart_options, trial, kind
+        )
+    n_manual, n_auto = _removed_counts(removals, attribute)
+    return Phase1Result(
+        chart=chart,
+        trial_chart=trial,
+        removals=tuple(removals),
+        iterations=iterations,
+        stopped=stopped,
+        removal_rules=_text(removal_rules),
+        removal_dispersion_rules=_text(removal_dispersion_rules),
+        n_values_total=int(total),
+        n_values_kept=int(kept_n),
+        removed_share=float(share) if math.isfinite(share) else 0.0,
+        warnings=tuple(notes),
+        scale=scales[-1] if scales else None,
+        n_removed_manual=int(n_manual),
+        n_removed_auto=int(n_auto),
+        raw_chart=raw_chart,
+        mr_removal=mr_removal,
+        chance=_final_chances(chart, attribute, chances_of),
+        kept_mask=kept_mask,
+    )
+
+
+def _check_options(max_iterations, mr_removal: str) -> None:
+    """Reject a round limit that is not a whole number >= 0 and an unknown ``mr_removal``."""
     if isinstance(max_iterations, bool) or not isinstance(max_iterations, int | np.integer):
         raise StudyInputError(
             f"`max_iterations` ({max_iterations!r}) must be a whole number of rounds, e.g. 10."
@@ -422,9 +508,25 @@ def phase1(
             f"`mr_removal` ({mr_removal!r}) must be 'later' or 'both' (which reading of a "
             "signalling moving range is removed)."
         )
-    attribute = kind in ATTRIBUTE_KINDS
+
+
+@dataclass(frozen=True, eq=False)
+class _Data:
+    """The values, their subgroup codes, sizes and per-subgroup counts, as phase I uses them."""
+
+    x: np.ndarray
+    n_items: int
+    groups: SubgroupCodes
+    size_arr: np.ndarray | None
+    counts: np.ndarray
+    attribute: bool
+
+
+def _prepare(values, subgroups, sizes, attribute: bool) -> _Data:
+    """Values as an array, subgroup labels as integer codes, and the values per subgroup."""
     x = np.asarray(values, dtype=float).ravel() if not attribute else np.asarray(values)
     n_items = x.shape[0]
+    sub: SubgroupCodes | np.ndarray
     if subgroups is None:
         sub = np.arange(1, n_items + 1)
     else:
@@ -441,16 +543,20 @@ def phase1(
             size_arr = np.full(n_items, size_arr[0])
     # subgroups as integer codes (labels read only for what is logged or shown)
     groups = SubgroupCodes.of(sub)
-    names = groups.names
-    n_groups = names.shape[0]
+    n_groups = groups.names.shape[0]
     if attribute and size_arr is not None:
         # items per subgroup, summed in data order
         counts = np.bincount(groups.codes, weights=size_arr, minlength=n_groups)
     else:
         counts = np.bincount(groups.codes, minlength=n_groups)
+    return _Data(x, n_items, groups, size_arr, counts, attribute)
 
+
+def _manual_exclusions(exclude, excluded_by, data: _Data) -> tuple[np.ndarray, list[Removal]]:
+    """The removed-subgroup mask and the log entries of the engineer's recorded exclusions."""
+    names = data.groups.names
     removals: list[Removal] = []
-    removed = np.zeros(n_groups, dtype=bool)
+    removed = np.zeros(names.shape[0], dtype=bool)
     for label, entry in (exclude or {}).items():
         key = _plain_label(label)
         code = _find_code(names, key)
@@ -472,135 +578,145 @@ def phase1(
                 f"`exclude[{label!r}]` has no reason; say why the subgroup is left out."
             )
         removed[code] = True
-        removals.append(Removal(key, "manual", None, 0, reason, who, int(counts[code])))
+        removals.append(Removal(key, "manual", None, 0, reason, who, int(data.counts[code])))
+    return removed, removals
 
-    scales: list = []
 
-    def build(kind_now):
-        mask = ~removed[groups.codes]
-        if not mask.any():
-            raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
-        xs, extra = (x if mask.all() else x[mask]), {}
-        if rescale is not None and not attribute:
-            sc = rescale(xs)
-            scales.append(sc)
-            xs = np.asarray(sc.values, dtype=float)
-            if sc.mu is not None:
-                extra["mu"] = sc.mu
-            if sc.sigma is not None:
-                extra["sigma"] = sc.sigma
-        return control_chart(
-            xs,
-            groups.select(mask),
-            kind=kind_now,
-            sizes=None if size_arr is None else size_arr[mask],
-            rules=rules,
-            dispersion_rules=dispersion_rules,
-            **{**chart_options, **extra},
-        )
+def _kept_chart(
+    data: _Data, removed, kind_now, rescale, scales: list, rules, dispersion_rules, chart_options
+) -> ControlChart:
+    """The chart of the subgroups not removed, on the ``rescale`` scale (appended to
+    ``scales``) when one is given."""
+    mask = ~removed[data.groups.codes]
+    if not mask.any():
+        raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
+    x = data.x
+    xs, extra = (x if mask.all() else x[mask]), {}
+    if rescale is not None and not data.attribute:
+        sc = rescale(xs)
+        scales.append(sc)
+        xs = np.asarray(sc.values, dtype=float)
+        if sc.mu is not None:
+            extra["mu"] = sc.mu
+        if sc.sigma is not None:
+            extra["sigma"] = sc.sigma
+    return control_chart(
+        xs,
+        data.groups.select(mask),
+        kind=kind_now,
+        sizes=None if data.size_arr is None else data.size_arr[mask],
+        rules=rules,
+        dispersion_rules=dispersion_rules,
+        **{**chart_options, **extra},
+    )
 
-    chart = build(kind)
-    trial = chart
-    kind_fixed = chart.kind
-    iterations = 0
-    stopped = "stable"
-    chances_of = None
-    while True:
-        loc_chance, disp_chance = _chances(chart, attribute)
-        chances_of = (chart, loc_chance, disp_chance)
-        loc_flags = _flagged(chart.location, removal_rules, chart.labels, loc_chance)
-        disp_flags = (
-            {}
-            if chart.dispersion is None
-            else _flagged(chart.dispersion, removal_dispersion_rules, chart.labels, disp_chance)
-        )
-        if chart.kind == "imr" and disp_flags:
-            kept = {}
-            for pos, sigs in disp_flags.items():
-                if pos in loc_flags or (pos - 1) in loc_flags:
-                    continue  # the individuals chart already removes the value behind it
-                kept[pos] = sigs
-            disp_flags = kept
-        earlier: dict[int, list] = {}  # mr_removal "both": the earlier reading of the pair
-        if chart.kind == "imr" and mr_removal == "both":
-            for pos, sigs in disp_flags.items():
-                if pos >= 1 and (pos - 1) not in disp_flags and (pos - 1) not in loc_flags:
-                    earlier[pos - 1] = sigs
-        positions = sorted(set(loc_flags) | set(disp_flags) | set(earlier))
-        if not positions:
-            stopped = "stable"
-            break
-        if iterations >= max_iterations:
-            stopped = "iteration_cap"
-            break
-        if chart.n_subgroups - len(positions) < 3:
-            stopped = "too_few"
-            break
-        iterations += 1
-        # chart position -> subgroup code (attribute charts plot one point per count)
-        kept_codes = (
-            groups.codes[np.flatnonzero(~removed[groups.codes])]
-            if attribute
-            else np.flatnonzero(~removed)
-        )
-        for pos in positions:
-            label = chart.labels[pos]
-            parts, rule_ids, where = [], [], []
-            for name, flags, series, chance in (
-                ("location", loc_flags, chart.location, loc_chance),
-                ("dispersion", disp_flags, chart.dispersion, disp_chance),
-            ):
-                for s in flags.get(pos, []):
-                    if s.rule not in rule_ids:
-                        rule_ids.append(s.rule)
-                    if name not in where:
-                        where.append(name)
-                    parts.append(
-                        _describe(
-                            series, pos, s, iterations, scales[-1] if scales else None, chance
-                        )
-                        + _mr_note(name, chart.kind, mr_removal, "later")
-                    )
-            for s in earlier.get(pos, []):
-                if s.rule not in rule_ids:
-                    rule_ids.append(s.rule)
-                if "dispersion" not in where:
-                    where.append("dispersion")
-                parts.append(
-                    _describe(
-                        chart.dispersion,
-                        pos + 1,
-                        s,
-                        iterations,
-                        scales[-1] if scales else None,
-                        disp_chance,
-                    )
-                    + _mr_note("dispersion", chart.kind, mr_removal, "earlier")
-                )
-            code = kept_codes[pos]
-            removals.append(
-                Removal(
-                    label,
-                    ",".join(rule_ids),
-                    "+".join(where),
-                    iterations,
-                    "; ".join(dict.fromkeys(parts)),
-                    "auto",
-                    int(counts[code]),
-                )
+
+@dataclass
+class _RoundFlags:
+    """The removal limits and the flagged chart positions of one round."""
+
+    loc_chance: SeriesChance | None
+    disp_chance: SeriesChance | None
+    loc: dict[int, list]
+    disp: dict[int, list]
+    earlier: dict[int, list]  # mr_removal "both": the earlier reading of the pair
+
+    def positions(self) -> list[int]:
+        """Every flagged chart position, in order."""
+        return sorted(set(self.loc) | set(self.disp) | set(self.earlier))
+
+
+def _round_flags(
+    chart: ControlChart, attribute: bool, removal_rules, removal_dispersion_rules, mr_removal
+) -> _RoundFlags:
+    """Flag the positions of this round's chart under the removal rules and limits."""
+    loc_chance, disp_chance = _chances(chart, attribute)
+    loc_flags = _flagged(chart.location, removal_rules, chart.labels, loc_chance)
+    disp_flags = (
+        {}
+        if chart.dispersion is None
+        else _flagged(chart.dispersion, removal_dispersion_rules, chart.labels, disp_chance)
+    )
+    if chart.kind == "imr" and disp_flags:
+        kept = {}
+        for pos, sigs in disp_flags.items():
+            if pos in loc_flags or (pos - 1) in loc_flags:
+                continue  # the individuals chart already removes the value behind it
+            kept[pos] = sigs
+        disp_flags = kept
+    earlier: dict[int, list] = {}
+    if chart.kind == "imr" and mr_removal == "both":
+        for pos, sigs in disp_flags.items():
+            if pos >= 1 and (pos - 1) not in disp_flags and (pos - 1) not in loc_flags:
+                earlier[pos - 1] = sigs
+    return _RoundFlags(loc_chance, disp_chance, loc_flags, disp_flags, earlier)
+
+
+def _stop_reason(positions, iterations: int, max_iterations: int, n_subgroups: int) -> str:
+    """Why the loop stops before this round's removals ("" when it goes on)."""
+    if not positions:
+        return "stable"
+    if iterations >= max_iterations:
+        return "iteration_cap"
+    if n_subgroups - len(positions) < 3:
+        return "too_few"
+    return ""
+
+
+def _auto_removal(
+    chart: ControlChart,
+    flags: _RoundFlags,
+    pos: int,
+    iterations: int,
+    scale,
+    mr_removal: str,
+    data: _Data,
+    kept_codes,
+) -> Removal:
+    """The log entry of the subgroup at chart position ``pos``, removed in this round."""
+    parts: list[str] = []
+    rule_ids: list[str] = []
+    where: list[str] = []
+    charts = [("location", flags.loc, chart.location, flags.loc_chance)]
+    if chart.dispersion is not None:  # without one, nothing is flagged on it
+        charts.append(("dispersion", flags.disp, chart.dispersion, flags.disp_chance))
+    for name, found, series, chance in charts:
+        for s in found.get(pos, []):
+            if s.rule not in rule_ids:
+                rule_ids.append(s.rule)
+            if name not in where:
+                where.append(name)
+            parts.append(
+                _describe(series, pos, s, iterations, scale, chance)
+                + _mr_note(name, chart.kind, mr_removal, "later")
             )
-        removed[kept_codes[positions]] = True
-        del loc_flags, disp_flags, loc_chance, disp_chance
-        chances_of = None
-        chart = None  # the next round's chart replaces this one (one chart in memory)
-        chart = build(kind_fixed)
+    dispersion = chart.dispersion
+    earlier = flags.earlier.get(pos, [])
+    if dispersion is not None and earlier:  # "both": the earlier reading of a moving range
+        for s in earlier:
+            if s.rule not in rule_ids:
+                rule_ids.append(s.rule)
+            if "dispersion" not in where:
+                where.append("dispersion")
+            parts.append(
+                _describe(dispersion, pos + 1, s, iterations, scale, flags.disp_chance)
+                + _mr_note("dispersion", chart.kind, mr_removal, "earlier")
+            )
+    return Removal(
+        chart.labels[pos],
+        ",".join(rule_ids),
+        "+".join(where),
+        iterations,
+        "; ".join(dict.fromkeys(parts)),
+        "auto",
+        int(data.counts[kept_codes[pos]]),
+    )
 
-    if chart.reason != trial.reason and kind == "auto":
-        # rebuilt with the kind fixed in round 1: keep the reason the automatic choice gave
-        chart = dataclasses.replace(chart, reason=trial.reason)
-    total = n_items if not attribute else n_items
-    kept_n = chart.n_values
-    share = 1.0 - kept_n / total
+
+def _heavy_removal_notes(
+    share: float, chart: ControlChart, attribute: bool, max_removed_share, min_subgroups
+) -> list[str]:
+    """The cautions raised as HeavyRemovalWarning: too large a removed share, too few left."""
     notes: list[str] = []
     if share > max_removed_share:
         notes.append(
@@ -613,54 +729,47 @@ def phase1(
             f"only {chart.n_subgroups} subgroups remain (fewer than {min_subgroups}); the limits "
             "are uncertain (common practice, no source)."
         )
-    for msg in notes:
-        warnings.warn(msg, HeavyRemovalWarning, stacklevel=2)
+    return notes
+
+
+def _stop_notes(stopped: str, max_iterations: int) -> list[str]:
+    """The note on a loop that stopped before the chart was stable."""
     if stopped == "iteration_cap":
-        notes.append(
+        return [
             f"the round limit ({max_iterations}) was reached and subgroups still signal; "
             "investigate the causes rather than trimming further."
-        )
-    elif stopped == "too_few":
-        notes.append("removing further signalling subgroups would leave fewer than 3 subgroups.")
-    kept_mask = ~removed[groups.codes]
-    raw_chart = None
-    if scales and scales[-1].name != "raw":
-        mask = kept_mask
-        raw_chart = control_chart(
-            x[mask],
-            groups.select(mask),
-            kind=kind_fixed,
-            rules=rules,
-            dispersion_rules=dispersion_rules,
-            **chart_options,
-        )
-        if raw_chart.reason != trial.reason and kind == "auto":
-            raw_chart = dataclasses.replace(raw_chart, reason=trial.reason)
-    n_manual = sum(r.n_values for r in removals if r.rule == "manual")
-    n_auto = sum(r.n_values for r in removals if r.rule != "manual")
+        ]
+    if stopped == "too_few":
+        return ["removing further signalling subgroups would leave fewer than 3 subgroups."]
+    return []
+
+
+def _raw_chart(
+    data: _Data, mask, kind_fixed, rules, dispersion_rules, chart_options, trial, kind
+) -> ControlChart:
+    """The normal-theory chart of the kept raw values (when phase I charted another scale)."""
+    raw_chart = control_chart(
+        data.x[mask],
+        data.groups.select(mask),
+        kind=kind_fixed,
+        rules=rules,
+        dispersion_rules=dispersion_rules,
+        **chart_options,
+    )
+    if raw_chart.reason != trial.reason and kind == "auto":
+        raw_chart = dataclasses.replace(raw_chart, reason=trial.reason)
+    return raw_chart
+
+
+def _removed_counts(removals: list[Removal], attribute: bool) -> tuple[int, int]:
+    """Values (attribute charts: subgroups) removed by recorded exclusions and by the rules."""
     if attribute:
         n_manual = sum(1 for r in removals if r.rule == "manual")
         n_auto = sum(1 for r in removals if r.rule != "manual")
-    return Phase1Result(
-        chart=chart,
-        trial_chart=trial,
-        removals=tuple(removals),
-        iterations=iterations,
-        stopped=stopped,
-        removal_rules=_text(removal_rules),
-        removal_dispersion_rules=_text(removal_dispersion_rules),
-        n_values_total=int(total),
-        n_values_kept=int(kept_n),
-        removed_share=float(share) if math.isfinite(share) else 0.0,
-        warnings=tuple(notes),
-        scale=scales[-1] if scales else None,
-        n_removed_manual=int(n_manual),
-        n_removed_auto=int(n_auto),
-        raw_chart=raw_chart,
-        mr_removal=mr_removal,
-        chance=_final_chances(chart, attribute, chances_of),
-        kept_mask=kept_mask,
-    )
+    else:
+        n_manual = sum(r.n_values for r in removals if r.rule == "manual")
+        n_auto = sum(r.n_values for r in removals if r.rule != "manual")
+    return n_manual, n_auto
 
 
 def _final_chances(chart: ControlChart, attribute: bool, last=None) -> dict:

@@ -330,21 +330,7 @@ def freeze(
     >>> round(plan.location_ucl, 4), plan.subgroup_size
     (55.8024, 1)
     """
-    # a phase-I result charted on a model's scale keeps the chart of its raw values for this
-    chart = getattr(chart, "raw_chart", None) or getattr(chart, "chart", chart)
-    if not isinstance(chart, ControlChart):
-        raise StudyInputError(
-            f"`chart` must be a ControlChart or a phase-I result; got {type(chart).__name__}."
-        )
-    if not isinstance(characteristic, str) or not characteristic.strip():
-        raise StudyInputError(
-            "`characteristic` must name what the plan monitors, e.g. 'bore diameter'."
-        )
-    if chart.known_standard:
-        raise StudyInputError(
-            "`chart` was computed from a given standard, not from phase-I data; freeze the "
-            "phase-I chart itself."
-        )
+    chart = _chart_to_freeze(chart, characteristic)
     equal = chart.subgroup_size is not None
     disp = chart.dispersion
     od = chart.overdispersion
@@ -375,6 +361,27 @@ def freeze(
         phase1_values=int(chart.n_values),
         source_digest=chart_digest(chart),
     )
+
+
+def _chart_to_freeze(chart, characteristic) -> ControlChart:
+    """The phase-I chart to freeze (its raw-value chart when charted on a model's scale),
+    checked, with the characteristic's name."""
+    # a phase-I result charted on a model's scale keeps the chart of its raw values for this
+    chart = getattr(chart, "raw_chart", None) or getattr(chart, "chart", chart)
+    if not isinstance(chart, ControlChart):
+        raise StudyInputError(
+            f"`chart` must be a ControlChart or a phase-I result; got {type(chart).__name__}."
+        )
+    if not isinstance(characteristic, str) or not characteristic.strip():
+        raise StudyInputError(
+            "`characteristic` must name what the plan monitors, e.g. 'bore diameter'."
+        )
+    if chart.known_standard:
+        raise StudyInputError(
+            "`chart` was computed from a given standard, not from phase-I data; freeze the "
+            "phase-I chart itself."
+        )
+    return chart
 
 
 def monitor(plan: Phase2Plan, values, subgroups=None, *, sizes=None) -> MonitorResult:

@@ -181,20 +181,41 @@ def parts_needed(
     target = _number(target, "target")
     method = "chi_square" if index in _CHI2_INDICES else "bissell"
     name = index.capitalize() if len(index) == 2 else index[0].upper() + index[1:]
+    text = _no_plan(index, assumed, target, level, name)
+    if text is not None:
+        return DemonstrationPlan(None, index, assumed, target, level, None, method, CRITERION, text)
+    n = _smallest_n(index, assumed, target, level, method)
+    bound = _bound(index, assumed, n, level)
+    text = (
+        f"About {n} parts: if the true {name} is {names.format_index(assumed)}, the lower "
+        f"{level:.0%} bound from {n} "
+        f"parts is expected to reach {target:g} (it does so in about half of such studies; use "
+        "more parts for a safer margin)."
+    )
+    return DemonstrationPlan(
+        n, index, assumed, target, level, float(bound), method, CRITERION, text
+    )
+
+
+def _no_plan(index: str, assumed: float, target: float, level: float, name: str) -> str | None:
+    """Why no number of parts (up to MAX_PARTS) can demonstrate the target, or None."""
     if assumed <= target:
-        text = (
+        return (
             f"An assumed {name} of {names.format_index(assumed)} does not exceed the target "
             f"{target:g}: no number of "
             "parts can demonstrate it. Improve the process or revisit the assumption."
         )
-        return DemonstrationPlan(None, index, assumed, target, level, None, method, CRITERION, text)
     if _bound(index, assumed, MAX_PARTS, level) < target:
-        text = (
+        return (
             f"With an assumed {name} of {names.format_index(assumed)}, more than {MAX_PARTS} "
             "parts would be needed to "
             f"demonstrate {target:g}: the margin is too small to demonstrate in practice."
         )
-        return DemonstrationPlan(None, index, assumed, target, level, None, method, CRITERION, text)
+    return None
+
+
+def _smallest_n(index: str, assumed: float, target: float, level: float, method: str) -> int:
+    """The smallest number of parts whose expected lower bound reaches the target."""
     lo, hi = 2, MAX_PARTS  # L(lo) < target <= L(hi) after the first check; L increases with n
     if _bound(index, assumed, lo, level) >= target:
         hi = lo
@@ -216,17 +237,7 @@ def parts_needed(
             hi = mid
         else:
             lo = mid
-    n = hi
-    bound = _bound(index, assumed, n, level)
-    text = (
-        f"About {n} parts: if the true {name} is {names.format_index(assumed)}, the lower "
-        f"{level:.0%} bound from {n} "
-        f"parts is expected to reach {target:g} (it does so in about half of such studies; use "
-        "more parts for a safer margin)."
-    )
-    return DemonstrationPlan(
-        n, index, assumed, target, level, float(bound), method, CRITERION, text
-    )
+    return hi
 
 
 @dataclass(frozen=True)

@@ -282,42 +282,9 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     >>> res.n, res.observed_outside
     (60, 0)
     """
-    x = check_sample(
-        dx, name="dx", minimum=5, before="the position study", needed_for="a position study"
-    )
-    y = check_sample(
-        dy, name="dy", minimum=5, before="the position study", needed_for="a position study"
-    )
-    if x.size != y.size:
-        raise StudyInputError(
-            f"`dx` has {x.size} values and `dy` {y.size}; they must be "
-            "paired (one X and one Y deviation per part)."
-        )
-    try:
-        t = float(tolerance)
-    except (TypeError, ValueError):
-        raise SpecError(
-            f"the tolerance ({tolerance!r}) must be a number (the zone diameter)."
-        ) from None
-    if not (math.isfinite(t) and t > 0):
-        raise SpecError(f"the tolerance ({tolerance!r}) must be a positive zone diameter.")
+    x, y, t = _check_inputs(dx, dy, tolerance)
     n = int(x.size)
-    mx, my = float(x.mean()), float(y.mean())
-    sx, sy = float(x.std(ddof=1)), float(y.std(ddof=1))
-    if not (sx > 0 and sy > 0):
-        which = "dx" if not sx > 0 else "dy"
-        raise AnalysisError(
-            f"`{which}` has zero spread; the gauge may be too coarse for a two-dimensional model."
-        )
-    rho = float(np.corrcoef(x, y)[0, 1])
-    cxy = rho * sx * sy
-    cov = np.array([[sx * sx, cxy], [cxy, sy * sy]])
-    notes: list[str] = []
-    if abs(rho) > 0.999:
-        raise AnalysisError(
-            f"dx and dy are almost perfectly correlated (r = {rho:.4f}); the "
-            "points lie on a line and no two-dimensional model can be fitted."
-        )
+    mx, my, sx, sy, rho, cov = _bivariate(x, y)
     p_out = prob_outside_circle([mx, my], cov, t / 2.0)
     pos = 2.0 * np.hypot(x, y)
     out_idx = np.flatnonzero(pos > t)
@@ -325,21 +292,7 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
     r_mean, r_sd = float(pos.mean()), float(pos.std(ddof=1))
     sc_index = (t - r_mean) / (3.0 * r_sd) if r_sd > 0 else None
     sc_ppm = 1e6 * float(special.ndtr(-3.0 * sc_index)) if sc_index is not None else 0.0
-    lam, vec = np.linalg.eigh(cov)
-    q = stats.chi2.ppf(ELLIPSE_LEVEL, 2)
-    axes = (math.sqrt(q * lam[1]), math.sqrt(q * lam[0]))
-    angle = math.degrees(math.atan2(vec[1, 1], vec[0, 1]))
-    angle = (angle + 90.0) % 180.0 - 90.0
-    if math.hypot(mx, my) > t / 2.0:
-        notes.append(
-            "the mean position lies outside the zone: check that the columns hold "
-            "deviations from nominal, not absolute coordinates."
-        )
-    if n < 30:
-        notes.append(
-            f"only {n} parts: the fitted spreads and correlation are uncertain, and so "
-            "is the expected PPM (common practice, no source: 30 or more)."
-        )
+    axes, angle = _ellipse(cov)
     return PositionResult(
         n=n,
         tolerance=t,
@@ -363,5 +316,75 @@ def position_study(dx, dy, *, tolerance: float) -> PositionResult:
         dx=_readonly(x),
         dy=_readonly(y),
         outside=tuple(int(i) for i in out_idx),
-        notes=tuple(notes),
+        notes=tuple(_notes(mx, my, t, n)),
     )
+
+
+def _check_inputs(dx, dy, tolerance) -> tuple[np.ndarray, np.ndarray, float]:
+    """The paired deviations (at least 5 each) and the zone diameter, checked."""
+    x = check_sample(
+        dx, name="dx", minimum=5, before="the position study", needed_for="a position study"
+    )
+    y = check_sample(
+        dy, name="dy", minimum=5, before="the position study", needed_for="a position study"
+    )
+    if x.size != y.size:
+        raise StudyInputError(
+            f"`dx` has {x.size} values and `dy` {y.size}; they must be "
+            "paired (one X and one Y deviation per part)."
+        )
+    try:
+        t = float(tolerance)
+    except (TypeError, ValueError):
+        raise SpecError(
+            f"the tolerance ({tolerance!r}) must be a number (the zone diameter)."
+        ) from None
+    if not (math.isfinite(t) and t > 0):
+        raise SpecError(f"the tolerance ({tolerance!r}) must be a positive zone diameter.")
+    return x, y, t
+
+
+def _bivariate(x: np.ndarray, y: np.ndarray) -> tuple:
+    """Means, sds, correlation and covariance matrix of the deviations (a 2-D spread needed)."""
+    mx, my = float(x.mean()), float(y.mean())
+    sx, sy = float(x.std(ddof=1)), float(y.std(ddof=1))
+    if not (sx > 0 and sy > 0):
+        which = "dx" if not sx > 0 else "dy"
+        raise AnalysisError(
+            f"`{which}` has zero spread; the gauge may be too coarse for a two-dimensional model."
+        )
+    rho = float(np.corrcoef(x, y)[0, 1])
+    cxy = rho * sx * sy
+    cov = np.array([[sx * sx, cxy], [cxy, sy * sy]])
+    if abs(rho) > 0.999:
+        raise AnalysisError(
+            f"dx and dy are almost perfectly correlated (r = {rho:.4f}); the "
+            "points lie on a line and no two-dimensional model can be fitted."
+        )
+    return mx, my, sx, sy, rho, cov
+
+
+def _ellipse(cov: np.ndarray) -> tuple[tuple[float, float], float]:
+    """Semi-axes and angle (degrees, -90 to 90) of the fitted ellipse at ELLIPSE_LEVEL."""
+    lam, vec = np.linalg.eigh(cov)
+    q = stats.chi2.ppf(ELLIPSE_LEVEL, 2)
+    axes = (math.sqrt(q * lam[1]), math.sqrt(q * lam[0]))
+    angle = math.degrees(math.atan2(vec[1, 1], vec[0, 1]))
+    angle = (angle + 90.0) % 180.0 - 90.0
+    return axes, angle
+
+
+def _notes(mx: float, my: float, t: float, n: int) -> list[str]:
+    """Cautions: a mean outside the zone, few parts."""
+    notes: list[str] = []
+    if math.hypot(mx, my) > t / 2.0:
+        notes.append(
+            "the mean position lies outside the zone: check that the columns hold "
+            "deviations from nominal, not absolute coordinates."
+        )
+    if n < 30:
+        notes.append(
+            f"only {n} parts: the fitted spreads and correlation are uncertain, and so "
+            "is the expected PPM (common practice, no source: 30 or more)."
+        )
+    return notes

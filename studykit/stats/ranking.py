@@ -169,17 +169,7 @@ def fit_all(x, *, families=None) -> Ranking:
     1.893
     """
     x = np.sort(clean_sample(x))
-    if families is None:
-        ids = list(FAMILIES)
-    else:
-        if isinstance(families, str):
-            families = [families]
-        ids = list(families)
-        unknown = [f for f in ids if f not in FAMILIES]
-        if unknown:
-            raise StudyInputError(
-                f"`families` contains unknown id(s) {unknown}; choose from {list(FAMILIES)}."
-            )
+    ids = _family_ids(families)
     models: dict[str, FittedModel] = {}
     errors: dict[str, str] = {}
     for fid in ids:
@@ -187,62 +177,77 @@ def fit_all(x, *, families=None) -> Ranking:
             models[fid] = FAMILIES[fid]._fit_sorted(x)
         except AnalysisError as exc:
             errors[fid] = str(exc)
-    rows = []
-    for fid in ids:
-        fam = FAMILIES[fid]
-        m = models.get(fid)
-        if m is None:
-            rows.append(
-                dict(
-                    id=fid,
-                    label=fam.label,
-                    n_params=fam.n_params,
-                    loglik=None,
-                    aic=None,
-                    bic=None,
-                    ad_statistic=None,
-                    ad_p_value=None,
-                    ad_p_text=None,
-                    lrt_p_value=None,
-                    lrt_against=None,
-                    converged=False,
-                    error=errors[fid],
-                    note=None,
-                )
-            )
-            continue
-        lrt = None
-        against = None
-        base = models.get(fam.base_id) if fam.base_id else None
-        if base is not None:
-            stat = max(0.0, 2.0 * (m.loglik - base.loglik))
-            lrt = float(special.chdtrc(1.0, stat))
-            against = base.name
-        rows.append(
-            dict(
-                id=fid,
-                label=fam.label,
-                n_params=fam.n_params,
-                loglik=m.loglik,
-                aic=m.aic,
-                bic=m.bic,
-                ad_statistic=m.ad_statistic,
-                ad_p_value=m.ad_p_value,
-                ad_p_text=m.ad_p_text,
-                lrt_p_value=lrt,
-                lrt_against=against,
-                converged=m.converged,
-                error=None,
-                note=m.note,
-            )
-        )
-
-    def key(r):
-        if r["error"] is not None:
-            return (2, 0.0, 0.0)
-        ad = r["ad_statistic"] if math.isfinite(r["ad_statistic"]) else math.inf
-        return (0 if r["converged"] else 1, r["aic"], ad)
-
-    rows.sort(key=key)
+    rows = [_row(fid, models, errors) for fid in ids]
+    rows.sort(key=_rank_key)
     out = tuple(FitRow(rank=i + 1, **r) for i, r in enumerate(rows))
     return Ranking(rows=out, models=models, n=int(x.size))
+
+
+def _family_ids(families) -> list[str]:
+    """The family ids to fit: all, or the ones named (each must be known)."""
+    if families is None:
+        return list(FAMILIES)
+    if isinstance(families, str):
+        families = [families]
+    ids = list(families)
+    unknown = [f for f in ids if f not in FAMILIES]
+    if unknown:
+        raise StudyInputError(
+            f"`families` contains unknown id(s) {unknown}; choose from {list(FAMILIES)}."
+        )
+    return ids
+
+
+def _row(fid: str, models: dict, errors: dict) -> dict:
+    """One ranking row: the fit's criteria and its likelihood-ratio test against its base
+    family, or the error that stopped the fit."""
+    fam = FAMILIES[fid]
+    m = models.get(fid)
+    if m is None:
+        return dict(
+            id=fid,
+            label=fam.label,
+            n_params=fam.n_params,
+            loglik=None,
+            aic=None,
+            bic=None,
+            ad_statistic=None,
+            ad_p_value=None,
+            ad_p_text=None,
+            lrt_p_value=None,
+            lrt_against=None,
+            converged=False,
+            error=errors[fid],
+            note=None,
+        )
+    lrt = None
+    against = None
+    base = models.get(fam.base_id) if fam.base_id else None
+    if base is not None:
+        stat = max(0.0, 2.0 * (m.loglik - base.loglik))
+        lrt = float(special.chdtrc(1.0, stat))
+        against = base.name
+    return dict(
+        id=fid,
+        label=fam.label,
+        n_params=fam.n_params,
+        loglik=m.loglik,
+        aic=m.aic,
+        bic=m.bic,
+        ad_statistic=m.ad_statistic,
+        ad_p_value=m.ad_p_value,
+        ad_p_text=m.ad_p_text,
+        lrt_p_value=lrt,
+        lrt_against=against,
+        converged=m.converged,
+        error=None,
+        note=m.note,
+    )
+
+
+def _rank_key(r: dict) -> tuple:
+    """Sort key: converged fits first, then by AIC, then by the Anderson-Darling statistic."""
+    if r["error"] is not None:
+        return (2, 0.0, 0.0)
+    ad = r["ad_statistic"] if math.isfinite(r["ad_statistic"]) else math.inf
+    return (0 if r["converged"] else 1, r["aic"], ad)

@@ -846,6 +846,7 @@ def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = F
     return out
 
 
+# long: signature and numpydoc docstring take 60 lines; the body is 28
 def evaluate(
     points,
     *,
@@ -922,13 +923,7 @@ def evaluate(
     if np.any(np.asarray(s) <= 0):
         sv = np.asarray(s).reshape(-1)
         raise StudyInputError(f"`sigma` ({sv[np.argmax(sv <= 0)]}) must be greater than 0")
-    low = None if lcl is None else _as_level(lcl, "lcl", n_all, keep, allow_inf=True)
-    high = None if ucl is None else _as_level(ucl, "ucl", n_all, keep, allow_inf=True)
-    if low is not None and high is not None and np.any(np.asarray(low) >= np.asarray(high)):
-        lo_v = np.broadcast_to(low, x.shape) if np.ndim(low) else np.full(max(x.size, 1), low)
-        hi_v = np.broadcast_to(high, x.shape) if np.ndim(high) else np.full(max(x.size, 1), high)
-        i = int(np.argmax(lo_v >= hi_v))
-        raise StudyInputError(f"`lcl` ({lo_v[i]}) must be less than `ucl` ({hi_v[i]})")
+    low, high = _limits(lcl, ucl, n_all, keep, x)
 
     found = []
     for order, rule in enumerate(rule_list):
@@ -936,25 +931,43 @@ def evaluate(
             continue
         for group in _detect(rule, x, c, s, low, high, positions):
             given = (high if group.kind == "above" else low) is not None
-            template = _template(rule, group.kind, given)
-            members = group.members
-            for g, (start, end, trig) in enumerate(
-                zip(group.starts, group.ends, group.triggers, strict=True)
-            ):
-                pts = range(start, end + 1) if members is None else members[g]
-                count = len(pts)
-                if labels is not None:
-                    where = _where(list(pts), labels)
-                elif count == 1:
-                    where = f"point {start + 1}"
-                elif end - start == count - 1 and count > 2:  # every position from start to end
-                    where = f"points {start + 1}-{end + 1}"
-                else:
-                    where = _where(list(pts), labels)
-                if count == 1:
-                    where = where[0].upper() + where[1:]
-                text = template.format(n=count, where=where)
-                signal = Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig))
-                found.append((trig[0], order, signal))
+            for signal in _group_signals(rule, group, _template(rule, group.kind, given), labels):
+                found.append((signal.trigger, order, signal))
     found.sort(key=lambda item: (item[0], item[1]))
     return tuple(item[2] for item in found)
+
+
+def _limits(lcl, ucl, n_all: int, keep, x):
+    """The given control limits at the kept points (None when not given); lcl < ucl."""
+    low = None if lcl is None else _as_level(lcl, "lcl", n_all, keep, allow_inf=True)
+    high = None if ucl is None else _as_level(ucl, "ucl", n_all, keep, allow_inf=True)
+    if low is not None and high is not None and np.any(np.asarray(low) >= np.asarray(high)):
+        lo_v = np.broadcast_to(low, x.shape) if np.ndim(low) else np.full(max(x.size, 1), low)
+        hi_v = np.broadcast_to(high, x.shape) if np.ndim(high) else np.full(max(x.size, 1), high)
+        i = int(np.argmax(lo_v >= hi_v))
+        raise StudyInputError(f"`lcl` ({lo_v[i]}) must be less than `ucl` ({hi_v[i]})")
+    return low, high
+
+
+def _group_signals(rule, group, template: str, labels) -> list:
+    """One Signal per occurrence in a detected group, with its text."""
+    out = []
+    members = group.members
+    for g, (start, end, trig) in enumerate(
+        zip(group.starts, group.ends, group.triggers, strict=True)
+    ):
+        pts = range(start, end + 1) if members is None else members[g]
+        count = len(pts)
+        if labels is not None:
+            where = _where(list(pts), labels)
+        elif count == 1:
+            where = f"point {start + 1}"
+        elif end - start == count - 1 and count > 2:  # every position from start to end
+            where = f"points {start + 1}-{end + 1}"
+        else:
+            where = _where(list(pts), labels)
+        if count == 1:
+            where = where[0].upper() + where[1:]
+        text = template.format(n=count, where=where)
+        out.append(Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig)))
+    return out

@@ -15,6 +15,7 @@ The method notes (sources, convergence rules) are in :mod:`studykit.stats.fit`.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -166,6 +167,61 @@ def _slope_zero(us, slopes, k):
     return u if u0 <= u <= u1 else lin
 
 
+class _Profile:
+    """The profile of one sample at trial thresholds, warm-started from the previous pass."""
+
+    def __init__(self, x: np.ndarray, family):
+        self.x = x
+        self.xmin = float(x.min())
+        self.family = family
+        self.warm: dict = {}
+
+    def __call__(self, us, rough=False):
+        """(dtheta, log-likelihoods, params) at the thresholds xmin - exp(us)."""
+        x, xmin, family, warm = self.x, self.xmin, self.family, self.warm
+        gap = np.exp(us)  # min(x) - theta
+        at = gap if family.warm_in_theta else us
+        start = None
+        if warm:  # interpolate the previous pass's solutions: fewer Newton steps
+            start = tuple(np.interp(at, warm["at"], c) for c in warm["state"])
+        group = rows_per_group(x.size)
+        if us.size == 1:  # one threshold: the family's one-row fit (less numpy overhead)
+            ys = x[None, :] - (xmin - gap)[:, None]
+            ll, params, state = family.fit_one(ys[0], start)
+            dt = family.dtheta_rows(ys, params)
+        elif us.size <= group:
+            ys = x[None, :] - (xmin - gap)[:, None]
+            ll, params, state = family.fit_rows(ys, start, rough=rough)
+            dt = family.dtheta_rows(ys, params)
+        else:  # many readings: the thresholds in groups, memory O(ROW_CELLS + n)
+            dt, ll, params, state = self._in_groups(gap, start, group, rough)
+        if us.size > 1 and state is not None:
+            warm["at"], warm["state"] = at, state
+        return dt, np.where(np.isfinite(ll), ll, -np.inf), params
+
+    def _in_groups(self, gap, start, group, rough):
+        """The fits at many thresholds, ``group`` thresholds at a time."""
+        x, xmin, inner, dtheta = self.x, self.xmin, self.family.fit_rows, self.family.dtheta_rows
+        parts = []
+        for i in range(0, gap.size, group):
+            part = slice(i, i + group)
+            ys = x[None, :] - (xmin - gap[part])[:, None]
+            ll_p, p_p, st_p = inner(
+                ys, None if start is None else tuple(c[part] for c in start), rough=rough
+            )
+            parts.append((ll_p, p_p, st_p, dtheta(ys, p_p)))
+            del ys
+        ll = np.concatenate([q[0] for q in parts])
+        params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
+        state = (
+            None
+            if parts[0][2] is None
+            else tuple(np.concatenate([q[2][j] for q in parts]) for j in range(len(parts[0][2])))
+        )
+        dt = np.concatenate([q[3] for q in parts])
+        return dt, ll, params, state
+
+
 def profile_threshold(x: np.ndarray, family):
     """Maximise the profile log-likelihood over theta < min(x).
 
@@ -190,71 +246,11 @@ def profile_threshold(x: np.ndarray, family):
     """
     xmin = float(x.min())
     sd = mean_sd(x)[1]
-
-    warm = {}
-
-    in_theta = family.warm_in_theta
-    inner, dtheta, label = family.fit_rows, family.dtheta_rows, family.label
-
-    def evaluate(us, rough=False):
-        """(dtheta, log-likelihoods, params) at the thresholds xmin - exp(us)."""
-        gap = np.exp(us)  # min(x) - theta
-        at = gap if in_theta else us
-        start = None
-        if warm:  # interpolate the previous pass's solutions: fewer Newton steps
-            start = tuple(np.interp(at, warm["at"], c) for c in warm["state"])
-        group = rows_per_group(x.size)
-        if us.size == 1:  # one threshold: the family's one-row fit (less numpy overhead)
-            ys = x[None, :] - (xmin - gap)[:, None]
-            ll, params, state = family.fit_one(ys[0], start)
-            dt = dtheta(ys, params)
-        elif us.size <= group:
-            ys = x[None, :] - (xmin - gap)[:, None]
-            ll, params, state = inner(ys, start, rough=rough)
-            dt = dtheta(ys, params)
-        else:  # many readings: the thresholds in groups, memory O(ROW_CELLS + n)
-            parts = []
-            for i in range(0, us.size, group):
-                part = slice(i, i + group)
-                ys = x[None, :] - (xmin - gap[part])[:, None]
-                ll_p, p_p, st_p = inner(
-                    ys, None if start is None else tuple(c[part] for c in start), rough=rough
-                )
-                parts.append((ll_p, p_p, st_p, dtheta(ys, p_p)))
-                del ys
-            ll = np.concatenate([q[0] for q in parts])
-            params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
-            state = (
-                None
-                if parts[0][2] is None
-                else tuple(
-                    np.concatenate([q[2][j] for q in parts]) for j in range(len(parts[0][2]))
-                )
-            )
-            dt = np.concatenate([q[3] for q in parts])
-        if us.size > 1 and state is not None:
-            warm["at"], warm["state"] = at, state
-        return dt, np.where(np.isfinite(ll), ll, -np.inf), params
-
+    evaluate = _Profile(x, family)
     us = math.log(sd) + GRID_DECADES * math.log(10.0)
     with np.errstate(all="ignore"):  # slopes at rough grid fits, used only when interior
         grid_dt, lls, params = evaluate(us, rough=True)
-    best = int(lls.argmax())
-    note = None
-    if best == 0:
-        interior = [
-            i for i in range(1, us.size - 1) if lls[i] >= lls[i - 1] and lls[i] >= lls[i + 1]
-        ]
-        if not interior:
-            raise AnalysisError(
-                f"{label}: the likelihood keeps rising as the threshold approaches the smallest "
-                f"reading ({xmin:g}) and has no interior maximum; use the two-parameter family."
-            )
-        best = max(interior, key=lambda i: lls[i])
-        note = (
-            "likelihood unbounded at the smallest reading; the interior local maximum is "
-            "used (Smith 1985)"
-        )
+    best, note = _grid_best(us, lls, family.label, xmin)
     if best == us.size - 1:
         note = (
             "threshold at the search limit (min(x) - 1000 s): the data show no skew for "
@@ -268,9 +264,34 @@ def profile_threshold(x: np.ndarray, family):
             False,
             note,
         )
-    # the pass spans the grid step where the profile slope changes sign next to the best
-    # point (17 points), or both steps around it (33 points) when the grid slopes do not
-    # show that sign change
+    us, slopes, lls, params, best = _refine_pass(evaluate, us, grid_dt, best)
+    u_best, p_best, ll_best = _slope_root(evaluate, us, slopes, lls, params, best)
+    return xmin - math.exp(u_best), p_best, ll_best, True, note
+
+
+def _grid_best(us, lls, label: str, xmin: float) -> tuple[int, str | None]:
+    """The best grid point; an interior local maximum (with a note) when the best is at the
+    smallest gap, where the likelihood can be unbounded."""
+    best = int(lls.argmax())
+    if best != 0:
+        return best, None
+    interior = [i for i in range(1, us.size - 1) if lls[i] >= lls[i - 1] and lls[i] >= lls[i + 1]]
+    if not interior:
+        raise AnalysisError(
+            f"{label}: the likelihood keeps rising as the threshold approaches the smallest "
+            f"reading ({xmin:g}) and has no interior maximum; use the two-parameter family."
+        )
+    note = (
+        "likelihood unbounded at the smallest reading; the interior local maximum is "
+        "used (Smith 1985)"
+    )
+    return max(interior, key=lambda i: lls[i]), note
+
+
+def _refine_pass(evaluate, us, grid_dt, best):
+    """The pass across the grid step where the profile slope changes sign next to the best
+    point (17 points), or both steps around it (33 points) when the grid slopes do not show
+    that sign change: (us, slopes, lls, params, best) of the pass."""
     grid_slopes = -np.exp(us) * grid_dt
     full = (us[best - 1], us[best + 1], _FULL_PASS)
     if grid_slopes[best] > 0 >= grid_slopes[best + 1]:
@@ -286,6 +307,12 @@ def profile_threshold(x: np.ndarray, family):
         best = min(max(int(lls.argmax()), 1), us.size - 2)
         if slopes[best - 1] > 0 >= slopes[best] or slopes[best] > 0 >= slopes[best + 1]:
             break
+    return us, slopes, lls, params, best
+
+
+def _slope_root(evaluate, us, slopes, lls, params, best) -> tuple[float, dict, float]:
+    """The zero of the profile slope next to the pass's best point (interpolated, then one
+    secant step), kept only where it beats that point: (u, params, loglik)."""
     u_best, ll_best = float(us[best]), float(lls[best])
     p_best = {k: float(v[best]) for k, v in params.items()}
     for k in (best - 1, best):
@@ -309,7 +336,7 @@ def profile_threshold(x: np.ndarray, family):
                     break  # the step would gain ~ s1 (u_next - u) / 2: below rounding
                 u = u_next
             break
-    return xmin - math.exp(u_best), p_best, ll_best, True, note
+    return u_best, p_best, ll_best
 
 
 def threshold_rows(family, block, shared=None):
@@ -327,31 +354,51 @@ def threshold_rows(family, block, shared=None):
     estimator too). With ``family.shared_grid_start`` the inner solutions on the first
     sample's grid start every sample's iteration (``shared`` keeps them across blocks).
     """
-    inner, dtheta = family.fit_rows, family.dtheta_rows
-    n_boot, n = block.shape
+    n_boot = block.shape[0]
     spread = block.max(axis=1) > block.min(axis=1)
     xmin = block.min(axis=1)
     sd = block.std(axis=1)
-    decades = GRID_DECADES * math.log(10.0)
-
-    def evaluate(rows, u, start=None):
-        ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
-        with np.errstate(all="ignore"):
-            ll, params, state = inner(ys, start)
-            s = -np.exp(u) * dtheta(ys, params)
-        return (
-            np.where(np.isfinite(s), s, np.nan),
-            params,
-            np.where(np.isfinite(ll), ll, -np.inf),
-            state,
-        )
-
+    evaluate = functools.partial(_rows_at, block, xmin, family.fit_rows, family.dtheta_rows)
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
-    # the grid of profile_threshold, every sample at once
-    grid = np.log(sd[rows])[:, None] + decades[None, :]
-    grid_start = None
     shared = {} if shared is None else shared
+    rows, bracket, state = _grid_brackets(family, block, rows, sd, shared, evaluate, fallback)
+    root, unsolved = _illinois(evaluate, rows, *bracket, state)
+    fallback.update(rows[unsolved].tolist())
+    good = np.isfinite(root)
+    rows, root = rows[good], root[good]
+    ok = np.zeros(n_boot, dtype=bool)
+    params = None
+    if rows.size:
+        _, p, _, _ = evaluate(rows, root)
+        params = {}
+        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
+            params[k] = np.full(n_boot, np.nan)
+            params[k][rows] = v
+        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
+    fallback.update(np.flatnonzero(~ok & spread).tolist())
+    rest = sorted(fallback)
+    ok[rest] = False
+    return params, ok, rest
+
+
+def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
+    """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
+    xmin - exp(u)."""
+    ys = block[rows] - (xmin[rows] - np.exp(u))[:, None]
+    with np.errstate(all="ignore"):
+        ll, params, state = inner(ys, start)
+        s = -np.exp(u) * dtheta(ys, params)
+    return (
+        np.where(np.isfinite(s), s, np.nan),
+        params,
+        np.where(np.isfinite(ll), ll, -np.inf),
+        state,
+    )
+
+
+def _shared_start(family, block, rows, decades, shared: dict):
+    """The first sample's grid solutions, which start every sample's grid (or None)."""
     if family.shared_grid_start and rows.size and "k0" not in shared:
         # every sample comes from the same model: the Weibull shapes solved on one sample's
         # grid start the Newton iteration of all the others (fewer steps, same roots); with
@@ -360,11 +407,21 @@ def threshold_rows(family, block, shared=None):
         u0 = math.log(float(np.std(data))) + decades
         ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
         with np.errstate(all="ignore"):
-            _, _, st0 = inner(ys0)
+            _, _, st0 = family.fit_rows(ys0)
         k0 = np.asarray(st0[0])
         shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
     if family.shared_grid_start and rows.size and shared.get("k0") is not None:
-        grid_start = (np.tile(shared["k0"], rows.size),)
+        return (np.tile(shared["k0"], rows.size),)
+    return None
+
+
+def _grid_brackets(family, block, rows, sd, shared, evaluate, fallback: set):
+    """The grid of :func:`profile_threshold` for every sample at once: the rows whose slope
+    changes sign around an interior best point, their brackets (lo_u, hi_u, lo_s, hi_s,
+    solve) and inner states; the other rows are added to ``fallback``."""
+    decades = GRID_DECADES * math.log(10.0)
+    grid = np.log(sd[rows])[:, None] + decades[None, :]
+    grid_start = _shared_start(family, block, rows, decades, shared)
     s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), grid_start)
     s_grid = s_grid.reshape(-1, decades.size)
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
@@ -387,6 +444,12 @@ def threshold_rows(family, block, shared=None):
     lo_u, hi_u, lo_s, hi_s = lo_u[solve], hi_u[solve], lo_s[solve], hi_s[solve]
     if state is not None:
         state = tuple(c[solve] for c in state)
+    return rows, (lo_u, hi_u, lo_s, hi_s, solve), state
+
+
+def _illinois(evaluate, rows, lo_u, hi_u, lo_s, hi_s, solve, state):
+    """Roots of the profile slope in the brackets by the Illinois variant of regula falsi:
+    (root per row, NaN where none; the positions in ``rows`` still unsolved after 100 steps)."""
     root = np.full(rows.size, np.nan)
     side = np.zeros(solve.size)
     for _ in range(100):
@@ -423,19 +486,4 @@ def threshold_rows(family, block, shared=None):
         )
         if state is not None:
             state = tuple(c[keep] for c in state)
-    fallback.update(rows[solve].tolist())
-    good = np.isfinite(root)
-    rows, root = rows[good], root[good]
-    ok = np.zeros(n_boot, dtype=bool)
-    params = None
-    if rows.size:
-        _, p, _, _ = evaluate(rows, root)
-        params = {}
-        for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
-            params[k] = np.full(n_boot, np.nan)
-            params[k][rows] = v
-        ok[rows] = np.all([np.isfinite(v[rows]) for v in params.values()], axis=0)
-    fallback.update(np.flatnonzero(~ok & spread).tolist())
-    rest = sorted(fallback)
-    ok[rest] = False
-    return params, ok, rest
+    return root, solve

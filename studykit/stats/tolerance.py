@@ -40,6 +40,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from scipy import optimize, special, stats
@@ -482,7 +483,7 @@ def normal_pass_probability(
     rn = math.sqrt(n)
     if lsl is None or usl is None:
         k = normal_factor_one_sided(n, p, c)
-        delta = rn * ((usl - mean) if usl is not None else (mean - lsl)) / sd
+        delta = rn * ((usl - mean) if usl is not None else (mean - cast(float, lsl))) / sd
         return float(stats.nct.sf(k * rn, nu, delta))
     if not usl > lsl:
         raise SpecError(f"`usl` ({usl:g}) must be greater than `lsl` ({lsl:g}).")
@@ -760,6 +761,7 @@ def _decide(lower, upper, lsl, usl, bound: str):
     return None if lower is None else bool(lower >= lsl)
 
 
+# long: signature and numpydoc docstring take 71 lines; the body calls named steps
 def tolerance_interval(
     x,
     *,
@@ -834,13 +836,7 @@ def tolerance_interval(
     p = _level(coverage, "coverage")
     c = _level(confidence, "confidence")
     sides = _sides(sides)
-    if model not in MODELS:
-        raise StudyInputError(f"`model` ({model!r}) must be one of {list(MODELS)}.")
-    for name, v in (("lsl", lsl), ("usl", usl)):
-        if v is not None and not math.isfinite(float(v)):
-            raise SpecError(f"`{name}` ({v!r}) must be a finite number.")
-    if lsl is not None and usl is not None and not float(usl) > float(lsl):
-        raise SpecError(f"`usl` ({usl:g}) must be greater than `lsl` ({lsl:g}).")
+    _check_model_and_specs(model, lsl, usl)
     kind = _bound_kind(sides, bound, lsl, usl)
     arr = check_sample(
         x,
@@ -859,49 +855,12 @@ def tolerance_interval(
     if model == "distribution_free":
         lower, upper, order, achieved = _distribution_free(arr, p, c, kind)
         if lower is None and upper is None:
-            need = _free_size_or_none(p, c, sides)
-            notes.append(
-                f"{n} values are too few for a distribution-free interval with "
-                f"{100 * p:g} % coverage and {100 * c:g} % confidence; "
-                + (
-                    f"{need} are needed."
-                    if need is not None
-                    else f"more than {MAX_PARTS} would be needed."
-                )
-            )
+            notes.append(_too_few_note(n, p, c, sides))
     else:
-        y, forward_note, back, scale = _transformed(arr, model, boxcox_lambda)
-        if forward_note:
-            notes.append(forward_note)
-        mean = float(np.mean(y))
-        sd = float(np.std(y, ddof=1))
-        if not sd > 0:
-            raise AnalysisError("the transformed values have zero spread; no interval.")
-        if sides == 2:
-            fmethod = method
-            if method not in TWO_SIDED_METHODS:
-                raise StudyInputError(
-                    f"`method` ({method!r}) must be one of "
-                    f"{list(TWO_SIDED_METHODS)} for a two-sided interval."
-                )
-            k = normal_factor_two_sided(n, p, c, method=method)
-            lo_t, hi_t = mean - k * sd, mean + k * sd
-        else:
-            fmethod = method
-            if method not in ("exact", "natrella"):
-                raise StudyInputError(
-                    f"`method` ({method!r}) must be 'exact' or 'natrella' for a one-sided interval."
-                )
-            k = normal_factor_one_sided(n, p, c, method=method)
-            lo_t = mean - k * sd if kind == "lower" else None
-            hi_t = mean + k * sd if kind == "upper" else None
-        lower = None if lo_t is None else float(back(lo_t))
-        upper = None if hi_t is None else float(back(hi_t))
-        if method != "exact":
-            notes.append(
-                f"factor from the {method.replace('_', '-')} approximation, not the "
-                "exact computation."
-            )
+        lower, upper, mean, sd, k, scale = _normal_interval(
+            arr, model, boxcox_lambda, p, c, sides, kind, method, notes
+        )
+        fmethod = method
     meets = _decide(lower, upper, lsl, usl, kind)
     plan = None
     if lsl is not None or usl is not None:
@@ -932,6 +891,65 @@ def tolerance_interval(
         plan=plan,
         notes=tuple(notes),
     )
+
+
+def _check_model_and_specs(model: str, lsl, usl) -> None:
+    """Reject an unknown model, a non-finite limit and limits in the wrong order."""
+    if model not in MODELS:
+        raise StudyInputError(f"`model` ({model!r}) must be one of {list(MODELS)}.")
+    for name, v in (("lsl", lsl), ("usl", usl)):
+        if v is not None and not math.isfinite(float(v)):
+            raise SpecError(f"`{name}` ({v!r}) must be a finite number.")
+    if lsl is not None and usl is not None and not float(usl) > float(lsl):
+        raise SpecError(f"`usl` ({usl:g}) must be greater than `lsl` ({lsl:g}).")
+
+
+def _too_few_note(n: int, p: float, c: float, sides: int) -> str:
+    """The note on a sample too small for a distribution-free interval."""
+    need = _free_size_or_none(p, c, sides)
+    return (
+        f"{n} values are too few for a distribution-free interval with "
+        f"{100 * p:g} % coverage and {100 * c:g} % confidence; "
+        + (f"{need} are needed." if need is not None else f"more than {MAX_PARTS} would be needed.")
+    )
+
+
+def _normal_interval(arr, model, boxcox_lambda, p, c, sides, kind, method, notes: list[str]):
+    """The normal-theory interval on the model's scale, taken back to the data:
+    (lower, upper, mean, sd, factor, scale); notes are appended to ``notes``."""
+    y, forward_note, back, scale = _transformed(arr, model, boxcox_lambda)
+    if forward_note:
+        notes.append(forward_note)
+    n = int(arr.size)
+    mean = float(np.mean(y))
+    sd = float(np.std(y, ddof=1))
+    if not sd > 0:
+        raise AnalysisError("the transformed values have zero spread; no interval.")
+    lo_t: float | None
+    hi_t: float | None
+    if sides == 2:
+        if method not in TWO_SIDED_METHODS:
+            raise StudyInputError(
+                f"`method` ({method!r}) must be one of "
+                f"{list(TWO_SIDED_METHODS)} for a two-sided interval."
+            )
+        k = normal_factor_two_sided(n, p, c, method=method)
+        lo_t, hi_t = mean - k * sd, mean + k * sd
+    else:
+        if method not in ("exact", "natrella"):
+            raise StudyInputError(
+                f"`method` ({method!r}) must be 'exact' or 'natrella' for a one-sided interval."
+            )
+        k = normal_factor_one_sided(n, p, c, method=method)
+        lo_t = mean - k * sd if kind == "lower" else None
+        hi_t = mean + k * sd if kind == "upper" else None
+    lower = None if lo_t is None else float(back(lo_t))
+    upper = None if hi_t is None else float(back(hi_t))
+    if method != "exact":
+        notes.append(
+            f"factor from the {method.replace('_', '-')} approximation, not the exact computation."
+        )
+    return lower, upper, mean, sd, k, scale
 
 
 def _free_size_or_none(p: float, c: float, sides: int) -> int | None:
@@ -994,8 +1012,8 @@ def _transformed(arr: np.ndarray, model: str, boxcox_lambda, *, with_forward: bo
             else " (given)"
         )
     )
-    out = (y, note, (lambda v: float(bc.inverse(v))), f"boxcox(lambda={bc.lam_used:.4g})")
-    return (*out, (lambda v: float(bc.transform(v)))) if with_forward else out
+    bc_out = (y, note, (lambda v: float(bc.inverse(v))), f"boxcox(lambda={bc.lam_used:.4g})")
+    return (*bc_out, (lambda v: float(bc.transform(v)))) if with_forward else bc_out
 
 
 def _distribution_free(arr: np.ndarray, p: float, c: float, kind: str):

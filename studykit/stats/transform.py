@@ -239,6 +239,7 @@ def _fmt(v: float) -> str:
     return f"{v:.4g}"
 
 
+# long: signature and numpydoc docstring take 59 lines; the body calls named steps
 def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxResult:
     """Box-Cox transformation with a maximum likelihood lambda and its interval.
 
@@ -301,30 +302,7 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
     x = _clean(x)
     if not (isinstance(alpha, (int, float)) and 0 < alpha < 1):
         raise StudyInputError(f"`alpha` ({alpha!r}) must be between 0 and 1, e.g. 0.05.")
-    xmin = float(x.min())
-    if shift is None:
-        shift = 0.0
-        if xmin <= 0:
-            raise AnalysisError(
-                f"Box-Cox needs positive data; the smallest reading is {xmin:g}. Pass "
-                "`shift='auto'` or a number that makes every reading positive."
-            )
-    elif isinstance(shift, str):
-        if shift != "auto":
-            raise StudyInputError(f"`shift` ({shift!r}) must be 'auto', a number or None.")
-        shift = 0.0 if xmin > 0 else -xmin + 0.05 * float(np.ptp(x))
-    else:
-        try:
-            shift = float(shift)
-        except (TypeError, ValueError):
-            raise StudyInputError(
-                f"`shift` ({shift!r}) must be 'auto', a number or None."
-            ) from None
-        if not xmin + shift > 0:
-            raise StudyInputError(
-                f"`shift` ({shift:g}) leaves the smallest reading at {xmin + shift:g}; it must "
-                f"be greater than {-xmin:g} so that every shifted reading is positive."
-            )
+    shift = _boxcox_shift(x, shift)
     v = x + shift
     lx = np.log(v)
     n = x.size
@@ -348,72 +326,8 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         lam_hat = _polish_lambda(float(optimize.brent(neg, brack=(-2.0, 2.0))), ls)
     ll_hat = -neg(lam_hat)  # for v / g; + (-sum log g) = - n log g for v, below
     cut = ll_hat - 0.5 * stats.chi2.ppf(1.0 - alpha, 1)
-
-    def side(direction):
-        step = 0.5
-        for _ in range(60):
-            b = lam_hat + direction * step
-            if _boxcox_llf(b, ls) < cut:
-                return float(
-                    optimize.brentq(
-                        lambda t: _boxcox_llf(t, ls) - cut, *sorted((lam_hat, b)), xtol=1e-12
-                    )
-                )
-            step *= 2.0
-        return direction * math.inf
-
-    interval = (side(-1.0), side(+1.0))
-    level = f"{100 * (1 - alpha):g} %"
-    note = None
-    if lam is not None:
-        try:
-            used = float(lam)
-        except (TypeError, ValueError):
-            raise StudyInputError(f"`lam` ({lam!r}) must be a number or None.") from None
-        inside = interval[0] <= used <= interval[1]
-        note = (
-            f"lambda {_fmt(used)} chosen by the user (estimate {_fmt(lam_hat)}, "
-            f"{level} interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
-            + ("" if inside else "; outside the interval")
-            + ")"
-        )
-    elif round_to is None:
-        used = lam_hat
-    elif isinstance(round_to, str):
-        if round_to != "nice":
-            raise StudyInputError(
-                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
-            )
-        inside = [c for c in NICE_LAMBDAS if interval[0] <= c <= interval[1]]
-        if inside:
-            used = min(inside, key=lambda c: (abs(c - lam_hat), abs(c)))
-            note = (
-                f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}, inside the {level} "
-                f"interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
-            )
-        else:
-            used = lam_hat
-            note = (
-                f"no convenient lambda inside the {level} interval "
-                f"[{_fmt(interval[0])}, {_fmt(interval[1])}]; the estimate is used"
-            )
-    else:
-        try:
-            step = float(round_to)
-        except (TypeError, ValueError):
-            step = float("nan")
-        if not step > 0:
-            raise StudyInputError(
-                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
-            )
-        used = round(lam_hat / step) * step
-        used = 0.0 if abs(used) < 1e-12 else used
-        inside = interval[0] <= used <= interval[1]
-        note = (
-            f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}"
-            + (f", inside the {level} interval" if inside else f", OUTSIDE the {level} interval")
-            + f" [{_fmt(interval[0])}, {_fmt(interval[1])}]"
-        )
+    interval = (_lambda_bound(ls, lam_hat, cut, -1.0), _lambda_bound(ls, lam_hat, cut, +1.0))
+    used, note = _lambda_used(lam, round_to, lam_hat, interval, f"{100 * (1 - alpha):g} %")
     with np.errstate(all="ignore"):
         y = _boxcox_forward(v, used)
         my = float(y.mean())
@@ -454,6 +368,102 @@ def box_cox(x, *, lam=None, shift="auto", alpha=0.05, round_to=None) -> BoxCoxRe
         original_upper=float(back[2]),
         shapiro_before=(float(sw0.statistic), float(sw0.pvalue)),
         shapiro_after=(float(sw1.statistic), float(sw1.pvalue)),
+    )
+
+
+def _boxcox_shift(x: np.ndarray, shift) -> float:
+    """The shift added before the transformation: 0, automatic, or the one given (checked)."""
+    xmin = float(x.min())
+    if shift is None:
+        if xmin <= 0:
+            raise AnalysisError(
+                f"Box-Cox needs positive data; the smallest reading is {xmin:g}. Pass "
+                "`shift='auto'` or a number that makes every reading positive."
+            )
+        return 0.0
+    if isinstance(shift, str):
+        if shift != "auto":
+            raise StudyInputError(f"`shift` ({shift!r}) must be 'auto', a number or None.")
+        return 0.0 if xmin > 0 else -xmin + 0.05 * float(np.ptp(x))
+    try:
+        shift = float(shift)
+    except (TypeError, ValueError):
+        raise StudyInputError(f"`shift` ({shift!r}) must be 'auto', a number or None.") from None
+    if not xmin + shift > 0:
+        raise StudyInputError(
+            f"`shift` ({shift:g}) leaves the smallest reading at {xmin + shift:g}; it must "
+            f"be greater than {-xmin:g} so that every shifted reading is positive."
+        )
+    return shift
+
+
+def _lambda_bound(ls: np.ndarray, lam_hat: float, cut: float, direction: float) -> float:
+    """One end of the profile-likelihood interval of lambda (infinite when none is found)."""
+    step = 0.5
+    for _ in range(60):
+        b = lam_hat + direction * step
+        if _boxcox_llf(b, ls) < cut:
+            return float(
+                optimize.brentq(
+                    lambda t: _boxcox_llf(t, ls) - cut, *sorted((lam_hat, b)), xtol=1e-12
+                )
+            )
+        step *= 2.0
+    return direction * math.inf
+
+
+def _lambda_used(lam, round_to, lam_hat: float, interval, level: str) -> tuple[float, str | None]:
+    """The lambda applied (the user's, the estimate or a rounded one) and a note on it."""
+    if lam is not None:
+        try:
+            used = float(lam)
+        except (TypeError, ValueError):
+            raise StudyInputError(f"`lam` ({lam!r}) must be a number or None.") from None
+        inside = interval[0] <= used <= interval[1]
+        return used, (
+            f"lambda {_fmt(used)} chosen by the user (estimate {_fmt(lam_hat)}, "
+            f"{level} interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+            + ("" if inside else "; outside the interval")
+            + ")"
+        )
+    if round_to is None:
+        return lam_hat, None
+    if isinstance(round_to, str):
+        if round_to != "nice":
+            raise StudyInputError(
+                f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
+            )
+        return _nice_lambda(lam_hat, interval, level)
+    try:
+        step = float(round_to)
+    except (TypeError, ValueError):
+        step = float("nan")
+    if not step > 0:
+        raise StudyInputError(
+            f"`round_to` ({round_to!r}) must be None, 'nice' or a positive number such as 0.5."
+        )
+    used = round(lam_hat / step) * step
+    used = 0.0 if abs(used) < 1e-12 else used
+    inside = interval[0] <= used <= interval[1]
+    return used, (
+        f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}"
+        + (f", inside the {level} interval" if inside else f", OUTSIDE the {level} interval")
+        + f" [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+    )
+
+
+def _nice_lambda(lam_hat: float, interval, level: str) -> tuple[float, str]:
+    """The convenient lambda nearest the estimate inside the interval, or the estimate."""
+    inside = [c for c in NICE_LAMBDAS if interval[0] <= c <= interval[1]]
+    if inside:
+        used = min(inside, key=lambda c: (abs(c - lam_hat), abs(c)))
+        return used, (
+            f"lambda rounded from {_fmt(lam_hat)} to {_fmt(used)}, inside the {level} "
+            f"interval [{_fmt(interval[0])}, {_fmt(interval[1])}]"
+        )
+    return lam_hat, (
+        f"no convenient lambda inside the {level} interval "
+        f"[{_fmt(interval[0])}, {_fmt(interval[1])}]; the estimate is used"
     )
 
 
@@ -685,6 +695,31 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
         raise StudyInputError(
             f"`z_grid` must be a non-empty list of positive numbers; got {z_grid!r}."
         )
+    candidates, best = _johnson_search(xs, zs, sl_tolerance)
+    if best is None:
+        raise AnalysisError(
+            "Johnson transformation: no z in the grid gives a fit that keeps every reading "
+            "inside the fitted range; try a Box-Cox transformation or a fitted distribution."
+        )
+    p, w, z, (kind, gamma, eta, eps, lam, qr) = best
+    return JohnsonResult(
+        n=int(x.size),
+        kind=kind,
+        gamma=gamma,
+        eta=eta,
+        epsilon=eps,
+        lam=lam,
+        z=z,
+        quantile_ratio=qr,
+        shapiro_w=w,
+        shapiro_p=p,
+        candidates=tuple(candidates),
+    )
+
+
+def _johnson_search(xs: np.ndarray, zs: np.ndarray, sl_tolerance) -> tuple[list, tuple | None]:
+    """Fit the Johnson system at each z of the grid: every usable fit as a candidate row, and
+    the best by Shapiro-Wilk p (p, W, z, fitted parameters), or None."""
     probs = special.ndtr(np.outer(zs, [-3.0, -1.0, 1.0, 3.0]))
     candidates = []
     best = None
@@ -705,22 +740,4 @@ def johnson(x, *, z_grid=JOHNSON_Z_GRID, sl_tolerance=0.0) -> JohnsonResult:
         )
         if best is None or p > best[0]:
             best = (p, w, float(z), fitted)
-    if best is None:
-        raise AnalysisError(
-            "Johnson transformation: no z in the grid gives a fit that keeps every reading "
-            "inside the fitted range; try a Box-Cox transformation or a fitted distribution."
-        )
-    p, w, z, (kind, gamma, eta, eps, lam, qr) = best
-    return JohnsonResult(
-        n=int(x.size),
-        kind=kind,
-        gamma=gamma,
-        eta=eta,
-        epsilon=eps,
-        lam=lam,
-        z=z,
-        quantile_ratio=qr,
-        shapiro_w=w,
-        shapiro_p=p,
-        candidates=tuple(candidates),
-    )
+    return candidates, best

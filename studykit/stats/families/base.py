@@ -16,6 +16,7 @@ import numpy as np
 from studykit.errors import AnalysisError
 from studykit.stats import solvers
 from studykit.stats._checks import check_sample
+from studykit.stats.normality import ad_p_value_adjusted
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 from studykit.stats.solvers import add_reduce
@@ -56,18 +57,7 @@ AD_LOGISTIC = (
 
 def ad_p_normal(a2: float, n: int) -> tuple[float, str]:
     """D'Agostino & Stephens (1986) Table 4.9, case 3 (mean and variance estimated)."""
-    a = a2 * (1.0 + 0.75 / n + 2.25 / (n * n))
-    if a >= 153.0:  # the formula's minimum (p < 1e-189); beyond it, it rises and overflows
-        return 0.0, f"{0.0:.4f}"
-    if a >= 0.6:
-        p = math.exp(1.2937 - 5.709 * a + 0.0186 * a * a)
-    elif a >= 0.34:
-        p = math.exp(0.9177 - 4.279 * a - 1.38 * a * a)
-    elif a >= 0.2:
-        p = 1.0 - math.exp(-8.318 + 42.796 * a - 59.938 * a * a)
-    else:
-        p = 1.0 - math.exp(-13.436 + 101.14 * a - 223.73 * a * a)
-    p = min(max(p, 0.0), 1.0)
+    p = ad_p_value_adjusted(a2 * (1.0 + 0.75 / n + 2.25 / (n * n)))
     return p, f"{p:.4f}"
 
 
@@ -406,6 +396,16 @@ class Family:
 
 def threshold_of(p):
     return p.get("threshold", 0.0)
+
+
+def shape_scale_row(k: float, scale: float, ll: float) -> tuple:
+    """The (loglik, params, state) of a shape-scale family's one-row fit, as ``fit_rows``
+    returns them for one row."""
+    return (
+        np.array([ll]),
+        {"shape": np.array([k]), "scale": np.array([scale])},
+        (np.array([k]),),
+    )
 
 
 def refit_by_fit_rows(family, block):

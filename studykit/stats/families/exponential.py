@@ -19,10 +19,13 @@ from studykit.stats.solvers import (
 
 
 class Exponential(Family):
-    id, label, param_names = "exponential", "Exponential", ("scale",)
+    id, label = "exponential", "Exponential"
+    param_names: tuple[str, ...] = ("scale",)
     order = 8
     support = "positive"
-    ad_p_source = "D'Agostino & Stephens (1986) Table 4.14 (scale estimated), interpolated"
+    ad_p_source: str | None = (
+        "D'Agostino & Stephens (1986) Table 4.14 (scale estimated), interpolated"
+    )
 
     def _estimate(self, x):
         return {"scale": float(add_reduce(x)) / x.size}, True, None

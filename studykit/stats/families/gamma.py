@@ -14,6 +14,7 @@ from studykit.stats.families.base import (
     ThresholdVariant,
     ad_from_logs,
     refit_by_fit_rows,
+    shape_scale_row,
     threshold_of,
 )
 from studykit.stats.solvers import (
@@ -61,7 +62,8 @@ def _gamma_fit(y: np.ndarray, k0: float | None = None) -> tuple[float, float, fl
 
 
 class Gamma(Family):
-    id, label, param_names = "gamma", "Gamma", ("shape", "scale")
+    id, label = "gamma", "Gamma"
+    param_names: tuple[str, ...] = ("shape", "scale")
     order = 6
     support = "positive"
 
@@ -154,11 +156,7 @@ class Gamma(Family):
             k, scale, ll = _gamma_fit(y, None if start is None else float(start[0][0]))
         except AnalysisError:  # no spread left in double precision: not a candidate
             k = scale = ll = math.nan
-        return (
-            np.array([ll]),
-            {"shape": np.array([k]), "scale": np.array([scale])},
-            (np.array([k]),),
-        )
+        return shape_scale_row(k, scale, ll)
 
     def refit_rows(self, block, shared=None):
         return refit_by_fit_rows(self, block)

@@ -28,10 +28,13 @@ from studykit.stats.solvers import (
 
 
 class Loglogistic(Family):
-    id, label, param_names = "loglogistic", "Loglogistic", ("shape", "scale")
+    id, label = "loglogistic", "Loglogistic"
+    param_names: tuple[str, ...] = ("shape", "scale")
     order = 11
     support = "positive"
-    ad_p_source = "Stephens (1979); D'Agostino & Stephens (1986) Table 4.22 on log x, interpolated"
+    ad_p_source: str | None = (
+        "Stephens (1979); D'Agostino & Stephens (1986) Table 4.22 on log x, interpolated"
+    )
 
     def _estimate(self, x):
         ly = np.log(x)

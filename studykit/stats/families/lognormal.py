@@ -26,10 +26,13 @@ def _exp(v):
 
 
 class Lognormal(Family):
-    id, label, param_names = "lognormal", "Lognormal", ("log_mean", "log_sd")
+    id, label = "lognormal", "Lognormal"
+    param_names: tuple[str, ...] = ("log_mean", "log_sd")
     order = 2
     support = "positive"
-    ad_p_source = "D'Agostino & Stephens (1986) Table 4.9, case 3, on log(x - threshold)"
+    ad_p_source: str | None = (
+        "D'Agostino & Stephens (1986) Table 4.9, case 3, on log(x - threshold)"
+    )
 
     def _estimate(self, x):
         ly = np.log(x)

@@ -14,6 +14,7 @@ from studykit.stats.families.base import (
     ad_from_logs,
     ad_p_table,
     refit_by_fit_rows,
+    shape_scale_row,
     threshold_of,
 )
 from studykit.stats.solvers import (
@@ -71,11 +72,12 @@ def _weibull_fit(logy: np.ndarray, k0: float | None = None) -> tuple[float, floa
 
 
 class Weibull(Family):
-    id, label, param_names = "weibull", "Weibull", ("shape", "scale")
+    id, label = "weibull", "Weibull"
+    param_names: tuple[str, ...] = ("shape", "scale")
     order = 4
     warm_in_theta = True  # the shape is close to linear in theta across a grid step
     support = "positive"
-    ad_p_source = (
+    ad_p_source: str | None = (
         "Stephens (1977); D'Agostino & Stephens (1986) Table 4.17 (extreme value "
         "on log x), interpolated"
     )
@@ -171,11 +173,7 @@ class Weibull(Family):
     def fit_one(y, start=None):
         """:meth:`Weibull.fit_rows` for one row by the scalar :func:`_weibull_fit` (same root)."""
         k, scale, ll = _weibull_fit(np.log(y), None if start is None else float(start[0][0]))
-        return (
-            np.array([ll]),
-            {"shape": np.array([k]), "scale": np.array([scale])},
-            (np.array([k]),),
-        )
+        return shape_scale_row(k, scale, ll)
 
     def refit_rows(self, block, shared=None):
         return refit_by_fit_rows(self, block)
