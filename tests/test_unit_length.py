@@ -1,8 +1,9 @@
 """Small units: no function over 80 lines (docstring included) in the files split into named
 steps, unless a ``# long: <reason>`` comment right above its ``def`` records why (issue 16).
 
-The limit 80 is common practice, no source. The list of files only grows: add a file here once
-its long functions are split.
+The limit 80 is common practice, no source. Every module of ``studykit/stats`` and
+``studykit/analysis.py`` is checked (issue 16's "done when"), plus the files listed after them;
+the list only grows.
 """
 
 from __future__ import annotations
@@ -14,12 +15,12 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 LIMIT = 80
-FILES = (
-    "studykit/analysis.py",
-    "studykit/stats/capability.py",
-    "studykit/stats/verdict.py",
-    "studykit/report/figures.py",
-)
+FILES = tuple(
+    sorted(
+        str(p.relative_to(ROOT))
+        for p in (*(ROOT / "studykit" / "stats").rglob("*.py"), ROOT / "studykit" / "analysis.py")
+    )
+) + ("studykit/report/figures.py",)
 
 
 def _long_units(path: Path) -> list[str]:
