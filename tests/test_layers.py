@@ -21,25 +21,9 @@ ROOT = Path(__file__).resolve().parents[1]
 PACKAGE = ROOT / "studykit"
 
 #: (importing module, imported module, private name) -> why it is still there
-PRIVATE_EXCEPTIONS: dict[tuple[str, str, str], str] = {
-    (
-        "studykit.cli.study",
-        "studykit.stats.rules",
-        "_BY_NUMBER",
-    ): "run rules by number for the --rules option; rules.py is in rework",
-    (
-        "studykit.stats.phase1",
-        "studykit.stats.charts",
-        "_plain_label",
-    ): "subgroup label text shared by the chart modules; charts.py is in rework",
-    (
-        "studykit.stats.phase2",
-        "studykit.stats.charts",
-        "_plain_label",
-    ): "subgroup label text shared by the chart modules; charts.py is in rework",
-}
+PRIVATE_EXCEPTIONS: dict[tuple[str, str, str], str] = {}
 #: the number of exceptions may only go down
-MAX_EXCEPTIONS = 3
+MAX_EXCEPTIONS = 0
 
 
 def _module_name(path: Path) -> str:

@@ -377,11 +377,11 @@ def _register_keep(sub) -> None:
 
 
 def _rule_id(text: str) -> str:
-    from studykit.stats.rules import _BY_NUMBER, RULE_IDS
+    from studykit.stats.rules import RULE_BY_NUMBER, RULE_IDS
 
     token = (text or "").strip().lower().replace("-", "_")
-    if token.isdigit() and int(token) in _BY_NUMBER:
-        return _BY_NUMBER[int(token)]
+    if token.isdigit() and int(token) in RULE_BY_NUMBER:
+        return RULE_BY_NUMBER[int(token)]
     if token not in RULE_IDS:
         raise StudyInputError(
             f"`--rule` ({text!r}) is not a run rule: use one of "

@@ -363,7 +363,7 @@ class ControlChart(Result):
         return {
             "kind": self.kind,
             "reason": self.reason,
-            "labels": [_plain_label(v) for v in self.labels],
+            "labels": [plain_label(v) for v in self.labels],
             "sizes": [int(v) for v in self.sizes],
             "location": self.location.to_dict(),
             "dispersion": None if self.dispersion is None else self.dispersion.to_dict(),
@@ -385,7 +385,8 @@ class ControlChart(Result):
         }
 
 
-def _plain_label(v):
+def plain_label(v):
+    """A subgroup label as a plain Python value (numpy scalars unwrapped) for JSON and text."""
     if isinstance(v, np.generic):
         v = v.item()
     if isinstance(v, int | float | str | bool) or v is None:
@@ -500,10 +501,10 @@ class Labels(Sequence):
     def __getitem__(self, i):
         if isinstance(i, slice):
             return Labels(self._a[i])
-        return _plain_label(self._a[i])
+        return plain_label(self._a[i])
 
     def __iter__(self):
-        return (_plain_label(v) for v in self._a.tolist())
+        return (plain_label(v) for v in self._a.tolist())
 
     def __eq__(self, other):
         if isinstance(other, tuple | list | Labels):
@@ -603,12 +604,12 @@ def _group(x, subgroups):
         labels = (
             Labels(uniq[order])
             if lab.dtype.kind != "O"
-            else tuple(_plain_label(v) for v in uniq[order].tolist())
+            else tuple(plain_label(v) for v in uniq[order].tolist())
         )
     except TypeError:  # labels of mixed types: group in Python
         seen: dict = {}
         codes = np.array([seen.setdefault(v, len(seen)) for v in lab.tolist()], dtype=np.int64)
-        labels = tuple(_plain_label(v) for v in seen)
+        labels = tuple(plain_label(v) for v in seen)
     sizes = np.bincount(codes, minlength=len(labels))
     return codes, labels, sizes
 
@@ -1109,7 +1110,7 @@ def _attribute_labels(labels, k: int) -> tuple:
         labels = labels.names[labels.codes]
     if labels is None:
         return tuple(range(1, k + 1))
-    labels_t = tuple(_plain_label(v) for v in np.asarray(labels).tolist())
+    labels_t = tuple(plain_label(v) for v in np.asarray(labels).tolist())
     if len(labels_t) != k:
         raise StudyInputError(
             f"`subgroups` has {len(labels_t)} labels but `counts` has {k}; give one label "

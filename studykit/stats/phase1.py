@@ -51,9 +51,9 @@ from studykit.stats.charts import (
     ChartSeries,
     ControlChart,
     SubgroupCodes,
-    _plain_label,
     control_chart,
     evaluate_series,
+    plain_label,
 )
 from studykit.stats.result import Result
 
@@ -121,7 +121,7 @@ class Removal(Result):
     def to_dict(self) -> dict:
         """JSON-safe dictionary."""
         return {
-            "label": _plain_label(self.label),
+            "label": plain_label(self.label),
             "rule": self.rule,
             "chart": self.chart,
             "iteration": self.iteration,
@@ -558,7 +558,7 @@ def _manual_exclusions(exclude, excluded_by, data: _Data) -> tuple[np.ndarray, l
     removals: list[Removal] = []
     removed = np.zeros(names.shape[0], dtype=bool)
     for label, entry in (exclude or {}).items():
-        key = _plain_label(label)
+        key = plain_label(label)
         code = _find_code(names, key)
         if code is None:
             raise StudyInputError(
@@ -797,7 +797,7 @@ def _find_code(names: np.ndarray, key):
     if kind in "USiu":
         return None
     for i, v in enumerate(names.tolist()):
-        if _plain_label(v) == key and type(_plain_label(v)) is type(key):
+        if plain_label(v) == key and type(plain_label(v)) is type(key):
             return i
     return None
 

@@ -19,7 +19,7 @@ from dataclasses import asdict, dataclass, fields
 import numpy as np
 
 from studykit.errors import StudyFileError, StudyInputError
-from studykit.stats.charts import ATTRIBUTE_KINDS, ControlChart, _plain_label, control_chart
+from studykit.stats.charts import ATTRIBUTE_KINDS, ControlChart, control_chart, plain_label
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 
@@ -190,7 +190,7 @@ class MonitorResult(Result):
             "signals": [s.to_dict() for s in self.signals],
             "signal_records": self.signal_records(),
             "in_control": self.in_control,
-            "first_signal_label": _plain_label(self.first_signal_label),
+            "first_signal_label": plain_label(self.first_signal_label),
             "warnings": list(self.warnings),
         }
 
@@ -244,12 +244,12 @@ def signal_records(chart: ControlChart) -> list[dict]:
         where = _CHART_WORDS.get(series.name, f"{series.name} chart")
         for sig in series.signals:
             pos = [int(p) for p in sig.points]
-            subgroups = [_plain_label(labels[p]) for p in pos]
+            subgroups = [plain_label(labels[p]) for p in pos]
             readings = subgroups
             text = f"{where}: {sig.text}"
             if series.name == "moving_range":
                 behind = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
-                readings = [_plain_label(labels[q]) for q in behind]
+                readings = [plain_label(labels[q]) for q in behind]
                 if sig.rule == "beyond_limits" and len(pos) == 1:
                     p = pos[0]
                     value = float(series.points[p])

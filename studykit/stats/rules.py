@@ -147,7 +147,8 @@ _TABLE: dict[str, tuple[int | None, dict[str, float | int | bool], str]] = {
     "hugging": (7, {"length": 15, "sigmas": 1.0}, "length"),
     "mixture": (8, {"length": 8, "sigmas": 1.0, "both_sides": True}, "length"),
 }
-_BY_NUMBER = {number: rid for rid, (number, _, _) in _TABLE.items()}
+#: rule id of each Nelson (1984) test number, for rules given by number (``--rules 1,2,5``)
+RULE_BY_NUMBER = {number: rid for rid, (number, _, _) in _TABLE.items()}
 # smallest allowed value for each integer parameter
 _MIN_INT = {
     ("run", "length"): 2,
@@ -450,8 +451,8 @@ class Signal(Result):
 def _rule_ref(token: str, spec: str) -> str:
     if token in _TABLE:
         return token
-    if token.isdigit() and int(token) in _BY_NUMBER:
-        return _BY_NUMBER[int(token)]
+    if token.isdigit() and int(token) in RULE_BY_NUMBER:
+        return RULE_BY_NUMBER[int(token)]
     raise StudyInputError(
         f"`rules` ({spec!r}): {token!r} is not a rule; use a set ({', '.join(RULE_SETS)}), "
         f"a rule id ({', '.join(RULE_IDS)}) or a Nelson number 1-8"
