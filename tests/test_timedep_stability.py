@@ -92,3 +92,21 @@ def test_class_limits_refuses_a_class_that_does_not_move():
     x, g = _wear()
     with pytest.raises(Exception, match="only C1, C3, C4"):
         timedep.class_limits(x, g, "A1")
+
+
+def test_the_indices_table_marks_the_class_index_as_judged():
+    """The demo's worn-tool seat (class C3) is judged on the class's Ppk: the workbook's table
+    shows that row as judged, not the usual Ppk (one verdict on every surface)."""
+    from pathlib import Path
+
+    from studykit.analysis import analyze_study
+    from studykit.app.steps.capability import indices_html
+    from studykit.store import StudyFile
+
+    demo = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.study"
+    res = analyze_study(StudyFile(demo).load(), "shaft_seat_diameter")
+    assert res.time_model.judged["basis"] == "class_method"
+    html = indices_html(res)
+    assert html.count("(judged)") == 1
+    assert "by the time-dependent model C3 (judged)" in html
+    assert f"{res.time_model.judged['lower_bound']:.2f}" in html

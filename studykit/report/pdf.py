@@ -1108,12 +1108,16 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 "Bound method",
             ]
         ]
+        judged_key = res.verdict.index if res.verdict is not None else res.criteria.get("index")
+        by_class = (res.time_model.judged or {}) if res.time_model is not None else {}
+        if by_class.get("basis") == "class_method":
+            judged_key = None  # judged on the class's own index: the extra row below
         for k in ("cp", "cpk", "pp", "ppk", "cpm"):
             est = getattr(cap, k)
             b = (cap.bounds or {}).get(k) or {}
             if est is None:
                 continue
-            judged = " (judged)" if k == res.criteria.get("index") else ""
+            judged = " (judged)" if k == judged_key else ""
             rows.append(
                 [
                     f"<b>{_index_name(k)}</b>{judged}",
@@ -1123,6 +1127,17 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                     if b.get("lower") is not None
                     else "–",
                     escape_text(names.bound_method_label(b.get("method", "–"))),
+                ]
+            )
+        if by_class.get("basis") == "class_method":
+            rows.append(
+                [
+                    f"<b>{_index_name(by_class['index'])}</b> by the time-dependent model "
+                    f"{escape_text(res.time_model.cls)} (judged)",
+                    _idx(by_class.get("estimate")),
+                    _idx(by_class.get("lower_bound")),
+                    "–",
+                    "parametric bootstrap of the class model",
                 ]
             )
         story.append(

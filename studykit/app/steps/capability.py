@@ -84,6 +84,13 @@ def indices_html(result) -> str:
         return ""
     pct = f"{cap.level * 100:g}%"
     judged = result.criteria.get("index")
+    verdict = getattr(result, "verdict", None)
+    if verdict is not None and getattr(verdict, "index", None):
+        judged = verdict.index
+    tm = getattr(result, "time_model", None)
+    by_class = (getattr(tm, "judged", None) or {}) if tm is not None else {}
+    if by_class.get("basis") == "class_method":
+        judged = None  # judged on the class's own index: the extra row below
     body = []
     for k in ("cp", "cpk", "pp", "ppk", "cpm"):
         est = getattr(cap, k, None)
@@ -102,6 +109,14 @@ def indices_html(result) -> str:
             f'<td class="num">{fmt(b.get("lower_bound"), 2)}</td>'
             f'<td class="num">{two}</td>'
             f"<td>{esc(names.bound_method_label(b.get('method', '—')))}</td></tr>"
+        )
+    if by_class.get("basis") == "class_method":
+        body.append(
+            f"<tr><td><b>{esc(names.index_label(by_class['index']))}</b> by the time-dependent "
+            f"model {esc(tm.cls)} (judged)</td>"
+            f'<td class="num">{fmt(by_class.get("estimate"), 2)}</td>'
+            f'<td class="num">{fmt(by_class.get("lower_bound"), 2)}</td>'
+            '<td class="num">—</td><td>parametric bootstrap of the class model</td></tr>'
         )
     return (
         '<div class="sk-panel-title">Capability indices</div>'
