@@ -1738,12 +1738,21 @@ def _verdict_and_findings(
         finding, verdict = _signals_with_kept(chart, verdict, kept_keys, kept_rows, p1.chance)
         findings[:0] = finding
     elif chart.signals:
-        by_class, explained = _explained_by_class(chart, time_model, time_readings)
+        by_class, explained, beyond = _explained_by_class(chart, time_model, time_readings)
         if not explained:
             finding, verdict = _not_in_control(chart, verdict, p1.chance)
             findings.insert(0, finding)
         if by_class is not None:
             findings.insert(0 if explained else 1, by_class)
+            if not explained and verdict is not None:  # say which signals are left
+                verdict = replace(
+                    verdict,
+                    text=verdict.text
+                    + f" The {len(beyond['location'])} subgroup mean(s) beyond the limits lie "
+                    f"within those of the time-dependent model {time_model.cls}; the "
+                    f"{names.chart_part_label(chart.kind, 'dispersion')}'s point(s) at "
+                    f"subgroup(s) {', '.join(beyond['dispersion'])} are left to explain.",
+                )
     if withheld:
         verdict = _withhold(verdict, withheld)
         findings[:0] = list(withheld)
@@ -1765,12 +1774,13 @@ def _verdict_and_findings(
 
 
 def _explained_by_class(chart, time_model, time_readings):
-    """``(finding or None, explained)``: whether the time-dependent class explains every point
-    beyond the control limits (studykit/time_model.py)."""
+    """``(finding or None, explained, beyond)``: whether the time-dependent class explains every
+    point beyond the control limits (studykit/time_model.py); ``beyond`` holds the subgroup
+    labels of the points beyond the limits per chart part."""
     from studykit.time_model import signals_explained
 
     if time_model is None or time_model.cls not in ("C1", "C3", "C4"):
-        return None, False
+        return None, False, {}
     beyond = {}
     for part, series in (("location", chart.location), ("dispersion", chart.dispersion)):
         labels = []
@@ -1778,13 +1788,14 @@ def _explained_by_class(chart, time_model, time_readings):
             if sig.rule == "beyond_limits":
                 labels += _signal_labels(chart, sig)
         beyond[part] = list(dict.fromkeys(labels))
-    return signals_explained(
+    finding, explained = signals_explained(
         time_model,
         *time_readings,
         beyond["location"],
         beyond["dispersion"],
         names.chart_part_label(chart.kind, "dispersion"),
     )
+    return finding, explained, beyond
 
 
 def _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings):
