@@ -53,6 +53,19 @@ OKABE_ITO = {
     "reddish_purple": "#CC79A7",
 }
 
+#: The order in which series take the palette's colours (charts with several series: streams,
+#: appraisers, models); yellow last, as it is the weakest on white.
+SERIES_ORDER = (
+    "blue",
+    "orange",
+    "bluish_green",
+    "reddish_purple",
+    "sky_blue",
+    "vermillion",
+    "black",
+    "yellow",
+)
+
 # Neutral tones for text, rules and page: our own, each tinted with the palette's blue (#0072B2)
 # so the frame belongs to the charts (not part of the published palette). The mix is
 # ``(1 - t) * base + t * blue`` per channel; contrast is checked in tests/test_app_theme.py.
@@ -272,18 +285,7 @@ def matplotlib_style() -> dict:
     """
     from cycler import cycler
 
-    cycle = [
-        OKABE_ITO[k]
-        for k in (
-            "blue",
-            "orange",
-            "bluish_green",
-            "reddish_purple",
-            "sky_blue",
-            "vermillion",
-            "black",
-        )
-    ]
+    cycle = [OKABE_ITO[k] for k in SERIES_ORDER[:-1]]  # yellow left out on paper
     return {
         "font.family": "sans-serif",
         "font.sans-serif": [FONT_FAMILY],

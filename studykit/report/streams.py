@@ -43,19 +43,7 @@ def group_chart_figure(result, *, width: float = 7.0) -> Figure:
 
     g = result.streams.group
     names = list(result.streams.names)
-    colours = [
-        theme.OKABE_ITO[k]
-        for k in (
-            "blue",
-            "orange",
-            "bluish_green",
-            "reddish_purple",
-            "sky_blue",
-            "vermillion",
-            "black",
-            "yellow",
-        )
-    ]
+    colours = [theme.OKABE_ITO[k] for k in theme.SERIES_ORDER]
     with theme.matplotlib_context():
         fig = Figure(figsize=(width, 3.2))
         ax = fig.subplots()
