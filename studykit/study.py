@@ -205,6 +205,16 @@ def _canonical(obj) -> str:
 # characteristic and criteria
 
 
+def _known_fields(cls, d: Mapping, what: str) -> dict:
+    """``d`` as keyword arguments of the dataclass ``cls``; a key it does not know is an error
+    (``what`` names the kind of field in the message)."""
+    known = {f.name for f in dataclasses.fields(cls)}
+    extra = sorted(set(d) - known)
+    if extra:
+        raise SpecError(f"unknown {what} field(s) {extra}: known are {sorted(known)}")
+    return dict(d)
+
+
 @dataclass(frozen=True)
 class Characteristic:
     """One measured feature of the part, with its specification.
@@ -350,11 +360,7 @@ class Characteristic:
     @classmethod
     def from_dict(cls, d: Mapping) -> Characteristic:
         """Inverse of :meth:`to_dict`; unknown keys are an error."""
-        known = {f.name for f in dataclasses.fields(cls)}
-        extra = sorted(set(d) - known)
-        if extra:
-            raise SpecError(f"unknown specification field(s) {extra}: known are {sorted(known)}")
-        return cls(**dict(d))
+        return cls(**_known_fields(cls, d, "specification"))
 
 
 @dataclass(frozen=True)
@@ -466,12 +472,8 @@ class Criteria:
 
     @classmethod
     def from_dict(cls, d: Mapping) -> Criteria:
-        """Inverse of :meth:`to_dict`."""
-        known = {f.name for f in dataclasses.fields(cls)}
-        extra = sorted(set(d) - known)
-        if extra:
-            raise SpecError(f"unknown criteria field(s) {extra}: known are {sorted(known)}")
-        return cls(**dict(d))
+        """Inverse of :meth:`to_dict`; unknown keys are an error."""
+        return cls(**_known_fields(cls, d, "criteria"))
 
 
 # ---------------------------------------------------------------------------------------------
