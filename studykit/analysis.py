@@ -717,8 +717,15 @@ def _excluded_points(values, labels, p1) -> dict:
     kind = p1.chart.kind
     if kind not in ("xbar_r", "xbar_s", "imr"):
         return {}
-    trial = {str(v) for v in p1.trial_chart.labels}
-    wanted = [str(r.label) for r in p1.removals if str(r.label) not in trial]
+    removed = [str(r.label) for r in p1.removals]
+    if not removed:  # nothing removed: no label of a long chart is read
+        return {}
+    trial_labels = p1.trial_chart.labels
+    arr = getattr(trial_labels, "array", None)  # charts.Labels: one array, no Python objects
+    if arr is None:
+        arr = np.asarray([str(v) for v in trial_labels], dtype=str)
+    trial = set(np.asarray(arr)[np.isin(np.asarray(arr).astype(str), removed)].astype(str))
+    wanted = [lab for lab in removed if lab not in trial]
     out: dict = {}
     for lab in wanted:
         v = values[(labels == lab) & np.isfinite(values)]
