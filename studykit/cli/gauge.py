@@ -211,49 +211,20 @@ def run(args) -> int:
         raise type(exc)(
             exc.detail, file=Path(args.file).name, row=exc.row, column=exc.column, value=exc.value
         ) from None
-    stored_id = None
-    if args.study:
-        who = args.who or login_name()
-        payload = result.to_dict()
-        payload["source_file"] = Path(args.file).name
-        payload["limits_from"] = "study" if limits_from else "command line"
-        payload["columns"] = {
-            "part": args.part,
-            "appraiser": args.appraiser,
-            "value": args.value,
-            "trial": args.trial,
-        }
-        lock = (
-            {"override_lock": True, "override_reason": args.override_lock}
-            if args.override_lock
-            else {}
-        )
-        stored_id = StudyFile(args.study).attach_result(
-            RESULT_KIND, args.characteristic, payload, who=who, **lock
-        )
-    if args.json:
-        out = result.to_dict()
-        if stored_id is not None:
-            out["stored"] = {
-                "study": Path(args.study).name,
-                "characteristic": args.characteristic,
-                "result_id": stored_id,
-                "limits_from": "study" if limits_from else "command line",
-            }
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
-    else:
-        sys.stdout.write(format_gauge(result, source=Path(args.file).name))
-        if limits_from:
-            sys.stdout.write(
-                f"Tolerance taken from the specification of '{limits_from}' in the study file.\n"
-            )
-        if stored_id is not None:
-            sys.stdout.write(
-                f"Stored as result {stored_id} of '{args.characteristic}' in "
-                f"{Path(args.study).name}.\n"
-            )
-    return 0
+    columns = {
+        "part": args.part,
+        "appraiser": args.appraiser,
+        "value": args.value,
+        "trial": args.trial,
+    }
+    return _store_and_print(
+        args,
+        result,
+        RESULT_KIND,
+        columns,
+        limits_from,
+        format_gauge(result, source=Path(args.file).name),
+    )
 
 
 def run_short(args) -> int:
@@ -302,44 +273,14 @@ def run_short(args) -> int:
         raise type(exc)(
             exc.detail, file=Path(args.file).name, column=exc.column or args.value, value=exc.value
         ) from None
-    stored_id = None
-    from_ = "study" if limits_from else "command line"
-    if args.study:
-        payload = result.to_dict()
-        payload["source_file"] = Path(args.file).name
-        payload["limits_from"] = from_
-        payload["columns"] = {"value": args.value}
-        lock = (
-            {"override_lock": True, "override_reason": args.override_lock}
-            if args.override_lock
-            else {}
-        )
-        stored_id = StudyFile(args.study).attach_result(
-            SHORT_KIND, args.characteristic, payload, who=args.who or login_name(), **lock
-        )
-    if args.json:
-        out = result.to_dict()
-        if stored_id is not None:
-            out["stored"] = {
-                "study": Path(args.study).name,
-                "characteristic": args.characteristic,
-                "result_id": stored_id,
-                "limits_from": from_,
-            }
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
-    else:
-        sys.stdout.write(format_short(result, source=Path(args.file).name))
-        if limits_from:
-            sys.stdout.write(
-                f"Tolerance taken from the specification of '{limits_from}' in the study file.\n"
-            )
-        if stored_id is not None:
-            sys.stdout.write(
-                f"Stored as result {stored_id} of '{args.characteristic}' in "
-                f"{Path(args.study).name}.\n"
-            )
-    return 0
+    return _store_and_print(
+        args,
+        result,
+        SHORT_KIND,
+        {"value": args.value},
+        limits_from,
+        format_short(result, source=Path(args.file).name),
+    )
 
 
 def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
@@ -527,3 +468,46 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
         lines.append("Notes:")
         lines += [f"  - {n}" for n in res.notes]
     return "\n".join(lines) + "\n"
+
+
+def _store_and_print(args, result, kind, columns, limits_from, text) -> int:
+    """Attach the gauge result to the study (with ``--study``) and print it as JSON or text."""
+    stored_id = None
+    from_ = "study" if limits_from else "command line"
+    if args.study:
+        from studykit.store import StudyFile
+
+        payload = result.to_dict()
+        payload["source_file"] = Path(args.file).name
+        payload["limits_from"] = from_
+        payload["columns"] = columns
+        lock = (
+            {"override_lock": True, "override_reason": args.override_lock}
+            if args.override_lock
+            else {}
+        )
+        stored_id = StudyFile(args.study).attach_result(
+            kind, args.characteristic, payload, who=args.who or login_name(), **lock
+        )
+    if args.json:
+        out = result.to_dict()
+        if stored_id is not None:
+            out["stored"] = {
+                "study": Path(args.study).name,
+                "characteristic": args.characteristic,
+                "result_id": stored_id,
+                "limits_from": from_,
+            }
+        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
+        sys.stdout.write("\n")
+        return 0
+    sys.stdout.write(text)
+    if limits_from:
+        sys.stdout.write(
+            f"Tolerance taken from the specification of '{limits_from}' in the study file.\n"
+        )
+    if stored_id is not None:
+        sys.stdout.write(
+            f"Stored as result {stored_id} of '{args.characteristic}' in {Path(args.study).name}.\n"
+        )
+    return 0
