@@ -10,11 +10,17 @@ from __future__ import annotations
 from studykit.errors import StudyInputError
 
 __all__ = [
+    "add_override_lock",
     "analysis_options",
     "criteria_from_args",
     "read_file_measurements",
     "spec_from_args",
 ]
+
+
+def add_override_lock(parser, help_text="change an approved study anyway; voids the approval"):
+    """The ``--override-lock REASON`` option of every command that changes a study file."""
+    parser.add_argument("--override-lock", metavar="REASON", help=help_text)
 
 
 def read_file_measurements(args):

@@ -18,6 +18,7 @@ import sys
 from pathlib import Path
 
 from studykit import names
+from studykit.cli.args import add_override_lock
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -149,11 +150,7 @@ def register(subparsers) -> None:
         metavar="NAME",
         help="name recorded with the stored result (default: the login name)",
     )
-    p.add_argument(
-        "--override-lock",
-        metavar="REASON",
-        help="store the result in an approved study anyway; voids the approval",
-    )
+    add_override_lock(p, "store the result in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
 

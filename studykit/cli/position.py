@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from studykit.cli.args import add_override_lock
 from studykit.errors import DataFileError, StudyInputError
 
 FIGURE_SUFFIXES = (".png", ".pdf", ".svg")
@@ -63,11 +64,7 @@ def register(sub) -> None:
         metavar="NAME",
         help="name recorded with the stored study (default: the login name)",
     )
-    p.add_argument(
-        "--override-lock",
-        metavar="REASON",
-        help="store it in an approved study anyway; voids the approval",
-    )
+    add_override_lock(p, "store it in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
 

@@ -29,6 +29,7 @@ import sys
 from pathlib import Path
 
 from studykit import names
+from studykit.cli.args import add_override_lock
 from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import Study, match_to_data, read_specs
@@ -112,11 +113,7 @@ def register(subparsers) -> None:
         q.add_argument("subgroup", metavar="SUBGROUP")
         q.add_argument("--reason", required=True, help="why (kept in the audit log)")
         q.add_argument("--who", default=None, help="your name (default: the login name)")
-        q.add_argument(
-            "--override-lock",
-            metavar="REASON",
-            help="change an approved study anyway; voids the approval",
-        )
+        add_override_lock(q)
         q.set_defaults(func=run_decision, action=action)
 
     _register_keep(sub)
@@ -150,11 +147,7 @@ def register(subparsers) -> None:
     )
     st.add_argument("--reason", required=True, help="why (kept in the audit log)")
     st.add_argument("--who", default=None)
-    st.add_argument(
-        "--override-lock",
-        metavar="REASON",
-        help="change an approved study anyway; voids the approval",
-    )
+    add_override_lock(st)
     st.set_defaults(func=run_set)
 
     com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
@@ -213,11 +206,7 @@ def register(subparsers) -> None:
         )
     rules.add_argument("--reason", help="why the rules change (required for a change)")
     rules.add_argument("--who", default=None)
-    rules.add_argument(
-        "--override-lock",
-        metavar="REASON",
-        help="change the rules of an approved study anyway; voids the approval",
-    )
+    add_override_lock(rules, "change the rules of an approved study anyway; voids the approval")
     rules.set_defaults(func=run_rules)
 
     waive = sub.add_parser(
@@ -232,11 +221,7 @@ def register(subparsers) -> None:
     waive.add_argument("--reason", required=True, help="why (kept in the audit log)")
     waive.add_argument("--withdraw", action="store_true", help="withdraw the waiver instead")
     waive.add_argument("--who", default=None)
-    waive.add_argument(
-        "--override-lock",
-        metavar="REASON",
-        help="change an approved study anyway; voids the approval",
-    )
+    add_override_lock(waive)
     waive.set_defaults(func=run_waive)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
@@ -367,11 +352,7 @@ def _register_keep(sub) -> None:
         )
         q.add_argument("--reason", required=True, help="why (kept in the audit log)")
         q.add_argument("--who", default=None, help="your name (default: the login name)")
-        q.add_argument(
-            "--override-lock",
-            metavar="REASON",
-            help="change an approved study anyway; voids the approval",
-        )
+        add_override_lock(q)
     keep.set_defaults(func=run_keep)
     reopen.set_defaults(func=run_reopen)
 
