@@ -1088,18 +1088,7 @@ def _short_gauge_checks(evidence: dict, checks: list) -> int:
             checks.append(Check(label, "fail", f"cannot be recomputed from its readings: {exc}"))
             continue
         reported = {k: v for k, v in payload.items() if k in fresh}
-        n, diffs = compare_numbers(reported, fresh)
-        total += n
-        if diffs:
-            checks.append(
-                Check(
-                    label,
-                    "fail",
-                    f"{len(diffs)} difference(s) among {n} numbers: " + "; ".join(diffs[:4]),
-                )
-            )
-        else:
-            checks.append(Check(label, "pass", f"all {n} numbers agree with the readings"))
+        total += _compare_check(label, reported, fresh, "the readings", checks)
     return total
 
 
@@ -1115,16 +1104,21 @@ def _position_checks(evidence: dict, checks: list) -> int:
         except (StudyInputError, KeyError, TypeError, ValueError) as exc:
             checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: {exc}"))
             continue
-        n, diffs = compare_numbers(payload.get("result") or {}, fresh)
-        total += n
-        if diffs:
-            checks.append(
-                Check(
-                    label,
-                    "fail",
-                    f"{len(diffs)} difference(s) among {n} numbers: " + "; ".join(diffs[:4]),
-                )
-            )
-        else:
-            checks.append(Check(label, "pass", f"all {n} numbers agree with the deviations"))
+        total += _compare_check(label, payload.get("result") or {}, fresh, "the deviations", checks)
     return total
+
+
+def _compare_check(label, reported, fresh, source, checks) -> int:
+    """Compare the reported numbers with the recomputed ones; one check line; numbers compared."""
+    n, diffs = compare_numbers(reported, fresh)
+    if diffs:
+        checks.append(
+            Check(
+                label,
+                "fail",
+                f"{len(diffs)} difference(s) among {n} numbers: " + "; ".join(diffs[:4]),
+            )
+        )
+    else:
+        checks.append(Check(label, "pass", f"all {n} numbers agree with {source}"))
+    return n
