@@ -54,6 +54,18 @@ _LOCATION_NAMES = {
 }
 
 
+def _paper_legend(ax) -> None:
+    """A small legend at the top left on a paper-coloured box (the shape figure's panels)."""
+    ax.legend(
+        loc="upper left",
+        fontsize=7.5,
+        frameon=True,
+        facecolor=theme.PAPER,
+        edgecolor=theme.PAPER,
+        framealpha=0.9,
+    )
+
+
 def figure_png(fig: Figure, *, dpi: int = 200) -> bytes:
     """PNG bytes of ``fig`` at print resolution, with no time or software metadata."""
     buf = io.BytesIO()
@@ -429,14 +441,7 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         ax1.set_xlim(lo - pad, hi + pad)
         unit = f" [{result.unit}]" if result.unit else ""
         tidy_axes(ax1, "Distribution of the values", "Density", result.characteristic + unit)
-        ax1.legend(
-            loc="upper left",
-            fontsize=7.5,
-            frameon=True,
-            facecolor=theme.PAPER,
-            edgecolor=theme.PAPER,
-            framealpha=0.9,
-        )
+        _paper_legend(ax1)
         _probability_panel(ax2, result, unit)
     return fig
 
@@ -475,14 +480,7 @@ def _probability_panel(ax2, result, unit) -> None:
         ax2.set_yticks([t for t, _ in keep])
         ax2.set_yticklabels([f"{p * 100:g}%" for _, p in keep])
         tidy_axes(ax2, "Normal probability plot", "Cumulative %", result.characteristic + unit)
-        ax2.legend(
-            loc="upper left",
-            fontsize=7.5,
-            frameon=True,
-            facecolor=theme.PAPER,
-            edgecolor=theme.PAPER,
-            framealpha=0.9,
-        )
+        _paper_legend(ax2)
     else:
         ax2.set_axis_off()
 
