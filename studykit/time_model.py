@@ -86,6 +86,8 @@ def time_model_verdict(values, labels, spec, verdict, capability) -> tuple:
     """``(TimeModel or None, findings tuple, verdict)``: the class, its finding, and the verdict
     judged on the class's index where the class calls for it (see the module text)."""
     tm, _ = time_model_for(values, labels, spec)
+    if tm is not None and tm.cls in ("C1", "C3", "C4"):
+        tm = replace(tm, location_limits=_drawn_limits(values, labels, tm.cls))
     if tm is None or tm.cls in (None, "A1", "A2") or verdict is None:
         return tm, (), verdict
     index = _OVERALL.get(verdict.index)
@@ -147,6 +149,19 @@ def time_model_verdict(values, labels, spec, verdict, capability) -> tuple:
             + f" Judged on {basis['text']}: ISO 22514-2 class {tm.cls} (from memory).",
         )
     return replace(tm, judged=basis), _finding(tm, basis, verdict), new
+
+
+def _drawn_limits(values, labels, cls) -> dict | None:
+    """The class model's limits of each subgroup mean, as lists for the charts."""
+    try:
+        lim = timedep.class_limits(values, labels, cls)
+    except StudyInputError:
+        return None
+    return {
+        "labels": list(lim["labels"]),
+        "centre": [float(v) for v in lim["centre"]],
+        "half": [float(v) for v in lim["half"]],
+    }
 
 
 def _finding(tm, basis, old) -> tuple:

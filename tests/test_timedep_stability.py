@@ -110,3 +110,27 @@ def test_the_indices_table_marks_the_class_index_as_judged():
     assert html.count("(judged)") == 1
     assert "by the time-dependent model C3 (judged)" in html
     assert f"{res.time_model.judged['lower_bound']:.2f}" in html
+
+
+def test_the_class_limits_reach_the_charts():
+    """The workbook's location chart and the PDF figure draw the class model's limits from the
+    result (a renderer never computes them): the same numbers as ``class_limits``."""
+    from pathlib import Path
+
+    from studykit.analysis import analyze_study
+    from studykit.app.charts import control_chart_columns
+    from studykit.store import StudyFile
+
+    demo = Path(__file__).resolve().parents[1] / "demo_data" / "pump_housing_pilot.study"
+    study = StudyFile(demo).load()
+    res = analyze_study(study, "shaft_seat_diameter")
+    lim = res.time_model.location_limits
+    band = control_chart_columns(res)["location"]["class_band"]
+    assert len(band["x"]) == len(lim["labels"]) == 30
+    np.testing.assert_allclose(
+        np.asarray(band["upper"]) - np.asarray(band["lower"]), 2 * np.asarray(lim["half"])
+    )
+    # a class that does not move the location draws nothing
+    still = analyze_study(study, "bore_diameter")
+    assert still.time_model.cls in ("A1", "A2")
+    assert control_chart_columns(still)["location"]["class_band"]["x"] == []

@@ -199,6 +199,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
                 ring["x"].append(xpos[lab])
                 ring["value"].append(by_label[lab])
                 ring["why"].append(kept_why[lab])
+        band = _class_band(result, part, order, xpos, on_model_scale)
         c = limits["center"]
         text = {
             "center": c[-1] if c else None,
@@ -213,11 +214,30 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             "signals": signals,
             "limit_text": text,
             "kept": ring,
+            "class_band": band,
             "name": (LOCATION_NAMES if part == "location" else DISPERSION_NAMES).get(
                 chart.kind, part
             ),
         }
     return out
+
+
+def _class_band(result, part, order, xpos, on_model_scale) -> dict:
+    """The time-dependent class model's limits of each subgroup mean (C1, C3, C4), on the
+    location chart in measured units: ``{"x", "lower", "upper"}`` (empty otherwise)."""
+    band: dict = {"x": [], "lower": [], "upper": []}
+    tm = getattr(result, "time_model", None)
+    lim = getattr(tm, "location_limits", None) if tm is not None else None
+    if part != "location" or not lim or on_model_scale:
+        return band
+    where = {lab: i for i, lab in enumerate(lim["labels"])}
+    for lab in order:
+        i = where.get(lab)
+        if i is not None:
+            band["x"].append(xpos[lab])
+            band["lower"].append(lim["centre"][i] - lim["half"][i])
+            band["upper"].append(lim["centre"][i] + lim["half"][i])
+    return band
 
 
 def _kept_why(result) -> dict[str, str]:
@@ -326,6 +346,7 @@ class ControlChartView:
             },
             name=f"{part}_limits",
         )
+        class_src = ColumnDataSource({"x": [], "lower": [], "upper": []}, name=f"{part}_class")
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
         ring = ColumnDataSource({"x": [], "value": [], "why": []}, name=f"{part}_kept")
         fig = figure(
@@ -350,6 +371,14 @@ class ControlChartView:
             source=lim,
             fill_color=theme.SKY_BLUE_LINE,
             fill_alpha=0.10,
+        )
+        class_band = fig.varea(
+            "x",
+            "lower",
+            "upper",
+            source=class_src,
+            fill_color=theme.OKABE_ITO["bluish_green"],
+            fill_alpha=0.12,
         )
         for key in ("lower_zone", "upper_zone"):
             fig.step(
@@ -434,6 +463,10 @@ class ControlChartView:
         )
         fig.add_tools(hover, TapTool(renderers=[kept, removed]))
         if part == "location":
+            # shown only when a time-dependent class draws its limits (update)
+            self.class_item = LegendItem(
+                label="Limits of the time-dependent model", renderers=[class_band], visible=False
+            )
             items = [
                 LegendItem(label="Subgroup", renderers=[kept_key]),
                 LegendItem(label="Centre", renderers=[centre]),
@@ -443,6 +476,7 @@ class ControlChartView:
                 LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
                 LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
                 LegendItem(label="Signal kept (reason on file)", renderers=[ring_key]),
+                self.class_item,
             ]
             # two rows: eight entries do not fit one row beside the side panel at 1280 px
             fig.add_layout(
@@ -462,7 +496,13 @@ class ControlChartView:
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
-        self.sources[part] = {"points": pts, "limits": lim, "signals": sig, "kept": ring}
+        self.sources[part] = {
+            "points": pts,
+            "limits": lim,
+            "signals": sig,
+            "kept": ring,
+            "class": class_src,
+        }
         return fig
 
     def update(self, result, *, full_chart=None, details=None, unit: str | None = None) -> dict:
@@ -487,6 +527,9 @@ class ControlChartView:
             src["limits"].data = c["limits"]
             src["signals"].data = c["signals"]
             src["kept"].data = c["kept"]
+            src["class"].data = c["class_band"]
+            if part == "location":
+                self.class_item.visible = bool(c["class_band"]["x"])
             t = c["limit_text"]
             if t["varies"]:
                 limits_text = "limits vary with the subgroup size"
@@ -517,6 +560,8 @@ class ControlChartView:
                 lim["ucl"],
                 lim["lower_warning"],
                 lim["upper_warning"],
+                c["class_band"]["lower"],
+                c["class_band"]["upper"],
             )
             fig.xaxis.axis_label = (
                 "Value (production order)"

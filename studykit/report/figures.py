@@ -307,6 +307,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             used,
         )
         _kept_rings(axes[0], chart.location, x, used, result)
+        _class_band(axes[0], result, all_labels)
         if panels == 2:
             dx = x[-len(chart.dispersion.points) :]
             drx = [
@@ -349,6 +350,33 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             columnspacing=1.5,
         )
     return fig
+
+
+def _class_band(ax, result, all_labels) -> None:
+    """The time-dependent class model's limits of each subgroup mean (C1, C3, C4; from
+    ``result.time_model.location_limits``), shaded on the location chart in measured units."""
+    tm = getattr(result, "time_model", None)
+    lim = getattr(tm, "location_limits", None) if tm is not None else None
+    if not lim or getattr(result, "chart_scale_text", None):
+        return
+    where = {lab: i for i, lab in enumerate(all_labels)}
+    rows = [(where[lab] + 1, j) for j, lab in enumerate(lim["labels"]) if lab in where]
+    if not rows:
+        return
+    xs = np.asarray([r[0] for r in rows], dtype=float)
+    centre = np.asarray([lim["centre"][r[1]] for r in rows])
+    half = np.asarray([lim["half"][r[1]] for r in rows])
+    ax.fill_between(
+        xs,
+        centre - half,
+        centre + half,
+        step="mid",
+        color=theme.OKABE_ITO["bluish_green"],
+        alpha=0.15,
+        linewidth=0,
+        zorder=0,
+        label=f"Limits of the time-dependent model {tm.cls}",
+    )
 
 
 def _spec_lines(ax, spec, vertical=True):

@@ -331,6 +331,8 @@ class TimeModel:
     judged : dict or None
         What the verdict was judged on when the class decides it (B, C1-C4, D; None for A1,
         A2 and unclassified data): filled by :func:`studykit.time_model.time_model_verdict`.
+    location_limits : dict or None
+        The class model's limits of each subgroup mean (C1, C3, C4), for the charts.
     """
 
     cls: str | None
@@ -342,6 +344,9 @@ class TimeModel:
     shape: dict | None = None
     indices: dict = field(default_factory=dict)
     judged: dict | None = None
+    #: the class model's limits of a subgroup mean (C1, C3, C4; :func:`class_limits`):
+    #: ``{"labels", "centre", "half"}`` for drawing, filled by the analysis; not in the JSON
+    location_limits: dict | None = None
 
     def to_dict(self) -> dict:
         loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
