@@ -176,3 +176,17 @@ def test_the_checker_sees_a_violation(tmp_path):
     found = _imports("studykit.stats.m", path)
     assert ("studykit.cli.gauge", "run", 4) in found
     assert ("studykit.stats.fit", "_x", 5) in found
+
+
+def test_scipy_stats_is_imported_on_first_use_only():
+    # Project convention (DEVELOPERS.md, "scipy.stats is imported on first use only"): importing
+    # the analysis layer must not import scipy.stats; a fresh interpreter shows it.
+    import subprocess
+    import sys
+
+    code = "import sys, studykit.analysis, studykit.cli; print('scipy.stats' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
+    from studykit.stats.lazy import scipy_stats
+
+    assert scipy_stats.norm.ppf(0.5) == 0.0  # the stand-in reaches the real module

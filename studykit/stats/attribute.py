@@ -10,10 +10,10 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from studykit import names
 from studykit.errors import AnalysisError, StudyInputError
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 
 __all__ = [

@@ -16,11 +16,11 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
 from studykit import names
 from studykit.errors import AnalysisError, SpecError
 from studykit.stats import constants
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 

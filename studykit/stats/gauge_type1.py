@@ -23,9 +23,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
 from studykit.errors import AnalysisError, SpecError
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 

@@ -10,10 +10,11 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.errors import StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 
 __all__ = [

@@ -27,10 +27,11 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import integrate, special, stats
+from scipy import integrate, special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 

@@ -30,10 +30,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from studykit.errors import StudyInputError
 from studykit.stats.constants import d2
+from studykit.stats.lazy import scipy_stats as stats
 
 __all__ = [
     "ALPHA",

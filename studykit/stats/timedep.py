@@ -63,9 +63,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
 from studykit.errors import StudyInputError
+from studykit.stats.lazy import scipy_stats as stats
 
 __all__ = [
     "ALPHA",

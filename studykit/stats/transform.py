@@ -11,10 +11,11 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import optimize, special
 
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 

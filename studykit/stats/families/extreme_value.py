@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.stats.families.base import (
     AD_EV,
@@ -14,6 +14,7 @@ from studykit.stats.families.base import (
     ad_from_logs,
     ad_p_table,
 )
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     ls_fit,
     mean_sd,

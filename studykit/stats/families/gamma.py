@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.errors import AnalysisError
 from studykit.stats.families.base import (
@@ -17,6 +17,7 @@ from studykit.stats.families.base import (
     shape_scale_row,
     threshold_of,
 )
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     add_reduce,
     all_reduce,

@@ -5,12 +5,13 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.stats.families.base import (
     TINY,
     Family,
 )
+from studykit.stats.lazy import scipy_stats as stats
 
 
 class Halfnormal(Family):

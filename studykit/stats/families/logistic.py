@@ -5,13 +5,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.stats.families.base import (
     AD_LOGISTIC,
     Family,
     ad_p_table,
 )
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     ls_fit,
     mean_sd,

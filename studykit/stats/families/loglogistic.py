@@ -5,7 +5,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from studykit.stats.families.base import (
     AD_LOGISTIC,
@@ -17,6 +16,7 @@ from studykit.stats.families.base import (
     threshold_of,
 )
 from studykit.stats.families.logistic import logistic_logpdf, logistic_start, logistic_terms
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     add_reduce,
     all_reduce,

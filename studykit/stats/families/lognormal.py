@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from studykit.stats.families.base import (
     LOG_2PI,
@@ -15,6 +15,7 @@ from studykit.stats.families.base import (
     ad_p_normal,
     threshold_of,
 )
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     mean_sd,
     rowsum,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from scipy import special, stats
+from scipy import special
 
 from studykit.stats.families.base import (
     LOG_2PI,
@@ -12,6 +12,7 @@ from studykit.stats.families.base import (
     ad_from_logs,
     ad_p_normal,
 )
+from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     mean_sd,
 )
