@@ -159,3 +159,37 @@ def test_errors_name_the_problem():
         probability_plot(NIST10, band="lilliefors")
     with pytest.raises(StudyInputError, match="`level`"):
         probability_plot(NIST10, level=95)
+
+
+def test_shapiro_equals_scipy_exactly_without_its_wrapper():
+    # shapiro_wilk calls scipy's function past its NaN/array-API wrapper: the numbers must be
+    # those of the public scipy.stats.shapiro, bit for bit (reference library).
+    import warnings
+
+    rng = np.random.default_rng(5)
+    for n in (3, 10, 125, 5001):
+        x = rng.gamma(2.0, size=n)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)  # scipy: p-value rough above 5000
+            r, ref = shapiro_wilk(x), stats.shapiro(x)
+        assert (r.w, r.p_value) == (float(ref.statistic), float(ref.pvalue)), n
+
+
+def test_beta_band_kept_between_calls_is_the_beta_quantile():
+    # The pointwise band is cached per (n, level): each call, first or repeated, gives
+    # mean + s * Phi^-1(q), q the Beta(i, n - i + 1) quantiles (David & Nagaraja 2003,
+    # section 2.2; reference values from scipy.stats.beta.ppf), and a caller cannot alter it.
+    rng = np.random.default_rng(6)
+    for n, level in ((125, 0.95), (125, 0.9), (37, 0.95)):
+        i = np.arange(1, n + 1)
+        qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+        qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+        for _ in range(2):
+            x = rng.normal(10.0, 2.0, n)
+            p = probability_plot(x, level=level)
+            xs = np.sort(x)  # (the plot sums the ordered values)
+            m, s = float(xs.mean()), float(xs.std(ddof=1))
+            assert p.band_lower == (m + s * stats.norm.ppf(qlo)).tolist()
+            assert p.band_upper == (m + s * stats.norm.ppf(qhi)).tolist()
+            p.band_lower[0] = -1.0  # the result's lists are the caller's own
+        assert probability_plot(x, level=level).band_lower[0] != -1.0

@@ -43,6 +43,7 @@ numbers); a model object outside :mod:`studykit.stats.fit` is sampled through it
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -115,8 +116,10 @@ def _chi_mean(nu: float) -> float:
     )
 
 
+@functools.lru_cache(maxsize=256)
 def _df_from_cv2(cv2: float) -> float:
-    """Degrees of freedom nu whose scaled chi variable has squared coefficient of variation cv2."""
+    """Degrees of freedom nu whose scaled chi variable has squared coefficient of variation cv2
+    (a root search, kept for the last values asked: the studies of a batch share their sizes)."""
 
     def gap(log_nu):
         m = _chi_mean(math.exp(log_nu))

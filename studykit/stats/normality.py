@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy import special
@@ -209,8 +210,11 @@ def shapiro_wilk(x) -> ShapiroWilkResult:
     0.933652
     """
     arr = _clean(x)
-    res = stats.shapiro(arr)
-    return ShapiroWilkResult(w=float(res.statistic), p_value=float(res.pvalue), n=arr.size)
+    # scipy's function itself: its array-API/NaN wrapper (signature inspection on every call)
+    # has nothing to do on a clean 1-D float array; same statistic and p-value
+    shapiro = getattr(stats.shapiro, "__wrapped__", stats.shapiro)
+    res = shapiro(arr)
+    return ShapiroWilkResult(w=float(res[0]), p_value=float(res[1]), n=arr.size)
 
 
 def plotting_positions(n: int, *, positions: str = "blom") -> np.ndarray:
@@ -384,10 +388,37 @@ def probability_plot(
 def _band_probabilities(band: str, p: np.ndarray, n: int, level: float) -> tuple:
     """The band's lower and upper probabilities at each plotting position."""
     if band == "beta_pointwise":
-        i = np.arange(1, n + 1)
-        qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
-        qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
-        return qlo, qhi
+        # a function of (n, level) alone: kept for the sizes seen last when n is small (a
+        # batch of studies of one size computes the 2n beta quantiles once; same numbers)
+        if n <= _BAND_CACHE_N:
+            return _beta_band_cached(n, float(level))
+        return _beta_band(n, level)
+    return _ks_band(p, n, level)
+
+
+#: Largest n whose beta band is kept between calls (64 sizes of at most 2 x 80 kB).
+_BAND_CACHE_N = 5000
+
+
+def _beta_band(n: int, level: float) -> tuple:
+    """Central ``level`` interval of each uniform order statistic Beta(i, n - i + 1)."""
+    i = np.arange(1, n + 1)
+    qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+    qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+    return qlo, qhi
+
+
+@lru_cache(maxsize=64)
+def _beta_band_cached(n: int, level: float) -> tuple:
+    """:func:`_beta_band` as read-only arrays, computed once per (n, level)."""
+    qlo, qhi = _beta_band(n, level)
+    qlo.flags.writeable = False
+    qhi.flags.writeable = False
+    return qlo, qhi
+
+
+def _ks_band(p: np.ndarray, n: int, level: float) -> tuple:
+    """p_i -/+ d, d the Kolmogorov-Smirnov critical value, clipped to (0, 1)."""
     d = float(stats.kstwo.ppf(level, n))
     tiny = 1e-12
     return np.clip(p - d, tiny, 1 - tiny), np.clip(p + d, tiny, 1 - tiny)
