@@ -134,13 +134,16 @@ class Weibull(Family):
         tol = 1e-2 if rough else 1e-6
         lo = np.zeros_like(k)
         hi = np.full_like(k, np.inf)
+        # two work arrays for the whole iteration (the same element-wise operations as
+        # w = exp(k zs), wz = w z, wz z: same bits, without three new row blocks per step)
+        w, wz = np.empty_like(zs), np.empty_like(zs)
         for _ in range(100):
-            w = np.exp(k[:, None] * zs)
+            np.exp(np.multiply(k[:, None], zs, out=w), out=w)
             sw = rowsum(w)
-            wz = w * z
+            np.multiply(w, z, out=wz)
             mz = rowsum(wz) / sw
             g = mz - 1.0 / k
-            vz = rowsum(wz * z) / sw - mz * mz
+            vz = rowsum(np.multiply(wz, z, out=w)) / sw - mz * mz
             below = g < 0
             lo = np.where(below, k, lo)
             hi = np.where(below, hi, k)
