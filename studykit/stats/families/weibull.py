@@ -169,9 +169,10 @@ class Weibull(Family):
     @staticmethod
     def dtheta_rows(ys, p):
         k, lam = p["shape"][:, None], p["scale"][:, None]
-        r = 1.0 / ys
-        t = (ys / lam) ** k
-        return p["shape"] * rowsum(t * r) - (p["shape"] - 1.0) * rowsum(r)
+        r = np.divide(1.0, ys)
+        # t = (ys / lam) ** k, then t * r, in one work array (same element-wise operations)
+        t = np.power(np.divide(ys, lam), k)
+        return p["shape"] * rowsum(np.multiply(t, r, out=t)) - (p["shape"] - 1.0) * rowsum(r)
 
     @staticmethod
     def fit_one(y, start=None):
