@@ -385,7 +385,7 @@ def threshold_rows(family, block, shared=None):
 def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
     """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
     xmin - exp(u)."""
-    ys = block[rows]  # a copy (fancy indexing): shifted in place
+    ys = block.take(rows, axis=0)  # always a new array: shifted in place
     np.subtract(ys, (xmin[rows] - np.exp(u))[:, None], out=ys)
     with np.errstate(all="ignore"):
         ll, params, state = inner(ys, start)
