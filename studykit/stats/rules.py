@@ -443,6 +443,65 @@ class Signal(Result):
             "text": self.text,
         }
 
+    def __getstate__(self):
+        state = dict(self.__dict__)
+        state["_text"] = self.text  # a pending text is built before pickling
+        return state
+
+
+class _PendingText:
+    """What a signal's text is made of; :class:`_LazyText` joins it when the text is first read.
+
+    A chart of 10^6 points can give 3 * 10^4 signals; phase I reads only their positions, the
+    views and the JSON read the texts of those they show.
+    """
+
+    __slots__ = ("template", "pts", "start", "end", "labels")
+
+    def __init__(self, template: str, pts: tuple, start: int, end: int, labels) -> None:
+        self.template, self.pts, self.start, self.end, self.labels = (
+            template,
+            pts,
+            start,
+            end,
+            labels,
+        )
+
+    def build(self) -> str:
+        pts, start, end, labels = self.pts, self.start, self.end, self.labels
+        count = len(pts)
+        if labels is not None:
+            where = _where(list(pts), labels)
+        elif count == 1:
+            where = f"point {start + 1}"
+        elif end - start == count - 1 and count > 2:  # every position from start to end
+            where = f"points {start + 1}-{end + 1}"
+        else:
+            where = _where(list(pts), labels)
+        if count == 1:
+            where = where[0].upper() + where[1:]
+        return self.template.format(n=count, where=where)
+
+
+class _LazyText:
+    """``Signal.text``: a plain string, or a :class:`_PendingText` built on first read (the
+    dataclass's ``__init__``, ``__eq__``, ``__repr__`` and ``to_dict`` all go through here)."""
+
+    def __get__(self, obj, owner=None):
+        if obj is None:
+            return self
+        v = obj.__dict__["_text"]
+        if isinstance(v, _PendingText):
+            v = v.build()
+            obj.__dict__["_text"] = v
+        return v
+
+    def __set__(self, obj, value) -> None:
+        obj.__dict__["_text"] = value
+
+
+Signal.text = _LazyText()  # type: ignore[assignment]
+
 
 # ---------------------------------------------------------------------------------------------
 # parsing
@@ -951,24 +1010,13 @@ def _limits(lcl, ucl, n_all: int, keep, x):
 
 
 def _group_signals(rule, group, template: str, labels) -> list:
-    """One Signal per occurrence in a detected group, with its text."""
+    """One Signal per occurrence in a detected group; its text is built when first read."""
     out = []
     members = group.members
     for g, (start, end, trig) in enumerate(
         zip(group.starts, group.ends, group.triggers, strict=True)
     ):
-        pts = range(start, end + 1) if members is None else members[g]
-        count = len(pts)
-        if labels is not None:
-            where = _where(list(pts), labels)
-        elif count == 1:
-            where = f"point {start + 1}"
-        elif end - start == count - 1 and count > 2:  # every position from start to end
-            where = f"points {start + 1}-{end + 1}"
-        else:
-            where = _where(list(pts), labels)
-        if count == 1:
-            where = where[0].upper() + where[1:]
-        text = template.format(n=count, where=where)
-        out.append(Signal(rule.id, rule.number, tuple(pts), trig[0], text, tuple(trig)))
+        pts = tuple(range(start, end + 1) if members is None else members[g])
+        text = _PendingText(template, pts, start, end, labels)
+        out.append(Signal(rule.id, rule.number, pts, trig[0], text, tuple(trig)))  # type: ignore[arg-type]
     return out
