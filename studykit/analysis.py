@@ -1398,7 +1398,7 @@ def analyze_characteristic(
         kept_rows,
         withheld,
         band,
-        (values[~manual], labels[~manual]),
+        (values, labels) if not manual.any() else (values[~manual], labels[~manual]),
     )
     judged_index = verdict.index
     measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)

@@ -602,6 +602,9 @@ class SubgroupCodes:
         """The codes of the values where ``mask`` is True, renumbered 0, 1, ... (kept order)."""
         if bool(np.all(mask)):
             return self
+        if self.names.shape[0] == self.codes.shape[0]:  # one value per subgroup: codes 0..n-1
+            names = self.names[mask]
+            return SubgroupCodes(np.arange(names.shape[0]), names)
         codes = self.codes[mask]
         present = np.zeros(self.names.shape[0], dtype=bool)
         present[codes] = True

@@ -104,6 +104,7 @@ Montgomery, D. C. and Runger, G. C. Applied Statistics and Probability for Engin
 
 from __future__ import annotations
 
+import gc
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
@@ -449,50 +450,35 @@ class Signal(Result):
         return state
 
 
-class _PendingText:
-    """What a signal's text is made of; :class:`_LazyText` joins it when the text is first read.
-
-    A chart of 10^6 points can give 3 * 10^4 signals; phase I reads only their positions, the
-    views and the JSON read the texts of those they show.
-    """
-
-    __slots__ = ("template", "pts", "start", "end", "labels")
-
-    def __init__(self, template: str, pts: tuple, start: int, end: int, labels) -> None:
-        self.template, self.pts, self.start, self.end, self.labels = (
-            template,
-            pts,
-            start,
-            end,
-            labels,
-        )
-
-    def build(self) -> str:
-        pts, start, end, labels = self.pts, self.start, self.end, self.labels
-        count = len(pts)
-        if labels is not None:
-            where = _where(list(pts), labels)
-        elif count == 1:
-            where = f"point {start + 1}"
-        elif end - start == count - 1 and count > 2:  # every position from start to end
-            where = f"points {start + 1}-{end + 1}"
-        else:
-            where = _where(list(pts), labels)
-        if count == 1:
-            where = where[0].upper() + where[1:]
-        return self.template.format(n=count, where=where)
+def _pending_text(template: str, pts: tuple, start: int, end: int, labels) -> str:
+    """The text of a signal from what :func:`_group_signals` keeps of it (a tuple of these
+    arguments, joined by :class:`_LazyText` when the text is first read: a chart of 10^6 points
+    can give 3 * 10^4 signals, of which phase I reads only the positions and the views and the
+    JSON the texts of those they show)."""
+    count = len(pts)
+    if labels is not None:
+        where = _where(list(pts), labels)
+    elif count == 1:
+        where = f"point {start + 1}"
+    elif end - start == count - 1 and count > 2:  # every position from start to end
+        where = f"points {start + 1}-{end + 1}"
+    else:
+        where = _where(list(pts), labels)
+    if count == 1:
+        where = where[0].upper() + where[1:]
+    return template.format(n=count, where=where)
 
 
 class _LazyText:
-    """``Signal.text``: a plain string, or a :class:`_PendingText` built on first read (the
+    """``Signal.text``: a plain string, or the parts of one joined on first read (the
     dataclass's ``__init__``, ``__eq__``, ``__repr__`` and ``to_dict`` all go through here)."""
 
     def __get__(self, obj, owner=None):
         if obj is None:
             return self
         v = obj.__dict__["_text"]
-        if isinstance(v, _PendingText):
-            v = v.build()
+        if type(v) is tuple:  # (template, pts, start, end, labels): see _pending_text
+            v = _pending_text(*v)
             obj.__dict__["_text"] = v
         return v
 
@@ -986,13 +972,21 @@ def evaluate(
     low, high = _limits(lcl, ucl, n_all, keep, x)
 
     found = []
-    for order, rule in enumerate(rule_list):
-        if not rule.enabled:
-            continue
-        for group in _detect(rule, x, c, s, low, high, positions):
-            given = (high if group.kind == "above" else low) is not None
-            for signal in _group_signals(rule, group, _template(rule, group.kind, given), labels):
-                found.append((signal.trigger, order, signal))
+    paused = gc.isenabled()
+    if paused:  # 10^5 new signals hold no reference cycles: no collection passes over them
+        gc.disable()
+    try:
+        for order, rule in enumerate(rule_list):
+            if not rule.enabled:
+                continue
+            for group in _detect(rule, x, c, s, low, high, positions):
+                given = (high if group.kind == "above" else low) is not None
+                template = _template(rule, group.kind, given)
+                for signal in _group_signals(rule, group, template, labels):
+                    found.append((signal.trigger, order, signal))
+    finally:
+        if paused:
+            gc.enable()
     found.sort(key=lambda item: (item[0], item[1]))
     return tuple(item[2] for item in found)
 
@@ -1014,7 +1008,7 @@ def _group_signals(rule, group, template: str, labels) -> list:
     out = []
     members = group.members
     rid, number = rule.id, rule.number
-    new = object.__new__
+    new, put = object.__new__, object.__setattr__
     for g, (start, end, trig) in enumerate(
         zip(group.starts, group.ends, group.triggers, strict=True)
     ):
@@ -1022,13 +1016,17 @@ def _group_signals(rule, group, template: str, labels) -> list:
         # what Signal(rid, number, pts, trig[0], text, tuple(trig)) stores, without its
         # per-field frozen-dataclass assignments (3 * 10^4 signals on a 10^6-point chart)
         sig = new(Signal)
-        sig.__dict__.update(
-            rule=rid,
-            number=number,
-            points=pts,
-            trigger=trig[0],
-            _text=_PendingText(template, pts, start, end, labels),
-            triggers=tuple(trig),
+        put(
+            sig,
+            "__dict__",
+            {
+                "rule": rid,
+                "number": number,
+                "points": pts,
+                "trigger": trig[0],
+                "_text": (template, pts, start, end, labels),
+                "triggers": tuple(trig),
+            },
         )
         out.append(sig)
     return out
