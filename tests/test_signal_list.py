@@ -90,3 +90,27 @@ def test_short_list_has_no_counts():
     d = res.to_dict()["chart"]
     assert "signals_total" not in d and "signals_by_rule" not in d
     assert len(d["signals"]) == sum(len(s.signals) for s in res.phase1.chart.series) > 0
+
+
+def test_collector_paused_restores_the_collector():
+    import gc
+
+    import pytest
+
+    from studykit.stats.rules import collector_paused
+
+    assert gc.isenabled()
+    with pytest.raises(ZeroDivisionError):
+        with collector_paused():
+            assert not gc.isenabled()
+            1 / 0  # noqa: B018
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with collector_paused():
+            pass
+        assert not gc.isenabled()  # a collector the caller had stopped stays stopped
+    finally:
+        gc.enable()
+    evaluate(_every_other_beyond(10), center=0.0, sigma=1.0, rules="1")
+    assert gc.isenabled()

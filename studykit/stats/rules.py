@@ -107,7 +107,9 @@ from __future__ import annotations
 import gc
 import math
 from collections.abc import Iterable, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
+from operator import itemgetter
 
 import numpy as np
 
@@ -972,10 +974,7 @@ def evaluate(
     low, high = _limits(lcl, ucl, n_all, keep, x)
 
     found = []
-    paused = gc.isenabled()
-    if paused:  # 10^5 new signals hold no reference cycles: no collection passes over them
-        gc.disable()
-    try:
+    with collector_paused():  # 10^5 new signals hold no reference cycles
         for order, rule in enumerate(rule_list):
             if not rule.enabled:
                 continue
@@ -984,11 +983,27 @@ def evaluate(
                 template = _template(rule, group.kind, given)
                 for signal in _group_signals(rule, group, template, labels):
                     found.append((signal.trigger, order, signal))
+        found.sort(key=itemgetter(0, 1))  # stable: a group's signals keep their order
+        return tuple(item[2] for item in found)
+
+
+@contextmanager
+def collector_paused():
+    """Python's cyclic garbage collector paused while the block runs (restored after it).
+
+    A chart of 10^6 points makes about 10^5 small objects (signals, their points) that hold no
+    reference cycles; without the pause the collector walks them again and again while they
+    are made (about a third of phase I's time on 4.4 * 10^6 points). Reference counting still
+    frees everything; cycles made inside are collected after the block.
+    """
+    was = gc.isenabled()
+    if was:
+        gc.disable()
+    try:
+        yield
     finally:
-        if paused:
+        if was:
             gc.enable()
-    found.sort(key=lambda item: (item[0], item[1]))
-    return tuple(item[2] for item in found)
 
 
 def _limits(lcl, ucl, n_all: int, keep, x):
