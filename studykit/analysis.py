@@ -49,6 +49,8 @@ from studykit.stats.charts import (
     ControlChart,
     SubgroupCodes,
     control_chart,
+    listed_signals,
+    signal_counts,
 )
 from studykit.stats.phase1 import MR_REMOVAL, ChartScale, Phase1Result, phase1
 from studykit.stats.result import json_float as _f
@@ -576,6 +578,7 @@ class CharacteristicResult:
             "location": _series_dict(chart.location),
             "dispersion": _series_dict(chart.dispersion),
             "signals": signals,
+            **signal_counts(chart),  # only when the list is cut (charts.LISTED_SIGNALS)
         }
         if scale is not None and scale.name != "raw":
             chart_d["scale"] = scale.name
@@ -669,21 +672,22 @@ def _series_dict(s):
 
 
 def _signal_dicts(chart) -> list:
-    """Every run-rule signal of ``chart`` with its subgroup and reading labels."""
+    """The listed run-rule signals of ``chart`` with their subgroup and reading labels."""
     labels = chart.labels
     signals = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
             continue
         # every label of every signal read in one step (10^4 signals on 10^6 readings)
-        points = [list(sig.points) for sig in s.signals]
+        shown = listed_signals(s)  # the first charts.LISTED_SIGNALS of a long chart
+        points = [list(sig.points) for sig in shown]
         if s.name == "moving_range":  # a moving range is the difference of two readings
             readings = [sorted({q for p in pos for q in (p - 1, p) if q >= 0}) for pos in points]
         else:
             readings = points
         sub_text = _labels_at(labels, points)
         read_text = sub_text if readings is points else _labels_at(labels, readings)
-        for sig, subs, reads in zip(s.signals, sub_text, read_text, strict=True):
+        for sig, subs, reads in zip(shown, sub_text, read_text, strict=True):
             signals.append(
                 {
                     "rule": sig.rule,
@@ -1394,7 +1398,7 @@ def analyze_characteristic(
         kept_rows,
         withheld,
         band,
-        (values[~manual], labels[~manual]),
+        (values, labels) if not manual.any() else (values[~manual], labels[~manual]),
     )
     judged_index = verdict.index
     measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)

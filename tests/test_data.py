@@ -747,3 +747,30 @@ def test_numeric_column_under_a_time_header_says_why_and_how_to_override(tmp_pat
     renamed = tmp_path / "r.csv"
     renamed.write_text("cycle time [s]\n1.5\n2.5\n3.5\n", encoding="utf-8")
     assert read_measurements(renamed).names == ("cycle time",)
+
+
+def _long_csv_with(note: bytes, at: int) -> bytes:
+    """A CSV of plain ASCII rows with ``note`` in a note cell whose bytes start at byte ``at``
+    (so the encoding check meets it in a later block of the file than the first)."""
+    head = b"Part,Length [mm],Note\n"
+    row = b"1,10.0,ok\n"
+    rows = head + row * ((at - len(head)) // len(row) - 1)
+    text = rows + b"2,10.0," + b"x" * (at - len(rows) - 7)
+    assert len(text) == at  # (the test's own set-up)
+    return text + note + b"\n" + row * 10
+
+
+@pytest.mark.parametrize("shift", [0, 1])
+def test_encoding_seen_after_plain_ascii_blocks(tmp_path, shift):
+    # UTF-8 of 'é' (two bytes) placed across the 1 MiB read block boundary (shift 1) or
+    # right after it; and the same letter as one cp1252 byte there: UTF-8 must be rejected
+    from studykit.io.source import READ_BLOCK
+
+    p = tmp_path / "u.csv"
+    p.write_bytes(_long_csv_with("é".encode(), READ_BLOCK - shift))
+    m = read_measurements(p)
+    assert m.encoding == "UTF-8"
+    p = tmp_path / "c.csv"
+    p.write_bytes(_long_csv_with("é".encode("cp1252"), READ_BLOCK - shift))
+    m = read_measurements(p)
+    assert "1252" in m.encoding

@@ -420,7 +420,7 @@ def format_result(res) -> str:
     else:
         lines.append("phase I: no subgroup removed")
     if ch["signals"]:
-        lines.append(f"signals on the final chart ({len(ch['signals'])}):")
+        lines.append(f"signals on the final chart ({ch.get('signals_total', len(ch['signals']))}):")
         for s in ch["signals"][:12]:
             lines.append(f"  - [{names.chart_part_label(ch['kind'], s['chart'])}] {s['text']}")
     if d["normality"]:

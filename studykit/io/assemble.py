@@ -405,9 +405,12 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
     """Build one CharacteristicData; `grouping` comes from :func:`_grouping`."""
     local, group_labels = grouping
     missing = np.isnan(vals)
-    valid = vals[~missing]
-    counts = np.bincount(local, weights=(~missing).astype(float), minlength=len(group_labels))
     n_missing = int(missing.sum())
+    valid = vals[~missing] if n_missing else vals
+    if len(group_labels) == local.size:  # every row its own subgroup: local is 0, 1, 2, ...
+        counts = (~missing).astype(np.int64)
+    else:
+        counts = np.bincount(local, weights=(~missing).astype(float), minlength=len(group_labels))
     if n_missing:
         warnings_.append(
             f"'{name}': {n_missing} empty cell(s) ({row_word(n_missing)} "
@@ -433,10 +436,20 @@ def _make_char(name, unit, vals, subgroups, grouping, times, notes_arr, rows, wa
         notes=notes_arr,
         rows=rows,
         n_missing=n_missing,
-        is_integer=bool(valid.size and np.all(np.floor(valid) == valid)),
+        is_integer=_all_whole(valid),
         subgroup_labels=group_labels,
         subgroup_counts=counts.astype(np.int64),
     )
+
+
+def _all_whole(valid: np.ndarray) -> bool:
+    """Every value is a whole number (and there is one): the first 1,000 decide most files."""
+    if not valid.size:
+        return False
+    head = valid[:1000]
+    if not np.all(np.floor(head) == head):
+        return False
+    return bool(np.all(np.floor(valid) == valid))
 
 
 def subgroup_messages(chars, subgroup_source, notes, warnings_):

@@ -94,13 +94,15 @@ def inspect(src: Source, encoding: str | None) -> None:
             if len(head) >= want and want < HEADER_MAX_BYTES and head.count(b"\n") < 3:
                 want = HEADER_MAX_BYTES  # a very wide header: read on to its end
                 head += block[used : used + want - len(head)]
+        if not has_nul and b"\x00" in block:
+            has_nul = True
+        if block.isascii() and not utf8.getstate()[0]:
+            continue  # plain ASCII between whole characters: valid UTF-8 and cp1252 alike
         if utf8_ok:
             try:
                 utf8.decode(block)
             except UnicodeDecodeError:
                 utf8_ok = False
-        if not has_nul and b"\x00" in block:
-            has_nul = True
         if cp1252_ok and any(b in block for b in _UNDEFINED_CP1252):
             cp1252_ok = False
     if utf8_ok:

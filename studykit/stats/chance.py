@@ -196,9 +196,14 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
     pts = np.asarray(series.points, dtype=float)
     ok = ~np.isnan(pts)
     m = int(ok.sum())
+    every = m == pts.size  # (no copies of 10^6 points when none is missing)
+
+    def used(a):
+        return a if every else a[ok]
+
     lcl, ucl = np.asarray(series.lcl, float), np.asarray(series.ucl, float)
-    above = int(np.count_nonzero(pts[ok] > ucl[ok]))
-    below = int(np.count_nonzero(pts[ok] < lcl[ok]))
+    above = int(np.count_nonzero(used(pts) > used(ucl)))
+    below = int(np.count_nonzero(used(pts) < used(lcl)))
     seen = above + below
     if series.name not in _ADJUSTED or m == 0:
         return SeriesChance(
@@ -216,11 +221,11 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         expected = float(p0_v[0]) * m
     else:
         lo_lim, hi_lim = lo_v[inv], hi_v[inv]
-        expected = float(p0_v[inv][ok].sum())
+        expected = float(used(p0_v[inv]).sum())
     p0_mean = float(np.mean(p0s)) if p0s else 0.0
     fap = -math.expm1(reference * math.log1p(-p0_mean)) if p0_mean < 1 else 1.0
     p_value = float(special.pdtrc(seen - 1, expected)) if seen > 0 else 1.0
-    beyond = int(np.count_nonzero((pts[ok] > hi_lim[ok]) | (pts[ok] < lo_lim[ok])))
+    beyond = int(np.count_nonzero((used(pts) > used(hi_lim)) | (used(pts) < used(lo_lim))))
     return SeriesChance(
         m,
         adjusted,
@@ -240,15 +245,18 @@ def _distinct_points(series, sizes, n_points: int) -> tuple:
     into them: one computation per distinct point kind (constant in most charts)."""
     center = np.asarray(series.center, float)
     sigma = np.asarray(series.sigma, float)
+    one_size = sizes is None or series.name in ("individual", "moving_range")
     n_arr = (
-        np.full(n_points, 2 if series.name == "moving_range" else 1, dtype=np.int64)
-        if sizes is None or series.name in ("individual", "moving_range")
+        np.full(1, 2 if series.name == "moving_range" else 1, dtype=np.int64)
+        if one_size
         else np.asarray(sizes, dtype=np.int64)
     )
     if np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0]):
         return [(float(n_arr[0]), float(center[0]), float(sigma[0]))], np.zeros(
             n_points, dtype=np.int64
         )
+    if one_size:
+        n_arr = np.broadcast_to(n_arr, center.shape)
     key = np.stack([n_arr.astype(float), center, sigma], axis=1)
     uniq, inv = np.unique(key, axis=0, return_inverse=True)
     return uniq, inv.ravel()

@@ -65,7 +65,16 @@ __all__ = [
     "evaluate_series",
     "Labels",
     "SubgroupCodes",
+    "LISTED_SIGNALS",
+    "listed_signals",
+    "signal_counts",
 ]
+
+#: The analysis JSON lists at most this many run-rule signals per chart part (location,
+#: dispersion), the first ones in time order; a longer chart gives the exact counts beside the
+#: list (:func:`signal_counts`). Our choice: a study of 10^6 individuals gives about 3 * 10^4
+#: signals, whose list would dwarf the rest of the JSON and take most of its time.
+LISTED_SIGNALS = 1000
 
 VARIABLE_KINDS = ("xbar_r", "xbar_s", "imr")
 ATTRIBUTE_KINDS = ("p", "np", "c", "u")
@@ -385,6 +394,31 @@ class ControlChart(Result):
         }
 
 
+def listed_signals(series: ChartSeries) -> tuple:
+    """The signals of ``series`` that the analysis JSON lists (the first :data:`LISTED_SIGNALS`)."""
+    return series.signals[:LISTED_SIGNALS]
+
+
+def signal_counts(chart: ControlChart) -> dict:
+    """Exact counts beside a cut signal list: ``{}`` when every signal is listed, otherwise
+    ``signals_total``, ``signals_listed`` and ``signals_by_rule`` (rule id -> count, in the
+    order the rules first signal).
+
+    >>> from studykit.stats.charts import imr_chart
+    >>> signal_counts(imr_chart([1.0, 2.0, 1.5, 1.8, 1.2, 1.7, 1.4, 1.6]))
+    {}
+    """
+    total = sum(len(s.signals) for s in chart.series)
+    listed = sum(len(listed_signals(s)) for s in chart.series)
+    if listed == total:
+        return {}
+    by_rule: dict[str, int] = {}
+    for s in chart.series:
+        for sig in s.signals:
+            by_rule[sig.rule] = by_rule.get(sig.rule, 0) + 1
+    return {"signals_total": total, "signals_listed": listed, "signals_by_rule": by_rule}
+
+
 def plain_label(v):
     """A subgroup label as a plain Python value (numpy scalars unwrapped) for JSON and text."""
     if isinstance(v, np.generic):
@@ -568,6 +602,9 @@ class SubgroupCodes:
         """The codes of the values where ``mask`` is True, renumbered 0, 1, ... (kept order)."""
         if bool(np.all(mask)):
             return self
+        if self.names.shape[0] == self.codes.shape[0]:  # one value per subgroup: codes 0..n-1
+            names = self.names[mask]
+            return SubgroupCodes(np.arange(names.shape[0]), names)
         codes = self.codes[mask]
         present = np.zeros(self.names.shape[0], dtype=bool)
         present[codes] = True

@@ -56,6 +56,7 @@ from studykit.stats.charts import (
     plain_label,
 )
 from studykit.stats.result import Result
+from studykit.stats.rules import collector_paused
 
 __all__ = [
     "Removal",
@@ -335,6 +336,7 @@ def _chances(chart: ControlChart, attribute: bool) -> tuple:
 
 
 # long: signature and numpydoc docstring take 78 lines; the body is the round loop over named steps
+@collector_paused()  # the long charts' signals (studykit.stats.rules.collector_paused)
 def phase1(
     values,
     subgroups=None,

@@ -169,7 +169,8 @@ class VarianceComponents:
 
 def _codes(labels):
     """Integer codes of the labels in order of first appearance, and their number."""
-    lab = np.asarray(labels).astype(str).reshape(-1)
+    lab = np.asarray(labels)
+    lab = (lab if lab.dtype.kind == "U" else lab.astype(str)).reshape(-1)  # (no copy of 10^6)
     ordered = np.sort(lab)
     if not np.any(ordered[1:] == ordered[:-1]):  # all distinct (individuals): codes = positions
         return np.arange(lab.size), int(lab.size)

@@ -9,8 +9,9 @@ data, written to a temporary folder):
 
 (automatic phase I with its removal limits for long charts, the Nelson rules, the normal model
 kept when Anderson-Darling does not reject it, capability with bounds, verdict, the full JSON),
-each run in a fresh process, next to the floor measured in the same run: reading the file with
-``read_measurements`` plus the mean and standard deviation of the values. Prints wall time, CPU
+each run in a fresh process, next to the floor measured in the same run: the generic route,
+``pandas.read_csv`` of the file plus numpy's mean, standard deviation and mean moving range
+(no studykit code; see ``bench_memory.FLOOR``). Prints wall time, CPU
 time (user + system) and peak RSS of both and the ratios. Targets (issue 14): <= 2 s and
 <= 1 GB, i.e. within 5x the floor's time and 10x its memory. The runs alternate floor and
 study ``--repeat`` times; the fastest time and the largest RSS are printed.
