@@ -6,11 +6,14 @@ process environment.
 
 from __future__ import annotations
 
+import asyncio
 import json
 import os
 import subprocess
 import sys
 from pathlib import Path
+
+from studykit.app.server import refill_after_render
 
 NOTEBOOK = Path(__file__).resolve().parents[1] / "notebooks" / "workbook.ipynb"
 
@@ -57,3 +60,53 @@ def test_a_thread_count_set_by_the_user_is_kept():
     got = _probe({"OPENBLAS_NUM_THREADS": "2"})
     assert got["threads"]["OPENBLAS_NUM_THREADS"] == "2"
     assert got["threads"]["OMP_NUM_THREADS"] == "1"
+
+
+class _PoolingManager:
+    """Stands in for Voila's pooling kernel manager: what ``refill_after_render`` relies on
+    (``get_rendered_notebook`` calls ``self.fill_if_needed(delay=None)`` right after taking a
+    kernel from the pool, before the kernel ran the notebook)."""
+
+    fill_delay = 0.0
+
+    def __init__(self):
+        self.fills: list = []
+        self.render = None
+
+    def fill_if_needed(self, delay=None, **kwargs):
+        self.fills.append(delay)
+
+    async def get_rendered_notebook(self, notebook_name, **kwargs):
+        self.render = asyncio.get_running_loop().create_future()  # the notebook still runs
+        self.fill_if_needed(delay=None, notebook_name=notebook_name)
+        return self.render, [], "kernel-1"
+
+
+def test_pool_refill_waits_until_the_handed_out_kernel_has_run_the_notebook():
+    async def scenario():
+        km = _PoolingManager()
+        refill_after_render(km, wait_s=30)
+        km.fill_if_needed(delay=0, notebook_name="nb")  # the first fill: at once, as before
+        assert km.fills == [0]
+        render, _cache, kernel_id = await km.get_rendered_notebook("nb")
+        assert kernel_id == "kernel-1" and render is km.render
+        await asyncio.sleep(0.05)
+        assert km.fills == [0]  # no refill while that kernel runs the notebook
+        render.set_result(([], None))
+        await asyncio.sleep(0.05)
+        assert km.fills == [0, km.fill_delay]  # then Voila's usual refill
+
+    asyncio.run(scenario())
+
+
+def test_pool_refill_waits_at_most_wait_s():
+    async def scenario():
+        km = _PoolingManager()
+        refill_after_render(km, wait_s=0.1)
+        await km.get_rendered_notebook("nb")  # its notebook never finishes
+        await asyncio.sleep(0.02)
+        assert km.fills == []
+        await asyncio.sleep(0.3)
+        assert km.fills == [km.fill_delay]
+
+    asyncio.run(scenario())
