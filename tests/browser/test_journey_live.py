@@ -423,12 +423,12 @@ def test_pre_started_kernel_checks_the_file_when_the_page_connects(browser, tmp_
     cb, b = new_page(browser)
     try:
         with server as url:
-            time.sleep(20)  # the pre-started kernel has run the workbook by now
+            time.sleep(30)  # the pre-started kernel has run the workbook by now (5-15 s)
             StudyFile(path).add_signoff("F. Later", role="reviewed", decision="approve")
             open_study(a, url, "signoff")
             a.wait_for_selector(".sk-signoffs :text('F. Later')", timeout=30_000)
             assert "Signed in part" in a.locator(".sk-header").inner_text()
-            time.sleep(20)  # the refilled kernel has run the workbook too
+            time.sleep(30)  # the refilled kernel has run the workbook too
             StudyFile(path).add_signoff("G. Last", role="reviewed", decision="approve")
             open_study(b, url, "signoff")
             b.wait_for_selector(".sk-signoffs :text('G. Last')", timeout=30_000)
