@@ -85,7 +85,7 @@ class _PoolingManager:
 def test_pool_refill_waits_until_the_handed_out_kernel_has_run_the_notebook():
     async def scenario():
         km = _PoolingManager()
-        refill_after_render(km, wait_s=30)
+        refill_after_render(km, wait_s=30, pause_s=0.1)
         km.fill_if_needed(delay=0, notebook_name="nb")  # the first fill: at once, as before
         assert km.fills == [0]
         render, _cache, kernel_id = await km.get_rendered_notebook("nb")
@@ -93,7 +93,9 @@ def test_pool_refill_waits_until_the_handed_out_kernel_has_run_the_notebook():
         await asyncio.sleep(0.05)
         assert km.fills == [0]  # no refill while that kernel runs the notebook
         render.set_result(([], None))
-        await asyncio.sleep(0.05)
+        await asyncio.sleep(0.03)
+        assert km.fills == [0]  # the page loads meanwhile (pause_s)
+        await asyncio.sleep(0.2)
         assert km.fills == [0, km.fill_delay]  # then Voila's usual refill
 
     asyncio.run(scenario())
@@ -102,7 +104,7 @@ def test_pool_refill_waits_until_the_handed_out_kernel_has_run_the_notebook():
 def test_pool_refill_waits_at_most_wait_s():
     async def scenario():
         km = _PoolingManager()
-        refill_after_render(km, wait_s=0.1)
+        refill_after_render(km, wait_s=0.1, pause_s=0)
         await km.get_rendered_notebook("nb")  # its notebook never finishes
         await asyncio.sleep(0.02)
         assert km.fills == []

@@ -27,9 +27,10 @@ additions:
   is 10 MiB); the page refuses larger files before sending them, with a message.
 * SIGINT and SIGTERM stop the server whatever the parent did with them (ignored or blocked),
   and with ``STUDYKIT_PARENT_PID`` set the server stops when that process goes away.
-* The kernel pool is refilled once the kernel just handed to a page has run the workbook
-  (Voila refills 1 s after handing it out, while that kernel still imports and builds: the
-  two then share the cores and the first page waits longer). A page that arrives while the
+* The kernel pool is refilled once the kernel just handed to a page has run the workbook and
+  its page had :data:`REFILL_PAUSE_S` to load (Voila refills 1 s after handing it out, while
+  that kernel still imports and builds: the two then share the cores and the page waits
+  longer). A page that arrives while the
   pool is empty gets a kernel started for it, as without the pool.
 * Kernels use one BLAS thread (``OPENBLAS_NUM_THREADS=1`` and the like, unless set already):
   a kernel serves one page on a machine shared by every page, and on 2 busy cores the
@@ -95,6 +96,7 @@ WEBSOCKET_MAX_MESSAGE = MAX_UPLOAD_BYTES * 2 + 1024 * 1024  # one message carrie
 DEFAULT_KERNEL_IDLE_MINUTES = 10.0
 IOPUB_TIMEOUT = 120  # s a cell's output may take after its reply (nbclient's default is 4 s)
 REFILL_WAIT_S = 120.0  # the pool is refilled at the latest this long after a kernel was taken
+REFILL_PAUSE_S = 4.0  # and this long after that kernel ran the workbook (its page loads meanwhile)
 #: kernels use one BLAS/OpenMP thread unless these are set already (module docstring)
 KERNEL_THREAD_VARS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 _SLOTS = "studykit_page_start_slots"
@@ -284,14 +286,17 @@ class StudykitVoila(Voila):
         self._parent_watch.start()
 
 
-def refill_after_render(kernel_manager, wait_s: float = REFILL_WAIT_S) -> None:
+def refill_after_render(
+    kernel_manager, wait_s: float = REFILL_WAIT_S, pause_s: float = REFILL_PAUSE_S
+) -> None:
     """Make Voila's kernel pool refill only once the kernel it handed out has run the notebook.
 
     Voila's pooling kernel manager calls ``fill_if_needed(delay=None)`` (refill after
     ``fill_delay``, 1 s) from ``get_rendered_notebook``, right after the handed-out kernel
     started. Here that refill waits for the handed-out kernel's rendering task (at most
-    ``wait_s``), then waits ``fill_delay`` as before. Explicit delays (the pool's first fill)
-    are unchanged.
+    ``wait_s``), then ``pause_s`` while the page loads its scripts and builds its widgets (a
+    kernel starting meanwhile takes the cores from it), then ``fill_delay`` as before. Explicit
+    delays (the pool's first fill) are unchanged.
     """
     fill = kernel_manager.fill_if_needed
     get = kernel_manager.get_rendered_notebook
@@ -306,6 +311,7 @@ def refill_after_render(kernel_manager, wait_s: float = REFILL_WAIT_S) -> None:
             busy = [t for t in rendering if not t.done()]
             if busy:
                 await asyncio.wait(busy, timeout=wait_s)
+            await asyncio.sleep(pause_s)
             fill(delay=kernel_manager.fill_delay, **kwargs)
 
         task = asyncio.ensure_future(later())
