@@ -183,11 +183,14 @@ class Workbook(widgets.VBox):
         Key of the open step.
     """
 
-    def __init__(self, steps: Sequence[Step], context: WorkbookContext):
+    def __init__(
+        self, steps: Sequence[Step], context: WorkbookContext, *, start: str | None = None
+    ):
         self.context = context
         self.steps = list(steps)
         self._built: dict[str, widgets.Widget] = {}
-        self.current = self.steps[0].key
+        self._building = False  # a step is being built: select() draws the overview after it
+        self.current = start if start is not None else self.steps[0].key
         self._header = html_box("", "sk-header")
         self._caution = widgets.VBox([])
         self._buttons = {}
@@ -238,8 +241,11 @@ class Workbook(widgets.VBox):
         context.extra["studykit.reopen_steps"] = self.reopen_steps
         context.subscribe(self._on_context_change)
         self._render_header()
-        self._render_overview()
+        # only the opening step is built (the others when first opened); select() draws the
+        # overview card, unless the step shows the overview itself
         self.select(self.current)
+        if self.current not in self._built:  # the opening step failed to build
+            self._render_overview()
 
     # --- navigation ---------------------------------------------------------------------------
     def step(self, key: str) -> Step:
@@ -252,7 +258,11 @@ class Workbook(widgets.VBox):
         """Open a step (building it the first time)."""
         step = self.step(key)
         if key not in self._built:
-            built = guarded(step.build, messages=self.context.messages)(self.context)
+            self._building = True
+            try:
+                built = guarded(step.build, messages=self.context.messages)(self.context)
+            finally:
+                self._building = False
             if built is None:
                 return
             self._built[key] = built
@@ -364,14 +374,16 @@ class Workbook(widgets.VBox):
         live = getattr(ws, "live", None)
         if live is not None and self._live.children != (live.widget,):
             self._live.children = [live.widget]
-        if self._overview_panel is None or self._overview_panel.ws is not ws:
-            self._overview_panel = OverviewPanel(ws)  # drawn when first shown (below)
+        if self._building:
+            return True  # select() draws the overview once the step is built
         current = self.step(self.current) if self.current in self._built else None
         if isinstance(getattr(current, "overview", None), OverviewPanel):
             # the open step shows the overview itself: no second copy below it
             self._overview_card.children = []
             self._overview_card.layout.display = "none"
             return True
+        if self._overview_panel is None or self._overview_panel.ws is not ws:
+            self._overview_panel = OverviewPanel(ws)  # made when first shown
         self._overview_panel.render(force=False)
         if self._overview_card.children != (self._overview_panel,):
             self._overview_card.children = [self._overview_panel]
@@ -485,12 +497,14 @@ def build_workbook(
     """
     messages = MessageArea()
     context = WorkbookContext(messages=messages, reader=reader, max_upload_bytes=max_upload_bytes)
-    wb = Workbook(steps if steps is not None else default_steps(), context)
+    steps = list(steps if steps is not None else default_steps())
+    start = None
     if study_path is not None and str(study_path) != "":
+        # the study first, so only the step the page opens on is built (and drawn once)
         guarded(load_study_into, messages=messages)(context, study_path)
-        if context.study is not None and any(s.key == "limits" for s in wb.steps):
-            wb.select("limits")  # a study with data: open on its overview, not on the upload
-    return wb
+        if context.study is not None and any(s.key == "limits" for s in steps):
+            start = "limits"  # a study with data: open on its overview, not on the upload
+    return Workbook(steps, context, start=start)
 
 
 def workbook_from_environment() -> Workbook:
@@ -502,4 +516,23 @@ def workbook_from_environment() -> Workbook:
 
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
     load_bokehjs()
-    return build_workbook(os.environ.get(ENV_STUDY) or None)
+    wb = build_workbook(os.environ.get(ENV_STUDY) or None)
+    release_free_memory()
+    return wb
+
+
+def release_free_memory() -> bool:
+    """Hand the heap's free pages back to the system (glibc ``malloc_trim``); False elsewhere.
+
+    Building the landing view frees much of what the analyses allocated; without this the
+    kernel keeps it resident (about 7 MB on the demo study)."""
+    import ctypes
+    import ctypes.util
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        trim = libc.malloc_trim
+    except (OSError, AttributeError):
+        return False
+    trim(0)
+    return True

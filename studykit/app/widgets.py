@@ -14,6 +14,7 @@ from collections.abc import Callable
 from datetime import datetime
 
 import ipywidgets as widgets
+from ipywidgets.widgets.widget_string import HTMLStyle
 
 from studykit import theme
 from studykit.analysis import SAFETY_SENTENCE
@@ -163,9 +164,21 @@ def upload_button(description: str, **kwargs) -> widgets.FileUpload:
     return w
 
 
+_HTML_STYLE: list = []
+
+
+def shared_html_style():
+    """One ``HTMLStyle`` for every :func:`html_box` (the workbook never changes their style):
+    each HTML widget otherwise brings its own style model, which the page fetches and builds
+    (189 of the landing view's 866 widget models)."""
+    if not _HTML_STYLE or _HTML_STYLE[0].comm is None:  # none yet, or closed
+        _HTML_STYLE[:] = [HTMLStyle()]
+    return _HTML_STYLE[0]
+
+
 def html_box(text: str = "", *classes: str) -> widgets.HTML:
-    """An HTML widget with our CSS classes."""
-    box = widgets.HTML(text)
+    """An HTML widget with our CSS classes (its style model is shared: never change it)."""
+    box = widgets.HTML(text, style=shared_html_style())
     for c in classes:
         box.add_class(c)
     return box

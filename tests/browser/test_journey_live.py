@@ -406,3 +406,35 @@ def test_page_opened_later_shows_a_signoff_made_after_the_server_started(browser
     finally:
         ca.close()
         log.close()
+
+
+def test_pre_started_kernel_checks_the_file_when_the_page_connects(browser, tmp_path_factory):
+    """With the file watch off (``STUDYKIT_LIVE_POLL_MS=0``) nothing but the check made when a
+    page connects can bring a pre-started kernel up to date: a sign-off recorded after the
+    kernel ran the workbook must still be on the page, and the pool's next kernel (started
+    once the first page's kernel has run the workbook) must show it too."""
+    path, log, server = _serve(
+        tmp_path_factory,
+        "preheat-nopoll",
+        {"STUDYKIT_LIVE_POLL_MS": "0"},
+        ("--VoilaConfiguration.preheat_kernel=True",),
+    )
+    ca, a = new_page(browser)
+    cb, b = new_page(browser)
+    try:
+        with server as url:
+            time.sleep(30)  # the pre-started kernel has run the workbook by now (5-15 s)
+            StudyFile(path).add_signoff("F. Later", role="reviewed", decision="approve")
+            open_study(a, url, "signoff")
+            a.wait_for_selector(".sk-signoffs :text('F. Later')", timeout=30_000)
+            assert "Signed in part" in a.locator(".sk-header").inner_text()
+            time.sleep(30)  # the refilled kernel has run the workbook too
+            StudyFile(path).add_signoff("G. Last", role="reviewed", decision="approve")
+            open_study(b, url, "signoff")
+            b.wait_for_selector(".sk-signoffs :text('G. Last')", timeout=30_000)
+            b.wait_for_selector(".sk-signoffs :text('F. Later')", timeout=30_000)
+            shot(b, "preheated-nopoll-page")
+    finally:
+        ca.close()
+        cb.close()
+        log.close()
