@@ -86,6 +86,7 @@ from studykit.app.server_guard import (
     strip_token,
     upload_guard_script,
 )
+from studykit.runtime import BLAS_THREAD_VARS, one_blas_thread
 
 ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"
 ENV_TOKEN = "STUDYKIT_SERVE_TOKEN"  # set by `studykit serve` for non-loopback addresses
@@ -98,7 +99,7 @@ IOPUB_TIMEOUT = 120  # s a cell's output may take after its reply (nbclient's de
 REFILL_WAIT_S = 120.0  # the pool is refilled at the latest this long after a kernel was taken
 REFILL_PAUSE_S = 4.0  # and this long after that kernel ran the workbook (its page loads meanwhile)
 #: kernels use one BLAS/OpenMP thread unless these are set already (module docstring)
-KERNEL_THREAD_VARS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+KERNEL_THREAD_VARS = BLAS_THREAD_VARS
 _SLOTS = "studykit_page_start_slots"
 _HEAD_SNIPPET = "studykit_head_snippet"
 
@@ -201,8 +202,7 @@ class StudykitVoila(Voila):
     )
 
     def initialize(self, argv=None):
-        for name in KERNEL_THREAD_VARS:  # inherited by every kernel (started after this)
-            os.environ.setdefault(name, "1")
+        one_blas_thread()  # inherited by every kernel (started after this)
         super().initialize(argv)
         # serve no files from the notebook folder (Voila's default allows images)
         self.voila_configuration.file_allowlist = []
