@@ -1604,6 +1604,11 @@ class StudyFile:
                 )
             return saved
 
+    def _record(self, change: Callable[[Study], Study]) -> int:
+        """Save one change made by a pure method of :class:`~studykit.study.Study`; returns the
+        id of the last decision it appended (after any ``void_signoff`` an override adds)."""
+        return self._change(change)[-1]
+
     def append_decision(
         self, decision: Decision, *, override_lock: bool = False, override_reason: str | None = None
     ) -> int:
@@ -1613,115 +1618,41 @@ class StudyFile:
         approved, unless ``override_lock=True`` with ``override_reason``: then the approval and
         every other sign-off still valid are voided by ``void_signoff`` entries written first.
         """
-        ids = self._change(
+        return self._record(
             lambda s: s.with_decision(
                 decision, override_lock=override_lock, override_reason=override_reason
             )
         )
-        return ids[-1]
 
-    def exclude(
-        self,
-        characteristic: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        payload: Mapping | None = None,
-        when: str = "",
-        **lock,
-    ) -> int:
-        """Record the exclusion of one subgroup; returns the decision id."""
-        return self.append_decision(
-            Decision(
-                characteristic,
-                "exclude",
-                subgroup=subgroup,
-                reason=reason,
-                who=who,
-                automatic=automatic,
-                payload=payload or {},
-                when=when,
-            ),
-            **lock,
-        )
+    def exclude(self, characteristic: str, subgroup, *, reason: str, **options) -> int:
+        """Record the exclusion of one subgroup; returns the decision id. The options (``who``,
+        ``automatic``, ``payload``, ``when``, ``override_lock``, ``override_reason``) are those
+        of :meth:`Study.exclude <studykit.study.Study.exclude>`."""
+        return self._record(lambda s: s.exclude(characteristic, subgroup, reason=reason, **options))
 
-    def restore(
-        self,
-        characteristic: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        when: str = "",
-        **lock,
-    ) -> int:
-        """Record that an excluded subgroup comes back; returns the decision id."""
-        return self.append_decision(
-            Decision(
-                characteristic,
-                "restore",
-                subgroup=subgroup,
-                reason=reason,
-                who=who,
-                automatic=automatic,
-                when=when,
-            ),
-            **lock,
-        )
+    def restore(self, characteristic: str, subgroup, *, reason: str, **options) -> int:
+        """Record that an excluded subgroup comes back; returns the decision id. The options
+        are those of :meth:`Study.restore <studykit.study.Study.restore>`."""
+        return self._record(lambda s: s.restore(characteristic, subgroup, reason=reason, **options))
 
-    def update_spec(
-        self,
-        characteristic: str,
-        *,
-        who: str,
-        reason: str,
-        when: str = "",
-        override_lock: bool = False,
-        override_reason: str | None = None,
-        **changes,
-    ) -> int:
+    def update_spec(self, characteristic: str, *, who: str, reason: str, **changes) -> int:
         """Change specification fields (``lsl=``, ``usl=``, ``target=`` ...), recorded as a
-        ``set_spec`` decision with old and new values; returns its id."""
-        ids = self._change(
-            lambda s: s.with_spec(
-                characteristic,
-                who=who,
-                reason=reason,
-                when=when,
-                override_lock=override_lock,
-                override_reason=override_reason,
-                **changes,
-            )
+        ``set_spec`` decision with old and new values; returns its id. ``when``,
+        ``override_lock`` and ``override_reason`` are those of
+        :meth:`Study.with_spec <studykit.study.Study.with_spec>`."""
+        return self._record(
+            lambda s: s.with_spec(characteristic, who=who, reason=reason, **changes)
         )
-        return ids[-1]
 
     def update_criteria(
-        self,
-        characteristic: str,
-        criteria: Criteria,
-        *,
-        who: str,
-        reason: str,
-        when: str = "",
-        override_lock: bool = False,
-        override_reason: str | None = None,
+        self, characteristic: str, criteria: Criteria, *, who: str, reason: str, **options
     ) -> int:
-        """Change the acceptance criterion, recorded as a ``set_criteria`` decision."""
-        ids = self._change(
-            lambda s: s.with_criteria(
-                characteristic,
-                criteria,
-                who=who,
-                reason=reason,
-                when=when,
-                override_lock=override_lock,
-                override_reason=override_reason,
-            )
+        """Change the acceptance criterion, recorded as a ``set_criteria`` decision; returns its
+        id. The options (``when``, ``override_lock``, ``override_reason``) are those of
+        :meth:`Study.with_criteria <studykit.study.Study.with_criteria>`."""
+        return self._record(
+            lambda s: s.with_criteria(characteristic, criteria, who=who, reason=reason, **options)
         )
-        return ids[-1]
 
     def add_comment(
         self, text: str, *, who: str, characteristic: str | None = None, when: str = ""
