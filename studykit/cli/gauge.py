@@ -13,12 +13,12 @@ in the study file beside the characteristic it qualifies (kinds ``gauge_rr`` and
 from __future__ import annotations
 
 import getpass
-import json
 import sys
 from pathlib import Path
 
 from studykit import names
-from studykit.cli.args import add_override_lock
+from studykit.cli._output import closing_lines, write_json
+from studykit.cli.args import add_override_lock, lock_options
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -323,9 +323,7 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     lines.append("")
     lines.append(f"Verdict: {res.status.upper()}")
     lines.append(f"  {res.message}")
-    if res.notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in res.notes]
+    lines += closing_lines(res.notes)
     return "\n".join(lines) + "\n"
 
 
@@ -461,9 +459,7 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
     lines.append(f"  {v.message}")
     if v.advice:
         lines.append(f"  What to do: {v.advice}")
-    if res.notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in res.notes]
+    lines += closing_lines(res.notes)
     return "\n".join(lines) + "\n"
 
 
@@ -478,13 +474,8 @@ def _store_and_print(args, result, kind, columns, limits_from, text) -> int:
         payload["source_file"] = Path(args.file).name
         payload["limits_from"] = from_
         payload["columns"] = columns
-        lock = (
-            {"override_lock": True, "override_reason": args.override_lock}
-            if args.override_lock
-            else {}
-        )
         stored_id = StudyFile(args.study).attach_result(
-            kind, args.characteristic, payload, who=args.who or login_name(), **lock
+            kind, args.characteristic, payload, who=args.who or login_name(), **lock_options(args)
         )
     if args.json:
         out = result.to_dict()
@@ -495,8 +486,7 @@ def _store_and_print(args, result, kind, columns, limits_from, text) -> int:
                 "result_id": stored_id,
                 "limits_from": from_,
             }
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
+        write_json(out, allow_nan=False)
         return 0
     sys.stdout.write(text)
     if limits_from:

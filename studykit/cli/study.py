@@ -29,7 +29,8 @@ import sys
 from pathlib import Path
 
 from studykit import names
-from studykit.cli.args import add_override_lock
+from studykit.cli._output import write_json
+from studykit.cli.args import add_override_lock, lock_options
 from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import Study, match_to_data, read_specs
@@ -422,7 +423,7 @@ def run_keep(args) -> int:
         )
     sf.apply(
         lambda s: s.keep_signal(
-            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+            name, label, rule=rule, reason=args.reason, who=who, **lock_options(args)
         )
     )
     print(
@@ -440,7 +441,7 @@ def run_reopen(args) -> int:
     name = args.characteristic
     sf.apply(
         lambda s: s.reopen_signal(
-            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+            name, label, rule=rule, reason=args.reason, who=who, **lock_options(args)
         )
     )
     print(f"reopened the {rule} signal at subgroup {label} of '{name}'")
@@ -593,19 +594,13 @@ def run_show(args) -> int:
             so["certificate_signature"] = (
                 None if sg is None or sg.status == "none" else sg.to_dict()
             )
-        json.dump(dict(d, chain=chain.to_dict()), sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json(dict(d, chain=chain.to_dict()))
     else:
         sys.stdout.write(format_study(study, chain, signatures))
     return 0
 
 
 # -- changes ------------------------------------------------------------------------------------
-
-
-def _lock_kw(args) -> dict:
-    reason = getattr(args, "override_lock", None)
-    return {"override_lock": True, "override_reason": reason} if reason else {}
 
 
 def _subgroup_labels(study: Study, name: str) -> list[str]:
@@ -646,9 +641,9 @@ def run_decision(args) -> int:
     label = args.subgroup.strip()
     _check_subgroup(sf.load(), args.characteristic, label, args.action)
     if args.action == "exclude":
-        sf.exclude(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
+        sf.exclude(args.characteristic, label, reason=args.reason, who=who, **lock_options(args))
     else:
-        sf.restore(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
+        sf.restore(args.characteristic, label, reason=args.reason, who=who, **lock_options(args))
     done = "removed" if args.action == "exclude" else "restored"
     print(f"{done} subgroup {label} of '{args.characteristic}'")
     return 0
@@ -704,7 +699,7 @@ def run_set(args) -> int:
     from studykit.study import Criteria, Decision
 
     who = _who(args)
-    lock = _lock_kw(args)
+    lock = lock_options(args)
     name = args.characteristic
     spec_changes = {}
     for key in ("lsl", "usl", "target"):
@@ -870,7 +865,7 @@ def run_rules(args) -> int:
                     who=_who(args),
                     payload={"rules": changes},
                 ),
-                **_lock_kw(args),
+                **lock_options(args),
             )
     for line in rules_text(sf.load()):
         print(line)
@@ -900,7 +895,7 @@ def run_waive(args) -> int:
             who=_who(args),
             payload={"waived": not args.withdraw, "reason": args.reason.strip()},
         ),
-        **_lock_kw(args),
+        **lock_options(args),
     )
     print(("withdrew the waiver of" if args.withdraw else "recorded a waiver for") + f" '{name}'")
     return 0
@@ -913,8 +908,7 @@ def run_log(args) -> int:
     chain = sf.check_chain()
     entries = sf.audit_log()
     if args.json:
-        json.dump([e.to_dict() for e in entries], sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json([e.to_dict() for e in entries])
     else:
         by_entry: dict = {}
         for eid, problem in chain.problems:
