@@ -12,9 +12,12 @@ from studykit.errors import StudyInputError
 __all__ = [
     "add_override_lock",
     "add_safety_critical",
+    "add_who",
     "analysis_options",
     "criteria_from_args",
     "lock_options",
+    "login_name",
+    "p12_passphrase",
     "read_file_measurements",
     "spec_from_args",
 ]
@@ -138,3 +141,32 @@ def add_safety_critical(parser) -> None:
         action="store_true",
         help="mark the characteristic safety-critical (prints the caution)",
     )
+
+
+def add_who(parser, help_text="your name (default: the login name)") -> None:
+    """The ``--who NAME`` option of a command that records who did something."""
+    parser.add_argument("--who", metavar="NAME", default=None, help=help_text)
+
+
+def login_name(fallback: str = "") -> str:
+    """The login name of the user running the command (``fallback`` when the system has none)."""
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no login name on this system
+        return fallback
+
+
+def p12_passphrase(p12: str, env_var: str) -> str:
+    """The passphrase of the certificate file ``p12`` from the environment variable
+    ``env_var`` (``--passphrase-env``); a clear error when it is not set."""
+    import os
+
+    passphrase = os.environ.get(env_var)
+    if passphrase is None:
+        raise StudyInputError(
+            f"the passphrase of '{p12}' is not set: put it into the environment "
+            f"variable {env_var} (or name another with --passphrase-env)"
+        )
+    return passphrase

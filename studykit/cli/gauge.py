@@ -12,13 +12,12 @@ in the study file beside the characteristic it qualifies (kinds ``gauge_rr`` and
 
 from __future__ import annotations
 
-import getpass
 import sys
 from pathlib import Path
 
 from studykit import names
 from studykit.cli._output import closing_lines, write_json
-from studykit.cli.args import add_override_lock, lock_options
+from studykit.cli.args import add_override_lock, add_who, lock_options, login_name
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -145,11 +144,7 @@ def register(subparsers) -> None:
         metavar="NAME",
         help="the characteristic the gauge measures (with --study)",
     )
-    p.add_argument(
-        "--who",
-        metavar="NAME",
-        help="name recorded with the stored result (default: the login name)",
-    )
+    add_who(p, "name recorded with the stored result (default: the login name)")
     add_override_lock(p, "store the result in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
@@ -325,13 +320,6 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     lines.append(f"  {res.message}")
     lines += closing_lines(res.notes)
     return "\n".join(lines) + "\n"
-
-
-def login_name() -> str:
-    try:
-        return getpass.getuser()
-    except (OSError, KeyError):
-        return ""
 
 
 def _num(x, fmt: str = ".4g") -> str:

@@ -14,7 +14,13 @@ from pathlib import Path
 import numpy as np
 
 from studykit.cli._output import closing_lines, write_json
-from studykit.cli.args import add_override_lock, add_safety_critical, lock_options
+from studykit.cli.args import (
+    add_override_lock,
+    add_safety_critical,
+    add_who,
+    lock_options,
+    login_name,
+)
 from studykit.errors import DataFileError, StudyInputError
 
 FIGURE_SUFFIXES = (".png", ".pdf", ".svg")
@@ -55,11 +61,7 @@ def register(sub) -> None:
         "workbook, the PDF and verify then show and check it",
     )
     p.add_argument("--name", metavar="NAME", help="name of the position study (with --study)")
-    p.add_argument(
-        "--who",
-        metavar="NAME",
-        help="name recorded with the stored study (default: the login name)",
-    )
+    add_who(p, "name recorded with the stored study (default: the login name)")
     add_override_lock(p, "store it in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
@@ -117,7 +119,6 @@ def run(args) -> int:
     notes = [f"{n_empty} row(s) without deviations left out"] if n_empty else []
     stored_id = None
     if args.study:
-        from studykit.cli.gauge import login_name
         from studykit.positions import POSITION_KIND, position_payload
         from studykit.store import StudyFile
 

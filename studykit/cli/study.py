@@ -23,31 +23,23 @@ stays on record as voided.
 from __future__ import annotations
 
 import dataclasses
-import getpass
 import json
 import sys
 from pathlib import Path
 
 from studykit import names
 from studykit.cli._output import write_json
-from studykit.cli.args import add_override_lock, lock_options
+from studykit.cli.args import add_override_lock, add_who, lock_options, login_name, p12_passphrase
 from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
 from studykit.store import StudyFile
 from studykit.study import Study, match_to_data, read_specs
-
-
-def _default_who() -> str:
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):  # no login name on this system
-        return "unknown"
 
 
 def _who(args) -> str:
     """The person named with --who, else the login name; an explicitly empty --who is refused
     (a decision or signature must not fall back to the login name by accident)."""
     if args.who is None:
-        return _default_who()
+        return login_name("unknown")
     if not args.who.strip():
         raise StudyInputError(
             "`--who` is empty: give the name of the person who decides or "
@@ -55,6 +47,27 @@ def _who(args) -> str:
             "name)"
         )
     return args.who.strip()
+
+
+_REASON_HELP = "why (kept in the audit log)"
+
+
+def _add_subject(q, *, subgroup: bool = False) -> None:
+    """The positional STUDYFILE CHARACTERISTIC (and SUBGROUP) of a change to one characteristic."""
+    q.add_argument("studyfile", metavar="STUDYFILE")
+    q.add_argument("characteristic", metavar="CHARACTERISTIC")
+    if subgroup:
+        q.add_argument("subgroup", metavar="SUBGROUP")
+
+
+def _add_change_options(
+    q, *, reason_help: str = _REASON_HELP, lock_help: str | None = None
+) -> None:
+    """``--reason``, ``--who`` and ``--override-lock`` of a subcommand that records a change
+    (``reason_help`` given: the reason is optional, as for ``rules`` without a change)."""
+    q.add_argument("--reason", required=reason_help == _REASON_HELP, help=reason_help)
+    add_who(q)
+    add_override_lock(q, *([lock_help] if lock_help else []))
 
 
 def register(subparsers) -> None:
@@ -93,7 +106,7 @@ def register(subparsers) -> None:
     new.add_argument("--title", help="study title (default: the data file's name)")
     new.add_argument("--part", default="", help="part number or name")
     new.add_argument("--supplier", default="", help="supplier")
-    new.add_argument("--who", default=None, help="your name (default: the login name)")
+    add_who(new)
     new.add_argument("--force", action="store_true", help="replace an existing study file")
     new.set_defaults(func=run_new)
 
@@ -109,12 +122,8 @@ def register(subparsers) -> None:
             help=f"{'remove' if action == 'exclude' else action} a subgroup of a "
             "characteristic from the analysis (with a reason)",
         )
-        q.add_argument("studyfile", metavar="STUDYFILE")
-        q.add_argument("characteristic", metavar="CHARACTERISTIC")
-        q.add_argument("subgroup", metavar="SUBGROUP")
-        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
-        q.add_argument("--who", default=None, help="your name (default: the login name)")
-        add_override_lock(q)
+        _add_subject(q, subgroup=True)
+        _add_change_options(q)
         q.set_defaults(func=run_decision, action=action)
 
     _register_keep(sub)
@@ -126,8 +135,7 @@ def register(subparsers) -> None:
         "chart of one characteristic. Each change is recorded as a decision with "
         "your reason; write 'none' to clear a limit or the target.",
     )
-    st.add_argument("studyfile", metavar="STUDYFILE")
-    st.add_argument("characteristic", metavar="CHARACTERISTIC")
+    _add_subject(st)
     for opt in ("lsl", "usl", "target"):
         st.add_argument(f"--{opt}", metavar="X")
     st.add_argument("--criterion", choices=("cp", "cpk", "pp", "ppk", "cpm"))
@@ -146,16 +154,14 @@ def register(subparsers) -> None:
         "--chart",
         help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and X-bar-R are accepted too)",
     )
-    st.add_argument("--reason", required=True, help="why (kept in the audit log)")
-    st.add_argument("--who", default=None)
-    add_override_lock(st)
+    _add_change_options(st)
     st.set_defaults(func=run_set)
 
     com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
     com.add_argument("studyfile", metavar="STUDYFILE")
     com.add_argument("text", metavar="TEXT")
     com.add_argument("--characteristic", default=None)
-    com.add_argument("--who", default=None)
+    add_who(com)
     com.set_defaults(func=run_comment)
 
     sign = sub.add_parser("sign", help="sign the study as it stands")
@@ -170,7 +176,7 @@ def register(subparsers) -> None:
     sign.add_argument(
         "--comment", default="", help="comment; for a rejection, its reason (required)"
     )
-    sign.add_argument("--who", default=None)
+    add_who(sign)
     sign.add_argument(
         "--p12",
         metavar="P12",
@@ -205,9 +211,11 @@ def register(subparsers) -> None:
         rules.add_argument(
             f"--{key.replace('_', '-')}", choices=("on", "off"), dest=key, default=None
         )
-    rules.add_argument("--reason", help="why the rules change (required for a change)")
-    rules.add_argument("--who", default=None)
-    add_override_lock(rules, "change the rules of an approved study anyway; voids the approval")
+    _add_change_options(
+        rules,
+        reason_help="why the rules change (required for a change)",
+        lock_help="change the rules of an approved study anyway; voids the approval",
+    )
     rules.set_defaults(func=run_rules)
 
     waive = sub.add_parser(
@@ -217,12 +225,9 @@ def register(subparsers) -> None:
         "may then stand although it has no verdict. The reason is part of "
         "the study content, so earlier sign-offs no longer hold.",
     )
-    waive.add_argument("studyfile", metavar="STUDYFILE")
-    waive.add_argument("characteristic", metavar="CHARACTERISTIC")
-    waive.add_argument("--reason", required=True, help="why (kept in the audit log)")
+    _add_subject(waive)
+    _add_change_options(waive)
     waive.add_argument("--withdraw", action="store_true", help="withdraw the waiver instead")
-    waive.add_argument("--who", default=None)
-    add_override_lock(waive)
     waive.set_defaults(func=run_waive)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
@@ -342,18 +347,14 @@ def _register_keep(sub) -> None:
     )
     reopen = sub.add_parser("reopen", help="withdraw a 'keep' decision (the signal is open again)")
     for q in (keep, reopen):
-        q.add_argument("studyfile", metavar="STUDYFILE")
-        q.add_argument("characteristic", metavar="CHARACTERISTIC")
-        q.add_argument("subgroup", metavar="SUBGROUP")
+        _add_subject(q, subgroup=True)
         q.add_argument(
             "--rule",
             required=True,
             help="the rule of the signal: beyond_limits, run, trend, alternation, "
             "zone_a, zone_b, hugging, mixture (or its Nelson number 1-8)",
         )
-        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
-        q.add_argument("--who", default=None, help="your name (default: the login name)")
-        add_override_lock(q)
+        _add_change_options(q)
     keep.set_defaults(func=run_keep)
     reopen.set_defaults(func=run_reopen)
 
@@ -785,21 +786,12 @@ def run_comment(args) -> int:
 
 
 def run_sign(args) -> int:
-    import os
 
     from studykit.analysis import gauge_results
     from studykit.signoff_rules import analyse_for_signoff, make_check, open_verdicts
     from studykit.study import SignOff
 
-    certificate = None
-    if args.p12:
-        passphrase = os.environ.get(args.passphrase_env)
-        if passphrase is None:
-            raise StudyInputError(
-                f"the passphrase of '{args.p12}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)"
-            )
-        certificate = (args.p12, passphrase)
+    certificate = (args.p12, p12_passphrase(args.p12, args.passphrase_env)) if args.p12 else None
     sf = StudyFile(args.studyfile)
     who = _who(args)
     saw = None
