@@ -186,10 +186,7 @@ def run(args) -> int:
     )
     try:
         result = gauge_rr(
-            table["values"],
-            table["parts"],
-            table["appraisers"],
-            trials=table["trials"],
+            **table,  # values, parts, appraisers, trials: gauge_rr's own arguments
             alpha_interaction=args.alpha_interaction,
             study_variation=args.study_variation,
             lsl=lsl,

@@ -192,8 +192,8 @@ def format_position(res, *, source="", x="dx", y="dy", notes=(), caution=None) -
     --------
     >>> import numpy as np
     >>> from studykit.stats.position import position_study
-    >>> rng = np.random.default_rng(0)
-    >>> res = position_study(rng.normal(0, 0.02, 40), rng.normal(0, 0.03, 40), tolerance=0.2)
+    >>> turn = np.arange(40.0)  # deviations on an ellipse around nominal, one part per step
+    >>> res = position_study(0.02 * np.sin(turn), 0.03 * np.cos(turn), tolerance=0.2)
     >>> print(format_position(res).splitlines()[0])
     Zone:        diameter 0.2 around nominal; 40 parts
     """
