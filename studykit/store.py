@@ -812,14 +812,7 @@ class AuditEntry:
     detail: dict
 
     def to_dict(self) -> dict:
-        return {
-            "id": self.id,
-            "when": self.when,
-            "who": self.who,
-            "what": self.what,
-            "why": self.why,
-            "detail": self.detail,
-        }
+        return dict(self.__dict__)  # the fields, in their order
 
 
 @dataclass(frozen=True)
@@ -838,14 +831,7 @@ class StoredResult:
     when: str
 
     def to_dict(self) -> dict:
-        return {
-            "id": self.id,
-            "kind": self.kind,
-            "characteristic": self.characteristic,
-            "payload": self.payload,
-            "who": self.who,
-            "when": self.when,
-        }
+        return dict(self.__dict__)  # the fields, in their order
 
 
 def _dumps(obj) -> str:

@@ -24,7 +24,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from types import MappingProxyType
-from typing import Any
+from typing import Any, ClassVar, Self
 
 from studykit import names
 from studykit.errors import SpecError, StudyFileError, StudyInputError
@@ -205,18 +205,26 @@ def _canonical(obj) -> str:
 # characteristic and criteria
 
 
-def _known_fields(cls, d: Mapping, what: str) -> dict:
-    """``d`` as keyword arguments of the dataclass ``cls``; a key it does not know is an error
-    (``what`` names the kind of field in the message)."""
-    known = {f.name for f in dataclasses.fields(cls)}
-    extra = sorted(set(d) - known)
-    if extra:
-        raise SpecError(f"unknown {what} field(s) {extra}: known are {sorted(known)}")
-    return dict(d)
+class _StrictRecord:
+    """A frozen record whose ``from_dict`` inverts its ``to_dict`` and refuses a key it does not
+    know (``_field_kind`` names the kind of field in the message)."""
+
+    _field_kind: ClassVar[str]
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> Self:
+        """Inverse of :meth:`to_dict`; unknown keys are an error."""
+        known = {f.name for f in dataclasses.fields(cls)}
+        extra = sorted(set(d) - known)
+        if extra:
+            raise SpecError(
+                f"unknown {cls._field_kind} field(s) {extra}: known are {sorted(known)}"
+            )
+        return cls(**dict(d))
 
 
 @dataclass(frozen=True)
-class Characteristic:
+class Characteristic(_StrictRecord):
     """One measured feature of the part, with its specification.
 
     Parameters
@@ -259,6 +267,8 @@ class Characteristic:
     >>> Characteristic("runout", usl=0.05).two_sided
     False
     """
+
+    _field_kind: ClassVar[str] = "specification"
 
     name: str
     unit: str | None = None
@@ -357,14 +367,9 @@ class Characteristic:
             out.pop("source", None)
         return out
 
-    @classmethod
-    def from_dict(cls, d: Mapping) -> Characteristic:
-        """Inverse of :meth:`to_dict`; unknown keys are an error."""
-        return cls(**_known_fields(cls, d, "specification"))
-
 
 @dataclass(frozen=True)
-class Criteria:
+class Criteria(_StrictRecord):
     """The acceptance criterion for one characteristic.
 
     Parameters
@@ -397,6 +402,8 @@ class Criteria:
     >>> Criteria(index="cpk", threshold=1.33).describe()
     'Cpk lower 95% bound >= 1.33'
     """
+
+    _field_kind: ClassVar[str] = "criteria"
 
     index: str = names.DEFAULT_CRITERION["index"]
     threshold: float = names.DEFAULT_CRITERION["threshold"]
@@ -469,11 +476,6 @@ class Criteria:
             out.pop("interval_coverage")
             out.pop("interval_confidence")
         return out
-
-    @classmethod
-    def from_dict(cls, d: Mapping) -> Criteria:
-        """Inverse of :meth:`to_dict`; unknown keys are an error."""
-        return cls(**_known_fields(cls, d, "criteria"))
 
 
 # ---------------------------------------------------------------------------------------------
