@@ -21,10 +21,10 @@ from studykit.study import (
     check_model,
 )
 
-__all__ = ["SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
+__all__ = ["CORE_SPEC_COLUMNS", "SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
 
-#: columns of a specifications table (CSV); only ``characteristic`` is required
-SPEC_COLUMNS = (
+#: the columns most studies fill (the new-study page's table edits exactly these)
+CORE_SPEC_COLUMNS = (
     "characteristic",
     "unit",
     "lsl",
@@ -34,6 +34,10 @@ SPEC_COLUMNS = (
     "criterion",
     "threshold",
     "basis",
+)
+#: columns of a specifications table (CSV); only ``characteristic`` is required
+SPEC_COLUMNS = (
+    *CORE_SPEC_COLUMNS,
     "confidence",
     "chart",
     "subgroup_size",

@@ -281,15 +281,7 @@ def study_from_evidence(evidence: dict, data):
     ``data`` is the bytes of the first data file, or a mapping filename -> bytes holding every
     data file the report records. Comments and sign-offs come back too (they are printed).
     """
-    from studykit.study import (
-        Characteristic,
-        Comment,
-        Criteria,
-        DataFile,
-        Decision,
-        SignOff,
-        Study,
-    )
+    from studykit.study import Characteristic, Comment, Criteria, DataFile, Decision, SignOff, Study
 
     s = evidence["study"]
     try:
@@ -1079,32 +1071,43 @@ def _short_gauge_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded short gauge study from its readings; returns numbers compared."""
     from studykit.report.gauge_error import recheck_short_study
 
-    total = 0
-    for name, payload in sorted((evidence.get("short_gauges") or {}).items()):
-        label = f"short gauge study of {name}"
-        try:
-            fresh = recheck_short_study(payload)
-        except (StudyInputError, KeyError, TypeError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its readings: {exc}"))
-            continue
-        reported = {k: v for k, v in payload.items() if k in fresh}
-        total += _compare_check(label, reported, fresh, "the readings", checks)
-    return total
+    return _recomputed_checks(
+        evidence.get("short_gauges"),
+        "short gauge study of",
+        "readings",
+        recheck_short_study,
+        lambda payload, fresh: {k: v for k, v in payload.items() if k in fresh},
+        checks,
+    )
 
 
 def _position_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded position study from its deviations; returns numbers compared."""
     from studykit.positions import recheck_position
 
+    return _recomputed_checks(
+        evidence.get("positions"),
+        "position study",
+        "deviations",
+        recheck_position,
+        lambda payload, fresh: payload.get("result") or {},
+        checks,
+    )
+
+
+def _recomputed_checks(payloads, what: str, raw: str, recheck, reported, checks: list) -> int:
+    """Recompute each embedded study ``{name: payload}`` from its ``raw`` values with
+    ``recheck(payload)`` and compare ``reported(payload, fresh)`` with it, one check per study
+    (a study that cannot be recomputed fails); returns the numbers compared."""
     total = 0
-    for name, payload in sorted((evidence.get("positions") or {}).items()):
-        label = f"position study {name}"
+    for name, payload in sorted((payloads or {}).items()):
+        label = f"{what} {name}"
         try:
-            fresh = recheck_position(payload)
+            fresh = recheck(payload)
         except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: {exc}"))
+            checks.append(Check(label, "fail", f"cannot be recomputed from its {raw}: {exc}"))
             continue
-        total += _compare_check(label, payload.get("result") or {}, fresh, "the deviations", checks)
+        total += _compare_check(label, reported(payload, fresh), fresh, f"the {raw}", checks)
     return total
 
 

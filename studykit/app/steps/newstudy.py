@@ -27,6 +27,7 @@ import ipywidgets as widgets
 
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import SpecError, StudyFileError, StudyInputError
+from studykit.specs import CORE_SPEC_COLUMNS
 from studykit.study import BASES, INDICES, Criteria, match_to_data, read_specs_bytes
 
 __all__ = [
@@ -41,17 +42,7 @@ __all__ = [
 ENV_NEW_DIR = "STUDYKIT_NEW_DIR"
 #: how the page's table is named in messages (as the CLI names the --specs file)
 TABLE_NAME = "specification table (in the page)"
-SPEC_COLUMNS = (
-    "characteristic",
-    "unit",
-    "lsl",
-    "usl",
-    "target",
-    "safety_critical",
-    "criterion",
-    "threshold",
-    "basis",
-)
+SPEC_COLUMNS = CORE_SPEC_COLUMNS
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.\-]{0,99}$")
 
