@@ -61,11 +61,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from studykit.errors import StudyInputError
 from studykit.stats.lazy import scipy_stats as stats
+
+if TYPE_CHECKING:  # streams is imported where a spread test is made
+    from studykit.stats.streams import StreamTest
 
 __all__ = [
     "ALPHA",
@@ -340,7 +344,7 @@ class TimeModel:
     method: str
     components: VarianceComponents | None = None
     trend: dict | None = None
-    spread: object = None
+    spread: StreamTest | None = None
     shape: dict | None = None
     indices: dict = field(default_factory=dict)
     judged: dict | None = None
@@ -349,7 +353,8 @@ class TimeModel:
     location_limits: dict | None = None
 
     def to_dict(self) -> dict:
-        loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
+        entry = CLASSES.get(self.cls) if self.cls is not None else None
+        loc, spr = (entry[0], entry[1]) if entry is not None else (None, None)
         out = {
             "class": self.cls,
             "location": loc,
@@ -650,7 +655,7 @@ def class_bound(
     centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     seed = _seed_from(x, codes) if seed is None else int(seed)
     draws = _class_draws(cls, centre, sw2, sb2, n_i, n_boot, seed, lsl, usl)
-    out = {
+    out: dict[str, Any] = {
         "pp": None if point["pp"] is None else float(point["pp"][0]),
         "ppk": None if point["ppk"] is None else float(point["ppk"][0]),
         "pp_lower": None,
