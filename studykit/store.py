@@ -638,6 +638,38 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
         )
     entries = _table_rows(conn, "audit_log", order="id")
     claimed: dict = {}
+    hashes = _check_entries(entries, claimed, problems)
+    n_rows, signoffs = _check_rows(conn, known_blobs, claimed, problems)
+    for (t, key), (_, eid) in claimed.items():
+        problems.append(
+            (
+                eid,
+                f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
+                "missing: it was deleted outside studykit",
+            )
+        )
+    _check_signoff_heads(signoffs, hashes, problems)
+    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
+        for sig in signoff_signatures(conn):
+            if sig.status == "INVALID":
+                problems.append(
+                    (
+                        None,
+                        f"the certificate signature of sign-off #{sig.index + 1} "
+                        f"({sig.subject or 'unknown certificate'}) does not hold: "
+                        f"{sig.why}",
+                    )
+                )
+    _check_guards(conn, problems)
+    last_id, last = (
+        (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries else (0, CHAIN_GENESIS)
+    )
+    return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
+
+
+def _check_entries(entries, claimed: dict, problems: list) -> dict[int, str]:
+    """Each audit entry follows the one before it and still matches its hash; the rows it
+    claims go into ``claimed`` (a row claimed twice is a problem). Returns entry id -> hash."""
     hashes: dict[int, str] = {}
     prev, prev_id = CHAIN_GENESIS, None
     for e in entries:
@@ -681,6 +713,12 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                 claimed[k] = (r["sha256"], eid)
         except (ValueError, TypeError, KeyError):
             problems.append((eid, f"{where} has an unreadable list of rows"))
+    return hashes
+
+
+def _check_rows(conn, known_blobs, claimed: dict, problems: list) -> tuple[int, list]:
+    """Every row of the chained tables is claimed by an entry with the hash it has now (claims
+    met are taken out of ``claimed``). Returns the number of rows and the sign-off rows."""
     n_rows = 0
     signoffs = []
     for t in _chained_tables(conn):
@@ -713,14 +751,11 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                         f"audit entry {eid}, was changed outside studykit",
                     )
                 )
-    for (t, key), (_, eid) in claimed.items():
-        problems.append(
-            (
-                eid,
-                f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
-                "missing: it was deleted outside studykit",
-            )
-        )
+    return n_rows, signoffs
+
+
+def _check_signoff_heads(signoffs, hashes: dict, problems: list) -> None:
+    """Every sign-off's ``chain_head`` names an entry of the chain with that hash."""
     for row in signoffs:
         head = row.get("chain_head")
         if not head:
@@ -735,17 +770,10 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                     "chain: the history before it was rewritten",
                 )
             )
-    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
-        for sig in signoff_signatures(conn):
-            if sig.status == "INVALID":
-                problems.append(
-                    (
-                        None,
-                        f"the certificate signature of sign-off #{sig.index + 1} "
-                        f"({sig.subject or 'unknown certificate'}) does not hold: "
-                        f"{sig.why}",
-                    )
-                )
+
+
+def _check_guards(conn, problems: list) -> None:
+    """The append-only guards (triggers) of the guarded tables are all in place."""
     triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")}
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
     for t in _GUARDED:
@@ -760,10 +788,6 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                         f"({t}_no_{op}) was removed outside studykit",
                     )
                 )
-    last_id, last = (
-        (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries else (0, CHAIN_GENESIS)
-    )
-    return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
 
 
 # ---------------------------------------------------------------------------------------------

@@ -470,6 +470,18 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
 def format_study(study: Study, chain=None, signatures=None) -> str:
     """The study as text for a terminal (``chain``: the file's ChainCheck, ``signatures``: the
     sign-offs' certificate signatures; each shown when given)."""
+    parts = (
+        _study_header(study, chain),
+        _characteristics_lines(study),
+        _decision_lines(study),
+        _comment_lines(study),
+        _signoff_lines(study, signatures or {}),
+        _rules_and_waiver_lines(study),
+    )
+    return "\n\n".join("\n".join(lines) for lines in parts) + "\n"
+
+
+def _study_header(study: Study, chain) -> list[str]:
     out = [f"Study     {study.title}"]
     if study.part:
         out.append(f"Part      {study.part}")
@@ -491,8 +503,10 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         "State     "
         + (f"APPROVED by {holder.name} on {holder.when} (locked)" if holder else "open")
     )
-    out.append("")
-    out.append("Characteristics")
+    return out
+
+
+def _characteristics_lines(study: Study) -> list[str]:
     rows = []
     for name, c in study.characteristics.items():
         excluded = sorted(study.excluded_subgroups(name), key=lambda s: (len(s), s))
@@ -513,29 +527,14 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
                 ),
             ]
         )
-    if rows:
-        out.append(
-            _table(
-                [
-                    "name",
-                    "unit",
-                    "LSL",
-                    "target",
-                    "USL",
-                    "safety",
-                    "criterion",
-                    "chart",
-                    "model",
-                    "removed",
-                    "kept signals",
-                ],
-                rows,
-            )
-        )
-    else:
-        out.append("  (none specified)")
-    out.append("")
-    out.append(f"Decisions ({len(study.decisions)})")
+    if not rows:
+        return ["Characteristics", "  (none specified)"]
+    head = ["name", "unit", "LSL", "target", "USL", "safety", "criterion", "chart", "model"]
+    return ["Characteristics", _table([*head, "removed", "kept signals"], rows)]
+
+
+def _decision_lines(study: Study) -> list[str]:
+    out = [f"Decisions ({len(study.decisions)})"]
     for i, d in enumerate(study.decisions, start=1):
         on = f" '{d.characteristic}'" if d.characteristic else ""
         sub = f" subgroup {d.subgroup}" if d.subgroup else ""
@@ -546,20 +545,26 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         )
         if d.reason:
             out.append(f"       reason: {d.reason}")
-    out.append("")
-    out.append(f"Comments ({len(study.comments)})")
+    return out
+
+
+def _comment_lines(study: Study) -> list[str]:
+    out = [f"Comments ({len(study.comments)})"]
     for c in study.comments:
         on = f" on '{c.characteristic}'" if c.characteristic else ""
         out.append(f"  {c.when}  {c.who}{on}: {c.text}")
-    out.append("")
-    out.append(f"Sign-offs ({len(study.signoffs)})")
+    return out
+
+
+def _signoff_lines(study: Study, signatures) -> list[str]:
+    out = [f"Sign-offs ({len(study.signoffs)})"]
     for st in study.signoff_state():
         s = st.signoff
         state = "valid" if st.valid else f"VOIDED ({st.why})"
         out.append(f"  {s.when}  {s.name} ({s.role}): {s.decision} - {state}")
         if s.chain_head:
             out.append(f"       signed chain head {s.chain_head[:28]}...")
-        sig = (signatures or {}).get(st.index)
+        sig = signatures.get(st.index)
         if sig is not None and sig.status != "none":
             out.append(
                 f"       certificate signature {sig.status}: {sig.subject}, SHA-256 "
@@ -569,18 +574,18 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         if s.comment:
             out.append(f"       comment: {s.comment}")
         out.append(f"       signed content {s.digest}")
+    return out
+
+
+def _rules_and_waiver_lines(study: Study) -> list[str]:
     from studykit.signoff_rules import rules_text
 
-    out.append("")
-    out.append("Sign-off rules")
-    out.extend(f"  {line}" for line in rules_text(study))
+    out = ["Sign-off rules", *(f"  {line}" for line in rules_text(study))]
     waivers = study.waivers()
     if waivers:
-        out.append("")
-        out.append(f"Waivers ({len(waivers)})")
-        for name, d in waivers.items():
-            out.append(f"  {name}: {d.reason} ({d.who}, {d.when})")
-    return "\n".join(out) + "\n"
+        out += ["", f"Waivers ({len(waivers)})"]
+        out += [f"  {name}: {d.reason} ({d.who}, {d.when})" for name, d in waivers.items()]
+    return out
 
 
 def run_show(args) -> int:
