@@ -847,6 +847,14 @@ class Study:
         set_(self, "title", _text(self.title, name="title", required=True).strip())
         set_(self, "part", _text(self.part, name="part").strip())
         set_(self, "supplier", _text(self.supplier, name="supplier").strip())
+        self._init_data()
+        names = self._init_extra_files()
+        chars = self._init_specs(names)
+        self._init_records(chars)
+
+    def _init_data(self) -> None:
+        """The data as bytes, its name, and its SHA-256 (checked against the one recorded)."""
+        set_ = object.__setattr__
         if not isinstance(self.data, bytes | bytearray | memoryview):
             raise StudyInputError(
                 f"`data` must be the raw bytes of the file, got {type(self.data).__name__}"
@@ -863,6 +871,9 @@ class Study:
                 "restore the file from a backup"
             )
         set_(self, "data_sha256", actual)
+
+    def _init_extra_files(self) -> list[str]:
+        """The further data files as a tuple; returns the names of all data files."""
         extra = tuple(self.extra_files)
         names = [self.data_filename]
         for f in extra:
@@ -874,7 +885,13 @@ class Study:
                     "name"
                 )
             names.append(f.filename)
-        set_(self, "extra_files", extra)
+        object.__setattr__(self, "extra_files", extra)
+        return names
+
+    def _init_specs(self, names: list[str]) -> Mapping[str, Characteristic]:
+        """The specifications and criteria as read-only mappings, each checked; returns the
+        specifications."""
+        set_ = object.__setattr__
         chars = _as_mapping(self.characteristics, Characteristic, key=lambda c: c.name)
         for name, c in chars.items():
             if name != c.name:
@@ -899,6 +916,11 @@ class Study:
                 )
             check_criteria_fits(chars[name], c)
         set_(self, "criteria", crit)
+        return chars
+
+    def _init_records(self, chars: Mapping[str, Characteristic]) -> None:
+        """Decisions, comments and sign-offs as tuples of their classes; every decision names
+        a characteristic of the study (or none)."""
         for kind, seq, cls in (
             ("decisions", self.decisions, Decision),
             ("comments", self.comments, Comment),
@@ -910,7 +932,7 @@ class Study:
                     raise StudyInputError(
                         f"`{kind}` must hold {cls.__name__} objects, got {item!r}"
                     )
-            set_(self, kind, seq)
+            object.__setattr__(self, kind, seq)
         for d in self.decisions:
             if d.characteristic is not None and d.characteristic not in chars:
                 raise StudyInputError(
@@ -1470,20 +1492,7 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             f"this study (known: {', '.join(chars) or 'none'})"
         )
     if d.action == "set_spec":
-        old = chars[d.characteristic]
-        new_fields = dict(d.payload.get("changes", {}))
-        if "name" in new_fields and new_fields["name"] != old.name:
-            raise SpecError("a characteristic cannot be renamed; create a new study instead")
-        known = {f.name for f in dataclasses.fields(Characteristic)}
-        unknown = sorted(set(new_fields) - known)
-        if unknown:
-            raise SpecError(
-                f"set_spec: unknown specification field(s) {unknown}: known are {sorted(known)}"
-            )
-        new = dataclasses.replace(old, **new_fields)
-        if new.name in crit:
-            check_criteria_fits(new, crit[new.name])
-        chars[new.name] = new
+        _apply_set_spec(chars, crit, d)
     elif d.action == "set_criteria":
         new_crit = Criteria.from_dict(d.payload.get("criteria", {}))
         check_criteria_fits(chars[d.characteristic], new_crit)
@@ -1511,6 +1520,24 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             raise StudyInputError(
                 f"void_signoff: `signoff` ({idx!r}) must be the index of an existing sign-off"
             )
+
+
+def _apply_set_spec(chars: dict, crit: dict, d: Decision) -> None:
+    """Apply a ``set_spec`` decision: the changed fields of one specification (in place)."""
+    old = chars[d.characteristic]
+    new_fields = dict(d.payload.get("changes", {}))
+    if "name" in new_fields and new_fields["name"] != old.name:
+        raise SpecError("a characteristic cannot be renamed; create a new study instead")
+    known = {f.name for f in dataclasses.fields(Characteristic)}
+    unknown = sorted(set(new_fields) - known)
+    if unknown:
+        raise SpecError(
+            f"set_spec: unknown specification field(s) {unknown}: known are {sorted(known)}"
+        )
+    new = dataclasses.replace(old, **new_fields)
+    if new.name in crit:
+        check_criteria_fits(new, crit[new.name])
+    chars[new.name] = new
 
 
 #: sign-off rules that apply unless the study records others (``set_signoff_rules``)

@@ -33,8 +33,6 @@ KNOWN = {
     ("studykit/report/pdf.py", "_characteristic_section"),
     ("studykit/report/verify.py", "_signature_checks"),
     ("studykit/report/verify.py", "verify_report"),
-    ("studykit/study.py", "__post_init__"),
-    ("studykit/study.py", "_apply_effect"),
     ("tests/test_rules.py", "_reference_rule"),
 }
 
