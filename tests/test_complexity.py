@@ -31,9 +31,6 @@ KNOWN = {
     ("studykit/io/source.py", "inspect"),
     ("studykit/io/xlsx_reader.py", "_xlsx_table"),
     ("studykit/report/pdf.py", "_characteristic_section"),
-    ("studykit/report/verify.py", "_signature_checks"),
-    ("studykit/report/verify.py", "verify_report"),
-    ("tests/test_rules.py", "_reference_rule"),
 }
 
 
