@@ -1091,6 +1091,16 @@ class StudyFile:
         finally:
             conn.close()
 
+    def _refuse_if_not_writable(self) -> None:
+        """A clear error when the file or its folder may not be written (nothing was changed)."""
+        why = self._not_writable()
+        if why is not None:
+            raise StudyFileError(
+                f"cannot save to study file '{self.path}': {why}; nothing was changed. "
+                "Copy the study file to a folder where you may write, or ask for write "
+                "permission"
+            ) from None
+
     @contextmanager
     def _write(self):
         conn = self._connect(write=True)
@@ -1098,13 +1108,7 @@ class StudyFile:
             try:
                 conn.execute("BEGIN IMMEDIATE")
             except sqlite3.OperationalError as exc:
-                why = self._not_writable()
-                if why is not None:
-                    raise StudyFileError(
-                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
-                        "Copy the study file to a folder where you may write, or ask for write "
-                        "permission"
-                    ) from None
+                self._refuse_if_not_writable()
                 raise StudyFileError(
                     f"study file '{self.path}' is busy or read-only ({exc}): try again, or check "
                     "that you may write to it"
@@ -1123,13 +1127,7 @@ class StudyFile:
                     raise StudyFileError(
                         _damaged(self.path, exc) + "; nothing was changed"
                     ) from None
-                why = self._not_writable()
-                if why is not None:
-                    raise StudyFileError(
-                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
-                        "Copy the study file to a folder where you may write, or ask for write "
-                        "permission"
-                    ) from None
+                self._refuse_if_not_writable()
                 raise StudyFileError(
                     f"could not save to study file '{self.path}' ({exc}); nothing was changed: "
                     "check free disk space and write permission, then try again"

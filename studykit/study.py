@@ -1364,10 +1364,10 @@ class Study:
         who: str,
         reason: str,
         when: str = "",
-        override_lock=False,
-        override_reason=None,
+        **lock,
     ) -> Study:
-        """Set the acceptance criterion of ``name`` (recorded as a ``set_criteria`` decision)."""
+        """Set the acceptance criterion of ``name`` (recorded as a ``set_criteria`` decision;
+        ``override_lock``/``override_reason`` as for :meth:`with_decision`)."""
         if not isinstance(criteria, Criteria):
             raise SpecError(f"`criteria` must be a Criteria, got {criteria!r}")
         d = Decision(
@@ -1378,7 +1378,7 @@ class Study:
             when=when,
             payload={"criteria": criteria.to_dict(), "old": self.criteria_for(name).to_dict()},
         )
-        return self.with_decision(d, override_lock=override_lock, override_reason=override_reason)
+        return self.with_decision(d, **lock)
 
     def with_comment(
         self, text: str, *, who: str, characteristic: str | None = None, when: str = ""
