@@ -114,15 +114,7 @@ def _migrate_0_to_1(conn: sqlite3.Connection) -> None:
         "CREATE TABLE audit_log (id INTEGER PRIMARY KEY AUTOINCREMENT, at TEXT NOT NULL, "
         "who TEXT NOT NULL, what TEXT NOT NULL, why TEXT NOT NULL, detail_json TEXT NOT NULL)"
     )
-    for table in (
-        "meta",
-        "data_files",
-        "characteristics",
-        "decisions",
-        "comments",
-        "signoffs",
-        "audit_log",
-    ):
+    for table in _SCHEMA1_TABLES:
         _append_only(conn, table)
 
 
@@ -189,8 +181,8 @@ def _apply_migrations(conn: sqlite3.Connection, start: int, stop: int = SCHEMA_V
 #: ``prev_hash`` of the first audit entry
 CHAIN_GENESIS = "0" * 64
 _CHAIN_FORMAT = "studykit-chain-1"
-#: tables made append-only by the migrations (their guards are checked by check_chain)
-_GUARDED = (
+#: the tables of the first schema, append-only from the start
+_SCHEMA1_TABLES = (
     "meta",
     "data_files",
     "characteristics",
@@ -198,8 +190,9 @@ _GUARDED = (
     "comments",
     "signoffs",
     "audit_log",
-    "results",
 )
+#: tables made append-only by the migrations (their guards are checked by check_chain)
+_GUARDED = (*_SCHEMA1_TABLES, "results")
 
 
 class _ChainConnection(sqlite3.Connection):

@@ -612,6 +612,20 @@ def _class_stats(cls, means, n_i, ssw, lsl, usl) -> dict:
     return _percentile_indices(lo, (a + b) / 2, hi, lsl, usl)
 
 
+def _class_data(values, subgroups, cls: str, what: str):
+    """``(x, codes, k, n_i, means, ssw)`` of the readings for a class model of ``cls`` (C1, C3
+    or C4 only: ``what`` names the request in the error): subgroup codes and count, sizes,
+    means and the within sum of squares."""
+    if cls not in ("C1", "C3", "C4"):
+        raise StudyInputError(f"no {what} for class {cls!r} (only C1, C3, C4).")
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    n_i = np.bincount(codes, minlength=k).astype(float)
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    ssw = float(np.sum((x - means[codes]) ** 2))
+    return x, codes, k, n_i, means, ssw
+
+
 def class_bound(
     values,
     subgroups,
@@ -644,13 +658,7 @@ def class_bound(
 
     Returns ``{"pp", "ppk", "pp_lower", "ppk_lower", "level", "n_boot", "seed", "method"}``.
     """
-    if cls not in ("C1", "C3", "C4"):
-        raise StudyInputError(f"no class-method bound for class {cls!r} (only C1, C3, C4).")
-    x = np.asarray(values, dtype=float)
-    codes, k = _codes(subgroups)
-    n_i = np.bincount(codes, minlength=k).astype(float)
-    means = np.bincount(codes, weights=x, minlength=k) / n_i
-    ssw = float(np.sum((x - means[codes]) ** 2))
+    x, codes, k, n_i, means, ssw = _class_data(values, subgroups, cls, "class-method bound")
     point = _class_stats(cls, means[None, :], n_i, np.array([ssw]), lsl, usl)
     centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     seed = _seed_from(x, codes) if seed is None else int(seed)
@@ -745,13 +753,7 @@ def class_limits(values, subgroups, cls: str) -> dict:
     >>> out["labels"], out["beyond"]
     (['1', '2', '3', '4'], [])
     """
-    if cls not in ("C1", "C3", "C4"):
-        raise StudyInputError(f"no class-model limits for class {cls!r} (only C1, C3, C4).")
-    x = np.asarray(values, dtype=float)
-    codes, k = _codes(subgroups)
-    n_i = np.bincount(codes, minlength=k).astype(float)
-    means = np.bincount(codes, weights=x, minlength=k) / n_i
-    ssw = float(np.sum((x - means[codes]) ** 2))
+    x, codes, k, n_i, means, ssw = _class_data(values, subgroups, cls, "class-model limits")
     centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     half = 3.0 * np.sqrt(sb2 + sw2 / n_i)
     labels = list(dict.fromkeys(np.asarray(subgroups).astype(str).reshape(-1).tolist()))
