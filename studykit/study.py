@@ -1222,8 +1222,21 @@ class Study:
                 study = study._apply(v)
         return study._apply(decision)
 
-    def exclude(
+    def exclude(self, name: str, subgroup, *, reason: str, **options) -> Study:
+        """Exclude ``subgroup`` of ``name`` from the analysis (with the reason on record).
+
+        ``options``: ``who``, ``automatic`` (a removal proposed by the automatic phase I),
+        ``when``, ``payload`` (a dict kept with the decision), ``override_lock`` and
+        ``override_reason`` (as for :meth:`with_decision`)."""
+        return self._subgroup_decision("exclude", name, subgroup, reason=reason, **options)
+
+    def restore(self, name: str, subgroup, *, reason: str, **options) -> Study:
+        """Bring an excluded subgroup back (``options`` as for :meth:`exclude`)."""
+        return self._subgroup_decision("restore", name, subgroup, reason=reason, **options)
+
+    def _subgroup_decision(
         self,
+        action: str,
         name: str,
         subgroup,
         *,
@@ -1234,39 +1247,15 @@ class Study:
         payload: Mapping | None = None,
         **lock,
     ) -> Study:
-        """Exclude ``subgroup`` of ``name`` from the analysis (with the reason on record)."""
         d = Decision(
             name,
-            "exclude",
+            action,
             subgroup=subgroup,
             reason=reason,
             who=who,
             when=when,
             automatic=automatic,
             payload=payload or {},
-        )
-        return self.with_decision(d, **lock)
-
-    def restore(
-        self,
-        name: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        when: str = "",
-        **lock,
-    ) -> Study:
-        """Bring an excluded subgroup back."""
-        d = Decision(
-            name,
-            "restore",
-            subgroup=subgroup,
-            reason=reason,
-            who=who,
-            when=when,
-            automatic=automatic,
         )
         return self.with_decision(d, **lock)
 
