@@ -730,6 +730,20 @@ class SignOffState:
 # the study
 
 
+def _verified_sha256(data: bytes, recorded: str, name: str) -> str:
+    """The SHA-256 of a data file's stored copy, checked against the ``recorded`` one (when
+    given): a mismatch means the copy was altered."""
+    actual = hashlib.sha256(data).hexdigest()
+    given = (recorded or "").strip().lower()
+    if given and given != actual:
+        raise StudyFileError(
+            f"the stored copy of '{name}' does not match its recorded SHA-256 (recorded "
+            f"{given[:12]}..., actual {actual[:12]}...): the data were altered; restore the "
+            "file from a backup"
+        )
+    return actual
+
+
 def _as_mapping(items, kind, *, key) -> MappingProxyType:
     if items is None:
         return MappingProxyType({})
@@ -779,15 +793,7 @@ class DataFile:
             )
         data = bytes(self.data)
         object.__setattr__(self, "data", data)
-        actual = hashlib.sha256(data).hexdigest()
-        given = (self.sha256 or "").strip().lower()
-        if given and given != actual:
-            raise StudyFileError(
-                f"the stored copy of '{name}' does not match its recorded SHA-256 (recorded "
-                f"{given[:12]}..., actual {actual[:12]}...): the data were altered; restore the "
-                "file from a backup"
-            )
-        object.__setattr__(self, "sha256", actual)
+        object.__setattr__(self, "sha256", _verified_sha256(data, self.sha256, name))
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -862,15 +868,7 @@ class Study:
         data = bytes(self.data)
         set_(self, "data", data)
         set_(self, "data_filename", _text(self.data_filename, name="data_filename", required=True))
-        actual = hashlib.sha256(data).hexdigest()
-        given = (self.data_sha256 or "").strip().lower()
-        if given and given != actual:
-            raise StudyFileError(
-                f"the stored copy of '{self.data_filename}' does not match its recorded SHA-256 "
-                f"(recorded {given[:12]}..., actual {actual[:12]}...): the data were altered; "
-                "restore the file from a backup"
-            )
-        set_(self, "data_sha256", actual)
+        set_(self, "data_sha256", _verified_sha256(data, self.data_sha256, self.data_filename))
 
     def _init_extra_files(self) -> list[str]:
         """The further data files as a tuple; returns the names of all data files."""
