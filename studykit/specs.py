@@ -21,7 +21,14 @@ from studykit.study import (
     check_model,
 )
 
-__all__ = ["CORE_SPEC_COLUMNS", "SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
+__all__ = [
+    "CORE_SPEC_COLUMNS",
+    "SPEC_COLUMNS",
+    "match_to_data",
+    "match_to_files",
+    "read_specs",
+    "read_specs_bytes",
+]
 
 #: the columns most studies fill (the new-study page's table edits exactly these)
 CORE_SPEC_COLUMNS = (
@@ -267,6 +274,46 @@ def match_to_data(
         if c.name in criteria:
             crit_out[found.name] = criteria[c.name]
     return tuple(out), crit_out
+
+
+def match_to_files(
+    characteristics: Iterable[Characteristic],
+    criteria: Mapping[str, Criteria],
+    readings: list,
+    file_names: list[str],
+    *,
+    source: str,
+    rows: list[int] | None = None,
+) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+    """:func:`match_to_data` for a study over several data files: each characteristic is
+    matched in the file that holds it (``readings[i]`` read from ``file_names[i]``; the first
+    file whose names hold it, else the first that holds it ignoring case, else the first file)
+    and records that file as its ``source`` when it is not the first. An error names the table
+    ``source`` and the row of the characteristic (``rows[k]``; default k + 2, under a header)."""
+    chars, crit_out = [], {}
+    for k, c in enumerate(characteristics):
+        home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
+        if home is None:
+            folded = c.name.casefold()
+            home = next(
+                (i for i, m in enumerate(readings) if folded in {n.casefold() for n in m.names}),
+                0,
+            )
+        try:
+            one, crit = match_to_data(
+                [c], {n: v for n, v in criteria.items() if n == c.name}, readings[home]
+            )
+        except SpecError as exc:
+            row = (rows[k] if k < len(rows) else None) if rows is not None else k + 2
+            raise SpecError(
+                exc.detail, file=source, row=row, column=exc.column, value=exc.value
+            ) from None
+        c2 = one[0]
+        if home:
+            c2 = dataclasses.replace(c2, source=file_names[home])
+        chars.append(c2)
+        crit_out.update(crit)
+    return tuple(chars), crit_out
 
 
 def _check_chart_against_counts(c: Characteristic, found) -> None:

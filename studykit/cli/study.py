@@ -22,7 +22,6 @@ stays on record as voided.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import sys
 from pathlib import Path
@@ -30,9 +29,10 @@ from pathlib import Path
 from studykit import names
 from studykit.cli._output import write_json
 from studykit.cli.args import add_override_lock, add_who, lock_options, login_name, p12_passphrase
-from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
+from studykit.errors import DataFileError, StudyFileError, StudyInputError
+from studykit.specs import match_to_files
 from studykit.store import StudyFile
-from studykit.study import Study, match_to_data, read_specs
+from studykit.study import Study, read_specs
 
 
 def _who(args) -> str:
@@ -263,33 +263,9 @@ def run_new(args) -> int:
     else:
         specs, spec_criteria = read_specs(args.specs)
         spec_rows = _spec_rows(args.specs)
-        matched = []
-        for k, c in enumerate(specs):
-            home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
-            if home is None:
-                home = next(
-                    (
-                        i
-                        for i, m in enumerate(readings)
-                        if c.name.casefold() in {n.casefold() for n in m.names}
-                    ),
-                    0,
-                )
-            try:
-                one, crit = match_to_data(
-                    [c], {k: v for k, v in spec_criteria.items() if k == c.name}, readings[home]
-                )
-            except SpecError as exc:
-                row = spec_rows[k] if k < len(spec_rows) else None
-                raise SpecError(
-                    exc.detail, file=args.specs, row=row, column=exc.column, value=exc.value
-                ) from None
-            c2 = one[0]
-            if home:
-                c2 = dataclasses.replace(c2, source=names[home])
-            matched.append(c2)
-            criteria.update(crit)
-        chars = tuple(matched)
+        chars, criteria = match_to_files(
+            specs, spec_criteria, readings, names, source=args.specs, rows=spec_rows
+        )
     target = Path(args.studyfile)
     if target.exists() and not args.force:
         raise StudyFileError(
