@@ -21,10 +21,17 @@ from studykit.study import (
     check_model,
 )
 
-__all__ = ["SPEC_COLUMNS", "match_to_data", "read_specs", "read_specs_bytes"]
+__all__ = [
+    "CORE_SPEC_COLUMNS",
+    "SPEC_COLUMNS",
+    "match_to_data",
+    "match_to_files",
+    "read_specs",
+    "read_specs_bytes",
+]
 
-#: columns of a specifications table (CSV); only ``characteristic`` is required
-SPEC_COLUMNS = (
+#: the columns most studies fill (the new-study page's table edits exactly these)
+CORE_SPEC_COLUMNS = (
     "characteristic",
     "unit",
     "lsl",
@@ -34,6 +41,10 @@ SPEC_COLUMNS = (
     "criterion",
     "threshold",
     "basis",
+)
+#: columns of a specifications table (CSV); only ``characteristic`` is required
+SPEC_COLUMNS = (
+    *CORE_SPEC_COLUMNS,
     "confidence",
     "chart",
     "subgroup_size",
@@ -74,6 +85,43 @@ def read_specs_bytes(
     >>> chars[0].usl, crit["bore"].describe()
     (12.03, 'Cpk lower 95% bound >= 1.33')
     """
+    header, numbered_rows = _table(data, filename)
+    chars: list[Characteristic] = []
+    criteria: dict[str, Criteria] = {}
+    seen: dict[str, int] = {}
+    for r, cell in numbered_rows:
+        name = cell.get("characteristic", "")
+        if not name:
+            raise SpecError(
+                "the characteristic name is empty", file=filename, row=r, column="characteristic"
+            )
+        if name in seen:
+            raise SpecError(
+                f"'{name}' is listed twice (rows {seen[name]} and {r}): keep one row",
+                file=filename,
+                row=r,
+                column="characteristic",
+            )
+        seen[name] = r
+        c, crit = _spec_of_row(name, cell, filename, r)
+        if crit is not None:
+            criteria[c.name] = crit
+        chars.append(c)
+    return tuple(chars), criteria
+
+
+#: the criterion columns of the table -> the fields of :class:`Criteria`
+_CRITERIA_COLUMNS = {
+    "criterion": "index",
+    "threshold": "threshold",
+    "basis": "basis",
+    "confidence": "confidence",
+}
+
+
+def _table(data: bytes, filename: str) -> tuple[list[str], list[tuple[int, dict[str, str]]]]:
+    """The header (lower case) and the (row number, {column: cell text}) of each data row of
+    the table; a decimal comma becomes a point in a semicolon-separated table."""
     import csv
 
     try:
@@ -93,96 +141,81 @@ def read_specs_bytes(
     rows = [next(csv.reader([ln], delimiter=sep), []) for _, ln in numbered]
     row_numbers = [i for i, _ in numbered]
     header = [h.strip().lower().replace(" ", "_") for h in rows[0]]
-    unknown = [h for h in header if h and h not in SPEC_COLUMNS]
-    if unknown:
-        raise SpecError(
-            f"unknown column(s) {', '.join(repr(u) for u in unknown)}: the columns are "
-            f"{', '.join(SPEC_COLUMNS)}",
-            file=filename,
-            row=row_numbers[0],
-        )
-    if "characteristic" not in header:
-        raise SpecError(
-            "the header needs a 'characteristic' column naming each characteristic",
-            file=filename,
-            row=row_numbers[0],
-        )
-    chars: list[Characteristic] = []
-    criteria: dict[str, Criteria] = {}
-    seen: dict[str, int] = {}
+    _check_header(header, filename, row_numbers[0])
+    out = []
     for r, cells in zip(row_numbers[1:], rows[1:], strict=True):
         cell = {h: (cells[i].strip() if i < len(cells) else "") for i, h in enumerate(header) if h}
         if sep == ";":
             for key in ("lsl", "usl", "target", "threshold", "confidence"):
                 if re.fullmatch(r"[+-]?\d*,\d+", cell.get(key, "")):
                     cell[key] = cell[key].replace(",", ".")
-        name = cell.get("characteristic", "")
-        if not name:
-            raise SpecError(
-                "the characteristic name is empty", file=filename, row=r, column="characteristic"
-            )
-        if name in seen:
-            raise SpecError(
-                f"'{name}' is listed twice (rows {seen[name]} and {r}): keep one row",
-                file=filename,
-                row=r,
-                column="characteristic",
-            )
-        seen[name] = r
-        flag = cell.get("safety_critical", "").lower()
-        if flag not in _TRUE | _FALSE:
-            raise SpecError(
-                f"`safety_critical` ({cell['safety_critical']!r}) must be yes or no",
-                file=filename,
-                row=r,
-                column="safety_critical",
-            )
-        size = cell.get("subgroup_size", "")
-        try:
-            size_value = int(size) if size else None
-        except ValueError:
-            raise SpecError(
-                f"`subgroup_size` ({size!r}) must be a whole number",
-                file=filename,
-                row=r,
-                column="subgroup_size",
-            ) from None
-        try:
-            c = Characteristic(
-                name,
-                unit=cell.get("unit") or None,
-                lsl=cell.get("lsl"),
-                usl=cell.get("usl"),
-                target=cell.get("target"),
-                safety_critical=flag in _TRUE,
-                chart=cell.get("chart") or "auto",
-                subgroup_size=size_value,
-                size_column=cell.get("size_column") or None,
-                model=check_model(cell.get("model") or "auto"),
-                description=cell.get("description", ""),
-            )
-            if c.chart != "auto":
-                check_chart_fits(c, c.chart)
-            crit_cells = {
-                k: cell.get(k, "") for k in ("criterion", "threshold", "basis", "confidence")
-            }
-            if any(crit_cells.values()):
-                kw = {}
-                if crit_cells["criterion"]:
-                    kw["index"] = crit_cells["criterion"]
-                if crit_cells["threshold"]:
-                    kw["threshold"] = crit_cells["threshold"]
-                if crit_cells["basis"]:
-                    kw["basis"] = crit_cells["basis"]
-                if crit_cells["confidence"]:
-                    kw["confidence"] = crit_cells["confidence"]
-                crit = Criteria(**kw)
-                check_criteria_fits(c, crit)
-                criteria[c.name] = crit
-        except SpecError as exc:
-            raise SpecError(exc.detail, file=filename, row=r) from None
-        chars.append(c)
-    return tuple(chars), criteria
+        out.append((r, cell))
+    return header, out
+
+
+def _check_header(header: list[str], filename: str, row: int) -> None:
+    unknown = [h for h in header if h and h not in SPEC_COLUMNS]
+    if unknown:
+        raise SpecError(
+            f"unknown column(s) {', '.join(repr(u) for u in unknown)}: the columns are "
+            f"{', '.join(SPEC_COLUMNS)}",
+            file=filename,
+            row=row,
+        )
+    if "characteristic" not in header:
+        raise SpecError(
+            "the header needs a 'characteristic' column naming each characteristic",
+            file=filename,
+            row=row,
+        )
+
+
+def _spec_of_row(
+    name: str, cell: dict[str, str], filename: str, r: int
+) -> tuple[Characteristic, Criteria | None]:
+    """The characteristic of one row and its criterion (None: no criterion column filled)."""
+    flag = cell.get("safety_critical", "").lower()
+    if flag not in _TRUE | _FALSE:
+        raise SpecError(
+            f"`safety_critical` ({cell['safety_critical']!r}) must be yes or no",
+            file=filename,
+            row=r,
+            column="safety_critical",
+        )
+    size = cell.get("subgroup_size", "")
+    try:
+        size_value = int(size) if size else None
+    except ValueError:
+        raise SpecError(
+            f"`subgroup_size` ({size!r}) must be a whole number",
+            file=filename,
+            row=r,
+            column="subgroup_size",
+        ) from None
+    try:
+        c = Characteristic(
+            name,
+            unit=cell.get("unit") or None,
+            lsl=cell.get("lsl"),
+            usl=cell.get("usl"),
+            target=cell.get("target"),
+            safety_critical=flag in _TRUE,
+            chart=cell.get("chart") or "auto",
+            subgroup_size=size_value,
+            size_column=cell.get("size_column") or None,
+            model=check_model(cell.get("model") or "auto"),
+            description=cell.get("description", ""),
+        )
+        if c.chart != "auto":
+            check_chart_fits(c, c.chart)
+        kw = {f: cell[col] for col, f in _CRITERIA_COLUMNS.items() if cell.get(col, "")}
+        if not kw:
+            return c, None
+        crit = Criteria(**kw)
+        check_criteria_fits(c, crit)
+        return c, crit
+    except SpecError as exc:
+        raise SpecError(exc.detail, file=filename, row=r) from None
 
 
 def read_specs(path) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
@@ -241,6 +274,46 @@ def match_to_data(
         if c.name in criteria:
             crit_out[found.name] = criteria[c.name]
     return tuple(out), crit_out
+
+
+def match_to_files(
+    characteristics: Iterable[Characteristic],
+    criteria: Mapping[str, Criteria],
+    readings: list,
+    file_names: list[str],
+    *,
+    source: str,
+    rows: list[int] | None = None,
+) -> tuple[tuple[Characteristic, ...], dict[str, Criteria]]:
+    """:func:`match_to_data` for a study over several data files: each characteristic is
+    matched in the file that holds it (``readings[i]`` read from ``file_names[i]``; the first
+    file whose names hold it, else the first that holds it ignoring case, else the first file)
+    and records that file as its ``source`` when it is not the first. An error names the table
+    ``source`` and the row of the characteristic (``rows[k]``; default k + 2, under a header)."""
+    chars, crit_out = [], {}
+    for k, c in enumerate(characteristics):
+        home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
+        if home is None:
+            folded = c.name.casefold()
+            home = next(
+                (i for i, m in enumerate(readings) if folded in {n.casefold() for n in m.names}),
+                0,
+            )
+        try:
+            one, crit = match_to_data(
+                [c], {n: v for n, v in criteria.items() if n == c.name}, readings[home]
+            )
+        except SpecError as exc:
+            row = (rows[k] if k < len(rows) else None) if rows is not None else k + 2
+            raise SpecError(
+                exc.detail, file=source, row=row, column=exc.column, value=exc.value
+            ) from None
+        c2 = one[0]
+        if home:
+            c2 = dataclasses.replace(c2, source=file_names[home])
+        chars.append(c2)
+        crit_out.update(crit)
+    return tuple(chars), crit_out
 
 
 def _check_chart_against_counts(c: Characteristic, found) -> None:

@@ -114,15 +114,7 @@ def _migrate_0_to_1(conn: sqlite3.Connection) -> None:
         "CREATE TABLE audit_log (id INTEGER PRIMARY KEY AUTOINCREMENT, at TEXT NOT NULL, "
         "who TEXT NOT NULL, what TEXT NOT NULL, why TEXT NOT NULL, detail_json TEXT NOT NULL)"
     )
-    for table in (
-        "meta",
-        "data_files",
-        "characteristics",
-        "decisions",
-        "comments",
-        "signoffs",
-        "audit_log",
-    ):
+    for table in _SCHEMA1_TABLES:
         _append_only(conn, table)
 
 
@@ -189,8 +181,8 @@ def _apply_migrations(conn: sqlite3.Connection, start: int, stop: int = SCHEMA_V
 #: ``prev_hash`` of the first audit entry
 CHAIN_GENESIS = "0" * 64
 _CHAIN_FORMAT = "studykit-chain-1"
-#: tables made append-only by the migrations (their guards are checked by check_chain)
-_GUARDED = (
+#: the tables of the first schema, append-only from the start
+_SCHEMA1_TABLES = (
     "meta",
     "data_files",
     "characteristics",
@@ -198,8 +190,9 @@ _GUARDED = (
     "comments",
     "signoffs",
     "audit_log",
-    "results",
 )
+#: tables made append-only by the migrations (their guards are checked by check_chain)
+_GUARDED = (*_SCHEMA1_TABLES, "results")
 
 
 class _ChainConnection(sqlite3.Connection):
@@ -638,6 +631,38 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
         )
     entries = _table_rows(conn, "audit_log", order="id")
     claimed: dict = {}
+    hashes = _check_entries(entries, claimed, problems)
+    n_rows, signoffs = _check_rows(conn, known_blobs, claimed, problems)
+    for (t, key), (_, eid) in claimed.items():
+        problems.append(
+            (
+                eid,
+                f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
+                "missing: it was deleted outside studykit",
+            )
+        )
+    _check_signoff_heads(signoffs, hashes, problems)
+    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
+        for sig in signoff_signatures(conn):
+            if sig.status == "INVALID":
+                problems.append(
+                    (
+                        None,
+                        f"the certificate signature of sign-off #{sig.index + 1} "
+                        f"({sig.subject or 'unknown certificate'}) does not hold: "
+                        f"{sig.why}",
+                    )
+                )
+    _check_guards(conn, problems)
+    last_id, last = (
+        (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries else (0, CHAIN_GENESIS)
+    )
+    return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
+
+
+def _check_entries(entries, claimed: dict, problems: list) -> dict[int, str]:
+    """Each audit entry follows the one before it and still matches its hash; the rows it
+    claims go into ``claimed`` (a row claimed twice is a problem). Returns entry id -> hash."""
     hashes: dict[int, str] = {}
     prev, prev_id = CHAIN_GENESIS, None
     for e in entries:
@@ -681,6 +706,12 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                 claimed[k] = (r["sha256"], eid)
         except (ValueError, TypeError, KeyError):
             problems.append((eid, f"{where} has an unreadable list of rows"))
+    return hashes
+
+
+def _check_rows(conn, known_blobs, claimed: dict, problems: list) -> tuple[int, list]:
+    """Every row of the chained tables is claimed by an entry with the hash it has now (claims
+    met are taken out of ``claimed``). Returns the number of rows and the sign-off rows."""
     n_rows = 0
     signoffs = []
     for t in _chained_tables(conn):
@@ -713,14 +744,11 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                         f"audit entry {eid}, was changed outside studykit",
                     )
                 )
-    for (t, key), (_, eid) in claimed.items():
-        problems.append(
-            (
-                eid,
-                f"{t} row {json.loads(key)}, written with audit entry {eid}, is "
-                "missing: it was deleted outside studykit",
-            )
-        )
+    return n_rows, signoffs
+
+
+def _check_signoff_heads(signoffs, hashes: dict, problems: list) -> None:
+    """Every sign-off's ``chain_head`` names an entry of the chain with that hash."""
     for row in signoffs:
         head = row.get("chain_head")
         if not head:
@@ -735,17 +763,10 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                     "chain: the history before it was rewritten",
                 )
             )
-    if any('"signature"' in str(e.get("detail_json") or "") for e in entries):
-        for sig in signoff_signatures(conn):
-            if sig.status == "INVALID":
-                problems.append(
-                    (
-                        None,
-                        f"the certificate signature of sign-off #{sig.index + 1} "
-                        f"({sig.subject or 'unknown certificate'}) does not hold: "
-                        f"{sig.why}",
-                    )
-                )
+
+
+def _check_guards(conn, problems: list) -> None:
+    """The append-only guards (triggers) of the guarded tables are all in place."""
     triggers = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")}
     tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
     for t in _GUARDED:
@@ -760,10 +781,6 @@ def check_chain(conn, *, known_blobs: Mapping | None = None) -> ChainCheck:
                         f"({t}_no_{op}) was removed outside studykit",
                     )
                 )
-    last_id, last = (
-        (entries[-1]["id"], entries[-1].get("entry_hash") or "") if entries else (0, CHAIN_GENESIS)
-    )
-    return ChainCheck(len(entries), f"{last_id}:{last}", n_rows, tuple(problems))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -812,14 +829,7 @@ class AuditEntry:
     detail: dict
 
     def to_dict(self) -> dict:
-        return {
-            "id": self.id,
-            "when": self.when,
-            "who": self.who,
-            "what": self.what,
-            "why": self.why,
-            "detail": self.detail,
-        }
+        return dict(self.__dict__)  # the fields, in their order
 
 
 @dataclass(frozen=True)
@@ -838,14 +848,7 @@ class StoredResult:
     when: str
 
     def to_dict(self) -> dict:
-        return {
-            "id": self.id,
-            "kind": self.kind,
-            "characteristic": self.characteristic,
-            "payload": self.payload,
-            "who": self.who,
-            "when": self.when,
-        }
+        return dict(self.__dict__)  # the fields, in their order
 
 
 def _dumps(obj) -> str:
@@ -1081,6 +1084,16 @@ class StudyFile:
         finally:
             conn.close()
 
+    def _refuse_if_not_writable(self) -> None:
+        """A clear error when the file or its folder may not be written (nothing was changed)."""
+        why = self._not_writable()
+        if why is not None:
+            raise StudyFileError(
+                f"cannot save to study file '{self.path}': {why}; nothing was changed. "
+                "Copy the study file to a folder where you may write, or ask for write "
+                "permission"
+            ) from None
+
     @contextmanager
     def _write(self):
         conn = self._connect(write=True)
@@ -1088,13 +1101,7 @@ class StudyFile:
             try:
                 conn.execute("BEGIN IMMEDIATE")
             except sqlite3.OperationalError as exc:
-                why = self._not_writable()
-                if why is not None:
-                    raise StudyFileError(
-                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
-                        "Copy the study file to a folder where you may write, or ask for write "
-                        "permission"
-                    ) from None
+                self._refuse_if_not_writable()
                 raise StudyFileError(
                     f"study file '{self.path}' is busy or read-only ({exc}): try again, or check "
                     "that you may write to it"
@@ -1113,13 +1120,7 @@ class StudyFile:
                     raise StudyFileError(
                         _damaged(self.path, exc) + "; nothing was changed"
                     ) from None
-                why = self._not_writable()
-                if why is not None:
-                    raise StudyFileError(
-                        f"cannot save to study file '{self.path}': {why}; nothing was changed. "
-                        "Copy the study file to a folder where you may write, or ask for write "
-                        "permission"
-                    ) from None
+                self._refuse_if_not_writable()
                 raise StudyFileError(
                     f"could not save to study file '{self.path}' ({exc}); nothing was changed: "
                     "check free disk space and write permission, then try again"
@@ -1604,6 +1605,11 @@ class StudyFile:
                 )
             return saved
 
+    def _record(self, change: Callable[[Study], Study]) -> int:
+        """Save one change made by a pure method of :class:`~studykit.study.Study`; returns the
+        id of the last decision it appended (after any ``void_signoff`` an override adds)."""
+        return self._change(change)[-1]
+
     def append_decision(
         self, decision: Decision, *, override_lock: bool = False, override_reason: str | None = None
     ) -> int:
@@ -1613,115 +1619,41 @@ class StudyFile:
         approved, unless ``override_lock=True`` with ``override_reason``: then the approval and
         every other sign-off still valid are voided by ``void_signoff`` entries written first.
         """
-        ids = self._change(
+        return self._record(
             lambda s: s.with_decision(
                 decision, override_lock=override_lock, override_reason=override_reason
             )
         )
-        return ids[-1]
 
-    def exclude(
-        self,
-        characteristic: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        payload: Mapping | None = None,
-        when: str = "",
-        **lock,
-    ) -> int:
-        """Record the exclusion of one subgroup; returns the decision id."""
-        return self.append_decision(
-            Decision(
-                characteristic,
-                "exclude",
-                subgroup=subgroup,
-                reason=reason,
-                who=who,
-                automatic=automatic,
-                payload=payload or {},
-                when=when,
-            ),
-            **lock,
-        )
+    def exclude(self, characteristic: str, subgroup, *, reason: str, **options) -> int:
+        """Record the exclusion of one subgroup; returns the decision id. The options (``who``,
+        ``automatic``, ``payload``, ``when``, ``override_lock``, ``override_reason``) are those
+        of :meth:`Study.exclude <studykit.study.Study.exclude>`."""
+        return self._record(lambda s: s.exclude(characteristic, subgroup, reason=reason, **options))
 
-    def restore(
-        self,
-        characteristic: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        when: str = "",
-        **lock,
-    ) -> int:
-        """Record that an excluded subgroup comes back; returns the decision id."""
-        return self.append_decision(
-            Decision(
-                characteristic,
-                "restore",
-                subgroup=subgroup,
-                reason=reason,
-                who=who,
-                automatic=automatic,
-                when=when,
-            ),
-            **lock,
-        )
+    def restore(self, characteristic: str, subgroup, *, reason: str, **options) -> int:
+        """Record that an excluded subgroup comes back; returns the decision id. The options
+        are those of :meth:`Study.restore <studykit.study.Study.restore>`."""
+        return self._record(lambda s: s.restore(characteristic, subgroup, reason=reason, **options))
 
-    def update_spec(
-        self,
-        characteristic: str,
-        *,
-        who: str,
-        reason: str,
-        when: str = "",
-        override_lock: bool = False,
-        override_reason: str | None = None,
-        **changes,
-    ) -> int:
+    def update_spec(self, characteristic: str, *, who: str, reason: str, **changes) -> int:
         """Change specification fields (``lsl=``, ``usl=``, ``target=`` ...), recorded as a
-        ``set_spec`` decision with old and new values; returns its id."""
-        ids = self._change(
-            lambda s: s.with_spec(
-                characteristic,
-                who=who,
-                reason=reason,
-                when=when,
-                override_lock=override_lock,
-                override_reason=override_reason,
-                **changes,
-            )
+        ``set_spec`` decision with old and new values; returns its id. ``when``,
+        ``override_lock`` and ``override_reason`` are those of
+        :meth:`Study.with_spec <studykit.study.Study.with_spec>`."""
+        return self._record(
+            lambda s: s.with_spec(characteristic, who=who, reason=reason, **changes)
         )
-        return ids[-1]
 
     def update_criteria(
-        self,
-        characteristic: str,
-        criteria: Criteria,
-        *,
-        who: str,
-        reason: str,
-        when: str = "",
-        override_lock: bool = False,
-        override_reason: str | None = None,
+        self, characteristic: str, criteria: Criteria, *, who: str, reason: str, **options
     ) -> int:
-        """Change the acceptance criterion, recorded as a ``set_criteria`` decision."""
-        ids = self._change(
-            lambda s: s.with_criteria(
-                characteristic,
-                criteria,
-                who=who,
-                reason=reason,
-                when=when,
-                override_lock=override_lock,
-                override_reason=override_reason,
-            )
+        """Change the acceptance criterion, recorded as a ``set_criteria`` decision; returns its
+        id. The options (``when``, ``override_lock``, ``override_reason``) are those of
+        :meth:`Study.with_criteria <studykit.study.Study.with_criteria>`."""
+        return self._record(
+            lambda s: s.with_criteria(characteristic, criteria, who=who, reason=reason, **options)
         )
-        return ids[-1]
 
     def add_comment(
         self, text: str, *, who: str, characteristic: str | None = None, when: str = ""

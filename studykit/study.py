@@ -24,7 +24,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from types import MappingProxyType
-from typing import Any
+from typing import Any, ClassVar, Self
 
 from studykit import names
 from studykit.errors import SpecError, StudyFileError, StudyInputError
@@ -205,18 +205,26 @@ def _canonical(obj) -> str:
 # characteristic and criteria
 
 
-def _known_fields(cls, d: Mapping, what: str) -> dict:
-    """``d`` as keyword arguments of the dataclass ``cls``; a key it does not know is an error
-    (``what`` names the kind of field in the message)."""
-    known = {f.name for f in dataclasses.fields(cls)}
-    extra = sorted(set(d) - known)
-    if extra:
-        raise SpecError(f"unknown {what} field(s) {extra}: known are {sorted(known)}")
-    return dict(d)
+class _StrictRecord:
+    """A frozen record whose ``from_dict`` inverts its ``to_dict`` and refuses a key it does not
+    know (``_field_kind`` names the kind of field in the message)."""
+
+    _field_kind: ClassVar[str]
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> Self:
+        """Inverse of :meth:`to_dict`; unknown keys are an error."""
+        known = {f.name for f in dataclasses.fields(cls)}
+        extra = sorted(set(d) - known)
+        if extra:
+            raise SpecError(
+                f"unknown {cls._field_kind} field(s) {extra}: known are {sorted(known)}"
+            )
+        return cls(**dict(d))
 
 
 @dataclass(frozen=True)
-class Characteristic:
+class Characteristic(_StrictRecord):
     """One measured feature of the part, with its specification.
 
     Parameters
@@ -259,6 +267,8 @@ class Characteristic:
     >>> Characteristic("runout", usl=0.05).two_sided
     False
     """
+
+    _field_kind: ClassVar[str] = "specification"
 
     name: str
     unit: str | None = None
@@ -357,14 +367,9 @@ class Characteristic:
             out.pop("source", None)
         return out
 
-    @classmethod
-    def from_dict(cls, d: Mapping) -> Characteristic:
-        """Inverse of :meth:`to_dict`; unknown keys are an error."""
-        return cls(**_known_fields(cls, d, "specification"))
-
 
 @dataclass(frozen=True)
-class Criteria:
+class Criteria(_StrictRecord):
     """The acceptance criterion for one characteristic.
 
     Parameters
@@ -397,6 +402,8 @@ class Criteria:
     >>> Criteria(index="cpk", threshold=1.33).describe()
     'Cpk lower 95% bound >= 1.33'
     """
+
+    _field_kind: ClassVar[str] = "criteria"
 
     index: str = names.DEFAULT_CRITERION["index"]
     threshold: float = names.DEFAULT_CRITERION["threshold"]
@@ -469,11 +476,6 @@ class Criteria:
             out.pop("interval_coverage")
             out.pop("interval_confidence")
         return out
-
-    @classmethod
-    def from_dict(cls, d: Mapping) -> Criteria:
-        """Inverse of :meth:`to_dict`; unknown keys are an error."""
-        return cls(**_known_fields(cls, d, "criteria"))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -728,6 +730,20 @@ class SignOffState:
 # the study
 
 
+def _verified_sha256(data: bytes, recorded: str, name: str) -> str:
+    """The SHA-256 of a data file's stored copy, checked against the ``recorded`` one (when
+    given): a mismatch means the copy was altered."""
+    actual = hashlib.sha256(data).hexdigest()
+    given = (recorded or "").strip().lower()
+    if given and given != actual:
+        raise StudyFileError(
+            f"the stored copy of '{name}' does not match its recorded SHA-256 (recorded "
+            f"{given[:12]}..., actual {actual[:12]}...): the data were altered; restore the "
+            "file from a backup"
+        )
+    return actual
+
+
 def _as_mapping(items, kind, *, key) -> MappingProxyType:
     if items is None:
         return MappingProxyType({})
@@ -777,15 +793,7 @@ class DataFile:
             )
         data = bytes(self.data)
         object.__setattr__(self, "data", data)
-        actual = hashlib.sha256(data).hexdigest()
-        given = (self.sha256 or "").strip().lower()
-        if given and given != actual:
-            raise StudyFileError(
-                f"the stored copy of '{name}' does not match its recorded SHA-256 (recorded "
-                f"{given[:12]}..., actual {actual[:12]}...): the data were altered; restore the "
-                "file from a backup"
-            )
-        object.__setattr__(self, "sha256", actual)
+        object.__setattr__(self, "sha256", _verified_sha256(data, self.sha256, name))
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -845,6 +853,14 @@ class Study:
         set_(self, "title", _text(self.title, name="title", required=True).strip())
         set_(self, "part", _text(self.part, name="part").strip())
         set_(self, "supplier", _text(self.supplier, name="supplier").strip())
+        self._init_data()
+        names = self._init_extra_files()
+        chars = self._init_specs(names)
+        self._init_records(chars)
+
+    def _init_data(self) -> None:
+        """The data as bytes, its name, and its SHA-256 (checked against the one recorded)."""
+        set_ = object.__setattr__
         if not isinstance(self.data, bytes | bytearray | memoryview):
             raise StudyInputError(
                 f"`data` must be the raw bytes of the file, got {type(self.data).__name__}"
@@ -852,15 +868,10 @@ class Study:
         data = bytes(self.data)
         set_(self, "data", data)
         set_(self, "data_filename", _text(self.data_filename, name="data_filename", required=True))
-        actual = hashlib.sha256(data).hexdigest()
-        given = (self.data_sha256 or "").strip().lower()
-        if given and given != actual:
-            raise StudyFileError(
-                f"the stored copy of '{self.data_filename}' does not match its recorded SHA-256 "
-                f"(recorded {given[:12]}..., actual {actual[:12]}...): the data were altered; "
-                "restore the file from a backup"
-            )
-        set_(self, "data_sha256", actual)
+        set_(self, "data_sha256", _verified_sha256(data, self.data_sha256, self.data_filename))
+
+    def _init_extra_files(self) -> list[str]:
+        """The further data files as a tuple; returns the names of all data files."""
         extra = tuple(self.extra_files)
         names = [self.data_filename]
         for f in extra:
@@ -872,7 +883,13 @@ class Study:
                     "name"
                 )
             names.append(f.filename)
-        set_(self, "extra_files", extra)
+        object.__setattr__(self, "extra_files", extra)
+        return names
+
+    def _init_specs(self, names: list[str]) -> Mapping[str, Characteristic]:
+        """The specifications and criteria as read-only mappings, each checked; returns the
+        specifications."""
+        set_ = object.__setattr__
         chars = _as_mapping(self.characteristics, Characteristic, key=lambda c: c.name)
         for name, c in chars.items():
             if name != c.name:
@@ -897,6 +914,11 @@ class Study:
                 )
             check_criteria_fits(chars[name], c)
         set_(self, "criteria", crit)
+        return chars
+
+    def _init_records(self, chars: Mapping[str, Characteristic]) -> None:
+        """Decisions, comments and sign-offs as tuples of their classes; every decision names
+        a characteristic of the study (or none)."""
         for kind, seq, cls in (
             ("decisions", self.decisions, Decision),
             ("comments", self.comments, Comment),
@@ -908,7 +930,7 @@ class Study:
                     raise StudyInputError(
                         f"`{kind}` must hold {cls.__name__} objects, got {item!r}"
                     )
-            set_(self, kind, seq)
+            object.__setattr__(self, kind, seq)
         for d in self.decisions:
             if d.characteristic is not None and d.characteristic not in chars:
                 raise StudyInputError(
@@ -1198,8 +1220,21 @@ class Study:
                 study = study._apply(v)
         return study._apply(decision)
 
-    def exclude(
+    def exclude(self, name: str, subgroup, *, reason: str, **options) -> Study:
+        """Exclude ``subgroup`` of ``name`` from the analysis (with the reason on record).
+
+        ``options``: ``who``, ``automatic`` (a removal proposed by the automatic phase I),
+        ``when``, ``payload`` (a dict kept with the decision), ``override_lock`` and
+        ``override_reason`` (as for :meth:`with_decision`)."""
+        return self._subgroup_decision("exclude", name, subgroup, reason=reason, **options)
+
+    def restore(self, name: str, subgroup, *, reason: str, **options) -> Study:
+        """Bring an excluded subgroup back (``options`` as for :meth:`exclude`)."""
+        return self._subgroup_decision("restore", name, subgroup, reason=reason, **options)
+
+    def _subgroup_decision(
         self,
+        action: str,
         name: str,
         subgroup,
         *,
@@ -1210,39 +1245,15 @@ class Study:
         payload: Mapping | None = None,
         **lock,
     ) -> Study:
-        """Exclude ``subgroup`` of ``name`` from the analysis (with the reason on record)."""
         d = Decision(
             name,
-            "exclude",
+            action,
             subgroup=subgroup,
             reason=reason,
             who=who,
             when=when,
             automatic=automatic,
             payload=payload or {},
-        )
-        return self.with_decision(d, **lock)
-
-    def restore(
-        self,
-        name: str,
-        subgroup,
-        *,
-        reason: str,
-        who: str = "",
-        automatic: bool = False,
-        when: str = "",
-        **lock,
-    ) -> Study:
-        """Bring an excluded subgroup back."""
-        d = Decision(
-            name,
-            "restore",
-            subgroup=subgroup,
-            reason=reason,
-            who=who,
-            when=when,
-            automatic=automatic,
         )
         return self.with_decision(d, **lock)
 
@@ -1340,10 +1351,10 @@ class Study:
         who: str,
         reason: str,
         when: str = "",
-        override_lock=False,
-        override_reason=None,
+        **lock,
     ) -> Study:
-        """Set the acceptance criterion of ``name`` (recorded as a ``set_criteria`` decision)."""
+        """Set the acceptance criterion of ``name`` (recorded as a ``set_criteria`` decision;
+        ``override_lock``/``override_reason`` as for :meth:`with_decision`)."""
         if not isinstance(criteria, Criteria):
             raise SpecError(f"`criteria` must be a Criteria, got {criteria!r}")
         d = Decision(
@@ -1354,7 +1365,7 @@ class Study:
             when=when,
             payload={"criteria": criteria.to_dict(), "old": self.criteria_for(name).to_dict()},
         )
-        return self.with_decision(d, override_lock=override_lock, override_reason=override_reason)
+        return self.with_decision(d, **lock)
 
     def with_comment(
         self, text: str, *, who: str, characteristic: str | None = None, when: str = ""
@@ -1468,20 +1479,7 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             f"this study (known: {', '.join(chars) or 'none'})"
         )
     if d.action == "set_spec":
-        old = chars[d.characteristic]
-        new_fields = dict(d.payload.get("changes", {}))
-        if "name" in new_fields and new_fields["name"] != old.name:
-            raise SpecError("a characteristic cannot be renamed; create a new study instead")
-        known = {f.name for f in dataclasses.fields(Characteristic)}
-        unknown = sorted(set(new_fields) - known)
-        if unknown:
-            raise SpecError(
-                f"set_spec: unknown specification field(s) {unknown}: known are {sorted(known)}"
-            )
-        new = dataclasses.replace(old, **new_fields)
-        if new.name in crit:
-            check_criteria_fits(new, crit[new.name])
-        chars[new.name] = new
+        _apply_set_spec(chars, crit, d)
     elif d.action == "set_criteria":
         new_crit = Criteria.from_dict(d.payload.get("criteria", {}))
         check_criteria_fits(chars[d.characteristic], new_crit)
@@ -1509,6 +1507,24 @@ def _apply_effect(chars: dict, crit: dict, n_signoffs: int, d: Decision) -> None
             raise StudyInputError(
                 f"void_signoff: `signoff` ({idx!r}) must be the index of an existing sign-off"
             )
+
+
+def _apply_set_spec(chars: dict, crit: dict, d: Decision) -> None:
+    """Apply a ``set_spec`` decision: the changed fields of one specification (in place)."""
+    old = chars[d.characteristic]
+    new_fields = dict(d.payload.get("changes", {}))
+    if "name" in new_fields and new_fields["name"] != old.name:
+        raise SpecError("a characteristic cannot be renamed; create a new study instead")
+    known = {f.name for f in dataclasses.fields(Characteristic)}
+    unknown = sorted(set(new_fields) - known)
+    if unknown:
+        raise SpecError(
+            f"set_spec: unknown specification field(s) {unknown}: known are {sorted(known)}"
+        )
+    new = dataclasses.replace(old, **new_fields)
+    if new.name in crit:
+        check_criteria_fits(new, crit[new.name])
+    chars[new.name] = new
 
 
 #: sign-off rules that apply unless the study records others (``set_signoff_rules``)

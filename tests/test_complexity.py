@@ -24,7 +24,6 @@ LIMIT = 15
 KNOWN = {
     ("studykit/cli/analyze.py", "format_result"),
     ("studykit/cli/serve.py", "run"),
-    ("studykit/cli/study.py", "format_study"),
     ("studykit/io/assemble.py", "assemble_long"),
     ("studykit/io/assemble.py", "assemble_wide"),
     ("studykit/io/csv_reader.py", "open_csv"),
@@ -32,13 +31,6 @@ KNOWN = {
     ("studykit/io/source.py", "inspect"),
     ("studykit/io/xlsx_reader.py", "_xlsx_table"),
     ("studykit/report/pdf.py", "_characteristic_section"),
-    ("studykit/report/verify.py", "_signature_checks"),
-    ("studykit/report/verify.py", "verify_report"),
-    ("studykit/specs.py", "read_specs_bytes"),
-    ("studykit/store.py", "check_chain"),
-    ("studykit/study.py", "__post_init__"),
-    ("studykit/study.py", "_apply_effect"),
-    ("tests/test_rules.py", "_reference_rule"),
 }
 
 

@@ -131,6 +131,22 @@ def test_every_result_class_derives_from_result():
     assert len(CLASSES) >= 40
 
 
+def test_package_all_is_what_the_package_imports():
+    # studykit/stats/__init__.py re-exports whole modules with `import *`: its __all__ literal
+    # (read by type checkers) must name exactly the public names that arrive, and no module
+    import types
+
+    arrived = {
+        name
+        for name, value in vars(st).items()
+        if not name.startswith("_")
+        and not isinstance(value, types.ModuleType)
+        and name != "annotations"  # from __future__
+    }
+    assert sorted(st.__all__) == sorted(arrived)
+    assert len(st.__all__) == len(set(st.__all__))
+
+
 @pytest.mark.parametrize("cls", CLASSES, ids=lambda c: c.__name__)
 def test_result_class(cls, instances):
     assert cls in instances, f"no producer in this test makes a {cls.__name__}: add one"

@@ -49,72 +49,109 @@ def _level(value, i):
 
 def _reference_rule(rule, xs, cs, ss, lows, highs):
     """Occurrences (kind, trigger, set of points) of one rule on the kept points, in order."""
-    p = rule.params
-    n = len(xs)
+    check = _REFERENCE_CHECKS[rule.id]
     occ = []
-    for i in range(n):
-        if rule.id == "beyond_limits":
-            upper = cs[i] + p["sigmas"] * ss[i] if highs[i] is None else highs[i]
-            lower = cs[i] - p["sigmas"] * ss[i] if lows[i] is None else lows[i]
-            if xs[i] > upper:
-                occ.append(("above", i, {i}))
-            if xs[i] < lower:
-                occ.append(("below", i, {i}))
-        elif rule.id == "run":
-            length = p["length"]
-            if i >= length - 1:
-                window = range(i - length + 1, i + 1)
-                if all(xs[j] > cs[j] for j in window):
-                    occ.append(("above", i, set(window)))
-                if all(xs[j] < cs[j] for j in window):
-                    occ.append(("below", i, set(window)))
-        elif rule.id == "trend":
-            length = p["length"]
-            if i >= length - 1:
-                window = range(i - length + 1, i + 1)
-                steps = [xs[j + 1] - xs[j] for j in range(i - length + 1, i)]
-                if all(d > 0 for d in steps):
-                    occ.append(("up", i, set(window)))
-                if all(d < 0 for d in steps):
-                    occ.append(("down", i, set(window)))
-        elif rule.id == "alternation":
-            length = p["length"]
-            if i >= length - 1:
-                window = range(i - length + 1, i + 1)
-                steps = [xs[j + 1] - xs[j] for j in range(i - length + 1, i)]
-                ok = all(d != 0 for d in steps) and all(
-                    (steps[k] > 0) != (steps[k + 1] > 0) for k in range(len(steps) - 1)
-                )
-                if ok:
-                    occ.append(("alternating", i, set(window)))
-        elif rule.id in ("zone_a", "zone_b"):
-            k, m, sig = p["count"], p["window"], p["sigmas"]
-            window = range(max(0, i - m + 1), i + 1)
-            for kind, inside in (
-                ("above", lambda j, sig=sig: xs[j] > cs[j] + sig * ss[j]),
-                ("below", lambda j, sig=sig: xs[j] < cs[j] - sig * ss[j]),
-            ):
-                members = {j for j in window if inside(j)}
-                if inside(i) and len(members) >= k:
-                    occ.append((kind, i, members, set(window)))
-        elif rule.id == "hugging":
-            length, sig = p["length"], p["sigmas"]
-            if i >= length - 1:
-                window = range(i - length + 1, i + 1)
-                if all(cs[j] - sig * ss[j] <= xs[j] <= cs[j] + sig * ss[j] for j in window):
-                    occ.append(("inside", i, set(window)))
-        elif rule.id == "mixture":
-            length, sig = p["length"], p["sigmas"]
-            if i >= length - 1:
-                window = range(i - length + 1, i + 1)
-                up = [xs[j] > cs[j] + sig * ss[j] for j in window]
-                down = [xs[j] < cs[j] - sig * ss[j] for j in window]
-                if all(a or b for a, b in zip(up, down, strict=True)):
-                    if not p["both_sides"]:
-                        occ.append(("outside", i, set(window)))
-                    elif any(up) and any(down):
-                        occ.append(("both", i, set(window)))
+    for i in range(len(xs)):
+        occ += check(i, rule.params, xs, cs, ss, lows, highs)
     return occ
+
+
+def _window(i, length):
+    """The ``length`` points ending at point i, or None before there are that many."""
+    return range(i - length + 1, i + 1) if i >= length - 1 else None
+
+
+def _ref_beyond_limits(i, p, xs, cs, ss, lows, highs):
+    upper = cs[i] + p["sigmas"] * ss[i] if highs[i] is None else highs[i]
+    lower = cs[i] - p["sigmas"] * ss[i] if lows[i] is None else lows[i]
+    return [
+        (kind, i, {i}) for kind, out in (("above", xs[i] > upper), ("below", xs[i] < lower)) if out
+    ]
+
+
+def _ref_run(i, p, xs, cs, ss, lows, highs):
+    window = _window(i, p["length"])
+    if window is None:
+        return []
+    out = []
+    if all(xs[j] > cs[j] for j in window):
+        out.append(("above", i, set(window)))
+    if all(xs[j] < cs[j] for j in window):
+        out.append(("below", i, set(window)))
+    return out
+
+
+def _ref_trend(i, p, xs, cs, ss, lows, highs):
+    window = _window(i, p["length"])
+    if window is None:
+        return []
+    steps = [xs[j + 1] - xs[j] for j in window[:-1]]
+    out = []
+    if all(d > 0 for d in steps):
+        out.append(("up", i, set(window)))
+    if all(d < 0 for d in steps):
+        out.append(("down", i, set(window)))
+    return out
+
+
+def _ref_alternation(i, p, xs, cs, ss, lows, highs):
+    window = _window(i, p["length"])
+    if window is None:
+        return []
+    steps = [xs[j + 1] - xs[j] for j in window[:-1]]
+    ok = all(d != 0 for d in steps) and all(
+        (steps[k] > 0) != (steps[k + 1] > 0) for k in range(len(steps) - 1)
+    )
+    return [("alternating", i, set(window))] if ok else []
+
+
+def _ref_zone(i, p, xs, cs, ss, lows, highs):
+    k, m, sig = p["count"], p["window"], p["sigmas"]
+    window = range(max(0, i - m + 1), i + 1)
+    out = []
+    for kind, inside in (
+        ("above", lambda j: xs[j] > cs[j] + sig * ss[j]),
+        ("below", lambda j: xs[j] < cs[j] - sig * ss[j]),
+    ):
+        members = {j for j in window if inside(j)}
+        if inside(i) and len(members) >= k:
+            out.append((kind, i, members, set(window)))
+    return out
+
+
+def _ref_hugging(i, p, xs, cs, ss, lows, highs):
+    window, sig = _window(i, p["length"]), p["sigmas"]
+    if window is None:
+        return []
+    if all(cs[j] - sig * ss[j] <= xs[j] <= cs[j] + sig * ss[j] for j in window):
+        return [("inside", i, set(window))]
+    return []
+
+
+def _ref_mixture(i, p, xs, cs, ss, lows, highs):
+    window, sig = _window(i, p["length"]), p["sigmas"]
+    if window is None:
+        return []
+    up = [xs[j] > cs[j] + sig * ss[j] for j in window]
+    down = [xs[j] < cs[j] - sig * ss[j] for j in window]
+    if not all(a or b for a, b in zip(up, down, strict=True)):
+        return []
+    if not p["both_sides"]:
+        return [("outside", i, set(window))]
+    return [("both", i, set(window))] if any(up) and any(down) else []
+
+
+#: the plain-Python check of each rule at one point
+_REFERENCE_CHECKS = {
+    "beyond_limits": _ref_beyond_limits,
+    "run": _ref_run,
+    "trend": _ref_trend,
+    "alternation": _ref_alternation,
+    "zone_a": _ref_zone,
+    "zone_b": _ref_zone,
+    "hugging": _ref_hugging,
+    "mixture": _ref_mixture,
+}
 
 
 def _reference_groups(rule, occ):

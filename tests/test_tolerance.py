@@ -351,6 +351,15 @@ def test_lognormal_needs_positive_values():
         tolerance_interval([1.0, -2.0, 3.0, 4.0], model="lognormal")
 
 
+@pytest.mark.parametrize("factor", [normal_factor_one_sided, normal_factor_two_sided])
+def test_factors_refuse_degrees_of_freedom_not_positive(factor):
+    # both factors check their arguments in one step; the one-sided one returned NaN for df 0
+    with pytest.raises(StudyInputError, match="`df`"):
+        factor(10, 0.95, 0.95, df=0)
+    with pytest.raises(StudyInputError, match="`p`"):
+        factor(10, 1.5, 0.95, df=0)  # the coverage is checked before the degrees of freedom
+
+
 # ---- acceptance decision and sample size -------------------------------------------------------
 
 

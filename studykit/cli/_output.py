@@ -11,7 +11,9 @@ messages) escape newlines and tabs as well, with :func:`studykit.errors.printabl
 
 from __future__ import annotations
 
+import json
 import re
+import sys
 
 # C0 controls except tab and newline, DEL, C1 controls, Unicode bidi/zero-width/separators
 _UNSAFE = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u200b-\u200f\u2028-\u202e\u2060-\u2069]")
@@ -42,3 +44,24 @@ class EscapingWriter:
 
     def __getattr__(self, name):
         return getattr(self._stream, name)
+
+
+def write_json(obj, *, allow_nan: bool = True) -> None:
+    """Print ``obj`` as indented JSON with its non-ASCII text as it is, and a line break (the
+    ``--json`` output of every command but ``analyze`` and ``monitor``). ``allow_nan=False``
+    refuses a NaN or infinity instead of writing the non-standard ``NaN``."""
+    json.dump(obj, sys.stdout, indent=2, ensure_ascii=False, allow_nan=allow_nan)
+    sys.stdout.write("\n")
+
+
+def closing_lines(notes, caution: str | None = None) -> list[str]:
+    """The last lines of a plain-text report: its notes as a list, then the caution of a
+    safety-critical characteristic (each only when there is one).
+
+    >>> closing_lines(["2 empty cells left out"], "CAUTION")
+    ['Notes:', '  - 2 empty cells left out', 'CAUTION']
+    >>> closing_lines([])
+    []
+    """
+    lines = ["Notes:", *(f"  - {n}" for n in notes)] if notes else []
+    return lines + ([caution] if caution else [])

@@ -11,8 +11,13 @@ from studykit.errors import StudyInputError
 
 __all__ = [
     "add_override_lock",
+    "add_safety_critical",
+    "add_who",
     "analysis_options",
     "criteria_from_args",
+    "lock_options",
+    "login_name",
+    "p12_passphrase",
     "read_file_measurements",
     "spec_from_args",
 ]
@@ -23,21 +28,25 @@ def add_override_lock(parser, help_text="change an approved study anyway; voids 
     parser.add_argument("--override-lock", metavar="REASON", help=help_text)
 
 
+#: reading options a command may have, passed to ``read_measurements`` only when given
+_READ_OPTIONS = (
+    "subgroup_column",
+    "subgroup_size",
+    "sheet",
+    "stream_column",
+    "characteristic_column",
+    "value_column",
+)
+
+
 def read_file_measurements(args):
-    """The measurements of the data FILE with ``--sheet``, ``--subgroup-column`` and
-    ``--subgroup-size`` and ``--stream-column`` applied (each only when given)."""
+    """The measurements of the data FILE with ``--sheet``, ``--subgroup-column``,
+    ``--subgroup-size``, ``--stream-column``, ``--characteristic-column`` and
+    ``--value-column`` applied (each only when the command has it and it is given)."""
     from studykit.data import read_measurements
 
-    read_kw = {}
-    if getattr(args, "subgroup_column", None):
-        read_kw["subgroup_column"] = args.subgroup_column
-    if getattr(args, "subgroup_size", None):
-        read_kw["subgroup_size"] = args.subgroup_size
-    if getattr(args, "sheet", None):
-        read_kw["sheet"] = args.sheet
-    if getattr(args, "stream_column", None):
-        read_kw["stream_column"] = args.stream_column
-    return read_measurements(args.file, **read_kw)
+    read_kw = {key: getattr(args, key, None) for key in _READ_OPTIONS}
+    return read_measurements(args.file, **{k: v for k, v in read_kw.items() if v})
 
 
 def analysis_options(args):
@@ -116,3 +125,48 @@ def spec_from_args(args, name, unit, base=None):
         safety_critical=bool(base.safety_critical) if base is not None else False,
         size_column=args.size_column,
     )
+
+
+def lock_options(args) -> dict:
+    """The ``override_lock``/``override_reason`` keywords of ``--override-lock REASON`` (none
+    when the option is not given or the command has none)."""
+    reason = getattr(args, "override_lock", None)
+    return {"override_lock": True, "override_reason": reason} if reason else {}
+
+
+def add_safety_critical(parser) -> None:
+    """The ``--safety-critical`` flag of a command that takes no study file's mark."""
+    parser.add_argument(
+        "--safety-critical",
+        action="store_true",
+        help="mark the characteristic safety-critical (prints the caution)",
+    )
+
+
+def add_who(parser, help_text="your name (default: the login name)") -> None:
+    """The ``--who NAME`` option of a command that records who did something."""
+    parser.add_argument("--who", metavar="NAME", default=None, help=help_text)
+
+
+def login_name(fallback: str = "") -> str:
+    """The login name of the user running the command (``fallback`` when the system has none)."""
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no login name on this system
+        return fallback
+
+
+def p12_passphrase(p12: str, env_var: str) -> str:
+    """The passphrase of the certificate file ``p12`` from the environment variable
+    ``env_var`` (``--passphrase-env``); a clear error when it is not set."""
+    import os
+
+    passphrase = os.environ.get(env_var)
+    if passphrase is None:
+        raise StudyInputError(
+            f"the passphrase of '{p12}' is not set: put it into the environment "
+            f"variable {env_var} (or name another with --passphrase-env)"
+        )
+    return passphrase

@@ -7,9 +7,9 @@ the file, row and column, and exit status 2 (the dispatcher prints it).
 
 from __future__ import annotations
 
-import json
 import sys
 
+from studykit.cli._output import write_json
 from studykit.data import Measurements, read_measurements
 from studykit.errors import printable
 
@@ -56,8 +56,7 @@ def run(args) -> int:
         encoding=args.encoding,
     )
     if args.json:
-        json.dump(m.summary(), sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json(m.summary())
     else:
         sys.stdout.write(format_check(m))
     return 0

@@ -12,13 +12,12 @@ in the study file beside the characteristic it qualifies (kinds ``gauge_rr`` and
 
 from __future__ import annotations
 
-import getpass
-import json
 import sys
 from pathlib import Path
 
 from studykit import names
-from studykit.cli.args import add_override_lock
+from studykit.cli._output import closing_lines, write_json
+from studykit.cli.args import add_override_lock, add_who, lock_options, login_name
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -145,11 +144,7 @@ def register(subparsers) -> None:
         metavar="NAME",
         help="the characteristic the gauge measures (with --study)",
     )
-    p.add_argument(
-        "--who",
-        metavar="NAME",
-        help="name recorded with the stored result (default: the login name)",
-    )
+    add_who(p, "name recorded with the stored result (default: the login name)")
     add_override_lock(p, "store the result in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
@@ -191,10 +186,7 @@ def run(args) -> int:
     )
     try:
         result = gauge_rr(
-            table["values"],
-            table["parts"],
-            table["appraisers"],
-            trials=table["trials"],
+            **table,  # values, parts, appraisers, trials: gauge_rr's own arguments
             alpha_interaction=args.alpha_interaction,
             study_variation=args.study_variation,
             lsl=lsl,
@@ -323,17 +315,8 @@ def format_short(res: ShortGaugeResult, *, source: str = "") -> str:
     lines.append("")
     lines.append(f"Verdict: {res.status.upper()}")
     lines.append(f"  {res.message}")
-    if res.notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in res.notes]
+    lines += closing_lines(res.notes)
     return "\n".join(lines) + "\n"
-
-
-def login_name() -> str:
-    try:
-        return getpass.getuser()
-    except (OSError, KeyError):
-        return ""
 
 
 def _num(x, fmt: str = ".4g") -> str:
@@ -461,9 +444,7 @@ def format_gauge(res: GaugeResult, *, source: str = "") -> str:
     lines.append(f"  {v.message}")
     if v.advice:
         lines.append(f"  What to do: {v.advice}")
-    if res.notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in res.notes]
+    lines += closing_lines(res.notes)
     return "\n".join(lines) + "\n"
 
 
@@ -478,13 +459,8 @@ def _store_and_print(args, result, kind, columns, limits_from, text) -> int:
         payload["source_file"] = Path(args.file).name
         payload["limits_from"] = from_
         payload["columns"] = columns
-        lock = (
-            {"override_lock": True, "override_reason": args.override_lock}
-            if args.override_lock
-            else {}
-        )
         stored_id = StudyFile(args.study).attach_result(
-            kind, args.characteristic, payload, who=args.who or login_name(), **lock
+            kind, args.characteristic, payload, who=args.who or login_name(), **lock_options(args)
         )
     if args.json:
         out = result.to_dict()
@@ -495,8 +471,7 @@ def _store_and_print(args, result, kind, columns, limits_from, text) -> int:
                 "result_id": stored_id,
                 "limits_from": from_,
             }
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
+        write_json(out, allow_nan=False)
         return 0
     sys.stdout.write(text)
     if limits_from:

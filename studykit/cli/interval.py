@@ -8,10 +8,11 @@ one JSON object with ``--json``.
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 
+from studykit.cli._output import closing_lines, write_json
+from studykit.cli.args import add_safety_critical, read_file_measurements
 from studykit.errors import DataFileError, StudyInputError
 
 _MODELS = {
@@ -113,27 +114,14 @@ def register(sub) -> None:
         help="long table: column naming the characteristic of each row",
     )
     p.add_argument("--value-column", metavar="COL", help="long table: column with the values")
-    p.add_argument(
-        "--safety-critical",
-        action="store_true",
-        help="mark the characteristic safety-critical (prints the caution)",
-    )
+    add_safety_critical(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=run)
 
 
 def read_values(args, names: list[str | None]):
     """Read the file like ``analyze`` and return (measurements, [CharacteristicData, ...])."""
-    from studykit.data import read_measurements
-
-    kw = {}
-    if getattr(args, "sheet", None):
-        kw["sheet"] = args.sheet
-    if getattr(args, "characteristic_column", None):
-        kw["characteristic_column"] = args.characteristic_column
-    if getattr(args, "value_column", None):
-        kw["value_column"] = args.value_column
-    m = read_measurements(args.file, **kw)
+    m = read_file_measurements(args)
     out = []
     for name in names:
         if name is None:
@@ -269,8 +257,7 @@ def run(args) -> int:
         out["notes"] = [*pre_notes, *out["notes"]]
         out["safety_critical"] = bool(critical)
         out["caution"] = caution
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
+        write_json(out, allow_nan=False)
     else:
         sys.stdout.write(
             format_interval(res, source=source, name=data.label, notes=pre_notes, caution=caution)
@@ -362,10 +349,5 @@ def format_interval(res, *, source: str = "", name: str = "", notes=(), caution=
                 f"Parts needed:  distribution-free {free} "
                 "(all inside the specification); normal-theory " + normal
             )
-    all_notes = [*notes, *res.notes]
-    if all_notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in all_notes]
-    if caution:
-        lines.append(caution)
+    lines += closing_lines([*notes, *res.notes], caution)
     return "\n".join(lines) + "\n"

@@ -8,13 +8,19 @@ with the zone and the fitted ellipse.
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 
 import numpy as np
 
-from studykit.cli.args import add_override_lock
+from studykit.cli._output import closing_lines, write_json
+from studykit.cli.args import (
+    add_override_lock,
+    add_safety_critical,
+    add_who,
+    lock_options,
+    login_name,
+)
 from studykit.errors import DataFileError, StudyInputError
 
 FIGURE_SUFFIXES = (".png", ".pdf", ".svg")
@@ -46,11 +52,7 @@ def register(sub) -> None:
         help="write the scatter plot with the zone and fitted ellipse (.png, .pdf or .svg)",
     )
     p.add_argument("--sheet", help="XLSX sheet name")
-    p.add_argument(
-        "--safety-critical",
-        action="store_true",
-        help="mark the characteristic safety-critical (prints the caution)",
-    )
+    add_safety_critical(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument(
         "--study",
@@ -59,11 +61,7 @@ def register(sub) -> None:
         "workbook, the PDF and verify then show and check it",
     )
     p.add_argument("--name", metavar="NAME", help="name of the position study (with --study)")
-    p.add_argument(
-        "--who",
-        metavar="NAME",
-        help="name recorded with the stored study (default: the login name)",
-    )
+    add_who(p, "name recorded with the stored study (default: the login name)")
     add_override_lock(p, "store it in an approved study anyway; voids the approval")
     p.set_defaults(func=run)
 
@@ -121,7 +119,6 @@ def run(args) -> int:
     notes = [f"{n_empty} row(s) without deviations left out"] if n_empty else []
     stored_id = None
     if args.study:
-        from studykit.cli.gauge import login_name
         from studykit.positions import POSITION_KIND, position_payload
         from studykit.store import StudyFile
 
@@ -135,18 +132,13 @@ def run(args) -> int:
             columns={"x": xd.name, "y": yd.name},
             safety_critical=bool(args.safety_critical),
         )
-        lock = (
-            {"override_lock": True, "override_reason": args.override_lock}
-            if args.override_lock
-            else {}
-        )
         stored_id = StudyFile(args.study).attach_result(
             POSITION_KIND,
             None,
             payload,
             who=args.who or login_name(),
             reason=f"position study {args.name} from {Path(args.file).name}",
-            **lock,
+            **lock_options(args),
         )
     if args.figure:
         from studykit.report.position_figures import position_figure
@@ -175,8 +167,7 @@ def run(args) -> int:
                 "name": args.name,
                 "result_id": stored_id,
             }
-        json.dump(out, sys.stdout, indent=2, ensure_ascii=False, allow_nan=False)
-        sys.stdout.write("\n")
+        write_json(out, allow_nan=False)
     else:
         sys.stdout.write(
             format_position(
@@ -201,8 +192,8 @@ def format_position(res, *, source="", x="dx", y="dy", notes=(), caution=None) -
     --------
     >>> import numpy as np
     >>> from studykit.stats.position import position_study
-    >>> rng = np.random.default_rng(0)
-    >>> res = position_study(rng.normal(0, 0.02, 40), rng.normal(0, 0.03, 40), tolerance=0.2)
+    >>> turn = np.arange(40.0)  # deviations on an ellipse around nominal, one part per step
+    >>> res = position_study(0.02 * np.sin(turn), 0.03 * np.cos(turn), tolerance=0.2)
     >>> print(format_position(res).splitlines()[0])
     Zone:        diameter 0.2 around nominal; 40 parts
     """
@@ -246,10 +237,5 @@ def format_position(res, *, source="", x="dx", y="dy", notes=(), caution=None) -
             + ", ".join(str(i + 1) for i in res.outside[:20])
             + (" ..." if len(res.outside) > 20 else "")
         )
-    all_notes = [*notes, *res.notes]
-    if all_notes:
-        lines.append("Notes:")
-        lines += [f"  - {n}" for n in all_notes]
-    if caution:
-        lines.append(caution)
+    lines += closing_lines([*notes, *res.notes], caution)
     return "\n".join(lines) + "\n"

@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
 from studykit import names
+from studykit.cli.args import p12_passphrase
 from studykit.errors import StudyInputError
 
 
@@ -130,14 +130,7 @@ def run(args) -> int:
     progress = _progress(args.quiet)
     if args.notebook and Path(args.notebook).suffix.lower() != ".ipynb":
         raise StudyInputError(f"--notebook '{args.notebook}': the file name must end in .ipynb")
-    passphrase = None
-    if args.sign:
-        passphrase = os.environ.get(args.passphrase_env)
-        if passphrase is None:
-            raise StudyInputError(
-                f"the passphrase of '{args.sign}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)"
-            )
+    passphrase = p12_passphrase(args.sign, args.passphrase_env) if args.sign else None
     sign_existing = bool(args.sign and (args.sign_existing or _signed_same_study(out, args.study)))
     if args.sign and sign_existing and not args.sign_existing:
         print(f"{out} is already signed for this study state: adding a further signature.")

@@ -22,31 +22,24 @@ stays on record as voided.
 
 from __future__ import annotations
 
-import dataclasses
-import getpass
 import json
 import sys
 from pathlib import Path
 
 from studykit import names
-from studykit.cli.args import add_override_lock
-from studykit.errors import DataFileError, SpecError, StudyFileError, StudyInputError
+from studykit.cli._output import write_json
+from studykit.cli.args import add_override_lock, add_who, lock_options, login_name, p12_passphrase
+from studykit.errors import DataFileError, StudyFileError, StudyInputError
+from studykit.specs import match_to_files
 from studykit.store import StudyFile
-from studykit.study import Study, match_to_data, read_specs
-
-
-def _default_who() -> str:
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):  # no login name on this system
-        return "unknown"
+from studykit.study import Study, read_specs
 
 
 def _who(args) -> str:
     """The person named with --who, else the login name; an explicitly empty --who is refused
     (a decision or signature must not fall back to the login name by accident)."""
     if args.who is None:
-        return _default_who()
+        return login_name("unknown")
     if not args.who.strip():
         raise StudyInputError(
             "`--who` is empty: give the name of the person who decides or "
@@ -54,6 +47,27 @@ def _who(args) -> str:
             "name)"
         )
     return args.who.strip()
+
+
+_REASON_HELP = "why (kept in the audit log)"
+
+
+def _add_subject(q, *, subgroup: bool = False) -> None:
+    """The positional STUDYFILE CHARACTERISTIC (and SUBGROUP) of a change to one characteristic."""
+    q.add_argument("studyfile", metavar="STUDYFILE")
+    q.add_argument("characteristic", metavar="CHARACTERISTIC")
+    if subgroup:
+        q.add_argument("subgroup", metavar="SUBGROUP")
+
+
+def _add_change_options(
+    q, *, reason_help: str = _REASON_HELP, lock_help: str | None = None
+) -> None:
+    """``--reason``, ``--who`` and ``--override-lock`` of a subcommand that records a change
+    (``reason_help`` given: the reason is optional, as for ``rules`` without a change)."""
+    q.add_argument("--reason", required=reason_help == _REASON_HELP, help=reason_help)
+    add_who(q)
+    add_override_lock(q, *([lock_help] if lock_help else []))
 
 
 def register(subparsers) -> None:
@@ -92,7 +106,7 @@ def register(subparsers) -> None:
     new.add_argument("--title", help="study title (default: the data file's name)")
     new.add_argument("--part", default="", help="part number or name")
     new.add_argument("--supplier", default="", help="supplier")
-    new.add_argument("--who", default=None, help="your name (default: the login name)")
+    add_who(new)
     new.add_argument("--force", action="store_true", help="replace an existing study file")
     new.set_defaults(func=run_new)
 
@@ -108,12 +122,8 @@ def register(subparsers) -> None:
             help=f"{'remove' if action == 'exclude' else action} a subgroup of a "
             "characteristic from the analysis (with a reason)",
         )
-        q.add_argument("studyfile", metavar="STUDYFILE")
-        q.add_argument("characteristic", metavar="CHARACTERISTIC")
-        q.add_argument("subgroup", metavar="SUBGROUP")
-        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
-        q.add_argument("--who", default=None, help="your name (default: the login name)")
-        add_override_lock(q)
+        _add_subject(q, subgroup=True)
+        _add_change_options(q)
         q.set_defaults(func=run_decision, action=action)
 
     _register_keep(sub)
@@ -125,8 +135,7 @@ def register(subparsers) -> None:
         "chart of one characteristic. Each change is recorded as a decision with "
         "your reason; write 'none' to clear a limit or the target.",
     )
-    st.add_argument("studyfile", metavar="STUDYFILE")
-    st.add_argument("characteristic", metavar="CHARACTERISTIC")
+    _add_subject(st)
     for opt in ("lsl", "usl", "target"):
         st.add_argument(f"--{opt}", metavar="X")
     st.add_argument("--criterion", choices=("cp", "cpk", "pp", "ppk", "cpm"))
@@ -145,16 +154,14 @@ def register(subparsers) -> None:
         "--chart",
         help="auto, xbar-r, xbar-s, imr, p, np, c, u (xbar_r and X-bar-R are accepted too)",
     )
-    st.add_argument("--reason", required=True, help="why (kept in the audit log)")
-    st.add_argument("--who", default=None)
-    add_override_lock(st)
+    _add_change_options(st)
     st.set_defaults(func=run_set)
 
     com = sub.add_parser("comment", help="add a comment (allowed on an approved study)")
     com.add_argument("studyfile", metavar="STUDYFILE")
     com.add_argument("text", metavar="TEXT")
     com.add_argument("--characteristic", default=None)
-    com.add_argument("--who", default=None)
+    add_who(com)
     com.set_defaults(func=run_comment)
 
     sign = sub.add_parser("sign", help="sign the study as it stands")
@@ -169,7 +176,7 @@ def register(subparsers) -> None:
     sign.add_argument(
         "--comment", default="", help="comment; for a rejection, its reason (required)"
     )
-    sign.add_argument("--who", default=None)
+    add_who(sign)
     sign.add_argument(
         "--p12",
         metavar="P12",
@@ -204,9 +211,11 @@ def register(subparsers) -> None:
         rules.add_argument(
             f"--{key.replace('_', '-')}", choices=("on", "off"), dest=key, default=None
         )
-    rules.add_argument("--reason", help="why the rules change (required for a change)")
-    rules.add_argument("--who", default=None)
-    add_override_lock(rules, "change the rules of an approved study anyway; voids the approval")
+    _add_change_options(
+        rules,
+        reason_help="why the rules change (required for a change)",
+        lock_help="change the rules of an approved study anyway; voids the approval",
+    )
     rules.set_defaults(func=run_rules)
 
     waive = sub.add_parser(
@@ -216,12 +225,9 @@ def register(subparsers) -> None:
         "may then stand although it has no verdict. The reason is part of "
         "the study content, so earlier sign-offs no longer hold.",
     )
-    waive.add_argument("studyfile", metavar="STUDYFILE")
-    waive.add_argument("characteristic", metavar="CHARACTERISTIC")
-    waive.add_argument("--reason", required=True, help="why (kept in the audit log)")
+    _add_subject(waive)
+    _add_change_options(waive)
     waive.add_argument("--withdraw", action="store_true", help="withdraw the waiver instead")
-    waive.add_argument("--who", default=None)
-    add_override_lock(waive)
     waive.set_defaults(func=run_waive)
 
     log = sub.add_parser("log", help="print the audit log (who, when, what, why)")
@@ -257,33 +263,9 @@ def run_new(args) -> int:
     else:
         specs, spec_criteria = read_specs(args.specs)
         spec_rows = _spec_rows(args.specs)
-        matched = []
-        for k, c in enumerate(specs):
-            home = next((i for i, m in enumerate(readings) if c.name in m.names), None)
-            if home is None:
-                home = next(
-                    (
-                        i
-                        for i, m in enumerate(readings)
-                        if c.name.casefold() in {n.casefold() for n in m.names}
-                    ),
-                    0,
-                )
-            try:
-                one, crit = match_to_data(
-                    [c], {k: v for k, v in spec_criteria.items() if k == c.name}, readings[home]
-                )
-            except SpecError as exc:
-                row = spec_rows[k] if k < len(spec_rows) else None
-                raise SpecError(
-                    exc.detail, file=args.specs, row=row, column=exc.column, value=exc.value
-                ) from None
-            c2 = one[0]
-            if home:
-                c2 = dataclasses.replace(c2, source=names[home])
-            matched.append(c2)
-            criteria.update(crit)
-        chars = tuple(matched)
+        chars, criteria = match_to_files(
+            specs, spec_criteria, readings, names, source=args.specs, rows=spec_rows
+        )
     target = Path(args.studyfile)
     if target.exists() and not args.force:
         raise StudyFileError(
@@ -341,18 +323,14 @@ def _register_keep(sub) -> None:
     )
     reopen = sub.add_parser("reopen", help="withdraw a 'keep' decision (the signal is open again)")
     for q in (keep, reopen):
-        q.add_argument("studyfile", metavar="STUDYFILE")
-        q.add_argument("characteristic", metavar="CHARACTERISTIC")
-        q.add_argument("subgroup", metavar="SUBGROUP")
+        _add_subject(q, subgroup=True)
         q.add_argument(
             "--rule",
             required=True,
             help="the rule of the signal: beyond_limits, run, trend, alternation, "
             "zone_a, zone_b, hugging, mixture (or its Nelson number 1-8)",
         )
-        q.add_argument("--reason", required=True, help="why (kept in the audit log)")
-        q.add_argument("--who", default=None, help="your name (default: the login name)")
-        add_override_lock(q)
+        _add_change_options(q)
     keep.set_defaults(func=run_keep)
     reopen.set_defaults(func=run_reopen)
 
@@ -422,7 +400,7 @@ def run_keep(args) -> int:
         )
     sf.apply(
         lambda s: s.keep_signal(
-            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+            name, label, rule=rule, reason=args.reason, who=who, **lock_options(args)
         )
     )
     print(
@@ -440,7 +418,7 @@ def run_reopen(args) -> int:
     name = args.characteristic
     sf.apply(
         lambda s: s.reopen_signal(
-            name, label, rule=rule, reason=args.reason, who=who, **_lock_kw(args)
+            name, label, rule=rule, reason=args.reason, who=who, **lock_options(args)
         )
     )
     print(f"reopened the {rule} signal at subgroup {label} of '{name}'")
@@ -468,6 +446,18 @@ def _table(headers: list[str], rows: list[list[str]]) -> str:
 def format_study(study: Study, chain=None, signatures=None) -> str:
     """The study as text for a terminal (``chain``: the file's ChainCheck, ``signatures``: the
     sign-offs' certificate signatures; each shown when given)."""
+    parts = (
+        _study_header(study, chain),
+        _characteristics_lines(study),
+        _decision_lines(study),
+        _comment_lines(study),
+        _signoff_lines(study, signatures or {}),
+        _rules_and_waiver_lines(study),
+    )
+    return "\n\n".join("\n".join(lines) for lines in parts) + "\n"
+
+
+def _study_header(study: Study, chain) -> list[str]:
     out = [f"Study     {study.title}"]
     if study.part:
         out.append(f"Part      {study.part}")
@@ -489,8 +479,10 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         "State     "
         + (f"APPROVED by {holder.name} on {holder.when} (locked)" if holder else "open")
     )
-    out.append("")
-    out.append("Characteristics")
+    return out
+
+
+def _characteristics_lines(study: Study) -> list[str]:
     rows = []
     for name, c in study.characteristics.items():
         excluded = sorted(study.excluded_subgroups(name), key=lambda s: (len(s), s))
@@ -511,29 +503,14 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
                 ),
             ]
         )
-    if rows:
-        out.append(
-            _table(
-                [
-                    "name",
-                    "unit",
-                    "LSL",
-                    "target",
-                    "USL",
-                    "safety",
-                    "criterion",
-                    "chart",
-                    "model",
-                    "removed",
-                    "kept signals",
-                ],
-                rows,
-            )
-        )
-    else:
-        out.append("  (none specified)")
-    out.append("")
-    out.append(f"Decisions ({len(study.decisions)})")
+    if not rows:
+        return ["Characteristics", "  (none specified)"]
+    head = ["name", "unit", "LSL", "target", "USL", "safety", "criterion", "chart", "model"]
+    return ["Characteristics", _table([*head, "removed", "kept signals"], rows)]
+
+
+def _decision_lines(study: Study) -> list[str]:
+    out = [f"Decisions ({len(study.decisions)})"]
     for i, d in enumerate(study.decisions, start=1):
         on = f" '{d.characteristic}'" if d.characteristic else ""
         sub = f" subgroup {d.subgroup}" if d.subgroup else ""
@@ -544,20 +521,26 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         )
         if d.reason:
             out.append(f"       reason: {d.reason}")
-    out.append("")
-    out.append(f"Comments ({len(study.comments)})")
+    return out
+
+
+def _comment_lines(study: Study) -> list[str]:
+    out = [f"Comments ({len(study.comments)})"]
     for c in study.comments:
         on = f" on '{c.characteristic}'" if c.characteristic else ""
         out.append(f"  {c.when}  {c.who}{on}: {c.text}")
-    out.append("")
-    out.append(f"Sign-offs ({len(study.signoffs)})")
+    return out
+
+
+def _signoff_lines(study: Study, signatures) -> list[str]:
+    out = [f"Sign-offs ({len(study.signoffs)})"]
     for st in study.signoff_state():
         s = st.signoff
         state = "valid" if st.valid else f"VOIDED ({st.why})"
         out.append(f"  {s.when}  {s.name} ({s.role}): {s.decision} - {state}")
         if s.chain_head:
             out.append(f"       signed chain head {s.chain_head[:28]}...")
-        sig = (signatures or {}).get(st.index)
+        sig = signatures.get(st.index)
         if sig is not None and sig.status != "none":
             out.append(
                 f"       certificate signature {sig.status}: {sig.subject}, SHA-256 "
@@ -567,18 +550,18 @@ def format_study(study: Study, chain=None, signatures=None) -> str:
         if s.comment:
             out.append(f"       comment: {s.comment}")
         out.append(f"       signed content {s.digest}")
+    return out
+
+
+def _rules_and_waiver_lines(study: Study) -> list[str]:
     from studykit.signoff_rules import rules_text
 
-    out.append("")
-    out.append("Sign-off rules")
-    out.extend(f"  {line}" for line in rules_text(study))
+    out = ["Sign-off rules", *(f"  {line}" for line in rules_text(study))]
     waivers = study.waivers()
     if waivers:
-        out.append("")
-        out.append(f"Waivers ({len(waivers)})")
-        for name, d in waivers.items():
-            out.append(f"  {name}: {d.reason} ({d.who}, {d.when})")
-    return "\n".join(out) + "\n"
+        out += ["", f"Waivers ({len(waivers)})"]
+        out += [f"  {name}: {d.reason} ({d.who}, {d.when})" for name, d in waivers.items()]
+    return out
 
 
 def run_show(args) -> int:
@@ -593,19 +576,13 @@ def run_show(args) -> int:
             so["certificate_signature"] = (
                 None if sg is None or sg.status == "none" else sg.to_dict()
             )
-        json.dump(dict(d, chain=chain.to_dict()), sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json(dict(d, chain=chain.to_dict()))
     else:
         sys.stdout.write(format_study(study, chain, signatures))
     return 0
 
 
 # -- changes ------------------------------------------------------------------------------------
-
-
-def _lock_kw(args) -> dict:
-    reason = getattr(args, "override_lock", None)
-    return {"override_lock": True, "override_reason": reason} if reason else {}
 
 
 def _subgroup_labels(study: Study, name: str) -> list[str]:
@@ -646,9 +623,9 @@ def run_decision(args) -> int:
     label = args.subgroup.strip()
     _check_subgroup(sf.load(), args.characteristic, label, args.action)
     if args.action == "exclude":
-        sf.exclude(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
+        sf.exclude(args.characteristic, label, reason=args.reason, who=who, **lock_options(args))
     else:
-        sf.restore(args.characteristic, label, reason=args.reason, who=who, **_lock_kw(args))
+        sf.restore(args.characteristic, label, reason=args.reason, who=who, **lock_options(args))
     done = "removed" if args.action == "exclude" else "restored"
     print(f"{done} subgroup {label} of '{args.characteristic}'")
     return 0
@@ -704,7 +681,7 @@ def run_set(args) -> int:
     from studykit.study import Criteria, Decision
 
     who = _who(args)
-    lock = _lock_kw(args)
+    lock = lock_options(args)
     name = args.characteristic
     spec_changes = {}
     for key in ("lsl", "usl", "target"):
@@ -790,21 +767,12 @@ def run_comment(args) -> int:
 
 
 def run_sign(args) -> int:
-    import os
 
     from studykit.analysis import gauge_results
     from studykit.signoff_rules import analyse_for_signoff, make_check, open_verdicts
     from studykit.study import SignOff
 
-    certificate = None
-    if args.p12:
-        passphrase = os.environ.get(args.passphrase_env)
-        if passphrase is None:
-            raise StudyInputError(
-                f"the passphrase of '{args.p12}' is not set: put it into the environment "
-                f"variable {args.passphrase_env} (or name another with --passphrase-env)"
-            )
-        certificate = (args.p12, passphrase)
+    certificate = (args.p12, p12_passphrase(args.p12, args.passphrase_env)) if args.p12 else None
     sf = StudyFile(args.studyfile)
     who = _who(args)
     saw = None
@@ -870,7 +838,7 @@ def run_rules(args) -> int:
                     who=_who(args),
                     payload={"rules": changes},
                 ),
-                **_lock_kw(args),
+                **lock_options(args),
             )
     for line in rules_text(sf.load()):
         print(line)
@@ -900,7 +868,7 @@ def run_waive(args) -> int:
             who=_who(args),
             payload={"waived": not args.withdraw, "reason": args.reason.strip()},
         ),
-        **_lock_kw(args),
+        **lock_options(args),
     )
     print(("withdrew the waiver of" if args.withdraw else "recorded a waiver for") + f" '{name}'")
     return 0
@@ -913,8 +881,7 @@ def run_log(args) -> int:
     chain = sf.check_chain()
     entries = sf.audit_log()
     if args.json:
-        json.dump([e.to_dict() for e in entries], sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json([e.to_dict() for e in entries])
     else:
         by_entry: dict = {}
         for eid, problem in chain.problems:

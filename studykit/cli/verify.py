@@ -7,8 +7,7 @@ but the signer is not established (no --trust; the certificate's fingerprint is 
 
 from __future__ import annotations
 
-import json
-import sys
+from studykit.cli._output import write_json
 
 
 def register(sub) -> None:
@@ -63,8 +62,7 @@ def run(args) -> int:
         allow_unsigned=args.allow_unsigned,
     )
     if args.json:
-        json.dump(res.to_dict(), sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        write_json(res.to_dict())
     else:
         for c in res.checks:
             print(c.line())

@@ -281,15 +281,7 @@ def study_from_evidence(evidence: dict, data):
     ``data`` is the bytes of the first data file, or a mapping filename -> bytes holding every
     data file the report records. Comments and sign-offs come back too (they are printed).
     """
-    from studykit.study import (
-        Characteristic,
-        Comment,
-        Criteria,
-        DataFile,
-        Decision,
-        SignOff,
-        Study,
-    )
+    from studykit.study import Characteristic, Comment, Criteria, DataFile, Decision, SignOff, Study
 
     s = evidence["study"]
     try:
@@ -331,6 +323,46 @@ def study_from_evidence(evidence: dict, data):
 # signatures
 
 
+def _trust_roots(trust) -> list:
+    """The certificates given with ``--trust`` (a clear error for one that is not a certificate)."""
+    roots = []
+    for t in trust or ():
+        from pyhanko.keys import load_cert_from_pemder
+
+        try:
+            roots.append(load_cert_from_pemder(str(t)))
+        except Exception as exc:  # noqa: BLE001
+            raise StudyInputError(f"`--trust` '{t}' is not a PEM/DER certificate ({exc})") from None
+    return roots
+
+
+def _unsigned_check(trust_given: bool, allow_unsigned: bool) -> Check:
+    """The check of a report that carries no signature."""
+    if trust_given:
+        return Check(
+            "signatures",
+            "fail",
+            "UNSIGNED, but --trust asks for a signature "
+            "by a trusted certificate: the report carries none (a signature "
+            "cut off leaves exactly this)",
+        )
+    if allow_unsigned:
+        return Check(
+            "signatures",
+            "info",
+            "unsigned: the report carries no digital "
+            "signature; its content is checked because --allow-unsigned was "
+            "given",
+        )
+    return Check(
+        "signatures",
+        "fail",
+        "NOT EVIDENCE: unsigned; the report carries no "
+        "digital signature, so nothing shows who made it or that it is unchanged "
+        "(--allow-unsigned checks its content anyway)",
+    )
+
+
 def _signature_checks(
     pdf_bytes: bytes, trust, allow_unsigned: bool = False
 ) -> tuple[list[Check], bool, list[dict]]:
@@ -345,14 +377,7 @@ def _signature_checks(
 
     checks: list[Check] = []
     signers: list[dict] = []
-    roots = []
-    for t in trust or ():
-        from pyhanko.keys import load_cert_from_pemder
-
-        try:
-            roots.append(load_cert_from_pemder(str(t)))
-        except Exception as exc:  # noqa: BLE001
-            raise StudyInputError(f"`--trust` '{t}' is not a PEM/DER certificate ({exc})") from None
+    roots = _trust_roots(trust)
     root_prints = {certificate_info(r).fingerprint_sha256 for r in roots}
     try:
         reader = PdfFileReader(io.BytesIO(pdf_bytes), strict=False)
@@ -370,47 +395,7 @@ def _signature_checks(
             [],
         )
     if not sigs:
-        if roots:
-            return (
-                [
-                    Check(
-                        "signatures",
-                        "fail",
-                        "UNSIGNED, but --trust asks for a signature "
-                        "by a trusted certificate: the report carries none (a signature "
-                        "cut off leaves exactly this)",
-                    )
-                ],
-                False,
-                [],
-            )
-        if allow_unsigned:
-            return (
-                [
-                    Check(
-                        "signatures",
-                        "info",
-                        "unsigned: the report carries no digital "
-                        "signature; its content is checked because --allow-unsigned was "
-                        "given",
-                    )
-                ],
-                False,
-                [],
-            )
-        return (
-            [
-                Check(
-                    "signatures",
-                    "fail",
-                    "NOT EVIDENCE: unsigned; the report carries no "
-                    "digital signature, so nothing shows who made it or that it is unchanged "
-                    "(--allow-unsigned checks its content anyway)",
-                )
-            ],
-            False,
-            [],
-        )
+        return [_unsigned_check(bool(roots), allow_unsigned)], False, []
     vc = ValidationContext(trust_roots=roots)
     logger = logging.getLogger("pyhanko")
     level = logger.level
@@ -894,8 +879,6 @@ def verify_report(
     embedded evidence and compared with the report's page (what is drawn, its text, and marks
     added on top), so a page whited out or text added anywhere is named.
     """
-    from studykit import __version__
-    from studykit.report.pdf import render_pages
 
     path = Path(pdf_path)
     if not path.exists():
@@ -974,137 +957,178 @@ def verify_report(
             )
         )
     if rebuilt is not None:
-        cd = rebuilt.content_digest()
-        if cd == s["content_digest"]:
-            checks.append(
-                Check(
-                    "content digest",
-                    "pass",
-                    "data, specifications and decisions are those the report records",
-                )
-            )
-        else:
-            checks.append(
-                Check(
-                    "content digest",
-                    "fail",
-                    "data, specifications or decisions "
-                    f"differ from the report's (report {s['content_digest'][:12]}..., "
-                    f"now {cd[:12]}...)",
-                )
-            )
+        checks.append(_content_digest_check(rebuilt, s["content_digest"]))
         try:
             results, errors, measurements = analyze_for_report(rebuilt, evidence.get("gauges"))
         except StudyInputError as exc:
             checks.append(Check("recomputation", "fail", f"the study cannot be analysed: {exc}"))
             results, errors, measurements = {}, {}, None
-        reported = evidence.get("results", {})
-        for name in sorted(set(reported) | set(results)):
-            if name not in results:
-                checks.append(
-                    Check(
-                        f"numbers of {name}",
-                        "fail",
-                        "reported, but the recomputed "
-                        "study cannot analyse it: " + str(errors.get(name, "")),
-                    )
-                )
-                continue
-            if name not in reported:
-                checks.append(Check(f"numbers of {name}", "fail", "not in the report"))
-                continue
-            n, diffs = compare_numbers(reported[name], results[name].to_dict())
-            numbers += n
-            if diffs:
-                more = f" (and {len(diffs) - 4} more)" if len(diffs) > 4 else ""
-                checks.append(
-                    Check(
-                        f"numbers of {name}",
-                        "fail",
-                        f"{len(diffs)} difference(s) among {n} numbers compared: "
-                        + "; ".join(diffs[:4])
-                        + more,
-                    )
-                )
-            else:
-                checks.append(
-                    Check(
-                        f"numbers of {name}",
-                        "pass",
-                        f"all {n} numbers agree (relative tolerance {RELATIVE_TOLERANCE:g})",
-                    )
-                )
+        numbers += _result_checks(evidence.get("results", {}), results, errors, checks)
         numbers += _short_gauge_checks(evidence, checks)
         numbers += _position_checks(evidence, checks)
-        made_by = (evidence.get("software") or {}).get("studykit")
-        if measurements is None:
-            pass
-        elif made_by != __version__:
+        page_study = rebuilt if data is not None else None
+        pages = _redrawn_pages_check(
+            pdf_bytes,
+            evidence_bytes,
+            evidence,
+            blobs if blobs is not None and len(blobs) == len(files) else None,
+            page_study,
+            (results, errors, measurements),
+        )
+        if pages is not None:
+            checks.append(pages)
+    return result()
+
+
+def _content_digest_check(rebuilt, reported_digest: str) -> Check:
+    """The rebuilt study's content digest against the one the report records."""
+    cd = rebuilt.content_digest()
+    if cd == reported_digest:
+        return Check(
+            "content digest",
+            "pass",
+            "data, specifications and decisions are those the report records",
+        )
+    return Check(
+        "content digest",
+        "fail",
+        "data, specifications or decisions "
+        f"differ from the report's (report {reported_digest[:12]}..., "
+        f"now {cd[:12]}...)",
+    )
+
+
+def _result_checks(reported: dict, results: dict, errors: dict, checks: list) -> int:
+    """One check per characteristic: its reported numbers against the recomputed ones;
+    returns the numbers compared."""
+    numbers = 0
+    for name in sorted(set(reported) | set(results)):
+        if name not in results:
             checks.append(
                 Check(
-                    "every page",
-                    "skip",
-                    f"not redrawn: the report was made by "
-                    f"studykit {made_by}, this is {__version__}; verify with the "
-                    "version that made it",
+                    f"numbers of {name}",
+                    "fail",
+                    "reported, but the recomputed "
+                    "study cannot analyse it: " + str(errors.get(name, "")),
                 )
             )
-        elif blobs is not None and len(blobs) == len(files):
-            try:
-                page_study = rebuilt if data is not None else study_from_evidence(evidence, blobs)
-                redrawn, _ = render_pages(
-                    page_study,
-                    results,
-                    errors,
-                    measurements,
-                    evidence.get("gauges"),
-                    chain=s.get("chain"),
-                    short_gauges=evidence.get("short_gauges"),
-                    positions=evidence.get("positions"),
-                    evidence_sha=hashlib.sha256(evidence_bytes).hexdigest(),
+            continue
+        if name not in reported:
+            checks.append(Check(f"numbers of {name}", "fail", "not in the report"))
+            continue
+        n, diffs = compare_numbers(reported[name], results[name].to_dict())
+        numbers += n
+        if diffs:
+            more = f" (and {len(diffs) - 4} more)" if len(diffs) > 4 else ""
+            checks.append(
+                Check(
+                    f"numbers of {name}",
+                    "fail",
+                    f"{len(diffs)} difference(s) among {n} numbers compared: "
+                    + "; ".join(diffs[:4])
+                    + more,
                 )
-                checks.append(_pages_check(pdf_bytes, redrawn))
-            except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-                checks.append(
-                    Check(
-                        "every page",
-                        "fail",
-                        f"the pages cannot be redrawn from the embedded evidence ({exc})",
-                    )
+            )
+        else:
+            checks.append(
+                Check(
+                    f"numbers of {name}",
+                    "pass",
+                    f"all {n} numbers agree (relative tolerance {RELATIVE_TOLERANCE:g})",
                 )
-    return result()
+            )
+    return numbers
+
+
+def _redrawn_pages_check(
+    pdf_bytes: bytes, evidence_bytes: bytes, evidence: dict, blobs, page_study, analysed
+) -> Check | None:
+    """Every page redrawn from the embedded evidence and the analysis ``analysed`` (results,
+    errors, measurements) against the report's pages; ``page_study`` is the study rebuilt from
+    the data, or None to rebuild it from the evidence and ``blobs`` (every data file, or None
+    when some are missing). None when there is nothing to redraw: no analysis, or not every
+    data file; a skip when another studykit version made the report."""
+    from studykit import __version__
+    from studykit.report.pdf import render_pages
+
+    results, errors, measurements = analysed
+    made_by = (evidence.get("software") or {}).get("studykit")
+    if measurements is None:
+        return None
+    if made_by != __version__:
+        return Check(
+            "every page",
+            "skip",
+            f"not redrawn: the report was made by "
+            f"studykit {made_by}, this is {__version__}; verify with the "
+            "version that made it",
+        )
+    if blobs is None:
+        return None
+    try:
+        if page_study is None:
+            page_study = study_from_evidence(evidence, blobs)
+        redrawn, _ = render_pages(
+            page_study,
+            results,
+            errors,
+            measurements,
+            evidence.get("gauges"),
+            chain=evidence["study"].get("chain"),
+            short_gauges=evidence.get("short_gauges"),
+            positions=evidence.get("positions"),
+            evidence_sha=hashlib.sha256(evidence_bytes).hexdigest(),
+        )
+        return _pages_check(pdf_bytes, redrawn)
+    except (StudyInputError, KeyError, TypeError, ValueError) as exc:
+        return Check(
+            "every page",
+            "fail",
+            f"the pages cannot be redrawn from the embedded evidence ({exc})",
+        )
 
 
 def _short_gauge_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded short gauge study from its readings; returns numbers compared."""
     from studykit.report.gauge_error import recheck_short_study
 
-    total = 0
-    for name, payload in sorted((evidence.get("short_gauges") or {}).items()):
-        label = f"short gauge study of {name}"
-        try:
-            fresh = recheck_short_study(payload)
-        except (StudyInputError, KeyError, TypeError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its readings: {exc}"))
-            continue
-        reported = {k: v for k, v in payload.items() if k in fresh}
-        total += _compare_check(label, reported, fresh, "the readings", checks)
-    return total
+    return _recomputed_checks(
+        evidence.get("short_gauges"),
+        "short gauge study of",
+        "readings",
+        recheck_short_study,
+        lambda payload, fresh: {k: v for k, v in payload.items() if k in fresh},
+        checks,
+    )
 
 
 def _position_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded position study from its deviations; returns numbers compared."""
     from studykit.positions import recheck_position
 
+    return _recomputed_checks(
+        evidence.get("positions"),
+        "position study",
+        "deviations",
+        recheck_position,
+        lambda payload, fresh: payload.get("result") or {},
+        checks,
+    )
+
+
+def _recomputed_checks(payloads, what: str, raw: str, recheck, reported, checks: list) -> int:
+    """Recompute each embedded study ``{name: payload}`` from its ``raw`` values with
+    ``recheck(payload)`` and compare ``reported(payload, fresh)`` with it, one check per study
+    (a study that cannot be recomputed fails); returns the numbers compared."""
     total = 0
-    for name, payload in sorted((evidence.get("positions") or {}).items()):
-        label = f"position study {name}"
+    for name, payload in sorted((payloads or {}).items()):
+        label = f"{what} {name}"
         try:
-            fresh = recheck_position(payload)
+            fresh = recheck(payload)
         except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its deviations: {exc}"))
+            checks.append(Check(label, "fail", f"cannot be recomputed from its {raw}: {exc}"))
             continue
-        total += _compare_check(label, payload.get("result") or {}, fresh, "the deviations", checks)
+        total += _compare_check(label, reported(payload, fresh), fresh, f"the {raw}", checks)
     return total
 
 

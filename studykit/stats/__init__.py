@@ -10,6 +10,11 @@ notebook needs one import::
     >>> round(res.pp, 3)
     2.546
 
+Each module's ``__all__`` is re-exported whole (``from module import *``); from ``charts``,
+``constants`` and ``normality`` only the names imported below (their other public names are
+helpers shared inside this package). ``__all__`` here lists the package's names for type checkers;
+``tests/test_results.py`` checks that it holds exactly the names imported.
+
 Two functions carry the name of their module: ``studykit.stats.capability`` and
 ``studykit.stats.phase1`` are the functions here. The modules themselves are imported by their
 full name (``from studykit.stats.capability import judge``), never as attributes of this package.
@@ -17,25 +22,8 @@ full name (``from studykit.stats.capability import judge``), never as attributes
 
 from __future__ import annotations
 
-from studykit.stats.attribute import (
-    AttributeCapability,
-    DefectsPerUnit,
-    attribute_capability,
-    attribute_verdict,
-    defects_per_unit,
-    zero_defect_sample_size,
-)
-from studykit.stats.capability import (
-    BOOTSTRAP_FULL_N,
-    INDEX_NAMES,
-    TAIL_PROBABILITY,
-    CapabilityResult,
-    capability,
-    effective_df_moving_range,
-    effective_df_range,
-    effective_df_stdev,
-    moving_range_sigma,
-)
+from studykit.stats.attribute import *
+from studykit.stats.capability import *
 from studykit.stats.charts import (
     ATTRIBUTE_KINDS,
     AUTO_R_MAX_SIZE,
@@ -55,50 +43,10 @@ from studykit.stats.charts import (
     xbar_s_chart,
 )
 from studykit.stats.constants import MAX_SUBGROUP_SIZE, ChartConstants, c4, chart_constants, d2, d3
-from studykit.stats.fit import (
-    FAMILIES,
-    RANKING_RULE,
-    ROW_FIELDS,
-    Family,
-    FitRow,
-    FittedModel,
-    Ranking,
-    fit_all,
-)
-from studykit.stats.gauge import (
-    APPRAISER,
-    GAUGE_RR,
-    INTERACTION,
-    PART,
-    REPEATABILITY,
-    REPRODUCIBILITY,
-    TOTAL,
-    AnovaRow,
-    GaugeChartLimits,
-    GaugeResult,
-    GaugeVerdict,
-    RangeMethodEstimate,
-    VarianceComponent,
-    gauge_rr,
-    range_constants,
-)
-from studykit.stats.gauge_type1 import (
-    DEFAULT_K_PERCENT,
-    DEFAULT_L_SIGMAS,
-    DEFAULT_MINIMUM,
-    FEW_READINGS,
-    ShortGaugeResult,
-    short_gauge_study,
-)
-from studykit.stats.measurement_error import (
-    MAX_GAUGE_SHARE,
-    MLS_METHOD,
-    MeasurementErrorResult,
-    SigmaWithoutGauge,
-    gauge_sigma_from_stored,
-    mls_difference_interval,
-    remove_gauge_variance,
-)
+from studykit.stats.fit import *
+from studykit.stats.gauge import *
+from studykit.stats.gauge_type1 import *
+from studykit.stats.measurement_error import *
 from studykit.stats.normality import (
     PLOTTING_POSITIONS,
     AndersonDarlingResult,
@@ -109,82 +57,16 @@ from studykit.stats.normality import (
     probability_plot,
     shapiro_wilk,
 )
-from studykit.stats.order import (
-    ALPHA,
-    LIFE_TEST_WORDS,
-    MIN_VALUES,
-    TAU_SORTED,
-    OrderCheck,
-    check_order,
-)
-from studykit.stats.phase1 import (
-    MAX_REMOVED_SHARE,
-    MIN_SUBGROUPS,
-    MR_REMOVAL,
-    ChartScale,
-    Phase1Result,
-    Removal,
-    phase1,
-)
-from studykit.stats.phase2 import (
-    PLAN_FORMAT,
-    MonitorResult,
-    Phase2Plan,
-    chart_digest,
-    freeze,
-    monitor,
-)
-from studykit.stats.planning import DemonstrationPlan, PlanTable, parts_needed, planning_table
-from studykit.stats.position import (
-    ELLIPSE_LEVEL,
-    PositionResult,
-    position_study,
-    ppm_index,
-    prob_outside_circle,
-)
-from studykit.stats.result import Result, json_float
-from studykit.stats.rules import (
-    LIMITS_ONLY,
-    NELSON,
-    RULE_IDS,
-    RULE_SETS,
-    WESTERN_ELECTRIC,
-    Rule,
-    Signal,
-    evaluate,
-    parse_rules,
-)
-from studykit.stats.tolerance import (
-    MODELS,
-    TWO_SIDED_METHODS,
-    SampleSizePlan,
-    ToleranceInterval,
-    distribution_free_confidence,
-    distribution_free_sample_size,
-    normal_factor_one_sided,
-    normal_factor_two_sided,
-    normal_pass_probability,
-    normal_sample_size,
-    tolerance_interval,
-    two_sided_confidence,
-)
-from studykit.stats.transform import (
-    JOHNSON_Z_GRID,
-    NICE_LAMBDAS,
-    BoxCoxResult,
-    JohnsonResult,
-    box_cox,
-    johnson,
-)
-from studykit.stats.verdict import (
-    DEFAULT_CRITERIA,
-    Finding,
-    ModelBand,
-    Verdict,
-    diagnose,
-    judge,
-    model_band,
-)
+from studykit.stats.order import *
+from studykit.stats.phase1 import *
+from studykit.stats.phase2 import *
+from studykit.stats.planning import *
+from studykit.stats.position import *
+from studykit.stats.result import *
+from studykit.stats.rules import *
+from studykit.stats.tolerance import *
+from studykit.stats.transform import *
+from studykit.stats.verdict import *
 
 __all__ = [
     "ALPHA",

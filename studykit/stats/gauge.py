@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 
@@ -22,7 +22,6 @@ from studykit.errors import AnalysisError, SpecError
 from studykit.stats import constants
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
-from studykit.stats.result import json_float as _f
 
 __all__ = [
     "APPRAISER",
@@ -104,16 +103,6 @@ class AnovaRow(Result):
     f: float | None
     p: float | None
 
-    def to_dict(self) -> dict:
-        return {
-            "source": self.source,
-            "df": int(self.df),
-            "ss": _f(self.ss),
-            "ms": _f(self.ms),
-            "f": _f(self.f),
-            "p": _f(self.p),
-        }
-
     @classmethod
     def from_dict(cls, d: Mapping) -> AnovaRow:
         """Rebuild the row from :meth:`to_dict` (a stored result is never recomputed)."""
@@ -145,38 +134,23 @@ class VarianceComponent(Result):
     set_to_zero: bool
 
     def to_dict(self) -> dict:
-        return {
-            "name": self.name,
-            "variance": _f(self.variance),
-            "sigma": _f(self.sigma),
-            "study_variation": _f(self.study_variation),
-            "pct_contribution": _f(self.pct_contribution),
-            "pct_study_variation": _f(self.pct_study_variation),
-            "pct_tolerance": _f(self.pct_tolerance),
-            "sigma_lower": _f(self.lower),
-            "sigma_upper": _f(self.upper),
-            "interval_df": _f(self.interval_df),
-            "interval_method": self.interval_method,
-            "set_to_zero": bool(self.set_to_zero),
-        }
+        """The generated dict with the bounds named ``sigma_lower``/``sigma_upper``."""
+        return {_COMPONENT_JSON.get(k, k): v for k, v in super().to_dict().items()}
 
     @classmethod
     def from_dict(cls, d: Mapping) -> VarianceComponent:
         """Rebuild the component from :meth:`to_dict`."""
-        return cls(
-            name=d["name"],
-            variance=_nan(d["variance"]),
-            sigma=_nan(d["sigma"]),
-            study_variation=_nan(d["study_variation"]),
-            pct_contribution=d["pct_contribution"],
-            pct_study_variation=d["pct_study_variation"],
-            pct_tolerance=d["pct_tolerance"],
-            lower=d["sigma_lower"],
-            upper=d["sigma_upper"],
-            interval_df=d["interval_df"],
-            interval_method=d["interval_method"],
+        return _rebuild(
+            cls,
+            d,
+            json_names=_COMPONENT_JSON,
+            nan_floats=("variance", "sigma", "study_variation"),
             set_to_zero=bool(d["set_to_zero"]),
         )
+
+
+#: JSON names of the VarianceComponent fields that are not stored under their own name
+_COMPONENT_JSON = {"lower": "sigma_lower", "upper": "sigma_upper"}
 
 
 #: The float fields of a RangeMethodEstimate that are always numbers (NaN when undefined).
@@ -220,24 +194,13 @@ class RangeMethodEstimate(Result):
     ndc: int | None
     reproducibility_set_to_zero: bool
 
-    def to_dict(self) -> dict:
-        out: dict[str, object] = {
-            k: _f(getattr(self, k))
-            for k in (*_RANGE_METHOD_FLOATS, "pct_study_variation", "pct_tolerance")
-        }
-        out["ndc"] = self.ndc
-        out["reproducibility_set_to_zero"] = bool(self.reproducibility_set_to_zero)
-        return out
-
     @classmethod
     def from_dict(cls, d: Mapping) -> RangeMethodEstimate:
         """Rebuild the estimate from :meth:`to_dict`."""
-        floats = {k: _nan(d[k]) for k in _RANGE_METHOD_FLOATS}
-        return cls(
-            **floats,
-            pct_study_variation=d["pct_study_variation"],
-            pct_tolerance=d["pct_tolerance"],
-            ndc=d["ndc"],
+        return _rebuild(
+            cls,
+            d,
+            nan_floats=_RANGE_METHOD_FLOATS,
             reproducibility_set_to_zero=bool(d["reproducibility_set_to_zero"]),
         )
 
@@ -262,38 +225,12 @@ class GaugeChartLimits(Result):
     pct_means_outside: float
     ranges_above_ucl: tuple[tuple[str, str], ...]
 
-    def to_dict(self) -> dict:
-        out: dict[str, object] = {
-            k: _f(getattr(self, k))
-            for k in (
-                "range_centre",
-                "range_ucl",
-                "range_lcl",
-                "mean_centre",
-                "mean_ucl",
-                "mean_lcl",
-                "pct_means_outside",
-            )
-        }
-        out["ranges_above_ucl"] = [list(c) for c in self.ranges_above_ucl]
-        return out
-
     @classmethod
     def from_dict(cls, d: Mapping) -> GaugeChartLimits:
         """Rebuild the limits from :meth:`to_dict`."""
-        floats = {
-            k: _nan(d[k])
-            for k in (
-                "range_centre",
-                "range_ucl",
-                "range_lcl",
-                "mean_centre",
-                "mean_ucl",
-                "mean_lcl",
-                "pct_means_outside",
-            )
-        }
-        return cls(**floats, ranges_above_ucl=tuple(tuple(c) for c in d["ranges_above_ucl"]))
+        ranges = tuple(tuple(c) for c in d["ranges_above_ucl"])
+        floats = [f.name for f in fields(cls) if f.name != "ranges_above_ucl"]
+        return _rebuild(cls, d, nan_floats=floats, ranges_above_ucl=ranges)
 
 
 @dataclass(frozen=True)
@@ -316,38 +253,10 @@ class GaugeVerdict(Result):
     message: str
     advice: str
 
-    def to_dict(self) -> dict:
-        return {
-            "status": self.status,
-            "basis": self.basis,
-            "pct_grr_study_variation": _f(self.pct_grr_study_variation),
-            "pct_grr_tolerance": _f(self.pct_grr_tolerance),
-            "ndc": self.ndc,
-            "ndc_ok": self.ndc_ok,
-            "dominant": self.dominant,
-            "message": self.message,
-            "advice": self.advice,
-        }
-
     @classmethod
     def from_dict(cls, d: Mapping) -> GaugeVerdict:
         """Rebuild the verdict from :meth:`to_dict`."""
-        return cls(
-            **{
-                k: d[k]
-                for k in (
-                    "status",
-                    "basis",
-                    "pct_grr_study_variation",
-                    "pct_grr_tolerance",
-                    "ndc",
-                    "ndc_ok",
-                    "dominant",
-                    "message",
-                    "advice",
-                )
-            }
-        )
+        return _rebuild(cls, d)
 
 
 @dataclass(frozen=True)
@@ -393,34 +302,9 @@ class GaugeResult(Result):
         return self.component(GAUGE_RR).pct_study_variation
 
     def to_dict(self) -> dict:
-        return {
-            "kind": "gauge_rr",
-            "method": self.method,
-            "n_parts": self.n_parts,
-            "n_appraisers": self.n_appraisers,
-            "n_trials": self.n_trials,
-            "n_values": self.n_values,
-            "part_labels": list(self.part_labels),
-            "appraiser_labels": list(self.appraiser_labels),
-            "values": [[[_f(v) for v in cell] for cell in row] for row in self.values],
-            "anova_full": [row.to_dict() for row in self.anova_full],
-            "anova_used": [row.to_dict() for row in self.anova_used],
-            "interaction_p": _f(self.interaction_p),
-            "interaction_pooled": bool(self.interaction_pooled),
-            "alpha_interaction": self.alpha_interaction,
-            "components": [c.to_dict() for c in self.components],
-            "ndc": self.ndc,
-            "ndc_ratio": _f(self.ndc_ratio),
-            "study_variation": self.study_variation,
-            "lsl": _f(self.lsl),
-            "usl": _f(self.usl),
-            "tolerance": _f(self.tolerance),
-            "confidence": self.confidence,
-            "range_method": self.range_method.to_dict(),
-            "verdict": self.verdict.to_dict(),
-            "charts": self.charts.to_dict(),
-            "notes": list(self.notes),
-        }
+        """The generated dict, led by its kind and method (the readings as nested lists)."""
+        fields_ = {k: v for k, v in super().to_dict().items() if k != "method"}
+        return {"kind": "gauge_rr", "method": self.method, **fields_}
 
     @classmethod
     def from_dict(cls, d: Mapping) -> GaugeResult:
@@ -477,6 +361,18 @@ class GaugeResult(Result):
 def _nan(x) -> float:
     """Back from JSON: null (a non-finite number on the way out) becomes NaN."""
     return math.nan if x is None else float(x)
+
+
+def _rebuild(
+    cls, d: Mapping, *, json_names: Mapping[str, str] | None = None, nan_floats=(), **given
+):
+    """The result class ``cls`` from its :meth:`~studykit.stats.result.Result.to_dict` ``d``:
+    each field from the key of its name (or ``json_names[field]``) as stored, the fields in
+    ``nan_floats`` back to floats (null -> NaN), and the fields in ``given`` as given."""
+    names_ = json_names or {}
+    values = {f.name: d[names_.get(f.name, f.name)] for f in fields(cls) if f.name not in given}
+    values.update({k: _nan(values[k]) for k in nan_floats})
+    return cls(**values, **given)
 
 
 # ----------------------------------------------------------------------------------------------

@@ -61,11 +61,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from studykit.errors import StudyInputError
 from studykit.stats.lazy import scipy_stats as stats
+
+if TYPE_CHECKING:  # streams is imported where a spread test is made
+    from studykit.stats.streams import StreamTest
 
 __all__ = [
     "ALPHA",
@@ -341,7 +345,7 @@ class TimeModel:
     method: str
     components: VarianceComponents | None = None
     trend: dict | None = None
-    spread: object = None
+    spread: StreamTest | None = None
     shape: dict | None = None
     indices: dict = field(default_factory=dict)
     judged: dict | None = None
@@ -350,7 +354,8 @@ class TimeModel:
     location_limits: dict | None = None
 
     def to_dict(self) -> dict:
-        loc, spr, _ = CLASSES.get(self.cls, (None, None, None))
+        entry = CLASSES.get(self.cls) if self.cls is not None else None
+        loc, spr = (entry[0], entry[1]) if entry is not None else (None, None)
         out = {
             "class": self.cls,
             "location": loc,
@@ -608,6 +613,20 @@ def _class_stats(cls, means, n_i, ssw, lsl, usl) -> dict:
     return _percentile_indices(lo, (a + b) / 2, hi, lsl, usl)
 
 
+def _class_data(values, subgroups, cls: str, what: str):
+    """``(x, codes, k, n_i, means, ssw)`` of the readings for a class model of ``cls`` (C1, C3
+    or C4 only: ``what`` names the request in the error): subgroup codes and count, sizes,
+    means and the within sum of squares."""
+    if cls not in ("C1", "C3", "C4"):
+        raise StudyInputError(f"no {what} for class {cls!r} (only C1, C3, C4).")
+    x = np.asarray(values, dtype=float)
+    codes, k = _codes(subgroups)
+    n_i = np.bincount(codes, minlength=k).astype(float)
+    means = np.bincount(codes, weights=x, minlength=k) / n_i
+    ssw = float(np.sum((x - means[codes]) ** 2))
+    return x, codes, k, n_i, means, ssw
+
+
 def class_bound(
     values,
     subgroups,
@@ -640,18 +659,12 @@ def class_bound(
 
     Returns ``{"pp", "ppk", "pp_lower", "ppk_lower", "level", "n_boot", "seed", "method"}``.
     """
-    if cls not in ("C1", "C3", "C4"):
-        raise StudyInputError(f"no class-method bound for class {cls!r} (only C1, C3, C4).")
-    x = np.asarray(values, dtype=float)
-    codes, k = _codes(subgroups)
-    n_i = np.bincount(codes, minlength=k).astype(float)
-    means = np.bincount(codes, weights=x, minlength=k) / n_i
-    ssw = float(np.sum((x - means[codes]) ** 2))
+    x, codes, k, n_i, means, ssw = _class_data(values, subgroups, cls, "class-method bound")
     point = _class_stats(cls, means[None, :], n_i, np.array([ssw]), lsl, usl)
     centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     seed = _seed_from(x, codes) if seed is None else int(seed)
     draws = _class_draws(cls, centre, sw2, sb2, n_i, n_boot, seed, lsl, usl)
-    out = {
+    out: dict[str, Any] = {
         "pp": None if point["pp"] is None else float(point["pp"][0]),
         "ppk": None if point["ppk"] is None else float(point["ppk"][0]),
         "pp_lower": None,
@@ -741,13 +754,7 @@ def class_limits(values, subgroups, cls: str) -> dict:
     >>> out["labels"], out["beyond"]
     (['1', '2', '3', '4'], [])
     """
-    if cls not in ("C1", "C3", "C4"):
-        raise StudyInputError(f"no class-model limits for class {cls!r} (only C1, C3, C4).")
-    x = np.asarray(values, dtype=float)
-    codes, k = _codes(subgroups)
-    n_i = np.bincount(codes, minlength=k).astype(float)
-    means = np.bincount(codes, weights=x, minlength=k) / n_i
-    ssw = float(np.sum((x - means[codes]) ** 2))
+    x, codes, k, n_i, means, ssw = _class_data(values, subgroups, cls, "class-model limits")
     centre, sw2, sb2 = _class_model(cls, x, codes, means, n_i, ssw)
     half = 3.0 * np.sqrt(sb2 + sw2 / n_i)
     labels = list(dict.fromkeys(np.asarray(subgroups).astype(str).reshape(-1).tolist()))

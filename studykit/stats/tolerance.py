@@ -188,6 +188,16 @@ def two_sided_confidence(k: float, n: int, p: float, *, df: float | None = None)
     return float(np.sum(_W * stats.chi2.sf(nu * r**2 / k**2, nu)))
 
 
+def _factor_args(n, p, c, df) -> tuple[int, float, float, float]:
+    """The checked sample size, coverage and confidence of a normal factor, and the degrees of
+    freedom of s (``df``, default n - 1; must be positive)."""
+    n, p, c = _size(n), _level(p, "p"), _level(c, "c")
+    nu = float(n - 1 if df is None else df)
+    if not nu > 0:
+        raise StudyInputError(f"`df` ({df!r}) must be positive.")
+    return n, p, c, nu
+
+
 def _howe(n: int, p: float, c: float, nu: float) -> float:
     z = special.ndtri(0.5 * (1.0 + p))
     chi = stats.chi2.ppf(1.0 - c, nu)
@@ -225,6 +235,7 @@ def normal_factor_two_sided(
     Returns
     -------
     float
+        The factor k of the two limits.
 
     References
     ----------
@@ -238,12 +249,7 @@ def normal_factor_two_sided(
     >>> round(normal_factor_two_sided(43, 0.90, 0.99, method="howe"), 4)  # NIST 7.2.6.3
     2.2173
     """
-    n = _size(n)
-    p = _level(p, "p")
-    c = _level(c, "c")
-    nu = float(n - 1 if df is None else df)
-    if not nu > 0:
-        raise StudyInputError(f"`df` ({df!r}) must be positive.")
+    n, p, c, nu = _factor_args(n, p, c, df)
     if method == "howe":
         return _howe(n, p, c, nu)
     if method == "wald_wolfowitz":
@@ -281,22 +287,20 @@ def normal_factor_one_sided(
 
     Parameters
     ----------
-    n : int
-        Sample size (>= 2).
-    p, c : float
-        Coverage and confidence, each in (0, 1).
+    n, p, c, df
+        Sample size, coverage, confidence and degrees of freedom of s, as in
+        :func:`normal_factor_two_sided`.
     method : {"exact", "natrella"}
         ``"exact"``: k = t'_{c}(nu, delta) / sqrt(n), the c-quantile of the noncentral t
         distribution with nu degrees of freedom and noncentrality delta = z_p sqrt(n)
         (``scipy.stats.nct.ppf(c, nu, z_p * sqrt(n)) / sqrt(n)``). ``"natrella"``: the
         large-sample approximation k = (z_p + sqrt(z_p^2 - a b)) / a, a = 1 - z_c^2 / (2 nu),
         b = z_p^2 - z_c^2 / n (Natrella 1963; NIST/SEMATECH e-Handbook 7.2.6.3).
-    df : float, optional
-        Degrees of freedom of s (default n - 1).
 
     Returns
     -------
     float
+        The factor k of the one limit.
 
     References
     ----------
@@ -308,10 +312,7 @@ def normal_factor_one_sided(
     >>> round(normal_factor_one_sided(10, 0.95, 0.95), 3)  # Montgomery & Runger Table XII
     2.911
     """
-    n = _size(n)
-    p = _level(p, "p")
-    c = _level(c, "c")
-    nu = float(n - 1 if df is None else df)
+    n, p, c, nu = _factor_args(n, p, c, df)
     zp = float(special.ndtri(p))
     if method == "natrella":
         zc = float(special.ndtri(c))

@@ -17,7 +17,6 @@ takes a file *name*, never a path.
 from __future__ import annotations
 
 import csv
-import dataclasses
 import io
 import os
 import re
@@ -26,8 +25,9 @@ from pathlib import Path
 import ipywidgets as widgets
 
 from studykit.app.widgets import esc, guarded, html_box
-from studykit.errors import SpecError, StudyFileError, StudyInputError
-from studykit.study import BASES, INDICES, Criteria, match_to_data, read_specs_bytes
+from studykit.errors import StudyFileError, StudyInputError
+from studykit.specs import CORE_SPEC_COLUMNS, match_to_files
+from studykit.study import BASES, INDICES, Criteria, read_specs_bytes
 
 __all__ = [
     "ENV_NEW_DIR",
@@ -41,17 +41,7 @@ __all__ = [
 ENV_NEW_DIR = "STUDYKIT_NEW_DIR"
 #: how the page's table is named in messages (as the CLI names the --specs file)
 TABLE_NAME = "specification table (in the page)"
-SPEC_COLUMNS = (
-    "characteristic",
-    "unit",
-    "lsl",
-    "usl",
-    "target",
-    "safety_critical",
-    "criterion",
-    "threshold",
-    "basis",
-)
+SPEC_COLUMNS = CORE_SPEC_COLUMNS
 
 _NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.\-]{0,99}$")
 
@@ -155,22 +145,7 @@ def create_study_from_files(path, files, rows, *, title: str, who: str, part: st
         )
     specs, spec_criteria = read_specs_bytes(specs_csv(rows), TABLE_NAME)
     readings = [f[2] for f in files]
-    chars, criteria = [], {}
-    for k, c in enumerate(specs):
-        home = next((i for i, m in enumerate(readings) if c.name in m.names), 0)
-        try:
-            one, crit = match_to_data(
-                [c], {n: v for n, v in spec_criteria.items() if n == c.name}, readings[home]
-            )
-        except SpecError as exc:
-            raise SpecError(
-                exc.detail, file=TABLE_NAME, row=k + 2, column=exc.column, value=exc.value
-            ) from None
-        c2 = one[0]
-        if home:
-            c2 = dataclasses.replace(c2, source=names[home])
-        chars.append(c2)
-        criteria.update(crit)
+    chars, criteria = match_to_files(specs, spec_criteria, readings, names, source=TABLE_NAME)
     path = Path(path)
     if path.exists():
         raise StudyFileError(f"the study file '{path.name}' already exists: choose another name")
