@@ -69,8 +69,29 @@ def register(sub) -> None:
         "file, recomputes every number of the report step by step with the studykit "
         "library and compares them with the PDF",
     )
+    p.add_argument(
+        "--jobs",
+        type=_jobs,
+        default=None,
+        metavar="N",
+        help="processes that analyse the characteristics and draw the figures (default: the "
+        "cores this process may use; 1: everything in this process). The PDF is the same for "
+        "any number",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
+
+
+def _jobs(text: str) -> int:
+    import argparse
+
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"--jobs {text!r}: give a whole number of at least 1")
+    return n
 
 
 def _progress(quiet: bool):
@@ -151,7 +172,10 @@ def run(args) -> int:
                 "-o (signed evidence is never overwritten)"
             )
     if not sign_existing:
-        info = build_report(args.study, out, progress=progress)
+        from studykit.batch import default_jobs
+
+        jobs = default_jobs() if args.jobs is None else args.jobs
+        info = build_report(args.study, out, progress=progress, workers=jobs)
         print(
             f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
             f"{info.seconds:.1f} s)."
