@@ -94,6 +94,14 @@ def _jobs(text: str) -> int:
     return n
 
 
+def _cores() -> int:
+    """Cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not Linux
+        return max(1, os.cpu_count() or 1)
+
+
 def _progress(quiet: bool):
     if quiet:
         return None
@@ -172,9 +180,7 @@ def run(args) -> int:
                 "-o (signed evidence is never overwritten)"
             )
     if not sign_existing:
-        from studykit.batch import default_jobs
-
-        jobs = default_jobs() if args.jobs is None else args.jobs
+        jobs = _cores() if args.jobs is None else args.jobs
         info = build_report(args.study, out, progress=progress, workers=jobs)
         print(
             f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
