@@ -266,11 +266,24 @@ def _analyze_in_worker(name: str):
     return _analyze_one(study, name, measurements, gauges)
 
 
+def _forked_pool(workers: int):
+    """A pool of ``workers`` forked processes. The objects that exist now are frozen out of the
+    cyclic garbage collector first, so the workers' collections do not touch (and so copy) every
+    page they inherit; this process collects them again afterwards as usual."""
+    import gc
+    import multiprocessing
+
+    gc.freeze()
+    try:
+        return multiprocessing.get_context("fork").Pool(workers)
+    finally:
+        gc.unfreeze()
+
+
 def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
     """(results, errors) of every characteristic, in the study's order: the first analysed
     here (which also loads the statistics modules once, before the fork), the others by
     ``workers`` forked processes; each result comes back pickled (a plain copy)."""
-    import multiprocessing
 
     global _ANALYSIS_JOB
     names = study.characteristic_names
@@ -286,7 +299,7 @@ def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
     keep(0, names[0], _analyze_one(study, names[0], measurements, gauges))
     _ANALYSIS_JOB = (study, measurements, gauges)
     try:
-        with multiprocessing.get_context("fork").Pool(min(workers, len(names) - 1)) as pool:
+        with _forked_pool(min(workers, len(names) - 1)) as pool:
             outcomes = pool.imap(_analyze_in_worker, names[1:])
             for i, (name, outcome) in enumerate(zip(names[1:], outcomes, strict=True), start=1):
                 keep(i, name, outcome)
@@ -658,7 +671,7 @@ class _FigureFeed:
             first = self.order[0]
             self.first = section_images(self.results[first], _raw_values(self.measurements, first))
             _FEED_JOB = (self.results, self.measurements)
-            self.pool = multiprocessing.get_context("fork").Pool(workers)
+            self.pool = _forked_pool(workers)
             self.next = 1
             for _ in range(2 * workers):
                 self._submit()
