@@ -266,6 +266,20 @@ def _analyze_in_worker(name: str):
     return _analyze_one(study, name, measurements, gauges)
 
 
+def _large_buffers_returned() -> None:
+    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
+    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
+    stay in the heap after use. Without glibc nothing happens."""
+    import ctypes
+    import ctypes.util
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        libc.mallopt(-3, 256 * 1024)  # M_MMAP_THRESHOLD
+    except (OSError, AttributeError):
+        pass
+
+
 def _forked_pool(workers: int):
     """A pool of ``workers`` forked processes. The objects that exist now are frozen out of the
     cyclic garbage collector first, so the workers' collections do not touch (and so copy) every
@@ -671,6 +685,7 @@ class _FigureFeed:
             first = self.order[0]
             self.first = section_images(self.results[first], _raw_values(self.measurements, first))
             _FEED_JOB = (self.results, self.measurements)
+            _large_buffers_returned()
             self.pool = _forked_pool(workers)
             self.next = 1
             for _ in range(2 * workers):
@@ -695,7 +710,10 @@ class _FigureFeed:
         if want != name:  # sections are laid out in the study's order
             raise RuntimeError(f"figure feed out of order: {name} asked, {want} ready")
         self._submit()
-        return {key: Image.frombytes("RGB", size, data) for key, (size, data) in job.get().items()}
+        return {
+            key: Image.frombuffer("RGB", size, data, "raw", "RGB", 0, 1)
+            for key, (size, data) in job.get().items()
+        }
 
     def close(self) -> None:
         global _FEED_JOB
