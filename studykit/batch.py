@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import time
 import warnings
 from collections.abc import Callable, Iterable, Mapping
@@ -30,6 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from studykit.errors import StudyInputError
+from studykit.runtime import available_cores
 from studykit.stats.result import json_float as _f
 
 __all__ = [
@@ -336,11 +336,8 @@ def _build_tasks(
 
 
 def default_jobs() -> int:
-    """Cores this process may use."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # pragma: no cover - not Linux
-        return max(1, os.cpu_count() or 1)
+    """Cores this process may use (:func:`studykit.runtime.available_cores`)."""
+    return available_cores()
 
 
 def run_many(

@@ -19,7 +19,7 @@ from __future__ import annotations
 import os
 from collections.abc import MutableMapping
 
-__all__ = ["BLAS_THREAD_VARS", "one_blas_thread"]
+__all__ = ["BLAS_THREAD_VARS", "available_cores", "one_blas_thread"]
 
 #: The thread-count variables of OpenBLAS, OpenMP and MKL.
 BLAS_THREAD_VARS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
@@ -33,3 +33,11 @@ def one_blas_thread(env: MutableMapping[str, str] | None = None) -> MutableMappi
     for name in BLAS_THREAD_VARS:
         target.setdefault(name, "1")
     return target
+
+
+def available_cores() -> int:
+    """Cores this process may use (its CPU affinity where the system has one), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)

@@ -66,3 +66,17 @@ def test_both_commands_use_the_shared_builders():
         assert getattr(batch_cli, name) is getattr(cli_args, name)
     for old in ("_options", "_criteria", "_spec"):
         assert not hasattr(analyze_cli, old)
+
+
+def test_jobs_option_refuses_fewer_than_one(capsys):
+    # analyze --jobs and report --jobs share one argparse type (cli/args.jobs_count)
+    from studykit.cli import main
+
+    for argv in (
+        ["analyze", "x.csv", "--all", "--jobs", "0"],
+        ["report", "x.study", "--jobs", "a"],
+    ):
+        with pytest.raises(SystemExit) as exc:
+            main(argv)
+        assert exc.value.code == 2
+        assert "give a whole number of at least 1" in capsys.readouterr().err

@@ -150,6 +150,19 @@ def test_same_study_gives_the_same_bytes(tmp_path):
     assert set(a.signature_boxes) == {"prepared", "reviewed", "approved"}
 
 
+def test_worker_processes_give_the_same_bytes(demo_report, tmp_path):
+    # analysis and figures in two forked processes: the same PDF, byte for byte, as in one
+    # process (the demo study has measured and counted characteristics and a gauge section)
+    study_path, pdf, info, calls = demo_report
+    seen = []
+    par = build_report(
+        study_path, tmp_path / "par.pdf", workers=2, progress=lambda *a: seen.append(a)
+    )
+    assert (tmp_path / "par.pdf").read_bytes() == pdf.read_bytes()
+    assert par.evidence_sha256 == info.evidence_sha256
+    assert seen == calls  # same progress lines in the same order
+
+
 def test_changed_decision_changes_the_report(tmp_path):
     study = small_study(tmp_path)
     a = build_report(study, tmp_path / "a.pdf")

@@ -228,3 +228,16 @@ def test_cli_keygen_report_sign(signed, tmp_path, monkeypatch, capsys):
     )
     assert "SK_TEST_PW" in capsys.readouterr().err
     assert not (tmp_path / "r2.pdf").exists()  # refused before any work
+
+
+def test_signature_count_with_and_without_signatures(signed):
+    # the quick answer for a file without /ByteRange must agree with pyHanko's own count
+    # (PdfFileReader.embedded_signatures) on unsigned, once- and twice-signed reports
+    from studykit.report.signing import signature_count
+
+    tmp = signed[0]
+    for name, expected in (("r.pdf", 0), ("s1.pdf", 1), ("s2.pdf", 2)):
+        data = (tmp / name).read_bytes()
+        with open(tmp / name, "rb") as f:
+            assert len(PdfFileReader(f, strict=False).embedded_signatures) == expected
+        assert signature_count(data) == expected

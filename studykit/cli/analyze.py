@@ -10,6 +10,7 @@ from studykit import names
 from studykit.cli.args import (
     analysis_options,
     criteria_from_args,
+    jobs_count,
     read_file_measurements,
     spec_from_args,
 )
@@ -148,7 +149,9 @@ def register(sub) -> None:
         help="judge the lower bound (default) or the estimate",
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--jobs", type=int, default=None, help="--all: worker processes")
+    p.add_argument(
+        "--jobs", type=jobs_count, default=None, metavar="N", help="--all: worker processes"
+    )
     p.add_argument(
         "--scheduler",
         metavar="ADDRESS",

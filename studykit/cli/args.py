@@ -7,6 +7,8 @@ options from the same arguments here, so the two cannot drift apart.
 
 from __future__ import annotations
 
+import argparse
+
 from studykit.errors import StudyInputError
 
 __all__ = [
@@ -15,6 +17,7 @@ __all__ = [
     "add_who",
     "analysis_options",
     "criteria_from_args",
+    "jobs_count",
     "lock_options",
     "login_name",
     "p12_passphrase",
@@ -170,3 +173,14 @@ def p12_passphrase(p12: str, env_var: str) -> str:
             f"variable {env_var} (or name another with --passphrase-env)"
         )
     return passphrase
+
+
+def jobs_count(text: str) -> int:
+    """argparse type of ``--jobs``: a whole number of at least 1."""
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"--jobs {text!r}: give a whole number of at least 1")
+    return n

@@ -6,8 +6,9 @@ import sys
 from pathlib import Path
 
 from studykit import names
-from studykit.cli.args import p12_passphrase
+from studykit.cli.args import jobs_count, p12_passphrase
 from studykit.errors import StudyInputError
+from studykit.runtime import available_cores
 
 
 def register(sub) -> None:
@@ -68,6 +69,15 @@ def register(sub) -> None:
         help="also write the reproducible analysis notebook: it opens the study "
         "file, recomputes every number of the report step by step with the studykit "
         "library and compares them with the PDF",
+    )
+    p.add_argument(
+        "--jobs",
+        type=jobs_count,
+        default=None,
+        metavar="N",
+        help="processes that analyse the characteristics and draw the figures (default: the "
+        "cores this process may use; 1: everything in this process). The PDF is the same for "
+        "any number",
     )
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     p.set_defaults(func=run)
@@ -144,7 +154,8 @@ def run(args) -> int:
                 "-o (signed evidence is never overwritten)"
             )
     if not sign_existing:
-        info = build_report(args.study, out, progress=progress)
+        jobs = available_cores() if args.jobs is None else args.jobs
+        info = build_report(args.study, out, progress=progress, workers=jobs)
         print(
             f"Wrote {out} ({info.pages} pages, {len(info.characteristics)} characteristic(s), "
             f"{info.seconds:.1f} s)."

@@ -91,6 +91,32 @@ def figure_image(fig: Figure, *, dpi: int = 150):
         return img.convert("RGB")
 
 
+def settle_titles(fig: Figure) -> None:
+    """Skip matplotlib's automatic title placement on each axes where it cannot move the
+    title: with the tick labels at the bottom, no twin or inset axes and no offset or exponent
+    text on the y axis, it leaves the title at the top of the axes anyway, after measuring every
+    y tick label once more (a seventh of the drawing time). Call it when the figure is complete;
+    the pixels stay the same."""
+    for ax in fig.axes:
+        if not hasattr(ax, "_autotitlepos") or ax.child_axes:
+            continue
+        if ax.xaxis.get_ticks_position() in ("top", "unknown"):
+            continue
+        if (
+            ax.xaxis.get_label_position() == "top"
+            or len(ax.get_shared_x_axes().get_siblings(ax)) > 1
+        ):
+            continue
+        if len(ax.get_shared_y_axes().get_siblings(ax)) > 1:
+            continue
+        y = ax.yaxis
+        fmt = y.get_major_formatter()
+        fmt.format_ticks(y.get_majorticklocs())
+        if fmt.get_offset():
+            continue
+        ax._autotitlepos = False  # the position matplotlib would have settled on: y = 1
+
+
 def set_margins(
     fig: Figure, *, left=0.8, right=0.85, top=0.35, bottom=0.5, hspace=0.75, wspace=0.8
 ) -> None:
@@ -349,6 +375,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
             bbox_to_anchor=(0.5, 0.0),
             columnspacing=1.5,
         )
+        settle_titles(fig)
     return fig
 
 
@@ -471,6 +498,7 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         tidy_axes(ax1, "Distribution of the values", "Density", result.characteristic + unit)
         _paper_legend(ax1)
         _probability_panel(ax2, result, unit)
+        settle_titles(fig)
     return fig
 
 

@@ -218,24 +218,108 @@ def _load_with_chain(study_or_path):
 
 
 def analyze_for_report(
-    study, gauges: Mapping | None = None, *, progress: Callable[[int, int, str], None] | None = None
+    study,
+    gauges: Mapping | None = None,
+    *,
+    progress: Callable[[int, int, str], None] | None = None,
+    workers: int = 1,
 ):
     """Analyse every characteristic as the report does: (results, errors, measurements).
 
     Exactly :func:`studykit.analysis.analyze_all` (with the stored gauge results; ``gauges``
     None means no gauge search was made), so the report, ``studykit analyze`` and ``verify``
-    agree.
+    agree. With ``workers`` > 1 the characteristics after the first are analysed by that many
+    forked processes (:func:`_analyze_in_workers`): the same calls, the same results.
     """
     from studykit.analysis import analyze_all, read_study_measurements
 
     measurements = read_study_measurements(study)
-    res = analyze_all(
-        study,
-        measurements=measurements,
-        progress=progress,
-        gauges=None if gauges is None else dict(gauges),
-    )
+    gauges = None if gauges is None else dict(gauges)
+    if workers > 1 and len(study.characteristic_names) > 2:
+        import multiprocessing
+
+        if "fork" in multiprocessing.get_all_start_methods():
+            results, errors = _analyze_in_workers(study, measurements, gauges, progress, workers)
+            return results, errors, measurements
+    res = analyze_all(study, measurements=measurements, progress=progress, gauges=gauges)
     return res.results, res.errors, measurements
+
+
+#: What the forked analysis workers read (set just before they are started).
+_ANALYSIS_JOB: tuple | None = None
+
+
+def _analyze_one(study, name, measurements, gauges):
+    """One characteristic as :func:`studykit.analysis.analyze_all` analyses it:
+    ("ok", result) or ("error", message)."""
+    from studykit.analysis import NO_GAUGE, analyze_study
+
+    try:
+        gauge = None if gauges is None else gauges.get(name, NO_GAUGE)
+        return "ok", analyze_study(study, name, measurements=measurements, gauge=gauge)
+    except StudyInputError as exc:
+        return "error", str(exc)
+
+
+def _analyze_in_worker(name: str):
+    study, measurements, gauges = _ANALYSIS_JOB  # type: ignore[misc]
+    return _analyze_one(study, name, measurements, gauges)
+
+
+def _large_buffers_returned() -> None:
+    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
+    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
+    stay in the heap after use. Without glibc nothing happens."""
+    import ctypes
+    import ctypes.util
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        libc.mallopt(-3, 256 * 1024)  # M_MMAP_THRESHOLD
+    except (OSError, AttributeError):
+        pass
+
+
+def _forked_pool(workers: int):
+    """A pool of ``workers`` forked processes. The objects that exist now are frozen out of the
+    cyclic garbage collector first, so the workers' collections do not touch (and so copy) every
+    page they inherit; this process collects them again afterwards as usual."""
+    import gc
+    import multiprocessing
+
+    gc.freeze()
+    try:
+        return multiprocessing.get_context("fork").Pool(workers)
+    finally:
+        gc.unfreeze()
+
+
+def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
+    """(results, errors) of every characteristic, in the study's order: the first analysed
+    here (which also loads the statistics modules once, before the fork), the others by
+    ``workers`` forked processes; each result comes back pickled (a plain copy)."""
+
+    global _ANALYSIS_JOB
+    names = study.characteristic_names
+    results: dict = {}
+    errors: dict = {}
+
+    def keep(i, name, outcome):
+        kind, value = outcome
+        (results if kind == "ok" else errors)[name] = value
+        if progress is not None:
+            progress(i + 1, len(names), name)
+
+    keep(0, names[0], _analyze_one(study, names[0], measurements, gauges))
+    _ANALYSIS_JOB = (study, measurements, gauges)
+    try:
+        with _forked_pool(min(workers, len(names) - 1)) as pool:
+            outcomes = pool.imap(_analyze_in_worker, names[1:])
+            for i, (name, outcome) in enumerate(zip(names[1:], outcomes, strict=True), start=1):
+                keep(i, name, outcome)
+    finally:
+        _ANALYSIS_JOB = None
+    return results, errors
 
 
 def _canonical(obj) -> str:
@@ -523,6 +607,121 @@ def _PixelImage(pil, width):  # noqa: N802 - a flowable factory
             self.canv.drawImage(self.reader, 0, 0, self.drawWidth, self.drawHeight)
 
     return PixelImage()
+
+
+def section_images(res, raw) -> dict:
+    """The pictures of one characteristic's section, rendered: ``control`` (the control chart
+    of the final limits) and, for measured values with a probability plot, ``shape``."""
+    return {key: _LazyImages(res, raw)[key] for key in _image_keys(res)}
+
+
+def _image_keys(res) -> tuple[str, ...]:
+    if res.attribute or res.probability_plot is None:
+        return ("control",)
+    return ("control", "shape")
+
+
+class _LazyImages:
+    """A section's pictures, each rendered in this process when the layout asks for it."""
+
+    def __init__(self, res, raw):
+        self.res, self.raw = res, raw
+
+    def __getitem__(self, key: str):
+        from studykit.report import figures
+
+        if key == "control":
+            return figures.figure_image(figures.control_chart_figure(self.res, raw=self.raw))
+        if key == "shape":
+            return figures.figure_image(figures.shape_figure(self.res))
+        raise KeyError(key)
+
+
+#: What the forked figure workers read (set just before they are started, see _FigureFeed).
+_FEED_JOB: tuple | None = None
+
+
+def _raw_values(measurements, name):
+    try:
+        return measurements.get(name)
+    except StudyInputError:
+        return None
+
+
+def _render_in_worker(name: str) -> dict:
+    """In a forked worker: the pictures of ``name``'s section as (size, RGB bytes)."""
+    results, measurements = _FEED_JOB  # type: ignore[misc]
+    images = section_images(results[name], _raw_values(measurements, name))
+    return {key: (img.size, img.tobytes()) for key, img in images.items()}
+
+
+class _FigureFeed:
+    """The sections' pictures, in the order the layout needs them.
+
+    With ``workers`` > 1 (and ``fork`` available) that many forked processes render the
+    pictures of the next sections while this process lays out the current one; at most
+    ``2 * workers`` sections are ahead, so memory does not grow with the number of
+    characteristics. The workers run the same code on the same results, so the pixels (and the
+    PDF bytes) are the same as when everything is drawn in this process (``workers`` = 1).
+    """
+
+    def __init__(self, results: Mapping, measurements, order):
+        self.results, self.measurements = results, measurements
+        self.order = list(order)
+        self.pool = None
+        self.first: dict | None = None
+        self.pending: list = []
+        self.next = 0
+
+    def start(self, workers: int) -> None:
+        """Start the workers (none when ``workers`` <= 1, one section or no ``fork``)."""
+        import multiprocessing
+
+        workers = min(int(workers), len(self.order) - 1)
+        if workers > 1 and "fork" in multiprocessing.get_all_start_methods():
+            global _FEED_JOB
+            # the first section's pictures are drawn here: that loads matplotlib's modules and
+            # fonts once, before the fork, instead of once in every worker
+            first = self.order[0]
+            self.first = section_images(self.results[first], _raw_values(self.measurements, first))
+            _FEED_JOB = (self.results, self.measurements)
+            _large_buffers_returned()
+            self.pool = _forked_pool(workers)
+            self.next = 1
+            for _ in range(2 * workers):
+                self._submit()
+
+    def _submit(self) -> None:
+        if self.pool is not None and self.next < len(self.order):
+            name = self.order[self.next]
+            self.next += 1
+            self.pending.append((name, self.pool.apply_async(_render_in_worker, (name,))))
+
+    def take(self, name: str, res, raw):
+        """The pictures of ``name``'s section (rendered ahead, or on demand in this process)."""
+        if self.pool is None:
+            return _LazyImages(res, raw)
+        if self.first is not None:
+            images, self.first = self.first, None
+            return images
+        from PIL import Image
+
+        want, job = self.pending.pop(0)
+        if want != name:  # sections are laid out in the study's order
+            raise RuntimeError(f"figure feed out of order: {name} asked, {want} ready")
+        self._submit()
+        return {
+            key: Image.frombuffer("RGB", size, data, "raw", "RGB", 0, 1)
+            for key, (size, data) in job.get().items()
+        }
+
+    def close(self) -> None:
+        global _FEED_JOB
+        if self.pool is not None:
+            self.pool.terminate()
+            self.pool.join()
+            self.pool = None
+        _FEED_JOB = None
 
 
 class _SignatureBoxes:
@@ -869,8 +1068,6 @@ def _spec_text(c) -> str:
 def _characteristic_section(story, number, name, res, study, raw, st, width, figures_cache):
     from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
 
-    from studykit.report import figures
-
     c = study.characteristic(name)
     unit = f" [{escape_text(res.unit)}]" if res.unit else ""
     story.append(Paragraph(f"{number}. {escape_text(name)}{unit}", st["h1"]))
@@ -963,7 +1160,8 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     )
     # stability
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    story.append(pdf_image(figures.control_chart_figure(res, raw=raw), width))
+    images = figures_cache if figures_cache is not None else _LazyImages(res, raw)
+    story.append(_PixelImage(images["control"], width))
     if res.chart_scale_text:  # phase I judged on the model's scale
         scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
         pl = res.probability_limits
@@ -1052,7 +1250,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
     # shape
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(pdf_image(figures.shape_figure(res), width))
+    story.append(_PixelImage(images["shape"], width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
@@ -1775,11 +1973,14 @@ def render_pages(
     total: int = 0,
     positions: Mapping | None = None,
     out: str | os.PathLike | None = None,
+    workers: int = 1,
 ) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
     a report from its evidence and compares every page. With ``out`` (a path) the pages are
-    written to that file as they are laid out and None is returned instead of the bytes."""
+    written to that file as they are laid out and None is returned instead of the bytes.
+    ``workers`` > 1 renders the figures in that many forked processes (see
+    :class:`_FigureFeed`); the bytes are the same."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
     from reportlab.platypus import PageBreak
@@ -1791,6 +1992,7 @@ def render_pages(
     width = page_w - 2 * margin
     story: list = []
     _cover(story, study, results, errors, st, width, evidence_sha, chain)
+    feed = _FigureFeed(results, measurements, [n for n in names if results.get(n) is not None])
     section = 1
     for i, name in enumerate(names):
         res = results.get(name)
@@ -1804,12 +2006,10 @@ def render_pages(
 
         def draw_section(number=section, name=name, res=res, done=done):
             # made when the layout reaches it, so only one section's figures are in memory
-            try:
-                raw = measurements.get(name)
-            except StudyInputError:
-                raw = None
+            raw = None if feed.pool is not None else _raw_values(measurements, name)
+            images = feed.take(name, res, raw)
             part: list = []
-            _characteristic_section(part, number, name, res, study, raw, st, width, None)
+            _characteristic_section(part, number, name, res, study, raw, st, width, images)
             if progress is not None:
                 progress(done, total, f"drawn {name}")
             return part
@@ -1854,11 +2054,13 @@ def render_pages(
     a85 = rl_config.useA85
     rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
     try:
+        feed.start(workers)
         doc.build(
             story, canvasmaker=_numbered_canvas(footer, study.title[:90], when=_last_time(study))
         )
     finally:
         rl_config.useA85 = a85
+        feed.close()
     return (buf.getvalue() if out is None else None), boxes
 
 
@@ -1886,6 +2088,7 @@ def build_report(
     *,
     progress: Callable[[int, int, str], None] | None = None,
     gauges: Mapping | None = None,
+    workers: int = 1,
 ) -> ReportInfo:
     r"""Write the evidence PDF of a study.
 
@@ -1900,6 +2103,9 @@ def build_report(
         plus one; called with "analysed NAME", then "drawn NAME", then "written".
     gauges : mapping, optional
         name -> stored gauge R&R payload (overrides those read from the study file).
+    workers : int, optional
+        Processes that render the figures ahead of the layout (forked; 1, the default: all in
+        this process). The PDF bytes are the same for any number.
 
     Returns
     -------
@@ -1940,7 +2146,7 @@ def build_report(
             progress(done, total, f"analysed {name}")
 
     results, errors, measurements = analyze_for_report(
-        study, stored_gauges, progress=_analysis_progress
+        study, stored_gauges, progress=_analysis_progress, workers=workers
     )
     evidence = collect_evidence(study, results, errors, stored_gauges, chain)
     # stored short gauge studies (one reference part) go into the evidence when there are any
@@ -1978,6 +2184,7 @@ def build_report(
             progress=progress,
             total=total,
             out=pages_path,
+            workers=workers,
         )
         _attach(pages_path, evidence_bytes, boxes, tmp)
         os.replace(tmp, out)
