@@ -18,11 +18,9 @@ its row says so.
 
 from __future__ import annotations
 
-import contextlib
 import json
 import math
 import os
-import threading
 import time
 import warnings
 from collections.abc import Callable, Iterable, Mapping
@@ -204,8 +202,8 @@ def _empty_row(name: str) -> dict:
     return dict.fromkeys(BATCH_COLUMNS) | {"characteristic": name}
 
 
-def _analyse_task(task: _Task, options, *, own_filter: bool = True) -> dict:
-    """One row; never raises. ``own_filter=False``: the caller ignores RuntimeWarning."""
+def _analyse_task(task: _Task, options) -> dict:
+    """One row; never raises."""
     from studykit.analysis import analyze_characteristic
     from studykit.study import Characteristic, Criteria
 
@@ -218,9 +216,8 @@ def _analyse_task(task: _Task, options, *, own_filter: bool = True) -> dict:
         spec = Characteristic(**task.spec) if task.spec is not None else None
         crit = Criteria(**task.criteria) if task.criteria is not None else None
         data = _Data(task.name, task.unit, task.values, task.subgroups, task.streams)
-        with warnings.catch_warnings() if own_filter else contextlib.nullcontext():
-            if own_filter:
-                warnings.simplefilter("ignore", RuntimeWarning)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
             res = analyze_characteristic(
                 data,
                 spec,
@@ -243,90 +240,7 @@ def _run_chunk(tasks: list, options_dict: dict) -> list:
     from studykit.analysis import AnalysisOptions
 
     options = AnalysisOptions(**options_dict)
-    if len(tasks) < 2:
-        return [_analyse_task(t, options) for t in tasks]
-    return _BlockedChunk(tasks, options).run()
-
-
-class _BlockedChunk:
-    """The tasks of a chunk with their bootstrap refits done in blocks per family.
-
-    The analyses run one at a time on helper threads that take turns with this one (a baton:
-    never two at once). An analysis that reaches its bootstrap refit hands the samples over
-    (:func:`studykit.stats.bootstrap.collecting`) and waits; the next thread goes on with the
-    next task. When every task has run up to its refit or to its end, the collected refits are
-    done together (:func:`studykit.stats.bootstrap.quantiles_of_blocks`: one block per family
-    and sample size, bounded in cells) and the waiting analyses finish one after the other.
-    Every row's refit is the one it would get alone, so the rows are those of one-at-a-time.
-    """
-
-    def __init__(self, tasks, options):
-        self.tasks, self.options = tasks, options
-        self.rows: list = [None] * len(tasks)
-        self.next = 0
-        self.wake = threading.Semaphore(0)  # the running thread hands the baton back
-        self.requests: list = []  # (model, block, resume semaphore, result slot)
-
-    def _collect(self, model, block):
-        slot: dict = {}
-        resume = threading.Semaphore(0)
-        self.requests.append((model, block, resume, slot))
-        self.wake.release()
-        resume.acquire()
-        return slot.get("result")
-
-    def _runner(self):
-        from studykit.stats import bootstrap
-
-        bootstrap.collecting(self._collect)
-        try:
-            while self.next < len(self.tasks):
-                i = self.next
-                self.next += 1
-                self.rows[i] = _analyse_task(self.tasks[i], self.options, own_filter=False)
-        finally:
-            bootstrap.collecting(None)
-            self.wake.release()
-
-    def _give_baton(self, resume=None):
-        if resume is None:
-            threading.Thread(target=self._runner, daemon=True).start()
-        else:
-            resume.release()
-        self.wake.acquire()
-
-    def run(self) -> list:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            self._give_baton()
-            while True:
-                if self.next < len(self.tasks):  # a runner waits at its refit: a new one
-                    self._give_baton()
-                    continue
-                if not self.requests:
-                    break
-                pending, self.requests = self.requests, []
-                self._solve(pending)
-                for _, _, resume, _ in pending:
-                    self._give_baton(resume)
-        return self.rows
-
-    @staticmethod
-    def _solve(pending):
-        from studykit.stats import bootstrap
-
-        groups: dict = {}
-        for req in pending:
-            model, block = req[0], req[1]
-            groups.setdefault((model.family.id, block.shape[1]), []).append(req)
-        for reqs in groups.values():
-            try:
-                with np.errstate(all="ignore"):
-                    done = bootstrap.quantiles_of_blocks([(r[0], r[1]) for r in reqs])
-            except Exception:  # noqa: BLE001 - each analysis then refits its own samples
-                done = [None] * len(reqs)
-            for r, result in zip(reqs, done, strict=True):
-                r[3]["result"] = result
+    return [_analyse_task(t, options) for t in tasks]
 
 
 def _chunks(items: list, size: int) -> list:

@@ -103,25 +103,3 @@ def test_threshold_refits_do_not_depend_on_their_block(fid):
         if p_part is not None:
             for k, v in p_part.items():
                 assert_array_equal(v[ok_part], params[k][lo:hi][ok_part])
-
-
-@pytest.mark.parametrize("fid", ["weibull3", "gamma3", "weibull"])
-def test_bootstraps_refitted_in_one_block_equal_one_at_a_time(fid):
-    # three fitted models (samples drawn by scipy.stats, test fixture), 60 bootstrap samples
-    # each: quantiles_of_blocks (one block) gives the quantiles of each bootstrap alone
-    from studykit.stats import bootstrap
-
-    family = FAMILIES[fid]
-    rng = np.random.default_rng(12)
-    items = []
-    for shape in (1.4, 1.9, 2.6):
-        x = stats.weibull_min(shape, loc=10.0 * (fid != "weibull")).rvs(size=N, random_state=rng)
-        model = family.fit(x)
-        items.append((model, family.sample(model.parameters, (60, N), rng)))
-    together = bootstrap.quantiles_of_blocks(items)
-    for (model, block), got in zip(items, together, strict=True):
-        q, ok = bootstrap._block_quantiles(model, block, {})
-        assert got is not None
-        assert_array_equal(got[1], ok)
-        assert_array_equal(got[0][ok], q[ok])
-        assert ok.sum() > 50

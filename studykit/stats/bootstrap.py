@@ -14,40 +14,18 @@ O(ROW_CELLS + n) whatever the number of samples.
 
 from __future__ import annotations
 
-import threading
-
 import numpy as np
 
 from studykit.errors import StudyInputError
-from studykit.stats import solvers
 from studykit.stats.families.base import Family, clean_sample
 from studykit.stats.solvers import rows_per_group
 
-__all__ = [
-    "PROBS",
-    "TAIL_PROBABILITY",
-    "collecting",
-    "is_family_model",
-    "percentile_draws",
-    "quantiles_of_blocks",
-]
+__all__ = ["PROBS", "TAIL_PROBABILITY", "is_family_model", "percentile_draws"]
 
 #: Lower tail of the percentile method: exactly 0.135 % (ISO 22514-2).
 TAIL_PROBABILITY = 0.00135
 #: The quantiles the percentile method needs: lower tail, median, upper tail.
 PROBS = np.array([TAIL_PROBABILITY, 0.5, 1 - TAIL_PROBABILITY])
-
-
-_LOCAL = threading.local()
-
-
-def collecting(collect):
-    """Hand this thread's bootstrap refits to ``collect(model, block) -> (q, ok) or None``
-    (None: refit here as usual); ``collecting(None)`` ends it. The batch
-    (:mod:`studykit.batch`) collects the refits of many characteristics and does them in
-    blocks (:func:`quantiles_of_blocks`): the same numbers, as each row's refit depends only
-    on its own sample."""
-    _LOCAL.collect = collect
 
 
 def is_family_model(model) -> bool:
@@ -82,11 +60,7 @@ def percentile_draws(model, n, lsl, usl, n_boot, rng, values):
         block = family.sample(model.parameters, (m, n), rng)
         if n < getattr(family, "minimum_n", 3):
             continue
-        collect = getattr(_LOCAL, "collect", None)
-        done = collect(model, block) if collect is not None and m == n_boot else None
-        if done is None:
-            done = _block_quantiles(model, block, shared)
-        q[i : i + m], ok[i : i + m] = done
+        q[i : i + m], ok[i : i + m] = _block_quantiles(model, block, shared)
         del block
     q_lo, q_mid, q_hi = q[:, 0], q[:, 1], q[:, 2]
     with np.errstate(invalid="ignore"):
@@ -123,56 +97,3 @@ def _block_quantiles(model, block, shared):
         except (StudyInputError, ValueError, FloatingPointError, RuntimeError):
             ok[i] = False
     return q, ok
-
-
-def quantiles_of_blocks(items):
-    """``[(model, block), ...]`` (models of one family, blocks of equal width: the samples of
-    one bootstrap each) -> ``[(q, ok) or None, ...]``, the model quantiles and ok masks of
-    :func:`percentile_draws`' one-block route, refitted in blocks of many bootstraps (at most
-    :data:`~studykit.stats.solvers.ROW_CELLS` cells each). Every row of a block is refitted as
-    it would be alone (row-wise solvers that stop each row at its own convergence; a threshold
-    family's grid start is each bootstrap's own, ``shared["k0_rows"]``), so the numbers are
-    those of one bootstrap at a time. None for an item that is left to its own route (a
-    grid start that is not usable)."""
-    if not items:
-        return []
-    family = items[0][0].family
-    out: list = [None] * len(items)
-    starts: list = [None] * len(items)
-    todo = []
-    for j, (_, block) in enumerate(items):
-        if family.shared_grid_start:
-            rows = solvers.usable_rows(block)
-            if rows.size:
-                starts[j] = solvers.grid_start(family, block[rows[0]])
-                if starts[j] is None:
-                    continue
-        todo.append(j)
-    width = items[0][1].shape[1]
-    per_block = rows_per_group(width * family.refit_row_factor)
-    i = 0
-    while i < len(todo):
-        group, rows_in = [todo[i]], items[todo[i]][1].shape[0]
-        i += 1
-        while i < len(todo) and rows_in + items[todo[i]][1].shape[0] <= per_block:
-            group.append(todo[i])
-            rows_in += items[todo[i]][1].shape[0]
-            i += 1
-        block = np.concatenate([items[j][1] for j in group])
-        shared: dict = {}
-        if family.shared_grid_start:
-            k0 = [
-                np.broadcast_to(
-                    starts[j] if starts[j] is not None else np.nan,
-                    (items[j][1].shape[0], solvers.GRID_DECADES.size),
-                )
-                for j in group
-            ]
-            shared["k0_rows"] = np.concatenate(k0)
-        q, ok = _block_quantiles(items[group[0]][0], block, shared)
-        at = 0
-        for j in group:
-            m = items[j][1].shape[0]
-            out[j] = (q[at : at + m], ok[at : at + m])
-            at += m
-    return out

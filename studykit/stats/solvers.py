@@ -352,10 +352,7 @@ def threshold_rows(family, block, shared=None):
     1e-9 in u = log(min(x) - threshold) instead of two refining passes of 33 points (a
     sample whose slope does not change sign across the bracket goes to the family's own
     estimator too). With ``family.shared_grid_start`` the inner solutions on the first
-    sample's grid start every sample's iteration (``shared`` keeps them across blocks; with
-    ``shared["k0_rows"]``, one row of starting shapes per row of ``block``, each sample starts
-    from its own row: a block of many data sets' samples). Each row's result depends only on
-    that row and its start (the row-wise solvers stop each row at its own convergence).
+    sample's grid start every sample's iteration (``shared`` keeps them across blocks).
     """
     n_boot = block.shape[0]
     spread = block.max(axis=1) > block.min(axis=1)
@@ -401,39 +398,20 @@ def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
     )
 
 
-def grid_start(family, data):
-    """The Weibull shapes solved on the grid of :func:`threshold_rows` for the one sample
-    ``data`` (they start every sample's grid iteration of a ``shared_grid_start`` family), or
-    None when they are not all finite and positive."""
-    decades = GRID_DECADES * math.log(10.0)
-    u0 = math.log(float(np.std(data))) + decades
-    ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
-    with np.errstate(all="ignore"):
-        _, _, st0 = family.fit_rows(ys0)
-    k0 = np.asarray(st0[0])
-    return k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
-
-
-def usable_rows(block):
-    """The rows of ``block`` the threshold search takes (spread and a positive sd)."""
-    spread = block.max(axis=1) > block.min(axis=1)
-    return np.flatnonzero(spread & (block.std(axis=1) > 0))
-
-
-def _shared_start(family, block, rows, shared: dict):
-    """The grid start of every sample (or None): ``shared["k0_rows"]`` (one row of shapes
-    per row of ``block``: the batch's blocks of many characteristics' samples), else the
-    first sample's :func:`grid_start`, kept in ``shared`` for the next blocks."""
-    if not family.shared_grid_start or not rows.size:
-        return None
-    if "k0_rows" in shared:
-        return (shared["k0_rows"][rows].ravel(),)
-    if "k0" not in shared:
+def _shared_start(family, block, rows, decades, shared: dict):
+    """The first sample's grid solutions, which start every sample's grid (or None)."""
+    if family.shared_grid_start and rows.size and "k0" not in shared:
         # every sample comes from the same model: the Weibull shapes solved on one sample's
         # grid start the Newton iteration of all the others (fewer steps, same roots); with
         # the samples in blocks, the first block's first sample starts every block
-        shared["k0"] = grid_start(family, block[rows[0]])
-    if shared["k0"] is not None:
+        data = block[rows[0]]
+        u0 = math.log(float(np.std(data))) + decades
+        ys0 = data[None, :] - (float(np.min(data)) - np.exp(u0))[:, None]
+        with np.errstate(all="ignore"):
+            _, _, st0 = family.fit_rows(ys0)
+        k0 = np.asarray(st0[0])
+        shared["k0"] = k0 if np.all(np.isfinite(k0) & (k0 > 0)) else None
+    if family.shared_grid_start and rows.size and shared.get("k0") is not None:
         return (np.tile(shared["k0"], rows.size),)
     return None
 
@@ -444,8 +422,8 @@ def _grid_brackets(family, block, rows, sd, shared, evaluate, fallback: set):
     solve) and inner states; the other rows are added to ``fallback``."""
     decades = GRID_DECADES * math.log(10.0)
     grid = np.log(sd[rows])[:, None] + decades[None, :]
-    start0 = _shared_start(family, block, rows, shared)
-    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), start0)
+    grid_start = _shared_start(family, block, rows, decades, shared)
+    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), grid_start)
     s_grid = s_grid.reshape(-1, decades.size)
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
     if not family.shared_grid_start:  # warm starts help the Weibull shape's Newton only
