@@ -130,8 +130,8 @@ _ZERO_POINTS = 4
 #: Most cells (rows x readings) a row-wise evaluation holds in one array: 2**21 doubles, 16 MB.
 #: Above it the rows (thresholds of a profile pass, bootstrap samples) are evaluated in groups,
 #: so memory is O(ROW_CELLS + n) whatever the number of rows; below it one call as before
-#: (identical numbers). The row-wise Newton loops stop when every row of a call has converged,
-#: so grouped rows can differ from one call in the last digits, far inside the tolerances.
+#: (identical numbers). The row-wise Newton loops stop each row at its own convergence, so
+#: grouped rows give the numbers of one call (bit-identical; tests/test_row_fits.py).
 ROW_CELLS = 1 << 21
 
 

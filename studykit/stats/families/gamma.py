@@ -20,7 +20,6 @@ from studykit.stats.families.base import (
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     add_reduce,
-    all_reduce,
     rowsum,
 )
 
@@ -114,32 +113,41 @@ class Gamma(Family):
     def fit_rows(ys, start=None, *, rough=False):
         """Row-wise gamma ML (same root and iteration as :func:`_gamma_fit`); ``rough=True``
         (the profile grid) stops at a relative Newton step of 1e-2 instead of 1e-5 (the shape is
-        then within about 1e-4 of the root, as for :meth:`Weibull.fit_rows`)."""
+        then within about 1e-4 of the root, as for :meth:`Weibull.fit_rows`).
+
+        Each row stops at its own convergence (a converged row takes no further step), so a
+        row's result does not depend on the other rows of ``ys``."""
         n = ys.shape[1]
         mean = rowsum(ys) / n
         sly = rowsum(np.log(ys))
-        s = np.log(mean) - sly / n
-        s = np.where(s > 0, s, np.nan)
-        large = s < 1e-4  # asymptotic root, as in _gamma_fit
-        k = np.where(
+        s_all = np.log(mean) - sly / n
+        s_all = np.where(s_all > 0, s_all, np.nan)
+        large = s_all < 1e-4  # asymptotic root, as in _gamma_fit
+        k_all = np.where(
             large,
-            (np.sqrt(0.25 + s / 3.0) + 0.5) / (2.0 * s),
-            (3.0 - s + np.sqrt((s - 3.0) ** 2 + 24.0 * s)) / (12.0 * s),
+            (np.sqrt(0.25 + s_all / 3.0) + 0.5) / (2.0 * s_all),
+            (3.0 - s_all + np.sqrt((s_all - 3.0) ** 2 + 24.0 * s_all)) / (12.0 * s_all),
         )
+        # the asymptotic root takes no Newton step; the other rows iterate until each converges
+        active = np.flatnonzero(~large)
+        k, s = k_all[active], s_all[active]
         for _ in range(50):
+            if not active.size:
+                break
             f = np.log(k) - special.digamma(k) - s
             fp = 1.0 / k - special.zeta(2.0, k)
             with np.errstate(divide="ignore", invalid="ignore"):
                 k_new = 1.0 / (1.0 / k + f / (k * k * fp))
             newton = k_new > 0
-            k_new = np.where(large, k, np.where(newton, k_new, 0.5 * k))
+            k_new = np.where(newton, k_new, 0.5 * k)
             # rounding noise of s limits very large k to 1e-8; a Newton step below 1e-5 k leaves a
             # correction of order step^2 (quadratic convergence)
             step = np.abs(k_new - k)
             done = (step <= 1e-8 * k) | (newton & (step <= (1e-2 if rough else 1e-5) * k))
-            k = k_new
-            if all_reduce(done):
-                break
+            k_all[active] = k = k_new
+            keep = ~done
+            active, k, s = active[keep], k[keep], s[keep]
+        k = k_all
         scale = mean / k
         ll = (k - 1.0) * sly - n * k - n * k * np.log(scale) - n * special.gammaln(k)
         # the shapes start the scalar iteration of single thresholds (Gamma.fit_one); the

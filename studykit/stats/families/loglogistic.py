@@ -20,8 +20,8 @@ from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.solvers import (
     add_reduce,
     all_reduce,
+    any_reduce,
     ls_fit,
-    max_reduce,
     median_1d,
     rowsum,
 )
@@ -76,30 +76,36 @@ class Loglogistic(Family):
     def fit_rows(ys, start=None, *, rough=False):
         """Row-wise loglogistic ML: logistic Newton iteration (see :func:`studykit.stats.solvers.ls_fit`) per row;
         ``rough=True`` (the profile grid) stops after a full step from a decrement below 1e-3
-        instead of 1e-5."""
+        instead of 1e-5.
+
+        Each row stops at its own convergence (a converged row takes no further step), so a
+        row's result does not depend on the other rows of ``ys``: a row stops after its full Newton
+        step from a decrement below the tolerance, after its step from a decrement of at most
+        1e-9, or at a decrement of at most 1e-20 (no step); a step that lowers its likelihood is
+        halved (at most 39 times) for that row alone."""
         n = ys.shape[1]
         ly = np.log(ys)
         m = rowsum(ly) / n
         c = ly - m[:, None]
         sd = np.sqrt(rowsum(c * c) / n)
-        v = c / sd[:, None]
-        vv = v * v
+        v_all = c / sd[:, None]
+        vv_all = v_all * v_all
         # start: location = median, scale = mean absolute deviation from the median / (2 ln 2)
         # (the logistic's E|X - mu| = 2 s ln 2; less swayed than the sd by the one far reading of
         # a threshold close to min(x): half the Newton steps on the profile grid)
         if start is None:
-            med = median_1d(v, axis=1)
-            a = (2.0 * math.log(2.0) * n) / rowsum(np.abs(v - med[:, None]))
-            b = med * a
+            med = median_1d(v_all, axis=1)
+            a_all = (2.0 * math.log(2.0) * n) / rowsum(np.abs(v_all - med[:, None]))
+            b_all = med * a_all
         else:
-            a, b = start
+            a_all, b_all = (np.array(x, dtype=float) for x in start)  # updated in place
 
         # sums of v and v^2 per row (n and 0 up to rounding): the Hessian sums below use
         # sum (1 - t^2) w = sum w - sum t^2 w, with t = tanh(z/2)
-        s_v, s_vv = rowsum(v), rowsum(vv)
+        s_v_all, s_vv_all = rowsum(v_all), rowsum(vv_all)
         tol = 1e-3 if rough else 1e-5
 
-        def ev(a, b):
+        def ev(v, a, b):
             """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
             log-density derivatives of :func:`logistic_terms` are -t and -(1 - t^2)/2."""
             z = a[:, None] * v - b[:, None]
@@ -108,7 +114,10 @@ class Loglogistic(Family):
             lg = rowsum(az) + 2.0 * rowsum(np.log1p(np.exp(-az)))
             return n * np.log(a) - lg, t, t * t
 
-        ll, t1, q1 = ev(a, b)
+        ll_all, t1, q1 = ev(v_all, a_all, b_all)
+        active = np.arange(a_all.size)
+        v, vv, s_v, s_vv = v_all, vv_all, s_v_all, s_vv_all
+        a, b, ll = a_all, b_all, ll_all
         for _ in range(100):
             ga = n / a - rowsum(t1 * v)
             gb = rowsum(t1)
@@ -119,31 +128,46 @@ class Loglogistic(Family):
             da = -(hbb * ga - hab * gb) / det
             db = -(haa * gb - hab * ga) / det
             dec = ga * da + gb * db
-            if not max_reduce(dec) > 1e-9:
-                break
-            an = a + da
-            if all_reduce(an > 0):  # the full Newton step, accepted when no likelihood decreases
-                lln, t1n, q1n = ev(an, b + db)
-                if all_reduce(lln >= ll - 1e-12 * np.abs(ll)):
-                    a, b, ll, t1, q1 = an, b + db, lln, t1n, q1n
-                    if max_reduce(dec) < tol:
-                        break  # a full Newton step from a decrement below 1e-5 leaves ~1e-10
-                    continue
-            t = np.ones_like(a)  # step halving, row by row
+            done = ~(dec > 1e-20)  # (NaN included) no step left to take
+            # the full Newton step, halved (at most 39 times) for each row whose likelihood
+            # it lowers; a row's values change in place once its step is accepted
+            t = np.ones_like(a)
+            good = np.zeros(a.size, dtype=bool)
+            trying = np.flatnonzero(~done)
             for _ in range(40):
-                an = a + t * da
-                an_ok = an > 0
-                lln, t1n, q1n = ev(np.where(an_ok, an, a), b + t * db)
-                good = an_ok & (lln >= ll - 1e-12 * np.abs(ll))
-                if all_reduce(good):
+                if not trying.size:
                     break
-                t = np.where(good, t, 0.5 * t)
-            keep = good[:, None]
-            a = np.where(good, an, a)
-            b = np.where(good, b + t * db, b)
-            ll = np.where(good, lln, ll)
-            t1 = np.where(keep, t1n, t1)
-            q1 = np.where(keep, q1n, q1)
+                whole = trying.size == a.size
+                a_t, b_t, ll_t = (a, b, ll) if whole else (a[trying], b[trying], ll[trying])
+                t_t = t if whole else t[trying]
+                an = a_t + t_t * (da if whole else da[trying])
+                an_ok = an > 0
+                bn = b_t + t_t * (db if whole else db[trying])
+                lln, t1n, q1n = ev(v if whole else v[trying], np.where(an_ok, an, a_t), bn)
+                g = an_ok & (lln >= ll_t - 1e-12 * np.abs(ll_t))
+                if whole and all_reduce(g):  # every row takes its step: no copies
+                    a, b, ll, t1, q1 = an, bn, lln, t1n, q1n
+                    good[:] = True
+                    break
+                ok = trying[g]
+                a[ok], b[ok], ll[ok] = an[g], bn[g], lln[g]
+                t1[ok], q1[ok] = t1n[g], q1n[g]
+                good[ok] = True
+                trying = trying[~g]
+                t[trying] *= 0.5
+            # a full Newton step from a decrement below the tolerance leaves ~1e-10
+            # a step from a decrement of at most 1e-9 is the last one
+            done |= (good & (t == 1.0) & (dec < tol)) | (dec <= 1e-9)
+            a_all[active], b_all[active], ll_all[active] = a, b, ll
+            if all_reduce(done):
+                break
+            if any_reduce(done):  # freeze the converged rows: only the others iterate on
+                keep = ~done
+                active = active[keep]
+                a, b, ll, t1, q1 = a[keep], b[keep], ll[keep], t1[keep], q1[keep]
+                v, vv = v_all.take(active, axis=0), vv_all.take(active, axis=0)
+                s_v, s_vv = s_v_all[active], s_vv_all[active]
+        a, b, ll = a_all, b_all, ll_all
         scale = sd / a
         loc = m + b * scale
         ll_orig = ll - n * np.log(sd) - rowsum(ly)

@@ -123,44 +123,59 @@ class Weibull(Family):
         """Row-wise Weibull ML (same root as :func:`_weibull_fit`); ``rough=True`` (the profile
         grid) stops at a relative Newton step of 1e-2 instead of 1e-6 (quadratic convergence: the
         shape is then within about 1e-4 of the root, the log-likelihood within n 1e-8: ample to
-        rank grid points a decade apart)."""
+        rank grid points a decade apart).
+
+        Each row stops at its own convergence (a converged row takes no further step), so a
+        row's result does not depend on the other rows of ``ys``."""
         n = ys.shape[1]
         ly = np.log(ys)
         slog = rowsum(ly)
         z = ly - (slog / n)[:, None]
         zmax = max_reduce(z, 1)
         zs = z - zmax[:, None]
-        k = 1.2825 / np.sqrt(rowsum(z * z) / n) if start is None else start[0]
+        k_all = (1.2825 / np.sqrt(rowsum(z * z) / n) if start is None else start[0]).copy()
         tol = 1e-2 if rough else 1e-6
+        k = k_all
         lo = np.zeros_like(k)
         hi = np.full_like(k, np.inf)
+        active = None  # row numbers of the rows still iterating (None: all, in order)
+        zs_a, z_a = zs, z
         # two work arrays for the whole iteration (the same element-wise operations as
-        # w = exp(k zs), wz = w z, wz z: same bits, without three new row blocks per step)
-        w, wz = np.empty_like(zs), np.empty_like(zs)
+        # w = exp(k zs), wz = w z, wz z: same bits, without three new row blocks per step);
+        # their first rows hold the rows still iterating
+        w_buf, wz_buf = np.empty_like(zs), np.empty_like(zs)
         for _ in range(100):
-            np.exp(np.multiply(k[:, None], zs, out=w), out=w)
+            m = k.size
+            w, wz = w_buf[:m], wz_buf[:m]
+            np.exp(np.multiply(k[:, None], zs_a, out=w), out=w)
             sw = rowsum(w)
-            np.multiply(w, z, out=wz)
+            np.multiply(w, z_a, out=wz)
             mz = rowsum(wz) / sw
             g = mz - 1.0 / k
-            vz = rowsum(np.multiply(wz, z, out=w)) / sw - mz * mz
+            vz = rowsum(np.multiply(wz, z_a, out=w)) / sw - mz * mz
             below = g < 0
             lo = np.where(below, k, lo)
             hi = np.where(below, hi, k)
             k_new = k - g / (vz + 1.0 / (k * k))
             bad = ~((k_new >= lo) & (k_new <= hi))
-            step = np.abs(k_new - k)
             # converged: a step below 1e-10 k, or a Newton step below 1e-6 k (the next correction
             # is of order step^2, below 1e-11 k)
-            if any_reduce(bad):
-                k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
-                step = np.abs(k_new - k)
-                done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
-            else:
-                done = step <= tol * k
+            k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
+            step = np.abs(k_new - k)
+            done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
             k = k_new
+            if active is None:
+                k_all = k.copy()
+            else:
+                k_all[active] = k
             if all_reduce(done):
                 break
+            if any_reduce(done):  # freeze the converged rows: only the others iterate on
+                keep = ~done
+                active = np.flatnonzero(keep) if active is None else active[keep]
+                k, lo, hi = k[keep], lo[keep], hi[keep]
+                zs_a, z_a = zs.take(active, axis=0), z.take(active, axis=0)
+        k = k_all
         w = np.exp(k[:, None] * zs)
         log_scale = slog / n + zmax + np.log(rowsum(w) / n) / k
         ll = n * np.log(k) - n * k * log_scale + (k - 1.0) * slog - n
