@@ -106,10 +106,11 @@ from __future__ import annotations
 
 import gc
 import math
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from operator import itemgetter
+from typing import cast
 
 import numpy as np
 
@@ -245,7 +246,8 @@ class Rule(Result):
 
     id: str
     number: int | None = None
-    parameters: tuple[tuple[str, Number], ...] = ()
+    # given as a mapping or as pairs; stored as sorted-by-definition pairs (__post_init__)
+    parameters: tuple[tuple[str, Number], ...] | Mapping[str, Number] = ()
     enabled: bool = True
     description: str = field(default="", compare=False)
 
@@ -347,18 +349,23 @@ class Rule(Result):
 
     # ---- access ---------------------------------------------------------------------------
     @property
+    def pairs(self) -> tuple[tuple[str, Number], ...]:
+        """The parameters as stored: (name, value) pairs in the rule's order."""
+        return cast("tuple[tuple[str, Number], ...]", self.parameters)  # set by __post_init__
+
+    @property
     def params(self) -> dict[str, Number]:
         """The parameters as a new dict."""
-        return dict(self.parameters)
+        return dict(self.pairs)
 
     def param(self, name: str) -> Number:
         """One parameter's value by name."""
-        for key, value in self.parameters:
+        for key, value in self.pairs:
             if key == name:
                 return value
         raise StudyInputError(
             f"rule `{self.id}` has no parameter {name!r}; its parameters are "
-            f"{', '.join(k for k, _ in self.parameters)}"
+            f"{', '.join(k for k, _ in self.pairs)}"
         )
 
     def with_parameters(self, **changes: Number) -> Rule:
@@ -646,10 +653,10 @@ def _all_in_window(mask: np.ndarray, width: int) -> np.ndarray:
 def _count_in_window(mask: np.ndarray, width: int) -> np.ndarray:
     """``out[i]`` = number of True in ``mask[max(0, i-width+1) : i+1]``."""
     if width <= 16:
-        count = mask.astype(np.int8)
+        small = mask.astype(np.int8)
         for shift in range(1, min(width, mask.size)):
-            count[shift:] += mask[:-shift]
-        return count
+            small[shift:] += mask[:-shift]
+        return small
     csum = np.cumsum(mask, dtype=np.int64)
     count = csum.copy()
     count[width:] -= csum[:-width]
@@ -740,31 +747,31 @@ def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
         upper = c + p["sigmas"] * s if ucl is None else ucl
         lower = c - p["sigmas"] * s if lcl is None else lcl
         for kind, mask in (("above", x > upper), ("below", x < lower)):
-            t = np.flatnonzero(mask)
-            t = (t if positions is None else positions[t]).tolist()
+            at = np.flatnonzero(mask)
+            t = (at if positions is None else positions[at]).tolist()
             if t:
                 found.append(_Found(kind, t, t, [[i] for i in t]))
     elif rid == "run":
         for kind, mask in (("above", x > c), ("below", x < c)):
-            found.append(_in_a_row(kind, mask, p["length"], positions))
+            found.append(_in_a_row(kind, mask, int(p["length"]), positions))
     elif rid == "trend":
         d = np.diff(x)
         for kind, mask in (("up", d > 0), ("down", d < 0)):
-            found.append(_in_a_row(kind, mask, p["length"], positions, extra=1))
+            found.append(_in_a_row(kind, mask, int(p["length"]), positions, extra=1))
     elif rid == "alternation":
         sign = np.sign(np.diff(x))
         flips = sign[1:] * sign[:-1] < 0
-        found.append(_in_a_row("alternating", flips, p["length"], positions, extra=2))
+        found.append(_in_a_row("alternating", flips, int(p["length"]), positions, extra=2))
     elif rid in ("zone_a", "zone_b"):
-        k, m = p["count"], p["window"]
+        k, m = int(p["count"]), int(p["window"])
         for kind, zone in (("above", x > c + p["sigmas"] * s), ("below", x < c - p["sigmas"] * s)):
             trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
             found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
     elif rid == "hugging":
         inside = (x >= c - p["sigmas"] * s) & (x <= c + p["sigmas"] * s)
-        found.append(_in_a_row("inside", inside, p["length"], positions))
+        found.append(_in_a_row("inside", inside, int(p["length"]), positions))
     elif rid == "mixture":
-        length = p["length"]
+        length = int(p["length"])
         above = x > c + p["sigmas"] * s
         below = x < c - p["sigmas"] * s
         if not p["both_sides"]:
