@@ -298,21 +298,9 @@ def stop(proc: subprocess.Popen, timeout: float = 15.0) -> int:
     return proc.returncode
 
 
-def run(args) -> int:
-    # Ctrl-C and SIGTERM must stop us even if the parent started us with them ignored/blocked
-    from studykit.app.server_guard import restore_stop_signals
-
-    restore_stop_signals()
-    host, port = args.host, args.port
-    allow_hosts = check_host_names(args.allow_host)
-    idle = args.kernel_idle_minutes
-    if not (idle == 0 or 1 <= idle < 1e6):
-        # a page must have time to load and connect before its kernel counts as abandoned
-        # (ten pages opened at once on 2 cores took up to 2 minutes)
-        raise StudyInputError(
-            f"`--kernel-idle-minutes` ({idle:g}) must be 0 (never) or at "
-            "least 1 minute, e.g. --kernel-idle-minutes 10"
-        )
+def _study_to_serve(args) -> Path | None:
+    """The study file the workbook opens: the demo's working copy, the file given (offering
+    to make it when missing), or None."""
     if args.demo and args.study:
         raise StudyInputError("give either STUDY_FILE or --demo, not both")
     study = None
@@ -334,6 +322,44 @@ def run(args) -> int:
         study = Path(args.study).expanduser().resolve()
         if not study.is_file():
             offer_new_study(args, study)
+    return study
+
+
+def _announce(host: str, port: int, token: str | None, study: Path | None) -> str:
+    """Print the workbook's address (and what it gives access to); returns the address."""
+    shown = socket.gethostname() if host in ("0.0.0.0", "::") else host
+    if ":" in shown:
+        shown = f"[{shown}]"
+    url = f"http://{shown}:{port}/" + (f"?token={token}" if token else "")
+    print(f"studykit workbook: {url}", flush=True)
+    if study:
+        print(f"study file: {study}", flush=True)
+    if token:
+        print(
+            "Anyone with this address (including the token) can open and change the "
+            "study; share it only with the team.",
+            flush=True,
+        )
+    print("Press Ctrl-C to stop.", flush=True)
+    return url
+
+
+def run(args) -> int:
+    # Ctrl-C and SIGTERM must stop us even if the parent started us with them ignored/blocked
+    from studykit.app.server_guard import restore_stop_signals
+
+    restore_stop_signals()
+    host, port = args.host, args.port
+    allow_hosts = check_host_names(args.allow_host)
+    idle = args.kernel_idle_minutes
+    if not (idle == 0 or 1 <= idle < 1e6):
+        # a page must have time to load and connect before its kernel counts as abandoned
+        # (ten pages opened at once on 2 cores took up to 2 minutes)
+        raise StudyInputError(
+            f"`--kernel-idle-minutes` ({idle:g}) must be 0 (never) or at "
+            "least 1 minute, e.g. --kernel-idle-minutes 10"
+        )
+    study = _study_to_serve(args)
     check_port_free(host, port)
 
     env = dict(os.environ)
@@ -369,20 +395,7 @@ def run(args) -> int:
                 file=sys.stderr,
             )
             return 1
-        shown = socket.gethostname() if host in ("0.0.0.0", "::") else host
-        if ":" in shown:
-            shown = f"[{shown}]"
-        url = f"http://{shown}:{port}/" + (f"?token={token}" if token else "")
-        print(f"studykit workbook: {url}", flush=True)
-        if study:
-            print(f"study file: {study}", flush=True)
-        if token:
-            print(
-                "Anyone with this address (including the token) can open and change the "
-                "study; share it only with the team.",
-                flush=True,
-            )
-        print("Press Ctrl-C to stop.", flush=True)
+        url = _announce(host, port, token, study)
         if not args.no_browser:
             webbrowser.open(url)
         return proc.wait()
