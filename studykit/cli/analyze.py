@@ -362,8 +362,6 @@ def _stream_lines(st: dict, lsl=None, usl=None) -> list[str]:
 
 def format_result(res) -> str:
     """A plain terminal report of one characteristic."""
-    from studykit.analysis import capability_method_text
-
     d = res.to_dict()
     lines = []
     unit = f" [{res.unit}]" if res.unit else ""
@@ -378,12 +376,33 @@ def format_result(res) -> str:
     lines.append(f"specification: LSL {_fmt(lsl)}  USL {_fmt(usl)}  target {_fmt(spec['target'])}")
     for c in d["cautions"]:
         lines.append(f"CAUTION: {c}")
+    lines += _chart_lines(d, val)
+    lines += _phase1_lines(d)
+    lines += _shape_lines(d)
+    lines += _capability_lines(d)
+    lines += _verdict_lines(d)
+    if d.get("measurement_error"):
+        lines += _measurement_error_lines(d["measurement_error"])
+    if d.get("streams"):
+        lines += _stream_lines(d["streams"], lsl, usl)
+    lines += _time_model_lines(d.get("time_model"))
+    if d["model_band"] and d["model_band"].get("warning"):
+        lines.append(f"model band: {d['model_band']['warning']}")
+    if d["plan"]:
+        lines.append(f"planning: {d['plan']['text']}")
+    for w in d["warnings"]:
+        lines.append(f"warning: {w}")
+    return "\n".join(lines) + "\n"
+
+
+def _chart_lines(d: dict, val) -> list[str]:
+    """The chart, its limits, the order check and the sigmas."""
     ch = d["chart"]
-    lines.append(
+    lines = [
         f"chart: {names.chart_kind_label(ch['kind'])} ({ch['reason']}); n = {d['n']} values "
         f"in {d['subgroups']} "
         f"subgroups; missing {d['n_missing']}"
-    )
+    ]
     loc = ch["location"]
     lines.append(
         f"  {names.chart_part_label(ch['kind'], 'location')}: centre {val(loc['center'])}  "
@@ -409,7 +428,13 @@ def format_result(res) -> str:
         f"  mean {val(d['mean'])}  within sigma {val(d['within_sigma'])}  "
         f"overall sigma {val(d['overall_sigma'])}"
     )
-    p1 = d["phase1"]
+    return lines
+
+
+def _phase1_lines(d: dict) -> list[str]:
+    """Phase-I removals and the signals left on the final chart."""
+    p1, ch = d["phase1"], d["chart"]
+    lines = []
     if p1["removals"]:
         lines.append(
             f"phase I: {len(p1['removals'])} subgroup(s) removed ({p1['removed_auto']} value(s) "
@@ -426,6 +451,12 @@ def format_result(res) -> str:
         lines.append(f"signals on the final chart ({ch.get('signals_total', len(ch['signals']))}):")
         for s in ch["signals"][:12]:
             lines.append(f"  - [{names.chart_part_label(ch['kind'], s['chart'])}] {s['text']}")
+    return lines
+
+
+def _shape_lines(d: dict) -> list[str]:
+    """The normality tests and the model chosen."""
+    lines = []
     if d["normality"]:
         ad, sw = d["normality"]["anderson_darling"], d["normality"]["shapiro_wilk"]
         lines.append(
@@ -435,6 +466,14 @@ def format_result(res) -> str:
         )
     if d["model"]:
         lines.append(f"model: {d['model']['label']} - {d['model']['reason']}")
+    return lines
+
+
+def _capability_lines(d: dict) -> list[str]:
+    """The indices with their lower bounds and PPM, or the attribute rates."""
+    from studykit.analysis import capability_method_text
+
+    lines = []
     cap = d["capability"]
     if cap:
         level = cap["level"]
@@ -458,6 +497,12 @@ def format_result(res) -> str:
             f"process Z {_fmt(d['z_process'], 4)} (from the bound "
             f"{_fmt(d.get('z_process_lower_95'), 4)})"
         )
+    return lines
+
+
+def _verdict_lines(d: dict) -> list[str]:
+    """The verdict, the tolerance-interval criterion and the findings."""
+    lines = []
     if d["verdict"]:
         v = d["verdict"]
         mark = names.verdict_label(d).upper()
@@ -469,27 +514,22 @@ def format_result(res) -> str:
         lines.append(f"tolerance interval ({ti['criterion']}): {word}; {ti['statement']}")
     for f in d["findings"]:
         lines.append(f"  * {names.finding_title(f['code'])}: {f['text']}")
-    if d.get("measurement_error"):
-        lines += _measurement_error_lines(d["measurement_error"])
-    if d.get("streams"):
-        lines += _stream_lines(d["streams"], lsl, usl)
-    tm = d.get("time_model")
-    if tm:
+    return lines
+
+
+def _time_model_lines(tm: dict | None) -> list[str]:
+    """The ISO 22514-2 class and its indices, when classified."""
+    if not tm:
+        return []
+    lines = [
+        f"time-dependent model (ISO 22514-2, from memory): "
+        f"{tm['class'] or 'not classified'} - {tm['reason']}"
+    ]
+    if tm["indices"]:
         lines.append(
-            f"time-dependent model (ISO 22514-2, from memory): "
-            f"{tm['class'] or 'not classified'} - {tm['reason']}"
+            "  by the class's method ("
+            + tm["method"]
+            + "): "
+            + ", ".join(f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items())
         )
-        if tm["indices"]:
-            lines.append(
-                "  by the class's method ("
-                + tm["method"]
-                + "): "
-                + ", ".join(f"{_PRETTY.get(k, k)} {_fmt(v, 4)}" for k, v in tm["indices"].items())
-            )
-    if d["model_band"] and d["model_band"].get("warning"):
-        lines.append(f"model band: {d['model_band']['warning']}")
-    if d["plan"]:
-        lines.append(f"planning: {d['plan']['text']}")
-    for w in d["warnings"]:
-        lines.append(f"warning: {w}")
-    return "\n".join(lines) + "\n"
+    return lines
