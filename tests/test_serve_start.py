@@ -98,7 +98,7 @@ def test_pool_refill_waits_until_the_handed_out_kernel_has_run_the_notebook():
         await asyncio.sleep(0.2)
         assert km.fills == [0, km.fill_delay]  # then Voila's usual refill
 
-    asyncio.run(scenario())
+    _run(scenario())
 
 
 def test_pool_refill_waits_at_most_wait_s():
@@ -111,4 +111,13 @@ def test_pool_refill_waits_at_most_wait_s():
         await asyncio.sleep(0.3)
         assert km.fills == [km.fill_delay]
 
-    asyncio.run(scenario())
+    _run(scenario())
+
+
+def _run(coro):
+    """Run ``coro`` on a fresh event loop in its own thread: an earlier test of the suite may
+    leave a loop running in this thread, where ``asyncio.run`` refuses to start."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(1) as pool:
+        return pool.submit(asyncio.run, coro).result()

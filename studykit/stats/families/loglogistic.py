@@ -90,15 +90,7 @@ class Loglogistic(Family):
         sd = np.sqrt(rowsum(c * c) / n)
         v_all = c / sd[:, None]
         vv_all = v_all * v_all
-        # start: location = median, scale = mean absolute deviation from the median / (2 ln 2)
-        # (the logistic's E|X - mu| = 2 s ln 2; less swayed than the sd by the one far reading of
-        # a threshold close to min(x): half the Newton steps on the profile grid)
-        if start is None:
-            med = median_1d(v_all, axis=1)
-            a_all = (2.0 * math.log(2.0) * n) / rowsum(np.abs(v_all - med[:, None]))
-            b_all = med * a_all
-        else:
-            a_all, b_all = (np.array(x, dtype=float) for x in start)  # updated in place
+        a_all, b_all = _row_start(v_all, n, start)  # updated in place
 
         # sums of v and v^2 per row (n and 0 up to rounding): the Hessian sums below use
         # sum (1 - t^2) w = sum w - sum t^2 w, with t = tanh(z/2)
@@ -106,28 +98,14 @@ class Loglogistic(Family):
         tol = 1e-3 if rough else 1e-5
 
         def ev(v, a, b):
-            """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
-            log-density derivatives of :func:`logistic_terms` are -t and -(1 - t^2)/2."""
-            z = a[:, None] * v - b[:, None]
-            az = np.abs(z)
-            t = np.tanh(0.5 * z)
-            lg = rowsum(az) + 2.0 * rowsum(np.log1p(np.exp(-az)))
-            return n * np.log(a) - lg, t, t * t
+            return _row_terms(v, a, b, n)
 
         ll_all, t1, q1 = ev(v_all, a_all, b_all)
         active = np.arange(a_all.size)
         v, vv, s_v, s_vv = v_all, vv_all, s_v_all, s_vv_all
         a, b, ll = a_all, b_all, ll_all
         for _ in range(100):
-            ga = n / a - rowsum(t1 * v)
-            gb = rowsum(t1)
-            haa = -0.5 * (s_vv - rowsum(q1 * vv)) - n / (a * a)
-            hab = 0.5 * (s_v - rowsum(q1 * v))
-            hbb = -0.5 * (n - rowsum(q1))
-            det = haa * hbb - hab * hab
-            da = -(hbb * ga - hab * gb) / det
-            db = -(haa * gb - hab * ga) / det
-            dec = ga * da + gb * db
+            da, db, dec = _newton_step(n, a, t1, q1, v, vv, s_v, s_vv)
             done = ~(dec > 1e-20)  # (NaN included) no step left to take
             # the full Newton step, halved (at most 39 times) for each row whose likelihood
             # it lowers; a row's values change in place once its step is accepted
@@ -207,3 +185,39 @@ class Loglogistic3(ThresholdVariant, Loglogistic):
 
 
 FAMILY_OBJECTS = (Loglogistic(), Loglogistic3())
+
+
+def _row_start(v_all, n, start):
+    """Starting (a, b) per row: location = median, scale = mean absolute deviation from the
+    median / (2 ln 2) (the logistic's E|X - mu| = 2 s ln 2; less swayed than the sd by the one far
+    reading of a threshold close to min(x): half the Newton steps on the profile grid), or the
+    given ``start`` (copied)."""
+    if start is None:
+        med = median_1d(v_all, axis=1)
+        a_all = (2.0 * math.log(2.0) * n) / rowsum(np.abs(v_all - med[:, None]))
+        return a_all, med * a_all
+    a_all, b_all = (np.array(x, dtype=float) for x in start)
+    return a_all, b_all
+
+
+def _row_terms(v, a, b, n):
+    """Log-likelihood (standardised units), t = tanh(z/2) and t^2 at z = a v - b; the
+    log-density derivatives of :func:`logistic_terms` are -t and -(1 - t^2)/2."""
+    z = a[:, None] * v - b[:, None]
+    az = np.abs(z)
+    t = np.tanh(0.5 * z)
+    lg = rowsum(az) + 2.0 * rowsum(np.log1p(np.exp(-az)))
+    return n * np.log(a) - lg, t, t * t
+
+
+def _newton_step(n, a, t1, q1, v, vv, s_v, s_vv):
+    """The Newton step (da, db) in (a, b) per row and its decrement."""
+    ga = n / a - rowsum(t1 * v)
+    gb = rowsum(t1)
+    haa = -0.5 * (s_vv - rowsum(q1 * vv)) - n / (a * a)
+    hab = 0.5 * (s_v - rowsum(q1 * v))
+    hbb = -0.5 * (n - rowsum(q1))
+    det = haa * hbb - hab * hab
+    da = -(hbb * ga - hab * gb) / det
+    db = -(haa * gb - hab * ga) / det
+    return da, db, ga * da + gb * db
