@@ -24,10 +24,7 @@ LIMIT = 15
 KNOWN = {
     ("studykit/io/assemble.py", "assemble_long"),
     ("studykit/io/assemble.py", "assemble_wide"),
-    ("studykit/io/csv_reader.py", "open_csv"),
     ("studykit/io/readers.py", "_read_table"),
-    ("studykit/io/source.py", "inspect"),
-    ("studykit/io/xlsx_reader.py", "_xlsx_table"),
     ("studykit/report/pdf.py", "_characteristic_section"),
 }
 

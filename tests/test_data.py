@@ -664,11 +664,11 @@ def test_clean_csv_uses_the_fast_reader(monkeypatch):
 
     monkeypatch.setattr(data, "_with_fast_path", spy)
     read_measurements_bytes(b"Subgroup;A [mm]\n1;1,5\n1;\n2;2,5\n", "x.csv")
-    assert used == ["fast_chunks"]
+    assert used == ["_float_chunks"]
     used.clear()
     with pytest.raises(DataFileError, match="'abc' is not a number"):
         read_measurements_bytes(b"A\n1\nabc\n", "x.csv")
-    assert used == ["fast_chunks", "chunks"]  # the fallback finds the cell
+    assert used == ["_float_chunks", "_text_chunks"]  # the fallback finds the cell
 
 
 def test_title_rows_above_the_header_are_skipped(tmp_path):

@@ -6,6 +6,7 @@ Part of :mod:`studykit.io` (moved unchanged from ``studykit/data.py``).
 from __future__ import annotations
 
 import csv
+import functools
 import re
 
 import numpy as np
@@ -82,9 +83,25 @@ def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
 
 
 def open_csv(src: Source) -> Table:
-    import pandas as pd
-
     lines = _sample_lines(src)
+    first_line = _first_filled_line(src, lines)
+    sep, header_index = _sniff(lines, first_line, src.name)
+    header = [h.strip() for h in _csv_rows([lines[header_index]], delimiter=sep, file=src.name)[0]]
+    decimal = _decimal_sign(lines[header_index + 1 : header_index + 200], sep, src.name)
+    return Table(
+        header=header,
+        header_row=header_index + 1,
+        open_chunks=functools.partial(_text_chunks, src, header, sep, header_index),
+        fast_chunks=functools.partial(_float_chunks, src, len(header), sep, header_index, decimal),
+        separator=sep,
+        decimal=decimal,
+        text_cells=True,
+        title_rows=(first_line + 1, header_index) if header_index > first_line else None,
+    )
+
+
+def _first_filled_line(src: Source, lines: list[str]) -> int:
+    """Index of the first sample line holding more than separators (a title or the header)."""
     if not lines and src.sample_truncated:
         raise DataFileError(
             f"the first line is longer than {human_size(HEADER_MAX_BYTES)} without a line "
@@ -94,128 +111,120 @@ def open_csv(src: Source) -> Table:
             file=src.name,
             row=1,
         )
-    header_index = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
-    if header_index is None:
+    first = next((i for i, ln in enumerate(lines) if ln.strip(" \t,;")), None)
+    if first is None:
         raise DataFileError(
             "the file holds no header and no values (only empty lines or separators). Export "
             "the measurements again with the column names in the first row.",
             file=src.name,
         )
-    first_line = header_index
-    sep, header_index = _sniff(lines, header_index, src.name)
-    header = [h.strip() for h in _csv_rows([lines[header_index]], delimiter=sep, file=src.name)[0]]
+    return first
 
-    # decimal sign from the sample cells
+
+def _decimal_sign(lines: list[str], sep: str, file) -> str:
+    """``","`` when more sample cells hold a decimal comma than a decimal point, else ``"."``."""
     n_comma = n_point = 0
-    for rec in _csv_rows(
-        lines[header_index + 1 : header_index + 200], delimiter=sep, file=src.name
-    ):
+    for rec in _csv_rows(lines, delimiter=sep, file=file):
         for cell in rec:
             cell = cell.strip()
             if COMMA_DECIMAL_RE.match(cell):
                 n_comma += 1
             elif POINT_DECIMAL_RE.match(cell):
                 n_point += 1
-    decimal = "," if n_comma > n_point else "."
+    return "," if n_comma > n_point else "."
 
-    def chunks():
-        handle = src.binary()
-        try:
-            reader = pd.read_csv(
-                handle,
-                sep=sep,
-                header=None,
-                skiprows=header_index,
-                dtype=object,
-                keep_default_na=False,
-                na_filter=False,
-                skip_blank_lines=False,
-                chunksize=_CHUNK_ROWS,
-                encoding=src.encoding,
-                quotechar='"',
-                engine="c",
-                encoding_errors="strict",
-            )
-            start = header_index + 1  # spreadsheet row of the reader's first line (the header)
-            first = True
-            for frame in reader:
-                cols = [frame[c].to_numpy(dtype=object) for c in frame.columns]
-                rows = np.arange(start, start + len(frame), dtype=np.int64)
-                start += len(frame)
-                if first:
-                    cols = [c[1:] for c in cols]
-                    rows = rows[1:]
-                    first = False
-                yield rows, cols
-        except pd.errors.ParserError as exc:
-            raise _translate_parser_error(exc, src, header, sep) from None
-        except UnicodeDecodeError as exc:
-            raise DataFileError(
-                f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
-                + (
-                    "Leave the encoding out to have it detected, or give the one the file was "
-                    "saved with (e.g. 'cp1252' or 'utf-16')."
-                    if src.encoding_given
-                    else "Save the file as UTF-8 CSV, or give its encoding explicitly."
-                ),
-                file=src.name,
-            ) from None
-        finally:
-            handle.close()
 
-    def fast_chunks(float_cols):
-        """Numbers parsed by pandas' C reader; any doubt raises _Fallback."""
-        width = len(header)
-        handle = src.binary()
-        try:
-            reader = pd.read_csv(
-                handle,
-                sep=sep,
-                header=None,
-                skiprows=header_index + 1,
-                names=list(range(width)),
-                dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
-                decimal=decimal,
-                keep_default_na=False,
-                na_values=[""],
-                na_filter=True,
-                skip_blank_lines=False,
-                chunksize=_CHUNK_ROWS,
-                encoding=src.encoding,
-                quotechar='"',
-                engine="c",
-                encoding_errors="strict",
-            )
-            start = header_index + 2
-            for frame in reader:
-                if frame.shape[1] != width or not frame.index.equals(
-                    pd.RangeIndex(start - header_index - 2, start - header_index - 2 + len(frame))
-                ):
-                    raise Fallback
-                cols = []
-                for j in range(width):
-                    if j in float_cols:
-                        cols.append(np.array(frame[j], dtype=np.float64))
-                    else:
-                        cols.append(frame[j].fillna("").to_numpy(dtype=object))
-                rows = np.arange(start, start + len(frame), dtype=np.int64)
-                start += len(frame)
-                yield rows, cols
-        except (ValueError, TypeError, OverflowError, pd.errors.ParserError, UnicodeDecodeError):
-            raise Fallback from None
-        finally:
-            handle.close()
+def _pandas_reader(handle, src: Source, sep: str, skiprows: int, **options):
+    """pandas' C reader in chunks over the file below ``skiprows`` lines, every cell kept."""
+    import pandas as pd
 
-    return Table(
-        header=header,
-        header_row=header_index + 1,
-        open_chunks=chunks,
-        fast_chunks=fast_chunks,
-        separator=sep,
-        decimal=decimal,
-        text_cells=True,
-        title_rows=(first_line + 1, header_index) if header_index > first_line else None,
+    return pd.read_csv(
+        handle,
+        sep=sep,
+        header=None,
+        skiprows=skiprows,
+        keep_default_na=False,
+        skip_blank_lines=False,
+        chunksize=_CHUNK_ROWS,
+        encoding=src.encoding,
+        quotechar='"',
+        engine="c",
+        encoding_errors="strict",
+        **options,
     )
+
+
+def _text_chunks(src: Source, header: list, sep: str, header_index: int):
+    """(spreadsheet rows, text columns) chunks of the rows below the header."""
+    import pandas as pd
+
+    handle = src.binary()
+    try:
+        reader = _pandas_reader(handle, src, sep, header_index, dtype=object, na_filter=False)
+        start = header_index + 1  # spreadsheet row of the reader's first line (the header)
+        first = True
+        for frame in reader:
+            cols = [frame[c].to_numpy(dtype=object) for c in frame.columns]
+            rows = np.arange(start, start + len(frame), dtype=np.int64)
+            start += len(frame)
+            if first:
+                cols = [c[1:] for c in cols]
+                rows = rows[1:]
+                first = False
+            yield rows, cols
+    except pd.errors.ParserError as exc:
+        raise _translate_parser_error(exc, src, header, sep) from None
+    except UnicodeDecodeError as exc:
+        raise DataFileError(
+            f"the text cannot be read as {src.encoding_label or src.encoding} ({exc.reason}). "
+            + (
+                "Leave the encoding out to have it detected, or give the one the file was "
+                "saved with (e.g. 'cp1252' or 'utf-16')."
+                if src.encoding_given
+                else "Save the file as UTF-8 CSV, or give its encoding explicitly."
+            ),
+            file=src.name,
+        ) from None
+    finally:
+        handle.close()
+
+
+def _float_chunks(src: Source, width: int, sep: str, header_index: int, decimal: str, float_cols):
+    """Numbers parsed by pandas' C reader; any doubt raises Fallback."""
+    import pandas as pd
+
+    handle = src.binary()
+    try:
+        reader = _pandas_reader(
+            handle,
+            src,
+            sep,
+            header_index + 1,
+            names=list(range(width)),
+            dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
+            decimal=decimal,
+            na_values=[""],
+            na_filter=True,
+        )
+        start = header_index + 2
+        for frame in reader:
+            if frame.shape[1] != width or not frame.index.equals(
+                pd.RangeIndex(start - header_index - 2, start - header_index - 2 + len(frame))
+            ):
+                raise Fallback
+            cols = []
+            for j in range(width):
+                if j in float_cols:
+                    cols.append(np.array(frame[j], dtype=np.float64))
+                else:
+                    cols.append(frame[j].fillna("").to_numpy(dtype=object))
+            rows = np.arange(start, start + len(frame), dtype=np.int64)
+            start += len(frame)
+            yield rows, cols
+    except (ValueError, TypeError, OverflowError, pd.errors.ParserError, UnicodeDecodeError):
+        raise Fallback from None
+    finally:
+        handle.close()
 
 
 def _translate_parser_error(exc, src: Source, header: list, sep: str) -> DataFileError:

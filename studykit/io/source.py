@@ -11,6 +11,7 @@ import io
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import NoReturn
 
 from studykit.errors import DataFileError
 
@@ -79,6 +80,28 @@ _UNDEFINED_CP1252 = (b"\x81", b"\x8d", b"\x8f", b"\x90", b"\x9d")
 
 def inspect(src: Source, encoding: str | None) -> None:
     """One pass over the bytes: digest, kind, encoding and a decoded sample."""
+    scan = _scan(src)
+    _refuse_empty(src, scan.head)
+    src.kind = _kind(src, scan.head)
+    if src.kind == "xlsx":
+        return
+    src.encoding, src.encoding_label = _encoding(src, scan, encoding)
+    _decode_sample(src, scan.head)
+
+
+@dataclass
+class _Scan:
+    """What one pass over the bytes found: the head (the sample read for the header) and
+    whether the whole file is valid UTF-8, holds a NUL byte, or avoids cp1252's undefined bytes."""
+
+    head: bytes
+    utf8_ok: bool
+    has_nul: bool
+    cp1252_ok: bool
+
+
+def _scan(src: Source) -> _Scan:
+    """Read every block once: the SHA-256 (set on ``src``), the head and the encoding clues."""
     digest = hashlib.sha256()
     head = b""
     utf8 = codecs.getincrementaldecoder("utf-8")()
@@ -111,17 +134,23 @@ def inspect(src: Source, encoding: str | None) -> None:
         except UnicodeDecodeError:
             utf8_ok = False
     src.sha256 = digest.hexdigest()
+    return _Scan(head, utf8_ok, has_nul, cp1252_ok)
 
+
+def _refuse_empty(src: Source, head: bytes) -> None:
     if src.size == 0 or not head.strip(b" \t\r\n\x00\xef\xbb\xbf\xff\xfe"):
         raise DataFileError(
             "the file is empty. Export the measurements again: the first row must name the "
             "columns and each following row holds the values of one part.",
             file=src.name,
         )
+
+
+def _kind(src: Source, head: bytes) -> str:
+    """``"xlsx"`` for a zip package, ``"csv"`` for text; old or misnamed Excel files refused."""
     suffix = Path(src.name).suffix.lower()
     if head.startswith(b"PK\x03\x04"):
-        src.kind = "xlsx"
-        return
+        return "xlsx"
     if head.startswith(b"\xd0\xcf\x11\xe0"):
         raise DataFileError(
             "this is an old-style Excel file (.xls) or a password-protected Excel file, which "
@@ -136,8 +165,13 @@ def inspect(src: Source, encoding: str | None) -> None:
             "rename it to .csv if it is a text export.",
             file=src.name,
         )
-    src.kind = "csv"
+    return "csv"
 
+
+def _encoding(src: Source, scan: _Scan, encoding: str | None) -> tuple[str, str]:
+    """(codec, label) of a text file: the one given (checked), a BOM, UTF-16 by its NUL bytes,
+    UTF-8, cp1252, else Latin-1; a binary file is refused."""
+    head = scan.head
     if encoding:
         try:
             codecs.lookup(encoding)
@@ -148,26 +182,26 @@ def inspect(src: Source, encoding: str | None) -> None:
                 file=src.name,
                 value=encoding,
             ) from None
-        enc, label = encoding, encoding
         src.encoding_given = True
-    elif head.startswith(codecs.BOM_UTF8):
-        enc, label = "utf-8-sig", "UTF-8 with BOM"
-    elif head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
-        enc, label = "utf-16", "UTF-16 with BOM"
-    elif has_nul and _looks_utf16(head):
-        enc = "utf-16-le" if head[1:2] == b"\x00" else "utf-16-be"
-        label = "UTF-16 without BOM"
-    elif has_nul:
+        return encoding, encoding
+    if head.startswith(codecs.BOM_UTF8):
+        return "utf-8-sig", "UTF-8 with BOM"
+    if head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        return "utf-16", "UTF-16 with BOM"
+    if scan.has_nul and _looks_utf16(head):
+        return ("utf-16-le" if head[1:2] == b"\x00" else "utf-16-be"), "UTF-16 without BOM"
+    if scan.has_nul:
         _raise_binary(src, head.index(b"\x00") if b"\x00" in head else None)
-    elif utf8_ok:
-        enc, label = "utf-8", "UTF-8"
-    elif cp1252_ok:
-        enc, label = "cp1252", "Windows-1252 (Latin-1)"
-    else:
-        enc, label = "latin-1", "Latin-1 (ISO-8859-1)"
-    src.encoding, src.encoding_label = enc, label
+    if scan.utf8_ok:
+        return "utf-8", "UTF-8"
+    if scan.cp1252_ok:
+        return "cp1252", "Windows-1252 (Latin-1)"
+    return "latin-1", "Latin-1 (ISO-8859-1)"
 
-    dec = codecs.getincrementaldecoder(enc)(errors="replace")
+
+def _decode_sample(src: Source, head: bytes) -> None:
+    """Decode the head into ``src.sample``; refuse a text that is mostly control characters."""
+    dec = codecs.getincrementaldecoder(src.encoding)(errors="replace")
     text = dec.decode(head, final=len(head) >= src.size)
     if text.startswith("\ufeff"):
         text = text[1:]
@@ -192,7 +226,7 @@ def _looks_utf16(head: bytes) -> bool:
     return max(even, odd) > 0.4 * n / 2 and min(even, odd) < 0.05 * n / 2
 
 
-def _raise_binary(src: Source, offset) -> None:
+def _raise_binary(src: Source, offset) -> NoReturn:
     where = f" (unreadable bytes near byte {offset})" if offset is not None else ""
     raise DataFileError(
         f"the file does not look like a text table{where}. It may be damaged, or a program "

@@ -220,6 +220,32 @@ def _xlsx_header(ws):
 
 
 def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) -> Table:
+    fill = _merged_fill(src, wb, merged, header, header_row)
+
+    def chunks():
+        at = [header_row]  # the last row read, for the message if the next one fails
+        try:  # a damaged sheet fails while its rows are read: say where
+            yield from _xlsx_rows(src, ws, header_row, len(header), at)
+        except StudyInputError:
+            raise
+        except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged sheet
+            raise _xlsx_failure(src, exc, sheet=sheet_name, row=at[0] + 1) from None
+
+    return Table(
+        header=header,
+        header_row=header_row,
+        open_chunks=chunks,
+        text_cells=False,
+        merged_fill=fill,
+        sheet=sheet_name,
+        close=wb.close,
+        title_rows=(first_row, header_row - 1) if header_row > first_row else None,
+    )
+
+
+def _merged_fill(src, wb, merged, header, header_row) -> dict[int, list]:
+    """{column index: [(first row, last row), ...]} of the merged ranges below the header
+    (one column each); merged header cells are refused."""
     fill: dict[int, list] = {}
     for r1, c1, r2, c2 in merged:
         if r1 <= header_row <= r2 and (c1 != c2 or r1 != r2):
@@ -236,64 +262,50 @@ def _xlsx_table(src, wb, ws, sheet_name, merged, header, header_row, first_row) 
             )
         if r1 > header_row and c1 == c2:
             fill.setdefault(c1 - 1, []).append((r1, r2))
+    return fill
 
-    width = len(header)
 
-    def chunks():
-        at = [header_row]  # the last row read, for the message if the next one fails
-        try:  # a damaged sheet fails while its rows are read: say where
-            yield from xlsx_rows(at)
-        except StudyInputError:
-            raise
-        except Exception as exc:  # noqa: BLE001 - any parser failure on a damaged sheet
-            raise _xlsx_failure(src, exc, sheet=sheet_name, row=at[0] + 1) from None
-
-    def xlsx_rows(at):
-        rows_buf: list[int] = []
-        cols_buf: list[list] = [[] for _ in range(width)]
-        r = header_row
-        for values in ws.iter_rows(min_row=header_row + 1, values_only=True):
-            r += 1
-            at[0] = r
-            rows_buf.append(r)
-            nv = len(values)
-            for j in range(width):
-                v = values[j] if j < nv else None
-                if v is None:
-                    v = ""
-                elif isinstance(v, str):
-                    v = v.strip()
-                cols_buf[j].append(v)
-            if nv > width:
-                for j in range(width, nv):
-                    v = values[j]
-                    if v is not None and str(v).strip() != "":
-                        raise DataFileError(
-                            f"there is a value ('{show(v)}') in column "
-                            f"{col_letter(j)}, which has no name in the header row. "
-                            "Give the column a name in the header or delete the value.",
-                            file=src.name,
-                            row=r,
-                            column=col_letter(j),
-                            value=v,
-                        )
-            if len(rows_buf) >= _XLSX_CHUNK_ROWS:
-                yield _xlsx_chunk(rows_buf, cols_buf)
-                rows_buf = []
-                cols_buf = [[] for _ in range(width)]
-        if rows_buf:
+def _xlsx_rows(src, ws, header_row, width, at):
+    """The rows below the header in chunks of (rows, columns); ``at[0]`` is the row being read."""
+    rows_buf: list[int] = []
+    cols_buf: list[list] = [[] for _ in range(width)]
+    r = header_row
+    for values in ws.iter_rows(min_row=header_row + 1, values_only=True):
+        r += 1
+        at[0] = r
+        rows_buf.append(r)
+        nv = len(values)
+        for j in range(width):
+            v = values[j] if j < nv else None
+            if v is None:
+                v = ""
+            elif isinstance(v, str):
+                v = v.strip()
+            cols_buf[j].append(v)
+        if nv > width:
+            _refuse_unnamed_values(src, values, width, r)
+        if len(rows_buf) >= _XLSX_CHUNK_ROWS:
             yield _xlsx_chunk(rows_buf, cols_buf)
+            rows_buf = []
+            cols_buf = [[] for _ in range(width)]
+    if rows_buf:
+        yield _xlsx_chunk(rows_buf, cols_buf)
 
-    return Table(
-        header=header,
-        header_row=header_row,
-        open_chunks=chunks,
-        text_cells=False,
-        merged_fill=fill,
-        sheet=sheet_name,
-        close=wb.close,
-        title_rows=(first_row, header_row - 1) if header_row > first_row else None,
-    )
+
+def _refuse_unnamed_values(src, values, width, r) -> None:
+    """Refuse a value to the right of the last named column."""
+    for j in range(width, len(values)):
+        v = values[j]
+        if v is not None and str(v).strip() != "":
+            raise DataFileError(
+                f"there is a value ('{show(v)}') in column "
+                f"{col_letter(j)}, which has no name in the header row. "
+                "Give the column a name in the header or delete the value.",
+                file=src.name,
+                row=r,
+                column=col_letter(j),
+                value=v,
+            )
 
 
 def _xlsx_chunk(rows_buf, cols_buf):
@@ -374,17 +386,7 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
                 for j, row in targets.items():
                     f = formulas[j] if formulas is not None and j < len(formulas) else None
                     if row == r and isinstance(f, str) and f.startswith("="):
-                        raise DataFileError(
-                            f"the cell holds the formula '{show(f)}' but no stored result: the "
-                            "workbook was saved by a program that does not calculate formulas, "
-                            "so the value is unknown. Open the workbook in a spreadsheet "
-                            "program, let it calculate, save it, and load it again (or paste "
-                            "the values).",
-                            file=src.name,
-                            row=r,
-                            column=table.header[j] or col_letter(j),
-                            value=f,
-                        )
+                        raise _unsaved_formula(src, table, r, j, f)
         finally:
             wb.close()
             handle.close()
@@ -411,18 +413,23 @@ def _check_unsaved_formulas_inner(src, table, targets: dict[int, int] | None = N
             for j, f in enumerate(formulas or ()):
                 v = values[j] if values is not None and j < len(values) else None
                 if v is None and isinstance(f, str) and f.startswith("="):
-                    raise DataFileError(
-                        f"the cell holds the formula '{show(f)}' but no stored result: the "
-                        "workbook was saved by a program that does not calculate formulas, so "
-                        "the value is unknown. Open the workbook in a spreadsheet program, let "
-                        "it calculate, save it, and load it again (or paste the values).",
-                        file=src.name,
-                        row=r,
-                        column=table.header[j] or col_letter(j),
-                        value=f,
-                    )
+                    raise _unsaved_formula(src, table, r, j, f)
     finally:
         wb.close()
         wb_values.close()
         handle.close()
         handle_values.close()
+
+
+def _unsaved_formula(src, table, r: int, j: int, formula: str) -> DataFileError:
+    """The message for a formula cell (row ``r``, column index ``j``) with no stored result."""
+    return DataFileError(
+        f"the cell holds the formula '{show(formula)}' but no stored result: the "
+        "workbook was saved by a program that does not calculate formulas, so "
+        "the value is unknown. Open the workbook in a spreadsheet program, let "
+        "it calculate, save it, and load it again (or paste the values).",
+        file=src.name,
+        row=r,
+        column=table.header[j] or col_letter(j),
+        value=formula,
+    )
