@@ -6,6 +6,8 @@ Part of :mod:`studykit.io` (moved unchanged from ``studykit/data.py``).
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from studykit.errors import DataFileError
@@ -212,78 +214,35 @@ def _classify(table, ctx, role, notes) -> dict:
     return kinds
 
 
-def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_):
+def role_index(role: dict, what: str) -> int | None:
+    """The column index holding role ``what`` (``"subgroup"``, ``"time"``, ...), or None."""
+    return next((j for j, r in role.items() if r == what), None)
+
+
+def assemble_wide(src, table, ctx, role, subgroup_size, notes, warnings_):
+    """One characteristic per value column; the columns' roles (subgroup, time, note) in
+    ``role``. Returns (characteristics, number of rows read)."""
     header = table.header
+    sg_idx, t_idx, n_idx = (role_index(role, r) for r in ("subgroup", "time", "note"))
     kinds = _classify(table, ctx, role, notes)
     float_cols = {j for j, k in kinds.items() if k == "value"}
-
-    def collect(chunks):
-        rows_acc = Acc()
-        filled_acc = Acc()
-        value_acc = {j: Acc() for j in float_cols}
-        sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(table.text_cells), _LabelAcc()
-        for rows, cols in chunks:
-            row_filled = np.zeros(len(rows), dtype=bool)
-            for j, cells in enumerate(cols):
-                k = kinds.get(j, "unnamed")
-                if k == "unnamed":
-                    _check_unnamed(src, header, table.header_row, j, cells, rows, table.text_cells)
-                    continue
-                if k == "value":
-                    vals, empty = numeric(ctx, cells, rows, header[j])
-                    value_acc[j].add(vals)
-                    row_filled |= ~empty
-                elif k == "time":
-                    filled = t_acc.add(cells)
-                    row_filled |= (
-                        filled if filled is not None else filled_mask(cells, table.text_cells)
-                    )
-                else:
-                    row_filled |= filled_mask(cells, table.text_cells)
-                    if k == "text":
-                        check_text_column(src.name, cells, rows, header[j])
-                    elif k == "subgroup":
-                        sg_acc.add(label_array(cells, table.text_cells))
-                    elif k == "note":
-                        n_acc.add(label_array(cells, table.text_cells))
-            rows_acc.add(rows)
-            filled_acc.add(row_filled)
-        return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
-
+    collect = functools.partial(_collect_wide, src, table, ctx, kinds, float_cols)
     rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _with_fast_path(
         table, float_cols, collect
     )
     rows = rows_acc.result(np.int64)
     filled = filled_acc.result(bool)
-    if not filled.any():
-        raise DataFileError(
-            "the file has a header but no values below it. Add the measurements, one row per "
-            "part, under the column names.",
-            file=src.name,
-            row=table.header_row + 1,
-        )
+    _refuse_no_values(src, table, filled, "part")
     last = int(np.flatnonzero(filled)[-1]) + 1
-    keep = np.ones(last, dtype=bool)
     filled = filled[:last]
     rows = rows[:last]
-    interior_empty = np.flatnonzero(~filled)
     sg = sg_acc.result_codes()[:last] if sg_idx is not None else None
     empty_code = sg_acc.index.get("", -1)
     if sg is not None:
         sg = _fill_merged(
             sg, rows, table.merged_fill.get(sg_idx, ()), notes, header[sg_idx], empty_code
         )
-    if interior_empty.size:
-        if sg is not None:
-            keep[interior_empty] = False
-            notes.append(
-                f"empty {row_word(interior_empty.size)} skipped: {fmt_rows(rows[interior_empty])}"
-            )
-        else:
-            notes.append(
-                "empty rows kept as missing values (they may be parts that were not measured): "
-                + fmt_rows(rows[interior_empty])
-            )
+    keep = _empty_rows(rows, filled, sg is not None, notes)
     all_kept = bool(keep.all())
 
     def kept(a):
@@ -291,33 +250,20 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
 
     rows = kept(rows)
     if sg is not None:
-        sg = kept(sg)
-        no_label = np.flatnonzero(sg == empty_code)
-        if no_label.size:
-            i = int(no_label[0])
-            raise DataFileError(
-                f"this row has values but no subgroup label. Every row needs its subgroup in "
-                f"column '{header[sg_idx]}' (rows without a label: {fmt_rows(rows[no_label])}). "
-                "Fill in the labels, or leave out the subgroup column to read individuals.",
-                file=src.name,
-                row=int(rows[i]),
-                column=header[sg_idx],
-                value="",
-            )
-        label_text = sg_acc.labels().astype(str)
-        codes = sg
-
-        def labels_of(u):
-            return label_text[u]
-
-        subgroups = label_text[codes]
+        codes = kept(sg)
+        _refuse_unlabelled(
+            src,
+            header[sg_idx],
+            rows,
+            codes,
+            empty_code,
+            lead="this row has values but no subgroup label. Every row needs its subgroup in",
+        )
+        labels_of = sg_acc.labels().astype(str).__getitem__
     else:
         codes = np.arange(rows.size) // (subgroup_size or 1)
-
-        def labels_of(u):
-            return _position_labels(u)
-
-        subgroups = labels_of(codes)
+        labels_of = _position_labels
+    subgroups = labels_of(codes)
     times = kept(t_acc.result(notes)[:last]) if t_idx is not None else None
     note_arr = kept(n_acc.result()[:last]) if n_idx is not None else None
     for a in (rows, subgroups, times, note_arr):
@@ -356,6 +302,84 @@ def assemble_wide(src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, no
     if t_idx is not None and plain_numbers(times):
         warnings_.append(time_header_hint(header, t_idx, times).strip())
     return characteristics, int(rows.size)
+
+
+def _collect_wide(src, table, ctx, kinds, float_cols, chunks):
+    """Read the chunks of a wide table: rows, filled-row masks, values, subgroups, times, notes."""
+    header = table.header
+    rows_acc = Acc()
+    filled_acc = Acc()
+    value_acc = {j: Acc() for j in float_cols}
+    sg_acc, t_acc, n_acc = _LabelAcc(), _TimeAcc(table.text_cells), _LabelAcc()
+    for rows, cols in chunks:
+        row_filled = np.zeros(len(rows), dtype=bool)
+        for j, cells in enumerate(cols):
+            k = kinds.get(j, "unnamed")
+            if k == "unnamed":
+                _check_unnamed(src, header, table.header_row, j, cells, rows, table.text_cells)
+                continue
+            if k == "value":
+                vals, empty = numeric(ctx, cells, rows, header[j])
+                value_acc[j].add(vals)
+                row_filled |= ~empty
+            elif k == "time":
+                filled = t_acc.add(cells)
+                row_filled |= filled if filled is not None else filled_mask(cells, table.text_cells)
+            else:
+                row_filled |= filled_mask(cells, table.text_cells)
+                if k == "text":
+                    check_text_column(src.name, cells, rows, header[j])
+                elif k == "subgroup":
+                    sg_acc.add(label_array(cells, table.text_cells))
+                elif k == "note":
+                    n_acc.add(label_array(cells, table.text_cells))
+        rows_acc.add(rows)
+        filled_acc.add(row_filled)
+    return rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc
+
+
+def _refuse_no_values(src, table, filled, per: str) -> None:
+    """Refuse a table with a header and nothing below it (``per``: one row per part or value)."""
+    if not filled.any():
+        raise DataFileError(
+            "the file has a header but no values below it. Add the measurements, one row per "
+            f"{per}, under the column names.",
+            file=src.name,
+            row=table.header_row + 1,
+        )
+
+
+def _empty_rows(rows, filled, skip: bool, notes) -> np.ndarray:
+    """The rows to keep: empty rows inside a wide table are skipped when subgroups come from
+    a column (``skip``), else kept as missing values; a note says which."""
+    keep = np.ones(rows.size, dtype=bool)
+    interior_empty = np.flatnonzero(~filled)
+    if interior_empty.size:
+        if skip:
+            keep[interior_empty] = False
+            notes.append(
+                f"empty {row_word(interior_empty.size)} skipped: {fmt_rows(rows[interior_empty])}"
+            )
+        else:
+            notes.append(
+                "empty rows kept as missing values (they may be parts that were not measured): "
+                + fmt_rows(rows[interior_empty])
+            )
+    return keep
+
+
+def _refuse_unlabelled(src, column, rows, codes, empty_code, *, lead: str) -> None:
+    """Refuse rows without a subgroup label (``codes == empty_code``) at the first one."""
+    no_label = np.flatnonzero(codes == empty_code)
+    if no_label.size:
+        raise DataFileError(
+            f"{lead} column '{column}' (rows without a label: {fmt_rows(rows[no_label])}). "
+            "Fill in the labels, or leave out the subgroup column to read individuals.",
+            file=src.name,
+            row=int(rows[int(no_label[0])]),
+            column=column,
+            value="",
+        )
 
 
 def _fill_merged(codes, rows, ranges, notes, colname, empty_code):
@@ -518,82 +542,25 @@ def subgroup_messages(chars, subgroup_source, notes, warnings_):
         (warnings_ if kind == "warn" else notes).append(f"{who}: {text}")
 
 
-def assemble_long(
-    src,
-    table,
-    ctx,
-    role,
-    char_idx,
-    value_idx,
-    sg_idx,
-    t_idx,
-    n_idx,
-    subgroup_size,
-    notes,
-    warnings_,
-):
+def assemble_long(src, table, ctx, role, subgroup_size, notes, warnings_):
+    """One characteristic per name in the characteristic column of a long table; the columns'
+    roles (characteristic, value, subgroup, time, note, unit) in ``role``. Returns
+    (characteristics, number of rows read)."""
     header = table.header
-    unit_idx = next((j for j, r in role.items() if r == "unit"), None)
+    char_idx, value_idx, sg_idx, t_idx, n_idx, unit_idx = (
+        role_index(role, r) for r in ("characteristic", "value", "subgroup", "time", "note", "unit")
+    )
     others = [h for j, h in enumerate(header) if h and j not in role]
     if others:
         notes.append("columns not used in the long layout: " + ", ".join(f"'{h}'" for h in others))
-
-    def collect(chunks):
-        name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), Acc(), Acc(), Acc()
-        sg_acc, t_acc, n_acc, unit_acc = (
-            _LabelAcc(),
-            _TimeAcc(table.text_cells),
-            _LabelAcc(),
-            _LabelAcc(),
-        )
-        for rows, cols in chunks:
-            for j in range(len(cols)):
-                if j >= len(header) or not header[j]:
-                    _check_unnamed(
-                        src, header, table.header_row, j, cols[j], rows, table.text_cells
-                    )
-            names = label_array(cols[char_idx], table.text_cells)
-            vals, empty = numeric(ctx, cols[value_idx], rows, header[value_idx])
-            row_filled = ~empty | (names != "")
-            for j in (sg_idx, t_idx, n_idx, unit_idx):
-                if j is not None and j < len(cols):
-                    row_filled |= filled_mask(cols[j], table.text_cells)
-            bad = row_filled & (names == "")
-            if bad.any():
-                i = int(np.flatnonzero(bad)[0])
-                raise DataFileError(
-                    f"this row has no characteristic name in column '{header[char_idx]}'. "
-                    "Every row of a long table names the characteristic its value belongs to.",
-                    file=src.name,
-                    row=int(rows[i]),
-                    column=header[char_idx],
-                    value="",
-                )
-            name_acc.add(names)
-            val_acc.add(vals)
-            rows_acc.add(rows)
-            filled_acc.add(row_filled)
-            if sg_idx is not None:
-                sg_acc.add(label_array(cols[sg_idx], table.text_cells))
-            if t_idx is not None:
-                t_acc.add(cols[t_idx])
-            if n_idx is not None:
-                n_acc.add(label_array(cols[n_idx], table.text_cells))
-            if unit_idx is not None:
-                unit_acc.add(label_array(cols[unit_idx], table.text_cells))
-        return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
-
+    collect = functools.partial(
+        _collect_long, src, table, ctx, (char_idx, value_idx, sg_idx, t_idx, n_idx, unit_idx)
+    )
     name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc = _with_fast_path(
         table, {value_idx}, collect
     )
     filled = filled_acc.result(bool)
-    if not filled.any():
-        raise DataFileError(
-            "the file has a header but no values below it. Add the measurements, one row per "
-            "value, under the column names.",
-            file=src.name,
-            row=table.header_row + 1,
-        )
+    _refuse_no_values(src, table, filled, "value")
     rows = rows_acc.result(np.int64)
     last = int(np.flatnonzero(filled)[-1]) + 1
     interior = np.flatnonzero(~filled[:last])
@@ -610,18 +577,14 @@ def assemble_long(
     sg = sg_acc.result_codes()[keep] if sg_idx is not None else None
     label_text = sg_acc.labels().astype(str)
     if sg is not None:
-        no_label = np.flatnonzero(sg == sg_acc.index.get("", -1))
-        if no_label.size:
-            i = int(no_label[0])
-            raise DataFileError(
-                f"this row has no subgroup label in column '{header[sg_idx]}' (rows without a "
-                f"label: {fmt_rows(rows[no_label])}). Fill in the labels, or leave out the "
-                "subgroup column to read individuals.",
-                file=src.name,
-                row=int(rows[i]),
-                column=header[sg_idx],
-                value="",
-            )
+        _refuse_unlabelled(
+            src,
+            header[sg_idx],
+            rows,
+            sg,
+            sg_acc.index.get("", -1),
+            lead="this row has no subgroup label in",
+        )
     times_all = t_acc.result(notes)[keep] if t_idx is not None else None
     notes_all = n_acc.result()[keep] if n_idx is not None else None
     units_all = unit_acc.result()[keep] if unit_idx is not None else None
@@ -633,53 +596,25 @@ def assemble_long(
     for raw_name, k in codes_of.items():
         idx = order[bounds[k] : bounds[k + 1]]
         name, unit = parse_header(raw_name)
-        key = name.casefold()
-        if key in seen_names:
-            raise DataFileError(
-                f"'{raw_name}' and '{seen_names[key]}' name the same characteristic with "
-                "different units or spelling. Use one name (and one unit) per characteristic.",
-                file=src.name,
-                column=header[char_idx],
-                value=raw_name,
-            )
-        seen_names[key] = raw_name
+        _refuse_second_spelling(src, header[char_idx], seen_names, raw_name, name)
         if units_all is not None:
-            us = [u for u in dict.fromkeys(units_all[idx].tolist()) if u != ""]
-            if len(us) > 1:
-                first_other = int(idx[np.flatnonzero(units_all[idx] == us[1])[0]])
-                raise DataFileError(
-                    f"'{name}' is given in more than one unit ({', '.join(us)}). Convert the "
-                    "values to one unit.",
-                    file=src.name,
-                    row=int(rows[first_other]),
-                    column=header[unit_idx],
-                    value=us[1],
-                )
-            if us:
-                unit = us[0]
-        cvals = vals[idx]
-        crows = rows[idx]
+            unit = _long_unit(src, header[unit_idx], name, units_all[idx], rows[idx]) or unit
         if sg is not None:
             ccodes = sg[idx]
-
-            def labels_of(u):
-                return label_text[u]
+            labels_of = label_text.__getitem__
         else:
             ccodes = np.arange(idx.size) // (subgroup_size or 1)
-
-            def labels_of(u):
-                return _position_labels(u)
-
+            labels_of = _position_labels
         characteristics.append(
             _make_char(
                 name,
                 unit,
-                cvals,
+                vals[idx],
                 labels_of(ccodes),
                 _grouping(ccodes, labels_of),
                 times_all[idx] if times_all is not None else None,
                 notes_all[idx] if notes_all is not None else None,
-                crows,
+                rows[idx],
                 warnings_,
             )
         )
@@ -697,3 +632,78 @@ def assemble_long(
             row=table.header_row + 1,
         )
     return characteristics, int(rows.size)
+
+
+def _collect_long(src, table, ctx, columns, chunks):
+    """Read the chunks of a long table: names, values, rows, filled-row masks, subgroups,
+    times, notes and units (``columns``: their indices, None for a column not there)."""
+    char_idx, value_idx, sg_idx, t_idx, n_idx, unit_idx = columns
+    header = table.header
+    name_acc, val_acc, rows_acc, filled_acc = _LabelAcc(), Acc(), Acc(), Acc()
+    sg_acc, t_acc, n_acc, unit_acc = (
+        _LabelAcc(),
+        _TimeAcc(table.text_cells),
+        _LabelAcc(),
+        _LabelAcc(),
+    )
+    for rows, cols in chunks:
+        for j in range(len(cols)):
+            if j >= len(header) or not header[j]:
+                _check_unnamed(src, header, table.header_row, j, cols[j], rows, table.text_cells)
+        names = label_array(cols[char_idx], table.text_cells)
+        vals, empty = numeric(ctx, cols[value_idx], rows, header[value_idx])
+        row_filled = ~empty | (names != "")
+        for j in (sg_idx, t_idx, n_idx, unit_idx):
+            if j is not None and j < len(cols):
+                row_filled |= filled_mask(cols[j], table.text_cells)
+        bad = row_filled & (names == "")
+        if bad.any():
+            raise DataFileError(
+                f"this row has no characteristic name in column '{header[char_idx]}'. "
+                "Every row of a long table names the characteristic its value belongs to.",
+                file=src.name,
+                row=int(rows[int(np.flatnonzero(bad)[0])]),
+                column=header[char_idx],
+                value="",
+            )
+        name_acc.add(names)
+        val_acc.add(vals)
+        rows_acc.add(rows)
+        filled_acc.add(row_filled)
+        for j, acc in ((sg_idx, sg_acc), (n_idx, n_acc), (unit_idx, unit_acc)):
+            if j is not None:
+                acc.add(label_array(cols[j], table.text_cells))
+        if t_idx is not None:
+            t_acc.add(cols[t_idx])
+    return name_acc, val_acc, rows_acc, filled_acc, sg_acc, t_acc, n_acc, unit_acc
+
+
+def _refuse_second_spelling(src, column, seen_names, raw_name, name) -> None:
+    """Refuse two names of a long table that differ only in case or unit; records ``name``."""
+    key = name.casefold()
+    if key in seen_names:
+        raise DataFileError(
+            f"'{raw_name}' and '{seen_names[key]}' name the same characteristic with "
+            "different units or spelling. Use one name (and one unit) per characteristic.",
+            file=src.name,
+            column=column,
+            value=raw_name,
+        )
+    seen_names[key] = raw_name
+
+
+def _long_unit(src, column, name, units, rows) -> str | None:
+    """The one unit given in the unit column for a characteristic (None when none is given);
+    more than one is refused at the first row of the second."""
+    us = [u for u in dict.fromkeys(units.tolist()) if u != ""]
+    if len(us) > 1:
+        first_other = int(np.flatnonzero(units == us[1])[0])
+        raise DataFileError(
+            f"'{name}' is given in more than one unit ({', '.join(us)}). Convert the "
+            "values to one unit.",
+            file=src.name,
+            row=int(rows[first_other]),
+            column=column,
+            value=us[1],
+        )
+    return us[0] if us else None

@@ -313,9 +313,64 @@ def _read_table(
     stream_column=None,
 ):
     header = table.header
-    hrow = table.header_row
+    _check_header(src, header, table.header_row)
 
-    # --- header checks -------------------------------------------------------------------
+    def find(wanted, what, option):
+        return _find_column(header, wanted, what=what, option=option, src_name=src.name)
+
+    role: dict[int, str] = {}
+    layout = _layout(src, table, role, notes, find, layout, characteristic_column, value_column)
+    sg_idx = _subgroup_role(header, role, notes, find, subgroup_column, subgroup_size)
+    t_idx = _optional_role(header, role, time_column, TIME_NAMES, "time", find)
+    n_idx = _optional_role(header, role, note_column, NOTE_NAMES, "note", find)
+    st_idx = _optional_role(header, role, stream_column, STREAM_NAMES, "stream", find)
+    subgroup_source = _subgroup_source(header, sg_idx, subgroup_column, subgroup_size, notes)
+    if t_idx is not None:
+        notes.append(f"times from column '{header[t_idx]}'")
+    if n_idx is not None:
+        notes.append(f"notes from column '{header[n_idx]}'")
+
+    ctx = Ctx(src, table)
+    assemble = assemble_wide if layout == "wide" else assemble_long
+    try:
+        result = assemble(src, table, ctx, role, subgroup_size, notes, warnings_)
+    except DataFileError:
+        if src.kind == "xlsx":  # the real cause of an "empty" label or cell, if there is one
+            check_unsaved_formulas(src, table, damage_known=True)
+        raise
+    characteristics, n_rows = result
+    if st_idx is not None:
+        characteristics = _attach_streams(
+            src, table, st_idx, characteristics, notes, given=stream_column is not None
+        )
+    check_summary_rows(src, characteristics, header, sg_idx, t_idx)
+    if src.kind == "xlsx":
+        _check_formulas(src, table, role, layout, characteristics)
+    for col, k in ctx.text_numbers.items():
+        notes.append(
+            f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"
+        )
+    subgroup_messages(characteristics, subgroup_source, notes, warnings_)
+    return Measurements(
+        source=src.name,
+        sha256=src.sha256,
+        layout=layout,
+        subgroup_source=subgroup_source,
+        characteristics=tuple(characteristics),
+        warnings=tuple(warnings_),
+        notes=tuple(notes),
+        subgroup_column=header[sg_idx] if sg_idx is not None else None,
+        subgroup_size=subgroup_size,
+        sheet=table.sheet,
+        encoding=src.encoding_label if src.kind == "csv" else None,
+        separator=table.separator,
+        decimal=table.decimal if src.kind == "csv" else None,
+        n_rows=n_rows,
+    )
+
+
+def _check_header(src, header, hrow) -> None:
+    """Refuse a header of numbers only (no header row) and two columns of one name."""
     named = [h for h in header if h]
     if named and all(text_number(h) is not None for h in named):
         raise DataFileError(
@@ -343,11 +398,11 @@ def _read_table(
             )
         seen[key] = j
 
-    # --- roles ---------------------------------------------------------------------------
-    def find(wanted, what, option):
-        return _find_column(header, wanted, what=what, option=option, src_name=src.name)
 
-    role: dict[int, str] = {}
+def _layout(src, table, role, notes, find, layout, characteristic_column, value_column):
+    """``"long"`` when a characteristic and a value column are given or found by name, else
+    ``"wide"``; the long table's columns (and a unit column) go into ``role``."""
+    header = table.header
     if characteristic_column is not None or value_column is not None:
         if layout == "wide":
             raise StudyInputError(
@@ -355,51 +410,51 @@ def _read_table(
                 "`layout='wide'` was given. Leave `layout` at 'auto' or set it to 'long'."
             )
         layout = "long"
-    char_idx = value_idx = None
-    if layout in ("auto", "long"):
-        char_idx = (
-            find(characteristic_column, "characteristic names", "characteristic_column")
-            if characteristic_column is not None
-            else _detect(header, CHARACTERISTIC_NAMES)
-        )
-        value_idx = (
-            find(value_column, "values", "value_column")
-            if value_column is not None
-            else _detect(header, VALUE_NAMES)
-        )
-        if layout == "long" and (char_idx is None or value_idx is None):
-            missing = "a characteristic column" if char_idx is None else "a value column"
-            raise DataFileError(
-                f"a long table needs {missing}, and none was found. Name the columns e.g. "
-                "'Characteristic'/'Merkmal' and 'Value'/'Messwert', or give them with "
-                "`characteristic_column` and `value_column`. The header has: "
-                + ", ".join(f"'{h}'" for h in header if h)
-                + ".",
-                file=src.name,
-                row=hrow,
-            )
-        if char_idx is not None and value_idx is not None:
-            layout = "long"
-            why = "given" if characteristic_column or value_column else "detected"
-            notes.append(
-                f"long layout ({why}): characteristic names in '{header[char_idx]}', values in "
-                f"'{header[value_idx]}'"
-            )
-        else:
-            layout = "wide"
-            notes.append(
-                "wide layout (detected): one column per characteristic, one row per part, "
-                "rows in production order"
-            )
-    else:
+    if layout not in ("auto", "long"):
         notes.append("wide layout (given): one column per characteristic, one row per part")
-    if layout == "long":
-        role[char_idx] = "characteristic"
-        role[value_idx] = "value"
-        unit_idx = _detect(header, UNIT_NAMES)
-        if unit_idx is not None and unit_idx not in role:
-            role[unit_idx] = "unit"
+        return layout
+    char_idx = (
+        find(characteristic_column, "characteristic names", "characteristic_column")
+        if characteristic_column is not None
+        else _detect(header, CHARACTERISTIC_NAMES)
+    )
+    value_idx = (
+        find(value_column, "values", "value_column")
+        if value_column is not None
+        else _detect(header, VALUE_NAMES)
+    )
+    if layout == "long" and (char_idx is None or value_idx is None):
+        missing = "a characteristic column" if char_idx is None else "a value column"
+        raise DataFileError(
+            f"a long table needs {missing}, and none was found. Name the columns e.g. "
+            "'Characteristic'/'Merkmal' and 'Value'/'Messwert', or give them with "
+            "`characteristic_column` and `value_column`. The header has: "
+            + ", ".join(f"'{h}'" for h in header if h)
+            + ".",
+            file=src.name,
+            row=table.header_row,
+        )
+    if char_idx is None or value_idx is None:
+        notes.append(
+            "wide layout (detected): one column per characteristic, one row per part, "
+            "rows in production order"
+        )
+        return "wide"
+    why = "given" if characteristic_column or value_column else "detected"
+    notes.append(
+        f"long layout ({why}): characteristic names in '{header[char_idx]}', values in "
+        f"'{header[value_idx]}'"
+    )
+    role[char_idx] = "characteristic"
+    role[value_idx] = "value"
+    unit_idx = _detect(header, UNIT_NAMES)
+    if unit_idx is not None and unit_idx not in role:
+        role[unit_idx] = "unit"
+    return "long"
 
+
+def _subgroup_role(header, role, notes, find, subgroup_column, subgroup_size):
+    """The subgroup column (given, or detected unless a subgroup size is given), or None."""
     sg_idx = None
     if subgroup_column is not None:
         sg_idx = find(subgroup_column, "subgroup labels", "subgroup_column")
@@ -421,60 +476,29 @@ def _read_table(
                 f"{role[sg_idx]} names/values; choose another column."
             )
         role[sg_idx] = "subgroup"
-    t_idx = _optional_role(header, role, time_column, TIME_NAMES, "time", find)
-    n_idx = _optional_role(header, role, note_column, NOTE_NAMES, "note", find)
-    st_idx = _optional_role(header, role, stream_column, STREAM_NAMES, "stream", find)
+    return sg_idx
 
+
+def _subgroup_source(header, sg_idx, subgroup_column, subgroup_size, notes) -> str:
+    """``"column"``, ``"size"`` or ``"none"``, with the note that says so."""
     if sg_idx is not None:
-        subgroup_source = "column"
         how = "given" if subgroup_column is not None else "detected"
         notes.append(f"subgroups from column '{header[sg_idx]}' ({how})")
-    elif subgroup_size is not None:
-        subgroup_source = "size"
+        return "column"
+    if subgroup_size is not None:
         notes.append(f"subgroups of {subgroup_size} consecutive values (given size)")
-    else:
-        subgroup_source = "none"
-        notes.append(
-            "no subgroups: values are individuals (no subgroup column found; name one e.g. "
-            "'Subgroup' or 'Stichprobe', or give a subgroup size)"
-        )
-    if t_idx is not None:
-        notes.append(f"times from column '{header[t_idx]}'")
-    if n_idx is not None:
-        notes.append(f"notes from column '{header[n_idx]}'")
+        return "size"
+    notes.append(
+        "no subgroups: values are individuals (no subgroup column found; name one e.g. "
+        "'Subgroup' or 'Stichprobe', or give a subgroup size)"
+    )
+    return "none"
 
-    ctx = Ctx(src, table)
-    try:
-        if layout == "wide":
-            result = assemble_wide(
-                src, table, ctx, role, sg_idx, t_idx, n_idx, subgroup_size, notes, warnings_
-            )
-        else:
-            result = assemble_long(
-                src,
-                table,
-                ctx,
-                role,
-                char_idx,
-                value_idx,
-                sg_idx,
-                t_idx,
-                n_idx,
-                subgroup_size,
-                notes,
-                warnings_,
-            )
-    except DataFileError:
-        if src.kind == "xlsx":  # the real cause of an "empty" label or cell, if there is one
-            check_unsaved_formulas(src, table, damage_known=True)
-        raise
-    characteristics, n_rows = result
-    if st_idx is not None:
-        characteristics = _attach_streams(
-            src, table, st_idx, characteristics, notes, given=stream_column is not None
-        )
-    check_summary_rows(src, characteristics, header, sg_idx, t_idx)
-    if src.kind == "xlsx" and layout == "wide":
+
+def _check_formulas(src, table, role, layout, characteristics) -> None:
+    """Look for unsaved formulas where a workbook's cells or columns came out empty."""
+    header = table.header
+    if layout == "wide":
         # the first empty cell of each value column is where an unsaved formula would show
         targets: dict[int, int] = {}
         by_name = {c.name: c for c in characteristics}
@@ -483,34 +507,13 @@ def _read_table(
                 continue
             c = by_name.get(parse_header(h)[0])
             if c is None:  # a skipped (empty) column
-                targets[j] = hrow + 1
+                targets[j] = table.header_row + 1
             elif c.n_missing:
                 targets[j] = int(c.rows[int(np.argmax(np.isnan(c.values)))])
         if targets:
             check_unsaved_formulas(src, table, targets)
-    elif src.kind == "xlsx" and any(c.n_missing for c in characteristics):
+    elif any(c.n_missing for c in characteristics):
         check_unsaved_formulas(src, table)
-    for col, k in ctx.text_numbers.items():
-        notes.append(
-            f"column '{col}': {k} number(s) stored as text in the workbook were read as numbers"
-        )
-    subgroup_messages(characteristics, subgroup_source, notes, warnings_)
-    return Measurements(
-        source=src.name,
-        sha256=src.sha256,
-        layout=layout,
-        subgroup_source=subgroup_source,
-        characteristics=tuple(characteristics),
-        warnings=tuple(warnings_),
-        notes=tuple(notes),
-        subgroup_column=header[sg_idx] if sg_idx is not None else None,
-        subgroup_size=subgroup_size,
-        sheet=table.sheet,
-        encoding=src.encoding_label if src.kind == "csv" else None,
-        separator=table.separator,
-        decimal=table.decimal if src.kind == "csv" else None,
-        n_rows=n_rows,
-    )
 
 
 def _attach_streams(src, table, j, characteristics, notes, *, given):
