@@ -1,33 +1,11 @@
 """Measurement files in, :class:`Measurements` out: kept so ``studykit.data`` imports keep working.
 
 The reader lives in the :mod:`studykit.io` package (source detection, CSV and XLSX reading, cell
-parsing, assembly, value objects); this module re-exports its public names unchanged.
+parsing, assembly, value objects); this module re-exports its public names (its ``__all__``)
+unchanged.
 """
 
 from __future__ import annotations
 
-from studykit.io import (
-    DEFAULT_MAX_BYTES,
-    LARGE_SUBGROUP,
-    XLSX_MAX_MEMBERS,
-    XLSX_MAX_RATIO,
-    XLSX_MAX_UNPACKED,
-    CharacteristicData,
-    Measurements,
-    parse_header,
-    read_measurements,
-    read_measurements_bytes,
-)
-
-__all__ = [
-    "CharacteristicData",
-    "Measurements",
-    "read_measurements",
-    "read_measurements_bytes",
-    "parse_header",
-    "LARGE_SUBGROUP",
-    "DEFAULT_MAX_BYTES",
-    "XLSX_MAX_UNPACKED",
-    "XLSX_MAX_RATIO",
-    "XLSX_MAX_MEMBERS",
-]
+from studykit.io import *  # noqa: F403 - the public names of studykit.io, listed once there
+from studykit.io import __all__  # noqa: F401 - re-exported as this module's list

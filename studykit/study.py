@@ -63,24 +63,21 @@ BASES = ("lower_bound", "estimate")
 CHARTS = ("auto", "xbar_r", "xbar_s", "imr", "p", "np", "c", "u")
 #: charts for counted (attribute) data; such characteristics need no specification limits
 ATTRIBUTE_CHARTS = ("p", "np", "c", "u")
+#: decisions on a run-rule signal: "keep, with reason" (the signal is reviewed and not a special
+#: cause, or has a known common cause) and its withdrawal; keyed by (subgroup, rule)
+SIGNAL_ACTIONS = ("keep_signal", "reopen_signal")
+#: decisions that change one characteristic's data, specification, criteria, model or chart
+#: (they name the characteristic they apply to)
+_CHARACTERISTIC_EDITS = ("exclude", "restore", "set_spec", "set_criteria", "set_model", "set_chart")
 #: decision actions studykit itself understands; other lower-case names are kept as settings
 ACTIONS = (
-    "exclude",
-    "restore",
-    "set_spec",
-    "set_criteria",
-    "set_model",
-    "set_chart",
+    *_CHARACTERISTIC_EDITS,
     "note",
     "void_signoff",
     "set_signoff_rules",
     "waive_verdict",
-    "keep_signal",
-    "reopen_signal",
+    *SIGNAL_ACTIONS,
 )
-#: decisions on a run-rule signal: "keep, with reason" (the signal is reviewed and not a special
-#: cause, or has a known common cause) and its withdrawal; keyed by (subgroup, rule)
-SIGNAL_ACTIONS = ("keep_signal", "reopen_signal")
 #: where a keep decision came from: a person's review of the chart, or a rejected proposal of
 #: the automatic phase-I search
 KEEP_ORIGINS = ("person", "rejected_proposal")
@@ -555,15 +552,7 @@ class Decision:
                 f"a {what} needs the run rule of the signal in its payload, e.g. "
                 "{'rule': 'beyond_limits'}"
             )
-        if action in (
-            "exclude",
-            "restore",
-            "set_spec",
-            "set_criteria",
-            "set_model",
-            "set_chart",
-            *SIGNAL_ACTIONS,
-        ):
+        if action in _CHARACTERISTIC_EDITS + SIGNAL_ACTIONS:
             if ch is None:
                 raise StudyInputError(f"{article} {what} needs the `characteristic` it applies to")
         reason = _text(self.reason, name="reason")

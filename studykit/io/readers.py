@@ -33,7 +33,7 @@ from studykit.io.cells import (
     text_number,
 )
 from studykit.io.csv_reader import open_csv
-from studykit.io.source import Source, check_size, inspect
+from studykit.io.source import Source, Table, check_size, inspect
 from studykit.io.values import Measurements
 from studykit.io.xlsx_reader import check_unsaved_formulas, open_xlsx
 
@@ -215,10 +215,19 @@ def _detect(header, names_set) -> int | None:
     return None
 
 
-def _read(
-    src: Source,
+def _read(src: Source, *, sheet=None, encoding=None, **options) -> Measurements:
+    options = _checked_options(**options)
+    notes: list[str] = []
+    warnings_: list[str] = []
+    table = _open_table(src, sheet, encoding, notes)
+    try:
+        return _read_table(src, table, notes, warnings_, **options)
+    finally:
+        table.close()
+
+
+def _checked_options(
     *,
-    sheet=None,
     layout="auto",
     subgroup_column=None,
     subgroup_size=None,
@@ -226,37 +235,47 @@ def _read(
     value_column=None,
     time_column=None,
     note_column=None,
-    encoding=None,
     stream_column=None,
-) -> Measurements:
+) -> dict:
+    """The table options of :func:`read_measurements` (all but ``sheet`` and ``encoding``),
+    checked before the file is read, with ``subgroup_size`` as an int; an unknown name fails
+    here as it would in any call."""
     if layout not in ("auto", "wide", "long"):
         raise StudyInputError(
             f"`layout` must be 'auto', 'wide' or 'long', not '{layout}'.", value=layout
         )
     if subgroup_size is not None:
-        if isinstance(subgroup_size, bool) or not isinstance(subgroup_size, int | np.integer):
-            try:
-                ok = not isinstance(subgroup_size, bool) and float(subgroup_size).is_integer()
-            except (TypeError, ValueError):
-                ok = False
-            if not ok:
-                raise StudyInputError(
-                    f"`subgroup_size` must be a whole number, not '{subgroup_size}'.",
-                    value=subgroup_size,
-                )
-        subgroup_size = int(subgroup_size)
-        if subgroup_size < 1:
+        subgroup_size = _checked_subgroup_size(subgroup_size, subgroup_column)
+    return dict(locals())
+
+
+def _checked_subgroup_size(subgroup_size, subgroup_column) -> int:
+    if isinstance(subgroup_size, bool) or not isinstance(subgroup_size, int | np.integer):
+        try:
+            ok = not isinstance(subgroup_size, bool) and float(subgroup_size).is_integer()
+        except (TypeError, ValueError):
+            ok = False
+        if not ok:
             raise StudyInputError(
-                f"`subgroup_size` must be 1 or more, not {subgroup_size}.", value=subgroup_size
+                f"`subgroup_size` must be a whole number, not '{subgroup_size}'.",
+                value=subgroup_size,
             )
-        if subgroup_column is not None:
-            raise StudyInputError(
-                f"give either `subgroup_column` ('{subgroup_column}') or `subgroup_size` "
-                f"({subgroup_size}), not both: subgroups come from a column or from a fixed "
-                "size.",
-            )
-    notes: list[str] = []
-    warnings_: list[str] = []
+    subgroup_size = int(subgroup_size)
+    if subgroup_size < 1:
+        raise StudyInputError(
+            f"`subgroup_size` must be 1 or more, not {subgroup_size}.", value=subgroup_size
+        )
+    if subgroup_column is not None:
+        raise StudyInputError(
+            f"give either `subgroup_column` ('{subgroup_column}') or `subgroup_size` "
+            f"({subgroup_size}), not both: subgroups come from a column or from a fixed "
+            "size.",
+        )
+    return subgroup_size
+
+
+def _open_table(src: Source, sheet, encoding, notes) -> Table:
+    """Detect the file's kind and encoding and open its table (notes on what was found)."""
     inspect(src, encoding)
     if src.kind == "xlsx":
         table = open_xlsx(src, sheet, notes)
@@ -278,23 +297,7 @@ def _read(
             f"{span} above the header look like a title and were skipped; the header "
             f"is row {table.header_row}"
         )
-    try:
-        return _read_table(
-            src,
-            table,
-            notes,
-            warnings_,
-            layout=layout,
-            subgroup_column=subgroup_column,
-            subgroup_size=subgroup_size,
-            characteristic_column=characteristic_column,
-            value_column=value_column,
-            time_column=time_column,
-            note_column=note_column,
-            stream_column=stream_column,
-        )
-    finally:
-        table.close()
+    return table
 
 
 def _read_table(
