@@ -8,6 +8,7 @@ import uuid
 
 from studykit import names
 from studykit.cli.args import (
+    add_reading_options,
     analysis_options,
     criteria_from_args,
     jobs_count,
@@ -44,10 +45,7 @@ def register(sub) -> None:
     p.add_argument("--all", action="store_true", help="analyse every characteristic")
     p.add_argument("--specs", metavar="SPECS", help="specs table (CSV/XLSX) for --all")
     p.add_argument("--out", metavar="SUMMARY", help="with --all: write the summary (.csv/.xlsx)")
-    p.add_argument("--sheet", help="XLSX sheet name")
-    g = p.add_mutually_exclusive_group()
-    g.add_argument("--subgroup-size", type=int, metavar="N", help="subgroups of N values")
-    g.add_argument("--subgroup-column", metavar="COL", help="column holding subgroup labels")
+    add_reading_options(p, subgroups=True)
     p.add_argument(
         "--chart",
         type=_chart_arg,

@@ -13,6 +13,7 @@ from studykit.errors import StudyInputError
 
 __all__ = [
     "add_override_lock",
+    "add_reading_options",
     "add_safety_critical",
     "add_who",
     "analysis_options",
@@ -39,17 +40,55 @@ _READ_OPTIONS = (
     "stream_column",
     "characteristic_column",
     "value_column",
+    "layout",
+    "encoding",
 )
 
 
+def add_reading_options(
+    parser, *, subgroups: bool = False, long_table: bool = False, table_shape: bool = False
+) -> None:
+    """The options that say how to read the data FILE (:func:`read_file_measurements` applies
+    them): ``--sheet``; with ``subgroups`` ``--subgroup-size`` or ``--subgroup-column``; with
+    ``long_table`` ``--characteristic-column`` and ``--value-column``; with ``table_shape``
+    ``--layout`` and ``--encoding``."""
+    parser.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
+    if subgroups:
+        group = parser.add_mutually_exclusive_group()
+        group.add_argument(
+            "--subgroup-size", type=int, metavar="N", help="consecutive values form subgroups of N"
+        )
+        group.add_argument(
+            "--subgroup-column", metavar="COL", help="column holding the subgroup labels"
+        )
+    if long_table:
+        parser.add_argument(
+            "--characteristic-column",
+            metavar="COL",
+            help="long table: column naming the characteristic of each row",
+        )
+        parser.add_argument(
+            "--value-column", metavar="COL", help="long table: column with the values"
+        )
+    if table_shape:
+        parser.add_argument(
+            "--layout",
+            choices=("auto", "wide", "long"),
+            default="auto",
+            help="table shape (default: detected from the header)",
+        )
+        parser.add_argument(
+            "--encoding", metavar="E", help="text encoding of a CSV (default: detected)"
+        )
+
+
 def read_file_measurements(args):
-    """The measurements of the data FILE with ``--sheet``, ``--subgroup-column``,
-    ``--subgroup-size``, ``--stream-column``, ``--characteristic-column`` and
-    ``--value-column`` applied (each only when the command has it and it is given)."""
+    """The measurements of the data FILE with the options of :func:`add_reading_options` and
+    ``--stream-column`` applied (each only when the command has it and it is given)."""
     from studykit.data import read_measurements
 
     read_kw = {key: getattr(args, key, None) for key in _READ_OPTIONS}
-    return read_measurements(args.file, **{k: v for k, v in read_kw.items() if v})
+    return read_measurements(args.file, **{k: v for k, v in read_kw.items() if v is not None})
 
 
 def analysis_options(args):

@@ -10,7 +10,8 @@ from __future__ import annotations
 import sys
 
 from studykit.cli._output import write_json
-from studykit.data import Measurements, read_measurements
+from studykit.cli.args import add_reading_options, read_file_measurements
+from studykit.data import Measurements
 from studykit.errors import printable
 
 
@@ -23,38 +24,13 @@ def register(subparsers) -> None:
         "2 when it cannot.",
     )
     p.add_argument("file", metavar="FILE", help="CSV or XLSX file with measurements")
-    p.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
-    p.add_argument(
-        "--layout",
-        choices=("auto", "wide", "long"),
-        default="auto",
-        help="table shape (default: detected from the header)",
-    )
-    grp = p.add_mutually_exclusive_group()
-    grp.add_argument("--subgroup-column", metavar="C", help="column with the subgroup labels")
-    grp.add_argument(
-        "--subgroup-size", metavar="N", type=int, help="consecutive values form subgroups of N"
-    )
-    p.add_argument(
-        "--characteristic-column", metavar="C", help="long table: column naming the characteristic"
-    )
-    p.add_argument("--value-column", metavar="C", help="long table: column with the values")
-    p.add_argument("--encoding", metavar="E", help="text encoding of a CSV (default: detected)")
+    add_reading_options(p, subgroups=True, long_table=True, table_shape=True)
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.set_defaults(func=run)
 
 
 def run(args) -> int:
-    m = read_measurements(
-        args.file,
-        sheet=args.sheet,
-        layout=args.layout,
-        subgroup_column=args.subgroup_column,
-        subgroup_size=args.subgroup_size,
-        characteristic_column=args.characteristic_column,
-        value_column=args.value_column,
-        encoding=args.encoding,
-    )
+    m = read_file_measurements(args)
     if args.json:
         write_json(m.summary())
     else:

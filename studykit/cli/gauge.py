@@ -17,7 +17,13 @@ from pathlib import Path
 
 from studykit import names
 from studykit.cli._output import closing_lines, write_json
-from studykit.cli.args import add_override_lock, add_who, lock_options, login_name
+from studykit.cli.args import (
+    add_override_lock,
+    add_reading_options,
+    add_who,
+    lock_options,
+    login_name,
+)
 from studykit.errors import StudyInputError
 from studykit.io.gauge_table import read_gauge_table, read_reference_readings
 from studykit.stats.gauge import COMPONENT_LABELS, INTERACTION, GaugeResult, gauge_rr
@@ -132,7 +138,7 @@ def register(subparsers) -> None:
         help=f"Cg and Cgk needed to call the gauge capable (default "
         f"{DEFAULT_MINIMUM:g}; common practice)",
     )
-    p.add_argument("--sheet", metavar="S", help="worksheet name (XLSX; default: the first)")
+    add_reading_options(p)
     p.add_argument("--json", action="store_true", help="print the result as one JSON object")
     p.add_argument(
         "--study",

@@ -12,7 +12,7 @@ import sys
 from pathlib import Path
 
 from studykit.cli._output import closing_lines, write_json
-from studykit.cli.args import add_safety_critical, read_file_measurements
+from studykit.cli.args import add_reading_options, add_safety_critical, read_file_measurements
 from studykit.errors import DataFileError, StudyInputError
 
 _MODELS = {
@@ -107,13 +107,7 @@ def register(sub) -> None:
         metavar="Q",
         help="probability of passing used for the normal sample size (default 0.9)",
     )
-    p.add_argument("--sheet", help="XLSX sheet name")
-    p.add_argument(
-        "--characteristic-column",
-        metavar="COL",
-        help="long table: column naming the characteristic of each row",
-    )
-    p.add_argument("--value-column", metavar="COL", help="long table: column with the values")
+    add_reading_options(p, long_table=True)
     add_safety_critical(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=run)

@@ -69,13 +69,12 @@ def _plan(args):
 def run(args) -> int:
     import numpy as np
 
-    from studykit.data import read_measurements
+    from studykit.cli.args import read_file_measurements
     from studykit.stats.phase2 import monitor
 
     plan = _plan(args)
     name = args.characteristic or plan.characteristic
-    read_kw = {"subgroup_column": args.subgroup_column} if args.subgroup_column else {}
-    m = read_measurements(args.file, **read_kw)
+    m = read_file_measurements(args)
     data = m.get(name)
     sizes = m.get(args.size_column).values if args.size_column else None
     keep = ~np.isnan(data.values)

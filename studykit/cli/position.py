@@ -16,6 +16,7 @@ import numpy as np
 from studykit.cli._output import closing_lines, write_json
 from studykit.cli.args import (
     add_override_lock,
+    add_reading_options,
     add_safety_critical,
     add_who,
     lock_options,
@@ -51,7 +52,7 @@ def register(sub) -> None:
         metavar="PATH",
         help="write the scatter plot with the zone and fitted ellipse (.png, .pdf or .svg)",
     )
-    p.add_argument("--sheet", help="XLSX sheet name")
+    add_reading_options(p)
     add_safety_critical(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument(
