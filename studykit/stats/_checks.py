@@ -2,9 +2,31 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from studykit.errors import AnalysisError, StudyInputError
+
+
+def check_number(
+    value, name: str, *, error: type[StudyInputError] = StudyInputError, tail: str = "."
+) -> float:
+    """``value`` as a finite float, or ``error`` saying "`name` (value) must be a (finite)
+    number" followed by ``tail`` (e.g. ``" or None."``, ``", e.g. 1.33."``).
+
+    Examples
+    --------
+    >>> check_number("1.5", "threshold")
+    1.5
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise error(f"`{name}` ({value!r}) must be a number{tail}") from None
+    if not math.isfinite(v):
+        raise error(f"`{name}` ({value!r}) must be a finite number{tail}")
+    return v
 
 
 def check_sample(

@@ -53,7 +53,7 @@ from scipy import optimize, special
 from studykit import names
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats import bootstrap
-from studykit.stats._checks import NOISE_ULPS, check_resolution, check_sample
+from studykit.stats._checks import NOISE_ULPS, check_number, check_resolution, check_sample
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _finite_or_none
 from studykit.stats.verdict import (  # the verdict policy, re-exported so old imports work
@@ -296,13 +296,7 @@ def _clean_data(x, *, name="x", minimum=2):
 def _spec_value(value, name):
     if value is None:
         return None
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise SpecError(f"`{name}` ({value!r}) must be a number or None.") from None
-    if not math.isfinite(v):
-        raise SpecError(f"`{name}` ({value!r}) must be a finite number or None.")
-    return v
+    return check_number(value, name, error=SpecError, tail=" or None.")
 
 
 def _check_level(level):

@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING
 
 from studykit import names
 from studykit.errors import StudyInputError
+from studykit.stats._checks import check_number
 from studykit.stats.result import Result
 
 if TYPE_CHECKING:
@@ -163,13 +164,7 @@ def _checked_criterion(index, basis, threshold) -> float:
         raise StudyInputError(f"`index` ({index!r}) must be one of {list(INDEX_NAMES)}.")
     if basis not in ("lower_bound", "estimate"):
         raise StudyInputError(f"`basis` ({basis!r}) must be 'lower_bound' or 'estimate'.")
-    try:
-        threshold = float(threshold)
-    except (TypeError, ValueError):
-        raise StudyInputError(f"`threshold` ({threshold!r}) must be a number, e.g. 1.33.") from None
-    if not math.isfinite(threshold):
-        raise StudyInputError(f"`threshold` ({threshold!r}) must be a finite number, e.g. 1.33.")
-    return threshold
+    return check_number(threshold, "threshold", tail=", e.g. 1.33.")
 
 
 def _judged_text(name, est, lb, threshold, basis, pct):
