@@ -456,3 +456,14 @@ def test_exact_two_sided_factor_of_the_nist_example():
     # tests/reference/tolerance_check_values.md: independent quad/brentq implementation,
     # n 43, P .90, C .99 -> 2.222825 (Howe's approximation gives 2.2173 there)
     assert normal_factor_two_sided(43, 0.90, 0.99) == pytest.approx(2.222825, abs=5e-7)
+
+
+def test_a_limit_that_is_not_a_number_is_refused_with_its_name():
+    # input check (no published value): a text limit was a bare ValueError from float()
+    from studykit.errors import SpecError
+
+    x = np.arange(30.0)
+    with pytest.raises(SpecError, match=r"`lsl` \('abc'\) must be a number\."):
+        tolerance_interval(x, lsl="abc", usl=40.0)
+    with pytest.raises(SpecError, match=r"`usl` \(inf\) must be a finite number\."):
+        tolerance_interval(x, lsl=0.0, usl=math.inf)

@@ -20,6 +20,7 @@ import numpy as np
 from studykit import names
 from studykit.errors import AnalysisError, SpecError
 from studykit.stats import constants
+from studykit.stats._checks import check_number
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 
@@ -939,8 +940,7 @@ def _check_options(alpha, k, lsl, usl, confidence) -> None:
         )
     if lsl is not None:
         for nm, v in (("lsl", lsl), ("usl", usl)):
-            if not math.isfinite(float(v)):
-                raise SpecError(f"`{nm}` ({v!r}) must be a finite number")
+            check_number(v, nm, error=SpecError, tail="")
         if float(usl) <= float(lsl):
             raise SpecError(f"`usl` ({usl}) must be greater than `lsl` ({lsl})")
 

@@ -31,6 +31,7 @@ import numpy as np
 from scipy import special
 
 from studykit.errors import AnalysisError, SpecError
+from studykit.stats._checks import check_number
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
 
@@ -393,8 +394,9 @@ round(r.overall.process["pp"], 3)
 def _check_inputs(gauge_sigma, mean, lsl, usl, confidence, max_gauge_share) -> None:
     """Reject a missing or negative gauge sigma, no limit, and levels out of range."""
     for nm, v in (("gauge_sigma", gauge_sigma), ("mean", mean)):
-        if v is None or not math.isfinite(float(v)):
-            raise AnalysisError(f"`{nm}` ({v!r}) must be a finite number")
+        if v is None:
+            raise AnalysisError(f"`{nm}` (None) must be a finite number")
+        check_number(v, nm, error=AnalysisError, tail="")
     if gauge_sigma < 0:
         raise AnalysisError(f"`gauge_sigma` ({gauge_sigma!r}) must not be negative")
     if lsl is None and usl is None:

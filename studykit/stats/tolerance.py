@@ -46,7 +46,7 @@ import numpy as np
 from scipy import optimize, special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
-from studykit.stats._checks import check_sample
+from studykit.stats._checks import check_number, check_sample
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
@@ -900,8 +900,8 @@ def _check_model_and_specs(model: str, lsl, usl) -> None:
     if model not in MODELS:
         raise StudyInputError(f"`model` ({model!r}) must be one of {list(MODELS)}.")
     for name, v in (("lsl", lsl), ("usl", usl)):
-        if v is not None and not math.isfinite(float(v)):
-            raise SpecError(f"`{name}` ({v!r}) must be a finite number.")
+        if v is not None:
+            check_number(v, name, error=SpecError)
     if lsl is not None and usl is not None and not float(usl) > float(lsl):
         raise SpecError(f"`usl` ({usl:g}) must be greater than `lsl` ({lsl:g}).")
 
