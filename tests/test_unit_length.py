@@ -15,12 +15,19 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 LIMIT = 80
-FILES = tuple(
-    sorted(
-        str(p.relative_to(ROOT))
-        for p in (*(ROOT / "studykit" / "stats").rglob("*.py"), ROOT / "studykit" / "analysis.py")
+FILES = (
+    tuple(
+        sorted(
+            str(p.relative_to(ROOT))
+            for p in (
+                *(ROOT / "studykit" / "stats").rglob("*.py"),
+                ROOT / "studykit" / "analysis.py",
+            )
+        )
     )
-) + ("studykit/report/figures.py",)
+    + ("studykit/report/figures.py",)
+    + tuple(sorted(str(p.relative_to(ROOT)) for p in (ROOT / "studykit" / "io").glob("*.py")))
+)
 
 
 def _long_units(path: Path) -> list[str]:

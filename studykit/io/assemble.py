@@ -251,14 +251,7 @@ def assemble_wide(src, table, ctx, role, subgroup_size, notes, warnings_):
     rows = kept(rows)
     if sg is not None:
         codes = kept(sg)
-        _refuse_unlabelled(
-            src,
-            header[sg_idx],
-            rows,
-            codes,
-            empty_code,
-            lead="this row has values but no subgroup label. Every row needs its subgroup in",
-        )
+        _refuse_unlabelled(src, header[sg_idx], rows, codes, empty_code, lead=_NO_LABEL_WIDE)
         labels_of = sg_acc.labels().astype(str).__getitem__
     else:
         codes = np.arange(rows.size) // (subgroup_size or 1)
@@ -366,6 +359,11 @@ def _empty_rows(rows, filled, skip: bool, notes) -> np.ndarray:
                 + fmt_rows(rows[interior_empty])
             )
     return keep
+
+
+#: the start of the message for a row without a subgroup label (wide, long table)
+_NO_LABEL_WIDE = "this row has values but no subgroup label. Every row needs its subgroup in"
+_NO_LABEL = "this row has no subgroup label in"
 
 
 def _refuse_unlabelled(src, column, rows, codes, empty_code, *, lead: str) -> None:
@@ -577,14 +575,7 @@ def assemble_long(src, table, ctx, role, subgroup_size, notes, warnings_):
     sg = sg_acc.result_codes()[keep] if sg_idx is not None else None
     label_text = sg_acc.labels().astype(str)
     if sg is not None:
-        _refuse_unlabelled(
-            src,
-            header[sg_idx],
-            rows,
-            sg,
-            sg_acc.index.get("", -1),
-            lead="this row has no subgroup label in",
-        )
+        _refuse_unlabelled(src, header[sg_idx], rows, sg, sg_acc.index.get("", -1), lead=_NO_LABEL)
     times_all = t_acc.result(notes)[keep] if t_idx is not None else None
     notes_all = n_acc.result()[keep] if n_idx is not None else None
     units_all = unit_acc.result()[keep] if unit_idx is not None else None
@@ -618,6 +609,12 @@ def assemble_long(src, table, ctx, role, subgroup_size, notes, warnings_):
                 warnings_,
             )
         )
+    return _with_values(src, table, characteristics, header[value_idx], notes), int(rows.size)
+
+
+def _with_values(src, table, characteristics, value_column, notes):
+    """The characteristics of a long table that have a value (a note names the others); none
+    at all is refused."""
     empty = [c.name for c in characteristics if c.n_valid == 0]
     if empty:
         notes.append(
@@ -626,12 +623,12 @@ def assemble_long(src, table, ctx, role, subgroup_size, notes, warnings_):
     characteristics = [c for c in characteristics if c.n_valid > 0]
     if not characteristics:
         raise DataFileError(
-            f"column '{header[value_idx]}' holds no values. Add the measured values.",
+            f"column '{value_column}' holds no values. Add the measured values.",
             file=src.name,
-            column=header[value_idx],
+            column=value_column,
             row=table.header_row + 1,
         )
-    return characteristics, int(rows.size)
+    return characteristics
 
 
 def _collect_long(src, table, ctx, columns, chunks):

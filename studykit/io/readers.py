@@ -38,6 +38,44 @@ from studykit.io.values import Measurements
 from studykit.io.xlsx_reader import check_unsaved_formulas, open_xlsx
 
 
+def _regular_file(path) -> tuple[Path, int]:
+    """(path, size) of an existing regular file; anything else is refused before reading."""
+    if not isinstance(path, str | os.PathLike):
+        raise StudyInputError(
+            f"`path` must be the file's path (text or Path), not {type(path).__name__}; for "
+            "file content in memory use read_measurements_bytes(data, filename)",
+            value=path,
+        )
+    p = Path(path)
+    if not p.exists():
+        raise DataFileError(
+            "the file does not exist. Check the path and the file name.", file=str(path)
+        )
+    if p.is_dir():
+        raise DataFileError(
+            "this is a folder, not a file. Give the path of a CSV or XLSX file.", file=str(path)
+        )
+    st = p.stat()  # stat does not open the file: a pipe or device is refused before reading
+    if not stat.S_ISREG(st.st_mode):
+        kind = (
+            "a named pipe (FIFO)"
+            if stat.S_ISFIFO(st.st_mode)
+            else "a device"
+            if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode)
+            else "a socket"
+            if stat.S_ISSOCK(st.st_mode)
+            else "not a regular file"
+        )
+        raise DataFileError(
+            f"this is {kind}, not a measurement file; studykit reads only regular files (a "
+            "pipe or device could block or never end). Save the measurements to a CSV or XLSX "
+            "file and give its path.",
+            file=str(path),
+        )
+    return p, st.st_size
+
+
+# long: the numpydoc of the public reader (about 60 lines); the body is about 20
 def read_measurements(
     path,
     *,
@@ -107,39 +145,7 @@ def read_measurements(
     >>> bore.rows.tolist()
     [2, 3, 4, 5]
     """
-    if not isinstance(path, str | os.PathLike):
-        raise StudyInputError(
-            f"`path` must be the file's path (text or Path), not {type(path).__name__}; for "
-            "file content in memory use read_measurements_bytes(data, filename)",
-            value=path,
-        )
-    p = Path(path)
-    if not p.exists():
-        raise DataFileError(
-            "the file does not exist. Check the path and the file name.", file=str(path)
-        )
-    if p.is_dir():
-        raise DataFileError(
-            "this is a folder, not a file. Give the path of a CSV or XLSX file.", file=str(path)
-        )
-    st = p.stat()  # stat does not open the file: a pipe or device is refused before reading
-    if not stat.S_ISREG(st.st_mode):
-        kind = (
-            "a named pipe (FIFO)"
-            if stat.S_ISFIFO(st.st_mode)
-            else "a device"
-            if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode)
-            else "a socket"
-            if stat.S_ISSOCK(st.st_mode)
-            else "not a regular file"
-        )
-        raise DataFileError(
-            f"this is {kind}, not a measurement file; studykit reads only regular files (a "
-            "pipe or device could block or never end). Save the measurements to a CSV or XLSX "
-            "file and give its path.",
-            file=str(path),
-        )
-    size = st.st_size
+    p, size = _regular_file(path)
     check_size(size, max_bytes, p.name)
     src = Source(name=p.name, path=p, data=None, size=size)
     return _read(
