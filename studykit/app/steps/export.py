@@ -16,7 +16,8 @@ from pathlib import Path
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import no_study_panel, panel, panel_css, workspace
+from studykit.app.overview import panel, panel_css
+from studykit.app.steps.base import StudyStep
 from studykit.app.widgets import esc, guarded, html_box, upload_button
 
 
@@ -59,21 +60,19 @@ def _stem(session) -> str:
     return re.sub(r"[^A-Za-z0-9_-]+", "_", session.path.stem).strip("_") or "study"
 
 
-class ExportStep:
+class ExportStep(StudyStep):
     """Step "Evidence & hand-off" (key ``export``)."""
 
     key = "export"
     title = names.STEP_NAMES[key]
     guidance = "Produce the PDF evidence and the limits for series production."
 
+    what = "The export step"
+
     def __init__(self):
-        self.ws = None
         self._pdf = None  # (bytes, file name, content digest) of the last PDF made here
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The export step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.build_report, self.build_handoff = _report_functions()
         self.pdf = widgets.Button(

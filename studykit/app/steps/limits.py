@@ -14,7 +14,8 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import OverviewPanel, no_study_panel, panel, panel_css, workspace
+from studykit.app.overview import OverviewPanel, panel, panel_css
+from studykit.app.steps.base import StudyStep
 from studykit.app.widgets import caution_banner, esc, guarded, html_box
 from studykit.errors import SpecError
 from studykit.study import INDICES, Criteria
@@ -37,7 +38,7 @@ def _show(v) -> str:
     return "" if v is None else f"{v:g}"
 
 
-class LimitsStep:
+class LimitsStep(StudyStep):
     """Step "Specification & criterion" (key ``limits``)."""
 
     key = "limits"
@@ -47,15 +48,10 @@ class LimitsStep:
         "limits, target and acceptance criterion (changes are recorded with a reason)."
     )
 
-    def __init__(self):
-        self.ws = None
-        self.overview = None
-        self._drawn = None
+    what = "The limits step"
+    overview = None
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The limits step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.overview = OverviewPanel(ws)
         lay = widgets.Layout(width="150px")

@@ -38,7 +38,8 @@ from pathlib import Path
 import ipywidgets as widgets
 
 from studykit import names, theme
-from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
+from studykit.app.overview import fmt, panel, panel_css
+from studykit.app.steps.base import StudyStep
 from studykit.app.widgets import esc, guarded, html_box, upload_button
 from studykit.errors import DataFileError, StudyInputError
 from studykit.report import gauge_figures as _gauge_figures
@@ -819,7 +820,7 @@ class _UploadFlow:
 # --- the step ------------------------------------------------------------------------------------
 
 
-class GaugeStep:
+class GaugeStep(StudyStep):
     """Step "Gauge check" (key ``measuring``)."""
 
     key = "measuring"
@@ -829,9 +830,9 @@ class GaugeStep:
         "process: review the stored gauge R&R study, or run and attach a new one."
     )
 
+    what = "The gauge check"
+
     def __init__(self):
-        self.ws = None
-        self._drawn = None
         self._figures: dict[tuple, dict] = {}
 
     # --- status -------------------------------------------------------------------------------
@@ -845,7 +846,7 @@ class GaugeStep:
     def is_done(self, context) -> bool:
         """Every characteristic has a stored gauge study that is at least conditionally
         acceptable."""
-        ws = context.extra.get("studykit.workspace")
+        ws = self.opened(context)
         if ws is None:
             return False
         latest = {}
@@ -858,10 +859,7 @@ class GaugeStep:
         return bool(ws.session.names)
 
     # --- building -----------------------------------------------------------------------------
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The gauge check")
+    def _build(self, ws, context) -> widgets.Widget:
         self.heading = html_box("", "sk-gauge-heading")
         self.verdict = html_box("", "sk-gauge-stored")
         self.components = html_box("", "sk-gauge-components-box")

@@ -15,7 +15,8 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip, workspace
+from studykit.app.overview import panel, panel_css, verdict_chip
+from studykit.app.steps.base import StudyStep
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.study import SIGNOFF_ROLES
 
@@ -168,7 +169,7 @@ def audit_html(session, *, limit: int = 12) -> str:
     )
 
 
-class SignoffStep:
+class SignoffStep(StudyStep):
     """Step "Review & sign" (key ``signoff``)."""
 
     key = "signoff"
@@ -178,18 +179,13 @@ class SignoffStep:
         "voids the sign-off."
     )
 
-    def __init__(self):
-        self.ws = None
-        self._drawn = None
+    what = "The review step"
 
     def is_done(self, context) -> bool:
-        ws = context.extra.get("studykit.workspace")
+        ws = self.opened(context)
         return bool(ws is not None and ws.session.is_locked)
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The review step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.lock = html_box("", "sk-lock-state")
         self.signoffs = html_box("", "sk-signoff-table")
