@@ -40,7 +40,15 @@ import ipywidgets as widgets
 from studykit import names, theme
 from studykit.app.overview import fmt, panel, panel_css
 from studykit.app.steps.base import StudyStep
-from studykit.app.widgets import esc, guarded, html_box, upload_button
+from studykit.app.widgets import (
+    button,
+    esc,
+    guarded,
+    html_box,
+    labelled,
+    text_field,
+    upload_button,
+)
 from studykit.errors import DataFileError, StudyInputError
 from studykit.report import gauge_figures as _gauge_figures
 
@@ -656,10 +664,6 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
 # --- a study computed from an upload, previewed, then attached -------------------------------------
 
 
-def _labelled(text: str, w: widgets.Widget) -> widgets.Widget:
-    return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
-
-
 def _limit_text(value) -> str:
     """A specification limit as the text of a field ("" when there is none)."""
     return "" if value is None else f"{value:g}"
@@ -705,16 +709,16 @@ class _UploadFlow:
         self.info = html_box("", "sk-small", f"{css}-file")
         self.fields: widgets.Widget = widgets.VBox([])
         self.preview = html_box("", f"{css}-preview")
-        self.reason = widgets.Text(placeholder=placeholder, layout=widgets.Layout(width="460px"))
-        self.reason.add_class(f"{css}-reason")
-        self.attach = widgets.Button(
-            description="Attach to the characteristic",
+        self.reason = text_field(f"{css}-reason", placeholder=placeholder, width="460px")
+        self.attach = button(
+            "Attach to the characteristic",
+            f"{css}-attach",
             icon="paperclip",
-            button_style="primary",
+            primary=True,
             disabled=True,
+            on_click=on_attach,
+            messages=messages,
         )
-        self.attach.add_class(f"{css}-attach")
-        self.attach.on_click(guarded(lambda _b: on_attach(), messages=messages))
         self.hint = html_box("", "sk-small")
         for w in (self.reason, ws.who):
             w.observe(guarded(lambda _c: self.update(), messages=messages), names="value")
@@ -722,7 +726,7 @@ class _UploadFlow:
             [
                 self.preview,
                 *extra,
-                _labelled("Reason for attaching", self.reason),
+                labelled("Reason for attaching", self.reason),
                 self.attach,
                 self.hint,
             ],
@@ -930,11 +934,15 @@ class GaugeStep(StudyStep):
         self.short_usl = widgets.Text(placeholder="USL", layout=lay)
         self.short_k = widgets.Text(value="20", layout=widgets.Layout(width="80px"))
         self.short_l = widgets.Text(value="6", layout=widgets.Layout(width="80px"))
-        self.short_compute = widgets.Button(
-            description="Compute Cg, Cgk", icon="calculator", button_style="primary", disabled=True
+        self.short_compute = button(
+            "Compute Cg, Cgk",
+            "sk-short-compute",
+            icon="calculator",
+            primary=True,
+            disabled=True,
+            on_click=self._on_short_compute,
+            messages=m,
         )
-        self.short_compute.add_class("sk-short-compute")
-        self.short_compute.on_click(guarded(lambda _b: self._on_short_compute(), messages=m))
         fields = []
         for text, w, key in (
             ("Reading column", self.short_value, "value"),
@@ -945,7 +953,7 @@ class GaugeStep(StudyStep):
             ("L (sigmas)", self.short_l, "l"),
         ):
             w.add_class(f"sk-short-{key}")
-            fields.append(_labelled(text, w))
+            fields.append(labelled(text, w))
         self.short_fields = flow.fields = widgets.HBox(
             [*fields, self.short_compute],
             layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end", display="none"),
@@ -1105,14 +1113,15 @@ class GaugeStep(StudyStep):
         tl = widgets.Layout(width="130px")
         self.lsl = widgets.Text(placeholder="none", layout=tl)
         self.usl = widgets.Text(placeholder="none", layout=tl)
-        self.compute = widgets.Button(
-            description="Compute the study",
+        self.compute = button(
+            "Compute the study",
+            "sk-gauge-compute",
             icon="calculator",
-            button_style="primary",
+            primary=True,
             disabled=True,
+            on_click=self._on_compute,
+            messages=m,
         )
-        self.compute.add_class("sk-gauge-compute")
-        self.compute.on_click(guarded(lambda _b: self._on_compute(), messages=m))
         columns = []
         for text, w, key in (
             ("Part column", self.col_part, "col-part"),
@@ -1123,7 +1132,7 @@ class GaugeStep(StudyStep):
             ("USL", self.usl, "usl"),
         ):
             w.add_class(f"sk-gauge-{key}")
-            columns.append(_labelled(text, w))
+            columns.append(labelled(text, w))
         self.columns_box = flow.fields = widgets.VBox(
             [
                 widgets.HBox(columns[:4], layout=widgets.Layout(flex_flow="row wrap")),

@@ -24,7 +24,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.widgets import esc, guarded, html_box, labelled
 from studykit.errors import StudyFileError, StudyInputError
 from studykit.specs import CORE_SPEC_COLUMNS, match_to_files
 from studykit.study import BASES, INDICES, Criteria, read_specs_bytes
@@ -288,9 +288,6 @@ class NewStudyPanel(widgets.VBox):
         for w in (self.study_name, self.who):
             w.observe(guarded(lambda _c: self._update(), messages=m), names="value")
         self.create.on_click(guarded(lambda _b: self._on_create(), messages=m))
-
-        def labelled(text, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
         self.form = widgets.VBox(
             [

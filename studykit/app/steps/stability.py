@@ -378,68 +378,58 @@ class StabilityStep(ChartStep):
         if label != self.subgroup.value:
             self.subgroup.value = label
 
-    def _on_act(self) -> None:
-        ws, s = self.ws, self.ws.session
+    def _selected(self) -> tuple[str, dict]:
+        """The subgroup picked on the chart or in the list, and its row."""
         label = self.subgroup.value
         row = self._row(label)
         if row is None:
             raise StudyInputError("select a subgroup on the chart or in the list first")
+        return label, row
+
+    def _record(self, action, label: str):
+        """Record ``action`` (a session method: exclude, restore, keep_signal, reopen_signal)
+        for subgroup ``label`` of the shown characteristic with the reason and name given."""
+        ws = self.ws
+        out = action(
+            ws.session.current,
+            label,
+            reason=self.reason.value,
+            who=ws.who_name,
+            override_reason=ws.override_reason,
+        )
+        self.reason.value = ""
+        return out
+
+    def _on_act(self) -> None:
+        s = self.ws.session
+        label, row = self._selected()
         name = s.current
         if row["status"] == "removed":
-            s.restore(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            self._record(s.restore, label)
             msg = f"Subgroup {label} of {name} restored; the limits were recomputed."
         else:
-            s.exclude(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            self._record(s.exclude, label)
             msg = f"Subgroup {label} of {name} removed and recorded; the limits were recomputed."
-        self.reason.value = ""
-        ws.context.messages.ok(msg)
+        self.ws.context.messages.ok(msg)
 
     def _on_keep(self) -> None:
-        ws, s = self.ws, self.ws.session
-        label = self.subgroup.value
-        row = self._row(label)
-        if row is None:
-            raise StudyInputError("select a subgroup on the chart or in the list first")
+        s = self.ws.session
+        label, _row = self._selected()
         name = s.current
         open_rules, kept_rules = self._keep_state(label)
         if open_rules:
-            rules = s.keep_signal(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            rules = self._record(s.keep_signal, label)
             msg = (
                 f"Signal{'s' if len(rules) != 1 else ''} {', '.join(rules)} at subgroup "
                 f"{label} of {name} kept with your reason; the subgroup stays in the "
                 "analysis and the signal is listed as reviewed."
             )
         elif kept_rules:
-            rules = s.reopen_signal(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            rules = self._record(s.reopen_signal, label)
             msg = f"Signal at subgroup {label} of {name} reopened: {', '.join(rules)}."
         else:
             raise StudyInputError(f"subgroup {label} of '{name}' has no rule signal to keep")
-        self.reason.value = ""
-        ws.context.messages.ok(msg)
+        self.ws.context.messages.ok(msg)
 
     def _on_find(self) -> None:
         s = self.ws.session
