@@ -676,7 +676,8 @@ class _UploadFlow:
     widgets (classes ``<css>-upload``, ``-file``, ``-preview``, ``-reason``, ``-attach``), the
     chosen file (``data``, ``name``), the computed result waiting for the reason (``pending``:
     result, payload extras, characteristic) and the checks before it is stored. The step adds
-    the fields of its study (``fields``: shown once a file is read) and the compute button.
+    the fields of its study (``fields``: shown once a file is read, with the ``compute``
+    button).
     """
 
     def __init__(
@@ -689,6 +690,7 @@ class _UploadFlow:
         example: str,
         choose: str,
         placeholder: str,
+        compute: tuple[str, Callable],
         on_upload: Callable,
         on_attach: Callable,
         extra: tuple = (),
@@ -708,6 +710,15 @@ class _UploadFlow:
         self.upload.observe(guarded(on_upload, messages=messages), names="value")
         self.info = html_box("", "sk-small", f"{css}-file")
         self.fields: widgets.Widget = widgets.VBox([])
+        self.compute = button(
+            compute[0],
+            f"{css}-compute",
+            icon="calculator",
+            primary=True,
+            disabled=True,
+            on_click=compute[1],
+            messages=messages,
+        )
         self.preview = html_box("", f"{css}-preview")
         self.reason = text_field(f"{css}-reason", placeholder=placeholder, width="460px")
         self.attach = button(
@@ -732,6 +743,13 @@ class _UploadFlow:
             ],
             layout=widgets.Layout(display="none"),
         )
+
+    def keep(self, name: str, data: bytes, info: str) -> None:
+        """The file read: its fields shown with ``info`` (HTML) beside the upload button."""
+        self.data, self.name = data, name
+        self.fields.layout.display = ""
+        self.compute.disabled = False
+        self.info.value = info
 
     def forget_file(self) -> None:
         self.data, self.name = None, ""
@@ -917,6 +935,7 @@ class GaugeStep(StudyStep):
             example="gauge GR-07 on master M-8.000",
             choose="Choose readings",
             placeholder="why, e.g. 'gauge GR-07 on master M-8.000, certificate C-114'",
+            compute=("Compute Cg, Cgk", self._on_short_compute),
             on_upload=lambda c: self._on_short_upload(context, c),
             on_attach=self._on_short_attach,
         )
@@ -926,7 +945,7 @@ class GaugeStep(StudyStep):
             flow.preview,
         )
         self.short_reason, self.short_attach, self.short_hint = flow.reason, flow.attach, flow.hint
-        self.short_attach_box = flow.box
+        self.short_attach_box, self.short_compute = flow.box, flow.compute
         lay = widgets.Layout(width="130px")
         self.short_value = widgets.Dropdown(options=[], layout=widgets.Layout(width="190px"))
         self.short_reference = widgets.Text(placeholder="e.g. 8.0004", layout=lay)
@@ -934,15 +953,6 @@ class GaugeStep(StudyStep):
         self.short_usl = widgets.Text(placeholder="USL", layout=lay)
         self.short_k = widgets.Text(value="20", layout=widgets.Layout(width="80px"))
         self.short_l = widgets.Text(value="6", layout=widgets.Layout(width="80px"))
-        self.short_compute = button(
-            "Compute Cg, Cgk",
-            "sk-short-compute",
-            icon="calculator",
-            primary=True,
-            disabled=True,
-            on_click=self._on_short_compute,
-            messages=m,
-        )
         fields = []
         for text, w, key in (
             ("Reading column", self.short_value, "value"),
@@ -992,16 +1002,14 @@ class GaugeStep(StudyStep):
             return
         name, data = taken
         headers = read_reference_upload(data, name)["headers"]
-        self._short.data, self._short.name = data, name
         self.short_value.options = headers
         guess = [h for h in headers if set(_words(h)) & set(_ROLE_WORDS["value"])]
         self.short_value.value = guess[0] if guess else headers[-1]
-        self.short_fields.layout.display = ""
-        self.short_compute.disabled = False
-        self.short_info.value = (
-            f"<b>{esc(name)}</b> · columns: "
-            + ", ".join(esc(h) for h in headers)
-            + ". Give the reference value, then compute."
+        self._short.keep(
+            name,
+            data,
+            f"<b>{esc(name)}</b> · columns: {', '.join(esc(h) for h in headers)}. Give the "
+            "reference value, then compute.",
         )
 
     def _short_number(self, label: str, w, *, required: bool = True) -> float | None:
@@ -1098,13 +1106,14 @@ class GaugeStep(StudyStep):
             example="gauge GR-07, study GR-2026-14",
             choose="Choose gauge table",
             placeholder="why, e.g. 'gauge GR-07 after recalibration, study GR-2026-14'",
+            compute=("Compute the study", self._on_compute),
             on_upload=lambda c: self._on_upload(context, c),
             on_attach=self._on_attach,
             extra=(self.preview_figure,),
         )
         self.upload, self.file_info, self.preview = flow.upload, flow.info, flow.preview
         self.reason, self.attach, self.attach_hint = flow.reason, flow.attach, flow.hint
-        self.attach_box = flow.box
+        self.attach_box, self.compute = flow.box, flow.compute
         lay = widgets.Layout(width="190px")
         self.col_part = widgets.Dropdown(options=[], layout=lay)
         self.col_appraiser = widgets.Dropdown(options=[], layout=lay)
@@ -1113,15 +1122,6 @@ class GaugeStep(StudyStep):
         tl = widgets.Layout(width="130px")
         self.lsl = widgets.Text(placeholder="none", layout=tl)
         self.usl = widgets.Text(placeholder="none", layout=tl)
-        self.compute = button(
-            "Compute the study",
-            "sk-gauge-compute",
-            icon="calculator",
-            primary=True,
-            disabled=True,
-            on_click=self._on_compute,
-            messages=m,
-        )
         columns = []
         for text, w, key in (
             ("Part column", self.col_part, "col-part"),
@@ -1279,7 +1279,6 @@ class GaugeStep(StudyStep):
         name, data = taken
         headers = read_gauge_upload(data, name)["headers"]
         guess = guess_columns(headers)
-        self._gauge.data, self._gauge.name = data, name
         for w in (self.col_part, self.col_appraiser, self.col_value):
             w.options = headers
         self.col_trial.options = [(_NO_TRIAL, "")] + [(h, h) for h in headers]
@@ -1287,12 +1286,11 @@ class GaugeStep(StudyStep):
         self.col_appraiser.value = guess["appraiser"]
         self.col_value.value = guess["value"]
         self.col_trial.value = guess["trial"] or ""
-        self.columns_box.layout.display = ""
-        self.compute.disabled = False
-        self.file_info.value = (
-            f"<b>{esc(name)}</b> · {len(headers)} columns: "
-            + ", ".join(esc(h) for h in headers)
-            + ". Check the columns, then compute."
+        self._gauge.keep(
+            name,
+            data,
+            f"<b>{esc(name)}</b> · {len(headers)} columns: {', '.join(esc(h) for h in headers)}. "
+            "Check the columns, then compute.",
         )
 
     def _tolerance(self) -> tuple[float | None, float | None]:
