@@ -1332,15 +1332,11 @@ class GaugeStep(StudyStep):
             "trial": self.col_trial.value or None,
         }
         table = read_gauge_upload(self._gauge.data, self._gauge.name, **cols)
+        # without the headers, the table is gauge_rr's own arguments: values, parts, appraisers,
+        # trials (as the command line passes it)
+        del table["headers"]
         try:
-            result = gauge_rr(
-                table["values"],
-                table["parts"],
-                table["appraisers"],
-                trials=table["trials"],
-                lsl=lsl,
-                usl=usl,
-            )
+            result = gauge_rr(**table, lsl=lsl, usl=usl)
         except StudyInputError as exc:
             if exc.file is not None:
                 raise
