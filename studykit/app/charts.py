@@ -24,6 +24,13 @@ __all__ = [
     "control_chart_columns",
     "histogram_columns",
     "interval_columns",
+    "hover",
+    "key_line",
+    "legend_above",
+    "row_dot",
+    "row_span",
+    "stretch_figure",
+    "tick_marker",
 ]
 
 LOCATION_NAMES = {
@@ -41,6 +48,125 @@ DISPERSION_NAMES = {
     "imr": "Moving range",
 }
 _TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
+#: Columns of a control chart's points source (one row per subgroup) and of its limits source.
+_POINT_COLUMNS = (
+    "x",
+    "label",
+    "value",
+    "status",
+    "time",
+    "note",
+    "values",
+    "removed_why",
+    "rules",
+    "kept_why",
+    "value_text",
+)
+_LIMIT_COLUMNS = (
+    "center",
+    "lcl",
+    "ucl",
+    "lower_warning",
+    "upper_warning",
+    "lower_zone",
+    "upper_zone",
+)
+
+
+# --- the pieces every workbook chart is made of ---------------------------------------------------
+
+
+def stretch_figure(height: int, *, x_range=(0, 1), y_range=(0, 1), **options):
+    """A bokeh figure as wide as its panel; a ``(low, high)`` range is numeric (the views set
+    it on update), a list of names a categorical axis; ``options`` go to ``figure``."""
+    from bokeh.models import Range1d
+    from bokeh.plotting import figure
+
+    def axis(r):
+        return Range1d(*r) if isinstance(r, tuple) else r
+
+    return figure(
+        height=height,
+        sizing_mode="stretch_width",
+        x_range=axis(x_range),
+        y_range=axis(y_range),
+        **options,
+    )
+
+
+def legend_above(fig, items, **options) -> None:
+    """The chart's key in a row above the plot, in the one style of the workbook's charts.
+
+    ``items`` are ``(label, renderer or list of renderers)`` pairs or ready ``LegendItem``
+    objects (an entry the view relabels or hides later); ``options`` go to ``Legend``.
+    """
+    from bokeh.models import Legend, LegendItem
+
+    entries = [
+        i
+        if isinstance(i, LegendItem)
+        else LegendItem(label=i[0], renderers=i[1] if isinstance(i[1], list) else [i[1]])
+        for i in items
+    ]
+    legend = Legend(
+        items=entries,
+        orientation="horizontal",
+        location="top_left",
+        spacing=12,
+        label_text_font_size="12px",
+        border_line_color=None,
+        **options,
+    )
+    fig.add_layout(legend, "above")
+
+
+def key_line(fig, role: str):
+    """A line without data in the style of ``role``: its swatch in the legend (bokeh 3.9 draws
+    none for a renderer without data, so the swatch is a renderer of its own)."""
+    nan = [float("nan")]
+    return fig.line(nan, nan, **theme.bokeh_line_kwargs(role))
+
+
+def hover(fig, renderer, tooltips) -> None:
+    """Hover text (``(label, field)`` pairs) on one renderer of ``fig``."""
+    from bokeh.models import HoverTool
+
+    fig.add_tools(HoverTool(renderers=[renderer], tooltips=tooltips))
+
+
+def row_span(fig, low: str, high: str, source, *, color: str, width: float):
+    """A line from ``low`` to ``high`` on each row of a horizontal chart (an interval)."""
+    return fig.segment(
+        x0=low, x1=high, y0="name", y1="name", source=source, line_color=color, line_width=width
+    )
+
+
+def row_dot(fig, x: str, source, *, marker: str, size: int, fill: str, line: str, width: float):
+    """A dot at ``x`` on each row of a horizontal chart (an estimate); colours may be fields."""
+    return fig.scatter(
+        x,
+        "name",
+        source=source,
+        marker=marker,
+        size=size,
+        fill_color=fill,
+        line_color=line,
+        line_width=width,
+    )
+
+
+def tick_marker(fig, x: str, source, *, size: int, color: str):
+    """A short upright bar at ``x`` on each row of a horizontal chart (a bound, a requirement)."""
+    return fig.scatter(
+        x,
+        "name",
+        source=source,
+        marker="dash",
+        angle=math.pi / 2,
+        size=size,
+        line_color=color,
+        line_width=3,
+    )
 
 
 def _floats(a) -> list:
@@ -132,19 +258,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             continue
         full_series = getattr(full_chart, part) if full_chart is not None else None
         digits = None if on_model_scale else value_digits + (part == "dispersion")
-        pts = {
-            "x": [],
-            "label": [],
-            "value": [],
-            "status": [],
-            "time": [],
-            "note": [],
-            "values": [],
-            "removed_why": [],
-            "rules": [],
-            "kept_why": [],
-            "value_text": [],
-        }
+        pts: dict[str, list] = {k: [] for k in _POINT_COLUMNS}
         by_label = {lab: float(v) for lab, v in zip(kept, _floats(series.points), strict=False)}
         full_values = {}
         if full_series is not None:
@@ -177,15 +291,7 @@ def control_chart_columns(result, *, full_chart=None, details: dict | None = Non
             pts["kept_why"].append(kept_why.get(lab, "—") if is_kept else "—")
         xs = [xpos[lab] for lab in kept]
         limits = {"x": xs}
-        for key in (
-            "center",
-            "lcl",
-            "ucl",
-            "lower_warning",
-            "upper_warning",
-            "lower_zone",
-            "upper_zone",
-        ):
+        for key in _LIMIT_COLUMNS:
             limits[key] = _floats(getattr(series, key))[: len(xs)]
         signals = {"x": [], "value": [], "rule": []}
         for pos, rules in sorted(rules_at.items()):
@@ -303,60 +409,21 @@ class ControlChartView:
             FixedTicker,
             GroupFilter,
             HoverTool,
-            Legend,
             LegendItem,
-            Range1d,
             TapTool,
             Title,
         )
-        from bokeh.plotting import figure
 
-        pts = ColumnDataSource(
-            {
-                k: []
-                for k in (
-                    "x",
-                    "label",
-                    "value",
-                    "status",
-                    "time",
-                    "note",
-                    "values",
-                    "removed_why",
-                    "rules",
-                    "kept_why",
-                    "value_text",
-                )
-            },
-            name=f"{part}_points",
-        )
-        lim = ColumnDataSource(
-            {
-                k: []
-                for k in (
-                    "x",
-                    "center",
-                    "lcl",
-                    "ucl",
-                    "lower_warning",
-                    "upper_warning",
-                    "lower_zone",
-                    "upper_zone",
-                )
-            },
-            name=f"{part}_limits",
-        )
+        pts = ColumnDataSource({k: [] for k in _POINT_COLUMNS}, name=f"{part}_points")
+        lim = ColumnDataSource({k: [] for k in ("x", *_LIMIT_COLUMNS)}, name=f"{part}_limits")
         class_src = ColumnDataSource({"x": [], "lower": [], "upper": []}, name=f"{part}_class")
         sig = ColumnDataSource({"x": [], "value": [], "rule": []}, name=f"{part}_signals")
         ring = ColumnDataSource({"x": [], "value": [], "why": []}, name=f"{part}_kept")
-        fig = figure(
-            height=height,
-            sizing_mode="stretch_width",
+        fig = stretch_figure(
+            height,
             tools=_TOOLS,
             toolbar_location="above",
             x_axis_label="Subgroup (production order)",
-            x_range=Range1d(0, 1),
-            y_range=Range1d(0, 1),
         )
         fig.min_border_right = 16
         # the control limits on a line of their own under the chart's name (two short lines
@@ -468,31 +535,18 @@ class ControlChartView:
                 label="Limits of the time-dependent model", renderers=[class_band], visible=False
             )
             items = [
-                LegendItem(label="Subgroup", renderers=[kept_key]),
-                LegendItem(label="Centre", renderers=[centre]),
-                LegendItem(label="Control limits", renderers=limits),
-                LegendItem(label="±1σ zone", renderers=[zone]),
-                LegendItem(label="2σ warning", renderers=warn),
-                LegendItem(label="Signal (rule broken)", renderers=[signal_key]),
-                LegendItem(label="Removed (reason on file)", renderers=[removed_key]),
-                LegendItem(label="Signal kept (reason on file)", renderers=[ring_key]),
+                ("Subgroup", kept_key),
+                ("Centre", centre),
+                ("Control limits", limits),
+                ("±1σ zone", zone),
+                ("2σ warning", warn),
+                ("Signal (rule broken)", signal_key),
+                ("Removed (reason on file)", removed_key),
+                ("Signal kept (reason on file)", ring_key),
                 self.class_item,
             ]
             # two rows: eight entries do not fit one row beside the side panel at 1280 px
-            fig.add_layout(
-                Legend(
-                    items=items,
-                    orientation="horizontal",
-                    location="top_left",
-                    label_text_font_size="12px",
-                    spacing=12,
-                    padding=2,
-                    margin=4,
-                    border_line_color=None,
-                    nrows=2,
-                ),
-                "above",
-            )
+            legend_above(fig, items, padding=2, margin=4, nrows=2)
         fig.xaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(fig)
         fig.toolbar.active_tap = fig.select_one(TapTool)
@@ -681,25 +735,15 @@ class ShapeView:
         from bokeh.models import (
             ColumnDataSource,
             FixedTicker,
-            HoverTool,
-            Legend,
             LegendItem,
-            Range1d,
             Span,
         )
-        from bokeh.plotting import figure
 
         self.bars = ColumnDataSource({"left": [], "right": [], "top": [], "count": []})
         self.model = ColumnDataSource({"x": [], "y": []})
         self.compare = ColumnDataSource({"x": [], "y": []})
-        h = figure(
-            height=height,
-            sizing_mode="stretch_width",
-            tools=_TOOLS,
-            x_range=Range1d(0, 1),
-            y_range=Range1d(0, 1),
-            title="Distribution of the values used",
-            y_axis_label="Density",
+        h = stretch_figure(
+            height, tools=_TOOLS, title="Distribution of the values used", y_axis_label="Density"
         )
         bars = h.quad(
             left="left",
@@ -712,16 +756,7 @@ class ShapeView:
             line_color=theme.OKABE_ITO["blue"],
             line_alpha=0.8,
         )
-        h.add_tools(
-            HoverTool(
-                renderers=[bars],
-                tooltips=[
-                    ("From", "@left{0.0000}"),
-                    ("To", "@right{0.0000}"),
-                    ("Values", "@count"),
-                ],
-            )
-        )
+        hover(h, bars, [("From", "@left{0.0000}"), ("To", "@right{0.0000}"), ("Values", "@count")])
         fit = h.line("x", "y", source=self.model, **theme.bokeh_line_kwargs("fit"))
         comp_kw = theme.bokeh_line_kwargs("secondary")
         comp_kw["line_dash"] = "dashed"
@@ -732,38 +767,15 @@ class ShapeView:
             s.visible = False
             h.add_layout(s)
             self.spans[key] = s
-        nan = [float("nan")]
-        spec_r = h.line(nan, nan, **theme.bokeh_line_kwargs("spec_limit"))
-        target_r = h.line(nan, nan, **theme.bokeh_line_kwargs("target"))
+        spec_r, target_r = key_line(h, "spec_limit"), key_line(h, "target")
         self._fit_item = LegendItem(label="Model", renderers=[fit])
         self._comp_item = LegendItem(label="Normal", renderers=[comp])
-        h.add_layout(
-            Legend(
-                items=[
-                    LegendItem(label="Values used", renderers=[bars]),
-                    self._fit_item,
-                    self._comp_item,
-                    LegendItem(label="Spec limits", renderers=[spec_r]),
-                    LegendItem(label="Target", renderers=[target_r]),
-                ],
-                orientation="horizontal",
-                location="top_left",
-                spacing=12,
-                label_text_font_size="12px",
-                border_line_color=None,
-            ),
-            "above",
-        )
+        keys = [("Values used", bars), self._fit_item, self._comp_item]
+        legend_above(h, [*keys, ("Spec limits", spec_r), ("Target", target_r)])
         theme.style_bokeh_figure(h)
         self.points = ColumnDataSource({"value": [], "z": [], "line": [], "lower": [], "upper": []})
-        p = figure(
-            height=height,
-            sizing_mode="stretch_width",
-            tools=_TOOLS,
-            x_range=Range1d(0, 1),
-            y_range=Range1d(0, 1),
-            title="Normal probability plot",
-            y_axis_label="Cumulative %",
+        p = stretch_figure(
+            height, tools=_TOOLS, title="Normal probability plot", y_axis_label="Cumulative %"
         )
         band = p.harea(
             y="z",
@@ -777,21 +789,9 @@ class ShapeView:
         mk = theme.bokeh_marker_kwargs("data")
         mk["size"] = 6
         pts = p.scatter("value", "z", source=self.points, **mk)
-        p.add_tools(HoverTool(renderers=[pts], tooltips=[("Value", "@value{0.00000}")]))
-        p.add_layout(
-            Legend(
-                items=[
-                    LegendItem(label="Ordered values", renderers=[pts]),
-                    LegendItem(label="Normal line", renderers=[pline]),
-                    LegendItem(label="Confidence band", renderers=[band]),
-                ],
-                orientation="horizontal",
-                location="top_left",
-                spacing=12,
-                label_text_font_size="12px",
-                border_line_color=None,
-            ),
-            "above",
+        hover(p, pts, [("Value", "@value{0.00000}")])
+        legend_above(
+            p, [("Ordered values", pts), ("Normal line", pline), ("Confidence band", band)]
         )
         p.yaxis[0].ticker = FixedTicker(ticks=[])
         theme.style_bokeh_figure(p)
@@ -900,27 +900,16 @@ class IntervalView:
     def __init__(self, *, height: int = 250):
         from bokeh.models import (
             ColumnDataSource,
-            HoverTool,
             Label,
-            Legend,
             LegendItem,
-            Range1d,
             Span,
         )
-        from bokeh.plotting import figure
 
         self.rows = ColumnDataSource(
             {"name": [], "estimate": [], "lower": [], "upper": [], "lower_bound": [], "judged": []}
         )
         self.band = ColumnDataSource({"name": [], "low": [], "high": []})
-        f = figure(
-            height=height,
-            sizing_mode="stretch_width",
-            y_range=["—"],
-            tools="save",
-            x_range=Range1d(0, 1),
-            x_axis_label="Index value",
-        )
+        f = stretch_figure(height, y_range=["—"], tools="save", x_axis_label="Index value")
         band = f.hbar(
             y="name",
             left="low",
@@ -931,46 +920,25 @@ class IntervalView:
             fill_alpha=0.35,
             line_color=theme.SKY_BLUE_LINE,
         )
-        seg = f.segment(
-            x0="lower",
-            x1="upper",
-            y0="name",
-            y1="name",
-            source=self.rows,
-            line_color=theme.OKABE_ITO["blue"],
-            line_width=4,
-        )
-        lb = f.scatter(
-            "lower_bound",
-            "name",
-            source=self.rows,
-            marker="dash",
-            angle=math.pi / 2,
-            size=22,
-            line_color=theme.INK,
-            line_width=3,
-        )
-        est = f.scatter(
+        seg = row_span(f, "lower", "upper", self.rows, color=theme.OKABE_ITO["blue"], width=4)
+        lb = tick_marker(f, "lower_bound", self.rows, size=22, color=theme.INK)
+        est = row_dot(
+            f,
             "estimate",
-            "name",
-            source=self.rows,
+            self.rows,
             marker="circle",
             size=11,
-            fill_color=theme.PAPER,
-            line_color=theme.INK,
-            line_width=2.5,
+            fill=theme.PAPER,
+            line=theme.INK,
+            width=2.5,
         )
-        f.add_tools(
-            HoverTool(
-                renderers=[est],
-                tooltips=[
-                    ("Index", "@name"),
-                    ("Estimate", "@estimate{0.000}"),
-                    ("Lower bound", "@lower_bound{0.000}"),
-                    ("Interval", "@lower{0.000} – @upper{0.000}"),
-                ],
-            )
-        )
+        tips = [
+            ("Index", "@name"),
+            ("Estimate", "@estimate{0.000}"),
+            ("Lower bound", "@lower_bound{0.000}"),
+            ("Interval", "@lower{0.000} – @upper{0.000}"),
+        ]
+        hover(f, est, tips)
         self.threshold = Span(
             location=1.67, dimension="height", **theme.bokeh_line_kwargs("spec_limit")
         )
@@ -986,25 +954,18 @@ class IntervalView:
             text_color=theme.ROLES["spec_limit"].color,
         )
         f.add_layout(self.threshold_label)
-        req = f.line([float("nan")], [float("nan")], **theme.bokeh_line_kwargs("spec_limit"))
+        req = key_line(f, "spec_limit")
         self._interval_item = LegendItem(label="95% interval", renderers=[seg])
         self._bound_item = LegendItem(label="Lower 95% bound", renderers=[lb])
-        f.add_layout(
-            Legend(
-                items=[
-                    LegendItem(label="Estimate", renderers=[est]),
-                    self._interval_item,
-                    self._bound_item,
-                    LegendItem(label=names.MODEL_BAND, renderers=[band]),
-                    LegendItem(label="Required", renderers=[req]),
-                ],
-                orientation="horizontal",
-                location="top_left",
-                spacing=12,
-                label_text_font_size="12px",
-                border_line_color=None,
-            ),
-            "above",
+        legend_above(
+            f,
+            [
+                ("Estimate", est),
+                self._interval_item,
+                self._bound_item,
+                (names.MODEL_BAND, band),
+                ("Required", req),
+            ],
         )
         theme.style_bokeh_figure(f)
         f.toolbar_location = None

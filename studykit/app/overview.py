@@ -562,76 +562,44 @@ class OverviewChart:
         self._drawn = None
 
     def _build(self):
-        from bokeh.models import ColumnDataSource, HoverTool, Legend, LegendItem, Range1d
-        from bokeh.plotting import figure
+        from bokeh.models import ColumnDataSource
 
-        from studykit.app.charts import LiveChart
+        from studykit.app.charts import (
+            LiveChart,
+            hover,
+            legend_above,
+            row_dot,
+            row_span,
+            stretch_figure,
+            tick_marker,
+        )
 
         self.source = ColumnDataSource(self._columns([]))
-        f = figure(
-            height=120,
-            sizing_mode="stretch_width",
+        f = stretch_figure(
+            120,
             y_range=["—"],
-            x_range=Range1d(0, 2),
+            x_range=(0, 2),
             tools="save",
             x_axis_label="Judged capability index",
         )
-        need = f.scatter(
-            "threshold",
-            "name",
-            source=self.source,
-            marker="dash",
-            angle=1.5708,
-            size=26,
-            line_color=theme.ROLES["spec_limit"].color,
-            line_width=3,
+        need = tick_marker(
+            f, "threshold", self.source, size=26, color=theme.ROLES["spec_limit"].color
         )
-        span = f.segment(
-            x0="lower_bound",
-            x1="estimate",
-            y0="name",
-            y1="name",
-            source=self.source,
-            line_color=theme.INK_SOFT,
-            line_width=2,
+        span = row_span(f, "lower_bound", "estimate", self.source, color=theme.INK_SOFT, width=2)
+        est = row_dot(
+            f, "estimate", self.source, marker="marker", size=13, fill="color", line="line", width=2
         )
-        est = f.scatter(
-            "estimate",
-            "name",
-            source=self.source,
-            marker="marker",
-            size=13,
-            fill_color="color",
-            line_color="line",
-            line_width=2,
-        )
-        f.add_tools(
-            HoverTool(
-                renderers=[est],
-                tooltips=[
-                    ("Characteristic", "@name"),
-                    ("Index", "@index"),
-                    ("Estimate", "@estimate{0.00}"),
-                    ("Lower bound", "@lower_bound{0.00}"),
-                    ("Required", "@threshold{0.00}"),
-                    ("Verdict", "@word"),
-                ],
-            )
-        )
-        f.add_layout(
-            Legend(
-                items=[
-                    LegendItem(label="Estimate (colour: verdict)", renderers=[est]),
-                    LegendItem(label="Lower bound", renderers=[span]),
-                    LegendItem(label="Required", renderers=[need]),
-                ],
-                orientation="horizontal",
-                location="top_left",
-                spacing=12,
-                label_text_font_size="12px",
-                border_line_color=None,
-            ),
-            "above",
+        tips = [
+            ("Characteristic", "@name"),
+            ("Index", "@index"),
+            ("Estimate", "@estimate{0.00}"),
+            ("Lower bound", "@lower_bound{0.00}"),
+            ("Required", "@threshold{0.00}"),
+            ("Verdict", "@word"),
+        ]
+        hover(f, est, tips)
+        legend_above(
+            f, [("Estimate (colour: verdict)", est), ("Lower bound", span), ("Required", need)]
         )
         theme.style_bokeh_figure(f)
         f.toolbar_location = None

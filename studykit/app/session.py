@@ -146,6 +146,20 @@ class RemovalRow:
         }
 
 
+def _accept(study, name: str, proposal, reason: str, who: str, **lock):
+    """``study`` with an accepted removal proposal recorded: an automatic ``exclude`` with the
+    rule, chart and signal in its payload (the one form of an accepted proposal)."""
+    payload = {
+        "rule": proposal.rule,
+        "chart": proposal.chart,
+        "signal": proposal.reason,
+        "accepted_by": who,
+    }
+    return study.exclude(
+        name, proposal.label, reason=reason, who=who, automatic=True, payload=payload, **lock
+    )
+
+
 def _check_name(who: str) -> str:
     who = (who or "").strip()
     if not who:
@@ -693,20 +707,7 @@ class StudySession:
             first = True
             for proposal, reason in items:
                 kwargs = lock if first else {}
-                study = study.exclude(
-                    name,
-                    proposal.label,
-                    reason=reason,
-                    who=who,
-                    automatic=True,
-                    payload={
-                        "rule": proposal.rule,
-                        "chart": proposal.chart,
-                        "signal": proposal.reason,
-                        "accepted_by": who,
-                    },
-                    **kwargs,
-                )
+                study = _accept(study, name, proposal, reason, who, **kwargs)
                 first = False
             return study
 
@@ -1094,20 +1095,7 @@ class StudySession:
         def change(study):
             kwargs = dict(lock)
             for proposal, reason in acc:
-                study = study.exclude(
-                    name,
-                    proposal.label,
-                    reason=reason,
-                    who=who,
-                    automatic=True,
-                    payload={
-                        "rule": proposal.rule,
-                        "chart": proposal.chart,
-                        "signal": proposal.reason,
-                        "accepted_by": who,
-                    },
-                    **kwargs,
-                )
+                study = _accept(study, name, proposal, reason, who, **kwargs)
                 kwargs = {}
             for proposal, reason in rej:
                 for rule in proposal.rule.split(","):

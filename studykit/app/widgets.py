@@ -184,6 +184,52 @@ def html_box(text: str = "", *classes: str) -> widgets.HTML:
     return box
 
 
+def labelled(text: str, w: widgets.Widget) -> widgets.VBox:
+    """``w`` under its field label (class ``sk-field-label``)."""
+    return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
+
+
+def button(
+    description: str,
+    css: str,
+    *,
+    icon: str = "",
+    primary: bool = False,
+    disabled: bool = False,
+    width: str | None = None,
+    on_click: Callable[[], object] | None = None,
+    messages: MessageArea | None = None,
+) -> widgets.Button:
+    """A workbook button: CSS class ``css`` (the style sheet and the browser tests find it by
+    it), ``primary`` for a step's main action, ``on_click()`` wrapped in :func:`guarded`.
+
+    Examples
+    --------
+    >>> b = button("Save", "sk-save", icon="save", primary=True, disabled=True)
+    >>> b.button_style, b.disabled, b._dom_classes
+    ('primary', True, ('sk-save',))
+    """
+    layout = {"layout": widgets.Layout(width=width)} if width else {}
+    b = widgets.Button(
+        description=description,
+        icon=icon,
+        button_style="primary" if primary else "",
+        disabled=disabled,
+        **layout,
+    )
+    b.add_class(css)
+    if on_click is not None:
+        b.on_click(guarded(lambda _b: on_click(), messages=messages))
+    return b
+
+
+def text_field(css: str, *, placeholder: str, width: str) -> widgets.Text:
+    """A one-line text field of the workbook (a reason, a name) with CSS class ``css``."""
+    w = widgets.Text(placeholder=placeholder, layout=widgets.Layout(width=width))
+    w.add_class(css)
+    return w
+
+
 def verdict_badge(name: str) -> str:
     """HTML for a verdict chip: symbol + word + colour (never colour alone).
 

@@ -13,16 +13,9 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names, theme
-from studykit.app.charts import IntervalView, LiveChart
-from studykit.app.overview import (
-    fmt,
-    no_study_panel,
-    panel,
-    panel_css,
-    verdict_chip,
-    when_shown,
-    workspace,
-)
+from studykit.app.charts import IntervalView
+from studykit.app.overview import fmt, panel, panel_css, verdict_chip, when_shown
+from studykit.app.steps.base import ChartStep
 from studykit.app.widgets import caution_banner, esc, guarded, html_box
 from studykit.errors import StudyInputError
 
@@ -261,7 +254,7 @@ def attribute_html(result) -> str:
     )
 
 
-class CapabilityStep:
+class CapabilityStep(ChartStep):
     """Step "Capability" (key ``capability``)."""
 
     key = "capability"
@@ -270,21 +263,12 @@ class CapabilityStep:
         "Compare the process spread with the tolerance and read the verdict with its "
         "confidence bound."
     )
+    what = "The capability step"
 
-    def __init__(self):
-        self.ws = None
-        self.view = None
-        self._drawn = None
-
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The capability step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
-        self.view = IntervalView()
-        self.live = LiveChart(self.view.layout)
+        self._chart(IntervalView())
         self.chart = widgets.VBox([])
-        self.caution = widgets.VBox([])
         self.verdict = html_box("", "sk-verdict")
         self.ppm = html_box("", "sk-ppm-box")
         self.indices = html_box("", "sk-indices-box")
@@ -350,25 +334,11 @@ class CapabilityStep:
             ]
         )
 
-    def shown(self, context) -> None:
-        """The step is open again: bring its chart widget up to date."""
-        if self.view is not None:
-            self.live.resync()
+    def _show_error(self, name: str, exc: StudyInputError) -> None:
+        self.verdict.value = f'<div class="sk-msg sk-msg-error">{esc(exc)}</div>'
 
-    def refresh(self, context) -> None:
-        ws = self.ws
-        if ws is None or self.view is None:
-            return
-        s = ws.session
-        try:
-            res = s.result(s.current)
-        except StudyInputError as exc:
-            self.verdict.value = f'<div class="sk-msg sk-msg-error">{esc(exc)}</div>'
-            return
-        key = (s.current, id(res))
-        if key == self._drawn:
-            return
-        self._drawn = key
+    def _draw(self, res, new_name: bool) -> None:
+        s = self.ws.session
         self.caution.children = [caution_banner()] if res.spec.get("safety_critical") else []
         self.verdict.value = verdict_html(res)
         has_cap = res.capability is not None

@@ -16,8 +16,9 @@ from pathlib import Path
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import no_study_panel, panel, panel_css, workspace
-from studykit.app.widgets import esc, guarded, html_box, upload_button
+from studykit.app.overview import panel, panel_css
+from studykit.app.steps.base import StudyStep
+from studykit.app.widgets import button, esc, guarded, html_box, labelled, upload_button
 
 
 def download_link(data: bytes, filename: str, mime: str, *, label: str | None = None) -> str:
@@ -59,42 +60,30 @@ def _stem(session) -> str:
     return re.sub(r"[^A-Za-z0-9_-]+", "_", session.path.stem).strip("_") or "study"
 
 
-class ExportStep:
+class ExportStep(StudyStep):
     """Step "Evidence & hand-off" (key ``export``)."""
 
     key = "export"
     title = names.STEP_NAMES[key]
     guidance = "Produce the PDF evidence and the limits for series production."
 
+    what = "The export step"
+
     def __init__(self):
-        self.ws = None
         self._pdf = None  # (bytes, file name, content digest) of the last PDF made here
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The export step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.build_report, self.build_handoff = _report_functions()
-        self.pdf = widgets.Button(
-            description="Make the PDF evidence",
-            button_style="primary",
-            icon="file-pdf-o",
-            layout=widgets.Layout(width="auto"),
+        self.pdf, self.handoff, self.json, self.notebook = (
+            button(text, f"sk-make-{key}", icon=icon, primary=key == "pdf", width="auto")
+            for text, key, icon in (
+                ("Make the PDF evidence", "pdf", "file-pdf-o"),
+                ("Make the hand-off zip", "handoff", "archive"),
+                ("Results as JSON", "json", "download"),
+                ("Analysis notebook", "notebook", "book"),
+            )
         )
-        self.pdf.add_class("sk-make-pdf")
-        self.handoff = widgets.Button(
-            description="Make the hand-off zip", icon="archive", layout=widgets.Layout(width="auto")
-        )
-        self.handoff.add_class("sk-make-handoff")
-        self.json = widgets.Button(
-            description="Results as JSON", icon="download", layout=widgets.Layout(width="auto")
-        )
-        self.json.add_class("sk-make-json")
-        self.notebook = widgets.Button(
-            description="Analysis notebook", icon="book", layout=widgets.Layout(width="auto")
-        )
-        self.notebook.add_class("sk-make-notebook")
         self.progress = widgets.IntProgress(
             value=0, min=0, max=1, layout=widgets.Layout(width="320px", display="none")
         )
@@ -171,22 +160,19 @@ class ExportStep:
             layout=widgets.Layout(width="160px"),
         )
         self.sign_role.add_class("sk-pdf-role")
-        self.sign_pdf = widgets.Button(
-            description="Sign the PDF with my certificate",
+        self.sign_pdf = button(
+            "Sign the PDF with my certificate",
+            "sk-sign-pdf",
             icon="certificate",
             disabled=True,
-            layout=widgets.Layout(width="auto"),
+            width="auto",
         )
-        self.sign_pdf.add_class("sk-sign-pdf")
         self.sign_hint = html_box("", "sk-small")
         self.signed_links = html_box("", "sk-signed-downloads")
         for w in (self.p12, self.passphrase, self.sign_role, self.ws.who):
             w.observe(guarded(lambda _c: self._update_sign_button(), messages=m), names="value")
         self.sign_pdf.on_click(guarded(self._on_sign_pdf_click, messages=m))
         self._update_sign_button()
-
-        def field(label, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
 
         return widgets.VBox(
             [
@@ -200,10 +186,10 @@ class ExportStep:
                 ),
                 widgets.HBox(
                     [
-                        field("Your name (written into the signature)", self.ws.who),
-                        field("Certificate", self.p12),
-                        field("Passphrase", self.passphrase),
-                        field("Role", self.sign_role),
+                        labelled("Your name (written into the signature)", self.ws.who),
+                        labelled("Certificate", self.p12),
+                        labelled("Passphrase", self.passphrase),
+                        labelled("Role", self.sign_role),
                     ],
                     layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"),
                 ),
@@ -360,16 +346,22 @@ class ExportStep:
     def _add_link(self, html: str) -> None:
         self.links.value = f'<div style="margin:6px 0">{html}</div>' + self.links.value
 
-    def _on_pdf(self) -> None:
+    def _made(self, build, suffix: str) -> tuple:
+        """(what ``build`` returned, the bytes of its file) for the study file open, the
+        buttons held and the progress shown meanwhile; ``suffix`` ends the temporary name."""
         s = self.ws.session
         self._start("Starting …")
         try:
             with tempfile.TemporaryDirectory() as d:
-                out = Path(d) / f"{_stem(s)}.pdf"
-                info = self.build_report(s.path, out, progress=self._progress)
-                data = out.read_bytes()
+                out = Path(d) / f"{_stem(s)}{suffix}"
+                info = build(s.path, out, progress=self._progress)
+                return info, out.read_bytes()
         finally:
             self._finish()
+
+    def _on_pdf(self) -> None:
+        s = self.ws.session
+        info, data = self._made(self.build_report, ".pdf")
         self._pdf = (data, f"{_stem(s)}-evidence.pdf", s.shown_digest)
         if hasattr(self, "sign_pdf"):
             self.signed_links.value = ""
@@ -387,14 +379,7 @@ class ExportStep:
 
     def _on_handoff(self) -> None:
         s = self.ws.session
-        self._start("Starting …")
-        try:
-            with tempfile.TemporaryDirectory() as d:
-                out = Path(d) / f"{_stem(s)}-handoff.zip"
-                info = self.build_handoff(s.path, out, progress=self._progress)
-                data = out.read_bytes()
-        finally:
-            self._finish()
+        info, data = self._made(self.build_handoff, "-handoff.zip")
         skipped = getattr(info, "skipped", {}) or {}
         draft = dict(getattr(info, "draft", {}) or {})
         name = f"{_stem(s)}-handoff" + ("-DRAFT" if draft else "") + ".zip"

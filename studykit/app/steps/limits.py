@@ -14,8 +14,9 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import OverviewPanel, no_study_panel, panel, panel_css, workspace
-from studykit.app.widgets import caution_banner, esc, guarded, html_box
+from studykit.app.overview import OverviewPanel, panel, panel_css
+from studykit.app.steps.base import StudyStep
+from studykit.app.widgets import caution_banner, esc, guarded, html_box, labelled
 from studykit.errors import SpecError
 from studykit.study import INDICES, Criteria
 
@@ -37,7 +38,7 @@ def _show(v) -> str:
     return "" if v is None else f"{v:g}"
 
 
-class LimitsStep:
+class LimitsStep(StudyStep):
     """Step "Specification & criterion" (key ``limits``)."""
 
     key = "limits"
@@ -47,15 +48,10 @@ class LimitsStep:
         "limits, target and acceptance criterion (changes are recorded with a reason)."
     )
 
-    def __init__(self):
-        self.ws = None
-        self.overview = None
-        self._drawn = None
+    what = "The limits step"
+    overview = None
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The limits step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.overview = OverviewPanel(ws)
         lay = widgets.Layout(width="150px")
@@ -101,37 +97,34 @@ class LimitsStep:
         self.caution = widgets.VBox([])
         self.history = html_box("", "sk-spec-history")
 
-        def field(label, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
-
         form = widgets.VBox(
             [
                 widgets.HBox(
                     [
-                        field("Lower limit (LSL)", self.lsl),
-                        field("Upper limit (USL)", self.usl),
-                        field("Target", self.target),
-                        field("", self.safety),
+                        labelled("Lower limit (LSL)", self.lsl),
+                        labelled("Upper limit (USL)", self.usl),
+                        labelled("Target", self.target),
+                        labelled("", self.safety),
                     ],
                     layout=widgets.Layout(flex_flow="row wrap"),
                 ),
                 widgets.HBox(
                     [
-                        field("Index judged", self.index),
-                        field("At least", self.threshold),
-                        field("Judged on", self.basis),
+                        labelled("Index judged", self.index),
+                        labelled("At least", self.threshold),
+                        labelled("Judged on", self.basis),
                     ],
                     layout=widgets.Layout(flex_flow="row wrap"),
                 ),
                 widgets.HBox(
                     [
-                        field("", self.interval_on),
-                        field("Parts within specification, at least (%)", self.interval_p),
-                        field("Confidence (%)", self.interval_c),
+                        labelled("", self.interval_on),
+                        labelled("Parts within specification, at least (%)", self.interval_p),
+                        labelled("Confidence (%)", self.interval_c),
                     ],
                     layout=widgets.Layout(flex_flow="row wrap"),
                 ),
-                field("Reason for the change (required)", self.reason),
+                labelled("Reason for the change (required)", self.reason),
                 widgets.HBox([self.save, self.hint], layout=widgets.Layout(align_items="center")),
             ]
         )

@@ -28,17 +28,27 @@ shows the observed against the process-only indices of the characteristic's anal
 
 from __future__ import annotations
 
+import contextlib
 import io
 import re
 import tempfile
-from collections.abc import Mapping
+from collections.abc import Callable, Iterator, Mapping
 from pathlib import Path
 
 import ipywidgets as widgets
 
 from studykit import names, theme
-from studykit.app.overview import fmt, no_study_panel, panel, panel_css, workspace
-from studykit.app.widgets import esc, guarded, html_box, upload_button
+from studykit.app.overview import fmt, panel, panel_css
+from studykit.app.steps.base import StudyStep
+from studykit.app.widgets import (
+    button,
+    esc,
+    guarded,
+    html_box,
+    labelled,
+    text_field,
+    upload_button,
+)
 from studykit.errors import DataFileError, StudyInputError
 from studykit.report import gauge_figures as _gauge_figures
 
@@ -103,37 +113,10 @@ _UPLOAD_SUFFIXES = (".csv", ".txt", ".tsv", ".xlsx", ".xlsm")
 # --- pure helpers (no widgets) -------------------------------------------------------------------
 
 
-def gauge_result_from_payload(payload: Mapping):
-    """Rebuild the stored :class:`~studykit.stats.gauge.GaugeResult` from its payload.
-
-    The payload (``GaugeResult.to_dict()``) keeps every number of the study and its readings
-    (a parts x appraisers x trials cube); the figures need the result object, which is rebuilt
-    by :meth:`~studykit.stats.gauge.GaugeResult.from_dict`: nothing is computed again.
-
-    Raises
-    ------
-    StudyInputError
-        When the payload lacks the readings (e.g. written by an older version).
-
-    Examples
-    --------
-    >>> from studykit.stats.gauge import gauge_rr
-    >>> res = gauge_rr([1.0, 1.1, 1.2, 1.1, 2.0, 2.2, 2.1, 2.1], [1, 1, 1, 1, 2, 2, 2, 2],
-    ...                ["A", "A", "B", "B"] * 2)
-    >>> again = gauge_result_from_payload(res.to_dict())
-    >>> again.pct_grr == res.pct_grr, again.n_values
-    (True, 8)
-    """
-    from studykit.stats.gauge import GaugeResult
-
-    try:
-        return GaugeResult.from_dict(payload)
-    except (KeyError, TypeError, IndexError, ValueError) as exc:
-        raise StudyInputError(
-            f"the stored gauge study lacks its readings ({type(exc).__name__}: {exc}); its "
-            "numbers are shown, but the figures need the readings: run the study again from "
-            "its data file to attach a complete result"
-        ) from None
+#: Rebuild the stored :class:`~studykit.stats.gauge.GaugeResult` from its payload with
+#: :meth:`~studykit.stats.gauge.GaugeResult.from_dict` (nothing computed again); the PDF's
+#: figures use the same function.
+gauge_result_from_payload = _gauge_figures.result_from_payload
 
 
 def figure_pngs(result, *, dpi: int = 100, only: tuple[str, ...] | None = None) -> dict:
@@ -226,33 +209,49 @@ def read_gauge_upload(
     >>> read_gauge_upload(data, "g.csv", part="part", appraiser="appraiser", value="value")["values"]
     [8.01, 8.02]
     """
+    upload_as = (
+        "the gauge table as CSV (comma, semicolon or tab separated) or as an Excel file (.xlsx)"
+    )
+    with _upload_on_disk(data, filename, prefix="studykit-gauge-", upload_as=upload_as) as path:
+        headers = _headers(path)
+        if part is None or appraiser is None or value is None:
+            return {"headers": headers}
+        from studykit.io.gauge_table import read_gauge_table
+
+        table = read_gauge_table(
+            path, part=part, appraiser=appraiser, value=value, trial=trial or None
+        )
+    return {"headers": headers, **table}
+
+
+def _in_upload(exc: StudyInputError, file: str, **where) -> StudyInputError:
+    """``exc`` again, naming the uploaded ``file`` (never a server path); ``where`` replaces
+    its row, column or value."""
+    place = {"row": exc.row, "column": exc.column, "value": exc.value, **where}
+    return type(exc)(exc.detail, file=file, **place)
+
+
+@contextlib.contextmanager
+def _upload_on_disk(data: bytes, filename: str, *, prefix: str, upload_as: str) -> Iterator[Path]:
+    """The uploaded bytes in a temporary file of their suffix, for the table readers.
+
+    A suffix that cannot be read, an empty file and every input error raised while the file is
+    read name the uploaded file (``upload_as`` says what to upload instead)."""
     name = Path(str(filename or "upload.csv")).name or "upload.csv"
     suffix = Path(name).suffix.lower()
     if suffix not in _UPLOAD_SUFFIXES:
         raise DataFileError(
-            f"'{suffix or name}' files cannot be read here; upload the gauge table as CSV "
-            "(comma, semicolon or tab separated) or as an Excel file (.xlsx)",
-            file=name,
+            f"'{suffix or name}' files cannot be read here; upload {upload_as}", file=name
         )
     if not data:
         raise DataFileError("the file is empty; choose the file that holds the readings", file=name)
-    with tempfile.TemporaryDirectory(prefix="studykit-gauge-") as tmp:
+    with tempfile.TemporaryDirectory(prefix=prefix) as tmp:
         path = Path(tmp) / ("upload" + suffix)
         path.write_bytes(bytes(data))
         try:
-            headers = _headers(path)
-            if part is None or appraiser is None or value is None:
-                return {"headers": headers}
-            from studykit.io.gauge_table import read_gauge_table
-
-            table = read_gauge_table(
-                path, part=part, appraiser=appraiser, value=value, trial=trial or None
-            )
+            yield path
         except StudyInputError as exc:
-            raise type(exc)(
-                exc.detail, file=name, row=exc.row, column=exc.column, value=exc.value
-            ) from None
-    return {"headers": headers, **table}
+            raise _in_upload(exc, name) from None
 
 
 def _headers(path: Path) -> list[str]:
@@ -650,38 +649,200 @@ def read_reference_upload(data: bytes, filename: str, *, value: str | None = Non
     >>> read_reference_upload(b"reading\\n5.001\\n5.002\\n", "r.csv", value="reading")
     {'headers': ['reading'], 'values': [5.001, 5.002]}
     """
-    name = Path(str(filename or "upload.csv")).name or "upload.csv"
-    suffix = Path(name).suffix.lower()
-    if suffix not in _UPLOAD_SUFFIXES:
-        raise DataFileError(
-            f"'{suffix or name}' files cannot be read here; upload the readings as CSV or as an "
-            "Excel file (.xlsx)",
-            file=name,
-        )
-    if not data:
-        raise DataFileError("the file is empty; choose the file that holds the readings", file=name)
     from studykit.io.gauge_table import read_frame, read_reference_readings
 
-    with tempfile.TemporaryDirectory(prefix="studykit-short-") as tmp:
-        path = Path(tmp) / ("upload" + suffix)
-        path.write_bytes(bytes(data))
-        try:
-            frame, _ = read_frame(path, sheet=None, wanted={})
-            headers = [str(c) for c in frame.columns]
-            if value is None:
-                return {"headers": headers}
-            values = read_reference_readings(path, value=value)
-        except StudyInputError as exc:
-            raise type(exc)(
-                exc.detail, file=name, row=exc.row, column=exc.column, value=exc.value
-            ) from None
+    upload_as = "the readings as CSV or as an Excel file (.xlsx)"
+    with _upload_on_disk(data, filename, prefix="studykit-short-", upload_as=upload_as) as path:
+        frame, _ = read_frame(path, sheet=None, wanted={})
+        headers = [str(c) for c in frame.columns]
+        if value is None:
+            return {"headers": headers}
+        values = read_reference_readings(path, value=value)
     return {"headers": headers, "values": values}
+
+
+# --- a study computed from an upload, previewed, then attached -------------------------------------
+
+
+def _limit_text(value) -> str:
+    """A specification limit as the text of a field ("" when there is none)."""
+    return "" if value is None else f"{value:g}"
+
+
+class _UploadFlow:
+    """Upload a file, compute a study from it, preview it, attach it with a name and a reason.
+
+    One flow for both gauge studies of the step (the crossed study and the short one): the
+    widgets (classes ``<css>-upload``, ``-file``, ``-preview``, ``-reason``, ``-attach``), the
+    chosen file (``data``, ``name``), the computed result waiting for the reason (``pending``:
+    result, payload extras, characteristic) and the checks before it is stored. The step adds
+    the fields of its study (``fields``: shown once a file is read, with the ``compute``
+    button).
+    """
+
+    def __init__(
+        self,
+        ws,
+        messages,
+        *,
+        css: str,
+        what: str,
+        example: str,
+        choose: str,
+        placeholder: str,
+        compute: tuple[str, Callable],
+        on_upload: Callable,
+        on_attach: Callable,
+        extra: tuple = (),
+    ):
+        self.ws, self.what, self.example, self.extra = ws, what, example, extra
+        self.data: bytes | None = None
+        self.name = ""
+        self.pending = None
+        self.upload = upload_button(
+            accept=",".join(_UPLOAD_SUFFIXES),
+            multiple=False,
+            description=choose,
+            icon="upload",
+            layout=widgets.Layout(width="auto"),
+        )
+        self.upload.add_class(f"{css}-upload")
+        self.upload.observe(guarded(on_upload, messages=messages), names="value")
+        self.info = html_box("", "sk-small", f"{css}-file")
+        self.fields: widgets.Widget = widgets.VBox([])
+        self.compute = button(
+            compute[0],
+            f"{css}-compute",
+            icon="calculator",
+            primary=True,
+            disabled=True,
+            on_click=compute[1],
+            messages=messages,
+        )
+        self.preview = html_box("", f"{css}-preview")
+        self.reason = text_field(f"{css}-reason", placeholder=placeholder, width="460px")
+        self.attach = button(
+            "Attach to the characteristic",
+            f"{css}-attach",
+            icon="paperclip",
+            primary=True,
+            disabled=True,
+            on_click=on_attach,
+            messages=messages,
+        )
+        self.hint = html_box("", "sk-small")
+        for w in (self.reason, ws.who):
+            w.observe(guarded(lambda _c: self.update(), messages=messages), names="value")
+        self.box = widgets.VBox(
+            [
+                self.preview,
+                *extra,
+                labelled("Reason for attaching", self.reason),
+                self.attach,
+                self.hint,
+            ],
+            layout=widgets.Layout(display="none"),
+        )
+
+    def keep(self, name: str, data: bytes, info: str) -> None:
+        """The file read: its fields shown with ``info`` (HTML) beside the upload button."""
+        self.data, self.name = data, name
+        self.fields.layout.display = ""
+        self.compute.disabled = False
+        self.info.value = info
+
+    def forget_file(self) -> None:
+        self.data, self.name = None, ""
+        self.fields.layout.display = "none"
+        self.info.value = ""
+
+    def take(self, change, *, limit: int) -> tuple[str, bytes] | None:
+        """Name and bytes of the file just chosen (None when the widget was emptied).
+
+        The widget lets go of the bytes, the previous file and preview are forgotten, then the
+        size is checked: a file above the limit leaves nothing behind.
+        """
+        from studykit.app.steps.intake import check_upload_size
+
+        files = change["new"]
+        if not files:
+            return None
+        item = files[0]
+        name = Path(str(item.get("name", "upload.csv"))).name
+        content = item.get("content", b"")
+        size = int(item.get("size") or len(content))
+        self.upload.value = ()  # release the bytes held by the widget
+        self.forget_file()
+        self.clear()
+        check_upload_size(max(size, len(content)), filename=name, limit=limit)
+        return name, bytes(content)
+
+    def clear(self) -> None:
+        """Forget the computed result: preview (and its ``extra`` boxes) emptied and hidden."""
+        self.pending = None
+        self.preview.value = ""
+        for w in self.extra:
+            w.children = []
+        self.box.layout.display = "none"
+        self.update()
+
+    def show(self, pending: tuple, html: str) -> None:
+        """Preview the computed ``pending`` (result, extras, characteristic) before attaching."""
+        self.pending = pending
+        self.preview.value = '<div class="sk-panel-title">Preview (not stored yet)</div>' + html
+        self.attach.description = f"Attach to {pending[2]}"
+        self.box.layout.display = ""
+        self.update()
+
+    def update(self) -> None:
+        """The attach button is live once the study is computed, a reason and a name given."""
+        missing = []
+        if self.pending is None:
+            missing.append("compute the study")
+        if not self.reason.value.strip():
+            missing.append("give a reason")
+        if not self.ws.who_name:
+            missing.append("type your name at the top")
+        self.attach.disabled = bool(missing)
+        self.hint.value = ("To attach: " + ", ".join(missing) + ".") if missing else ""
+
+    def store(self, kind: str):
+        """Attach the previewed result to its characteristic as ``kind``; (result, name)."""
+        ws = self.ws
+        s = ws.session
+        if self.pending is None:
+            raise StudyInputError(f"compute the {self.what} first, then attach it")
+        result, extras, name = self.pending
+        if name != s.current:
+            raise StudyInputError(
+                f"the preview was computed for '{name}', but '{s.current}' is shown now; "
+                "compute it again for this characteristic"
+            )
+        who = ws.who_name
+        reason = self.reason.value.strip()
+        if not who:
+            raise StudyInputError(
+                "`who` is empty: type your name in the 'Your name' field at the top of the panel"
+            )
+        if not reason:
+            raise StudyInputError(
+                f"`reason` is empty: say why this {self.what} belongs to the characteristic, "
+                f"e.g. '{self.example}'"
+            )
+        payload = {**result.to_dict(), **extras, "reason": reason}
+        s.attach_result(
+            kind, name, payload, who=who, reason=reason, override_reason=ws.override_reason or None
+        )
+        self.reason.value = ""
+        self.clear()
+        self.forget_file()
+        return result, name
 
 
 # --- the step ------------------------------------------------------------------------------------
 
 
-class GaugeStep:
+class GaugeStep(StudyStep):
     """Step "Gauge check" (key ``measuring``)."""
 
     key = "measuring"
@@ -691,16 +852,10 @@ class GaugeStep:
         "process: review the stored gauge R&R study, or run and attach a new one."
     )
 
+    what = "The gauge check"
+
     def __init__(self):
-        self.ws = None
-        self._drawn = None
         self._figures: dict[tuple, dict] = {}
-        self._upload_data: bytes | None = None
-        self._upload_name = ""
-        self._preview = None  # (GaugeResult, payload extras) of the last computed study
-        self._short_data: bytes | None = None
-        self._short_name = ""
-        self._short_preview = None  # (ShortGaugeResult, payload extras, characteristic)
 
     # --- status -------------------------------------------------------------------------------
     def stored(self, name: str | None = None):
@@ -713,7 +868,7 @@ class GaugeStep:
     def is_done(self, context) -> bool:
         """Every characteristic has a stored gauge study that is at least conditionally
         acceptable."""
-        ws = context.extra.get("studykit.workspace")
+        ws = self.opened(context)
         if ws is None:
             return False
         latest = {}
@@ -726,10 +881,7 @@ class GaugeStep:
         return bool(ws.session.names)
 
     # --- building -----------------------------------------------------------------------------
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The gauge check")
+    def _build(self, ws, context) -> widgets.Widget:
         self.heading = html_box("", "sk-gauge-heading")
         self.verdict = html_box("", "sk-gauge-stored")
         self.components = html_box("", "sk-gauge-components-box")
@@ -775,18 +927,25 @@ class GaugeStep:
         """Upload readings of one reference part, compute, preview and attach (kind
         ``gauge_short``)."""
         m = context.messages
-        self.short_upload = upload_button(
-            accept=",".join(_UPLOAD_SUFFIXES),
-            multiple=False,
-            description="Choose readings",
-            icon="upload",
-            layout=widgets.Layout(width="auto"),
+        flow = self._short = _UploadFlow(
+            self.ws,
+            m,
+            css="sk-short",
+            what="short gauge study",
+            example="gauge GR-07 on master M-8.000",
+            choose="Choose readings",
+            placeholder="why, e.g. 'gauge GR-07 on master M-8.000, certificate C-114'",
+            compute=("Compute Cg, Cgk", self._on_short_compute),
+            on_upload=lambda c: self._on_short_upload(context, c),
+            on_attach=self._on_short_attach,
         )
-        self.short_upload.add_class("sk-short-upload")
-        self.short_upload.observe(
-            guarded(lambda c: self._on_short_upload(context, c), messages=m), names="value"
+        self.short_upload, self.short_info, self.short_preview = (
+            flow.upload,
+            flow.info,
+            flow.preview,
         )
-        self.short_info = html_box("", "sk-small", "sk-short-file")
+        self.short_reason, self.short_attach, self.short_hint = flow.reason, flow.attach, flow.hint
+        self.short_attach_box, self.short_compute = flow.box, flow.compute
         lay = widgets.Layout(width="130px")
         self.short_value = widgets.Dropdown(options=[], layout=widgets.Layout(width="190px"))
         self.short_reference = widgets.Text(placeholder="e.g. 8.0004", layout=lay)
@@ -794,61 +953,20 @@ class GaugeStep:
         self.short_usl = widgets.Text(placeholder="USL", layout=lay)
         self.short_k = widgets.Text(value="20", layout=widgets.Layout(width="80px"))
         self.short_l = widgets.Text(value="6", layout=widgets.Layout(width="80px"))
-        for w, cls in (
-            (self.short_value, "sk-short-value"),
-            (self.short_reference, "sk-short-reference"),
-            (self.short_lsl, "sk-short-lsl"),
-            (self.short_usl, "sk-short-usl"),
-            (self.short_k, "sk-short-k"),
-            (self.short_l, "sk-short-l"),
+        fields = []
+        for text, w, key in (
+            ("Reading column", self.short_value, "value"),
+            ("Reference value", self.short_reference, "reference"),
+            ("Tolerance: LSL", self.short_lsl, "lsl"),
+            ("USL", self.short_usl, "usl"),
+            ("K (% of tolerance)", self.short_k, "k"),
+            ("L (sigmas)", self.short_l, "l"),
         ):
-            w.add_class(cls)
-        self.short_compute = widgets.Button(
-            description="Compute Cg, Cgk", icon="calculator", button_style="primary", disabled=True
-        )
-        self.short_compute.add_class("sk-short-compute")
-        self.short_compute.on_click(guarded(lambda _b: self._on_short_compute(), messages=m))
-        self.short_preview = html_box("", "sk-short-preview")
-        self.short_reason = widgets.Text(
-            placeholder="why, e.g. 'gauge GR-07 on master M-8.000, certificate C-114'",
-            layout=widgets.Layout(width="460px"),
-        )
-        self.short_reason.add_class("sk-short-reason")
-        self.short_attach = widgets.Button(
-            description="Attach to the characteristic",
-            icon="paperclip",
-            button_style="primary",
-            disabled=True,
-        )
-        self.short_attach.add_class("sk-short-attach")
-        self.short_attach.on_click(guarded(lambda _b: self._on_short_attach(), messages=m))
-        self.short_hint = html_box("", "sk-small")
-        for w in (self.short_reason, self.ws.who):
-            w.observe(guarded(lambda _c: self._update_short_buttons(), messages=m), names="value")
-
-        def labelled(text, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
-
-        self.short_fields = widgets.HBox(
-            [
-                labelled("Reading column", self.short_value),
-                labelled("Reference value", self.short_reference),
-                labelled("Tolerance: LSL", self.short_lsl),
-                labelled("USL", self.short_usl),
-                labelled("K (% of tolerance)", self.short_k),
-                labelled("L (sigmas)", self.short_l),
-                self.short_compute,
-            ],
+            w.add_class(f"sk-short-{key}")
+            fields.append(labelled(text, w))
+        self.short_fields = flow.fields = widgets.HBox(
+            [*fields, self.short_compute],
             layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end", display="none"),
-        )
-        self.short_attach_box = widgets.VBox(
-            [
-                self.short_preview,
-                labelled("Reason for attaching", self.short_reason),
-                self.short_attach,
-                self.short_hint,
-            ],
-            layout=widgets.Layout(display="none"),
         )
         intro = html_box(
             '<div class="sk-panel-title" style="margin-top:22px">Run a short gauge study</div>'
@@ -875,44 +993,23 @@ class GaugeStep:
 
     def _reset_short(self, name: str) -> None:
         spec = self.ws.session.study.characteristic(name)
-        self.short_lsl.value = "" if spec.lsl is None else f"{spec.lsl:g}"
-        self.short_usl.value = "" if spec.usl is None else f"{spec.usl:g}"
-        self._clear_short_preview()
-
-    def _clear_short_preview(self) -> None:
-        self._short_preview = None
-        self.short_preview.value = ""
-        self.short_attach_box.layout.display = "none"
-        self._update_short_buttons()
+        self.short_lsl.value, self.short_usl.value = _limit_text(spec.lsl), _limit_text(spec.usl)
+        self._short.clear()
 
     def _on_short_upload(self, context, change) -> None:
-        from studykit.app.steps.intake import check_upload_size
-
-        files = change["new"]
-        if not files:
+        taken = self._short.take(change, limit=context.max_upload_bytes)
+        if taken is None:
             return
-        item = files[0]
-        name = Path(str(item.get("name", "upload.csv"))).name
-        content = item.get("content", b"")
-        size = int(item.get("size") or len(content))
-        self.short_upload.value = ()
-        self._short_data, self._short_name = None, ""
-        self.short_fields.layout.display = "none"
-        self.short_info.value = ""
-        self._clear_short_preview()
-        check_upload_size(max(size, len(content)), filename=name, limit=context.max_upload_bytes)
-        data = bytes(content)
+        name, data = taken
         headers = read_reference_upload(data, name)["headers"]
-        self._short_data, self._short_name = data, name
         self.short_value.options = headers
         guess = [h for h in headers if set(_words(h)) & set(_ROLE_WORDS["value"])]
         self.short_value.value = guess[0] if guess else headers[-1]
-        self.short_fields.layout.display = ""
-        self.short_compute.disabled = False
-        self.short_info.value = (
-            f"<b>{esc(name)}</b> · columns: "
-            + ", ".join(esc(h) for h in headers)
-            + ". Give the reference value, then compute."
+        self._short.keep(
+            name,
+            data,
+            f"<b>{esc(name)}</b> · columns: {', '.join(esc(h) for h in headers)}. Give the "
+            "reference value, then compute.",
         )
 
     def _short_number(self, label: str, w, *, required: bool = True) -> float | None:
@@ -933,17 +1030,17 @@ class GaugeStep:
     def _on_short_compute(self) -> None:
         from studykit.stats.gauge_type1 import short_gauge_study
 
-        if self._short_data is None:
+        if self._short.data is None:
             raise DataFileError("upload the readings first")
         name = self.ws.session.current
-        self._clear_short_preview()
+        self._short.clear()
         reference = self._short_number("reference value", self.short_reference)
         lsl = self._short_number("tolerance LSL", self.short_lsl)
         usl = self._short_number("tolerance USL", self.short_usl)
         k = self._short_number("K", self.short_k)
         ell = self._short_number("L", self.short_l)
         values = read_reference_upload(
-            self._short_data, self._short_name, value=self.short_value.value
+            self._short.data, self._short.name, value=self.short_value.value
         )["values"]
         try:
             result = short_gauge_study(
@@ -952,81 +1049,30 @@ class GaugeStep:
         except StudyInputError as exc:
             if exc.file is not None:
                 raise
-            raise type(exc)(
-                exc.detail, file=self._short_name, column=self.short_value.value, value=exc.value
+            raise _in_upload(
+                exc, self._short.name, row=None, column=self.short_value.value
             ) from None
         spec = self.ws.session.study.characteristic(name)
         extras = {
-            "source_file": self._short_name,
+            "source_file": self._short.name,
             "limits_from": "study" if (lsl, usl) == (spec.lsl, spec.usl) else "entered",
             "columns": {"value": self.short_value.value},
         }
-        self._short_preview = (result, extras, name)
-        self.short_preview.value = (
-            '<div class="sk-panel-title">Preview (not stored yet)</div>'
-            + short_study_html(
+        self._short.show(
+            (result, extras, name),
+            short_study_html(
                 {**result.to_dict(), **extras}, title=f"New short gauge study for {name}"
-            )
+            ),
         )
-        self.short_attach.description = f"Attach to {name}"
-        self.short_attach_box.layout.display = ""
-        self._update_short_buttons()
         self.ws.context.messages.info(
-            f"Short gauge study computed from '{self._short_name}': check the preview, then "
+            f"Short gauge study computed from '{self._short.name}': check the preview, then "
             f"attach it to {name} with a reason."
         )
 
-    def _update_short_buttons(self) -> None:
-        if self.ws is None or not hasattr(self, "short_attach"):
-            return
-        missing = []
-        if self._short_preview is None:
-            missing.append("compute the study")
-        if not self.short_reason.value.strip():
-            missing.append("give a reason")
-        if not self.ws.who_name:
-            missing.append("type your name at the top")
-        self.short_attach.disabled = bool(missing)
-        self.short_hint.value = ("To attach: " + ", ".join(missing) + ".") if missing else ""
-
     def _on_short_attach(self) -> None:
-        ws = self.ws
-        s = ws.session
-        if self._short_preview is None:
-            raise StudyInputError("compute the short gauge study first, then attach it")
-        result, extras, name = self._short_preview
-        if name != s.current:
-            raise StudyInputError(
-                f"the preview was computed for '{name}', but '{s.current}' is shown now; "
-                "compute it again for this characteristic"
-            )
-        who = ws.who_name
-        reason = self.short_reason.value.strip()
-        if not who:
-            raise StudyInputError(
-                "`who` is empty: type your name in the 'Your name' field at the top of the panel"
-            )
-        if not reason:
-            raise StudyInputError(
-                "`reason` is empty: say why this short gauge study belongs to "
-                "the characteristic, e.g. 'gauge GR-07 on master M-8.000'"
-            )
-        payload = {**result.to_dict(), **extras, "reason": reason}
-        s.attach_result(
-            SHORT_KIND,
-            name,
-            payload,
-            who=who,
-            reason=reason,
-            override_reason=ws.override_reason or None,
-        )
-        self.short_reason.value = ""
-        self._clear_short_preview()
-        self._short_data, self._short_name = None, ""
-        self.short_fields.layout.display = "none"
-        self.short_info.value = ""
-        s.reload()
-        ws.context.messages.ok(f"Short gauge study attached to {name} ({result.status}).")
+        result, name = self._short.store(SHORT_KIND)
+        self.ws.session.reload()
+        self.ws.context.messages.ok(f"Short gauge study attached to {name} ({result.status}).")
 
     def _show_short_and_error(self, name: str, has_gauge: bool) -> None:
         """The stored short study and the gauge-error panel of ``name`` (nothing computed)."""
@@ -1051,90 +1097,49 @@ class GaugeStep:
     def _build_new_study(self, context) -> widgets.Widget:
         m = context.messages
         limit_mb = context.max_upload_bytes / 1024 / 1024
-        self.upload = upload_button(
-            accept=",".join(_UPLOAD_SUFFIXES),
-            multiple=False,
-            description="Choose gauge table",
-            icon="upload",
-            layout=widgets.Layout(width="auto"),
+        self.preview_figure = widgets.Box([], layout=widgets.Layout(max_width="640px"))
+        flow = self._gauge = _UploadFlow(
+            self.ws,
+            m,
+            css="sk-gauge",
+            what="gauge study",
+            example="gauge GR-07, study GR-2026-14",
+            choose="Choose gauge table",
+            placeholder="why, e.g. 'gauge GR-07 after recalibration, study GR-2026-14'",
+            compute=("Compute the study", self._on_compute),
+            on_upload=lambda c: self._on_upload(context, c),
+            on_attach=self._on_attach,
+            extra=(self.preview_figure,),
         )
-        self.upload.add_class("sk-gauge-upload")
-        self.upload.observe(
-            guarded(lambda c: self._on_upload(context, c), messages=m), names="value"
-        )
-        self.file_info = html_box("", "sk-small", "sk-gauge-file")
+        self.upload, self.file_info, self.preview = flow.upload, flow.info, flow.preview
+        self.reason, self.attach, self.attach_hint = flow.reason, flow.attach, flow.hint
+        self.attach_box, self.compute = flow.box, flow.compute
         lay = widgets.Layout(width="190px")
         self.col_part = widgets.Dropdown(options=[], layout=lay)
         self.col_appraiser = widgets.Dropdown(options=[], layout=lay)
         self.col_trial = widgets.Dropdown(options=[], layout=lay)
         self.col_value = widgets.Dropdown(options=[], layout=lay)
-        for w, cls in (
-            (self.col_part, "sk-gauge-col-part"),
-            (self.col_appraiser, "sk-gauge-col-appraiser"),
-            (self.col_trial, "sk-gauge-col-trial"),
-            (self.col_value, "sk-gauge-col-value"),
-        ):
-            w.add_class(cls)
         tl = widgets.Layout(width="130px")
         self.lsl = widgets.Text(placeholder="none", layout=tl)
         self.usl = widgets.Text(placeholder="none", layout=tl)
-        self.lsl.add_class("sk-gauge-lsl")
-        self.usl.add_class("sk-gauge-usl")
-        self.compute = widgets.Button(
-            description="Compute the study",
-            icon="calculator",
-            button_style="primary",
-            disabled=True,
-        )
-        self.compute.add_class("sk-gauge-compute")
-        self.compute.on_click(guarded(lambda _b: self._on_compute(), messages=m))
-
-        def labelled(text, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
-
-        self.columns_box = widgets.VBox(
+        columns = []
+        for text, w, key in (
+            ("Part column", self.col_part, "col-part"),
+            ("Appraiser column", self.col_appraiser, "col-appraiser"),
+            ("Trial column", self.col_trial, "col-trial"),
+            ("Value column", self.col_value, "col-value"),
+            ("Tolerance: LSL", self.lsl, "lsl"),
+            ("USL", self.usl, "usl"),
+        ):
+            w.add_class(f"sk-gauge-{key}")
+            columns.append(labelled(text, w))
+        self.columns_box = flow.fields = widgets.VBox(
             [
+                widgets.HBox(columns[:4], layout=widgets.Layout(flex_flow="row wrap")),
                 widgets.HBox(
-                    [
-                        labelled("Part column", self.col_part),
-                        labelled("Appraiser column", self.col_appraiser),
-                        labelled("Trial column", self.col_trial),
-                        labelled("Value column", self.col_value),
-                    ],
-                    layout=widgets.Layout(flex_flow="row wrap"),
-                ),
-                widgets.HBox(
-                    [labelled("Tolerance: LSL", self.lsl), labelled("USL", self.usl), self.compute],
+                    [*columns[4:], self.compute],
                     layout=widgets.Layout(flex_flow="row wrap", align_items="flex-end"),
                 ),
-            ],
-            layout=widgets.Layout(display="none"),
-        )
-        self.preview = html_box("", "sk-gauge-preview")
-        self.preview_figure = widgets.Box([], layout=widgets.Layout(max_width="640px"))
-        self.reason = widgets.Text(
-            placeholder="why, e.g. 'gauge GR-07 after recalibration, study GR-2026-14'",
-            layout=widgets.Layout(width="460px"),
-        )
-        self.reason.add_class("sk-gauge-reason")
-        self.attach = widgets.Button(
-            description="Attach to the characteristic",
-            icon="paperclip",
-            button_style="primary",
-            disabled=True,
-        )
-        self.attach.add_class("sk-gauge-attach")
-        self.attach.on_click(guarded(lambda _b: self._on_attach(), messages=m))
-        self.attach_hint = html_box("", "sk-small")
-        for w in (self.reason, self.ws.who):
-            w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
-        self.attach_box = widgets.VBox(
-            [
-                self.preview,
-                self.preview_figure,
-                labelled("Reason for attaching", self.reason),
-                self.attach,
-                self.attach_hint,
             ],
             layout=widgets.Layout(display="none"),
         )
@@ -1264,37 +1269,16 @@ class GaugeStep:
     # --- a new study --------------------------------------------------------------------------
     def _reset_new_study(self, name: str) -> None:
         spec = self.ws.session.study.characteristic(name)
-        self.lsl.value = "" if spec.lsl is None else f"{spec.lsl:g}"
-        self.usl.value = "" if spec.usl is None else f"{spec.usl:g}"
-        self._clear_preview()
-
-    def _clear_preview(self) -> None:
-        self._preview = None
-        self.preview.value = ""
-        self.preview_figure.children = []
-        self.attach_box.layout.display = "none"
-        self._update_buttons()
+        self.lsl.value, self.usl.value = _limit_text(spec.lsl), _limit_text(spec.usl)
+        self._gauge.clear()
 
     def _on_upload(self, context, change) -> None:
-        from studykit.app.steps.intake import check_upload_size
-
-        files = change["new"]
-        if not files:
+        taken = self._gauge.take(change, limit=context.max_upload_bytes)
+        if taken is None:
             return
-        item = files[0]
-        name = Path(str(item.get("name", "upload.csv"))).name
-        content = item.get("content", b"")
-        size = int(item.get("size") or len(content))
-        self.upload.value = ()  # release the bytes held by the widget
-        self._upload_data, self._upload_name = None, ""
-        self.columns_box.layout.display = "none"
-        self.file_info.value = ""
-        self._clear_preview()
-        check_upload_size(max(size, len(content)), filename=name, limit=context.max_upload_bytes)
-        data = bytes(content)
+        name, data = taken
         headers = read_gauge_upload(data, name)["headers"]
         guess = guess_columns(headers)
-        self._upload_data, self._upload_name = data, name
         for w in (self.col_part, self.col_appraiser, self.col_value):
             w.options = headers
         self.col_trial.options = [(_NO_TRIAL, "")] + [(h, h) for h in headers]
@@ -1302,12 +1286,11 @@ class GaugeStep:
         self.col_appraiser.value = guess["appraiser"]
         self.col_value.value = guess["value"]
         self.col_trial.value = guess["trial"] or ""
-        self.columns_box.layout.display = ""
-        self.compute.disabled = False
-        self.file_info.value = (
-            f"<b>{esc(name)}</b> · {len(headers)} columns: "
-            + ", ".join(esc(h) for h in headers)
-            + ". Check the columns, then compute."
+        self._gauge.keep(
+            name,
+            data,
+            f"<b>{esc(name)}</b> · {len(headers)} columns: {', '.join(esc(h) for h in headers)}. "
+            "Check the columns, then compute.",
         )
 
     def _tolerance(self) -> tuple[float | None, float | None]:
@@ -1337,10 +1320,10 @@ class GaugeStep:
     def _on_compute(self) -> None:
         from studykit.stats.gauge import gauge_rr
 
-        if self._upload_data is None:
+        if self._gauge.data is None:
             raise DataFileError("upload the gauge table first")
         name = self.ws.session.current
-        self._clear_preview()
+        self._gauge.clear()
         lsl, usl = self._tolerance()
         cols = {
             "part": self.col_part.value,
@@ -1348,98 +1331,41 @@ class GaugeStep:
             "value": self.col_value.value,
             "trial": self.col_trial.value or None,
         }
-        table = read_gauge_upload(self._upload_data, self._upload_name, **cols)
+        table = read_gauge_upload(self._gauge.data, self._gauge.name, **cols)
+        # without the headers, the table is gauge_rr's own arguments: values, parts, appraisers,
+        # trials (as the command line passes it)
+        del table["headers"]
         try:
-            result = gauge_rr(
-                table["values"],
-                table["parts"],
-                table["appraisers"],
-                trials=table["trials"],
-                lsl=lsl,
-                usl=usl,
-            )
+            result = gauge_rr(**table, lsl=lsl, usl=usl)
         except StudyInputError as exc:
             if exc.file is not None:
                 raise
-            raise type(exc)(
-                exc.detail, file=self._upload_name, row=exc.row, column=exc.column, value=exc.value
-            ) from None
+            raise _in_upload(exc, self._gauge.name) from None
         spec = self.ws.session.study.characteristic(name)
         from_study = (lsl, usl) == (spec.lsl, spec.usl) and lsl is not None
         extras = {
-            "source_file": self._upload_name,
+            "source_file": self._gauge.name,
             "limits_from": "study" if from_study else ("entered" if lsl is not None else None),
             "columns": cols,
         }
-        self._preview = (result, extras, name)
         payload = {**result.to_dict(), **extras}
-        self.preview.value = (
-            '<div class="sk-panel-title">Preview (not stored yet)</div>'
-            + verdict_html(payload, title=f"New study for {name}")
-            + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>'
-        )
         png = figure_pngs(result, only=("sources",))["sources"]
         self.preview_figure.children = [self._figure_widget("preview", png)]
-        self.attach.description = f"Attach to {name}"
-        self.attach_box.layout.display = ""
-        self._update_buttons()
+        self._gauge.show(
+            (result, extras, name),
+            verdict_html(payload, title=f"New study for {name}")
+            + f'<div class="sk-small" style="margin-bottom:6px">{esc(_BANDS_NOTE)}</div>',
+        )
         self.ws.context.messages.info(
-            f"Gauge study computed from '{self._upload_name}': check the preview, then attach "
+            f"Gauge study computed from '{self._gauge.name}': check the preview, then attach "
             f"it to {name} with a reason."
         )
 
-    def _update_buttons(self) -> None:
-        if self.ws is None or not hasattr(self, "attach"):
-            return
-        missing = []
-        if self._preview is None:
-            missing.append("compute the study")
-        if not self.reason.value.strip():
-            missing.append("give a reason")
-        if not self.ws.who_name:
-            missing.append("type your name at the top")
-        self.attach.disabled = bool(missing)
-        self.attach_hint.value = ("To attach: " + ", ".join(missing) + ".") if missing else ""
-
     def _on_attach(self) -> None:
-        ws = self.ws
-        s = ws.session
-        if self._preview is None:
-            raise StudyInputError("compute the gauge study first, then attach it")
-        result, extras, name = self._preview
-        if name != s.current:
-            raise StudyInputError(
-                f"the preview was computed for '{name}', but '{s.current}' is shown now; "
-                "compute it again for this characteristic"
-            )
-        who = ws.who_name
-        reason = self.reason.value.strip()
-        if not who:
-            raise StudyInputError(
-                "`who` is empty: type your name in the 'Your name' field at the top of the panel"
-            )
-        if not reason:
-            raise StudyInputError(
-                "`reason` is empty: say why this gauge study belongs to the "
-                "characteristic, e.g. 'gauge GR-07, study GR-2026-14'"
-            )
-        payload = {**result.to_dict(), **extras, "reason": reason}
-        s.attach_result(
-            GAUGE_KIND,
-            name,
-            payload,
-            who=who,
-            reason=reason,
-            override_reason=ws.override_reason or None,
-        )
-        self.reason.value = ""
-        self._clear_preview()
-        self._upload_data, self._upload_name = None, ""
-        self.columns_box.layout.display = "none"
-        self.file_info.value = ""
-        s.reload()  # the findings and every panel follow the new gauge study
+        result, name = self._gauge.store(GAUGE_KIND)
+        self.ws.session.reload()  # the findings and every panel follow the new gauge study
         status = result.verdict.status
-        ws.context.messages.ok(
+        self.ws.context.messages.ok(
             f"Gauge study attached to {name} ({status}); the capability findings now use it."
         )
 

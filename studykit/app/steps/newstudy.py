@@ -24,7 +24,7 @@ from pathlib import Path
 
 import ipywidgets as widgets
 
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.widgets import button, esc, guarded, html_box, labelled, text_field
 from studykit.errors import StudyFileError, StudyInputError
 from studykit.specs import CORE_SPEC_COLUMNS, match_to_files
 from studykit.study import BASES, INDICES, Criteria, read_specs_bytes
@@ -274,23 +274,19 @@ class NewStudyPanel(widgets.VBox):
             layout=widgets.Layout(width="380px"),
         )
         self.title.add_class("sk-new-title")
-        self.who = widgets.Text(placeholder="e.g. R. Okonkwo", layout=widgets.Layout(width="220px"))
-        self.who.add_class("sk-new-who")
-        self.create = widgets.Button(
-            description="Create study",
-            button_style="primary",
+        self.who = text_field("sk-new-who", placeholder="e.g. R. Okonkwo", width="220px")
+        self.create = button(
+            "Create study",
+            "sk-create-study",
             icon="plus",
+            primary=True,
             disabled=True,
-            layout=widgets.Layout(width="auto"),
+            width="auto",
         )
-        self.create.add_class("sk-create-study")
         self.hint = html_box("", "sk-small sk-new-hint")
         for w in (self.study_name, self.who):
             w.observe(guarded(lambda _c: self._update(), messages=m), names="value")
         self.create.on_click(guarded(lambda _b: self._on_create(), messages=m))
-
-        def labelled(text, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(text)}</div>'), w])
 
         self.form = widgets.VBox(
             [

@@ -14,17 +14,16 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.charts import LiveChart, ShapeView
+from studykit.app.charts import ShapeView
 from studykit.app.overview import (
     fmt,
-    no_study_panel,
     panel,
     panel_css,
     verdict_chip,
     verdict_kind,
     when_shown,
-    workspace,
 )
+from studykit.app.steps.base import ChartStep
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 from studykit.report import model_list
@@ -139,27 +138,18 @@ def effect_html(before, after) -> str:
     )
 
 
-class ShapeStep:
+class ShapeStep(ChartStep):
     """Step "Shape" (key ``shape``)."""
 
     key = "shape"
     title = names.STEP_NAMES[key]
     guidance = "Check how the values are distributed and choose the model that describes them."
+    what = "The shape step"
 
-    def __init__(self):
-        self.ws = None
-        self.view = None
-        self._drawn = None
-
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The shape step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
-        self.view = ShapeView()
-        self.live = LiveChart(self.view.layout)
+        self._chart(ShapeView())
         self.chart = widgets.VBox([])
-        self.caution = widgets.VBox([])
         self.tests = html_box("", "sk-normality")
         self.ranking = html_box("", "sk-ranking-box")
         self.model = widgets.Dropdown(
@@ -210,26 +200,12 @@ class ShapeStep:
         when_shown(context, self.key, self.live.resync)
         return panel([panel_css(), ws.toolbar(), self.caution, self.body, self.content])
 
-    def shown(self, context) -> None:
-        """The step is open again: bring its chart widget up to date."""
-        if self.view is not None:
-            self.live.resync()
+    def _show_error(self, name: str, exc: StudyInputError) -> None:
+        self.body.children = [html_box(f'<div class="sk-msg sk-msg-error">{esc(exc)}</div>')]
+        self.content.layout.display = "none"
 
-    def refresh(self, context) -> None:
-        ws = self.ws
-        if ws is None or self.view is None:
-            return
-        s = ws.session
-        try:
-            res = s.result(s.current)
-        except StudyInputError as exc:
-            self.body.children = [html_box(f'<div class="sk-msg sk-msg-error">{esc(exc)}</div>')]
-            self.content.layout.display = "none"
-            return
-        key = (s.current, id(res))
-        if key == self._drawn:
-            return
-        self._drawn = key
+    def _draw(self, res, new_name: bool) -> None:
+        s = self.ws.session
         if res.attribute or res.probability_plot is None:
             self.body.children = [
                 html_box(

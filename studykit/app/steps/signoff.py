@@ -15,8 +15,9 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import no_study_panel, panel, panel_css, verdict_chip, workspace
-from studykit.app.widgets import esc, guarded, html_box
+from studykit.app.overview import panel, panel_css, verdict_chip
+from studykit.app.steps.base import StudyStep
+from studykit.app.widgets import button, esc, guarded, html_box, labelled, text_field
 from studykit.study import SIGNOFF_ROLES
 
 _DECISIONS = [(names.decision_label(d), d) for d in ("approve", "reject", "comment")]
@@ -168,7 +169,7 @@ def audit_html(session, *, limit: int = 12) -> str:
     )
 
 
-class SignoffStep:
+class SignoffStep(StudyStep):
     """Step "Review & sign" (key ``signoff``)."""
 
     key = "signoff"
@@ -178,18 +179,13 @@ class SignoffStep:
         "voids the sign-off."
     )
 
-    def __init__(self):
-        self.ws = None
-        self._drawn = None
+    what = "The review step"
 
     def is_done(self, context) -> bool:
-        ws = context.extra.get("studykit.workspace")
+        ws = self.opened(context)
         return bool(ws is not None and ws.session.is_locked)
 
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The review step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
         self.lock = html_box("", "sk-lock-state")
         self.signoffs = html_box("", "sk-signoff-table")
@@ -207,13 +203,15 @@ class SignoffStep:
             placeholder="comment (required when rejecting)",
             layout=widgets.Layout(width="100%", max_width="640px", height="60px"),
         )
-        self.sign = widgets.Button(
-            description="Sign the study as it stands",
-            button_style="primary",
+        self.sign = button(
+            "Sign the study as it stands",
+            "sk-sign",
             icon="pencil",
+            primary=True,
             disabled=True,
+            on_click=self._on_sign,
+            messages=m,
         )
-        self.sign.add_class("sk-sign")
         self.sign_hint = html_box("", "sk-small")
         self.comments = html_box("", "sk-comments")
         self.comment = widgets.Textarea(
@@ -224,37 +222,38 @@ class SignoffStep:
         self.about = widgets.Checkbox(
             value=True, indent=False, description="about the characteristic shown"
         )
-        self.add = widgets.Button(description="Add comment", icon="comment", disabled=True)
-        self.add.add_class("sk-add-comment")
-        self.reload = widgets.Button(description="Read the study file again", icon="refresh")
-        self.reload.add_class("sk-reload")
+        self.add = button(
+            "Add comment",
+            "sk-add-comment",
+            icon="comment",
+            disabled=True,
+            on_click=self._on_comment,
+            messages=m,
+        )
+        self.reload = button(
+            "Read the study file again",
+            "sk-reload",
+            icon="refresh",
+            on_click=self._on_reload,
+            messages=m,
+        )
         self.audit = html_box("", "sk-audit-box")
         self.digest = html_box("", "sk-sign-digest")
         self.rules = html_box("", "sk-rules-box")
         self.gate = html_box("", "sk-gate")
-        self.waive_reason = widgets.Text(
-            placeholder="why it may be approved without a verdict",
-            layout=widgets.Layout(width="420px"),
+        self.waive_reason = text_field(
+            "sk-waive-reason", placeholder="why it may be approved without a verdict", width="420px"
         )
-        self.waive_reason.add_class("sk-waive-reason")
-        self.waive = widgets.Button(
-            description="Record waiver for the characteristic shown",
+        self.waive = button(
+            "Record waiver for the characteristic shown",
+            "sk-waive",
             icon="check-square-o",
             disabled=True,
+            on_click=self._on_waive,
+            messages=m,
         )
-        self.waive.add_class("sk-waive")
-        self.waive_reason.observe(
-            guarded(lambda _c: self._update_buttons(), messages=m), names="value"
-        )
-        self.waive.on_click(guarded(lambda _b: self._on_waive(), messages=m))
-        for w in (ws.who, self.comment, self.sign_comment, self.role):
+        for w in (self.waive_reason, ws.who, self.comment, self.sign_comment, self.role):
             w.observe(guarded(lambda _c: self._update_buttons(), messages=m), names="value")
-        self.sign.on_click(guarded(lambda _b: self._on_sign(), messages=m))
-        self.add.on_click(guarded(lambda _b: self._on_comment(), messages=m))
-        self.reload.on_click(guarded(lambda _b: self._on_reload(), messages=m))
-
-        def field(label, w):
-            return widgets.VBox([html_box(f'<div class="sk-field-label">{esc(label)}</div>'), w])
 
         sign_form = widgets.VBox(
             [
@@ -267,10 +266,10 @@ class SignoffStep:
                 self.digest,
                 self.gate,
                 widgets.HBox(
-                    [field("Role", self.role), field("Decision", self.decision)],
+                    [labelled("Role", self.role), labelled("Decision", self.decision)],
                     layout=widgets.Layout(flex_flow="row wrap"),
                 ),
-                field("Comment", self.sign_comment),
+                labelled("Comment", self.sign_comment),
                 widgets.HBox(
                     [self.sign, self.sign_hint], layout=widgets.Layout(align_items="center")
                 ),

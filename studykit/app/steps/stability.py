@@ -23,14 +23,9 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.charts import ControlChartView, LiveChart
-from studykit.app.overview import (
-    no_study_panel,
-    panel,
-    panel_css,
-    when_shown,
-    workspace,
-)
+from studykit.app.charts import ControlChartView
+from studykit.app.overview import panel, panel_css, when_shown
+from studykit.app.steps.base import ChartStep
 from studykit.app.widgets import esc, guarded, html_box
 from studykit.errors import StudyInputError
 
@@ -50,7 +45,7 @@ def open_signal_count(res) -> int:
     return n
 
 
-class StabilityStep:
+class StabilityStep(ChartStep):
     """Step "Stability" (key ``stability``)."""
 
     key = "stability"
@@ -59,11 +54,10 @@ class StabilityStep:
         "Confirm the process runs in statistical control; every removed subgroup needs "
         "a recorded reason."
     )
+    what = "The stability step"
+    follows_study = True  # a removal changes the study, not always the result object
 
     def __init__(self):
-        self.ws = None
-        self.view = None
-        self._drawn = None
         self._proposals = []
         self.tap_events = 0  # how many tap selections reached Python (checked by tests)
 
@@ -78,13 +72,9 @@ class StabilityStep:
         return all(open_signal_count(s.result(n)) == 0 for n in s.names)
 
     # --- building -------------------------------------------------------------------------------
-    def build(self, context) -> widgets.Widget:
-        ws = self.ws = workspace(context)
-        if ws is None:
-            return no_study_panel("The stability step")
+    def _build(self, ws, context) -> widgets.Widget:
         m = context.messages
-        self.view = ControlChartView()
-        self.live = LiveChart(self.view.layout)
+        self._chart(ControlChartView())
         self.chart_box = widgets.VBox([])
         for part in ("location", "dispersion"):
             src = self.view.sources[part]["points"]
@@ -93,7 +83,6 @@ class StabilityStep:
                 guarded(lambda _attr, _old, new, part=part: self._on_tap(part, new), messages=m),
             )
         self.summary = html_box("", "sk-stability-summary")
-        self.caution = widgets.VBox([])
         self.warning_toggle = widgets.Checkbox(
             value=False, description="Show warning limits (2σ)", indent=False
         )
@@ -210,30 +199,15 @@ class StabilityStep:
             ]
         )
 
-    def shown(self, context) -> None:
-        """The step is open again: bring its chart widget up to date."""
-        if self.view is not None:
-            self.live.resync()
-
     # --- drawing --------------------------------------------------------------------------------
-    def refresh(self, context) -> None:
-        ws = self.ws
-        if ws is None or self.view is None:
-            return
-        s = ws.session
+    def _show_error(self, name: str, exc: StudyInputError) -> None:
+        self.summary.value = (
+            f'<div class="sk-msg sk-msg-error">{esc(name)} cannot be analysed: {esc(exc)}</div>'
+        )
+
+    def _draw(self, res, new_char: bool) -> None:
+        s = self.ws.session
         name = s.current
-        try:
-            res = s.result(name)
-        except StudyInputError as exc:
-            self.summary.value = (
-                f'<div class="sk-msg sk-msg-error">{esc(name)} cannot be analysed: {esc(exc)}</div>'
-            )
-            return
-        key = (name, id(res), id(s.study))
-        if key == self._drawn:
-            return
-        new_char = self._drawn is None or self._drawn[0] != name
-        self._drawn = key
         self.view.update(
             res, full_chart=s.full_chart(name), details=s.subgroup_details(name), unit=res.unit
         )
@@ -404,68 +378,58 @@ class StabilityStep:
         if label != self.subgroup.value:
             self.subgroup.value = label
 
-    def _on_act(self) -> None:
-        ws, s = self.ws, self.ws.session
+    def _selected(self) -> tuple[str, dict]:
+        """The subgroup picked on the chart or in the list, and its row."""
         label = self.subgroup.value
         row = self._row(label)
         if row is None:
             raise StudyInputError("select a subgroup on the chart or in the list first")
+        return label, row
+
+    def _record(self, action, label: str):
+        """Record ``action`` (a session method: exclude, restore, keep_signal, reopen_signal)
+        for subgroup ``label`` of the shown characteristic with the reason and name given."""
+        ws = self.ws
+        out = action(
+            ws.session.current,
+            label,
+            reason=self.reason.value,
+            who=ws.who_name,
+            override_reason=ws.override_reason,
+        )
+        self.reason.value = ""
+        return out
+
+    def _on_act(self) -> None:
+        s = self.ws.session
+        label, row = self._selected()
         name = s.current
         if row["status"] == "removed":
-            s.restore(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            self._record(s.restore, label)
             msg = f"Subgroup {label} of {name} restored; the limits were recomputed."
         else:
-            s.exclude(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            self._record(s.exclude, label)
             msg = f"Subgroup {label} of {name} removed and recorded; the limits were recomputed."
-        self.reason.value = ""
-        ws.context.messages.ok(msg)
+        self.ws.context.messages.ok(msg)
 
     def _on_keep(self) -> None:
-        ws, s = self.ws, self.ws.session
-        label = self.subgroup.value
-        row = self._row(label)
-        if row is None:
-            raise StudyInputError("select a subgroup on the chart or in the list first")
+        s = self.ws.session
+        label, _row = self._selected()
         name = s.current
         open_rules, kept_rules = self._keep_state(label)
         if open_rules:
-            rules = s.keep_signal(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            rules = self._record(s.keep_signal, label)
             msg = (
                 f"Signal{'s' if len(rules) != 1 else ''} {', '.join(rules)} at subgroup "
                 f"{label} of {name} kept with your reason; the subgroup stays in the "
                 "analysis and the signal is listed as reviewed."
             )
         elif kept_rules:
-            rules = s.reopen_signal(
-                name,
-                label,
-                reason=self.reason.value,
-                who=ws.who_name,
-                override_reason=ws.override_reason,
-            )
+            rules = self._record(s.reopen_signal, label)
             msg = f"Signal at subgroup {label} of {name} reopened: {', '.join(rules)}."
         else:
             raise StudyInputError(f"subgroup {label} of '{name}' has no rule signal to keep")
-        self.reason.value = ""
-        ws.context.messages.ok(msg)
+        self.ws.context.messages.ok(msg)
 
     def _on_find(self) -> None:
         s = self.ws.session
