@@ -1872,8 +1872,25 @@ class ChangeWatch:
 
     def version(self) -> int:
         """The file's current version (see :meth:`StudyFile.version`)."""
+        try:
+            return self._look()
+        except sqlite3.DatabaseError:
+            # the long-held connection can go bad (the file was replaced, a transient I/O
+            # error): look once more on a fresh connection before saying the watch failed
+            self.close()
+            self._last = None
+            return self._look()
+
+    def _look(self) -> int:
+        ident = _file_identity(self.file.path)
+        if self._conn is not None and ident != self._ident:
+            # the file was replaced (a study created again over it, a restored backup): the
+            # held connection still reads the old one, so read the new file afresh
+            self.close()
+            self._last = None
         if self._conn is None:
             self._conn = self.file._connect()
+            self._ident = ident
         dv = self._conn.execute("PRAGMA data_version").fetchone()[0]
         if dv != self._data_version or self._last is None:
             self._data_version = dv
@@ -1881,11 +1898,21 @@ class ChangeWatch:
         return self._last
 
     _last: int | None = None
+    _ident: tuple[int, int] | None = None
 
     def close(self) -> None:
         if self._conn is not None:
             self._conn.close()
             self._conn = None
+
+
+def _file_identity(path) -> tuple[int, int] | None:
+    """(device, inode) of the file at ``path``, or None when it cannot be read."""
+    try:
+        st = os.stat(path)
+    except OSError:
+        return None
+    return st.st_dev, st.st_ino
 
 
 def load_study(path: str | os.PathLike) -> Study:

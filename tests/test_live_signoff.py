@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime
 import logging
+import os
 import shutil
 
 import pytest
@@ -43,6 +44,22 @@ def test_version_moves_with_every_write_and_the_watch_sees_it(study_path):
     assert sf.version() == v0 + 1 == watch.version()
     (entry,) = sf.entries_since(v0)
     assert entry.who == "B. Other"
+    watch.close()
+
+
+def test_the_watch_follows_a_study_file_replaced_on_disk(study_path, tmp_path):
+    # A study file can be replaced whole (created again with --force, a backup restored, a copy
+    # put in its place). A connection held open keeps reading the old file, so the watch must
+    # notice the new file, or a page would keep showing a study that no longer exists.
+    sf = StudyFile(study_path)
+    watch = ChangeWatch(sf)
+    v0 = watch.version()
+    other = tmp_path / "other.study"
+    shutil.copy(study_path, other)
+    for k in range(3):
+        StudyFile(other).add_comment(f"written in the copy {k}", who="B. Other")
+    os.replace(other, study_path)
+    assert watch.version() == sf.version() == v0 + 3
     watch.close()
 
 
