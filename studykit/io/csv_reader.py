@@ -12,6 +12,7 @@ import numpy as np
 
 from studykit.errors import DataFileError
 from studykit.io.cells import COMMA_DECIMAL_RE, POINT_DECIMAL_RE, text_number
+from studykit.io.plain import plain_fast_columns, plain_records
 from studykit.io.source import HEADER_MAX_BYTES, Fallback, Source, Table, human_size
 
 _CHUNK_ROWS = 50_000
@@ -82,8 +83,6 @@ def _sniff(lines: list[str], start: int, file=None) -> tuple[str, int]:
 
 
 def open_csv(src: Source) -> Table:
-    import pandas as pd
-
     lines = _sample_lines(src)
     if not lines and src.sample_truncated:
         raise DataFileError(
@@ -118,7 +117,24 @@ def open_csv(src: Source) -> Table:
                 n_point += 1
     decimal = "," if n_comma > n_point else "."
 
+    plain: list = []  # the plain split of a small table, once (plain.plain_records)
+
+    def plain_split():
+        if not plain:
+            plain.append(plain_records(src.data, src.encoding, sep))
+        return plain[0]
+
     def chunks():
+        records = plain_split()
+        if records is not None:  # what pandas' reader yields below, without pandas
+            cols = [
+                np.array(col, dtype=object) for col in zip(*records[header_index:], strict=True)
+            ]
+            rows = np.arange(header_index + 2, len(records) + 1, dtype=np.int64)
+            yield rows, [c[1:] for c in cols]
+            return
+        import pandas as pd
+
         handle = src.binary()
         try:
             reader = pd.read_csv(
@@ -165,6 +181,13 @@ def open_csv(src: Source) -> Table:
 
     def fast_chunks(float_cols):
         """Numbers parsed by pandas' C reader; any doubt raises _Fallback."""
+        records = plain_split()
+        plain_cols = plain_fast_columns(records, header_index, len(header), float_cols, decimal)
+        if plain_cols is not None:
+            yield np.arange(header_index + 2, len(records) + 1, dtype=np.int64), plain_cols
+            return
+        import pandas as pd
+
         width = len(header)
         handle = src.binary()
         try:
