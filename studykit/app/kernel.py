@@ -5,8 +5,8 @@
 ``debugpy.server`` in every kernel it starts so that a notebook front end can debug it; Voila's
 pages have no debugger, and that import alone holds about 16 MB of every kernel (RSS, measured on
 this project's machine: 22 MB before, 38 MB after ``from debugpy.server import api``) and takes
-0.2 s of its start. Without it ipykernel reports ``debugger: false`` in its ``kernel_info``
-and otherwise runs unchanged. With a study to open, the modules of the landing view are
+0.2 s of its start. Without it ipykernel leaves "debugger" out of the features its
+``kernel_info`` lists and otherwise runs unchanged. With a study to open, the modules of the landing view are
 imported from the kernel's first moment (:func:`preload`).
 
 :class:`WorkbookKernelSpecs` hands this module to the server's kernels
