@@ -16,6 +16,8 @@ Per run, one after the other (interleaved, so all three see the same machine loa
   server; page open -> first chart.
 * **kernel memory**: resident set size (``VmRSS``) of each kernel process of the server after
   the second visit, the largest one reported (a kernel holds one page's workbook).
+* with ``--compare CHECKOUT``: the same workbook figures once more per run, served from that
+  checkout of studykit (``PYTHONPATH``), e.g. the code before a change, and the ratios.
 
 Prints each run, the medians, their ratio to stock Voila, and a ``summary:`` line.
 """
@@ -147,9 +149,13 @@ def stock_voila(browser, folder: Path) -> tuple[float, float]:
         _stop(proc)
 
 
-def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
+def workbook(
+    browser, folder: Path, warm: float, shots: Path | None, code: str | None = None
+) -> dict:
     port = free_port()
     env = {**os.environ, "STUDYKIT_HOME": str(folder / "home")}
+    if code:  # another checkout of studykit (e.g. the code before a change)
+        env["PYTHONPATH"] = code
     studykit = Path(sys.executable).with_name("studykit")
     cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
     t0 = time.perf_counter()
@@ -204,6 +210,12 @@ def main(argv=None) -> int:
         help="seconds between the first visitor's chart and the second visitor",
     )
     ap.add_argument("--screenshots", help="folder for screenshots of the landing view")
+    ap.add_argument(
+        "--compare",
+        metavar="CHECKOUT",
+        help="also serve the workbook from this checkout of studykit (PYTHONPATH, e.g. the "
+        "code before a change), interleaved in every run; prints its medians and the ratios",
+    )
     args = ap.parse_args(argv)
     from playwright.sync_api import sync_playwright
 
@@ -211,6 +223,7 @@ def main(argv=None) -> int:
     if shots:
         shots.mkdir(parents=True, exist_ok=True)
     stock, stock_kernel, first, second, kernel = [], [], [], [], []
+    compared: list[dict] = []
     with sync_playwright() as p, tempfile.TemporaryDirectory() as d:
         browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
         try:
@@ -219,6 +232,17 @@ def main(argv=None) -> int:
                 run_dir.mkdir()
                 s, sk = stock_voila(browser, run_dir)
                 stock_kernel.append(sk)
+                if args.compare:
+                    cmp_dir = Path(d) / f"compare{i}"
+                    cmp_dir.mkdir()
+                    c = workbook(browser, cmp_dir, args.warm, None, code=args.compare)
+                    compared.append(c)
+                    print(
+                        f"run {i + 1}, {args.compare}: first chart {c['first']:.2f} s | second "
+                        f"visitor {c['second']:.2f} s | largest of {c['kernels']} kernels "
+                        f"{c['kernel_mb']:.0f} MB RSS | load average {os.getloadavg()[0]:.1f}",
+                        flush=True,
+                    )
                 w = workbook(browser, run_dir, args.warm, shots if i == 0 else None)
                 stock.append(s)
                 first.append(w["first"])
@@ -229,7 +253,7 @@ def main(argv=None) -> int:
                     f"| `studykit serve "
                     f"--demo` first chart {w['first']:.2f} s | second visitor "
                     f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
-                    f"{w['kernel_mb']:.0f} MB RSS",
+                    f"{w['kernel_mb']:.0f} MB RSS | load average {os.getloadavg()[0]:.1f}",
                     flush=True,
                 )
         finally:
@@ -255,6 +279,15 @@ def main(argv=None) -> int:
         f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
         f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB"
     )
+    if compared:
+        cf, cv, ck = (
+            statistics.median(c[key] for c in compared) for key in ("first", "second", "kernel_mb")
+        )
+        print(
+            f"median of {args.compare}: first chart {cf:.2f} s, second visitor {cv:.2f} s, "
+            f"kernel {ck:.0f} MB; this code / that: first {f / cf:.2f}, second {v / cv:.2f}, "
+            f"kernel {k / ck:.2f}"
+        )
     sk = statistics.median(stock_kernel)
     cmd = "studykit serve --demo"
     stock_name = "stock `voila` on a one-cell notebook, start to page"
