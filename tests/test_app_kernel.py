@@ -93,3 +93,31 @@ def test_other_kernel_specs_unchanged():
 
     argv = [sys.executable, "-m", "some_other_kernel", "-f", "{connection_file}"]
     assert workbook_argv(argv) == argv
+
+
+_LANDING = """
+import os, shutil, sys, tempfile
+from studykit.app.session import demo_study_path
+path = os.path.join(tempfile.mkdtemp(), "pilot.study")
+shutil.copy(demo_study_path(), path)
+os.environ["STUDYKIT_STUDY"] = path
+from studykit.app import workbook_from_environment
+workbook_from_environment()
+print("pandas" in sys.modules, "debugpy" in sys.modules)
+"""
+
+
+def test_landing_view_reads_the_demo_study_without_pandas():
+    """pandas held about 28 MB of every workbook kernel, imported only to read the stored
+    files (README, Performance); the landing view of the demo study must not bring it back."""
+    import subprocess
+
+    done = subprocess.run(
+        [sys.executable, "-c", _LANDING],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        check=True,
+        env={**os.environ, "STUDYKIT_LIVE_POLL_MS": "0"},
+    )
+    assert done.stdout.split()[-2:] == ["False", "False"]
