@@ -112,12 +112,6 @@ def test_landing_view_reads_the_demo_study_without_pandas():
     files (README, Performance); the landing view of the demo study must not bring it back."""
     import subprocess
 
-    done = subprocess.run(
-        [sys.executable, "-c", _LANDING],
-        cwd=ROOT,
-        capture_output=True,
-        text=True,
-        check=True,
-        env={**os.environ, "STUDYKIT_LIVE_POLL_MS": "0"},
-    )
-    assert done.stdout.split()[-2:] == ["False", "False"]
+    env = {**os.environ, "STUDYKIT_LIVE_POLL_MS": "0"}
+    out = subprocess.check_output([sys.executable, "-c", _LANDING], cwd=ROOT, text=True, env=env)
+    assert out.split()[-2:] == ["False", "False"]
