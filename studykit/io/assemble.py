@@ -11,6 +11,7 @@ import functools
 import numpy as np
 
 from studykit.errors import DataFileError
+from studykit.io import plain
 from studykit.io.cells import (
     check_text_column,
     col_letter,
@@ -76,9 +77,7 @@ class _LabelAcc:
         self.codes = Acc()
 
     def add(self, labels: np.ndarray) -> None:
-        import pandas as pd
-
-        local, uniq = pd.factorize(labels, sort=False)
+        local, uniq = plain.factorize(labels)
         mapping = np.array(
             [self.index.setdefault(u, len(self.index)) for u in uniq], dtype=np.int64
         )
@@ -105,14 +104,12 @@ def _text_times(cells: np.ndarray, fmt: str | None):
     reads every cell as the stripped one would be read. Returns ``(times, format, filled)``
     (``filled``: the cell is not empty), or None when anything needs the cell-by-cell route.
     """
-    import pandas as pd
-
     if fmt is not None:  # the format of the chunks before: times_chunk would try it alone
         try:
-            out = pd.to_datetime(cells, format=fmt)
+            out = plain.to_datetime64(cells, fmt)
         except (ValueError, TypeError):
             return None
-        return np.array(out, dtype="datetime64[ns]"), fmt, np.asarray(cells != "", dtype=bool)
+        return out, fmt, np.asarray(cells != "", dtype=bool)
     sample = []
     for v in cells:
         t = v.strip() if isinstance(v, str) else None
@@ -130,10 +127,10 @@ def _text_times(cells: np.ndarray, fmt: str | None):
     if parsed is None or f is None:
         return None
     try:
-        out = pd.to_datetime(cells, format=f)
+        out = plain.to_datetime64(cells, f)
     except (ValueError, TypeError):
         return None
-    return np.array(out, dtype="datetime64[ns]"), f, np.asarray(cells != "", dtype=bool)
+    return out, f, np.asarray(cells != "", dtype=bool)
 
 
 class _TimeAcc:
@@ -410,8 +407,6 @@ def _position_labels(codes: np.ndarray) -> np.ndarray:
 
 def _grouping(codes, labels_of):
     """(codes 0..k-1 in order of first appearance, the k labels as str array)."""
-    import pandas as pd
-
     codes = np.asarray(codes)
     if codes.size:
         # codes that already run 0, 1, 2, ... in order of first appearance need no factorizing
@@ -419,7 +414,7 @@ def _grouping(codes, labels_of):
         if codes[0] == 0 and np.all(codes[1:] <= running_max[:-1] + 1):
             k = int(running_max[-1]) + 1
             return codes, np.asarray(labels_of(np.arange(k))).astype(str)
-    local, uniq = pd.factorize(codes, sort=False)
+    local, uniq = plain.factorize(codes)
     return local, np.asarray(labels_of(np.asarray(uniq))).astype(str)
 
 

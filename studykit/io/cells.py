@@ -13,6 +13,7 @@ import re
 import numpy as np
 
 from studykit.errors import DataFileError, printable
+from studykit.io import plain
 from studykit.io.source import Fallback, Source, Table
 from studykit.io.values import time_text
 
@@ -290,9 +291,7 @@ def _summary_word(text, words=_SUMMARY_WORDS) -> bool:
 
 def check_text_column(file, cells, rows, column) -> None:
     """A text column (part numbers, operators...) labelling a row 'Total' or 'Mean'."""
-    import pandas as pd
-
-    uniq = pd.unique(np.asarray(cells, dtype=object))
+    uniq = plain.unique(np.asarray(cells, dtype=object))
     hits = {u for u in uniq.tolist() if _summary_word(u, _STRONG_SUMMARY_WORDS)}
     if hits:
         i = next(i for i, v in enumerate(cells.tolist()) if v in hits)
@@ -314,8 +313,6 @@ def _summary_row_error(file, row: int, column: str, label: str) -> DataFileError
 def check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
     """Refuse a totals/mean row at the foot of a table (labelled 'Total', 'Mean', 'Summe'...)
     in the subgroup or time column: its numbers would otherwise enter the analysis."""
-    import pandas as pd
-
     seen: set[int] = set()  # arrays shared by several characteristics are looked at once
     for c in characteristics:
         columns = []
@@ -329,7 +326,7 @@ def check_summary_rows(src, characteristics, header, sg_idx, t_idx) -> None:
         if t_idx is not None and c.times is not None and c.times.dtype.kind == "O":
             if id(c.times) not in seen:
                 seen.add(id(c.times))
-                columns.append((header[t_idx], c.times, pd.unique(c.times).tolist()))
+                columns.append((header[t_idx], c.times, plain.unique(c.times).tolist()))
         for column, cells, uniq in columns:
             hits = {str(u) for u in uniq if _summary_word(str(u))}
             if hits:
@@ -379,8 +376,6 @@ def _bad_number(ctx: Ctx, raw, row: int, column: str) -> DataFileError:
 
 def numeric(ctx: Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
     """Convert one column of cells to float; return (values, empty mask)."""
-    import pandas as pd
-
     n = len(cells)
     if cells.dtype.kind == "f":  # already parsed by the fast reader
         empty = np.isnan(cells)
@@ -388,6 +383,8 @@ def numeric(ctx: Ctx, cells: np.ndarray, rows: np.ndarray, column: str):
             raise Fallback
         return cells, empty
     if ctx.text_cells:
+        import pandas as pd
+
         s = pd.Series(cells, dtype=object).str.strip()
         empty = (s == "").to_numpy(dtype=bool)
         t = s.where(~empty, None)
@@ -475,9 +472,7 @@ def filled_mask(cells: np.ndarray, text_cells: bool) -> np.ndarray:
     if cells.dtype.kind == "f":
         return ~np.isnan(cells)
     if text_cells:
-        import pandas as pd
-
-        return (pd.Series(cells, dtype=object).str.strip() != "").to_numpy(dtype=bool)
+        return plain.strip_filled(cells)
     return np.fromiter((not (isinstance(v, str) and v == "") for v in cells), bool, len(cells))
 
 
@@ -528,8 +523,6 @@ _TIME_FORMATS = (
 
 def times_chunk(cells: np.ndarray, fmt: str | None):
     """(datetime64[ns] array, format) when every filled cell is a date/time, else (None, None)."""
-    import pandas as pd
-
     n = len(cells)
     is_dt = np.fromiter((isinstance(v, _dt.datetime | _dt.date) for v in cells), bool, n)
     is_empty = np.fromiter((isinstance(v, str) and v.strip() == "" for v in cells), bool, n)
@@ -540,19 +533,18 @@ def times_chunk(cells: np.ndarray, fmt: str | None):
         return out, fmt
     if (is_dt & ~is_empty).any():
         return None, None
-    text = pd.Series(
-        [v.strip() if isinstance(v, str) else cell_text(v) for v in cells], dtype=object
-    )
-    filled = text != ""
+    text = np.empty(n, dtype=object)
+    text[:] = [v.strip() if isinstance(v, str) else cell_text(v) for v in cells]
+    filled = np.fromiter((t != "" for t in text.tolist()), bool, n)
     candidates = [fmt] if fmt else list(_TIME_FORMATS)
     sample = text[filled][:500]
     for f in candidates:
         try:
-            pd.to_datetime(sample, format=f)
-            parsed = pd.to_datetime(text.where(filled, None), format=f)
+            plain.to_datetime64(sample, f)
+            parsed = plain.to_datetime64(np.where(filled, text, None), f)
         except (ValueError, TypeError):
             continue
-        return np.array(parsed, dtype="datetime64[ns]"), f
+        return parsed, f
     return None, None
 
 

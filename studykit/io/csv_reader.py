@@ -13,6 +13,7 @@ import numpy as np
 
 from studykit.errors import DataFileError
 from studykit.io.cells import COMMA_DECIMAL_RE, POINT_DECIMAL_RE, text_number
+from studykit.io.plain import plain_fast_columns, plain_records
 from studykit.io.source import HEADER_MAX_BYTES, Fallback, Source, Table, human_size
 
 _CHUNK_ROWS = 50_000
@@ -88,11 +89,14 @@ def open_csv(src: Source) -> Table:
     sep, header_index = _sniff(lines, first_line, src.name)
     header = [h.strip() for h in _csv_rows([lines[header_index]], delimiter=sep, file=src.name)[0]]
     decimal = _decimal_sign(lines[header_index + 1 : header_index + 200], sep, src.name)
+    plain = _PlainSplit(src, sep)
     return Table(
         header=header,
         header_row=header_index + 1,
-        open_chunks=functools.partial(_text_chunks, src, header, sep, header_index),
-        fast_chunks=functools.partial(_float_chunks, src, len(header), sep, header_index, decimal),
+        open_chunks=functools.partial(_text_chunks, src, header, sep, header_index, plain),
+        fast_chunks=functools.partial(
+            _float_chunks, src, len(header), sep, header_index, decimal, plain
+        ),
         separator=sep,
         decimal=decimal,
         text_cells=True,
@@ -154,8 +158,30 @@ def _pandas_reader(handle, src: Source, sep: str, skiprows: int, **options):
     )
 
 
-def _text_chunks(src: Source, header: list, sep: str, header_index: int):
+class _PlainSplit:
+    """The plain split of a small table (:func:`studykit.io.plain.plain_records`), made once
+    and shared by the text and the number route; None when the table needs pandas."""
+
+    def __init__(self, src: Source, sep: str):
+        self.src, self.sep = src, sep
+        self._records: list | None = None
+        self._done = False
+
+    def __call__(self):
+        if not self._done:
+            self._records = plain_records(self.src.data, self.src.encoding, self.sep)
+            self._done = True
+        return self._records
+
+
+def _text_chunks(src: Source, header: list, sep: str, header_index: int, plain: _PlainSplit):
     """(spreadsheet rows, text columns) chunks of the rows below the header."""
+    records = plain()
+    if records is not None:  # what pandas' reader yields below, without pandas
+        cols = [np.array(col, dtype=object) for col in zip(*records[header_index:], strict=True)]
+        rows = np.arange(header_index + 2, len(records) + 1, dtype=np.int64)
+        yield rows, [c[1:] for c in cols]
+        return
     import pandas as pd
 
     handle = src.binary()
@@ -189,8 +215,16 @@ def _text_chunks(src: Source, header: list, sep: str, header_index: int):
         handle.close()
 
 
-def _float_chunks(src: Source, width: int, sep: str, header_index: int, decimal: str, float_cols):
-    """Numbers parsed by pandas' C reader; any doubt raises Fallback."""
+def _float_chunks(
+    src: Source, width: int, sep: str, header_index: int, decimal: str, plain, float_cols
+):
+    """Numbers parsed by pandas' C reader (or the plain route of a small table); any doubt
+    raises Fallback."""
+    records = plain()
+    plain_cols = plain_fast_columns(records, header_index, width, float_cols, decimal)
+    if plain_cols is not None:
+        yield np.arange(header_index + 2, len(records) + 1, dtype=np.int64), plain_cols
+        return
     import pandas as pd
 
     handle = src.binary()

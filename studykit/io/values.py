@@ -106,9 +106,9 @@ class CharacteristicData:
             valid = values[~missing]
             put(self, "is_integer", bool(valid.size and np.all(np.floor(valid) == valid)))
         if self.subgroup_labels is None or self.subgroup_counts is None:
-            import pandas as pd
+            from studykit.io.plain import factorize
 
-            codes, uniq = pd.factorize(np.asarray(self.subgroups), sort=False)
+            codes, uniq = factorize(np.asarray(self.subgroups))
             counts = np.bincount(codes, weights=(~missing).astype(float), minlength=len(uniq))
             put(self, "subgroup_labels", np.asarray(uniq).astype(str))
             put(self, "subgroup_counts", counts.astype(np.int64))

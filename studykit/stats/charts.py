@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import functools
 import math
+import sys
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -581,17 +582,28 @@ class SubgroupCodes:
         if isinstance(subgroups, SubgroupCodes):
             return subgroups
         lab = np.asarray(subgroups)
-        try:
-            import pandas as pd
+        # a small array of text or integer labels: numpy below gives pandas' codes and labels
+        # without importing pandas (about 28 MB of the workbook's kernel)
+        plain = (
+            lab.size <= 20_000
+            and "pandas" not in sys.modules
+            and (
+                lab.dtype.kind in "iubUS"
+                or (lab.dtype.kind == "O" and all(type(v) is str for v in lab.tolist()))
+            )
+        )
+        if not plain:
+            try:
+                import pandas as pd
 
-            codes, uniq = pd.factorize(lab, sort=False)
-            if lab.dtype.kind in "US" or lab.dtype.kind in "iub":
-                uniq = np.asarray(uniq, dtype=lab.dtype)
-            if lab.dtype.kind == "f" or np.any(codes < 0):
-                raise TypeError  # NaN labels / floats: keep numpy's exact grouping
-            return cls(np.asarray(codes, dtype=np.int64), np.asarray(uniq))
-        except (TypeError, ValueError):
-            pass
+                codes, uniq = pd.factorize(lab, sort=False)
+                if lab.dtype.kind in "US" or lab.dtype.kind in "iub":
+                    uniq = np.asarray(uniq, dtype=lab.dtype)
+                if lab.dtype.kind == "f" or np.any(codes < 0):
+                    raise TypeError  # NaN labels / floats: keep numpy's exact grouping
+                return cls(np.asarray(codes, dtype=np.int64), np.asarray(uniq))
+            except (TypeError, ValueError):
+                pass
         uniq, first, inverse = np.unique(lab, return_index=True, return_inverse=True)
         order = np.argsort(first, kind="stable")
         rank = np.empty_like(order)

@@ -16,6 +16,11 @@ Per run, one after the other (interleaved, so all three see the same machine loa
   server; page open -> first chart.
 * **kernel memory**: resident set size (``VmRSS``) of each kernel process of the server after
   the second visit, the largest one reported (a kernel holds one page's workbook).
+* **kernel CPU at the first chart**: user + system CPU seconds of the page's kernel (the
+  busiest of the server's kernels) when the first chart showed: the pre-started kernel's start,
+  imports and landing view, a figure that depends less on the machine's load than wall times.
+* with ``--compare CHECKOUT``: the same workbook figures once more per run, served from that
+  checkout of studykit (``PYTHONPATH``), e.g. the code before a change, and the ratios.
 
 Prints each run, the medians, their ratio to stock Voila, and a ``summary:`` line.
 """
@@ -107,6 +112,16 @@ def _rss_mb(pid: int) -> float:
     return float("nan")
 
 
+def _cpu_s(pid: int) -> float:
+    """User + system CPU seconds of a process so far (Linux ``/proc``)."""
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            fields = f.read().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return float("nan")
+
+
 def _server_pid(serve_pid: int) -> int | None:
     """The Voila process started by `studykit serve` (its child)."""
     for entry in os.scandir("/proc"):
@@ -147,9 +162,13 @@ def stock_voila(browser, folder: Path) -> tuple[float, float]:
         _stop(proc)
 
 
-def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
+def workbook(
+    browser, folder: Path, warm: float, shots: Path | None, code: str | None = None
+) -> dict:
     port = free_port()
     env = {**os.environ, "STUDYKIT_HOME": str(folder / "home")}
+    if code:  # another checkout of studykit (e.g. the code before a change)
+        env["PYTHONPATH"] = code
     studykit = Path(sys.executable).with_name("studykit")
     cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
     t0 = time.perf_counter()
@@ -168,6 +187,10 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
         page.goto(url, timeout=TIMEOUT_MS)
         page.wait_for_selector("canvas", state="attached", timeout=TIMEOUT_MS)
         first = time.perf_counter() - t0
+        server = _server_pid(proc.pid)
+        # CPU seconds the page's kernel (the busiest; a spare one may be starting) had used
+        # when the chart showed: less bound to the machine's load than the wall times
+        first_cpu = max((_cpu_s(pid) for pid in kernel_pids(server).values()), default=0.0)
         if shots:
             page.wait_for_timeout(1500)
             page.screenshot(path=str(shots / "landing-first-visitor.png"), full_page=True)
@@ -180,7 +203,6 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
         if shots:
             page2.wait_for_timeout(1500)
             page2.screenshot(path=str(shots / "landing-second-visitor.png"), full_page=True)
-        server = _server_pid(proc.pid)
         rss = [_rss_mb(pid) for pid in kernel_pids(server).values()] if server else []
         page.close()
         page2.close()
@@ -189,6 +211,7 @@ def workbook(browser, folder: Path, warm: float, shots: Path | None) -> dict:
             "second": second,
             "kernels": len(rss),
             "kernel_mb": max(rss) if rss else float("nan"),
+            "kernel_cpu": first_cpu,
         }
     finally:
         _stop(proc)
@@ -204,6 +227,12 @@ def main(argv=None) -> int:
         help="seconds between the first visitor's chart and the second visitor",
     )
     ap.add_argument("--screenshots", help="folder for screenshots of the landing view")
+    ap.add_argument(
+        "--compare",
+        metavar="CHECKOUT",
+        help="also serve the workbook from this checkout of studykit (PYTHONPATH, e.g. the "
+        "code before a change), interleaved in every run; prints its medians and the ratios",
+    )
     args = ap.parse_args(argv)
     from playwright.sync_api import sync_playwright
 
@@ -211,6 +240,8 @@ def main(argv=None) -> int:
     if shots:
         shots.mkdir(parents=True, exist_ok=True)
     stock, stock_kernel, first, second, kernel = [], [], [], [], []
+    compared: list[dict] = []
+    cpu: list[float] = []
     with sync_playwright() as p, tempfile.TemporaryDirectory() as d:
         browser = p.chromium.launch(executable_path=CHROMIUM, headless=True, args=CHROMIUM_ARGS)
         try:
@@ -219,17 +250,31 @@ def main(argv=None) -> int:
                 run_dir.mkdir()
                 s, sk = stock_voila(browser, run_dir)
                 stock_kernel.append(sk)
+                if args.compare:
+                    cmp_dir = Path(d) / f"compare{i}"
+                    cmp_dir.mkdir()
+                    c = workbook(browser, cmp_dir, args.warm, None, code=args.compare)
+                    compared.append(c)
+                    print(
+                        f"run {i + 1}, {args.compare}: first chart {c['first']:.2f} s | second "
+                        f"visitor {c['second']:.2f} s | kernel CPU at the first chart "
+                        f"{c['kernel_cpu']:.2f} s | largest of {c['kernels']} kernels "
+                        f"{c['kernel_mb']:.0f} MB RSS | load average {os.getloadavg()[0]:.1f}",
+                        flush=True,
+                    )
                 w = workbook(browser, run_dir, args.warm, shots if i == 0 else None)
                 stock.append(s)
                 first.append(w["first"])
                 second.append(w["second"])
                 kernel.append(w["kernel_mb"])
+                cpu.append(w["kernel_cpu"])
                 print(
                     f"run {i + 1}: stock Voila one-cell page {s:.2f} s (kernel {sk:.0f} MB) "
                     f"| `studykit serve "
                     f"--demo` first chart {w['first']:.2f} s | second visitor "
-                    f"{w['second']:.2f} s | largest of {w['kernels']} kernels "
-                    f"{w['kernel_mb']:.0f} MB RSS",
+                    f"{w['second']:.2f} s | kernel CPU at the first chart "
+                    f"{w['kernel_cpu']:.2f} s | largest of {w['kernels']} kernels "
+                    f"{w['kernel_mb']:.0f} MB RSS | load average {os.getloadavg()[0]:.1f}",
                     flush=True,
                 )
         finally:
@@ -255,6 +300,18 @@ def main(argv=None) -> int:
         f"summary: first chart {f:.2f} s (stock Voila one-cell {s:.2f} s, ratio {f / s:.2f}); "
         f"second visitor {v:.2f} s (ratio {v / s:.2f}); kernel {k:.0f} MB"
     )
+    if compared:
+        cf, cv, ck, cc = (
+            statistics.median(c[key] for c in compared)
+            for key in ("first", "second", "kernel_mb", "kernel_cpu")
+        )
+        kc = statistics.median(cpu)
+        print(
+            f"median of {args.compare}: first chart {cf:.2f} s, second visitor {cv:.2f} s, "
+            f"kernel {ck:.0f} MB, kernel CPU at the first chart {cc:.2f} s; this code / that: "
+            f"first {f / cf:.2f}, second {v / cv:.2f}, kernel {k / ck:.2f}, kernel CPU "
+            f"{kc / cc:.2f}"
+        )
     sk = statistics.median(stock_kernel)
     cmd = "studykit serve --demo"
     stock_name = "stock `voila` on a one-cell notebook, start to page"
