@@ -56,7 +56,7 @@ from studykit.stats.charts import (
     plain_label,
 )
 from studykit.stats.result import Result
-from studykit.stats.rules import collector_paused
+from studykit.stats.rules import collector_paused, parse_rules
 
 __all__ = [
     "Removal",
@@ -307,6 +307,10 @@ def _flagged(
     found: dict[int, list] = {}
     if not np.any(np.asarray(series.sigma) > 0):
         return found  # a chart that is its centre line (no defective at all): nothing signals
+    if chance is not None and chance.beyond_removal == 0 and _limits_rules_only(rules):
+        # the rules only look for points beyond the removal limits, and series_chance has
+        # counted none (the same strict comparisons): no signal to build
+        return found
     lcl, ucl = series.lcl, series.ucl
     if chance is not None and chance.adjusted:
         lcl, ucl = chance.lower, chance.upper
@@ -323,6 +327,12 @@ def _flagged(
         for t in s.triggers:
             found.setdefault(int(t), []).append(s)
     return found
+
+
+def _limits_rules_only(rules) -> bool:
+    """True when every rule switched on is ``beyond_limits`` (the default removal rules): with
+    the limits given, such rules flag exactly the points beyond them."""
+    return all(r.id == "beyond_limits" for r in parse_rules(rules) if r.enabled)
 
 
 def _chances(chart: ControlChart, attribute: bool) -> tuple:

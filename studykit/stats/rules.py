@@ -104,6 +104,7 @@ Montgomery, D. C. and Runger, G. C. Applied Statistics and Probability for Engin
 
 from __future__ import annotations
 
+import functools
 import gc
 import math
 from collections.abc import Iterable, Mapping, Sequence
@@ -563,7 +564,7 @@ def parse_rules(spec) -> tuple[Rule, ...]:
     if isinstance(spec, Rule):
         return (spec,)
     if isinstance(spec, str):
-        return _parse_text(spec)
+        return _parse_text(spec)  # cached: a chart parses the same few texts again and again
     if isinstance(spec, Iterable):
         rules: list[Rule] = []
         for item in spec:
@@ -582,7 +583,10 @@ def parse_rules(spec) -> tuple[Rule, ...]:
     )
 
 
+@functools.lru_cache(maxsize=256)
 def _parse_text(spec: str) -> tuple[Rule, ...]:
+    """The rules of one text (cached by the text: rules are frozen, so the same tuple can be
+    handed out again; an invalid text raises every time, as errors are not cached)."""
     text = "".join(spec.lower().split()).replace(":", ",").replace(";", ",")
     tokens = [t for t in text.split(",") if t]
     if not tokens:
@@ -738,10 +742,49 @@ def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 
     return _merge(kind, trig, length, 1, positions)
 
 
-def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
-    """All groups found by one rule (``x`` etc. hold the non-missing points only; ``positions``
-    maps them to the caller's positions, None when nothing is missing)."""
+class _Sides:
+    """The comparisons of one series with its zone lines, made once per :func:`evaluate` call
+    and shared by the rules (zone_b, hugging and mixture all compare with centre +- 1 sigma;
+    trend and alternation take the same differences)."""
+
+    __slots__ = ("x", "c", "s", "_made")
+
+    def __init__(self, x, c, s):
+        self.x, self.c, self.s = x, c, s
+        self._made: dict = {}
+
+    def above(self, k: float | None) -> np.ndarray:
+        """``x > c + k * s`` (``k`` None: ``x > c``)."""
+        key = ("above", k)
+        got = self._made.get(key)
+        if got is None:
+            got = self.x > (self.c if k is None else self.c + k * self.s)
+            self._made[key] = got
+        return got
+
+    def below(self, k: float | None) -> np.ndarray:
+        """``x < c - k * s`` (``k`` None: ``x < c``)."""
+        key = ("below", k)
+        got = self._made.get(key)
+        if got is None:
+            got = self.x < (self.c if k is None else self.c - k * self.s)
+            self._made[key] = got
+        return got
+
+    def diff(self) -> np.ndarray:
+        """Differences of neighbouring points."""
+        got = self._made.get("diff")
+        if got is None:
+            got = np.diff(self.x)
+            self._made["diff"] = got
+        return got
+
+
+def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
+    """All groups found by one rule (``sides`` holds the non-missing points only;
+    ``positions`` maps them to the caller's positions, None when nothing is missing)."""
     rid, p = rule.id, rule.params
+    x, c, s = sides.x, sides.c, sides.s
     found = []
     if rid == "beyond_limits":
         upper = c + p["sigmas"] * s if ucl is None else ucl
@@ -752,28 +795,31 @@ def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
             if t:
                 found.append(_Found(kind, t, t, [[i] for i in t]))
     elif rid == "run":
-        for kind, mask in (("above", x > c), ("below", x < c)):
+        for kind, mask in (("above", sides.above(None)), ("below", sides.below(None))):
             found.append(_in_a_row(kind, mask, int(p["length"]), positions))
     elif rid == "trend":
-        d = np.diff(x)
+        d = sides.diff()
         for kind, mask in (("up", d > 0), ("down", d < 0)):
             found.append(_in_a_row(kind, mask, int(p["length"]), positions, extra=1))
     elif rid == "alternation":
-        sign = np.sign(np.diff(x))
+        sign = np.sign(sides.diff())
         flips = sign[1:] * sign[:-1] < 0
         found.append(_in_a_row("alternating", flips, int(p["length"]), positions, extra=2))
     elif rid in ("zone_a", "zone_b"):
         k, m = int(p["count"]), int(p["window"])
-        for kind, zone in (("above", x > c + p["sigmas"] * s), ("below", x < c - p["sigmas"] * s)):
+        for kind, zone in (
+            ("above", sides.above(p["sigmas"])),
+            ("below", sides.below(p["sigmas"])),
+        ):
             trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
             found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
     elif rid == "hugging":
-        inside = (x >= c - p["sigmas"] * s) & (x <= c + p["sigmas"] * s)
+        # within sigmas of the centre: neither above nor below (x >= lo is not x < lo: no NaN)
+        inside = ~(sides.above(p["sigmas"]) | sides.below(p["sigmas"]))
         found.append(_in_a_row("inside", inside, int(p["length"]), positions))
     elif rid == "mixture":
         length = int(p["length"])
-        above = x > c + p["sigmas"] * s
-        below = x < c - p["sigmas"] * s
+        above, below = sides.above(p["sigmas"]), sides.below(p["sigmas"])
         if not p["both_sides"]:
             found.append(_in_a_row("outside", above | below, length, positions))
         else:
@@ -852,7 +898,9 @@ def _template(rule: Rule, kind: str, given_limit: bool) -> str:
 # evaluate
 
 
-def _as_points(points) -> np.ndarray:
+def _as_points(points) -> tuple[np.ndarray, np.ndarray | None]:
+    """The points as a float array and the mask of the non-missing ones (None when every
+    point is there)."""
     try:
         x = np.asarray(points, dtype=float)
     except (TypeError, ValueError):
@@ -864,28 +912,34 @@ def _as_points(points) -> np.ndarray:
         raise StudyInputError(
             f"`points` must be one-dimensional (a series in time order); got shape {x.shape}"
         )
+    if np.isfinite(x).all():  # (the usual case: one test instead of two)
+        return x, None
     bad = np.flatnonzero(np.isinf(x))
     if bad.size:
         raise StudyInputError(
             f"`points` has an infinite value ({x[bad[0]]}) at position {bad[0]}; "
             "use NaN for a missing point"
         )
-    return x
+    return x, ~np.isnan(x)
 
 
-def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = False):
-    """Scalar or per-point array, restricted to the kept (non-missing) points."""
+def _as_level(value, name: str, n: int, keep: np.ndarray | None, *, allow_inf: bool = False):
+    """Scalar or per-point array, restricted to the kept (non-missing) points (``keep`` None:
+    every point is kept)."""
+    if type(value) is float and (not math.isnan(value) if allow_inf else math.isfinite(value)):
+        return value  # one valid number (what a chart passes): nothing to convert
     try:
         arr = np.asarray(value, dtype=float)
     except (TypeError, ValueError):
         raise StudyInputError(
             f"`{name}` ({value!r}) must be a number or one number per point"
         ) from None
+    out: float | np.ndarray
     if arr.ndim == 0:
         values = arr.reshape(1)
         out = float(arr)
     elif arr.ndim == 1 and arr.size == n:
-        values = arr[keep]
+        values = arr if keep is None else arr[keep]
         out = values
     else:
         raise StudyInputError(
@@ -895,7 +949,7 @@ def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = F
         bad = np.isnan(values) if allow_inf else ~np.isfinite(values)
         if bad.any():
             i = int(np.argmax(bad))
-            at = "" if arr.ndim == 0 else f" at position {int(np.flatnonzero(keep)[i])}"
+            at = "" if arr.ndim == 0 else f" at position {_position(keep, i)}"
             what = "a number (use -inf/inf for no limit)" if allow_inf else "finite"
             raise StudyInputError(f"`{name}` ({values[i]}){at} must be {what}")
     return out
@@ -962,30 +1016,29 @@ def evaluate(
     >>> [s.rule for s in evaluate(x, center=0.0, sigma=1.0, rules="western_electric")]
     ['run', 'beyond_limits']
     """
-    x_all = _as_points(points)
+    x_all, keep = _as_points(points)
     n_all = x_all.size
     rule_list = parse_rules(rules)
     if labels is not None and len(labels) != n_all:
         raise StudyInputError(
             f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point"
         )
-    keep = ~np.isnan(x_all)
-    all_kept = bool(keep.all())
-    x = x_all if all_kept else x_all[keep]
-    positions = None if all_kept else np.flatnonzero(keep)
+    x = x_all if keep is None else x_all[keep]
+    positions = None if keep is None else np.flatnonzero(keep)
     c = _as_level(center, "center", n_all, keep)
     s = _as_level(sigma, "sigma", n_all, keep)
-    if np.any(np.asarray(s) <= 0):
+    if (s <= 0) if type(s) is float else np.any(np.asarray(s) <= 0):
         sv = np.asarray(s).reshape(-1)
         raise StudyInputError(f"`sigma` ({sv[np.argmax(sv <= 0)]}) must be greater than 0")
     low, high = _limits(lcl, ucl, n_all, keep, x)
 
     found = []
+    sides = _Sides(x, c, s)
     with collector_paused():  # 10^5 new signals hold no reference cycles
         for order, rule in enumerate(rule_list):
             if not rule.enabled:
                 continue
-            for group in _detect(rule, x, c, s, low, high, positions):
+            for group in _detect(rule, sides, low, high, positions):
                 given = (high if group.kind == "above" else low) is not None
                 template = _template(rule, group.kind, given)
                 for signal in _group_signals(rule, group, template, labels):
@@ -1013,11 +1066,18 @@ def collector_paused():
             gc.enable()
 
 
+def _position(keep: np.ndarray | None, i: int) -> int:
+    """The caller's position of the ``i``-th kept point."""
+    return i if keep is None else int(np.flatnonzero(keep)[i])
+
+
 def _limits(lcl, ucl, n_all: int, keep, x):
     """The given control limits at the kept points (None when not given); lcl < ucl."""
     low = None if lcl is None else _as_level(lcl, "lcl", n_all, keep, allow_inf=True)
     high = None if ucl is None else _as_level(ucl, "ucl", n_all, keep, allow_inf=True)
-    if low is not None and high is not None and np.any(np.asarray(low) >= np.asarray(high)):
+    if low is None or high is None or (type(low) is float and type(high) is float and low < high):
+        return low, high
+    if np.any(np.asarray(low) >= np.asarray(high)):
         lo_v = np.broadcast_to(low, x.shape) if np.ndim(low) else np.full(max(x.size, 1), low)
         hi_v = np.broadcast_to(high, x.shape) if np.ndim(high) else np.full(max(x.size, 1), high)
         i = int(np.argmax(lo_v >= hi_v))
