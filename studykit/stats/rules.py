@@ -633,7 +633,8 @@ def _parse_text(spec: str) -> tuple[Rule, ...]:
 
 
 # ---------------------------------------------------------------------------------------------
-# vectorised detection (all on the compressed sequence of non-missing points)
+# vectorised detection (all on the compressed sequence of non-missing points; 1-D masks give
+# their positions by ``mask.nonzero()[0]``, np.flatnonzero without its ravel and wrapper)
 
 
 def _all_in_window(mask: np.ndarray, width: int) -> np.ndarray:
@@ -709,14 +710,16 @@ def _merge(kind, trig, length, max_gap, positions, zone=None):
     """
     if trig.size == 0:
         return None
-    breaks = np.flatnonzero(np.diff(trig) > max_gap) + 1
+    if trig.size <= _FEW_TRIGGERS:
+        return _merge_few(kind, trig, length, max_gap, positions, zone)
+    breaks = ((trig[1:] - trig[:-1]) > max_gap).nonzero()[0] + 1
     firsts = np.concatenate(([0], breaks))
     lasts = np.concatenate((breaks - 1, [trig.size - 1]))
     starts = np.maximum(trig[firsts] - (length - 1), 0)
     ends = trig[lasts]
     members = None
     if zone is not None:
-        in_zone = np.flatnonzero(zone)
+        in_zone = zone.nonzero()[0]
         lo = np.searchsorted(in_zone, starts, "left")
         hi = np.searchsorted(in_zone, ends, "right")
         members = _gather(in_zone if positions is None else positions[in_zone], lo, hi)
@@ -730,6 +733,34 @@ def _merge(kind, trig, length, max_gap, positions, zone=None):
     return _Found(kind, starts.tolist(), ends.tolist(), triggers, members)
 
 
+#: Up to this many triggers, :func:`_merge` groups them in Python (a short chart's few signals:
+#: some twenty numpy calls cost more than the loop); more go through the numpy route.
+_FEW_TRIGGERS = 64
+
+
+def _merge_few(kind, trig, length, max_gap, positions, zone):
+    """:func:`_merge` for a few triggers: the same groups, built with Python lists."""
+    t = trig.tolist()
+    firsts = [0] + [i for i in range(1, len(t)) if t[i] - t[i - 1] > max_gap]
+    lasts = [f - 1 for f in firsts[1:]] + [len(t) - 1]
+    starts = [max(t[f] - (length - 1), 0) for f in firsts]
+    ends = [t[g] for g in lasts]
+    members = None
+    if zone is not None:
+        in_zone = zone.nonzero()[0]
+        lo = in_zone.searchsorted(starts, "left").tolist()
+        hi = in_zone.searchsorted(ends, "right").tolist()
+        source = in_zone if positions is None else positions[in_zone]
+        members = [source[a:b].tolist() for a, b in zip(lo, hi, strict=True)]
+    elif positions is not None:
+        members = [positions[a : b + 1].tolist() for a, b in zip(starts, ends, strict=True)]
+    if positions is not None:
+        t = positions[trig].tolist()
+        starts, ends = positions[starts].tolist(), positions[ends].tolist()
+    triggers = [t[a : b + 1] for a, b in zip(firsts, lasts, strict=True)]
+    return _Found(kind, starts, ends, triggers, members)
+
+
 def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 0):
     """Groups for "``length`` points in a row" rules.
 
@@ -738,7 +769,7 @@ def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 
     ``j`` complete a pattern at point ``j + extra``. Triggers on consecutive points merge.
     """
     width = length - extra
-    trig = np.flatnonzero(_all_in_window(mask, width)) + (width - 1 + extra)
+    trig = _all_in_window(mask, width).nonzero()[0] + (width - 1 + extra)
     return _merge(kind, trig, length, 1, positions)
 
 
@@ -775,7 +806,7 @@ class _Sides:
         """Differences of neighbouring points."""
         got = self._made.get("diff")
         if got is None:
-            got = np.diff(self.x)
+            got = self.x[1:] - self.x[:-1]  # what np.diff computes, without its wrapper
             self._made["diff"] = got
         return got
 
@@ -790,7 +821,7 @@ def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
         upper = c + p["sigmas"] * s if ucl is None else ucl
         lower = c - p["sigmas"] * s if lcl is None else lcl
         for kind, mask in (("above", x > upper), ("below", x < lower)):
-            at = np.flatnonzero(mask)
+            at = mask.nonzero()[0]
             t = (at if positions is None else positions[at]).tolist()
             if t:
                 found.append(_Found(kind, t, t, [[i] for i in t]))
@@ -811,7 +842,7 @@ def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
             ("above", sides.above(p["sigmas"])),
             ("below", sides.below(p["sigmas"])),
         ):
-            trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
+            trig = (zone & (_count_in_window(zone, m) >= k)).nonzero()[0]
             found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
     elif rid == "hugging":
         # within sigmas of the centre: neither above nor below (x >= lo is not x < lo: no NaN)
@@ -826,7 +857,7 @@ def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
             window = _all_in_window(above | below, length)
             window &= ~_all_in_window(above, length)
             window &= ~_all_in_window(below, length)
-            trig = np.flatnonzero(window) + (length - 1)
+            trig = window.nonzero()[0] + (length - 1)
             found.append(_merge("both", trig, length, 1, positions))
     return [f for f in found if f is not None]
 
@@ -1024,7 +1055,7 @@ def evaluate(
             f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point"
         )
     x = x_all if keep is None else x_all[keep]
-    positions = None if keep is None else np.flatnonzero(keep)
+    positions = None if keep is None else keep.nonzero()[0]
     c = _as_level(center, "center", n_all, keep)
     s = _as_level(sigma, "sigma", n_all, keep)
     if (s <= 0) if type(s) is float else np.any(np.asarray(s) <= 0):
