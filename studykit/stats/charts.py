@@ -32,6 +32,7 @@ Choices (each stated once here and in the result's ``reason`` / ``sigma_method``
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import math
 import warnings
@@ -417,6 +418,37 @@ def signal_counts(chart: ControlChart) -> dict:
         for sig in s.signals:
             by_rule[sig.rule] = by_rule.get(sig.rule, 0) + 1
     return {"signals_total": total, "signals_listed": listed, "signals_by_rule": by_rule}
+
+
+def with_signals(chart: ControlChart, rules, dispersion_rules) -> ControlChart:
+    """``chart`` (built with ``evaluate=False``) with the run-rule signals of its series, the
+    same that :func:`control_chart` with ``evaluate=True`` gives when its subgroups are given
+    (phase I evaluates its display rules on the trial and the final chart only).
+
+    >>> x = [10.0, 10.2, 9.9, 10.1, 14.0, 10.0, 9.8, 10.1, 10.2, 9.9, 10.0, 10.1]
+    >>> bare = control_chart(x, list(range(12)), evaluate=False)
+    >>> full = control_chart(x, list(range(12)))
+    >>> got = with_signals(bare, "nelson", DISPERSION_RULES)
+    >>> got.signals == full.signals and bare.signals == ()
+    True
+    """
+    disp = chart.dispersion
+    return dataclasses.replace(
+        chart,
+        location=_series_with_signals(chart.location, rules, chart.labels),
+        dispersion=None
+        if disp is None
+        else _series_with_signals(disp, dispersion_rules, chart.labels),
+    )
+
+
+def _series_with_signals(series: ChartSeries, rules, labels) -> ChartSeries:
+    """``series`` with the signals of ``rules`` (none on a chart that is its centre line)."""
+    if not np.any(np.asarray(series.sigma) > 0):
+        return series  # an attribute chart with no (or only) nonconforming items
+    levels = {key: getattr(series, key) for key in ("center", "sigma", "lcl", "ucl")}
+    signals = evaluate_series(series.points, rules=rules, labels=labels, **levels)
+    return dataclasses.replace(series, signals=signals)
 
 
 def plain_label(v):

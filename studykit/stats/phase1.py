@@ -54,6 +54,7 @@ from studykit.stats.charts import (
     control_chart,
     evaluate_series,
     plain_label,
+    with_signals,
 )
 from studykit.stats.result import Result
 from studykit.stats.rules import collector_paused, parse_rules
@@ -432,9 +433,15 @@ def phase1(
     removed, removals = _manual_exclusions(exclude, excluded_by, data)
     scales: list = []
 
-    def build(kind_now):
+    def build(kind_now, evaluate=True):
         return _kept_chart(
-            data, removed, kind_now, rescale, scales, rules, dispersion_rules, chart_options
+            data,
+            removed,
+            kind_now,
+            rescale,
+            scales,
+            (rules, dispersion_rules, evaluate),
+            chart_options,
         )
 
     chart = build(kind)
@@ -466,8 +473,14 @@ def phase1(
         del flags
         chances_of = None
         chart = None  # the next round's chart replaces this one (one chart in memory)
-        chart = build(kind_fixed)
+        # the display rules only on the chart that is kept (see below): a round's chart that
+        # is replaced needs the removal rules alone
+        chart = build(kind_fixed, evaluate=False)
 
+    # the removal limits and chance counts of the last round's chart (before the copies below)
+    chance = _final_chances(chart, attribute, chances_of)
+    if chart is not trial:  # the final chart of a loop that removed something
+        chart = with_signals(chart, rules, dispersion_rules)
     if chart.reason != trial.reason and kind == "auto":
         # rebuilt with the kind fixed in round 1: keep the reason the automatic choice gave
         chart = dataclasses.replace(chart, reason=trial.reason)
@@ -502,7 +515,7 @@ def phase1(
         n_removed_auto=int(n_auto),
         raw_chart=raw_chart,
         mr_removal=mr_removal,
-        chance=_final_chances(chart, attribute, chances_of),
+        chance=chance,
         kept_mask=kept_mask,
     )
 
@@ -595,10 +608,12 @@ def _manual_exclusions(exclude, excluded_by, data: _Data) -> tuple[np.ndarray, l
 
 
 def _kept_chart(
-    data: _Data, removed, kind_now, rescale, scales: list, rules, dispersion_rules, chart_options
+    data: _Data, removed, kind_now, rescale, scales: list, rule_specs: tuple, chart_options
 ) -> ControlChart:
     """The chart of the subgroups not removed, on the ``rescale`` scale (appended to
-    ``scales``) when one is given."""
+    ``scales``) when one is given; ``rule_specs`` is (rules, dispersion rules, whether the
+    display rules are evaluated)."""
+    rules, dispersion_rules, evaluate = rule_specs
     mask = ~removed[data.groups.codes]
     if not mask.any():
         raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
@@ -619,6 +634,7 @@ def _kept_chart(
         sizes=None if data.size_arr is None else data.size_arr[mask],
         rules=rules,
         dispersion_rules=dispersion_rules,
+        evaluate=evaluate,
         **{**chart_options, **extra},
     )
 
