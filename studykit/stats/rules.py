@@ -90,7 +90,7 @@ Notes
 -----
 "``length`` points in a row" is found for all points at once by window doubling: boolean
 windows of 1, 2, 4, ... points are ANDed from shifted copies, and two overlapping power-of-two
-windows cover any length. k-of-m counts are shifted sums (cumulative sums for long windows).
+windows cover any length. k-of-m counts are one sorted search over the in-zone points.
 Every rule is O(n log length) numpy work on booleans; only the (few) signals are built in Python.
 
 References
@@ -655,17 +655,12 @@ def _all_in_window(mask: np.ndarray, width: int) -> np.ndarray:
     return level[: level.size - (width - span)] & level[width - span :]
 
 
-def _count_in_window(mask: np.ndarray, width: int) -> np.ndarray:
-    """``out[i]`` = number of True in ``mask[max(0, i-width+1) : i+1]``."""
-    if width <= 16:
-        small = mask.astype(np.int8)
-        for shift in range(1, min(width, mask.size)):
-            small[shift:] += mask[:-shift]
-        return small
-    csum = np.cumsum(mask, dtype=np.int64)
-    count = csum.copy()
-    count[width:] -= csum[:-width]
-    return count
+def _k_of_m(in_zone: np.ndarray, count: int, window: int) -> np.ndarray:
+    """The in-zone positions ``i`` with at least ``count`` in-zone points among
+    ``i-window+1 .. i`` (fewer at the start of the chart); ``in_zone`` is sorted. One search
+    over the (few) in-zone points, whatever the window and the chart length."""
+    first = in_zone.searchsorted(in_zone - (window - 1), "left")
+    return in_zone[np.arange(in_zone.size) - first + 1 >= count]
 
 
 class _Found:
@@ -700,26 +695,25 @@ def _gather(values: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> list[list[int
     return [flat[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
 
 
-def _merge(kind, trig, length, max_gap, positions, zone=None):
+def _merge(kind, trig, length, max_gap, positions, in_zone=None):
     """Group sorted triggers (compressed positions) into a :class:`_Found`.
 
     A new group starts where the gap to the previous trigger exceeds ``max_gap``. Each
-    occurrence covers ``[t-length+1, t]``; for zone rules ``zone`` (the in-zone mask) restricts a
-    group's points to the in-zone ones. ``positions`` maps compressed to original positions
+    occurrence covers ``[t-length+1, t]``; for zone rules ``in_zone`` (the in-zone positions)
+    restricts a group's points to the in-zone ones. ``positions`` maps compressed to original positions
     (None when nothing is missing).
     """
     if trig.size == 0:
         return None
     if trig.size <= _FEW_TRIGGERS:
-        return _merge_few(kind, trig, length, max_gap, positions, zone)
+        return _merge_few(kind, trig, length, max_gap, positions, in_zone)
     breaks = ((trig[1:] - trig[:-1]) > max_gap).nonzero()[0] + 1
     firsts = np.concatenate(([0], breaks))
     lasts = np.concatenate((breaks - 1, [trig.size - 1]))
     starts = np.maximum(trig[firsts] - (length - 1), 0)
     ends = trig[lasts]
     members = None
-    if zone is not None:
-        in_zone = zone.nonzero()[0]
+    if in_zone is not None:
         lo = np.searchsorted(in_zone, starts, "left")
         hi = np.searchsorted(in_zone, ends, "right")
         members = _gather(in_zone if positions is None else positions[in_zone], lo, hi)
@@ -738,7 +732,7 @@ def _merge(kind, trig, length, max_gap, positions, zone=None):
 _FEW_TRIGGERS = 64
 
 
-def _merge_few(kind, trig, length, max_gap, positions, zone):
+def _merge_few(kind, trig, length, max_gap, positions, in_zone):
     """:func:`_merge` for a few triggers: the same groups, built with Python lists."""
     t = trig.tolist()
     firsts = [0] + [i for i in range(1, len(t)) if t[i] - t[i - 1] > max_gap]
@@ -746,8 +740,7 @@ def _merge_few(kind, trig, length, max_gap, positions, zone):
     starts = [max(t[f] - (length - 1), 0) for f in firsts]
     ends = [t[g] for g in lasts]
     members = None
-    if zone is not None:
-        in_zone = zone.nonzero()[0]
+    if in_zone is not None:
         lo = in_zone.searchsorted(starts, "left").tolist()
         hi = in_zone.searchsorted(ends, "right").tolist()
         source = in_zone if positions is None else positions[in_zone]
@@ -842,8 +835,9 @@ def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
             ("above", sides.above(p["sigmas"])),
             ("below", sides.below(p["sigmas"])),
         ):
-            trig = (zone & (_count_in_window(zone, m) >= k)).nonzero()[0]
-            found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
+            in_zone = zone.nonzero()[0]
+            trig = _k_of_m(in_zone, k, m)
+            found.append(_merge(kind, trig, m, m - 1, positions, in_zone=in_zone))
     elif rid == "hugging":
         # within sigmas of the centre: neither above nor below (x >= lo is not x < lo: no NaN)
         inside = ~(sides.above(p["sigmas"]) | sides.below(p["sigmas"]))
