@@ -687,7 +687,8 @@ def test_matches_reference_named_sets(x, center):
 
 @pytest.mark.parametrize("few", [0, 10**9])
 def test_both_grouping_routes_match_reference(few):
-    """Triggers are grouped in Python up to ``_FEW_TRIGGERS`` and with numpy above it: forced
+    """Triggers are grouped in Python up to ``_FEW_TRIGGERS`` and with numpy above it, and k of
+    m is searched on charts up to ``_SHORT_CHART`` points and summed on longer ones: forced
     down each route, every rule set still matches the plain-Python reference (long runs,
     clusters near a limit and missing points included, so groups of many triggers occur)."""
     from unittest import mock
@@ -700,7 +701,10 @@ def test_both_grouping_routes_match_reference(few):
     for x in (walk, zigzag, np.where(rng.random(160) < 0.05, np.nan, walk)):
         pts = [float(v) for v in x]
         merged = 0
-        with mock.patch.object(rules_module, "_FEW_TRIGGERS", few):
+        with (
+            mock.patch.object(rules_module, "_FEW_TRIGGERS", few),
+            mock.patch.object(rules_module, "_SHORT_CHART", few),
+        ):
             for spec in ("nelson", "western_electric", "run=2,zone_b=1/2,trend=3,hugging=2"):
                 got = _summary(evaluate(pts, center=0.0, sigma=1.0, rules=spec))
                 assert got == reference_evaluate(pts, center=0.0, sigma=1.0, rules=spec)
