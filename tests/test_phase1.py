@@ -102,6 +102,24 @@ def test_bissell_subgroups_phase1_keeps_trial_kind():
     assert res.stopped == "stable"
 
 
+def test_final_and_trial_charts_carry_the_display_rules_signals():
+    """Rounds in between are charted without the display rules; the trial and the final chart
+    carry the signals ``control_chart`` gives them (NIST wafer defects, 6.3.3.1: two rounds
+    of removal, see test_nist_c_chart_revision; Bissell's subgroups, one chart)."""
+    res = phase1(NIST_WAFER_DEFECTS, kind="c")
+    assert res.iterations == 2
+    labels = list(range(1, 26))
+    kept = [i for i, lab in enumerate(labels) if lab not in (24, 3)]
+    final = charts.control_chart(
+        [NIST_WAFER_DEFECTS[i] for i in kept], [labels[i] for i in kept], kind="c"
+    )
+    trial = charts.control_chart(NIST_WAFER_DEFECTS, labels, kind="c")
+    assert [s.to_dict() for s in res.chart.signals] == [s.to_dict() for s in final.signals]
+    assert [s.to_dict() for s in res.trial_chart.signals] == [s.to_dict() for s in trial.signals]
+    assert trial.signals  # wafer 24 beyond the trial limits (NIST 6.3.3.1)
+    assert res.chance == {}  # attribute charts: no removal limits (studykit.stats.chance)
+
+
 def test_errors():
     with pytest.raises(StudyInputError, match=r"`exclude` names subgroup 99"):
         phase1(NIST_WAFER_DEFECTS, kind="c", exclude={99: "x"})
@@ -125,7 +143,8 @@ def test_removal_properties(seed, n_sub, size, n_out):
     1. stable => no kept subgroup is beyond the final removal limits on either chart (the
        3-sigma limits up to 25 points, wider on a longer chart: ``res.chance``);
     2. every automatic removal was beyond the limits of the round it was removed in;
-    3. removed and kept labels partition the data; rounds <= cap.
+    3. removed and kept labels partition the data; rounds <= cap;
+    4. the final chart equals the chart of the kept values (its display signals too).
     """
     rng = np.random.default_rng(seed)
     x = rng.normal(0, 1, n_sub * size)
@@ -161,3 +180,8 @@ def test_removal_properties(seed, n_sub, size, n_out):
             assert beyond, (rnd, r)
             assert r.rule == "beyond_limits" and r.who == "auto"
             assert math.isclose(res.removed_share, 1 - res.n_values_kept / res.n_values_total)
+    # 4. the final chart is the chart of the kept values, display signals included
+    kept = ~np.isin(sub, [r.label for r in res.removals])
+    final = charts.control_chart(x[kept], sub[kept], kind=res.chart.kind, rules="limits_only")
+    assert [g.to_dict() for g in res.chart.signals] == [g.to_dict() for g in final.signals]
+    assert res.chart.location.points.tolist() == final.location.points.tolist()

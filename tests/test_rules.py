@@ -685,6 +685,33 @@ def test_matches_reference_named_sets(x, center):
         assert got == reference_evaluate(x, center=center, sigma=1.0, rules=spec)
 
 
+@pytest.mark.parametrize("few", [0, 10**9])
+def test_both_grouping_routes_match_reference(few):
+    """Triggers are grouped in Python up to ``_FEW_TRIGGERS`` and with numpy above it, and k of
+    m is searched on charts up to ``_SHORT_CHART`` points and summed on longer ones: forced
+    down each route, every rule set still matches the plain-Python reference (long runs,
+    clusters near a limit and missing points included, so groups of many triggers occur)."""
+    from unittest import mock
+
+    from studykit.stats import rules as rules_module
+
+    rng = np.random.default_rng(7)  # invented data: the routes are compared on it
+    walk = np.concatenate([rng.normal(0, 1, 60), rng.normal(1.5, 0.5, 40), rng.normal(0, 1, 60)])
+    zigzag = np.tile([-1.2, 1.3], 40)
+    for x in (walk, zigzag, np.where(rng.random(160) < 0.05, np.nan, walk)):
+        pts = [float(v) for v in x]
+        merged = 0
+        with (
+            mock.patch.object(rules_module, "_FEW_TRIGGERS", few),
+            mock.patch.object(rules_module, "_SHORT_CHART", few),
+        ):
+            for spec in ("nelson", "western_electric", "run=2,zone_b=1/2,trend=3,hugging=2"):
+                got = _summary(evaluate(pts, center=0.0, sigma=1.0, rules=spec))
+                assert got == reference_evaluate(pts, center=0.0, sigma=1.0, rules=spec)
+                merged += sum(len(sig[2]) > 1 for sig in got)
+        assert merged > 0  # each series makes groups of several triggers
+
+
 # ---------------------------------------------------------------------------------------------
 # invariances
 

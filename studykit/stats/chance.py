@@ -216,13 +216,12 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         series.name, uniq, inv, lcl, ucl, m, reference, adjusted
     )
     if k == 1:  # one number for every point (read-only views)
-        lo_lim = np.broadcast_to(lo_v[0], pts.shape)
-        hi_lim = np.broadcast_to(hi_v[0], pts.shape)
+        lo_lim, hi_lim = _one_number_rows(lo_v[0], hi_v[0], pts.shape[0])
         expected = float(p0_v[0]) * m
     else:
         lo_lim, hi_lim = lo_v[inv], hi_v[inv]
         expected = float(used(p0_v[inv]).sum())
-    p0_mean = float(np.mean(p0s)) if p0s else 0.0
+    p0_mean = _mean(p0s)
     fap = -math.expm1(reference * math.log1p(-p0_mean)) if p0_mean < 1 else 1.0
     p_value = float(special.pdtrc(seen - 1, expected)) if seen > 0 else 1.0
     beyond = int(np.count_nonzero((used(pts) > used(hi_lim)) | (used(pts) < used(lo_lim))))
@@ -231,13 +230,28 @@ def series_chance(series, sizes=None, *, reference: int = REFERENCE_POINTS) -> S
         adjusted,
         lo_lim,
         hi_lim,
-        float(np.mean(alphas)) if alphas else 0.0,
+        _mean(alphas),
         fap,
         seen,
         expected,
         p_value,
         beyond,
     )
+
+
+def _mean(values: list[float]) -> float:
+    """np.mean of a short list (0 when empty; the one value itself when there is one)."""
+    if len(values) == 1:
+        return float(values[0])
+    return float(np.mean(values)) if values else 0.0
+
+
+def _one_number_rows(low: float, high: float, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Two read-only views of length n, each one number (stride 0): the removal limits."""
+    vec = np.array([low, high], dtype=float)
+    view = np.ndarray((2, n), dtype=float, buffer=vec, strides=(vec.itemsize, 0))
+    view.flags.writeable = False
+    return view[0], view[1]
 
 
 def _distinct_points(series, sizes, n_points: int) -> tuple:
@@ -251,7 +265,9 @@ def _distinct_points(series, sizes, n_points: int) -> tuple:
         if one_size
         else np.asarray(sizes, dtype=np.int64)
     )
-    if np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0]):
+    if (one_size and _constant(center) and _constant(sigma)) or (
+        np.all(n_arr == n_arr[0]) and np.all(center == center[0]) and np.all(sigma == sigma[0])
+    ):
         return [(float(n_arr[0]), float(center[0]), float(sigma[0]))], np.zeros(
             n_points, dtype=np.int64
         )
@@ -260,6 +276,11 @@ def _distinct_points(series, sizes, n_points: int) -> tuple:
     key = np.stack([n_arr.astype(float), center, sigma], axis=1)
     uniq, inv = np.unique(key, axis=0, return_inverse=True)
     return uniq, inv.ravel()
+
+
+def _constant(a: np.ndarray) -> bool:
+    """True for a read-only view of one number (a chart line of stride 0: no test needed)."""
+    return a.ndim == 1 and a.shape[0] > 0 and a.strides == (0,)
 
 
 def _limits_per_kind(name, uniq, inv, lcl, ucl, m: int, reference: int, adjusted: bool):

@@ -32,6 +32,7 @@ Choices (each stated once here and in the result's ``reason`` / ``sigma_method``
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import math
 import sys
@@ -420,6 +421,37 @@ def signal_counts(chart: ControlChart) -> dict:
     return {"signals_total": total, "signals_listed": listed, "signals_by_rule": by_rule}
 
 
+def with_signals(chart: ControlChart, rules, dispersion_rules) -> ControlChart:
+    """``chart`` (built with ``evaluate=False``) with the run-rule signals of its series, the
+    same that :func:`control_chart` with ``evaluate=True`` gives when its subgroups are given
+    (phase I evaluates its display rules on the trial and the final chart only).
+
+    >>> x = [10.0, 10.2, 9.9, 10.1, 14.0, 10.0, 9.8, 10.1, 10.2, 9.9, 10.0, 10.1]
+    >>> bare = control_chart(x, list(range(12)), evaluate=False)
+    >>> full = control_chart(x, list(range(12)))
+    >>> got = with_signals(bare, "nelson", DISPERSION_RULES)
+    >>> got.signals == full.signals and bare.signals == ()
+    True
+    """
+    disp = chart.dispersion
+    return dataclasses.replace(
+        chart,
+        location=_series_with_signals(chart.location, rules, chart.labels),
+        dispersion=None
+        if disp is None
+        else _series_with_signals(disp, dispersion_rules, chart.labels),
+    )
+
+
+def _series_with_signals(series: ChartSeries, rules, labels) -> ChartSeries:
+    """``series`` with the signals of ``rules`` (none on a chart that is its centre line)."""
+    if not np.any(np.asarray(series.sigma) > 0):
+        return series  # an attribute chart with no (or only) nonconforming items
+    levels = {key: getattr(series, key) for key in ("center", "sigma", "lcl", "ucl")}
+    signals = evaluate_series(series.points, rules=rules, labels=labels, **levels)
+    return dataclasses.replace(series, signals=signals)
+
+
 def plain_label(v):
     """A subgroup label as a plain Python value (numpy scalars unwrapped) for JSON and text."""
     if isinstance(v, np.generic):
@@ -454,20 +486,33 @@ def _series(
     labels=None,
 ):
     n = points.shape[0]
-    center = _per_point(center, n)
-    sigma = _per_point(sigma, n)
-    constant = center.strides == (0,) and sigma.strides == (0,)
+    if lcl is not None:
+        lcl = _per_point(lcl, n)
+    if ucl is not None:
+        ucl = _per_point(ucl, n)
+    if _one_value(center) and _one_value(sigma):
+        # one number per line: read-only rows of one (8, n) view (no memory per point; one
+        # view instead of eight broadcasts, which cost more than the arithmetic on 125 points)
+        rows = _constant_lines(center, sigma, n, floor_zero)
+        center, sigma = rows[0], rows[1]
+        if lcl is None:
+            lcl = rows[2]
+        if ucl is None:
+            ucl = rows[3]
+        warn_lo, warn_hi, zone_lo, zone_hi = rows[4], rows[5], rows[6], rows[7]
+    else:
+        center = _per_point(center, n)
+        sigma = _per_point(sigma, n)
 
-    def line(k):
-        if constant:  # one number for every point (a read-only view: no memory per point)
-            v = np.asarray(center[:1] + k * sigma[:1])
-            v = np.maximum(v, 0.0) if floor_zero else v
-            return np.broadcast_to(v.reshape(()), (n,))
-        v = center + k * sigma
-        return np.maximum(v, 0.0) if floor_zero else v
+        def line(k):
+            v = center + k * sigma
+            return np.maximum(v, 0.0) if floor_zero else v
 
-    lcl = line(-3.0) if lcl is None else _per_point(lcl, n)
-    ucl = line(3.0) if ucl is None else _per_point(ucl, n)
+        if lcl is None:
+            lcl = line(-3.0)
+        if ucl is None:
+            ucl = line(3.0)
+        warn_lo, warn_hi, zone_lo, zone_hi = line(-2.0), line(2.0), line(-1.0), line(1.0)
     signals = ()
     if evaluate:
         signals = evaluate_series(
@@ -480,13 +525,45 @@ def _series(
         lcl=lcl,
         ucl=ucl,
         sigma=sigma,
-        lower_warning=line(-2.0),
-        upper_warning=line(2.0),
-        lower_zone=line(-1.0),
-        upper_zone=line(1.0),
+        lower_warning=warn_lo,
+        upper_warning=warn_hi,
+        lower_zone=zone_lo,
+        upper_zone=zone_hi,
         rules=_rules_text(rules),
         signals=signals,
     )
+
+
+#: Multiples of sigma of the lines after centre and sigma: LCL, UCL, warning and zone lines.
+_LINE_STEPS = (-3.0, 3.0, -2.0, 2.0, -1.0, 1.0)
+
+
+def _one_value(a) -> bool:
+    """True when ``a`` is one number (a Python or numpy number, or an array of one element)."""
+    if isinstance(a, float | int | np.floating | np.integer):
+        return True
+    return np.asarray(a).size == 1
+
+
+def _first(a) -> float:
+    """The one number ``a`` holds, as a Python float."""
+    if type(a) is float:
+        return a
+    return float(np.asarray(a, dtype=float).reshape(-1)[0])
+
+
+def _constant_lines(center, sigma, n: int, floor_zero: bool) -> np.ndarray:
+    """Centre, sigma, LCL, UCL, warning and zone lines of a constant series: a read-only
+    (8, n) view of 8 numbers whose rows have stride 0 (each line ``center + k * sigma``,
+    floored at zero where the statistic cannot be negative)."""
+    c, s = _first(center), _first(sigma)
+    # Python floats: the same IEEE operations as c + k * s on float64 arrays
+    vec = np.array([c, s] + [c + k * s for k in _LINE_STEPS])
+    if floor_zero:
+        np.maximum(vec[2:], 0.0, out=vec[2:])
+    view = np.ndarray((8, n), dtype=float, buffer=vec, strides=(vec.itemsize, 0))
+    view.flags.writeable = False
+    return view
 
 
 def _per_point(a, n: int) -> np.ndarray:
@@ -495,6 +572,8 @@ def _per_point(a, n: int) -> np.ndarray:
     arr = np.asarray(a, dtype=float)
     if arr.ndim == 0 or arr.size == 1:
         return np.broadcast_to(arr.reshape(()), (n,))
+    if arr.shape == (n,):
+        return arr.copy()
     return np.broadcast_to(arr, (n,)).copy()
 
 
@@ -729,7 +808,7 @@ def _auto_kind(sizes):
 
 def _within_sigma(method, x, sizes, ranges, sds):
     if method == "mrbar":
-        mr = np.abs(np.diff(x))
+        mr = np.abs(x[1:] - x[:-1])  # np.diff(x), without its wrapper
         return float(mr.mean()) / d2(2)
     equal = bool(np.all(sizes == sizes[0]))
     if method == "rbar":
@@ -981,9 +1060,11 @@ def _size_notes(kind: str, sizes_arr: np.ndarray, mu, sigma) -> list[str]:
 def _imr_series(x, grand, within, method, draw, rules, dispersion_rules) -> tuple:
     """The individuals and moving-range series."""
     loc = draw("individual", x, grand, within, floor_zero=False, rules=rules)
-    mr = np.concatenate(([np.nan], np.abs(np.diff(x))))
+    mr = np.concatenate(([0.0], np.abs(x[1:] - x[:-1])))
+    total = mr.sum()  # what np.nanmean sums (the undefined first range as 0), without its copies
+    mr[0] = np.nan
     if method == "mrbar":
-        mr_center = float(np.nanmean(mr))  # exactly MR-bar
+        mr_center = float(total / (mr.shape[0] - 1))  # exactly MR-bar, as np.nanmean gives it
     else:
         mr_center = d2(2) * within
     mr_sigma = d3(2) * mr_center / d2(2)

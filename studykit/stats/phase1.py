@@ -54,9 +54,10 @@ from studykit.stats.charts import (
     control_chart,
     evaluate_series,
     plain_label,
+    with_signals,
 )
 from studykit.stats.result import Result
-from studykit.stats.rules import collector_paused
+from studykit.stats.rules import collector_paused, parse_rules
 
 __all__ = [
     "Removal",
@@ -307,6 +308,10 @@ def _flagged(
     found: dict[int, list] = {}
     if not np.any(np.asarray(series.sigma) > 0):
         return found  # a chart that is its centre line (no defective at all): nothing signals
+    if chance is not None and chance.beyond_removal == 0 and _limits_rules_only(rules):
+        # the rules only look for points beyond the removal limits, and series_chance has
+        # counted none (the same strict comparisons): no signal to build
+        return found
     lcl, ucl = series.lcl, series.ucl
     if chance is not None and chance.adjusted:
         lcl, ucl = chance.lower, chance.upper
@@ -323,6 +328,12 @@ def _flagged(
         for t in s.triggers:
             found.setdefault(int(t), []).append(s)
     return found
+
+
+def _limits_rules_only(rules) -> bool:
+    """True when every rule switched on is ``beyond_limits`` (the default removal rules): with
+    the limits given, such rules flag exactly the points beyond them."""
+    return all(r.id == "beyond_limits" for r in parse_rules(rules) if r.enabled)
 
 
 def _chances(chart: ControlChart, attribute: bool) -> tuple:
@@ -422,9 +433,15 @@ def phase1(
     removed, removals = _manual_exclusions(exclude, excluded_by, data)
     scales: list = []
 
-    def build(kind_now):
+    def build(kind_now, evaluate=True):
         return _kept_chart(
-            data, removed, kind_now, rescale, scales, rules, dispersion_rules, chart_options
+            data,
+            removed,
+            kind_now,
+            rescale,
+            scales,
+            (rules, dispersion_rules, evaluate),
+            chart_options,
         )
 
     chart = build(kind)
@@ -456,8 +473,14 @@ def phase1(
         del flags
         chances_of = None
         chart = None  # the next round's chart replaces this one (one chart in memory)
-        chart = build(kind_fixed)
+        # the display rules only on the chart that is kept (see below): a round's chart that
+        # is replaced needs the removal rules alone
+        chart = build(kind_fixed, evaluate=False)
 
+    # the removal limits and chance counts of the last round's chart (before the copies below)
+    chance = _final_chances(chart, attribute, chances_of)
+    if chart is not trial:  # the final chart of a loop that removed something
+        chart = with_signals(chart, rules, dispersion_rules)
     if chart.reason != trial.reason and kind == "auto":
         # rebuilt with the kind fixed in round 1: keep the reason the automatic choice gave
         chart = dataclasses.replace(chart, reason=trial.reason)
@@ -492,7 +515,7 @@ def phase1(
         n_removed_auto=int(n_auto),
         raw_chart=raw_chart,
         mr_removal=mr_removal,
-        chance=_final_chances(chart, attribute, chances_of),
+        chance=chance,
         kept_mask=kept_mask,
     )
 
@@ -585,10 +608,12 @@ def _manual_exclusions(exclude, excluded_by, data: _Data) -> tuple[np.ndarray, l
 
 
 def _kept_chart(
-    data: _Data, removed, kind_now, rescale, scales: list, rules, dispersion_rules, chart_options
+    data: _Data, removed, kind_now, rescale, scales: list, rule_specs: tuple, chart_options
 ) -> ControlChart:
     """The chart of the subgroups not removed, on the ``rescale`` scale (appended to
-    ``scales``) when one is given."""
+    ``scales``) when one is given; ``rule_specs`` is (rules, dispersion rules, whether the
+    display rules are evaluated)."""
+    rules, dispersion_rules, evaluate = rule_specs
     mask = ~removed[data.groups.codes]
     if not mask.any():
         raise AnalysisError("every subgroup has been excluded; nothing is left to chart.")
@@ -609,6 +634,7 @@ def _kept_chart(
         sizes=None if data.size_arr is None else data.size_arr[mask],
         rules=rules,
         dispersion_rules=dispersion_rules,
+        evaluate=evaluate,
         **{**chart_options, **extra},
     )
 

@@ -90,7 +90,8 @@ Notes
 -----
 "``length`` points in a row" is found for all points at once by window doubling: boolean
 windows of 1, 2, 4, ... points are ANDed from shifted copies, and two overlapping power-of-two
-windows cover any length. k-of-m counts are shifted sums (cumulative sums for long windows).
+windows cover any length. k-of-m counts are a sorted search over the in-zone points (short
+charts) or shifted sums (cumulative sums for long windows).
 Every rule is O(n log length) numpy work on booleans; only the (few) signals are built in Python.
 
 References
@@ -104,6 +105,7 @@ Montgomery, D. C. and Runger, G. C. Applied Statistics and Probability for Engin
 
 from __future__ import annotations
 
+import functools
 import gc
 import math
 from collections.abc import Iterable, Mapping, Sequence
@@ -563,7 +565,7 @@ def parse_rules(spec) -> tuple[Rule, ...]:
     if isinstance(spec, Rule):
         return (spec,)
     if isinstance(spec, str):
-        return _parse_text(spec)
+        return _parse_text(spec)  # cached: a chart parses the same few texts again and again
     if isinstance(spec, Iterable):
         rules: list[Rule] = []
         for item in spec:
@@ -582,7 +584,10 @@ def parse_rules(spec) -> tuple[Rule, ...]:
     )
 
 
+@functools.lru_cache(maxsize=256)
 def _parse_text(spec: str) -> tuple[Rule, ...]:
+    """The rules of one text (cached by the text: rules are frozen, so the same tuple can be
+    handed out again; an invalid text raises every time, as errors are not cached)."""
     text = "".join(spec.lower().split()).replace(":", ",").replace(";", ",")
     tokens = [t for t in text.split(",") if t]
     if not tokens:
@@ -629,7 +634,8 @@ def _parse_text(spec: str) -> tuple[Rule, ...]:
 
 
 # ---------------------------------------------------------------------------------------------
-# vectorised detection (all on the compressed sequence of non-missing points)
+# vectorised detection (all on the compressed sequence of non-missing points; 1-D masks give
+# their positions by ``mask.nonzero()[0]``, np.flatnonzero without its ravel and wrapper)
 
 
 def _all_in_window(mask: np.ndarray, width: int) -> np.ndarray:
@@ -661,6 +667,24 @@ def _count_in_window(mask: np.ndarray, width: int) -> np.ndarray:
     count = csum.copy()
     count[width:] -= csum[:-width]
     return count
+
+
+#: Up to this many points, k of m is found by a search over the in-zone points; on a longer
+#: chart by shifted sums over the whole mask (measured: the search is faster below about 2,000
+#: points, the sums above).
+_SHORT_CHART = 1024
+
+
+def _zone_triggers(zone: np.ndarray, count: int, window: int):
+    """The points in the zone with at least ``count`` in-zone points among the ``window``
+    points ending there (fewer at the start of the chart), and the sorted in-zone positions
+    (None when nothing triggers on a long chart: not needed)."""
+    if zone.size <= _SHORT_CHART:
+        in_zone = zone.nonzero()[0]
+        first = in_zone.searchsorted(in_zone - (window - 1), "left")
+        return in_zone[np.arange(in_zone.size) - first + 1 >= count], in_zone
+    trig = (zone & (_count_in_window(zone, window) >= count)).nonzero()[0]
+    return trig, (zone.nonzero()[0] if trig.size else None)
 
 
 class _Found:
@@ -695,24 +719,25 @@ def _gather(values: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> list[list[int
     return [flat[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
 
 
-def _merge(kind, trig, length, max_gap, positions, zone=None):
+def _merge(kind, trig, length, max_gap, positions, in_zone=None):
     """Group sorted triggers (compressed positions) into a :class:`_Found`.
 
     A new group starts where the gap to the previous trigger exceeds ``max_gap``. Each
-    occurrence covers ``[t-length+1, t]``; for zone rules ``zone`` (the in-zone mask) restricts a
-    group's points to the in-zone ones. ``positions`` maps compressed to original positions
+    occurrence covers ``[t-length+1, t]``; for zone rules ``in_zone`` (the in-zone positions)
+    restricts a group's points to the in-zone ones. ``positions`` maps compressed to original positions
     (None when nothing is missing).
     """
     if trig.size == 0:
         return None
-    breaks = np.flatnonzero(np.diff(trig) > max_gap) + 1
+    if trig.size <= _FEW_TRIGGERS:
+        return _merge_few(kind, trig, length, max_gap, positions, in_zone)
+    breaks = ((trig[1:] - trig[:-1]) > max_gap).nonzero()[0] + 1
     firsts = np.concatenate(([0], breaks))
     lasts = np.concatenate((breaks - 1, [trig.size - 1]))
     starts = np.maximum(trig[firsts] - (length - 1), 0)
     ends = trig[lasts]
     members = None
-    if zone is not None:
-        in_zone = np.flatnonzero(zone)
+    if in_zone is not None:
         lo = np.searchsorted(in_zone, starts, "left")
         hi = np.searchsorted(in_zone, ends, "right")
         members = _gather(in_zone if positions is None else positions[in_zone], lo, hi)
@@ -726,6 +751,33 @@ def _merge(kind, trig, length, max_gap, positions, zone=None):
     return _Found(kind, starts.tolist(), ends.tolist(), triggers, members)
 
 
+#: Up to this many triggers, :func:`_merge` groups them in Python (a short chart's few signals:
+#: some twenty numpy calls cost more than the loop); more go through the numpy route.
+_FEW_TRIGGERS = 64
+
+
+def _merge_few(kind, trig, length, max_gap, positions, in_zone):
+    """:func:`_merge` for a few triggers: the same groups, built with Python lists."""
+    t = trig.tolist()
+    firsts = [0] + [i for i in range(1, len(t)) if t[i] - t[i - 1] > max_gap]
+    lasts = [f - 1 for f in firsts[1:]] + [len(t) - 1]
+    starts = [max(t[f] - (length - 1), 0) for f in firsts]
+    ends = [t[g] for g in lasts]
+    members = None
+    if in_zone is not None:
+        lo = in_zone.searchsorted(starts, "left").tolist()
+        hi = in_zone.searchsorted(ends, "right").tolist()
+        source = in_zone if positions is None else positions[in_zone]
+        members = [source[a:b].tolist() for a, b in zip(lo, hi, strict=True)]
+    elif positions is not None:
+        members = [positions[a : b + 1].tolist() for a, b in zip(starts, ends, strict=True)]
+    if positions is not None:
+        t = positions[trig].tolist()
+        starts, ends = positions[starts].tolist(), positions[ends].tolist()
+    triggers = [t[a : b + 1] for a, b in zip(firsts, lasts, strict=True)]
+    return _Found(kind, starts, ends, triggers, members)
+
+
 def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 0):
     """Groups for "``length`` points in a row" rules.
 
@@ -734,53 +786,95 @@ def _in_a_row(kind: str, mask: np.ndarray, length: int, positions, extra: int = 
     ``j`` complete a pattern at point ``j + extra``. Triggers on consecutive points merge.
     """
     width = length - extra
-    trig = np.flatnonzero(_all_in_window(mask, width)) + (width - 1 + extra)
+    trig = _all_in_window(mask, width).nonzero()[0] + (width - 1 + extra)
     return _merge(kind, trig, length, 1, positions)
 
 
-def _detect(rule: Rule, x, c, s, lcl, ucl, positions) -> list[_Found]:
-    """All groups found by one rule (``x`` etc. hold the non-missing points only; ``positions``
-    maps them to the caller's positions, None when nothing is missing)."""
+class _Sides:
+    """The comparisons of one series with its zone lines, made once per :func:`evaluate` call
+    and shared by the rules (zone_b, hugging and mixture all compare with centre +- 1 sigma;
+    trend and alternation take the same differences)."""
+
+    __slots__ = ("x", "c", "s", "_made")
+
+    def __init__(self, x, c, s):
+        self.x, self.c, self.s = x, c, s
+        self._made: dict = {}
+
+    def above(self, k: float | None) -> np.ndarray:
+        """``x > c + k * s`` (``k`` None: ``x > c``)."""
+        key = ("above", k)
+        got = self._made.get(key)
+        if got is None:
+            got = self.x > (self.c if k is None else self.c + k * self.s)
+            self._made[key] = got
+        return got
+
+    def below(self, k: float | None) -> np.ndarray:
+        """``x < c - k * s`` (``k`` None: ``x < c``)."""
+        key = ("below", k)
+        got = self._made.get(key)
+        if got is None:
+            got = self.x < (self.c if k is None else self.c - k * self.s)
+            self._made[key] = got
+        return got
+
+    def diff(self) -> np.ndarray:
+        """Differences of neighbouring points."""
+        got = self._made.get("diff")
+        if got is None:
+            got = self.x[1:] - self.x[:-1]  # what np.diff computes, without its wrapper
+            self._made["diff"] = got
+        return got
+
+
+def _detect(rule: Rule, sides: _Sides, lcl, ucl, positions) -> list[_Found]:
+    """All groups found by one rule (``sides`` holds the non-missing points only;
+    ``positions`` maps them to the caller's positions, None when nothing is missing)."""
     rid, p = rule.id, rule.params
+    x, c, s = sides.x, sides.c, sides.s
     found = []
     if rid == "beyond_limits":
         upper = c + p["sigmas"] * s if ucl is None else ucl
         lower = c - p["sigmas"] * s if lcl is None else lcl
         for kind, mask in (("above", x > upper), ("below", x < lower)):
-            at = np.flatnonzero(mask)
+            at = mask.nonzero()[0]
             t = (at if positions is None else positions[at]).tolist()
             if t:
                 found.append(_Found(kind, t, t, [[i] for i in t]))
     elif rid == "run":
-        for kind, mask in (("above", x > c), ("below", x < c)):
+        for kind, mask in (("above", sides.above(None)), ("below", sides.below(None))):
             found.append(_in_a_row(kind, mask, int(p["length"]), positions))
     elif rid == "trend":
-        d = np.diff(x)
+        d = sides.diff()
         for kind, mask in (("up", d > 0), ("down", d < 0)):
             found.append(_in_a_row(kind, mask, int(p["length"]), positions, extra=1))
     elif rid == "alternation":
-        sign = np.sign(np.diff(x))
+        sign = np.sign(sides.diff())
         flips = sign[1:] * sign[:-1] < 0
         found.append(_in_a_row("alternating", flips, int(p["length"]), positions, extra=2))
     elif rid in ("zone_a", "zone_b"):
         k, m = int(p["count"]), int(p["window"])
-        for kind, zone in (("above", x > c + p["sigmas"] * s), ("below", x < c - p["sigmas"] * s)):
-            trig = np.flatnonzero(zone & (_count_in_window(zone, m) >= k))
-            found.append(_merge(kind, trig, m, m - 1, positions, zone=zone))
+        for kind, zone in (
+            ("above", sides.above(p["sigmas"])),
+            ("below", sides.below(p["sigmas"])),
+        ):
+            trig, in_zone = _zone_triggers(zone, k, m)
+            found.append(_merge(kind, trig, m, m - 1, positions, in_zone=in_zone))
     elif rid == "hugging":
-        inside = (x >= c - p["sigmas"] * s) & (x <= c + p["sigmas"] * s)
+        # within sigmas of the centre: neither above nor below (x >= lo is not x < lo: no NaN)
+        inside = ~(sides.above(p["sigmas"]) | sides.below(p["sigmas"]))
         found.append(_in_a_row("inside", inside, int(p["length"]), positions))
     elif rid == "mixture":
         length = int(p["length"])
-        above = x > c + p["sigmas"] * s
-        below = x < c - p["sigmas"] * s
+        above, below = sides.above(p["sigmas"]), sides.below(p["sigmas"])
         if not p["both_sides"]:
             found.append(_in_a_row("outside", above | below, length, positions))
         else:
             window = _all_in_window(above | below, length)
             window &= ~_all_in_window(above, length)
             window &= ~_all_in_window(below, length)
-            trig = np.flatnonzero(window) + (length - 1)
+            trig = window.nonzero()[0] + (length - 1)
             found.append(_merge("both", trig, length, 1, positions))
     return [f for f in found if f is not None]
 
@@ -852,7 +946,9 @@ def _template(rule: Rule, kind: str, given_limit: bool) -> str:
 # evaluate
 
 
-def _as_points(points) -> np.ndarray:
+def _as_points(points) -> tuple[np.ndarray, np.ndarray | None]:
+    """The points as a float array and the mask of the non-missing ones (None when every
+    point is there)."""
     try:
         x = np.asarray(points, dtype=float)
     except (TypeError, ValueError):
@@ -864,28 +960,34 @@ def _as_points(points) -> np.ndarray:
         raise StudyInputError(
             f"`points` must be one-dimensional (a series in time order); got shape {x.shape}"
         )
+    if np.isfinite(x).all():  # (the usual case: one test instead of two)
+        return x, None
     bad = np.flatnonzero(np.isinf(x))
     if bad.size:
         raise StudyInputError(
             f"`points` has an infinite value ({x[bad[0]]}) at position {bad[0]}; "
             "use NaN for a missing point"
         )
-    return x
+    return x, ~np.isnan(x)
 
 
-def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = False):
-    """Scalar or per-point array, restricted to the kept (non-missing) points."""
+def _as_level(value, name: str, n: int, keep: np.ndarray | None, *, allow_inf: bool = False):
+    """Scalar or per-point array, restricted to the kept (non-missing) points (``keep`` None:
+    every point is kept)."""
+    if type(value) is float and (not math.isnan(value) if allow_inf else math.isfinite(value)):
+        return value  # one valid number (what a chart passes): nothing to convert
     try:
         arr = np.asarray(value, dtype=float)
     except (TypeError, ValueError):
         raise StudyInputError(
             f"`{name}` ({value!r}) must be a number or one number per point"
         ) from None
+    out: float | np.ndarray
     if arr.ndim == 0:
         values = arr.reshape(1)
         out = float(arr)
     elif arr.ndim == 1 and arr.size == n:
-        values = arr[keep]
+        values = arr if keep is None else arr[keep]
         out = values
     else:
         raise StudyInputError(
@@ -895,7 +997,7 @@ def _as_level(value, name: str, n: int, keep: np.ndarray, *, allow_inf: bool = F
         bad = np.isnan(values) if allow_inf else ~np.isfinite(values)
         if bad.any():
             i = int(np.argmax(bad))
-            at = "" if arr.ndim == 0 else f" at position {int(np.flatnonzero(keep)[i])}"
+            at = "" if arr.ndim == 0 else f" at position {_position(keep, i)}"
             what = "a number (use -inf/inf for no limit)" if allow_inf else "finite"
             raise StudyInputError(f"`{name}` ({values[i]}){at} must be {what}")
     return out
@@ -962,30 +1064,29 @@ def evaluate(
     >>> [s.rule for s in evaluate(x, center=0.0, sigma=1.0, rules="western_electric")]
     ['run', 'beyond_limits']
     """
-    x_all = _as_points(points)
+    x_all, keep = _as_points(points)
     n_all = x_all.size
     rule_list = parse_rules(rules)
     if labels is not None and len(labels) != n_all:
         raise StudyInputError(
             f"`labels` has {len(labels)} entries but `points` has {n_all}; give one label per point"
         )
-    keep = ~np.isnan(x_all)
-    all_kept = bool(keep.all())
-    x = x_all if all_kept else x_all[keep]
-    positions = None if all_kept else np.flatnonzero(keep)
+    x = x_all if keep is None else x_all[keep]
+    positions = None if keep is None else keep.nonzero()[0]
     c = _as_level(center, "center", n_all, keep)
     s = _as_level(sigma, "sigma", n_all, keep)
-    if np.any(np.asarray(s) <= 0):
+    if (s <= 0) if type(s) is float else np.any(np.asarray(s) <= 0):
         sv = np.asarray(s).reshape(-1)
         raise StudyInputError(f"`sigma` ({sv[np.argmax(sv <= 0)]}) must be greater than 0")
     low, high = _limits(lcl, ucl, n_all, keep, x)
 
     found = []
+    sides = _Sides(x, c, s)
     with collector_paused():  # 10^5 new signals hold no reference cycles
         for order, rule in enumerate(rule_list):
             if not rule.enabled:
                 continue
-            for group in _detect(rule, x, c, s, low, high, positions):
+            for group in _detect(rule, sides, low, high, positions):
                 given = (high if group.kind == "above" else low) is not None
                 template = _template(rule, group.kind, given)
                 for signal in _group_signals(rule, group, template, labels):
@@ -1013,11 +1114,18 @@ def collector_paused():
             gc.enable()
 
 
+def _position(keep: np.ndarray | None, i: int) -> int:
+    """The caller's position of the ``i``-th kept point."""
+    return i if keep is None else int(np.flatnonzero(keep)[i])
+
+
 def _limits(lcl, ucl, n_all: int, keep, x):
     """The given control limits at the kept points (None when not given); lcl < ucl."""
     low = None if lcl is None else _as_level(lcl, "lcl", n_all, keep, allow_inf=True)
     high = None if ucl is None else _as_level(ucl, "ucl", n_all, keep, allow_inf=True)
-    if low is not None and high is not None and np.any(np.asarray(low) >= np.asarray(high)):
+    if low is None or high is None or (type(low) is float and type(high) is float and low < high):
+        return low, high
+    if np.any(np.asarray(low) >= np.asarray(high)):
         lo_v = np.broadcast_to(low, x.shape) if np.ndim(low) else np.full(max(x.size, 1), low)
         hi_v = np.broadcast_to(high, x.shape) if np.ndim(high) else np.full(max(x.size, 1), high)
         i = int(np.argmax(lo_v >= hi_v))

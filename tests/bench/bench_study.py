@@ -13,7 +13,8 @@ timed on 25 samples and scaled, and printed as a second ratio. Times are CPU tim
 (``time.process_time``). Runs are interleaved (ours, generic, ours...) so machine load hits both
 alike; median and minimum are printed (the minimum is the least disturbed on a shared machine).
 Targets: normal characteristic <= 3 ms (median, idle machine), ratio >= 20x. The load average
-is printed with the figures (the machine is shared).
+is printed with the figures (the machine is shared). ``--profile N`` prints where the time of N
+normal studies goes instead (cProfile).
 """
 
 from __future__ import annotations
@@ -83,6 +84,29 @@ def _once_ms(fn):
     return 1e3 * (time.process_time() - t)
 
 
+def _profile(repeats: int) -> int:
+    """cProfile ``repeats`` studies of the normal case: phase I's share, then the functions
+    with the most time of their own (profiling slows small calls, so read shares, not ms)."""
+    import cProfile
+    import pstats
+
+    _, x, spec = cases()[0]
+    data = CharacteristicData("x", None, x)
+    analyze_characteristic(data, spec)  # warm up
+    prof = cProfile.Profile()
+    prof.enable()
+    for _ in range(repeats):
+        analyze_characteristic(data, spec)
+    prof.disable()
+    st = pstats.Stats(prof)
+    cum = {f"{Path(k[0]).name}:{k[2]}": v[3] for k, v in st.stats.items()}
+    total = cum.get("analysis.py:analyze_characteristic", float("nan"))
+    for name in ("analysis.py:_run_phase1", "charts.py:control_chart", "rules.py:evaluate"):
+        print(f"{name:40s} {cum.get(name, 0.0) / total:6.1%} of the study")
+    st.sort_stats("tottime").print_stats(25)
+    return 0
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=30)
@@ -92,7 +116,17 @@ def main(argv=None) -> int:
         default=25,
         help="scipy bootstrap refits timed (scaled to n_boot)",
     )
+    ap.add_argument(
+        "--profile",
+        type=int,
+        default=0,
+        metavar="N",
+        help="instead of timing: cProfile N studies of the normal case and print where the "
+        "time goes (phase I's share first)",
+    )
     args = ap.parse_args(argv)
+    if args.profile:
+        return _profile(args.profile)
     if set(GENERIC) != set(fit.FAMILIES):
         raise SystemExit("the generic route must list every family of studykit.stats.fit")
     print("Full study of one characteristic, 125 readings, warm runs (ms)")
