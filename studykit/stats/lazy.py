@@ -44,3 +44,43 @@ class LazyModule:
 
 #: ``scipy.stats``, imported on first attribute access.
 scipy_stats: Any = LazyModule("scipy.stats")
+
+
+def scipy_stats_compiled(name: str) -> ModuleType | None:
+    """The compiled module ``scipy.stats.<name>`` loaded from its file alone, without running
+    the ``scipy.stats`` package import (about 0.6 s), or None when it cannot be found or
+    loaded (then call the public ``scipy.stats`` function instead). Only for compiled modules
+    that import nothing of ``scipy.stats`` themselves (``_ansari_swilk_statistics``, the
+    Shapiro-Wilk routine behind ``scipy.stats.shapiro``); loaded once per process.
+    """
+    import sys
+
+    full = f"scipy.stats.{name}"
+    module = sys.modules.get(full) or _COMPILED.get(full)
+    if module is not None:
+        return module
+    try:
+        import importlib.machinery
+        import importlib.util
+        from pathlib import Path
+
+        import scipy
+
+        folder = Path(scipy.__path__[0]) / "stats"
+        for suffix in importlib.machinery.EXTENSION_SUFFIXES:
+            path = folder / f"{name}{suffix}"
+            if path.is_file():
+                loader = importlib.machinery.ExtensionFileLoader(full, str(path))
+                spec = importlib.util.spec_from_file_location(full, path, loader=loader)
+                if spec is None:
+                    return None
+                module = importlib.util.module_from_spec(spec)
+                loader.exec_module(module)
+                _COMPILED[full] = module
+                return module
+    except Exception:  # noqa: BLE001 - any failure: the caller takes the public route
+        return None
+    return None
+
+
+_COMPILED: dict[str, ModuleType] = {}
