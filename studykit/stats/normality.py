@@ -15,8 +15,8 @@ from scipy import special
 
 from studykit.errors import StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import scipy_compiled
 from studykit.stats.lazy import scipy_stats as stats
-from studykit.stats.lazy import scipy_stats_compiled
 from studykit.stats.result import Result
 
 __all__ = [
@@ -211,7 +211,7 @@ def shapiro_wilk(x) -> ShapiroWilkResult:
     0.933652
     """
     arr = _clean(x)
-    swilk = getattr(scipy_stats_compiled("_ansari_swilk_statistics"), "swilk", None)
+    swilk = getattr(scipy_compiled("stats._ansari_swilk_statistics"), "swilk", None)
     if swilk is not None and arr.dtype == np.float64 and arr.ndim == 1 and arr.size >= 3:
         # the steps of scipy.stats.shapiro around its compiled routine (scipy 1.17,
         # _morestats.py), without importing scipy.stats: same statistic and p-value
