@@ -301,9 +301,10 @@ def discordant_pairs(ranks, m: int | None = None) -> int:
         np.subtract(ones, at, out=ones)  # ones: (ones) = (i - ones) + bit * (2 ones - i)
         np.multiply(ones, bit, out=ones)
         np.add(at, ones, out=at)
-        np.take(offset, key, out=key)
-        np.add(key, at, out=key)
-        new[key] = v
+        # (keys are in range: "clip" checks nothing; "raise" would copy through a buffer)
+        np.take(offset, key, out=bit, mode="clip")
+        np.add(bit, at, out=bit)
+        new[bit] = v
         v, new = new, v
     return total
 
