@@ -14,7 +14,9 @@ removes values for no reason and proves nothing about stability.
   :data:`TAU_SORTED` in size (fewer than 5 % of all pairs out of order) and the trend test
   rejects "no trend" at :data:`ALPHA`. Kendall's tau as a test of trend against time order:
   H. B. Mann (1945), "Nonparametric tests against trend", *Econometrica* 13(3), 245-259;
-  M. G. Kendall, *Rank Correlation Methods* (1975); computed with ``scipy.stats.kendalltau``.
+  M. G. Kendall, *Rank Correlation Methods* (1975); computed as ``scipy.stats.kendalltau``
+  computes it, bit for bit (:func:`kendall_tau_position`; the discordant pairs of long series
+  counted by :func:`discordant_pairs`, without importing ``scipy.stats``).
   The threshold 0.9 is ours (common practice, no source): a drifting process that is really in
   time order rarely orders 95 % of its pairs, and if it does, its stability is not shown either;
 * ``life_test``: the characteristic is named as a life or endurance result ("cycles to
