@@ -1398,7 +1398,7 @@ def analyze_characteristic(
         kept_rows,
         withheld,
         band,
-        (values, labels) if not manual.any() else (values[~manual], labels[~manual]),
+        _time_readings(values, labels, groups, manual),
     )
     judged_index = verdict.index
     measurement_error = _gauge_findings(gauge, result_kw, stat_chart, spec, level, choice, findings)
@@ -1419,6 +1419,17 @@ def analyze_characteristic(
         measurement_error=measurement_error,
         tolerance_interval=interval,
     )
+
+
+def _time_readings(values, labels, groups, manual):
+    """The readings and labels the time model reads: every reading but the recorded removals.
+    Individuals (one reading per subgroup) give their positions 0..n-1 as labels: the time
+    model only groups by label, and a string label per reading costs a sort of 10^6 strings."""
+    if not manual.any():
+        if groups.names.size == labels.size:
+            return values, np.arange(labels.size)
+        return values, labels
+    return values[~manual], labels[~manual]
 
 
 def _prepare_values(data, spec, sizes, options, kind, attribute, warn):

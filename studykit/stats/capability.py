@@ -48,12 +48,13 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from studykit import names
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats import bootstrap
 from studykit.stats._checks import NOISE_ULPS, check_number, check_resolution, check_sample
+from studykit.stats.lazy import brentq
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _finite_or_none
 from studykit.stats.verdict import (  # the verdict policy, re-exported so old imports work
@@ -126,7 +127,7 @@ def _df_from_cv2(cv2: float) -> float:
         return (1.0 - m * m) / (m * m) - cv2
 
     # The CV of chi_nu decreases in nu; bracket over nu in [1e-3, 1e9].
-    return float(math.exp(optimize.brentq(gap, math.log(1e-3), math.log(1e9), xtol=1e-12)))
+    return float(math.exp(brentq(gap, math.log(1e-3), math.log(1e9), xtol=1e-12)))
 
 
 def _check_count(value, *, name, low):

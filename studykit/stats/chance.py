@@ -40,9 +40,14 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import integrate, optimize, special
+from scipy import special
 
 from studykit.stats.constants import c4, d2
+from studykit.stats.lazy import LazyModule
+
+# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
+integrate = LazyModule("scipy.integrate")
+optimize = LazyModule("scipy.optimize")
 
 __all__ = ["REFERENCE_POINTS", "SeriesChance", "series_chance"]
 

@@ -19,9 +19,10 @@ from dataclasses import asdict, dataclass
 from functools import cache
 
 import numpy as np
-from scipy import integrate, special
+from scipy import special
 
 from studykit.errors import StudyInputError
+from studykit.stats.lazy import quad_whole_line
 from studykit.stats.result import Result
 
 __all__ = [
@@ -100,7 +101,7 @@ def d2(n: int) -> float:
         p = special.ndtr(x)
         return 1.0 - p**n - (1.0 - p) ** n
 
-    value, _ = integrate.quad(integrand, -np.inf, np.inf, epsabs=1e-12, epsrel=1e-12, limit=200)
+    value, _ = quad_whole_line(integrand, epsabs=1e-12, epsrel=1e-12, limit=200)  # quad(-inf, inf)
     return float(value)
 
 

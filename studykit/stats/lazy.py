@@ -18,7 +18,7 @@ import importlib
 from types import ModuleType
 from typing import Any
 
-__all__ = ["LazyModule", "scipy_stats"]
+__all__ = ["LazyModule", "brentq", "quad_whole_line", "scipy_compiled", "scipy_stats"]
 
 
 class LazyModule:
@@ -44,3 +44,105 @@ class LazyModule:
 
 #: ``scipy.stats``, imported on first attribute access.
 scipy_stats: Any = LazyModule("scipy.stats")
+
+
+def scipy_compiled(name: str) -> ModuleType | None:
+    """The compiled module ``scipy.<name>`` (e.g. ``"stats._ansari_swilk_statistics"``) loaded
+    from its file alone, without running its package's import (``scipy.stats`` costs about
+    0.6 s, ``scipy.integrate`` and ``scipy.optimize`` together about 0.3 s), or None when it
+    cannot be found or loaded (then call the public scipy function instead). Only for compiled
+    modules that import nothing of their package themselves: the Shapiro-Wilk routine behind
+    ``scipy.stats.shapiro``, QUADPACK behind ``scipy.integrate.quad`` and the root finder
+    behind ``scipy.optimize.brentq``; each is loaded once per process.
+
+    >>> scipy_compiled("optimize._zeros") is scipy_compiled("optimize._zeros")
+    True
+    """
+    import sys
+
+    full = f"scipy.{name}"
+    module = sys.modules.get(full) or _COMPILED.get(full)
+    if module is not None:
+        return module
+    try:
+        import importlib.machinery
+        import importlib.util
+        from pathlib import Path
+
+        import scipy
+
+        package, _, leaf = name.rpartition(".")
+        folder = Path(scipy.__path__[0]).joinpath(*package.split("."))
+        for suffix in importlib.machinery.EXTENSION_SUFFIXES:
+            path = folder / f"{leaf}{suffix}"
+            if path.is_file():
+                loader = importlib.machinery.ExtensionFileLoader(full, str(path))
+                spec = importlib.util.spec_from_file_location(full, path, loader=loader)
+                if spec is None:
+                    return None
+                module = importlib.util.module_from_spec(spec)
+                loader.exec_module(module)
+                _COMPILED[full] = module
+                return module
+    except Exception:  # noqa: BLE001 - any failure: the caller takes the public route
+        return None
+    return None
+
+
+_COMPILED: dict[str, ModuleType] = {}
+
+#: scipy.optimize.brentq's smallest relative tolerance (4 machine epsilons), its default.
+_BRENTQ_RTOL = 4 * 2.220446049250313e-16
+
+
+def quad_whole_line(func, *, epsabs: float, epsrel: float, limit: int) -> tuple[float, float]:
+    """``scipy.integrate.quad(func, -inf, inf, epsabs=..., epsrel=..., limit=...)``: the same
+    QUADPACK call (``qagie`` on the whole line, as ``quad`` makes it) without importing
+    ``scipy.integrate``; any failure, warning case or error goes to ``quad`` itself.
+
+    >>> import math
+    >>> value, _ = quad_whole_line(lambda x: math.exp(-x * x), epsabs=1e-12, epsrel=1e-12,
+    ...                            limit=50)
+    >>> round(value ** 2, 12) == round(math.pi, 12)
+    True
+    """
+    quadpack = scipy_compiled("integrate._quadpack")
+    if quadpack is not None:
+        try:
+            value, abserr, ier = quadpack._qagie(func, 0, 2, (), 0, epsabs, epsrel, limit)
+        except Exception:  # noqa: BLE001 - scipy's own call below raises or warns as it does
+            ier = -1
+        if ier == 0:
+            return value, abserr
+    from scipy import integrate
+
+    value, abserr = integrate.quad(
+        func, -float("inf"), float("inf"), epsabs=epsabs, epsrel=epsrel, limit=limit
+    )[:2]
+    return value, abserr
+
+
+def brentq(f, a: float, b: float, *, xtol: float, maxiter: int = 100) -> float:
+    """``scipy.optimize.brentq(f, a, b, xtol=xtol, maxiter=maxiter)`` (default ``rtol``): the
+    same compiled root finder without importing ``scipy.optimize``; any failure (no sign
+    change, a NaN value, ...) goes to ``brentq`` itself, which raises or answers as it does.
+
+    >>> brentq(lambda x: x * x - 2.0, 0.0, 2.0, xtol=1e-12) == 1.4142135623731364
+    True
+    """
+    zeros = scipy_compiled("optimize._zeros")
+    if zeros is not None and xtol > 0:
+
+        def checked(x, *args):
+            fx = f(x, *args)
+            if fx != fx:  # NaN: scipy's wrapper raises; let it do so below
+                raise ValueError("NaN")
+            return fx
+
+        try:
+            return zeros._brentq(checked, a, b, xtol, _BRENTQ_RTOL, maxiter, (), False, True)
+        except Exception:  # noqa: BLE001 - scipy's own call below raises as it does
+            pass
+    from scipy import optimize
+
+    return optimize.brentq(f, a, b, xtol=xtol, maxiter=maxiter)

@@ -15,6 +15,7 @@ from scipy import special
 
 from studykit.errors import StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import scipy_compiled
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 
@@ -210,6 +211,15 @@ def shapiro_wilk(x) -> ShapiroWilkResult:
     0.933652
     """
     arr = _clean(x)
+    swilk = getattr(scipy_compiled("stats._ansari_swilk_statistics"), "swilk", None)
+    if swilk is not None and arr.dtype == np.float64 and arr.ndim == 1 and arr.size >= 3:
+        # the steps of scipy.stats.shapiro around its compiled routine (scipy 1.17,
+        # _morestats.py), without importing scipy.stats: same statistic and p-value
+        y = np.sort(arr)
+        y -= arr[arr.size // 2]  # scipy subtracts this value (a nearby median; gh-15777)
+        w, pw, ifault = swilk(y, np.zeros(arr.size // 2, dtype=np.float64), 0)
+        if ifault in (0, 2):
+            return ShapiroWilkResult(w=float(w), p_value=float(pw), n=arr.size)
     # scipy's function itself: its array-API/NaN wrapper (signature inspection on every call)
     # has nothing to do on a clean 1-D float array; same statistic and p-value
     shapiro = getattr(stats.shapiro, "__wrapped__", stats.shapiro)

@@ -14,7 +14,9 @@ removes values for no reason and proves nothing about stability.
   :data:`TAU_SORTED` in size (fewer than 5 % of all pairs out of order) and the trend test
   rejects "no trend" at :data:`ALPHA`. Kendall's tau as a test of trend against time order:
   H. B. Mann (1945), "Nonparametric tests against trend", *Econometrica* 13(3), 245-259;
-  M. G. Kendall, *Rank Correlation Methods* (1975); computed with ``scipy.stats.kendalltau``.
+  M. G. Kendall, *Rank Correlation Methods* (1975); computed as ``scipy.stats.kendalltau``
+  computes it, bit for bit (:func:`kendall_tau_position`; the discordant pairs of long series
+  counted by :func:`discordant_pairs`, without importing ``scipy.stats``).
   The threshold 0.9 is ours (common practice, no source): a drifting process that is really in
   time order rarely orders 95 % of its pairs, and if it does, its stability is not shown either;
 * ``life_test``: the characteristic is named as a life or endurance result ("cycles to
@@ -225,31 +227,88 @@ def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
 
 #: Up to this many values :func:`kendall_tau_position` counts the discordant pairs by one
 #: comparison of every pair (n^2 / 2 comparisons, faster than the sorting route's fixed cost);
-#: longer series are ranked with one sort and their discordant pairs counted by scipy's
-#: merge-sort counter (O(n log n)), the routine ``scipy.stats.kendalltau`` itself uses.
+#: longer series are ranked with one sort and their discordant pairs counted by
+#: :func:`discordant_pairs` (O(n log n), no scipy.stats import).
 PAIRWISE_MAX_N = 600
 
 
-def _discordant_and_ties(x: np.ndarray):
-    """(discordant pairs between position and value, sizes of the groups of tied values), or
-    None when scipy's counter cannot be imported."""
+def _discordant_and_ties(x: np.ndarray) -> tuple[int, np.ndarray]:
+    """(discordant pairs between position and value, sizes of the groups of tied values)."""
     size = int(x.size)
     if size <= PAIRWISE_MAX_N:
         dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
         cnt = np.unique(x, return_counts=True)[1].astype("int64", copy=False)
         return dis, cnt
-    try:
-        from scipy.stats._stats import _kendall_dis
-    except ImportError:  # pragma: no cover - a scipy without the private counter
-        return None
     perm = np.argsort(x)
     ordered = x[perm]
-    dense = np.r_[True, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
+    dense = np.r_[False, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
     ranks = np.empty(size, dtype=np.intp)
-    ranks[perm] = dense  # dense ranks of the values, in position order
-    dis = int(_kendall_dis(np.arange(1, size + 1, dtype=np.intp), ranks))
+    ranks[perm] = dense  # dense ranks 0, 1, ... of the values, in position order
     cnt = np.bincount(ranks).astype("int64", copy=False)
-    return dis, cnt
+    return discordant_pairs(ranks, int(cnt.size)), cnt
+
+
+def discordant_pairs(ranks, m: int | None = None) -> int:
+    """Number of pairs i < j with ``ranks[i] > ranks[j]`` (tied ranks never count).
+
+    ``ranks`` are dense ranks 0 .. m-1 (every value in between occurs). The count is the one
+    merge-sort counters give (scipy's ``_kendall_dis``, behind ``scipy.stats.kendalltau``), here
+    by a most-significant-bit-first radix pass over the ranks, O(n log m) in numpy: for each bit
+    k from the highest down, the values are kept ordered by (rank >> (k + 1), position); in each
+    such group a pair whose highest differing bit is k is discordant when the element with
+    bit k set comes first, so the level adds, for every element with bit k clear, the number of
+    elements with bit k set before it in its group (running sums over the whole array, with
+    each group's offset taken from the rank counts); then a stable partition on bit k (zeros
+    first) in each group gives the order of the next level. Tied ranks share every bit and are
+    never counted.
+
+    >>> discordant_pairs(np.array([2, 0, 1, 1, 0]))
+    6
+    >>> discordant_pairs(np.array([0, 1, 2]))
+    0
+    """
+    r = np.asarray(ranks).ravel()
+    n = int(r.size)
+    if n < 2:
+        return 0
+    m = int(r.max()) + 1 if m is None else int(m)
+    dt = np.int32 if n < 2**31 - 1 and m < 2**31 - 1 else np.int64
+    v = r.astype(dt)  # (a copy: the order is rebuilt level by level)
+    nbits = max(1, (m - 1).bit_length())
+    below = np.zeros((1 << nbits) + 1, dtype=np.int64)  # below[r]: elements with a rank < r
+    np.cumsum(np.bincount(v, minlength=1 << nbits), out=below[1:])
+    idx = np.arange(n, dtype=dt)
+    new, key, ones, bit, at = (np.empty_like(v) for _ in range(5))
+    total = 0
+    for k in range(nbits - 1, -1, -1):
+        below_k = below[:: 1 << k]  # elements with rank >> k below each key w = 0, 1, ...
+        per_key = np.diff(below_k)
+        c0, c1 = per_key[0::2], per_key[1::2]  # bit k clear / set, per group g = w >> 1
+        ones_before = np.zeros(c1.size, dtype=np.int64)  # ones in the groups before g
+        np.cumsum(c1[:-1], out=ones_before[1:])
+        # new position: a zero at i goes to i - (ones up to i) + ones_before[g]; a one to
+        # (ones before i) + (zeros in the groups up to g) = ones up to i - 1 + offset
+        offset = np.empty(per_key.size, dtype=dt)
+        offset[0::2] = ones_before
+        offset[1::2] = below_k[1:-1:2] - ones_before - 1
+        np.right_shift(v, k, out=key)
+        np.bitwise_and(key, 1, out=bit)
+        np.cumsum(bit, out=ones)  # ones up to and including each element
+        # sum over the zeros of the ones before them in their group: all running sums, less
+        # those of the ones (the j-th one of group g has ones_before[g] + j), less the ones of
+        # earlier groups counted for each zero
+        total += int(ones.sum(dtype=np.int64))
+        total -= int(((c0 + c1) * ones_before + c1 * (c1 + 1) // 2).sum())
+        np.subtract(idx, ones, out=at)  # zeros: i - ones
+        np.subtract(ones, at, out=ones)  # ones: (ones) = (i - ones) + bit * (2 ones - i)
+        np.multiply(ones, bit, out=ones)
+        np.add(at, ones, out=at)
+        # (keys are in range: "clip" checks nothing; "raise" would copy through a buffer)
+        np.take(offset, key, out=bit, mode="clip")
+        np.add(bit, at, out=bit)
+        new[bit] = v
+        v, new = new, v
+    return total
 
 
 def kendall_tau_position(x) -> tuple[float, float]:
@@ -270,9 +329,8 @@ def kendall_tau_position(x) -> tuple[float, float]:
     """
     x = np.asarray(x, dtype=float).ravel()
     size = int(x.size)
-    counted = _discordant_and_ties(x) if size > 2 else None
-    if counted is not None:
-        dis, cnt = counted
+    if size > 2:
+        dis, cnt = _discordant_and_ties(x)
         tot = (size * (size - 1)) // 2
         cnt = cnt[cnt > 1]
         ytie = int((cnt * (cnt - 1) // 2).sum())

@@ -27,13 +27,17 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import integrate, special
+from scipy import special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import LazyModule
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
+
+# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
+integrate = LazyModule("scipy.integrate")
 
 __all__ = ["ELLIPSE_LEVEL", "PositionResult", "prob_outside_circle", "ppm_index", "position_study"]
 

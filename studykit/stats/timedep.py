@@ -174,6 +174,8 @@ class VarianceComponents:
 def _codes(labels):
     """Integer codes of the labels in order of first appearance, and their number."""
     lab = np.asarray(labels)
+    if lab.dtype.kind in "iu" and lab.ndim == 1 and np.array_equal(lab, np.arange(lab.size)):
+        return lab, int(lab.size)  # positions 0..n-1: one value per subgroup
     lab = (lab if lab.dtype.kind == "U" else lab.astype(str)).reshape(-1)  # (no copy of 10^6)
     ordered = np.sort(lab)
     if not np.any(ordered[1:] == ordered[:-1]):  # all distinct (individuals): codes = positions

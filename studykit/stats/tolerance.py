@@ -43,13 +43,17 @@ from dataclasses import dataclass
 from typing import cast
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_number, check_sample
+from studykit.stats.lazy import LazyModule
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
+
+# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
+optimize = LazyModule("scipy.optimize")
 
 __all__ = [
     "TWO_SIDED_METHODS",
@@ -74,9 +78,17 @@ MODELS = ("normal", "lognormal", "boxcox", "distribution_free")
 # Gauss-Legendre nodes for the exact two-sided integral over t = sqrt(n) x in [0, T_MAX]; the
 # weight exp(-t^2/2) is below 1e-21 beyond T_MAX = 10.
 _T_MAX = 10.0
-_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(256)
-_T = 0.5 * _T_MAX * (_GL_NODES + 1.0)
-_W = 0.5 * _T_MAX * _GL_WEIGHTS * np.sqrt(2.0 / np.pi) * np.exp(-0.5 * _T**2)
+
+
+@functools.cache
+def _t_rule() -> tuple[np.ndarray, np.ndarray]:
+    """Nodes t and weights of that rule, made on first use (an eigenvalue problem: not at
+    import, which most runs pay without needing it)."""
+    nodes, weights = np.polynomial.legendre.leggauss(256)
+    t = 0.5 * _T_MAX * (nodes + 1.0)
+    return t, 0.5 * _T_MAX * weights * np.sqrt(2.0 / np.pi) * np.exp(-0.5 * t**2)
+
+
 #: Largest sample size searched by the sample-size functions.
 MAX_PARTS = 100_000
 
@@ -184,8 +196,9 @@ def two_sided_confidence(k: float, n: int, p: float, *, df: float | None = None)
     nu = float(n - 1 if df is None else df)
     if not k > 0:
         raise StudyInputError(f"`k` ({k!r}) must be positive.")
-    r = _half_width(_T / math.sqrt(n), p)
-    return float(np.sum(_W * stats.chi2.sf(nu * r**2 / k**2, nu)))
+    t, w = _t_rule()
+    r = _half_width(t / math.sqrt(n), p)
+    return float(np.sum(w * stats.chi2.sf(nu * r**2 / k**2, nu)))
 
 
 def _factor_args(n, p, c, df) -> tuple[int, float, float, float]:
@@ -264,10 +277,11 @@ def _exact_two_sided(n: int, p: float, c: float, nu: float) -> float:
     lo = float(special.ndtri(0.5 * (1.0 + p)))  # the factor with mu and sigma known
     hi = 2.0 * max(_howe(n, p, c, nu), lo)
     # r(x) does not depend on k: solve it once, then only the chi-square term changes
-    nur2 = nu * _half_width(_T / math.sqrt(n), p) ** 2
+    t, w = _t_rule()
+    nur2 = nu * _half_width(t / math.sqrt(n), p) ** 2
 
     def conf(k: float) -> float:
-        return float(np.sum(_W * special.chdtrc(nu, nur2 / k**2)))
+        return float(np.sum(w * special.chdtrc(nu, nur2 / k**2)))
 
     while conf(hi) < c:
         hi *= 2.0
@@ -425,7 +439,10 @@ def distribution_free_sample_size(
 # ---------------------------------------------------------------------------------------------
 
 
-_GL_CHI_NODES, _GL_CHI_WEIGHTS = np.polynomial.legendre.leggauss(200)
+@functools.cache
+def _chi_rule() -> tuple[np.ndarray, np.ndarray]:
+    """The 200-point Gauss-Legendre rule of the pass probability, made on first use."""
+    return np.polynomial.legendre.leggauss(200)
 
 
 def normal_pass_probability(
@@ -495,8 +512,9 @@ def normal_pass_probability(
     lo_q, hi_q = stats.chi2.ppf(1e-15, nu), min(q_hi, stats.chi2.isf(1e-15, nu))
     if hi_q <= lo_q:
         return 0.0
-    q = 0.5 * (hi_q - lo_q) * (_GL_CHI_NODES + 1.0) + lo_q
-    w = 0.5 * (hi_q - lo_q) * _GL_CHI_WEIGHTS * stats.chi2.pdf(q, nu)
+    chi_nodes, chi_weights = _chi_rule()
+    q = 0.5 * (hi_q - lo_q) * (chi_nodes + 1.0) + lo_q
+    w = 0.5 * (hi_q - lo_q) * chi_weights * stats.chi2.pdf(q, nu)
     s = sd * np.sqrt(q / nu)
     inside = special.ndtr(rn * (usl - k * s - mean) / sd) - special.ndtr(
         rn * (lsl + k * s - mean) / sd

@@ -11,13 +11,17 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from studykit.errors import AnalysisError, StudyInputError
 from studykit.stats._checks import check_sample
+from studykit.stats.lazy import LazyModule
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
+
+# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
+optimize = LazyModule("scipy.optimize")
 
 __all__ = ["BoxCoxResult", "JohnsonResult", "box_cox", "johnson", "NICE_LAMBDAS", "JOHNSON_Z_GRID"]
 
