@@ -382,9 +382,47 @@ def threshold_rows(family, block, shared=None):
     return params, ok, rest
 
 
+#: Most cells (rows x readings) one row-wise solver call of the bootstrap works on: its
+#: half-dozen work arrays then stay in a core's cache (2**15 doubles, 256 kB each; a 1 MB
+#: L2 cache per core is common). The rows are independent (each stops at its own
+#: convergence), so groups give the numbers of one call, bit for bit; a 500 x 8 threshold
+#: grid of 125 readings in groups ran about 3x faster than in one call on a 2-core server.
+CACHE_CELLS = 1 << 15
+
+
 def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
     """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
-    xmin - exp(u)."""
+    xmin - exp(u), in groups of at most :data:`CACHE_CELLS` cells (same numbers as one call)."""
+    group = rows_per_group(block.shape[1], CACHE_CELLS)
+    if rows.size <= group:
+        return _rows_at_once(block, xmin, inner, dtheta, rows, u, start)
+    parts = [
+        _rows_at_once(
+            block,
+            xmin,
+            inner,
+            dtheta,
+            rows[i : i + group],
+            u[i : i + group],
+            None if start is None else tuple(c[i : i + group] for c in start),
+        )
+        for i in range(0, rows.size, group)
+    ]
+    params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
+    states = [q[3] for q in parts]
+    state = (
+        None if states[0] is None else tuple(np.concatenate(c) for c in zip(*states, strict=True))
+    )
+    return (
+        np.concatenate([q[0] for q in parts]),
+        params,
+        np.concatenate([q[2] for q in parts]),
+        state,
+    )
+
+
+def _rows_at_once(block, xmin, inner, dtheta, rows, u, start=None):
+    """:func:`_rows_at` in one call of the row-wise solver."""
     ys = block.take(rows, axis=0)  # always a new array: shifted in place
     np.subtract(ys, (xmin[rows] - np.exp(u))[:, None], out=ys)
     with np.errstate(all="ignore"):
