@@ -8,7 +8,8 @@
   ``dtheta_rows``, ``fit_one``);
 * :func:`threshold_rows`: the same search for many samples at once (the bootstrap);
 * :data:`ROW_CELLS` / :func:`rows_per_group`: the bound on the cells one row-wise evaluation
-  holds, which keeps memory O(ROW_CELLS + n).
+  holds, which keeps memory O(ROW_CELLS + n); :data:`CACHE_CELLS`: the smaller groups the
+  bootstrap's solver calls work on (speed: the work arrays stay in cache; same numbers).
 
 The method notes (sources, convergence rules) are in :mod:`studykit.stats.fit`.
 """
