@@ -10,7 +10,7 @@ ISO 22514-2 quantiles at 0.135 %, 50 %, 99.865 %) for a model of any
 Memory: a block holds at most :data:`studykit.stats.solvers.ROW_CELLS` cells (samples x n,
 counting the 8 grid thresholds of a threshold family as 8 rows each), so it is
 O(ROW_CELLS + n) whatever the number of samples. Within a block the row-wise solvers work
-on groups of :data:`studykit.stats.solvers.CACHE_CELLS` cells (a few hundred samples of 125
+on groups of :data:`studykit.stats.solvers.CACHE_CELLS` cells (about a hundred samples of 125
 readings), whose work arrays stay in a core's cache: the same numbers as one call for the
 whole block (each row stops at its own convergence), about 2x faster for a threshold family.
 """
