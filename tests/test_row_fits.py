@@ -103,3 +103,26 @@ def test_threshold_refits_do_not_depend_on_their_block(fid):
         if p_part is not None:
             for k, v in p_part.items():
                 assert_array_equal(v[ok_part], params[k][lo:hi][ok_part])
+
+
+@pytest.mark.parametrize(
+    "fid", ["weibull3", "gamma3", "loglogistic3", "lognormal3", "weibull", "gamma", "loglogistic"]
+)
+def test_refits_in_cache_groups_equal_one_call(fid, monkeypatch):
+    # the bootstrap's row-wise evaluations (threshold search, two-parameter refits) run in
+    # groups of CACHE_CELLS cells (speed: the work arrays stay in cache); groups of 7 rows
+    # must give the bits of one call for all rows
+    family = FAMILIES[fid]
+    rng = np.random.default_rng(5)
+    dist = {"weibull": stats.weibull_min(1.4, loc=10.0), "gamma": stats.gamma(2.0, loc=10.0)}
+    dist = dist.get(fid.rstrip("3"), stats.lognorm(0.5, loc=10.0))
+    block = dist.rvs(size=(40, N), random_state=rng)
+    monkeypatch.setattr(solvers, "CACHE_CELLS", 1 << 40)  # one call
+    one = family.refit_rows(block, {})
+    monkeypatch.setattr(solvers, "CACHE_CELLS", 7 * N)  # groups of 7 rows
+    grouped = family.refit_rows(block, {})
+    assert one[1].sum() > 30  # most samples solved by the block search
+    assert_array_equal(one[1], grouped[1])
+    assert list(one[2]) == list(grouped[2])
+    for k, v in one[0].items():
+        assert_array_equal(v, grouped[0][k])

@@ -8,7 +8,8 @@
   ``dtheta_rows``, ``fit_one``);
 * :func:`threshold_rows`: the same search for many samples at once (the bootstrap);
 * :data:`ROW_CELLS` / :func:`rows_per_group`: the bound on the cells one row-wise evaluation
-  holds, which keeps memory O(ROW_CELLS + n).
+  holds, which keeps memory O(ROW_CELLS + n); :data:`CACHE_CELLS`: the smaller groups the
+  bootstrap's solver calls work on (speed: the work arrays stay in cache; same numbers).
 
 The method notes (sources, convergence rules) are in :mod:`studykit.stats.fit`.
 """
@@ -362,7 +363,10 @@ def threshold_rows(family, block, shared=None):
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
     shared = {} if shared is None else shared
-    rows, bracket, state = _grid_brackets(family, block, rows, sd, shared, evaluate, fallback)
+    slopes_at = functools.partial(_slopes_at, block, xmin, family.dtheta_rows)
+    rows, bracket, state = _grid_brackets(
+        family, block, rows, sd, shared, evaluate, slopes_at, fallback
+    )
     root, unsolved = _illinois(evaluate, rows, *bracket, state)
     fallback.update(rows[unsolved].tolist())
     good = np.isfinite(root)
@@ -370,7 +374,7 @@ def threshold_rows(family, block, shared=None):
     ok = np.zeros(n_boot, dtype=bool)
     params = None
     if rows.size:
-        _, p, _, _ = evaluate(rows, root)
+        _, p, _, _ = evaluate(rows, root, slopes=False)
         params = {}
         for k, v in {**p, "threshold": xmin[rows] - np.exp(root)}.items():
             params[k] = np.full(n_boot, np.nan)
@@ -382,20 +386,70 @@ def threshold_rows(family, block, shared=None):
     return params, ok, rest
 
 
-def _rows_at(block, xmin, inner, dtheta, rows, u, start=None):
+#: Most cells (rows x readings) one row-wise solver call of the bootstrap works on: its
+#: half-dozen work arrays then stay in a core's cache (2**14 doubles, 128 kB each; a 1 MB
+#: L2 cache per core is common). The rows are independent (each stops at its own
+#: convergence), so groups give the numbers of one call, bit for bit; a 500 x 8 threshold
+#: grid of 125 readings in groups ran about 3x faster than in one call on a 2-core server.
+#: 2**14 against 2**15 on that server: about as fast when idle, 1.5x faster when the other
+#: core's work shares the caches (Weibull-with-threshold refits of 500 samples of 125).
+CACHE_CELLS = 1 << 14
+
+
+def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True):
     """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
-    xmin - exp(u)."""
-    ys = block.take(rows, axis=0)  # always a new array: shifted in place
-    np.subtract(ys, (xmin[rows] - np.exp(u))[:, None], out=ys)
-    with np.errstate(all="ignore"):
-        ll, params, state = inner(ys, start)
-        s = -np.exp(u) * dtheta(ys, params)
+    xmin - exp(u), in groups of at most :data:`CACHE_CELLS` cells (same numbers as one call);
+    with ``slopes=False`` the slope is None (not computed)."""
+    group = rows_per_group(block.shape[1], CACHE_CELLS)
+    parts = []
+    for i in range(0, rows.size, group):
+        part = slice(i, i + group)
+        ys = _shifted(block, xmin, rows[part], u[part])
+        with np.errstate(all="ignore"):
+            ll, params, state = inner(ys, None if start is None else tuple(c[part] for c in start))
+        s = _slope(ys, u[part], dtheta, params) if slopes else None
+        parts.append((s, params, np.where(np.isfinite(ll), ll, -np.inf), state))
+        del ys
+    if len(parts) == 1:
+        return parts[0]
+    params = {k: np.concatenate([q[1][k] for q in parts]) for k in parts[0][1]}
+    states = [q[3] for q in parts]
+    state = (
+        None if states[0] is None else tuple(np.concatenate(c) for c in zip(*states, strict=True))
+    )
     return (
-        np.where(np.isfinite(s), s, np.nan),
+        np.concatenate([q[0] for q in parts]) if slopes else None,
         params,
-        np.where(np.isfinite(ll), ll, -np.inf),
+        np.concatenate([q[2] for q in parts]),
         state,
     )
+
+
+def _shifted(block, xmin, rows, u):
+    """The readings of ``rows`` minus their thresholds xmin - exp(u) (a new array)."""
+    ys = block.take(rows, axis=0)  # always a new array: shifted in place
+    np.subtract(ys, (xmin[rows] - np.exp(u))[:, None], out=ys)
+    return ys
+
+
+def _slope(ys, u, dtheta, params):
+    """The profile slope d loglik / du of the rows ``ys`` (shifted readings) at their inner
+    solutions ``params``; NaN where not finite."""
+    with np.errstate(all="ignore"):
+        s = -np.exp(u) * dtheta(ys, params)
+    return np.where(np.isfinite(s), s, np.nan)
+
+
+def _slopes_at(block, xmin, dtheta, rows, u, params):
+    """:func:`_slope` of ``rows`` at u from inner solutions already found (row-wise: the
+    numbers of :func:`_rows_at` for these rows), in groups of :data:`CACHE_CELLS` cells."""
+    group = rows_per_group(block.shape[1], CACHE_CELLS)
+    out = np.empty(rows.size)
+    for i in range(0, rows.size, group):
+        part = slice(i, i + group)
+        ys = _shifted(block, xmin, rows[part], u[part])
+        out[part] = _slope(ys, u[part], dtheta, {k: v[part] for k, v in params.items()})
+    return out
 
 
 def _shared_start(family, block, rows, decades, shared: dict):
@@ -416,15 +470,17 @@ def _shared_start(family, block, rows, decades, shared: dict):
     return None
 
 
-def _grid_brackets(family, block, rows, sd, shared, evaluate, fallback: set):
+def _grid_brackets(family, block, rows, sd, shared, evaluate, slopes_at, fallback: set):
     """The grid of :func:`profile_threshold` for every sample at once: the rows whose slope
     changes sign around an interior best point, their brackets (lo_u, hi_u, lo_s, hi_s,
     solve) and inner states; the other rows are added to ``fallback``."""
     decades = GRID_DECADES * math.log(10.0)
     grid = np.log(sd[rows])[:, None] + decades[None, :]
     grid_start = _shared_start(family, block, rows, decades, shared)
-    s_grid, _, ll_grid, state = evaluate(np.repeat(rows, decades.size), grid.ravel(), grid_start)
-    s_grid = s_grid.reshape(-1, decades.size)
+    # the fits at every grid point; the slopes only where the bracket needs them
+    _, p_grid, ll_grid, state = evaluate(
+        np.repeat(rows, decades.size), grid.ravel(), grid_start, slopes=False
+    )
     best = np.argmax(ll_grid.reshape(-1, decades.size), axis=1)
     if not family.shared_grid_start:  # warm starts help the Weibull shape's Newton only
         state = None
@@ -433,10 +489,19 @@ def _grid_brackets(family, block, rows, sd, shared, evaluate, fallback: set):
     # best at either end of the grid: the family's own estimator (its special cases)
     edge = (best == 0) | (best == decades.size - 1)
     fallback.update(rows[edge].tolist())
-    rows, grid, best, s_grid = rows[~edge], grid[~edge], best[~edge], s_grid[~edge]
+    rows, grid, best = rows[~edge], grid[~edge], best[~edge]
     at = np.arange(rows.size)
     lo_u, hi_u = grid[at, best - 1], grid[at, best + 1]
-    lo_s, hi_s = s_grid[at, best - 1], s_grid[at, best + 1]
+    flat = np.flatnonzero(~edge)[:, None] * decades.size + (best[:, None] + [-1, 1])
+    lo_s, hi_s = (
+        slopes_at(
+            np.repeat(rows, 2),
+            np.column_stack((lo_u, hi_u)).ravel(),
+            {k: v[flat.ravel()] for k, v in p_grid.items()},
+        )
+        .reshape(-1, 2)
+        .T
+    )
     if state is not None:
         state = tuple(c[~edge][at, best] for c in state)
     bracketed = (lo_s > 0) & (hi_s < 0)

@@ -17,6 +17,10 @@ folder, then times, in the same run:
   the rows of the batch (``run_many`` on 2 processes) compared with its rows (they must be
   identical).
 
+With ``--compare DIR`` the same two commands also run on the studykit source tree ``DIR``
+(e.g. a checkout of the code before a change; ``PYTHONPATH=DIR``), interleaved with the
+others, and the ratios of its figures to this tree's are printed (wall and CPU).
+
 Default options (bootstrap of fitted non-normal models: 500 resamples). Targets: 2 jobs
 <= 4 s for 1,000 x 125 on a 2-core machine, and ``--jobs 2`` at least 1.6x ``--jobs 1``.
 A figure taken on a loaded shared machine says little about the 2-jobs ratio (the second
@@ -118,12 +122,15 @@ def command(data, specs, jobs) -> list[str]:
     ]
 
 
-def run_command(data, specs, jobs) -> tuple[float, float, str]:
-    """(wall s, CPU s of the command's processes, its stdout)."""
+def run_command(data, specs, jobs, tree=None) -> tuple[float, float, str]:
+    """(wall s, CPU s of the command's processes, its stdout); ``tree``: run the studykit
+    source tree there instead (``PYTHONPATH`` and the working folder: ``python -m`` puts the
+    working folder first on the import path)."""
+    env = None if tree is None else {**os.environ, "PYTHONPATH": str(tree)}
     cpu0 = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
     out = subprocess.run(
-        command(data, specs, jobs), capture_output=True, text=True, check=True
+        command(data, specs, jobs), capture_output=True, text=True, check=True, env=env, cwd=tree
     ).stdout
     wall = time.perf_counter() - t0
     cpu1 = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -140,6 +147,21 @@ def floor(data) -> float:
     return time.perf_counter() - t0
 
 
+def _print_compare(tree, times, other, outputs) -> None:
+    """The figures of the ``--compare`` tree and their ratios to this tree's (same run)."""
+    for jobs in (2, 1):
+        w = statistics.median(t for t, _ in other[jobs])
+        c = statistics.median(t for _, t in other[jobs])
+        w0 = statistics.median(t for t, _ in times[jobs])
+        c0 = statistics.median(t for _, t in times[jobs])
+        print(
+            f"  {tree} --jobs {jobs}: {w:6.2f} s wall median (runs "
+            + ", ".join(f"{t:.2f}" for t, _ in other[jobs])
+            + f"), CPU {c:.1f} s; it / this tree: wall {w / w0:.2f}x, CPU {c / c0:.2f}x; "
+            f"same output: {outputs[-jobs] == outputs[jobs]}"
+        )
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--characteristics", type=int, default=1000)
@@ -147,6 +169,7 @@ def main(argv=None) -> int:
     ap.add_argument("--skewed", type=float, default=0.1, help="share of skewed columns")
     ap.add_argument("--repeat", type=int, default=2, help="runs of each command")
     ap.add_argument("--no-loop", action="store_true", help="skip the one-process loop")
+    ap.add_argument("--compare", metavar="DIR", help="another studykit source tree, run beside")
     args = ap.parse_args(argv)
     import studykit.analysis  # noqa: F401 - for the loop; the commands start fresh
 
@@ -161,6 +184,7 @@ def main(argv=None) -> int:
             f"{cores} cores, load average {load:.1f} at start"
         )
         times: dict[int, list] = {1: [], 2: []}
+        other: dict[int, list] = {1: [], 2: []}
         outputs = {}
         floors = []
         for _ in range(args.repeat):  # interleaved, so machine load hits both alike
@@ -168,6 +192,10 @@ def main(argv=None) -> int:
                 wall, cpu, out = run_command(data, specs, jobs)
                 times[jobs].append((wall, cpu))
                 outputs[jobs] = out
+                if args.compare:
+                    wall, cpu, out = run_command(data, specs, jobs, args.compare)
+                    other[jobs].append((wall, cpu))
+                    outputs[-jobs] = out
             floors.append(floor(data))
         same_output = outputs[1] == outputs[2]
         lines = [ln for ln in outputs[2].splitlines() if ln.strip()]
@@ -181,6 +209,8 @@ def main(argv=None) -> int:
                 + ", ".join(f"{w:.2f}" for w, _ in times[jobs])
                 + f"); CPU of the command's processes {cpu[jobs]:.1f} s"
             )
+        if args.compare:
+            _print_compare(args.compare, times, other, outputs)
         print(
             f"  floor (numpy read + mean/sd per column): {fl:.3f} s; --jobs 1 / --jobs 2: "
             f"{speedup:.2f}x; {len(lines)} rows, same output with 1 and 2 jobs: {same_output}"

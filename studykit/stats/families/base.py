@@ -416,10 +416,14 @@ def refit_by_fit_rows(family, block):
     spread = block.max(axis=1) > block.min(axis=1)
     ok = positive & spread
     ys = np.where(ok[:, None], block, 1.0)
+    # in groups of CACHE_CELLS cells (the work arrays stay in cache; rows are independent, so
+    # the numbers of one call)
+    group = solvers.rows_per_group(ys.shape[1], solvers.CACHE_CELLS)
     with np.errstate(all="ignore"):
-        _, params, _ = family.fit_rows(ys)
+        parts = [family.fit_rows(ys[i : i + group])[1] for i in range(0, ys.shape[0], group)]
+    params = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
     ok &= np.all([np.isfinite(v) & (v > 0) for v in params.values()], axis=0)
-    return dict(params), ok, ()
+    return params, ok, ()
 
 
 class ThresholdVariant:

@@ -138,7 +138,8 @@ class Weibull(Family):
         k = k_all
         lo = np.zeros_like(k)
         hi = np.full_like(k, np.inf)
-        active = None  # row numbers of the rows still iterating (None: all, in order)
+        active = None  # row numbers of the working rows (None: all, in order)
+        frozen = None  # working rows already converged (they take no further step)
         zs_a, z_a = zs, z
         # two work arrays for the whole iteration (the same element-wise operations as
         # w = exp(k zs), wz = w z, wz z: same bits, without three new row blocks per step);
@@ -163,6 +164,9 @@ class Weibull(Family):
             k_new = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * k), k_new)
             step = np.abs(k_new - k)
             done = (step <= 1e-10 * k) | (~bad & (step <= tol * k))
+            if frozen is not None:  # converged earlier: keeps its shape
+                k_new = np.where(frozen, k, k_new)
+                done |= frozen
             k = k_new
             if active is None:
                 k_all = k.copy()
@@ -170,11 +174,16 @@ class Weibull(Family):
                 k_all[active] = k
             if all_reduce(done):
                 break
-            if any_reduce(done):  # freeze the converged rows: only the others iterate on
+            # the converged rows leave the working arrays once a quarter of them has
+            # converged (a copy of the rest); until then they stay in, frozen
+            if 4 * np.count_nonzero(done) >= k.size:
                 keep = ~done
                 active = np.flatnonzero(keep) if active is None else active[keep]
                 k, lo, hi = k[keep], lo[keep], hi[keep]
                 zs_a, z_a = zs.take(active, axis=0), z.take(active, axis=0)
+                frozen = None
+            elif any_reduce(done):
+                frozen = done
         k = k_all
         w = np.exp(k[:, None] * zs)
         log_scale = slog / n + zmax + np.log(rowsum(w) / n) / k
