@@ -28,7 +28,6 @@ KNOWN = {
     ("studykit/io/readers.py", "_read_table"),
     ("studykit/io/source.py", "inspect"),
     ("studykit/io/xlsx_reader.py", "_xlsx_table"),
-    ("studykit/report/pdf.py", "_characteristic_section"),
 }
 
 

@@ -431,11 +431,10 @@ def number_text(v, digits: int = 4) -> str:
 
 
 def _idx(v) -> str:
-    """Capability indices are printed with two decimals (the usual precision)."""
-    if v is None:
-        return "–"
-    v = float(v)
-    return f"{v:.2f}" if math.isfinite(v) else "–"
+    """A capability index as :func:`studykit.names.format_index` writes it (two decimals), with
+    the report's dash for a missing one."""
+    text = names.format_index(v)
+    return "–" if text == "-" else text  # a number always has digits: only "missing" is "-"
 
 
 def escape_text(text) -> str:
@@ -1066,9 +1065,32 @@ def _spec_text(c) -> str:
 
 
 def _characteristic_section(story, number, name, res, study, raw, st, width, figures_cache):
-    from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
-
+    """One characteristic's section: heading and verdict, the facts, stability (phase I), then
+    for measured values with a probability plot the shape and model, capability and the
+    closing blocks (streams, time model, findings, planning, warnings)."""
     c = study.characteristic(name)
+    images = figures_cache if figures_cache is not None else _LazyImages(res, raw)
+    _section_heading(story, number, name, res, c, st, width)
+    _facts_table(story, name, res, c, study, st, width)
+    _stability_block(story, res, c, images["control"], st, width)
+    if res.attribute:
+        _attribute_block(story, res, st, width)
+        _warnings_block(story, res, st)
+        return
+    if res.probability_plot is None:
+        _warnings_block(story, res, st)
+        return
+    _shape_block(story, res, images["shape"], st, width)
+    if res.capability is not None:
+        _capability_block(story, res, st, width)
+    _closing_blocks(story, res, st, width)
+
+
+def _section_heading(story, number, name, res, c, st, width) -> None:
+    """Heading, the safety caution, the description and the verdict box (the reader's
+    question first)."""
+    from reportlab.platypus import Paragraph, Spacer
+
     unit = f" [{escape_text(res.unit)}]" if res.unit else ""
     story.append(Paragraph(f"{number}. {escape_text(name)}{unit}", st["h1"]))
     if res.cautions:
@@ -1085,9 +1107,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Spacer(1, 6))
     if c.description:
         story.append(Paragraph(escape_text(c.description), st["small"]))
-    # verdict first: the reader's question
-    key = _verdict_key(res)
-    v = theme.VERDICTS[key]
+    v = theme.VERDICTS[_verdict_key(res)]
     if res.verdict is not None:
         story.append(
             framed_box(
@@ -1105,14 +1125,14 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             )
         )
     story.append(Spacer(1, 6))
+
+
+def _facts_table(story, name, res, c, study, st, width) -> None:
+    """Specification, criterion, values used, removals, centre, chart and the two sigmas."""
     chart = res.chart
+    criterion = escape_text(study.criteria_for(name).describe())
     facts = [
-        [
-            "Specification",
-            _spec_text(c),
-            "Criterion",
-            escape_text(study.criteria_for(name).describe()),
-        ],
+        ["Specification", _spec_text(c), "Criterion", criterion],
         [
             "Values used",
             (
@@ -1147,8 +1167,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         )
     else:
         facts[0][3] = (
-            "read as process Z / 3 from the exact upper bound on the defective rate "
-            f"({escape_text(study.criteria_for(name).describe())})"
+            f"read as process Z / 3 from the exact upper bound on the defective rate ({criterion})"
             if chart.kind in ("p", "np")
             else "not judged by an index (counted data; see the defects per unit below)"
         )
@@ -1158,21 +1177,38 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False, zebra=False, styles=st
         )
     )
-    # stability
+
+
+def _stability_block(story, res, c, control_image, st, width) -> None:
+    """Phase I: the control chart of the final limits, the model-scale note, the run-rule
+    signals, the removal log and the signals kept with a reason."""
+    from reportlab.platypus import Paragraph
+
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    images = figures_cache if figures_cache is not None else _LazyImages(res, raw)
-    story.append(_PixelImage(images["control"], width))
+    story.append(_PixelImage(control_image, width))
     if res.chart_scale_text:  # phase I judged on the model's scale
-        scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
-        pl = res.probability_limits
-        if pl is not None:
-            scale_note += (
-                f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
-                f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
-                f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
-            )
-        story.append(Paragraph(escape_text(scale_note), st["body"]))
-    signals = []
+        story.append(Paragraph(escape_text(_scale_note(res, c)), st["body"]))
+    _signals_block(story, res, st)
+    _removal_log(story, res, st, width)
+    _kept_signals_block(story, res, st, width)
+
+
+def _scale_note(res, c) -> str:
+    """Phase I charted on the model's scale, with the limits in measured units."""
+    note = f"Charted on the model's scale: {res.chart_scale_text}."
+    pl = res.probability_limits
+    if pl is not None:
+        note += (
+            f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
+            f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
+            f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
+        )
+    return note
+
+
+def _signal_lines(chart) -> list[str]:
+    """One line per run-rule signal on the final limits (part, test, text, subgroups)."""
+    lines = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
             continue
@@ -1182,75 +1218,76 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 # a moving range at reading p is |x_p - x_(p-1)|: it points at both readings
                 pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
             labels = [str(chart.labels[p]) for p in pos]
-            signals.append(
+            lines.append(
                 f"{names.chart_part_label(chart.kind, part).capitalize()}, "
                 f"Nelson test {sig.number}: {escape_text(sig.text)} "
                 f"(subgroup(s) {escape_text(', '.join(labels[:12]))}"
                 f"{'...' if len(labels) > 12 else ''})"
             )
+    return lines
+
+
+def _signals_block(story, res, st) -> None:
+    """The signals on the final limits (at most 20), or why there are none."""
+    from reportlab.platypus import Paragraph
+
+    chart = res.chart
+    rule_set = escape_text(names.rule_set_label(chart.location.rules))
+    signals = _signal_lines(chart)
     if signals:
+        story.append(Paragraph(f"Signals on the final limits ({rule_set}):", st["body"]))
+        for s in signals[:20]:
+            story.append(Paragraph(s, st["bullet"], bulletText="•"))
+    elif res.order is not None and res.order.flagged:
         story.append(
             Paragraph(
-                "Signals on the final limits "
-                f"({escape_text(names.rule_set_label(chart.location.rules))}):",
+                "Run rules not applied: the values are not in production "
+                "order, so stability could not be judged from them (see the "
+                "findings).",
                 st["body"],
             )
         )
-        for s in signals[:20]:
-            story.append(Paragraph(s, st["bullet"], bulletText="•"))
     else:
-        if res.order is not None and res.order.flagged:
-            story.append(
-                Paragraph(
-                    "Run rules not applied: the values are not in production "
-                    "order, so stability could not be judged from them (see the "
-                    "findings).",
-                    st["body"],
-                )
-            )
-        else:
-            story.append(
-                Paragraph(
-                    f"No run-rule signal on the final limits "
-                    f"({escape_text(names.rule_set_label(chart.location.rules))}).",
-                    st["body"],
-                )
-            )
-    if res.phase1.removals:
-        story.append(Spacer(1, 4))
-        rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
-        for r in res.phase1.removals:
-            rows.append(
-                [
-                    escape_text(r.label),
-                    escape_text(names.rule_label(r.rule)),
-                    str(r.iteration),
-                    escape_text(r.who or "–"),
-                    escape_text(r.reason),
-                ]
-            )
-        story.append(
-            KeepTogether(
-                [
-                    Paragraph("Removal log", st["cellb"]),
-                    grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15, 0.55)], styles=st),
-                ]
-            )
-        )
-    else:
+        story.append(Paragraph(f"No run-rule signal on the final limits ({rule_set}).", st["body"]))
+
+
+def _removal_log(story, res, st, width) -> None:
+    """The subgroups phase I removed (who, which rule, why), or a line saying none was."""
+    from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+    if not res.phase1.removals:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
-    _kept_signals_block(story, res, st, width)
-    if res.attribute:
-        _attribute_block(story, res, st, width)
-        _warnings_block(story, res, st)
         return
-    if res.probability_plot is None:
-        _warnings_block(story, res, st)
-        return
-    # shape
+    story.append(Spacer(1, 4))
+    rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
+    for r in res.phase1.removals:
+        rows.append(
+            [
+                escape_text(r.label),
+                escape_text(names.rule_label(r.rule)),
+                str(r.iteration),
+                escape_text(r.who or "–"),
+                escape_text(r.reason),
+            ]
+        )
+    story.append(
+        KeepTogether(
+            [
+                Paragraph("Removal log", st["cellb"]),
+                grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15, 0.55)], styles=st),
+            ]
+        )
+    )
+
+
+def _shape_block(story, res, shape_image, st, width) -> None:
+    """Shape and model: the histogram and probability plot, normality tests, the model used
+    and why, the model list and the band of the index across the models not rejected."""
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(_PixelImage(images["shape"], width))
+    story.append(_PixelImage(shape_image, width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
@@ -1291,86 +1328,106 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             text += " " + escape_text(mb.warning)
         story.append(Spacer(1, 4))
         story.append(Paragraph(text, st["body"]))
-    # capability
-    if res.capability is not None:
-        cap = res.capability
-        story.append(CondPageBreak(220))
-        story.append(Paragraph("Capability", st["h2"]))
-        level = cap.level
-        rows = [
-            [
-                "Index",
-                "Estimate",
-                f"Lower {level * 100:g}% bound (one-sided)",
-                f"Two-sided {level * 100:g}% interval",
-                "Bound method",
-            ]
+
+
+def _capability_rows(res) -> list[list[str]]:
+    """The capability table: each index with its estimate, one-sided lower bound, two-sided
+    interval and bound method; the judged one marked (a time-dependent class judged on its own
+    index gets a row of its own)."""
+    cap = res.capability
+    level = cap.level
+    rows = [
+        [
+            "Index",
+            "Estimate",
+            f"Lower {level * 100:g}% bound (one-sided)",
+            f"Two-sided {level * 100:g}% interval",
+            "Bound method",
         ]
-        judged_key = res.verdict.index if res.verdict is not None else res.criteria.get("index")
-        by_class = (res.time_model.judged or {}) if res.time_model is not None else {}
-        if by_class.get("basis") == "class_method":
-            judged_key = None  # judged on the class's own index: the extra row below
-        for k in ("cp", "cpk", "pp", "ppk", "cpm"):
-            est = getattr(cap, k)
-            b = (cap.bounds or {}).get(k) or {}
-            if est is None:
-                continue
-            judged = " (judged)" if k == judged_key else ""
-            rows.append(
-                [
-                    f"<b>{_index_name(k)}</b>{judged}",
-                    _idx(est),
-                    _idx(b.get("lower_bound")),
-                    f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
-                    if b.get("lower") is not None
-                    else "–",
-                    escape_text(names.bound_method_label(b.get("method", "–"))),
-                ]
-            )
-        if by_class.get("basis") == "class_method":
-            rows.append(
-                [
-                    f"<b>{_index_name(by_class['index'])}</b> by the time-dependent model "
-                    f"{escape_text(res.time_model.cls)} (judged)",
-                    _idx(by_class.get("estimate")),
-                    _idx(by_class.get("lower_bound")),
-                    "–",
-                    "parametric bootstrap of the class model",
-                ]
-            )
-        story.append(
-            grid_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)], styles=st)
+    ]
+    judged_key = res.verdict.index if res.verdict is not None else res.criteria.get("index")
+    by_class = (res.time_model.judged or {}) if res.time_model is not None else {}
+    if by_class.get("basis") == "class_method":
+        judged_key = None  # judged on the class's own index: the extra row below
+    for k in ("cp", "cpk", "pp", "ppk", "cpm"):
+        est = getattr(cap, k)
+        b = (cap.bounds or {}).get(k) or {}
+        if est is None:
+            continue
+        judged = " (judged)" if k == judged_key else ""
+        rows.append(
+            [
+                f"<b>{_index_name(k)}</b>{judged}",
+                _idx(est),
+                _idx(b.get("lower_bound")),
+                f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
+                if b.get("lower") is not None
+                else "–",
+                escape_text(names.bound_method_label(b.get("method", "–"))),
+            ]
         )
-        ppm = (
-            f"Expected parts per million outside the specification: overall "
-            f"{number_text(cap.ppm_overall, 3)}"
+    if by_class.get("basis") == "class_method":
+        rows.append(
+            [
+                f"<b>{_index_name(by_class['index'])}</b> by the time-dependent model "
+                f"{escape_text(res.time_model.cls)} (judged)",
+                _idx(by_class.get("estimate")),
+                _idx(by_class.get("lower_bound")),
+                "–",
+                "parametric bootstrap of the class model",
+            ]
         )
-        if cap.ppm_within is not None:
-            ppm += f", within {number_text(cap.ppm_within, 3)}"
-        ppm += (
-            f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
-            f"{escape_text(names.bound_method_label(cap.method))}."
-        )
-        from studykit.analysis import capability_method_text
+    return rows
 
-        ppm += (
-            " Convention: "
-            + escape_text(
-                capability_method_text(
-                    cap.to_dict(), None if res.model is None else res.model.to_dict()
-                )
-            )
-            + "."
+
+def _ppm_text(res) -> str:
+    """Expected and observed parts per million outside the specification, the method and the
+    convention of the indices."""
+    from studykit.analysis import capability_method_text
+
+    cap = res.capability
+    ppm = (
+        f"Expected parts per million outside the specification: overall "
+        f"{number_text(cap.ppm_overall, 3)}"
+    )
+    if cap.ppm_within is not None:
+        ppm += f", within {number_text(cap.ppm_within, 3)}"
+    ppm += (
+        f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
+        f"{escape_text(names.bound_method_label(cap.method))}."
+    )
+    convention = capability_method_text(
+        cap.to_dict(), None if res.model is None else res.model.to_dict()
+    )
+    return ppm + " Convention: " + escape_text(convention) + "."
+
+
+def _capability_block(story, res, st, width) -> None:
+    """Capability: the index table, the PPM sentence and the interval drawing."""
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
+    story.append(CondPageBreak(220))
+    story.append(Paragraph("Capability", st["h2"]))
+    story.append(
+        grid_table(
+            _capability_rows(res), [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)], styles=st
         )
-        story.append(Spacer(1, 3))
-        story.append(Paragraph(ppm, st["body"]))
-        story.append(Spacer(1, 4))
-        story.append(_interval_drawing(res, width, st))
+    )
+    story.append(Spacer(1, 3))
+    story.append(Paragraph(_ppm_text(res), st["body"]))
+    story.append(Spacer(1, 4))
+    story.append(_interval_drawing(res, width, st))
+
+
+def _closing_blocks(story, res, st, width) -> None:
+    """Several streams, the time-dependent class (ISO 22514-2), findings, demonstration
+    planning and warnings."""
+    from reportlab.platypus import Paragraph
+
     from studykit.report.streams import streams_block  # several streams (cavities...)
-
-    streams_block(story, res, st, width, table=grid_table, image=pdf_image, esc=escape_text)
     from studykit.report.time_model import time_model_block  # ISO 22514-2 class
 
+    streams_block(story, res, st, width, table=grid_table, image=pdf_image, esc=escape_text)
     time_model_block(story, res, st, width, table=grid_table, esc=escape_text)
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
