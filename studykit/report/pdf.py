@@ -18,6 +18,7 @@ methods, their published sources, the software versions and the digests.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import html
 import io
@@ -223,13 +224,15 @@ def analyze_for_report(
     *,
     progress: Callable[[int, int, str], None] | None = None,
     workers: int = 1,
+    meanwhile: Callable[[], None] | None = None,
 ):
     """Analyse every characteristic as the report does: (results, errors, measurements).
 
     Exactly :func:`studykit.analysis.analyze_all` (with the stored gauge results; ``gauges``
     None means no gauge search was made), so the report, ``studykit analyze`` and ``verify``
     agree. With ``workers`` > 1 the characteristics after the first are analysed by that many
-    forked processes (:func:`_analyze_in_workers`): the same calls, the same results.
+    forked processes (:func:`_analyze_in_workers`): the same calls, the same results; this
+    process runs ``meanwhile()`` (if given) while it waits for them.
     """
     from studykit.analysis import analyze_all, read_study_measurements
 
@@ -239,7 +242,9 @@ def analyze_for_report(
         import multiprocessing
 
         if "fork" in multiprocessing.get_all_start_methods():
-            results, errors = _analyze_in_workers(study, measurements, gauges, progress, workers)
+            results, errors = _analyze_in_workers(
+                study, measurements, gauges, progress, workers, meanwhile
+            )
             return results, errors, measurements
     res = analyze_all(study, measurements=measurements, progress=progress, gauges=gauges)
     return res.results, res.errors, measurements
@@ -266,18 +271,38 @@ def _analyze_in_worker(name: str):
     return _analyze_one(study, name, measurements, gauges)
 
 
-def _large_buffers_returned() -> None:
-    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
-    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
-    stay in the heap after use. Without glibc nothing happens."""
+@functools.cache
+def _libc():
+    """glibc, or None where there is none (then the allocator calls below do nothing); looked
+    up once (``find_library`` asks ``ldconfig``)."""
     import ctypes
     import ctypes.util
 
     try:
         libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        return libc if hasattr(libc, "mallopt") and hasattr(libc, "malloc_trim") else None
+    except OSError:
+        return None
+
+
+def _large_buffers_returned() -> None:
+    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
+    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
+    stay in the heap after use. Without glibc nothing happens."""
+    libc = _libc()
+    if libc is not None:
         libc.mallopt(-3, 256 * 1024)  # M_MMAP_THRESHOLD
-    except (OSError, AttributeError):
-        pass
+
+
+def _heap_trimmed() -> None:
+    """Give the free memory inside the heap back to the system (glibc ``malloc_trim(0)``): once
+    the pages are written, what laying them out held (the document's objects, the compressed
+    pictures) is free but lies below blocks still in use, so the heap cannot shrink from its
+    top; attaching the evidence then starts from the smaller process. Without glibc nothing
+    happens."""
+    libc = _libc()
+    if libc is not None:
+        libc.malloc_trim(0)
 
 
 def _forked_pool(workers: int):
@@ -294,10 +319,11 @@ def _forked_pool(workers: int):
         gc.unfreeze()
 
 
-def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
+def _analyze_in_workers(study, measurements, gauges, progress, workers: int, meanwhile=None):
     """(results, errors) of every characteristic, in the study's order: the first analysed
     here (which also loads the statistics modules once, before the fork), the others by
-    ``workers`` forked processes; each result comes back pickled (a plain copy)."""
+    ``workers`` forked processes; each result comes back pickled (a plain copy). While they
+    work, this process runs ``meanwhile()`` (the layout's preparations: a core is free)."""
 
     global _ANALYSIS_JOB
     names = study.characteristic_names
@@ -315,6 +341,8 @@ def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
     try:
         with _forked_pool(min(workers, len(names) - 1)) as pool:
             outcomes = pool.imap(_analyze_in_worker, names[1:])
+            if meanwhile is not None:
+                meanwhile()
             for i, (name, outcome) in enumerate(zip(names[1:], outcomes, strict=True), start=1):
                 keep(i, name, outcome)
     finally:
@@ -478,6 +506,19 @@ def _register_fonts() -> tuple[str, str]:
     return "SKSans", "SKSans-Bold"
 
 
+def prepare_layout() -> None:
+    """Load what laying out the report and drawing its figures need: the report's fonts,
+    reportlab's layout modules and matplotlib with its fonts (one tiny figure drawn). Done once
+    per process, by :func:`build_report` while the analysis workers run (a core is free then),
+    so neither the layout nor each forked figure worker pays for it on its own."""
+    import reportlab.platypus  # noqa: F401 - loaded now, used by the layout
+
+    from studykit.report.figures import warm_up
+
+    report_styles()
+    warm_up()
+
+
 def report_styles():
     from reportlab.lib import colors
     from reportlab.lib.styles import ParagraphStyle
@@ -608,6 +649,70 @@ def _PixelImage(pil, width):  # noqa: N802 - a flowable factory
     return PixelImage()
 
 
+def encode_picture(img) -> tuple:
+    """An RGB picture as the PDF image object reportlab makes of it: ((width, height) in
+    pixels, the name reportlab gives it, its Flate-compressed pixels). Done in a figure worker,
+    so the raw pixels (2-4 MB a picture) never travel to the layout process nor stay there;
+    :func:`_draw_encoded` writes exactly what ``canvas.drawImage`` writes for the picture."""
+    import zlib
+
+    from reportlab.lib.utils import _digester
+
+    raw = img.tobytes()  # what reportlab's ImageReader.getRGBData gives for an RGB picture
+    return img.size, _digester(raw + b"None"), zlib.compress(raw)  # b"None": no mask
+
+
+def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
+    """``canv.drawImage(ImageReader(picture), 0, 0, width, height)`` for a picture made by
+    :func:`encode_picture`: the same image object (registered once under the same name, Flate
+    only as :func:`render_pages` sets) and the same drawing operators, so the same bytes."""
+    from reportlab.pdfbase import pdfdoc
+
+    (px_w, px_h), name, stream = encoded
+    canv._currentPageHasImages = 1
+    doc = canv._doc
+    reg_name = doc.getXObjectName(name)
+    if not doc.idToObject.get(reg_name, None):
+        img = pdfdoc.PDFImageXObject(name, None, mask=None)
+        img.width, img.height = px_w, px_h
+        img.colorSpace, img.bitsPerComponent = "DeviceRGB", 8
+        img._filters = ("FlateDecode",)
+        img.streamContent = stream
+        canv._setXObjects(img)
+        doc.Reference(img, reg_name)
+        doc.addForm(name, img)
+    canv.saveState()
+    canv.translate(0, 0)
+    canv.scale(width, height)
+    canv._code.append(f"/{reg_name} Do")
+    canv.restoreState()
+    canv._formsinuse.append(name)
+
+
+def _EncodedPicture(encoded: tuple, width):  # noqa: N802 - a flowable factory
+    """A flowable drawing a picture made by :func:`encode_picture` at ``width``."""
+    from reportlab.platypus import Flowable
+
+    class EncodedPicture(Flowable):
+        def __init__(self):
+            super().__init__()
+            w, h = encoded[0]
+            self.drawWidth, self.drawHeight = width, width * h / w
+
+        def wrap(self, aw, ah):
+            return self.drawWidth, self.drawHeight
+
+        def draw(self):
+            _draw_encoded(self.canv, encoded, self.drawWidth, self.drawHeight)
+
+    return EncodedPicture()
+
+
+def _picture(img, width):
+    """The flowable of a section's picture: a PIL image drawn here, or one encoded by a worker."""
+    return _EncodedPicture(img, width) if isinstance(img, tuple) else _PixelImage(img, width)
+
+
 def section_images(res, raw) -> dict:
     """The pictures of one characteristic's section, rendered: ``control`` (the control chart
     of the final limits) and, for measured values with a probability plot, ``shape``."""
@@ -648,10 +753,11 @@ def _raw_values(measurements, name):
 
 
 def _render_in_worker(name: str) -> dict:
-    """In a forked worker: the pictures of ``name``'s section as (size, RGB bytes)."""
+    """In a forked worker: the pictures of ``name``'s section, encoded for the PDF
+    (:func:`encode_picture`)."""
     results, measurements = _FEED_JOB  # type: ignore[misc]
     images = section_images(results[name], _raw_values(measurements, name))
-    return {key: (img.size, img.tobytes()) for key, img in images.items()}
+    return {key: encode_picture(img) for key, img in images.items()}
 
 
 class _FigureFeed:
@@ -668,7 +774,6 @@ class _FigureFeed:
         self.results, self.measurements = results, measurements
         self.order = list(order)
         self.pool = None
-        self.first: dict | None = None
         self.pending: list = []
         self.next = 0
 
@@ -676,17 +781,15 @@ class _FigureFeed:
         """Start the workers (none when ``workers`` <= 1, one section or no ``fork``)."""
         import multiprocessing
 
-        workers = min(int(workers), len(self.order) - 1)
+        workers = min(int(workers), len(self.order))
         if workers > 1 and "fork" in multiprocessing.get_all_start_methods():
             global _FEED_JOB
-            # the first section's pictures are drawn here: that loads matplotlib's modules and
-            # fonts once, before the fork, instead of once in every worker
-            first = self.order[0]
-            self.first = section_images(self.results[first], _raw_values(self.measurements, first))
+            # matplotlib's modules and fonts are loaded here, once, before the fork (done
+            # already while the analysis workers ran), instead of once in every worker
+            prepare_layout()
             _FEED_JOB = (self.results, self.measurements)
             _large_buffers_returned()
             self.pool = _forked_pool(workers)
-            self.next = 1
             for _ in range(2 * workers):
                 self._submit()
 
@@ -700,19 +803,11 @@ class _FigureFeed:
         """The pictures of ``name``'s section (rendered ahead, or on demand in this process)."""
         if self.pool is None:
             return _LazyImages(res, raw)
-        if self.first is not None:
-            images, self.first = self.first, None
-            return images
-        from PIL import Image
-
         want, job = self.pending.pop(0)
         if want != name:  # sections are laid out in the study's order
             raise RuntimeError(f"figure feed out of order: {name} asked, {want} ready")
         self._submit()
-        return {
-            key: Image.frombuffer("RGB", size, data, "raw", "RGB", 0, 1)
-            for key, (size, data) in job.get().items()
-        }
+        return job.get()
 
     def close(self) -> None:
         global _FEED_JOB
@@ -1185,7 +1280,7 @@ def _stability_block(story, res, c, control_image, st, width) -> None:
     from reportlab.platypus import Paragraph
 
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    story.append(_PixelImage(control_image, width))
+    story.append(_picture(control_image, width))
     if res.chart_scale_text:  # phase I judged on the model's scale
         story.append(Paragraph(escape_text(_scale_note(res, c)), st["body"]))
     _signals_block(story, res, st)
@@ -1287,7 +1382,7 @@ def _shape_block(story, res, shape_image, st, width) -> None:
 
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(_PixelImage(shape_image, width))
+    story.append(_picture(shape_image, width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
@@ -2203,7 +2298,11 @@ def build_report(
             progress(done, total, f"analysed {name}")
 
     results, errors, measurements = analyze_for_report(
-        study, stored_gauges, progress=_analysis_progress, workers=workers
+        study,
+        stored_gauges,
+        progress=_analysis_progress,
+        workers=workers,
+        meanwhile=prepare_layout if workers > 1 else None,
     )
     evidence = collect_evidence(study, results, errors, stored_gauges, chain)
     # stored short gauge studies (one reference part) go into the evidence when there are any
@@ -2243,6 +2342,7 @@ def build_report(
             out=pages_path,
             workers=workers,
         )
+        _heap_trimmed()
         _attach(pages_path, evidence_bytes, boxes, tmp)
         os.replace(tmp, out)
     finally:
