@@ -287,8 +287,10 @@ def _libc():
 
 def _large_buffers_returned() -> None:
     """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
-    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
-    stay in the heap after use. Without glibc nothing happens."""
+    freed (``mallopt(M_MMAP_THRESHOLD)``, which also stops glibc from raising that threshold
+    after such a block is freed). Called before the figure workers are forked, so they inherit
+    it: the raw pixels of each picture they draw (2-4 MB) then do not stay in their heaps after
+    use. Without glibc nothing happens."""
     libc = _libc()
     if libc is not None:
         libc.mallopt(-3, 256 * 1024)  # M_MMAP_THRESHOLD
@@ -766,8 +768,10 @@ class _FigureFeed:
     With ``workers`` > 1 (and ``fork`` available) that many forked processes render the
     pictures of the next sections while this process lays out the current one; at most
     ``2 * workers`` sections are ahead, so memory does not grow with the number of
-    characteristics. The workers run the same code on the same results, so the pixels (and the
-    PDF bytes) are the same as when everything is drawn in this process (``workers`` = 1).
+    characteristics. The workers run the same code on the same results and send each picture
+    as the PDF image object reportlab would make of it (:func:`encode_picture`, about 76 KB
+    instead of 2-4 MB of pixels), so the pixels and the PDF bytes are the same as when
+    everything is drawn in this process (``workers`` = 1).
     """
 
     def __init__(self, results: Mapping, measurements, order):
