@@ -20,10 +20,9 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 LIMIT = 15
 
-#: (file, function) over the limit when the gate was turned on; only deletions from here
-KNOWN = {
-    ("studykit/report/pdf.py", "_characteristic_section"),
-}
+#: (file, function) over the limit when the gate was turned on; only deletions from here.
+#: Empty now: every function that was over the limit has been split into named steps.
+KNOWN: set[tuple[str, str]] = set()
 
 
 def _over_limit() -> set[tuple[str, str]]:

@@ -78,6 +78,36 @@ def interval_rows(ti: Mapping, num) -> list[list[str]]:
     ]
 
 
+#: What the tolerance-interval section shows (its first paragraph).
+_INTERVAL_INTRO = (
+    "Where the criterion asks that at least P % of parts lie within specification with "
+    "C % confidence, the statistical tolerance interval of ISO 16269-6 is computed from "
+    "the values the capability uses: normal theory with exact factors for a normal model, "
+    "on the log or Box-Cox scale for those models, from order statistics for any other "
+    "model. The criterion holds when the interval lies within the specification; the "
+    "verdict needs it and the index criterion both."
+)
+
+#: What the positional-tolerance section shows (its first paragraph).
+_POSITION_INTRO = (
+    "A true-position zone of diameter T is judged from the X and Y deviations of each part. "
+    "The two-dimensional model fits a bivariate normal (offset, unequal spreads, "
+    "correlation) and integrates it over the outside of the circular zone; the equivalent "
+    "index is the one-sided index with the same expected PPM. Beside it, the common "
+    "one-dimensional shortcut treats the position value 2 sqrt(dx^2 + dy^2) as normal "
+    "against T; it ignores that the value is bounded at zero and skewed, which is why the "
+    "two disagree. Both are point estimates, without confidence bounds."
+)
+
+
+def _section_head(story, heading: str, intro: str, st) -> None:
+    """A section's heading and its first paragraph."""
+    from reportlab.platypus import Paragraph
+
+    story.append(Paragraph(heading, st["h1"]))
+    story.append(Paragraph(intro, st["body"]))
+
+
 def interval_section(story, number, results: Mapping, st, width) -> None:
     """Append the tolerance-interval section to a reportlab ``story``."""
     from reportlab.platypus import CondPageBreak, Paragraph, Spacer
@@ -85,18 +115,7 @@ def interval_section(story, number, results: Mapping, st, width) -> None:
     from studykit import theme
     from studykit.report.pdf import escape_text, framed_box, grid_table, number_text
 
-    story.append(Paragraph(f"{number}. Tolerance intervals", st["h1"]))
-    story.append(
-        Paragraph(
-            "Where the criterion asks that at least P % of parts lie within specification with "
-            "C % confidence, the statistical tolerance interval of ISO 16269-6 is computed from "
-            "the values the capability uses: normal theory with exact factors for a normal model, "
-            "on the log or Box-Cox scale for those models, from order statistics for any other "
-            "model. The criterion holds when the interval lies within the specification; the "
-            "verdict needs it and the index criterion both.",
-            st["body"],
-        )
-    )
+    _section_head(story, f"{number}. Tolerance intervals", _INTERVAL_INTRO, st)
     for name, res in results.items():
         ti = getattr(res, "tolerance_interval", None)
         if not ti:
@@ -183,19 +202,7 @@ def position_section(story, number, positions: Mapping, st, width) -> None:
     from studykit.report.pdf import escape_text, grid_table, number_text, pdf_image
     from studykit.report.position_figures import position_figure
 
-    story.append(Paragraph(f"{number}. Positional tolerances", st["h1"]))
-    story.append(
-        Paragraph(
-            "A true-position zone of diameter T is judged from the X and Y deviations of each part. "
-            "The two-dimensional model fits a bivariate normal (offset, unequal spreads, "
-            "correlation) and integrates it over the outside of the circular zone; the equivalent "
-            "index is the one-sided index with the same expected PPM. Beside it, the common "
-            "one-dimensional shortcut treats the position value 2 sqrt(dx^2 + dy^2) as normal "
-            "against T; it ignores that the value is bounded at zero and skewed, which is why the "
-            "two disagree. Both are point estimates, without confidence bounds.",
-            st["body"],
-        )
-    )
+    _section_head(story, f"{number}. Positional tolerances", _POSITION_INTRO, st)
     for name, payload in positions.items():
         res = position_result(payload)
         d = res.to_dict()

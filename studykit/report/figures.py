@@ -91,6 +91,27 @@ def figure_image(fig: Figure, *, dpi: int = 150):
         return img.convert("RGB")
 
 
+_WARM = False
+
+
+def warm_up() -> None:
+    """Draw one tiny figure with text, once per process: matplotlib's font list, the typeface
+    and the renderer's caches are loaded then (forked processes inherit them) rather than with
+    the first figure of the report. Draws nothing anyone sees."""
+    global _WARM
+    if _WARM:
+        return
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    with theme.matplotlib_context():
+        fig = Figure(figsize=(1.0, 1.0))
+        ax = fig.subplots()
+        ax.set_title("0", loc="left")
+        ax.set_xlabel("0")
+        FigureCanvasAgg(fig).draw()
+    _WARM = True
+
+
 def settle_titles(fig: Figure) -> None:
     """Skip matplotlib's automatic title placement on each axes where it cannot move the
     title: with the tick labels at the bottom, no twin or inset axes and no offset or exponent

@@ -18,6 +18,7 @@ methods, their published sources, the software versions and the digests.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import html
 import io
@@ -223,13 +224,15 @@ def analyze_for_report(
     *,
     progress: Callable[[int, int, str], None] | None = None,
     workers: int = 1,
+    meanwhile: Callable[[], None] | None = None,
 ):
     """Analyse every characteristic as the report does: (results, errors, measurements).
 
     Exactly :func:`studykit.analysis.analyze_all` (with the stored gauge results; ``gauges``
     None means no gauge search was made), so the report, ``studykit analyze`` and ``verify``
     agree. With ``workers`` > 1 the characteristics after the first are analysed by that many
-    forked processes (:func:`_analyze_in_workers`): the same calls, the same results.
+    forked processes (:func:`_analyze_in_workers`): the same calls, the same results; this
+    process runs ``meanwhile()`` (if given) while it waits for them.
     """
     from studykit.analysis import analyze_all, read_study_measurements
 
@@ -239,7 +242,9 @@ def analyze_for_report(
         import multiprocessing
 
         if "fork" in multiprocessing.get_all_start_methods():
-            results, errors = _analyze_in_workers(study, measurements, gauges, progress, workers)
+            results, errors = _analyze_in_workers(
+                study, measurements, gauges, progress, workers, meanwhile
+            )
             return results, errors, measurements
     res = analyze_all(study, measurements=measurements, progress=progress, gauges=gauges)
     return res.results, res.errors, measurements
@@ -266,18 +271,40 @@ def _analyze_in_worker(name: str):
     return _analyze_one(study, name, measurements, gauges)
 
 
-def _large_buffers_returned() -> None:
-    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
-    freed (``mallopt(M_MMAP_THRESHOLD)``): the raw pixels of each section (2-4 MB) then do not
-    stay in the heap after use. Without glibc nothing happens."""
+@functools.cache
+def _libc():
+    """glibc, or None where there is none (then the allocator calls below do nothing); looked
+    up once (``find_library`` asks ``ldconfig``)."""
     import ctypes
     import ctypes.util
 
     try:
         libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        return libc if hasattr(libc, "mallopt") and hasattr(libc, "malloc_trim") else None
+    except OSError:
+        return None
+
+
+def _large_buffers_returned() -> None:
+    """Ask glibc's allocator to map every block of 256 KiB or more on its own and return it when
+    freed (``mallopt(M_MMAP_THRESHOLD)``, which also stops glibc from raising that threshold
+    after such a block is freed). Called before the figure workers are forked, so they inherit
+    it: the raw pixels of each picture they draw (2-4 MB) then do not stay in their heaps after
+    use. Without glibc nothing happens."""
+    libc = _libc()
+    if libc is not None:
         libc.mallopt(-3, 256 * 1024)  # M_MMAP_THRESHOLD
-    except (OSError, AttributeError):
-        pass
+
+
+def _heap_trimmed() -> None:
+    """Give the free memory inside the heap back to the system (glibc ``malloc_trim(0)``): once
+    the pages are written, what laying them out held (the document's objects, the compressed
+    pictures) is free but lies below blocks still in use, so the heap cannot shrink from its
+    top; attaching the evidence then starts from the smaller process. Without glibc nothing
+    happens."""
+    libc = _libc()
+    if libc is not None:
+        libc.malloc_trim(0)
 
 
 def _forked_pool(workers: int):
@@ -294,10 +321,11 @@ def _forked_pool(workers: int):
         gc.unfreeze()
 
 
-def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
+def _analyze_in_workers(study, measurements, gauges, progress, workers: int, meanwhile=None):
     """(results, errors) of every characteristic, in the study's order: the first analysed
     here (which also loads the statistics modules once, before the fork), the others by
-    ``workers`` forked processes; each result comes back pickled (a plain copy)."""
+    ``workers`` forked processes; each result comes back pickled (a plain copy). While they
+    work, this process runs ``meanwhile()`` (the layout's preparations: a core is free)."""
 
     global _ANALYSIS_JOB
     names = study.characteristic_names
@@ -315,6 +343,8 @@ def _analyze_in_workers(study, measurements, gauges, progress, workers: int):
     try:
         with _forked_pool(min(workers, len(names) - 1)) as pool:
             outcomes = pool.imap(_analyze_in_worker, names[1:])
+            if meanwhile is not None:
+                meanwhile()
             for i, (name, outcome) in enumerate(zip(names[1:], outcomes, strict=True), start=1):
                 keep(i, name, outcome)
     finally:
@@ -431,11 +461,10 @@ def number_text(v, digits: int = 4) -> str:
 
 
 def _idx(v) -> str:
-    """Capability indices are printed with two decimals (the usual precision)."""
-    if v is None:
-        return "–"
-    v = float(v)
-    return f"{v:.2f}" if math.isfinite(v) else "–"
+    """A capability index as :func:`studykit.names.format_index` writes it (two decimals), with
+    the report's dash for a missing one."""
+    text = names.format_index(v)
+    return "–" if text == "-" else text  # a number always has digits: only "missing" is "-"
 
 
 def escape_text(text) -> str:
@@ -477,6 +506,19 @@ def _register_fonts() -> tuple[str, str]:
         addMapping("SKSans", 1, 1, "SKSans-BoldOblique")
         _FONTS_READY = True
     return "SKSans", "SKSans-Bold"
+
+
+def prepare_layout() -> None:
+    """Load what laying out the report and drawing its figures need: the report's fonts,
+    reportlab's layout modules and matplotlib with its fonts (one tiny figure drawn). Done once
+    per process, by :func:`build_report` while the analysis workers run (a core is free then),
+    so neither the layout nor each forked figure worker pays for it on its own."""
+    import reportlab.platypus  # noqa: F401 - loaded now, used by the layout
+
+    from studykit.report.figures import warm_up
+
+    report_styles()
+    warm_up()
 
 
 def report_styles():
@@ -609,6 +651,70 @@ def _PixelImage(pil, width):  # noqa: N802 - a flowable factory
     return PixelImage()
 
 
+def encode_picture(img) -> tuple:
+    """An RGB picture as the PDF image object reportlab makes of it: ((width, height) in
+    pixels, the name reportlab gives it, its Flate-compressed pixels). Done in a figure worker,
+    so the raw pixels (2-4 MB a picture) never travel to the layout process nor stay there;
+    :func:`_draw_encoded` writes exactly what ``canvas.drawImage`` writes for the picture."""
+    import zlib
+
+    from reportlab.lib.utils import _digester
+
+    raw = img.tobytes()  # what reportlab's ImageReader.getRGBData gives for an RGB picture
+    return img.size, _digester(raw + b"None"), zlib.compress(raw)  # b"None": no mask
+
+
+def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
+    """``canv.drawImage(ImageReader(picture), 0, 0, width, height)`` for a picture made by
+    :func:`encode_picture`: the same image object (registered once under the same name, Flate
+    only as :func:`render_pages` sets) and the same drawing operators, so the same bytes."""
+    from reportlab.pdfbase import pdfdoc
+
+    (px_w, px_h), name, stream = encoded
+    canv._currentPageHasImages = 1
+    doc = canv._doc
+    reg_name = doc.getXObjectName(name)
+    if not doc.idToObject.get(reg_name, None):
+        img = pdfdoc.PDFImageXObject(name, None, mask=None)
+        img.width, img.height = px_w, px_h
+        img.colorSpace, img.bitsPerComponent = "DeviceRGB", 8
+        img._filters = ("FlateDecode",)
+        img.streamContent = stream
+        canv._setXObjects(img)
+        doc.Reference(img, reg_name)
+        doc.addForm(name, img)
+    canv.saveState()
+    canv.translate(0, 0)
+    canv.scale(width, height)
+    canv._code.append(f"/{reg_name} Do")
+    canv.restoreState()
+    canv._formsinuse.append(name)
+
+
+def _EncodedPicture(encoded: tuple, width):  # noqa: N802 - a flowable factory
+    """A flowable drawing a picture made by :func:`encode_picture` at ``width``."""
+    from reportlab.platypus import Flowable
+
+    class EncodedPicture(Flowable):
+        def __init__(self):
+            super().__init__()
+            w, h = encoded[0]
+            self.drawWidth, self.drawHeight = width, width * h / w
+
+        def wrap(self, aw, ah):
+            return self.drawWidth, self.drawHeight
+
+        def draw(self):
+            _draw_encoded(self.canv, encoded, self.drawWidth, self.drawHeight)
+
+    return EncodedPicture()
+
+
+def _picture(img, width):
+    """The flowable of a section's picture: a PIL image drawn here, or one encoded by a worker."""
+    return _EncodedPicture(img, width) if isinstance(img, tuple) else _PixelImage(img, width)
+
+
 def section_images(res, raw) -> dict:
     """The pictures of one characteristic's section, rendered: ``control`` (the control chart
     of the final limits) and, for measured values with a probability plot, ``shape``."""
@@ -649,10 +755,11 @@ def _raw_values(measurements, name):
 
 
 def _render_in_worker(name: str) -> dict:
-    """In a forked worker: the pictures of ``name``'s section as (size, RGB bytes)."""
+    """In a forked worker: the pictures of ``name``'s section, encoded for the PDF
+    (:func:`encode_picture`)."""
     results, measurements = _FEED_JOB  # type: ignore[misc]
     images = section_images(results[name], _raw_values(measurements, name))
-    return {key: (img.size, img.tobytes()) for key, img in images.items()}
+    return {key: encode_picture(img) for key, img in images.items()}
 
 
 class _FigureFeed:
@@ -661,15 +768,16 @@ class _FigureFeed:
     With ``workers`` > 1 (and ``fork`` available) that many forked processes render the
     pictures of the next sections while this process lays out the current one; at most
     ``2 * workers`` sections are ahead, so memory does not grow with the number of
-    characteristics. The workers run the same code on the same results, so the pixels (and the
-    PDF bytes) are the same as when everything is drawn in this process (``workers`` = 1).
+    characteristics. The workers run the same code on the same results and send each picture
+    as the PDF image object reportlab would make of it (:func:`encode_picture`, about 76 KB
+    instead of 2-4 MB of pixels), so the pixels and the PDF bytes are the same as when
+    everything is drawn in this process (``workers`` = 1).
     """
 
     def __init__(self, results: Mapping, measurements, order):
         self.results, self.measurements = results, measurements
         self.order = list(order)
         self.pool = None
-        self.first: dict | None = None
         self.pending: list = []
         self.next = 0
 
@@ -677,17 +785,15 @@ class _FigureFeed:
         """Start the workers (none when ``workers`` <= 1, one section or no ``fork``)."""
         import multiprocessing
 
-        workers = min(int(workers), len(self.order) - 1)
+        workers = min(int(workers), len(self.order))
         if workers > 1 and "fork" in multiprocessing.get_all_start_methods():
             global _FEED_JOB
-            # the first section's pictures are drawn here: that loads matplotlib's modules and
-            # fonts once, before the fork, instead of once in every worker
-            first = self.order[0]
-            self.first = section_images(self.results[first], _raw_values(self.measurements, first))
+            # matplotlib's modules and fonts are loaded here, once, before the fork (done
+            # already while the analysis workers ran), instead of once in every worker
+            prepare_layout()
             _FEED_JOB = (self.results, self.measurements)
             _large_buffers_returned()
             self.pool = _forked_pool(workers)
-            self.next = 1
             for _ in range(2 * workers):
                 self._submit()
 
@@ -701,19 +807,11 @@ class _FigureFeed:
         """The pictures of ``name``'s section (rendered ahead, or on demand in this process)."""
         if self.pool is None:
             return _LazyImages(res, raw)
-        if self.first is not None:
-            images, self.first = self.first, None
-            return images
-        from PIL import Image
-
         want, job = self.pending.pop(0)
         if want != name:  # sections are laid out in the study's order
             raise RuntimeError(f"figure feed out of order: {name} asked, {want} ready")
         self._submit()
-        return {
-            key: Image.frombuffer("RGB", size, data, "raw", "RGB", 0, 1)
-            for key, (size, data) in job.get().items()
-        }
+        return job.get()
 
     def close(self) -> None:
         global _FEED_JOB
@@ -1066,9 +1164,32 @@ def _spec_text(c) -> str:
 
 
 def _characteristic_section(story, number, name, res, study, raw, st, width, figures_cache):
-    from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
-
+    """One characteristic's section: heading and verdict, the facts, stability (phase I), then
+    for measured values with a probability plot the shape and model, capability and the
+    closing blocks (streams, time model, findings, planning, warnings)."""
     c = study.characteristic(name)
+    images = figures_cache if figures_cache is not None else _LazyImages(res, raw)
+    _section_heading(story, number, name, res, c, st, width)
+    _facts_table(story, name, res, c, study, st, width)
+    _stability_block(story, res, c, images["control"], st, width)
+    if res.attribute:
+        _attribute_block(story, res, st, width)
+        _warnings_block(story, res, st)
+        return
+    if res.probability_plot is None:
+        _warnings_block(story, res, st)
+        return
+    _shape_block(story, res, images["shape"], st, width)
+    if res.capability is not None:
+        _capability_block(story, res, st, width)
+    _closing_blocks(story, res, st, width)
+
+
+def _section_heading(story, number, name, res, c, st, width) -> None:
+    """Heading, the safety caution, the description and the verdict box (the reader's
+    question first)."""
+    from reportlab.platypus import Paragraph, Spacer
+
     unit = f" [{escape_text(res.unit)}]" if res.unit else ""
     story.append(Paragraph(f"{number}. {escape_text(name)}{unit}", st["h1"]))
     if res.cautions:
@@ -1085,9 +1206,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         story.append(Spacer(1, 6))
     if c.description:
         story.append(Paragraph(escape_text(c.description), st["small"]))
-    # verdict first: the reader's question
-    key = _verdict_key(res)
-    v = theme.VERDICTS[key]
+    v = theme.VERDICTS[_verdict_key(res)]
     if res.verdict is not None:
         story.append(
             framed_box(
@@ -1105,14 +1224,14 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             )
         )
     story.append(Spacer(1, 6))
+
+
+def _facts_table(story, name, res, c, study, st, width) -> None:
+    """Specification, criterion, values used, removals, centre, chart and the two sigmas."""
     chart = res.chart
+    criterion = escape_text(study.criteria_for(name).describe())
     facts = [
-        [
-            "Specification",
-            _spec_text(c),
-            "Criterion",
-            escape_text(study.criteria_for(name).describe()),
-        ],
+        ["Specification", _spec_text(c), "Criterion", criterion],
         [
             "Values used",
             (
@@ -1147,8 +1266,7 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
         )
     else:
         facts[0][3] = (
-            "read as process Z / 3 from the exact upper bound on the defective rate "
-            f"({escape_text(study.criteria_for(name).describe())})"
+            f"read as process Z / 3 from the exact upper bound on the defective rate ({criterion})"
             if chart.kind in ("p", "np")
             else "not judged by an index (counted data; see the defects per unit below)"
         )
@@ -1158,21 +1276,38 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             facts, [0.8 * q, 1.35 * q, 0.7 * q, 1.15 * q], header=False, zebra=False, styles=st
         )
     )
-    # stability
+
+
+def _stability_block(story, res, c, control_image, st, width) -> None:
+    """Phase I: the control chart of the final limits, the model-scale note, the run-rule
+    signals, the removal log and the signals kept with a reason."""
+    from reportlab.platypus import Paragraph
+
     story.append(Paragraph("Stability (phase I)", st["h2"]))
-    images = figures_cache if figures_cache is not None else _LazyImages(res, raw)
-    story.append(_PixelImage(images["control"], width))
+    story.append(_picture(control_image, width))
     if res.chart_scale_text:  # phase I judged on the model's scale
-        scale_note = f"Charted on the model's scale: {res.chart_scale_text}."
-        pl = res.probability_limits
-        if pl is not None:
-            scale_note += (
-                f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
-                f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
-                f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
-            )
-        story.append(Paragraph(escape_text(scale_note), st["body"]))
-    signals = []
+        story.append(Paragraph(escape_text(_scale_note(res, c)), st["body"]))
+    _signals_block(story, res, st)
+    _removal_log(story, res, st, width)
+    _kept_signals_block(story, res, st, width)
+
+
+def _scale_note(res, c) -> str:
+    """Phase I charted on the model's scale, with the limits in measured units."""
+    note = f"Charted on the model's scale: {res.chart_scale_text}."
+    pl = res.probability_limits
+    if pl is not None:
+        note += (
+            f" In measured units the limits are LCL {names.format_value(pl['lcl'], c.lsl, c.usl)}, "
+            f"centre {names.format_value(pl['center'], c.lsl, c.usl)}, "
+            f"UCL {names.format_value(pl['ucl'], c.lsl, c.usl)}."
+        )
+    return note
+
+
+def _signal_lines(chart) -> list[str]:
+    """One line per run-rule signal on the final limits (part, test, text, subgroups)."""
+    lines = []
     for part, s in (("location", chart.location), ("dispersion", chart.dispersion)):
         if s is None:
             continue
@@ -1182,75 +1317,76 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
                 # a moving range at reading p is |x_p - x_(p-1)|: it points at both readings
                 pos = sorted({q for p in pos for q in (p - 1, p) if q >= 0})
             labels = [str(chart.labels[p]) for p in pos]
-            signals.append(
+            lines.append(
                 f"{names.chart_part_label(chart.kind, part).capitalize()}, "
                 f"Nelson test {sig.number}: {escape_text(sig.text)} "
                 f"(subgroup(s) {escape_text(', '.join(labels[:12]))}"
                 f"{'...' if len(labels) > 12 else ''})"
             )
+    return lines
+
+
+def _signals_block(story, res, st) -> None:
+    """The signals on the final limits (at most 20), or why there are none."""
+    from reportlab.platypus import Paragraph
+
+    chart = res.chart
+    rule_set = escape_text(names.rule_set_label(chart.location.rules))
+    signals = _signal_lines(chart)
     if signals:
+        story.append(Paragraph(f"Signals on the final limits ({rule_set}):", st["body"]))
+        for s in signals[:20]:
+            story.append(Paragraph(s, st["bullet"], bulletText="•"))
+    elif res.order is not None and res.order.flagged:
         story.append(
             Paragraph(
-                "Signals on the final limits "
-                f"({escape_text(names.rule_set_label(chart.location.rules))}):",
+                "Run rules not applied: the values are not in production "
+                "order, so stability could not be judged from them (see the "
+                "findings).",
                 st["body"],
             )
         )
-        for s in signals[:20]:
-            story.append(Paragraph(s, st["bullet"], bulletText="•"))
     else:
-        if res.order is not None and res.order.flagged:
-            story.append(
-                Paragraph(
-                    "Run rules not applied: the values are not in production "
-                    "order, so stability could not be judged from them (see the "
-                    "findings).",
-                    st["body"],
-                )
-            )
-        else:
-            story.append(
-                Paragraph(
-                    f"No run-rule signal on the final limits "
-                    f"({escape_text(names.rule_set_label(chart.location.rules))}).",
-                    st["body"],
-                )
-            )
-    if res.phase1.removals:
-        story.append(Spacer(1, 4))
-        rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
-        for r in res.phase1.removals:
-            rows.append(
-                [
-                    escape_text(r.label),
-                    escape_text(names.rule_label(r.rule)),
-                    str(r.iteration),
-                    escape_text(r.who or "–"),
-                    escape_text(r.reason),
-                ]
-            )
-        story.append(
-            KeepTogether(
-                [
-                    Paragraph("Removal log", st["cellb"]),
-                    grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15, 0.55)], styles=st),
-                ]
-            )
-        )
-    else:
+        story.append(Paragraph(f"No run-rule signal on the final limits ({rule_set}).", st["body"]))
+
+
+def _removal_log(story, res, st, width) -> None:
+    """The subgroups phase I removed (who, which rule, why), or a line saying none was."""
+    from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+    if not res.phase1.removals:
         story.append(Paragraph("No subgroup was removed.", st["body"]))
-    _kept_signals_block(story, res, st, width)
-    if res.attribute:
-        _attribute_block(story, res, st, width)
-        _warnings_block(story, res, st)
         return
-    if res.probability_plot is None:
-        _warnings_block(story, res, st)
-        return
-    # shape
+    story.append(Spacer(1, 4))
+    rows = [["Subgroup", "Rule", "Round", "Who", "Reason"]]
+    for r in res.phase1.removals:
+        rows.append(
+            [
+                escape_text(r.label),
+                escape_text(names.rule_label(r.rule)),
+                str(r.iteration),
+                escape_text(r.who or "–"),
+                escape_text(r.reason),
+            ]
+        )
+    story.append(
+        KeepTogether(
+            [
+                Paragraph("Removal log", st["cellb"]),
+                grid_table(rows, [w * width for w in (0.12, 0.1, 0.08, 0.15, 0.55)], styles=st),
+            ]
+        )
+    )
+
+
+def _shape_block(story, res, shape_image, st, width) -> None:
+    """Shape and model: the histogram and probability plot, normality tests, the model used
+    and why, the model list and the band of the index across the models not rejected."""
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
     story.append(CondPageBreak(260))
     story.append(Paragraph("Shape and model", st["h2"]))
-    story.append(_PixelImage(images["shape"], width))
+    story.append(_picture(shape_image, width))
     nm = res.normality or {}
     ad, sw = nm.get("anderson_darling"), nm.get("shapiro_wilk")
     if ad is not None:
@@ -1291,86 +1427,106 @@ def _characteristic_section(story, number, name, res, study, raw, st, width, fig
             text += " " + escape_text(mb.warning)
         story.append(Spacer(1, 4))
         story.append(Paragraph(text, st["body"]))
-    # capability
-    if res.capability is not None:
-        cap = res.capability
-        story.append(CondPageBreak(220))
-        story.append(Paragraph("Capability", st["h2"]))
-        level = cap.level
-        rows = [
-            [
-                "Index",
-                "Estimate",
-                f"Lower {level * 100:g}% bound (one-sided)",
-                f"Two-sided {level * 100:g}% interval",
-                "Bound method",
-            ]
+
+
+def _capability_rows(res) -> list[list[str]]:
+    """The capability table: each index with its estimate, one-sided lower bound, two-sided
+    interval and bound method; the judged one marked (a time-dependent class judged on its own
+    index gets a row of its own)."""
+    cap = res.capability
+    level = cap.level
+    rows = [
+        [
+            "Index",
+            "Estimate",
+            f"Lower {level * 100:g}% bound (one-sided)",
+            f"Two-sided {level * 100:g}% interval",
+            "Bound method",
         ]
-        judged_key = res.verdict.index if res.verdict is not None else res.criteria.get("index")
-        by_class = (res.time_model.judged or {}) if res.time_model is not None else {}
-        if by_class.get("basis") == "class_method":
-            judged_key = None  # judged on the class's own index: the extra row below
-        for k in ("cp", "cpk", "pp", "ppk", "cpm"):
-            est = getattr(cap, k)
-            b = (cap.bounds or {}).get(k) or {}
-            if est is None:
-                continue
-            judged = " (judged)" if k == judged_key else ""
-            rows.append(
-                [
-                    f"<b>{_index_name(k)}</b>{judged}",
-                    _idx(est),
-                    _idx(b.get("lower_bound")),
-                    f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
-                    if b.get("lower") is not None
-                    else "–",
-                    escape_text(names.bound_method_label(b.get("method", "–"))),
-                ]
-            )
-        if by_class.get("basis") == "class_method":
-            rows.append(
-                [
-                    f"<b>{_index_name(by_class['index'])}</b> by the time-dependent model "
-                    f"{escape_text(res.time_model.cls)} (judged)",
-                    _idx(by_class.get("estimate")),
-                    _idx(by_class.get("lower_bound")),
-                    "–",
-                    "parametric bootstrap of the class model",
-                ]
-            )
-        story.append(
-            grid_table(rows, [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)], styles=st)
+    ]
+    judged_key = res.verdict.index if res.verdict is not None else res.criteria.get("index")
+    by_class = (res.time_model.judged or {}) if res.time_model is not None else {}
+    if by_class.get("basis") == "class_method":
+        judged_key = None  # judged on the class's own index: the extra row below
+    for k in ("cp", "cpk", "pp", "ppk", "cpm"):
+        est = getattr(cap, k)
+        b = (cap.bounds or {}).get(k) or {}
+        if est is None:
+            continue
+        judged = " (judged)" if k == judged_key else ""
+        rows.append(
+            [
+                f"<b>{_index_name(k)}</b>{judged}",
+                _idx(est),
+                _idx(b.get("lower_bound")),
+                f"{_idx(b.get('lower'))} to {_idx(b.get('upper'))}"
+                if b.get("lower") is not None
+                else "–",
+                escape_text(names.bound_method_label(b.get("method", "–"))),
+            ]
         )
-        ppm = (
-            f"Expected parts per million outside the specification: overall "
-            f"{number_text(cap.ppm_overall, 3)}"
+    if by_class.get("basis") == "class_method":
+        rows.append(
+            [
+                f"<b>{_index_name(by_class['index'])}</b> by the time-dependent model "
+                f"{escape_text(res.time_model.cls)} (judged)",
+                _idx(by_class.get("estimate")),
+                _idx(by_class.get("lower_bound")),
+                "–",
+                "parametric bootstrap of the class model",
+            ]
         )
-        if cap.ppm_within is not None:
-            ppm += f", within {number_text(cap.ppm_within, 3)}"
-        ppm += (
-            f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
-            f"{escape_text(names.bound_method_label(cap.method))}."
-        )
-        from studykit.analysis import capability_method_text
+    return rows
 
-        ppm += (
-            " Convention: "
-            + escape_text(
-                capability_method_text(
-                    cap.to_dict(), None if res.model is None else res.model.to_dict()
-                )
-            )
-            + "."
+
+def _ppm_text(res) -> str:
+    """Expected and observed parts per million outside the specification, the method and the
+    convention of the indices."""
+    from studykit.analysis import capability_method_text
+
+    cap = res.capability
+    ppm = (
+        f"Expected parts per million outside the specification: overall "
+        f"{number_text(cap.ppm_overall, 3)}"
+    )
+    if cap.ppm_within is not None:
+        ppm += f", within {number_text(cap.ppm_within, 3)}"
+    ppm += (
+        f"; observed {number_text(cap.ppm_observed, 3)}. Method: "
+        f"{escape_text(names.bound_method_label(cap.method))}."
+    )
+    convention = capability_method_text(
+        cap.to_dict(), None if res.model is None else res.model.to_dict()
+    )
+    return ppm + " Convention: " + escape_text(convention) + "."
+
+
+def _capability_block(story, res, st, width) -> None:
+    """Capability: the index table, the PPM sentence and the interval drawing."""
+    from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+
+    story.append(CondPageBreak(220))
+    story.append(Paragraph("Capability", st["h2"]))
+    story.append(
+        grid_table(
+            _capability_rows(res), [w * width for w in (0.16, 0.13, 0.25, 0.24, 0.22)], styles=st
         )
-        story.append(Spacer(1, 3))
-        story.append(Paragraph(ppm, st["body"]))
-        story.append(Spacer(1, 4))
-        story.append(_interval_drawing(res, width, st))
+    )
+    story.append(Spacer(1, 3))
+    story.append(Paragraph(_ppm_text(res), st["body"]))
+    story.append(Spacer(1, 4))
+    story.append(_interval_drawing(res, width, st))
+
+
+def _closing_blocks(story, res, st, width) -> None:
+    """Several streams, the time-dependent class (ISO 22514-2), findings, demonstration
+    planning and warnings."""
+    from reportlab.platypus import Paragraph
+
     from studykit.report.streams import streams_block  # several streams (cavities...)
-
-    streams_block(story, res, st, width, table=grid_table, image=pdf_image, esc=escape_text)
     from studykit.report.time_model import time_model_block  # ISO 22514-2 class
 
+    streams_block(story, res, st, width, table=grid_table, image=pdf_image, esc=escape_text)
     time_model_block(story, res, st, width, table=grid_table, esc=escape_text)
     if res.findings:
         story.append(Paragraph("Findings", st["h2"]))
@@ -2146,7 +2302,11 @@ def build_report(
             progress(done, total, f"analysed {name}")
 
     results, errors, measurements = analyze_for_report(
-        study, stored_gauges, progress=_analysis_progress, workers=workers
+        study,
+        stored_gauges,
+        progress=_analysis_progress,
+        workers=workers,
+        meanwhile=prepare_layout if workers > 1 else None,
     )
     evidence = collect_evidence(study, results, errors, stored_gauges, chain)
     # stored short gauge studies (one reference part) go into the evidence when there are any
@@ -2186,6 +2346,7 @@ def build_report(
             out=pages_path,
             workers=workers,
         )
+        _heap_trimmed()
         _attach(pages_path, evidence_bytes, boxes, tmp)
         os.replace(tmp, out)
     finally:

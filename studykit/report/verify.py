@@ -28,6 +28,7 @@ import io
 import json
 import logging
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -428,65 +429,17 @@ def _signature_checks(
                 checks.append(Check(label, "fail", f"cannot be validated ({exc}); {cert_text}"))
                 signer["trust"] = "invalid"
                 continue
-            last = i == len(sigs) - 1
-            if not (st.intact and st.valid):
-                checks.append(
-                    Check(
-                        label,
-                        "fail",
-                        f"NOT INTACT: the signed bytes were changed after signing; {cert_text}",
+            problem = _signature_problem(st, last=i == len(sigs) - 1)
+            if problem is None:
+                when = st.signer_reported_dt
+                signer["signed_at"] = when.astimezone(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+                expired = info.validity_problem(when)
+                if expired:
+                    problem = (
+                        f"intact, but the certificate was {expired} when it signed: not evidence"
                     )
-                )
-                signer["trust"] = "invalid"
-                continue
-            mod = getattr(st, "modification_level", None)
-            mod_name = getattr(mod, "name", str(mod))
-            if mod_name not in ("NONE", "LTA_UPDATES", "FORM_FILLING"):
-                checks.append(
-                    Check(
-                        label,
-                        "fail",
-                        "intact, but the file was changed after this "
-                        f"signature in a way signing does not explain ({mod_name}); "
-                        f"{cert_text}",
-                    )
-                )
-                signer["trust"] = "invalid"
-                continue
-            cov = getattr(getattr(st, "coverage", None), "name", "")
-            if last and cov != "ENTIRE_FILE":
-                checks.append(
-                    Check(
-                        label,
-                        "fail",
-                        f"intact, but bytes were appended after the last signature; {cert_text}",
-                    )
-                )
-                signer["trust"] = "invalid"
-                continue
-            when = getattr(st, "signer_reported_dt", None)
-            if when is None:
-                checks.append(
-                    Check(
-                        label,
-                        "fail",
-                        f"intact, but it states no signing time, so "
-                        f"the certificate's validity cannot be checked; {cert_text}",
-                    )
-                )
-                signer["trust"] = "invalid"
-                continue
-            signer["signed_at"] = when.astimezone(datetime.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-            problem = info.validity_problem(when)
-            if problem:
-                checks.append(
-                    Check(
-                        label,
-                        "fail",
-                        f"intact, but the certificate was {problem} "
-                        f"when it signed: not evidence; {cert_text}",
-                    )
-                )
+            if problem is not None:
+                checks.append(Check(label, "fail", f"{problem}; {cert_text}"))
                 signer["trust"] = "invalid"
                 continue
             signed_s = f"signed {signer['signed_at']}"
@@ -529,6 +482,29 @@ def _signature_checks(
     finally:
         logger.setLevel(level)
     return checks, True, signers
+
+
+def _signature_problem(st, *, last: bool) -> str | None:
+    """Why a validated signature (pyHanko's status ``st``) is not evidence, before its
+    certificate's validity is looked at: bytes changed after signing, a change signing does not
+    explain, bytes appended after the ``last`` signature, or no signing time; None when none."""
+    if not (st.intact and st.valid):
+        return "NOT INTACT: the signed bytes were changed after signing"
+    mod = getattr(st, "modification_level", None)
+    mod_name = getattr(mod, "name", str(mod))
+    if mod_name not in ("NONE", "LTA_UPDATES", "FORM_FILLING"):
+        return (
+            "intact, but the file was changed after this "
+            f"signature in a way signing does not explain ({mod_name})"
+        )
+    cov = getattr(getattr(st, "coverage", None), "name", "")
+    if last and cov != "ENTIRE_FILE":
+        return "intact, but bytes were appended after the last signature"
+    if getattr(st, "signer_reported_dt", None) is None:
+        return (
+            "intact, but it states no signing time, so the certificate's validity cannot be checked"
+        )
+    return None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1092,44 +1068,55 @@ def _short_gauge_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded short gauge study from its readings; returns numbers compared."""
     from studykit.report.gauge_error import recheck_short_study
 
-    return _recomputed_checks(
-        evidence.get("short_gauges"),
-        "short gauge study of",
-        "readings",
-        recheck_short_study,
-        lambda payload, fresh: {k: v for k, v in payload.items() if k in fresh},
-        checks,
-    )
+    short = _Recheck("short gauge study of", "readings", recheck_short_study, _fresh_keys)
+    return short.run(evidence.get("short_gauges"), checks)
 
 
 def _position_checks(evidence: dict, checks: list) -> int:
     """Recompute each embedded position study from its deviations; returns numbers compared."""
     from studykit.positions import recheck_position
 
-    return _recomputed_checks(
-        evidence.get("positions"),
-        "position study",
-        "deviations",
-        recheck_position,
-        lambda payload, fresh: payload.get("result") or {},
-        checks,
-    )
+    position = _Recheck("position study", "deviations", recheck_position, _stored_result)
+    return position.run(evidence.get("positions"), checks)
 
 
-def _recomputed_checks(payloads, what: str, raw: str, recheck, reported, checks: list) -> int:
-    """Recompute each embedded study ``{name: payload}`` from its ``raw`` values with
-    ``recheck(payload)`` and compare ``reported(payload, fresh)`` with it, one check per study
-    (a study that cannot be recomputed fails); returns the numbers compared."""
-    total = 0
-    for name, payload in sorted((payloads or {}).items()):
-        label = f"{what} {name}"
-        try:
-            fresh = recheck(payload)
-        except (StudyInputError, KeyError, TypeError, ValueError) as exc:
-            checks.append(Check(label, "fail", f"cannot be recomputed from its {raw}: {exc}"))
-            continue
-        total += _compare_check(label, reported(payload, fresh), fresh, f"the {raw}", checks)
-    return total
+def _fresh_keys(payload, fresh) -> dict:
+    """The numbers of ``payload`` that the recomputation gives too."""
+    return {k: v for k, v in payload.items() if k in fresh}
+
+
+def _stored_result(payload, fresh) -> dict:
+    """The stored result of ``payload``."""
+    return payload.get("result") or {}
+
+
+@dataclass(frozen=True)
+class _Recheck:
+    """An embedded kind of study that ``verify`` recomputes: ``what`` names it in the check
+    lines, ``raw`` its stored values; ``recheck(payload)`` gives the fresh numbers and
+    ``reported(payload, fresh)`` the stored ones to compare with them."""
+
+    what: str
+    raw: str
+    recheck: Callable
+    reported: Callable
+
+    def run(self, payloads, checks: list) -> int:
+        """One check per embedded study ``{name: payload}`` (a study that cannot be recomputed
+        fails); returns the numbers compared."""
+        total = 0
+        for name, payload in sorted((payloads or {}).items()):
+            label = f"{self.what} {name}"
+            try:
+                fresh = self.recheck(payload)
+            except (StudyInputError, KeyError, TypeError, ValueError) as exc:
+                checks.append(
+                    Check(label, "fail", f"cannot be recomputed from its {self.raw}: {exc}")
+                )
+                continue
+            reported = self.reported(payload, fresh)
+            total += _compare_check(label, reported, fresh, f"the {self.raw}", checks)
+        return total
 
 
 def _compare_check(label, reported, fresh, source, checks) -> int:
