@@ -8,6 +8,7 @@ from __future__ import annotations
 import csv
 import functools
 import re
+import sys
 
 import numpy as np
 
@@ -160,7 +161,8 @@ def _pandas_reader(handle, src: Source, sep: str, skiprows: int, **options):
 
 class _PlainSplit:
     """The plain split of a small table (:func:`studykit.io.plain.plain_records`), made once
-    and shared by the text and the number route; None when the table needs pandas."""
+    and shared by the text and the number route; None when the table needs pandas or pandas
+    is already loaded (then it costs nothing more and its result is the reference)."""
 
     def __init__(self, src: Source, sep: str):
         self.src, self.sep = src, sep
@@ -169,7 +171,11 @@ class _PlainSplit:
 
     def __call__(self):
         if not self._done:
-            self._records = plain_records(self.src.data, self.src.encoding, self.sep)
+            self._records = (
+                None
+                if "pandas" in sys.modules
+                else plain_records(self.src.data, self.src.encoding, self.sep)
+            )
             self._done = True
         return self._records
 
