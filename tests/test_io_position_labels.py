@@ -28,3 +28,16 @@ def test_other_codes_match_numpy():
     for codes in (rng.integers(0, 50_000, 20_000), np.repeat(np.arange(3000), 5)):
         got, ref = _position_labels(codes), _numpy(codes)
         assert got.dtype == ref.dtype and got.tobytes() == ref.tobytes()
+
+
+@pytest.mark.parametrize(
+    "n", [1, 9, 12, 999, 1000, 1001, 1999, 2000, 10999, 99999, 100000, 100999, 1000000, 1001001]
+)
+def test_counting_labels_match_numpy_at_block_edges(n):
+    """The table route (last three digits repeating, leading parts per 1000 numbers) at the
+    ends of the 1000-number blocks and of each number length."""
+    from studykit.io.assemble import _counting_labels
+
+    got, ref = _counting_labels(n), _numpy(np.arange(n))
+    assert got.dtype == ref.dtype
+    assert got.tobytes() == ref.tobytes()

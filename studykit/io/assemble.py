@@ -409,16 +409,31 @@ def _position_labels(codes: np.ndarray) -> np.ndarray:
 
 def _counting_labels(n: int) -> np.ndarray:
     """``'1', '2', ..., str(n)`` as a ``<U{digits of n}`` array, written digit by digit: the
-    numbers of each length are one block of rows, each digit one column of code points."""
+    numbers of each length are one block of rows, each digit one column of code points. The
+    last three digits repeat every 1000 numbers and the digits before them change once every
+    1000 numbers, so each block is written from a table of 000-999 and the few distinct
+    leading parts (contiguous copies instead of one division per digit and row)."""
     width = len(str(n))
     chars = np.zeros((n, width), dtype="<u4")  # little-endian code points, as "<U"
+    three = np.arange(1000)
+    table = np.stack([three // 100, three // 10 % 10, three % 10], axis=1).astype("<u4") + 48
     lo = 1
     for length in range(1, width + 1):
         hi = min(n, 10**length - 1)  # the numbers lo..hi have `length` digits
-        x = np.arange(lo, hi + 1, dtype=np.int64)
         block = chars[lo - 1 : hi]
-        for j in range(length):
-            block[:, j] = (x // 10 ** (length - 1 - j)) % 10 + ord("0")
+        tail = min(length, 3)
+        # the last `tail` digits: the table's rows lo % 1000 ... hi % 1000, repeating
+        reps = np.resize(table[:, 3 - tail :], (lo % 1000 + hi - lo + 1, tail))
+        block[:, length - tail : length] = reps[lo % 1000 :]
+        if length > 3:
+            heads = np.arange(lo // 1000, hi // 1000 + 1, dtype=np.int64)  # the leading parts
+            digits = np.empty((heads.size, length - 3), dtype="<u4")
+            for j in range(length - 3):
+                digits[:, j] = heads // 10 ** (length - 4 - j) % 10 + 48
+            # each leading part stands on the rows of its 1000 numbers within lo..hi
+            starts = np.maximum(heads * 1000, lo) - lo
+            ends = np.minimum(heads * 1000 + 999, hi) - lo + 1
+            block[:, : length - 3] = np.repeat(digits, ends - starts, axis=0)
         lo = hi + 1
     return chars.view(f"<U{width}").reshape(n)
 

@@ -107,13 +107,15 @@ class AndersonDarlingResult(Result):
         }
 
 
-def anderson_darling(x) -> AndersonDarlingResult:
+def anderson_darling(x, *, ordered=None) -> AndersonDarlingResult:
     """Anderson-Darling test that ``x`` comes from a normal distribution.
 
     Parameters
     ----------
     x : array-like
         At least 3 finite measurements with some spread.
+    ordered : ndarray, optional
+        ``np.sort(x)`` when the caller has made it (shared with other steps).
 
     Returns
     -------
@@ -141,7 +143,8 @@ def anderson_darling(x) -> AndersonDarlingResult:
     >>> round(r.a2, 6), round(r.p_value, 6)
     (0.304858, 0.507862)
     """
-    arr = np.sort(_clean(x))
+    arr = _clean(x)
+    arr = ordered if ordered is not None and ordered.shape == arr.shape else np.sort(arr)
     n = arr.size
     z = (arr - arr.mean()) / arr.std(ddof=1)
     # special.log_ndtr(z), log_ndtr(-z): what scipy.stats.norm.logcdf / logsf compute, without
@@ -181,13 +184,15 @@ class ShapiroWilkResult(Result):
         return {"method": self.method, "n": self.n, "w": self.w, "p_value": self.p_value}
 
 
-def shapiro_wilk(x) -> ShapiroWilkResult:
+def shapiro_wilk(x, *, ordered=None) -> ShapiroWilkResult:
     """Shapiro-Wilk test that ``x`` comes from a normal distribution.
 
     Parameters
     ----------
     x : array-like
         3 to 5000 finite measurements with some spread (above 5000 the p-value is rough).
+    ordered : ndarray, optional
+        ``np.sort(x)`` when the caller has made it (copied, not changed).
 
     Returns
     -------
@@ -215,7 +220,11 @@ def shapiro_wilk(x) -> ShapiroWilkResult:
     if swilk is not None and arr.dtype == np.float64 and arr.ndim == 1 and arr.size >= 3:
         # the steps of scipy.stats.shapiro around its compiled routine (scipy 1.17,
         # _morestats.py), without importing scipy.stats: same statistic and p-value
-        y = np.sort(arr)
+        y = (
+            np.array(ordered)
+            if ordered is not None and ordered.shape == arr.shape
+            else np.sort(arr)
+        )
         y -= arr[arr.size // 2]  # scipy subtracts this value (a nearby median; gh-15777)
         w, pw, ifault = swilk(y, np.zeros(arr.size // 2, dtype=np.float64), 0)
         if ifault in (0, 2):

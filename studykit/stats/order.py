@@ -133,7 +133,12 @@ def _life_test_name(name: str, unit: str | None) -> bool:
 
 
 def check_order(
-    values, *, name: str = "", unit: str | None = None, has_times: bool = False
+    values,
+    *,
+    name: str = "",
+    unit: str | None = None,
+    has_times: bool = False,
+    perm: np.ndarray | None = None,
 ) -> OrderCheck:
     """Check whether the values are in production order or sorted (see the module notes).
 
@@ -145,6 +150,9 @@ def check_order(
         Characteristic name and unit, for the life-test check.
     has_times : bool
         The file gives a time for each value (then a life-test name alone is not flagged).
+    perm : ndarray, optional
+        ``np.argsort(values)`` when the caller has made it (to share the sort with other
+        steps); used only when every value is finite, else the sort is made here.
 
     Returns
     -------
@@ -176,7 +184,7 @@ def check_order(
     monotone = _monotone(x, n)
     if monotone is not None:
         return monotone
-    tau, p = kendall_tau_position(x)
+    tau, p = kendall_tau_position(x, perm=perm if perm is not None and perm.size == n else None)
     if math.isfinite(tau) and abs(tau) >= TAU_SORTED and p < ALPHA:
         direction = "increasing" if tau > 0 else "decreasing"
         return OrderCheck(
@@ -232,14 +240,16 @@ def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
 PAIRWISE_MAX_N = 600
 
 
-def _discordant_and_ties(x: np.ndarray) -> tuple[int, np.ndarray]:
-    """(discordant pairs between position and value, sizes of the groups of tied values)."""
+def _discordant_and_ties(x: np.ndarray, perm: np.ndarray | None = None) -> tuple[int, np.ndarray]:
+    """(discordant pairs between position and value, sizes of the groups of tied values);
+    ``perm``: ``np.argsort(x)`` when the caller has it."""
     size = int(x.size)
     if size <= PAIRWISE_MAX_N:
         dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
         cnt = np.unique(x, return_counts=True)[1].astype("int64", copy=False)
         return dis, cnt
-    perm = np.argsort(x)
+    if perm is None:
+        perm = np.argsort(x)
     ordered = x[perm]
     dense = np.r_[False, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
     ranks = np.empty(size, dtype=np.intp)
@@ -311,7 +321,7 @@ def discordant_pairs(ranks, m: int | None = None) -> int:
     return total
 
 
-def kendall_tau_position(x) -> tuple[float, float]:
+def kendall_tau_position(x, *, perm: np.ndarray | None = None) -> tuple[float, float]:
     """Kendall's tau-b between position and ``x`` and its two-sided p-value, as
     ``scipy.stats.kendalltau(np.arange(n), x)`` returns them, bit for bit.
 
@@ -319,7 +329,8 @@ def kendall_tau_position(x) -> tuple[float, float]:
     arithmetic for tau-b and for the asymptotic p-value (positions have no ties) is repeated
     step by step, without scipy's second sort and argument handling. The cases where scipy
     uses its exact p-value (no ties and n <= 33, or at most one pair out of place either way)
-    are passed to scipy itself.
+    are passed to scipy itself. ``perm`` is ``np.argsort(x)`` when the caller has made it
+    (any order of tied values gives the same counts).
 
     >>> x = np.array([5.1, 4.9, 5.3, 5.0, 4.8, 5.2, 5.1, 4.9, 5.0, 5.2, 5.4, 4.7] * 3)
     >>> from scipy import stats
@@ -330,7 +341,7 @@ def kendall_tau_position(x) -> tuple[float, float]:
     x = np.asarray(x, dtype=float).ravel()
     size = int(x.size)
     if size > 2:
-        dis, cnt = _discordant_and_ties(x)
+        dis, cnt = _discordant_and_ties(x, perm)
         tot = (size * (size - 1)) // 2
         cnt = cnt[cnt > 1]
         ytie = int((cnt * (cnt - 1) // 2).sum())
