@@ -18,7 +18,14 @@ import importlib
 from types import ModuleType
 from typing import Any
 
-__all__ = ["LazyModule", "brentq", "quad_whole_line", "scipy_compiled", "scipy_stats"]
+__all__ = [
+    "LazyModule",
+    "brentq",
+    "f_sf",
+    "quad_whole_line",
+    "scipy_compiled",
+    "scipy_stats",
+]
 
 
 class LazyModule:
@@ -122,8 +129,10 @@ def quad_whole_line(func, *, epsabs: float, epsrel: float, limit: int) -> tuple[
     return value, abserr
 
 
-def brentq(f, a: float, b: float, *, xtol: float, maxiter: int = 100) -> float:
-    """``scipy.optimize.brentq(f, a, b, xtol=xtol, maxiter=maxiter)`` (default ``rtol``): the
+def brentq(
+    f, a: float, b: float, *, xtol: float, rtol: float = _BRENTQ_RTOL, maxiter: int = 100
+) -> float:
+    """``scipy.optimize.brentq(f, a, b, xtol=xtol, rtol=rtol, maxiter=maxiter)``: the
     same compiled root finder without importing ``scipy.optimize``; any failure (no sign
     change, a NaN value, ...) goes to ``brentq`` itself, which raises or answers as it does.
 
@@ -131,7 +140,7 @@ def brentq(f, a: float, b: float, *, xtol: float, maxiter: int = 100) -> float:
     True
     """
     zeros = scipy_compiled("optimize._zeros")
-    if zeros is not None and xtol > 0:
+    if zeros is not None and xtol > 0 and rtol >= _BRENTQ_RTOL:
 
         def checked(x, *args):
             fx = f(x, *args)
@@ -140,9 +149,25 @@ def brentq(f, a: float, b: float, *, xtol: float, maxiter: int = 100) -> float:
             return fx
 
         try:
-            return zeros._brentq(checked, a, b, xtol, _BRENTQ_RTOL, maxiter, (), False, True)
+            return zeros._brentq(checked, a, b, xtol, rtol, maxiter, (), False, True)
         except Exception:  # noqa: BLE001 - scipy's own call below raises as it does
             pass
     from scipy import optimize
 
-    return optimize.brentq(f, a, b, xtol=xtol, maxiter=maxiter)
+    return optimize.brentq(f, a, b, xtol=xtol, rtol=rtol, maxiter=maxiter)
+
+
+def f_sf(x: float, dfn: float, dfd: float) -> float:
+    """``float(scipy.stats.f.sf(x, dfn, dfd))`` (the F distribution's upper tail), bit for bit:
+    for 0 < x < inf and positive degrees of freedom scipy's answer is
+    ``scipy.special.fdtrc(dfn, dfd, x)`` (its ``f._sf``; loc 0 and scale 1 change nothing),
+    taken here without importing ``scipy.stats``; any other case goes to scipy.stats itself.
+
+    >>> f_sf(2.5, 3, 20) == float(scipy_stats.f.sf(2.5, 3, 20))
+    True
+    """
+    if 0.0 < x < float("inf") and dfn > 0 and dfd > 0:
+        from scipy.special import fdtrc
+
+        return float(fdtrc(dfn, dfd, x))
+    return float(scipy_stats.f.sf(x, dfn, dfd))

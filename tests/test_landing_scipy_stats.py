@@ -1,0 +1,239 @@
+"""The workbook's landing view (the demo study, as the kernel builds it) and ``scipy.stats``.
+
+``scipy.stats`` with what it imports (``scipy.interpolate``, ``scipy.optimize``,
+``scipy.integrate``, ``scipy.sparse``, ...) holds about 20 MB of every workbook kernel. The
+landing view's analyses call the ``scipy.special`` routine ``scipy.stats`` itself calls wherever
+the result is the same bit for bit; the checks below compare each replacement with the public
+scipy function over many random arguments, with exact equality (reference library: scipy,
+``scipy.stats.beta.ppf``, ``f.sf``, ``norm.cdf``/``pdf``, ``linregress``, ``kendalltau``,
+``scipy.integrate.quad``, ``scipy.optimize.brentq``).
+
+The landing view still reaches ``scipy.stats`` through the modules in ``KNOWN`` (tolerance
+intervals, attribute capability, the fitted models' frozen distributions); the list only shrinks,
+and once it is empty the landing view must not import ``scipy.stats`` at all.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+#: Modules whose ``scipy.stats`` calls the landing view of the demo study still makes (the
+#: innermost studykit frame of each call). Only shrinks: delete an entry once it is fixed.
+KNOWN = {
+    "studykit/stats/attribute.py",
+    "studykit/stats/families/gamma.py",
+    "studykit/stats/families/lognormal.py",
+    "studykit/stats/tolerance.py",
+}
+
+_LANDING = r"""
+import json, os, shutil, sys, tempfile, traceback
+
+first = {}
+
+class Finder:
+    def find_spec(self, name, path=None, target=None):
+        if name == "scipy.stats" and name not in first:
+            first[name] = _caller(traceback.extract_stack())
+        return None
+
+def _caller(stack):
+    files = [f.filename for f in stack if "studykit" in f.filename and "lazy.py" not in f.filename]
+    if not files:
+        return None
+    name = files[-1].replace(os.sep, "/")
+    return name[name.rindex("studykit/"):]
+
+sys.meta_path.insert(0, Finder())
+from studykit.stats import lazy
+
+callers = set()
+plain = lazy.LazyModule.__getattr__
+
+def traced(self, attr):
+    if self._name == "scipy.stats":
+        callers.add(_caller(traceback.extract_stack()[:-1]))
+    return plain(self, attr)
+
+lazy.LazyModule.__getattr__ = traced
+from studykit.app.session import demo_study_path
+path = os.path.join(tempfile.mkdtemp(), "pilot.study")
+shutil.copy(demo_study_path(), path)
+os.environ["STUDYKIT_STUDY"] = path
+from studykit.app import workbook_from_environment
+wb = workbook_from_environment()
+errors = [m for m in wb.context.messages.messages if m[0] == "error"]
+print(json.dumps({
+    "current": wb.current,
+    "errors": len(errors),
+    "callers": sorted(c for c in callers if c),
+    "first": first.get("scipy.stats"),
+    "imported": "scipy.stats" in sys.modules,
+}))
+"""
+
+
+def test_landing_view_reaches_scipy_stats_only_through_known_modules():
+    env = {
+        **os.environ,
+        "STUDYKIT_LIVE_POLL_MS": "0",
+        "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]),
+    }
+    run = subprocess.run(
+        [sys.executable, "-c", _LANDING], cwd=ROOT, env=env, capture_output=True, text=True
+    )
+    assert run.returncode == 0, run.stderr[-2000:]
+    seen = json.loads(run.stdout.strip().splitlines()[-1])
+    assert (seen["current"], seen["errors"]) == ("limits", 0)  # the landing view was built
+    callers = set(seen["callers"]) | ({seen["first"]} if seen["first"] else set())
+    assert callers <= KNOWN, sorted(callers - KNOWN)
+    assert KNOWN <= callers, f"fixed, delete from KNOWN: {sorted(KNOWN - callers)}"
+    if not KNOWN:
+        assert seen["imported"] is False
+
+
+def test_beta_band_equals_scipy_beta_ppf():
+    from scipy import stats
+
+    from studykit.stats.normality import _beta_band
+
+    rng = np.random.default_rng(141)
+    for n in [*range(1, 60), 125, 500, 5000]:
+        for level in (0.9, 0.95, 0.99, float(rng.uniform(0.01, 0.999))):
+            i = np.arange(1, n + 1)
+            lo, hi = _beta_band(n, level)
+            ref_lo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
+            ref_hi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+            assert lo.dtype == ref_lo.dtype and lo.shape == ref_lo.shape
+            assert np.array_equal(lo, ref_lo) and np.array_equal(hi, ref_hi), (n, level)
+
+
+def _same(a: float, b: float) -> bool:
+    return a == b or (math.isnan(a) and math.isnan(b))
+
+
+def test_f_sf_equals_scipy():
+    from scipy import stats
+
+    from studykit.stats.lazy import f_sf
+
+    rng = np.random.default_rng(142)
+    for _ in range(5000):
+        dfn = int(rng.integers(1, 200))
+        dfd = float(rng.integers(1, 5000)) if rng.random() < 0.5 else int(rng.integers(1, 5000))
+        x = float(rng.choice([rng.uniform(0, 10), rng.exponential(1), 10 ** rng.uniform(-8, 4)]))
+        assert f_sf(x, dfn, dfd) == float(stats.f.sf(x, dfn, dfd)), (x, dfn, dfd)
+    for x in (0.0, -1.0, math.inf, math.nan):  # the edge cases scipy answers itself
+        for dfn, dfd in ((3, 10), (0, 5), (2, 0)):
+            assert _same(f_sf(x, dfn, dfd), float(stats.f.sf(x, dfn, dfd)))
+
+
+def test_least_squares_line_equals_linregress():
+    from scipy import stats
+
+    from studykit.stats.timedep import _line
+
+    rng = np.random.default_rng(143)
+    for n in [*range(3, 60), 125, 2000]:
+        for rep in range(12):
+            if rep % 3 == 0:
+                x = np.arange(1, n + 1, dtype=float)
+            elif rep % 3 == 1:
+                x = np.round(rng.uniform(0, 50, n), 1)
+            else:
+                x = rng.normal(5, 3, n)
+            y = rng.normal(rng.uniform(-100, 100), 10 ** rng.uniform(-4, 2), n)
+            y = y + rng.uniform(-1, 1) * x
+            if np.ptp(x) == 0:
+                continue
+            ours, ref = _line(x, y), stats.linregress(x, y)
+            assert (ours.slope, ours.intercept) == (ref.slope, ref.intercept), (n, rep)
+
+
+def test_trend_tau_equals_kendalltau():
+    from scipy import stats
+
+    from studykit.stats.timedep import _kendall_trend
+
+    rng = np.random.default_rng(144)
+    for n in [*range(3, 50), 125]:
+        pos = np.arange(1, n + 1, dtype=float)
+        for rep in range(20):
+            y = rng.normal(size=n) + rng.uniform(-0.2, 0.2) * pos
+            if rep % 4 == 1:
+                y = np.round(y, 1)  # ties: the asymptotic p-value
+            elif rep % 4 == 2:
+                y = np.sort(y)  # all in order, then at most one pair swapped
+                if rep % 8 == 2:
+                    i = int(rng.integers(0, n - 1))
+                    y[[i, i + 1]] = y[[i + 1, i]]
+            ours, ref = _kendall_trend(pos, y), stats.kendalltau(pos, y)
+            assert (ours.statistic, ours.pvalue) == (ref.statistic, ref.pvalue), (n, rep)
+
+
+def test_travel_cdf_equals_its_scipy_stats_form():
+    from scipy import stats
+
+    from studykit.stats.timedep import travel_cdf
+
+    rng = np.random.default_rng(145)
+    for _ in range(200):
+        a = float(rng.normal())
+        b = a + float(rng.uniform(0.01, 3))
+        sd = float(10 ** rng.uniform(-3, 1))
+        x = rng.uniform(a - 8 * sd, b + 8 * sd, 50)
+
+        def g(z):  # the form before: scipy.stats.norm's cdf and pdf
+            return z * stats.norm.cdf(z) + stats.norm.pdf(z)
+
+        ref = sd / (b - a) * (g((x - a) / sd) - g((x - b) / sd))
+        assert np.array_equal(travel_cdf(x, a, b, sd), ref)
+
+
+def test_brentq_rtol_and_range_chance_equal_scipy():
+    from scipy import integrate, optimize, special
+
+    from studykit.stats import chance
+    from studykit.stats.lazy import brentq
+
+    for c in (0.5, 2.0, 5.0):
+
+        def g(t, c=c):
+            return math.exp(t) - c * (1.0 + t * t)
+
+        ours = brentq(g, -20.0, 5.0, xtol=1e-14, rtol=1e-14)
+        assert ours == optimize.brentq(g, -20.0, 5.0, xtol=1e-14, rtol=1e-14)
+    for n in (2, 3, 5, 8, 10):
+        for w in (0.5, 1.0, 2.5, 4.0, 6.0):
+
+            def f(x, n=n, w=w):
+                return (
+                    math.exp(-0.5 * x * x)
+                    / math.sqrt(2 * math.pi)
+                    * (special.ndtr(x + w) - special.ndtr(x)) ** (n - 1)
+                )
+
+            ref = integrate.quad(f, -np.inf, np.inf, epsabs=1e-16, epsrel=1e-13, limit=200)[0]
+            assert chance._range_cdf(w, n) == min(1.0, float(n * ref))
+
+
+@pytest.mark.parametrize("n", [2, 5])
+def test_range_quantiles_equal_scipy_brentq(n):
+    from scipy import optimize
+
+    from studykit.stats import chance
+
+    up_t, low_t, up_q, low_q = chance._unit_tails("range", n)
+    for a in (0.00135, 0.0027, 0.01):
+        assert up_q(a) == optimize.brentq(lambda w, a=a: up_t(w) - a, 0.0, 40.0, xtol=1e-12)
+        assert low_q(a) == optimize.brentq(lambda w, a=a: low_t(w) - a, 0.0, 40.0, xtol=1e-12)
