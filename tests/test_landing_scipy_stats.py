@@ -5,11 +5,11 @@
 landing view's analyses call the ``scipy.special`` routine ``scipy.stats`` itself calls wherever
 the result is the same bit for bit; the checks below compare each replacement with the public
 scipy function over many random arguments, with exact equality (reference library: scipy,
-``scipy.stats.beta.ppf``, ``f.sf``, ``norm.cdf``/``pdf``, ``linregress``, ``kendalltau``,
+``scipy.stats.beta.ppf``, ``f.sf``, ``norm.cdf``/``pdf``/``sf``/``isf``, ``linregress``, ``kendalltau``,
 ``scipy.integrate.quad``, ``scipy.optimize.brentq``).
 
 The landing view still reaches ``scipy.stats`` through the modules in ``KNOWN`` (tolerance
-intervals, attribute capability, the fitted models' frozen distributions); the list only shrinks,
+intervals, the fitted models' frozen distributions); the list only shrinks,
 and once it is empty the landing view must not import ``scipy.stats`` at all.
 """
 
@@ -30,7 +30,6 @@ ROOT = Path(__file__).resolve().parents[1]
 #: Modules whose ``scipy.stats`` calls the landing view of the demo study still makes (the
 #: innermost studykit frame of each call). Only shrinks: delete an entry once it is fixed.
 KNOWN = {
-    "studykit/stats/attribute.py",
     "studykit/stats/families/gamma.py",
     "studykit/stats/families/lognormal.py",
     "studykit/stats/tolerance.py",
@@ -116,6 +115,30 @@ def test_beta_band_equals_scipy_beta_ppf():
             ref_hi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
             assert lo.dtype == ref_lo.dtype and lo.shape == ref_lo.shape
             assert np.array_equal(lo, ref_lo) and np.array_equal(hi, ref_hi), (n, level)
+
+
+def test_scalar_beta_and_normal_calls_equal_scipy():
+    from scipy import stats
+
+    from studykit.stats.lazy import beta_ppf, norm_isf, norm_sf
+
+    rng = np.random.default_rng(146)
+    for _ in range(3000):
+        q = float(rng.choice([rng.uniform(0, 1), 10 ** rng.uniform(-12, 0), 0.5]))
+        a, b = int(rng.integers(1, 3000)), int(rng.integers(1, 100_000))
+        if rng.random() < 0.3:
+            a, b = float(rng.uniform(0.1, 50)), float(rng.uniform(0.1, 50))
+        assert beta_ppf(q, a, b) == float(stats.beta.ppf(q, a, b)), (q, a, b)
+        assert norm_isf(q) == float(stats.norm.isf(q)), q
+        x = float(rng.normal(0, 5))
+        assert norm_sf(x) == float(stats.norm.sf(x)), x
+    for q in (0.0, 1.0, -0.5, 1.5, math.nan):  # the edge cases scipy answers itself
+        assert _same(beta_ppf(q, 2, 3), float(stats.beta.ppf(q, 2, 3)))
+        assert _same(norm_isf(q), float(stats.norm.isf(q)))
+    assert _same(beta_ppf(0.5, 0, 3), float(stats.beta.ppf(0.5, 0, 3)))
+    for x in (math.inf, -math.inf, math.nan):
+        assert _same(norm_sf(x), float(stats.norm.sf(x)))
+    assert math.copysign(1.0, norm_isf(0.5)) == math.copysign(1.0, float(stats.norm.isf(0.5)))
 
 
 def _same(a: float, b: float) -> bool:
