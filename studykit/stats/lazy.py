@@ -15,14 +15,21 @@ module cache applies).
 from __future__ import annotations
 
 import importlib
+import math
 from types import ModuleType
 from typing import Any
 
 __all__ = [
     "LazyModule",
     "beta_ppf",
+    "binom_cdf",
     "brentq",
+    "chi2_isf",
+    "chi2_pdf",
+    "chi2_ppf",
+    "chi2_sf",
     "f_sf",
+    "norm_cdf",
     "norm_isf",
     "norm_sf",
     "quad_whole_line",
@@ -206,15 +213,121 @@ def norm_isf(q: float) -> float:
     return float(scipy_stats.norm.isf(q))
 
 
-def norm_sf(x: float) -> float:
-    """``float(scipy.stats.norm.sf(x))``, bit for bit: ``ndtr(-x)`` (scipy's ``norm._sf``) for
-    finite x; any other case goes to scipy.stats itself.
+def norm_sf(x: float, loc: float = 0.0, scale: float = 1.0) -> float:
+    """``float(scipy.stats.norm.sf(x, loc, scale))``, bit for bit: ``ndtr(-((x - loc) /
+    scale))`` (scipy's standardisation and ``norm._sf``) for a finite standardised x and a
+    positive scale; any other case goes to scipy.stats itself.
 
     >>> norm_sf(3.0) == float(scipy_stats.norm.sf(3.0))
     True
     """
-    if -float("inf") < x < float("inf"):
+    z = (x - loc) / scale if scale > 0 else math.nan
+    if -math.inf < z < math.inf:
         from scipy.special import ndtr
 
-        return float(ndtr(-x))
-    return float(scipy_stats.norm.sf(x))
+        return float(ndtr(-z))
+    return float(scipy_stats.norm.sf(x, loc, scale))
+
+
+def norm_cdf(x: float, loc: float = 0.0, scale: float = 1.0) -> float:
+    """``float(scipy.stats.norm.cdf(x, loc, scale))``, bit for bit: ``ndtr((x - loc) / scale)``
+    for a finite standardised x and a positive scale; any other case goes to scipy.stats.
+
+    >>> norm_cdf(1.2, 1.0, 0.5) == float(scipy_stats.norm.cdf(1.2, 1.0, 0.5))
+    True
+    """
+    z = (x - loc) / scale if scale > 0 else math.nan
+    if -math.inf < z < math.inf:
+        from scipy.special import ndtr
+
+        return float(ndtr(z))
+    return float(scipy_stats.norm.cdf(x, loc, scale))
+
+
+def chi2_sf(x, df: float):
+    """``scipy.stats.chi2.sf(x, df)`` (a number or an array), bit for bit: ``chdtrc(df, x)``
+    (scipy's ``chi2._sf``) when every x is positive and finite and df > 0; any other case goes
+    to scipy.stats itself.
+
+    >>> bool(chi2_sf(3.0, 4) == scipy_stats.chi2.sf(3.0, 4))
+    True
+    """
+    import numpy as np
+
+    arr = np.asarray(x, dtype=float)
+    if df > 0 and bool(np.all((arr > 0) & (arr < math.inf))):
+        from scipy.special import chdtrc
+
+        return chdtrc(df, arr)[()]
+    return scipy_stats.chi2.sf(x, df)
+
+
+def chi2_pdf(x, df: float):
+    """``scipy.stats.chi2.pdf(x, df)`` (a number or an array), bit for bit: scipy's
+    ``chi2._pdf`` formula, exp(xlogy(df/2 - 1, x) - x/2 - gammaln(df/2) - log(2) df / 2), when
+    every x is positive and finite and df > 0; any other case goes to scipy.stats itself.
+
+    >>> bool(chi2_pdf(3.0, 4) == scipy_stats.chi2.pdf(3.0, 4))
+    True
+    """
+    import numpy as np
+
+    arr = np.asarray(x, dtype=float)
+    if df > 0 and bool(np.all((arr > 0) & (arr < math.inf))):
+        from scipy.special import gammaln, xlogy
+
+        d = np.asarray(df)
+        log_pdf = xlogy(d / 2.0 - 1, arr) - arr / 2.0 - gammaln(d / 2.0) - (np.log(2) * d) / 2.0
+        return (np.exp(log_pdf) / 1.0)[()]
+    return scipy_stats.chi2.pdf(x, df)
+
+
+def chi2_ppf(q: float, df: float):
+    """``scipy.stats.chi2.ppf(q, df)`` for numbers, bit for bit: ``2 gammaincinv(df/2, q)``
+    (scipy's ``chi2._ppf``) times scale 1 plus loc 0 for 0 < q < 1 and df > 0; any other case
+    goes to scipy.stats itself.
+
+    >>> bool(chi2_ppf(0.05, 7) == scipy_stats.chi2.ppf(0.05, 7))
+    True
+    """
+    import numpy as np
+
+    if 0.0 < q < 1.0 and df > 0:
+        from scipy.special import gammaincinv
+
+        return (2 * gammaincinv(np.asarray(df) / 2, np.asarray(q)) * 1.0 + 0.0)[()]
+    return scipy_stats.chi2.ppf(q, df)
+
+
+def chi2_isf(q: float, df: float):
+    """``scipy.stats.chi2.isf(q, df)`` for numbers, bit for bit: ``chdtri(df, q)`` (scipy's
+    ``chi2._isf``) times scale 1 plus loc 0 for 0 < q < 1 and df > 0; any other case goes to
+    scipy.stats itself.
+
+    >>> bool(chi2_isf(0.05, 7) == scipy_stats.chi2.isf(0.05, 7))
+    True
+    """
+    import numpy as np
+
+    if 0.0 < q < 1.0 and df > 0:
+        from scipy.special import chdtri
+
+        return (chdtri(np.asarray(df), np.asarray(q)) * 1.0 + 0.0)[()]
+    return scipy_stats.chi2.isf(q, df)
+
+
+def binom_cdf(k: int, n: int, p: float):
+    """``scipy.stats.binom.cdf(k, n, p)`` for whole numbers, bit for bit: scipy's
+    ``binom._cdf`` routine on floor(k), clipped to [0, 1], for 0 <= k < n and 0 <= p <= 1; any
+    other case goes to scipy.stats itself.
+
+    >>> bool(binom_cdf(3, 20, 0.1) == scipy_stats.binom.cdf(3, 20, 0.1))
+    True
+    """
+    import numpy as np
+
+    if isinstance(k, int) and isinstance(n, int) and 0 <= k < n and 0.0 <= p <= 1.0:
+        from scipy.special import _ufuncs
+
+        return np.clip(_ufuncs._binom_cdf(np.floor(np.asarray(k)), np.asarray(n), p), 0, 1)[()]
+    return scipy_stats.binom.cdf(k, n, p)
