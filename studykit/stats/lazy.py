@@ -21,6 +21,7 @@ from typing import Any
 
 __all__ = [
     "LazyModule",
+    "PositiveFrozen",
     "beta_ppf",
     "binom_cdf",
     "brentq",
@@ -30,6 +31,8 @@ __all__ = [
     "chi2_sf",
     "f_sf",
     "norm_cdf",
+    "norm_isf_values",
+    "norm_ppf_values",
     "norm_isf",
     "norm_sf",
     "quad_whole_line",
@@ -331,3 +334,112 @@ def binom_cdf(k: int, n: int, p: float):
 
         return np.clip(_ufuncs._binom_cdf(np.floor(np.asarray(k)), np.asarray(n), p), 0, 1)[()]
     return scipy_stats.binom.cdf(k, n, p)
+
+
+class PositiveFrozen:
+    """``scipy.stats.<name>(shape, loc=loc, scale=scale)`` for ``"lognorm"`` and ``"gamma"``
+    (support x > loc): ``cdf`` and ``sf`` computed as scipy's frozen distribution computes them
+    (its standardisation, masks and ``_cdf``/``_sf``: ndtr(+-log(z)/s); gammainc/gammaincc),
+    bit for bit, without importing ``scipy.stats``; every other method or attribute is the real
+    frozen distribution's, made on first use.
+
+    >>> d = PositiveFrozen("gamma", 2.5, loc=1.0, scale=0.5)
+    >>> x = [0.5, 1.0, 1.7, 9.0]
+    >>> ref = scipy_stats.gamma(2.5, loc=1.0, scale=0.5)
+    >>> bool((d.cdf(x) == ref.cdf(x)).all() and (d.sf(x) == ref.sf(x)).all())
+    True
+    """
+
+    __slots__ = ("_name", "_shape", "_loc", "_scale", "_real")
+
+    def __init__(self, name: str, shape: float, *, loc: float, scale: float) -> None:
+        if name not in ("lognorm", "gamma"):
+            raise ValueError(f"no light form of scipy.stats.{name}")
+        self._name, self._shape, self._loc, self._scale = name, shape, loc, scale
+        self._real: Any = None
+
+    def _frozen(self) -> Any:
+        if self._real is None:
+            dist = getattr(scipy_stats, self._name)
+            self._real = dist(self._shape, loc=self._loc, scale=self._scale)
+        return self._real
+
+    def __getattr__(self, attr: str) -> Any:
+        if attr.startswith("__"):  # copy/pickle probes: the plain object's behaviour
+            raise AttributeError(attr)
+        return getattr(self._frozen(), attr)
+
+    def __repr__(self) -> str:
+        return f"<{self._name}({self._shape!r}, loc={self._loc!r}, scale={self._scale!r})>"
+
+    def cdf(self, x):
+        return self._tail(x, upper=False)
+
+    def sf(self, x):
+        return self._tail(x, upper=True)
+
+    def _tail(self, x, *, upper: bool):
+        import numpy as np
+        from scipy import special
+
+        shape, loc, scale = (np.asarray(v) for v in (self._shape, self._loc, self._scale))
+        if not (shape > 0 and scale > 0):  # scipy's own answer (NaN) for invalid parameters
+            return (self._frozen().sf if upper else self._frozen().cdf)(x)
+        x = np.asarray(x)
+        dtyp = np.promote_types(x.dtype, np.float64)
+        z = np.asarray((x - loc) / scale, dtype=dtyp)
+        inside = (z > 0) & (z < np.inf)
+        out = np.zeros(np.shape(inside), dtyp)
+        np.place(out, np.isnan(z), np.nan)
+        np.place(out, (z <= 0) if upper else (z >= np.inf), 1.0)
+        if np.any(inside):
+            good = np.extract(inside, z)
+            if self._name == "gamma":
+                vals = (special.gammaincc if upper else special.gammainc)(shape, good)
+            else:
+                w = np.log(good) / shape
+                vals = special.ndtr(-w) if upper else special.ndtr(w)
+            np.place(out, inside, vals)
+        return out[()]
+
+
+def norm_ppf_values(q):
+    """``scipy.stats.norm.ppf(q)`` for a number or an array, bit for bit: NaN outside [0, 1],
+    -inf at 0, +inf at 1 and ``ndtri(q)`` times scale 1 plus loc 0 in between, as scipy fills
+    them.
+
+    >>> import numpy as np
+    >>> q = np.array([0.0, 1e-300, 0.3, 0.5, 1.0, 1.5, np.nan])
+    >>> bool(np.array_equal(norm_ppf_values(q), scipy_stats.norm.ppf(q), equal_nan=True))
+    True
+    """
+    return _norm_quantile(q, upper=False)
+
+
+def norm_isf_values(q):
+    """``scipy.stats.norm.isf(q)`` for a number or an array, bit for bit (as
+    :func:`norm_ppf_values`, with ``-ndtri(q)``, +inf at 0 and -inf at 1).
+
+    >>> import numpy as np
+    >>> q = np.array([0.0, 1e-300, 0.3, 0.5, 1.0, 1.5, np.nan])
+    >>> bool(np.array_equal(norm_isf_values(q), scipy_stats.norm.isf(q), equal_nan=True))
+    True
+    """
+    return _norm_quantile(q, upper=True)
+
+
+def _norm_quantile(q, *, upper: bool):
+    import numpy as np
+    from scipy.special import ndtri
+
+    q = np.asarray(q)
+    dtyp = np.promote_types(q.dtype, np.float64)
+    inside = (q > 0) & (q < 1)
+    out = np.full(np.shape(inside), np.nan, dtype=dtyp)
+    np.place(out, q == 0, np.inf if upper else -np.inf)
+    np.place(out, q == 1, -np.inf if upper else np.inf)
+    if np.any(inside):
+        good = np.extract(inside, q)
+        vals = (-ndtri(good) if upper else ndtri(good)) * 1.0 + 0.0
+        np.place(out, inside, vals)
+    return out[()]
