@@ -186,6 +186,15 @@ def f_sf(x: float, dfn: float, dfd: float) -> float:
     return float(scipy_stats.f.sf(x, dfn, dfd))
 
 
+def _special_routine(name: str) -> Any:
+    """The compiled routine ``scipy.special._ufuncs.<name>`` that a ``scipy.stats``
+    distribution calls (not public: None when this scipy has no such routine, and the caller
+    then asks scipy.stats)."""
+    from scipy.special import _ufuncs
+
+    return getattr(_ufuncs, name, None)
+
+
 def beta_ppf(q: float, a: float, b: float) -> float:
     """``float(scipy.stats.beta.ppf(q, a, b))`` for numbers, bit for bit: for 0 < q < 1 and
     positive shapes scipy's answer is its ``beta._ppf`` routine (``scipy.special._ufuncs.
@@ -195,10 +204,9 @@ def beta_ppf(q: float, a: float, b: float) -> float:
     >>> beta_ppf(0.025, 3, 98) == float(scipy_stats.beta.ppf(0.025, 3, 98))
     True
     """
-    if 0.0 < q < 1.0 and a > 0 and b > 0:
-        from scipy.special import _ufuncs
-
-        return float(_ufuncs._beta_ppf(q, a, b) * 1.0 + 0.0)
+    routine = _special_routine("_beta_ppf")
+    if routine is not None and 0.0 < q < 1.0 and a > 0 and b > 0:
+        return float(routine(q, a, b) * 1.0 + 0.0)
     return float(scipy_stats.beta.ppf(q, a, b))
 
 
@@ -329,10 +337,10 @@ def binom_cdf(k: int, n: int, p: float):
     """
     import numpy as np
 
-    if isinstance(k, int) and isinstance(n, int) and 0 <= k < n and 0.0 <= p <= 1.0:
-        from scipy.special import _ufuncs
-
-        return np.clip(_ufuncs._binom_cdf(np.floor(np.asarray(k)), np.asarray(n), p), 0, 1)[()]
+    routine = _special_routine("_binom_cdf")
+    whole = isinstance(k, int) and isinstance(n, int)
+    if routine is not None and whole and 0 <= k < n and 0.0 <= p <= 1.0:
+        return np.clip(routine(np.floor(np.asarray(k)), np.asarray(n), p), 0, 1)[()]
     return scipy_stats.binom.cdf(k, n, p)
 
 
