@@ -934,13 +934,13 @@ _SCALE_TEXT = {
 
 def _normal_scores(model, x) -> np.ndarray:
     """Phi^-1(F(x)) of a fitted model, from the upper tail where that is more accurate."""
-    from scipy import stats as _stats
+    from studykit.stats.lazy import norm_isf_values, norm_ppf_values  # scipy.stats' numbers
 
     x = np.asarray(x, dtype=float)
     cdf = np.asarray(model.cdf(x), dtype=float)
     sf = np.asarray(model.sf(x), dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        z = np.where(cdf < 0.5, _stats.norm.ppf(cdf), _stats.norm.isf(sf))
+        z = np.where(cdf < 0.5, norm_ppf_values(cdf), norm_isf_values(sf))
     # outside the fitted support (or beyond double precision): far beyond any limit
     return np.clip(np.nan_to_num(z, nan=0.0, posinf=38.0, neginf=-38.0), -38.0, 38.0)
 

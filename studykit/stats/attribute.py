@@ -13,6 +13,7 @@ import numpy as np
 
 from studykit import names
 from studykit.errors import AnalysisError, StudyInputError
+from studykit.stats.lazy import beta_ppf, norm_isf, norm_sf
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 
@@ -66,7 +67,7 @@ def _z(p):
         return None
     if p >= 1:
         return None
-    return float(stats.norm.isf(p))
+    return norm_isf(p)
 
 
 @dataclass(frozen=True)
@@ -183,9 +184,9 @@ def attribute_capability(
     xt, nt = int(x.sum()), int(n.sum())
     alpha = 1.0 - level
     p = xt / nt
-    lower = 0.0 if xt == 0 else float(stats.beta.ppf(alpha / 2, xt, nt - xt + 1))
-    upper = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha / 2, xt + 1, nt - xt))
-    upper1 = 1.0 if xt == nt else float(stats.beta.ppf(1 - alpha, xt + 1, nt - xt))
+    lower = 0.0 if xt == 0 else beta_ppf(alpha / 2, xt, nt - xt + 1)
+    upper = 1.0 if xt == nt else beta_ppf(1 - alpha / 2, xt + 1, nt - xt)
+    upper1 = 1.0 if xt == nt else beta_ppf(1 - alpha, xt + 1, nt - xt)
     return AttributeCapability(
         defective_rate=p,
         defective_rate_lower=lower,
@@ -275,7 +276,7 @@ def attribute_verdict(
     from studykit.stats.capability import Verdict
 
     level = ac.level
-    allowed = float(stats.norm.sf(3 * threshold))
+    allowed = norm_sf(3 * threshold)
     est = None if ac.z_process is None else ac.z_process / 3
     low = None if ac.z_process_lower_bound is None else ac.z_process_lower_bound / 3
     pct = f"{level:.0%}"

@@ -43,11 +43,7 @@ import numpy as np
 from scipy import special
 
 from studykit.stats.constants import c4, d2
-from studykit.stats.lazy import LazyModule
-
-# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
-integrate = LazyModule("scipy.integrate")
-optimize = LazyModule("scipy.optimize")
+from studykit.stats.lazy import brentq, quad_whole_line  # scipy's compiled routines, no import
 
 __all__ = ["REFERENCE_POINTS", "SeriesChance", "series_chance"]
 
@@ -134,7 +130,7 @@ def _range_cdf(w: float, n: int) -> float:
             * (special.ndtr(x + w) - special.ndtr(x)) ** (n - 1)
         )
 
-    cdf, _ = integrate.quad(f, -np.inf, np.inf, epsabs=1e-16, epsrel=1e-13, limit=200)
+    cdf, _ = quad_whole_line(f, epsabs=1e-16, epsrel=1e-13, limit=200)
     return min(1.0, float(n * cdf))
 
 
@@ -169,10 +165,10 @@ def _unit_tails(name: str, n: int):
         return 1.0 - _range_cdf(v, n)
 
     def up_q(a):
-        return optimize.brentq(lambda w: up_t(w) - a, 0.0, 40.0, xtol=1e-12)
+        return brentq(lambda w: up_t(w) - a, 0.0, 40.0, xtol=1e-12)
 
     def low_q(a):
-        return optimize.brentq(lambda w: _range_cdf(w, n) - a, 0.0, 40.0, xtol=1e-12)
+        return brentq(lambda w: _range_cdf(w, n) - a, 0.0, 40.0, xtol=1e-12)
 
     return (up_t, lambda v: _range_cdf(v, n), up_q, low_q)
 

@@ -422,8 +422,14 @@ _BAND_CACHE_N = 5000
 def _beta_band(n: int, level: float) -> tuple:
     """Central ``level`` interval of each uniform order statistic Beta(i, n - i + 1)."""
     i = np.arange(1, n + 1)
-    qlo = stats.beta.ppf((1 - level) / 2, i, n - i + 1)
-    qhi = stats.beta.ppf((1 + level) / 2, i, n - i + 1)
+    lo, hi = (1 - level) / 2, (1 + level) / 2
+    beta_ppf = getattr(special._ufuncs, "_beta_ppf", None)  # not public: may be missing
+    if beta_ppf is not None and 0.0 < lo < hi < 1.0:
+        # the routine scipy.stats.beta.ppf calls for 0 < q < 1 (its _ppf), with its loc 0 and
+        # scale 1 applied as it applies them: the same numbers without importing scipy.stats
+        return beta_ppf(lo, i, n - i + 1) * 1.0 + 0.0, beta_ppf(hi, i, n - i + 1) * 1.0 + 0.0
+    qlo = stats.beta.ppf(lo, i, n - i + 1)
+    qhi = stats.beta.ppf(hi, i, n - i + 1)
     return qlo, qhi
 
 

@@ -33,7 +33,7 @@ import numpy as np
 
 from studykit.errors import StudyInputError
 from studykit.stats.constants import d2
-from studykit.stats.lazy import scipy_stats as stats
+from studykit.stats.lazy import f_sf
 
 __all__ = [
     "ALPHA",
@@ -142,7 +142,7 @@ def _anova(groups):
         p = 0.0 if ss_between > 0 else np.nan
     else:
         f = (ss_between / df1) / (ss_within / df2)
-        p = float(stats.f.sf(f, df1, df2))
+        p = f_sf(f, df1, df2)
     return float(f), df1, df2, p
 
 

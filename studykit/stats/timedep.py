@@ -66,6 +66,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from studykit.errors import StudyInputError
+from studykit.stats.lazy import f_sf
 from studykit.stats.lazy import scipy_stats as stats
 
 if TYPE_CHECKING:  # streams is imported where a spread test is made
@@ -212,7 +213,7 @@ def variance_components(values, subgroups) -> VarianceComponents:
     n0 = (big_n - float(np.sum(n_i**2)) / big_n) / dfb
     if msw > 0:
         f = msb / msw
-        p = float(stats.f.sf(f, dfb, dfw))
+        p = f_sf(f, dfb, dfw)
     else:
         f, p = (math.inf, 0.0) if msb > 0 else (math.nan, math.nan)
     sb2 = max(0.0, (msb - msw) / n0)
@@ -230,6 +231,88 @@ def variance_components(values, subgroups) -> VarianceComponents:
     )
 
 
+#: scipy.stats' normal density constant (its ``_norm_pdf_C``).
+_SQRT_2PI = np.sqrt(2 * np.pi)
+
+
+@dataclass(frozen=True)
+class _Line:
+    slope: float
+    intercept: float
+
+
+def _line(x: np.ndarray, y: np.ndarray) -> Any:
+    """The least-squares line of ``scipy.stats.linregress(x, y)`` (its slope and intercept, the
+    only fields read here), computed with scipy's own numpy arithmetic for 1-D float inputs of
+    3 or more finite values with x not all equal, without importing ``scipy.stats``; any other
+    input goes to linregress itself."""
+    if (
+        x.ndim == y.ndim == 1
+        and x.dtype == y.dtype == np.float64
+        and x.size == y.size >= 3
+        and bool(np.isfinite(x).all() and np.isfinite(y).all())
+        and np.amax(x) != np.amin(x)
+    ):
+        xmean = np.mean(x, None)
+        ymean = np.mean(y, None)
+        ssxm, ssxym, _, ssym = np.cov(x, y, bias=True).flat  # scipy: bias=1, the same
+        slope = ssxym / ssxm
+        return _Line(slope=slope, intercept=ymean - slope * xmean)
+    return stats.linregress(x, y)
+
+
+@dataclass(frozen=True)
+class _Tau:
+    statistic: float
+    pvalue: float
+
+
+def _kendall_trend(pos: np.ndarray, means: np.ndarray) -> Any:
+    """``scipy.stats.kendalltau(pos, means)`` for increasing positions (its ``statistic`` and
+    ``pvalue``, bit for bit), without importing ``scipy.stats`` for finite means: tau depends on
+    the positions' order alone, so it is Kendall's tau between place and value. Up to 33 means
+    without ties scipy takes its exact p-value, repeated here (:func:`_kendall_p_exact`); other
+    finite series go to :func:`studykit.stats.order.kendall_tau_position`, the same numbers as
+    scipy's; anything else (a NaN mean, unordered positions) to kendalltau itself."""
+    x = np.asarray(means, dtype=float)
+    size = int(x.size)
+    ordered = pos.shape == x.shape and bool(np.all(np.diff(pos) > 0))
+    if not (ordered and size > 2 and bool(np.isfinite(x).all())):
+        res = stats.kendalltau(pos, means)
+        return _Tau(float(res.statistic), float(res.pvalue))
+    if size <= 33 and np.unique(x).size == size:
+        tot = (size * (size - 1)) // 2
+        dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
+        tau = np.minimum(1.0, max(-1.0, (tot - 2 * dis) / np.sqrt(tot) / np.sqrt(tot)))
+        return _Tau(float(tau), float(_kendall_p_exact(size, tot - dis)))
+    from studykit.stats.order import kendall_tau_position
+
+    return _Tau(*kendall_tau_position(x))
+
+
+def _kendall_p_exact(n: int, c: int) -> float:
+    """Two-sided exact p-value of Kendall's tau for n values without ties and c concordant
+    pairs (3 <= n <= 33), computed as scipy does it (``scipy.stats._mstats_basic.
+    _kendall_p_exact``; M. G. Kendall, *Rank Correlation Methods*, 4th ed. 1970): the counts of
+    permutations by number of inversions, by running sums."""
+    c = int(min(c, (n * (n - 1)) // 2 - c))
+    if c == 0:
+        prob = 2.0 / math.factorial(n)
+    elif c == 1:
+        prob = 2.0 / math.factorial(n - 1)
+    elif 4 * c == n * (n - 1):
+        prob = 1.0
+    else:
+        new = np.zeros(c + 1)
+        new[0:2] = 1.0
+        for j in range(3, n + 1):
+            new = np.cumsum(new)
+            if j <= c:
+                new[j:] -= new[: c + 1 - j]
+        prob = 2.0 * np.sum(new) / math.factorial(n)
+    return float(np.clip(prob, 0, 1))
+
+
 def travel_cdf(x, mu_low, mu_high, sigma):
     """CDF of a location spread evenly over [mu_low, mu_high] plus normal noise of ``sigma``.
 
@@ -242,14 +325,17 @@ def travel_cdf(x, mu_low, mu_high, sigma):
     if b - a <= 1e-12 * max(1.0, abs(a)) or sigma == 0:
         return stats.norm.cdf(x, loc=(a + b) / 2, scale=sigma)
 
+    from scipy.special import ndtr
+
     def g(z):
-        return z * stats.norm.cdf(z) + stats.norm.pdf(z)
+        # scipy.stats.norm.cdf(z) and .pdf(z) as scipy computes them (ndtr; exp(-z^2/2)/sqrt(2pi))
+        return z * ndtr(z) + np.exp(-(z**2) / 2.0) / _SQRT_2PI
 
     return sigma / (b - a) * (g((x - a) / sigma) - g((x - b) / sigma))
 
 
 def _travel_ppf(q, a, b, sigma):
-    from scipy.optimize import brentq
+    from studykit.stats.lazy import brentq
 
     lo, hi = a - 10 * sigma, b + 10 * sigma
     return float(
@@ -275,7 +361,7 @@ def trend_capability(values, positions, *, lsl=None, usl=None) -> dict:
     t = np.asarray(positions, dtype=float)
     if x.size < 3 or np.ptp(t) == 0:
         raise StudyInputError("a trend needs at least 3 readings at 2 or more positions.")
-    fit = stats.linregress(t, x)
+    fit = _line(t, x)
     resid = x - (fit.intercept + fit.slope * t)
     sigma_r = float(np.sqrt(np.sum(resid**2) / (x.size - 2)))
     ends = fit.intercept + fit.slope * np.array([t.min(), t.max()])
@@ -459,13 +545,13 @@ def classify(values, subgroups, *, lsl=None, usl=None, alpha: float = ALPHA) -> 
 def _trend_evidence(means, pos, vc, k, alpha) -> tuple:
     """Mann-Kendall trend of the subgroup means and the random part left about the least-squares
     line: ``(trend dict, Kendall result)``."""
-    tau = stats.kendalltau(pos, means)
-    line = stats.linregress(pos, means)
+    tau = _kendall_trend(pos, means)
+    line = _line(pos, means)
     resid = means - (line.intercept + line.slope * pos)
     ms_resid = vc.n0 * float(np.sum(resid**2)) / (k - 2) if k > 2 else math.nan
     dfw = vc.n_total - k
     rf = ms_resid / vc.msw if vc.msw > 0 else math.inf
-    rp = float(stats.f.sf(rf, k - 2, dfw)) if math.isfinite(rf) else 0.0
+    rp = f_sf(rf, k - 2, dfw) if math.isfinite(rf) else 0.0
     trend = {
         "tau": float(tau.statistic),
         "p_value": float(tau.pvalue),

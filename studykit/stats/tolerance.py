@@ -47,13 +47,19 @@ from scipy import special
 
 from studykit.errors import AnalysisError, SpecError, StudyInputError
 from studykit.stats._checks import check_number, check_sample
-from studykit.stats.lazy import LazyModule
+from studykit.stats.lazy import (
+    binom_cdf,
+    brentq,
+    chi2_isf,
+    chi2_pdf,
+    chi2_ppf,
+    chi2_sf,
+    norm_cdf,
+    norm_sf,
+)
 from studykit.stats.lazy import scipy_stats as stats
 from studykit.stats.result import Result
 from studykit.stats.result import json_float as _f
-
-# imported on first use: scipy.integrate and scipy.optimize together cost about 0.3 s
-optimize = LazyModule("scipy.optimize")
 
 __all__ = [
     "TWO_SIDED_METHODS",
@@ -198,7 +204,7 @@ def two_sided_confidence(k: float, n: int, p: float, *, df: float | None = None)
         raise StudyInputError(f"`k` ({k!r}) must be positive.")
     t, w = _t_rule()
     r = _half_width(t / math.sqrt(n), p)
-    return float(np.sum(w * stats.chi2.sf(nu * r**2 / k**2, nu)))
+    return float(np.sum(w * chi2_sf(nu * r**2 / k**2, nu)))
 
 
 def _factor_args(n, p, c, df) -> tuple[int, float, float, float]:
@@ -213,14 +219,14 @@ def _factor_args(n, p, c, df) -> tuple[int, float, float, float]:
 
 def _howe(n: int, p: float, c: float, nu: float) -> float:
     z = special.ndtri(0.5 * (1.0 + p))
-    chi = stats.chi2.ppf(1.0 - c, nu)
+    chi = chi2_ppf(1.0 - c, nu)
     return float(z * math.sqrt(nu * (1.0 + 1.0 / n) / chi))
 
 
 def _wald_wolfowitz(n: int, p: float, c: float, nu: float) -> float:
     # r with Phi(1/sqrt(n) + r) - Phi(1/sqrt(n) - r) = p, times sqrt(nu / chi2_{1-c, nu})
     r = float(_half_width(np.array([1.0 / math.sqrt(n)]), p)[0])
-    return r * math.sqrt(nu / stats.chi2.ppf(1.0 - c, nu))
+    return r * math.sqrt(nu / chi2_ppf(1.0 - c, nu))
 
 
 def normal_factor_two_sided(
@@ -289,9 +295,7 @@ def _exact_two_sided(n: int, p: float, c: float, nu: float) -> float:
             raise AnalysisError(
                 f"no two-sided tolerance factor below 1e7 for n = {n}, p = {p:g}, c = {c:g}."
             )
-    return float(
-        optimize.brentq(lambda k: conf(k) - c, lo * (1 + 1e-12), hi, xtol=1e-12, rtol=1e-12)
-    )
+    return float(brentq(lambda k: conf(k) - c, lo * (1 + 1e-12), hi, xtol=1e-12, rtol=1e-12))
 
 
 def normal_factor_one_sided(
@@ -388,7 +392,7 @@ def distribution_free_confidence(
         raise StudyInputError("`r` and `s` must be whole numbers of at least 1.")
     if m > n:
         return 0.0
-    return float(stats.binom.cdf(n - m, n, p))
+    return float(binom_cdf(n - m, n, p))
 
 
 def distribution_free_sample_size(
@@ -509,12 +513,12 @@ def normal_pass_probability(
     k = normal_factor_two_sided(n, p, c)
     # s/sd = sqrt(chi2/nu); s can pass only while 2 k s <= usl - lsl
     q_hi = nu * ((usl - lsl) / (2.0 * k * sd)) ** 2
-    lo_q, hi_q = stats.chi2.ppf(1e-15, nu), min(q_hi, stats.chi2.isf(1e-15, nu))
+    lo_q, hi_q = chi2_ppf(1e-15, nu), min(q_hi, chi2_isf(1e-15, nu))
     if hi_q <= lo_q:
         return 0.0
     chi_nodes, chi_weights = _chi_rule()
     q = 0.5 * (hi_q - lo_q) * (chi_nodes + 1.0) + lo_q
-    w = 0.5 * (hi_q - lo_q) * chi_weights * stats.chi2.pdf(q, nu)
+    w = 0.5 * (hi_q - lo_q) * chi_weights * chi2_pdf(q, nu)
     s = sd * np.sqrt(q / nu)
     inside = special.ndtr(rn * (usl - k * s - mean) / sd) - special.ndtr(
         rn * (lsl + k * s - mean) / sd
@@ -565,9 +569,9 @@ def normal_sample_size(
     # the population itself must have at least p inside (a necessary condition for any n)
     inside = 1.0
     if usl is not None:
-        inside -= stats.norm.sf(usl, mean, sd)
+        inside -= norm_sf(usl, mean, sd)
     if lsl is not None:
-        inside -= stats.norm.cdf(lsl, mean, sd)
+        inside -= norm_cdf(lsl, mean, sd)
     if inside <= p:
         return None
 

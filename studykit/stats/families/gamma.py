@@ -17,7 +17,7 @@ from studykit.stats.families.base import (
     shape_scale_row,
     threshold_of,
 )
-from studykit.stats.lazy import scipy_stats as stats
+from studykit.stats.lazy import PositiveFrozen
 from studykit.stats.solvers import (
     add_reduce,
     rowsum,
@@ -72,7 +72,7 @@ class Gamma(Family):
         return {"shape": k, "scale": scale}, True, None
 
     def frozen(self, p):
-        return stats.gamma(p["shape"], loc=threshold_of(p), scale=p["scale"])
+        return PositiveFrozen("gamma", p["shape"], loc=threshold_of(p), scale=p["scale"])
 
     def _standard_draws(self, p, size, rng):
         return rng.standard_gamma(p["shape"], size)

@@ -15,7 +15,7 @@ from studykit.stats.families.base import (
     ad_p_normal,
     threshold_of,
 )
-from studykit.stats.lazy import scipy_stats as stats
+from studykit.stats.lazy import PositiveFrozen
 from studykit.stats.solvers import (
     mean_sd,
     rowsum,
@@ -41,7 +41,9 @@ class Lognormal(Family):
         return {"log_mean": m, "log_sd": sd}, True, None
 
     def frozen(self, p):
-        return stats.lognorm(p["log_sd"], loc=threshold_of(p), scale=math.exp(p["log_mean"]))
+        return PositiveFrozen(
+            "lognorm", p["log_sd"], loc=threshold_of(p), scale=math.exp(p["log_mean"])
+        )
 
     def _loc_scale(self, p):
         return threshold_of(p), math.exp(p["log_mean"])
