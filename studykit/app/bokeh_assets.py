@@ -8,6 +8,7 @@ offline; that costs about 1.3 MB in the saved output.
 
 from __future__ import annotations
 
+import json
 import os
 
 import ipywidgets as widgets
@@ -20,6 +21,11 @@ ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"  # same name as studykit.app.server.ENV
 def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
     """HTML that makes ``window.Bokeh`` available to the page.
 
+    Under the workbook server (``STUDYKIT_BOKEHJS_URL`` set) a small script adds one
+    ``<script src>`` per bundle, in order, except the main bundle when the page has run it
+    already (the server's pages run it from their ``<head>``, :mod:`studykit.app.server`):
+    BokehJS is never run twice.
+
     Parameters
     ----------
     extras : tuple of str
@@ -29,8 +35,11 @@ def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
     --------
     >>> import os
     >>> os.environ["STUDYKIT_BOKEHJS_URL"] = "/studykit/bokehjs/3/"
-    >>> bokehjs_html()
-    '<script type="text/javascript" src="/studykit/bokehjs/3/bokeh.min.js"></script>'
+    >>> print(bokehjs_html())  # doctest: +NORMALIZE_WHITESPACE
+    <script type="text/javascript">(function () { var urls = ["/studykit/bokehjs/3/bokeh.min.js"];
+    if (window.Bokeh) { urls = urls.slice(1); } urls.forEach(function (u) {
+    var s = document.createElement("script"); s.src = u; s.async = false;
+    document.head.appendChild(s); }); })();</script>
     >>> del os.environ["STUDYKIT_BOKEHJS_URL"]
     """
     names = ["bokeh.min.js", *(f"bokeh-{e}.min.js" for e in extras)]
@@ -38,7 +47,13 @@ def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
     if base:
         if not base.endswith("/"):
             base += "/"
-        return "".join(f'<script type="text/javascript" src="{base}{n}"></script>' for n in names)
+        urls = json.dumps([base + n for n in names])
+        return (
+            f'<script type="text/javascript">(function () {{ var urls = {urls};\n'
+            "if (window.Bokeh) { urls = urls.slice(1); } urls.forEach(function (u) {\n"
+            'var s = document.createElement("script"); s.src = u; s.async = false;\n'
+            "document.head.appendChild(s); }); })();</script>"
+        )
     from bokeh.resources import Resources
 
     components = ["bokeh", *(f"bokeh-{e}" for e in extras)]

@@ -58,6 +58,8 @@ PANEL_CSS = f"""
 .sk-ovtable .sk-ovhead {{ font-size: 12px; text-transform: uppercase; letter-spacing: .04em;
   color: {theme.INK_SOFT}; font-weight: 600; border-bottom: 2px solid {theme.RULE}; }}
 .sk-ovtable .sk-ovcell.num {{ justify-content: flex-end; font-variant-numeric: tabular-nums; }}
+.sk-root .sk-ovtable .sk-ovrow, .sk-root .sk-ovtable .sk-ovrow > .widget-html-content {{
+  display: contents; line-height: normal; }}
 .sk-root .jupyter-button.sk-link {{ background: transparent; color: {theme.OKABE_ITO["blue"]};
   text-decoration: underline; padding: 0; height: auto; text-align: left; font-weight: 600;
   box-shadow: none; }}
@@ -364,6 +366,33 @@ def sort_rows(rows: list[dict], key: str, *, descending: bool = False) -> list[d
     return present + missing
 
 
+#: the element an HTML widget draws (ipywidgets 8): a cell written as this markup inside a row
+#: widget (:func:`grid_row`) has the classes, so the look, of a cell drawn as its own widget
+_CELL = (
+    '<div class="lm-Widget jupyter-widgets widget-inline-hbox widget-html {classes}">'
+    '<div class="widget-html-content">{value}</div></div>'
+)
+
+
+def grid_cells(cells) -> str:
+    """Cells of the overview grid as one HTML string: ``cells`` is ``(html, classes)`` pairs.
+
+    Examples
+    --------
+    >>> grid_cells([("1.94", ("sk-ovcell", "num"))])  # doctest: +ELLIPSIS
+    '<div class="lm-Widget ... widget-html sk-ovcell num"><div class="widget-html-content">1.94</div></div>'
+    """
+    return "".join(_CELL.format(classes=" ".join(cls), value=value) for value, cls in cells)
+
+
+def grid_row(html: str = "") -> widgets.HTML:
+    """One widget for several cells of the overview grid (:func:`grid_cells`): it and its
+    content box are ``display: contents``, so each cell is an item of the grid as a cell widget
+    was. A row of static cells is two widget models (the HTML and its layout) instead of two
+    per cell, which the page builds sooner (the grid had 72 cell widgets on the demo study)."""
+    return html_box(html, "sk-ovrow")
+
+
 class OverviewPanel(widgets.VBox):
     """All characteristics at a glance; sortable; a click opens one.
 
@@ -464,22 +493,20 @@ class OverviewPanel(widgets.VBox):
         self.chart.update(rows)
         if self._head is None:
             heads = ["Characteristic", "Verdict", "Index", "Lower bound", "Removed", "Review state"]
-            self._head = []
-            for i, h in enumerate(heads):
-                cell = html_box(esc(h), "sk-ovcell", "sk-ovhead")
-                if i in (2, 3, 4):
-                    cell.add_class("num")
-                self._head.append(cell)
-        cells = list(self._head)
-        from studykit.app.streams_view import stream_cells
-
+            self._head = grid_row(
+                grid_cells(
+                    (esc(h), ("sk-ovcell", "sk-ovhead", *(("num",) if i in (2, 3, 4) else ())))
+                    for i, h in enumerate(heads)
+                )
+            )
+        cells = [self._head]
         for r in rows:
             cells += self._row_cells(r, current=session.current)
-            cells += stream_cells(r.get("streams") or [])  # streams under their characteristic
         self.table.children = cells
 
     def _row_cells(self, r: dict, *, current: str) -> list:
-        """The six cells of one row; widgets are made once per characteristic and reused."""
+        """The name cell of one row (a button) and one row widget (:func:`grid_row`) with its
+        other five cells and the rows of its streams; made once per characteristic and reused."""
         name = r["characteristic"]
         if name not in self._rows:
             b = widgets.Button(
@@ -498,15 +525,8 @@ class OverviewPanel(widgets.VBox):
             mark = html_box("")
             name_cell = widgets.HBox([b, mark])
             name_cell.add_class("sk-ovcell")
-            others = [
-                html_box("", "sk-ovcell"),
-                html_box("", "sk-ovcell", "num"),
-                html_box("", "sk-ovcell", "num"),
-                html_box("", "sk-ovcell", "num"),
-                html_box("", "sk-ovcell"),
-            ]
-            self._rows[name] = (name_cell, mark, others)
-        name_cell, mark, others = self._rows[name]
+            self._rows[name] = (name_cell, mark, grid_row())
+        name_cell, mark, rest = self._rows[name]
         caution = theme.VERDICTS["caution"]
         safety = (
             (
@@ -539,10 +559,13 @@ class OverviewPanel(widgets.VBox):
             esc(r["removed"]) if r["analysed"] else "—",
             esc(r["review"]),
         ]
-        for cell, value in zip(others, values, strict=True):
-            if cell.value != value:
-                cell.value = value
-        return [name_cell, *others]
+        classes = (("sk-ovcell",), *(("sk-ovcell", "num"),) * 3, ("sk-ovcell",))
+        from studykit.app.streams_view import stream_cells
+
+        html = grid_cells(zip(values, classes, strict=True)) + stream_cells(r.get("streams") or [])
+        if rest.value != html:
+            rest.value = html
+        return [name_cell, rest]
 
 
 class OverviewChart:

@@ -166,20 +166,27 @@ class WorkbookPageHandler(TornadoVoilaHandler):
 
 
 def preload_links(base_url: str) -> str:
-    """``<link rel="preload">`` tags for the page's two big scripts (Voila's front end and
-    BokehJS). Voila names them only at the end of the page, after the kernel has run the
-    notebook; announced in the ``<head>``, the browser fetches them while the kernel works.
+    """The page's ``<head>`` additions for its two big scripts: Voila's front end is announced
+    (``<link rel="preload">``; Voila names it only at the end of the page, after the kernel has
+    run the notebook) and BokehJS is run from the head (``<script defer>``): the browser fetches
+    and runs it while Voila's front end loads its own modules, instead of after the kernel
+    connection, when the notebook's output would run it (there the 0.15-0.25 s of running it
+    held up the widgets). The kernel's output then finds ``window.Bokeh`` and loads nothing
+    (:func:`studykit.app.bokeh_assets.bokehjs_html`).
 
     Examples
     --------
     >>> 'href="/voila/static/voila.js"' in preload_links("/")
     True
+    >>> "<script defer" in preload_links("/")
+    True
     """
-    urls = [
-        url_path_join(base_url, "voila/static/voila.js"),
-        url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0]),
-    ]
-    return "".join(f'<link rel="preload" as="script" href="{u}">' for u in urls)
+    voila = url_path_join(base_url, "voila/static/voila.js")
+    bokehjs = url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0])
+    return (
+        f'<link rel="preload" as="script" href="{voila}">'
+        f'<script defer type="text/javascript" src="{bokehjs}"></script>'
+    )
 
 
 class StudykitVoila(Voila):

@@ -11,7 +11,7 @@ from __future__ import annotations
 import ipywidgets as widgets
 
 from studykit import names
-from studykit.app.overview import fmt, verdict_chip, verdict_kind
+from studykit.app.overview import fmt, grid_cells, verdict_chip, verdict_kind
 from studykit.app.widgets import esc, html_box
 
 __all__ = ["streams_panel", "stream_overview_rows", "stream_cells", "time_model_html"]
@@ -155,8 +155,10 @@ def stream_overview_rows(result) -> list[dict]:
     return rows
 
 
-def stream_cells(rows: list[dict]) -> list:
-    """Six overview cells per stream row (the grid of "Characteristics at a glance")."""
+def stream_cells(rows: list[dict]) -> str:
+    """Six overview cells per stream row (the grid of "Characteristics at a glance"), as the
+    HTML of :func:`studykit.app.overview.grid_cells` (they go into their characteristic's
+    row widget)."""
     cells = []
     for r in rows:
         name = f"↳ stream {esc(r['stream'])}" + (" (worst)" if r["worst"] else "")
@@ -173,5 +175,5 @@ def stream_cells(rows: list[dict]) -> list:
             ("", ("sk-ovcell", "num")),
             ("", ("sk-ovcell",)),
         ]
-        cells += [html_box(v, *cls) for v, cls in values]
-    return cells
+        cells += values
+    return grid_cells(cells)
