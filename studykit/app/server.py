@@ -50,6 +50,8 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import functools
+import gzip
 import os
 import signal
 import socket
@@ -121,6 +123,51 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
     def get_cache_time(cls, path, modified, mime_type):
         # the URL carries the bokeh version, so the file never changes under it
         return 365 * 24 * 3600
+
+    async def get(self, path: str, include_body: bool = True) -> None:
+        """The bundle gzip-compressed once per server (:func:`gzipped`), not on every request
+        (``compress_response`` took about 40 ms of the server's CPU per page for the 1.3 MB
+        main bundle); a client without gzip or asking for a range gets tornado's answer."""
+        headers = self.request.headers
+        if "gzip" not in headers.get("Accept-Encoding", "") or headers.get("Range"):
+            return await super().get(path, include_body)
+        self.path = self.parse_url_path(path)
+        self.absolute_path = self.validate_absolute_path(
+            self.root, self.get_absolute_path(self.root, self.path)
+        )
+        if self.absolute_path is None:
+            return None
+        self.modified = self.get_modified_time()
+        self.set_headers()
+        if self.should_return_304():
+            self.set_status(304)
+            return None
+        body = gzipped(self.absolute_path, os.stat(self.absolute_path).st_mtime_ns)
+        self.set_header("Content-Encoding", "gzip")  # tornado then compresses it no further
+        self.set_header("Vary", "Accept-Encoding")
+        self.clear_header("Accept-Ranges")  # ranges are answered uncompressed (above)
+        if include_body:
+            self.write(body)
+        else:
+            self.set_header("Content-Length", len(body))
+        return None
+
+
+@functools.lru_cache(maxsize=len(BOKEHJS_FILES))
+def gzipped(path: str, mtime_ns: int) -> bytes:
+    """The gzip-compressed bytes of the file at ``path`` (cached per path and modification
+    time).
+
+    Examples
+    --------
+    >>> import gzip, tempfile
+    >>> with tempfile.NamedTemporaryFile(suffix=".js") as f:
+    ...     _ = f.write(b"var x = 1;" * 100); f.flush()
+    ...     gzip.decompress(gzipped(f.name, 0)) == b"var x = 1;" * 100
+    True
+    """
+    with open(path, "rb") as f:
+        return gzip.compress(f.read(), compresslevel=6, mtime=0)
 
 
 class WorkbookPageHandler(TornadoVoilaHandler):
