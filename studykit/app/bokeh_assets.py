@@ -22,9 +22,9 @@ def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
     """HTML that makes ``window.Bokeh`` available to the page.
 
     Under the workbook server (``STUDYKIT_BOKEHJS_URL`` set) a small script adds one
-    ``<script src>`` per bundle, in order, except the main bundle when the page has run it
-    already (the server's pages run it from their ``<head>``, :mod:`studykit.app.server`):
-    BokehJS is never run twice.
+    ``<script src>`` per bundle, in order, except for a bundle the page has a ``<script>`` tag
+    for already (the server's pages load the main bundle from their ``<head>``,
+    :mod:`studykit.app.server`): BokehJS is never run twice.
 
     Parameters
     ----------
@@ -37,9 +37,9 @@ def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
     >>> os.environ["STUDYKIT_BOKEHJS_URL"] = "/studykit/bokehjs/3/"
     >>> print(bokehjs_html())  # doctest: +NORMALIZE_WHITESPACE
     <script type="text/javascript">(function () { var urls = ["/studykit/bokehjs/3/bokeh.min.js"];
-    if (window.Bokeh) { urls = urls.slice(1); } urls.forEach(function (u) {
-    var s = document.createElement("script"); s.src = u; s.async = false;
-    document.head.appendChild(s); }); })();</script>
+    urls.filter(function (u) { return !document.querySelector('script[src="' + u + '"]'); })
+    .forEach(function (u) { var s = document.createElement("script"); s.src = u;
+    s.async = false; document.head.appendChild(s); }); })();</script>
     >>> del os.environ["STUDYKIT_BOKEHJS_URL"]
     """
     names = ["bokeh.min.js", *(f"bokeh-{e}.min.js" for e in extras)]
@@ -50,9 +50,9 @@ def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:
         urls = json.dumps([base + n for n in names])
         return (
             f'<script type="text/javascript">(function () {{ var urls = {urls};\n'
-            "if (window.Bokeh) { urls = urls.slice(1); } urls.forEach(function (u) {\n"
-            'var s = document.createElement("script"); s.src = u; s.async = false;\n'
-            "document.head.appendChild(s); }); })();</script>"
+            "urls.filter(function (u) { return !document.querySelector('script[src=\"' + u + "
+            '\'"]\'); })\n.forEach(function (u) { var s = document.createElement("script"); '
+            "s.src = u;\ns.async = false; document.head.appendChild(s); }); })();</script>"
         )
     from bokeh.resources import Resources
 

@@ -215,24 +215,24 @@ class WorkbookPageHandler(TornadoVoilaHandler):
 def preload_links(base_url: str) -> str:
     """The page's ``<head>`` additions for its two big scripts: Voila's front end is announced
     (``<link rel="preload">``; Voila names it only at the end of the page, after the kernel has
-    run the notebook) and BokehJS is run from the head (``<script defer>``): the browser fetches
-    and runs it while Voila's front end loads its own modules, instead of after the kernel
-    connection, when the notebook's output would run it (there the 0.15-0.25 s of running it
-    held up the widgets). The kernel's output then finds ``window.Bokeh`` and loads nothing
-    (:func:`studykit.app.bokeh_assets.bokehjs_html`).
+    run the notebook) and BokehJS is run from the head (``<script async>``): the browser fetches
+    and runs it as soon as it can (for a first visitor while the kernel still runs the
+    notebook), instead of after the kernel connection, when the notebook's output would run it
+    (there the 0.15-0.5 s of running it held up the widgets). The kernel's output then loads
+    nothing (:func:`studykit.app.bokeh_assets.bokehjs_html`).
 
     Examples
     --------
     >>> 'href="/voila/static/voila.js"' in preload_links("/")
     True
-    >>> "<script defer" in preload_links("/")
+    >>> "<script async" in preload_links("/")
     True
     """
     voila = url_path_join(base_url, "voila/static/voila.js")
     bokehjs = url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0])
     return (
         f'<link rel="preload" as="script" href="{voila}">'
-        f'<script defer type="text/javascript" src="{bokehjs}"></script>'
+        f'<script async type="text/javascript" src="{bokehjs}"></script>'
     )
 
 
