@@ -144,7 +144,8 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
             return None
         body = gzipped(self.absolute_path, os.stat(self.absolute_path).st_mtime_ns)
         self.set_header("Content-Encoding", "gzip")  # tornado then compresses it no further
-        self.set_header("Vary", "Accept-Encoding")
+        if not self.settings.get("compress_response"):  # else tornado's transform adds it
+            self.set_header("Vary", "Accept-Encoding")
         self.clear_header("Accept-Ranges")  # ranges are answered uncompressed (above)
         if include_body:
             self.write(body)
