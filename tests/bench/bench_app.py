@@ -17,7 +17,9 @@ Per run, one after the other (interleaved, so all three see the same machine loa
 * **second visitor**: ``--warm`` seconds after the first visitor's chart, a new page on the same
   server; page open -> first chart.
 * **browser main thread of the second visitor**: the seconds its main thread was busy until
-  the chart (stock Voila: until its line), Chrome's ``TaskDuration``: the browser's share.
+  the chart (stock Voila: until its line), Chrome's ``TaskDuration``: the browser's share. It is
+  the wall time of the main thread's tasks, so on a loaded machine it grows with the load too
+  (it varied 1.5-2.5 s for the same code at a load average of 5-7).
 * **kernel memory**: resident set size (``VmRSS``) of each kernel process of the server after
   the second visit, the largest one reported (a kernel holds one page's workbook).
 * **kernel CPU at the first chart**: user + system CPU seconds of the page's kernel (the
@@ -156,7 +158,7 @@ def _compile_bytecode(checkout: Path) -> None:
 def _busy_meter(page):
     """A function giving the seconds the page's main thread has been busy so far (Chrome's
     ``TaskDuration`` metric through the DevTools protocol): the browser's share of a page's
-    time, less bound to the machine's load than the wall time."""
+    time (wall time of its tasks: it grows with the machine's load as well)."""
     cdp = page.context.new_cdp_session(page)
     cdp.send("Performance.enable")
 
