@@ -37,6 +37,7 @@ __all__ = [
     "BatchResult",
     "NO_SPEC_NOTE",
     "run_many",
+    "start_workers",
 ]
 
 #: Columns of the overview, in order (field names defined once for JSON, CSV and XLSX).
@@ -258,11 +259,32 @@ def _spec_map(specs) -> dict:
     return {c.name: c for c in specs}
 
 
+class _Lookup:
+    """``names`` and ``get(name)`` of a :class:`~studykit.data.Measurements` through one dict
+    built once (its ``get`` scans every characteristic: a thousand look-ups of a thousand
+    characteristics were a million comparisons). The same answers: the first characteristic
+    whose name or label is ``name``; any other spelling (case) and the error message come
+    from the measurements' own ``get``."""
+
+    def __init__(self, measurements):
+        self._measurements = measurements
+        self.names = tuple(measurements.names)
+        self._by_name: dict = {}
+        for c in getattr(measurements, "characteristics", ()):
+            self._by_name.setdefault(c.name, c)
+            self._by_name.setdefault(c.label, c)
+
+    def get(self, name):
+        found = self._by_name.get(name) if isinstance(name, str) else None
+        return found if found is not None else self._measurements.get(name)
+
+
 def _build_tasks(
     measurements, specs: dict, criteria: Mapping, exclusions: Mapping, names: Iterable[str] | None
 ) -> list[_Task]:
     from studykit.study import match_to_data
 
+    measurements = _Lookup(measurements)
     size_columns = {c.size_column for c in specs.values() if c is not None and c.size_column}
     data_names = list(measurements.names)
     # specs are matched to the data's spelling (case, "name [unit]")
@@ -352,6 +374,7 @@ def run_many(
     names: Iterable[str] | None = None,
     exclusions: Mapping | None = None,
     chunk_size: int | None = None,
+    pool=None,
 ) -> BatchResult:
     """Analyse many characteristics; one overview row each, in the order of the data file.
 
@@ -382,6 +405,10 @@ def run_many(
         Recorded manual exclusions per characteristic.
     chunk_size : int, optional
         Characteristics per task; default total / (jobs x :data:`CHUNKS_PER_WORKER`).
+    pool : concurrent.futures.ProcessPoolExecutor, optional
+        Worker processes started beforehand by :func:`start_workers` (they prepare while the
+        caller reads the data); used when the run goes to local processes, shut down by the
+        caller. Default: a pool of ``jobs`` processes started here.
 
     Returns
     -------
@@ -442,27 +469,55 @@ def run_many(
                     progress(len(rows), total, rows[-1]["characteristic"])
             backend, jobs = "local", 1
         else:
-            rows = _run_processes(chunks, options_dict, jobs, progress, total)
+            rows = _run_processes(chunks, options_dict, jobs, progress, total, pool)
             backend = "processes"
     return BatchResult(
         rows=tuple(rows), jobs=jobs, backend=backend, seconds=time.perf_counter() - started
     )
 
 
-def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor, as_completed
-
-    import studykit.analysis  # noqa: F401 - imported before the fork, so workers start warm
+def _warm_worker() -> None:
+    """Worker start-up: the imports and tables every analysis needs, done once per process
+    before its first chunk (the same modules and tables a chunk would load itself, so the
+    numbers are unchanged). scipy.stats comes too: about one characteristic in twenty of a
+    normal process is rejected by Anderson-Darling at 0.05 and fitted by the families, which
+    need it, so a batch of more than a few dozen characteristics almost always loads it."""
+    import studykit.analysis  # noqa: F401
     from studykit.stats.constants import gauss_legendre
+    from studykit.stats.lazy import scipy_stats
 
-    gauss_legendre(400)  # the d3 quadrature rule, once here instead of once per worker
+    gauss_legendre(400)  # the d3 quadrature rule
+    scipy_stats.norm  # noqa: B018 - loads scipy.stats
 
+
+def start_workers(jobs: int | None = None):
+    """Start ``jobs`` worker processes now (default: the cores available) and let each one
+    import the analysis while this process goes on (e.g. reads the measurement file): a
+    ``ProcessPoolExecutor`` to pass to :func:`run_many` as ``pool`` and to shut down after it,
+    or None for one job. Forked where the platform can fork (the workers inherit this
+    process's modules and settings, e.g. one BLAS thread)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    jobs = default_jobs() if jobs is None else int(jobs)
+    if jobs < 2:
+        return None
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=_warm_worker)
+    pool.submit(int)  # the first task starts every (forked) worker, which then warms up
+    return pool
+
+
+def _run_processes(chunks, options_dict, jobs, progress, total, pool=None) -> list:
+    from concurrent.futures import as_completed
+
+    own = pool is None
+    if own:
+        pool = start_workers(jobs)
     results: list = [None] * len(chunks)
     done = 0
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+    try:
         futures = {
             pool.submit(_run_chunk, chunk, options_dict): i for i, chunk in enumerate(chunks)
         }
@@ -472,6 +527,9 @@ def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
             done += len(results[i])
             if progress is not None:
                 progress(done, total, results[i][-1]["characteristic"])
+    finally:
+        if own:
+            pool.shutdown()
     return [row for chunk in results for row in chunk]
 
 

@@ -176,11 +176,13 @@ def run_batch(args) -> int:
 
 
 def _run_batch(args) -> int:
-    from studykit.batch import run_many
+    from studykit.batch import run_many, start_workers
 
-    measurements, specs, criteria, exclusions = _inputs(args)
+    # the worker processes start first and import the analysis while this one reads the files
+    pool = None if args.scheduler or args.jobs == 1 else start_workers(args.jobs)
     bar = ProgressBar()
     try:
+        measurements, specs, criteria, exclusions = _inputs(args)
         result = run_many(
             measurements,
             specs,
@@ -190,9 +192,12 @@ def _run_batch(args) -> int:
             progress=bar,
             scheduler=args.scheduler,
             exclusions=exclusions,
+            pool=pool,
         )
     finally:
         bar.close()
+        if pool is not None:
+            pool.shutdown(cancel_futures=True)
     if args.out:
         path = result.write(args.out)
         print(f"{_summary_line(result)}; overview written to {path.name}", file=sys.stderr)
