@@ -481,12 +481,12 @@ def run_many(
 
 
 def _warm_worker() -> None:
-    """Worker start-up: the imports and tables every analysis needs, done once per process
-    before its first chunk (the same modules and tables a chunk would load itself, so the
-    numbers are unchanged). scipy.stats comes too: about one characteristic in twenty of a
-    normal process is rejected by Anderson-Darling at 0.05 and fitted by the families, which
-    need it, so a batch of more than a few dozen characteristics almost always loads it."""
-    import studykit.analysis  # noqa: F401
+    """Worker start-up: the tables and modules every analysis needs that the parent has not
+    loaded, done once per process before its first chunk (the same ones a chunk would load
+    itself, so the numbers are unchanged). scipy.stats comes too: about one characteristic in
+    twenty of a normal process is rejected by Anderson-Darling at 0.05 and fitted by the
+    families, which need it, so a batch of more than a few dozen characteristics almost
+    always loads it."""
     from studykit.stats.constants import gauss_legendre
     from studykit.stats.lazy import scipy_stats
 
@@ -496,7 +496,8 @@ def _warm_worker() -> None:
 
 def start_workers(jobs: int | None = None):
     """Start ``jobs`` worker processes now (default: the cores available) and let each one
-    import the analysis while this process goes on (e.g. reads the measurement file): a
+    prepare (scipy.stats, the d3 quadrature rule) while this process goes on (e.g. reads the
+    measurement file): a
     ``ProcessPoolExecutor`` to pass to :func:`run_many` as ``pool`` and to shut down after it,
     or None for one job. Forked where the platform can fork (the workers inherit this
     process's modules and settings, e.g. one BLAS thread)."""
@@ -506,6 +507,11 @@ def start_workers(jobs: int | None = None):
     jobs = default_jobs() if jobs is None else int(jobs)
     if jobs < 2:
         return None
+    # the analysis modules (and studykit.stats, which reading the file needs as well) once
+    # here, before the fork, so the workers share them; scipy.stats then loads in each
+    # worker while this process reads
+    import studykit.analysis  # noqa: F401
+
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
     pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=_warm_worker)
