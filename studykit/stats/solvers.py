@@ -408,7 +408,7 @@ def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True, cu
     """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
     xmin - exp(u), in groups of at most :data:`CACHE_CELLS` cells (same numbers as one call);
     with ``slopes=False`` the slope is None (not computed); with ``curvature`` (the family's
-    ``dtheta2_rows``) the slope is two rows: the slope and its derivative in u."""
+    ``dtheta2_rows``) the slope is three rows (:func:`_slope_terms`)."""
     group = rows_per_group(block.shape[1], CACHE_CELLS)
     parts = []
     for i in range(0, rows.size, group):
@@ -416,9 +416,10 @@ def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True, cu
         ys = _shifted(block, xmin, rows[part], u[part])
         with np.errstate(all="ignore"):
             ll, params, state = inner(ys, None if start is None else tuple(c[part] for c in start))
-        s = _slope(ys, u[part], dtheta, params) if slopes else None
         if curvature is not None:
-            s = np.stack((s, *_slope_du(ys, u[part], s, curvature, params)))
+            s = _slope_terms(ys, u[part], curvature, params)
+        else:
+            s = _slope(ys, u[part], dtheta, params) if slopes else None
         parts.append((s, params, np.where(np.isfinite(ll), ll, -np.inf), state))
         del ys
     if len(parts) == 1:
@@ -451,15 +452,19 @@ def _slope(ys, u, dtheta, params):
     return np.where(np.isfinite(s), s, np.nan)
 
 
-def _slope_du(ys, u, s, curvature, params):
-    """(d(slope)/du, d(inner state)/dtheta) of the rows ``ys`` at u: the slope is
-    S(u) = -exp(u) g(theta) with g the derivative of the profile log-likelihood in the
-    threshold theta = xmin - exp(u), so S'(u) = -exp(u) g + exp(2u) g'(theta) = S + exp(2u) g'
-    (g' and the state's derivative from ``curvature``)."""
+def _slope_terms(ys, u, curvature, params):
+    """The rows (slope, d(slope)/du, d(inner state)/dtheta) of ``ys`` at u, from the
+    family's ``curvature`` (``dtheta2_rows``: g, g' and the state's derivative in one pass):
+    the slope is S(u) = -exp(u) g(theta) with g the derivative of the profile log-likelihood
+    in the threshold theta = xmin - exp(u), so S'(u) = -exp(u) g + exp(2u) g'(theta)
+    = S + exp(2u) g'; NaN where not finite."""
     with np.errstate(all="ignore"):
-        d2, dstate = curvature(ys, params)
+        g, d2, dstate = curvature(ys, params)
+        s = -np.exp(u) * g
         ds = s + np.exp(2.0 * u) * d2
-    return np.where(np.isfinite(ds), ds, np.nan), dstate
+    return np.stack(
+        (np.where(np.isfinite(s), s, np.nan), np.where(np.isfinite(ds), ds, np.nan), dstate)
+    )
 
 
 def _slopes_at(block, xmin, dtheta, rows, u, params):
