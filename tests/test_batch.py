@@ -140,11 +140,8 @@ def test_workers_started_before_reading_give_identical_rows(inputs, local):
     # the command line starts the workers before it reads the files (start_workers); the
     # reference is the one-process run of the same batch
     m, chars, crit = inputs
-    pool = start_workers(2)
-    try:
+    with start_workers(2) as pool:
         par = run_many(m, chars, crit, options=OPTIONS, jobs=2, chunk_size=2, pool=pool)
-    finally:
-        pool.shutdown()
     assert par.backend == "processes" and par.jobs == 2
     assert par.rows == local.rows
     assert start_workers(1) is None  # one job: no worker processes

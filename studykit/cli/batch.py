@@ -176,7 +176,7 @@ def run_batch(args) -> int:
 
 
 def _run_batch(args) -> int:
-    from studykit.batch import run_many, start_workers
+    from studykit.batch import run_many, start_workers, stop_workers
 
     # the worker processes start first and import the analysis while this one reads the files
     pool = None if args.scheduler or args.jobs == 1 else start_workers(args.jobs)
@@ -197,7 +197,7 @@ def _run_batch(args) -> int:
     finally:
         bar.close()
         if pool is not None:
-            pool.shutdown(cancel_futures=True)
+            stop_workers(pool)
     if args.out:
         path = result.write(args.out)
         print(f"{_summary_line(result)}; overview written to {path.name}", file=sys.stderr)
