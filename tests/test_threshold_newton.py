@@ -60,6 +60,13 @@ def _model_and_block(seed, m=300):
     return model, NEW.sample(model.parameters, (m, n), np.random.default_rng(seed + 1000))
 
 
+def _case_or_skip(seed):
+    case = _model_and_block(seed)
+    if case is None:
+        pytest.skip("no interior maximum for this sample (checked by tests/test_fit.py)")
+    return case
+
+
 def _logliks(block, params, ok):
     out = np.full(block.shape[0], np.nan)
     for i in np.flatnonzero(ok):
@@ -69,10 +76,7 @@ def _logliks(block, params, ok):
 
 @pytest.mark.parametrize("seed", range(40))
 def test_newton_refits_at_least_as_likely_as_illinois(seed):
-    case = _model_and_block(seed)
-    if case is None:
-        pytest.skip("no interior maximum for this sample (checked by tests/test_fit.py)")
-    _, block = case
+    _, block = _case_or_skip(seed)
     p_new, ok_new, rest_new = NEW.refit_rows(block, {})
     p_old, ok_old, rest_old = OLD.refit_rows(block, {})
     np.testing.assert_array_equal(ok_new, ok_old)
@@ -113,10 +117,7 @@ def test_newton_roots_are_closer_to_a_zero_of_the_slope():
 
 @pytest.mark.parametrize("seed", range(12))
 def test_bounds_move_only_in_the_last_digits(seed):
-    case = _model_and_block(seed)
-    if case is None:
-        pytest.skip("no interior maximum for this sample")
-    model, block = case
+    model, block = _case_or_skip(seed)
     n = block.shape[1]
     usl = float(model.ppf(0.9999))
     values = {"pp": None, "ppk": 1.0, "ppu": 1.0, "ppl": None}
