@@ -3,7 +3,7 @@
 :func:`run_many` analyses every characteristic of a measurement file (or a chosen subset)
 with :func:`studykit.analysis.analyze_characteristic` and returns one overview row per
 characteristic (the numbers of :meth:`~studykit.analysis.CharacteristicResult.headline`).
-The work runs in parallel on the machine's cores (``multiprocessing`` worker processes) or,
+The work runs in parallel on the machine's cores (``concurrent.futures`` worker processes) or,
 optionally, on a Dask cluster (``scheduler=ADDRESS``). Each worker receives a chunk of
 characteristics as plain numpy arrays and specification dicts and sends back plain row dicts,
 so little is pickled and the numbers are identical whichever backend runs them.
@@ -410,7 +410,7 @@ def run_many(
         Recorded manual exclusions per characteristic.
     chunk_size : int, optional
         Characteristics per task; default total / (jobs x :data:`CHUNKS_PER_WORKER`).
-    pool : multiprocessing.pool.Pool, optional
+    pool : concurrent.futures.ProcessPoolExecutor, optional
         Worker processes started beforehand by :func:`start_workers` (they prepare while the
         caller reads the data); used when the run goes to local processes, ended by the
         caller (:func:`stop_workers`). Default: a pool of ``jobs`` processes started here.
@@ -498,11 +498,12 @@ def _warm_worker() -> None:
 def start_workers(jobs: int | None = None):
     """Start ``jobs`` worker processes now (default: the cores available) and let each one
     prepare (scipy.stats, the d3 quadrature rule) while this process goes on (e.g. reads the
-    measurement file): a ``multiprocessing`` pool to pass to :func:`run_many` as ``pool`` and
-    to end with :func:`stop_workers` (also usable as ``with start_workers(2) as pool:``), or
-    None for one job. Forked where the platform can fork (the workers inherit this process's
+    measurement file): a ``ProcessPoolExecutor`` to pass to :func:`run_many` as ``pool`` and
+    to end with :func:`stop_workers` (or use as ``with start_workers(2) as pool:``), or None
+    for one job. Forked where the platform can fork (the workers inherit this process's
     modules and settings, e.g. one BLAS thread)."""
     import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
 
     jobs = default_jobs() if jobs is None else int(jobs)
     if jobs < 2:
@@ -514,35 +515,36 @@ def start_workers(jobs: int | None = None):
 
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
-    return ctx.Pool(processes=jobs, initializer=_warm_worker)
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=_warm_worker)
+    pool.submit(int)  # the first task starts every (forked) worker, which then warms up
+    return pool
 
 
-def stop_workers(pool) -> None:
-    """End the workers of :func:`start_workers` at once (whether or not they have finished
-    preparing: a file that cannot be read is reported without waiting for them)."""
-    pool.terminate()
-    pool.join()
-
-
-def _run_indexed(item) -> tuple:
-    """Worker entry point of the process pool: (chunk number, its rows)."""
-    i, tasks, options_dict = item
-    return i, _run_chunk(tasks, options_dict)
+def stop_workers(pool, *, wait: bool = True) -> None:
+    """End the workers of :func:`start_workers`. ``wait=False`` (a file that could not be
+    read): return at once, so the message is shown without waiting for the workers to finish
+    preparing (the interpreter still ends them before it exits)."""
+    pool.shutdown(wait=wait, cancel_futures=True)
 
 
 def _run_processes(chunks, options_dict, jobs, progress, total, pool=None) -> list:
+    from concurrent.futures import as_completed
+
     own = pool is None
     if own:
         pool = start_workers(jobs)
     results: list = [None] * len(chunks)
     done = 0
     try:
-        items = [(i, chunk, options_dict) for i, chunk in enumerate(chunks)]
-        for i, rows in pool.imap_unordered(_run_indexed, items):
-            results[i] = rows
-            done += len(rows)
+        futures = {
+            pool.submit(_run_chunk, chunk, options_dict): i for i, chunk in enumerate(chunks)
+        }
+        for fut in as_completed(futures):
+            i = futures[fut]
+            results[i] = fut.result()
+            done += len(results[i])
             if progress is not None:
-                progress(done, total, rows[-1]["characteristic"])
+                progress(done, total, results[i][-1]["characteristic"])
     finally:
         if own:
             stop_workers(pool)

@@ -178,9 +178,10 @@ def run_batch(args) -> int:
 def _run_batch(args) -> int:
     from studykit.batch import run_many, start_workers, stop_workers
 
-    # the worker processes start first and import the analysis while this one reads the files
+    # the worker processes start first and load the analysis' libraries while this one reads
     pool = None if args.scheduler or args.jobs == 1 else start_workers(args.jobs)
     bar = ProgressBar()
+    ran = False
     try:
         measurements, specs, criteria, exclusions = _inputs(args)
         result = run_many(
@@ -194,10 +195,11 @@ def _run_batch(args) -> int:
             exclusions=exclusions,
             pool=pool,
         )
+        ran = True
     finally:
         bar.close()
-        if pool is not None:
-            stop_workers(pool)
+        if pool is not None:  # on an error: the message first, not after the workers' start
+            stop_workers(pool, wait=ran)
     if args.out:
         path = result.write(args.out)
         print(f"{_summary_line(result)}; overview written to {path.name}", file=sys.stderr)
