@@ -65,8 +65,8 @@ NO_SPEC_NOTE = "no specification limits: stability only (add a row to the specs 
 #: back the end of the run (common practice, no source). 8: on the measured work of each
 #: characteristic of the 1,000 x 125 benchmark, the later of two workers taking chunks in
 #: turn ends 0.10 s after an even split with 4 chunks each, 0.02 s with 8 (16 or 32: no
-#: better; sending a
-#: chunk costs about a millisecond), and a worker slowed by other load hands over sooner.
+#: better; sending a chunk costs about a millisecond), and a worker slowed by other load
+#: hands over sooner.
 CHUNKS_PER_WORKER = 8
 
 #: Seconds to wait for a Dask scheduler to answer.
