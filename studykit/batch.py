@@ -37,6 +37,8 @@ __all__ = [
     "BatchResult",
     "NO_SPEC_NOTE",
     "run_many",
+    "start_workers",
+    "stop_workers",
 ]
 
 #: Columns of the overview, in order (field names defined once for JSON, CSV and XLSX).
@@ -60,8 +62,12 @@ BATCH_COLUMNS = (
 NO_SPEC_NOTE = "no specification limits: stability only (add a row to the specs table)"
 
 #: Chunks per worker: several, so the progress display moves and a slow chunk does not hold
-#: back the end of the run (common practice, no source).
-CHUNKS_PER_WORKER = 4
+#: back the end of the run (common practice, no source). 8: on the measured work of each
+#: characteristic of the 1,000 x 125 benchmark, the later of two workers taking chunks in
+#: turn ends 0.10 s after an even split with 4 chunks each, 0.02 s with 8 (16 or 32: no
+#: better; sending a chunk costs about a millisecond), and a worker slowed by other load
+#: hands over sooner.
+CHUNKS_PER_WORKER = 8
 
 #: Seconds to wait for a Dask scheduler to answer.
 DASK_CONNECT_TIMEOUT = 10
@@ -258,11 +264,32 @@ def _spec_map(specs) -> dict:
     return {c.name: c for c in specs}
 
 
+class _Lookup:
+    """``names`` and ``get(name)`` of a :class:`~studykit.data.Measurements` through one dict
+    built once (its ``get`` scans every characteristic: a thousand look-ups of a thousand
+    characteristics were a million comparisons). The same answers: the first characteristic
+    whose name or label is ``name``; any other spelling (case) and the error message come
+    from the measurements' own ``get``."""
+
+    def __init__(self, measurements):
+        self._measurements = measurements
+        self.names = tuple(measurements.names)
+        self._by_name: dict = {}
+        for c in getattr(measurements, "characteristics", ()):
+            self._by_name.setdefault(c.name, c)
+            self._by_name.setdefault(c.label, c)
+
+    def get(self, name):
+        found = self._by_name.get(name) if isinstance(name, str) else None
+        return found if found is not None else self._measurements.get(name)
+
+
 def _build_tasks(
     measurements, specs: dict, criteria: Mapping, exclusions: Mapping, names: Iterable[str] | None
 ) -> list[_Task]:
     from studykit.study import match_to_data
 
+    measurements = _Lookup(measurements)
     size_columns = {c.size_column for c in specs.values() if c is not None and c.size_column}
     data_names = list(measurements.names)
     # specs are matched to the data's spelling (case, "name [unit]")
@@ -352,6 +379,7 @@ def run_many(
     names: Iterable[str] | None = None,
     exclusions: Mapping | None = None,
     chunk_size: int | None = None,
+    pool=None,
 ) -> BatchResult:
     """Analyse many characteristics; one overview row each, in the order of the data file.
 
@@ -382,6 +410,10 @@ def run_many(
         Recorded manual exclusions per characteristic.
     chunk_size : int, optional
         Characteristics per task; default total / (jobs x :data:`CHUNKS_PER_WORKER`).
+    pool : concurrent.futures.ProcessPoolExecutor, optional
+        Worker processes started beforehand by :func:`start_workers` (they prepare while the
+        caller reads the data); used when the run goes to local processes, ended by the
+        caller (:func:`stop_workers`). Default: a pool of ``jobs`` processes started here.
 
     Returns
     -------
@@ -442,27 +474,68 @@ def run_many(
                     progress(len(rows), total, rows[-1]["characteristic"])
             backend, jobs = "local", 1
         else:
-            rows = _run_processes(chunks, options_dict, jobs, progress, total)
+            rows = _run_processes(chunks, options_dict, jobs, progress, total, pool)
             backend = "processes"
     return BatchResult(
         rows=tuple(rows), jobs=jobs, backend=backend, seconds=time.perf_counter() - started
     )
 
 
-def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor, as_completed
-
-    import studykit.analysis  # noqa: F401 - imported before the fork, so workers start warm
+def _warm_worker() -> None:
+    """Worker start-up: the tables and modules every analysis needs that the parent has not
+    loaded, done once per process before its first chunk (the same ones a chunk would load
+    itself, so the numbers are unchanged). scipy.stats comes too: about one characteristic in
+    twenty of a normal process is rejected by Anderson-Darling at 0.05 and fitted by the
+    families, which need it, so a batch of more than a few dozen characteristics almost
+    always loads it."""
     from studykit.stats.constants import gauss_legendre
+    from studykit.stats.lazy import scipy_stats
 
-    gauss_legendre(400)  # the d3 quadrature rule, once here instead of once per worker
+    gauss_legendre(400)  # the d3 quadrature rule
+    scipy_stats.norm  # noqa: B018 - loads scipy.stats
+
+
+def start_workers(jobs: int | None = None):
+    """Start ``jobs`` worker processes now (default: the cores available) and let each one
+    prepare (scipy.stats, the d3 quadrature rule) while this process goes on (e.g. reads the
+    measurement file): a ``ProcessPoolExecutor`` to pass to :func:`run_many` as ``pool`` and
+    to end with :func:`stop_workers` (or use as ``with start_workers(2) as pool:``), or None
+    for one job. Forked where the platform can fork (the workers inherit this process's
+    modules and settings, e.g. one BLAS thread)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    jobs = default_jobs() if jobs is None else int(jobs)
+    if jobs < 2:
+        return None
+    # the analysis modules (and studykit.stats, which reading the file needs as well) once
+    # here, before the fork, so the workers share them; scipy.stats then loads in each
+    # worker while this process reads
+    import studykit.analysis  # noqa: F401
 
     methods = multiprocessing.get_all_start_methods()
     ctx = multiprocessing.get_context("fork" if "fork" in methods else None)
+    pool = ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=_warm_worker)
+    pool.submit(int)  # the first task starts every (forked) worker, which then warms up
+    return pool
+
+
+def stop_workers(pool, *, wait: bool = True) -> None:
+    """End the workers of :func:`start_workers`. ``wait=False`` (a file that could not be
+    read): return at once, so the message is shown without waiting for the workers to finish
+    preparing (the interpreter still ends them before it exits)."""
+    pool.shutdown(wait=wait, cancel_futures=True)
+
+
+def _run_processes(chunks, options_dict, jobs, progress, total, pool=None) -> list:
+    from concurrent.futures import as_completed
+
+    own = pool is None
+    if own:
+        pool = start_workers(jobs)
     results: list = [None] * len(chunks)
     done = 0
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx) as pool:
+    try:
         futures = {
             pool.submit(_run_chunk, chunk, options_dict): i for i, chunk in enumerate(chunks)
         }
@@ -472,6 +545,9 @@ def _run_processes(chunks, options_dict, jobs, progress, total) -> list:
             done += len(results[i])
             if progress is not None:
                 progress(done, total, results[i][-1]["characteristic"])
+    finally:
+        if own:
+            stop_workers(pool)
     return [row for chunk in results for row in chunk]
 
 

@@ -20,7 +20,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from studykit.analysis import AnalysisOptions, analyze_characteristic
-from studykit.batch import BATCH_COLUMNS, NO_SPEC_NOTE, run_many
+from studykit.batch import BATCH_COLUMNS, NO_SPEC_NOTE, run_many, start_workers
 from studykit.cli import main
 from studykit.data import read_measurements
 from studykit.errors import StudyInputError
@@ -134,6 +134,31 @@ def test_processes_give_identical_rows(inputs, local):
     done = [c[0] for c in calls]
     assert done == sorted(done) and done[-1] == len(local.rows)
     assert {c[1] for c in calls} == {len(local.rows)}
+
+
+def test_workers_started_before_reading_give_identical_rows(inputs, local):
+    # the command line starts the workers before it reads the files (start_workers); the
+    # reference is the one-process run of the same batch
+    m, chars, crit = inputs
+    with start_workers(2) as pool:
+        par = run_many(m, chars, crit, options=OPTIONS, jobs=2, chunk_size=2, pool=pool)
+    assert par.backend == "processes" and par.jobs == 2
+    assert par.rows == local.rows
+    assert start_workers(1) is None  # one job: no worker processes
+
+
+def test_specs_match_by_label_and_case(inputs, local):
+    # a specs table may spell a name as the data's label ("name [unit]") or in another case;
+    # the reference is the row under the data's own spelling
+    m, chars, crit = inputs
+    from dataclasses import replace
+
+    bore = next(c for c in chars if c.name == "bore")
+    gap = next(c for c in chars if c.name == "gap")
+    respelled = [replace(bore, name="bore [mm]"), replace(gap, name="GAP")]
+    crit2 = {"bore [mm]": crit["bore"]} if "bore" in crit else {}
+    res = run_many(m, respelled, crit2, options=OPTIONS, jobs=1, names=["bore", "gap"])
+    assert res.rows == (local.row("bore"), local.row("gap"))
 
 
 def test_error_rows_do_not_stop_the_batch(local):

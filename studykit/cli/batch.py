@@ -176,11 +176,14 @@ def run_batch(args) -> int:
 
 
 def _run_batch(args) -> int:
-    from studykit.batch import run_many
+    from studykit.batch import run_many, start_workers, stop_workers
 
-    measurements, specs, criteria, exclusions = _inputs(args)
+    # the worker processes start first and load the analysis' libraries while this one reads
+    pool = None if args.scheduler or args.jobs == 1 else start_workers(args.jobs)
     bar = ProgressBar()
+    ran = False
     try:
+        measurements, specs, criteria, exclusions = _inputs(args)
         result = run_many(
             measurements,
             specs,
@@ -190,9 +193,13 @@ def _run_batch(args) -> int:
             progress=bar,
             scheduler=args.scheduler,
             exclusions=exclusions,
+            pool=pool,
         )
+        ran = True
     finally:
         bar.close()
+        if pool is not None:  # on an error: the message first, not after the workers' start
+            stop_workers(pool, wait=ran)
     if args.out:
         path = result.write(args.out)
         print(f"{_summary_line(result)}; overview written to {path.name}", file=sys.stderr)

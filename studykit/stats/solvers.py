@@ -352,7 +352,10 @@ def threshold_rows(family, block, shared=None):
     point is the root of the profile slope, found by the Illinois variant of regula falsi to
     1e-9 in u = log(min(x) - threshold) instead of two refining passes of 33 points (a
     sample whose slope does not change sign across the bracket goes to the family's own
-    estimator too). With ``family.shared_grid_start`` the inner solutions on the first
+    estimator too). A family that gives the slope's derivative (``dtheta2_rows``: the
+    Weibull) takes safeguarded Newton steps from the best grid point instead
+    (:func:`_newton`: about half the evaluations, roots closer to the slope's zero). With
+    ``family.shared_grid_start`` the inner solutions on the first
     sample's grid start every sample's iteration (``shared`` keeps them across blocks).
     """
     n_boot = block.shape[0]
@@ -360,6 +363,7 @@ def threshold_rows(family, block, shared=None):
     xmin = block.min(axis=1)
     sd = block.std(axis=1)
     evaluate = functools.partial(_rows_at, block, xmin, family.fit_rows, family.dtheta_rows)
+    curvature = getattr(family, "dtheta2_rows", None)
     rows = np.flatnonzero(spread & (sd > 0))
     fallback = set(np.flatnonzero(~(spread & (sd > 0))).tolist())
     shared = {} if shared is None else shared
@@ -367,7 +371,11 @@ def threshold_rows(family, block, shared=None):
     rows, bracket, state = _grid_brackets(
         family, block, rows, sd, shared, evaluate, slopes_at, fallback
     )
-    root, unsolved = _illinois(evaluate, rows, *bracket, state)
+    if curvature is None:
+        root, unsolved = _illinois(evaluate, rows, *bracket, state)
+    else:  # Newton steps on the slope from the best grid point, inside the bracket
+        newton_at = functools.partial(evaluate, curvature=curvature)
+        root, unsolved = _newton(newton_at, rows, *bracket, state)
     fallback.update(rows[unsolved].tolist())
     good = np.isfinite(root)
     rows, root = rows[good], root[good]
@@ -396,10 +404,11 @@ def threshold_rows(family, block, shared=None):
 CACHE_CELLS = 1 << 14
 
 
-def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True):
+def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True, curvature=None):
     """(profile slope, params, log-likelihood, inner state) of ``rows`` at thresholds
     xmin - exp(u), in groups of at most :data:`CACHE_CELLS` cells (same numbers as one call);
-    with ``slopes=False`` the slope is None (not computed)."""
+    with ``slopes=False`` the slope is None (not computed); with ``curvature`` (the family's
+    ``dtheta2_rows``) the slope is three rows (:func:`_slope_terms`)."""
     group = rows_per_group(block.shape[1], CACHE_CELLS)
     parts = []
     for i in range(0, rows.size, group):
@@ -407,7 +416,10 @@ def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True):
         ys = _shifted(block, xmin, rows[part], u[part])
         with np.errstate(all="ignore"):
             ll, params, state = inner(ys, None if start is None else tuple(c[part] for c in start))
-        s = _slope(ys, u[part], dtheta, params) if slopes else None
+        if curvature is not None:
+            s = _slope_terms(ys, u[part], curvature, params)
+        else:
+            s = _slope(ys, u[part], dtheta, params) if slopes else None
         parts.append((s, params, np.where(np.isfinite(ll), ll, -np.inf), state))
         del ys
     if len(parts) == 1:
@@ -418,7 +430,7 @@ def _rows_at(block, xmin, inner, dtheta, rows, u, start=None, *, slopes=True):
         None if states[0] is None else tuple(np.concatenate(c) for c in zip(*states, strict=True))
     )
     return (
-        np.concatenate([q[0] for q in parts]) if slopes else None,
+        np.concatenate([q[0] for q in parts], axis=-1) if slopes else None,
         params,
         np.concatenate([q[2] for q in parts]),
         state,
@@ -438,6 +450,21 @@ def _slope(ys, u, dtheta, params):
     with np.errstate(all="ignore"):
         s = -np.exp(u) * dtheta(ys, params)
     return np.where(np.isfinite(s), s, np.nan)
+
+
+def _slope_terms(ys, u, curvature, params):
+    """The rows (slope, d(slope)/du, d(inner state)/dtheta) of ``ys`` at u, from the
+    family's ``curvature`` (``dtheta2_rows``: g, g' and the state's derivative in one pass):
+    the slope is S(u) = -exp(u) g(theta) with g the derivative of the profile log-likelihood
+    in the threshold theta = xmin - exp(u), so S'(u) = -exp(u) g + exp(2u) g'(theta)
+    = S + exp(2u) g'; NaN where not finite."""
+    with np.errstate(all="ignore"):
+        g, d2, dstate = curvature(ys, params)
+        s = -np.exp(u) * g
+        ds = s + np.exp(2.0 * u) * d2
+    return np.stack(
+        (np.where(np.isfinite(s), s, np.nan), np.where(np.isfinite(ds), ds, np.nan), dstate)
+    )
 
 
 def _slopes_at(block, xmin, dtheta, rows, u, params):
@@ -513,6 +540,62 @@ def _grid_brackets(family, block, rows, sd, shared, evaluate, slopes_at, fallbac
     return rows, (lo_u, hi_u, lo_s, hi_s, solve), state
 
 
+def _newton(evaluate, rows, lo_u, hi_u, lo_s, hi_s, solve, state):
+    """Roots of the profile slope in the brackets by Newton's method on the slope, kept
+    inside the bracket: (root per row, NaN where none; the positions in ``rows`` still
+    unsolved after 100 steps). ``evaluate`` returns the slope, its derivative in u and the
+    derivative of the inner state (the shape) in the threshold; ``lo_s``/``hi_s`` (the
+    slopes at the bracket's ends) are not needed.
+
+    Starts at the best grid point (the middle of its bracket, where the inner state was
+    solved); each evaluation narrows the bracket by the sign of the slope; a Newton step that
+    leaves the bracket (or meets a derivative that is not negative) is replaced by the
+    bracket's middle; the inner state for the next point is extrapolated along the profile
+    (a warm start only). A row stops after a Newton step below 1e-6 max(1, |u|), taking that
+    step (quadratic convergence: its error is then of the order of the step squared, far
+    below the 1e-9 bracket of the regula falsi), at a zero or non-finite slope (as
+    :func:`_illinois`) or when the bracket is narrower than 1e-9 max(1, |u|); each row stops
+    at its own convergence."""
+    root = np.full(rows.size, np.nan)
+    u = 0.5 * (lo_u + hi_u)  # the best grid point (the grid is even in u)
+    for _ in range(100):
+        if not solve.size:
+            break
+        (s_u, ds_u, dk), _, _, new_state = evaluate(rows[solve], u, state)
+        above = s_u > 0
+        lo_u, hi_u = np.where(above, u, lo_u), np.where(above, hi_u, u)
+        with np.errstate(all="ignore"):
+            step = -s_u / ds_u
+            u_new = u + step
+        newton = (ds_u < 0) & (u_new > lo_u) & (u_new < hi_u)
+        u_next = np.where(newton, u_new, 0.5 * (lo_u + hi_u))
+        if state is not None and new_state is not None:
+            state = (_next_shape(state[0], new_state[0], dk, u, u_next),)
+        tol = 1e-9 * np.maximum(1.0, np.abs(u))
+        stop = ~np.isfinite(s_u) | (s_u == 0)
+        done = stop | (newton & (np.abs(step) <= 1e3 * tol)) | (hi_u - lo_u <= tol)
+        root[solve[done]] = np.where(stop, u, u_next)[done]
+        solve, lo_u, hi_u, u = _kept(~done, solve, lo_u, hi_u, u_next)
+        if state is not None:
+            state = _kept(~done, *state)
+    return root, solve
+
+
+def _next_shape(old, solved, dk, u, u_next):
+    """The shape at u_next extrapolated from the one solved at u along the profile
+    (dk/dtheta times the change of the threshold), where that is finite and positive; else
+    the solved one, else the previous start."""
+    with np.errstate(all="ignore"):
+        guess = solved - dk * (np.exp(u_next) - np.exp(u))
+    solved = np.where(np.isfinite(solved) & (solved > 0), solved, old)
+    return np.where(np.isfinite(guess) & (guess > 0), guess, solved)
+
+
+def _kept(keep, *arrays) -> tuple:
+    """The rows ``keep`` of each array (the rows still iterating)."""
+    return tuple(a[keep] for a in arrays)
+
+
 def _illinois(evaluate, rows, lo_u, hi_u, lo_s, hi_s, solve, state):
     """Roots of the profile slope in the brackets by the Illinois variant of regula falsi:
     (root per row, NaN where none; the positions in ``rows`` still unsolved after 100 steps)."""
@@ -541,15 +624,7 @@ def _illinois(evaluate, rows, lo_u, hi_u, lo_s, hi_s, solve, state):
             | ~np.isfinite(s_u)
         )
         root[solve[done]] = u[done]
-        keep = ~done
-        solve, lo_u, lo_s, hi_u, hi_s, side = (
-            solve[keep],
-            lo_u[keep],
-            lo_s[keep],
-            hi_u[keep],
-            hi_s[keep],
-            side[keep],
-        )
+        solve, lo_u, lo_s, hi_u, hi_s, side = _kept(~done, solve, lo_u, lo_s, hi_u, hi_s, side)
         if state is not None:
-            state = tuple(c[keep] for c in state)
+            state = _kept(~done, *state)
     return root, solve

@@ -199,6 +199,37 @@ class Weibull(Family):
         return p["shape"] * rowsum(np.multiply(t, r, out=t)) - (p["shape"] - 1.0) * rowsum(r)
 
     @staticmethod
+    def dtheta2_rows(ys, p):
+        """:meth:`dtheta_rows` g (the same arithmetic), its derivative along the profile with
+        respect to the threshold and that of the shape, in one pass over ``ys``: (g, g', dk/dtheta).
+
+        g'(theta) = l_tt - l_kt^2 / l_kk of the log-likelihood with the scale concentrated out
+        (lambda^k = sum y^k / n), at the inner solution ``p``: the Schur complement of the
+        inner block of the Hessian (implicit function theorem; what Newton's method on the
+        profile slope needs); dk/dtheta = -l_kt / l_kk (a warm start of the shape at the next
+        threshold). With t = (y/lambda)^k, T = sum t, r = 1/y, l = log y:
+        l_tt = n k (k (sum t r)^2 - (k-1) sum t r^2 T) / T^2 - (k-1) sum r^2,
+        l_kk = -n/k^2 - n (sum t l^2 T - (sum t l)^2) / T^2,
+        l_kt = n ((k sum t l r + sum t r) T - k sum t r sum t l) / T^2 - sum r."""
+        n = ys.shape[1]
+        k = p["shape"]
+        r = np.divide(1.0, ys)
+        t = np.power(np.divide(ys, p["scale"][:, None]), k[:, None])
+        tr = t * r
+        s_r, s_tr = rowsum(r), rowsum(tr)
+        g = k * s_tr - (k - 1.0) * s_r  # dtheta_rows
+        ly = np.log(ys)
+        tl = t * ly
+        s_t, s_tl = rowsum(t), rowsum(tl)
+        s_trr, s_tll, s_tlr = rowsum(tr * r), rowsum(tl * ly), rowsum(tl * r)
+        s_rr = rowsum(r * r)
+        t2 = s_t * s_t
+        l_tt = n * k * (k * s_tr * s_tr - (k - 1.0) * s_trr * s_t) / t2 - (k - 1.0) * s_rr
+        l_kk = -n / (k * k) - n * (s_tll * s_t - s_tl * s_tl) / t2
+        l_kt = n * ((k * s_tlr + s_tr) * s_t - k * s_tr * s_tl) / t2 - s_r
+        return g, l_tt - l_kt * l_kt / l_kk, -l_kt / l_kk
+
+    @staticmethod
     def fit_one(y, start=None):
         """:meth:`Weibull.fit_rows` for one row by the scalar :func:`_weibull_fit` (same root)."""
         k, scale, ll = _weibull_fit(np.log(y), None if start is None else float(start[0][0]))
