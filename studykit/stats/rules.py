@@ -1143,6 +1143,9 @@ def _group_signals(rule, group, template: str, labels) -> list:
         zip(group.starts, group.ends, group.triggers, strict=True)
     ):
         pts = tuple(range(start, end + 1) if members is None else members[g])
+        # the triggers are sorted points of the pattern: as many as its points, they are its
+        # points (every single-point signal), and the one tuple serves both fields
+        triggers = pts if len(trig) == len(pts) else tuple(trig)
         # what Signal(rid, number, pts, trig[0], text, tuple(trig)) stores, without its
         # per-field frozen-dataclass assignments (3 * 10^4 signals on a 10^6-point chart)
         sig = new(Signal)
@@ -1155,7 +1158,7 @@ def _group_signals(rule, group, template: str, labels) -> list:
                 "points": pts,
                 "trigger": trig[0],
                 "_text": (template, pts, start, end, labels),
-                "triggers": tuple(trig),
+                "triggers": triggers,
             },
         )
         out.append(sig)
