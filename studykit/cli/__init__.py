@@ -15,7 +15,7 @@ import sys
 from studykit import __version__
 from studykit.cli._output import EscapingWriter
 from studykit.errors import StudyInputError
-from studykit.runtime import one_blas_thread
+from studykit.runtime import numpy_small_pages, one_blas_thread
 
 # subcommand modules, in the order --help lists them; a module that is not there yet is skipped
 SUBCOMMANDS = [
@@ -55,6 +55,7 @@ def build_parser(only: str | None = None) -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     one_blas_thread()  # before numpy is imported (studykit/runtime.py says why)
+    numpy_small_pages()  # the same
     args_in = sys.argv[1:] if argv is None else list(argv)
     first = args_in[0] if args_in else None
     # `studykit serve ...` needs only serve's module (the workbook opens about 1.5 s sooner);

@@ -214,12 +214,15 @@ def check_order(
 
 def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
     """The check of values that are all equal or sorted throughout; None otherwise."""
-    d = np.diff(x)
-    if np.all(d == 0):
+    # neighbours compared in place (no array of 10^6 differences): up/down/equal as np.diff's
+    # signs would say (the values are finite)
+    rising = bool((x[1:] >= x[:-1]).all())
+    falling = bool((x[1:] <= x[:-1]).all())
+    if rising and falling:
         return OrderCheck("in_order", False, None, None, None, n, "every value is the same.")
-    if not (np.all(d >= 0) or np.all(d <= 0)):
+    if not (rising or falling):
         return None
-    direction = "increasing" if np.all(d >= 0) else "decreasing"
+    direction = "increasing" if rising else "decreasing"
     return OrderCheck(
         "sorted",
         True,
@@ -252,9 +255,9 @@ def _discordant_and_ties(x: np.ndarray, perm: np.ndarray | None = None) -> tuple
         perm = np.argsort(x)
     ordered = x[perm]
     dense = np.r_[False, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
-    ranks = np.empty(size, dtype=np.intp)
+    ranks = np.empty(size, dtype=np.int32 if size < 2**31 - 1 else np.intp)
     ranks[perm] = dense  # dense ranks 0, 1, ... of the values, in position order
-    cnt = np.bincount(ranks).astype("int64", copy=False)
+    cnt = np.bincount(dense).astype("int64", copy=False)  # (in value order: one sweep)
     return discordant_pairs(ranks, int(cnt.size)), cnt
 
 

@@ -1080,7 +1080,9 @@ def evaluate(
         raise StudyInputError(f"`sigma` ({sv[np.argmax(sv <= 0)]}) must be greater than 0")
     low, high = _limits(lcl, ucl, n_all, keep, x)
 
-    found = []
+    found: list[Signal] = []
+    firsts: list[int] = []  # each signal's first trigger
+    orders: list[int] = []  # (rule's place in the list, number of its signals) per group
     sides = _Sides(x, c, s)
     with collector_paused():  # 10^5 new signals hold no reference cycles
         for order, rule in enumerate(rule_list):
@@ -1089,10 +1091,21 @@ def evaluate(
             for group in _detect(rule, sides, low, high, positions):
                 given = (high if group.kind == "above" else low) is not None
                 template = _template(rule, group.kind, given)
-                for signal in _group_signals(rule, group, template, labels):
-                    found.append((signal.trigger, order, signal))
-        found.sort(key=itemgetter(0, 1))  # stable: a group's signals keep their order
-        return tuple(item[2] for item in found)
+                made = _group_signals(rule, group, template, labels)
+                found += made
+                firsts += [trig[0] for trig in group.triggers]
+                orders += [order] * len(made)
+        return _by_trigger(found, firsts, orders)
+
+
+def _by_trigger(found: list, firsts: list[int], orders: list[int]) -> tuple:
+    """The signals sorted by first trigger, then by rule order; a stable sort (``np.lexsort``),
+    so a group's signals keep their order (as ``sorted`` with the key (trigger, order) gives
+    them, in one numpy call instead of a Python sort of 10^4 keyed items)."""
+    if len(found) < 2:
+        return tuple(found)
+    order = np.lexsort((np.array(orders), np.array(firsts)))
+    return itemgetter(*order.tolist())(found)
 
 
 @contextmanager
@@ -1143,6 +1156,9 @@ def _group_signals(rule, group, template: str, labels) -> list:
         zip(group.starts, group.ends, group.triggers, strict=True)
     ):
         pts = tuple(range(start, end + 1) if members is None else members[g])
+        # the triggers are sorted points of the pattern: as many as its points, they are its
+        # points (every single-point signal), and the one tuple serves both fields
+        triggers = pts if len(trig) == len(pts) else tuple(trig)
         # what Signal(rid, number, pts, trig[0], text, tuple(trig)) stores, without its
         # per-field frozen-dataclass assignments (3 * 10^4 signals on a 10^6-point chart)
         sig = new(Signal)
@@ -1155,7 +1171,7 @@ def _group_signals(rule, group, template: str, labels) -> list:
                 "points": pts,
                 "trigger": trig[0],
                 "_text": (template, pts, start, end, labels),
-                "triggers": tuple(trig),
+                "triggers": triggers,
             },
         )
         out.append(sig)

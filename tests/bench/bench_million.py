@@ -14,7 +14,10 @@ each run in a fresh process, next to the floor measured in the same run: the gen
 (no studykit code; see ``bench_memory.FLOOR``). Prints wall time, CPU
 time (user + system) and peak RSS of both and the ratios. Targets (issue 14): <= 2 s and
 <= 1 GB, i.e. within 5x the floor's time and 10x its memory. The runs alternate floor and
-study ``--repeat`` times; the fastest time and the largest RSS are printed.
+study ``--repeat`` times after one untimed warm-up run of each; the fastest time and the
+largest RSS are printed. The children run as a user's shell runs them: without
+``PYTHONDONTWRITEBYTECODE`` (set in this project's shells), so Python writes and reuses compiled
+bytecode as it does for a user (see ``bench_memory.user_env``).
 """
 
 from __future__ import annotations
