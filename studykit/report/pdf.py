@@ -909,7 +909,9 @@ def _StreamingDoc(*args, **kwargs):  # noqa: N802 - a document-template factory
     return StreamingDoc(*args, **kwargs)
 
 
-def _numbered_canvas(footer_left: str, header: str, when: str = ""):
+def _numbered_canvas(footer_left: str, header: str, when: str = "", record: dict | None = None):
+    """The canvas class of the report: every page gets its header and "page N of M" footer
+    when the document is saved (M known then); ``record["pages"]`` is set to M."""
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
 
@@ -924,11 +926,19 @@ def _numbered_canvas(footer_left: str, header: str, when: str = ""):
             self._saved = []
 
         def showPage(self):
-            self._saved.append(dict(self.__dict__))
+            state = dict(self.__dict__)
+            if len(self._code) > 1:
+                # the page's operators kept as the one text reportlab makes of them when
+                # the page is written (joined by newlines), not thousands of small strings
+                # until the end: the same bytes in a fraction of the memory
+                state["_code"] = ["\n".join(self._code)]
+            self._saved.append(state)
             self._startPage()
 
         def save(self):
             total = len(self._saved)
+            if record is not None:
+                record["pages"] = total
             for state in self._saved:
                 self.__dict__.update(state)
                 self._decorate(total)
@@ -2130,13 +2140,15 @@ def render_pages(
     positions: Mapping | None = None,
     out: str | os.PathLike | None = None,
     workers: int = 1,
+    layout: dict | None = None,
 ) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
     a report from its evidence and compares every page. With ``out`` (a path) the pages are
     written to that file as they are laid out and None is returned instead of the bytes.
     ``workers`` > 1 renders the figures in that many forked processes (see
-    :class:`_FigureFeed`); the bytes are the same."""
+    :class:`_FigureFeed`); the bytes are the same. ``layout["pages"]`` (when given) receives
+    the number of pages."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
     from reportlab.platypus import PageBreak
@@ -2212,7 +2224,10 @@ def render_pages(
     try:
         feed.start(workers)
         doc.build(
-            story, canvasmaker=_numbered_canvas(footer, study.title[:90], when=_last_time(study))
+            story,
+            canvasmaker=_numbered_canvas(
+                footer, study.title[:90], when=_last_time(study), record=layout
+            ),
         )
     finally:
         rl_config.useA85 = a85
@@ -2326,11 +2341,11 @@ def build_report(
     ).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
     out = Path(out_path)
-    pages_path = out.with_name(out.name + ".pages.part")
-    tmp = out.with_name(out.name + ".part")
+    part = out.with_name(out.name + ".part")
+    layout: dict = {}
     try:
         # pages go to disk as they are laid out; the evidence is appended to that file as an
-        # update, so the document is never held in memory as a whole
+        # incremental update, so the document is never read back nor held in memory as a whole
         _, boxes = render_pages(
             study,
             results,
@@ -2343,21 +2358,18 @@ def build_report(
             positions=positions,
             progress=progress,
             total=total,
-            out=pages_path,
+            out=part,
             workers=workers,
+            layout=layout,
         )
         _heap_trimmed()
-        _attach(pages_path, evidence_bytes, boxes, tmp)
-        os.replace(tmp, out)
+        _attach(part, evidence_bytes, boxes)
+        os.replace(part, out)
     finally:
-        for leftover in (pages_path, tmp):
-            leftover.unlink(missing_ok=True)
+        part.unlink(missing_ok=True)
     if progress is not None:
         progress(total, total, "written")
-    from pypdf import PdfReader
-
-    with open(out, "rb") as f:
-        pages = len(PdfReader(f).pages)
+    pages = layout["pages"]
     return ReportInfo(
         path=str(out),
         pages=pages,
@@ -2372,14 +2384,126 @@ def build_report(
     )
 
 
-def _attach(pages: Path, evidence: bytes, boxes: Mapping, out: Path) -> None:
-    """Write ``pages`` (a PDF file) to ``out`` with the evidence JSON as a PDF embedded file and
-    the signature boxes as document metadata, added as an incremental update: the pages' bytes
-    are copied unchanged and only the new objects are parsed and written (deterministic)."""
-    from pypdf import PdfReader, PdfWriter
+def _attach(pages: Path, evidence: bytes, boxes: Mapping) -> None:
+    """Append to ``pages`` (the PDF reportlab wrote) the evidence JSON as a PDF embedded file and
+    the signature boxes as document metadata, as an incremental update (PDF 32000-1, 7.5.6):
+    only the trailer, the cross-reference table and the catalog and information dictionaries
+    are read back, the pages are neither read nor copied, so memory does not grow with the
+    document. Deterministic: the same pages and evidence give the same bytes."""
+    with open(pages, "r+b") as f:
+        f.seek(0, os.SEEK_END)
+        end = f.tell()
+        f.seek(max(0, end - 4096))
+        tail = f.read()
+        trailer = _trailer_of(tail)
+        offsets = _xref_offsets(f, trailer["startxref"])
+        root, info, size = trailer["Root"], trailer["Info"], trailer["Size"]
+        catalog = _object_body(f, offsets[root], root)
+        infodict = _object_body(f, offsets[info], info)
+        stream, spec, tree, files = size, size + 1, size + 2, size + 3
+        objects = {
+            root: _dict_plus(catalog, b"/Names %d 0 R" % tree),
+            info: _dict_plus(
+                infodict, BOXES_KEY.encode() + b" " + _pdf_string(_canonical(dict(boxes)))
+            ),
+            stream: b"<<\n/Type /EmbeddedFile\n/Length %d\n>>\nstream\n" % len(evidence)
+            + evidence
+            + b"\nendstream",
+            spec: b"<<\n/Type /Filespec\n/F %s\n/EF <<\n/F %d 0 R\n>>\n>>"
+            % (_pdf_string(EVIDENCE_FILENAME), stream),
+            tree: b"<<\n/EmbeddedFiles %d 0 R\n>>" % files,
+            files: b"<<\n/Names [ %s %d 0 R ]\n>>" % (_pdf_string(EVIDENCE_FILENAME), spec),
+        }
+        f.seek(end)
+        if not tail.endswith(b"\n"):
+            f.write(b"\n")
+        written = {}
+        for num in sorted(objects):
+            written[num] = f.tell()
+            f.write(b"%d 0 obj\n" % num + objects[num] + b"\nendobj\n")
+        xref = f.tell()
+        f.write(_xref_update(written))
+        f.write(
+            b"trailer\n<<\n/Size %d\n/Root %d 0 R\n/Info %d 0 R\n/Prev %d\n/ID %s\n>>\n"
+            b"startxref\n%d\n%%%%EOF\n"
+            % (files + 1, root, info, trailer["startxref"], trailer["ID"], xref)
+        )
 
-    with open(pages, "rb") as src, open(out, "wb") as dst:
-        writer = PdfWriter(PdfReader(src), incremental=True)
-        writer.add_attachment(EVIDENCE_FILENAME, evidence)
-        writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
-        writer.write(dst)
+
+def _trailer_of(tail: bytes) -> dict:
+    """/Root, /Info, /Size, /ID and startxref of the last trailer in ``tail`` (a PDF's end)."""
+    import re
+
+    at = tail.rfind(b"trailer")
+    m = re.search(rb"startxref\s+(\d+)\s+%%EOF", tail[at:]) if at >= 0 else None
+    found = {
+        key: re.search(rb"/" + key.encode() + rb"\s+(\d+)", tail[at:])
+        for key in ("Root", "Info", "Size")
+    }
+    ident = re.search(rb"/ID\s*(\[[^\]]*\])", tail[at:])
+    if m is None or ident is None or not all(found.values()):
+        raise StudyFileError("the pages written by the layout end without a readable trailer")
+    out: dict = {key: int(v.group(1)) for key, v in found.items()}  # type: ignore[union-attr]
+    out["startxref"], out["ID"] = int(m.group(1)), ident.group(1)
+    return out
+
+
+def _xref_offsets(f, start: int) -> dict:
+    """object number -> byte offset, from the cross-reference table at ``start``."""
+    f.seek(start)
+    if f.readline().strip() != b"xref":
+        raise StudyFileError("the pages written by the layout have no cross-reference table")
+    offsets = {}
+    line = f.readline()
+    while line and not line.startswith(b"trailer"):
+        first, count = (int(v) for v in line.split())
+        for num in range(first, first + count):
+            entry = f.read(20)
+            if entry[17:18] == b"n":
+                offsets[num] = int(entry[:10])
+        line = f.readline()
+    return offsets
+
+
+def _object_body(f, offset: int, num: int) -> bytes:
+    """The dictionary of the (stream-less) indirect object ``num`` at ``offset``."""
+    f.seek(offset)
+    head = b"%d 0 obj" % num
+    data = b""
+    while b"endobj" not in data:
+        chunk = f.read(4096)
+        if not chunk:
+            break
+        data += chunk
+    if not data.startswith(head) or b"endobj" not in data:
+        raise StudyFileError(f"object {num} of the pages written by the layout is not readable")
+    return data[len(head) : data.index(b"endobj")].strip()
+
+
+def _dict_plus(body: bytes, entry: bytes) -> bytes:
+    """A dictionary's text ``<< ... >>`` with ``entry`` (a key not in it yet) added at its end."""
+    if not body.endswith(b">>") or entry.split(None, 1)[0] + b" " in body:
+        raise StudyFileError("a dictionary of the pages written by the layout is not readable")
+    return body[:-2].rstrip() + b"\n" + entry + b"\n>>"
+
+
+def _pdf_string(text: str) -> bytes:
+    """``text`` (ASCII) as a PDF literal string."""
+    escaped = text.replace("\\", "\\\\").replace("(", "\\(").replace(")", "\\)")
+    return b"(" + escaped.encode("ascii") + b")"
+
+
+def _xref_update(offsets: Mapping[int, int]) -> bytes:
+    """The cross-reference section of an update: the head of the free list (object 0, as
+    readers expect each section to start), then one subsection per run of numbers."""
+    nums = sorted(offsets)
+    out = [b"xref\n0 1\n0000000000 65535 f \n"]
+    i = 0
+    while i < len(nums):
+        j = i
+        while j + 1 < len(nums) and nums[j + 1] == nums[j] + 1:
+            j += 1
+        out.append(b"%d %d\n" % (nums[i], j - i + 1))
+        out += [b"%010d 00000 n \n" % offsets[n] for n in nums[i : j + 1]]
+        i = j + 1
+    return b"".join(out)
