@@ -18,6 +18,7 @@ methods, their published sources, the software versions and the digests.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import html
@@ -2203,36 +2204,71 @@ def render_pages(
     _appendix(story, section, study, st, width, evidence_sha, chain)
 
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
-    buf = io.BytesIO() if out is None else os.fspath(out)
-    doc = _StreamingDoc(
-        buf,
-        pagesize=A4,
-        leftMargin=margin,
-        rightMargin=margin,
-        topMargin=20 * mm,
-        bottomMargin=20 * mm,
-        title=f"Capability evidence - {study.title}",
-        author="studykit",
-        subject=f"content digest {study.content_digest()}",
-        creator=f"studykit {__version__}",
-        invariant=1,
-    )
     from reportlab import rl_config
 
     a85 = rl_config.useA85
     rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
     try:
-        feed.start(workers)
-        doc.build(
-            story,
-            canvasmaker=_numbered_canvas(
-                footer, study.title[:90], when=_last_time(study), record=layout
-            ),
-        )
+        with _pdf_target(out) as target:
+            doc = _StreamingDoc(
+                target,
+                pagesize=A4,
+                leftMargin=margin,
+                rightMargin=margin,
+                topMargin=20 * mm,
+                bottomMargin=20 * mm,
+                title=f"Capability evidence - {study.title}",
+                author="studykit",
+                subject=f"content digest {study.content_digest()}",
+                creator=f"studykit {__version__}",
+                invariant=1,
+            )
+            feed.start(workers)
+            doc.build(
+                story,
+                canvasmaker=_numbered_canvas(
+                    footer, study.title[:90], when=_last_time(study), record=layout
+                ),
+            )
+            data = target.getvalue() if out is None else None
     finally:
         rl_config.useA85 = a85
         feed.close()
-    return (buf.getvalue() if out is None else None), boxes
+    return data, boxes
+
+
+@contextlib.contextmanager
+def _pdf_target(out):
+    """Where reportlab writes the document: a new ``io.BytesIO`` (``out`` None) or the file
+    ``out``. For a file, each object goes to disk as soon as reportlab has formatted it, instead
+    of reportlab collecting every formatted object and then joining them into one bytes of the
+    whole document (two copies of the file in memory at the end, which grew with the number of
+    characteristics). The bytes are the same: reportlab counts the offsets itself. Only the
+    first document saved in this thread while the block runs is streamed."""
+    if out is None:
+        yield io.BytesIO()
+        return
+    import threading
+
+    from reportlab.pdfbase import pdfdoc
+
+    plain = pdfdoc.PDFFile
+    owner = threading.get_ident()
+    with open(out, "wb") as handle:
+
+        class StreamedFile(plain):  # type: ignore[misc, valid-type]
+            def __init__(self, *args, **kwargs):
+                super().__init__(*args, **kwargs)  # the header, in self.strings
+                if threading.get_ident() == owner and handle.tell() == 0:
+                    handle.write(b"".join(self.strings))
+                    self.strings = []
+                    self.write = handle.write
+
+        pdfdoc.PDFFile = StreamedFile
+        try:
+            yield handle
+        finally:
+            pdfdoc.PDFFile = plain
 
 
 def _extra_sections(story, section, results, positions, st, width) -> int:
