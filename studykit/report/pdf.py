@@ -676,11 +676,19 @@ def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
     doc = canv._doc
     reg_name = doc.getXObjectName(name)
     if not doc.idToObject.get(reg_name, None):
-        img = pdfdoc.PDFImageXObject(name, None, mask=None)
+        spill = _SPILL
+        img = (pdfdoc.PDFImageXObject if spill is None else _spilled_image_class())(
+            name, None, mask=None
+        )
         img.width, img.height = px_w, px_h
         img.colorSpace, img.bitsPerComponent = "DeviceRGB", 8
         img._filters = ("FlateDecode",)
-        img.streamContent = stream
+        if spill is None:
+            img.streamContent = stream
+        else:  # kept on disk until the document is written
+            spill.seek(0, os.SEEK_END)
+            img.spilled = (spill, spill.tell(), len(stream))
+            spill.write(stream)
         canv._setXObjects(img)
         doc.Reference(img, reg_name)
         doc.addForm(name, img)
@@ -690,6 +698,47 @@ def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
     canv._code.append(f"/{reg_name} Do")
     canv.restoreState()
     canv._formsinuse.append(name)
+
+
+#: The temporary file that holds the pictures' compressed pixels while a document is laid out
+#: (see :func:`_pictures_spilled`); None outside :func:`render_pages`.
+_SPILL = None
+
+
+@contextlib.contextmanager
+def _pictures_spilled():
+    """While the block runs, the pictures drawn by :func:`_draw_encoded` keep their compressed
+    pixels in a temporary file, read back one at a time when reportlab writes the document:
+    reportlab writes every object only when the document is saved, so the pictures (about
+    150 KB per characteristic) would otherwise stay in memory until the end."""
+    import tempfile
+
+    global _SPILL
+    outer = _SPILL
+    with tempfile.TemporaryFile(prefix="studykit-pictures-") as spill:
+        _SPILL = spill
+        try:
+            yield
+        finally:
+            _SPILL = outer
+
+
+@functools.cache
+def _spilled_image_class():
+    """reportlab's image object for a picture whose compressed pixels wait in a file."""
+    from reportlab.pdfbase import pdfdoc
+
+    class SpilledImage(pdfdoc.PDFImageXObject):
+        def format(self, document):
+            spill, offset, length = self.spilled
+            spill.seek(offset)
+            self.streamContent = spill.read(length)
+            try:
+                return super().format(document)
+            finally:
+                self.streamContent = None  # written: not kept
+
+    return SpilledImage
 
 
 def _EncodedPicture(encoded: tuple, width):  # noqa: N802 - a flowable factory
@@ -2209,7 +2258,7 @@ def render_pages(
     a85 = rl_config.useA85
     rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
     try:
-        with _pdf_target(out) as target:
+        with _pdf_target(out) as target, _pictures_spilled():
             doc = _StreamingDoc(
                 target,
                 pagesize=A4,
