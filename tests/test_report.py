@@ -261,3 +261,20 @@ def test_evidence_is_an_incremental_update_after_the_pages(demo_report):
     assert reader.attachments[EVIDENCE_FILENAME][0] == evidence
     assert json.loads(reader.metadata[BOXES_KEY]) == info.signature_boxes
     assert reader.metadata["/Title"].startswith("Capability evidence - ")
+
+
+def test_figure_normal_density_is_scipys_bit_for_bit():
+    # the shape figure's normal density is drawn without importing scipy.stats: the same
+    # numbers as the reference library (scipy.stats.norm.pdf), element for element
+    import numpy as np
+    from scipy import stats
+
+    from studykit.report.figures import _norm_pdf
+
+    rng = np.random.default_rng(3)
+    for loc, scale in ((0.0, 1.0), (12.003, 0.0041), (-3.5, 250.0), (1e-9, 1e-12)):
+        x = loc + scale * rng.normal(0.0, 3.0, 400)
+        x[[3, 7, 11]] = [np.nan, np.inf, -np.inf]
+        assert np.array_equal(_norm_pdf(x, loc, scale), stats.norm.pdf(x, loc, scale), True)
+    for bad in (0.0, -1.0, np.nan):
+        assert np.array_equal(_norm_pdf(x, 0.0, bad), stats.norm.pdf(x, 0.0, bad), True)

@@ -23,7 +23,8 @@ Both commands run as they would for a user whose Python caches compiled modules 
 ``PYTHONDONTWRITEBYTECODE`` is dropped for the measured processes and their bytecode goes to a
 temporary ``PYTHONPYCACHEPREFIX`` (nothing is written into the source tree), filled by one
 untimed run of each before the measurements (without it every run compiled studykit's modules
-again, about 0.3 s of the report's start-up that no installed copy pays).
+again, about 0.3 s of the report's start-up that no installed copy pays; ``--compile-each-run``
+measures that way).
 
 The ratio is report / floor. Prints one line per size, a ``summary:`` line and the figure rows (read by
 ``run_all.py``). Runs are one after the other (never in parallel), floor and report
@@ -192,6 +193,11 @@ def main(argv=None) -> int:
     ap.add_argument("--sizes", type=int, nargs="+", default=[10, 100])
     ap.add_argument("--repeats", type=int, default=1, help="runs of each (the best is kept)")
     ap.add_argument("--seed", type=int, default=7)
+    ap.add_argument(
+        "--compile-each-run",
+        action="store_true",
+        help="keep the environment's PYTHONDONTWRITEBYTECODE (modules compiled in every run)",
+    )
     ap.add_argument("--floor-only", type=int, metavar="N", help=argparse.SUPPRESS)
     ap.add_argument("--out", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
@@ -202,8 +208,10 @@ def main(argv=None) -> int:
     report_cmd = [str(studykit)] if studykit.exists() else [sys.executable, "-m", "studykit"]
     results = {}
     with tempfile.TemporaryDirectory() as d:
-        env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-        env["PYTHONPYCACHEPREFIX"] = str(Path(d) / "bytecode")
+        env = dict(os.environ)
+        if not args.compile_each_run:
+            env.pop("PYTHONDONTWRITEBYTECODE", None)
+            env["PYTHONPYCACHEPREFIX"] = str(Path(d) / "bytecode")
         for i, n in enumerate(args.sizes):
             folder = Path(d) / f"n{n}"
             folder.mkdir()
