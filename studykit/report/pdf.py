@@ -2308,7 +2308,7 @@ def _pdf_target(out):
         class StreamedFile(plain):  # type: ignore[misc, valid-type]
             def __init__(self, *args, **kwargs):
                 super().__init__(*args, **kwargs)  # the header, in self.strings
-                if threading.get_ident() == owner and handle.tell() == 0:
+                if threading.get_ident() == owner and not handle.closed and handle.tell() == 0:
                     handle.write(b"".join(self.strings))
                     self.strings = []
                     self.write = handle.write
