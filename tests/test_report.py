@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -225,3 +227,54 @@ def test_signals_and_automatic_removals_are_reported(tmp_path):
         assert removal.reason[:30] in text
     for sig in res.chart.location.signals:
         assert f"test {sig.number}" in text
+
+
+def test_evidence_is_an_incremental_update_after_the_pages(demo_report):
+    # PDF 32000-1:2008, 7.5.6 (incremental updates) and 7.5.4 (cross-reference table: each
+    # entry the byte offset of "N 0 obj"); 7.11.4 / 7.7.4 (embedded files in the name tree)
+    from studykit.report.pdf import BOXES_KEY, EVIDENCE_FILENAME, read_evidence_bytes
+
+    _, pdf, info, _ = demo_report
+    data = pdf.read_bytes()
+    first_end = data.index(b"%%EOF") + len(b"%%EOF\n")
+    pages, update = data[:first_end], data[first_end:]
+    assert data.count(b"%%EOF") == 2 and update.endswith(b"%%EOF\n")
+    evidence = read_evidence_bytes(pdf)
+    assert evidence not in pages and evidence in update  # the pages revision is untouched
+    prev = int(re.search(rb"/Prev (\d+)", update).group(1))
+    assert pages[prev:].startswith(b"xref\n")  # points at the pages' own table
+    start = int(re.findall(rb"startxref\n(\d+)", update)[-1])
+    table = data[start : data.index(b"trailer", start)].split(b"\n")
+    assert table[0] == b"xref" and table[1:3] == [b"0 1", b"0000000000 65535 f "]
+    i, checked = 3, 0
+    while i < len(table) and table[i]:
+        first, count = map(int, table[i].split())
+        for k in range(count):
+            offset = int(table[i + 1 + k][:10])
+            assert data[offset:].startswith(b"%d 0 obj" % (first + k))
+            checked += 1
+        i += count + 1
+    assert checked == 6  # catalog, information, embedded file, file spec, names, name tree
+    reader = PdfReader(pdf, strict=True)
+    assert len(reader.pages) == info.pages
+    assert list(reader.attachments) == [EVIDENCE_FILENAME]
+    assert reader.attachments[EVIDENCE_FILENAME][0] == evidence
+    assert json.loads(reader.metadata[BOXES_KEY]) == info.signature_boxes
+    assert reader.metadata["/Title"].startswith("Capability evidence - ")
+
+
+def test_figure_normal_density_is_scipys_bit_for_bit():
+    # the shape figure's normal density is drawn without importing scipy.stats: the same
+    # numbers as the reference library (scipy.stats.norm.pdf), element for element
+    import numpy as np
+    from scipy import stats
+
+    from studykit.report.figures import _norm_pdf
+
+    rng = np.random.default_rng(3)
+    for loc, scale in ((0.0, 1.0), (12.003, 0.0041), (-3.5, 250.0), (1e-9, 1e-12)):
+        x = loc + scale * rng.normal(0.0, 3.0, 400)
+        x[[3, 7, 11]] = [np.nan, np.inf, -np.inf]
+        assert np.array_equal(_norm_pdf(x, loc, scale), stats.norm.pdf(x, loc, scale), True)
+    for bad in (0.0, -1.0, np.nan):
+        assert np.array_equal(_norm_pdf(x, 0.0, bad), stats.norm.pdf(x, 0.0, bad), True)

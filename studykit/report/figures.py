@@ -457,6 +457,32 @@ def _spec_lines(ax, spec, vertical=True):
             ax.axhline(v, **kw)
 
 
+#: sqrt(2 pi), as scipy.stats' normal density divides by it.
+_NORM_PDF_C = np.sqrt(2 * np.pi)
+
+
+def _norm_pdf(x, loc, scale):
+    """``scipy.stats.norm.pdf(x, loc, scale)`` for an array ``x``, bit for bit, without importing
+    ``scipy.stats`` (about 0.5 s and 60 MB in each figure worker): scipy's own formula
+    ``exp(-z**2 / 2) / sqrt(2 pi) / scale`` with ``z = (x - loc) / scale``, 0 at z = +-inf and NaN
+    where scipy gives its bad value (z NaN, or scale not > 0).
+
+    >>> from studykit.stats.lazy import scipy_stats
+    >>> x = np.array([-np.inf, -3.0, 0.1, 2.5, np.nan, np.inf])
+    >>> bool(np.array_equal(_norm_pdf(x, 0.2, 1.3), scipy_stats.norm.pdf(x, 0.2, 1.3),
+    ...                     equal_nan=True))
+    True
+    """
+    z = np.asarray((np.asarray(x, dtype=float) - loc) / scale, dtype=float)
+    if not scale > 0:
+        return np.full(z.shape, np.nan)
+    out = np.zeros(z.shape)
+    out[np.isnan(z)] = np.nan
+    inside = np.isfinite(z)
+    out[inside] = np.exp(-(z[inside] ** 2) / 2.0) / _NORM_PDF_C / scale
+    return out
+
+
 def _model_pdf(result, grid):
     """Density of the chosen model on ``grid`` (original scale), or None."""
     model = result.model
@@ -465,10 +491,8 @@ def _model_pdf(result, grid):
     if model.fitted is not None:
         return np.asarray(model.fitted.pdf(grid), dtype=float), model.label
     if model.name == "normal" or model.transform is not None:
-        from scipy import stats
-
         if model.transform is None:
-            return stats.norm.pdf(grid, result.mean, result.overall_sigma), "Normal"
+            return _norm_pdf(grid, result.mean, result.overall_sigma), "Normal"
         t = model.transform
         eps = (grid[1] - grid[0]) * 1e-3
         y0 = np.asarray(t.transform(grid - eps), dtype=float)
@@ -477,7 +501,7 @@ def _model_pdf(result, grid):
         ty = np.asarray(t.transform(result.values), dtype=float)
         mu, sd = float(np.mean(ty)), float(np.std(ty, ddof=1))
         with np.errstate(invalid="ignore", divide="ignore"):
-            dens = stats.norm.pdf(y, mu, sd) * np.abs((y1 - y0) / (2 * eps))
+            dens = _norm_pdf(y, mu, sd) * np.abs((y1 - y0) / (2 * eps))
         dens[~np.isfinite(dens)] = np.nan
         return dens, model.label
     return None, ""
@@ -548,9 +572,9 @@ def _probability_panel(ax2, result, unit) -> None:
                 label=f"{pp.level * 100:g}% band",
             )
         probs = [0.001, 0.01, 0.1, 0.5, 0.9, 0.99, 0.999]
-        from scipy import stats
+        from studykit.stats.lazy import norm_ppf_values
 
-        zt = [stats.norm.ppf(p) for p in probs]
+        zt = [norm_ppf_values(p) for p in probs]
         keep = [
             (t, p) for t, p in zip(zt, probs, strict=True) if z.min() - 0.5 <= t <= z.max() + 0.5
         ]

@@ -18,6 +18,7 @@ methods, their published sources, the software versions and the digests.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import hashlib
 import html
@@ -675,11 +676,19 @@ def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
     doc = canv._doc
     reg_name = doc.getXObjectName(name)
     if not doc.idToObject.get(reg_name, None):
-        img = pdfdoc.PDFImageXObject(name, None, mask=None)
+        spill = _SPILL
+        img = (pdfdoc.PDFImageXObject if spill is None else _spilled_image_class())(
+            name, None, mask=None
+        )
         img.width, img.height = px_w, px_h
         img.colorSpace, img.bitsPerComponent = "DeviceRGB", 8
         img._filters = ("FlateDecode",)
-        img.streamContent = stream
+        if spill is None:
+            img.streamContent = stream
+        else:  # kept on disk until the document is written
+            spill.seek(0, os.SEEK_END)
+            img.spilled = (spill, spill.tell(), len(stream))
+            spill.write(stream)
         canv._setXObjects(img)
         doc.Reference(img, reg_name)
         doc.addForm(name, img)
@@ -689,6 +698,47 @@ def _draw_encoded(canv, encoded: tuple, width: float, height: float) -> None:
     canv._code.append(f"/{reg_name} Do")
     canv.restoreState()
     canv._formsinuse.append(name)
+
+
+#: The temporary file that holds the pictures' compressed pixels while a document is laid out
+#: (see :func:`_pictures_spilled`); None outside :func:`render_pages`.
+_SPILL = None
+
+
+@contextlib.contextmanager
+def _pictures_spilled():
+    """While the block runs, the pictures drawn by :func:`_draw_encoded` keep their compressed
+    pixels in a temporary file, read back one at a time when reportlab writes the document:
+    reportlab writes every object only when the document is saved, so the pictures (about
+    150 KB per characteristic) would otherwise stay in memory until the end."""
+    import tempfile
+
+    global _SPILL
+    outer = _SPILL
+    with tempfile.TemporaryFile(prefix="studykit-pictures-") as spill:
+        _SPILL = spill
+        try:
+            yield
+        finally:
+            _SPILL = outer
+
+
+@functools.cache
+def _spilled_image_class():
+    """reportlab's image object for a picture whose compressed pixels wait in a file."""
+    from reportlab.pdfbase import pdfdoc
+
+    class SpilledImage(pdfdoc.PDFImageXObject):
+        def format(self, document):
+            spill, offset, length = self.spilled
+            spill.seek(offset)
+            self.streamContent = spill.read(length)
+            try:
+                return super().format(document)
+            finally:
+                self.streamContent = None  # written: not kept
+
+    return SpilledImage
 
 
 def _EncodedPicture(encoded: tuple, width):  # noqa: N802 - a flowable factory
@@ -909,7 +959,9 @@ def _StreamingDoc(*args, **kwargs):  # noqa: N802 - a document-template factory
     return StreamingDoc(*args, **kwargs)
 
 
-def _numbered_canvas(footer_left: str, header: str, when: str = ""):
+def _numbered_canvas(footer_left: str, header: str, when: str = "", record: dict | None = None):
+    """The canvas class of the report: every page gets its header and "page N of M" footer
+    when the document is saved (M known then); ``record["pages"]`` is set to M."""
     from reportlab.lib import colors
     from reportlab.pdfgen import canvas
 
@@ -924,11 +976,19 @@ def _numbered_canvas(footer_left: str, header: str, when: str = ""):
             self._saved = []
 
         def showPage(self):
-            self._saved.append(dict(self.__dict__))
+            state = dict(self.__dict__)
+            if len(self._code) > 1:
+                # the page's operators kept as the one text reportlab makes of them when
+                # the page is written (joined by newlines), not thousands of small strings
+                # until the end: the same bytes in a fraction of the memory
+                state["_code"] = ["\n".join(self._code)]
+            self._saved.append(state)
             self._startPage()
 
         def save(self):
             total = len(self._saved)
+            if record is not None:
+                record["pages"] = total
             for state in self._saved:
                 self.__dict__.update(state)
                 self._decorate(total)
@@ -2130,13 +2190,15 @@ def render_pages(
     positions: Mapping | None = None,
     out: str | os.PathLike | None = None,
     workers: int = 1,
+    layout: dict | None = None,
 ) -> tuple[bytes | None, dict]:
     """Draw the report's pages (PDF bytes without the embedded evidence) and the signature
     boxes. Deterministic: the same inputs give the same bytes, which is how ``verify`` redraws
     a report from its evidence and compares every page. With ``out`` (a path) the pages are
     written to that file as they are laid out and None is returned instead of the bytes.
     ``workers`` > 1 renders the figures in that many forked processes (see
-    :class:`_FigureFeed`); the bytes are the same."""
+    :class:`_FigureFeed`); the bytes are the same. ``layout["pages"]`` (when given) receives
+    the number of pages."""
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
     from reportlab.platypus import PageBreak
@@ -2191,33 +2253,71 @@ def render_pages(
     _appendix(story, section, study, st, width, evidence_sha, chain)
 
     footer = f"{study.title[:70]} | content {study.content_digest()[:12]}"
-    buf = io.BytesIO() if out is None else os.fspath(out)
-    doc = _StreamingDoc(
-        buf,
-        pagesize=A4,
-        leftMargin=margin,
-        rightMargin=margin,
-        topMargin=20 * mm,
-        bottomMargin=20 * mm,
-        title=f"Capability evidence - {study.title}",
-        author="studykit",
-        subject=f"content digest {study.content_digest()}",
-        creator=f"studykit {__version__}",
-        invariant=1,
-    )
     from reportlab import rl_config
 
     a85 = rl_config.useA85
     rl_config.useA85 = 0  # binary (Flate only) streams: no pure-Python ASCII85 pass per image
     try:
-        feed.start(workers)
-        doc.build(
-            story, canvasmaker=_numbered_canvas(footer, study.title[:90], when=_last_time(study))
-        )
+        with _pdf_target(out) as target, _pictures_spilled():
+            doc = _StreamingDoc(
+                target,
+                pagesize=A4,
+                leftMargin=margin,
+                rightMargin=margin,
+                topMargin=20 * mm,
+                bottomMargin=20 * mm,
+                title=f"Capability evidence - {study.title}",
+                author="studykit",
+                subject=f"content digest {study.content_digest()}",
+                creator=f"studykit {__version__}",
+                invariant=1,
+            )
+            feed.start(workers)
+            doc.build(
+                story,
+                canvasmaker=_numbered_canvas(
+                    footer, study.title[:90], when=_last_time(study), record=layout
+                ),
+            )
+            data = target.getvalue() if out is None else None
     finally:
         rl_config.useA85 = a85
         feed.close()
-    return (buf.getvalue() if out is None else None), boxes
+    return data, boxes
+
+
+@contextlib.contextmanager
+def _pdf_target(out):
+    """Where reportlab writes the document: a new ``io.BytesIO`` (``out`` None) or the file
+    ``out``. For a file, each object goes to disk as soon as reportlab has formatted it, instead
+    of reportlab collecting every formatted object and then joining them into one bytes of the
+    whole document (two copies of the file in memory at the end, which grew with the number of
+    characteristics). The bytes are the same: reportlab counts the offsets itself. Only the
+    first document saved in this thread while the block runs is streamed."""
+    if out is None:
+        yield io.BytesIO()
+        return
+    import threading
+
+    from reportlab.pdfbase import pdfdoc
+
+    plain = pdfdoc.PDFFile
+    owner = threading.get_ident()
+    with open(out, "wb") as handle:
+
+        class StreamedFile(plain):  # type: ignore[misc, valid-type]
+            def __init__(self, *args, **kwargs):
+                super().__init__(*args, **kwargs)  # the header, in self.strings
+                if threading.get_ident() == owner and not handle.closed and handle.tell() == 0:
+                    handle.write(b"".join(self.strings))
+                    self.strings = []
+                    self.write = handle.write
+
+        pdfdoc.PDFFile = StreamedFile
+        try:
+            yield handle
+        finally:
+            pdfdoc.PDFFile = plain
 
 
 def _extra_sections(story, section, results, positions, st, width) -> int:
@@ -2326,11 +2426,11 @@ def build_report(
     ).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
     out = Path(out_path)
-    pages_path = out.with_name(out.name + ".pages.part")
-    tmp = out.with_name(out.name + ".part")
+    part = out.with_name(out.name + ".part")
+    layout: dict = {}
     try:
         # pages go to disk as they are laid out; the evidence is appended to that file as an
-        # update, so the document is never held in memory as a whole
+        # incremental update, so the document is never read back nor held in memory as a whole
         _, boxes = render_pages(
             study,
             results,
@@ -2343,21 +2443,18 @@ def build_report(
             positions=positions,
             progress=progress,
             total=total,
-            out=pages_path,
+            out=part,
             workers=workers,
+            layout=layout,
         )
         _heap_trimmed()
-        _attach(pages_path, evidence_bytes, boxes, tmp)
-        os.replace(tmp, out)
+        _attach(part, evidence_bytes, boxes)
+        os.replace(part, out)
     finally:
-        for leftover in (pages_path, tmp):
-            leftover.unlink(missing_ok=True)
+        part.unlink(missing_ok=True)
     if progress is not None:
         progress(total, total, "written")
-    from pypdf import PdfReader
-
-    with open(out, "rb") as f:
-        pages = len(PdfReader(f).pages)
+    pages = layout["pages"]
     return ReportInfo(
         path=str(out),
         pages=pages,
@@ -2372,14 +2469,126 @@ def build_report(
     )
 
 
-def _attach(pages: Path, evidence: bytes, boxes: Mapping, out: Path) -> None:
-    """Write ``pages`` (a PDF file) to ``out`` with the evidence JSON as a PDF embedded file and
-    the signature boxes as document metadata, added as an incremental update: the pages' bytes
-    are copied unchanged and only the new objects are parsed and written (deterministic)."""
-    from pypdf import PdfReader, PdfWriter
+def _attach(pages: Path, evidence: bytes, boxes: Mapping) -> None:
+    """Append to ``pages`` (the PDF reportlab wrote) the evidence JSON as a PDF embedded file and
+    the signature boxes as document metadata, as an incremental update (PDF 32000-1, 7.5.6):
+    only the trailer, the cross-reference table and the catalog and information dictionaries
+    are read back, the pages are neither read nor copied, so memory does not grow with the
+    document. Deterministic: the same pages and evidence give the same bytes."""
+    with open(pages, "r+b") as f:
+        f.seek(0, os.SEEK_END)
+        end = f.tell()
+        f.seek(max(0, end - 4096))
+        tail = f.read()
+        trailer = _trailer_of(tail)
+        offsets = _xref_offsets(f, trailer["startxref"])
+        root, info, size = trailer["Root"], trailer["Info"], trailer["Size"]
+        catalog = _object_body(f, offsets[root], root)
+        infodict = _object_body(f, offsets[info], info)
+        stream, spec, tree, files = size, size + 1, size + 2, size + 3
+        objects = {
+            root: _dict_plus(catalog, b"/Names %d 0 R" % tree),
+            info: _dict_plus(
+                infodict, BOXES_KEY.encode() + b" " + _pdf_string(_canonical(dict(boxes)))
+            ),
+            stream: b"<<\n/Type /EmbeddedFile\n/Length %d\n>>\nstream\n" % len(evidence)
+            + evidence
+            + b"\nendstream",
+            spec: b"<<\n/Type /Filespec\n/F %s\n/EF <<\n/F %d 0 R\n>>\n>>"
+            % (_pdf_string(EVIDENCE_FILENAME), stream),
+            tree: b"<<\n/EmbeddedFiles %d 0 R\n>>" % files,
+            files: b"<<\n/Names [ %s %d 0 R ]\n>>" % (_pdf_string(EVIDENCE_FILENAME), spec),
+        }
+        f.seek(end)
+        if not tail.endswith(b"\n"):
+            f.write(b"\n")
+        written = {}
+        for num in sorted(objects):
+            written[num] = f.tell()
+            f.write(b"%d 0 obj\n" % num + objects[num] + b"\nendobj\n")
+        xref = f.tell()
+        f.write(_xref_update(written))
+        f.write(
+            b"trailer\n<<\n/Size %d\n/Root %d 0 R\n/Info %d 0 R\n/Prev %d\n/ID %s\n>>\n"
+            b"startxref\n%d\n%%%%EOF\n"
+            % (files + 1, root, info, trailer["startxref"], trailer["ID"], xref)
+        )
 
-    with open(pages, "rb") as src, open(out, "wb") as dst:
-        writer = PdfWriter(PdfReader(src), incremental=True)
-        writer.add_attachment(EVIDENCE_FILENAME, evidence)
-        writer.add_metadata({BOXES_KEY: _canonical(dict(boxes))})
-        writer.write(dst)
+
+def _trailer_of(tail: bytes) -> dict:
+    """/Root, /Info, /Size, /ID and startxref of the last trailer in ``tail`` (a PDF's end)."""
+    import re
+
+    at = tail.rfind(b"trailer")
+    m = re.search(rb"startxref\s+(\d+)\s+%%EOF", tail[at:]) if at >= 0 else None
+    found = {
+        key: re.search(rb"/" + key.encode() + rb"\s+(\d+)", tail[at:])
+        for key in ("Root", "Info", "Size")
+    }
+    ident = re.search(rb"/ID\s*(\[[^\]]*\])", tail[at:])
+    if m is None or ident is None or not all(found.values()):
+        raise StudyFileError("the pages written by the layout end without a readable trailer")
+    out: dict = {key: int(v.group(1)) for key, v in found.items()}  # type: ignore[union-attr]
+    out["startxref"], out["ID"] = int(m.group(1)), ident.group(1)
+    return out
+
+
+def _xref_offsets(f, start: int) -> dict:
+    """object number -> byte offset, from the cross-reference table at ``start``."""
+    f.seek(start)
+    if f.readline().strip() != b"xref":
+        raise StudyFileError("the pages written by the layout have no cross-reference table")
+    offsets = {}
+    line = f.readline()
+    while line and not line.startswith(b"trailer"):
+        first, count = (int(v) for v in line.split())
+        for num in range(first, first + count):
+            entry = f.read(20)
+            if entry[17:18] == b"n":
+                offsets[num] = int(entry[:10])
+        line = f.readline()
+    return offsets
+
+
+def _object_body(f, offset: int, num: int) -> bytes:
+    """The dictionary of the (stream-less) indirect object ``num`` at ``offset``."""
+    f.seek(offset)
+    head = b"%d 0 obj" % num
+    data = b""
+    while b"endobj" not in data:
+        chunk = f.read(4096)
+        if not chunk:
+            break
+        data += chunk
+    if not data.startswith(head) or b"endobj" not in data:
+        raise StudyFileError(f"object {num} of the pages written by the layout is not readable")
+    return data[len(head) : data.index(b"endobj")].strip()
+
+
+def _dict_plus(body: bytes, entry: bytes) -> bytes:
+    """A dictionary's text ``<< ... >>`` with ``entry`` (a key not in it yet) added at its end."""
+    if not body.endswith(b">>") or entry.split(None, 1)[0] + b" " in body:
+        raise StudyFileError("a dictionary of the pages written by the layout is not readable")
+    return body[:-2].rstrip() + b"\n" + entry + b"\n>>"
+
+
+def _pdf_string(text: str) -> bytes:
+    """``text`` (ASCII) as a PDF literal string."""
+    escaped = text.replace("\\", "\\\\").replace("(", "\\(").replace(")", "\\)")
+    return b"(" + escaped.encode("ascii") + b")"
+
+
+def _xref_update(offsets: Mapping[int, int]) -> bytes:
+    """The cross-reference section of an update: the head of the free list (object 0, as
+    readers expect each section to start), then one subsection per run of numbers."""
+    nums = sorted(offsets)
+    out = [b"xref\n0 1\n0000000000 65535 f \n"]
+    i = 0
+    while i < len(nums):
+        j = i
+        while j + 1 < len(nums) and nums[j + 1] == nums[j] + 1:
+            j += 1
+        out.append(b"%d %d\n" % (nums[i], j - i + 1))
+        out += [b"%010d 00000 n \n" % offsets[n] for n in nums[i : j + 1]]
+        i = j + 1
+    return b"".join(out)
