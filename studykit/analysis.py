@@ -19,6 +19,7 @@ import math
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import numpy as np
 from scipy import special
@@ -438,10 +439,12 @@ class CharacteristicResult:
         scale = self.phase1.scale
         return "raw" if scale is None else scale.name
 
-    @property
+    @cached_property
     def probability_limits(self) -> dict | None:
         """For a chart of normal scores: its limits in measured units, the fitted model's
-        0.135 %, 50 % and 99.865 % points (``lcl``, ``center``, ``ucl``, ``model``), else None."""
+        0.135 %, 50 % and 99.865 % points (``lcl``, ``center``, ``ucl``, ``model``), else None.
+        Kept once computed (a pickled copy carries it: the report's layout process then needs
+        no scipy.stats)."""
         scale = self.phase1.scale
         fitted = getattr(getattr(scale, "model", None), "fitted", None)
         if scale is None or scale.name != "normal_score" or fitted is None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -80,7 +81,7 @@ def test_d2_and_d3_closed_forms_for_two_values():
     assert_allclose(d3(2), math.sqrt(2 - 4 / math.pi), rtol=1e-9)
 
 
-@pytest.mark.parametrize("n", [3, 5, 12])
+@pytest.mark.parametrize("n", [3, 5, 12, 30])  # 30: computed, not tabled
 def test_d3_matches_independent_double_integral(n):
     # E[R^2] = 2 * double integral over x < y of
     #   1 - Phi(y)^n - (1 - Phi(x))^n + (Phi(y) - Phi(x))^n
@@ -134,3 +135,22 @@ def test_size_out_of_range(bad):
 def test_size_must_be_integer(bad):
     with pytest.raises(StudyInputError, match="must be a whole number"):
         chart_constants(bad)
+
+
+def test_tabled_range_constants_equal_their_computation():
+    """The kept d2/d3 table is exactly what the quadrature gives (repr round-trip), for every
+    tabled size; sizes outside it are computed (the definitions' check is the tests above:
+    Montgomery Appendix VI and the independent scipy double integral)."""
+    from studykit.stats import constants
+
+    assert list(constants._D2_TABLE) == list(constants.TABLED_SIZES)
+    assert list(constants._D3_TABLE) == list(constants.TABLED_SIZES)
+    for n in constants.TABLED_SIZES:
+        assert repr(constants._d2_computed(n)) == repr(constants._D2_TABLE[n]), n
+        assert repr(constants._d3_computed(n)) == repr(constants._D3_TABLE[n]), n
+        assert d2(n) == constants._D2_TABLE[n] and d3(n) == constants._D3_TABLE[n]
+    # the module's table text is what _table_text() writes now
+    source = Path(constants.__file__).read_text(encoding="utf-8")
+    assert constants._table_text() in source
+    # a size outside the table (30) is computed: test_d3_matches_independent_double_integral
+    assert 30 not in constants.TABLED_SIZES

@@ -477,3 +477,22 @@ def test_row_wise_inner_fits_on_the_profile_grid(fid, inner, dist):
             ref = dist.fit(x, floc=t)  # reference: scipy.stats.<dist>.fit with fixed loc
         ref_ll = float(dist.logpdf(x, *ref).sum())
         assert ll_t >= ref_ll - 1e-9 * abs(ref_ll), (t, ref_ll, ll_t)
+
+
+def test_pickled_fitted_model_leaves_the_frozen_distribution_behind():
+    """A pickled fit (what a report worker sends back) carries the family and parameters, not
+    the cached scipy frozen distribution; the copy rebuilds it on first use and gives the same
+    numbers as scipy.stats.gumbel_r with the fitted parameters (reference: scipy)."""
+    import pickle
+
+    x = stats.gumbel_r.rvs(loc=10.0, scale=0.5, size=200, random_state=11)
+    m = fit.FAMILIES["lev"].fit(x)
+    q = np.array([0.00135, 0.5, 0.99865])
+    before = m.ppf(q)
+    assert "dist" in m.__dict__  # cached by the call above
+    copy = pickle.loads(pickle.dumps(m))
+    assert "dist" not in copy.__dict__
+    assert copy.parameters == m.parameters and copy.name == m.name
+    assert np.array_equal(copy.ppf(q), before)
+    ref = stats.gumbel_r(m.parameters["location"], m.parameters["scale"])
+    assert np.array_equal(copy.cdf(x), ref.cdf(x))

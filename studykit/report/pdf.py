@@ -268,8 +268,14 @@ def _analyze_one(study, name, measurements, gauges):
 
 
 def _analyze_in_worker(name: str):
+    """One characteristic in a forked worker. The numbers the pages print from the fitted
+    model (the chart's limits in measured units) are computed here, so the pickled result
+    carries them and the layout process never needs scipy.stats to print them."""
     study, measurements, gauges = _ANALYSIS_JOB  # type: ignore[misc]
-    return _analyze_one(study, name, measurements, gauges)
+    outcome = _analyze_one(study, name, measurements, gauges)
+    if outcome[0] == "ok":
+        outcome[1].probability_limits  # noqa: B018 - cached on the result, sent with it
+    return outcome
 
 
 @functools.cache

@@ -39,6 +39,68 @@ __all__ = [
 MAX_SUBGROUP_SIZE = 100
 
 
+#: Subgroup sizes whose d2 and d3 are kept below (the sizes studies use); any other size is
+#: computed when first asked for.
+TABLED_SIZES = range(2, 26)
+
+# d2(n) and d3(n) for n in TABLED_SIZES, exactly as _d2_computed and _d3_computed return them on
+# the machine that wrote them (``_table_text()`` prints these lines; tests/test_constants.py
+# recomputes every entry and asserts equality of the repr). They spare each process (and each
+# worker of a parallel report or batch) the quadrature: tens of milliseconds per size.
+_D2_TABLE = {
+    2: 1.1283791670955123,
+    3: 1.6925687506432687,
+    4: 2.058750746007928,
+    5: 2.325928947281039,
+    6: 2.5344127212229424,
+    7: 2.7043567512138087,
+    8: 2.8472006120905546,
+    9: 2.9700263244184737,
+    10: 3.077505461670345,
+    11: 3.1728727038159996,
+    12: 3.258455279743825,
+    13: 3.335980354098254,
+    14: 3.406763108199952,
+    15: 3.471826889882074,
+    16: 3.5319827861095745,
+    17: 3.5878839617653804,
+    18: 3.640063757937442,
+    19: 3.688963023207648,
+    20: 3.7349501195966397,
+    21: 3.7783358298426193,
+    22: 3.8193846433628305,
+    23: 3.8583234232850048,
+    24: 3.8953481484513546,
+    25: 3.930629219507111,
+}
+_D3_TABLE = {
+    2: 0.8525024664234415,
+    3: 0.8883680040414214,
+    4: 0.8798082028212257,
+    5: 0.8640819410957333,
+    6: 0.848039686113668,
+    7: 0.8332053356184304,
+    8: 0.8198314897880636,
+    9: 0.8078342745494077,
+    10: 0.7970506735154682,
+    11: 0.7873146205463505,
+    12: 0.7784783411993862,
+    13: 0.7704162020597272,
+    14: 0.7630230956207394,
+    15: 0.7562114297238861,
+    16: 0.7499080894058281,
+    17: 0.744051783956631,
+    18: 0.7385908533740612,
+    19: 0.7334814955147284,
+    20: 0.7286863457031578,
+    21: 0.7241733407133405,
+    22: 0.7199148084300439,
+    23: 0.7158867354876306,
+    24: 0.712068175143738,
+    25: 0.7084407658844489,
+}
+
+
 def _check_size(n, *, name="n", low=2, high=MAX_SUBGROUP_SIZE) -> int:
     if isinstance(n, bool) or not isinstance(n, int | np.integer):
         raise StudyInputError(
@@ -83,7 +145,8 @@ def d2(n: int) -> float:
     Notes
     -----
     d2(n) = integral over the real line of 1 - Phi(x)^n - (1 - Phi(x))^n dx, evaluated with
-    ``scipy.integrate.quad`` (absolute error below 1e-10).
+    ``scipy.integrate.quad`` (absolute error below 1e-10). For n in :data:`TABLED_SIZES` the
+    value is read from a table written by that same computation (tests recompute each entry).
 
     References
     ----------
@@ -96,6 +159,11 @@ def d2(n: int) -> float:
     2.325929
     """
     n = _check_size(n)
+    return _D2_TABLE[n] if n in _D2_TABLE else _d2_computed(n)
+
+
+def _d2_computed(n: int) -> float:
+    """d2(n) by quadrature (see :func:`d2`), for ``n`` already checked."""
 
     def integrand(x):
         p = special.ndtr(x)
@@ -137,7 +205,8 @@ def d3(n: int) -> float:
     P(R <= r) = n * integral phi(x) [Phi(x + r) - Phi(x)]^(n-1) dx.
     Both integrals use 400-point Gauss-Legendre rules (r on [0, 16], x on [-10, 10]); the
     integrands are smooth and negligible outside these ranges for n <= 100. For n = 2 the
-    result equals the closed form sqrt(2 - 4/pi).
+    result equals the closed form sqrt(2 - 4/pi). For n in :data:`TABLED_SIZES` the value is
+    read from a table written by that same computation (tests recompute each entry).
 
     References
     ----------
@@ -149,6 +218,11 @@ def d3(n: int) -> float:
     0.852502
     """
     n = _check_size(n)
+    return _D3_TABLE[n] if n in _D3_TABLE else _d3_computed(n)
+
+
+def _d3_computed(n: int) -> float:
+    """d3(n) by Gauss-Legendre quadrature (see :func:`d3`), for ``n`` already checked."""
     x_nodes, x_weights = gauss_legendre(400)
     x_nodes = 10.0 * x_nodes
     x_weights = 10.0 * x_weights
@@ -158,6 +232,13 @@ def d3(n: int) -> float:
     tail = _range_cdf_tail(r_nodes, n, x_nodes, x_weights)
     second_moment = 2.0 * float(np.sum(r_weights * r_nodes * tail))
     return float(math.sqrt(second_moment - d2(n) ** 2))
+
+
+def _table_text() -> str:
+    """The source lines of ``_D2_TABLE`` and ``_D3_TABLE``, computed afresh (to rewrite them)."""
+    d2_rows = "".join(f"    {n}: {_d2_computed(n)!r},\n" for n in TABLED_SIZES)
+    d3_rows = "".join(f"    {n}: {_d3_computed(n)!r},\n" for n in TABLED_SIZES)
+    return f"_D2_TABLE = {{\n{d2_rows}}}\n_D3_TABLE = {{\n{d3_rows}}}\n"
 
 
 @cache

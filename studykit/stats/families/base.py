@@ -160,6 +160,14 @@ class FittedModel(Result):
         """The scipy.stats frozen distribution of the fitted model."""
         return self.family.frozen(self.parameters)
 
+    def __getstate__(self):
+        """Pickle without the cached frozen distribution: it is rebuilt from the family and
+        parameters on first use, so a process that only prints the fitted numbers (the PDF
+        layout) never imports scipy.stats when it receives a result from a worker."""
+        state = dict(self.__dict__)
+        state.pop("dist", None)
+        return state
+
     def cdf(self, x):
         """Cumulative probability at x."""
         return self.dist.cdf(x)
