@@ -198,6 +198,12 @@ def main(argv=None) -> int:
         action="store_true",
         help="keep the environment's PYTHONDONTWRITEBYTECODE (modules compiled in every run)",
     )
+    ap.add_argument(
+        "--compare",
+        metavar="DIR",
+        help="also run the report of the studykit source in DIR (e.g. an export of an earlier "
+        "commit; put on PYTHONPATH), interleaved with the others, and print it as 'before'",
+    )
     ap.add_argument("--floor-only", type=int, metavar="N", help=argparse.SUPPRESS)
     ap.add_argument("--out", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
@@ -219,14 +225,18 @@ def main(argv=None) -> int:
             floor_cmd = [sys.executable, str(HERE), "--floor-only", str(n)]
             floor_cmd += ["--out", str(folder / "floor.pdf")]
             cmd = [*report_cmd, "report", str(study), "-o", str(folder / "r.pdf"), "--quiet"]
+            before_env = _before_env(env, args.compare)
             if i == 0:  # untimed: compiles the modules of both into the bytecode folder
                 measure(floor_cmd, env)
                 measure(cmd, env)
-            best = {"report": None, "floor": None}
+                if before_env is not None:
+                    measure(cmd, before_env)
+            best = {"report": None, "floor": None, "before": None}
             for _ in range(args.repeats):
-                f = measure(floor_cmd, env)
-                r = measure(cmd, env)
-                for key, m in (("floor", f), ("report", r)):
+                runs = [("floor", measure(floor_cmd, env)), ("report", measure(cmd, env))]
+                if before_env is not None:
+                    runs.append(("before", measure(cmd, before_env)))
+                for key, m in runs:
                     if best[key] is None or m["seconds"] < best[key]["seconds"]:
                         best[key] = m
             pages = _pages(folder / "r.pdf")
@@ -241,6 +251,15 @@ def main(argv=None) -> int:
                 f"{os.getloadavg()[0]:.1f}",
                 flush=True,
             )
+            if best["before"] is not None:
+                b = best["before"]
+                print(
+                    f"     before ({args.compare}): {b['seconds']:.2f} s ({b['cpu_s']:.2f} s CPU), "
+                    f"peak RSS {b['rss_mb']:.0f} MB | ratio to floor "
+                    f"{b['seconds'] / flo['seconds']:.2f}, report / before "
+                    f"{rep['seconds'] / b['seconds']:.2f}",
+                    flush=True,
+                )
     sizes = sorted(results)
     lo, hi = sizes[0], sizes[-1]
     rep_hi = results[hi]["report"]
@@ -314,6 +333,17 @@ def main(argv=None) -> int:
             goal="flat: no more than the floor's",
         )
     return 0
+
+
+def _before_env(env: dict, source: str | None) -> dict | None:
+    """The environment that runs the studykit source in ``source`` (None: no comparison)."""
+    if source is None:
+        return None
+    before = dict(env)
+    before["PYTHONPATH"] = str(Path(source).resolve())
+    if "PYTHONPYCACHEPREFIX" in env:
+        before["PYTHONPYCACHEPREFIX"] = env["PYTHONPYCACHEPREFIX"] + "_before"
+    return before
 
 
 def _pages(pdf: Path) -> int:
