@@ -449,9 +449,10 @@ def _all_plain_numbers(cells) -> bool:
     """Every cell is a text holding one finite plain number (point decimal sign, no
     thousands separator): one regular-expression match over the joined cells instead of
     one :func:`text_number` per cell."""
-    if not all(type(v) is str for v in cells):
+    try:
+        joined = "\n".join(cells) + "\n"
+    except TypeError:  # a cell that is not a text
         return False
-    joined = "\n".join(cells) + "\n"
     if joined.count("\n") != len(cells) or not _PLAIN_LINES_RE.fullmatch(joined):
         return False
     if "e" not in joined and "E" not in joined and max(map(len, cells)) < 300:
@@ -464,6 +465,11 @@ def looks_numeric(ctx: Ctx, cells: np.ndarray) -> tuple[int, int]:
     sample = cells[:2000]
     if len(sample) and _all_plain_numbers(sample):  # the usual column: the same counts
         return len(sample), len(sample)
+    return count_cells(sample)
+
+
+def count_cells(sample) -> tuple[int, int]:
+    """:func:`looks_numeric` cell by cell (any column)."""
     n_filled = n_num = 0
     for v in sample:
         if isinstance(v, str):
