@@ -196,7 +196,8 @@ def _text_chunks(src: Source, header: list, sep: str, header_index: int, plain: 
         start = header_index + 1  # spreadsheet row of the reader's first line (the header)
         first = True
         for frame in reader:
-            cols = [frame[c].to_numpy(dtype=object) for c in frame.columns]
+            # the columns as rows of one array (the cells of frame[c], without a Series each)
+            cols = list(frame.to_numpy(dtype=object).T)
             rows = np.arange(start, start + len(frame), dtype=np.int64)
             start += len(frame)
             if first:
@@ -252,6 +253,15 @@ def _float_chunks(
                 pd.RangeIndex(start - header_index - 2, start - header_index - 2 + len(frame))
             ):
                 raise Fallback
+            if all(j in float_cols for j in range(width)):
+                # every column a number: the rows of one C-ordered copy (the values of
+                # np.array(frame[j]), contiguous as they were, without a Series each)
+                yield (
+                    np.arange(start, start + len(frame), dtype=np.int64),
+                    list(np.ascontiguousarray(frame.to_numpy(dtype=np.float64).T)),
+                )
+                start += len(frame)
+                continue
             cols = []
             for j in range(width):
                 if j in float_cols:
