@@ -340,9 +340,7 @@ def control_chart_figure(result, *, raw=None, width: float = 7.0) -> Figure:
         set_margins(fig, right=1.0, top=0.3, bottom=0.75, hspace=0.55)
         unit = f" [{result.unit}]" if result.unit else ""
         if getattr(result, "chart_scale_text", None):  # phase I on the model's scale
-            # the axis says which scale; the model is named in the text under the chart (a
-            # long family name cut the label off at the figure's edge)
-            unit = f"\n({result.chart_scale_axis.split(',')[0]})"
+            unit = f"\n({result.chart_scale_axis.split(',')[0]})"  # model: text below
         rx = [all_labels.index(lab) + 1 for lab in removed if lab in loc_r and lab in all_labels]
         ry = [loc_r[lab] for lab in removed if lab in loc_r and lab in all_labels]
         _series_panel(
