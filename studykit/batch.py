@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import time
 import warnings
 from collections.abc import Callable, Iterable, Mapping
@@ -71,6 +72,12 @@ CHUNKS_PER_WORKER = 8
 
 #: Seconds to wait for a Dask scheduler to answer.
 DASK_CONNECT_TIMEOUT = 10
+
+#: Environment variable naming a folder: when set, every chunk runs under cProfile and its
+#: process writes ``chunk-<pid>-<start>.prof`` and a line "start end characteristics" (wall
+#: clock, seconds since the epoch) to ``chunks-<pid>.txt`` there (a measurement aid:
+#: ``tests/bench/bench_batch.py --profile DIR``); unset, nothing is measured.
+PROFILE_ENV = "STUDYKIT_BATCH_PROFILE"
 
 # ----------------------------------------------------------------------------- result
 
@@ -243,10 +250,34 @@ def _analyse_task(task: _Task, options) -> dict:
 
 def _run_chunk(tasks: list, options_dict: dict) -> list:
     """Worker entry point: a chunk of tasks -> a list of row dicts (module level: picklable)."""
+    folder = os.environ.get(PROFILE_ENV)
+    if folder:
+        return _profiled_chunk(Path(folder), tasks, options_dict)
+    return _analyse_chunk(tasks, options_dict)
+
+
+def _analyse_chunk(tasks: list, options_dict: dict) -> list:
     from studykit.analysis import AnalysisOptions
 
     options = AnalysisOptions(**options_dict)
     return [_analyse_task(t, options) for t in tasks]
+
+
+def _profiled_chunk(folder: Path, tasks: list, options_dict: dict) -> list:
+    """:func:`_analyse_chunk` under cProfile, its profile and wall times written to
+    ``folder`` (see :data:`PROFILE_ENV`)."""
+    import cProfile
+
+    profile = cProfile.Profile()
+    start = time.time()
+    with profile:
+        rows = _analyse_chunk(tasks, options_dict)
+    end = time.time()
+    pid = os.getpid()
+    profile.dump_stats(folder / f"chunk-{pid}-{start:.6f}.prof")
+    with (folder / f"chunks-{pid}.txt").open("a", encoding="utf-8") as f:
+        f.write(f"{start:.6f} {end:.6f} {len(tasks)}\n")
+    return rows
 
 
 def _chunks(items: list, size: int) -> list:

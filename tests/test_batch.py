@@ -147,6 +147,31 @@ def test_workers_started_before_reading_give_identical_rows(inputs, local):
     assert start_workers(1) is None  # one job: no worker processes
 
 
+def test_profiled_chunks_give_identical_rows_and_their_profiles(inputs, local, tmp_path):
+    # PROFILE_ENV (a measurement aid of tests/bench/bench_batch.py --profile) runs each chunk
+    # under cProfile: the rows must be those of the plain run (reference: the module's
+    # one-process run), and each chunk leaves a readable profile and one line of wall times
+    import pstats
+
+    from studykit.batch import PROFILE_ENV
+
+    m, chars, crit = inputs
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv(PROFILE_ENV, str(tmp_path))
+        par = run_many(m, chars, crit, options=OPTIONS, jobs=2, chunk_size=3)
+    assert par.rows == local.rows
+    chunks = -(-len(local.rows) // 3)
+    profiles = sorted(tmp_path.glob("chunk-*.prof"))
+    assert len(profiles) == chunks
+    stats = pstats.Stats(*map(str, profiles))
+    assert any(name == "analyze_characteristic" for _, _, name in stats.stats)
+    lines = [ln.split() for f in tmp_path.glob("chunks-*.txt") for ln in f.read_text().splitlines()]
+    assert sorted(int(n) for _, _, n in lines) == sorted(
+        [3] * (len(local.rows) // 3) + ([len(local.rows) % 3] if len(local.rows) % 3 else [])
+    )
+    assert all(float(a) <= float(b) for a, b, _ in lines)
+
+
 def test_specs_match_by_label_and_case(inputs, local):
     # a specs table may spell a name as the data's label ("name [unit]") or in another case;
     # the reference is the row under the data's own spelling

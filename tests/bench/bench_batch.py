@@ -21,6 +21,14 @@ With ``--compare DIR`` the same two commands also run on the studykit source tre
 (e.g. a checkout of the code before a change; ``PYTHONPATH=DIR``), interleaved with the
 others, and the ratios of its figures to this tree's are printed (wall and CPU).
 
+With ``--profile DIR`` the 2-jobs command runs once more, the main process under cProfile
+(``DIR/main.prof``) and every chunk of the workers under cProfile too
+(``studykit.batch.PROFILE_ENV``: ``DIR/chunk-*.prof`` and wall times); then it prints when
+each worker began and ended its chunks against the command's start, how busy it was, and the
+functions that took the most time in the main process and in the workers together (profiled
+times run slower than unprofiled ones: read them as shares). Only the timed runs count as
+figures.
+
 Default options (bootstrap of fitted non-normal models: 500 resamples). Targets: 2 jobs
 <= 4 s for 1,000 x 125 on a 2-core machine, and ``--jobs 2`` at least 1.6x ``--jobs 1``.
 A figure taken on a loaded shared machine says little about the 2-jobs ratio (the second
@@ -147,6 +155,53 @@ def floor(data) -> float:
     return time.perf_counter() - t0
 
 
+def profile_run(data, specs, folder: Path, top: int = 25) -> None:
+    """The 2-jobs command once, its main process and its workers' chunks under cProfile
+    (files in ``folder``); prints the timeline and the largest items."""
+    import pstats
+
+    from studykit.batch import PROFILE_ENV
+
+    folder.mkdir(parents=True, exist_ok=True)
+    for old in [*folder.glob("chunk*"), folder / "main.prof"]:
+        old.unlink(missing_ok=True)
+    cmd = command(data, specs, 2)
+    cmd[1:1] = ["-m", "cProfile", "-o", str(folder / "main.prof")]
+    start = time.time()
+    subprocess.run(
+        cmd, capture_output=True, check=True, env={**os.environ, PROFILE_ENV: str(folder)}
+    )
+    wall = time.time() - start
+    print(f"profiled run (2 jobs): {wall:.2f} s wall; seconds from the command's start:")
+    for f in sorted(folder.glob("chunks-*.txt")):
+        spans = [tuple(map(float, ln.split()[:2])) for ln in f.read_text().splitlines()]
+        busy = sum(b - a for a, b in spans)
+        first, last = min(a for a, _ in spans) - start, max(b for _, b in spans) - start
+        print(
+            f"  worker {f.stem[7:]}: {len(spans)} chunks, first began {first:.2f}, last ended "
+            f"{last:.2f}, busy {busy:.2f} (idle between {last - first - busy:.2f})"
+        )
+    for title, files, key in (
+        ("main process, cumulative", [folder / "main.prof"], "cumulative"),
+        ("workers together, own time", sorted(folder.glob("chunk-*.prof")), "tottime"),
+        ("workers together, cumulative", sorted(folder.glob("chunk-*.prof")), "cumulative"),
+    ):
+        stats = pstats.Stats(*map(str, files))
+        print(f"  {title} (of {stats.total_tt:.2f} s profiled):")
+        rows = sorted(stats.stats.items(), key=lambda kv: -kv[1][3 if key == "cumulative" else 2])
+        shown = 0
+        for (path, line, name), (_, calls, tt, ct, _) in rows:
+            if key == "cumulative" and "studykit" not in path:
+                continue
+            where = path.split("site-packages/")[-1].split("studykit/")[-1]
+            print(
+                f"    {ct if key == 'cumulative' else tt:7.2f} s  {calls:7d}  {where}:{line} {name}"
+            )
+            shown += 1
+            if shown >= top:
+                break
+
+
 def _print_compare(tree, times, other, outputs) -> None:
     """The figures of the ``--compare`` tree and their ratios to this tree's (same run)."""
     for jobs in (2, 1):
@@ -170,6 +225,9 @@ def main(argv=None) -> int:
     ap.add_argument("--repeat", type=int, default=2, help="runs of each command")
     ap.add_argument("--no-loop", action="store_true", help="skip the one-process loop")
     ap.add_argument("--compare", metavar="DIR", help="another studykit source tree, run beside")
+    ap.add_argument(
+        "--profile", metavar="DIR", help="also one profiled 2-jobs run, its profiles in DIR"
+    )
     args = ap.parse_args(argv)
     import studykit.analysis  # noqa: F401 - for the loop; the commands start fresh
 
@@ -258,6 +316,8 @@ def main(argv=None) -> int:
         if not same_output:
             print("summary: " + summary)
             return 1
+        if args.profile:
+            profile_run(data, specs, Path(args.profile))
         print(
             "target: batch <= 4 s for 1000 x 125 with 2 jobs on 2 cores; --jobs 2 >= 1.6x "
             f"--jobs 1; load average {os.getloadavg()[0]:.1f} at the end"
