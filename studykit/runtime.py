@@ -16,6 +16,18 @@
   --usl 10.06 --json``, load average 2.7-3.9); at 10^6 readings 1.89-2.32 s against
   2.03-2.88 s (7 pairs). Only where memory lies changes: the numbers are the same bits.
 
+* Python's cyclic garbage collector kept off the walk of what one command builds
+  (:func:`one_command_collector`, used by ``studykit analyze`` of one characteristic): the
+  objects alive when it starts are frozen (they are not walked again), a collection of the
+  young objects waits for :data:`COLLECT_AFTER` new container objects instead of 700, and
+  what is alive at the end (modules, the result) is frozen too, so the full collection Python
+  makes when the process ends walks nothing. The default study of 10^6 readings makes about
+  10^5 small objects (signals, their points, the modules' objects) that hold no reference
+  cycles: the collector walked them 0.1-0.2 s per run. Reference counting frees everything as
+  before; a collection still comes after every :data:`COLLECT_AFTER` surviving new objects, so
+  memory stays bounded (peak RSS unchanged at 10^6 and 4.4 * 10^6 readings and on the
+  bootstrap route).
+
 >>> import os
 >>> one_blas_thread(env={}) == {name: "1" for name in BLAS_THREAD_VARS}
 True
@@ -27,15 +39,19 @@ True
 
 from __future__ import annotations
 
+import gc
 import os
-from collections.abc import MutableMapping
+from collections.abc import Iterator, MutableMapping
+from contextlib import contextmanager
 
 __all__ = [
     "BLAS_THREAD_VARS",
+    "COLLECT_AFTER",
     "HUGEPAGE_VAR",
     "available_cores",
     "numpy_small_pages",
     "one_blas_thread",
+    "one_command_collector",
 ]
 
 #: The thread-count variables of OpenBLAS, OpenMP and MKL.
@@ -63,6 +79,36 @@ def numpy_small_pages(env: MutableMapping[str, str] | None = None) -> MutableMap
     target = os.environ if env is None else env
     target.setdefault(HUGEPAGE_VAR, "0")
     return target
+
+
+#: New container objects (net of those freed) after which the young generation is collected
+#: inside :func:`one_command_collector` (Python's default is 700).
+COLLECT_AFTER = 1_000_000
+
+
+@contextmanager
+def one_command_collector(collect_after: int = COLLECT_AFTER) -> Iterator[None]:
+    """The collector set for one command whose process ends after it (see the module notes):
+    the objects alive at the start and at the end frozen (:func:`gc.freeze`: never walked by a
+    later collection; still freed by reference counting), the young generation collected after
+    ``collect_after`` new container objects; the thresholds restored at the end.
+
+    >>> import gc
+    >>> before = gc.get_threshold()
+    >>> with one_command_collector(collect_after=50_000):
+    ...     gc.get_threshold()[0]
+    50000
+    >>> gc.get_threshold() == before
+    True
+    """
+    old = gc.get_threshold()
+    gc.freeze()
+    gc.set_threshold(max(int(collect_after), old[0]), *old[1:])
+    try:
+        yield
+    finally:
+        gc.set_threshold(*old)
+        gc.freeze()
 
 
 def available_cores() -> int:

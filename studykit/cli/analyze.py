@@ -16,6 +16,7 @@ from studykit.cli.args import (
     spec_from_args,
 )
 from studykit.errors import StudyInputError
+from studykit.runtime import one_command_collector
 
 
 def _chart_arg(text: str) -> str:
@@ -165,14 +166,15 @@ def run(args) -> int:
         return run_batch(args)
     if not args.characteristic:
         raise StudyInputError("name the characteristic with --characteristic NAME (or use --all)")
-    result = analyze_from_args(args, args.characteristic)
-    if args.json:
-        # a few large writes: the terminal-safety escaping runs once per piece, not per token
-        for piece in dumps_result(result.to_dict()):
-            sys.stdout.write(piece)
-        sys.stdout.write("\n")
-    else:
-        sys.stdout.write(format_result(result))
+    with one_command_collector():  # the collector's walks spared (studykit/runtime.py)
+        result = analyze_from_args(args, args.characteristic)
+        if args.json:
+            # a few large writes: the terminal-safety escaping runs once per piece, not per token
+            for piece in dumps_result(result.to_dict()):
+                sys.stdout.write(piece)
+            sys.stdout.write("\n")
+        else:
+            sys.stdout.write(format_result(result))
     return 0
 
 
