@@ -28,6 +28,16 @@
   memory stays bounded (peak RSS unchanged at 10^6 and 4.4 * 10^6 readings and on the
   bootstrap route).
 
+* Arrays up to 32 MB from the heap, and freed memory kept for the next array
+  (:func:`heap_for_large_arrays`, used by ``studykit analyze`` of one characteristic): glibc
+  maps each large block anew from the kernel and gives it back when freed, so every temporary
+  array of 10^6 values (8 MB) is faulted in page by page again (about 95,000 page faults per
+  run at 10^6 readings). With the limit of its own mapping at glibc's largest (32 MB) and up
+  to 256 MB of free memory kept at the heap's top, 61,000; system time 0.26-0.30 s against
+  0.16-0.25 s, peak RSS 261 MB against 271 MB (3 interleaved pairs); at 4.4 * 10^6 readings
+  (arrays of 35 MB, still mapped) 1.10 against 1.28 million faults, peak RSS 1.34 against
+  1.32 GB. Only where memory lies changes: the numbers are the same bits.
+
 >>> import os
 >>> one_blas_thread(env={}) == {name: "1" for name in BLAS_THREAD_VARS}
 True
@@ -49,6 +59,7 @@ __all__ = [
     "COLLECT_AFTER",
     "HUGEPAGE_VAR",
     "available_cores",
+    "heap_for_large_arrays",
     "numpy_small_pages",
     "one_blas_thread",
     "one_command_collector",
@@ -109,6 +120,35 @@ def one_command_collector(collect_after: int = COLLECT_AFTER) -> Iterator[None]:
     finally:
         gc.set_threshold(*old)
         gc.freeze()
+
+
+#: glibc's ``mallopt`` parameters (``<malloc.h>``).
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+#: Blocks up to this size come from the heap (glibc's largest mmap threshold on 64-bit).
+HEAP_BLOCKS_UP_TO = 32 * 1024 * 1024
+#: Free memory at the heap's top kept for the next blocks instead of given back at once.
+KEEP_FREE = 256 * 1024 * 1024
+
+
+def heap_for_large_arrays() -> bool:
+    """Ask glibc's allocator (``mallopt``) to serve blocks up to :data:`HEAP_BLOCKS_UP_TO`
+    from its heap and to keep up to :data:`KEEP_FREE` of freed memory there (see the module
+    notes); True when both settings were taken, False without glibc (nothing changes).
+
+    >>> heap_for_large_arrays() in (True, False)
+    True
+    """
+    import ctypes
+
+    try:
+        mallopt = ctypes.CDLL(None).mallopt
+    except (OSError, AttributeError):  # not glibc (no mallopt): the allocator is left alone
+        return False
+    mallopt.argtypes = (ctypes.c_int, ctypes.c_int)
+    mallopt.restype = ctypes.c_int
+    return bool(mallopt(_M_MMAP_THRESHOLD, HEAP_BLOCKS_UP_TO)) and bool(
+        mallopt(_M_TRIM_THRESHOLD, KEEP_FREE)
+    )
 
 
 def available_cores() -> int:

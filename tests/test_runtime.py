@@ -1,4 +1,4 @@
-"""Process settings of studykit/runtime.py: the collector set for one command.
+"""Process settings of studykit/runtime.py: the collector and the allocator set for one command.
 
 Sources: Python's documentation of the ``gc`` module (``gc.freeze``, ``gc.get_freeze_count``,
 ``gc.set_threshold``, ``gc.callbacks``: the collector collects the young generation when the
@@ -71,3 +71,14 @@ def test_the_collector_is_left_enabled(restored_collector):
     with one_command_collector():
         assert gc.isenabled()
     assert gc.isenabled()
+
+
+def test_heap_setting_taken_where_glibc_is():
+    """glibc's mallopt (malloc(3), mallopt(3): M_MMAP_THRESHOLD up to 32 MB on 64-bit) takes
+    both settings; without glibc nothing is changed and False comes back."""
+    import platform
+
+    from studykit.runtime import HEAP_BLOCKS_UP_TO, heap_for_large_arrays
+
+    assert HEAP_BLOCKS_UP_TO == 32 * 1024 * 1024  # the largest value glibc accepts on 64-bit
+    assert heap_for_large_arrays() is (platform.libc_ver()[0] == "glibc")

@@ -16,7 +16,7 @@ from studykit.cli.args import (
     spec_from_args,
 )
 from studykit.errors import StudyInputError
-from studykit.runtime import one_command_collector
+from studykit.runtime import heap_for_large_arrays, one_command_collector
 
 
 def _chart_arg(text: str) -> str:
@@ -166,6 +166,7 @@ def run(args) -> int:
         return run_batch(args)
     if not args.characteristic:
         raise StudyInputError("name the characteristic with --characteristic NAME (or use --all)")
+    heap_for_large_arrays()  # temporaries of 10^6 values reuse memory (studykit/runtime.py)
     with one_command_collector():  # the collector's walks spared (studykit/runtime.py)
         result = analyze_from_args(args, args.characteristic)
         if args.json:
