@@ -181,3 +181,38 @@ def test_reader_without_pandas_reads_as_with_pandas():
     assert pandas_run.pop("pandas imported") is True
     assert len(plain_run) >= 8
     assert plain_run == pandas_run
+
+
+@pytest.mark.parametrize("fmt", list(plain._ISO_CELLS))
+def test_fixed_width_times_as_pandas(fmt):
+    """The vectorised check of fixed-width ISO cells: pandas' own values where it reads the
+    cells (pandas.to_datetime with the exact format is the reference), None (pandas decides)
+    for any cell it does not take, e.g. a day that does not exist, a field out of range, a
+    stray blank, a non-ASCII digit or an empty cell."""
+    rng = np.random.default_rng(21)
+    stamps = np.datetime64("1990-01-01T00:00:00") + rng.integers(0, 60 * 365 * 86400, 30_000)
+    text = np.datetime_as_string(stamps.astype("datetime64[s]"), unit="s").astype(object)
+    width = plain._ISO_LAYOUT[fmt][0]
+    sep = "T" if "T" in fmt else " "
+    cells = np.array([t.replace("T", sep)[:width] for t in text], dtype=object)
+    got = plain.fixed_iso_datetime64(cells, fmt)
+    assert got is not None
+    assert got.tolist() == _pandas_times(cells, fmt)
+    assert plain.to_datetime64(cells, fmt).tolist() == got.tolist()
+    other = "2026-03-02 06:00:07" if sep == "T" else "2026-03-02T06:00:07"  # another form
+    for bad in (
+        "2026-02-30 06:00:07"[:width],  # no such day
+        "2026-13-02 06:00:07"[:width],
+        "2026-03-02 24:00:00" if width > 10 else "2026-03-32",
+        "2026-03-02 06:60:00" if width > 10 else "2026-00-02",
+        "1500-03-02 06:00:00"[:width],  # outside datetime64[ns]: pandas decides
+        "2026-03-02 06:0\u0667:00"[:width] if width > 10 else "2026-03-0\u0667",
+        " " + cells[7][1:],
+        cells[7] + " ",
+        "",
+        other[:width] if width > 10 else "02.03.2026",
+        "2026/03/02 06:00:07"[:width],
+    ):
+        spoiled = cells.copy()
+        spoiled[12_345] = bad
+        assert plain.fixed_iso_datetime64(spoiled, fmt) is None, (fmt, bad)

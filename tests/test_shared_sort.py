@@ -58,3 +58,47 @@ def test_other_values_are_not_given_the_shared_sort(values):
     with_nan = values.copy()
     with_nan[3] = np.nan
     assert _SharedSort(with_nan).perm is None
+
+
+def test_hashed_ranks_give_the_argsort_routes_numbers():
+    """From HASHED_MIN_N values on (pandas loaded) the ranks come from a hash factorization:
+    the order check, Anderson-Darling and Shapiro-Wilk get the same numbers as with the
+    argsort route; tau and its p-value checked against scipy.stats.kendalltau."""
+    import pandas  # noqa: F401 - loaded, as after reading a large file
+
+    from studykit.analysis import HASHED_MIN_N
+
+    rng = np.random.default_rng(15)
+    values = np.round(rng.normal(10.0, 0.01, HASHED_MIN_N + 5_000), 4)  # invented; many ties
+    shared = _SharedSort(values)
+    assert shared.perm is None and shared.ranks is not None
+    ranks, counts = shared.ranks
+    perm = np.argsort(values, kind="stable")
+    ordered = values[perm]
+    dense = np.r_[False, ordered[1:] != ordered[:-1]].cumsum()
+    expected = np.empty(values.size, dtype=np.int64)
+    expected[perm] = dense
+    assert np.array_equal(ranks, expected)
+    assert np.array_equal(counts, np.bincount(dense))
+    assert shared.ordered(values).tobytes() == np.sort(values).tobytes()
+    ref = stats.kendalltau(np.arange(values.size), values)
+    got = order.check_order(values, ranks=shared.ranks)
+    assert (got.tau, got.p_value) == (float(ref.statistic), float(ref.pvalue))
+    assert order.kendall_tau_position(values, perm=perm) == (got.tau, got.p_value)
+
+
+def test_hashed_route_keeps_the_sign_of_each_zero():
+    """0.0 and -0.0 are one value for the ranks (they compare equal), but the sorted values
+    keep each zero's own sign, as np.sort does."""
+    import pandas  # noqa: F401
+
+    from studykit.analysis import HASHED_MIN_N
+
+    rng = np.random.default_rng(16)
+    values = np.round(rng.normal(0.0, 1.0, HASHED_MIN_N), 1)  # invented; zeros of both signs
+    values[::7] = -0.0
+    shared = _SharedSort(values)
+    assert shared.ranks is not None
+    got = shared.ordered(values)
+    assert got.tobytes() == np.sort(values).tobytes()
+    assert np.signbit(got[got == 0]).sum() == np.signbit(values[values == 0]).sum()

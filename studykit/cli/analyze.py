@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
-import uuid
 
 from studykit import names
 from studykit.cli.args import (
@@ -16,6 +16,7 @@ from studykit.cli.args import (
     spec_from_args,
 )
 from studykit.errors import StudyInputError
+from studykit.runtime import heap_for_large_arrays, one_command_collector
 
 
 def _chart_arg(text: str) -> str:
@@ -165,14 +166,16 @@ def run(args) -> int:
         return run_batch(args)
     if not args.characteristic:
         raise StudyInputError("name the characteristic with --characteristic NAME (or use --all)")
-    result = analyze_from_args(args, args.characteristic)
-    if args.json:
-        # a few large writes: the terminal-safety escaping runs once per piece, not per token
-        for piece in dumps_result(result.to_dict()):
-            sys.stdout.write(piece)
-        sys.stdout.write("\n")
-    else:
-        sys.stdout.write(format_result(result))
+    heap_for_large_arrays()  # temporaries of 10^6 values reuse memory (studykit/runtime.py)
+    with one_command_collector():  # the collector's walks spared (studykit/runtime.py)
+        result = analyze_from_args(args, args.characteristic)
+        if args.json:
+            # a few large writes: the terminal-safety escaping runs once per piece, not per token
+            for piece in dumps_result(result.to_dict()):
+                sys.stdout.write(piece)
+            sys.stdout.write("\n")
+        else:
+            sys.stdout.write(format_result(result))
     return 0
 
 
@@ -188,7 +191,8 @@ def dumps_result(out: dict):
     if not signals:
         yield json.dumps(out, indent=2)
         return
-    marker = json.dumps(f"@@signals-{uuid.uuid4().hex}@@")  # cannot occur in the data
+    # 128 random bits (as uuid4 has; without importing uuid): cannot occur in the data
+    marker = json.dumps(f"@@signals-{os.urandom(16).hex()}@@")
     text = json.dumps({**out, "chart": {**chart, "signals": marker[1:-1]}}, indent=2)
     head, tail = text.split(marker, 1)
     yield head + "[\n"

@@ -244,7 +244,9 @@ def _float_chunks(
             names=list(range(width)),
             dtype={j: (np.float64 if j in float_cols else object) for j in range(width)},
             decimal=decimal,
-            na_values=[""],
+            # an empty cell is NaN in a number column only: the text columns keep their cells
+            # as they are ("" stays "", no fillna over 10^6 cells)
+            na_values={j: [""] for j in float_cols},
             na_filter=True,
         )
         start = header_index + 2
@@ -267,7 +269,7 @@ def _float_chunks(
                 if j in float_cols:
                     cols.append(np.array(frame[j], dtype=np.float64))
                 else:
-                    cols.append(frame[j].fillna("").to_numpy(dtype=object))
+                    cols.append(frame[j].to_numpy(dtype=object))
             rows = np.arange(start, start + len(frame), dtype=np.int64)
             start += len(frame)
             yield rows, cols

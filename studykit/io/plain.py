@@ -32,6 +32,7 @@ __all__ = [
     "PLAIN_MAX_BYTES",
     "PLAIN_MAX_CELLS",
     "factorize",
+    "fixed_iso_datetime64",
     "plain_factorize",
     "plain_fast_columns",
     "plain_float",
@@ -177,6 +178,71 @@ def plain_to_datetime64(cells, fmt: str) -> np.ndarray | None:
         return None
 
 
+#: Each ISO format of :data:`_ISO_CELLS` as fixed positions: (width, the separator at each
+#: position, the positions of the two-digit hour, minute and second fields present).
+_ISO_LAYOUT = {
+    "%Y-%m-%d %H:%M:%S": (19, {4: "-", 7: "-", 10: " ", 13: ":", 16: ":"}, (11, 14, 17)),
+    "%Y-%m-%dT%H:%M:%S": (19, {4: "-", 7: "-", 10: "T", 13: ":", 16: ":"}, (11, 14, 17)),
+    "%Y-%m-%d %H:%M": (16, {4: "-", 7: "-", 10: " ", 13: ":"}, (11, 14)),
+    "%Y-%m-%dT%H:%M": (16, {4: "-", 7: "-", 10: "T", 13: ":"}, (11, 14)),
+    "%Y-%m-%d": (10, {4: "-", 7: "-"}, ()),
+}
+
+
+_YEAR_MIN, _YEAR_MAX = (int.from_bytes(y, "big") for y in (b"1678", b"2261"))
+
+
+def fixed_iso_datetime64(cells, fmt: str) -> np.ndarray | None:
+    """The cells read with ``fmt`` as datetime64[ns] when every cell is of the one form
+    :func:`plain_to_datetime64` reads (the pattern of :data:`_ISO_CELLS`, in ASCII digits),
+    checked for all cells at once; else None (then the cell-by-cell route or pandas decides).
+
+    The cells are joined by line breaks into one ASCII byte string: when its length is that of
+    ``n`` cells of the format's width and every row of the ``n x (width + 1)`` byte matrix holds
+    the separators at their places, digits elsewhere, hours 00-23 and minutes and seconds 00-59,
+    each cell is exactly of that form; numpy then reads the texts as the plain route does (about
+    twice as fast as pandas' format parser on 10^6 cells). A day that does not exist, or a year
+    outside 1678-2261 (the range of datetime64[ns]), gives None.
+
+    >>> fixed_iso_datetime64(np.array(["2026-03-02 06:00:07"], dtype=object), "%Y-%m-%d %H:%M:%S")
+    array(['2026-03-02T06:00:07.000000000'], dtype='datetime64[ns]')
+    >>> fixed_iso_datetime64(np.array(["2026-03-02 24:00"], dtype=object), "%Y-%m-%d %H:%M") is None
+    True
+    """
+    layout = _ISO_LAYOUT.get(fmt)
+    texts = np.asarray(cells, dtype=object).tolist()
+    if layout is None or not texts:
+        return None
+    width, separators, fields = layout
+    try:
+        raw = "\n".join(texts).encode("ascii")
+    except (TypeError, UnicodeEncodeError):  # a cell that is not text, or not ASCII
+        return None
+    n = len(texts)
+    if len(raw) != (width + 1) * n - 1:
+        return None
+    rows = np.frombuffer(raw + b"\n", dtype=np.uint8).reshape(n, width + 1)
+    digit = np.ones(width + 1, dtype=bool)
+    digit[list(separators) + [width]] = False
+    if not (rows[:, width] == 10).all() or not all(
+        (rows[:, i] == ord(c)).all() for i, c in separators.items()
+    ):
+        return None
+    if not ((rows[:, digit] - np.uint8(48)) < 10).all():  # (a byte below "0" wraps around)
+        return None
+    for i, top in zip(fields, (23, 59, 59), strict=False):
+        if int((rows[:, i].astype(np.int16) * 10 + rows[:, i + 1]).max()) - 528 > top:
+            return None  # 528 = 48 * 10 + 48: the two ASCII digits as a number
+    # four ASCII digits read as one big-endian number sort as the years they write
+    year = np.ascontiguousarray(rows[:, :4]).view(">u4")
+    if year.min() < _YEAR_MIN or year.max() > _YEAR_MAX:  # outside datetime64[ns]: pandas's
+        return None
+    try:
+        return np.array(texts, dtype="datetime64[ns]")
+    except ValueError:  # e.g. 2026-02-30: pandas raises its own error
+        return None
+
+
 def to_datetime64(cells, fmt: str) -> np.ndarray:
     """``pandas.to_datetime(cells, format=fmt)`` as a datetime64[ns] array (raises ValueError
     or TypeError as pandas does)."""
@@ -184,6 +250,10 @@ def to_datetime64(cells, fmt: str) -> np.ndarray:
         plain = plain_to_datetime64(cells, fmt)
         if plain is not None:
             return plain
+    elif len(cells) > PLAIN_MAX_CELLS:
+        fixed = fixed_iso_datetime64(cells, fmt)
+        if fixed is not None:
+            return fixed
     import pandas as pd
 
     return np.array(pd.to_datetime(cells, format=fmt), dtype="datetime64[ns]")

@@ -139,6 +139,7 @@ def check_order(
     unit: str | None = None,
     has_times: bool = False,
     perm: np.ndarray | None = None,
+    ranks: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> OrderCheck:
     """Check whether the values are in production order or sorted (see the module notes).
 
@@ -150,9 +151,10 @@ def check_order(
         Characteristic name and unit, for the life-test check.
     has_times : bool
         The file gives a time for each value (then a life-test name alone is not flagged).
-    perm : ndarray, optional
-        ``np.argsort(values)`` when the caller has made it (to share the sort with other
-        steps); used only when every value is finite, else the sort is made here.
+    perm, ranks : ndarray or (ndarray, ndarray), optional
+        ``np.argsort(values)``, or the dense ranks and their counts (see
+        :func:`kendall_tau_position`), when the caller has made them (to share the sort with
+        other steps); used only when every value is finite, else the sort is made here.
 
     Returns
     -------
@@ -184,7 +186,7 @@ def check_order(
     monotone = _monotone(x, n)
     if monotone is not None:
         return monotone
-    tau, p = kendall_tau_position(x, perm=perm if perm is not None and perm.size == n else None)
+    tau, p = _tau_with(x, n, perm, ranks)
     if math.isfinite(tau) and abs(tau) >= TAU_SORTED and p < ALPHA:
         direction = "increasing" if tau > 0 else "decreasing"
         return OrderCheck(
@@ -210,6 +212,13 @@ def check_order(
         n,
         f"no sign of sorted data (Kendall's tau against position {tau:.2f}).",
     )
+
+
+def _tau_with(x: np.ndarray, n: int, perm, ranks) -> tuple[float, float]:
+    """:func:`kendall_tau_position` of the ``n`` values ``x`` with the caller's sort, if any."""
+    if ranks is not None and ranks[0].size == n:
+        return kendall_tau_position(x, ranks=ranks)
+    return kendall_tau_position(x, perm=perm if perm is not None and perm.size == n else None)
 
 
 def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
@@ -243,10 +252,19 @@ def _monotone(x: np.ndarray, n: int) -> OrderCheck | None:
 PAIRWISE_MAX_N = 600
 
 
-def _discordant_and_ties(x: np.ndarray, perm: np.ndarray | None = None) -> tuple[int, np.ndarray]:
+def _discordant_and_ties(
+    x: np.ndarray,
+    perm: np.ndarray | None = None,
+    ranks: tuple[np.ndarray, np.ndarray] | None = None,
+) -> tuple[int, np.ndarray]:
     """(discordant pairs between position and value, sizes of the groups of tied values);
-    ``perm``: ``np.argsort(x)`` when the caller has it."""
+    ``perm``: ``np.argsort(x)`` when the caller has it; ``ranks``: the dense ranks of ``x`` in
+    position order and the count of each rank, when the caller has them (no sort here)."""
     size = int(x.size)
+    if ranks is not None and size > PAIRWISE_MAX_N:
+        dense, counts = ranks
+        cnt = np.asarray(counts).astype("int64", copy=False)
+        return discordant_pairs(dense, int(cnt.size)), cnt
     if size <= PAIRWISE_MAX_N:
         dis = int(np.count_nonzero(np.triu(x[:, None] > x[None, :], 1)))
         cnt = np.unique(x, return_counts=True)[1].astype("int64", copy=False)
@@ -255,10 +273,10 @@ def _discordant_and_ties(x: np.ndarray, perm: np.ndarray | None = None) -> tuple
         perm = np.argsort(x)
     ordered = x[perm]
     dense = np.r_[False, ordered[1:] != ordered[:-1]].cumsum(dtype=np.intp)
-    ranks = np.empty(size, dtype=np.int32 if size < 2**31 - 1 else np.intp)
-    ranks[perm] = dense  # dense ranks 0, 1, ... of the values, in position order
+    in_order = np.empty(size, dtype=np.int32 if size < 2**31 - 1 else np.intp)
+    in_order[perm] = dense  # dense ranks 0, 1, ... of the values, in position order
     cnt = np.bincount(dense).astype("int64", copy=False)  # (in value order: one sweep)
-    return discordant_pairs(ranks, int(cnt.size)), cnt
+    return discordant_pairs(in_order, int(cnt.size)), cnt
 
 
 def discordant_pairs(ranks, m: int | None = None) -> int:
@@ -324,7 +342,9 @@ def discordant_pairs(ranks, m: int | None = None) -> int:
     return total
 
 
-def kendall_tau_position(x, *, perm: np.ndarray | None = None) -> tuple[float, float]:
+def kendall_tau_position(
+    x, *, perm: np.ndarray | None = None, ranks: tuple[np.ndarray, np.ndarray] | None = None
+) -> tuple[float, float]:
     """Kendall's tau-b between position and ``x`` and its two-sided p-value, as
     ``scipy.stats.kendalltau(np.arange(n), x)`` returns them, bit for bit.
 
@@ -333,7 +353,9 @@ def kendall_tau_position(x, *, perm: np.ndarray | None = None) -> tuple[float, f
     step by step, without scipy's second sort and argument handling. The cases where scipy
     uses its exact p-value (no ties and n <= 33, or at most one pair out of place either way)
     are passed to scipy itself. ``perm`` is ``np.argsort(x)`` when the caller has made it
-    (any order of tied values gives the same counts).
+    (any order of tied values gives the same counts); ``ranks`` are the dense ranks 0..m-1 of
+    ``x`` in position order and the count of each rank (equal values one rank) when the caller
+    has them (then nothing is sorted here).
 
     >>> x = np.array([5.1, 4.9, 5.3, 5.0, 4.8, 5.2, 5.1, 4.9, 5.0, 5.2, 5.4, 4.7] * 3)
     >>> from scipy import stats
@@ -344,7 +366,7 @@ def kendall_tau_position(x, *, perm: np.ndarray | None = None) -> tuple[float, f
     x = np.asarray(x, dtype=float).ravel()
     size = int(x.size)
     if size > 2:
-        dis, cnt = _discordant_and_ties(x, perm)
+        dis, cnt = _discordant_and_ties(x, perm, ranks)
         tot = (size * (size - 1)) // 2
         cnt = cnt[cnt > 1]
         ytie = int((cnt * (cnt - 1) // 2).sum())

@@ -1,6 +1,7 @@
 """Peak memory and time of the default study of one characteristic with millions of readings.
 
 Run: .venv/bin/python tests/bench/bench_memory.py [--n 4400000] [--shape normal|skewed]
+     [--repeat 1] [--compare DIR]
 
 Writes a seeded CSV of ``--n`` individual readings (invented data: a time stamp and one
 characteristic per row, about 45 bytes a row, so 4.4 M readings make a 200 MB file) into a
@@ -13,7 +14,10 @@ temporary folder, then runs in a child process each
   (phase I auto, Nelson rules, model auto with its ranking and, for a fitted model, the
   bootstrap bounds).
 
-and prints each child's peak resident memory (``ru_maxrss`` of the child), wall time and CPU
+(both with this tree's code: its folder first on ``PYTHONPATH``; with ``--compare DIR`` the
+study runs once more on the studykit source tree ``DIR``, e.g. a checkout of the code before a
+change, interleaved with the others, and the ratios of this tree's figures to it and whether
+both write the same JSON are printed) and prints each child's peak resident memory (``ru_maxrss`` of the child), wall time and CPU
 time (user + system: on a shared machine the wall time grows with the load, the CPU time much
 less), and the ratios of the study to the floor. The children run under an address-space limit
 (``--limit-gb``, default 6) so that a regression cannot exhaust a shared machine: it then fails
@@ -81,17 +85,29 @@ def write_csv(path: Path, n: int, shape: str) -> None:
             fh.write("\n")
 
 
-def user_env() -> dict[str, str]:
+#: The studykit source tree this script belongs to (its commands run this tree's code).
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def user_env(tree: Path | str | None = None) -> dict[str, str]:
     """This process's environment as a user's shell has it: without ``PYTHONDONTWRITEBYTECODE``
-    (Python then writes and reuses compiled bytecode, as it does for a user)."""
+    (Python then writes and reuses compiled bytecode, as it does for a user); with ``tree``,
+    that studykit source tree first on ``PYTHONPATH`` (its code is the one run)."""
     env = dict(os.environ)
     env.pop("PYTHONDONTWRITEBYTECODE", None)
+    if tree is not None:
+        env["PYTHONPATH"] = os.pathsep.join(
+            [str(tree)] + [p for p in env.get("PYTHONPATH", "").split(os.pathsep) if p]
+        )
     return env
 
 
-def run_child(cmd: list[str], limit_gb: float) -> tuple[int, float, float, float, str]:
+def run_child(
+    cmd: list[str], limit_gb: float, tree: Path | str | None = None
+) -> tuple[int, float, float, float, str]:
     """Exit code, peak RSS (MB), wall seconds, CPU seconds (user + system) and stderr tail of
-    ``cmd`` run in a fresh process under an address-space limit."""
+    ``cmd`` run in a fresh process under an address-space limit (``tree``: see
+    :func:`user_env`)."""
     limit = int(limit_gb * 1024**3)
 
     def cap():
@@ -114,18 +130,31 @@ def run_child(cmd: list[str], limit_gb: float) -> tuple[int, float, float, float
         capture_output=True,
         text=True,
         preexec_fn=cap,
-        env=user_env(),
+        env=user_env(tree),
     )
     rc, rss, dt, cpu = p.stdout.split()
     return int(rc), float(rss), float(dt), float(cpu), p.stderr.strip()
 
 
+def json_output(cmd: list[str], tree: Path | str) -> bytes:
+    """What ``cmd`` writes to stdout when run on the source tree ``tree``."""
+    return subprocess.run(cmd, capture_output=True, env=user_env(tree)).stdout
+
+
 def measure(
-    path: Path, *, shape: str, limit_gb: float, model: str | None = None, repeat: int = 1
+    path: Path,
+    *,
+    shape: str,
+    limit_gb: float,
+    model: str | None = None,
+    repeat: int = 1,
+    compare: str | None = None,
 ) -> dict:
-    """Floor and default study of the CSV at ``path``: one untimed warm-up run of each, then
-    ``repeat`` measured runs of each (interleaved); the fastest wall and CPU time and the
-    largest RSS of each."""
+    """Floor and default study of the CSV at ``path`` (this tree's code; with ``compare``, the
+    study once more on that source tree, e.g. a checkout of the code before a change): one
+    untimed warm-up run of each, then ``repeat`` measured runs of each (interleaved); the
+    fastest wall and CPU time and the largest RSS of each, and with ``compare`` whether the
+    two trees write the same JSON."""
     studykit = str(Path(sys.executable).with_name("studykit"))
     lsl, usl = (9.94, 10.06) if shape == "normal" else (9.94, 10.12)
     cmd = [
@@ -146,12 +175,16 @@ def measure(
         "command": f"studykit analyze FILE -c diameter --lsl {lsl:g} --usl {usl:g} --json"
         + (f" --model {model}" if model else "")
     }
-    commands = (("floor", [sys.executable, "-c", FLOOR, str(path)]), ("analyze", cmd))
-    for _, c in commands:  # untimed warm-up: bytecode written, file in the page cache
-        run_child(c, limit_gb)
+    commands = [("floor", [sys.executable, "-c", FLOOR, str(path)], None), ("analyze", cmd, ROOT)]
+    if compare:
+        commands.append(("compare", cmd, compare))
+        out["compare_tree"] = str(compare)
+        out["same_json"] = json_output(cmd, ROOT) == json_output(cmd, compare)
+    for _, c, tree in commands:  # untimed warm-up: bytecode written, file in the page cache
+        run_child(c, limit_gb, tree)
     for _ in range(repeat):
-        for name, c in commands:
-            rc, rss, dt, cpu, err = run_child(c, limit_gb)
+        for name, c, tree in commands:
+            rc, rss, dt, cpu, err = run_child(c, limit_gb, tree)
             best = out.setdefault(
                 name, {"rc": 0, "rss": 0.0, "wall": float("inf"), "cpu": float("inf"), "err": ""}
             )
@@ -192,6 +225,14 @@ def report(res: dict, *, n: int, time_target: float | None, rss_target: float) -
     goals.append(f"time within 5x: {'met' if ok and min(rw, rc_) <= 5 else 'NOT met'}")
     goals.append(f"memory within 10x: {'met' if ok and rt <= 10 else 'NOT met'}")
     print("  targets: " + "; ".join(goals))
+    if "compare" in res:
+        c = res["compare"]
+        print(
+            f"  {res['compare_tree']} (compared, same run): peak RSS {c['rss']:7.0f} MB  wall "
+            f"{c['wall']:6.1f} s  CPU {c['cpu']:6.1f} s  exit {c['rc']}; this tree / it: CPU "
+            f"{a['cpu'] / max(c['cpu'], 1e-9):.2f}x, wall {a['wall'] / max(c['wall'], 1e-9):.2f}x, "
+            f"memory {a['rss'] / max(c['rss'], 1):.2f}x; same JSON: {res['same_json']}"
+        )
     from figure_rows import row
 
     what = f"{n:,} individual readings, default study"
@@ -217,8 +258,8 @@ def report(res: dict, *, n: int, time_target: float | None, rss_target: float) -
         met=ok and a["rss"] <= rss_target and rt <= 10,
     )
     print(
-        f"summary: {n:,} readings analyze {a['wall']:.1f} s wall / {a['cpu']:.1f} s CPU, "
-        f"{a['rss']:.0f} MB; floor {f['wall']:.1f} s / {f['cpu']:.1f} s, {f['rss']:.0f} MB"
+        f"summary: {n:,} readings analyze {a['wall']:.2f} s wall / {a['cpu']:.2f} s CPU, "
+        f"{a['rss']:.0f} MB; floor {f['wall']:.2f} s / {f['cpu']:.2f} s, {f['rss']:.0f} MB"
     )
 
 
@@ -229,6 +270,7 @@ def main(argv=None) -> int:
     ap.add_argument("--limit-gb", type=float, default=6.0)
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--model", default=None, help="pass --model to analyze (default: auto)")
+    ap.add_argument("--compare", metavar="DIR", help="another studykit source tree, run beside")
     args = ap.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "readings.csv"
@@ -241,7 +283,12 @@ def main(argv=None) -> int:
             f"address space; best of {args.repeat}"
         )
         res = measure(
-            path, shape=args.shape, limit_gb=args.limit_gb, model=args.model, repeat=args.repeat
+            path,
+            shape=args.shape,
+            limit_gb=args.limit_gb,
+            model=args.model,
+            repeat=args.repeat,
+            compare=args.compare,
         )
         report(res, n=args.n, time_target=None, rss_target=1536)
     return 0

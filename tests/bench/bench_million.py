@@ -1,6 +1,6 @@
 """The default study of one characteristic with 1,000,000 individual readings: time and memory.
 
-Run: .venv/bin/python tests/bench/bench_million.py [--n 1000000] [--repeat 3]
+Run: .venv/bin/python tests/bench/bench_million.py [--n 1000000] [--repeat 3] [--compare DIR]
 
 Measures what a user runs, with default options, on a seeded CSV of normal readings (invented
 data, written to a temporary folder):
@@ -15,7 +15,9 @@ each run in a fresh process, next to the floor measured in the same run: the gen
 time (user + system) and peak RSS of both and the ratios. Targets (issue 14): <= 2 s and
 <= 1 GB, i.e. within 5x the floor's time and 10x its memory. The runs alternate floor and
 study ``--repeat`` times after one untimed warm-up run of each; the fastest time and the
-largest RSS are printed. The children run as a user's shell runs them: without
+largest RSS are printed. The study runs this tree's code; with ``--compare DIR`` it runs once
+more per round on the studykit source tree ``DIR`` (e.g. a checkout of the code before a
+change), and the ratios to it and whether both write the same JSON are printed. The children run as a user's shell runs them: without
 ``PYTHONDONTWRITEBYTECODE`` (set in this project's shells), so Python writes and reuses compiled
 bytecode as it does for a user (see ``bench_memory.user_env``).
 """
@@ -38,6 +40,7 @@ def main(argv=None) -> int:
     ap.add_argument("--n", type=int, default=1_000_000)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--limit-gb", type=float, default=6.0)
+    ap.add_argument("--compare", metavar="DIR", help="another studykit source tree, run beside")
     args = ap.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "readings.csv"
@@ -47,7 +50,9 @@ def main(argv=None) -> int:
             f"{args.n:,} individual readings (normal), CSV {os.path.getsize(path) / 1e6:.0f} "
             f"MB, written in {time.perf_counter() - t:.1f} s; best of {args.repeat}"
         )
-        res = measure(path, shape="normal", limit_gb=args.limit_gb, repeat=args.repeat)
+        res = measure(
+            path, shape="normal", limit_gb=args.limit_gb, repeat=args.repeat, compare=args.compare
+        )
         report(res, n=args.n, time_target=2.0, rss_target=1024)
     return 0
 
