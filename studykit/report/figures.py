@@ -488,8 +488,10 @@ def _model_pdf(result, grid):
     model = result.model
     if model is None:
         return None, ""
-    if model.fitted is not None:
-        return np.asarray(model.fitted.pdf(grid), dtype=float), model.label
+    if model.fitted is not None:  # scipy's numbers, without importing scipy.stats here
+        from studykit.stats.families.density import fitted_pdf
+
+        return np.asarray(fitted_pdf(model.fitted, grid), dtype=float), model.label
     if model.name == "normal" or model.transform is not None:
         if model.transform is None:
             return _norm_pdf(grid, result.mean, result.overall_sigma), "Normal"

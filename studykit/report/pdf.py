@@ -2431,6 +2431,7 @@ def build_report(
         evidence, sort_keys=True, indent=1, ensure_ascii=False, allow_nan=False
     ).encode("utf-8")
     evidence_sha = hashlib.sha256(evidence_bytes).hexdigest()
+    del evidence  # its bytes are what is attached: the objects are not kept through the layout
     out = Path(out_path)
     part = out.with_name(out.name + ".part")
     layout: dict = {}
