@@ -168,6 +168,40 @@ def tidy_axes(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
         pass
 
 
+def readable_x_ticks(ax, fig, *, gap_in: float = 0.04) -> None:
+    """Fewer x ticks where their labels would run into each other (e.g. 13.975, 14.000, ...
+    on a narrow panel): the ticks as drawn when neighbouring labels, measured in the tick
+    font, leave ``gap_in`` between them, else the most ticks at 1, 2, 2.5 or 5 x 10^k steps
+    that do."""
+    from matplotlib.backends.backend_agg import RendererAgg
+    from matplotlib.ticker import MaxNLocator
+
+    lo, hi = sorted(ax.get_xlim())
+    shown = ax.xaxis.get_ticklabels()
+    if not hi > lo or not shown:
+        return
+    inch_per_unit = ax.get_position().width * fig.get_figwidth() / (hi - lo)
+    font = shown[0].get_fontproperties()
+    renderer = RendererAgg(10, 10, 72)  # 72 dpi: widths in points
+
+    def fits(ticks) -> bool:
+        ticks = [t for t in ticks if lo <= t <= hi]
+        if len(ticks) < 2:
+            return True
+        labels = ax.xaxis.get_major_formatter().format_ticks(ticks)
+        widest = max(renderer.get_text_width_height_descent(t, font, False)[0] for t in labels)
+        step_in = min(np.diff(ticks)) * inch_per_unit
+        return widest / 72 + gap_in <= step_in
+
+    if fits(ax.get_xticks()):
+        return
+    for nbins in range(8, 1, -1):
+        locator = MaxNLocator(nbins=nbins, steps=[1, 2, 2.5, 5, 10])
+        if fits(locator.tick_values(lo, hi)) or nbins == 2:
+            ax.xaxis.set_major_locator(locator)
+            return
+
+
 def hline(ax, y, role, text, x_end):
     if y is None or not math.isfinite(float(y)):
         return
@@ -545,6 +579,8 @@ def shape_figure(result, *, width: float = 7.0) -> Figure:
         tidy_axes(ax1, "Distribution of the values", "Density", result.characteristic + unit)
         _paper_legend(ax1)
         _probability_panel(ax2, result, unit)
+        for ax in (ax1, ax2):
+            readable_x_ticks(ax, fig)
         settle_titles(fig)
     return fig
 
