@@ -506,3 +506,30 @@ def test_position_view_shows_the_caution_for_a_safety_critical_position():
     assert "do not replace" not in position_html("hole", payload, d)
     payload["safety_critical"] = True
     assert "do not replace" in position_html("hole", payload, d)
+
+
+def test_position_view_redraws_only_when_the_positions_change(monkeypatch):
+    """A save that leaves the position studies as they were (a removal elsewhere) does not
+    redraw the position figure; a changed position study does."""
+    import studykit.positions as positions_module
+    import studykit.report.figures as figures_module
+    from studykit.app.steps.extras_views import PositionView
+
+    stored = stored_positions(DEMO / "pump_housing_pilot.study")
+    current = {"value": stored}
+    monkeypatch.setattr(positions_module, "stored_positions", lambda _p: current["value"])
+    drawn = []
+    real_png = figures_module.figure_png
+    monkeypatch.setattr(
+        figures_module, "figure_png", lambda *a, **k: drawn.append(1) or real_png(*a, **k)
+    )
+    view = PositionView()
+    view.refresh("study", version=1)
+    assert len(drawn) == 1 and view.image.value
+    view.refresh("study", version=2)  # a new version of the file, same positions
+    assert len(drawn) == 1
+    name = next(iter(stored))
+    changed = {name: {**stored[name], "note": "re-measured"}}
+    current["value"] = changed
+    view.refresh("study", version=3)
+    assert len(drawn) == 2

@@ -191,8 +191,10 @@ class PositionView:
         key = (str(path), version)
         if key != self._key:
             self._key = key
-            self._positions = stored_positions(path) if path is not None else {}
-            self._drawn = None
+            positions = stored_positions(path) if path is not None else {}
+            if positions != self._positions:  # a new version with the same positions: no redraw
+                self._positions = positions
+                self._drawn = None
             names = list(self._positions)
             self.choose.options = names
             self.choose.layout.display = "" if len(names) > 1 else "none"
