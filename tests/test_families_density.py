@@ -1,6 +1,8 @@
-"""The fitted models' densities drawn without ``scipy.stats`` (``fitted_pdf``).
+"""The fitted models' densities, distribution and survival functions without ``scipy.stats``
+(``fitted_pdf``, ``fitted_cdf``, ``fitted_sf``).
 
-Reference library: scipy.stats, the frozen distribution of each fitted model (``model.pdf``:
+Reference library: scipy.stats, the frozen distribution of each fitted model (``pdf``, ``cdf``,
+``sf`` of ``model.dist``:
 ``norm``, ``lognorm``, ``weibull_min``, ``gamma``, ``expon``, ``logistic``, ``fisk``,
 ``gumbel_l``, ``gumbel_r``, ``halfnorm``). Exact equality, element for element, on grids that
 reach below the threshold / support and beyond the data, and at NaN and +-inf.
@@ -33,17 +35,23 @@ def _fits(family, rng, wanted: int = 6):
     return fits
 
 
+def _grid(m):
+    """400 points from below the 0.1 % point to beyond the 99.9 % point, then NaN, +-inf, the
+    threshold and 0."""
+    v = np.asarray(m.family.quantile(np.array([0.001, 0.999]), m.parameters), dtype=float)
+    lo, hi = float(v[0]), float(v[1])
+    grid = np.linspace(lo - 0.5 * (hi - lo), hi + 0.5 * (hi - lo), 400)
+    edges = [np.nan, np.inf, -np.inf, m.parameters.get("threshold", 0.0), 0.0]
+    return np.concatenate([grid, edges])
+
+
 @pytest.mark.parametrize("fid", list(FAMILIES))
 def test_fitted_pdf_equals_scipy_frozen_pdf(fid):
     rng = np.random.default_rng(sum(map(ord, fid)))
     fits = _fits(FAMILIES[fid], rng)
     assert len(fits) >= 3, f"{fid}: too few fits to compare"
     for m in fits:
-        v = np.asarray(m.family.quantile(np.array([0.001, 0.999]), m.parameters), dtype=float)
-        lo, hi = float(v[0]), float(v[1])
-        grid = np.linspace(lo - 0.5 * (hi - lo), hi + 0.5 * (hi - lo), 400)
-        edges = [np.nan, np.inf, -np.inf, m.parameters.get("threshold", 0.0), 0.0]
-        grid = np.concatenate([grid, edges])
+        grid = _grid(m)
         with np.errstate(all="ignore"):
             ours, ref = fitted_pdf(m, grid), m.pdf(grid)
         assert ours.dtype == ref.dtype and ours.shape == ref.shape
@@ -67,3 +75,26 @@ def test_fitted_pdf_imports_no_scipy_stats():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False", out.stderr
+
+
+@pytest.mark.parametrize("fid", list(FAMILIES))
+@pytest.mark.parametrize("which", ["cdf", "sf"])
+def test_fitted_cdf_and_sf_equal_scipy_frozen(fid, which):
+    # scipy.stats' frozen distribution of each fit (model.dist.cdf / .sf), element for element
+    from studykit.stats.families.density import fitted_cdf, fitted_sf
+
+    ours_of = {"cdf": fitted_cdf, "sf": fitted_sf}[which]
+    rng = np.random.default_rng(sum(map(ord, fid + which)))
+    fits = _fits(FAMILIES[fid], rng)
+    assert len(fits) >= 3, f"{fid}: too few fits to compare"
+    for m in fits:
+        grid = _grid(m)
+        ref_of = getattr(m.dist, which)
+        with np.errstate(all="ignore"):
+            ours, ref = ours_of(m, grid), ref_of(grid)
+            inside = grid[np.isfinite(grid)][50:60]  # every point inside: scipy's ravel route
+            assert np.array_equal(ours_of(m, inside), ref_of(inside), equal_nan=True)
+        assert ours.dtype == ref.dtype and ours.shape == ref.shape
+        assert np.array_equal(ours, ref, equal_nan=True), (fid, which, m.parameters)
+        assert ours_of(m, grid[200]) == ref_of(grid[200])  # a scalar too
+        assert ours_of(m, list(grid[:5])).tolist() == ref_of(list(grid[:5])).tolist()

@@ -169,12 +169,18 @@ class FittedModel(Result):
         return state
 
     def cdf(self, x):
-        """Cumulative probability at x."""
-        return self.dist.cdf(x)
+        """Cumulative probability at x (scipy.stats' frozen ``cdf`` bit for bit, computed
+        without importing scipy.stats: :func:`~studykit.stats.families.density.fitted_cdf`)."""
+        from studykit.stats.families.density import fitted_cdf
+
+        return fitted_cdf(self, x)
 
     def sf(self, x):
-        """Survival function 1 - F(x), accurate in the upper tail."""
-        return self.dist.sf(x)
+        """Survival function 1 - F(x), accurate in the upper tail (as :meth:`cdf`: scipy's
+        ``sf`` bit for bit, :func:`~studykit.stats.families.density.fitted_sf`)."""
+        from studykit.stats.families.density import fitted_sf
+
+        return fitted_sf(self, x)
 
     def ppf(self, q):
         """Quantile function: the value below which a fraction q of the model lies."""
