@@ -98,3 +98,24 @@ def test_fitted_cdf_and_sf_equal_scipy_frozen(fid, which):
         assert np.array_equal(ours, ref, equal_nan=True), (fid, which, m.parameters)
         assert ours_of(m, grid[200]) == ref_of(grid[200])  # a scalar too
         assert ours_of(m, list(grid[:5])).tolist() == ref_of(list(grid[:5])).tolist()
+
+
+@pytest.mark.parametrize("fid", list(FAMILIES))
+def test_fitted_ppf_equals_scipy_frozen(fid):
+    # scipy.stats' frozen distribution of each fit (model.dist.ppf), element for element
+    from studykit.stats.families.density import fitted_ppf
+
+    rng = np.random.default_rng(sum(map(ord, fid + "ppf")))
+    fits = _fits(FAMILIES[fid], rng)
+    assert len(fits) >= 3, f"{fid}: too few fits to compare"
+    q = np.concatenate(
+        [np.linspace(0.0, 1.0, 201), [0.00135, 0.99865, 1e-12, 1 - 1e-12, -0.1, 1.1, np.nan]]
+    )
+    for m in fits:
+        with np.errstate(all="ignore"):
+            ours, ref = fitted_ppf(m, q), m.dist.ppf(q)
+            assert np.array_equal(fitted_ppf(m, q[1:200]), m.dist.ppf(q[1:200]))  # all inside
+        assert ours.dtype == ref.dtype and ours.shape == ref.shape
+        assert np.array_equal(ours, ref, equal_nan=True), (fid, m.parameters)
+        assert fitted_ppf(m, 0.00135) == m.dist.ppf(0.00135)  # a scalar too
+        assert fitted_ppf(m, [0.5, 0.9]).tolist() == m.dist.ppf([0.5, 0.9]).tolist()

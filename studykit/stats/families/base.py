@@ -183,8 +183,11 @@ class FittedModel(Result):
         return fitted_sf(self, x)
 
     def ppf(self, q):
-        """Quantile function: the value below which a fraction q of the model lies."""
-        return self.dist.ppf(q)
+        """Quantile function: the value below which a fraction q of the model lies (scipy's
+        frozen ``ppf`` bit for bit, :func:`~studykit.stats.families.density.fitted_ppf`)."""
+        from studykit.stats.families.density import fitted_ppf
+
+        return fitted_ppf(self, q)
 
     def pdf(self, x):
         """Density at x."""
