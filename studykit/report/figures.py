@@ -168,6 +168,9 @@ def tidy_axes(ax, title: str, ylabel: str = "", xlabel: str = "") -> None:
         pass
 
 
+_MEASURE = None  # the renderer that measures tick labels (readable_x_ticks)
+
+
 def readable_x_ticks(ax, fig, *, gap_in: float = 0.04) -> None:
     """Fewer x ticks where their labels would run into each other (e.g. 13.975, 14.000, ...
     on a narrow panel): the ticks as drawn when neighbouring labels, measured in the tick
@@ -182,7 +185,10 @@ def readable_x_ticks(ax, fig, *, gap_in: float = 0.04) -> None:
         return
     inch_per_unit = ax.get_position().width * fig.get_figwidth() / (hi - lo)
     font = shown[0].get_fontproperties()
-    renderer = RendererAgg(10, 10, 72)  # 72 dpi: widths in points
+    global _MEASURE
+    if _MEASURE is None:
+        _MEASURE = RendererAgg(10, 10, 72)  # 72 dpi: widths in points; one per process
+    renderer = _MEASURE
 
     def fits(ticks) -> bool:
         ticks = [t for t in ticks if lo <= t <= hi]
