@@ -653,22 +653,21 @@ def test_clean_csv_uses_the_fast_reader(monkeypatch):
     import studykit.io.assemble as data
 
     used = []
-    original = data._with_fast_path
+    original = data._collect_wide
 
-    def spy(table, float_cols, collect):
-        def record(chunks):
-            used.append(getattr(chunks, "__name__", "?"))
-            return collect(chunks)
+    def spy(src, table, ctx, kinds, float_cols, chunks):
+        used.append(getattr(chunks, "__name__", "?"))
+        return original(src, table, ctx, kinds, float_cols, chunks)
 
-        return original(table, float_cols, record)
-
-    monkeypatch.setattr(data, "_with_fast_path", spy)
+    monkeypatch.setattr(data, "_collect_wide", spy)
     read_measurements_bytes(b"Subgroup;A [mm]\n1;1,5\n1;\n2;2,5\n", "x.csv")
     assert used == ["_float_chunks"]
     used.clear()
     with pytest.raises(DataFileError, match="'abc' is not a number"):
         read_measurements_bytes(b"A\n1\nabc\n", "x.csv")
-    assert used == ["_float_chunks", "_text_chunks"]  # the fallback finds the cell
+    # the guess that every column holds numbers, the classified columns' numbers, then the
+    # cell-by-cell reading that finds the cell
+    assert used == ["_float_chunks", "_float_chunks", "_text_chunks"]
 
 
 def test_title_rows_above_the_header_are_skipped(tmp_path):

@@ -81,3 +81,30 @@ def test_quad_and_brentq_equal_scipy():
         assert brentq(g, -20.0, 5.0, xtol=1e-12) == optimize.brentq(g, -20.0, 5.0, xtol=1e-12)
     with pytest.raises(ValueError):  # no sign change: scipy's own error
         brentq(lambda t: t * t + 1.0, -1.0, 1.0, xtol=1e-12)
+
+
+def test_scipy_special_without_numpy_unused_submodules():
+    """``import studykit.stats`` loads ``scipy.special`` without numpy's f2py, testing and
+    polynomial (scipy's array-API layer read every name of ``dir(numpy)``); numpy's own lists
+    are restored and the layer still finds those names through numpy when read."""
+    code = (
+        "import json, sys\n"
+        "import studykit.stats\n"
+        "import numpy, scipy.special\n"
+        "unused = ['numpy.' + n for n in ('f2py', 'testing', 'polynomial', 'ctypeslib')]\n"
+        "loaded = [m for m in unused if m in sys.modules]\n"
+        "listed = ['f2py' in dir(numpy), 'testing' in numpy.__all__]\n"
+        "import scipy._lib.array_api_compat.numpy as xp\n"
+        "same = [xp.polynomial is numpy.polynomial, xp.ma is numpy.ma]\n"
+        "try:\n"
+        "    xp.no_such_name\n"
+        "    missing = 'found'\n"
+        "except AttributeError:\n"
+        "    missing = 'AttributeError'\n"
+        "print(json.dumps([loaded, listed, same, missing, float(scipy.special.ndtr(0.0))]))\n"
+    )
+    run = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    loaded, listed, same, missing, half = json.loads(run.stdout.strip().splitlines()[-1])
+    assert loaded == []
+    assert listed == [True, True]  # numpy 2.x lists both (restored after the import)
+    assert same == [True, True] and missing == "AttributeError" and half == 0.5

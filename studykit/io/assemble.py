@@ -183,6 +183,34 @@ def _with_fast_path(table, float_cols, collect):
     return collect(table.open_chunks())
 
 
+def _named_kinds(table, role) -> dict:
+    """The kinds the header alone gives (``unnamed``, a role) and ``value`` for every other
+    column: the classification of a table whose named columns all hold numbers."""
+    header = table.header
+    return {j: "unnamed" if not header[j] else role.get(j, "value") for j in range(len(header))}
+
+
+def _collect_all_numeric(table, role, collect):
+    """(kinds, float columns, collected chunks) when the fast number reader reads every named
+    column that has no role as numbers, else None.
+
+    Such a table is classified as it would be cell by cell (:func:`_classify`): a cell the
+    fast reader turns into a finite number is one :func:`looks_numeric` counts (an infinite
+    one makes it give up), so every such column is a ``value`` column. The text reading of the
+    first chunk that classification needs (a second pass over the file) is then skipped."""
+    if table.fast_chunks is None:
+        return None
+    kinds = _named_kinds(table, role)
+    float_cols = {j for j, k in kinds.items() if k == "value"}
+    if not float_cols:
+        return None
+    try:
+        chunks = table.fast_chunks(float_cols, guess=True)
+        return kinds, float_cols, collect(kinds, float_cols, chunks)
+    except (Fallback, DataFileError):
+        return None  # a text cell, an odd form: classified and read as before
+
+
 def _classify(table, ctx, role, notes) -> dict:
     header = table.header
     gen = table.open_chunks()
@@ -221,12 +249,17 @@ def assemble_wide(src, table, ctx, role, subgroup_size, notes, warnings_):
     ``role``. Returns (characteristics, number of rows read)."""
     header = table.header
     sg_idx, t_idx, n_idx = (role_index(role, r) for r in ("subgroup", "time", "note"))
-    kinds = _classify(table, ctx, role, notes)
-    float_cols = {j for j, k in kinds.items() if k == "value"}
-    collect = functools.partial(_collect_wide, src, table, ctx, kinds, float_cols)
-    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _with_fast_path(
-        table, float_cols, collect
-    )
+    collect = functools.partial(_collect_wide, src, table, ctx)
+    numeric_table = _collect_all_numeric(table, role, collect)
+    if numeric_table is not None:
+        kinds, float_cols, collected = numeric_table
+    else:
+        kinds = _classify(table, ctx, role, notes)
+        float_cols = {j for j, k in kinds.items() if k == "value"}
+        collected = _with_fast_path(
+            table, float_cols, functools.partial(collect, kinds, float_cols)
+        )
+    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = collected
     rows = rows_acc.result(np.int64)
     filled = filled_acc.result(bool)
     _refuse_no_values(src, table, filled, "part")

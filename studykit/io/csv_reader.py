@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import csv
 import functools
+import io
 import re
 import sys
 
@@ -223,15 +224,27 @@ def _text_chunks(src: Source, header: list, sep: str, header_index: int, plain: 
 
 
 def _float_chunks(
-    src: Source, width: int, sep: str, header_index: int, decimal: str, plain, float_cols
+    src: Source,
+    width: int,
+    sep: str,
+    header_index: int,
+    decimal: str,
+    plain,
+    float_cols,
+    *,
+    guess: bool = False,
 ):
     """Numbers parsed by pandas' C reader (or the plain route of a small table); any doubt
-    raises Fallback."""
+    raises Fallback. ``guess``: ``float_cols`` is a guess (every named column), so a small
+    table the plain route splits but cannot read as those numbers raises Fallback at once
+    rather than going to pandas (the classified reading then needs no pandas either)."""
     records = plain()
     plain_cols = plain_fast_columns(records, header_index, width, float_cols, decimal)
     if plain_cols is not None:
         yield np.arange(header_index + 2, len(records) + 1, dtype=np.int64), plain_cols
         return
+    if guess and (records is not None or not _header_decodes(src, header_index)):
+        raise Fallback
     import pandas as pd
 
     handle = src.binary()
@@ -275,6 +288,23 @@ def _float_chunks(
             yield rows, cols
     except (ValueError, TypeError, OverflowError, pd.errors.ParserError, UnicodeDecodeError):
         raise Fallback from None
+    finally:
+        handle.close()
+
+
+def _header_decodes(src: Source, header_index: int) -> bool:
+    """Whether the lines down to the one below the header decode in the file's encoding
+    (strictly). The number reader skips the header; the text reader, which a guess stands in
+    for, reads it and names a header the encoding cannot read."""
+    handle = src.binary()
+    try:
+        text = io.TextIOWrapper(handle, encoding=src.encoding or "utf-8", newline="")
+        for _ in range(header_index + 2):
+            if not text.readline():
+                break
+        return True
+    except (UnicodeDecodeError, LookupError):
+        return False
     finally:
         handle.close()
 

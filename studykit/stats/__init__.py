@@ -22,6 +22,10 @@ full name (``from studykit.stats.capability import judge``), never as attributes
 
 from __future__ import annotations
 
+from studykit.stats.lazy import import_scipy_special
+
+import_scipy_special()  # first, without numpy's unused submodules (its docstring)
+
 from studykit.stats.attribute import *
 from studykit.stats.capability import *
 from studykit.stats.charts import (

@@ -14,8 +14,11 @@ module cache applies).
 
 from __future__ import annotations
 
+import contextlib
 import importlib
 import math
+import sys
+from collections.abc import Iterator
 from types import ModuleType
 from typing import Any
 
@@ -30,6 +33,7 @@ __all__ = [
     "chi2_ppf",
     "chi2_sf",
     "f_sf",
+    "import_scipy_special",
     "norm_cdf",
     "norm_isf_values",
     "norm_ppf_values",
@@ -60,6 +64,69 @@ class LazyModule:
     def __repr__(self) -> str:
         state = "imported" if self._module is not None else "not imported yet"
         return f"<lazy module {self._name!r} ({state})>"
+
+
+#: numpy's submodules that numpy loads on the first read of the attribute and that no studykit
+#: route uses (``numpy.f2py`` alone took about 60 ms to import, ``ma``, ``testing`` and
+#: ``polynomial`` together about 40 ms)
+NUMPY_UNUSED_SUBMODULES = ("f2py", "testing", "ma", "polynomial", "ctypeslib", "rec", "char")
+_COMPAT = "scipy._lib.array_api_compat.numpy"
+
+
+@contextlib.contextmanager
+def _numpy_without(names: set[str]) -> Iterator[None]:
+    """numpy's ``dir()`` and ``__all__`` without ``names`` for the time of the block."""
+    import numpy as numpy_module
+
+    numpy: Any = numpy_module  # (its __dir__ is assigned: a module attribute, not a method)
+    listed_dir, listed_all = numpy.__dict__.get("__dir__"), numpy.__all__
+    numpy.__all__ = [n for n in listed_all if n not in names]
+    if listed_dir is not None:
+        numpy.__dir__ = lambda: [n for n in listed_dir() if n not in names]
+    try:
+        yield
+    finally:
+        numpy.__all__ = listed_all
+        if listed_dir is not None:
+            numpy.__dir__ = listed_dir
+
+
+def import_scipy_special() -> ModuleType:
+    """``import scipy.special``, without scipy's array-API layer importing numpy's unused
+    submodules (:data:`NUMPY_UNUSED_SUBMODULES`).
+
+    That layer (``scipy._lib.array_api_compat.numpy``, imported by ``scipy.special``) copies
+    every name ``dir(numpy)`` and ``numpy.__all__`` list into its own namespace, and reading a
+    lazily loaded submodule's name imports it: about 60-100 ms of every studykit process's
+    start. Here those names are left out of both lists while ``scipy.special`` is first
+    imported, and the layer then finds them through numpy on first use (a module
+    ``__getattr__``), so ``xp.ma`` and the like still work, imported when read. numpy's lists
+    are restored at once; the functions are the same objects, so every number is the same.
+    Imported already (by someone else first): nothing changes.
+
+    >>> special = import_scipy_special()
+    >>> float(special.ndtr(0.0))
+    0.5
+    """
+    if "scipy.special" in sys.modules:
+        return sys.modules["scipy.special"]
+    unused = {n for n in NUMPY_UNUSED_SUBMODULES if f"numpy.{n}" not in sys.modules}
+    compat_new = _COMPAT not in sys.modules
+    with _numpy_without(unused if compat_new else set()):
+        import scipy.special
+    compat: Any = sys.modules.get(_COMPAT)
+    if compat_new and compat is not None and "__getattr__" not in compat.__dict__:
+        import numpy
+
+        def forward(name: str) -> Any:
+            if name in unused:
+                value = getattr(numpy, name)
+                setattr(compat, name, value)
+                return value
+            raise AttributeError(f"module {_COMPAT!r} has no attribute {name!r}")
+
+        compat.__getattr__ = forward  # PEP 562: read by attribute lookup
+    return scipy.special
 
 
 #: ``scipy.stats``, imported on first attribute access.
