@@ -22,9 +22,9 @@ full name (``from studykit.stats.capability import judge``), never as attributes
 
 from __future__ import annotations
 
-from studykit.stats.lazy import import_scipy_special
+from studykit.stats.lazy import import_scipy_special as _import_scipy_special
 
-import_scipy_special()  # first, without numpy's unused submodules (its docstring)
+_import_scipy_special()  # first, without numpy's unused submodules (its docstring)
 
 from studykit.stats.attribute import *
 from studykit.stats.capability import *
