@@ -191,8 +191,8 @@ def _named_kinds(table, role) -> dict:
 
 
 def _collect_all_numeric(table, role, collect):
-    """(kinds, float columns, collected chunks) when the fast number reader reads every named
-    column that has no role as numbers, else None.
+    """The collected chunks (:func:`_collect_wide`) when the fast number reader reads every
+    named column that has no role as numbers, else None.
 
     Such a table is classified as it would be cell by cell (:func:`_classify`): a cell the
     fast reader turns into a finite number is one :func:`looks_numeric` counts (an infinite
@@ -205,8 +205,7 @@ def _collect_all_numeric(table, role, collect):
     if not float_cols:
         return None
     try:
-        chunks = table.fast_chunks(float_cols, guess=True)
-        return kinds, float_cols, collect(kinds, float_cols, chunks)
+        return collect(kinds, float_cols, table.fast_chunks(float_cols, guess=True))
     except (Fallback, DataFileError):
         return None  # a text cell, an odd form: classified and read as before
 
@@ -244,22 +243,24 @@ def role_index(role: dict, what: str) -> int | None:
     return next((j for j, r in role.items() if r == what), None)
 
 
+def _read_wide(src, table, ctx, role, notes):
+    """The collected chunks of a wide table (:func:`_collect_wide`): by the all-numbers guess
+    when it holds, else classified first."""
+    collect = functools.partial(_collect_wide, src, table, ctx)
+    collected = _collect_all_numeric(table, role, collect)
+    if collected is not None:
+        return collected
+    kinds = _classify(table, ctx, role, notes)
+    float_cols = {j for j, k in kinds.items() if k == "value"}
+    return _with_fast_path(table, float_cols, functools.partial(collect, kinds, float_cols))
+
+
 def assemble_wide(src, table, ctx, role, subgroup_size, notes, warnings_):
     """One characteristic per value column; the columns' roles (subgroup, time, note) in
     ``role``. Returns (characteristics, number of rows read)."""
     header = table.header
     sg_idx, t_idx, n_idx = (role_index(role, r) for r in ("subgroup", "time", "note"))
-    collect = functools.partial(_collect_wide, src, table, ctx)
-    numeric_table = _collect_all_numeric(table, role, collect)
-    if numeric_table is not None:
-        kinds, float_cols, collected = numeric_table
-    else:
-        kinds = _classify(table, ctx, role, notes)
-        float_cols = {j for j, k in kinds.items() if k == "value"}
-        collected = _with_fast_path(
-            table, float_cols, functools.partial(collect, kinds, float_cols)
-        )
-    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = collected
+    rows_acc, filled_acc, value_acc, sg_acc, t_acc, n_acc = _read_wide(src, table, ctx, role, notes)
     rows = rows_acc.result(np.int64)
     filled = filled_acc.result(bool)
     _refuse_no_values(src, table, filled, "part")
