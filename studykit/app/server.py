@@ -40,6 +40,10 @@ additions:
 * Kernels start without the debugger back end (``debugpy``, which Voila's pages cannot use):
   ``python -m studykit.app.kernel`` in place of ``-m ipykernel_launcher``
   (:mod:`studykit.app.kernel`), about 16 MB less per kernel.
+* The page loads only the front-end extensions the workbook uses, announces their entry
+  scripts in its ``<head>``, and announces the extension scripts earlier pages asked for, so
+  the browser fetches them at once instead of one round after the other
+  (:mod:`studykit.app.page_scripts`).
 * ``rfc3987_syntax`` is not imported: ``jsonschema`` imports it, when installed, only to check
   the "iri" string format (which no schema of the server uses), and it builds a grammar on import
   that took 1-2.8 s of the server's start.
@@ -82,6 +86,14 @@ from studykit.app.local_assets import (
     fontawesome_dir,
     localise_links,
 )
+from studykit.app.page_scripts import (
+    LABEXTENSIONS_ROUTE,
+    WORKBOOK_EXTENSIONS,
+    RememberingFileFindHandler,
+    ScriptMemory,
+    entry_scripts,
+    preload_tags,
+)
 from studykit.app.server_guard import (
     MAX_UPLOAD_BYTES,
     HostPolicy,
@@ -109,6 +121,7 @@ REFILL_PAUSE_S = 4.0  # and this long after that kernel ran the workbook (its pa
 KERNEL_THREAD_VARS = BLAS_THREAD_VARS
 _SLOTS = "studykit_page_start_slots"
 _HEAD_SNIPPET = "studykit_head_snippet"
+_SCRIPT_MEMORY = "studykit_script_memory"
 
 
 class BokehJSHandler(tornado.web.StaticFileHandler):
@@ -204,6 +217,9 @@ class WorkbookPageHandler(TornadoVoilaHandler):
             if self._client_gone:  # the page was closed while it waited: start no kernel
                 return
             snippet = self.settings.get(_HEAD_SNIPPET, "")
+            memory = self.settings.get(_SCRIPT_MEMORY)
+            if memory is not None:  # the extension scripts earlier pages asked for
+                snippet = preload_tags(memory.urls()) + snippet
             injected = not snippet
             async for html in self.get_generator(path=path):
                 html = localise_links(html, self.base_url)  # icons from here, not a CDN
@@ -266,6 +282,10 @@ class StudykitVoila(Voila):
         super().initialize(argv)
         # serve no files from the notebook folder (Voila's default allows images)
         self.voila_configuration.file_allowlist = []
+        configuration = self.voila_configuration
+        if not configuration.extension_allowlist and not configuration.extension_denylist:
+            # only the front-end extensions the workbook uses (studykit.app.page_scripts)
+            configuration.extension_allowlist = list(WORKBOOK_EXTENSIONS)
         self._set_config_if_unset("VoilaExecutor", "iopub_timeout", IOPUB_TIMEOUT)
         if self.kernel_idle_minutes > 0:
             idle = max(1, round(self.kernel_idle_minutes * 60))
@@ -282,9 +302,14 @@ class StudykitVoila(Voila):
 
     def init_handlers(self):
         handlers = []
+        memory = self.settings_memory()
+        extensions_route = url_path_join(self.server_url, "/" + LABEXTENSIONS_ROUTE + "(.*)")
         for spec in super().init_handlers():
             if isinstance(spec, tuple) and len(spec) >= 2 and spec[1] is TornadoVoilaHandler:
                 spec = (spec[0], WorkbookPageHandler, *spec[2:])
+            elif isinstance(spec, tuple) and len(spec) == 3 and spec[0] == extensions_route:
+                # the same files, and the scripts served are remembered for the next pages
+                spec = (spec[0], RememberingFileFindHandler, {**spec[2], "memory": memory})
             handlers.append(spec)
         route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
         handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
@@ -301,6 +326,12 @@ class StudykitVoila(Voila):
         handlers.insert(0, request_rule(self.host_policy, self.log))
         return handlers
 
+    def settings_memory(self) -> ScriptMemory:
+        """The server's :class:`ScriptMemory` (made on first use)."""
+        if getattr(self, "_script_memory", None) is None:
+            self._script_memory = ScriptMemory(self.base_url)
+        return self._script_memory
+
     def init_settings(self):
         if self.voila_configuration.kernel_spec_manager_class is KernelSpecManager:
             # kernels without the debugger back end (module docstring)
@@ -311,9 +342,17 @@ class StudykitVoila(Voila):
         settings["log_function"] = log_request  # the path, never the query string
         slots = self.concurrent_page_starts or min(4, max(1, os.cpu_count() or 1))
         settings[_SLOTS] = asyncio.Semaphore(slots)
-        settings[_HEAD_SNIPPET] = preload_links(self.base_url) + upload_guard_script(
-            MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE
+        entries = entry_scripts(
+            self.base_url,
+            self.labextensions_path,
+            self.voila_configuration.extension_allowlist or (),
         )
+        settings[_HEAD_SNIPPET] = (
+            preload_links(self.base_url)
+            + preload_tags(entries)
+            + upload_guard_script(MAX_UPLOAD_BYTES, WEBSOCKET_MAX_MESSAGE)
+        )
+        settings[_SCRIPT_MEMORY] = self.settings_memory()
         if self.voila_configuration.preheat_kernel:
             refill_after_render(self.kernel_manager)
         return settings
