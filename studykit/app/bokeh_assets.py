@@ -10,12 +10,73 @@ from __future__ import annotations
 
 import json
 import os
+from typing import Any
 
 import ipywidgets as widgets
 
 from studykit import theme
 
 ENV_BOKEHJS_URL = "STUDYKIT_BOKEHJS_URL"  # same name as studykit.app.server.ENV_BOKEHJS_URL
+
+#: the names bokeh 3's ``Model.__init_subclass__`` uses: its own step is the model naming of
+#: ``HasProps``, then a call signature and an example note for the documentation, nothing else
+_MODEL_SUBCLASS_NAMES = frozenset(
+    {
+        "super",
+        "__init_subclass__",
+        "__module__",
+        "startswith",
+        "__dict__",
+        "str",
+        "parameters",
+        "__init__",
+        "Signature",
+        "__signature__",
+        "process_example",
+    }
+)
+
+
+def import_bokeh_models() -> bool:
+    """Import ``bokeh.models`` and ``bokeh.plotting`` without the documentation each of
+    bokeh's model classes gets as it is defined; True when that step was left out.
+
+    bokeh 3 gives every class of ``bokeh.models`` a call signature (``__init__.__signature__``,
+    from the defaults of all its properties) and an example note in its docstring while the
+    module is imported: about 0.1 s of the workbook kernel's start, for ``help()`` and editors
+    only, which a served page never uses. Here that step is left out for the classes defined
+    during this import (the model naming of ``HasProps``, which BokehJS relies on, runs as
+    before; classes defined later get bokeh's own step). Only when bokeh's step is the one this
+    was written for (the names its code uses, :data:`_MODEL_SUBCLASS_NAMES`) and
+    ``bokeh.models`` is not imported yet; otherwise a plain import.
+    """
+    import sys
+
+    if "bokeh.models" in sys.modules:
+        return False
+    from bokeh.core.has_props import HasProps
+    from bokeh.model.model import Model
+
+    original = Model.__dict__.get("__init_subclass__")
+    naming = HasProps.__dict__.get("__init_subclass__")
+    func = getattr(original, "__func__", None)
+    if func is None or naming is None or set(func.__code__.co_names) != _MODEL_SUBCLASS_NAMES:
+        import bokeh.models  # noqa: F401
+        import bokeh.plotting  # noqa: F401
+
+        return False
+
+    def named_only(cls) -> None:
+        naming.__func__(cls)
+
+    model: Any = Model
+    model.__init_subclass__ = classmethod(named_only)
+    try:
+        import bokeh.models  # noqa: F401
+        import bokeh.plotting  # noqa: F401
+    finally:
+        model.__init_subclass__ = original
+    return True
 
 
 def bokehjs_html(*, extras: tuple[str, ...] = ()) -> str:

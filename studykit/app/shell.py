@@ -512,9 +512,10 @@ def workbook_from_environment() -> Workbook:
 
     ``studykit serve`` sets ``STUDYKIT_STUDY`` (empty or unset: no study loaded).
     """
-    from studykit.app.bokeh_assets import load_bokehjs
+    from studykit.app.bokeh_assets import import_bokeh_models, load_bokehjs
 
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
+    import_bokeh_models()  # (without the classes' documentation: its docstring)
     load_bokehjs()
     wb = build_workbook(os.environ.get(ENV_STUDY) or None)
     release_free_memory()
