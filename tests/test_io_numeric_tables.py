@@ -6,7 +6,8 @@ read), reached here by switching the all-numbers route off. On random tables lar
 pandas' reader (more than ``PLAIN_MAX_CELLS`` cells), built from plain numbers, empty cells
 and cells that are not plain numbers (text, an overflowing exponent, ``nan``, a decimal
 comma), the two routes give the same measurements, notes and errors; a table of numbers never
-reaches the classification pass.
+reaches the classification pass. A small file on disk is split without pandas, as pandas
+reads it (reference: pandas' reader, the route taken once pandas is imported).
 """
 
 from __future__ import annotations
@@ -133,3 +134,33 @@ def test_same_as_classified_reading_odd_files(tmp_path, case, lines, encoding):
     path = tmp_path / "odd.csv"
     path.write_bytes(("\n".join(lines) + "\n").encode(encoding))
     assert _read(path, classify_all=False) == _read(path, classify_all=True), case
+
+
+def test_small_file_on_disk_read_without_pandas_as_with_it(tmp_path):
+    """A file of at most 1 MiB and ``PLAIN_MAX_TABLE_CELLS`` cells is split without pandas (in
+    a fresh process: pandas not imported); the measurements equal pandas' reading (this
+    process has pandas imported, so its reader takes pandas' route)."""
+    import subprocess
+    import sys
+
+    import pandas  # noqa: F401 - the reference route below
+
+    from studykit.io.plain import PLAIN_MAX_BYTES, PLAIN_MAX_TABLE_CELLS
+
+    path = tmp_path / "wide.csv"
+    path.write_text(
+        "\n".join(["subgroup,A,B,C"] + [f"{i // 5},{r}" for i, r in enumerate(_numbers(12_000, 3))])
+        + "\n"
+    )
+    assert PLAIN_MAX_CELLS < 4 * 12_001 <= PLAIN_MAX_TABLE_CELLS
+    assert path.stat().st_size <= PLAIN_MAX_BYTES
+    code = (
+        "import pickle, sys\n"
+        "from studykit.io.readers import read_measurements\n"
+        f"m = read_measurements({str(path)!r})\n"
+        "sys.stdout.buffer.write(pickle.dumps(('pandas' in sys.modules, m)))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, check=True)
+    imported, plain_read = pickle.loads(done.stdout)
+    assert imported is False
+    assert pickle.dumps(plain_read) == pickle.dumps(read_measurements(path))

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from studykit.errors import DataFileError, StudyInputError
+from studykit.io import plain
 from studykit.io.assemble import Acc, assemble_long, assemble_wide, subgroup_messages
 from studykit.io.cells import (
     CHARACTERISTIC_NAMES,
@@ -147,7 +148,10 @@ def read_measurements(
     """
     p, size = _regular_file(path)
     check_size(size, max_bytes, p.name)
-    src = Source(name=p.name, path=p, data=None, size=size)
+    # a small file is read into memory: a plain table is then split without pandas
+    # (studykit.io.plain.PLAIN_MAX_BYTES), which costs less than importing it
+    data = p.read_bytes() if size <= plain.PLAIN_MAX_BYTES else None
+    src = Source(name=p.name, path=p, data=data, size=size if data is None else len(data))
     return _read(
         src,
         sheet=sheet,
