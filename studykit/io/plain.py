@@ -2,10 +2,10 @@
 
 Reading a study's stored files is the only use of pandas on the workbook's landing view, and
 importing pandas holds about 28 MB of every workbook kernel (RSS, measured on this project's
-machine); a command that reads a small measurement file (a batch of 1,000 characteristics
-x 125 readings is 1 MB) saves the import, 0.15-0.23 s. The readers call these functions; each one does the work in numpy or plain Python
-when the input is small (:data:`PLAIN_MAX_CELLS`) and of a form whose result is certain to be
-pandas' own, and otherwise (a large input, a cell of any doubtful form, pandas already loaded)
+machine); a command that reads a small measurement file (a batch of 1,000 characteristics x
+125 readings is 1 MB) saves the import, 0.15-0.23 s. The readers call these functions; each
+one does the work in numpy or plain Python when the input is small (:data:`PLAIN_MAX_CELLS`,
+:data:`PLAIN_MAX_TABLE_CELLS`) and of a form whose result is certain to be pandas' own, and otherwise (a large input, a cell of any doubtful form, pandas already loaded)
 calls the pandas function it stands for. So a file reads to the same values either way; large
 files keep pandas' speed.
 
