@@ -70,14 +70,14 @@ class ScriptMemory:
     """The extension scripts pages of this server asked for, in the order first asked.
 
     >>> memory = ScriptMemory("/")
-    >>> memory.record("/voila/labextensions/x/static/7.2a0c.js", "v=2a0c")
+    >>> memory.record("/voila/labextensions/x/static/7.2a0c5e.js", "v=2a0c5e")
     True
-    >>> memory.record("/voila/labextensions/x/static/7.2a0c.js", "v=2a0c")  # known already
+    >>> memory.record("/voila/labextensions/x/static/7.2a0c5e.js", "v=2a0c5e")  # known already
     False
     >>> memory.record("/voila/labextensions/x/static/8.js", "token=abc")  # not a version tag
     False
     >>> memory.urls()
-    ['/voila/labextensions/x/static/7.2a0c.js?v=2a0c']
+    ['/voila/labextensions/x/static/7.2a0c5e.js?v=2a0c5e']
     """
 
     def __init__(self, base_url: str, limit: int = MAX_REMEMBERED) -> None:
