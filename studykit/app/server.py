@@ -44,6 +44,10 @@ additions:
   scripts in its ``<head>``, and announces the extension scripts earlier pages asked for, so
   the browser fetches them at once instead of one round after the other
   (:mod:`studykit.app.page_scripts`).
+* The page's scripts are served with V8's compile hint in front (``//#
+  allFunctionsCalledOnLoad``), so the browser compiles their functions on a background
+  thread rather than on the page's main thread (:mod:`studykit.app.compile_hints`;
+  ``StudykitVoila.script_compile_hint``).
 * ``rfc3987_syntax`` is not imported: ``jsonschema`` imports it, when installed, only to check
   the "iri" string format (which no schema of the server uses), and it builds a grammar on import
   that took 1-2.8 s of the server's start.
@@ -75,10 +79,12 @@ import tornado.web
 from bokeh.util.paths import bokehjs_path
 from jupyter_client.kernelspec import KernelSpecManager
 from jupyter_server.utils import url_path_join
-from traitlets import Float, Integer, Unicode
+from traitlets import Bool, Float, Integer, Unicode
 from voila.app import Voila
+from voila.static_file_handler import MultiStaticFileHandler, TemplateStaticFileHandler
 from voila.tornado.handler import TornadoVoilaHandler
 
+from studykit.app.compile_hints import HintedScripts, hinted, with_hint
 from studykit.app.kernel import WorkbookKernelSpecs
 from studykit.app.local_assets import (
     FONTAWESOME_ROUTE,
@@ -122,10 +128,14 @@ KERNEL_THREAD_VARS = BLAS_THREAD_VARS
 _SLOTS = "studykit_page_start_slots"
 _HEAD_SNIPPET = "studykit_head_snippet"
 _SCRIPT_MEMORY = "studykit_script_memory"
+#: Voila's handlers of its front end's files (its scripts get the compile hint)
+_SCRIPT_HANDLERS = (MultiStaticFileHandler, TemplateStaticFileHandler)
 
 
 class BokehJSHandler(tornado.web.StaticFileHandler):
-    """Serves only the listed BokehJS bundles; every other name is a 404."""
+    """Serves only the listed BokehJS bundles; every other name is a 404. The server
+    serves them with the compile hint (``with_hint(BokehJSHandler)``,
+    :mod:`studykit.app.compile_hints`) unless ``StudykitVoila.script_compile_hint`` is off."""
 
     def validate_absolute_path(self, root, absolute_path):
         if os.path.basename(absolute_path) not in BOKEHJS_FILES:
@@ -155,7 +165,8 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
         if self.should_return_304():
             self.set_status(304)
             return None
-        body = gzipped(self.absolute_path, os.stat(self.absolute_path).st_mtime_ns)
+        mtime_ns = os.stat(self.absolute_path).st_mtime_ns
+        body = gzipped(self.absolute_path, mtime_ns, isinstance(self, HintedScripts))
         self.set_header("Content-Encoding", "gzip")  # tornado then compresses it no further
         if not self.settings.get("compress_response"):  # else tornado's transform adds it
             self.set_header("Vary", "Accept-Encoding")
@@ -167,10 +178,11 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
         return None
 
 
-@functools.lru_cache(maxsize=len(BOKEHJS_FILES))
-def gzipped(path: str, mtime_ns: int) -> bytes:
-    """The gzip-compressed bytes of the file at ``path`` (cached per path and modification
-    time).
+@functools.lru_cache(maxsize=2 * len(BOKEHJS_FILES))
+def gzipped(path: str, mtime_ns: int, hint: bool = False) -> bytes:
+    """The gzip-compressed bytes of the file at ``path``, with ``hint`` the compile hint in
+    front (:func:`studykit.app.compile_hints.hinted`); cached per path, modification time and
+    ``hint``.
 
     Examples
     --------
@@ -178,10 +190,13 @@ def gzipped(path: str, mtime_ns: int) -> bytes:
     >>> with tempfile.NamedTemporaryFile(suffix=".js") as f:
     ...     _ = f.write(b"var x = 1;" * 100); f.flush()
     ...     gzip.decompress(gzipped(f.name, 0)) == b"var x = 1;" * 100
+    ...     gzip.decompress(gzipped(f.name, 0, True)) == hinted(b"var x = 1;" * 100)
+    True
     True
     """
     with open(path, "rb") as f:
-        return gzip.compress(f.read(), compresslevel=6, mtime=0)
+        content = f.read()
+    return gzip.compress(hinted(content) if hint else content, compresslevel=6, mtime=0)
 
 
 class WorkbookPageHandler(TornadoVoilaHandler):
@@ -270,6 +285,13 @@ class StudykitVoila(Voila):
         help="A kernel with no page connected is shut down after this many idle minutes "
         "(0: never). Sets MappingKernelManager.cull_idle_timeout unless that is given.",
     )
+    script_compile_hint = Bool(
+        True,
+        config=True,
+        help="Serve the page's scripts (Voila's, the extensions', BokehJS) with V8's compile "
+        "hint as their first line, so the browser compiles them off the page's main thread "
+        "(studykit.app.compile_hints).",
+    )
     concurrent_page_starts = Integer(
         0,
         config=True,
@@ -304,15 +326,20 @@ class StudykitVoila(Voila):
         handlers = []
         memory = self.settings_memory()
         extensions_route = url_path_join(self.server_url, "/" + LABEXTENSIONS_ROUTE + "(.*)")
+        scripts = with_hint if self.script_compile_hint else (lambda handler: handler)
         for spec in super().init_handlers():
             if isinstance(spec, tuple) and len(spec) >= 2 and spec[1] is TornadoVoilaHandler:
                 spec = (spec[0], WorkbookPageHandler, *spec[2:])
             elif isinstance(spec, tuple) and len(spec) == 3 and spec[0] == extensions_route:
                 # the same files, and the scripts served are remembered for the next pages
-                spec = (spec[0], RememberingFileFindHandler, {**spec[2], "memory": memory})
+                handler = scripts(RememberingFileFindHandler)
+                spec = (spec[0], handler, {**spec[2], "memory": memory})
+            elif isinstance(spec, tuple) and len(spec) >= 2 and spec[1] in _SCRIPT_HANDLERS:
+                spec = (spec[0], scripts(spec[1]), *spec[2:])  # Voila's front end
             handlers.append(spec)
         route = url_path_join(self.server_url, BOKEHJS_ROUTE, r"(.*)")
-        handlers.insert(0, (route, BokehJSHandler, {"path": str(bokehjs_path() / "js")}))
+        bokehjs = scripts(BokehJSHandler)
+        handlers.insert(0, (route, bokehjs, {"path": str(bokehjs_path() / "js")}))
         if fontawesome_dir() is not None:
             handlers.insert(
                 0,
