@@ -25,15 +25,19 @@ NOTEBOOK = Path(__file__).resolve().parents[1] / "notebooks" / "workbook.ipynb"
 ROUTE = "/voila/labextensions/"
 
 
-def test_memory_keeps_only_extension_scripts_with_a_version_tag():
-    memory = ScriptMemory("/base/")
+def test_memory_keeps_only_scripts_of_extensions_and_voila_with_a_version_tag():
+    memory = ScriptMemory("/base/", announced=["/base/voila/static/voila.js"])
     good = "/base/voila/labextensions/@x/y/static/7.2a0c.js"
     assert memory.record(good, "v=2a0c5e")
     assert not memory.record(good, "v=2a0c5e")  # once
     assert memory.record("/base/voila/labextensions/@x/y/static/remoteEntry.12ab.js", "")
+    assert memory.record("/base/voila/static/8.voila.js", "")  # Voila's own part
     refused = [
         ("/voila/labextensions/@x/y/static/8.js", ""),  # not below this server's base URL
-        ("/base/voila/static/8.voila.js", ""),  # not an extension's file
+        ("/voila/static/9.voila.js", ""),  # likewise
+        ("/base/voila/static/voila.js", ""),  # the page announces it itself
+        ("/base/voila/templates/lab/static/voila-style.js", ""),  # neither route
+        ("/base/voila/static/index.css", ""),  # not a script
         ("/base/voila/labextensions/@x/y/static/style.css", ""),  # not a script
         ('/base/voila/labextensions/@x/"><script>.js', ""),  # characters no bundle name has
         ("/base/voila/labextensions/@x/y/static/9.js", "v=12ab&token=secret"),
@@ -44,6 +48,7 @@ def test_memory_keeps_only_extension_scripts_with_a_version_tag():
     assert memory.urls() == [
         good + "?v=2a0c5e",
         "/base/voila/labextensions/@x/y/static/remoteEntry.12ab.js",
+        "/base/voila/static/8.voila.js",
     ]
 
 

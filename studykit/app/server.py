@@ -58,8 +58,6 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import functools
-import gzip
 import os
 import signal
 import socket
@@ -84,7 +82,8 @@ from voila.app import Voila
 from voila.static_file_handler import MultiStaticFileHandler, TemplateStaticFileHandler
 from voila.tornado.handler import TornadoVoilaHandler
 
-from studykit.app.compile_hints import HintedScripts, hinted, with_hint
+from studykit.app.compile_hints import with_hint
+from studykit.app.gzip_once import with_gzip_once
 from studykit.app.kernel import WorkbookKernelSpecs
 from studykit.app.local_assets import (
     FONTAWESOME_ROUTE,
@@ -94,9 +93,12 @@ from studykit.app.local_assets import (
 )
 from studykit.app.page_scripts import (
     LABEXTENSIONS_ROUTE,
+    VOILA_STATIC_ROUTE,
     WORKBOOK_EXTENSIONS,
     RememberingFileFindHandler,
+    RememberingStaticFiles,
     ScriptMemory,
+    before_head_end,
     entry_scripts,
     preload_tags,
 )
@@ -133,9 +135,10 @@ _SCRIPT_HANDLERS = (MultiStaticFileHandler, TemplateStaticFileHandler)
 
 
 class BokehJSHandler(tornado.web.StaticFileHandler):
-    """Serves only the listed BokehJS bundles; every other name is a 404. The server
-    serves them with the compile hint (``with_hint(BokehJSHandler)``,
-    :mod:`studykit.app.compile_hints`) unless ``StudykitVoila.script_compile_hint`` is off."""
+    """Serves only the listed BokehJS bundles; every other name is a 404. The server serves
+    them compressed once (:mod:`studykit.app.gzip_once`) and with the compile hint
+    (:mod:`studykit.app.compile_hints`) unless ``StudykitVoila.script_compile_hint`` is off,
+    like the page's other files."""
 
     def validate_absolute_path(self, root, absolute_path):
         if os.path.basename(absolute_path) not in BOKEHJS_FILES:
@@ -146,57 +149,6 @@ class BokehJSHandler(tornado.web.StaticFileHandler):
     def get_cache_time(cls, path, modified, mime_type):
         # the URL carries the bokeh version, so the file never changes under it
         return 365 * 24 * 3600
-
-    async def get(self, path: str, include_body: bool = True) -> None:
-        """The bundle gzip-compressed once per server (:func:`gzipped`), not on every request
-        (``compress_response`` took about 40 ms of the server's CPU per page for the 1.3 MB
-        main bundle); a client without gzip or asking for a range gets tornado's answer."""
-        headers = self.request.headers
-        if "gzip" not in headers.get("Accept-Encoding", "") or headers.get("Range"):
-            return await super().get(path, include_body)
-        self.path = self.parse_url_path(path)
-        self.absolute_path = self.validate_absolute_path(
-            self.root, self.get_absolute_path(self.root, self.path)
-        )
-        if self.absolute_path is None:
-            return None
-        self.modified = self.get_modified_time()
-        self.set_headers()
-        if self.should_return_304():
-            self.set_status(304)
-            return None
-        mtime_ns = os.stat(self.absolute_path).st_mtime_ns
-        body = gzipped(self.absolute_path, mtime_ns, isinstance(self, HintedScripts))
-        self.set_header("Content-Encoding", "gzip")  # tornado then compresses it no further
-        if not self.settings.get("compress_response"):  # else tornado's transform adds it
-            self.set_header("Vary", "Accept-Encoding")
-        self.clear_header("Accept-Ranges")  # ranges are answered uncompressed (above)
-        if include_body:
-            self.write(body)
-        else:
-            self.set_header("Content-Length", len(body))
-        return None
-
-
-@functools.lru_cache(maxsize=2 * len(BOKEHJS_FILES))
-def gzipped(path: str, mtime_ns: int, hint: bool = False) -> bytes:
-    """The gzip-compressed bytes of the file at ``path``, with ``hint`` the compile hint in
-    front (:func:`studykit.app.compile_hints.hinted`); cached per path, modification time and
-    ``hint``.
-
-    Examples
-    --------
-    >>> import gzip, tempfile
-    >>> with tempfile.NamedTemporaryFile(suffix=".js") as f:
-    ...     _ = f.write(b"var x = 1;" * 100); f.flush()
-    ...     gzip.decompress(gzipped(f.name, 0)) == b"var x = 1;" * 100
-    ...     gzip.decompress(gzipped(f.name, 0, True)) == hinted(b"var x = 1;" * 100)
-    True
-    True
-    """
-    with open(path, "rb") as f:
-        content = f.read()
-    return gzip.compress(hinted(content) if hint else content, compresslevel=6, mtime=0)
 
 
 class WorkbookPageHandler(TornadoVoilaHandler):
@@ -233,13 +185,15 @@ class WorkbookPageHandler(TornadoVoilaHandler):
                 return
             snippet = self.settings.get(_HEAD_SNIPPET, "")
             memory = self.settings.get(_SCRIPT_MEMORY)
-            if memory is not None:  # the extension scripts earlier pages asked for
-                snippet = preload_tags(memory.urls()) + snippet
-            injected = not snippet
+            # the scripts earlier pages asked for: last in the head (page_scripts)
+            remembered = preload_tags(memory.urls()) if memory is not None else ""
+            injected, announced = not snippet, not remembered
             async for html in self.get_generator(path=path):
                 html = localise_links(html, self.base_url)  # icons from here, not a CDN
                 if not injected:
                     html, injected = inject_into_head(html, snippet)
+                if injected and not announced:
+                    html, announced = before_head_end(html, remembered)
                 self.write(html)
                 self.flush()
 
@@ -251,7 +205,8 @@ def preload_links(base_url: str) -> str:
     and runs it as soon as it can (for a first visitor while the kernel still runs the
     notebook), instead of after the kernel connection, when the notebook's output would run it
     (there the 0.15-0.5 s of running it held up the widgets). The kernel's output then loads
-    nothing (:func:`studykit.app.bokeh_assets.bokehjs_html`).
+    nothing (:func:`studykit.app.bokeh_assets.bokehjs_html`). BokehJS is announced as well: an
+    ``async`` script alone is fetched at low priority, after the page's other files.
 
     Examples
     --------
@@ -264,6 +219,7 @@ def preload_links(base_url: str) -> str:
     bokehjs = url_path_join(base_url, BOKEHJS_ROUTE, BOKEHJS_FILES[0])
     return (
         f'<link rel="preload" as="script" href="{voila}">'
+        f'<link rel="preload" as="script" href="{bokehjs}">'  # fetched first, not last
         f'<script async type="text/javascript" src="{bokehjs}"></script>'
     )
 
@@ -326,7 +282,11 @@ class StudykitVoila(Voila):
         handlers = []
         memory = self.settings_memory()
         extensions_route = url_path_join(self.server_url, "/" + LABEXTENSIONS_ROUTE + "(.*)")
-        scripts = with_hint if self.script_compile_hint else (lambda handler: handler)
+        voila_static_route = url_path_join(self.server_url, "/" + VOILA_STATIC_ROUTE + "(.*)")
+
+        def scripts(handler: type) -> type:  # the page's files: compressed once, hinted
+            return with_gzip_once(with_hint(handler) if self.script_compile_hint else handler)
+
         for spec in super().init_handlers():
             if isinstance(spec, tuple) and len(spec) >= 2 and spec[1] is TornadoVoilaHandler:
                 spec = (spec[0], WorkbookPageHandler, *spec[2:])
@@ -334,6 +294,13 @@ class StudykitVoila(Voila):
                 # the same files, and the scripts served are remembered for the next pages
                 handler = scripts(RememberingFileFindHandler)
                 spec = (spec[0], handler, {**spec[2], "memory": memory})
+            elif (
+                isinstance(spec, tuple)
+                and len(spec) == 3
+                and spec[0] == voila_static_route
+                and spec[1] is MultiStaticFileHandler
+            ):  # Voila's front end: remembered likewise
+                spec = (spec[0], scripts(RememberingStaticFiles), {**spec[2], "memory": memory})
             elif isinstance(spec, tuple) and len(spec) >= 2 and spec[1] in _SCRIPT_HANDLERS:
                 spec = (spec[0], scripts(spec[1]), *spec[2:])  # Voila's front end
             handlers.append(spec)
@@ -345,7 +312,7 @@ class StudykitVoila(Voila):
                 0,
                 (
                     url_path_join(self.server_url, FONTAWESOME_ROUTE, r"(.*)"),
-                    FontAwesomeHandler,
+                    with_gzip_once(FontAwesomeHandler),
                     {"path": str(fontawesome_dir())},
                 ),
             )
@@ -356,7 +323,8 @@ class StudykitVoila(Voila):
     def settings_memory(self) -> ScriptMemory:
         """The server's :class:`ScriptMemory` (made on first use)."""
         if getattr(self, "_script_memory", None) is None:
-            self._script_memory = ScriptMemory(self.base_url)
+            voila_js = url_path_join(self.base_url, VOILA_STATIC_ROUTE, "voila.js")
+            self._script_memory = ScriptMemory(self.base_url, announced=[voila_js])
         return self._script_memory
 
     def init_settings(self):
