@@ -25,19 +25,15 @@ NOTEBOOK = Path(__file__).resolve().parents[1] / "notebooks" / "workbook.ipynb"
 ROUTE = "/voila/labextensions/"
 
 
-def test_memory_keeps_only_scripts_of_extensions_and_voila_with_a_version_tag():
-    memory = ScriptMemory("/base/", announced=["/base/voila/static/voila.js"])
+def test_memory_keeps_only_extension_scripts_with_a_version_tag():
+    memory = ScriptMemory("/base/")
     good = "/base/voila/labextensions/@x/y/static/7.2a0c.js"
     assert memory.record(good, "v=2a0c5e")
     assert not memory.record(good, "v=2a0c5e")  # once
     assert memory.record("/base/voila/labextensions/@x/y/static/remoteEntry.12ab.js", "")
-    assert memory.record("/base/voila/static/8.voila.js", "")  # Voila's own part
     refused = [
         ("/voila/labextensions/@x/y/static/8.js", ""),  # not below this server's base URL
-        ("/voila/static/9.voila.js", ""),  # likewise
-        ("/base/voila/static/voila.js", ""),  # the page announces it itself
-        ("/base/voila/templates/lab/static/voila-style.js", ""),  # neither route
-        ("/base/voila/static/index.css", ""),  # not a script
+        ("/base/voila/static/8.voila.js", ""),  # not an extension's file
         ("/base/voila/labextensions/@x/y/static/style.css", ""),  # not a script
         ('/base/voila/labextensions/@x/"><script>.js', ""),  # characters no bundle name has
         ("/base/voila/labextensions/@x/y/static/9.js", "v=12ab&token=secret"),
@@ -48,7 +44,6 @@ def test_memory_keeps_only_scripts_of_extensions_and_voila_with_a_version_tag():
     assert memory.urls() == [
         good + "?v=2a0c5e",
         "/base/voila/labextensions/@x/y/static/remoteEntry.12ab.js",
-        "/base/voila/static/8.voila.js",
     ]
 
 
@@ -139,4 +134,8 @@ def test_pages_announce_entry_scripts_and_what_earlier_pages_asked_for(tmp_path)
         assert status == 200
         preloads = _head_preloads(second)
         assert chunk_url in preloads
+        # announced after what the head asks for itself (its blocking style script first)
+        head = second.split("</head>", 1)[0]
+        assert "voila-style.js" in head
+        assert head.index("voila-style.js") < head.index(chunk_url)
         assert not any("token=" in u or "no-such-file" in u for u in preloads)

@@ -11,15 +11,13 @@ waited for four such rounds (about 0.3 s of its 1.9 s). Here:
   code) or whatever else a user has installed for JupyterLab.
 * **Their entry scripts are announced** at the top of every page (``<link rel="preload">``):
   the browser fetches them while the kernel still runs the notebook.
-* **The parts the pages asked for are announced to the next pages**
-  (:class:`ScriptMemory`): the extensions' file route and the route of Voila's own front end
-  (``voila/static/``: some 80 parts, which its page otherwise asks for only once ``voila.js``
-  has run, then more after the kernel connection) record every script they served to a
-  page (a file that exists, an extension's ``?v=`` version tag kept, at most
-  :data:`MAX_REMEMBERED`), so a later visitor's browser fetches them all at once, before the
-  code asks. Nothing is announced that no page asked for (a chunk the workbook does not use
-  is never fetched) and no guess of the bundles' layout is made, so a new version of Voila
-  or an extension only changes what is remembered.
+* **The parts the pages asked for are announced to the next pages**, at the end of the page's
+  ``<head>`` (:class:`ScriptMemory`): the extensions' file route records every script it served
+  to a page (a file that exists, its ``?v=`` version tag kept, at most :data:`MAX_REMEMBERED`), so
+  a later visitor's browser fetches them all at once, before the code asks. Nothing is
+  announced that no page asked for (a chunk the workbook does not use is never fetched) and
+  no guess of the bundles' layout is made, so a new version of an extension only changes
+  what is remembered.
 
 Measured with ``tests/bench/bench_app.py`` (README, performance).
 """
@@ -30,19 +28,14 @@ import html
 import re
 from collections.abc import Iterable
 
-import tornado.web
 from jupyter_server.base.handlers import FileFindHandler
 from jupyter_server.utils import url_path_join
-from voila.static_file_handler import MultiStaticFileHandler
 
 __all__ = [
     "LABEXTENSIONS_ROUTE",
     "MAX_REMEMBERED",
-    "VOILA_STATIC_ROUTE",
     "WORKBOOK_EXTENSIONS",
     "RememberingFileFindHandler",
-    "RememberingFiles",
-    "RememberingStaticFiles",
     "ScriptMemory",
     "before_head_end",
     "entry_scripts",
@@ -56,12 +49,9 @@ WORKBOOK_EXTENSIONS = (
 )
 #: Voila's route of the front-end extensions' files (below the server's base URL)
 LABEXTENSIONS_ROUTE = "voila/labextensions/"
-#: Voila's route of its own front end's files (below the server's base URL)
-VOILA_STATIC_ROUTE = "voila/static/"
-#: at most this many scripts are remembered (the workbook's page asked for 16 extension
-#: scripts and 85 of Voila's)
-MAX_REMEMBERED = 192
-# a file name of the bundles, and the version tag webpack adds to a chunk's address
+#: at most this many scripts are remembered (the workbook's page asked for 16)
+MAX_REMEMBERED = 64
+# a file name of the extensions' bundles, and the version tag webpack adds to a chunk's address
 _SCRIPT_PATH = re.compile(r"[A-Za-z0-9@_./-]+\.js")
 _VERSION_TAG = re.compile(r"v=[0-9a-f]{6,64}")
 
@@ -84,8 +74,8 @@ def before_head_end(page: str, snippet: str) -> tuple[str, bool]:
     """``page`` with ``snippet`` right before its ``</head>`` tag, and whether it was found.
 
     The remembered scripts are announced there, after what the page's head asks for itself
-    (its styles and the blocking style script): a browser fetches at most six files at once
-    from one server, in the order it finds them, so those come first.
+    (its styles and Voila's blocking style script): a browser fetches at most six files at
+    once from one server, in the order it finds them, so those come first.
 
     >>> before_head_end("<head><link></head><body>", "<x>")
     ('<head><link><x></head><body>', True)
@@ -99,39 +89,28 @@ def before_head_end(page: str, snippet: str) -> tuple[str, bool]:
 
 
 class ScriptMemory:
-    """The extension scripts and Voila's scripts pages of this server asked for, in the order
-    first asked; ``announced`` addresses (the page names them itself) are left out.
+    """The extension scripts pages of this server asked for, in the order first asked.
 
-    >>> memory = ScriptMemory("/", announced=["/voila/static/voila.js"])
+    >>> memory = ScriptMemory("/")
     >>> memory.record("/voila/labextensions/x/static/7.2a0c5e.js", "v=2a0c5e")
     True
     >>> memory.record("/voila/labextensions/x/static/7.2a0c5e.js", "v=2a0c5e")  # known already
     False
     >>> memory.record("/voila/labextensions/x/static/8.js", "token=abc")  # not a version tag
     False
-    >>> memory.record("/voila/static/3992.voila.js", ""), memory.record("/voila/static/voila.js", "")
-    (True, False)
     >>> memory.urls()
-    ['/voila/labextensions/x/static/7.2a0c5e.js?v=2a0c5e', '/voila/static/3992.voila.js']
+    ['/voila/labextensions/x/static/7.2a0c5e.js?v=2a0c5e']
     """
 
-    def __init__(
-        self, base_url: str, limit: int = MAX_REMEMBERED, announced: Iterable[str] = ()
-    ) -> None:
-        self.prefixes = tuple(
-            url_path_join(base_url, route) for route in (LABEXTENSIONS_ROUTE, VOILA_STATIC_ROUTE)
-        )
+    def __init__(self, base_url: str, limit: int = MAX_REMEMBERED) -> None:
+        self.prefix = url_path_join(base_url, LABEXTENSIONS_ROUTE)
         self.limit = limit
-        self.announced = frozenset(announced)
         self._urls: dict[str, None] = {}  # insertion-ordered set
 
     def record(self, path: str, query: str) -> bool:
-        """Remember a script served to a page (``path`` below :data:`LABEXTENSIONS_ROUTE` or
-        :data:`VOILA_STATIC_ROUTE`, ``query`` empty or its version tag); True when it was
-        new."""
-        if not path.startswith(self.prefixes) or not _SCRIPT_PATH.fullmatch(path):
-            return False
-        if path in self.announced:
+        """Remember a script served to a page (``path`` below :data:`LABEXTENSIONS_ROUTE`,
+        ``query`` empty or its version tag); True when it was new."""
+        if not path.startswith(self.prefix) or not _SCRIPT_PATH.fullmatch(path):
             return False
         if query and not _VERSION_TAG.fullmatch(query):
             return False
@@ -159,9 +138,9 @@ def entry_scripts(base_url: str, labextensions_path: list[str], names: Iterable[
     return urls
 
 
-class RememberingFiles(tornado.web.StaticFileHandler):
-    """Mix-in for a static-file handler: tells :class:`ScriptMemory` (the ``memory``
-    argument) which files it served to a page."""
+class RememberingFileFindHandler(FileFindHandler):
+    """Voila's handler of the extensions' files, telling :class:`ScriptMemory` (the
+    ``memory`` argument) which scripts it served."""
 
     def initialize(self, *args, memory: ScriptMemory | None = None, **kwargs) -> None:
         super().initialize(*args, **kwargs)
@@ -175,13 +154,3 @@ class RememberingFiles(tornado.web.StaticFileHandler):
         ):
             self._memory.record(self.request.path, self.request.query)
         super().on_finish()
-
-
-class RememberingFileFindHandler(RememberingFiles, FileFindHandler):
-    """Voila's handler of the extensions' files, telling :class:`ScriptMemory` which scripts
-    it served."""
-
-
-class RememberingStaticFiles(RememberingFiles, MultiStaticFileHandler):
-    """Voila's handler of its own front end's files (``voila/static/``), telling
-    :class:`ScriptMemory` which scripts it served."""

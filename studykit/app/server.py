@@ -93,10 +93,8 @@ from studykit.app.local_assets import (
 )
 from studykit.app.page_scripts import (
     LABEXTENSIONS_ROUTE,
-    VOILA_STATIC_ROUTE,
     WORKBOOK_EXTENSIONS,
     RememberingFileFindHandler,
-    RememberingStaticFiles,
     ScriptMemory,
     before_head_end,
     entry_scripts,
@@ -282,7 +280,6 @@ class StudykitVoila(Voila):
         handlers = []
         memory = self.settings_memory()
         extensions_route = url_path_join(self.server_url, "/" + LABEXTENSIONS_ROUTE + "(.*)")
-        voila_static_route = url_path_join(self.server_url, "/" + VOILA_STATIC_ROUTE + "(.*)")
 
         def scripts(handler: type) -> type:  # the page's files: compressed once, hinted
             return with_gzip_once(with_hint(handler) if self.script_compile_hint else handler)
@@ -294,13 +291,6 @@ class StudykitVoila(Voila):
                 # the same files, and the scripts served are remembered for the next pages
                 handler = scripts(RememberingFileFindHandler)
                 spec = (spec[0], handler, {**spec[2], "memory": memory})
-            elif (
-                isinstance(spec, tuple)
-                and len(spec) == 3
-                and spec[0] == voila_static_route
-                and spec[1] is MultiStaticFileHandler
-            ):  # Voila's front end: remembered likewise
-                spec = (spec[0], scripts(RememberingStaticFiles), {**spec[2], "memory": memory})
             elif isinstance(spec, tuple) and len(spec) >= 2 and spec[1] in _SCRIPT_HANDLERS:
                 spec = (spec[0], scripts(spec[1]), *spec[2:])  # Voila's front end
             handlers.append(spec)
@@ -323,8 +313,7 @@ class StudykitVoila(Voila):
     def settings_memory(self) -> ScriptMemory:
         """The server's :class:`ScriptMemory` (made on first use)."""
         if getattr(self, "_script_memory", None) is None:
-            voila_js = url_path_join(self.base_url, VOILA_STATIC_ROUTE, "voila.js")
-            self._script_memory = ScriptMemory(self.base_url, announced=[voila_js])
+            self._script_memory = ScriptMemory(self.base_url)
         return self._script_memory
 
     def init_settings(self):
