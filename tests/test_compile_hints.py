@@ -13,8 +13,8 @@ from pathlib import Path
 from urllib.parse import urlsplit
 
 import pytest
-import tornado.testing
 import tornado.web
+from static_server import request, serving
 
 from studykit.app.compile_hints import COMPILE_HINT, HintedScripts, with_hint
 from studykit.app.server import BOKEHJS_ROUTE, server_process
@@ -38,63 +38,59 @@ def test_with_hint_puts_the_mixin_first_once():
     assert with_hint(cls) is cls
 
 
-class HintedFilesTest(tornado.testing.AsyncHTTPTestCase):
-    def get_app(self):
-        import tempfile
+@pytest.fixture(scope="module")
+def hinted_port(tmp_path_factory):
+    root = tmp_path_factory.mktemp("files")
+    (root / "app.js").write_bytes(SCRIPT)
+    (root / "style.css").write_bytes(STYLE)
+    app = tornado.web.Application(
+        [
+            (r"/hinted/(.*)", with_hint(tornado.web.StaticFileHandler), {"path": str(root)}),
+            (r"/plain/(.*)", tornado.web.StaticFileHandler, {"path": str(root)}),
+        ]
+    )
+    with serving(app) as port:
+        yield port
 
-        self._dir = tempfile.TemporaryDirectory()
-        root = Path(self._dir.name)
-        (root / "app.js").write_bytes(SCRIPT)
-        (root / "style.css").write_bytes(STYLE)
-        return tornado.web.Application(
-            [
-                (r"/hinted/(.*)", with_hint(tornado.web.StaticFileHandler), {"path": str(root)}),
-                (r"/plain/(.*)", tornado.web.StaticFileHandler, {"path": str(root)}),
-            ]
-        )
 
-    def tearDown(self):
-        super().tearDown()
-        self._dir.cleanup()
+def test_script_is_the_hint_then_the_file(hinted_port):
+    status, headers, body = request(hinted_port, "/hinted/app.js")
+    assert status == 200
+    assert body == COMPILE_HINT + SCRIPT
+    assert int(headers["Content-Length"]) == len(COMPILE_HINT) + len(SCRIPT)
 
-    def _get(self, path, **headers):
-        return self.fetch(path, headers=headers, decompress_response=False)
 
-    def test_script_is_the_hint_then_the_file(self):
-        r = self._get("/hinted/app.js")
-        assert r.code == 200
-        assert r.body == COMPILE_HINT + SCRIPT
-        assert int(r.headers["Content-Length"]) == len(COMPILE_HINT) + len(SCRIPT)
+def test_other_files_are_served_as_they_are(hinted_port):
+    _, headers, body = request(hinted_port, "/hinted/style.css")
+    assert body == STYLE
+    assert headers["Etag"] == request(hinted_port, "/plain/style.css")[1]["Etag"]
 
-    def test_other_files_are_served_as_they_are(self):
-        r = self._get("/hinted/style.css")
-        assert r.body == STYLE
-        assert r.headers["Etag"] == self._get("/plain/style.css").headers["Etag"]
 
-    def test_validator_follows_the_served_bytes(self):
-        hinted, plain = self._get("/hinted/app.js"), self._get("/plain/app.js")
-        assert hinted.headers["Etag"] != plain.headers["Etag"]
-        again = self._get("/hinted/app.js", **{"If-None-Match": hinted.headers["Etag"]})
-        assert again.code == 304
+def test_validator_follows_the_served_bytes(hinted_port):
+    hinted = request(hinted_port, "/hinted/app.js")[1]["Etag"]
+    assert hinted != request(hinted_port, "/plain/app.js")[1]["Etag"]
+    assert request(hinted_port, "/hinted/app.js", **{"If-None-Match": hinted})[0] == 304
 
-    def test_head_gives_the_served_size(self):
-        r = self.fetch("/hinted/app.js", method="HEAD")
-        assert int(r.headers["Content-Length"]) == len(COMPILE_HINT) + len(SCRIPT)
 
-    def test_ranges_are_ranges_of_the_served_bytes(self):
-        served = COMPILE_HINT + SCRIPT
-        n = len(COMPILE_HINT)
-        for spec, expected in [
-            ("bytes=0-9", served[0:10]),  # inside the hint
-            (f"bytes={n - 4}-{n + 11}", served[n - 4 : n + 12]),  # across its end
-            (f"bytes={n}-{n + 5}", served[n : n + 6]),  # the file's first bytes
-            (f"bytes={n + 100}-", served[n + 100 :]),  # the rest, from inside the file
-            ("bytes=-7", served[-7:]),  # the last bytes
-        ]:
-            r = self._get("/hinted/app.js", Range=spec)
-            assert r.code == 206, spec
-            assert r.body == expected, spec
-            assert int(r.headers["Content-Length"]) == len(expected), spec
+def test_head_gives_the_served_size(hinted_port):
+    _, headers, _ = request(hinted_port, "/hinted/app.js", method="HEAD")
+    assert int(headers["Content-Length"]) == len(COMPILE_HINT) + len(SCRIPT)
+
+
+def test_ranges_are_ranges_of_the_served_bytes(hinted_port):
+    served = COMPILE_HINT + SCRIPT
+    n = len(COMPILE_HINT)
+    for spec, expected in [
+        ("bytes=0-9", served[0:10]),  # inside the hint
+        (f"bytes={n - 4}-{n + 11}", served[n - 4 : n + 12]),  # across its end
+        (f"bytes={n}-{n + 5}", served[n : n + 6]),  # the file's first bytes
+        (f"bytes={n + 100}-", served[n + 100 :]),  # the rest, from inside the file
+        ("bytes=-7", served[-7:]),  # the last bytes
+    ]:
+        status, headers, body = request(hinted_port, "/hinted/app.js", Range=spec)
+        assert status == 206, spec
+        assert body == expected, spec
+        assert int(headers["Content-Length"]) == len(expected), spec
 
 
 def _raw_get(url: str, path: str, **headers) -> tuple[int, dict, bytes]:

@@ -6,12 +6,11 @@ gzip (RFC 1952), read back with Python's ``gzip`` module."""
 from __future__ import annotations
 
 import gzip
-import tempfile
-from pathlib import Path
 from unittest import mock
 
-import tornado.testing
+import pytest
 import tornado.web
+from static_server import request, serving
 
 from studykit.app import gzip_once
 from studykit.app.compile_hints import COMPILE_HINT, with_hint
@@ -40,87 +39,86 @@ def test_compressible_follows_tornado():
     assert not compressible("image/png") and not compressible("font/woff2")
 
 
-class GzipOnceTest(tornado.testing.AsyncHTTPTestCase):
-    def get_app(self):
-        self._dir = tempfile.TemporaryDirectory()
-        root = Path(self._dir.name)
-        (root / "app.js").write_bytes(SCRIPT)
-        (root / "style.css").write_bytes(STYLE)
-        (root / "font.woff2").write_bytes(FONT)
-        path = {"path": str(root)}
-        return tornado.web.Application(
-            [
-                (r"/once/(.*)", with_gzip_once(tornado.web.StaticFileHandler), path),
-                (r"/hinted/(.*)", with_gzip_once(with_hint(tornado.web.StaticFileHandler)), path),
-                (r"/tornado/(.*)", tornado.web.StaticFileHandler, path),
-            ],
-            compress_response=True,
-        )
+GZ = {"Accept-Encoding": "gzip"}
 
-    def tearDown(self):
-        super().tearDown()
-        self._dir.cleanup()
 
-    def _get(self, path, **headers):
-        return self.fetch(path, headers=headers, decompress_response=False)
+@pytest.fixture(scope="module")
+def port(tmp_path_factory):
+    root = tmp_path_factory.mktemp("files")
+    (root / "app.js").write_bytes(SCRIPT)
+    (root / "style.css").write_bytes(STYLE)
+    (root / "font.woff2").write_bytes(FONT)
+    path = {"path": str(root)}
+    app = tornado.web.Application(
+        [
+            (r"/once/(.*)", with_gzip_once(tornado.web.StaticFileHandler), path),
+            (r"/hinted/(.*)", with_gzip_once(with_hint(tornado.web.StaticFileHandler)), path),
+            (r"/tornado/(.*)", tornado.web.StaticFileHandler, path),
+        ],
+        compress_response=True,
+    )
+    with serving(app) as p:
+        yield p
 
-    def test_compressed_as_tornado_compresses(self):
-        for name, content in (("app.js", SCRIPT), ("style.css", STYLE)):
-            ours = self._get(f"/once/{name}", **{"Accept-Encoding": "gzip"})
-            theirs = self._get(f"/tornado/{name}", **{"Accept-Encoding": "gzip"})
-            assert ours.code == theirs.code == 200
-            assert ours.headers["Content-Encoding"] == theirs.headers["Content-Encoding"] == "gzip"
-            assert gzip.decompress(ours.body) == gzip.decompress(theirs.body) == content
-            assert ours.headers["Content-Type"] == theirs.headers["Content-Type"]
-            assert "Accept-Encoding" in ours.headers["Vary"]
-            assert int(ours.headers["Content-Length"]) == len(ours.body)
-            assert ours.headers["Etag"] == theirs.headers["Etag"]
 
-    def test_compressed_once(self):
-        made = []
-        real = gzip_once.gzip.compress
+def test_compressed_as_tornado_compresses(port):
+    for name, content in (("app.js", SCRIPT), ("style.css", STYLE)):
+        ours, theirs = request(port, f"/once/{name}", **GZ), request(port, f"/tornado/{name}", **GZ)
+        assert ours[0] == theirs[0] == 200
+        assert ours[1]["Content-Encoding"] == theirs[1]["Content-Encoding"] == "gzip"
+        assert gzip.decompress(ours[2]) == gzip.decompress(theirs[2]) == content
+        assert ours[1]["Content-Type"] == theirs[1]["Content-Type"]
+        assert "Accept-Encoding" in ours[1]["Vary"]
+        assert int(ours[1]["Content-Length"]) == len(ours[2])
+        assert ours[1]["Etag"] == theirs[1]["Etag"]
 
-        def counting(data, **kwargs):
-            made.append(len(data))
-            return real(data, **kwargs)
 
-        with mock.patch.object(gzip_once.gzip, "compress", counting):
-            bodies = {
-                self._get("/once/app.js", **{"Accept-Encoding": "gzip"}).body for _ in range(3)
-            }
-        assert len(bodies) == 1
-        assert made == [len(SCRIPT)]
+def test_compressed_once(port):
+    made = []
+    real = gzip_once.gzip.compress
 
-    def test_hinted_scripts_are_compressed_with_the_hint(self):
-        r = self._get("/hinted/app.js", **{"Accept-Encoding": "gzip"})
-        assert gzip.decompress(r.body) == COMPILE_HINT + SCRIPT
-        css = self._get("/hinted/style.css", **{"Accept-Encoding": "gzip"})
-        assert gzip.decompress(css.body) == STYLE
+    def counting(data, **kwargs):
+        made.append(len(data))
+        return real(data, **kwargs)
 
-    def test_other_answers_are_tornados(self):
-        plain = self._get("/once/app.js")  # no gzip asked for
-        assert "Content-Encoding" not in plain.headers and plain.body == SCRIPT
-        asked = {"Accept-Encoding": "gzip", "Range": "bytes=0-9"}
-        ranged, theirs = self._get("/once/app.js", **asked), self._get("/tornado/app.js", **asked)
-        assert ranged.code == theirs.code == 206
-        assert ranged.body == theirs.body  # (tornado compresses a range's bytes)
-        assert _decoded(ranged) == SCRIPT[:10]
-        font = self._get("/once/font.woff2", **{"Accept-Encoding": "gzip"})
-        assert "Content-Encoding" not in font.headers and font.body == FONT
-        missing = self._get("/once/nothing.js", **{"Accept-Encoding": "gzip"})
-        assert missing.code == 404
+    gzip_once.CACHE._bodies.clear()
+    with mock.patch.object(gzip_once.gzip, "compress", counting):
+        bodies = {request(port, "/once/app.js", **GZ)[2] for _ in range(3)}
+    assert len(bodies) == 1
+    assert made == [len(SCRIPT)]
 
-    def test_not_modified(self):
-        first = self._get("/once/app.js", **{"Accept-Encoding": "gzip"})
-        again = self._get(
-            "/once/app.js", **{"Accept-Encoding": "gzip", "If-None-Match": first.headers["Etag"]}
-        )
-        assert again.code == 304 and again.body == b""
 
-    def test_head_gives_the_compressed_size(self):
-        body = self._get("/once/style.css", **{"Accept-Encoding": "gzip"}).body
-        head = self.fetch("/once/style.css", method="HEAD", headers={"Accept-Encoding": "gzip"})
-        assert int(head.headers["Content-Length"]) == len(body)
+def test_hinted_scripts_are_compressed_with_the_hint(port):
+    assert gzip.decompress(request(port, "/hinted/app.js", **GZ)[2]) == COMPILE_HINT + SCRIPT
+    assert gzip.decompress(request(port, "/hinted/style.css", **GZ)[2]) == STYLE
+
+
+def test_other_answers_are_tornados(port):
+    status, headers, body = request(port, "/once/app.js")  # no gzip asked for
+    assert "Content-Encoding" not in headers and body == SCRIPT
+    asked = {**GZ, "Range": "bytes=0-9"}
+    ranged, theirs = (
+        request(port, "/once/app.js", **asked),
+        request(port, "/tornado/app.js", **asked),
+    )
+    assert ranged[0] == theirs[0] == 206
+    assert ranged[2] == theirs[2]  # (tornado compresses a range's bytes)
+    assert _decoded(ranged) == SCRIPT[:10]
+    status, headers, body = request(port, "/once/font.woff2", **GZ)
+    assert "Content-Encoding" not in headers and body == FONT
+    assert request(port, "/once/nothing.js", **GZ)[0] == 404
+
+
+def test_not_modified(port):
+    etag = request(port, "/once/app.js", **GZ)[1]["Etag"]
+    status, _, body = request(port, "/once/app.js", **GZ, **{"If-None-Match": etag})
+    assert status == 304 and body == b""
+
+
+def test_head_gives_the_compressed_size(port):
+    body = request(port, "/once/style.css", **GZ)[2]
+    headers = request(port, "/once/style.css", method="HEAD", **GZ)[1]
+    assert int(headers["Content-Length"]) == len(body)
 
 
 def test_the_cache_is_bounded():
@@ -136,6 +134,5 @@ def test_the_cache_is_bounded():
 
 
 def _decoded(response) -> bytes:
-    if response.headers.get("Content-Encoding") == "gzip":
-        return gzip.decompress(response.body)
-    return response.body
+    _, headers, body = response
+    return gzip.decompress(body) if headers.get("Content-Encoding") == "gzip" else body
